@@ -1,0 +1,113 @@
+//! Transfer functions: a ratio of two real polynomials in `s` (continuous)
+//! or in `z` (discrete, with the sample period kept beside it).
+
+use crate::poly::{C64, Poly};
+
+/// A rational function `num(x) / den(x)`, `x` being `s` or `z`.
+///
+/// Nothing is cancelled automatically: a pole-zero pair that the user
+/// wrote stays, because silently cancelling an unstable pole hides a
+/// loop that cannot work.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Tf {
+    pub num: Poly,
+    pub den: Poly,
+}
+
+/// A transfer function in `z` at a fixed sample period (seconds).
+#[derive(Debug, Clone, PartialEq)]
+pub struct DiscreteTf {
+    pub tf: Tf,
+    pub period_s: f64,
+}
+
+impl Tf {
+    /// `num / den`.
+    pub fn new(num: Poly, den: Poly) -> Self {
+        Tf { num, den }
+    }
+
+    /// The constant gain `k`.
+    pub fn gain(k: f64) -> Self {
+        Tf::new(Poly::constant(k), Poly::one())
+    }
+
+    /// Proper: degree of numerator <= degree of denominator.
+    pub fn is_proper(&self) -> bool {
+        self.num.is_zero() || self.num.degree() <= self.den.degree()
+    }
+
+    /// Strictly proper: numerator degree below denominator degree.
+    pub fn is_strictly_proper(&self) -> bool {
+        self.num.is_zero() || self.num.degree() < self.den.degree()
+    }
+
+    /// Order (denominator degree).
+    pub fn order(&self) -> usize {
+        self.den.degree()
+    }
+
+    /// Value at a complex point.
+    pub fn eval(&self, x: C64) -> C64 {
+        self.num.eval_c(x) / self.den.eval_c(x)
+    }
+
+    /// Series connection `self * other`.
+    pub fn series(&self, other: &Tf) -> Tf {
+        Tf::new(self.num.mul(&other.num), self.den.mul(&other.den))
+    }
+
+    /// Negative-feedback loop `self / (1 + self * feedback)`.
+    pub fn feedback(&self, feedback: &Tf) -> Tf {
+        let num = self.num.mul(&feedback.den);
+        let den = self
+            .den
+            .mul(&feedback.den)
+            .add(&self.num.mul(&feedback.num));
+        Tf::new(num, den)
+    }
+
+    /// Poles (roots of the denominator); `None` when the root finder fails.
+    pub fn poles(&self) -> Option<Vec<C64>> {
+        self.den.roots()
+    }
+
+    /// Finite zeros (roots of the numerator); empty for a zero numerator.
+    pub fn zeros(&self) -> Option<Vec<C64>> {
+        if self.num.is_zero() {
+            return Some(Vec::new());
+        }
+        self.num.roots()
+    }
+
+    /// Gain of the continuous model at s = 0: `None` when there is a pole
+    /// at the origin (the gain is infinite).
+    pub fn dc_gain_s(&self) -> Option<f64> {
+        let d = self.den.eval(0.0);
+        (d != 0.0).then(|| self.num.eval(0.0) / d)
+    }
+
+    /// Normalised so the leading denominator coefficient is one.
+    pub fn monic(&self) -> Tf {
+        let l = self.den.leading();
+        Tf::new(self.num.scale(1.0 / l), self.den.scale(1.0 / l))
+    }
+
+    /// Every coefficient finite.
+    pub fn is_finite(&self) -> bool {
+        self.num.is_finite() && self.den.is_finite()
+    }
+}
+
+impl DiscreteTf {
+    /// Gain of the discrete model at z = 1; `None` with a pole at z = 1.
+    pub fn dc_gain_z(&self) -> Option<f64> {
+        let d = self.tf.den.eval(1.0);
+        (d != 0.0).then(|| self.tf.num.eval(1.0) / d)
+    }
+
+    /// Frequency response at `w` rad/s: the value at z = e^{jwT}.
+    pub fn freq(&self, w_rad_s: f64) -> C64 {
+        self.tf.eval(C64::from_polar(1.0, w_rad_s * self.period_s))
+    }
+}
