@@ -76,3 +76,212 @@ impl FromStr for Method {
             .ok_or_else(|| UnknownMethod(s.to_string()))
     }
 }
+
+use nalgebra::{DMatrix, DVector};
+
+use crate::poly::{C64, Poly};
+use crate::ss::{ModelError, StateSpace, expm, hold_integrals};
+use crate::tf::{DiscreteTf, Tf};
+
+/// Why a method could not produce a controller at a rate.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum DiscretizeError {
+    #[error("sample period must be positive and finite, got {0} s")]
+    Period(f64),
+    #[error(
+        "tustin-prewarp needs a pre-warp frequency (none given and the continuous loop has no crossover)"
+    )]
+    NoPrewarp,
+    #[error(
+        "tustin-prewarp at {w0_hz:.6} Hz needs w0*T < pi, but w0*T = {product:.4} at this rate"
+    )]
+    PrewarpAboveNyquist { w0_hz: f64, product: f64 },
+    #[error("matched: the gain rule is undefined here ({0})")]
+    MatchedGain(String),
+    #[error("{0}")]
+    Model(#[from] ModelError),
+}
+
+/// The controller that runs at period `period_s`, from `c` by `method`.
+///
+/// `prewarp_rad_s` is used by `tustin-prewarp` only (rad/s).
+pub fn discretize(
+    c: &Tf,
+    method: Method,
+    period_s: f64,
+    prewarp_rad_s: Option<f64>,
+) -> Result<DiscreteTf, DiscretizeError> {
+    if !(period_s > 0.0 && period_s.is_finite()) {
+        return Err(DiscretizeError::Period(period_s));
+    }
+    if c.den.is_zero() {
+        return Err(ModelError::ZeroDenominator.into());
+    }
+    if !c.is_proper() {
+        return Err(ModelError::Improper {
+            num: c.num.degree(),
+            den: c.den.degree(),
+        }
+        .into());
+    }
+    let t = period_s;
+    let tf = match method {
+        Method::Zoh => step_invariant(c, t)?,
+        Method::Foh => ramp_invariant(c, t)?,
+        Method::Impulse => impulse_invariant(c, t)?,
+        Method::Tustin => substitute(c, 2.0 / t, -2.0 / t, 1.0, 1.0),
+        Method::TustinPrewarp => {
+            let w0 = prewarp_rad_s.ok_or(DiscretizeError::NoPrewarp)?;
+            if !(w0 > 0.0 && w0.is_finite()) {
+                return Err(DiscretizeError::NoPrewarp);
+            }
+            let product = w0 * t;
+            if product >= std::f64::consts::PI {
+                return Err(DiscretizeError::PrewarpAboveNyquist {
+                    w0_hz: w0 / (2.0 * std::f64::consts::PI),
+                    product,
+                });
+            }
+            let k = w0 / (product / 2.0).tan();
+            substitute(c, k, -k, 1.0, 1.0)
+        }
+        Method::Matched => matched(c, t)?,
+        Method::ForwardEuler => substitute(c, 1.0 / t, -1.0 / t, 0.0, 1.0),
+        Method::BackwardEuler => substitute(c, 1.0 / t, -1.0 / t, 1.0, 0.0),
+    };
+    if !tf.is_finite() || tf.den.is_zero() {
+        return Err(ModelError::NonFinite.into());
+    }
+    Ok(DiscreteTf {
+        tf: tf.monic(),
+        period_s,
+    })
+}
+
+/// Rational substitution `s = (a z + b) / (c z + d)`, both polynomials
+/// multiplied by `(c z + d)^n`, n the denominator degree.
+fn substitute(tf: &Tf, a: f64, b: f64, c: f64, d: f64) -> Tf {
+    let n = tf.den.degree();
+    Tf::new(
+        tf.num.compose_mobius(a, b, c, d, n),
+        tf.den.compose_mobius(a, b, c, d, n),
+    )
+}
+
+/// Zero-order-hold (step-invariant) equivalent through Van Loan's integral.
+fn step_invariant(c: &Tf, t: f64) -> Result<Tf, DiscretizeError> {
+    let ss = StateSpace::from_tf(c)?;
+    if ss.order() == 0 {
+        return Ok(c.clone());
+    }
+    let (phi, gam) = hold_integrals(&ss.a, &ss.b, t)?;
+    Ok(StateSpace {
+        a: phi,
+        b: gam,
+        c: ss.c,
+        d: ss.d,
+    }
+    .to_tf(0)?)
+}
+
+/// Triangle-hold (ramp-invariant) equivalent: one exponential of
+/// `[[A T, B T, 0], [0, 0, 1], [0, 0, 0]]` gives `Phi`, `Gamma1` and
+/// `Gamma2`; then `B_d = Gamma1 - Gamma2 + Phi Gamma2`, `D_d = D + C Gamma2`
+/// (the non-causal first-order hold; the result is biproper).
+fn ramp_invariant(c: &Tf, t: f64) -> Result<Tf, DiscretizeError> {
+    let ss = StateSpace::from_tf(c)?;
+    let n = ss.order();
+    if n == 0 {
+        return Ok(c.clone());
+    }
+    let mut m = DMatrix::zeros(n + 2, n + 2);
+    m.view_mut((0, 0), (n, n)).copy_from(&(&ss.a * t));
+    m.view_mut((0, n), (n, 1)).copy_from(&(&ss.b * t));
+    m[(n, n + 1)] = 1.0;
+    let e = expm(&m)?;
+    let phi = e.view((0, 0), (n, n)).into_owned();
+    let g1: DVector<f64> = e.view((0, n), (n, 1)).column(0).into_owned();
+    let g2: DVector<f64> = e.view((0, n + 1), (n, 1)).column(0).into_owned();
+    let bd = &g1 - &g2 + &phi * &g2;
+    let dd = ss.d[0] + (&ss.c * &g2)[0];
+    Ok(StateSpace {
+        a: phi,
+        b: bd,
+        c: ss.c,
+        d: DVector::from_element(1, dd),
+    }
+    .to_tf(0)?)
+}
+
+/// Impulse-invariant equivalent scaled by T:
+/// `C(z) = D + T sum_{k>=0} h(kT) z^-k`, realised as
+/// `A_d = e^{AT}`, `B_d = e^{AT} B T`, `C_d = C`, `D_d = D + C B T`.
+fn impulse_invariant(c: &Tf, t: f64) -> Result<Tf, DiscretizeError> {
+    let ss = StateSpace::from_tf(c)?;
+    if ss.order() == 0 {
+        return Ok(c.clone());
+    }
+    let phi = expm(&(&ss.a * t))?;
+    let bd = &phi * &ss.b * t;
+    let dd = ss.d[0] + (&ss.c * &ss.b)[0] * t;
+    Ok(StateSpace {
+        a: phi,
+        b: bd,
+        c: ss.c,
+        d: DVector::from_element(1, dd),
+    }
+    .to_tf(0)?)
+}
+
+/// Pole-zero matching: finite poles and zeros by `z = e^{sT}`, zeros at
+/// infinity to `z = -1`, gain from the lowest-order behaviour at s = 0
+/// (`lim s^k C(s) = lim ((z-1)/T)^k C(z)`), which never divides by zero for
+/// integrators because their `(z - 1)` factors are removed exactly.
+fn matched(c: &Tf, t: f64) -> Result<Tf, DiscretizeError> {
+    if c.num.is_zero() {
+        return Ok(Tf::new(Poly::zero(), Poly::one()));
+    }
+    let kz = c.num.zero_root_count();
+    let kp = c.den.zero_root_count();
+    let num_nz = c.num.shift_down(kz);
+    let den_nz = c.den.shift_down(kp);
+    let zeros = num_nz.roots().ok_or(ModelError::Eigen)?;
+    let poles = den_nz.roots().ok_or(ModelError::Eigen)?;
+    let map = |r: &C64| (r * t).exp();
+    let zeros_z: Vec<C64> = zeros.iter().map(map).collect();
+    let poles_z: Vec<C64> = poles.iter().map(map).collect();
+    let n_inf = c.den.degree() - c.num.degree();
+    let mut num = Poly::from_roots(&zeros_z)
+        .mul(&Poly::from_descending(&[1.0, -1.0]).pow(kz as u32))
+        .mul(&Poly::from_descending(&[1.0, 1.0]).pow(n_inf as u32));
+    let den = Poly::from_roots(&poles_z).mul(&Poly::from_descending(&[1.0, -1.0]).pow(kp as u32));
+    // Low-frequency value of s^k C(s) with k = kp - kz: ratio of the lowest
+    // non-zero coefficients.
+    let k = kp as i32 - kz as i32;
+    let cont = num_nz.coeff(0) / den_nz.coeff(0);
+    // Same quantity for the discrete map with (z - 1) factors removed.
+    let prod_z: f64 = zeros_z
+        .iter()
+        .map(|z| C64::new(1.0, 0.0) - z)
+        .product::<C64>()
+        .re;
+    let prod_p: f64 = poles_z
+        .iter()
+        .map(|p| C64::new(1.0, 0.0) - p)
+        .product::<C64>()
+        .re;
+    if prod_p == 0.0 || prod_z == 0.0 || !cont.is_finite() {
+        return Err(DiscretizeError::MatchedGain(
+            "a pole or zero maps onto z = 1".into(),
+        ));
+    }
+    let disc = prod_z * 2f64.powi(n_inf as i32) / prod_p * t.powi(-k);
+    let gain = cont / disc;
+    if !gain.is_finite() {
+        return Err(DiscretizeError::MatchedGain(
+            "the gain is not finite".into(),
+        ));
+    }
+    num = num.scale(gain);
+    Ok(Tf::new(num, den))
+}

@@ -7,4 +7,5 @@
 
 pub mod discretize;
 pub mod poly;
+pub mod ss;
 pub mod tf;

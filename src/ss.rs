@@ -1,0 +1,272 @@
+//! State-space models on nalgebra: realisation of a transfer function,
+//! conversion back, eigenvalues with a capped iteration, and the guarded
+//! matrix exponential.
+
+use nalgebra::{DMatrix, DVector};
+
+use crate::poly::{C64, Poly};
+use crate::tf::Tf;
+
+/// A single-input model `x' = A x + B u` (or `x+ = A x + B u`),
+/// `y = C x + D u`, possibly with several outputs (rows of `C`).
+#[derive(Debug, Clone, PartialEq)]
+pub struct StateSpace {
+    pub a: DMatrix<f64>,
+    pub b: DVector<f64>,
+    pub c: DMatrix<f64>,
+    pub d: DVector<f64>,
+}
+
+/// A model that cannot be realised or converted.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum ModelError {
+    #[error(
+        "the transfer function is improper (numerator degree {num} > denominator degree {den})"
+    )]
+    Improper { num: usize, den: usize },
+    #[error("the denominator is zero")]
+    ZeroDenominator,
+    #[error("a coefficient is not finite")]
+    NonFinite,
+    #[error("the eigenvalue iteration did not converge")]
+    Eigen,
+    #[error("the matrix exponential overflowed (time constant far shorter than the step)")]
+    Exponential,
+}
+
+impl StateSpace {
+    /// Number of states.
+    pub fn order(&self) -> usize {
+        self.a.nrows()
+    }
+
+    /// Realise a proper transfer function in controllable canonical form,
+    /// then balance it with an exact power-of-two diagonal similarity, so
+    /// stiff models (time constants 1e-5 s next to 10 s) keep their digits
+    /// in the matrix exponential.
+    pub fn from_tf(tf: &Tf) -> Result<StateSpace, ModelError> {
+        if tf.den.is_zero() {
+            return Err(ModelError::ZeroDenominator);
+        }
+        if !tf.is_finite() {
+            return Err(ModelError::NonFinite);
+        }
+        if !tf.is_proper() {
+            return Err(ModelError::Improper {
+                num: tf.num.degree(),
+                den: tf.den.degree(),
+            });
+        }
+        let n = tf.den.degree();
+        let lead = tf.den.leading();
+        let den: Vec<f64> = tf.den.coeffs().iter().map(|v| v / lead).collect();
+        let num: Vec<f64> = (0..=n).map(|i| tf.num.coeff(i) / lead).collect();
+        let d = num[n];
+        let mut a = DMatrix::zeros(n, n);
+        let mut b = DVector::zeros(n);
+        let mut c = DMatrix::zeros(1, n);
+        if n > 0 {
+            for i in 0..n - 1 {
+                a[(i, i + 1)] = 1.0;
+            }
+            for j in 0..n {
+                a[(n - 1, j)] = -den[j];
+                c[(0, j)] = num[j] - d * den[j];
+            }
+            b[n - 1] = 1.0;
+        }
+        let mut ss = StateSpace {
+            a,
+            b,
+            c,
+            d: DVector::from_element(1, d),
+        };
+        ss.balance();
+        Ok(ss)
+    }
+
+    /// Diagonal similarity by powers of two that makes each state's row and
+    /// column norms of `A` comparable (the classic balancing iteration).
+    /// Exact in floating point, so the transfer function is unchanged.
+    fn balance(&mut self) {
+        let n = self.order();
+        for _ in 0..40 {
+            let mut changed = false;
+            for i in 0..n {
+                let mut r = 0.0;
+                let mut c = 0.0;
+                for j in 0..n {
+                    if j != i {
+                        r += self.a[(i, j)].abs();
+                        c += self.a[(j, i)].abs();
+                    }
+                }
+                if r == 0.0 || c == 0.0 {
+                    continue;
+                }
+                let mut f = 1.0;
+                let s = r + c;
+                let (mut rr, mut cc) = (r, c);
+                while cc < rr / 2.0 {
+                    cc *= 2.0;
+                    rr /= 2.0;
+                    f *= 2.0;
+                }
+                while cc >= rr * 2.0 {
+                    cc /= 2.0;
+                    rr *= 2.0;
+                    f /= 2.0;
+                }
+                if (rr + cc) < 0.95 * s && f != 1.0 {
+                    changed = true;
+                    // x_i -> x_i / f : row i of A and B scale by 1/f, column i of A and C by f.
+                    for j in 0..n {
+                        self.a[(i, j)] /= f;
+                        self.a[(j, i)] *= f;
+                    }
+                    self.b[i] /= f;
+                    for r in 0..self.c.nrows() {
+                        self.c[(r, i)] *= f;
+                    }
+                }
+            }
+            if !changed {
+                break;
+            }
+        }
+    }
+
+    /// Transfer function from the input to output `row`, by the
+    /// determinant identity `C adj(xI - A) B = det(xI - A + B C) - det(xI - A)`
+    /// with both characteristic polynomials built from eigenvalues.
+    pub fn to_tf(&self, row: usize) -> Result<Tf, ModelError> {
+        let n = self.order();
+        let d = self.d[row];
+        if n == 0 {
+            return Ok(Tf::gain(d));
+        }
+        let den = charpoly(&self.a)?;
+        let crow = self.c.row(row);
+        let bc = &self.b * crow;
+        let closed = charpoly(&(&self.a - bc))?;
+        let strictly = closed.sub(&den);
+        let num = strictly.add(&den.scale(d));
+        Ok(Tf::new(num, den))
+    }
+}
+
+/// Characteristic polynomial `det(xI - M)` from the eigenvalues.
+pub fn charpoly(m: &DMatrix<f64>) -> Result<Poly, ModelError> {
+    Ok(Poly::from_roots(&eigenvalues(m)?))
+}
+
+/// Eigenvalues of a real square matrix with a capped Schur iteration.
+///
+/// nalgebra's uncapped routine can loop forever on some inputs (see the
+/// dependency notes), so the iteration count is capped and, when the cap
+/// is hit, the matrix is shifted by `sigma I` and tried again; the shift is
+/// removed from the answer.
+pub fn eigenvalues(m: &DMatrix<f64>) -> Result<Vec<C64>, ModelError> {
+    let n = m.nrows();
+    if n == 0 {
+        return Ok(Vec::new());
+    }
+    if !m.iter().all(|v| v.is_finite()) {
+        return Err(ModelError::NonFinite);
+    }
+    if n == 1 {
+        return Ok(vec![C64::new(m[(0, 0)], 0.0)]);
+    }
+    let scale = m.iter().fold(0.0f64, |acc, v| acc.max(v.abs())).max(1e-300);
+    for &shift in &[0.0, 0.173, -0.291, 0.457, -0.613, 1.0, -1.37] {
+        let sigma = shift * scale;
+        let mut s = m.clone();
+        for i in 0..n {
+            s[(i, i)] += sigma;
+        }
+        if let Some(schur) = s.try_schur(f64::EPSILON, 200 * n) {
+            let vals: Vec<C64> = schur
+                .complex_eigenvalues()
+                .iter()
+                .map(|e| e - sigma)
+                .collect();
+            if vals.iter().all(|v| v.re.is_finite() && v.im.is_finite()) {
+                return Ok(vals);
+            }
+        }
+    }
+    Err(ModelError::Eigen)
+}
+
+/// Matrix exponential, refusing an overflowed or non-finite result.
+pub fn expm(m: &DMatrix<f64>) -> Result<DMatrix<f64>, ModelError> {
+    if !m.iter().all(|v| v.is_finite()) {
+        return Err(ModelError::NonFinite);
+    }
+    let e = m.clone().exp();
+    if e.iter().all(|v| v.is_finite()) {
+        Ok(e)
+    } else {
+        Err(ModelError::Exponential)
+    }
+}
+
+/// Van Loan's augmented exponential for a held input over `h` seconds:
+/// returns `(e^{A h}, integral_0^h e^{A s} ds B)` from one exponential of
+/// `[[A, B], [0, 0]] h`, with no inverse of `A` (A is often singular).
+pub fn hold_integrals(
+    a: &DMatrix<f64>,
+    b: &DVector<f64>,
+    h: f64,
+) -> Result<(DMatrix<f64>, DVector<f64>), ModelError> {
+    let n = a.nrows();
+    let mut m = DMatrix::zeros(n + 1, n + 1);
+    m.view_mut((0, 0), (n, n)).copy_from(&(a * h));
+    m.view_mut((0, n), (n, 1)).copy_from(&(b * h));
+    let e = expm(&m)?;
+    Ok((
+        e.view((0, 0), (n, n)).into_owned(),
+        e.view((0, n), (n, 1)).column(0).into_owned(),
+    ))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn round_trip_tf_ss_tf() {
+        // (2 s^2 + 3 s + 5) / (s^3 + 4 s^2 + 6 s + 4): any realisation must
+        // give back the same coefficients (algebraic identity).
+        let tf = Tf::new(
+            Poly::from_descending(&[2.0, 3.0, 5.0]),
+            Poly::from_descending(&[1.0, 4.0, 6.0, 4.0]),
+        );
+        let back = StateSpace::from_tf(&tf).unwrap().to_tf(0).unwrap();
+        for (a, b) in back.num.descending().iter().zip([2.0, 3.0, 5.0]) {
+            assert!((a - b).abs() < 1e-12, "{a} vs {b}");
+        }
+        for (a, b) in back.den.descending().iter().zip([1.0, 4.0, 6.0, 4.0]) {
+            assert!((a - b).abs() < 1e-12);
+        }
+        // Biproper: (s + 3) / (s + 1) = 1 + 2/(s+1).
+        let tf = Tf::new(
+            Poly::from_descending(&[1.0, 3.0]),
+            Poly::from_descending(&[1.0, 1.0]),
+        );
+        let ss = StateSpace::from_tf(&tf).unwrap();
+        assert_eq!(ss.d[0], 1.0);
+        let back = ss.to_tf(0).unwrap();
+        assert!((back.num.coeff(0) - 3.0).abs() < 1e-12);
+    }
+
+    #[test]
+    fn van_loan_first_order() {
+        // x' = -a x + a u held for h: e^{-ah} and 1 - e^{-ah} (closed form).
+        let a = DMatrix::from_element(1, 1, -3.0);
+        let b = DVector::from_element(1, 3.0);
+        let (phi, gam) = hold_integrals(&a, &b, 0.1).unwrap();
+        assert!((phi[(0, 0)] - (-0.3f64).exp()).abs() < 1e-15);
+        assert!((gam[0] - (1.0 - (-0.3f64).exp())).abs() < 1e-15);
+    }
+}
