@@ -5,7 +5,12 @@
 //! evaluation (time, frequency) -> sweep -> search -> outputs. See
 //! `DEVELOPERS.md` for the map.
 
+pub mod closed_loop;
 pub mod discretize;
+pub mod frequency;
+pub mod hold;
 pub mod poly;
+pub mod scalar_solve;
 pub mod ss;
 pub mod tf;
+pub mod time_response;

@@ -111,3 +111,11 @@ impl DiscreteTf {
         self.tf.eval(C64::from_polar(1.0, w_rad_s * self.period_s))
     }
 }
+
+/// The controller as the case gives it: a continuous design to be
+/// discretized at each rate, or a fixed design in z at its own rate.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Controller {
+    Continuous(Tf),
+    Discrete(DiscreteTf),
+}
