@@ -6,7 +6,9 @@
 //! `DEVELOPERS.md` for the map.
 
 pub mod closed_loop;
+pub mod continuous;
 pub mod discretize;
+pub mod evaluate;
 pub mod frequency;
 pub mod hold;
 pub mod poly;

@@ -155,6 +155,64 @@ impl StateSpace {
     }
 }
 
+impl StateSpace {
+    /// Transfer value to output `row` at the complex point `x`:
+    /// `C (xI - A)^{-1} B + D`, by Gaussian elimination with partial
+    /// pivoting (no polynomial coefficients involved, so poles crowded near
+    /// z = 1 at fast rates cost no digits).
+    pub fn response_at(&self, x: C64, row: usize) -> C64 {
+        let n = self.order();
+        let mut m: Vec<C64> = Vec::with_capacity(n * (n + 1));
+        for i in 0..n {
+            for j in 0..n {
+                let d = if i == j { x } else { C64::new(0.0, 0.0) };
+                m.push(d - self.a[(i, j)]);
+            }
+            m.push(C64::new(self.b[i], 0.0));
+        }
+        let w = n + 1;
+        for col in 0..n {
+            let mut piv = col;
+            for r in col + 1..n {
+                if m[r * w + col].norm() > m[piv * w + col].norm() {
+                    piv = r;
+                }
+            }
+            if piv != col {
+                for j in 0..w {
+                    m.swap(col * w + j, piv * w + j);
+                }
+            }
+            let p = m[col * w + col];
+            if p.norm() == 0.0 {
+                return C64::new(f64::INFINITY, 0.0);
+            }
+            for r in col + 1..n {
+                let f = m[r * w + col] / p;
+                if f.norm() != 0.0 {
+                    for j in col..w {
+                        let v = m[col * w + j];
+                        m[r * w + j] -= f * v;
+                    }
+                }
+            }
+        }
+        let mut sol = vec![C64::new(0.0, 0.0); n];
+        for i in (0..n).rev() {
+            let mut acc = m[i * w + n];
+            for j in i + 1..n {
+                acc -= m[i * w + j] * sol[j];
+            }
+            sol[i] = acc / m[i * w + i];
+        }
+        let mut y = C64::new(self.d[row], 0.0);
+        for j in 0..n {
+            y += sol[j] * self.c[(row, j)];
+        }
+        y
+    }
+}
+
 /// Characteristic polynomial `det(xI - M)` from the eigenvalues.
 pub fn charpoly(m: &DMatrix<f64>) -> Result<Poly, ModelError> {
     Ok(Poly::from_roots(&eigenvalues(m)?))

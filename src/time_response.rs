@@ -212,15 +212,15 @@ pub fn horizon_steps(rho: f64, dim: usize) -> f64 {
 /// The exact sampled-data simulation: calls `on_point` at every output
 /// point (sample instants and `points_per_period - 1` points between).
 /// Stops at `periods`, or earlier once the state has converged to the
-/// fixed point `z_end` to 1e-12 (every later point equals the final
-/// value). Returns the number of periods run.
+/// fixed point `z_end` (when given) to 1e-12 (every later point equals
+/// the final value). Returns the number of periods run.
 pub fn simulate_sampled(
     cl: &ClosedLoop,
     hold: &HoldEquivalent,
     r: f64,
     w: f64,
     periods: usize,
-    z_end: &DVector<f64>,
+    z_end: Option<&DVector<f64>>,
     mut on_point: impl FnMut(TracePoint),
 ) -> usize {
     let dim = cl.a.nrows();
@@ -229,7 +229,7 @@ pub fn simulate_sampled(
     let tau = hold.delay_fraction * t_per;
     let mut z = DVector::zeros(dim);
     let mut next = DVector::zeros(dim);
-    let scale = 1.0 + z_end.amax();
+    let scale = 1.0 + z_end.map_or(0.0, |v| v.amax());
     let mut k = 0;
     while k < periods {
         let u_prev = z[n];
@@ -251,7 +251,12 @@ pub fn simulate_sampled(
         next.axpy(w, &cl.bw, 1.0);
         std::mem::swap(&mut z, &mut next);
         k += 1;
-        if k % 8 == 0 && (&z - z_end).amax() <= 1e-12 * scale {
+        if let Some(end) = z_end
+            && k % 8 == 0
+            && z.iter()
+                .zip(end.iter())
+                .all(|(a, b)| (a - b).abs() <= 1e-12 * scale)
+        {
             break;
         }
     }
@@ -281,7 +286,9 @@ pub fn sampled_figures(
         .ok_or("the closed loop has no steady state (pole at z = 1)")?;
     let y_final = output_at(&zr, 1.0, 0.0);
     let mut m = StepMetrics::new(y_final, opts.band);
-    let run = simulate_sampled(cl, hold, 1.0, 0.0, periods, &zr, |p| m.push(p.t, p.y, p.u));
+    let run = simulate_sampled(cl, hold, 1.0, 0.0, periods, Some(&zr), |p| {
+        m.push(p.t, p.y, p.u)
+    });
     let horizon_s = run as f64 * hold.period_s;
     let step = m.finish(horizon_s, capped && run >= periods);
 
@@ -290,7 +297,7 @@ pub fn sampled_figures(
         .ok_or("the closed loop has no steady state (pole at z = 1)")?;
     let yd_final = output_at(&zw, 0.0, 1.0);
     let mut peak = 0.0f64;
-    simulate_sampled(cl, hold, 0.0, 1.0, periods, &zw, |p| {
+    simulate_sampled(cl, hold, 0.0, 1.0, periods, Some(&zw), |p| {
         peak = peak.max(p.y.abs())
     });
     let mut rec = Recovery {
@@ -299,7 +306,9 @@ pub fn sampled_figures(
         since: None,
         prev: None,
     };
-    simulate_sampled(cl, hold, 0.0, 1.0, periods, &zw, |p| rec.push(p.t, p.y));
+    simulate_sampled(cl, hold, 0.0, 1.0, periods, Some(&zw), |p| {
+        rec.push(p.t, p.y)
+    });
     Ok((
         step,
         DisturbanceFigures {
@@ -319,8 +328,7 @@ pub fn sampled_trace(
     periods: usize,
 ) -> Vec<TracePoint> {
     let mut out = Vec::new();
-    let never = DVector::from_element(cl.a.nrows(), f64::INFINITY);
-    simulate_sampled(cl, hold, r, w, periods, &never, |p| out.push(p));
+    simulate_sampled(cl, hold, r, w, periods, None, |p| out.push(p));
     out
 }
 

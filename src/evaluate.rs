@@ -1,0 +1,400 @@
+//! One evaluation: a loop at one rate, one method and one computation
+//! delay, reduced to the figures of the loop model. Also the same figures
+//! for the continuous design and for each hold approximation.
+
+use serde::Serialize;
+
+use crate::closed_loop::{ClosedLoop, Stability};
+use crate::continuous::{ContinuousLoop, HoldApprox};
+use crate::discretize::{Method, discretize};
+use crate::frequency::{FrequencyRange, LoopFigures, loop_figures};
+use crate::hold::{HoldEquivalent, plant_and_sensor};
+use crate::poly::C64;
+use crate::ss::{ModelError, StateSpace};
+use crate::tf::{Controller, DiscreteTf, Tf};
+use crate::time_response::{
+    DisturbanceFigures, StepFigures, TimeOptions, TracePoint, horizon_steps, sampled_figures,
+    sampled_trace,
+};
+
+/// Outcome of one evaluation.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Status {
+    /// Stable: every figure computed.
+    Ok,
+    /// A closed-loop pole outside the unit circle (or right half-plane).
+    Unstable,
+    /// A pole on the stability boundary (e.g. z = 1 exactly).
+    Marginal,
+    /// Could not be evaluated; the reason says why.
+    Error(String),
+}
+
+impl Status {
+    /// Text used in CSV and tables: `ok`, `unstable`, `marginal`, `error: reason`.
+    pub fn label(&self) -> String {
+        match self {
+            Status::Ok => "ok".into(),
+            Status::Unstable => "unstable".into(),
+            Status::Marginal => "marginal".into(),
+            Status::Error(e) => format!("error: {e}"),
+        }
+    }
+}
+
+/// The figures of a stable loop (units in the names; see `loop-model.md`).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Figures {
+    pub y_final: f64,
+    pub overshoot_pct: Option<f64>,
+    pub settling_time_s: Option<f64>,
+    pub rise_time_s: Option<f64>,
+    pub disturbance_peak: f64,
+    pub recovery_time_s: Option<f64>,
+    pub u_peak: f64,
+    pub gain_margin_db: Option<f64>,
+    pub phase_margin_deg: Option<f64>,
+    pub crossover_hz: Option<f64>,
+    pub delay_margin_s: Option<f64>,
+    pub sensitivity_peak: f64,
+    pub horizon_s: f64,
+    pub horizon_capped: bool,
+}
+
+impl Figures {
+    fn from_parts(step: &StepFigures, dist: &DisturbanceFigures, freq: &LoopFigures) -> Figures {
+        Figures {
+            y_final: step.y_final,
+            overshoot_pct: step.overshoot_pct,
+            settling_time_s: step.settling_time_s,
+            rise_time_s: step.rise_time_s,
+            disturbance_peak: dist.disturbance_peak,
+            recovery_time_s: dist.recovery_time_s,
+            u_peak: step.u_peak,
+            gain_margin_db: freq.gain_margin_db,
+            phase_margin_deg: freq.phase_margin_deg,
+            crossover_hz: freq.crossover_hz,
+            delay_margin_s: freq.delay_margin_s,
+            sensitivity_peak: freq.sensitivity_peak,
+            horizon_s: step.horizon_s,
+            horizon_capped: step.horizon_capped,
+        }
+    }
+}
+
+/// One evaluated loop.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Evaluation {
+    pub status: Status,
+    pub stable: bool,
+    pub figures: Option<Figures>,
+    /// Closed-loop poles: z-plane for a sampled loop, s-plane (rad/s) for
+    /// a continuous one, as `[re, im]`.
+    pub closed_loop_poles: Vec<[f64; 2]>,
+    /// Every crossing and the peak's frequency, for charts and reports.
+    #[serde(skip)]
+    pub loop_detail: Option<LoopFigures>,
+}
+
+impl Evaluation {
+    fn error(reason: impl std::fmt::Display) -> Evaluation {
+        Evaluation {
+            status: Status::Error(reason.to_string()),
+            stable: false,
+            figures: None,
+            closed_loop_poles: Vec::new(),
+            loop_detail: None,
+        }
+    }
+
+    fn poles_only(status: Status, poles: &[C64]) -> Evaluation {
+        Evaluation {
+            status,
+            stable: false,
+            figures: None,
+            closed_loop_poles: poles.iter().map(|p| [p.re, p.im]).collect(),
+            loop_detail: None,
+        }
+    }
+}
+
+/// A grid point: rate, method (None for a controller given in z) and
+/// computation delay as a fraction of the period.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Point {
+    pub rate_hz: f64,
+    pub method: Option<Method>,
+    pub delay: f64,
+}
+
+/// Everything about the loop that does not depend on the rate, built once
+/// and shared by every evaluation of a sweep.
+#[derive(Debug, Clone)]
+pub struct PreparedLoop {
+    pub plant: Tf,
+    pub sensor: Tf,
+    pub controller: Controller,
+    /// Plant and sensor in series (outputs: plant, measured).
+    pub plant_model: StateSpace,
+    /// Continuous poles and zeros of plant, sensor and controller (rad/s):
+    /// where the frequency grid is made dense.
+    roots: Vec<C64>,
+    /// Pre-warp frequency for `tustin-prewarp`, rad/s.
+    pub prewarp_rad_s: Option<f64>,
+    pub time: TimeOptions,
+    /// The continuous design's own figures (None for a controller in z).
+    pub design: Option<Evaluation>,
+}
+
+impl PreparedLoop {
+    /// Prepare a loop; `prewarp_hz` None means the continuous crossover.
+    pub fn new(
+        plant: &Tf,
+        sensor: &Tf,
+        controller: &Controller,
+        prewarp_hz: Option<f64>,
+        time: TimeOptions,
+    ) -> Result<PreparedLoop, ModelError> {
+        let plant_model = plant_and_sensor(plant, sensor)?;
+        let mut roots = Vec::new();
+        let mut tfs = vec![plant, sensor];
+        if let Controller::Continuous(c) = controller {
+            tfs.push(c);
+        }
+        for tf in tfs {
+            roots.extend(tf.poles().ok_or(ModelError::Eigen)?);
+            roots.extend(tf.zeros().ok_or(ModelError::Eigen)?);
+        }
+        if let Controller::Discrete(d) = controller {
+            // Map the z-plane poles and zeros back to rad/s for the grid.
+            let back = |z: &C64| z.ln() / d.period_s;
+            let p = d.tf.poles().ok_or(ModelError::Eigen)?;
+            let z = d.tf.zeros().ok_or(ModelError::Eigen)?;
+            roots.extend(
+                p.iter()
+                    .chain(z.iter())
+                    .filter(|z| z.norm() > 0.0)
+                    .map(back),
+            );
+        }
+        let mut prepared = PreparedLoop {
+            plant: plant.clone(),
+            sensor: sensor.clone(),
+            controller: controller.clone(),
+            plant_model,
+            roots,
+            prewarp_rad_s: prewarp_hz.map(|f| 2.0 * std::f64::consts::PI * f),
+            time,
+            design: None,
+        };
+        if let Controller::Continuous(_) = controller {
+            let design = prepared.continuous(None);
+            if prewarp_hz.is_none() {
+                prepared.prewarp_rad_s = design
+                    .figures
+                    .as_ref()
+                    .and_then(|f| f.crossover_hz)
+                    .map(|f| 2.0 * std::f64::consts::PI * f);
+            }
+            prepared.design = Some(design);
+        }
+        Ok(prepared)
+    }
+
+    /// The controller that runs at `rate_hz`.
+    pub fn controller_at(
+        &self,
+        rate_hz: f64,
+        method: Option<Method>,
+    ) -> Result<DiscreteTf, String> {
+        let period = 1.0 / rate_hz;
+        match (&self.controller, method) {
+            (Controller::Continuous(c), Some(m)) => {
+                discretize(c, m, period, self.prewarp_rad_s).map_err(|e| e.to_string())
+            }
+            (Controller::Continuous(_), None) => Err("no discretization method given".into()),
+            (Controller::Discrete(d), _) => {
+                let own = 1.0 / d.period_s;
+                if ((rate_hz - own) / own).abs() > 1e-9 {
+                    Err(format!(
+                        "the controller is given in z at {own} Hz and cannot run at {rate_hz} Hz"
+                    ))
+                } else {
+                    Ok(d.clone())
+                }
+            }
+        }
+    }
+
+    fn range_below(&self, w_hi: f64) -> FrequencyRange {
+        let inside: Vec<C64> = self
+            .roots
+            .iter()
+            .copied()
+            .filter(|r| r.norm() < w_hi)
+            .collect();
+        let mut range = FrequencyRange::from_roots(&inside, Some(w_hi));
+        let slowest = self
+            .roots
+            .iter()
+            .map(|r| r.norm())
+            .filter(|&v| v > 0.0)
+            .fold(f64::INFINITY, f64::min);
+        if slowest.is_finite() {
+            range.w_lo = range.w_lo.min(slowest / 1e3);
+        }
+        range
+    }
+
+    /// Build the exact sampled loop at a point.
+    pub fn sampled_loop(
+        &self,
+        p: &Point,
+    ) -> Result<(HoldEquivalent, DiscreteTf, ClosedLoop), String> {
+        if !(p.rate_hz > 0.0 && p.rate_hz.is_finite()) {
+            return Err(format!(
+                "rate must be positive and finite, got {}",
+                p.rate_hz
+            ));
+        }
+        if !(0.0..=1.0).contains(&p.delay) {
+            return Err(format!("computation delay {} is outside [0, 1]", p.delay));
+        }
+        let period = 1.0 / p.rate_hz;
+        let c = self.controller_at(p.rate_hz, p.method)?;
+        let hold = HoldEquivalent::new(
+            &self.plant_model,
+            period,
+            p.delay,
+            self.time.points_per_period,
+        )
+        .map_err(|e| format!("plant equivalent: {e}"))?;
+        let cl = ClosedLoop::new(&hold, &c).map_err(|e| format!("closing the loop: {e}"))?;
+        Ok((hold, c, cl))
+    }
+
+    /// Evaluate the exact sampled-data loop at one point.
+    pub fn sampled(&self, p: &Point) -> Evaluation {
+        let (hold, c, cl) = match self.sampled_loop(p) {
+            Ok(v) => v,
+            Err(e) => return Evaluation::error(e),
+        };
+        let poles = match cl.poles() {
+            Ok(v) => v,
+            Err(e) => return Evaluation::error(format!("closed-loop poles: {e}")),
+        };
+        match ClosedLoop::stability(&poles) {
+            Stability::Stable => {}
+            Stability::Unstable => return Evaluation::poles_only(Status::Unstable, &poles),
+            Stability::Marginal => return Evaluation::poles_only(Status::Marginal, &poles),
+        }
+        let (step, dist) = match sampled_figures(&cl, &hold, &poles, &self.time) {
+            Ok(v) => v,
+            Err(e) => return Evaluation::error(e),
+        };
+        let plant_z = hold.augmented();
+        let t = hold.period_s;
+        let l = |w: f64| {
+            let z = C64::from_polar(1.0, w * t);
+            c.tf.eval(z) * plant_z.response_at(z, 0)
+        };
+        let range = self.range_below(std::f64::consts::PI / t);
+        let freq = loop_figures(&l, &range);
+        finish(step, dist, freq, &poles)
+    }
+
+    /// Exact traces (step, disturbance) at one point, `periods` long
+    /// (None: the horizon of the loop's slowest pole).
+    pub fn sampled_traces(
+        &self,
+        p: &Point,
+        periods: Option<usize>,
+    ) -> Result<(Vec<TracePoint>, Vec<TracePoint>), String> {
+        let (hold, _, cl) = self.sampled_loop(p)?;
+        let poles = cl.poles().map_err(|e| e.to_string())?;
+        let rho = poles.iter().map(|p| p.norm()).fold(0.0, f64::max);
+        let n = periods.unwrap_or_else(|| {
+            (horizon_steps(rho.min(0.999_999), cl.a.nrows()) as usize).min(self.time.max_steps)
+        });
+        Ok((
+            sampled_trace(&cl, &hold, 1.0, 0.0, n),
+            sampled_trace(&cl, &hold, 0.0, 1.0, n),
+        ))
+    }
+
+    /// Loop gain of the sampled loop at a point, as a closure over w (rad/s).
+    pub fn sampled_loop_gain(&self, p: &Point) -> Result<impl Fn(f64) -> C64 + use<>, String> {
+        let (hold, c, _) = self.sampled_loop(p)?;
+        let plant_z = hold.augmented();
+        let t = hold.period_s;
+        Ok(move |w: f64| {
+            let z = C64::from_polar(1.0, w * t);
+            c.tf.eval(z) * plant_z.response_at(z, 0)
+        })
+    }
+
+    /// The continuous loop: the design itself (`approx` None), or with the
+    /// hold and delay replaced by an approximation (`(kind, theta_s)`).
+    pub fn continuous(&self, approx: Option<(HoldApprox, f64)>) -> Evaluation {
+        let Controller::Continuous(c) = &self.controller else {
+            return Evaluation::error("the controller is given in z: no continuous design");
+        };
+        let act = approx.map(|(k, theta)| k.tf(theta));
+        let cl = match ContinuousLoop::new(
+            &self.plant_model,
+            &self.plant,
+            &self.sensor,
+            c,
+            act.as_ref(),
+        ) {
+            Ok(v) => v,
+            Err(e) => return Evaluation::error(e),
+        };
+        let poles = match cl.poles() {
+            Ok(v) => v,
+            Err(e) => return Evaluation::error(e),
+        };
+        let max_re = poles.iter().map(|p| p.re).fold(f64::NEG_INFINITY, f64::max);
+        let scale = poles.iter().map(|p| p.norm()).fold(1e-300, f64::max);
+        if max_re > 1e-10 * scale {
+            return Evaluation::poles_only(Status::Unstable, &poles);
+        }
+        if max_re > -1e-10 * scale {
+            return Evaluation::poles_only(Status::Marginal, &poles);
+        }
+        let (step, dist) = match cl.time_figures(&poles, &self.time) {
+            Ok(v) => v,
+            Err(e) => return Evaluation::error(e),
+        };
+        let mut roots = self.roots.clone();
+        if let Some((_, theta)) = approx {
+            roots.push(C64::new(-1.0 / theta, 0.0));
+        }
+        let range = FrequencyRange::from_roots(&roots, None);
+        let freq = loop_figures(&|w| cl.loop_at(w), &range);
+        finish(step, dist, freq, &poles)
+    }
+
+    /// The continuous loop with the hold and computation delay at `p`
+    /// replaced by `kind` (theta = T/2 + d T).
+    pub fn hold_approx(&self, p: &Point, kind: HoldApprox) -> Evaluation {
+        let period = 1.0 / p.rate_hz;
+        self.continuous(Some((kind, period / 2.0 + p.delay * period)))
+    }
+}
+
+fn finish(
+    step: StepFigures,
+    dist: DisturbanceFigures,
+    freq: LoopFigures,
+    poles: &[C64],
+) -> Evaluation {
+    Evaluation {
+        status: Status::Ok,
+        stable: true,
+        figures: Some(Figures::from_parts(&step, &dist, &freq)),
+        closed_loop_poles: poles.iter().map(|p| [p.re, p.im]).collect(),
+        loop_detail: Some(freq),
+    }
+}

@@ -1,0 +1,219 @@
+//! The exact sampled-data loop against textbook values, closed forms and
+//! brute-force simulation.
+
+use looprate::continuous::HoldApprox;
+use looprate::discretize::Method;
+use looprate::evaluate::{Point, PreparedLoop, Status};
+use looprate::poly::Poly;
+use looprate::tf::{Controller, DiscreteTf, Tf};
+use looprate::time_response::TimeOptions;
+
+fn tf(num: &[f64], den: &[f64]) -> Tf {
+    Tf::new(Poly::from_descending(num), Poly::from_descending(den))
+}
+
+#[test]
+fn textbook_unity_feedback_step_samples() {
+    // Unity feedback around the zoh equivalent of 1/(s(s+1)), T = 1 s,
+    // gain 1, d = 0: closed-loop step samples (Ogata, Discrete-Time Control
+    // Systems; from memory), to 1e-4.
+    let want = [
+        0.0, 0.3679, 1.0000, 1.3996, 1.3996, 1.1470, 0.8944, 0.8015, 0.8682, 0.9937, 1.0770,
+    ];
+    let c = Controller::Discrete(DiscreteTf {
+        tf: Tf::gain(1.0),
+        period_s: 1.0,
+    });
+    let lp = PreparedLoop::new(
+        &tf(&[1.0], &[1.0, 1.0, 0.0]),
+        &Tf::gain(1.0),
+        &c,
+        None,
+        TimeOptions::default(),
+    )
+    .unwrap();
+    let p = Point {
+        rate_hz: 1.0,
+        method: None,
+        delay: 0.0,
+    };
+    let (step, _) = lp.sampled_traces(&p, Some(11)).unwrap();
+    let samples: Vec<f64> = step.iter().filter(|q| q.sample).map(|q| q.y).collect();
+    assert_eq!(samples.len(), 11);
+    for (k, (g, w)) in samples.iter().zip(want).enumerate() {
+        assert!((g - w).abs() < 1e-4, "k={k}: {g} vs {w}");
+    }
+    // Another rate is refused with a clear message.
+    let e = lp.sampled(&Point { rate_hz: 2.0, ..p });
+    assert!(
+        matches!(e.status, Status::Error(ref m) if m.contains("cannot run at 2 Hz")),
+        "{:?}",
+        e.status
+    );
+}
+
+/// Brute-force reference: integrate the continuous plant with many small
+/// exact steps per period (RK4 on 1/(s(s+1)) in its own coordinates, 4000
+/// steps per period), the controller updated at every sample.
+fn brute_force_peak(k: f64, t: f64, periods: usize) -> (f64, f64) {
+    // Plant y'' + y' = u. Controller u_k = k (1 - y_k), applied at once.
+    let (mut y, mut v) = (0.0f64, 0.0f64);
+    let sub = 4000;
+    let h = t / sub as f64;
+    let mut peak_all = 0.0f64;
+    let mut peak_samples = 0.0f64;
+    for _ in 0..periods {
+        peak_samples = peak_samples.max(y);
+        let u = k * (1.0 - y);
+        for _ in 0..sub {
+            let f = |_y: f64, v: f64| (v, u - v);
+            let (k1y, k1v) = f(y, v);
+            let (k2y, k2v) = f(y + h / 2.0 * k1y, v + h / 2.0 * k1v);
+            let (k3y, k3v) = f(y + h / 2.0 * k2y, v + h / 2.0 * k2v);
+            let (k4y, k4v) = f(y + h * k3y, v + h * k3v);
+            y += h / 6.0 * (k1y + 2.0 * k2y + 2.0 * k3y + k4y);
+            v += h / 6.0 * (k1v + 2.0 * k2v + 2.0 * k3v + k4v);
+            peak_all = peak_all.max(y);
+        }
+    }
+    (peak_all, peak_samples)
+}
+
+#[test]
+fn intersample_overshoot_is_caught() {
+    // Same loop, T = 1 s: the plant output peaks between samples. The exact
+    // figure must match a brute-force fine-step simulation (RK4, 4000 steps
+    // a period) and exceed what the samples alone show.
+    let c = Controller::Discrete(DiscreteTf {
+        tf: Tf::gain(1.0),
+        period_s: 1.0,
+    });
+    let mut opts = TimeOptions::default();
+    opts.points_per_period = 400;
+    let lp = PreparedLoop::new(
+        &tf(&[1.0], &[1.0, 1.0, 0.0]),
+        &Tf::gain(1.0),
+        &c,
+        None,
+        opts,
+    )
+    .unwrap();
+    let e = lp.sampled(&Point {
+        rate_hz: 1.0,
+        method: None,
+        delay: 0.0,
+    });
+    let f = e.figures.unwrap();
+    let (peak_all, peak_samples) = brute_force_peak(1.0, 1.0, 40);
+    let exact_os = f.overshoot_pct.unwrap();
+    let brute_os = (peak_all - 1.0) * 100.0;
+    let sample_os = (peak_samples - 1.0) * 100.0;
+    assert!(
+        (exact_os - brute_os).abs() < 1e-3,
+        "{exact_os} vs {brute_os}"
+    );
+    assert!(
+        exact_os > sample_os + 1.0,
+        "{exact_os} vs samples {sample_os}"
+    );
+}
+
+#[test]
+fn fast_sampling_tends_to_continuous_second_order() {
+    // L = wn^2/(s(s + 2 zeta wn)) closes to the standard second-order loop:
+    // overshoot 100 exp(-zeta pi / sqrt(1-zeta^2)) (closed form). At 10 kHz
+    // with wn = 10 rad/s and d = 0, the sampled loop must be within 0.1
+    // percentage points, and its phase margin within 0.1 deg of the
+    // continuous one.
+    let (wn, zeta) = (10.0f64, 0.4f64);
+    let plant = tf(&[wn * wn], &[1.0, 2.0 * zeta * wn, 0.0]);
+    let c = Controller::Continuous(Tf::gain(1.0));
+    let lp = PreparedLoop::new(&plant, &Tf::gain(1.0), &c, None, TimeOptions::default()).unwrap();
+    let want = 100.0 * (-zeta * std::f64::consts::PI / (1.0 - zeta * zeta).sqrt()).exp();
+    let design = lp.design.as_ref().unwrap().figures.clone().unwrap();
+    assert!(
+        (design.overshoot_pct.unwrap() - want).abs() < 0.05,
+        "{design:?}"
+    );
+    let e = lp.sampled(&Point {
+        rate_hz: 10_000.0,
+        method: Some(Method::Tustin),
+        delay: 0.0,
+    });
+    let f = e.figures.unwrap();
+    assert!(
+        (f.overshoot_pct.unwrap() - want).abs() < 0.1,
+        "{} vs {want}",
+        f.overshoot_pct.unwrap()
+    );
+    let pm_c = design.phase_margin_deg.unwrap();
+    assert!((f.phase_margin_deg.unwrap() - pm_c).abs() < 0.1);
+}
+
+#[test]
+fn hold_costs_half_a_period_of_phase() {
+    // Fact of the trade (common practice, no source): the hold costs about
+    // w T / 2 rad of phase at crossover, plus w tau for the computation
+    // delay. For small w T the exact loss must agree to within 10 % of the
+    // predicted loss.
+    let plant = tf(&[40.0], &[1.0, 6.0, 0.0]);
+    let c = Controller::Continuous(tf(&[1.0, 3.0], &[1.0, 30.0]).series(&Tf::gain(5.0)));
+    let lp = PreparedLoop::new(&plant, &Tf::gain(1.0), &c, None, TimeOptions::default()).unwrap();
+    let design = lp.design.clone().unwrap().figures.unwrap();
+    let wc = design.crossover_hz.unwrap() * 2.0 * std::f64::consts::PI;
+    for (rate, d) in [(400.0, 0.0), (400.0, 1.0), (1000.0, 0.5)] {
+        let t = 1.0 / rate;
+        let e = lp.sampled(&Point {
+            rate_hz: rate,
+            method: Some(Method::Tustin),
+            delay: d,
+        });
+        let f = e.figures.unwrap();
+        let loss = design.phase_margin_deg.unwrap() - f.phase_margin_deg.unwrap();
+        let predicted = (wc * t / 2.0 + wc * d * t).to_degrees();
+        assert!(
+            (loss - predicted).abs() < 0.1 * predicted,
+            "rate {rate} d {d}: {loss} vs {predicted}"
+        );
+    }
+}
+
+#[test]
+fn lag_approximation_pole() {
+    // Closed form: the [0/1] lag for T = 0.2 s, tau = 0 has its pole at
+    // 1/(T/2) = 10 rad/s.
+    let lag = HoldApprox::Lag.tf(0.2 / 2.0);
+    let p = lag.poles().unwrap();
+    assert!((p[0].re + 10.0).abs() < 1e-12 && p[0].im == 0.0);
+}
+
+#[test]
+fn unstable_loop_reports_poles_only() {
+    // Gain 3 on the zoh equivalent of 1/(s(s+1)) at T = 1 s is unstable
+    // (the sampled loop's critical gain is about 2.39; closed form of the
+    // second-order characteristic polynomial's Jury test).
+    let c = Controller::Discrete(DiscreteTf {
+        tf: Tf::gain(3.0),
+        period_s: 1.0,
+    });
+    let lp = PreparedLoop::new(
+        &tf(&[1.0], &[1.0, 1.0, 0.0]),
+        &Tf::gain(1.0),
+        &c,
+        None,
+        TimeOptions::default(),
+    )
+    .unwrap();
+    let e = lp.sampled(&Point {
+        rate_hz: 1.0,
+        method: None,
+        delay: 0.0,
+    });
+    assert_eq!(e.status, Status::Unstable);
+    assert!(e.figures.is_none());
+    assert!(
+        e.closed_loop_poles
+            .iter()
+            .any(|p| (p[0] * p[0] + p[1] * p[1]).sqrt() > 1.0)
+    );
+}
