@@ -1,0 +1,25 @@
+//! The library's top-level error: everything a command can fail with.
+
+use crate::case::CaseError;
+use crate::ss::ModelError;
+
+#[derive(Debug, thiserror::Error)]
+pub enum Error {
+    /// The case file is unreadable or invalid (names the file and field).
+    #[error(transparent)]
+    Case(#[from] CaseError),
+    /// A model could not be realised or analysed.
+    #[error("{context}: {source}")]
+    Model {
+        context: String,
+        #[source]
+        source: ModelError,
+    },
+    /// A command-line value is out of range.
+    #[error("{0}")]
+    Input(String),
+    /// An output file could not be written (nothing half-written is left
+    /// under the final name).
+    #[error("cannot write {path}: {message}")]
+    Output { path: String, message: String },
+}

@@ -1,0 +1,178 @@
+//! The search for `f_star`: the lowest rate such that every rate from it
+//! up to `max_hz` is feasible (loop model), for one method and delay.
+//!
+//! The coarse sweep brackets it (the fastest infeasible grid rate and the
+//! grid rate above it); Brent root finding (argmin) on the limiting slack
+//! in ln f then narrows it, and a bisection guard certifies the final
+//! bracket `[lo, hi]` with `lo` infeasible, `hi` feasible and
+//! `hi / lo - 1 <= tol`. Where the slack jumps (settling time moving by a
+//! whole oscillation, a crossing appearing) Brent's bracket still holds,
+//! and the guard falls back to plain bisection.
+
+use std::cell::{Cell, RefCell};
+
+use serde::Serialize;
+
+use crate::case::Spec;
+use crate::discretize::Method;
+use crate::evaluate::{Point, PreparedLoop};
+use crate::feasibility::{Assessment, assess};
+use crate::scalar_solve;
+use crate::sweep::SweepRow;
+
+/// Relative tolerance on `f_star` (loop model: 1e-4 or tighter).
+pub const RATE_TOLERANCE: f64 = 1e-4;
+
+/// The answer for one method and delay.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct SlowestRate {
+    /// Method name (`given-in-z` for a controller given in z).
+    pub method: String,
+    pub compute_delay: f64,
+    /// `f_star`, Hz; None when `max_hz` itself fails.
+    pub slowest_rate_hz: Option<f64>,
+    /// The figure that fails just below `f_star` (or at `max_hz` when
+    /// there is no answer); `stability` for an unstable loop.
+    pub limiting: Option<String>,
+    /// Feasible rate ranges below `f_star` (never recommended), Hz.
+    pub islands: Vec<[f64; 2]>,
+    /// Loop evaluations the refinement used beyond the coarse sweep.
+    pub evaluations: usize,
+    /// True when every swept rate is feasible: `f_star` is at or below the
+    /// sweep's lowest rate, which is what is reported.
+    pub at_range_floor: bool,
+}
+
+/// An observer of the refinement: called after each loop evaluation with
+/// the rate and its verdict. The numerical core never prints; a log or a
+/// progress display attaches here.
+pub trait SearchObserver: Sync {
+    fn evaluated(&self, _rate_hz: f64, _assessment: &Assessment) {}
+}
+
+/// The observer that does nothing.
+pub struct Silent;
+impl SearchObserver for Silent {}
+
+/// Name for a method in outputs.
+pub fn method_label(m: Option<Method>) -> String {
+    m.map_or_else(|| "given-in-z".to_string(), |m| m.name().to_string())
+}
+
+/// `f_star` for the rows of one (method, delay) series, sorted by rate.
+pub fn slowest_rate(
+    lp: &PreparedLoop,
+    spec: &Spec,
+    rows: &[&SweepRow],
+    observer: &dyn SearchObserver,
+) -> SlowestRate {
+    let (method, delay) = rows
+        .first()
+        .map_or((None, 0.0), |r| (r.point.method, r.point.delay));
+    let mut answer = SlowestRate {
+        method: method_label(method),
+        compute_delay: delay,
+        slowest_rate_hz: None,
+        limiting: None,
+        islands: Vec::new(),
+        evaluations: 0,
+        at_range_floor: false,
+    };
+    let Some(last) = rows.last() else {
+        return answer;
+    };
+    if !last.assessment.feasible {
+        answer.limiting = last.assessment.limiting.map(str::to_string);
+        answer.islands = islands(rows, rows.len() - 1);
+        return answer;
+    }
+    let Some(i_bad) = rows.iter().rposition(|r| !r.assessment.feasible) else {
+        answer.slowest_rate_hz = Some(rows[0].point.rate_hz);
+        answer.limiting = rows[0].assessment.limiting.map(str::to_string);
+        answer.at_range_floor = true;
+        return answer;
+    };
+    answer.islands = islands(rows, i_bad);
+
+    let count = Cell::new(0usize);
+    let last_eval: RefCell<Option<(f64, Assessment)>> = RefCell::new(None);
+    let judge = |rate: f64| -> Assessment {
+        count.set(count.get() + 1);
+        let p = Point {
+            rate_hz: rate,
+            method,
+            delay,
+        };
+        let a = assess(&lp.sampled(&p), spec);
+        observer.evaluated(rate, &a);
+        *last_eval.borrow_mut() = Some((rate, a.clone()));
+        a
+    };
+    let mut lo = rows[i_bad].point.rate_hz;
+    let mut hi = rows[i_bad + 1].point.rate_hz;
+    let mut lo_assessment = rows[i_bad].assessment.clone();
+    let ln_tol = (1.0 + RATE_TOLERANCE).ln() / 4.0;
+
+    // Brent on the limiting slack; its answer x sits next to the sign
+    // change, so probing x and x - tol usually closes the bracket at once.
+    let slack = |x: f64| judge(x.exp()).slack;
+    if let Some(x) = scalar_solve::root(&slack, lo.ln(), hi.ln(), ln_tol) {
+        let r = x.exp();
+        if r > lo && r < hi {
+            let a = judge(r);
+            if a.feasible {
+                hi = r;
+                let below = (x - ln_tol).exp();
+                if below > lo {
+                    let b = judge(below);
+                    if b.feasible {
+                        hi = below;
+                    } else {
+                        lo = below;
+                        lo_assessment = b;
+                    }
+                }
+            } else {
+                lo = r;
+                lo_assessment = a;
+            }
+        }
+    }
+    // Bisection guard: certify the bracket to the tolerance.
+    while hi / lo - 1.0 > RATE_TOLERANCE {
+        let mid = (lo * hi).sqrt();
+        let a = judge(mid);
+        if a.feasible {
+            hi = mid;
+        } else {
+            lo = mid;
+            lo_assessment = a;
+        }
+    }
+    answer.slowest_rate_hz = Some(hi);
+    answer.limiting = lo_assessment.limiting.map(str::to_string);
+    answer.evaluations = count.get();
+    answer
+}
+
+/// Feasible runs of grid rates strictly below index `below`.
+fn islands(rows: &[&SweepRow], below: usize) -> Vec<[f64; 2]> {
+    let mut out = Vec::new();
+    let mut start: Option<f64> = None;
+    let mut prev = 0.0;
+    for r in &rows[..below] {
+        let f = r.point.rate_hz;
+        if r.assessment.feasible {
+            if start.is_none() {
+                start = Some(f);
+            }
+            prev = f;
+        } else if let Some(s) = start.take() {
+            out.push([s, prev]);
+        }
+    }
+    if let Some(s) = start {
+        out.push([s, prev]);
+    }
+    out
+}

@@ -1,0 +1,270 @@
+//! What the commands print: compact human tables and JSON views of the
+//! results. Builds strings only; the binary prints them.
+
+use std::fmt::Write;
+
+use serde_json::{Map, Value, json};
+
+use crate::case::Spec;
+use crate::continuous::HoldApprox;
+use crate::evaluate::{Evaluation, Figures};
+use crate::feasibility::check_figures;
+use crate::pick::PickReport;
+use crate::poly::C64;
+use crate::tf::DiscreteTf;
+
+/// Format a number for tables: 4 significant digits, engineering-friendly.
+pub fn fmt_num(v: f64) -> String {
+    if !v.is_finite() {
+        return format!("{v}");
+    }
+    if v == 0.0 {
+        return "0".into();
+    }
+    let a = v.abs();
+    if (1e-3..1e5).contains(&a) {
+        let digits = (3 - a.log10().floor() as i32).max(0) as usize;
+        format!("{v:.digits$}")
+    } else {
+        format!("{v:.3e}")
+    }
+}
+
+fn fmt_opt(v: Option<f64>, missing: &str) -> String {
+    v.map_or_else(|| missing.to_string(), fmt_num)
+}
+
+/// Complex numbers as `[re, im]` pairs for JSON.
+pub fn complex_pairs(v: &[C64]) -> Vec<[f64; 2]> {
+    v.iter().map(|c| [c.re, c.im]).collect()
+}
+
+/// `looprate discretize` output.
+pub fn discretized_text(method: &str, rate_hz: f64, c: &DiscreteTf) -> String {
+    let mut s = String::new();
+    let _ = writeln!(s, "method   {method}");
+    let _ = writeln!(s, "rate     {rate_hz} Hz (T = {} s)", 1.0 / rate_hz);
+    let _ = writeln!(s, "num(z)   {:?}", c.tf.num.descending());
+    let _ = writeln!(s, "den(z)   {:?}", c.tf.den.descending());
+    let show = |v: Option<Vec<C64>>| {
+        v.map_or("(root finder failed)".into(), |v| {
+            v.iter()
+                .map(|c| {
+                    if c.im == 0.0 {
+                        fmt_num(c.re)
+                    } else {
+                        format!("{}{:+}j", fmt_num(c.re), fmt_num(c.im))
+                    }
+                })
+                .collect::<Vec<_>>()
+                .join(", ")
+        })
+    };
+    let _ = writeln!(s, "poles    {}", show(c.tf.poles()));
+    let _ = writeln!(s, "zeros    {}", show(c.tf.zeros()));
+    s
+}
+
+/// `looprate discretize --json` output.
+pub fn discretized_json(method: &str, rate_hz: f64, c: &DiscreteTf) -> Value {
+    json!({
+        "method": method,
+        "rate_hz": rate_hz,
+        "num": c.tf.num.descending(),
+        "den": c.tf.den.descending(),
+        "poles": c.tf.poles().map(|v| complex_pairs(&v)),
+        "zeros": c.tf.zeros().map(|v| complex_pairs(&v)),
+    })
+}
+
+/// The figure rows of the evaluation table: (key, label with unit, value).
+fn figure_rows(f: Option<&Figures>) -> Vec<(&'static str, &'static str, String)> {
+    let g = |h: &dyn Fn(&Figures) -> String| f.map_or("-".to_string(), h);
+    vec![
+        ("y_final", "final value", g(&|f| fmt_num(f.y_final))),
+        ("overshoot_pct", "overshoot (%)", g(&|f| fmt_opt(f.overshoot_pct, "n/a"))),
+        ("settling_time_s", "settling time (s)", g(&|f| fmt_opt(f.settling_time_s, "not settled"))),
+        ("rise_time_s", "rise time 10-90 % (s)", g(&|f| fmt_opt(f.rise_time_s, "not reached"))),
+        ("disturbance_peak", "disturbance peak", g(&|f| fmt_num(f.disturbance_peak))),
+        ("recovery_time_s", "recovery time (s)", g(&|f| fmt_opt(f.recovery_time_s, "not recovered"))),
+        ("u_peak", "peak command", g(&|f| fmt_num(f.u_peak))),
+        ("gain_margin_db", "gain margin (dB)", g(&|f| fmt_opt(f.gain_margin_db, "inf"))),
+        ("phase_margin_deg", "phase margin (deg)", g(&|f| fmt_opt(f.phase_margin_deg, "inf"))),
+        ("crossover_hz", "crossover (Hz)", g(&|f| fmt_opt(f.crossover_hz, "none"))),
+        ("delay_margin_s", "delay margin (s)", g(&|f| fmt_opt(f.delay_margin_s, "inf"))),
+        ("sensitivity_peak", "sensitivity peak Ms", g(&|f| fmt_num(f.sensitivity_peak))),
+    ]
+}
+
+/// `looprate eval` table: exact sampled loop beside the continuous design
+/// and each hold approximation, with the limits and pass/fail.
+pub fn evaluation_text(
+    title: &str,
+    header: &str,
+    exact: &Evaluation,
+    design: Option<&Evaluation>,
+    approx: &[(HoldApprox, Evaluation)],
+    spec: &Spec,
+) -> String {
+    let mut cols: Vec<(&str, &Evaluation)> = vec![("exact sampled", exact)];
+    if let Some(d) = design {
+        cols.push(("continuous", d));
+    }
+    for (k, e) in approx {
+        cols.push((k.name(), e));
+    }
+    let checks = exact.figures.as_ref().map(|f| check_figures(f, spec)).unwrap_or_default();
+    let mut s = String::new();
+    let _ = writeln!(s, "{title}\n{header}\n");
+    let _ = write!(s, "{:<24}", "figure");
+    for (name, _) in &cols {
+        let _ = write!(s, "{name:>15}");
+    }
+    let _ = writeln!(s, "{:>12}{:>7}", "limit", "pass");
+    let _ = write!(s, "{:<24}", "status");
+    for (_, e) in &cols {
+        let _ = write!(s, "{:>15}", e.status.label().chars().take(14).collect::<String>());
+    }
+    let _ = writeln!(s);
+    let rows: Vec<Vec<(&str, &str, String)>> = cols.iter().map(|(_, e)| figure_rows(e.figures.as_ref())).collect();
+    for i in 0..rows[0].len() {
+        let (key, label, _) = rows[0][i];
+        let _ = write!(s, "{label:<24}");
+        for r in &rows {
+            let _ = write!(s, "{:>15}", r[i].2);
+        }
+        match checks.iter().find(|c| c.figure == key) {
+            Some(c) => {
+                let _ = writeln!(s, "{:>12}{:>7}", fmt_num(c.limit), if c.pass { "yes" } else { "NO" });
+            }
+            None => {
+                let _ = writeln!(s);
+            }
+        }
+    }
+    if exact.figures.is_none() && !exact.closed_loop_poles.is_empty() {
+        let _ = writeln!(s, "\nclosed-loop poles (z):");
+        for p in &exact.closed_loop_poles {
+            let _ = writeln!(s, "  {} {:+}j   |z| = {}", fmt_num(p[0]), fmt_num(p[1]), fmt_num(p[0].hypot(p[1])));
+        }
+    }
+    s
+}
+
+/// The figures of one evaluation as a JSON object with the loop model's
+/// keys; infinite margins are null with a note.
+pub fn evaluation_json(e: &Evaluation) -> Value {
+    let mut m = Map::new();
+    m.insert("status".into(), json!(e.status.label()));
+    m.insert("stable".into(), json!(e.stable));
+    let mut notes: Vec<String> = Vec::new();
+    if let Some(f) = &e.figures {
+        if let Value::Object(fm) = serde_json::to_value(f).unwrap_or(Value::Null) {
+            m.extend(fm);
+        }
+        if f.gain_margin_db.is_none() {
+            notes.push("gain_margin_db is null: no -180 deg crossing, the margin is infinite".into());
+        }
+        if f.phase_margin_deg.is_none() {
+            notes.push("phase_margin_deg is null: |L| never crosses 1, the margin is infinite".into());
+        }
+        if f.settling_time_s.is_none() {
+            notes.push("settling_time_s is null: not settled within the horizon".into());
+        }
+        if f.overshoot_pct.is_none() {
+            notes.push("overshoot_pct is null: the final value is zero".into());
+        }
+        if f.horizon_capped {
+            notes.push("the simulation horizon was capped before the slowest mode decayed".into());
+        }
+    }
+    m.insert("closed_loop_poles".into(), json!(e.closed_loop_poles));
+    m.insert("notes".into(), json!(notes));
+    Value::Object(m)
+}
+
+/// `looprate pick` human summary.
+pub fn pick_text(r: &PickReport) -> String {
+    let mut s = String::new();
+    let _ = writeln!(s, "{}\n", r.title);
+    if !r.design_failures.is_empty() {
+        let _ = writeln!(s, "The continuous design already fails the spec:");
+        for c in &r.design_failures {
+            let _ = writeln!(s, "  {} = {} against a limit of {}", c.figure, fmt_opt(c.value, "none"), fmt_num(c.limit));
+        }
+    }
+    let _ = writeln!(s, "{:<16}{:>8}{:>16}{:>22}{:>8}  islands", "method", "delay", "slowest (Hz)", "limiting", "evals");
+    for m in &r.methods {
+        let slow = match (m.slowest_rate_hz, m.at_range_floor) {
+            (Some(f), true) => format!("<= {}", fmt_num(f)),
+            (Some(f), false) => fmt_num(f),
+            (None, _) => "none".into(),
+        };
+        let isl = m
+            .islands
+            .iter()
+            .map(|i| format!("{}-{}", fmt_num(i[0]), fmt_num(i[1])))
+            .collect::<Vec<_>>()
+            .join(", ");
+        let _ = writeln!(
+            s,
+            "{:<16}{:>8}{:>16}{:>22}{:>8}  {}",
+            m.method,
+            m.compute_delay,
+            slow,
+            m.limiting.clone().unwrap_or_default(),
+            m.evaluations,
+            if isl.is_empty() { "-".into() } else { isl }
+        );
+    }
+    let _ = writeln!(s);
+    if let Some(rec) = &r.recommended {
+        let _ = writeln!(
+            s,
+            "Recommended: {} at {} Hz (T = {} s), computation delay {} of a period; slowest passing rate {} Hz times headroom {} (the headroom covers model error).",
+            rec.method,
+            fmt_num(rec.rate_hz),
+            fmt_num(rec.period_s),
+            rec.compute_delay,
+            fmt_num(rec.slowest_rate_hz),
+            r.headroom
+        );
+        if let Some(n) = rec.timer_divider {
+            let _ = writeln!(s, "Timer divider {n}.");
+        }
+        if let Some(l) = rec.cpu_load_pct {
+            let _ = writeln!(s, "CPU load {:.2} % ({} cycles per update).", l, fmt_opt(rec.cycles_per_update, "?"));
+        }
+        let _ = writeln!(s, "\n{:<22}{:>14}{:>12}{:>10}", "figure", "value", "limit", "slack");
+        for c in &rec.checks {
+            let _ = writeln!(
+                s,
+                "{:<22}{:>14}{:>12}{:>9.1}%",
+                c.figure,
+                fmt_opt(c.value, "none"),
+                fmt_num(c.limit),
+                c.slack * 100.0
+            );
+        }
+    }
+    if let (Some(w), Some(ceil)) = (&r.window, r.cpu_ceiling_hz) {
+        if w.empty {
+            let _ = writeln!(
+                s,
+                "\nNO RATE WINDOW: the spec needs at least {} Hz but the CPU budget allows at most {} Hz.",
+                fmt_num(w.low_hz),
+                fmt_num(ceil)
+            );
+            let _ = writeln!(s, "What would open it:");
+            for a in &r.advice {
+                let _ = writeln!(s, "  - {a}");
+            }
+        } else {
+            let _ = writeln!(s, "\nRate window: {} Hz to {} Hz (spec with headroom .. CPU budget).", fmt_num(w.low_hz), fmt_num(w.high_hz));
+        }
+    }
+    for n in &r.notes {
+        let _ = writeln!(s, "Note: {n}");
+    }
+    s
+}
