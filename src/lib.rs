@@ -5,6 +5,8 @@
 //! evaluation (time, frequency) -> sweep -> search -> outputs. See
 //! `DEVELOPERS.md` for the map.
 
+pub mod case;
 pub mod discretize;
+pub mod expr;
 pub mod poly;
 pub mod tf;
