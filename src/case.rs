@@ -240,17 +240,28 @@ pub enum CaseError {
         message: String,
     },
     /// An expression does not parse or evaluate; `column` is 1-based in
-    /// characters of `expression`.
-    #[error("{file}: field `{field}`: column {column}: {message}\n    {expression}\n    {caret}")]
+    /// characters of `expression`. Displayed with the expression and a
+    /// caret line under the column.
+    #[error(
+        "{file}: field `{field}`: column {column}: {message}\n    {expression}\n    {caret}",
+        caret = caret_under(expression, *column)
+    )]
     Expression {
         file: String,
         field: String,
         expression: String,
         column: usize,
         message: String,
-        /// A line with `^` under the column, aligned with `expression`.
-        caret: String,
     },
+}
+
+/// A line with `^` under 1-based character `column` of `text`.
+fn caret_under(text: &str, column: usize) -> String {
+    ExprError {
+        column,
+        message: String::new(),
+    }
+    .caret_line(text)
 }
 
 impl CaseError {
@@ -424,7 +435,6 @@ impl Ctx {
             expression: text.to_string(),
             column: e.column,
             message: format!("{prefix}{}", e.message),
-            caret: e.caret_line(text),
         }
     }
 
