@@ -13,14 +13,13 @@ use crate::tf::DiscreteTf;
 pub fn df2t_macs(c: &DiscreteTf) -> usize {
     let lead = c.tf.den.leading();
     let num = c.tf.num.coeffs().iter().filter(|v| **v != 0.0).count();
-    let den = c
-        .tf
-        .den
-        .coeffs()
-        .iter()
-        .filter(|v| **v != 0.0)
-        .count()
-        .saturating_sub(usize::from(lead != 0.0));
+    let den =
+        c.tf.den
+            .coeffs()
+            .iter()
+            .filter(|v| **v != 0.0)
+            .count()
+            .saturating_sub(usize::from(lead != 0.0));
     num + den
 }
 

@@ -114,7 +114,10 @@ pub fn check_figures(f: &Figures, spec: &Spec) -> Vec<LimitCheck> {
 
 /// The verdict on an evaluation.
 pub fn assess(e: &Evaluation, spec: &Spec) -> Assessment {
-    let Some(f) = (e.status == Status::Ok).then_some(e.figures.as_ref()).flatten() else {
+    let Some(f) = (e.status == Status::Ok)
+        .then_some(e.figures.as_ref())
+        .flatten()
+    else {
         return Assessment {
             feasible: false,
             limiting: Some("stability"),

@@ -5,14 +5,24 @@
 //! evaluation (time, frequency) -> sweep -> search -> outputs. See
 //! `DEVELOPERS.md` for the map.
 
+pub mod budget;
+pub mod case;
 pub mod closed_loop;
 pub mod continuous;
 pub mod discretize;
+pub mod error;
 pub mod evaluate;
+pub mod expr;
+pub mod feasibility;
 pub mod frequency;
 pub mod hold;
+pub mod outputs;
+pub mod pick;
 pub mod poly;
 pub mod scalar_solve;
+pub mod search;
 pub mod ss;
+pub mod summary;
+pub mod sweep;
 pub mod tf;
 pub mod time_response;

@@ -17,9 +17,15 @@ pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<(), Error> {
         path: path.display().to_string(),
         message: e.to_string(),
     };
-    let dir = path.parent().filter(|p| !p.as_os_str().is_empty()).unwrap_or(Path::new("."));
+    let dir = path
+        .parent()
+        .filter(|p| !p.as_os_str().is_empty())
+        .unwrap_or(Path::new("."));
     fs::create_dir_all(dir).map_err(err)?;
-    let name = path.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default();
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().to_string())
+        .unwrap_or_default();
     let tmp = dir.join(format!(".{name}.partial-{}", std::process::id()));
     let result = (|| {
         let mut f = fs::File::create(&tmp)?;
@@ -110,7 +116,11 @@ pub fn sweep_csv(rows: &[SweepRow]) -> Vec<u8> {
             opt(f.map(|f| f.delay_margin_s), "inf"),
             opt(f.map(|f| Some(f.sensitivity_peak)), ""),
             f.map(|f| f.horizon_capped.to_string()).unwrap_or_default(),
-            if rho.is_nan() { String::new() } else { num(rho) },
+            if rho.is_nan() {
+                String::new()
+            } else {
+                num(rho)
+            },
             r.assessment.feasible.to_string(),
             r.assessment.limiting.unwrap_or("").to_string(),
             num(r.assessment.slack),

@@ -130,11 +130,15 @@ pub fn pick(
         match &design.figures {
             Some(f) => {
                 report.design = Some(f.clone());
-                report.design_failures = check_figures(f, spec).into_iter().filter(|c| !c.pass).collect();
+                report.design_failures = check_figures(f, spec)
+                    .into_iter()
+                    .filter(|c| !c.pass)
+                    .collect();
             }
-            None => report
-                .notes
-                .push(format!("the continuous design is {}", design.status.label())),
+            None => report.notes.push(format!(
+                "the continuous design is {}",
+                design.status.label()
+            )),
         }
         if !report.design_failures.is_empty() || design.figures.is_none() {
             report.notes.push(
@@ -148,7 +152,9 @@ pub fn pick(
     let mut series: Vec<Vec<&SweepRow>> = Vec::new();
     for r in rows {
         match series.last_mut() {
-            Some(s) if s[0].point.method == r.point.method && s[0].point.delay == r.point.delay => s.push(r),
+            Some(s) if s[0].point.method == r.point.method && s[0].point.delay == r.point.delay => {
+                s.push(r)
+            }
             _ => series.push(vec![r]),
         }
     }
@@ -167,7 +173,9 @@ pub fn pick(
         .filter_map(|m| m.slowest_rate_hz.map(|f| (m, f)))
         .min_by(|a, b| a.1.total_cmp(&b.1));
     let Some((best, f_star)) = best else {
-        report.notes.push("no method meets the spec at the fastest swept rate".into());
+        report
+            .notes
+            .push("no method meets the spec at the fastest swept rate".into());
         return report;
     };
     let method = case_methods(case)
@@ -235,7 +243,13 @@ pub fn pick(
     report
 }
 
-fn empty_window_advice(case: &Case, report: &PickReport, rate: f64, ceiling: f64, cycles: f64) -> Vec<String> {
+fn empty_window_advice(
+    case: &Case,
+    report: &PickReport,
+    rate: f64,
+    ceiling: f64,
+    cycles: f64,
+) -> Vec<String> {
     let mut out = Vec::new();
     let Some(b) = case.budget.as_ref() else {
         return out;
@@ -271,7 +285,12 @@ fn empty_window_advice(case: &Case, report: &PickReport, rate: f64, ceiling: f64
         .filter(|m| m.compute_delay < report.design_delay)
         .filter_map(|m| m.slowest_rate_hz.map(|f| (m, f)))
         .filter(|(_, f)| f * case.spec.headroom <= ceiling)
-        .map(|(m, f)| format!("{} at delay {} (f_star {:.4} Hz)", m.method, m.compute_delay, f))
+        .map(|(m, f)| {
+            format!(
+                "{} at delay {} (f_star {:.4} Hz)",
+                m.method, m.compute_delay, f
+            )
+        })
         .collect();
     if !shorter.is_empty() {
         out.push(format!(

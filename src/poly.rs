@@ -254,7 +254,7 @@ impl Poly {
             }
             let next = x - p / dp;
             let fn_ = self.eval_c(next).norm();
-            if !(fn_ < fx) {
+            if fn_.partial_cmp(&fx) != Some(std::cmp::Ordering::Less) {
                 break;
             }
             x = next;

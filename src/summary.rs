@@ -82,17 +82,57 @@ fn figure_rows(f: Option<&Figures>) -> Vec<(&'static str, &'static str, String)>
     let g = |h: &dyn Fn(&Figures) -> String| f.map_or("-".to_string(), h);
     vec![
         ("y_final", "final value", g(&|f| fmt_num(f.y_final))),
-        ("overshoot_pct", "overshoot (%)", g(&|f| fmt_opt(f.overshoot_pct, "n/a"))),
-        ("settling_time_s", "settling time (s)", g(&|f| fmt_opt(f.settling_time_s, "not settled"))),
-        ("rise_time_s", "rise time 10-90 % (s)", g(&|f| fmt_opt(f.rise_time_s, "not reached"))),
-        ("disturbance_peak", "disturbance peak", g(&|f| fmt_num(f.disturbance_peak))),
-        ("recovery_time_s", "recovery time (s)", g(&|f| fmt_opt(f.recovery_time_s, "not recovered"))),
+        (
+            "overshoot_pct",
+            "overshoot (%)",
+            g(&|f| fmt_opt(f.overshoot_pct, "n/a")),
+        ),
+        (
+            "settling_time_s",
+            "settling time (s)",
+            g(&|f| fmt_opt(f.settling_time_s, "not settled")),
+        ),
+        (
+            "rise_time_s",
+            "rise time 10-90 % (s)",
+            g(&|f| fmt_opt(f.rise_time_s, "not reached")),
+        ),
+        (
+            "disturbance_peak",
+            "disturbance peak",
+            g(&|f| fmt_num(f.disturbance_peak)),
+        ),
+        (
+            "recovery_time_s",
+            "recovery time (s)",
+            g(&|f| fmt_opt(f.recovery_time_s, "not recovered")),
+        ),
         ("u_peak", "peak command", g(&|f| fmt_num(f.u_peak))),
-        ("gain_margin_db", "gain margin (dB)", g(&|f| fmt_opt(f.gain_margin_db, "inf"))),
-        ("phase_margin_deg", "phase margin (deg)", g(&|f| fmt_opt(f.phase_margin_deg, "inf"))),
-        ("crossover_hz", "crossover (Hz)", g(&|f| fmt_opt(f.crossover_hz, "none"))),
-        ("delay_margin_s", "delay margin (s)", g(&|f| fmt_opt(f.delay_margin_s, "inf"))),
-        ("sensitivity_peak", "sensitivity peak Ms", g(&|f| fmt_num(f.sensitivity_peak))),
+        (
+            "gain_margin_db",
+            "gain margin (dB)",
+            g(&|f| fmt_opt(f.gain_margin_db, "inf")),
+        ),
+        (
+            "phase_margin_deg",
+            "phase margin (deg)",
+            g(&|f| fmt_opt(f.phase_margin_deg, "inf")),
+        ),
+        (
+            "crossover_hz",
+            "crossover (Hz)",
+            g(&|f| fmt_opt(f.crossover_hz, "none")),
+        ),
+        (
+            "delay_margin_s",
+            "delay margin (s)",
+            g(&|f| fmt_opt(f.delay_margin_s, "inf")),
+        ),
+        (
+            "sensitivity_peak",
+            "sensitivity peak Ms",
+            g(&|f| fmt_num(f.sensitivity_peak)),
+        ),
     ]
 }
 
@@ -113,7 +153,11 @@ pub fn evaluation_text(
     for (k, e) in approx {
         cols.push((k.name(), e));
     }
-    let checks = exact.figures.as_ref().map(|f| check_figures(f, spec)).unwrap_or_default();
+    let checks = exact
+        .figures
+        .as_ref()
+        .map(|f| check_figures(f, spec))
+        .unwrap_or_default();
     let mut s = String::new();
     let _ = writeln!(s, "{title}\n{header}\n");
     let _ = write!(s, "{:<24}", "figure");
@@ -123,10 +167,17 @@ pub fn evaluation_text(
     let _ = writeln!(s, "{:>12}{:>7}", "limit", "pass");
     let _ = write!(s, "{:<24}", "status");
     for (_, e) in &cols {
-        let _ = write!(s, "{:>15}", e.status.label().chars().take(14).collect::<String>());
+        let _ = write!(
+            s,
+            "{:>15}",
+            e.status.label().chars().take(14).collect::<String>()
+        );
     }
     let _ = writeln!(s);
-    let rows: Vec<Vec<(&str, &str, String)>> = cols.iter().map(|(_, e)| figure_rows(e.figures.as_ref())).collect();
+    let rows: Vec<Vec<(&str, &str, String)>> = cols
+        .iter()
+        .map(|(_, e)| figure_rows(e.figures.as_ref()))
+        .collect();
     for i in 0..rows[0].len() {
         let (key, label, _) = rows[0][i];
         let _ = write!(s, "{label:<24}");
@@ -135,7 +186,12 @@ pub fn evaluation_text(
         }
         match checks.iter().find(|c| c.figure == key) {
             Some(c) => {
-                let _ = writeln!(s, "{:>12}{:>7}", fmt_num(c.limit), if c.pass { "yes" } else { "NO" });
+                let _ = writeln!(
+                    s,
+                    "{:>12}{:>7}",
+                    fmt_num(c.limit),
+                    if c.pass { "yes" } else { "NO" }
+                );
             }
             None => {
                 let _ = writeln!(s);
@@ -145,7 +201,13 @@ pub fn evaluation_text(
     if exact.figures.is_none() && !exact.closed_loop_poles.is_empty() {
         let _ = writeln!(s, "\nclosed-loop poles (z):");
         for p in &exact.closed_loop_poles {
-            let _ = writeln!(s, "  {} {:+}j   |z| = {}", fmt_num(p[0]), fmt_num(p[1]), fmt_num(p[0].hypot(p[1])));
+            let _ = writeln!(
+                s,
+                "  {} {:+}j   |z| = {}",
+                fmt_num(p[0]),
+                fmt_num(p[1]),
+                fmt_num(p[0].hypot(p[1]))
+            );
         }
     }
     s
@@ -163,10 +225,14 @@ pub fn evaluation_json(e: &Evaluation) -> Value {
             m.extend(fm);
         }
         if f.gain_margin_db.is_none() {
-            notes.push("gain_margin_db is null: no -180 deg crossing, the margin is infinite".into());
+            notes.push(
+                "gain_margin_db is null: no -180 deg crossing, the margin is infinite".into(),
+            );
         }
         if f.phase_margin_deg.is_none() {
-            notes.push("phase_margin_deg is null: |L| never crosses 1, the margin is infinite".into());
+            notes.push(
+                "phase_margin_deg is null: |L| never crosses 1, the margin is infinite".into(),
+            );
         }
         if f.settling_time_s.is_none() {
             notes.push("settling_time_s is null: not settled within the horizon".into());
@@ -190,10 +256,20 @@ pub fn pick_text(r: &PickReport) -> String {
     if !r.design_failures.is_empty() {
         let _ = writeln!(s, "The continuous design already fails the spec:");
         for c in &r.design_failures {
-            let _ = writeln!(s, "  {} = {} against a limit of {}", c.figure, fmt_opt(c.value, "none"), fmt_num(c.limit));
+            let _ = writeln!(
+                s,
+                "  {} = {} against a limit of {}",
+                c.figure,
+                fmt_opt(c.value, "none"),
+                fmt_num(c.limit)
+            );
         }
     }
-    let _ = writeln!(s, "{:<16}{:>8}{:>16}{:>22}{:>8}  islands", "method", "delay", "slowest (Hz)", "limiting", "evals");
+    let _ = writeln!(
+        s,
+        "{:<16}{:>8}{:>16}{:>22}{:>8}  islands",
+        "method", "delay", "slowest (Hz)", "limiting", "evals"
+    );
     for m in &r.methods {
         let slow = match (m.slowest_rate_hz, m.at_range_floor) {
             (Some(f), true) => format!("<= {}", fmt_num(f)),
@@ -233,9 +309,18 @@ pub fn pick_text(r: &PickReport) -> String {
             let _ = writeln!(s, "Timer divider {n}.");
         }
         if let Some(l) = rec.cpu_load_pct {
-            let _ = writeln!(s, "CPU load {:.2} % ({} cycles per update).", l, fmt_opt(rec.cycles_per_update, "?"));
+            let _ = writeln!(
+                s,
+                "CPU load {:.2} % ({} cycles per update).",
+                l,
+                fmt_opt(rec.cycles_per_update, "?")
+            );
         }
-        let _ = writeln!(s, "\n{:<22}{:>14}{:>12}{:>10}", "figure", "value", "limit", "slack");
+        let _ = writeln!(
+            s,
+            "\n{:<22}{:>14}{:>12}{:>10}",
+            "figure", "value", "limit", "slack"
+        );
         for c in &rec.checks {
             let _ = writeln!(
                 s,
@@ -260,7 +345,12 @@ pub fn pick_text(r: &PickReport) -> String {
                 let _ = writeln!(s, "  - {a}");
             }
         } else {
-            let _ = writeln!(s, "\nRate window: {} Hz to {} Hz (spec with headroom .. CPU budget).", fmt_num(w.low_hz), fmt_num(w.high_hz));
+            let _ = writeln!(
+                s,
+                "\nRate window: {} Hz to {} Hz (spec with headroom .. CPU budget).",
+                fmt_num(w.low_hz),
+                fmt_num(w.high_hz)
+            );
         }
     }
     for n in &r.notes {

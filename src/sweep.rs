@@ -42,7 +42,12 @@ pub fn grid(rates: &[f64], methods: &[Option<Method>], delays: &[f64]) -> Vec<Po
 }
 
 /// Evaluate and judge one point.
-pub fn evaluate_row(lp: &PreparedLoop, spec: &Spec, budget: Option<&Budget>, p: &Point) -> SweepRow {
+pub fn evaluate_row(
+    lp: &PreparedLoop,
+    spec: &Spec,
+    budget: Option<&Budget>,
+    p: &Point,
+) -> SweepRow {
     let eval = lp.sampled(p);
     let assessment = assess(&eval, spec);
     let cpu_load_pct = budget.and_then(|b| {
