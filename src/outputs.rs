@@ -130,3 +130,25 @@ pub fn sweep_csv(rows: &[SweepRow]) -> Vec<u8> {
     }
     w.into_inner().unwrap_or_default()
 }
+
+/// `--trace` CSV: `response,t_s,y,u,sample` rows for the reference step
+/// then the load-disturbance step.
+pub fn trace_csv(
+    step: &[crate::time_response::TracePoint],
+    dist: &[crate::time_response::TracePoint],
+) -> Vec<u8> {
+    let mut w = csv::Writer::from_writer(Vec::new());
+    let _ = w.write_record(["response", "t_s", "y", "u", "sample"]);
+    for (name, pts) in [("step", step), ("disturbance", dist)] {
+        for p in pts {
+            let _ = w.write_record([
+                name.to_string(),
+                num(p.t),
+                num(p.y),
+                num(p.u),
+                u8::from(p.sample).to_string(),
+            ]);
+        }
+    }
+    w.into_inner().unwrap_or_default()
+}

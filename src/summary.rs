@@ -358,3 +358,92 @@ pub fn pick_text(r: &PickReport) -> String {
     }
     s
 }
+
+/// `looprate eval --json`: the exact loop's figures at the top level, plus
+/// `continuous` and `hold_approx` objects with the same keys.
+pub fn eval_json(exact: &Evaluation, design: Option<&Evaluation>, approx: &[(HoldApprox, Evaluation)]) -> Value {
+    let mut v = evaluation_json(exact);
+    if let Value::Object(m) = &mut v {
+        m.insert("continuous".into(), design.map_or(Value::Null, evaluation_json));
+        let mut h = Map::new();
+        for (k, e) in approx {
+            h.insert(k.name().into(), evaluation_json(e));
+        }
+        m.insert("hold_approx".into(), Value::Object(h));
+    }
+    v
+}
+
+fn roots_text(v: Option<Vec<C64>>) -> String {
+    match v {
+        None => "(root finder failed)".into(),
+        Some(v) if v.is_empty() => "none".into(),
+        Some(v) => v
+            .iter()
+            .map(|c| {
+                if c.im == 0.0 {
+                    fmt_num(c.re)
+                } else {
+                    format!("{}{:+}j", fmt_num(c.re), fmt_num(c.im))
+                }
+            })
+            .collect::<Vec<_>>()
+            .join(", "),
+    }
+}
+
+/// `looprate check`: each block with its poles and zeros, and the
+/// continuous loop's figures.
+pub fn check_text(case: &crate::case::Case, lp: &crate::evaluate::PreparedLoop) -> String {
+    use crate::tf::{Controller, Tf};
+    let mut s = String::new();
+    let _ = writeln!(s, "{} ({})", case.title, case.source.display());
+    let block = |s: &mut String, name: &str, tf: &Tf, var: &str| {
+        let _ = writeln!(s, "\n{name}");
+        let _ = writeln!(s, "  num({var}) {:?}", tf.num.descending());
+        let _ = writeln!(s, "  den({var}) {:?}", tf.den.descending());
+        let _ = writeln!(s, "  poles    {}", roots_text(tf.poles()));
+        let _ = writeln!(s, "  zeros    {}", roots_text(tf.zeros()));
+    };
+    block(&mut s, "plant P(s)", &lp.plant, "s");
+    block(&mut s, "sensor H(s)", &lp.sensor, "s");
+    match &lp.controller {
+        Controller::Continuous(c) => block(&mut s, "controller C(s)", c, "s"),
+        Controller::Discrete(d) => {
+            block(&mut s, &format!("controller C(z) at {} Hz", 1.0 / d.period_s), &d.tf, "z")
+        }
+    }
+    let _ = writeln!(
+        s,
+        "\nrates {} .. {} Hz, {} points; methods {}; computation delays {:?}",
+        case.rates.min_hz,
+        case.rates.max_hz,
+        case.rates.points,
+        case.methods.iter().map(|m| m.name()).collect::<Vec<_>>().join(", "),
+        case.compute_delays
+    );
+    if let Some(d) = &lp.design {
+        let _ = writeln!(s, "\ncontinuous loop C(s) P(s) H(s): {}", d.status.label());
+        if let Some(f) = &d.figures {
+            let _ = writeln!(
+                s,
+                "  crossover {} Hz, phase margin {} deg, gain margin {} dB, Ms {}, overshoot {} %, settling {} s",
+                fmt_opt(f.crossover_hz, "none"),
+                fmt_opt(f.phase_margin_deg, "inf"),
+                fmt_opt(f.gain_margin_db, "inf"),
+                fmt_num(f.sensitivity_peak),
+                fmt_opt(f.overshoot_pct, "n/a"),
+                fmt_opt(f.settling_time_s, "not settled"),
+            );
+            let fails: Vec<String> = check_figures(f, &case.spec)
+                .into_iter()
+                .filter(|c| !c.pass)
+                .map(|c| format!("{} ({} vs limit {})", c.figure, fmt_opt(c.value, "none"), fmt_num(c.limit)))
+                .collect();
+            if !fails.is_empty() {
+                let _ = writeln!(s, "  the continuous design already fails: {}", fails.join(", "));
+            }
+        }
+    }
+    s
+}
