@@ -731,7 +731,7 @@ fn model_from(
                 return Err(ctx.invalid(
                     format!("{base}.zeros"),
                     format!(
-                        "improper {role}: {} zeros but only {} poles",
+                        "improper {role}: more zeros ({}) than poles ({})",
                         z.len(),
                         p.len()
                     ),

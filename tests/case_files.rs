@@ -218,7 +218,7 @@ const BAD: &[Bad] = &[
         "more zeros than poles",
         &[("plant", "[plant]\nzeros = [-1, -2]\npoles = [-3]\n")],
         "plant.zeros",
-        &["improper plant", "2 zeros", "1 poles"],
+        &["improper plant", "more zeros (2) than poles (1)"],
     ),
     // Controller forms.
     (
@@ -1101,4 +1101,26 @@ fn rate_grids() {
         spacing: Spacing::Linear,
     };
     assert_eq!(lin.grid(), vec![10.0, 20.0, 30.0, 40.0, 50.0]);
+}
+
+proptest::proptest! {
+    #![proptest_config(proptest::prelude::ProptestConfig::with_cases(500))]
+
+    /// Whatever text sits in an expression field, loading returns a value
+    /// or an error that names the field; it never panics.
+    #[test]
+    fn any_plant_expression_loads_or_names_the_field(tf in ".{0,60}") {
+        let quoted = toml::Value::String(tf.clone()).to_string();
+        let body = format!("[plant]\ntf = {quoted}\n");
+        let text = text_with(&[("plant", &body)]);
+        if let Err(e) = parse(&text) {
+            proptest::prop_assert_eq!(e.field(), Some("plant.tf"), "{}", e);
+        }
+    }
+
+    /// Arbitrary bytes of TOML never panic the loader.
+    #[test]
+    fn any_text_loads_or_errors(text in "(\\PC|\n|\\[|\\]|=|\"){0,200}") {
+        let _ = parse(&text);
+    }
 }
