@@ -6,5 +6,6 @@
 //! `DEVELOPERS.md` for the map.
 
 pub mod discretize;
+pub mod plot;
 pub mod poly;
 pub mod tf;
