@@ -4,8 +4,8 @@
 use std::path::PathBuf;
 
 use looprate::plot::{
-    Annotation, Axis, Draw, Figure, Limit, MarkStyle, Panel, PlotError, Series, Side, VMark,
-    XBand, YBand, render_png, render_rgb,
+    Annotation, Axis, Draw, Figure, Limit, MarkStyle, Panel, PlotError, Series, Side, VMark, XBand,
+    YBand, render_png, render_rgb,
 };
 
 /// A fresh directory under the system temp dir, unique to this test.
@@ -34,22 +34,28 @@ fn review_figure() -> Figure {
     let rates: Vec<f64> = (0..=120)
         .map(|i| 10f64.powf(1.0 + 3.0 * f64::from(i) / 120.0))
         .collect();
+    // Made-up but plausible curves: margins grow with the rate, the
+    // conservative model lags; overshoot falls; settling time falls.
     let margin: Vec<(f64, f64)> = rates
         .iter()
-        .map(|&f| (f, 60.0 - 45.0 * (f / 3000.0).powf(-0.8).min(1.2)))
+        .map(|&f| (f, 62.0 * (1.0 - (-f / 300.0).exp())))
         .collect();
     let margin_fast: Vec<(f64, f64)> = rates
         .iter()
         .enumerate()
         .map(|(i, &f)| {
-            let y = 62.0 - 40.0 * (f / 2000.0).powf(-0.9).min(1.3);
+            let y = 62.0 * (1.0 - (-f / 520.0).exp()) - 3.0;
             // A gap in the data: NaNs must break the line.
-            if (40..46).contains(&i) { (f, f64::NAN) } else { (f, y) }
+            if (40..46).contains(&i) {
+                (f, f64::NAN)
+            } else {
+                (f, y)
+            }
         })
         .collect();
     let overshoot: Vec<(f64, f64)> = rates
         .iter()
-        .map(|&f| (f, 4.0 + 300.0 / (1.0 + f / 40.0)))
+        .map(|&f| (f, 4.0 + 60.0 * (-f / 250.0).exp()))
         .collect();
     let settle: Vec<(f64, f64)> = rates
         .iter()
@@ -63,19 +69,26 @@ fn review_figure() -> Figure {
         .collect();
 
     let mut top = Panel::new(Axis::linear("phase margin (°)"));
-    top.series.push(Series::line("continuous controller, Tustin", margin, 0));
     top.series
-        .push(Series::line("continuous controller, ZOH + delay", margin_fast, 1));
+        .push(Series::line("continuous controller, Tustin", margin, 0));
+    top.series.push(Series::line(
+        "continuous controller, ZOH + delay",
+        margin_fast,
+        1,
+    ));
     top.limits
         .push(Limit::new(45.0, Side::Below, "minimum phase margin 45°"));
     top.vmarks
         .push(VMark::new(850.0, "chosen rate 850 Hz", MarkStyle::Solid));
-    top.vmarks
-        .push(VMark::new(400.0, "slowest feasible 400 Hz", MarkStyle::Dashed));
+    top.vmarks.push(VMark::new(
+        700.0,
+        "slowest feasible 700 Hz",
+        MarkStyle::Dashed,
+    ));
     top.bands
-        .push(XBand::new(400.0, f64::INFINITY, "feasible rates"));
+        .push(XBand::new(700.0, f64::INFINITY, "feasible rates"));
     top.notes
-        .push(Annotation::new(150.0, 26.0, "aliasing dip"));
+        .push(Annotation::new(420.0, 45.0, "Tustin meets 45° at 420 Hz"));
     top.height_weight = 1.4;
 
     let mut mid = Panel::new(Axis::linear("overshoot (%)"));
@@ -83,8 +96,7 @@ fn review_figure() -> Figure {
         .push(Series::line("step overshoot", overshoot, 2).drawn(Draw::LineAndMarkers));
     mid.limits.push(Limit::new(10.0, Side::Above, "max 10 %"));
     mid.hbands.push(YBand::new(0.0, 5.0, "target band ±5 %"));
-    mid.vmarks
-        .push(VMark::new(850.0, "", MarkStyle::Solid));
+    mid.vmarks.push(VMark::new(850.0, "", MarkStyle::Solid));
 
     let mut bottom = Panel::new(Axis::log("settling time (s)"));
     bottom
@@ -93,17 +105,22 @@ fn review_figure() -> Figure {
     bottom
         .series
         .push(Series::line("CPU load (%)", cost, 4).drawn(Draw::Steps));
-    bottom.series.push(Series::line("", vec![(20.0, 0.5), (9000.0, 0.5)], 5));
     bottom
-        .vmarks
-        .push(VMark::new(850.0, "", MarkStyle::Dotted));
-    bottom.notes.push(Annotation::new(1000.0, 0.08, "τ ≈ 80 ms"));
+        .series
+        .push(Series::line("", vec![(20.0, 0.5), (9000.0, 0.5)], 5));
+    bottom.vmarks.push(VMark::new(850.0, "", MarkStyle::Dotted));
+    bottom
+        .notes
+        .push(Annotation::new(850.0, 0.0886, "t₂% ≈ 89 ms at 850 Hz"));
 
-    Figure::new("Loop-rate sweep: plant A, PI controller", Axis::log("loop rate (Hz)"))
-        .with_panel(top)
-        .with_panel(mid)
-        .with_panel(bottom)
-        .with_note("case: plant-a.toml · 121 rates · looprate 0.1.0")
+    Figure::new(
+        "Loop-rate sweep: plant A, PI controller",
+        Axis::log("loop rate (Hz)"),
+    )
+    .with_panel(top)
+    .with_panel(mid)
+    .with_panel(bottom)
+    .with_note("case: plant-a.toml · 121 rates · looprate 0.1.0")
 }
 
 fn decode(path: &std::path::Path) -> image::RgbImage {
@@ -131,8 +148,11 @@ fn three_panel_figure_renders_to_png() {
     assert!(var > 300.0, "image looks blank: luma variance {var}");
     // Several distinct colours from the palette are present.
     let has = |r: u8, g: u8, b: u8| {
-        img.pixels()
-            .any(|p| (i32::from(p[0]) - i32::from(r)).abs() < 12 && (i32::from(p[1]) - i32::from(g)).abs() < 12 && (i32::from(p[2]) - i32::from(b)).abs() < 12)
+        img.pixels().any(|p| {
+            (i32::from(p[0]) - i32::from(r)).abs() < 12
+                && (i32::from(p[1]) - i32::from(g)).abs() < 12
+                && (i32::from(p[2]) - i32::from(b)).abs() < 12
+        })
     };
     assert!(has(0x1d, 0x4f, 0x91), "blue series missing");
     assert!(has(0xd4, 0x6f, 0x12), "orange series missing");
@@ -165,17 +185,26 @@ fn degenerate_figures_do_not_panic() {
     let mut p1 = Panel::new(Axis::linear("nothing"));
     p1.series.push(Series::line("empty", vec![], 0));
     p1.series.push(Series::line("all NaN", nan.clone(), 1));
-    p1.series.push(Series::line("infinite", inf, 2).drawn(Draw::Steps));
+    p1.series
+        .push(Series::line("infinite", inf, 2).drawn(Draw::Steps));
     let mut p2 = Panel::new(Axis::log("log of nothing"));
-    p2.series.push(Series::line("non-positive", vec![(-1.0, 0.0), (0.0, -5.0)], 3));
-    p2.limits.push(Limit::new(f64::NAN, Side::Above, "nan limit"));
-    p2.vmarks.push(VMark::new(f64::NAN, "nan mark", MarkStyle::Dashed));
+    p2.series.push(Series::line(
+        "non-positive",
+        vec![(-1.0, 0.0), (0.0, -5.0)],
+        3,
+    ));
+    p2.limits
+        .push(Limit::new(f64::NAN, Side::Above, "nan limit"));
+    p2.vmarks
+        .push(VMark::new(f64::NAN, "nan mark", MarkStyle::Dashed));
     p2.notes.push(Annotation::new(f64::NAN, 1.0, "nowhere"));
-    p2.bands.push(XBand::new(f64::NEG_INFINITY, f64::NAN, "odd band"));
+    p2.bands
+        .push(XBand::new(f64::NEG_INFINITY, f64::NAN, "odd band"));
     p2.hbands.push(YBand::new(f64::NAN, f64::INFINITY, ""));
     p2.height_weight = f64::NAN;
     let mut p3 = Panel::new(Axis::linear("constant").with_range(3.0, 3.0));
-    p3.series.push(Series::line("flat", vec![(5.0, 3.0), (5.0, 3.0)], 4));
+    p3.series
+        .push(Series::line("flat", vec![(5.0, 3.0), (5.0, 3.0)], 4));
     p3.height_weight = -2.0;
     let fig = Figure::new("", Axis::log("x").with_range(5.0, 5.0))
         .with_panel(p1)
@@ -187,7 +216,8 @@ fn degenerate_figures_do_not_panic() {
 
     // Single points, a single panel, no labels at all.
     let mut p = Panel::default();
-    p.series.push(Series::line("", vec![(2.0, 2.0)], 0).drawn(Draw::LineAndMarkers));
+    p.series
+        .push(Series::line("", vec![(2.0, 2.0)], 0).drawn(Draw::LineAndMarkers));
     let fig = Figure::new("", Axis::default()).with_panel(p);
     render_png(&fig, &dir.join("single.png")).expect("one point draws");
 
@@ -195,15 +225,27 @@ fn degenerate_figures_do_not_panic() {
     let empty = Figure::new("no panels", Axis::default());
     assert!(matches!(render_rgb(&empty), Err(PlotError::NoPanels)));
     let tiny = review_figure().with_size(10, 10);
-    assert!(matches!(render_rgb(&tiny), Err(PlotError::InvalidSize { .. })));
+    assert!(matches!(
+        render_rgb(&tiny),
+        Err(PlotError::InvalidSize { .. })
+    ));
     let cramped = review_figure().with_size(200, 90);
-    assert!(matches!(render_rgb(&cramped), Err(PlotError::TooSmall { .. })));
+    assert!(matches!(
+        render_rgb(&cramped),
+        Err(PlotError::TooSmall { .. })
+    ));
     let mut bad = review_figure();
     bad.x = Axis::log("x").with_range(-1.0, 10.0);
-    assert!(matches!(render_rgb(&bad), Err(PlotError::InvalidRange { .. })));
+    assert!(matches!(
+        render_rgb(&bad),
+        Err(PlotError::InvalidRange { .. })
+    ));
     let mut bad = review_figure();
     bad.panels[1].y.range = Some((0.0, f64::NAN));
-    assert!(matches!(render_rgb(&bad), Err(PlotError::InvalidRange { .. })));
+    assert!(matches!(
+        render_rgb(&bad),
+        Err(PlotError::InvalidRange { .. })
+    ));
 }
 
 #[test]

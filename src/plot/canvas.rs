@@ -31,10 +31,6 @@ impl Rect {
         }
     }
 
-    pub fn width(&self) -> f64 {
-        self.x1 - self.x0
-    }
-
     pub fn height(&self) -> f64 {
         self.y1 - self.y0
     }
@@ -63,11 +59,6 @@ impl Rect {
             y1: self.y1.min(o.y1),
         };
         (r.x0 < r.x1 && r.y0 < r.y1).then_some(r)
-    }
-
-    /// Shift by `(dx, dy)`.
-    pub fn translate(&self, dx: f64, dy: f64) -> Rect {
-        Rect::new(self.x0 + dx, self.y0 + dy, self.x1 + dx, self.y1 + dy)
     }
 }
 
@@ -223,8 +214,7 @@ impl Canvas {
         }
         // Refuse absurd scratch sizes rather than allocate gigabytes.
         let area = (maxx - minx + 2.0) * (maxy - miny + 2.0);
-        if !area.is_finite() || area > 4.0 * f64::from(self.width) * f64::from(self.height) + 1e6
-        {
+        if !area.is_finite() || area > 4.0 * f64::from(self.width) * f64::from(self.height) + 1e6 {
             return;
         }
         let outline = Outline {

@@ -136,10 +136,7 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
     validate(fig)?;
     let font = TextFont::embedded()?;
     let m = Metrics::new(fig.width, fig.height);
-    let cx = Ctx {
-        font: &font,
-        m: &m,
-    };
+    let cx = Ctx { font: &font, m: &m };
     let (w, h) = (f64::from(fig.width), f64::from(fig.height));
     let mut canvas = Canvas::new(fig.width, fig.height, style::BACKGROUND);
     let too_small = || PlotError::TooSmall {
@@ -166,7 +163,8 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
     }
     bottom -= m.tick_len + 0.2 * m.base + tick_lh;
     let n = fig.panels.len();
-    let gap = 0.9 * m.base;
+    // Room between panels for the y tick labels centred on both edges.
+    let gap = (tick_lh + 0.35 * m.base).max(0.9 * m.base).round();
     let avail = bottom - top - gap * (n as f64 - 1.0);
     let weights: Vec<f64> = fig
         .panels
@@ -290,8 +288,10 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
         if tw > room {
             size *= room / tw;
         }
-        let centre = ((left + right) / 2.0)
-            .clamp(m.margin + tw.min(room) / 2.0, w - m.margin - tw.min(room) / 2.0);
+        let centre = ((left + right) / 2.0).clamp(
+            m.margin + tw.min(room) / 2.0,
+            w - m.margin - tw.min(room) / 2.0,
+        );
         font.draw(
             &mut canvas,
             title,
@@ -322,7 +322,12 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
             &mut canvas,
             &cx,
             &legend_entries[i],
-            Rect::new(right + m.base, y0, w - m.margin, y1 + if is_bottom { 0.0 } else { gap }),
+            Rect::new(
+                right + m.base,
+                y0,
+                w - m.margin,
+                y1 + if is_bottom { 0.0 } else { gap },
+            ),
             sample_w,
             legend_text_max,
         );
@@ -402,7 +407,7 @@ fn draw_panel(canvas: &mut Canvas, cx: &Ctx, p: &Panel, g: &PanelGeom) {
             continue;
         }
         canvas.fill_rect(r, style::LIMIT, 0.05);
-        hatch(canvas, r, 0.55 * m.base, style::LIMIT, 0.28);
+        hatch(canvas, r, 0.7 * m.base, style::LIMIT, 0.22);
     }
 
     // Grid.
@@ -599,7 +604,18 @@ fn draw_series(canvas: &mut Canvas, m: &Metrics, s: &Series, g: &PanelGeom) {
         let dash = dash_px(pen.dash, lw);
         let mut polys = Vec::new();
         for run in runs(&pts, g) {
-            stroke_polyline(&run, lw, &dash, &keep, &mut polys);
+            let span = run.iter().fold(0.0_f64, |a, p| {
+                a.max((p.0 - run[0].0).abs()).max((p.1 - run[0].1).abs())
+            });
+            if span < lw {
+                // A lone point (or a run that collapses onto one pixel)
+                // would vanish as a line: show it as a dot.
+                if keep.contains_rect(&Rect::new(run[0].0, run[0].1, run[0].0, run[0].1)) {
+                    polys.push(circle(run[0].0, run[0].1, lw * 1.4));
+                }
+            } else {
+                stroke_polyline(&run, lw, &dash, &keep, &mut polys);
+            }
         }
         canvas.fill_polys(&polys, pen.color, 1.0, plot);
     }
@@ -632,7 +648,12 @@ fn marker(k: Marker, x: f64, y: f64, r: f64, out: &mut Vec<Poly>) {
         Marker::Circle => out.push(circle(x, y, r * 0.95)),
         Marker::Square => {
             let a = r * 0.82;
-            out.push(vec![(x - a, y - a), (x + a, y - a), (x + a, y + a), (x - a, y + a)]);
+            out.push(vec![
+                (x - a, y - a),
+                (x + a, y - a),
+                (x + a, y + a),
+                (x - a, y + a),
+            ]);
         }
         Marker::TriangleUp => out.push(reg(3, r * 1.2, -FRAC_PI_2)),
         Marker::TriangleDown => out.push(reg(3, r * 1.2, FRAC_PI_2)),
@@ -861,10 +882,7 @@ fn draw_inplot_labels(canvas: &mut Canvas, cx: &Ctx, p: &Panel, g: &PanelGeom) {
         let st = small(style::TEXT_SOFT);
         let tw = cx.font.width(text, m.small);
         let half = tw / 2.0 + 0.5 * b;
-        let centre = ((a + c) / 2.0).clamp(
-            plot.x0 + half,
-            (plot.x1 - half).max(plot.x0 + half),
-        );
+        let centre = ((a + c) / 2.0).clamp(plot.x0 + half, (plot.x1 - half).max(plot.x0 + half));
         let spots = [
             Spot {
                 x: centre,
@@ -986,7 +1004,13 @@ fn draw_legend(
             );
         }
         if marks {
-            marker(pen.marker, x0 + sample_w / 2.0, y, m.base * 0.24, &mut polys);
+            marker(
+                pen.marker,
+                x0 + sample_w / 2.0,
+                y,
+                m.base * 0.24,
+                &mut polys,
+            );
         }
         canvas.fill_polys(&polys, pen.color, 1.0, keep);
         let text = ellipsize(cx.font, s.label.trim(), m.legend, text_max);

@@ -64,7 +64,9 @@ pub(crate) fn choose_range(explicit: Option<(f64, f64)>, values: &[f64], log: bo
             return widen(a, b, log);
         }
     }
-    let usable = values.iter().filter(|v| v.is_finite() && (!log || **v > 0.0));
+    let usable = values
+        .iter()
+        .filter(|v| v.is_finite() && (!log || **v > 0.0));
     let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
     for v in usable {
         lo = lo.min(*v);
@@ -110,7 +112,10 @@ fn snap125(v: f64, up: bool) -> f64 {
     let m = v / base;
     let steps = [1.0, 2.0, 5.0, 10.0];
     if up {
-        let s = steps.iter().find(|s| **s >= m * (1.0 - 1e-9)).unwrap_or(&10.0);
+        let s = steps
+            .iter()
+            .find(|s| **s >= m * (1.0 - 1e-9))
+            .unwrap_or(&10.0);
         s * base
     } else {
         let s = steps
@@ -201,7 +206,7 @@ fn log_candidates(scale: &Scale) -> Vec<Ticks> {
     }
     let d0 = llo.floor() as i32 - 1;
     let d1 = lhi.ceil() as i32 + 1;
-    if !(d1 - d0 < 400) {
+    if d1 - d0 >= 400 {
         return out;
     }
     let inside = |v: f64| v >= lo * (1.0 - 1e-9) && v <= hi * (1.0 + 1e-9);

@@ -221,7 +221,12 @@ impl TextFont {
         } else {
             let ox = (x - ax).round();
             let oy = (y - ay).round();
-            let r = Rect::new(ox, oy - layout.ascent, ox + layout.width, oy + layout.descent);
+            let r = Rect::new(
+                ox,
+                oy - layout.ascent,
+                ox + layout.width,
+                oy + layout.descent,
+            );
             ((ox as i64, oy as i64), r)
         }
     }
@@ -337,7 +342,7 @@ mod tests {
         assert!(((r.y0 + r.y1) / 2.0 - 50.0).abs() <= 1.0);
         let rot = st.anchor(HAlign::Center, VAlign::Top).rotated();
         let r = font.bounds("gain (dB)", 30.0, 200.0, &rot);
-        assert!(r.height() > r.width(), "rotated text is tall: {r:?}");
+        assert!(r.height() > r.x1 - r.x0, "rotated text is tall: {r:?}");
         assert!((r.x0 - 30.0).abs() <= 1.0);
         assert!(((r.y0 + r.y1) / 2.0 - 200.0).abs() <= 1.0);
     }
