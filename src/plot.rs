@@ -8,7 +8,7 @@
 //!
 //! All drawing is our own, on an RGB buffer: shapes are anti-aliased
 //! through `ab_glyph`'s outline rasterizer and text is laid out with the
-//! embedded font's metrics (see [`text`]), because plotters 0.3.7's own
+//! embedded font's metrics (module `text`), because plotters 0.3.7's own
 //! text path mis-spaces letters. plotters is used only to encode the
 //! finished buffer as PNG, so no system library (fontconfig, freetype) is
 //! involved and output is identical on every machine.

@@ -264,3 +264,78 @@ fn failed_write_leaves_no_file() {
     assert_eq!(std::fs::read(&existing).unwrap(), b"old");
     assert_eq!(std::fs::read_dir(&dir).unwrap().count(), 1);
 }
+
+/// A time-domain figure on linear axes: a step response with a settling
+/// band, sampled outputs as staircases, and more series than the
+/// palette has entries (the legend must cope).
+#[test]
+fn step_response_figure_renders() {
+    let dir = out_dir("step");
+    let t: Vec<f64> = (0..=400).map(|i| f64::from(i) * 0.0002).collect();
+    let resp = |wn: f64, z: f64| -> Vec<(f64, f64)> {
+        let wd = wn * (1.0 - z * z).sqrt();
+        t.iter()
+            .map(|&t| {
+                let e = (-z * wn * t).exp();
+                (t, 1.0 - e * ((wd * t).cos() + z * wn / wd * (wd * t).sin()))
+            })
+            .collect()
+    };
+    let mut p = Panel::new(Axis::linear("output (normalized)"));
+    p.series
+        .push(Series::line("continuous loop", resp(900.0, 0.45), 0));
+    for (k, rate) in [2000.0, 4000.0, 8000.0].iter().enumerate() {
+        let step = 1.0 / rate;
+        let pts: Vec<(f64, f64)> = resp(900.0 * (1.0 - 300.0 / rate), 0.45 - 600.0 / rate)
+            .into_iter()
+            .filter(|(t, _)| ((t / step).round() * step - t).abs() < 1e-9)
+            .collect();
+        p.series.push(
+            Series::line(
+                format!("sampled at {rate} Hz (zero-order hold)"),
+                pts,
+                k + 1,
+            )
+            .drawn(Draw::Steps),
+        );
+    }
+    for k in 4..10 {
+        let pts = resp(700.0 + 60.0 * k as f64, 0.3 + 0.04 * k as f64);
+        p.series.push(Series::line(
+            format!("variant {k} with a rather long legend label that must be cut short"),
+            pts,
+            k,
+        ));
+    }
+    p.hbands.push(YBand::new(0.98, 1.02, "±2 % settling band"));
+    p.limits
+        .push(Limit::new(1.25, Side::Above, "overshoot limit 25 %"));
+    p.vmarks
+        .push(VMark::new(0.0051, "settled at 5.1 ms", MarkStyle::Dotted));
+    let mut u = Panel::new(Axis::linear("control effort (V)"));
+    u.series.push(
+        Series::line(
+            "u[k]",
+            (0..160)
+                .map(|i| {
+                    let t = f64::from(i) * 0.0005;
+                    (t, -3.0 + 9.0 * (-t * 900.0).exp())
+                })
+                .collect(),
+            0,
+        )
+        .drawn(Draw::Steps),
+    );
+    u.limits.push(Limit::new(5.0, Side::Above, "actuator +5 V"));
+    u.limits
+        .push(Limit::new(-5.0, Side::Below, "actuator −5 V"));
+    u.height_weight = 0.6;
+    let fig = Figure::new("Step response at candidate rates", Axis::linear("time (s)"))
+        .with_panel(p)
+        .with_panel(u);
+    let path = dir.join("step.png");
+    render_png(&fig, &path).expect("renders");
+    let img = decode(&path);
+    assert_eq!((img.width(), img.height()), (1600, 1000));
+    assert!(variance(&img) > 200.0);
+}
