@@ -18,6 +18,7 @@ pub mod frequency;
 pub mod hold;
 pub mod outputs;
 pub mod pick;
+pub mod plot;
 pub mod poly;
 pub mod scalar_solve;
 pub mod search;

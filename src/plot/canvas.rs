@@ -1,0 +1,405 @@
+//! An RGB pixel buffer with anti-aliased shape filling.
+//!
+//! Shapes are filled through `ab_glyph`'s outline rasterizer: a set of
+//! polygons is handed over as if it were one glyph outline, and the
+//! coverage it reports per pixel is blended into the buffer. This gives
+//! smooth data lines and markers without any extra dependency, and the
+//! same coverage model as the text, so everything on a chart looks alike.
+
+use ab_glyph::{GlyphId, Outline, OutlineCurve, OutlinedGlyph, PxScale, PxScaleFactor, point};
+
+/// An sRGB colour.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Rgb(pub u8, pub u8, pub u8);
+
+/// An axis-aligned rectangle in pixel coordinates (y grows downwards).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub(crate) struct Rect {
+    pub x0: f64,
+    pub y0: f64,
+    pub x1: f64,
+    pub y1: f64,
+}
+
+impl Rect {
+    pub fn new(x0: f64, y0: f64, x1: f64, y1: f64) -> Self {
+        Rect {
+            x0: x0.min(x1),
+            y0: y0.min(y1),
+            x1: x0.max(x1),
+            y1: y0.max(y1),
+        }
+    }
+
+    pub fn height(&self) -> f64 {
+        self.y1 - self.y0
+    }
+
+    /// The rectangle grown by `d` on every side (shrunk for negative `d`).
+    pub fn expand(&self, d: f64) -> Rect {
+        Rect::new(self.x0 - d, self.y0 - d, self.x1 + d, self.y1 + d)
+    }
+
+    /// Whether the two rectangles share any area.
+    pub fn overlaps(&self, o: &Rect) -> bool {
+        self.x0 < o.x1 && o.x0 < self.x1 && self.y0 < o.y1 && o.y0 < self.y1
+    }
+
+    /// Whether `o` lies wholly inside this rectangle.
+    pub fn contains_rect(&self, o: &Rect) -> bool {
+        o.x0 >= self.x0 && o.x1 <= self.x1 && o.y0 >= self.y0 && o.y1 <= self.y1
+    }
+
+    /// The common part, if any.
+    pub fn intersect(&self, o: &Rect) -> Option<Rect> {
+        let r = Rect {
+            x0: self.x0.max(o.x0),
+            y0: self.y0.max(o.y0),
+            x1: self.x1.min(o.x1),
+            y1: self.y1.min(o.y1),
+        };
+        (r.x0 < r.x1 && r.y0 < r.y1).then_some(r)
+    }
+}
+
+/// A closed polygon in pixel coordinates.
+pub(crate) type Poly = Vec<(f64, f64)>;
+
+/// The drawing surface: 8-bit RGB, row-major, no alpha channel.
+pub(crate) struct Canvas {
+    width: u32,
+    height: u32,
+    px: Vec<u8>,
+}
+
+impl Canvas {
+    /// A canvas filled with `bg`.
+    pub fn new(width: u32, height: u32, bg: Rgb) -> Self {
+        let n = width as usize * height as usize;
+        let mut px = Vec::with_capacity(n * 3);
+        for _ in 0..n {
+            px.extend_from_slice(&[bg.0, bg.1, bg.2]);
+        }
+        Canvas { width, height, px }
+    }
+
+    pub fn width(&self) -> u32 {
+        self.width
+    }
+
+    pub fn height(&self) -> u32 {
+        self.height
+    }
+
+    /// The raw RGB bytes, row after row.
+    pub fn pixels(&self) -> &[u8] {
+        &self.px
+    }
+
+    /// The whole canvas as a rectangle.
+    pub fn bounds(&self) -> Rect {
+        Rect::new(0.0, 0.0, f64::from(self.width), f64::from(self.height))
+    }
+
+    /// Mix `c` into pixel `(x, y)` with opacity `a` (0..1); outside pixels
+    /// are ignored.
+    pub fn blend(&mut self, x: i64, y: i64, c: Rgb, a: f32) {
+        if x < 0 || y < 0 || x >= i64::from(self.width) || y >= i64::from(self.height) {
+            return;
+        }
+        let a = a.clamp(0.0, 1.0);
+        if a <= 0.0 {
+            return;
+        }
+        let i = (y as usize * self.width as usize + x as usize) * 3;
+        let mix = |d: u8, s: u8| -> u8 {
+            let v = f32::from(d) + (f32::from(s) - f32::from(d)) * a;
+            v.round().clamp(0.0, 255.0) as u8
+        };
+        self.px[i] = mix(self.px[i], c.0);
+        self.px[i + 1] = mix(self.px[i + 1], c.1);
+        self.px[i + 2] = mix(self.px[i + 2], c.2);
+    }
+
+    /// How many pixels inside `r` are darker than `luma` (0..255): a
+    /// measure of how much is already drawn there.
+    pub fn ink_in(&self, r: Rect, luma: u8) -> usize {
+        let Some(r) = r.intersect(&self.bounds()) else {
+            return 0;
+        };
+        let mut n = 0;
+        for y in r.y0.round() as usize..r.y1.round() as usize {
+            for x in r.x0.round() as usize..r.x1.round() as usize {
+                let i = (y * self.width as usize + x) * 3;
+                let l = (u32::from(self.px[i]) * 3
+                    + u32::from(self.px[i + 1]) * 6
+                    + u32::from(self.px[i + 2]))
+                    / 10;
+                if l < u32::from(luma) {
+                    n += 1;
+                }
+            }
+        }
+        n
+    }
+
+    /// Fill the pixels whose centres lie inside `r` (no anti-aliasing),
+    /// for crisp grid lines, frames and backgrounds.
+    pub fn fill_rect(&mut self, r: Rect, c: Rgb, a: f32) {
+        let Some(r) = r.intersect(&self.bounds()) else {
+            return;
+        };
+        let (x0, x1) = (r.x0.round() as i64, r.x1.round() as i64);
+        let (y0, y1) = (r.y0.round() as i64, r.y1.round() as i64);
+        for y in y0..y1 {
+            for x in x0..x1 {
+                self.blend(x, y, c, a);
+            }
+        }
+    }
+
+    /// A one-pixel crisp vertical line at column `x` from `y0` to `y1`.
+    pub fn vline(&mut self, x: f64, y0: f64, y1: f64, c: Rgb, a: f32) {
+        let xi = x.floor();
+        self.fill_rect(Rect::new(xi, y0, xi + 1.0, y1), c, a);
+    }
+
+    /// A one-pixel crisp horizontal line at row `y` from `x0` to `x1`.
+    pub fn hline(&mut self, y: f64, x0: f64, x1: f64, c: Rgb, a: f32) {
+        let yi = y.floor();
+        self.fill_rect(Rect::new(x0, yi, x1, yi + 1.0), c, a);
+    }
+
+    /// Fill the union of `polys` with anti-aliased edges, touching only
+    /// pixels inside `clip`. Polygons with non-finite vertices are skipped.
+    /// Callers keep geometry near `clip` (see [`clip_segment`]) so the
+    /// rasterizer's scratch buffer stays small.
+    pub fn fill_polys(&mut self, polys: &[Poly], c: Rgb, alpha: f32, clip: Rect) {
+        let Some(clip) = clip.intersect(&self.bounds()) else {
+            return;
+        };
+        let mut curves = Vec::new();
+        let (mut minx, mut miny) = (f64::INFINITY, f64::INFINITY);
+        let (mut maxx, mut maxy) = (f64::NEG_INFINITY, f64::NEG_INFINITY);
+        for poly in polys {
+            if poly.len() < 3 || poly.iter().any(|p| !p.0.is_finite() || !p.1.is_finite()) {
+                continue;
+            }
+            // Every polygon gets the same winding so that overlaps add
+            // up (and are clamped) instead of cancelling into holes.
+            let area: f64 = poly
+                .iter()
+                .zip(poly.iter().cycle().skip(1))
+                .map(|(a, b)| a.0 * b.1 - b.0 * a.1)
+                .sum();
+            let pts: Vec<(f64, f64)> = if area < 0.0 {
+                poly.iter().rev().copied().collect()
+            } else {
+                poly.clone()
+            };
+            for (i, p) in pts.iter().enumerate() {
+                let q = pts[(i + 1) % pts.len()];
+                curves.push(OutlineCurve::Line(
+                    point(p.0 as f32, -p.1 as f32),
+                    point(q.0 as f32, -q.1 as f32),
+                ));
+                minx = minx.min(p.0);
+                maxx = maxx.max(p.0);
+                miny = miny.min(p.1);
+                maxy = maxy.max(p.1);
+            }
+        }
+        if curves.is_empty() {
+            return;
+        }
+        // Refuse absurd scratch sizes rather than allocate gigabytes.
+        let area = (maxx - minx + 2.0) * (maxy - miny + 2.0);
+        if !area.is_finite() || area > 4.0 * f64::from(self.width) * f64::from(self.height) + 1e6 {
+            return;
+        }
+        let outline = Outline {
+            bounds: ab_glyph::Rect {
+                min: point(minx as f32, -miny as f32),
+                max: point(maxx as f32, -maxy as f32),
+            },
+            curves,
+        };
+        let glyph = GlyphId(0).with_scale_and_position(PxScale::from(1.0), point(0.0, 0.0));
+        let og = OutlinedGlyph::new(
+            glyph,
+            outline,
+            PxScaleFactor {
+                horizontal: 1.0,
+                vertical: 1.0,
+            },
+        );
+        let b = og.px_bounds();
+        let (ox, oy) = (b.min.x as i64, b.min.y as i64);
+        let (cx0, cy0) = (clip.x0.round() as i64, clip.y0.round() as i64);
+        let (cx1, cy1) = (clip.x1.round() as i64, clip.y1.round() as i64);
+        og.draw(|x, y, cov| {
+            let (px, py) = (ox + i64::from(x), oy + i64::from(y));
+            if px >= cx0 && px < cx1 && py >= cy0 && py < cy1 && cov > 0.002 {
+                self.blend(px, py, c, cov.min(1.0) * alpha);
+            }
+        });
+    }
+}
+
+/// A regular polygon approximating a circle of radius `r` about `(cx, cy)`.
+pub(crate) fn circle(cx: f64, cy: f64, r: f64) -> Poly {
+    let n = ((r * 4.0).ceil() as usize).clamp(8, 48);
+    (0..n)
+        .map(|i| {
+            let t = std::f64::consts::TAU * i as f64 / n as f64;
+            (cx + r * t.cos(), cy + r * t.sin())
+        })
+        .collect()
+}
+
+/// The outline of a straight stroke of width `w` from `a` to `b` with
+/// round caps, as a rectangle plus two end discs.
+pub(crate) fn capsule(a: (f64, f64), b: (f64, f64), w: f64, out: &mut Vec<Poly>) {
+    let r = w / 2.0;
+    let (dx, dy) = (b.0 - a.0, b.1 - a.1);
+    let len = dx.hypot(dy);
+    if len > 1e-9 {
+        let (nx, ny) = (-dy / len * r, dx / len * r);
+        out.push(vec![
+            (a.0 + nx, a.1 + ny),
+            (b.0 + nx, b.1 + ny),
+            (b.0 - nx, b.1 - ny),
+            (a.0 - nx, a.1 - ny),
+        ]);
+    }
+    out.push(circle(a.0, a.1, r));
+    if len > 1e-9 {
+        out.push(circle(b.0, b.1, r));
+    }
+}
+
+/// The part of segment `a`-`b` inside `r`, as parameters `(t0, t1)` along
+/// it (Liang-Barsky), or `None` when it misses.
+pub(crate) fn clip_segment(a: (f64, f64), b: (f64, f64), r: &Rect) -> Option<(f64, f64)> {
+    let (dx, dy) = (b.0 - a.0, b.1 - a.1);
+    let mut t0: f64 = 0.0;
+    let mut t1: f64 = 1.0;
+    for (p, q) in [
+        (-dx, a.0 - r.x0),
+        (dx, r.x1 - a.0),
+        (-dy, a.1 - r.y0),
+        (dy, r.y1 - a.1),
+    ] {
+        if p == 0.0 {
+            if q < 0.0 {
+                return None;
+            }
+        } else {
+            let t = q / p;
+            if p < 0.0 {
+                t0 = t0.max(t);
+            } else {
+                t1 = t1.min(t);
+            }
+        }
+    }
+    (t0 <= t1 && t0.is_finite() && t1.is_finite()).then_some((t0, t1))
+}
+
+/// Stroke the polyline `pts` (pixel coordinates, no breaks) with width `w`
+/// and dash pattern `dash` (alternating visible/gap lengths in pixels,
+/// empty = solid), appending capsules to `out`. Geometry outside `keep`
+/// is dropped, with the dash phase still advancing, so far-away points
+/// neither cost memory nor shift the pattern.
+pub(crate) fn stroke_polyline(
+    pts: &[(f64, f64)],
+    w: f64,
+    dash: &[f64],
+    keep: &Rect,
+    out: &mut Vec<Poly>,
+) {
+    if pts.len() == 1 {
+        let p = pts[0];
+        if p.0 >= keep.x0 && p.0 <= keep.x1 && p.1 >= keep.y0 && p.1 <= keep.y1 {
+            out.push(circle(p.0, p.1, w / 2.0));
+        }
+        return;
+    }
+    let period: f64 = dash.iter().sum();
+    let dashed = dash.len() >= 2 && period > 0.0 && period.is_finite();
+    let mut travelled = 0.0_f64;
+    for win in pts.windows(2) {
+        let (a, b) = (win[0], win[1]);
+        let len = (b.0 - a.0).hypot(b.1 - a.1);
+        if !len.is_finite() {
+            continue;
+        }
+        if let Some((t0, t1)) = clip_segment(a, b, keep) {
+            let at = |t: f64| (a.0 + (b.0 - a.0) * t, a.1 + (b.1 - a.1) * t);
+            if !dashed {
+                capsule(at(t0), at(t1), w, out);
+            } else if len > 0.0 {
+                // Walk the dash pattern over the visible part only.
+                let s_start = t0 * len;
+                let s_end = t1 * len;
+                let pos = (travelled + s_start) % period;
+                let (mut k, mut acc) = (0, 0.0);
+                while k + 1 < dash.len() && acc + dash[k] <= pos {
+                    acc += dash[k];
+                    k += 1;
+                }
+                let mut remaining = acc + dash[k] - pos;
+                let mut s = s_start;
+                let mut guard = 0;
+                while s < s_end && guard < 100_000 {
+                    guard += 1;
+                    let e = (s + remaining.max(0.0)).min(s_end);
+                    if k % 2 == 0 {
+                        capsule(at(s / len), at(e / len), w, out);
+                    }
+                    s = e;
+                    k = (k + 1) % dash.len();
+                    remaining = dash[k];
+                }
+            }
+        }
+        travelled += len;
+        if travelled > 1e12 {
+            travelled %= period.max(1.0);
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn clip_keeps_inside_and_cuts_outside() {
+        let r = Rect::new(0.0, 0.0, 10.0, 10.0);
+        assert_eq!(clip_segment((1.0, 1.0), (2.0, 2.0), &r), Some((0.0, 1.0)));
+        let (t0, t1) = clip_segment((-10.0, 5.0), (20.0, 5.0), &r).unwrap();
+        assert!((t0 - 1.0 / 3.0).abs() < 1e-12 && (t1 - 2.0 / 3.0).abs() < 1e-12);
+        assert_eq!(clip_segment((-5.0, -5.0), (-1.0, 20.0), &r), None);
+    }
+
+    #[test]
+    fn filled_square_is_covered_and_clipped() {
+        let mut c = Canvas::new(20, 20, Rgb(255, 255, 255));
+        let sq = vec![(2.0, 2.0), (12.0, 2.0), (12.0, 12.0), (2.0, 12.0)];
+        c.fill_polys(&[sq], Rgb(0, 0, 0), 1.0, Rect::new(0.0, 0.0, 8.0, 20.0));
+        let at = |x: usize, y: usize| c.pixels()[(y * 20 + x) * 3];
+        assert_eq!(at(5, 5), 0);
+        assert_eq!(at(10, 5), 255, "outside the clip");
+        assert_eq!(at(15, 15), 255);
+    }
+
+    #[test]
+    fn overlapping_polygons_do_not_cancel() {
+        let mut c = Canvas::new(20, 20, Rgb(255, 255, 255));
+        let a = vec![(2.0, 2.0), (12.0, 2.0), (12.0, 12.0), (2.0, 12.0)];
+        let b: Poly = a.iter().rev().map(|p| (p.0 + 3.0, p.1 + 3.0)).collect();
+        c.fill_polys(&[a, b], Rgb(0, 0, 0), 1.0, c.bounds());
+        assert_eq!(c.pixels()[(8 * 20 + 8) * 3], 0);
+    }
+}

@@ -1,0 +1,114 @@
+//! Colours, dash patterns and marker shapes.
+//!
+//! Each palette entry differs from its neighbours in three ways (hue,
+//! lightness, dash pattern and marker shape), so series stay apart when
+//! printed in greyscale or seen with a colour-vision deficiency. The hues
+//! are muted so that hatching, bands and labels stay readable on top.
+
+use super::canvas::Rgb;
+
+/// A marker shape drawn at data points.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) enum Marker {
+    Circle,
+    Square,
+    TriangleUp,
+    Diamond,
+    Cross,
+    TriangleDown,
+    Plus,
+    Hexagon,
+}
+
+/// One palette entry.
+#[derive(Debug, Clone, Copy)]
+pub(crate) struct Pen {
+    pub color: Rgb,
+    /// Alternating visible/gap lengths, in line widths, as they should
+    /// look (round caps are accounted for when stroking). Empty = solid.
+    pub dash: &'static [f64],
+    pub marker: Marker,
+}
+
+/// Number of distinct series styles before the palette repeats.
+pub const PALETTE_LEN: usize = 8;
+
+const PENS: [Pen; PALETTE_LEN] = [
+    Pen {
+        color: Rgb(0x1d, 0x4f, 0x91), // deep blue
+        dash: &[],
+        marker: Marker::Circle,
+    },
+    Pen {
+        color: Rgb(0xd4, 0x6f, 0x12), // burnt orange
+        dash: &[5.0, 2.5],
+        marker: Marker::Square,
+    },
+    Pen {
+        color: Rgb(0x17, 0x85, 0x7b), // teal
+        dash: &[7.0, 2.5, 1.0, 2.5],
+        marker: Marker::TriangleUp,
+    },
+    Pen {
+        color: Rgb(0x7b, 0x4d, 0xa6), // violet
+        dash: &[1.0, 2.0],
+        marker: Marker::Diamond,
+    },
+    Pen {
+        color: Rgb(0x4a, 0x4a, 0x4a), // charcoal
+        dash: &[10.0, 3.0],
+        marker: Marker::Cross,
+    },
+    Pen {
+        color: Rgb(0x80, 0x84, 0x1c), // olive
+        dash: &[6.0, 2.0, 1.0, 2.0, 1.0, 2.0],
+        marker: Marker::TriangleDown,
+    },
+    Pen {
+        color: Rgb(0xb2, 0x3a, 0x6d), // raspberry
+        dash: &[2.5, 2.0],
+        marker: Marker::Plus,
+    },
+    Pen {
+        color: Rgb(0x3f, 0x97, 0xd0), // sky blue
+        dash: &[12.0, 2.5, 3.0, 2.5],
+        marker: Marker::Hexagon,
+    },
+];
+
+/// The pen for palette index `i` (wrapping).
+pub(crate) fn pen(i: usize) -> Pen {
+    PENS[i % PALETTE_LEN]
+}
+
+/// Dash lengths in pixels for stroking with round caps of width `w`:
+/// each cap adds half a width at both ends of a visible piece, so pieces
+/// are shortened and gaps lengthened by one width.
+pub(crate) fn dash_px(dash: &[f64], w: f64) -> Vec<f64> {
+    dash.iter()
+        .enumerate()
+        .map(|(i, d)| {
+            if i % 2 == 0 {
+                ((d - 1.0) * w).max(0.0)
+            } else {
+                (d + 1.0) * w
+            }
+        })
+        .collect()
+}
+
+/// Page and text colours.
+pub(crate) const BACKGROUND: Rgb = Rgb(255, 255, 255);
+pub(crate) const TEXT: Rgb = Rgb(0x22, 0x25, 0x2a);
+pub(crate) const TEXT_SOFT: Rgb = Rgb(0x55, 0x5a, 0x62);
+pub(crate) const FRAME: Rgb = Rgb(0x7c, 0x82, 0x8a);
+pub(crate) const GRID: Rgb = Rgb(0xdf, 0xe3, 0xe8);
+pub(crate) const GRID_MINOR: Rgb = Rgb(0xef, 0xf1, 0xf4);
+/// Spec limits and their infeasible side.
+pub(crate) const LIMIT: Rgb = Rgb(0xb0, 0x2e, 0x36);
+/// Vertical markers and annotation pointers.
+pub(crate) const MARK: Rgb = Rgb(0x2b, 0x2f, 0x36);
+/// Shaded x interval (e.g. a feasible window).
+pub(crate) const XBAND: Rgb = Rgb(0x3c, 0xa0, 0x6a);
+/// Shaded y interval (e.g. a settling band).
+pub(crate) const YBAND: Rgb = Rgb(0x5a, 0x7d, 0xb0);
