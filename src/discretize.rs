@@ -175,13 +175,24 @@ fn step_invariant(c: &Tf, t: f64) -> Result<Tf, DiscretizeError> {
         return Ok(c.clone());
     }
     let (phi, gam) = hold_integrals(&ss.a, &ss.b, t)?;
+    let den = mapped_den(c, t)?;
     Ok(StateSpace {
         a: phi,
         b: gam,
         c: ss.c,
         d: ss.d,
     }
-    .to_tf(0)?)
+    .to_tf_with_den(0, den))
+}
+
+/// Characteristic polynomial of `e^{AT}` from the continuous poles mapped
+/// by `z = e^{pT}`: exact poles at s = 0 land exactly on z = 1, and poles
+/// crowded near z = 1 at fast rates keep the digits that an eigenvalue
+/// routine on `e^{AT}` would lose.
+fn mapped_den(c: &Tf, t: f64) -> Result<Poly, DiscretizeError> {
+    let poles = c.den.roots().ok_or(ModelError::Eigen)?;
+    let mapped: Vec<C64> = poles.iter().map(|p| (p * t).exp()).collect();
+    Ok(Poly::from_roots(&mapped))
 }
 
 /// Triangle-hold (ramp-invariant) equivalent: one exponential of
@@ -204,13 +215,14 @@ fn ramp_invariant(c: &Tf, t: f64) -> Result<Tf, DiscretizeError> {
     let g2: DVector<f64> = e.view((0, n + 1), (n, 1)).column(0).into_owned();
     let bd = &g1 - &g2 + &phi * &g2;
     let dd = ss.d[0] + (&ss.c * &g2)[0];
+    let den = mapped_den(c, t)?;
     Ok(StateSpace {
         a: phi,
         b: bd,
         c: ss.c,
         d: DVector::from_element(1, dd),
     }
-    .to_tf(0)?)
+    .to_tf_with_den(0, den))
 }
 
 /// Impulse-invariant equivalent scaled by T:
@@ -224,13 +236,14 @@ fn impulse_invariant(c: &Tf, t: f64) -> Result<Tf, DiscretizeError> {
     let phi = expm(&(&ss.a * t))?;
     let bd = &phi * &ss.b * t;
     let dd = ss.d[0] + (&ss.c * &ss.b)[0] * t;
+    let den = mapped_den(c, t)?;
     Ok(StateSpace {
         a: phi,
         b: bd,
         c: ss.c,
         d: DVector::from_element(1, dd),
     }
-    .to_tf(0)?)
+    .to_tf_with_den(0, den))
 }
 
 /// Pole-zero matching: finite poles and zeros by `z = e^{sT}`, zeros at

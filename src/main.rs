@@ -150,15 +150,33 @@ fn run(cli: Cli) -> Result<ExitCode> {
             if !(rate > 0.0 && rate.is_finite()) {
                 return Err(anyhow!("--rate must be positive and finite, got {rate}"));
             }
-            let expr = Expr::parse(&tf).map_err(|e| anyhow!("--tf: column {}: {}\n    {}\n    {}", e.column, e.message, tf, e.caret_line(&tf)))?;
-            let (num, den) = expr
-                .eval(&|_| None)
-                .map_err(|e| anyhow!("--tf: column {}: {}\n    {}\n    {}", e.column, e.message, tf, e.caret_line(&tf)))?;
+            let expr = Expr::parse(&tf).map_err(|e| {
+                anyhow!(
+                    "--tf: column {}: {}\n    {}\n    {}",
+                    e.column,
+                    e.message,
+                    tf,
+                    e.caret_line(&tf)
+                )
+            })?;
+            let (num, den) = expr.eval(&|_| None).map_err(|e| {
+                anyhow!(
+                    "--tf: column {}: {}\n    {}\n    {}",
+                    e.column,
+                    e.message,
+                    tf,
+                    e.caret_line(&tf)
+                )
+            })?;
             let c = Tf::new(num, den);
             let w0 = prewarp_hz.map(|f| 2.0 * std::f64::consts::PI * f);
-            let d = discretize(&c, m, 1.0 / rate, w0).map_err(|e| anyhow!("{m} at {rate} Hz: {e}"))?;
+            let d =
+                discretize(&c, m, 1.0 / rate, w0).map_err(|e| anyhow!("{m} at {rate} Hz: {e}"))?;
             if json {
-                print(&format!("{:#}\n", summary::discretized_json(m.name(), rate, &d)))?;
+                print(&format!(
+                    "{:#}\n",
+                    summary::discretized_json(m.name(), rate, &d)
+                ))?;
             } else {
                 print(&summary::discretized_text(m.name(), rate, &d))?;
             }
@@ -201,8 +219,12 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 delay,
             };
             let exact = lp.sampled(&p);
-            let approx: Vec<(HoldApprox, _)> = if matches!(lp.controller, Controller::Continuous(_)) {
-                HoldApprox::ALL.iter().map(|&k| (k, lp.hold_approx(&p, k))).collect()
+            let approx: Vec<(HoldApprox, _)> = if matches!(lp.controller, Controller::Continuous(_))
+            {
+                HoldApprox::ALL
+                    .iter()
+                    .map(|&k| (k, lp.hold_approx(&p, k)))
+                    .collect()
             } else {
                 Vec::new()
             };
@@ -220,7 +242,14 @@ fn run(cli: Cli) -> Result<ExitCode> {
                     looprate::search::method_label(method),
                     delay
                 );
-                print(&summary::evaluation_text(&c.title, &header, &exact, lp.design.as_ref(), &approx, &c.spec))?;
+                print(&summary::evaluation_text(
+                    &c.title,
+                    &header,
+                    &exact,
+                    lp.design.as_ref(),
+                    &approx,
+                    &c.spec,
+                ))?;
             }
             Ok(ExitCode::SUCCESS)
         }
@@ -237,7 +266,12 @@ fn run(cli: Cli) -> Result<ExitCode> {
             outputs::write_atomic(&path, &outputs::sweep_csv(&rows))?;
             let feasible = rows.iter().filter(|r| r.assessment.feasible).count();
             if !quiet {
-                eprintln!("{} points ({} feasible) written to {}", rows.len(), feasible, path.display());
+                eprintln!(
+                    "{} points ({} feasible) written to {}",
+                    rows.len(),
+                    feasible,
+                    path.display()
+                );
             }
             Ok(ExitCode::SUCCESS)
         }
@@ -270,7 +304,11 @@ fn run(cli: Cli) -> Result<ExitCode> {
     }
 }
 
-fn write_pick_outputs(out: &Path, rows: &[sweep::SweepRow], report: &looprate::pick::PickReport) -> Result<()> {
+fn write_pick_outputs(
+    out: &Path,
+    rows: &[sweep::SweepRow],
+    report: &looprate::pick::PickReport,
+) -> Result<()> {
     outputs::write_atomic(&out.join("sweep.csv"), &outputs::sweep_csv(rows))?;
     let json = serde_json::to_vec_pretty(report)?;
     outputs::write_atomic(&out.join("pick.json"), &json)?;
@@ -295,7 +333,9 @@ fn run_sweep(c: &Case, lp: &looprate::evaluate::PreparedLoop, quiet: bool) -> Ve
         ProgressBar::hidden()
     } else {
         let b = ProgressBar::new(points.len() as u64);
-        if let Ok(style) = ProgressStyle::with_template("{bar:40} {pos}/{len} points  {elapsed_precise} (eta {eta})") {
+        if let Ok(style) = ProgressStyle::with_template(
+            "{bar:40} {pos}/{len} points  {elapsed_precise} (eta {eta})",
+        ) {
             b.set_style(style);
         }
         b

@@ -136,22 +136,47 @@ impl StateSpace {
         }
     }
 
-    /// Transfer function from the input to output `row`, by the
-    /// determinant identity `C adj(xI - A) B = det(xI - A + B C) - det(xI - A)`
-    /// with both characteristic polynomials built from eigenvalues.
+    /// Transfer function from the input to output `row`: the denominator
+    /// is the characteristic polynomial (from eigenvalues), the numerator
+    /// comes from the Markov parameters (see `to_tf_with_den`).
     pub fn to_tf(&self, row: usize) -> Result<Tf, ModelError> {
-        let n = self.order();
-        let d = self.d[row];
-        if n == 0 {
-            return Ok(Tf::gain(d));
+        if self.order() == 0 {
+            return Ok(Tf::gain(self.d[row]));
         }
         let den = charpoly(&self.a)?;
+        Ok(self.to_tf_with_den(row, den))
+    }
+
+    /// Transfer function to output `row` with a known monic
+    /// characteristic polynomial `den` of `A`.
+    ///
+    /// The numerator comes from the Markov parameters `h_j = C A^j B`:
+    /// coefficient `m` (descending, m >= 1) is
+    /// `D c_m + sum_{j<m} c_{m-1-j} h_j`. Unlike the determinant identity
+    /// `det(xI - A + BC) - det(xI - A)`, nothing here subtracts two
+    /// polynomials of size one to get a numerator of size `T^k`, so a
+    /// fast-rate equivalent of an integrator chain keeps its digits.
+    pub fn to_tf_with_den(&self, row: usize, den: Poly) -> Tf {
+        let n = self.order();
+        let d = self.d[row];
+        let c = den.descending();
         let crow = self.c.row(row);
-        let bc = &self.b * crow;
-        let closed = charpoly(&(&self.a - bc))?;
-        let strictly = closed.sub(&den);
-        let num = strictly.add(&den.scale(d));
-        Ok(Tf::new(num, den))
+        let mut h = Vec::with_capacity(n);
+        let mut v = self.b.clone();
+        for _ in 0..n {
+            h.push((crow * &v)[0]);
+            v = &self.a * v;
+        }
+        let mut num = vec![0.0; n + 1];
+        num[0] = d * c[0];
+        for m in 1..=n {
+            let mut acc = d * c[m];
+            for j in 0..m {
+                acc += c[m - 1 - j] * h[j];
+            }
+            num[m] = acc;
+        }
+        Tf::new(Poly::from_descending(&num), den)
     }
 }
 

@@ -361,10 +361,17 @@ pub fn pick_text(r: &PickReport) -> String {
 
 /// `looprate eval --json`: the exact loop's figures at the top level, plus
 /// `continuous` and `hold_approx` objects with the same keys.
-pub fn eval_json(exact: &Evaluation, design: Option<&Evaluation>, approx: &[(HoldApprox, Evaluation)]) -> Value {
+pub fn eval_json(
+    exact: &Evaluation,
+    design: Option<&Evaluation>,
+    approx: &[(HoldApprox, Evaluation)],
+) -> Value {
     let mut v = evaluation_json(exact);
     if let Value::Object(m) = &mut v {
-        m.insert("continuous".into(), design.map_or(Value::Null, evaluation_json));
+        m.insert(
+            "continuous".into(),
+            design.map_or(Value::Null, evaluation_json),
+        );
         let mut h = Map::new();
         for (k, e) in approx {
             h.insert(k.name().into(), evaluation_json(e));
@@ -409,9 +416,12 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::evaluate::PreparedLoop) 
     block(&mut s, "sensor H(s)", &lp.sensor, "s");
     match &lp.controller {
         Controller::Continuous(c) => block(&mut s, "controller C(s)", c, "s"),
-        Controller::Discrete(d) => {
-            block(&mut s, &format!("controller C(z) at {} Hz", 1.0 / d.period_s), &d.tf, "z")
-        }
+        Controller::Discrete(d) => block(
+            &mut s,
+            &format!("controller C(z) at {} Hz", 1.0 / d.period_s),
+            &d.tf,
+            "z",
+        ),
     }
     let _ = writeln!(
         s,
@@ -419,7 +429,11 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::evaluate::PreparedLoop) 
         case.rates.min_hz,
         case.rates.max_hz,
         case.rates.points,
-        case.methods.iter().map(|m| m.name()).collect::<Vec<_>>().join(", "),
+        case.methods
+            .iter()
+            .map(|m| m.name())
+            .collect::<Vec<_>>()
+            .join(", "),
         case.compute_delays
     );
     if let Some(d) = &lp.design {
@@ -438,10 +452,21 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::evaluate::PreparedLoop) 
             let fails: Vec<String> = check_figures(f, &case.spec)
                 .into_iter()
                 .filter(|c| !c.pass)
-                .map(|c| format!("{} ({} vs limit {})", c.figure, fmt_opt(c.value, "none"), fmt_num(c.limit)))
+                .map(|c| {
+                    format!(
+                        "{} ({} vs limit {})",
+                        c.figure,
+                        fmt_opt(c.value, "none"),
+                        fmt_num(c.limit)
+                    )
+                })
                 .collect();
             if !fails.is_empty() {
-                let _ = writeln!(s, "  the continuous design already fails: {}", fails.join(", "));
+                let _ = writeln!(
+                    s,
+                    "  the continuous design already fails: {}",
+                    fails.join(", ")
+                );
             }
         }
     }
