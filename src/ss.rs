@@ -89,49 +89,20 @@ impl StateSpace {
     /// column norms of `A` comparable (the classic balancing iteration).
     /// Exact in floating point, so the transfer function is unchanged.
     fn balance(&mut self) {
-        let n = self.order();
-        for _ in 0..40 {
-            let mut changed = false;
-            for i in 0..n {
-                let mut r = 0.0;
-                let mut c = 0.0;
-                for j in 0..n {
-                    if j != i {
-                        r += self.a[(i, j)].abs();
-                        c += self.a[(j, i)].abs();
-                    }
-                }
-                if r == 0.0 || c == 0.0 {
-                    continue;
-                }
-                let mut f = 1.0;
-                let s = r + c;
-                let (mut rr, mut cc) = (r, c);
-                while cc < rr / 2.0 {
-                    cc *= 2.0;
-                    rr /= 2.0;
-                    f *= 2.0;
-                }
-                while cc >= rr * 2.0 {
-                    cc /= 2.0;
-                    rr *= 2.0;
-                    f /= 2.0;
-                }
-                if (rr + cc) < 0.95 * s && f != 1.0 {
-                    changed = true;
-                    // x_i -> x_i / f : row i of A and B scale by 1/f, column i of A and C by f.
-                    for j in 0..n {
-                        self.a[(i, j)] /= f;
-                        self.a[(j, i)] *= f;
-                    }
-                    self.b[i] /= f;
-                    for r in 0..self.c.nrows() {
-                        self.c[(r, i)] *= f;
-                    }
-                }
+        let scale = balancing_scale(&self.a);
+        for (i, &f) in scale.iter().enumerate() {
+            if f == 1.0 {
+                continue;
             }
-            if !changed {
-                break;
+            // x_i -> x_i / f: row i of A and B scale by 1/f, column i of A and C by f.
+            let n = self.order();
+            for j in 0..n {
+                self.a[(i, j)] /= f;
+                self.a[(j, i)] *= f;
+            }
+            self.b[i] /= f;
+            for r in 0..self.c.nrows() {
+                self.c[(r, i)] *= f;
             }
         }
     }
@@ -238,6 +209,56 @@ impl StateSpace {
     }
 }
 
+/// Power-of-two scale factors `t` such that `T^{-1} A T`, `T = diag(t)`,
+/// has comparable row and column norms (the classic balancing iteration,
+/// as eigenvalue libraries do before a Schur decomposition). Powers of two
+/// make the similarity exact in floating point.
+pub fn balancing_scale(a: &DMatrix<f64>) -> Vec<f64> {
+    let n = a.nrows();
+    let mut m = a.clone();
+    let mut t = vec![1.0; n];
+    for _ in 0..60 {
+        let mut changed = false;
+        for i in 0..n {
+            let mut r = 0.0;
+            let mut c = 0.0;
+            for j in 0..n {
+                if j != i {
+                    r += m[(i, j)].abs();
+                    c += m[(j, i)].abs();
+                }
+            }
+            if r == 0.0 || c == 0.0 {
+                continue;
+            }
+            let s = r + c;
+            let (mut rr, mut cc, mut f) = (r, c, 1.0);
+            while cc < rr / 2.0 {
+                cc *= 2.0;
+                rr /= 2.0;
+                f *= 2.0;
+            }
+            while cc >= rr * 2.0 {
+                cc /= 2.0;
+                rr *= 2.0;
+                f /= 2.0;
+            }
+            if (rr + cc) < 0.95 * s && f != 1.0 {
+                changed = true;
+                t[i] *= f;
+                for j in 0..n {
+                    m[(i, j)] /= f;
+                    m[(j, i)] *= f;
+                }
+            }
+        }
+        if !changed {
+            break;
+        }
+    }
+    t
+}
+
 /// Characteristic polynomial `det(xI - M)` from the eigenvalues.
 pub fn charpoly(m: &DMatrix<f64>) -> Result<Poly, ModelError> {
     Ok(Poly::from_roots(&eigenvalues(m)?))
@@ -260,6 +281,8 @@ pub fn eigenvalues(m: &DMatrix<f64>) -> Result<Vec<C64>, ModelError> {
     if n == 1 {
         return Ok(vec![C64::new(m[(0, 0)], 0.0)]);
     }
+    let t = balancing_scale(m);
+    let m = &DMatrix::from_fn(n, n, |i, j| m[(i, j)] * t[j] / t[i]);
     let scale = m.iter().fold(0.0f64, |acc, v| acc.max(v.abs())).max(1e-300);
     for &shift in &[0.0, 0.173, -0.291, 0.457, -0.613, 1.0, -1.37] {
         let sigma = shift * scale;

@@ -217,3 +217,37 @@ fn unstable_loop_reports_poles_only() {
             .any(|p| (p[0] * p[0] + p[1] * p[1]).sqrt() > 1.0)
     );
 }
+
+#[test]
+fn loop_matrix_poles_agree_with_characteristic_polynomial() {
+    // Two independent routes to the closed-loop poles must agree: the
+    // eigenvalues of the assembled loop matrix, and the roots of
+    // den_C(z) den_G(z) + num_C(z) num_G(z) from the pulse transfer
+    // (algebraic identity for unity-gain negative feedback). An invented
+    // positioning axis: integrator, lag, a lightly damped mode at 60 Hz,
+    // a sensor lag and a controller with an integrator; its loop matrix is
+    // badly scaled, which once gave a spurious unstable pole before
+    // balancing.
+    let wn = 2.0 * std::f64::consts::PI * 60.0;
+    let plant = Tf::new(
+        Poly::constant(400.0 * wn * wn),
+        Poly::from_descending(&[0.01, 1.0, 0.0]).mul(&Poly::from_descending(&[1.0, 0.6 * wn, wn * wn])),
+    );
+    let sensor = tf(&[1.0], &[1.0 / 2000.0, 1.0]);
+    let c = Controller::Continuous(tf(&[0.001, 0.02, 0.05], &[1.0 / 400.0, 1.0, 0.0]));
+    let lp = PreparedLoop::new(&plant, &sensor, &c, None, TimeOptions::default()).unwrap();
+    for (rate, d) in [(5000.0, 0.0), (5000.0, 0.5), (1000.0, 1.0), (300.0, 0.5)] {
+        let p = Point { rate_hz: rate, method: Some(Method::Tustin), delay: d };
+        let (hold, ctrl, cl) = lp.sampled_loop(&p).unwrap();
+        let g = hold.pulse_transfer().unwrap();
+        let chp = ctrl.tf.den.mul(&g.tf.den).add(&ctrl.tf.num.mul(&g.tf.num));
+        let mut a: Vec<f64> = chp.roots().unwrap().iter().map(|z| z.norm()).collect();
+        let mut b: Vec<f64> = cl.poles().unwrap().iter().map(|z| z.norm()).collect();
+        a.sort_by(|x, y| x.total_cmp(y));
+        b.sort_by(|x, y| x.total_cmp(y));
+        assert_eq!(a.len(), b.len());
+        for (x, y) in a.iter().zip(&b) {
+            assert!((x - y).abs() < 1e-6, "rate {rate} d {d}: {a:?} vs {b:?}");
+        }
+    }
+}
