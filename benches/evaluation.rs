@@ -36,11 +36,19 @@ pub fn bench_loop() -> PreparedLoop {
 fn evaluation(c: &mut Criterion) {
     let lp = bench_loop();
     for rate in [200.0, 1000.0, 5000.0] {
-        let p = Point { rate_hz: rate, method: Some(Method::Tustin), delay: 0.5 };
-        assert!(lp.sampled(&p).figures.is_some(), "bench loop unstable at {rate} Hz");
-        c.bench_function(&format!("evaluate 4th-order plant + 2nd-order controller at {rate} Hz"), |b| {
-            b.iter(|| lp.sampled(std::hint::black_box(&p)))
-        });
+        let p = Point {
+            rate_hz: rate,
+            method: Some(Method::Tustin),
+            delay: 0.5,
+        };
+        assert!(
+            lp.sampled(&p).figures.is_some(),
+            "bench loop unstable at {rate} Hz"
+        );
+        c.bench_function(
+            &format!("evaluate 4th-order plant + 2nd-order controller at {rate} Hz"),
+            |b| b.iter(|| lp.sampled(std::hint::black_box(&p))),
+        );
     }
 }
 

@@ -202,8 +202,8 @@ impl StateSpace {
             sol[i] = acc / m[i * w + i];
         }
         let mut y = C64::new(self.d[row], 0.0);
-        for j in 0..n {
-            y += sol[j] * self.c[(row, j)];
+        for (j, v) in sol.iter().enumerate() {
+            y += v * self.c[(row, j)];
         }
         y
     }

@@ -2,7 +2,7 @@
 //! continuous plant output evaluated exactly between samples, and the
 //! time figures of the loop model taken from that output.
 
-use nalgebra::DVector;
+use nalgebra::{DMatrix, DVector};
 use serde::Serialize;
 
 use crate::closed_loop::ClosedLoop;
@@ -209,61 +209,233 @@ pub fn horizon_steps(rho: f64, dim: usize) -> f64 {
     (DECAY_TARGET.ln() / rho.ln()) * 2.0 + (dim + 10) as f64
 }
 
-/// The exact sampled-data simulation: calls `on_point` at every output
-/// point (sample instants and `points_per_period - 1` points between).
-/// Stops at `periods`, or earlier once the state has converged to the
-/// fixed point `z_end` (when given) to 1e-12 (every later point equals
-/// the final value). Returns the number of periods run.
+/// Receives the output points of a simulation and says when nothing later
+/// can change what it measures.
+pub trait ResponseSink {
+    fn point(&mut self, p: TracePoint);
+    /// True when no later point can change the result, given that every
+    /// later point lies within `bound` of the final value.
+    fn finished(&self, _bound: f64) -> bool {
+        false
+    }
+}
+
+impl ResponseSink for Vec<TracePoint> {
+    fn point(&mut self, p: TracePoint) {
+        self.push(p);
+    }
+}
+
+impl ResponseSink for StepMetrics {
+    fn point(&mut self, p: TracePoint) {
+        self.push(p.t, p.y, p.u);
+    }
+    fn finished(&self, bound: f64) -> bool {
+        // Settled for good, no new overshoot peak, rise complete; the
+        // command is constant from here on as well (within the bound).
+        self.settled_since.is_some()
+            && bound < self.band_abs
+            && bound <= self.peak_dev.max(1e-9 * self.y_final.abs())
+            && self.t90.is_some()
+    }
+}
+
+/// Largest |y| of a response.
+#[derive(Debug, Clone)]
+struct Peak {
+    y_final: f64,
+    peak: f64,
+}
+
+impl ResponseSink for Peak {
+    fn point(&mut self, p: TracePoint) {
+        self.peak = self.peak.max(p.y.abs());
+    }
+    fn finished(&self, bound: f64) -> bool {
+        self.y_final.abs() + bound <= self.peak
+    }
+}
+
+impl ResponseSink for Recovery {
+    fn point(&mut self, p: TracePoint) {
+        self.push(p.t, p.y);
+    }
+    fn finished(&self, bound: f64) -> bool {
+        self.since.is_some() && bound <= self.threshold
+    }
+}
+
+/// The output map of a period: every output point inside a period is
+/// `y_j = g_j . z_k + h_j(r, w)`, and `y_j - y_final = g_j . (z_k - z_final)`.
+#[derive(Debug, Clone)]
+pub struct OutputMap {
+    /// Rows `g_j` (points per period x loop states).
+    g: DMatrix<f64>,
+    /// Coefficients of `r` and `w` in `h_j`.
+    hr: DVector<f64>,
+    hw: DVector<f64>,
+    /// Whether point j holds `u_{k-1}` (before the computation delay ends).
+    holds_previous: Vec<bool>,
+}
+
+impl OutputMap {
+    pub fn new(cl: &ClosedLoop, hold: &HoldEquivalent) -> OutputMap {
+        let dim = cl.a.nrows();
+        let n = cl.plant_states;
+        let np = hold.intersample.len();
+        let tau = hold.delay_fraction * hold.period_s;
+        let mut g = DMatrix::zeros(np, dim);
+        let mut hr = DVector::zeros(np);
+        let mut hw = DVector::zeros(np);
+        for (j, row) in hold.intersample.iter().enumerate() {
+            let mut gj = &cl.ku * row.cu0;
+            for i in 0..n {
+                gj[i] += row.ey[i];
+            }
+            gj[n] += row.cu1;
+            g.row_mut(j).copy_from(&gj.transpose());
+            hr[j] = row.cu0 * cl.dur;
+            hw[j] = row.cu0 * cl.duw + row.cw;
+        }
+        OutputMap {
+            g,
+            hr,
+            hw,
+            holds_previous: hold.intersample.iter().map(|r| r.offset_s < tau).collect(),
+        }
+    }
+}
+
+/// A proof that the response can no longer move: with the output-energy
+/// Gramian `P = sum_m (A^m)' Q A^m`, `Q = sum_j g_j g_j'`, the quantity
+/// `V = dz' P dz` is the energy of every later output point's deviation,
+/// so each later `|y - y_final| <= sqrt(V)`. It lets a simulation stop as
+/// soon as no figure can change, long before the pole-based horizon.
+#[derive(Debug, Clone)]
+pub struct Certificate {
+    p: DMatrix<f64>,
+}
+
+impl Certificate {
+    /// Build the certificate for a stable loop; None when the doubling
+    /// iteration does not converge (then the pole-based horizon rules).
+    pub fn new(cl: &ClosedLoop, map: &OutputMap) -> Option<Certificate> {
+        // P by doubling: P <- P + (A^m)' P A^m, A^m <- (A^m)^2.
+        let mut p = map.g.transpose() * &map.g;
+        let mut am = cl.a.clone();
+        for _ in 0..64 {
+            let next = &p + am.transpose() * &p * &am;
+            am = &am * &am;
+            p = next;
+            if !p.iter().all(|v| v.is_finite()) {
+                return None;
+            }
+            if am.amax() < 1e-14 {
+                return Some(Certificate { p });
+            }
+        }
+        None
+    }
+
+    /// Bound on every later |y - y_final| from the state error `dz`.
+    fn bound(&self, dz: &DVector<f64>) -> f64 {
+        let n = dz.len();
+        let mut v = 0.0;
+        for j in 0..n {
+            let mut pj = 0.0;
+            for i in 0..n {
+                pj += self.p[(i, j)] * dz[i];
+            }
+            v += pj * dz[j];
+        }
+        v.max(0.0).sqrt()
+    }
+}
+
+/// The exact sampled-data simulation: feeds `sink` every output point
+/// (sample instants and `points_per_period - 1` points between). Stops at
+/// `periods`, or, given the fixed point (and a certificate), as soon as
+/// the sink says no later point can change its result; a period that
+/// provably cannot change it is reduced to its sample point. Returns the
+/// number of periods run.
+#[allow(clippy::too_many_arguments)]
 pub fn simulate_sampled(
     cl: &ClosedLoop,
-    hold: &HoldEquivalent,
+    map: &OutputMap,
+    period_s: f64,
     r: f64,
     w: f64,
     periods: usize,
-    z_end: Option<&DVector<f64>>,
-    mut on_point: impl FnMut(TracePoint),
+    end: Option<(&DVector<f64>, Option<&Certificate>)>,
+    sink: &mut dyn ResponseSink,
 ) -> usize {
+    // Plain row-major slices: this loop runs thousands of times per
+    // evaluation on matrices of size ~8, where generic small-matrix code
+    // spends more on bookkeeping than on arithmetic.
     let dim = cl.a.nrows();
     let n = cl.plant_states;
-    let t_per = hold.period_s;
-    let tau = hold.delay_fraction * t_per;
-    let mut z = DVector::zeros(dim);
-    let mut next = DVector::zeros(dim);
-    let scale = 1.0 + z_end.map_or(0.0, |v| v.amax());
+    let np = map.g.nrows();
+    let a: Vec<f64> = (0..dim * dim).map(|i| cl.a[(i / dim, i % dim)]).collect();
+    let g: Vec<f64> = (0..np * dim).map(|i| map.g[(i / dim, i % dim)]).collect();
+    let drive: Vec<f64> = (0..dim).map(|i| cl.br[i] * r + cl.bw[i] * w).collect();
+    let h: Vec<f64> = (0..np).map(|j| map.hr[j] * r + map.hw[j] * w).collect();
+    let ku: &[f64] = cl.ku.as_slice();
+    let u_off = cl.dur * r + cl.duw * w;
+    let offsets: Vec<f64> = (0..np).map(|j| j as f64 * period_s / np as f64).collect();
+    let mut z = vec![0.0; dim];
+    let mut next = vec![0.0; dim];
+    let mut dz = DVector::zeros(dim);
+    let mut ys = vec![0.0; np];
+    let dot = |row: &[f64], v: &[f64]| row.iter().zip(v).map(|(x, y)| x * y).sum::<f64>();
     let mut k = 0;
     while k < periods {
         let u_prev = z[n];
-        let u_k = cl.ku.dot(&z) + cl.dur * r + cl.duw * w;
-        let x = z.rows(0, n);
-        let t0 = k as f64 * t_per;
-        for (j, row) in hold.intersample.iter().enumerate() {
-            let y = row.ey.dot(&x) + row.cu1 * u_prev + row.cu0 * u_k + row.cw * w;
-            let u = if row.offset_s < tau { u_prev } else { u_k };
-            on_point(TracePoint {
-                t: t0 + row.offset_s,
-                y,
-                u,
+        let u_k = dot(ku, &z) + u_off;
+        let t0 = k as f64 * period_s;
+        for j in 0..np {
+            ys[j] = dot(&g[j * dim..(j + 1) * dim], &z) + h[j];
+        }
+        let mut points = np;
+        if let Some((z_end, cert)) = end {
+            for i in 0..dim {
+                dz[i] = z[i] - z_end[i];
+            }
+            if k % 4 == 0
+                && let Some(c) = cert
+                && sink.finished(c.bound(&dz))
+            {
+                break;
+            }
+            // The exact largest deviation in this period: when it cannot
+            // change the result, only the sample point is passed on.
+            let y_end = dot(&g[..dim], z_end.as_slice()) + h[0];
+            let dev = ys.iter().fold(0.0f64, |m, y| m.max((y - y_end).abs()));
+            if sink.finished(dev) {
+                points = 1;
+            }
+        }
+        for j in 0..points {
+            sink.point(TracePoint {
+                t: t0 + offsets[j],
+                y: ys[j],
+                u: if map.holds_previous[j] { u_prev } else { u_k },
                 sample: j == 0,
             });
         }
-        next.gemv(1.0, &cl.a, &z, 0.0);
-        next.axpy(r, &cl.br, 1.0);
-        next.axpy(w, &cl.bw, 1.0);
+        for i in 0..dim {
+            next[i] = dot(&a[i * dim..(i + 1) * dim], &z) + drive[i];
+        }
         std::mem::swap(&mut z, &mut next);
         k += 1;
-        if let Some(end) = z_end
-            && k % 8 == 0
-            && z.iter()
-                .zip(end.iter())
-                .all(|(a, b)| (a - b).abs() <= 1e-12 * scale)
-        {
-            break;
-        }
     }
     k
 }
 
 /// Step and disturbance figures of a stable sampled loop.
+///
+/// The horizon comes from the slowest pole (decay to `DECAY_TARGET`,
+/// padded); each run stops earlier when the Lyapunov certificate proves
+/// that no later point can change its figures.
 pub fn sampled_figures(
     cl: &ClosedLoop,
     hold: &HoldEquivalent,
@@ -275,6 +447,9 @@ pub fn sampled_figures(
     let want = horizon_steps(rho, cl.a.nrows());
     let capped = want > opts.max_steps as f64;
     let periods = want.min(opts.max_steps as f64).ceil() as usize;
+    let map = OutputMap::new(cl, hold);
+    let cert = Certificate::new(cl, &map);
+    let t = hold.period_s;
 
     let output_at = |z: &DVector<f64>, r: f64, w: f64| {
         let x = z.rows(0, n);
@@ -286,9 +461,16 @@ pub fn sampled_figures(
         .ok_or("the closed loop has no steady state (pole at z = 1)")?;
     let y_final = output_at(&zr, 1.0, 0.0);
     let mut m = StepMetrics::new(y_final, opts.band);
-    let run = simulate_sampled(cl, hold, 1.0, 0.0, periods, Some(&zr), |p| {
-        m.push(p.t, p.y, p.u)
-    });
+    let run = simulate_sampled(
+        cl,
+        &map,
+        t,
+        1.0,
+        0.0,
+        periods,
+        Some((&zr, cert.as_ref())),
+        &mut m,
+    );
     let horizon_s = run as f64 * hold.period_s;
     let step = m.finish(horizon_s, capped && run >= periods);
 
@@ -296,23 +478,23 @@ pub fn sampled_figures(
         .fixed_point(0.0, 1.0)
         .ok_or("the closed loop has no steady state (pole at z = 1)")?;
     let yd_final = output_at(&zw, 0.0, 1.0);
-    let mut peak = 0.0f64;
-    simulate_sampled(cl, hold, 0.0, 1.0, periods, Some(&zw), |p| {
-        peak = peak.max(p.y.abs())
-    });
+    let end = Some((&zw, cert.as_ref()));
+    let mut peak = Peak {
+        y_final: yd_final,
+        peak: 0.0,
+    };
+    simulate_sampled(cl, &map, t, 0.0, 1.0, periods, end, &mut peak);
     let mut rec = Recovery {
         yd_final,
-        threshold: opts.band * peak,
+        threshold: opts.band * peak.peak,
         since: None,
         prev: None,
     };
-    simulate_sampled(cl, hold, 0.0, 1.0, periods, Some(&zw), |p| {
-        rec.push(p.t, p.y)
-    });
+    simulate_sampled(cl, &map, t, 0.0, 1.0, periods, end, &mut rec);
     Ok((
         step,
         DisturbanceFigures {
-            disturbance_peak: peak,
+            disturbance_peak: peak.peak,
             yd_final,
             recovery_time_s: rec.since,
         },
@@ -328,13 +510,15 @@ pub fn sampled_trace(
     periods: usize,
 ) -> Vec<TracePoint> {
     let mut out = Vec::new();
-    simulate_sampled(cl, hold, r, w, periods, None, |p| out.push(p));
+    let map = OutputMap::new(cl, hold);
+    simulate_sampled(cl, &map, hold.period_s, r, w, periods, None, &mut out);
     out
 }
 
 /// Figures from a continuous-time closed loop simulated exactly on a
 /// uniform grid: `step(t_index) -> (y, u)` for the reference step and
 /// `dist(t_index) -> y` for the disturbance step.
+#[allow(clippy::too_many_arguments)]
 pub fn continuous_metrics(
     y_final: f64,
     yd_final: f64,

@@ -28,7 +28,7 @@ fn zoh_of_first_order_lag() {
     // Closed form: zoh of a/(s+a) is (1-e^{-aT})/(z-e^{-aT}).
     for &(a, t) in &[(3.0, 0.1), (50.0, 1e-3), (1e5, 1e-6), (0.1, 5e-6)] {
         let d = discretize(&tf(&[a], &[1.0, a]), Method::Zoh, t, None).unwrap();
-        let p = (-a * t as f64).exp();
+        let p = (-a * t).exp();
         assert_coeffs(&d.tf.den, &[1.0, -p], 1e-12, "den");
         assert_coeffs(&d.tf.num, &[1.0 - p], 1e-9, "num");
     }
@@ -63,7 +63,7 @@ fn matched_lead_lag() {
     // with K set so the DC gains agree: a/b = K (1-e^{-aT})/(1-e^{-bT}).
     let (a, b, t) = (2.0, 20.0, 0.01);
     let d = discretize(&tf(&[1.0, a], &[1.0, b]), Method::Matched, t, None).unwrap();
-    let (za, pb) = ((-a * t as f64).exp(), (-b * t as f64).exp());
+    let (za, pb) = ((-a * t).exp(), (-b * t).exp());
     let k = (a / b) * (1.0 - pb) / (1.0 - za);
     assert_coeffs(&d.tf.num, &[k, -k * za], 1e-13, "num");
     assert_coeffs(&d.tf.den, &[1.0, -pb], 1e-13, "den");

@@ -88,8 +88,10 @@ fn intersample_overshoot_is_caught() {
         tf: Tf::gain(1.0),
         period_s: 1.0,
     });
-    let mut opts = TimeOptions::default();
-    opts.points_per_period = 400;
+    let opts = TimeOptions {
+        points_per_period: 400,
+        ..TimeOptions::default()
+    };
     let lp = PreparedLoop::new(
         &tf(&[1.0], &[1.0, 1.0, 0.0]),
         &Tf::gain(1.0),
@@ -231,13 +233,21 @@ fn loop_matrix_poles_agree_with_characteristic_polynomial() {
     let wn = 2.0 * std::f64::consts::PI * 60.0;
     let plant = Tf::new(
         Poly::constant(400.0 * wn * wn),
-        Poly::from_descending(&[0.01, 1.0, 0.0]).mul(&Poly::from_descending(&[1.0, 0.6 * wn, wn * wn])),
+        Poly::from_descending(&[0.01, 1.0, 0.0]).mul(&Poly::from_descending(&[
+            1.0,
+            0.6 * wn,
+            wn * wn,
+        ])),
     );
     let sensor = tf(&[1.0], &[1.0 / 2000.0, 1.0]);
     let c = Controller::Continuous(tf(&[0.001, 0.02, 0.05], &[1.0 / 400.0, 1.0, 0.0]));
     let lp = PreparedLoop::new(&plant, &sensor, &c, None, TimeOptions::default()).unwrap();
     for (rate, d) in [(5000.0, 0.0), (5000.0, 0.5), (1000.0, 1.0), (300.0, 0.5)] {
-        let p = Point { rate_hz: rate, method: Some(Method::Tustin), delay: d };
+        let p = Point {
+            rate_hz: rate,
+            method: Some(Method::Tustin),
+            delay: d,
+        };
         let (hold, ctrl, cl) = lp.sampled_loop(&p).unwrap();
         let g = hold.pulse_transfer().unwrap();
         let chp = ctrl.tf.den.mul(&g.tf.den).add(&ctrl.tf.num.mul(&g.tf.num));
@@ -249,5 +259,38 @@ fn loop_matrix_poles_agree_with_characteristic_polynomial() {
         for (x, y) in a.iter().zip(&b) {
             assert!((x - y).abs() < 1e-6, "rate {rate} d {d}: {a:?} vs {b:?}");
         }
+    }
+}
+
+#[test]
+fn early_stop_certificate_changes_no_figure() {
+    // The Lyapunov stop must give the same step figures as running the
+    // full pole-based horizon (self-consistency of two routes).
+    use looprate::time_response::StepMetrics;
+    let plant = tf(&[38.0], &[0.00168, 0.424, 1.0]);
+    let sensor = tf(&[1.0], &[0.0008, 1.0]);
+    let c = Controller::Continuous(tf(&[0.05, 0.6], &[1.0, 0.0]));
+    let lp = PreparedLoop::new(&plant, &sensor, &c, None, TimeOptions::default()).unwrap();
+    for (rate, d) in [(60.0, 0.5), (400.0, 1.0), (3000.0, 0.0)] {
+        let p = Point {
+            rate_hz: rate,
+            method: Some(Method::Matched),
+            delay: d,
+        };
+        let f = lp.sampled(&p).figures.unwrap();
+        let (step, _) = lp.sampled_traces(&p, None).unwrap();
+        let mut m = StepMetrics::new(f.y_final, 0.02);
+        for q in &step {
+            m.push(q.t, q.y, q.u);
+        }
+        let full = m.finish(0.0, false);
+        assert_eq!(full.overshoot_pct, f.overshoot_pct, "rate {rate}");
+        assert_eq!(full.settling_time_s, f.settling_time_s, "rate {rate}");
+        assert_eq!(full.rise_time_s, f.rise_time_s, "rate {rate}");
+        assert_eq!(full.u_peak, f.u_peak, "rate {rate}");
+        assert!(
+            f.horizon_s < step.last().unwrap().t,
+            "the certificate should stop early"
+        );
     }
 }

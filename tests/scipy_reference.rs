@@ -154,7 +154,7 @@ fn sampled_loops_match_scipy() {
         let pts = l["loop_freq"].as_array().unwrap();
         let peak = pts
             .iter()
-            .map(|q| vecf(q))
+            .map(vecf)
             .map(|q| q[1].hypot(q[2]))
             .fold(0.0, f64::max);
         for q in pts {
