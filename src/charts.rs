@@ -12,6 +12,7 @@ use std::path::{Path, PathBuf};
 
 use rayon::prelude::*;
 
+use crate::budget;
 use crate::case::Case;
 use crate::continuous::HoldApprox;
 use crate::discretize::Method;
@@ -221,7 +222,7 @@ fn trace_series(trace: &[TracePoint], t_end: f64, label: &str, style: usize) -> 
     let stride = samples.len().div_ceil(MAX_SAMPLE_MARKERS).max(1);
     let marks: Vec<(f64, f64)> = samples.iter().copied().step_by(stride).collect();
     let mark_label = if stride > 1 {
-        format!("samples (every {stride}th shown)")
+        format!("samples (1 in {stride} shown)")
     } else {
         "samples".to_string()
     };
@@ -263,6 +264,8 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
         return None;
     }
     type Get = fn(&Figures) -> Option<f64>;
+    // Short axis labels keep the text full size on five stacked panels;
+    // the title spells the abbreviations out.
     let panels: [(&str, Get, Option<(f64, Side, String)>); 5] = [
         (
             "overshoot (%)",
@@ -277,31 +280,49 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
                 .map(|l| (l, Side::Above, format!("max {} s", fmt_num(l)))),
         ),
         (
-            "phase margin (deg)",
+            "PM (deg)",
             phase_margin,
             spec.min_phase_margin_deg
                 .map(|l| (l, Side::Below, format!("min {} deg", fmt_num(l)))),
         ),
         (
-            "gain margin, size (dB)",
+            "|GM| (dB)",
             gain_margin,
             spec.min_gain_margin_db
                 .map(|l| (l, Side::Below, format!("min {} dB", fmt_num(l)))),
         ),
         (
-            "sensitivity peak Ms (ratio)",
+            "Ms (ratio)",
             sensitivity,
             spec.max_sensitivity_peak
                 .map(|l| (l, Side::Above, format!("max {}", fmt_num(l)))),
         ),
     ];
-    let rec_rate = inp.report.recommended.as_ref().map(|r| r.rate_hz);
+    // Vertical marks, each labelled on one panel only (spread over the
+    // panels so the labels do not collide); the lines run through all.
+    let mut marks: Vec<(f64, String, MarkStyle)> = series
+        .iter()
+        .filter_map(|(m, _)| {
+            f_star(inp.report, m).map(|f| (f, format!("f* {m} {}", hz(f)), MarkStyle::Dashed))
+        })
+        .collect();
+    if let Some(r) = &inp.report.recommended {
+        marks.insert(
+            0,
+            (
+                r.rate_hz,
+                format!("recommended {}", hz(r.rate_hz)),
+                MarkStyle::Solid,
+            ),
+        );
+    }
+    let (lo, hi) = (inp.case.rates.min_hz, inp.case.rates.max_hz);
     let mut fig = Figure::new(
         format!(
-            "Loop figures vs rate (computation delay {} T); shaded side of a limit fails",
+            "Loop figures vs rate, computation delay {} T (PM phase margin, GM gain margin, Ms sensitivity peak; hatched side of a limit fails; gaps: unstable)",
             fmt_num(inp.report.design_delay)
         ),
-        rate_axis(),
+        rate_axis().with_range(lo, hi),
     );
     for (i, (label, get, limit)) in panels.into_iter().enumerate() {
         let mut panel = Panel::new(Axis::linear(label));
@@ -316,25 +337,31 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
             panel
                 .series
                 .push(Series::line(name, pts, k).drawn(Draw::LineAndMarkers));
-            if let Some(f) = f_star(inp.report, method) {
-                let text = if i == 0 {
-                    format!("f* {method} {}", hz(f))
-                } else {
-                    String::new()
-                };
-                panel.vmarks.push(VMark::new(f, text, MarkStyle::Dashed));
-            }
         }
-        if let Some((v, side, text)) = limit {
-            panel.limits.push(Limit::new(v, side, text));
-        }
-        if let Some(r) = rec_rate {
-            let text = if i == 0 {
-                format!("recommended {}", hz(r))
+        for (j, (x, text, style)) in marks.iter().enumerate() {
+            let text = if j % 5 == i {
+                text.clone()
             } else {
                 String::new()
             };
-            panel.vmarks.push(VMark::new(r, text, MarkStyle::Solid));
+            panel.vmarks.push(VMark::new(*x, text, *style));
+        }
+        if let Some((v, side, text)) = limit {
+            // Near the stability edge an upper-limited figure runs off to
+            // huge values; keep the view on the region around the limit
+            // (the line leaves the top edge where it goes beyond).
+            if side == Side::Above {
+                let top = panel
+                    .series
+                    .iter()
+                    .flat_map(|s| s.points.iter().map(|p| p.1))
+                    .filter(|v| v.is_finite())
+                    .fold(f64::NEG_INFINITY, f64::max);
+                if top > 3.0 * v {
+                    panel.y = panel.y.clone().with_range(0.0, 3.0 * v);
+                }
+            }
+            panel.limits.push(Limit::new(v, side, text));
         }
         fig = fig.with_panel(panel);
     }
@@ -423,7 +450,12 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
     // A failing run may diverge: fit the view to the design and the
     // passing runs so they stay readable; the failing one is clipped.
     let mut fitted: Vec<&Series> = good.iter().collect();
-    fitted.extend(panel.series.iter().filter(|s| s.label == "continuous design"));
+    fitted.extend(
+        panel
+            .series
+            .iter()
+            .filter(|s| s.label == "continuous design"),
+    );
     if let Some((lo, hi)) = padded_range(&fitted, 0.12) {
         panel.y = panel.y.clone().with_range(lo.min(0.0), hi);
     }
@@ -448,9 +480,7 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
     if !notes.is_empty() {
         title = format!("{title}; {}", notes.join("; "));
     }
-    Some(
-        Figure::new(title, Axis::linear("time (s)").with_range(0.0, t_end)).with_panel(panel),
-    )
+    Some(Figure::new(title, Axis::linear("time (s)").with_range(0.0, t_end)).with_panel(panel))
 }
 
 /// Magnitude and phase of the loop gain at the recommended rate.
@@ -530,7 +560,11 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
         let i = grid
             .iter()
             .enumerate()
-            .min_by(|a, b| (a.1.0.ln() - w.ln()).abs().total_cmp(&(b.1.0.ln() - w.ln()).abs()))
+            .min_by(|a, b| {
+                (a.1.0.ln() - w.ln())
+                    .abs()
+                    .total_cmp(&(b.1.0.ln() - w.ln()).abs())
+            })
             .map_or(0, |(i, _)| i);
         phase[i] + (l(w) / grid[i].1).arg().to_degrees()
     };
@@ -585,11 +619,10 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
         ));
         ph.notes.push(Annotation::new(fg, phase_at(fg), ""));
     }
-    let gm_text = detail
-        .gain_margin_db
-        .map_or("gain margin infinite (no -180 deg crossing)".to_string(), |g| {
-            format!("gain margin {} dB", fmt_num(g))
-        });
+    let gm_text = detail.gain_margin_db.map_or(
+        "gain margin infinite (no -180 deg crossing)".to_string(),
+        |g| format!("gain margin {} dB", fmt_num(g)),
+    );
     let pm_text = detail
         .phase_margin_deg
         .map_or("no gain crossover".to_string(), |p| {
@@ -610,22 +643,53 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
 
 /// CPU load against the rate with the budget line and the rate window.
 fn cpu_budget(inp: &Inputs) -> Option<Figure> {
-    let budget = inp.case.budget.as_ref()?;
+    let b = inp.case.budget.as_ref()?;
     let report = inp.report;
     let mut panel = Panel::new(Axis::linear("CPU load (%)"));
-    for (k, (method, rows)) in design_series(inp).iter().enumerate() {
-        let pts: Vec<(f64, f64)> = rows
+    // The load is drawn on its own dense grid, from the slowest swept rate
+    // to past both the swept range and the budget's ceiling, so the whole
+    // window is covered.
+    let lo = inp.case.rates.min_hz;
+    let hi = [
+        inp.case.rates.max_hz,
+        report.cpu_ceiling_hz.unwrap_or(0.0) * 1.3,
+        report.recommended.as_ref().map_or(0.0, |r| r.rate_hz * 1.3),
+    ]
+    .into_iter()
+    .filter(|v| v.is_finite())
+    .fold(lo * 10.0, f64::max);
+    let n = 120;
+    let rates: Vec<f64> = (0..n)
+        .map(|i| lo * (hi / lo).powf(i as f64 / (n - 1) as f64))
+        .collect();
+    // Methods with the same load share one line and one legend entry.
+    let mut loads: Vec<(Vec<String>, Vec<(f64, f64)>)> = Vec::new();
+    for (method, rows) in design_series(inp) {
+        let m = rows[0].point.method;
+        let pts: Vec<(f64, f64)> = rates
             .iter()
-            .map(|r| (r.point.rate_hz, r.cpu_load_pct.unwrap_or(f64::NAN)))
+            .map(|&f| {
+                let c = inp.lp.controller_at(f, m).ok();
+                let load = budget::cycles_per_update(b, c.as_ref())
+                    .map_or(f64::NAN, |cy| budget::load_pct(b, cy, f));
+                (f, load)
+            })
             .collect();
-        if pts.iter().any(|p| p.1.is_finite()) {
-            panel.series.push(Series::line(method.clone(), pts, k));
+        if !pts.iter().any(|p| p.1.is_finite()) {
+            continue;
+        }
+        match loads.iter_mut().find(|(_, q)| *q == pts) {
+            Some((names, _)) => names.push(method),
+            None => loads.push((vec![method], pts)),
         }
     }
+    for (k, (names, pts)) in loads.into_iter().enumerate() {
+        panel.series.push(Series::line(names.join(" = "), pts, k));
+    }
     panel.limits.push(Limit::new(
-        budget.max_load_pct,
+        b.max_load_pct,
         Side::Above,
-        format!("max load {} %", fmt_num(budget.max_load_pct)),
+        format!("max load {} %", fmt_num(b.max_load_pct)),
     ));
     let title = match (&report.window, &report.recommended) {
         (Some(w), _) if w.empty => format!(
@@ -667,7 +731,7 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
     if panel.series.is_empty() {
         panel.notes.push(Annotation::new(
             inp.case.rates.min_hz,
-            budget.max_load_pct,
+            b.max_load_pct,
             "no load known (cycles estimated from a controller that could not be built)",
         ));
     }
@@ -717,7 +781,7 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
             rec.method,
             fmt_num(inp.report.design_delay)
         ),
-        rate_axis(),
+        rate_axis().with_range(lo, hi),
     );
     for (i, (label, get, limit)) in panels.into_iter().enumerate() {
         let named = |s: &str| if i == 0 { s.to_string() } else { String::new() };
@@ -746,9 +810,13 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
             ));
         }
         if let Some(v) = get(design) {
-            panel
-                .series
-                .push(hline(&named("continuous design"), v, lo, hi, STYLE_CONTINUOUS));
+            panel.series.push(hline(
+                &named("continuous design"),
+                v,
+                lo,
+                hi,
+                STYLE_CONTINUOUS,
+            ));
         }
         if let Some((v, side, text)) = limit {
             panel.limits.push(Limit::new(v, side, text));
@@ -841,7 +909,5 @@ fn disturbance(inp: &Inputs) -> Option<Figure> {
     if !notes.is_empty() {
         title = format!("{title}; {}", notes.join("; "));
     }
-    Some(
-        Figure::new(title, Axis::linear("time (s)").with_range(0.0, t_end)).with_panel(panel),
-    )
+    Some(Figure::new(title, Axis::linear("time (s)").with_range(0.0, t_end)).with_panel(panel))
 }

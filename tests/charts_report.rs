@@ -94,7 +94,11 @@ fn check_png(path: &Path) {
         .collect();
     let mean = lum.iter().sum::<f64>() / n;
     let var = lum.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / n;
-    assert!(var > 50.0, "{} looks blank (variance {var})", path.display());
+    assert!(
+        var > 50.0,
+        "{} looks blank (variance {var})",
+        path.display()
+    );
 }
 
 #[test]
