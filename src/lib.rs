@@ -21,6 +21,7 @@ pub mod outputs;
 pub mod pick;
 pub mod plot;
 pub mod poly;
+pub mod report;
 pub mod scalar_solve;
 pub mod search;
 pub mod ss;
