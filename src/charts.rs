@@ -67,6 +67,13 @@ struct Inputs<'a> {
 }
 
 type Builder = fn(&Inputs) -> Option<Figure>;
+/// Reads one figure (None where it does not exist).
+type Get = fn(&Figures) -> Option<f64>;
+/// A limit: value, infeasible side, label.
+type LimitSpec = Option<(f64, Side, String)>;
+/// A panel of a figures-against-rate chart: y label, figure, limit.
+type PanelSpec = (&'static str, Get, LimitSpec);
+type Points = Vec<(f64, f64)>;
 
 /// Draw every chart that applies to this run into `out_dir` (created if
 /// missing) and return the files written, in a fixed order.
@@ -263,10 +270,9 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
     if series.is_empty() {
         return None;
     }
-    type Get = fn(&Figures) -> Option<f64>;
     // Short axis labels keep the text full size on five stacked panels;
     // the title spells the abbreviations out.
-    let panels: [(&str, Get, Option<(f64, Side, String)>); 5] = [
+    let panels: [PanelSpec; 5] = [
         (
             "overshoot (%)",
             overshoot,
@@ -317,13 +323,24 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
         );
     }
     let (lo, hi) = (inp.case.rates.min_hz, inp.case.rates.max_hz);
-    let mut fig = Figure::new(
-        format!(
-            "Loop figures vs rate, computation delay {} T (PM phase margin, GM gain margin, Ms sensitivity peak; hatched side of a limit fails; gaps: unstable)",
-            fmt_num(inp.report.design_delay)
-        ),
-        rate_axis().with_range(lo, hi),
+    // A method with no stable point draws nothing: its legend says why.
+    let never_stable: Vec<bool> = series
+        .iter()
+        .map(|(_, rows)| rows.iter().all(|r| r.eval.figures.is_none()))
+        .collect();
+    let mut title = format!(
+        "Loop figures vs rate, computation delay {} T (PM phase margin, GM gain margin, Ms sensitivity peak; hatched side of a limit fails; gaps: unstable)",
+        fmt_num(inp.report.design_delay)
     );
+    if never_stable.iter().all(|&b| b) {
+        title = format!(
+            "No swept rate gives a stable loop ({} to {}, computation delay {} T)",
+            hz(lo),
+            hz(hi),
+            fmt_num(inp.report.design_delay)
+        );
+    }
+    let mut fig = Figure::new(title, rate_axis().with_range(lo, hi));
     for (i, (label, get, limit)) in panels.into_iter().enumerate() {
         let mut panel = Panel::new(Axis::linear(label));
         for (k, (method, rows)) in series.iter().enumerate() {
@@ -333,7 +350,11 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
                 .collect();
             // The legend is given once, on the top panel; styles repeat
             // below, so every panel reads the same way.
-            let name = if i == 0 { method.as_str() } else { "" };
+            let name = match (i, never_stable[k]) {
+                (0, false) => method.clone(),
+                (0, true) => format!("{method} (unstable at every rate)"),
+                _ => String::new(),
+            };
             panel
                 .series
                 .push(Series::line(name, pts, k).drawn(Draw::LineAndMarkers));
@@ -657,13 +678,13 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
     ]
     .into_iter()
     .filter(|v| v.is_finite())
-    .fold(lo * 10.0, f64::max);
+    .fold(inp.case.rates.max_hz, f64::max);
     let n = 120;
     let rates: Vec<f64> = (0..n)
         .map(|i| lo * (hi / lo).powf(i as f64 / (n - 1) as f64))
         .collect();
     // Methods with the same load share one line and one legend entry.
-    let mut loads: Vec<(Vec<String>, Vec<(f64, f64)>)> = Vec::new();
+    let mut loads: Vec<(Vec<String>, Points)> = Vec::new();
     for (method, rows) in design_series(inp) {
         let m = rows[0].point.method;
         let pts: Vec<(f64, f64)> = rates
@@ -760,8 +781,7 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
         })
         .collect();
     let spec = &inp.case.spec;
-    type Get = fn(&Figures) -> Option<f64>;
-    let panels: [(&str, Get, Option<(f64, Side, String)>); 2] = [
+    let panels: [PanelSpec; 2] = [
         (
             "phase margin (deg)",
             phase_margin,

@@ -58,7 +58,9 @@ pub fn write_report(
 
 // ------------------------------------------------------------- content
 
-/// A polynomial in `var`, descending powers, coefficients by [`fmt_num`].
+/// A polynomial in `var`, descending powers. Coefficients are the model's
+/// own inputs, so they are printed exactly (shortest round-trip form), not
+/// rounded like the results.
 fn poly_text(p: &Poly, var: &str) -> String {
     let d = p.descending();
     let n = d.len().saturating_sub(1);
@@ -71,18 +73,14 @@ fn poly_text(p: &Poly, var: &str) -> String {
         let sign = if c < 0.0 { "-" } else { "+" };
         let mag = c.abs();
         let term = match power {
-            0 => fmt_num(mag),
+            0 => format!("{mag}"),
             _ => {
                 let v = if power == 1 {
                     var.to_string()
                 } else {
                     format!("{var}^{power}")
                 };
-                if mag == 1.0 {
-                    v
-                } else {
-                    format!("{}*{v}", fmt_num(mag))
-                }
+                if mag == 1.0 { v } else { format!("{mag}*{v}") }
             }
         };
         if out.is_empty() {
@@ -492,7 +490,12 @@ fn markdown(blocks: &[Block]) -> String {
                 out.push('\n');
             }
             Block::Image { rel, caption, .. } => {
-                out.push_str(&format!("![{caption}]({rel})\n\n{caption}\n\n"))
+                let alt = rel
+                    .rsplit('/')
+                    .next()
+                    .unwrap_or(rel)
+                    .trim_end_matches(".png");
+                out.push_str(&format!("![{alt}]({rel})\n\n{caption}\n\n"))
             }
         }
     }
@@ -649,11 +652,11 @@ mod tests {
     fn polynomials_read_as_written() {
         // 0.05 s^2 + s (by hand), and a negative middle coefficient.
         let p = Poly::from_descending(&[0.05, 1.0, 0.0]);
-        assert_eq!(poly_text(&p, "s"), "0.05000*s^2 + s");
+        assert_eq!(poly_text(&p, "s"), "0.05*s^2 + s");
         let q = Poly::from_descending(&[1.0, -1.5, 0.5]);
-        assert_eq!(poly_text(&q, "z"), "z^2 - 1.500*z + 0.5000");
+        assert_eq!(poly_text(&q, "z"), "z^2 - 1.5*z + 0.5");
         let tf = Tf::new(Poly::from_descending(&[20.0]), p);
-        assert_eq!(tf_text(&tf, "s"), "20.00 / (0.05000*s^2 + s)");
+        assert_eq!(tf_text(&tf, "s"), "20 / (0.05*s^2 + s)");
     }
 
     #[test]
