@@ -10,7 +10,9 @@ use serde::Serialize;
 use crate::poly::{C64, Poly};
 use crate::ss::{ModelError, StateSpace, eigenvalues, hold_integrals};
 use crate::tf::Tf;
-use crate::time_response::{DisturbanceFigures, StepFigures, TimeOptions, continuous_metrics};
+use crate::time_response::{
+    DisturbanceFigures, StepFigures, TimeOptions, TracePoint, continuous_metrics,
+};
 
 /// A rational stand-in for the delay `e^{-s theta}` of hold plus
 /// computation, `theta = T/2 + tau`.
@@ -239,6 +241,41 @@ impl ContinuousLoop {
             opts.band,
             |i| step[i],
             &dist,
+        ))
+    }
+
+    /// Exact step (`r = 1`) and load-disturbance (`w = 1`) traces of the
+    /// plant output `y` and command `u` on `[0, t_end_s]`, `steps` equal
+    /// intervals, by matrix-exponential steps (exact for these piecewise
+    /// constant inputs). Every point is flagged `sample: false`: a
+    /// continuous loop has no sampling instants.
+    pub fn traces(
+        &self,
+        t_end_s: f64,
+        steps: usize,
+    ) -> Result<(Vec<TracePoint>, Vec<TracePoint>), ModelError> {
+        if !(t_end_s > 0.0 && t_end_s.is_finite()) || steps == 0 {
+            return Err(ModelError::NonFinite);
+        }
+        let h = t_end_s / steps as f64;
+        let run = |b: &DVector<f64>, dy: f64, du: f64| -> Result<Vec<TracePoint>, ModelError> {
+            let (e, g) = hold_integrals(&self.a, b, h)?;
+            let mut x = DVector::zeros(self.a.nrows());
+            let mut out = Vec::with_capacity(steps + 1);
+            for i in 0..=steps {
+                out.push(TracePoint {
+                    t: i as f64 * h,
+                    y: self.cy.dot(&x) + dy,
+                    u: self.cu.dot(&x) + du,
+                    sample: false,
+                });
+                x = &e * &x + &g;
+            }
+            Ok(out)
+        };
+        Ok((
+            run(&self.br, self.dyr, self.dur)?,
+            run(&self.bw, self.dyw, self.duw)?,
         ))
     }
 

@@ -1,6 +1,7 @@
 //! The library's top-level error: everything a command can fail with.
 
 use crate::case::CaseError;
+use crate::plot::PlotError;
 use crate::ss::ModelError;
 
 #[derive(Debug, thiserror::Error)]
@@ -22,4 +23,7 @@ pub enum Error {
     /// under the final name).
     #[error("cannot write {path}: {message}")]
     Output { path: String, message: String },
+    /// A chart could not be drawn or written.
+    #[error(transparent)]
+    Chart(#[from] PlotError),
 }

@@ -334,6 +334,27 @@ impl PreparedLoop {
         })
     }
 
+    /// The frequency range the sampled loop's figures are computed on at
+    /// `rate_hz`: from well below the slowest mode up to Nyquist.
+    pub fn sampled_range(&self, rate_hz: f64) -> FrequencyRange {
+        self.range_below(std::f64::consts::PI * rate_hz)
+    }
+
+    /// Exact step and load-disturbance traces of the continuous design
+    /// (no sampling) on `[0, t_end_s]` with `steps` intervals.
+    pub fn continuous_traces(
+        &self,
+        t_end_s: f64,
+        steps: usize,
+    ) -> Result<(Vec<TracePoint>, Vec<TracePoint>), String> {
+        let Controller::Continuous(c) = &self.controller else {
+            return Err("the controller is given in z: no continuous design".into());
+        };
+        let cl = ContinuousLoop::new(&self.plant_model, &self.plant, &self.sensor, c, None)
+            .map_err(|e| e.to_string())?;
+        cl.traces(t_end_s, steps).map_err(|e| e.to_string())
+    }
+
     /// The continuous loop: the design itself (`approx` None), or with the
     /// hold and delay replaced by an approximation (`(kind, theta_s)`).
     pub fn continuous(&self, approx: Option<(HoldApprox, f64)>) -> Evaluation {

@@ -7,6 +7,7 @@
 
 pub mod budget;
 pub mod case;
+pub mod charts;
 pub mod closed_loop;
 pub mod continuous;
 pub mod discretize;
@@ -20,6 +21,7 @@ pub mod outputs;
 pub mod pick;
 pub mod plot;
 pub mod poly;
+pub mod report;
 pub mod scalar_solve;
 pub mod search;
 pub mod ss;

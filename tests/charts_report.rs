@@ -1,0 +1,233 @@
+//! Charts and the report from a real pick run on a small invented case
+//! (invented data: a demo loop, not a reference).
+
+use std::path::{Path, PathBuf};
+
+use looprate::case::Case;
+use looprate::charts::write_charts;
+use looprate::evaluate::PreparedLoop;
+use looprate::pick::{PickReport, case_grid, pick, prepare};
+use looprate::report::write_report;
+use looprate::search::Silent;
+use looprate::summary::fmt_num;
+use looprate::sweep::{self, SweepRow};
+
+const CASE: &str = r#"
+title = "Invented positioning loop"
+
+[plant]
+tf = "20 / (s * (0.05*s + 1))"
+
+[sensor]
+tf = "1 / (0.001*s + 1)"
+
+[controller]
+tf = "2 * (0.1*s + 1) / (0.02*s + 1)"
+
+[timing]
+compute_delay = [0.5]
+
+[rates]
+min_hz = 20
+max_hz = 2000
+points = 30
+
+[methods]
+use = ["tustin", "zoh"]
+
+[spec]
+max_overshoot_pct = 35
+max_settling_s = 0.25
+min_phase_margin_deg = 30
+min_gain_margin_db = 6
+max_sensitivity_peak = 2.2
+
+[budget]
+cpu_hz = 16e6
+cycles_per_update = 900
+max_load_pct = 25
+"#;
+
+/// A fresh directory for this test's files: `LOOPRATE_CHART_OUT` to keep
+/// them for a look, or a scratch directory under the system temp dir.
+fn out_dir(name: &str) -> PathBuf {
+    let dir = match std::env::var_os("LOOPRATE_CHART_OUT") {
+        Some(d) => PathBuf::from(d).join(name),
+        None => std::env::temp_dir().join(format!("looprate-charts-{}-{name}", std::process::id())),
+    };
+    let _ = std::fs::remove_dir_all(&dir);
+    std::fs::create_dir_all(&dir).unwrap();
+    dir
+}
+
+struct Run {
+    case: Case,
+    lp: PreparedLoop,
+    rows: Vec<SweepRow>,
+    report: PickReport,
+}
+
+fn run(text: &str, dir: &Path) -> Run {
+    let path = dir.join("case.toml");
+    std::fs::write(&path, text).unwrap();
+    let case = Case::load(&path).unwrap();
+    let lp = prepare(&case).unwrap();
+    let grid = case_grid(&case, &lp);
+    let rows = sweep::run(&lp, &case.spec, case.budget.as_ref(), &grid, &|| {});
+    let report = pick(&case, &lp, &rows, &Silent);
+    Run {
+        case,
+        lp,
+        rows,
+        report,
+    }
+}
+
+/// Decode a PNG and check its size and that it is not blank.
+fn check_png(path: &Path) {
+    let img = image::open(path)
+        .unwrap_or_else(|e| panic!("{} does not decode: {e}", path.display()))
+        .to_rgb8();
+    assert_eq!(img.dimensions(), (1600, 1000), "{}", path.display());
+    let n = f64::from(img.width() * img.height());
+    let lum: Vec<f64> = img
+        .pixels()
+        .map(|p| (f64::from(p[0]) + f64::from(p[1]) + f64::from(p[2])) / 3.0)
+        .collect();
+    let mean = lum.iter().sum::<f64>() / n;
+    let var = lum.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / n;
+    assert!(
+        var > 50.0,
+        "{} looks blank (variance {var})",
+        path.display()
+    );
+}
+
+#[test]
+fn charts_of_a_case_with_an_answer() {
+    let dir = out_dir("answer");
+    let r = run(CASE, &dir);
+    assert!(r.report.recommended.is_some(), "{:#?}", r.report);
+    let charts = write_charts(&dir, &r.case, &r.lp, &r.rows, &r.report).unwrap();
+    let names: Vec<String> = charts
+        .iter()
+        .map(|p| p.file_name().unwrap().to_string_lossy().into_owned())
+        .collect();
+    assert_eq!(
+        names,
+        [
+            "figures-vs-rate.png",
+            "step-response.png",
+            "loop-response.png",
+            "cpu-budget.png",
+            "hold-approximation.png",
+            "disturbance.png"
+        ]
+    );
+    for c in &charts {
+        check_png(c);
+    }
+
+    let md_path = write_report(&dir, &r.case, &r.report, &charts).unwrap();
+    let md = std::fs::read_to_string(&md_path).unwrap();
+    // The numbers of report.md against pick.json (the serialized report).
+    let json = serde_json::to_value(&r.report).unwrap();
+    let rec = &json["recommended"];
+    let printed = |v: &serde_json::Value| fmt_num(v.as_f64().unwrap());
+    assert_same(
+        between(&md, "at **", " Hz**"),
+        &printed(&rec["rate_hz"]),
+        rec["rate_hz"].as_f64().unwrap(),
+    );
+    assert_same(
+        between(&md, "(period **", " s**"),
+        &printed(&rec["period_s"]),
+        rec["period_s"].as_f64().unwrap(),
+    );
+    assert_same(
+        between(&md, "CPU load **", " %**"),
+        &printed(&rec["cpu_load_pct"]),
+        rec["cpu_load_pct"].as_f64().unwrap(),
+    );
+    for m in json["methods"].as_array().unwrap() {
+        let name = m["method"].as_str().unwrap();
+        let row = md
+            .lines()
+            .find(|l| l.starts_with(&format!("| {name} |")))
+            .unwrap_or_else(|| panic!("no table row for {name}"));
+        let cells: Vec<&str> = row.split('|').map(str::trim).collect();
+        let f = m["slowest_rate_hz"].as_f64().unwrap();
+        assert_same(cells[3], &fmt_num(f), f);
+        assert_eq!(cells[4], m["limiting"].as_str().unwrap());
+    }
+    // Every chart embedded by relative path; the caution is there.
+    for name in &names {
+        assert!(md.contains(&format!("]({name})")), "{name} not embedded");
+    }
+    assert!(md.contains("protective limits"));
+    let html = std::fs::read_to_string(dir.join("report.html")).unwrap();
+    assert_eq!(html.matches("data:image/png;base64,").count(), names.len());
+}
+
+/// The text between `start` and the next `end` after it.
+fn between<'a>(text: &'a str, start: &str, end: &str) -> &'a str {
+    let i = text.find(start).unwrap_or_else(|| panic!("no `{start}`")) + start.len();
+    let j = text[i..].find(end).unwrap_or_else(|| panic!("no `{end}`")) + i;
+    &text[i..j]
+}
+
+/// A printed number equals the formatted value and parses back to it
+/// within the printed precision (4 significant digits).
+fn assert_same(printed: &str, expected: &str, value: f64) {
+    assert_eq!(printed, expected);
+    let back: f64 = printed.parse().unwrap();
+    assert!(
+        ((back - value) / value).abs() <= 5e-4,
+        "{printed} vs {value}"
+    );
+}
+
+#[test]
+fn no_answer_draws_what_still_makes_sense() {
+    // Only slow rates: no method meets the spec at the top of the sweep.
+    let dir = out_dir("none");
+    let text = CASE
+        .replace("max_hz = 2000", "max_hz = 60")
+        .replace("points = 30", "points = 6");
+    let r = run(&text, &dir);
+    assert!(r.report.recommended.is_none());
+    let charts = write_charts(&dir, &r.case, &r.lp, &r.rows, &r.report).unwrap();
+    let names: Vec<String> = charts
+        .iter()
+        .map(|p| p.file_name().unwrap().to_string_lossy().into_owned())
+        .collect();
+    assert_eq!(names, ["figures-vs-rate.png", "cpu-budget.png"]);
+    for c in &charts {
+        check_png(c);
+    }
+    let md =
+        std::fs::read_to_string(write_report(&dir, &r.case, &r.report, &charts).unwrap()).unwrap();
+    assert!(md.contains("**No method meets the spec**"));
+    assert!(md.contains("| tustin | 0.5000 | none |"));
+}
+
+#[test]
+fn empty_window_is_stated_with_both_numbers() {
+    // A CPU so slow that the spec's rate does not fit.
+    let dir = out_dir("empty");
+    let r = run(&CASE.replace("cpu_hz = 16e6", "cpu_hz = 0.5e6"), &dir);
+    let w = r.report.window.clone().unwrap();
+    assert!(w.empty);
+    let charts = write_charts(&dir, &r.case, &r.lp, &r.rows, &r.report).unwrap();
+    assert_eq!(charts.len(), 6);
+    let md =
+        std::fs::read_to_string(write_report(&dir, &r.case, &r.report, &charts).unwrap()).unwrap();
+    assert!(md.contains(&format!(
+        "needs at least {} Hz and the CPU budget allows at most {} Hz",
+        fmt_num(w.low_hz),
+        fmt_num(w.high_hz)
+    )));
+    for a in &r.report.advice {
+        assert!(md.contains(&format!("- {a}")), "advice missing: {a}");
+    }
+}
