@@ -88,6 +88,9 @@ enum Command {
         /// No progress bar.
         #[arg(long)]
         quiet: bool,
+        /// Skip the PNG charts (batch use).
+        #[arg(long = "no-charts")]
+        no_charts: bool,
     },
     /// Find the slowest rate that meets the spec for each method, recommend
     /// one with headroom, and check the CPU budget.
@@ -102,6 +105,9 @@ enum Command {
         threads: Option<usize>,
         #[arg(long)]
         quiet: bool,
+        /// Skip the PNG charts (the report is still written).
+        #[arg(long = "no-charts")]
+        no_charts: bool,
     },
 }
 
@@ -258,10 +264,20 @@ fn run(cli: Cli) -> Result<ExitCode> {
             out,
             threads,
             quiet,
+            no_charts,
         } => {
             let c = Case::load(&case)?;
             let lp = prepare(&c)?;
-            let rows = in_pool(threads, || run_sweep(&c, &lp, quiet))?;
+            let rows = in_pool(threads, || -> Result<_> {
+                let rows = run_sweep(&c, &lp, quiet);
+                if !no_charts {
+                    // Without a search there is no recommendation: the
+                    // charts that need none (figures against rate, CPU load).
+                    let report = looprate::pick::unsearched(&c, &lp);
+                    looprate::charts::write_charts(&out, &c, &lp, &rows, &report)?;
+                }
+                Ok(rows)
+            })??;
             let path = out.join("sweep.csv");
             outputs::write_atomic(&path, &outputs::sweep_csv(&rows))?;
             let feasible = rows.iter().filter(|r| r.assessment.feasible).count();
@@ -281,14 +297,21 @@ fn run(cli: Cli) -> Result<ExitCode> {
             json,
             threads,
             quiet,
+            no_charts,
         } => {
             let c = Case::load(&case)?;
             let lp = prepare(&c)?;
-            let (rows, report) = in_pool(threads, || {
+            let (rows, report) = in_pool(threads, || -> Result<_> {
                 let rows = run_sweep(&c, &lp, quiet);
                 let report = pick(&c, &lp, &rows, &Silent);
-                (rows, report)
-            })?;
+                let charts = if no_charts {
+                    Vec::new()
+                } else {
+                    looprate::charts::write_charts(&out, &c, &lp, &rows, &report)?
+                };
+                looprate::report::write_report(&out, &c, &report, &charts)?;
+                Ok((rows, report))
+            })??;
             write_pick_outputs(&out, &rows, &report)?;
             if json {
                 print(&format!("{:#}\n", serde_json::to_value(&report)?))?;

@@ -102,6 +102,25 @@ impl PickReport {
     }
 }
 
+/// A report with no search made (for `sweep`): the design's figures and
+/// nothing else, so outputs that need no answer can still be drawn.
+pub fn unsearched(case: &Case, lp: &PreparedLoop) -> PickReport {
+    PickReport {
+        title: case.title.clone(),
+        design: lp.design.as_ref().and_then(|d| d.figures.clone()),
+        design_failures: Vec::new(),
+        methods: Vec::new(),
+        recommended: None,
+        window_hz: None,
+        window: None,
+        cpu_ceiling_hz: None,
+        advice: Vec::new(),
+        headroom: case.spec.headroom,
+        design_delay: case.compute_delays.iter().copied().fold(0.0, f64::max),
+        notes: vec!["sweep only: no search was made".into()],
+    }
+}
+
 /// Search every (method, delay) series of a finished sweep and make the
 /// recommendation.
 pub fn pick(

@@ -231,11 +231,11 @@ impl ResponseSink for StepMetrics {
         self.push(p.t, p.y, p.u);
     }
     fn finished(&self, bound: f64) -> bool {
-        // Settled for good, no new overshoot peak, rise complete; the
-        // command is constant from here on as well (within the bound).
+        // Settled for good, no new overshoot peak that would show in the
+        // figure (resolution 1e-4 percentage points), rise complete.
         self.settled_since.is_some()
             && bound < self.band_abs
-            && bound <= self.peak_dev.max(1e-9 * self.y_final.abs())
+            && bound <= self.peak_dev.max(1e-6 * self.y_final.abs())
             && self.t90.is_some()
     }
 }
