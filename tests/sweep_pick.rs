@@ -1,0 +1,143 @@
+//! The sweep and the search: every grid point present, results identical
+//! whatever the thread count, and the search against a brute-force scan.
+
+use std::path::Path;
+
+use looprate::case::Case;
+use looprate::outputs::sweep_csv;
+use looprate::pick::{case_grid, pick, prepare};
+use looprate::search::Silent;
+use looprate::sweep;
+
+/// An invented speed loop whose slow end goes unstable and whose fast end
+/// passes, with a second method that fails differently.
+const CASE: &str = r#"
+title = "Test speed loop"
+[plant]
+tf = "38 / ((0.42*s + 1) * (0.004*s + 1))"
+[sensor]
+tf = "1 / (0.0008*s + 1)"
+[controller]
+tf = "0.4 * (s + 12) / s"
+[timing]
+compute_delay = [0, 1]
+[rates]
+min_hz = 5
+max_hz = 2000
+points = 40
+[methods]
+use = ["tustin", "forward-euler", "tustin-prewarp"]
+prewarp_hz = 400
+[spec]
+max_overshoot_pct = 30
+min_phase_margin_deg = 35
+min_gain_margin_db = 6
+[budget]
+cpu_hz = 48e6
+cycles_per_mac = 20
+overhead_cycles = 400
+max_load_pct = 10
+"#;
+
+fn case() -> Case {
+    Case::parse(CASE, Path::new("speed.toml")).unwrap()
+}
+
+fn pool(n: usize) -> rayon::ThreadPool {
+    rayon::ThreadPoolBuilder::new()
+        .num_threads(n)
+        .build()
+        .unwrap()
+}
+
+#[test]
+fn every_point_has_a_row_and_threads_do_not_change_a_byte() {
+    let c = case();
+    let lp = prepare(&c).unwrap();
+    let points = case_grid(&c, &lp);
+    // 40 rates x 3 methods x 2 delays, including unstable points and the
+    // points where tustin-prewarp cannot run (w0 T >= pi below 800 Hz).
+    assert_eq!(points.len(), 40 * 3 * 2);
+    let one = pool(1).install(|| sweep::run(&lp, &c.spec, c.budget.as_ref(), &points, &|| {}));
+    let two = pool(2).install(|| sweep::run(&lp, &c.spec, c.budget.as_ref(), &points, &|| {}));
+    assert_eq!(one.len(), points.len());
+    let (a, b) = (sweep_csv(&one), sweep_csv(&two));
+    assert_eq!(a, b, "sweep.csv differs between 1 and 2 threads");
+    let text = String::from_utf8(a).unwrap();
+    assert_eq!(text.lines().count(), 1 + points.len());
+    assert!(
+        text.contains(",unstable,"),
+        "the grid should include unstable points"
+    );
+    assert!(
+        text.contains("error: tustin-prewarp"),
+        "prewarp above Nyquist must be reported per point"
+    );
+}
+
+#[test]
+fn search_agrees_with_a_brute_force_scan() {
+    // Brute force: 3000 log-spaced rates; f_star_brute is the lowest scan
+    // rate above the fastest infeasible one. The search's f_star must lie
+    // in the scan interval around that (to its 1e-4 tolerance): the search
+    // and the scan share only the evaluation of single points.
+    let c = case();
+    let lp = prepare(&c).unwrap();
+    let points = case_grid(&c, &lp);
+    let rows = sweep::run(&lp, &c.spec, c.budget.as_ref(), &points, &|| {});
+    let report = pick(&c, &lp, &rows, &Silent);
+    let n = 3000;
+    let (lo, hi) = (c.rates.min_hz, c.rates.max_hz);
+    let scan: Vec<f64> = (0..n)
+        .map(|i| lo * (hi / lo).powf(i as f64 / (n - 1) as f64))
+        .collect();
+    for m in &report.methods {
+        let method = m.method.parse().ok();
+        let pts = sweep::grid(&scan, &[method], &[m.compute_delay]);
+        let dense = sweep::run(&lp, &c.spec, None, &pts, &|| {});
+        let last_bad = dense.iter().rposition(|r| !r.assessment.feasible);
+        match (last_bad, m.slowest_rate_hz) {
+            (Some(i), Some(f)) if i + 1 < n => {
+                let (a, b) = (scan[i], scan[i + 1]);
+                assert!(
+                    f > a * (1.0 - 1e-4) && f <= b * (1.0 + 1e-4),
+                    "{} d={}: f_star {f} outside the scan bracket [{a}, {b}]",
+                    m.method,
+                    m.compute_delay
+                );
+            }
+            (Some(i), None) => {
+                assert_eq!(i, n - 1, "{}: search found none, scan disagrees", m.method)
+            }
+            (None, Some(f)) => assert!(m.at_range_floor && f == lo),
+            other => panic!(
+                "{} d={}: scan and search disagree: {other:?}",
+                m.method, m.compute_delay
+            ),
+        }
+        assert!(
+            m.evaluations <= 40,
+            "{}: {} evaluations beyond the sweep",
+            m.method,
+            m.evaluations
+        );
+    }
+    // The recommendation is the lowest f_star at the design delay (the
+    // largest listed, 1) times the headroom.
+    let rec = report.recommended.as_ref().unwrap();
+    let best = report
+        .methods
+        .iter()
+        .filter(|m| m.compute_delay == 1.0)
+        .filter_map(|m| m.slowest_rate_hz)
+        .fold(f64::INFINITY, f64::min);
+    assert_eq!(rec.slowest_rate_hz, best);
+    assert!((rec.rate_hz - best * 1.25).abs() < 1e-9 * best);
+    // Hand computation of the CPU budget: tustin of a PI is first order,
+    // b0, b1, a1 non-zero -> 3 MACs -> 20*3 + 400 = 460 cycles; ceiling
+    // = 0.10 * 48e6 / 460 = 10434.78 Hz.
+    if rec.method == "tustin" {
+        assert_eq!(rec.cycles_per_update, Some(460.0));
+        assert!((report.cpu_ceiling_hz.unwrap() - 0.10 * 48e6 / 460.0).abs() < 1e-6);
+    }
+}
