@@ -621,9 +621,23 @@ fn draw_series(canvas: &mut Canvas, m: &Metrics, s: &Series, g: &PanelGeom) {
     }
     if marks {
         let r = m.base * 0.24;
+        // With a line, markers only identify the series: keep them at
+        // least 10 radii apart (staggered by series) so dense data does not
+        // merge them into a solid band. Without a line every point shows.
+        let spacing = if line { 10.0 * r } else { 0.0 };
+        let mut travelled = spacing * (s.style.0 % 4) as f64 / 4.0;
         let mut polys = Vec::new();
         for run in runs(&s.points, g) {
+            let mut prev: Option<(f64, f64)> = None;
             for (px, py) in run {
+                if let Some((qx, qy)) = prev {
+                    travelled += (px - qx).hypot(py - qy);
+                }
+                prev = Some((px, py));
+                if travelled < spacing {
+                    continue;
+                }
+                travelled = 0.0;
                 if plot.expand(r).contains_rect(&Rect::new(px, py, px, py)) {
                     marker(pen.marker, px, py, r, &mut polys);
                 }
