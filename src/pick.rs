@@ -145,6 +145,11 @@ pub fn pick(
         design_delay,
         notes: Vec::new(),
     };
+    if !case.params.is_empty() || case.uncertainty.is_some() {
+        report.notes.push(
+            "parameter ranges and [uncertainty] are read but not evaluated yet: every figure is for the nominal parameters".into(),
+        );
+    }
     if let Some(design) = &lp.design {
         match &design.figures {
             Some(f) => {
