@@ -1,0 +1,118 @@
+#!/usr/bin/env bash
+# looprate vs. the same per-point work written by hand with scipy.signal.
+# Usage: bash benches/compare/run.sh   (from anywhere inside the repository)
+# Env: SCIPY_POINTS (default 60), SEED (default 1), KEEP=1 keeps the temp dir.
+set -euo pipefail
+
+ROOT=$(cd "$(dirname "${BASH_SOURCE[0]}")/../.." && pwd)
+HERE="$ROOT/benches/compare"
+BIN="$ROOT/target/release/looprate"
+SCIPY_POINTS=${SCIPY_POINTS:-60}
+SEED=${SEED:-1}
+PY=${PYTHON:-python3}
+
+if [[ ! -x "$BIN" ]] || [[ -n "$(find "$ROOT/src" "$ROOT/Cargo.toml" -newer "$BIN" 2>/dev/null | head -n1)" ]]; then
+    echo "building looprate (release) ..." >&2
+    (cd "$ROOT" && cargo build --release --quiet)
+fi
+
+TMP=$(mktemp -d)
+if [[ "${KEEP:-0}" != 1 ]]; then trap 'rm -rf "$TMP"' EXIT; else echo "temp dir: $TMP" >&2; fi
+CASE="$TMP/case.toml"
+
+# Invented demo case: 4th-order plant (integrator, lag, 60 Hz resonance),
+# sensor filter, 2nd-order controller. The spec only gives `pick` something
+# to search for; the sweep evaluates every figure whatever the spec.
+cat > "$CASE" <<'TOML'
+title = "compare bench: 4th-order plant, 2nd-order controller"
+
+[plant]
+tf = "400*(2*3.14159265*60)^2 / (s*(0.01*s+1)*(s^2 + 2*0.3*(2*3.14159265*60)*s + (2*3.14159265*60)^2))"
+
+[sensor]
+tf = "1/(s/2000+1)"
+
+[controller]
+tf = "0.05*(0.02*s^2+0.4*s+1)/(s*(s/400+1))"
+
+[timing]
+compute_delay = [0, 0.5, 1]
+
+[rates]
+min_hz = 50
+max_hz = 5000
+points = 200
+spacing = "log"
+
+[methods]
+use = ["zoh", "foh", "impulse", "tustin", "tustin-prewarp", "matched", "forward-euler", "backward-euler"]
+
+[spec]
+max_overshoot_pct = 25
+min_phase_margin_deg = 35
+TOML
+
+# The same polynomials for the scipy script, taken from looprate's own parse
+# (so both sides evaluate exactly the same coefficients).
+"$BIN" check "$CASE" | "$PY" -c '
+import json, re, sys
+p = [json.loads(m) for m in re.findall(r"(?:num|den)\(s\)\s+(\[.*\])", sys.stdin.read())]
+assert len(p) == 6, p
+json.dump(dict(plant=p[0:2], sensor=p[2:4], controller=p[4:6],
+               rates=dict(min_hz=50, max_hz=5000, points=200, spacing="log"),
+               methods=["zoh", "foh", "impulse", "tustin", "tustin-prewarp",
+                        "matched", "forward-euler", "backward-euler"],
+               delays=[0, 0.5, 1]), open(sys.argv[1], "w"))
+' "$TMP/case.json"
+
+NPTS=$((200 * 8 * 3))
+# wall-clock and CPU (user+sys) seconds of one command, "WALL CPU"
+wall() { /usr/bin/time -f "%e %U %S" -o "$TMP/time" "$@" >/dev/null; awk '{print $1, $2 + $3}' "$TMP/time"; }
+
+echo "load before: $(uptime | sed 's/.*load average/load average/')   cpus: $(nproc)"
+
+T1=$(wall "$BIN" sweep "$CASE" --out "$TMP/s1" --quiet --no-charts --threads 1)
+T2=$(wall "$BIN" sweep "$CASE" --out "$TMP/s2" --quiet --no-charts --threads 2)
+TP=$(wall "$BIN" pick "$CASE" --out "$TMP/p" --quiet --no-charts --threads 1)
+
+SCIPY_LINE=$(OPENBLAS_NUM_THREADS=1 OMP_NUM_THREADS=1 MKL_NUM_THREADS=1 "$PY" "$HERE/by_hand.py" --case "$TMP/case.json" --points "$SCIPY_POINTS" \
+    --seed "$SEED" --csv "$TMP/by_hand.csv")
+
+echo "load after:  $(uptime | sed 's/.*load average/load average/')"
+
+"$PY" - "$NPTS" "$T1" "$T2" "$TP" "$TMP" "$SCIPY_LINE" <<'PYEOF'
+import csv, json, math, re, sys
+npts = int(sys.argv[1])
+(t1, c1), (t2, c2), (tp, cp) = (map(float, a.split()) for a in sys.argv[2:5])
+tmp, line = sys.argv[5], sys.argv[6]
+m = re.search(r"(\d+) points in ([\d.]+) s .*cpu ([\d.]+) s", line)
+sp_n, sp_t, sp_c = int(m.group(1)), float(m.group(2)), float(m.group(3))
+lr1, lr2, sp = npts / t1, npts / t2, sp_n / sp_t
+print()
+print(f"grid: 200 rates (50..5000 Hz log) x 8 methods x 3 delays = {npts} points")
+print(f"looprate sweep, 1 thread : {t1:8.2f} s wall {lr1:9.1f} points/s   (cpu {c1:.2f} s: {npts / c1:.1f} points per cpu-s)")
+print(f"looprate sweep, 2 threads: {t2:8.2f} s wall {lr2:9.1f} points/s   (cpu {c2:.2f} s)")
+print(f"scipy by hand, 1 process : {sp_t:8.2f} s wall {sp:9.2f} points/s   (cpu {sp_c:.2f} s: {sp_n / sp_c:.2f} points per cpu-s; {sp_n} points spread over the grid)")
+print(f"per point, looprate (1 thread) vs scipy: {lr1 / sp:.1f}x faster by wall clock, {(npts / c1) / (sp_n / sp_c):.1f}x by cpu time")
+print(f"1 -> 2 thread speed-up (wall): {t1 / t2:.2f}x")
+
+pick = json.load(open(f"{tmp}/p/pick.json"))
+ev = [m["evaluations"] for m in pick["methods"]]
+print(f"looprate pick (1 thread, sweep + refinement): {tp:.2f} s wall (cpu {cp:.2f} s); "
+      f"evaluations beyond the sweep per (method, delay): max {max(ev)}, "
+      f"mean {sum(ev) / len(ev):.1f}, total {sum(ev)} over {len(ev)}")
+
+# agreement on the sampled points (sanity check that both do the same job)
+key = lambda r: (round(float(r["rate_hz"]), 6), r["method"], float(r["compute_delay"]))
+lr = {key(r): r for r in csv.DictReader(open(f"{tmp}/s1/sweep.csv"))}
+same, dpm, dov = 0, 0.0, 0.0
+rows = list(csv.DictReader(open(f"{tmp}/by_hand.csv")))
+for r in rows:
+    l = lr[key(r)]
+    same += r["status"] == l["status"]
+    if r["status"] == "ok" and l["status"] == "ok":
+        dpm = max(dpm, abs(float(r["phase_margin_deg"]) - float(l["phase_margin_deg"])))
+        dov = max(dov, abs(float(r["overshoot_pct"]) - float(l["overshoot_pct"])))
+print(f"agreement on the {len(rows)} sampled points: status {same}/{len(rows)}, "
+      f"max |dPM| {dpm:.3f} deg, max |d overshoot| {dov:.3f} %-points")
+PYEOF
