@@ -145,7 +145,7 @@ pub fn pick(
         design_delay,
         notes: Vec::new(),
     };
-    if !case.params.is_empty() || case.uncertainty.is_some() {
+    if case.params.iter().any(|p| p.min < p.max) || case.uncertainty.is_some() {
         report.notes.push(
             "parameter ranges and [uncertainty] are read but not evaluated yet: every figure is for the nominal parameters".into(),
         );
