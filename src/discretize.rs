@@ -175,14 +175,8 @@ fn step_invariant(c: &Tf, t: f64) -> Result<Tf, DiscretizeError> {
         return Ok(c.clone());
     }
     let (phi, gam) = hold_integrals(&ss.a, &ss.b, t)?;
-    let den = mapped_den(c, t)?;
-    Ok(StateSpace {
-        a: phi,
-        b: gam,
-        c: ss.c,
-        d: ss.d,
-    }
-    .to_tf_with_den(0, den))
+    let d = ss.d[0];
+    sampled_equivalent(c, t, phi, gam, ss.c, d)
 }
 
 /// Characteristic polynomial of `e^{AT}` from the continuous poles mapped
@@ -193,6 +187,26 @@ fn mapped_den(c: &Tf, t: f64) -> Result<Poly, DiscretizeError> {
     let poles = c.den.roots().ok_or(ModelError::Eigen)?;
     let mapped: Vec<C64> = poles.iter().map(|p| (p * t).exp()).collect();
     Ok(Poly::from_roots(&mapped))
+}
+
+/// The transfer function of a sampled equivalent `(e^{AT}, B_d, C, D_d)`
+/// of `c`, with the denominator from `c`'s poles mapped by `e^{pT}`.
+fn sampled_equivalent(
+    c: &Tf,
+    t: f64,
+    phi: DMatrix<f64>,
+    bd: DVector<f64>,
+    cm: DMatrix<f64>,
+    dd: f64,
+) -> Result<Tf, DiscretizeError> {
+    let den = mapped_den(c, t)?;
+    Ok(StateSpace {
+        a: phi,
+        b: bd,
+        c: cm,
+        d: DVector::from_element(1, dd),
+    }
+    .to_tf_with_den(0, den))
 }
 
 /// Triangle-hold (ramp-invariant) equivalent: one exponential of
@@ -215,14 +229,7 @@ fn ramp_invariant(c: &Tf, t: f64) -> Result<Tf, DiscretizeError> {
     let g2: DVector<f64> = e.view((0, n + 1), (n, 1)).column(0).into_owned();
     let bd = &g1 - &g2 + &phi * &g2;
     let dd = ss.d[0] + (&ss.c * &g2)[0];
-    let den = mapped_den(c, t)?;
-    Ok(StateSpace {
-        a: phi,
-        b: bd,
-        c: ss.c,
-        d: DVector::from_element(1, dd),
-    }
-    .to_tf_with_den(0, den))
+    sampled_equivalent(c, t, phi, bd, ss.c, dd)
 }
 
 /// Impulse-invariant equivalent scaled by T:
@@ -236,14 +243,7 @@ fn impulse_invariant(c: &Tf, t: f64) -> Result<Tf, DiscretizeError> {
     let phi = expm(&(&ss.a * t))?;
     let bd = &phi * &ss.b * t;
     let dd = ss.d[0] + (&ss.c * &ss.b)[0] * t;
-    let den = mapped_den(c, t)?;
-    Ok(StateSpace {
-        a: phi,
-        b: bd,
-        c: ss.c,
-        d: DVector::from_element(1, dd),
-    }
-    .to_tf_with_den(0, den))
+    sampled_equivalent(c, t, phi, bd, ss.c, dd)
 }
 
 /// Pole-zero matching: finite poles and zeros by `z = e^{sT}`, zeros at
