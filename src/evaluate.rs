@@ -202,6 +202,36 @@ impl PreparedLoop {
         Ok(prepared)
     }
 
+    /// The fastest pole or zero of plant, sensor and controller, Hz (0 if
+    /// all are at the origin).
+    pub fn fastest_mode_hz(&self) -> f64 {
+        self.roots.iter().map(|r| r.norm()).fold(0.0, f64::max) / (2.0 * std::f64::consts::PI)
+    }
+
+    /// Warnings about a point whose results deserve less trust: a rate so
+    /// far above the loop's fastest mode that the discrete coefficients
+    /// crowd against z = 1, and a horizon cut short by its cap.
+    pub fn cautions(&self, p: &Point, e: &Evaluation) -> Vec<String> {
+        let mut out = Vec::new();
+        let fastest = self.fastest_mode_hz();
+        if fastest > 0.0 && p.rate_hz > 1e4 * fastest {
+            out.push(format!(
+                "the rate is {:.3e} times the fastest pole or zero ({:.4} Hz): the discrete poles crowd against z = 1 and the figures lose accuracy",
+                p.rate_hz / fastest,
+                fastest
+            ));
+        }
+        if let Some(f) = &e.figures
+            && f.horizon_capped
+        {
+            out.push(format!(
+                "the simulation stopped at its cap of {} periods ({:.4e} s) before the slowest mode decayed: time figures cover only that span",
+                self.time.max_steps, f.horizon_s
+            ));
+        }
+        out
+    }
+
     /// The controller that runs at `rate_hz`.
     pub fn controller_at(
         &self,

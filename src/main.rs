@@ -239,7 +239,14 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 outputs::write_atomic(&path, &outputs::trace_csv(&step, &dist))?;
             }
             if json {
-                let v = summary::eval_json(&exact, lp.design.as_ref(), &approx);
+                let mut v = summary::eval_json(&exact, lp.design.as_ref(), &approx);
+                if let Some(notes) = v.get_mut("notes").and_then(|n| n.as_array_mut()) {
+                    notes.extend(
+                        lp.cautions(&p, &exact)
+                            .into_iter()
+                            .map(serde_json::Value::from),
+                    );
+                }
                 print(&format!("{v:#}\n"))?;
             } else {
                 let header = format!(
@@ -248,14 +255,18 @@ fn run(cli: Cli) -> Result<ExitCode> {
                     looprate::search::method_label(method),
                     delay
                 );
-                print(&summary::evaluation_text(
+                let mut text = summary::evaluation_text(
                     &c.title,
                     &header,
                     &exact,
                     lp.design.as_ref(),
                     &approx,
                     &c.spec,
-                ))?;
+                );
+                for note in lp.cautions(&p, &exact) {
+                    text.push_str(&format!("\nNote: {note}\n"));
+                }
+                print(&text)?;
             }
             Ok(ExitCode::SUCCESS)
         }
