@@ -312,18 +312,26 @@ fn run(cli: Cli) -> Result<ExitCode> {
         } => {
             let c = Case::load(&case)?;
             let lp = prepare(&c)?;
-            let (rows, report) = in_pool(threads, || -> Result<_> {
+            let report = in_pool(threads, || -> Result<_> {
                 let rows = run_sweep(&c, &lp, quiet);
                 let report = pick(&c, &lp, &rows, &Silent);
-                let charts = if no_charts {
-                    Vec::new()
-                } else {
-                    looprate::charts::write_charts(&out, &c, &lp, &rows, &report)?
-                };
-                looprate::report::write_report(&out, &c, &report, &charts)?;
-                Ok((rows, report))
+                // Charts are drawn while the CSV and JSON are written.
+                let (charts, tables) = rayon::join(
+                    || -> Result<_> {
+                        if no_charts {
+                            Ok(Vec::new())
+                        } else {
+                            Ok(looprate::charts::write_charts(
+                                &out, &c, &lp, &rows, &report,
+                            )?)
+                        }
+                    },
+                    || write_pick_outputs(&out, &rows, &report),
+                );
+                tables?;
+                looprate::report::write_report(&out, &c, &report, &charts?)?;
+                Ok(report)
             })??;
-            write_pick_outputs(&out, &rows, &report)?;
             if json {
                 print(&format!("{:#}\n", serde_json::to_value(&report)?))?;
             } else {
