@@ -161,6 +161,19 @@ pub fn unwrapped_phase(grid: &[(f64, C64)]) -> Vec<f64> {
 
 /// All loop figures from the exact loop gain `l(w)` (w in rad/s).
 pub fn loop_figures(l: &dyn Fn(f64) -> C64, range: &FrequencyRange) -> LoopFigures {
+    // A loop with integrators has |L| growing without bound at low
+    // frequency: if |L| is still below 1 at the grid's low end and rising
+    // towards it, the gain crossing lies lower; extend the range down a
+    // decade at a time until |L| exceeds 1 (at most 15 decades).
+    let mut range = range.clone();
+    for _ in 0..15 {
+        let (a, b) = (l(range.w_lo).norm(), l(range.w_lo / 10.0).norm());
+        if !(a < 1.0 && b > a && a.is_finite() && b.is_finite()) {
+            break;
+        }
+        range.w_lo /= 10.0;
+    }
+    let range = &range;
     let grid = loop_grid(l, range);
     let phase = unwrapped_phase(&grid);
     let two_pi = 2.0 * std::f64::consts::PI;

@@ -73,6 +73,9 @@ pub struct HoldEquivalent {
     pub dy: f64,
     /// Evenly spaced points inside a period (the first at the sample).
     pub intersample: Vec<IntersampleRow>,
+    /// Index of the first point at or after the computation delay: points
+    /// before it still see `u_{k-1}`.
+    pub switch_index: usize,
 }
 
 impl HoldEquivalent {
@@ -124,8 +127,10 @@ impl HoldEquivalent {
             grid_g.push(g_next);
         }
         let switch = tau / h; // in units of h
-        let first_after = switch.ceil() as usize; // first index with s_j >= tau
-        let b_off = first_after as f64 * h - tau; // 0 <= b_off < h
+        // First index with s_j >= tau; the tolerance keeps a switch that
+        // lands on a grid point (tau/h = 12.000000000000002) on that point.
+        let first_after = ((switch - 1e-9).ceil().max(0.0) as usize).min(points);
+        let b_off = (first_after as f64 * h - tau).max(0.0); // 0 <= b_off < h
         let (e_b, g_b) = if b_off > 1e-15 * h {
             hold_integrals(a, b, b_off)?
         } else {
@@ -172,6 +177,7 @@ impl HoldEquivalent {
             cy,
             dy,
             intersample,
+            switch_index: first_after,
         })
     }
 
@@ -233,6 +239,14 @@ mod tests {
             };
             assert!((y - want).abs() < 1e-14, "s={s}: {y} vs {want}");
         }
+    }
+
+    #[test]
+    fn switch_on_a_grid_point_is_not_lost_to_rounding() {
+        // 10 Hz, d = 0.75, 16 points: tau/h computes as 12.000000000000002;
+        // the point at exactly tau must already see the new command.
+        let eq = HoldEquivalent::new(&first_order(), 0.1, 0.75, 16).unwrap();
+        assert_eq!(eq.switch_index, 12);
     }
 
     #[test]

@@ -189,6 +189,12 @@ pub fn pick(
         .par_iter()
         .map(|s| slowest_rate(lp, spec, s, observer))
         .collect();
+    if let Controller::Discrete(_) = &lp.controller {
+        // One rate only: "at or below" the range floor does not apply.
+        for m in report.methods.iter_mut() {
+            m.at_range_floor = false;
+        }
+    }
 
     let best = report
         .methods
@@ -208,7 +214,24 @@ pub fn pick(
         .flatten();
     let mut rate = f_star * spec.headroom;
     let mut divider = None;
-    if let Some(timer) = case.budget.as_ref().and_then(|b| b.timer_hz) {
+    if let Controller::Discrete(d) = &lp.controller {
+        // A controller given in z runs at its own rate only: no headroom,
+        // no timer rounding.
+        rate = 1.0 / d.period_s;
+        report.notes.push(format!(
+            "the controller is given in z at {rate} Hz: it can run only at that rate, so no headroom is applied"
+        ));
+        if let Some(timer) = case.budget.as_ref().and_then(|b| b.timer_hz) {
+            let n = (timer / rate).round();
+            if n < 1.0 || ((timer / n) - rate).abs() > 1e-9 * rate {
+                report.notes.push(format!(
+                    "the timer ({timer} Hz) cannot make exactly {rate} Hz"
+                ));
+            } else {
+                divider = Some(n as u64);
+            }
+        }
+    } else if let Some(timer) = case.budget.as_ref().and_then(|b| b.timer_hz) {
         match budget::timer_rate_at_least(timer, rate) {
             Some((r, n)) => {
                 rate = r;

@@ -198,6 +198,14 @@ fn answer(report: &PickReport, rec: &Recommended) -> String {
         .timer_divider
         .map(|n| format!(", timer divider {n}"))
         .unwrap_or_default();
+    if rec.method == "given-in-z" {
+        return format!(
+            "**Answer:** run the controller given in z at its own rate, **{} Hz** (period **{} s**{timer}), with the output applied {} of a period after sampling; {load}. A controller given in z runs only at its own rate, so no headroom is applied.",
+            fmt_num(rec.rate_hz),
+            fmt_num(rec.period_s),
+            fmt_num(rec.compute_delay),
+        );
+    }
     format!(
         "**Answer:** run the controller discretized by `{}` at **{} Hz** (period **{} s**{timer}) with the output applied {} of a period after sampling; {load}. This is the slowest passing rate, {} Hz, times the headroom {}.",
         rec.method,

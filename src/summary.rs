@@ -295,16 +295,26 @@ pub fn pick_text(r: &PickReport) -> String {
     }
     let _ = writeln!(s);
     if let Some(rec) = &r.recommended {
-        let _ = writeln!(
-            s,
-            "Recommended: {} at {} Hz (T = {} s), computation delay {} of a period; slowest passing rate {} Hz times headroom {} (the headroom covers model error).",
-            rec.method,
-            fmt_num(rec.rate_hz),
-            fmt_num(rec.period_s),
-            rec.compute_delay,
-            fmt_num(rec.slowest_rate_hz),
-            r.headroom
-        );
+        if rec.method == "given-in-z" {
+            let _ = writeln!(
+                s,
+                "Recommended: the controller given in z at its own rate, {} Hz (T = {} s), computation delay {} of a period.",
+                fmt_num(rec.rate_hz),
+                fmt_num(rec.period_s),
+                rec.compute_delay
+            );
+        } else {
+            let _ = writeln!(
+                s,
+                "Recommended: {} at {} Hz (T = {} s), computation delay {} of a period; slowest passing rate {} Hz times headroom {} (the headroom covers model error).",
+                rec.method,
+                fmt_num(rec.rate_hz),
+                fmt_num(rec.period_s),
+                rec.compute_delay,
+                fmt_num(rec.slowest_rate_hz),
+                r.headroom
+            );
+        }
         if let Some(n) = rec.timer_divider {
             let _ = writeln!(s, "Timer divider {n}.");
         }

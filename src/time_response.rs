@@ -82,6 +82,8 @@ pub struct StepMetrics {
     t90: Option<f64>,
     settled_since: Option<f64>,
     prev: Option<(f64, f64)>,
+    /// Final command; infinite (never finished early) until set.
+    u_final: f64,
 }
 
 impl StepMetrics {
@@ -96,7 +98,15 @@ impl StepMetrics {
             t90: None,
             settled_since: None,
             prev: None,
+            u_final: f64::INFINITY,
         }
+    }
+
+    /// With the command's final value, so a run may stop early once no
+    /// later command can raise the command peak.
+    pub fn with_u_final(mut self, u_final: f64) -> Self {
+        self.u_final = u_final;
+        self
     }
 
     /// Feed the next point (times strictly increasing).
@@ -214,8 +224,9 @@ pub fn horizon_steps(rho: f64, dim: usize) -> f64 {
 pub trait ResponseSink {
     fn point(&mut self, p: TracePoint);
     /// True when no later point can change the result, given that every
-    /// later point lies within `bound` of the final value.
-    fn finished(&self, _bound: f64) -> bool {
+    /// later output lies within `bound` of its final value and every later
+    /// command within `u_bound` of its own.
+    fn finished(&self, _bound: f64, _u_bound: f64) -> bool {
         false
     }
 }
@@ -230,13 +241,15 @@ impl ResponseSink for StepMetrics {
     fn point(&mut self, p: TracePoint) {
         self.push(p.t, p.y, p.u);
     }
-    fn finished(&self, bound: f64) -> bool {
+    fn finished(&self, bound: f64, u_bound: f64) -> bool {
         // Settled for good, no new overshoot peak that would show in the
-        // figure (resolution 1e-4 percentage points), rise complete.
+        // figure (resolution 1e-4 percentage points), rise complete, and
+        // no later command can exceed the command peak seen so far.
         self.settled_since.is_some()
             && bound < self.band_abs
             && bound <= self.peak_dev.max(1e-6 * self.y_final.abs())
             && self.t90.is_some()
+            && self.u_final.abs() + u_bound <= self.u_peak
     }
 }
 
@@ -251,7 +264,7 @@ impl ResponseSink for Peak {
     fn point(&mut self, p: TracePoint) {
         self.peak = self.peak.max(p.y.abs());
     }
-    fn finished(&self, bound: f64) -> bool {
+    fn finished(&self, bound: f64, _u_bound: f64) -> bool {
         self.y_final.abs() + bound <= self.peak
     }
 }
@@ -260,7 +273,7 @@ impl ResponseSink for Recovery {
     fn point(&mut self, p: TracePoint) {
         self.push(p.t, p.y);
     }
-    fn finished(&self, bound: f64) -> bool {
+    fn finished(&self, bound: f64, _u_bound: f64) -> bool {
         self.since.is_some() && bound <= self.threshold
     }
 }
@@ -283,7 +296,6 @@ impl OutputMap {
         let dim = cl.a.nrows();
         let n = cl.plant_states;
         let np = hold.intersample.len();
-        let tau = hold.delay_fraction * hold.period_s;
         let mut g = DMatrix::zeros(np, dim);
         let mut hr = DVector::zeros(np);
         let mut hw = DVector::zeros(np);
@@ -301,7 +313,7 @@ impl OutputMap {
             g,
             hr,
             hw,
-            holds_previous: hold.intersample.iter().map(|r| r.offset_s < tau).collect(),
+            holds_previous: (0..np).map(|j| j < hold.switch_index).collect(),
         }
     }
 }
@@ -320,8 +332,13 @@ impl Certificate {
     /// Build the certificate for a stable loop; None when the doubling
     /// iteration does not converge (then the pole-based horizon rules).
     pub fn new(cl: &ClosedLoop, map: &OutputMap) -> Option<Certificate> {
+        // Q weights every output point and the two commands a period
+        // holds (u_k = ku . z and u_{k-1} = z[n]), so sqrt(V) bounds later
+        // command deviations too.
+        let mut p = map.g.transpose() * &map.g + &cl.ku * cl.ku.transpose();
+        let n = cl.plant_states;
+        p[(n, n)] += 1.0;
         // P by doubling: P <- P + (A^m)' P A^m, A^m <- (A^m)^2.
-        let mut p = map.g.transpose() * &map.g;
         let mut am = cl.a.clone();
         for _ in 0..64 {
             let next = &p + am.transpose() * &p * &am;
@@ -337,7 +354,8 @@ impl Certificate {
         None
     }
 
-    /// Bound on every later |y - y_final| from the state error `dz`.
+    /// Bound on every later |y - y_final| and |u - u_final| from the state
+    /// error `dz`.
     fn bound(&self, dz: &DVector<f64>) -> f64 {
         let n = dz.len();
         let mut v = 0.0;
@@ -409,10 +427,14 @@ pub fn simulate_sampled(
             }
             if k % 4 == 0
                 && let Some(c) = cert
-                && sink.finished(c.bound(&dz))
             {
-                break;
+                let b = c.bound(&dz);
+                if sink.finished(b, b) {
+                    break;
+                }
             }
+            // This period's commands: u_k and the held u_{k-1}.
+            let u_dev = dot(ku, dz.as_slice()).abs().max(dz[n].abs());
             // A cheap bound on the whole period: the sample's own
             // deviation plus how far the points between can move from it,
             // |(g_j - g_0) . dz| <= sum_i max_j |g_ji - g_0i| |dz_i|.
@@ -420,7 +442,7 @@ pub fn simulate_sampled(
             known = 1;
             let dev0 = dot(&g[..dim], dz.as_slice()).abs();
             let spread: f64 = spread.iter().zip(dz.iter()).map(|(s, d)| s * d.abs()).sum();
-            if sink.finished(dev0 + spread) {
+            if sink.finished(dev0 + spread, u_dev) {
                 points = 1;
             } else {
                 for j in 1..np {
@@ -431,7 +453,7 @@ pub fn simulate_sampled(
                 // cannot change the result, only the sample is passed on.
                 let y_end = ys[0] - dot(&g[..dim], dz.as_slice());
                 let dev = ys.iter().fold(0.0f64, |m, y| m.max((y - y_end).abs()));
-                if sink.finished(dev) {
+                if sink.finished(dev, u_dev) {
                     points = 1;
                 }
             }
@@ -485,7 +507,8 @@ pub fn sampled_figures(
         .fixed_point(1.0, 0.0)
         .ok_or("the closed loop has no steady state (pole at z = 1)")?;
     let y_final = output_at(&zr, 1.0, 0.0);
-    let mut m = StepMetrics::new(y_final, opts.band);
+    let u_final = cl.ku.dot(&zr) + cl.dur;
+    let mut m = StepMetrics::new(y_final, opts.band).with_u_final(u_final);
     let run = simulate_sampled(
         cl,
         &map,
@@ -497,7 +520,7 @@ pub fn sampled_figures(
         &mut m,
     );
     let horizon_s = run as f64 * hold.period_s;
-    let step = m.finish(horizon_s, capped && run >= periods);
+    let mut step = m.finish(horizon_s, capped && run >= periods);
 
     let zw = cl
         .fixed_point(0.0, 1.0)
@@ -508,14 +531,16 @@ pub fn sampled_figures(
         y_final: yd_final,
         peak: 0.0,
     };
-    simulate_sampled(cl, &map, t, 0.0, 1.0, periods, end, &mut peak);
+    let run_peak = simulate_sampled(cl, &map, t, 0.0, 1.0, periods, end, &mut peak);
     let mut rec = Recovery {
         yd_final,
         threshold: opts.band * peak.peak,
         since: None,
         prev: None,
     };
-    simulate_sampled(cl, &map, t, 0.0, 1.0, periods, end, &mut rec);
+    let run_rec = simulate_sampled(cl, &map, t, 0.0, 1.0, periods, end, &mut rec);
+    // A disturbance run that hit the cap leaves its figures uncertified too.
+    step.horizon_capped |= capped && (run_peak >= periods || run_rec >= periods);
     Ok((
         step,
         DisturbanceFigures {

@@ -294,3 +294,54 @@ fn early_stop_certificate_changes_no_figure() {
         );
     }
 }
+
+#[test]
+fn early_stop_never_misses_a_later_command_peak() {
+    // Plant (5s+1)/(s+1)^2 under a pure integral controller: the command
+    // creeps up to its final value long after the output has settled. The
+    // reported peak command must equal the full-horizon trace's (route
+    // independence; found in review).
+    let plant = tf(&[5.0, 1.0], &[1.0, 2.0, 1.0]);
+    let c = Controller::Continuous(tf(&[2.0], &[1.0, 0.0]));
+    let lp = PreparedLoop::new(&plant, &Tf::gain(1.0), &c, None, TimeOptions::default()).unwrap();
+    let p = Point {
+        rate_hz: 50.0,
+        method: Some(Method::Tustin),
+        delay: 0.5,
+    };
+    let f = lp.sampled(&p).figures.unwrap();
+    let (step, _) = lp.sampled_traces(&p, None).unwrap();
+    let full = step.iter().fold(0.0f64, |m, q| m.max(q.u.abs()));
+    assert!(
+        (f.u_peak - full).abs() <= 1e-6 * full,
+        "{} vs {full}",
+        f.u_peak
+    );
+}
+
+#[test]
+fn crossover_below_the_default_grid_is_found() {
+    // Plant 1/s with gain 0.05: |L| = 0.05/w crosses 1 at 0.05 rad/s with
+    // 90 deg of phase margin less the hold and delay lag (closed form);
+    // at 1 MHz the default grid starts above it.
+    let c = Controller::Continuous(Tf::gain(0.05));
+    let lp = PreparedLoop::new(
+        &tf(&[1.0], &[1.0, 0.0]),
+        &Tf::gain(1.0),
+        &c,
+        None,
+        TimeOptions::default(),
+    )
+    .unwrap();
+    let f = lp
+        .sampled(&Point {
+            rate_hz: 1e6,
+            method: Some(Method::Tustin),
+            delay: 1.0,
+        })
+        .figures
+        .unwrap();
+    let wc = f.crossover_hz.unwrap() * 2.0 * std::f64::consts::PI;
+    assert!((wc - 0.05).abs() < 1e-6, "{wc}");
+    assert!((f.phase_margin_deg.unwrap() - 90.0).abs() < 1e-3);
+}

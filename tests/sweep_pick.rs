@@ -141,3 +141,35 @@ fn search_agrees_with_a_brute_force_scan() {
         assert!((report.cpu_ceiling_hz.unwrap() - 0.10 * 48e6 / 460.0).abs() < 1e-6);
     }
 }
+
+#[test]
+fn a_controller_given_in_z_is_recommended_at_its_own_rate() {
+    // It cannot run anywhere else, so headroom does not apply (found in
+    // review: the recommendation once moved it to 1.25 times its rate).
+    let text = r#"
+[plant]
+tf = "1 / (s * (s + 1))"
+[controller]
+num_z = [0.5]
+den_z = [1.0]
+rate_hz = 20
+[rates]
+min_hz = 10
+max_hz = 40
+[spec]
+max_overshoot_pct = 60
+[budget]
+cpu_hz = 1e6
+cycles_per_update = 100
+max_load_pct = 50
+timer_hz = 1e6
+"#;
+    let c = Case::parse(text, Path::new("z.toml")).unwrap();
+    let lp = prepare(&c).unwrap();
+    let rows = sweep::run(&lp, &c.spec, c.budget.as_ref(), &case_grid(&c, &lp), &|| {});
+    assert_eq!(rows.len(), 1);
+    let report = pick(&c, &lp, &rows, &Silent);
+    let rec = report.recommended.unwrap();
+    assert_eq!(rec.rate_hz, 20.0);
+    assert_eq!(rec.timer_divider, Some(50_000));
+}
