@@ -26,7 +26,7 @@ use looprate::{outputs, summary, sweep};
 /// delay, output between samples). Results are model-based: confirm them on
 /// hardware with protective limits.
 #[derive(Parser)]
-#[command(name = "looprate", version, about, long_about = None)]
+#[command(name = "looprate", version)]
 struct Cli {
     #[command(subcommand)]
     command: Command,
