@@ -726,6 +726,9 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
         (None, Some(_)) => {
             "CPU load vs rate (the load of the recommended controller is unknown)".to_string()
         }
+        (None, None) if report.methods.is_empty() => {
+            "CPU load vs rate (sweep only: run pick for the rate window)".into()
+        }
         (None, None) => "CPU load vs rate: no method meets the spec, so there is no window".into(),
     };
     if let Some(w) = &report.window
