@@ -130,21 +130,12 @@ pub fn pick(
     observer: &dyn SearchObserver,
 ) -> PickReport {
     let spec = &case.spec;
-    let design_delay = case.compute_delays.iter().copied().fold(0.0, f64::max);
     let mut report = PickReport {
-        title: case.title.clone(),
         design: None,
-        design_failures: Vec::new(),
-        methods: Vec::new(),
-        recommended: None,
-        window_hz: None,
-        window: None,
-        cpu_ceiling_hz: None,
-        advice: Vec::new(),
-        headroom: spec.headroom,
-        design_delay,
         notes: Vec::new(),
+        ..unsearched(case, lp)
     };
+    let design_delay = report.design_delay;
     if case.params.iter().any(|p| p.min < p.max) || case.uncertainty.is_some() {
         report.notes.push(
             "parameter ranges and [uncertainty] are read but not evaluated yet: every figure is for the nominal parameters".into(),

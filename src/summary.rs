@@ -46,22 +46,8 @@ pub fn discretized_text(method: &str, rate_hz: f64, c: &DiscreteTf) -> String {
     let _ = writeln!(s, "rate     {rate_hz} Hz (T = {} s)", 1.0 / rate_hz);
     let _ = writeln!(s, "num(z)   {:?}", c.tf.num.descending());
     let _ = writeln!(s, "den(z)   {:?}", c.tf.den.descending());
-    let show = |v: Option<Vec<C64>>| {
-        v.map_or("(root finder failed)".into(), |v| {
-            v.iter()
-                .map(|c| {
-                    if c.im == 0.0 {
-                        fmt_num(c.re)
-                    } else {
-                        format!("{}{:+}j", fmt_num(c.re), fmt_num(c.im))
-                    }
-                })
-                .collect::<Vec<_>>()
-                .join(", ")
-        })
-    };
-    let _ = writeln!(s, "poles    {}", show(c.tf.poles()));
-    let _ = writeln!(s, "zeros    {}", show(c.tf.zeros()));
+    let _ = writeln!(s, "poles    {}", roots_text(c.tf.poles()));
+    let _ = writeln!(s, "zeros    {}", roots_text(c.tf.zeros()));
     s
 }
 
