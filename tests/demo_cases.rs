@@ -5,7 +5,8 @@
 use std::path::PathBuf;
 
 use looprate::case::Case;
-use looprate::pick::{case_grid, pick, prepare};
+use looprate::evaluate::PreparedLoop;
+use looprate::pick::{PickReport, case_grid, pick, prepare};
 use looprate::search::Silent;
 use looprate::sweep;
 
@@ -14,6 +15,15 @@ fn demo(name: &str) -> Case {
         .join("demo-cases")
         .join(name);
     Case::load(&path).unwrap()
+}
+
+/// A demo case with its prepared loop and the answer of a full pick.
+fn picked(name: &str) -> (Case, PreparedLoop, PickReport) {
+    let c = demo(name);
+    let lp = prepare(&c).unwrap();
+    let rows = sweep::run(&lp, &c.spec, c.budget.as_ref(), &case_grid(&c, &lp), &|| {});
+    let report = pick(&c, &lp, &rows, &Silent);
+    (c, lp, report)
 }
 
 const ALL: [&str; 5] = [
@@ -47,10 +57,7 @@ fn search_matches_a_dense_scan_on_three_demo_cases() {
         "buck-converter.toml",
         "pump-pressure-tight-cpu.toml",
     ] {
-        let c = demo(name);
-        let lp = prepare(&c).unwrap();
-        let rows = sweep::run(&lp, &c.spec, c.budget.as_ref(), &case_grid(&c, &lp), &|| {});
-        let report = pick(&c, &lp, &rows, &Silent);
+        let (c, lp, report) = picked(name);
         let n = 3000;
         let (lo, hi) = (c.rates.min_hz, c.rates.max_hz);
         let scan: Vec<f64> = (0..n)
@@ -96,10 +103,7 @@ fn recommended_rates_sample_well_above_the_crossover() {
         "buck-converter.toml",
         "pump-pressure-tight-cpu.toml",
     ] {
-        let c = demo(name);
-        let lp = prepare(&c).unwrap();
-        let rows = sweep::run(&lp, &c.spec, c.budget.as_ref(), &case_grid(&c, &lp), &|| {});
-        let report = pick(&c, &lp, &rows, &Silent);
+        let (_, lp, report) = picked(name);
         let rec = report.recommended.unwrap();
         let fc = lp.design.unwrap().figures.unwrap().crossover_hz.unwrap();
         assert!(

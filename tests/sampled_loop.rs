@@ -12,6 +12,22 @@ fn tf(num: &[f64], den: &[f64]) -> Tf {
     Tf::new(Poly::from_descending(num), Poly::from_descending(den))
 }
 
+/// Unity feedback around 1/(s(s+1)) with a gain `k` given in z at 1 Hz.
+fn textbook_loop(k: f64, opts: TimeOptions) -> PreparedLoop {
+    let c = Controller::Discrete(DiscreteTf {
+        tf: Tf::gain(k),
+        period_s: 1.0,
+    });
+    PreparedLoop::new(
+        &tf(&[1.0], &[1.0, 1.0, 0.0]),
+        &Tf::gain(1.0),
+        &c,
+        None,
+        opts,
+    )
+    .unwrap()
+}
+
 #[test]
 fn textbook_unity_feedback_step_samples() {
     // Unity feedback around the zoh equivalent of 1/(s(s+1)), T = 1 s,
@@ -20,18 +36,7 @@ fn textbook_unity_feedback_step_samples() {
     let want = [
         0.0, 0.3679, 1.0000, 1.3996, 1.3996, 1.1470, 0.8944, 0.8015, 0.8682, 0.9937, 1.0770,
     ];
-    let c = Controller::Discrete(DiscreteTf {
-        tf: Tf::gain(1.0),
-        period_s: 1.0,
-    });
-    let lp = PreparedLoop::new(
-        &tf(&[1.0], &[1.0, 1.0, 0.0]),
-        &Tf::gain(1.0),
-        &c,
-        None,
-        TimeOptions::default(),
-    )
-    .unwrap();
+    let lp = textbook_loop(1.0, TimeOptions::default());
     let p = Point {
         rate_hz: 1.0,
         method: None,
@@ -84,22 +89,11 @@ fn intersample_overshoot_is_caught() {
     // Same loop, T = 1 s: the plant output peaks between samples. The exact
     // figure must match a brute-force fine-step simulation (RK4, 4000 steps
     // a period) and exceed what the samples alone show.
-    let c = Controller::Discrete(DiscreteTf {
-        tf: Tf::gain(1.0),
-        period_s: 1.0,
-    });
     let opts = TimeOptions {
         points_per_period: 400,
         ..TimeOptions::default()
     };
-    let lp = PreparedLoop::new(
-        &tf(&[1.0], &[1.0, 1.0, 0.0]),
-        &Tf::gain(1.0),
-        &c,
-        None,
-        opts,
-    )
-    .unwrap();
+    let lp = textbook_loop(1.0, opts);
     let e = lp.sampled(&Point {
         rate_hz: 1.0,
         method: None,
@@ -194,18 +188,7 @@ fn unstable_loop_reports_poles_only() {
     // Gain 3 on the zoh equivalent of 1/(s(s+1)) at T = 1 s is unstable
     // (the sampled loop's critical gain is about 2.39; closed form of the
     // second-order characteristic polynomial's Jury test).
-    let c = Controller::Discrete(DiscreteTf {
-        tf: Tf::gain(3.0),
-        period_s: 1.0,
-    });
-    let lp = PreparedLoop::new(
-        &tf(&[1.0], &[1.0, 1.0, 0.0]),
-        &Tf::gain(1.0),
-        &c,
-        None,
-        TimeOptions::default(),
-    )
-    .unwrap();
+    let lp = textbook_loop(3.0, TimeOptions::default());
     let e = lp.sampled(&Point {
         rate_hz: 1.0,
         method: None,
