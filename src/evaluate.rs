@@ -282,17 +282,21 @@ impl PreparedLoop {
         &self,
         p: &Point,
     ) -> Result<(HoldEquivalent, DiscreteTf, ClosedLoop), String> {
-        if !(p.rate_hz > 0.0 && p.rate_hz.is_finite()) {
-            return Err(format!(
-                "rate must be positive and finite, got {}",
-                p.rate_hz
-            ));
-        }
-        if !(0.0..=1.0).contains(&p.delay) {
-            return Err(format!("computation delay {} is outside [0, 1]", p.delay));
-        }
-        let period = 1.0 / p.rate_hz;
+        check_point(p)?;
         let c = self.controller_at(p.rate_hz, p.method)?;
+        let (hold, cl) = self.sampled_loop_with(p, &c)?;
+        Ok((hold, c, cl))
+    }
+
+    /// Build the exact sampled loop at a point around a given controller
+    /// (a quantized one, or one shared by several plant variants).
+    pub fn sampled_loop_with(
+        &self,
+        p: &Point,
+        c: &DiscreteTf,
+    ) -> Result<(HoldEquivalent, ClosedLoop), String> {
+        check_point(p)?;
+        let period = 1.0 / p.rate_hz;
         let hold = HoldEquivalent::new(
             &self.plant_model,
             period,
@@ -300,13 +304,25 @@ impl PreparedLoop {
             self.time.points_per_period,
         )
         .map_err(|e| format!("plant equivalent: {e}"))?;
-        let cl = ClosedLoop::new(&hold, &c).map_err(|e| format!("closing the loop: {e}"))?;
-        Ok((hold, c, cl))
+        let cl = ClosedLoop::new(&hold, c).map_err(|e| format!("closing the loop: {e}"))?;
+        Ok((hold, cl))
     }
 
     /// Evaluate the exact sampled-data loop at one point.
     pub fn sampled(&self, p: &Point) -> Evaluation {
-        let (hold, c, cl) = match self.sampled_loop(p) {
+        if let Err(e) = check_point(p) {
+            return Evaluation::error(e);
+        }
+        match self.controller_at(p.rate_hz, p.method) {
+            Ok(c) => self.sampled_with(p, &c),
+            Err(e) => Evaluation::error(e),
+        }
+    }
+
+    /// Evaluate the exact sampled-data loop at one point with the given
+    /// controller in place of the point's own discretization.
+    pub fn sampled_with(&self, p: &Point, c: &DiscreteTf) -> Evaluation {
+        let (hold, cl) = match self.sampled_loop_with(p, c) {
             Ok(v) => v,
             Err(e) => return Evaluation::error(e),
         };
@@ -433,6 +449,20 @@ impl PreparedLoop {
         let period = 1.0 / p.rate_hz;
         self.continuous(Some((kind, period / 2.0 + p.delay * period)))
     }
+}
+
+/// A point's rate and delay are usable.
+fn check_point(p: &Point) -> Result<(), String> {
+    if !(p.rate_hz > 0.0 && p.rate_hz.is_finite()) {
+        return Err(format!(
+            "rate must be positive and finite, got {}",
+            p.rate_hz
+        ));
+    }
+    if !(0.0..=1.0).contains(&p.delay) {
+        return Err(format!("computation delay {} is outside [0, 1]", p.delay));
+    }
+    Ok(())
 }
 
 fn finish(
