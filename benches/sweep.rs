@@ -26,7 +26,15 @@ fn sweeps(c: &mut Criterion) {
     let points = case_grid(&gimbal, &lp);
     g.bench_function(
         format!("sweep gimbal-axis ({} points)", points.len()),
-        |b| b.iter(|| sweep::run(&lp, &gimbal.spec, gimbal.budget.as_ref(), &points, &|| {})),
+        |b| {
+            b.iter(|| {
+                sweep::run(
+                    &sweep::Plan::nominal(&lp, &gimbal.spec, gimbal.budget.as_ref()),
+                    &points,
+                    &|| {},
+                )
+            })
+        },
     );
     let belt = demo("belt-conveyor.toml");
     let lp = prepare(&belt).expect("prepare");
@@ -35,8 +43,12 @@ fn sweeps(c: &mut Criterion) {
         format!("pick belt-conveyor ({} points + search)", points.len()),
         |b| {
             b.iter(|| {
-                let rows = sweep::run(&lp, &belt.spec, belt.budget.as_ref(), &points, &|| {});
-                pick(&belt, &lp, &rows, &Silent)
+                let rows = sweep::run(
+                    &sweep::Plan::nominal(&lp, &belt.spec, belt.budget.as_ref()),
+                    &points,
+                    &|| {},
+                );
+                pick(&belt, &lp, None, &rows, &Silent)
             })
         },
     );

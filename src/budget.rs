@@ -62,20 +62,24 @@ pub fn timer_rate_at_least(timer_hz: f64, rate_hz: f64) -> Option<(f64, u64)> {
     Some((r, n))
 }
 
-/// The rate window: from the recommended rate up to the ceiling.
+/// The rate window: from the recommended rate up to the lowest ceiling
+/// (the CPU budget's, or a coefficient format's precision ceiling).
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct RateWindow {
     pub low_hz: f64,
     pub high_hz: f64,
+    /// What sets `high_hz`: `cpu budget` or `q15 coefficients (df2t)`.
+    pub high_bound: String,
     /// Empty when the recommended rate is above the ceiling.
     pub empty: bool,
 }
 
 impl RateWindow {
-    pub fn new(low_hz: f64, high_hz: f64) -> Self {
+    pub fn new(low_hz: f64, high_hz: f64, high_bound: impl Into<String>) -> Self {
         RateWindow {
             low_hz,
             high_hz,
+            high_bound: high_bound.into(),
             empty: low_hz > high_hz,
         }
     }

@@ -16,6 +16,7 @@
 use crate::discretize::Method;
 use crate::expr::{Expr, ExprError};
 use crate::poly::{C64, Poly};
+use crate::precision::{Format, Structure};
 use crate::tf::{DiscreteTf, Tf};
 use serde::Deserialize;
 use std::path::{Path, PathBuf};
@@ -150,12 +151,26 @@ pub struct Budget {
     pub timer_hz: Option<f64>,
 }
 
+/// Most corners `mode = "corners"` evaluates (2^10): beyond that, sample.
+pub const MAX_CORNERS: usize = 1 << 10;
+
+/// How the controller's coefficients are stored on the target.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Arithmetic {
+    /// Number formats to check, in file order; the first is the one the
+    /// rate window is bounded by.
+    pub formats: Vec<Format>,
+    /// Arrangement of the difference equation (default `df2t`).
+    pub structure: Structure,
+}
+
 /// How the parameter ranges are explored.
 #[derive(Debug, Clone, PartialEq)]
 pub enum UncertaintyMode {
     /// Every corner of the box of parameter ranges.
     Corners,
-    /// `samples` points drawn uniformly in the box with the given seed.
+    /// `samples` points of a Latin hypercube over the box, drawn from
+    /// `seed` (the same seed gives the same points).
     Samples { samples: usize, seed: u64 },
 }
 
@@ -197,6 +212,8 @@ pub struct Case {
     pub budget: Option<Budget>,
     /// Parameter exploration, if any.
     pub uncertainty: Option<UncertaintyMode>,
+    /// Coefficient formats whose precision ceiling is wanted, if any.
+    pub arithmetic: Option<Arithmetic>,
     plant: Model,
     sensor: Option<Model>,
     controller: ControllerModel,
@@ -311,6 +328,7 @@ struct RawCase {
     spec: Option<RawSpec>,
     budget: Option<RawBudget>,
     uncertainty: Option<RawUncertainty>,
+    arithmetic: Option<RawArithmetic>,
 }
 
 #[derive(Deserialize)]
@@ -400,6 +418,13 @@ struct RawUncertainty {
     mode: Option<String>,
     samples: Option<i64>,
     seed: Option<u64>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields, expecting = "a table")]
+struct RawArithmetic {
+    formats: Option<Vec<String>>,
+    structure: Option<String>,
 }
 
 // ---------------------------------------------------------------- errors
@@ -1228,6 +1253,15 @@ fn uncertainty_from(
                     "only applies to mode = \"samples\"",
                 ));
             }
+            let ranged = params.iter().filter(|p| p.min < p.max).count();
+            if ranged > MAX_CORNERS.trailing_zeros() as usize {
+                return Err(ctx.invalid(
+                    "uncertainty.mode",
+                    format!(
+                        "{ranged} parameters have a range: 2^{ranged} corners is more than the {MAX_CORNERS} allowed; use mode = \"samples\" with `samples = N`"
+                    ),
+                ));
+            }
             UncertaintyMode::Corners
         }
         "samples" => {
@@ -1259,6 +1293,35 @@ fn uncertainty_from(
         ));
     }
     Ok(Some(out))
+}
+
+fn arithmetic_from(ctx: &Ctx, raw: Option<RawArithmetic>) -> Result<Option<Arithmetic>, CaseError> {
+    let Some(raw) = raw else {
+        return Ok(None);
+    };
+    let names = raw.formats.ok_or_else(|| {
+        ctx.missing(
+            "arithmetic.formats",
+            "the number formats to check, e.g. [\"f32\", \"q15\"]",
+        )
+    })?;
+    if names.is_empty() {
+        return Err(ctx.invalid("arithmetic.formats", "empty list; name at least one format"));
+    }
+    let mut formats = Vec::new();
+    for (i, name) in names.iter().enumerate() {
+        let f = format!("arithmetic.formats[{i}]");
+        let fmt = Format::from_str(name).map_err(|e| ctx.invalid(&f, e))?;
+        if formats.contains(&fmt) {
+            return Err(ctx.invalid(&f, format!("`{fmt}` is listed twice")));
+        }
+        formats.push(fmt);
+    }
+    let structure = match raw.structure {
+        Some(s) => Structure::from_str(&s).map_err(|e| ctx.invalid("arithmetic.structure", e))?,
+        None => Structure::Df2t,
+    };
+    Ok(Some(Arithmetic { formats, structure }))
 }
 
 // ------------------------------------------------------------------ Case
@@ -1368,6 +1431,7 @@ impl Case {
         let spec = spec_from(&ctx, raw.spec)?;
         let budget = budget_from(&ctx, raw.budget)?;
         let uncertainty = uncertainty_from(&ctx, raw.uncertainty, &params)?;
+        let arithmetic = arithmetic_from(&ctx, raw.arithmetic)?;
         let title = raw.title.unwrap_or_else(|| {
             source
                 .file_stem()
@@ -1385,6 +1449,7 @@ impl Case {
             spec,
             budget,
             uncertainty,
+            arithmetic,
             plant,
             sensor,
             controller,

@@ -98,7 +98,8 @@ pub struct Evaluation {
 }
 
 impl Evaluation {
-    fn error(reason: impl std::fmt::Display) -> Evaluation {
+    /// An evaluation that could not be made, with the reason.
+    pub fn error(reason: impl std::fmt::Display) -> Evaluation {
         Evaluation {
             status: Status::Error(reason.to_string()),
             stable: false,

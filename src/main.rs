@@ -14,11 +14,12 @@ use indicatif::{ProgressBar, ProgressStyle};
 use looprate::case::Case;
 use looprate::continuous::HoldApprox;
 use looprate::discretize::{Method, discretize};
-use looprate::evaluate::Point;
+use looprate::evaluate::{Point, PreparedLoop};
 use looprate::expr::Expr;
 use looprate::pick::{case_grid, pick, prepare};
 use looprate::search::Silent;
 use looprate::tf::{Controller, Tf};
+use looprate::variants::VariantSet;
 use looprate::{outputs, summary, sweep};
 
 /// Choose the slowest loop rate for a digital controller that still meets
@@ -91,6 +92,10 @@ enum Command {
         /// Skip the PNG charts (batch use).
         #[arg(long = "no-charts")]
         no_charts: bool,
+        /// Also write DIR/variants.csv: one row per grid point and plant
+        /// variant (needs [uncertainty] in the case).
+        #[arg(long)]
+        variants: bool,
     },
     /// Find the slowest rate that meets the spec for each method, recommend
     /// one with headroom, and check the CPU budget.
@@ -276,21 +281,37 @@ fn run(cli: Cli) -> Result<ExitCode> {
             threads,
             quiet,
             no_charts,
+            variants,
         } => {
             let c = Case::load(&case)?;
+            if variants && c.uncertainty.is_none() {
+                return Err(anyhow!(
+                    "--variants: {} has no [uncertainty] table, so there are no variants to list",
+                    case.display()
+                ));
+            }
             let lp = prepare(&c)?;
-            let rows = in_pool(threads, || -> Result<_> {
-                let rows = run_sweep(&c, &lp, quiet);
+            let (rows, set) = in_pool(threads, || -> Result<_> {
+                let set = variant_set(&c, &lp)?;
+                let rows = run_sweep(&c, &lp, set.as_ref(), variants, quiet);
+                if let Some(set) = &set
+                    && variants
+                {
+                    outputs::write_atomic(
+                        &out.join("variants.csv"),
+                        &outputs::variants_csv(&rows, set),
+                    )?;
+                }
                 if !no_charts {
                     // Without a search there is no recommendation: the
                     // charts that need none (figures against rate, CPU load).
                     let report = looprate::pick::unsearched(&c, &lp);
                     looprate::charts::write_charts(&out, &c, &lp, &rows, &report)?;
                 }
-                Ok(rows)
+                Ok((rows, set))
             })??;
             let path = out.join("sweep.csv");
-            outputs::write_atomic(&path, &outputs::sweep_csv(&rows))?;
+            outputs::write_atomic(&path, &outputs::sweep_csv(&rows, set.as_ref()))?;
             let feasible = rows.iter().filter(|r| r.assessment.feasible).count();
             if !quiet {
                 eprintln!(
@@ -313,8 +334,9 @@ fn run(cli: Cli) -> Result<ExitCode> {
             let c = Case::load(&case)?;
             let lp = prepare(&c)?;
             let report = in_pool(threads, || -> Result<_> {
-                let rows = run_sweep(&c, &lp, quiet);
-                let report = pick(&c, &lp, &rows, &Silent);
+                let set = variant_set(&c, &lp)?;
+                let rows = run_sweep(&c, &lp, set.as_ref(), false, quiet);
+                let report = pick(&c, &lp, set.as_ref(), &rows, &Silent);
                 // Charts are drawn while the CSV and JSON are written.
                 let (charts, tables) = rayon::join(
                     || -> Result<_> {
@@ -326,7 +348,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
                             )?)
                         }
                     },
-                    || write_pick_outputs(&out, &rows, &report),
+                    || write_pick_outputs(&out, &rows, set.as_ref(), &report),
                 );
                 tables?;
                 looprate::report::write_report(&out, &c, &report, &charts?)?;
@@ -349,9 +371,10 @@ fn run(cli: Cli) -> Result<ExitCode> {
 fn write_pick_outputs(
     out: &Path,
     rows: &[sweep::SweepRow],
+    set: Option<&VariantSet>,
     report: &looprate::pick::PickReport,
 ) -> Result<()> {
-    outputs::write_atomic(&out.join("sweep.csv"), &outputs::sweep_csv(rows))?;
+    outputs::write_atomic(&out.join("sweep.csv"), &outputs::sweep_csv(rows, set))?;
     let json = serde_json::to_vec_pretty(report)?;
     outputs::write_atomic(&out.join("pick.json"), &json)?;
     Ok(())
@@ -369,7 +392,21 @@ fn in_pool<T: Send>(threads: Option<usize>, f: impl FnOnce() -> T + Send) -> Res
     Ok(pool.install(f))
 }
 
-fn run_sweep(c: &Case, lp: &looprate::evaluate::PreparedLoop, quiet: bool) -> Vec<sweep::SweepRow> {
+/// The plant variants of a case with `[uncertainty]`.
+fn variant_set(c: &Case, lp: &PreparedLoop) -> Result<Option<VariantSet>> {
+    Ok(match c.uncertainty {
+        Some(_) => Some(VariantSet::new(c, lp)?),
+        None => None,
+    })
+}
+
+fn run_sweep(
+    c: &Case,
+    lp: &PreparedLoop,
+    variants: Option<&VariantSet>,
+    keep_variants: bool,
+    quiet: bool,
+) -> Vec<sweep::SweepRow> {
     let points = case_grid(c, lp);
     let bar = if quiet || !std::io::stderr().is_terminal() {
         ProgressBar::hidden()
@@ -382,7 +419,11 @@ fn run_sweep(c: &Case, lp: &looprate::evaluate::PreparedLoop, quiet: bool) -> Ve
         }
         b
     };
-    let rows = sweep::run(lp, &c.spec, c.budget.as_ref(), &points, &|| bar.inc(1));
+    let plan = sweep::Plan {
+        keep_variants,
+        ..sweep::Plan::for_case(c, lp, variants)
+    };
+    let rows = sweep::run(&plan, &points, &|| bar.inc(1));
     bar.finish_and_clear();
     rows
 }

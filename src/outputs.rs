@@ -6,8 +6,11 @@ use std::io::Write;
 use std::path::Path;
 
 use crate::error::Error;
+use crate::evaluate::{Evaluation, Figures};
+use crate::feasibility::Assessment;
 use crate::search::method_label;
 use crate::sweep::SweepRow;
+use crate::variants::VariantSet;
 
 /// Write `bytes` to `path` through a temporary file in the same folder and
 /// a rename, so a reader never sees a half-written file under the final
@@ -48,7 +51,9 @@ fn num(v: f64) -> String {
     }
 }
 
-/// The columns of `sweep.csv`, in order.
+/// The columns of `sweep.csv` every sweep has, in order. A case with
+/// `[uncertainty]` adds [`ROBUST_COLUMNS`], one with `[arithmetic]` adds
+/// [`PRECISION_COLUMNS`] per number format (prefixed `q15_` etc.).
 pub const SWEEP_COLUMNS: [&str; 23] = [
     "rate_hz",
     "period_s",
@@ -75,58 +80,178 @@ pub const SWEEP_COLUMNS: [&str; 23] = [
     "cpu_load_pct",
 ];
 
+/// Columns added by plant variants: the verdict over all of them, the
+/// worst variant, and each figure at its worst (prefixed `worst_`).
+pub const ROBUST_COLUMNS: [&str; 6] = [
+    "variants",
+    "variants_unstable",
+    "robust_feasible",
+    "robust_limiting",
+    "robust_slack",
+    "worst_variant",
+];
+
+/// The figures given at their worst over the variants.
+const WORST_FIGURES: [&str; 10] = [
+    "overshoot_pct",
+    "settling_time_s",
+    "rise_time_s",
+    "disturbance_peak",
+    "recovery_time_s",
+    "u_peak",
+    "gain_margin_db",
+    "phase_margin_deg",
+    "delay_margin_s",
+    "sensitivity_peak",
+];
+
+/// Columns per number format (each prefixed with the format's name).
+pub const PRECISION_COLUMNS: [&str; 9] = [
+    "q_format",
+    "pole_shift",
+    "pole_error_pct",
+    "zero_shift",
+    "dc_gain_error_pct",
+    "crossover_gain_error_pct",
+    "integral_kept",
+    "feasible",
+    "limiting",
+];
+
+/// A cell for a figure that may not exist: empty when the evaluation has
+/// no figures, `missing` when the figure itself does not exist.
+fn cell(v: Option<Option<f64>>, missing: &str) -> String {
+    match v {
+        None => String::new(),
+        Some(None) => missing.to_string(),
+        Some(Some(x)) => num(x),
+    }
+}
+
+/// The cells of [`WORST_FIGURES`] for `f`.
+fn figure_cells(f: Option<&Figures>) -> Vec<String> {
+    vec![
+        cell(f.map(|f| f.overshoot_pct), "no final value"),
+        cell(f.map(|f| f.settling_time_s), "not settled"),
+        cell(f.map(|f| f.rise_time_s), "not reached"),
+        cell(f.map(|f| Some(f.disturbance_peak)), ""),
+        cell(f.map(|f| f.recovery_time_s), "not recovered"),
+        cell(f.map(|f| Some(f.u_peak)), ""),
+        cell(f.map(|f| f.gain_margin_db), "inf"),
+        cell(f.map(|f| f.phase_margin_deg), "inf"),
+        cell(f.map(|f| f.delay_margin_s), "inf"),
+        cell(f.map(|f| Some(f.sensitivity_peak)), ""),
+    ]
+}
+
+/// The first columns of a row: the point and the nominal evaluation.
+fn point_cells(r: &SweepRow, e: &Evaluation, a: &Assessment) -> Vec<String> {
+    let p = &r.point;
+    let f = e.figures.as_ref();
+    let rho = e
+        .closed_loop_poles
+        .iter()
+        .map(|q| q[0].hypot(q[1]))
+        .fold(f64::NAN, f64::max);
+    let figs = figure_cells(f);
+    let mut rec = vec![
+        num(p.rate_hz),
+        num(1.0 / p.rate_hz),
+        method_label(p.method),
+        num(p.delay),
+        e.status.label(),
+        cell(f.map(|f| Some(f.y_final)), ""),
+    ];
+    rec.extend_from_slice(&figs[..8]);
+    rec.push(cell(f.map(|f| f.crossover_hz), "none"));
+    rec.extend_from_slice(&figs[8..]);
+    rec.extend([
+        f.map(|f| f.horizon_capped.to_string()).unwrap_or_default(),
+        if rho.is_nan() {
+            String::new()
+        } else {
+            num(rho)
+        },
+        a.feasible.to_string(),
+        a.limiting.unwrap_or("").to_string(),
+        num(a.slack),
+        r.cpu_load_pct.map(num).unwrap_or_default(),
+    ]);
+    rec
+}
+
 /// `sweep.csv`: one row per grid point, in grid order. Cells: empty where
 /// a figure does not apply (an unstable point has no figures), `inf` for
 /// an infinite margin, `not settled` / `not recovered` / `not reached`
 /// where the response never got there within the horizon.
-pub fn sweep_csv(rows: &[SweepRow]) -> Vec<u8> {
+pub fn sweep_csv(rows: &[SweepRow], variants: Option<&VariantSet>) -> Vec<u8> {
     let mut w = csv::Writer::from_writer(Vec::new());
+    let mut header: Vec<String> = SWEEP_COLUMNS.iter().map(|c| c.to_string()).collect();
+    if variants.is_some() {
+        header.extend(ROBUST_COLUMNS.iter().map(|c| c.to_string()));
+        header.extend(WORST_FIGURES.iter().map(|c| format!("worst_{c}")));
+    }
+    let formats: Vec<String> = rows
+        .first()
+        .map(|r| r.precision.iter().map(|p| p.format.name()).collect())
+        .unwrap_or_default();
+    for f in &formats {
+        header.extend(PRECISION_COLUMNS.iter().map(|c| format!("{f}_{c}")));
+    }
     // Writing to a Vec cannot fail.
-    let _ = w.write_record(SWEEP_COLUMNS);
+    let _ = w.write_record(&header);
     for r in rows {
-        let p = &r.point;
-        let f = r.eval.figures.as_ref();
-        let opt = |v: Option<Option<f64>>, missing: &str| match v {
-            None => String::new(),
-            Some(None) => missing.to_string(),
-            Some(Some(x)) => num(x),
-        };
-        let rho = r
-            .eval
-            .closed_loop_poles
-            .iter()
-            .map(|q| q[0].hypot(q[1]))
-            .fold(f64::NAN, f64::max);
-        let rec = vec![
-            num(p.rate_hz),
-            num(1.0 / p.rate_hz),
-            method_label(p.method),
-            num(p.delay),
-            r.eval.status.label(),
-            opt(f.map(|f| Some(f.y_final)), ""),
-            opt(f.map(|f| f.overshoot_pct), "no final value"),
-            opt(f.map(|f| f.settling_time_s), "not settled"),
-            opt(f.map(|f| f.rise_time_s), "not reached"),
-            opt(f.map(|f| Some(f.disturbance_peak)), ""),
-            opt(f.map(|f| f.recovery_time_s), "not recovered"),
-            opt(f.map(|f| Some(f.u_peak)), ""),
-            opt(f.map(|f| f.gain_margin_db), "inf"),
-            opt(f.map(|f| f.phase_margin_deg), "inf"),
-            opt(f.map(|f| f.crossover_hz), "none"),
-            opt(f.map(|f| f.delay_margin_s), "inf"),
-            opt(f.map(|f| Some(f.sensitivity_peak)), ""),
-            f.map(|f| f.horizon_capped.to_string()).unwrap_or_default(),
-            if rho.is_nan() {
-                String::new()
-            } else {
-                num(rho)
-            },
-            r.assessment.feasible.to_string(),
-            r.assessment.limiting.unwrap_or("").to_string(),
-            num(r.assessment.slack),
-            r.cpu_load_pct.map(num).unwrap_or_default(),
-        ];
+        let mut rec = point_cells(r, &r.eval, &r.assessment);
+        if let (Some(set), Some(rb)) = (variants, r.robust.as_ref()) {
+            rec.extend([
+                set.len().to_string(),
+                rb.unstable.to_string(),
+                rb.assessment.feasible.to_string(),
+                rb.assessment.limiting.unwrap_or("").to_string(),
+                num(rb.assessment.slack),
+                set.describe(rb.worst),
+            ]);
+            rec.extend(figure_cells(rb.worst_figures.as_ref()));
+        }
+        for pp in &r.precision {
+            let d = pp.damage.as_ref();
+            rec.extend([
+                d.and_then(|d| d.q_format.clone()).unwrap_or_default(),
+                d.map(|d| num(d.pole_shift)).unwrap_or_default(),
+                d.map(|d| num(d.pole_error_pct)).unwrap_or_default(),
+                d.map(|d| num(d.zero_shift)).unwrap_or_default(),
+                cell(d.map(|d| d.dc_gain_error_pct), "integrators changed"),
+                cell(d.map(|d| d.crossover_gain_error_pct), "no crossover"),
+                d.map(|d| d.integral_kept().to_string()).unwrap_or_default(),
+                pp.assessment.feasible.to_string(),
+                pp.assessment.limiting.unwrap_or("").to_string(),
+            ]);
+        }
         let _ = w.write_record(&rec);
+    }
+    w.into_inner().unwrap_or_default()
+}
+
+/// `variants.csv` (`sweep --variants`): one row per grid point and plant
+/// variant, in grid order then variant order (variant 0 is the nominal
+/// one): the point, the variant's parameter values, and its evaluation in
+/// the columns of [`SWEEP_COLUMNS`].
+pub fn variants_csv(rows: &[SweepRow], variants: &VariantSet) -> Vec<u8> {
+    let mut w = csv::Writer::from_writer(Vec::new());
+    let mut header: Vec<String> = vec!["variant".into()];
+    header.extend(variants.names.iter().cloned());
+    header.extend(SWEEP_COLUMNS.iter().map(|c| c.to_string()));
+    let _ = w.write_record(&header);
+    for r in rows {
+        let Some(rb) = r.robust.as_ref() else {
+            continue;
+        };
+        for (i, (e, a)) in rb.each.iter().enumerate() {
+            let mut rec = vec![i.to_string()];
+            rec.extend(variants.values[i].iter().map(|v| num(*v)));
+            rec.extend(point_cells(r, e, a));
+            let _ = w.write_record(&rec);
+        }
     }
     w.into_inner().unwrap_or_default()
 }

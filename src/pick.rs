@@ -5,16 +5,23 @@
 use rayon::prelude::*;
 use serde::Serialize;
 
+use std::cell::RefCell;
+
 use crate::budget::{self, RateWindow};
-use crate::case::Case;
+use crate::case::{Case, UncertaintyMode};
 use crate::discretize::Method;
 use crate::error::Error;
 use crate::evaluate::{Evaluation, Figures, Point, PreparedLoop};
-use crate::feasibility::{LimitCheck, assess, check_figures};
-use crate::search::{SearchObserver, SlowestRate, method_label, slowest_rate};
-use crate::sweep::{self, SweepRow};
+use crate::feasibility::{Assessment, LimitCheck, assess, check_figures};
+use crate::precision::{self, Damage, Format};
+use crate::search::{
+    Ceiling, SearchObserver, SlowestRate, fastest_rate_by, method_label, slowest_rate,
+    slowest_rate_by,
+};
+use crate::sweep::{self, Plan, SweepRow};
 use crate::tf::Controller;
 use crate::time_response::TimeOptions;
+use crate::variants::{NamedValue, VariantSet};
 
 /// Build the rate-independent part of the loop from a case (nominal
 /// parameter values).
@@ -68,6 +75,12 @@ pub struct Recommended {
     pub figures: Option<Figures>,
     pub checks: Vec<LimitCheck>,
     pub feasible: bool,
+    /// With plant variants: each figure at its worst over them at this
+    /// rate, checked against the spec (None when a variant is unstable).
+    pub worst_figures: Option<Figures>,
+    pub worst_checks: Vec<LimitCheck>,
+    /// With plant variants: every variant feasible at this rate.
+    pub robust_feasible: Option<bool>,
 }
 
 /// The whole answer (`pick.json`).
@@ -91,7 +104,82 @@ pub struct PickReport {
     /// The computation delay the recommendation is made at (the largest
     /// the case lists: the conservative choice).
     pub design_delay: f64,
+    /// The search over plant variants, when the case has `[uncertainty]`.
+    pub robust: Option<RobustReport>,
+    /// Precision ceilings, when the case has `[arithmetic]`.
+    pub precision: Option<PrecisionReport>,
     pub notes: Vec<String>,
+}
+
+/// A parameter and its range.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ParamRange {
+    pub name: String,
+    pub nominal: f64,
+    pub min: f64,
+    pub max: f64,
+}
+
+/// `f_star` over every plant variant for one method and delay.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct RobustRate {
+    /// The robust answer: every variant feasible at every rate from
+    /// `slowest_rate_hz` up to `max_hz`.
+    #[serde(flatten)]
+    pub rate: SlowestRate,
+    /// The nominal answer for the same method and delay, Hz.
+    pub nominal_slowest_rate_hz: Option<f64>,
+    /// The variant that fails just below the robust `f_star` (or at
+    /// `max_hz` when there is none; the one with the least slack at the
+    /// lowest rate when every swept rate passes), and its limiting figure.
+    pub worst_variant: Option<Vec<NamedValue>>,
+    pub worst_limiting: Option<String>,
+}
+
+/// The robust search (`pick.json` key `robust`).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct RobustReport {
+    /// `corners` or `samples`.
+    pub mode: String,
+    pub seed: Option<u64>,
+    /// Variants evaluated, the nominal one included.
+    pub variants: usize,
+    pub params: Vec<ParamRange>,
+    pub methods: Vec<RobustRate>,
+}
+
+/// One number format's ceiling for one method.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct FormatCeiling {
+    pub method: String,
+    pub format: String,
+    /// The search started here: the method's `f_star` times the headroom, Hz.
+    pub from_hz: f64,
+    #[serde(flatten)]
+    pub ceiling: Ceiling,
+}
+
+/// What rounding does at the recommended rate, per format.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct FormatAtRate {
+    pub format: String,
+    pub damage: Option<Damage>,
+    pub integral_kept: Option<bool>,
+    pub feasible: bool,
+    pub limiting: Option<String>,
+}
+
+/// The precision ceilings (`pick.json` key `precision`).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct PrecisionReport {
+    /// `df2t` or `sos`.
+    pub structure: String,
+    /// The format that bounds the rate window (the first listed).
+    pub window_format: String,
+    /// Per method (at the design delay) and format.
+    pub ceilings: Vec<FormatCeiling>,
+    /// At the recommended method and rate, per format.
+    pub at_recommended: Vec<FormatAtRate>,
 }
 
 impl PickReport {
@@ -117,15 +205,20 @@ pub fn unsearched(case: &Case, lp: &PreparedLoop) -> PickReport {
         advice: Vec::new(),
         headroom: case.spec.headroom,
         design_delay: case.compute_delays.iter().copied().fold(0.0, f64::max),
+        robust: None,
+        precision: None,
         notes: vec!["sweep only: no search was made".into()],
     }
 }
 
 /// Search every (method, delay) series of a finished sweep and make the
-/// recommendation.
+/// recommendation: on the robust answer when `variants` is given (the
+/// sweep must have been run with the same variants), and with the
+/// precision ceilings when the case has `[arithmetic]`.
 pub fn pick(
     case: &Case,
     lp: &PreparedLoop,
+    variants: Option<&VariantSet>,
     rows: &[SweepRow],
     observer: &dyn SearchObserver,
 ) -> PickReport {
@@ -136,9 +229,9 @@ pub fn pick(
         ..unsearched(case, lp)
     };
     let design_delay = report.design_delay;
-    if case.params.iter().any(|p| p.min < p.max) || case.uncertainty.is_some() {
+    if case.uncertainty.is_none() && case.params.iter().any(|p| p.min < p.max) {
         report.notes.push(
-            "parameter ranges and [uncertainty] are read but not evaluated yet: every figure is for the nominal parameters".into(),
+            "parameter ranges are given but no [uncertainty] mode: every figure is for the nominal parameters".into(),
         );
     }
     if let Some(design) = &lp.design {
@@ -163,19 +256,7 @@ pub fn pick(
         }
     }
 
-    // Series in grid order: (method, delay) -> rows sorted by rate.
-    let mut series: Vec<Vec<&SweepRow>> = Vec::new();
-    for r in rows {
-        match series.last_mut() {
-            Some(s) if s[0].point.method == r.point.method && s[0].point.delay == r.point.delay => {
-                s.push(r)
-            }
-            _ => series.push(vec![r]),
-        }
-    }
-    for s in series.iter_mut() {
-        s.sort_by(|a, b| a.point.rate_hz.total_cmp(&b.point.rate_hz));
-    }
+    let series = series_of(rows);
     report.methods = series
         .par_iter()
         .map(|s| slowest_rate(lp, spec, s, observer))
@@ -186,17 +267,33 @@ pub fn pick(
             m.at_range_floor = false;
         }
     }
+    if let Some(v) = variants {
+        report.robust = Some(robust_report(
+            case,
+            lp,
+            v,
+            &series,
+            &report.methods,
+            observer,
+        ));
+    }
 
-    let best = report
-        .methods
+    // The answer the recommendation rests on: robust when there are variants.
+    let answers: Vec<SlowestRate> = match &report.robust {
+        Some(r) => r.methods.iter().map(|m| m.rate.clone()).collect(),
+        None => report.methods.clone(),
+    };
+    let best = answers
         .iter()
         .filter(|m| m.compute_delay == design_delay)
         .filter_map(|m| m.slowest_rate_hz.map(|f| (m, f)))
         .min_by(|a, b| a.1.total_cmp(&b.1));
     let Some((best, f_star)) = best else {
-        report
-            .notes
-            .push("no method meets the spec at the fastest swept rate".into());
+        report.notes.push(if report.robust.is_some() {
+            "no method meets the spec on every plant variant at the fastest swept rate".into()
+        } else {
+            "no method meets the spec at the fastest swept rate".into()
+        });
         return report;
     };
     let method = case_methods(case)
@@ -254,7 +351,19 @@ pub fn pick(
         }
         None => (None, None),
     };
+    let robust_here = variants.map(|v| {
+        let c = lp.controller_at(rate, method);
+        v.judge(spec, &p, c.as_ref().map_err(String::as_str), false)
+            .1
+    });
+    let worst_figures = robust_here.as_ref().and_then(|r| r.worst_figures.clone());
     report.recommended = Some(Recommended {
+        worst_checks: worst_figures
+            .as_ref()
+            .map(|f| check_figures(f, spec))
+            .unwrap_or_default(),
+        worst_figures,
+        robust_feasible: robust_here.as_ref().map(|r| r.assessment.feasible),
         method: best.method.clone(),
         compute_delay: design_delay,
         slowest_rate_hz: f_star,
@@ -267,48 +376,342 @@ pub fn pick(
         checks: a.checks.clone(),
         feasible: a.feasible,
     });
-    if let (Some(b), Some(c)) = (case.budget.as_ref(), cycles) {
-        let ceiling = budget::ceiling_hz(b, c);
-        let w = RateWindow::new(rate, ceiling);
-        report.cpu_ceiling_hz = Some(ceiling);
+    let cpu = match (case.budget.as_ref(), cycles) {
+        (Some(b), Some(c)) => {
+            let ceiling = budget::ceiling_hz(b, c);
+            report.cpu_ceiling_hz = Some(ceiling);
+            Some((ceiling, c))
+        }
+        _ => None,
+    };
+    if case.arithmetic.is_some() {
+        report.precision = Some(precision_report(
+            case, lp, rows, &answers, method, rate, observer,
+        ));
+    }
+    // The window's top: the lower of the CPU ceiling and the first
+    // format's precision ceiling (one above the swept range bounds nothing).
+    let prec = report.precision.as_ref().and_then(|pr| {
+        pr.ceilings
+            .iter()
+            .find(|c| c.method == best.method && c.format == pr.window_format)
+            .filter(|c| !c.ceiling.above_range)
+            .map(|c| {
+                (
+                    c.ceiling.rate_hz.unwrap_or(c.from_hz.min(rate)),
+                    format!("{} coefficients ({})", c.format, pr.structure),
+                )
+            })
+    });
+    let top = match (cpu, prec) {
+        (Some((cc, _)), Some((pc, name))) if pc < cc => Some((pc, name)),
+        (Some((cc, _)), _) => Some((cc, "cpu budget".to_string())),
+        (None, Some(p)) => Some(p),
+        (None, None) => None,
+    };
+    if let Some((high, bound)) = top {
+        let w = RateWindow::new(rate, high, bound);
         if w.empty {
-            report.advice = empty_window_advice(case, &report, rate, ceiling, c);
+            report.advice = empty_window_advice(case, &report, rate, &w, cpu.map(|c| c.1));
         } else {
-            report.window_hz = Some([rate, ceiling]);
+            report.window_hz = Some([rate, high]);
         }
         report.window = Some(w);
     }
     report
 }
 
+/// Rows grouped by (method, delay) in grid order, each sorted by rate.
+fn series_of(rows: &[SweepRow]) -> Vec<Vec<&SweepRow>> {
+    let mut series: Vec<Vec<&SweepRow>> = Vec::new();
+    for r in rows {
+        match series.last_mut() {
+            Some(s) if s[0].point.method == r.point.method && s[0].point.delay == r.point.delay => {
+                s.push(r)
+            }
+            _ => series.push(vec![r]),
+        }
+    }
+    for s in series.iter_mut() {
+        s.sort_by(|a, b| a.point.rate_hz.total_cmp(&b.point.rate_hz));
+    }
+    series
+}
+
+/// The robust search for every series: the judge evaluates every variant
+/// with the shared controller and keeps the worst.
+fn robust_report(
+    case: &Case,
+    lp: &PreparedLoop,
+    variants: &VariantSet,
+    series: &[Vec<&SweepRow>],
+    nominal: &[SlowestRate],
+    observer: &dyn SearchObserver,
+) -> RobustReport {
+    let spec = &case.spec;
+    let methods = series
+        .par_iter()
+        .zip(nominal.par_iter())
+        .map(|(s, nominal)| {
+            let (method, delay) = (s[0].point.method, s[0].point.delay);
+            let grid: Vec<(f64, &Assessment, usize)> = s
+                .iter()
+                .filter_map(|r| {
+                    r.robust
+                        .as_ref()
+                        .map(|v| (r.point.rate_hz, &v.assessment, v.worst))
+                })
+                .collect();
+            let coarse: Vec<(f64, &Assessment)> = grid.iter().map(|g| (g.0, g.1)).collect();
+            // Every judged rate with its verdict and worst variant.
+            let seen: RefCell<Vec<(f64, Assessment, usize)>> = RefCell::new(Vec::new());
+            let judge = |rate: f64| -> Assessment {
+                let p = Point {
+                    rate_hz: rate,
+                    method,
+                    delay,
+                };
+                let c = lp.controller_at(rate, method);
+                let (_, v) = variants.judge(spec, &p, c.as_ref().map_err(String::as_str), false);
+                observer.evaluated(rate, &v.assessment);
+                seen.borrow_mut()
+                    .push((rate, v.assessment.clone(), v.worst));
+                v.assessment
+            };
+            let mut rate = slowest_rate_by(method, delay, &coarse, &judge);
+            if let Controller::Discrete(_) = &lp.controller {
+                rate.at_range_floor = false;
+            }
+            // The worst variant: where the answer is decided.
+            let mut all: Vec<(f64, Assessment, usize)> =
+                grid.iter().map(|g| (g.0, g.1.clone(), g.2)).collect();
+            all.extend(seen.into_inner());
+            let decisive = match rate.slowest_rate_hz {
+                _ if rate.at_range_floor => all
+                    .iter()
+                    .filter(|a| a.0 == rate.slowest_rate_hz.unwrap_or(f64::NAN))
+                    .min_by(|a, b| a.1.slack.total_cmp(&b.1.slack)),
+                Some(f) => all
+                    .iter()
+                    .filter(|a| a.0 < f && !a.1.feasible)
+                    .max_by(|a, b| a.0.total_cmp(&b.0)),
+                None => all.iter().max_by(|a, b| a.0.total_cmp(&b.0)),
+            };
+            let worst_variant = decisive.map(|d| {
+                variants
+                    .named(d.2)
+                    .into_iter()
+                    .map(|(name, value)| NamedValue { name, value })
+                    .collect()
+            });
+            RobustRate {
+                worst_limiting: decisive.and_then(|d| d.1.limiting.map(str::to_string)),
+                worst_variant,
+                nominal_slowest_rate_hz: nominal.slowest_rate_hz,
+                rate,
+            }
+        })
+        .collect();
+    let (mode, seed) = match case.uncertainty {
+        Some(UncertaintyMode::Samples { seed, .. }) => ("samples", Some(seed)),
+        _ => ("corners", None),
+    };
+    RobustReport {
+        mode: mode.into(),
+        seed,
+        variants: variants.len(),
+        params: case
+            .params
+            .iter()
+            .filter(|p| p.min < p.max)
+            .map(|p| ParamRange {
+                name: p.name.clone(),
+                nominal: p.nominal,
+                min: p.min,
+                max: p.max,
+            })
+            .collect(),
+        methods,
+    }
+}
+
+/// Precision ceilings for every method with an answer at the design delay
+/// (searched upward from its `f_star` times the headroom, on the nominal
+/// plant), and the damage at the recommended rate.
+fn precision_report(
+    case: &Case,
+    lp: &PreparedLoop,
+    rows: &[SweepRow],
+    answers: &[SlowestRate],
+    recommended_method: Option<Method>,
+    recommended_rate: f64,
+    observer: &dyn SearchObserver,
+) -> PrecisionReport {
+    let Some(arith) = case.arithmetic.as_ref() else {
+        unreachable!("precision_report is called only with [arithmetic]")
+    };
+    let spec = &case.spec;
+    let design_delay = case.compute_delays.iter().copied().fold(0.0, f64::max);
+    let plan = Plan::for_case(case, lp, None);
+    let evaluated = plan.formats();
+    let check_hz = lp
+        .design
+        .as_ref()
+        .and_then(|d| d.figures.as_ref())
+        .and_then(|f| f.crossover_hz);
+    let mut jobs: Vec<(Option<Method>, f64, Format)> = Vec::new();
+    for m in case_methods(case) {
+        let Some(f_star) = answers
+            .iter()
+            .find(|a| a.method == method_label(m) && a.compute_delay == design_delay)
+            .and_then(|a| a.slowest_rate_hz)
+        else {
+            continue;
+        };
+        let from = if m == recommended_method {
+            recommended_rate
+        } else {
+            f_star * spec.headroom
+        };
+        for &f in &arith.formats {
+            jobs.push((m, from, f));
+        }
+    }
+    let ceilings = jobs
+        .par_iter()
+        .map(|&(m, from, format)| {
+            let series: Vec<&SweepRow> = rows
+                .iter()
+                .filter(|r| r.point.method == m && r.point.delay == design_delay)
+                .collect();
+            let ceiling = match evaluated.iter().position(|f| *f == format) {
+                None => {
+                    // f64 is the reference: its loop is the nominal loop,
+                    // feasible from f_star up to max_hz by definition.
+                    Ceiling {
+                        rate_hz: Some(case.rates.max_hz.max(from)),
+                        above_range: true,
+                        limiting: None,
+                        evaluations: 0,
+                    }
+                }
+                Some(k) => {
+                    let coarse: Vec<(f64, &Assessment)> = series
+                        .iter()
+                        .map(|r| (r.point.rate_hz, &r.precision[k].assessment))
+                        .collect();
+                    let judge = |rate: f64| -> Assessment {
+                        let p = Point {
+                            rate_hz: rate,
+                            method: m,
+                            delay: design_delay,
+                        };
+                        let a =
+                            precision::judge_point(lp, spec, &p, arith.structure, format, check_hz)
+                                .assessment;
+                        observer.evaluated(rate, &a);
+                        a
+                    };
+                    fastest_rate_by(from, &coarse, &judge)
+                }
+            };
+            FormatCeiling {
+                method: method_label(m),
+                format: format.name(),
+                from_hz: from,
+                ceiling,
+            }
+        })
+        .collect();
+    let p = Point {
+        rate_hz: recommended_rate,
+        method: recommended_method,
+        delay: design_delay,
+    };
+    let at_recommended = arith
+        .formats
+        .par_iter()
+        .map(|&format| {
+            let v = precision::judge_point(lp, spec, &p, arith.structure, format, check_hz);
+            FormatAtRate {
+                format: format.name(),
+                integral_kept: v.damage.as_ref().map(Damage::integral_kept),
+                damage: v.damage,
+                feasible: v.assessment.feasible,
+                limiting: v.assessment.limiting.map(str::to_string),
+            }
+        })
+        .collect();
+    PrecisionReport {
+        structure: arith.structure.name().into(),
+        window_format: arith.formats[0].name(),
+        ceilings,
+        at_recommended,
+    }
+}
+
 fn empty_window_advice(
     case: &Case,
     report: &PickReport,
     rate: f64,
-    ceiling: f64,
-    cycles: f64,
+    window: &RateWindow,
+    cycles: Option<f64>,
 ) -> Vec<String> {
     let mut out = Vec::new();
-    let Some(b) = case.budget.as_ref() else {
-        return out;
-    };
-    out.push(format!(
-        "a faster CPU: at least {:.1} MHz at {} % load",
-        rate * cycles / (b.max_load_pct / 100.0) / 1e6,
-        b.max_load_pct
-    ));
-    out.push(format!(
-        "a cheaper update: at most {:.0} cycles per update (now {:.0})",
-        (b.max_load_pct / 100.0) * b.cpu_hz / rate,
-        cycles
-    ));
-    out.push(format!(
-        "a higher load limit: {:.1} % would be needed",
-        rate * cycles / b.cpu_hz * 100.0
-    ));
+    let ceiling = window.high_hz;
+    if let (Some(b), Some(cycles), Some(cpu)) =
+        (case.budget.as_ref(), cycles, report.cpu_ceiling_hz)
+        && cpu < rate
+    {
+        out.push(format!(
+            "a faster CPU: at least {:.1} MHz at {} % load",
+            rate * cycles / (b.max_load_pct / 100.0) / 1e6,
+            b.max_load_pct
+        ));
+        out.push(format!(
+            "a cheaper update: at most {:.0} cycles per update (now {:.0})",
+            (b.max_load_pct / 100.0) * b.cpu_hz / rate,
+            cycles
+        ));
+        out.push(format!(
+            "a higher load limit: {:.1} % would be needed",
+            rate * cycles / b.cpu_hz * 100.0
+        ));
+    }
+    if let Some(pr) = &report.precision
+        && window.high_bound.contains("coefficients")
+    {
+        let wider: Vec<String> = pr
+            .ceilings
+            .iter()
+            .filter(|c| {
+                report
+                    .recommended
+                    .as_ref()
+                    .is_some_and(|r| r.method == c.method)
+                    && c.format != pr.window_format
+                    && c.ceiling.rate_hz.is_some_and(|h| h >= rate)
+            })
+            .map(|c| c.format.clone())
+            .collect();
+        out.push(if wider.is_empty() {
+            format!(
+                "wider coefficients or another structure than {} {}: the rounded controller fails at the recommended rate",
+                pr.window_format, pr.structure
+            )
+        } else {
+            format!(
+                "a wider number format: {} holds the recommended rate",
+                wider.join(", ")
+            )
+        });
+    }
     if let Some(r) = &report.recommended {
-        let lim = report
-            .methods
+        let answers: Vec<&SlowestRate> = match &report.robust {
+            Some(rb) => rb.methods.iter().map(|m| &m.rate).collect(),
+            None => report.methods.iter().collect(),
+        };
+        let lim = answers
             .iter()
             .find(|m| m.method == r.method && m.compute_delay == r.compute_delay)
             .and_then(|m| m.limiting.clone())
@@ -332,7 +735,7 @@ fn empty_window_advice(
         .collect();
     if !shorter.is_empty() {
         out.push(format!(
-            "a shorter computation delay fits the budget: {}",
+            "a shorter computation delay fits the window: {}",
             shorter.join(", ")
         ));
     }

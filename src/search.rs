@@ -9,7 +9,7 @@
 //! whole oscillation, a crossing appearing) Brent's bracket still holds,
 //! and the guard falls back to plain bisection.
 
-use std::cell::{Cell, RefCell};
+use std::cell::Cell;
 
 use serde::Serialize;
 
@@ -59,7 +59,8 @@ pub fn method_label(m: Option<Method>) -> String {
     m.map_or_else(|| "given-in-z".to_string(), |m| m.name().to_string())
 }
 
-/// `f_star` for the rows of one (method, delay) series, sorted by rate.
+/// `f_star` for the rows of one (method, delay) series, sorted by rate,
+/// judged on the nominal loop.
 pub fn slowest_rate(
     lp: &PreparedLoop,
     spec: &Spec,
@@ -69,6 +70,33 @@ pub fn slowest_rate(
     let (method, delay) = rows
         .first()
         .map_or((None, 0.0), |r| (r.point.method, r.point.delay));
+    let series: Vec<(f64, &Assessment)> = rows
+        .iter()
+        .map(|r| (r.point.rate_hz, &r.assessment))
+        .collect();
+    let judge = |rate: f64| -> Assessment {
+        let p = Point {
+            rate_hz: rate,
+            method,
+            delay,
+        };
+        let a = assess(&lp.sampled(&p), spec);
+        observer.evaluated(rate, &a);
+        a
+    };
+    slowest_rate_by(method, delay, &series, &judge)
+}
+
+/// `f_star` for one (method, delay) series: `series` holds the coarse
+/// sweep's verdicts `(rate_hz, assessment)` sorted by rate, and `judge`
+/// gives the verdict at any other rate (the nominal loop, or the worst of
+/// several plant variants).
+pub fn slowest_rate_by(
+    method: Option<Method>,
+    delay: f64,
+    series: &[(f64, &Assessment)],
+    judge: &dyn Fn(f64) -> Assessment,
+) -> SlowestRate {
     let mut answer = SlowestRate {
         method: method_label(method),
         compute_delay: delay,
@@ -78,39 +106,30 @@ pub fn slowest_rate(
         evaluations: 0,
         at_range_floor: false,
     };
-    let Some(last) = rows.last() else {
+    let Some(last) = series.last() else {
         return answer;
     };
-    if !last.assessment.feasible {
-        answer.limiting = last.assessment.limiting.map(str::to_string);
-        answer.islands = islands(rows, rows.len() - 1);
+    if !last.1.feasible {
+        answer.limiting = last.1.limiting.map(str::to_string);
+        answer.islands = islands(series, series.len() - 1);
         return answer;
     }
-    let Some(i_bad) = rows.iter().rposition(|r| !r.assessment.feasible) else {
-        answer.slowest_rate_hz = Some(rows[0].point.rate_hz);
-        answer.limiting = rows[0].assessment.limiting.map(str::to_string);
+    let Some(i_bad) = series.iter().rposition(|r| !r.1.feasible) else {
+        answer.slowest_rate_hz = Some(series[0].0);
+        answer.limiting = series[0].1.limiting.map(str::to_string);
         answer.at_range_floor = true;
         return answer;
     };
-    answer.islands = islands(rows, i_bad);
+    answer.islands = islands(series, i_bad);
 
     let count = Cell::new(0usize);
-    let last_eval: RefCell<Option<(f64, Assessment)>> = RefCell::new(None);
     let judge = |rate: f64| -> Assessment {
         count.set(count.get() + 1);
-        let p = Point {
-            rate_hz: rate,
-            method,
-            delay,
-        };
-        let a = assess(&lp.sampled(&p), spec);
-        observer.evaluated(rate, &a);
-        *last_eval.borrow_mut() = Some((rate, a.clone()));
-        a
+        judge(rate)
     };
-    let mut lo = rows[i_bad].point.rate_hz;
-    let mut hi = rows[i_bad + 1].point.rate_hz;
-    let mut lo_assessment = rows[i_bad].assessment.clone();
+    let mut lo = series[i_bad].0;
+    let mut hi = series[i_bad + 1].0;
+    let mut lo_assessment = series[i_bad].1.clone();
     let ln_tol = (1.0 + RATE_TOLERANCE).ln() / 4.0;
 
     // Brent on the limiting slack; its answer x sits next to the sign
@@ -155,14 +174,80 @@ pub fn slowest_rate(
     answer
 }
 
+/// The top of a run of passing rates: the highest rate `f` such that every
+/// rate in `[from_hz, f]` passes.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Ceiling {
+    /// The ceiling, Hz; None when `from_hz` itself fails.
+    pub rate_hz: Option<f64>,
+    /// True when every swept rate from `from_hz` up passes: the ceiling is
+    /// at or above the sweep's top rate, which is what `rate_hz` holds.
+    pub above_range: bool,
+    /// What fails just above the ceiling (or at `from_hz`).
+    pub limiting: Option<String>,
+    /// Evaluations the refinement used beyond the coarse sweep.
+    pub evaluations: usize,
+}
+
+/// The ceiling above `from_hz` from the coarse sweep's verdicts `series`
+/// (sorted by rate) refined by bisection in ln f to [`RATE_TOLERANCE`]:
+/// the passing side of the final bracket is reported. Bisection, not
+/// Brent: what ends a run of passing rates (a coefficient rounding onto
+/// z = 1) is a step, not a smooth slack.
+pub fn fastest_rate_by(
+    from_hz: f64,
+    series: &[(f64, &Assessment)],
+    judge: &dyn Fn(f64) -> Assessment,
+) -> Ceiling {
+    let mut evaluations = 1usize;
+    let start = judge(from_hz);
+    if !start.feasible {
+        return Ceiling {
+            rate_hz: None,
+            above_range: false,
+            limiting: start.limiting.map(str::to_string),
+            evaluations,
+        };
+    }
+    let above: Vec<&(f64, &Assessment)> = series.iter().filter(|r| r.0 > from_hz).collect();
+    let Some(i) = above.iter().position(|r| !r.1.feasible) else {
+        return Ceiling {
+            rate_hz: Some(above.last().map_or(from_hz, |r| r.0)),
+            above_range: true,
+            limiting: None,
+            evaluations,
+        };
+    };
+    let mut hi = above[i].0;
+    let mut hi_assessment = above[i].1.clone();
+    let mut lo = if i > 0 { above[i - 1].0 } else { from_hz };
+    while hi / lo - 1.0 > RATE_TOLERANCE {
+        let mid = (lo * hi).sqrt();
+        evaluations += 1;
+        let a = judge(mid);
+        if a.feasible {
+            lo = mid;
+        } else {
+            hi = mid;
+            hi_assessment = a;
+        }
+    }
+    Ceiling {
+        rate_hz: Some(lo),
+        above_range: false,
+        limiting: hi_assessment.limiting.map(str::to_string),
+        evaluations,
+    }
+}
+
 /// Feasible runs of grid rates strictly below index `below`.
-fn islands(rows: &[&SweepRow], below: usize) -> Vec<[f64; 2]> {
+fn islands(series: &[(f64, &Assessment)], below: usize) -> Vec<[f64; 2]> {
     let mut out = Vec::new();
     let mut start: Option<f64> = None;
     let mut prev = 0.0;
-    for r in &rows[..below] {
-        let f = r.point.rate_hz;
-        if r.assessment.feasible {
+    for r in &series[..below] {
+        let f = r.0;
+        if r.1.feasible {
             if start.is_none() {
                 start = Some(f);
             }

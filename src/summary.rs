@@ -279,8 +279,62 @@ pub fn pick_text(r: &PickReport) -> String {
             if isl.is_empty() { "-".into() } else { isl }
         );
     }
+    if let Some(rb) = &r.robust {
+        let ranges = rb
+            .params
+            .iter()
+            .map(|p| format!("{} in [{}, {}]", p.name, fmt_num(p.min), fmt_num(p.max)))
+            .collect::<Vec<_>>()
+            .join(", ");
+        let how = match rb.seed {
+            Some(seed) => format!("a Latin hypercube sample (seed {seed})"),
+            None => "every corner".into(),
+        };
+        let _ = writeln!(
+            s,
+            "\nOver {} plant variants (the nominal one and {how} of {ranges}):",
+            rb.variants
+        );
+        let _ = writeln!(
+            s,
+            "{:<16}{:>8}{:>16}{:>14}{:>22}  worst variant",
+            "method", "delay", "robust (Hz)", "nominal (Hz)", "limiting"
+        );
+        for m in &rb.methods {
+            let slow = match (m.rate.slowest_rate_hz, m.rate.at_range_floor) {
+                (Some(f), true) => format!("<= {}", fmt_num(f)),
+                (Some(f), false) => fmt_num(f),
+                (None, _) => "none".into(),
+            };
+            let worst = m
+                .worst_variant
+                .as_ref()
+                .map(|v| {
+                    v.iter()
+                        .map(|n| format!("{} = {}", n.name, fmt_num(n.value)))
+                        .collect::<Vec<_>>()
+                        .join(", ")
+                })
+                .unwrap_or_default();
+            let _ = writeln!(
+                s,
+                "{:<16}{:>8}{:>16}{:>14}{:>22}  {}",
+                m.rate.method,
+                m.rate.compute_delay,
+                slow,
+                fmt_opt(m.nominal_slowest_rate_hz, "none"),
+                m.worst_limiting.clone().unwrap_or_default(),
+                worst
+            );
+        }
+    }
     let _ = writeln!(s);
     if let Some(rec) = &r.recommended {
+        let basis = if r.robust.is_some() {
+            "slowest rate passing on every variant"
+        } else {
+            "slowest passing rate"
+        };
         if rec.method == "given-in-z" {
             let _ = writeln!(
                 s,
@@ -292,7 +346,7 @@ pub fn pick_text(r: &PickReport) -> String {
         } else {
             let _ = writeln!(
                 s,
-                "Recommended: {} at {} Hz (T = {} s), computation delay {} of a period; slowest passing rate {} Hz times headroom {} (the headroom covers model error).",
+                "Recommended: {} at {} Hz (T = {} s), computation delay {} of a period; {basis} {} Hz times headroom {} (the headroom covers model error).",
                 rec.method,
                 fmt_num(rec.rate_hz),
                 fmt_num(rec.period_s),
@@ -312,29 +366,93 @@ pub fn pick_text(r: &PickReport) -> String {
                 fmt_opt(rec.cycles_per_update, "?")
             );
         }
+        let robust = r.robust.is_some();
         let _ = writeln!(
             s,
-            "\n{:<22}{:>14}{:>12}{:>10}",
-            "figure", "value", "limit", "slack"
+            "\n{:<22}{:>14}{:>12}{:>10}{}",
+            "figure",
+            "value",
+            "limit",
+            "slack",
+            if robust { "    worst variant" } else { "" }
         );
         for c in &rec.checks {
+            let worst = rec
+                .worst_checks
+                .iter()
+                .find(|w| w.figure == c.figure)
+                .map(|w| format!("{:>17}", fmt_opt(w.value, "none")))
+                .unwrap_or_else(|| {
+                    if robust {
+                        format!("{:>17}", "unstable")
+                    } else {
+                        String::new()
+                    }
+                });
             let _ = writeln!(
                 s,
-                "{:<22}{:>14}{:>12}{:>9.1}%",
+                "{:<22}{:>14}{:>12}{:>9.1}%{}",
                 c.figure,
                 fmt_opt(c.value, "none"),
                 fmt_num(c.limit),
-                c.slack * 100.0
+                c.slack * 100.0,
+                worst
             );
         }
     }
-    if let (Some(w), Some(ceil)) = (&r.window, r.cpu_ceiling_hz) {
+    if let Some(pr) = &r.precision {
+        let _ = writeln!(
+            s,
+            "\nCoefficients in {} (at the recommended rate; ceiling for the recommended method):",
+            pr.structure
+        );
+        let _ = writeln!(
+            s,
+            "{:<8}{:>9}{:>14}{:>14}{:>10}{:>10}{:>16}  above it",
+            "format", "Q", "pole err %", "DC gain err %", "integral", "passes", "ceiling (Hz)"
+        );
+        let method = r.recommended.as_ref().map(|x| x.method.clone());
+        for a in &pr.at_recommended {
+            let d = a.damage.as_ref();
+            let ceil = pr
+                .ceilings
+                .iter()
+                .find(|c| Some(&c.method) == method.as_ref() && c.format == a.format);
+            let (ceil_text, above) = match ceil.map(|c| &c.ceiling) {
+                Some(c) if c.above_range => (
+                    format!(">= {}", fmt_num(c.rate_hz.unwrap_or(f64::NAN))),
+                    String::new(),
+                ),
+                Some(c) => (
+                    fmt_opt(c.rate_hz, "none"),
+                    c.limiting.clone().unwrap_or_default(),
+                ),
+                None => ("-".into(), String::new()),
+            };
+            let _ = writeln!(
+                s,
+                "{:<8}{:>9}{:>14}{:>14}{:>10}{:>10}{:>16}  {}",
+                a.format,
+                d.and_then(|d| d.q_format.clone())
+                    .unwrap_or_else(|| "-".into()),
+                d.map_or("-".into(), |d| fmt_num(d.pole_error_pct)),
+                d.map_or("-".into(), |d| fmt_opt(d.dc_gain_error_pct, "changed")),
+                a.integral_kept
+                    .map_or("-".into(), |k| if k { "kept" } else { "LOST" }.to_string()),
+                if a.feasible { "yes" } else { "NO" },
+                ceil_text,
+                above
+            );
+        }
+    }
+    if let Some(w) = &r.window {
         if w.empty {
             let _ = writeln!(
                 s,
-                "\nNO RATE WINDOW: the spec needs at least {} Hz but the CPU budget allows at most {} Hz.",
+                "\nNO RATE WINDOW: the spec needs at least {} Hz but the {} allows at most {} Hz.",
                 fmt_num(w.low_hz),
-                fmt_num(ceil)
+                w.high_bound,
+                fmt_num(w.high_hz)
             );
             let _ = writeln!(s, "What would open it:");
             for a in &r.advice {
@@ -343,9 +461,10 @@ pub fn pick_text(r: &PickReport) -> String {
         } else {
             let _ = writeln!(
                 s,
-                "\nRate window: {} Hz to {} Hz (spec with headroom .. CPU budget).",
+                "\nRate window: {} Hz to {} Hz (spec with headroom .. {}).",
                 fmt_num(w.low_hz),
-                fmt_num(w.high_hz)
+                fmt_num(w.high_hz),
+                w.high_bound
             );
         }
     }

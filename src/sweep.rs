@@ -8,20 +8,97 @@
 use rayon::prelude::*;
 
 use crate::budget;
-use crate::case::{Budget, Spec};
+use crate::case::{Arithmetic, Budget, Case, Spec};
 use crate::discretize::Method;
 use crate::evaluate::{Evaluation, Point, PreparedLoop};
 use crate::feasibility::{Assessment, assess};
+use crate::precision::{self, Format, PrecisionPoint, Structure};
+use crate::variants::{RobustPoint, VariantSet};
 
 /// One evaluated grid point.
 #[derive(Debug, Clone)]
 pub struct SweepRow {
     pub point: Point,
+    /// The nominal loop's evaluation and verdict.
     pub eval: Evaluation,
     pub assessment: Assessment,
     /// CPU load at this rate, percent (None without a budget, or when the
     /// cycles are estimated and the controller could not be built).
     pub cpu_load_pct: Option<f64>,
+    /// The verdict over every plant variant, when the case has
+    /// `[uncertainty]`.
+    pub robust: Option<RobustPoint>,
+    /// One verdict per number format of `[arithmetic]` other than f64 (the
+    /// reference, whose loop is the nominal one), in case order.
+    pub precision: Vec<PrecisionPoint>,
+}
+
+/// What a sweep evaluates at each point: the nominal loop, and optionally
+/// every plant variant and every coefficient format.
+#[derive(Debug, Clone, Copy)]
+pub struct Plan<'a> {
+    pub lp: &'a PreparedLoop,
+    pub spec: &'a Spec,
+    pub budget: Option<&'a Budget>,
+    pub variants: Option<&'a VariantSet>,
+    pub arithmetic: Option<&'a Arithmetic>,
+    /// Keep every variant's evaluation (for `--variants`).
+    pub keep_variants: bool,
+}
+
+impl<'a> Plan<'a> {
+    /// The nominal loop only.
+    pub fn nominal(lp: &'a PreparedLoop, spec: &'a Spec, budget: Option<&'a Budget>) -> Self {
+        Plan {
+            lp,
+            spec,
+            budget,
+            variants: None,
+            arithmetic: None,
+            keep_variants: false,
+        }
+    }
+
+    /// Everything the case asks for: its variants (when `variants` is
+    /// given) and its `[arithmetic]` formats.
+    pub fn for_case(
+        case: &'a Case,
+        lp: &'a PreparedLoop,
+        variants: Option<&'a VariantSet>,
+    ) -> Self {
+        Plan {
+            lp,
+            spec: &case.spec,
+            budget: case.budget.as_ref(),
+            variants,
+            arithmetic: case.arithmetic.as_ref(),
+            keep_variants: false,
+        }
+    }
+
+    /// The formats actually evaluated (f64 is the reference and skipped).
+    pub fn formats(&self) -> Vec<Format> {
+        self.arithmetic
+            .map(|a| {
+                a.formats
+                    .iter()
+                    .copied()
+                    .filter(|f| *f != Format::F64)
+                    .collect()
+            })
+            .unwrap_or_default()
+    }
+
+    /// Where the rounded controller's gain error is measured: the
+    /// continuous design's crossover, else the nominal loop's at the point.
+    pub fn check_hz(&self, nominal: &Evaluation) -> Option<f64> {
+        self.lp
+            .design
+            .as_ref()
+            .and_then(|d| d.figures.as_ref())
+            .and_then(|f| f.crossover_hz)
+            .or_else(|| nominal.figures.as_ref().and_then(|f| f.crossover_hz))
+    }
 }
 
 /// The grid, ordered by method, then delay, then ascending rate.
@@ -42,39 +119,50 @@ pub fn grid(rates: &[f64], methods: &[Option<Method>], delays: &[f64]) -> Vec<Po
 }
 
 /// Evaluate and judge one point.
-pub fn evaluate_row(
-    lp: &PreparedLoop,
-    spec: &Spec,
-    budget: Option<&Budget>,
-    p: &Point,
-) -> SweepRow {
-    let eval = lp.sampled(p);
-    let assessment = assess(&eval, spec);
-    let cpu_load_pct = budget.and_then(|b| {
-        let c = lp.controller_at(p.rate_hz, p.method).ok();
-        budget::cycles_per_update(b, c.as_ref()).map(|cy| budget::load_pct(b, cy, p.rate_hz))
+pub fn evaluate_row(plan: &Plan, p: &Point) -> SweepRow {
+    let lp = plan.lp;
+    let controller = lp.controller_at(p.rate_hz, p.method);
+    let (eval, robust) = match plan.variants {
+        Some(v) => {
+            let (e, r) = v.judge(
+                plan.spec,
+                p,
+                controller.as_ref().map_err(String::as_str),
+                plan.keep_variants,
+            );
+            (e, Some(r))
+        }
+        None => (lp.sampled(p), None),
+    };
+    let assessment = assess(&eval, plan.spec);
+    let cpu_load_pct = plan.budget.and_then(|b| {
+        budget::cycles_per_update(b, controller.as_ref().ok())
+            .map(|cy| budget::load_pct(b, cy, p.rate_hz))
     });
+    let structure = plan.arithmetic.map_or(Structure::Df2t, |a| a.structure);
+    let check_hz = plan.check_hz(&eval);
+    let precision = plan
+        .formats()
+        .into_par_iter()
+        .map(|f| precision::judge_point(lp, plan.spec, p, structure, f, check_hz))
+        .collect();
     SweepRow {
         point: *p,
         eval,
         assessment,
         cpu_load_pct,
+        robust,
+        precision,
     }
 }
 
 /// Evaluate every point in parallel on the current rayon pool; `on_done`
 /// is called once per finished point (progress display).
-pub fn run(
-    lp: &PreparedLoop,
-    spec: &Spec,
-    budget: Option<&Budget>,
-    points: &[Point],
-    on_done: &(dyn Fn() + Sync),
-) -> Vec<SweepRow> {
+pub fn run(plan: &Plan, points: &[Point], on_done: &(dyn Fn() + Sync)) -> Vec<SweepRow> {
     points
         .par_iter()
         .map(|p| {
-            let row = evaluate_row(lp, spec, budget, p);
+            let row = evaluate_row(plan, p);
             on_done();
             row
         })

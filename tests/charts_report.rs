@@ -73,8 +73,12 @@ fn run(text: &str, dir: &Path) -> Run {
     let case = Case::load(&path).unwrap();
     let lp = prepare(&case).unwrap();
     let grid = case_grid(&case, &lp);
-    let rows = sweep::run(&lp, &case.spec, case.budget.as_ref(), &grid, &|| {});
-    let report = pick(&case, &lp, &rows, &Silent);
+    let rows = sweep::run(
+        &sweep::Plan::nominal(&lp, &case.spec, case.budget.as_ref()),
+        &grid,
+        &|| {},
+    );
+    let report = pick(&case, &lp, None, &rows, &Silent);
     Run {
         case,
         lp,

@@ -21,8 +21,12 @@ fn demo(name: &str) -> Case {
 fn picked(name: &str) -> (Case, PreparedLoop, PickReport) {
     let c = demo(name);
     let lp = prepare(&c).unwrap();
-    let rows = sweep::run(&lp, &c.spec, c.budget.as_ref(), &case_grid(&c, &lp), &|| {});
-    let report = pick(&c, &lp, &rows, &Silent);
+    let rows = sweep::run(
+        &sweep::Plan::nominal(&lp, &c.spec, c.budget.as_ref()),
+        &case_grid(&c, &lp),
+        &|| {},
+    );
+    let report = pick(&c, &lp, None, &rows, &Silent);
     (c, lp, report)
 }
 
@@ -69,7 +73,7 @@ fn search_matches_a_dense_scan_on_three_demo_cases() {
             .filter(|m| m.compute_delay == report.design_delay)
         {
             let pts = sweep::grid(&scan, &[m.method.parse().ok()], &[m.compute_delay]);
-            let dense = sweep::run(&lp, &c.spec, None, &pts, &|| {});
+            let dense = sweep::run(&sweep::Plan::nominal(&lp, &c.spec, None), &pts, &|| {});
             let i = dense
                 .iter()
                 .rposition(|r| !r.assessment.feasible)

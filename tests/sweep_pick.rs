@@ -58,10 +58,22 @@ fn every_point_has_a_row_and_threads_do_not_change_a_byte() {
     // 40 rates x 3 methods x 2 delays, including unstable points and the
     // points where tustin-prewarp cannot run (w0 T >= pi below 800 Hz).
     assert_eq!(points.len(), 40 * 3 * 2);
-    let one = pool(1).install(|| sweep::run(&lp, &c.spec, c.budget.as_ref(), &points, &|| {}));
-    let two = pool(2).install(|| sweep::run(&lp, &c.spec, c.budget.as_ref(), &points, &|| {}));
+    let one = pool(1).install(|| {
+        sweep::run(
+            &sweep::Plan::nominal(&lp, &c.spec, c.budget.as_ref()),
+            &points,
+            &|| {},
+        )
+    });
+    let two = pool(2).install(|| {
+        sweep::run(
+            &sweep::Plan::nominal(&lp, &c.spec, c.budget.as_ref()),
+            &points,
+            &|| {},
+        )
+    });
     assert_eq!(one.len(), points.len());
-    let (a, b) = (sweep_csv(&one), sweep_csv(&two));
+    let (a, b) = (sweep_csv(&one, None), sweep_csv(&two, None));
     assert_eq!(a, b, "sweep.csv differs between 1 and 2 threads");
     let text = String::from_utf8(a).unwrap();
     assert_eq!(text.lines().count(), 1 + points.len());
@@ -84,8 +96,12 @@ fn search_agrees_with_a_brute_force_scan() {
     let c = case();
     let lp = prepare(&c).unwrap();
     let points = case_grid(&c, &lp);
-    let rows = sweep::run(&lp, &c.spec, c.budget.as_ref(), &points, &|| {});
-    let report = pick(&c, &lp, &rows, &Silent);
+    let rows = sweep::run(
+        &sweep::Plan::nominal(&lp, &c.spec, c.budget.as_ref()),
+        &points,
+        &|| {},
+    );
+    let report = pick(&c, &lp, None, &rows, &Silent);
     let n = 3000;
     let (lo, hi) = (c.rates.min_hz, c.rates.max_hz);
     let scan: Vec<f64> = (0..n)
@@ -94,7 +110,7 @@ fn search_agrees_with_a_brute_force_scan() {
     for m in &report.methods {
         let method = m.method.parse().ok();
         let pts = sweep::grid(&scan, &[method], &[m.compute_delay]);
-        let dense = sweep::run(&lp, &c.spec, None, &pts, &|| {});
+        let dense = sweep::run(&sweep::Plan::nominal(&lp, &c.spec, None), &pts, &|| {});
         let last_bad = dense.iter().rposition(|r| !r.assessment.feasible);
         match (last_bad, m.slowest_rate_hz) {
             (Some(i), Some(f)) if i + 1 < n => {
@@ -166,9 +182,13 @@ timer_hz = 1e6
 "#;
     let c = Case::parse(text, Path::new("z.toml")).unwrap();
     let lp = prepare(&c).unwrap();
-    let rows = sweep::run(&lp, &c.spec, c.budget.as_ref(), &case_grid(&c, &lp), &|| {});
+    let rows = sweep::run(
+        &sweep::Plan::nominal(&lp, &c.spec, c.budget.as_ref()),
+        &case_grid(&c, &lp),
+        &|| {},
+    );
     assert_eq!(rows.len(), 1);
-    let report = pick(&c, &lp, &rows, &Silent);
+    let report = pick(&c, &lp, None, &rows, &Silent);
     let rec = report.recommended.unwrap();
     assert_eq!(rec.rate_hz, 20.0);
     assert_eq!(rec.timer_divider, Some(50_000));

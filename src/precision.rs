@@ -1,0 +1,759 @@
+//! Coefficient precision: the discretized controller as it is stored on
+//! the processor, in a number format (f64, f32, or a fixed-point word)
+//! and a structure (one direct form II transposed section, or a cascade
+//! of second-order sections), and what the rounding does to it.
+//!
+//! At fast rates the controller's poles crowd against z = 1, so a fixed
+//! absolute rounding step is a growing fraction of each pole's distance to
+//! 1: the pole moves, its continuous equivalent moves more, and at some
+//! rate a pole rounds onto z = 1 (a lag becomes an integrator) or an
+//! integrator rounds off it. This module quantizes the coefficients and
+//! measures the damage; the loop with the quantized controller is then
+//! evaluated like any other (`evaluate::PreparedLoop::sampled_with`).
+//!
+//! Rounding rules (stated so tests can derive thresholds by hand):
+//! - `f32`: round to nearest, ties to even (IEEE 754 binary32).
+//! - `qN` (a signed word of N+1 bits: sign and N magnitude bits): the
+//!   coefficient set gets `m >= 0` integer bits and `N - m` fraction bits,
+//!   the fewest `m` for which every rounded coefficient fits the word; a
+//!   coefficient rounds to the nearest multiple of `2^-(N-m)`, ties away
+//!   from zero. The format is reported as `Qm.f` (`Q1.14` for a 16-bit
+//!   word holding coefficients up to 2 in magnitude).
+//! - In the `sos` structure the sections' numerators are normalised to a
+//!   leading 1, and the overall gain is a separate scalar stored with its
+//!   own binary exponent (a mantissa of N+1 bits, or f32), as fixed-point
+//!   code does with a gain and a shift.
+//! - `f64` is the reference: its rounding (about 1e-16 relative) is what
+//!   the other formats are measured against, so its controller is the
+//!   exact one.
+
+use std::fmt;
+use std::str::FromStr;
+
+use serde::Serialize;
+
+use crate::case::Spec;
+use crate::evaluate::{Point, PreparedLoop};
+use crate::feasibility::{Assessment, UNSTABLE_SLACK, assess};
+use crate::poly::{C64, Poly};
+use crate::tf::{Controller, DiscreteTf, Tf};
+
+/// A number format for the stored coefficients.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum Format {
+    /// IEEE 754 binary64: the reference.
+    F64,
+    /// IEEE 754 binary32.
+    F32,
+    /// Signed fixed point with `magnitude_bits` bits besides the sign
+    /// (`q15` is a 16-bit word, `q31` a 32-bit word).
+    Fixed { magnitude_bits: u32 },
+}
+
+/// Fewest and most magnitude bits accepted for `qN` (a 4- to 32-bit word).
+pub const FIXED_BITS: std::ops::RangeInclusive<u32> = 3..=31;
+
+impl Format {
+    /// Name in files and output: `f64`, `f32`, `q15`.
+    pub fn name(&self) -> String {
+        match self {
+            Format::F64 => "f64".into(),
+            Format::F32 => "f32".into(),
+            Format::Fixed { magnitude_bits } => format!("q{magnitude_bits}"),
+        }
+    }
+}
+
+impl fmt::Display for Format {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(&self.name())
+    }
+}
+
+impl FromStr for Format {
+    type Err = String;
+    fn from_str(s: &str) -> Result<Self, String> {
+        match s {
+            "f64" => Ok(Format::F64),
+            "f32" => Ok(Format::F32),
+            _ => {
+                let bits = s
+                    .strip_prefix('q')
+                    .and_then(|b| b.parse::<u32>().ok())
+                    .filter(|b| FIXED_BITS.contains(b));
+                bits.map(|magnitude_bits| Format::Fixed { magnitude_bits })
+                    .ok_or_else(|| {
+                        format!(
+                            "unknown number format `{s}`; expected \"f64\", \"f32\" or \"qN\" with N from {} to {} (q15: 16-bit word, q31: 32-bit word)",
+                            FIXED_BITS.start(),
+                            FIXED_BITS.end()
+                        )
+                    })
+            }
+        }
+    }
+}
+
+/// How the controller's difference equation is arranged on the target.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Structure {
+    /// One direct form II transposed section of the full order.
+    Df2t,
+    /// A cascade of second-order sections (each in direct form II
+    /// transposed) and one gain.
+    Sos,
+}
+
+impl Structure {
+    /// Name in files and output.
+    pub fn name(&self) -> &'static str {
+        match self {
+            Structure::Df2t => "df2t",
+            Structure::Sos => "sos",
+        }
+    }
+}
+
+impl FromStr for Structure {
+    type Err = String;
+    fn from_str(s: &str) -> Result<Self, String> {
+        match s {
+            "df2t" => Ok(Structure::Df2t),
+            "sos" => Ok(Structure::Sos),
+            _ => Err(format!(
+                "unknown structure `{s}`; expected \"df2t\" or \"sos\""
+            )),
+        }
+    }
+}
+
+/// One section in powers of `q = z^-1`: `(b0 + b1 q + ...) / (1 + a1 q + ...)`.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Section {
+    /// Numerator coefficients, ascending in q.
+    pub b: Vec<f64>,
+    /// Denominator coefficients after the leading 1, ascending in q (`a1, a2, ...`).
+    pub a: Vec<f64>,
+}
+
+/// A controller arranged in a structure: `gain * q^delay * prod sections`.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Realization {
+    pub gain: f64,
+    /// Whole samples of pure delay (the controller's relative degree).
+    pub delay: usize,
+    pub sections: Vec<Section>,
+}
+
+/// What rounding did to one controller.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Damage {
+    /// The fixed-point format chosen, e.g. `Q1.14` (None for floats).
+    pub q_format: Option<String>,
+    /// Largest move of a controller pole in the z-plane.
+    pub pole_shift: f64,
+    /// Largest move of a controller zero in the z-plane.
+    pub zero_shift: f64,
+    /// Largest relative error of a pole's continuous equivalent
+    /// `ln(z) / T`, percent (poles at z = 1 and z = 0 excluded).
+    pub pole_error_pct: f64,
+    /// Relative error of the DC gain (or, with integrators, of
+    /// `lim (z-1)^k C(z)` at z = 1), percent; None when the number of
+    /// poles at z = 1 changed.
+    pub dc_gain_error_pct: Option<f64>,
+    /// Relative error of |C| at the check frequency (the loop's
+    /// crossover), percent.
+    pub crossover_gain_error_pct: Option<f64>,
+    /// Poles exactly at z = 1 in the exact controller.
+    pub integrators: usize,
+    /// Poles exactly at z = 1 after rounding.
+    pub integrators_after: usize,
+    /// Poles outside the unit circle after rounding, beyond those of the
+    /// exact controller.
+    pub new_unstable_poles: usize,
+}
+
+impl Damage {
+    /// True when the exact controller's integral action survives rounding
+    /// (as many poles exactly at z = 1 as before).
+    pub fn integral_kept(&self) -> bool {
+        self.integrators_after >= self.integrators
+    }
+
+    /// The structural failure, if any: integral action lost, a pole
+    /// rounded onto z = 1, or a pole pushed out of the unit circle. These
+    /// change what the controller is, whatever the loop figures say.
+    pub fn structural_failure(&self) -> Option<&'static str> {
+        if self.integrators_after < self.integrators {
+            Some("integral_action")
+        } else if self.integrators_after > self.integrators {
+            Some("pole_on_z1")
+        } else if self.new_unstable_poles > 0 {
+            Some("controller_pole_outside")
+        } else {
+            None
+        }
+    }
+}
+
+/// A controller after rounding: the transfer function its rounded
+/// coefficients realise, and the damage measured.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Quantized {
+    pub controller: DiscreteTf,
+    pub realization: Realization,
+    pub damage: Damage,
+}
+
+/// Arrange `c` in `structure` with exact (f64) coefficients.
+/// `integrators` is the number of poles the controller has at z = 1 by
+/// design (the continuous controller's poles at s = 0); those poles are
+/// placed exactly at 1 in the `sos` factors.
+pub fn realize(
+    c: &DiscreteTf,
+    structure: Structure,
+    integrators: usize,
+) -> Result<Realization, String> {
+    let n = c.tf.den.degree();
+    let m = c.tf.num.degree();
+    if c.tf.num.is_zero() {
+        return Err("the controller is identically zero".into());
+    }
+    if m > n {
+        return Err("the controller is not proper".into());
+    }
+    match structure {
+        Structure::Df2t => {
+            let d = c.tf.den.descending();
+            let lead = d[0];
+            let mut b = vec![0.0; n - m];
+            b.extend(c.tf.num.descending());
+            Ok(Realization {
+                gain: 1.0,
+                delay: 0,
+                sections: vec![Section {
+                    b: b.iter().map(|v| v / lead).collect(),
+                    a: d[1..].iter().map(|v| v / lead).collect(),
+                }],
+            })
+        }
+        Structure::Sos => {
+            let mut poles =
+                c.tf.den
+                    .roots()
+                    .ok_or("the controller's poles could not be found")?;
+            snap_to_one(&mut poles, integrators);
+            let zeros =
+                c.tf.num
+                    .roots()
+                    .ok_or("the controller's zeros could not be found")?;
+            let gain = c.tf.num.leading() / c.tf.den.leading();
+            // Integrators get sections of their own (`1 - q` or
+            // `1 - 2q + q^2`), whose coefficients every format holds
+            // exactly, so rounding never moves them off z = 1.
+            let one = C64::new(1.0, 0.0);
+            let others: Vec<C64> = poles.iter().copied().filter(|p| *p != one).collect();
+            let k = poles.len() - others.len();
+            let mut pole_factors: Vec<(C64, Vec<f64>)> =
+                (0..k / 2).map(|_| (one, vec![1.0, -2.0, 1.0])).collect();
+            if k % 2 == 1 {
+                pole_factors.push((one, vec![1.0, -1.0]));
+            }
+            pole_factors.extend(factors(&others));
+            let mut zero_factors = factors(&zeros);
+            // Pair each pole factor (those nearest the unit circle first)
+            // with the remaining zero factor nearest to it.
+            let mut order: Vec<usize> = (0..pole_factors.len()).collect();
+            order.sort_by(|&i, &j| {
+                let di = 1.0 - pole_factors[i].0.norm();
+                let dj = 1.0 - pole_factors[j].0.norm();
+                di.abs().total_cmp(&dj.abs())
+            });
+            let mut sections = vec![None; pole_factors.len()];
+            for i in order {
+                let p = pole_factors[i].0;
+                let pick = (0..zero_factors.len()).min_by(|&a, &b| {
+                    (zero_factors[a].0 - p)
+                        .norm()
+                        .total_cmp(&(zero_factors[b].0 - p).norm())
+                });
+                let b = match pick {
+                    Some(k) => zero_factors.remove(k).1,
+                    None => vec![1.0],
+                };
+                sections[i] = Some(Section {
+                    b,
+                    a: pole_factors[i].1[1..].to_vec(),
+                });
+            }
+            let mut sections: Vec<Section> = sections.into_iter().flatten().collect();
+            // More zero factors than pole factors cannot happen for a
+            // proper controller, but a pure-gain section keeps it whole.
+            for z in zero_factors {
+                sections.push(Section { b: z.1, a: vec![] });
+            }
+            Ok(Realization {
+                gain,
+                delay: n - m,
+                sections,
+            })
+        }
+    }
+}
+
+/// Real factors of at most second order in q from a set of roots:
+/// `(representative root, [1, c1, c2])` for `(1 - r q)` or a conjugate
+/// pair `(1 - 2 Re r q + |r|^2 q^2)`; real roots are paired two by two in
+/// order of magnitude so sections stay second order. Roots at z = 0 are
+/// dropped (their factor is 1).
+fn factors(roots: &[C64]) -> Vec<(C64, Vec<f64>)> {
+    let mut out = Vec::new();
+    let mut reals: Vec<f64> = Vec::new();
+    for r in roots {
+        if r.norm() == 0.0 {
+            continue;
+        }
+        if r.im == 0.0 {
+            reals.push(r.re);
+        } else if r.im > 0.0 {
+            out.push((*r, vec![1.0, -2.0 * r.re, r.norm_sqr()]));
+        }
+    }
+    reals.sort_by(|a, b| b.abs().total_cmp(&a.abs()));
+    for pair in reals.chunks(2) {
+        match pair {
+            [x, y] => out.push((C64::new(0.5 * (x + y), 0.0), vec![1.0, -(x + y), x * y])),
+            [x] => out.push((C64::new(*x, 0.0), vec![1.0, -x])),
+            _ => {}
+        }
+    }
+    out
+}
+
+/// Place the `k` roots nearest z = 1 exactly at 1 (they are the design's
+/// integrators; root finding splits repeated roots by ~1e-8).
+fn snap_to_one(roots: &mut [C64], k: usize) {
+    for _ in 0..k {
+        let best = roots
+            .iter()
+            .enumerate()
+            .filter(|(_, r)| **r != C64::new(1.0, 0.0))
+            .min_by(|a, b| (a.1 - 1.0).norm().total_cmp(&(b.1 - 1.0).norm()))
+            .map(|(i, _)| i);
+        if let Some(i) = best {
+            roots[i] = C64::new(1.0, 0.0);
+        }
+    }
+}
+
+/// The transfer function in z that a realization computes, at `period_s`.
+pub fn transfer(r: &Realization, period_s: f64) -> DiscreteTf {
+    // Each section: (sum b_i q^i) / (1 + sum a_i q^i); with q = 1/z and the
+    // section order k = max(len b - 1, len a), multiply through by z^k.
+    let mut num = Poly::constant(r.gain);
+    let mut den = Poly::one();
+    for s in &r.sections {
+        let k = (s.b.len().saturating_sub(1)).max(s.a.len());
+        let mut bz = vec![0.0; k + 1];
+        for (i, v) in s.b.iter().enumerate() {
+            bz[k - i] = *v;
+        }
+        let mut az = vec![0.0; k + 1];
+        az[k] = 1.0;
+        for (i, v) in s.a.iter().enumerate() {
+            az[k - 1 - i] = *v;
+        }
+        num = num.mul(&Poly::new(bz));
+        den = den.mul(&Poly::new(az));
+    }
+    // q^delay = z^-delay: multiply the denominator by z^delay.
+    let mut shifted = vec![0.0; r.delay];
+    shifted.extend_from_slice(den.coeffs());
+    DiscreteTf {
+        tf: Tf::new(num, Poly::new(shifted)),
+        period_s,
+    }
+}
+
+/// Round one coefficient to f32.
+fn round_f32(v: f64) -> f64 {
+    v as f32 as f64
+}
+
+/// The fewest integer bits `m` (0..=N) for which every value of `set`,
+/// rounded to `N - m` fraction bits, fits a signed word of N magnitude
+/// bits; None when even N integer bits do not hold them.
+pub fn integer_bits(set: &[f64], magnitude_bits: u32) -> Option<u32> {
+    (0..=magnitude_bits).find(|&m| {
+        let scale = (2.0f64).powi((magnitude_bits - m) as i32);
+        let top = (2.0f64).powi(magnitude_bits as i32);
+        set.iter().all(|v| {
+            let q = (v * scale).round();
+            q >= -top && q < top
+        })
+    })
+}
+
+/// Round `v` to a multiple of `2^-frac_bits`, ties away from zero.
+fn round_fixed(v: f64, frac_bits: u32) -> f64 {
+    let scale = (2.0f64).powi(frac_bits as i32);
+    (v * scale).round() / scale
+}
+
+/// Round a scalar gain to a word of `magnitude_bits + 1` bits with its
+/// own binary exponent (mantissa in [2^(N-1), 2^N)).
+fn round_scaled(v: f64, magnitude_bits: u32) -> f64 {
+    if v == 0.0 || !v.is_finite() {
+        return v;
+    }
+    let e = v.abs().log2().floor() as i32 + 1; // |v| < 2^e
+    let frac = magnitude_bits as i32 - e;
+    let scale = (2.0f64).powi(frac);
+    (v * scale).round() / scale
+}
+
+/// Round every coefficient of `r` in `format`; also returns the Q format
+/// chosen for fixed point.
+pub fn round_realization(
+    r: &Realization,
+    format: Format,
+) -> Result<(Realization, Option<String>), String> {
+    match format {
+        Format::F64 => Ok((r.clone(), None)),
+        Format::F32 => {
+            let map = |v: &Vec<f64>| v.iter().map(|x| round_f32(*x)).collect::<Vec<f64>>();
+            Ok((
+                Realization {
+                    gain: round_f32(r.gain),
+                    delay: r.delay,
+                    sections: r
+                        .sections
+                        .iter()
+                        .map(|s| Section {
+                            b: map(&s.b),
+                            a: map(&s.a),
+                        })
+                        .collect(),
+                },
+                None,
+            ))
+        }
+        Format::Fixed { magnitude_bits } => {
+            let set: Vec<f64> = r
+                .sections
+                .iter()
+                .flat_map(|s| s.b.iter().chain(s.a.iter()).copied())
+                .collect();
+            let m = integer_bits(&set, magnitude_bits).ok_or_else(|| {
+                let big = set.iter().map(|v| v.abs()).fold(0.0, f64::max);
+                format!(
+                    "a coefficient of magnitude {big:.4e} does not fit a {}-bit word",
+                    magnitude_bits + 1
+                )
+            })?;
+            let f = magnitude_bits - m;
+            let map = |v: &Vec<f64>| v.iter().map(|x| round_fixed(*x, f)).collect::<Vec<f64>>();
+            let gain = if r.gain == 1.0 {
+                1.0
+            } else {
+                round_scaled(r.gain, magnitude_bits)
+            };
+            Ok((
+                Realization {
+                    gain,
+                    delay: r.delay,
+                    sections: r
+                        .sections
+                        .iter()
+                        .map(|s| Section {
+                            b: map(&s.b),
+                            a: map(&s.a),
+                        })
+                        .collect(),
+                },
+                Some(format!("Q{m}.{f}")),
+            ))
+        }
+    }
+}
+
+/// Poles exactly at z = 1 of a realization: each section's denominator
+/// `1 + a1 q + ...` is divided by `(1 - q)` while its value at q = 1 is
+/// exactly zero. With rounded coefficients (multiples of a power of two,
+/// or f32 values) these sums are exact in f64.
+pub fn poles_at_one(r: &Realization) -> usize {
+    r.sections
+        .iter()
+        .map(|s| {
+            let mut c: Vec<f64> = std::iter::once(1.0).chain(s.a.iter().copied()).collect();
+            let mut count = 0;
+            while c.len() > 1 && c.iter().sum::<f64>() == 0.0 {
+                // Synthetic division by (1 - q): quotient coefficients are
+                // the running sums.
+                let mut acc = 0.0;
+                let mut quotient = Vec::with_capacity(c.len() - 1);
+                for v in &c[..c.len() - 1] {
+                    acc += v;
+                    quotient.push(acc);
+                }
+                c = quotient;
+                count += 1;
+            }
+            count
+        })
+        .sum()
+}
+
+/// Quantize controller `c` (with `integrators` poles at z = 1 by design)
+/// in `structure` and `format`, and measure the damage; `check_w_rad_s`
+/// is where the gain error is measured (the loop's crossover).
+pub fn quantize(
+    c: &DiscreteTf,
+    integrators: usize,
+    structure: Structure,
+    format: Format,
+    check_w_rad_s: Option<f64>,
+) -> Result<Quantized, String> {
+    let exact = realize(c, structure, integrators)?;
+    let (rounded, q_format) = round_realization(&exact, format)?;
+    let q = if format == Format::F64 {
+        c.clone()
+    } else {
+        transfer(&rounded, c.period_s)
+    };
+    let integrators_after = if format == Format::F64 {
+        integrators
+    } else {
+        poles_at_one(&rounded)
+    };
+    let p0 =
+        c.tf.den
+            .roots()
+            .ok_or("the controller's poles could not be found")?;
+    let p1 =
+        q.tf.den
+            .roots()
+            .ok_or("the rounded controller's poles could not be found")?;
+    let z0 = c.tf.num.roots().unwrap_or_default();
+    let z1 = q.tf.num.roots().unwrap_or_default();
+    let t = c.period_s;
+    let pole_error_pct = matched(&p0, &p1)
+        .iter()
+        .filter(|(a, _)| a.norm() > 0.0 && (a - 1.0).norm() > 1e-12)
+        .map(|(a, b)| {
+            if b.norm() == 0.0 {
+                return 100.0;
+            }
+            let sa = a.ln() / t;
+            let sb = b.ln() / t;
+            (sb - sa).norm() / sa.norm() * 100.0
+        })
+        .fold(0.0, f64::max);
+    let outside = |v: &[C64]| v.iter().filter(|p| p.norm() > 1.0 + 1e-12).count();
+    let damage = Damage {
+        q_format,
+        pole_shift: max_shift(&p0, &p1),
+        zero_shift: max_shift(&z0, &z1),
+        pole_error_pct,
+        dc_gain_error_pct: (integrators_after == integrators)
+            .then(|| {
+                let g0 = integral_gain(c, integrators);
+                let g1 = integral_gain(&q, integrators);
+                rel_pct(g1, g0)
+            })
+            .flatten(),
+        crossover_gain_error_pct: check_w_rad_s
+            .and_then(|w| rel_pct(q.freq(w).norm(), c.freq(w).norm())),
+        integrators,
+        integrators_after,
+        new_unstable_poles: outside(&p1).saturating_sub(outside(&p0)),
+    };
+    Ok(Quantized {
+        controller: q,
+        realization: rounded,
+        damage,
+    })
+}
+
+/// `|a / b - 1|` in percent; None when b is zero or either is not finite.
+fn rel_pct(a: f64, b: f64) -> Option<f64> {
+    (b != 0.0 && a.is_finite() && b.is_finite()).then(|| ((a - b) / b).abs() * 100.0)
+}
+
+/// `lim_{z->1} (z-1)^k C(z)`: `N(1) k! / D^(k)(1)` (the k-th derivative of
+/// the denominator at 1), which needs no division by a vanishing `D(1)`.
+fn integral_gain(c: &DiscreteTf, k: usize) -> f64 {
+    let mut d = c.tf.den.coeffs().to_vec();
+    let mut fact = 1.0;
+    for i in 0..k {
+        d = d
+            .iter()
+            .enumerate()
+            .skip(1)
+            .map(|(j, v)| v * j as f64)
+            .collect();
+        fact *= (i + 1) as f64;
+    }
+    let dk: f64 = d.iter().sum();
+    c.tf.num.eval(1.0) * fact / dk
+}
+
+/// Pairs of roots (exact, rounded) matched greedily by distance.
+fn matched(a: &[C64], b: &[C64]) -> Vec<(C64, C64)> {
+    let mut pairs: Vec<(f64, usize, usize)> = Vec::new();
+    for (i, x) in a.iter().enumerate() {
+        for (j, y) in b.iter().enumerate() {
+            pairs.push(((x - y).norm(), i, j));
+        }
+    }
+    pairs.sort_by(|p, q| p.0.total_cmp(&q.0));
+    let mut used_a = vec![false; a.len()];
+    let mut used_b = vec![false; b.len()];
+    let mut out = Vec::new();
+    for (_, i, j) in pairs {
+        if !used_a[i] && !used_b[j] {
+            used_a[i] = true;
+            used_b[j] = true;
+            out.push((a[i], b[j]));
+        }
+    }
+    out
+}
+
+/// Largest distance between matched roots; a root left unmatched (the
+/// rounding changed the count) counts as its distance to the origin.
+fn max_shift(a: &[C64], b: &[C64]) -> f64 {
+    let pairs = matched(a, b);
+    let mut worst = pairs
+        .iter()
+        .map(|(x, y)| (x - y).norm())
+        .fold(0.0, f64::max);
+    if a.len() != b.len() {
+        let used: Vec<C64> = pairs
+            .iter()
+            .map(|p| p.0)
+            .chain(pairs.iter().map(|p| p.1))
+            .collect();
+        for r in a.iter().chain(b.iter()) {
+            if !used.contains(r) {
+                worst = worst.max(r.norm());
+            }
+        }
+    }
+    worst
+}
+
+/// Poles the design puts at z = 1: the continuous controller's poles at
+/// s = 0 (every method maps s = 0 to z = 1), or for a controller given in
+/// z the poles within 1e-9 of 1.
+pub fn design_integrators(controller: &Controller) -> usize {
+    match controller {
+        Controller::Continuous(c) => c.den.zero_root_count(),
+        Controller::Discrete(d) => {
+            d.tf.den
+                .roots()
+                .map_or(0, |r| r.iter().filter(|p| (*p - 1.0).norm() < 1e-9).count())
+        }
+    }
+}
+
+/// One number format's verdict at one grid point.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PrecisionPoint {
+    pub format: Format,
+    /// What rounding did; None when the controller could not be built or
+    /// its coefficients do not fit the word (`assessment` says which).
+    pub damage: Option<Damage>,
+    /// The loop with the rounded controller against the spec; a
+    /// structural failure (integral action lost, a pole rounded onto
+    /// z = 1 or out of the unit circle) is infeasible with that name.
+    pub assessment: Assessment,
+}
+
+/// Name of the verdict when the coefficients do not fit the word or the
+/// controller cannot be built at all.
+pub const NOT_REPRESENTABLE: &str = "coefficients";
+
+fn failed(name: &'static str) -> Assessment {
+    Assessment {
+        feasible: false,
+        limiting: Some(name),
+        slack: UNSTABLE_SLACK,
+        checks: Vec::new(),
+    }
+}
+
+/// Round the controller of point `p` in `structure` and `format` and judge
+/// the loop it makes on `lp` against `spec`; `check_hz` is where the
+/// crossover gain error is measured.
+pub fn judge_point(
+    lp: &PreparedLoop,
+    spec: &Spec,
+    p: &Point,
+    structure: Structure,
+    format: Format,
+    check_hz: Option<f64>,
+) -> PrecisionPoint {
+    let verdict = |damage, assessment| PrecisionPoint {
+        format,
+        damage,
+        assessment,
+    };
+    let c = match lp.controller_at(p.rate_hz, p.method) {
+        Ok(c) => c,
+        Err(_) => return verdict(None, failed(NOT_REPRESENTABLE)),
+    };
+    let integrators = design_integrators(&lp.controller);
+    let w = check_hz.map(|f| 2.0 * std::f64::consts::PI * f);
+    let q = match quantize(&c, integrators, structure, format, w) {
+        Ok(q) => q,
+        Err(_) => return verdict(None, failed(NOT_REPRESENTABLE)),
+    };
+    if let Some(name) = q.damage.structural_failure() {
+        return verdict(Some(q.damage), failed(name));
+    }
+    let a = assess(&lp.sampled_with(p, &q.controller), spec);
+    verdict(Some(q.damage), a)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn formats_parse_and_name() {
+        for s in ["f64", "f32", "q15", "q31", "q7"] {
+            assert_eq!(Format::from_str(s).unwrap().name(), s);
+        }
+        assert!(Format::from_str("q2").is_err());
+        assert!(Format::from_str("q32").is_err());
+        assert!(Format::from_str("int16").unwrap_err().contains("int16"));
+    }
+
+    #[test]
+    fn sos_realization_reproduces_the_controller() {
+        // (z - 0.5)(z + 0.2)(z - 0.9) / ((z - 1)(z^2 - 1.6 z + 0.7)(z - 0.3))
+        let num = Poly::from_roots(&[C64::new(0.5, 0.0), C64::new(-0.2, 0.0), C64::new(0.9, 0.0)])
+            .scale(0.4);
+        let den = Poly::from_roots(&[
+            C64::new(1.0, 0.0),
+            C64::new(0.8, 0.244_948_974_278_317_8),
+            C64::new(0.8, -0.244_948_974_278_317_8),
+            C64::new(0.3, 0.0),
+        ]);
+        let c = DiscreteTf {
+            tf: Tf::new(num, den),
+            period_s: 1e-3,
+        };
+        let r = realize(&c, Structure::Sos, 1).unwrap();
+        assert_eq!(r.sections.len(), 3);
+        assert_eq!(r.delay, 1);
+        let back = transfer(&r, 1e-3);
+        for w in [1.0, 100.0, 1000.0, 3000.0] {
+            let e = (back.freq(w) - c.freq(w)).norm() / c.freq(w).norm();
+            // Near DC the integrator amplifies root-level rounding by 1/|z - 1|.
+            assert!(e < 1e-10, "w {w}: {e}");
+        }
+        assert_eq!(poles_at_one(&r), 1);
+    }
+}
