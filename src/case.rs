@@ -1286,10 +1286,10 @@ fn uncertainty_from(
             ));
         }
     };
-    if !params.iter().any(|p| p.min < p.max) {
+    if params.is_empty() {
         return Err(ctx.invalid(
             "uncertainty",
-            "no parameter has a range (min < max) to vary; give one as { nominal, min, max }",
+            "there are no [params] to vary; declare one as { nominal, min, max }",
         ));
     }
     Ok(Some(out))

@@ -729,7 +729,57 @@ const BAD: &[Bad] = &[
         "uncertainty without a ranged parameter",
         &[("uncertainty", "[uncertainty]\nmode = \"corners\"\n")],
         "uncertainty",
-        &["no parameter has a range"],
+        &["no [params] to vary"],
+    ),
+    (
+        "more than 2^10 corners",
+        &[
+            (
+                "params",
+                "[params]\na = { nominal = 1, min = 0.9, max = 1.1 }\nb = { nominal = 1, min = 0.9, max = 1.1 }\nc = { nominal = 1, min = 0.9, max = 1.1 }\nd = { nominal = 1, min = 0.9, max = 1.1 }\ne = { nominal = 1, min = 0.9, max = 1.1 }\nf = { nominal = 1, min = 0.9, max = 1.1 }\ng = { nominal = 1, min = 0.9, max = 1.1 }\nh = { nominal = 1, min = 0.9, max = 1.1 }\ni = { nominal = 1, min = 0.9, max = 1.1 }\nj = { nominal = 1, min = 0.9, max = 1.1 }\nk = { nominal = 38, min = 30, max = 46 }\n",
+            ),
+            (
+                "plant",
+                "[plant]\ntf = \"a*b*c*d*e*f*g*h*i*j*k / (s + 1)\"\n",
+            ),
+            ("uncertainty", "[uncertainty]\nmode = \"corners\"\n"),
+        ],
+        "uncertainty.mode",
+        &["2^11 corners", "1024", "samples"],
+    ),
+    // Arithmetic.
+    (
+        "unknown number format",
+        &[(
+            "uncertainty",
+            "[arithmetic]\nformats = [\"f32\", \"int16\"]\n",
+        )],
+        "arithmetic.formats[1]",
+        &["int16", "q15"],
+    ),
+    (
+        "format listed twice",
+        &[(
+            "uncertainty",
+            "[arithmetic]\nformats = [\"q15\", \"q15\"]\n",
+        )],
+        "arithmetic.formats[1]",
+        &["twice"],
+    ),
+    (
+        "no formats",
+        &[("uncertainty", "[arithmetic]\nformats = []\n")],
+        "arithmetic.formats",
+        &["at least one"],
+    ),
+    (
+        "unknown structure",
+        &[(
+            "uncertainty",
+            "[arithmetic]\nformats = [\"q15\"]\nstructure = \"lattice\"\n",
+        )],
+        "arithmetic.structure",
+        &["lattice", "sos"],
     ),
 ];
 

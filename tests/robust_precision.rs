@@ -1,0 +1,338 @@
+//! Plant variants and coefficient precision against outside facts: a
+//! closed-form rounding threshold, hand-rounded coefficients, and the
+//! ordering facts any robust answer must obey.
+
+use std::path::Path;
+
+use looprate::case::Case;
+use looprate::discretize::{Method, discretize};
+use looprate::pick::{PickReport, case_grid, pick, prepare};
+use looprate::poly::Poly;
+use looprate::precision::{Format, Structure, poles_at_one, quantize, realize, round_realization};
+use looprate::search::Silent;
+use looprate::sweep::{self, Plan};
+use looprate::tf::{DiscreteTf, Tf};
+use looprate::variants::{VariantSet, parameter_sets};
+
+fn case(text: &str) -> Case {
+    Case::parse(text, Path::new("inline.toml")).unwrap()
+}
+
+/// Sweep and pick a case the way `looprate pick` does.
+fn run(c: &Case) -> PickReport {
+    let lp = prepare(c).unwrap();
+    let set = c
+        .uncertainty
+        .as_ref()
+        .map(|_| VariantSet::new(c, &lp).unwrap());
+    let plan = Plan::for_case(c, &lp, set.as_ref());
+    let rows = sweep::run(&plan, &case_grid(c, &lp), &|| {});
+    pick(c, &lp, set.as_ref(), &rows, &Silent)
+}
+
+/// A first-order lag controller 100/(s + 10) (pole a = 10 rad/s) on the
+/// plant 1/(s + 1), with a loose spec so only the rounding decides.
+const LAG_LOOP: &str = r#"
+[plant]
+tf = "1/(s + 1)"
+[controller]
+tf = "100/(s + 10)"
+[rates]
+min_hz = 400
+max_hz = 10000
+points = 60
+[methods]
+use = ["zoh"]
+[spec]
+max_overshoot_pct = 60
+min_phase_margin_deg = 20
+headroom = 1.0
+"#;
+
+#[test]
+fn lag_pole_rounds_onto_z1_at_the_closed_form_rate() {
+    // Closed form: the zoh pole is p = e^{-aT}. In df2t its coefficient
+    // a1 = -p lies in (-1, 0), and b1 = 10 (1 - p) < 1, so q7 uses no
+    // integer bits (Q0.7): a1 rounds to a multiple of 2^-7, ties away from
+    // zero. It rounds onto -1 (the pole onto z = 1) exactly when
+    // p * 2^7 >= 2^7 - 1/2, i.e. p >= 1 - 2^-8, i.e.
+    // T <= -ln(1 - 2^-8) / a. The ceiling rate is therefore
+    // f_c = a / -ln(1 - 2^-8) = 2554.99... Hz (derived by hand here, from
+    // the rounding rule stated in `precision`).
+    // In sos the section numerator is normalised to a leading 1, which
+    // needs one integer bit (Q1.6, steps of 2^-6): the pole then rounds
+    // onto 1 once p >= 1 - 2^-7, at f_c = a / -ln(1 - 2^-7) = 1274.99 Hz.
+    let a = 10.0;
+    let f_c = a / -(1.0 - 2f64.powi(-8)).ln();
+    for (structure, f_c) in [("df2t", f_c), ("sos", a / -(1.0 - 2f64.powi(-7)).ln())] {
+        let text =
+            format!("{LAG_LOOP}[arithmetic]\nformats = [\"q7\"]\nstructure = \"{structure}\"\n");
+        let c = case(&text);
+        let report = run(&c);
+        let pr = report.precision.as_ref().unwrap();
+        let ceil = pr
+            .ceilings
+            .iter()
+            .find(|x| x.format == "q7")
+            .unwrap()
+            .ceiling
+            .clone();
+        let got = ceil.rate_hz.unwrap();
+        assert!(!ceil.above_range, "{structure}: {ceil:?}");
+        assert!(
+            (got / f_c - 1.0).abs() <= 2e-4,
+            "{structure}: ceiling {got} Hz, closed form {f_c} Hz"
+        );
+        assert_eq!(ceil.limiting.as_deref(), Some("pole_on_z1"), "{structure}");
+        // The rate window is now bounded by the format, and says so.
+        let w = report.window.as_ref().unwrap();
+        assert_eq!(w.high_bound, format!("q7 coefficients ({structure})"));
+        assert!((w.high_hz / f_c - 1.0).abs() <= 2e-4);
+    }
+    // Directly: just below and just above f_c, the pole count at z = 1.
+    let c = Tf::new(Poly::constant(100.0), Poly::new(vec![10.0, 1.0]));
+    for (rate, expect) in [(f_c * 0.999, 0), (f_c * 1.001, 1)] {
+        let d = discretize(&c, Method::Zoh, 1.0 / rate, None).unwrap();
+        let r = realize(&d, Structure::Df2t, 0).unwrap();
+        let (q, label) = round_realization(&r, Format::Fixed { magnitude_bits: 7 }).unwrap();
+        assert_eq!(label.as_deref(), Some("Q0.7"));
+        assert_eq!(poles_at_one(&q), expect, "rate {rate}");
+    }
+}
+
+#[test]
+fn df2t_rounding_matches_hand_arithmetic() {
+    // C(z) = (0.5 z^2 - 0.4 z + 0.1) / (z^2 - 1.2 z + 0.3). The largest
+    // coefficient, |a1| = 1.2, needs one integer bit: q15 gives Q1.14,
+    // steps of 2^-14. By hand (x * 16384, rounded half away from zero):
+    //   b0 =  0.5 ->   8192       ->  0.5
+    //   b1 = -0.4 ->  -6553.6     -> -6554  -> -0.4000244140625
+    //   b2 =  0.1 ->   1638.4     ->  1638  ->  0.0999755859375
+    //   a1 = -1.2 -> -19660.8     -> -19661 -> -1.20001220703125
+    //   a2 =  0.3 ->   4915.2     ->  4915  ->  0.29998779296875
+    let c = DiscreteTf {
+        tf: Tf::new(
+            Poly::from_descending(&[0.5, -0.4, 0.1]),
+            Poly::from_descending(&[1.0, -1.2, 0.3]),
+        ),
+        period_s: 1e-3,
+    };
+    let q = quantize(
+        &c,
+        0,
+        Structure::Df2t,
+        Format::Fixed { magnitude_bits: 15 },
+        Some(50.0),
+    )
+    .unwrap();
+    assert_eq!(q.damage.q_format.as_deref(), Some("Q1.14"));
+    let s = &q.realization.sections[0];
+    assert_eq!(s.b, vec![0.5, -0.4000244140625, 0.0999755859375]);
+    assert_eq!(s.a, vec![-1.20001220703125, 0.29998779296875]);
+    // Pole shift, by the quadratic formula (an independent computation):
+    // exact poles 0.6 +- sqrt(0.06); rounded 0.600006103515625 +-
+    // sqrt(0.600006103515625^2 - 0.29998779296875).
+    let exact = [0.6 + 0.06f64.sqrt(), 0.6 - 0.06f64.sqrt()];
+    let h = 0.600_006_103_515_625f64;
+    let disc = (h * h - 0.299_987_792_968_75).sqrt();
+    let rounded = [h + disc, h - disc];
+    let shift = (exact[0] - rounded[0])
+        .abs()
+        .max((exact[1] - rounded[1]).abs());
+    assert!(
+        (q.damage.pole_shift - shift).abs() < 1e-12,
+        "{} vs {shift}",
+        q.damage.pole_shift
+    );
+    // DC gain: exact 0.2 / 0.1 = 2; rounded (0.5 - 0.4000244140625 +
+    // 0.0999755859375) / (1 - 1.20001220703125 + 0.29998779296875)
+    // = 0.199951171875 / 0.0999755859375 (by hand).
+    let g1: f64 = 0.199_951_171_875 / 0.099_975_585_937_5;
+    let expect = (g1 / 2.0 - 1.0).abs() * 100.0;
+    let got = q.damage.dc_gain_error_pct.unwrap();
+    assert!((got - expect).abs() < 1e-9, "{got} vs {expect}");
+    // f32: 0.1 is 0x3DCCCCCD = 0.100000001490116119384765625 (IEEE 754
+    // binary32, round to nearest).
+    let f = quantize(&c, 0, Structure::Df2t, Format::F32, None).unwrap();
+    assert_eq!(
+        f.realization.sections[0].b[2],
+        0.100_000_001_490_116_119_384_765_625
+    );
+    assert_eq!(f.damage.q_format, None);
+}
+
+#[test]
+fn df2t_integrator_survives_fixed_point_and_sos_keeps_it_in_f32() {
+    // PI with a lag, tustin at 10 kHz: den (z - 1)(z - p). In fixed point
+    // the rounded coefficients are multiples of one step and 1 is one of
+    // them, so 1 + a1 + a2 stays exactly 0 (round(1 + p) = 1 + round(p)
+    // on a grid that holds 1). In sos the integrator has a section of its
+    // own, so every format keeps it.
+    let c = Tf::new(
+        Poly::from_descending(&[0.02, 1.0]),
+        Poly::from_descending(&[1.0 / 400.0, 1.0, 0.0]),
+    );
+    let d = discretize(&c, Method::Tustin, 1e-4, None).unwrap();
+    for fmt in [
+        Format::Fixed { magnitude_bits: 15 },
+        Format::Fixed { magnitude_bits: 31 },
+    ] {
+        let q = quantize(&d, 1, Structure::Df2t, fmt, None).unwrap();
+        assert!(q.damage.integral_kept(), "{fmt}");
+    }
+    for fmt in [Format::F32, Format::Fixed { magnitude_bits: 15 }] {
+        let q = quantize(&d, 1, Structure::Sos, fmt, None).unwrap();
+        assert!(q.damage.integral_kept(), "sos {fmt}");
+        assert_eq!(q.damage.structural_failure(), None, "sos {fmt}");
+    }
+}
+
+/// The belt-conveyor loop of the demo cases, reduced to one method and
+/// delay and a short grid, with the gain k uncertain in [30, 46].
+fn belt(uncertainty: &str, k: &str) -> String {
+    format!(
+        r#"
+[params]
+k = {k}
+[plant]
+tf = "k / ((0.42*s + 1) * (0.004*s + 1))"
+[sensor]
+tf = "1 / (0.0008*s + 1)"
+[controller]
+tf = "0.8 * (s + 20) / s"
+[timing]
+compute_delay = 0.5
+[rates]
+min_hz = 100
+max_hz = 3000
+points = 40
+[methods]
+use = ["tustin"]
+[spec]
+max_overshoot_pct = 25
+max_settling_s = 0.25
+min_phase_margin_deg = 45
+{uncertainty}
+"#
+    )
+}
+
+#[test]
+fn robust_is_never_below_nominal_and_zero_width_equals_it() {
+    let ranged = run(&case(&belt(
+        "[uncertainty]\nmode = \"corners\"",
+        "{ nominal = 38, min = 30, max = 46 }",
+    )));
+    let rb = ranged.robust.as_ref().unwrap();
+    assert_eq!(rb.variants, 3);
+    for m in &rb.methods {
+        let robust = m.rate.slowest_rate_hz.unwrap();
+        let nominal = m.nominal_slowest_rate_hz.unwrap();
+        assert!(robust >= nominal, "{robust} < {nominal}");
+    }
+    // More gain, less phase margin: the worst variant is k = 46 (the
+    // loop's crossover rises with k while the hold's phase lag grows with
+    // frequency; common practice, no source).
+    let worst = rb.methods[0].worst_variant.as_ref().unwrap();
+    assert_eq!(worst[0].value, 46.0);
+
+    // Zero-width range: every variant is the nominal plant, so the robust
+    // answer is the nominal one exactly.
+    let flat = run(&case(&belt(
+        "[uncertainty]\nmode = \"corners\"",
+        "{ nominal = 38, min = 38, max = 38 }",
+    )));
+    let rb = flat.robust.as_ref().unwrap();
+    for (r, n) in rb.methods.iter().zip(&flat.methods) {
+        assert_eq!(r.rate.slowest_rate_hz, n.slowest_rate_hz);
+        assert_eq!(r.rate.limiting, n.limiting);
+    }
+    assert_eq!(
+        flat.recommended.as_ref().unwrap().rate_hz,
+        run(&case(&belt("", "38"))).recommended.unwrap().rate_hz
+    );
+}
+
+#[test]
+fn samples_approach_the_corners_from_below_on_a_monotone_case() {
+    // f_star rises monotonically with k here (see above), so the corners'
+    // answer (k = 46) bounds every sample's, and a Latin hypercube of n
+    // points has one in the top stratum [46 - 16/n, 46]: with n = 40 the
+    // sampled answer is within a few percent below the corners'.
+    let k = "{ nominal = 38, min = 30, max = 46 }";
+    let corners = run(&case(&belt("[uncertainty]\nmode = \"corners\"", k)));
+    let samples = run(&case(&belt(
+        "[uncertainty]\nmode = \"samples\"\nsamples = 40\nseed = 7",
+        k,
+    )));
+    let fc = corners.robust.unwrap().methods[0]
+        .rate
+        .slowest_rate_hz
+        .unwrap();
+    let fs = samples.robust.unwrap().methods[0]
+        .rate
+        .slowest_rate_hz
+        .unwrap();
+    assert!(fs <= fc * (1.0 + 2e-4), "samples {fs} above corners {fc}");
+    assert!(fs >= fc * 0.97, "samples {fs} far below corners {fc}");
+}
+
+#[test]
+fn latin_hypercube_has_one_point_per_stratum_and_repeats_with_its_seed() {
+    let text = belt(
+        "[uncertainty]\nmode = \"samples\"\nsamples = 25\nseed = 3",
+        "{ nominal = 38, min = 30, max = 46 }",
+    );
+    let c = case(&text);
+    let sets = parameter_sets(&c);
+    assert_eq!(sets.len(), 26);
+    assert_eq!(sets[0], vec![38.0]);
+    let mut strata: Vec<usize> = sets[1..]
+        .iter()
+        .map(|v| ((v[0] - 30.0) / 16.0 * 25.0).floor() as usize)
+        .collect();
+    strata.sort_unstable();
+    assert_eq!(strata, (0..25).collect::<Vec<_>>());
+    assert_eq!(sets, parameter_sets(&case(&text)));
+    let other = case(&text.replace("seed = 3", "seed = 4"));
+    assert_ne!(sets, parameter_sets(&other));
+}
+
+#[test]
+fn sweep_keeps_one_row_per_point_with_variants_and_formats() {
+    let text = format!(
+        "{}\n[arithmetic]\nformats = [\"q15\", \"f32\", \"f64\"]\n",
+        belt(
+            "[uncertainty]\nmode = \"corners\"",
+            "{ nominal = 38, min = 30, max = 46 }"
+        )
+    );
+    let c = case(&text);
+    let lp = prepare(&c).unwrap();
+    let set = VariantSet::new(&c, &lp).unwrap();
+    let plan = Plan {
+        keep_variants: true,
+        ..Plan::for_case(&c, &lp, Some(&set))
+    };
+    let points = case_grid(&c, &lp);
+    let rows = sweep::run(&plan, &points, &|| {});
+    let csv = String::from_utf8(looprate::outputs::sweep_csv(&rows, Some(&set))).unwrap();
+    assert_eq!(csv.lines().count(), 1 + points.len());
+    let header = csv.lines().next().unwrap();
+    assert!(header.contains("worst_overshoot_pct") && header.contains("q15_pole_shift"));
+    assert!(!header.contains("f64_"), "f64 is the reference: no columns");
+    let vcsv = String::from_utf8(looprate::outputs::variants_csv(&rows, &set)).unwrap();
+    assert_eq!(vcsv.lines().count(), 1 + points.len() * set.len());
+    // The worst-case figure is the largest over the variants' own rows.
+    for r in &rows {
+        let rb = r.robust.as_ref().unwrap();
+        if let Some(w) = &rb.worst_figures {
+            let most = rb
+                .each
+                .iter()
+                .filter_map(|(e, _)| e.figures.as_ref()?.overshoot_pct)
+                .fold(f64::NEG_INFINITY, f64::max);
+            assert_eq!(w.overshoot_pct, Some(most));
+        }
+    }
+}
