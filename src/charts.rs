@@ -39,6 +39,7 @@ pub const LOOP_RESPONSE: &str = "loop-response.png";
 pub const CPU_BUDGET: &str = "cpu-budget.png";
 pub const HOLD_APPROXIMATION: &str = "hold-approximation.png";
 pub const DISTURBANCE: &str = "disturbance.png";
+pub const PRECISION: &str = "precision.png";
 
 /// Rates of the hold-approximation chart (log-spaced over the case's range).
 const HOLD_CHART_RATES: usize = 40;
@@ -110,13 +111,14 @@ pub fn write_charts(
         case.title,
         env!("CARGO_PKG_VERSION")
     );
-    let jobs: [(&str, Builder); 6] = [
+    let jobs: [(&str, Builder); 7] = [
         (FIGURES_VS_RATE, figures_vs_rate),
         (STEP_RESPONSE, step_response),
         (LOOP_RESPONSE, loop_response),
         (CPU_BUDGET, cpu_budget),
         (HOLD_APPROXIMATION, hold_approximation),
         (DISTURBANCE, disturbance),
+        (PRECISION, precision_chart),
     ];
     let written: Vec<Result<Option<PathBuf>, Error>> = jobs
         .par_iter()
@@ -760,6 +762,85 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
         ));
     }
     Some(Figure::new(title, rate_axis()).with_panel(panel))
+}
+
+/// What rounding the coefficients does against rate, per number format,
+/// for the recommended method (the first with an answer otherwise) at the
+/// design delay: the controller's pole error and DC gain error, with each
+/// format's precision ceiling marked. Only with `[arithmetic]`.
+fn precision_chart(inp: &Inputs) -> Option<Figure> {
+    let pr = inp.report.precision.as_ref();
+    let first = inp.rows.first()?;
+    if first.precision.is_empty() {
+        return None;
+    }
+    let series = design_series(inp);
+    let (method, rows) = match inp.rec {
+        Some((r, _)) => series.into_iter().find(|(m, _)| *m == r.method)?,
+        None => series.into_iter().next()?,
+    };
+    let formats: Vec<String> = first.precision.iter().map(|p| p.format.name()).collect();
+    type Pick = fn(&crate::precision::Damage) -> Option<f64>;
+    let panels: [(&str, Pick); 2] = [
+        ("controller pole error (%)", |d| Some(d.pole_error_pct)),
+        ("DC gain error (%)", |d| d.dc_gain_error_pct),
+    ];
+    let structure = inp
+        .case
+        .arithmetic
+        .as_ref()
+        .map_or("df2t", |a| a.structure.name());
+    let mut fig = Figure::new(
+        format!("Coefficient rounding ({structure}) vs rate, {method}: errors and precision ceilings"),
+        rate_axis(),
+    );
+    for (label, get) in panels {
+        let mut panel = Panel::new(Axis::log(label));
+        for (k, f) in formats.iter().enumerate() {
+            let pts: Points = rows
+                .iter()
+                .map(|r| {
+                    let v = r.precision[k]
+                        .damage
+                        .as_ref()
+                        .and_then(get)
+                        .filter(|v| *v > 0.0)
+                        .unwrap_or(f64::NAN);
+                    (r.point.rate_hz, v)
+                })
+                .collect();
+            if pts.iter().any(|p| p.1.is_finite()) {
+                panel.series.push(Series::line(f.clone(), pts, k));
+            }
+        }
+        if let Some(pr) = pr {
+            for c in pr.ceilings.iter().filter(|c| c.method == method) {
+                if let (Some(h), false) = (c.ceiling.rate_hz, c.ceiling.above_range) {
+                    panel.vmarks.push(VMark::new(
+                        h,
+                        format!("{} ceiling {}", c.format, hz(h)),
+                        MarkStyle::Dashed,
+                    ));
+                }
+            }
+        }
+        if let Some((r, _)) = inp.rec {
+            panel.vmarks.push(VMark::new(
+                r.rate_hz,
+                format!("recommended {}", hz(r.rate_hz)),
+                MarkStyle::Solid,
+            ));
+        }
+        if panel.series.is_empty() {
+            panel.notes.push(Annotation::new(
+                inp.case.rates.min_hz,
+                1.0,
+                "no error to show: the rounding leaves this figure exact",
+            ));
+        }
+        fig = fig.with_panel(panel);
+    }
+    Some(fig)
 }
 
 /// Phase margin and overshoot of the exact sampled loop beside each hold

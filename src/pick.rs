@@ -396,11 +396,19 @@ pub fn pick(
             .iter()
             .find(|c| c.method == best.method && c.format == pr.window_format)
             .filter(|c| !c.ceiling.above_range)
-            .map(|c| {
-                (
-                    c.ceiling.rate_hz.unwrap_or(c.from_hz.min(rate)),
-                    format!("{} coefficients ({})", c.format, pr.structure),
-                )
+            .map(|c| match c.ceiling.rate_hz {
+                Some(h) => (h, format!("{} coefficients ({})", c.format, pr.structure)),
+                // Failing already where the search starts: no rate above
+                // the low end is usable, so the window is empty.
+                None => (
+                    f64::NEG_INFINITY,
+                    format!(
+                        "{} coefficients ({}), which fail already at the recommended rate ({})",
+                        c.format,
+                        pr.structure,
+                        c.ceiling.limiting.as_deref().unwrap_or("?")
+                    ),
+                ),
             })
     });
     let top = match (cpu, prec) {
@@ -410,7 +418,15 @@ pub fn pick(
         (None, None) => None,
     };
     if let Some((high, bound)) = top {
-        let w = RateWindow::new(rate, high, bound);
+        let w = if high.is_finite() {
+            RateWindow::new(rate, high, bound)
+        } else {
+            RateWindow {
+                high_hz: rate,
+                empty: true,
+                ..RateWindow::new(rate, rate, bound)
+            }
+        };
         if w.empty {
             report.advice = empty_window_advice(case, &report, rate, &w, cpu.map(|c| c.1));
         } else {

@@ -333,7 +333,9 @@ fn factors(roots: &[C64]) -> Vec<(C64, Vec<f64>)> {
 /// Place the `k` roots nearest z = 1 exactly at 1 (they are the design's
 /// integrators; root finding splits repeated roots by ~1e-8).
 fn snap_to_one(roots: &mut [C64], k: usize) {
-    for _ in 0..k {
+    let one = C64::new(1.0, 0.0);
+    let already = roots.iter().filter(|r| **r == one).count();
+    for _ in already..k {
         let best = roots
             .iter()
             .enumerate()
@@ -755,5 +757,16 @@ mod tests {
             assert!(e < 1e-10, "w {w}: {e}");
         }
         assert_eq!(poles_at_one(&r), 1);
+    }
+
+    #[test]
+    fn an_integrator_found_exactly_at_one_is_not_snapped_twice() {
+        let mut roots = vec![C64::new(1.0, 0.0), C64::new(0.9, 0.0), C64::new(0.2, 0.0)];
+        snap_to_one(&mut roots, 1);
+        assert_eq!(roots[1], C64::new(0.9, 0.0));
+        let mut roots = vec![C64::new(1.0 - 1e-9, 0.0), C64::new(0.9, 0.0)];
+        snap_to_one(&mut roots, 1);
+        assert_eq!(roots[0], C64::new(1.0, 0.0));
+        assert_eq!(roots[1], C64::new(0.9, 0.0));
     }
 }

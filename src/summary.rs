@@ -447,13 +447,22 @@ pub fn pick_text(r: &PickReport) -> String {
     }
     if let Some(w) = &r.window {
         if w.empty {
-            let _ = writeln!(
-                s,
-                "\nNO RATE WINDOW: the spec needs at least {} Hz but the {} allows at most {} Hz.",
-                fmt_num(w.low_hz),
-                w.high_bound,
-                fmt_num(w.high_hz)
-            );
+            if w.high_hz < w.low_hz {
+                let _ = writeln!(
+                    s,
+                    "\nNO RATE WINDOW: the spec needs at least {} Hz but the {} allows at most {} Hz.",
+                    fmt_num(w.low_hz),
+                    w.high_bound,
+                    fmt_num(w.high_hz)
+                );
+            } else {
+                let _ = writeln!(
+                    s,
+                    "\nNO RATE WINDOW: the spec needs at least {} Hz, and the {}.",
+                    fmt_num(w.low_hz),
+                    w.high_bound
+                );
+            }
             let _ = writeln!(s, "What would open it:");
             for a in &r.advice {
                 let _ = writeln!(s, "  - {a}");
