@@ -791,9 +791,12 @@ fn precision_chart(inp: &Inputs) -> Option<Figure> {
         .as_ref()
         .map_or("df2t", |a| a.structure.name());
     let mut fig = Figure::new(
-        format!("Coefficient rounding ({structure}) vs rate, {method}: errors and precision ceilings"),
+        format!(
+            "Coefficient rounding ({structure}) vs rate, {method}: errors and precision ceilings"
+        ),
         rate_axis(),
     );
+    let mut empty = Vec::new();
     for (label, get) in panels {
         let mut panel = Panel::new(Axis::log(label));
         for (k, f) in formats.iter().enumerate() {
@@ -832,13 +835,17 @@ fn precision_chart(inp: &Inputs) -> Option<Figure> {
             ));
         }
         if panel.series.is_empty() {
-            panel.notes.push(Annotation::new(
-                inp.case.rates.min_hz,
-                1.0,
-                "no error to show: the rounding leaves this figure exact",
-            ));
+            // Nothing to draw on a log axis: the figure is exact.
+            empty.push(label);
+            continue;
         }
         fig = fig.with_panel(panel);
+    }
+    if empty.len() == 2 {
+        return None;
+    }
+    if let Some(label) = empty.first() {
+        fig.title = format!("{}; {label}: zero at every rate", fig.title);
     }
     Some(fig)
 }

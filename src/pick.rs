@@ -612,10 +612,6 @@ fn precision_report(
                     }
                 }
                 Some(k) => {
-                    let coarse: Vec<(f64, &Assessment)> = series
-                        .iter()
-                        .map(|r| (r.point.rate_hz, &r.precision[k].assessment))
-                        .collect();
                     let judge = |rate: f64| -> Assessment {
                         let p = Point {
                             rate_hz: rate,
@@ -628,6 +624,20 @@ fn precision_report(
                         observer.evaluated(rate, &a);
                         a
                     };
+                    // The sweep's verdicts; a sweep made without this
+                    // format is judged here instead.
+                    let verdicts: Vec<(f64, Assessment)> = series
+                        .iter()
+                        .map(|r| {
+                            let a = match r.precision.get(k) {
+                                Some(v) if v.format == format => v.assessment.clone(),
+                                _ => judge(r.point.rate_hz),
+                            };
+                            (r.point.rate_hz, a)
+                        })
+                        .collect();
+                    let coarse: Vec<(f64, &Assessment)> =
+                        verdicts.iter().map(|(f, a)| (*f, a)).collect();
                     fastest_rate_by(from, &coarse, &judge)
                 }
             };

@@ -266,9 +266,10 @@ fn blocks(
     }
     match (&report.recommended, &report.window) {
         (Some(rec), Some(w)) if w.empty => b.push(Block::Para(format!(
-            "**No rate meets both the spec and the CPU budget:** the spec needs at least {} Hz (`{}`, with headroom) but the budget allows at most {} Hz. The spec alone would be met by: {}",
+            "**No rate meets both the spec and the upper bound:** the spec needs at least {} Hz (`{}`, with headroom) but the {} allows at most {} Hz. The spec alone would be met by: {}",
             fmt_num(w.low_hz),
             rec.method,
+            w.high_bound,
             fmt_num(w.high_hz),
             answer(report, rec).trim_start_matches("**Answer:** ")
         ))),
@@ -366,23 +367,151 @@ fn blocks(
         "f* is the lowest rate from which every faster rate up to the top of the sweep meets the spec; `<=` marks a method that passes over the whole sweep.".into(),
     ));
 
+    if let Some(rb) = &report.robust {
+        b.push(Block::Heading(
+            2,
+            "Slowest rate over the plant variants".into(),
+        ));
+        let ranges = rb
+            .params
+            .iter()
+            .map(|p| {
+                format!(
+                    "`{}` from {} to {} (nominal {})",
+                    p.name,
+                    fmt_num(p.min),
+                    fmt_num(p.max),
+                    fmt_num(p.nominal)
+                )
+            })
+            .collect::<Vec<_>>()
+            .join(", ");
+        let how = match rb.seed {
+            Some(seed) => format!("a Latin hypercube sample with seed {seed}"),
+            None => "every corner of the ranges".into(),
+        };
+        b.push(Block::Para(format!(
+            "{} variants: the nominal plant and {how}, for {ranges}. The controller is the nominal design in every variant. A rate passes only when every variant meets the spec.",
+            rb.variants
+        )));
+        b.push(Block::Table(
+            vec![
+                "method".into(),
+                "computation delay (of T)".into(),
+                "robust f* (Hz)".into(),
+                "nominal f* (Hz)".into(),
+                "limiting figure".into(),
+                "worst variant".into(),
+            ],
+            rb.methods
+                .iter()
+                .map(|m| {
+                    vec![
+                        m.rate.method.clone(),
+                        fmt_num(m.rate.compute_delay),
+                        m.rate.slowest_rate_hz.map_or("none".into(), fmt_num),
+                        m.nominal_slowest_rate_hz.map_or("none".into(), fmt_num),
+                        m.worst_limiting.clone().unwrap_or_else(|| "-".into()),
+                        m.worst_variant.as_ref().map_or("-".into(), |v| {
+                            v.iter()
+                                .map(|n| format!("{} = {}", n.name, fmt_num(n.value)))
+                                .collect::<Vec<_>>()
+                                .join(", ")
+                        }),
+                    ]
+                })
+                .collect(),
+        ));
+    }
+
+    if let Some(pr) = &report.precision {
+        b.push(Block::Heading(2, "Coefficient precision".into()));
+        b.push(Block::Para(format!(
+            "The controller's coefficients rounded as stored on the target, in the `{}` structure; fixed-point formats take the fewest integer bits that hold every coefficient. A format passes at a rate when no integrator is lost, no pole rounds onto z = 1 or out of the unit circle, and the loop with the rounded controller meets the spec. Its ceiling is the fastest rate up to which it passes from the recommended rate (each method: from its own f* times the headroom).",
+            pr.structure
+        )));
+        let method = report.recommended.as_ref().map(|r| r.method.clone());
+        b.push(Block::Table(
+            vec![
+                "format".into(),
+                "Q format".into(),
+                "pole error (%)".into(),
+                "DC gain error (%)".into(),
+                "integral action".into(),
+                "passes at the recommended rate".into(),
+                "ceiling (Hz)".into(),
+            ],
+            pr.at_recommended
+                .iter()
+                .map(|a| {
+                    let d = a.damage.as_ref();
+                    let ceiling = pr
+                        .ceilings
+                        .iter()
+                        .find(|c| Some(&c.method) == method.as_ref() && c.format == a.format)
+                        .map_or("-".into(), |c| {
+                            match (c.ceiling.rate_hz, c.ceiling.above_range) {
+                                (Some(h), true) => format!(">= {} (top of the sweep)", fmt_num(h)),
+                                (Some(h), false) => format!(
+                                    "{} (then `{}`)",
+                                    fmt_num(h),
+                                    c.ceiling.limiting.clone().unwrap_or_default()
+                                ),
+                                (None, _) => format!(
+                                    "none (`{}`)",
+                                    c.ceiling.limiting.clone().unwrap_or_default()
+                                ),
+                            }
+                        });
+                    vec![
+                        a.format.clone(),
+                        d.and_then(|d| d.q_format.clone())
+                            .unwrap_or_else(|| "-".into()),
+                        d.map_or("-".into(), |d| fmt_num(d.pole_error_pct)),
+                        d.map_or("-".into(), |d| {
+                            d.dc_gain_error_pct
+                                .map_or("integrators changed".into(), fmt_num)
+                        }),
+                        a.integral_kept
+                            .map_or("-".into(), |k| if k { "kept" } else { "LOST" }.into()),
+                        if a.feasible { "yes" } else { "NO" }.into(),
+                        ceiling,
+                    ]
+                })
+                .collect(),
+        ));
+    }
+
     b.push(Block::Heading(2, "Rate window".into()));
     match &report.window {
         Some(w) if w.empty => {
-            b.push(Block::Para(format!(
-                "**The window is empty:** the spec with headroom needs at least {} Hz and the CPU budget allows at most {} Hz. What would open it:",
-                fmt_num(w.low_hz),
-                fmt_num(w.high_hz)
-            )));
+            b.push(Block::Para(if w.high_hz < w.low_hz {
+                format!(
+                    "**The window is empty:** the spec with headroom needs at least {} Hz and the {} allows at most {} Hz. What would open it:",
+                    fmt_num(w.low_hz),
+                    w.high_bound,
+                    fmt_num(w.high_hz)
+                )
+            } else {
+                format!(
+                    "**The window is empty:** the spec with headroom needs at least {} Hz, and the {}. What would open it:",
+                    fmt_num(w.low_hz),
+                    w.high_bound
+                )
+            }));
             b.push(Block::List(report.advice.clone()));
         }
         Some(w) => b.push(Block::Para(format!(
-            "From {} Hz (the spec with headroom) to {} Hz (the CPU budget): any rate in it meets both.",
+            "From {} Hz (the spec with headroom) to {} Hz (the {}): any rate in it meets both.",
             fmt_num(w.low_hz),
-            fmt_num(w.high_hz)
+            fmt_num(w.high_hz),
+            w.high_bound
         ))),
-        None if case.budget.is_none() => b.push(Block::Para(
+        None if case.budget.is_none() && case.arithmetic.is_none() => b.push(Block::Para(
             "The case gives no CPU budget, so there is no upper end to the window.".into(),
+        )),
+        None if case.budget.is_none() => b.push(Block::Para(
+            "The case gives no CPU budget and every format holds to the top of the sweep, so there is no upper end to the window.".into(),
         )),
         None => b.push(Block::Para(
             "No window: there is no recommended rate to start it from.".into(),
@@ -411,7 +540,11 @@ fn blocks(
 
     b.push(Block::Heading(2, "Assumptions".into()));
     let mut assumptions = vec![
-        "Every figure is computed from the models above (nominal parameter values): the exact sampled-data loop, with the plant output evaluated between samples.".to_string(),
+        if report.robust.is_some() {
+            "Every figure is computed from the models above: the exact sampled-data loop, with the plant output evaluated between samples; the recommendation rests on the worst plant variant, the figures table on the nominal one beside the worst.".to_string()
+        } else {
+            "Every figure is computed from the models above (nominal parameter values): the exact sampled-data loop, with the plant output evaluated between samples.".to_string()
+        },
         format!(
             "The controller's output is applied {} of a period after each sample (the computation delay the recommendation is made at: the largest the case lists).",
             fmt_num(report.design_delay)
@@ -454,6 +587,9 @@ fn chart_caption(name: &str) -> &'static str {
         }
         crate::charts::DISTURBANCE => {
             "Response to a unit load step at the plant input, at the recommended rate and at f*."
+        }
+        crate::charts::PRECISION => {
+            "Controller pole and DC gain error from rounding the coefficients, per number format, against the rate; each format's precision ceiling marked."
         }
         _ => "Chart.",
     }

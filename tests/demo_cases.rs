@@ -22,7 +22,7 @@ fn picked(name: &str) -> (Case, PreparedLoop, PickReport) {
     let c = demo(name);
     let lp = prepare(&c).unwrap();
     let rows = sweep::run(
-        &sweep::Plan::nominal(&lp, &c.spec, c.budget.as_ref()),
+        &sweep::Plan::for_case(&c, &lp, None),
         &case_grid(&c, &lp),
         &|| {},
     );
