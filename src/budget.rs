@@ -68,7 +68,7 @@ pub fn timer_rate_at_least(timer_hz: f64, rate_hz: f64) -> Option<(f64, u64)> {
 pub struct RateWindow {
     pub low_hz: f64,
     pub high_hz: f64,
-    /// What sets `high_hz`: `cpu budget` or `q15 coefficients (df2t)`.
+    /// What sets `high_hz`: `CPU budget` or `q15 coefficients (df2t)`.
     pub high_bound: String,
     /// Empty when the recommended rate is above the ceiling.
     pub empty: bool,

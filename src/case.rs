@@ -6,8 +6,8 @@
 //! Loading is strict: unknown keys, wrong types and inconsistent values
 //! are errors that name the file and the dotted field (`plant.tf`,
 //! `rates.min_hz`, `methods.use[2]`), and expression errors show the
-//! expression with a caret under the column. The key reference is in
-//! `docs/case-file.md`.
+//! expression with a caret under the column. The key reference is the
+//! README's case-file section.
 //!
 //! Transfer functions written as expressions may use the parameters of
 //! `[params]`; they are parsed once and evaluated for any parameter values

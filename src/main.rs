@@ -16,7 +16,7 @@ use looprate::continuous::HoldApprox;
 use looprate::discretize::{Method, discretize};
 use looprate::evaluate::{Point, PreparedLoop};
 use looprate::expr::Expr;
-use looprate::pick::{case_grid, pick, prepare};
+use looprate::pick::{Picked, case_grid, case_variants, prepare, sweep_and_pick};
 use looprate::search::Silent;
 use looprate::tf::{Controller, Tf};
 use looprate::variants::VariantSet;
@@ -292,7 +292,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
             }
             let lp = prepare(&c)?;
             let (rows, set) = in_pool(threads, || -> Result<_> {
-                let set = variant_set(&c, &lp)?;
+                let set = case_variants(&c, &lp)?;
                 let rows = run_sweep(&c, &lp, set.as_ref(), variants, quiet);
                 if let Some(set) = &set
                     && variants
@@ -334,9 +334,13 @@ fn run(cli: Cli) -> Result<ExitCode> {
             let c = Case::load(&case)?;
             let lp = prepare(&c)?;
             let report = in_pool(threads, || -> Result<_> {
-                let set = variant_set(&c, &lp)?;
-                let rows = run_sweep(&c, &lp, set.as_ref(), false, quiet);
-                let report = pick(&c, &lp, set.as_ref(), &rows, &Silent);
+                let bar = progress(case_grid(&c, &lp).len(), quiet);
+                let Picked {
+                    rows,
+                    variants: set,
+                    report,
+                } = sweep_and_pick(&c, &lp, &|| bar.inc(1), &Silent)?;
+                bar.finish_and_clear();
                 // Charts are drawn while the CSV and JSON are written.
                 let (charts, tables) = rayon::join(
                     || -> Result<_> {
@@ -392,12 +396,18 @@ fn in_pool<T: Send>(threads: Option<usize>, f: impl FnOnce() -> T + Send) -> Res
     Ok(pool.install(f))
 }
 
-/// The plant variants of a case with `[uncertainty]`.
-fn variant_set(c: &Case, lp: &PreparedLoop) -> Result<Option<VariantSet>> {
-    Ok(match c.uncertainty {
-        Some(_) => Some(VariantSet::new(c, lp)?),
-        None => None,
-    })
+/// A progress bar on a terminal, hidden otherwise or with `--quiet`.
+fn progress(len: usize, quiet: bool) -> ProgressBar {
+    if quiet || !std::io::stderr().is_terminal() {
+        return ProgressBar::hidden();
+    }
+    let b = ProgressBar::new(len as u64);
+    if let Ok(style) =
+        ProgressStyle::with_template("{bar:40} {pos}/{len} points  {elapsed_precise} (eta {eta})")
+    {
+        b.set_style(style);
+    }
+    b
 }
 
 fn run_sweep(
@@ -408,17 +418,7 @@ fn run_sweep(
     quiet: bool,
 ) -> Vec<sweep::SweepRow> {
     let points = case_grid(c, lp);
-    let bar = if quiet || !std::io::stderr().is_terminal() {
-        ProgressBar::hidden()
-    } else {
-        let b = ProgressBar::new(points.len() as u64);
-        if let Ok(style) = ProgressStyle::with_template(
-            "{bar:40} {pos}/{len} points  {elapsed_precise} (eta {eta})",
-        ) {
-            b.set_style(style);
-        }
-        b
-    };
+    let bar = progress(points.len(), quiet);
     let plan = sweep::Plan {
         keep_variants,
         ..sweep::Plan::for_case(c, lp, variants)

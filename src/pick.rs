@@ -39,6 +39,42 @@ pub fn prepare(case: &Case) -> Result<PreparedLoop, Error> {
     })
 }
 
+/// A finished job: the sweep's rows, the plant variants they were
+/// evaluated on (with `[uncertainty]`) and the answer.
+pub struct Picked {
+    pub rows: Vec<SweepRow>,
+    pub variants: Option<VariantSet>,
+    pub report: PickReport,
+}
+
+/// The plant variants of a case with `[uncertainty]` (None without).
+pub fn case_variants(case: &Case, lp: &PreparedLoop) -> Result<Option<VariantSet>, Error> {
+    case.uncertainty
+        .as_ref()
+        .map(|_| VariantSet::new(case, lp))
+        .transpose()
+}
+
+/// The whole job on a case: its variants, the sweep of its grid (with
+/// everything the case asks for) and the pick. `on_done` is called once
+/// per swept point.
+pub fn sweep_and_pick(
+    case: &Case,
+    lp: &PreparedLoop,
+    on_done: &(dyn Fn() + Sync),
+    observer: &dyn SearchObserver,
+) -> Result<Picked, Error> {
+    let variants = case_variants(case, lp)?;
+    let plan = Plan::for_case(case, lp, variants.as_ref());
+    let rows = sweep::run(&plan, &case_grid(case, lp), on_done);
+    let report = pick(case, lp, variants.as_ref(), &rows, observer);
+    Ok(Picked {
+        rows,
+        variants,
+        report,
+    })
+}
+
 /// The methods of the sweep: the case's list, or "given in z".
 pub fn case_methods(case: &Case) -> Vec<Option<Method>> {
     if case.methods.is_empty() {
@@ -413,7 +449,7 @@ pub fn pick(
     });
     let top = match (cpu, prec) {
         (Some((cc, _)), Some((pc, name))) if pc < cc => Some((pc, name)),
-        (Some((cc, _)), _) => Some((cc, "cpu budget".to_string())),
+        (Some((cc, _)), _) => Some((cc, "CPU budget".to_string())),
         (None, Some(p)) => Some(p),
         (None, None) => None,
     };

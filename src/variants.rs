@@ -65,13 +65,13 @@ pub fn parameter_sets(case: &Case) -> Vec<Vec<f64>> {
                         .collect()
                 })
                 .collect();
-            for k in 0..samples {
+            out.extend((0..samples).map(|k| {
                 let mut v = nominal.clone();
-                for (c, &i) in ranged.iter().enumerate() {
-                    v[i] = columns[c][k];
+                for (column, &i) in columns.iter().zip(&ranged) {
+                    v[i] = column[k];
                 }
-                out.push(v);
-            }
+                v
+            }));
         }
     }
     out
@@ -128,7 +128,7 @@ impl VariantSet {
                     &m.sensor,
                     &nominal.controller,
                     prewarp_hz,
-                    nominal.time.clone(),
+                    nominal.time,
                 )
                 .map_err(|e| Error::Model {
                     context: format!(

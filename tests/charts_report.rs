@@ -6,11 +6,11 @@ use std::path::{Path, PathBuf};
 use looprate::case::Case;
 use looprate::charts::write_charts;
 use looprate::evaluate::PreparedLoop;
-use looprate::pick::{PickReport, case_grid, pick, prepare};
+use looprate::pick::{PickReport, Picked, prepare, sweep_and_pick};
 use looprate::report::write_report;
 use looprate::search::Silent;
 use looprate::summary::fmt_num;
-use looprate::sweep::{self, SweepRow};
+use looprate::sweep::SweepRow;
 
 const CASE: &str = r#"
 title = "Invented positioning loop"
@@ -72,13 +72,7 @@ fn run(text: &str, dir: &Path) -> Run {
     std::fs::write(&path, text).unwrap();
     let case = Case::load(&path).unwrap();
     let lp = prepare(&case).unwrap();
-    let grid = case_grid(&case, &lp);
-    let rows = sweep::run(
-        &sweep::Plan::nominal(&lp, &case.spec, case.budget.as_ref()),
-        &grid,
-        &|| {},
-    );
-    let report = pick(&case, &lp, None, &rows, &Silent);
+    let Picked { rows, report, .. } = sweep_and_pick(&case, &lp, &|| {}, &Silent).unwrap();
     Run {
         case,
         lp,

@@ -6,7 +6,7 @@ use std::path::PathBuf;
 
 use looprate::case::Case;
 use looprate::evaluate::PreparedLoop;
-use looprate::pick::{PickReport, case_grid, pick, prepare};
+use looprate::pick::{PickReport, prepare, sweep_and_pick};
 use looprate::search::Silent;
 use looprate::sweep;
 
@@ -21,12 +21,7 @@ fn demo(name: &str) -> Case {
 fn picked(name: &str) -> (Case, PreparedLoop, PickReport) {
     let c = demo(name);
     let lp = prepare(&c).unwrap();
-    let rows = sweep::run(
-        &sweep::Plan::for_case(&c, &lp, None),
-        &case_grid(&c, &lp),
-        &|| {},
-    );
-    let report = pick(&c, &lp, None, &rows, &Silent);
+    let report = sweep_and_pick(&c, &lp, &|| {}, &Silent).unwrap().report;
     (c, lp, report)
 }
 
