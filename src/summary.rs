@@ -560,6 +560,43 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::evaluate::PreparedLoop) 
             .join(", "),
         case.compute_delays
     );
+    if let Some(u) = &case.uncertainty {
+        let n = crate::variants::parameter_sets(case).len();
+        let how = match u {
+            crate::case::UncertaintyMode::Corners => "every corner".to_string(),
+            crate::case::UncertaintyMode::Samples { samples, seed } => {
+                format!("{samples} Latin hypercube points (seed {seed})")
+            }
+        };
+        let ranges = case
+            .params
+            .iter()
+            .filter(|p| p.min < p.max)
+            .map(|p| format!("{} in [{}, {}]", p.name, fmt_num(p.min), fmt_num(p.max)))
+            .collect::<Vec<_>>()
+            .join(", ");
+        let _ = writeln!(
+            s,
+            "plant variants: {n} (nominal and {how}; {})",
+            if ranges.is_empty() {
+                "no range has width".to_string()
+            } else {
+                ranges
+            }
+        );
+    }
+    if let Some(a) = &case.arithmetic {
+        let _ = writeln!(
+            s,
+            "coefficients: {} in {}",
+            a.formats
+                .iter()
+                .map(|f| f.name())
+                .collect::<Vec<_>>()
+                .join(", "),
+            a.structure.name()
+        );
+    }
     if let Some(d) = &lp.design {
         let _ = writeln!(s, "\ncontinuous loop C(s) P(s) H(s): {}", d.status.label());
         if let Some(f) = &d.figures {

@@ -229,3 +229,54 @@ fn empty_window_is_stated_with_both_numbers() {
         assert!(md.contains(&format!("- {a}")), "advice missing: {a}");
     }
 }
+
+#[test]
+fn variants_and_precision_reach_every_output() {
+    let dir = out_dir("robust");
+    let text = CASE
+        .replace("tf = \"20 / (s * (0.05*s + 1))\"", "tf = \"k / (s * (0.05*s + 1))\"")
+        .replace(
+            "[plant]",
+            "[params]\nk = { nominal = 20, min = 16, max = 24 }\n[uncertainty]\nmode = \"corners\"\n[arithmetic]\nformats = [\"q11\", \"f32\"]\nstructure = \"sos\"\n[plant]",
+        );
+    let r = run(&text, &dir);
+    let charts = write_charts(&dir, &r.case, &r.lp, &r.rows, &r.report).unwrap();
+    let png = dir.join("precision.png");
+    assert!(charts.contains(&png), "{charts:?}");
+    check_png(&png);
+    let md_path = write_report(&dir, &r.case, &r.report, &charts).unwrap();
+    let md = std::fs::read_to_string(&md_path).unwrap();
+    assert!(md.contains("## Slowest rate over the plant variants"));
+    assert!(md.contains("## Coefficient precision"));
+    // The robust table's numbers are pick.json's.
+    let json = serde_json::to_value(&r.report).unwrap();
+    let robust = &json["robust"];
+    assert_eq!(robust["variants"], 3);
+    let table = &md[md.find("## Slowest rate over the plant variants").unwrap()..];
+    for m in robust["methods"].as_array().unwrap() {
+        let name = m["method"].as_str().unwrap();
+        let row = table
+            .lines()
+            .find(|l| l.starts_with(&format!("| {name} |")))
+            .unwrap_or_else(|| panic!("no robust row for {name}"));
+        let cells: Vec<&str> = row.split('|').map(str::trim).collect();
+        let f = m["slowest_rate_hz"].as_f64().unwrap();
+        assert_same(cells[3], &fmt_num(f), f);
+        let n = m["nominal_slowest_rate_hz"].as_f64().unwrap();
+        assert_same(cells[4], &fmt_num(n), n);
+    }
+    // Both formats are in the precision table and in pick.json.
+    for f in ["q11", "f32"] {
+        assert!(
+            md.lines().any(|l| l.starts_with(&format!("| {f} |"))),
+            "{f}"
+        );
+        assert!(
+            json["precision"]["at_recommended"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .any(|a| a["format"] == f)
+        );
+    }
+}
