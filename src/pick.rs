@@ -200,6 +200,9 @@ pub struct FormatCeiling {
 pub struct FormatAtRate {
     pub format: String,
     pub damage: Option<Damage>,
+    /// Why there is no damage figure, when there is none.
+    pub reason: Option<String>,
+    /// Whether the design's integrators survive (None without any).
     pub integral_kept: Option<bool>,
     pub feasible: bool,
     pub limiting: Option<String>,
@@ -421,8 +424,9 @@ pub fn pick(
         _ => None,
     };
     if case.arithmetic.is_some() {
+        let crossover = eval.figures.as_ref().and_then(|f| f.crossover_hz);
         report.precision = Some(precision_report(
-            case, lp, rows, &answers, method, rate, observer,
+            case, lp, rows, &answers, method, rate, crossover, observer,
         ));
     }
     // The window's top: the lower of the CPU ceiling and the first
@@ -439,7 +443,7 @@ pub fn pick(
                 None => (
                     f64::NEG_INFINITY,
                     format!(
-                        "{} coefficients ({}), which fail already at the recommended rate ({})",
+                        "{} coefficients ({}) fail already at the recommended rate (`{}`)",
                         c.format,
                         pr.structure,
                         c.ceiling.limiting.as_deref().unwrap_or("?")
@@ -531,9 +535,6 @@ fn robust_report(
                 v.assessment
             };
             let mut rate = slowest_rate_by(method, delay, &coarse, &judge);
-            if let Controller::Discrete(_) = &lp.controller {
-                rate.at_range_floor = false;
-            }
             // The worst variant: where the answer is decided.
             let mut all: Vec<(f64, Assessment, usize)> =
                 grid.iter().map(|g| (g.0, g.1.clone(), g.2)).collect();
@@ -556,8 +557,13 @@ fn robust_report(
                     .map(|(name, value)| NamedValue { name, value })
                     .collect()
             });
+            let worst_limiting = decisive.and_then(|d| d.1.limiting.map(str::to_string));
+            if let Controller::Discrete(_) = &lp.controller {
+                // One rate only: "at or below" the range floor does not apply.
+                rate.at_range_floor = false;
+            }
             RobustRate {
-                worst_limiting: decisive.and_then(|d| d.1.limiting.map(str::to_string)),
+                worst_limiting,
                 worst_variant,
                 nominal_slowest_rate_hz: nominal.slowest_rate_hz,
                 rate,
@@ -597,6 +603,7 @@ fn precision_report(
     answers: &[SlowestRate],
     recommended_method: Option<Method>,
     recommended_rate: f64,
+    recommended_crossover_hz: Option<f64>,
     observer: &dyn SearchObserver,
 ) -> PrecisionReport {
     let Some(arith) = case.arithmetic.as_ref() else {
@@ -606,11 +613,14 @@ fn precision_report(
     let design_delay = case.compute_delays.iter().copied().fold(0.0, f64::max);
     let plan = Plan::for_case(case, lp, None);
     let evaluated = plan.formats();
+    // As in the sweep: the design's crossover, else (a controller given
+    // in z, which runs at one rate) the loop's own at that rate.
     let check_hz = lp
         .design
         .as_ref()
         .and_then(|d| d.figures.as_ref())
-        .and_then(|f| f.crossover_hz);
+        .and_then(|f| f.crossover_hz)
+        .or(recommended_crossover_hz);
     let mut jobs: Vec<(Option<Method>, f64, Format)> = Vec::new();
     for m in case_methods(case) {
         let Some(f_star) = answers
@@ -697,7 +707,12 @@ fn precision_report(
             let v = precision::judge_point(lp, spec, &p, arith.structure, format, check_hz);
             FormatAtRate {
                 format: format.name(),
-                integral_kept: v.damage.as_ref().map(Damage::integral_kept),
+                reason: v.reason,
+                integral_kept: v
+                    .damage
+                    .as_ref()
+                    .filter(|d| d.integrators > 0)
+                    .map(Damage::integral_kept),
                 damage: v.damage,
                 feasible: v.assessment.feasible,
                 limiting: v.assessment.limiting.map(str::to_string),
@@ -782,9 +797,17 @@ fn empty_window_advice(
             "a looser spec: `{lim}` is what sets the slowest rate"
         ));
     }
-    let shorter: Vec<String> = report
-        .methods
-        .iter()
+    // Only the CPU ceiling is known at every rate; a format's ceiling was
+    // searched for the design delay alone.
+    let cpu_bound =
+        report.cpu_ceiling_hz == Some(ceiling) && !window.high_bound.contains("coefficients");
+    let answers: Vec<&SlowestRate> = match &report.robust {
+        Some(rb) => rb.methods.iter().map(|m| &m.rate).collect(),
+        None => report.methods.iter().collect(),
+    };
+    let shorter: Vec<String> = answers
+        .into_iter()
+        .filter(|_| cpu_bound)
         .filter(|m| m.compute_delay < report.design_delay)
         .filter_map(|m| m.slowest_rate_hz.map(|f| (m, f)))
         .filter(|(_, f)| f * case.spec.headroom <= ceiling)
@@ -797,7 +820,7 @@ fn empty_window_advice(
         .collect();
     if !shorter.is_empty() {
         out.push(format!(
-            "a shorter computation delay fits the window: {}",
+            "a shorter computation delay fits the CPU budget: {}",
             shorter.join(", ")
         ));
     }

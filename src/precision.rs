@@ -79,6 +79,7 @@ impl FromStr for Format {
             _ => {
                 let bits = s
                     .strip_prefix('q')
+                    .filter(|b| b.bytes().all(|c| c.is_ascii_digit()) && !b.starts_with('0'))
                     .and_then(|b| b.parse::<u32>().ok())
                     .filter(|b| FIXED_BITS.contains(b));
                 bits.map(|magnitude_bits| Format::Fixed { magnitude_bits })
@@ -518,30 +519,58 @@ pub fn quantize(
 ) -> Result<Quantized, String> {
     let exact = realize(c, structure, integrators)?;
     let (rounded, q_format) = round_realization(&exact, format)?;
-    let q = if format == Format::F64 {
+    let f64_only = format == Format::F64;
+    let q = if f64_only {
         c.clone()
     } else {
         transfer(&rounded, c.period_s)
     };
-    let integrators_after = if format == Format::F64 {
+    let integrators_after = if f64_only {
         integrators
     } else {
         poles_at_one(&rounded)
     };
-    let p0 =
-        c.tf.den
-            .roots()
-            .ok_or("the controller's poles could not be found")?;
-    let p1 =
-        q.tf.den
-            .roots()
-            .ok_or("the rounded controller's poles could not be found")?;
-    let z0 = c.tf.num.roots().unwrap_or_default();
-    let z1 = q.tf.num.roots().unwrap_or_default();
+    // Poles and zeros before and after rounding. In sos each section's
+    // roots come from the quadratic formula on its own coefficients, and
+    // the gain errors are measured against the unrounded sections, so the
+    // figures measure the rounding alone (not the root finder's ~1e-8
+    // splitting of repeated roots when the sections were formed). In df2t
+    // the design's integrators, which root finding returns split around
+    // z = 1, are placed exactly at 1, and so are the rounded controller's
+    // (counted exactly by `poles_at_one`).
+    let (p0, p1, z0, z1, reference) = match structure {
+        Structure::Sos if !f64_only => (
+            section_roots(&exact, |s| &s.a, true),
+            section_roots(&rounded, |s| &s.a, true),
+            section_roots(&exact, |s| &s.b, false),
+            section_roots(&rounded, |s| &s.b, false),
+            transfer(&exact, c.period_s),
+        ),
+        _ => {
+            let mut p0 =
+                c.tf.den
+                    .roots()
+                    .ok_or("the controller's poles could not be found")?;
+            let mut p1 =
+                q.tf.den
+                    .roots()
+                    .ok_or("the rounded controller's poles could not be found")?;
+            snap_to_one(&mut p0, integrators);
+            snap_to_one(&mut p1, integrators_after);
+            (
+                p0,
+                p1,
+                c.tf.num.roots().unwrap_or_default(),
+                q.tf.num.roots().unwrap_or_default(),
+                c.clone(),
+            )
+        }
+    };
     let t = c.period_s;
+    let one = C64::new(1.0, 0.0);
     let pole_error_pct = matched(&p0, &p1)
         .iter()
-        .filter(|(a, _)| a.norm() > 0.0 && (a - 1.0).norm() > 1e-12)
+        .filter(|(a, b)| a.norm() > 0.0 && *a != one && *b != one)
         .map(|(a, b)| {
             if b.norm() == 0.0 {
                 return 100.0;
@@ -559,13 +588,13 @@ pub fn quantize(
         pole_error_pct,
         dc_gain_error_pct: (integrators_after == integrators)
             .then(|| {
-                let g0 = integral_gain(c, integrators);
+                let g0 = integral_gain(&reference, integrators);
                 let g1 = integral_gain(&q, integrators);
                 rel_pct(g1, g0)
             })
             .flatten(),
         crossover_gain_error_pct: check_w_rad_s
-            .and_then(|w| rel_pct(q.freq(w).norm(), c.freq(w).norm())),
+            .and_then(|w| rel_pct(q.freq(w).norm(), reference.freq(w).norm())),
         integrators,
         integrators_after,
         new_unstable_poles: outside(&p1).saturating_sub(outside(&p0)),
@@ -575,6 +604,53 @@ pub fn quantize(
         realization: rounded,
         damage,
     })
+}
+
+/// Roots in z of every section's denominator (`leading_one`: the stored
+/// `a1, a2` after an implicit 1) or numerator (`b0, b1, b2`), each by the
+/// quadratic formula; a root at z = 1 of `1 - q` or `1 - 2q + q^2` comes
+/// out exactly 1.
+fn section_roots(
+    r: &Realization,
+    coeffs: impl Fn(&Section) -> &Vec<f64>,
+    leading_one: bool,
+) -> Vec<C64> {
+    let mut out = Vec::new();
+    for s in &r.sections {
+        let mut c: Vec<f64> = if leading_one {
+            std::iter::once(1.0)
+                .chain(coeffs(s).iter().copied())
+                .collect()
+        } else {
+            coeffs(s).clone()
+        };
+        while c.last() == Some(&0.0) {
+            // A trailing zero coefficient in q is a root at z = 0.
+            c.pop();
+            out.push(C64::new(0.0, 0.0));
+        }
+        match c.as_slice() {
+            [a, b] => out.push(C64::new(-b / a, 0.0)),
+            [a, b, cc] => {
+                let disc = b * b - 4.0 * a * cc;
+                if disc >= 0.0 {
+                    // The root away from cancellation first, then Vieta.
+                    let sign = if *b < 0.0 { -1.0 } else { 1.0 };
+                    let big = -(b + sign * disc.sqrt()) / (2.0 * a);
+                    let small = if big != 0.0 { cc / (a * big) } else { 0.0 };
+                    out.push(C64::new(big, 0.0));
+                    out.push(C64::new(small, 0.0));
+                } else {
+                    let re = -b / (2.0 * a);
+                    let im = (-disc).sqrt() / (2.0 * a);
+                    out.push(C64::new(re, im));
+                    out.push(C64::new(re, -im));
+                }
+            }
+            _ => {}
+        }
+    }
+    out
 }
 
 /// `|a / b - 1|` in percent; None when b is zero or either is not finite.
@@ -647,14 +723,15 @@ fn max_shift(a: &[C64], b: &[C64]) -> f64 {
 
 /// Poles the design puts at z = 1: the continuous controller's poles at
 /// s = 0 (every method maps s = 0 to z = 1), or for a controller given in
-/// z the poles within 1e-9 of 1.
+/// z the poles within 1e-6 of 1 (root finding splits a double root at 1 by
+/// about 1e-8, so a tighter test would miss a double integrator).
 pub fn design_integrators(controller: &Controller) -> usize {
     match controller {
         Controller::Continuous(c) => c.den.zero_root_count(),
         Controller::Discrete(d) => {
             d.tf.den
                 .roots()
-                .map_or(0, |r| r.iter().filter(|p| (*p - 1.0).norm() < 1e-9).count())
+                .map_or(0, |r| r.iter().filter(|p| (*p - 1.0).norm() < 1e-6).count())
         }
     }
 }
@@ -670,11 +747,17 @@ pub struct PrecisionPoint {
     /// structural failure (integral action lost, a pole rounded onto
     /// z = 1 or out of the unit circle) is infeasible with that name.
     pub assessment: Assessment,
+    /// Why there is no damage figure (controller not built, or a
+    /// coefficient too large for the word).
+    pub reason: Option<String>,
 }
 
-/// Name of the verdict when the coefficients do not fit the word or the
-/// controller cannot be built at all.
+/// Name of the verdict when the coefficients do not fit the word.
 pub const NOT_REPRESENTABLE: &str = "coefficients";
+
+/// Name of the verdict when the controller cannot be built at this rate
+/// (e.g. `tustin-prewarp` with the pre-warp frequency at or above Nyquist).
+pub const NO_CONTROLLER: &str = "controller";
 
 fn failed(name: &'static str) -> Assessment {
     Assessment {
@@ -696,26 +779,32 @@ pub fn judge_point(
     format: Format,
     check_hz: Option<f64>,
 ) -> PrecisionPoint {
-    let verdict = |damage, assessment| PrecisionPoint {
+    let failure = |name: &'static str, reason: String| PrecisionPoint {
         format,
-        damage,
-        assessment,
+        damage: None,
+        assessment: failed(name),
+        reason: Some(reason),
     };
     let c = match lp.controller_at(p.rate_hz, p.method) {
         Ok(c) => c,
-        Err(_) => return verdict(None, failed(NOT_REPRESENTABLE)),
+        Err(e) => return failure(NO_CONTROLLER, e),
     };
     let integrators = design_integrators(&lp.controller);
     let w = check_hz.map(|f| 2.0 * std::f64::consts::PI * f);
     let q = match quantize(&c, integrators, structure, format, w) {
         Ok(q) => q,
-        Err(_) => return verdict(None, failed(NOT_REPRESENTABLE)),
+        Err(e) => return failure(NOT_REPRESENTABLE, e),
     };
-    if let Some(name) = q.damage.structural_failure() {
-        return verdict(Some(q.damage), failed(name));
+    let assessment = match q.damage.structural_failure() {
+        Some(name) => failed(name),
+        None => assess(&lp.sampled_with(p, &q.controller), spec),
+    };
+    PrecisionPoint {
+        format,
+        damage: Some(q.damage),
+        assessment,
+        reason: None,
     }
-    let a = assess(&lp.sampled_with(p, &q.controller), spec);
-    verdict(Some(q.damage), a)
 }
 
 #[cfg(test)]
@@ -729,6 +818,8 @@ mod tests {
         }
         assert!(Format::from_str("q2").is_err());
         assert!(Format::from_str("q32").is_err());
+        assert!(Format::from_str("q015").is_err());
+        assert!(Format::from_str("q+15").is_err());
         assert!(Format::from_str("int16").unwrap_err().contains("int16"));
     }
 

@@ -390,10 +390,17 @@ fn blocks(
             Some(seed) => format!("a Latin hypercube sample with seed {seed}"),
             None => "every corner of the ranges".into(),
         };
-        b.push(Block::Para(format!(
-            "{} variants: the nominal plant and {how}, for {ranges}. The controller is the nominal design in every variant. A rate passes only when every variant meets the spec.",
-            rb.variants
-        )));
+        b.push(Block::Para(if ranges.is_empty() {
+            format!(
+                "{} variants, all the nominal plant: every parameter range has zero width. A rate passes only when every variant meets the spec.",
+                rb.variants
+            )
+        } else {
+            format!(
+                "{} variants: the nominal plant and {how}, for {ranges}. The controller is the nominal design in every variant. A rate passes only when every variant meets the spec.",
+                rb.variants
+            )
+        }));
         b.push(Block::Table(
             vec![
                 "method".into(),
@@ -485,16 +492,25 @@ fn blocks(
     b.push(Block::Heading(2, "Rate window".into()));
     match &report.window {
         Some(w) if w.empty => {
+            let low = if report
+                .recommended
+                .as_ref()
+                .is_some_and(|r| r.method == "given-in-z")
+            {
+                "the controller given in z runs at"
+            } else {
+                "the spec with headroom needs at least"
+            };
             b.push(Block::Para(if w.high_hz < w.low_hz {
                 format!(
-                    "**The window is empty:** the spec with headroom needs at least {} Hz and the {} allows at most {} Hz. What would open it:",
+                    "**The window is empty:** {low} {} Hz and the {} allows at most {} Hz. What would open it:",
                     fmt_num(w.low_hz),
                     w.high_bound,
                     fmt_num(w.high_hz)
                 )
             } else {
                 format!(
-                    "**The window is empty:** the spec with headroom needs at least {} Hz, and the {}. What would open it:",
+                    "**The window is empty:** {low} {} Hz, but the {}. What would open it:",
                     fmt_num(w.low_hz),
                     w.high_bound
                 )

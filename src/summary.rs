@@ -189,9 +189,10 @@ pub fn evaluation_text(
         for p in &exact.closed_loop_poles {
             let _ = writeln!(
                 s,
-                "  {} {:+}j   |z| = {}",
+                "  {} {}{}j   |z| = {}",
                 fmt_num(p[0]),
-                fmt_num(p[1]),
+                if p[1] < 0.0 { '-' } else { '+' },
+                fmt_num(p[1].abs()),
                 fmt_num(p[0].hypot(p[1]))
             );
         }
@@ -290,11 +291,19 @@ pub fn pick_text(r: &PickReport) -> String {
             Some(seed) => format!("a Latin hypercube sample (seed {seed})"),
             None => "every corner".into(),
         };
-        let _ = writeln!(
-            s,
-            "\nOver {} plant variants (the nominal one and {how} of {ranges}):",
-            rb.variants
-        );
+        let _ = if ranges.is_empty() {
+            writeln!(
+                s,
+                "\nOver {} plant variants (every range has zero width: each is the nominal plant):",
+                rb.variants
+            )
+        } else {
+            writeln!(
+                s,
+                "\nOver {} plant variants (the nominal one and {how} of {ranges}):",
+                rb.variants
+            )
+        };
         let _ = writeln!(
             s,
             "{:<16}{:>8}{:>16}{:>14}{:>22}  worst variant",
@@ -444,6 +453,11 @@ pub fn pick_text(r: &PickReport) -> String {
                 above
             );
         }
+        for a in &pr.at_recommended {
+            if let Some(reason) = &a.reason {
+                let _ = writeln!(s, "  {}: {reason}", a.format);
+            }
+        }
     }
     if let Some(w) = &r.window {
         if w.empty {
@@ -458,7 +472,7 @@ pub fn pick_text(r: &PickReport) -> String {
             } else {
                 let _ = writeln!(
                     s,
-                    "\nNO RATE WINDOW: the spec needs at least {} Hz, and the {}.",
+                    "\nNO RATE WINDOW: the spec needs at least {} Hz, but the {}.",
                     fmt_num(w.low_hz),
                     w.high_bound
                 );
@@ -470,7 +484,15 @@ pub fn pick_text(r: &PickReport) -> String {
         } else {
             let _ = writeln!(
                 s,
-                "\nRate window: {} Hz to {} Hz (spec with headroom .. {}).",
+                "\nRate window: {} Hz to {} Hz ({} .. {}).",
+                if r.recommended
+                    .as_ref()
+                    .is_some_and(|x| x.method == "given-in-z")
+                {
+                    "the controller's own rate"
+                } else {
+                    "spec with headroom"
+                },
                 fmt_num(w.low_hz),
                 fmt_num(w.high_hz),
                 w.high_bound
@@ -515,7 +537,8 @@ fn roots_text(v: Option<Vec<C64>>) -> String {
                 if c.im == 0.0 {
                     fmt_num(c.re)
                 } else {
-                    format!("{}{:+}j", fmt_num(c.re), fmt_num(c.im))
+                    let sign = if c.im < 0.0 { '-' } else { '+' };
+                    format!("{}{sign}{}j", fmt_num(c.re), fmt_num(c.im.abs()))
                 }
             })
             .collect::<Vec<_>>()

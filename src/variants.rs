@@ -261,8 +261,9 @@ impl RobustPoint {
 
 /// Each figure at its worst over `figs`: the largest overshoot, settling,
 /// rise and recovery time (a response that never settles is the worst),
-/// disturbance peak, command peak and sensitivity peak; the smallest gain,
-/// phase and delay margin (a missing margin is infinite, the best).
+/// disturbance peak, command peak and sensitivity peak; the smallest phase
+/// and delay margin and the gain margin of smallest size (a missing margin
+/// is infinite, the best).
 /// `y_final`, the crossover and the horizon come from the variant with the
 /// smallest phase margin, the first when none has one.
 pub fn worst_of(figs: &[&Figures]) -> Option<Figures> {
@@ -299,7 +300,12 @@ pub fn worst_of(figs: &[&Figures]) -> Option<Figures> {
         disturbance_peak: max_f(&|f| f.disturbance_peak),
         recovery_time_s: max_opt(&|f| f.recovery_time_s),
         u_peak: max_f(&|f| f.u_peak),
-        gain_margin_db: min_margin(&|f| f.gain_margin_db),
+        // The gain margin's size is what the limit bounds (a negative
+        // margin keeps its sign): the worst is the one nearest 0 dB.
+        gain_margin_db: figs
+            .iter()
+            .filter_map(|f| f.gain_margin_db)
+            .min_by(|a, b| a.abs().total_cmp(&b.abs())),
         phase_margin_deg: min_margin(&|f| f.phase_margin_deg),
         crossover_hz: by_pm.crossover_hz,
         delay_margin_s: min_margin(&|f| f.delay_margin_s),
@@ -314,4 +320,44 @@ pub fn worst_of(figs: &[&Figures]) -> Option<Figures> {
 pub struct NamedValue {
     pub name: String,
     pub value: f64,
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn figs(gm: Option<f64>, pm: Option<f64>, os: Option<f64>) -> Figures {
+        Figures {
+            y_final: 1.0,
+            overshoot_pct: os,
+            settling_time_s: Some(0.1),
+            rise_time_s: Some(0.01),
+            disturbance_peak: 0.5,
+            recovery_time_s: Some(0.2),
+            u_peak: 3.0,
+            gain_margin_db: gm,
+            phase_margin_deg: pm,
+            crossover_hz: Some(10.0),
+            delay_margin_s: Some(0.01),
+            sensitivity_peak: 1.5,
+            horizon_s: 1.0,
+            horizon_capped: false,
+        }
+    }
+
+    #[test]
+    fn worst_gain_margin_is_the_one_nearest_zero_db() {
+        // -25.8 dB and -13.8 dB: the limit bounds the size, so -13.8 is
+        // the worse (the loop tolerates less gain change).
+        let a = figs(Some(-25.8), Some(40.0), Some(10.0));
+        let b = figs(Some(-13.8), Some(50.0), None);
+        let c = figs(None, None, Some(30.0));
+        let w = worst_of(&[&a, &b, &c]).unwrap();
+        assert_eq!(w.gain_margin_db, Some(-13.8));
+        assert_eq!(w.phase_margin_deg, Some(40.0));
+        // A response with no overshoot figure (y_final = 0) is the worst.
+        assert_eq!(w.overshoot_pct, None);
+        let w = worst_of(&[&a, &c]).unwrap();
+        assert_eq!(w.overshoot_pct, Some(30.0));
+    }
 }

@@ -331,3 +331,66 @@ fn sweep_keeps_one_row_per_point_with_variants_and_formats() {
         }
     }
 }
+
+/// A double integrator in the controller: `2 (s + 1)^2 / (s^2 (0.01 s + 1))`
+/// on `1/(0.5 s + 1)`.
+const DOUBLE_INTEGRATOR: &str = r#"
+[plant]
+tf = "1 / (0.5*s + 1)"
+[controller]
+tf = "2 * (s + 1)^2 / (s^2 * (0.01*s + 1))"
+[rates]
+min_hz = 50
+max_hz = 5000
+points = 40
+[methods]
+use = ["tustin"]
+[spec]
+min_phase_margin_deg = 20
+[arithmetic]
+formats = ["f32", "q31"]
+structure = "sos"
+"#;
+
+#[test]
+fn double_integrator_stays_exact_in_sos() {
+    // In sos both integrators sit in one section 1 - 2q + q^2, whose
+    // coefficients f32 and q31 hold exactly, so they pass at every rate the
+    // f64 loop passes. Rounding f32 (24-bit significand) or q31 (Q1.30)
+    // moves the remaining poles by a relative ~1e-7 or less: pole errors far
+    // below a thousandth of a percent (facts of the formats).
+    let c = case(DOUBLE_INTEGRATOR);
+    let report = run(&c);
+    let pr = report.precision.unwrap();
+    for ceiling in &pr.ceilings {
+        assert!(ceiling.ceiling.above_range, "{ceiling:?}");
+    }
+    for a in &pr.at_recommended {
+        let d = a.damage.as_ref().unwrap();
+        assert_eq!((d.integrators, d.integrators_after), (2, 2), "{}", a.format);
+        assert_eq!(d.new_unstable_poles, 0, "{}", a.format);
+        assert!(
+            d.pole_error_pct < 1e-3,
+            "{}: {}",
+            a.format,
+            d.pole_error_pct
+        );
+    }
+    // The same controller given in z (tustin at 1 kHz): its double pole at
+    // z = 1 comes back from root finding split by ~6e-8 and is still
+    // counted as the design's two integrators.
+    let d = discretize(
+        &Tf::new(
+            Poly::from_descending(&[2.0, 4.0, 2.0]),
+            Poly::from_descending(&[0.01, 1.0, 0.0, 0.0]),
+        ),
+        Method::Tustin,
+        1e-3,
+        None,
+    )
+    .unwrap();
+    assert_eq!(
+        looprate::precision::design_integrators(&looprate::tf::Controller::Discrete(d)),
+        2
+    );
+}
