@@ -425,9 +425,12 @@ pub fn pick(
     };
     if case.arithmetic.is_some() {
         let crossover = eval.figures.as_ref().and_then(|f| f.crossover_hz);
-        report.precision = Some(precision_report(
-            case, lp, rows, &answers, method, rate, crossover, observer,
-        ));
+        let at = Chosen {
+            method,
+            rate_hz: rate,
+            crossover_hz: crossover,
+        };
+        report.precision = Some(precision_report(case, lp, rows, &answers, &at, observer));
     }
     // The window's top: the lower of the CPU ceiling and the first
     // format's precision ceiling (one above the swept range bounds nothing).
@@ -593,6 +596,13 @@ fn robust_report(
     }
 }
 
+/// The recommended method and rate, and the nominal loop's crossover there.
+struct Chosen {
+    method: Option<Method>,
+    rate_hz: f64,
+    crossover_hz: Option<f64>,
+}
+
 /// Precision ceilings for every method with an answer at the design delay
 /// (searched upward from its `f_star` times the headroom, on the nominal
 /// plant), and the damage at the recommended rate.
@@ -601,11 +611,11 @@ fn precision_report(
     lp: &PreparedLoop,
     rows: &[SweepRow],
     answers: &[SlowestRate],
-    recommended_method: Option<Method>,
-    recommended_rate: f64,
-    recommended_crossover_hz: Option<f64>,
+    chosen: &Chosen,
     observer: &dyn SearchObserver,
 ) -> PrecisionReport {
+    let (recommended_method, recommended_rate) = (chosen.method, chosen.rate_hz);
+    let recommended_crossover_hz = chosen.crossover_hz;
     let Some(arith) = case.arithmetic.as_ref() else {
         unreachable!("precision_report is called only with [arithmetic]")
     };
