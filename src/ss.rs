@@ -168,10 +168,14 @@ impl StateSpace {
         }
         let w = n + 1;
         for col in 0..n {
+            // Partial pivoting on |entry| (hypot, computed once per entry).
             let mut piv = col;
+            let mut piv_norm = m[col * w + col].norm();
             for r in col + 1..n {
-                if m[r * w + col].norm() > m[piv * w + col].norm() {
+                let v = m[r * w + col].norm();
+                if v > piv_norm {
                     piv = r;
+                    piv_norm = v;
                 }
             }
             if piv != col {
@@ -180,12 +184,13 @@ impl StateSpace {
                 }
             }
             let p = m[col * w + col];
-            if p.norm() == 0.0 {
+            // |p| == 0 exactly when both parts are zero (no hypot needed).
+            if p.re == 0.0 && p.im == 0.0 {
                 return C64::new(f64::INFINITY, 0.0);
             }
             for r in col + 1..n {
                 let f = m[r * w + col] / p;
-                if f.norm() != 0.0 {
+                if f.re != 0.0 || f.im != 0.0 {
                     for j in col..w {
                         let v = m[col * w + j];
                         m[r * w + j] -= f * v;
