@@ -237,15 +237,36 @@ pub trait ResponseSink {
     fn finished(&self, _bound: f64, _u_bound: f64) -> bool {
         false
     }
-    /// Asked right after a period's sample point was passed in: true when
-    /// the points between that sample and the period's last point cannot
-    /// change the result, given that every point of the period lies in
-    /// `[y_lo, y_hi]`. The last point is then passed in exactly and the
-    /// points between are not: the commands between are the two the sample
-    /// and the last point carry, so only the outputs need the bound.
-    fn interior_irrelevant(&self, _y_lo: f64, _y_hi: f64) -> bool {
+    /// Asked right after a period's sample point was passed in: what the
+    /// points between that sample and the period's last point can change,
+    /// given that every point of the period lies in `[y_lo, y_hi]`. Unless
+    /// `Needed`, the last point is then passed in exactly and the points
+    /// between are not: the commands between are the two the sample and
+    /// the last point carry, so only the outputs need the bound.
+    fn interior(&self, _y_lo: f64, _y_hi: f64) -> Interior {
+        Interior::Needed
+    }
+    /// True when an output in `[y_lo, y_hi]` could raise the peak this
+    /// sink keeps (see `Interior::PeakOnly`).
+    fn could_raise_peak(&self, _y_lo: f64, _y_hi: f64) -> bool {
         false
     }
+    /// An output point passed in late, for the peak only (a maximum does
+    /// not depend on the order of its terms).
+    fn late_peak(&mut self, _y: f64) {}
+}
+
+/// What the points between a period's sample and its last point can change.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Interior {
+    /// Nothing: they need not be computed.
+    Irrelevant,
+    /// Only the peak (a running maximum): they may be computed later and
+    /// passed to `late_peak`, and need not be at all once the peak seen so
+    /// far is above them. Every other figure is unaffected by them.
+    PeakOnly,
+    /// Every point must be passed in, in order.
+    Needed,
 }
 
 impl ResponseSink for Vec<TracePoint> {
@@ -275,25 +296,43 @@ impl ResponseSink for StepMetrics {
             && self.t90.is_some()
             && self.u_final.abs() + u_bound <= self.u_peak.max(self.u_final.abs() * (1.0 + 1e-6))
     }
-    fn interior_irrelevant(&self, y_lo: f64, y_hi: f64) -> bool {
+    fn interior(&self, y_lo: f64, y_hi: f64) -> Interior {
         let yf = self.y_final;
         if yf == 0.0 {
             // Only the command peak is measured (no overshoot, rise or
             // settling figure exists), and it sees every command.
-            return true;
+            return Interior::Irrelevant;
         }
-        // Deviation and fraction of y_final, as `push` measures them.
+        // Fraction of y_final, as `push` measures it.
         let (f_lo, f_hi) = if yf > 0.0 {
             (y_lo / yf, y_hi / yf)
         } else {
             (y_hi / yf, y_lo / yf)
         };
-        let dev_hi = if yf > 0.0 { y_hi - yf } else { yf - y_lo };
-        dev_hi <= self.peak_dev
-            && (self.t10.is_some() || f_hi < 0.1)
+        let others_fixed = (self.t10.is_some() || f_hi < 0.1)
             && (self.t90.is_some() || f_hi < 0.9)
             && f_lo.is_finite()
-            && one_side_of_band(y_lo, y_hi, yf, self.band_abs)
+            && one_side_of_band(y_lo, y_hi, yf, self.band_abs);
+        if !others_fixed {
+            Interior::Needed
+        } else if self.could_raise_peak(y_lo, y_hi) {
+            Interior::PeakOnly
+        } else {
+            Interior::Irrelevant
+        }
+    }
+    fn could_raise_peak(&self, y_lo: f64, y_hi: f64) -> bool {
+        let yf = self.y_final;
+        let dev_hi = if yf > 0.0 { y_hi - yf } else { yf - y_lo };
+        // A NaN bound counts as able to raise the peak (never skipped).
+        let below = dev_hi <= self.peak_dev;
+        yf != 0.0 && !below
+    }
+    fn late_peak(&mut self, y: f64) {
+        let yf = self.y_final;
+        if yf != 0.0 {
+            self.peak_dev = self.peak_dev.max((y - yf) * yf.signum());
+        }
     }
 }
 
@@ -311,8 +350,20 @@ impl ResponseSink for Peak {
     fn finished(&self, bound: f64, _u_bound: f64) -> bool {
         self.y_final.abs() + bound <= self.peak
     }
-    fn interior_irrelevant(&self, y_lo: f64, y_hi: f64) -> bool {
-        y_lo.abs().max(y_hi.abs()) <= self.peak
+    fn interior(&self, y_lo: f64, y_hi: f64) -> Interior {
+        if self.could_raise_peak(y_lo, y_hi) {
+            Interior::PeakOnly
+        } else {
+            Interior::Irrelevant
+        }
+    }
+    fn could_raise_peak(&self, y_lo: f64, y_hi: f64) -> bool {
+        // A NaN bound counts as able to raise the peak (never skipped).
+        let below = y_lo.abs().max(y_hi.abs()) <= self.peak;
+        !below
+    }
+    fn late_peak(&mut self, y: f64) {
+        self.peak = self.peak.max(y.abs());
     }
 }
 
@@ -323,8 +374,12 @@ impl ResponseSink for Recovery {
     fn finished(&self, bound: f64, _u_bound: f64) -> bool {
         self.since.is_some() && bound <= self.threshold
     }
-    fn interior_irrelevant(&self, y_lo: f64, y_hi: f64) -> bool {
-        one_side_of_band(y_lo, y_hi, self.yd_final, self.threshold)
+    fn interior(&self, y_lo: f64, y_hi: f64) -> Interior {
+        if one_side_of_band(y_lo, y_hi, self.yd_final, self.threshold) {
+            Interior::Irrelevant
+        } else {
+            Interior::Needed
+        }
     }
 }
 
@@ -535,6 +590,11 @@ fn kernel<const D: usize, S: ResponseSink + ?Sized>(
     let mut dz = Scratch::new(dim);
     let mut ys = Scratch::new(np);
     let last = np.saturating_sub(1);
+    let mut pending = Pending {
+        states: Vec::new(),
+        ranges: Vec::new(),
+        dim,
+    };
     let mut k = 0;
     while k < periods {
         let z = &mut z[..dim];
@@ -544,7 +604,7 @@ fn kernel<const D: usize, S: ResponseSink + ?Sized>(
         let u_k = out[dim] + u_off;
         let y0 = out[dim + 1] + h[0];
         let t0 = k as f64 * period_s;
-        let mut skip_interior = false;
+        let mut interior = Interior::Needed;
         if let Some((z_end, cert, y_res, u_res, y_scale, u_scale)) = ends {
             let dz = &mut dz[..dim];
             let mut dz_scale = 0.0;
@@ -564,6 +624,9 @@ fn kernel<const D: usize, S: ResponseSink + ?Sized>(
                 // `finished` only gets harder with a larger bound: when the
                 // margins alone do not finish the run, no bound can.
                 if sink.finished(margin, u_margin) {
+                    // Deferred points first: the peak they may raise is
+                    // part of what `finished` compares against.
+                    pending.resolve(sink, g_cols, h, np);
                     let (by, bu) = c.bound(dz);
                     if sink.finished(by + margin, bu + u_margin) {
                         break;
@@ -579,7 +642,15 @@ fn kernel<const D: usize, S: ResponseSink + ?Sized>(
             // Every point of the period: y_j - y_0 = (g_j - g_0) . dz (plus
             // the fixed-point residual), so it lies within `spread`.
             let reach = spread + margin;
-            skip_interior = np > 1 && sink.interior_irrelevant(y0 - reach, y0 + reach);
+            if np > 1 {
+                interior = sink.interior(y0 - reach, y0 + reach);
+                if interior == Interior::PeakOnly {
+                    pending.push(z, y0 - reach, y0 + reach);
+                    if pending.len() >= PENDING_CAP {
+                        pending.resolve(sink, g_cols, h, np);
+                    }
+                }
+            }
         } else {
             sink.point(TracePoint {
                 t: t0,
@@ -588,7 +659,7 @@ fn kernel<const D: usize, S: ResponseSink + ?Sized>(
                 sample: true,
             });
         }
-        if skip_interior {
+        if interior != Interior::Needed {
             sink.point(TracePoint {
                 t: t0 + offsets[last],
                 y: out[dim + 2] + h[last],
@@ -611,7 +682,55 @@ fn kernel<const D: usize, S: ResponseSink + ?Sized>(
         }
         k += 1;
     }
+    pending.resolve(sink, g_cols, h, np);
     k
+}
+
+/// Most periods whose interior is deferred (`Interior::PeakOnly`) before
+/// they are resolved; bounds the memory a run holds.
+const PENDING_CAP: usize = 64;
+
+/// Periods whose points between the sample and the last point matter only
+/// to the peak: their states, to compute those points later if the peak
+/// has not passed them by then.
+struct Pending {
+    states: Vec<f64>,
+    ranges: Vec<(f64, f64)>,
+    dim: usize,
+}
+
+impl Pending {
+    fn len(&self) -> usize {
+        self.ranges.len()
+    }
+
+    fn push(&mut self, z: &[f64], lo: f64, hi: f64) {
+        self.states.extend_from_slice(z);
+        self.ranges.push((lo, hi));
+    }
+
+    /// Pass the points between sample and last point of every deferred
+    /// period that could still raise the peak to `late_peak`; forget all.
+    fn resolve<S: ResponseSink + ?Sized>(
+        &mut self,
+        sink: &mut S,
+        g_cols: &[f64],
+        h: &[f64],
+        np: usize,
+    ) {
+        let mut ys = Scratch::new(np);
+        for (i, &(lo, hi)) in self.ranges.iter().enumerate() {
+            if sink.could_raise_peak(lo, hi) {
+                let z = &self.states[i * self.dim..(i + 1) * self.dim];
+                mat_vec(g_cols, z, &mut ys);
+                for j in 1..np.saturating_sub(1) {
+                    sink.late_peak(ys[j] + h[j]);
+                }
+            }
+        }
+        self.states.clear();
+        self.ranges.clear();
+    }
 }
 
 /// Working storage of the simulation: on the stack when small (so the
