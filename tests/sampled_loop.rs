@@ -380,7 +380,10 @@ fn skipped_and_deferred_points_change_no_figure() {
         assert_eq!(full.settling_time_s, f.settling_time_s, "{at}");
         assert_eq!(full.rise_time_s, f.rise_time_s, "{at}");
         let u_full = step.iter().fold(0.0f64, |a, q| a.max(q.u.abs()));
-        assert!(f.u_peak >= u_full && f.u_peak <= u_full * (1.0 + 1e-6), "{at}");
+        assert!(
+            f.u_peak >= u_full && f.u_peak <= u_full * (1.0 + 1e-6),
+            "{at}"
+        );
         // Disturbance: peak of |y|, then the last entry into the band.
         let peak = dist.iter().fold(0.0f64, |a, q| a.max(q.y.abs()));
         assert_eq!(peak, f.disturbance_peak, "{at}");
