@@ -7,6 +7,7 @@
 
 pub mod budget;
 pub mod case;
+pub mod certificate;
 pub mod charts;
 pub mod closed_loop;
 pub mod continuous;

@@ -151,6 +151,28 @@ impl StateSpace {
     }
 }
 
+/// Largest model `response_at` solves in stack storage.
+const STACK_SOLVE: usize = 8;
+
+/// `a.norm() > b.norm()`, decided exactly as the two `hypot` values would
+/// decide it, mostly without calling `hypot`: when the squared moduli are
+/// in the safe range and differ by more than a relative 1e-12, their order
+/// is the order of the moduli and of the (faithfully rounded) `hypot`
+/// values; near-ties and extreme magnitudes go to `hypot` itself.
+fn norm_greater(a: C64, b: C64) -> bool {
+    let (sa, sb) = (a.norm_sqr(), b.norm_sqr());
+    let safe = |v: f64| (1e-280..=1e280).contains(&v);
+    if safe(sa) && safe(sb) {
+        if sa > sb * (1.0 + 1e-12) {
+            return true;
+        }
+        if sb > sa * (1.0 + 1e-12) {
+            return false;
+        }
+    }
+    a.norm() > b.norm()
+}
+
 impl StateSpace {
     /// Transfer value to output `row` at the complex point `x`:
     /// `C (xI - A)^{-1} B + D`, by Gaussian elimination with partial
@@ -158,19 +180,29 @@ impl StateSpace {
     /// z = 1 at fast rates cost no digits).
     pub fn response_at(&self, x: C64, row: usize) -> C64 {
         let n = self.order();
-        let mut m: Vec<C64> = Vec::with_capacity(n * (n + 1));
+        // Stack storage for the usual sizes (this runs thousands of times
+        // per evaluation); the same arithmetic either way.
+        let mut stack = [C64::new(0.0, 0.0); STACK_SOLVE * (STACK_SOLVE + 1)];
+        let mut heap = Vec::new();
+        let m: &mut [C64] = if n <= STACK_SOLVE {
+            &mut stack[..n * (n + 1)]
+        } else {
+            heap.resize(n * (n + 1), C64::new(0.0, 0.0));
+            &mut heap
+        };
         for i in 0..n {
             for j in 0..n {
                 let d = if i == j { x } else { C64::new(0.0, 0.0) };
-                m.push(d - self.a[(i, j)]);
+                m[i * (n + 1) + j] = d - self.a[(i, j)];
             }
-            m.push(C64::new(self.b[i], 0.0));
+            m[i * (n + 1) + n] = C64::new(self.b[i], 0.0);
         }
         let w = n + 1;
         for col in 0..n {
+            // Partial pivoting on |entry| (hypot, computed once per entry).
             let mut piv = col;
             for r in col + 1..n {
-                if m[r * w + col].norm() > m[piv * w + col].norm() {
+                if norm_greater(m[r * w + col], m[piv * w + col]) {
                     piv = r;
                 }
             }
@@ -180,12 +212,13 @@ impl StateSpace {
                 }
             }
             let p = m[col * w + col];
-            if p.norm() == 0.0 {
+            // |p| == 0 exactly when both parts are zero (no hypot needed).
+            if p.re == 0.0 && p.im == 0.0 {
                 return C64::new(f64::INFINITY, 0.0);
             }
             for r in col + 1..n {
                 let f = m[r * w + col] / p;
-                if f.norm() != 0.0 {
+                if f.re != 0.0 || f.im != 0.0 {
                     for j in col..w {
                         let v = m[col * w + j];
                         m[r * w + j] -= f * v;
@@ -193,7 +226,14 @@ impl StateSpace {
                 }
             }
         }
-        let mut sol = vec![C64::new(0.0, 0.0); n];
+        let mut sol_stack = [C64::new(0.0, 0.0); STACK_SOLVE];
+        let mut sol_heap = Vec::new();
+        let sol: &mut [C64] = if n <= STACK_SOLVE {
+            &mut sol_stack[..n]
+        } else {
+            sol_heap.resize(n, C64::new(0.0, 0.0));
+            &mut sol_heap
+        };
         for i in (0..n).rev() {
             let mut acc = m[i * w + n];
             for j in i + 1..n {

@@ -2,9 +2,10 @@
 //! continuous plant output evaluated exactly between samples, and the
 //! time figures of the loop model taken from that output.
 
-use nalgebra::{DMatrix, DVector};
+use nalgebra::DVector;
 use serde::Serialize;
 
+use crate::certificate::{BoundedRows, Certificate};
 use crate::closed_loop::ClosedLoop;
 use crate::hold::HoldEquivalent;
 use crate::poly::C64;
@@ -236,12 +237,49 @@ pub trait ResponseSink {
     fn finished(&self, _bound: f64, _u_bound: f64) -> bool {
         false
     }
+    /// Asked right after a period's sample point was passed in: what the
+    /// points between that sample and the period's last point can change,
+    /// given that every point of the period lies in `[y_lo, y_hi]`. Unless
+    /// `Needed`, the last point is then passed in exactly and the points
+    /// between are not: the commands between are the two the sample and
+    /// the last point carry, so only the outputs need the bound.
+    fn interior(&self, _y_lo: f64, _y_hi: f64) -> Interior {
+        Interior::Needed
+    }
+    /// True when an output in `[y_lo, y_hi]` could raise the peak this
+    /// sink keeps (see `Interior::PeakOnly`).
+    fn could_raise_peak(&self, _y_lo: f64, _y_hi: f64) -> bool {
+        false
+    }
+    /// An output point passed in late, for the peak only (a maximum does
+    /// not depend on the order of its terms).
+    fn late_peak(&mut self, _y: f64) {}
+}
+
+/// What the points between a period's sample and its last point can change.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Interior {
+    /// Nothing: they need not be computed.
+    Irrelevant,
+    /// Only the peak (a running maximum): they may be computed later and
+    /// passed to `late_peak`, and need not be at all once the peak seen so
+    /// far is above them. Every other figure is unaffected by them.
+    PeakOnly,
+    /// Every point must be passed in, in order.
+    Needed,
 }
 
 impl ResponseSink for Vec<TracePoint> {
     fn point(&mut self, p: TracePoint) {
         self.push(p);
     }
+}
+
+/// True when `[lo, hi]` lies wholly on one side of the closed band
+/// `[c - half, c + half]`: every point in it is inside, or every one is
+/// outside (so a run of such points enters or leaves the band nowhere).
+fn one_side_of_band(lo: f64, hi: f64, c: f64, half: f64) -> bool {
+    (lo >= c - half && hi <= c + half) || hi < c - half || lo > c + half
 }
 
 impl ResponseSink for StepMetrics {
@@ -257,6 +295,44 @@ impl ResponseSink for StepMetrics {
             && bound <= self.peak_dev.max(1e-6 * self.y_final.abs())
             && self.t90.is_some()
             && self.u_final.abs() + u_bound <= self.u_peak.max(self.u_final.abs() * (1.0 + 1e-6))
+    }
+    fn interior(&self, y_lo: f64, y_hi: f64) -> Interior {
+        let yf = self.y_final;
+        if yf == 0.0 {
+            // Only the command peak is measured (no overshoot, rise or
+            // settling figure exists), and it sees every command.
+            return Interior::Irrelevant;
+        }
+        // Fraction of y_final, as `push` measures it.
+        let (f_lo, f_hi) = if yf > 0.0 {
+            (y_lo / yf, y_hi / yf)
+        } else {
+            (y_hi / yf, y_lo / yf)
+        };
+        let others_fixed = (self.t10.is_some() || f_hi < 0.1)
+            && (self.t90.is_some() || f_hi < 0.9)
+            && f_lo.is_finite()
+            && one_side_of_band(y_lo, y_hi, yf, self.band_abs);
+        if !others_fixed {
+            Interior::Needed
+        } else if self.could_raise_peak(y_lo, y_hi) {
+            Interior::PeakOnly
+        } else {
+            Interior::Irrelevant
+        }
+    }
+    fn could_raise_peak(&self, y_lo: f64, y_hi: f64) -> bool {
+        let yf = self.y_final;
+        let dev_hi = if yf > 0.0 { y_hi - yf } else { yf - y_lo };
+        // A NaN bound counts as able to raise the peak (never skipped).
+        let below = dev_hi <= self.peak_dev;
+        yf != 0.0 && !below
+    }
+    fn late_peak(&mut self, y: f64) {
+        let yf = self.y_final;
+        if yf != 0.0 {
+            self.peak_dev = self.peak_dev.max((y - yf) * yf.signum());
+        }
     }
 }
 
@@ -274,6 +350,21 @@ impl ResponseSink for Peak {
     fn finished(&self, bound: f64, _u_bound: f64) -> bool {
         self.y_final.abs() + bound <= self.peak
     }
+    fn interior(&self, y_lo: f64, y_hi: f64) -> Interior {
+        if self.could_raise_peak(y_lo, y_hi) {
+            Interior::PeakOnly
+        } else {
+            Interior::Irrelevant
+        }
+    }
+    fn could_raise_peak(&self, y_lo: f64, y_hi: f64) -> bool {
+        // A NaN bound counts as able to raise the peak (never skipped).
+        let below = y_lo.abs().max(y_hi.abs()) <= self.peak;
+        !below
+    }
+    fn late_peak(&mut self, y: f64) {
+        self.peak = self.peak.max(y.abs());
+    }
 }
 
 impl ResponseSink for Recovery {
@@ -283,19 +374,44 @@ impl ResponseSink for Recovery {
     fn finished(&self, bound: f64, _u_bound: f64) -> bool {
         self.since.is_some() && bound <= self.threshold
     }
+    fn interior(&self, y_lo: f64, y_hi: f64) -> Interior {
+        if one_side_of_band(y_lo, y_hi, self.yd_final, self.threshold) {
+            Interior::Irrelevant
+        } else {
+            Interior::Needed
+        }
+    }
 }
 
 /// The output map of a period: every output point inside a period is
 /// `y_j = g_j . z_k + h_j(r, w)`, and `y_j - y_final = g_j . (z_k - z_final)`.
+/// Also holds the loop in the flat row-major form the simulation's inner
+/// loop reads, and the per-state spreads of the points between samples.
 #[derive(Debug, Clone)]
 pub struct OutputMap {
-    /// Rows `g_j` (points per period x loop states).
-    g: DMatrix<f64>,
+    dim: usize,
+    /// Number of plant + sensor states; `z[n]` is the held command.
+    n: usize,
+    /// Output points per period.
+    np: usize,
+    /// Rows `g_j`, row-major (points per period x loop states).
+    g: Vec<f64>,
     /// Coefficients of `r` and `w` in `h_j`.
-    hr: DVector<f64>,
-    hw: DVector<f64>,
+    hr: Vec<f64>,
+    hw: Vec<f64>,
+    /// The rows of one period's step, column-major (`dim + 3` rows: the
+    /// loop matrix, then `ku`, `g_0` and `g_{np-1}`).
+    step_cols: Vec<f64>,
+    /// The rows `g_j` again, column-major (`g_cols[i*np + j] = g_ji`).
+    g_cols: Vec<f64>,
     /// Whether point j holds `u_{k-1}` (before the computation delay ends).
     holds_previous: Vec<bool>,
+    /// `max_j |g_ji - g_0i|` per state i: how far a point of the period
+    /// can move away from the period's sample, per unit of state error.
+    spread: Vec<f64>,
+    /// `max_j |g_ji|` per state: the scale of the output's terms, for the
+    /// rounding margins.
+    g_abs: Vec<f64>,
 }
 
 impl OutputMap {
@@ -303,88 +419,91 @@ impl OutputMap {
         let dim = cl.a.nrows();
         let n = cl.plant_states;
         let np = hold.intersample.len();
-        let mut g = DMatrix::zeros(np, dim);
-        let mut hr = DVector::zeros(np);
-        let mut hw = DVector::zeros(np);
+        let mut g = vec![0.0; np * dim];
+        let mut hr = vec![0.0; np];
+        let mut hw = vec![0.0; np];
         for (j, row) in hold.intersample.iter().enumerate() {
             let mut gj = &cl.ku * row.cu0;
             for i in 0..n {
                 gj[i] += row.ey[i];
             }
             gj[n] += row.cu1;
-            g.row_mut(j).copy_from(&gj.transpose());
+            g[j * dim..(j + 1) * dim].copy_from_slice(gj.as_slice());
             hr[j] = row.cu0 * cl.dur;
             hw[j] = row.cu0 * cl.duw + row.cw;
         }
+        let spread = (0..dim)
+            .map(|i| {
+                (1..np)
+                    .map(|j| (g[j * dim + i] - g[i]).abs())
+                    .fold(0.0, f64::max)
+            })
+            .collect();
+        let g_abs = (0..dim)
+            .map(|i| (0..np).map(|j| g[j * dim + i].abs()).fold(0.0, f64::max))
+            .collect();
+        let g_cols = (0..np * dim).map(|k| g[(k % np) * dim + k / np]).collect();
+        let rows = dim + 3;
+        let last = np.saturating_sub(1);
+        let step_cols = (0..rows * dim)
+            .map(|k| {
+                let (i, j) = (k % rows, k / rows);
+                match i {
+                    _ if i < dim => cl.a[(i, j)],
+                    _ if i == dim => cl.ku[j],
+                    _ if i == dim + 1 => g[j],
+                    _ => g[last * dim + j],
+                }
+            })
+            .collect();
         OutputMap {
+            dim,
+            n,
+            np,
             g,
             hr,
             hw,
+            step_cols,
+            g_cols,
             holds_previous: (0..np).map(|j| j < hold.switch_index).collect(),
+            spread,
+            g_abs,
+        }
+    }
+
+    /// The rows a stop certificate must bound: the output points and the
+    /// two commands of a period.
+    pub fn bounded_rows<'a>(&'a self, cl: &'a ClosedLoop) -> BoundedRows<'a> {
+        BoundedRows {
+            g: &self.g,
+            points: self.np,
+            ku: cl.ku.as_slice(),
+            held: self.n,
         }
     }
 }
 
-/// A proof that the response can no longer move: with the output-energy
-/// Gramian `P = sum_m (A^m)' Q A^m`, `Q = sum_j g_j g_j'`, the quantity
-/// `V = dz' P dz` is the energy of every later output point's deviation,
-/// so each later `|y - y_final| <= sqrt(V)`. It lets a simulation stop as
-/// soon as no figure can change, long before the pole-based horizon.
-#[derive(Debug, Clone)]
-pub struct Certificate {
-    p: DMatrix<f64>,
-}
+/// Relative size of the rounding margins: how far a computed output or
+/// command may sit from the exact-arithmetic value a bound speaks of, per
+/// unit of the size of the terms summed to make it (thousands of machine
+/// epsilons: generous for dot products of ~10 terms and for the rounding a
+/// stable loop accumulates over its run).
+const ROUNDING_MARGIN: f64 = 1e-10;
 
-impl Certificate {
-    /// Build the certificate for a stable loop; None when the doubling
-    /// iteration does not converge (then the pole-based horizon rules).
-    pub fn new(cl: &ClosedLoop, map: &OutputMap) -> Option<Certificate> {
-        // Q weights every output point and the two commands a period
-        // holds (u_k = ku . z and u_{k-1} = z[n]), so sqrt(V) bounds later
-        // command deviations too.
-        let mut p = map.g.transpose() * &map.g + &cl.ku * cl.ku.transpose();
-        let n = cl.plant_states;
-        p[(n, n)] += 1.0;
-        // P by doubling: P <- P + (A^m)' P A^m, A^m <- (A^m)^2.
-        let mut am = cl.a.clone();
-        for _ in 0..64 {
-            let next = &p + am.transpose() * &p * &am;
-            am = &am * &am;
-            p = next;
-            if !p.iter().all(|v| v.is_finite()) {
-                return None;
-            }
-            if am.amax() < 1e-14 {
-                return Some(Certificate { p });
-            }
-        }
-        None
-    }
-
-    /// Bound on every later |y - y_final| and |u - u_final| from the state
-    /// error `dz`.
-    fn bound(&self, dz: &DVector<f64>) -> f64 {
-        let n = dz.len();
-        let mut v = 0.0;
-        for j in 0..n {
-            let mut pj = 0.0;
-            for i in 0..n {
-                pj += self.p[(i, j)] * dz[i];
-            }
-            v += pj * dz[j];
-        }
-        v.max(0.0).sqrt()
-    }
+#[inline(always)]
+fn dot(row: &[f64], v: &[f64]) -> f64 {
+    row.iter().zip(v).map(|(x, y)| x * y).sum::<f64>()
 }
 
 /// The exact sampled-data simulation: feeds `sink` every output point
 /// (sample instants and `points_per_period - 1` points between). Stops at
 /// `periods`, or, given the fixed point (and a certificate), as soon as
-/// the sink says no later point can change its result; a period that
-/// provably cannot change it is reduced to its sample point. Returns the
-/// number of periods run.
+/// the sink says no later point can change its result. In a period where
+/// a cheap bound proves the points between the sample and the period's
+/// last point cannot change the result, only those two are computed and
+/// passed on. Returns the number of periods run.
 #[allow(clippy::too_many_arguments)]
-pub fn simulate_sampled(
+pub fn simulate_sampled<S: ResponseSink + ?Sized>(
     cl: &ClosedLoop,
     map: &OutputMap,
     period_s: f64,
@@ -392,97 +511,285 @@ pub fn simulate_sampled(
     w: f64,
     periods: usize,
     end: Option<(&DVector<f64>, Option<&Certificate>)>,
-    sink: &mut dyn ResponseSink,
+    sink: &mut S,
 ) -> usize {
-    // Plain row-major slices: this loop runs thousands of times per
-    // evaluation on matrices of size ~8, where generic small-matrix code
-    // spends more on bookkeeping than on arithmetic.
-    let dim = cl.a.nrows();
-    let n = cl.plant_states;
-    let np = map.g.nrows();
-    let a: Vec<f64> = (0..dim * dim).map(|i| cl.a[(i / dim, i % dim)]).collect();
-    let g: Vec<f64> = (0..np * dim).map(|i| map.g[(i / dim, i % dim)]).collect();
+    // The loop size is made a compile-time constant for the usual sizes,
+    // so the short dot products below are unrolled and unchecked; the
+    // arithmetic (and so every output bit) is the same in every copy.
+    macro_rules! sized {
+        ($($d:literal)*) => {
+            match map.dim {
+                $($d => kernel::<$d, S>(cl, map, period_s, r, w, periods, end, sink),)*
+                _ => kernel::<0, S>(cl, map, period_s, r, w, periods, end, sink),
+            }
+        };
+    }
+    sized!(1 2 3 4 5 6 7 8 9 10 11 12)
+}
+
+/// `simulate_sampled` for a loop of `D` states (`D = 0`: any size, read
+/// from the map).
+#[allow(clippy::too_many_arguments)]
+fn kernel<const D: usize, S: ResponseSink + ?Sized>(
+    cl: &ClosedLoop,
+    map: &OutputMap,
+    period_s: f64,
+    r: f64,
+    w: f64,
+    periods: usize,
+    end: Option<(&DVector<f64>, Option<&Certificate>)>,
+    sink: &mut S,
+) -> usize {
+    // Plain slices whose lengths are constants in the sized copies: this
+    // loop runs thousands of times per evaluation on matrices of size ~8,
+    // where generic small-matrix code spends more on bookkeeping than on
+    // arithmetic. Matrix-vector products run column by column so the rows
+    // advance together (vectorizable), each row still summed from -0.0 in
+    // column order: bit for bit the dot product `dot` computes.
+    let dim = if D == 0 { map.dim } else { D };
+    let n = map.n;
+    let np = map.np;
+    let g = &map.g[..np * dim];
+    let g_cols = &map.g_cols[..np * dim];
     let drive: Vec<f64> = (0..dim).map(|i| cl.br[i] * r + cl.bw[i] * w).collect();
+    let drive = &drive[..dim];
     let h: Vec<f64> = (0..np).map(|j| map.hr[j] * r + map.hw[j] * w).collect();
-    let ku: &[f64] = cl.ku.as_slice();
+    let h = &h[..np];
+    let ku: &[f64] = &cl.ku.as_slice()[..dim];
     let u_off = cl.dur * r + cl.duw * w;
     let offsets: Vec<f64> = (0..np).map(|j| j as f64 * period_s / np as f64).collect();
-    let mut z = vec![0.0; dim];
-    let mut next = vec![0.0; dim];
-    let mut dz = DVector::zeros(dim);
-    let mut ys = vec![0.0; np];
-    // max_j |g_ji - g_0i| per state: how far a point between samples can
-    // move away from the sample, per unit of state error.
-    let spread: Vec<f64> = (0..dim)
-        .map(|i| {
-            (1..np)
-                .map(|j| (g[j * dim + i] - g[i]).abs())
-                .fold(0.0, f64::max)
-        })
-        .collect();
-    let dot = |row: &[f64], v: &[f64]| row.iter().zip(v).map(|(x, y)| x * y).sum::<f64>();
+    let u_at = |j: usize, u_prev: f64, u_k: f64| {
+        if map.holds_previous[j] { u_prev } else { u_k }
+    };
+    let h_abs = h.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+    let spread_w = &map.spread[..dim];
+    let g_abs = &map.g_abs[..dim];
+    // Fixed-point residuals: the computed outputs and commands at the
+    // computed fixed point are not exactly equal from point to point; the
+    // bounds below add these differences so they speak of computed values.
+    let ends = end.map(|(z_end, cert)| {
+        let z_end = &z_end.as_slice()[..dim];
+        let y_ends: Vec<f64> = (0..np)
+            .map(|j| dot(&g[j * dim..(j + 1) * dim], z_end) + h[j])
+            .collect();
+        let y_end = y_ends[0];
+        let y_res = y_ends.iter().fold(0.0f64, |m, v| m.max((v - y_end).abs()));
+        let u_end = dot(ku, z_end) + u_off;
+        let u_res = (z_end[n] - u_end).abs();
+        // Output and command scale at the fixed point (rounding margins).
+        let y_scale = h_abs + dot_abs(g_abs, z_end);
+        let u_scale = u_off.abs() + dot_abs(ku, z_end) + z_end[n].abs();
+        (z_end, cert, y_res, u_res, y_scale, u_scale)
+    });
+    // One product per period gives the next state (before its drive),
+    // the command u_k, the sample and the period's last point.
+    let rows = dim + 3;
+    let step_cols = &map.step_cols[..rows * dim];
+    let mut z = Scratch::new(dim);
+    let mut out = Scratch::new(rows);
+    let mut dz = Scratch::new(dim);
+    let mut ys = Scratch::new(np);
+    let last = np.saturating_sub(1);
+    let mut pending = Pending {
+        states: Vec::new(),
+        ranges: Vec::new(),
+        dim,
+    };
     let mut k = 0;
     while k < periods {
+        let z = &mut z[..dim];
+        let out = &mut out[..rows];
+        mat_vec(step_cols, z, out);
         let u_prev = z[n];
-        let u_k = dot(ku, &z) + u_off;
+        let u_k = out[dim] + u_off;
+        let y0 = out[dim + 1] + h[0];
         let t0 = k as f64 * period_s;
-        let mut points = np;
-        let mut known = 0;
-        if let Some((z_end, cert)) = end {
+        let mut interior = Interior::Needed;
+        if let Some((z_end, cert, y_res, u_res, y_scale, u_scale)) = ends {
+            let dz = &mut dz[..dim];
+            let mut dz_scale = 0.0;
+            let mut spread = 0.0;
             for i in 0..dim {
                 dz[i] = z[i] - z_end[i];
+                dz_scale += g_abs[i] * dz[i].abs();
+                spread += spread_w[i] * dz[i].abs();
             }
+            // |z| <= |z_end| + |dz|, so the terms of any output now or later
+            // (later ones decay) sum to at most y_scale + dz_scale.
+            let margin = y_res + ROUNDING_MARGIN * (y_scale + dz_scale);
             if k % 4 == 0
                 && let Some(c) = cert
             {
-                let b = c.bound(&dz);
-                if sink.finished(b, b) {
-                    break;
+                let u_margin = u_res + ROUNDING_MARGIN * (u_scale + dot_abs(ku, dz) + dz[n].abs());
+                // `finished` only gets harder with a larger bound: when the
+                // margins alone do not finish the run, no bound can.
+                if sink.finished(margin, u_margin) {
+                    // Deferred points first: the peak they may raise is
+                    // part of what `finished` compares against.
+                    pending.resolve(sink, g_cols, h, np);
+                    let (by, bu) = c.bound(dz);
+                    if sink.finished(by + margin, bu + u_margin) {
+                        break;
+                    }
                 }
             }
-            // This period's commands: u_k and the held u_{k-1}.
-            let u_dev = dot(ku, dz.as_slice()).abs().max(dz[n].abs());
-            // A cheap bound on the whole period: the sample's own
-            // deviation plus how far the points between can move from it,
-            // |(g_j - g_0) . dz| <= sum_i max_j |g_ji - g_0i| |dz_i|.
-            ys[0] = dot(&g[..dim], &z) + h[0];
-            known = 1;
-            let dev0 = dot(&g[..dim], dz.as_slice()).abs();
-            let spread: f64 = spread.iter().zip(dz.iter()).map(|(s, d)| s * d.abs()).sum();
-            if sink.finished(dev0 + spread, u_dev) {
-                points = 1;
-            } else {
-                for j in 1..np {
-                    ys[j] = dot(&g[j * dim..(j + 1) * dim], &z) + h[j];
-                }
-                known = np;
-                // The exact largest deviation in this period: when it
-                // cannot change the result, only the sample is passed on.
-                let y_end = ys[0] - dot(&g[..dim], dz.as_slice());
-                let dev = ys.iter().fold(0.0f64, |m, y| m.max((y - y_end).abs()));
-                if sink.finished(dev, u_dev) {
-                    points = 1;
-                }
-            }
-        }
-        for j in known..points {
-            ys[j] = dot(&g[j * dim..(j + 1) * dim], &z) + h[j];
-        }
-        for j in 0..points {
             sink.point(TracePoint {
-                t: t0 + offsets[j],
-                y: ys[j],
-                u: if map.holds_previous[j] { u_prev } else { u_k },
-                sample: j == 0,
+                t: t0,
+                y: y0,
+                u: u_at(0, u_prev, u_k),
+                sample: true,
+            });
+            // Every point of the period: y_j - y_0 = (g_j - g_0) . dz (plus
+            // the fixed-point residual), so it lies within `spread`.
+            let reach = spread + margin;
+            if np > 1 {
+                interior = sink.interior(y0 - reach, y0 + reach);
+                if interior == Interior::PeakOnly {
+                    pending.push(z, y0 - reach, y0 + reach);
+                    if pending.len() >= PENDING_CAP {
+                        pending.resolve(sink, g_cols, h, np);
+                    }
+                }
+            }
+        } else {
+            sink.point(TracePoint {
+                t: t0,
+                y: y0,
+                u: u_at(0, u_prev, u_k),
+                sample: true,
             });
         }
-        for i in 0..dim {
-            next[i] = dot(&a[i * dim..(i + 1) * dim], &z) + drive[i];
+        if interior != Interior::Needed {
+            sink.point(TracePoint {
+                t: t0 + offsets[last],
+                y: out[dim + 2] + h[last],
+                u: u_at(last, u_prev, u_k),
+                sample: false,
+            });
+        } else if np > 1 {
+            mat_vec(g_cols, z, &mut ys[..np]);
+            for j in 1..np {
+                sink.point(TracePoint {
+                    t: t0 + offsets[j],
+                    y: ys[j] + h[j],
+                    u: u_at(j, u_prev, u_k),
+                    sample: false,
+                });
+            }
         }
-        std::mem::swap(&mut z, &mut next);
+        for i in 0..dim {
+            z[i] = out[i] + drive[i];
+        }
         k += 1;
     }
+    pending.resolve(sink, g_cols, h, np);
     k
+}
+
+/// Most periods whose interior is deferred (`Interior::PeakOnly`) before
+/// they are resolved; bounds the memory a run holds.
+const PENDING_CAP: usize = 64;
+
+/// Periods whose points between the sample and the last point matter only
+/// to the peak: their states, to compute those points later if the peak
+/// has not passed them by then.
+struct Pending {
+    states: Vec<f64>,
+    ranges: Vec<(f64, f64)>,
+    dim: usize,
+}
+
+impl Pending {
+    fn len(&self) -> usize {
+        self.ranges.len()
+    }
+
+    fn push(&mut self, z: &[f64], lo: f64, hi: f64) {
+        self.states.extend_from_slice(z);
+        self.ranges.push((lo, hi));
+    }
+
+    /// Pass the points between sample and last point of every deferred
+    /// period that could still raise the peak to `late_peak`; forget all.
+    fn resolve<S: ResponseSink + ?Sized>(
+        &mut self,
+        sink: &mut S,
+        g_cols: &[f64],
+        h: &[f64],
+        np: usize,
+    ) {
+        let mut ys = Scratch::new(np);
+        for (i, &(lo, hi)) in self.ranges.iter().enumerate() {
+            if sink.could_raise_peak(lo, hi) {
+                let z = &self.states[i * self.dim..(i + 1) * self.dim];
+                mat_vec(g_cols, z, &mut ys);
+                for j in 1..np.saturating_sub(1) {
+                    sink.late_peak(ys[j] + h[j]);
+                }
+            }
+        }
+        self.states.clear();
+        self.ranges.clear();
+    }
+}
+
+/// Working storage of the simulation: on the stack when small (so the
+/// sized copies keep it in registers), on the heap otherwise.
+enum Scratch {
+    Stack([f64; SCRATCH], usize),
+    Heap(Vec<f64>),
+}
+
+/// Largest vector kept on the stack by `Scratch`.
+const SCRATCH: usize = 16;
+
+impl Scratch {
+    fn new(len: usize) -> Scratch {
+        if len <= SCRATCH {
+            Scratch::Stack([0.0; SCRATCH], len)
+        } else {
+            Scratch::Heap(vec![0.0; len])
+        }
+    }
+}
+
+impl std::ops::Deref for Scratch {
+    type Target = [f64];
+    fn deref(&self) -> &[f64] {
+        match self {
+            Scratch::Stack(a, len) => &a[..*len],
+            Scratch::Heap(v) => v,
+        }
+    }
+}
+
+impl std::ops::DerefMut for Scratch {
+    fn deref_mut(&mut self) -> &mut [f64] {
+        match self {
+            Scratch::Stack(a, len) => &mut a[..*len],
+            Scratch::Heap(v) => v,
+        }
+    }
+}
+
+/// `out = M v` for `M` stored column by column (`out.len()` rows), each
+/// row summed from -0.0 in column order, exactly as `dot` sums a row.
+#[inline(always)]
+fn mat_vec(cols: &[f64], v: &[f64], out: &mut [f64]) {
+    let rows = out.len();
+    out.fill(-0.0);
+    for (j, &vj) in v.iter().enumerate() {
+        let col = &cols[j * rows..(j + 1) * rows];
+        for (o, c) in out.iter_mut().zip(col) {
+            *o += c * vj;
+        }
+    }
+}
+
+/// `sum_i |a_i| |b_i|`: the size of the terms of a dot product.
+#[inline(always)]
+fn dot_abs(a: &[f64], b: &[f64]) -> f64 {
+    a.iter().zip(b).map(|(x, y)| x.abs() * y.abs()).sum()
 }
 
 /// Step and disturbance figures of a stable sampled loop.
@@ -502,7 +809,7 @@ pub fn sampled_figures(
     let capped = want > opts.max_steps as f64;
     let periods = want.min(opts.max_steps as f64).ceil() as usize;
     let map = OutputMap::new(cl, hold);
-    let cert = Certificate::new(cl, &map);
+    let cert = Certificate::new(cl, &map.bounded_rows(cl), poles);
     let t = hold.period_s;
 
     let output_at = |z: &DVector<f64>, r: f64, w: f64| {
