@@ -26,8 +26,10 @@ use std::str::FromStr;
 /// small enough that a typo cannot ask for hours of work.
 pub const MAX_POINTS: usize = 100_000;
 
-/// Most random samples accepted in `[uncertainty]`.
-pub const MAX_SAMPLES: usize = 1_000_000;
+/// Most samples accepted in `[uncertainty]`: each is a prepared loop held
+/// in memory and evaluated at every grid point and search step, so more
+/// than this is hours of work (a typo guard, like `MAX_POINTS`).
+pub const MAX_SAMPLES: usize = 10_000;
 
 /// Corner checks at load time are done when at most this many parameters
 /// have a range (2^10 = 1024 model evaluations).
