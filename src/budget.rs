@@ -4,6 +4,7 @@
 use serde::Serialize;
 
 use crate::case::{Budget, Cycles};
+use crate::precision::{self, Structure};
 use crate::tf::DiscreteTf;
 
 /// Multiply-accumulates of one update of `c` in direct form II transposed:
@@ -23,14 +24,48 @@ pub fn df2t_macs(c: &DiscreteTf) -> usize {
     num + den
 }
 
-/// Cycles one update costs: measured, or estimated from the controller.
-pub fn cycles_per_update(budget: &Budget, controller: Option<&DiscreteTf>) -> Option<f64> {
+/// Multiply-accumulates of one update of `c` as second-order sections
+/// (`precision::realize`): per section one per non-zero coefficient, the
+/// numerator's normalised leading 1 excepted, plus one for the overall gain
+/// unless it is exactly 1. None when the sections cannot be formed.
+pub fn sos_macs(c: &DiscreteTf, integrators: usize) -> Option<usize> {
+    let r = precision::realize(c, Structure::Sos, integrators).ok()?;
+    let nonzero = |v: &[f64]| v.iter().filter(|x| **x != 0.0).count();
+    let sections: usize = r
+        .sections
+        .iter()
+        .map(|s| {
+            nonzero(&s.b).saturating_sub(usize::from(s.b.first() == Some(&1.0))) + nonzero(&s.a)
+        })
+        .sum();
+    Some(sections + usize::from(r.gain != 1.0))
+}
+
+/// Multiply-accumulates of one update of `c` in `structure`
+/// (`integrators`: the design's poles at z = 1, kept in their own sections).
+pub fn macs(c: &DiscreteTf, structure: Structure, integrators: usize) -> Option<usize> {
+    match structure {
+        Structure::Df2t => Some(df2t_macs(c)),
+        Structure::Sos => sos_macs(c, integrators),
+    }
+}
+
+/// Cycles one update costs: measured, or estimated from the controller
+/// arranged in `structure` (df2t when the case gives no `[arithmetic]`).
+pub fn cycles_per_update(
+    budget: &Budget,
+    controller: Option<&DiscreteTf>,
+    structure: Structure,
+    integrators: usize,
+) -> Option<f64> {
     match budget.cycles {
         Cycles::PerUpdate(c) => Some(c),
         Cycles::Estimate {
             cycles_per_mac,
             overhead_cycles,
-        } => controller.map(|c| cycles_per_mac * df2t_macs(c) as f64 + overhead_cycles),
+        } => controller
+            .and_then(|c| macs(c, structure, integrators))
+            .map(|m| cycles_per_mac * m as f64 + overhead_cycles),
     }
 }
 
@@ -122,7 +157,38 @@ mod tests {
             cycles_per_mac: 12.0,
             overhead_cycles: 300.0,
         });
-        assert_eq!(cycles_per_update(&e, Some(&c)), Some(360.0));
+        assert_eq!(
+            cycles_per_update(&e, Some(&c), Structure::Df2t, 0),
+            Some(360.0)
+        );
+        // C(z) = 0.5 (z - 0.2) / ((z - 1)(z - 0.6)) as sections (by hand):
+        // the integrator's section takes the zero, (1 - 0.2q)/(1 - q): one
+        // MAC for -0.2 (the leading 1 is free) and one for -1; the other,
+        // 1/(1 - 0.6q): one; the gain 0.5: one. Total 4. In df2t:
+        // b = [0, 0.5, -0.1], a = [-1.6, 0.6]: 2 + 2 = 4 as well.
+        let pi = DiscreteTf {
+            tf: Tf::new(
+                Poly::from_descending(&[0.5, -0.1]),
+                Poly::from_descending(&[1.0, -1.6, 0.6]),
+            ),
+            period_s: 1e-3,
+        };
+        assert_eq!(sos_macs(&pi, 1), Some(4));
+        assert_eq!(df2t_macs(&pi), 4);
+        // (2z^2 - z + 0.1) / ((z - 0.6)(z - 0.5)(z - 0.4)), by hand: the
+        // poles pair largest first, (1 - 1.1q + 0.3q^2) and (1 - 0.4q);
+        // the section nearer the unit circle takes both zeros,
+        // (1 - 0.5q + 0.05q^2): 2 + 2 MACs, then 1, then the gain 2: 6.
+        // df2t: b = [0, 2, -1, 0.1], a = [-1.5, 0.74, -0.12]: 3 + 3 = 6.
+        let third = DiscreteTf {
+            tf: Tf::new(
+                Poly::from_descending(&[2.0, -1.0, 0.1]),
+                Poly::from_descending(&[1.0, -1.5, 0.74, -0.12]),
+            ),
+            period_s: 1e-3,
+        };
+        assert_eq!(df2t_macs(&third), 6);
+        assert_eq!(sos_macs(&third, 0), Some(6));
         // Timer: 170 MHz / 3 kHz = 56 666.7 -> divider 56666 gives
         // 3000.0176 Hz >= 3 kHz (by hand).
         let (r, n) = timer_rate_at_least(170e6, 3000.0).unwrap();

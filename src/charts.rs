@@ -685,6 +685,12 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
     let rates: Vec<f64> = (0..n)
         .map(|i| lo * (hi / lo).powf(i as f64 / (n - 1) as f64))
         .collect();
+    let structure = inp
+        .case
+        .arithmetic
+        .as_ref()
+        .map_or(crate::precision::Structure::Df2t, |a| a.structure);
+    let integrators = crate::precision::design_integrators(&inp.lp.controller);
     // Methods with the same load share one line and one legend entry.
     let mut loads: Vec<(Vec<String>, Points)> = Vec::new();
     for (method, rows) in design_series(inp) {
@@ -693,7 +699,7 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
             .iter()
             .map(|&f| {
                 let c = inp.lp.controller_at(f, m).ok();
-                let load = budget::cycles_per_update(b, c.as_ref())
+                let load = budget::cycles_per_update(b, c.as_ref(), structure, integrators)
                     .map_or(f64::NAN, |cy| budget::load_pct(b, cy, f));
                 (f, load)
             })

@@ -13,7 +13,7 @@ use crate::discretize::Method;
 use crate::error::Error;
 use crate::evaluate::{Evaluation, Figures, Point, PreparedLoop};
 use crate::feasibility::{Assessment, LimitCheck, assess, check_figures};
-use crate::precision::{self, Damage, Format};
+use crate::precision::{self, Damage, Format, Structure};
 use crate::search::{
     Ceiling, SearchObserver, SlowestRate, fastest_rate_by, method_label, slowest_rate,
     slowest_rate_by,
@@ -385,7 +385,14 @@ pub fn pick(
     let controller = lp.controller_at(rate, method).ok();
     let (cycles, load) = match case.budget.as_ref() {
         Some(b) => {
-            let c = budget::cycles_per_update(b, controller.as_ref());
+            let c = budget::cycles_per_update(
+                b,
+                controller.as_ref(),
+                case.arithmetic
+                    .as_ref()
+                    .map_or(Structure::Df2t, |a| a.structure),
+                precision::design_integrators(&lp.controller),
+            );
             (c, c.map(|c| budget::load_pct(b, c, rate)))
         }
         None => (None, None),

@@ -135,11 +135,12 @@ pub fn evaluate_row(plan: &Plan, p: &Point) -> SweepRow {
         None => (lp.sampled(p), None),
     };
     let assessment = assess(&eval, plan.spec);
+    let structure = plan.arithmetic.map_or(Structure::Df2t, |a| a.structure);
     let cpu_load_pct = plan.budget.and_then(|b| {
-        budget::cycles_per_update(b, controller.as_ref().ok())
+        let integrators = precision::design_integrators(&lp.controller);
+        budget::cycles_per_update(b, controller.as_ref().ok(), structure, integrators)
             .map(|cy| budget::load_pct(b, cy, p.rate_hz))
     });
-    let structure = plan.arithmetic.map_or(Structure::Df2t, |a| a.structure);
     let check_hz = plan.check_hz(&eval);
     let precision = plan
         .formats()
