@@ -207,11 +207,16 @@ fn answer(report: &PickReport, rec: &Recommended) -> String {
         );
     }
     format!(
-        "**Answer:** run the controller discretized by `{}` at **{} Hz** (period **{} s**{timer}) with the output applied {} of a period after sampling; {load}. This is the slowest passing rate, {} Hz, times the headroom {}.",
+        "**Answer:** run the controller discretized by `{}` at **{} Hz** (period **{} s**{timer}) with the output applied {} of a period after sampling; {load}. This is the slowest {}, {} Hz, times the headroom {}.",
         rec.method,
         fmt_num(rec.rate_hz),
         fmt_num(rec.period_s),
         fmt_num(rec.compute_delay),
+        if report.robust.is_some() {
+            "rate passing on every plant variant"
+        } else {
+            "passing rate"
+        },
         fmt_num(rec.slowest_rate_hz),
         fmt_num(report.headroom),
     )
@@ -290,31 +295,58 @@ fn blocks(
         ));
         match &rec.figures {
             Some(f) => {
+                let robust = report.robust.is_some();
+                let worst: Vec<String> = rec.worst_figures.as_ref().map_or_else(
+                    || vec!["unstable variant".to_string(); figure_rows(f).len()],
+                    |w| {
+                        figure_rows(w)
+                            .into_iter()
+                            .map(|(_, _, v, missing)| v.map_or(missing.to_string(), fmt_num))
+                            .collect()
+                    },
+                );
                 let rows = figure_rows(f)
                     .into_iter()
-                    .map(|(key, label, value, missing)| {
-                        let check = rec.checks.iter().find(|c| c.figure == key);
-                        vec![
+                    .enumerate()
+                    .map(|(i, (key, label, value, missing))| {
+                        // With variants the verdict is the worst variant's.
+                        let checks = if robust && rec.worst_figures.is_some() {
+                            &rec.worst_checks
+                        } else {
+                            &rec.checks
+                        };
+                        let check = checks.iter().find(|c| c.figure == key);
+                        let mut row = vec![
                             label.to_string(),
                             value.map_or(missing.to_string(), fmt_num),
+                        ];
+                        if robust {
+                            row.push(worst[i].clone());
+                        }
+                        row.extend([
                             check.map_or("-".into(), |c| fmt_num(c.limit)),
                             check.map_or("-".into(), |c| slack_text(c.slack)),
                             check.map_or("-".into(), |c| {
                                 if c.pass { "pass" } else { "FAIL" }.into()
                             }),
-                        ]
+                        ]);
+                        row
                     })
                     .collect();
-                b.push(Block::Table(
-                    vec![
-                        "figure".into(),
-                        "value".into(),
+                let mut header = vec!["figure".to_string(), "value".to_string()];
+                if robust {
+                    header.push("worst variant".into());
+                }
+                if robust {
+                    header.extend([
                         "limit".into(),
-                        "slack".into(),
-                        "verdict".into(),
-                    ],
-                    rows,
-                ));
+                        "slack (worst)".into(),
+                        "verdict (worst)".into(),
+                    ]);
+                } else {
+                    header.extend(["limit".into(), "slack".into(), "verdict".into()]);
+                }
+                b.push(Block::Table(header, rows));
                 b.push(Block::Para(
                     "Slack is the distance to the limit as a share of the limit; a gain-margin limit bounds the margin's size.".into(),
                 ));
