@@ -376,36 +376,46 @@ pub fn pick_text(r: &PickReport) -> String {
             );
         }
         let robust = r.robust.is_some();
-        let _ = writeln!(
-            s,
-            "\n{:<22}{:>14}{:>12}{:>10}{}",
-            "figure",
-            "value",
-            "limit",
-            "slack",
-            if robust { "    worst variant" } else { "" }
-        );
+        if robust {
+            let _ = writeln!(
+                s,
+                "\n{:<22}{:>14}{:>14}{:>12}{:>14}",
+                "figure", "value", "worst variant", "limit", "worst slack"
+            );
+        } else {
+            let _ = writeln!(
+                s,
+                "\n{:<22}{:>14}{:>12}{:>10}",
+                "figure", "value", "limit", "slack"
+            );
+        }
         for c in &rec.checks {
-            let worst = rec
+            if !robust {
+                let _ = writeln!(
+                    s,
+                    "{:<22}{:>14}{:>12}{:>9.1}%",
+                    c.figure,
+                    fmt_opt(c.value, "none"),
+                    fmt_num(c.limit),
+                    c.slack * 100.0
+                );
+                continue;
+            }
+            let (worst, slack) = rec
                 .worst_checks
                 .iter()
                 .find(|w| w.figure == c.figure)
-                .map(|w| format!("{:>17}", fmt_opt(w.value, "none")))
-                .unwrap_or_else(|| {
-                    if robust {
-                        format!("{:>17}", "unstable")
-                    } else {
-                        String::new()
-                    }
+                .map_or(("unstable".to_string(), "-".to_string()), |w| {
+                    (fmt_opt(w.value, "none"), format!("{:.1}%", w.slack * 100.0))
                 });
             let _ = writeln!(
                 s,
-                "{:<22}{:>14}{:>12}{:>9.1}%{}",
+                "{:<22}{:>14}{:>14}{:>12}{:>14}",
                 c.figure,
                 fmt_opt(c.value, "none"),
+                worst,
                 fmt_num(c.limit),
-                c.slack * 100.0,
-                worst
+                slack
             );
         }
     }
