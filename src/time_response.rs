@@ -114,9 +114,13 @@ impl StepMetrics {
     pub fn push(&mut self, t: f64, y: f64, u: f64) {
         let yf = self.y_final;
         self.u_peak = self.u_peak.max(u.abs());
+        // Once 90 % is reached, 10 % was too: the rise is fixed and the
+        // fractions (two divisions a point) are not needed any more.
         if yf != 0.0 {
             let dev = (y - yf) * yf.signum();
             self.peak_dev = self.peak_dev.max(dev);
+        }
+        if yf != 0.0 && self.t90.is_none() {
             let frac = y / yf;
             if let Some((tp, yp)) = self.prev {
                 let fp = yp / yf;
@@ -303,16 +307,19 @@ impl ResponseSink for StepMetrics {
             // settling figure exists), and it sees every command.
             return Interior::Irrelevant;
         }
-        // Fraction of y_final, as `push` measures it.
-        let (f_lo, f_hi) = if yf > 0.0 {
-            (y_lo / yf, y_hi / yf)
+        // Fraction of y_final, as `push` measures it (only while the rise
+        // is still open: a NaN or infinite bound is refused either way).
+        let rise_fixed = if self.t90.is_some() {
+            y_lo.is_finite() && y_hi.is_finite()
         } else {
-            (y_hi / yf, y_lo / yf)
+            let (f_lo, f_hi) = if yf > 0.0 {
+                (y_lo / yf, y_hi / yf)
+            } else {
+                (y_hi / yf, y_lo / yf)
+            };
+            (self.t10.is_some() || f_hi < 0.1) && f_hi < 0.9 && f_lo.is_finite()
         };
-        let others_fixed = (self.t10.is_some() || f_hi < 0.1)
-            && (self.t90.is_some() || f_hi < 0.9)
-            && f_lo.is_finite()
-            && one_side_of_band(y_lo, y_hi, yf, self.band_abs);
+        let others_fixed = rise_fixed && one_side_of_band(y_lo, y_hi, yf, self.band_abs);
         if !others_fixed {
             Interior::Needed
         } else if self.could_raise_peak(y_lo, y_hi) {
