@@ -296,17 +296,23 @@ impl PreparedLoop {
         p: &Point,
         c: &DiscreteTf,
     ) -> Result<(HoldEquivalent, ClosedLoop), String> {
+        let hold = self.hold_at(p)?;
+        let cl = ClosedLoop::new(&hold, c).map_err(|e| format!("closing the loop: {e}"))?;
+        Ok((hold, cl))
+    }
+
+    /// The exact hold + delay + plant equivalent at a point's rate and
+    /// delay. It does not depend on the method, so a sweep builds it once
+    /// per (rate, delay) and hands it to `sampled_on` for every method.
+    pub fn hold_at(&self, p: &Point) -> Result<HoldEquivalent, String> {
         check_point(p)?;
-        let period = 1.0 / p.rate_hz;
-        let hold = HoldEquivalent::new(
+        HoldEquivalent::new(
             &self.plant_model,
-            period,
+            1.0 / p.rate_hz,
             p.delay,
             self.time.points_per_period,
         )
-        .map_err(|e| format!("plant equivalent: {e}"))?;
-        let cl = ClosedLoop::new(&hold, c).map_err(|e| format!("closing the loop: {e}"))?;
-        Ok((hold, cl))
+        .map_err(|e| format!("plant equivalent: {e}"))
     }
 
     /// Evaluate the exact sampled-data loop at one point.
@@ -320,13 +326,43 @@ impl PreparedLoop {
         }
     }
 
+    /// `sampled` with the point's hold equivalent already built (by
+    /// `hold_at` at the same point, or its error): the same evaluation.
+    pub fn sampled_on(&self, p: &Point, hold: Result<&HoldEquivalent, &str>) -> Evaluation {
+        if let Err(e) = check_point(p) {
+            return Evaluation::error(e);
+        }
+        let c = match self.controller_at(p.rate_hz, p.method) {
+            Ok(c) => c,
+            Err(e) => return Evaluation::error(e),
+        };
+        let hold = match hold {
+            Ok(h) => h,
+            Err(e) => return Evaluation::error(e),
+        };
+        match ClosedLoop::new(hold, &c) {
+            Ok(cl) => self.evaluate_closed(hold, &c, &cl),
+            Err(e) => Evaluation::error(format!("closing the loop: {e}")),
+        }
+    }
+
     /// Evaluate the exact sampled-data loop at one point with the given
     /// controller in place of the point's own discretization.
     pub fn sampled_with(&self, p: &Point, c: &DiscreteTf) -> Evaluation {
-        let (hold, cl) = match self.sampled_loop_with(p, c) {
-            Ok(v) => v,
-            Err(e) => return Evaluation::error(e),
-        };
+        match self.sampled_loop_with(p, c) {
+            Ok((hold, cl)) => self.evaluate_closed(&hold, c, &cl),
+            Err(e) => Evaluation::error(e),
+        }
+    }
+
+    /// Every figure of a closed sampled loop (hold equivalent `hold`,
+    /// controller `c`).
+    fn evaluate_closed(
+        &self,
+        hold: &HoldEquivalent,
+        c: &DiscreteTf,
+        cl: &ClosedLoop,
+    ) -> Evaluation {
         let poles = match cl.poles() {
             Ok(v) => v,
             Err(e) => return Evaluation::error(format!("closed-loop poles: {e}")),
@@ -336,7 +372,7 @@ impl PreparedLoop {
             Stability::Unstable => return Evaluation::poles_only(Status::Unstable, &poles),
             Stability::Marginal => return Evaluation::poles_only(Status::Marginal, &poles),
         }
-        let (step, dist) = match sampled_figures(&cl, &hold, &poles, &self.time) {
+        let (step, dist) = match sampled_figures(cl, hold, &poles, &self.time) {
             Ok(v) => v,
             Err(e) => return Evaluation::error(e),
         };

@@ -92,6 +92,36 @@ fn arg_deg(c: C64) -> f64 {
 /// Grid of `(w, L(w))`, adaptively refined where the phase moves more than
 /// 30 deg or the magnitude more than a factor e between neighbours.
 pub fn loop_grid(l: &dyn Fn(f64) -> C64, range: &FrequencyRange) -> Vec<(f64, C64)> {
+    loop_grid_points(l, range)
+        .into_iter()
+        .map(|p| (p.w, p.l))
+        .collect()
+}
+
+/// One grid point: `w` (rad/s), `L(w)`, and `ln |L|` and `angle L` (deg),
+/// computed once per point (each is read by both of its neighbours' tests
+/// in every refinement pass and again by the crossing search).
+#[derive(Debug, Clone, Copy)]
+struct GridPoint {
+    w: f64,
+    l: C64,
+    ln_mag: f64,
+    arg_deg: f64,
+}
+
+impl GridPoint {
+    fn new(w: f64, l: C64) -> GridPoint {
+        GridPoint {
+            w,
+            l,
+            ln_mag: l.norm().ln(),
+            arg_deg: arg_deg(l),
+        }
+    }
+}
+
+/// `loop_grid` with each point's magnitude and phase kept.
+fn loop_grid_points(l: &dyn Fn(f64) -> C64, range: &FrequencyRange) -> Vec<GridPoint> {
     let (lo, hi) = (range.w_lo, range.w_hi);
     let decades = (hi / lo).log10().max(0.1);
     let n_base = (decades * 30.0).ceil() as usize + 2;
@@ -117,7 +147,7 @@ pub fn loop_grid(l: &dyn Fn(f64) -> C64, range: &FrequencyRange) -> Vec<(f64, C6
     ws.push(hi);
     ws.sort_by(|a, b| a.total_cmp(b));
     ws.dedup_by(|a, b| (*a - *b).abs() <= 1e-12 * *b);
-    let mut pts: Vec<(f64, C64)> = ws.into_iter().map(|w| (w, l(w))).collect();
+    let mut pts: Vec<GridPoint> = ws.into_iter().map(|w| GridPoint::new(w, l(w))).collect();
     // Adaptive refinement, a bounded number of passes.
     for _ in 0..6 {
         let mut out = Vec::with_capacity(pts.len() * 2);
@@ -125,13 +155,12 @@ pub fn loop_grid(l: &dyn Fn(f64) -> C64, range: &FrequencyRange) -> Vec<(f64, C6
         for i in 0..pts.len() {
             out.push(pts[i]);
             if i + 1 < pts.len() {
-                let (w0, l0) = pts[i];
-                let (w1, l1) = pts[i + 1];
-                let dphi = wrap_deg(arg_deg(l1) - arg_deg(l0)).abs();
-                let dmag = (l1.norm().ln() - l0.norm().ln()).abs();
-                if (dphi > 30.0 || dmag > 1.0) && w1 / w0 > 1.0 + 1e-9 {
-                    let wm = (w0 * w1).sqrt();
-                    out.push((wm, l(wm)));
+                let (p0, p1) = (pts[i], pts[i + 1]);
+                let dphi = wrap_deg(p1.arg_deg - p0.arg_deg).abs();
+                let dmag = (p1.ln_mag - p0.ln_mag).abs();
+                if (dphi > 30.0 || dmag > 1.0) && p1.w / p0.w > 1.0 + 1e-9 {
+                    let wm = (p0.w * p1.w).sqrt();
+                    out.push(GridPoint::new(wm, l(wm)));
                     added = true;
                 }
             }
@@ -174,7 +203,8 @@ pub fn loop_figures(l: &dyn Fn(f64) -> C64, range: &FrequencyRange) -> LoopFigur
         range.w_lo /= 10.0;
     }
     let range = &range;
-    let grid = loop_grid(l, range);
+    let points = loop_grid_points(l, range);
+    let grid: Vec<(f64, C64)> = points.iter().map(|p| (p.w, p.l)).collect();
     let phase = unwrapped_phase(&grid);
     let two_pi = 2.0 * std::f64::consts::PI;
     let tol = 1e-10;
@@ -182,9 +212,8 @@ pub fn loop_figures(l: &dyn Fn(f64) -> C64, range: &FrequencyRange) -> LoopFigur
     // Gain crossings: sign changes of ln|L|, refined in ln w.
     let mut gain_x: Vec<(f64, f64)> = Vec::new(); // (w, PM deg)
     for i in 0..grid.len().saturating_sub(1) {
-        let (w0, l0) = grid[i];
-        let (w1, l1) = grid[i + 1];
-        let (g0, g1) = (l0.norm().ln(), l1.norm().ln());
+        let (w0, w1) = (grid[i].0, grid[i + 1].0);
+        let (g0, g1) = (points[i].ln_mag, points[i + 1].ln_mag);
         if g0.is_finite() && g1.is_finite() && (g0 > 0.0) != (g1 > 0.0) {
             let f = |x: f64| l(x.exp()).norm().ln();
             if let Some(x) = scalar_solve::root(&f, w0.ln(), w1.ln(), tol) {

@@ -158,8 +158,18 @@ const STACK_SOLVE: usize = 8;
 /// decide it, mostly without calling `hypot`: when the squared moduli are
 /// in the safe range and differ by more than a relative 1e-12, their order
 /// is the order of the moduli and of the (faithfully rounded) `hypot`
-/// values; near-ties and extreme magnitudes go to `hypot` itself.
+/// values; exact zeros are decided without it too; near-ties and extreme
+/// magnitudes go to `hypot` itself.
 fn norm_greater(a: C64, b: C64) -> bool {
+    // An exact zero (common: the loop matrices are sparse) has modulus 0
+    // and every other number a positive one, exactly as `hypot` says.
+    let zero = |c: C64| c.re == 0.0 && c.im == 0.0;
+    if zero(b) {
+        return !zero(a);
+    }
+    if zero(a) {
+        return false;
+    }
     let (sa, sb) = (a.norm_sqr(), b.norm_sqr());
     let safe = |v: f64| (1e-280..=1e280).contains(&v);
     if safe(sa) && safe(sb) {

@@ -5,6 +5,8 @@
 //! indexed `collect` keeps order, and each point is computed alone), so
 //! the CSV is identical byte for byte for 1 thread or many.
 
+use std::collections::HashMap;
+
 use rayon::prelude::*;
 
 use crate::budget;
@@ -12,6 +14,7 @@ use crate::case::{Arithmetic, Budget, Case, Spec};
 use crate::discretize::Method;
 use crate::evaluate::{Evaluation, Point, PreparedLoop};
 use crate::feasibility::{Assessment, assess};
+use crate::hold::HoldEquivalent;
 use crate::precision::{self, Format, PrecisionPoint, Structure};
 use crate::variants::{RobustPoint, VariantSet};
 
@@ -120,6 +123,17 @@ pub fn grid(rates: &[f64], methods: &[Option<Method>], delays: &[f64]) -> Vec<Po
 
 /// Evaluate and judge one point.
 pub fn evaluate_row(plan: &Plan, p: &Point) -> SweepRow {
+    evaluate_row_on(plan, p, None)
+}
+
+/// `evaluate_row` with the point's hold equivalent already built (see
+/// `PreparedLoop::hold_at`), or None to build it here. Only the nominal
+/// loop uses it: each plant variant has its own.
+fn evaluate_row_on(
+    plan: &Plan,
+    p: &Point,
+    hold: Option<Result<&HoldEquivalent, &str>>,
+) -> SweepRow {
     let lp = plan.lp;
     let controller = lp.controller_at(p.rate_hz, p.method);
     let (eval, robust) = match plan.variants {
@@ -132,7 +146,10 @@ pub fn evaluate_row(plan: &Plan, p: &Point) -> SweepRow {
             );
             (e, Some(r))
         }
-        None => (lp.sampled(p), None),
+        None => match hold {
+            Some(h) => (lp.sampled_on(p, h), None),
+            None => (lp.sampled(p), None),
+        },
     };
     let assessment = assess(&eval, plan.spec);
     let structure = plan.arithmetic.map_or(Structure::Df2t, |a| a.structure);
@@ -159,13 +176,43 @@ pub fn evaluate_row(plan: &Plan, p: &Point) -> SweepRow {
 
 /// Evaluate every point in parallel on the current rayon pool; `on_done`
 /// is called once per finished point (progress display).
+///
+/// The hold + delay + plant equivalent depends on the rate and the delay
+/// but not on the method, so the points are taken in groups that share
+/// (rate, delay), each group building it once (about 5 % of a point's
+/// work, saved for all methods but one). Each point is still computed
+/// alone from the same inputs, and the rows come back in grid order, so
+/// the results do not depend on the grouping or the thread count.
 pub fn run(plan: &Plan, points: &[Point], on_done: &(dyn Fn() + Sync)) -> Vec<SweepRow> {
-    points
+    let mut groups: Vec<Vec<usize>> = Vec::new();
+    let mut index: HashMap<(u64, u64), usize> = HashMap::new();
+    for (i, p) in points.iter().enumerate() {
+        let key = (p.rate_hz.to_bits(), p.delay.to_bits());
+        let g = *index.entry(key).or_insert_with(|| {
+            groups.push(Vec::new());
+            groups.len() - 1
+        });
+        groups[g].push(i);
+    }
+    let shared = plan.variants.is_none();
+    let done: Vec<Vec<(usize, SweepRow)>> = groups
         .par_iter()
-        .map(|p| {
-            let row = evaluate_row(plan, p);
-            on_done();
-            row
+        .map(|group| {
+            let hold = shared.then(|| plan.lp.hold_at(&points[group[0]]));
+            group
+                .iter()
+                .map(|&i| {
+                    let h = hold.as_ref().map(|h| h.as_ref().map_err(String::as_str));
+                    let row = evaluate_row_on(plan, &points[i], h);
+                    on_done();
+                    (i, row)
+                })
+                .collect()
         })
-        .collect()
+        .collect();
+    let mut rows: Vec<Option<SweepRow>> = (0..points.len()).map(|_| None).collect();
+    for (i, row) in done.into_iter().flatten() {
+        rows[i] = Some(row);
+    }
+    rows.into_iter().flatten().collect()
 }

@@ -114,9 +114,13 @@ impl StepMetrics {
     pub fn push(&mut self, t: f64, y: f64, u: f64) {
         let yf = self.y_final;
         self.u_peak = self.u_peak.max(u.abs());
+        // Once 90 % is reached, 10 % was too: the rise is fixed and the
+        // fractions (two divisions a point) are not needed any more.
         if yf != 0.0 {
             let dev = (y - yf) * yf.signum();
             self.peak_dev = self.peak_dev.max(dev);
+        }
+        if yf != 0.0 && self.t90.is_none() {
             let frac = y / yf;
             if let Some((tp, yp)) = self.prev {
                 let fp = yp / yf;
@@ -303,16 +307,19 @@ impl ResponseSink for StepMetrics {
             // settling figure exists), and it sees every command.
             return Interior::Irrelevant;
         }
-        // Fraction of y_final, as `push` measures it.
-        let (f_lo, f_hi) = if yf > 0.0 {
-            (y_lo / yf, y_hi / yf)
+        // Fraction of y_final, as `push` measures it (only while the rise
+        // is still open: a NaN or infinite bound is refused either way).
+        let rise_fixed = if self.t90.is_some() {
+            y_lo.is_finite() && y_hi.is_finite()
         } else {
-            (y_hi / yf, y_lo / yf)
+            let (f_lo, f_hi) = if yf > 0.0 {
+                (y_lo / yf, y_hi / yf)
+            } else {
+                (y_hi / yf, y_lo / yf)
+            };
+            (self.t10.is_some() || f_hi < 0.1) && f_hi < 0.9 && f_lo.is_finite()
         };
-        let others_fixed = (self.t10.is_some() || f_hi < 0.1)
-            && (self.t90.is_some() || f_hi < 0.9)
-            && f_lo.is_finite()
-            && one_side_of_band(y_lo, y_hi, yf, self.band_abs);
+        let others_fixed = rise_fixed && one_side_of_band(y_lo, y_hi, yf, self.band_abs);
         if !others_fixed {
             Interior::Needed
         } else if self.could_raise_peak(y_lo, y_hi) {
@@ -519,18 +526,18 @@ pub fn simulate_sampled<S: ResponseSink + ?Sized>(
     macro_rules! sized {
         ($($d:literal)*) => {
             match map.dim {
-                $($d => kernel::<$d, S>(cl, map, period_s, r, w, periods, end, sink),)*
-                _ => kernel::<0, S>(cl, map, period_s, r, w, periods, end, sink),
+                $($d => kernel::<$d, { $d + 3 }, S>(cl, map, period_s, r, w, periods, end, sink),)*
+                _ => kernel::<0, 0, S>(cl, map, period_s, r, w, periods, end, sink),
             }
         };
     }
     sized!(1 2 3 4 5 6 7 8 9 10 11 12)
 }
 
-/// `simulate_sampled` for a loop of `D` states (`D = 0`: any size, read
-/// from the map).
+/// `simulate_sampled` for a loop of `D` states, `R = D + 3` rows in a
+/// period's product (`D = R = 0`: any size, read from the map).
 #[allow(clippy::too_many_arguments)]
-fn kernel<const D: usize, S: ResponseSink + ?Sized>(
+fn kernel<const D: usize, const R: usize, S: ResponseSink + ?Sized>(
     cl: &ClosedLoop,
     map: &OutputMap,
     period_s: f64,
@@ -540,23 +547,33 @@ fn kernel<const D: usize, S: ResponseSink + ?Sized>(
     end: Option<(&DVector<f64>, Option<&Certificate>)>,
     sink: &mut S,
 ) -> usize {
-    // Plain slices whose lengths are constants in the sized copies: this
+    // Plain arrays whose lengths are constants in the sized copies: this
     // loop runs thousands of times per evaluation on matrices of size ~8,
     // where generic small-matrix code spends more on bookkeeping than on
-    // arithmetic. Matrix-vector products run column by column so the rows
-    // advance together (vectorizable), each row still summed from -0.0 in
-    // column order: bit for bit the dot product `dot` computes.
+    // arithmetic, and where a working vector left in memory costs a
+    // store-to-load round trip per term. Matrix-vector products run column
+    // by column so the rows advance together (vectorizable), each row still
+    // summed from -0.0 in column order: bit for bit the dot product `dot`
+    // computes.
     let dim = if D == 0 { map.dim } else { D };
     let n = map.n;
     let np = map.np;
     let g = &map.g[..np * dim];
     let g_cols = &map.g_cols[..np * dim];
-    let drive: Vec<f64> = (0..dim).map(|i| cl.br[i] * r + cl.bw[i] * w).collect();
-    let drive = &drive[..dim];
+    let mut drive = Buf::<D>::new(dim);
+    for (i, d) in drive.as_mut().iter_mut().enumerate() {
+        *d = cl.br[i] * r + cl.bw[i] * w;
+    }
+    let drive = drive.as_ref();
     let h: Vec<f64> = (0..np).map(|j| map.hr[j] * r + map.hw[j] * w).collect();
     let h = &h[..np];
     let ku: &[f64] = &cl.ku.as_slice()[..dim];
     let u_off = cl.dur * r + cl.duw * w;
+    let last = np.saturating_sub(1);
+    // Time of the last point from the period's start, and which command
+    // the sample and the last point carry (before or after the delay).
+    let last_offset = last as f64 * period_s / np as f64;
+    let (sample_prev, last_prev) = (map.holds_previous[0], map.holds_previous[last]);
     let offsets: Vec<f64> = (0..np).map(|j| j as f64 * period_s / np as f64).collect();
     let u_at = |j: usize, u_prev: f64, u_k: f64| {
         if map.holds_previous[j] { u_prev } else { u_k }
@@ -585,11 +602,10 @@ fn kernel<const D: usize, S: ResponseSink + ?Sized>(
     // the command u_k, the sample and the period's last point.
     let rows = dim + 3;
     let step_cols = &map.step_cols[..rows * dim];
-    let mut z = Scratch::new(dim);
-    let mut out = Scratch::new(rows);
-    let mut dz = Scratch::new(dim);
+    let mut z = Buf::<D>::new(dim);
+    let mut out = Buf::<R>::new(rows);
+    let mut dz = Buf::<D>::new(dim);
     let mut ys = Scratch::new(np);
-    let last = np.saturating_sub(1);
     let mut pending = Pending {
         states: Vec::new(),
         ranges: Vec::new(),
@@ -597,23 +613,29 @@ fn kernel<const D: usize, S: ResponseSink + ?Sized>(
     };
     let mut k = 0;
     while k < periods {
-        let z = &mut z[..dim];
-        let out = &mut out[..rows];
+        let z = z.as_mut();
+        let out = out.as_mut();
         mat_vec(step_cols, z, out);
         let u_prev = z[n];
         let u_k = out[dim] + u_off;
         let y0 = out[dim + 1] + h[0];
         let t0 = k as f64 * period_s;
         let mut interior = Interior::Needed;
+        let sample = TracePoint {
+            t: t0,
+            y: y0,
+            u: if sample_prev { u_prev } else { u_k },
+            sample: true,
+        };
         if let Some((z_end, cert, y_res, u_res, y_scale, u_scale)) = ends {
-            let dz = &mut dz[..dim];
-            let mut dz_scale = 0.0;
-            let mut spread = 0.0;
-            for i in 0..dim {
-                dz[i] = z[i] - z_end[i];
-                dz_scale += g_abs[i] * dz[i].abs();
-                spread += spread_w[i] * dz[i].abs();
+            let dz = dz.as_mut();
+            for ((d, a), b) in dz.iter_mut().zip(z.iter()).zip(z_end) {
+                *d = a - b;
             }
+            // Sizes for bounds only (no figure is made of them), so summed
+            // in whatever order is fastest; the margins cover the rounding.
+            let dz_scale = weighted_abs_sum(g_abs, dz);
+            let spread = weighted_abs_sum(spread_w, dz);
             // |z| <= |z_end| + |dz|, so the terms of any output now or later
             // (later ones decay) sum to at most y_scale + dz_scale.
             let margin = y_res + ROUNDING_MARGIN * (y_scale + dz_scale);
@@ -633,12 +655,7 @@ fn kernel<const D: usize, S: ResponseSink + ?Sized>(
                     }
                 }
             }
-            sink.point(TracePoint {
-                t: t0,
-                y: y0,
-                u: u_at(0, u_prev, u_k),
-                sample: true,
-            });
+            sink.point(sample);
             // Every point of the period: y_j - y_0 = (g_j - g_0) . dz (plus
             // the fixed-point residual), so it lies within `spread`.
             let reach = spread + margin;
@@ -652,18 +669,13 @@ fn kernel<const D: usize, S: ResponseSink + ?Sized>(
                 }
             }
         } else {
-            sink.point(TracePoint {
-                t: t0,
-                y: y0,
-                u: u_at(0, u_prev, u_k),
-                sample: true,
-            });
+            sink.point(sample);
         }
         if interior != Interior::Needed {
             sink.point(TracePoint {
-                t: t0 + offsets[last],
+                t: t0 + last_offset,
                 y: out[dim + 2] + h[last],
-                u: u_at(last, u_prev, u_k),
+                u: if last_prev { u_prev } else { u_k },
                 sample: false,
             });
         } else if np > 1 {
@@ -677,13 +689,58 @@ fn kernel<const D: usize, S: ResponseSink + ?Sized>(
                 });
             }
         }
-        for i in 0..dim {
-            z[i] = out[i] + drive[i];
+        for ((zi, o), d) in z.iter_mut().zip(out.iter()).zip(drive) {
+            *zi = o + d;
         }
         k += 1;
     }
     pending.resolve(sink, g_cols, h, np);
     k
+}
+
+/// A working vector of the kernel: an array of the compile-time length
+/// `N` in the sized copies (so it stays in registers), a `Vec` of the
+/// given length in the any-size copy (`N = 0`).
+struct Buf<const N: usize> {
+    arr: [f64; N],
+    vec: Vec<f64>,
+}
+
+impl<const N: usize> Buf<N> {
+    fn new(len: usize) -> Buf<N> {
+        Buf {
+            arr: [0.0; N],
+            vec: if N == 0 { vec![0.0; len] } else { Vec::new() },
+        }
+    }
+
+    #[inline(always)]
+    fn as_mut(&mut self) -> &mut [f64] {
+        if N > 0 { &mut self.arr } else { &mut self.vec }
+    }
+
+    #[inline(always)]
+    fn as_ref(&self) -> &[f64] {
+        if N > 0 { &self.arr } else { &self.vec }
+    }
+}
+
+/// `sum_i w_i |v_i|` in four interleaved partial sums (a bound's size, not
+/// a figure: the order of the sum does not matter to any result).
+#[inline(always)]
+fn weighted_abs_sum(w: &[f64], v: &[f64]) -> f64 {
+    let (mut a0, mut a1, mut a2, mut a3) = (0.0f64, 0.0f64, 0.0f64, 0.0f64);
+    let (wc, vc) = (w.chunks_exact(4), v.chunks_exact(4));
+    for (a, b) in wc.remainder().iter().zip(vc.remainder()) {
+        a0 += a * b.abs();
+    }
+    for (a, b) in wc.zip(vc) {
+        a0 += a[0] * b[0].abs();
+        a1 += a[1] * b[1].abs();
+        a2 += a[2] * b[2].abs();
+        a3 += a[3] * b[3].abs();
+    }
+    (a0 + a1) + (a2 + a3)
 }
 
 /// Most periods whose interior is deferred (`Interior::PeakOnly`) before
