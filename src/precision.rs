@@ -415,6 +415,24 @@ fn round_scaled(v: f64, magnitude_bits: u32) -> f64 {
     (v * scale).round() / scale
 }
 
+/// `r` with every section coefficient passed through `round` and the
+/// given (already rounded) gain.
+fn rounded(r: &Realization, gain: f64, round: impl Fn(f64) -> f64) -> Realization {
+    let map = |v: &[f64]| v.iter().map(|x| round(*x)).collect::<Vec<f64>>();
+    Realization {
+        gain,
+        delay: r.delay,
+        sections: r
+            .sections
+            .iter()
+            .map(|s| Section {
+                b: map(&s.b),
+                a: map(&s.a),
+            })
+            .collect(),
+    }
+}
+
 /// Round every coefficient of `r` in `format`; also returns the Q format
 /// chosen for fixed point.
 pub fn round_realization(
@@ -423,24 +441,7 @@ pub fn round_realization(
 ) -> Result<(Realization, Option<String>), String> {
     match format {
         Format::F64 => Ok((r.clone(), None)),
-        Format::F32 => {
-            let map = |v: &Vec<f64>| v.iter().map(|x| round_f32(*x)).collect::<Vec<f64>>();
-            Ok((
-                Realization {
-                    gain: round_f32(r.gain),
-                    delay: r.delay,
-                    sections: r
-                        .sections
-                        .iter()
-                        .map(|s| Section {
-                            b: map(&s.b),
-                            a: map(&s.a),
-                        })
-                        .collect(),
-                },
-                None,
-            ))
-        }
+        Format::F32 => Ok((rounded(r, round_f32(r.gain), round_f32), None)),
         Format::Fixed { magnitude_bits } => {
             let set: Vec<f64> = r
                 .sections
@@ -455,25 +456,13 @@ pub fn round_realization(
                 )
             })?;
             let f = magnitude_bits - m;
-            let map = |v: &Vec<f64>| v.iter().map(|x| round_fixed(*x, f)).collect::<Vec<f64>>();
             let gain = if r.gain == 1.0 {
                 1.0
             } else {
                 round_scaled(r.gain, magnitude_bits)
             };
             Ok((
-                Realization {
-                    gain,
-                    delay: r.delay,
-                    sections: r
-                        .sections
-                        .iter()
-                        .map(|s| Section {
-                            b: map(&s.b),
-                            a: map(&s.a),
-                        })
-                        .collect(),
-                },
+                rounded(r, gain, |x| round_fixed(x, f)),
                 Some(format!("Q{m}.{f}")),
             ))
         }

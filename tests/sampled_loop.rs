@@ -213,18 +213,7 @@ fn loop_matrix_poles_agree_with_characteristic_polynomial() {
     // a sensor lag and a controller with an integrator; its loop matrix is
     // badly scaled, which once gave a spurious unstable pole before
     // balancing.
-    let wn = 2.0 * std::f64::consts::PI * 60.0;
-    let plant = Tf::new(
-        Poly::constant(400.0 * wn * wn),
-        Poly::from_descending(&[0.01, 1.0, 0.0]).mul(&Poly::from_descending(&[
-            1.0,
-            0.6 * wn,
-            wn * wn,
-        ])),
-    );
-    let sensor = tf(&[1.0], &[1.0 / 2000.0, 1.0]);
-    let c = Controller::Continuous(tf(&[0.001, 0.02, 0.05], &[1.0 / 400.0, 1.0, 0.0]));
-    let lp = PreparedLoop::new(&plant, &sensor, &c, None, TimeOptions::default()).unwrap();
+    let lp = positioning_axis();
     for (rate, d) in [(5000.0, 0.0), (5000.0, 0.5), (1000.0, 1.0), (300.0, 0.5)] {
         let p = Point {
             rate_hz: rate,
@@ -339,18 +328,7 @@ fn skipped_and_deferred_points_change_no_figure() {
     // invented positioning axis of the compare bench, across methods and
     // delays.
     use looprate::time_response::StepMetrics;
-    let wn = 2.0 * std::f64::consts::PI * 60.0;
-    let plant = Tf::new(
-        Poly::constant(400.0 * wn * wn),
-        Poly::from_descending(&[0.01, 1.0, 0.0]).mul(&Poly::from_descending(&[
-            1.0,
-            0.6 * wn,
-            wn * wn,
-        ])),
-    );
-    let sensor = tf(&[1.0], &[1.0 / 2000.0, 1.0]);
-    let c = Controller::Continuous(tf(&[0.001, 0.02, 0.05], &[1.0 / 400.0, 1.0, 0.0]));
-    let lp = PreparedLoop::new(&plant, &sensor, &c, None, TimeOptions::default()).unwrap();
+    let lp = positioning_axis();
     let mut checked = 0;
     for (rate, method, d) in [
         (150.0, Method::Tustin, 0.5),
@@ -411,4 +389,22 @@ fn skipped_and_deferred_points_change_no_figure() {
         assert!(f.horizon_s < step.last().unwrap().t, "{at}: no early stop");
     }
     assert!(checked >= 4, "too few stable points checked: {checked}");
+}
+
+/// The invented positioning axis of the compare bench: integrator, lag, a
+/// lightly damped 60 Hz mode, a sensor lag and a controller with an
+/// integrator, prepared for evaluation.
+fn positioning_axis() -> PreparedLoop {
+    let wn = 2.0 * std::f64::consts::PI * 60.0;
+    let plant = Tf::new(
+        Poly::constant(400.0 * wn * wn),
+        Poly::from_descending(&[0.01, 1.0, 0.0]).mul(&Poly::from_descending(&[
+            1.0,
+            0.6 * wn,
+            wn * wn,
+        ])),
+    );
+    let sensor = tf(&[1.0], &[1.0 / 2000.0, 1.0]);
+    let c = Controller::Continuous(tf(&[0.001, 0.02, 0.05], &[1.0 / 400.0, 1.0, 0.0]));
+    PreparedLoop::new(&plant, &sensor, &c, None, TimeOptions::default()).unwrap()
 }
