@@ -15,7 +15,10 @@ point (rate, method, computation delay d):
   4. step response with `dlsim` over a horizon set by the slowest closed-loop
      pole (decay to 1e-4, capped at 200000 samples), plus the plant output at
      16 evenly spaced points per period from expm sub-steps (vectorised),
-     then overshoot, 2 % settling and 10-90 % rise,
+     then overshoot, 2 % settling and 10-90 % rise; the same for a unit
+     load step at the plant input (peak and recovery), as looprate does
+     (`--no-disturbance` leaves it out: the lighter baseline of earlier
+     runs),
   5. loop gain L = C(z) G(z) on a 500-point log grid with `dfreqresp`,
      gain / phase margins by linear interpolation between grid points,
      delay margin and the sensitivity peak on the grid.
@@ -263,21 +266,42 @@ def evaluate(case, rate, method, d):
     Xf = np.linalg.solve(np.eye(Acl.shape[0]) - Acl, Bcl[:, 0])
     yf = (Ccl[0] @ Xf).item()
 
-    # intersample: y(kT + jT/16), u_{k-1} until tau, u_k after
-    ys = np.empty((N + 1, SUB))
-    for j in range(SUB):
-        s = j * T / SUB
-        if s <= tau:
-            E, Gs = hold_int(A, B, s)
-            ys[:, j] = (x @ (Cy @ E).T)[:, 0] + uprev * (Cy @ Gs).item()
-        else:
-            Et, Gt = hold_int(A, B, tau)
-            E2, G2 = hold_int(A, B, s - tau)
-            E = E2 @ Et
-            ys[:, j] = (x @ (Cy @ E).T)[:, 0] + uprev * (Cy @ E2 @ Gt).item() \
-                + uk * (Cy @ G2).item()
+    # intersample: y(kT + jT/16), u_{k-1} until tau, u_k after (plus the
+    # load step dist, constant from t = 0, at the plant input)
+    def between(x, uprev, uk, dist):
+        ys = np.empty((N + 1, SUB))
+        for j in range(SUB):
+            s = j * T / SUB
+            _, Gfull = hold_int(A, B, s)
+            if s <= tau:
+                E, Gs = hold_int(A, B, s)
+                ys[:, j] = (x @ (Cy @ E).T)[:, 0] + uprev * (Cy @ Gs).item()
+            else:
+                Et, Gt = hold_int(A, B, tau)
+                E2, G2 = hold_int(A, B, s - tau)
+                E = E2 @ Et
+                ys[:, j] = (x @ (Cy @ E).T)[:, 0] + uprev * (Cy @ E2 @ Gt).item() \
+                    + uk * (Cy @ G2).item()
+            ys[:, j] += dist * (Cy @ Gfull).item()
+        return ys
+
+    ys = between(x, uprev, uk, 0.0)
     tt = (t[:, None] + np.arange(SUB)[None, :] * T / SUB).ravel()
     fig = step_figures(tt, ys.ravel(), yf)
+
+    if case["disturbance"]:
+        # load disturbance: a unit step added at the plant input at t = 0,
+        # r = 0; over a period it adds (Gamma0 + Gamma1) to the state update
+        Bd = np.vstack([G0 + G1, [[0.0]], np.zeros((nc, 1))])
+        _, yd, Xd = sig.dlsim((Acl, Bd, Ccl, np.zeros((2, 1)), T), np.ones(N + 1), t)
+        yds = between(Xd[:, :n], Xd[:, n], yd[:, 1], 1.0).ravel()
+        Xdf = np.linalg.solve(np.eye(Acl.shape[0]) - Acl, Bd[:, 0])
+        ydf = (Ccl[0] @ Xdf).item()
+        peak = np.max(np.abs(yds))
+        out = np.abs(yds - ydf) > BAND * peak
+        idx = np.nonzero(out)[0]
+        rec = np.nan if out[-1] else (tt[idx[-1] + 1] if len(idx) else 0.0)
+        fig.update(disturbance_peak=peak, recovery_time_s=rec)
 
     # frequency: L = C(z) G(z), G from u_k to y_m,k with the delay state
     Ag = np.block([[Phi, G1], [np.zeros((1, n + 1))]])
@@ -308,6 +332,8 @@ def main():
                     help="grid points to time, spread over the rate range")
     ap.add_argument("--seed", type=int, default=1)
     ap.add_argument("--csv", help="write the per-point figures here")
+    ap.add_argument("--no-disturbance", action="store_true",
+                    help="skip the load-disturbance run (the earlier, lighter baseline)")
     a = ap.parse_args()
     with open(a.case) as fh:
         c = json.load(fh)
@@ -321,6 +347,7 @@ def main():
     roots = np.concatenate([_roots(p) for p in (*plant, *sensor, *ctrl)])
     nz = np.abs(roots[np.abs(roots) > 1e-9])
     case = dict(ss=plant_sensor_ss(plant, sensor), ctrl=ctrl, w0=w0,
+                disturbance=not a.no_disturbance,
                 wmin=0.01 * (nz.min() if len(nz) else 1.0))
 
     # the sample: one rate from each of N equal slices of the rate grid

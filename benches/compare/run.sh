@@ -1,7 +1,9 @@
 #!/usr/bin/env bash
 # looprate vs. the same per-point work written by hand with scipy.signal.
 # Usage: bash benches/compare/run.sh   (from anywhere inside the repository)
-# Env: SCIPY_POINTS (default 60), SEED (default 1), KEEP=1 keeps the temp dir.
+# Env: SCIPY_POINTS (default 60), SEED (default 1), KEEP=1 keeps the temp dir,
+#      SCIPY_ARGS="--no-disturbance" for the lighter baseline without the
+#      load-disturbance run (what earlier runs compared against).
 set -euo pipefail
 
 ROOT=$(cd "$(dirname "${BASH_SOURCE[0]}")/../.." && pwd)
@@ -76,7 +78,7 @@ T2=$(wall "$BIN" sweep "$CASE" --out "$TMP/s2" --quiet --no-charts --threads 2)
 TP=$(wall "$BIN" pick "$CASE" --out "$TMP/p" --quiet --no-charts --threads 1)
 
 SCIPY_LINE=$(OPENBLAS_NUM_THREADS=1 OMP_NUM_THREADS=1 MKL_NUM_THREADS=1 "$PY" "$HERE/by_hand.py" --case "$TMP/case.json" --points "$SCIPY_POINTS" \
-    --seed "$SEED" --csv "$TMP/by_hand.csv")
+    --seed "$SEED" --csv "$TMP/by_hand.csv" ${SCIPY_ARGS:-})
 
 echo "load after:  $(uptime | sed 's/.*load average/load average/')"
 
@@ -105,7 +107,7 @@ print(f"looprate pick (1 thread, sweep + refinement): {tp:.2f} s wall (cpu {cp:.
 # agreement on the sampled points (sanity check that both do the same job)
 key = lambda r: (round(float(r["rate_hz"]), 6), r["method"], float(r["compute_delay"]))
 lr = {key(r): r for r in csv.DictReader(open(f"{tmp}/s1/sweep.csv"))}
-same, dpm, dov = 0, 0.0, 0.0
+same, dpm, dov, ddp = 0, 0.0, 0.0, 0.0
 rows = list(csv.DictReader(open(f"{tmp}/by_hand.csv")))
 for r in rows:
     l = lr[key(r)]
@@ -113,6 +115,10 @@ for r in rows:
     if r["status"] == "ok" and l["status"] == "ok":
         dpm = max(dpm, abs(float(r["phase_margin_deg"]) - float(l["phase_margin_deg"])))
         dov = max(dov, abs(float(r["overshoot_pct"]) - float(l["overshoot_pct"])))
+        if r.get("disturbance_peak"):
+            a, b = float(r["disturbance_peak"]), float(l["disturbance_peak"])
+            ddp = max(ddp, abs(a - b) / abs(b))
 print(f"agreement on the {len(rows)} sampled points: status {same}/{len(rows)}, "
-      f"max |dPM| {dpm:.3f} deg, max |d overshoot| {dov:.3f} %-points")
+      f"max |dPM| {dpm:.3f} deg, max |d overshoot| {dov:.3f} %-points, "
+      f"max relative d disturbance peak {ddp:.1e}")
 PYEOF
