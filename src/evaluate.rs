@@ -9,6 +9,9 @@ use crate::continuous::{ContinuousLoop, HoldApprox};
 use crate::discretize::{Method, discretize};
 use crate::frequency::{FrequencyRange, LoopFigures, loop_figures};
 use crate::hold::{HoldEquivalent, plant_and_sensor};
+use std::collections::HashMap;
+use std::sync::Mutex;
+
 use crate::poly::C64;
 use crate::ss::{ModelError, StateSpace};
 use crate::tf::{Controller, DiscreteTf, Tf};
@@ -127,6 +130,46 @@ pub struct Point {
     pub rate_hz: f64,
     pub method: Option<Method>,
     pub delay: f64,
+}
+
+/// The plant side of every loop at one (rate, delay): the hold + delay +
+/// plant equivalent, its pulse transfer from `u_k` to the measured sample,
+/// and the values of that transfer already computed, keyed by the exact
+/// frequency. The methods of a sweep share one (the plant side does not
+/// depend on the method), and their frequency grids start from the same
+/// points, so most of the loop-gain solves are done once; a value from the
+/// memo is the very number `response_at` returned, so figures are
+/// unchanged.
+#[derive(Debug)]
+pub struct PlantAt {
+    pub hold: HoldEquivalent,
+    pulse: StateSpace,
+    memo: Mutex<HashMap<u64, C64>>,
+}
+
+impl PlantAt {
+    fn new(hold: HoldEquivalent) -> PlantAt {
+        PlantAt {
+            pulse: hold.augmented(),
+            hold,
+            memo: Mutex::new(HashMap::new()),
+        }
+    }
+
+    /// G(e^{jwT}) at `w` rad/s, from the memo when already computed.
+    fn response(&self, w: f64) -> C64 {
+        let key = w.to_bits();
+        if let Some(v) = self.memo.lock().ok().and_then(|m| m.get(&key).copied()) {
+            return v;
+        }
+        let v = self
+            .pulse
+            .response_at(C64::from_polar(1.0, w * self.hold.period_s), 0);
+        if let Ok(mut m) = self.memo.lock() {
+            m.insert(key, v);
+        }
+        v
+    }
 }
 
 /// Everything about the loop that does not depend on the rate, built once
@@ -296,7 +339,7 @@ impl PreparedLoop {
         p: &Point,
         c: &DiscreteTf,
     ) -> Result<(HoldEquivalent, ClosedLoop), String> {
-        let hold = self.hold_at(p)?;
+        let hold = self.hold_equivalent(p)?;
         let cl = ClosedLoop::new(&hold, c).map_err(|e| format!("closing the loop: {e}"))?;
         Ok((hold, cl))
     }
@@ -304,7 +347,12 @@ impl PreparedLoop {
     /// The exact hold + delay + plant equivalent at a point's rate and
     /// delay. It does not depend on the method, so a sweep builds it once
     /// per (rate, delay) and hands it to `sampled_on` for every method.
-    pub fn hold_at(&self, p: &Point) -> Result<HoldEquivalent, String> {
+    pub fn hold_at(&self, p: &Point) -> Result<PlantAt, String> {
+        self.hold_equivalent(p).map(PlantAt::new)
+    }
+
+    /// The exact hold + delay + plant equivalent at a point.
+    fn hold_equivalent(&self, p: &Point) -> Result<HoldEquivalent, String> {
         check_point(p)?;
         HoldEquivalent::new(
             &self.plant_model,
@@ -328,7 +376,7 @@ impl PreparedLoop {
 
     /// `sampled` with the point's hold equivalent already built (by
     /// `hold_at` at the same point, or its error): the same evaluation.
-    pub fn sampled_on(&self, p: &Point, hold: Result<&HoldEquivalent, &str>) -> Evaluation {
+    pub fn sampled_on(&self, p: &Point, plant: Result<&PlantAt, &str>) -> Evaluation {
         if let Err(e) = check_point(p) {
             return Evaluation::error(e);
         }
@@ -336,12 +384,12 @@ impl PreparedLoop {
             Ok(c) => c,
             Err(e) => return Evaluation::error(e),
         };
-        let hold = match hold {
+        let plant = match plant {
             Ok(h) => h,
             Err(e) => return Evaluation::error(e),
         };
-        match ClosedLoop::new(hold, &c) {
-            Ok(cl) => self.evaluate_closed(hold, &c, &cl),
+        match ClosedLoop::new(&plant.hold, &c) {
+            Ok(cl) => self.evaluate_closed(&plant.hold, &c, &cl, &|w| plant.response(w)),
             Err(e) => Evaluation::error(format!("closing the loop: {e}")),
         }
     }
@@ -350,18 +398,24 @@ impl PreparedLoop {
     /// controller in place of the point's own discretization.
     pub fn sampled_with(&self, p: &Point, c: &DiscreteTf) -> Evaluation {
         match self.sampled_loop_with(p, c) {
-            Ok((hold, cl)) => self.evaluate_closed(&hold, c, &cl),
+            Ok((hold, cl)) => {
+                let pulse = hold.augmented();
+                let t = hold.period_s;
+                let plant = |w: f64| pulse.response_at(C64::from_polar(1.0, w * t), 0);
+                self.evaluate_closed(&hold, c, &cl, &plant)
+            }
             Err(e) => Evaluation::error(e),
         }
     }
 
     /// Every figure of a closed sampled loop (hold equivalent `hold`,
-    /// controller `c`).
+    /// controller `c`, `plant` the pulse transfer G(e^{jwT}) at w rad/s).
     fn evaluate_closed(
         &self,
         hold: &HoldEquivalent,
         c: &DiscreteTf,
         cl: &ClosedLoop,
+        plant: &dyn Fn(f64) -> C64,
     ) -> Evaluation {
         let poles = match cl.poles() {
             Ok(v) => v,
@@ -376,12 +430,8 @@ impl PreparedLoop {
             Ok(v) => v,
             Err(e) => return Evaluation::error(e),
         };
-        let plant_z = hold.augmented();
         let t = hold.period_s;
-        let l = |w: f64| {
-            let z = C64::from_polar(1.0, w * t);
-            c.tf.eval(z) * plant_z.response_at(z, 0)
-        };
+        let l = |w: f64| c.tf.eval(C64::from_polar(1.0, w * t)) * plant(w);
         let range = self.range_below(std::f64::consts::PI / t);
         let freq = loop_figures(&l, &range);
         finish(step, dist, freq, &poles)

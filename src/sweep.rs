@@ -12,9 +12,8 @@ use rayon::prelude::*;
 use crate::budget;
 use crate::case::{Arithmetic, Budget, Case, Spec};
 use crate::discretize::Method;
-use crate::evaluate::{Evaluation, Point, PreparedLoop};
+use crate::evaluate::{Evaluation, PlantAt, Point, PreparedLoop};
 use crate::feasibility::{Assessment, assess};
-use crate::hold::HoldEquivalent;
 use crate::precision::{self, Format, PrecisionPoint, Structure};
 use crate::variants::{RobustPoint, VariantSet};
 
@@ -129,11 +128,7 @@ pub fn evaluate_row(plan: &Plan, p: &Point) -> SweepRow {
 /// `evaluate_row` with the point's hold equivalent already built (see
 /// `PreparedLoop::hold_at`), or None to build it here. Only the nominal
 /// loop uses it: each plant variant has its own.
-fn evaluate_row_on(
-    plan: &Plan,
-    p: &Point,
-    hold: Option<Result<&HoldEquivalent, &str>>,
-) -> SweepRow {
+fn evaluate_row_on(plan: &Plan, p: &Point, hold: Option<Result<&PlantAt, &str>>) -> SweepRow {
     let lp = plan.lp;
     let controller = lp.controller_at(p.rate_hz, p.method);
     let (eval, robust) = match plan.variants {
