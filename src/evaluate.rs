@@ -380,16 +380,29 @@ impl PreparedLoop {
         if let Err(e) = check_point(p) {
             return Evaluation::error(e);
         }
-        let c = match self.controller_at(p.rate_hz, p.method) {
-            Ok(c) => c,
-            Err(e) => return Evaluation::error(e),
-        };
+        match self.controller_at(p.rate_hz, p.method) {
+            Ok(c) => self.sampled_with_on(p, &c, plant),
+            Err(e) => Evaluation::error(e),
+        }
+    }
+
+    /// `sampled_with` on a plant side already built for the point's rate
+    /// and delay (`hold_at`): the same evaluation.
+    pub fn sampled_with_on(
+        &self,
+        p: &Point,
+        c: &DiscreteTf,
+        plant: Result<&PlantAt, &str>,
+    ) -> Evaluation {
+        if let Err(e) = check_point(p) {
+            return Evaluation::error(e);
+        }
         let plant = match plant {
             Ok(h) => h,
             Err(e) => return Evaluation::error(e),
         };
-        match ClosedLoop::new(&plant.hold, &c) {
-            Ok(cl) => self.evaluate_closed(&plant.hold, &c, &cl, &|w| plant.response(w)),
+        match ClosedLoop::new(&plant.hold, c) {
+            Ok(cl) => self.evaluate_closed(&plant.hold, c, &cl, &|w| plant.response(w)),
             Err(e) => Evaluation::error(format!("closing the loop: {e}")),
         }
     }

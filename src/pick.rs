@@ -399,7 +399,7 @@ pub fn pick(
     };
     let robust_here = variants.map(|v| {
         let c = lp.controller_at(rate, method);
-        v.judge(spec, &p, c.as_ref().map_err(String::as_str), false)
+        v.judge(spec, &p, c.as_ref().map_err(String::as_str), false, None)
             .1
     });
     let worst_figures = robust_here.as_ref().and_then(|r| r.worst_figures.clone());
@@ -538,7 +538,8 @@ fn robust_report(
                     delay,
                 };
                 let c = lp.controller_at(rate, method);
-                let (_, v) = variants.judge(spec, &p, c.as_ref().map_err(String::as_str), false);
+                let (_, v) =
+                    variants.judge(spec, &p, c.as_ref().map_err(String::as_str), false, None);
                 observer.evaluated(rate, &v.assessment);
                 seen.borrow_mut()
                     .push((rate, v.assessment.clone(), v.worst));
@@ -691,9 +692,16 @@ fn precision_report(
                             method: m,
                             delay: design_delay,
                         };
-                        let a =
-                            precision::judge_point(lp, spec, &p, arith.structure, format, check_hz)
-                                .assessment;
+                        let a = precision::judge_point(
+                            lp,
+                            spec,
+                            &p,
+                            arith.structure,
+                            format,
+                            check_hz,
+                            None,
+                        )
+                        .assessment;
                         observer.evaluated(rate, &a);
                         a
                     };
@@ -731,7 +739,7 @@ fn precision_report(
         .formats
         .par_iter()
         .map(|&format| {
-            let v = precision::judge_point(lp, spec, &p, arith.structure, format, check_hz);
+            let v = precision::judge_point(lp, spec, &p, arith.structure, format, check_hz, None);
             FormatAtRate {
                 format: format.name(),
                 reason: v.reason,

@@ -33,7 +33,7 @@ use std::str::FromStr;
 use serde::Serialize;
 
 use crate::case::Spec;
-use crate::evaluate::{Point, PreparedLoop};
+use crate::evaluate::{PlantAt, Point, PreparedLoop};
 use crate::feasibility::{Assessment, UNSTABLE_SLACK, assess};
 use crate::poly::{C64, Poly};
 use crate::tf::{Controller, DiscreteTf, Tf};
@@ -759,7 +759,8 @@ fn failed(name: &'static str) -> Assessment {
 
 /// Round the controller of point `p` in `structure` and `format` and judge
 /// the loop it makes on `lp` against `spec`; `check_hz` is where the
-/// crossover gain error is measured.
+/// crossover gain error is measured; `plant`, when given, is `lp`'s plant
+/// side at the point's rate and delay, already built (`hold_at`).
 pub fn judge_point(
     lp: &PreparedLoop,
     spec: &Spec,
@@ -767,6 +768,7 @@ pub fn judge_point(
     structure: Structure,
     format: Format,
     check_hz: Option<f64>,
+    plant: Option<Result<&PlantAt, &str>>,
 ) -> PrecisionPoint {
     let failure = |name: &'static str, reason: String| PrecisionPoint {
         format,
@@ -786,7 +788,13 @@ pub fn judge_point(
     };
     let assessment = match q.damage.structural_failure() {
         Some(name) => failed(name),
-        None => assess(&lp.sampled_with(p, &q.controller), spec),
+        None => {
+            let e = match plant {
+                Some(h) => lp.sampled_with_on(p, &q.controller, h),
+                None => lp.sampled_with(p, &q.controller),
+            };
+            assess(&e, spec)
+        }
     };
     PrecisionPoint {
         format,

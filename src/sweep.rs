@@ -125,24 +125,44 @@ pub fn evaluate_row(plan: &Plan, p: &Point) -> SweepRow {
     evaluate_row_on(plan, p, None)
 }
 
-/// `evaluate_row` with the point's hold equivalent already built (see
-/// `PreparedLoop::hold_at`), or None to build it here. Only the nominal
-/// loop uses it: each plant variant has its own.
-fn evaluate_row_on(plan: &Plan, p: &Point, hold: Option<Result<&PlantAt, &str>>) -> SweepRow {
+/// The plant side at one (rate, delay), built once for the methods of a
+/// sweep group: one per plant variant, or only the nominal loop's (index
+/// 0 is always the nominal one).
+struct Plants(Vec<Result<PlantAt, String>>);
+
+impl Plants {
+    fn at(plan: &Plan, p: &Point) -> Plants {
+        Plants(match plan.variants {
+            None => vec![plan.lp.hold_at(p)],
+            Some(v) => v.loops.iter().map(|lp| lp.hold_at(p)).collect(),
+        })
+    }
+
+    /// The nominal loop's plant side.
+    fn nominal(&self) -> Result<&PlantAt, &str> {
+        self.0[0].as_ref().map_err(String::as_str)
+    }
+}
+
+/// `evaluate_row` with the point's plant side already built, or None to
+/// build what is needed here.
+fn evaluate_row_on(plan: &Plan, p: &Point, plants: Option<&Plants>) -> SweepRow {
     let lp = plan.lp;
     let controller = lp.controller_at(p.rate_hz, p.method);
     let (eval, robust) = match plan.variants {
         Some(v) => {
+            let shared = plants.map(|each| each.0.as_slice());
             let (e, r) = v.judge(
                 plan.spec,
                 p,
                 controller.as_ref().map_err(String::as_str),
                 plan.keep_variants,
+                shared,
             );
             (e, Some(r))
         }
-        None => match hold {
-            Some(h) => (lp.sampled_on(p, h), None),
+        None => match plants {
+            Some(h) => (lp.sampled_on(p, h.nominal()), None),
             None => (lp.sampled(p), None),
         },
     };
@@ -154,10 +174,11 @@ fn evaluate_row_on(plan: &Plan, p: &Point, hold: Option<Result<&PlantAt, &str>>)
             .map(|cy| budget::load_pct(b, cy, p.rate_hz))
     });
     let check_hz = plan.check_hz(&eval);
+    let nominal_plant = plants.map(Plants::nominal);
     let precision = plan
         .formats()
         .into_par_iter()
-        .map(|f| precision::judge_point(lp, plan.spec, p, structure, f, check_hz))
+        .map(|f| precision::judge_point(lp, plan.spec, p, structure, f, check_hz, nominal_plant))
         .collect();
     SweepRow {
         point: *p,
@@ -189,16 +210,14 @@ pub fn run(plan: &Plan, points: &[Point], on_done: &(dyn Fn() + Sync)) -> Vec<Sw
         });
         groups[g].push(i);
     }
-    let shared = plan.variants.is_none();
     let done: Vec<Vec<(usize, SweepRow)>> = groups
         .par_iter()
         .map(|group| {
-            let hold = shared.then(|| plan.lp.hold_at(&points[group[0]]));
+            let plants = Plants::at(plan, &points[group[0]]);
             group
                 .iter()
                 .map(|&i| {
-                    let h = hold.as_ref().map(|h| h.as_ref().map_err(String::as_str));
-                    let row = evaluate_row_on(plan, &points[i], h);
+                    let row = evaluate_row_on(plan, &points[i], Some(&plants));
                     on_done();
                     (i, row)
                 })

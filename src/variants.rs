@@ -16,7 +16,7 @@ use serde::Serialize;
 
 use crate::case::{Case, Spec, UncertaintyMode};
 use crate::error::Error;
-use crate::evaluate::{Evaluation, Figures, Point, PreparedLoop};
+use crate::evaluate::{Evaluation, Figures, PlantAt, Point, PreparedLoop};
 use crate::feasibility::{Assessment, assess};
 use crate::tf::DiscreteTf;
 
@@ -182,20 +182,30 @@ impl VariantSet {
     /// design at this rate, shared by every variant; `Err` says why it
     /// could not be built) and return the nominal evaluation and the
     /// verdict over all variants. `keep` keeps every variant's result.
+    /// `plants`, when given, holds each variant's plant side at the
+    /// point's rate and delay (`PreparedLoop::hold_at`), shared with the
+    /// other methods of a sweep group.
     pub fn judge(
         &self,
         spec: &Spec,
         p: &Point,
         c: Result<&DiscreteTf, &str>,
         keep: bool,
+        plants: Option<&[Result<PlantAt, String>]>,
     ) -> (Evaluation, RobustPoint) {
-        let evals: Vec<Evaluation> = match c {
-            Ok(c) => self
+        let evals: Vec<Evaluation> = match (c, plants) {
+            (Ok(c), Some(plants)) => self
+                .loops
+                .par_iter()
+                .zip(plants.par_iter())
+                .map(|(lp, h)| lp.sampled_with_on(p, c, h.as_ref().map_err(String::as_str)))
+                .collect(),
+            (Ok(c), None) => self
                 .loops
                 .par_iter()
                 .map(|lp| lp.sampled_with(p, c))
                 .collect(),
-            Err(reason) => self
+            (Err(reason), _) => self
                 .loops
                 .iter()
                 .map(|_| Evaluation::error(reason))
