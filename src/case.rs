@@ -473,10 +473,10 @@ impl Ctx {
         range: &str,
     ) -> Result<f64, CaseError> {
         if !v.is_finite() {
-            return Err(self.invalid(field, format!("must be a finite number, got {v}")));
+            return Err(self.invalid(field, format!("must be a finite number, got {v:?}")));
         }
         if !ok(v) {
-            return Err(self.invalid(field, format!("must be {range}, got {v}")));
+            return Err(self.invalid(field, format!("must be {range}, got {v:?}")));
         }
         Ok(v)
     }
@@ -1062,7 +1062,7 @@ fn rates_from(ctx: &Ctx, raw: Option<RawRates>) -> Result<Rates, CaseError> {
     if min_hz >= max_hz {
         return Err(ctx.invalid(
             "rates.max_hz",
-            format!("must be above min_hz ({min_hz}), got {max_hz}"),
+            format!("must be above min_hz ({min_hz}), got {max_hz:?}"),
         ));
     }
     let points = raw.points.unwrap_or(200);
@@ -1170,7 +1170,12 @@ fn spec_from(ctx: &Ctx, raw: Option<RawSpec>) -> Result<Spec, CaseError> {
         max_disturbance_peak: positive("max_disturbance_peak", raw.max_disturbance_peak)?,
         max_u_peak: positive("max_u_peak", raw.max_u_peak)?,
         headroom: match raw.headroom {
-            Some(v) => ctx.number("spec.headroom", v, |v| v >= 1.0, "1 or more")?,
+            Some(v) => ctx.number(
+                "spec.headroom",
+                v,
+                |v| (1.0..=100.0).contains(&v),
+                "from 1 to 100",
+            )?,
             None => 1.25,
         },
     })

@@ -103,6 +103,9 @@ pub struct Recommended {
     pub slowest_rate_hz: f64,
     /// `f_star * headroom`, rounded up to a timer rate when a timer is given.
     pub rate_hz: f64,
+    /// How `rate_hz` was reached, in words: the headroom and what it
+    /// covers (model error), or why none applies (controller given in z).
+    pub basis: String,
     pub period_s: f64,
     /// Timer divider that makes `rate_hz`, when `[budget] timer_hz` is given.
     pub timer_divider: Option<u64>,
@@ -410,6 +413,19 @@ pub fn pick(
             .unwrap_or_default(),
         worst_figures,
         robust_feasible: robust_here.as_ref().map(|r| r.assessment.feasible),
+        basis: match &lp.controller {
+            Controller::Discrete(_) => {
+                "the controller given in z runs only at its own rate: no headroom applied".into()
+            }
+            Controller::Continuous(_) => format!(
+                "f_star {f_star} Hz times headroom {}{}; the headroom covers model error (parameter drift, unmodelled dynamics), it is not a guarantee",
+                spec.headroom,
+                match divider {
+                    Some(n) => format!(", rounded up to the timer rate timer_hz / {n}"),
+                    None => String::new(),
+                }
+            ),
+        },
         method: best.method.clone(),
         compute_delay: design_delay,
         slowest_rate_hz: f_star,
@@ -478,7 +494,7 @@ pub fn pick(
             }
         };
         if w.empty {
-            report.advice = empty_window_advice(case, &report, rate, &w, cpu.map(|c| c.1));
+            report.advice = empty_window_advice(case, lp, &report, rate, &w, cpu.map(|c| c.1));
         } else {
             report.window_hz = Some([rate, high]);
         }
@@ -762,8 +778,12 @@ fn precision_report(
     }
 }
 
+/// What would open an empty rate window, each item with the number it
+/// would take: a faster CPU, a cheaper update, a higher load limit, a
+/// wider number format, a looser spec, another method, a shorter delay.
 fn empty_window_advice(
     case: &Case,
+    lp: &PreparedLoop,
     report: &PickReport,
     rate: f64,
     window: &RateWindow,
@@ -836,6 +856,9 @@ fn empty_window_advice(
     // searched for the design delay alone.
     let cpu_bound =
         report.cpu_ceiling_hz == Some(ceiling) && !window.high_bound.contains("coefficients");
+    if cpu_bound && let Some(b) = case.budget.as_ref() {
+        out.extend(other_method_advice(case, lp, report, b, ceiling));
+    }
     let answers: Vec<&SlowestRate> = match &report.robust {
         Some(rb) => rb.methods.iter().map(|m| &m.rate).collect(),
         None => report.methods.iter().collect(),
@@ -860,4 +883,88 @@ fn empty_window_advice(
         ));
     }
     out
+}
+
+/// The "another method" item of the empty-window advice (CPU-bound window,
+/// continuous controller): a method whose own `f_star` times the headroom
+/// fits under its own CPU ceiling (the update's cost can differ between
+/// methods when cycles are estimated from multiply-accumulates) opens the
+/// window; otherwise, the `f_star` a method would need, the lowest found,
+/// and the methods the case did not try.
+fn other_method_advice(
+    case: &Case,
+    lp: &PreparedLoop,
+    report: &PickReport,
+    b: &crate::case::Budget,
+    ceiling: f64,
+) -> Option<String> {
+    if case.methods.is_empty() {
+        return None;
+    }
+    let structure = case
+        .arithmetic
+        .as_ref()
+        .map_or(Structure::Df2t, |a| a.structure);
+    let integrators = precision::design_integrators(&lp.controller);
+    let answers: Vec<&SlowestRate> = match &report.robust {
+        Some(rb) => rb.methods.iter().map(|m| &m.rate).collect(),
+        None => report.methods.iter().collect(),
+    };
+    let at_design: Vec<(Method, f64)> = answers
+        .iter()
+        .filter(|a| a.compute_delay == report.design_delay)
+        .filter_map(|a| {
+            let m = case.methods.iter().find(|m| m.name() == a.method)?;
+            Some((*m, a.slowest_rate_hz?))
+        })
+        .collect();
+    let opens: Vec<String> = at_design
+        .iter()
+        .filter(|(m, _)| {
+            report
+                .recommended
+                .as_ref()
+                .is_none_or(|r| r.method != m.name())
+        })
+        .filter_map(|&(m, f)| {
+            let low = f * case.spec.headroom;
+            let c = lp.controller_at(low, Some(m)).ok();
+            let cycles = budget::cycles_per_update(b, c.as_ref(), structure, integrators)?;
+            let high = budget::ceiling_hz(b, cycles);
+            (low <= high).then(|| {
+                format!(
+                    "{} ({:.0} cycles per update): window {:.4} Hz to {:.4} Hz",
+                    m.name(),
+                    cycles,
+                    low,
+                    high
+                )
+            })
+        })
+        .collect();
+    if !opens.is_empty() {
+        return Some(format!(
+            "another method fits the CPU budget with its own update cost: {}",
+            opens.join("; ")
+        ));
+    }
+    let need = ceiling / case.spec.headroom;
+    let lowest = at_design
+        .iter()
+        .min_by(|a, b| a.1.total_cmp(&b.1))
+        .map(|(m, f)| format!("the lowest here is {} at {:.4} Hz", m.name(), f))
+        .unwrap_or_else(|| "no method here has one".into());
+    let untried: Vec<&str> = Method::ALL
+        .iter()
+        .filter(|m| !case.methods.contains(m))
+        .map(|m| m.name())
+        .collect();
+    let untried = if untried.is_empty() {
+        String::new()
+    } else {
+        format!("; not tried: {}", untried.join(", "))
+    };
+    Some(format!(
+        "a method with a lower f_star: at most {need:.4} Hz would fit the CPU ceiling with the headroom ({lowest}{untried})"
+    ))
 }

@@ -134,7 +134,16 @@ pub fn slowest_rate_by(
 
     // Brent on the limiting slack; its answer x sits next to the sign
     // change, so probing x and x - tol usually closes the bracket at once.
-    let slack = |x: f64| judge(x.exp()).slack;
+    // The bracket's ends were judged by the sweep: their slack is reused,
+    // not recomputed (the solver asks for both ends before it starts).
+    let ends = [
+        (lo.ln(), series[i_bad].1.slack),
+        (hi.ln(), series[i_bad + 1].1.slack),
+    ];
+    let slack = |x: f64| match ends.iter().find(|e| e.0 == x) {
+        Some(e) => e.1,
+        None => judge(x.exp()).slack,
+    };
     if let Some(x) = scalar_solve::root(&slack, lo.ln(), hi.ln(), ln_tol) {
         let r = x.exp();
         if r > lo && r < hi {

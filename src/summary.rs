@@ -252,11 +252,13 @@ pub fn pick_text(r: &PickReport) -> String {
             );
         }
     }
-    let _ = writeln!(
-        s,
-        "{:<16}{:>8}{:>16}{:>22}{:>8}  islands",
-        "method", "delay", "slowest (Hz)", "limiting", "evals"
-    );
+    if !r.methods.is_empty() {
+        let _ = writeln!(
+            s,
+            "{:<16}{:>8}{:>16}{:>22}{:>8}  islands",
+            "method", "delay", "slowest (Hz)", "limiting", "evals"
+        );
+    }
     for m in &r.methods {
         let slow = match (m.slowest_rate_hz, m.at_range_floor) {
             (Some(f), true) => format!("<= {}", fmt_num(f)),
@@ -495,6 +497,8 @@ pub fn pick_text(r: &PickReport) -> String {
             let _ = writeln!(
                 s,
                 "\nRate window: {} Hz to {} Hz ({} .. {}).",
+                fmt_num(w.low_hz),
+                fmt_num(w.high_hz),
                 if r.recommended
                     .as_ref()
                     .is_some_and(|x| x.method == "given-in-z")
@@ -503,8 +507,6 @@ pub fn pick_text(r: &PickReport) -> String {
                 } else {
                     "spec with headroom"
                 },
-                fmt_num(w.low_hz),
-                fmt_num(w.high_hz),
                 w.high_bound
             );
         }

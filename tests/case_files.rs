@@ -608,7 +608,13 @@ const BAD: &[Bad] = &[
         "headroom below one",
         &[("spec", "[spec]\nheadroom = 0.9\n")],
         "spec.headroom",
-        &["1 or more"],
+        &["from 1 to 100", "got 0.9"],
+    ),
+    (
+        "headroom absurdly large",
+        &[("spec", "[spec]\nheadroom = 1e300\n")],
+        "spec.headroom",
+        &["from 1 to 100", "got 1e300"],
     ),
     (
         "settling band zero",

@@ -121,6 +121,20 @@ fn search_agrees_with_a_brute_force_scan() {
                     m.method,
                     m.compute_delay
                 );
+                // Within the scan's spacing, the 1e-4 tolerance itself:
+                // f_star passes, 1e-4 below it fails.
+                let one = |rate: f64| {
+                    let p = sweep::grid(&[rate], &[method], &[m.compute_delay]);
+                    sweep::run(&sweep::Plan::nominal(&lp, &c.spec, None), &p, &|| {})[0]
+                        .assessment
+                        .feasible
+                };
+                assert!(
+                    one(f) && !one(f * (1.0 - 1e-4)),
+                    "{} d={}: tolerance",
+                    m.method,
+                    m.compute_delay
+                );
             }
             (Some(i), None) => {
                 assert_eq!(i, n - 1, "{}: search found none, scan disagrees", m.method)
@@ -149,13 +163,18 @@ fn search_agrees_with_a_brute_force_scan() {
         .fold(f64::INFINITY, f64::min);
     assert_eq!(rec.slowest_rate_hz, best);
     assert!((rec.rate_hz - best * 1.25).abs() < 1e-9 * best);
-    // Hand computation of the CPU budget: tustin of a PI is first order,
-    // b0, b1, a1 non-zero -> 3 MACs -> 20*3 + 400 = 460 cycles; ceiling
-    // = 0.10 * 48e6 / 460 = 10434.78 Hz.
-    if rec.method == "tustin" {
-        assert_eq!(rec.cycles_per_update, Some(460.0));
-        assert!((report.cpu_ceiling_hz.unwrap() - 0.10 * 48e6 / 460.0).abs() < 1e-6);
-    }
+    // Hand computation of the CPU budget: every method here (tustin,
+    // forward Euler, pre-warped tustin) turns the PI into one first-order
+    // section with b0, b1, a1 non-zero -> 3 MACs in direct form II
+    // transposed -> 20 * 3 + 400 = 460 cycles per update; ceiling
+    // = 0.10 * 48e6 / 460 = 10434.78 Hz; load at the recommended rate
+    // = 460 * rate / 48e6 * 100 %.
+    assert_eq!(rec.cycles_per_update, Some(460.0), "{}", rec.method);
+    assert!((report.cpu_ceiling_hz.unwrap() - 10434.782608695652).abs() < 1e-6);
+    let load = rec.cpu_load_pct.unwrap();
+    assert!((load - 460.0 * rec.rate_hz / 48e6 * 100.0).abs() < 1e-9 * load);
+    let w = report.window_hz.expect("a window");
+    assert_eq!(w, [rec.rate_hz, report.cpu_ceiling_hz.unwrap()]);
 }
 
 #[test]
@@ -192,4 +211,44 @@ timer_hz = 1e6
     let rec = report.recommended.unwrap();
     assert_eq!(rec.rate_hz, 20.0);
     assert_eq!(rec.timer_divider, Some(50_000));
+}
+
+#[test]
+fn a_demo_with_plant_variants_and_number_formats_is_byte_identical_on_any_thread_count() {
+    // The belt conveyor sweeps three plant variants and two number formats
+    // per point: the shared plant side and the nested parallel loops must
+    // not make the output depend on scheduling. 1 thread, 3 threads, and
+    // the default pool (every core of the machine).
+    let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-cases/belt-conveyor.toml");
+    let c = Case::load(&path).unwrap();
+    let lp = prepare(&c).unwrap();
+    let variants = looprate::pick::case_variants(&c, &lp).unwrap().unwrap();
+    let run = || {
+        // As `sweep --variants` (every variant's row kept), then `pick`.
+        let plan = sweep::Plan {
+            keep_variants: true,
+            ..sweep::Plan::for_case(&c, &lp, Some(&variants))
+        };
+        let rows = sweep::run(&plan, &case_grid(&c, &lp), &|| {});
+        let report = pick(&c, &lp, Some(&variants), &rows, &Silent);
+        (
+            sweep_csv(&rows, Some(&variants)),
+            looprate::outputs::variants_csv(&rows, &variants),
+            serde_json::to_vec(&report).unwrap(),
+        )
+    };
+    let one = pool(1).install(run);
+    let three = pool(3).install(run);
+    let all = run();
+    assert_eq!(one, three, "1 vs 3 threads");
+    assert_eq!(one, all, "1 thread vs the default pool");
+    let rows = String::from_utf8_lossy(&one.0).lines().count() - 1;
+    let points = case_grid(&c, &lp).len();
+    assert_eq!(rows, points, "one row per grid point");
+    let variant_rows = String::from_utf8_lossy(&one.1).lines().count() - 1;
+    assert_eq!(
+        variant_rows,
+        points * variants.len(),
+        "a row per point and variant"
+    );
 }
