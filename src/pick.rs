@@ -18,6 +18,7 @@ use crate::search::{
     Ceiling, SearchObserver, SlowestRate, fastest_rate_by, method_label, slowest_rate,
     slowest_rate_by,
 };
+use crate::summary::fmt_num;
 use crate::sweep::{self, Plan, SweepRow};
 use crate::tf::Controller;
 use crate::time_response::TimeOptions;
@@ -871,8 +872,10 @@ fn empty_window_advice(
         .filter(|(_, f)| f * case.spec.headroom <= ceiling)
         .map(|(m, f)| {
             format!(
-                "{} at delay {} (f_star {:.4} Hz)",
-                m.method, m.compute_delay, f
+                "{} at delay {} (f_star {} Hz)",
+                m.method,
+                m.compute_delay,
+                fmt_num(f)
             )
         })
         .collect();
@@ -933,11 +936,11 @@ fn other_method_advice(
             let high = budget::ceiling_hz(b, cycles);
             (low <= high).then(|| {
                 format!(
-                    "{} ({:.0} cycles per update): window {:.4} Hz to {:.4} Hz",
+                    "{} ({:.0} cycles per update): window {} Hz to {} Hz",
                     m.name(),
                     cycles,
-                    low,
-                    high
+                    fmt_num(low),
+                    fmt_num(high)
                 )
             })
         })
@@ -952,7 +955,7 @@ fn other_method_advice(
     let lowest = at_design
         .iter()
         .min_by(|a, b| a.1.total_cmp(&b.1))
-        .map(|(m, f)| format!("the lowest here is {} at {:.4} Hz", m.name(), f))
+        .map(|(m, f)| format!("the lowest here is {} at {} Hz", m.name(), fmt_num(*f)))
         .unwrap_or_else(|| "no method here has one".into());
     let untried: Vec<&str> = Method::ALL
         .iter()
@@ -965,6 +968,7 @@ fn other_method_advice(
         format!("; not tried: {}", untried.join(", "))
     };
     Some(format!(
-        "a method with a lower f_star: at most {need:.4} Hz would fit the CPU ceiling with the headroom ({lowest}{untried})"
+        "a method with a lower f_star: at most {} Hz would fit the CPU ceiling with the headroom ({lowest}{untried})",
+        fmt_num(need)
     ))
 }
