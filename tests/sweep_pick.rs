@@ -252,3 +252,78 @@ fn a_demo_with_plant_variants_and_number_formats_is_byte_identical_on_any_thread
         "a row per point and variant"
     );
 }
+
+#[test]
+fn an_empty_window_names_another_method_whose_cheaper_update_fits() {
+    // An invented loop with a strictly proper controller k (s + 8) /
+    // (s (s/200 + 1)). By hand: foh and tustin give a second-order
+    // section with b0, b1, b2, a1, a2 -> 5 MACs -> 5 x 1000 = 5000 cycles;
+    // forward Euler and zoh leave b0 = 0 -> 4 MACs -> 4000 cycles. CPU
+    // ceilings at 50 % of 8 MHz: 800 Hz (5 MACs), 1000 Hz (4 MACs). foh
+    // has the lowest f_star, but f_star x 1.25 is above 800 Hz; forward
+    // Euler's f_star is a little higher and x 1.25 fits under 1000 Hz.
+    let text = r#"
+[plant]
+tf = "20 / ((0.3*s + 1) * (0.01*s + 1))"
+[controller]
+tf = "0.8 * (s + 8) / (s * (s/200 + 1))"
+[timing]
+compute_delay = 1
+[rates]
+min_hz = 20
+max_hz = 5000
+points = 60
+[methods]
+use = ["tustin", "foh", "forward-euler", "zoh"]
+[spec]
+max_overshoot_pct = 35
+min_phase_margin_deg = 40
+[budget]
+cpu_hz = 8e6
+cycles_per_mac = 1000
+overhead_cycles = 0
+max_load_pct = 50
+"#;
+    let c = Case::parse(text, Path::new("other-method.toml")).unwrap();
+    let lp = prepare(&c).unwrap();
+    let rows = sweep::run(
+        &sweep::Plan::nominal(&lp, &c.spec, c.budget.as_ref()),
+        &case_grid(&c, &lp),
+        &|| {},
+    );
+    let report = pick(&c, &lp, None, &rows, &Silent);
+    let f_star = |name: &str| {
+        report
+            .methods
+            .iter()
+            .find(|m| m.method == name)
+            .and_then(|m| m.slowest_rate_hz)
+            .unwrap()
+    };
+    let rec = report.recommended.as_ref().unwrap();
+    // Preconditions of the scenario (if the figures move, re-tune the case).
+    assert_eq!(rec.method, "foh");
+    assert_eq!(rec.cycles_per_update, Some(5000.0));
+    assert_eq!(report.cpu_ceiling_hz, Some(800.0));
+    let fe = f_star("forward-euler");
+    assert!(fe * 1.25 <= 1000.0 && f_star("zoh") * 1.25 > 1000.0);
+    let w = report.window.as_ref().unwrap();
+    assert!(w.empty);
+    let line = report
+        .advice
+        .iter()
+        .find(|a| a.starts_with("another method fits"))
+        .unwrap_or_else(|| panic!("no method advice in {:?}", report.advice));
+    assert!(
+        line.contains("forward-euler (4000 cycles per update)"),
+        "{line}"
+    );
+    assert!(!line.contains("zoh"), "zoh does not fit: {line}");
+    assert!(
+        line.contains(&format!(
+            "window {} Hz to 1000 Hz",
+            looprate::summary::fmt_num(fe * 1.25)
+        )),
+        "{line}"
+    );
+}
