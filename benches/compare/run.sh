@@ -1,7 +1,8 @@
 #!/usr/bin/env bash
 # looprate vs. the same per-point work written by hand with scipy.signal.
 # Usage: bash benches/compare/run.sh   (from anywhere inside the repository)
-# Env: SCIPY_POINTS (default 60), SEED (default 1), KEEP=1 keeps the temp dir,
+# Env: SCIPY_POINTS (default 60), SEED (default 1), REPEAT (alternating rounds,
+#      default 3: each side is quoted at its best), KEEP=1 keeps the temp dir,
 #      SCIPY_ARGS="--no-disturbance" for the lighter baseline without the
 #      load-disturbance run (what earlier runs compared against).
 set -euo pipefail
@@ -10,6 +11,7 @@ ROOT=$(cd "$(dirname "${BASH_SOURCE[0]}")/../.." && pwd)
 HERE="$ROOT/benches/compare"
 BIN="$ROOT/target/release/looprate"
 SCIPY_POINTS=${SCIPY_POINTS:-60}
+REPEAT=${REPEAT:-3}
 SEED=${SEED:-1}
 PY=${PYTHON:-python3}
 
@@ -73,28 +75,40 @@ wall() { /usr/bin/time -f "%e %U %S" -o "$TMP/time" "$@" >/dev/null; awk '{print
 
 echo "load before: $(uptime | sed 's/.*load average/load average/')   cpus: $(nproc)"
 
-T1=$(wall "$BIN" sweep "$CASE" --out "$TMP/s1" --quiet --no-charts --threads 1)
-T2=$(wall "$BIN" sweep "$CASE" --out "$TMP/s2" --quiet --no-charts --threads 2)
+# The three timed runs alternate, REPEAT rounds, and each side is quoted
+# at its best round (with the spread): on a shared host a slow phase
+# lasting a few seconds would otherwise land on one side only.
+T1=""; T2=""; SCIPY_LINES=""
+for _ in $(seq "$REPEAT"); do
+    T1="$T1,$(wall "$BIN" sweep "$CASE" --out "$TMP/s1" --quiet --no-charts --threads 1)"
+    T2="$T2,$(wall "$BIN" sweep "$CASE" --out "$TMP/s2" --quiet --no-charts --threads 2)"
+    SCIPY_LINES="$SCIPY_LINES|$(OPENBLAS_NUM_THREADS=1 OMP_NUM_THREADS=1 MKL_NUM_THREADS=1 "$PY" "$HERE/by_hand.py" --case "$TMP/case.json" --points "$SCIPY_POINTS" \
+        --seed "$SEED" --csv "$TMP/by_hand.csv" ${SCIPY_ARGS:-})"
+done
 TP=$(wall "$BIN" pick "$CASE" --out "$TMP/p" --quiet --no-charts --threads 1)
-
-SCIPY_LINE=$(OPENBLAS_NUM_THREADS=1 OMP_NUM_THREADS=1 MKL_NUM_THREADS=1 "$PY" "$HERE/by_hand.py" --case "$TMP/case.json" --points "$SCIPY_POINTS" \
-    --seed "$SEED" --csv "$TMP/by_hand.csv" ${SCIPY_ARGS:-})
 
 echo "load after:  $(uptime | sed 's/.*load average/load average/')"
 
-"$PY" - "$NPTS" "$T1" "$T2" "$TP" "$TMP" "$SCIPY_LINE" <<'PYEOF'
+"$PY" - "$NPTS" "$T1" "$T2" "$TP" "$TMP" "$SCIPY_LINES" <<'PYEOF'
 import csv, json, math, re, sys
 npts = int(sys.argv[1])
-(t1, c1), (t2, c2), (tp, cp) = (map(float, a.split()) for a in sys.argv[2:5])
-tmp, line = sys.argv[5], sys.argv[6]
-m = re.search(r"(\d+) points in ([\d.]+) s .*cpu ([\d.]+) s", line)
-sp_n, sp_t, sp_c = int(m.group(1)), float(m.group(2)), float(m.group(3))
+runs = lambda a: [tuple(map(float, x.split())) for x in a.split(",") if x]
+r1, r2 = runs(sys.argv[2]), runs(sys.argv[3])
+tp, cp = map(float, sys.argv[4].split())
+tmp = sys.argv[5]
+rs = []
+for line in (l for l in sys.argv[6].split("|") if l):
+    m = re.search(r"(\d+) points in ([\d.]+) s .*cpu ([\d.]+) s", line)
+    rs.append((float(m.group(2)), float(m.group(3)), int(m.group(1))))
+(t1, c1), (t2, c2) = min(r1), min(r2)
+sp_t, sp_c, sp_n = min(rs)
+spread = lambda r: f"rounds {', '.join(f'{x[0]:.2f}' for x in r)} s"
 lr1, lr2, sp = npts / t1, npts / t2, sp_n / sp_t
 print()
-print(f"grid: 200 rates (50..5000 Hz log) x 8 methods x 3 delays = {npts} points")
-print(f"looprate sweep, 1 thread : {t1:8.2f} s wall {lr1:9.1f} points/s   (cpu {c1:.2f} s: {npts / c1:.1f} points per cpu-s)")
-print(f"looprate sweep, 2 threads: {t2:8.2f} s wall {lr2:9.1f} points/s   (cpu {c2:.2f} s)")
-print(f"scipy by hand, 1 process : {sp_t:8.2f} s wall {sp:9.2f} points/s   (cpu {sp_c:.2f} s: {sp_n / sp_c:.2f} points per cpu-s; {sp_n} points spread over the grid)")
+print(f"grid: 200 rates (50..5000 Hz log) x 8 methods x 3 delays = {npts} points; best of {len(r1)} alternating rounds per side")
+print(f"looprate sweep, 1 thread : {t1:8.2f} s wall {lr1:9.1f} points/s   (cpu {c1:.2f} s: {npts / c1:.1f} points per cpu-s; {spread(r1)})")
+print(f"looprate sweep, 2 threads: {t2:8.2f} s wall {lr2:9.1f} points/s   (cpu {c2:.2f} s; {spread(r2)})")
+print(f"scipy by hand, 1 process : {sp_t:8.2f} s wall {sp:9.2f} points/s   (cpu {sp_c:.2f} s: {sp_n / sp_c:.2f} points per cpu-s; {sp_n} points spread over the grid; {spread(rs)})")
 print(f"per point, looprate (1 thread) vs scipy: {lr1 / sp:.1f}x faster by wall clock, {(npts / c1) / (sp_n / sp_c):.1f}x by cpu time")
 print(f"1 -> 2 thread speed-up (wall): {t1 / t2:.2f}x")
 
