@@ -50,6 +50,25 @@ fn pool(n: usize) -> rayon::ThreadPool {
         .unwrap()
 }
 
+/// The nominal sweep of a case's grid (with its budget) and the pick on
+/// it: the prepared loop, the number of rows, the report.
+fn nominal_pick(
+    c: &Case,
+) -> (
+    looprate::evaluate::PreparedLoop,
+    usize,
+    looprate::pick::PickReport,
+) {
+    let lp = prepare(c).unwrap();
+    let rows = sweep::run(
+        &sweep::Plan::nominal(&lp, &c.spec, c.budget.as_ref()),
+        &case_grid(c, &lp),
+        &|| {},
+    );
+    let report = pick(c, &lp, None, &rows, &Silent);
+    (lp, rows.len(), report)
+}
+
 #[test]
 fn every_point_has_a_row_and_threads_do_not_change_a_byte() {
     let c = case();
@@ -94,14 +113,7 @@ fn search_agrees_with_a_brute_force_scan() {
     // in the scan interval around that (to its 1e-4 tolerance): the search
     // and the scan share only the evaluation of single points.
     let c = case();
-    let lp = prepare(&c).unwrap();
-    let points = case_grid(&c, &lp);
-    let rows = sweep::run(
-        &sweep::Plan::nominal(&lp, &c.spec, c.budget.as_ref()),
-        &points,
-        &|| {},
-    );
-    let report = pick(&c, &lp, None, &rows, &Silent);
+    let (lp, _, report) = nominal_pick(&c);
     let n = 3000;
     let (lo, hi) = (c.rates.min_hz, c.rates.max_hz);
     let scan: Vec<f64> = (0..n)
@@ -200,14 +212,8 @@ max_load_pct = 50
 timer_hz = 1e6
 "#;
     let c = Case::parse(text, Path::new("z.toml")).unwrap();
-    let lp = prepare(&c).unwrap();
-    let rows = sweep::run(
-        &sweep::Plan::nominal(&lp, &c.spec, c.budget.as_ref()),
-        &case_grid(&c, &lp),
-        &|| {},
-    );
-    assert_eq!(rows.len(), 1);
-    let report = pick(&c, &lp, None, &rows, &Silent);
+    let (_, rows, report) = nominal_pick(&c);
+    assert_eq!(rows, 1);
     let rec = report.recommended.unwrap();
     assert_eq!(rec.rate_hz, 20.0);
     assert_eq!(rec.timer_divider, Some(50_000));
@@ -285,13 +291,7 @@ overhead_cycles = 0
 max_load_pct = 50
 "#;
     let c = Case::parse(text, Path::new("other-method.toml")).unwrap();
-    let lp = prepare(&c).unwrap();
-    let rows = sweep::run(
-        &sweep::Plan::nominal(&lp, &c.spec, c.budget.as_ref()),
-        &case_grid(&c, &lp),
-        &|| {},
-    );
-    let report = pick(&c, &lp, None, &rows, &Silent);
+    let (_, _, report) = nominal_pick(&c);
     let f_star = |name: &str| {
         report
             .methods
