@@ -151,6 +151,17 @@ pub struct PickReport {
     pub notes: Vec<String>,
 }
 
+impl PickReport {
+    /// The answers the recommendation rests on: the robust ones when there
+    /// are plant variants, else the nominal ones.
+    pub fn answers(&self) -> Vec<&SlowestRate> {
+        match &self.robust {
+            Some(rb) => rb.methods.iter().map(|m| &m.rate).collect(),
+            None => self.methods.iter().collect(),
+        }
+    }
+}
+
 /// A parameter and its range.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct ParamRange {
@@ -840,10 +851,7 @@ fn empty_window_advice(
         });
     }
     if let Some(r) = &report.recommended {
-        let answers: Vec<&SlowestRate> = match &report.robust {
-            Some(rb) => rb.methods.iter().map(|m| &m.rate).collect(),
-            None => report.methods.iter().collect(),
-        };
+        let answers = report.answers();
         let lim = answers
             .iter()
             .find(|m| m.method == r.method && m.compute_delay == r.compute_delay)
@@ -860,10 +868,7 @@ fn empty_window_advice(
     if cpu_bound && let Some(b) = case.budget.as_ref() {
         out.extend(other_method_advice(case, lp, report, b, ceiling));
     }
-    let answers: Vec<&SlowestRate> = match &report.robust {
-        Some(rb) => rb.methods.iter().map(|m| &m.rate).collect(),
-        None => report.methods.iter().collect(),
-    };
+    let answers = report.answers();
     let shorter: Vec<String> = answers
         .into_iter()
         .filter(|_| cpu_bound)
@@ -909,10 +914,7 @@ fn other_method_advice(
         .as_ref()
         .map_or(Structure::Df2t, |a| a.structure);
     let integrators = precision::design_integrators(&lp.controller);
-    let answers: Vec<&SlowestRate> = match &report.robust {
-        Some(rb) => rb.methods.iter().map(|m| &m.rate).collect(),
-        None => report.methods.iter().collect(),
-    };
+    let answers = report.answers();
     let at_design: Vec<(Method, f64)> = answers
         .iter()
         .filter(|a| a.compute_delay == report.design_delay)
