@@ -198,7 +198,7 @@ pub struct Case {
     pub title: String,
     /// Parameters in file order; `models_at` takes values in this order.
     pub params: Vec<Param>,
-    /// Computation delays to evaluate, as fractions of a period in [0, 1];
+    /// Computation delays to evaluate, in periods (any finite value >= 0);
     /// `[0.0]` when `[timing]` is absent.
     pub compute_delays: Vec<f64>,
     /// The rate sweep.
@@ -1038,8 +1038,8 @@ fn delays_from(ctx: &Ctx, raw: Option<RawTiming>) -> Result<Vec<f64>, CaseError>
         let d = ctx.number(
             &f,
             d,
-            |d| (0.0..=1.0).contains(&d),
-            "a fraction of a period from 0 to 1",
+            |d| d >= 0.0 && d.is_finite(),
+            "a delay in periods, finite and >= 0 (1.5 is a period and a half)",
         )?;
         if out.contains(&d) {
             return Err(ctx.invalid(&f, format!("{d} is listed twice")));

@@ -124,7 +124,8 @@ impl Evaluation {
 }
 
 /// A grid point: rate, method (None for a controller given in z) and
-/// computation delay as a fraction of the period.
+/// computation delay in periods (any finite value >= 0; 1.5 is a period
+/// and a half).
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Point {
     pub rate_hz: f64,
@@ -559,8 +560,11 @@ fn check_point(p: &Point) -> Result<(), String> {
             p.rate_hz
         ));
     }
-    if !(0.0..=1.0).contains(&p.delay) {
-        return Err(format!("computation delay {} is outside [0, 1]", p.delay));
+    if !(p.delay >= 0.0 && p.delay.is_finite()) {
+        return Err(format!(
+            "computation delay must be non-negative and finite (in periods), got {}",
+            p.delay
+        ));
     }
     Ok(())
 }

@@ -67,7 +67,7 @@ enum Command {
         /// Discretization method (not needed for a controller given in z).
         #[arg(long)]
         method: Option<String>,
-        /// Computation delay as a fraction of a period (default: the case's first).
+        /// Computation delay in periods, any finite value >= 0 (default: the case's first).
         #[arg(long)]
         delay: Option<f64>,
         /// Print JSON with the loop model's keys.
@@ -218,8 +218,10 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 (Controller::Discrete(_), _) => None,
             };
             let delay = delay.unwrap_or(c.compute_delays[0]);
-            if !(0.0..=1.0).contains(&delay) {
-                return Err(anyhow!("--delay must be in [0, 1], got {delay}"));
+            if !(delay >= 0.0 && delay.is_finite()) {
+                return Err(anyhow!(
+                    "--delay must be a finite number of periods >= 0, got {delay}"
+                ));
             }
             if !(rate > 0.0 && rate.is_finite()) {
                 return Err(anyhow!("--rate must be positive and finite, got {rate}"));
