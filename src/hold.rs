@@ -113,11 +113,7 @@ impl HoldEquivalent {
     ) -> Result<HoldEquivalent, ModelError> {
         let (whole, fraction) = split_delay(delay_periods);
         let eq = HoldEquivalent::fractional(model, period_s, fraction, points)?;
-        Ok(if whole == 0 {
-            eq
-        } else {
-            eq.delayed_by(whole)
-        })
+        Ok(if whole == 0 { eq } else { eq.delayed_by(whole) })
     }
 
     /// The equivalent with a delay of `delay_fraction` (0..=1) of a period.

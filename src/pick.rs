@@ -395,7 +395,7 @@ pub fn pick(
         method,
         delay: design_delay,
     };
-    let eval: Evaluation = lp.sampled(&p);
+    let eval: Evaluation = lp.sampled_exact(&p);
     let a = assess(&eval, spec);
     let controller = lp.controller_at(rate, method).ok();
     let (cycles, load) = match case.budget.as_ref() {
