@@ -981,6 +981,12 @@ fn params_from(ctx: &Ctx, table: toml::Table, order: &[String]) -> Result<Vec<Pa
                 "`s` is the Laplace variable and cannot be a parameter",
             ));
         }
+        if name == crate::expr::PI_NAME {
+            return Err(ctx.invalid(
+                &field,
+                "`pi` is built in (3.14159...) and cannot be a parameter",
+            ));
+        }
         if !is_identifier(name) {
             return Err(ctx.invalid(
                 &field,
@@ -1458,9 +1464,11 @@ impl Case {
                         let col = e.identifier_column(&name).unwrap_or(1);
                         let err = ExprError {
                             column: col,
-                            message: format!(
-                                "unbound identifier `{name}`: declare it under [params]"
-                            ),
+                            message: if name == "z" {
+                                crate::expr::unbound_message(&name)
+                            } else {
+                                format!("unbound identifier `{name}`: declare it under [params]")
+                            },
                         };
                         return Err(ctx.expression(&m.field, e.source(), &err));
                     }
