@@ -642,21 +642,25 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
         ));
         ph.notes.push(Annotation::new(fg, phase_at(fg), ""));
     }
-    let gm_text = detail.gain_margin_db.map_or(
-        "gain margin infinite (no -180 deg crossing)".to_string(),
-        |g| format!("gain margin {} dB", fmt_num(g)),
-    );
-    let pm_text = detail
-        .phase_margin_deg
-        .map_or("no gain crossover".to_string(), |p| {
-            format!("phase margin {} deg", fmt_num(p))
-        });
+    // The title names what is drawn; the marks carry the margins' values.
+    let mut missing = Vec::new();
+    if detail.gain_margin_db.is_none() {
+        missing.push("no -180 deg crossing, so no gain margin mark");
+    }
+    if detail.phase_margin_deg.is_none() {
+        missing.push("no gain crossover, so no phase margin mark");
+    }
+    let title = if missing.is_empty() {
+        "Loop gain L(e^jwT) at the recommended rate".to_string()
+    } else {
+        format!(
+            "Loop gain L(e^jwT) at the recommended rate ({})",
+            missing.join("; ")
+        )
+    };
     Some(
         Figure::new(
-            format!(
-                "Loop gain L(e^jwT) at the recommended rate: {pm_text}, {gm_text}, Ms {}",
-                fmt_num(detail.sensitivity_peak)
-            ),
+            title,
             Axis::log("frequency (Hz)").with_range(f_lo, f_hi),
         )
         .with_panel(mag)
