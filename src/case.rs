@@ -216,10 +216,18 @@ pub struct Case {
     pub uncertainty: Option<UncertaintyMode>,
     /// Coefficient formats whose precision ceiling is wanted, if any.
     pub arithmetic: Option<Arithmetic>,
+    /// Sanity notes: values that are valid but look like a slip (a CPU
+    /// clock below 1 MHz, a range no plant variant can feel). Printed by
+    /// `check` and carried into the pick's notes; never an error.
+    pub notes: Vec<String>,
     plant: Model,
     sensor: Option<Model>,
     controller: ControllerModel,
 }
+
+/// A CPU clock below this is probably given in MHz instead of Hz
+/// (common practice, no source: microcontrollers run at 1 MHz and up).
+const CPU_HZ_SANITY: f64 = 1e6;
 
 /// Everything that can be wrong with a case file.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
@@ -1496,7 +1504,36 @@ impl Case {
                 .map_or_else(|| "case".to_string(), |s| s.to_string_lossy().into_owned())
         });
 
+        let mut notes = Vec::new();
+        if let Some(b) = &budget
+            && b.cpu_hz < CPU_HZ_SANITY
+        {
+            notes.push(format!(
+                "budget.cpu_hz = {} Hz is below 1 MHz: the field is in Hz; is this the clock in MHz?",
+                b.cpu_hz
+            ));
+        }
+        if uncertainty.is_some() {
+            let in_loop_models: Vec<String> = std::iter::once(&plant)
+                .chain(sensor.as_ref())
+                .filter_map(|m| match &m.source {
+                    Source::Expr(e) => Some(e.identifiers()),
+                    _ => None,
+                })
+                .flatten()
+                .collect();
+            for p in params.iter().filter(|p| p.min < p.max) {
+                if !in_loop_models.contains(&p.name) {
+                    notes.push(format!(
+                        "params.{} has a range but appears only in the controller: the controller is designed once, so every plant variant is the same loop",
+                        p.name
+                    ));
+                }
+            }
+        }
+
         let case = Case {
+            notes,
             source: source.to_path_buf(),
             title,
             params,

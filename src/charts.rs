@@ -659,12 +659,9 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
         )
     };
     Some(
-        Figure::new(
-            title,
-            Axis::log("frequency (Hz)").with_range(f_lo, f_hi),
-        )
-        .with_panel(mag)
-        .with_panel(ph),
+        Figure::new(title, Axis::log("frequency (Hz)").with_range(f_lo, f_hi))
+            .with_panel(mag)
+            .with_panel(ph),
     )
 }
 

@@ -538,7 +538,9 @@ fn function_hint(name: &str) -> String {
     if name == "exp" {
         "`exp(...)` is not rational in s: give a pure delay e^(-sL) as `delay_s = L` under [plant] or [sensor]".to_string()
     } else {
-        format!("`{name}(...)`: only +, -, *, / and ^ with whole exponents are allowed (compute the number and write it, or declare it under [params])")
+        format!(
+            "`{name}(...)`: only +, -, *, / and ^ with whole exponents are allowed (compute the number and write it, or declare it under [params])"
+        )
     }
 }
 
@@ -599,8 +601,7 @@ fn eval_node(node: &Node, lookup: &dyn Fn(&str) -> Option<f64>) -> Result<Rat, E
             denominator: Poly::one(),
         },
         Kind::Param(name) => {
-            let v = lookup(name)
-                .ok_or_else(|| ExprError::new(node.col, unbound_message(name)))?;
+            let v = lookup(name).ok_or_else(|| ExprError::new(node.col, unbound_message(name)))?;
             if !v.is_finite() {
                 return Err(ExprError::new(
                     node.col,

@@ -405,6 +405,12 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 print(&format!("{:#}\n", serde_json::to_value(&report)?))?;
             } else {
                 print(&summary::pick_text(&report))?;
+                // Say where the files went, the default folder above all.
+                print(&format!(
+                    "\nWrote {}: report.md, report.html, pick.json, sweep.csv{}.\n",
+                    out.display(),
+                    if no_charts { "" } else { " and the charts" }
+                ))?;
             }
             Ok(if report.has_answer() {
                 ExitCode::SUCCESS

@@ -279,7 +279,7 @@ pub fn pick(
     let spec = &case.spec;
     let mut report = PickReport {
         design: None,
-        notes: Vec::new(),
+        notes: case.notes.clone(),
         ..unsearched(case, lp)
     };
     let design_delay = report.design_delay;
