@@ -70,6 +70,7 @@ enum Command {
     },
     /// Evaluate the loop at one rate, method and computation delay.
     Eval {
+        /// The case file (TOML).
         case: PathBuf,
         /// Loop rate, Hz.
         #[arg(long)]
@@ -89,11 +90,12 @@ enum Command {
     },
     /// Evaluate every grid point of the case and write DIR/sweep.csv.
     Sweep {
+        /// The case file (TOML).
         case: PathBuf,
-        /// Output folder.
+        /// Output folder (created if missing).
         #[arg(long, default_value = "out")]
         out: PathBuf,
-        /// Worker threads (default: all cores).
+        /// Worker threads (default: all cores). Results do not depend on it.
         #[arg(long)]
         threads: Option<usize>,
         /// No progress bar.
@@ -110,14 +112,19 @@ enum Command {
     /// Find the slowest rate that meets the spec for each method, recommend
     /// one with headroom, and check the CPU budget.
     Pick {
+        /// The case file (TOML).
         case: PathBuf,
+        /// Output folder for sweep.csv, pick.json, the report and the
+        /// charts (created if missing).
         #[arg(long, default_value = "out")]
         out: PathBuf,
         /// Print pick.json to stdout instead of the summary.
         #[arg(long)]
         json: bool,
+        /// Worker threads (default: all cores). Results do not depend on it.
         #[arg(long)]
         threads: Option<usize>,
+        /// No progress bar.
         #[arg(long)]
         quiet: bool,
         /// Skip the PNG charts (the report is still written).
