@@ -141,7 +141,7 @@ fn rate_axis() -> Axis {
 }
 
 fn hz(v: f64) -> String {
-    format!("{} Hz", fmt_num(v))
+    crate::engineering::hz(v)
 }
 
 /// The methods of the sweep at the design delay, in case order.

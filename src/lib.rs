@@ -12,6 +12,7 @@ pub mod charts;
 pub mod closed_loop;
 pub mod continuous;
 pub mod discretize;
+pub mod engineering;
 pub mod error;
 pub mod evaluate;
 pub mod expr;
