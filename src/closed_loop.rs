@@ -44,7 +44,10 @@ pub enum Stability {
 
 impl ClosedLoop {
     /// Close the loop around `controller` (in z, same period as `plant`).
-    pub fn new(plant: &HoldEquivalent, controller: &DiscreteTransfer) -> Result<ClosedLoop, ModelError> {
+    pub fn new(
+        plant: &HoldEquivalent,
+        controller: &DiscreteTransfer,
+    ) -> Result<ClosedLoop, ModelError> {
         let c = StateSpace::from_transfer(&controller.transfer)?;
         let n = plant.phi.nrows();
         let m = c.order();

@@ -15,11 +15,11 @@ use std::sync::Mutex;
 
 use crate::poly::C64;
 use crate::state_space::{ModelError, StateSpace};
-use crate::transfer::{Controller, DiscreteTransfer, Transfer};
 use crate::time_response::{
     DisturbanceFigures, StepFigures, TimeOptions, TracePoint, horizon_steps, sampled_figures,
     sampled_trace,
 };
+use crate::transfer::{Controller, DiscreteTransfer, Transfer};
 
 /// Outcome of one evaluation.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -466,7 +466,12 @@ impl PreparedLoop {
         }
     }
 
-    fn sampled_with_margin(&self, p: &Point, c: &DiscreteTransfer, exact_margin: bool) -> Evaluation {
+    fn sampled_with_margin(
+        &self,
+        p: &Point,
+        c: &DiscreteTransfer,
+        exact_margin: bool,
+    ) -> Evaluation {
         match self.sampled_loop_with(p, c) {
             Ok((hold, cl)) => {
                 let pulse = hold.augmented();

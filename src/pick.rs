@@ -20,8 +20,8 @@ use crate::search::{
 };
 use crate::summary::fmt_num;
 use crate::sweep::{self, Plan, SweepRow};
-use crate::transfer::Controller;
 use crate::time_response::TimeOptions;
+use crate::transfer::Controller;
 use crate::variants::{NamedValue, VariantSet};
 
 /// Build the rate-independent part of the loop from a case (nominal
@@ -279,7 +279,7 @@ pub fn pick(
     let spec = &case.spec;
     let mut report = PickReport {
         design: None,
-        notes: Vec::new(),
+        notes: case.notes.clone(),
         ..unsearched(case, lp)
     };
     let design_delay = report.design_delay;

@@ -103,7 +103,14 @@ fn tf_text(tf: &Transfer, var: &str) -> String {
     if d.len() == 1 && d[0] == 1.0 {
         return num;
     }
-    let num = if tf.numerator.descending().iter().filter(|c| **c != 0.0).count() > 1 {
+    let num = if tf
+        .numerator
+        .descending()
+        .iter()
+        .filter(|c| **c != 0.0)
+        .count()
+        > 1
+    {
         format!("({num})")
     } else {
         num

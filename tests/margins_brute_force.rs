@@ -6,8 +6,8 @@ use looprate::discretize::Method;
 use looprate::evaluate::{Point, PreparedLoop};
 use looprate::hold::{HoldEquivalent, plant_and_sensor};
 use looprate::poly::{C64, Poly};
-use looprate::transfer::{Controller, Transfer};
 use looprate::time_response::TimeOptions;
+use looprate::transfer::{Controller, Transfer};
 
 fn transfer(num: &[f64], den: &[f64]) -> Transfer {
     Transfer::new(Poly::from_descending(num), Poly::from_descending(den))
@@ -172,8 +172,11 @@ fn half_period_delay_matches_fine_step_simulation() {
     // exact equivalent must match RK4 with 20 000 steps per period over a
     // few periods of an arbitrary input sequence (plant 20/((s+2)(s+5)),
     // sensor 1/(0.01 s + 1); both outputs compared).
-    let model =
-        plant_and_sensor(&transfer(&[20.0], &[1.0, 7.0, 10.0]), &transfer(&[1.0], &[0.01, 1.0])).unwrap();
+    let model = plant_and_sensor(
+        &transfer(&[20.0], &[1.0, 7.0, 10.0]),
+        &transfer(&[1.0], &[0.01, 1.0]),
+    )
+    .unwrap();
     let t = 0.05;
     let eq = HoldEquivalent::new(&model, t, 0.5, 16).unwrap();
     let u = [1.0, -0.5, 2.0, 0.0, 0.7];

@@ -9,8 +9,8 @@ use looprate::closed_loop::{ClosedLoop, Stability};
 use looprate::discretize::Method;
 use looprate::evaluate::{Figures, Point, PreparedLoop};
 use looprate::poly::{C64, Poly};
-use looprate::transfer::{Controller, DiscreteTransfer, Transfer};
 use looprate::time_response::TimeOptions;
+use looprate::transfer::{Controller, DiscreteTransfer, Transfer};
 use proptest::prelude::*;
 
 const TWO_PI: f64 = 2.0 * std::f64::consts::PI;
@@ -41,7 +41,7 @@ fn stable_with(lp: &PreparedLoop, p: &Point, c: &DiscreteTransfer) -> bool {
 fn scaled(lp: &PreparedLoop, p: &Point, k: f64) -> DiscreteTransfer {
     let c = lp.controller_at(p.rate_hz, p.method).unwrap();
     DiscreteTransfer {
-        tf: c.transfer.cascade(&Transfer::gain(k)),
+        transfer: c.transfer.cascade(&Transfer::gain(k)),
         period_s: c.period_s,
     }
 }
@@ -173,7 +173,7 @@ impl CtrlFactor {
         match *self {
             CtrlFactor::Integral(z) => transfer(&[1.0, z], &[1.0, 0.0]),
             CtrlFactor::Lead(z, ratio) => transfer(&[1.0 / z, 1.0], &[1.0 / (z * ratio), 1.0]),
-            CtrlFactor::Notch(wn, zn, zd) => tf(
+            CtrlFactor::Notch(wn, zn, zd) => transfer(
                 &[1.0, 2.0 * zn * wn, wn * wn],
                 &[1.0, 2.0 * zd * wn, wn * wn],
             ),
@@ -406,8 +406,10 @@ fn resonance_with_a_notch_takes_the_crossing_nearest_minus_one() {
         &[1.0 / (wa * wa), 0.1 / wa, 1.0],
         &[1.0 / (wr * wr), 0.04 / wr, 1.0],
     ));
-    let ctrl = transfer(&[0.2, 0.2 * TWO_PI * 10.0], &[1.0, 0.0])
-        .cascade(&transfer(&[1.0, 0.1 * wn, wn * wn], &[1.0, 1.0 * wn, wn * wn]));
+    let ctrl = transfer(&[0.2, 0.2 * TWO_PI * 10.0], &[1.0, 0.0]).cascade(&transfer(
+        &[1.0, 0.1 * wn, wn * wn],
+        &[1.0, 1.0 * wn, wn * wn],
+    ));
     let lp = prepared(&plant, &Transfer::gain(1.0), &ctrl);
     let p = Point {
         rate_hz: 1300.0,
