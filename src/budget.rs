@@ -104,24 +104,104 @@ pub fn timer_rate_at_least(timer_hz: f64, rate_hz: f64) -> Option<(f64, u64)> {
     Some((r, n))
 }
 
+/// What sets the top of the rate window (`pick.json`: `window.high_bound`,
+/// an object with a `kind`). Printed with `Display` in the summary, the
+/// report and the CPU chart.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+#[serde(tag = "kind", rename_all = "kebab-case")]
+pub enum WindowBound {
+    /// The CPU budget's ceiling rate (checked for the spec and the
+    /// coefficients up to there).
+    CpuBudget,
+    /// A number format's precision ceiling: the rounded controller fails
+    /// just above it; `fails_at_start` holds the failing figure when it
+    /// fails already at the window's low end.
+    Coefficients {
+        format: String,
+        structure: String,
+        fails_at_start: Option<String>,
+    },
+    /// The last rate checked: the bound `beyond` (CPU budget or
+    /// coefficients) would allow up to `beyond_hz`, but the spec and the
+    /// coefficients were checked only up to `checked_hz` (`max_hz`, or the
+    /// rate of a controller given in z), so the window stops there.
+    LastRateChecked {
+        checked_hz: f64,
+        beyond: Box<WindowBound>,
+        beyond_hz: f64,
+    },
+}
+
+impl WindowBound {
+    /// True when the rounded coefficients set the top (directly, not a
+    /// cut at the last rate checked).
+    pub fn is_coefficients(&self) -> bool {
+        matches!(self, WindowBound::Coefficients { .. })
+    }
+
+    /// True when the top is cut at the last rate checked.
+    pub fn is_last_rate_checked(&self) -> bool {
+        matches!(self, WindowBound::LastRateChecked { .. })
+    }
+}
+
+impl std::fmt::Display for WindowBound {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            WindowBound::CpuBudget => f.write_str("CPU budget"),
+            WindowBound::Coefficients {
+                format,
+                structure,
+                fails_at_start: None,
+            } => write!(f, "{format} coefficients ({structure})"),
+            WindowBound::Coefficients {
+                format,
+                structure,
+                fails_at_start: Some(lim),
+            } => write!(
+                f,
+                "{format} coefficients ({structure}) fail already at the recommended rate (`{lim}`)"
+            ),
+            WindowBound::LastRateChecked {
+                checked_hz,
+                beyond,
+                beyond_hz,
+            } => write!(
+                f,
+                "last rate checked ({checked_hz} Hz; {beyond} would allow up to {beyond_hz:.1} Hz, not checked)"
+            ),
+        }
+    }
+}
+
 /// The rate window: from the recommended rate up to the lowest ceiling
-/// (the CPU budget's, or a coefficient format's precision ceiling).
+/// (the CPU budget's, or a coefficient format's precision ceiling), never
+/// above the last rate checked.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct RateWindow {
     pub low_hz: f64,
     pub high_hz: f64,
-    /// What sets `high_hz`: `CPU budget` or `q15 coefficients (transposed-direct)`.
-    pub high_bound: String,
+    /// What sets `high_hz`.
+    pub high_bound: WindowBound,
+    /// The CPU budget's ceiling rate, Hz, beside the bound (None without
+    /// a budget or when the update's cost is unknown).
+    pub cpu_ceiling_hz: Option<f64>,
     /// Empty when the recommended rate is above the ceiling.
     pub empty: bool,
 }
 
 impl RateWindow {
-    pub fn new(low_hz: f64, high_hz: f64, high_bound: impl Into<String>) -> Self {
+    pub fn new(
+        low_hz: f64,
+        high_hz: f64,
+        high_bound: WindowBound,
+        cpu_ceiling_hz: Option<f64>,
+    ) -> Self {
         RateWindow {
             low_hz,
             high_hz,
-            high_bound: high_bound.into(),
+            high_bound,
+            cpu_ceiling_hz,
             empty: low_hz > high_hz,
         }
     }

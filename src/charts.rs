@@ -733,10 +733,10 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
             "CPU load vs rate: rate window {} to {} (shaded){}",
             hz(w.low_hz),
             hz(w.high_hz),
-            if w.high_bound.starts_with("last rate checked") {
-                ", cut at the last rate checked"
-            } else {
-                ""
+            match &w.high_bound {
+                crate::budget::WindowBound::LastRateChecked { .. } =>
+                    ", cut at the last rate checked".to_string(),
+                b => format!(", top set by the {b}"),
             }
         ),
         (None, Some(_)) => {

@@ -7,7 +7,7 @@ use serde::Serialize;
 
 use std::cell::RefCell;
 
-use crate::budget::{self, RateWindow};
+use crate::budget::{self, RateWindow, WindowBound};
 use crate::case::{Case, UncertaintyMode};
 use crate::discretize::Method;
 use crate::error::Error;
@@ -474,38 +474,48 @@ pub fn pick(
             .iter()
             .find(|c| c.method == best.method && c.format == pr.window_format)
             .filter(|c| !c.ceiling.above_range)
-            .map(|c| match c.ceiling.rate_hz {
-                Some(h) => (h, format!("{} coefficients ({})", c.format, pr.structure)),
-                // Failing already where the search starts: no rate above
-                // the low end is usable, so the window is empty.
-                None => (
-                    f64::NEG_INFINITY,
-                    format!(
-                        "{} coefficients ({}) fail already at the recommended rate (`{}`)",
-                        c.format,
-                        pr.structure,
-                        c.ceiling.limiting.as_deref().unwrap_or("?")
+            .map(|c| {
+                let bound = |fails_at_start: Option<String>| WindowBound::Coefficients {
+                    format: c.format.clone(),
+                    structure: pr.structure.clone(),
+                    fails_at_start,
+                };
+                match c.ceiling.rate_hz {
+                    Some(h) => (h, bound(None)),
+                    // Failing already where the search starts: no rate above
+                    // the low end is usable, so the window is empty.
+                    None => (
+                        f64::NEG_INFINITY,
+                        bound(Some(
+                            c.ceiling.limiting.clone().unwrap_or_else(|| "?".into()),
+                        )),
                     ),
-                ),
+                }
             })
     });
     let top = match (cpu, prec) {
-        (Some((cc, _)), Some((pc, name))) if pc < cc => Some((pc, name)),
-        (Some((cc, _)), _) => Some((cc, "CPU budget".to_string())),
+        (Some((cc, _)), Some((pc, bound))) if pc < cc => Some((pc, bound)),
+        (Some((cc, _)), _) => Some((cc, WindowBound::CpuBudget)),
         (None, Some(p)) => Some(p),
         (None, None) => None,
     };
     // A window claims only rates that were checked: the spec (and the
-    // coefficients) are known to hold up to the top of the swept range,
-    // so a ceiling above it is cut there and the bound says so.
-    let max_hz = case.rates.max_hz;
+    // coefficients) are known to hold up to the top of the swept range
+    // (a controller given in z: its own rate only), so a ceiling above it
+    // is cut there and the bound says so.
+    let checked_top = match &lp.controller {
+        Controller::Discrete(d) => 1.0 / d.period_s,
+        Controller::Continuous(_) => case.rates.max_hz,
+    };
     let top = top.map(|(high, bound)| {
-        if high > max_hz {
+        if high > checked_top {
             (
-                max_hz,
-                format!(
-                    "last rate checked (max_hz = {max_hz} Hz; {bound} would allow up to {high:.6} Hz, not checked)"
-                ),
+                checked_top,
+                WindowBound::LastRateChecked {
+                    checked_hz: checked_top,
+                    beyond: Box::new(bound),
+                    beyond_hz: high,
+                },
             )
         } else {
             (high, bound)
@@ -513,12 +523,12 @@ pub fn pick(
     });
     if let Some((high, bound)) = top {
         let w = if high.is_finite() {
-            RateWindow::new(rate, high, bound)
+            RateWindow::new(rate, high, bound, report.cpu_ceiling_hz)
         } else {
             RateWindow {
                 high_hz: rate,
                 empty: true,
-                ..RateWindow::new(rate, rate, bound)
+                ..RateWindow::new(rate, rate, bound, report.cpu_ceiling_hz)
             }
         };
         if w.empty {
@@ -839,7 +849,7 @@ fn empty_window_advice(
         ));
     }
     if let Some(pr) = &report.precision
-        && window.high_bound.contains("coefficients")
+        && window.high_bound.is_coefficients()
     {
         let wider: Vec<String> = pr
             .ceilings
@@ -879,8 +889,7 @@ fn empty_window_advice(
     }
     // Only the CPU ceiling is known at every rate; a format's ceiling was
     // searched for the design delay alone.
-    let cpu_bound =
-        report.cpu_ceiling_hz == Some(ceiling) && !window.high_bound.contains("coefficients");
+    let cpu_bound = report.cpu_ceiling_hz == Some(ceiling) && !window.high_bound.is_coefficients();
     if cpu_bound && let Some(b) = case.budget.as_ref() {
         out.extend(other_method_advice(case, lp, report, b, ceiling));
     }

@@ -518,6 +518,11 @@ pub fn pick_text(r: &PickReport) -> String {
                 },
                 w.high_bound
             );
+            if let Some(c) = w.cpu_ceiling_hz
+                && !matches!(w.high_bound, crate::budget::WindowBound::CpuBudget)
+            {
+                let _ = writeln!(s, "CPU budget ceiling: {} Hz.", fmt_num(c));
+            }
         }
     }
     for n in &r.notes {

@@ -270,7 +270,12 @@ fn every_rate_inside_a_reported_window_meets_the_spec_when_evaluated_directly() 
     // The window claims only checked rates: 40 rates spread over it (ends
     // included), each evaluated on its own at the recommended method and
     // delay, all feasible; and the top is not above the swept range.
-    for name in ["belt-conveyor.toml", "gimbal-axis.toml"] {
+    let (mut checked, mut with_arithmetic) = (0, 0);
+    for name in [
+        "belt-conveyor.toml",
+        "gimbal-axis.toml",
+        "buck-converter.toml",
+    ] {
         let (case, lp, report) = picked(name);
         let Some([lo, hi]) = report.window_hz else {
             panic!("{name}: a window was expected");
@@ -294,6 +299,38 @@ fn every_rate_inside_a_reported_window_meets_the_spec_when_evaluated_directly() 
                 "{name}: {rate} Hz inside the window fails ({:?})",
                 a.limiting
             );
+            // The coefficient check: with `[arithmetic]` the controller
+            // rounded to the format that bounds the window, in the case's
+            // structure, passes too (the same check the precision ceiling
+            // is searched on, evaluated here at each rate on its own).
+            if let Some(arith) = &case.arithmetic {
+                let check_hz = lp
+                    .design
+                    .as_ref()
+                    .and_then(|d| d.figures.as_ref())
+                    .and_then(|f| f.crossover_hz);
+                let v = looprate::precision::judge_point(
+                    &lp,
+                    &case.spec,
+                    &p,
+                    arith.structure,
+                    arith.formats[0],
+                    check_hz,
+                    None,
+                );
+                assert!(
+                    v.assessment.feasible,
+                    "{name}: {rate} Hz inside the window fails in {} ({:?}, {:?})",
+                    arith.formats[0], v.assessment.limiting, v.reason
+                );
+            }
         }
+        checked += 1;
+        with_arithmetic += usize::from(case.arithmetic.is_some());
     }
+    assert_eq!(checked, 3);
+    assert!(
+        with_arithmetic >= 1,
+        "no window bounded by a format was checked"
+    );
 }

@@ -4,6 +4,7 @@
 
 use std::path::Path;
 
+use looprate::budget::WindowBound;
 use looprate::case::Case;
 use looprate::discretize::{Method, discretize};
 use looprate::pick::{PickReport, case_grid, prepare, sweep_and_pick};
@@ -83,7 +84,18 @@ fn lag_pole_rounds_onto_z1_at_the_closed_form_rate() {
         assert_eq!(ceil.limiting.as_deref(), Some("pole_on_z1"), "{structure}");
         // The rate window is now bounded by the format, and says so.
         let w = report.window.as_ref().unwrap();
-        assert_eq!(w.high_bound, format!("q7 coefficients ({structure})"));
+        assert_eq!(
+            w.high_bound,
+            WindowBound::Coefficients {
+                format: "q7".into(),
+                structure: structure.into(),
+                fails_at_start: None
+            }
+        );
+        assert_eq!(
+            w.high_bound.to_string(),
+            format!("q7 coefficients ({structure})")
+        );
         assert!((w.high_hz / f_c - 1.0).abs() <= 2e-4);
     }
     // Directly: just below and just above f_c, the pole count at z = 1.

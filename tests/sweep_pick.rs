@@ -189,14 +189,21 @@ fn search_agrees_with_a_brute_force_scan() {
     // window claims only checked rates and stops at max_hz, saying so.
     let w = report.window_hz.expect("a window");
     assert_eq!(w, [rec.rate_hz, 2000.0]);
-    assert!(
-        report
-            .window
-            .as_ref()
-            .unwrap()
-            .high_bound
-            .starts_with("last rate checked")
+    let bound = &report.window.as_ref().unwrap().high_bound;
+    assert_eq!(
+        *bound,
+        looprate::budget::WindowBound::LastRateChecked {
+            checked_hz: 2000.0,
+            beyond: Box::new(looprate::budget::WindowBound::CpuBudget),
+            beyond_hz: report.cpu_ceiling_hz.unwrap(),
+        }
     );
+    assert!(bound.to_string().starts_with("last rate checked"));
+    // In pick.json: a typed bound with its kind, the CPU ceiling beside it.
+    let json = serde_json::to_value(report.window.as_ref().unwrap()).unwrap();
+    assert_eq!(json["high_bound"]["kind"], "last-rate-checked");
+    assert_eq!(json["high_bound"]["beyond"]["kind"], "cpu-budget");
+    assert_eq!(json["cpu_ceiling_hz"], report.cpu_ceiling_hz.unwrap());
 }
 
 #[test]
