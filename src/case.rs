@@ -63,18 +63,33 @@ pub enum Spacing {
 pub struct Rates {
     /// Lowest rate, Hz (> 0).
     pub min_hz: f64,
-    /// Highest rate, Hz (> `min_hz`).
+    /// Highest rate, Hz (> `min_hz`; equal to it for the single rate of a
+    /// controller given in z).
     pub max_hz: f64,
-    /// Number of grid points, 2 to [`MAX_POINTS`].
+    /// Number of grid points, 2 to [`MAX_POINTS`] (1 for a controller
+    /// given in z).
     pub points: usize,
     /// Grid spacing.
     pub spacing: Spacing,
 }
 
 impl Rates {
+    /// The one rate a controller given in z runs at, Hz.
+    pub fn single(rate_hz: f64) -> Self {
+        Rates {
+            min_hz: rate_hz,
+            max_hz: rate_hz,
+            points: 1,
+            spacing: Spacing::Log,
+        }
+    }
+
     /// The requested rates in Hz, ascending, with the first and last
     /// exactly `min_hz` and `max_hz`.
     pub fn grid(&self) -> Vec<f64> {
+        if self.points == 1 || self.min_hz == self.max_hz {
+            return vec![self.max_hz];
+        }
         let n = self.points.max(2);
         let last = n - 1;
         (0..n)
@@ -1492,7 +1507,18 @@ impl Case {
         }
 
         let compute_delays = delays_from(&ctx, raw.timing)?;
-        let rates = rates_from(&ctx, raw.rates)?;
+        // A controller given in z runs at its own rate only: `[rates]` is
+        // optional there, and the "grid" is that one rate.
+        let (rates, rates_ignored) = match &controller {
+            ControllerModel::Discrete(d) => {
+                let given = raw.rates.is_some();
+                if given {
+                    rates_from(&ctx, raw.rates)?;
+                }
+                (Rates::single(1.0 / d.period_s), given)
+            }
+            ControllerModel::Continuous(_) => (rates_from(&ctx, raw.rates)?, false),
+        };
         let (methods, prewarp_hz) = methods_from(&ctx, raw.methods, &controller)?;
         let spec = spec_from(&ctx, raw.spec)?;
         let budget = budget_from(&ctx, raw.budget)?;
@@ -1505,6 +1531,12 @@ impl Case {
         });
 
         let mut notes = Vec::new();
+        if rates_ignored {
+            notes.push(format!(
+                "[rates] does not apply: the controller is given in z at {} Hz and runs only at that rate",
+                rates.max_hz
+            ));
+        }
         if let Some(b) = &budget
             && b.cpu_hz < CPU_HZ_SANITY
         {

@@ -162,6 +162,19 @@ fn design_series<'a>(inp: &Inputs<'a>) -> Vec<(String, Vec<&'a SweepRow>)> {
     out
 }
 
+/// The rows of a controller given in z, one series per computation delay
+/// (each a single rate), labelled by the delay.
+fn delay_series<'a>(inp: &Inputs<'a>) -> Vec<(String, Vec<&'a SweepRow>)> {
+    let mut out: Vec<(String, Vec<&SweepRow>)> = Vec::new();
+    for &d in &inp.case.compute_delays {
+        let rows: Vec<&SweepRow> = inp.rows.iter().filter(|r| r.point.delay == d).collect();
+        if !rows.is_empty() {
+            out.push((format!("computation delay {} T", fmt_num(d)), rows));
+        }
+    }
+    out
+}
+
 /// `f_star` of a method at the design delay.
 fn f_star(report: &PickReport, method: &str) -> Option<f64> {
     report
@@ -268,7 +281,16 @@ fn hline(label: &str, y: f64, x0: f64, x1: f64, style: usize) -> Series {
 /// peak against the rate, one series per method at the design delay.
 fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
     let spec = &inp.case.spec;
-    let series = design_series(inp);
+    // A controller given in z runs at one rate: one point per computation
+    // delay, on an axis around that rate (not the range of a sweep).
+    let single = match &inp.lp.controller {
+        crate::transfer::Controller::Discrete(d) => Some(1.0 / d.period_s),
+        crate::transfer::Controller::Continuous(_) => None,
+    };
+    let series = match single {
+        Some(_) => delay_series(inp),
+        None => design_series(inp),
+    };
     if series.is_empty() {
         return None;
     }
@@ -324,7 +346,10 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
             ),
         );
     }
-    let (lo, hi) = (inp.case.rates.min_hz, inp.case.rates.max_hz);
+    let (lo, hi) = match single {
+        Some(f) => (f / 1.5, f * 1.5),
+        None => (inp.case.rates.min_hz, inp.case.rates.max_hz),
+    };
     // A method with no stable point draws nothing: its legend says why.
     let never_stable: Vec<bool> = series
         .iter()
@@ -334,7 +359,12 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
         "Loop figures vs rate, computation delay {} T (PM phase margin, GM gain margin, Ms sensitivity peak; hatched side of a limit fails; gaps: unstable)",
         fmt_num(inp.report.design_delay)
     );
-    if never_stable.iter().all(|&b| b) {
+    if let Some(f) = single {
+        title = format!(
+            "Loop figures of the controller given in z at its one rate {} (one point per computation delay; PM phase margin, GM gain margin, Ms sensitivity peak; hatched side of a limit fails)",
+            hz(f)
+        );
+    } else if never_stable.iter().all(|&b| b) {
         title = format!(
             "No swept rate gives a stable loop ({} to {}, computation delay {} T)",
             hz(lo),
@@ -682,6 +712,8 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
     .into_iter()
     .filter(|v| v.is_finite())
     .fold(inp.case.rates.max_hz, f64::max);
+    // A single rate (a controller given in z) with nothing above it.
+    let hi = if hi > lo * 1.01 { hi } else { lo * 1.5 };
     let n = 120;
     let rates: Vec<f64> = (0..n)
         .map(|i| lo * (hi / lo).powf(i as f64 / (n - 1) as f64))
@@ -1035,4 +1067,38 @@ fn disturbance(inp: &Inputs) -> Option<Figure> {
         title = format!("{title}; {}", notes.join("; "));
     }
     Some(Figure::new(title, Axis::linear("time (s)").with_range(0.0, t_end)).with_panel(panel))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_controller_given_in_z_is_drawn_at_its_one_rate() {
+        // A gain in z at 5 Hz with two computation delays: the
+        // figures-vs-rate chart shows one point per delay on an axis
+        // around 5 Hz, not the range of a sweep.
+        let text = "[plant]\ntransfer = \"1 / (s * (s + 1))\"\n[controller]\nnumerator_z = [2.0]\ndenominator_z = [1.0]\nrate_hz = 5\n[timing]\ncompute_delay = [0.5, 1]\n[spec]\nmin_phase_margin_deg = 20\n";
+        let case = Case::parse(text, Path::new("z.toml")).unwrap();
+        let lp = crate::pick::prepare(&case).unwrap();
+        let picked =
+            crate::pick::sweep_and_pick(&case, &lp, &|| {}, &crate::search::Silent).unwrap();
+        let inputs = Inputs {
+            case: &case,
+            lp: &lp,
+            rows: &picked.rows,
+            report: &picked.report,
+            rec: None,
+        };
+        let fig = figures_vs_rate(&inputs).unwrap();
+        let (lo, hi) = fig.x.range.unwrap();
+        assert!(lo < 5.0 && hi > 5.0 && hi / lo < 3.0, "{lo} .. {hi}");
+        assert!(fig.title.contains("given in z"), "{}", fig.title);
+        let series = &fig.panels[0].series;
+        assert_eq!(series.len(), 2, "one series per delay");
+        for s in series {
+            assert_eq!(s.points.len(), 1);
+            assert_eq!(s.points[0].0, 5.0);
+        }
+    }
 }

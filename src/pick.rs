@@ -315,10 +315,25 @@ pub fn pick(
         .par_iter()
         .map(|s| slowest_rate(lp, spec, s, observer))
         .collect();
-    if let Controller::Discrete(_) = &lp.controller {
+    if let Controller::Discrete(d) = &lp.controller {
         // One rate only: "at or below" the range floor does not apply.
         for m in report.methods.iter_mut() {
             m.at_range_floor = false;
+        }
+        // Each listed delay gets its own verdict at that rate.
+        let own = 1.0 / d.period_s;
+        for m in &report.methods {
+            report.notes.push(match (m.slowest_rate_hz, &m.limiting) {
+                (Some(_), _) => format!(
+                    "computation delay {}: the controller given in z meets the spec at its rate {own} Hz",
+                    m.compute_delay
+                ),
+                (None, lim) => format!(
+                    "computation delay {}: the controller given in z fails the spec at its rate {own} Hz (`{}`)",
+                    m.compute_delay,
+                    lim.as_deref().unwrap_or("?")
+                ),
+            });
         }
     }
     if let Some(v) = variants {
@@ -343,6 +358,29 @@ pub fn pick(
         .filter_map(|m| m.slowest_rate_hz.map(|f| (m, f)))
         .min_by(|a, b| a.1.total_cmp(&b.1));
     let Some((best, f_star)) = best else {
+        if let Controller::Discrete(d) = &lp.controller {
+            let passing: Vec<String> = answers
+                .iter()
+                .filter(|m| m.slowest_rate_hz.is_some())
+                .map(|m| fmt_num(m.compute_delay))
+                .collect();
+            let variants = if report.robust.is_some() {
+                " on every plant variant"
+            } else {
+                ""
+            };
+            report.notes.push(format!(
+                "the controller given in z at {} Hz fails the spec{variants} at computation delay {} (the largest listed, which the recommendation is made at){}",
+                1.0 / d.period_s,
+                design_delay,
+                if passing.is_empty() {
+                    " and at every other delay listed".to_string()
+                } else {
+                    format!("; it meets it at computation delay {}", passing.join(", "))
+                }
+            ));
+            return report;
+        }
         report.notes.push(if report.robust.is_some() {
             "no method meets the spec on every plant variant at the fastest swept rate".into()
         } else {

@@ -596,19 +596,31 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::evaluate::PreparedLoop) 
             "z",
         ),
     }
-    let _ = writeln!(
-        s,
-        "\nrates {} .. {} Hz, {} points; methods {}; computation delays {:?}",
-        case.rates.min_hz,
-        case.rates.max_hz,
-        case.rates.points,
-        case.methods
-            .iter()
-            .map(|m| m.name())
-            .collect::<Vec<_>>()
-            .join(", "),
-        case.compute_delays
-    );
+    match &lp.controller {
+        Controller::Continuous(_) => {
+            let _ = writeln!(
+                s,
+                "\nrates {} .. {} Hz, {} points; methods {}; computation delays {:?}",
+                case.rates.min_hz,
+                case.rates.max_hz,
+                case.rates.points,
+                case.methods
+                    .iter()
+                    .map(|m| m.name())
+                    .collect::<Vec<_>>()
+                    .join(", "),
+                case.compute_delays
+            );
+        }
+        Controller::Discrete(d) => {
+            let _ = writeln!(
+                s,
+                "\nthe controller is given in z at {} Hz: that one rate is checked, nothing is discretized; computation delays {:?}",
+                1.0 / d.period_s,
+                case.compute_delays
+            );
+        }
+    }
     if let Some(u) = &case.uncertainty {
         let n = crate::variants::parameter_sets(case).len();
         let how = match u {
