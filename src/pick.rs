@@ -234,6 +234,59 @@ pub struct PrecisionReport {
     pub ceilings: Vec<FormatCeiling>,
     /// At the recommended method and rate, per format.
     pub at_recommended: Vec<FormatAtRate>,
+    /// When the case's structure loses the design's integral action in
+    /// the window's format (at the recommended rate or just above the
+    /// ceiling): whether the other structure keeps it over the same rates.
+    pub other_structure: Option<OtherStructure>,
+}
+
+/// The integral action in the other structure, checked at the same rates
+/// (the recommended rate and every swept rate above it, recommended
+/// method, window format): what the advice rests on when one structure
+/// loses the integrator and the other keeps it.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct OtherStructure {
+    /// The other structure (`sos` or `transposed-direct`).
+    pub structure: String,
+    pub format: String,
+    /// Where the case's structure loses the integral action, Hz.
+    pub lost_at_hz: f64,
+    /// Rates checked, from the recommended rate up.
+    pub rates_checked: usize,
+    /// The highest rate up to which the other structure keeps the integral
+    /// action at every rate checked, Hz; None when it loses it at the
+    /// recommended rate too.
+    pub kept_up_to_hz: Option<f64>,
+    /// True when it keeps it at every rate checked (up to the top of the
+    /// swept range).
+    pub kept_at_every_rate: bool,
+}
+
+impl OtherStructure {
+    /// The advice in words.
+    pub fn advice(&self, structure: &str) -> String {
+        match self.kept_up_to_hz {
+            Some(h) if self.kept_at_every_rate => format!(
+                "another structure: {} keeps the integral action in {} at every rate checked up to {} Hz ({} rates), which {structure} loses at {} Hz",
+                self.structure,
+                self.format,
+                fmt_num(h),
+                self.rates_checked,
+                fmt_num(self.lost_at_hz)
+            ),
+            Some(h) => format!(
+                "another structure: {} keeps the integral action in {} up to {} Hz (every rate checked), {structure} loses it at {} Hz",
+                self.structure,
+                self.format,
+                fmt_num(h),
+                fmt_num(self.lost_at_hz)
+            ),
+            None => format!(
+                "{} loses the integral action in {} as well: a wider format is needed",
+                self.structure, self.format
+            ),
+        }
+    }
 }
 
 impl PickReport {
@@ -573,6 +626,13 @@ pub fn pick(
             report.advice = empty_window_advice(case, lp, &report, rate, &w, cpu.map(|c| c.1));
         } else {
             report.window_hz = Some([rate, high]);
+            if let Some(pr) = &report.precision
+                && w.high_bound.is_coefficients()
+                && let Some(o) = &pr.other_structure
+            {
+                let text = o.advice(&pr.structure);
+                report.notes.push(text);
+            }
         }
         report.window = Some(w);
     }
@@ -759,7 +819,7 @@ fn precision_report(
             jobs.push((m, from, f));
         }
     }
-    let ceilings = jobs
+    let ceilings: Vec<FormatCeiling> = jobs
         .par_iter()
         .map(|&(m, from, format)| {
             let series: Vec<&SweepRow> = rows
@@ -774,6 +834,7 @@ fn precision_report(
                         rate_hz: Some(case.rates.max_hz.max(from)),
                         above_range: true,
                         limiting: None,
+                        first_failure_hz: None,
                         evaluations: 0,
                     }
                 }
@@ -846,11 +907,83 @@ fn precision_report(
             }
         })
         .collect();
+    let window_format = arith.formats[0];
+    let lost_at = ceilings
+        .iter()
+        .find(|c| c.method == method_label(recommended_method) && c.format == window_format.name())
+        .filter(|c| c.ceiling.limiting.as_deref() == Some(precision::INTEGRAL_ACTION))
+        .and_then(|c| c.ceiling.first_failure_hz);
+    let other_structure = lost_at.map(|lost_at_hz| {
+        let mut rates: Vec<f64> = rows
+            .iter()
+            .filter(|r| {
+                r.point.method == recommended_method
+                    && r.point.delay == design_delay
+                    && r.point.rate_hz > recommended_rate
+            })
+            .map(|r| r.point.rate_hz)
+            .collect();
+        rates.insert(0, recommended_rate);
+        other_structure_integral(
+            lp,
+            recommended_method,
+            arith.structure,
+            window_format,
+            &rates,
+            lost_at_hz,
+        )
+    });
     PrecisionReport {
         structure: arith.structure.name().into(),
-        window_format: arith.formats[0].name(),
+        window_format: window_format.name(),
         ceilings,
         at_recommended,
+        other_structure,
+    }
+}
+
+/// Whether the structure other than `structure` keeps the design's
+/// integral action in `format` at each of `rates` (ascending, the first
+/// the recommended rate): the rounding alone decides it, so only the
+/// quantized controller is built (no loop evaluation).
+fn other_structure_integral(
+    lp: &PreparedLoop,
+    method: Option<Method>,
+    structure: Structure,
+    format: Format,
+    rates: &[f64],
+    lost_at_hz: f64,
+) -> OtherStructure {
+    let other = match structure {
+        Structure::TransposedDirect => Structure::Sos,
+        Structure::Sos => Structure::TransposedDirect,
+    };
+    let integrators = precision::design_integrators(&lp.controller);
+    let kept = |rate: f64| {
+        lp.controller_at(rate, method)
+            .ok()
+            .and_then(|c| precision::quantize(&c, integrators, other, format, None).ok())
+            .is_some_and(|q| q.damage.integral_kept())
+    };
+    let mut kept_up_to_hz = None;
+    let mut checked = 0;
+    let mut every = true;
+    for &f in rates {
+        checked += 1;
+        if kept(f) {
+            kept_up_to_hz = Some(f);
+        } else {
+            every = false;
+            break;
+        }
+    }
+    OtherStructure {
+        structure: other.name().into(),
+        format: format.name(),
+        lost_at_hz,
+        rates_checked: checked,
+        kept_up_to_hz,
+        kept_at_every_rate: every,
     }
 }
 
@@ -902,6 +1035,9 @@ fn empty_window_advice(
             })
             .map(|c| c.format.clone())
             .collect();
+        if let Some(o) = &pr.other_structure {
+            out.push(o.advice(&pr.structure));
+        }
         out.push(if wider.is_empty() {
             format!(
                 "wider coefficients or another structure than {} {}: the rounded controller fails at the recommended rate",

@@ -38,6 +38,10 @@ use crate::feasibility::{Assessment, UNSTABLE_SLACK, assess};
 use crate::poly::{C64, Poly};
 use crate::transfer::{Controller, DiscreteTransfer, Transfer};
 
+/// The limiting-figure name of a rounded controller that lost the
+/// design's integral action (a pole at z = 1 rounded off it).
+pub const INTEGRAL_ACTION: &str = "integral_action";
+
 /// A number format for the stored coefficients.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 pub enum Format {
@@ -187,7 +191,7 @@ impl Damage {
     /// change what the controller is, whatever the loop figures say.
     pub fn structural_failure(&self) -> Option<&'static str> {
         if self.integrators_after < self.integrators {
-            Some("integral_action")
+            Some(INTEGRAL_ACTION)
         } else if self.integrators_after > self.integrators {
             Some("pole_on_z1")
         } else if self.new_unstable_poles > 0 {

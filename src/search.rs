@@ -194,13 +194,23 @@ pub struct Ceiling {
     pub above_range: bool,
     /// What fails just above the ceiling (or at `from_hz`).
     pub limiting: Option<String>,
+    /// The lowest failing rate found, Hz: `from_hz` when it fails, else
+    /// just above the ceiling (None when every rate checked passes). Where
+    /// the verdict is not monotone in the rate (rounding), every rate
+    /// checked below it passed, the sweep's grid rates included.
+    pub first_failure_hz: Option<f64>,
     /// Evaluations the refinement used beyond the coarse sweep.
     pub evaluations: usize,
 }
 
 /// The ceiling above `from_hz` from the coarse sweep's verdicts `series`
 /// (sorted by rate) refined by bisection in ln f to [`RATE_TOLERANCE`]:
-/// the passing side of the final bracket is reported. Bisection, not
+/// the passing side of the final bracket is reported. The bracket is the
+/// *first* failing grid rate above `from_hz` and the passing one below it,
+/// so where rounding makes the verdict non-monotone in the rate (a pole
+/// landing on either side of z = 1 from one rate to the next) the ceiling
+/// is never above a failing rate that was checked: every grid rate and
+/// every bisection point from `from_hz` to the ceiling passed. Bisection, not
 /// Brent: what ends a run of passing rates (a coefficient rounding onto
 /// z = 1) is a step, not a smooth slack.
 pub fn fastest_rate_by(
@@ -215,6 +225,7 @@ pub fn fastest_rate_by(
             rate_hz: None,
             above_range: false,
             limiting: start.limiting.map(str::to_string),
+            first_failure_hz: Some(from_hz),
             evaluations,
         };
     }
@@ -224,6 +235,7 @@ pub fn fastest_rate_by(
             rate_hz: Some(above.last().map_or(from_hz, |r| r.0)),
             above_range: true,
             limiting: None,
+            first_failure_hz: None,
             evaluations,
         };
     };
@@ -245,6 +257,7 @@ pub fn fastest_rate_by(
         rate_hz: Some(lo),
         above_range: false,
         limiting: hi_assessment.limiting.map(str::to_string),
+        first_failure_hz: Some(hi),
         evaluations,
     }
 }
