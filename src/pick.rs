@@ -18,7 +18,7 @@ use crate::search::{
     Ceiling, SearchObserver, SlowestRate, fastest_rate_by, method_label, slowest_rate,
     slowest_rate_by,
 };
-use crate::summary::fmt_num;
+use crate::summary::{fmt_at_least, fmt_at_most, fmt_num};
 use crate::sweep::{self, Plan, SweepRow};
 use crate::tf::Controller;
 use crate::time_response::TimeOptions;
@@ -386,7 +386,7 @@ pub fn pick(
     }
     if rate > case.rates.max_hz {
         report.notes.push(format!(
-            "the recommended rate {rate:.6} Hz is above the swept range (max_hz = {} Hz)",
+            "the rate f* times the headroom, {rate:.6} Hz, is above the swept range (max_hz = {} Hz)",
             case.rates.max_hz
         ));
     }
@@ -481,7 +481,7 @@ pub fn pick(
                 None => (
                     f64::NEG_INFINITY,
                     format!(
-                        "{} coefficients ({}) fail already at the recommended rate (`{}`)",
+                        "{} coefficients ({}) fail already at the rate the spec alone needs (`{}`)",
                         c.format,
                         pr.structure,
                         c.ceiling.limiting.as_deref().unwrap_or("?")
@@ -807,19 +807,21 @@ fn empty_window_advice(
         (case.budget.as_ref(), cycles, report.cpu_ceiling_hz)
         && cpu < rate
     {
+        // Each threshold is rounded toward the side that works (up for a
+        // minimum, down for a maximum), so applied alone it opens the window.
         out.push(format!(
-            "a faster CPU: at least {:.1} MHz at {} % load",
-            rate * cycles / (b.max_load_pct / 100.0) / 1e6,
+            "a faster CPU: at least {} MHz at {} % load",
+            fmt_at_least(rate * cycles / (b.max_load_pct / 100.0) / 1e6),
             b.max_load_pct
         ));
         out.push(format!(
             "a cheaper update: at most {:.0} cycles per update (now {:.0})",
-            (b.max_load_pct / 100.0) * b.cpu_hz / rate,
+            ((b.max_load_pct / 100.0) * b.cpu_hz / rate).floor(),
             cycles
         ));
         out.push(format!(
-            "a higher load limit: {:.1} % would be needed",
-            rate * cycles / b.cpu_hz * 100.0
+            "a higher load limit: at least {} % would be needed",
+            fmt_at_least(rate * cycles / b.cpu_hz * 100.0)
         ));
     }
     if let Some(pr) = &report.precision
@@ -840,12 +842,12 @@ fn empty_window_advice(
             .collect();
         out.push(if wider.is_empty() {
             format!(
-                "wider coefficients or another structure than {} {}: the rounded controller fails at the recommended rate",
+                "wider coefficients or another structure than {} {}: the rounded controller fails at the rate the spec alone needs",
                 pr.window_format, pr.structure
             )
         } else {
             format!(
-                "a wider number format: {} holds the recommended rate",
+                "a wider number format: {} holds the rate the spec alone needs",
                 wider.join(", ")
             )
         });
@@ -941,8 +943,8 @@ fn other_method_advice(
                     "{} ({:.0} cycles per update): window {} Hz to {} Hz",
                     m.name(),
                     cycles,
-                    fmt_num(low),
-                    fmt_num(high)
+                    fmt_at_least(low),
+                    fmt_at_most(high)
                 )
             })
         })
@@ -971,6 +973,6 @@ fn other_method_advice(
     };
     Some(format!(
         "a method with a lower f_star: at most {} Hz would fit the CPU ceiling with the headroom ({lowest}{untried})",
-        fmt_num(need)
+        fmt_at_most(need)
     ))
 }

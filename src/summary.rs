@@ -30,6 +30,54 @@ pub fn fmt_num(v: f64) -> String {
     }
 }
 
+/// A lower threshold ("at least"), in [`fmt_num`]'s digits but rounded
+/// up, so the printed number read back is never below `v`: quoting a
+/// minimum rounded down would name a value that falls just short.
+pub fn fmt_at_least(v: f64) -> String {
+    fmt_toward(v, 1.0)
+}
+
+/// An upper threshold ("at most"), in [`fmt_num`]'s digits but rounded
+/// down, so the printed number read back is never above `v`.
+pub fn fmt_at_most(v: f64) -> String {
+    fmt_toward(v, -1.0)
+}
+
+/// [`fmt_num`], then stepped by one unit of its last printed digit in
+/// direction `dir` (+1 up, -1 down) until the printed value read back is
+/// on that side of `v`. The text is what the reader sees, so the check is
+/// made on the text itself.
+fn fmt_toward(v: f64, dir: f64) -> String {
+    let mut s = fmt_num(v);
+    if !v.is_finite() || v == 0.0 {
+        return s;
+    }
+    // One step is enough unless a step carries into a new digit count
+    // (9.9995 -> 10.00); three is a safe cap.
+    for _ in 0..3 {
+        let back: f64 = match s.parse() {
+            Ok(b) => b,
+            Err(_) => return s,
+        };
+        if (back - v) * dir >= 0.0 {
+            return s;
+        }
+        s = fmt_num(back + dir * last_digit_unit(&s));
+    }
+    s
+}
+
+/// The value of one unit in the last printed digit of a [`fmt_num`] text
+/// (`12.35` -> 0.01, `3.214e6` -> 1e3).
+fn last_digit_unit(s: &str) -> f64 {
+    let (mantissa, exp) = match s.split_once('e') {
+        Some((m, e)) => (m, e.parse::<i32>().unwrap_or(0)),
+        None => (s, 0),
+    };
+    let decimals = mantissa.split_once('.').map_or(0, |(_, d)| d.len()) as i32;
+    10f64.powi(exp - decimals)
+}
+
 fn fmt_opt(v: Option<f64>, missing: &str) -> String {
     v.map_or_else(|| missing.to_string(), fmt_num)
 }

@@ -143,7 +143,7 @@ fn charts_of_a_case_with_an_answer() {
         rec["period_s"].as_f64().unwrap(),
     );
     assert_same(
-        between(&md, "CPU load **", " %**"),
+        between(&md, "; CPU load ", " % against"),
         &printed(&rec["cpu_load_pct"]),
         rec["cpu_load_pct"].as_f64().unwrap(),
     );
