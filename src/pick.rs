@@ -955,7 +955,21 @@ fn other_method_advice(
             opens.join("; ")
         ));
     }
-    let need = ceiling / case.spec.headroom;
+    // With a timer the rate is rounded up to one the timer makes, so the
+    // top that counts is the fastest timer rate under the ceiling.
+    let top = match b.timer_hz {
+        Some(t) if t >= ceiling => {
+            let n = (t / ceiling).ceil().max(1.0);
+            // Guard against rounding in the division (as in the budget).
+            if t / n > ceiling {
+                t / (n + 1.0)
+            } else {
+                t / n
+            }
+        }
+        _ => ceiling,
+    };
+    let need = top / case.spec.headroom;
     let lowest = at_design
         .iter()
         .min_by(|a, b| a.1.total_cmp(&b.1))
