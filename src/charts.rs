@@ -747,8 +747,12 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
     Some(
         Figure::new(
             format!(
-                "Loop gain L(e^jwT) at the {} rate {}: {pm_text}, {gm_text}, Ms {}",
-                rate_word(inp.report),
+                "Loop gain L(e^jwT) at the {} {}: {pm_text}, {gm_text}, Ms {}",
+                if rate_word(inp.report) == "recommended" {
+                    "recommended rate"
+                } else {
+                    "rate the spec alone needs"
+                },
                 hz(rec.rate_hz),
                 fmt_num(detail.sensitivity_peak)
             ),
@@ -817,23 +821,15 @@ fn clip_magnitude(mag: &mut Panel, gain_margin_db: Option<f64>) {
     }
     let pad = 5.0;
     mag.y = mag.y.clone().with_range(floor, top + pad);
-    for (i, (a, b)) in below.into_iter().enumerate() {
+    // A dot where each clipped stretch leaves the bottom edge; the first
+    // says how deep the curve goes.
+    for (i, (a, _)) in below.into_iter().enumerate() {
         let label = if i == 0 {
-            format!(
-                "clipped below {} dB (down to {} dB)",
-                fmt_num(floor),
-                fmt_num(deepest)
-            )
+            format!("clipped below {floor} dB (down to {} dB)", fmt_num(deepest))
         } else {
             String::new()
         };
-        // A band at least a few pixels wide, so a narrow notch shows.
-        let (a, b) = if b / a < 1.01 {
-            (a / 1.005, b * 1.005)
-        } else {
-            (a, b)
-        };
-        mag.bands.push(XBand::new(a, b, label));
+        mag.notes.push(Annotation::new(a, floor, label));
     }
 }
 

@@ -521,15 +521,10 @@ fn blocks(
             case.params
                 .iter()
                 .map(|p| if p.min < p.max {
-                    format!(
-                        "`{}` = {} (from {} to {})",
-                        p.name,
-                        fmt_num(p.nominal),
-                        fmt_num(p.min),
-                        fmt_num(p.max)
-                    )
+                    // The case's own numbers, as written.
+                    format!("`{}` = {} (from {} to {})", p.name, p.nominal, p.min, p.max)
                 } else {
-                    format!("`{}` = {}", p.name, fmt_num(p.nominal))
+                    format!("`{}` = {}", p.name, p.nominal)
                 })
                 .collect::<Vec<_>>()
                 .join(", ")
@@ -1221,7 +1216,7 @@ h1{font-size:1.6em;line-height:1.25}h2{margin-top:1.6em}\
 .summary dt{font-weight:bold}.summary dd{margin:0}\
 .wide{overflow-x:auto;margin:1em 0}\
 table{border-collapse:collapse}th,td{border:1px solid #bbb;padding:.3em .6em;text-align:left;vertical-align:top}\
-th{background:#eee}td.num,th.num{text-align:right;white-space:nowrap;font-variant-numeric:tabular-nums}\
+th{background:#eee}th.num{text-align:right}td.num{text-align:right;white-space:nowrap;font-variant-numeric:tabular-nums}\
 .n{white-space:nowrap}\
 img{max-width:100%;height:auto;border:1px solid #ddd}figure{margin:1.5em 0}\
 figcaption{font-size:.9em;color:#555}code{background:#f3f3f3;padding:0 .2em;overflow-wrap:anywhere}\
