@@ -133,16 +133,16 @@ fn summary_box_comes_first_and_carries_the_caution() {
         assert!(boxed.contains(first_sentence), "{name}: {boxed}");
         assert!(boxed.contains("**Answer:**"), "{name}");
         // Every load stands beside its limit.
-        if let (Some(rec), Some(b)) = (&report.recommended, &b_of(name)) {
-            if rec.cpu_load_pct.is_some() {
-                let limit = format!("against a limit of {} %", b);
-                assert!(boxed.contains(&limit), "{name}: {boxed}");
-                for l in md.lines().filter(|l| l.contains("CPU load ")) {
-                    if l.contains("CPU load against") {
-                        continue;
-                    }
-                    assert!(l.contains(&limit), "{name}: load without its limit: {l}");
+        if let (Some(rec), Some(b)) = (&report.recommended, &b_of(name))
+            && rec.cpu_load_pct.is_some()
+        {
+            let limit = format!("against a limit of {b} %");
+            assert!(boxed.contains(&limit), "{name}: {boxed}");
+            for l in md.lines().filter(|l| l.contains("CPU load ")) {
+                if l.contains("CPU load against") {
+                    continue;
                 }
+                assert!(l.contains(&limit), "{name}: load without its limit: {l}");
             }
         }
         // HTML: the box before the first table, the viewport tag, a head
