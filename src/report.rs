@@ -239,20 +239,31 @@ fn rate_name(report: &PickReport) -> &'static str {
     }
 }
 
-/// A rate in kHz with Hz beside it, and its period in µs (with seconds
-/// beside it when the µs figure is large).
+/// A rate in kHz with Hz beside it, and its period in µs; a slow loop
+/// (under 10 Hz, where kHz and µs would need exponents) in Hz and s.
 fn rate_and_period(rate_hz: f64, period_s: f64) -> String {
-    let us = period_s * 1e6;
-    let period = if us >= 1e5 {
-        format!("**{} µs** ({} s)", fmt_num(us), fmt_num(period_s))
-    } else {
-        format!("**{} µs**", fmt_num(us))
-    };
+    if rate_hz < 10.0 {
+        return format!(
+            "**{} Hz**, period **{}**",
+            fmt_num(rate_hz),
+            duration(period_s)
+        );
+    }
     format!(
-        "**{} kHz** ({} Hz), period {period}",
+        "**{} kHz** ({} Hz), period **{}**",
         fmt_num(rate_hz / 1e3),
-        fmt_num(rate_hz)
+        fmt_num(rate_hz),
+        duration(period_s)
     )
+}
+
+/// A time in µs, or in s from 0.1 s up (where µs would need an exponent).
+fn duration(seconds: f64) -> String {
+    if seconds >= 0.1 {
+        format!("{} s", fmt_num(seconds))
+    } else {
+        format!("{} µs", fmt_num(seconds * 1e6))
+    }
 }
 
 /// The CPU load beside its limit.
@@ -314,9 +325,9 @@ fn summary_box(case: &Case, report: &PickReport) -> Block {
         rows.push((
             "Computation delay".into(),
             format!(
-                "{} of a period ({} µs) from sample to output",
+                "{} of a period ({}) from sample to output",
                 fmt_num(rec.compute_delay),
-                fmt_num(rec.compute_delay * rec.period_s * 1e6)
+                duration(rec.compute_delay * rec.period_s)
             ),
         ));
         rows.push(("CPU load".into(), load_text(case, rec.cpu_load_pct)));
@@ -1336,6 +1347,26 @@ mod tests {
         assert_eq!(poly_text(&q, "z"), "z^2 - 1.5*z + 0.5");
         let tf = Tf::new(Poly::from_descending(&[20.0]), p);
         assert_eq!(tf_text(&tf, "s"), "20 / (0.05*s^2 + s)");
+    }
+
+    #[test]
+    fn expanded_coefficients_read_in_engineering_notation() {
+        // By hand: exponents in steps of 3, 4 significant digits, trailing
+        // zeros dropped; float noise in the input is gone.
+        assert_eq!(eng(0.0004000000000000001), "400e-6");
+        assert_eq!(eng(0.04850000000000001), "48.5e-3");
+        assert_eq!(eng(12.119366207318922), "12.12");
+        assert_eq!(eng(1.0137e24), "1.014e24");
+        assert_eq!(eng(-999.96), "-1e3");
+        assert_eq!(eng(1.0), "1");
+    }
+
+    #[test]
+    fn numbers_with_exponents_do_not_break() {
+        assert_eq!(
+            keep_numbers_whole("at 2.707e-6 s, x1e-3 stays"),
+            "at <span class=\"n\">2.707e-6</span> s, x1e-3 stays"
+        );
     }
 
     #[test]

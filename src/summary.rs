@@ -716,3 +716,27 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::evaluate::PreparedLoop) 
     }
     s
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn thresholds_round_toward_the_side_that_works() {
+        // By hand: 32.1401 needs at least 32.15 (not 32.14); 1244.6 allows
+        // at most 1244 (fmt_num says 1245); exact values stay as they are.
+        assert_eq!(fmt_num(32.1401), "32.14");
+        assert_eq!(fmt_at_least(32.1401), "32.15");
+        assert_eq!(fmt_num(1244.6), "1245");
+        assert_eq!(fmt_at_most(1244.6), "1244");
+        assert_eq!(fmt_at_least(10.0), "10.00");
+        assert_eq!(fmt_at_most(10.0), "10.00");
+        // Rounding up across a power of ten keeps fmt_num's digits
+        // (fmt_num prints 9.9996 as 10.000 too), and is never below.
+        assert_eq!(fmt_at_least(9.9996), "10.000");
+        assert_eq!(fmt_at_most(9.9996), "9.999");
+        // Exponent form: one unit of the last digit is 1e3 here.
+        assert_eq!(fmt_at_least(3.21401e6), "3.215e6");
+        assert_eq!(fmt_at_most(3.21499e6), "3.214e6");
+    }
+}
