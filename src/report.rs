@@ -15,7 +15,7 @@ use crate::outputs::write_atomic;
 use crate::pick::{PickReport, Recommended};
 use crate::poly::{C64, Poly};
 use crate::summary::fmt_num;
-use crate::tf::{Controller, Tf};
+use crate::transfer::{Controller, Transfer};
 
 /// File name of the Markdown report.
 pub const REPORT_MD: &str = "report.md";
@@ -95,7 +95,7 @@ fn eng(v: f64) -> String {
     }
 }
 
-/// A polynomial in `var`, descending powers, coefficients by `num`.
+/// A polynomial in `var`, descending powers, coefficients by `numerator`.
 fn poly_text_with(p: &Poly, var: &str, num: &dyn Fn(f64) -> String) -> String {
     let d = p.descending();
     let n = d.len().saturating_sub(1);
@@ -141,24 +141,24 @@ fn poly_text(p: &Poly, var: &str) -> String {
     poly_text_with(p, var, &|v| format!("{v}"))
 }
 
-/// A transfer function as `num / (den)`, or just `num` over a unit
+/// A transfer function as `num / (den)`, or just `numerator` over a unit
 /// denominator, coefficients by `num_fmt`.
-fn tf_text_with(tf: &Tf, var: &str, num_fmt: &dyn Fn(f64) -> String) -> String {
-    let num = poly_text_with(&tf.num, var, num_fmt);
-    let d = tf.den.descending();
+fn tf_text_with(tf: &Transfer, var: &str, num_fmt: &dyn Fn(f64) -> String) -> String {
+    let num = poly_text_with(&tf.numerator, var, num_fmt);
+    let d = tf.denominator.descending();
     if d.len() == 1 && d[0] == 1.0 {
         return num;
     }
-    let num = if tf.num.descending().iter().filter(|c| **c != 0.0).count() > 1 {
+    let num = if tf.numerator.descending().iter().filter(|c| **c != 0.0).count() > 1 {
         format!("({num})")
     } else {
         num
     };
-    format!("{num} / ({})", poly_text_with(&tf.den, var, num_fmt))
+    format!("{num} / ({})", poly_text_with(&tf.denominator, var, num_fmt))
 }
 
 #[cfg(test)]
-fn tf_text(tf: &Tf, var: &str) -> String {
+fn tf_text(tf: &Transfer, var: &str) -> String {
     tf_text_with(tf, var, &|v| format!("{v}"))
 }
 
@@ -183,7 +183,7 @@ fn roots_as_written(v: &[C64]) -> String {
 /// One block of the loop as the case wrote it, then (for anything but a
 /// single expression that needs no expanding) the expanded transfer
 /// function in engineering notation.
-fn block_lines(name: &str, written: Option<&Written>, tf: &Tf, var: &str) -> String {
+fn block_lines(name: &str, written: Option<&Written>, tf: &Transfer, var: &str) -> String {
     let expanded = tf_text_with(tf, var, &eng);
     let as_written = match written {
         None => return format!("{name} = `1` (no sensor given: a unit sensor)"),
@@ -523,7 +523,7 @@ fn blocks(
             block_lines("controller C(s)", Some(&written.controller), c, "s")
         ),
         Controller::Discrete(d) => {
-            block_lines("controller C(z)", Some(&written.controller), &d.tf, "z")
+            block_lines("controller C(z)", Some(&written.controller), &d.transfer, "z")
         }
     });
     if !case.params.is_empty() {
@@ -1227,7 +1227,7 @@ h1{font-size:1.6em;line-height:1.25}h2{margin-top:1.6em}\
 .summary dt{font-weight:bold}.summary dd{margin:0}\
 .wide{overflow-x:auto;margin:1em 0}\
 table{border-collapse:collapse}th,td{border:1px solid #bbb;padding:.3em .6em;text-align:left;vertical-align:top}\
-th{background:#eee}th.num{text-align:right}td.num{text-align:right;white-space:nowrap;font-variant-numeric:tabular-nums}\
+th{background:#eee}th.numerator{text-align:right}td.numerator{text-align:right;white-space:nowrap;font-variant-numeric:tabular-nums}\
 .n{white-space:nowrap}\
 img{max-width:100%;height:auto;border:1px solid #ddd}figure{margin:1.5em 0}\
 figcaption{font-size:.9em;color:#555}code{background:#f3f3f3;padding:0 .2em;overflow-wrap:anywhere}\
@@ -1345,7 +1345,7 @@ mod tests {
         assert_eq!(poly_text(&p, "s"), "0.05*s^2 + s");
         let q = Poly::from_descending(&[1.0, -1.5, 0.5]);
         assert_eq!(poly_text(&q, "z"), "z^2 - 1.5*z + 0.5");
-        let tf = Tf::new(Poly::from_descending(&[20.0]), p);
+        let tf = Transfer::new(Poly::from_descending(&[20.0]), p);
         assert_eq!(tf_text(&tf, "s"), "20 / (0.05*s^2 + s)");
     }
 
