@@ -29,8 +29,8 @@ use crate::poly::C64;
 use crate::search::method_label;
 use crate::summary::fmt_num;
 use crate::sweep::SweepRow;
-use crate::transfer::Controller;
 use crate::time_response::TracePoint;
+use crate::transfer::Controller;
 
 /// File names of the charts, in the order [`write_charts`] returns them.
 pub const FIGURES_VS_RATE: &str = "figures-vs-rate.png";
@@ -141,7 +141,7 @@ fn rate_axis() -> Axis {
 }
 
 fn hz(v: f64) -> String {
-    format!("{} Hz", fmt_num(v))
+    crate::engineering::hz(v)
 }
 
 /// The methods of the sweep at the design delay, in case order.
@@ -735,31 +735,28 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
         ));
         ph.notes.push(Annotation::new(fg, phase_at(fg), ""));
     }
-    let gm_text = detail.gain_margin_db.map_or(
-        "gain margin infinite (no -180 deg crossing)".to_string(),
-        |g| format!("gain margin {} dB", fmt_num(g)),
-    );
-    let pm_text = detail
-        .phase_margin_deg
-        .map_or("no gain crossover".to_string(), |p| {
-            format!("phase margin {} deg", fmt_num(p))
-        });
+    // The title names what is drawn; the marks carry the margins' values.
+    let mut missing = Vec::new();
+    if detail.gain_margin_db.is_none() {
+        missing.push("no -180 deg crossing, so no gain margin mark");
+    }
+    if detail.phase_margin_deg.is_none() {
+        missing.push("no gain crossover, so no phase margin mark");
+    }
+    let at = if rate_word(inp.report) == "recommended" {
+        "the recommended rate"
+    } else {
+        "the rate the spec alone needs"
+    };
+    let title = if missing.is_empty() {
+        format!("Loop gain L(e^jwT) at {at}")
+    } else {
+        format!("Loop gain L(e^jwT) at {at} ({})", missing.join("; "))
+    };
     Some(
-        Figure::new(
-            format!(
-                "Loop gain L(e^jwT) at the {} {}: {pm_text}, {gm_text}, Ms {}",
-                if rate_word(inp.report) == "recommended" {
-                    "recommended rate"
-                } else {
-                    "rate the spec alone needs"
-                },
-                hz(rec.rate_hz),
-                fmt_num(detail.sensitivity_peak)
-            ),
-            Axis::log("frequency (Hz)").with_range(f_lo, f_hi),
-        )
-        .with_panel(mag)
-        .with_panel(ph),
+        Figure::new(title, Axis::log("frequency (Hz)").with_range(f_lo, f_hi))
+            .with_panel(mag)
+            .with_panel(ph),
     )
 }
 
@@ -858,7 +855,9 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
         .case
         .arithmetic
         .as_ref()
-        .map_or(crate::precision::Structure::TransposedDirect, |a| a.structure);
+        .map_or(crate::precision::Structure::TransposedDirect, |a| {
+            a.structure
+        });
     let integrators = crate::precision::design_integrators(&inp.lp.controller);
     // Methods with the same load share one line and one legend entry.
     let mut loads: Vec<(Vec<String>, Points)> = Vec::new();
@@ -896,9 +895,14 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
             hz(w.high_hz)
         ),
         (Some(w), _) => format!(
-            "CPU load vs rate: rate window {} to {} (shaded)",
+            "CPU load vs rate: rate window {} to {} (shaded){}",
             hz(w.low_hz),
-            hz(w.high_hz)
+            hz(w.high_hz),
+            if w.high_bound.starts_with("last rate checked") {
+                ", cut at the last rate checked"
+            } else {
+                ""
+            }
         ),
         (None, Some(_)) => {
             "CPU load vs rate (the load of the chosen controller is unknown)".to_string()

@@ -20,8 +20,8 @@ use crate::search::{
 };
 use crate::summary::{fmt_at_least, fmt_at_most, fmt_num};
 use crate::sweep::{self, Plan, SweepRow};
-use crate::transfer::Controller;
 use crate::time_response::TimeOptions;
+use crate::transfer::Controller;
 use crate::variants::{NamedValue, VariantSet};
 
 /// Build the rate-independent part of the loop from a case (nominal
@@ -279,7 +279,7 @@ pub fn pick(
     let spec = &case.spec;
     let mut report = PickReport {
         design: None,
-        notes: Vec::new(),
+        notes: case.notes.clone(),
         ..unsearched(case, lp)
     };
     let design_delay = report.design_delay;
@@ -395,7 +395,7 @@ pub fn pick(
         method,
         delay: design_delay,
     };
-    let eval: Evaluation = lp.sampled(&p);
+    let eval: Evaluation = lp.sampled_exact(&p);
     let a = assess(&eval, spec);
     let controller = lp.controller_at(rate, method).ok();
     let (cycles, load) = match case.budget.as_ref() {
@@ -495,6 +495,22 @@ pub fn pick(
         (None, Some(p)) => Some(p),
         (None, None) => None,
     };
+    // A window claims only rates that were checked: the spec (and the
+    // coefficients) are known to hold up to the top of the swept range,
+    // so a ceiling above it is cut there and the bound says so.
+    let max_hz = case.rates.max_hz;
+    let top = top.map(|(high, bound)| {
+        if high > max_hz {
+            (
+                max_hz,
+                format!(
+                    "last rate checked (max_hz = {max_hz} Hz; {bound} would allow up to {high:.6} Hz, not checked)"
+                ),
+            )
+        } else {
+            (high, bound)
+        }
+    });
     if let Some((high, bound)) = top {
         let w = if high.is_finite() {
             RateWindow::new(rate, high, bound)

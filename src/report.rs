@@ -149,12 +149,22 @@ fn tf_text_with(tf: &Transfer, var: &str, num_fmt: &dyn Fn(f64) -> String) -> St
     if d.len() == 1 && d[0] == 1.0 {
         return num;
     }
-    let num = if tf.numerator.descending().iter().filter(|c| **c != 0.0).count() > 1 {
+    let num = if tf
+        .numerator
+        .descending()
+        .iter()
+        .filter(|c| **c != 0.0)
+        .count()
+        > 1
+    {
         format!("({num})")
     } else {
         num
     };
-    format!("{num} / ({})", poly_text_with(&tf.denominator, var, num_fmt))
+    format!(
+        "{num} / ({})",
+        poly_text_with(&tf.denominator, var, num_fmt)
+    )
 }
 
 #[cfg(test)]
@@ -204,7 +214,7 @@ fn block_lines(name: &str, written: Option<&Written>, tf: &Transfer, var: &str) 
                 ", derivative filter at `{f}` Hz"
             ))
         ),
-        Some(Written::InZ { num, den, rate_hz }) => format!(
+        Some(Written::InZ { numerator: num, denominator: den, rate_hz }) => format!(
             "{name}: numerator `{}`, denominator `{}` (descending powers of z) at {} Hz",
             num.iter()
                 .map(|v| format!("{v}"))
@@ -442,7 +452,13 @@ fn figure_rows(f: &Figures) -> Vec<(&'static str, &'static str, Option<f64>, &'s
             "delay_margin_s",
             "delay margin (s)",
             f.delay_margin_s,
-            "infinite",
+            f.delay_margin_missing(),
+        ),
+        (
+            "delay_margin_estimate_s",
+            "delay margin estimate (s)",
+            f.delay_margin_estimate_s,
+            "inf",
         ),
         (
             "sensitivity_peak",
@@ -522,9 +538,12 @@ fn blocks(
             "{}; discretized by each method the case lists",
             block_lines("controller C(s)", Some(&written.controller), c, "s")
         ),
-        Controller::Discrete(d) => {
-            block_lines("controller C(z)", Some(&written.controller), &d.transfer, "z")
-        }
+        Controller::Discrete(d) => block_lines(
+            "controller C(z)",
+            Some(&written.controller),
+            &d.transfer,
+            "z",
+        ),
     });
     if !case.params.is_empty() {
         lines.push(format!(

@@ -90,12 +90,16 @@ pub fn complex_pairs(v: &[C64]) -> Vec<[f64; 2]> {
 /// `looprate discretize` output.
 pub fn discretized_text(method: &str, rate_hz: f64, c: &DiscreteTransfer) -> String {
     let mut s = String::new();
-    let _ = writeln!(s, "method   {method}");
-    let _ = writeln!(s, "rate     {rate_hz} Hz (T = {} s)", 1.0 / rate_hz);
+    let _ = writeln!(s, "method         {method}");
+    let _ = writeln!(s, "rate           {rate_hz} Hz (T = {} s)", 1.0 / rate_hz);
     let _ = writeln!(s, "numerator(z)   {:?}", c.transfer.numerator.descending());
-    let _ = writeln!(s, "denominator(z) {:?}", c.transfer.denominator.descending());
-    let _ = writeln!(s, "poles    {}", roots_text(c.transfer.poles()));
-    let _ = writeln!(s, "zeros    {}", roots_text(c.transfer.zeros()));
+    let _ = writeln!(
+        s,
+        "denominator(z) {:?}",
+        c.transfer.denominator.descending()
+    );
+    let _ = writeln!(s, "poles          {}", roots_text(c.transfer.poles()));
+    let _ = writeln!(s, "zeros          {}", roots_text(c.transfer.zeros()));
     s
 }
 
@@ -160,7 +164,12 @@ fn figure_rows(f: Option<&Figures>) -> Vec<(&'static str, &'static str, String)>
         (
             "delay_margin_s",
             "delay margin (s)",
-            g(&|f| fmt_opt(f.delay_margin_s, "inf")),
+            g(&|f| fmt_opt(f.delay_margin_s, f.delay_margin_missing())),
+        ),
+        (
+            "delay_margin_estimate_s",
+            "delay margin estimate (s)",
+            g(&|f| fmt_opt(f.delay_margin_estimate_s, "inf")),
         ),
         (
             "sensitivity_peak",
@@ -614,10 +623,10 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::evaluate::PreparedLoop) 
     let _ = writeln!(s, "{} ({})", case.title, case.source.display());
     let block = |s: &mut String, name: &str, tf: &Transfer, var: &str| {
         let _ = writeln!(s, "\n{name}");
-        let _ = writeln!(s, "  num({var}) {:?}", tf.numerator.descending());
-        let _ = writeln!(s, "  den({var}) {:?}", tf.denominator.descending());
-        let _ = writeln!(s, "  poles    {}", roots_text(tf.poles()));
-        let _ = writeln!(s, "  zeros    {}", roots_text(tf.zeros()));
+        let _ = writeln!(s, "  numerator({var})   {:?}", tf.numerator.descending());
+        let _ = writeln!(s, "  denominator({var}) {:?}", tf.denominator.descending());
+        let _ = writeln!(s, "  poles            {}", roots_text(tf.poles()));
+        let _ = writeln!(s, "  zeros            {}", roots_text(tf.zeros()));
     };
     block(&mut s, "plant P(s)", &lp.plant, "s");
     block(&mut s, "sensor H(s)", &lp.sensor, "s");
@@ -679,6 +688,9 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::evaluate::PreparedLoop) 
                 .join(", "),
             a.structure.name()
         );
+    }
+    for n in &case.notes {
+        let _ = writeln!(s, "note: {n}");
     }
     if let Some(d) = &lp.design {
         let _ = writeln!(s, "\ncontinuous loop C(s) P(s) H(s): {}", d.status.label());

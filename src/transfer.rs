@@ -24,7 +24,10 @@ pub struct DiscreteTransfer {
 impl Transfer {
     /// `num / den`.
     pub fn new(num: Poly, den: Poly) -> Self {
-        Transfer { numerator: num, denominator: den }
+        Transfer {
+            numerator: num,
+            denominator: den,
+        }
     }
 
     /// The constant gain `k`.
@@ -54,7 +57,10 @@ impl Transfer {
 
     /// Series connection `self * other`.
     pub fn cascade(&self, other: &Transfer) -> Transfer {
-        Transfer::new(self.numerator.mul(&other.numerator), self.denominator.mul(&other.denominator))
+        Transfer::new(
+            self.numerator.mul(&other.numerator),
+            self.denominator.mul(&other.denominator),
+        )
     }
 
     /// Negative-feedback loop `self / (1 + self * feedback)`.
@@ -90,7 +96,10 @@ impl Transfer {
     /// Normalised so the leading denominator coefficient is one.
     pub fn monic(&self) -> Transfer {
         let l = self.denominator.leading();
-        Transfer::new(self.numerator.scale(1.0 / l), self.denominator.scale(1.0 / l))
+        Transfer::new(
+            self.numerator.scale(1.0 / l),
+            self.denominator.scale(1.0 / l),
+        )
     }
 
     /// Every coefficient finite.
@@ -108,7 +117,8 @@ impl DiscreteTransfer {
 
     /// Frequency response at `w` rad/s: the value at z = e^{jwT}.
     pub fn freq(&self, w_rad_s: f64) -> C64 {
-        self.transfer.eval(C64::from_polar(1.0, w_rad_s * self.period_s))
+        self.transfer
+            .eval(C64::from_polar(1.0, w_rad_s * self.period_s))
     }
 }
 
