@@ -160,7 +160,7 @@ impl std::fmt::Display for WindowBound {
                 fails_at_start: Some(lim),
             } => write!(
                 f,
-                "{format} coefficients ({structure}) fail already at the recommended rate (`{lim}`)"
+                "{format} coefficients ({structure}) fail already at the rate the spec alone needs (`{lim}`)"
             ),
             WindowBound::LastRateChecked {
                 checked_hz,

@@ -329,6 +329,44 @@ struct Model {
     /// `plant`, `sensor` or `controller`.
     role: &'static str,
     source: Source,
+    /// The form the file used, for reports.
+    written: Written,
+}
+
+/// A block of the loop in the form the case file wrote it, so a report
+/// can show what the reader typed rather than the expanded polynomials.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Written {
+    /// `transfer = "..."`: the expression text.
+    Expression(String),
+    /// `zeros`, `poles`, `gain` (roots in rad/s).
+    ZerosPolesGain {
+        zeros: Vec<C64>,
+        poles: Vec<C64>,
+        gain: f64,
+    },
+    /// `pid = { ... }` (missing gains are zero).
+    Pid {
+        kp: f64,
+        ki: f64,
+        kd: f64,
+        derivative_filter_hz: Option<f64>,
+    },
+    /// `numerator_z`, `denominator_z` (descending powers of z) at `rate_hz`.
+    InZ {
+        numerator: Vec<f64>,
+        denominator: Vec<f64>,
+        rate_hz: f64,
+    },
+}
+
+/// The three blocks as written; `sensor` is None when the file has no
+/// `[sensor]` (a unit sensor).
+#[derive(Debug, Clone, PartialEq)]
+pub struct WrittenLoop {
+    pub plant: Written,
+    pub sensor: Option<Written>,
+    pub controller: Written,
 }
 
 #[derive(Debug, Clone, PartialEq)]
@@ -799,6 +837,7 @@ fn model_from(
                 field,
                 role,
                 source: Source::Expr(expr),
+                written: Written::Expression(text),
             }))
         }
         (None, true) => {
@@ -832,13 +871,18 @@ fn model_from(
                 field: base.to_string(),
                 role,
                 source: Source::Fixed(tf),
+                written: Written::ZerosPolesGain {
+                    zeros: z,
+                    poles: p,
+                    gain: k,
+                },
             }))
         }
         (None, false) => Ok(None),
     }
 }
 
-fn pid(ctx: &Ctx, raw: RawPid) -> Result<Transfer, CaseError> {
+fn pid(ctx: &Ctx, raw: RawPid) -> Result<(Transfer, Written), CaseError> {
     let term = |name: &str, v: Option<f64>| -> Result<f64, CaseError> {
         match v {
             Some(v) => ctx.number(&format!("controller.pid.{name}"), v, |_| true, "finite"),
@@ -878,7 +922,13 @@ fn pid(ctx: &Ctx, raw: RawPid) -> Result<Transfer, CaseError> {
     let num = den.scale(kp).add(&b.scale(ki)).add(&s.mul(&a).scale(kd));
     let tf = Transfer::new(num, den);
     check_transfer(ctx, "controller.pid", "controller", &tf, "")?;
-    Ok(tf)
+    let written = Written::Pid {
+        kp,
+        ki,
+        kd,
+        derivative_filter_hz: raw.derivative_filter_hz.filter(|_| kd != 0.0),
+    };
+    Ok((tf, written))
 }
 
 fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, CaseError> {
@@ -915,11 +965,12 @@ fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, Cas
         }
     }
     if let Some(p) = raw.pid {
-        let tf = pid(ctx, p)?;
+        let (tf, written) = pid(ctx, p)?;
         return Ok(ControllerModel::Continuous(Model {
             field: "controller.pid".into(),
             role: "controller",
             source: Source::Fixed(tf),
+            written,
         }));
     }
     if raw.numerator_z.is_some() || raw.denominator_z.is_some() || raw.rate_hz.is_some() {
@@ -1402,6 +1453,22 @@ fn arithmetic_from(ctx: &Ctx, raw: Option<RawArithmetic>) -> Result<Option<Arith
 // ------------------------------------------------------------------ Case
 
 impl Case {
+    /// The plant, sensor and controller in the form the file wrote them.
+    pub fn written(&self) -> WrittenLoop {
+        WrittenLoop {
+            plant: self.plant.written.clone(),
+            sensor: self.sensor.as_ref().map(|m| m.written.clone()),
+            controller: match &self.controller {
+                ControllerModel::Continuous(m) => m.written.clone(),
+                ControllerModel::Discrete(d) => Written::InZ {
+                    numerator: d.transfer.numerator.descending(),
+                    denominator: d.transfer.denominator.descending(),
+                    rate_hz: 1.0 / d.period_s,
+                },
+            },
+        }
+    }
+
     /// Reads and validates a case file.
     pub fn load(path: &Path) -> Result<Case, CaseError> {
         let text = std::fs::read_to_string(path).map_err(|e| CaseError::Read {
