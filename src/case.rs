@@ -15,6 +15,7 @@
 
 use crate::discretize::Method;
 use crate::expr::{Expr, ExprError};
+use crate::hold::HoldKind;
 use crate::poly::{C64, Poly};
 use crate::precision::{Format, Structure};
 use crate::tf::{DiscreteTf, Tf};
@@ -201,6 +202,13 @@ pub struct Case {
     /// Computation delays to evaluate, in periods (any finite value >= 0);
     /// `[0.0]` when `[timing]` is absent.
     pub compute_delays: Vec<f64>,
+    /// Actuator hold kinds to evaluate, in file order (`[timing] hold`);
+    /// `[zero-order]` by default.
+    pub holds: Vec<HoldKind>,
+    /// Transport delay of the plant (`[plant] delay_s`), s; 0 without.
+    pub plant_delay_s: f64,
+    /// Transport delay of the measurement (`[sensor] delay_s`), s; 0 without.
+    pub sensor_delay_s: f64,
     /// The rate sweep.
     pub rates: Rates,
     /// Discretization methods to try, in file order; empty for a
@@ -340,6 +348,7 @@ struct RawTf {
     zeros: Option<Vec<toml::Value>>,
     poles: Option<Vec<toml::Value>>,
     gain: Option<f64>,
+    delay_s: Option<toml::Value>,
 }
 
 #[derive(Deserialize)]
@@ -353,6 +362,11 @@ struct RawController {
     num_z: Option<Vec<f64>>,
     den_z: Option<Vec<f64>>,
     rate_hz: Option<f64>,
+    /// The hold a controller given in z was designed for.
+    hold: Option<String>,
+    /// Refused with a message: a transport delay belongs to the plant or
+    /// the sensor.
+    delay_s: Option<toml::Value>,
 }
 
 #[derive(Deserialize)]
@@ -368,6 +382,7 @@ struct RawPid {
 #[serde(deny_unknown_fields, expecting = "a table")]
 struct RawTiming {
     compute_delay: Option<toml::Value>,
+    hold: Option<toml::Value>,
 }
 
 #[derive(Deserialize)]
@@ -1013,6 +1028,105 @@ fn params_from(ctx: &Ctx, table: toml::Table, order: &[String]) -> Result<Vec<Pa
     Ok(out)
 }
 
+/// A hold kind by name; the error lists the kinds.
+fn hold_kind(ctx: &Ctx, field: &str, name: &str) -> Result<HoldKind, CaseError> {
+    HoldKind::from_name(name).ok_or_else(|| {
+        ctx.invalid(
+            field,
+            format!(
+                "unknown hold kind `{name}`; the kinds are: {}",
+                HoldKind::names()
+            ),
+        )
+    })
+}
+
+/// `[timing] hold`: one name or a list (default `zero-order`). A
+/// controller given in z runs only with the hold it was designed for
+/// (`[controller] hold`, zero-order unless given).
+fn holds_from(
+    ctx: &Ctx,
+    raw: Option<&toml::Value>,
+    controller: &ControllerModel,
+    assumed: Option<HoldKind>,
+) -> Result<Vec<HoldKind>, CaseError> {
+    let field = "timing.hold";
+    let default = assumed.unwrap_or_default();
+    let Some(value) = raw else {
+        return Ok(vec![default]);
+    };
+    let list: Vec<(String, &toml::Value)> = match value {
+        toml::Value::Array(a) => {
+            if a.is_empty() {
+                return Err(ctx.invalid(
+                    field,
+                    format!("empty list; give at least one of: {}", HoldKind::names()),
+                ));
+            }
+            a.iter()
+                .enumerate()
+                .map(|(i, v)| (format!("{field}[{i}]"), v))
+                .collect()
+        }
+        v => vec![(field.to_string(), v)],
+    };
+    let mut out: Vec<HoldKind> = Vec::new();
+    for (f, v) in list {
+        let Some(name) = v.as_str() else {
+            return Err(ctx.invalid(
+                &f,
+                format!(
+                    "expected a hold kind name ({}), found a {}",
+                    HoldKind::names(),
+                    v.type_str()
+                ),
+            ));
+        };
+        let kind = hold_kind(ctx, &f, name)?;
+        if out.contains(&kind) {
+            return Err(ctx.invalid(&f, format!("`{name}` is listed twice")));
+        }
+        if let ControllerModel::Discrete(_) = controller
+            && kind != default
+        {
+            return Err(ctx.invalid(
+                &f,
+                format!(
+                    "the controller is given in z and assumes a {} hold{}: it cannot be run with a `{}` hold (set [controller] hold to the hold it was designed for, or give a continuous design to compare holds)",
+                    default.name(),
+                    if assumed.is_some() {
+                        " ([controller] hold)"
+                    } else {
+                        " (the default for a controller in z)"
+                    },
+                    kind.name()
+                ),
+            ));
+        }
+        out.push(kind);
+    }
+    Ok(out)
+}
+
+/// `delay_s` on [plant] or [sensor]: a finite number of seconds >= 0.
+fn transport_delay(ctx: &Ctx, field: &str, raw: Option<&toml::Value>) -> Result<f64, CaseError> {
+    let Some(v) = raw else {
+        return Ok(0.0);
+    };
+    let d = value_as_f64(v).ok_or_else(|| {
+        ctx.invalid(
+            field,
+            format!("expected a number of seconds, found a {}", v.type_str()),
+        )
+    })?;
+    ctx.number(
+        field,
+        d,
+        |d| d >= 0.0,
+        "a transport delay in seconds, finite and >= 0",
+    )
+}
+
 fn delays_from(ctx: &Ctx, raw: Option<RawTiming>) -> Result<Vec<f64>, CaseError> {
     let Some(value) = raw.and_then(|t| t.compute_delay) else {
         return Ok(vec![0.0]);
@@ -1372,6 +1486,16 @@ impl Case {
         let order = keys_in_file_order(doc.get_ref(), &["params"]);
         let params = params_from(&ctx, raw.params.unwrap_or_default(), &order)?;
 
+        let plant_delay_s = transport_delay(
+            &ctx,
+            "plant.delay_s",
+            raw.plant.as_ref().and_then(|p| p.delay_s.as_ref()),
+        )?;
+        let sensor_delay_s = transport_delay(
+            &ctx,
+            "sensor.delay_s",
+            raw.sensor.as_ref().and_then(|p| p.delay_s.as_ref()),
+        )?;
         let plant = match raw.plant {
             Some(p) => model_from(&ctx, "plant", "plant", p.tf, p.zeros, p.poles, p.gain)?,
             None => None,
@@ -1395,11 +1519,27 @@ impl Case {
             ),
             None => None,
         };
-        let controller = controller_from(
-            &ctx,
-            raw.controller
-                .ok_or_else(|| ctx.missing("controller", "the [controller] table"))?,
-        )?;
+        let raw_controller = raw
+            .controller
+            .ok_or_else(|| ctx.missing("controller", "the [controller] table"))?;
+        if raw_controller.delay_s.is_some() {
+            return Err(ctx.invalid(
+                "controller.delay_s",
+                "a controller has no transport delay: give a pure delay as `delay_s` on [plant] (the actuator path) or [sensor] (the measurement), and the time the processor takes as [timing] compute_delay (in periods)",
+            ));
+        }
+        let assumed_hold = raw_controller.hold.clone();
+        let controller = controller_from(&ctx, raw_controller)?;
+        let assumed_hold = match (assumed_hold, &controller) {
+            (None, _) => None,
+            (Some(h), ControllerModel::Discrete(_)) => Some(hold_kind(&ctx, "controller.hold", &h)?),
+            (Some(_), ControllerModel::Continuous(_)) => {
+                return Err(ctx.invalid(
+                    "controller.hold",
+                    "only a controller given in z assumes a hold; a continuous design is discretized for every hold listed in [timing] hold",
+                ));
+            }
+        };
 
         // Every identifier bound, every parameter used.
         let mut exprs: Vec<&Model> = vec![&plant];
@@ -1432,6 +1572,12 @@ impl Case {
             ));
         }
 
+        let holds = holds_from(
+            &ctx,
+            raw.timing.as_ref().and_then(|t| t.hold.as_ref()),
+            &controller,
+            assumed_hold,
+        )?;
         let compute_delays = delays_from(&ctx, raw.timing)?;
         let rates = rates_from(&ctx, raw.rates)?;
         let (methods, prewarp_hz) = methods_from(&ctx, raw.methods, &controller)?;
@@ -1450,6 +1596,9 @@ impl Case {
             title,
             params,
             compute_delays,
+            holds,
+            plant_delay_s,
+            sensor_delay_s,
             rates,
             methods,
             prewarp_hz,

@@ -20,6 +20,7 @@ use crate::error::Error;
 use crate::evaluate::{Evaluation, Figures, Point, PreparedLoop};
 use crate::feasibility::assess;
 use crate::frequency::{loop_grid, unwrapped_phase};
+use crate::hold::HoldKind;
 use crate::pick::{PickReport, Recommended, case_methods};
 use crate::plot::{
     Annotation, Axis, Draw, Figure, Limit, MarkStyle, Panel, Series, Side, VMark, XBand, YBand,
@@ -151,7 +152,11 @@ fn design_series<'a>(inp: &Inputs<'a>) -> Vec<(String, Vec<&'a SweepRow>)> {
         let mut rows: Vec<&SweepRow> = inp
             .rows
             .iter()
-            .filter(|r| r.point.method == m && r.point.delay == inp.report.design_delay)
+            .filter(|r| {
+                r.point.method == m
+                    && r.point.hold == design_hold(inp)
+                    && r.point.delay == inp.report.design_delay
+            })
             .collect();
         if rows.is_empty() {
             continue;
@@ -167,8 +172,20 @@ fn f_star(report: &PickReport, method: &str) -> Option<f64> {
     report
         .methods
         .iter()
-        .find(|m| m.method == method && m.compute_delay == report.design_delay)
+        .find(|m| {
+            m.method == method
+                && Some(m.hold) == report.recommended.as_ref().map(|r| r.hold)
+                && m.compute_delay == report.design_delay
+        })
         .and_then(|m| m.slowest_rate_hz)
+}
+
+/// The hold kind the charts of methods show: the recommended one, else
+/// the first the case lists.
+fn design_hold(inp: &Inputs) -> HoldKind {
+    inp.rec
+        .map(|(r, _)| r.hold)
+        .unwrap_or_else(|| inp.case.holds.first().copied().unwrap_or_default())
 }
 
 /// The figures of a chart row; NaN (a break in the line) where the loop
@@ -200,6 +217,7 @@ fn point_at(inp: &Inputs, method: Option<Method>, rate_hz: f64) -> Point {
         rate_hz,
         method,
         delay: inp.report.design_delay,
+        hold: design_hold(inp),
     }
 }
 
@@ -208,7 +226,11 @@ fn point_at(inp: &Inputs, method: Option<Method>, rate_hz: f64) -> Point {
 fn failing_rate(inp: &Inputs, rec: &Recommended, method: Option<Method>) -> f64 {
     inp.rows
         .iter()
-        .filter(|r| r.point.method == method && r.point.delay == inp.report.design_delay)
+        .filter(|r| {
+            r.point.method == method
+                && r.point.hold == rec.hold
+                && r.point.delay == inp.report.design_delay
+        })
         .filter(|r| r.point.rate_hz < rec.slowest_rate_hz && !r.assessment.feasible)
         .map(|r| r.point.rate_hz)
         .fold(None, |a: Option<f64>, f| Some(a.map_or(f, |a| a.max(f))))

@@ -8,7 +8,7 @@ use crate::closed_loop::{ClosedLoop, Stability};
 use crate::continuous::{ContinuousLoop, HoldApprox};
 use crate::discretize::{Method, discretize};
 use crate::frequency::{FrequencyRange, LoopFigures, loop_figures};
-use crate::hold::{HoldEquivalent, plant_and_sensor};
+use crate::hold::{Actuation, HoldEquivalent, HoldKind, pade_delay, plant_and_sensor};
 use std::collections::HashMap;
 use std::sync::Mutex;
 
@@ -131,6 +131,8 @@ pub struct Point {
     pub rate_hz: f64,
     pub method: Option<Method>,
     pub delay: f64,
+    /// How the actuator holds each command.
+    pub hold: HoldKind,
 }
 
 /// The plant side of every loop at one (rate, delay): the hold + delay +
@@ -190,6 +192,37 @@ pub struct PreparedLoop {
     pub time: TimeOptions,
     /// The continuous design's own figures (None for a controller in z).
     pub design: Option<Evaluation>,
+    /// Transport delays of the plant and of the measurement, s.
+    pub transport: Transport,
+    /// The model the continuous loops simulate: plant and sensor with the
+    /// measurement's transport delay as its Pade approximant.
+    continuous_model: StateSpace,
+}
+
+/// Pure delays `e^{-sL}` in the loop (`delay_s` on [plant] and [sensor]).
+#[derive(Debug, Clone, Copy, Default, PartialEq)]
+pub struct Transport {
+    /// Between the actuator and the plant, s (the load disturbance enters
+    /// after it, at the plant input).
+    pub plant_s: f64,
+    /// Between the plant output and the sampler, s.
+    pub sensor_s: f64,
+}
+
+/// Order of the Pade approximant `[n/n]` that stands in for a transport
+/// delay in the continuous loops' time response and poles (their
+/// frequency response uses `e^{-jwL}` exactly).
+pub const TRANSPORT_PADE_ORDER: usize = 6;
+
+/// Order of the Pade approximant of each exponential in a hold's own
+/// rational approximation (`HoldApprox::OwnPade`).
+pub const HOLD_PADE_ORDER: usize = 2;
+
+impl Transport {
+    /// The total delay around the loop, s.
+    pub fn total_s(&self) -> f64 {
+        self.plant_s + self.sensor_s
+    }
 }
 
 impl PreparedLoop {
@@ -201,7 +234,39 @@ impl PreparedLoop {
         prewarp_hz: Option<f64>,
         time: TimeOptions,
     ) -> Result<PreparedLoop, ModelError> {
+        PreparedLoop::with_transport(
+            plant,
+            sensor,
+            controller,
+            prewarp_hz,
+            time,
+            Transport::default(),
+        )
+    }
+
+    /// `new` with transport delays on the plant and the measurement.
+    pub fn with_transport(
+        plant: &Tf,
+        sensor: &Tf,
+        controller: &Controller,
+        prewarp_hz: Option<f64>,
+        time: TimeOptions,
+        transport: Transport,
+    ) -> Result<PreparedLoop, ModelError> {
+        if !(transport.plant_s >= 0.0
+            && transport.plant_s.is_finite()
+            && transport.sensor_s >= 0.0
+            && transport.sensor_s.is_finite())
+        {
+            return Err(ModelError::NonFinite);
+        }
         let plant_model = plant_and_sensor(plant, sensor)?;
+        let continuous_model = if transport.sensor_s > 0.0 {
+            let (n, d) = pade_delay(transport.sensor_s, TRANSPORT_PADE_ORDER);
+            plant_and_sensor(plant, &sensor.series(&Tf::new(n, d)))?
+        } else {
+            plant_model.clone()
+        };
         let mut roots = Vec::new();
         let mut tfs = vec![plant, sensor];
         if let Controller::Continuous(c) = controller {
@@ -232,6 +297,8 @@ impl PreparedLoop {
             prewarp_rad_s: prewarp_hz.map(|f| 2.0 * std::f64::consts::PI * f),
             time,
             design: None,
+            transport,
+            continuous_model,
         };
         if let Controller::Continuous(_) = controller {
             let design = prepared.continuous(None);
@@ -355,13 +422,25 @@ impl PreparedLoop {
     /// The exact hold + delay + plant equivalent at a point.
     fn hold_equivalent(&self, p: &Point) -> Result<HoldEquivalent, String> {
         check_point(p)?;
-        HoldEquivalent::new(
+        HoldEquivalent::with(
             &self.plant_model,
             1.0 / p.rate_hz,
-            p.delay,
+            &self.actuation(p),
             self.time.points_per_period,
         )
         .map_err(|e| format!("plant equivalent: {e}"))
+    }
+
+    /// What lies between controller and plant at a point: its hold, the
+    /// computation delay plus the plant's transport delay (in periods: a
+    /// transport delay of 0.3 T is 0.3 more computation delay), and the
+    /// measurement's transport delay.
+    pub fn actuation(&self, p: &Point) -> Actuation {
+        Actuation {
+            hold: p.hold,
+            delay_periods: p.delay + self.transport.plant_s * p.rate_hz,
+            sensor_delay_s: self.transport.sensor_s,
+        }
     }
 
     /// Evaluate the exact sampled-data loop at one point.
@@ -497,24 +576,62 @@ impl PreparedLoop {
         let Controller::Continuous(c) = &self.controller else {
             return Err("the controller is given in z: no continuous design".into());
         };
-        let cl = ContinuousLoop::new(&self.plant_model, &self.plant, &self.sensor, c, None)
-            .map_err(|e| e.to_string())?;
+        let pade = self.plant_pade();
+        let cl = ContinuousLoop::new(
+            &self.continuous_model,
+            &self.plant,
+            &self.sensor,
+            c,
+            None,
+            self.loop_delays(&pade),
+        )
+        .map_err(|e| e.to_string())?;
         cl.traces(t_end_s, steps).map_err(|e| e.to_string())
+    }
+
+    /// The plant's transport delay as its Pade approximant (None without).
+    fn plant_pade(&self) -> Option<Tf> {
+        (self.transport.plant_s > 0.0).then(|| {
+            let (n, d) = pade_delay(self.transport.plant_s, TRANSPORT_PADE_ORDER);
+            Tf::new(n, d)
+        })
+    }
+
+    /// The pure delays of a continuous loop: the total exactly for the
+    /// loop gain, the plant's as `pade` in the simulation (the
+    /// measurement's is in `continuous_model`).
+    fn loop_delays<'a>(&self, pade: &'a Option<Tf>) -> Option<(f64, &'a Tf)> {
+        static ONE: std::sync::OnceLock<Tf> = std::sync::OnceLock::new();
+        let total = self.transport.total_s();
+        (total > 0.0).then(|| {
+            (
+                total,
+                pade.as_ref().unwrap_or_else(|| ONE.get_or_init(|| Tf::gain(1.0))),
+            )
+        })
     }
 
     /// The continuous loop: the design itself (`approx` None), or with the
     /// hold and delay replaced by an approximation (`(kind, theta_s)`).
     pub fn continuous(&self, approx: Option<(HoldApprox, f64)>) -> Evaluation {
+        self.continuous_with(approx.map(|(k, theta)| (k.tf(theta), theta)))
+    }
+
+    /// The continuous loop with `act` (a rational actuator, and the delay
+    /// it stands for, s) between controller and plant.
+    fn continuous_with(&self, act: Option<(Tf, f64)>) -> Evaluation {
         let Controller::Continuous(c) = &self.controller else {
             return Evaluation::error("the controller is given in z: no continuous design");
         };
-        let act = approx.map(|(k, theta)| k.tf(theta));
+        let approx = act.as_ref().map(|a| ((), a.1));
+        let pade = self.plant_pade();
         let cl = match ContinuousLoop::new(
-            &self.plant_model,
+            &self.continuous_model,
             &self.plant,
             &self.sensor,
             c,
-            act.as_ref(),
+            act.as_ref().map(|a| &a.0),
+            self.loop_delays(&pade),
         ) {
             Ok(v) => v,
             Err(e) => return Evaluation::error(e),
@@ -536,8 +653,15 @@ impl PreparedLoop {
             Err(e) => return Evaluation::error(e),
         };
         let mut roots = self.roots.clone();
-        if let Some((_, theta)) = approx {
+        if let Some((_, theta)) = approx
+            && theta > 0.0
+        {
             roots.push(C64::new(-1.0 / theta, 0.0));
+        }
+        let total = self.transport.total_s();
+        if total > 0.0 {
+            // The delay's phase turns fastest around w = 1/L.
+            roots.push(C64::new(-1.0 / total, 0.0));
         }
         let range = FrequencyRange::from_roots(&roots, None);
         let freq = loop_figures(&|w| cl.loop_at(w), &range);
@@ -545,10 +669,15 @@ impl PreparedLoop {
     }
 
     /// The continuous loop with the hold and computation delay at `p`
-    /// replaced by `kind` (theta = T/2 + d T).
+    /// replaced by `kind`: a delay approximation of theta = the hold's
+    /// low-frequency delay + d T (T/2 + d T for zero-order), or the hold's
+    /// own transfer function by Pade (`HoldApprox::HoldPade22`). The
+    /// transport delays stay as in the continuous design.
     pub fn hold_approx(&self, p: &Point, kind: HoldApprox) -> Evaluation {
         let period = 1.0 / p.rate_hz;
-        self.continuous(Some((kind, period / 2.0 + p.delay * period)))
+        let delay = p.delay * period;
+        let theta = p.hold.equivalent_delay_s(period) + delay;
+        self.continuous_with(kind.actuator(p.hold, period, delay).map(|t| (t, theta)))
     }
 }
 

@@ -454,6 +454,15 @@ impl Parser {
                 kind: Kind::Var,
                 col: t.col,
             },
+            Tok::Ident(name)
+                if name == "exp"
+                    && matches!(self.peek().map(|t| &t.tok), Some(Tok::LParen)) =>
+            {
+                return Err(ExprError::new(
+                    t.col,
+                    "`exp(...)` is not rational: give a pure delay e^{-sL} as `delay_s = L` (seconds) on [plant] or [sensor], and write the rest of the model without it",
+                ));
+            }
             Tok::Ident(name) => {
                 if !self.idents.iter().any(|(n, _)| *n == name) {
                     self.idents.push((name.clone(), t.col));

@@ -16,6 +16,7 @@ use looprate::continuous::HoldApprox;
 use looprate::discretize::{Method, discretize};
 use looprate::evaluate::{Point, PreparedLoop};
 use looprate::expr::Expr;
+use looprate::hold::HoldKind;
 use looprate::pick::{Picked, case_grid, case_variants, prepare, sweep_and_pick};
 use looprate::search::Silent;
 use looprate::tf::{Controller, Tf};
@@ -70,6 +71,10 @@ enum Command {
         /// Computation delay in periods, any finite value >= 0 (default: the case's first).
         #[arg(long)]
         delay: Option<f64>,
+        /// Actuator hold kind: zero-order, first-order or interpolating
+        /// (default: the case's first).
+        #[arg(long)]
+        hold: Option<String>,
         /// Print JSON with the loop model's keys.
         #[arg(long)]
         json: bool,
@@ -204,6 +209,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
             rate,
             method,
             delay,
+            hold,
             json,
             trace,
         } => {
@@ -226,10 +232,26 @@ fn run(cli: Cli) -> Result<ExitCode> {
             if !(rate > 0.0 && rate.is_finite()) {
                 return Err(anyhow!("--rate must be positive and finite, got {rate}"));
             }
+            let hold = match hold {
+                None => c.holds[0],
+                Some(h) => HoldKind::from_name(&h).ok_or_else(|| {
+                    anyhow!(
+                        "--hold: unknown hold kind `{h}`; the kinds are: {}",
+                        HoldKind::names()
+                    )
+                })?,
+            };
+            if matches!(lp.controller, Controller::Discrete(_)) && hold != c.holds[0] {
+                return Err(anyhow!(
+                    "--hold {hold}: the controller is given in z and assumes a {} hold",
+                    c.holds[0]
+                ));
+            }
             let p = Point {
                 rate_hz: rate,
                 method,
                 delay,
+                hold,
             };
             let exact = lp.sampled(&p);
             let approx: Vec<(HoldApprox, _)> = if matches!(lp.controller, Controller::Continuous(_))
@@ -257,9 +279,10 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 print(&format!("{v:#}\n"))?;
             } else {
                 let header = format!(
-                    "rate {} Hz, method {}, computation delay {} of a period",
+                    "rate {} Hz, method {}, {} hold, computation delay {} periods",
                     rate,
                     looprate::search::method_label(method),
+                    hold,
                     delay
                 );
                 let mut text = summary::evaluation_text(

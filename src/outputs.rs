@@ -54,10 +54,11 @@ fn num(v: f64) -> String {
 /// The columns of `sweep.csv` every sweep has, in order. A case with
 /// `[uncertainty]` adds [`ROBUST_COLUMNS`], one with `[arithmetic]` adds
 /// [`PRECISION_COLUMNS`] per number format (prefixed `q15_` etc.).
-pub const SWEEP_COLUMNS: [&str; 23] = [
+pub const SWEEP_COLUMNS: [&str; 24] = [
     "rate_hz",
     "period_s",
     "method",
+    "hold",
     "compute_delay",
     "status",
     "y_final",
@@ -158,6 +159,7 @@ fn point_cells(r: &SweepRow, e: &Evaluation, a: &Assessment) -> Vec<String> {
         num(p.rate_hz),
         num(1.0 / p.rate_hz),
         method_label(p.method),
+        p.hold.name().to_string(),
         num(p.delay),
         e.status.label(),
         cell(f.map(|f| Some(f.y_final)), ""),

@@ -11,7 +11,8 @@ use crate::budget::{self, RateWindow};
 use crate::case::{Case, UncertaintyMode};
 use crate::discretize::Method;
 use crate::error::Error;
-use crate::evaluate::{Evaluation, Figures, Point, PreparedLoop};
+use crate::evaluate::{Evaluation, Figures, Point, PreparedLoop, Transport};
+use crate::hold::HoldKind;
 use crate::feasibility::{Assessment, LimitCheck, assess, check_figures};
 use crate::precision::{self, Damage, Format, Structure};
 use crate::search::{
@@ -32,11 +33,20 @@ pub fn prepare(case: &Case) -> Result<PreparedLoop, Error> {
         band: case.spec.settling_band_pct / 100.0,
         ..TimeOptions::default()
     };
-    PreparedLoop::new(&m.plant, &m.sensor, &m.controller, case.prewarp_hz, time).map_err(|e| {
-        Error::Model {
-            context: format!("{}: preparing the loop", case.source.display()),
-            source: e,
-        }
+    PreparedLoop::with_transport(
+        &m.plant,
+        &m.sensor,
+        &m.controller,
+        case.prewarp_hz,
+        time,
+        Transport {
+            plant_s: case.plant_delay_s,
+            sensor_s: case.sensor_delay_s,
+        },
+    )
+    .map_err(|e| Error::Model {
+        context: format!("{}: preparing the loop", case.source.display()),
+        source: e,
     })
 }
 
@@ -92,13 +102,23 @@ pub fn case_grid(case: &Case, lp: &PreparedLoop) -> Vec<Point> {
         Controller::Discrete(d) => vec![1.0 / d.period_s],
         Controller::Continuous(_) => case.rates.grid(),
     };
-    sweep::grid(&rates, &case_methods(case), &case.compute_delays)
+    sweep::grid_holds(
+        &rates,
+        &case_methods(case),
+        &case.holds,
+        &case.compute_delays,
+    )
 }
 
 /// The recommended design.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Recommended {
     pub method: String,
+    /// The actuator's hold kind.
+    pub hold: HoldKind,
+    /// Why this hold, in words (the cheapest passing one, against the
+    /// other kinds the case lists).
+    pub hold_basis: String,
     pub compute_delay: f64,
     /// `f_star` of this method, Hz.
     pub slowest_rate_hz: f64,
@@ -337,6 +357,8 @@ pub fn pick(
         Some(r) => r.methods.iter().map(|m| m.rate.clone()).collect(),
         None => report.methods.clone(),
     };
+    // The cheapest passing (method, hold): the lowest f_star; on a tie the
+    // first in case order (min_by keeps the first of equals).
     let best = answers
         .iter()
         .filter(|m| m.compute_delay == design_delay)
@@ -390,10 +412,12 @@ pub fn pick(
             case.rates.max_hz
         ));
     }
+    let hold = best.hold;
     let p = Point {
         rate_hz: rate,
         method,
         delay: design_delay,
+        hold,
     };
     let eval: Evaluation = lp.sampled(&p);
     let a = assess(&eval, spec);
@@ -439,6 +463,8 @@ pub fn pick(
             ),
         },
         method: best.method.clone(),
+        hold,
+        hold_basis: hold_basis(case, &answers, &best.method, hold, f_star, design_delay),
         compute_delay: design_delay,
         slowest_rate_hz: f_star,
         rate_hz: rate,
@@ -462,6 +488,7 @@ pub fn pick(
         let crossover = eval.figures.as_ref().and_then(|f| f.crossover_hz);
         let at = Chosen {
             method,
+            hold,
             rate_hz: rate,
             crossover_hz: crossover,
         };
@@ -515,12 +542,16 @@ pub fn pick(
     report
 }
 
-/// Rows grouped by (method, delay) in grid order, each sorted by rate.
+/// Rows grouped by (method, hold, delay) in grid order, each sorted by rate.
 fn series_of(rows: &[SweepRow]) -> Vec<Vec<&SweepRow>> {
     let mut series: Vec<Vec<&SweepRow>> = Vec::new();
     for r in rows {
         match series.last_mut() {
-            Some(s) if s[0].point.method == r.point.method && s[0].point.delay == r.point.delay => {
+            Some(s)
+                if s[0].point.method == r.point.method
+                    && s[0].point.hold == r.point.hold
+                    && s[0].point.delay == r.point.delay =>
+            {
                 s.push(r)
             }
             _ => series.push(vec![r]),
@@ -547,7 +578,7 @@ fn robust_report(
         .par_iter()
         .zip(nominal.par_iter())
         .map(|(s, nominal)| {
-            let (method, delay) = (s[0].point.method, s[0].point.delay);
+            let (method, delay, hold) = (s[0].point.method, s[0].point.delay, s[0].point.hold);
             let grid: Vec<(f64, &Assessment, usize)> = s
                 .iter()
                 .filter_map(|r| {
@@ -564,6 +595,7 @@ fn robust_report(
                     rate_hz: rate,
                     method,
                     delay,
+                    hold,
                 };
                 let c = lp.controller_at(rate, method);
                 let (_, v) =
@@ -573,7 +605,7 @@ fn robust_report(
                     .push((rate, v.assessment.clone(), v.worst));
                 v.assessment
             };
-            let mut rate = slowest_rate_by(method, delay, &coarse, &judge);
+            let mut rate = slowest_rate_by(method, hold, delay, &coarse, &judge);
             // Both answers are brackets of width 1e-4; where the nominal
             // bracket ends above the robust one, its passing end also passes
             // every variant (it lies above the robust answer), so report it:
@@ -645,12 +677,13 @@ fn robust_report(
 /// The recommended method and rate, and the nominal loop's crossover there.
 struct Chosen {
     method: Option<Method>,
+    hold: HoldKind,
     rate_hz: f64,
     crossover_hz: Option<f64>,
 }
 
 /// Precision ceilings for every method with an answer at the design delay
-/// (searched upward from its `f_star` times the headroom, on the nominal
+/// with the recommended hold (searched upward from its `f_star` times the headroom, on the nominal
 /// plant), and the damage at the recommended rate.
 fn precision_report(
     case: &Case,
@@ -661,6 +694,7 @@ fn precision_report(
     observer: &dyn SearchObserver,
 ) -> PrecisionReport {
     let (recommended_method, recommended_rate) = (chosen.method, chosen.rate_hz);
+    let hold = chosen.hold;
     let recommended_crossover_hz = chosen.crossover_hz;
     let Some(arith) = case.arithmetic.as_ref() else {
         unreachable!("precision_report is called only with [arithmetic]")
@@ -681,7 +715,9 @@ fn precision_report(
     for m in case_methods(case) {
         let Some(f_star) = answers
             .iter()
-            .find(|a| a.method == method_label(m) && a.compute_delay == design_delay)
+            .find(|a| {
+                a.method == method_label(m) && a.hold == hold && a.compute_delay == design_delay
+            })
             .and_then(|a| a.slowest_rate_hz)
         else {
             continue;
@@ -700,7 +736,9 @@ fn precision_report(
         .map(|&(m, from, format)| {
             let series: Vec<&SweepRow> = rows
                 .iter()
-                .filter(|r| r.point.method == m && r.point.delay == design_delay)
+                .filter(|r| {
+                    r.point.method == m && r.point.hold == hold && r.point.delay == design_delay
+                })
                 .collect();
             let ceiling = match evaluated.iter().position(|f| *f == format) {
                 None => {
@@ -719,6 +757,7 @@ fn precision_report(
                             rate_hz: rate,
                             method: m,
                             delay: design_delay,
+                            hold,
                         };
                         let a = precision::judge_point(
                             lp,
@@ -762,6 +801,7 @@ fn precision_report(
         rate_hz: recommended_rate,
         method: recommended_method,
         delay: design_delay,
+        hold,
     };
     let at_recommended = arith
         .formats
@@ -854,7 +894,7 @@ fn empty_window_advice(
         let answers = report.answers();
         let lim = answers
             .iter()
-            .find(|m| m.method == r.method && m.compute_delay == r.compute_delay)
+            .find(|m| m.method == r.method && m.hold == r.hold && m.compute_delay == r.compute_delay)
             .and_then(|m| m.limiting.clone())
             .unwrap_or_default();
         out.push(format!(
@@ -869,9 +909,11 @@ fn empty_window_advice(
         out.extend(other_method_advice(case, lp, report, b, ceiling));
     }
     let answers = report.answers();
+    let rec_hold = report.recommended.as_ref().map(|r| r.hold);
     let shorter: Vec<String> = answers
         .into_iter()
         .filter(|_| cpu_bound)
+        .filter(|m| Some(m.hold) == rec_hold)
         .filter(|m| m.compute_delay < report.design_delay)
         .filter_map(|m| m.slowest_rate_hz.map(|f| (m, f)))
         .filter(|(_, f)| f * case.spec.headroom <= ceiling)
@@ -915,9 +957,11 @@ fn other_method_advice(
         .map_or(Structure::Df2t, |a| a.structure);
     let integrators = precision::design_integrators(&lp.controller);
     let answers = report.answers();
+    let rec_hold = report.recommended.as_ref().map(|r| r.hold);
     let at_design: Vec<(Method, f64)> = answers
         .iter()
         .filter(|a| a.compute_delay == report.design_delay)
+        .filter(|a| rec_hold.is_none_or(|h| a.hold == h))
         .filter_map(|a| {
             let m = case.methods.iter().find(|m| m.name() == a.method)?;
             Some((*m, a.slowest_rate_hz?))
@@ -973,4 +1017,46 @@ fn other_method_advice(
         "a method with a lower f_star: at most {} Hz would fit the CPU ceiling with the headroom ({lowest}{untried})",
         fmt_num(need)
     ))
+}
+
+/// Why the recommended hold: the cheapest passing one at the design delay
+/// (lowest `f_star`, ties to the first listed), set against the best
+/// `f_star` of every other hold kind the case lists.
+fn hold_basis(
+    case: &Case,
+    answers: &[SlowestRate],
+    method: &str,
+    hold: HoldKind,
+    f_star: f64,
+    design_delay: f64,
+) -> String {
+    if case.holds.len() < 2 {
+        return format!("{hold}: the only hold kind the case lists");
+    }
+    let others: Vec<String> = case
+        .holds
+        .iter()
+        .filter(|&&h| h != hold)
+        .map(|&h| {
+            let best = answers
+                .iter()
+                .filter(|a| a.hold == h && a.compute_delay == design_delay)
+                .filter_map(|a| a.slowest_rate_hz.map(|f| (a, f)))
+                .min_by(|a, b| a.1.total_cmp(&b.1));
+            match best {
+                Some((a, f)) if f == f_star => format!(
+                    "{h} ties at {} Hz ({}) but is listed later",
+                    fmt_num(f),
+                    a.method
+                ),
+                Some((a, f)) => format!("{h} needs {} Hz ({})", fmt_num(f), a.method),
+                None => format!("{h} meets the spec with no method up to max_hz"),
+            }
+        })
+        .collect();
+    format!(
+        "{hold}: the lowest slowest rate at delay {design_delay}, {} Hz with {method}; {}",
+        fmt_num(f_star),
+        others.join("; ")
+    )
 }

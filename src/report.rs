@@ -200,18 +200,21 @@ fn answer(report: &PickReport, rec: &Recommended) -> String {
         .unwrap_or_default();
     if rec.method == "given-in-z" {
         return format!(
-            "**Answer:** run the controller given in z at its own rate, **{} Hz** (period **{} s**{timer}), with the output applied {} of a period after sampling; {load}. A controller given in z runs only at its own rate, so no headroom is applied.",
+            "**Answer:** run the controller given in z at its own rate, **{} Hz** (period **{} s**{timer}), with the output applied {} periods after sampling through a {} hold; {load}. A controller given in z runs only at its own rate, so no headroom is applied.",
             fmt_num(rec.rate_hz),
             fmt_num(rec.period_s),
             fmt_num(rec.compute_delay),
+            rec.hold,
         );
     }
     format!(
-        "**Answer:** run the controller discretized by `{}` at **{} Hz** (period **{} s**{timer}) with the output applied {} of a period after sampling; {load}. This is the slowest {}, {} Hz, times the headroom {}.",
+        "**Answer:** run the controller discretized by `{}` at **{} Hz** (period **{} s**{timer}) with the output applied {} periods after sampling through a **{}** hold ({}); {load}. This is the slowest {}, {} Hz, times the headroom {}.",
         rec.method,
         fmt_num(rec.rate_hz),
         fmt_num(rec.period_s),
         fmt_num(rec.compute_delay),
+        rec.hold,
+        rec.hold_basis,
         if report.robust.is_some() {
             "rate passing on every plant variant"
         } else {
@@ -361,6 +364,7 @@ fn blocks(
     b.push(Block::Table(
         vec![
             "method".into(),
+            "hold".into(),
             "computation delay (of T)".into(),
             "f* (Hz)".into(),
             "limiting figure".into(),
@@ -383,6 +387,7 @@ fn blocks(
                     .join(", ");
                 vec![
                     m.method.clone(),
+                    m.hold.name().into(),
                     fmt_num(m.compute_delay),
                     f,
                     m.limiting.clone().unwrap_or_else(|| "-".into()),
@@ -436,6 +441,7 @@ fn blocks(
         b.push(Block::Table(
             vec![
                 "method".into(),
+                "hold".into(),
                 "computation delay (of T)".into(),
                 "robust f* (Hz)".into(),
                 "nominal f* (Hz)".into(),
@@ -447,6 +453,7 @@ fn blocks(
                 .map(|m| {
                     vec![
                         m.rate.method.clone(),
+                        m.rate.hold.name().into(),
                         fmt_num(m.rate.compute_delay),
                         m.rate.slowest_rate_hz.map_or("none".into(), fmt_num),
                         m.nominal_slowest_rate_hz.map_or("none".into(), fmt_num),

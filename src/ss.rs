@@ -386,6 +386,30 @@ pub fn hold_integrals(
     ))
 }
 
+/// Van Loan's augmented exponential for an input that ramps over `h`
+/// seconds: returns `(e^{A h}, G, H)` with `G = integral_0^h e^{A s} ds B`
+/// (the held input's integral, as `hold_integrals`) and
+/// `H = integral_0^h e^{A (h - s)} s ds B` (a unit-slope ramp's), so an
+/// input `a + b s` on `[0, h)` moves the state by `G a + H b`. One
+/// exponential of `[[A, B, 0], [0, 0, 1], [0, 0, 0]] h`; no inverse of `A`.
+pub fn ramp_integrals(
+    a: &DMatrix<f64>,
+    b: &DVector<f64>,
+    h: f64,
+) -> Result<(DMatrix<f64>, DVector<f64>, DVector<f64>), ModelError> {
+    let n = a.nrows();
+    let mut m = DMatrix::zeros(n + 2, n + 2);
+    m.view_mut((0, 0), (n, n)).copy_from(&(a * h));
+    m.view_mut((0, n), (n, 1)).copy_from(&(b * h));
+    m[(n, n + 1)] = h;
+    let e = expm(&m)?;
+    Ok((
+        e.view((0, 0), (n, n)).into_owned(),
+        e.view((0, n), (n, 1)).column(0).into_owned(),
+        e.view((0, n + 1), (n, 1)).column(0).into_owned(),
+    ))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

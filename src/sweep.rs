@@ -14,6 +14,7 @@ use crate::case::{Arithmetic, Budget, Case, Spec};
 use crate::discretize::Method;
 use crate::evaluate::{Evaluation, PlantAt, Point, PreparedLoop};
 use crate::feasibility::{Assessment, assess};
+use crate::hold::HoldKind;
 use crate::precision::{self, Format, PrecisionPoint, Structure};
 use crate::variants::{RobustPoint, VariantSet};
 
@@ -103,17 +104,32 @@ impl<'a> Plan<'a> {
     }
 }
 
-/// The grid, ordered by method, then delay, then ascending rate.
+/// The grid with a zero-order hold, ordered by method, then delay, then
+/// ascending rate.
 pub fn grid(rates: &[f64], methods: &[Option<Method>], delays: &[f64]) -> Vec<Point> {
-    let mut out = Vec::with_capacity(rates.len() * methods.len() * delays.len());
+    grid_holds(rates, methods, &[HoldKind::ZeroOrder], delays)
+}
+
+/// The grid, ordered by method, then hold kind, then delay, then
+/// ascending rate.
+pub fn grid_holds(
+    rates: &[f64],
+    methods: &[Option<Method>],
+    holds: &[HoldKind],
+    delays: &[f64],
+) -> Vec<Point> {
+    let mut out = Vec::with_capacity(rates.len() * methods.len() * holds.len() * delays.len());
     for &method in methods {
-        for &delay in delays {
-            for &rate_hz in rates {
-                out.push(Point {
-                    rate_hz,
-                    method,
-                    delay,
-                });
+        for &hold in holds {
+            for &delay in delays {
+                for &rate_hz in rates {
+                    out.push(Point {
+                        rate_hz,
+                        method,
+                        delay,
+                        hold,
+                    });
+                }
             }
         }
     }
@@ -125,7 +141,7 @@ pub fn evaluate_row(plan: &Plan, p: &Point) -> SweepRow {
     evaluate_row_on(plan, p, None)
 }
 
-/// The plant side at one (rate, delay), built once for the methods of a
+/// The plant side at one (rate, delay, hold), built once for the methods of a
 /// sweep group: one per plant variant, or only the nominal loop's (index
 /// 0 is always the nominal one).
 struct Plants(Vec<Result<PlantAt, String>>);
@@ -193,17 +209,17 @@ fn evaluate_row_on(plan: &Plan, p: &Point, plants: Option<&Plants>) -> SweepRow 
 /// Evaluate every point in parallel on the current rayon pool; `on_done`
 /// is called once per finished point (progress display).
 ///
-/// The hold + delay + plant equivalent depends on the rate and the delay
-/// but not on the method, so the points are taken in groups that share
-/// (rate, delay), each group building it once (about 5 % of a point's
+/// The hold + delay + plant equivalent depends on the rate, the delay and
+/// the hold kind but not on the method, so the points are taken in groups
+/// that share (rate, delay, hold), each group building it once (about 5 % of a point's
 /// work, saved for all methods but one). Each point is still computed
 /// alone from the same inputs, and the rows come back in grid order, so
 /// the results do not depend on the grouping or the thread count.
 pub fn run(plan: &Plan, points: &[Point], on_done: &(dyn Fn() + Sync)) -> Vec<SweepRow> {
     let mut groups: Vec<Vec<usize>> = Vec::new();
-    let mut index: HashMap<(u64, u64), usize> = HashMap::new();
+    let mut index: HashMap<(u64, u64, HoldKind), usize> = HashMap::new();
     for (i, p) in points.iter().enumerate() {
-        let key = (p.rate_hz.to_bits(), p.delay.to_bits());
+        let key = (p.rate_hz.to_bits(), p.delay.to_bits(), p.hold);
         let g = *index.entry(key).or_insert_with(|| {
             groups.push(Vec::new());
             groups.len() - 1
