@@ -1532,7 +1532,9 @@ impl Case {
         let controller = controller_from(&ctx, raw_controller)?;
         let assumed_hold = match (assumed_hold, &controller) {
             (None, _) => None,
-            (Some(h), ControllerModel::Discrete(_)) => Some(hold_kind(&ctx, "controller.hold", &h)?),
+            (Some(h), ControllerModel::Discrete(_)) => {
+                Some(hold_kind(&ctx, "controller.hold", &h)?)
+            }
             (Some(_), ControllerModel::Continuous(_)) => {
                 return Err(ctx.invalid(
                     "controller.hold",

@@ -606,7 +606,8 @@ impl PreparedLoop {
         (total > 0.0).then(|| {
             (
                 total,
-                pade.as_ref().unwrap_or_else(|| ONE.get_or_init(|| Tf::gain(1.0))),
+                pade.as_ref()
+                    .unwrap_or_else(|| ONE.get_or_init(|| Tf::gain(1.0))),
             )
         })
     }

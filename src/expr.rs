@@ -455,8 +455,7 @@ impl Parser {
                 col: t.col,
             },
             Tok::Ident(name)
-                if name == "exp"
-                    && matches!(self.peek().map(|t| &t.tok), Some(Tok::LParen)) =>
+                if name == "exp" && matches!(self.peek().map(|t| &t.tok), Some(Tok::LParen)) =>
             {
                 return Err(ExprError::new(
                     t.col,

@@ -157,11 +157,9 @@ impl HoldKind {
         let zoh = Tf::new(d.sub(&n).shift_down(1).scale(1.0 / period_s), d);
         let shape = match self {
             HoldKind::ZeroOrder => zoh,
-            HoldKind::FirstOrder => {
-                Tf::new(Poly::from_descending(&[period_s, 1.0]), Poly::one())
-                    .series(&zoh)
-                    .series(&zoh)
-            }
+            HoldKind::FirstOrder => Tf::new(Poly::from_descending(&[period_s, 1.0]), Poly::one())
+                .series(&zoh)
+                .series(&zoh),
             HoldKind::Interpolating => zoh.series(&zoh),
         };
         if delay_s > 0.0 {
@@ -362,7 +360,11 @@ fn integrals(
 ) -> Result<(DMatrix<f64>, DVector<f64>, DVector<f64>), ModelError> {
     let n = a.nrows();
     if h <= 0.0 {
-        return Ok((DMatrix::identity(n, n), DVector::zeros(n), DVector::zeros(n)));
+        return Ok((
+            DMatrix::identity(n, n),
+            DVector::zeros(n),
+            DVector::zeros(n),
+        ));
     }
     if ramp {
         ramp_integrals(a, b, h)
@@ -412,9 +414,8 @@ impl HoldEquivalent {
             (0, 0.0)
         };
         let measure_at = (q > 0 && offset > 0.0).then_some(offset);
-        let mut eq = HoldEquivalent::fractional(
-            model, period_s, fraction, act.hold, points, measure_at,
-        )?;
+        let mut eq =
+            HoldEquivalent::fractional(model, period_s, fraction, act.hold, points, measure_at)?;
         if whole > 0 {
             eq = eq.delayed_by(whole);
         }
@@ -547,7 +548,11 @@ impl HoldEquivalent {
         let (e_b, g_b, h_b) = if b_off > 1e-15 * h {
             integrals(a, b, b_off, ramp)?
         } else {
-            (DMatrix::identity(n, n), DVector::zeros(n), DVector::zeros(n))
+            (
+                DMatrix::identity(n, n),
+                DVector::zeros(n),
+                DVector::zeros(n),
+            )
         };
         let mut rows = Vec::with_capacity(points);
         for j in 0..points {

@@ -12,8 +12,8 @@ use crate::case::{Case, UncertaintyMode};
 use crate::discretize::Method;
 use crate::error::Error;
 use crate::evaluate::{Evaluation, Figures, Point, PreparedLoop, Transport};
-use crate::hold::HoldKind;
 use crate::feasibility::{Assessment, LimitCheck, assess, check_figures};
+use crate::hold::HoldKind;
 use crate::precision::{self, Damage, Format, Structure};
 use crate::search::{
     Ceiling, SearchObserver, SlowestRate, fastest_rate_by, method_label, slowest_rate,
@@ -894,7 +894,9 @@ fn empty_window_advice(
         let answers = report.answers();
         let lim = answers
             .iter()
-            .find(|m| m.method == r.method && m.hold == r.hold && m.compute_delay == r.compute_delay)
+            .find(|m| {
+                m.method == r.method && m.hold == r.hold && m.compute_delay == r.compute_delay
+            })
             .and_then(|m| m.limiting.clone())
             .unwrap_or_default();
         out.push(format!(
