@@ -41,6 +41,7 @@ pub const CPU_BUDGET: &str = "cpu-budget.png";
 pub const HOLD_APPROXIMATION: &str = "hold-approximation.png";
 pub const DISTURBANCE: &str = "disturbance.png";
 pub const PRECISION: &str = "precision.png";
+pub const HOLD_KINDS: &str = "hold-kinds.png";
 
 /// Rates of the hold-approximation chart (log-spaced over the case's range).
 const HOLD_CHART_RATES: usize = 40;
@@ -112,7 +113,7 @@ pub fn write_charts(
         case.title,
         env!("CARGO_PKG_VERSION")
     );
-    let jobs: [(&str, Builder); 7] = [
+    let jobs: [(&str, Builder); 8] = [
         (FIGURES_VS_RATE, figures_vs_rate),
         (STEP_RESPONSE, step_response),
         (LOOP_RESPONSE, loop_response),
@@ -120,6 +121,7 @@ pub fn write_charts(
         (HOLD_APPROXIMATION, hold_approximation),
         (DISTURBANCE, disturbance),
         (PRECISION, precision_chart),
+        (HOLD_KINDS, hold_kinds),
     ];
     let written: Vec<Result<Option<PathBuf>, Error>> = jobs
         .par_iter()
@@ -395,6 +397,111 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
             // Near the stability edge an upper-limited figure runs off to
             // huge values; keep the view on the region around the limit
             // (the line leaves the top edge where it goes beyond).
+            if side == Side::Above {
+                let top = panel
+                    .series
+                    .iter()
+                    .flat_map(|s| s.points.iter().map(|p| p.1))
+                    .filter(|v| v.is_finite())
+                    .fold(f64::NEG_INFINITY, f64::max);
+                if top > 3.0 * v {
+                    panel.y = panel.y.clone().with_range(0.0, 3.0 * v);
+                }
+            }
+            panel.limits.push(Limit::new(v, side, text));
+        }
+        fig = fig.with_panel(panel);
+    }
+    Some(fig)
+}
+
+/// Phase margin and overshoot against the rate, one series per hold kind
+/// the case lists, at the recommended method and the design delay (a
+/// recommendation is needed; every case has at least one hold kind, so a
+/// single-hold case draws one series).
+fn hold_kinds(inp: &Inputs) -> Option<Figure> {
+    let (rec, method) = inp.rec?;
+    let mut series: Vec<(HoldKind, Vec<&SweepRow>)> = Vec::new();
+    for &h in &inp.case.holds {
+        let mut rows: Vec<&SweepRow> = inp
+            .rows
+            .iter()
+            .filter(|r| {
+                r.point.method == method
+                    && r.point.hold == h
+                    && r.point.delay == inp.report.design_delay
+            })
+            .collect();
+        if rows.is_empty() {
+            continue;
+        }
+        rows.sort_by(|a, b| a.point.rate_hz.total_cmp(&b.point.rate_hz));
+        series.push((h, rows));
+    }
+    if series.is_empty() {
+        return None;
+    }
+    let spec = &inp.case.spec;
+    let (lo, hi) = (inp.case.rates.min_hz, inp.case.rates.max_hz);
+    let mut fig = Figure::new(
+        format!(
+            "Hold kinds: {} at computation delay {} T (hatched side of a limit fails; gaps: unstable)",
+            rec.method,
+            fmt_num(inp.report.design_delay)
+        ),
+        rate_axis().with_range(lo, hi),
+    );
+    let f_star_of = |h: HoldKind| {
+        inp.report
+            .answers()
+            .into_iter()
+            .find(|a| {
+                a.method == rec.method && a.hold == h && a.compute_delay == inp.report.design_delay
+            })
+            .and_then(|a| a.slowest_rate_hz)
+    };
+    let panels: [PanelSpec; 2] = [
+        (
+            "PM (deg)",
+            phase_margin,
+            spec.min_phase_margin_deg
+                .map(|l| (l, Side::Below, format!("min {} deg", fmt_num(l)))),
+        ),
+        (
+            "overshoot (%)",
+            overshoot,
+            spec.max_overshoot_pct
+                .map(|l| (l, Side::Above, format!("max {} %", fmt_num(l)))),
+        ),
+    ];
+    for (i, (label, get, limit)) in panels.into_iter().enumerate() {
+        let mut panel = Panel::new(Axis::linear(label));
+        for (k, (h, rows)) in series.iter().enumerate() {
+            let pts = rows
+                .iter()
+                .map(|r| (r.point.rate_hz, figure_of(&r.eval, get)))
+                .collect();
+            let name = if i == 0 {
+                match f_star_of(*h) {
+                    Some(f) => format!("{h} (f* {})", hz(f)),
+                    None => format!("{h} (no f*)"),
+                }
+            } else {
+                String::new()
+            };
+            panel
+                .series
+                .push(Series::line(name, pts, k).drawn(Draw::LineAndMarkers));
+            if let Some(f) = f_star_of(*h) {
+                let text = if i == 0 {
+                    format!("f* {h}")
+                } else {
+                    String::new()
+                };
+                panel.vmarks.push(VMark::new(f, text, MarkStyle::Dashed));
+            }
+        }
+        if let Some((v, side, text)) = limit {
             if side == Side::Above {
                 let top = panel
                     .series

@@ -601,9 +601,16 @@ fn blocks(
             "Every figure is computed from the models above (nominal parameter values): the exact sampled-data loop, with the plant output evaluated between samples.".to_string()
         },
         format!(
-            "The controller's output is applied {} of a period after each sample (the computation delay the recommendation is made at: the largest the case lists).",
+            "The controller's output is applied {} periods after each sample (the computation delay the recommendation is made at: the largest the case lists).",
             fmt_num(report.design_delay)
         ),
+        match &report.recommended {
+            Some(r) => format!("The actuator holds each command as a {} hold. {}.", r.hold, r.hold_basis),
+            None => format!(
+                "Hold kinds evaluated: {}.",
+                case.holds.iter().map(|h| h.name()).collect::<Vec<_>>().join(", ")
+            ),
+        },
         format!(
             "The headroom factor {} on the slowest passing rate is what covers model error, parameter drift and unmodelled dynamics; it is not a guarantee.",
             fmt_num(report.headroom)
@@ -613,6 +620,14 @@ fn blocks(
             fmt_num(case.spec.settling_band_pct)
         ),
     ];
+    if case.plant_delay_s > 0.0 || case.sensor_delay_s > 0.0 {
+        assumptions.push(format!(
+            "Transport delays: {} s at the plant, {} s on the measurement. They are exact in the sampled loop (whole periods as unit delays, the fraction exact) and in the continuous design's loop gain; the continuous design's step and load responses and poles use their Pade [{n}/{n}] approximant.",
+            fmt_num(case.plant_delay_s),
+            fmt_num(case.sensor_delay_s),
+            n = crate::evaluate::TRANSPORT_PADE_ORDER
+        ));
+    }
     assumptions.extend(report.notes.iter().map(|n| format!("Note: {n}.")));
     b.push(Block::List(assumptions));
 
@@ -638,7 +653,10 @@ fn chart_caption(name: &str) -> &'static str {
             "CPU load against the rate, the budget line and the rate window."
         }
         crate::charts::HOLD_APPROXIMATION => {
-            "Where the usual continuous approximations of hold and delay stop agreeing with the exact sampled loop."
+            "Where the usual continuous approximations of hold and delay (a lag and Pade approximants of the hold's low-frequency delay, and the hold's own transfer function by [2/2] Pade) stop agreeing with the exact sampled loop."
+        }
+        crate::charts::HOLD_KINDS => {
+            "Phase margin and overshoot against the rate with each hold kind the case lists, at the recommended method and delay, with each hold's f*."
         }
         crate::charts::DISTURBANCE => {
             "Response to a unit load step at the plant input, at the recommended rate and at f*."
