@@ -856,9 +856,14 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
             hz(w.high_hz)
         ),
         (Some(w), _) => format!(
-            "CPU load vs rate: rate window {} to {} (shaded)",
+            "CPU load vs rate: rate window {} to {} (shaded){}",
             hz(w.low_hz),
-            hz(w.high_hz)
+            hz(w.high_hz),
+            if w.high_bound.starts_with("last rate checked") {
+                ", cut at the last rate checked"
+            } else {
+                ""
+            }
         ),
         (None, Some(_)) => {
             "CPU load vs rate (the load of the recommended controller is unknown)".to_string()

@@ -247,6 +247,8 @@ pub struct HoldEquivalent {
     pub hold_states: usize,
     /// Measurement pipeline length (sensor transport delay), periods.
     pub measure_periods: usize,
+    /// The sensor transport delay it was built for, s.
+    pub sensor_delay_s: f64,
     pub phi: DMatrix<f64>,
     pub gamma0: DVector<f64>,
     pub gamma1: DVector<f64>,
@@ -422,6 +424,7 @@ impl HoldEquivalent {
         if q > 0 {
             eq = eq.measured_late(q);
         }
+        eq.sensor_delay_s = act.sensor_delay_s;
         Ok(eq)
     }
 
@@ -639,6 +642,7 @@ impl HoldEquivalent {
             delay_periods: 0,
             hold_states: k,
             measure_periods: 0,
+            sensor_delay_s: 0.0,
             gamma_w: widen(&gamma_w, 0.0),
             phi: phi_k,
             gamma0: widen(&gamma0, 0.0),
@@ -714,6 +718,7 @@ impl HoldEquivalent {
             delay_periods: m,
             hold_states: self.hold_states,
             measure_periods: self.measure_periods,
+            sensor_delay_s: self.sensor_delay_s,
             phi,
             gamma0: DVector::zeros(dim),
             gamma1,
@@ -771,6 +776,7 @@ impl HoldEquivalent {
             delay_periods: self.delay_periods,
             hold_states: self.hold_states,
             measure_periods: q,
+            sensor_delay_s: self.sensor_delay_s,
             phi,
             gamma0,
             gamma1,
@@ -794,7 +800,17 @@ impl HoldEquivalent {
         }
     }
 
-    /// The whole delay in periods, `delay_periods + delay_fraction`.
+    /// What this equivalent was built for (hold, whole delay, sensor
+    /// delay): `HoldEquivalent::with` of it builds it again.
+    pub fn actuation(&self) -> Actuation {
+        Actuation {
+            hold: self.hold,
+            delay_periods: self.delay_total(),
+            sensor_delay_s: self.sensor_delay_s,
+        }
+    }
+
+    /// The whole actuator delay in periods, `delay_periods + delay_fraction`.
     pub fn delay_total(&self) -> f64 {
         self.delay_periods as f64 + self.delay_fraction
     }

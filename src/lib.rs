@@ -11,6 +11,7 @@ pub mod certificate;
 pub mod charts;
 pub mod closed_loop;
 pub mod continuous;
+pub mod delay_margin;
 pub mod discretize;
 pub mod error;
 pub mod evaluate;

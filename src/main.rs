@@ -253,7 +253,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 delay,
                 hold,
             };
-            let exact = lp.sampled(&p);
+            let exact = lp.sampled_exact(&p);
             let approx: Vec<(HoldApprox, _)> = if matches!(lp.controller, Controller::Continuous(_))
             {
                 HoldApprox::ALL

@@ -419,7 +419,7 @@ pub fn pick(
         delay: design_delay,
         hold,
     };
-    let eval: Evaluation = lp.sampled(&p);
+    let eval: Evaluation = lp.sampled_exact(&p);
     let a = assess(&eval, spec);
     let controller = lp.controller_at(rate, method).ok();
     let (cycles, load) = match case.budget.as_ref() {
@@ -522,6 +522,22 @@ pub fn pick(
         (None, Some(p)) => Some(p),
         (None, None) => None,
     };
+    // A window claims only rates that were checked: the spec (and the
+    // coefficients) are known to hold up to the top of the swept range,
+    // so a ceiling above it is cut there and the bound says so.
+    let max_hz = case.rates.max_hz;
+    let top = top.map(|(high, bound)| {
+        if high > max_hz {
+            (
+                max_hz,
+                format!(
+                    "last rate checked (max_hz = {max_hz} Hz; {bound} would allow up to {high:.6} Hz, not checked)"
+                ),
+            )
+        } else {
+            (high, bound)
+        }
+    });
     if let Some((high, bound)) = top {
         let w = if high.is_finite() {
             RateWindow::new(rate, high, bound)

@@ -169,7 +169,13 @@ fn figure_rows(f: &Figures) -> Vec<(&'static str, &'static str, Option<f64>, &'s
             "delay_margin_s",
             "delay margin (s)",
             f.delay_margin_s,
-            "infinite",
+            f.delay_margin_missing(),
+        ),
+        (
+            "delay_margin_estimate_s",
+            "delay margin estimate (s)",
+            f.delay_margin_estimate_s,
+            "inf",
         ),
         (
             "sensitivity_peak",

@@ -112,7 +112,12 @@ fn figure_rows(f: Option<&Figures>) -> Vec<(&'static str, &'static str, String)>
         (
             "delay_margin_s",
             "delay margin (s)",
-            g(&|f| fmt_opt(f.delay_margin_s, "inf")),
+            g(&|f| fmt_opt(f.delay_margin_s, f.delay_margin_missing())),
+        ),
+        (
+            "delay_margin_estimate_s",
+            "delay margin estimate (s)",
+            g(&|f| fmt_opt(f.delay_margin_estimate_s, "inf")),
         ),
         (
             "sensitivity_peak",

@@ -533,16 +533,22 @@ const BAD: &[Bad] = &[
     ),
     // Timing.
     (
-        "compute delay above one",
-        &[("timing", "[timing]\ncompute_delay = 1.5\n")],
+        "compute delay negative",
+        &[("timing", "[timing]\ncompute_delay = -0.5\n")],
         "timing.compute_delay",
-        &["from 0 to 1", "1.5"],
+        &[">= 0", "-0.5"],
     ),
     (
         "compute delay negative in a list",
-        &[("timing", "[timing]\ncompute_delay = [0, -0.1]\n")],
-        "timing.compute_delay[1]",
-        &["from 0 to 1"],
+        &[("timing", "[timing]\ncompute_delay = [0, 1.5, -0.1]\n")],
+        "timing.compute_delay[2]",
+        &[">= 0"],
+    ),
+    (
+        "compute delay infinite",
+        &[("timing", "[timing]\ncompute_delay = inf\n")],
+        "timing.compute_delay",
+        &["finite"],
     ),
     (
         "compute delay not finite",

@@ -433,44 +433,100 @@ fn transport_delay_is_computation_delay_and_whole_periods_are_unit_delays() {
 #[test]
 fn margins_keep_their_meaning_with_every_hold() {
     // Definitions (loop model): the controller scaled by the gain margin
-    // (just short / just past) keeps / loses stability, with every hold.
-    let plant = tf(&[20.0], &[1.0, 7.0, 10.0]);
-    let sensor = tf(&[1.0], &[0.01, 1.0]);
-    let lp = PreparedLoop::new(
-        &plant,
-        &sensor,
-        &Controller::Continuous(tf(&[0.4, 2.0], &[1.0, 0.0])),
-        None,
-        TimeOptions::default(),
-    )
-    .unwrap();
-    for hold in HoldKind::ALL {
-        for delay in [0.0, 0.5, 1.5] {
-            let p = Point {
-                rate_hz: 40.0,
-                method: Some(Method::Tustin),
-                delay,
-                hold,
-            };
-            let e = lp.sampled(&p);
-            let f = e
-                .figures
-                .unwrap_or_else(|| panic!("{hold} {delay}: {:?}", e.status));
-            let gm = f.gain_margin_db.expect("a gain margin");
-            let k = 10f64.powf(gm / 20.0);
-            let c = lp.controller_at(p.rate_hz, p.method).unwrap();
-            let scaled = |s: f64| DiscreteTf {
-                tf: Tf::new(c.tf.num.scale(s), c.tf.den.clone()),
-                period_s: c.period_s,
-            };
-            assert!(
-                lp.sampled_with(&p, &scaled(k * 0.999)).stable,
-                "{hold} {delay}: unstable just short of GM {gm}"
-            );
-            assert!(
-                !lp.sampled_with(&p, &scaled(k * 1.001)).stable,
-                "{hold} {delay}: stable just past GM {gm}"
-            );
+    // (just short / just past) keeps / loses stability, and so does the
+    // loop with 0.98 / 1.02 times the delay margin added to the actuator
+    // delay, with every hold kind, delays 0, 0.5 and 1.5 periods, and a
+    // plant and a sensor transport delay. Invented loops: a PI on a
+    // second-order plant with a sensor lag, an open-loop-unstable plant
+    // held by a lead, a type-2 loop.
+    let loops: Vec<(&str, Tf, Tf, Tf, f64)> = vec![
+        (
+            "pi",
+            tf(&[20.0], &[1.0, 7.0, 10.0]),
+            tf(&[1.0], &[0.01, 1.0]),
+            tf(&[0.4, 2.0], &[1.0, 0.0]),
+            40.0,
+        ),
+        (
+            "unstable open loop",
+            tf(&[4.0], &[1.0, 0.0, -4.0]),
+            Tf::gain(1.0),
+            tf(&[3.0, 6.0], &[0.02, 1.0]),
+            300.0,
+        ),
+        (
+            "type 2",
+            tf(&[10.0], &[1.0, 0.0, 0.0]),
+            tf(&[1.0], &[0.002, 1.0]),
+            tf(&[1.0, 2.0], &[0.05, 1.0]),
+            200.0,
+        ),
+    ];
+    let mut checked = 0;
+    for (name, plant, sensor, c, rate) in loops {
+        let t = 1.0 / rate;
+        for transport in [
+            Transport::default(),
+            Transport {
+                plant_s: 0.3 * t,
+                sensor_s: 0.45 * t,
+            },
+        ] {
+            let lp = PreparedLoop::with_transport(
+                &plant,
+                &sensor,
+                &Controller::Continuous(c.clone()),
+                None,
+                TimeOptions::default(),
+                transport,
+            )
+            .unwrap();
+            for hold in HoldKind::ALL {
+                for delay in [0.0, 0.5, 1.5] {
+                    let p = Point {
+                        rate_hz: rate,
+                        method: Some(Method::Tustin),
+                        delay,
+                        hold,
+                    };
+                    let e = lp.sampled_exact(&p);
+                    let Some(f) = e.figures else {
+                        continue; // too much delay for this loop: nothing to check
+                    };
+                    let what = format!("{name} {hold} delay {delay} {transport:?}");
+                    let ctl = lp.controller_at(p.rate_hz, p.method).unwrap();
+                    let scaled = |s: f64| DiscreteTf {
+                        tf: Tf::new(ctl.tf.num.scale(s), ctl.tf.den.clone()),
+                        period_s: ctl.period_s,
+                    };
+                    if let Some(gm) = f.gain_margin_db {
+                        let k = |d: f64| 10f64.powf((gm + d * gm.signum()) / 20.0);
+                        assert!(
+                            lp.sampled_with(&p, &scaled(k(-0.05))).stable,
+                            "{what}: unstable just short of GM {gm}"
+                        );
+                        assert!(
+                            !lp.sampled_with(&p, &scaled(k(0.05))).stable,
+                            "{what}: stable just past GM {gm}"
+                        );
+                    }
+                    let dm = f.delay_margin_s.expect("a delay margin");
+                    let later = |x: f64| Point {
+                        delay: delay + x * dm * rate,
+                        ..p
+                    };
+                    assert!(
+                        lp.sampled(&later(0.98)).stable,
+                        "{what}: unstable at 0.98 x DM {dm}"
+                    );
+                    assert!(
+                        !lp.sampled(&later(1.02)).stable,
+                        "{what}: stable at 1.02 x DM {dm}"
+                    );
+                    checked += 1;
+                }
+            }
         }
     }
+    assert!(checked >= 30, "only {checked} stable points checked");
 }

@@ -14,8 +14,9 @@ fn tf(num: &[f64], den: &[f64]) -> Tf {
 }
 
 /// Brute force: 400 000 log-spaced points up to Nyquist; crossings by
-/// sign change with linear interpolation in ln w; margins from the
-/// nearest scan point. Returns (smallest PM deg, |GM| dB nearest 0, Ms).
+/// sign change; margins from the nearest scan point, plus both ends where
+/// the loop gain is real and negative (`docs/figures.md`). Returns (the PM
+/// of smallest size, sign kept; the GM nearest 0 dB, sign kept; Ms).
 fn scan(l: &dyn Fn(f64) -> C64, w_lo: f64, w_hi: f64) -> (Option<f64>, Option<f64>, f64) {
     let n = 400_000;
     let mut pm: Option<f64> = None;
@@ -36,7 +37,7 @@ fn scan(l: &dyn Fn(f64) -> C64, w_lo: f64, w_hi: f64) -> (Option<f64>, Option<f6
                 if p > 180.0 {
                     p -= 360.0;
                 }
-                pm = Some(pm.map_or(p, |m: f64| m.min(p)));
+                pm = Some(pm.map_or(p, |m: f64| if p.abs() < m.abs() { p } else { m }));
             }
             let (q0, q1) = (
                 ((pp + 180.0) / 360.0).floor(),
@@ -48,6 +49,13 @@ fn scan(l: &dyn Fn(f64) -> C64, w_lo: f64, w_hi: f64) -> (Option<f64>, Option<f6
             }
         }
         prev = Some((w, v, phase));
+    }
+    // The ends: w -> 0 when the loop gain is finite there, and Nyquist.
+    for v in [l(0.0), l(w_hi)] {
+        if v.re < 0.0 && v.im.abs() <= 1e-9 * v.norm() && v.norm().is_finite() {
+            let g = -20.0 * v.norm().log10();
+            gm = Some(gm.map_or(g, |m: f64| if g.abs() < m.abs() { g } else { m }));
+        }
     }
     (pm, gm, ms)
 }
