@@ -54,7 +54,7 @@ fn num(v: f64) -> String {
 /// The columns of `sweep.csv` every sweep has, in order. A case with
 /// `[uncertainty]` adds [`ROBUST_COLUMNS`], one with `[arithmetic]` adds
 /// [`PRECISION_COLUMNS`] per number format (prefixed `q15_` etc.).
-pub const SWEEP_COLUMNS: [&str; 24] = [
+pub const SWEEP_COLUMNS: [&str; 25] = [
     "rate_hz",
     "period_s",
     "method",
