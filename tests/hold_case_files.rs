@@ -15,7 +15,12 @@ fn case(plant: &str, sensor: &str, controller: &str, timing: &str) -> String {
          [controller]\n{controller}\n\
          [timing]\n{timing}\n\
          [rates]\nmin_hz = 10\nmax_hz = 1000\npoints = 20\n\
-         [spec]\nmax_overshoot_pct = 20\n"
+         [spec]\nmax_overshoot_pct = 20\n{}",
+        if controller.contains("tf =") {
+            "[methods]\nuse = [\"tustin\"]\n"
+        } else {
+            ""
+        }
     )
 }
 
