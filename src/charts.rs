@@ -1028,8 +1028,9 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
     ];
     let mut fig = Figure::new(
         format!(
-            "Hold approximations vs the exact sampled loop ({}, computation delay {} T)",
+            "Hold approximations vs the exact sampled loop ({}, {} hold, computation delay {} T)",
             rec.method,
+            rec.hold,
             fmt_num(inp.report.design_delay)
         ),
         rate_axis().with_range(lo, hi),
@@ -1057,7 +1058,12 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
                     .zip(&evals)
                     .map(|(&f, (_, a))| (f, figure_of(&a[k], get)))
                     .collect(),
-                k + 1,
+                // Styles 1, 2, 3, then 5: 4 is the continuous design's.
+                if k + 1 >= STYLE_CONTINUOUS {
+                    k + 2
+                } else {
+                    k + 1
+                },
             ));
         }
         if let Some(v) = get(design) {

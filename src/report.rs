@@ -611,10 +611,17 @@ fn blocks(
             fmt_num(report.design_delay)
         ),
         match &report.recommended {
-            Some(r) => format!("The actuator holds each command as a {} hold. {}.", r.hold, r.hold_basis),
+            Some(r) => format!(
+                "The actuator holds each command as a {} hold. {}.",
+                r.hold, r.hold_basis
+            ),
             None => format!(
                 "Hold kinds evaluated: {}.",
-                case.holds.iter().map(|h| h.name()).collect::<Vec<_>>().join(", ")
+                case.holds
+                    .iter()
+                    .map(|h| h.name())
+                    .collect::<Vec<_>>()
+                    .join(", ")
             ),
         },
         format!(

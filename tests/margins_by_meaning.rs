@@ -7,8 +7,8 @@
 
 use looprate::closed_loop::{ClosedLoop, Stability};
 use looprate::discretize::Method;
-use looprate::hold::HoldKind;
 use looprate::evaluate::{Figures, Point, PreparedLoop};
+use looprate::hold::HoldKind;
 use looprate::poly::{C64, Poly};
 use looprate::tf::{Controller, DiscreteTf, Tf};
 use looprate::time_response::TimeOptions;
