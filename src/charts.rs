@@ -416,10 +416,13 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
 }
 
 /// Phase margin and overshoot against the rate, one series per hold kind
-/// the case lists, at the recommended method and the design delay (a
-/// recommendation is needed; every case has at least one hold kind, so a
-/// single-hold case draws one series).
+/// the case lists, at the recommended method and the design delay (drawn
+/// when the case compares two or more hold kinds and has a
+/// recommendation).
 fn hold_kinds(inp: &Inputs) -> Option<Figure> {
+    if inp.case.holds.len() < 2 {
+        return None;
+    }
     let (rec, method) = inp.rec?;
     let mut series: Vec<(HoldKind, Vec<&SweepRow>)> = Vec::new();
     for &h in &inp.case.holds {

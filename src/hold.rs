@@ -132,7 +132,7 @@ impl HoldKind {
     /// transform of its response to one unit command, divided by T),
     /// without the delay: zero-order `(1 - e^{-sT})/(sT)`, first-order
     /// `(1 + sT) ((1 - e^{-sT})/(sT))^2`, interpolating
-    /// `((1 - e^{-sT})/(sT))^2` (closed forms, see docs/figures.md).
+    /// `((1 - e^{-sT})/(sT))^2` (closed forms, see `docs/figures.md`, "Hold kinds").
     pub fn response(self, period_s: f64, w_rad_s: f64) -> C64 {
         let x = C64::new(0.0, w_rad_s * period_s);
         let zoh = if x.norm() < 1e-8 {

@@ -605,6 +605,17 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::evaluate::PreparedLoop) 
             .join(", "),
         case.compute_delays
     );
+    let _ = writeln!(
+        s,
+        "hold kinds {}; transport delay {} s at the plant, {} s on the measurement",
+        case.holds
+            .iter()
+            .map(|h| h.name())
+            .collect::<Vec<_>>()
+            .join(", "),
+        case.plant_delay_s,
+        case.sensor_delay_s
+    );
     if let Some(u) = &case.uncertainty {
         let n = crate::variants::parameter_sets(case).len();
         let how = match u {

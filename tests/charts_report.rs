@@ -155,8 +155,10 @@ fn charts_of_a_case_with_an_answer() {
             .unwrap_or_else(|| panic!("no table row for {name}"));
         let cells: Vec<&str> = row.split('|').map(str::trim).collect();
         let f = m["slowest_rate_hz"].as_f64().unwrap();
-        assert_same(cells[3], &fmt_num(f), f);
-        assert_eq!(cells[4], m["limiting"].as_str().unwrap());
+        // Columns: method, hold, delay, f*, limiting.
+        assert_eq!(cells[2], m["hold"].as_str().unwrap());
+        assert_same(cells[4], &fmt_num(f), f);
+        assert_eq!(cells[5], m["limiting"].as_str().unwrap());
     }
     // Every chart embedded by relative path; the caution is there.
     for name in &names {
@@ -206,7 +208,7 @@ fn no_answer_draws_what_still_makes_sense() {
     let md =
         std::fs::read_to_string(write_report(&dir, &r.case, &r.report, &charts).unwrap()).unwrap();
     assert!(md.contains("**No method meets the spec**"));
-    assert!(md.contains("| tustin | 0.5000 | none |"));
+    assert!(md.contains("| tustin | zero-order | 0.5000 | none |"));
 }
 
 #[test]
@@ -261,9 +263,9 @@ fn variants_and_precision_reach_every_output() {
             .unwrap_or_else(|| panic!("no robust row for {name}"));
         let cells: Vec<&str> = row.split('|').map(str::trim).collect();
         let f = m["slowest_rate_hz"].as_f64().unwrap();
-        assert_same(cells[3], &fmt_num(f), f);
+        assert_same(cells[4], &fmt_num(f), f);
         let n = m["nominal_slowest_rate_hz"].as_f64().unwrap();
-        assert_same(cells[4], &fmt_num(n), n);
+        assert_same(cells[5], &fmt_num(n), n);
     }
     // Both formats are in the precision table and in pick.json.
     for f in ["q11", "f32"] {
