@@ -11,7 +11,7 @@
 //!
 //! The search: trial delays from 0 upward in steps small enough that the
 //! loop's fastest gain crossing turns by at most `STEP_RAD` between two
-//! trials, plus the estimate's own candidates (`phi_i / w_i` at each
+//! trials (and at most half a period), plus the estimate's own candidates (`phi_i / w_i` at each
 //! crossing), up to the first one that is not stable; then bisection between
 //! the last stable and the first unstable trial. Both loops are capped.
 
@@ -25,7 +25,7 @@ use crate::tf::DiscreteTf;
 /// delays of the scan.
 const STEP_RAD: f64 = 0.1;
 /// Most trial delays of the scan.
-const MAX_SCAN: usize = 600;
+const MAX_SCAN: usize = 1000;
 /// Most bisection steps (the bracket shrinks by 2^-48 of a step at most).
 const MAX_BISECT: usize = 48;
 /// The largest total delay searched, in periods: each period of delay is a
@@ -88,7 +88,9 @@ pub fn exact_delay_margin(
         Ok(ClosedLoop::stability(&poles) != Stability::Stable)
     };
     let w_fast = crossings.iter().map(|c| c.0).fold(0.0, f64::max);
-    let step = STEP_RAD / w_fast;
+    // At most half a period: a loop whose |L| stays near 1 up to Nyquist
+    // can gain and lose stability within a period of extra delay.
+    let step = (STEP_RAD / w_fast).min(0.5 * period_s);
     // Candidates: phi_i / w_i and the same one full turn later, each a
     // hair past, so a crossing the estimate predicts exactly is tried.
     let mut candidates: Vec<f64> = crossings

@@ -302,25 +302,34 @@ pub fn loop_figures(l: &dyn Fn(f64) -> C64, range: &FrequencyRange) -> LoopFigur
             b / two_pi
         ));
     }
-    // Sensitivity peak: grid maximum, refined between its neighbours.
+    // Sensitivity peak: every local maximum of the grid within 20 % of the
+    // largest is refined between its neighbours (two peaks of about the
+    // same height can swap places between the grid and the exact curve).
     let s = |w: f64| 1.0 / (C64::new(1.0, 0.0) + l(w)).norm();
-    let mut best = (grid[0].0, s(grid[0].0));
-    let mut best_i = 0;
-    for (i, &(w, v)) in grid.iter().enumerate() {
-        let sv = 1.0 / (C64::new(1.0, 0.0) + v).norm();
-        if sv > best.1 {
-            best = (w, sv);
-            best_i = i;
+    let sv: Vec<f64> = grid
+        .iter()
+        .map(|&(_, v)| 1.0 / (C64::new(1.0, 0.0) + v).norm())
+        .collect();
+    let grid_best = sv.iter().copied().fold(0.0, f64::max);
+    let mut best = (grid[0].0, sv[0]);
+    for (i, (g, &v)) in grid.iter().zip(&sv).enumerate() {
+        if v > best.1 {
+            best = (g.0, v);
         }
-    }
-    let a = grid[best_i.saturating_sub(1)].0.ln();
-    let b = grid[(best_i + 1).min(grid.len() - 1)].0.ln();
-    if b > a {
-        let f = |x: f64| -s(x.exp());
-        if let Some((x, fx)) = scalar_solve::minimum(&f, a, b, 1e-10, 1e-12)
-            && -fx > best.1
-        {
-            best = (x.exp(), -fx);
+        let left = if i > 0 { sv[i - 1] } else { f64::NEG_INFINITY };
+        let right = sv.get(i + 1).copied().unwrap_or(f64::NEG_INFINITY);
+        if !(v >= left && v >= right && v >= 0.8 * grid_best) {
+            continue;
+        }
+        let a = grid[i.saturating_sub(1)].0.ln();
+        let b = grid[(i + 1).min(grid.len() - 1)].0.ln();
+        if b > a {
+            let f = |x: f64| -s(x.exp());
+            if let Some((x, fx)) = scalar_solve::minimum(&f, a, b, 1e-10, 1e-12)
+                && -fx > best.1
+            {
+                best = (x.exp(), -fx);
+            }
         }
     }
 

@@ -313,9 +313,17 @@ proptest! {
         prop_assume!(e.stable);
         let f = e.figures.unwrap();
         // A loop whose |L| stays within a hair of 1 over a band (Ms above
-        // 3) sits on a knife edge: whether it is stable is decided by pole
-        // radii a few 1e-6 from 1. Such loops are left out here.
+        // 3, or |L| nearly flat through its crossover) sits on a knife
+        // edge: its stability can flip back and forth within a period of
+        // extra delay, so "1.02 x the margin is unstable" need not hold
+        // (docs/figures.md). Such loops are left out here.
         prop_assume!(f.sensitivity_peak <= 3.0);
+        if let Some(fc) = f.crossover_hz {
+            let l = lp.sampled_loop_gain(&p).unwrap();
+            let w = TWO_PI * fc;
+            let slope = (l(w * 1.01).norm().ln() - l(w / 1.01).norm().ln()) / (2.0 * 1.01f64.ln());
+            prop_assume!(slope.abs() >= 0.2);
+        }
         if let Err(why) = check_meaning(&lp, &p, &f) {
             return Err(TestCaseError::fail(format!("{why}; figures {f:?}")));
         }
