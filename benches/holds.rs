@@ -35,7 +35,7 @@ fn hold_cost(c: &mut Criterion) {
         ),
         (
             "tustin + zoh, zero-order (a method more)".into(),
-            vec![Method::Tustin, Method::Zoh],
+            vec![Method::Tustin, Method::StepInvariant],
             vec![HoldKind::ZeroOrder],
         ),
         (

@@ -9,11 +9,11 @@ use serde::Serialize;
 
 use crate::hold::HoldKind;
 use crate::poly::{C64, Poly};
-use crate::ss::{ModelError, StateSpace, eigenvalues, hold_integrals};
-use crate::tf::Tf;
+use crate::state_space::{ModelError, StateSpace, eigenvalues, hold_integrals};
 use crate::time_response::{
     DisturbanceFigures, StepFigures, TimeOptions, TracePoint, continuous_metrics,
 };
+use crate::transfer::Transfer;
 
 /// A rational stand-in for the delay `e^{-s theta}` of hold plus
 /// computation, `theta = T/2 + tau`.
@@ -57,27 +57,27 @@ impl HoldApprox {
     /// delay of `delay_s`: the hold's own rational approximation, or a
     /// delay approximation of `theta = hold.equivalent_delay_s(T) +
     /// delay_s` (None when theta is 0: nothing to approximate).
-    pub fn actuator(self, hold: HoldKind, period_s: f64, delay_s: f64) -> Option<Tf> {
+    pub fn actuator(self, hold: HoldKind, period_s: f64, delay_s: f64) -> Option<Transfer> {
         match self {
             HoldApprox::HoldPade22 => Some(hold.rational(period_s, delay_s, 2)),
             k => {
                 let theta = hold.equivalent_delay_s(period_s) + delay_s;
-                (theta > 0.0).then(|| k.tf(theta))
+                (theta > 0.0).then(|| k.transfer(theta))
             }
         }
     }
 
     /// The approximation for a delay of `theta` seconds (`HoldPade22`:
     /// the zero-order hold's own, whose delay is `theta`, i.e. T = 2 theta).
-    pub fn tf(self, theta: f64) -> Tf {
+    pub fn transfer(self, theta: f64) -> Transfer {
         let p = |d: &[f64]| Poly::from_descending(d);
         match self {
             HoldApprox::HoldPade22 => HoldKind::ZeroOrder.rational(2.0 * theta, 0.0, 2),
-            HoldApprox::Lag => Tf::new(p(&[1.0]), p(&[theta, 1.0])),
-            HoldApprox::Pade11 => Tf::new(p(&[-theta / 2.0, 1.0]), p(&[theta / 2.0, 1.0])),
+            HoldApprox::Lag => Transfer::new(p(&[1.0]), p(&[theta, 1.0])),
+            HoldApprox::Pade11 => Transfer::new(p(&[-theta / 2.0, 1.0]), p(&[theta / 2.0, 1.0])),
             HoldApprox::Pade22 => {
                 let q = theta * theta / 12.0;
-                Tf::new(p(&[q, -theta / 2.0, 1.0]), p(&[q, theta / 2.0, 1.0]))
+                Transfer::new(p(&[q, -theta / 2.0, 1.0]), p(&[q, theta / 2.0, 1.0]))
             }
         }
     }
@@ -97,7 +97,7 @@ pub struct ContinuousLoop {
     pub dur: f64,
     pub duw: f64,
     /// Loop gain pieces, for the frequency figures (rational part).
-    pub loop_gain: Tf,
+    pub loop_gain: Transfer,
     /// Pure delay around the loop, s: the loop gain is
     /// `loop_gain(jw) e^{-jw loop_delay_s}` exactly.
     pub loop_delay_s: f64,
@@ -112,22 +112,22 @@ impl ContinuousLoop {
     /// `plant_model`).
     pub fn new(
         plant_model: &StateSpace,
-        plant: &Tf,
-        sensor: &Tf,
-        controller: &Tf,
-        actuator: Option<&Tf>,
-        delays: Option<(f64, &Tf)>,
+        plant: &Transfer,
+        sensor: &Transfer,
+        controller: &Transfer,
+        actuator: Option<&Transfer>,
+        delays: Option<(f64, &Transfer)>,
     ) -> Result<ContinuousLoop, ModelError> {
-        let c = StateSpace::from_tf(controller)?;
+        let c = StateSpace::from_transfer(controller)?;
         let simulated = match (actuator, delays) {
-            (Some(a), Some((_, d))) => Some(a.series(d)),
+            (Some(a), Some((_, d))) => Some(a.cascade(d)),
             (Some(a), None) => Some(a.clone()),
             (None, Some((_, d))) => Some(d.clone()),
             (None, None) => None,
         };
         let act = match &simulated {
-            Some(a) => StateSpace::from_tf(a)?,
-            None => StateSpace::from_tf(&Tf::gain(1.0))?,
+            Some(a) => StateSpace::from_transfer(a)?,
+            None => StateSpace::from_transfer(&Transfer::gain(1.0))?,
         };
         let p = plant_model;
         let (np, na, nc) = (p.order(), act.order(), c.order());
@@ -203,9 +203,9 @@ impl ContinuousLoop {
             let mut part = cyf.rows_mut(0, np);
             part += &cy;
         }
-        let mut loop_gain = plant.series(sensor).series(controller);
+        let mut loop_gain = plant.cascade(sensor).cascade(controller);
         if let Some(a) = actuator {
-            loop_gain = loop_gain.series(a);
+            loop_gain = loop_gain.cascade(a);
         }
         Ok(ContinuousLoop {
             a,

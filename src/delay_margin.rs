@@ -18,8 +18,8 @@
 use crate::closed_loop::{ClosedLoop, Stability};
 use crate::frequency::LoopFigures;
 use crate::hold::{Actuation, HoldEquivalent};
-use crate::ss::StateSpace;
-use crate::tf::DiscreteTf;
+use crate::state_space::StateSpace;
+use crate::transfer::DiscreteTransfer;
 
 /// Largest rotation (rad) of the fastest gain crossing between two trial
 /// delays of the scan.
@@ -52,7 +52,7 @@ pub enum DelayMargin {
 /// stable without extra delay.
 pub fn exact_delay_margin(
     plant_model: &StateSpace,
-    controller: &DiscreteTf,
+    controller: &DiscreteTransfer,
     period_s: f64,
     act: &Actuation,
     freq: &LoopFigures,

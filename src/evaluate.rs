@@ -14,12 +14,12 @@ use std::collections::HashMap;
 use std::sync::Mutex;
 
 use crate::poly::C64;
-use crate::ss::{ModelError, StateSpace};
-use crate::tf::{Controller, DiscreteTf, Tf};
+use crate::state_space::{ModelError, StateSpace};
 use crate::time_response::{
     DisturbanceFigures, StepFigures, TimeOptions, TracePoint, horizon_steps, sampled_figures,
     sampled_trace,
 };
+use crate::transfer::{Controller, DiscreteTransfer, Transfer};
 
 /// Outcome of one evaluation.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -215,15 +215,15 @@ impl PlantAt {
 /// and shared by every evaluation of a sweep.
 #[derive(Debug, Clone)]
 pub struct PreparedLoop {
-    pub plant: Tf,
-    pub sensor: Tf,
+    pub plant: Transfer,
+    pub sensor: Transfer,
     pub controller: Controller,
     /// Plant and sensor in series (outputs: plant, measured).
     pub plant_model: StateSpace,
     /// Continuous poles and zeros of plant, sensor and controller (rad/s):
     /// where the frequency grid is made dense.
     roots: Vec<C64>,
-    /// Pre-warp frequency for `tustin-prewarp`, rad/s.
+    /// Pre-warp frequency for `tustin-prewarped`, rad/s.
     pub prewarp_rad_s: Option<f64>,
     pub time: TimeOptions,
     /// The continuous design's own figures (None for a controller in z).
@@ -264,8 +264,8 @@ impl Transport {
 impl PreparedLoop {
     /// Prepare a loop; `prewarp_hz` None means the continuous crossover.
     pub fn new(
-        plant: &Tf,
-        sensor: &Tf,
+        plant: &Transfer,
+        sensor: &Transfer,
         controller: &Controller,
         prewarp_hz: Option<f64>,
         time: TimeOptions,
@@ -282,8 +282,8 @@ impl PreparedLoop {
 
     /// `new` with transport delays on the plant and the measurement.
     pub fn with_transport(
-        plant: &Tf,
-        sensor: &Tf,
+        plant: &Transfer,
+        sensor: &Transfer,
         controller: &Controller,
         prewarp_hz: Option<f64>,
         time: TimeOptions,
@@ -299,7 +299,7 @@ impl PreparedLoop {
         let plant_model = plant_and_sensor(plant, sensor)?;
         let continuous_model = if transport.sensor_s > 0.0 {
             let (n, d) = pade_delay(transport.sensor_s, TRANSPORT_PADE_ORDER);
-            plant_and_sensor(plant, &sensor.series(&Tf::new(n, d)))?
+            plant_and_sensor(plant, &sensor.cascade(&Transfer::new(n, d)))?
         } else {
             plant_model.clone()
         };
@@ -315,8 +315,8 @@ impl PreparedLoop {
         if let Controller::Discrete(d) = controller {
             // Map the z-plane poles and zeros back to rad/s for the grid.
             let back = |z: &C64| z.ln() / d.period_s;
-            let p = d.tf.poles().ok_or(ModelError::Eigen)?;
-            let z = d.tf.zeros().ok_or(ModelError::Eigen)?;
+            let p = d.transfer.poles().ok_or(ModelError::Eigen)?;
+            let z = d.transfer.zeros().ok_or(ModelError::Eigen)?;
             roots.extend(
                 p.iter()
                     .chain(z.iter())
@@ -388,7 +388,7 @@ impl PreparedLoop {
         &self,
         rate_hz: f64,
         method: Option<Method>,
-    ) -> Result<DiscreteTf, String> {
+    ) -> Result<DiscreteTransfer, String> {
         let period = 1.0 / rate_hz;
         match (&self.controller, method) {
             (Controller::Continuous(c), Some(m)) => {
@@ -432,7 +432,7 @@ impl PreparedLoop {
     pub fn sampled_loop(
         &self,
         p: &Point,
-    ) -> Result<(HoldEquivalent, DiscreteTf, ClosedLoop), String> {
+    ) -> Result<(HoldEquivalent, DiscreteTransfer, ClosedLoop), String> {
         check_point(p)?;
         let c = self.controller_at(p.rate_hz, p.method)?;
         let (hold, cl) = self.sampled_loop_with(p, &c)?;
@@ -444,7 +444,7 @@ impl PreparedLoop {
     pub fn sampled_loop_with(
         &self,
         p: &Point,
-        c: &DiscreteTf,
+        c: &DiscreteTransfer,
     ) -> Result<(HoldEquivalent, ClosedLoop), String> {
         let hold = self.hold_equivalent(p)?;
         let cl = ClosedLoop::new(&hold, c).map_err(|e| format!("closing the loop: {e}"))?;
@@ -510,7 +510,7 @@ impl PreparedLoop {
     pub fn sampled_with_on(
         &self,
         p: &Point,
-        c: &DiscreteTf,
+        c: &DiscreteTransfer,
         plant: Result<&PlantAt, &str>,
     ) -> Evaluation {
         if let Err(e) = check_point(p) {
@@ -528,7 +528,7 @@ impl PreparedLoop {
 
     /// Evaluate the exact sampled-data loop at one point with the given
     /// controller in place of the point's own discretization.
-    pub fn sampled_with(&self, p: &Point, c: &DiscreteTf) -> Evaluation {
+    pub fn sampled_with(&self, p: &Point, c: &DiscreteTransfer) -> Evaluation {
         self.sampled_with_margin(p, c, false)
     }
 
@@ -545,7 +545,12 @@ impl PreparedLoop {
         }
     }
 
-    fn sampled_with_margin(&self, p: &Point, c: &DiscreteTf, exact_margin: bool) -> Evaluation {
+    fn sampled_with_margin(
+        &self,
+        p: &Point,
+        c: &DiscreteTransfer,
+        exact_margin: bool,
+    ) -> Evaluation {
         match self.sampled_loop_with(p, c) {
             Ok((hold, cl)) => {
                 let pulse = hold.augmented();
@@ -562,7 +567,7 @@ impl PreparedLoop {
     fn evaluate_closed(
         &self,
         hold: &HoldEquivalent,
-        c: &DiscreteTf,
+        c: &DiscreteTransfer,
         cl: &ClosedLoop,
         plant: &dyn Fn(f64) -> C64,
         exact_margin: bool,
@@ -581,7 +586,7 @@ impl PreparedLoop {
             Err(e) => return Evaluation::error(e),
         };
         let t = hold.period_s;
-        let l = |w: f64| c.tf.eval(C64::from_polar(1.0, w * t)) * plant(w);
+        let l = |w: f64| c.transfer.eval(C64::from_polar(1.0, w * t)) * plant(w);
         let range = self.range_below(std::f64::consts::PI / t);
         let freq = loop_figures(&l, &range);
         let margin = exact_margin
@@ -628,7 +633,7 @@ impl PreparedLoop {
         let t = hold.period_s;
         Ok(move |w: f64| {
             let z = C64::from_polar(1.0, w * t);
-            c.tf.eval(z) * plant_z.response_at(z, 0)
+            c.transfer.eval(z) * plant_z.response_at(z, 0)
         })
     }
 
@@ -662,24 +667,24 @@ impl PreparedLoop {
     }
 
     /// The plant's transport delay as its Pade approximant (None without).
-    fn plant_pade(&self) -> Option<Tf> {
+    fn plant_pade(&self) -> Option<Transfer> {
         (self.transport.plant_s > 0.0).then(|| {
             let (n, d) = pade_delay(self.transport.plant_s, TRANSPORT_PADE_ORDER);
-            Tf::new(n, d)
+            Transfer::new(n, d)
         })
     }
 
     /// The pure delays of a continuous loop: the total exactly for the
     /// loop gain, the plant's as `pade` in the simulation (the
     /// measurement's is in `continuous_model`).
-    fn loop_delays<'a>(&self, pade: &'a Option<Tf>) -> Option<(f64, &'a Tf)> {
-        static ONE: std::sync::OnceLock<Tf> = std::sync::OnceLock::new();
+    fn loop_delays<'a>(&self, pade: &'a Option<Transfer>) -> Option<(f64, &'a Transfer)> {
+        static ONE: std::sync::OnceLock<Transfer> = std::sync::OnceLock::new();
         let total = self.transport.total_s();
         (total > 0.0).then(|| {
             (
                 total,
                 pade.as_ref()
-                    .unwrap_or_else(|| ONE.get_or_init(|| Tf::gain(1.0))),
+                    .unwrap_or_else(|| ONE.get_or_init(|| Transfer::gain(1.0))),
             )
         })
     }
@@ -687,12 +692,12 @@ impl PreparedLoop {
     /// The continuous loop: the design itself (`approx` None), or with the
     /// hold and delay replaced by an approximation (`(kind, theta_s)`).
     pub fn continuous(&self, approx: Option<(HoldApprox, f64)>) -> Evaluation {
-        self.continuous_with(approx.map(|(k, theta)| (k.tf(theta), theta)))
+        self.continuous_with(approx.map(|(k, theta)| (k.transfer(theta), theta)))
     }
 
     /// The continuous loop with `act` (a rational actuator, and the delay
     /// it stands for, s) between controller and plant.
-    fn continuous_with(&self, act: Option<(Tf, f64)>) -> Evaluation {
+    fn continuous_with(&self, act: Option<(Transfer, f64)>) -> Evaluation {
         let Controller::Continuous(c) = &self.controller else {
             return Evaluation::error("the controller is given in z: no continuous design");
         };

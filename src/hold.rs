@@ -19,16 +19,16 @@ use nalgebra::{DMatrix, DVector};
 use serde::Serialize;
 
 use crate::poly::{C64, Poly};
-use crate::ss::{ModelError, StateSpace, hold_integrals, ramp_integrals};
-use crate::tf::{DiscreteTf, Tf};
+use crate::state_space::{ModelError, StateSpace, hold_integrals, ramp_integrals};
+use crate::transfer::{DiscreteTransfer, Transfer};
 
 /// Plant and sensor in series as one continuous model with two outputs:
 /// row 0 is the plant output `y` (what the figures are taken on), row 1 the
 /// measured output `y_m` (what the controller samples). The input is the
 /// plant input (actuator command plus load disturbance).
-pub fn plant_and_sensor(plant: &Tf, sensor: &Tf) -> Result<StateSpace, ModelError> {
-    let p = StateSpace::from_tf(plant)?;
-    let h = StateSpace::from_tf(sensor)?;
+pub fn plant_and_sensor(plant: &Transfer, sensor: &Transfer) -> Result<StateSpace, ModelError> {
+    let p = StateSpace::from_transfer(plant)?;
+    let h = StateSpace::from_transfer(sensor)?;
     let (np, nh) = (p.order(), h.order());
     let n = np + nh;
     let mut a = DMatrix::zeros(n, n);
@@ -150,21 +150,23 @@ impl HoldKind {
     /// The hold's own rational approximation: its transfer function
     /// (`response`) times `e^{-s delay_s}`, every exponential replaced by
     /// its Pade `[order/order]` approximant.
-    pub fn rational(self, period_s: f64, delay_s: f64, order: usize) -> Tf {
+    pub fn rational(self, period_s: f64, delay_s: f64, order: usize) -> Transfer {
         // (1 - e^{-x})/x with e^{-x} = N(x)/D(x), N(x) = D(-x):
         // (D - N)/(x D), where D - N holds only odd powers.
         let (n, d) = pade_delay(period_s, order);
-        let zoh = Tf::new(d.sub(&n).shift_down(1).scale(1.0 / period_s), d);
+        let zoh = Transfer::new(d.sub(&n).shift_down(1).scale(1.0 / period_s), d);
         let shape = match self {
             HoldKind::ZeroOrder => zoh,
-            HoldKind::FirstOrder => Tf::new(Poly::from_descending(&[period_s, 1.0]), Poly::one())
-                .series(&zoh)
-                .series(&zoh),
-            HoldKind::Interpolating => zoh.series(&zoh),
+            HoldKind::FirstOrder => {
+                Transfer::new(Poly::from_descending(&[period_s, 1.0]), Poly::one())
+                    .cascade(&zoh)
+                    .cascade(&zoh)
+            }
+            HoldKind::Interpolating => zoh.cascade(&zoh),
         };
         if delay_s > 0.0 {
             let (n, d) = pade_delay(delay_s, order);
-            shape.series(&Tf::new(n, d))
+            shape.cascade(&Transfer::new(n, d))
         } else {
             shape
         }
@@ -838,9 +840,9 @@ impl HoldEquivalent {
 
     /// Pulse transfer function `G(z)` from `u_k` to `y_k` (hold, delay,
     /// plant and sensor).
-    pub fn pulse_transfer(&self) -> Result<DiscreteTf, ModelError> {
-        Ok(DiscreteTf {
-            tf: self.augmented().to_tf(0)?,
+    pub fn pulse_transfer(&self) -> Result<DiscreteTransfer, ModelError> {
+        Ok(DiscreteTransfer {
+            transfer: self.augmented().to_transfer(0)?,
             period_s: self.period_s,
         })
     }
@@ -864,8 +866,8 @@ mod tests {
     use crate::poly::Poly;
 
     fn first_order() -> StateSpace {
-        let p = Tf::new(Poly::constant(2.0), Poly::from_descending(&[1.0, 2.0]));
-        plant_and_sensor(&p, &Tf::gain(1.0)).unwrap()
+        let p = Transfer::new(Poly::constant(2.0), Poly::from_descending(&[1.0, 2.0]));
+        plant_and_sensor(&p, &Transfer::gain(1.0)).unwrap()
     }
 
     #[test]
@@ -909,8 +911,8 @@ mod tests {
             .unwrap();
         for w in [0.3, 3.0, 30.0] {
             let z = nalgebra::Complex::from_polar(1.0, w * 0.1);
-            let a = g1.tf.eval(z);
-            let b = g0.tf.eval(z) / z;
+            let a = g1.transfer.eval(z);
+            let b = g0.transfer.eval(z) / z;
             assert!((a - b).norm() < 1e-12 * b.norm());
         }
     }
@@ -918,11 +920,11 @@ mod tests {
     /// A second-order plant with feedthrough in the sensor and a lightly
     /// damped mode, so every block of the extended state is exercised.
     fn second_order_with_sensor() -> StateSpace {
-        let p = Tf::new(
+        let p = Transfer::new(
             Poly::from_descending(&[1.0, 30.0]),
             Poly::from_descending(&[1.0, 2.0, 400.0]),
         );
-        let h = Tf::new(
+        let h = Transfer::new(
             Poly::from_descending(&[0.5, 100.0]),
             Poly::from_descending(&[1.0, 100.0]),
         );
@@ -953,8 +955,8 @@ mod tests {
                 .unwrap();
             for w in [0.3, 3.0, 30.0, 300.0] {
                 let z = nalgebra::Complex::from_polar(1.0, w * t);
-                let a = gd.tf.eval(z);
-                let b = gf.tf.eval(z) / z.powi(whole);
+                let a = gd.transfer.eval(z);
+                let b = gf.transfer.eval(z) / z.powi(whole);
                 assert!((a - b).norm() < 1e-9 * b.norm(), "d={d} w={w}: {a} vs {b}");
             }
         }

@@ -10,22 +10,22 @@ const FILE: &str = "cases/holds.toml";
 
 fn case(plant: &str, sensor: &str, controller: &str, timing: &str) -> String {
     format!(
-        "[plant]\ntf = \"20 / ((s + 2) * (s + 5))\"\n{plant}\
-         [sensor]\ntf = \"1 / (0.01*s + 1)\"\n{sensor}\
+        "[plant]\ntransfer = \"20 / ((s + 2) * (s + 5))\"\n{plant}\
+         [sensor]\ntransfer = \"1 / (0.01*s + 1)\"\n{sensor}\
          [controller]\n{controller}\n\
          [timing]\n{timing}\n\
          [rates]\nmin_hz = 10\nmax_hz = 1000\npoints = 20\n\
          [spec]\nmax_overshoot_pct = 20\n{}",
-        if controller.contains("tf =") {
-            "[methods]\nuse = [\"tustin\"]\n"
-        } else {
+        if controller.contains("rate_hz") {
             ""
+        } else {
+            "[methods]\nuse = [\"tustin\"]\n"
         }
     )
 }
 
-const PI: &str = "tf = \"0.4 * (s + 5) / s\"";
-const PI_Z: &str = "num_z = [0.41, -0.39]\nden_z = [1, -1]\nrate_hz = 100";
+const PI: &str = "transfer = \"0.4 * (s + 5) / s\"";
+const PI_Z: &str = "numerator_z = [0.41, -0.39]\nden_z = [1, -1]\nrate_hz = 100";
 
 fn parse(text: &str) -> Result<Case, CaseError> {
     Case::parse(text, Path::new(FILE))
@@ -78,9 +78,9 @@ fn bad_holds_and_delays_name_file_and_field() {
         ),
         (
             "unknown hold in a list",
-            case("", "", PI, "hold = [\"zero-order\", \"foh\"]"),
+            case("", "", PI, "hold = [\"zero-order\", \"ramp-invariant\"]"),
             "timing.hold[1]",
-            &["unknown hold kind `foh`", "interpolating"],
+            &["unknown hold kind `ramp-invariant`", "interpolating"],
         ),
         (
             "hold twice",
@@ -162,8 +162,8 @@ fn bad_holds_and_delays_name_file_and_field() {
         ),
         (
             "exp in an expression",
-            "[plant]\ntf = \"exp(-0.3*s) / (s + 1)\"\n[controller]\ntf = \"1\"\n[rates]\nmin_hz = 1\nmax_hz = 10\n[spec]\nmax_overshoot_pct = 20\n".to_string(),
-            "plant.tf",
+            "[plant]\ntransfer = \"exp(-0.3*s) / (s + 1)\"\n[controller]\ntransfer = \"1\"\n[rates]\nmin_hz = 1\nmax_hz = 10\n[spec]\nmax_overshoot_pct = 20\n".to_string(),
+            "plant.transfer",
             &["column 1", "`exp(...)`", "delay_s"],
         ),
     ];

@@ -8,13 +8,13 @@ use looprate::discretize::Method;
 use looprate::evaluate::{Point, PreparedLoop, Transport};
 use looprate::hold::{Actuation, HoldEquivalent, HoldKind, plant_and_sensor};
 use looprate::poly::{C64, Poly};
-use looprate::tf::{Controller, DiscreteTf, Tf};
 use looprate::time_response::TimeOptions;
+use looprate::transfer::{Controller, DiscreteTransfer, Transfer};
 use nalgebra::DVector;
 use serde_json::Value;
 
-fn tf(num: &[f64], den: &[f64]) -> Tf {
-    Tf::new(Poly::from_descending(num), Poly::from_descending(den))
+fn transfer(num: &[f64], den: &[f64]) -> Transfer {
+    Transfer::new(Poly::from_descending(num), Poly::from_descending(den))
 }
 
 fn vecf(v: &Value) -> Vec<f64> {
@@ -25,7 +25,7 @@ fn vecf(v: &Value) -> Vec<f64> {
         .collect()
 }
 
-fn pulse(plant: &Tf, sensor: &Tf, t: f64, act: Actuation) -> DiscreteTf {
+fn pulse(plant: &Transfer, sensor: &Transfer, t: f64, act: Actuation) -> DiscreteTransfer {
     let m = plant_and_sensor(plant, sensor).unwrap();
     HoldEquivalent::with(&m, t, &act, 16)
         .unwrap()
@@ -45,8 +45,8 @@ fn act(hold: HoldKind, delay_periods: f64) -> Actuation {
 fn interpolating_and_zero_order_holds_match_scipy() {
     // SciPy 1.17.1, scipy.signal.cont2discrete (tests/reference/
     // discretize.json, written by generate.py): the interpolating hold at
-    // delay 0 is SciPy's `foh` (the triangle hold) one period late, and the
-    // zero-order hold with m whole periods of delay is z^-m times `zoh`.
+    // delay 0 is SciPy's `ramp-invariant` (the triangle hold) one period late, and the
+    // zero-order hold with m whole periods of delay is z^-m times `step-invariant`.
     let path = format!(
         "{}/tests/reference/discretize.json",
         env!("CARGO_MANIFEST_DIR")
@@ -55,21 +55,24 @@ fn interpolating_and_zero_order_holds_match_scipy() {
     let mut checked = 0;
     let mut worst = 0.0f64;
     for e in data["entries"].as_array().unwrap() {
-        let method = e["method"].as_str().unwrap();
+        // SciPy's own method names (keep-name): foh and zoh.
+        let method = e["scipy_method"].as_str().unwrap();
         if method != "foh" && method != "zoh" {
+            // keep-name
             continue;
         }
         let t = e["period_s"].as_f64().unwrap();
-        let plant = tf(&vecf(&e["num"]), &vecf(&e["den"]));
-        let reference = tf(&vecf(&e["num_z"]), &vecf(&e["den_z"]));
+        let plant = transfer(&vecf(&e["num"]), &vecf(&e["den"]));
+        let reference = transfer(&vecf(&e["numerator_z"]), &vecf(&e["denominator_z"]));
         let tol = e["rel_tol"].as_f64().unwrap().max(1e-9);
         let cases: Vec<(HoldKind, f64, i32)> = if method == "foh" {
+            // keep-name
             vec![(HoldKind::Interpolating, 0.0, 1)]
         } else {
             vec![(HoldKind::ZeroOrder, 2.0, 2), (HoldKind::ZeroOrder, 3.0, 3)]
         };
         for (hold, delay, shift) in cases {
-            let ours = pulse(&plant, &Tf::gain(1.0), t, act(hold, delay));
+            let ours = pulse(&plant, &Transfer::gain(1.0), t, act(hold, delay));
             // Compare on the unit circle, relative to the largest value
             // seen (a zero of the reference there makes a point meaningless
             // alone).
@@ -83,7 +86,7 @@ fn interpolating_and_zero_order_holds_match_scipy() {
                 .collect();
             let scale = refs.iter().fold(0.0f64, |m, v| m.max(v.norm()));
             for (wt, r) in ws.iter().zip(&refs) {
-                let v = ours.tf.eval(C64::from_polar(1.0, *wt));
+                let v = ours.transfer.eval(C64::from_polar(1.0, *wt));
                 let err = (v - r).norm() / scale;
                 worst = worst.max(err / tol);
                 assert!(
@@ -108,35 +111,35 @@ fn ramp_hold_equivalents_of_integrators_match_closed_forms() {
     //   1/s,   interpolating: z^-1 T (z + 1) / (2 (z - 1))
     //   1/s^2, interpolating: z^-1 T^2 (z^2 + 4z + 1) / (6 (z - 1)^2)
     let t = 0.01;
-    let forms: Vec<(Tf, HoldKind, Box<dyn Fn(C64) -> C64>)> = vec![
+    let forms: Vec<(Transfer, HoldKind, Box<dyn Fn(C64) -> C64>)> = vec![
         (
-            tf(&[1.0], &[1.0, 0.0]),
+            transfer(&[1.0], &[1.0, 0.0]),
             HoldKind::FirstOrder,
             Box::new(move |z| t * (3.0 * z - 1.0) / (2.0 * z * (z - 1.0))),
         ),
         (
-            tf(&[1.0], &[1.0, 0.0, 0.0]),
+            transfer(&[1.0], &[1.0, 0.0, 0.0]),
             HoldKind::FirstOrder,
             Box::new(move |z| {
                 t * t * (2.0 * z * z + 2.0 * z - 1.0) / (3.0 * z * (z - 1.0) * (z - 1.0))
             }),
         ),
         (
-            tf(&[1.0], &[1.0, 0.0]),
+            transfer(&[1.0], &[1.0, 0.0]),
             HoldKind::Interpolating,
             Box::new(move |z| t * (z + 1.0) / (2.0 * z * (z - 1.0))),
         ),
         (
-            tf(&[1.0], &[1.0, 0.0, 0.0]),
+            transfer(&[1.0], &[1.0, 0.0, 0.0]),
             HoldKind::Interpolating,
             Box::new(move |z| t * t * (z * z + 4.0 * z + 1.0) / (6.0 * z * (z - 1.0) * (z - 1.0))),
         ),
     ];
     for (plant, hold, form) in forms {
-        let g = pulse(&plant, &Tf::gain(1.0), t, act(hold, 0.0));
+        let g = pulse(&plant, &Transfer::gain(1.0), t, act(hold, 0.0));
         for wt in [0.01, 0.4, 1.5, 3.1] {
             let z = C64::from_polar(1.0, wt);
-            let (a, b) = (g.tf.eval(z), form(z));
+            let (a, b) = (g.transfer.eval(z), form(z));
             assert!(
                 (a - b).norm() < 1e-9 * b.norm(),
                 "{hold} {plant:?} wT={wt}: {a} vs {b}"
@@ -154,12 +157,12 @@ fn pulse_transfer_is_the_aliasing_sum_of_each_holds_response() {
     // square for first-order, its square for interpolating. Plant
     // 60/((s+2)(s+6)(s+10)): terms fall as k^-4 or faster, so 20 000
     // aliases leave ~1e-12.
-    let plant = tf(&[60.0], &[1.0, 18.0, 92.0, 120.0]);
+    let plant = transfer(&[60.0], &[1.0, 18.0, 92.0, 120.0]);
     let t = 0.05;
     let two_pi_t = 2.0 * std::f64::consts::PI / t;
     for hold in HoldKind::ALL {
         for delay in [0.0, 0.4] {
-            let g = pulse(&plant, &Tf::gain(1.0), t, act(hold, delay));
+            let g = pulse(&plant, &Transfer::gain(1.0), t, act(hold, delay));
             for w in [0.5, 7.0, 40.0, 62.0] {
                 let mut sum = C64::new(0.0, 0.0);
                 for k in -20_000i64..=20_000 {
@@ -168,7 +171,7 @@ fn pulse_transfer_is_the_aliasing_sum_of_each_holds_response() {
                         * C64::from_polar(1.0, -wk * delay * t)
                         * plant.eval(C64::new(0.0, wk));
                 }
-                let ours = g.tf.eval(C64::from_polar(1.0, w * t));
+                let ours = g.transfer.eval(C64::from_polar(1.0, w * t));
                 assert!(
                     (ours - sum).norm() < 1e-7 * sum.norm(),
                     "{hold} delay {delay} w={w}: {ours} vs {sum}"
@@ -185,9 +188,9 @@ fn pulse_transfer_is_the_aliasing_sum_of_each_holds_response() {
 /// 1/16 of a period for `periods` periods (unit reference step).
 #[allow(clippy::too_many_arguments)]
 fn rk4_closed_loop(
-    plant: &Tf,
-    sensor: &Tf,
-    c: &DiscreteTf,
+    plant: &Transfer,
+    sensor: &Transfer,
+    c: &DiscreteTransfer,
     hold: HoldKind,
     delay_periods: f64,
     sensor_delay_steps: usize,
@@ -199,8 +202,8 @@ fn rk4_closed_loop(
     let h = t / sub as f64;
     let n = m.order();
     // Controller: y[k] = (sum b_i e[k-i] - sum_{i>0} a_i u[k-i]) / a_0.
-    let b = c.tf.num.descending();
-    let a = c.tf.den.descending();
+    let b = c.transfer.numerator.descending();
+    let a = c.transfer.denominator.descending();
     let (nb, na) = (b.len(), a.len());
     let pad = na - nb; // the numerator's leading zeros
     let mut e_hist = vec![0.0; na];
@@ -291,9 +294,9 @@ fn closed_loop_with_every_hold_and_delay_matches_rk4() {
     // controller by Tustin at 40 Hz; each hold with computation delays 0,
     // 0.4 and 1.5 periods, a plant transport delay of 0.35 T (as 0.35 more
     // delay) and a sensor transport delay of 1.25 T.
-    let plant = tf(&[20.0], &[1.0, 7.0, 10.0]);
-    let sensor = tf(&[1.0], &[0.01, 1.0]);
-    let controller = tf(&[0.4, 2.0], &[1.0, 0.0]);
+    let plant = transfer(&[20.0], &[1.0, 7.0, 10.0]);
+    let sensor = transfer(&[1.0], &[0.01, 1.0]);
+    let controller = transfer(&[0.4, 2.0], &[1.0, 0.0]);
     let rate = 40.0;
     let t = 1.0 / rate;
     let sub = 1600;
@@ -349,9 +352,9 @@ fn transport_delay_is_computation_delay_and_whole_periods_are_unit_delays() {
     // Definitions: a plant transport delay of 0.3 T is 0.3 more
     // computation delay (the same figures); one of 2 T is z^-2; a sensor
     // delay gives the same loop gain as the same delay at the plant.
-    let plant = tf(&[38.0], &[0.00168, 0.424, 1.0]);
-    let sensor = tf(&[1.0], &[0.0008, 1.0]);
-    let c = Controller::Continuous(tf(&[0.8, 16.0], &[1.0, 0.0]));
+    let plant = transfer(&[38.0], &[0.00168, 0.424, 1.0]);
+    let sensor = transfer(&[1.0], &[0.0008, 1.0]);
+    let c = Controller::Continuous(transfer(&[0.8, 16.0], &[1.0, 0.0]));
     let rate = 500.0;
     let t = 1.0 / rate;
     let at = |plant_s: f64, sensor_s: f64| {
@@ -413,15 +416,15 @@ fn transport_delay_is_computation_delay_and_whole_periods_are_unit_delays() {
         let ga_frac = pulse(&plant, &sensor, t, act(hold, 1.3));
         for wt in [0.02, 0.5, 2.0, 3.0] {
             let z = C64::from_polar(1.0, wt);
-            let want = g0.tf.eval(z) / (z * z);
+            let want = g0.transfer.eval(z) / (z * z);
             for (name, g) in [("plant 2T", &g2), ("sensor 2T", &gs)] {
-                let v = g.tf.eval(z);
+                let v = g.transfer.eval(z);
                 assert!(
                     (v - want).norm() < 1e-9 * want.norm(),
                     "{hold} {name} wT={wt}: {v} vs {want}"
                 );
             }
-            let (v, w) = (gs_frac.tf.eval(z), ga_frac.tf.eval(z));
+            let (v, w) = (gs_frac.transfer.eval(z), ga_frac.transfer.eval(z));
             assert!(
                 (v - w).norm() < 1e-9 * w.norm(),
                 "{hold} 1.3 T sensor vs actuator wT={wt}: {v} vs {w}"
@@ -439,26 +442,26 @@ fn margins_keep_their_meaning_with_every_hold() {
     // plant and a sensor transport delay. Invented loops: a PI on a
     // second-order plant with a sensor lag, an open-loop-unstable plant
     // held by a lead, a type-2 loop.
-    let loops: Vec<(&str, Tf, Tf, Tf, f64)> = vec![
+    let loops: Vec<(&str, Transfer, Transfer, Transfer, f64)> = vec![
         (
             "pi",
-            tf(&[20.0], &[1.0, 7.0, 10.0]),
-            tf(&[1.0], &[0.01, 1.0]),
-            tf(&[0.4, 2.0], &[1.0, 0.0]),
+            transfer(&[20.0], &[1.0, 7.0, 10.0]),
+            transfer(&[1.0], &[0.01, 1.0]),
+            transfer(&[0.4, 2.0], &[1.0, 0.0]),
             40.0,
         ),
         (
             "unstable open loop",
-            tf(&[4.0], &[1.0, 0.0, -4.0]),
-            Tf::gain(1.0),
-            tf(&[3.0, 6.0], &[0.02, 1.0]),
+            transfer(&[4.0], &[1.0, 0.0, -4.0]),
+            Transfer::gain(1.0),
+            transfer(&[3.0, 6.0], &[0.02, 1.0]),
             300.0,
         ),
         (
             "type 2",
-            tf(&[10.0], &[1.0, 0.0, 0.0]),
-            tf(&[1.0], &[0.002, 1.0]),
-            tf(&[1.0, 2.0], &[0.05, 1.0]),
+            transfer(&[10.0], &[1.0, 0.0, 0.0]),
+            transfer(&[1.0], &[0.002, 1.0]),
+            transfer(&[1.0, 2.0], &[0.05, 1.0]),
             200.0,
         ),
     ];
@@ -495,8 +498,11 @@ fn margins_keep_their_meaning_with_every_hold() {
                     };
                     let what = format!("{name} {hold} delay {delay} {transport:?}");
                     let ctl = lp.controller_at(p.rate_hz, p.method).unwrap();
-                    let scaled = |s: f64| DiscreteTf {
-                        tf: Tf::new(ctl.tf.num.scale(s), ctl.tf.den.clone()),
+                    let scaled = |s: f64| DiscreteTransfer {
+                        transfer: Transfer::new(
+                            ctl.transfer.numerator.scale(s),
+                            ctl.transfer.denominator.clone(),
+                        ),
                         period_s: ctl.period_s,
                     };
                     if let Some(gm) = f.gain_margin_db {

@@ -10,17 +10,17 @@ use looprate::discretize::Method;
 use looprate::evaluate::{Figures, Point, PreparedLoop};
 use looprate::hold::HoldKind;
 use looprate::poly::{C64, Poly};
-use looprate::tf::{Controller, DiscreteTf, Tf};
 use looprate::time_response::TimeOptions;
+use looprate::transfer::{Controller, DiscreteTransfer, Transfer};
 use proptest::prelude::*;
 
 const TWO_PI: f64 = 2.0 * std::f64::consts::PI;
 
-fn tf(num: &[f64], den: &[f64]) -> Tf {
-    Tf::new(Poly::from_descending(num), Poly::from_descending(den))
+fn transfer(num: &[f64], den: &[f64]) -> Transfer {
+    Transfer::new(Poly::from_descending(num), Poly::from_descending(den))
 }
 
-fn prepared(plant: &Tf, sensor: &Tf, c: &Tf) -> PreparedLoop {
+fn prepared(plant: &Transfer, sensor: &Transfer, c: &Transfer) -> PreparedLoop {
     PreparedLoop::new(
         plant,
         sensor,
@@ -33,16 +33,16 @@ fn prepared(plant: &Tf, sensor: &Tf, c: &Tf) -> PreparedLoop {
 
 /// Whether the exact sampled loop at `p` is stable with the controller in z
 /// `c`.
-fn stable_with(lp: &PreparedLoop, p: &Point, c: &DiscreteTf) -> bool {
+fn stable_with(lp: &PreparedLoop, p: &Point, c: &DiscreteTransfer) -> bool {
     let (_, cl) = lp.sampled_loop_with(p, c).unwrap();
     ClosedLoop::stability(&cl.poles().unwrap()) == Stability::Stable
 }
 
 /// The point's controller scaled by `k`.
-fn scaled(lp: &PreparedLoop, p: &Point, k: f64) -> DiscreteTf {
+fn scaled(lp: &PreparedLoop, p: &Point, k: f64) -> DiscreteTransfer {
     let c = lp.controller_at(p.rate_hz, p.method).unwrap();
-    DiscreteTf {
-        tf: c.tf.series(&Tf::gain(k)),
+    DiscreteTransfer {
+        tf: c.transfer.cascade(&Transfer::gain(k)),
         period_s: c.period_s,
     }
 }
@@ -145,12 +145,12 @@ enum PlantFactor {
 }
 
 impl PlantFactor {
-    fn tf(&self) -> Tf {
+    fn transfer(&self) -> Transfer {
         match *self {
-            PlantFactor::Lag(p) => tf(&[p], &[1.0, p]),
-            PlantFactor::Unstable(p) => tf(&[p], &[1.0, -p]),
-            PlantFactor::Integrator => tf(&[1.0], &[1.0, 0.0]),
-            PlantFactor::Resonance(wn, z) => tf(&[wn * wn], &[1.0, 2.0 * z * wn, wn * wn]),
+            PlantFactor::Lag(p) => transfer(&[p], &[1.0, p]),
+            PlantFactor::Unstable(p) => transfer(&[p], &[1.0, -p]),
+            PlantFactor::Integrator => transfer(&[1.0], &[1.0, 0.0]),
+            PlantFactor::Resonance(wn, z) => transfer(&[wn * wn], &[1.0, 2.0 * z * wn, wn * wn]),
         }
     }
     fn order(&self) -> usize {
@@ -170,10 +170,10 @@ enum CtrlFactor {
 }
 
 impl CtrlFactor {
-    fn tf(&self) -> Tf {
+    fn transfer(&self) -> Transfer {
         match *self {
-            CtrlFactor::Integral(z) => tf(&[1.0, z], &[1.0, 0.0]),
-            CtrlFactor::Lead(z, ratio) => tf(&[1.0 / z, 1.0], &[1.0 / (z * ratio), 1.0]),
+            CtrlFactor::Integral(z) => transfer(&[1.0, z], &[1.0, 0.0]),
+            CtrlFactor::Lead(z, ratio) => transfer(&[1.0 / z, 1.0], &[1.0 / (z * ratio), 1.0]),
             CtrlFactor::Notch(wn, zn, zd) => tf(
                 &[1.0, 2.0 * zn * wn, wn * wn],
                 &[1.0, 2.0 * zd * wn, wn * wn],
@@ -229,8 +229,8 @@ fn random_loop() -> impl Strategy<Value = RandomLoop> {
             6.0f64..60.0,
             prop_oneof![
                 Just(Method::Tustin),
-                Just(Method::Zoh),
-                Just(Method::Matched),
+                Just(Method::StepInvariant),
+                Just(Method::PoleZeroMatch),
                 Just(Method::BackwardEuler)
             ],
             prop_oneof![Just(0.0), Just(0.5), Just(1.0), Just(1.5), 0.0f64..2.5],
@@ -261,21 +261,21 @@ impl RandomLoop {
         let plant = self
             .plant
             .iter()
-            .fold(Tf::gain(1.0), |acc, f| acc.series(&f.tf()));
+            .fold(Transfer::gain(1.0), |acc, f| acc.cascade(&f.transfer()));
         let sensor = self
             .sensor_lag
-            .map_or(Tf::gain(1.0), |p| tf(&[p], &[1.0, p]));
+            .map_or(Transfer::gain(1.0), |p| transfer(&[p], &[1.0, p]));
         let c0 = self
             .ctrl
             .iter()
-            .fold(Tf::gain(1.0), |acc, f| acc.series(&f.tf()));
+            .fold(Transfer::gain(1.0), |acc, f| acc.cascade(&f.transfer()));
         let jw = C64::new(0.0, self.wc);
         let l0 = c0.eval(jw) * plant.eval(jw) * sensor.eval(jw);
         let k: f64 = 1.0 / l0.norm();
         if !k.is_finite() || k <= 0.0 {
             return None;
         }
-        let c = c0.series(&Tf::gain(k));
+        let c = c0.cascade(&Transfer::gain(k));
         let lp = PreparedLoop::new(
             &plant,
             &sensor,
@@ -366,13 +366,13 @@ fn open_loop_unstable_plant_with_lead_gain_margin_is_at_the_low_end() {
     // is a -180 deg crossing with GM = -20 log10 |L(1)| = -10.16 dB.
     let ws = TWO_PI * 500.0;
     let lp = prepared(
-        &tf(&[1.0], &[1.0, 0.0, -400.0]),
-        &tf(&[ws], &[1.0, ws]),
-        &tf(&[4880.0, 4880.0 * 28.52], &[1.0, 108.0]),
+        &transfer(&[1.0], &[1.0, 0.0, -400.0]),
+        &transfer(&[ws], &[1.0, ws]),
+        &transfer(&[4880.0, 4880.0 * 28.52], &[1.0, 108.0]),
     );
     let p = Point {
         rate_hz: 848.0,
-        method: Some(Method::Zoh),
+        method: Some(Method::StepInvariant),
         delay: 1.0,
         hold: HoldKind::ZeroOrder,
     };
@@ -405,13 +405,15 @@ fn resonance_with_a_notch_takes_the_crossing_nearest_minus_one() {
     // every crossing's angle from -1, and the delay margin against the
     // phase still to go at each crossing (the estimate) and by its meaning.
     let (wa, wr, wn) = (TWO_PI * 250.0, TWO_PI * 350.0, TWO_PI * 300.0);
-    let plant = tf(&[1.0], &[0.001, 0.0005]).series(&tf(
+    let plant = transfer(&[1.0], &[0.001, 0.0005]).cascade(&transfer(
         &[1.0 / (wa * wa), 0.1 / wa, 1.0],
         &[1.0 / (wr * wr), 0.04 / wr, 1.0],
     ));
-    let ctrl = tf(&[0.2, 0.2 * TWO_PI * 10.0], &[1.0, 0.0])
-        .series(&tf(&[1.0, 0.1 * wn, wn * wn], &[1.0, 1.0 * wn, wn * wn]));
-    let lp = prepared(&plant, &Tf::gain(1.0), &ctrl);
+    let ctrl = transfer(&[0.2, 0.2 * TWO_PI * 10.0], &[1.0, 0.0]).cascade(&transfer(
+        &[1.0, 0.1 * wn, wn * wn],
+        &[1.0, 1.0 * wn, wn * wn],
+    ));
+    let lp = prepared(&plant, &Transfer::gain(1.0), &ctrl);
     let p = Point {
         rate_hz: 1300.0,
         method: Some(Method::Tustin),
