@@ -378,7 +378,7 @@ fn open_loop_unstable_plant_with_lead_gain_margin_is_at_the_low_end() {
     };
     let e = lp.sampled_exact(&p);
     let f = e.figures.clone().expect("stable");
-    let closed_form = -20.0 * (4880.0 * 28.52 / (108.0 * 400.0) as f64).log10();
+    let closed_form: f64 = -20.0 * (4880.0f64 * 28.52 / (108.0 * 400.0)).log10();
     let gm = f.gain_margin_db.unwrap();
     assert!((gm - closed_form).abs() < 1e-6, "GM {gm} vs {closed_form}");
     assert!((gm + 10.16).abs() < 0.01);
