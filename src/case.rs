@@ -746,7 +746,7 @@ fn model_from(
     gain: Option<f64>,
 ) -> Result<Option<Model>, CaseError> {
     let roots_form = zeros.is_some() || poles.is_some() || gain.is_some();
-    match (tf, roots_form) {
+    match (transfer, roots_form) {
         (Some(_), true) => Err(ctx.invalid(
             base,
             "given two ways: `transfer` and `zeros`/`poles`/`gain`; keep one",
@@ -927,7 +927,7 @@ fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, Cas
             ));
         }
         return Ok(ControllerModel::Discrete(DiscreteTransfer {
-            transfer,
+            transfer: tf,
             period_s: 1.0 / rate,
         }));
     }

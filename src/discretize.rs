@@ -153,7 +153,7 @@ pub fn discretize(
         return Err(ModelError::NonFinite.into());
     }
     Ok(DiscreteTransfer {
-        tf: tf.monic(),
+        transfer: tf.monic(),
         period_s,
     })
 }

@@ -156,7 +156,7 @@ fn parse_method(name: &str) -> Result<Method> {
 fn run(cli: Cli) -> Result<ExitCode> {
     match cli.command {
         Command::Discretize {
-            transfer,
+            tf: transfer,
             rate,
             method,
             prewarp_hz,
@@ -166,13 +166,13 @@ fn run(cli: Cli) -> Result<ExitCode> {
             if !(rate > 0.0 && rate.is_finite()) {
                 return Err(anyhow!("--rate must be positive and finite, got {rate}"));
             }
-            let expr = Expr::parse(&tf).map_err(|e| {
+            let expr = Expr::parse(&transfer).map_err(|e| {
                 anyhow!(
                     "--transfer: column {}: {}\n    {}\n    {}",
                     e.column,
                     e.message,
                     transfer,
-                    e.caret_line(&tf)
+                    e.caret_line(&transfer)
                 )
             })?;
             let (num, den) = expr.eval(&|_| None).map_err(|e| {
@@ -181,7 +181,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
                     e.column,
                     e.message,
                     transfer,
-                    e.caret_line(&tf)
+                    e.caret_line(&transfer)
                 )
             })?;
             let c = Transfer::new(num, den);

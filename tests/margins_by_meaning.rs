@@ -42,7 +42,7 @@ fn stable_with(lp: &PreparedLoop, p: &Point, c: &DiscreteTransfer) -> bool {
 fn scaled(lp: &PreparedLoop, p: &Point, k: f64) -> DiscreteTransfer {
     let c = lp.controller_at(p.rate_hz, p.method).unwrap();
     DiscreteTransfer {
-        tf: c.transfer.cascade(&Transfer::gain(k)),
+        transfer: c.transfer.cascade(&Transfer::gain(k)),
         period_s: c.period_s,
     }
 }
@@ -174,7 +174,7 @@ impl CtrlFactor {
         match *self {
             CtrlFactor::Integral(z) => transfer(&[1.0, z], &[1.0, 0.0]),
             CtrlFactor::Lead(z, ratio) => transfer(&[1.0 / z, 1.0], &[1.0 / (z * ratio), 1.0]),
-            CtrlFactor::Notch(wn, zn, zd) => tf(
+            CtrlFactor::Notch(wn, zn, zd) => transfer(
                 &[1.0, 2.0 * zn * wn, wn * wn],
                 &[1.0, 2.0 * zd * wn, wn * wn],
             ),
