@@ -237,7 +237,7 @@ const BAD: &[Bad] = &[
         "controller given three ways",
         &[(
             "controller",
-            "[controller]\ngain = 2\npid = { kp = 1 }\nnum_z = [1]\nden_z = [1]\nrate_hz = 100\n",
+            "[controller]\ngain = 2\npid = { kp = 1 }\nnumerator_z = [1]\ndenominator_z = [1]\nrate_hz = 100\n",
         )],
         "controller",
         &[
@@ -290,7 +290,7 @@ const BAD: &[Bad] = &[
         &[
             (
                 "controller",
-                "[controller]\nnum_z = [1, -0.5]\nden_z = [1, -1]\nrate_hz = 0\n",
+                "[controller]\nnumerator_z = [1, -0.5]\ndenominator_z = [1, -1]\nrate_hz = 0\n",
             ),
             ("methods", ""),
         ],
@@ -302,7 +302,7 @@ const BAD: &[Bad] = &[
         &[
             (
                 "controller",
-                "[controller]\nnum_z = [1, -0.5]\nden_z = [0, 1, -1]\nrate_hz = 100\n",
+                "[controller]\nnumerator_z = [1, -0.5]\ndenominator_z = [0, 1, -1]\nrate_hz = 100\n",
             ),
             ("methods", ""),
         ],
@@ -314,7 +314,7 @@ const BAD: &[Bad] = &[
         &[
             (
                 "controller",
-                "[controller]\nnum_z = [1, 0, -0.5]\nden_z = [1, -1]\nrate_hz = 100\n",
+                "[controller]\nnumerator_z = [1, 0, -0.5]\ndenominator_z = [1, -1]\nrate_hz = 100\n",
             ),
             ("methods", ""),
         ],
@@ -326,7 +326,7 @@ const BAD: &[Bad] = &[
         &[
             (
                 "controller",
-                "[controller]\nnum_z = [1, nan]\nden_z = [1, -1]\nrate_hz = 100\n",
+                "[controller]\nnumerator_z = [1, nan]\ndenominator_z = [1, -1]\nrate_hz = 100\n",
             ),
             ("methods", ""),
         ],
@@ -336,7 +336,10 @@ const BAD: &[Bad] = &[
     (
         "discrete without rate",
         &[
-            ("controller", "[controller]\nnum_z = [1]\nden_z = [1, -1]\n"),
+            (
+                "controller",
+                "[controller]\nnumerator_z = [1]\ndenominator_z = [1, -1]\n",
+            ),
             ("methods", ""),
         ],
         "controller.rate_hz",
@@ -346,7 +349,7 @@ const BAD: &[Bad] = &[
         "methods with a discrete controller",
         &[(
             "controller",
-            "[controller]\nnum_z = [1]\nden_z = [1, -1]\nrate_hz = 100\n",
+            "[controller]\nnumerator_z = [1]\ndenominator_z = [1, -1]\nrate_hz = 100\n",
         )],
         "methods",
         &["does not apply"],
@@ -986,7 +989,7 @@ fn discrete_controller() {
     let case = ok(&[
         (
             "controller",
-            "[controller]\nnum_z = [0.5, -0.4]\nden_z = [1, -1]\nrate_hz = 1000\n",
+            "[controller]\nnumerator_z = [0.5, -0.4]\ndenominator_z = [1, -1]\nrate_hz = 1000\n",
         ),
         ("methods", ""),
     ]);

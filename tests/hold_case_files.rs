@@ -25,7 +25,7 @@ fn case(plant: &str, sensor: &str, controller: &str, timing: &str) -> String {
 }
 
 const PI: &str = "transfer = \"0.4 * (s + 5) / s\"";
-const PI_Z: &str = "numerator_z = [0.41, -0.39]\nden_z = [1, -1]\nrate_hz = 100";
+const PI_Z: &str = "numerator_z = [0.41, -0.39]\ndenominator_z = [1, -1]\nrate_hz = 100";
 
 fn parse(text: &str) -> Result<Case, CaseError> {
     Case::parse(text, Path::new(FILE))

@@ -63,7 +63,7 @@ fn interpolating_and_zero_order_holds_match_scipy() {
         }
         let t = e["period_s"].as_f64().unwrap();
         let plant = transfer(&vecf(&e["num"]), &vecf(&e["den"]));
-        let reference = transfer(&vecf(&e["numerator_z"]), &vecf(&e["denominator_z"]));
+        let reference = transfer(&vecf(&e["num_z"]), &vecf(&e["den_z"])); // keep-name
         let tol = e["rel_tol"].as_f64().unwrap().max(1e-9);
         let cases: Vec<(HoldKind, f64, i32)> = if method == "foh" {
             // keep-name
