@@ -19,7 +19,7 @@ use nalgebra::{DMatrix, DVector};
 use serde::Serialize;
 
 use crate::poly::{C64, Poly};
-use crate::state_space::{ModelError, StateSpace, hold_integrals, ramp_integrals};
+use crate::state_space::{ModelError, RampIntegrals, StateSpace, hold_integrals, ramp_integrals};
 use crate::transfer::{DiscreteTransfer, Transfer};
 
 /// Plant and sensor in series as one continuous model with two outputs:
@@ -361,7 +361,7 @@ fn integrals(
     b: &DVector<f64>,
     h: f64,
     ramp: bool,
-) -> Result<(DMatrix<f64>, DVector<f64>, DVector<f64>), ModelError> {
+) -> Result<RampIntegrals, ModelError> {
     let n = a.nrows();
     if h <= 0.0 {
         return Ok((

@@ -389,6 +389,9 @@ pub fn hold_integrals(
     ))
 }
 
+/// `(e^{A h}, G, H)` of `ramp_integrals`.
+pub type RampIntegrals = (DMatrix<f64>, DVector<f64>, DVector<f64>);
+
 /// Van Loan's augmented exponential for an input that ramps over `h`
 /// seconds: returns `(e^{A h}, G, H)` with `G = integral_0^h e^{A s} ds B`
 /// (the held input's integral, as `hold_integrals`) and
@@ -399,7 +402,7 @@ pub fn ramp_integrals(
     a: &DMatrix<f64>,
     b: &DVector<f64>,
     h: f64,
-) -> Result<(DMatrix<f64>, DVector<f64>, DVector<f64>), ModelError> {
+) -> Result<RampIntegrals, ModelError> {
     let n = a.nrows();
     let mut m = DMatrix::zeros(n + 2, n + 2);
     m.view_mut((0, 0), (n, n)).copy_from(&(a * h));

@@ -111,7 +111,8 @@ fn ramp_hold_equivalents_of_integrators_match_closed_forms() {
     //   1/s,   interpolating: z^-1 T (z + 1) / (2 (z - 1))
     //   1/s^2, interpolating: z^-1 T^2 (z^2 + 4z + 1) / (6 (z - 1)^2)
     let t = 0.01;
-    let forms: Vec<(Transfer, HoldKind, Box<dyn Fn(C64) -> C64>)> = vec![
+    type Form = Box<dyn Fn(C64) -> C64>;
+    let forms: Vec<(Transfer, HoldKind, Form)> = vec![
         (
             transfer(&[1.0], &[1.0, 0.0]),
             HoldKind::FirstOrder,
