@@ -26,6 +26,31 @@ use std::str::FromStr;
 /// small enough that a typo cannot ask for hours of work.
 pub const MAX_POINTS: usize = 100_000;
 
+/// Slowest loop rate accepted anywhere (a period of about 11.6 days), Hz.
+/// Below it the matrix exponentials of a period lose every digit.
+pub const MIN_RATE_HZ: f64 = 1e-6;
+
+/// Fastest loop rate accepted anywhere (a period of 1 ns), Hz.
+pub const MAX_RATE_HZ: f64 = 1e9;
+
+/// Largest coefficient magnitude a model may have once its denominator is
+/// made monic (the form every realisation uses). Products of three such
+/// models (controller, plant, sensor) and their sums must stay inside the
+/// double range with room to spare; beyond it the numbers are refused, not
+/// silently turned into infinities.
+pub const MAX_MONIC_COEFF: f64 = 1e100;
+
+/// Checks a loop rate against [`MIN_RATE_HZ`] and [`MAX_RATE_HZ`]; the
+/// message says the limits (used by the case file and the command line).
+pub fn rate_in_range(rate_hz: f64) -> Result<f64, String> {
+    if !rate_hz.is_finite() || !(MIN_RATE_HZ..=MAX_RATE_HZ).contains(&rate_hz) {
+        return Err(format!(
+            "must be a rate from {MIN_RATE_HZ:e} Hz to {MAX_RATE_HZ:e} Hz, got {rate_hz:e}"
+        ));
+    }
+    Ok(rate_hz)
+}
+
 /// Most samples accepted in `[uncertainty]`: each is a prepared loop held
 /// in memory and evaluated at every grid point and search step, so more
 /// than this is hours of work (a typo guard, like `MAX_POINTS`).
@@ -711,7 +736,32 @@ fn check_tf(ctx: &Ctx, field: &str, role: &str, tf: &Tf, prefix: &str) -> Result
             ),
         ));
     }
+    if let Some(big) = monic_overflow(tf) {
+        return Err(ctx.invalid(
+            field,
+            format!(
+                "{prefix}the {role}'s numbers are beyond the range looprate computes in: \
+                 divided by the leading denominator coefficient, a coefficient is {big:e} \
+                 (at most {MAX_MONIC_COEFF:e} allowed); rescale its time unit or its gain"
+            ),
+        ));
+    }
     Ok(())
+}
+
+/// The largest coefficient magnitude of `tf` with a monic denominator,
+/// when it exceeds [`MAX_MONIC_COEFF`] or is not finite (a leading
+/// coefficient of 1e-320 divides everything into infinity).
+pub fn monic_overflow(tf: &Tf) -> Option<f64> {
+    let lead = tf.den.leading();
+    let big = tf
+        .num
+        .coeffs()
+        .iter()
+        .chain(tf.den.coeffs())
+        .map(|c| (c / lead).abs())
+        .fold(0.0f64, |m, v| if v.is_nan() || m.is_nan() { f64::NAN } else { m.max(v) });
+    (!(big <= MAX_MONIC_COEFF)).then_some(if big.is_nan() { f64::INFINITY } else { big })
 }
 
 /// `tf = "..."` or `zeros`/`poles`/`gain` for the plant or sensor.
@@ -871,6 +921,7 @@ fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, Cas
             ctx.missing("controller.rate_hz", "the rate the controller runs at, Hz")
         })?;
         let rate = ctx.positive("controller.rate_hz", rate)?;
+        rate_in_range(rate).map_err(|m| ctx.invalid("controller.rate_hz", m))?;
         for (name, c) in [("num_z", &num), ("den_z", &den)] {
             if c.is_empty() {
                 return Err(ctx.invalid(format!("controller.{name}"), "empty coefficient list"));
@@ -1059,6 +1110,8 @@ fn rates_from(ctx: &Ctx, raw: Option<RawRates>) -> Result<Rates, CaseError> {
         .ok_or_else(|| ctx.missing("rates.max_hz", "highest rate to try, Hz"))?;
     let min_hz = ctx.positive("rates.min_hz", min_hz)?;
     let max_hz = ctx.positive("rates.max_hz", max_hz)?;
+    rate_in_range(min_hz).map_err(|m| ctx.invalid("rates.min_hz", m))?;
+    rate_in_range(max_hz).map_err(|m| ctx.invalid("rates.max_hz", m))?;
     if min_hz >= max_hz {
         return Err(ctx.invalid(
             "rates.max_hz",
@@ -1518,6 +1571,7 @@ impl Case {
                     Tf::new(num, den)
                 }
             };
+            let tf = tf.with_sane_scale();
             check_tf(&ctx, &m.field, m.role, &tf, &prefix)?;
             Ok(tf)
         };

@@ -23,7 +23,7 @@ use crate::frequency::{loop_grid, unwrapped_phase};
 use crate::pick::{PickReport, Recommended, case_methods};
 use crate::plot::{
     Annotation, Axis, Draw, Figure, Limit, MarkStyle, Panel, Series, Side, VMark, XBand, YBand,
-    render_png,
+    render_png_bytes,
 };
 use crate::poly::C64;
 use crate::search::method_label;
@@ -76,8 +76,17 @@ type LimitSpec = Option<(f64, Side, String)>;
 type PanelSpec = (&'static str, Get, LimitSpec);
 type Points = Vec<(f64, f64)>;
 
+/// A chart as drawn: where it was written and its PNG bytes (which the
+/// HTML report embeds, so it never reads a file back that another run
+/// could have replaced).
+#[derive(Debug, Clone)]
+pub struct Chart {
+    pub path: PathBuf,
+    pub png: Vec<u8>,
+}
+
 /// Draw every chart that applies to this run into `out_dir` (created if
-/// missing) and return the files written, in a fixed order.
+/// missing) and return the charts written, in a fixed order.
 ///
 /// Charts that need a recommendation (step, loop, hold approximation,
 /// disturbance) are skipped when the report has none; `cpu-budget.png`
@@ -88,7 +97,7 @@ pub fn write_charts(
     lp: &PreparedLoop,
     rows: &[SweepRow],
     report: &PickReport,
-) -> Result<Vec<PathBuf>, Error> {
+) -> Result<Vec<Chart>, Error> {
     std::fs::create_dir_all(out_dir).map_err(|e| Error::Output {
         path: out_dir.display().to_string(),
         message: e.to_string(),
@@ -120,15 +129,16 @@ pub fn write_charts(
         (DISTURBANCE, disturbance),
         (PRECISION, precision_chart),
     ];
-    let written: Vec<Result<Option<PathBuf>, Error>> = jobs
+    let written: Vec<Result<Option<Chart>, Error>> = jobs
         .par_iter()
         .map(|(name, build)| {
             let Some(fig) = build(&inputs) else {
                 return Ok(None);
             };
             let path = out_dir.join(name);
-            render_png(&fig.with_note(note.clone()), &path)?;
-            Ok(Some(path))
+            let png = render_png_bytes(&fig.with_note(note.clone()), &path)?;
+            crate::outputs::write_atomic(&path, &png)?;
+            Ok(Some(Chart { path, png }))
         })
         .collect();
     written.into_iter().filter_map(Result::transpose).collect()

@@ -124,7 +124,7 @@ fn main() -> ExitCode {
             if is_broken_pipe(&e) {
                 return ExitCode::SUCCESS;
             }
-            eprintln!("looprate: {e:#}");
+            warn(&format!("looprate: {e:#}"));
             ExitCode::from(2)
         }
     }
@@ -135,6 +135,23 @@ fn is_broken_pipe(e: &anyhow::Error) -> bool {
         c.downcast_ref::<std::io::Error>()
             .is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe)
     })
+}
+
+/// Most worker threads `--threads` accepts: far above any core count that
+/// helps, low enough that a typo does not start thousands of threads.
+const MAX_THREADS: usize = 256;
+
+/// Write a line to stderr, ignoring a failure (a full disk or a closed
+/// pipe there must not turn into a panic or change the exit code).
+fn warn(text: &str) {
+    let mut err = std::io::stderr().lock();
+    let _ = writeln!(err, "{text}");
+    let _ = err.flush();
+}
+
+/// A loop rate from the command line, within the case file's limits.
+fn check_rate(flag: &str, rate: f64) -> Result<f64> {
+    looprate::case::rate_in_range(rate).map_err(|m| anyhow!("{flag} {m}"))
 }
 
 fn print(text: &str) -> Result<()> {
@@ -158,8 +175,13 @@ fn run(cli: Cli) -> Result<ExitCode> {
             json,
         } => {
             let m = parse_method(&method)?;
-            if !(rate > 0.0 && rate.is_finite()) {
-                return Err(anyhow!("--rate must be positive and finite, got {rate}"));
+            let rate = check_rate("--rate", rate)?;
+            if let Some(f) = prewarp_hz
+                && !(f > 0.0 && f.is_finite())
+            {
+                return Err(anyhow!(
+                    "--prewarp-hz must be a positive, finite frequency in Hz, got {f}"
+                ));
             }
             let expr = Expr::parse(&tf).map_err(|e| {
                 anyhow!(
@@ -179,7 +201,15 @@ fn run(cli: Cli) -> Result<ExitCode> {
                     e.caret_line(&tf)
                 )
             })?;
-            let c = Tf::new(num, den);
+            let c = Tf::new(num, den).with_sane_scale();
+            if let Some(big) = looprate::case::monic_overflow(&c) {
+                return Err(anyhow!(
+                    "--tf: the numbers are beyond the range looprate computes in: divided by the \
+                     leading denominator coefficient, a coefficient is {big:e} (at most {:e} \
+                     allowed); rescale its time unit or its gain",
+                    looprate::case::MAX_MONIC_COEFF
+                ));
+            }
             let w0 = prewarp_hz.map(|f| 2.0 * std::f64::consts::PI * f);
             let d =
                 discretize(&c, m, 1.0 / rate, w0).map_err(|e| anyhow!("{m} at {rate} Hz: {e}"))?;
@@ -221,9 +251,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
             if !(0.0..=1.0).contains(&delay) {
                 return Err(anyhow!("--delay must be in [0, 1], got {delay}"));
             }
-            if !(rate > 0.0 && rate.is_finite()) {
-                return Err(anyhow!("--rate must be positive and finite, got {rate}"));
-            }
+            let rate = check_rate("--rate", rate)?;
             let p = Point {
                 rate_hz: rate,
                 method,
@@ -291,6 +319,8 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 ));
             }
             let lp = prepare(&c)?;
+            check_threads(threads)?;
+            let _lock = outputs::OutputLock::acquire(&out)?;
             let (rows, set) = in_pool(threads, || -> Result<_> {
                 let set = case_variants(&c, &lp)?;
                 let rows = run_sweep(&c, &lp, set.as_ref(), variants, quiet);
@@ -314,12 +344,12 @@ fn run(cli: Cli) -> Result<ExitCode> {
             outputs::write_atomic(&path, &outputs::sweep_csv(&rows, set.as_ref()))?;
             let feasible = rows.iter().filter(|r| r.assessment.feasible).count();
             if !quiet {
-                eprintln!(
+                warn(&format!(
                     "{} points ({} feasible) written to {}",
                     rows.len(),
                     feasible,
                     path.display()
-                );
+                ));
             }
             Ok(ExitCode::SUCCESS)
         }
@@ -333,6 +363,8 @@ fn run(cli: Cli) -> Result<ExitCode> {
         } => {
             let c = Case::load(&case)?;
             let lp = prepare(&c)?;
+            check_threads(threads)?;
+            let _lock = outputs::OutputLock::acquire(&out)?;
             let report = in_pool(threads, || -> Result<_> {
                 let bar = progress(case_grid(&c, &lp).len(), quiet);
                 let Picked {
@@ -384,12 +416,19 @@ fn write_pick_outputs(
     Ok(())
 }
 
+fn check_threads(threads: Option<usize>) -> Result<()> {
+    match threads {
+        Some(n) if n == 0 || n > MAX_THREADS => Err(anyhow!(
+            "--threads must be from 1 to {MAX_THREADS}, got {n}"
+        )),
+        _ => Ok(()),
+    }
+}
+
 fn in_pool<T: Send>(threads: Option<usize>, f: impl FnOnce() -> T + Send) -> Result<T> {
     let mut b = rayon::ThreadPoolBuilder::new();
     if let Some(n) = threads {
-        if n == 0 {
-            return Err(anyhow!("--threads must be at least 1"));
-        }
+        check_threads(threads)?;
         b = b.num_threads(n);
     }
     let pool = b.build().context("starting worker threads")?;

@@ -35,7 +35,7 @@ pub fn prepare(case: &Case) -> Result<PreparedLoop, Error> {
     PreparedLoop::new(&m.plant, &m.sensor, &m.controller, case.prewarp_hz, time).map_err(|e| {
         Error::Model {
             context: format!("{}: preparing the loop", case.source.display()),
-            source: e,
+            reason: e,
         }
     })
 }

@@ -9,6 +9,7 @@
 use std::path::{Path, PathBuf};
 
 use crate::case::Case;
+use crate::charts::Chart;
 use crate::error::Error;
 use crate::evaluate::Figures;
 use crate::outputs::write_atomic;
@@ -30,10 +31,11 @@ enum Block {
     List(Vec<String>),
     /// Header row, then body rows.
     Table(Vec<String>, Vec<Vec<String>>),
-    /// Relative path (Markdown) and file to embed (HTML), with a caption.
+    /// Relative path (Markdown) and the PNG bytes to embed (HTML), with a
+    /// caption.
     Image {
         rel: String,
-        file: PathBuf,
+        png: Vec<u8>,
         caption: String,
     },
 }
@@ -46,7 +48,7 @@ pub fn write_report(
     out_dir: &Path,
     case: &Case,
     report: &PickReport,
-    charts: &[PathBuf],
+    charts: &[Chart],
 ) -> Result<PathBuf, Error> {
     let blocks = blocks(out_dir, case, report, charts)?;
     let md_path = out_dir.join(REPORT_MD);
@@ -226,7 +228,7 @@ fn blocks(
     out_dir: &Path,
     case: &Case,
     report: &PickReport,
-    charts: &[PathBuf],
+    charts: &[Chart],
 ) -> Result<Vec<Block>, Error> {
     let models = case.nominal()?;
     let mut b = vec![Block::Heading(1, report.title.clone())];
@@ -568,7 +570,7 @@ fn blocks(
 
     if !charts.is_empty() {
         b.push(Block::Heading(2, "Charts".into()));
-        for c in charts {
+        for Chart { path: c, png } in charts {
             let rel = c
                 .strip_prefix(out_dir)
                 .unwrap_or(c)
@@ -580,7 +582,7 @@ fn blocks(
                 .unwrap_or_default();
             b.push(Block::Image {
                 rel,
-                file: c.clone(),
+                png: png.clone(),
                 caption: chart_caption(&name).to_string(),
             });
         }
@@ -802,11 +804,7 @@ fn html(title: &str, blocks: &[Block]) -> Result<String, Error> {
                 }
                 out.push_str("</table>\n");
             }
-            Block::Image { file, caption, .. } => {
-                let bytes = std::fs::read(file).map_err(|e| Error::Output {
-                    path: file.display().to_string(),
-                    message: format!("cannot read the chart to embed it: {e}"),
-                })?;
+            Block::Image { png: bytes, caption, .. } => {
                 out.push_str(&format!(
                     "<figure><img alt=\"{}\" src=\"data:image/png;base64,{}\"><figcaption>{}</figcaption></figure>\n",
                     escape(caption),

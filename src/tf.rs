@@ -93,6 +93,30 @@ impl Tf {
         Tf::new(self.num.scale(1.0 / l), self.den.scale(1.0 / l))
     }
 
+    /// The same function with numerator and denominator multiplied by one
+    /// power of two, so the denominator's largest coefficient is near 1,
+    /// when it lies outside `[1e-100, 1e100]` (a sensor written
+    /// `1e-320/1e-320`, say, whose products with other models would
+    /// underflow to 0/0). A power of two is exact, so nothing else changes;
+    /// ordinary models are returned as they are.
+    pub fn with_sane_scale(&self) -> Tf {
+        let big = self.den.coeffs().iter().fold(0.0f64, |m, c| m.max(c.abs()));
+        if !(big.is_finite() && big > 0.0) || (1e-100..=1e100).contains(&big) {
+            return self.clone();
+        }
+        // Two steps, since 2^-e alone is not representable for the
+        // subnormal range's e.
+        let e = big.log2().round() as i32;
+        let half = -e / 2;
+        let rest = -e - half;
+        let k1 = 2f64.powi(half);
+        let k2 = 2f64.powi(rest);
+        Tf::new(
+            self.num.scale(k1).scale(k2),
+            self.den.scale(k1).scale(k2),
+        )
+    }
+
     /// Every coefficient finite.
     pub fn is_finite(&self) -> bool {
         self.num.is_finite() && self.den.is_finite()

@@ -109,7 +109,7 @@ fn charts_of_a_case_with_an_answer() {
     let charts = write_charts(&dir, &r.case, &r.lp, &r.rows, &r.report).unwrap();
     let names: Vec<String> = charts
         .iter()
-        .map(|p| p.file_name().unwrap().to_string_lossy().into_owned())
+        .map(|c| c.path.file_name().unwrap().to_string_lossy().into_owned())
         .collect();
     assert_eq!(
         names,
@@ -123,7 +123,9 @@ fn charts_of_a_case_with_an_answer() {
         ]
     );
     for c in &charts {
-        check_png(c);
+        check_png(&c.path);
+        // The bytes the report embeds are the file written.
+        assert_eq!(std::fs::read(&c.path).unwrap(), c.png);
     }
 
     let md_path = write_report(&dir, &r.case, &r.report, &charts).unwrap();
@@ -197,11 +199,13 @@ fn no_answer_draws_what_still_makes_sense() {
     let charts = write_charts(&dir, &r.case, &r.lp, &r.rows, &r.report).unwrap();
     let names: Vec<String> = charts
         .iter()
-        .map(|p| p.file_name().unwrap().to_string_lossy().into_owned())
+        .map(|c| c.path.file_name().unwrap().to_string_lossy().into_owned())
         .collect();
     assert_eq!(names, ["figures-vs-rate.png", "cpu-budget.png"]);
     for c in &charts {
-        check_png(c);
+        check_png(&c.path);
+        // The bytes the report embeds are the file written.
+        assert_eq!(std::fs::read(&c.path).unwrap(), c.png);
     }
     let md =
         std::fs::read_to_string(write_report(&dir, &r.case, &r.report, &charts).unwrap()).unwrap();
@@ -242,7 +246,7 @@ fn variants_and_precision_reach_every_output() {
     let r = run(&text, &dir);
     let charts = write_charts(&dir, &r.case, &r.lp, &r.rows, &r.report).unwrap();
     let png = dir.join("precision.png");
-    assert!(charts.contains(&png), "{charts:?}");
+    assert!(charts.iter().any(|c| c.path == png), "{charts:?}");
     check_png(&png);
     let md_path = write_report(&dir, &r.case, &r.report, &charts).unwrap();
     let md = std::fs::read_to_string(&md_path).unwrap();
