@@ -16,7 +16,9 @@ use looprate::continuous::HoldApprox;
 use looprate::discretize::{Method, discretize};
 use looprate::evaluate::{Point, PreparedLoop};
 use looprate::expr::Expr;
-use looprate::pick::{Picked, case_grid, case_variants, prepare, sweep_and_pick};
+use looprate::pick::{
+    Picked, case_grid, case_methods, case_variants, prepare, sweep_and_pick_streaming,
+};
 use looprate::search::Silent;
 use looprate::tf::{Controller, Tf};
 use looprate::variants::VariantSet;
@@ -323,7 +325,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
             let _lock = outputs::OutputLock::acquire(&out)?;
             let (rows, set) = in_pool(threads, || -> Result<_> {
                 let set = case_variants(&c, &lp)?;
-                let rows = run_sweep(&c, &lp, set.as_ref(), variants, quiet);
+                let rows = run_sweep(&c, &lp, set.as_ref(), variants, quiet, &out)?;
                 if let Some(set) = &set
                     && variants
                 {
@@ -340,8 +342,8 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 }
                 Ok((rows, set))
             })??;
+            let _ = set;
             let path = out.join("sweep.csv");
-            outputs::write_atomic(&path, &outputs::sweep_csv(&rows, set.as_ref()))?;
             let feasible = rows.iter().filter(|r| r.assessment.feasible).count();
             if !quiet {
                 warn(&format!(
@@ -367,11 +369,18 @@ fn run(cli: Cli) -> Result<ExitCode> {
             let _lock = outputs::OutputLock::acquire(&out)?;
             let report = in_pool(threads, || -> Result<_> {
                 let bar = progress(case_grid(&c, &lp).len(), quiet);
+                let mut stream = csv_stream(&c, &lp, &out)?;
                 let Picked {
                     rows,
-                    variants: set,
+                    variants: _,
                     report,
-                } = sweep_and_pick(&c, &lp, &|| bar.inc(1), &Silent)?;
+                } = sweep_and_pick_streaming(
+                    &c,
+                    &lp,
+                    &|| bar.inc(1),
+                    &Silent,
+                    Some(&mut |i, row, v| stream.push(i, row, v)),
+                )?;
                 bar.finish_and_clear();
                 // Charts are drawn while the CSV and JSON are written.
                 let (charts, tables) = rayon::join(
@@ -384,7 +393,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
                             )?)
                         }
                     },
-                    || write_pick_outputs(&out, &rows, set.as_ref(), &report),
+                    || write_pick_outputs(&out, stream, &report),
                 );
                 tables?;
                 looprate::report::write_report(&out, &c, &report, &charts?)?;
@@ -404,13 +413,30 @@ fn run(cli: Cli) -> Result<ExitCode> {
     }
 }
 
+/// `DIR/sweep.csv` as a stream the sweep writes row by row.
+fn csv_stream(c: &Case, lp: &PreparedLoop, out: &Path) -> Result<outputs::SweepCsvStream> {
+    let points = case_grid(c, lp).len();
+    let series = case_methods(c).len() * c.compute_delays.len();
+    let formats: Vec<String> = sweep::Plan::for_case(c, lp, None)
+        .formats()
+        .iter()
+        .map(|f| f.name())
+        .collect();
+    Ok(outputs::SweepCsvStream::create(
+        &out.join("sweep.csv"),
+        series,
+        points / series.max(1),
+        &formats,
+        c.uncertainty.is_some(),
+    )?)
+}
+
 fn write_pick_outputs(
     out: &Path,
-    rows: &[sweep::SweepRow],
-    set: Option<&VariantSet>,
+    stream: outputs::SweepCsvStream,
     report: &looprate::pick::PickReport,
 ) -> Result<()> {
-    outputs::write_atomic(&out.join("sweep.csv"), &outputs::sweep_csv(rows, set))?;
+    stream.finish()?;
     let json = serde_json::to_vec_pretty(report)?;
     outputs::write_atomic(&out.join("pick.json"), &json)?;
     Ok(())
@@ -455,14 +481,24 @@ fn run_sweep(
     variants: Option<&VariantSet>,
     keep_variants: bool,
     quiet: bool,
-) -> Vec<sweep::SweepRow> {
+    out: &Path,
+) -> Result<Vec<sweep::SweepRow>> {
     let points = case_grid(c, lp);
     let bar = progress(points.len(), quiet);
     let plan = sweep::Plan {
         keep_variants,
         ..sweep::Plan::for_case(c, lp, variants)
     };
-    let rows = sweep::run(&plan, &points, &|| bar.inc(1));
+    let mut stream = csv_stream(c, lp, out)?;
+    let mut slots: Vec<Option<sweep::SweepRow>> = (0..points.len()).map(|_| None).collect();
+    sweep::run_streaming(&plan, &points, &|| bar.inc(1), &mut |i, mut row| {
+        stream.push(i, &row, variants);
+        if !keep_variants {
+            row.slim();
+        }
+        slots[i] = Some(row);
+    });
     bar.finish_and_clear();
-    rows
+    stream.finish()?;
+    Ok(slots.into_iter().flatten().collect())
 }

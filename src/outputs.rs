@@ -275,21 +275,35 @@ fn point_cells(r: &SweepRow, e: &Evaluation, a: &Assessment) -> Vec<String> {
 /// where the response never got there within the horizon.
 pub fn sweep_csv(rows: &[SweepRow], variants: Option<&VariantSet>) -> Vec<u8> {
     let mut w = csv::Writer::from_writer(Vec::new());
-    let mut header: Vec<String> = SWEEP_COLUMNS.iter().map(|c| c.to_string()).collect();
-    if variants.is_some() {
-        header.extend(ROBUST_COLUMNS.iter().map(|c| c.to_string()));
-        header.extend(WORST_FIGURES.iter().map(|c| format!("worst_{c}")));
-    }
     let formats: Vec<String> = rows
         .first()
         .map(|r| r.precision.iter().map(|p| p.format.name()).collect())
         .unwrap_or_default();
-    for f in &formats {
+    // Writing to a Vec cannot fail.
+    let _ = w.write_record(sweep_header(&formats, variants.is_some()));
+    for r in rows {
+        let _ = w.write_record(sweep_record(r, variants));
+    }
+    w.into_inner().unwrap_or_default()
+}
+
+/// The header of `sweep.csv` for these format names (f64 left out) and
+/// with or without plant variants.
+pub fn sweep_header(formats: &[String], variants: bool) -> Vec<String> {
+    let mut header: Vec<String> = SWEEP_COLUMNS.iter().map(|c| c.to_string()).collect();
+    if variants {
+        header.extend(ROBUST_COLUMNS.iter().map(|c| c.to_string()));
+        header.extend(WORST_FIGURES.iter().map(|c| format!("worst_{c}")));
+    }
+    for f in formats {
         header.extend(PRECISION_COLUMNS.iter().map(|c| format!("{f}_{c}")));
     }
-    // Writing to a Vec cannot fail.
-    let _ = w.write_record(&header);
-    for r in rows {
+    header
+}
+
+/// One row of `sweep.csv`, cells in the order of [`sweep_header`].
+pub fn sweep_record(r: &SweepRow, variants: Option<&VariantSet>) -> Vec<String> {
+    {
         let mut rec = point_cells(r, &r.eval, &r.assessment);
         if let (Some(set), Some(rb)) = (variants, r.robust.as_ref()) {
             rec.extend([
@@ -316,9 +330,150 @@ pub fn sweep_csv(rows: &[SweepRow], variants: Option<&VariantSet>) -> Vec<u8> {
                 pp.assessment.limiting.unwrap_or("").to_string(),
             ]);
         }
-        let _ = w.write_record(&rec);
+        rec
     }
-    w.into_inner().unwrap_or_default()
+}
+
+/// `sweep.csv` written while the sweep runs, so no row waits in memory for
+/// the end.
+///
+/// The sweep finishes points in groups that share (rate, delay), across
+/// methods, while the file is in grid order (method, delay, rate): so each
+/// (method, delay) series goes to a temporary file of its own, in
+/// ascending rate as the groups finish, and [`SweepCsvStream::finish`]
+/// joins them in grid order under a temporary name, then renames it into
+/// place. Nothing but one CSV line per series is held at a time; the bytes
+/// are those of [`sweep_csv`] over the same rows. Dropped unfinished (an
+/// error, a panic), it removes its temporaries.
+pub struct SweepCsvStream {
+    path: std::path::PathBuf,
+    header: Vec<u8>,
+    series_len: usize,
+    spills: Vec<(std::path::PathBuf, std::io::BufWriter<fs::File>)>,
+    error: Option<std::io::Error>,
+}
+
+impl SweepCsvStream {
+    /// A stream for `series` series of `series_len` points each (grid
+    /// index `i` belongs to series `i / series_len`), with the columns of
+    /// these formats and variants.
+    pub fn create(
+        path: &Path,
+        series: usize,
+        series_len: usize,
+        formats: &[String],
+        variants: bool,
+    ) -> Result<SweepCsvStream, Error> {
+        let err = |e: std::io::Error| Error::Output {
+            path: path.display().to_string(),
+            message: e.to_string(),
+        };
+        let dir = path
+            .parent()
+            .filter(|p| !p.as_os_str().is_empty())
+            .unwrap_or(Path::new("."));
+        fs::create_dir_all(dir).map_err(err)?;
+        let mut w = csv::Writer::from_writer(Vec::new());
+        let _ = w.write_record(sweep_header(formats, variants));
+        let header = w.into_inner().unwrap_or_default();
+        let mut stream = SweepCsvStream {
+            path: path.to_path_buf(),
+            header,
+            series_len: series_len.max(1),
+            spills: Vec::with_capacity(series),
+            error: None,
+        };
+        let pid = std::process::id();
+        for k in 0..series {
+            let spill = dir.join(format!(".sweep-series-{k}.csv.partial-{pid}"));
+            let f = fs::File::create(&spill).map_err(err)?;
+            stream.spills.push((spill, std::io::BufWriter::new(f)));
+        }
+        Ok(stream)
+    }
+
+    /// Add the row of grid point `index` (`variants`: the plant variants
+    /// it was evaluated on). Rows of one series must come in grid order
+    /// (the sweep delivers them so). A write error is kept and returned by
+    /// `finish`.
+    pub fn push(&mut self, index: usize, row: &SweepRow, variants: Option<&VariantSet>) {
+        if self.error.is_some() {
+            return;
+        }
+        let k = index / self.series_len;
+        let Some((_, out)) = self.spills.get_mut(k) else {
+            return;
+        };
+        let mut w = csv::Writer::from_writer(Vec::new());
+        let _ = w.write_record(sweep_record(row, variants));
+        let line = w.into_inner().unwrap_or_default();
+        if let Err(e) = out.write_all(&line) {
+            self.error = Some(e);
+        }
+    }
+
+    /// Join the series in grid order into the final file (through a
+    /// temporary name and a rename).
+    pub fn finish(mut self) -> Result<(), Error> {
+        let err = |e: std::io::Error| Error::Output {
+            path: self.path.display().to_string(),
+            message: e.to_string(),
+        };
+        if let Some(e) = self.error.take() {
+            return Err(err(e));
+        }
+        let dir = self
+            .path
+            .parent()
+            .filter(|p| !p.as_os_str().is_empty())
+            .unwrap_or(Path::new("."));
+        let name = self
+            .path
+            .file_name()
+            .map(|n| n.to_string_lossy().to_string())
+            .unwrap_or_default();
+        let tmp = dir.join(format!(".{name}.partial-{}", std::process::id()));
+        let spills = std::mem::take(&mut self.spills);
+        let result = (|| {
+            let mut out = std::io::BufWriter::new(fs::File::create(&tmp)?);
+            out.write_all(&self.header)?;
+            for (spill, w) in spills {
+                w.into_inner().map_err(|e| e.into_error())?.sync_all()?;
+                let mut f = fs::File::open(&spill)?;
+                std::io::copy(&mut f, &mut out)?;
+                drop(f);
+                fs::remove_file(&spill)?;
+            }
+            out.into_inner().map_err(|e| e.into_error())?.sync_all()?;
+            fs::rename(&tmp, &self.path)
+        })();
+        if result.is_err() {
+            let _ = fs::remove_file(&tmp);
+            self.remove_spills_named(dir);
+        }
+        result.map_err(err)
+    }
+
+    /// Remove whatever spill files of this process are left in `dir`.
+    fn remove_spills_named(&self, dir: &Path) {
+        let pid = std::process::id();
+        if let Ok(entries) = fs::read_dir(dir) {
+            for e in entries.flatten() {
+                let n = e.file_name().to_string_lossy().into_owned();
+                if n.starts_with(".sweep-series-") && n.ends_with(&format!(".partial-{pid}")) {
+                    let _ = fs::remove_file(e.path());
+                }
+            }
+        }
+    }
+}
+
+impl Drop for SweepCsvStream {
+    fn drop(&mut self) {
+        for (spill, _) in self.spills.drain(..) {
+            let _ = fs::remove_file(spill);
+        }
+    }
 }
 
 /// `variants.csv` (`sweep --variants`): one row per grid point and plant

@@ -65,9 +65,32 @@ pub fn sweep_and_pick(
     on_done: &(dyn Fn() + Sync),
     observer: &dyn SearchObserver,
 ) -> Result<Picked, Error> {
+    sweep_and_pick_streaming(case, lp, on_done, observer, None)
+}
+
+/// [`sweep_and_pick`], handing each row to `on_row(grid_index, row,
+/// variants)` as the sweep finishes it (to stream `sweep.csv`; rows of
+/// one (method, delay) series come in grid order) and then keeping it
+/// slimmed (`SweepRow::slim`). With `on_row` None the rows are kept whole.
+pub fn sweep_and_pick_streaming(
+    case: &Case,
+    lp: &PreparedLoop,
+    on_done: &(dyn Fn() + Sync),
+    observer: &dyn SearchObserver,
+    mut on_row: Option<&mut dyn FnMut(usize, &SweepRow, Option<&VariantSet>)>,
+) -> Result<Picked, Error> {
     let variants = case_variants(case, lp)?;
     let plan = Plan::for_case(case, lp, variants.as_ref());
-    let rows = sweep::run(&plan, &case_grid(case, lp), on_done);
+    let points = case_grid(case, lp);
+    let mut slots: Vec<Option<SweepRow>> = (0..points.len()).map(|_| None).collect();
+    sweep::run_streaming(&plan, &points, on_done, &mut |i, mut row| {
+        if let Some(f) = on_row.as_mut() {
+            f(i, &row, variants.as_ref());
+            row.slim();
+        }
+        slots[i] = Some(row);
+    });
+    let rows: Vec<SweepRow> = slots.into_iter().flatten().collect();
     let report = pick(case, lp, variants.as_ref(), &rows, observer);
     Ok(Picked {
         rows,
