@@ -760,7 +760,13 @@ pub fn monic_overflow(tf: &Tf) -> Option<f64> {
         .iter()
         .chain(tf.den.coeffs())
         .map(|c| (c / lead).abs())
-        .fold(0.0f64, |m, v| if v.is_nan() || m.is_nan() { f64::NAN } else { m.max(v) });
+        .fold(0.0f64, |m, v| {
+            if v.is_nan() || m.is_nan() {
+                f64::NAN
+            } else {
+                m.max(v)
+            }
+        });
     (!(big <= MAX_MONIC_COEFF)).then_some(if big.is_nan() { f64::INFINITY } else { big })
 }
 

@@ -490,15 +490,15 @@ fn run_sweep(
         ..sweep::Plan::for_case(c, lp, variants)
     };
     let mut stream = csv_stream(c, lp, out)?;
-    let mut slots: Vec<Option<sweep::SweepRow>> = (0..points.len()).map(|_| None).collect();
+    let mut rows = sweep::GridOrder::default();
     sweep::run_streaming(&plan, &points, &|| bar.inc(1), &mut |i, mut row| {
         stream.push(i, &row, variants);
         if !keep_variants {
             row.slim();
         }
-        slots[i] = Some(row);
+        rows.push(i, row);
     });
     bar.finish_and_clear();
     stream.finish()?;
-    Ok(slots.into_iter().flatten().collect())
+    Ok(rows.finish())
 }

@@ -82,15 +82,15 @@ pub fn sweep_and_pick_streaming(
     let variants = case_variants(case, lp)?;
     let plan = Plan::for_case(case, lp, variants.as_ref());
     let points = case_grid(case, lp);
-    let mut slots: Vec<Option<SweepRow>> = (0..points.len()).map(|_| None).collect();
+    let mut rows = sweep::GridOrder::default();
     sweep::run_streaming(&plan, &points, on_done, &mut |i, mut row| {
         if let Some(f) = on_row.as_mut() {
             f(i, &row, variants.as_ref());
             row.slim();
         }
-        slots[i] = Some(row);
+        rows.push(i, row);
     });
-    let rows: Vec<SweepRow> = slots.into_iter().flatten().collect();
+    let rows = rows.finish();
     let report = pick(case, lp, variants.as_ref(), &rows, observer);
     Ok(Picked {
         rows,

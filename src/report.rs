@@ -804,7 +804,11 @@ fn html(title: &str, blocks: &[Block]) -> Result<String, Error> {
                 }
                 out.push_str("</table>\n");
             }
-            Block::Image { png: bytes, caption, .. } => {
+            Block::Image {
+                png: bytes,
+                caption,
+                ..
+            } => {
                 out.push_str(&format!(
                     "<figure><img alt=\"{}\" src=\"data:image/png;base64,{}\"><figcaption>{}</figcaption></figure>\n",
                     escape(caption),

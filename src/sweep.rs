@@ -220,9 +220,48 @@ fn evaluate_row_on(plan: &Plan, p: &Point, plants: Option<&Plants>) -> SweepRow 
 /// alone from the same inputs, and the rows come back in grid order, so
 /// the results do not depend on the grouping or the thread count.
 pub fn run(plan: &Plan, points: &[Point], on_done: &(dyn Fn() + Sync)) -> Vec<SweepRow> {
-    let mut rows: Vec<Option<SweepRow>> = (0..points.len()).map(|_| None).collect();
-    run_streaming(plan, points, on_done, &mut |i, row| rows[i] = Some(row));
-    rows.into_iter().flatten().collect()
+    let mut rows = GridOrder::default();
+    run_streaming(plan, points, on_done, &mut |i, row| rows.push(i, row));
+    rows.finish()
+}
+
+/// Rows received in any order, put in grid order without a second copy.
+///
+/// `push(grid_index, row)` appends; `finish` permutes the rows in place by
+/// following the permutation's cycles (a long sweep keeps one buffer of
+/// rows, not the buffer plus a reordered copy).
+#[derive(Default)]
+pub struct GridOrder {
+    rows: Vec<SweepRow>,
+    index: Vec<usize>,
+}
+
+impl GridOrder {
+    /// Keep `row`, the row of grid point `i`.
+    pub fn push(&mut self, i: usize, row: SweepRow) {
+        self.rows.push(row);
+        self.index.push(i);
+    }
+
+    /// The rows in ascending grid index (the indices must be `0..n`, each
+    /// once, as a sweep delivers them).
+    pub fn finish(self) -> Vec<SweepRow> {
+        let GridOrder { mut rows, index } = self;
+        // `target[k]`: where the row now at position k belongs.
+        let mut target = index;
+        for start in 0..rows.len() {
+            // Follow the cycle through `start`, swapping each row home.
+            while target[start] != start {
+                let t = target[start];
+                if t >= rows.len() {
+                    break;
+                }
+                rows.swap(start, t);
+                target.swap(start, t);
+            }
+        }
+        rows
+    }
 }
 
 /// Groups (of points sharing rate and delay) evaluated in parallel before

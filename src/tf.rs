@@ -111,10 +111,7 @@ impl Tf {
         let rest = -e - half;
         let k1 = 2f64.powi(half);
         let k2 = 2f64.powi(rest);
-        Tf::new(
-            self.num.scale(k1).scale(k2),
-            self.den.scale(k1).scale(k2),
-        )
+        Tf::new(self.num.scale(k1).scale(k2), self.den.scale(k1).scale(k2))
     }
 
     /// Every coefficient finite.

@@ -101,12 +101,7 @@ fn inputs_that_hung_now_fail_fast_naming_the_field() {
     let cases = [
         (
             "tiny-lead",
-            case_text(
-                "1/((1e-160*s + 1)*(1e-160*s + 1))",
-                "1",
-                CONTROLLER,
-                "",
-            ),
+            case_text("1/((1e-160*s + 1)*(1e-160*s + 1))", "1", CONTROLLER, ""),
             "plant.tf",
         ),
         (
@@ -335,7 +330,13 @@ fn an_unwritable_stderr_is_not_a_panic() {
     let path = write_case(&dir, "c", &case_text(PLANT, "1", CONTROLLER, ""));
     let out = dir.join("out");
     let mut child = Command::new(BIN)
-        .args(["sweep", &path, "--out", &out.to_string_lossy(), "--no-charts"])
+        .args([
+            "sweep",
+            &path,
+            "--out",
+            &out.to_string_lossy(),
+            "--no-charts",
+        ])
         .stdout(Stdio::piped())
         .stderr(Stdio::piped())
         .spawn()
@@ -399,14 +400,26 @@ fn a_second_run_into_a_held_folder_is_refused() {
     let path = write_case(&dir, "c", &case_text(PLANT, "1", CONTROLLER, ""));
     let out = dir.join("out");
     let lock = looprate::outputs::OutputLock::acquire(&out).unwrap();
-    let r = run(&["pick", &path, "--out", &out.to_string_lossy(), "--no-charts"]);
+    let r = run(&[
+        "pick",
+        &path,
+        "--out",
+        &out.to_string_lossy(),
+        "--no-charts",
+    ]);
     assert_eq!(r.code, 2, "{}", r.stderr);
     assert!(r.stderr.contains("another looprate run"), "{}", r.stderr);
     assert!(!out.join("sweep.csv").exists());
     assert!(!out.join("pick.json").exists());
     // Released (here by drop; a killed run's lock goes with its process).
     drop(lock);
-    let r = run(&["pick", &path, "--out", &out.to_string_lossy(), "--no-charts"]);
+    let r = run(&[
+        "pick",
+        &path,
+        "--out",
+        &out.to_string_lossy(),
+        "--no-charts",
+    ]);
     assert!(r.code == 0 || r.code == 1, "{}", r.stderr);
     assert!(out.join("sweep.csv").exists());
 }
@@ -434,7 +447,13 @@ fn temporaries_of_dead_runs_are_removed() {
         std::fs::write(out.join(s), b"left by a killed run").unwrap();
     }
     std::fs::write(out.join("notes.txt"), b"mine").unwrap();
-    let r = run(&["pick", &path, "--out", &out.to_string_lossy(), "--no-charts"]);
+    let r = run(&[
+        "pick",
+        &path,
+        "--out",
+        &out.to_string_lossy(),
+        "--no-charts",
+    ]);
     assert!(r.code == 0 || r.code == 1, "{}", r.stderr);
     for s in &stale {
         assert!(!out.join(s).exists(), "{s} is still there");
