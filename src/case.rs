@@ -767,7 +767,11 @@ pub fn monic_overflow(tf: &Tf) -> Option<f64> {
                 m.max(v)
             }
         });
-    (!(big <= MAX_MONIC_COEFF)).then_some(if big.is_nan() { f64::INFINITY } else { big })
+    if big.is_nan() {
+        Some(f64::INFINITY)
+    } else {
+        (big > MAX_MONIC_COEFF).then_some(big)
+    }
 }
 
 /// `tf = "..."` or `zeros`/`poles`/`gain` for the plant or sensor.

@@ -68,6 +68,9 @@ pub fn sweep_and_pick(
     sweep_and_pick_streaming(case, lp, on_done, observer, None)
 }
 
+/// Takes each finished row: its grid index, the row, the plant variants.
+pub type RowSink<'a> = dyn FnMut(usize, &SweepRow, Option<&VariantSet>) + 'a;
+
 /// [`sweep_and_pick`], handing each row to `on_row(grid_index, row,
 /// variants)` as the sweep finishes it (to stream `sweep.csv`; rows of
 /// one (method, delay) series come in grid order) and then keeping it
@@ -77,7 +80,7 @@ pub fn sweep_and_pick_streaming(
     lp: &PreparedLoop,
     on_done: &(dyn Fn() + Sync),
     observer: &dyn SearchObserver,
-    mut on_row: Option<&mut dyn FnMut(usize, &SweepRow, Option<&VariantSet>)>,
+    mut on_row: Option<&mut RowSink<'_>>,
 ) -> Result<Picked, Error> {
     let variants = case_variants(case, lp)?;
     let plan = Plan::for_case(case, lp, variants.as_ref());

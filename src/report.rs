@@ -812,7 +812,7 @@ fn html(title: &str, blocks: &[Block]) -> Result<String, Error> {
                 out.push_str(&format!(
                     "<figure><img alt=\"{}\" src=\"data:image/png;base64,{}\"><figcaption>{}</figcaption></figure>\n",
                     escape(caption),
-                    base64(&bytes),
+                    base64(bytes),
                     inline(caption)
                 ));
             }
