@@ -606,7 +606,7 @@ fn finish(
     // range somewhere, so the point is an error that says so.
     if let Some(name) = figures.first_nan() {
         let mut e = Evaluation::error(format!(
-            "the {name} came out as NaN (the loop's numbers are beyond double precision)"
+            "the {name} is not a number (the loop's numbers are beyond double precision)"
         ));
         e.closed_loop_poles = poles.iter().map(|p| [p.re, p.im]).collect();
         return e;

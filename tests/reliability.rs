@@ -534,3 +534,30 @@ fn numeric_kernels_end_on_extreme_matrices() {
     assert!((e[(0, 0)] - w.cos()).abs() < 1e-6, "{e}");
     assert!((e[(0, 1)] - w.sin()).abs() < 1e-6, "{e}");
 }
+
+/// Found by the fuzz run: a loop of pure gains (no state at all) panicked
+/// in the continuous design's final values. Its figures exist: the loop
+/// C P / (1 + C P H) with C = 3, P = 2, H = 1 settles at once to 6/7
+/// (closed form), so the step never overshoots.
+#[test]
+fn a_loop_of_pure_gains_is_evaluated() {
+    let dir = scratch("static");
+    let text = case_text("2", "1", "3", "");
+    let path = write_case(&dir, "c", &text);
+    let r = run(&["check", &path]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    let c = Case::parse(&text, Path::new("c.toml")).unwrap();
+    let lp = prepare(&c).unwrap();
+    let f = lp.design.as_ref().unwrap().figures.as_ref().unwrap();
+    assert!((f.y_final - 6.0 / 7.0).abs() < 1e-12, "{}", f.y_final);
+    assert_eq!(f.overshoot_pct, Some(0.0));
+    let out = dir.join("out");
+    let r = run(&[
+        "pick",
+        &path,
+        "--out",
+        &out.to_string_lossy(),
+        "--no-charts",
+    ]);
+    assert!(r.code == 0 || r.code == 1, "{}", r.stderr);
+}
