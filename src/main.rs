@@ -20,7 +20,7 @@ use looprate::pick::{
     Picked, case_grid, case_methods, case_variants, prepare, sweep_and_pick_streaming,
 };
 use looprate::search::Silent;
-use looprate::tf::{Controller, Tf};
+use looprate::transfer::{Controller, Transfer};
 use looprate::variants::VariantSet;
 use looprate::{outputs, summary, sweep};
 
@@ -41,14 +41,14 @@ enum Command {
     Discretize {
         /// Continuous controller, a rational expression in s, e.g. "0.05*(s+12)/s".
         #[arg(long = "tf")]
-        tf: String,
+        transfer: String,
         /// Loop rate, Hz.
         #[arg(long)]
         rate: f64,
-        /// zoh, foh, impulse, tustin, tustin-prewarp, matched, forward-euler, backward-euler.
+        /// zoh, foh, impulse, tustin, tustin-prewarped, matched, forward-euler, backward-euler.
         #[arg(long)]
         method: String,
-        /// Pre-warp frequency for tustin-prewarp, Hz.
+        /// Pre-warp frequency for tustin-prewarped, Hz.
         #[arg(long = "prewarp-hz")]
         prewarp_hz: Option<f64>,
         /// Print JSON (keys method, rate_hz, num, den, poles, zeros).
@@ -170,7 +170,7 @@ fn parse_method(name: &str) -> Result<Method> {
 fn run(cli: Cli) -> Result<ExitCode> {
     match cli.command {
         Command::Discretize {
-            tf,
+            transfer,
             rate,
             method,
             prewarp_hz,
@@ -187,26 +187,26 @@ fn run(cli: Cli) -> Result<ExitCode> {
             }
             let expr = Expr::parse(&tf).map_err(|e| {
                 anyhow!(
-                    "--tf: column {}: {}\n    {}\n    {}",
+                    "--transfer: column {}: {}\n    {}\n    {}",
                     e.column,
                     e.message,
-                    tf,
+                    transfer,
                     e.caret_line(&tf)
                 )
             })?;
             let (num, den) = expr.eval(&|_| None).map_err(|e| {
                 anyhow!(
-                    "--tf: column {}: {}\n    {}\n    {}",
+                    "--transfer: column {}: {}\n    {}\n    {}",
                     e.column,
                     e.message,
-                    tf,
+                    transfer,
                     e.caret_line(&tf)
                 )
             })?;
-            let c = Tf::new(num, den).with_sane_scale();
+            let c = Transfer::new(num, den).with_sane_scale();
             if let Some(big) = looprate::case::monic_overflow(&c) {
                 return Err(anyhow!(
-                    "--tf: the numbers are beyond the range looprate computes in: divided by the \
+                    "--transfer: the numbers are beyond the range looprate computes in: divided by the \
                      leading denominator coefficient, a coefficient is {big:e} (at most {:e} \
                      allowed); rescale its time unit or its gain",
                     looprate::case::MAX_MONIC_COEFF

@@ -116,7 +116,7 @@ min_hz = @MIN
 max_hz = @MAX
 points = @POINTS
 [methods]
-use = [\"tustin\", \"zoh\"]
+use = [\"tustin\", \"step-invariant\"]
 [spec]
 max_overshoot_pct = 30
 max_sensitivity_peak = @MS

@@ -75,9 +75,9 @@ fn scratch(name: &str) -> PathBuf {
 /// with the blocks given.
 fn case_text(plant: &str, sensor: &str, controller: &str, extra: &str) -> String {
     format!(
-        "title = \"regression\"\n[plant]\ntf = \"{plant}\"\n[sensor]\ntf = \"{sensor}\"\n\
-         [controller]\ntf = \"{controller}\"\n[rates]\nmin_hz = 20\nmax_hz = 5000\npoints = 17\n\
-         [methods]\nuse = [\"tustin\", \"zoh\"]\n[spec]\nmax_overshoot_pct = 30\n\
+        "title = \"regression\"\n[plant]\ntransfer = \"{plant}\"\n[sensor]\ntransfer = \"{sensor}\"\n\
+         [controller]\ntransfer = \"{controller}\"\n[rates]\nmin_hz = 20\nmax_hz = 5000\npoints = 17\n\
+         [methods]\nuse = [\"tustin\", \"step-invariant\"]\n[spec]\nmax_overshoot_pct = 30\n\
          max_sensitivity_peak = 1.6\n{extra}"
     )
 }
@@ -102,17 +102,17 @@ fn inputs_that_hung_now_fail_fast_naming_the_field() {
         (
             "tiny-lead",
             case_text("1/((1e-160*s + 1)*(1e-160*s + 1))", "1", CONTROLLER, ""),
-            "plant.tf",
+            "plant.transfer",
         ),
         (
             "power-36",
             case_text("1/(1e-9*s + 1)^36", "1", CONTROLLER, ""),
-            "plant.tf",
+            "plant.transfer",
         ),
         (
             "huge-sensor",
             case_text(PLANT, "2e305", CONTROLLER, ""),
-            "sensor.tf",
+            "sensor.transfer",
         ),
         (
             "slow-rate",
@@ -138,15 +138,15 @@ fn inputs_that_hung_now_fail_fast_naming_the_field() {
     // The command-line forms.
     let r = run(&[
         "discretize",
-        "--tf",
+        "--transfer",
         "1/(1e-320*s^2+s+1)",
         "--rate",
         "1000",
         "--method",
-        "zoh",
+        "step-invariant",
     ]);
     assert_eq!(r.code, 2, "{}", r.stderr);
-    assert!(r.stderr.contains("--tf"), "{}", r.stderr);
+    assert!(r.stderr.contains("--transfer"), "{}", r.stderr);
     let base = write_case(&dir, "base", &case_text(PLANT, "1", CONTROLLER, ""));
     for rate in ["1e-38", "1e-40", "1e-300", "2e9"] {
         let r = run(&["eval", &base, "--rate", rate]);
@@ -156,18 +156,18 @@ fn inputs_that_hung_now_fail_fast_naming_the_field() {
         assert!(r.stderr.len() < 200, "{}", r.stderr);
         let r = run(&[
             "discretize",
-            "--tf",
+            "--transfer",
             "1/(s+1)",
             "--rate",
             rate,
             "--method",
-            "zoh",
+            "step-invariant",
         ]);
         assert_eq!(r.code, 2, "discretize --rate {rate}: {}", r.stderr);
     }
     // The slowest and fastest accepted rates still evaluate, and quickly.
     for rate in ["1e-6", "1e9"] {
-        let r = run(&["eval", &base, "--rate", rate, "--method", "zoh"]);
+        let r = run(&["eval", &base, "--rate", rate, "--method", "step-invariant"]);
         assert_eq!(r.code, 0, "eval --rate {rate}: {}", r.stderr);
     }
     // Thousands of threads: refused before any work.
@@ -188,12 +188,12 @@ fn inputs_that_hung_now_fail_fast_naming_the_field() {
 /// Tustin of 1/(1e-9 s + 1)^34 reported poles up to |z| = 1.58 for a
 /// stable filter: its monic coefficients reach 1e306, where a 34-fold root
 /// cannot be resolved in double precision. It is now refused (exit 2,
-/// naming `--tf`), and so is the same filter in a case file.
+/// naming `--transfer`), and so is the same filter in a case file.
 #[test]
 fn a_filter_beyond_double_range_is_refused_not_misjudged() {
     let r = run(&[
         "discretize",
-        "--tf",
+        "--transfer",
         "1/(1e-9*s + 1)^34",
         "--rate",
         "1000",
@@ -201,14 +201,14 @@ fn a_filter_beyond_double_range_is_refused_not_misjudged() {
         "tustin",
     ]);
     assert_eq!(r.code, 2, "{}", r.stdout);
-    assert!(r.stderr.contains("--tf"), "{}", r.stderr);
+    assert!(r.stderr.contains("--transfer"), "{}", r.stderr);
     let text = case_text(PLANT, "1/(1e-9*s + 1)^34", CONTROLLER, "");
     let err = Case::parse(&text, Path::new("f.toml")).unwrap_err();
-    assert_eq!(err.field(), Some("sensor.tf"), "{err}");
+    assert_eq!(err.field(), Some("sensor.transfer"), "{err}");
 }
 
 /// A sensor written `1e-320/1e-320` is exactly 1: the pick must be that of
-/// `tf = "1"` (it said "the continuous design fails, Ms = NaN"). The two
+/// `transfer = "1"` (it said "the continuous design fails, Ms = NaN"). The two
 /// forms differ by one power-of-two scale, exact in floating point, so
 /// the reports are equal.
 #[test]
@@ -305,7 +305,7 @@ fn a_controller_beyond_range_is_an_input_error_everywhere() {
     ] {
         let r = run(&args);
         assert_eq!(r.code, 2, "{args:?}: {}", r.stderr);
-        assert!(r.stderr.contains("controller.tf"), "{}", r.stderr);
+        assert!(r.stderr.contains("controller.transfer"), "{}", r.stderr);
     }
 }
 
@@ -361,11 +361,11 @@ fn an_unwritable_stderr_is_not_a_panic() {
 fn an_error_reason_is_printed_once() {
     let e = looprate::error::Error::Model {
         context: "the plant".into(),
-        reason: looprate::ss::ModelError::Eigen,
+        reason: looprate::state_space::ModelError::Eigen,
     };
     let text = format!("{:#}", anyhow::Error::from(e));
     assert_eq!(text.matches("did not converge").count(), 1, "{text}");
-    let e = looprate::discretize::DiscretizeError::from(looprate::ss::ModelError::Eigen);
+    let e = looprate::discretize::DiscretizeError::from(looprate::state_space::ModelError::Eigen);
     let text = format!("{:#}", anyhow::Error::from(e));
     assert_eq!(text.matches("did not converge").count(), 1, "{text}");
 }
@@ -377,12 +377,12 @@ fn a_bad_prewarp_frequency_is_named() {
         let arg = format!("--prewarp-hz={w}");
         let r = run(&[
             "discretize",
-            "--tf",
+            "--transfer",
             "(s+1)/(s+10)",
             "--rate",
             "1000",
             "--method",
-            "tustin-prewarp",
+            "tustin-prewarped",
             &arg,
         ]);
         assert_eq!(r.code, 2, "{w}");
@@ -513,24 +513,24 @@ fn the_streamed_sweep_csv_is_the_whole_file() {
 fn numeric_kernels_end_on_extreme_matrices() {
     use nalgebra::DMatrix;
     let mut a = DMatrix::from_row_slice(2, 2, &[0.0, 1.0, -f64::INFINITY, -1e300]);
-    let t = looprate::ss::balancing_scale(&a);
+    let t = looprate::state_space::balancing_scale(&a);
     assert!(t.iter().all(|v| v.is_finite() && *v > 0.0));
     a[(1, 0)] = -1e308;
-    let t = looprate::ss::balancing_scale(&a);
+    let t = looprate::state_space::balancing_scale(&a);
     assert!(t.iter().all(|v| v.is_finite() && *v > 0.0));
     // A stable mode over a period of 1e38 s: e^{-1e38} = 0, at once.
     let m = DMatrix::from_row_slice(2, 2, &[-1e38, 0.0, 1e38, -2e38]);
-    let e = looprate::ss::expm(&m).unwrap();
+    let e = looprate::state_space::expm(&m).unwrap();
     assert!(e.iter().all(|v| v.abs() < 1e-300), "{e}");
     // An unstable one overflows: an error, not a hang.
     let m = DMatrix::from_row_slice(2, 2, &[1e38, 0.0, 0.0, -1.0]);
-    assert!(looprate::ss::expm(&m).is_err());
+    assert!(looprate::state_space::expm(&m).is_err());
     // Scaling and squaring by hand keeps a large exponent right: the
     // rotation [[0, w], [-w, 0]] with w = 2e8 + pi/4 has the exponential
     // [[cos w, sin w], [-sin w, cos w]] (closed form).
     let w = 2.0e8 + std::f64::consts::FRAC_PI_4;
     let m = DMatrix::from_row_slice(2, 2, &[0.0, w, -w, 0.0]);
-    let e = looprate::ss::expm(&m).unwrap();
+    let e = looprate::state_space::expm(&m).unwrap();
     assert!((e[(0, 0)] - w.cos()).abs() < 1e-6, "{e}");
     assert!((e[(0, 1)] - w.sin()).abs() < 1e-6, "{e}");
 }
