@@ -6,8 +6,8 @@ use criterion::{Criterion, criterion_group, criterion_main};
 use looprate::discretize::Method;
 use looprate::evaluate::{Point, PreparedLoop};
 use looprate::poly::Poly;
-use looprate::transfer::{Controller, Transfer};
 use looprate::time_response::TimeOptions;
+use looprate::transfer::{Controller, Transfer};
 
 /// An invented positioning axis: motor with two lags and a mode at 60 Hz.
 pub fn bench_loop() -> PreparedLoop {

@@ -223,7 +223,7 @@ pub struct Case {
     pub title: String,
     /// Parameters in file order; `models_at` takes values in this order.
     pub params: Vec<Param>,
-    /// Computation delays to evaluate, as fractions of a period in [0, 1];
+    /// Computation delays to evaluate, in periods (any finite value >= 0);
     /// `[0.0]` when `[timing]` is absent.
     pub compute_delays: Vec<f64>,
     /// The rate sweep.
@@ -241,10 +241,18 @@ pub struct Case {
     pub uncertainty: Option<UncertaintyMode>,
     /// Coefficient formats whose precision ceiling is wanted, if any.
     pub arithmetic: Option<Arithmetic>,
+    /// Sanity notes: values that are valid but look like a slip (a CPU
+    /// clock below 1 MHz, a range no plant variant can feel). Printed by
+    /// `check` and carried into the pick's notes; never an error.
+    pub notes: Vec<String>,
     plant: Model,
     sensor: Option<Model>,
     controller: ControllerModel,
 }
+
+/// A CPU clock below this is probably given in MHz instead of Hz
+/// (common practice, no source: microcontrollers run at 1 MHz and up).
+const CPU_HZ_SANITY: f64 = 1e6;
 
 /// Everything that can be wrong with a case file.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
@@ -331,6 +339,44 @@ struct Model {
     /// `plant`, `sensor` or `controller`.
     role: &'static str,
     source: Source,
+    /// The form the file used, for reports.
+    written: Written,
+}
+
+/// A block of the loop in the form the case file wrote it, so a report
+/// can show what the reader typed rather than the expanded polynomials.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Written {
+    /// `transfer = "..."`: the expression text.
+    Expression(String),
+    /// `zeros`, `poles`, `gain` (roots in rad/s).
+    ZerosPolesGain {
+        zeros: Vec<C64>,
+        poles: Vec<C64>,
+        gain: f64,
+    },
+    /// `pid = { ... }` (missing gains are zero).
+    Pid {
+        kp: f64,
+        ki: f64,
+        kd: f64,
+        derivative_filter_hz: Option<f64>,
+    },
+    /// `numerator_z`, `denominator_z` (descending powers of z) at `rate_hz`.
+    InZ {
+        numerator: Vec<f64>,
+        denominator: Vec<f64>,
+        rate_hz: f64,
+    },
+}
+
+/// The three blocks as written; `sensor` is None when the file has no
+/// `[sensor]` (a unit sensor).
+#[derive(Debug, Clone, PartialEq)]
+pub struct WrittenLoop {
+    pub plant: Written,
+    pub sensor: Option<Written>,
+    pub controller: Written,
 }
 
 #[derive(Debug, Clone, PartialEq)]
@@ -581,6 +627,39 @@ fn path_at(doc: &toml::de::DeTable<'_>, off: usize) -> Option<String> {
     walk_table(doc, off, &mut path).then(|| path.join("."))
 }
 
+/// Case-file keys an earlier version accepted, as (table, old key, new
+/// key). No alias is kept: an old key is refused with its new name.
+const RENAMED_KEYS: [(&str, &str, &str); 5] = [
+    ("plant", "tf", "transfer"),              // old name
+    ("sensor", "tf", "transfer"),             // old name
+    ("controller", "tf", "transfer"),         // old name
+    ("controller", "num_z", "numerator_z"),   // old name
+    ("controller", "den_z", "denominator_z"), // old name
+];
+
+/// The first renamed key in the document, as a `Shape` error at its place.
+fn renamed_key(ctx: &Ctx, text: &str, doc: &toml::de::DeTable<'_>) -> Option<CaseError> {
+    for (table, old, new) in RENAMED_KEYS {
+        let Some((_, v)) = doc.iter().find(|(k, _)| k.get_ref() == table) else {
+            continue;
+        };
+        let toml::de::DeValue::Table(t) = v.get_ref() else {
+            continue;
+        };
+        if let Some((k, _)) = t.iter().find(|(k, _)| k.get_ref() == old) {
+            let (line, column) = line_column(text, k.span().start);
+            return Some(CaseError::Shape {
+                file: ctx.file.clone(),
+                field: format!("{table}.{old}"),
+                line,
+                column,
+                message: format!("`{old}` is now called `{new}`"),
+            });
+        }
+    }
+    None
+}
+
 /// Keys of the table at `path` in file order (the parsed table sorts them).
 fn keys_in_file_order(doc: &toml::de::DeTable<'_>, path: &[&str]) -> Vec<String> {
     let mut table = doc;
@@ -713,7 +792,13 @@ fn roots(ctx: &Ctx, field: &str, values: &[toml::Value]) -> Result<Vec<C64>, Cas
 }
 
 /// Checks a model's transfer function: finite, non-zero, proper.
-fn check_transfer(ctx: &Ctx, field: &str, role: &str, tf: &Transfer, prefix: &str) -> Result<(), CaseError> {
+fn check_transfer(
+    ctx: &Ctx,
+    field: &str,
+    role: &str,
+    tf: &Transfer,
+    prefix: &str,
+) -> Result<(), CaseError> {
     if !tf.is_finite() {
         return Err(ctx.invalid(field, format!("{prefix}a coefficient is not finite")));
     }
@@ -785,7 +870,7 @@ fn model_from(
     gain: Option<f64>,
 ) -> Result<Option<Model>, CaseError> {
     let roots_form = zeros.is_some() || poles.is_some() || gain.is_some();
-    match (tf, roots_form) {
+    match (transfer, roots_form) {
         (Some(_), true) => Err(ctx.invalid(
             base,
             "given two ways: `transfer` and `zeros`/`poles`/`gain`; keep one",
@@ -797,6 +882,7 @@ fn model_from(
                 field,
                 role,
                 source: Source::Expr(expr),
+                written: Written::Expression(text),
             }))
         }
         (None, true) => {
@@ -830,13 +916,18 @@ fn model_from(
                 field: base.to_string(),
                 role,
                 source: Source::Fixed(tf),
+                written: Written::ZerosPolesGain {
+                    zeros: z,
+                    poles: p,
+                    gain: k,
+                },
             }))
         }
         (None, false) => Ok(None),
     }
 }
 
-fn pid(ctx: &Ctx, raw: RawPid) -> Result<Transfer, CaseError> {
+fn pid(ctx: &Ctx, raw: RawPid) -> Result<(Transfer, Written), CaseError> {
     let term = |name: &str, v: Option<f64>| -> Result<f64, CaseError> {
         match v {
             Some(v) => ctx.number(&format!("controller.pid.{name}"), v, |_| true, "finite"),
@@ -876,7 +967,13 @@ fn pid(ctx: &Ctx, raw: RawPid) -> Result<Transfer, CaseError> {
     let num = den.scale(kp).add(&b.scale(ki)).add(&s.mul(&a).scale(kd));
     let tf = Transfer::new(num, den);
     check_transfer(ctx, "controller.pid", "controller", &tf, "")?;
-    Ok(tf)
+    let written = Written::Pid {
+        kp,
+        ki,
+        kd,
+        derivative_filter_hz: raw.derivative_filter_hz.filter(|_| kd != 0.0),
+    };
+    Ok((tf, written))
 }
 
 fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, CaseError> {
@@ -913,20 +1010,21 @@ fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, Cas
         }
     }
     if let Some(p) = raw.pid {
-        let tf = pid(ctx, p)?;
+        let (tf, written) = pid(ctx, p)?;
         return Ok(ControllerModel::Continuous(Model {
             field: "controller.pid".into(),
             role: "controller",
             source: Source::Fixed(tf),
+            written,
         }));
     }
     if raw.numerator_z.is_some() || raw.denominator_z.is_some() || raw.rate_hz.is_some() {
         let num = raw
             .numerator_z
             .ok_or_else(|| ctx.missing("controller.numerator_z", "numerator coefficients in z"))?;
-        let den = raw
-            .denominator_z
-            .ok_or_else(|| ctx.missing("controller.denominator_z", "denominator coefficients in z"))?;
+        let den = raw.denominator_z.ok_or_else(|| {
+            ctx.missing("controller.denominator_z", "denominator coefficients in z")
+        })?;
         let rate = raw.rate_hz.ok_or_else(|| {
             ctx.missing("controller.rate_hz", "the rate the controller runs at, Hz")
         })?;
@@ -967,7 +1065,7 @@ fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, Cas
             ));
         }
         return Ok(ControllerModel::Discrete(DiscreteTransfer {
-            transfer,
+            transfer: tf,
             period_s: 1.0 / rate,
         }));
     }
@@ -1001,6 +1099,12 @@ fn params_from(ctx: &Ctx, table: toml::Table, order: &[String]) -> Result<Vec<Pa
             return Err(ctx.invalid(
                 &field,
                 "`s` is the Laplace variable and cannot be a parameter",
+            ));
+        }
+        if name == crate::expr::PI_NAME {
+            return Err(ctx.invalid(
+                &field,
+                "`pi` is built in (3.14159...) and cannot be a parameter",
             ));
         }
         if !is_identifier(name) {
@@ -1099,8 +1203,8 @@ fn delays_from(ctx: &Ctx, raw: Option<RawTiming>) -> Result<Vec<f64>, CaseError>
         let d = ctx.number(
             &f,
             d,
-            |d| (0.0..=1.0).contains(&d),
-            "a fraction of a period from 0 to 1",
+            |d| d >= 0.0 && d.is_finite(),
+            "a delay in periods, finite and >= 0 (1.5 is a period and a half)",
         )?;
         if out.contains(&d) {
             return Err(ctx.invalid(&f, format!("{d} is listed twice")));
@@ -1397,6 +1501,22 @@ fn arithmetic_from(ctx: &Ctx, raw: Option<RawArithmetic>) -> Result<Option<Arith
 // ------------------------------------------------------------------ Case
 
 impl Case {
+    /// The plant, sensor and controller in the form the file wrote them.
+    pub fn written(&self) -> WrittenLoop {
+        WrittenLoop {
+            plant: self.plant.written.clone(),
+            sensor: self.sensor.as_ref().map(|m| m.written.clone()),
+            controller: match &self.controller {
+                ControllerModel::Continuous(m) => m.written.clone(),
+                ControllerModel::Discrete(d) => Written::InZ {
+                    numerator: d.transfer.numerator.descending(),
+                    denominator: d.transfer.denominator.descending(),
+                    rate_hz: 1.0 / d.period_s,
+                },
+            },
+        }
+    }
+
     /// Reads and validates a case file.
     pub fn load(path: &Path) -> Result<Case, CaseError> {
         let text = std::fs::read_to_string(path).map_err(|e| CaseError::Read {
@@ -1420,6 +1540,9 @@ impl Case {
                 message: e.message().trim_end().to_string(),
             }
         })?;
+        if let Some(e) = renamed_key(&ctx, text, doc.get_ref()) {
+            return Err(e);
+        }
         let raw: RawCase = toml::from_str(text).map_err(|e| {
             let off = e.span().map_or(0, |s| s.start);
             let (line, column) = line_column(text, off);
@@ -1447,14 +1570,15 @@ impl Case {
         })?;
         let sensor = match raw.sensor {
             Some(p) => Some(
-                model_from(&ctx, "sensor", "sensor", p.transfer, p.zeros, p.poles, p.gain)?.ok_or_else(
-                    || {
-                        ctx.missing(
-                            "sensor",
-                            "`transfer` or `zeros`/`poles`/`gain` (or drop [sensor])",
-                        )
-                    },
-                )?,
+                model_from(
+                    &ctx, "sensor", "sensor", p.transfer, p.zeros, p.poles, p.gain,
+                )?
+                .ok_or_else(|| {
+                    ctx.missing(
+                        "sensor",
+                        "`transfer` or `zeros`/`poles`/`gain` (or drop [sensor])",
+                    )
+                })?,
             ),
             None => None,
         };
@@ -1478,9 +1602,11 @@ impl Case {
                         let col = e.identifier_column(&name).unwrap_or(1);
                         let err = ExprError {
                             column: col,
-                            message: format!(
-                                "unbound identifier `{name}`: declare it under [params]"
-                            ),
+                            message: if name == "z" {
+                                crate::expr::unbound_message(&name)
+                            } else {
+                                format!("unbound identifier `{name}`: declare it under [params]")
+                            },
                         };
                         return Err(ctx.expression(&m.field, e.source(), &err));
                     }
@@ -1508,7 +1634,36 @@ impl Case {
                 .map_or_else(|| "case".to_string(), |s| s.to_string_lossy().into_owned())
         });
 
+        let mut notes = Vec::new();
+        if let Some(b) = &budget
+            && b.cpu_hz < CPU_HZ_SANITY
+        {
+            notes.push(format!(
+                "budget.cpu_hz = {} Hz is below 1 MHz: the field is in Hz; is this the clock in MHz?",
+                b.cpu_hz
+            ));
+        }
+        if uncertainty.is_some() {
+            let in_loop_models: Vec<String> = std::iter::once(&plant)
+                .chain(sensor.as_ref())
+                .filter_map(|m| match &m.source {
+                    Source::Expr(e) => Some(e.identifiers()),
+                    _ => None,
+                })
+                .flatten()
+                .collect();
+            for p in params.iter().filter(|p| p.min < p.max) {
+                if !in_loop_models.contains(&p.name) {
+                    notes.push(format!(
+                        "params.{} has a range but appears only in the controller: the controller is designed once, so every plant variant is the same loop",
+                        p.name
+                    ));
+                }
+            }
+        }
+
         let case = Case {
+            notes,
             source: source.to_path_buf(),
             title,
             params,

@@ -9,10 +9,10 @@ use serde::Serialize;
 
 use crate::poly::{C64, Poly};
 use crate::state_space::{ModelError, StateSpace, eigenvalues, hold_integrals};
-use crate::transfer::Transfer;
 use crate::time_response::{
     DisturbanceFigures, StepFigures, TimeOptions, TracePoint, continuous_metrics,
 };
+use crate::transfer::Transfer;
 
 /// A rational stand-in for the delay `e^{-s theta}` of hold plus
 /// computation, `theta = T/2 + tau`.

@@ -6,6 +6,7 @@ use serde::Serialize;
 
 use crate::closed_loop::{ClosedLoop, Stability};
 use crate::continuous::{ContinuousLoop, HoldApprox};
+use crate::delay_margin::{DelayMargin, exact_delay_margin};
 use crate::discretize::{Method, discretize};
 use crate::frequency::{FrequencyRange, LoopFigures, loop_figures};
 use crate::hold::{HoldEquivalent, plant_and_sensor};
@@ -14,11 +15,11 @@ use std::sync::Mutex;
 
 use crate::poly::C64;
 use crate::state_space::{ModelError, StateSpace};
-use crate::transfer::{Controller, DiscreteTransfer, Transfer};
 use crate::time_response::{
     DisturbanceFigures, StepFigures, TimeOptions, TracePoint, horizon_steps, sampled_figures,
     sampled_trace,
 };
+use crate::transfer::{Controller, DiscreteTransfer, Transfer};
 
 /// Outcome of one evaluation.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -59,10 +60,25 @@ pub struct Figures {
     pub gain_margin_db: Option<f64>,
     pub phase_margin_deg: Option<f64>,
     pub crossover_hz: Option<f64>,
+    /// The exact delay margin: the smallest extra actuator delay (any
+    /// length) at which the exact sampled loop loses stability, s. None:
+    /// no gain crossing (infinite), or not located (a note says why); see
+    /// `docs/figures.md`. For the continuous design it equals the estimate.
     pub delay_margin_s: Option<f64>,
+    /// `min_i phi_i / w_i` over the gain crossings, s; only an estimate for
+    /// a sampled loop. None: no gain crossing.
+    pub delay_margin_estimate_s: Option<f64>,
     pub sensitivity_peak: f64,
     pub horizon_s: f64,
     pub horizon_capped: bool,
+    /// True when the exact delay margin was searched for (`eval`, the
+    /// recommended rate); a sweep leaves it unsearched (its cost grows
+    /// with the delay in periods) and reports the estimate.
+    pub delay_margin_searched: bool,
+    /// Why a loop figure is missing when it was not located (|L| = 1 over
+    /// an interval, a crossing exactly at an end, a delay margin beyond the
+    /// search); empty otherwise.
+    pub loop_notes: Vec<String>,
 }
 
 impl Figures {
@@ -81,11 +97,29 @@ impl Figures {
             ("phase margin", opt(self.phase_margin_deg)),
             ("crossover", opt(self.crossover_hz)),
             ("delay margin", opt(self.delay_margin_s)),
+            ("delay margin estimate", opt(self.delay_margin_estimate_s)),
             ("sensitivity peak", self.sensitivity_peak.is_nan()),
         ]
         .into_iter()
         .find(|(_, bad)| *bad)
         .map(|(name, _)| name)
+    }
+
+    /// The text for a missing `delay_margin_s`: `not searched` in a sweep,
+    /// `not located` when the search gave up (the note says why), `inf`
+    /// when there is no gain crossing.
+    pub fn delay_margin_missing(&self) -> &'static str {
+        if !self.delay_margin_searched {
+            "not searched"
+        } else if self
+            .loop_notes
+            .iter()
+            .any(|n| n.starts_with("delay margin"))
+        {
+            "not located"
+        } else {
+            "inf"
+        }
     }
 
     fn from_parts(step: &StepFigures, dist: &DisturbanceFigures, freq: &LoopFigures) -> Figures {
@@ -100,10 +134,13 @@ impl Figures {
             gain_margin_db: freq.gain_margin_db,
             phase_margin_deg: freq.phase_margin_deg,
             crossover_hz: freq.crossover_hz,
-            delay_margin_s: freq.delay_margin_s,
+            delay_margin_s: None,
+            delay_margin_estimate_s: freq.delay_margin_estimate_s,
             sensitivity_peak: freq.sensitivity_peak,
             horizon_s: step.horizon_s,
             horizon_capped: step.horizon_capped,
+            loop_notes: freq.notes.clone(),
+            delay_margin_searched: false,
         }
     }
 }
@@ -146,7 +183,8 @@ impl Evaluation {
 }
 
 /// A grid point: rate, method (None for a controller given in z) and
-/// computation delay as a fraction of the period.
+/// computation delay in periods (any finite value >= 0; 1.5 is a period
+/// and a half).
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Point {
     pub rate_hz: f64,
@@ -287,6 +325,9 @@ impl PreparedLoop {
                 fastest
             ));
         }
+        if let Some(f) = &e.figures {
+            out.extend(f.loop_notes.iter().cloned());
+        }
         if let Some(f) = &e.figures
             && f.horizon_capped
         {
@@ -424,7 +465,7 @@ impl PreparedLoop {
             Err(e) => return Evaluation::error(e),
         };
         match ClosedLoop::new(&plant.hold, c) {
-            Ok(cl) => self.evaluate_closed(&plant.hold, c, &cl, &|w| plant.response(w)),
+            Ok(cl) => self.evaluate_closed(&plant.hold, c, &cl, &|w| plant.response(w), false),
             Err(e) => Evaluation::error(format!("closing the loop: {e}")),
         }
     }
@@ -432,12 +473,34 @@ impl PreparedLoop {
     /// Evaluate the exact sampled-data loop at one point with the given
     /// controller in place of the point's own discretization.
     pub fn sampled_with(&self, p: &Point, c: &DiscreteTransfer) -> Evaluation {
+        self.sampled_with_margin(p, c, false)
+    }
+
+    /// `sampled` plus the exact delay margin (`delay_margin`): the full
+    /// figures of one point, for `eval` and the recommended rate. A sweep
+    /// uses `sampled`, whose `delay_margin_s` is not searched.
+    pub fn sampled_exact(&self, p: &Point) -> Evaluation {
+        if let Err(e) = check_point(p) {
+            return Evaluation::error(e);
+        }
+        match self.controller_at(p.rate_hz, p.method) {
+            Ok(c) => self.sampled_with_margin(p, &c, true),
+            Err(e) => Evaluation::error(e),
+        }
+    }
+
+    fn sampled_with_margin(
+        &self,
+        p: &Point,
+        c: &DiscreteTransfer,
+        exact_margin: bool,
+    ) -> Evaluation {
         match self.sampled_loop_with(p, c) {
             Ok((hold, cl)) => {
                 let pulse = hold.augmented();
                 let t = hold.period_s;
                 let plant = |w: f64| pulse.response_at(C64::from_polar(1.0, w * t), 0);
-                self.evaluate_closed(&hold, c, &cl, &plant)
+                self.evaluate_closed(&hold, c, &cl, &plant, exact_margin)
             }
             Err(e) => Evaluation::error(e),
         }
@@ -451,6 +514,7 @@ impl PreparedLoop {
         c: &DiscreteTransfer,
         cl: &ClosedLoop,
         plant: &dyn Fn(f64) -> C64,
+        exact_margin: bool,
     ) -> Evaluation {
         let poles = match cl.poles() {
             Ok(v) => v,
@@ -469,7 +533,22 @@ impl PreparedLoop {
         let l = |w: f64| c.transfer.eval(C64::from_polar(1.0, w * t)) * plant(w);
         let range = self.range_below(std::f64::consts::PI / t);
         let freq = loop_figures(&l, &range);
-        finish(step, dist, freq, &poles)
+        let margin = exact_margin
+            .then(|| exact_delay_margin(&self.plant_model, c, t, hold.delay_total(), &freq));
+        let mut e = finish(step, dist, freq, &poles);
+        if let (Some(f), Some(margin)) = (e.figures.as_mut(), margin) {
+            f.delay_margin_searched = true;
+            f.delay_margin_s = match margin {
+                DelayMargin::Seconds(v) => Some(v),
+                DelayMargin::NoCrossing => None,
+                DelayMargin::NotLocated(why) => {
+                    f.loop_notes
+                        .push(format!("delay margin not located: {why}"));
+                    None
+                }
+            };
+        }
+        e
     }
 
     /// Exact traces (step, disturbance) at one point, `periods` long
@@ -570,7 +649,14 @@ impl PreparedLoop {
         }
         let range = FrequencyRange::from_roots(&roots, None);
         let freq = loop_figures(&|w| cl.loop_at(w), &range);
-        finish(step, dist, freq, &poles)
+        let mut e = finish(step, dist, freq, &poles);
+        // A delay rotates a continuous loop gain exactly, L(jw) e^{-jw tau}:
+        // there the estimate is the exact figure.
+        if let Some(f) = e.figures.as_mut() {
+            f.delay_margin_s = f.delay_margin_estimate_s;
+            f.delay_margin_searched = true;
+        }
+        e
     }
 
     /// The continuous loop with the hold and computation delay at `p`
@@ -589,8 +675,11 @@ fn check_point(p: &Point) -> Result<(), String> {
             p.rate_hz
         ));
     }
-    if !(0.0..=1.0).contains(&p.delay) {
-        return Err(format!("computation delay {} is outside [0, 1]", p.delay));
+    if !(p.delay >= 0.0 && p.delay.is_finite()) {
+        return Err(format!(
+            "computation delay must be non-negative and finite (in periods), got {}",
+            p.delay
+        ));
     }
     Ok(())
 }

@@ -1,11 +1,18 @@
 //! The exact discrete equivalent of hold + computation delay + plant +
 //! sensor, and the matrices that give the plant output between samples.
 //!
-//! Over one period the input is piecewise constant: `u_{k-1}` on
-//! `[kT, kT + tau)` and `u_k` on `[kT + tau, (k+1)T)`, so every state and
-//! output inside the period is an exact linear function of
-//! `(x_k, u_{k-1}, u_k, w)` whose coefficients come from matrix
-//! exponentials (Van Loan's augmented form; no inverse of `A`).
+//! A computation delay of `d` periods, any `d >= 0`, is split as
+//! `d = m + f` with `m` whole periods and `f` in `[0, 1]` (`m = 0` for
+//! `d <= 1`, else `f` in `(0, 1]`, so `d = 1` stays the plain one-period
+//! case). The applied command is `v_k = u_{k-m}`: the whole periods are
+//! unit delays of the command, and over one period the actuator holds
+//! `v_{k-1}` on `[kT, kT + fT)` and `v_k` on `[kT + fT, (k+1)T)`, the
+//! fractional-delay zero-order-hold equivalent of Franklin, Powell and
+//! Workman. Every state and output inside the period is then an exact linear
+//! function of the state, `u_{k-1}`, `u_k` and `w`, with coefficients from
+//! matrix exponentials (Van Loan's augmented form; no inverse of `A`).
+//! With `m >= 1` the last `m` commands `u_{k-m-1} .. u_{k-2}` are extra
+//! states after the plant's (see `HoldEquivalent` and DEVELOPERS.md).
 
 use nalgebra::{DMatrix, DVector};
 
@@ -51,26 +58,41 @@ pub struct IntersampleRow {
     pub cw: f64,
 }
 
-/// Exact hold + fractional-delay equivalent at one period and delay.
+/// Exact hold + delay equivalent at one period and delay.
 ///
-/// `x_{k+1} = Phi x_k + Gamma0 u_k + Gamma1 u_{k-1} + (Gamma0 + Gamma1) w`
-/// for a load disturbance `w` held constant; the controller samples
-/// `y_k = c_m x_k + d_m (u_{k-1} + w)` (the sample is taken just before
-/// the new command is applied).
+/// `x_{k+1} = Phi x_k + Gamma0 u_k + Gamma1 u_{k-1} + Gamma_w w` for a load
+/// disturbance `w` held constant; the controller samples
+/// `y_k = c_m x_k + d_m u_{k-1} + d_mw w` (the sample is taken just before
+/// the new command is applied). With whole periods of delay
+/// (`delay_periods = m >= 1`) the state `x` is the plant's followed by the
+/// commands `u_{k-m-1} .. u_{k-2}` still on their way, `Gamma0 = 0` and
+/// `d_m = 0`; with `m = 0` it is the plant's alone,
+/// `Gamma_w = Gamma0 + Gamma1` and `d_mw = d_m`.
 #[derive(Debug, Clone)]
 pub struct HoldEquivalent {
     pub period_s: f64,
-    /// Computation delay as a fraction of the period, 0..=1.
+    /// The fraction `f` of the computation delay, 0..=1 (the delay is
+    /// `delay_periods + delay_fraction` periods).
     pub delay_fraction: f64,
+    /// Whole periods `m` of the computation delay, held as unit delays of
+    /// the command.
+    pub delay_periods: usize,
     pub phi: DMatrix<f64>,
     pub gamma0: DVector<f64>,
     pub gamma1: DVector<f64>,
-    /// Measured-output row and feedthrough.
+    /// The load disturbance's column.
+    pub gamma_w: DVector<f64>,
+    /// Measured-output row and the feedthrough of `u_{k-1}`.
     pub cm: DVector<f64>,
     pub dm: f64,
-    /// Plant-output row and feedthrough.
+    /// Feedthrough of the load disturbance into the sample.
+    pub dm_w: f64,
+    /// Plant-output row and feedthrough (of the command applied at the
+    /// sample instant, and of `w`; with `m >= 1` that command is a state and
+    /// `dy` is 0).
     pub cy: DVector<f64>,
     pub dy: f64,
+    pub dy_w: f64,
     /// Evenly spaced points inside a period (the first at the sample).
     pub intersample: Vec<IntersampleRow>,
     /// Index of the first point at or after the computation delay: points
@@ -80,9 +102,22 @@ pub struct HoldEquivalent {
 
 impl HoldEquivalent {
     /// Build the equivalent of `model` (from `plant_and_sensor`) at period
-    /// `period_s` with delay `delay_fraction * period_s`, and the rows for
-    /// `points` evenly spaced output points per period.
+    /// `period_s` with a computation delay of `delay_periods * period_s`
+    /// (any finite `delay_periods >= 0`), and the rows for `points` evenly
+    /// spaced output points per period.
     pub fn new(
+        model: &StateSpace,
+        period_s: f64,
+        delay_periods: f64,
+        points: usize,
+    ) -> Result<HoldEquivalent, ModelError> {
+        let (whole, fraction) = split_delay(delay_periods);
+        let eq = HoldEquivalent::fractional(model, period_s, fraction, points)?;
+        Ok(if whole == 0 { eq } else { eq.delayed_by(whole) })
+    }
+
+    /// The equivalent with a delay of `delay_fraction` (0..=1) of a period.
+    fn fractional(
         model: &StateSpace,
         period_s: f64,
         delay_fraction: f64,
@@ -169,16 +204,99 @@ impl HoldEquivalent {
         Ok(HoldEquivalent {
             period_s,
             delay_fraction,
+            delay_periods: 0,
+            gamma_w: &gamma0 + &gamma1,
             phi,
             gamma0,
             gamma1,
             cm,
             dm,
+            dm_w: dm,
             cy,
             dy,
+            dy_w: dy,
             intersample,
             switch_index: first_after,
         })
+    }
+
+    /// This fractional equivalent (in terms of the applied command `v`)
+    /// behind `m >= 1` more unit delays of the command: `v_k = u_{k-m}`.
+    /// New states `r_1 .. r_m = u_{k-m-1} .. u_{k-2}` follow the plant's, so
+    /// `v_{k-1} = r_1` and `v_k` is `r_2` (or `u_{k-1}` when `m = 1`).
+    fn delayed_by(self, m: usize) -> HoldEquivalent {
+        let n = self.phi.nrows();
+        let dim = n + m;
+        let mut phi = DMatrix::zeros(dim, dim);
+        phi.view_mut((0, 0), (n, n)).copy_from(&self.phi);
+        // x' = Phi x + Gamma0 v_k + Gamma1 v_{k-1} + (Gamma0 + Gamma1) w.
+        phi.view_mut((0, n), (n, 1)).copy_from(&self.gamma1);
+        let mut gamma1 = DVector::zeros(dim);
+        if m == 1 {
+            gamma1.rows_mut(0, n).copy_from(&self.gamma0);
+        } else {
+            phi.view_mut((0, n + 1), (n, 1)).copy_from(&self.gamma0);
+        }
+        // The command line shifts by one each period; u_{k-1} enters last.
+        for j in 0..m - 1 {
+            phi[(n + j, n + j + 1)] = 1.0;
+        }
+        gamma1[n + m - 1] = 1.0;
+        let mut gamma_w = DVector::zeros(dim);
+        gamma_w.rows_mut(0, n).copy_from(&self.gamma_w);
+        let extend = |row: &DVector<f64>, held: f64| {
+            let mut out = DVector::zeros(dim);
+            out.rows_mut(0, n).copy_from(row);
+            out[n] = held;
+            out
+        };
+        let cm = extend(&self.cm, self.dm);
+        let cy = extend(&self.cy, self.dy);
+        let intersample = self
+            .intersample
+            .into_iter()
+            .map(|row| {
+                // cu1 weighs v_{k-1} = r_1, cu0 weighs v_k.
+                let mut ey = extend(&row.ey, row.cu1);
+                let cu1 = if m == 1 {
+                    row.cu0
+                } else {
+                    ey[n + 1] += row.cu0;
+                    0.0
+                };
+                IntersampleRow {
+                    offset_s: row.offset_s,
+                    ey,
+                    cu1,
+                    cu0: 0.0,
+                    cw: row.cw,
+                }
+            })
+            .collect::<Vec<_>>();
+        // No point of the period sees u_k yet.
+        let switch_index = intersample.len();
+        HoldEquivalent {
+            period_s: self.period_s,
+            delay_fraction: self.delay_fraction,
+            delay_periods: m,
+            phi,
+            gamma0: DVector::zeros(dim),
+            gamma1,
+            gamma_w,
+            cm,
+            dm: 0.0,
+            dm_w: self.dm_w,
+            cy,
+            dy: 0.0,
+            dy_w: self.dy_w,
+            intersample,
+            switch_index,
+        }
+    }
+
+    /// The whole delay in periods, `delay_periods + delay_fraction`.
+    pub fn delay_total(&self) -> f64 {
+        self.delay_periods as f64 + self.delay_fraction
     }
 
     /// The augmented discrete model from `u_k` to `y_k`, states
@@ -210,6 +328,18 @@ impl HoldEquivalent {
             period_s: self.period_s,
         })
     }
+}
+
+/// Split a delay of `d` periods into whole periods `m` and a fraction `f`
+/// with `d = m + f`: `m = 0, f = d` for `d <= 1`, else `f` in `(0, 1]`, so
+/// a whole number of periods keeps the plain one-period equivalent at its
+/// end (`d = 2` is `z^-1` times `d = 1`).
+pub fn split_delay(d: f64) -> (usize, f64) {
+    if d <= 1.0 {
+        return (0, d.max(0.0));
+    }
+    let m = (d.ceil() - 1.0).max(0.0);
+    (m as usize, d - m)
 }
 
 #[cfg(test)]
@@ -267,5 +397,59 @@ mod tests {
             let b = g0.transfer.eval(z) / z;
             assert!((a - b).norm() < 1e-12 * b.norm());
         }
+    }
+
+    /// A second-order plant with feedthrough in the sensor and a lightly
+    /// damped mode, so every block of the extended state is exercised.
+    fn second_order_with_sensor() -> StateSpace {
+        let p = Transfer::new(
+            Poly::from_descending(&[1.0, 30.0]),
+            Poly::from_descending(&[1.0, 2.0, 400.0]),
+        );
+        let h = Transfer::new(
+            Poly::from_descending(&[0.5, 100.0]),
+            Poly::from_descending(&[1.0, 100.0]),
+        );
+        plant_and_sensor(&p, &h).unwrap()
+    }
+
+    #[test]
+    fn whole_periods_are_unit_delays_of_the_fractional_one() {
+        // Definition of a delay of m + f periods (Franklin, Powell and
+        // Workman's fractional-delay equivalent behind m unit delays):
+        // G_{m+f}(z) = z^-m G_f(z), for f = 0, a fraction, and f = 1.
+        let m = second_order_with_sensor();
+        let t = 0.01;
+        for (d, whole, f) in [
+            (1.5, 1, 0.5),
+            (2.0, 2, 0.0),
+            (2.0, 1, 1.0),
+            (3.25, 3, 0.25),
+            (4.7, 4, 0.7),
+        ] {
+            let gd = HoldEquivalent::new(&m, t, d, 16)
+                .unwrap()
+                .pulse_transfer()
+                .unwrap();
+            let gf = HoldEquivalent::new(&m, t, f, 16)
+                .unwrap()
+                .pulse_transfer()
+                .unwrap();
+            for w in [0.3, 3.0, 30.0, 300.0] {
+                let z = nalgebra::Complex::from_polar(1.0, w * t);
+                let a = gd.transfer.eval(z);
+                let b = gf.transfer.eval(z) / z.powi(whole);
+                assert!((a - b).norm() < 1e-9 * b.norm(), "d={d} w={w}: {a} vs {b}");
+            }
+        }
+    }
+
+    #[test]
+    fn split_delay_keeps_whole_periods_at_the_end() {
+        assert_eq!(split_delay(0.0), (0, 0.0));
+        assert_eq!(split_delay(0.5), (0, 0.5));
+        assert_eq!(split_delay(1.0), (0, 1.0));
+        assert_eq!(split_delay(1.5), (1, 0.5));
+        assert_eq!(split_delay(2.0), (1, 1.0));
     }
 }

@@ -37,21 +37,31 @@ struct Cli {
 
 #[derive(Subcommand)]
 enum Command {
-    /// Print the controller in z that a method gives at one rate.
+    /// Print the controller in z that a method gives at one rate: the
+    /// controller of a case file (any form, PID included), or one written
+    /// with --transfer.
     Discretize {
-        /// Continuous controller, a rational expression in s, e.g. "0.05*(s+12)/s".
-        #[arg(long = "tf")]
-        transfer: String,
+        /// A case file whose [controller] is discretized (its pre-warp
+        /// frequency and loop crossover apply to tustin-prewarped).
+        case: Option<PathBuf>,
+        /// Continuous controller, a rational expression in s, e.g. "0.05*(s+12)/s"
+        /// (instead of a case file).
+        #[arg(long, conflicts_with = "case")]
+        transfer: Option<String>,
+        /// Refused: renamed --transfer.
+        #[arg(long = "tf", hide = true)] // old name
+        old_transfer: Option<String>,
         /// Loop rate, Hz.
         #[arg(long)]
         rate: f64,
-        /// zoh, foh, impulse, tustin, tustin-prewarped, matched, forward-euler, backward-euler.
+        /// step-invariant, ramp-invariant, impulse-invariant, tustin, tustin-prewarped, pole-zero-match, forward-euler, backward-euler.
         #[arg(long)]
         method: String,
-        /// Pre-warp frequency for tustin-prewarped, Hz.
+        /// Pre-warp frequency for tustin-prewarped, Hz (default with a case
+        /// file: the case's own, else the continuous loop's crossover).
         #[arg(long = "prewarp-hz")]
         prewarp_hz: Option<f64>,
-        /// Print JSON (keys method, rate_hz, num, den, poles, zeros).
+        /// Print JSON (keys method, rate_hz, numerator, denominator, poles, zeros).
         #[arg(long)]
         json: bool,
     },
@@ -62,6 +72,7 @@ enum Command {
     },
     /// Evaluate the loop at one rate, method and computation delay.
     Eval {
+        /// The case file (TOML).
         case: PathBuf,
         /// Loop rate, Hz.
         #[arg(long)]
@@ -69,7 +80,7 @@ enum Command {
         /// Discretization method (not needed for a controller given in z).
         #[arg(long)]
         method: Option<String>,
-        /// Computation delay as a fraction of a period (default: the case's first).
+        /// Computation delay in periods, any finite value >= 0 (default: the case's first).
         #[arg(long)]
         delay: Option<f64>,
         /// Print JSON with the loop model's keys.
@@ -81,11 +92,12 @@ enum Command {
     },
     /// Evaluate every grid point of the case and write DIR/sweep.csv.
     Sweep {
+        /// The case file (TOML).
         case: PathBuf,
-        /// Output folder.
+        /// Output folder (created if missing).
         #[arg(long, default_value = "out")]
         out: PathBuf,
-        /// Worker threads (default: all cores).
+        /// Worker threads (default: all cores). Results do not depend on it.
         #[arg(long)]
         threads: Option<usize>,
         /// No progress bar.
@@ -102,14 +114,19 @@ enum Command {
     /// Find the slowest rate that meets the spec for each method, recommend
     /// one with headroom, and check the CPU budget.
     Pick {
+        /// The case file (TOML).
         case: PathBuf,
+        /// Output folder for sweep.csv, pick.json, the report and the
+        /// charts (created if missing).
         #[arg(long, default_value = "out")]
         out: PathBuf,
         /// Print pick.json to stdout instead of the summary.
         #[arg(long)]
         json: bool,
+        /// Worker threads (default: all cores). Results do not depend on it.
         #[arg(long)]
         threads: Option<usize>,
+        /// No progress bar.
         #[arg(long)]
         quiet: bool,
         /// Skip the PNG charts (the report is still written).
@@ -167,15 +184,45 @@ fn parse_method(name: &str) -> Result<Method> {
     name.parse::<Method>().map_err(|e| anyhow!("--method: {e}"))
 }
 
+/// The controller written with `--transfer`, errors located by column.
+fn transfer_from_option(text: &str) -> Result<Transfer> {
+    let located = |e: looprate::expr::ExprError| {
+        anyhow!(
+            "--transfer: column {}: {}\n    {}\n    {}",
+            e.column,
+            e.message,
+            text,
+            e.caret_line(text)
+        )
+    };
+    let expr = Expr::parse(text).map_err(located)?;
+    let (num, den) = expr.eval(&|_| None).map_err(located)?;
+    let c = Transfer::new(num, den).with_sane_scale();
+    if let Some(big) = looprate::case::monic_overflow(&c) {
+        return Err(anyhow!(
+            "--transfer: the numbers are beyond the range looprate computes in: divided by the \
+             leading denominator coefficient, a coefficient is {big:e} (at most {:e} \
+             allowed); rescale its time unit or its gain",
+            looprate::case::MAX_MONIC_COEFF
+        ));
+    }
+    Ok(c)
+}
+
 fn run(cli: Cli) -> Result<ExitCode> {
     match cli.command {
         Command::Discretize {
+            case,
             transfer,
+            old_transfer,
             rate,
             method,
             prewarp_hz,
             json,
         } => {
+            if old_transfer.is_some() {
+                return Err(anyhow!("--transfer is now called --transfer"));
+            }
             let m = parse_method(&method)?;
             let rate = check_rate("--rate", rate)?;
             if let Some(f) = prewarp_hz
@@ -185,34 +232,38 @@ fn run(cli: Cli) -> Result<ExitCode> {
                     "--prewarp-hz must be a positive, finite frequency in Hz, got {f}"
                 ));
             }
-            let expr = Expr::parse(&tf).map_err(|e| {
-                anyhow!(
-                    "--transfer: column {}: {}\n    {}\n    {}",
-                    e.column,
-                    e.message,
-                    transfer,
-                    e.caret_line(&tf)
-                )
-            })?;
-            let (num, den) = expr.eval(&|_| None).map_err(|e| {
-                anyhow!(
-                    "--transfer: column {}: {}\n    {}\n    {}",
-                    e.column,
-                    e.message,
-                    transfer,
-                    e.caret_line(&tf)
-                )
-            })?;
-            let c = Transfer::new(num, den).with_sane_scale();
-            if let Some(big) = looprate::case::monic_overflow(&c) {
+            if let Some(f) = prewarp_hz
+                && !(f > 0.0 && f.is_finite())
+            {
+                return Err(anyhow!("--prewarp-hz must be positive and finite, got {f}"));
+            }
+            let given_w0 = prewarp_hz.map(|f| 2.0 * std::f64::consts::PI * f);
+            let (c, w0) = match (case, transfer) {
+                (Some(path), _) => {
+                    let case = Case::load(&path)?;
+                    let lp = prepare(&case)?;
+                    match &lp.controller {
+                        Controller::Continuous(c) => (c.clone(), given_w0.or(lp.prewarp_rad_s)),
+                        Controller::Discrete(_) => {
+                            return Err(anyhow!(
+                                "{}: the controller is given in z; there is nothing to discretize",
+                                path.display()
+                            ));
+                        }
+                    }
+                }
+                (None, Some(text)) => (transfer_from_option(&text)?, given_w0),
+                (None, None) => {
+                    return Err(anyhow!(
+                        "give a case file (looprate discretize CASE.toml --rate HZ --method NAME) or --transfer EXPR"
+                    ));
+                }
+            };
+            if m == Method::TustinPrewarped && w0.is_none() {
                 return Err(anyhow!(
-                    "--transfer: the numbers are beyond the range looprate computes in: divided by the \
-                     leading denominator coefficient, a coefficient is {big:e} (at most {:e} \
-                     allowed); rescale its time unit or its gain",
-                    looprate::case::MAX_MONIC_COEFF
+                    "tustin-prewarped needs a pre-warp frequency: give --prewarp-hz"
                 ));
             }
-            let w0 = prewarp_hz.map(|f| 2.0 * std::f64::consts::PI * f);
             let d =
                 discretize(&c, m, 1.0 / rate, w0).map_err(|e| anyhow!("{m} at {rate} Hz: {e}"))?;
             if json {
@@ -250,8 +301,10 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 (Controller::Discrete(_), _) => None,
             };
             let delay = delay.unwrap_or(c.compute_delays[0]);
-            if !(0.0..=1.0).contains(&delay) {
-                return Err(anyhow!("--delay must be in [0, 1], got {delay}"));
+            if !(delay >= 0.0 && delay.is_finite()) {
+                return Err(anyhow!(
+                    "--delay must be a finite number of periods >= 0, got {delay}"
+                ));
             }
             let rate = check_rate("--rate", rate)?;
             let p = Point {
@@ -259,7 +312,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 method,
                 delay,
             };
-            let exact = lp.sampled(&p);
+            let exact = lp.sampled_exact(&p);
             let approx: Vec<(HoldApprox, _)> = if matches!(lp.controller, Controller::Continuous(_))
             {
                 HoldApprox::ALL
@@ -403,6 +456,12 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 print(&format!("{:#}\n", serde_json::to_value(&report)?))?;
             } else {
                 print(&summary::pick_text(&report))?;
+                // Say where the files went, the default folder above all.
+                print(&format!(
+                    "\nWrote {}: report.md, report.html, pick.json, sweep.csv{}.\n",
+                    out.display(),
+                    if no_charts { "" } else { " and the charts" }
+                ))?;
             }
             Ok(if report.has_answer() {
                 ExitCode::SUCCESS

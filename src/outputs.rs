@@ -143,7 +143,7 @@ fn num(v: f64) -> String {
 /// The columns of `sweep.csv` every sweep has, in order. A case with
 /// `[uncertainty]` adds [`ROBUST_COLUMNS`], one with `[arithmetic]` adds
 /// [`PRECISION_COLUMNS`] per number format (prefixed `q15_` etc.).
-pub const SWEEP_COLUMNS: [&str; 23] = [
+pub const SWEEP_COLUMNS: [&str; 24] = [
     "rate_hz",
     "period_s",
     "method",
@@ -160,6 +160,7 @@ pub const SWEEP_COLUMNS: [&str; 23] = [
     "phase_margin_deg",
     "crossover_hz",
     "delay_margin_s",
+    "delay_margin_estimate_s",
     "sensitivity_peak",
     "horizon_capped",
     "max_pole_radius",
@@ -228,7 +229,10 @@ fn figure_cells(f: Option<&Figures>) -> Vec<String> {
         cell(f.map(|f| Some(f.u_peak)), ""),
         cell(f.map(|f| f.gain_margin_db), "inf"),
         cell(f.map(|f| f.phase_margin_deg), "inf"),
-        cell(f.map(|f| f.delay_margin_s), "inf"),
+        cell(
+            f.map(|f| f.delay_margin_s),
+            f.map_or("", |f| f.delay_margin_missing()),
+        ),
         cell(f.map(|f| Some(f.sensitivity_peak)), ""),
     ]
 }
@@ -253,7 +257,9 @@ fn point_cells(r: &SweepRow, e: &Evaluation, a: &Assessment) -> Vec<String> {
     ];
     rec.extend_from_slice(&figs[..8]);
     rec.push(cell(f.map(|f| f.crossover_hz), "none"));
-    rec.extend_from_slice(&figs[8..]);
+    rec.push(figs[8].clone());
+    rec.push(cell(f.map(|f| f.delay_margin_estimate_s), "inf"));
+    rec.extend_from_slice(&figs[9..]);
     rec.extend([
         f.map(|f| f.horizon_capped.to_string()).unwrap_or_default(),
         if rho.is_nan() {

@@ -18,10 +18,10 @@ use crate::search::{
     Ceiling, SearchObserver, SlowestRate, fastest_rate_by, method_label, slowest_rate,
     slowest_rate_by,
 };
-use crate::summary::fmt_num;
+use crate::summary::{fmt_at_least, fmt_at_most, fmt_num};
 use crate::sweep::{self, Plan, SweepRow};
-use crate::transfer::Controller;
 use crate::time_response::TimeOptions;
+use crate::transfer::Controller;
 use crate::variants::{NamedValue, VariantSet};
 
 /// Build the rate-independent part of the loop from a case (nominal
@@ -305,7 +305,7 @@ pub fn pick(
     let spec = &case.spec;
     let mut report = PickReport {
         design: None,
-        notes: Vec::new(),
+        notes: case.notes.clone(),
         ..unsearched(case, lp)
     };
     let design_delay = report.design_delay;
@@ -412,7 +412,7 @@ pub fn pick(
     }
     if rate > case.rates.max_hz {
         report.notes.push(format!(
-            "the recommended rate {rate:.6} Hz is above the swept range (max_hz = {} Hz)",
+            "the rate f* times the headroom, {rate:.6} Hz, is above the swept range (max_hz = {} Hz)",
             case.rates.max_hz
         ));
     }
@@ -421,7 +421,7 @@ pub fn pick(
         method,
         delay: design_delay,
     };
-    let eval: Evaluation = lp.sampled(&p);
+    let eval: Evaluation = lp.sampled_exact(&p);
     let a = assess(&eval, spec);
     let controller = lp.controller_at(rate, method).ok();
     let (cycles, load) = match case.budget.as_ref() {
@@ -507,7 +507,7 @@ pub fn pick(
                 None => (
                     f64::NEG_INFINITY,
                     format!(
-                        "{} coefficients ({}) fail already at the recommended rate (`{}`)",
+                        "{} coefficients ({}) fail already at the rate the spec alone needs (`{}`)",
                         c.format,
                         pr.structure,
                         c.ceiling.limiting.as_deref().unwrap_or("?")
@@ -521,6 +521,22 @@ pub fn pick(
         (None, Some(p)) => Some(p),
         (None, None) => None,
     };
+    // A window claims only rates that were checked: the spec (and the
+    // coefficients) are known to hold up to the top of the swept range,
+    // so a ceiling above it is cut there and the bound says so.
+    let max_hz = case.rates.max_hz;
+    let top = top.map(|(high, bound)| {
+        if high > max_hz {
+            (
+                max_hz,
+                format!(
+                    "last rate checked (max_hz = {max_hz} Hz; {bound} would allow up to {high:.6} Hz, not checked)"
+                ),
+            )
+        } else {
+            (high, bound)
+        }
+    });
     if let Some((high, bound)) = top {
         let w = if high.is_finite() {
             RateWindow::new(rate, high, bound)
@@ -833,19 +849,21 @@ fn empty_window_advice(
         (case.budget.as_ref(), cycles, report.cpu_ceiling_hz)
         && cpu < rate
     {
+        // Each threshold is rounded toward the side that works (up for a
+        // minimum, down for a maximum), so applied alone it opens the window.
         out.push(format!(
-            "a faster CPU: at least {:.1} MHz at {} % load",
-            rate * cycles / (b.max_load_pct / 100.0) / 1e6,
+            "a faster CPU: at least {} MHz at {} % load",
+            fmt_at_least(rate * cycles / (b.max_load_pct / 100.0) / 1e6),
             b.max_load_pct
         ));
         out.push(format!(
             "a cheaper update: at most {:.0} cycles per update (now {:.0})",
-            (b.max_load_pct / 100.0) * b.cpu_hz / rate,
+            ((b.max_load_pct / 100.0) * b.cpu_hz / rate).floor(),
             cycles
         ));
         out.push(format!(
-            "a higher load limit: {:.1} % would be needed",
-            rate * cycles / b.cpu_hz * 100.0
+            "a higher load limit: at least {} % would be needed",
+            fmt_at_least(rate * cycles / b.cpu_hz * 100.0)
         ));
     }
     if let Some(pr) = &report.precision
@@ -866,12 +884,12 @@ fn empty_window_advice(
             .collect();
         out.push(if wider.is_empty() {
             format!(
-                "wider coefficients or another structure than {} {}: the rounded controller fails at the recommended rate",
+                "wider coefficients or another structure than {} {}: the rounded controller fails at the rate the spec alone needs",
                 pr.window_format, pr.structure
             )
         } else {
             format!(
-                "a wider number format: {} holds the recommended rate",
+                "a wider number format: {} holds the rate the spec alone needs",
                 wider.join(", ")
             )
         });
@@ -967,8 +985,8 @@ fn other_method_advice(
                     "{} ({:.0} cycles per update): window {} Hz to {} Hz",
                     m.name(),
                     cycles,
-                    fmt_num(low),
-                    fmt_num(high)
+                    fmt_at_least(low),
+                    fmt_at_most(high)
                 )
             })
         })
@@ -979,7 +997,21 @@ fn other_method_advice(
             opens.join("; ")
         ));
     }
-    let need = ceiling / case.spec.headroom;
+    // With a timer the rate is rounded up to one the timer makes, so the
+    // top that counts is the fastest timer rate under the ceiling.
+    let top = match b.timer_hz {
+        Some(t) if t >= ceiling => {
+            let n = (t / ceiling).ceil().max(1.0);
+            // Guard against rounding in the division (as in the budget).
+            if t / n > ceiling {
+                t / (n + 1.0)
+            } else {
+                t / n
+            }
+        }
+        _ => ceiling,
+    };
+    let need = top / case.spec.headroom;
     let lowest = at_design
         .iter()
         .min_by(|a, b| a.1.total_cmp(&b.1))
@@ -997,6 +1029,6 @@ fn other_method_advice(
     };
     Some(format!(
         "a method with a lower f_star: at most {} Hz would fit the CPU ceiling with the headroom ({lowest}{untried})",
-        fmt_num(need)
+        fmt_at_most(need)
     ))
 }

@@ -14,6 +14,7 @@
 //! involved and output is identical on every machine.
 
 mod canvas;
+mod palette;
 mod render;
 mod scale;
 mod style;
@@ -448,19 +449,17 @@ fn temp_path(path: &Path) -> PathBuf {
     }
 }
 
-/// Encode the canvas as PNG at `path` through plotters' bitmap backend.
+/// Encode the canvas as a palette PNG at `path` (see `palette`: the
+/// charts' flat colours kept exactly, a fifth of the size of RGB).
 fn encode_png(canvas: &canvas::Canvas, path: &Path) -> Result<(), PlotError> {
-    use plotters::backend::DrawingBackend;
-    use plotters::prelude::BitMapBackend;
-
-    let (w, h) = (canvas.width(), canvas.height());
-    let enc = |e: &dyn std::fmt::Display| PlotError::Encode {
+    let bytes = palette::encode_indexed(canvas.width(), canvas.height(), canvas.pixels()).map_err(
+        |message| PlotError::Encode {
+            path: path.to_path_buf(),
+            message,
+        },
+    )?;
+    std::fs::write(path, bytes).map_err(|source| PlotError::Io {
         path: path.to_path_buf(),
-        message: e.to_string(),
-    };
-    let mut backend = BitMapBackend::new(path, (w, h));
-    backend
-        .blit_bitmap((0, 0), (w, h), canvas.pixels())
-        .map_err(|e| enc(&e))?;
-    backend.present().map_err(|e| enc(&e))
+        source,
+    })
 }

@@ -23,7 +23,10 @@ pub enum ModelError {
     #[error(
         "the transfer function is improper (numerator degree {numerator} > denominator degree {denominator})"
     )]
-    Improper { numerator: usize, denominator: usize },
+    Improper {
+        numerator: usize,
+        denominator: usize,
+    },
     #[error("the denominator is zero")]
     ZeroDenominator,
     #[error("a coefficient is not finite")]
@@ -438,11 +441,19 @@ mod tests {
             Poly::from_descending(&[2.0, 3.0, 5.0]),
             Poly::from_descending(&[1.0, 4.0, 6.0, 4.0]),
         );
-        let back = StateSpace::from_transfer(&tf).unwrap().to_transfer(0).unwrap();
+        let back = StateSpace::from_transfer(&tf)
+            .unwrap()
+            .to_transfer(0)
+            .unwrap();
         for (a, b) in back.numerator.descending().iter().zip([2.0, 3.0, 5.0]) {
             assert!((a - b).abs() < 1e-12, "{a} vs {b}");
         }
-        for (a, b) in back.denominator.descending().iter().zip([1.0, 4.0, 6.0, 4.0]) {
+        for (a, b) in back
+            .denominator
+            .descending()
+            .iter()
+            .zip([1.0, 4.0, 6.0, 4.0])
+        {
             assert!((a - b).abs() < 1e-12);
         }
         // Biproper: (s + 3) / (s + 1) = 1 + 2/(s+1).

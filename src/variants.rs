@@ -319,9 +319,16 @@ pub fn worst_of(figs: &[&Figures]) -> Option<Figures> {
         phase_margin_deg: min_margin(&|f| f.phase_margin_deg),
         crossover_hz: by_pm.crossover_hz,
         delay_margin_s: min_margin(&|f| f.delay_margin_s),
+        delay_margin_estimate_s: min_margin(&|f| f.delay_margin_estimate_s),
         sensitivity_peak: max_f(&|f| f.sensitivity_peak),
         horizon_s: figs.iter().map(|f| f.horizon_s).fold(0.0, f64::max),
         horizon_capped: figs.iter().any(|f| f.horizon_capped),
+        delay_margin_searched: figs.iter().all(|f| f.delay_margin_searched),
+        loop_notes: {
+            let mut notes: Vec<String> = figs.iter().flat_map(|f| f.loop_notes.clone()).collect();
+            notes.dedup();
+            notes
+        },
     })
 }
 
@@ -349,9 +356,12 @@ mod tests {
             phase_margin_deg: pm,
             crossover_hz: Some(10.0),
             delay_margin_s: Some(0.01),
+            delay_margin_estimate_s: Some(0.009),
             sensitivity_peak: 1.5,
             horizon_s: 1.0,
             horizon_capped: false,
+            loop_notes: Vec::new(),
+            delay_margin_searched: true,
         }
     }
 

@@ -193,9 +193,15 @@ fn the_summary_and_json_state_the_window_and_what_would_open_an_empty_one() {
         (a - lo).abs() < 1e-3 * lo && (b - hi).abs() < 1e-3 * hi,
         "{text}"
     );
+    // The CPU budget would allow more than the sweep checked: the window
+    // stops at the last rate checked and says so.
     assert!(
-        text.contains("(spec with headroom .. CPU budget)"),
+        text.contains("last rate checked") && text.contains("CPU budget would allow"),
         "{text}"
+    );
+    assert_eq!(
+        belt.window.as_ref().unwrap().high_hz,
+        demo("belt-conveyor.toml").rates.max_hz
     );
     assert!(text.contains("the headroom covers model error"));
     let json = serde_json::to_value(&belt).unwrap();
@@ -256,5 +262,38 @@ fn the_summary_and_json_state_the_window_and_what_would_open_an_empty_one() {
         "a method with a lower f_star",
     ] {
         assert!(text.contains(item), "advice `{item}` missing:\n{text}");
+    }
+}
+
+#[test]
+fn every_rate_inside_a_reported_window_meets_the_spec_when_evaluated_directly() {
+    // The window claims only checked rates: 40 rates spread over it (ends
+    // included), each evaluated on its own at the recommended method and
+    // delay, all feasible; and the top is not above the swept range.
+    for name in ["belt-conveyor.toml", "gimbal-axis.toml"] {
+        let (case, lp, report) = picked(name);
+        let Some([lo, hi]) = report.window_hz else {
+            panic!("{name}: a window was expected");
+        };
+        assert!(
+            hi <= case.rates.max_hz,
+            "{name}: window top {hi} above max_hz"
+        );
+        let rec = report.recommended.as_ref().unwrap();
+        let method = rec.method.parse().ok();
+        for i in 0..=40 {
+            let rate = lo * (hi / lo).powf(i as f64 / 40.0);
+            let p = looprate::evaluate::Point {
+                rate_hz: rate,
+                method,
+                delay: rec.compute_delay,
+            };
+            let a = looprate::feasibility::assess(&lp.sampled(&p), &case.spec);
+            assert!(
+                a.feasible,
+                "{name}: {rate} Hz inside the window fails ({:?})",
+                a.limiting
+            );
+        }
     }
 }

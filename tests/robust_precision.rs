@@ -58,7 +58,10 @@ fn lag_pole_rounds_onto_z1_at_the_closed_form_rate() {
     // onto 1 once p >= 1 - 2^-7, at f_c = a / -ln(1 - 2^-7) = 1274.99 Hz.
     let a = 10.0;
     let f_c = a / -(1.0 - 2f64.powi(-8)).ln();
-    for (structure, f_c) in [("transposed-direct", f_c), ("sos", a / -(1.0 - 2f64.powi(-7)).ln())] {
+    for (structure, f_c) in [
+        ("transposed-direct", f_c),
+        ("sos", a / -(1.0 - 2f64.powi(-7)).ln()),
+    ] {
         let text =
             format!("{LAG_LOOP}[arithmetic]\nformats = [\"q7\"]\nstructure = \"{structure}\"\n");
         let c = case(&text);

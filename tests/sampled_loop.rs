@@ -5,8 +5,8 @@ use looprate::continuous::HoldApprox;
 use looprate::discretize::Method;
 use looprate::evaluate::{Point, PreparedLoop, Status};
 use looprate::poly::Poly;
-use looprate::transfer::{Controller, DiscreteTransfer, Transfer};
 use looprate::time_response::TimeOptions;
+use looprate::transfer::{Controller, DiscreteTransfer, Transfer};
 
 fn transfer(num: &[f64], den: &[f64]) -> Transfer {
     Transfer::new(Poly::from_descending(num), Poly::from_descending(den))
@@ -124,7 +124,14 @@ fn fast_sampling_tends_to_continuous_second_order() {
     let (wn, zeta) = (10.0f64, 0.4f64);
     let plant = transfer(&[wn * wn], &[1.0, 2.0 * zeta * wn, 0.0]);
     let c = Controller::Continuous(Transfer::gain(1.0));
-    let lp = PreparedLoop::new(&plant, &Transfer::gain(1.0), &c, None, TimeOptions::default()).unwrap();
+    let lp = PreparedLoop::new(
+        &plant,
+        &Transfer::gain(1.0),
+        &c,
+        None,
+        TimeOptions::default(),
+    )
+    .unwrap();
     let want = 100.0 * (-zeta * std::f64::consts::PI / (1.0 - zeta * zeta).sqrt()).exp();
     let design = lp.design.as_ref().unwrap().figures.clone().unwrap();
     assert!(
@@ -153,8 +160,16 @@ fn hold_costs_half_a_period_of_phase() {
     // delay. For small w T the exact loss must agree to within 10 % of the
     // predicted loss.
     let plant = transfer(&[40.0], &[1.0, 6.0, 0.0]);
-    let c = Controller::Continuous(transfer(&[1.0, 3.0], &[1.0, 30.0]).cascade(&Transfer::gain(5.0)));
-    let lp = PreparedLoop::new(&plant, &Transfer::gain(1.0), &c, None, TimeOptions::default()).unwrap();
+    let c =
+        Controller::Continuous(transfer(&[1.0, 3.0], &[1.0, 30.0]).cascade(&Transfer::gain(5.0)));
+    let lp = PreparedLoop::new(
+        &plant,
+        &Transfer::gain(1.0),
+        &c,
+        None,
+        TimeOptions::default(),
+    )
+    .unwrap();
     let design = lp.design.clone().unwrap().figures.unwrap();
     let wc = design.crossover_hz.unwrap() * 2.0 * std::f64::consts::PI;
     for (rate, d) in [(400.0, 0.0), (400.0, 1.0), (1000.0, 0.5)] {
@@ -222,7 +237,11 @@ fn loop_matrix_poles_agree_with_characteristic_polynomial() {
         };
         let (hold, ctrl, cl) = lp.sampled_loop(&p).unwrap();
         let g = hold.pulse_transfer().unwrap();
-        let chp = ctrl.transfer.denominator.mul(&g.transfer.denominator).add(&ctrl.transfer.numerator.mul(&g.transfer.numerator));
+        let chp = ctrl
+            .transfer
+            .denominator
+            .mul(&g.transfer.denominator)
+            .add(&ctrl.transfer.numerator.mul(&g.transfer.numerator));
         let mut a: Vec<f64> = chp.roots().unwrap().iter().map(|z| z.norm()).collect();
         let mut b: Vec<f64> = cl.poles().unwrap().iter().map(|z| z.norm()).collect();
         a.sort_by(|x, y| x.total_cmp(y));
@@ -275,7 +294,14 @@ fn early_stop_never_misses_a_later_command_peak() {
     // independence; found in review).
     let plant = transfer(&[5.0, 1.0], &[1.0, 2.0, 1.0]);
     let c = Controller::Continuous(transfer(&[2.0], &[1.0, 0.0]));
-    let lp = PreparedLoop::new(&plant, &Transfer::gain(1.0), &c, None, TimeOptions::default()).unwrap();
+    let lp = PreparedLoop::new(
+        &plant,
+        &Transfer::gain(1.0),
+        &c,
+        None,
+        TimeOptions::default(),
+    )
+    .unwrap();
     let p = Point {
         rate_hz: 50.0,
         method: Some(Method::Tustin),
