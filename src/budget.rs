@@ -58,7 +58,7 @@ pub fn macs(c: &DiscreteTransfer, structure: Structure, integrators: usize) -> O
 }
 
 /// Cycles one update costs: measured, or estimated from the controller
-/// arranged in `structure` (df2t when the case gives no `[arithmetic]`).
+/// arranged in `structure` (transposed-direct when the case gives no `[arithmetic]`).
 pub fn cycles_per_update(
     budget: &Budget,
     controller: Option<&DiscreteTransfer>,
@@ -110,7 +110,7 @@ pub fn timer_rate_at_least(timer_hz: f64, rate_hz: f64) -> Option<(f64, u64)> {
 pub struct RateWindow {
     pub low_hz: f64,
     pub high_hz: f64,
-    /// What sets `high_hz`: `CPU budget` or `q15 coefficients (df2t)`.
+    /// What sets `high_hz`: `CPU budget` or `q15 coefficients (transposed-direct)`.
     pub high_bound: String,
     /// Empty when the recommended rate is above the ceiling.
     pub empty: bool,
@@ -171,7 +171,7 @@ mod tests {
         // C(z) = 0.5 (z - 0.2) / ((z - 1)(z - 0.6)) as sections (by hand):
         // the integrator's section takes the zero, (1 - 0.2q)/(1 - q): one
         // MAC for -0.2 (the leading 1 is free) and one for -1; the other,
-        // 1/(1 - 0.6q): one; the gain 0.5: one. Total 4. In df2t:
+        // 1/(1 - 0.6q): one; the gain 0.5: one. Total 4. In transposed-direct:
         // b = [0, 0.5, -0.1], a = [-1.6, 0.6]: 2 + 2 = 4 as well.
         let pi = DiscreteTransfer {
             transfer: Transfer::new(
@@ -186,7 +186,7 @@ mod tests {
         // poles pair largest first, (1 - 1.1q + 0.3q^2) and (1 - 0.4q);
         // the section nearer the unit circle takes both zeros,
         // (1 - 0.5q + 0.05q^2): 2 + 2 MACs, then 1, then the gain 2: 6.
-        // df2t: b = [0, 2, -1, 0.1], a = [-1.5, 0.74, -0.12]: 3 + 3 = 6.
+        // transposed-direct: b = [0, 2, -1, 0.1], a = [-1.5, 0.74, -0.12]: 3 + 3 = 6.
         let third = DiscreteTransfer {
             transfer: Transfer::new(
                 Poly::from_descending(&[2.0, -1.0, 0.1]),

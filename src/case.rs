@@ -27,6 +27,31 @@ use std::str::FromStr;
 /// small enough that a typo cannot ask for hours of work.
 pub const MAX_POINTS: usize = 100_000;
 
+/// Slowest loop rate accepted anywhere (a period of about 11.6 days), Hz.
+/// Below it the matrix exponentials of a period lose every digit.
+pub const MIN_RATE_HZ: f64 = 1e-6;
+
+/// Fastest loop rate accepted anywhere (a period of 1 ns), Hz.
+pub const MAX_RATE_HZ: f64 = 1e9;
+
+/// Largest coefficient magnitude a model may have once its denominator is
+/// made monic (the form every realisation uses). Products of three such
+/// models (controller, plant, sensor) and their sums must stay inside the
+/// double range with room to spare; beyond it the numbers are refused, not
+/// silently turned into infinities.
+pub const MAX_MONIC_COEFF: f64 = 1e100;
+
+/// Checks a loop rate against [`MIN_RATE_HZ`] and [`MAX_RATE_HZ`]; the
+/// message says the limits (used by the case file and the command line).
+pub fn rate_in_range(rate_hz: f64) -> Result<f64, String> {
+    if !rate_hz.is_finite() || !(MIN_RATE_HZ..=MAX_RATE_HZ).contains(&rate_hz) {
+        return Err(format!(
+            "must be a rate from {MIN_RATE_HZ:e} Hz to {MAX_RATE_HZ:e} Hz, got {rate_hz:e}"
+        ));
+    }
+    Ok(rate_hz)
+}
+
 /// Most samples accepted in `[uncertainty]`: each is a prepared loop held
 /// in memory and evaluated at every grid point and search step, so more
 /// than this is hours of work (a typo guard, like `MAX_POINTS`).
@@ -224,10 +249,18 @@ pub struct Case {
     pub uncertainty: Option<UncertaintyMode>,
     /// Coefficient formats whose precision ceiling is wanted, if any.
     pub arithmetic: Option<Arithmetic>,
+    /// Sanity notes: values that are valid but look like a slip (a CPU
+    /// clock below 1 MHz, a range no plant variant can feel). Printed by
+    /// `check` and carried into the pick's notes; never an error.
+    pub notes: Vec<String>,
     plant: Model,
     sensor: Option<Model>,
     controller: ControllerModel,
 }
+
+/// A CPU clock below this is probably given in MHz instead of Hz
+/// (common practice, no source: microcontrollers run at 1 MHz and up).
+const CPU_HZ_SANITY: f64 = 1e6;
 
 /// Everything that can be wrong with a case file.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
@@ -314,6 +347,44 @@ struct Model {
     /// `plant`, `sensor` or `controller`.
     role: &'static str,
     source: Source,
+    /// The form the file used, for reports.
+    written: Written,
+}
+
+/// A block of the loop in the form the case file wrote it, so a report
+/// can show what the reader typed rather than the expanded polynomials.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Written {
+    /// `transfer = "..."`: the expression text.
+    Expression(String),
+    /// `zeros`, `poles`, `gain` (roots in rad/s).
+    ZerosPolesGain {
+        zeros: Vec<C64>,
+        poles: Vec<C64>,
+        gain: f64,
+    },
+    /// `pid = { ... }` (missing gains are zero).
+    Pid {
+        kp: f64,
+        ki: f64,
+        kd: f64,
+        derivative_filter_hz: Option<f64>,
+    },
+    /// `numerator_z`, `denominator_z` (descending powers of z) at `rate_hz`.
+    InZ {
+        numerator: Vec<f64>,
+        denominator: Vec<f64>,
+        rate_hz: f64,
+    },
+}
+
+/// The three blocks as written; `sensor` is None when the file has no
+/// `[sensor]` (a unit sensor).
+#[derive(Debug, Clone, PartialEq)]
+pub struct WrittenLoop {
+    pub plant: Written,
+    pub sensor: Option<Written>,
+    pub controller: Written,
 }
 
 #[derive(Debug, Clone, PartialEq)]
@@ -571,6 +642,39 @@ fn path_at(doc: &toml::de::DeTable<'_>, off: usize) -> Option<String> {
     walk_table(doc, off, &mut path).then(|| path.join("."))
 }
 
+/// Case-file keys an earlier version accepted, as (table, old key, new
+/// key). No alias is kept: an old key is refused with its new name.
+const RENAMED_KEYS: [(&str, &str, &str); 5] = [
+    ("plant", "tf", "transfer"),              // old name
+    ("sensor", "tf", "transfer"),             // old name
+    ("controller", "tf", "transfer"),         // old name
+    ("controller", "num_z", "numerator_z"),   // old name
+    ("controller", "den_z", "denominator_z"), // old name
+];
+
+/// The first renamed key in the document, as a `Shape` error at its place.
+fn renamed_key(ctx: &Ctx, text: &str, doc: &toml::de::DeTable<'_>) -> Option<CaseError> {
+    for (table, old, new) in RENAMED_KEYS {
+        let Some((_, v)) = doc.iter().find(|(k, _)| k.get_ref() == table) else {
+            continue;
+        };
+        let toml::de::DeValue::Table(t) = v.get_ref() else {
+            continue;
+        };
+        if let Some((k, _)) = t.iter().find(|(k, _)| k.get_ref() == old) {
+            let (line, column) = line_column(text, k.span().start);
+            return Some(CaseError::Shape {
+                file: ctx.file.clone(),
+                field: format!("{table}.{old}"),
+                line,
+                column,
+                message: format!("`{old}` is now called `{new}`"),
+            });
+        }
+    }
+    None
+}
+
 /// Keys of the table at `path` in file order (the parsed table sorts them).
 fn keys_in_file_order(doc: &toml::de::DeTable<'_>, path: &[&str]) -> Vec<String> {
     let mut table = doc;
@@ -732,7 +836,42 @@ fn check_transfer(
             ),
         ));
     }
+    if let Some(big) = monic_overflow(tf) {
+        return Err(ctx.invalid(
+            field,
+            format!(
+                "{prefix}the {role}'s numbers are beyond the range looprate computes in: \
+                 divided by the leading denominator coefficient, a coefficient is {big:e} \
+                 (at most {MAX_MONIC_COEFF:e} allowed); rescale its time unit or its gain"
+            ),
+        ));
+    }
     Ok(())
+}
+
+/// The largest coefficient magnitude of `transfer` with a monic denominator,
+/// when it exceeds [`MAX_MONIC_COEFF`] or is not finite (a leading
+/// coefficient of 1e-320 divides everything into infinity).
+pub fn monic_overflow(tf: &Transfer) -> Option<f64> {
+    let lead = tf.denominator.leading();
+    let big = tf
+        .numerator
+        .coeffs()
+        .iter()
+        .chain(tf.denominator.coeffs())
+        .map(|c| (c / lead).abs())
+        .fold(0.0f64, |m, v| {
+            if v.is_nan() || m.is_nan() {
+                f64::NAN
+            } else {
+                m.max(v)
+            }
+        });
+    if big.is_nan() {
+        Some(f64::INFINITY)
+    } else {
+        (big > MAX_MONIC_COEFF).then_some(big)
+    }
 }
 
 /// `transfer = "..."` or `zeros`/`poles`/`gain` for the plant or sensor.
@@ -758,6 +897,7 @@ fn model_from(
                 field,
                 role,
                 source: Source::Expr(expr),
+                written: Written::Expression(text),
             }))
         }
         (None, true) => {
@@ -791,13 +931,18 @@ fn model_from(
                 field: base.to_string(),
                 role,
                 source: Source::Fixed(tf),
+                written: Written::ZerosPolesGain {
+                    zeros: z,
+                    poles: p,
+                    gain: k,
+                },
             }))
         }
         (None, false) => Ok(None),
     }
 }
 
-fn pid(ctx: &Ctx, raw: RawPid) -> Result<Transfer, CaseError> {
+fn pid(ctx: &Ctx, raw: RawPid) -> Result<(Transfer, Written), CaseError> {
     let term = |name: &str, v: Option<f64>| -> Result<f64, CaseError> {
         match v {
             Some(v) => ctx.number(&format!("controller.pid.{name}"), v, |_| true, "finite"),
@@ -837,7 +982,13 @@ fn pid(ctx: &Ctx, raw: RawPid) -> Result<Transfer, CaseError> {
     let num = den.scale(kp).add(&b.scale(ki)).add(&s.mul(&a).scale(kd));
     let tf = Transfer::new(num, den);
     check_transfer(ctx, "controller.pid", "controller", &tf, "")?;
-    Ok(tf)
+    let written = Written::Pid {
+        kp,
+        ki,
+        kd,
+        derivative_filter_hz: raw.derivative_filter_hz.filter(|_| kd != 0.0),
+    };
+    Ok((tf, written))
 }
 
 fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, CaseError> {
@@ -874,11 +1025,12 @@ fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, Cas
         }
     }
     if let Some(p) = raw.pid {
-        let tf = pid(ctx, p)?;
+        let (tf, written) = pid(ctx, p)?;
         return Ok(ControllerModel::Continuous(Model {
             field: "controller.pid".into(),
             role: "controller",
             source: Source::Fixed(tf),
+            written,
         }));
     }
     if raw.numerator_z.is_some() || raw.denominator_z.is_some() || raw.rate_hz.is_some() {
@@ -892,6 +1044,7 @@ fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, Cas
             ctx.missing("controller.rate_hz", "the rate the controller runs at, Hz")
         })?;
         let rate = ctx.positive("controller.rate_hz", rate)?;
+        rate_in_range(rate).map_err(|m| ctx.invalid("controller.rate_hz", m))?;
         for (name, c) in [("numerator_z", &num), ("denominator_z", &den)] {
             if c.is_empty() {
                 return Err(ctx.invalid(format!("controller.{name}"), "empty coefficient list"));
@@ -961,6 +1114,12 @@ fn params_from(ctx: &Ctx, table: toml::Table, order: &[String]) -> Result<Vec<Pa
             return Err(ctx.invalid(
                 &field,
                 "`s` is the Laplace variable and cannot be a parameter",
+            ));
+        }
+        if name == crate::expr::PI_NAME {
+            return Err(ctx.invalid(
+                &field,
+                "`pi` is built in (3.14159...) and cannot be a parameter",
             ));
         }
         if !is_identifier(name) {
@@ -1179,6 +1338,8 @@ fn rates_from(ctx: &Ctx, raw: Option<RawRates>) -> Result<Rates, CaseError> {
         .ok_or_else(|| ctx.missing("rates.max_hz", "highest rate to try, Hz"))?;
     let min_hz = ctx.positive("rates.min_hz", min_hz)?;
     let max_hz = ctx.positive("rates.max_hz", max_hz)?;
+    rate_in_range(min_hz).map_err(|m| ctx.invalid("rates.min_hz", m))?;
+    rate_in_range(max_hz).map_err(|m| ctx.invalid("rates.max_hz", m))?;
     if min_hz >= max_hz {
         return Err(ctx.invalid(
             "rates.max_hz",
@@ -1454,6 +1615,22 @@ fn arithmetic_from(ctx: &Ctx, raw: Option<RawArithmetic>) -> Result<Option<Arith
 // ------------------------------------------------------------------ Case
 
 impl Case {
+    /// The plant, sensor and controller in the form the file wrote them.
+    pub fn written(&self) -> WrittenLoop {
+        WrittenLoop {
+            plant: self.plant.written.clone(),
+            sensor: self.sensor.as_ref().map(|m| m.written.clone()),
+            controller: match &self.controller {
+                ControllerModel::Continuous(m) => m.written.clone(),
+                ControllerModel::Discrete(d) => Written::InZ {
+                    numerator: d.transfer.numerator.descending(),
+                    denominator: d.transfer.denominator.descending(),
+                    rate_hz: 1.0 / d.period_s,
+                },
+            },
+        }
+    }
+
     /// Reads and validates a case file.
     pub fn load(path: &Path) -> Result<Case, CaseError> {
         let text = std::fs::read_to_string(path).map_err(|e| CaseError::Read {
@@ -1477,6 +1654,9 @@ impl Case {
                 message: e.message().trim_end().to_string(),
             }
         })?;
+        if let Some(e) = renamed_key(&ctx, text, doc.get_ref()) {
+            return Err(e);
+        }
         let raw: RawCase = toml::from_str(text).map_err(|e| {
             let off = e.span().map_or(0, |s| s.start);
             let (line, column) = line_column(text, off);
@@ -1564,9 +1744,11 @@ impl Case {
                         let col = e.identifier_column(&name).unwrap_or(1);
                         let err = ExprError {
                             column: col,
-                            message: format!(
-                                "unbound identifier `{name}`: declare it under [params]"
-                            ),
+                            message: if name == "z" {
+                                crate::expr::unbound_message(&name)
+                            } else {
+                                format!("unbound identifier `{name}`: declare it under [params]")
+                            },
                         };
                         return Err(ctx.expression(&m.field, e.source(), &err));
                     }
@@ -1600,7 +1782,36 @@ impl Case {
                 .map_or_else(|| "case".to_string(), |s| s.to_string_lossy().into_owned())
         });
 
+        let mut notes = Vec::new();
+        if let Some(b) = &budget
+            && b.cpu_hz < CPU_HZ_SANITY
+        {
+            notes.push(format!(
+                "budget.cpu_hz = {} Hz is below 1 MHz: the field is in Hz; is this the clock in MHz?",
+                b.cpu_hz
+            ));
+        }
+        if uncertainty.is_some() {
+            let in_loop_models: Vec<String> = std::iter::once(&plant)
+                .chain(sensor.as_ref())
+                .filter_map(|m| match &m.source {
+                    Source::Expr(e) => Some(e.identifiers()),
+                    _ => None,
+                })
+                .flatten()
+                .collect();
+            for p in params.iter().filter(|p| p.min < p.max) {
+                if !in_loop_models.contains(&p.name) {
+                    notes.push(format!(
+                        "params.{} has a range but appears only in the controller: the controller is designed once, so every plant variant is the same loop",
+                        p.name
+                    ));
+                }
+            }
+        }
+
         let case = Case {
+            notes,
             source: source.to_path_buf(),
             title,
             params,
@@ -1676,6 +1887,7 @@ impl Case {
                     Transfer::new(num, den)
                 }
             };
+            let tf = tf.with_sane_scale();
             check_transfer(&ctx, &m.field, m.role, &tf, &prefix)?;
             Ok(tf)
         };

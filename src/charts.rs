@@ -24,7 +24,7 @@ use crate::hold::HoldKind;
 use crate::pick::{PickReport, Recommended, case_methods};
 use crate::plot::{
     Annotation, Axis, Draw, Figure, Limit, MarkStyle, Panel, Series, Side, VMark, XBand, YBand,
-    render_png,
+    render_png_bytes,
 };
 use crate::poly::C64;
 use crate::search::method_label;
@@ -78,8 +78,17 @@ type LimitSpec = Option<(f64, Side, String)>;
 type PanelSpec = (&'static str, Get, LimitSpec);
 type Points = Vec<(f64, f64)>;
 
+/// A chart as drawn: where it was written and its PNG bytes (which the
+/// HTML report embeds, so it never reads a file back that another run
+/// could have replaced).
+#[derive(Debug, Clone)]
+pub struct Chart {
+    pub path: PathBuf,
+    pub png: Vec<u8>,
+}
+
 /// Draw every chart that applies to this run into `out_dir` (created if
-/// missing) and return the files written, in a fixed order.
+/// missing) and return the charts written, in a fixed order.
 ///
 /// Charts that need a recommendation (step, loop, hold approximation,
 /// disturbance) are skipped when the report has none; `cpu-budget.png`
@@ -90,7 +99,7 @@ pub fn write_charts(
     lp: &PreparedLoop,
     rows: &[SweepRow],
     report: &PickReport,
-) -> Result<Vec<PathBuf>, Error> {
+) -> Result<Vec<Chart>, Error> {
     std::fs::create_dir_all(out_dir).map_err(|e| Error::Output {
         path: out_dir.display().to_string(),
         message: e.to_string(),
@@ -123,15 +132,16 @@ pub fn write_charts(
         (PRECISION, precision_chart),
         (HOLD_KINDS, hold_kinds),
     ];
-    let written: Vec<Result<Option<PathBuf>, Error>> = jobs
+    let written: Vec<Result<Option<Chart>, Error>> = jobs
         .par_iter()
         .map(|(name, build)| {
             let Some(fig) = build(&inputs) else {
                 return Ok(None);
             };
             let path = out_dir.join(name);
-            render_png(&fig.with_note(note.clone()), &path)?;
-            Ok(Some(path))
+            let png = render_png_bytes(&fig.with_note(note.clone()), &path)?;
+            crate::outputs::write_atomic(&path, &png)?;
+            Ok(Some(Chart { path, png }))
         })
         .collect();
     written.into_iter().filter_map(Result::transpose).collect()
@@ -144,7 +154,7 @@ fn rate_axis() -> Axis {
 }
 
 fn hz(v: f64) -> String {
-    format!("{} Hz", fmt_num(v))
+    crate::engineering::hz(v)
 }
 
 /// The methods of the sweep at the design delay, in case order.
@@ -169,7 +179,7 @@ fn design_series<'a>(inp: &Inputs<'a>) -> Vec<(String, Vec<&'a SweepRow>)> {
     out
 }
 
-/// `f_star` of a method at the design delay.
+/// The nominal `f_star` of a method at the design delay.
 fn f_star(report: &PickReport, method: &str) -> Option<f64> {
     report
         .methods
@@ -188,6 +198,73 @@ fn design_hold(inp: &Inputs) -> HoldKind {
     inp.rec
         .map(|(r, _)| r.hold)
         .unwrap_or_else(|| inp.case.holds.first().copied().unwrap_or_default())
+}
+
+/// The robust `f_star` of a method at the design delay (plant variants).
+fn robust_f_star(report: &PickReport, method: &str) -> Option<f64> {
+    report.robust.as_ref().and_then(|rb| {
+        rb.methods
+            .iter()
+            .find(|m| m.rate.method == method && m.rate.compute_delay == report.design_delay)
+            .and_then(|m| m.rate.slowest_rate_hz)
+    })
+}
+
+/// Vertical marks of one kind of `f_star` (one per method). When the
+/// methods' values lie within 10 % of each other their labels would
+/// collide: one label then names the span and the count, and the other
+/// lines go unlabelled (the report's tables give each value).
+fn star_marks(
+    series: &[(String, Vec<&SweepRow>)],
+    kind: &str,
+    style: MarkStyle,
+    get: impl Fn(&str) -> Option<f64>,
+) -> Vec<(f64, String, MarkStyle)> {
+    let found: Vec<(&str, f64)> = series
+        .iter()
+        .filter_map(|(m, _)| get(m).map(|f| (m.as_str(), f)))
+        .collect();
+    let lo = found.iter().map(|p| p.1).fold(f64::INFINITY, f64::min);
+    let hi = found.iter().map(|p| p.1).fold(f64::NEG_INFINITY, f64::max);
+    if found.len() > 1 && hi <= 1.1 * lo {
+        return found
+            .iter()
+            .enumerate()
+            .map(|(i, &(_, f))| {
+                let text = if i == 0 {
+                    format!("{kind} {} to {} ({} methods)", hz(lo), hz(hi), found.len())
+                } else {
+                    String::new()
+                };
+                (f, text, style)
+            })
+            .collect();
+    }
+    found
+        .into_iter()
+        .map(|(m, f)| (f, format!("{kind} {m} {}", hz(f)), style))
+        .collect()
+}
+
+/// What the charts call the rate they show the loop at: the recommended
+/// rate, or, when the rate window is empty, only the rate the spec alone
+/// needs (it is no recommendation then).
+fn rate_word(report: &PickReport) -> &'static str {
+    if report.window.as_ref().is_some_and(|w| w.empty) {
+        "spec alone"
+    } else {
+        "recommended"
+    }
+}
+
+/// The name of the `f_star` the answer rests on: with plant variants it
+/// is the robust one, and every chart says so (one meaning of "f*").
+fn star_word(report: &PickReport) -> &'static str {
+    if report.robust.is_some() {
+        "robust f*"
+    } else {
+        "f*"
+    }
 }
 
 /// The figures of a chart row; NaN (a break in the line) where the loop
@@ -332,19 +409,44 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
     ];
     // Vertical marks, each labelled on one panel only (spread over the
     // panels so the labels do not collide); the lines run through all.
-    let mut marks: Vec<(f64, String, MarkStyle)> = series
-        .iter()
-        .filter_map(|(m, _)| {
-            f_star(inp.report, m).map(|f| (f, format!("f* {m} {}", hz(f)), MarkStyle::Dashed))
+    // With plant variants both answers are marked, each by its name: the
+    // nominal f* (dotted, where these nominal curves cross the limits) and
+    // the robust f* (dashed, what the answer rests on).
+    let robust = inp.report.robust.is_some();
+    let mut marks: Vec<(f64, String, MarkStyle)> = Vec::new();
+    if robust {
+        marks.extend(star_marks(&series, "robust f*", MarkStyle::Dashed, |m| {
+            robust_f_star(inp.report, m)
+        }));
+        marks.extend(star_marks(&series, "nominal f*", MarkStyle::Dotted, |m| {
+            f_star(inp.report, m)
+        }));
+    } else {
+        marks.extend(star_marks(&series, "f*", MarkStyle::Dashed, |m| {
+            f_star(inp.report, m)
+        }));
+    }
+    // Only labelled marks take a panel for their label.
+    let mut labelled = 0;
+    let marks: Vec<(f64, String, MarkStyle, usize)> = marks
+        .into_iter()
+        .map(|(x, t, st)| {
+            let slot = labelled;
+            if !t.is_empty() {
+                labelled += 1;
+            }
+            (x, t, st, slot + 1)
         })
         .collect();
+    let mut marks = marks;
     if let Some(r) = &inp.report.recommended {
         marks.insert(
             0,
             (
                 r.rate_hz,
-                format!("recommended {}", hz(r.rate_hz)),
+                format!("{} {}", rate_word(inp.report), hz(r.rate_hz)),
                 MarkStyle::Solid,
+                0,
             ),
         );
     }
@@ -385,8 +487,8 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
                 .series
                 .push(Series::line(name, pts, k).drawn(Draw::LineAndMarkers));
         }
-        for (j, (x, text, style)) in marks.iter().enumerate() {
-            let text = if j % 5 == i {
+        for (x, text, style, slot) in &marks {
+            let text = if slot % 5 == i {
                 text.clone()
             } else {
                 String::new()
@@ -568,12 +670,12 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
     let runs = [
         (
             rec.rate_hz,
-            format!("{} recommended", hz(rec.rate_hz)),
+            format!("{} {}", hz(rec.rate_hz), rate_word(inp.report)),
             STYLE_RECOMMENDED,
         ),
         (
             rec.slowest_rate_hz,
-            format!("{} f*", hz(rec.slowest_rate_hz)),
+            format!("{} {}", hz(rec.slowest_rate_hz), star_word(inp.report)),
             STYLE_STAR,
         ),
         (
@@ -706,6 +808,7 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
         ));
     }
     let f_hi = nyquist_hz;
+    clip_magnitude(&mut mag, detail.gain_margin_db);
     mag.series
         .push(hline("0 dB", 0.0, f_lo, f_hi, STYLE_REFERENCE + 2));
     // Unwrapped phase at a frequency, exactly: the nearest grid point's
@@ -774,26 +877,99 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
         ));
         ph.notes.push(Annotation::new(fg, phase_at(fg), ""));
     }
-    let gm_text = detail.gain_margin_db.map_or(
-        "gain margin infinite (no -180 deg crossing)".to_string(),
-        |g| format!("gain margin {} dB", fmt_num(g)),
-    );
-    let pm_text = detail
-        .phase_margin_deg
-        .map_or("no gain crossover".to_string(), |p| {
-            format!("phase margin {} deg", fmt_num(p))
-        });
+    // The title names what is drawn; the marks carry the margins' values.
+    let mut missing = Vec::new();
+    if detail.gain_margin_db.is_none() {
+        missing.push("no -180 deg crossing, so no gain margin mark");
+    }
+    if detail.phase_margin_deg.is_none() {
+        missing.push("no gain crossover, so no phase margin mark");
+    }
+    let at = if rate_word(inp.report) == "recommended" {
+        "the recommended rate"
+    } else {
+        "the rate the spec alone needs"
+    };
+    let title = if missing.is_empty() {
+        format!("Loop gain L(e^jwT) at {at}")
+    } else {
+        format!("Loop gain L(e^jwT) at {at} ({})", missing.join("; "))
+    };
     Some(
-        Figure::new(
-            format!(
-                "Loop gain L(e^jwT) at the recommended rate: {pm_text}, {gm_text}, Ms {}",
-                fmt_num(detail.sensitivity_peak)
-            ),
-            Axis::log("frequency (Hz)").with_range(f_lo, f_hi),
-        )
-        .with_panel(mag)
-        .with_panel(ph),
+        Figure::new(title, Axis::log("frequency (Hz)").with_range(f_lo, f_hi))
+            .with_panel(mag)
+            .with_panel(ph),
     )
+}
+
+/// Deepest magnitude the loop-gain chart shows below its top, dB: 80 dB
+/// holds the crossover region, the gain-margin crossing and the roll-off
+/// toward Nyquist of any loop looprate is meant for.
+const MAGNITUDE_SPAN_DB: f64 = 80.0;
+
+/// Clip the magnitude axis of the loop-gain chart to its useful range.
+///
+/// A zero near Nyquist (a notch) sends |L| to -300 dB and more, which
+/// would squeeze the crossover region into a sliver of the plot. The axis
+/// keeps [`MAGNITUDE_SPAN_DB`] below the top, never less than down to
+/// -40 dB and 20 dB below the gain-margin crossing; what lies deeper is
+/// clipped at the bottom edge and shaded, with its depth in the label.
+fn clip_magnitude(mag: &mut Panel, gain_margin_db: Option<f64>) {
+    let values = || {
+        mag.series
+            .iter()
+            .flat_map(|s| s.points.iter().map(|p| p.1))
+            .filter(|v| v.is_finite())
+    };
+    let top = values().fold(f64::NEG_INFINITY, f64::max);
+    let deepest = values().fold(f64::INFINITY, f64::min);
+    if !top.is_finite() {
+        return;
+    }
+    let floor = [
+        top - MAGNITUDE_SPAN_DB,
+        -40.0,
+        gain_margin_db.map_or(f64::INFINITY, |g| -g.abs() - 20.0),
+    ]
+    .into_iter()
+    .fold(f64::INFINITY, f64::min);
+    // On a whole 10 dB line, so the bottom tick reads as a round number.
+    let floor = (floor / 10.0).floor() * 10.0;
+    if deepest >= floor {
+        return;
+    }
+    // Frequency intervals where any series lies below the floor.
+    let mut below: Vec<(f64, f64)> = Vec::new();
+    for s in &mag.series {
+        let mut start: Option<f64> = None;
+        let mut last = f64::NAN;
+        for &(x, y) in &s.points {
+            match (y < floor, start) {
+                (true, None) => start = Some(x),
+                (false, Some(a)) => {
+                    below.push((a, last));
+                    start = None;
+                }
+                _ => {}
+            }
+            last = x;
+        }
+        if let Some(a) = start {
+            below.push((a, last));
+        }
+    }
+    let pad = 5.0;
+    mag.y = mag.y.clone().with_range(floor, top + pad);
+    // A dot where each clipped stretch leaves the bottom edge; the first
+    // says how deep the curve goes.
+    for (i, (a, _)) in below.into_iter().enumerate() {
+        let label = if i == 0 {
+            format!("clipped below {floor} dB (down to {} dB)", fmt_num(deepest))
+        } else {
+            String::new()
+        };
+        mag.notes.push(Annotation::new(a, floor, label));
+    }
 }
 
 /// CPU load against the rate with the budget line and the rate window.
@@ -871,7 +1047,7 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
             }
         ),
         (None, Some(_)) => {
-            "CPU load vs rate (the load of the recommended controller is unknown)".to_string()
+            "CPU load vs rate (the load of the chosen controller is unknown)".to_string()
         }
         (None, None) if report.methods.is_empty() => {
             "CPU load vs rate (sweep only: run pick for the rate window)".into()
@@ -888,7 +1064,7 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
     if let Some(r) = &report.recommended {
         panel.vmarks.push(VMark::new(
             r.rate_hz,
-            format!("recommended {}", hz(r.rate_hz)),
+            format!("{} {}", rate_word(report), hz(r.rate_hz)),
             MarkStyle::Solid,
         ));
     }
@@ -975,7 +1151,7 @@ fn precision_chart(inp: &Inputs) -> Option<Figure> {
         if let Some((r, _)) = inp.rec {
             panel.vmarks.push(VMark::new(
                 r.rate_hz,
-                format!("recommended {}", hz(r.rate_hz)),
+                format!("{} {}", rate_word(inp.report), hz(r.rate_hz)),
                 MarkStyle::Solid,
             ));
         }
@@ -1086,7 +1262,7 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
         panel.vmarks.push(VMark::new(
             rec.rate_hz,
             if i == 0 {
-                format!("recommended {}", hz(rec.rate_hz))
+                format!("{} {}", rate_word(inp.report), hz(rec.rate_hz))
             } else {
                 String::new()
             },
@@ -1132,12 +1308,12 @@ fn disturbance(inp: &Inputs) -> Option<Figure> {
     for (rate, label, style) in [
         (
             rec.rate_hz,
-            format!("{} recommended", hz(rec.rate_hz)),
+            format!("{} {}", hz(rec.rate_hz), rate_word(inp.report)),
             STYLE_RECOMMENDED,
         ),
         (
             rec.slowest_rate_hz,
-            format!("{} f*", hz(rec.slowest_rate_hz)),
+            format!("{} {}", hz(rec.slowest_rate_hz), star_word(inp.report)),
             STYLE_STAR,
         ),
     ] {

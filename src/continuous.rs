@@ -256,6 +256,11 @@ impl ContinuousLoop {
         let (_, gw) = hold_integrals(&self.a, &self.bw, h)?;
         let dim = self.a.nrows();
         let fixed = |r: f64, w: f64| -> Result<DVector<f64>, ModelError> {
+            // A loop of pure gains has no state (nalgebra's LU of a 0 x 0
+            // matrix panics).
+            if dim == 0 {
+                return Ok(DVector::zeros(0));
+            }
             let rhs = -(&self.br * r + &self.bw * w);
             self.a.clone().lu().solve(&rhs).ok_or(ModelError::NonFinite)
         };

@@ -82,6 +82,29 @@ pub struct Figures {
 }
 
 impl Figures {
+    /// The name of the first figure that is NaN, if any.
+    pub fn first_nan(&self) -> Option<&'static str> {
+        let opt = |v: Option<f64>| v.is_some_and(f64::is_nan);
+        [
+            ("final value", self.y_final.is_nan()),
+            ("overshoot", opt(self.overshoot_pct)),
+            ("settling time", opt(self.settling_time_s)),
+            ("rise time", opt(self.rise_time_s)),
+            ("disturbance peak", self.disturbance_peak.is_nan()),
+            ("recovery time", opt(self.recovery_time_s)),
+            ("peak command", self.u_peak.is_nan()),
+            ("gain margin", opt(self.gain_margin_db)),
+            ("phase margin", opt(self.phase_margin_deg)),
+            ("crossover", opt(self.crossover_hz)),
+            ("delay margin", opt(self.delay_margin_s)),
+            ("delay margin estimate", opt(self.delay_margin_estimate_s)),
+            ("sensitivity peak", self.sensitivity_peak.is_nan()),
+        ]
+        .into_iter()
+        .find(|(_, bad)| *bad)
+        .map(|(name, _)| name)
+    }
+
     /// The text for a missing `delay_margin_s`: `not searched` in a sweep,
     /// `not located` when the search gave up (the note says why), `inf`
     /// when there is no gain crossing.
@@ -741,6 +764,14 @@ impl PreparedLoop {
             // The delay's phase turns fastest around w = 1/L.
             roots.push(C64::new(-1.0 / total, 0.0));
         }
+        // A very high loop gain puts the crossover (and the closed-loop
+        // poles) far above every open-loop mode, beyond the grid the
+        // open-loop roots span; the grid must reach them or the crossover
+        // and the sensitivity peak are missed (Ms below 1 was seen).
+        let fastest = roots.iter().map(|r| r.norm()).fold(0.0, f64::max);
+        if poles.iter().any(|p| p.norm() > 100.0 * fastest) {
+            roots.extend(poles.iter().copied());
+        }
         let range = FrequencyRange::from_roots(&roots, None);
         let freq = loop_figures(&|w| cl.loop_at(w), &range);
         let mut e = finish(step, dist, freq, &poles);
@@ -789,10 +820,20 @@ fn finish(
     freq: LoopFigures,
     poles: &[C64],
 ) -> Evaluation {
+    let figures = Figures::from_parts(&step, &dist, &freq);
+    // A NaN never decides a verdict: it means the numbers left double
+    // range somewhere, so the point is an error that says so.
+    if let Some(name) = figures.first_nan() {
+        let mut e = Evaluation::error(format!(
+            "the {name} is not a number (the loop's numbers are beyond double precision)"
+        ));
+        e.closed_loop_poles = poles.iter().map(|p| [p.re, p.im]).collect();
+        return e;
+    }
     Evaluation {
         status: Status::Ok,
         stable: true,
-        figures: Some(Figures::from_parts(&step, &dist, &freq)),
+        figures: Some(figures),
         closed_loop_poles: poles.iter().map(|p| [p.re, p.im]).collect(),
         loop_detail: Some(freq),
     }

@@ -13,6 +13,7 @@ pub mod closed_loop;
 pub mod continuous;
 pub mod delay_margin;
 pub mod discretize;
+pub mod engineering;
 pub mod error;
 pub mod evaluate;
 pub mod expr;

@@ -19,7 +19,7 @@ use crate::search::{
     Ceiling, SearchObserver, SlowestRate, fastest_rate_by, method_label, slowest_rate,
     slowest_rate_by,
 };
-use crate::summary::fmt_num;
+use crate::summary::{fmt_at_least, fmt_at_most, fmt_num};
 use crate::sweep::{self, Plan, SweepRow};
 use crate::time_response::TimeOptions;
 use crate::transfer::Controller;
@@ -46,7 +46,7 @@ pub fn prepare(case: &Case) -> Result<PreparedLoop, Error> {
     )
     .map_err(|e| Error::Model {
         context: format!("{}: preparing the loop", case.source.display()),
-        source: e,
+        reason: e,
     })
 }
 
@@ -75,9 +75,35 @@ pub fn sweep_and_pick(
     on_done: &(dyn Fn() + Sync),
     observer: &dyn SearchObserver,
 ) -> Result<Picked, Error> {
+    sweep_and_pick_streaming(case, lp, on_done, observer, None)
+}
+
+/// Takes each finished row: its grid index, the row, the plant variants.
+pub type RowSink<'a> = dyn FnMut(usize, &SweepRow, Option<&VariantSet>) + 'a;
+
+/// [`sweep_and_pick`], handing each row to `on_row(grid_index, row,
+/// variants)` as the sweep finishes it (to stream `sweep.csv`; rows of
+/// one (method, delay) series come in grid order) and then keeping it
+/// slimmed (`SweepRow::slim`). With `on_row` None the rows are kept whole.
+pub fn sweep_and_pick_streaming(
+    case: &Case,
+    lp: &PreparedLoop,
+    on_done: &(dyn Fn() + Sync),
+    observer: &dyn SearchObserver,
+    mut on_row: Option<&mut RowSink<'_>>,
+) -> Result<Picked, Error> {
     let variants = case_variants(case, lp)?;
     let plan = Plan::for_case(case, lp, variants.as_ref());
-    let rows = sweep::run(&plan, &case_grid(case, lp), on_done);
+    let points = case_grid(case, lp);
+    let mut rows = sweep::GridOrder::default();
+    sweep::run_streaming(&plan, &points, on_done, &mut |i, mut row| {
+        if let Some(f) = on_row.as_mut() {
+            f(i, &row, variants.as_ref());
+            row.slim();
+        }
+        rows.push(i, row);
+    });
+    let rows = rows.finish();
     let report = pick(case, lp, variants.as_ref(), &rows, observer);
     Ok(Picked {
         rows,
@@ -299,7 +325,7 @@ pub fn pick(
     let spec = &case.spec;
     let mut report = PickReport {
         design: None,
-        notes: Vec::new(),
+        notes: case.notes.clone(),
         ..unsearched(case, lp)
     };
     let design_delay = report.design_delay;
@@ -408,7 +434,7 @@ pub fn pick(
     }
     if rate > case.rates.max_hz {
         report.notes.push(format!(
-            "the recommended rate {rate:.6} Hz is above the swept range (max_hz = {} Hz)",
+            "the rate f* times the headroom, {rate:.6} Hz, is above the swept range (max_hz = {} Hz)",
             case.rates.max_hz
         ));
     }
@@ -508,7 +534,7 @@ pub fn pick(
                 None => (
                     f64::NEG_INFINITY,
                     format!(
-                        "{} coefficients ({}) fail already at the recommended rate (`{}`)",
+                        "{} coefficients ({}) fail already at the rate the spec alone needs (`{}`)",
                         c.format,
                         pr.structure,
                         c.ceiling.limiting.as_deref().unwrap_or("?")
@@ -863,19 +889,21 @@ fn empty_window_advice(
         (case.budget.as_ref(), cycles, report.cpu_ceiling_hz)
         && cpu < rate
     {
+        // Each threshold is rounded toward the side that works (up for a
+        // minimum, down for a maximum), so applied alone it opens the window.
         out.push(format!(
-            "a faster CPU: at least {:.1} MHz at {} % load",
-            rate * cycles / (b.max_load_pct / 100.0) / 1e6,
+            "a faster CPU: at least {} MHz at {} % load",
+            fmt_at_least(rate * cycles / (b.max_load_pct / 100.0) / 1e6),
             b.max_load_pct
         ));
         out.push(format!(
             "a cheaper update: at most {:.0} cycles per update (now {:.0})",
-            (b.max_load_pct / 100.0) * b.cpu_hz / rate,
+            ((b.max_load_pct / 100.0) * b.cpu_hz / rate).floor(),
             cycles
         ));
         out.push(format!(
-            "a higher load limit: {:.1} % would be needed",
-            rate * cycles / b.cpu_hz * 100.0
+            "a higher load limit: at least {} % would be needed",
+            fmt_at_least(rate * cycles / b.cpu_hz * 100.0)
         ));
     }
     if let Some(pr) = &report.precision
@@ -896,12 +924,12 @@ fn empty_window_advice(
             .collect();
         out.push(if wider.is_empty() {
             format!(
-                "wider coefficients or another structure than {} {}: the rounded controller fails at the recommended rate",
+                "wider coefficients or another structure than {} {}: the rounded controller fails at the rate the spec alone needs",
                 pr.window_format, pr.structure
             )
         } else {
             format!(
-                "a wider number format: {} holds the recommended rate",
+                "a wider number format: {} holds the rate the spec alone needs",
                 wider.join(", ")
             )
         });
@@ -1003,8 +1031,8 @@ fn other_method_advice(
                     "{} ({:.0} cycles per update): window {} Hz to {} Hz",
                     m.name(),
                     cycles,
-                    fmt_num(low),
-                    fmt_num(high)
+                    fmt_at_least(low),
+                    fmt_at_most(high)
                 )
             })
         })
@@ -1015,7 +1043,21 @@ fn other_method_advice(
             opens.join("; ")
         ));
     }
-    let need = ceiling / case.spec.headroom;
+    // With a timer the rate is rounded up to one the timer makes, so the
+    // top that counts is the fastest timer rate under the ceiling.
+    let top = match b.timer_hz {
+        Some(t) if t >= ceiling => {
+            let n = (t / ceiling).ceil().max(1.0);
+            // Guard against rounding in the division (as in the budget).
+            if t / n > ceiling {
+                t / (n + 1.0)
+            } else {
+                t / n
+            }
+        }
+        _ => ceiling,
+    };
+    let need = top / case.spec.headroom;
     let lowest = at_design
         .iter()
         .min_by(|a, b| a.1.total_cmp(&b.1))
@@ -1033,7 +1075,7 @@ fn other_method_advice(
     };
     Some(format!(
         "a method with a lower f_star: at most {} Hz would fit the CPU ceiling with the headroom ({lowest}{untried})",
-        fmt_num(need)
+        fmt_at_most(need)
     ))
 }
 

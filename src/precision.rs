@@ -121,6 +121,7 @@ impl FromStr for Structure {
         match s {
             "transposed-direct" => Ok(Structure::TransposedDirect),
             "sos" => Ok(Structure::Sos),
+            "df2t" => Err("structure `df2t` is now called `transposed-direct`".to_string()), // old name
             _ => Err(format!(
                 "unknown structure `{s}`; expected \"transposed-direct\" or \"sos\""
             )),
@@ -525,7 +526,7 @@ pub fn quantize(
     // roots come from the quadratic formula on its own coefficients, and
     // the gain errors are measured against the unrounded sections, so the
     // figures measure the rounding alone (not the root finder's ~1e-8
-    // splitting of repeated roots when the sections were formed). In df2t
+    // splitting of repeated roots when the sections were formed). In transposed-direct
     // the design's integrators, which root finding returns split around
     // z = 1, are placed exactly at 1, and so are the rounded controller's
     // (counted exactly by `poles_at_one`).

@@ -36,6 +36,26 @@ pub struct SweepRow {
     pub precision: Vec<PrecisionPoint>,
 }
 
+impl SweepRow {
+    /// Drop what only the row's CSV line needs (the closed-loop poles, the
+    /// list of crossings, each limit's check), once that line is written:
+    /// the search and the charts read the verdicts and the figures only,
+    /// so a long sweep keeps a few hundred bytes per row instead of
+    /// several kilobytes. Every variant's evaluation is kept when asked
+    /// for (`--variants`).
+    pub fn slim(&mut self) {
+        self.eval.closed_loop_poles = Vec::new();
+        self.eval.loop_detail = None;
+        self.assessment.checks = Vec::new();
+        if let Some(r) = &mut self.robust {
+            r.assessment.checks = Vec::new();
+        }
+        for p in &mut self.precision {
+            p.assessment.checks = Vec::new();
+        }
+    }
+}
+
 /// What a sweep evaluates at each point: the nominal loop, and optionally
 /// every plant variant and every coefficient format.
 #[derive(Debug, Clone, Copy)]
@@ -218,6 +238,66 @@ fn evaluate_row_on(plan: &Plan, p: &Point, plants: Option<&Plants>) -> SweepRow 
 /// alone from the same inputs, and the rows come back in grid order, so
 /// the results do not depend on the grouping or the thread count.
 pub fn run(plan: &Plan, points: &[Point], on_done: &(dyn Fn() + Sync)) -> Vec<SweepRow> {
+    let mut rows = GridOrder::default();
+    run_streaming(plan, points, on_done, &mut |i, row| rows.push(i, row));
+    rows.finish()
+}
+
+/// Rows received in any order, put in grid order without a second copy.
+///
+/// `push(grid_index, row)` appends; `finish` permutes the rows in place by
+/// following the permutation's cycles (a long sweep keeps one buffer of
+/// rows, not the buffer plus a reordered copy).
+#[derive(Default)]
+pub struct GridOrder {
+    rows: Vec<SweepRow>,
+    index: Vec<usize>,
+}
+
+impl GridOrder {
+    /// Keep `row`, the row of grid point `i`.
+    pub fn push(&mut self, i: usize, row: SweepRow) {
+        self.rows.push(row);
+        self.index.push(i);
+    }
+
+    /// The rows in ascending grid index (the indices must be `0..n`, each
+    /// once, as a sweep delivers them).
+    pub fn finish(self) -> Vec<SweepRow> {
+        let GridOrder { mut rows, index } = self;
+        // `target[k]`: where the row now at position k belongs.
+        let mut target = index;
+        for start in 0..rows.len() {
+            // Follow the cycle through `start`, swapping each row home.
+            while target[start] != start {
+                let t = target[start];
+                if t >= rows.len() {
+                    break;
+                }
+                rows.swap(start, t);
+                target.swap(start, t);
+            }
+        }
+        rows
+    }
+}
+
+/// Groups (of points sharing rate and delay) evaluated in parallel before
+/// their rows are handed on: enough to keep every worker busy, few enough
+/// that the rows in flight stay a small, fixed amount of memory.
+const GROUPS_IN_FLIGHT: usize = 256;
+
+/// [`run`] without keeping the rows: `sink(grid_index, row)` takes each
+/// row on the calling thread as its batch of groups finishes. Groups come
+/// in order of their first point in the grid, so the rows of each
+/// (method, delay) series arrive in ascending grid order, whatever the
+/// thread count (each point is computed alone, from the same inputs).
+pub fn run_streaming(
+    plan: &Plan,
+    points: &[Point],
+    on_done: &(dyn Fn() + Sync),
+    sink: &mut dyn FnMut(usize, SweepRow),
+) {
     let mut groups: Vec<Vec<usize>> = Vec::new();
     let mut index: HashMap<(u64, u64, HoldKind), usize> = HashMap::new();
     for (i, p) in points.iter().enumerate() {
@@ -228,23 +308,23 @@ pub fn run(plan: &Plan, points: &[Point], on_done: &(dyn Fn() + Sync)) -> Vec<Sw
         });
         groups[g].push(i);
     }
-    let done: Vec<Vec<(usize, SweepRow)>> = groups
-        .par_iter()
-        .map(|group| {
-            let plants = Plants::at(plan, &points[group[0]]);
-            group
-                .iter()
-                .map(|&i| {
-                    let row = evaluate_row_on(plan, &points[i], Some(&plants));
-                    on_done();
-                    (i, row)
-                })
-                .collect()
-        })
-        .collect();
-    let mut rows: Vec<Option<SweepRow>> = (0..points.len()).map(|_| None).collect();
-    for (i, row) in done.into_iter().flatten() {
-        rows[i] = Some(row);
+    for batch in groups.chunks(GROUPS_IN_FLIGHT) {
+        let done: Vec<Vec<(usize, SweepRow)>> = batch
+            .par_iter()
+            .map(|group| {
+                let plants = Plants::at(plan, &points[group[0]]);
+                group
+                    .iter()
+                    .map(|&i| {
+                        let row = evaluate_row_on(plan, &points[i], Some(&plants));
+                        on_done();
+                        (i, row)
+                    })
+                    .collect()
+            })
+            .collect();
+        for (i, row) in done.into_iter().flatten() {
+            sink(i, row);
+        }
     }
-    rows.into_iter().flatten().collect()
 }

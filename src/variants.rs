@@ -144,7 +144,7 @@ impl VariantSet {
                             v
                         )
                     ),
-                    source: e,
+                    reason: e,
                 })
             })
             .collect::<Result<Vec<_>, Error>>()?;

@@ -85,6 +85,34 @@ type Bad = (
 );
 
 const BAD: &[Bad] = &[
+    // Names an earlier version used: refused, naming the new one (no alias).
+    (
+        "old key tf",
+        &[("plant", "[plant]\ntf = \"1 / (s + 1)\"\n")], // keep-name
+        "plant.tf",                                      // keep-name
+        &["now called `transfer`"],
+    ),
+    (
+        "old key numerator_z",
+        &[(
+            "controller",
+            "[controller]\nnum_z = [1.0]\nden_z = [1.0, -0.5]\nrate_hz = 100\n",
+        )], // keep-name
+        "controller.num_z", // keep-name
+        &["now called `numerator_z`"],
+    ),
+    (
+        "old method name zoh",
+        &[("methods", "[methods]\nuse = [\"tustin\", \"zoh\"]\n")], // keep-name
+        "methods.use[1]",
+        &["now called `step-invariant`"],
+    ),
+    (
+        "old method name matched",
+        &[("methods", "[methods]\nuse = [\"matched\"]\n")], // keep-name
+        "methods.use[0]",
+        &["now called `pole-zero-match`"],
+    ),
     // Models.
     (
         "improper plant",
@@ -1197,4 +1225,26 @@ proptest::proptest! {
     fn any_text_loads_or_errors(text in "(\\PC|\n|\\[|\\]|=|\"){0,200}") {
         let _ = parse(&text);
     }
+}
+
+// Sanity notes: valid values that look like a slip are noted, never refused
+// (the 1 MHz floor for a CPU clock is common practice, no source).
+#[test]
+fn sanity_notes_for_a_clock_in_mhz_and_a_range_only_the_controller_sees() {
+    let text = "[plant]\ntransfer = \"k/(s+1)\"\n[controller]\ntransfer = \"g*(s+2)/s\"\n\
+        [params]\nk = 1\ng = { nominal = 1, min = 0.5, max = 2 }\n[uncertainty]\nmode = \"corners\"\n\
+        [budget]\ncpu_hz = 72\ncycles_per_update = 100\n[rates]\nmin_hz = 10\nmax_hz = 100\npoints = 5\n\
+        [methods]\nuse = [\"tustin\"]\n";
+    let c = parse(text).unwrap();
+    assert_eq!(c.notes.len(), 2, "{:?}", c.notes);
+    assert!(c.notes[0].contains("budget.cpu_hz") && c.notes[0].contains("MHz"));
+    assert!(c.notes[1].contains("params.g") && c.notes[1].contains("only in the controller"));
+    // The same case with the range on the plant and a real clock: no notes.
+    let plain = text
+        .replace(
+            "k = 1\ng = { nominal = 1, min = 0.5, max = 2 }",
+            "g = 1\nk = { nominal = 1, min = 0.5, max = 2 }",
+        )
+        .replace("cpu_hz = 72", "cpu_hz = 72e6");
+    assert!(parse(&plain).unwrap().notes.is_empty());
 }

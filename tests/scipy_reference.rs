@@ -18,20 +18,6 @@ fn load(name: &str) -> Value {
     serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap()
 }
 
-/// A method by the name the reference data was written with (the names
-/// before the renames; the data is not rewritten).
-fn method_named(name: &str) -> Method {
-    let new = match name {
-        "zoh" => "step-invariant",              // keep-name
-        "foh" => "ramp-invariant",              // keep-name
-        "impulse" => "impulse-invariant",       // keep-name
-        "matched" => "pole-zero-match",         // keep-name
-        "tustin-prewarp" => "tustin-prewarped", // keep-name
-        other => other,
-    };
-    new.parse().unwrap()
-}
-
 fn vecf(v: &Value) -> Vec<f64> {
     v.as_array()
         .unwrap()
@@ -84,7 +70,7 @@ fn discretization_matches_scipy_and_high_precision() {
     let mut failures = Vec::new();
     let mut worst_hp = 0.0f64;
     for e in entries {
-        let method: Method = method_named(e["method"].as_str().unwrap());
+        let method = reference_method(e["method"].as_str().unwrap());
         let t = e["period_s"].as_f64().unwrap();
         let c = Transfer::new(
             Poly::from_descending(&vecf(&e["num"])),
@@ -96,9 +82,9 @@ fn discretization_matches_scipy_and_high_precision() {
             d.transfer.denominator.descending(),
         );
         let tol = e["rel_tol"].as_f64().unwrap();
-        let scipy = coeff_err(&num, &vecf(&e["num_z"])) // keep-name
-            .max(coeff_err(&den, &vecf(&e["den_z"]))); // keep-name
-        let hp = coeff_err(&num, &vecf(&e["num_z_hp"])).max(coeff_err(&den, &vecf(&e["den_z_hp"]))); // keep-name
+        // keep-name: the reference file's own keys (SciPy's vocabulary).
+        let scipy = coeff_err(&num, &vecf(&e["num_z"])).max(coeff_err(&den, &vecf(&e["den_z"]))); // keep-name
+        let hp = coeff_err(&num, &vecf(&e["num_z_hp"])).max(coeff_err(&den, &vecf(&e["den_z_hp"])));
         worst_hp = worst_hp.max(hp);
         // SciPy itself is off by more than 1e-3 on ten entries (stated in
         // their tol_reason): those are judged on the high-precision route
@@ -139,7 +125,7 @@ fn sampled_loops_match_scipy() {
             Poly::from_descending(&vecf(&l["controller"]["num"])),
             Poly::from_descending(&vecf(&l["controller"]["den"])),
         );
-        let method: Method = method_named(l["controller_method"].as_str().unwrap());
+        let method = reference_method(l["controller_method"].as_str().unwrap());
         let t = l["period_s"].as_f64().unwrap();
         let delay = l["delay_samples"].as_f64().unwrap();
         let lp = PreparedLoop::new(
@@ -188,5 +174,19 @@ fn sampled_loops_match_scipy() {
                 q[0]
             );
         }
+    }
+}
+
+/// The method a reference entry names, in the generator's vocabulary
+/// (SciPy's `cont2discrete` method strings, plus our own names for the
+/// methods SciPy lacks), as looprate's `Method`.
+fn reference_method(name: &str) -> Method {
+    match name {
+        "zoh" => Method::StepInvariant, // keep-name: SciPy's method string
+        "foh" => Method::RampInvariant, // keep-name: SciPy's method string
+        "impulse" => Method::ImpulseInvariant, // keep-name: SciPy's method string
+        other => other
+            .parse()
+            .unwrap_or_else(|e| panic!("reference method `{other}`: {e}")),
     }
 }

@@ -332,7 +332,8 @@ max_load_pct = 50
     assert!(
         line.contains(&format!(
             "window {} Hz to 1000 Hz",
-            looprate::summary::fmt_num(fe * 1.25)
+            // The low end rounded up, so the quoted window lies inside.
+            looprate::summary::fmt_at_least(fe * 1.25)
         )),
         "{line}"
     );
