@@ -5,6 +5,7 @@
 use criterion::{Criterion, criterion_group, criterion_main};
 use looprate::discretize::Method;
 use looprate::evaluate::{Point, PreparedLoop};
+use looprate::hold::HoldKind;
 use looprate::poly::Poly;
 use looprate::time_response::TimeOptions;
 use looprate::transfer::{Controller, Transfer};
@@ -40,6 +41,7 @@ fn evaluation(c: &mut Criterion) {
             rate_hz: rate,
             method: Some(Method::Tustin),
             delay: 0.5,
+            hold: HoldKind::ZeroOrder,
         };
         assert!(
             lp.sampled(&p).figures.is_some(),

@@ -15,6 +15,7 @@
 
 use crate::discretize::Method;
 use crate::expr::{Expr, ExprError};
+use crate::hold::HoldKind;
 use crate::poly::{C64, Poly};
 use crate::precision::{Format, Structure};
 use crate::transfer::{DiscreteTransfer, Transfer};
@@ -25,6 +26,31 @@ use std::str::FromStr;
 /// Most grid points accepted in `[rates]`: far more than any sweep needs,
 /// small enough that a typo cannot ask for hours of work.
 pub const MAX_POINTS: usize = 100_000;
+
+/// Slowest loop rate accepted anywhere (a period of about 11.6 days), Hz.
+/// Below it the matrix exponentials of a period lose every digit.
+pub const MIN_RATE_HZ: f64 = 1e-6;
+
+/// Fastest loop rate accepted anywhere (a period of 1 ns), Hz.
+pub const MAX_RATE_HZ: f64 = 1e9;
+
+/// Largest coefficient magnitude a model may have once its denominator is
+/// made monic (the form every realisation uses). Products of three such
+/// models (controller, plant, sensor) and their sums must stay inside the
+/// double range with room to spare; beyond it the numbers are refused, not
+/// silently turned into infinities.
+pub const MAX_MONIC_COEFF: f64 = 1e100;
+
+/// Checks a loop rate against [`MIN_RATE_HZ`] and [`MAX_RATE_HZ`]; the
+/// message says the limits (used by the case file and the command line).
+pub fn rate_in_range(rate_hz: f64) -> Result<f64, String> {
+    if !rate_hz.is_finite() || !(MIN_RATE_HZ..=MAX_RATE_HZ).contains(&rate_hz) {
+        return Err(format!(
+            "must be a rate from {MIN_RATE_HZ:e} Hz to {MAX_RATE_HZ:e} Hz, got {rate_hz:e}"
+        ));
+    }
+    Ok(rate_hz)
+}
 
 /// Most samples accepted in `[uncertainty]`: each is a prepared loop held
 /// in memory and evaluated at every grid point and search step, so more
@@ -216,6 +242,13 @@ pub struct Case {
     /// Computation delays to evaluate, in periods (any finite value >= 0);
     /// `[0.0]` when `[timing]` is absent.
     pub compute_delays: Vec<f64>,
+    /// Actuator hold kinds to evaluate, in file order (`[timing] hold`);
+    /// `[zero-order]` by default.
+    pub holds: Vec<HoldKind>,
+    /// Transport delay of the plant (`[plant] delay_s`), s; 0 without.
+    pub plant_delay_s: f64,
+    /// Transport delay of the measurement (`[sensor] delay_s`), s; 0 without.
+    pub sensor_delay_s: f64,
     /// The rate sweep.
     pub rates: Rates,
     /// Discretization methods to try, in file order; empty for a
@@ -401,6 +434,7 @@ struct RawTransfer {
     zeros: Option<Vec<toml::Value>>,
     poles: Option<Vec<toml::Value>>,
     gain: Option<f64>,
+    delay_s: Option<toml::Value>,
 }
 
 #[derive(Deserialize)]
@@ -414,6 +448,11 @@ struct RawController {
     numerator_z: Option<Vec<f64>>,
     denominator_z: Option<Vec<f64>>,
     rate_hz: Option<f64>,
+    /// The hold a controller given in z was designed for.
+    hold: Option<String>,
+    /// Refused with a message: a transport delay belongs to the plant or
+    /// the sensor.
+    delay_s: Option<toml::Value>,
 }
 
 #[derive(Deserialize)]
@@ -429,6 +468,7 @@ struct RawPid {
 #[serde(deny_unknown_fields, expecting = "a table")]
 struct RawTiming {
     compute_delay: Option<toml::Value>,
+    hold: Option<toml::Value>,
 }
 
 #[derive(Deserialize)]
@@ -811,7 +851,42 @@ fn check_transfer(
             ),
         ));
     }
+    if let Some(big) = monic_overflow(tf) {
+        return Err(ctx.invalid(
+            field,
+            format!(
+                "{prefix}the {role}'s numbers are beyond the range looprate computes in: \
+                 divided by the leading denominator coefficient, a coefficient is {big:e} \
+                 (at most {MAX_MONIC_COEFF:e} allowed); rescale its time unit or its gain"
+            ),
+        ));
+    }
     Ok(())
+}
+
+/// The largest coefficient magnitude of `transfer` with a monic denominator,
+/// when it exceeds [`MAX_MONIC_COEFF`] or is not finite (a leading
+/// coefficient of 1e-320 divides everything into infinity).
+pub fn monic_overflow(tf: &Transfer) -> Option<f64> {
+    let lead = tf.denominator.leading();
+    let big = tf
+        .numerator
+        .coeffs()
+        .iter()
+        .chain(tf.denominator.coeffs())
+        .map(|c| (c / lead).abs())
+        .fold(0.0f64, |m, v| {
+            if v.is_nan() || m.is_nan() {
+                f64::NAN
+            } else {
+                m.max(v)
+            }
+        });
+    if big.is_nan() {
+        Some(f64::INFINITY)
+    } else {
+        (big > MAX_MONIC_COEFF).then_some(big)
+    }
 }
 
 /// `transfer = "..."` or `zeros`/`poles`/`gain` for the plant or sensor.
@@ -984,6 +1059,7 @@ fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, Cas
             ctx.missing("controller.rate_hz", "the rate the controller runs at, Hz")
         })?;
         let rate = ctx.positive("controller.rate_hz", rate)?;
+        rate_in_range(rate).map_err(|m| ctx.invalid("controller.rate_hz", m))?;
         for (name, c) in [("numerator_z", &num), ("denominator_z", &den)] {
             if c.is_empty() {
                 return Err(ctx.invalid(format!("controller.{name}"), "empty coefficient list"));
@@ -1132,6 +1208,105 @@ fn params_from(ctx: &Ctx, table: toml::Table, order: &[String]) -> Result<Vec<Pa
     Ok(out)
 }
 
+/// A hold kind by name; the error lists the kinds.
+fn hold_kind(ctx: &Ctx, field: &str, name: &str) -> Result<HoldKind, CaseError> {
+    HoldKind::from_name(name).ok_or_else(|| {
+        ctx.invalid(
+            field,
+            format!(
+                "unknown hold kind `{name}`; the kinds are: {}",
+                HoldKind::names()
+            ),
+        )
+    })
+}
+
+/// `[timing] hold`: one name or a list (default `zero-order`). A
+/// controller given in z runs only with the hold it was designed for
+/// (`[controller] hold`, zero-order unless given).
+fn holds_from(
+    ctx: &Ctx,
+    raw: Option<&toml::Value>,
+    controller: &ControllerModel,
+    assumed: Option<HoldKind>,
+) -> Result<Vec<HoldKind>, CaseError> {
+    let field = "timing.hold";
+    let default = assumed.unwrap_or_default();
+    let Some(value) = raw else {
+        return Ok(vec![default]);
+    };
+    let list: Vec<(String, &toml::Value)> = match value {
+        toml::Value::Array(a) => {
+            if a.is_empty() {
+                return Err(ctx.invalid(
+                    field,
+                    format!("empty list; give at least one of: {}", HoldKind::names()),
+                ));
+            }
+            a.iter()
+                .enumerate()
+                .map(|(i, v)| (format!("{field}[{i}]"), v))
+                .collect()
+        }
+        v => vec![(field.to_string(), v)],
+    };
+    let mut out: Vec<HoldKind> = Vec::new();
+    for (f, v) in list {
+        let Some(name) = v.as_str() else {
+            return Err(ctx.invalid(
+                &f,
+                format!(
+                    "expected a hold kind name ({}), found a {}",
+                    HoldKind::names(),
+                    v.type_str()
+                ),
+            ));
+        };
+        let kind = hold_kind(ctx, &f, name)?;
+        if out.contains(&kind) {
+            return Err(ctx.invalid(&f, format!("`{name}` is listed twice")));
+        }
+        if let ControllerModel::Discrete(_) = controller
+            && kind != default
+        {
+            return Err(ctx.invalid(
+                &f,
+                format!(
+                    "the controller is given in z and assumes a {} hold{}: it cannot be run with a `{}` hold (set [controller] hold to the hold it was designed for, or give a continuous design to compare holds)",
+                    default.name(),
+                    if assumed.is_some() {
+                        " ([controller] hold)"
+                    } else {
+                        " (the default for a controller in z)"
+                    },
+                    kind.name()
+                ),
+            ));
+        }
+        out.push(kind);
+    }
+    Ok(out)
+}
+
+/// `delay_s` on [plant] or [sensor]: a finite number of seconds >= 0.
+fn transport_delay(ctx: &Ctx, field: &str, raw: Option<&toml::Value>) -> Result<f64, CaseError> {
+    let Some(v) = raw else {
+        return Ok(0.0);
+    };
+    let d = value_as_f64(v).ok_or_else(|| {
+        ctx.invalid(
+            field,
+            format!("expected a number of seconds, found a {}", v.type_str()),
+        )
+    })?;
+    ctx.number(
+        field,
+        d,
+        |d| d >= 0.0,
+        "a transport delay in seconds, finite and >= 0",
+    )
+}
+
 fn delays_from(ctx: &Ctx, raw: Option<RawTiming>) -> Result<Vec<f64>, CaseError> {
     let Some(value) = raw.and_then(|t| t.compute_delay) else {
         return Ok(vec![0.0]);
@@ -1178,6 +1353,8 @@ fn rates_from(ctx: &Ctx, raw: Option<RawRates>) -> Result<Rates, CaseError> {
         .ok_or_else(|| ctx.missing("rates.max_hz", "highest rate to try, Hz"))?;
     let min_hz = ctx.positive("rates.min_hz", min_hz)?;
     let max_hz = ctx.positive("rates.max_hz", max_hz)?;
+    rate_in_range(min_hz).map_err(|m| ctx.invalid("rates.min_hz", m))?;
+    rate_in_range(max_hz).map_err(|m| ctx.invalid("rates.max_hz", m))?;
     if min_hz >= max_hz {
         return Err(ctx.invalid(
             "rates.max_hz",
@@ -1510,6 +1687,16 @@ impl Case {
         let order = keys_in_file_order(doc.get_ref(), &["params"]);
         let params = params_from(&ctx, raw.params.unwrap_or_default(), &order)?;
 
+        let plant_delay_s = transport_delay(
+            &ctx,
+            "plant.delay_s",
+            raw.plant.as_ref().and_then(|p| p.delay_s.as_ref()),
+        )?;
+        let sensor_delay_s = transport_delay(
+            &ctx,
+            "sensor.delay_s",
+            raw.sensor.as_ref().and_then(|p| p.delay_s.as_ref()),
+        )?;
         let plant = match raw.plant {
             Some(p) => model_from(&ctx, "plant", "plant", p.transfer, p.zeros, p.poles, p.gain)?,
             None => None,
@@ -1534,11 +1721,29 @@ impl Case {
             ),
             None => None,
         };
-        let controller = controller_from(
-            &ctx,
-            raw.controller
-                .ok_or_else(|| ctx.missing("controller", "the [controller] table"))?,
-        )?;
+        let raw_controller = raw
+            .controller
+            .ok_or_else(|| ctx.missing("controller", "the [controller] table"))?;
+        if raw_controller.delay_s.is_some() {
+            return Err(ctx.invalid(
+                "controller.delay_s",
+                "a controller has no transport delay: give a pure delay as `delay_s` on [plant] (the actuator path) or [sensor] (the measurement), and the time the processor takes as [timing] compute_delay (in periods)",
+            ));
+        }
+        let assumed_hold = raw_controller.hold.clone();
+        let controller = controller_from(&ctx, raw_controller)?;
+        let assumed_hold = match (assumed_hold, &controller) {
+            (None, _) => None,
+            (Some(h), ControllerModel::Discrete(_)) => {
+                Some(hold_kind(&ctx, "controller.hold", &h)?)
+            }
+            (Some(_), ControllerModel::Continuous(_)) => {
+                return Err(ctx.invalid(
+                    "controller.hold",
+                    "only a controller given in z assumes a hold; a continuous design is discretized for every hold listed in [timing] hold",
+                ));
+            }
+        };
 
         // Every identifier bound, every parameter used.
         let mut exprs: Vec<&Model> = vec![&plant];
@@ -1573,6 +1778,12 @@ impl Case {
             ));
         }
 
+        let holds = holds_from(
+            &ctx,
+            raw.timing.as_ref().and_then(|t| t.hold.as_ref()),
+            &controller,
+            assumed_hold,
+        )?;
         let compute_delays = delays_from(&ctx, raw.timing)?;
         // A controller given in z runs at its own rate only: `[rates]` is
         // optional there, and the "grid" is that one rate.
@@ -1637,6 +1848,9 @@ impl Case {
             title,
             params,
             compute_delays,
+            holds,
+            plant_delay_s,
+            sensor_delay_s,
             rates,
             methods,
             prewarp_hz,
@@ -1705,6 +1919,7 @@ impl Case {
                     Transfer::new(num, den)
                 }
             };
+            let tf = tf.with_sane_scale();
             check_transfer(&ctx, &m.field, m.role, &tf, &prefix)?;
             Ok(tf)
         };

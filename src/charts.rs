@@ -20,10 +20,11 @@ use crate::error::Error;
 use crate::evaluate::{Evaluation, Figures, Point, PreparedLoop};
 use crate::feasibility::assess;
 use crate::frequency::{loop_grid, unwrapped_phase};
+use crate::hold::HoldKind;
 use crate::pick::{PickReport, Recommended, case_methods};
 use crate::plot::{
     Annotation, Axis, Draw, Figure, Limit, MarkStyle, Panel, Series, Side, VMark, XBand, YBand,
-    render_png,
+    render_png_bytes,
 };
 use crate::poly::C64;
 use crate::search::method_label;
@@ -40,6 +41,7 @@ pub const CPU_BUDGET: &str = "cpu-budget.png";
 pub const HOLD_APPROXIMATION: &str = "hold-approximation.png";
 pub const DISTURBANCE: &str = "disturbance.png";
 pub const PRECISION: &str = "precision.png";
+pub const HOLD_KINDS: &str = "hold-kinds.png";
 
 /// Rates of the hold-approximation chart (log-spaced over the case's range).
 const HOLD_CHART_RATES: usize = 40;
@@ -76,8 +78,17 @@ type LimitSpec = Option<(f64, Side, String)>;
 type PanelSpec = (&'static str, Get, LimitSpec);
 type Points = Vec<(f64, f64)>;
 
+/// A chart as drawn: where it was written and its PNG bytes (which the
+/// HTML report embeds, so it never reads a file back that another run
+/// could have replaced).
+#[derive(Debug, Clone)]
+pub struct Chart {
+    pub path: PathBuf,
+    pub png: Vec<u8>,
+}
+
 /// Draw every chart that applies to this run into `out_dir` (created if
-/// missing) and return the files written, in a fixed order.
+/// missing) and return the charts written, in a fixed order.
 ///
 /// Charts that need a recommendation (step, loop, hold approximation,
 /// disturbance) are skipped when the report has none; `cpu-budget.png`
@@ -88,7 +99,7 @@ pub fn write_charts(
     lp: &PreparedLoop,
     rows: &[SweepRow],
     report: &PickReport,
-) -> Result<Vec<PathBuf>, Error> {
+) -> Result<Vec<Chart>, Error> {
     std::fs::create_dir_all(out_dir).map_err(|e| Error::Output {
         path: out_dir.display().to_string(),
         message: e.to_string(),
@@ -111,7 +122,7 @@ pub fn write_charts(
         case.title,
         env!("CARGO_PKG_VERSION")
     );
-    let jobs: [(&str, Builder); 7] = [
+    let jobs: [(&str, Builder); 8] = [
         (FIGURES_VS_RATE, figures_vs_rate),
         (STEP_RESPONSE, step_response),
         (LOOP_RESPONSE, loop_response),
@@ -119,16 +130,18 @@ pub fn write_charts(
         (HOLD_APPROXIMATION, hold_approximation),
         (DISTURBANCE, disturbance),
         (PRECISION, precision_chart),
+        (HOLD_KINDS, hold_kinds),
     ];
-    let written: Vec<Result<Option<PathBuf>, Error>> = jobs
+    let written: Vec<Result<Option<Chart>, Error>> = jobs
         .par_iter()
         .map(|(name, build)| {
             let Some(fig) = build(&inputs) else {
                 return Ok(None);
             };
             let path = out_dir.join(name);
-            render_png(&fig.with_note(note.clone()), &path)?;
-            Ok(Some(path))
+            let png = render_png_bytes(&fig.with_note(note.clone()), &path)?;
+            crate::outputs::write_atomic(&path, &png)?;
+            Ok(Some(Chart { path, png }))
         })
         .collect();
     written.into_iter().filter_map(Result::transpose).collect()
@@ -151,7 +164,11 @@ fn design_series<'a>(inp: &Inputs<'a>) -> Vec<(String, Vec<&'a SweepRow>)> {
         let mut rows: Vec<&SweepRow> = inp
             .rows
             .iter()
-            .filter(|r| r.point.method == m && r.point.delay == inp.report.design_delay)
+            .filter(|r| {
+                r.point.method == m
+                    && r.point.hold == design_hold(inp)
+                    && r.point.delay == inp.report.design_delay
+            })
             .collect();
         if rows.is_empty() {
             continue;
@@ -180,8 +197,20 @@ fn f_star(report: &PickReport, method: &str) -> Option<f64> {
     report
         .methods
         .iter()
-        .find(|m| m.method == method && m.compute_delay == report.design_delay)
+        .find(|m| {
+            m.method == method
+                && Some(m.hold) == report.recommended.as_ref().map(|r| r.hold)
+                && m.compute_delay == report.design_delay
+        })
         .and_then(|m| m.slowest_rate_hz)
+}
+
+/// The hold kind the charts of methods show: the recommended one, else
+/// the first the case lists.
+fn design_hold(inp: &Inputs) -> HoldKind {
+    inp.rec
+        .map(|(r, _)| r.hold)
+        .unwrap_or_else(|| inp.case.holds.first().copied().unwrap_or_default())
 }
 
 /// The robust `f_star` of a method at the design delay (plant variants).
@@ -280,6 +309,7 @@ fn point_at(inp: &Inputs, method: Option<Method>, rate_hz: f64) -> Point {
         rate_hz,
         method,
         delay: inp.report.design_delay,
+        hold: design_hold(inp),
     }
 }
 
@@ -288,7 +318,11 @@ fn point_at(inp: &Inputs, method: Option<Method>, rate_hz: f64) -> Point {
 fn failing_rate(inp: &Inputs, rec: &Recommended, method: Option<Method>) -> f64 {
     inp.rows
         .iter()
-        .filter(|r| r.point.method == method && r.point.delay == inp.report.design_delay)
+        .filter(|r| {
+            r.point.method == method
+                && r.point.hold == rec.hold
+                && r.point.delay == inp.report.design_delay
+        })
         .filter(|r| r.point.rate_hz < rec.slowest_rate_hz && !r.assessment.feasible)
         .map(|r| r.point.rate_hz)
         .fold(None, |a: Option<f64>, f| Some(a.map_or(f, |a| a.max(f))))
@@ -495,6 +529,114 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
             // Near the stability edge an upper-limited figure runs off to
             // huge values; keep the view on the region around the limit
             // (the line leaves the top edge where it goes beyond).
+            if side == Side::Above {
+                let top = panel
+                    .series
+                    .iter()
+                    .flat_map(|s| s.points.iter().map(|p| p.1))
+                    .filter(|v| v.is_finite())
+                    .fold(f64::NEG_INFINITY, f64::max);
+                if top > 3.0 * v {
+                    panel.y = panel.y.clone().with_range(0.0, 3.0 * v);
+                }
+            }
+            panel.limits.push(Limit::new(v, side, text));
+        }
+        fig = fig.with_panel(panel);
+    }
+    Some(fig)
+}
+
+/// Phase margin and overshoot against the rate, one series per hold kind
+/// the case lists, at the recommended method and the design delay (drawn
+/// when the case compares two or more hold kinds and has a
+/// recommendation).
+fn hold_kinds(inp: &Inputs) -> Option<Figure> {
+    if inp.case.holds.len() < 2 {
+        return None;
+    }
+    let (rec, method) = inp.rec?;
+    let mut series: Vec<(HoldKind, Vec<&SweepRow>)> = Vec::new();
+    for &h in &inp.case.holds {
+        let mut rows: Vec<&SweepRow> = inp
+            .rows
+            .iter()
+            .filter(|r| {
+                r.point.method == method
+                    && r.point.hold == h
+                    && r.point.delay == inp.report.design_delay
+            })
+            .collect();
+        if rows.is_empty() {
+            continue;
+        }
+        rows.sort_by(|a, b| a.point.rate_hz.total_cmp(&b.point.rate_hz));
+        series.push((h, rows));
+    }
+    if series.is_empty() {
+        return None;
+    }
+    let spec = &inp.case.spec;
+    let (lo, hi) = (inp.case.rates.min_hz, inp.case.rates.max_hz);
+    let mut fig = Figure::new(
+        format!(
+            "Hold kinds: {} at computation delay {} T (hatched side of a limit fails; gaps: unstable)",
+            rec.method,
+            fmt_num(inp.report.design_delay)
+        ),
+        rate_axis().with_range(lo, hi),
+    );
+    let f_star_of = |h: HoldKind| {
+        inp.report
+            .answers()
+            .into_iter()
+            .find(|a| {
+                a.method == rec.method && a.hold == h && a.compute_delay == inp.report.design_delay
+            })
+            .and_then(|a| a.slowest_rate_hz)
+    };
+    let panels: [PanelSpec; 2] = [
+        (
+            "PM (deg)",
+            phase_margin,
+            spec.min_phase_margin_deg
+                .map(|l| (l, Side::Below, format!("min {} deg", fmt_num(l)))),
+        ),
+        (
+            "overshoot (%)",
+            overshoot,
+            spec.max_overshoot_pct
+                .map(|l| (l, Side::Above, format!("max {} %", fmt_num(l)))),
+        ),
+    ];
+    for (i, (label, get, limit)) in panels.into_iter().enumerate() {
+        let mut panel = Panel::new(Axis::linear(label));
+        for (k, (h, rows)) in series.iter().enumerate() {
+            let pts = rows
+                .iter()
+                .map(|r| (r.point.rate_hz, figure_of(&r.eval, get)))
+                .collect();
+            let name = if i == 0 {
+                match f_star_of(*h) {
+                    Some(f) => format!("{h} (f* {})", hz(f)),
+                    None => format!("{h} (no f*)"),
+                }
+            } else {
+                String::new()
+            };
+            panel
+                .series
+                .push(Series::line(name, pts, k).drawn(Draw::LineAndMarkers));
+            if let Some(f) = f_star_of(*h) {
+                let text = if i == 0 {
+                    format!("f* {h}")
+                } else {
+                    String::new()
+                };
+                panel.vmarks.push(VMark::new(f, text, MarkStyle::Dashed));
+            }
+        }
+        if let Some((v, side, text)) = limit {
             if side == Side::Above {
                 let top = panel
                     .series
@@ -1099,8 +1241,9 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
     ];
     let mut fig = Figure::new(
         format!(
-            "Hold approximations vs the exact sampled loop ({}, computation delay {} T)",
+            "Hold approximations vs the exact sampled loop ({}, {} hold, computation delay {} T)",
             rec.method,
+            rec.hold,
             fmt_num(inp.report.design_delay)
         ),
         rate_axis().with_range(lo, hi),
@@ -1128,7 +1271,12 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
                     .zip(&evals)
                     .map(|(&f, (_, a))| (f, figure_of(&a[k], get)))
                     .collect(),
-                k + 1,
+                // Styles 1, 2, 3, then 5: 4 is the continuous design's.
+                if k + 1 >= STYLE_CONTINUOUS {
+                    k + 2
+                } else {
+                    k + 1
+                },
             ));
         }
         if let Some(v) = get(design) {

@@ -17,7 +17,7 @@
 
 use crate::closed_loop::{ClosedLoop, Stability};
 use crate::frequency::LoopFigures;
-use crate::hold::HoldEquivalent;
+use crate::hold::{Actuation, HoldEquivalent};
 use crate::state_space::StateSpace;
 use crate::transfer::DiscreteTransfer;
 
@@ -29,8 +29,12 @@ const MAX_SCAN: usize = 1000;
 /// Most bisection steps (the bracket shrinks by 2^-48 of a step at most).
 const MAX_BISECT: usize = 48;
 /// The largest total delay searched, in periods: each period of delay is a
-/// state of the loop, so its poles cost more with every period.
-pub const MAX_DELAY_PERIODS: f64 = 400.0;
+/// state of the loop, so its poles cost more with every period (a trial at
+/// 400 periods costs a 400-state eigenvalue problem, and a scan of them
+/// took minutes at 10 MHz). 64 periods covers loops sampled up to about
+/// 500 times their crossover; beyond, the margin is "not located" and the
+/// estimate stands beside it (`docs/figures.md`).
+pub const MAX_DELAY_PERIODS: f64 = 64.0;
 
 /// How the search ended.
 #[derive(Debug, Clone, PartialEq)]
@@ -45,17 +49,19 @@ pub enum DelayMargin {
 }
 
 /// The exact delay margin of the loop of `plant_model` (from
-/// `hold::plant_and_sensor`) closed by `controller` at `period_s` with a
-/// computation delay of `delay_periods`, whose loop figures are `freq`
+/// `hold::plant_and_sensor`) closed by `controller` at `period_s` with the
+/// hold and delays of `act` (the extra delay adds to its actuator delay),
+/// whose loop figures are `freq`
 /// (the crossings seed the step and the candidates). The loop must be
 /// stable without extra delay.
 pub fn exact_delay_margin(
     plant_model: &StateSpace,
     controller: &DiscreteTransfer,
     period_s: f64,
-    delay_periods: f64,
+    act: &Actuation,
     freq: &LoopFigures,
 ) -> DelayMargin {
+    let delay_periods = act.delay_periods;
     let two_pi = 2.0 * std::f64::consts::PI;
     let crossings: Vec<(f64, f64)> = freq
         .gain_crossings_hz
@@ -74,7 +80,11 @@ pub fn exact_delay_margin(
     let max_delay_s = (MAX_DELAY_PERIODS - delay_periods).max(0.0) * period_s;
     let unstable_at = |extra_s: f64| -> Result<bool, String> {
         let d = delay_periods + extra_s / period_s;
-        let hold = HoldEquivalent::new(plant_model, period_s, d, 1)
+        let at = Actuation {
+            delay_periods: d,
+            ..*act
+        };
+        let hold = HoldEquivalent::with(plant_model, period_s, &at, 1)
             .map_err(|e| format!("plant equivalent: {e}"))?;
         let cl =
             ClosedLoop::new(&hold, controller).map_err(|e| format!("closing the loop: {e}"))?;

@@ -118,7 +118,7 @@ pub enum DiscretizeError {
     PrewarpAboveNyquist { w0_hz: f64, product: f64 },
     #[error("matched: the gain rule is undefined here ({0})")]
     MatchedGain(String),
-    #[error("{0}")]
+    #[error(transparent)]
     Model(#[from] ModelError),
 }
 

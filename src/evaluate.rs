@@ -9,7 +9,7 @@ use crate::continuous::{ContinuousLoop, HoldApprox};
 use crate::delay_margin::{DelayMargin, exact_delay_margin};
 use crate::discretize::{Method, discretize};
 use crate::frequency::{FrequencyRange, LoopFigures, loop_figures};
-use crate::hold::{HoldEquivalent, plant_and_sensor};
+use crate::hold::{Actuation, HoldEquivalent, HoldKind, pade_delay, plant_and_sensor};
 use std::collections::HashMap;
 use std::sync::Mutex;
 
@@ -82,6 +82,29 @@ pub struct Figures {
 }
 
 impl Figures {
+    /// The name of the first figure that is NaN, if any.
+    pub fn first_nan(&self) -> Option<&'static str> {
+        let opt = |v: Option<f64>| v.is_some_and(f64::is_nan);
+        [
+            ("final value", self.y_final.is_nan()),
+            ("overshoot", opt(self.overshoot_pct)),
+            ("settling time", opt(self.settling_time_s)),
+            ("rise time", opt(self.rise_time_s)),
+            ("disturbance peak", self.disturbance_peak.is_nan()),
+            ("recovery time", opt(self.recovery_time_s)),
+            ("peak command", self.u_peak.is_nan()),
+            ("gain margin", opt(self.gain_margin_db)),
+            ("phase margin", opt(self.phase_margin_deg)),
+            ("crossover", opt(self.crossover_hz)),
+            ("delay margin", opt(self.delay_margin_s)),
+            ("delay margin estimate", opt(self.delay_margin_estimate_s)),
+            ("sensitivity peak", self.sensitivity_peak.is_nan()),
+        ]
+        .into_iter()
+        .find(|(_, bad)| *bad)
+        .map(|(name, _)| name)
+    }
+
     /// The text for a missing `delay_margin_s`: `not searched` in a sweep,
     /// `not located` when the search gave up (the note says why), `inf`
     /// when there is no gain crossing.
@@ -167,6 +190,8 @@ pub struct Point {
     pub rate_hz: f64,
     pub method: Option<Method>,
     pub delay: f64,
+    /// How the actuator holds each command.
+    pub hold: HoldKind,
 }
 
 /// The plant side of every loop at one (rate, delay): the hold + delay +
@@ -226,6 +251,37 @@ pub struct PreparedLoop {
     pub time: TimeOptions,
     /// The continuous design's own figures (None for a controller in z).
     pub design: Option<Evaluation>,
+    /// Transport delays of the plant and of the measurement, s.
+    pub transport: Transport,
+    /// The model the continuous loops simulate: plant and sensor with the
+    /// measurement's transport delay as its Pade approximant.
+    continuous_model: StateSpace,
+}
+
+/// Pure delays `e^{-sL}` in the loop (`delay_s` on [plant] and [sensor]).
+#[derive(Debug, Clone, Copy, Default, PartialEq)]
+pub struct Transport {
+    /// Between the actuator and the plant, s (the load disturbance enters
+    /// after it, at the plant input).
+    pub plant_s: f64,
+    /// Between the plant output and the sampler, s.
+    pub sensor_s: f64,
+}
+
+/// Order of the Pade approximant `[n/n]` that stands in for a transport
+/// delay in the continuous loops' time response and poles (their
+/// frequency response uses `e^{-jwL}` exactly).
+pub const TRANSPORT_PADE_ORDER: usize = 6;
+
+/// Order of the Pade approximant of each exponential in a hold's own
+/// rational approximation (`HoldApprox::OwnPade`).
+pub const HOLD_PADE_ORDER: usize = 2;
+
+impl Transport {
+    /// The total delay around the loop, s.
+    pub fn total_s(&self) -> f64 {
+        self.plant_s + self.sensor_s
+    }
 }
 
 impl PreparedLoop {
@@ -237,7 +293,39 @@ impl PreparedLoop {
         prewarp_hz: Option<f64>,
         time: TimeOptions,
     ) -> Result<PreparedLoop, ModelError> {
+        PreparedLoop::with_transport(
+            plant,
+            sensor,
+            controller,
+            prewarp_hz,
+            time,
+            Transport::default(),
+        )
+    }
+
+    /// `new` with transport delays on the plant and the measurement.
+    pub fn with_transport(
+        plant: &Transfer,
+        sensor: &Transfer,
+        controller: &Controller,
+        prewarp_hz: Option<f64>,
+        time: TimeOptions,
+        transport: Transport,
+    ) -> Result<PreparedLoop, ModelError> {
+        if !(transport.plant_s >= 0.0
+            && transport.plant_s.is_finite()
+            && transport.sensor_s >= 0.0
+            && transport.sensor_s.is_finite())
+        {
+            return Err(ModelError::NonFinite);
+        }
         let plant_model = plant_and_sensor(plant, sensor)?;
+        let continuous_model = if transport.sensor_s > 0.0 {
+            let (n, d) = pade_delay(transport.sensor_s, TRANSPORT_PADE_ORDER);
+            plant_and_sensor(plant, &sensor.cascade(&Transfer::new(n, d)))?
+        } else {
+            plant_model.clone()
+        };
         let mut roots = Vec::new();
         let mut tfs = vec![plant, sensor];
         if let Controller::Continuous(c) = controller {
@@ -268,6 +356,8 @@ impl PreparedLoop {
             prewarp_rad_s: prewarp_hz.map(|f| 2.0 * std::f64::consts::PI * f),
             time,
             design: None,
+            transport,
+            continuous_model,
         };
         if let Controller::Continuous(_) = controller {
             let design = prepared.continuous(None);
@@ -394,13 +484,25 @@ impl PreparedLoop {
     /// The exact hold + delay + plant equivalent at a point.
     fn hold_equivalent(&self, p: &Point) -> Result<HoldEquivalent, String> {
         check_point(p)?;
-        HoldEquivalent::new(
+        HoldEquivalent::with(
             &self.plant_model,
             1.0 / p.rate_hz,
-            p.delay,
+            &self.actuation(p),
             self.time.points_per_period,
         )
         .map_err(|e| format!("plant equivalent: {e}"))
+    }
+
+    /// What lies between controller and plant at a point: its hold, the
+    /// computation delay plus the plant's transport delay (in periods: a
+    /// transport delay of 0.3 T is 0.3 more computation delay), and the
+    /// measurement's transport delay.
+    pub fn actuation(&self, p: &Point) -> Actuation {
+        Actuation {
+            hold: p.hold,
+            delay_periods: p.delay + self.transport.plant_s * p.rate_hz,
+            sensor_delay_s: self.transport.sensor_s,
+        }
     }
 
     /// Evaluate the exact sampled-data loop at one point.
@@ -511,7 +613,7 @@ impl PreparedLoop {
         let range = self.range_below(std::f64::consts::PI / t);
         let freq = loop_figures(&l, &range);
         let margin = exact_margin
-            .then(|| exact_delay_margin(&self.plant_model, c, t, hold.delay_total(), &freq));
+            .then(|| exact_delay_margin(&self.plant_model, c, t, &hold.actuation(), &freq));
         let mut e = finish(step, dist, freq, &poles);
         if let (Some(f), Some(margin)) = (e.figures.as_mut(), margin) {
             f.delay_margin_searched = true;
@@ -574,24 +676,63 @@ impl PreparedLoop {
         let Controller::Continuous(c) = &self.controller else {
             return Err("the controller is given in z: no continuous design".into());
         };
-        let cl = ContinuousLoop::new(&self.plant_model, &self.plant, &self.sensor, c, None)
-            .map_err(|e| e.to_string())?;
+        let pade = self.plant_pade();
+        let cl = ContinuousLoop::new(
+            &self.continuous_model,
+            &self.plant,
+            &self.sensor,
+            c,
+            None,
+            self.loop_delays(&pade),
+        )
+        .map_err(|e| e.to_string())?;
         cl.traces(t_end_s, steps).map_err(|e| e.to_string())
+    }
+
+    /// The plant's transport delay as its Pade approximant (None without).
+    fn plant_pade(&self) -> Option<Transfer> {
+        (self.transport.plant_s > 0.0).then(|| {
+            let (n, d) = pade_delay(self.transport.plant_s, TRANSPORT_PADE_ORDER);
+            Transfer::new(n, d)
+        })
+    }
+
+    /// The pure delays of a continuous loop: the total exactly for the
+    /// loop gain, the plant's as `pade` in the simulation (the
+    /// measurement's is in `continuous_model`).
+    fn loop_delays<'a>(&self, pade: &'a Option<Transfer>) -> Option<(f64, &'a Transfer)> {
+        static ONE: std::sync::OnceLock<Transfer> = std::sync::OnceLock::new();
+        let total = self.transport.total_s();
+        (total > 0.0).then(|| {
+            (
+                total,
+                pade.as_ref()
+                    .unwrap_or_else(|| ONE.get_or_init(|| Transfer::gain(1.0))),
+            )
+        })
     }
 
     /// The continuous loop: the design itself (`approx` None), or with the
     /// hold and delay replaced by an approximation (`(kind, theta_s)`).
     pub fn continuous(&self, approx: Option<(HoldApprox, f64)>) -> Evaluation {
+        self.continuous_with(approx.map(|(k, theta)| (k.transfer(theta), theta)))
+    }
+
+    /// The continuous loop with `act` (a rational actuator, and the delay
+    /// it stands for, s) between controller and plant.
+    fn continuous_with(&self, act: Option<(Transfer, f64)>) -> Evaluation {
         let Controller::Continuous(c) = &self.controller else {
             return Evaluation::error("the controller is given in z: no continuous design");
         };
-        let act = approx.map(|(k, theta)| k.transfer(theta));
+        let approx = act.as_ref().map(|a| ((), a.1));
+        let pade = self.plant_pade();
         let cl = match ContinuousLoop::new(
-            &self.plant_model,
+            &self.continuous_model,
             &self.plant,
             &self.sensor,
             c,
-            act.as_ref(),
+            act.as_ref().map(|a| &a.0),
+            self.loop_delays(&pade),
         ) {
             Ok(v) => v,
             Err(e) => return Evaluation::error(e),
@@ -613,8 +754,23 @@ impl PreparedLoop {
             Err(e) => return Evaluation::error(e),
         };
         let mut roots = self.roots.clone();
-        if let Some((_, theta)) = approx {
+        if let Some((_, theta)) = approx
+            && theta > 0.0
+        {
             roots.push(C64::new(-1.0 / theta, 0.0));
+        }
+        let total = self.transport.total_s();
+        if total > 0.0 {
+            // The delay's phase turns fastest around w = 1/L.
+            roots.push(C64::new(-1.0 / total, 0.0));
+        }
+        // A very high loop gain puts the crossover (and the closed-loop
+        // poles) far above every open-loop mode, beyond the grid the
+        // open-loop roots span; the grid must reach them or the crossover
+        // and the sensitivity peak are missed (Ms below 1 was seen).
+        let fastest = roots.iter().map(|r| r.norm()).fold(0.0, f64::max);
+        if poles.iter().any(|p| p.norm() > 100.0 * fastest) {
+            roots.extend(poles.iter().copied());
         }
         let range = FrequencyRange::from_roots(&roots, None);
         let freq = loop_figures(&|w| cl.loop_at(w), &range);
@@ -629,10 +785,15 @@ impl PreparedLoop {
     }
 
     /// The continuous loop with the hold and computation delay at `p`
-    /// replaced by `kind` (theta = T/2 + d T).
+    /// replaced by `kind`: a delay approximation of theta = the hold's
+    /// low-frequency delay + d T (T/2 + d T for zero-order), or the hold's
+    /// own transfer function by Pade (`HoldApprox::HoldPade22`). The
+    /// transport delays stay as in the continuous design.
     pub fn hold_approx(&self, p: &Point, kind: HoldApprox) -> Evaluation {
         let period = 1.0 / p.rate_hz;
-        self.continuous(Some((kind, period / 2.0 + p.delay * period)))
+        let delay = p.delay * period;
+        let theta = p.hold.equivalent_delay_s(period) + delay;
+        self.continuous_with(kind.actuator(p.hold, period, delay).map(|t| (t, theta)))
     }
 }
 
@@ -659,10 +820,20 @@ fn finish(
     freq: LoopFigures,
     poles: &[C64],
 ) -> Evaluation {
+    let figures = Figures::from_parts(&step, &dist, &freq);
+    // A NaN never decides a verdict: it means the numbers left double
+    // range somewhere, so the point is an error that says so.
+    if let Some(name) = figures.first_nan() {
+        let mut e = Evaluation::error(format!(
+            "the {name} is not a number (the loop's numbers are beyond double precision)"
+        ));
+        e.closed_loop_poles = poles.iter().map(|p| [p.re, p.im]).collect();
+        return e;
+    }
     Evaluation {
         status: Status::Ok,
         stable: true,
-        figures: Some(Figures::from_parts(&step, &dist, &freq)),
+        figures: Some(figures),
         closed_loop_poles: poles.iter().map(|p| [p.re, p.im]).collect(),
         loop_detail: Some(freq),
     }

@@ -16,7 +16,10 @@ use looprate::continuous::HoldApprox;
 use looprate::discretize::{Method, discretize};
 use looprate::evaluate::{Point, PreparedLoop};
 use looprate::expr::Expr;
-use looprate::pick::{Picked, case_grid, case_variants, prepare, sweep_and_pick};
+use looprate::hold::HoldKind;
+use looprate::pick::{
+    Picked, case_grid, case_methods, case_variants, prepare, sweep_and_pick_streaming,
+};
 use looprate::search::Silent;
 use looprate::transfer::{Controller, Transfer};
 use looprate::variants::VariantSet;
@@ -81,6 +84,10 @@ enum Command {
         /// Computation delay in periods, any finite value >= 0 (default: the case's first).
         #[arg(long)]
         delay: Option<f64>,
+        /// Actuator hold kind: zero-order, first-order or interpolating
+        /// (default: the case's first).
+        #[arg(long)]
+        hold: Option<String>,
         /// Print JSON with the loop model's keys.
         #[arg(long)]
         json: bool,
@@ -141,7 +148,7 @@ fn main() -> ExitCode {
             if is_broken_pipe(&e) {
                 return ExitCode::SUCCESS;
             }
-            eprintln!("looprate: {e:#}");
+            warn(&format!("looprate: {e:#}"));
             ExitCode::from(2)
         }
     }
@@ -152,6 +159,23 @@ fn is_broken_pipe(e: &anyhow::Error) -> bool {
         c.downcast_ref::<std::io::Error>()
             .is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe)
     })
+}
+
+/// Most worker threads `--threads` accepts: far above any core count that
+/// helps, low enough that a typo does not start thousands of threads.
+const MAX_THREADS: usize = 256;
+
+/// Write a line to stderr, ignoring a failure (a full disk or a closed
+/// pipe there must not turn into a panic or change the exit code).
+fn warn(text: &str) {
+    let mut err = std::io::stderr().lock();
+    let _ = writeln!(err, "{text}");
+    let _ = err.flush();
+}
+
+/// A loop rate from the command line, within the case file's limits.
+fn check_rate(flag: &str, rate: f64) -> Result<f64> {
+    looprate::case::rate_in_range(rate).map_err(|m| anyhow!("{flag} {m}"))
 }
 
 fn print(text: &str) -> Result<()> {
@@ -178,7 +202,16 @@ fn transfer_from_option(text: &str) -> Result<Transfer> {
     };
     let expr = Expr::parse(text).map_err(located)?;
     let (num, den) = expr.eval(&|_| None).map_err(located)?;
-    Ok(Transfer::new(num, den))
+    let c = Transfer::new(num, den).with_sane_scale();
+    if let Some(big) = looprate::case::monic_overflow(&c) {
+        return Err(anyhow!(
+            "--transfer: the numbers are beyond the range looprate computes in: divided by the \
+             leading denominator coefficient, a coefficient is {big:e} (at most {:e} \
+             allowed); rescale its time unit or its gain",
+            looprate::case::MAX_MONIC_COEFF
+        ));
+    }
+    Ok(c)
 }
 
 fn run(cli: Cli) -> Result<ExitCode> {
@@ -196,8 +229,13 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 return Err(anyhow!("--transfer is now called --transfer"));
             }
             let m = parse_method(&method)?;
-            if !(rate > 0.0 && rate.is_finite()) {
-                return Err(anyhow!("--rate must be positive and finite, got {rate}"));
+            let rate = check_rate("--rate", rate)?;
+            if let Some(f) = prewarp_hz
+                && !(f > 0.0 && f.is_finite())
+            {
+                return Err(anyhow!(
+                    "--prewarp-hz must be a positive, finite frequency in Hz, got {f}"
+                ));
             }
             if let Some(f) = prewarp_hz
                 && !(f > 0.0 && f.is_finite())
@@ -254,6 +292,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
             rate,
             method,
             delay,
+            hold,
             json,
             trace,
         } => {
@@ -273,13 +312,27 @@ fn run(cli: Cli) -> Result<ExitCode> {
                     "--delay must be a finite number of periods >= 0, got {delay}"
                 ));
             }
-            if !(rate > 0.0 && rate.is_finite()) {
-                return Err(anyhow!("--rate must be positive and finite, got {rate}"));
+            let rate = check_rate("--rate", rate)?;
+            let hold = match hold {
+                None => c.holds[0],
+                Some(h) => HoldKind::from_name(&h).ok_or_else(|| {
+                    anyhow!(
+                        "--hold: unknown hold kind `{h}`; the kinds are: {}",
+                        HoldKind::names()
+                    )
+                })?,
+            };
+            if matches!(lp.controller, Controller::Discrete(_)) && hold != c.holds[0] {
+                return Err(anyhow!(
+                    "--hold {hold}: the controller is given in z and assumes a {} hold",
+                    c.holds[0]
+                ));
             }
             let p = Point {
                 rate_hz: rate,
                 method,
                 delay,
+                hold,
             };
             let exact = lp.sampled_exact(&p);
             let approx: Vec<(HoldApprox, _)> = if matches!(lp.controller, Controller::Continuous(_))
@@ -307,9 +360,10 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 print(&format!("{v:#}\n"))?;
             } else {
                 let header = format!(
-                    "rate {} Hz, method {}, computation delay {} of a period",
+                    "rate {} Hz, method {}, {} hold, computation delay {} periods",
                     rate,
                     looprate::search::method_label(method),
+                    hold,
                     delay
                 );
                 let mut text = summary::evaluation_text(
@@ -343,9 +397,11 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 ));
             }
             let lp = prepare(&c)?;
+            check_threads(threads)?;
+            let _lock = outputs::OutputLock::acquire(&out)?;
             let (rows, set) = in_pool(threads, || -> Result<_> {
                 let set = case_variants(&c, &lp)?;
-                let rows = run_sweep(&c, &lp, set.as_ref(), variants, quiet);
+                let rows = run_sweep(&c, &lp, set.as_ref(), variants, quiet, &out)?;
                 if let Some(set) = &set
                     && variants
                 {
@@ -362,16 +418,16 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 }
                 Ok((rows, set))
             })??;
+            let _ = set;
             let path = out.join("sweep.csv");
-            outputs::write_atomic(&path, &outputs::sweep_csv(&rows, set.as_ref()))?;
             let feasible = rows.iter().filter(|r| r.assessment.feasible).count();
             if !quiet {
-                eprintln!(
+                warn(&format!(
                     "{} points ({} feasible) written to {}",
                     rows.len(),
                     feasible,
                     path.display()
-                );
+                ));
             }
             Ok(ExitCode::SUCCESS)
         }
@@ -385,13 +441,22 @@ fn run(cli: Cli) -> Result<ExitCode> {
         } => {
             let c = Case::load(&case)?;
             let lp = prepare(&c)?;
+            check_threads(threads)?;
+            let _lock = outputs::OutputLock::acquire(&out)?;
             let report = in_pool(threads, || -> Result<_> {
                 let bar = progress(case_grid(&c, &lp).len(), quiet);
+                let mut stream = csv_stream(&c, &lp, &out)?;
                 let Picked {
                     rows,
-                    variants: set,
+                    variants: _,
                     report,
-                } = sweep_and_pick(&c, &lp, &|| bar.inc(1), &Silent)?;
+                } = sweep_and_pick_streaming(
+                    &c,
+                    &lp,
+                    &|| bar.inc(1),
+                    &Silent,
+                    Some(&mut |i, row, v| stream.push(i, row, v)),
+                )?;
                 bar.finish_and_clear();
                 // Charts are drawn while the CSV and JSON are written.
                 let (charts, tables) = rayon::join(
@@ -404,7 +469,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
                             )?)
                         }
                     },
-                    || write_pick_outputs(&out, &rows, set.as_ref(), &report),
+                    || write_pick_outputs(&out, stream, &report),
                 );
                 tables?;
                 looprate::report::write_report(&out, &c, &report, &charts?)?;
@@ -430,24 +495,48 @@ fn run(cli: Cli) -> Result<ExitCode> {
     }
 }
 
+/// `DIR/sweep.csv` as a stream the sweep writes row by row.
+fn csv_stream(c: &Case, lp: &PreparedLoop, out: &Path) -> Result<outputs::SweepCsvStream> {
+    let points = case_grid(c, lp).len();
+    let series = case_methods(c).len() * c.compute_delays.len();
+    let formats: Vec<String> = sweep::Plan::for_case(c, lp, None)
+        .formats()
+        .iter()
+        .map(|f| f.name())
+        .collect();
+    Ok(outputs::SweepCsvStream::create(
+        &out.join("sweep.csv"),
+        series,
+        points / series.max(1),
+        &formats,
+        c.uncertainty.is_some(),
+    )?)
+}
+
 fn write_pick_outputs(
     out: &Path,
-    rows: &[sweep::SweepRow],
-    set: Option<&VariantSet>,
+    stream: outputs::SweepCsvStream,
     report: &looprate::pick::PickReport,
 ) -> Result<()> {
-    outputs::write_atomic(&out.join("sweep.csv"), &outputs::sweep_csv(rows, set))?;
+    stream.finish()?;
     let json = serde_json::to_vec_pretty(report)?;
     outputs::write_atomic(&out.join("pick.json"), &json)?;
     Ok(())
 }
 
+fn check_threads(threads: Option<usize>) -> Result<()> {
+    match threads {
+        Some(n) if n == 0 || n > MAX_THREADS => Err(anyhow!(
+            "--threads must be from 1 to {MAX_THREADS}, got {n}"
+        )),
+        _ => Ok(()),
+    }
+}
+
 fn in_pool<T: Send>(threads: Option<usize>, f: impl FnOnce() -> T + Send) -> Result<T> {
     let mut b = rayon::ThreadPoolBuilder::new();
     if let Some(n) = threads {
-        if n == 0 {
-            return Err(anyhow!("--threads must be at least 1"));
-        }
+        check_threads(threads)?;
         b = b.num_threads(n);
     }
     let pool = b.build().context("starting worker threads")?;
@@ -474,14 +563,24 @@ fn run_sweep(
     variants: Option<&VariantSet>,
     keep_variants: bool,
     quiet: bool,
-) -> Vec<sweep::SweepRow> {
+    out: &Path,
+) -> Result<Vec<sweep::SweepRow>> {
     let points = case_grid(c, lp);
     let bar = progress(points.len(), quiet);
     let plan = sweep::Plan {
         keep_variants,
         ..sweep::Plan::for_case(c, lp, variants)
     };
-    let rows = sweep::run(&plan, &points, &|| bar.inc(1));
+    let mut stream = csv_stream(c, lp, out)?;
+    let mut rows = sweep::GridOrder::default();
+    sweep::run_streaming(&plan, &points, &|| bar.inc(1), &mut |i, mut row| {
+        stream.push(i, &row, variants);
+        if !keep_variants {
+            row.slim();
+        }
+        rows.push(i, row);
+    });
     bar.finish_and_clear();
-    rows
+    stream.finish()?;
+    Ok(rows.finish())
 }

@@ -11,8 +11,9 @@ use crate::budget::{self, RateWindow, WindowBound};
 use crate::case::{Case, UncertaintyMode};
 use crate::discretize::Method;
 use crate::error::Error;
-use crate::evaluate::{Evaluation, Figures, Point, PreparedLoop};
+use crate::evaluate::{Evaluation, Figures, Point, PreparedLoop, Transport};
 use crate::feasibility::{Assessment, LimitCheck, assess, check_figures};
+use crate::hold::HoldKind;
 use crate::precision::{self, Damage, Format, Structure};
 use crate::search::{
     Ceiling, SearchObserver, SlowestRate, fastest_rate_by, method_label, slowest_rate,
@@ -32,11 +33,20 @@ pub fn prepare(case: &Case) -> Result<PreparedLoop, Error> {
         band: case.spec.settling_band_pct / 100.0,
         ..TimeOptions::default()
     };
-    PreparedLoop::new(&m.plant, &m.sensor, &m.controller, case.prewarp_hz, time).map_err(|e| {
-        Error::Model {
-            context: format!("{}: preparing the loop", case.source.display()),
-            source: e,
-        }
+    PreparedLoop::with_transport(
+        &m.plant,
+        &m.sensor,
+        &m.controller,
+        case.prewarp_hz,
+        time,
+        Transport {
+            plant_s: case.plant_delay_s,
+            sensor_s: case.sensor_delay_s,
+        },
+    )
+    .map_err(|e| Error::Model {
+        context: format!("{}: preparing the loop", case.source.display()),
+        reason: e,
     })
 }
 
@@ -65,9 +75,35 @@ pub fn sweep_and_pick(
     on_done: &(dyn Fn() + Sync),
     observer: &dyn SearchObserver,
 ) -> Result<Picked, Error> {
+    sweep_and_pick_streaming(case, lp, on_done, observer, None)
+}
+
+/// Takes each finished row: its grid index, the row, the plant variants.
+pub type RowSink<'a> = dyn FnMut(usize, &SweepRow, Option<&VariantSet>) + 'a;
+
+/// [`sweep_and_pick`], handing each row to `on_row(grid_index, row,
+/// variants)` as the sweep finishes it (to stream `sweep.csv`; rows of
+/// one (method, delay) series come in grid order) and then keeping it
+/// slimmed (`SweepRow::slim`). With `on_row` None the rows are kept whole.
+pub fn sweep_and_pick_streaming(
+    case: &Case,
+    lp: &PreparedLoop,
+    on_done: &(dyn Fn() + Sync),
+    observer: &dyn SearchObserver,
+    mut on_row: Option<&mut RowSink<'_>>,
+) -> Result<Picked, Error> {
     let variants = case_variants(case, lp)?;
     let plan = Plan::for_case(case, lp, variants.as_ref());
-    let rows = sweep::run(&plan, &case_grid(case, lp), on_done);
+    let points = case_grid(case, lp);
+    let mut rows = sweep::GridOrder::default();
+    sweep::run_streaming(&plan, &points, on_done, &mut |i, mut row| {
+        if let Some(f) = on_row.as_mut() {
+            f(i, &row, variants.as_ref());
+            row.slim();
+        }
+        rows.push(i, row);
+    });
+    let rows = rows.finish();
     let report = pick(case, lp, variants.as_ref(), &rows, observer);
     Ok(Picked {
         rows,
@@ -92,13 +128,23 @@ pub fn case_grid(case: &Case, lp: &PreparedLoop) -> Vec<Point> {
         Controller::Discrete(d) => vec![1.0 / d.period_s],
         Controller::Continuous(_) => case.rates.grid(),
     };
-    sweep::grid(&rates, &case_methods(case), &case.compute_delays)
+    sweep::grid_holds(
+        &rates,
+        &case_methods(case),
+        &case.holds,
+        &case.compute_delays,
+    )
 }
 
 /// The recommended design.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Recommended {
     pub method: String,
+    /// The actuator's hold kind.
+    pub hold: HoldKind,
+    /// Why this hold, in words (the cheapest passing one, against the
+    /// other kinds the case lists).
+    pub hold_basis: String,
     pub compute_delay: f64,
     /// `f_star` of this method, Hz.
     pub slowest_rate_hz: f64,
@@ -405,6 +451,8 @@ pub fn pick(
         Some(r) => r.methods.iter().map(|m| m.rate.clone()).collect(),
         None => report.methods.clone(),
     };
+    // The cheapest passing (method, hold): the lowest f_star; on a tie the
+    // first in case order (min_by keeps the first of equals).
     let best = answers
         .iter()
         .filter(|m| m.compute_delay == design_delay)
@@ -481,10 +529,12 @@ pub fn pick(
             case.rates.max_hz
         ));
     }
+    let hold = best.hold;
     let p = Point {
         rate_hz: rate,
         method,
         delay: design_delay,
+        hold,
     };
     let eval: Evaluation = lp.sampled_exact(&p);
     let a = assess(&eval, spec);
@@ -530,6 +580,8 @@ pub fn pick(
             ),
         },
         method: best.method.clone(),
+        hold,
+        hold_basis: hold_basis(case, &answers, &best.method, hold, f_star, design_delay),
         compute_delay: design_delay,
         slowest_rate_hz: f_star,
         rate_hz: rate,
@@ -553,6 +605,7 @@ pub fn pick(
         let crossover = eval.figures.as_ref().and_then(|f| f.crossover_hz);
         let at = Chosen {
             method,
+            hold,
             rate_hz: rate,
             crossover_hz: crossover,
         };
@@ -639,12 +692,16 @@ pub fn pick(
     report
 }
 
-/// Rows grouped by (method, delay) in grid order, each sorted by rate.
+/// Rows grouped by (method, hold, delay) in grid order, each sorted by rate.
 fn series_of(rows: &[SweepRow]) -> Vec<Vec<&SweepRow>> {
     let mut series: Vec<Vec<&SweepRow>> = Vec::new();
     for r in rows {
         match series.last_mut() {
-            Some(s) if s[0].point.method == r.point.method && s[0].point.delay == r.point.delay => {
+            Some(s)
+                if s[0].point.method == r.point.method
+                    && s[0].point.hold == r.point.hold
+                    && s[0].point.delay == r.point.delay =>
+            {
                 s.push(r)
             }
             _ => series.push(vec![r]),
@@ -671,7 +728,7 @@ fn robust_report(
         .par_iter()
         .zip(nominal.par_iter())
         .map(|(s, nominal)| {
-            let (method, delay) = (s[0].point.method, s[0].point.delay);
+            let (method, delay, hold) = (s[0].point.method, s[0].point.delay, s[0].point.hold);
             let grid: Vec<(f64, &Assessment, usize)> = s
                 .iter()
                 .filter_map(|r| {
@@ -688,6 +745,7 @@ fn robust_report(
                     rate_hz: rate,
                     method,
                     delay,
+                    hold,
                 };
                 let c = lp.controller_at(rate, method);
                 let (_, v) =
@@ -697,7 +755,7 @@ fn robust_report(
                     .push((rate, v.assessment.clone(), v.worst));
                 v.assessment
             };
-            let mut rate = slowest_rate_by(method, delay, &coarse, &judge);
+            let mut rate = slowest_rate_by(method, hold, delay, &coarse, &judge);
             // Both answers are brackets of width 1e-4; where the nominal
             // bracket ends above the robust one, its passing end also passes
             // every variant (it lies above the robust answer), so report it:
@@ -769,12 +827,13 @@ fn robust_report(
 /// The recommended method and rate, and the nominal loop's crossover there.
 struct Chosen {
     method: Option<Method>,
+    hold: HoldKind,
     rate_hz: f64,
     crossover_hz: Option<f64>,
 }
 
 /// Precision ceilings for every method with an answer at the design delay
-/// (searched upward from its `f_star` times the headroom, on the nominal
+/// with the recommended hold (searched upward from its `f_star` times the headroom, on the nominal
 /// plant), and the damage at the recommended rate.
 fn precision_report(
     case: &Case,
@@ -785,6 +844,7 @@ fn precision_report(
     observer: &dyn SearchObserver,
 ) -> PrecisionReport {
     let (recommended_method, recommended_rate) = (chosen.method, chosen.rate_hz);
+    let hold = chosen.hold;
     let recommended_crossover_hz = chosen.crossover_hz;
     let Some(arith) = case.arithmetic.as_ref() else {
         unreachable!("precision_report is called only with [arithmetic]")
@@ -805,7 +865,9 @@ fn precision_report(
     for m in case_methods(case) {
         let Some(f_star) = answers
             .iter()
-            .find(|a| a.method == method_label(m) && a.compute_delay == design_delay)
+            .find(|a| {
+                a.method == method_label(m) && a.hold == hold && a.compute_delay == design_delay
+            })
             .and_then(|a| a.slowest_rate_hz)
         else {
             continue;
@@ -824,7 +886,9 @@ fn precision_report(
         .map(|&(m, from, format)| {
             let series: Vec<&SweepRow> = rows
                 .iter()
-                .filter(|r| r.point.method == m && r.point.delay == design_delay)
+                .filter(|r| {
+                    r.point.method == m && r.point.hold == hold && r.point.delay == design_delay
+                })
                 .collect();
             let ceiling = match evaluated.iter().position(|f| *f == format) {
                 None => {
@@ -844,6 +908,7 @@ fn precision_report(
                             rate_hz: rate,
                             method: m,
                             delay: design_delay,
+                            hold,
                         };
                         let a = precision::judge_point(
                             lp,
@@ -887,6 +952,7 @@ fn precision_report(
         rate_hz: recommended_rate,
         method: recommended_method,
         delay: design_delay,
+        hold,
     };
     let at_recommended = arith
         .formats
@@ -1056,7 +1122,9 @@ fn empty_window_advice(
         let answers = report.answers();
         let lim = answers
             .iter()
-            .find(|m| m.method == r.method && m.compute_delay == r.compute_delay)
+            .find(|m| {
+                m.method == r.method && m.hold == r.hold && m.compute_delay == r.compute_delay
+            })
             .and_then(|m| m.limiting.clone())
             .unwrap_or_default();
         out.push(format!(
@@ -1070,9 +1138,11 @@ fn empty_window_advice(
         out.extend(other_method_advice(case, lp, report, b, ceiling));
     }
     let answers = report.answers();
+    let rec_hold = report.recommended.as_ref().map(|r| r.hold);
     let shorter: Vec<String> = answers
         .into_iter()
         .filter(|_| cpu_bound)
+        .filter(|m| Some(m.hold) == rec_hold)
         .filter(|m| m.compute_delay < report.design_delay)
         .filter_map(|m| m.slowest_rate_hz.map(|f| (m, f)))
         .filter(|(_, f)| f * case.spec.headroom <= ceiling)
@@ -1116,9 +1186,11 @@ fn other_method_advice(
         .map_or(Structure::TransposedDirect, |a| a.structure);
     let integrators = precision::design_integrators(&lp.controller);
     let answers = report.answers();
+    let rec_hold = report.recommended.as_ref().map(|r| r.hold);
     let at_design: Vec<(Method, f64)> = answers
         .iter()
         .filter(|a| a.compute_delay == report.design_delay)
+        .filter(|a| rec_hold.is_none_or(|h| a.hold == h))
         .filter_map(|a| {
             let m = case.methods.iter().find(|m| m.name() == a.method)?;
             Some((*m, a.slowest_rate_hz?))
@@ -1188,4 +1260,46 @@ fn other_method_advice(
         "a method with a lower f_star: at most {} Hz would fit the CPU ceiling with the headroom ({lowest}{untried})",
         fmt_at_most(need)
     ))
+}
+
+/// Why the recommended hold: the cheapest passing one at the design delay
+/// (lowest `f_star`, ties to the first listed), set against the best
+/// `f_star` of every other hold kind the case lists.
+fn hold_basis(
+    case: &Case,
+    answers: &[SlowestRate],
+    method: &str,
+    hold: HoldKind,
+    f_star: f64,
+    design_delay: f64,
+) -> String {
+    if case.holds.len() < 2 {
+        return format!("{hold}: the only hold kind the case lists");
+    }
+    let others: Vec<String> = case
+        .holds
+        .iter()
+        .filter(|&&h| h != hold)
+        .map(|&h| {
+            let best = answers
+                .iter()
+                .filter(|a| a.hold == h && a.compute_delay == design_delay)
+                .filter_map(|a| a.slowest_rate_hz.map(|f| (a, f)))
+                .min_by(|a, b| a.1.total_cmp(&b.1));
+            match best {
+                Some((a, f)) if f == f_star => format!(
+                    "{h} ties at {} Hz ({}) but is listed later",
+                    fmt_num(f),
+                    a.method
+                ),
+                Some((a, f)) => format!("{h} needs {} Hz ({})", fmt_num(f), a.method),
+                None => format!("{h} meets the spec with no method up to max_hz"),
+            }
+        })
+        .collect();
+    format!(
+        "{hold}: the lowest slowest rate at delay {design_delay}, {} Hz with {method}; {}",
+        fmt_num(f_star),
+        others.join("; ")
+    )
 }

@@ -64,7 +64,9 @@ pub enum PlotError {
     #[error("embedded chart font could not be read: {0}")]
     Font(String),
     /// Creating, renaming or removing a file failed.
-    #[error("cannot write {}: {source}", path.display())]
+    // The io error is the `source`, not in the message: a chain printer
+    // would print it twice otherwise.
+    #[error("cannot write {}", path.display())]
     Io {
         path: PathBuf,
         #[source]
@@ -378,6 +380,27 @@ pub fn render_rgb(fig: &Figure) -> Result<(u32, u32, Vec<u8>), PlotError> {
     let canvas = render::render(fig)?;
     let (w, h) = (canvas.width(), canvas.height());
     Ok((w, h, canvas.pixels().to_vec()))
+}
+
+/// Draw `fig` and encode it as PNG in memory (the bytes a report embeds
+/// are the bytes written, never a file read back). `name` is only used in
+/// an encoder error.
+pub fn render_png_bytes(fig: &Figure, name: &Path) -> Result<Vec<u8>, PlotError> {
+    use image::ImageEncoder;
+    let canvas = render::render(fig)?;
+    let mut out = Vec::new();
+    image::codecs::png::PngEncoder::new(&mut out)
+        .write_image(
+            canvas.pixels(),
+            canvas.width(),
+            canvas.height(),
+            image::ColorType::Rgb8,
+        )
+        .map_err(|e| PlotError::Encode {
+            path: name.to_path_buf(),
+            message: e.to_string(),
+        })?;
+    Ok(out)
 }
 
 /// Draw `fig` and write it to `path` as PNG.

@@ -9,6 +9,7 @@
 use std::path::{Path, PathBuf};
 
 use crate::case::{Case, Written};
+use crate::charts::Chart;
 use crate::error::Error;
 use crate::evaluate::Figures;
 use crate::outputs::write_atomic;
@@ -30,10 +31,11 @@ enum Block {
     List(Vec<String>),
     /// Header row, then body rows.
     Table(Vec<String>, Vec<Vec<String>>),
-    /// Relative path (Markdown) and file to embed (HTML), with a caption.
+    /// Relative path (Markdown) and the PNG bytes to embed (HTML), with a
+    /// caption.
     Image {
         rel: String,
-        file: PathBuf,
+        png: Vec<u8>,
         caption: String,
     },
     /// The box under the title: (label, text) rows.
@@ -55,7 +57,7 @@ pub fn write_report(
     out_dir: &Path,
     case: &Case,
     report: &PickReport,
-    charts: &[PathBuf],
+    charts: &[Chart],
 ) -> Result<PathBuf, Error> {
     let blocks = blocks(out_dir, case, report, charts)?;
     let md_path = out_dir.join(REPORT_MD);
@@ -495,18 +497,21 @@ fn answer(case: &Case, report: &PickReport, rec: &Recommended, lead: &str) -> St
         .unwrap_or_default();
     if rec.method == "given-in-z" {
         return format!(
-            "{lead} the controller given in z at its own rate, **{} Hz** (period **{} s**{timer}), with the output applied {} of a period after sampling; {load}. A controller given in z runs only at its own rate, so no headroom is applied.",
+            "{lead} the controller given in z at its own rate, **{} Hz** (period **{} s**{timer}), with the output applied {} periods after sampling through a {} hold; {load}. A controller given in z runs only at its own rate, so no headroom is applied.",
             fmt_num(rec.rate_hz),
             fmt_num(rec.period_s),
             fmt_num(rec.compute_delay),
+            rec.hold,
         );
     }
     format!(
-        "{lead} the controller discretized by `{}` at **{} Hz** (period **{} s**{timer}) with the output applied {} of a period after sampling; {load}. This is the slowest {}, {} Hz, times the headroom {}.",
+        "{lead} the controller discretized by `{}` at **{} Hz** (period **{} s**{timer}) with the output applied {} periods after sampling through a **{}** hold ({}); {load}. This is the slowest {}, {} Hz, times the headroom {}.",
         rec.method,
         fmt_num(rec.rate_hz),
         fmt_num(rec.period_s),
         fmt_num(rec.compute_delay),
+        rec.hold,
+        rec.hold_basis,
         if report.robust.is_some() {
             "rate passing on every plant variant (robust f*)"
         } else {
@@ -521,7 +526,7 @@ fn blocks(
     out_dir: &Path,
     case: &Case,
     report: &PickReport,
-    charts: &[PathBuf],
+    charts: &[Chart],
 ) -> Result<Vec<Block>, Error> {
     let models = case.nominal()?;
     let written = case.written();
@@ -696,6 +701,7 @@ fn blocks(
     b.push(Block::Table(
         vec![
             "method".into(),
+            "hold".into(),
             "computation delay (of T)".into(),
             if robust {
                 "nominal f* (Hz)".into()
@@ -722,6 +728,7 @@ fn blocks(
                     .join(", ");
                 vec![
                     m.method.clone(),
+                    m.hold.name().into(),
                     fmt_num(m.compute_delay),
                     f,
                     m.limiting.clone().unwrap_or_else(|| "-".into()),
@@ -777,6 +784,7 @@ fn blocks(
         b.push(Block::Table(
             vec![
                 "method".into(),
+                "hold".into(),
                 "computation delay (of T)".into(),
                 "robust f* (Hz)".into(),
                 "nominal f* (Hz)".into(),
@@ -788,6 +796,7 @@ fn blocks(
                 .map(|m| {
                     vec![
                         m.rate.method.clone(),
+                        m.rate.hold.name().into(),
                         fmt_num(m.rate.compute_delay),
                         m.rate.slowest_rate_hz.map_or("none".into(), fmt_num),
                         m.nominal_slowest_rate_hz.map_or("none".into(), fmt_num),
@@ -909,7 +918,7 @@ fn blocks(
 
     if !charts.is_empty() {
         b.push(Block::Heading(2, "Charts".into()));
-        for c in charts {
+        for Chart { path: c, png } in charts {
             let rel = c
                 .strip_prefix(out_dir)
                 .unwrap_or(c)
@@ -921,7 +930,7 @@ fn blocks(
                 .unwrap_or_default();
             b.push(Block::Image {
                 rel,
-                file: c.clone(),
+                png: png.clone(),
                 caption: chart_caption(&name, at_rate, robust),
             });
         }
@@ -935,9 +944,23 @@ fn blocks(
             "Every figure is computed from the models above (nominal parameter values): the exact sampled-data loop, with the plant output evaluated between samples.".to_string()
         },
         format!(
-            "The controller's output is applied {} of a period after each sample (the computation delay the answer is given at: the largest the case lists).",
+            "The controller's output is applied {} periods after each sample (the computation delay the answer is given at: the largest the case lists).",
             fmt_num(report.design_delay)
         ),
+        match &report.recommended {
+            Some(r) => format!(
+                "The actuator holds each command as a {} hold. {}.",
+                r.hold, r.hold_basis
+            ),
+            None => format!(
+                "Hold kinds evaluated: {}.",
+                case.holds
+                    .iter()
+                    .map(|h| h.name())
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            ),
+        },
         format!(
             "The headroom factor {} on the slowest passing rate is what covers model error, parameter drift and unmodelled dynamics; it is not a guarantee.",
             fmt_num(report.headroom)
@@ -947,6 +970,14 @@ fn blocks(
             fmt_num(case.spec.settling_band_pct)
         ),
     ];
+    if case.plant_delay_s > 0.0 || case.sensor_delay_s > 0.0 {
+        assumptions.push(format!(
+            "Transport delays: {} s at the plant, {} s on the measurement. They are exact in the sampled loop (whole periods as unit delays, the fraction exact) and in the continuous design's loop gain; the continuous design's step and load responses and poles use their Pade [{n}/{n}] approximant.",
+            fmt_num(case.plant_delay_s),
+            fmt_num(case.sensor_delay_s),
+            n = crate::evaluate::TRANSPORT_PADE_ORDER
+        ));
+    }
     assumptions.extend(report.notes.iter().map(|n| format!("Note: {n}.")));
     b.push(Block::List(assumptions));
 
@@ -974,7 +1005,10 @@ fn chart_caption(name: &str, at_rate: &str, robust: bool) -> String {
             "CPU load against the rate, the budget line and the rate window.".into()
         }
         crate::charts::HOLD_APPROXIMATION => {
-            "Where the usual continuous approximations of hold and delay stop agreeing with the exact sampled loop.".into()
+            "Where the usual continuous approximations of hold and delay (a lag and Pade approximants of the hold's low-frequency delay, and the hold's own transfer function by [2/2] Pade) stop agreeing with the exact sampled loop.".into()
+        }
+        crate::charts::HOLD_KINDS => {
+            "Phase margin and overshoot against the rate with each hold kind the case lists, at the recommended method and delay, with each hold's f*.".into()
         }
         crate::charts::DISTURBANCE => format!(
             "Response to a unit load step at the plant input, at {at_rate} and at {star}."
@@ -1262,16 +1296,12 @@ img{max-height:20cm;width:auto}thead{display:table-header-group}\
 .wide{overflow:visible}a{color:inherit;text-decoration:none}}";
 
 /// The `<img>` of one chart, its bytes embedded as a data URI.
-fn embedded_chart(file: &Path, alt: &str) -> Result<String, Error> {
-    let bytes = std::fs::read(file).map_err(|e| Error::Output {
-        path: file.display().to_string(),
-        message: format!("cannot read the chart to embed it: {e}"),
-    })?;
-    Ok(format!(
+fn embedded_chart(png: &[u8], alt: &str) -> String {
+    format!(
         "<img alt=\"{}\" src=\"data:image/png;base64,{}\">",
         escape(alt),
-        base64(&bytes)
-    ))
+        base64(png)
+    )
 }
 
 fn html_table(head: &[String], rows: &[Vec<String>]) -> String {
@@ -1316,11 +1346,11 @@ fn html(title: &str, blocks: &[Block]) -> Result<String, Error> {
                 out.push_str("</ul>\n");
             }
             Block::Table(head, rows) => out.push_str(&html_table(head, rows)),
-            Block::Image { rel, file, caption } => {
+            Block::Image { rel, png, caption } => {
                 out.push_str(&format!(
                     "<figure><a href=\"{}\" title=\"full size\">{}</a><figcaption>{}</figcaption></figure>\n",
                     escape(rel),
-                    embedded_chart(file, caption)?,
+                    embedded_chart(png, caption),
                     inline(caption)
                 ));
             }

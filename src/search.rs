@@ -17,6 +17,7 @@ use crate::case::Spec;
 use crate::discretize::Method;
 use crate::evaluate::{Point, PreparedLoop};
 use crate::feasibility::{Assessment, assess};
+use crate::hold::HoldKind;
 use crate::scalar_solve;
 use crate::sweep::SweepRow;
 
@@ -28,6 +29,8 @@ pub const RATE_TOLERANCE: f64 = 1e-4;
 pub struct SlowestRate {
     /// Method name (`given-in-z` for a controller given in z).
     pub method: String,
+    /// The actuator's hold kind.
+    pub hold: HoldKind,
     pub compute_delay: f64,
     /// `f_star`, Hz; None when `max_hz` itself fails.
     pub slowest_rate_hz: Option<f64>,
@@ -67,9 +70,9 @@ pub fn slowest_rate(
     rows: &[&SweepRow],
     observer: &dyn SearchObserver,
 ) -> SlowestRate {
-    let (method, delay) = rows
-        .first()
-        .map_or((None, 0.0), |r| (r.point.method, r.point.delay));
+    let (method, delay, hold) = rows.first().map_or((None, 0.0, HoldKind::ZeroOrder), |r| {
+        (r.point.method, r.point.delay, r.point.hold)
+    });
     let series: Vec<(f64, &Assessment)> = rows
         .iter()
         .map(|r| (r.point.rate_hz, &r.assessment))
@@ -79,12 +82,13 @@ pub fn slowest_rate(
             rate_hz: rate,
             method,
             delay,
+            hold,
         };
         let a = assess(&lp.sampled(&p), spec);
         observer.evaluated(rate, &a);
         a
     };
-    slowest_rate_by(method, delay, &series, &judge)
+    slowest_rate_by(method, hold, delay, &series, &judge)
 }
 
 /// `f_star` for one (method, delay) series: `series` holds the coarse
@@ -93,12 +97,14 @@ pub fn slowest_rate(
 /// several plant variants).
 pub fn slowest_rate_by(
     method: Option<Method>,
+    hold: HoldKind,
     delay: f64,
     series: &[(f64, &Assessment)],
     judge: &dyn Fn(f64) -> Assessment,
 ) -> SlowestRate {
     let mut answer = SlowestRate {
         method: method_label(method),
+        hold,
         compute_delay: delay,
         slowest_rate_hz: None,
         limiting: None,

@@ -312,8 +312,8 @@ pub fn pick_text(r: &PickReport) -> String {
     if !r.methods.is_empty() {
         let _ = writeln!(
             s,
-            "{:<16}{:>8}{:>16}{:>22}{:>8}  islands",
-            "method", "delay", "slowest (Hz)", "limiting", "evals"
+            "{:<16}{:<15}{:>8}{:>16}{:>22}{:>8}  islands",
+            "method", "hold", "delay", "slowest (Hz)", "limiting", "evals"
         );
     }
     for m in &r.methods {
@@ -330,8 +330,9 @@ pub fn pick_text(r: &PickReport) -> String {
             .join(", ");
         let _ = writeln!(
             s,
-            "{:<16}{:>8}{:>16}{:>22}{:>8}  {}",
+            "{:<16}{:<15}{:>8}{:>16}{:>22}{:>8}  {}",
             m.method,
+            m.hold.name(),
             m.compute_delay,
             slow,
             m.limiting.clone().unwrap_or_default(),
@@ -365,8 +366,8 @@ pub fn pick_text(r: &PickReport) -> String {
         };
         let _ = writeln!(
             s,
-            "{:<16}{:>8}{:>16}{:>14}{:>22}  worst variant",
-            "method", "delay", "robust (Hz)", "nominal (Hz)", "limiting"
+            "{:<16}{:<15}{:>8}{:>16}{:>14}{:>22}  worst variant",
+            "method", "hold", "delay", "robust (Hz)", "nominal (Hz)", "limiting"
         );
         for m in &rb.methods {
             let slow = match (m.rate.slowest_rate_hz, m.rate.at_range_floor) {
@@ -386,8 +387,9 @@ pub fn pick_text(r: &PickReport) -> String {
                 .unwrap_or_default();
             let _ = writeln!(
                 s,
-                "{:<16}{:>8}{:>16}{:>14}{:>22}  {}",
+                "{:<16}{:<15}{:>8}{:>16}{:>14}{:>22}  {}",
                 m.rate.method,
+                m.rate.hold.name(),
                 m.rate.compute_delay,
                 slow,
                 fmt_opt(m.nominal_slowest_rate_hz, "none"),
@@ -406,16 +408,18 @@ pub fn pick_text(r: &PickReport) -> String {
         if rec.method == "given-in-z" {
             let _ = writeln!(
                 s,
-                "Recommended: the controller given in z at its own rate, {} Hz (T = {} s), computation delay {} of a period.",
+                "Recommended: the controller given in z at its own rate, {} Hz (T = {} s), {} hold, computation delay {} periods.",
                 fmt_num(rec.rate_hz),
                 fmt_num(rec.period_s),
+                rec.hold,
                 rec.compute_delay
             );
         } else {
             let _ = writeln!(
                 s,
-                "Recommended: {} at {} Hz (T = {} s), computation delay {} of a period; {basis} {} Hz times headroom {} (the headroom covers model error).",
+                "Recommended: {} with a {} hold at {} Hz (T = {} s), computation delay {} periods; {basis} {} Hz times headroom {} (the headroom covers model error).",
                 rec.method,
+                rec.hold,
                 fmt_num(rec.rate_hz),
                 fmt_num(rec.period_s),
                 rec.compute_delay,
@@ -423,6 +427,7 @@ pub fn pick_text(r: &PickReport) -> String {
                 r.headroom
             );
         }
+        let _ = writeln!(s, "Hold: {}.", rec.hold_basis);
         if let Some(n) = rec.timer_divider {
             let _ = writeln!(s, "Timer divider {n}.");
         }
@@ -669,6 +674,17 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::evaluate::PreparedLoop) 
             );
         }
     }
+    let _ = writeln!(
+        s,
+        "hold kinds {}; transport delay {} s at the plant, {} s on the measurement",
+        case.holds
+            .iter()
+            .map(|h| h.name())
+            .collect::<Vec<_>>()
+            .join(", "),
+        case.plant_delay_s,
+        case.sensor_delay_s
+    );
     if let Some(u) = &case.uncertainty {
         let n = crate::variants::parameter_sets(case).len();
         let how = match u {

@@ -102,6 +102,34 @@ impl Transfer {
         )
     }
 
+    /// The same function with numerator and denominator multiplied by one
+    /// power of two, so the denominator's largest coefficient is near 1,
+    /// when it lies outside `[1e-100, 1e100]` (a sensor written
+    /// `1e-320/1e-320`, say, whose products with other models would
+    /// underflow to 0/0). A power of two is exact, so nothing else changes;
+    /// ordinary models are returned as they are.
+    pub fn with_sane_scale(&self) -> Transfer {
+        let big = self
+            .denominator
+            .coeffs()
+            .iter()
+            .fold(0.0f64, |m, c| m.max(c.abs()));
+        if !(big.is_finite() && big > 0.0) || (1e-100..=1e100).contains(&big) {
+            return self.clone();
+        }
+        // Two steps, since 2^-e alone is not representable for the
+        // subnormal range's e.
+        let e = big.log2().round() as i32;
+        let half = -e / 2;
+        let rest = -e - half;
+        let k1 = 2f64.powi(half);
+        let k2 = 2f64.powi(rest);
+        Transfer::new(
+            self.numerator.scale(k1).scale(k2),
+            self.denominator.scale(k1).scale(k2),
+        )
+    }
+
     /// Every coefficient finite.
     pub fn is_finite(&self) -> bool {
         self.numerator.is_finite() && self.denominator.is_finite()

@@ -123,12 +123,13 @@ impl VariantSet {
                     return Ok(nominal.clone());
                 }
                 let m = case.models_at(v)?;
-                PreparedLoop::new(
+                PreparedLoop::with_transport(
                     &m.plant,
                     &m.sensor,
                     &nominal.controller,
                     prewarp_hz,
                     nominal.time,
+                    nominal.transport,
                 )
                 .map_err(|e| Error::Model {
                     context: format!(
@@ -143,7 +144,7 @@ impl VariantSet {
                             v
                         )
                     ),
-                    source: e,
+                    reason: e,
                 })
             })
             .collect::<Result<Vec<_>, Error>>()?;

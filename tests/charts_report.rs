@@ -109,7 +109,7 @@ fn charts_of_a_case_with_an_answer() {
     let charts = write_charts(&dir, &r.case, &r.lp, &r.rows, &r.report).unwrap();
     let names: Vec<String> = charts
         .iter()
-        .map(|p| p.file_name().unwrap().to_string_lossy().into_owned())
+        .map(|c| c.path.file_name().unwrap().to_string_lossy().into_owned())
         .collect();
     assert_eq!(
         names,
@@ -123,7 +123,9 @@ fn charts_of_a_case_with_an_answer() {
         ]
     );
     for c in &charts {
-        check_png(c);
+        check_png(&c.path);
+        // The bytes the report embeds are the file written.
+        assert_eq!(std::fs::read(&c.path).unwrap(), c.png);
     }
 
     let md_path = write_report(&dir, &r.case, &r.report, &charts).unwrap();
@@ -155,8 +157,10 @@ fn charts_of_a_case_with_an_answer() {
             .unwrap_or_else(|| panic!("no table row for {name}"));
         let cells: Vec<&str> = row.split('|').map(str::trim).collect();
         let f = m["slowest_rate_hz"].as_f64().unwrap();
-        assert_same(cells[3], &fmt_num(f), f);
-        assert_eq!(cells[4], m["limiting"].as_str().unwrap());
+        // Columns: method, hold, delay, f*, limiting.
+        assert_eq!(cells[2], m["hold"].as_str().unwrap());
+        assert_same(cells[4], &fmt_num(f), f);
+        assert_eq!(cells[5], m["limiting"].as_str().unwrap());
     }
     // Every chart embedded by relative path; the caution is there.
     for name in &names {
@@ -203,11 +207,13 @@ fn no_answer_draws_what_still_makes_sense() {
     let charts = write_charts(&dir, &r.case, &r.lp, &r.rows, &r.report).unwrap();
     let names: Vec<String> = charts
         .iter()
-        .map(|p| p.file_name().unwrap().to_string_lossy().into_owned())
+        .map(|c| c.path.file_name().unwrap().to_string_lossy().into_owned())
         .collect();
     assert_eq!(names, ["figures-vs-rate.png", "cpu-budget.png"]);
     for c in &charts {
-        check_png(c);
+        check_png(&c.path);
+        // The bytes the report embeds are the file written.
+        assert_eq!(std::fs::read(&c.path).unwrap(), c.png);
     }
     let md =
         std::fs::read_to_string(write_report(&dir, &r.case, &r.report, &charts).unwrap()).unwrap();
@@ -217,7 +223,7 @@ fn no_answer_draws_what_still_makes_sense() {
         .find(|l| first_cell(l) == Some("tustin"))
         .unwrap();
     let cells: Vec<&str> = row.split('|').map(str::trim).collect();
-    assert_eq!(cells[2..4], ["0.5000", "none"]);
+    assert_eq!(cells[2..5], ["zero-order", "0.5000", "none"]);
 }
 
 #[test]
@@ -253,7 +259,7 @@ fn variants_and_precision_reach_every_output() {
     let r = run(&text, &dir);
     let charts = write_charts(&dir, &r.case, &r.lp, &r.rows, &r.report).unwrap();
     let png = dir.join("precision.png");
-    assert!(charts.contains(&png), "{charts:?}");
+    assert!(charts.iter().any(|c| c.path == png), "{charts:?}");
     check_png(&png);
     let md_path = write_report(&dir, &r.case, &r.report, &charts).unwrap();
     let md = std::fs::read_to_string(&md_path).unwrap();
@@ -272,9 +278,9 @@ fn variants_and_precision_reach_every_output() {
             .unwrap_or_else(|| panic!("no robust row for {name}"));
         let cells: Vec<&str> = row.split('|').map(str::trim).collect();
         let f = m["slowest_rate_hz"].as_f64().unwrap();
-        assert_same(cells[3], &fmt_num(f), f);
+        assert_same(cells[4], &fmt_num(f), f);
         let n = m["nominal_slowest_rate_hz"].as_f64().unwrap();
-        assert_same(cells[4], &fmt_num(n), n);
+        assert_same(cells[5], &fmt_num(n), n);
     }
     // Both formats are in the precision table and in pick.json.
     for f in ["q11", "f32"] {

@@ -27,12 +27,15 @@ fn picked(name: &str) -> (Case, PreparedLoop, PickReport) {
     (c, lp, report)
 }
 
-const ALL: [&str; 5] = [
+const ALL: [&str; 8] = [
     "belt-conveyor.toml",
     "oven-heater.toml",
     "gimbal-axis.toml",
     "buck-converter.toml",
     "pump-pressure-tight-cpu.toml",
+    "motor-current-loop.toml",
+    "dryer-transport-delay.toml",
+    "hold-comparison.toml",
 ];
 
 #[test]
@@ -266,6 +269,28 @@ fn the_summary_and_json_state_the_window_and_what_would_open_an_empty_one() {
 }
 
 #[test]
+fn the_hold_comparison_recommends_the_cheapest_hold_and_says_why() {
+    // Every (method, hold) at the design delay is searched; the
+    // recommendation is the lowest f_star among them (ties to the first
+    // listed), and its basis names each other hold's best rate.
+    let (c, _, report) = picked("hold-comparison.toml");
+    let rec = report.recommended.clone().unwrap();
+    let best = report
+        .methods
+        .iter()
+        .filter(|m| m.compute_delay == report.design_delay)
+        .filter_map(|m| m.slowest_rate_hz)
+        .fold(f64::INFINITY, f64::min);
+    assert_eq!(rec.slowest_rate_hz, best);
+    assert_eq!(report.methods.len(), c.methods.len() * c.holds.len());
+    for h in &c.holds {
+        assert!(rec.hold_basis.contains(h.name()), "{}", rec.hold_basis);
+    }
+    let text = looprate::summary::pick_text(&report);
+    assert!(text.contains("Hold: "), "{text}");
+}
+
+#[test]
 fn every_rate_inside_a_reported_window_meets_the_spec_when_evaluated_directly() {
     // The window claims only checked rates: 40 rates spread over it (ends
     // included), each evaluated on its own at the recommended method and
@@ -292,6 +317,7 @@ fn every_rate_inside_a_reported_window_meets_the_spec_when_evaluated_directly() 
                 rate_hz: rate,
                 method,
                 delay: rec.compute_delay,
+                hold: rec.hold,
             };
             let a = looprate::feasibility::assess(&lp.sampled(&p), &case.spec);
             assert!(

@@ -3,6 +3,7 @@
 //! rate (checked against a direct evaluation of the same point), and
 //! `check` says what is run instead of listing methods.
 
+use looprate::hold::HoldKind;
 use std::path::Path;
 
 use looprate::case::Case;
@@ -48,6 +49,7 @@ fn each_delay_gets_its_own_verdict_and_rates_are_optional() {
             rate_hz: 5.0,
             method: None,
             delay: m.compute_delay,
+            hold: HoldKind::ZeroOrder,
         };
         let a = assess(&lp.sampled(&p), &c.spec);
         assert_eq!(

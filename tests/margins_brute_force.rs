@@ -4,7 +4,7 @@
 
 use looprate::discretize::Method;
 use looprate::evaluate::{Point, PreparedLoop};
-use looprate::hold::{HoldEquivalent, plant_and_sensor};
+use looprate::hold::{HoldEquivalent, HoldKind, plant_and_sensor};
 use looprate::poly::{C64, Poly};
 use looprate::time_response::TimeOptions;
 use looprate::transfer::{Controller, Transfer};
@@ -126,6 +126,7 @@ fn margins_match_a_dense_scan_on_five_loops() {
             rate_hz: rate,
             method: Some(Method::Tustin),
             delay: 0.5,
+            hold: HoldKind::ZeroOrder,
         };
         let e = lp.sampled(&p);
         let f = e

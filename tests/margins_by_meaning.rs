@@ -8,6 +8,7 @@
 use looprate::closed_loop::{ClosedLoop, Stability};
 use looprate::discretize::Method;
 use looprate::evaluate::{Figures, Point, PreparedLoop};
+use looprate::hold::HoldKind;
 use looprate::poly::{C64, Poly};
 use looprate::time_response::TimeOptions;
 use looprate::transfer::{Controller, DiscreteTransfer, Transfer};
@@ -287,6 +288,7 @@ impl RandomLoop {
             rate_hz: self.rate_ratio * self.wc / TWO_PI,
             method: Some(self.method),
             delay: self.delay,
+            hold: HoldKind::ZeroOrder,
         };
         Some((lp, p))
     }
@@ -372,6 +374,7 @@ fn open_loop_unstable_plant_with_lead_gain_margin_is_at_the_low_end() {
         rate_hz: 848.0,
         method: Some(Method::StepInvariant),
         delay: 1.0,
+        hold: HoldKind::ZeroOrder,
     };
     let e = lp.sampled_exact(&p);
     let f = e.figures.clone().expect("stable");
@@ -415,6 +418,7 @@ fn resonance_with_a_notch_takes_the_crossing_nearest_minus_one() {
         rate_hz: 1300.0,
         method: Some(Method::Tustin),
         delay: 1.0,
+        hold: HoldKind::ZeroOrder,
     };
     let e = lp.sampled_exact(&p);
     let f = e.figures.clone().expect("stable");

@@ -458,6 +458,7 @@ fn a_ceiling_is_never_above_a_failing_rate_when_rounding_is_not_monotone() {
             rate_hz: rate,
             method: Some(Method::Tustin),
             delay: 1.0,
+            hold: looprate::hold::HoldKind::ZeroOrder,
         };
         looprate::precision::judge_point(
             &lp,

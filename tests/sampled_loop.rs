@@ -4,6 +4,7 @@
 use looprate::continuous::HoldApprox;
 use looprate::discretize::Method;
 use looprate::evaluate::{Point, PreparedLoop, Status};
+use looprate::hold::HoldKind;
 use looprate::poly::Poly;
 use looprate::time_response::TimeOptions;
 use looprate::transfer::{Controller, DiscreteTransfer, Transfer};
@@ -41,6 +42,7 @@ fn textbook_unity_feedback_step_samples() {
         rate_hz: 1.0,
         method: None,
         delay: 0.0,
+        hold: HoldKind::ZeroOrder,
     };
     let (step, _) = lp.sampled_traces(&p, Some(11)).unwrap();
     let samples: Vec<f64> = step.iter().filter(|q| q.sample).map(|q| q.y).collect();
@@ -98,6 +100,7 @@ fn intersample_overshoot_is_caught() {
         rate_hz: 1.0,
         method: None,
         delay: 0.0,
+        hold: HoldKind::ZeroOrder,
     });
     let f = e.figures.unwrap();
     let (peak_all, peak_samples) = brute_force_peak(1.0, 1.0, 40);
@@ -142,6 +145,7 @@ fn fast_sampling_tends_to_continuous_second_order() {
         rate_hz: 10_000.0,
         method: Some(Method::Tustin),
         delay: 0.0,
+        hold: HoldKind::ZeroOrder,
     });
     let f = e.figures.unwrap();
     assert!(
@@ -178,6 +182,7 @@ fn hold_costs_half_a_period_of_phase() {
             rate_hz: rate,
             method: Some(Method::Tustin),
             delay: d,
+            hold: HoldKind::ZeroOrder,
         });
         let f = e.figures.unwrap();
         let loss = design.phase_margin_deg.unwrap() - f.phase_margin_deg.unwrap();
@@ -208,6 +213,7 @@ fn unstable_loop_reports_poles_only() {
         rate_hz: 1.0,
         method: None,
         delay: 0.0,
+        hold: HoldKind::ZeroOrder,
     });
     assert_eq!(e.status, Status::Unstable);
     assert!(e.figures.is_none());
@@ -234,6 +240,7 @@ fn loop_matrix_poles_agree_with_characteristic_polynomial() {
             rate_hz: rate,
             method: Some(Method::Tustin),
             delay: d,
+            hold: HoldKind::ZeroOrder,
         };
         let (hold, ctrl, cl) = lp.sampled_loop(&p).unwrap();
         let g = hold.pulse_transfer().unwrap();
@@ -267,6 +274,7 @@ fn early_stop_certificate_changes_no_figure() {
             rate_hz: rate,
             method: Some(Method::PoleZeroMatch),
             delay: d,
+            hold: HoldKind::ZeroOrder,
         };
         let f = lp.sampled(&p).figures.unwrap();
         let (step, _) = lp.sampled_traces(&p, None).unwrap();
@@ -306,6 +314,7 @@ fn early_stop_never_misses_a_later_command_peak() {
         rate_hz: 50.0,
         method: Some(Method::Tustin),
         delay: 0.5,
+        hold: HoldKind::ZeroOrder,
     };
     let f = lp.sampled(&p).figures.unwrap();
     let (step, _) = lp.sampled_traces(&p, None).unwrap();
@@ -336,6 +345,7 @@ fn crossover_below_the_default_grid_is_found() {
             rate_hz: 1e6,
             method: Some(Method::Tustin),
             delay: 1.0,
+            hold: HoldKind::ZeroOrder,
         })
         .figures
         .unwrap();
@@ -368,6 +378,7 @@ fn skipped_and_deferred_points_change_no_figure() {
             rate_hz: rate,
             method: Some(method),
             delay: d,
+            hold: HoldKind::ZeroOrder,
         };
         let Some(f) = lp.sampled(&p).figures else {
             continue;

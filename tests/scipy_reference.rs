@@ -7,6 +7,7 @@
 
 use looprate::discretize::{Method, discretize};
 use looprate::evaluate::{Point, PreparedLoop};
+use looprate::hold::HoldKind;
 use looprate::poly::Poly;
 use looprate::time_response::TimeOptions;
 use looprate::transfer::{Controller, Transfer};
@@ -139,6 +140,7 @@ fn sampled_loops_match_scipy() {
             rate_hz: 1.0 / t,
             method: Some(method),
             delay,
+            hold: HoldKind::ZeroOrder,
         };
         // Step samples: dlsim on SciPy's closed loop.
         let want = vecf(&l["step_y"]);
