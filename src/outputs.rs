@@ -12,6 +12,16 @@ use crate::search::method_label;
 use crate::sweep::SweepRow;
 use crate::variants::VariantSet;
 
+/// The folder `path` is written in (`.` for a bare name), created if missing.
+fn folder_of(path: &Path) -> std::io::Result<&Path> {
+    let dir = path
+        .parent()
+        .filter(|p| !p.as_os_str().is_empty())
+        .unwrap_or(Path::new("."));
+    fs::create_dir_all(dir)?;
+    Ok(dir)
+}
+
 /// Write `bytes` to `path` through a temporary file in the same folder and
 /// a rename, so a reader never sees a half-written file under the final
 /// name.
@@ -20,11 +30,7 @@ pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<(), Error> {
         path: path.display().to_string(),
         message: e.to_string(),
     };
-    let dir = path
-        .parent()
-        .filter(|p| !p.as_os_str().is_empty())
-        .unwrap_or(Path::new("."));
-    fs::create_dir_all(dir).map_err(err)?;
+    let dir = folder_of(path).map_err(err)?;
     let name = path
         .file_name()
         .map(|n| n.to_string_lossy().to_string())
@@ -376,11 +382,7 @@ impl SweepCsvStream {
             path: path.display().to_string(),
             message: e.to_string(),
         };
-        let dir = path
-            .parent()
-            .filter(|p| !p.as_os_str().is_empty())
-            .unwrap_or(Path::new("."));
-        fs::create_dir_all(dir).map_err(err)?;
+        let dir = folder_of(path).map_err(err)?;
         let mut w = csv::Writer::from_writer(Vec::new());
         let _ = w.write_record(sweep_header(formats, variants));
         let header = w.into_inner().unwrap_or_default();
