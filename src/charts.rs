@@ -526,25 +526,29 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
             panel.vmarks.push(VMark::new(*x, text, *style));
         }
         if let Some((v, side, text)) = limit {
-            // Near the stability edge an upper-limited figure runs off to
-            // huge values; keep the view on the region around the limit
-            // (the line leaves the top edge where it goes beyond).
-            if side == Side::Above {
-                let top = panel
-                    .series
-                    .iter()
-                    .flat_map(|s| s.points.iter().map(|p| p.1))
-                    .filter(|v| v.is_finite())
-                    .fold(f64::NEG_INFINITY, f64::max);
-                if top > 3.0 * v {
-                    panel.y = panel.y.clone().with_range(0.0, 3.0 * v);
-                }
-            }
-            panel.limits.push(Limit::new(v, side, text));
+            add_limit(&mut panel, v, side, text);
         }
         fig = fig.with_panel(panel);
     }
     Some(fig)
+}
+
+/// A spec limit on a panel. Near the stability edge an upper-limited
+/// figure runs off to huge values; the view then stays on the region
+/// around the limit (the line leaves the top edge where it goes beyond).
+fn add_limit(panel: &mut Panel, v: f64, side: Side, text: String) {
+    if side == Side::Above {
+        let top = panel
+            .series
+            .iter()
+            .flat_map(|s| s.points.iter().map(|p| p.1))
+            .filter(|v| v.is_finite())
+            .fold(f64::NEG_INFINITY, f64::max);
+        if top > 3.0 * v {
+            panel.y = panel.y.clone().with_range(0.0, 3.0 * v);
+        }
+    }
+    panel.limits.push(Limit::new(v, side, text));
 }
 
 /// Phase margin and overshoot against the rate, one series per hold kind
@@ -637,18 +641,7 @@ fn hold_kinds(inp: &Inputs) -> Option<Figure> {
             }
         }
         if let Some((v, side, text)) = limit {
-            if side == Side::Above {
-                let top = panel
-                    .series
-                    .iter()
-                    .flat_map(|s| s.points.iter().map(|p| p.1))
-                    .filter(|v| v.is_finite())
-                    .fold(f64::NEG_INFINITY, f64::max);
-                if top > 3.0 * v {
-                    panel.y = panel.y.clone().with_range(0.0, 3.0 * v);
-                }
-            }
-            panel.limits.push(Limit::new(v, side, text));
+            add_limit(&mut panel, v, side, text);
         }
         fig = fig.with_panel(panel);
     }
