@@ -3,12 +3,12 @@
 //! and a fast rate.
 
 use criterion::{Criterion, criterion_group, criterion_main};
-use looprate::discretize::Method;
-use looprate::evaluate::{Point, PreparedLoop};
-use looprate::hold::HoldKind;
-use looprate::poly::Poly;
-use looprate::time_response::TimeOptions;
-use looprate::transfer::{Controller, Transfer};
+use looprate::model::discretize::Method;
+use looprate::model::poly::Poly;
+use looprate::model::transfer::{Controller, Transfer};
+use looprate::sampled::evaluate::{Point, PreparedLoop};
+use looprate::sampled::time_response::TimeOptions;
+use looprate::spec::HoldKind;
 
 /// An invented positioning axis: motor with two lags and a mode at 60 Hz.
 pub fn bench_loop() -> PreparedLoop {

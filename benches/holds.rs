@@ -9,10 +9,10 @@ use std::path::PathBuf;
 
 use criterion::{Criterion, criterion_group, criterion_main};
 use looprate::case::Case;
-use looprate::discretize::Method;
-use looprate::hold::HoldKind;
-use looprate::pick::{case_grid, prepare};
-use looprate::sweep;
+use looprate::explore::pick::{case_grid, prepare};
+use looprate::explore::sweep;
+use looprate::model::discretize::Method;
+use looprate::spec::HoldKind;
 
 fn demo(name: &str) -> Case {
     Case::load(

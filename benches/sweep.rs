@@ -6,9 +6,9 @@ use std::path::PathBuf;
 
 use criterion::{Criterion, criterion_group, criterion_main};
 use looprate::case::Case;
-use looprate::pick::{case_grid, prepare, sweep_and_pick};
-use looprate::search::Silent;
-use looprate::sweep;
+use looprate::explore::pick::{case_grid, prepare, sweep_and_pick};
+use looprate::explore::search::Silent;
+use looprate::explore::sweep;
 
 fn demo(name: &str) -> Case {
     Case::load(

@@ -91,6 +91,79 @@ pub fn seconds(v: f64) -> String {
     }
 }
 
+/// A computation delay in periods as an engineer says it: `none`,
+/// `0.5 of a period`, `1 period`, `2.5 periods`.
+pub fn periods(d: f64) -> String {
+    let n = sig4(d);
+    let n = if n.contains('.') && !n.contains('e') {
+        n.trim_end_matches('0').trim_end_matches('.').to_string()
+    } else {
+        n
+    };
+    if d == 0.0 {
+        "none".into()
+    } else if d < 1.0 {
+        format!("{n} of a period")
+    } else if d == 1.0 {
+        "1 period".into()
+    } else {
+        format!("{n} periods")
+    }
+}
+
+/// A lower threshold ("at least"), in [`sig4`]'s digits but rounded
+/// up, so the printed number read back is never below `v`: quoting a
+/// minimum rounded down would name a value that falls just short.
+pub fn at_least(v: f64) -> String {
+    toward(v, 1.0)
+}
+
+/// An upper threshold ("at most"), in [`sig4`]'s digits but rounded
+/// down, so the printed number read back is never above `v`.
+pub fn at_most(v: f64) -> String {
+    toward(v, -1.0)
+}
+
+/// [`sig4`], then stepped by one unit of its last printed digit in
+/// direction `dir` (+1 up, -1 down) until the printed value read back is
+/// on that side of `v`. The text is what the reader sees, so the check is
+/// made on the text itself.
+fn toward(v: f64, dir: f64) -> String {
+    let mut s = sig4(v);
+    if !v.is_finite() || v == 0.0 {
+        return s;
+    }
+    // One step is enough unless a step carries into a new digit count
+    // (9.9995 -> 10.00); three is a safe cap.
+    for _ in 0..3 {
+        let back: f64 = match s.parse() {
+            Ok(b) => b,
+            Err(_) => return s,
+        };
+        if (back - v) * dir >= 0.0 {
+            return s;
+        }
+        // One unit of the last digit toward `dir`, then `v` itself cut to
+        // that form's last digit (stepping down across a power of ten
+        // gains a digit: 10.00 -> 9.999, not 9.990).
+        let unit = last_digit_unit(&sig4(back + dir * last_digit_unit(&s)));
+        let q = v / unit;
+        s = sig4(if dir > 0.0 { q.ceil() } else { q.floor() } * unit);
+    }
+    s
+}
+
+/// The value of one unit in the last printed digit of a [`sig4`] text
+/// (`12.35` -> 0.01, `3.214e6` -> 1e3).
+fn last_digit_unit(s: &str) -> f64 {
+    let (mantissa, exp) = match s.split_once('e') {
+        Some((m, e)) => (m, e.parse::<i32>().unwrap_or(0)),
+        None => (s, 0),
+    };
+    let decimals = mantissa.split_once('.').map_or(0, |(_, d)| d.len()) as i32;
+    10f64.powi(exp - decimals)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -112,5 +185,24 @@ mod tests {
         assert_eq!(sig4(-9999.7), "-10000");
         assert_eq!(sig4(f64::INFINITY), "infinite");
         assert_eq!(hz(0.0), "0 Hz");
+    }
+
+    #[test]
+    fn thresholds_round_toward_the_side_that_works() {
+        // By hand: 32.1401 needs at least 32.15 (not 32.14); 1244.6 allows
+        // at most 1244 (sig4 says 1245); exact values stay as they are.
+        assert_eq!(sig4(32.1401), "32.14");
+        assert_eq!(at_least(32.1401), "32.15");
+        assert_eq!(sig4(1244.6), "1245");
+        assert_eq!(at_most(1244.6), "1244");
+        assert_eq!(at_least(10.0), "10.00");
+        assert_eq!(at_most(10.0), "10.00");
+        // Rounding up across a power of ten keeps four significant
+        // digits (sig4 prints 9.9996 as 10.00), and is never below.
+        assert_eq!(at_least(9.9996), "10.00");
+        assert_eq!(at_most(9.9996), "9.999");
+        // Exponent form: one unit of the last digit is 1e3 here.
+        assert_eq!(at_least(3.21401e6), "3.215e6");
+        assert_eq!(at_most(3.21499e6), "3.214e6");
     }
 }

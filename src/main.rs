@@ -12,18 +12,19 @@ use clap::{Parser, Subcommand};
 use indicatif::{ProgressBar, ProgressStyle};
 
 use looprate::case::Case;
-use looprate::continuous::HoldApprox;
-use looprate::discretize::{Method, discretize};
-use looprate::evaluate::{Point, PreparedLoop};
-use looprate::expr::Expr;
-use looprate::hold::HoldKind;
-use looprate::pick::{
+use looprate::case::expr::Expr;
+use looprate::explore::pick::{
     Picked, case_grid, case_methods, case_variants, prepare, sweep_and_pick_streaming,
 };
-use looprate::search::Silent;
-use looprate::transfer::{Controller, Transfer};
-use looprate::variants::VariantSet;
-use looprate::{outputs, summary, sweep};
+use looprate::explore::search::Silent;
+use looprate::explore::sweep;
+use looprate::explore::variants::VariantSet;
+use looprate::model::discretize::{Method, discretize};
+use looprate::model::transfer::{Controller, Transfer};
+use looprate::output::{summary, tables, writer};
+use looprate::sampled::continuous::HoldApprox;
+use looprate::sampled::evaluate::{Point, PreparedLoop};
+use looprate::spec::HoldKind;
 
 /// Choose the slowest loop rate for a digital controller that still meets
 /// the spec, from an exact model of the sampled-data loop (hold, computation
@@ -175,7 +176,7 @@ fn warn(text: &str) {
 
 /// A loop rate from the command line, within the case file's limits.
 fn check_rate(flag: &str, rate: f64) -> Result<f64> {
-    looprate::case::rate_in_range(rate).map_err(|m| anyhow!("{flag} {m}"))
+    looprate::spec::rate_in_range(rate).map_err(|m| anyhow!("{flag} {m}"))
 }
 
 fn print(text: &str) -> Result<()> {
@@ -191,7 +192,7 @@ fn parse_method(name: &str) -> Result<Method> {
 
 /// The controller written with `--transfer`, errors located by column.
 fn transfer_from_option(text: &str) -> Result<Transfer> {
-    let located = |e: looprate::expr::ExprError| {
+    let located = |e: looprate::case::expr::ExprError| {
         anyhow!(
             "--transfer: column {}: {}\n    {}\n    {}",
             e.column,
@@ -208,7 +209,7 @@ fn transfer_from_option(text: &str) -> Result<Transfer> {
             "--transfer: the numbers are beyond the range looprate computes in: divided by the \
              leading denominator coefficient, a coefficient is {big:e} (at most {:e} \
              allowed); rescale its time unit or its gain",
-            looprate::case::MAX_MONIC_COEFF
+            looprate::spec::MAX_MONIC_COEFF
         ));
     }
     Ok(c)
@@ -346,7 +347,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
             };
             if let Some(path) = trace {
                 let (step, dist) = lp.sampled_traces(&p, None).map_err(|e| anyhow!(e))?;
-                outputs::write_atomic(&path, &outputs::trace_csv(&step, &dist))?;
+                writer::write_atomic(&path, &tables::trace_csv(&step, &dist))?;
             }
             if json {
                 let mut v = summary::eval_json(&exact, lp.design.as_ref(), &approx);
@@ -362,7 +363,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 let header = format!(
                     "rate {} Hz, method {}, {} hold, computation delay {} periods",
                     rate,
-                    looprate::search::method_label(method),
+                    looprate::explore::search::method_label(method),
                     hold,
                     delay
                 );
@@ -398,23 +399,23 @@ fn run(cli: Cli) -> Result<ExitCode> {
             }
             let lp = prepare(&c)?;
             check_threads(threads)?;
-            let _lock = outputs::OutputLock::acquire(&out)?;
+            let _lock = writer::OutputLock::acquire(&out)?;
             let (rows, set) = in_pool(threads, || -> Result<_> {
                 let set = case_variants(&c, &lp)?;
                 let rows = run_sweep(&c, &lp, set.as_ref(), variants, quiet, &out)?;
                 if let Some(set) = &set
                     && variants
                 {
-                    outputs::write_atomic(
+                    writer::write_atomic(
                         &out.join("variants.csv"),
-                        &outputs::variants_csv(&rows, set),
+                        &tables::variants_csv(&rows, set),
                     )?;
                 }
                 if !no_charts {
                     // Without a search there is no recommendation: the
                     // charts that need none (figures against rate, CPU load).
-                    let report = looprate::pick::unsearched(&c, &lp);
-                    looprate::charts::write_charts(&out, &c, &lp, &rows, &report)?;
+                    let report = looprate::explore::pick::unsearched(&c, &lp);
+                    looprate::output::charts::write_charts(&out, &c, &lp, &rows, &report)?;
                 }
                 Ok((rows, set))
             })??;
@@ -442,7 +443,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
             let c = Case::load(&case)?;
             let lp = prepare(&c)?;
             check_threads(threads)?;
-            let _lock = outputs::OutputLock::acquire(&out)?;
+            let _lock = writer::OutputLock::acquire(&out)?;
             let report = in_pool(threads, || -> Result<_> {
                 let bar = progress(case_grid(&c, &lp).len(), quiet);
                 let mut stream = csv_stream(&c, &lp, &out)?;
@@ -464,7 +465,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
                         if no_charts {
                             Ok(Vec::new())
                         } else {
-                            Ok(looprate::charts::write_charts(
+                            Ok(looprate::output::charts::write_charts(
                                 &out, &c, &lp, &rows, &report,
                             )?)
                         }
@@ -472,7 +473,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
                     || write_pick_outputs(&out, stream, &report),
                 );
                 tables?;
-                looprate::report::write_report(&out, &c, &report, &charts?)?;
+                looprate::output::report::write_report(&out, &c, &report, &charts?)?;
                 Ok(report)
             })??;
             if json {
@@ -496,7 +497,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
 }
 
 /// `DIR/sweep.csv` as a stream the sweep writes row by row.
-fn csv_stream(c: &Case, lp: &PreparedLoop, out: &Path) -> Result<outputs::SweepCsvStream> {
+fn csv_stream(c: &Case, lp: &PreparedLoop, out: &Path) -> Result<tables::SweepCsvStream> {
     let points = case_grid(c, lp).len();
     let series = case_methods(c).len() * c.compute_delays.len();
     let formats: Vec<String> = sweep::Plan::for_case(c, lp, None)
@@ -504,7 +505,7 @@ fn csv_stream(c: &Case, lp: &PreparedLoop, out: &Path) -> Result<outputs::SweepC
         .iter()
         .map(|f| f.name())
         .collect();
-    Ok(outputs::SweepCsvStream::create(
+    Ok(tables::SweepCsvStream::create(
         &out.join("sweep.csv"),
         series,
         points / series.max(1),
@@ -515,12 +516,12 @@ fn csv_stream(c: &Case, lp: &PreparedLoop, out: &Path) -> Result<outputs::SweepC
 
 fn write_pick_outputs(
     out: &Path,
-    stream: outputs::SweepCsvStream,
-    report: &looprate::pick::PickReport,
+    stream: tables::SweepCsvStream,
+    report: &looprate::explore::pick::PickReport,
 ) -> Result<()> {
     stream.finish()?;
     let json = serde_json::to_vec_pretty(report)?;
-    outputs::write_atomic(&out.join("pick.json"), &json)?;
+    writer::write_atomic(&out.join("pick.json"), &json)?;
     Ok(())
 }
 

@@ -2,8 +2,9 @@
 //! every kind of bad input gives an error that names the file and the
 //! dotted field (and the column, for expressions).
 
-use looprate::case::{Case, CaseError, Controller, Cycles, Rates, Spacing, UncertaintyMode};
-use looprate::discretize::Method;
+use looprate::case::{Case, CaseError, Controller};
+use looprate::model::discretize::Method;
+use looprate::spec::{Cycles, Rates, Spacing, UncertaintyMode};
 use std::path::Path;
 
 const FILE: &str = "cases/belt.toml";

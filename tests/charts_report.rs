@@ -4,13 +4,13 @@
 use std::path::{Path, PathBuf};
 
 use looprate::case::Case;
-use looprate::charts::write_charts;
-use looprate::evaluate::PreparedLoop;
-use looprate::pick::{PickReport, Picked, prepare, sweep_and_pick};
-use looprate::report::write_report;
-use looprate::search::Silent;
-use looprate::summary::fmt_num;
-use looprate::sweep::SweepRow;
+use looprate::engineering::sig4;
+use looprate::explore::pick::{PickReport, Picked, prepare, sweep_and_pick};
+use looprate::explore::search::Silent;
+use looprate::explore::sweep::SweepRow;
+use looprate::output::charts::write_charts;
+use looprate::output::report::write_report;
+use looprate::sampled::evaluate::PreparedLoop;
 
 const CASE: &str = r#"
 title = "Invented positioning loop"
@@ -133,7 +133,7 @@ fn charts_of_a_case_with_an_answer() {
     // The numbers of report.md against pick.json (the serialized report).
     let json = serde_json::to_value(&r.report).unwrap();
     let rec = &json["recommended"];
-    let printed = |v: &serde_json::Value| fmt_num(v.as_f64().unwrap());
+    let printed = |v: &serde_json::Value| sig4(v.as_f64().unwrap());
     assert_same(
         between(&md, "at **", " Hz**"),
         &printed(&rec["rate_hz"]),
@@ -157,10 +157,13 @@ fn charts_of_a_case_with_an_answer() {
             .unwrap_or_else(|| panic!("no table row for {name}"));
         let cells: Vec<&str> = row.split('|').map(str::trim).collect();
         let f = m["slowest_rate_hz"].as_f64().unwrap();
-        // Columns: method, hold, delay, f*, limiting.
+        // Columns: method, hold, delay, f*, limiting figure (in words; the
+        // JSON keeps the key).
         assert_eq!(cells[2], m["hold"].as_str().unwrap());
-        assert_same(cells[4], &fmt_num(f), f);
-        assert_eq!(cells[5], m["limiting"].as_str().unwrap());
+        assert_same(cells[4], &sig4(f), f);
+        let key = m["limiting"].as_str().unwrap();
+        let words = looprate::sampled::figure::Figure::from_key(key).map_or(key, |f| f.label());
+        assert_eq!(cells[5], words);
     }
     // Every chart embedded by relative path; the caution is there.
     for name in &names {
@@ -239,8 +242,8 @@ fn empty_window_is_stated_with_both_numbers() {
         std::fs::read_to_string(write_report(&dir, &r.case, &r.report, &charts).unwrap()).unwrap();
     assert!(md.contains(&format!(
         "needs at least {} Hz and the CPU budget allows at most {} Hz",
-        fmt_num(w.low_hz),
-        fmt_num(w.high_hz)
+        sig4(w.low_hz),
+        sig4(w.high_hz)
     )));
     for a in &r.report.advice {
         assert!(md.contains(&format!("- {a}")), "advice missing: {a}");
@@ -278,9 +281,9 @@ fn variants_and_precision_reach_every_output() {
             .unwrap_or_else(|| panic!("no robust row for {name}"));
         let cells: Vec<&str> = row.split('|').map(str::trim).collect();
         let f = m["slowest_rate_hz"].as_f64().unwrap();
-        assert_same(cells[4], &fmt_num(f), f);
+        assert_same(cells[4], &sig4(f), f);
         let n = m["nominal_slowest_rate_hz"].as_f64().unwrap();
-        assert_same(cells[5], &fmt_num(n), n);
+        assert_same(cells[5], &sig4(n), n);
     }
     // Both formats are in the precision table and in pick.json.
     for f in ["q11", "f32"] {

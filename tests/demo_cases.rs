@@ -5,12 +5,12 @@
 use std::path::PathBuf;
 
 use looprate::case::Case;
-use looprate::evaluate::PreparedLoop;
-use looprate::pick::{PickReport, prepare, sweep_and_pick};
-use looprate::poly::C64;
-use looprate::search::Silent;
-use looprate::sweep;
-use looprate::transfer::Controller;
+use looprate::explore::pick::{PickReport, prepare, sweep_and_pick};
+use looprate::explore::search::Silent;
+use looprate::explore::sweep;
+use looprate::model::poly::C64;
+use looprate::model::transfer::Controller;
+use looprate::sampled::evaluate::PreparedLoop;
 
 fn demo(name: &str) -> Case {
     let path = PathBuf::from(env!("CARGO_MANIFEST_DIR"))
@@ -44,7 +44,7 @@ fn every_demo_case_loads_and_its_design_meets_the_spec() {
         let c = demo(name);
         let lp = prepare(&c).unwrap();
         let design = lp.design.as_ref().and_then(|d| d.figures.clone());
-        let fails = looprate::feasibility::check_figures(&design.unwrap(), &c.spec);
+        let fails = looprate::sampled::feasibility::check_figures(&design.unwrap(), &c.spec);
         assert!(
             fails.iter().all(|f| f.pass),
             "{name}: the continuous design fails {fails:?}"
@@ -186,7 +186,7 @@ fn number_after(text: &str, after: &str) -> f64 {
 fn the_summary_and_json_state_the_window_and_what_would_open_an_empty_one() {
     // A window that exists: both ends on stdout, in order, as computed.
     let (_, _, belt) = picked("belt-conveyor.toml");
-    let text = looprate::summary::pick_text(&belt);
+    let text = looprate::output::summary::pick_text(&belt);
     let [lo, hi] = belt.window_hz.unwrap();
     let (a, b) = (
         number_after(&text, "Rate window:"),
@@ -239,7 +239,7 @@ fn the_summary_and_json_state_the_window_and_what_would_open_an_empty_one() {
 
     // The empty window: said plainly, both numbers, what would open it.
     let (c, _, pump) = picked("pump-pressure-tight-cpu.toml");
-    let text = looprate::summary::pick_text(&pump);
+    let text = looprate::output::summary::pick_text(&pump);
     let w = pump.window.as_ref().unwrap();
     assert!(w.empty && pump.window_hz.is_none());
     assert!(serde_json::to_value(&pump).unwrap()["window_hz"].is_null());
@@ -286,7 +286,7 @@ fn the_hold_comparison_recommends_the_cheapest_hold_and_says_why() {
     for h in &c.holds {
         assert!(rec.hold_basis.contains(h.name()), "{}", rec.hold_basis);
     }
-    let text = looprate::summary::pick_text(&report);
+    let text = looprate::output::summary::pick_text(&report);
     assert!(text.contains("Hold: "), "{text}");
 }
 
@@ -313,13 +313,13 @@ fn every_rate_inside_a_reported_window_meets_the_spec_when_evaluated_directly() 
         let method = rec.method.parse().ok();
         for i in 0..=40 {
             let rate = lo * (hi / lo).powf(i as f64 / 40.0);
-            let p = looprate::evaluate::Point {
+            let p = looprate::sampled::evaluate::Point {
                 rate_hz: rate,
                 method,
                 delay: rec.compute_delay,
                 hold: rec.hold,
             };
-            let a = looprate::feasibility::assess(&lp.sampled(&p), &case.spec);
+            let a = looprate::sampled::feasibility::assess(&lp.sampled(&p), &case.spec);
             assert!(
                 a.feasible,
                 "{name}: {rate} Hz inside the window fails ({:?})",
@@ -335,7 +335,7 @@ fn every_rate_inside_a_reported_window_meets_the_spec_when_evaluated_directly() 
                     .as_ref()
                     .and_then(|d| d.figures.as_ref())
                     .and_then(|f| f.crossover_hz);
-                let v = looprate::precision::judge_point(
+                let v = looprate::explore::precision::judge_point(
                     &lp,
                     &case.spec,
                     &p,

@@ -1,8 +1,8 @@
 //! Discretization checked against closed forms and a textbook example.
 
-use looprate::discretize::{Method, discretize};
-use looprate::poly::{C64, Poly};
-use looprate::transfer::Transfer;
+use looprate::model::discretize::{Method, discretize};
+use looprate::model::poly::{C64, Poly};
+use looprate::model::transfer::Transfer;
 
 fn transfer(num: &[f64], den: &[f64]) -> Transfer {
     Transfer::new(Poly::from_descending(num), Poly::from_descending(den))

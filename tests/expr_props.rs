@@ -2,7 +2,7 @@
 //! arbitrary text and on text built from the expression's own tokens (the
 //! inputs most likely to reach deep parser states).
 
-use looprate::expr::{Expr, MAX_DEGREE};
+use looprate::case::expr::{Expr, MAX_DEGREE};
 use proptest::prelude::*;
 
 /// Parses and, when that succeeds, evaluates with every name bound to
@@ -58,7 +58,7 @@ proptest! {
         };
         let r = Expr::parse(&text);
         // The cap is part of the contract: up to 256 levels parse.
-        prop_assert_eq!(r.is_ok(), depth <= looprate::expr::MAX_DEPTH);
+        prop_assert_eq!(r.is_ok(), depth <= looprate::case::expr::MAX_DEPTH);
         exercise(&text, 1.0);
     }
 }

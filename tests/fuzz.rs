@@ -15,8 +15,8 @@ use proptest::prelude::*;
 use proptest::test_runner::{Config, TestCaseError, TestRunner};
 
 use looprate::case::Case;
-use looprate::pick::{prepare, sweep_and_pick};
-use looprate::search::Silent;
+use looprate::explore::pick::{prepare, sweep_and_pick};
+use looprate::explore::search::Silent;
 
 /// Longest one input may take through `check` (parse, prepare, print).
 const CHECK_WATCHDOG: Duration = Duration::from_secs(5);
@@ -61,7 +61,7 @@ fn check(text: &str) -> String {
         }
         Ok(c) => match prepare(&c) {
             Err(_) => String::new(),
-            Ok(lp) => looprate::summary::check_text(&c, &lp),
+            Ok(lp) => looprate::output::summary::check_text(&c, &lp),
         },
     }
 }
@@ -254,9 +254,10 @@ fn fuzz_short_picks_on_tiny_grids() {
                     };
                     match sweep_and_pick(&c, &lp, &|| {}, &Silent) {
                         Ok(p) => {
-                            let csv = looprate::outputs::sweep_csv(&p.rows, p.variants.as_ref());
+                            let csv =
+                                looprate::output::tables::sweep_csv(&p.rows, p.variants.as_ref());
                             let mut s = String::from_utf8_lossy(&csv).into_owned();
-                            s.push_str(&looprate::summary::pick_text(&p.report));
+                            s.push_str(&looprate::output::summary::pick_text(&p.report));
                             s
                         }
                         Err(_) => String::new(),

@@ -3,7 +3,7 @@
 //! the kinds).
 
 use looprate::case::{Case, CaseError};
-use looprate::hold::HoldKind;
+use looprate::spec::HoldKind;
 use std::path::Path;
 
 const FILE: &str = "cases/holds.toml";

@@ -4,12 +4,13 @@
 //! aliasing sum), a fine-step RK4 simulation of the whole closed loop, and
 //! the margins by their meaning with every hold kind.
 
-use looprate::discretize::Method;
-use looprate::evaluate::{Point, PreparedLoop, Transport};
-use looprate::hold::{Actuation, HoldEquivalent, HoldKind, plant_and_sensor};
-use looprate::poly::{C64, Poly};
-use looprate::time_response::TimeOptions;
-use looprate::transfer::{Controller, DiscreteTransfer, Transfer};
+use looprate::model::discretize::Method;
+use looprate::model::poly::{C64, Poly};
+use looprate::model::transfer::{Controller, DiscreteTransfer, Transfer};
+use looprate::sampled::evaluate::{Point, PreparedLoop, Transport};
+use looprate::sampled::hold::{Actuation, HoldEquivalent, plant_and_sensor};
+use looprate::sampled::time_response::TimeOptions;
+use looprate::spec::HoldKind;
 use nalgebra::DVector;
 use serde_json::Value;
 

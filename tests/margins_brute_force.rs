@@ -2,12 +2,13 @@
 //! and the fractional-delay hold equivalent against a fine-step
 //! simulation of the continuous model.
 
-use looprate::discretize::Method;
-use looprate::evaluate::{Point, PreparedLoop};
-use looprate::hold::{HoldEquivalent, HoldKind, plant_and_sensor};
-use looprate::poly::{C64, Poly};
-use looprate::time_response::TimeOptions;
-use looprate::transfer::{Controller, Transfer};
+use looprate::model::discretize::Method;
+use looprate::model::poly::{C64, Poly};
+use looprate::model::transfer::{Controller, Transfer};
+use looprate::sampled::evaluate::{Point, PreparedLoop};
+use looprate::sampled::hold::{HoldEquivalent, plant_and_sensor};
+use looprate::sampled::time_response::TimeOptions;
+use looprate::spec::HoldKind;
 
 fn transfer(num: &[f64], den: &[f64]) -> Transfer {
     Transfer::new(Poly::from_descending(num), Poly::from_descending(den))

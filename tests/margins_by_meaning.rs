@@ -5,13 +5,13 @@
 //! Property tests over random loops, and two named loops whose numbers come
 //! from a brute-force dense scan.
 
-use looprate::closed_loop::{ClosedLoop, Stability};
-use looprate::discretize::Method;
-use looprate::evaluate::{Figures, Point, PreparedLoop};
-use looprate::hold::HoldKind;
-use looprate::poly::{C64, Poly};
-use looprate::time_response::TimeOptions;
-use looprate::transfer::{Controller, DiscreteTransfer, Transfer};
+use looprate::model::discretize::Method;
+use looprate::model::poly::{C64, Poly};
+use looprate::model::transfer::{Controller, DiscreteTransfer, Transfer};
+use looprate::sampled::closed_loop::{ClosedLoop, Stability};
+use looprate::sampled::evaluate::{Figures, Point, PreparedLoop};
+use looprate::sampled::time_response::TimeOptions;
+use looprate::spec::HoldKind;
 use proptest::prelude::*;
 
 const TWO_PI: f64 = 2.0 * std::f64::consts::PI;

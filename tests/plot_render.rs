@@ -1,11 +1,12 @@
-//! Rendering tests for `looprate::plot`: real figures go to PNG files,
+//! Rendering tests for `looprate::output::plot`: real figures go to PNG files,
 //! are decoded again and checked for size and content.
 
 use std::path::PathBuf;
 
-use looprate::plot::{
-    Annotation, Axis, Draw, Figure, Limit, MarkStyle, Panel, PlotError, Series, Side, VMark, XBand,
-    YBand, render_png, render_rgb,
+use looprate::error::PlotError;
+use looprate::output::plot::{
+    Annotation, Axis, Draw, Figure, Limit, MarkStyle, Panel, Series, Side, VMark, XBand, YBand,
+    render_png, render_rgb,
 };
 
 /// A fresh directory under the system temp dir, unique to this test.

@@ -10,8 +10,8 @@ use std::process::{Command, Stdio};
 use std::time::{Duration, Instant};
 
 use looprate::case::Case;
-use looprate::pick::{prepare, sweep_and_pick};
-use looprate::search::Silent;
+use looprate::explore::pick::{prepare, sweep_and_pick};
+use looprate::explore::search::Silent;
 
 const BIN: &str = env!("CARGO_BIN_EXE_looprate");
 
@@ -279,7 +279,7 @@ fn a_huge_sensor_gain_keeps_ms_at_least_one() {
     assert!(f.sensitivity_peak >= 1.0, "Ms = {}", f.sensitivity_peak);
     let wc = f.crossover_hz.expect("a crossover") * 2.0 * std::f64::consts::PI;
     // |L(j wc)| = 1 at the reported crossover (closed form of the loop).
-    let s = looprate::poly::C64::new(0.0, wc);
+    let s = looprate::model::poly::C64::new(0.0, wc);
     let l = 1e10 * 38.0 * 0.05 * (s + 12.0) / (s * (0.42 * s + 1.0) * (0.004 * s + 1.0));
     assert!((l.norm() - 1.0).abs() < 1e-6, "|L| = {}", l.norm());
     assert!(f.phase_margin_deg.unwrap() < 1.0);
@@ -361,11 +361,13 @@ fn an_unwritable_stderr_is_not_a_panic() {
 fn an_error_reason_is_printed_once() {
     let e = looprate::error::Error::Model {
         context: "the plant".into(),
-        reason: looprate::state_space::ModelError::Eigen,
+        reason: looprate::model::matrix::ModelError::Eigen,
     };
     let text = format!("{:#}", anyhow::Error::from(e));
     assert_eq!(text.matches("did not converge").count(), 1, "{text}");
-    let e = looprate::discretize::DiscretizeError::from(looprate::state_space::ModelError::Eigen);
+    let e = looprate::model::discretize::DiscretizeError::from(
+        looprate::model::matrix::ModelError::Eigen,
+    );
     let text = format!("{:#}", anyhow::Error::from(e));
     assert_eq!(text.matches("did not converge").count(), 1, "{text}");
 }
@@ -399,7 +401,7 @@ fn a_second_run_into_a_held_folder_is_refused() {
     let dir = scratch("lock");
     let path = write_case(&dir, "c", &case_text(PLANT, "1", CONTROLLER, ""));
     let out = dir.join("out");
-    let lock = looprate::outputs::OutputLock::acquire(&out).unwrap();
+    let lock = looprate::output::writer::OutputLock::acquire(&out).unwrap();
     let r = run(&[
         "pick",
         &path,
@@ -464,7 +466,7 @@ fn temporaries_of_dead_runs_are_removed() {
         .unwrap()
         .flatten()
         .map(|e| e.file_name().to_string_lossy().into_owned())
-        .filter(|n| looprate::outputs::temporary_owner(n).is_some())
+        .filter(|n| looprate::output::writer::temporary_owner(n).is_some())
         .collect();
     assert!(left.is_empty(), "{left:?}");
 }
@@ -486,7 +488,7 @@ fn the_streamed_sweep_csv_is_the_whole_file() {
     let c = Case::parse(&text, Path::new("c.toml")).unwrap();
     let lp = prepare(&c).unwrap();
     let picked = sweep_and_pick(&c, &lp, &|| {}, &Silent).unwrap();
-    let whole = looprate::outputs::sweep_csv(&picked.rows, picked.variants.as_ref());
+    let whole = looprate::output::tables::sweep_csv(&picked.rows, picked.variants.as_ref());
     for threads in ["1", "2"] {
         for cmd in ["pick", "sweep"] {
             let out = dir.join(format!("{cmd}-{threads}"));
@@ -513,24 +515,24 @@ fn the_streamed_sweep_csv_is_the_whole_file() {
 fn numeric_kernels_end_on_extreme_matrices() {
     use nalgebra::DMatrix;
     let mut a = DMatrix::from_row_slice(2, 2, &[0.0, 1.0, -f64::INFINITY, -1e300]);
-    let t = looprate::state_space::balancing_scale(&a);
+    let t = looprate::model::matrix::balancing_scale(&a);
     assert!(t.iter().all(|v| v.is_finite() && *v > 0.0));
     a[(1, 0)] = -1e308;
-    let t = looprate::state_space::balancing_scale(&a);
+    let t = looprate::model::matrix::balancing_scale(&a);
     assert!(t.iter().all(|v| v.is_finite() && *v > 0.0));
     // A stable mode over a period of 1e38 s: e^{-1e38} = 0, at once.
     let m = DMatrix::from_row_slice(2, 2, &[-1e38, 0.0, 1e38, -2e38]);
-    let e = looprate::state_space::expm(&m).unwrap();
+    let e = looprate::model::matrix::expm(&m).unwrap();
     assert!(e.iter().all(|v| v.abs() < 1e-300), "{e}");
     // An unstable one overflows: an error, not a hang.
     let m = DMatrix::from_row_slice(2, 2, &[1e38, 0.0, 0.0, -1.0]);
-    assert!(looprate::state_space::expm(&m).is_err());
+    assert!(looprate::model::matrix::expm(&m).is_err());
     // Scaling and squaring by hand keeps a large exponent right: the
     // rotation [[0, w], [-w, 0]] with w = 2e8 + pi/4 has the exponential
     // [[cos w, sin w], [-sin w, cos w]] (closed form).
     let w = 2.0e8 + std::f64::consts::FRAC_PI_4;
     let m = DMatrix::from_row_slice(2, 2, &[0.0, w, -w, 0.0]);
-    let e = looprate::state_space::expm(&m).unwrap();
+    let e = looprate::model::matrix::expm(&m).unwrap();
     assert!((e[(0, 0)] - w.cos()).abs() < 1e-6, "{e}");
     assert!((e[(0, 1)] - w.sin()).abs() < 1e-6, "{e}");
 }

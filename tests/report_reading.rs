@@ -7,12 +7,13 @@
 
 use std::path::{Path, PathBuf};
 
-use looprate::budget;
-use looprate::case::{Case, Cycles};
-use looprate::charts::write_charts;
-use looprate::pick::{PickReport, prepare, sweep_and_pick};
-use looprate::report::{CAUTION_LINE, write_report};
-use looprate::search::Silent;
+use looprate::case::Case;
+use looprate::explore::budget;
+use looprate::explore::pick::{PickReport, prepare, sweep_and_pick};
+use looprate::explore::search::Silent;
+use looprate::output::charts::write_charts;
+use looprate::output::report::{CAUTION_LINE, write_report};
+use looprate::spec::Cycles;
 
 const ALL: [&str; 5] = [
     "belt-conveyor.toml",

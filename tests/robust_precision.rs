@@ -4,16 +4,17 @@
 
 use std::path::Path;
 
-use looprate::budget::WindowBound;
 use looprate::case::Case;
-use looprate::discretize::{Method, discretize};
-use looprate::pick::{PickReport, case_grid, prepare, sweep_and_pick};
-use looprate::poly::Poly;
-use looprate::precision::{Format, Structure, poles_at_one, quantize, realize, round_realization};
-use looprate::search::Silent;
-use looprate::sweep::{self, Plan};
-use looprate::transfer::{DiscreteTransfer, Transfer};
-use looprate::variants::{VariantSet, parameter_sets};
+use looprate::explore::budget::WindowBound;
+use looprate::explore::pick::{PickReport, case_grid, prepare, sweep_and_pick};
+use looprate::explore::search::Silent;
+use looprate::explore::sweep::{self, Plan};
+use looprate::explore::variants::{VariantSet, parameter_sets};
+use looprate::model::discretize::{Method, discretize};
+use looprate::model::poly::Poly;
+use looprate::model::rounding::{poles_at_one, quantize, realize, round_realization};
+use looprate::model::transfer::{DiscreteTransfer, Transfer};
+use looprate::spec::{Format, Structure};
 
 fn case(text: &str) -> Case {
     Case::parse(text, Path::new("inline.toml")).unwrap()
@@ -81,7 +82,11 @@ fn lag_pole_rounds_onto_z1_at_the_closed_form_rate() {
             (got / f_c - 1.0).abs() <= 2e-4,
             "{structure}: ceiling {got} Hz, closed form {f_c} Hz"
         );
-        assert_eq!(ceil.limiting.as_deref(), Some("pole_on_z1"), "{structure}");
+        assert_eq!(
+            ceil.limiting.map(|l| l.key()),
+            Some("pole_on_z1"),
+            "{structure}"
+        );
         // The rate window is now bounded by the format, and says so.
         let w = report.window.as_ref().unwrap();
         assert_eq!(
@@ -326,12 +331,12 @@ fn sweep_keeps_one_row_per_point_with_variants_and_formats() {
     };
     let points = case_grid(&c, &lp);
     let rows = sweep::run(&plan, &points, &|| {});
-    let csv = String::from_utf8(looprate::outputs::sweep_csv(&rows, Some(&set))).unwrap();
+    let csv = String::from_utf8(looprate::output::tables::sweep_csv(&rows, Some(&set))).unwrap();
     assert_eq!(csv.lines().count(), 1 + points.len());
     let header = csv.lines().next().unwrap();
     assert!(header.contains("worst_overshoot_pct") && header.contains("q15_pole_shift"));
     assert!(!header.contains("f64_"), "f64 is the reference: no columns");
-    let vcsv = String::from_utf8(looprate::outputs::variants_csv(&rows, &set)).unwrap();
+    let vcsv = String::from_utf8(looprate::output::tables::variants_csv(&rows, &set)).unwrap();
     assert_eq!(vcsv.lines().count(), 1 + points.len() * set.len());
     // The worst-case figure is the largest over the variants' own rows.
     for r in &rows {
@@ -405,7 +410,9 @@ fn double_integrator_stays_exact_in_sos() {
     )
     .unwrap();
     assert_eq!(
-        looprate::precision::design_integrators(&looprate::transfer::Controller::Discrete(d)),
+        looprate::model::rounding::design_integrators(
+            &looprate::model::transfer::Controller::Discrete(d)
+        ),
         2
     );
 }
@@ -454,13 +461,13 @@ fn a_ceiling_is_never_above_a_failing_rate_when_rounding_is_not_monotone() {
         .and_then(|f| f.crossover_hz);
     let spec = c.spec.clone();
     let judge = |rate: f64| {
-        let p = looprate::evaluate::Point {
+        let p = looprate::sampled::evaluate::Point {
             rate_hz: rate,
             method: Some(Method::Tustin),
             delay: 1.0,
-            hold: looprate::hold::HoldKind::ZeroOrder,
+            hold: looprate::spec::HoldKind::ZeroOrder,
         };
-        looprate::precision::judge_point(
+        looprate::explore::precision::judge_point(
             &lp,
             &spec,
             &p,
@@ -483,7 +490,7 @@ fn a_ceiling_is_never_above_a_failing_rate_when_rounding_is_not_monotone() {
     let (mut with_ceiling, mut failing_at_start) = (0, 0);
     for k in 0..=12 {
         c.spec.headroom = 1.0 + 0.05 * k as f64;
-        let report = looprate::pick::pick(&c, &lp, None, &rows, &Silent);
+        let report = looprate::explore::pick::pick(&c, &lp, None, &rows, &Silent);
         let Some(pr) = report.precision.as_ref() else {
             continue;
         };
@@ -549,7 +556,7 @@ fn the_advice_says_when_sos_keeps_the_integral_action_that_transposed_direct_los
     // times with the integrator, and stays put without it (a pole a
     // rounding step off z = 1, about 1e-7 for f32, bounds the gain once
     // wT is well below that step).
-    let integrators = looprate::precision::design_integrators(&lp_controller(&c));
+    let integrators = looprate::model::rounding::design_integrators(&lp_controller(&c));
     let growth = |structure: Structure, rate: f64| {
         let lp = prepare(&c).unwrap();
         let d = lp.controller_at(rate, Some(Method::Tustin)).unwrap();
@@ -569,12 +576,12 @@ fn the_advice_says_when_sos_keeps_the_integral_action_that_transposed_direct_los
     }
 }
 
-fn lp_controller(c: &Case) -> looprate::transfer::Controller {
+fn lp_controller(c: &Case) -> looprate::model::transfer::Controller {
     prepare(c).unwrap().controller
 }
 
 /// The swept rates at or above `from` (a few of them, spread out).
-fn rows_above(c: &Case, lp: &looprate::evaluate::PreparedLoop, from: f64) -> Vec<f64> {
+fn rows_above(c: &Case, lp: &looprate::sampled::evaluate::PreparedLoop, from: f64) -> Vec<f64> {
     let rates: Vec<f64> = case_grid(c, lp)
         .iter()
         .map(|p| p.rate_hz)

@@ -1,13 +1,13 @@
 //! The exact sampled-data loop against textbook values, closed forms and
 //! brute-force simulation.
 
-use looprate::continuous::HoldApprox;
-use looprate::discretize::Method;
-use looprate::evaluate::{Point, PreparedLoop, Status};
-use looprate::hold::HoldKind;
-use looprate::poly::Poly;
-use looprate::time_response::TimeOptions;
-use looprate::transfer::{Controller, DiscreteTransfer, Transfer};
+use looprate::model::discretize::Method;
+use looprate::model::poly::Poly;
+use looprate::model::transfer::{Controller, DiscreteTransfer, Transfer};
+use looprate::sampled::continuous::HoldApprox;
+use looprate::sampled::evaluate::{Point, PreparedLoop, Status};
+use looprate::sampled::time_response::TimeOptions;
+use looprate::spec::HoldKind;
 
 fn transfer(num: &[f64], den: &[f64]) -> Transfer {
     Transfer::new(Poly::from_descending(num), Poly::from_descending(den))
@@ -264,7 +264,7 @@ fn loop_matrix_poles_agree_with_characteristic_polynomial() {
 fn early_stop_certificate_changes_no_figure() {
     // The Lyapunov stop must give the same step figures as running the
     // full pole-based horizon (self-consistency of two routes).
-    use looprate::time_response::StepMetrics;
+    use looprate::sampled::time_response::StepMetrics;
     let plant = transfer(&[38.0], &[0.00168, 0.424, 1.0]);
     let sensor = transfer(&[1.0], &[0.0008, 1.0]);
     let c = Controller::Continuous(transfer(&[0.05, 0.6], &[1.0, 0.0]));
@@ -363,7 +363,7 @@ fn skipped_and_deferred_points_change_no_figure() {
     // trace with every point (self-consistency of two routes), on the
     // invented positioning axis of the compare bench, across methods and
     // delays.
-    use looprate::time_response::StepMetrics;
+    use looprate::sampled::time_response::StepMetrics;
     let lp = positioning_axis();
     let mut checked = 0;
     for (rate, method, d) in [

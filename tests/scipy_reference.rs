@@ -5,12 +5,12 @@
 //! `rel_tol` (1e-9 unless the entry states why SciPy's own route lost
 //! digits); the high-precision values are checked at 1e-10 everywhere.
 
-use looprate::discretize::{Method, discretize};
-use looprate::evaluate::{Point, PreparedLoop};
-use looprate::hold::HoldKind;
-use looprate::poly::Poly;
-use looprate::time_response::TimeOptions;
-use looprate::transfer::{Controller, Transfer};
+use looprate::model::discretize::{Method, discretize};
+use looprate::model::poly::Poly;
+use looprate::model::transfer::{Controller, Transfer};
+use looprate::sampled::evaluate::{Point, PreparedLoop};
+use looprate::sampled::time_response::TimeOptions;
+use looprate::spec::HoldKind;
 use serde_json::Value;
 
 fn load(name: &str) -> Value {
@@ -166,7 +166,7 @@ fn sampled_loops_match_scipy() {
         for q in pts {
             let q = vecf(q);
             let got = lg(q[0]);
-            let refv = looprate::poly::C64::new(q[1], q[2]);
+            let refv = looprate::model::poly::C64::new(q[1], q[2]);
             let floor = refv.norm().max(1e-3 * peak);
             assert!(
                 (got - refv).norm() <= ftol * floor,

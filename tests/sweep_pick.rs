@@ -4,10 +4,10 @@
 use std::path::Path;
 
 use looprate::case::Case;
-use looprate::outputs::sweep_csv;
-use looprate::pick::{case_grid, pick, prepare};
-use looprate::search::Silent;
-use looprate::sweep;
+use looprate::explore::pick::{case_grid, pick, prepare};
+use looprate::explore::search::Silent;
+use looprate::explore::sweep;
+use looprate::output::tables::sweep_csv;
 
 /// An invented speed loop whose slow end goes unstable and whose fast end
 /// passes, with a second method that fails differently.
@@ -55,9 +55,9 @@ fn pool(n: usize) -> rayon::ThreadPool {
 fn nominal_pick(
     c: &Case,
 ) -> (
-    looprate::evaluate::PreparedLoop,
+    looprate::sampled::evaluate::PreparedLoop,
     usize,
-    looprate::pick::PickReport,
+    looprate::explore::pick::PickReport,
 ) {
     let lp = prepare(c).unwrap();
     let rows = sweep::run(
@@ -192,9 +192,9 @@ fn search_agrees_with_a_brute_force_scan() {
     let bound = &report.window.as_ref().unwrap().high_bound;
     assert_eq!(
         *bound,
-        looprate::budget::WindowBound::LastRateChecked {
+        looprate::explore::budget::WindowBound::LastRateChecked {
             checked_hz: 2000.0,
-            beyond: Box::new(looprate::budget::WindowBound::CpuBudget),
+            beyond: Box::new(looprate::explore::budget::WindowBound::CpuBudget),
             beyond_hz: report.cpu_ceiling_hz.unwrap(),
         }
     );
@@ -245,7 +245,9 @@ fn a_demo_with_plant_variants_and_number_formats_is_byte_identical_on_any_thread
     let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-cases/belt-conveyor.toml");
     let c = Case::load(&path).unwrap();
     let lp = prepare(&c).unwrap();
-    let variants = looprate::pick::case_variants(&c, &lp).unwrap().unwrap();
+    let variants = looprate::explore::pick::case_variants(&c, &lp)
+        .unwrap()
+        .unwrap();
     let run = || {
         // As `sweep --variants` (every variant's row kept), then `pick`.
         let plan = sweep::Plan {
@@ -256,7 +258,7 @@ fn a_demo_with_plant_variants_and_number_formats_is_byte_identical_on_any_thread
         let report = pick(&c, &lp, Some(&variants), &rows, &Silent);
         (
             sweep_csv(&rows, Some(&variants)),
-            looprate::outputs::variants_csv(&rows, &variants),
+            looprate::output::tables::variants_csv(&rows, &variants),
             serde_json::to_vec(&report).unwrap(),
         )
     };
@@ -340,7 +342,7 @@ max_load_pct = 50
         line.contains(&format!(
             "window {} Hz to 1000 Hz",
             // The low end rounded up, so the quoted window lies inside.
-            looprate::summary::fmt_at_least(fe * 1.25)
+            looprate::engineering::at_least(fe * 1.25)
         )),
         "{line}"
     );

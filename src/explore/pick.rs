@@ -1,0 +1,1315 @@
+//! The answer a user comes for: per method the slowest rate that meets the
+//! spec, the recommended method and rate with headroom, its CPU load, and
+//! the rate window between the spec and the CPU budget.
+
+use crate::model::rounding;
+use crate::model::rounding::StructuralFailure;
+use crate::sampled::figure::Limiting;
+use rayon::prelude::*;
+use serde::Serialize;
+
+use std::cell::RefCell;
+
+use crate::case::Case;
+use crate::engineering::{at_least, at_most, sig4};
+use crate::error::Error;
+use crate::explore::budget::{self, RateWindow, WindowBound};
+use crate::explore::precision;
+use crate::explore::search::{
+    Ceiling, SearchObserver, SlowestRate, fastest_rate_by, method_label, slowest_rate,
+    slowest_rate_by,
+};
+use crate::explore::sweep::{self, Plan, SweepRow};
+use crate::explore::variants::{NamedValue, VariantSet};
+use crate::model::discretize::Method;
+use crate::model::rounding::Damage;
+use crate::model::transfer::Controller;
+use crate::sampled::evaluate::{Evaluation, Figures, Point, PreparedLoop, Transport};
+use crate::sampled::feasibility::{Assessment, LimitCheck, assess, check_figures};
+use crate::sampled::time_response::TimeOptions;
+use crate::spec::HoldKind;
+use crate::spec::UncertaintyMode;
+use crate::spec::{Format, Structure};
+
+/// Build the rate-independent part of the loop from a case (nominal
+/// parameter values).
+pub fn prepare(case: &Case) -> Result<PreparedLoop, Error> {
+    let m = case.nominal()?;
+    let time = TimeOptions {
+        band: case.spec.settling_band_pct / 100.0,
+        ..TimeOptions::default()
+    };
+    PreparedLoop::with_transport(
+        &m.plant,
+        &m.sensor,
+        &m.controller,
+        case.prewarp_hz,
+        time,
+        Transport {
+            plant_s: case.plant_delay_s,
+            sensor_s: case.sensor_delay_s,
+        },
+    )
+    .map_err(|e| Error::Model {
+        context: format!("{}: preparing the loop", case.source.display()),
+        reason: e,
+    })
+}
+
+/// A finished job: the sweep's rows, the plant variants they were
+/// evaluated on (with `[uncertainty]`) and the answer.
+pub struct Picked {
+    pub rows: Vec<SweepRow>,
+    pub variants: Option<VariantSet>,
+    pub report: PickReport,
+}
+
+/// The plant variants of a case with `[uncertainty]` (None without).
+pub fn case_variants(case: &Case, lp: &PreparedLoop) -> Result<Option<VariantSet>, Error> {
+    case.uncertainty
+        .as_ref()
+        .map(|_| VariantSet::new(case, lp))
+        .transpose()
+}
+
+/// The whole job on a case: its variants, the sweep of its grid (with
+/// everything the case asks for) and the pick. `on_done` is called once
+/// per swept point.
+pub fn sweep_and_pick(
+    case: &Case,
+    lp: &PreparedLoop,
+    on_done: &(dyn Fn() + Sync),
+    observer: &dyn SearchObserver,
+) -> Result<Picked, Error> {
+    sweep_and_pick_streaming(case, lp, on_done, observer, None)
+}
+
+/// Takes each finished row: its grid index, the row, the plant variants.
+pub type RowSink<'a> = dyn FnMut(usize, &SweepRow, Option<&VariantSet>) + 'a;
+
+/// [`sweep_and_pick`], handing each row to `on_row(grid_index, row,
+/// variants)` as the sweep finishes it (to stream `sweep.csv`; rows of
+/// one (method, delay) series come in grid order) and then keeping it
+/// slimmed (`SweepRow::slim`). With `on_row` None the rows are kept whole.
+pub fn sweep_and_pick_streaming(
+    case: &Case,
+    lp: &PreparedLoop,
+    on_done: &(dyn Fn() + Sync),
+    observer: &dyn SearchObserver,
+    mut on_row: Option<&mut RowSink<'_>>,
+) -> Result<Picked, Error> {
+    let variants = case_variants(case, lp)?;
+    let plan = Plan::for_case(case, lp, variants.as_ref());
+    let points = case_grid(case, lp);
+    let mut rows = sweep::GridOrder::default();
+    sweep::run_streaming(&plan, &points, on_done, &mut |i, mut row| {
+        if let Some(f) = on_row.as_mut() {
+            f(i, &row, variants.as_ref());
+            row.slim();
+        }
+        rows.push(i, row);
+    });
+    let rows = rows.finish();
+    let report = pick(case, lp, variants.as_ref(), &rows, observer);
+    Ok(Picked {
+        rows,
+        variants,
+        report,
+    })
+}
+
+/// The methods of the sweep: the case's list, or "given in z".
+pub fn case_methods(case: &Case) -> Vec<Option<Method>> {
+    if case.methods.is_empty() {
+        vec![None]
+    } else {
+        case.methods.iter().copied().map(Some).collect()
+    }
+}
+
+/// The grid of points the case asks for: the case's rates, or only the
+/// controller's own rate when it is given in z.
+pub fn case_grid(case: &Case, lp: &PreparedLoop) -> Vec<Point> {
+    let rates = match &lp.controller {
+        Controller::Discrete(d) => vec![1.0 / d.period_s],
+        Controller::Continuous(_) => case.rates.grid(),
+    };
+    sweep::grid_holds(
+        &rates,
+        &case_methods(case),
+        &case.holds,
+        &case.compute_delays,
+    )
+}
+
+/// The recommended design.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Recommended {
+    pub method: String,
+    /// The actuator's hold kind.
+    pub hold: HoldKind,
+    /// Why this hold, in words (the cheapest passing one, against the
+    /// other kinds the case lists).
+    pub hold_basis: String,
+    pub compute_delay: f64,
+    /// `f_star` of this method, Hz.
+    pub slowest_rate_hz: f64,
+    /// `f_star * headroom`, rounded up to a timer rate when a timer is given.
+    pub rate_hz: f64,
+    /// How `rate_hz` was reached, in words: the headroom and what it
+    /// covers (model error), or why none applies (controller given in z).
+    pub basis: String,
+    pub period_s: f64,
+    /// Timer divider that makes `rate_hz`, when `[budget] timer_hz` is given.
+    pub timer_divider: Option<u64>,
+    pub cpu_load_pct: Option<f64>,
+    pub cycles_per_update: Option<f64>,
+    pub figures: Option<Figures>,
+    pub checks: Vec<LimitCheck>,
+    pub feasible: bool,
+    /// With plant variants: each figure at its worst over them at this
+    /// rate, checked against the spec (None when a variant is unstable).
+    pub worst_figures: Option<Figures>,
+    pub worst_checks: Vec<LimitCheck>,
+    /// With plant variants: every variant feasible at this rate.
+    pub robust_feasible: Option<bool>,
+}
+
+/// The whole answer (`pick.json`).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct PickReport {
+    pub title: String,
+    /// The continuous design's figures, and the limits it already fails.
+    pub design: Option<Figures>,
+    pub design_failures: Vec<LimitCheck>,
+    pub methods: Vec<SlowestRate>,
+    pub recommended: Option<Recommended>,
+    /// `[low, high]` when a budget is given and the window is not empty.
+    pub window_hz: Option<[f64; 2]>,
+    /// The window with both ends even when empty.
+    pub window: Option<RateWindow>,
+    /// The budget's ceiling rate for the recommended method, Hz.
+    pub cpu_ceiling_hz: Option<f64>,
+    /// What would open an empty window.
+    pub advice: Vec<String>,
+    pub headroom: f64,
+    /// The computation delay the recommendation is made at (the largest
+    /// the case lists: the conservative choice).
+    pub design_delay: f64,
+    /// The search over plant variants, when the case has `[uncertainty]`.
+    pub robust: Option<RobustReport>,
+    /// Precision ceilings, when the case has `[arithmetic]`.
+    pub precision: Option<PrecisionReport>,
+    pub notes: Vec<String>,
+}
+
+impl PickReport {
+    /// The answers the recommendation rests on: the robust ones when there
+    /// are plant variants, else the nominal ones.
+    pub fn answers(&self) -> Vec<&SlowestRate> {
+        match &self.robust {
+            Some(rb) => rb.methods.iter().map(|m| &m.rate).collect(),
+            None => self.methods.iter().collect(),
+        }
+    }
+}
+
+/// A parameter and its range.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ParamRange {
+    pub name: String,
+    pub nominal: f64,
+    pub min: f64,
+    pub max: f64,
+}
+
+/// `f_star` over every plant variant for one method and delay.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct RobustRate {
+    /// The robust answer: every variant feasible at every rate from
+    /// `slowest_rate_hz` up to `max_hz`.
+    #[serde(flatten)]
+    pub rate: SlowestRate,
+    /// The nominal answer for the same method and delay, Hz.
+    pub nominal_slowest_rate_hz: Option<f64>,
+    /// The variant that fails just below the robust `f_star` (or at
+    /// `max_hz` when there is none; the one with the least slack at the
+    /// lowest rate when every swept rate passes), and its limiting figure.
+    pub worst_variant: Option<Vec<NamedValue>>,
+    pub worst_limiting: Option<Limiting>,
+}
+
+/// The robust search (`pick.json` key `robust`).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct RobustReport {
+    /// `corners` or `samples`.
+    pub mode: String,
+    pub seed: Option<u64>,
+    /// Variants evaluated, the nominal one included.
+    pub variants: usize,
+    pub params: Vec<ParamRange>,
+    pub methods: Vec<RobustRate>,
+}
+
+/// One number format's ceiling for one method.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct FormatCeiling {
+    pub method: String,
+    pub format: String,
+    /// The search started here: the method's `f_star` times the headroom, Hz.
+    pub from_hz: f64,
+    #[serde(flatten)]
+    pub ceiling: Ceiling,
+}
+
+/// What rounding does at the recommended rate, per format.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct FormatAtRate {
+    pub format: String,
+    pub damage: Option<Damage>,
+    /// Why there is no damage figure, when there is none.
+    pub reason: Option<String>,
+    /// Whether the design's integrators survive (None without any).
+    pub integral_kept: Option<bool>,
+    pub feasible: bool,
+    pub limiting: Option<Limiting>,
+}
+
+/// The precision ceilings (`pick.json` key `precision`).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct PrecisionReport {
+    /// `transposed-direct` or `sos`.
+    pub structure: String,
+    /// The format that bounds the rate window (the first listed).
+    pub window_format: String,
+    /// Per method (at the design delay) and format.
+    pub ceilings: Vec<FormatCeiling>,
+    /// At the recommended method and rate, per format.
+    pub at_recommended: Vec<FormatAtRate>,
+    /// When the case's structure loses the design's integral action in
+    /// the window's format (at the recommended rate or just above the
+    /// ceiling): whether the other structure keeps it over the same rates.
+    pub other_structure: Option<OtherStructure>,
+}
+
+/// The integral action in the other structure, checked at the same rates
+/// (the recommended rate and every swept rate above it, recommended
+/// method, window format): what the advice rests on when one structure
+/// loses the integrator and the other keeps it.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct OtherStructure {
+    /// The other structure (`sos` or `transposed-direct`).
+    pub structure: String,
+    pub format: String,
+    /// Where the case's structure loses the integral action, Hz.
+    pub lost_at_hz: f64,
+    /// Rates checked, from the recommended rate up.
+    pub rates_checked: usize,
+    /// The highest rate up to which the other structure keeps the integral
+    /// action at every rate checked, Hz; None when it loses it at the
+    /// recommended rate too.
+    pub kept_up_to_hz: Option<f64>,
+    /// True when it keeps it at every rate checked (up to the top of the
+    /// swept range).
+    pub kept_at_every_rate: bool,
+}
+
+impl OtherStructure {
+    /// The advice in words.
+    pub fn advice(&self, structure: &str) -> String {
+        match self.kept_up_to_hz {
+            Some(h) if self.kept_at_every_rate => format!(
+                "another structure: {} keeps the integral action in {} at every rate checked up to {} Hz ({} rates), which {structure} loses at {} Hz",
+                self.structure,
+                self.format,
+                sig4(h),
+                self.rates_checked,
+                sig4(self.lost_at_hz)
+            ),
+            Some(h) => format!(
+                "another structure: {} keeps the integral action in {} up to {} Hz (every rate checked), {structure} loses it at {} Hz",
+                self.structure,
+                self.format,
+                sig4(h),
+                sig4(self.lost_at_hz)
+            ),
+            None => format!(
+                "{} loses the integral action in {} as well: a wider format is needed",
+                self.structure, self.format
+            ),
+        }
+    }
+}
+
+impl PickReport {
+    /// True when there is a usable answer: a recommendation inside a
+    /// non-empty window (or no budget to bound it).
+    pub fn has_answer(&self) -> bool {
+        self.recommended.is_some() && !self.window.as_ref().is_some_and(|w| w.empty)
+    }
+}
+
+/// A report with no search made (for `sweep`): the design's figures and
+/// nothing else, so outputs that need no answer can still be drawn.
+pub fn unsearched(case: &Case, lp: &PreparedLoop) -> PickReport {
+    PickReport {
+        title: case.title.clone(),
+        design: lp.design.as_ref().and_then(|d| d.figures.clone()),
+        design_failures: Vec::new(),
+        methods: Vec::new(),
+        recommended: None,
+        window_hz: None,
+        window: None,
+        cpu_ceiling_hz: None,
+        advice: Vec::new(),
+        headroom: case.spec.headroom,
+        design_delay: case.compute_delays.iter().copied().fold(0.0, f64::max),
+        robust: None,
+        precision: None,
+        notes: vec!["sweep only: no search was made".into()],
+    }
+}
+
+/// Search every (method, delay) series of a finished sweep and make the
+/// recommendation: on the robust answer when `variants` is given (the
+/// sweep must have been run with the same variants), and with the
+/// precision ceilings when the case has `[arithmetic]`.
+pub fn pick(
+    case: &Case,
+    lp: &PreparedLoop,
+    variants: Option<&VariantSet>,
+    rows: &[SweepRow],
+    observer: &dyn SearchObserver,
+) -> PickReport {
+    let spec = &case.spec;
+    let mut report = PickReport {
+        design: None,
+        notes: case.notes.clone(),
+        ..unsearched(case, lp)
+    };
+    let design_delay = report.design_delay;
+    if case.uncertainty.is_none() && case.params.iter().any(|p| p.min < p.max) {
+        report.notes.push(
+            "parameter ranges are given but no [uncertainty] mode: every figure is for the nominal parameters".into(),
+        );
+    }
+    if let Some(design) = &lp.design {
+        match &design.figures {
+            Some(f) => {
+                report.design = Some(f.clone());
+                report.design_failures = check_figures(f, spec)
+                    .into_iter()
+                    .filter(|c| !c.pass)
+                    .collect();
+            }
+            None => report.notes.push(format!(
+                "the continuous design is {}",
+                design.status.label()
+            )),
+        }
+        if !report.design_failures.is_empty() || design.figures.is_none() {
+            report.notes.push(
+                "the continuous design already fails the spec: no sampling rate can fix that; revise the controller or the spec first".into(),
+            );
+            return report;
+        }
+    }
+
+    let series = series_of(rows);
+    report.methods = series
+        .par_iter()
+        .map(|s| slowest_rate(lp, spec, s, observer))
+        .collect();
+    if let Controller::Discrete(d) = &lp.controller {
+        // One rate only: "at or below" the range floor does not apply.
+        for m in report.methods.iter_mut() {
+            m.at_range_floor = false;
+        }
+        // Each listed delay gets its own verdict at that rate.
+        let own = 1.0 / d.period_s;
+        for m in &report.methods {
+            report.notes.push(match (m.slowest_rate_hz, &m.limiting) {
+                (Some(_), _) => format!(
+                    "computation delay {}: the controller given in z meets the spec at its rate {own} Hz",
+                    m.compute_delay
+                ),
+                (None, lim) => format!(
+                    "computation delay {}: the controller given in z fails the spec at its rate {own} Hz ({})",
+                    m.compute_delay,
+                    lim.map_or("?", |l| l.label())
+                ),
+            });
+        }
+    }
+    if let Some(v) = variants {
+        report.robust = Some(robust_report(
+            case,
+            lp,
+            v,
+            &series,
+            &report.methods,
+            observer,
+        ));
+    }
+
+    // The answer the recommendation rests on: robust when there are variants.
+    let answers: Vec<SlowestRate> = match &report.robust {
+        Some(r) => r.methods.iter().map(|m| m.rate.clone()).collect(),
+        None => report.methods.clone(),
+    };
+    // The cheapest passing (method, hold): the lowest f_star; on a tie the
+    // first in case order (min_by keeps the first of equals).
+    let best = answers
+        .iter()
+        .filter(|m| m.compute_delay == design_delay)
+        .filter_map(|m| m.slowest_rate_hz.map(|f| (m, f)))
+        .min_by(|a, b| a.1.total_cmp(&b.1));
+    let Some((best, f_star)) = best else {
+        if let Controller::Discrete(d) = &lp.controller {
+            let passing: Vec<String> = answers
+                .iter()
+                .filter(|m| m.slowest_rate_hz.is_some())
+                .map(|m| sig4(m.compute_delay))
+                .collect();
+            let variants = if report.robust.is_some() {
+                " on every plant variant"
+            } else {
+                ""
+            };
+            report.notes.push(format!(
+                "the controller given in z at {} Hz fails the spec{variants} at computation delay {} (the largest listed, which the recommendation is made at){}",
+                1.0 / d.period_s,
+                design_delay,
+                if passing.is_empty() {
+                    " and at every other delay listed".to_string()
+                } else {
+                    format!("; it meets it at computation delay {}", passing.join(", "))
+                }
+            ));
+            return report;
+        }
+        report.notes.push(if report.robust.is_some() {
+            "no method meets the spec on every plant variant at the fastest swept rate".into()
+        } else {
+            "no method meets the spec at the fastest swept rate".into()
+        });
+        return report;
+    };
+    let method = case_methods(case)
+        .into_iter()
+        .find(|m| method_label(*m) == best.method)
+        .flatten();
+    let mut rate = f_star * spec.headroom;
+    let mut divider = None;
+    if let Controller::Discrete(d) = &lp.controller {
+        // A controller given in z runs at its own rate only: no headroom,
+        // no timer rounding.
+        rate = 1.0 / d.period_s;
+        report.notes.push(format!(
+            "the controller is given in z at {rate} Hz: it can run only at that rate, so no headroom is applied"
+        ));
+        if let Some(timer) = case.budget.as_ref().and_then(|b| b.timer_hz) {
+            let n = (timer / rate).round();
+            if n < 1.0 || ((timer / n) - rate).abs() > 1e-9 * rate {
+                report.notes.push(format!(
+                    "the timer ({timer} Hz) cannot make exactly {rate} Hz"
+                ));
+            } else {
+                divider = Some(n as u64);
+            }
+        }
+    } else if let Some(timer) = case.budget.as_ref().and_then(|b| b.timer_hz) {
+        match budget::timer_rate_at_least(timer, rate) {
+            Some((r, n)) => {
+                rate = r;
+                divider = Some(n);
+            }
+            None => report.notes.push(format!(
+                "the timer ({timer} Hz) cannot make {rate:.6} Hz: the rate is shown unrounded"
+            )),
+        }
+    }
+    if rate > case.rates.max_hz {
+        report.notes.push(format!(
+            "the rate f* times the headroom, {rate:.6} Hz, is above the swept range (max_hz = {} Hz)",
+            case.rates.max_hz
+        ));
+    }
+    let hold = best.hold;
+    let p = Point {
+        rate_hz: rate,
+        method,
+        delay: design_delay,
+        hold,
+    };
+    let eval: Evaluation = lp.sampled_exact(&p);
+    let a = assess(&eval, spec);
+    let controller = lp.controller_at(rate, method).ok();
+    let (cycles, load) = match case.budget.as_ref() {
+        Some(b) => {
+            let c = budget::cycles_per_update(
+                b,
+                controller.as_ref(),
+                case.arithmetic
+                    .as_ref()
+                    .map_or(Structure::TransposedDirect, |a| a.structure),
+                rounding::design_integrators(&lp.controller),
+            );
+            (c, c.map(|c| budget::load_pct(b, c, rate)))
+        }
+        None => (None, None),
+    };
+    let robust_here = variants.map(|v| {
+        let c = lp.controller_at(rate, method);
+        v.judge(spec, &p, c.as_ref().map_err(String::as_str), false, None)
+            .1
+    });
+    let worst_figures = robust_here.as_ref().and_then(|r| r.worst_figures.clone());
+    report.recommended = Some(Recommended {
+        worst_checks: worst_figures
+            .as_ref()
+            .map(|f| check_figures(f, spec))
+            .unwrap_or_default(),
+        worst_figures,
+        robust_feasible: robust_here.as_ref().map(|r| r.assessment.feasible),
+        basis: match &lp.controller {
+            Controller::Discrete(_) => {
+                "the controller given in z runs only at its own rate: no headroom applied".into()
+            }
+            Controller::Continuous(_) => format!(
+                "f_star {f_star} Hz times headroom {}{}; the headroom covers model error (parameter drift, unmodelled dynamics), it is not a guarantee",
+                spec.headroom,
+                match divider {
+                    Some(n) => format!(", rounded up to the timer rate timer_hz / {n}"),
+                    None => String::new(),
+                }
+            ),
+        },
+        method: best.method.clone(),
+        hold,
+        hold_basis: hold_basis(case, &answers, &best.method, hold, f_star, design_delay),
+        compute_delay: design_delay,
+        slowest_rate_hz: f_star,
+        rate_hz: rate,
+        period_s: 1.0 / rate,
+        timer_divider: divider,
+        cpu_load_pct: load,
+        cycles_per_update: cycles,
+        figures: eval.figures.clone(),
+        checks: a.checks.clone(),
+        feasible: a.feasible,
+    });
+    let cpu = match (case.budget.as_ref(), cycles) {
+        (Some(b), Some(c)) => {
+            let ceiling = budget::ceiling_hz(b, c);
+            report.cpu_ceiling_hz = Some(ceiling);
+            Some((ceiling, c))
+        }
+        _ => None,
+    };
+    if case.arithmetic.is_some() {
+        let crossover = eval.figures.as_ref().and_then(|f| f.crossover_hz);
+        let at = Chosen {
+            method,
+            hold,
+            rate_hz: rate,
+            crossover_hz: crossover,
+        };
+        report.precision = Some(precision_report(case, lp, rows, &answers, &at, observer));
+    }
+    // The window's top: the lower of the CPU ceiling and the first
+    // format's precision ceiling (one above the swept range bounds nothing).
+    let prec = report.precision.as_ref().and_then(|pr| {
+        pr.ceilings
+            .iter()
+            .find(|c| c.method == best.method && c.format == pr.window_format)
+            .filter(|c| !c.ceiling.above_range)
+            .map(|c| {
+                let bound = |fails_at_start: Option<String>| WindowBound::Coefficients {
+                    format: c.format.clone(),
+                    structure: pr.structure.clone(),
+                    fails_at_start,
+                };
+                match c.ceiling.rate_hz {
+                    Some(h) => (h, bound(None)),
+                    // Failing already where the search starts: no rate above
+                    // the low end is usable, so the window is empty.
+                    None => (
+                        f64::NEG_INFINITY,
+                        bound(Some(
+                            c.ceiling
+                                .limiting
+                                .map_or_else(|| "?".into(), |l| l.key().to_string()),
+                        )),
+                    ),
+                }
+            })
+    });
+    let top = match (cpu, prec) {
+        (Some((cc, _)), Some((pc, bound))) if pc < cc => Some((pc, bound)),
+        (Some((cc, _)), _) => Some((cc, WindowBound::CpuBudget)),
+        (None, Some(p)) => Some(p),
+        (None, None) => None,
+    };
+    // A window claims only rates that were checked: the spec (and the
+    // coefficients) are known to hold up to the top of the swept range
+    // (a controller given in z: its own rate only), so a ceiling above it
+    // is cut there and the bound says so.
+    let checked_top = match &lp.controller {
+        Controller::Discrete(d) => 1.0 / d.period_s,
+        Controller::Continuous(_) => case.rates.max_hz,
+    };
+    let top = top.map(|(high, bound)| {
+        if high > checked_top {
+            (
+                checked_top,
+                WindowBound::LastRateChecked {
+                    checked_hz: checked_top,
+                    beyond: Box::new(bound),
+                    beyond_hz: high,
+                },
+            )
+        } else {
+            (high, bound)
+        }
+    });
+    if let Some((high, bound)) = top {
+        let w = if high.is_finite() {
+            RateWindow::new(rate, high, bound, report.cpu_ceiling_hz)
+        } else {
+            RateWindow {
+                high_hz: rate,
+                empty: true,
+                ..RateWindow::new(rate, rate, bound, report.cpu_ceiling_hz)
+            }
+        };
+        if w.empty {
+            report.advice = empty_window_advice(case, lp, &report, rate, &w, cpu.map(|c| c.1));
+        } else {
+            report.window_hz = Some([rate, high]);
+            if let Some(pr) = &report.precision
+                && w.high_bound.is_coefficients()
+                && let Some(o) = &pr.other_structure
+            {
+                let text = o.advice(&pr.structure);
+                report.notes.push(text);
+            }
+        }
+        report.window = Some(w);
+    }
+    report
+}
+
+/// Rows grouped by (method, hold, delay) in grid order, each sorted by rate.
+fn series_of(rows: &[SweepRow]) -> Vec<Vec<&SweepRow>> {
+    let mut series: Vec<Vec<&SweepRow>> = Vec::new();
+    for r in rows {
+        match series.last_mut() {
+            Some(s)
+                if s[0].point.method == r.point.method
+                    && s[0].point.hold == r.point.hold
+                    && s[0].point.delay == r.point.delay =>
+            {
+                s.push(r)
+            }
+            _ => series.push(vec![r]),
+        }
+    }
+    for s in series.iter_mut() {
+        s.sort_by(|a, b| a.point.rate_hz.total_cmp(&b.point.rate_hz));
+    }
+    series
+}
+
+/// The robust search for every series: the judge evaluates every variant
+/// with the shared controller and keeps the worst.
+fn robust_report(
+    case: &Case,
+    lp: &PreparedLoop,
+    variants: &VariantSet,
+    series: &[Vec<&SweepRow>],
+    nominal: &[SlowestRate],
+    observer: &dyn SearchObserver,
+) -> RobustReport {
+    let spec = &case.spec;
+    let methods = series
+        .par_iter()
+        .zip(nominal.par_iter())
+        .map(|(s, nominal)| {
+            let (method, delay, hold) = (s[0].point.method, s[0].point.delay, s[0].point.hold);
+            let grid: Vec<(f64, &Assessment, usize)> = s
+                .iter()
+                .filter_map(|r| {
+                    r.robust
+                        .as_ref()
+                        .map(|v| (r.point.rate_hz, &v.assessment, v.worst))
+                })
+                .collect();
+            let coarse: Vec<(f64, &Assessment)> = grid.iter().map(|g| (g.0, g.1)).collect();
+            // Every judged rate with its verdict and worst variant.
+            let seen: RefCell<Vec<(f64, Assessment, usize)>> = RefCell::new(Vec::new());
+            let judge = |rate: f64| -> Assessment {
+                let p = Point {
+                    rate_hz: rate,
+                    method,
+                    delay,
+                    hold,
+                };
+                let c = lp.controller_at(rate, method);
+                let (_, v) =
+                    variants.judge(spec, &p, c.as_ref().map_err(String::as_str), false, None);
+                observer.evaluated(rate, &v.assessment);
+                seen.borrow_mut()
+                    .push((rate, v.assessment.clone(), v.worst));
+                v.assessment
+            };
+            let mut rate = slowest_rate_by(method, hold, delay, &coarse, &judge);
+            // Both answers are brackets of width 1e-4; where the nominal
+            // bracket ends above the robust one, its passing end also passes
+            // every variant (it lies above the robust answer), so report it:
+            // the robust answer is never below the nominal one.
+            if let (Some(r), Some(n)) = (rate.slowest_rate_hz, nominal.slowest_rate_hz)
+                && r < n
+                && !rate.at_range_floor
+            {
+                rate.slowest_rate_hz = Some(n);
+            }
+            // The worst variant: where the answer is decided.
+            let mut all: Vec<(f64, Assessment, usize)> =
+                grid.iter().map(|g| (g.0, g.1.clone(), g.2)).collect();
+            all.extend(seen.into_inner());
+            let decisive = match rate.slowest_rate_hz {
+                _ if rate.at_range_floor => all
+                    .iter()
+                    .filter(|a| a.0 == rate.slowest_rate_hz.unwrap_or(f64::NAN))
+                    .min_by(|a, b| a.1.slack.total_cmp(&b.1.slack)),
+                Some(f) => all
+                    .iter()
+                    .filter(|a| a.0 < f && !a.1.feasible)
+                    .max_by(|a, b| a.0.total_cmp(&b.0)),
+                None => all.iter().max_by(|a, b| a.0.total_cmp(&b.0)),
+            };
+            let worst_variant = decisive.map(|d| {
+                variants
+                    .named(d.2)
+                    .into_iter()
+                    .map(|(name, value)| NamedValue { name, value })
+                    .collect()
+            });
+            let worst_limiting = decisive.and_then(|d| d.1.limiting);
+            if let Controller::Discrete(_) = &lp.controller {
+                // One rate only: "at or below" the range floor does not apply.
+                rate.at_range_floor = false;
+            }
+            RobustRate {
+                worst_limiting,
+                worst_variant,
+                nominal_slowest_rate_hz: nominal.slowest_rate_hz,
+                rate,
+            }
+        })
+        .collect();
+    let (mode, seed) = match case.uncertainty {
+        Some(UncertaintyMode::Samples { seed, .. }) => ("samples", Some(seed)),
+        _ => ("corners", None),
+    };
+    RobustReport {
+        mode: mode.into(),
+        seed,
+        variants: variants.len(),
+        params: case
+            .params
+            .iter()
+            .filter(|p| p.min < p.max)
+            .map(|p| ParamRange {
+                name: p.name.clone(),
+                nominal: p.nominal,
+                min: p.min,
+                max: p.max,
+            })
+            .collect(),
+        methods,
+    }
+}
+
+/// The recommended method and rate, and the nominal loop's crossover there.
+struct Chosen {
+    method: Option<Method>,
+    hold: HoldKind,
+    rate_hz: f64,
+    crossover_hz: Option<f64>,
+}
+
+/// Precision ceilings for every method with an answer at the design delay
+/// with the recommended hold (searched upward from its `f_star` times the headroom, on the nominal
+/// plant), and the damage at the recommended rate.
+fn precision_report(
+    case: &Case,
+    lp: &PreparedLoop,
+    rows: &[SweepRow],
+    answers: &[SlowestRate],
+    chosen: &Chosen,
+    observer: &dyn SearchObserver,
+) -> PrecisionReport {
+    let (recommended_method, recommended_rate) = (chosen.method, chosen.rate_hz);
+    let hold = chosen.hold;
+    let recommended_crossover_hz = chosen.crossover_hz;
+    let Some(arith) = case.arithmetic.as_ref() else {
+        unreachable!("precision_report is called only with [arithmetic]")
+    };
+    let spec = &case.spec;
+    let design_delay = case.compute_delays.iter().copied().fold(0.0, f64::max);
+    let plan = Plan::for_case(case, lp, None);
+    let evaluated = plan.formats();
+    // As in the sweep: the design's crossover, else (a controller given
+    // in z, which runs at one rate) the loop's own at that rate.
+    let check_hz = lp
+        .design
+        .as_ref()
+        .and_then(|d| d.figures.as_ref())
+        .and_then(|f| f.crossover_hz)
+        .or(recommended_crossover_hz);
+    let mut jobs: Vec<(Option<Method>, f64, Format)> = Vec::new();
+    for m in case_methods(case) {
+        let Some(f_star) = answers
+            .iter()
+            .find(|a| {
+                a.method == method_label(m) && a.hold == hold && a.compute_delay == design_delay
+            })
+            .and_then(|a| a.slowest_rate_hz)
+        else {
+            continue;
+        };
+        let from = if m == recommended_method {
+            recommended_rate
+        } else {
+            f_star * spec.headroom
+        };
+        for &f in &arith.formats {
+            jobs.push((m, from, f));
+        }
+    }
+    let ceilings: Vec<FormatCeiling> = jobs
+        .par_iter()
+        .map(|&(m, from, format)| {
+            let series: Vec<&SweepRow> = rows
+                .iter()
+                .filter(|r| {
+                    r.point.method == m && r.point.hold == hold && r.point.delay == design_delay
+                })
+                .collect();
+            let ceiling = match evaluated.iter().position(|f| *f == format) {
+                None => {
+                    // f64 is the reference: its loop is the nominal loop,
+                    // feasible from f_star up to max_hz by definition.
+                    Ceiling {
+                        rate_hz: Some(case.rates.max_hz.max(from)),
+                        above_range: true,
+                        limiting: None,
+                        first_failure_hz: None,
+                        evaluations: 0,
+                    }
+                }
+                Some(k) => {
+                    let judge = |rate: f64| -> Assessment {
+                        let p = Point {
+                            rate_hz: rate,
+                            method: m,
+                            delay: design_delay,
+                            hold,
+                        };
+                        let a = precision::judge_point(
+                            lp,
+                            spec,
+                            &p,
+                            arith.structure,
+                            format,
+                            check_hz,
+                            None,
+                        )
+                        .assessment;
+                        observer.evaluated(rate, &a);
+                        a
+                    };
+                    // The sweep's verdicts; a sweep made without this
+                    // format is judged here instead.
+                    let verdicts: Vec<(f64, Assessment)> = series
+                        .iter()
+                        .map(|r| {
+                            let a = match r.precision.get(k) {
+                                Some(v) if v.format == format => v.assessment.clone(),
+                                _ => judge(r.point.rate_hz),
+                            };
+                            (r.point.rate_hz, a)
+                        })
+                        .collect();
+                    let coarse: Vec<(f64, &Assessment)> =
+                        verdicts.iter().map(|(f, a)| (*f, a)).collect();
+                    fastest_rate_by(from, &coarse, &judge)
+                }
+            };
+            FormatCeiling {
+                method: method_label(m),
+                format: format.name(),
+                from_hz: from,
+                ceiling,
+            }
+        })
+        .collect();
+    let p = Point {
+        rate_hz: recommended_rate,
+        method: recommended_method,
+        delay: design_delay,
+        hold,
+    };
+    let at_recommended = arith
+        .formats
+        .par_iter()
+        .map(|&format| {
+            let v = precision::judge_point(lp, spec, &p, arith.structure, format, check_hz, None);
+            FormatAtRate {
+                format: format.name(),
+                reason: v.reason,
+                integral_kept: v
+                    .damage
+                    .as_ref()
+                    .filter(|d| d.integrators > 0)
+                    .map(Damage::integral_kept),
+                damage: v.damage,
+                feasible: v.assessment.feasible,
+                limiting: v.assessment.limiting,
+            }
+        })
+        .collect();
+    let window_format = arith.formats[0];
+    let lost_at = ceilings
+        .iter()
+        .find(|c| c.method == method_label(recommended_method) && c.format == window_format.name())
+        .filter(|c| {
+            c.ceiling.limiting == Some(Limiting::Rounding(StructuralFailure::IntegralActionLost))
+        })
+        .and_then(|c| c.ceiling.first_failure_hz);
+    let other_structure = lost_at.map(|lost_at_hz| {
+        let mut rates: Vec<f64> = rows
+            .iter()
+            .filter(|r| {
+                r.point.method == recommended_method
+                    && r.point.delay == design_delay
+                    && r.point.rate_hz > recommended_rate
+            })
+            .map(|r| r.point.rate_hz)
+            .collect();
+        rates.insert(0, recommended_rate);
+        other_structure_integral(
+            lp,
+            recommended_method,
+            arith.structure,
+            window_format,
+            &rates,
+            lost_at_hz,
+        )
+    });
+    PrecisionReport {
+        structure: arith.structure.name().into(),
+        window_format: window_format.name(),
+        ceilings,
+        at_recommended,
+        other_structure,
+    }
+}
+
+/// Whether the structure other than `structure` keeps the design's
+/// integral action in `format` at each of `rates` (ascending, the first
+/// the recommended rate): the rounding alone decides it, so only the
+/// quantized controller is built (no loop evaluation).
+fn other_structure_integral(
+    lp: &PreparedLoop,
+    method: Option<Method>,
+    structure: Structure,
+    format: Format,
+    rates: &[f64],
+    lost_at_hz: f64,
+) -> OtherStructure {
+    let other = match structure {
+        Structure::TransposedDirect => Structure::Sos,
+        Structure::Sos => Structure::TransposedDirect,
+    };
+    let integrators = rounding::design_integrators(&lp.controller);
+    let kept = |rate: f64| {
+        lp.controller_at(rate, method)
+            .ok()
+            .and_then(|c| rounding::quantize(&c, integrators, other, format, None).ok())
+            .is_some_and(|q| q.damage.integral_kept())
+    };
+    let mut kept_up_to_hz = None;
+    let mut checked = 0;
+    let mut every = true;
+    for &f in rates {
+        checked += 1;
+        if kept(f) {
+            kept_up_to_hz = Some(f);
+        } else {
+            every = false;
+            break;
+        }
+    }
+    OtherStructure {
+        structure: other.name().into(),
+        format: format.name(),
+        lost_at_hz,
+        rates_checked: checked,
+        kept_up_to_hz,
+        kept_at_every_rate: every,
+    }
+}
+
+/// What would open an empty rate window, each item with the number it
+/// would take: a faster CPU, a cheaper update, a higher load limit, a
+/// wider number format, a looser spec, another method, a shorter delay.
+fn empty_window_advice(
+    case: &Case,
+    lp: &PreparedLoop,
+    report: &PickReport,
+    rate: f64,
+    window: &RateWindow,
+    cycles: Option<f64>,
+) -> Vec<String> {
+    let mut out = Vec::new();
+    let ceiling = window.high_hz;
+    if let (Some(b), Some(cycles), Some(cpu)) =
+        (case.budget.as_ref(), cycles, report.cpu_ceiling_hz)
+        && cpu < rate
+    {
+        // Each threshold is rounded toward the side that works (up for a
+        // minimum, down for a maximum), so applied alone it opens the window.
+        out.push(format!(
+            "a faster CPU: at least {} MHz at {} % load",
+            at_least(rate * cycles / (b.max_load_pct / 100.0) / 1e6),
+            b.max_load_pct
+        ));
+        out.push(format!(
+            "a cheaper update: at most {:.0} cycles per update (now {:.0})",
+            ((b.max_load_pct / 100.0) * b.cpu_hz / rate).floor(),
+            cycles
+        ));
+        out.push(format!(
+            "a higher load limit: at least {} % would be needed",
+            at_least(rate * cycles / b.cpu_hz * 100.0)
+        ));
+    }
+    if let Some(pr) = &report.precision
+        && window.high_bound.is_coefficients()
+    {
+        let wider: Vec<String> = pr
+            .ceilings
+            .iter()
+            .filter(|c| {
+                report
+                    .recommended
+                    .as_ref()
+                    .is_some_and(|r| r.method == c.method)
+                    && c.format != pr.window_format
+                    && c.ceiling.rate_hz.is_some_and(|h| h >= rate)
+            })
+            .map(|c| c.format.clone())
+            .collect();
+        if let Some(o) = &pr.other_structure {
+            out.push(o.advice(&pr.structure));
+        }
+        out.push(if wider.is_empty() {
+            format!(
+                "wider coefficients or another structure than {} {}: the rounded controller fails at the rate the spec alone needs",
+                pr.window_format, pr.structure
+            )
+        } else {
+            format!(
+                "a wider number format: {} holds the rate the spec alone needs",
+                wider.join(", ")
+            )
+        });
+    }
+    if let Some(r) = &report.recommended {
+        let answers = report.answers();
+        let lim = answers
+            .iter()
+            .find(|m| {
+                m.method == r.method && m.hold == r.hold && m.compute_delay == r.compute_delay
+            })
+            .and_then(|m| m.limiting)
+            .map_or("", |l| l.label());
+        out.push(format!(
+            "a looser spec: the {lim} is what sets the slowest rate"
+        ));
+    }
+    // Only the CPU ceiling is known at every rate; a format's ceiling was
+    // searched for the design delay alone.
+    let cpu_bound = report.cpu_ceiling_hz == Some(ceiling) && !window.high_bound.is_coefficients();
+    if cpu_bound && let Some(b) = case.budget.as_ref() {
+        out.extend(other_method_advice(case, lp, report, b, ceiling));
+    }
+    let answers = report.answers();
+    let rec_hold = report.recommended.as_ref().map(|r| r.hold);
+    let shorter: Vec<String> = answers
+        .into_iter()
+        .filter(|_| cpu_bound)
+        .filter(|m| Some(m.hold) == rec_hold)
+        .filter(|m| m.compute_delay < report.design_delay)
+        .filter_map(|m| m.slowest_rate_hz.map(|f| (m, f)))
+        .filter(|(_, f)| f * case.spec.headroom <= ceiling)
+        .map(|(m, f)| {
+            format!(
+                "{} at delay {} (f_star {} Hz)",
+                m.method,
+                m.compute_delay,
+                sig4(f)
+            )
+        })
+        .collect();
+    if !shorter.is_empty() {
+        out.push(format!(
+            "a shorter computation delay fits the CPU budget: {}",
+            shorter.join(", ")
+        ));
+    }
+    out
+}
+
+/// The "another method" item of the empty-window advice (CPU-bound window,
+/// continuous controller): a method whose own `f_star` times the headroom
+/// fits under its own CPU ceiling (the update's cost can differ between
+/// methods when cycles are estimated from multiply-accumulates) opens the
+/// window; otherwise, the `f_star` a method would need, the lowest found,
+/// and the methods the case did not try.
+fn other_method_advice(
+    case: &Case,
+    lp: &PreparedLoop,
+    report: &PickReport,
+    b: &crate::spec::Budget,
+    ceiling: f64,
+) -> Option<String> {
+    if case.methods.is_empty() {
+        return None;
+    }
+    let structure = case
+        .arithmetic
+        .as_ref()
+        .map_or(Structure::TransposedDirect, |a| a.structure);
+    let integrators = rounding::design_integrators(&lp.controller);
+    let answers = report.answers();
+    let rec_hold = report.recommended.as_ref().map(|r| r.hold);
+    let at_design: Vec<(Method, f64)> = answers
+        .iter()
+        .filter(|a| a.compute_delay == report.design_delay)
+        .filter(|a| rec_hold.is_none_or(|h| a.hold == h))
+        .filter_map(|a| {
+            let m = case.methods.iter().find(|m| m.name() == a.method)?;
+            Some((*m, a.slowest_rate_hz?))
+        })
+        .collect();
+    let opens: Vec<String> = at_design
+        .iter()
+        .filter(|(m, _)| {
+            report
+                .recommended
+                .as_ref()
+                .is_none_or(|r| r.method != m.name())
+        })
+        .filter_map(|&(m, f)| {
+            let low = f * case.spec.headroom;
+            let c = lp.controller_at(low, Some(m)).ok();
+            let cycles = budget::cycles_per_update(b, c.as_ref(), structure, integrators)?;
+            let high = budget::ceiling_hz(b, cycles);
+            (low <= high).then(|| {
+                format!(
+                    "{} ({:.0} cycles per update): window {} Hz to {} Hz",
+                    m.name(),
+                    cycles,
+                    at_least(low),
+                    at_most(high)
+                )
+            })
+        })
+        .collect();
+    if !opens.is_empty() {
+        return Some(format!(
+            "another method fits the CPU budget with its own update cost: {}",
+            opens.join("; ")
+        ));
+    }
+    // With a timer the rate is rounded up to one the timer makes, so the
+    // top that counts is the fastest timer rate under the ceiling.
+    let top = match b.timer_hz {
+        Some(t) if t >= ceiling => {
+            let n = (t / ceiling).ceil().max(1.0);
+            // Guard against rounding in the division (as in the budget).
+            if t / n > ceiling {
+                t / (n + 1.0)
+            } else {
+                t / n
+            }
+        }
+        _ => ceiling,
+    };
+    let need = top / case.spec.headroom;
+    let lowest = at_design
+        .iter()
+        .min_by(|a, b| a.1.total_cmp(&b.1))
+        .map(|(m, f)| format!("the lowest here is {} at {} Hz", m.name(), sig4(*f)))
+        .unwrap_or_else(|| "no method here has one".into());
+    let untried: Vec<&str> = Method::ALL
+        .iter()
+        .filter(|m| !case.methods.contains(m))
+        .map(|m| m.name())
+        .collect();
+    let untried = if untried.is_empty() {
+        String::new()
+    } else {
+        format!("; not tried: {}", untried.join(", "))
+    };
+    Some(format!(
+        "a method with a lower f_star: at most {} Hz would fit the CPU ceiling with the headroom ({lowest}{untried})",
+        at_most(need)
+    ))
+}
+
+/// Why the recommended hold: the cheapest passing one at the design delay
+/// (lowest `f_star`, ties to the first listed), set against the best
+/// `f_star` of every other hold kind the case lists.
+fn hold_basis(
+    case: &Case,
+    answers: &[SlowestRate],
+    method: &str,
+    hold: HoldKind,
+    f_star: f64,
+    design_delay: f64,
+) -> String {
+    if case.holds.len() < 2 {
+        return format!("{hold}: the only hold kind the case lists");
+    }
+    let others: Vec<String> = case
+        .holds
+        .iter()
+        .filter(|&&h| h != hold)
+        .map(|&h| {
+            let best = answers
+                .iter()
+                .filter(|a| a.hold == h && a.compute_delay == design_delay)
+                .filter_map(|a| a.slowest_rate_hz.map(|f| (a, f)))
+                .min_by(|a, b| a.1.total_cmp(&b.1));
+            match best {
+                Some((a, f)) if f == f_star => format!(
+                    "{h} ties at {} Hz ({}) but is listed later",
+                    sig4(f),
+                    a.method
+                ),
+                Some((a, f)) => format!("{h} needs {} Hz ({})", sig4(f), a.method),
+                None => format!("{h} meets the spec with no method up to max_hz"),
+            }
+        })
+        .collect();
+    format!(
+        "{hold}: the lowest slowest rate at delay {design_delay}, {} Hz with {method}; {}",
+        sig4(f_star),
+        others.join("; ")
+    )
+}

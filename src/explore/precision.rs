@@ -1,0 +1,89 @@
+//! Precision ceilings' verdict at one grid point: the loop with the
+//! controller's coefficients rounded to a number format (see
+//! `model::rounding`) evaluated against the spec, with the structural
+//! failures (integral action lost, a pole rounded onto z = 1, a word too
+//! narrow) as their own verdicts.
+
+use crate::model::rounding::{Damage, design_integrators, quantize};
+use crate::sampled::evaluate::{PlantAt, Point, PreparedLoop};
+use crate::sampled::feasibility::{Assessment, UNSTABLE_SLACK, assess};
+use crate::sampled::figure::Limiting;
+use crate::spec::Spec;
+use crate::spec::{Format, Structure};
+
+/// One number format's verdict at one grid point.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PrecisionPoint {
+    pub format: Format,
+    /// What rounding did; None when the controller could not be built or
+    /// its coefficients do not fit the word (`assessment` says which).
+    pub damage: Option<Damage>,
+    /// The loop with the rounded controller against the spec; a
+    /// structural failure (integral action lost, a pole rounded onto
+    /// z = 1 or out of the unit circle) is infeasible with that name.
+    pub assessment: Assessment,
+    /// Why there is no damage figure (controller not built, or a
+    /// coefficient too large for the word).
+    pub reason: Option<String>,
+}
+
+/// A verdict no figure describes: the coefficients do not fit the word
+/// ([`Limiting::Coefficients`]), the controller cannot be built at this
+/// rate ([`Limiting::Controller`], e.g. `tustin-prewarped` with the
+/// pre-warp frequency at or above Nyquist), or rounding changed what the
+/// controller is.
+fn failed(name: Limiting) -> Assessment {
+    Assessment {
+        feasible: false,
+        limiting: Some(name),
+        slack: UNSTABLE_SLACK,
+        checks: Vec::new(),
+    }
+}
+
+/// Round the controller of point `p` in `structure` and `format` and judge
+/// the loop it makes on `lp` against `spec`; `check_hz` is where the
+/// crossover gain error is measured; `plant`, when given, is `lp`'s plant
+/// side at the point's rate and delay, already built (`hold_at`).
+pub fn judge_point(
+    lp: &PreparedLoop,
+    spec: &Spec,
+    p: &Point,
+    structure: Structure,
+    format: Format,
+    check_hz: Option<f64>,
+    plant: Option<Result<&PlantAt, &str>>,
+) -> PrecisionPoint {
+    let failure = |name: Limiting, reason: String| PrecisionPoint {
+        format,
+        damage: None,
+        assessment: failed(name),
+        reason: Some(reason),
+    };
+    let c = match lp.controller_at(p.rate_hz, p.method) {
+        Ok(c) => c,
+        Err(e) => return failure(Limiting::Controller, e),
+    };
+    let integrators = design_integrators(&lp.controller);
+    let w = check_hz.map(|f| 2.0 * std::f64::consts::PI * f);
+    let q = match quantize(&c, integrators, structure, format, w) {
+        Ok(q) => q,
+        Err(e) => return failure(Limiting::Coefficients, e),
+    };
+    let assessment = match q.damage.structural_failure() {
+        Some(s) => failed(Limiting::Rounding(s)),
+        None => {
+            let e = match plant {
+                Some(h) => lp.sampled_with_on(p, &q.controller, h),
+                None => lp.sampled_with(p, &q.controller),
+            };
+            assess(&e, spec)
+        }
+    };
+    PrecisionPoint {
+        format,
+        damage: Some(q.damage),
+        assessment,
+        reason: None,
+    }
+}

@@ -1,0 +1,333 @@
+//! The rate sweep: every (rate, method, computation delay) point of the
+//! case's grid evaluated in parallel, each with its verdict and CPU load.
+//!
+//! Results come back in grid order whatever the thread count (rayon's
+//! indexed `collect` keeps order, and each point is computed alone), so
+//! the CSV is identical byte for byte for 1 thread or many.
+
+use crate::model::rounding;
+use std::collections::HashMap;
+
+use rayon::prelude::*;
+
+use crate::case::Case;
+use crate::explore::budget;
+use crate::explore::precision::{self, PrecisionPoint};
+use crate::explore::variants::{RobustPoint, VariantSet};
+use crate::model::discretize::Method;
+use crate::sampled::evaluate::{Evaluation, PlantAt, Point, PreparedLoop};
+use crate::sampled::feasibility::{Assessment, assess};
+use crate::spec::HoldKind;
+use crate::spec::{Arithmetic, Budget, Spec};
+use crate::spec::{Format, Structure};
+
+/// One evaluated grid point.
+#[derive(Debug, Clone)]
+pub struct SweepRow {
+    pub point: Point,
+    /// The nominal loop's evaluation and verdict.
+    pub eval: Evaluation,
+    pub assessment: Assessment,
+    /// CPU load at this rate, percent (None without a budget, or when the
+    /// cycles are estimated and the controller could not be built).
+    pub cpu_load_pct: Option<f64>,
+    /// The verdict over every plant variant, when the case has
+    /// `[uncertainty]`.
+    pub robust: Option<RobustPoint>,
+    /// One verdict per number format of `[arithmetic]` other than f64 (the
+    /// reference, whose loop is the nominal one), in case order.
+    pub precision: Vec<PrecisionPoint>,
+}
+
+impl SweepRow {
+    /// Drop what only the row's CSV line needs (the closed-loop poles, the
+    /// list of crossings, each limit's check), once that line is written:
+    /// the search and the charts read the verdicts and the figures only,
+    /// so a long sweep keeps a few hundred bytes per row instead of
+    /// several kilobytes. Every variant's evaluation is kept when asked
+    /// for (`--variants`).
+    pub fn slim(&mut self) {
+        self.eval.closed_loop_poles = Vec::new();
+        self.eval.loop_detail = None;
+        self.assessment.checks = Vec::new();
+        if let Some(r) = &mut self.robust {
+            r.assessment.checks = Vec::new();
+        }
+        for p in &mut self.precision {
+            p.assessment.checks = Vec::new();
+        }
+    }
+}
+
+/// What a sweep evaluates at each point: the nominal loop, and optionally
+/// every plant variant and every coefficient format.
+#[derive(Debug, Clone, Copy)]
+pub struct Plan<'a> {
+    pub lp: &'a PreparedLoop,
+    pub spec: &'a Spec,
+    pub budget: Option<&'a Budget>,
+    pub variants: Option<&'a VariantSet>,
+    pub arithmetic: Option<&'a Arithmetic>,
+    /// Keep every variant's evaluation (for `--variants`).
+    pub keep_variants: bool,
+}
+
+impl<'a> Plan<'a> {
+    /// The nominal loop only.
+    pub fn nominal(lp: &'a PreparedLoop, spec: &'a Spec, budget: Option<&'a Budget>) -> Self {
+        Plan {
+            lp,
+            spec,
+            budget,
+            variants: None,
+            arithmetic: None,
+            keep_variants: false,
+        }
+    }
+
+    /// Everything the case asks for: its variants (when `variants` is
+    /// given) and its `[arithmetic]` formats.
+    pub fn for_case(
+        case: &'a Case,
+        lp: &'a PreparedLoop,
+        variants: Option<&'a VariantSet>,
+    ) -> Self {
+        Plan {
+            lp,
+            spec: &case.spec,
+            budget: case.budget.as_ref(),
+            variants,
+            arithmetic: case.arithmetic.as_ref(),
+            keep_variants: false,
+        }
+    }
+
+    /// The formats actually evaluated (f64 is the reference and skipped).
+    pub fn formats(&self) -> Vec<Format> {
+        self.arithmetic
+            .map(|a| {
+                a.formats
+                    .iter()
+                    .copied()
+                    .filter(|f| *f != Format::F64)
+                    .collect()
+            })
+            .unwrap_or_default()
+    }
+
+    /// Where the rounded controller's gain error is measured: the
+    /// continuous design's crossover, else the nominal loop's at the point.
+    pub fn check_hz(&self, nominal: &Evaluation) -> Option<f64> {
+        self.lp
+            .design
+            .as_ref()
+            .and_then(|d| d.figures.as_ref())
+            .and_then(|f| f.crossover_hz)
+            .or_else(|| nominal.figures.as_ref().and_then(|f| f.crossover_hz))
+    }
+}
+
+/// The grid with a zero-order hold, ordered by method, then delay, then
+/// ascending rate.
+pub fn grid(rates: &[f64], methods: &[Option<Method>], delays: &[f64]) -> Vec<Point> {
+    grid_holds(rates, methods, &[HoldKind::ZeroOrder], delays)
+}
+
+/// The grid, ordered by method, then hold kind, then delay, then
+/// ascending rate.
+pub fn grid_holds(
+    rates: &[f64],
+    methods: &[Option<Method>],
+    holds: &[HoldKind],
+    delays: &[f64],
+) -> Vec<Point> {
+    let mut out = Vec::with_capacity(rates.len() * methods.len() * holds.len() * delays.len());
+    for &method in methods {
+        for &hold in holds {
+            for &delay in delays {
+                for &rate_hz in rates {
+                    out.push(Point {
+                        rate_hz,
+                        method,
+                        delay,
+                        hold,
+                    });
+                }
+            }
+        }
+    }
+    out
+}
+
+/// Evaluate and judge one point.
+pub fn evaluate_row(plan: &Plan, p: &Point) -> SweepRow {
+    evaluate_row_on(plan, p, None)
+}
+
+/// The plant side at one (rate, delay, hold), built once for the methods of a
+/// sweep group: one per plant variant, or only the nominal loop's (index
+/// 0 is always the nominal one).
+struct Plants(Vec<Result<PlantAt, String>>);
+
+impl Plants {
+    fn at(plan: &Plan, p: &Point) -> Plants {
+        Plants(match plan.variants {
+            None => vec![plan.lp.hold_at(p)],
+            Some(v) => v.loops.iter().map(|lp| lp.hold_at(p)).collect(),
+        })
+    }
+
+    /// The nominal loop's plant side.
+    fn nominal(&self) -> Result<&PlantAt, &str> {
+        self.0[0].as_ref().map_err(String::as_str)
+    }
+}
+
+/// `evaluate_row` with the point's plant side already built, or None to
+/// build what is needed here.
+fn evaluate_row_on(plan: &Plan, p: &Point, plants: Option<&Plants>) -> SweepRow {
+    let lp = plan.lp;
+    let controller = lp.controller_at(p.rate_hz, p.method);
+    let (eval, robust) = match plan.variants {
+        Some(v) => {
+            let shared = plants.map(|each| each.0.as_slice());
+            let (e, r) = v.judge(
+                plan.spec,
+                p,
+                controller.as_ref().map_err(String::as_str),
+                plan.keep_variants,
+                shared,
+            );
+            (e, Some(r))
+        }
+        None => match plants {
+            Some(h) => (lp.sampled_on(p, h.nominal()), None),
+            None => (lp.sampled(p), None),
+        },
+    };
+    let assessment = assess(&eval, plan.spec);
+    let structure = plan
+        .arithmetic
+        .map_or(Structure::TransposedDirect, |a| a.structure);
+    let cpu_load_pct = plan.budget.and_then(|b| {
+        let integrators = rounding::design_integrators(&lp.controller);
+        budget::cycles_per_update(b, controller.as_ref().ok(), structure, integrators)
+            .map(|cy| budget::load_pct(b, cy, p.rate_hz))
+    });
+    let check_hz = plan.check_hz(&eval);
+    let nominal_plant = plants.map(Plants::nominal);
+    let precision = plan
+        .formats()
+        .into_par_iter()
+        .map(|f| precision::judge_point(lp, plan.spec, p, structure, f, check_hz, nominal_plant))
+        .collect();
+    SweepRow {
+        point: *p,
+        eval,
+        assessment,
+        cpu_load_pct,
+        robust,
+        precision,
+    }
+}
+
+/// Evaluate every point in parallel on the current rayon pool; `on_done`
+/// is called once per finished point (progress display).
+///
+/// The hold + delay + plant equivalent depends on the rate, the delay and
+/// the hold kind but not on the method, so the points are taken in groups
+/// that share (rate, delay, hold), each group building it once (about 5 % of a point's
+/// work, saved for all methods but one). Each point is still computed
+/// alone from the same inputs, and the rows come back in grid order, so
+/// the results do not depend on the grouping or the thread count.
+pub fn run(plan: &Plan, points: &[Point], on_done: &(dyn Fn() + Sync)) -> Vec<SweepRow> {
+    let mut rows = GridOrder::default();
+    run_streaming(plan, points, on_done, &mut |i, row| rows.push(i, row));
+    rows.finish()
+}
+
+/// Rows received in any order, put in grid order without a second copy.
+///
+/// `push(grid_index, row)` appends; `finish` permutes the rows in place by
+/// following the permutation's cycles (a long sweep keeps one buffer of
+/// rows, not the buffer plus a reordered copy).
+#[derive(Default)]
+pub struct GridOrder {
+    rows: Vec<SweepRow>,
+    index: Vec<usize>,
+}
+
+impl GridOrder {
+    /// Keep `row`, the row of grid point `i`.
+    pub fn push(&mut self, i: usize, row: SweepRow) {
+        self.rows.push(row);
+        self.index.push(i);
+    }
+
+    /// The rows in ascending grid index (the indices must be `0..n`, each
+    /// once, as a sweep delivers them).
+    pub fn finish(self) -> Vec<SweepRow> {
+        let GridOrder { mut rows, index } = self;
+        // `target[k]`: where the row now at position k belongs.
+        let mut target = index;
+        for start in 0..rows.len() {
+            // Follow the cycle through `start`, swapping each row home.
+            while target[start] != start {
+                let t = target[start];
+                if t >= rows.len() {
+                    break;
+                }
+                rows.swap(start, t);
+                target.swap(start, t);
+            }
+        }
+        rows
+    }
+}
+
+/// Groups (of points sharing rate and delay) evaluated in parallel before
+/// their rows are handed on: enough to keep every worker busy, few enough
+/// that the rows in flight stay a small, fixed amount of memory.
+const GROUPS_IN_FLIGHT: usize = 256;
+
+/// [`run`] without keeping the rows: `sink(grid_index, row)` takes each
+/// row on the calling thread as its batch of groups finishes. Groups come
+/// in order of their first point in the grid, so the rows of each
+/// (method, delay) series arrive in ascending grid order, whatever the
+/// thread count (each point is computed alone, from the same inputs).
+pub fn run_streaming(
+    plan: &Plan,
+    points: &[Point],
+    on_done: &(dyn Fn() + Sync),
+    sink: &mut dyn FnMut(usize, SweepRow),
+) {
+    let mut groups: Vec<Vec<usize>> = Vec::new();
+    let mut index: HashMap<(u64, u64, HoldKind), usize> = HashMap::new();
+    for (i, p) in points.iter().enumerate() {
+        let key = (p.rate_hz.to_bits(), p.delay.to_bits(), p.hold);
+        let g = *index.entry(key).or_insert_with(|| {
+            groups.push(Vec::new());
+            groups.len() - 1
+        });
+        groups[g].push(i);
+    }
+    for batch in groups.chunks(GROUPS_IN_FLIGHT) {
+        let done: Vec<Vec<(usize, SweepRow)>> = batch
+            .par_iter()
+            .map(|group| {
+                let plants = Plants::at(plan, &points[group[0]]);
+                group
+                    .iter()
+                    .map(|&i| {
+                        let row = evaluate_row_on(plan, &points[i], Some(&plants));
+                        on_done();
+                        (i, row)
+                    })
+                    .collect()
+            })
+            .collect();
+        for (i, row) in done.into_iter().flatten() {
+            sink(i, row);
+        }
+    }
+}

@@ -1,0 +1,9 @@
+//! Outputs: files written whole or not at all, CSV tables, the terminal
+//! summary, the report, and the charts.
+
+pub mod charts;
+pub mod plot;
+pub mod report;
+pub mod summary;
+pub mod tables;
+pub mod writer;

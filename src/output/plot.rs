@@ -1,0 +1,423 @@
+//! PNG charts for design reviews.
+//!
+//! A [`Figure`] is plain data: one or more [`Panel`]s stacked vertically
+//! that share one x axis, each with its own y axis, data [`Series`],
+//! spec [`Limit`]s (with the infeasible side hatched), vertical markers,
+//! shaded bands and point annotations. [`render_png`] turns it into a PNG
+//! file; [`render_rgb`] gives the pixels instead.
+//!
+//! All drawing is our own, on an RGB buffer: shapes are anti-aliased
+//! through `ab_glyph`'s outline rasterizer and text is laid out with the
+//! embedded font's metrics (module `text`), because plotters 0.3.7's own
+//! text path mis-spaces letters. plotters is used only to encode the
+//! finished buffer as PNG, so no system library (fontconfig, freetype) is
+//! involved and output is identical on every machine.
+
+use crate::error::PlotError;
+
+mod canvas;
+mod palette;
+mod render;
+mod scale;
+mod style;
+mod text;
+
+use std::path::{Path, PathBuf};
+use std::sync::atomic::{AtomicU64, Ordering};
+
+pub use canvas::Rgb;
+pub use style::PALETTE_LEN;
+
+/// Smallest accepted figure side, in pixels.
+pub const MIN_SIDE: u32 = 64;
+/// Largest accepted figure side, in pixels.
+pub const MAX_SIDE: u32 = 10_000;
+/// Largest accepted pixel count (keeps memory use bounded).
+pub const MAX_PIXELS: u64 = 40_000_000;
+
+/// A chart: panels stacked top to bottom sharing the x axis.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Figure {
+    /// Title across the top; empty for none.
+    pub title: String,
+    /// Image width in pixels.
+    pub width: u32,
+    /// Image height in pixels.
+    pub height: u32,
+    /// Panels from top to bottom.
+    pub panels: Vec<Panel>,
+    /// The shared x axis; its label and tick labels appear under the
+    /// bottom panel only.
+    pub x: Axis,
+    /// A small footer line (e.g. the case file and tool version).
+    pub note: Option<String>,
+}
+
+impl Figure {
+    /// A 1600x1000 figure with no panels yet.
+    pub fn new(title: impl Into<String>, x: Axis) -> Self {
+        Figure {
+            title: title.into(),
+            width: 1600,
+            height: 1000,
+            panels: Vec::new(),
+            x,
+            note: None,
+        }
+    }
+
+    /// Add a panel below the existing ones.
+    pub fn with_panel(mut self, panel: Panel) -> Self {
+        self.panels.push(panel);
+        self
+    }
+
+    /// Set the image size in pixels.
+    pub fn with_size(mut self, width: u32, height: u32) -> Self {
+        self.width = width;
+        self.height = height;
+        self
+    }
+
+    /// Set the footer line.
+    pub fn with_note(mut self, note: impl Into<String>) -> Self {
+        self.note = Some(note.into());
+        self
+    }
+}
+
+/// One axis: its label (with units) and scale.
+#[derive(Debug, Clone, PartialEq, Default)]
+pub struct Axis {
+    /// Label with units, e.g. "loop rate (Hz)".
+    pub label: String,
+    /// Logarithmic (decades) instead of linear.
+    pub log: bool,
+    /// Visible range; `None` fits the data. A reversed pair is swapped
+    /// and a zero-width one widened.
+    pub range: Option<(f64, f64)>,
+}
+
+impl Axis {
+    /// A linear axis fitted to the data.
+    pub fn linear(label: impl Into<String>) -> Self {
+        Axis {
+            label: label.into(),
+            log: false,
+            range: None,
+        }
+    }
+
+    /// A logarithmic axis fitted to the data.
+    pub fn log(label: impl Into<String>) -> Self {
+        Axis {
+            label: label.into(),
+            log: true,
+            range: None,
+        }
+    }
+
+    /// Fix the visible range.
+    pub fn with_range(mut self, lo: f64, hi: f64) -> Self {
+        self.range = Some((lo, hi));
+        self
+    }
+}
+
+/// One panel: a y axis and everything drawn against it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Panel {
+    pub y: Axis,
+    pub series: Vec<Series>,
+    /// Spec limits drawn as horizontal lines with the bad side hatched.
+    pub limits: Vec<Limit>,
+    /// Labelled vertical lines (e.g. the chosen rate).
+    pub vmarks: Vec<VMark>,
+    /// Shaded x intervals (e.g. a feasible rate window).
+    pub bands: Vec<XBand>,
+    /// Shaded y intervals (e.g. a settling band).
+    pub hbands: Vec<YBand>,
+    /// Text labels pointing at data coordinates.
+    pub notes: Vec<Annotation>,
+    /// Relative height among the panels (non-positive or non-finite = 1).
+    pub height_weight: f64,
+}
+
+impl Default for Panel {
+    fn default() -> Self {
+        Panel {
+            y: Axis::default(),
+            series: Vec::new(),
+            limits: Vec::new(),
+            vmarks: Vec::new(),
+            bands: Vec::new(),
+            hbands: Vec::new(),
+            notes: Vec::new(),
+            height_weight: 1.0,
+        }
+    }
+}
+
+impl Panel {
+    /// An empty panel with the given y axis and weight 1.
+    pub fn new(y: Axis) -> Self {
+        Panel {
+            y,
+            ..Panel::default()
+        }
+    }
+}
+
+/// A data series.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Series {
+    /// Legend text; empty keeps the series out of the legend.
+    pub label: String,
+    /// `(x, y)` points in drawing order. A point with a NaN or infinite
+    /// coordinate (or a non-positive one on a log axis) breaks the line.
+    pub points: Vec<(f64, f64)>,
+    pub style: SeriesStyle,
+    pub draw: Draw,
+}
+
+impl Series {
+    /// A series drawn as a line in palette entry `style`.
+    pub fn line(label: impl Into<String>, points: Vec<(f64, f64)>, style: usize) -> Self {
+        Series {
+            label: label.into(),
+            points,
+            style: SeriesStyle(style),
+            draw: Draw::Line,
+        }
+    }
+
+    /// Change how the points are drawn.
+    pub fn drawn(mut self, draw: Draw) -> Self {
+        self.draw = draw;
+        self
+    }
+}
+
+/// An index into the built-in palette (taken modulo [`PALETTE_LEN`]).
+/// Each entry pairs a colour with its own dash pattern and marker shape,
+/// so series stay distinguishable in greyscale and for colour-blind
+/// readers.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub struct SeriesStyle(pub usize);
+
+/// How a series' points are drawn.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum Draw {
+    /// Straight segments between points.
+    #[default]
+    Line,
+    /// A marker at each point, no line.
+    Markers,
+    /// Segments and a marker at each point.
+    LineAndMarkers,
+    /// A staircase: each value holds until the next point's x (as a
+    /// zero-order hold does), then jumps.
+    Steps,
+}
+
+/// Which side of a limit is infeasible.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Side {
+    Above,
+    Below,
+}
+
+/// A horizontal spec limit.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Limit {
+    pub value: f64,
+    /// The infeasible side, which gets a light hatch.
+    pub bad_side: Side,
+    pub label: String,
+}
+
+impl Limit {
+    /// A limit at `value` whose `bad_side` is infeasible.
+    pub fn new(value: f64, bad_side: Side, label: impl Into<String>) -> Self {
+        Limit {
+            value,
+            bad_side,
+            label: label.into(),
+        }
+    }
+}
+
+/// Line style of a vertical marker.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum MarkStyle {
+    #[default]
+    Solid,
+    Dashed,
+    Dotted,
+}
+
+/// A labelled vertical line at `x`.
+#[derive(Debug, Clone, PartialEq)]
+pub struct VMark {
+    pub x: f64,
+    pub label: String,
+    pub style: MarkStyle,
+}
+
+impl VMark {
+    /// A vertical marker.
+    pub fn new(x: f64, label: impl Into<String>, style: MarkStyle) -> Self {
+        VMark {
+            x,
+            label: label.into(),
+            style,
+        }
+    }
+}
+
+/// A shaded x interval; an infinite end runs to the plot edge.
+#[derive(Debug, Clone, PartialEq)]
+pub struct XBand {
+    pub from: f64,
+    pub to: f64,
+    pub label: String,
+}
+
+impl XBand {
+    /// A shaded x interval.
+    pub fn new(from: f64, to: f64, label: impl Into<String>) -> Self {
+        XBand {
+            from,
+            to,
+            label: label.into(),
+        }
+    }
+}
+
+/// A shaded y interval; an infinite end runs to the plot edge.
+#[derive(Debug, Clone, PartialEq)]
+pub struct YBand {
+    pub from: f64,
+    pub to: f64,
+    pub label: String,
+}
+
+impl YBand {
+    /// A shaded y interval.
+    pub fn new(from: f64, to: f64, label: impl Into<String>) -> Self {
+        YBand {
+            from,
+            to,
+            label: label.into(),
+        }
+    }
+}
+
+/// A text label with a dot and a short pointer at data coordinates.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Annotation {
+    pub x: f64,
+    pub y: f64,
+    pub text: String,
+}
+
+impl Annotation {
+    /// A note at `(x, y)`.
+    pub fn new(x: f64, y: f64, text: impl Into<String>) -> Self {
+        Annotation {
+            x,
+            y,
+            text: text.into(),
+        }
+    }
+}
+
+/// Draw `fig` and return its pixels: `(width, height, rgb)` with rows
+/// top to bottom, three bytes per pixel.
+pub fn render_rgb(fig: &Figure) -> Result<(u32, u32, Vec<u8>), PlotError> {
+    let canvas = render::render(fig)?;
+    let (w, h) = (canvas.width(), canvas.height());
+    Ok((w, h, canvas.pixels().to_vec()))
+}
+
+/// Draw `fig` and encode it as PNG in memory (the bytes a report embeds
+/// are the bytes written, never a file read back). `name` is only used in
+/// an encoder error.
+pub fn render_png_bytes(fig: &Figure, name: &Path) -> Result<Vec<u8>, PlotError> {
+    use image::ImageEncoder;
+    let canvas = render::render(fig)?;
+    let mut out = Vec::new();
+    image::codecs::png::PngEncoder::new(&mut out)
+        .write_image(
+            canvas.pixels(),
+            canvas.width(),
+            canvas.height(),
+            image::ColorType::Rgb8,
+        )
+        .map_err(|e| PlotError::Encode {
+            path: name.to_path_buf(),
+            message: e.to_string(),
+        })?;
+    Ok(out)
+}
+
+/// Draw `fig` and write it to `path` as PNG.
+///
+/// The image is encoded into a temporary file in the same directory and
+/// then renamed over `path`, so a failure never leaves a half-written
+/// PNG behind (and an existing file stays untouched).
+pub fn render_png(fig: &Figure, path: &Path) -> Result<(), PlotError> {
+    let canvas = render::render(fig)?;
+    let dir = match path.parent() {
+        Some(d) if !d.as_os_str().is_empty() => d,
+        _ => Path::new("."),
+    };
+    // Report a missing directory plainly rather than as an encoder error.
+    std::fs::metadata(dir).map_err(|source| PlotError::Io {
+        path: path.to_path_buf(),
+        source,
+    })?;
+    let tmp = temp_path(path);
+    let result = encode_png(&canvas, &tmp).and_then(|()| {
+        std::fs::rename(&tmp, path).map_err(|source| PlotError::Io {
+            path: path.to_path_buf(),
+            source,
+        })
+    });
+    if result.is_err() {
+        // Best effort: the temporary file may not even exist.
+        let _ = std::fs::remove_file(&tmp);
+    }
+    result
+}
+
+/// A hidden, unique sibling of `path` ending in `.png` (the encoder picks
+/// the format from the extension).
+fn temp_path(path: &Path) -> PathBuf {
+    static COUNTER: AtomicU64 = AtomicU64::new(0);
+    let n = COUNTER.fetch_add(1, Ordering::Relaxed);
+    let name = path
+        .file_name()
+        .map(|s| s.to_string_lossy().into_owned())
+        .unwrap_or_else(|| "figure".into());
+    let tmp_name = format!(".{name}.{}-{n}.tmp.png", std::process::id());
+    match path.parent() {
+        Some(dir) if !dir.as_os_str().is_empty() => dir.join(tmp_name),
+        _ => PathBuf::from(tmp_name),
+    }
+}
+
+/// Encode the canvas as a palette PNG at `path` (see `palette`: the
+/// charts' flat colours kept exactly, a fifth of the size of RGB).
+fn encode_png(canvas: &canvas::Canvas, path: &Path) -> Result<(), PlotError> {
+    let bytes = palette::encode_indexed(canvas.width(), canvas.height(), canvas.pixels()).map_err(
+        |message| PlotError::Encode {
+            path: path.to_path_buf(),
+            message,
+        },
+    )?;
+    std::fs::write(path, bytes).map_err(|source| PlotError::Io {
+        path: path.to_path_buf(),
+        source,
+    })
+}

@@ -1,0 +1,380 @@
+//! Chart text, laid out with the embedded font's own metrics.
+//!
+//! plotters 0.3.7's pure-Rust text path drops each glyph's left side
+//! bearing, which makes words fall apart ("con tinuous"). Every string on
+//! our charts is therefore laid out here instead: the caret advances by
+//! each glyph's advance width plus pair kerning, and each glyph outline is
+//! rasterized at its true position (the outline carries the side bearing).
+//! The result is a coverage mask that is blended into the canvas either
+//! horizontally or turned a quarter turn (for y-axis labels).
+
+use ab_glyph::{Font, FontRef, Glyph, PxScale, ScaleFont, point};
+
+use super::canvas::{Canvas, Rect, Rgb};
+use crate::error::PlotError;
+
+/// DejaVu Sans, cut down to the characters charts need
+/// (see `assets/fonts/make-subset.sh`).
+static FONT_BYTES: &[u8] = include_bytes!("../../../assets/fonts/DejaVuSans-subset.ttf");
+
+/// Horizontal anchor: which point of the text's box sits on the anchor.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) enum HAlign {
+    Left,
+    Center,
+    Right,
+}
+
+/// Vertical anchor, measured on the font's line box (ascent to descent).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) enum VAlign {
+    Top,
+    Middle,
+    Bottom,
+}
+
+/// How a string is drawn: size is the em size in pixels.
+#[derive(Debug, Clone, Copy)]
+pub(crate) struct TextStyle {
+    pub size: f64,
+    pub color: Rgb,
+    pub h: HAlign,
+    pub v: VAlign,
+    /// Turned a quarter turn anticlockwise, reading bottom to top.
+    pub rotated: bool,
+}
+
+impl TextStyle {
+    pub fn new(size: f64, color: Rgb) -> Self {
+        TextStyle {
+            size,
+            color,
+            h: HAlign::Left,
+            v: VAlign::Top,
+            rotated: false,
+        }
+    }
+
+    pub fn anchor(mut self, h: HAlign, v: VAlign) -> Self {
+        self.h = h;
+        self.v = v;
+        self
+    }
+
+    pub fn rotated(mut self) -> Self {
+        self.rotated = true;
+        self
+    }
+}
+
+/// A string laid out on a baseline starting at x = 0, y = 0 (y down).
+pub(crate) struct Layout {
+    pub glyphs: Vec<Glyph>,
+    /// Sum of advances and kerning: the logical width.
+    pub width: f64,
+    /// Distance from baseline up to the top of the line box (positive).
+    pub ascent: f64,
+    /// Distance from baseline down to the bottom of the line box (positive).
+    pub descent: f64,
+}
+
+/// A coverage mask of rendered text and where the layout origin sits in it.
+pub(crate) struct Mask {
+    pub w: usize,
+    pub h: usize,
+    pub cov: Vec<f32>,
+    /// Mask column of the layout origin (caret start).
+    pub origin_x: i64,
+    /// Mask row of the baseline.
+    pub baseline_y: i64,
+}
+
+/// The chart font and text operations on it.
+pub(crate) struct TextFont {
+    font: FontRef<'static>,
+    /// Converts an em size in pixels to ab_glyph's scale, which is the
+    /// pixel height of ascent minus descent.
+    em_to_scale: f32,
+}
+
+impl TextFont {
+    /// The embedded font. Fails only if the bundled file is damaged.
+    pub fn embedded() -> Result<Self, PlotError> {
+        let font =
+            FontRef::try_from_slice(FONT_BYTES).map_err(|e| PlotError::Font(e.to_string()))?;
+        let upem = font
+            .units_per_em()
+            .ok_or_else(|| PlotError::Font("font has no units per em".into()))?;
+        let em_to_scale = font.height_unscaled() / upem;
+        Ok(TextFont { font, em_to_scale })
+    }
+
+    fn scale(&self, size: f64) -> PxScale {
+        PxScale::from((size.max(1.0) as f32) * self.em_to_scale)
+    }
+
+    /// Lay out one line: advances, side bearings (through the outlines)
+    /// and pair kerning from the font's `kern` table. Control characters
+    /// are skipped; characters missing from the font show the font's
+    /// missing-glyph box.
+    pub fn layout(&self, text: &str, size: f64) -> Layout {
+        let scale = self.scale(size);
+        let sf = self.font.as_scaled(scale);
+        let mut caret = 0.0_f32;
+        let mut prev = None;
+        let mut glyphs = Vec::new();
+        for ch in text.chars().filter(|c| !c.is_control()) {
+            let id = sf.glyph_id(ch);
+            if let Some(p) = prev {
+                caret += sf.kern(p, id);
+            }
+            glyphs.push(id.with_scale_and_position(scale, point(caret, 0.0)));
+            caret += sf.h_advance(id);
+            prev = Some(id);
+        }
+        Layout {
+            glyphs,
+            width: f64::from(caret),
+            ascent: f64::from(sf.ascent()),
+            descent: f64::from(-sf.descent()),
+        }
+    }
+
+    /// Logical width of `text` at `size`.
+    pub fn width(&self, text: &str, size: f64) -> f64 {
+        self.layout(text, size).width
+    }
+
+    /// Height of the line box at `size`.
+    pub fn line_height(&self, size: f64) -> f64 {
+        let sf = self.font.as_scaled(self.scale(size));
+        f64::from(sf.ascent() - sf.descent())
+    }
+
+    /// Rasterize a layout into a coverage mask.
+    pub fn rasterize(&self, layout: &Layout) -> Mask {
+        let outlined: Vec<_> = layout
+            .glyphs
+            .iter()
+            .filter_map(|g| self.font.outline_glyph(g.clone()))
+            .collect();
+        let (mut x0, mut y0) = (0.0_f32, -layout.ascent as f32);
+        let (mut x1, mut y1) = (layout.width as f32, layout.descent as f32);
+        for og in &outlined {
+            let b = og.px_bounds();
+            x0 = x0.min(b.min.x);
+            y0 = y0.min(b.min.y);
+            x1 = x1.max(b.max.x);
+            y1 = y1.max(b.max.y);
+        }
+        let (x0, y0) = (x0.floor() as i64 - 1, y0.floor() as i64 - 1);
+        let (x1, y1) = (x1.ceil() as i64 + 1, y1.ceil() as i64 + 1);
+        let w = (x1 - x0).max(1) as usize;
+        let h = (y1 - y0).max(1) as usize;
+        let mut cov = vec![0.0_f32; w * h];
+        for og in &outlined {
+            let b = og.px_bounds();
+            let (bx, by) = (b.min.x as i64 - x0, b.min.y as i64 - y0);
+            og.draw(|x, y, c| {
+                let (mx, my) = (bx + i64::from(x), by + i64::from(y));
+                if mx >= 0 && my >= 0 && (mx as usize) < w && (my as usize) < h {
+                    let i = my as usize * w + mx as usize;
+                    cov[i] = (cov[i] + c).min(1.0);
+                }
+            });
+        }
+        Mask {
+            w,
+            h,
+            cov,
+            origin_x: -x0,
+            baseline_y: -y0,
+        }
+    }
+
+    /// Where the layout origin (caret start on the baseline) goes so that
+    /// the anchor lands on `(x, y)`, rounded to whole pixels for crisp
+    /// text; also the canvas rectangle of the line box.
+    fn place(&self, layout: &Layout, x: f64, y: f64, st: &TextStyle) -> ((i64, i64), Rect) {
+        let ax = match st.h {
+            HAlign::Left => 0.0,
+            HAlign::Center => layout.width / 2.0,
+            HAlign::Right => layout.width,
+        };
+        // Offset from the baseline, y down.
+        let ay = match st.v {
+            VAlign::Top => -layout.ascent,
+            VAlign::Middle => (layout.descent - layout.ascent) / 2.0,
+            VAlign::Bottom => layout.descent,
+        };
+        if st.rotated {
+            // Text frame (tx, ty) maps to canvas (ox + ty, oy - tx).
+            let ox = (x - ay).round();
+            let oy = (y + ax).round();
+            let r = Rect::new(
+                ox - layout.ascent,
+                oy - layout.width,
+                ox + layout.descent,
+                oy,
+            );
+            ((ox as i64, oy as i64), r)
+        } else {
+            let ox = (x - ax).round();
+            let oy = (y - ay).round();
+            let r = Rect::new(
+                ox,
+                oy - layout.ascent,
+                ox + layout.width,
+                oy + layout.descent,
+            );
+            ((ox as i64, oy as i64), r)
+        }
+    }
+
+    /// The canvas rectangle `text` would occupy if drawn with `st` at
+    /// `(x, y)`, without drawing it.
+    pub fn bounds(&self, text: &str, x: f64, y: f64, st: &TextStyle) -> Rect {
+        let layout = self.layout(text, st.size);
+        self.place(&layout, x, y, st).1
+    }
+
+    /// Draw `text` anchored at `(x, y)`; returns its line-box rectangle.
+    pub fn draw(&self, canvas: &mut Canvas, text: &str, x: f64, y: f64, st: &TextStyle) -> Rect {
+        let layout = self.layout(text, st.size);
+        let ((ox, oy), rect) = self.place(&layout, x, y, st);
+        if layout.glyphs.is_empty() {
+            return rect;
+        }
+        let mask = self.rasterize(&layout);
+        for my in 0..mask.h {
+            for mx in 0..mask.w {
+                let c = mask.cov[my * mask.w + mx];
+                if c <= 0.0 {
+                    continue;
+                }
+                // Text-frame pixel relative to the origin.
+                let tx = mx as i64 - mask.origin_x;
+                let ty = my as i64 - mask.baseline_y;
+                let (px, py) = if st.rotated {
+                    (ox + ty, oy - tx - 1)
+                } else {
+                    (ox + tx, oy + ty)
+                };
+                canvas.blend(px, py, st.color, c);
+            }
+        }
+        rect
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Columns of a mask that hold visible ink.
+    fn ink_columns(mask: &Mask) -> Vec<bool> {
+        (0..mask.w)
+            .map(|x| (0..mask.h).any(|y| mask.cov[y * mask.w + x] > 0.25))
+            .collect()
+    }
+
+    #[test]
+    fn letters_in_a_word_are_evenly_spaced() {
+        let font = TextFont::embedded().unwrap();
+        for size in [14.0, 20.0, 22.0, 32.0] {
+            let layout = font.layout("continuous", size);
+            // Glyph ink boxes from the outlines, in layout order.
+            let boxes: Vec<(f32, f32)> = layout
+                .glyphs
+                .iter()
+                .map(|g| {
+                    let og = font.font.outline_glyph(g.clone()).unwrap();
+                    let b = og.px_bounds();
+                    (b.min.x, b.max.x)
+                })
+                .collect();
+            let gaps: Vec<f64> = boxes
+                .windows(2)
+                .map(|w| f64::from(w[1].0 - w[0].1))
+                .collect();
+            let max_gap = gaps.iter().cloned().fold(f64::MIN, f64::max);
+            assert!(
+                max_gap < 0.35 * size,
+                "size {size}: gap {max_gap} px between letters of one word, gaps {gaps:?}"
+            );
+            // Overlap of the conservative pixel boxes by more than a
+            // pixel would mean letters are drawn on top of each other.
+            assert!(gaps.iter().all(|g| *g > -2.0), "size {size}: {gaps:?}");
+
+            // The rendered pixels agree: no run of empty columns inside
+            // the word is wider than 0.35 em.
+            let cols = ink_columns(&font.rasterize(&layout));
+            let first = cols.iter().position(|c| *c).unwrap();
+            let last = cols.iter().rposition(|c| *c).unwrap();
+            let mut run = 0usize;
+            let mut widest = 0usize;
+            for c in &cols[first..=last] {
+                run = if *c { 0 } else { run + 1 };
+                widest = widest.max(run);
+            }
+            assert!(
+                (widest as f64) < 0.35 * size,
+                "size {size}: blank run of {widest} px inside the word"
+            );
+        }
+    }
+
+    #[test]
+    fn kerning_is_applied() {
+        let font = TextFont::embedded().unwrap();
+        // "AV" kerns tighter than the sum of its advances in DejaVu Sans.
+        let pair = font.width("AV", 40.0);
+        let apart = font.width("A", 40.0) + font.width("V", 40.0);
+        assert!(pair < apart - 0.5, "AV {pair} vs A+V {apart}");
+    }
+
+    #[test]
+    fn anchors_and_rotation_place_the_box() {
+        let font = TextFont::embedded().unwrap();
+        let st = TextStyle::new(20.0, Rgb(0, 0, 0)).anchor(HAlign::Right, VAlign::Middle);
+        let r = font.bounds("10k", 100.0, 50.0, &st);
+        assert!((r.x1 - 100.0).abs() <= 1.0);
+        assert!(((r.y0 + r.y1) / 2.0 - 50.0).abs() <= 1.0);
+        let rot = st.anchor(HAlign::Center, VAlign::Top).rotated();
+        let r = font.bounds("gain (dB)", 30.0, 200.0, &rot);
+        assert!(r.height() > r.x1 - r.x0, "rotated text is tall: {r:?}");
+        assert!((r.x0 - 30.0).abs() <= 1.0);
+        assert!(((r.y0 + r.y1) / 2.0 - 200.0).abs() <= 1.0);
+    }
+
+    #[test]
+    fn drawing_marks_the_canvas_where_the_box_is() {
+        let font = TextFont::embedded().unwrap();
+        for rotated in [false, true] {
+            let mut c = Canvas::new(200, 200, Rgb(255, 255, 255));
+            let mut st = TextStyle::new(20.0, Rgb(0, 0, 0)).anchor(HAlign::Center, VAlign::Middle);
+            if rotated {
+                st = st.rotated();
+            }
+            let r = font.draw(&mut c, "Hello", 100.0, 100.0, &st);
+            let mut ink = (f64::MAX, f64::MAX, f64::MIN, f64::MIN);
+            for y in 0..200usize {
+                for x in 0..200usize {
+                    if c.pixels()[(y * 200 + x) * 3] < 128 {
+                        ink = (
+                            ink.0.min(x as f64),
+                            ink.1.min(y as f64),
+                            ink.2.max(x as f64),
+                            ink.3.max(y as f64),
+                        );
+                    }
+                }
+            }
+            let grown = r.expand(2.0);
+            assert!(
+                ink.0 >= grown.x0 && ink.2 <= grown.x1 && ink.1 >= grown.y0 && ink.3 <= grown.y1,
+                "rotated={rotated}: ink {ink:?} outside box {r:?}"
+            );
+        }
+    }
+}

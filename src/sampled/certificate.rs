@@ -1,0 +1,380 @@
+//! Proofs that a running simulation of the closed sampled loop can stop:
+//! bounds on every later output point's and command's distance from its
+//! final value, from the current state error `dz = z_k - z_final` alone.
+//!
+//! Two bounds are kept and the smaller is used (both are valid, so their
+//! minimum is too):
+//!
+//! - **Modal**: with `A = V diag(lambda) V^{-1}` (distinct, well-conditioned
+//!   eigenvectors), the state error after `m` more periods is
+//!   `sum_i v_i lambda_i^m (u_i . dz)`, `u_i` the rows of `V^{-1}`. Every
+//!   later output point `g_j . A^m dz` is then at most
+//!   `sum_i max_j |g_j . v_i| |u_i . dz|` in size, because `|lambda_i| < 1`.
+//!   This is within a small factor (the number of modes) of the true
+//!   largest later deviation, so a run stops soon after its figures are
+//!   fixed.
+//! - **Output energy** (always built when the loop is stable): with the
+//!   Gramian `P = sum_m (A^m)' Q A^m`, `Q` the sum of the output rows'
+//!   outer products, `sqrt(dz' P dz)` is the energy of all later output
+//!   deviations, so it bounds each. Looser than the modal bound when a
+//!   slow mode is lightly damped (the energy sums many periods), but it
+//!   needs no eigenvectors; it is the fallback when the eigenvector matrix
+//!   is ill-conditioned or a mode is defective.
+//!
+//! Both are computed in floating point, so each is widened by a margin that
+//! covers the eigenvector residuals and the rounding of the simulation
+//! itself (relative 1e-6 and absolute terms of order 1e-10 of the output's
+//! scale); the figures are those of the full simulation whenever the bound
+//! is honoured, which the tests check against full-horizon runs.
+
+use nalgebra::{DMatrix, DVector};
+
+use crate::model::matrix::balancing_scale;
+use crate::model::poly::C64;
+use crate::sampled::closed_loop::ClosedLoop;
+
+/// Largest accepted eigenvalue condition number `|u_i| |v_i|` (with
+/// `u_i . v_i = 1`) for the modal bound; above it the eigenvector matrix is
+/// too ill-conditioned for the bound to be both valid and useful.
+const MAX_MODE_CONDITION: f64 = 1e6;
+
+/// Largest accepted residual of the modal decomposition, relative
+/// (`|A v - lambda v| / (|A| |v|)` and `|u_i . v_j - delta_ij|`).
+const MAX_MODAL_RESIDUAL: f64 = 1e-9;
+
+/// Relative widening of the modal bound (covers residuals up to
+/// `MAX_MODAL_RESIDUAL` times the condition, propagated over any horizon).
+const MODAL_WIDENING: f64 = 1e-6;
+
+/// Output rows of the loop a certificate bounds: every output point inside
+/// a period `g_j . z`, and the two commands a period holds (`ku . z` and
+/// `z[n]`), in loop coordinates.
+pub struct BoundedRows<'a> {
+    /// Output rows, row-major, `points x dim`.
+    pub g: &'a [f64],
+    pub points: usize,
+    /// Command row `u_k = ku . z + ...`.
+    pub ku: &'a [f64],
+    /// Index of the held command `u_{k-1}` in the state.
+    pub held: usize,
+}
+
+/// A stop certificate for one closed loop (see the module doc).
+#[derive(Debug, Clone)]
+pub struct Certificate {
+    /// Output-energy Gramian, row-major `dim x dim` (None when the doubling
+    /// iteration did not converge).
+    gramian: Option<Vec<f64>>,
+    modal: Option<ModalBound>,
+    dim: usize,
+}
+
+/// The modal bound's data: one entry per real mode or conjugate pair.
+#[derive(Debug, Clone)]
+struct ModalBound {
+    /// Left eigenvector of each kept mode (row of `V^{-1}`), row-major
+    /// `modes x dim`.
+    left: Vec<C64>,
+    /// Per kept mode: `max_j |g_j . v_i|` (times 2 for a conjugate pair,
+    /// whose partner contributes the same amount).
+    cy: Vec<f64>,
+    /// Per kept mode: `max(|ku . v_i|, |v_i[held]|)` (times 2 for a pair).
+    cu: Vec<f64>,
+}
+
+impl Certificate {
+    /// Build the certificate of a stable loop with poles `poles` (the
+    /// eigenvalues of `cl.a`); None when neither bound can be built (then
+    /// the pole-based horizon rules).
+    pub fn new(cl: &ClosedLoop, rows: &BoundedRows, poles: &[C64]) -> Option<Certificate> {
+        let dim = cl.a.nrows();
+        let modal = ModalBound::new(&cl.a, rows, poles);
+        // The energy bound is only the fallback: not built when the modal
+        // bound (tighter in practice) is available.
+        let gramian = if modal.is_none() {
+            gramian(cl, rows)
+        } else {
+            None
+        };
+        if gramian.is_none() && modal.is_none() {
+            return None;
+        }
+        Some(Certificate {
+            gramian,
+            modal,
+            dim,
+        })
+    }
+
+    /// True when the modal bound is in use (tests and diagnostics).
+    pub fn is_modal(&self) -> bool {
+        self.modal.is_some()
+    }
+
+    /// Bounds `(y, u)` on every later `|g_j . dz_later|` and every later
+    /// command deviation `|ku . dz_later|`, `|dz_later[held]|`, from the
+    /// state error `dz` now (before the margins for rounding that the
+    /// caller adds).
+    pub fn bound(&self, dz: &[f64]) -> (f64, f64) {
+        if let Some(m) = &self.modal {
+            return m.bound(dz);
+        }
+        let mut by = f64::INFINITY;
+        let mut bu = f64::INFINITY;
+        if let Some(p) = &self.gramian {
+            let n = self.dim;
+            let mut v = 0.0;
+            for i in 0..n {
+                let row = &p[i * n..(i + 1) * n];
+                let pi: f64 = row.iter().zip(dz).map(|(a, b)| a * b).sum();
+                v += pi * dz[i];
+            }
+            let e = v.max(0.0).sqrt();
+            by = by.min(e);
+            bu = bu.min(e);
+        }
+        (by, bu)
+    }
+}
+
+/// The output-energy Gramian by doubling: `P <- P + (A^m)' P A^m`,
+/// `A^m <- (A^m)^2`, until `A^m` has vanished; `Q` weights every output
+/// point and the two commands, so `sqrt(dz' P dz)` bounds each later one.
+fn gramian(cl: &ClosedLoop, rows: &BoundedRows) -> Option<Vec<f64>> {
+    let dim = cl.a.nrows();
+    let g = DMatrix::from_row_slice(rows.points, dim, rows.g);
+    let ku = DVector::from_column_slice(rows.ku);
+    let mut p = g.transpose() * &g + &ku * ku.transpose();
+    p[(rows.held, rows.held)] += 1.0;
+    let mut am = cl.a.clone();
+    for _ in 0..64 {
+        let next = &p + am.transpose() * &p * &am;
+        am = &am * &am;
+        p = next;
+        if !p.iter().all(|v| v.is_finite()) {
+            return None;
+        }
+        if am.amax() < 1e-14 {
+            return Some((0..dim * dim).map(|i| p[(i / dim, i % dim)]).collect());
+        }
+    }
+    None
+}
+
+impl ModalBound {
+    /// Right and left eigenvectors by inverse iteration at each pole;
+    /// None when a mode is defective or ill-conditioned, or any residual
+    /// check fails.
+    fn new(a: &DMatrix<f64>, rows: &BoundedRows, poles: &[C64]) -> Option<ModalBound> {
+        let dim = a.nrows();
+        if poles.len() != dim || dim == 0 {
+            return None;
+        }
+        // Work on the balanced matrix D^{-1} A D (exact power-of-two
+        // scaling), where residuals and conditioning mean something; map
+        // the vectors back at the end (v = D v_b, u = D^{-1} u_b).
+        let t = balancing_scale(a);
+        let ab = |i: usize, j: usize| a[(i, j)] * t[j] / t[i];
+        let mut anorm = 0.0f64;
+        for i in 0..dim {
+            for j in 0..dim {
+                anorm = anorm.max(ab(i, j).abs());
+            }
+        }
+        let anorm = anorm.max(1e-300);
+        let ac: Vec<C64> = (0..dim * dim)
+            .map(|i| C64::new(ab(i / dim, i % dim), 0.0))
+            .collect();
+        let at: Vec<C64> = (0..dim * dim)
+            .map(|i| C64::new(ab(i % dim, i / dim), 0.0))
+            .collect();
+        let mut right: Vec<Vec<C64>> = Vec::with_capacity(dim);
+        let mut left: Vec<Vec<C64>> = Vec::with_capacity(dim);
+        for (i, &lambda) in poles.iter().enumerate() {
+            // The partner of a conjugate pair already seen: conjugate vectors.
+            let seen = (lambda.im != 0.0)
+                .then(|| (0..i).find(|&j| (poles[j] - lambda.conj()).norm_sqr() == 0.0))
+                .flatten();
+            if let Some(j) = seen {
+                let v: Vec<C64> = right[j].iter().map(|x: &C64| x.conj()).collect();
+                let u: Vec<C64> = left[j].iter().map(|x: &C64| x.conj()).collect();
+                right.push(v);
+                left.push(u);
+            } else {
+                right.push(eigenvector(&ac, dim, lambda, anorm)?);
+                left.push(eigenvector(&at, dim, lambda, anorm)?);
+            }
+        }
+        // Normalise u_i . v_i = 1 (plain transpose: u_i' A = lambda_i u_i').
+        for (u, v) in left.iter_mut().zip(&right) {
+            let s: C64 = u.iter().zip(v).map(|(a, b)| a * b).sum();
+            if s.norm() < 1e-300 || !s.is_finite() {
+                return None;
+            }
+            for x in u.iter_mut() {
+                *x /= s;
+            }
+        }
+        // Biorthogonality (distinct, non-defective modes) and conditioning.
+        for (i, u) in left.iter().enumerate() {
+            let unorm = u.iter().map(|x| x.norm()).fold(0.0, f64::max);
+            let vnorm = right[i].iter().map(|x| x.norm()).fold(0.0, f64::max);
+            // Written so that a NaN fails the check too.
+            let condition_ok = unorm * vnorm * dim as f64 <= MAX_MODE_CONDITION;
+            if !condition_ok {
+                return None;
+            }
+            for (j, v) in right.iter().enumerate() {
+                let s: C64 = u.iter().zip(v).map(|(a, b)| a * b).sum();
+                let want = if i == j { 1.0 } else { 0.0 };
+                let residual_ok = (s - want).norm() <= MAX_MODAL_RESIDUAL;
+                if !residual_ok {
+                    return None;
+                }
+            }
+        }
+        // Back to loop coordinates.
+        for v in right.iter_mut() {
+            for (x, s) in v.iter_mut().zip(&t) {
+                *x *= *s;
+            }
+        }
+        for u in left.iter_mut() {
+            for (x, s) in u.iter_mut().zip(&t) {
+                *x /= *s;
+            }
+        }
+        // Keep one mode of each conjugate pair, with weight 2.
+        let mut kept_left = Vec::new();
+        let mut cy = Vec::new();
+        let mut cu = Vec::new();
+        let mut used = vec![false; dim];
+        for i in 0..dim {
+            if used[i] {
+                continue;
+            }
+            used[i] = true;
+            let lambda = poles[i];
+            let mut weight = 1.0;
+            if lambda.im != 0.0 {
+                let partner = (0..dim).find(|&j| {
+                    !used[j] && (poles[j] - lambda.conj()).norm() <= 1e-12 * (1.0 + lambda.norm())
+                })?;
+                used[partner] = true;
+                weight = 2.0;
+            }
+            let v = &right[i];
+            let dotc =
+                |row: &[f64]| -> f64 { row.iter().zip(v).map(|(a, b)| b * *a).sum::<C64>().norm() };
+            let y = (0..rows.points)
+                .map(|j| dotc(&rows.g[j * dim..(j + 1) * dim]))
+                .fold(0.0, f64::max);
+            let u = dotc(rows.ku).max(v[rows.held].norm());
+            cy.push(weight * y);
+            cu.push(weight * u);
+            kept_left.extend_from_slice(&left[i]);
+        }
+        Some(ModalBound {
+            left: kept_left,
+            cy,
+            cu,
+        })
+    }
+
+    fn bound(&self, dz: &[f64]) -> (f64, f64) {
+        let dim = dz.len();
+        let (mut by, mut bu) = (0.0, 0.0);
+        for (i, (cy, cu)) in self.cy.iter().zip(&self.cu).enumerate() {
+            let row = &self.left[i * dim..(i + 1) * dim];
+            let (mut re, mut im) = (0.0, 0.0);
+            for (l, d) in row.iter().zip(dz) {
+                re += l.re * d;
+                im += l.im * d;
+            }
+            // sqrt of the sum of squares, not hypot: glibc's hypot costs
+            // more than the rest of the bound (an overflow gives an
+            // infinite bound, which only delays the stop).
+            let w = (re * re + im * im).sqrt();
+            by += cy * w;
+            bu += cu * w;
+        }
+        (by * (1.0 + MODAL_WIDENING), bu * (1.0 + MODAL_WIDENING))
+    }
+}
+
+/// Unit eigenvector of the row-major complex matrix `m` (`dim x dim`) for
+/// the eigenvalue `lambda`, by two steps of inverse iteration with a tiny
+/// shift; checked by its residual.
+fn eigenvector(m: &[C64], dim: usize, lambda: C64, anorm: f64) -> Option<Vec<C64>> {
+    let shift = lambda + C64::new(anorm * 1e-13, anorm * 1e-13);
+    let mut x: Vec<C64> = (0..dim)
+        .map(|i| C64::new(1.0 + 0.1 * i as f64, 0.03 * i as f64))
+        .collect();
+    let mut shifted = m.to_vec();
+    for i in 0..dim {
+        shifted[i * dim + i] -= shift;
+    }
+    for _ in 0..2 {
+        x = solve(&shifted, dim, &x)?;
+        // Scale so the largest entry is real and 1 (keeps pairs conjugate).
+        let big = *x
+            .iter()
+            .max_by(|a, b| a.norm_sqr().total_cmp(&b.norm_sqr()))?;
+        if !(big.norm_sqr().is_finite() && big.norm_sqr() > 0.0) {
+            return None;
+        }
+        for v in x.iter_mut() {
+            *v /= big;
+        }
+    }
+    // Residual |M x - lambda x| relative to |M| |x| (|x| = 1 in max norm).
+    let mut worst = 0.0f64;
+    for i in 0..dim {
+        let mx: C64 = (0..dim).map(|j| m[i * dim + j] * x[j]).sum();
+        worst = worst.max((mx - lambda * x[i]).norm());
+    }
+    (worst <= MAX_MODAL_RESIDUAL * anorm).then_some(x)
+}
+
+/// Solve the row-major complex system `m x = b` by Gaussian elimination
+/// with partial pivoting; None when singular or not finite.
+fn solve(m: &[C64], dim: usize, b: &[C64]) -> Option<Vec<C64>> {
+    let w = dim + 1;
+    let mut t: Vec<C64> = Vec::with_capacity(dim * w);
+    for i in 0..dim {
+        t.extend_from_slice(&m[i * dim..(i + 1) * dim]);
+        t.push(b[i]);
+    }
+    for col in 0..dim {
+        let piv = (col..dim).max_by(|&a, &b| {
+            t[a * w + col]
+                .norm_sqr()
+                .total_cmp(&t[b * w + col].norm_sqr())
+        })?;
+        if piv != col {
+            for j in 0..w {
+                t.swap(col * w + j, piv * w + j);
+            }
+        }
+        let p = t[col * w + col];
+        if p.norm_sqr() == 0.0 {
+            return None;
+        }
+        for r in col + 1..dim {
+            let f = t[r * w + col] / p;
+            for j in col..w {
+                let v = t[col * w + j];
+                t[r * w + j] -= f * v;
+            }
+        }
+    }
+    let mut x = vec![C64::new(0.0, 0.0); dim];
+    for i in (0..dim).rev() {
+        let mut acc = t[i * w + dim];
+        for j in i + 1..dim {
+            acc -= t[i * w + j] * x[j];
+        }
+        x[i] = acc / t[i * w + i];
+    }
+    x.iter().all(|v| v.is_finite()).then_some(x)
+}

@@ -1,0 +1,842 @@
+//! One evaluation: a loop at one rate, one method and one computation
+//! delay, reduced to the figures of the loop model. Also the same figures
+//! for the continuous design and for each hold approximation.
+
+use serde::Serialize;
+
+use crate::model::discretize::{Method, discretize};
+use crate::sampled::closed_loop::{ClosedLoop, Stability};
+use crate::sampled::continuous::{ContinuousLoop, HoldApprox};
+use crate::sampled::delay_margin::{DelayMargin, exact_delay_margin};
+use crate::sampled::frequency::{FrequencyRange, LoopFigures, loop_figures};
+use crate::sampled::hold::{Actuation, HoldEquivalent, pade_delay, plant_and_sensor};
+use crate::spec::HoldKind;
+use std::collections::HashMap;
+use std::sync::Mutex;
+
+use crate::model::matrix::ModelError;
+use crate::model::poly::C64;
+use crate::model::state_space::StateSpace;
+use crate::model::transfer::{Controller, DiscreteTransfer, Transfer};
+use crate::sampled::time_response::{
+    DisturbanceFigures, StepFigures, TimeOptions, TracePoint, horizon_steps, sampled_figures,
+    sampled_trace,
+};
+
+/// Outcome of one evaluation.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Status {
+    /// Stable: every figure computed.
+    Ok,
+    /// A closed-loop pole outside the unit circle (or right half-plane).
+    Unstable,
+    /// A pole on the stability boundary (e.g. z = 1 exactly).
+    Marginal,
+    /// Could not be evaluated; the reason says why.
+    Error(String),
+}
+
+impl Status {
+    /// Text used in CSV and tables: `ok`, `unstable`, `marginal`, `error: reason`.
+    pub fn label(&self) -> String {
+        match self {
+            Status::Ok => "ok".into(),
+            Status::Unstable => "unstable".into(),
+            Status::Marginal => "marginal".into(),
+            Status::Error(e) => format!("error: {e}"),
+        }
+    }
+}
+
+/// The figures of a stable loop (units in the names; see `loop-model.md`).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Figures {
+    pub y_final: f64,
+    pub overshoot_pct: Option<f64>,
+    pub settling_time_s: Option<f64>,
+    pub rise_time_s: Option<f64>,
+    pub disturbance_peak: f64,
+    pub recovery_time_s: Option<f64>,
+    pub u_peak: f64,
+    pub gain_margin_db: Option<f64>,
+    pub phase_margin_deg: Option<f64>,
+    pub crossover_hz: Option<f64>,
+    /// The exact delay margin: the smallest extra actuator delay (any
+    /// length) at which the exact sampled loop loses stability, s. None:
+    /// no gain crossing (infinite), or not located (a note says why); see
+    /// `docs/figures.md`. For the continuous design it equals the estimate.
+    pub delay_margin_s: Option<f64>,
+    /// `min_i phi_i / w_i` over the gain crossings, s; only an estimate for
+    /// a sampled loop. None: no gain crossing.
+    pub delay_margin_estimate_s: Option<f64>,
+    pub sensitivity_peak: f64,
+    pub horizon_s: f64,
+    pub horizon_capped: bool,
+    /// True when the exact delay margin was searched for (`eval`, the
+    /// recommended rate); a sweep leaves it unsearched (its cost grows
+    /// with the delay in periods) and reports the estimate.
+    pub delay_margin_searched: bool,
+    /// Why a loop figure is missing when it was not located (|L| = 1 over
+    /// an interval, a crossing exactly at an end, a delay margin beyond the
+    /// search); empty otherwise.
+    pub loop_notes: Vec<String>,
+}
+
+impl Figures {
+    /// The name of the first figure that is NaN, if any.
+    pub fn first_nan(&self) -> Option<&'static str> {
+        let opt = |v: Option<f64>| v.is_some_and(f64::is_nan);
+        [
+            ("final value", self.y_final.is_nan()),
+            ("overshoot", opt(self.overshoot_pct)),
+            ("settling time", opt(self.settling_time_s)),
+            ("rise time", opt(self.rise_time_s)),
+            ("disturbance peak", self.disturbance_peak.is_nan()),
+            ("recovery time", opt(self.recovery_time_s)),
+            ("peak command", self.u_peak.is_nan()),
+            ("gain margin", opt(self.gain_margin_db)),
+            ("phase margin", opt(self.phase_margin_deg)),
+            ("crossover", opt(self.crossover_hz)),
+            ("delay margin", opt(self.delay_margin_s)),
+            ("delay margin estimate", opt(self.delay_margin_estimate_s)),
+            ("sensitivity peak", self.sensitivity_peak.is_nan()),
+        ]
+        .into_iter()
+        .find(|(_, bad)| *bad)
+        .map(|(name, _)| name)
+    }
+
+    /// The text for a missing `delay_margin_s`: `not searched` in a sweep,
+    /// `not located` when the search gave up (the note says why), `inf`
+    /// when there is no gain crossing.
+    pub fn delay_margin_missing(&self) -> &'static str {
+        if !self.delay_margin_searched {
+            "not searched"
+        } else if self
+            .loop_notes
+            .iter()
+            .any(|n| n.starts_with("delay margin"))
+        {
+            "not located"
+        } else {
+            "inf"
+        }
+    }
+
+    fn from_parts(step: &StepFigures, dist: &DisturbanceFigures, freq: &LoopFigures) -> Figures {
+        Figures {
+            y_final: step.y_final,
+            overshoot_pct: step.overshoot_pct,
+            settling_time_s: step.settling_time_s,
+            rise_time_s: step.rise_time_s,
+            disturbance_peak: dist.disturbance_peak,
+            recovery_time_s: dist.recovery_time_s,
+            u_peak: step.u_peak,
+            gain_margin_db: freq.gain_margin_db,
+            phase_margin_deg: freq.phase_margin_deg,
+            crossover_hz: freq.crossover_hz,
+            delay_margin_s: None,
+            delay_margin_estimate_s: freq.delay_margin_estimate_s,
+            sensitivity_peak: freq.sensitivity_peak,
+            horizon_s: step.horizon_s,
+            horizon_capped: step.horizon_capped,
+            loop_notes: freq.notes.clone(),
+            delay_margin_searched: false,
+        }
+    }
+}
+
+/// One evaluated loop.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Evaluation {
+    pub status: Status,
+    pub stable: bool,
+    pub figures: Option<Figures>,
+    /// Closed-loop poles: z-plane for a sampled loop, s-plane (rad/s) for
+    /// a continuous one, as `[re, im]`.
+    pub closed_loop_poles: Vec<[f64; 2]>,
+    /// Every crossing and the peak's frequency, for charts and reports.
+    #[serde(skip)]
+    pub loop_detail: Option<LoopFigures>,
+}
+
+impl Evaluation {
+    /// An evaluation that could not be made, with the reason.
+    pub fn error(reason: impl std::fmt::Display) -> Evaluation {
+        Evaluation {
+            status: Status::Error(reason.to_string()),
+            stable: false,
+            figures: None,
+            closed_loop_poles: Vec::new(),
+            loop_detail: None,
+        }
+    }
+
+    fn poles_only(status: Status, poles: &[C64]) -> Evaluation {
+        Evaluation {
+            status,
+            stable: false,
+            figures: None,
+            closed_loop_poles: poles.iter().map(|p| [p.re, p.im]).collect(),
+            loop_detail: None,
+        }
+    }
+}
+
+/// A grid point: rate, method (None for a controller given in z) and
+/// computation delay in periods (any finite value >= 0; 1.5 is a period
+/// and a half).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Point {
+    pub rate_hz: f64,
+    pub method: Option<Method>,
+    pub delay: f64,
+    /// How the actuator holds each command.
+    pub hold: HoldKind,
+}
+
+/// The plant side of every loop at one (rate, delay): the hold + delay +
+/// plant equivalent, its pulse transfer from `u_k` to the measured sample,
+/// and the values of that transfer already computed, keyed by the exact
+/// frequency. The methods of a sweep share one (the plant side does not
+/// depend on the method), and their frequency grids start from the same
+/// points, so most of the loop-gain solves are done once; a value from the
+/// memo is the very number `response_at` returned, so figures are
+/// unchanged.
+#[derive(Debug)]
+pub struct PlantAt {
+    pub hold: HoldEquivalent,
+    pulse: StateSpace,
+    memo: Mutex<HashMap<u64, C64>>,
+}
+
+impl PlantAt {
+    fn new(hold: HoldEquivalent) -> PlantAt {
+        PlantAt {
+            pulse: hold.augmented(),
+            hold,
+            memo: Mutex::new(HashMap::new()),
+        }
+    }
+
+    /// G(e^{jwT}) at `w` rad/s, from the memo when already computed.
+    fn response(&self, w: f64) -> C64 {
+        let key = w.to_bits();
+        if let Some(v) = self.memo.lock().ok().and_then(|m| m.get(&key).copied()) {
+            return v;
+        }
+        let v = self
+            .pulse
+            .response_at(C64::from_polar(1.0, w * self.hold.period_s), 0);
+        if let Ok(mut m) = self.memo.lock() {
+            m.insert(key, v);
+        }
+        v
+    }
+}
+
+/// Everything about the loop that does not depend on the rate, built once
+/// and shared by every evaluation of a sweep.
+#[derive(Debug, Clone)]
+pub struct PreparedLoop {
+    pub plant: Transfer,
+    pub sensor: Transfer,
+    pub controller: Controller,
+    /// Plant and sensor in series (outputs: plant, measured).
+    pub plant_model: StateSpace,
+    /// Continuous poles and zeros of plant, sensor and controller (rad/s):
+    /// where the frequency grid is made dense.
+    roots: Vec<C64>,
+    /// Pre-warp frequency for `tustin-prewarped`, rad/s.
+    pub prewarp_rad_s: Option<f64>,
+    pub time: TimeOptions,
+    /// The continuous design's own figures (None for a controller in z).
+    pub design: Option<Evaluation>,
+    /// Transport delays of the plant and of the measurement, s.
+    pub transport: Transport,
+    /// The model the continuous loops simulate: plant and sensor with the
+    /// measurement's transport delay as its Pade approximant.
+    continuous_model: StateSpace,
+}
+
+/// Pure delays `e^{-sL}` in the loop (`delay_s` on [plant] and [sensor]).
+#[derive(Debug, Clone, Copy, Default, PartialEq)]
+pub struct Transport {
+    /// Between the actuator and the plant, s (the load disturbance enters
+    /// after it, at the plant input).
+    pub plant_s: f64,
+    /// Between the plant output and the sampler, s.
+    pub sensor_s: f64,
+}
+
+/// Order of the Pade approximant `[n/n]` that stands in for a transport
+/// delay in the continuous loops' time response and poles (their
+/// frequency response uses `e^{-jwL}` exactly).
+pub const TRANSPORT_PADE_ORDER: usize = 6;
+
+/// Order of the Pade approximant of each exponential in a hold's own
+/// rational approximation (`HoldApprox::OwnPade`).
+pub const HOLD_PADE_ORDER: usize = 2;
+
+impl Transport {
+    /// The total delay around the loop, s.
+    pub fn total_s(&self) -> f64 {
+        self.plant_s + self.sensor_s
+    }
+}
+
+impl PreparedLoop {
+    /// Prepare a loop; `prewarp_hz` None means the continuous crossover.
+    pub fn new(
+        plant: &Transfer,
+        sensor: &Transfer,
+        controller: &Controller,
+        prewarp_hz: Option<f64>,
+        time: TimeOptions,
+    ) -> Result<PreparedLoop, ModelError> {
+        PreparedLoop::with_transport(
+            plant,
+            sensor,
+            controller,
+            prewarp_hz,
+            time,
+            Transport::default(),
+        )
+    }
+
+    /// `new` with transport delays on the plant and the measurement.
+    pub fn with_transport(
+        plant: &Transfer,
+        sensor: &Transfer,
+        controller: &Controller,
+        prewarp_hz: Option<f64>,
+        time: TimeOptions,
+        transport: Transport,
+    ) -> Result<PreparedLoop, ModelError> {
+        if !(transport.plant_s >= 0.0
+            && transport.plant_s.is_finite()
+            && transport.sensor_s >= 0.0
+            && transport.sensor_s.is_finite())
+        {
+            return Err(ModelError::NonFinite);
+        }
+        let plant_model = plant_and_sensor(plant, sensor)?;
+        let continuous_model = if transport.sensor_s > 0.0 {
+            let (n, d) = pade_delay(transport.sensor_s, TRANSPORT_PADE_ORDER);
+            plant_and_sensor(plant, &sensor.cascade(&Transfer::new(n, d)))?
+        } else {
+            plant_model.clone()
+        };
+        let mut roots = Vec::new();
+        let mut tfs = vec![plant, sensor];
+        if let Controller::Continuous(c) = controller {
+            tfs.push(c);
+        }
+        for tf in tfs {
+            roots.extend(tf.poles().ok_or(ModelError::Eigen)?);
+            roots.extend(tf.zeros().ok_or(ModelError::Eigen)?);
+        }
+        if let Controller::Discrete(d) = controller {
+            // Map the z-plane poles and zeros back to rad/s for the grid.
+            let back = |z: &C64| z.ln() / d.period_s;
+            let p = d.transfer.poles().ok_or(ModelError::Eigen)?;
+            let z = d.transfer.zeros().ok_or(ModelError::Eigen)?;
+            roots.extend(
+                p.iter()
+                    .chain(z.iter())
+                    .filter(|z| z.norm() > 0.0)
+                    .map(back),
+            );
+        }
+        let mut prepared = PreparedLoop {
+            plant: plant.clone(),
+            sensor: sensor.clone(),
+            controller: controller.clone(),
+            plant_model,
+            roots,
+            prewarp_rad_s: prewarp_hz.map(|f| 2.0 * std::f64::consts::PI * f),
+            time,
+            design: None,
+            transport,
+            continuous_model,
+        };
+        if let Controller::Continuous(_) = controller {
+            let design = prepared.continuous(None);
+            if prewarp_hz.is_none() {
+                prepared.prewarp_rad_s = design
+                    .figures
+                    .as_ref()
+                    .and_then(|f| f.crossover_hz)
+                    .map(|f| 2.0 * std::f64::consts::PI * f);
+            }
+            prepared.design = Some(design);
+        }
+        Ok(prepared)
+    }
+
+    /// The fastest pole or zero of plant, sensor and controller, Hz (0 if
+    /// all are at the origin).
+    pub fn fastest_mode_hz(&self) -> f64 {
+        self.roots.iter().map(|r| r.norm()).fold(0.0, f64::max) / (2.0 * std::f64::consts::PI)
+    }
+
+    /// Warnings about a point whose results deserve less trust: a rate so
+    /// far above the loop's fastest mode that the discrete coefficients
+    /// crowd against z = 1, and a horizon cut short by its cap.
+    pub fn cautions(&self, p: &Point, e: &Evaluation) -> Vec<String> {
+        let mut out = Vec::new();
+        let fastest = self.fastest_mode_hz();
+        if fastest > 0.0 && p.rate_hz > 1e4 * fastest {
+            out.push(format!(
+                "the rate is {:.3e} times the fastest pole or zero ({:.4} Hz): the discrete poles crowd against z = 1 and the figures lose accuracy",
+                p.rate_hz / fastest,
+                fastest
+            ));
+        }
+        if let Some(f) = &e.figures {
+            out.extend(f.loop_notes.iter().cloned());
+        }
+        if let Some(f) = &e.figures
+            && f.horizon_capped
+        {
+            out.push(format!(
+                "the simulation stopped at its cap of {} periods ({:.4e} s) before the slowest mode decayed: time figures cover only that span",
+                self.time.max_steps, f.horizon_s
+            ));
+        }
+        out
+    }
+
+    /// The controller that runs at `rate_hz`.
+    pub fn controller_at(
+        &self,
+        rate_hz: f64,
+        method: Option<Method>,
+    ) -> Result<DiscreteTransfer, String> {
+        let period = 1.0 / rate_hz;
+        match (&self.controller, method) {
+            (Controller::Continuous(c), Some(m)) => {
+                discretize(c, m, period, self.prewarp_rad_s).map_err(|e| e.to_string())
+            }
+            (Controller::Continuous(_), None) => Err("no discretization method given".into()),
+            (Controller::Discrete(d), _) => {
+                let own = 1.0 / d.period_s;
+                if ((rate_hz - own) / own).abs() > 1e-9 {
+                    Err(format!(
+                        "the controller is given in z at {own} Hz and cannot run at {rate_hz} Hz"
+                    ))
+                } else {
+                    Ok(d.clone())
+                }
+            }
+        }
+    }
+
+    fn range_below(&self, w_hi: f64) -> FrequencyRange {
+        let inside: Vec<C64> = self
+            .roots
+            .iter()
+            .copied()
+            .filter(|r| r.norm() < w_hi)
+            .collect();
+        let mut range = FrequencyRange::from_roots(&inside, Some(w_hi));
+        let slowest = self
+            .roots
+            .iter()
+            .map(|r| r.norm())
+            .filter(|&v| v > 0.0)
+            .fold(f64::INFINITY, f64::min);
+        if slowest.is_finite() {
+            range.w_lo = range.w_lo.min(slowest / 1e3);
+        }
+        range
+    }
+
+    /// Build the exact sampled loop at a point.
+    pub fn sampled_loop(
+        &self,
+        p: &Point,
+    ) -> Result<(HoldEquivalent, DiscreteTransfer, ClosedLoop), String> {
+        check_point(p)?;
+        let c = self.controller_at(p.rate_hz, p.method)?;
+        let (hold, cl) = self.sampled_loop_with(p, &c)?;
+        Ok((hold, c, cl))
+    }
+
+    /// Build the exact sampled loop at a point around a given controller
+    /// (a quantized one, or one shared by several plant variants).
+    pub fn sampled_loop_with(
+        &self,
+        p: &Point,
+        c: &DiscreteTransfer,
+    ) -> Result<(HoldEquivalent, ClosedLoop), String> {
+        let hold = self.hold_equivalent(p)?;
+        let cl = ClosedLoop::new(&hold, c).map_err(|e| format!("closing the loop: {e}"))?;
+        Ok((hold, cl))
+    }
+
+    /// The exact hold + delay + plant equivalent at a point's rate and
+    /// delay. It does not depend on the method, so a sweep builds it once
+    /// per (rate, delay) and hands it to `sampled_on` for every method.
+    pub fn hold_at(&self, p: &Point) -> Result<PlantAt, String> {
+        self.hold_equivalent(p).map(PlantAt::new)
+    }
+
+    /// The exact hold + delay + plant equivalent at a point.
+    fn hold_equivalent(&self, p: &Point) -> Result<HoldEquivalent, String> {
+        check_point(p)?;
+        HoldEquivalent::with(
+            &self.plant_model,
+            1.0 / p.rate_hz,
+            &self.actuation(p),
+            self.time.points_per_period,
+        )
+        .map_err(|e| format!("plant equivalent: {e}"))
+    }
+
+    /// What lies between controller and plant at a point: its hold, the
+    /// computation delay plus the plant's transport delay (in periods: a
+    /// transport delay of 0.3 T is 0.3 more computation delay), and the
+    /// measurement's transport delay.
+    pub fn actuation(&self, p: &Point) -> Actuation {
+        Actuation {
+            hold: p.hold,
+            delay_periods: p.delay + self.transport.plant_s * p.rate_hz,
+            sensor_delay_s: self.transport.sensor_s,
+        }
+    }
+
+    /// Evaluate the exact sampled-data loop at one point.
+    pub fn sampled(&self, p: &Point) -> Evaluation {
+        if let Err(e) = check_point(p) {
+            return Evaluation::error(e);
+        }
+        match self.controller_at(p.rate_hz, p.method) {
+            Ok(c) => self.sampled_with(p, &c),
+            Err(e) => Evaluation::error(e),
+        }
+    }
+
+    /// `sampled` with the point's hold equivalent already built (by
+    /// `hold_at` at the same point, or its error): the same evaluation.
+    pub fn sampled_on(&self, p: &Point, plant: Result<&PlantAt, &str>) -> Evaluation {
+        if let Err(e) = check_point(p) {
+            return Evaluation::error(e);
+        }
+        match self.controller_at(p.rate_hz, p.method) {
+            Ok(c) => self.sampled_with_on(p, &c, plant),
+            Err(e) => Evaluation::error(e),
+        }
+    }
+
+    /// `sampled_with` on a plant side already built for the point's rate
+    /// and delay (`hold_at`): the same evaluation.
+    pub fn sampled_with_on(
+        &self,
+        p: &Point,
+        c: &DiscreteTransfer,
+        plant: Result<&PlantAt, &str>,
+    ) -> Evaluation {
+        if let Err(e) = check_point(p) {
+            return Evaluation::error(e);
+        }
+        let plant = match plant {
+            Ok(h) => h,
+            Err(e) => return Evaluation::error(e),
+        };
+        match ClosedLoop::new(&plant.hold, c) {
+            Ok(cl) => self.evaluate_closed(&plant.hold, c, &cl, &|w| plant.response(w), false),
+            Err(e) => Evaluation::error(format!("closing the loop: {e}")),
+        }
+    }
+
+    /// Evaluate the exact sampled-data loop at one point with the given
+    /// controller in place of the point's own discretization.
+    pub fn sampled_with(&self, p: &Point, c: &DiscreteTransfer) -> Evaluation {
+        self.sampled_with_margin(p, c, false)
+    }
+
+    /// `sampled` plus the exact delay margin (`delay_margin`): the full
+    /// figures of one point, for `eval` and the recommended rate. A sweep
+    /// uses `sampled`, whose `delay_margin_s` is not searched.
+    pub fn sampled_exact(&self, p: &Point) -> Evaluation {
+        if let Err(e) = check_point(p) {
+            return Evaluation::error(e);
+        }
+        match self.controller_at(p.rate_hz, p.method) {
+            Ok(c) => self.sampled_with_margin(p, &c, true),
+            Err(e) => Evaluation::error(e),
+        }
+    }
+
+    fn sampled_with_margin(
+        &self,
+        p: &Point,
+        c: &DiscreteTransfer,
+        exact_margin: bool,
+    ) -> Evaluation {
+        match self.sampled_loop_with(p, c) {
+            Ok((hold, cl)) => {
+                let pulse = hold.augmented();
+                let t = hold.period_s;
+                let plant = |w: f64| pulse.response_at(C64::from_polar(1.0, w * t), 0);
+                self.evaluate_closed(&hold, c, &cl, &plant, exact_margin)
+            }
+            Err(e) => Evaluation::error(e),
+        }
+    }
+
+    /// Every figure of a closed sampled loop (hold equivalent `hold`,
+    /// controller `c`, `plant` the pulse transfer G(e^{jwT}) at w rad/s).
+    fn evaluate_closed(
+        &self,
+        hold: &HoldEquivalent,
+        c: &DiscreteTransfer,
+        cl: &ClosedLoop,
+        plant: &dyn Fn(f64) -> C64,
+        exact_margin: bool,
+    ) -> Evaluation {
+        let poles = match cl.poles() {
+            Ok(v) => v,
+            Err(e) => return Evaluation::error(format!("closed-loop poles: {e}")),
+        };
+        match ClosedLoop::stability(&poles) {
+            Stability::Stable => {}
+            Stability::Unstable => return Evaluation::poles_only(Status::Unstable, &poles),
+            Stability::Marginal => return Evaluation::poles_only(Status::Marginal, &poles),
+        }
+        let (step, dist) = match sampled_figures(cl, hold, &poles, &self.time) {
+            Ok(v) => v,
+            Err(e) => return Evaluation::error(e),
+        };
+        let t = hold.period_s;
+        let l = |w: f64| c.transfer.eval(C64::from_polar(1.0, w * t)) * plant(w);
+        let range = self.range_below(std::f64::consts::PI / t);
+        let freq = loop_figures(&l, &range);
+        let margin = exact_margin
+            .then(|| exact_delay_margin(&self.plant_model, c, t, &hold.actuation(), &freq));
+        let mut e = finish(step, dist, freq, &poles);
+        if let (Some(f), Some(margin)) = (e.figures.as_mut(), margin) {
+            f.delay_margin_searched = true;
+            f.delay_margin_s = match margin {
+                DelayMargin::Seconds(v) => Some(v),
+                DelayMargin::NoCrossing => None,
+                DelayMargin::NotLocated(why) => {
+                    f.loop_notes
+                        .push(format!("delay margin not located: {why}"));
+                    None
+                }
+            };
+        }
+        e
+    }
+
+    /// Exact traces (step, disturbance) at one point, `periods` long
+    /// (None: the horizon of the loop's slowest pole).
+    pub fn sampled_traces(
+        &self,
+        p: &Point,
+        periods: Option<usize>,
+    ) -> Result<(Vec<TracePoint>, Vec<TracePoint>), String> {
+        let (hold, _, cl) = self.sampled_loop(p)?;
+        let poles = cl.poles().map_err(|e| e.to_string())?;
+        let rho = poles.iter().map(|p| p.norm()).fold(0.0, f64::max);
+        let n = periods.unwrap_or_else(|| {
+            (horizon_steps(rho.min(0.999_999), cl.a.nrows()) as usize).min(self.time.max_steps)
+        });
+        Ok((
+            sampled_trace(&cl, &hold, 1.0, 0.0, n),
+            sampled_trace(&cl, &hold, 0.0, 1.0, n),
+        ))
+    }
+
+    /// Loop gain of the sampled loop at a point, as a closure over w (rad/s).
+    pub fn sampled_loop_gain(&self, p: &Point) -> Result<impl Fn(f64) -> C64 + use<>, String> {
+        let (hold, c, _) = self.sampled_loop(p)?;
+        let plant_z = hold.augmented();
+        let t = hold.period_s;
+        Ok(move |w: f64| {
+            let z = C64::from_polar(1.0, w * t);
+            c.transfer.eval(z) * plant_z.response_at(z, 0)
+        })
+    }
+
+    /// The frequency range the sampled loop's figures are computed on at
+    /// `rate_hz`: from well below the slowest mode up to Nyquist.
+    pub fn sampled_range(&self, rate_hz: f64) -> FrequencyRange {
+        self.range_below(std::f64::consts::PI * rate_hz)
+    }
+
+    /// Exact step and load-disturbance traces of the continuous design
+    /// (no sampling) on `[0, t_end_s]` with `steps` intervals.
+    pub fn continuous_traces(
+        &self,
+        t_end_s: f64,
+        steps: usize,
+    ) -> Result<(Vec<TracePoint>, Vec<TracePoint>), String> {
+        let Controller::Continuous(c) = &self.controller else {
+            return Err("the controller is given in z: no continuous design".into());
+        };
+        let pade = self.plant_pade();
+        let cl = ContinuousLoop::new(
+            &self.continuous_model,
+            &self.plant,
+            &self.sensor,
+            c,
+            None,
+            self.loop_delays(&pade),
+        )
+        .map_err(|e| e.to_string())?;
+        cl.traces(t_end_s, steps).map_err(|e| e.to_string())
+    }
+
+    /// The plant's transport delay as its Pade approximant (None without).
+    fn plant_pade(&self) -> Option<Transfer> {
+        (self.transport.plant_s > 0.0).then(|| {
+            let (n, d) = pade_delay(self.transport.plant_s, TRANSPORT_PADE_ORDER);
+            Transfer::new(n, d)
+        })
+    }
+
+    /// The pure delays of a continuous loop: the total exactly for the
+    /// loop gain, the plant's as `pade` in the simulation (the
+    /// measurement's is in `continuous_model`).
+    fn loop_delays<'a>(&self, pade: &'a Option<Transfer>) -> Option<(f64, &'a Transfer)> {
+        static ONE: std::sync::OnceLock<Transfer> = std::sync::OnceLock::new();
+        let total = self.transport.total_s();
+        (total > 0.0).then(|| {
+            (
+                total,
+                pade.as_ref()
+                    .unwrap_or_else(|| ONE.get_or_init(|| Transfer::gain(1.0))),
+            )
+        })
+    }
+
+    /// The continuous loop: the design itself (`approx` None), or with the
+    /// hold and delay replaced by an approximation (`(kind, theta_s)`).
+    pub fn continuous(&self, approx: Option<(HoldApprox, f64)>) -> Evaluation {
+        self.continuous_with(approx.map(|(k, theta)| (k.transfer(theta), theta)))
+    }
+
+    /// The continuous loop with `act` (a rational actuator, and the delay
+    /// it stands for, s) between controller and plant.
+    fn continuous_with(&self, act: Option<(Transfer, f64)>) -> Evaluation {
+        let Controller::Continuous(c) = &self.controller else {
+            return Evaluation::error("the controller is given in z: no continuous design");
+        };
+        let approx = act.as_ref().map(|a| ((), a.1));
+        let pade = self.plant_pade();
+        let cl = match ContinuousLoop::new(
+            &self.continuous_model,
+            &self.plant,
+            &self.sensor,
+            c,
+            act.as_ref().map(|a| &a.0),
+            self.loop_delays(&pade),
+        ) {
+            Ok(v) => v,
+            Err(e) => return Evaluation::error(e),
+        };
+        let poles = match cl.poles() {
+            Ok(v) => v,
+            Err(e) => return Evaluation::error(e),
+        };
+        let max_re = poles.iter().map(|p| p.re).fold(f64::NEG_INFINITY, f64::max);
+        let scale = poles.iter().map(|p| p.norm()).fold(1e-300, f64::max);
+        if max_re > 1e-10 * scale {
+            return Evaluation::poles_only(Status::Unstable, &poles);
+        }
+        if max_re > -1e-10 * scale {
+            return Evaluation::poles_only(Status::Marginal, &poles);
+        }
+        let (step, dist) = match cl.time_figures(&poles, &self.time) {
+            Ok(v) => v,
+            Err(e) => return Evaluation::error(e),
+        };
+        let mut roots = self.roots.clone();
+        if let Some((_, theta)) = approx
+            && theta > 0.0
+        {
+            roots.push(C64::new(-1.0 / theta, 0.0));
+        }
+        let total = self.transport.total_s();
+        if total > 0.0 {
+            // The delay's phase turns fastest around w = 1/L.
+            roots.push(C64::new(-1.0 / total, 0.0));
+        }
+        // A very high loop gain puts the crossover (and the closed-loop
+        // poles) far above every open-loop mode, beyond the grid the
+        // open-loop roots span; the grid must reach them or the crossover
+        // and the sensitivity peak are missed (Ms below 1 was seen).
+        let fastest = roots.iter().map(|r| r.norm()).fold(0.0, f64::max);
+        if poles.iter().any(|p| p.norm() > 100.0 * fastest) {
+            roots.extend(poles.iter().copied());
+        }
+        let range = FrequencyRange::from_roots(&roots, None);
+        let freq = loop_figures(&|w| cl.loop_at(w), &range);
+        let mut e = finish(step, dist, freq, &poles);
+        // A delay rotates a continuous loop gain exactly, L(jw) e^{-jw tau}:
+        // there the estimate is the exact figure.
+        if let Some(f) = e.figures.as_mut() {
+            f.delay_margin_s = f.delay_margin_estimate_s;
+            f.delay_margin_searched = true;
+        }
+        e
+    }
+
+    /// The continuous loop with the hold and computation delay at `p`
+    /// replaced by `kind`: a delay approximation of theta = the hold's
+    /// low-frequency delay + d T (T/2 + d T for zero-order), or the hold's
+    /// own transfer function by Pade (`HoldApprox::HoldPade22`). The
+    /// transport delays stay as in the continuous design.
+    pub fn hold_approx(&self, p: &Point, kind: HoldApprox) -> Evaluation {
+        let period = 1.0 / p.rate_hz;
+        let delay = p.delay * period;
+        let theta = p.hold.equivalent_delay_s(period) + delay;
+        self.continuous_with(kind.actuator(p.hold, period, delay).map(|t| (t, theta)))
+    }
+}
+
+/// A point's rate and delay are usable.
+fn check_point(p: &Point) -> Result<(), String> {
+    if !(p.rate_hz > 0.0 && p.rate_hz.is_finite()) {
+        return Err(format!(
+            "rate must be positive and finite, got {}",
+            p.rate_hz
+        ));
+    }
+    if !(p.delay >= 0.0 && p.delay.is_finite()) {
+        return Err(format!(
+            "computation delay must be non-negative and finite (in periods), got {}",
+            p.delay
+        ));
+    }
+    Ok(())
+}
+
+fn finish(
+    step: StepFigures,
+    dist: DisturbanceFigures,
+    freq: LoopFigures,
+    poles: &[C64],
+) -> Evaluation {
+    let figures = Figures::from_parts(&step, &dist, &freq);
+    // A NaN never decides a verdict: it means the numbers left double
+    // range somewhere, so the point is an error that says so.
+    if let Some(name) = figures.first_nan() {
+        let mut e = Evaluation::error(format!(
+            "the {name} is not a number (the loop's numbers are beyond double precision)"
+        ));
+        e.closed_loop_poles = poles.iter().map(|p| [p.re, p.im]).collect();
+        return e;
+    }
+    Evaluation {
+        status: Status::Ok,
+        stable: true,
+        figures: Some(figures),
+        closed_loop_poles: poles.iter().map(|p| [p.re, p.im]).collect(),
+        loop_detail: Some(freq),
+    }
+}
