@@ -80,6 +80,29 @@ struct ModalBound {
     cy: Vec<f64>,
     /// Per kept mode: `max(|ku . v_i|, |v_i[held]|)` (times 2 for a pair).
     cu: Vec<f64>,
+    /// Per kept mode, what a bound over a stretch of periods needs.
+    modes: Vec<Mode>,
+}
+
+/// One kept mode of the loop (a real eigenvalue, or one of a conjugate
+/// pair standing for both): the output's and the command's share of it.
+/// With `c = left . dz` (the mode's coordinate in the state error `dz` at
+/// period k), the mode adds `weight * Re(c * gamma[j] * lambda^q)` to the
+/// deviation of output point j of period k + q from its final value, and
+/// `weight * Re(c * kappa * lambda^q)` to that of the command `u_{k+q}`.
+/// The sum over the kept modes is the whole deviation (the imaginary parts
+/// cancel), so bounding each term over a stretch bounds the sum.
+#[derive(Debug, Clone)]
+pub struct Mode {
+    pub lambda: C64,
+    /// 1 for a real mode, 2 for a conjugate pair.
+    pub weight: f64,
+    /// Left eigenvector (row of `V^{-1}`), loop coordinates.
+    pub left: Vec<C64>,
+    /// `g_j . v` for every output point j of a period.
+    pub gamma: Vec<C64>,
+    /// `ku . v`: the command's share.
+    pub kappa: C64,
 }
 
 impl Certificate {
@@ -109,6 +132,18 @@ impl Certificate {
     /// True when the modal bound is in use (tests and diagnostics).
     pub fn is_modal(&self) -> bool {
         self.modal.is_some()
+    }
+
+    /// The checked modal decomposition (one entry per real mode or
+    /// conjugate pair), when the modal bound is in use.
+    pub fn modes(&self) -> Option<&[Mode]> {
+        self.modal.as_ref().map(|m| m.modes.as_slice())
+    }
+
+    /// Relative widening the modal terms need (residuals of the computed
+    /// eigenvectors); see `MODAL_WIDENING`.
+    pub fn modal_widening(&self) -> f64 {
+        MODAL_WIDENING
     }
 
     /// Bounds `(y, u)` on every later `|g_j . dz_later|` and every later
@@ -248,6 +283,7 @@ impl ModalBound {
         let mut kept_left = Vec::new();
         let mut cy = Vec::new();
         let mut cu = Vec::new();
+        let mut modes = Vec::new();
         let mut used = vec![false; dim];
         for i in 0..dim {
             if used[i] {
@@ -264,20 +300,29 @@ impl ModalBound {
                 weight = 2.0;
             }
             let v = &right[i];
-            let dotc =
-                |row: &[f64]| -> f64 { row.iter().zip(v).map(|(a, b)| b * *a).sum::<C64>().norm() };
-            let y = (0..rows.points)
+            let dotc = |row: &[f64]| -> C64 { row.iter().zip(v).map(|(a, b)| b * *a).sum::<C64>() };
+            let gamma: Vec<C64> = (0..rows.points)
                 .map(|j| dotc(&rows.g[j * dim..(j + 1) * dim]))
-                .fold(0.0, f64::max);
-            let u = dotc(rows.ku).max(v[rows.held].norm());
+                .collect();
+            let kappa = dotc(rows.ku);
+            let y = gamma.iter().map(|g| g.norm()).fold(0.0, f64::max);
+            let u = kappa.norm().max(v[rows.held].norm());
             cy.push(weight * y);
             cu.push(weight * u);
             kept_left.extend_from_slice(&left[i]);
+            modes.push(Mode {
+                lambda,
+                weight,
+                left: left[i].clone(),
+                gamma,
+                kappa,
+            });
         }
         Some(ModalBound {
             left: kept_left,
             cy,
             cu,
+            modes,
         })
     }
 

@@ -22,7 +22,8 @@ pub struct LimitCheck {
     pub figure: &'static str,
     pub limit: f64,
     /// The figure's value; None when it does not exist (not settled, no
-    /// crossing).
+    /// crossing) or could not be decided (`Figures::undecided`), which
+    /// fails an upper limit.
     pub value: Option<f64>,
     /// Fraction of the limit; +inf for an infinite margin, -inf for a
     /// figure that does not exist but must (e.g. never settled).
@@ -75,13 +76,28 @@ pub fn check_figures(f: &Figures, spec: &Spec) -> Vec<LimitCheck> {
     let mut out = Vec::new();
     if let Some(l) = spec.max_overshoot_pct {
         // No y_final means no tracking: fails.
-        out.push(upper("overshoot_pct", l, f.overshoot_pct, -inf));
+        out.push(upper(
+            "overshoot_pct",
+            l,
+            f.decided("overshoot_pct", f.overshoot_pct),
+            -inf,
+        ));
     }
     if let Some(l) = spec.max_settling_s {
-        out.push(upper("settling_time_s", l, f.settling_time_s, -inf));
+        out.push(upper(
+            "settling_time_s",
+            l,
+            f.decided("settling_time_s", f.settling_time_s),
+            -inf,
+        ));
     }
     if let Some(l) = spec.max_rise_s {
-        out.push(upper("rise_time_s", l, f.rise_time_s, -inf));
+        out.push(upper(
+            "rise_time_s",
+            l,
+            f.decided("rise_time_s", f.rise_time_s),
+            -inf,
+        ));
     }
     if let Some(l) = spec.min_phase_margin_deg {
         // No gain crossing: |L| < 1 everywhere, the phase margin is infinite.
@@ -101,13 +117,28 @@ pub fn check_figures(f: &Figures, spec: &Spec) -> Vec<LimitCheck> {
         out.push(upper("sensitivity_peak", l, Some(f.sensitivity_peak), -inf));
     }
     if let Some(l) = spec.max_recovery_s {
-        out.push(upper("recovery_time_s", l, f.recovery_time_s, -inf));
+        out.push(upper(
+            "recovery_time_s",
+            l,
+            f.decided("recovery_time_s", f.recovery_time_s),
+            -inf,
+        ));
     }
     if let Some(l) = spec.max_disturbance_peak {
-        out.push(upper("disturbance_peak", l, Some(f.disturbance_peak), -inf));
+        out.push(upper(
+            "disturbance_peak",
+            l,
+            f.decided("disturbance_peak", Some(f.disturbance_peak)),
+            -inf,
+        ));
     }
     if let Some(l) = spec.max_u_peak {
-        out.push(upper("u_peak", l, Some(f.u_peak), -inf));
+        out.push(upper(
+            "u_peak",
+            l,
+            f.decided("u_peak", Some(f.u_peak)),
+            -inf,
+        ));
     }
     out
 }

@@ -27,6 +27,7 @@ pub mod report;
 pub mod scalar_solve;
 pub mod search;
 pub mod ss;
+pub mod stretch;
 pub mod summary;
 pub mod sweep;
 pub mod tf;

@@ -72,7 +72,7 @@ pub const SWEEP_COLUMNS: [&str; 23] = [
     "crossover_hz",
     "delay_margin_s",
     "sensitivity_peak",
-    "horizon_capped",
+    "undecided",
     "max_pole_radius",
     "feasible",
     "limiting",
@@ -130,13 +130,18 @@ fn cell(v: Option<Option<f64>>, missing: &str) -> String {
 
 /// The cells of [`WORST_FIGURES`] for `f`.
 fn figure_cells(f: Option<&Figures>) -> Vec<String> {
+    // An undecided figure reads `undecided` (never a time or "not settled").
+    let time = |key: &str, get: &dyn Fn(&Figures) -> Option<f64>, missing: &'static str| {
+        let v = f.map(|f| f.decided(key, get(f)));
+        cell(v, f.map_or(missing, |f| f.missing_text(key, missing)))
+    };
     vec![
-        cell(f.map(|f| f.overshoot_pct), "no final value"),
-        cell(f.map(|f| f.settling_time_s), "not settled"),
-        cell(f.map(|f| f.rise_time_s), "not reached"),
-        cell(f.map(|f| Some(f.disturbance_peak)), ""),
-        cell(f.map(|f| f.recovery_time_s), "not recovered"),
-        cell(f.map(|f| Some(f.u_peak)), ""),
+        time("overshoot_pct", &|f| f.overshoot_pct, "no final value"),
+        time("settling_time_s", &|f| f.settling_time_s, "not settled"),
+        time("rise_time_s", &|f| f.rise_time_s, "not reached"),
+        time("disturbance_peak", &|f| Some(f.disturbance_peak), ""),
+        time("recovery_time_s", &|f| f.recovery_time_s, "not recovered"),
+        time("u_peak", &|f| Some(f.u_peak), ""),
         cell(f.map(|f| f.gain_margin_db), "inf"),
         cell(f.map(|f| f.phase_margin_deg), "inf"),
         cell(f.map(|f| f.delay_margin_s), "inf"),
@@ -166,7 +171,7 @@ fn point_cells(r: &SweepRow, e: &Evaluation, a: &Assessment) -> Vec<String> {
     rec.push(cell(f.map(|f| f.crossover_hz), "none"));
     rec.extend_from_slice(&figs[8..]);
     rec.extend([
-        f.map(|f| f.horizon_capped.to_string()).unwrap_or_default(),
+        f.map(|f| f.undecided.join(" ")).unwrap_or_default(),
         if rho.is_nan() {
             String::new()
         } else {
@@ -183,7 +188,8 @@ fn point_cells(r: &SweepRow, e: &Evaluation, a: &Assessment) -> Vec<String> {
 /// `sweep.csv`: one row per grid point, in grid order. Cells: empty where
 /// a figure does not apply (an unstable point has no figures), `inf` for
 /// an infinite margin, `not settled` / `not recovered` / `not reached`
-/// where the response never got there within the horizon.
+/// where the response never got there, `undecided` where the horizon's
+/// bound could not decide the figure (the `undecided` column lists them).
 pub fn sweep_csv(rows: &[SweepRow], variants: Option<&VariantSet>) -> Vec<u8> {
     let mut w = csv::Writer::from_writer(Vec::new());
     let mut header: Vec<String> = SWEEP_COLUMNS.iter().map(|c| c.to_string()).collect();

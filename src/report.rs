@@ -178,6 +178,10 @@ fn figure_rows(f: &Figures) -> Vec<(&'static str, &'static str, Option<f64>, &'s
             "-",
         ),
     ]
+    .into_iter()
+    // An undecided figure reads `undecided`, never a value or "not settled".
+    .map(|(key, label, v, missing)| (key, label, f.decided(key, v), f.missing_text(key, missing)))
+    .collect()
 }
 
 fn slack_text(s: f64) -> String {

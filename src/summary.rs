@@ -34,6 +34,11 @@ fn fmt_opt(v: Option<f64>, missing: &str) -> String {
     v.map_or_else(|| missing.to_string(), fmt_num)
 }
 
+/// A time figure's text: its value, `undecided`, or `missing`.
+fn shown(f: &Figures, key: &str, v: Option<f64>, missing: &'static str) -> String {
+    fmt_opt(f.decided(key, v), f.missing_text(key, missing))
+}
+
 /// Complex numbers as `[re, im]` pairs for JSON.
 pub fn complex_pairs(v: &[C64]) -> Vec<[f64; 2]> {
     v.iter().map(|c| [c.re, c.im]).collect()
@@ -71,29 +76,33 @@ fn figure_rows(f: Option<&Figures>) -> Vec<(&'static str, &'static str, String)>
         (
             "overshoot_pct",
             "overshoot (%)",
-            g(&|f| fmt_opt(f.overshoot_pct, "n/a")),
+            g(&|f| shown(f, "overshoot_pct", f.overshoot_pct, "n/a")),
         ),
         (
             "settling_time_s",
             "settling time (s)",
-            g(&|f| fmt_opt(f.settling_time_s, "not settled")),
+            g(&|f| shown(f, "settling_time_s", f.settling_time_s, "not settled")),
         ),
         (
             "rise_time_s",
             "rise time 10-90 % (s)",
-            g(&|f| fmt_opt(f.rise_time_s, "not reached")),
+            g(&|f| shown(f, "rise_time_s", f.rise_time_s, "not reached")),
         ),
         (
             "disturbance_peak",
             "disturbance peak",
-            g(&|f| fmt_num(f.disturbance_peak)),
+            g(&|f| shown(f, "disturbance_peak", Some(f.disturbance_peak), "-")),
         ),
         (
             "recovery_time_s",
             "recovery time (s)",
-            g(&|f| fmt_opt(f.recovery_time_s, "not recovered")),
+            g(&|f| shown(f, "recovery_time_s", f.recovery_time_s, "not recovered")),
         ),
-        ("u_peak", "peak command", g(&|f| fmt_num(f.u_peak))),
+        (
+            "u_peak",
+            "peak command",
+            g(&|f| shown(f, "u_peak", Some(f.u_peak), "-")),
+        ),
         (
             "gain_margin_db",
             "gain margin (dB)",
@@ -221,14 +230,18 @@ pub fn evaluation_json(e: &Evaluation) -> Value {
                 "phase_margin_deg is null: |L| never crosses 1, the margin is infinite".into(),
             );
         }
-        if f.settling_time_s.is_none() {
+        if f.settling_time_s.is_none() && !f.is_undecided("settling_time_s") {
             notes.push("settling_time_s is null: not settled within the horizon".into());
         }
         if f.overshoot_pct.is_none() {
             notes.push("overshoot_pct is null: the final value is zero".into());
         }
-        if f.horizon_capped {
-            notes.push("the simulation horizon was capped before the slowest mode decayed".into());
+        if !f.undecided.is_empty() {
+            notes.push(format!(
+                "undecided (listed in `undecided`, their values null or only a lower bound): {}; the bound at the end of the horizon ({} s) cannot rule out a later peak, band exit or crossing",
+                f.undecided.join(", "),
+                fmt_num(f.horizon_s)
+            ));
         }
     }
     m.insert("closed_loop_poles".into(), json!(e.closed_loop_poles));
@@ -643,7 +656,7 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::evaluate::PreparedLoop) 
                 fmt_opt(f.gain_margin_db, "inf"),
                 fmt_num(f.sensitivity_peak),
                 fmt_opt(f.overshoot_pct, "n/a"),
-                fmt_opt(f.settling_time_s, "not settled"),
+                shown(f, "settling_time_s", f.settling_time_s, "not settled"),
             );
             let fails: Vec<String> = check_figures(f, &case.spec)
                 .into_iter()

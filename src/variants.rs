@@ -321,7 +321,15 @@ pub fn worst_of(figs: &[&Figures]) -> Option<Figures> {
         delay_margin_s: min_margin(&|f| f.delay_margin_s),
         sensitivity_peak: max_f(&|f| f.sensitivity_peak),
         horizon_s: figs.iter().map(|f| f.horizon_s).fold(0.0, f64::max),
-        horizon_capped: figs.iter().any(|f| f.horizon_capped),
+        undecided: {
+            let mut keys: Vec<&'static str> = Vec::new();
+            for k in figs.iter().flat_map(|f| f.undecided.iter()) {
+                if !keys.contains(k) {
+                    keys.push(k);
+                }
+            }
+            keys
+        },
     })
 }
 
@@ -351,7 +359,7 @@ mod tests {
             delay_margin_s: Some(0.01),
             sensitivity_peak: 1.5,
             horizon_s: 1.0,
-            horizon_capped: false,
+            undecided: Vec::new(),
         }
     }
 
