@@ -52,14 +52,15 @@ pub struct StepFigures {
     /// Largest |u| the controller commands, in actuator units.
     pub u_peak: f64,
     /// The horizon, s: the time the slowest closed-loop mode takes to
-    /// decay to `DECAY_TARGET` (padded), for a sampled loop; the simulated
-    /// span for the continuous design.
+    /// decay to `DECAY_TARGET` (padded), for a sampled loop and for the
+    /// continuous design's grid (the simulated span when it is walked).
     pub horizon_s: f64,
     /// Keys of the figures (`overshoot_pct`, `settling_time_s`,
     /// `rise_time_s`, `u_peak`) that could not be decided: a bound at the
     /// end of the horizon cannot rule out a later peak, exit or crossing
-    /// (for the continuous design: its grid hit the step cap). Such a
-    /// figure's value is absent (or, for `u_peak`, only a lower bound).
+    /// (for the continuous design's walk fallback: its grid hit the step
+    /// cap). Such a figure's value is absent (or, for `u_peak`, only a
+    /// lower bound).
     pub undecided: Vec<&'static str>,
 }
 
@@ -897,10 +898,36 @@ pub fn sampled_figures(
     poles: &[C64],
     opts: &TimeOptions,
 ) -> Result<(StepFigures, DisturbanceFigures), String> {
+    let ends = Ends::new(cl, hold)?;
+    Ok(figures_from_ends(cl, hold, poles, opts, ends))
+}
+
+/// `sampled_figures` around fixed points `zr` (step) and `zw` (load step)
+/// found elsewhere: the continuous design's grid has a loop matrix close
+/// to I, whose own fixed-point solve would lose digits that the solve on
+/// the continuous matrix keeps.
+pub fn sampled_figures_around(
+    cl: &ClosedLoop,
+    hold: &HoldEquivalent,
+    poles: &[C64],
+    opts: &TimeOptions,
+    zr: DVector<f64>,
+    zw: DVector<f64>,
+) -> (StepFigures, DisturbanceFigures) {
+    let ends = Ends::around(cl, hold, zr, zw);
+    figures_from_ends(cl, hold, poles, opts, ends)
+}
+
+fn figures_from_ends(
+    cl: &ClosedLoop,
+    hold: &HoldEquivalent,
+    poles: &[C64],
+    opts: &TimeOptions,
+    ends: Ends,
+) -> (StepFigures, DisturbanceFigures) {
     let periods = horizon_periods(poles, cl.a.nrows());
     let map = OutputMap::new(cl, hold);
     let cert = Certificate::new(cl, &map.bounded_rows(cl), poles);
-    let ends = Ends::new(cl, hold)?;
     let jumps = Stretches::new(cl, &map, cert.as_ref(), hold.period_s, periods);
     let t = hold.period_s;
     let horizon_s = periods as f64 * t;
@@ -942,7 +969,7 @@ pub fn sampled_figures(
             undecided: Vec::new(),
         }
     };
-    Ok((step, dist))
+    (step, dist)
 }
 
 /// The step by walking every period (points between samples skipped or
@@ -1030,25 +1057,29 @@ struct Ends {
 
 impl Ends {
     fn new(cl: &ClosedLoop, hold: &HoldEquivalent) -> Result<Ends, String> {
-        let n = cl.plant_states;
-        let output_at = |z: &DVector<f64>, r: f64, w: f64| {
-            let x = z.rows(0, n);
-            let u = cl.ku.dot(z) + cl.dur * r + cl.duw * w;
-            hold.cy.dot(&x) + hold.dy * (u + w)
-        };
         let zr = cl
             .fixed_point(1.0, 0.0)
             .ok_or("the closed loop has no steady state (pole at z = 1)")?;
         let zw = cl
             .fixed_point(0.0, 1.0)
             .ok_or("the closed loop has no steady state (pole at z = 1)")?;
-        Ok(Ends {
+        Ok(Ends::around(cl, hold, zr, zw))
+    }
+
+    fn around(cl: &ClosedLoop, hold: &HoldEquivalent, zr: DVector<f64>, zw: DVector<f64>) -> Ends {
+        let n = cl.plant_states;
+        let output_at = |z: &DVector<f64>, r: f64, w: f64| {
+            let x = z.rows(0, n);
+            let u = cl.ku.dot(z) + cl.dur * r + cl.duw * w;
+            hold.cy.dot(&x) + hold.dy * (u + w)
+        };
+        Ends {
             y_final: output_at(&zr, 1.0, 0.0),
             yd_final: output_at(&zw, 0.0, 1.0),
             u_final: cl.ku.dot(&zr) + cl.dur,
             zr,
             zw,
-        })
+        }
     }
 }
 
