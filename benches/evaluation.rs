@@ -10,20 +10,20 @@ use criterion::{Criterion, criterion_group, criterion_main};
 use looprate::discretize::Method;
 use looprate::evaluate::{Point, PreparedLoop};
 use looprate::poly::Poly;
-use looprate::tf::{Controller, Tf};
+use looprate::transfer::{Controller, Transfer};
 use looprate::time_response::{TimeOptions, sampled_figures};
 
 /// An invented positioning axis: motor with two lags and a mode at 60 Hz.
 pub fn bench_loop() -> PreparedLoop {
     let wn = 2.0 * std::f64::consts::PI * 60.0;
-    let plant = Tf::new(
+    let plant = Transfer::new(
         Poly::constant(400.0 * wn * wn),
         Poly::from_descending(&[1.0, 0.0])
             .mul(&Poly::from_descending(&[0.01, 1.0]))
             .mul(&Poly::from_descending(&[1.0, 2.0 * 0.3 * wn, wn * wn])),
     );
-    let sensor = Tf::new(Poly::one(), Poly::from_descending(&[1.0 / 2000.0, 1.0]));
-    let controller = Tf::new(
+    let sensor = Transfer::new(Poly::one(), Poly::from_descending(&[1.0 / 2000.0, 1.0]));
+    let controller = Transfer::new(
         Poly::from_descending(&[0.02, 0.4, 1.0]).scale(0.05),
         Poly::from_descending(&[1.0 / 400.0, 1.0, 0.0]),
     );
@@ -80,12 +80,12 @@ fn time_figures(c: &mut Criterion) {
 fn lightly_damped(c: &mut Criterion) {
     let w = 300.0;
     let lp = PreparedLoop::new(
-        &Tf::new(
+        &Transfer::new(
             Poly::constant(w * w),
             Poly::from_descending(&[1.0, 2.0 * 0.0005 * w, w * w]),
         ),
-        &Tf::gain(1.0),
-        &Controller::Continuous(Tf::new(
+        &Transfer::gain(1.0),
+        &Controller::Continuous(Transfer::new(
             Poly::constant(0.05),
             Poly::from_descending(&[1.0, 0.0]),
         )),

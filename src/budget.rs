@@ -5,17 +5,17 @@ use serde::Serialize;
 
 use crate::case::{Budget, Cycles};
 use crate::precision::{self, Structure};
-use crate::tf::DiscreteTf;
+use crate::transfer::DiscreteTransfer;
 
 /// Multiply-accumulates of one update of `c` in direct form II transposed:
 /// one per non-zero numerator coefficient and one per non-zero
 /// denominator coefficient after the leading one (an exactly-zero
 /// coefficient is not multiplied on a real target).
-pub fn df2t_macs(c: &DiscreteTf) -> usize {
-    let lead = c.tf.den.leading();
-    let num = c.tf.num.coeffs().iter().filter(|v| **v != 0.0).count();
+pub fn transposed_direct_macs(c: &DiscreteTransfer) -> usize {
+    let lead = c.transfer.denominator.leading();
+    let num = c.transfer.numerator.coeffs().iter().filter(|v| **v != 0.0).count();
     let den =
-        c.tf.den
+        c.transfer.denominator
             .coeffs()
             .iter()
             .filter(|v| **v != 0.0)
@@ -28,7 +28,7 @@ pub fn df2t_macs(c: &DiscreteTf) -> usize {
 /// (`precision::realize`): per section one per non-zero coefficient, the
 /// numerator's normalised leading 1 excepted, plus one for the overall gain
 /// unless it is exactly 1. None when the sections cannot be formed.
-pub fn sos_macs(c: &DiscreteTf, integrators: usize) -> Option<usize> {
+pub fn sos_macs(c: &DiscreteTransfer, integrators: usize) -> Option<usize> {
     let r = precision::realize(c, Structure::Sos, integrators).ok()?;
     let nonzero = |v: &[f64]| v.iter().filter(|x| **x != 0.0).count();
     let sections: usize = r
@@ -43,9 +43,9 @@ pub fn sos_macs(c: &DiscreteTf, integrators: usize) -> Option<usize> {
 
 /// Multiply-accumulates of one update of `c` in `structure`
 /// (`integrators`: the design's poles at z = 1, kept in their own sections).
-pub fn macs(c: &DiscreteTf, structure: Structure, integrators: usize) -> Option<usize> {
+pub fn macs(c: &DiscreteTransfer, structure: Structure, integrators: usize) -> Option<usize> {
     match structure {
-        Structure::Df2t => Some(df2t_macs(c)),
+        Structure::TransposedDirect => Some(transposed_direct_macs(c)),
         Structure::Sos => sos_macs(c, integrators),
     }
 }
@@ -54,7 +54,7 @@ pub fn macs(c: &DiscreteTf, structure: Structure, integrators: usize) -> Option<
 /// arranged in `structure` (df2t when the case gives no `[arithmetic]`).
 pub fn cycles_per_update(
     budget: &Budget,
-    controller: Option<&DiscreteTf>,
+    controller: Option<&DiscreteTransfer>,
     structure: Structure,
     integrators: usize,
 ) -> Option<f64> {
@@ -124,7 +124,7 @@ impl RateWindow {
 mod tests {
     use super::*;
     use crate::poly::Poly;
-    use crate::tf::Tf;
+    use crate::transfer::Transfer;
 
     fn budget(cycles: Cycles) -> Budget {
         Budget {
@@ -145,20 +145,20 @@ mod tests {
         // A second-order controller with all five coefficients non-zero:
         // 3 numerator + 2 denominator MACs; at 12 cycles each + 300
         // overhead = 360 cycles (by hand).
-        let c = DiscreteTf {
-            tf: Tf::new(
+        let c = DiscreteTransfer {
+            transfer: Transfer::new(
                 Poly::from_descending(&[0.5, -0.4, 0.1]),
                 Poly::from_descending(&[1.0, -1.2, 0.3]),
             ),
             period_s: 1e-4,
         };
-        assert_eq!(df2t_macs(&c), 5);
+        assert_eq!(transposed_direct_macs(&c), 5);
         let e = budget(Cycles::Estimate {
             cycles_per_mac: 12.0,
             overhead_cycles: 300.0,
         });
         assert_eq!(
-            cycles_per_update(&e, Some(&c), Structure::Df2t, 0),
+            cycles_per_update(&e, Some(&c), Structure::TransposedDirect, 0),
             Some(360.0)
         );
         // C(z) = 0.5 (z - 0.2) / ((z - 1)(z - 0.6)) as sections (by hand):
@@ -166,28 +166,28 @@ mod tests {
         // MAC for -0.2 (the leading 1 is free) and one for -1; the other,
         // 1/(1 - 0.6q): one; the gain 0.5: one. Total 4. In df2t:
         // b = [0, 0.5, -0.1], a = [-1.6, 0.6]: 2 + 2 = 4 as well.
-        let pi = DiscreteTf {
-            tf: Tf::new(
+        let pi = DiscreteTransfer {
+            transfer: Transfer::new(
                 Poly::from_descending(&[0.5, -0.1]),
                 Poly::from_descending(&[1.0, -1.6, 0.6]),
             ),
             period_s: 1e-3,
         };
         assert_eq!(sos_macs(&pi, 1), Some(4));
-        assert_eq!(df2t_macs(&pi), 4);
+        assert_eq!(transposed_direct_macs(&pi), 4);
         // (2z^2 - z + 0.1) / ((z - 0.6)(z - 0.5)(z - 0.4)), by hand: the
         // poles pair largest first, (1 - 1.1q + 0.3q^2) and (1 - 0.4q);
         // the section nearer the unit circle takes both zeros,
         // (1 - 0.5q + 0.05q^2): 2 + 2 MACs, then 1, then the gain 2: 6.
         // df2t: b = [0, 2, -1, 0.1], a = [-1.5, 0.74, -0.12]: 3 + 3 = 6.
-        let third = DiscreteTf {
-            tf: Tf::new(
+        let third = DiscreteTransfer {
+            transfer: Transfer::new(
                 Poly::from_descending(&[2.0, -1.0, 0.1]),
                 Poly::from_descending(&[1.0, -1.5, 0.74, -0.12]),
             ),
             period_s: 1e-3,
         };
-        assert_eq!(df2t_macs(&third), 6);
+        assert_eq!(transposed_direct_macs(&third), 6);
         assert_eq!(sos_macs(&third, 0), Some(6));
         // Timer: 170 MHz / 3 kHz = 56 666.7 -> divider 56666 gives
         // 3000.0176 Hz >= 3 kHz (by hand).

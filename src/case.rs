@@ -4,7 +4,7 @@
 //! the parameter uncertainty.
 //!
 //! Loading is strict: unknown keys, wrong types and inconsistent values
-//! are errors that name the file and the dotted field (`plant.tf`,
+//! are errors that name the file and the dotted field (`plant.transfer`,
 //! `rates.min_hz`, `methods.use[2]`), and expression errors show the
 //! expression with a caret under the column. The key reference is the
 //! README's case-file section.
@@ -17,7 +17,7 @@ use crate::discretize::Method;
 use crate::expr::{Expr, ExprError};
 use crate::poly::{C64, Poly};
 use crate::precision::{Format, Structure};
-use crate::tf::{DiscreteTf, Tf};
+use crate::transfer::{DiscreteTransfer, Transfer};
 use serde::Deserialize;
 use std::path::{Path, PathBuf};
 use std::str::FromStr;
@@ -162,7 +162,7 @@ pub struct Arithmetic {
     /// Number formats to check, in file order; the first is the one the
     /// rate window is bounded by.
     pub formats: Vec<Format>,
-    /// Arrangement of the difference equation (default `df2t`).
+    /// Arrangement of the difference equation (default `transposed-direct`).
     pub structure: Structure,
 }
 
@@ -176,15 +176,15 @@ pub enum UncertaintyMode {
     Samples { samples: usize, seed: u64 },
 }
 
-pub use crate::tf::Controller;
+pub use crate::transfer::Controller;
 
 /// The loop's models for one set of parameter values.
 #[derive(Debug, Clone, PartialEq)]
 pub struct LoopModels {
     /// Plant P(s).
-    pub plant: Tf,
+    pub plant: Transfer,
     /// Sensor H(s) in the feedback path (1 when not given).
-    pub sensor: Tf,
+    pub sensor: Transfer,
     /// Controller C(s) or C(z).
     pub controller: Controller,
 }
@@ -206,7 +206,7 @@ pub struct Case {
     /// Discretization methods to try, in file order; empty for a
     /// controller given in z.
     pub methods: Vec<Method>,
-    /// Pre-warp frequency for `tustin-prewarp`, Hz.
+    /// Pre-warp frequency for `tustin-prewarped`, Hz.
     pub prewarp_hz: Option<f64>,
     /// The limits to meet.
     pub spec: Spec,
@@ -296,12 +296,12 @@ impl CaseError {
 #[derive(Debug, Clone, PartialEq)]
 enum Source {
     Expr(Expr),
-    Fixed(Tf),
+    Fixed(Transfer),
 }
 
 #[derive(Debug, Clone, PartialEq)]
 struct Model {
-    /// Dotted field of the expression (`plant.tf`), for messages.
+    /// Dotted field of the expression (`plant.transfer`), for messages.
     field: String,
     /// `plant`, `sensor` or `controller`.
     role: &'static str,
@@ -311,7 +311,7 @@ struct Model {
 #[derive(Debug, Clone, PartialEq)]
 enum ControllerModel {
     Continuous(Model),
-    Discrete(DiscreteTf),
+    Discrete(DiscreteTransfer),
 }
 
 // ------------------------------------------------------------ raw layout
@@ -321,8 +321,8 @@ enum ControllerModel {
 struct RawCase {
     title: Option<String>,
     params: Option<toml::Table>,
-    plant: Option<RawTf>,
-    sensor: Option<RawTf>,
+    plant: Option<RawTransfer>,
+    sensor: Option<RawTransfer>,
     controller: Option<RawController>,
     timing: Option<RawTiming>,
     rates: Option<RawRates>,
@@ -335,8 +335,8 @@ struct RawCase {
 
 #[derive(Deserialize)]
 #[serde(deny_unknown_fields, expecting = "a table")]
-struct RawTf {
-    tf: Option<String>,
+struct RawTransfer {
+    transfer: Option<String>,
     zeros: Option<Vec<toml::Value>>,
     poles: Option<Vec<toml::Value>>,
     gain: Option<f64>,
@@ -345,13 +345,13 @@ struct RawTf {
 #[derive(Deserialize)]
 #[serde(deny_unknown_fields, expecting = "a table")]
 struct RawController {
-    tf: Option<String>,
+    transfer: Option<String>,
     zeros: Option<Vec<toml::Value>>,
     poles: Option<Vec<toml::Value>>,
     gain: Option<f64>,
     pid: Option<RawPid>,
-    num_z: Option<Vec<f64>>,
-    den_z: Option<Vec<f64>>,
+    numerator_z: Option<Vec<f64>>,
+    denominator_z: Option<Vec<f64>>,
     rate_hz: Option<f64>,
 }
 
@@ -688,14 +688,14 @@ fn roots(ctx: &Ctx, field: &str, values: &[toml::Value]) -> Result<Vec<C64>, Cas
 }
 
 /// Checks a model's transfer function: finite, non-zero, proper.
-fn check_tf(ctx: &Ctx, field: &str, role: &str, tf: &Tf, prefix: &str) -> Result<(), CaseError> {
+fn check_transfer(ctx: &Ctx, field: &str, role: &str, tf: &Transfer, prefix: &str) -> Result<(), CaseError> {
     if !tf.is_finite() {
         return Err(ctx.invalid(field, format!("{prefix}a coefficient is not finite")));
     }
-    if tf.den.is_zero() {
+    if tf.denominator.is_zero() {
         return Err(ctx.invalid(field, format!("{prefix}the denominator is zero")));
     }
-    if tf.num.is_zero() {
+    if tf.numerator.is_zero() {
         return Err(ctx.invalid(
             field,
             format!("{prefix}the {role} is identically zero, so the loop is open"),
@@ -706,20 +706,20 @@ fn check_tf(ctx: &Ctx, field: &str, role: &str, tf: &Tf, prefix: &str) -> Result
             field,
             format!(
                 "{prefix}improper {role}: numerator degree {} is above denominator degree {}",
-                tf.num.degree(),
-                tf.den.degree()
+                tf.numerator.degree(),
+                tf.denominator.degree()
             ),
         ));
     }
     Ok(())
 }
 
-/// `tf = "..."` or `zeros`/`poles`/`gain` for the plant or sensor.
+/// `transfer = "..."` or `zeros`/`poles`/`gain` for the plant or sensor.
 fn model_from(
     ctx: &Ctx,
     base: &str,
     role: &'static str,
-    tf: Option<String>,
+    transfer: Option<String>,
     zeros: Option<Vec<toml::Value>>,
     poles: Option<Vec<toml::Value>>,
     gain: Option<f64>,
@@ -728,10 +728,10 @@ fn model_from(
     match (tf, roots_form) {
         (Some(_), true) => Err(ctx.invalid(
             base,
-            "given two ways: `tf` and `zeros`/`poles`/`gain`; keep one",
+            "given two ways: `transfer` and `zeros`/`poles`/`gain`; keep one",
         )),
         (Some(text), false) => {
-            let field = format!("{base}.tf");
+            let field = format!("{base}.transfer");
             let expr = Expr::parse(&text).map_err(|e| ctx.expression(&field, &text, &e))?;
             Ok(Some(Model {
                 field,
@@ -764,8 +764,8 @@ fn model_from(
                     ),
                 ));
             }
-            let tf = Tf::new(Poly::from_roots(&z).scale(k), Poly::from_roots(&p));
-            check_tf(ctx, base, role, &tf, "")?;
+            let tf = Transfer::new(Poly::from_roots(&z).scale(k), Poly::from_roots(&p));
+            check_transfer(ctx, base, role, &tf, "")?;
             Ok(Some(Model {
                 field: base.to_string(),
                 role,
@@ -776,7 +776,7 @@ fn model_from(
     }
 }
 
-fn pid(ctx: &Ctx, raw: RawPid) -> Result<Tf, CaseError> {
+fn pid(ctx: &Ctx, raw: RawPid) -> Result<Transfer, CaseError> {
     let term = |name: &str, v: Option<f64>| -> Result<f64, CaseError> {
         match v {
             Some(v) => ctx.number(&format!("controller.pid.{name}"), v, |_| true, "finite"),
@@ -814,15 +814,15 @@ fn pid(ctx: &Ctx, raw: RawPid) -> Result<Tf, CaseError> {
     };
     let den = a.mul(&b);
     let num = den.scale(kp).add(&b.scale(ki)).add(&s.mul(&a).scale(kd));
-    let tf = Tf::new(num, den);
-    check_tf(ctx, "controller.pid", "controller", &tf, "")?;
+    let tf = Transfer::new(num, den);
+    check_transfer(ctx, "controller.pid", "controller", &tf, "")?;
     Ok(tf)
 }
 
 fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, CaseError> {
     let mut forms = Vec::new();
-    if raw.tf.is_some() {
-        forms.push("`tf`");
+    if raw.transfer.is_some() {
+        forms.push("`transfer`");
     }
     if raw.zeros.is_some() || raw.poles.is_some() || raw.gain.is_some() {
         forms.push("`zeros`/`poles`/`gain`");
@@ -830,14 +830,14 @@ fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, Cas
     if raw.pid.is_some() {
         forms.push("`pid`");
     }
-    if raw.num_z.is_some() || raw.den_z.is_some() || raw.rate_hz.is_some() {
-        forms.push("`num_z`/`den_z`/`rate_hz`");
+    if raw.numerator_z.is_some() || raw.denominator_z.is_some() || raw.rate_hz.is_some() {
+        forms.push("`numerator_z`/`denominator_z`/`rate_hz`");
     }
     match forms.len() {
         0 => {
             return Err(ctx.invalid(
                 "controller",
-                "no controller given: use one of `tf`, `zeros`/`poles`/`gain`, `pid`, `num_z`/`den_z`/`rate_hz`",
+                "no controller given: use one of `transfer`, `zeros`/`poles`/`gain`, `pid`, `numerator_z`/`denominator_z`/`rate_hz`",
             ));
         }
         1 => {}
@@ -860,18 +860,18 @@ fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, Cas
             source: Source::Fixed(tf),
         }));
     }
-    if raw.num_z.is_some() || raw.den_z.is_some() || raw.rate_hz.is_some() {
+    if raw.numerator_z.is_some() || raw.denominator_z.is_some() || raw.rate_hz.is_some() {
         let num = raw
-            .num_z
-            .ok_or_else(|| ctx.missing("controller.num_z", "numerator coefficients in z"))?;
+            .numerator_z
+            .ok_or_else(|| ctx.missing("controller.numerator_z", "numerator coefficients in z"))?;
         let den = raw
-            .den_z
-            .ok_or_else(|| ctx.missing("controller.den_z", "denominator coefficients in z"))?;
+            .denominator_z
+            .ok_or_else(|| ctx.missing("controller.denominator_z", "denominator coefficients in z"))?;
         let rate = raw.rate_hz.ok_or_else(|| {
             ctx.missing("controller.rate_hz", "the rate the controller runs at, Hz")
         })?;
         let rate = ctx.positive("controller.rate_hz", rate)?;
-        for (name, c) in [("num_z", &num), ("den_z", &den)] {
+        for (name, c) in [("numerator_z", &num), ("denominator_z", &den)] {
             if c.is_empty() {
                 return Err(ctx.invalid(format!("controller.{name}"), "empty coefficient list"));
             }
@@ -884,29 +884,29 @@ fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, Cas
         }
         if den[0] == 0.0 {
             return Err(ctx.invalid(
-                "controller.den_z",
+                "controller.denominator_z",
                 "the leading (highest-power) coefficient is zero",
             ));
         }
-        let tf = Tf::new(Poly::from_descending(&num), Poly::from_descending(&den));
-        if tf.num.is_zero() {
+        let tf = Transfer::new(Poly::from_descending(&num), Poly::from_descending(&den));
+        if tf.numerator.is_zero() {
             return Err(ctx.invalid(
-                "controller.num_z",
+                "controller.numerator_z",
                 "all coefficients are zero: the controller is zero",
             ));
         }
         if !tf.is_proper() {
             return Err(ctx.invalid(
-                "controller.num_z",
+                "controller.numerator_z",
                 format!(
                     "non-causal controller: numerator degree {} is above denominator degree {}",
-                    tf.num.degree(),
-                    tf.den.degree()
+                    tf.numerator.degree(),
+                    tf.denominator.degree()
                 ),
             ));
         }
-        return Ok(ControllerModel::Discrete(DiscreteTf {
-            tf,
+        return Ok(ControllerModel::Discrete(DiscreteTransfer {
+            transfer,
             period_s: 1.0 / rate,
         }));
     }
@@ -914,7 +914,7 @@ fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, Cas
         ctx,
         "controller",
         "controller",
-        raw.tf,
+        raw.transfer,
         raw.zeros,
         raw.poles,
         raw.gain,
@@ -1089,7 +1089,7 @@ fn methods_from(
         if raw.is_some() {
             return Err(ctx.invalid(
                 "methods",
-                "does not apply: the controller is given in z (num_z/den_z), so nothing is discretized",
+                "does not apply: the controller is given in z (numerator_z/denominator_z), so nothing is discretized",
             ));
         }
         return Ok((Vec::new(), None));
@@ -1097,7 +1097,7 @@ fn methods_from(
     let raw = raw.ok_or_else(|| {
         ctx.missing(
             "methods",
-            "the [methods] table; a continuous controller needs `use = [...]`, e.g. [\"tustin\", \"zoh\"]",
+            "the [methods] table; a continuous controller needs `use = [...]`, e.g. [\"tustin\", \"step-invariant\"]",
         )
     })?;
     let names = raw
@@ -1326,7 +1326,7 @@ fn arithmetic_from(ctx: &Ctx, raw: Option<RawArithmetic>) -> Result<Option<Arith
     }
     let structure = match raw.structure {
         Some(s) => Structure::from_str(&s).map_err(|e| ctx.invalid("arithmetic.structure", e))?,
-        None => Structure::Df2t,
+        None => Structure::TransposedDirect,
     };
     Ok(Some(Arithmetic { formats, structure }))
 }
@@ -1373,22 +1373,22 @@ impl Case {
         let params = params_from(&ctx, raw.params.unwrap_or_default(), &order)?;
 
         let plant = match raw.plant {
-            Some(p) => model_from(&ctx, "plant", "plant", p.tf, p.zeros, p.poles, p.gain)?,
+            Some(p) => model_from(&ctx, "plant", "plant", p.transfer, p.zeros, p.poles, p.gain)?,
             None => None,
         }
         .ok_or_else(|| {
             ctx.missing(
                 "plant",
-                "the plant, as `tf = \"...\"` or `zeros`/`poles`/`gain` under [plant]",
+                "the plant, as `transfer = \"...\"` or `zeros`/`poles`/`gain` under [plant]",
             )
         })?;
         let sensor = match raw.sensor {
             Some(p) => Some(
-                model_from(&ctx, "sensor", "sensor", p.tf, p.zeros, p.poles, p.gain)?.ok_or_else(
+                model_from(&ctx, "sensor", "sensor", p.transfer, p.zeros, p.poles, p.gain)?.ok_or_else(
                     || {
                         ctx.missing(
                             "sensor",
-                            "`tf` or `zeros`/`poles`/`gain` (or drop [sensor])",
+                            "`transfer` or `zeros`/`poles`/`gain` (or drop [sensor])",
                         )
                     },
                 )?,
@@ -1508,24 +1508,24 @@ impl Case {
                 .position(|p| p.name == name)
                 .map(|i| values[i])
         };
-        let eval = |m: &Model| -> Result<Tf, CaseError> {
+        let eval = |m: &Model| -> Result<Transfer, CaseError> {
             let tf = match &m.source {
                 Source::Fixed(tf) => tf.clone(),
                 Source::Expr(e) => {
                     let (num, den) = e
                         .eval(&lookup)
                         .map_err(|err| ctx.expression_with(&m.field, e.source(), &err, &prefix))?;
-                    Tf::new(num, den)
+                    Transfer::new(num, den)
                 }
             };
-            check_tf(&ctx, &m.field, m.role, &tf, &prefix)?;
+            check_transfer(&ctx, &m.field, m.role, &tf, &prefix)?;
             Ok(tf)
         };
         Ok(LoopModels {
             plant: eval(&self.plant)?,
             sensor: match &self.sensor {
                 Some(m) => eval(m)?,
-                None => Tf::gain(1.0),
+                None => Transfer::gain(1.0),
             },
             controller: match &self.controller {
                 ControllerModel::Continuous(m) => Controller::Continuous(eval(m)?),

@@ -31,7 +31,7 @@ use nalgebra::{DMatrix, DVector};
 
 use crate::closed_loop::ClosedLoop;
 use crate::poly::C64;
-use crate::ss::balancing_scale;
+use crate::state_space::balancing_scale;
 
 /// Largest accepted eigenvalue condition number `|u_i| |v_i|` (with
 /// `u_i . v_i = 1`) for the modal bound; above it the eigenvector matrix is

@@ -29,7 +29,7 @@ use crate::poly::C64;
 use crate::search::method_label;
 use crate::summary::fmt_num;
 use crate::sweep::SweepRow;
-use crate::tf::Controller;
+use crate::transfer::Controller;
 use crate::time_response::TracePoint;
 
 /// File names of the charts, in the order [`write_charts`] returns them.
@@ -689,7 +689,7 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
         .case
         .arithmetic
         .as_ref()
-        .map_or(crate::precision::Structure::Df2t, |a| a.structure);
+        .map_or(crate::precision::Structure::TransposedDirect, |a| a.structure);
     let integrators = crate::precision::design_integrators(&inp.lp.controller);
     // Methods with the same load share one line and one legend entry.
     let mut loads: Vec<(Vec<String>, Points)> = Vec::new();
@@ -795,7 +795,7 @@ fn precision_chart(inp: &Inputs) -> Option<Figure> {
         .case
         .arithmetic
         .as_ref()
-        .map_or("df2t", |a| a.structure.name());
+        .map_or("transposed-direct", |a| a.structure.name());
     let mut fig = Figure::new(
         format!(
             "Coefficient rounding ({structure}) vs rate, {method}: errors and precision ceilings"

@@ -9,8 +9,8 @@ use nalgebra::{DMatrix, DVector};
 
 use crate::hold::HoldEquivalent;
 use crate::poly::C64;
-use crate::ss::{ModelError, StateSpace, eigenvalues};
-use crate::tf::DiscreteTf;
+use crate::state_space::{ModelError, StateSpace, eigenvalues};
+use crate::transfer::DiscreteTransfer;
 
 /// How far inside the unit circle a pole must be to count as stable;
 /// a pole closer to |z| = 1 than this is "on the circle" (marginal).
@@ -44,8 +44,8 @@ pub enum Stability {
 
 impl ClosedLoop {
     /// Close the loop around `controller` (in z, same period as `plant`).
-    pub fn new(plant: &HoldEquivalent, controller: &DiscreteTf) -> Result<ClosedLoop, ModelError> {
-        let c = StateSpace::from_tf(&controller.tf)?;
+    pub fn new(plant: &HoldEquivalent, controller: &DiscreteTransfer) -> Result<ClosedLoop, ModelError> {
+        let c = StateSpace::from_transfer(&controller.transfer)?;
         let n = plant.phi.nrows();
         let m = c.order();
         let dim = n + 1 + m;

@@ -10,8 +10,8 @@ use serde::Serialize;
 use crate::closed_loop::{ClosedLoop, Stability};
 use crate::hold::{HoldEquivalent, IntersampleRow};
 use crate::poly::{C64, Poly};
-use crate::ss::{ModelError, StateSpace, eigenvalues, hold_integrals};
-use crate::tf::Tf;
+use crate::state_space::{ModelError, StateSpace, eigenvalues, hold_integrals};
+use crate::transfer::Transfer;
 use crate::time_response::{
     DisturbanceFigures, StepFigures, TimeOptions, TracePoint, continuous_metrics,
     sampled_figures_around,
@@ -67,14 +67,14 @@ impl HoldApprox {
     }
 
     /// The approximation for a delay of `theta` seconds.
-    pub fn tf(self, theta: f64) -> Tf {
+    pub fn transfer(self, theta: f64) -> Transfer {
         let p = |d: &[f64]| Poly::from_descending(d);
         match self {
-            HoldApprox::Lag => Tf::new(p(&[1.0]), p(&[theta, 1.0])),
-            HoldApprox::Pade11 => Tf::new(p(&[-theta / 2.0, 1.0]), p(&[theta / 2.0, 1.0])),
+            HoldApprox::Lag => Transfer::new(p(&[1.0]), p(&[theta, 1.0])),
+            HoldApprox::Pade11 => Transfer::new(p(&[-theta / 2.0, 1.0]), p(&[theta / 2.0, 1.0])),
             HoldApprox::Pade22 => {
                 let q = theta * theta / 12.0;
-                Tf::new(p(&[q, -theta / 2.0, 1.0]), p(&[q, theta / 2.0, 1.0]))
+                Transfer::new(p(&[q, -theta / 2.0, 1.0]), p(&[q, theta / 2.0, 1.0]))
             }
         }
     }
@@ -94,7 +94,7 @@ pub struct ContinuousLoop {
     pub dur: f64,
     pub duw: f64,
     /// Loop gain pieces, for the frequency figures.
-    pub loop_gain: Tf,
+    pub loop_gain: Transfer,
 }
 
 impl ContinuousLoop {
@@ -102,15 +102,15 @@ impl ContinuousLoop {
     /// with `actuator` (a hold approximation) between command and plant.
     pub fn new(
         plant_model: &StateSpace,
-        plant: &Tf,
-        sensor: &Tf,
-        controller: &Tf,
-        actuator: Option<&Tf>,
+        plant: &Transfer,
+        sensor: &Transfer,
+        controller: &Transfer,
+        actuator: Option<&Transfer>,
     ) -> Result<ContinuousLoop, ModelError> {
-        let c = StateSpace::from_tf(controller)?;
+        let c = StateSpace::from_transfer(controller)?;
         let act = match actuator {
-            Some(a) => StateSpace::from_tf(a)?,
-            None => StateSpace::from_tf(&Tf::gain(1.0))?,
+            Some(a) => StateSpace::from_transfer(a)?,
+            None => StateSpace::from_transfer(&Transfer::gain(1.0))?,
         };
         let p = plant_model;
         let (np, na, nc) = (p.order(), act.order(), c.order());
@@ -186,9 +186,9 @@ impl ContinuousLoop {
             let mut part = cyf.rows_mut(0, np);
             part += &cy;
         }
-        let mut loop_gain = plant.series(sensor).series(controller);
+        let mut loop_gain = plant.cascade(sensor).cascade(controller);
         if let Some(a) = actuator {
-            loop_gain = loop_gain.series(a);
+            loop_gain = loop_gain.cascade(a);
         }
         Ok(ContinuousLoop {
             a,

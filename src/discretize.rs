@@ -8,17 +8,17 @@ use std::str::FromStr;
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
 pub enum Method {
     /// Step invariant (zero-order hold).
-    Zoh,
+    StepInvariant,
     /// Ramp invariant, triangle (non-causal first-order) hold.
-    Foh,
+    RampInvariant,
     /// Impulse invariant, scaled by T.
-    Impulse,
+    ImpulseInvariant,
     /// Bilinear map s = (2/T)(z-1)/(z+1).
     Tustin,
     /// Bilinear map with frequency pre-warping at w0.
-    TustinPrewarp,
+    TustinPrewarped,
     /// Pole-zero matching z = e^{sT}.
-    Matched,
+    PoleZeroMatch,
     /// s = (z-1)/T.
     ForwardEuler,
     /// s = (z-1)/(T z).
@@ -28,12 +28,12 @@ pub enum Method {
 impl Method {
     /// Every method, in a fixed order (the order of output rows).
     pub const ALL: [Method; 8] = [
-        Method::Zoh,
-        Method::Foh,
-        Method::Impulse,
+        Method::StepInvariant,
+        Method::RampInvariant,
+        Method::ImpulseInvariant,
         Method::Tustin,
-        Method::TustinPrewarp,
-        Method::Matched,
+        Method::TustinPrewarped,
+        Method::PoleZeroMatch,
         Method::ForwardEuler,
         Method::BackwardEuler,
     ];
@@ -41,12 +41,12 @@ impl Method {
     /// The name used in case files and output.
     pub fn name(self) -> &'static str {
         match self {
-            Method::Zoh => "zoh",
-            Method::Foh => "foh",
-            Method::Impulse => "impulse",
+            Method::StepInvariant => "step-invariant",
+            Method::RampInvariant => "ramp-invariant",
+            Method::ImpulseInvariant => "impulse-invariant",
             Method::Tustin => "tustin",
-            Method::TustinPrewarp => "tustin-prewarp",
-            Method::Matched => "matched",
+            Method::TustinPrewarped => "tustin-prewarped",
+            Method::PoleZeroMatch => "pole-zero-match",
             Method::ForwardEuler => "forward-euler",
             Method::BackwardEuler => "backward-euler",
         }
@@ -62,7 +62,7 @@ impl fmt::Display for Method {
 /// The name is not one of the eight methods.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 #[error(
-    "unknown method `{0}`; known: zoh, foh, impulse, tustin, tustin-prewarp, matched, forward-euler, backward-euler"
+    "unknown method `{0}`; known: zoh, foh, impulse, tustin, tustin-prewarped, matched, forward-euler, backward-euler"
 )]
 pub struct UnknownMethod(pub String);
 
@@ -80,8 +80,8 @@ impl FromStr for Method {
 use nalgebra::{DMatrix, DVector};
 
 use crate::poly::{C64, Poly};
-use crate::ss::{ModelError, StateSpace, expm, hold_integrals};
-use crate::tf::{DiscreteTf, Tf};
+use crate::state_space::{ModelError, StateSpace, expm, hold_integrals};
+use crate::transfer::{DiscreteTransfer, Transfer};
 
 /// Why a method could not produce a controller at a rate.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
@@ -89,11 +89,11 @@ pub enum DiscretizeError {
     #[error("sample period must be positive and finite, got {0} s")]
     Period(f64),
     #[error(
-        "tustin-prewarp needs a pre-warp frequency (none given and the continuous loop has no crossover)"
+        "tustin-prewarped needs a pre-warp frequency (none given and the continuous loop has no crossover)"
     )]
     NoPrewarp,
     #[error(
-        "tustin-prewarp at {w0_hz:.6} Hz needs w0*T < pi, but w0*T = {product:.4} at this rate"
+        "tustin-prewarped at {w0_hz:.6} Hz needs w0*T < pi, but w0*T = {product:.4} at this rate"
     )]
     PrewarpAboveNyquist { w0_hz: f64, product: f64 },
     #[error("matched: the gain rule is undefined here ({0})")]
@@ -104,33 +104,33 @@ pub enum DiscretizeError {
 
 /// The controller that runs at period `period_s`, from `c` by `method`.
 ///
-/// `prewarp_rad_s` is used by `tustin-prewarp` only (rad/s).
+/// `prewarp_rad_s` is used by `tustin-prewarped` only (rad/s).
 pub fn discretize(
-    c: &Tf,
+    c: &Transfer,
     method: Method,
     period_s: f64,
     prewarp_rad_s: Option<f64>,
-) -> Result<DiscreteTf, DiscretizeError> {
+) -> Result<DiscreteTransfer, DiscretizeError> {
     if !(period_s > 0.0 && period_s.is_finite()) {
         return Err(DiscretizeError::Period(period_s));
     }
-    if c.den.is_zero() {
+    if c.denominator.is_zero() {
         return Err(ModelError::ZeroDenominator.into());
     }
     if !c.is_proper() {
         return Err(ModelError::Improper {
-            num: c.num.degree(),
-            den: c.den.degree(),
+            numerator: c.numerator.degree(),
+            denominator: c.denominator.degree(),
         }
         .into());
     }
     let t = period_s;
     let tf = match method {
-        Method::Zoh => step_invariant(c, t)?,
-        Method::Foh => ramp_invariant(c, t)?,
-        Method::Impulse => impulse_invariant(c, t)?,
+        Method::StepInvariant => step_invariant(c, t)?,
+        Method::RampInvariant => ramp_invariant(c, t)?,
+        Method::ImpulseInvariant => impulse_invariant(c, t)?,
         Method::Tustin => substitute(c, 2.0 / t, -2.0 / t, 1.0, 1.0),
-        Method::TustinPrewarp => {
+        Method::TustinPrewarped => {
             let w0 = prewarp_rad_s.ok_or(DiscretizeError::NoPrewarp)?;
             if !(w0 > 0.0 && w0.is_finite()) {
                 return Err(DiscretizeError::NoPrewarp);
@@ -145,32 +145,32 @@ pub fn discretize(
             let k = w0 / (product / 2.0).tan();
             substitute(c, k, -k, 1.0, 1.0)
         }
-        Method::Matched => matched(c, t)?,
+        Method::PoleZeroMatch => matched(c, t)?,
         Method::ForwardEuler => substitute(c, 1.0 / t, -1.0 / t, 0.0, 1.0),
         Method::BackwardEuler => substitute(c, 1.0 / t, -1.0 / t, 1.0, 0.0),
     };
-    if !tf.is_finite() || tf.den.is_zero() {
+    if !tf.is_finite() || tf.denominator.is_zero() {
         return Err(ModelError::NonFinite.into());
     }
-    Ok(DiscreteTf {
-        tf: tf.monic(),
+    Ok(DiscreteTransfer {
+        transfer: tf.monic(),
         period_s,
     })
 }
 
 /// Rational substitution `s = (a z + b) / (c z + d)`, both polynomials
 /// multiplied by `(c z + d)^n`, n the denominator degree.
-fn substitute(tf: &Tf, a: f64, b: f64, c: f64, d: f64) -> Tf {
-    let n = tf.den.degree();
-    Tf::new(
-        tf.num.compose_mobius(a, b, c, d, n),
-        tf.den.compose_mobius(a, b, c, d, n),
+fn substitute(tf: &Transfer, a: f64, b: f64, c: f64, d: f64) -> Transfer {
+    let n = tf.denominator.degree();
+    Transfer::new(
+        tf.numerator.compose_mobius(a, b, c, d, n),
+        tf.denominator.compose_mobius(a, b, c, d, n),
     )
 }
 
 /// Zero-order-hold (step-invariant) equivalent through Van Loan's integral.
-fn step_invariant(c: &Tf, t: f64) -> Result<Tf, DiscretizeError> {
-    let ss = StateSpace::from_tf(c)?;
+fn step_invariant(c: &Transfer, t: f64) -> Result<Transfer, DiscretizeError> {
+    let ss = StateSpace::from_transfer(c)?;
     if ss.order() == 0 {
         return Ok(c.clone());
     }
@@ -183,8 +183,8 @@ fn step_invariant(c: &Tf, t: f64) -> Result<Tf, DiscretizeError> {
 /// by `z = e^{pT}`: exact poles at s = 0 land exactly on z = 1, and poles
 /// crowded near z = 1 at fast rates keep the digits that an eigenvalue
 /// routine on `e^{AT}` would lose.
-fn mapped_den(c: &Tf, t: f64) -> Result<Poly, DiscretizeError> {
-    let poles = c.den.roots().ok_or(ModelError::Eigen)?;
+fn mapped_den(c: &Transfer, t: f64) -> Result<Poly, DiscretizeError> {
+    let poles = c.denominator.roots().ok_or(ModelError::Eigen)?;
     let mapped: Vec<C64> = poles.iter().map(|p| (p * t).exp()).collect();
     Ok(Poly::from_roots(&mapped))
 }
@@ -192,13 +192,13 @@ fn mapped_den(c: &Tf, t: f64) -> Result<Poly, DiscretizeError> {
 /// The transfer function of a sampled equivalent `(e^{AT}, B_d, C, D_d)`
 /// of `c`, with the denominator from `c`'s poles mapped by `e^{pT}`.
 fn sampled_equivalent(
-    c: &Tf,
+    c: &Transfer,
     t: f64,
     phi: DMatrix<f64>,
     bd: DVector<f64>,
     cm: DMatrix<f64>,
     dd: f64,
-) -> Result<Tf, DiscretizeError> {
+) -> Result<Transfer, DiscretizeError> {
     let den = mapped_den(c, t)?;
     Ok(StateSpace {
         a: phi,
@@ -206,15 +206,15 @@ fn sampled_equivalent(
         c: cm,
         d: DVector::from_element(1, dd),
     }
-    .to_tf_with_den(0, den))
+    .to_transfer_with_denominator(0, den))
 }
 
 /// Triangle-hold (ramp-invariant) equivalent: one exponential of
 /// `[[A T, B T, 0], [0, 0, 1], [0, 0, 0]]` gives `Phi`, `Gamma1` and
 /// `Gamma2`; then `B_d = Gamma1 - Gamma2 + Phi Gamma2`, `D_d = D + C Gamma2`
 /// (the non-causal first-order hold; the result is biproper).
-fn ramp_invariant(c: &Tf, t: f64) -> Result<Tf, DiscretizeError> {
-    let ss = StateSpace::from_tf(c)?;
+fn ramp_invariant(c: &Transfer, t: f64) -> Result<Transfer, DiscretizeError> {
+    let ss = StateSpace::from_transfer(c)?;
     let n = ss.order();
     if n == 0 {
         return Ok(c.clone());
@@ -235,8 +235,8 @@ fn ramp_invariant(c: &Tf, t: f64) -> Result<Tf, DiscretizeError> {
 /// Impulse-invariant equivalent scaled by T:
 /// `C(z) = D + T sum_{k>=0} h(kT) z^-k`, realised as
 /// `A_d = e^{AT}`, `B_d = e^{AT} B T`, `C_d = C`, `D_d = D + C B T`.
-fn impulse_invariant(c: &Tf, t: f64) -> Result<Tf, DiscretizeError> {
-    let ss = StateSpace::from_tf(c)?;
+fn impulse_invariant(c: &Transfer, t: f64) -> Result<Transfer, DiscretizeError> {
+    let ss = StateSpace::from_transfer(c)?;
     if ss.order() == 0 {
         return Ok(c.clone());
     }
@@ -250,20 +250,20 @@ fn impulse_invariant(c: &Tf, t: f64) -> Result<Tf, DiscretizeError> {
 /// infinity to `z = -1`, gain from the lowest-order behaviour at s = 0
 /// (`lim s^k C(s) = lim ((z-1)/T)^k C(z)`), which never divides by zero for
 /// integrators because their `(z - 1)` factors are removed exactly.
-fn matched(c: &Tf, t: f64) -> Result<Tf, DiscretizeError> {
-    if c.num.is_zero() {
-        return Ok(Tf::new(Poly::zero(), Poly::one()));
+fn matched(c: &Transfer, t: f64) -> Result<Transfer, DiscretizeError> {
+    if c.numerator.is_zero() {
+        return Ok(Transfer::new(Poly::zero(), Poly::one()));
     }
-    let kz = c.num.zero_root_count();
-    let kp = c.den.zero_root_count();
-    let num_nz = c.num.shift_down(kz);
-    let den_nz = c.den.shift_down(kp);
+    let kz = c.numerator.zero_root_count();
+    let kp = c.denominator.zero_root_count();
+    let num_nz = c.numerator.shift_down(kz);
+    let den_nz = c.denominator.shift_down(kp);
     let zeros = num_nz.roots().ok_or(ModelError::Eigen)?;
     let poles = den_nz.roots().ok_or(ModelError::Eigen)?;
     let map = |r: &C64| (r * t).exp();
     let zeros_z: Vec<C64> = zeros.iter().map(map).collect();
     let poles_z: Vec<C64> = poles.iter().map(map).collect();
-    let n_inf = c.den.degree() - c.num.degree();
+    let n_inf = c.denominator.degree() - c.numerator.degree();
     let mut num = Poly::from_roots(&zeros_z)
         .mul(&Poly::from_descending(&[1.0, -1.0]).pow(kz as u32))
         .mul(&Poly::from_descending(&[1.0, 1.0]).pow(n_inf as u32));
@@ -296,5 +296,5 @@ fn matched(c: &Tf, t: f64) -> Result<Tf, DiscretizeError> {
         ));
     }
     num = num.scale(gain);
-    Ok(Tf::new(num, den))
+    Ok(Transfer::new(num, den))
 }

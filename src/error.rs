@@ -2,7 +2,7 @@
 
 use crate::case::CaseError;
 use crate::plot::PlotError;
-use crate::ss::ModelError;
+use crate::state_space::ModelError;
 
 #[derive(Debug, thiserror::Error)]
 pub enum Error {

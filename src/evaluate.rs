@@ -13,8 +13,8 @@ use std::collections::HashMap;
 use std::sync::Mutex;
 
 use crate::poly::C64;
-use crate::ss::{ModelError, StateSpace};
-use crate::tf::{Controller, DiscreteTf, Tf};
+use crate::state_space::{ModelError, StateSpace};
+use crate::transfer::{Controller, DiscreteTransfer, Transfer};
 use crate::time_response::{
     DisturbanceFigures, StepFigures, TimeOptions, TracePoint, horizon_periods, sampled_figures,
     sampled_trace,
@@ -210,15 +210,15 @@ impl PlantAt {
 /// and shared by every evaluation of a sweep.
 #[derive(Debug, Clone)]
 pub struct PreparedLoop {
-    pub plant: Tf,
-    pub sensor: Tf,
+    pub plant: Transfer,
+    pub sensor: Transfer,
     pub controller: Controller,
     /// Plant and sensor in series (outputs: plant, measured).
     pub plant_model: StateSpace,
     /// Continuous poles and zeros of plant, sensor and controller (rad/s):
     /// where the frequency grid is made dense.
     roots: Vec<C64>,
-    /// Pre-warp frequency for `tustin-prewarp`, rad/s.
+    /// Pre-warp frequency for `tustin-prewarped`, rad/s.
     pub prewarp_rad_s: Option<f64>,
     pub time: TimeOptions,
     /// The continuous design's own figures (None for a controller in z).
@@ -228,8 +228,8 @@ pub struct PreparedLoop {
 impl PreparedLoop {
     /// Prepare a loop; `prewarp_hz` None means the continuous crossover.
     pub fn new(
-        plant: &Tf,
-        sensor: &Tf,
+        plant: &Transfer,
+        sensor: &Transfer,
         controller: &Controller,
         prewarp_hz: Option<f64>,
         time: TimeOptions,
@@ -247,8 +247,8 @@ impl PreparedLoop {
         if let Controller::Discrete(d) = controller {
             // Map the z-plane poles and zeros back to rad/s for the grid.
             let back = |z: &C64| z.ln() / d.period_s;
-            let p = d.tf.poles().ok_or(ModelError::Eigen)?;
-            let z = d.tf.zeros().ok_or(ModelError::Eigen)?;
+            let p = d.transfer.poles().ok_or(ModelError::Eigen)?;
+            let z = d.transfer.zeros().ok_or(ModelError::Eigen)?;
             roots.extend(
                 p.iter()
                     .chain(z.iter())
@@ -316,7 +316,7 @@ impl PreparedLoop {
         &self,
         rate_hz: f64,
         method: Option<Method>,
-    ) -> Result<DiscreteTf, String> {
+    ) -> Result<DiscreteTransfer, String> {
         let period = 1.0 / rate_hz;
         match (&self.controller, method) {
             (Controller::Continuous(c), Some(m)) => {
@@ -360,7 +360,7 @@ impl PreparedLoop {
     pub fn sampled_loop(
         &self,
         p: &Point,
-    ) -> Result<(HoldEquivalent, DiscreteTf, ClosedLoop), String> {
+    ) -> Result<(HoldEquivalent, DiscreteTransfer, ClosedLoop), String> {
         check_point(p)?;
         let c = self.controller_at(p.rate_hz, p.method)?;
         let (hold, cl) = self.sampled_loop_with(p, &c)?;
@@ -372,7 +372,7 @@ impl PreparedLoop {
     pub fn sampled_loop_with(
         &self,
         p: &Point,
-        c: &DiscreteTf,
+        c: &DiscreteTransfer,
     ) -> Result<(HoldEquivalent, ClosedLoop), String> {
         let hold = self.hold_equivalent(p)?;
         let cl = ClosedLoop::new(&hold, c).map_err(|e| format!("closing the loop: {e}"))?;
@@ -426,7 +426,7 @@ impl PreparedLoop {
     pub fn sampled_with_on(
         &self,
         p: &Point,
-        c: &DiscreteTf,
+        c: &DiscreteTransfer,
         plant: Result<&PlantAt, &str>,
     ) -> Evaluation {
         if let Err(e) = check_point(p) {
@@ -444,7 +444,7 @@ impl PreparedLoop {
 
     /// Evaluate the exact sampled-data loop at one point with the given
     /// controller in place of the point's own discretization.
-    pub fn sampled_with(&self, p: &Point, c: &DiscreteTf) -> Evaluation {
+    pub fn sampled_with(&self, p: &Point, c: &DiscreteTransfer) -> Evaluation {
         match self.sampled_loop_with(p, c) {
             Ok((hold, cl)) => {
                 let pulse = hold.augmented();
@@ -461,7 +461,7 @@ impl PreparedLoop {
     fn evaluate_closed(
         &self,
         hold: &HoldEquivalent,
-        c: &DiscreteTf,
+        c: &DiscreteTransfer,
         cl: &ClosedLoop,
         plant: &dyn Fn(f64) -> C64,
     ) -> Evaluation {
@@ -479,7 +479,7 @@ impl PreparedLoop {
             Err(e) => return Evaluation::error(e),
         };
         let t = hold.period_s;
-        let l = |w: f64| c.tf.eval(C64::from_polar(1.0, w * t)) * plant(w);
+        let l = |w: f64| c.transfer.eval(C64::from_polar(1.0, w * t)) * plant(w);
         let range = self.range_below(std::f64::consts::PI / t);
         let freq = loop_figures(&l, &range);
         finish(step, dist, freq, &poles)
@@ -512,7 +512,7 @@ impl PreparedLoop {
         let t = hold.period_s;
         Ok(move |w: f64| {
             let z = C64::from_polar(1.0, w * t);
-            c.tf.eval(z) * plant_z.response_at(z, 0)
+            c.transfer.eval(z) * plant_z.response_at(z, 0)
         })
     }
 
@@ -543,7 +543,7 @@ impl PreparedLoop {
         let Controller::Continuous(c) = &self.controller else {
             return Evaluation::error("the controller is given in z: no continuous design");
         };
-        let act = approx.map(|(k, theta)| k.tf(theta));
+        let act = approx.map(|(k, theta)| k.transfer(theta));
         let cl = match ContinuousLoop::new(
             &self.plant_model,
             &self.plant,

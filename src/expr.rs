@@ -512,8 +512,8 @@ impl Parser {
 
 /// Numerator and denominator during evaluation.
 struct Rat {
-    num: Poly,
-    den: Poly,
+    numerator: Poly,
+    denominator: Poly,
 }
 
 fn check_degree(col: usize, degree: usize) -> Result<(), ExprError> {
@@ -532,13 +532,13 @@ fn mul_checked(col: usize, a: &Poly, b: &Poly) -> Result<Poly, ExprError> {
 }
 
 fn finish(col: usize, r: Rat) -> Result<Rat, ExprError> {
-    if !r.num.is_finite() || !r.den.is_finite() {
+    if !r.numerator.is_finite() || !r.denominator.is_finite() {
         return Err(ExprError::new(
             col,
             "a coefficient overflows here (not a finite number)",
         ));
     }
-    if r.den.is_zero() {
+    if r.denominator.is_zero() {
         return Err(ExprError::new(
             col,
             "the denominator underflows to the zero polynomial here",
@@ -550,12 +550,12 @@ fn finish(col: usize, r: Rat) -> Result<Rat, ExprError> {
 fn eval_node(node: &Node, lookup: &dyn Fn(&str) -> Option<f64>) -> Result<Rat, ExprError> {
     let r = match &node.kind {
         Kind::Num(v) => Rat {
-            num: Poly::constant(*v),
-            den: Poly::one(),
+            numerator: Poly::constant(*v),
+            denominator: Poly::one(),
         },
         Kind::Var => Rat {
-            num: Poly::var(),
-            den: Poly::one(),
+            numerator: Poly::var(),
+            denominator: Poly::one(),
         },
         Kind::Param(name) => {
             let v = lookup(name)
@@ -567,29 +567,29 @@ fn eval_node(node: &Node, lookup: &dyn Fn(&str) -> Option<f64>) -> Result<Rat, E
                 ));
             }
             Rat {
-                num: Poly::constant(v),
-                den: Poly::one(),
+                numerator: Poly::constant(v),
+                denominator: Poly::one(),
             }
         }
         Kind::Neg(inner) => {
             let r = eval_node(inner, lookup)?;
             Rat {
-                num: r.num.scale(-1.0),
-                den: r.den,
+                numerator: r.numerator.scale(-1.0),
+                denominator: r.denominator,
             }
         }
         Kind::Sum(first, rest) => {
             let mut acc = eval_node(first, lookup)?;
             for (op, col, term) in rest {
                 let t = eval_node(term, lookup)?;
-                let ad = mul_checked(*col, &acc.num, &t.den)?;
-                let bc = mul_checked(*col, &t.num, &acc.den)?;
+                let ad = mul_checked(*col, &acc.numerator, &t.denominator)?;
+                let bc = mul_checked(*col, &t.numerator, &acc.denominator)?;
                 let num = match op {
                     AddOp::Add => ad.add(&bc),
                     AddOp::Sub => ad.sub(&bc),
                 };
-                let den = mul_checked(*col, &acc.den, &t.den)?;
-                acc = finish(*col, Rat { num, den })?;
+                let den = mul_checked(*col, &acc.denominator, &t.denominator)?;
+                acc = finish(*col, Rat { numerator: num, denominator: den })?;
             }
             acc
         }
@@ -599,33 +599,33 @@ fn eval_node(node: &Node, lookup: &dyn Fn(&str) -> Option<f64>) -> Result<Rat, E
                 let f = eval_node(factor, lookup)?;
                 let (num, den) = match op {
                     MulOp::Mul => (
-                        mul_checked(*col, &acc.num, &f.num)?,
-                        mul_checked(*col, &acc.den, &f.den)?,
+                        mul_checked(*col, &acc.numerator, &f.numerator)?,
+                        mul_checked(*col, &acc.denominator, &f.denominator)?,
                     ),
                     MulOp::Div => {
-                        if f.num.is_zero() {
+                        if f.numerator.is_zero() {
                             return Err(ExprError::new(
                                 *col,
                                 "division by zero (the divisor is the zero polynomial)",
                             ));
                         }
                         (
-                            mul_checked(*col, &acc.num, &f.den)?,
-                            mul_checked(*col, &acc.den, &f.num)?,
+                            mul_checked(*col, &acc.numerator, &f.denominator)?,
+                            mul_checked(*col, &acc.denominator, &f.numerator)?,
                         )
                     }
                 };
-                acc = finish(*col, Rat { num, den })?;
+                acc = finish(*col, Rat { numerator: num, denominator: den })?;
             }
             acc
         }
         Kind::Pow(base, n, col) => {
             let b = eval_node(base, lookup)?;
             let n_us = *n as usize;
-            check_degree(*col, b.num.degree().max(b.den.degree()) * n_us)?;
+            check_degree(*col, b.numerator.degree().max(b.denominator.degree()) * n_us)?;
             Rat {
-                num: b.num.pow(*n),
-                den: b.den.pow(*n),
+                numerator: b.numerator.pow(*n),
+                denominator: b.denominator.pow(*n),
             }
         }
     };
@@ -689,7 +689,7 @@ impl Expr {
     /// the column responsible.
     pub fn eval(&self, lookup: &dyn Fn(&str) -> Option<f64>) -> Result<(Poly, Poly), ExprError> {
         let r = eval_node(&self.root, lookup)?;
-        Ok((r.num, r.den))
+        Ok((r.numerator, r.denominator))
     }
 
     /// [`Expr::eval`] with values given as `names[i] = values[i]`.

@@ -9,16 +9,16 @@
 
 use nalgebra::{DMatrix, DVector};
 
-use crate::ss::{ModelError, StateSpace, hold_integrals};
-use crate::tf::{DiscreteTf, Tf};
+use crate::state_space::{ModelError, StateSpace, hold_integrals};
+use crate::transfer::{DiscreteTransfer, Transfer};
 
 /// Plant and sensor in series as one continuous model with two outputs:
 /// row 0 is the plant output `y` (what the figures are taken on), row 1 the
 /// measured output `y_m` (what the controller samples). The input is the
 /// plant input (actuator command plus load disturbance).
-pub fn plant_and_sensor(plant: &Tf, sensor: &Tf) -> Result<StateSpace, ModelError> {
-    let p = StateSpace::from_tf(plant)?;
-    let h = StateSpace::from_tf(sensor)?;
+pub fn plant_and_sensor(plant: &Transfer, sensor: &Transfer) -> Result<StateSpace, ModelError> {
+    let p = StateSpace::from_transfer(plant)?;
+    let h = StateSpace::from_transfer(sensor)?;
     let (np, nh) = (p.order(), h.order());
     let n = np + nh;
     let mut a = DMatrix::zeros(n, n);
@@ -204,9 +204,9 @@ impl HoldEquivalent {
 
     /// Pulse transfer function `G(z)` from `u_k` to `y_k` (hold, delay,
     /// plant and sensor).
-    pub fn pulse_transfer(&self) -> Result<DiscreteTf, ModelError> {
-        Ok(DiscreteTf {
-            tf: self.augmented().to_tf(0)?,
+    pub fn pulse_transfer(&self) -> Result<DiscreteTransfer, ModelError> {
+        Ok(DiscreteTransfer {
+            transfer: self.augmented().to_transfer(0)?,
             period_s: self.period_s,
         })
     }
@@ -218,8 +218,8 @@ mod tests {
     use crate::poly::Poly;
 
     fn first_order() -> StateSpace {
-        let p = Tf::new(Poly::constant(2.0), Poly::from_descending(&[1.0, 2.0]));
-        plant_and_sensor(&p, &Tf::gain(1.0)).unwrap()
+        let p = Transfer::new(Poly::constant(2.0), Poly::from_descending(&[1.0, 2.0]));
+        plant_and_sensor(&p, &Transfer::gain(1.0)).unwrap()
     }
 
     #[test]
@@ -263,8 +263,8 @@ mod tests {
             .unwrap();
         for w in [0.3, 3.0, 30.0] {
             let z = nalgebra::Complex::from_polar(1.0, w * 0.1);
-            let a = g1.tf.eval(z);
-            let b = g0.tf.eval(z) / z;
+            let a = g1.transfer.eval(z);
+            let b = g0.transfer.eval(z) / z;
             assert!((a - b).norm() < 1e-12 * b.norm());
         }
     }

@@ -18,7 +18,7 @@ use looprate::evaluate::{Point, PreparedLoop};
 use looprate::expr::Expr;
 use looprate::pick::{Picked, case_grid, case_variants, prepare, sweep_and_pick};
 use looprate::search::Silent;
-use looprate::tf::{Controller, Tf};
+use looprate::transfer::{Controller, Transfer};
 use looprate::variants::VariantSet;
 use looprate::{outputs, summary, sweep};
 
@@ -39,14 +39,14 @@ enum Command {
     Discretize {
         /// Continuous controller, a rational expression in s, e.g. "0.05*(s+12)/s".
         #[arg(long = "tf")]
-        tf: String,
+        transfer: String,
         /// Loop rate, Hz.
         #[arg(long)]
         rate: f64,
-        /// zoh, foh, impulse, tustin, tustin-prewarp, matched, forward-euler, backward-euler.
+        /// zoh, foh, impulse, tustin, tustin-prewarped, matched, forward-euler, backward-euler.
         #[arg(long)]
         method: String,
-        /// Pre-warp frequency for tustin-prewarp, Hz.
+        /// Pre-warp frequency for tustin-prewarped, Hz.
         #[arg(long = "prewarp-hz")]
         prewarp_hz: Option<f64>,
         /// Print JSON (keys method, rate_hz, num, den, poles, zeros).
@@ -151,7 +151,7 @@ fn parse_method(name: &str) -> Result<Method> {
 fn run(cli: Cli) -> Result<ExitCode> {
     match cli.command {
         Command::Discretize {
-            tf,
+            transfer,
             rate,
             method,
             prewarp_hz,
@@ -163,23 +163,23 @@ fn run(cli: Cli) -> Result<ExitCode> {
             }
             let expr = Expr::parse(&tf).map_err(|e| {
                 anyhow!(
-                    "--tf: column {}: {}\n    {}\n    {}",
+                    "--transfer: column {}: {}\n    {}\n    {}",
                     e.column,
                     e.message,
-                    tf,
+                    transfer,
                     e.caret_line(&tf)
                 )
             })?;
             let (num, den) = expr.eval(&|_| None).map_err(|e| {
                 anyhow!(
-                    "--tf: column {}: {}\n    {}\n    {}",
+                    "--transfer: column {}: {}\n    {}\n    {}",
                     e.column,
                     e.message,
-                    tf,
+                    transfer,
                     e.caret_line(&tf)
                 )
             })?;
-            let c = Tf::new(num, den);
+            let c = Transfer::new(num, den);
             let w0 = prewarp_hz.map(|f| 2.0 * std::f64::consts::PI * f);
             let d =
                 discretize(&c, m, 1.0 / rate, w0).map_err(|e| anyhow!("{m} at {rate} Hz: {e}"))?;

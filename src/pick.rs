@@ -20,7 +20,7 @@ use crate::search::{
 };
 use crate::summary::fmt_num;
 use crate::sweep::{self, Plan, SweepRow};
-use crate::tf::Controller;
+use crate::transfer::Controller;
 use crate::time_response::TimeOptions;
 use crate::variants::{NamedValue, VariantSet};
 
@@ -226,7 +226,7 @@ pub struct FormatAtRate {
 /// The precision ceilings (`pick.json` key `precision`).
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct PrecisionReport {
-    /// `df2t` or `sos`.
+    /// `transposed-direct` or `sos`.
     pub structure: String,
     /// The format that bounds the rate window (the first listed).
     pub window_format: String,
@@ -405,7 +405,7 @@ pub fn pick(
                 controller.as_ref(),
                 case.arithmetic
                     .as_ref()
-                    .map_or(Structure::Df2t, |a| a.structure),
+                    .map_or(Structure::TransposedDirect, |a| a.structure),
                 precision::design_integrators(&lp.controller),
             );
             (c, c.map(|c| budget::load_pct(b, c, rate)))
@@ -912,7 +912,7 @@ fn other_method_advice(
     let structure = case
         .arithmetic
         .as_ref()
-        .map_or(Structure::Df2t, |a| a.structure);
+        .map_or(Structure::TransposedDirect, |a| a.structure);
     let integrators = precision::design_integrators(&lp.controller);
     let answers = report.answers();
     let at_design: Vec<(Method, f64)> = answers

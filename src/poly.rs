@@ -222,7 +222,7 @@ impl Poly {
         for i in 1..n {
             comp[(i, i - 1)] = 1.0;
         }
-        let mut vals = crate::ss::eigenvalues(&comp).ok()?;
+        let mut vals = crate::state_space::eigenvalues(&comp).ok()?;
         for v in vals.iter_mut() {
             *v = p.polish_root(*v);
         }

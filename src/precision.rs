@@ -36,7 +36,7 @@ use crate::case::Spec;
 use crate::evaluate::{PlantAt, Point, PreparedLoop};
 use crate::feasibility::{Assessment, UNSTABLE_SLACK, assess};
 use crate::poly::{C64, Poly};
-use crate::tf::{Controller, DiscreteTf, Tf};
+use crate::transfer::{Controller, DiscreteTransfer, Transfer};
 
 /// A number format for the stored coefficients.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
@@ -99,7 +99,7 @@ impl FromStr for Format {
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Structure {
     /// One direct form II transposed section of the full order.
-    Df2t,
+    TransposedDirect,
     /// A cascade of second-order sections (each in direct form II
     /// transposed) and one gain.
     Sos,
@@ -109,7 +109,7 @@ impl Structure {
     /// Name in files and output.
     pub fn name(&self) -> &'static str {
         match self {
-            Structure::Df2t => "df2t",
+            Structure::TransposedDirect => "transposed-direct",
             Structure::Sos => "sos",
         }
     }
@@ -119,10 +119,10 @@ impl FromStr for Structure {
     type Err = String;
     fn from_str(s: &str) -> Result<Self, String> {
         match s {
-            "df2t" => Ok(Structure::Df2t),
+            "transposed-direct" => Ok(Structure::TransposedDirect),
             "sos" => Ok(Structure::Sos),
             _ => Err(format!(
-                "unknown structure `{s}`; expected \"df2t\" or \"sos\""
+                "unknown structure `{s}`; expected \"transposed-direct\" or \"sos\""
             )),
         }
     }
@@ -201,7 +201,7 @@ impl Damage {
 /// coefficients realise, and the damage measured.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Quantized {
-    pub controller: DiscreteTf,
+    pub controller: DiscreteTransfer,
     pub realization: Realization,
     pub damage: Damage,
 }
@@ -211,24 +211,24 @@ pub struct Quantized {
 /// design (the continuous controller's poles at s = 0); those poles are
 /// placed exactly at 1 in the `sos` factors.
 pub fn realize(
-    c: &DiscreteTf,
+    c: &DiscreteTransfer,
     structure: Structure,
     integrators: usize,
 ) -> Result<Realization, String> {
-    let n = c.tf.den.degree();
-    let m = c.tf.num.degree();
-    if c.tf.num.is_zero() {
+    let n = c.transfer.denominator.degree();
+    let m = c.transfer.numerator.degree();
+    if c.transfer.numerator.is_zero() {
         return Err("the controller is identically zero".into());
     }
     if m > n {
         return Err("the controller is not proper".into());
     }
     match structure {
-        Structure::Df2t => {
-            let d = c.tf.den.descending();
+        Structure::TransposedDirect => {
+            let d = c.transfer.denominator.descending();
             let lead = d[0];
             let mut b = vec![0.0; n - m];
-            b.extend(c.tf.num.descending());
+            b.extend(c.transfer.numerator.descending());
             Ok(Realization {
                 gain: 1.0,
                 delay: 0,
@@ -240,15 +240,15 @@ pub fn realize(
         }
         Structure::Sos => {
             let mut poles =
-                c.tf.den
+                c.transfer.denominator
                     .roots()
                     .ok_or("the controller's poles could not be found")?;
             snap_to_one(&mut poles, integrators);
             let zeros =
-                c.tf.num
+                c.transfer.numerator
                     .roots()
                     .ok_or("the controller's zeros could not be found")?;
-            let gain = c.tf.num.leading() / c.tf.den.leading();
+            let gain = c.transfer.numerator.leading() / c.transfer.denominator.leading();
             // Integrators get sections of their own (`1 - q` or
             // `1 - 2q + q^2`), whose coefficients every format holds
             // exactly, so rounding never moves them off z = 1.
@@ -350,7 +350,7 @@ fn snap_to_one(roots: &mut [C64], k: usize) {
 }
 
 /// The transfer function in z that a realization computes, at `period_s`.
-pub fn transfer(r: &Realization, period_s: f64) -> DiscreteTf {
+pub fn transfer(r: &Realization, period_s: f64) -> DiscreteTransfer {
     // Each section: (sum b_i q^i) / (1 + sum a_i q^i); with q = 1/z and the
     // section order k = max(len b - 1, len a), multiply through by z^k.
     let mut num = Poly::constant(r.gain);
@@ -372,8 +372,8 @@ pub fn transfer(r: &Realization, period_s: f64) -> DiscreteTf {
     // q^delay = z^-delay: multiply the denominator by z^delay.
     let mut shifted = vec![0.0; r.delay];
     shifted.extend_from_slice(den.coeffs());
-    DiscreteTf {
-        tf: Tf::new(num, Poly::new(shifted)),
+    DiscreteTransfer {
+        transfer: Transfer::new(num, Poly::new(shifted)),
         period_s,
     }
 }
@@ -500,7 +500,7 @@ pub fn poles_at_one(r: &Realization) -> usize {
 /// in `structure` and `format`, and measure the damage; `check_w_rad_s`
 /// is where the gain error is measured (the loop's crossover).
 pub fn quantize(
-    c: &DiscreteTf,
+    c: &DiscreteTransfer,
     integrators: usize,
     structure: Structure,
     format: Format,
@@ -537,11 +537,11 @@ pub fn quantize(
         ),
         _ => {
             let mut p0 =
-                c.tf.den
+                c.transfer.denominator
                     .roots()
                     .ok_or("the controller's poles could not be found")?;
             let mut p1 =
-                q.tf.den
+                q.transfer.denominator
                     .roots()
                     .ok_or("the rounded controller's poles could not be found")?;
             snap_to_one(&mut p0, integrators);
@@ -549,8 +549,8 @@ pub fn quantize(
             (
                 p0,
                 p1,
-                c.tf.num.roots().unwrap_or_default(),
-                q.tf.num.roots().unwrap_or_default(),
+                c.transfer.numerator.roots().unwrap_or_default(),
+                q.transfer.numerator.roots().unwrap_or_default(),
                 c.clone(),
             )
         }
@@ -649,8 +649,8 @@ fn rel_pct(a: f64, b: f64) -> Option<f64> {
 
 /// `lim_{z->1} (z-1)^k C(z)`: `N(1) k! / D^(k)(1)` (the k-th derivative of
 /// the denominator at 1), which needs no division by a vanishing `D(1)`.
-fn integral_gain(c: &DiscreteTf, k: usize) -> f64 {
-    let mut d = c.tf.den.coeffs().to_vec();
+fn integral_gain(c: &DiscreteTransfer, k: usize) -> f64 {
+    let mut d = c.transfer.denominator.coeffs().to_vec();
     let mut fact = 1.0;
     for i in 0..k {
         d = d
@@ -662,7 +662,7 @@ fn integral_gain(c: &DiscreteTf, k: usize) -> f64 {
         fact *= (i + 1) as f64;
     }
     let dk: f64 = d.iter().sum();
-    c.tf.num.eval(1.0) * fact / dk
+    c.transfer.numerator.eval(1.0) * fact / dk
 }
 
 /// Pairs of roots (exact, rounded) matched greedily by distance.
@@ -716,9 +716,9 @@ fn max_shift(a: &[C64], b: &[C64]) -> f64 {
 /// about 1e-8, so a tighter test would miss a double integrator).
 pub fn design_integrators(controller: &Controller) -> usize {
     match controller {
-        Controller::Continuous(c) => c.den.zero_root_count(),
+        Controller::Continuous(c) => c.denominator.zero_root_count(),
         Controller::Discrete(d) => {
-            d.tf.den
+            d.transfer.denominator
                 .roots()
                 .map_or(0, |r| r.iter().filter(|p| (*p - 1.0).norm() < 1e-6).count())
         }
@@ -745,7 +745,7 @@ pub struct PrecisionPoint {
 pub const NOT_REPRESENTABLE: &str = "coefficients";
 
 /// Name of the verdict when the controller cannot be built at this rate
-/// (e.g. `tustin-prewarp` with the pre-warp frequency at or above Nyquist).
+/// (e.g. `tustin-prewarped` with the pre-warp frequency at or above Nyquist).
 pub const NO_CONTROLLER: &str = "controller";
 
 fn failed(name: &'static str) -> Assessment {
@@ -831,8 +831,8 @@ mod tests {
             C64::new(0.8, -0.244_948_974_278_317_8),
             C64::new(0.3, 0.0),
         ]);
-        let c = DiscreteTf {
-            tf: Tf::new(num, den),
+        let c = DiscreteTransfer {
+            transfer: Transfer::new(num, den),
             period_s: 1e-3,
         };
         let r = realize(&c, Structure::Sos, 1).unwrap();

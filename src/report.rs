@@ -15,7 +15,7 @@ use crate::outputs::write_atomic;
 use crate::pick::{PickReport, Recommended};
 use crate::poly::Poly;
 use crate::summary::fmt_num;
-use crate::tf::{Controller, Tf};
+use crate::transfer::{Controller, Transfer};
 
 /// File name of the Markdown report.
 pub const REPORT_MD: &str = "report.md";
@@ -95,20 +95,20 @@ fn poly_text(p: &Poly, var: &str) -> String {
     if out.is_empty() { "0".into() } else { out }
 }
 
-/// A transfer function as `num / (den)`, or just `num` over a unit
+/// A transfer function as `num / (den)`, or just `numerator` over a unit
 /// denominator.
-fn tf_text(tf: &Tf, var: &str) -> String {
-    let num = poly_text(&tf.num, var);
-    let d = tf.den.descending();
+fn tf_text(tf: &Transfer, var: &str) -> String {
+    let num = poly_text(&tf.numerator, var);
+    let d = tf.denominator.descending();
     if d.len() == 1 && d[0] == 1.0 {
         return num;
     }
-    let num = if tf.num.descending().iter().filter(|c| **c != 0.0).count() > 1 {
+    let num = if tf.numerator.descending().iter().filter(|c| **c != 0.0).count() > 1 {
         format!("({num})")
     } else {
         num
     };
-    format!("{num} / ({})", poly_text(&tf.den, var))
+    format!("{num} / ({})", poly_text(&tf.denominator, var))
 }
 
 /// The figures of the loop model, in report order: key, label with unit,
@@ -247,7 +247,7 @@ fn blocks(
         ),
         Controller::Discrete(d) => format!(
             "controller C(z) = `{}`, given in z at {} Hz",
-            tf_text(&d.tf, "z"),
+            tf_text(&d.transfer, "z"),
             fmt_num(1.0 / d.period_s)
         ),
     });
@@ -851,7 +851,7 @@ mod tests {
         assert_eq!(poly_text(&p, "s"), "0.05*s^2 + s");
         let q = Poly::from_descending(&[1.0, -1.5, 0.5]);
         assert_eq!(poly_text(&q, "z"), "z^2 - 1.5*z + 0.5");
-        let tf = Tf::new(Poly::from_descending(&[20.0]), p);
+        let tf = Transfer::new(Poly::from_descending(&[20.0]), p);
         assert_eq!(tf_text(&tf, "s"), "20 / (0.05*s^2 + s)");
     }
 

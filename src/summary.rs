@@ -11,7 +11,7 @@ use crate::evaluate::{Evaluation, Figures};
 use crate::feasibility::check_figures;
 use crate::pick::PickReport;
 use crate::poly::C64;
-use crate::tf::DiscreteTf;
+use crate::transfer::DiscreteTransfer;
 
 /// Format a number for tables: 4 significant digits, engineering-friendly.
 pub fn fmt_num(v: f64) -> String {
@@ -45,26 +45,26 @@ pub fn complex_pairs(v: &[C64]) -> Vec<[f64; 2]> {
 }
 
 /// `looprate discretize` output.
-pub fn discretized_text(method: &str, rate_hz: f64, c: &DiscreteTf) -> String {
+pub fn discretized_text(method: &str, rate_hz: f64, c: &DiscreteTransfer) -> String {
     let mut s = String::new();
     let _ = writeln!(s, "method   {method}");
     let _ = writeln!(s, "rate     {rate_hz} Hz (T = {} s)", 1.0 / rate_hz);
-    let _ = writeln!(s, "num(z)   {:?}", c.tf.num.descending());
-    let _ = writeln!(s, "den(z)   {:?}", c.tf.den.descending());
-    let _ = writeln!(s, "poles    {}", roots_text(c.tf.poles()));
-    let _ = writeln!(s, "zeros    {}", roots_text(c.tf.zeros()));
+    let _ = writeln!(s, "numerator(z)   {:?}", c.transfer.numerator.descending());
+    let _ = writeln!(s, "denominator(z) {:?}", c.transfer.denominator.descending());
+    let _ = writeln!(s, "poles    {}", roots_text(c.transfer.poles()));
+    let _ = writeln!(s, "zeros    {}", roots_text(c.transfer.zeros()));
     s
 }
 
 /// `looprate discretize --json` output.
-pub fn discretized_json(method: &str, rate_hz: f64, c: &DiscreteTf) -> Value {
+pub fn discretized_json(method: &str, rate_hz: f64, c: &DiscreteTransfer) -> Value {
     json!({
         "method": method,
         "rate_hz": rate_hz,
-        "num": c.tf.num.descending(),
-        "den": c.tf.den.descending(),
-        "poles": c.tf.poles().map(|v| complex_pairs(&v)),
-        "zeros": c.tf.zeros().map(|v| complex_pairs(&v)),
+        "numerator": c.transfer.numerator.descending(),
+        "denominator": c.transfer.denominator.descending(),
+        "poles": c.transfer.poles().map(|v| complex_pairs(&v)),
+        "zeros": c.transfer.zeros().map(|v| complex_pairs(&v)),
     })
 }
 
@@ -574,13 +574,13 @@ fn roots_text(v: Option<Vec<C64>>) -> String {
 /// `looprate check`: each block with its poles and zeros, and the
 /// continuous loop's figures.
 pub fn check_text(case: &crate::case::Case, lp: &crate::evaluate::PreparedLoop) -> String {
-    use crate::tf::{Controller, Tf};
+    use crate::transfer::{Controller, Transfer};
     let mut s = String::new();
     let _ = writeln!(s, "{} ({})", case.title, case.source.display());
-    let block = |s: &mut String, name: &str, tf: &Tf, var: &str| {
+    let block = |s: &mut String, name: &str, tf: &Transfer, var: &str| {
         let _ = writeln!(s, "\n{name}");
-        let _ = writeln!(s, "  num({var}) {:?}", tf.num.descending());
-        let _ = writeln!(s, "  den({var}) {:?}", tf.den.descending());
+        let _ = writeln!(s, "  num({var}) {:?}", tf.numerator.descending());
+        let _ = writeln!(s, "  den({var}) {:?}", tf.denominator.descending());
         let _ = writeln!(s, "  poles    {}", roots_text(tf.poles()));
         let _ = writeln!(s, "  zeros    {}", roots_text(tf.zeros()));
     };
@@ -591,7 +591,7 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::evaluate::PreparedLoop) 
         Controller::Discrete(d) => block(
             &mut s,
             &format!("controller C(z) at {} Hz", 1.0 / d.period_s),
-            &d.tf,
+            &d.transfer,
             "z",
         ),
     }

@@ -167,7 +167,7 @@ fn evaluate_row_on(plan: &Plan, p: &Point, plants: Option<&Plants>) -> SweepRow 
         },
     };
     let assessment = assess(&eval, plan.spec);
-    let structure = plan.arithmetic.map_or(Structure::Df2t, |a| a.structure);
+    let structure = plan.arithmetic.map_or(Structure::TransposedDirect, |a| a.structure);
     let cpu_load_pct = plan.budget.and_then(|b| {
         let integrators = precision::design_integrators(&lp.controller);
         budget::cycles_per_update(b, controller.as_ref().ok(), structure, integrators)

@@ -3,7 +3,7 @@
 //! loop, and the verdict over all of them at one grid point.
 //!
 //! The controller is the design: it is built from the nominal parameter
-//! values (including the `tustin-prewarp` frequency) and runs unchanged
+//! values (including the `tustin-prewarped` frequency) and runs unchanged
 //! against every variant, as it would on the bench. Its discretization at
 //! a rate is therefore computed once and shared by every variant.
 //!
@@ -18,7 +18,7 @@ use crate::case::{Case, Spec, UncertaintyMode};
 use crate::error::Error;
 use crate::evaluate::{Evaluation, Figures, PlantAt, Point, PreparedLoop};
 use crate::feasibility::{Assessment, assess};
-use crate::tf::DiscreteTf;
+use crate::transfer::DiscreteTransfer;
 
 /// Parameter values of every variant, in the order of [`Case::params`]:
 /// the nominal values first, then every corner of the box of ranges (the
@@ -189,7 +189,7 @@ impl VariantSet {
         &self,
         spec: &Spec,
         p: &Point,
-        c: Result<&DiscreteTf, &str>,
+        c: Result<&DiscreteTransfer, &str>,
         keep: bool,
         plants: Option<&[Result<PlantAt, String>]>,
     ) -> (Evaluation, RobustPoint) {

@@ -15,10 +15,10 @@ const BASE: &[(&str, &str)] = &[
     ("params", ""),
     (
         "plant",
-        "[plant]\ntf = \"38 / ((0.42*s + 1) * (0.004*s + 1))\"\n",
+        "[plant]\ntransfer = \"38 / ((0.42*s + 1) * (0.004*s + 1))\"\n",
     ),
-    ("sensor", "[sensor]\ntf = \"1 / (0.0008*s + 1)\"\n"),
-    ("controller", "[controller]\ntf = \"0.05 * (s + 12) / s\"\n"),
+    ("sensor", "[sensor]\ntransfer = \"1 / (0.0008*s + 1)\"\n"),
+    ("controller", "[controller]\ntransfer = \"0.05 * (s + 12) / s\"\n"),
     ("timing", "[timing]\ncompute_delay = 0.5\n"),
     (
         "rates",
@@ -26,7 +26,7 @@ const BASE: &[(&str, &str)] = &[
     ),
     (
         "methods",
-        "[methods]\nuse = [\"tustin\", \"matched\", \"zoh\"]\n",
+        "[methods]\nuse = [\"tustin\", \"pole-zero-match\", \"step-invariant\"]\n",
     ),
     ("spec", "[spec]\nmax_overshoot_pct = 20\n"),
     ("budget", ""),
@@ -85,44 +85,44 @@ const BAD: &[Bad] = &[
     // Models.
     (
         "improper plant",
-        &[("plant", "[plant]\ntf = \"s^2 / (s + 1)\"\n")],
-        "plant.tf",
+        &[("plant", "[plant]\ntransfer = \"s^2 / (s + 1)\"\n")],
+        "plant.transfer",
         &["improper plant", "degree 2", "degree 1"],
     ),
     (
         "improper sensor",
-        &[("sensor", "[sensor]\ntf = \"s + 1\"\n")],
-        "sensor.tf",
+        &[("sensor", "[sensor]\ntransfer = \"s + 1\"\n")],
+        "sensor.transfer",
         &["improper sensor"],
     ),
     (
         "improper controller",
-        &[("controller", "[controller]\ntf = \"s\"\n")],
-        "controller.tf",
+        &[("controller", "[controller]\ntransfer = \"s\"\n")],
+        "controller.transfer",
         &["improper controller"],
     ),
     (
         "zero denominator",
-        &[("plant", "[plant]\ntf = \"1 / (s - s)\"\n")],
-        "plant.tf",
+        &[("plant", "[plant]\ntransfer = \"1 / (s - s)\"\n")],
+        "plant.transfer",
         &["column 3", "division by zero"],
     ),
     (
         "zero plant",
-        &[("plant", "[plant]\ntf = \"0 / (s + 1)\"\n")],
-        "plant.tf",
+        &[("plant", "[plant]\ntransfer = \"0 / (s + 1)\"\n")],
+        "plant.transfer",
         &["identically zero"],
     ),
     (
         "zero controller",
-        &[("controller", "[controller]\ntf = \"0*s/(s+1)\"\n")],
-        "controller.tf",
+        &[("controller", "[controller]\ntransfer = \"0*s/(s+1)\"\n")],
+        "controller.transfer",
         &["identically zero"],
     ),
     (
         "zero sensor",
-        &[("sensor", "[sensor]\ntf = \"0\"\n")],
-        "sensor.tf",
+        &[("sensor", "[sensor]\ntransfer = \"0\"\n")],
+        "sensor.transfer",
         &["identically zero"],
     ),
     (
@@ -133,14 +133,14 @@ const BAD: &[Bad] = &[
     ),
     (
         "number overflowing to infinity",
-        &[("plant", "[plant]\ntf = \"1e999 / (s + 1)\"\n")],
-        "plant.tf",
+        &[("plant", "[plant]\ntransfer = \"1e999 / (s + 1)\"\n")],
+        "plant.transfer",
         &["column 1", "overflows"],
     ),
     (
         "coefficient overflowing in arithmetic",
-        &[("plant", "[plant]\ntf = \"1e300 * 1e300 / (s + 1)\"\n")],
-        "plant.tf",
+        &[("plant", "[plant]\ntransfer = \"1e300 * 1e300 / (s + 1)\"\n")],
+        "plant.transfer",
         &["column 7", "not a finite number"],
     ),
     (
@@ -163,25 +163,25 @@ const BAD: &[Bad] = &[
     ),
     (
         "empty expression",
-        &[("plant", "[plant]\ntf = \"   \"\n")],
-        "plant.tf",
+        &[("plant", "[plant]\ntransfer = \"   \"\n")],
+        "plant.transfer",
         &["column 1", "empty expression"],
     ),
     (
         "unbalanced parentheses",
-        &[("plant", "[plant]\ntf = \"38 / ((0.42*s + 1)\"\n")],
-        "plant.tf",
+        &[("plant", "[plant]\ntransfer = \"38 / ((0.42*s + 1)\"\n")],
+        "plant.transfer",
         &["column 6", "never closed"],
     ),
     (
         "bad exponent",
-        &[("plant", "[plant]\ntf = \"1 / (s + 1)^-2\"\n")],
-        "plant.tf",
+        &[("plant", "[plant]\ntransfer = \"1 / (s + 1)^-2\"\n")],
+        "plant.transfer",
         &["column 13", "negative"],
     ),
     (
         "plant given two ways",
-        &[("plant", "[plant]\ntf = \"1/(s+1)\"\npoles = [-1]\n")],
+        &[("plant", "[plant]\ntransfer = \"1/(s+1)\"\npoles = [-1]\n")],
         "plant",
         &["two ways"],
     ),
@@ -223,9 +223,9 @@ const BAD: &[Bad] = &[
     // Controller forms.
     (
         "controller given two ways",
-        &[("controller", "[controller]\ntf = \"1\"\npid = { kp = 1 }\n")],
+        &[("controller", "[controller]\ntransfer = \"1\"\npid = { kp = 1 }\n")],
         "controller",
-        &["`tf`", "`pid`", "2 ways"],
+        &["`transfer`", "`pid`", "2 ways"],
     ),
     (
         "controller given three ways",
@@ -237,7 +237,7 @@ const BAD: &[Bad] = &[
         &[
             "`zeros`/`poles`/`gain`",
             "`pid`",
-            "`num_z`/`den_z`/`rate_hz`",
+            "`numerator_z`/`denominator_z`/`rate_hz`",
         ],
     ),
     (
@@ -300,7 +300,7 @@ const BAD: &[Bad] = &[
             ),
             ("methods", ""),
         ],
-        "controller.den_z",
+        "controller.denominator_z",
         &["leading"],
     ),
     (
@@ -312,7 +312,7 @@ const BAD: &[Bad] = &[
             ),
             ("methods", ""),
         ],
-        "controller.num_z",
+        "controller.numerator_z",
         &["non-causal"],
     ),
     (
@@ -324,7 +324,7 @@ const BAD: &[Bad] = &[
             ),
             ("methods", ""),
         ],
-        "controller.num_z[1]",
+        "controller.numerator_z[1]",
         &["finite"],
     ),
     (
@@ -348,17 +348,17 @@ const BAD: &[Bad] = &[
     // Parameters.
     (
         "unbound identifier",
-        &[("plant", "[plant]\ntf = \"k / (tau*s + 1)\"\n")],
-        "plant.tf",
+        &[("plant", "[plant]\ntransfer = \"k / (tau*s + 1)\"\n")],
+        "plant.transfer",
         &["column 1", "unbound identifier `k`"],
     ),
     (
         "unbound identifier, later column",
         &[
             ("params", "[params]\nk = 38\n"),
-            ("plant", "[plant]\ntf = \"k / (tau*s + 1)\"\n"),
+            ("plant", "[plant]\ntransfer = \"k / (tau*s + 1)\"\n"),
         ],
-        "plant.tf",
+        "plant.transfer",
         &["column 6", "unbound identifier `tau`"],
     ),
     (
@@ -374,7 +374,7 @@ const BAD: &[Bad] = &[
                 "params",
                 "[params]\nk = { nominal = 38, min = 40, max = 46 }\n",
             ),
-            ("plant", "[plant]\ntf = \"k / (s + 1)\"\n"),
+            ("plant", "[plant]\ntransfer = \"k / (s + 1)\"\n"),
         ],
         "params.k",
         &["min <= nominal <= max"],
@@ -386,7 +386,7 @@ const BAD: &[Bad] = &[
                 "params",
                 "[params]\nk = { nominal = 50, min = 30, max = 46 }\n",
             ),
-            ("plant", "[plant]\ntf = \"k / (s + 1)\"\n"),
+            ("plant", "[plant]\ntransfer = \"k / (s + 1)\"\n"),
         ],
         "params.k",
         &["min <= nominal <= max"],
@@ -395,7 +395,7 @@ const BAD: &[Bad] = &[
         "parameter not finite",
         &[
             ("params", "[params]\nk = nan\n"),
-            ("plant", "[plant]\ntf = \"k / (s + 1)\"\n"),
+            ("plant", "[plant]\ntransfer = \"k / (s + 1)\"\n"),
         ],
         "params.k.nominal",
         &["finite"],
@@ -404,7 +404,7 @@ const BAD: &[Bad] = &[
         "parameter range not finite",
         &[
             ("params", "[params]\nk = { nominal = 1, max = inf }\n"),
-            ("plant", "[plant]\ntf = \"k / (s + 1)\"\n"),
+            ("plant", "[plant]\ntransfer = \"k / (s + 1)\"\n"),
         ],
         "params.k.max",
         &["finite"],
@@ -413,7 +413,7 @@ const BAD: &[Bad] = &[
         "parameter without nominal",
         &[
             ("params", "[params]\nk = { min = 1, max = 2 }\n"),
-            ("plant", "[plant]\ntf = \"k / (s + 1)\"\n"),
+            ("plant", "[plant]\ntransfer = \"k / (s + 1)\"\n"),
         ],
         "params.k.nominal",
         &["missing"],
@@ -422,7 +422,7 @@ const BAD: &[Bad] = &[
         "parameter unknown key",
         &[
             ("params", "[params]\nk = { nominal = 1, typical = 2 }\n"),
-            ("plant", "[plant]\ntf = \"k / (s + 1)\"\n"),
+            ("plant", "[plant]\ntransfer = \"k / (s + 1)\"\n"),
         ],
         "params.k.typical",
         &["unknown key"],
@@ -437,7 +437,7 @@ const BAD: &[Bad] = &[
         "parameter of the wrong type",
         &[
             ("params", "[params]\nk = \"38\"\n"),
-            ("plant", "[plant]\ntf = \"k / (s + 1)\"\n"),
+            ("plant", "[plant]\ntransfer = \"k / (s + 1)\"\n"),
         ],
         "params.k",
         &["found a string"],
@@ -449,9 +449,9 @@ const BAD: &[Bad] = &[
                 "params",
                 "[params]\na = { nominal = 0.5, min = 0, max = 1 }\n",
             ),
-            ("plant", "[plant]\ntf = \"s / (a*s + 1)\"\n"),
+            ("plant", "[plant]\ntransfer = \"s / (a*s + 1)\"\n"),
         ],
-        "plant.tf",
+        "plant.transfer",
         &["with a = 0", "improper plant"],
     ),
     // Unknown keys and wrong types.
@@ -475,7 +475,7 @@ const BAD: &[Bad] = &[
     ),
     (
         "unknown key in plant",
-        &[("plant", "[plant]\ntf = \"1/(s+1)\"\ndelay = 0.1\n")],
+        &[("plant", "[plant]\ntransfer = \"1/(s+1)\"\ndelay = 0.1\n")],
         "plant.delay",
         &["unknown field"],
     ),
@@ -505,10 +505,10 @@ const BAD: &[Bad] = &[
         "duplicate method",
         &[(
             "methods",
-            "[methods]\nuse = [\"zoh\", \"tustin\", \"zoh\"]\n",
+            "[methods]\nuse = [\"step-invariant\", \"tustin\", \"step-invariant\"]\n",
         )],
         "methods.use[2]",
-        &["`zoh` is listed twice"],
+        &["`step-invariant` is listed twice"],
     ),
     (
         "no methods for a continuous controller",
@@ -526,7 +526,7 @@ const BAD: &[Bad] = &[
         "prewarp not positive",
         &[(
             "methods",
-            "[methods]\nuse = [\"tustin-prewarp\"]\nprewarp_hz = -8\n",
+            "[methods]\nuse = [\"tustin-prewarped\"]\nprewarp_hz = -8\n",
         )],
         "methods.prewarp_hz",
         &["greater than zero"],
@@ -709,7 +709,7 @@ const BAD: &[Bad] = &[
                 "params",
                 "[params]\nk = { nominal = 38, min = 30, max = 46 }\n",
             ),
-            ("plant", "[plant]\ntf = \"k / (s + 1)\"\n"),
+            ("plant", "[plant]\ntransfer = \"k / (s + 1)\"\n"),
             (
                 "uncertainty",
                 "[uncertainty]\nmode = \"samples\"\nsamples = 0\n",
@@ -725,7 +725,7 @@ const BAD: &[Bad] = &[
                 "params",
                 "[params]\nk = { nominal = 38, min = 30, max = 46 }\n",
             ),
-            ("plant", "[plant]\ntf = \"k / (s + 1)\"\n"),
+            ("plant", "[plant]\ntransfer = \"k / (s + 1)\"\n"),
             ("uncertainty", "[uncertainty]\nmode = \"monte-carlo\"\n"),
         ],
         "uncertainty.mode",
@@ -746,7 +746,7 @@ const BAD: &[Bad] = &[
             ),
             (
                 "plant",
-                "[plant]\ntf = \"a*b*c*d*e*f*g*h*i*j*k / (s + 1)\"\n",
+                "[plant]\ntransfer = \"a*b*c*d*e*f*g*h*i*j*k / (s + 1)\"\n",
             ),
             ("uncertainty", "[uncertainty]\nmode = \"corners\"\n"),
         ],
@@ -813,7 +813,7 @@ fn every_bad_input_names_file_and_field() {
 #[test]
 fn expression_errors_show_the_expression_and_a_caret() {
     // "38 / (0.42*s $ 1)": the `$` is the 14th character (counted by hand).
-    let text = text_with(&[("plant", "[plant]\ntf = \"38 / (0.42*s $ 1)\"\n")]);
+    let text = text_with(&[("plant", "[plant]\ntransfer = \"38 / (0.42*s $ 1)\"\n")]);
     let err = parse(&text).unwrap_err();
     match &err {
         CaseError::Expression {
@@ -828,7 +828,7 @@ fn expression_errors_show_the_expression_and_a_caret() {
     assert_eq!(
         shown,
         concat!(
-            "cases/belt.toml: field `plant.tf`: column 14: unexpected character `$`\n",
+            "cases/belt.toml: field `plant.transfer`: column 14: unexpected character `$`\n",
             "    38 / (0.42*s $ 1)\n",
             "                 ^",
         )
@@ -884,29 +884,29 @@ fn belt_conveyor_models_by_hand() {
     let m = case.nominal().unwrap();
     // 38 / ((0.42 s + 1)(0.004 s + 1)):
     // (0.42 s + 1)(0.004 s + 1) = 0.00168 s^2 + (0.42 + 0.004) s + 1.
-    close(m.plant.num.coeffs(), &[38.0]);
-    close(m.plant.den.coeffs(), &[1.0, 0.424, 0.00168]);
+    close(m.plant.numerator.coeffs(), &[38.0]);
+    close(m.plant.denominator.coeffs(), &[1.0, 0.424, 0.00168]);
     // Sensor 1 / (0.0008 s + 1).
-    close(m.sensor.num.coeffs(), &[1.0]);
-    close(m.sensor.den.coeffs(), &[1.0, 0.0008]);
+    close(m.sensor.numerator.coeffs(), &[1.0]);
+    close(m.sensor.denominator.coeffs(), &[1.0, 0.0008]);
     // 0.05 (s + 12) / s = (0.6 + 0.05 s) / s.
     let Controller::Continuous(c) = &m.controller else {
         panic!("expected a continuous controller");
     };
-    close(c.num.coeffs(), &[0.6, 0.05]);
-    close(c.den.coeffs(), &[0.0, 1.0]);
+    close(c.numerator.coeffs(), &[0.6, 0.05]);
+    close(c.denominator.coeffs(), &[0.0, 1.0]);
     assert_eq!(case.compute_delays, vec![0.5]);
     assert_eq!(
         case.methods,
-        vec![Method::Tustin, Method::Matched, Method::Zoh]
+        vec![Method::Tustin, Method::PoleZeroMatch, Method::StepInvariant]
     );
     assert_eq!(case.spec.max_overshoot_pct, Some(20.0));
 }
 
 #[test]
 fn defaults() {
-    let text = "[plant]\ntf = \"1/(s+1)\"\n[controller]\ntf = \"2\"\n\
-                [rates]\nmin_hz = 10\nmax_hz = 1000\n[methods]\nuse = [\"zoh\"]\n";
+    let text = "[plant]\ntransfer = \"1/(s+1)\"\n[controller]\ntransfer = \"2\"\n\
+                [rates]\nmin_hz = 10\nmax_hz = 1000\n[methods]\nuse = [\"step-invariant\"]\n";
     let case = Case::parse(text, Path::new("cases/first-order.toml")).unwrap();
     assert_eq!(case.title, "first-order");
     assert!(case.params.is_empty());
@@ -920,8 +920,8 @@ fn defaults() {
     assert_eq!(case.budget, None);
     assert_eq!(case.uncertainty, None);
     let m = case.nominal().unwrap();
-    assert_eq!(m.sensor.num.coeffs(), &[1.0]);
-    assert_eq!(m.sensor.den.coeffs(), &[1.0]);
+    assert_eq!(m.sensor.numerator.coeffs(), &[1.0]);
+    assert_eq!(m.sensor.denominator.coeffs(), &[1.0]);
 }
 
 #[test]
@@ -938,16 +938,16 @@ fn pid_expansion_by_hand() {
     let Controller::Continuous(c) = case.nominal().unwrap().controller else {
         panic!("expected a continuous controller");
     };
-    close(c.num.coeffs(), &[10.0, 2.1, 0.12]);
-    close(c.den.coeffs(), &[0.0, 1.0, 0.01]);
+    close(c.numerator.coeffs(), &[10.0, 2.1, 0.12]);
+    close(c.denominator.coeffs(), &[0.0, 1.0, 0.01]);
 
     // PI only: 3 + 6/s = (3 s + 6) / s.
     let case = ok(&[("controller", "[controller]\npid = { kp = 3, ki = 6 }\n")]);
     let Controller::Continuous(c) = case.nominal().unwrap().controller else {
         panic!("expected a continuous controller");
     };
-    close(c.num.coeffs(), &[6.0, 3.0]);
-    close(c.den.coeffs(), &[0.0, 1.0]);
+    close(c.numerator.coeffs(), &[6.0, 3.0]);
+    close(c.denominator.coeffs(), &[0.0, 1.0]);
 }
 
 #[test]
@@ -959,14 +959,14 @@ fn zeros_poles_gain_by_hand() {
         "[plant]\nzeros = [\"-2\"]\npoles = [-1, \"-3+4j\", \"-3 - 4j\"]\ngain = 5\n",
     )]);
     let m = case.nominal().unwrap();
-    close(m.plant.num.coeffs(), &[10.0, 5.0]);
-    close(m.plant.den.coeffs(), &[25.0, 31.0, 7.0, 1.0]);
+    close(m.plant.numerator.coeffs(), &[10.0, 5.0]);
+    close(m.plant.denominator.coeffs(), &[25.0, 31.0, 7.0, 1.0]);
 
     // Purely imaginary pair and default gain 1: 1 / (s^2 + 4).
     let case = ok(&[("sensor", "[sensor]\npoles = [\"2j\", \"-2j\"]\n")]);
     let m = case.nominal().unwrap();
-    close(m.sensor.num.coeffs(), &[1.0]);
-    close(m.sensor.den.coeffs(), &[4.0, 0.0, 1.0]);
+    close(m.sensor.numerator.coeffs(), &[1.0]);
+    close(m.sensor.denominator.coeffs(), &[4.0, 0.0, 1.0]);
 }
 
 #[test]
@@ -984,8 +984,8 @@ fn discrete_controller() {
     };
     assert_eq!(d.period_s, 1e-3);
     // Descending [0.5, -0.4] is 0.5 z - 0.4: ascending [-0.4, 0.5].
-    assert_eq!(d.tf.num.coeffs(), &[-0.4, 0.5]);
-    assert_eq!(d.tf.den.coeffs(), &[-1.0, 1.0]);
+    assert_eq!(d.transfer.numerator.coeffs(), &[-0.4, 0.5]);
+    assert_eq!(d.transfer.denominator.coeffs(), &[-1.0, 1.0]);
 }
 
 #[test]
@@ -997,7 +997,7 @@ fn parameters_in_file_order_and_models_at() {
         ),
         (
             "plant",
-            "[plant]\ntf = \"k / ((tau*s + 1) * (0.004*s + 1))\"\n",
+            "[plant]\ntransfer = \"k / ((tau*s + 1) * (0.004*s + 1))\"\n",
         ),
         (
             "uncertainty",
@@ -1017,33 +1017,33 @@ fn parameters_in_file_order_and_models_at() {
     );
     // Nominal: same polynomials as the literal belt case.
     let m = case.nominal().unwrap();
-    close(m.plant.num.coeffs(), &[38.0]);
-    close(m.plant.den.coeffs(), &[1.0, 0.424, 0.00168]);
+    close(m.plant.numerator.coeffs(), &[38.0]);
+    close(m.plant.denominator.coeffs(), &[1.0, 0.424, 0.00168]);
     // k = 30, tau = 0.5: den (0.5 s + 1)(0.004 s + 1) = 0.002 s^2 + 0.504 s + 1.
     let m = case.models_at(&[30.0, 0.5]).unwrap();
-    close(m.plant.num.coeffs(), &[30.0]);
-    close(m.plant.den.coeffs(), &[1.0, 0.504, 0.002]);
+    close(m.plant.numerator.coeffs(), &[30.0]);
+    close(m.plant.denominator.coeffs(), &[1.0, 0.504, 0.002]);
     // Wrong count of values.
     let err = case.models_at(&[30.0]).unwrap_err();
     assert_eq!(err.field(), Some("params"));
     // A value that breaks the model is reported with the values used.
     let err = case.models_at(&[30.0, f64::NAN]).unwrap_err();
     assert!(err.to_string().contains("with k = 30, tau = NaN"), "{err}");
-    assert_eq!(err.field(), Some("plant.tf"));
+    assert_eq!(err.field(), Some("plant.transfer"));
 }
 
 #[test]
 fn parameter_order_follows_the_file_when_not_alphabetical() {
     let case = ok(&[
         ("params", "[params]\nzeta = 0.7\nalpha = 2\n"),
-        ("plant", "[plant]\ntf = \"alpha / (s^2 + 2*zeta*s + 1)\"\n"),
+        ("plant", "[plant]\ntransfer = \"alpha / (s^2 + 2*zeta*s + 1)\"\n"),
     ]);
     let names: Vec<&str> = case.params.iter().map(|p| p.name.as_str()).collect();
     assert_eq!(names, ["zeta", "alpha"]);
     // alpha / (s^2 + 1.4 s + 1).
     let m = case.models_at(&[0.7, 2.0]).unwrap();
-    close(m.plant.num.coeffs(), &[2.0]);
-    close(m.plant.den.coeffs(), &[1.0, 1.4, 1.0]);
+    close(m.plant.numerator.coeffs(), &[2.0]);
+    close(m.plant.denominator.coeffs(), &[1.0, 1.4, 1.0]);
 }
 
 #[test]
@@ -1056,7 +1056,7 @@ fn full_file_with_budget_and_lists() {
         ),
         (
             "methods",
-            "[methods]\nuse = [\"tustin-prewarp\", \"backward-euler\"]\nprewarp_hz = 8\n",
+            "[methods]\nuse = [\"tustin-prewarped\", \"backward-euler\"]\nprewarp_hz = 8\n",
         ),
         (
             "spec",
@@ -1075,7 +1075,7 @@ fn full_file_with_budget_and_lists() {
     assert_eq!(case.rates.spacing, Spacing::Linear);
     assert_eq!(
         case.methods,
-        vec![Method::TustinPrewarp, Method::BackwardEuler]
+        vec![Method::TustinPrewarped, Method::BackwardEuler]
     );
     assert_eq!(case.prewarp_hz, Some(8.0));
     let s = &case.spec;
@@ -1167,10 +1167,10 @@ proptest::proptest! {
     #[test]
     fn any_plant_expression_loads_or_names_the_field(tf in ".{0,60}") {
         let quoted = toml::Value::String(tf.clone()).to_string();
-        let body = format!("[plant]\ntf = {quoted}\n");
+        let body = format!("[plant]\ntransfer = {quoted}\n");
         let text = text_with(&[("plant", &body)]);
         if let Err(e) = parse(&text) {
-            proptest::prop_assert_eq!(e.field(), Some("plant.tf"), "{}", e);
+            proptest::prop_assert_eq!(e.field(), Some("plant.transfer"), "{}", e);
         }
     }
 

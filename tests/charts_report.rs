@@ -16,13 +16,13 @@ const CASE: &str = r#"
 title = "Invented positioning loop"
 
 [plant]
-tf = "20 / (s * (0.05*s + 1))"
+transfer = "20 / (s * (0.05*s + 1))"
 
 [sensor]
-tf = "1 / (0.001*s + 1)"
+transfer = "1 / (0.001*s + 1)"
 
 [controller]
-tf = "2 * (0.1*s + 1) / (0.02*s + 1)"
+transfer = "2 * (0.1*s + 1) / (0.02*s + 1)"
 
 [timing]
 compute_delay = [0.5]
@@ -33,7 +33,7 @@ max_hz = 2000
 points = 30
 
 [methods]
-use = ["tustin", "zoh"]
+use = ["tustin", "step-invariant"]
 
 [spec]
 max_overshoot_pct = 35
@@ -234,7 +234,7 @@ fn empty_window_is_stated_with_both_numbers() {
 fn variants_and_precision_reach_every_output() {
     let dir = out_dir("robust");
     let text = CASE
-        .replace("tf = \"20 / (s * (0.05*s + 1))\"", "tf = \"k / (s * (0.05*s + 1))\"")
+        .replace("transfer = \"20 / (s * (0.05*s + 1))\"", "transfer = \"k / (s * (0.05*s + 1))\"")
         .replace(
             "[plant]",
             "[params]\nk = { nominal = 20, min = 16, max = 24 }\n[uncertainty]\nmode = \"corners\"\n[arithmetic]\nformats = [\"q11\", \"f32\"]\nstructure = \"sos\"\n[plant]",

@@ -10,7 +10,7 @@ use looprate::case::Case;
 use looprate::continuous::{ContinuousLoop, HoldApprox};
 use looprate::pick::{prepare, sweep_and_pick};
 use looprate::search::Silent;
-use looprate::tf::Controller;
+use looprate::transfer::Controller;
 
 fn load(dir: &str, name: &str) -> Case {
     let path = PathBuf::from(env!("CARGO_MANIFEST_DIR"))
@@ -51,8 +51,8 @@ fn jumped_continuous_figures_equal_the_walk_on_every_demo_case() {
         let theta = 0.5 / 1000.0;
         let acts = [
             None,
-            Some(HoldApprox::Lag.tf(theta)),
-            Some(HoldApprox::Pade22.tf(theta)),
+            Some(HoldApprox::Lag.transfer(theta)),
+            Some(HoldApprox::Pade22.transfer(theta)),
         ];
         for act in &acts {
             let cl = ContinuousLoop::new(&lp.plant_model, &lp.plant, &lp.sensor, c, act.as_ref())

@@ -10,7 +10,7 @@ use looprate::pick::{PickReport, prepare, sweep_and_pick};
 use looprate::poly::C64;
 use looprate::search::Silent;
 use looprate::sweep;
-use looprate::tf::Controller;
+use looprate::transfer::Controller;
 
 fn demo(name: &str) -> Case {
     let path = PathBuf::from(env!("CARGO_MANIFEST_DIR"))

@@ -6,11 +6,11 @@ use looprate::discretize::Method;
 use looprate::evaluate::{Point, PreparedLoop};
 use looprate::hold::{HoldEquivalent, plant_and_sensor};
 use looprate::poly::{C64, Poly};
-use looprate::tf::{Controller, Tf};
+use looprate::transfer::{Controller, Transfer};
 use looprate::time_response::TimeOptions;
 
-fn tf(num: &[f64], den: &[f64]) -> Tf {
-    Tf::new(Poly::from_descending(num), Poly::from_descending(den))
+fn transfer(num: &[f64], den: &[f64]) -> Transfer {
+    Transfer::new(Poly::from_descending(num), Poly::from_descending(den))
 }
 
 /// Brute force: 400 000 log-spaced points up to Nyquist; crossings by
@@ -59,12 +59,12 @@ fn margins_match_a_dense_scan_on_five_loops() {
     // loop; a stiff fourth-order loop with a sensor lag.
     let wn = 2.0 * std::f64::consts::PI * 60.0;
     let wz = 2.0 * std::f64::consts::PI * 42.0;
-    let loops: Vec<(&str, Tf, Tf, Tf, f64)> = vec![
+    let loops: Vec<(&str, Transfer, Transfer, Transfer, f64)> = vec![
         (
             "pi speed",
-            tf(&[38.0], &[0.00168, 0.424, 1.0]),
-            tf(&[1.0], &[0.0008, 1.0]),
-            tf(&[0.8, 16.0], &[1.0, 0.0]),
+            transfer(&[38.0], &[0.00168, 0.424, 1.0]),
+            transfer(&[1.0], &[0.0008, 1.0]),
+            transfer(&[0.8, 16.0], &[1.0, 0.0]),
             400.0,
         ),
         (
@@ -72,36 +72,36 @@ fn margins_match_a_dense_scan_on_five_loops() {
             // damping 0.02; |L| crosses 1 three times, one crossing with a
             // negative phase margin in a stable loop.
             "resonance",
-            tf(&[30.0], &[1.0, 0.0]).series(&tf(
+            transfer(&[30.0], &[1.0, 0.0]).cascade(&transfer(
                 &[1.0 / (wz * wz), 0.04 / wz, 1.0],
                 &[1.0 / (wn * wn), 0.04 / wn, 1.0],
             )),
-            Tf::gain(1.0),
-            tf(&[0.02, 1.0], &[0.002, 1.0]).series(&Tf::gain(1.2)),
+            Transfer::gain(1.0),
+            transfer(&[0.02, 1.0], &[0.002, 1.0]).cascade(&Transfer::gain(1.2)),
             2000.0,
         ),
         (
             "unstable open loop",
-            tf(&[4.0], &[1.0, 0.0, -4.0]),
-            Tf::gain(1.0),
-            tf(&[3.0, 6.0], &[0.02, 1.0]),
+            transfer(&[4.0], &[1.0, 0.0, -4.0]),
+            Transfer::gain(1.0),
+            transfer(&[3.0, 6.0], &[0.02, 1.0]),
             300.0,
         ),
         (
             "type 2",
-            tf(&[10.0], &[1.0, 0.0, 0.0]),
-            tf(&[1.0], &[0.002, 1.0]),
-            tf(&[1.0, 2.0], &[0.05, 1.0]),
+            transfer(&[10.0], &[1.0, 0.0, 0.0]),
+            transfer(&[1.0], &[0.002, 1.0]),
+            transfer(&[1.0, 2.0], &[0.05, 1.0]),
             200.0,
         ),
         (
             "stiff fourth order",
-            tf(&[1.0], &[1.0, 0.0])
-                .series(&tf(&[1.0], &[0.01, 1.0]))
-                .series(&tf(&[1.0], &[1e-5, 1.0]))
-                .series(&tf(&[50.0], &[1.0, 10.0])),
-            tf(&[1.0], &[1e-4, 1.0]),
-            tf(&[0.3, 1.0], &[0.01, 1.0]).series(&Tf::gain(8.0)),
+            transfer(&[1.0], &[1.0, 0.0])
+                .cascade(&transfer(&[1.0], &[0.01, 1.0]))
+                .cascade(&transfer(&[1.0], &[1e-5, 1.0]))
+                .cascade(&transfer(&[50.0], &[1.0, 10.0])),
+            transfer(&[1.0], &[1e-4, 1.0]),
+            transfer(&[0.3, 1.0], &[0.01, 1.0]).cascade(&Transfer::gain(8.0)),
             1000.0,
         ),
     ];
@@ -165,7 +165,7 @@ fn half_period_delay_matches_fine_step_simulation() {
     // few periods of an arbitrary input sequence (plant 20/((s+2)(s+5)),
     // sensor 1/(0.01 s + 1); both outputs compared).
     let model =
-        plant_and_sensor(&tf(&[20.0], &[1.0, 7.0, 10.0]), &tf(&[1.0], &[0.01, 1.0])).unwrap();
+        plant_and_sensor(&transfer(&[20.0], &[1.0, 7.0, 10.0]), &transfer(&[1.0], &[0.01, 1.0])).unwrap();
     let t = 0.05;
     let eq = HoldEquivalent::new(&model, t, 0.5, 16).unwrap();
     let u = [1.0, -0.5, 2.0, 0.0, 0.7];

@@ -11,7 +11,7 @@ use looprate::poly::Poly;
 use looprate::precision::{Format, Structure, poles_at_one, quantize, realize, round_realization};
 use looprate::search::Silent;
 use looprate::sweep::{self, Plan};
-use looprate::tf::{DiscreteTf, Tf};
+use looprate::transfer::{DiscreteTransfer, Transfer};
 use looprate::variants::{VariantSet, parameter_sets};
 
 fn case(text: &str) -> Case {
@@ -28,15 +28,15 @@ fn run(c: &Case) -> PickReport {
 /// plant 1/(s + 1), with a loose spec so only the rounding decides.
 const LAG_LOOP: &str = r#"
 [plant]
-tf = "1/(s + 1)"
+transfer = "1/(s + 1)"
 [controller]
-tf = "100/(s + 10)"
+transfer = "100/(s + 10)"
 [rates]
 min_hz = 400
 max_hz = 10000
 points = 60
 [methods]
-use = ["zoh"]
+use = ["step-invariant"]
 [spec]
 max_overshoot_pct = 60
 min_phase_margin_deg = 20
@@ -58,7 +58,7 @@ fn lag_pole_rounds_onto_z1_at_the_closed_form_rate() {
     // onto 1 once p >= 1 - 2^-7, at f_c = a / -ln(1 - 2^-7) = 1274.99 Hz.
     let a = 10.0;
     let f_c = a / -(1.0 - 2f64.powi(-8)).ln();
-    for (structure, f_c) in [("df2t", f_c), ("sos", a / -(1.0 - 2f64.powi(-7)).ln())] {
+    for (structure, f_c) in [("transposed-direct", f_c), ("sos", a / -(1.0 - 2f64.powi(-7)).ln())] {
         let text =
             format!("{LAG_LOOP}[arithmetic]\nformats = [\"q7\"]\nstructure = \"{structure}\"\n");
         let c = case(&text);
@@ -84,10 +84,10 @@ fn lag_pole_rounds_onto_z1_at_the_closed_form_rate() {
         assert!((w.high_hz / f_c - 1.0).abs() <= 2e-4);
     }
     // Directly: just below and just above f_c, the pole count at z = 1.
-    let c = Tf::new(Poly::constant(100.0), Poly::new(vec![10.0, 1.0]));
+    let c = Transfer::new(Poly::constant(100.0), Poly::new(vec![10.0, 1.0]));
     for (rate, expect) in [(f_c * 0.999, 0), (f_c * 1.001, 1)] {
-        let d = discretize(&c, Method::Zoh, 1.0 / rate, None).unwrap();
-        let r = realize(&d, Structure::Df2t, 0).unwrap();
+        let d = discretize(&c, Method::StepInvariant, 1.0 / rate, None).unwrap();
+        let r = realize(&d, Structure::TransposedDirect, 0).unwrap();
         let (q, label) = round_realization(&r, Format::Fixed { magnitude_bits: 7 }).unwrap();
         assert_eq!(label.as_deref(), Some("Q0.7"));
         assert_eq!(poles_at_one(&q), expect, "rate {rate}");
@@ -104,8 +104,8 @@ fn df2t_rounding_matches_hand_arithmetic() {
     //   b2 =  0.1 ->   1638.4     ->  1638  ->  0.0999755859375
     //   a1 = -1.2 -> -19660.8     -> -19661 -> -1.20001220703125
     //   a2 =  0.3 ->   4915.2     ->  4915  ->  0.29998779296875
-    let c = DiscreteTf {
-        tf: Tf::new(
+    let c = DiscreteTransfer {
+        transfer: Transfer::new(
             Poly::from_descending(&[0.5, -0.4, 0.1]),
             Poly::from_descending(&[1.0, -1.2, 0.3]),
         ),
@@ -114,7 +114,7 @@ fn df2t_rounding_matches_hand_arithmetic() {
     let q = quantize(
         &c,
         0,
-        Structure::Df2t,
+        Structure::TransposedDirect,
         Format::Fixed { magnitude_bits: 15 },
         Some(50.0),
     )
@@ -147,7 +147,7 @@ fn df2t_rounding_matches_hand_arithmetic() {
     assert!((got - expect).abs() < 1e-9, "{got} vs {expect}");
     // f32: 0.1 is 0x3DCCCCCD = 0.100000001490116119384765625 (IEEE 754
     // binary32, round to nearest).
-    let f = quantize(&c, 0, Structure::Df2t, Format::F32, None).unwrap();
+    let f = quantize(&c, 0, Structure::TransposedDirect, Format::F32, None).unwrap();
     assert_eq!(
         f.realization.sections[0].b[2],
         f64::from(f32::from_bits(0x3DCC_CCCD))
@@ -163,7 +163,7 @@ fn df2t_integrator_survives_fixed_point_and_sos_keeps_it_in_f32() {
     // them, so 1 + a1 + a2 stays exactly 0 (round(1 + p) = 1 + round(p)
     // on a grid that holds 1). In sos the integrator has a section of its
     // own, so every format keeps it.
-    let c = Tf::new(
+    let c = Transfer::new(
         Poly::from_descending(&[0.02, 1.0]),
         Poly::from_descending(&[1.0 / 400.0, 1.0, 0.0]),
     );
@@ -172,7 +172,7 @@ fn df2t_integrator_survives_fixed_point_and_sos_keeps_it_in_f32() {
         Format::Fixed { magnitude_bits: 15 },
         Format::Fixed { magnitude_bits: 31 },
     ] {
-        let q = quantize(&d, 1, Structure::Df2t, fmt, None).unwrap();
+        let q = quantize(&d, 1, Structure::TransposedDirect, fmt, None).unwrap();
         assert!(q.damage.integral_kept(), "{fmt}");
     }
     for fmt in [Format::F32, Format::Fixed { magnitude_bits: 15 }] {
@@ -190,11 +190,11 @@ fn belt(uncertainty: &str, k: &str) -> String {
 [params]
 k = {k}
 [plant]
-tf = "k / ((0.42*s + 1) * (0.004*s + 1))"
+transfer = "k / ((0.42*s + 1) * (0.004*s + 1))"
 [sensor]
-tf = "1 / (0.0008*s + 1)"
+transfer = "1 / (0.0008*s + 1)"
 [controller]
-tf = "0.8 * (s + 20) / s"
+transfer = "0.8 * (s + 20) / s"
 [timing]
 compute_delay = 0.5
 [rates]
@@ -336,9 +336,9 @@ fn sweep_keeps_one_row_per_point_with_variants_and_formats() {
 /// on `1/(0.5 s + 1)`.
 const DOUBLE_INTEGRATOR: &str = r#"
 [plant]
-tf = "1 / (0.5*s + 1)"
+transfer = "1 / (0.5*s + 1)"
 [controller]
-tf = "2 * (s + 1)^2 / (s^2 * (0.01*s + 1))"
+transfer = "2 * (s + 1)^2 / (s^2 * (0.01*s + 1))"
 [rates]
 min_hz = 50
 max_hz = 5000
@@ -380,7 +380,7 @@ fn double_integrator_stays_exact_in_sos() {
     // z = 1 comes back from root finding split by ~6e-8 and is still
     // counted as the design's two integrators.
     let d = discretize(
-        &Tf::new(
+        &Transfer::new(
             Poly::from_descending(&[2.0, 4.0, 2.0]),
             Poly::from_descending(&[0.01, 1.0, 0.0, 0.0]),
         ),
@@ -390,7 +390,7 @@ fn double_integrator_stays_exact_in_sos() {
     )
     .unwrap();
     assert_eq!(
-        looprate::precision::design_integrators(&looprate::tf::Controller::Discrete(d)),
+        looprate::precision::design_integrators(&looprate::transfer::Controller::Discrete(d)),
         2
     );
 }

@@ -5,22 +5,22 @@ use looprate::continuous::HoldApprox;
 use looprate::discretize::Method;
 use looprate::evaluate::{Point, PreparedLoop, Status};
 use looprate::poly::Poly;
-use looprate::tf::{Controller, DiscreteTf, Tf};
+use looprate::transfer::{Controller, DiscreteTransfer, Transfer};
 use looprate::time_response::TimeOptions;
 
-fn tf(num: &[f64], den: &[f64]) -> Tf {
-    Tf::new(Poly::from_descending(num), Poly::from_descending(den))
+fn transfer(num: &[f64], den: &[f64]) -> Transfer {
+    Transfer::new(Poly::from_descending(num), Poly::from_descending(den))
 }
 
 /// Unity feedback around 1/(s(s+1)) with a gain `k` given in z at 1 Hz.
 fn textbook_loop(k: f64, opts: TimeOptions) -> PreparedLoop {
-    let c = Controller::Discrete(DiscreteTf {
-        tf: Tf::gain(k),
+    let c = Controller::Discrete(DiscreteTransfer {
+        transfer: Transfer::gain(k),
         period_s: 1.0,
     });
     PreparedLoop::new(
-        &tf(&[1.0], &[1.0, 1.0, 0.0]),
-        &Tf::gain(1.0),
+        &transfer(&[1.0], &[1.0, 1.0, 0.0]),
+        &Transfer::gain(1.0),
         &c,
         None,
         opts,
@@ -132,9 +132,9 @@ fn fast_sampling_tends_to_continuous_second_order() {
     // percentage points, and its phase margin within 0.1 deg of the
     // continuous one.
     let (wn, zeta) = (10.0f64, 0.4f64);
-    let plant = tf(&[wn * wn], &[1.0, 2.0 * zeta * wn, 0.0]);
-    let c = Controller::Continuous(Tf::gain(1.0));
-    let lp = PreparedLoop::new(&plant, &Tf::gain(1.0), &c, None, TimeOptions::default()).unwrap();
+    let plant = transfer(&[wn * wn], &[1.0, 2.0 * zeta * wn, 0.0]);
+    let c = Controller::Continuous(Transfer::gain(1.0));
+    let lp = PreparedLoop::new(&plant, &Transfer::gain(1.0), &c, None, TimeOptions::default()).unwrap();
     let want = 100.0 * (-zeta * std::f64::consts::PI / (1.0 - zeta * zeta).sqrt()).exp();
     let design = lp.design.as_ref().unwrap().figures.clone().unwrap();
     assert!(
@@ -162,9 +162,9 @@ fn hold_costs_half_a_period_of_phase() {
     // w T / 2 rad of phase at crossover, plus w tau for the computation
     // delay. For small w T the exact loss must agree to within 10 % of the
     // predicted loss.
-    let plant = tf(&[40.0], &[1.0, 6.0, 0.0]);
-    let c = Controller::Continuous(tf(&[1.0, 3.0], &[1.0, 30.0]).series(&Tf::gain(5.0)));
-    let lp = PreparedLoop::new(&plant, &Tf::gain(1.0), &c, None, TimeOptions::default()).unwrap();
+    let plant = transfer(&[40.0], &[1.0, 6.0, 0.0]);
+    let c = Controller::Continuous(transfer(&[1.0, 3.0], &[1.0, 30.0]).cascade(&Transfer::gain(5.0)));
+    let lp = PreparedLoop::new(&plant, &Transfer::gain(1.0), &c, None, TimeOptions::default()).unwrap();
     let design = lp.design.clone().unwrap().figures.unwrap();
     let wc = design.crossover_hz.unwrap() * 2.0 * std::f64::consts::PI;
     for (rate, d) in [(400.0, 0.0), (400.0, 1.0), (1000.0, 0.5)] {
@@ -188,7 +188,7 @@ fn hold_costs_half_a_period_of_phase() {
 fn lag_approximation_pole() {
     // Closed form: the [0/1] lag for T = 0.2 s, tau = 0 has its pole at
     // 1/(T/2) = 10 rad/s.
-    let lag = HoldApprox::Lag.tf(0.2 / 2.0);
+    let lag = HoldApprox::Lag.transfer(0.2 / 2.0);
     let p = lag.poles().unwrap();
     assert!((p[0].re + 10.0).abs() < 1e-12 && p[0].im == 0.0);
 }
@@ -232,7 +232,7 @@ fn loop_matrix_poles_agree_with_characteristic_polynomial() {
         };
         let (hold, ctrl, cl) = lp.sampled_loop(&p).unwrap();
         let g = hold.pulse_transfer().unwrap();
-        let chp = ctrl.tf.den.mul(&g.tf.den).add(&ctrl.tf.num.mul(&g.tf.num));
+        let chp = ctrl.transfer.denominator.mul(&g.transfer.denominator).add(&ctrl.transfer.numerator.mul(&g.transfer.numerator));
         let mut a: Vec<f64> = chp.roots().unwrap().iter().map(|z| z.norm()).collect();
         let mut b: Vec<f64> = cl.poles().unwrap().iter().map(|z| z.norm()).collect();
         a.sort_by(|x, y| x.total_cmp(y));
@@ -249,14 +249,14 @@ fn early_stop_certificate_changes_no_figure() {
     // The Lyapunov stop must give the same step figures as running the
     // full pole-based horizon (self-consistency of two routes).
     use looprate::time_response::StepMetrics;
-    let plant = tf(&[38.0], &[0.00168, 0.424, 1.0]);
-    let sensor = tf(&[1.0], &[0.0008, 1.0]);
-    let c = Controller::Continuous(tf(&[0.05, 0.6], &[1.0, 0.0]));
+    let plant = transfer(&[38.0], &[0.00168, 0.424, 1.0]);
+    let sensor = transfer(&[1.0], &[0.0008, 1.0]);
+    let c = Controller::Continuous(transfer(&[0.05, 0.6], &[1.0, 0.0]));
     let lp = PreparedLoop::new(&plant, &sensor, &c, None, TimeOptions::default()).unwrap();
     for (rate, d) in [(60.0, 0.5), (400.0, 1.0), (3000.0, 0.0)] {
         let p = Point {
             rate_hz: rate,
-            method: Some(Method::Matched),
+            method: Some(Method::PoleZeroMatch),
             delay: d,
         };
         let f = lp.sampled(&p).figures.unwrap();
@@ -287,9 +287,9 @@ fn early_stop_never_misses_a_later_command_peak() {
     // creeps up to its final value long after the output has settled. The
     // reported peak command must equal the full-horizon trace's (route
     // independence; found in review).
-    let plant = tf(&[5.0, 1.0], &[1.0, 2.0, 1.0]);
-    let c = Controller::Continuous(tf(&[2.0], &[1.0, 0.0]));
-    let lp = PreparedLoop::new(&plant, &Tf::gain(1.0), &c, None, TimeOptions::default()).unwrap();
+    let plant = transfer(&[5.0, 1.0], &[1.0, 2.0, 1.0]);
+    let c = Controller::Continuous(transfer(&[2.0], &[1.0, 0.0]));
+    let lp = PreparedLoop::new(&plant, &Transfer::gain(1.0), &c, None, TimeOptions::default()).unwrap();
     let p = Point {
         rate_hz: 50.0,
         method: Some(Method::Tustin),
@@ -310,10 +310,10 @@ fn crossover_below_the_default_grid_is_found() {
     // Plant 1/s with gain 0.05: |L| = 0.05/w crosses 1 at 0.05 rad/s with
     // 90 deg of phase margin less the hold and delay lag (closed form);
     // at 1 MHz the default grid starts above it.
-    let c = Controller::Continuous(Tf::gain(0.05));
+    let c = Controller::Continuous(Transfer::gain(0.05));
     let lp = PreparedLoop::new(
-        &tf(&[1.0], &[1.0, 0.0]),
-        &Tf::gain(1.0),
+        &transfer(&[1.0], &[1.0, 0.0]),
+        &Transfer::gain(1.0),
         &c,
         None,
         TimeOptions::default(),
@@ -346,11 +346,11 @@ fn skipped_and_deferred_points_change_no_figure() {
     let mut checked = 0;
     for (rate, method, d) in [
         (150.0, Method::Tustin, 0.5),
-        (300.0, Method::Zoh, 1.0),
-        (500.0, Method::Matched, 0.0),
+        (300.0, Method::StepInvariant, 1.0),
+        (500.0, Method::PoleZeroMatch, 0.0),
         (800.0, Method::BackwardEuler, 0.5),
-        (1200.0, Method::Foh, 1.0),
-        (2500.0, Method::Impulse, 0.0),
+        (1200.0, Method::RampInvariant, 1.0),
+        (2500.0, Method::ImpulseInvariant, 0.0),
     ] {
         let p = Point {
             rate_hz: rate,
@@ -410,7 +410,7 @@ fn skipped_and_deferred_points_change_no_figure() {
 /// integrator, prepared for evaluation.
 fn positioning_axis() -> PreparedLoop {
     let wn = 2.0 * std::f64::consts::PI * 60.0;
-    let plant = Tf::new(
+    let plant = Transfer::new(
         Poly::constant(400.0 * wn * wn),
         Poly::from_descending(&[0.01, 1.0, 0.0]).mul(&Poly::from_descending(&[
             1.0,
@@ -418,7 +418,7 @@ fn positioning_axis() -> PreparedLoop {
             wn * wn,
         ])),
     );
-    let sensor = tf(&[1.0], &[1.0 / 2000.0, 1.0]);
-    let c = Controller::Continuous(tf(&[0.001, 0.02, 0.05], &[1.0 / 400.0, 1.0, 0.0]));
+    let sensor = transfer(&[1.0], &[1.0 / 2000.0, 1.0]);
+    let c = Controller::Continuous(transfer(&[0.001, 0.02, 0.05], &[1.0 / 400.0, 1.0, 0.0]));
     PreparedLoop::new(&plant, &sensor, &c, None, TimeOptions::default()).unwrap()
 }

@@ -8,7 +8,7 @@
 use looprate::discretize::{Method, discretize};
 use looprate::evaluate::{Point, PreparedLoop};
 use looprate::poly::Poly;
-use looprate::tf::{Controller, Tf};
+use looprate::transfer::{Controller, Transfer};
 use looprate::time_response::TimeOptions;
 use serde_json::Value;
 
@@ -71,14 +71,14 @@ fn discretization_matches_scipy_and_high_precision() {
     for e in entries {
         let method: Method = e["method"].as_str().unwrap().parse().unwrap();
         let t = e["period_s"].as_f64().unwrap();
-        let c = Tf::new(
+        let c = Transfer::new(
             Poly::from_descending(&vecf(&e["num"])),
             Poly::from_descending(&vecf(&e["den"])),
         );
         let d = discretize(&c, method, t, None).unwrap();
-        let (num, den) = (d.tf.num.descending(), d.tf.den.descending());
+        let (num, den) = (d.transfer.numerator.descending(), d.transfer.denominator.descending());
         let tol = e["rel_tol"].as_f64().unwrap();
-        let scipy = coeff_err(&num, &vecf(&e["num_z"])).max(coeff_err(&den, &vecf(&e["den_z"])));
+        let scipy = coeff_err(&num, &vecf(&e["numerator_z"])).max(coeff_err(&den, &vecf(&e["denominator_z"])));
         let hp = coeff_err(&num, &vecf(&e["num_z_hp"])).max(coeff_err(&den, &vecf(&e["den_z_hp"])));
         worst_hp = worst_hp.max(hp);
         // SciPy itself is off by more than 1e-3 on ten entries (stated in
@@ -112,11 +112,11 @@ fn sampled_loops_match_scipy() {
     assert!(loops.len() >= 6);
     for l in loops {
         let name = l["name"].as_str().unwrap();
-        let plant = Tf::new(
+        let plant = Transfer::new(
             Poly::from_descending(&vecf(&l["plant"]["num"])),
             Poly::from_descending(&vecf(&l["plant"]["den"])),
         );
-        let ctrl = Tf::new(
+        let ctrl = Transfer::new(
             Poly::from_descending(&vecf(&l["controller"]["num"])),
             Poly::from_descending(&vecf(&l["controller"]["den"])),
         );
@@ -125,7 +125,7 @@ fn sampled_loops_match_scipy() {
         let delay = l["delay_samples"].as_f64().unwrap();
         let lp = PreparedLoop::new(
             &plant,
-            &Tf::gain(1.0),
+            &Transfer::gain(1.0),
             &Controller::Continuous(ctrl),
             None,
             TimeOptions::default(),

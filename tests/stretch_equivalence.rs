@@ -12,14 +12,14 @@ use looprate::closed_loop::{ClosedLoop, Stability};
 use looprate::evaluate::{Point, PreparedLoop};
 use looprate::pick::{case_methods, prepare};
 use looprate::poly::Poly;
-use looprate::tf::{Controller, Tf};
+use looprate::transfer::{Controller, Transfer};
 use looprate::time_response::{
     DisturbanceFigures, StepFigures, TimeOptions, horizon_periods, sampled_figures, walked_figures,
 };
 use proptest::prelude::*;
 
-fn tf(num: &[f64], den: &[f64]) -> Tf {
-    Tf::new(Poly::from_descending(num), Poly::from_descending(den))
+fn transfer(num: &[f64], den: &[f64]) -> Transfer {
+    Transfer::new(Poly::from_descending(num), Poly::from_descending(den))
 }
 
 /// Relative agreement asked of values. The issue asks 1e-9; measured, the
@@ -176,11 +176,11 @@ fn every_demo_case_matches_the_full_walk() {
 const COMPARE_CASE: &str = r#"
 title = "compare bench"
 [plant]
-tf = "400*(2*3.14159265*60)^2 / (s*(0.01*s+1)*(s^2 + 2*0.3*(2*3.14159265*60)*s + (2*3.14159265*60)^2))"
+transfer = "400*(2*3.14159265*60)^2 / (s*(0.01*s+1)*(s^2 + 2*0.3*(2*3.14159265*60)*s + (2*3.14159265*60)^2))"
 [sensor]
-tf = "1/(s/2000+1)"
+transfer = "1/(s/2000+1)"
 [controller]
-tf = "0.05*(0.02*s^2+0.4*s+1)/(s*(s/400+1))"
+transfer = "0.05*(0.02*s^2+0.4*s+1)/(s*(s/400+1))"
 [timing]
 compute_delay = [0, 0.5, 1]
 [rates]
@@ -188,7 +188,7 @@ min_hz = 50
 max_hz = 5000
 points = 200
 [methods]
-use = ["zoh", "foh", "impulse", "tustin", "tustin-prewarp", "matched", "forward-euler", "backward-euler"]
+use = ["step-invariant", "ramp-invariant", "impulse-invariant", "tustin", "tustin-prewarped", "pole-zero-match", "forward-euler", "backward-euler"]
 "#;
 
 #[test]
@@ -204,9 +204,9 @@ fn the_compare_case_matches_the_full_walk() {
 fn lightly_damped() -> PreparedLoop {
     let w = 300.0;
     PreparedLoop::new(
-        &tf(&[w * w], &[1.0, 2.0 * 0.0005 * w, w * w]),
-        &Tf::gain(1.0),
-        &Controller::Continuous(tf(&[0.05], &[1.0, 0.0])),
+        &transfer(&[w * w], &[1.0, 2.0 * 0.0005 * w, w * w]),
+        &Transfer::gain(1.0),
+        &Controller::Continuous(transfer(&[0.05], &[1.0, 0.0])),
         None,
         TimeOptions::default(),
     )
@@ -259,14 +259,14 @@ proptest! {
         delay in prop_oneof![Just(0.0), Just(0.5), Just(1.0), 0.0f64..1.0],
     ) {
         let plant = if third {
-            tf(&[k * wn * wn * p1], &Poly::from_descending(&[1.0, p1])
+            transfer(&[k * wn * wn * p1], &Poly::from_descending(&[1.0, p1])
                 .mul(&Poly::from_descending(&[1.0, 2.0 * zeta * wn, wn * wn]))
                 .descending())
         } else {
-            tf(&[k * p1], &[1.0, p1])
+            transfer(&[k * p1], &[1.0, p1])
         };
-        let c = Controller::Continuous(tf(&[kp * ti, kp], &[ti, 0.0]));
-        let lp = PreparedLoop::new(&plant, &Tf::gain(1.0), &c, None, TimeOptions::default()).unwrap();
+        let c = Controller::Continuous(transfer(&[kp * ti, kp], &[ti, 0.0]));
+        let lp = PreparedLoop::new(&plant, &Transfer::gain(1.0), &c, None, TimeOptions::default()).unwrap();
         let fastest = p1.max(wn).max(1.0 / ti) / (2.0 * std::f64::consts::PI);
         let p = Point {
             rate_hz: fastest * rate_ratio,

@@ -14,11 +14,11 @@ use looprate::sweep;
 const CASE: &str = r#"
 title = "Test speed loop"
 [plant]
-tf = "38 / ((0.42*s + 1) * (0.004*s + 1))"
+transfer = "38 / ((0.42*s + 1) * (0.004*s + 1))"
 [sensor]
-tf = "1 / (0.0008*s + 1)"
+transfer = "1 / (0.0008*s + 1)"
 [controller]
-tf = "0.4 * (s + 12) / s"
+transfer = "0.4 * (s + 12) / s"
 [timing]
 compute_delay = [0, 1]
 [rates]
@@ -26,7 +26,7 @@ min_hz = 5
 max_hz = 2000
 points = 40
 [methods]
-use = ["tustin", "forward-euler", "tustin-prewarp"]
+use = ["tustin", "forward-euler", "tustin-prewarped"]
 prewarp_hz = 400
 [spec]
 max_overshoot_pct = 30
@@ -75,7 +75,7 @@ fn every_point_has_a_row_and_threads_do_not_change_a_byte() {
     let lp = prepare(&c).unwrap();
     let points = case_grid(&c, &lp);
     // 40 rates x 3 methods x 2 delays, including unstable points and the
-    // points where tustin-prewarp cannot run (w0 T >= pi below 800 Hz).
+    // points where tustin-prewarped cannot run (w0 T >= pi below 800 Hz).
     assert_eq!(points.len(), 40 * 3 * 2);
     let one = pool(1).install(|| {
         sweep::run(
@@ -101,7 +101,7 @@ fn every_point_has_a_row_and_threads_do_not_change_a_byte() {
         "the grid should include unstable points"
     );
     assert!(
-        text.contains("error: tustin-prewarp"),
+        text.contains("error: tustin-prewarped"),
         "prewarp above Nyquist must be reported per point"
     );
 }
@@ -195,10 +195,10 @@ fn a_controller_given_in_z_is_recommended_at_its_own_rate() {
     // review: the recommendation once moved it to 1.25 times its rate).
     let text = r#"
 [plant]
-tf = "1 / (s * (s + 1))"
+transfer = "1 / (s * (s + 1))"
 [controller]
-num_z = [0.5]
-den_z = [1.0]
+numerator_z = [0.5]
+denominator_z = [1.0]
 rate_hz = 20
 [rates]
 min_hz = 10
@@ -270,9 +270,9 @@ fn an_empty_window_names_another_method_whose_cheaper_update_fits() {
     // Euler's f_star is a little higher and x 1.25 fits under 1000 Hz.
     let text = r#"
 [plant]
-tf = "20 / ((0.3*s + 1) * (0.01*s + 1))"
+transfer = "20 / ((0.3*s + 1) * (0.01*s + 1))"
 [controller]
-tf = "0.8 * (s + 8) / (s * (s/200 + 1))"
+transfer = "0.8 * (s + 8) / (s * (s/200 + 1))"
 [timing]
 compute_delay = 1
 [rates]
@@ -280,7 +280,7 @@ min_hz = 20
 max_hz = 5000
 points = 60
 [methods]
-use = ["tustin", "foh", "forward-euler", "zoh"]
+use = ["tustin", "ramp-invariant", "forward-euler", "step-invariant"]
 [spec]
 max_overshoot_pct = 35
 min_phase_margin_deg = 40
@@ -302,11 +302,11 @@ max_load_pct = 50
     };
     let rec = report.recommended.as_ref().unwrap();
     // Preconditions of the scenario (if the figures move, re-tune the case).
-    assert_eq!(rec.method, "foh");
+    assert_eq!(rec.method, "ramp-invariant");
     assert_eq!(rec.cycles_per_update, Some(5000.0));
     assert_eq!(report.cpu_ceiling_hz, Some(800.0));
     let fe = f_star("forward-euler");
-    assert!(fe * 1.25 <= 1000.0 && f_star("zoh") * 1.25 > 1000.0);
+    assert!(fe * 1.25 <= 1000.0 && f_star("step-invariant") * 1.25 > 1000.0);
     let w = report.window.as_ref().unwrap();
     assert!(w.empty);
     let line = report
@@ -318,7 +318,7 @@ max_load_pct = 50
         line.contains("forward-euler (4000 cycles per update)"),
         "{line}"
     );
-    assert!(!line.contains("zoh"), "zoh does not fit: {line}");
+    assert!(!line.contains("step-invariant"), "zoh does not fit: {line}");
     assert!(
         line.contains(&format!(
             "window {} Hz to 1000 Hz",

@@ -9,106 +9,106 @@ use crate::poly::{C64, Poly};
 /// wrote stays, because silently cancelling an unstable pole hides a
 /// loop that cannot work.
 #[derive(Debug, Clone, PartialEq)]
-pub struct Tf {
-    pub num: Poly,
-    pub den: Poly,
+pub struct Transfer {
+    pub numerator: Poly,
+    pub denominator: Poly,
 }
 
 /// A transfer function in `z` at a fixed sample period (seconds).
 #[derive(Debug, Clone, PartialEq)]
-pub struct DiscreteTf {
-    pub tf: Tf,
+pub struct DiscreteTransfer {
+    pub transfer: Transfer,
     pub period_s: f64,
 }
 
-impl Tf {
+impl Transfer {
     /// `num / den`.
     pub fn new(num: Poly, den: Poly) -> Self {
-        Tf { num, den }
+        Transfer { numerator: num, denominator: den }
     }
 
     /// The constant gain `k`.
     pub fn gain(k: f64) -> Self {
-        Tf::new(Poly::constant(k), Poly::one())
+        Transfer::new(Poly::constant(k), Poly::one())
     }
 
     /// Proper: degree of numerator <= degree of denominator.
     pub fn is_proper(&self) -> bool {
-        self.num.is_zero() || self.num.degree() <= self.den.degree()
+        self.numerator.is_zero() || self.numerator.degree() <= self.denominator.degree()
     }
 
     /// Strictly proper: numerator degree below denominator degree.
     pub fn is_strictly_proper(&self) -> bool {
-        self.num.is_zero() || self.num.degree() < self.den.degree()
+        self.numerator.is_zero() || self.numerator.degree() < self.denominator.degree()
     }
 
     /// Order (denominator degree).
     pub fn order(&self) -> usize {
-        self.den.degree()
+        self.denominator.degree()
     }
 
     /// Value at a complex point.
     pub fn eval(&self, x: C64) -> C64 {
-        self.num.eval_c(x) / self.den.eval_c(x)
+        self.numerator.eval_c(x) / self.denominator.eval_c(x)
     }
 
     /// Series connection `self * other`.
-    pub fn series(&self, other: &Tf) -> Tf {
-        Tf::new(self.num.mul(&other.num), self.den.mul(&other.den))
+    pub fn cascade(&self, other: &Transfer) -> Transfer {
+        Transfer::new(self.numerator.mul(&other.numerator), self.denominator.mul(&other.denominator))
     }
 
     /// Negative-feedback loop `self / (1 + self * feedback)`.
-    pub fn feedback(&self, feedback: &Tf) -> Tf {
-        let num = self.num.mul(&feedback.den);
+    pub fn closed_by(&self, feedback: &Transfer) -> Transfer {
+        let num = self.numerator.mul(&feedback.denominator);
         let den = self
-            .den
-            .mul(&feedback.den)
-            .add(&self.num.mul(&feedback.num));
-        Tf::new(num, den)
+            .denominator
+            .mul(&feedback.denominator)
+            .add(&self.numerator.mul(&feedback.numerator));
+        Transfer::new(num, den)
     }
 
     /// Poles (roots of the denominator); `None` when the root finder fails.
     pub fn poles(&self) -> Option<Vec<C64>> {
-        self.den.roots()
+        self.denominator.roots()
     }
 
     /// Finite zeros (roots of the numerator); empty for a zero numerator.
     pub fn zeros(&self) -> Option<Vec<C64>> {
-        if self.num.is_zero() {
+        if self.numerator.is_zero() {
             return Some(Vec::new());
         }
-        self.num.roots()
+        self.numerator.roots()
     }
 
     /// Gain of the continuous model at s = 0: `None` when there is a pole
     /// at the origin (the gain is infinite).
     pub fn dc_gain_s(&self) -> Option<f64> {
-        let d = self.den.eval(0.0);
-        (d != 0.0).then(|| self.num.eval(0.0) / d)
+        let d = self.denominator.eval(0.0);
+        (d != 0.0).then(|| self.numerator.eval(0.0) / d)
     }
 
     /// Normalised so the leading denominator coefficient is one.
-    pub fn monic(&self) -> Tf {
-        let l = self.den.leading();
-        Tf::new(self.num.scale(1.0 / l), self.den.scale(1.0 / l))
+    pub fn monic(&self) -> Transfer {
+        let l = self.denominator.leading();
+        Transfer::new(self.numerator.scale(1.0 / l), self.denominator.scale(1.0 / l))
     }
 
     /// Every coefficient finite.
     pub fn is_finite(&self) -> bool {
-        self.num.is_finite() && self.den.is_finite()
+        self.numerator.is_finite() && self.denominator.is_finite()
     }
 }
 
-impl DiscreteTf {
+impl DiscreteTransfer {
     /// Gain of the discrete model at z = 1; `None` with a pole at z = 1.
     pub fn dc_gain_z(&self) -> Option<f64> {
-        let d = self.tf.den.eval(1.0);
-        (d != 0.0).then(|| self.tf.num.eval(1.0) / d)
+        let d = self.transfer.denominator.eval(1.0);
+        (d != 0.0).then(|| self.transfer.numerator.eval(1.0) / d)
     }
 
     /// Frequency response at `w` rad/s: the value at z = e^{jwT}.
     pub fn freq(&self, w_rad_s: f64) -> C64 {
-        self.tf.eval(C64::from_polar(1.0, w_rad_s * self.period_s))
+        self.transfer.eval(C64::from_polar(1.0, w_rad_s * self.period_s))
     }
 }
 
@@ -116,6 +116,6 @@ impl DiscreteTf {
 /// discretized at each rate, or a fixed design in z at its own rate.
 #[derive(Debug, Clone, PartialEq)]
 pub enum Controller {
-    Continuous(Tf),
-    Discrete(DiscreteTf),
+    Continuous(Transfer),
+    Discrete(DiscreteTransfer),
 }

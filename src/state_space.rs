@@ -5,7 +5,7 @@
 use nalgebra::{DMatrix, DVector};
 
 use crate::poly::{C64, Poly};
-use crate::tf::Tf;
+use crate::transfer::Transfer;
 
 /// A single-input model `x' = A x + B u` (or `x+ = A x + B u`),
 /// `y = C x + D u`, possibly with several outputs (rows of `C`).
@@ -21,9 +21,9 @@ pub struct StateSpace {
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 pub enum ModelError {
     #[error(
-        "the transfer function is improper (numerator degree {num} > denominator degree {den})"
+        "the transfer function is improper (numerator degree {numerator} > denominator degree {denominator})"
     )]
-    Improper { num: usize, den: usize },
+    Improper { numerator: usize, denominator: usize },
     #[error("the denominator is zero")]
     ZeroDenominator,
     #[error("a coefficient is not finite")]
@@ -44,8 +44,8 @@ impl StateSpace {
     /// then balance it with an exact power-of-two diagonal similarity, so
     /// stiff models (time constants 1e-5 s next to 10 s) keep their digits
     /// in the matrix exponential.
-    pub fn from_tf(tf: &Tf) -> Result<StateSpace, ModelError> {
-        if tf.den.is_zero() {
+    pub fn from_transfer(tf: &Transfer) -> Result<StateSpace, ModelError> {
+        if tf.denominator.is_zero() {
             return Err(ModelError::ZeroDenominator);
         }
         if !tf.is_finite() {
@@ -53,14 +53,14 @@ impl StateSpace {
         }
         if !tf.is_proper() {
             return Err(ModelError::Improper {
-                num: tf.num.degree(),
-                den: tf.den.degree(),
+                numerator: tf.numerator.degree(),
+                denominator: tf.denominator.degree(),
             });
         }
-        let n = tf.den.degree();
-        let lead = tf.den.leading();
-        let den: Vec<f64> = tf.den.coeffs().iter().map(|v| v / lead).collect();
-        let num: Vec<f64> = (0..=n).map(|i| tf.num.coeff(i) / lead).collect();
+        let n = tf.denominator.degree();
+        let lead = tf.denominator.leading();
+        let den: Vec<f64> = tf.denominator.coeffs().iter().map(|v| v / lead).collect();
+        let num: Vec<f64> = (0..=n).map(|i| tf.numerator.coeff(i) / lead).collect();
         let d = num[n];
         let mut a = DMatrix::zeros(n, n);
         let mut b = DVector::zeros(n);
@@ -109,17 +109,17 @@ impl StateSpace {
 
     /// Transfer function from the input to output `row`: the denominator
     /// is the characteristic polynomial (from eigenvalues), the numerator
-    /// comes from the Markov parameters (see `to_tf_with_den`).
-    pub fn to_tf(&self, row: usize) -> Result<Tf, ModelError> {
+    /// comes from the Markov parameters (see `to_transfer_with_denominator`).
+    pub fn to_transfer(&self, row: usize) -> Result<Transfer, ModelError> {
         if self.order() == 0 {
-            return Ok(Tf::gain(self.d[row]));
+            return Ok(Transfer::gain(self.d[row]));
         }
         let den = charpoly(&self.a)?;
-        Ok(self.to_tf_with_den(row, den))
+        Ok(self.to_transfer_with_denominator(row, den))
     }
 
     /// Transfer function to output `row` with a known monic
-    /// characteristic polynomial `den` of `A`.
+    /// characteristic polynomial `denominator` of `A`.
     ///
     /// The numerator comes from the Markov parameters `h_j = C A^j B`:
     /// coefficient `m` (descending, m >= 1) is
@@ -127,7 +127,7 @@ impl StateSpace {
     /// `det(xI - A + BC) - det(xI - A)`, nothing here subtracts two
     /// polynomials of size one to get a numerator of size `T^k`, so a
     /// fast-rate equivalent of an integrator chain keeps its digits.
-    pub fn to_tf_with_den(&self, row: usize, den: Poly) -> Tf {
+    pub fn to_transfer_with_denominator(&self, row: usize, den: Poly) -> Transfer {
         let n = self.order();
         let d = self.d[row];
         let c = den.descending();
@@ -147,7 +147,7 @@ impl StateSpace {
             }
             num[m] = acc;
         }
-        Tf::new(Poly::from_descending(&num), den)
+        Transfer::new(Poly::from_descending(&num), den)
     }
 }
 
@@ -394,26 +394,26 @@ mod tests {
     fn round_trip_tf_ss_tf() {
         // (2 s^2 + 3 s + 5) / (s^3 + 4 s^2 + 6 s + 4): any realisation must
         // give back the same coefficients (algebraic identity).
-        let tf = Tf::new(
+        let tf = Transfer::new(
             Poly::from_descending(&[2.0, 3.0, 5.0]),
             Poly::from_descending(&[1.0, 4.0, 6.0, 4.0]),
         );
-        let back = StateSpace::from_tf(&tf).unwrap().to_tf(0).unwrap();
-        for (a, b) in back.num.descending().iter().zip([2.0, 3.0, 5.0]) {
+        let back = StateSpace::from_transfer(&tf).unwrap().to_transfer(0).unwrap();
+        for (a, b) in back.numerator.descending().iter().zip([2.0, 3.0, 5.0]) {
             assert!((a - b).abs() < 1e-12, "{a} vs {b}");
         }
-        for (a, b) in back.den.descending().iter().zip([1.0, 4.0, 6.0, 4.0]) {
+        for (a, b) in back.denominator.descending().iter().zip([1.0, 4.0, 6.0, 4.0]) {
             assert!((a - b).abs() < 1e-12);
         }
         // Biproper: (s + 3) / (s + 1) = 1 + 2/(s+1).
-        let tf = Tf::new(
+        let tf = Transfer::new(
             Poly::from_descending(&[1.0, 3.0]),
             Poly::from_descending(&[1.0, 1.0]),
         );
-        let ss = StateSpace::from_tf(&tf).unwrap();
+        let ss = StateSpace::from_transfer(&tf).unwrap();
         assert_eq!(ss.d[0], 1.0);
-        let back = ss.to_tf(0).unwrap();
-        assert!((back.num.coeff(0) - 3.0).abs() < 1e-12);
+        let back = ss.to_transfer(0).unwrap();
+        assert!((back.numerator.coeff(0) - 3.0).abs() < 1e-12);
     }
 
     #[test]
