@@ -9,9 +9,10 @@
 use criterion::{Criterion, criterion_group, criterion_main};
 use looprate::discretize::Method;
 use looprate::evaluate::{Point, PreparedLoop};
+use looprate::hold::HoldKind;
 use looprate::poly::Poly;
-use looprate::transfer::{Controller, Transfer};
 use looprate::time_response::{TimeOptions, sampled_figures};
+use looprate::transfer::{Controller, Transfer};
 
 /// An invented positioning axis: motor with two lags and a mode at 60 Hz.
 pub fn bench_loop() -> PreparedLoop {
@@ -44,6 +45,7 @@ fn evaluation(c: &mut Criterion) {
             rate_hz: rate,
             method: Some(Method::Tustin),
             delay: 0.5,
+            hold: HoldKind::ZeroOrder,
         };
         assert!(
             lp.sampled(&p).figures.is_some(),
@@ -65,6 +67,7 @@ fn time_figures(c: &mut Criterion) {
             rate_hz: rate,
             method: Some(Method::Tustin),
             delay: 0.5,
+            hold: looprate::hold::HoldKind::ZeroOrder,
         };
         let (hold, _, cl) = lp.sampled_loop(&p).expect("loop");
         let poles = cl.poles().expect("poles");
@@ -98,6 +101,7 @@ fn lightly_damped(c: &mut Criterion) {
             rate_hz: rate,
             method: Some(Method::Tustin),
             delay: 0.5,
+            hold: looprate::hold::HoldKind::ZeroOrder,
         };
         assert!(lp.sampled(&p).figures.is_some());
         c.bench_function(

@@ -13,14 +13,21 @@ use crate::transfer::DiscreteTransfer;
 /// coefficient is not multiplied on a real target).
 pub fn transposed_direct_macs(c: &DiscreteTransfer) -> usize {
     let lead = c.transfer.denominator.leading();
-    let num = c.transfer.numerator.coeffs().iter().filter(|v| **v != 0.0).count();
-    let den =
-        c.transfer.denominator
-            .coeffs()
-            .iter()
-            .filter(|v| **v != 0.0)
-            .count()
-            .saturating_sub(usize::from(lead != 0.0));
+    let num = c
+        .transfer
+        .numerator
+        .coeffs()
+        .iter()
+        .filter(|v| **v != 0.0)
+        .count();
+    let den = c
+        .transfer
+        .denominator
+        .coeffs()
+        .iter()
+        .filter(|v| **v != 0.0)
+        .count()
+        .saturating_sub(usize::from(lead != 0.0));
     num + den
 }
 
@@ -51,7 +58,7 @@ pub fn macs(c: &DiscreteTransfer, structure: Structure, integrators: usize) -> O
 }
 
 /// Cycles one update costs: measured, or estimated from the controller
-/// arranged in `structure` (df2t when the case gives no `[arithmetic]`).
+/// arranged in `structure` (transposed-direct when the case gives no `[arithmetic]`).
 pub fn cycles_per_update(
     budget: &Budget,
     controller: Option<&DiscreteTransfer>,
@@ -97,24 +104,104 @@ pub fn timer_rate_at_least(timer_hz: f64, rate_hz: f64) -> Option<(f64, u64)> {
     Some((r, n))
 }
 
+/// What sets the top of the rate window (`pick.json`: `window.high_bound`,
+/// an object with a `kind`). Printed with `Display` in the summary, the
+/// report and the CPU chart.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+#[serde(tag = "kind", rename_all = "kebab-case")]
+pub enum WindowBound {
+    /// The CPU budget's ceiling rate (checked for the spec and the
+    /// coefficients up to there).
+    CpuBudget,
+    /// A number format's precision ceiling: the rounded controller fails
+    /// just above it; `fails_at_start` holds the failing figure when it
+    /// fails already at the window's low end.
+    Coefficients {
+        format: String,
+        structure: String,
+        fails_at_start: Option<String>,
+    },
+    /// The last rate checked: the bound `beyond` (CPU budget or
+    /// coefficients) would allow up to `beyond_hz`, but the spec and the
+    /// coefficients were checked only up to `checked_hz` (`max_hz`, or the
+    /// rate of a controller given in z), so the window stops there.
+    LastRateChecked {
+        checked_hz: f64,
+        beyond: Box<WindowBound>,
+        beyond_hz: f64,
+    },
+}
+
+impl WindowBound {
+    /// True when the rounded coefficients set the top (directly, not a
+    /// cut at the last rate checked).
+    pub fn is_coefficients(&self) -> bool {
+        matches!(self, WindowBound::Coefficients { .. })
+    }
+
+    /// True when the top is cut at the last rate checked.
+    pub fn is_last_rate_checked(&self) -> bool {
+        matches!(self, WindowBound::LastRateChecked { .. })
+    }
+}
+
+impl std::fmt::Display for WindowBound {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            WindowBound::CpuBudget => f.write_str("CPU budget"),
+            WindowBound::Coefficients {
+                format,
+                structure,
+                fails_at_start: None,
+            } => write!(f, "{format} coefficients ({structure})"),
+            WindowBound::Coefficients {
+                format,
+                structure,
+                fails_at_start: Some(lim),
+            } => write!(
+                f,
+                "{format} coefficients ({structure}) fail already at the rate the spec alone needs (`{lim}`)"
+            ),
+            WindowBound::LastRateChecked {
+                checked_hz,
+                beyond,
+                beyond_hz,
+            } => write!(
+                f,
+                "last rate checked ({checked_hz} Hz; {beyond} would allow up to {beyond_hz:.1} Hz, not checked)"
+            ),
+        }
+    }
+}
+
 /// The rate window: from the recommended rate up to the lowest ceiling
-/// (the CPU budget's, or a coefficient format's precision ceiling).
+/// (the CPU budget's, or a coefficient format's precision ceiling), never
+/// above the last rate checked.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct RateWindow {
     pub low_hz: f64,
     pub high_hz: f64,
-    /// What sets `high_hz`: `CPU budget` or `q15 coefficients (df2t)`.
-    pub high_bound: String,
+    /// What sets `high_hz`.
+    pub high_bound: WindowBound,
+    /// The CPU budget's ceiling rate, Hz, beside the bound (None without
+    /// a budget or when the update's cost is unknown).
+    pub cpu_ceiling_hz: Option<f64>,
     /// Empty when the recommended rate is above the ceiling.
     pub empty: bool,
 }
 
 impl RateWindow {
-    pub fn new(low_hz: f64, high_hz: f64, high_bound: impl Into<String>) -> Self {
+    pub fn new(
+        low_hz: f64,
+        high_hz: f64,
+        high_bound: WindowBound,
+        cpu_ceiling_hz: Option<f64>,
+    ) -> Self {
         RateWindow {
             low_hz,
             high_hz,
-            high_bound: high_bound.into(),
+            high_bound,
+            cpu_ceiling_hz,
             empty: low_hz > high_hz,
         }
     }
@@ -164,7 +251,7 @@ mod tests {
         // C(z) = 0.5 (z - 0.2) / ((z - 1)(z - 0.6)) as sections (by hand):
         // the integrator's section takes the zero, (1 - 0.2q)/(1 - q): one
         // MAC for -0.2 (the leading 1 is free) and one for -1; the other,
-        // 1/(1 - 0.6q): one; the gain 0.5: one. Total 4. In df2t:
+        // 1/(1 - 0.6q): one; the gain 0.5: one. Total 4. In transposed-direct:
         // b = [0, 0.5, -0.1], a = [-1.6, 0.6]: 2 + 2 = 4 as well.
         let pi = DiscreteTransfer {
             transfer: Transfer::new(
@@ -179,7 +266,7 @@ mod tests {
         // poles pair largest first, (1 - 1.1q + 0.3q^2) and (1 - 0.4q);
         // the section nearer the unit circle takes both zeros,
         // (1 - 0.5q + 0.05q^2): 2 + 2 MACs, then 1, then the gain 2: 6.
-        // df2t: b = [0, 2, -1, 0.1], a = [-1.5, 0.74, -0.12]: 3 + 3 = 6.
+        // transposed-direct: b = [0, 2, -1, 0.1], a = [-1.5, 0.74, -0.12]: 3 + 3 = 6.
         let third = DiscreteTransfer {
             transfer: Transfer::new(
                 Poly::from_descending(&[2.0, -1.0, 0.1]),

@@ -15,6 +15,7 @@
 
 use crate::discretize::Method;
 use crate::expr::{Expr, ExprError};
+use crate::hold::HoldKind;
 use crate::poly::{C64, Poly};
 use crate::precision::{Format, Structure};
 use crate::transfer::{DiscreteTransfer, Transfer};
@@ -25,6 +26,31 @@ use std::str::FromStr;
 /// Most grid points accepted in `[rates]`: far more than any sweep needs,
 /// small enough that a typo cannot ask for hours of work.
 pub const MAX_POINTS: usize = 100_000;
+
+/// Slowest loop rate accepted anywhere (a period of about 11.6 days), Hz.
+/// Below it the matrix exponentials of a period lose every digit.
+pub const MIN_RATE_HZ: f64 = 1e-6;
+
+/// Fastest loop rate accepted anywhere (a period of 1 ns), Hz.
+pub const MAX_RATE_HZ: f64 = 1e9;
+
+/// Largest coefficient magnitude a model may have once its denominator is
+/// made monic (the form every realisation uses). Products of three such
+/// models (controller, plant, sensor) and their sums must stay inside the
+/// double range with room to spare; beyond it the numbers are refused, not
+/// silently turned into infinities.
+pub const MAX_MONIC_COEFF: f64 = 1e100;
+
+/// Checks a loop rate against [`MIN_RATE_HZ`] and [`MAX_RATE_HZ`]; the
+/// message says the limits (used by the case file and the command line).
+pub fn rate_in_range(rate_hz: f64) -> Result<f64, String> {
+    if !rate_hz.is_finite() || !(MIN_RATE_HZ..=MAX_RATE_HZ).contains(&rate_hz) {
+        return Err(format!(
+            "must be a rate from {MIN_RATE_HZ:e} Hz to {MAX_RATE_HZ:e} Hz, got {rate_hz:e}"
+        ));
+    }
+    Ok(rate_hz)
+}
 
 /// Most samples accepted in `[uncertainty]`: each is a prepared loop held
 /// in memory and evaluated at every grid point and search step, so more
@@ -63,18 +89,33 @@ pub enum Spacing {
 pub struct Rates {
     /// Lowest rate, Hz (> 0).
     pub min_hz: f64,
-    /// Highest rate, Hz (> `min_hz`).
+    /// Highest rate, Hz (> `min_hz`; equal to it for the single rate of a
+    /// controller given in z).
     pub max_hz: f64,
-    /// Number of grid points, 2 to [`MAX_POINTS`].
+    /// Number of grid points, 2 to [`MAX_POINTS`] (1 for a controller
+    /// given in z).
     pub points: usize,
     /// Grid spacing.
     pub spacing: Spacing,
 }
 
 impl Rates {
+    /// The one rate a controller given in z runs at, Hz.
+    pub fn single(rate_hz: f64) -> Self {
+        Rates {
+            min_hz: rate_hz,
+            max_hz: rate_hz,
+            points: 1,
+            spacing: Spacing::Log,
+        }
+    }
+
     /// The requested rates in Hz, ascending, with the first and last
     /// exactly `min_hz` and `max_hz`.
     pub fn grid(&self) -> Vec<f64> {
+        if self.points == 1 || self.min_hz == self.max_hz {
+            return vec![self.max_hz];
+        }
         let n = self.points.max(2);
         let last = n - 1;
         (0..n)
@@ -198,9 +239,16 @@ pub struct Case {
     pub title: String,
     /// Parameters in file order; `models_at` takes values in this order.
     pub params: Vec<Param>,
-    /// Computation delays to evaluate, as fractions of a period in [0, 1];
+    /// Computation delays to evaluate, in periods (any finite value >= 0);
     /// `[0.0]` when `[timing]` is absent.
     pub compute_delays: Vec<f64>,
+    /// Actuator hold kinds to evaluate, in file order (`[timing] hold`);
+    /// `[zero-order]` by default.
+    pub holds: Vec<HoldKind>,
+    /// Transport delay of the plant (`[plant] delay_s`), s; 0 without.
+    pub plant_delay_s: f64,
+    /// Transport delay of the measurement (`[sensor] delay_s`), s; 0 without.
+    pub sensor_delay_s: f64,
     /// The rate sweep.
     pub rates: Rates,
     /// Discretization methods to try, in file order; empty for a
@@ -216,10 +264,18 @@ pub struct Case {
     pub uncertainty: Option<UncertaintyMode>,
     /// Coefficient formats whose precision ceiling is wanted, if any.
     pub arithmetic: Option<Arithmetic>,
+    /// Sanity notes: values that are valid but look like a slip (a CPU
+    /// clock below 1 MHz, a range no plant variant can feel). Printed by
+    /// `check` and carried into the pick's notes; never an error.
+    pub notes: Vec<String>,
     plant: Model,
     sensor: Option<Model>,
     controller: ControllerModel,
 }
+
+/// A CPU clock below this is probably given in MHz instead of Hz
+/// (common practice, no source: microcontrollers run at 1 MHz and up).
+const CPU_HZ_SANITY: f64 = 1e6;
 
 /// Everything that can be wrong with a case file.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
@@ -306,6 +362,44 @@ struct Model {
     /// `plant`, `sensor` or `controller`.
     role: &'static str,
     source: Source,
+    /// The form the file used, for reports.
+    written: Written,
+}
+
+/// A block of the loop in the form the case file wrote it, so a report
+/// can show what the reader typed rather than the expanded polynomials.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Written {
+    /// `transfer = "..."`: the expression text.
+    Expression(String),
+    /// `zeros`, `poles`, `gain` (roots in rad/s).
+    ZerosPolesGain {
+        zeros: Vec<C64>,
+        poles: Vec<C64>,
+        gain: f64,
+    },
+    /// `pid = { ... }` (missing gains are zero).
+    Pid {
+        kp: f64,
+        ki: f64,
+        kd: f64,
+        derivative_filter_hz: Option<f64>,
+    },
+    /// `numerator_z`, `denominator_z` (descending powers of z) at `rate_hz`.
+    InZ {
+        numerator: Vec<f64>,
+        denominator: Vec<f64>,
+        rate_hz: f64,
+    },
+}
+
+/// The three blocks as written; `sensor` is None when the file has no
+/// `[sensor]` (a unit sensor).
+#[derive(Debug, Clone, PartialEq)]
+pub struct WrittenLoop {
+    pub plant: Written,
+    pub sensor: Option<Written>,
+    pub controller: Written,
 }
 
 #[derive(Debug, Clone, PartialEq)]
@@ -340,6 +434,7 @@ struct RawTransfer {
     zeros: Option<Vec<toml::Value>>,
     poles: Option<Vec<toml::Value>>,
     gain: Option<f64>,
+    delay_s: Option<toml::Value>,
 }
 
 #[derive(Deserialize)]
@@ -353,6 +448,11 @@ struct RawController {
     numerator_z: Option<Vec<f64>>,
     denominator_z: Option<Vec<f64>>,
     rate_hz: Option<f64>,
+    /// The hold a controller given in z was designed for.
+    hold: Option<String>,
+    /// Refused with a message: a transport delay belongs to the plant or
+    /// the sensor.
+    delay_s: Option<toml::Value>,
 }
 
 #[derive(Deserialize)]
@@ -368,6 +468,7 @@ struct RawPid {
 #[serde(deny_unknown_fields, expecting = "a table")]
 struct RawTiming {
     compute_delay: Option<toml::Value>,
+    hold: Option<toml::Value>,
 }
 
 #[derive(Deserialize)]
@@ -556,6 +657,39 @@ fn path_at(doc: &toml::de::DeTable<'_>, off: usize) -> Option<String> {
     walk_table(doc, off, &mut path).then(|| path.join("."))
 }
 
+/// Case-file keys an earlier version accepted, as (table, old key, new
+/// key). No alias is kept: an old key is refused with its new name.
+const RENAMED_KEYS: [(&str, &str, &str); 5] = [
+    ("plant", "tf", "transfer"),              // old name
+    ("sensor", "tf", "transfer"),             // old name
+    ("controller", "tf", "transfer"),         // old name
+    ("controller", "num_z", "numerator_z"),   // old name
+    ("controller", "den_z", "denominator_z"), // old name
+];
+
+/// The first renamed key in the document, as a `Shape` error at its place.
+fn renamed_key(ctx: &Ctx, text: &str, doc: &toml::de::DeTable<'_>) -> Option<CaseError> {
+    for (table, old, new) in RENAMED_KEYS {
+        let Some((_, v)) = doc.iter().find(|(k, _)| k.get_ref() == table) else {
+            continue;
+        };
+        let toml::de::DeValue::Table(t) = v.get_ref() else {
+            continue;
+        };
+        if let Some((k, _)) = t.iter().find(|(k, _)| k.get_ref() == old) {
+            let (line, column) = line_column(text, k.span().start);
+            return Some(CaseError::Shape {
+                file: ctx.file.clone(),
+                field: format!("{table}.{old}"),
+                line,
+                column,
+                message: format!("`{old}` is now called `{new}`"),
+            });
+        }
+    }
+    None
+}
+
 /// Keys of the table at `path` in file order (the parsed table sorts them).
 fn keys_in_file_order(doc: &toml::de::DeTable<'_>, path: &[&str]) -> Vec<String> {
     let mut table = doc;
@@ -688,7 +822,13 @@ fn roots(ctx: &Ctx, field: &str, values: &[toml::Value]) -> Result<Vec<C64>, Cas
 }
 
 /// Checks a model's transfer function: finite, non-zero, proper.
-fn check_transfer(ctx: &Ctx, field: &str, role: &str, tf: &Transfer, prefix: &str) -> Result<(), CaseError> {
+fn check_transfer(
+    ctx: &Ctx,
+    field: &str,
+    role: &str,
+    tf: &Transfer,
+    prefix: &str,
+) -> Result<(), CaseError> {
     if !tf.is_finite() {
         return Err(ctx.invalid(field, format!("{prefix}a coefficient is not finite")));
     }
@@ -711,7 +851,42 @@ fn check_transfer(ctx: &Ctx, field: &str, role: &str, tf: &Transfer, prefix: &st
             ),
         ));
     }
+    if let Some(big) = monic_overflow(tf) {
+        return Err(ctx.invalid(
+            field,
+            format!(
+                "{prefix}the {role}'s numbers are beyond the range looprate computes in: \
+                 divided by the leading denominator coefficient, a coefficient is {big:e} \
+                 (at most {MAX_MONIC_COEFF:e} allowed); rescale its time unit or its gain"
+            ),
+        ));
+    }
     Ok(())
+}
+
+/// The largest coefficient magnitude of `transfer` with a monic denominator,
+/// when it exceeds [`MAX_MONIC_COEFF`] or is not finite (a leading
+/// coefficient of 1e-320 divides everything into infinity).
+pub fn monic_overflow(tf: &Transfer) -> Option<f64> {
+    let lead = tf.denominator.leading();
+    let big = tf
+        .numerator
+        .coeffs()
+        .iter()
+        .chain(tf.denominator.coeffs())
+        .map(|c| (c / lead).abs())
+        .fold(0.0f64, |m, v| {
+            if v.is_nan() || m.is_nan() {
+                f64::NAN
+            } else {
+                m.max(v)
+            }
+        });
+    if big.is_nan() {
+        Some(f64::INFINITY)
+    } else {
+        (big > MAX_MONIC_COEFF).then_some(big)
+    }
 }
 
 /// `transfer = "..."` or `zeros`/`poles`/`gain` for the plant or sensor.
@@ -725,7 +900,7 @@ fn model_from(
     gain: Option<f64>,
 ) -> Result<Option<Model>, CaseError> {
     let roots_form = zeros.is_some() || poles.is_some() || gain.is_some();
-    match (tf, roots_form) {
+    match (transfer, roots_form) {
         (Some(_), true) => Err(ctx.invalid(
             base,
             "given two ways: `transfer` and `zeros`/`poles`/`gain`; keep one",
@@ -737,6 +912,7 @@ fn model_from(
                 field,
                 role,
                 source: Source::Expr(expr),
+                written: Written::Expression(text),
             }))
         }
         (None, true) => {
@@ -770,13 +946,18 @@ fn model_from(
                 field: base.to_string(),
                 role,
                 source: Source::Fixed(tf),
+                written: Written::ZerosPolesGain {
+                    zeros: z,
+                    poles: p,
+                    gain: k,
+                },
             }))
         }
         (None, false) => Ok(None),
     }
 }
 
-fn pid(ctx: &Ctx, raw: RawPid) -> Result<Transfer, CaseError> {
+fn pid(ctx: &Ctx, raw: RawPid) -> Result<(Transfer, Written), CaseError> {
     let term = |name: &str, v: Option<f64>| -> Result<f64, CaseError> {
         match v {
             Some(v) => ctx.number(&format!("controller.pid.{name}"), v, |_| true, "finite"),
@@ -816,7 +997,13 @@ fn pid(ctx: &Ctx, raw: RawPid) -> Result<Transfer, CaseError> {
     let num = den.scale(kp).add(&b.scale(ki)).add(&s.mul(&a).scale(kd));
     let tf = Transfer::new(num, den);
     check_transfer(ctx, "controller.pid", "controller", &tf, "")?;
-    Ok(tf)
+    let written = Written::Pid {
+        kp,
+        ki,
+        kd,
+        derivative_filter_hz: raw.derivative_filter_hz.filter(|_| kd != 0.0),
+    };
+    Ok((tf, written))
 }
 
 fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, CaseError> {
@@ -853,24 +1040,26 @@ fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, Cas
         }
     }
     if let Some(p) = raw.pid {
-        let tf = pid(ctx, p)?;
+        let (tf, written) = pid(ctx, p)?;
         return Ok(ControllerModel::Continuous(Model {
             field: "controller.pid".into(),
             role: "controller",
             source: Source::Fixed(tf),
+            written,
         }));
     }
     if raw.numerator_z.is_some() || raw.denominator_z.is_some() || raw.rate_hz.is_some() {
         let num = raw
             .numerator_z
             .ok_or_else(|| ctx.missing("controller.numerator_z", "numerator coefficients in z"))?;
-        let den = raw
-            .denominator_z
-            .ok_or_else(|| ctx.missing("controller.denominator_z", "denominator coefficients in z"))?;
+        let den = raw.denominator_z.ok_or_else(|| {
+            ctx.missing("controller.denominator_z", "denominator coefficients in z")
+        })?;
         let rate = raw.rate_hz.ok_or_else(|| {
             ctx.missing("controller.rate_hz", "the rate the controller runs at, Hz")
         })?;
         let rate = ctx.positive("controller.rate_hz", rate)?;
+        rate_in_range(rate).map_err(|m| ctx.invalid("controller.rate_hz", m))?;
         for (name, c) in [("numerator_z", &num), ("denominator_z", &den)] {
             if c.is_empty() {
                 return Err(ctx.invalid(format!("controller.{name}"), "empty coefficient list"));
@@ -906,7 +1095,7 @@ fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, Cas
             ));
         }
         return Ok(ControllerModel::Discrete(DiscreteTransfer {
-            transfer,
+            transfer: tf,
             period_s: 1.0 / rate,
         }));
     }
@@ -940,6 +1129,12 @@ fn params_from(ctx: &Ctx, table: toml::Table, order: &[String]) -> Result<Vec<Pa
             return Err(ctx.invalid(
                 &field,
                 "`s` is the Laplace variable and cannot be a parameter",
+            ));
+        }
+        if name == crate::expr::PI_NAME {
+            return Err(ctx.invalid(
+                &field,
+                "`pi` is built in (3.14159...) and cannot be a parameter",
             ));
         }
         if !is_identifier(name) {
@@ -1013,6 +1208,105 @@ fn params_from(ctx: &Ctx, table: toml::Table, order: &[String]) -> Result<Vec<Pa
     Ok(out)
 }
 
+/// A hold kind by name; the error lists the kinds.
+fn hold_kind(ctx: &Ctx, field: &str, name: &str) -> Result<HoldKind, CaseError> {
+    HoldKind::from_name(name).ok_or_else(|| {
+        ctx.invalid(
+            field,
+            format!(
+                "unknown hold kind `{name}`; the kinds are: {}",
+                HoldKind::names()
+            ),
+        )
+    })
+}
+
+/// `[timing] hold`: one name or a list (default `zero-order`). A
+/// controller given in z runs only with the hold it was designed for
+/// (`[controller] hold`, zero-order unless given).
+fn holds_from(
+    ctx: &Ctx,
+    raw: Option<&toml::Value>,
+    controller: &ControllerModel,
+    assumed: Option<HoldKind>,
+) -> Result<Vec<HoldKind>, CaseError> {
+    let field = "timing.hold";
+    let default = assumed.unwrap_or_default();
+    let Some(value) = raw else {
+        return Ok(vec![default]);
+    };
+    let list: Vec<(String, &toml::Value)> = match value {
+        toml::Value::Array(a) => {
+            if a.is_empty() {
+                return Err(ctx.invalid(
+                    field,
+                    format!("empty list; give at least one of: {}", HoldKind::names()),
+                ));
+            }
+            a.iter()
+                .enumerate()
+                .map(|(i, v)| (format!("{field}[{i}]"), v))
+                .collect()
+        }
+        v => vec![(field.to_string(), v)],
+    };
+    let mut out: Vec<HoldKind> = Vec::new();
+    for (f, v) in list {
+        let Some(name) = v.as_str() else {
+            return Err(ctx.invalid(
+                &f,
+                format!(
+                    "expected a hold kind name ({}), found a {}",
+                    HoldKind::names(),
+                    v.type_str()
+                ),
+            ));
+        };
+        let kind = hold_kind(ctx, &f, name)?;
+        if out.contains(&kind) {
+            return Err(ctx.invalid(&f, format!("`{name}` is listed twice")));
+        }
+        if let ControllerModel::Discrete(_) = controller
+            && kind != default
+        {
+            return Err(ctx.invalid(
+                &f,
+                format!(
+                    "the controller is given in z and assumes a {} hold{}: it cannot be run with a `{}` hold (set [controller] hold to the hold it was designed for, or give a continuous design to compare holds)",
+                    default.name(),
+                    if assumed.is_some() {
+                        " ([controller] hold)"
+                    } else {
+                        " (the default for a controller in z)"
+                    },
+                    kind.name()
+                ),
+            ));
+        }
+        out.push(kind);
+    }
+    Ok(out)
+}
+
+/// `delay_s` on [plant] or [sensor]: a finite number of seconds >= 0.
+fn transport_delay(ctx: &Ctx, field: &str, raw: Option<&toml::Value>) -> Result<f64, CaseError> {
+    let Some(v) = raw else {
+        return Ok(0.0);
+    };
+    let d = value_as_f64(v).ok_or_else(|| {
+        ctx.invalid(
+            field,
+            format!("expected a number of seconds, found a {}", v.type_str()),
+        )
+    })?;
+    ctx.number(
+        field,
+        d,
+        |d| d >= 0.0,
+        "a transport delay in seconds, finite and >= 0",
+    )
+}
+
 fn delays_from(ctx: &Ctx, raw: Option<RawTiming>) -> Result<Vec<f64>, CaseError> {
     let Some(value) = raw.and_then(|t| t.compute_delay) else {
         return Ok(vec![0.0]);
@@ -1038,8 +1332,8 @@ fn delays_from(ctx: &Ctx, raw: Option<RawTiming>) -> Result<Vec<f64>, CaseError>
         let d = ctx.number(
             &f,
             d,
-            |d| (0.0..=1.0).contains(&d),
-            "a fraction of a period from 0 to 1",
+            |d| d >= 0.0 && d.is_finite(),
+            "a delay in periods, finite and >= 0 (1.5 is a period and a half)",
         )?;
         if out.contains(&d) {
             return Err(ctx.invalid(&f, format!("{d} is listed twice")));
@@ -1059,6 +1353,8 @@ fn rates_from(ctx: &Ctx, raw: Option<RawRates>) -> Result<Rates, CaseError> {
         .ok_or_else(|| ctx.missing("rates.max_hz", "highest rate to try, Hz"))?;
     let min_hz = ctx.positive("rates.min_hz", min_hz)?;
     let max_hz = ctx.positive("rates.max_hz", max_hz)?;
+    rate_in_range(min_hz).map_err(|m| ctx.invalid("rates.min_hz", m))?;
+    rate_in_range(max_hz).map_err(|m| ctx.invalid("rates.max_hz", m))?;
     if min_hz >= max_hz {
         return Err(ctx.invalid(
             "rates.max_hz",
@@ -1334,6 +1630,22 @@ fn arithmetic_from(ctx: &Ctx, raw: Option<RawArithmetic>) -> Result<Option<Arith
 // ------------------------------------------------------------------ Case
 
 impl Case {
+    /// The plant, sensor and controller in the form the file wrote them.
+    pub fn written(&self) -> WrittenLoop {
+        WrittenLoop {
+            plant: self.plant.written.clone(),
+            sensor: self.sensor.as_ref().map(|m| m.written.clone()),
+            controller: match &self.controller {
+                ControllerModel::Continuous(m) => m.written.clone(),
+                ControllerModel::Discrete(d) => Written::InZ {
+                    numerator: d.transfer.numerator.descending(),
+                    denominator: d.transfer.denominator.descending(),
+                    rate_hz: 1.0 / d.period_s,
+                },
+            },
+        }
+    }
+
     /// Reads and validates a case file.
     pub fn load(path: &Path) -> Result<Case, CaseError> {
         let text = std::fs::read_to_string(path).map_err(|e| CaseError::Read {
@@ -1357,6 +1669,9 @@ impl Case {
                 message: e.message().trim_end().to_string(),
             }
         })?;
+        if let Some(e) = renamed_key(&ctx, text, doc.get_ref()) {
+            return Err(e);
+        }
         let raw: RawCase = toml::from_str(text).map_err(|e| {
             let off = e.span().map_or(0, |s| s.start);
             let (line, column) = line_column(text, off);
@@ -1372,6 +1687,16 @@ impl Case {
         let order = keys_in_file_order(doc.get_ref(), &["params"]);
         let params = params_from(&ctx, raw.params.unwrap_or_default(), &order)?;
 
+        let plant_delay_s = transport_delay(
+            &ctx,
+            "plant.delay_s",
+            raw.plant.as_ref().and_then(|p| p.delay_s.as_ref()),
+        )?;
+        let sensor_delay_s = transport_delay(
+            &ctx,
+            "sensor.delay_s",
+            raw.sensor.as_ref().and_then(|p| p.delay_s.as_ref()),
+        )?;
         let plant = match raw.plant {
             Some(p) => model_from(&ctx, "plant", "plant", p.transfer, p.zeros, p.poles, p.gain)?,
             None => None,
@@ -1384,22 +1709,41 @@ impl Case {
         })?;
         let sensor = match raw.sensor {
             Some(p) => Some(
-                model_from(&ctx, "sensor", "sensor", p.transfer, p.zeros, p.poles, p.gain)?.ok_or_else(
-                    || {
-                        ctx.missing(
-                            "sensor",
-                            "`transfer` or `zeros`/`poles`/`gain` (or drop [sensor])",
-                        )
-                    },
-                )?,
+                model_from(
+                    &ctx, "sensor", "sensor", p.transfer, p.zeros, p.poles, p.gain,
+                )?
+                .ok_or_else(|| {
+                    ctx.missing(
+                        "sensor",
+                        "`transfer` or `zeros`/`poles`/`gain` (or drop [sensor])",
+                    )
+                })?,
             ),
             None => None,
         };
-        let controller = controller_from(
-            &ctx,
-            raw.controller
-                .ok_or_else(|| ctx.missing("controller", "the [controller] table"))?,
-        )?;
+        let raw_controller = raw
+            .controller
+            .ok_or_else(|| ctx.missing("controller", "the [controller] table"))?;
+        if raw_controller.delay_s.is_some() {
+            return Err(ctx.invalid(
+                "controller.delay_s",
+                "a controller has no transport delay: give a pure delay as `delay_s` on [plant] (the actuator path) or [sensor] (the measurement), and the time the processor takes as [timing] compute_delay (in periods)",
+            ));
+        }
+        let assumed_hold = raw_controller.hold.clone();
+        let controller = controller_from(&ctx, raw_controller)?;
+        let assumed_hold = match (assumed_hold, &controller) {
+            (None, _) => None,
+            (Some(h), ControllerModel::Discrete(_)) => {
+                Some(hold_kind(&ctx, "controller.hold", &h)?)
+            }
+            (Some(_), ControllerModel::Continuous(_)) => {
+                return Err(ctx.invalid(
+                    "controller.hold",
+                    "only a controller given in z assumes a hold; a continuous design is discretized for every hold listed in [timing] hold",
+                ));
+            }
+        };
 
         // Every identifier bound, every parameter used.
         let mut exprs: Vec<&Model> = vec![&plant];
@@ -1415,9 +1759,11 @@ impl Case {
                         let col = e.identifier_column(&name).unwrap_or(1);
                         let err = ExprError {
                             column: col,
-                            message: format!(
-                                "unbound identifier `{name}`: declare it under [params]"
-                            ),
+                            message: if name == "z" {
+                                crate::expr::unbound_message(&name)
+                            } else {
+                                format!("unbound identifier `{name}`: declare it under [params]")
+                            },
                         };
                         return Err(ctx.expression(&m.field, e.source(), &err));
                     }
@@ -1432,8 +1778,25 @@ impl Case {
             ));
         }
 
+        let holds = holds_from(
+            &ctx,
+            raw.timing.as_ref().and_then(|t| t.hold.as_ref()),
+            &controller,
+            assumed_hold,
+        )?;
         let compute_delays = delays_from(&ctx, raw.timing)?;
-        let rates = rates_from(&ctx, raw.rates)?;
+        // A controller given in z runs at its own rate only: `[rates]` is
+        // optional there, and the "grid" is that one rate.
+        let (rates, rates_ignored) = match &controller {
+            ControllerModel::Discrete(d) => {
+                let given = raw.rates.is_some();
+                if given {
+                    rates_from(&ctx, raw.rates)?;
+                }
+                (Rates::single(1.0 / d.period_s), given)
+            }
+            ControllerModel::Continuous(_) => (rates_from(&ctx, raw.rates)?, false),
+        };
         let (methods, prewarp_hz) = methods_from(&ctx, raw.methods, &controller)?;
         let spec = spec_from(&ctx, raw.spec)?;
         let budget = budget_from(&ctx, raw.budget)?;
@@ -1445,11 +1808,49 @@ impl Case {
                 .map_or_else(|| "case".to_string(), |s| s.to_string_lossy().into_owned())
         });
 
+        let mut notes = Vec::new();
+        if rates_ignored {
+            notes.push(format!(
+                "[rates] does not apply: the controller is given in z at {} Hz and runs only at that rate",
+                rates.max_hz
+            ));
+        }
+        if let Some(b) = &budget
+            && b.cpu_hz < CPU_HZ_SANITY
+        {
+            notes.push(format!(
+                "budget.cpu_hz = {} Hz is below 1 MHz: the field is in Hz; is this the clock in MHz?",
+                b.cpu_hz
+            ));
+        }
+        if uncertainty.is_some() {
+            let in_loop_models: Vec<String> = std::iter::once(&plant)
+                .chain(sensor.as_ref())
+                .filter_map(|m| match &m.source {
+                    Source::Expr(e) => Some(e.identifiers()),
+                    _ => None,
+                })
+                .flatten()
+                .collect();
+            for p in params.iter().filter(|p| p.min < p.max) {
+                if !in_loop_models.contains(&p.name) {
+                    notes.push(format!(
+                        "params.{} has a range but appears only in the controller: the controller is designed once, so every plant variant is the same loop",
+                        p.name
+                    ));
+                }
+            }
+        }
+
         let case = Case {
+            notes,
             source: source.to_path_buf(),
             title,
             params,
             compute_delays,
+            holds,
+            plant_delay_s,
+            sensor_delay_s,
             rates,
             methods,
             prewarp_hz,
@@ -1518,6 +1919,7 @@ impl Case {
                     Transfer::new(num, den)
                 }
             };
+            let tf = tf.with_sane_scale();
             check_transfer(&ctx, &m.field, m.role, &tf, &prefix)?;
             Ok(tf)
         };

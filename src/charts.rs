@@ -20,17 +20,18 @@ use crate::error::Error;
 use crate::evaluate::{Evaluation, Figures, Point, PreparedLoop};
 use crate::feasibility::assess;
 use crate::frequency::{loop_grid, unwrapped_phase};
+use crate::hold::HoldKind;
 use crate::pick::{PickReport, Recommended, case_methods};
 use crate::plot::{
     Annotation, Axis, Draw, Figure, Limit, MarkStyle, Panel, Series, Side, VMark, XBand, YBand,
-    render_png,
+    render_png_bytes,
 };
 use crate::poly::C64;
 use crate::search::method_label;
 use crate::summary::fmt_num;
 use crate::sweep::SweepRow;
-use crate::transfer::Controller;
 use crate::time_response::TracePoint;
+use crate::transfer::Controller;
 
 /// File names of the charts, in the order [`write_charts`] returns them.
 pub const FIGURES_VS_RATE: &str = "figures-vs-rate.png";
@@ -40,6 +41,7 @@ pub const CPU_BUDGET: &str = "cpu-budget.png";
 pub const HOLD_APPROXIMATION: &str = "hold-approximation.png";
 pub const DISTURBANCE: &str = "disturbance.png";
 pub const PRECISION: &str = "precision.png";
+pub const HOLD_KINDS: &str = "hold-kinds.png";
 
 /// Rates of the hold-approximation chart (log-spaced over the case's range).
 const HOLD_CHART_RATES: usize = 40;
@@ -76,8 +78,17 @@ type LimitSpec = Option<(f64, Side, String)>;
 type PanelSpec = (&'static str, Get, LimitSpec);
 type Points = Vec<(f64, f64)>;
 
+/// A chart as drawn: where it was written and its PNG bytes (which the
+/// HTML report embeds, so it never reads a file back that another run
+/// could have replaced).
+#[derive(Debug, Clone)]
+pub struct Chart {
+    pub path: PathBuf,
+    pub png: Vec<u8>,
+}
+
 /// Draw every chart that applies to this run into `out_dir` (created if
-/// missing) and return the files written, in a fixed order.
+/// missing) and return the charts written, in a fixed order.
 ///
 /// Charts that need a recommendation (step, loop, hold approximation,
 /// disturbance) are skipped when the report has none; `cpu-budget.png`
@@ -88,7 +99,7 @@ pub fn write_charts(
     lp: &PreparedLoop,
     rows: &[SweepRow],
     report: &PickReport,
-) -> Result<Vec<PathBuf>, Error> {
+) -> Result<Vec<Chart>, Error> {
     std::fs::create_dir_all(out_dir).map_err(|e| Error::Output {
         path: out_dir.display().to_string(),
         message: e.to_string(),
@@ -111,7 +122,7 @@ pub fn write_charts(
         case.title,
         env!("CARGO_PKG_VERSION")
     );
-    let jobs: [(&str, Builder); 7] = [
+    let jobs: [(&str, Builder); 8] = [
         (FIGURES_VS_RATE, figures_vs_rate),
         (STEP_RESPONSE, step_response),
         (LOOP_RESPONSE, loop_response),
@@ -119,16 +130,18 @@ pub fn write_charts(
         (HOLD_APPROXIMATION, hold_approximation),
         (DISTURBANCE, disturbance),
         (PRECISION, precision_chart),
+        (HOLD_KINDS, hold_kinds),
     ];
-    let written: Vec<Result<Option<PathBuf>, Error>> = jobs
+    let written: Vec<Result<Option<Chart>, Error>> = jobs
         .par_iter()
         .map(|(name, build)| {
             let Some(fig) = build(&inputs) else {
                 return Ok(None);
             };
             let path = out_dir.join(name);
-            render_png(&fig.with_note(note.clone()), &path)?;
-            Ok(Some(path))
+            let png = render_png_bytes(&fig.with_note(note.clone()), &path)?;
+            crate::outputs::write_atomic(&path, &png)?;
+            Ok(Some(Chart { path, png }))
         })
         .collect();
     written.into_iter().filter_map(Result::transpose).collect()
@@ -141,7 +154,7 @@ fn rate_axis() -> Axis {
 }
 
 fn hz(v: f64) -> String {
-    format!("{} Hz", fmt_num(v))
+    crate::engineering::hz(v)
 }
 
 /// The methods of the sweep at the design delay, in case order.
@@ -151,7 +164,11 @@ fn design_series<'a>(inp: &Inputs<'a>) -> Vec<(String, Vec<&'a SweepRow>)> {
         let mut rows: Vec<&SweepRow> = inp
             .rows
             .iter()
-            .filter(|r| r.point.method == m && r.point.delay == inp.report.design_delay)
+            .filter(|r| {
+                r.point.method == m
+                    && r.point.hold == design_hold(inp)
+                    && r.point.delay == inp.report.design_delay
+            })
             .collect();
         if rows.is_empty() {
             continue;
@@ -162,13 +179,105 @@ fn design_series<'a>(inp: &Inputs<'a>) -> Vec<(String, Vec<&'a SweepRow>)> {
     out
 }
 
-/// `f_star` of a method at the design delay.
+/// The rows of a controller given in z, one series per computation delay
+/// (each a single rate), labelled by the delay.
+fn delay_series<'a>(inp: &Inputs<'a>) -> Vec<(String, Vec<&'a SweepRow>)> {
+    let mut out: Vec<(String, Vec<&SweepRow>)> = Vec::new();
+    for &d in &inp.case.compute_delays {
+        let rows: Vec<&SweepRow> = inp.rows.iter().filter(|r| r.point.delay == d).collect();
+        if !rows.is_empty() {
+            out.push((format!("computation delay {} T", fmt_num(d)), rows));
+        }
+    }
+    out
+}
+
+/// The nominal `f_star` of a method at the design delay.
 fn f_star(report: &PickReport, method: &str) -> Option<f64> {
     report
         .methods
         .iter()
-        .find(|m| m.method == method && m.compute_delay == report.design_delay)
+        .find(|m| {
+            m.method == method
+                && Some(m.hold) == report.recommended.as_ref().map(|r| r.hold)
+                && m.compute_delay == report.design_delay
+        })
         .and_then(|m| m.slowest_rate_hz)
+}
+
+/// The hold kind the charts of methods show: the recommended one, else
+/// the first the case lists.
+fn design_hold(inp: &Inputs) -> HoldKind {
+    inp.rec
+        .map(|(r, _)| r.hold)
+        .unwrap_or_else(|| inp.case.holds.first().copied().unwrap_or_default())
+}
+
+/// The robust `f_star` of a method at the design delay (plant variants).
+fn robust_f_star(report: &PickReport, method: &str) -> Option<f64> {
+    report.robust.as_ref().and_then(|rb| {
+        rb.methods
+            .iter()
+            .find(|m| m.rate.method == method && m.rate.compute_delay == report.design_delay)
+            .and_then(|m| m.rate.slowest_rate_hz)
+    })
+}
+
+/// Vertical marks of one kind of `f_star` (one per method). When the
+/// methods' values lie within 10 % of each other their labels would
+/// collide: one label then names the span and the count, and the other
+/// lines go unlabelled (the report's tables give each value).
+fn star_marks(
+    series: &[(String, Vec<&SweepRow>)],
+    kind: &str,
+    style: MarkStyle,
+    get: impl Fn(&str) -> Option<f64>,
+) -> Vec<(f64, String, MarkStyle)> {
+    let found: Vec<(&str, f64)> = series
+        .iter()
+        .filter_map(|(m, _)| get(m).map(|f| (m.as_str(), f)))
+        .collect();
+    let lo = found.iter().map(|p| p.1).fold(f64::INFINITY, f64::min);
+    let hi = found.iter().map(|p| p.1).fold(f64::NEG_INFINITY, f64::max);
+    if found.len() > 1 && hi <= 1.1 * lo {
+        return found
+            .iter()
+            .enumerate()
+            .map(|(i, &(_, f))| {
+                let text = if i == 0 {
+                    format!("{kind} {} to {} ({} methods)", hz(lo), hz(hi), found.len())
+                } else {
+                    String::new()
+                };
+                (f, text, style)
+            })
+            .collect();
+    }
+    found
+        .into_iter()
+        .map(|(m, f)| (f, format!("{kind} {m} {}", hz(f)), style))
+        .collect()
+}
+
+/// What the charts call the rate they show the loop at: the recommended
+/// rate, or, when the rate window is empty, only the rate the spec alone
+/// needs (it is no recommendation then).
+fn rate_word(report: &PickReport) -> &'static str {
+    if report.window.as_ref().is_some_and(|w| w.empty) {
+        "spec alone"
+    } else {
+        "recommended"
+    }
+}
+
+/// The name of the `f_star` the answer rests on: with plant variants it
+/// is the robust one, and every chart says so (one meaning of "f*").
+fn star_word(report: &PickReport) -> &'static str {
+    if report.robust.is_some() {
+        "robust f*"
+    } else {
+        "f*"
+    }
 }
 
 /// The figures of a chart row; NaN (a break in the line) where the loop
@@ -200,6 +309,7 @@ fn point_at(inp: &Inputs, method: Option<Method>, rate_hz: f64) -> Point {
         rate_hz,
         method,
         delay: inp.report.design_delay,
+        hold: design_hold(inp),
     }
 }
 
@@ -208,7 +318,11 @@ fn point_at(inp: &Inputs, method: Option<Method>, rate_hz: f64) -> Point {
 fn failing_rate(inp: &Inputs, rec: &Recommended, method: Option<Method>) -> f64 {
     inp.rows
         .iter()
-        .filter(|r| r.point.method == method && r.point.delay == inp.report.design_delay)
+        .filter(|r| {
+            r.point.method == method
+                && r.point.hold == rec.hold
+                && r.point.delay == inp.report.design_delay
+        })
         .filter(|r| r.point.rate_hz < rec.slowest_rate_hz && !r.assessment.feasible)
         .map(|r| r.point.rate_hz)
         .fold(None, |a: Option<f64>, f| Some(a.map_or(f, |a| a.max(f))))
@@ -268,7 +382,16 @@ fn hline(label: &str, y: f64, x0: f64, x1: f64, style: usize) -> Series {
 /// peak against the rate, one series per method at the design delay.
 fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
     let spec = &inp.case.spec;
-    let series = design_series(inp);
+    // A controller given in z runs at one rate: one point per computation
+    // delay, on an axis around that rate (not the range of a sweep).
+    let single = match &inp.lp.controller {
+        crate::transfer::Controller::Discrete(d) => Some(1.0 / d.period_s),
+        crate::transfer::Controller::Continuous(_) => None,
+    };
+    let series = match single {
+        Some(_) => delay_series(inp),
+        None => design_series(inp),
+    };
     if series.is_empty() {
         return None;
     }
@@ -308,23 +431,51 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
     ];
     // Vertical marks, each labelled on one panel only (spread over the
     // panels so the labels do not collide); the lines run through all.
-    let mut marks: Vec<(f64, String, MarkStyle)> = series
-        .iter()
-        .filter_map(|(m, _)| {
-            f_star(inp.report, m).map(|f| (f, format!("f* {m} {}", hz(f)), MarkStyle::Dashed))
+    // With plant variants both answers are marked, each by its name: the
+    // nominal f* (dotted, where these nominal curves cross the limits) and
+    // the robust f* (dashed, what the answer rests on).
+    let robust = inp.report.robust.is_some();
+    let mut marks: Vec<(f64, String, MarkStyle)> = Vec::new();
+    if robust {
+        marks.extend(star_marks(&series, "robust f*", MarkStyle::Dashed, |m| {
+            robust_f_star(inp.report, m)
+        }));
+        marks.extend(star_marks(&series, "nominal f*", MarkStyle::Dotted, |m| {
+            f_star(inp.report, m)
+        }));
+    } else {
+        marks.extend(star_marks(&series, "f*", MarkStyle::Dashed, |m| {
+            f_star(inp.report, m)
+        }));
+    }
+    // Only labelled marks take a panel for their label.
+    let mut labelled = 0;
+    let marks: Vec<(f64, String, MarkStyle, usize)> = marks
+        .into_iter()
+        .map(|(x, t, st)| {
+            let slot = labelled;
+            if !t.is_empty() {
+                labelled += 1;
+            }
+            (x, t, st, slot + 1)
         })
         .collect();
+    let mut marks = marks;
     if let Some(r) = &inp.report.recommended {
         marks.insert(
             0,
             (
                 r.rate_hz,
-                format!("recommended {}", hz(r.rate_hz)),
+                format!("{} {}", rate_word(inp.report), hz(r.rate_hz)),
                 MarkStyle::Solid,
+                0,
             ),
         );
     }
-    let (lo, hi) = (inp.case.rates.min_hz, inp.case.rates.max_hz);
+    let (lo, hi) = match single {
+        Some(f) => (f / 1.5, f * 1.5),
+        None => (inp.case.rates.min_hz, inp.case.rates.max_hz),
+    };
     // A method with no stable point draws nothing: its legend says why.
     let never_stable: Vec<bool> = series
         .iter()
@@ -334,7 +485,12 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
         "Loop figures vs rate, computation delay {} T (PM phase margin, GM gain margin, Ms sensitivity peak; hatched side of a limit fails; gaps: unstable)",
         fmt_num(inp.report.design_delay)
     );
-    if never_stable.iter().all(|&b| b) {
+    if let Some(f) = single {
+        title = format!(
+            "Loop figures of the controller given in z at its one rate {} (one point per computation delay; PM phase margin, GM gain margin, Ms sensitivity peak; hatched side of a limit fails)",
+            hz(f)
+        );
+    } else if never_stable.iter().all(|&b| b) {
         title = format!(
             "No swept rate gives a stable loop ({} to {}, computation delay {} T)",
             hz(lo),
@@ -361,8 +517,8 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
                 .series
                 .push(Series::line(name, pts, k).drawn(Draw::LineAndMarkers));
         }
-        for (j, (x, text, style)) in marks.iter().enumerate() {
-            let text = if j % 5 == i {
+        for (x, text, style, slot) in &marks {
+            let text = if slot % 5 == i {
                 text.clone()
             } else {
                 String::new()
@@ -373,6 +529,114 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
             // Near the stability edge an upper-limited figure runs off to
             // huge values; keep the view on the region around the limit
             // (the line leaves the top edge where it goes beyond).
+            if side == Side::Above {
+                let top = panel
+                    .series
+                    .iter()
+                    .flat_map(|s| s.points.iter().map(|p| p.1))
+                    .filter(|v| v.is_finite())
+                    .fold(f64::NEG_INFINITY, f64::max);
+                if top > 3.0 * v {
+                    panel.y = panel.y.clone().with_range(0.0, 3.0 * v);
+                }
+            }
+            panel.limits.push(Limit::new(v, side, text));
+        }
+        fig = fig.with_panel(panel);
+    }
+    Some(fig)
+}
+
+/// Phase margin and overshoot against the rate, one series per hold kind
+/// the case lists, at the recommended method and the design delay (drawn
+/// when the case compares two or more hold kinds and has a
+/// recommendation).
+fn hold_kinds(inp: &Inputs) -> Option<Figure> {
+    if inp.case.holds.len() < 2 {
+        return None;
+    }
+    let (rec, method) = inp.rec?;
+    let mut series: Vec<(HoldKind, Vec<&SweepRow>)> = Vec::new();
+    for &h in &inp.case.holds {
+        let mut rows: Vec<&SweepRow> = inp
+            .rows
+            .iter()
+            .filter(|r| {
+                r.point.method == method
+                    && r.point.hold == h
+                    && r.point.delay == inp.report.design_delay
+            })
+            .collect();
+        if rows.is_empty() {
+            continue;
+        }
+        rows.sort_by(|a, b| a.point.rate_hz.total_cmp(&b.point.rate_hz));
+        series.push((h, rows));
+    }
+    if series.is_empty() {
+        return None;
+    }
+    let spec = &inp.case.spec;
+    let (lo, hi) = (inp.case.rates.min_hz, inp.case.rates.max_hz);
+    let mut fig = Figure::new(
+        format!(
+            "Hold kinds: {} at computation delay {} T (hatched side of a limit fails; gaps: unstable)",
+            rec.method,
+            fmt_num(inp.report.design_delay)
+        ),
+        rate_axis().with_range(lo, hi),
+    );
+    let f_star_of = |h: HoldKind| {
+        inp.report
+            .answers()
+            .into_iter()
+            .find(|a| {
+                a.method == rec.method && a.hold == h && a.compute_delay == inp.report.design_delay
+            })
+            .and_then(|a| a.slowest_rate_hz)
+    };
+    let panels: [PanelSpec; 2] = [
+        (
+            "PM (deg)",
+            phase_margin,
+            spec.min_phase_margin_deg
+                .map(|l| (l, Side::Below, format!("min {} deg", fmt_num(l)))),
+        ),
+        (
+            "overshoot (%)",
+            overshoot,
+            spec.max_overshoot_pct
+                .map(|l| (l, Side::Above, format!("max {} %", fmt_num(l)))),
+        ),
+    ];
+    for (i, (label, get, limit)) in panels.into_iter().enumerate() {
+        let mut panel = Panel::new(Axis::linear(label));
+        for (k, (h, rows)) in series.iter().enumerate() {
+            let pts = rows
+                .iter()
+                .map(|r| (r.point.rate_hz, figure_of(&r.eval, get)))
+                .collect();
+            let name = if i == 0 {
+                match f_star_of(*h) {
+                    Some(f) => format!("{h} (f* {})", hz(f)),
+                    None => format!("{h} (no f*)"),
+                }
+            } else {
+                String::new()
+            };
+            panel
+                .series
+                .push(Series::line(name, pts, k).drawn(Draw::LineAndMarkers));
+            if let Some(f) = f_star_of(*h) {
+                let text = if i == 0 {
+                    format!("f* {h}")
+                } else {
+                    String::new()
+                };
+                panel.vmarks.push(VMark::new(f, text, MarkStyle::Dashed));
+            }
+        }
+        if let Some((v, side, text)) = limit {
             if side == Side::Above {
                 let top = panel
                     .series
@@ -436,12 +700,12 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
     let runs = [
         (
             rec.rate_hz,
-            format!("{} recommended", hz(rec.rate_hz)),
+            format!("{} {}", hz(rec.rate_hz), rate_word(inp.report)),
             STYLE_RECOMMENDED,
         ),
         (
             rec.slowest_rate_hz,
-            format!("{} f*", hz(rec.slowest_rate_hz)),
+            format!("{} {}", hz(rec.slowest_rate_hz), star_word(inp.report)),
             STYLE_STAR,
         ),
         (
@@ -574,6 +838,7 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
         ));
     }
     let f_hi = nyquist_hz;
+    clip_magnitude(&mut mag, detail.gain_margin_db);
     mag.series
         .push(hline("0 dB", 0.0, f_lo, f_hi, STYLE_REFERENCE + 2));
     // Unwrapped phase at a frequency, exactly: the nearest grid point's
@@ -642,26 +907,99 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
         ));
         ph.notes.push(Annotation::new(fg, phase_at(fg), ""));
     }
-    let gm_text = detail.gain_margin_db.map_or(
-        "gain margin infinite (no -180 deg crossing)".to_string(),
-        |g| format!("gain margin {} dB", fmt_num(g)),
-    );
-    let pm_text = detail
-        .phase_margin_deg
-        .map_or("no gain crossover".to_string(), |p| {
-            format!("phase margin {} deg", fmt_num(p))
-        });
+    // The title names what is drawn; the marks carry the margins' values.
+    let mut missing = Vec::new();
+    if detail.gain_margin_db.is_none() {
+        missing.push("no -180 deg crossing, so no gain margin mark");
+    }
+    if detail.phase_margin_deg.is_none() {
+        missing.push("no gain crossover, so no phase margin mark");
+    }
+    let at = if rate_word(inp.report) == "recommended" {
+        "the recommended rate"
+    } else {
+        "the rate the spec alone needs"
+    };
+    let title = if missing.is_empty() {
+        format!("Loop gain L(e^jwT) at {at}")
+    } else {
+        format!("Loop gain L(e^jwT) at {at} ({})", missing.join("; "))
+    };
     Some(
-        Figure::new(
-            format!(
-                "Loop gain L(e^jwT) at the recommended rate: {pm_text}, {gm_text}, Ms {}",
-                fmt_num(detail.sensitivity_peak)
-            ),
-            Axis::log("frequency (Hz)").with_range(f_lo, f_hi),
-        )
-        .with_panel(mag)
-        .with_panel(ph),
+        Figure::new(title, Axis::log("frequency (Hz)").with_range(f_lo, f_hi))
+            .with_panel(mag)
+            .with_panel(ph),
     )
+}
+
+/// Deepest magnitude the loop-gain chart shows below its top, dB: 80 dB
+/// holds the crossover region, the gain-margin crossing and the roll-off
+/// toward Nyquist of any loop looprate is meant for.
+const MAGNITUDE_SPAN_DB: f64 = 80.0;
+
+/// Clip the magnitude axis of the loop-gain chart to its useful range.
+///
+/// A zero near Nyquist (a notch) sends |L| to -300 dB and more, which
+/// would squeeze the crossover region into a sliver of the plot. The axis
+/// keeps [`MAGNITUDE_SPAN_DB`] below the top, never less than down to
+/// -40 dB and 20 dB below the gain-margin crossing; what lies deeper is
+/// clipped at the bottom edge and shaded, with its depth in the label.
+fn clip_magnitude(mag: &mut Panel, gain_margin_db: Option<f64>) {
+    let values = || {
+        mag.series
+            .iter()
+            .flat_map(|s| s.points.iter().map(|p| p.1))
+            .filter(|v| v.is_finite())
+    };
+    let top = values().fold(f64::NEG_INFINITY, f64::max);
+    let deepest = values().fold(f64::INFINITY, f64::min);
+    if !top.is_finite() {
+        return;
+    }
+    let floor = [
+        top - MAGNITUDE_SPAN_DB,
+        -40.0,
+        gain_margin_db.map_or(f64::INFINITY, |g| -g.abs() - 20.0),
+    ]
+    .into_iter()
+    .fold(f64::INFINITY, f64::min);
+    // On a whole 10 dB line, so the bottom tick reads as a round number.
+    let floor = (floor / 10.0).floor() * 10.0;
+    if deepest >= floor {
+        return;
+    }
+    // Frequency intervals where any series lies below the floor.
+    let mut below: Vec<(f64, f64)> = Vec::new();
+    for s in &mag.series {
+        let mut start: Option<f64> = None;
+        let mut last = f64::NAN;
+        for &(x, y) in &s.points {
+            match (y < floor, start) {
+                (true, None) => start = Some(x),
+                (false, Some(a)) => {
+                    below.push((a, last));
+                    start = None;
+                }
+                _ => {}
+            }
+            last = x;
+        }
+        if let Some(a) = start {
+            below.push((a, last));
+        }
+    }
+    let pad = 5.0;
+    mag.y = mag.y.clone().with_range(floor, top + pad);
+    // A dot where each clipped stretch leaves the bottom edge; the first
+    // says how deep the curve goes.
+    for (i, (a, _)) in below.into_iter().enumerate() {
+        let label = if i == 0 {
+            format!("clipped below {floor} dB (down to {} dB)", fmt_num(deepest))
+        } else {
+            String::new()
+        };
+        mag.notes.push(Annotation::new(a, floor, label));
+    }
 }
 
 /// CPU load against the rate with the budget line and the rate window.
@@ -681,6 +1019,8 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
     .into_iter()
     .filter(|v| v.is_finite())
     .fold(inp.case.rates.max_hz, f64::max);
+    // A single rate (a controller given in z) with nothing above it.
+    let hi = if hi > lo * 1.01 { hi } else { lo * 1.5 };
     let n = 120;
     let rates: Vec<f64> = (0..n)
         .map(|i| lo * (hi / lo).powf(i as f64 / (n - 1) as f64))
@@ -689,7 +1029,9 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
         .case
         .arithmetic
         .as_ref()
-        .map_or(crate::precision::Structure::TransposedDirect, |a| a.structure);
+        .map_or(crate::precision::Structure::TransposedDirect, |a| {
+            a.structure
+        });
     let integrators = crate::precision::design_integrators(&inp.lp.controller);
     // Methods with the same load share one line and one legend entry.
     let mut loads: Vec<(Vec<String>, Points)> = Vec::new();
@@ -727,12 +1069,17 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
             hz(w.high_hz)
         ),
         (Some(w), _) => format!(
-            "CPU load vs rate: rate window {} to {} (shaded)",
+            "CPU load vs rate: rate window {} to {} (shaded){}",
             hz(w.low_hz),
-            hz(w.high_hz)
+            hz(w.high_hz),
+            match &w.high_bound {
+                crate::budget::WindowBound::LastRateChecked { .. } =>
+                    ", cut at the last rate checked".to_string(),
+                b => format!(", top set by the {b}"),
+            }
         ),
         (None, Some(_)) => {
-            "CPU load vs rate (the load of the recommended controller is unknown)".to_string()
+            "CPU load vs rate (the load of the chosen controller is unknown)".to_string()
         }
         (None, None) if report.methods.is_empty() => {
             "CPU load vs rate (sweep only: run pick for the rate window)".into()
@@ -749,7 +1096,7 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
     if let Some(r) = &report.recommended {
         panel.vmarks.push(VMark::new(
             r.rate_hz,
-            format!("recommended {}", hz(r.rate_hz)),
+            format!("{} {}", rate_word(report), hz(r.rate_hz)),
             MarkStyle::Solid,
         ));
     }
@@ -836,7 +1183,7 @@ fn precision_chart(inp: &Inputs) -> Option<Figure> {
         if let Some((r, _)) = inp.rec {
             panel.vmarks.push(VMark::new(
                 r.rate_hz,
-                format!("recommended {}", hz(r.rate_hz)),
+                format!("{} {}", rate_word(inp.report), hz(r.rate_hz)),
                 MarkStyle::Solid,
             ));
         }
@@ -894,8 +1241,9 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
     ];
     let mut fig = Figure::new(
         format!(
-            "Hold approximations vs the exact sampled loop ({}, computation delay {} T)",
+            "Hold approximations vs the exact sampled loop ({}, {} hold, computation delay {} T)",
             rec.method,
+            rec.hold,
             fmt_num(inp.report.design_delay)
         ),
         rate_axis().with_range(lo, hi),
@@ -923,7 +1271,12 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
                     .zip(&evals)
                     .map(|(&f, (_, a))| (f, figure_of(&a[k], get)))
                     .collect(),
-                k + 1,
+                // Styles 1, 2, 3, then 5: 4 is the continuous design's.
+                if k + 1 >= STYLE_CONTINUOUS {
+                    k + 2
+                } else {
+                    k + 1
+                },
             ));
         }
         if let Some(v) = get(design) {
@@ -941,7 +1294,7 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
         panel.vmarks.push(VMark::new(
             rec.rate_hz,
             if i == 0 {
-                format!("recommended {}", hz(rec.rate_hz))
+                format!("{} {}", rate_word(inp.report), hz(rec.rate_hz))
             } else {
                 String::new()
             },
@@ -987,12 +1340,12 @@ fn disturbance(inp: &Inputs) -> Option<Figure> {
     for (rate, label, style) in [
         (
             rec.rate_hz,
-            format!("{} recommended", hz(rec.rate_hz)),
+            format!("{} {}", hz(rec.rate_hz), rate_word(inp.report)),
             STYLE_RECOMMENDED,
         ),
         (
             rec.slowest_rate_hz,
-            format!("{} f*", hz(rec.slowest_rate_hz)),
+            format!("{} {}", hz(rec.slowest_rate_hz), star_word(inp.report)),
             STYLE_STAR,
         ),
     ] {
@@ -1027,4 +1380,38 @@ fn disturbance(inp: &Inputs) -> Option<Figure> {
         title = format!("{title}; {}", notes.join("; "));
     }
     Some(Figure::new(title, Axis::linear("time (s)").with_range(0.0, t_end)).with_panel(panel))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_controller_given_in_z_is_drawn_at_its_one_rate() {
+        // A gain in z at 5 Hz with two computation delays: the
+        // figures-vs-rate chart shows one point per delay on an axis
+        // around 5 Hz, not the range of a sweep.
+        let text = "[plant]\ntransfer = \"1 / (s * (s + 1))\"\n[controller]\nnumerator_z = [2.0]\ndenominator_z = [1.0]\nrate_hz = 5\n[timing]\ncompute_delay = [0.5, 1]\n[spec]\nmin_phase_margin_deg = 20\n";
+        let case = Case::parse(text, Path::new("z.toml")).unwrap();
+        let lp = crate::pick::prepare(&case).unwrap();
+        let picked =
+            crate::pick::sweep_and_pick(&case, &lp, &|| {}, &crate::search::Silent).unwrap();
+        let inputs = Inputs {
+            case: &case,
+            lp: &lp,
+            rows: &picked.rows,
+            report: &picked.report,
+            rec: None,
+        };
+        let fig = figures_vs_rate(&inputs).unwrap();
+        let (lo, hi) = fig.x.range.unwrap();
+        assert!(lo < 5.0 && hi > 5.0 && hi / lo < 3.0, "{lo} .. {hi}");
+        assert!(fig.title.contains("given in z"), "{}", fig.title);
+        let series = &fig.panels[0].series;
+        assert_eq!(series.len(), 2, "one series per delay");
+        for s in series {
+            assert_eq!(s.points.len(), 1);
+            assert_eq!(s.points[0].0, 5.0);
+        }
+    }
 }

@@ -44,7 +44,10 @@ pub enum Stability {
 
 impl ClosedLoop {
     /// Close the loop around `controller` (in z, same period as `plant`).
-    pub fn new(plant: &HoldEquivalent, controller: &DiscreteTransfer) -> Result<ClosedLoop, ModelError> {
+    pub fn new(
+        plant: &HoldEquivalent,
+        controller: &DiscreteTransfer,
+    ) -> Result<ClosedLoop, ModelError> {
         let c = StateSpace::from_transfer(&controller.transfer)?;
         let n = plant.phi.nrows();
         let m = c.order();
@@ -55,16 +58,16 @@ impl ClosedLoop {
         } else {
             DVector::zeros(0)
         };
-        // e = r - cm.x - dm.up - dm.w ; u = cc.xc + dc e.
+        // e = r - cm.x - dm.up - dm_w.w ; u = cc.xc + dc e.
         let mut ku = DVector::zeros(dim);
         ku.rows_mut(0, n).copy_from(&(&plant.cm * -dc));
         ku[n] = -dc * plant.dm;
         ku.rows_mut(n + 1, m).copy_from(&cc);
         let dur = dc;
-        let duw = -dc * plant.dm;
+        let duw = -dc * plant.dm_w;
 
         let mut a = DMatrix::zeros(dim, dim);
-        // x' = Phi x + G1 up + G0 u + (G0 + G1) w
+        // x' = Phi x + G1 up + G0 u + Gw w
         a.view_mut((0, 0), (n, n)).copy_from(&plant.phi);
         a.view_mut((0, n), (n, 1)).copy_from(&plant.gamma1);
         let g0u = &plant.gamma0 * ku.transpose();
@@ -87,11 +90,11 @@ impl ClosedLoop {
         br[n] = dur;
         let mut bw = DVector::zeros(dim);
         bw.rows_mut(0, n)
-            .copy_from(&(&plant.gamma0 * (1.0 + duw) + &plant.gamma1));
+            .copy_from(&(&plant.gamma0 * duw + &plant.gamma_w));
         bw[n] = duw;
         if m > 0 {
             br.rows_mut(n + 1, m).copy_from(&c.b);
-            bw.rows_mut(n + 1, m).copy_from(&(&c.b * -plant.dm));
+            bw.rows_mut(n + 1, m).copy_from(&(&c.b * -plant.dm_w));
         }
         Ok(ClosedLoop {
             a,

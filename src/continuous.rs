@@ -8,14 +8,15 @@ use nalgebra::{DMatrix, DVector};
 use serde::Serialize;
 
 use crate::closed_loop::{ClosedLoop, Stability};
+use crate::hold::HoldKind;
 use crate::hold::{HoldEquivalent, IntersampleRow};
 use crate::poly::{C64, Poly};
 use crate::state_space::{ModelError, StateSpace, eigenvalues, hold_integrals};
-use crate::transfer::Transfer;
 use crate::time_response::{
     DisturbanceFigures, StepFigures, TimeOptions, TracePoint, continuous_metrics,
     sampled_figures_around,
 };
+use crate::transfer::Transfer;
 
 /// The continuous figures' horizon and grid step, s: the slowest pole's
 /// decay to `DECAY_TARGET` (twice over), and a step of 1/4000 of it or
@@ -52,10 +53,20 @@ pub enum HoldApprox {
     /// [2/2] Pade: (1 - s theta/2 + (s theta)^2/12) / (1 + s theta/2 + (s theta)^2/12).
     #[serde(rename = "pade-2-2")]
     Pade22,
+    /// The hold's own transfer function (`HoldKind::rational`, e.g.
+    /// (1 - e^{-sT})/(sT) for zero-order) times the computation delay,
+    /// every exponential by its [2/2] Pade approximant.
+    #[serde(rename = "hold-pade-2-2")]
+    HoldPade22,
 }
 
 impl HoldApprox {
-    pub const ALL: [HoldApprox; 3] = [HoldApprox::Lag, HoldApprox::Pade11, HoldApprox::Pade22];
+    pub const ALL: [HoldApprox; 4] = [
+        HoldApprox::Lag,
+        HoldApprox::Pade11,
+        HoldApprox::Pade22,
+        HoldApprox::HoldPade22,
+    ];
 
     /// Name used in output keys and columns.
     pub fn name(self) -> &'static str {
@@ -63,13 +74,30 @@ impl HoldApprox {
             HoldApprox::Lag => "lag",
             HoldApprox::Pade11 => "pade-1-1",
             HoldApprox::Pade22 => "pade-2-2",
+            HoldApprox::HoldPade22 => "hold-pade-2-2",
         }
     }
 
-    /// The approximation for a delay of `theta` seconds.
+    /// The stand-in for hold `hold` at period `period_s` followed by a
+    /// delay of `delay_s`: the hold's own rational approximation, or a
+    /// delay approximation of `theta = hold.equivalent_delay_s(T) +
+    /// delay_s` (None when theta is 0: nothing to approximate).
+    pub fn actuator(self, hold: HoldKind, period_s: f64, delay_s: f64) -> Option<Transfer> {
+        match self {
+            HoldApprox::HoldPade22 => Some(hold.rational(period_s, delay_s, 2)),
+            k => {
+                let theta = hold.equivalent_delay_s(period_s) + delay_s;
+                (theta > 0.0).then(|| k.transfer(theta))
+            }
+        }
+    }
+
+    /// The approximation for a delay of `theta` seconds (`HoldPade22`:
+    /// the zero-order hold's own, whose delay is `theta`, i.e. T = 2 theta).
     pub fn transfer(self, theta: f64) -> Transfer {
         let p = |d: &[f64]| Poly::from_descending(d);
         match self {
+            HoldApprox::HoldPade22 => HoldKind::ZeroOrder.rational(2.0 * theta, 0.0, 2),
             HoldApprox::Lag => Transfer::new(p(&[1.0]), p(&[theta, 1.0])),
             HoldApprox::Pade11 => Transfer::new(p(&[-theta / 2.0, 1.0]), p(&[theta / 2.0, 1.0])),
             HoldApprox::Pade22 => {
@@ -93,22 +121,36 @@ pub struct ContinuousLoop {
     pub cu: DVector<f64>,
     pub dur: f64,
     pub duw: f64,
-    /// Loop gain pieces, for the frequency figures.
+    /// Loop gain pieces, for the frequency figures (rational part).
     pub loop_gain: Transfer,
+    /// Pure delay around the loop, s: the loop gain is
+    /// `loop_gain(jw) e^{-jw loop_delay_s}` exactly.
+    pub loop_delay_s: f64,
 }
 
 impl ContinuousLoop {
     /// Close `controller` around `plant_model` (from `hold::plant_and_sensor`),
     /// with `actuator` (a hold approximation) between command and plant.
+    /// `delays` adds pure delays: their total (s) to the loop gain exactly,
+    /// and to the simulated loop as the given rational stand-ins (the
+    /// plant's after the actuator; the measurement's must already be in
+    /// `plant_model`).
     pub fn new(
         plant_model: &StateSpace,
         plant: &Transfer,
         sensor: &Transfer,
         controller: &Transfer,
         actuator: Option<&Transfer>,
+        delays: Option<(f64, &Transfer)>,
     ) -> Result<ContinuousLoop, ModelError> {
         let c = StateSpace::from_transfer(controller)?;
-        let act = match actuator {
+        let simulated = match (actuator, delays) {
+            (Some(a), Some((_, d))) => Some(a.cascade(d)),
+            (Some(a), None) => Some(a.clone()),
+            (None, Some((_, d))) => Some(d.clone()),
+            (None, None) => None,
+        };
+        let act = match &simulated {
             Some(a) => StateSpace::from_transfer(a)?,
             None => StateSpace::from_transfer(&Transfer::gain(1.0))?,
         };
@@ -201,6 +243,7 @@ impl ContinuousLoop {
             dur,
             duw,
             loop_gain,
+            loop_delay_s: delays.map_or(0.0, |d| d.0),
         })
     }
 
@@ -243,6 +286,11 @@ impl ContinuousLoop {
         let (_, gw) = hold_integrals(&self.a, &self.bw, h)?;
         let dim = self.a.nrows();
         let fixed = |r: f64, w: f64| -> Result<DVector<f64>, ModelError> {
+            // A loop of pure gains has no state (nalgebra's LU of a 0 x 0
+            // matrix panics).
+            if dim == 0 {
+                return Ok(DVector::zeros(0));
+            }
             let rhs = -(&self.br * r + &self.bw * w);
             self.a.clone().lu().solve(&rhs).ok_or(ModelError::NonFinite)
         };
@@ -330,14 +378,23 @@ impl ContinuousLoop {
         let ey = &self.cy - &self.cu * c0;
         let hold = HoldEquivalent {
             period_s: h,
+            hold: HoldKind::ZeroOrder,
             delay_fraction: 0.0,
+            delay_periods: 0,
+            hold_states: 0,
+            measure_periods: 0,
+            sensor_delay_s: 0.0,
             phi: e,
             gamma0: DVector::zeros(n),
             gamma1: DVector::zeros(n),
+            gamma_w: DVector::zeros(n),
             cm: DVector::zeros(n),
             dm: 0.0,
+            dm_w: 0.0,
             cy: ey.clone(),
             dy: c0,
+            dy_w: c0,
+            measure: None,
             intersample: vec![IntersampleRow {
                 offset_s: 0.0,
                 ey,
@@ -403,6 +460,11 @@ impl ContinuousLoop {
 
     /// Loop gain at `w` rad/s.
     pub fn loop_at(&self, w: f64) -> C64 {
-        self.loop_gain.eval(C64::new(0.0, w))
+        let l = self.loop_gain.eval(C64::new(0.0, w));
+        if self.loop_delay_s > 0.0 {
+            l * C64::from_polar(1.0, -w * self.loop_delay_s)
+        } else {
+            l
+        }
     }
 }

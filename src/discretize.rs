@@ -61,19 +61,39 @@ impl fmt::Display for Method {
 
 /// The name is not one of the eight methods.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
-#[error(
-    "unknown method `{0}`; known: zoh, foh, impulse, tustin, tustin-prewarped, matched, forward-euler, backward-euler"
-)]
-pub struct UnknownMethod(pub String);
+pub enum UnknownMethod {
+    #[error(
+        "unknown method `{0}`; known: step-invariant, ramp-invariant, impulse-invariant, tustin, tustin-prewarped, pole-zero-match, forward-euler, backward-euler"
+    )]
+    Unknown(String),
+    /// A name an earlier version accepted; the message names its successor.
+    #[error("method `{old}` is now called `{new}`")]
+    Renamed { old: String, new: &'static str },
+}
+
+/// Method names an earlier version accepted, with the name that replaced
+/// each (no alias is kept: an old name is refused with this hint).
+const RENAMED_METHODS: [(&str, Method); 5] = [
+    ("zoh", Method::StepInvariant),              // old name
+    ("foh", Method::RampInvariant),              // old name
+    ("impulse", Method::ImpulseInvariant),       // old name
+    ("tustin-prewarp", Method::TustinPrewarped), // old name
+    ("matched", Method::PoleZeroMatch),          // old name
+];
 
 impl FromStr for Method {
     type Err = UnknownMethod;
     fn from_str(s: &str) -> Result<Self, Self::Err> {
-        Method::ALL
-            .iter()
-            .copied()
-            .find(|m| m.name() == s)
-            .ok_or_else(|| UnknownMethod(s.to_string()))
+        if let Some(m) = Method::ALL.iter().copied().find(|m| m.name() == s) {
+            return Ok(m);
+        }
+        match RENAMED_METHODS.iter().find(|(old, _)| *old == s) {
+            Some((old, m)) => Err(UnknownMethod::Renamed {
+                old: old.to_string(),
+                new: m.name(),
+            }),
+            None => Err(UnknownMethod::Unknown(s.to_string())),
+        }
     }
 }
 
@@ -98,7 +118,7 @@ pub enum DiscretizeError {
     PrewarpAboveNyquist { w0_hz: f64, product: f64 },
     #[error("matched: the gain rule is undefined here ({0})")]
     MatchedGain(String),
-    #[error("{0}")]
+    #[error(transparent)]
     Model(#[from] ModelError),
 }
 

@@ -10,12 +10,10 @@ pub enum Error {
     #[error(transparent)]
     Case(#[from] CaseError),
     /// A model could not be realised or analysed.
-    #[error("{context}: {source}")]
-    Model {
-        context: String,
-        #[source]
-        source: ModelError,
-    },
+    // The reason is in the message, not a `source`: a chain printer would
+    // print it twice otherwise.
+    #[error("{context}: {reason}")]
+    Model { context: String, reason: ModelError },
     /// A command-line value is out of range.
     #[error("{0}")]
     Input(String),

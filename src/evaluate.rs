@@ -6,19 +6,20 @@ use serde::Serialize;
 
 use crate::closed_loop::{ClosedLoop, Stability};
 use crate::continuous::{ContinuousLoop, HoldApprox};
+use crate::delay_margin::{DelayMargin, exact_delay_margin};
 use crate::discretize::{Method, discretize};
 use crate::frequency::{FrequencyRange, LoopFigures, loop_figures};
-use crate::hold::{HoldEquivalent, plant_and_sensor};
+use crate::hold::{Actuation, HoldEquivalent, HoldKind, pade_delay, plant_and_sensor};
 use std::collections::HashMap;
 use std::sync::Mutex;
 
 use crate::poly::C64;
 use crate::state_space::{ModelError, StateSpace};
-use crate::transfer::{Controller, DiscreteTransfer, Transfer};
 use crate::time_response::{
     DisturbanceFigures, StepFigures, TimeOptions, TracePoint, horizon_periods, sampled_figures,
     sampled_trace,
 };
+use crate::transfer::{Controller, DiscreteTransfer, Transfer};
 
 /// Outcome of one evaluation.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -59,7 +60,14 @@ pub struct Figures {
     pub gain_margin_db: Option<f64>,
     pub phase_margin_deg: Option<f64>,
     pub crossover_hz: Option<f64>,
+    /// The exact delay margin: the smallest extra actuator delay (any
+    /// length) at which the exact sampled loop loses stability, s. None:
+    /// no gain crossing (infinite), or not located (a note says why); see
+    /// `docs/figures.md`. For the continuous design it equals the estimate.
     pub delay_margin_s: Option<f64>,
+    /// `min_i phi_i / w_i` over the gain crossings, s; only an estimate for
+    /// a sampled loop. None: no gain crossing.
+    pub delay_margin_estimate_s: Option<f64>,
     pub sensitivity_peak: f64,
     /// The horizon the time figures cover, s (see `StepFigures`).
     pub horizon_s: f64,
@@ -67,9 +75,57 @@ pub struct Figures {
     /// horizon (their own status: neither a value nor "not settled"); see
     /// `Figures::is_undecided`.
     pub undecided: Vec<&'static str>,
+    /// True when the exact delay margin was searched for (`eval`, the
+    /// recommended rate); a sweep leaves it unsearched (its cost grows
+    /// with the delay in periods) and reports the estimate.
+    pub delay_margin_searched: bool,
+    /// Why a loop figure is missing when it was not located (|L| = 1 over
+    /// an interval, a crossing exactly at an end, a delay margin beyond the
+    /// search); empty otherwise.
+    pub loop_notes: Vec<String>,
 }
 
 impl Figures {
+    /// The name of the first figure that is NaN, if any.
+    pub fn first_nan(&self) -> Option<&'static str> {
+        let opt = |v: Option<f64>| v.is_some_and(f64::is_nan);
+        [
+            ("final value", self.y_final.is_nan()),
+            ("overshoot", opt(self.overshoot_pct)),
+            ("settling time", opt(self.settling_time_s)),
+            ("rise time", opt(self.rise_time_s)),
+            ("disturbance peak", self.disturbance_peak.is_nan()),
+            ("recovery time", opt(self.recovery_time_s)),
+            ("peak command", self.u_peak.is_nan()),
+            ("gain margin", opt(self.gain_margin_db)),
+            ("phase margin", opt(self.phase_margin_deg)),
+            ("crossover", opt(self.crossover_hz)),
+            ("delay margin", opt(self.delay_margin_s)),
+            ("delay margin estimate", opt(self.delay_margin_estimate_s)),
+            ("sensitivity peak", self.sensitivity_peak.is_nan()),
+        ]
+        .into_iter()
+        .find(|(_, bad)| *bad)
+        .map(|(name, _)| name)
+    }
+
+    /// The text for a missing `delay_margin_s`: `not searched` in a sweep,
+    /// `not located` when the search gave up (the note says why), `inf`
+    /// when there is no gain crossing.
+    pub fn delay_margin_missing(&self) -> &'static str {
+        if !self.delay_margin_searched {
+            "not searched"
+        } else if self
+            .loop_notes
+            .iter()
+            .any(|n| n.starts_with("delay margin"))
+        {
+            "not located"
+        } else {
+            "inf"
+        }
+    }
+
     fn from_parts(step: &StepFigures, dist: &DisturbanceFigures, freq: &LoopFigures) -> Figures {
         Figures {
             y_final: step.y_final,
@@ -82,9 +138,12 @@ impl Figures {
             gain_margin_db: freq.gain_margin_db,
             phase_margin_deg: freq.phase_margin_deg,
             crossover_hz: freq.crossover_hz,
-            delay_margin_s: freq.delay_margin_s,
+            delay_margin_s: None,
+            delay_margin_estimate_s: freq.delay_margin_estimate_s,
             sensitivity_peak: freq.sensitivity_peak,
             horizon_s: step.horizon_s,
+            loop_notes: freq.notes.clone(),
+            delay_margin_searched: false,
             undecided: step
                 .undecided
                 .iter()
@@ -158,12 +217,15 @@ impl Evaluation {
 }
 
 /// A grid point: rate, method (None for a controller given in z) and
-/// computation delay as a fraction of the period.
+/// computation delay in periods (any finite value >= 0; 1.5 is a period
+/// and a half).
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Point {
     pub rate_hz: f64,
     pub method: Option<Method>,
     pub delay: f64,
+    /// How the actuator holds each command.
+    pub hold: HoldKind,
 }
 
 /// The plant side of every loop at one (rate, delay): the hold + delay +
@@ -223,6 +285,37 @@ pub struct PreparedLoop {
     pub time: TimeOptions,
     /// The continuous design's own figures (None for a controller in z).
     pub design: Option<Evaluation>,
+    /// Transport delays of the plant and of the measurement, s.
+    pub transport: Transport,
+    /// The model the continuous loops simulate: plant and sensor with the
+    /// measurement's transport delay as its Pade approximant.
+    continuous_model: StateSpace,
+}
+
+/// Pure delays `e^{-sL}` in the loop (`delay_s` on [plant] and [sensor]).
+#[derive(Debug, Clone, Copy, Default, PartialEq)]
+pub struct Transport {
+    /// Between the actuator and the plant, s (the load disturbance enters
+    /// after it, at the plant input).
+    pub plant_s: f64,
+    /// Between the plant output and the sampler, s.
+    pub sensor_s: f64,
+}
+
+/// Order of the Pade approximant `[n/n]` that stands in for a transport
+/// delay in the continuous loops' time response and poles (their
+/// frequency response uses `e^{-jwL}` exactly).
+pub const TRANSPORT_PADE_ORDER: usize = 6;
+
+/// Order of the Pade approximant of each exponential in a hold's own
+/// rational approximation (`HoldApprox::OwnPade`).
+pub const HOLD_PADE_ORDER: usize = 2;
+
+impl Transport {
+    /// The total delay around the loop, s.
+    pub fn total_s(&self) -> f64 {
+        self.plant_s + self.sensor_s
+    }
 }
 
 impl PreparedLoop {
@@ -234,7 +327,39 @@ impl PreparedLoop {
         prewarp_hz: Option<f64>,
         time: TimeOptions,
     ) -> Result<PreparedLoop, ModelError> {
+        PreparedLoop::with_transport(
+            plant,
+            sensor,
+            controller,
+            prewarp_hz,
+            time,
+            Transport::default(),
+        )
+    }
+
+    /// `new` with transport delays on the plant and the measurement.
+    pub fn with_transport(
+        plant: &Transfer,
+        sensor: &Transfer,
+        controller: &Controller,
+        prewarp_hz: Option<f64>,
+        time: TimeOptions,
+        transport: Transport,
+    ) -> Result<PreparedLoop, ModelError> {
+        if !(transport.plant_s >= 0.0
+            && transport.plant_s.is_finite()
+            && transport.sensor_s >= 0.0
+            && transport.sensor_s.is_finite())
+        {
+            return Err(ModelError::NonFinite);
+        }
         let plant_model = plant_and_sensor(plant, sensor)?;
+        let continuous_model = if transport.sensor_s > 0.0 {
+            let (n, d) = pade_delay(transport.sensor_s, TRANSPORT_PADE_ORDER);
+            plant_and_sensor(plant, &sensor.cascade(&Transfer::new(n, d)))?
+        } else {
+            plant_model.clone()
+        };
         let mut roots = Vec::new();
         let mut tfs = vec![plant, sensor];
         if let Controller::Continuous(c) = controller {
@@ -265,6 +390,8 @@ impl PreparedLoop {
             prewarp_rad_s: prewarp_hz.map(|f| 2.0 * std::f64::consts::PI * f),
             time,
             design: None,
+            transport,
+            continuous_model,
         };
         if let Controller::Continuous(_) = controller {
             let design = prepared.continuous(None);
@@ -298,6 +425,9 @@ impl PreparedLoop {
                 p.rate_hz / fastest,
                 fastest
             ));
+        }
+        if let Some(f) = &e.figures {
+            out.extend(f.loop_notes.iter().cloned());
         }
         if let Some(f) = &e.figures
             && !f.undecided.is_empty()
@@ -389,13 +519,25 @@ impl PreparedLoop {
     /// The exact hold + delay + plant equivalent at a point.
     fn hold_equivalent(&self, p: &Point) -> Result<HoldEquivalent, String> {
         check_point(p)?;
-        HoldEquivalent::new(
+        HoldEquivalent::with(
             &self.plant_model,
             1.0 / p.rate_hz,
-            p.delay,
+            &self.actuation(p),
             self.time.points_per_period,
         )
         .map_err(|e| format!("plant equivalent: {e}"))
+    }
+
+    /// What lies between controller and plant at a point: its hold, the
+    /// computation delay plus the plant's transport delay (in periods: a
+    /// transport delay of 0.3 T is 0.3 more computation delay), and the
+    /// measurement's transport delay.
+    pub fn actuation(&self, p: &Point) -> Actuation {
+        Actuation {
+            hold: p.hold,
+            delay_periods: p.delay + self.transport.plant_s * p.rate_hz,
+            sensor_delay_s: self.transport.sensor_s,
+        }
     }
 
     /// Evaluate the exact sampled-data loop at one point.
@@ -437,7 +579,7 @@ impl PreparedLoop {
             Err(e) => return Evaluation::error(e),
         };
         match ClosedLoop::new(&plant.hold, c) {
-            Ok(cl) => self.evaluate_closed(&plant.hold, c, &cl, &|w| plant.response(w)),
+            Ok(cl) => self.evaluate_closed(&plant.hold, c, &cl, &|w| plant.response(w), false),
             Err(e) => Evaluation::error(format!("closing the loop: {e}")),
         }
     }
@@ -445,12 +587,34 @@ impl PreparedLoop {
     /// Evaluate the exact sampled-data loop at one point with the given
     /// controller in place of the point's own discretization.
     pub fn sampled_with(&self, p: &Point, c: &DiscreteTransfer) -> Evaluation {
+        self.sampled_with_margin(p, c, false)
+    }
+
+    /// `sampled` plus the exact delay margin (`delay_margin`): the full
+    /// figures of one point, for `eval` and the recommended rate. A sweep
+    /// uses `sampled`, whose `delay_margin_s` is not searched.
+    pub fn sampled_exact(&self, p: &Point) -> Evaluation {
+        if let Err(e) = check_point(p) {
+            return Evaluation::error(e);
+        }
+        match self.controller_at(p.rate_hz, p.method) {
+            Ok(c) => self.sampled_with_margin(p, &c, true),
+            Err(e) => Evaluation::error(e),
+        }
+    }
+
+    fn sampled_with_margin(
+        &self,
+        p: &Point,
+        c: &DiscreteTransfer,
+        exact_margin: bool,
+    ) -> Evaluation {
         match self.sampled_loop_with(p, c) {
             Ok((hold, cl)) => {
                 let pulse = hold.augmented();
                 let t = hold.period_s;
                 let plant = |w: f64| pulse.response_at(C64::from_polar(1.0, w * t), 0);
-                self.evaluate_closed(&hold, c, &cl, &plant)
+                self.evaluate_closed(&hold, c, &cl, &plant, exact_margin)
             }
             Err(e) => Evaluation::error(e),
         }
@@ -464,6 +628,7 @@ impl PreparedLoop {
         c: &DiscreteTransfer,
         cl: &ClosedLoop,
         plant: &dyn Fn(f64) -> C64,
+        exact_margin: bool,
     ) -> Evaluation {
         let poles = match cl.poles() {
             Ok(v) => v,
@@ -482,7 +647,22 @@ impl PreparedLoop {
         let l = |w: f64| c.transfer.eval(C64::from_polar(1.0, w * t)) * plant(w);
         let range = self.range_below(std::f64::consts::PI / t);
         let freq = loop_figures(&l, &range);
-        finish(step, dist, freq, &poles)
+        let margin = exact_margin
+            .then(|| exact_delay_margin(&self.plant_model, c, t, &hold.actuation(), &freq));
+        let mut e = finish(step, dist, freq, &poles);
+        if let (Some(f), Some(margin)) = (e.figures.as_mut(), margin) {
+            f.delay_margin_searched = true;
+            f.delay_margin_s = match margin {
+                DelayMargin::Seconds(v) => Some(v),
+                DelayMargin::NoCrossing => None,
+                DelayMargin::NotLocated(why) => {
+                    f.loop_notes
+                        .push(format!("delay margin not located: {why}"));
+                    None
+                }
+            };
+        }
+        e
     }
 
     /// Exact traces (step, disturbance) at one point, `periods` long
@@ -532,24 +712,63 @@ impl PreparedLoop {
         let Controller::Continuous(c) = &self.controller else {
             return Err("the controller is given in z: no continuous design".into());
         };
-        let cl = ContinuousLoop::new(&self.plant_model, &self.plant, &self.sensor, c, None)
-            .map_err(|e| e.to_string())?;
+        let pade = self.plant_pade();
+        let cl = ContinuousLoop::new(
+            &self.continuous_model,
+            &self.plant,
+            &self.sensor,
+            c,
+            None,
+            self.loop_delays(&pade),
+        )
+        .map_err(|e| e.to_string())?;
         cl.traces(t_end_s, steps).map_err(|e| e.to_string())
+    }
+
+    /// The plant's transport delay as its Pade approximant (None without).
+    fn plant_pade(&self) -> Option<Transfer> {
+        (self.transport.plant_s > 0.0).then(|| {
+            let (n, d) = pade_delay(self.transport.plant_s, TRANSPORT_PADE_ORDER);
+            Transfer::new(n, d)
+        })
+    }
+
+    /// The pure delays of a continuous loop: the total exactly for the
+    /// loop gain, the plant's as `pade` in the simulation (the
+    /// measurement's is in `continuous_model`).
+    fn loop_delays<'a>(&self, pade: &'a Option<Transfer>) -> Option<(f64, &'a Transfer)> {
+        static ONE: std::sync::OnceLock<Transfer> = std::sync::OnceLock::new();
+        let total = self.transport.total_s();
+        (total > 0.0).then(|| {
+            (
+                total,
+                pade.as_ref()
+                    .unwrap_or_else(|| ONE.get_or_init(|| Transfer::gain(1.0))),
+            )
+        })
     }
 
     /// The continuous loop: the design itself (`approx` None), or with the
     /// hold and delay replaced by an approximation (`(kind, theta_s)`).
     pub fn continuous(&self, approx: Option<(HoldApprox, f64)>) -> Evaluation {
+        self.continuous_with(approx.map(|(k, theta)| (k.transfer(theta), theta)))
+    }
+
+    /// The continuous loop with `act` (a rational actuator, and the delay
+    /// it stands for, s) between controller and plant.
+    fn continuous_with(&self, act: Option<(Transfer, f64)>) -> Evaluation {
         let Controller::Continuous(c) = &self.controller else {
             return Evaluation::error("the controller is given in z: no continuous design");
         };
-        let act = approx.map(|(k, theta)| k.transfer(theta));
+        let approx = act.as_ref().map(|a| ((), a.1));
+        let pade = self.plant_pade();
         let cl = match ContinuousLoop::new(
-            &self.plant_model,
+            &self.continuous_model,
             &self.plant,
             &self.sensor,
             c,
-            act.as_ref(),
+            act.as_ref().map(|a| &a.0),
+            self.loop_delays(&pade),
         ) {
             Ok(v) => v,
             Err(e) => return Evaluation::error(e),
@@ -571,19 +790,46 @@ impl PreparedLoop {
             Err(e) => return Evaluation::error(e),
         };
         let mut roots = self.roots.clone();
-        if let Some((_, theta)) = approx {
+        if let Some((_, theta)) = approx
+            && theta > 0.0
+        {
             roots.push(C64::new(-1.0 / theta, 0.0));
+        }
+        let total = self.transport.total_s();
+        if total > 0.0 {
+            // The delay's phase turns fastest around w = 1/L.
+            roots.push(C64::new(-1.0 / total, 0.0));
+        }
+        // A very high loop gain puts the crossover (and the closed-loop
+        // poles) far above every open-loop mode, beyond the grid the
+        // open-loop roots span; the grid must reach them or the crossover
+        // and the sensitivity peak are missed (Ms below 1 was seen).
+        let fastest = roots.iter().map(|r| r.norm()).fold(0.0, f64::max);
+        if poles.iter().any(|p| p.norm() > 100.0 * fastest) {
+            roots.extend(poles.iter().copied());
         }
         let range = FrequencyRange::from_roots(&roots, None);
         let freq = loop_figures(&|w| cl.loop_at(w), &range);
-        finish(step, dist, freq, &poles)
+        let mut e = finish(step, dist, freq, &poles);
+        // A delay rotates a continuous loop gain exactly, L(jw) e^{-jw tau}:
+        // there the estimate is the exact figure.
+        if let Some(f) = e.figures.as_mut() {
+            f.delay_margin_s = f.delay_margin_estimate_s;
+            f.delay_margin_searched = true;
+        }
+        e
     }
 
     /// The continuous loop with the hold and computation delay at `p`
-    /// replaced by `kind` (theta = T/2 + d T).
+    /// replaced by `kind`: a delay approximation of theta = the hold's
+    /// low-frequency delay + d T (T/2 + d T for zero-order), or the hold's
+    /// own transfer function by Pade (`HoldApprox::HoldPade22`). The
+    /// transport delays stay as in the continuous design.
     pub fn hold_approx(&self, p: &Point, kind: HoldApprox) -> Evaluation {
         let period = 1.0 / p.rate_hz;
-        self.continuous(Some((kind, period / 2.0 + p.delay * period)))
+        let delay = p.delay * period;
+        let theta = p.hold.equivalent_delay_s(period) + delay;
+        self.continuous_with(kind.actuator(p.hold, period, delay).map(|t| (t, theta)))
     }
 }
 
@@ -595,8 +841,11 @@ fn check_point(p: &Point) -> Result<(), String> {
             p.rate_hz
         ));
     }
-    if !(0.0..=1.0).contains(&p.delay) {
-        return Err(format!("computation delay {} is outside [0, 1]", p.delay));
+    if !(p.delay >= 0.0 && p.delay.is_finite()) {
+        return Err(format!(
+            "computation delay must be non-negative and finite (in periods), got {}",
+            p.delay
+        ));
     }
     Ok(())
 }
@@ -607,10 +856,20 @@ fn finish(
     freq: LoopFigures,
     poles: &[C64],
 ) -> Evaluation {
+    let figures = Figures::from_parts(&step, &dist, &freq);
+    // A NaN never decides a verdict: it means the numbers left double
+    // range somewhere, so the point is an error that says so.
+    if let Some(name) = figures.first_nan() {
+        let mut e = Evaluation::error(format!(
+            "the {name} is not a number (the loop's numbers are beyond double precision)"
+        ));
+        e.closed_loop_poles = poles.iter().map(|p| [p.re, p.im]).collect();
+        return e;
+    }
     Evaluation {
         status: Status::Ok,
         stable: true,
-        figures: Some(Figures::from_parts(&step, &dist, &freq)),
+        figures: Some(figures),
         closed_loop_poles: poles.iter().map(|p| [p.re, p.im]).collect(),
         loop_detail: Some(freq),
     }

@@ -165,6 +165,12 @@ fn lex(chars: &[char]) -> Result<Vec<Token>, ExprError> {
             ')' => Some(Tok::RParen),
             _ => None,
         };
+        if c == '*' && chars.get(i + 1) == Some(&'*') {
+            return Err(ExprError::new(
+                col + 1,
+                "`**` is not a power here: use `^`, e.g. s^2",
+            ));
+        }
         if let Some(tok) = single {
             out.push(Token {
                 tok,
@@ -454,6 +460,16 @@ impl Parser {
                 kind: Kind::Var,
                 col: t.col,
             },
+            Tok::Ident(name) if name == PI_NAME => Node {
+                kind: Kind::Num(std::f64::consts::PI),
+                col: t.col,
+            },
+            Tok::Ident(name)
+                if matches!(self.peek().map(|t| &t.tok), Some(Tok::LParen))
+                    && FUNCTION_NAMES.contains(&name.as_str()) =>
+            {
+                return Err(ExprError::new(t.col, function_hint(&name)));
+            }
             Tok::Ident(name) => {
                 if !self.idents.iter().any(|(n, _)| *n == name) {
                     self.idents.push((name.clone(), t.col));
@@ -510,6 +526,33 @@ impl Parser {
     }
 }
 
+/// The one built-in constant, pi (3.14159...), so that `2*pi*50` reads as
+/// written; it cannot be declared as a parameter.
+pub const PI_NAME: &str = "pi";
+
+/// Function names a user may reach for; none is rational in `s`.
+const FUNCTION_NAMES: [&str; 6] = ["exp", "sqrt", "sin", "cos", "log", "ln"];
+
+/// What to write instead of a function call.
+fn function_hint(name: &str) -> String {
+    if name == "exp" {
+        "`exp(...)` is not rational in s: give a pure delay e^(-sL) as `delay_s = L` under [plant] or [sensor]".to_string()
+    } else {
+        format!(
+            "`{name}(...)`: only +, -, *, / and ^ with whole exponents are allowed (compute the number and write it, or declare it under [params])"
+        )
+    }
+}
+
+/// The message for an identifier that has no value.
+pub fn unbound_message(name: &str) -> String {
+    if name == "z" {
+        "`z` in an expression in s: a controller in z is given as `numerator_z`, `denominator_z` and `rate_hz` under [controller]".to_string()
+    } else {
+        format!("unbound identifier `{name}`")
+    }
+}
+
 /// Numerator and denominator during evaluation.
 struct Rat {
     numerator: Poly,
@@ -558,8 +601,7 @@ fn eval_node(node: &Node, lookup: &dyn Fn(&str) -> Option<f64>) -> Result<Rat, E
             denominator: Poly::one(),
         },
         Kind::Param(name) => {
-            let v = lookup(name)
-                .ok_or_else(|| ExprError::new(node.col, format!("unbound identifier `{name}`")))?;
+            let v = lookup(name).ok_or_else(|| ExprError::new(node.col, unbound_message(name)))?;
             if !v.is_finite() {
                 return Err(ExprError::new(
                     node.col,
@@ -589,7 +631,13 @@ fn eval_node(node: &Node, lookup: &dyn Fn(&str) -> Option<f64>) -> Result<Rat, E
                     AddOp::Sub => ad.sub(&bc),
                 };
                 let den = mul_checked(*col, &acc.denominator, &t.denominator)?;
-                acc = finish(*col, Rat { numerator: num, denominator: den })?;
+                acc = finish(
+                    *col,
+                    Rat {
+                        numerator: num,
+                        denominator: den,
+                    },
+                )?;
             }
             acc
         }
@@ -615,14 +663,23 @@ fn eval_node(node: &Node, lookup: &dyn Fn(&str) -> Option<f64>) -> Result<Rat, E
                         )
                     }
                 };
-                acc = finish(*col, Rat { numerator: num, denominator: den })?;
+                acc = finish(
+                    *col,
+                    Rat {
+                        numerator: num,
+                        denominator: den,
+                    },
+                )?;
             }
             acc
         }
         Kind::Pow(base, n, col) => {
             let b = eval_node(base, lookup)?;
             let n_us = *n as usize;
-            check_degree(*col, b.numerator.degree().max(b.denominator.degree()) * n_us)?;
+            check_degree(
+                *col,
+                b.numerator.degree().max(b.denominator.degree()) * n_us,
+            )?;
             Rat {
                 numerator: b.numerator.pow(*n),
                 denominator: b.denominator.pow(*n),
@@ -799,6 +856,10 @@ mod tests {
             ("1e", 2, "malformed"),
             (".", 1, "lone"),
             ("2 s", 3, "implicit"),
+            ("7.54(s+1)", 5, "write `*` between factors"),
+            ("1/(s**2+1)", 6, "use `^`"),
+            ("exp(-0.1*s)/(s+1)", 1, "delay_s"),
+            ("sqrt(2)*s", 1, "only +, -, *, / and ^"),
             ("()", 1, "empty parentheses"),
             ("é", 1, "unexpected character"),
             ("\u{a0}\u{a0}2 $", 5, "unexpected character"),
@@ -829,6 +890,18 @@ mod tests {
         // A long flat chain is not deep.
         let long = vec!["1"; 50_000].join("+");
         assert_eq!(eval0(&long).0, vec![50_000.0]);
+    }
+
+    #[test]
+    fn pi_is_built_in_and_z_points_to_the_discrete_form() {
+        // pi to double precision (closed form: std's constant).
+        let (n, d) = eval0("2*pi*50");
+        assert_eq!(n, vec![2.0 * std::f64::consts::PI * 50.0]);
+        assert_eq!(d, vec![1.0]);
+        assert!(Expr::parse("2*pi*s").unwrap().identifiers().is_empty());
+        let e = Expr::parse("1/(z+1)").unwrap().eval(&|_| None).unwrap_err();
+        assert_eq!(e.column, 4);
+        assert!(e.message.contains("numerator_z"), "{}", e.message);
     }
 
     #[test]

@@ -1,5 +1,7 @@
 //! Loop figures in the frequency domain: gain and phase margins, crossover,
-//! delay margin and sensitivity peak, from the exact loop gain.
+//! the delay-margin estimate and sensitivity peak, from the exact loop gain.
+//! What each figure means (which crossing is reported, signs, the ends of
+//! the range, when a margin is not located) is fixed in `docs/figures.md`.
 //!
 //! The grid is built from the loop's own natural frequencies (dense around
 //! each, and near Nyquist for a sampled loop), refined where the phase or
@@ -54,24 +56,36 @@ impl FrequencyRange {
 /// The frequency-domain figures of one loop.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct LoopFigures {
-    /// The -180 deg crossing nearest to 0 dB, sign kept (negative: the
-    /// loop only tolerates a gain *reduction* of that much). None: no
-    /// crossing, infinite margin.
+    /// The -180 deg crossing nearest to 0 dB, both ends of the range
+    /// included, sign kept (negative: the loop only tolerates a gain
+    /// *reduction* of that much). None: no crossing, infinite margin (or
+    /// not located: see `notes`). See `docs/figures.md`.
     pub gain_margin_db: Option<f64>,
+    /// Frequency of that crossing (0 for the low end), Hz.
     pub gain_margin_hz: Option<f64>,
-    /// Smallest phase margin over all gain crossings, sign kept. None: no
-    /// gain crossing.
+    /// The phase margin of the gain crossing nearest -1 (smallest |PM|),
+    /// sign kept, wrapped to (-180, 180]. None: no gain crossing (or not
+    /// located: see `notes`).
     pub phase_margin_deg: Option<f64>,
-    /// Frequency of the crossing with the smallest phase margin.
+    /// Frequency of that crossing, Hz.
     pub crossover_hz: Option<f64>,
-    /// min PM_i / w_i over every gain crossing, s.
-    pub delay_margin_s: Option<f64>,
+    /// Estimate of the delay margin: `min_i phi_i / w_i` over the gain
+    /// crossings, `phi_i` the phase still to go down to the next -180 deg
+    /// (mod 360) at crossing i, s. Exact only for a continuous loop; the
+    /// exact figure of a sampled loop is `evaluate::Figures::delay_margin_s`.
+    pub delay_margin_estimate_s: Option<f64>,
     /// max |1/(1+L)|.
     pub sensitivity_peak: f64,
     pub sensitivity_peak_hz: f64,
     /// Every gain crossing (Hz) and every phase crossing (Hz).
     pub gain_crossings_hz: Vec<f64>,
     pub phase_crossings_hz: Vec<f64>,
+    /// The phase still to go down to the next -180 deg (mod 360) at each
+    /// gain crossing, deg, in [0, 360), in the order of `gain_crossings_hz`.
+    pub phase_to_go_deg: Vec<f64>,
+    /// Why a margin was not located, when it was not (|L| = 1 over an
+    /// interval, a crossing exactly at an end of the range).
+    pub notes: Vec<String>,
 }
 
 fn wrap_deg(x: f64) -> f64 {
@@ -237,57 +251,143 @@ pub fn loop_figures(l: &dyn Fn(f64) -> C64, range: &FrequencyRange) -> LoopFigur
             }
         }
     }
+    let mut notes = Vec::new();
+    // The ends of the range. Where the loop gain of a real loop is real and
+    // negative at w -> 0 or at w = pi/T, that end is a -180 deg crossing.
+    // With integrators |L| grows without bound at w -> 0: no finite gain
+    // change reaches such an end, so it is no crossing (the limit of the
+    // phase is -90 deg per integrator; an infinite or zero |L| bounds no
+    // gain). A finite low end is recognised by |L| no longer changing a
+    // decade below the grid's low end.
+    let low_end = {
+        let v0 = l(0.0);
+        let (a, b) = (l(range.w_lo), l(range.w_lo / 10.0));
+        let settled = (b - a).norm() <= 1e-3 * b.norm() && (b - v0).norm() <= 1e-3 * v0.norm();
+        (v0.re.is_finite() && v0.im.is_finite() && v0.norm() > 0.0 && settled).then_some(v0)
+    };
+    if let Some(v0) = low_end {
+        end_crossing(v0, 0.0, "w -> 0", &mut phase_x, &mut notes);
+    }
     if range.nyquist {
         let (w, v) = grid[grid.len() - 1];
         let near_end = phase_x
             .last()
             .is_some_and(|&(wc, _)| wc >= w * (1.0 - 1e-6));
-        if v.re < 0.0 && v.im.abs() <= 1e-9 * v.norm() && !near_end {
-            phase_x.push((w, -20.0 * v.norm().log10()));
+        if v.im.abs() <= 1e-9 * v.norm() && !near_end {
+            end_crossing(v, w, "Nyquist", &mut phase_x, &mut notes);
         }
     }
-    // Sensitivity peak: grid maximum, refined between its neighbours.
+    // |L| = 1 exactly at an end, or over an interval: no crossing to
+    // refine; say so rather than report a number.
+    let unit = |p: &GridPoint| p.ln_mag.abs() <= 1e-9;
+    if points.first().is_some_and(unit) || points.last().is_some_and(unit) {
+        notes.push(
+            "|L| = 1 at an end of the frequency range: a gain crossing sits there and its phase margin is not located".into(),
+        );
+    }
+    let mut run = 0usize;
+    let mut flat: Option<(f64, f64)> = None;
+    for (i, p) in points.iter().enumerate() {
+        run = if unit(p) { run + 1 } else { 0 };
+        if run >= 3 {
+            let start = points[i + 1 - run].w;
+            flat = Some((flat.map_or(start, |f| f.0), p.w));
+        }
+    }
+    let flat_gain = flat.is_some();
+    if let Some((a, b)) = flat {
+        notes.push(format!(
+            "|L| = 1 over {:.6e} .. {:.6e} Hz: no single gain crossing, the phase margin and the delay-margin estimate are not located",
+            a / two_pi,
+            b / two_pi
+        ));
+    }
+    // Sensitivity peak: every local maximum of the grid within 20 % of the
+    // largest is refined between its neighbours (two peaks of about the
+    // same height can swap places between the grid and the exact curve).
     let s = |w: f64| 1.0 / (C64::new(1.0, 0.0) + l(w)).norm();
-    let mut best = (grid[0].0, s(grid[0].0));
-    let mut best_i = 0;
-    for (i, &(w, v)) in grid.iter().enumerate() {
-        let sv = 1.0 / (C64::new(1.0, 0.0) + v).norm();
-        if sv > best.1 {
-            best = (w, sv);
-            best_i = i;
+    let sv: Vec<f64> = grid
+        .iter()
+        .map(|&(_, v)| 1.0 / (C64::new(1.0, 0.0) + v).norm())
+        .collect();
+    let grid_best = sv.iter().copied().fold(0.0, f64::max);
+    let mut best = (grid[0].0, sv[0]);
+    for (i, (g, &v)) in grid.iter().zip(&sv).enumerate() {
+        if v > best.1 {
+            best = (g.0, v);
         }
-    }
-    let a = grid[best_i.saturating_sub(1)].0.ln();
-    let b = grid[(best_i + 1).min(grid.len() - 1)].0.ln();
-    if b > a {
-        let f = |x: f64| -s(x.exp());
-        if let Some((x, fx)) = scalar_solve::minimum(&f, a, b, 1e-10, 1e-12)
-            && -fx > best.1
-        {
-            best = (x.exp(), -fx);
+        let left = if i > 0 { sv[i - 1] } else { f64::NEG_INFINITY };
+        let right = sv.get(i + 1).copied().unwrap_or(f64::NEG_INFINITY);
+        if !(v >= left && v >= right && v >= 0.8 * grid_best) {
+            continue;
+        }
+        let a = grid[i.saturating_sub(1)].0.ln();
+        let b = grid[(i + 1).min(grid.len() - 1)].0.ln();
+        if b > a {
+            let f = |x: f64| -s(x.exp());
+            if let Some((x, fx)) = scalar_solve::minimum(&f, a, b, 1e-10, 1e-12)
+                && -fx > best.1
+            {
+                best = (x.exp(), -fx);
+            }
         }
     }
 
-    let pm = gain_x.iter().copied().min_by(|a, b| a.1.total_cmp(&b.1));
-    let gm = phase_x
+    if flat_gain {
+        gain_x.clear();
+    }
+    // The crossing nearest -1: smallest |PM| (a crossing next to +1 reads
+    // about -180 after wrapping and is the safest, not the worst).
+    let pm = gain_x
         .iter()
         .copied()
         .min_by(|a, b| a.1.abs().total_cmp(&b.1.abs()));
-    let delay_margin = gain_x
+    let gm = phase_x
         .iter()
-        .map(|&(w, pm)| pm.to_radians() / w)
+        .copied()
+        .filter(|g| g.1.is_finite())
+        .min_by(|a, b| a.1.abs().total_cmp(&b.1.abs()));
+    // Phase still to go down to the next -180 deg at each crossing.
+    let to_go: Vec<f64> = gain_x
+        .iter()
+        .map(|&(_, pm)| if pm < 0.0 { pm + 360.0 } else { pm })
+        .collect();
+    let delay_estimate = gain_x
+        .iter()
+        .zip(&to_go)
+        .map(|(&(w, _), phi)| phi.to_radians() / w)
         .min_by(|a, b| a.total_cmp(b));
     LoopFigures {
         gain_margin_db: gm.map(|g| g.1),
         gain_margin_hz: gm.map(|g| g.0 / two_pi),
         phase_margin_deg: pm.map(|p| p.1),
         crossover_hz: pm.map(|p| p.0 / two_pi),
-        delay_margin_s: delay_margin,
+        delay_margin_estimate_s: delay_estimate,
         sensitivity_peak: best.1,
         sensitivity_peak_hz: best.0 / two_pi,
         gain_crossings_hz: gain_x.iter().map(|g| g.0 / two_pi).collect(),
         phase_crossings_hz: phase_x.iter().map(|g| g.0 / two_pi).collect(),
+        phase_to_go_deg: to_go,
+        notes,
     }
+}
+
+/// A -180 deg crossing at an end of the range (`w` rad/s, `v` the real
+/// loop gain there), when `v` is negative, finite and non-zero; a loop gain
+/// of exactly -1 there is noted instead (the loop is on the boundary).
+fn end_crossing(v: C64, w: f64, end: &str, phase_x: &mut Vec<(f64, f64)>, notes: &mut Vec<String>) {
+    if !(v.re < 0.0 && v.norm().is_finite() && v.norm() > 0.0) {
+        return;
+    }
+    let gm = -20.0 * v.norm().log10();
+    if gm.abs() <= 1e-9 {
+        notes.push(format!(
+            "the loop gain is -1 at the {end} end of the frequency range: the gain margin there is not located"
+        ));
+        return;
+    }
+    phase_x.push((w, gm));
+    phase_x.sort_by(|a, b| a.0.total_cmp(&b.0));
 }
 
 #[cfg(test)]
@@ -310,7 +410,7 @@ mod tests {
         assert!((f.crossover_hz.unwrap() * 2.0 * std::f64::consts::PI - wc).abs() < 1e-9 * wc);
         assert!((f.phase_margin_deg.unwrap() - pm).abs() < 1e-7);
         assert!(f.gain_margin_db.is_none());
-        assert!((f.delay_margin_s.unwrap() - pm.to_radians() / wc).abs() < 1e-8);
+        assert!((f.delay_margin_estimate_s.unwrap() - pm.to_radians() / wc).abs() < 1e-8);
     }
 
     #[test]

@@ -16,7 +16,10 @@ use looprate::continuous::HoldApprox;
 use looprate::discretize::{Method, discretize};
 use looprate::evaluate::{Point, PreparedLoop};
 use looprate::expr::Expr;
-use looprate::pick::{Picked, case_grid, case_variants, prepare, sweep_and_pick};
+use looprate::hold::HoldKind;
+use looprate::pick::{
+    Picked, case_grid, case_methods, case_variants, prepare, sweep_and_pick_streaming,
+};
 use looprate::search::Silent;
 use looprate::transfer::{Controller, Transfer};
 use looprate::variants::VariantSet;
@@ -35,21 +38,31 @@ struct Cli {
 
 #[derive(Subcommand)]
 enum Command {
-    /// Print the controller in z that a method gives at one rate.
+    /// Print the controller in z that a method gives at one rate: the
+    /// controller of a case file (any form, PID included), or one written
+    /// with --transfer.
     Discretize {
-        /// Continuous controller, a rational expression in s, e.g. "0.05*(s+12)/s".
-        #[arg(long = "tf")]
-        transfer: String,
+        /// A case file whose [controller] is discretized (its pre-warp
+        /// frequency and loop crossover apply to tustin-prewarped).
+        case: Option<PathBuf>,
+        /// Continuous controller, a rational expression in s, e.g. "0.05*(s+12)/s"
+        /// (instead of a case file).
+        #[arg(long, conflicts_with = "case")]
+        transfer: Option<String>,
+        /// Refused: renamed --transfer.
+        #[arg(long = "tf", hide = true)] // old name
+        old_transfer: Option<String>,
         /// Loop rate, Hz.
         #[arg(long)]
         rate: f64,
-        /// zoh, foh, impulse, tustin, tustin-prewarped, matched, forward-euler, backward-euler.
+        /// step-invariant, ramp-invariant, impulse-invariant, tustin, tustin-prewarped, pole-zero-match, forward-euler, backward-euler.
         #[arg(long)]
         method: String,
-        /// Pre-warp frequency for tustin-prewarped, Hz.
+        /// Pre-warp frequency for tustin-prewarped, Hz (default with a case
+        /// file: the case's own, else the continuous loop's crossover).
         #[arg(long = "prewarp-hz")]
         prewarp_hz: Option<f64>,
-        /// Print JSON (keys method, rate_hz, num, den, poles, zeros).
+        /// Print JSON (keys method, rate_hz, numerator, denominator, poles, zeros).
         #[arg(long)]
         json: bool,
     },
@@ -60,6 +73,7 @@ enum Command {
     },
     /// Evaluate the loop at one rate, method and computation delay.
     Eval {
+        /// The case file (TOML).
         case: PathBuf,
         /// Loop rate, Hz.
         #[arg(long)]
@@ -67,9 +81,13 @@ enum Command {
         /// Discretization method (not needed for a controller given in z).
         #[arg(long)]
         method: Option<String>,
-        /// Computation delay as a fraction of a period (default: the case's first).
+        /// Computation delay in periods, any finite value >= 0 (default: the case's first).
         #[arg(long)]
         delay: Option<f64>,
+        /// Actuator hold kind: zero-order, first-order or interpolating
+        /// (default: the case's first).
+        #[arg(long)]
+        hold: Option<String>,
         /// Print JSON with the loop model's keys.
         #[arg(long)]
         json: bool,
@@ -79,11 +97,12 @@ enum Command {
     },
     /// Evaluate every grid point of the case and write DIR/sweep.csv.
     Sweep {
+        /// The case file (TOML).
         case: PathBuf,
-        /// Output folder.
+        /// Output folder (created if missing).
         #[arg(long, default_value = "out")]
         out: PathBuf,
-        /// Worker threads (default: all cores).
+        /// Worker threads (default: all cores). Results do not depend on it.
         #[arg(long)]
         threads: Option<usize>,
         /// No progress bar.
@@ -100,14 +119,19 @@ enum Command {
     /// Find the slowest rate that meets the spec for each method, recommend
     /// one with headroom, and check the CPU budget.
     Pick {
+        /// The case file (TOML).
         case: PathBuf,
+        /// Output folder for sweep.csv, pick.json, the report and the
+        /// charts (created if missing).
         #[arg(long, default_value = "out")]
         out: PathBuf,
         /// Print pick.json to stdout instead of the summary.
         #[arg(long)]
         json: bool,
+        /// Worker threads (default: all cores). Results do not depend on it.
         #[arg(long)]
         threads: Option<usize>,
+        /// No progress bar.
         #[arg(long)]
         quiet: bool,
         /// Skip the PNG charts (the report is still written).
@@ -124,7 +148,7 @@ fn main() -> ExitCode {
             if is_broken_pipe(&e) {
                 return ExitCode::SUCCESS;
             }
-            eprintln!("looprate: {e:#}");
+            warn(&format!("looprate: {e:#}"));
             ExitCode::from(2)
         }
     }
@@ -135,6 +159,23 @@ fn is_broken_pipe(e: &anyhow::Error) -> bool {
         c.downcast_ref::<std::io::Error>()
             .is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe)
     })
+}
+
+/// Most worker threads `--threads` accepts: far above any core count that
+/// helps, low enough that a typo does not start thousands of threads.
+const MAX_THREADS: usize = 256;
+
+/// Write a line to stderr, ignoring a failure (a full disk or a closed
+/// pipe there must not turn into a panic or change the exit code).
+fn warn(text: &str) {
+    let mut err = std::io::stderr().lock();
+    let _ = writeln!(err, "{text}");
+    let _ = err.flush();
+}
+
+/// A loop rate from the command line, within the case file's limits.
+fn check_rate(flag: &str, rate: f64) -> Result<f64> {
+    looprate::case::rate_in_range(rate).map_err(|m| anyhow!("{flag} {m}"))
 }
 
 fn print(text: &str) -> Result<()> {
@@ -148,39 +189,86 @@ fn parse_method(name: &str) -> Result<Method> {
     name.parse::<Method>().map_err(|e| anyhow!("--method: {e}"))
 }
 
+/// The controller written with `--transfer`, errors located by column.
+fn transfer_from_option(text: &str) -> Result<Transfer> {
+    let located = |e: looprate::expr::ExprError| {
+        anyhow!(
+            "--transfer: column {}: {}\n    {}\n    {}",
+            e.column,
+            e.message,
+            text,
+            e.caret_line(text)
+        )
+    };
+    let expr = Expr::parse(text).map_err(located)?;
+    let (num, den) = expr.eval(&|_| None).map_err(located)?;
+    let c = Transfer::new(num, den).with_sane_scale();
+    if let Some(big) = looprate::case::monic_overflow(&c) {
+        return Err(anyhow!(
+            "--transfer: the numbers are beyond the range looprate computes in: divided by the \
+             leading denominator coefficient, a coefficient is {big:e} (at most {:e} \
+             allowed); rescale its time unit or its gain",
+            looprate::case::MAX_MONIC_COEFF
+        ));
+    }
+    Ok(c)
+}
+
 fn run(cli: Cli) -> Result<ExitCode> {
     match cli.command {
         Command::Discretize {
+            case,
             transfer,
+            old_transfer,
             rate,
             method,
             prewarp_hz,
             json,
         } => {
-            let m = parse_method(&method)?;
-            if !(rate > 0.0 && rate.is_finite()) {
-                return Err(anyhow!("--rate must be positive and finite, got {rate}"));
+            if old_transfer.is_some() {
+                return Err(anyhow!("--transfer is now called --transfer"));
             }
-            let expr = Expr::parse(&tf).map_err(|e| {
-                anyhow!(
-                    "--transfer: column {}: {}\n    {}\n    {}",
-                    e.column,
-                    e.message,
-                    transfer,
-                    e.caret_line(&tf)
-                )
-            })?;
-            let (num, den) = expr.eval(&|_| None).map_err(|e| {
-                anyhow!(
-                    "--transfer: column {}: {}\n    {}\n    {}",
-                    e.column,
-                    e.message,
-                    transfer,
-                    e.caret_line(&tf)
-                )
-            })?;
-            let c = Transfer::new(num, den);
-            let w0 = prewarp_hz.map(|f| 2.0 * std::f64::consts::PI * f);
+            let m = parse_method(&method)?;
+            let rate = check_rate("--rate", rate)?;
+            if let Some(f) = prewarp_hz
+                && !(f > 0.0 && f.is_finite())
+            {
+                return Err(anyhow!(
+                    "--prewarp-hz must be a positive, finite frequency in Hz, got {f}"
+                ));
+            }
+            if let Some(f) = prewarp_hz
+                && !(f > 0.0 && f.is_finite())
+            {
+                return Err(anyhow!("--prewarp-hz must be positive and finite, got {f}"));
+            }
+            let given_w0 = prewarp_hz.map(|f| 2.0 * std::f64::consts::PI * f);
+            let (c, w0) = match (case, transfer) {
+                (Some(path), _) => {
+                    let case = Case::load(&path)?;
+                    let lp = prepare(&case)?;
+                    match &lp.controller {
+                        Controller::Continuous(c) => (c.clone(), given_w0.or(lp.prewarp_rad_s)),
+                        Controller::Discrete(_) => {
+                            return Err(anyhow!(
+                                "{}: the controller is given in z; there is nothing to discretize",
+                                path.display()
+                            ));
+                        }
+                    }
+                }
+                (None, Some(text)) => (transfer_from_option(&text)?, given_w0),
+                (None, None) => {
+                    return Err(anyhow!(
+                        "give a case file (looprate discretize CASE.toml --rate HZ --method NAME) or --transfer EXPR"
+                    ));
+                }
+            };
+            if m == Method::TustinPrewarped && w0.is_none() {
+                return Err(anyhow!(
+                    "tustin-prewarped needs a pre-warp frequency: give --prewarp-hz"
+                ));
+            }
             let d =
                 discretize(&c, m, 1.0 / rate, w0).map_err(|e| anyhow!("{m} at {rate} Hz: {e}"))?;
             if json {
@@ -204,6 +292,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
             rate,
             method,
             delay,
+            hold,
             json,
             trace,
         } => {
@@ -218,18 +307,34 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 (Controller::Discrete(_), _) => None,
             };
             let delay = delay.unwrap_or(c.compute_delays[0]);
-            if !(0.0..=1.0).contains(&delay) {
-                return Err(anyhow!("--delay must be in [0, 1], got {delay}"));
+            if !(delay >= 0.0 && delay.is_finite()) {
+                return Err(anyhow!(
+                    "--delay must be a finite number of periods >= 0, got {delay}"
+                ));
             }
-            if !(rate > 0.0 && rate.is_finite()) {
-                return Err(anyhow!("--rate must be positive and finite, got {rate}"));
+            let rate = check_rate("--rate", rate)?;
+            let hold = match hold {
+                None => c.holds[0],
+                Some(h) => HoldKind::from_name(&h).ok_or_else(|| {
+                    anyhow!(
+                        "--hold: unknown hold kind `{h}`; the kinds are: {}",
+                        HoldKind::names()
+                    )
+                })?,
+            };
+            if matches!(lp.controller, Controller::Discrete(_)) && hold != c.holds[0] {
+                return Err(anyhow!(
+                    "--hold {hold}: the controller is given in z and assumes a {} hold",
+                    c.holds[0]
+                ));
             }
             let p = Point {
                 rate_hz: rate,
                 method,
                 delay,
+                hold,
             };
-            let exact = lp.sampled(&p);
+            let exact = lp.sampled_exact(&p);
             let approx: Vec<(HoldApprox, _)> = if matches!(lp.controller, Controller::Continuous(_))
             {
                 HoldApprox::ALL
@@ -255,9 +360,10 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 print(&format!("{v:#}\n"))?;
             } else {
                 let header = format!(
-                    "rate {} Hz, method {}, computation delay {} of a period",
+                    "rate {} Hz, method {}, {} hold, computation delay {} periods",
                     rate,
                     looprate::search::method_label(method),
+                    hold,
                     delay
                 );
                 let mut text = summary::evaluation_text(
@@ -291,9 +397,11 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 ));
             }
             let lp = prepare(&c)?;
+            check_threads(threads)?;
+            let _lock = outputs::OutputLock::acquire(&out)?;
             let (rows, set) = in_pool(threads, || -> Result<_> {
                 let set = case_variants(&c, &lp)?;
-                let rows = run_sweep(&c, &lp, set.as_ref(), variants, quiet);
+                let rows = run_sweep(&c, &lp, set.as_ref(), variants, quiet, &out)?;
                 if let Some(set) = &set
                     && variants
                 {
@@ -310,16 +418,16 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 }
                 Ok((rows, set))
             })??;
+            let _ = set;
             let path = out.join("sweep.csv");
-            outputs::write_atomic(&path, &outputs::sweep_csv(&rows, set.as_ref()))?;
             let feasible = rows.iter().filter(|r| r.assessment.feasible).count();
             if !quiet {
-                eprintln!(
+                warn(&format!(
                     "{} points ({} feasible) written to {}",
                     rows.len(),
                     feasible,
                     path.display()
-                );
+                ));
             }
             Ok(ExitCode::SUCCESS)
         }
@@ -333,13 +441,22 @@ fn run(cli: Cli) -> Result<ExitCode> {
         } => {
             let c = Case::load(&case)?;
             let lp = prepare(&c)?;
+            check_threads(threads)?;
+            let _lock = outputs::OutputLock::acquire(&out)?;
             let report = in_pool(threads, || -> Result<_> {
                 let bar = progress(case_grid(&c, &lp).len(), quiet);
+                let mut stream = csv_stream(&c, &lp, &out)?;
                 let Picked {
                     rows,
-                    variants: set,
+                    variants: _,
                     report,
-                } = sweep_and_pick(&c, &lp, &|| bar.inc(1), &Silent)?;
+                } = sweep_and_pick_streaming(
+                    &c,
+                    &lp,
+                    &|| bar.inc(1),
+                    &Silent,
+                    Some(&mut |i, row, v| stream.push(i, row, v)),
+                )?;
                 bar.finish_and_clear();
                 // Charts are drawn while the CSV and JSON are written.
                 let (charts, tables) = rayon::join(
@@ -352,7 +469,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
                             )?)
                         }
                     },
-                    || write_pick_outputs(&out, &rows, set.as_ref(), &report),
+                    || write_pick_outputs(&out, stream, &report),
                 );
                 tables?;
                 looprate::report::write_report(&out, &c, &report, &charts?)?;
@@ -362,6 +479,12 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 print(&format!("{:#}\n", serde_json::to_value(&report)?))?;
             } else {
                 print(&summary::pick_text(&report))?;
+                // Say where the files went, the default folder above all.
+                print(&format!(
+                    "\nWrote {}: report.md, report.html, pick.json, sweep.csv{}.\n",
+                    out.display(),
+                    if no_charts { "" } else { " and the charts" }
+                ))?;
             }
             Ok(if report.has_answer() {
                 ExitCode::SUCCESS
@@ -372,24 +495,48 @@ fn run(cli: Cli) -> Result<ExitCode> {
     }
 }
 
+/// `DIR/sweep.csv` as a stream the sweep writes row by row.
+fn csv_stream(c: &Case, lp: &PreparedLoop, out: &Path) -> Result<outputs::SweepCsvStream> {
+    let points = case_grid(c, lp).len();
+    let series = case_methods(c).len() * c.compute_delays.len();
+    let formats: Vec<String> = sweep::Plan::for_case(c, lp, None)
+        .formats()
+        .iter()
+        .map(|f| f.name())
+        .collect();
+    Ok(outputs::SweepCsvStream::create(
+        &out.join("sweep.csv"),
+        series,
+        points / series.max(1),
+        &formats,
+        c.uncertainty.is_some(),
+    )?)
+}
+
 fn write_pick_outputs(
     out: &Path,
-    rows: &[sweep::SweepRow],
-    set: Option<&VariantSet>,
+    stream: outputs::SweepCsvStream,
     report: &looprate::pick::PickReport,
 ) -> Result<()> {
-    outputs::write_atomic(&out.join("sweep.csv"), &outputs::sweep_csv(rows, set))?;
+    stream.finish()?;
     let json = serde_json::to_vec_pretty(report)?;
     outputs::write_atomic(&out.join("pick.json"), &json)?;
     Ok(())
 }
 
+fn check_threads(threads: Option<usize>) -> Result<()> {
+    match threads {
+        Some(n) if n == 0 || n > MAX_THREADS => Err(anyhow!(
+            "--threads must be from 1 to {MAX_THREADS}, got {n}"
+        )),
+        _ => Ok(()),
+    }
+}
+
 fn in_pool<T: Send>(threads: Option<usize>, f: impl FnOnce() -> T + Send) -> Result<T> {
     let mut b = rayon::ThreadPoolBuilder::new();
     if let Some(n) = threads {
-        if n == 0 {
-            return Err(anyhow!("--threads must be at least 1"));
-        }
+        check_threads(threads)?;
         b = b.num_threads(n);
     }
     let pool = b.build().context("starting worker threads")?;
@@ -416,14 +563,24 @@ fn run_sweep(
     variants: Option<&VariantSet>,
     keep_variants: bool,
     quiet: bool,
-) -> Vec<sweep::SweepRow> {
+    out: &Path,
+) -> Result<Vec<sweep::SweepRow>> {
     let points = case_grid(c, lp);
     let bar = progress(points.len(), quiet);
     let plan = sweep::Plan {
         keep_variants,
         ..sweep::Plan::for_case(c, lp, variants)
     };
-    let rows = sweep::run(&plan, &points, &|| bar.inc(1));
+    let mut stream = csv_stream(c, lp, out)?;
+    let mut rows = sweep::GridOrder::default();
+    sweep::run_streaming(&plan, &points, &|| bar.inc(1), &mut |i, mut row| {
+        stream.push(i, &row, variants);
+        if !keep_variants {
+            row.slim();
+        }
+        rows.push(i, row);
+    });
     bar.finish_and_clear();
-    rows
+    stream.finish()?;
+    Ok(rows.finish())
 }

@@ -7,21 +7,22 @@ use serde::Serialize;
 
 use std::cell::RefCell;
 
-use crate::budget::{self, RateWindow};
+use crate::budget::{self, RateWindow, WindowBound};
 use crate::case::{Case, UncertaintyMode};
 use crate::discretize::Method;
 use crate::error::Error;
-use crate::evaluate::{Evaluation, Figures, Point, PreparedLoop};
+use crate::evaluate::{Evaluation, Figures, Point, PreparedLoop, Transport};
 use crate::feasibility::{Assessment, LimitCheck, assess, check_figures};
+use crate::hold::HoldKind;
 use crate::precision::{self, Damage, Format, Structure};
 use crate::search::{
     Ceiling, SearchObserver, SlowestRate, fastest_rate_by, method_label, slowest_rate,
     slowest_rate_by,
 };
-use crate::summary::fmt_num;
+use crate::summary::{fmt_at_least, fmt_at_most, fmt_num};
 use crate::sweep::{self, Plan, SweepRow};
-use crate::transfer::Controller;
 use crate::time_response::TimeOptions;
+use crate::transfer::Controller;
 use crate::variants::{NamedValue, VariantSet};
 
 /// Build the rate-independent part of the loop from a case (nominal
@@ -32,11 +33,20 @@ pub fn prepare(case: &Case) -> Result<PreparedLoop, Error> {
         band: case.spec.settling_band_pct / 100.0,
         ..TimeOptions::default()
     };
-    PreparedLoop::new(&m.plant, &m.sensor, &m.controller, case.prewarp_hz, time).map_err(|e| {
-        Error::Model {
-            context: format!("{}: preparing the loop", case.source.display()),
-            source: e,
-        }
+    PreparedLoop::with_transport(
+        &m.plant,
+        &m.sensor,
+        &m.controller,
+        case.prewarp_hz,
+        time,
+        Transport {
+            plant_s: case.plant_delay_s,
+            sensor_s: case.sensor_delay_s,
+        },
+    )
+    .map_err(|e| Error::Model {
+        context: format!("{}: preparing the loop", case.source.display()),
+        reason: e,
     })
 }
 
@@ -65,9 +75,35 @@ pub fn sweep_and_pick(
     on_done: &(dyn Fn() + Sync),
     observer: &dyn SearchObserver,
 ) -> Result<Picked, Error> {
+    sweep_and_pick_streaming(case, lp, on_done, observer, None)
+}
+
+/// Takes each finished row: its grid index, the row, the plant variants.
+pub type RowSink<'a> = dyn FnMut(usize, &SweepRow, Option<&VariantSet>) + 'a;
+
+/// [`sweep_and_pick`], handing each row to `on_row(grid_index, row,
+/// variants)` as the sweep finishes it (to stream `sweep.csv`; rows of
+/// one (method, delay) series come in grid order) and then keeping it
+/// slimmed (`SweepRow::slim`). With `on_row` None the rows are kept whole.
+pub fn sweep_and_pick_streaming(
+    case: &Case,
+    lp: &PreparedLoop,
+    on_done: &(dyn Fn() + Sync),
+    observer: &dyn SearchObserver,
+    mut on_row: Option<&mut RowSink<'_>>,
+) -> Result<Picked, Error> {
     let variants = case_variants(case, lp)?;
     let plan = Plan::for_case(case, lp, variants.as_ref());
-    let rows = sweep::run(&plan, &case_grid(case, lp), on_done);
+    let points = case_grid(case, lp);
+    let mut rows = sweep::GridOrder::default();
+    sweep::run_streaming(&plan, &points, on_done, &mut |i, mut row| {
+        if let Some(f) = on_row.as_mut() {
+            f(i, &row, variants.as_ref());
+            row.slim();
+        }
+        rows.push(i, row);
+    });
+    let rows = rows.finish();
     let report = pick(case, lp, variants.as_ref(), &rows, observer);
     Ok(Picked {
         rows,
@@ -92,13 +128,23 @@ pub fn case_grid(case: &Case, lp: &PreparedLoop) -> Vec<Point> {
         Controller::Discrete(d) => vec![1.0 / d.period_s],
         Controller::Continuous(_) => case.rates.grid(),
     };
-    sweep::grid(&rates, &case_methods(case), &case.compute_delays)
+    sweep::grid_holds(
+        &rates,
+        &case_methods(case),
+        &case.holds,
+        &case.compute_delays,
+    )
 }
 
 /// The recommended design.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Recommended {
     pub method: String,
+    /// The actuator's hold kind.
+    pub hold: HoldKind,
+    /// Why this hold, in words (the cheapest passing one, against the
+    /// other kinds the case lists).
+    pub hold_basis: String,
     pub compute_delay: f64,
     /// `f_star` of this method, Hz.
     pub slowest_rate_hz: f64,
@@ -234,6 +280,59 @@ pub struct PrecisionReport {
     pub ceilings: Vec<FormatCeiling>,
     /// At the recommended method and rate, per format.
     pub at_recommended: Vec<FormatAtRate>,
+    /// When the case's structure loses the design's integral action in
+    /// the window's format (at the recommended rate or just above the
+    /// ceiling): whether the other structure keeps it over the same rates.
+    pub other_structure: Option<OtherStructure>,
+}
+
+/// The integral action in the other structure, checked at the same rates
+/// (the recommended rate and every swept rate above it, recommended
+/// method, window format): what the advice rests on when one structure
+/// loses the integrator and the other keeps it.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct OtherStructure {
+    /// The other structure (`sos` or `transposed-direct`).
+    pub structure: String,
+    pub format: String,
+    /// Where the case's structure loses the integral action, Hz.
+    pub lost_at_hz: f64,
+    /// Rates checked, from the recommended rate up.
+    pub rates_checked: usize,
+    /// The highest rate up to which the other structure keeps the integral
+    /// action at every rate checked, Hz; None when it loses it at the
+    /// recommended rate too.
+    pub kept_up_to_hz: Option<f64>,
+    /// True when it keeps it at every rate checked (up to the top of the
+    /// swept range).
+    pub kept_at_every_rate: bool,
+}
+
+impl OtherStructure {
+    /// The advice in words.
+    pub fn advice(&self, structure: &str) -> String {
+        match self.kept_up_to_hz {
+            Some(h) if self.kept_at_every_rate => format!(
+                "another structure: {} keeps the integral action in {} at every rate checked up to {} Hz ({} rates), which {structure} loses at {} Hz",
+                self.structure,
+                self.format,
+                fmt_num(h),
+                self.rates_checked,
+                fmt_num(self.lost_at_hz)
+            ),
+            Some(h) => format!(
+                "another structure: {} keeps the integral action in {} up to {} Hz (every rate checked), {structure} loses it at {} Hz",
+                self.structure,
+                self.format,
+                fmt_num(h),
+                fmt_num(self.lost_at_hz)
+            ),
+            None => format!(
+                "{} loses the integral action in {} as well: a wider format is needed",
+                self.structure, self.format
+            ),
+        }
+    }
 }
 
 impl PickReport {
@@ -279,7 +378,7 @@ pub fn pick(
     let spec = &case.spec;
     let mut report = PickReport {
         design: None,
-        notes: Vec::new(),
+        notes: case.notes.clone(),
         ..unsearched(case, lp)
     };
     let design_delay = report.design_delay;
@@ -315,10 +414,25 @@ pub fn pick(
         .par_iter()
         .map(|s| slowest_rate(lp, spec, s, observer))
         .collect();
-    if let Controller::Discrete(_) = &lp.controller {
+    if let Controller::Discrete(d) = &lp.controller {
         // One rate only: "at or below" the range floor does not apply.
         for m in report.methods.iter_mut() {
             m.at_range_floor = false;
+        }
+        // Each listed delay gets its own verdict at that rate.
+        let own = 1.0 / d.period_s;
+        for m in &report.methods {
+            report.notes.push(match (m.slowest_rate_hz, &m.limiting) {
+                (Some(_), _) => format!(
+                    "computation delay {}: the controller given in z meets the spec at its rate {own} Hz",
+                    m.compute_delay
+                ),
+                (None, lim) => format!(
+                    "computation delay {}: the controller given in z fails the spec at its rate {own} Hz (`{}`)",
+                    m.compute_delay,
+                    lim.as_deref().unwrap_or("?")
+                ),
+            });
         }
     }
     if let Some(v) = variants {
@@ -337,12 +451,37 @@ pub fn pick(
         Some(r) => r.methods.iter().map(|m| m.rate.clone()).collect(),
         None => report.methods.clone(),
     };
+    // The cheapest passing (method, hold): the lowest f_star; on a tie the
+    // first in case order (min_by keeps the first of equals).
     let best = answers
         .iter()
         .filter(|m| m.compute_delay == design_delay)
         .filter_map(|m| m.slowest_rate_hz.map(|f| (m, f)))
         .min_by(|a, b| a.1.total_cmp(&b.1));
     let Some((best, f_star)) = best else {
+        if let Controller::Discrete(d) = &lp.controller {
+            let passing: Vec<String> = answers
+                .iter()
+                .filter(|m| m.slowest_rate_hz.is_some())
+                .map(|m| fmt_num(m.compute_delay))
+                .collect();
+            let variants = if report.robust.is_some() {
+                " on every plant variant"
+            } else {
+                ""
+            };
+            report.notes.push(format!(
+                "the controller given in z at {} Hz fails the spec{variants} at computation delay {} (the largest listed, which the recommendation is made at){}",
+                1.0 / d.period_s,
+                design_delay,
+                if passing.is_empty() {
+                    " and at every other delay listed".to_string()
+                } else {
+                    format!("; it meets it at computation delay {}", passing.join(", "))
+                }
+            ));
+            return report;
+        }
         report.notes.push(if report.robust.is_some() {
             "no method meets the spec on every plant variant at the fastest swept rate".into()
         } else {
@@ -386,16 +525,18 @@ pub fn pick(
     }
     if rate > case.rates.max_hz {
         report.notes.push(format!(
-            "the recommended rate {rate:.6} Hz is above the swept range (max_hz = {} Hz)",
+            "the rate f* times the headroom, {rate:.6} Hz, is above the swept range (max_hz = {} Hz)",
             case.rates.max_hz
         ));
     }
+    let hold = best.hold;
     let p = Point {
         rate_hz: rate,
         method,
         delay: design_delay,
+        hold,
     };
-    let eval: Evaluation = lp.sampled(&p);
+    let eval: Evaluation = lp.sampled_exact(&p);
     let a = assess(&eval, spec);
     let controller = lp.controller_at(rate, method).ok();
     let (cycles, load) = match case.budget.as_ref() {
@@ -439,6 +580,8 @@ pub fn pick(
             ),
         },
         method: best.method.clone(),
+        hold,
+        hold_basis: hold_basis(case, &answers, &best.method, hold, f_star, design_delay),
         compute_delay: design_delay,
         slowest_rate_hz: f_star,
         rate_hz: rate,
@@ -462,6 +605,7 @@ pub fn pick(
         let crossover = eval.figures.as_ref().and_then(|f| f.crossover_hz);
         let at = Chosen {
             method,
+            hold,
             rate_hz: rate,
             crossover_hz: crossover,
         };
@@ -474,53 +618,90 @@ pub fn pick(
             .iter()
             .find(|c| c.method == best.method && c.format == pr.window_format)
             .filter(|c| !c.ceiling.above_range)
-            .map(|c| match c.ceiling.rate_hz {
-                Some(h) => (h, format!("{} coefficients ({})", c.format, pr.structure)),
-                // Failing already where the search starts: no rate above
-                // the low end is usable, so the window is empty.
-                None => (
-                    f64::NEG_INFINITY,
-                    format!(
-                        "{} coefficients ({}) fail already at the recommended rate (`{}`)",
-                        c.format,
-                        pr.structure,
-                        c.ceiling.limiting.as_deref().unwrap_or("?")
+            .map(|c| {
+                let bound = |fails_at_start: Option<String>| WindowBound::Coefficients {
+                    format: c.format.clone(),
+                    structure: pr.structure.clone(),
+                    fails_at_start,
+                };
+                match c.ceiling.rate_hz {
+                    Some(h) => (h, bound(None)),
+                    // Failing already where the search starts: no rate above
+                    // the low end is usable, so the window is empty.
+                    None => (
+                        f64::NEG_INFINITY,
+                        bound(Some(
+                            c.ceiling.limiting.clone().unwrap_or_else(|| "?".into()),
+                        )),
                     ),
-                ),
+                }
             })
     });
     let top = match (cpu, prec) {
-        (Some((cc, _)), Some((pc, name))) if pc < cc => Some((pc, name)),
-        (Some((cc, _)), _) => Some((cc, "CPU budget".to_string())),
+        (Some((cc, _)), Some((pc, bound))) if pc < cc => Some((pc, bound)),
+        (Some((cc, _)), _) => Some((cc, WindowBound::CpuBudget)),
         (None, Some(p)) => Some(p),
         (None, None) => None,
     };
+    // A window claims only rates that were checked: the spec (and the
+    // coefficients) are known to hold up to the top of the swept range
+    // (a controller given in z: its own rate only), so a ceiling above it
+    // is cut there and the bound says so.
+    let checked_top = match &lp.controller {
+        Controller::Discrete(d) => 1.0 / d.period_s,
+        Controller::Continuous(_) => case.rates.max_hz,
+    };
+    let top = top.map(|(high, bound)| {
+        if high > checked_top {
+            (
+                checked_top,
+                WindowBound::LastRateChecked {
+                    checked_hz: checked_top,
+                    beyond: Box::new(bound),
+                    beyond_hz: high,
+                },
+            )
+        } else {
+            (high, bound)
+        }
+    });
     if let Some((high, bound)) = top {
         let w = if high.is_finite() {
-            RateWindow::new(rate, high, bound)
+            RateWindow::new(rate, high, bound, report.cpu_ceiling_hz)
         } else {
             RateWindow {
                 high_hz: rate,
                 empty: true,
-                ..RateWindow::new(rate, rate, bound)
+                ..RateWindow::new(rate, rate, bound, report.cpu_ceiling_hz)
             }
         };
         if w.empty {
             report.advice = empty_window_advice(case, lp, &report, rate, &w, cpu.map(|c| c.1));
         } else {
             report.window_hz = Some([rate, high]);
+            if let Some(pr) = &report.precision
+                && w.high_bound.is_coefficients()
+                && let Some(o) = &pr.other_structure
+            {
+                let text = o.advice(&pr.structure);
+                report.notes.push(text);
+            }
         }
         report.window = Some(w);
     }
     report
 }
 
-/// Rows grouped by (method, delay) in grid order, each sorted by rate.
+/// Rows grouped by (method, hold, delay) in grid order, each sorted by rate.
 fn series_of(rows: &[SweepRow]) -> Vec<Vec<&SweepRow>> {
     let mut series: Vec<Vec<&SweepRow>> = Vec::new();
     for r in rows {
         match series.last_mut() {
-            Some(s) if s[0].point.method == r.point.method && s[0].point.delay == r.point.delay => {
+            Some(s)
+                if s[0].point.method == r.point.method
+                    && s[0].point.hold == r.point.hold
+                    && s[0].point.delay == r.point.delay =>
+            {
                 s.push(r)
             }
             _ => series.push(vec![r]),
@@ -547,7 +728,7 @@ fn robust_report(
         .par_iter()
         .zip(nominal.par_iter())
         .map(|(s, nominal)| {
-            let (method, delay) = (s[0].point.method, s[0].point.delay);
+            let (method, delay, hold) = (s[0].point.method, s[0].point.delay, s[0].point.hold);
             let grid: Vec<(f64, &Assessment, usize)> = s
                 .iter()
                 .filter_map(|r| {
@@ -564,6 +745,7 @@ fn robust_report(
                     rate_hz: rate,
                     method,
                     delay,
+                    hold,
                 };
                 let c = lp.controller_at(rate, method);
                 let (_, v) =
@@ -573,7 +755,7 @@ fn robust_report(
                     .push((rate, v.assessment.clone(), v.worst));
                 v.assessment
             };
-            let mut rate = slowest_rate_by(method, delay, &coarse, &judge);
+            let mut rate = slowest_rate_by(method, hold, delay, &coarse, &judge);
             // Both answers are brackets of width 1e-4; where the nominal
             // bracket ends above the robust one, its passing end also passes
             // every variant (it lies above the robust answer), so report it:
@@ -645,12 +827,13 @@ fn robust_report(
 /// The recommended method and rate, and the nominal loop's crossover there.
 struct Chosen {
     method: Option<Method>,
+    hold: HoldKind,
     rate_hz: f64,
     crossover_hz: Option<f64>,
 }
 
 /// Precision ceilings for every method with an answer at the design delay
-/// (searched upward from its `f_star` times the headroom, on the nominal
+/// with the recommended hold (searched upward from its `f_star` times the headroom, on the nominal
 /// plant), and the damage at the recommended rate.
 fn precision_report(
     case: &Case,
@@ -661,6 +844,7 @@ fn precision_report(
     observer: &dyn SearchObserver,
 ) -> PrecisionReport {
     let (recommended_method, recommended_rate) = (chosen.method, chosen.rate_hz);
+    let hold = chosen.hold;
     let recommended_crossover_hz = chosen.crossover_hz;
     let Some(arith) = case.arithmetic.as_ref() else {
         unreachable!("precision_report is called only with [arithmetic]")
@@ -681,7 +865,9 @@ fn precision_report(
     for m in case_methods(case) {
         let Some(f_star) = answers
             .iter()
-            .find(|a| a.method == method_label(m) && a.compute_delay == design_delay)
+            .find(|a| {
+                a.method == method_label(m) && a.hold == hold && a.compute_delay == design_delay
+            })
             .and_then(|a| a.slowest_rate_hz)
         else {
             continue;
@@ -695,12 +881,14 @@ fn precision_report(
             jobs.push((m, from, f));
         }
     }
-    let ceilings = jobs
+    let ceilings: Vec<FormatCeiling> = jobs
         .par_iter()
         .map(|&(m, from, format)| {
             let series: Vec<&SweepRow> = rows
                 .iter()
-                .filter(|r| r.point.method == m && r.point.delay == design_delay)
+                .filter(|r| {
+                    r.point.method == m && r.point.hold == hold && r.point.delay == design_delay
+                })
                 .collect();
             let ceiling = match evaluated.iter().position(|f| *f == format) {
                 None => {
@@ -710,6 +898,7 @@ fn precision_report(
                         rate_hz: Some(case.rates.max_hz.max(from)),
                         above_range: true,
                         limiting: None,
+                        first_failure_hz: None,
                         evaluations: 0,
                     }
                 }
@@ -719,6 +908,7 @@ fn precision_report(
                             rate_hz: rate,
                             method: m,
                             delay: design_delay,
+                            hold,
                         };
                         let a = precision::judge_point(
                             lp,
@@ -762,6 +952,7 @@ fn precision_report(
         rate_hz: recommended_rate,
         method: recommended_method,
         delay: design_delay,
+        hold,
     };
     let at_recommended = arith
         .formats
@@ -782,11 +973,83 @@ fn precision_report(
             }
         })
         .collect();
+    let window_format = arith.formats[0];
+    let lost_at = ceilings
+        .iter()
+        .find(|c| c.method == method_label(recommended_method) && c.format == window_format.name())
+        .filter(|c| c.ceiling.limiting.as_deref() == Some(precision::INTEGRAL_ACTION))
+        .and_then(|c| c.ceiling.first_failure_hz);
+    let other_structure = lost_at.map(|lost_at_hz| {
+        let mut rates: Vec<f64> = rows
+            .iter()
+            .filter(|r| {
+                r.point.method == recommended_method
+                    && r.point.delay == design_delay
+                    && r.point.rate_hz > recommended_rate
+            })
+            .map(|r| r.point.rate_hz)
+            .collect();
+        rates.insert(0, recommended_rate);
+        other_structure_integral(
+            lp,
+            recommended_method,
+            arith.structure,
+            window_format,
+            &rates,
+            lost_at_hz,
+        )
+    });
     PrecisionReport {
         structure: arith.structure.name().into(),
-        window_format: arith.formats[0].name(),
+        window_format: window_format.name(),
         ceilings,
         at_recommended,
+        other_structure,
+    }
+}
+
+/// Whether the structure other than `structure` keeps the design's
+/// integral action in `format` at each of `rates` (ascending, the first
+/// the recommended rate): the rounding alone decides it, so only the
+/// quantized controller is built (no loop evaluation).
+fn other_structure_integral(
+    lp: &PreparedLoop,
+    method: Option<Method>,
+    structure: Structure,
+    format: Format,
+    rates: &[f64],
+    lost_at_hz: f64,
+) -> OtherStructure {
+    let other = match structure {
+        Structure::TransposedDirect => Structure::Sos,
+        Structure::Sos => Structure::TransposedDirect,
+    };
+    let integrators = precision::design_integrators(&lp.controller);
+    let kept = |rate: f64| {
+        lp.controller_at(rate, method)
+            .ok()
+            .and_then(|c| precision::quantize(&c, integrators, other, format, None).ok())
+            .is_some_and(|q| q.damage.integral_kept())
+    };
+    let mut kept_up_to_hz = None;
+    let mut checked = 0;
+    let mut every = true;
+    for &f in rates {
+        checked += 1;
+        if kept(f) {
+            kept_up_to_hz = Some(f);
+        } else {
+            every = false;
+            break;
+        }
+    }
+    OtherStructure {
+        structure: other.name().into(),
+        format: format.name(),
+        lost_at_hz,
+        rates_checked: checked,
+        kept_up_to_hz,
+        kept_at_every_rate: every,
     }
 }
 
@@ -807,23 +1070,25 @@ fn empty_window_advice(
         (case.budget.as_ref(), cycles, report.cpu_ceiling_hz)
         && cpu < rate
     {
+        // Each threshold is rounded toward the side that works (up for a
+        // minimum, down for a maximum), so applied alone it opens the window.
         out.push(format!(
-            "a faster CPU: at least {:.1} MHz at {} % load",
-            rate * cycles / (b.max_load_pct / 100.0) / 1e6,
+            "a faster CPU: at least {} MHz at {} % load",
+            fmt_at_least(rate * cycles / (b.max_load_pct / 100.0) / 1e6),
             b.max_load_pct
         ));
         out.push(format!(
             "a cheaper update: at most {:.0} cycles per update (now {:.0})",
-            (b.max_load_pct / 100.0) * b.cpu_hz / rate,
+            ((b.max_load_pct / 100.0) * b.cpu_hz / rate).floor(),
             cycles
         ));
         out.push(format!(
-            "a higher load limit: {:.1} % would be needed",
-            rate * cycles / b.cpu_hz * 100.0
+            "a higher load limit: at least {} % would be needed",
+            fmt_at_least(rate * cycles / b.cpu_hz * 100.0)
         ));
     }
     if let Some(pr) = &report.precision
-        && window.high_bound.contains("coefficients")
+        && window.high_bound.is_coefficients()
     {
         let wider: Vec<String> = pr
             .ceilings
@@ -838,14 +1103,17 @@ fn empty_window_advice(
             })
             .map(|c| c.format.clone())
             .collect();
+        if let Some(o) = &pr.other_structure {
+            out.push(o.advice(&pr.structure));
+        }
         out.push(if wider.is_empty() {
             format!(
-                "wider coefficients or another structure than {} {}: the rounded controller fails at the recommended rate",
+                "wider coefficients or another structure than {} {}: the rounded controller fails at the rate the spec alone needs",
                 pr.window_format, pr.structure
             )
         } else {
             format!(
-                "a wider number format: {} holds the recommended rate",
+                "a wider number format: {} holds the rate the spec alone needs",
                 wider.join(", ")
             )
         });
@@ -854,7 +1122,9 @@ fn empty_window_advice(
         let answers = report.answers();
         let lim = answers
             .iter()
-            .find(|m| m.method == r.method && m.compute_delay == r.compute_delay)
+            .find(|m| {
+                m.method == r.method && m.hold == r.hold && m.compute_delay == r.compute_delay
+            })
             .and_then(|m| m.limiting.clone())
             .unwrap_or_default();
         out.push(format!(
@@ -863,15 +1133,16 @@ fn empty_window_advice(
     }
     // Only the CPU ceiling is known at every rate; a format's ceiling was
     // searched for the design delay alone.
-    let cpu_bound =
-        report.cpu_ceiling_hz == Some(ceiling) && !window.high_bound.contains("coefficients");
+    let cpu_bound = report.cpu_ceiling_hz == Some(ceiling) && !window.high_bound.is_coefficients();
     if cpu_bound && let Some(b) = case.budget.as_ref() {
         out.extend(other_method_advice(case, lp, report, b, ceiling));
     }
     let answers = report.answers();
+    let rec_hold = report.recommended.as_ref().map(|r| r.hold);
     let shorter: Vec<String> = answers
         .into_iter()
         .filter(|_| cpu_bound)
+        .filter(|m| Some(m.hold) == rec_hold)
         .filter(|m| m.compute_delay < report.design_delay)
         .filter_map(|m| m.slowest_rate_hz.map(|f| (m, f)))
         .filter(|(_, f)| f * case.spec.headroom <= ceiling)
@@ -915,9 +1186,11 @@ fn other_method_advice(
         .map_or(Structure::TransposedDirect, |a| a.structure);
     let integrators = precision::design_integrators(&lp.controller);
     let answers = report.answers();
+    let rec_hold = report.recommended.as_ref().map(|r| r.hold);
     let at_design: Vec<(Method, f64)> = answers
         .iter()
         .filter(|a| a.compute_delay == report.design_delay)
+        .filter(|a| rec_hold.is_none_or(|h| a.hold == h))
         .filter_map(|a| {
             let m = case.methods.iter().find(|m| m.name() == a.method)?;
             Some((*m, a.slowest_rate_hz?))
@@ -941,8 +1214,8 @@ fn other_method_advice(
                     "{} ({:.0} cycles per update): window {} Hz to {} Hz",
                     m.name(),
                     cycles,
-                    fmt_num(low),
-                    fmt_num(high)
+                    fmt_at_least(low),
+                    fmt_at_most(high)
                 )
             })
         })
@@ -953,7 +1226,21 @@ fn other_method_advice(
             opens.join("; ")
         ));
     }
-    let need = ceiling / case.spec.headroom;
+    // With a timer the rate is rounded up to one the timer makes, so the
+    // top that counts is the fastest timer rate under the ceiling.
+    let top = match b.timer_hz {
+        Some(t) if t >= ceiling => {
+            let n = (t / ceiling).ceil().max(1.0);
+            // Guard against rounding in the division (as in the budget).
+            if t / n > ceiling {
+                t / (n + 1.0)
+            } else {
+                t / n
+            }
+        }
+        _ => ceiling,
+    };
+    let need = top / case.spec.headroom;
     let lowest = at_design
         .iter()
         .min_by(|a, b| a.1.total_cmp(&b.1))
@@ -971,6 +1258,48 @@ fn other_method_advice(
     };
     Some(format!(
         "a method with a lower f_star: at most {} Hz would fit the CPU ceiling with the headroom ({lowest}{untried})",
-        fmt_num(need)
+        fmt_at_most(need)
     ))
+}
+
+/// Why the recommended hold: the cheapest passing one at the design delay
+/// (lowest `f_star`, ties to the first listed), set against the best
+/// `f_star` of every other hold kind the case lists.
+fn hold_basis(
+    case: &Case,
+    answers: &[SlowestRate],
+    method: &str,
+    hold: HoldKind,
+    f_star: f64,
+    design_delay: f64,
+) -> String {
+    if case.holds.len() < 2 {
+        return format!("{hold}: the only hold kind the case lists");
+    }
+    let others: Vec<String> = case
+        .holds
+        .iter()
+        .filter(|&&h| h != hold)
+        .map(|&h| {
+            let best = answers
+                .iter()
+                .filter(|a| a.hold == h && a.compute_delay == design_delay)
+                .filter_map(|a| a.slowest_rate_hz.map(|f| (a, f)))
+                .min_by(|a, b| a.1.total_cmp(&b.1));
+            match best {
+                Some((a, f)) if f == f_star => format!(
+                    "{h} ties at {} Hz ({}) but is listed later",
+                    fmt_num(f),
+                    a.method
+                ),
+                Some((a, f)) => format!("{h} needs {} Hz ({})", fmt_num(f), a.method),
+                None => format!("{h} meets the spec with no method up to max_hz"),
+            }
+        })
+        .collect();
+    format!(
+        "{hold}: the lowest slowest rate at delay {design_delay}, {} Hz with {method}; {}",
+        fmt_num(f_star),
+        others.join("; ")
+    )
 }

@@ -14,6 +14,7 @@
 //! involved and output is identical on every machine.
 
 mod canvas;
+mod palette;
 mod render;
 mod scale;
 mod style;
@@ -63,7 +64,9 @@ pub enum PlotError {
     #[error("embedded chart font could not be read: {0}")]
     Font(String),
     /// Creating, renaming or removing a file failed.
-    #[error("cannot write {}: {source}", path.display())]
+    // The io error is the `source`, not in the message: a chain printer
+    // would print it twice otherwise.
+    #[error("cannot write {}", path.display())]
     Io {
         path: PathBuf,
         #[source]
@@ -379,6 +382,27 @@ pub fn render_rgb(fig: &Figure) -> Result<(u32, u32, Vec<u8>), PlotError> {
     Ok((w, h, canvas.pixels().to_vec()))
 }
 
+/// Draw `fig` and encode it as PNG in memory (the bytes a report embeds
+/// are the bytes written, never a file read back). `name` is only used in
+/// an encoder error.
+pub fn render_png_bytes(fig: &Figure, name: &Path) -> Result<Vec<u8>, PlotError> {
+    use image::ImageEncoder;
+    let canvas = render::render(fig)?;
+    let mut out = Vec::new();
+    image::codecs::png::PngEncoder::new(&mut out)
+        .write_image(
+            canvas.pixels(),
+            canvas.width(),
+            canvas.height(),
+            image::ColorType::Rgb8,
+        )
+        .map_err(|e| PlotError::Encode {
+            path: name.to_path_buf(),
+            message: e.to_string(),
+        })?;
+    Ok(out)
+}
+
 /// Draw `fig` and write it to `path` as PNG.
 ///
 /// The image is encoded into a temporary file in the same directory and
@@ -425,19 +449,17 @@ fn temp_path(path: &Path) -> PathBuf {
     }
 }
 
-/// Encode the canvas as PNG at `path` through plotters' bitmap backend.
+/// Encode the canvas as a palette PNG at `path` (see `palette`: the
+/// charts' flat colours kept exactly, a fifth of the size of RGB).
 fn encode_png(canvas: &canvas::Canvas, path: &Path) -> Result<(), PlotError> {
-    use plotters::backend::DrawingBackend;
-    use plotters::prelude::BitMapBackend;
-
-    let (w, h) = (canvas.width(), canvas.height());
-    let enc = |e: &dyn std::fmt::Display| PlotError::Encode {
+    let bytes = palette::encode_indexed(canvas.width(), canvas.height(), canvas.pixels()).map_err(
+        |message| PlotError::Encode {
+            path: path.to_path_buf(),
+            message,
+        },
+    )?;
+    std::fs::write(path, bytes).map_err(|source| PlotError::Io {
         path: path.to_path_buf(),
-        message: e.to_string(),
-    };
-    let mut backend = BitMapBackend::new(path, (w, h));
-    backend
-        .blit_bitmap((0, 0), (w, h), canvas.pixels())
-        .map_err(|e| enc(&e))?;
-    backend.present().map_err(|e| enc(&e))
+        source,
+    })
 }

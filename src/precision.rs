@@ -38,6 +38,10 @@ use crate::feasibility::{Assessment, UNSTABLE_SLACK, assess};
 use crate::poly::{C64, Poly};
 use crate::transfer::{Controller, DiscreteTransfer, Transfer};
 
+/// The limiting-figure name of a rounded controller that lost the
+/// design's integral action (a pole at z = 1 rounded off it).
+pub const INTEGRAL_ACTION: &str = "integral_action";
+
 /// A number format for the stored coefficients.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 pub enum Format {
@@ -121,6 +125,7 @@ impl FromStr for Structure {
         match s {
             "transposed-direct" => Ok(Structure::TransposedDirect),
             "sos" => Ok(Structure::Sos),
+            "df2t" => Err("structure `df2t` is now called `transposed-direct`".to_string()), // old name
             _ => Err(format!(
                 "unknown structure `{s}`; expected \"transposed-direct\" or \"sos\""
             )),
@@ -186,7 +191,7 @@ impl Damage {
     /// change what the controller is, whatever the loop figures say.
     pub fn structural_failure(&self) -> Option<&'static str> {
         if self.integrators_after < self.integrators {
-            Some("integral_action")
+            Some(INTEGRAL_ACTION)
         } else if self.integrators_after > self.integrators {
             Some("pole_on_z1")
         } else if self.new_unstable_poles > 0 {
@@ -239,15 +244,17 @@ pub fn realize(
             })
         }
         Structure::Sos => {
-            let mut poles =
-                c.transfer.denominator
-                    .roots()
-                    .ok_or("the controller's poles could not be found")?;
+            let mut poles = c
+                .transfer
+                .denominator
+                .roots()
+                .ok_or("the controller's poles could not be found")?;
             snap_to_one(&mut poles, integrators);
-            let zeros =
-                c.transfer.numerator
-                    .roots()
-                    .ok_or("the controller's zeros could not be found")?;
+            let zeros = c
+                .transfer
+                .numerator
+                .roots()
+                .ok_or("the controller's zeros could not be found")?;
             let gain = c.transfer.numerator.leading() / c.transfer.denominator.leading();
             // Integrators get sections of their own (`1 - q` or
             // `1 - 2q + q^2`), whose coefficients every format holds
@@ -523,7 +530,7 @@ pub fn quantize(
     // roots come from the quadratic formula on its own coefficients, and
     // the gain errors are measured against the unrounded sections, so the
     // figures measure the rounding alone (not the root finder's ~1e-8
-    // splitting of repeated roots when the sections were formed). In df2t
+    // splitting of repeated roots when the sections were formed). In transposed-direct
     // the design's integrators, which root finding returns split around
     // z = 1, are placed exactly at 1, and so are the rounded controller's
     // (counted exactly by `poles_at_one`).
@@ -536,14 +543,16 @@ pub fn quantize(
             transfer(&exact, c.period_s),
         ),
         _ => {
-            let mut p0 =
-                c.transfer.denominator
-                    .roots()
-                    .ok_or("the controller's poles could not be found")?;
-            let mut p1 =
-                q.transfer.denominator
-                    .roots()
-                    .ok_or("the rounded controller's poles could not be found")?;
+            let mut p0 = c
+                .transfer
+                .denominator
+                .roots()
+                .ok_or("the controller's poles could not be found")?;
+            let mut p1 = q
+                .transfer
+                .denominator
+                .roots()
+                .ok_or("the rounded controller's poles could not be found")?;
             snap_to_one(&mut p0, integrators);
             snap_to_one(&mut p1, integrators_after);
             (
@@ -717,11 +726,11 @@ fn max_shift(a: &[C64], b: &[C64]) -> f64 {
 pub fn design_integrators(controller: &Controller) -> usize {
     match controller {
         Controller::Continuous(c) => c.denominator.zero_root_count(),
-        Controller::Discrete(d) => {
-            d.transfer.denominator
-                .roots()
-                .map_or(0, |r| r.iter().filter(|p| (*p - 1.0).norm() < 1e-6).count())
-        }
+        Controller::Discrete(d) => d
+            .transfer
+            .denominator
+            .roots()
+            .map_or(0, |r| r.iter().filter(|p| (*p - 1.0).norm() < 1e-6).count()),
     }
 }
 

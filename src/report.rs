@@ -8,12 +8,13 @@
 
 use std::path::{Path, PathBuf};
 
-use crate::case::Case;
+use crate::case::{Case, Written};
+use crate::charts::Chart;
 use crate::error::Error;
 use crate::evaluate::Figures;
 use crate::outputs::write_atomic;
 use crate::pick::{PickReport, Recommended};
-use crate::poly::Poly;
+use crate::poly::{C64, Poly};
 use crate::summary::fmt_num;
 use crate::transfer::{Controller, Transfer};
 
@@ -30,13 +31,23 @@ enum Block {
     List(Vec<String>),
     /// Header row, then body rows.
     Table(Vec<String>, Vec<Vec<String>>),
-    /// Relative path (Markdown) and file to embed (HTML), with a caption.
+    /// Relative path (Markdown) and the PNG bytes to embed (HTML), with a
+    /// caption.
     Image {
         rel: String,
-        file: PathBuf,
+        png: Vec<u8>,
         caption: String,
     },
+    /// The box under the title: (label, text) rows.
+    Summary(Vec<(String, String)>),
 }
+
+/// The caution's first line: it opens the caution at the end of the
+/// report and stands alone in the summary box under the title.
+pub const CAUTION_LINE: &str = "These results are model-based: confirm them on the hardware, with protective limits in place, before relying on them.";
+
+/// The rest of the caution, after [`CAUTION_LINE`].
+const CAUTION_REST: &str = "The limits that protect the machine (current, voltage and position limits, watchdogs) must be in place for the first runs, and the codes, standards and licensed engineering practice that apply to the application must be followed.";
 
 /// Write `report.md` and `report.html` into `out_dir` and return the path
 /// of `report.md`. `charts` are the files from
@@ -46,7 +57,7 @@ pub fn write_report(
     out_dir: &Path,
     case: &Case,
     report: &PickReport,
-    charts: &[PathBuf],
+    charts: &[Chart],
 ) -> Result<PathBuf, Error> {
     let blocks = blocks(out_dir, case, report, charts)?;
     let md_path = out_dir.join(REPORT_MD);
@@ -58,10 +69,36 @@ pub fn write_report(
 
 // ------------------------------------------------------------- content
 
-/// A polynomial in `var`, descending powers. Coefficients are the model's
-/// own inputs, so they are printed exactly (shortest round-trip form), not
-/// rounded like the results.
-fn poly_text(p: &Poly, var: &str) -> String {
+/// A number in engineering notation, 4 significant digits with trailing
+/// zeros dropped: the exponent is a multiple of 3 (`400e-6`, `48.5e-3`,
+/// `1.013e24`), none for 1 <= |v| < 1000. For coefficients the report
+/// computed (expanded products), whose full digits mean nothing.
+fn eng(v: f64) -> String {
+    if !v.is_finite() || v == 0.0 {
+        return format!("{v}");
+    }
+    let mut exp3 = (v.abs().log10() / 3.0).floor() as i32 * 3;
+    let mut m = v / 10f64.powi(exp3);
+    // 4 significant digits; rounding can carry the mantissa to 1000.
+    let decimals = |m: f64| (3 - m.abs().log10().floor() as i32).clamp(0, 3) as usize;
+    let mut text = format!("{m:.*}", decimals(m));
+    if text.trim_start_matches('-').starts_with("1000") {
+        exp3 += 3;
+        m /= 1000.0;
+        text = format!("{m:.*}", decimals(m));
+    }
+    if text.contains('.') {
+        text = text.trim_end_matches('0').trim_end_matches('.').to_string();
+    }
+    if exp3 == 0 {
+        text
+    } else {
+        format!("{text}e{exp3}")
+    }
+}
+
+/// A polynomial in `var`, descending powers, coefficients by `numerator`.
+fn poly_text_with(p: &Poly, var: &str, num: &dyn Fn(f64) -> String) -> String {
     let d = p.descending();
     let n = d.len().saturating_sub(1);
     let mut out = String::new();
@@ -73,14 +110,18 @@ fn poly_text(p: &Poly, var: &str) -> String {
         let sign = if c < 0.0 { "-" } else { "+" };
         let mag = c.abs();
         let term = match power {
-            0 => format!("{mag}"),
+            0 => num(mag),
             _ => {
                 let v = if power == 1 {
                     var.to_string()
                 } else {
                     format!("{var}^{power}")
                 };
-                if mag == 1.0 { v } else { format!("{mag}*{v}") }
+                if mag == 1.0 {
+                    v
+                } else {
+                    format!("{}*{v}", num(mag))
+                }
             }
         };
         if out.is_empty() {
@@ -95,20 +136,268 @@ fn poly_text(p: &Poly, var: &str) -> String {
     if out.is_empty() { "0".into() } else { out }
 }
 
+/// A polynomial with its coefficients exactly as stored (shortest
+/// round-trip form).
+#[cfg(test)]
+fn poly_text(p: &Poly, var: &str) -> String {
+    poly_text_with(p, var, &|v| format!("{v}"))
+}
+
 /// A transfer function as `num / (den)`, or just `numerator` over a unit
-/// denominator.
-fn tf_text(tf: &Transfer, var: &str) -> String {
-    let num = poly_text(&tf.numerator, var);
+/// denominator, coefficients by `num_fmt`.
+fn tf_text_with(tf: &Transfer, var: &str, num_fmt: &dyn Fn(f64) -> String) -> String {
+    let num = poly_text_with(&tf.numerator, var, num_fmt);
     let d = tf.denominator.descending();
     if d.len() == 1 && d[0] == 1.0 {
         return num;
     }
-    let num = if tf.numerator.descending().iter().filter(|c| **c != 0.0).count() > 1 {
+    let num = if tf
+        .numerator
+        .descending()
+        .iter()
+        .filter(|c| **c != 0.0)
+        .count()
+        > 1
+    {
         format!("({num})")
     } else {
         num
     };
-    format!("{num} / ({})", poly_text(&tf.denominator, var))
+    format!(
+        "{num} / ({})",
+        poly_text_with(&tf.denominator, var, num_fmt)
+    )
+}
+
+#[cfg(test)]
+fn tf_text(tf: &Transfer, var: &str) -> String {
+    tf_text_with(tf, var, &|v| format!("{v}"))
+}
+
+/// Roots as written in a case file (`-3+4j`), shortest round-trip form.
+fn roots_as_written(v: &[C64]) -> String {
+    if v.is_empty() {
+        return "none".into();
+    }
+    v.iter()
+        .map(|c| {
+            if c.im == 0.0 {
+                format!("{}", c.re)
+            } else {
+                let sign = if c.im < 0.0 { '-' } else { '+' };
+                format!("{}{sign}{}j", c.re, c.im.abs())
+            }
+        })
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// One block of the loop as the case wrote it, then (for anything but a
+/// single expression that needs no expanding) the expanded transfer
+/// function in engineering notation.
+fn block_lines(name: &str, written: Option<&Written>, tf: &Transfer, var: &str) -> String {
+    let expanded = tf_text_with(tf, var, &eng);
+    let as_written = match written {
+        None => return format!("{name} = `1` (no sensor given: a unit sensor)"),
+        Some(Written::Expression(text)) => format!("{name} = `{}`", text.trim()),
+        Some(Written::ZerosPolesGain { zeros, poles, gain }) => format!(
+            "{name}: zeros `{}`, poles `{}`, gain `{gain}` (rad/s)",
+            roots_as_written(zeros),
+            roots_as_written(poles)
+        ),
+        Some(Written::Pid {
+            kp,
+            ki,
+            kd,
+            derivative_filter_hz,
+        }) => format!(
+            "{name}: PID with kp = `{kp}`, ki = `{ki}`, kd = `{kd}`{}",
+            derivative_filter_hz.map_or(String::new(), |f| format!(
+                ", derivative filter at `{f}` Hz"
+            ))
+        ),
+        Some(Written::InZ {
+            numerator: num,
+            denominator: den,
+            rate_hz,
+        }) => format!(
+            "{name}: numerator `{}`, denominator `{}` (descending powers of z) at {} Hz",
+            num.iter()
+                .map(|v| format!("{v}"))
+                .collect::<Vec<_>>()
+                .join(", "),
+            den.iter()
+                .map(|v| format!("{v}"))
+                .collect::<Vec<_>>()
+                .join(", "),
+            fmt_num(*rate_hz)
+        ),
+    };
+    // An expression that is already the expanded form needs no repeat.
+    if let Some(Written::Expression(text)) = written
+        && text.trim() == tf_text_with(tf, var, &|v| format!("{v}"))
+    {
+        return as_written;
+    }
+    if matches!(written, Some(Written::InZ { .. })) {
+        return as_written;
+    }
+    format!("{as_written}; expanded: `{expanded}`")
+}
+
+/// How the report names the rate it gives figures at: the recommended
+/// rate, or (when the window is empty) only the rate the spec alone needs.
+fn rate_name(report: &PickReport) -> &'static str {
+    if report.window.as_ref().is_some_and(|w| w.empty) {
+        "the rate the spec alone needs"
+    } else {
+        "the recommended rate"
+    }
+}
+
+/// A rate in kHz with Hz beside it, and its period in µs; a slow loop
+/// (under 10 Hz, where kHz and µs would need exponents) in Hz and s.
+fn rate_and_period(rate_hz: f64, period_s: f64) -> String {
+    if rate_hz < 10.0 {
+        return format!(
+            "**{} Hz**, period **{}**",
+            fmt_num(rate_hz),
+            duration(period_s)
+        );
+    }
+    format!(
+        "**{} kHz** ({} Hz), period **{}**",
+        fmt_num(rate_hz / 1e3),
+        fmt_num(rate_hz),
+        duration(period_s)
+    )
+}
+
+/// A time in µs, or in s from 0.1 s up (where µs would need an exponent).
+fn duration(seconds: f64) -> String {
+    if seconds >= 0.1 {
+        format!("{} s", fmt_num(seconds))
+    } else {
+        format!("{} µs", fmt_num(seconds * 1e6))
+    }
+}
+
+/// The CPU load beside its limit.
+fn load_text(case: &Case, load: Option<f64>) -> String {
+    match (load, case.budget.as_ref()) {
+        (Some(l), Some(b)) => format!(
+            "{} % against a limit of {} %{}",
+            fmt_num(l),
+            b.max_load_pct,
+            if l > b.max_load_pct {
+                ": over the limit"
+            } else {
+                ""
+            }
+        ),
+        (None, Some(_)) => "unknown (no cycle count for this controller)".into(),
+        (_, None) => "no CPU budget given".into(),
+    }
+}
+
+/// The box under the title: the answer, its method, delay and load, the
+/// main warning and the caution's first line.
+fn summary_box(case: &Case, report: &PickReport) -> Block {
+    let mut rows: Vec<(String, String)> = Vec::new();
+    let empty = report.window.as_ref().is_some_and(|w| w.empty);
+    match &report.recommended {
+        Some(rec) if !empty => {
+            rows.push(("Answer".into(), rate_and_period(rec.rate_hz, rec.period_s)))
+        }
+        Some(rec) => {
+            rows.push((
+                "Answer".into(),
+                "**none**: no rate meets both the spec and the upper bound".into(),
+            ));
+            rows.push((
+                "The spec alone needs".into(),
+                rate_and_period(rec.rate_hz, rec.period_s),
+            ));
+        }
+        None if !report.design_failures.is_empty() => rows.push((
+            "Answer".into(),
+            "**none**: the continuous design already fails the spec".into(),
+        )),
+        None => rows.push((
+            "Answer".into(),
+            "**none**: no method meets the spec at the fastest swept rate".into(),
+        )),
+    }
+    if let Some(rec) = &report.recommended {
+        rows.push((
+            "Method".into(),
+            if rec.method == "given-in-z" {
+                "the controller given in z, at its own rate".into()
+            } else {
+                format!("`{}`", rec.method)
+            },
+        ));
+        // The hold kind goes here once a case can choose one.
+        rows.push((
+            "Computation delay".into(),
+            format!(
+                "{} of a period ({}) from sample to output",
+                fmt_num(rec.compute_delay),
+                duration(rec.compute_delay * rec.period_s)
+            ),
+        ));
+        rows.push(("CPU load".into(), load_text(case, rec.cpu_load_pct)));
+    }
+    rows.push(("Warning".into(), main_warning(case, report)));
+    rows.push((
+        "Caution".into(),
+        format!("{CAUTION_LINE} (Full caution at the end.)"),
+    ));
+    Block::Summary(rows)
+}
+
+/// The one warning the reader must see first.
+fn main_warning(case: &Case, report: &PickReport) -> String {
+    if !report.design_failures.is_empty() {
+        return "**the continuous design already fails the spec**: no sampling rate can meet it."
+            .into();
+    }
+    if report.recommended.is_none() {
+        return "**no method meets the spec** at the fastest swept rate.".into();
+    }
+    if let Some(w) = report.window.as_ref().filter(|w| w.empty) {
+        return if w.high_hz < w.low_hz {
+            format!(
+                "**no rate window**: the spec needs at least {} Hz but the {} allows at most {} Hz (see Rate window for what would open it).",
+                fmt_num(w.low_hz),
+                w.high_bound,
+                fmt_num(w.high_hz)
+            )
+        } else {
+            format!(
+                "**no rate window**: the spec needs at least {} Hz, but the {} (see Rate window).",
+                fmt_num(w.low_hz),
+                w.high_bound
+            )
+        };
+    }
+    let ranged: Vec<&str> = case
+        .params
+        .iter()
+        .filter(|p| p.min < p.max)
+        .map(|p| p.name.as_str())
+        .collect();
+    if report.robust.is_none() && !ranged.is_empty() {
+        return format!(
+            "**nominal figures only**: the case gives ranges for {} but no `[uncertainty]`, so no variant was checked.",
+            ranged
+                .iter()
+                .map(|n| format!("`{n}`"))
+                .collect::<Vec<_>>()
+                .join(", ")
+        );
+    }
+    "none beyond the caution.".into()
 }
 
 /// The figures of the loop model, in report order: key, label with unit,
@@ -169,7 +458,13 @@ fn figure_rows(f: &Figures) -> Vec<(&'static str, &'static str, Option<f64>, &'s
             "delay_margin_s",
             "delay margin (s)",
             f.delay_margin_s,
-            "infinite",
+            f.delay_margin_missing(),
+        ),
+        (
+            "delay_margin_estimate_s",
+            "delay margin estimate (s)",
+            f.delay_margin_estimate_s,
+            "inf",
         ),
         (
             "sensitivity_peak",
@@ -192,10 +487,12 @@ fn slack_text(s: f64) -> String {
     }
 }
 
-/// The answer in one sentence.
-fn answer(report: &PickReport, rec: &Recommended) -> String {
+/// The answer in one sentence; `lead` opens it (`**Answer:** run` or,
+/// for an empty window, `The spec alone would need`).
+fn answer(case: &Case, report: &PickReport, rec: &Recommended, lead: &str) -> String {
     let load = match rec.cpu_load_pct {
-        Some(l) => format!("CPU load **{} %**", fmt_num(l)),
+        Some(_) => format!("CPU load {}", load_text(case, rec.cpu_load_pct)),
+        None if case.budget.is_some() => "CPU load unknown".into(),
         None => "no CPU budget given, so no load".into(),
     };
     let timer = rec
@@ -204,22 +501,25 @@ fn answer(report: &PickReport, rec: &Recommended) -> String {
         .unwrap_or_default();
     if rec.method == "given-in-z" {
         return format!(
-            "**Answer:** run the controller given in z at its own rate, **{} Hz** (period **{} s**{timer}), with the output applied {} of a period after sampling; {load}. A controller given in z runs only at its own rate, so no headroom is applied.",
+            "{lead} the controller given in z at its own rate, **{} Hz** (period **{} s**{timer}), with the output applied {} periods after sampling through a {} hold; {load}. A controller given in z runs only at its own rate, so no headroom is applied.",
             fmt_num(rec.rate_hz),
             fmt_num(rec.period_s),
             fmt_num(rec.compute_delay),
+            rec.hold,
         );
     }
     format!(
-        "**Answer:** run the controller discretized by `{}` at **{} Hz** (period **{} s**{timer}) with the output applied {} of a period after sampling; {load}. This is the slowest {}, {} Hz, times the headroom {}.",
+        "{lead} the controller discretized by `{}` at **{} Hz** (period **{} s**{timer}) with the output applied {} periods after sampling through a **{}** hold ({}); {load}. This is the slowest {}, {} Hz, times the headroom {}.",
         rec.method,
         fmt_num(rec.rate_hz),
         fmt_num(rec.period_s),
         fmt_num(rec.compute_delay),
+        rec.hold,
+        rec.hold_basis,
         if report.robust.is_some() {
-            "rate passing on every plant variant"
+            "rate passing on every plant variant (robust f*)"
         } else {
-            "passing rate"
+            "passing rate (f*)"
         },
         fmt_num(rec.slowest_rate_hz),
         fmt_num(report.headroom),
@@ -230,27 +530,49 @@ fn blocks(
     out_dir: &Path,
     case: &Case,
     report: &PickReport,
-    charts: &[PathBuf],
+    charts: &[Chart],
 ) -> Result<Vec<Block>, Error> {
     let models = case.nominal()?;
-    let mut b = vec![Block::Heading(1, report.title.clone())];
+    let written = case.written();
+    let mut b = vec![
+        Block::Heading(1, report.title.clone()),
+        summary_box(case, report),
+    ];
+    let at_rate = rate_name(report);
+    let empty = report.window.as_ref().is_some_and(|w| w.empty);
 
     b.push(Block::Heading(2, "The loop".into()));
     let mut lines = vec![
-        format!("plant P(s) = `{}`", tf_text(&models.plant, "s")),
-        format!("sensor H(s) = `{}`", tf_text(&models.sensor, "s")),
+        block_lines("plant P(s)", Some(&written.plant), &models.plant, "s"),
+        block_lines("sensor H(s)", written.sensor.as_ref(), &models.sensor, "s"),
     ];
     lines.push(match &models.controller {
         Controller::Continuous(c) => format!(
-            "controller C(s) = `{}`, discretized by each method the case lists",
-            tf_text(c, "s")
+            "{}; discretized by each method the case lists",
+            block_lines("controller C(s)", Some(&written.controller), c, "s")
         ),
-        Controller::Discrete(d) => format!(
-            "controller C(z) = `{}`, given in z at {} Hz",
-            tf_text(&d.transfer, "z"),
-            fmt_num(1.0 / d.period_s)
+        Controller::Discrete(d) => block_lines(
+            "controller C(z)",
+            Some(&written.controller),
+            &d.transfer,
+            "z",
         ),
     });
+    if !case.params.is_empty() {
+        lines.push(format!(
+            "parameters: {}",
+            case.params
+                .iter()
+                .map(|p| if p.min < p.max {
+                    // The case's own numbers, as written.
+                    format!("`{}` = {} (from {} to {})", p.name, p.nominal, p.min, p.max)
+                } else {
+                    format!("`{}` = {}", p.name, p.nominal)
+                })
+                .collect::<Vec<_>>()
+                .join(", ")
+        ));
+    }
     b.push(Block::List(lines));
 
     b.push(Block::Heading(2, "The answer".into()));
@@ -274,15 +596,22 @@ fn blocks(
         ));
     }
     match (&report.recommended, &report.window) {
-        (Some(rec), Some(w)) if w.empty => b.push(Block::Para(format!(
-            "**No rate meets both the spec and the upper bound:** the spec needs at least {} Hz (`{}`, with headroom) but the {} allows at most {} Hz. The spec alone would be met by: {}",
-            fmt_num(w.low_hz),
-            rec.method,
-            w.high_bound,
-            fmt_num(w.high_hz),
-            answer(report, rec).trim_start_matches("**Answer:** ")
-        ))),
-        (Some(rec), _) => b.push(Block::Para(answer(report, rec))),
+        (Some(rec), Some(w)) if w.empty => {
+            b.push(Block::Para(format!(
+                "**No rate meets both the spec and the upper bound:** the spec needs at least {} Hz (`{}`, with headroom) but the {} allows at most {} Hz.",
+                fmt_num(w.low_hz),
+                rec.method,
+                w.high_bound,
+                fmt_num(w.high_hz),
+            )));
+            b.push(Block::Para(answer(
+                case,
+                report,
+                rec,
+                "The spec alone would need",
+            )));
+        }
+        (Some(rec), _) => b.push(Block::Para(answer(case, report, rec, "**Answer:** run"))),
         (None, _) if report.design_failures.is_empty() => b.push(Block::Para(
             "**No method meets the spec** at the fastest swept rate; the table of methods below names the limiting figure of each.".into(),
         )),
@@ -290,12 +619,14 @@ fn blocks(
     }
 
     if let Some(rec) = &report.recommended {
+        let heading = if empty {
+            "Figures at the rate the spec alone needs"
+        } else {
+            "Figures at the recommended rate"
+        };
         b.push(Block::Heading(
             2,
-            format!(
-                "Figures at the recommended rate ({} Hz)",
-                fmt_num(rec.rate_hz)
-            ),
+            format!("{heading} ({} Hz)", fmt_num(rec.rate_hz)),
         ));
         match &rec.figures {
             Some(f) => {
@@ -355,20 +686,34 @@ fn blocks(
                     "Slack is the distance to the limit as a share of the limit; a gain-margin limit bounds the margin's size.".into(),
                 ));
             }
-            None => b.push(Block::Para(
-                "The loop at the recommended rate has no figures (it is not stable).".into(),
-            )),
+            None => b.push(Block::Para(format!(
+                "The loop at {at_rate} has no figures (it is not stable)."
+            ))),
         }
     }
 
-    b.push(Block::Heading(2, "Slowest passing rate per method".into()));
+    let robust = report.robust.is_some();
+    b.push(Block::Heading(
+        2,
+        if robust {
+            "Slowest passing rate per method, nominal plant"
+        } else {
+            "Slowest passing rate per method"
+        }
+        .into(),
+    ));
     b.push(Block::Table(
         vec![
             "method".into(),
+            "hold".into(),
             "computation delay (of T)".into(),
-            "f* (Hz)".into(),
+            if robust {
+                "nominal f* (Hz)".into()
+            } else {
+                "f* (Hz)".into()
+            },
             "limiting figure".into(),
-            "islands (Hz, never recommended)".into(),
+            "islands (Hz, never the answer)".into(),
         ],
         report
             .methods
@@ -387,6 +732,7 @@ fn blocks(
                     .join(", ");
                 vec![
                     m.method.clone(),
+                    m.hold.name().into(),
                     fmt_num(m.compute_delay),
                     f,
                     m.limiting.clone().unwrap_or_else(|| "-".into()),
@@ -399,9 +745,11 @@ fn blocks(
             })
             .collect(),
     ));
-    b.push(Block::Para(
-        "f* is the lowest rate from which every faster rate up to the top of the sweep meets the spec; `<=` marks a method that passes over the whole sweep.".into(),
-    ));
+    b.push(Block::Para(if robust {
+        "f* is the lowest rate from which every faster rate up to the top of the sweep meets the spec: nominal f* on the nominal plant, robust f* on every plant variant (the next table; the answer rests on it). `<=` marks a method that passes over the whole sweep.".into()
+    } else {
+        "f* is the lowest rate from which every faster rate up to the top of the sweep meets the spec; `<=` marks a method that passes over the whole sweep.".into()
+    }));
 
     if let Some(rb) = &report.robust {
         b.push(Block::Heading(
@@ -440,6 +788,7 @@ fn blocks(
         b.push(Block::Table(
             vec![
                 "method".into(),
+                "hold".into(),
                 "computation delay (of T)".into(),
                 "robust f* (Hz)".into(),
                 "nominal f* (Hz)".into(),
@@ -451,6 +800,7 @@ fn blocks(
                 .map(|m| {
                     vec![
                         m.rate.method.clone(),
+                        m.rate.hold.name().into(),
                         fmt_num(m.rate.compute_delay),
                         m.rate.slowest_rate_hz.map_or("none".into(), fmt_num),
                         m.nominal_slowest_rate_hz.map_or("none".into(), fmt_num),
@@ -470,7 +820,7 @@ fn blocks(
     if let Some(pr) = &report.precision {
         b.push(Block::Heading(2, "Coefficient precision".into()));
         b.push(Block::Para(format!(
-            "The controller's coefficients rounded as stored on the target, in the `{}` structure; fixed-point formats take the fewest integer bits that hold every coefficient. A format passes at a rate when no integrator is lost, no pole rounds onto z = 1 or out of the unit circle, and the loop with the rounded controller meets the spec. Its ceiling is the fastest rate up to which it passes from the recommended rate (each method: from its own f* times the headroom).",
+            "The controller's coefficients rounded as stored on the target, in the `{}` structure; fixed-point formats take the fewest integer bits that hold every coefficient. A format passes at a rate when no integrator is lost, no pole rounds onto z = 1 or out of the unit circle, and the loop with the rounded controller meets the spec. Its ceiling is the fastest rate up to which it passes from {at_rate} (each method: from its own f* times the headroom).",
             pr.structure
         )));
         let method = report.recommended.as_ref().map(|r| r.method.clone());
@@ -481,7 +831,7 @@ fn blocks(
                 "pole error (%)".into(),
                 "DC gain error (%)".into(),
                 "integral action".into(),
-                "passes at the recommended rate".into(),
+                format!("passes at {at_rate}"),
                 "ceiling (Hz)".into(),
             ],
             pr.at_recommended
@@ -572,7 +922,7 @@ fn blocks(
 
     if !charts.is_empty() {
         b.push(Block::Heading(2, "Charts".into()));
-        for c in charts {
+        for Chart { path: c, png } in charts {
             let rel = c
                 .strip_prefix(out_dir)
                 .unwrap_or(c)
@@ -584,8 +934,8 @@ fn blocks(
                 .unwrap_or_default();
             b.push(Block::Image {
                 rel,
-                file: c.clone(),
-                caption: chart_caption(&name).to_string(),
+                png: png.clone(),
+                caption: chart_caption(&name, at_rate, robust),
             });
         }
     }
@@ -593,14 +943,28 @@ fn blocks(
     b.push(Block::Heading(2, "Assumptions".into()));
     let mut assumptions = vec![
         if report.robust.is_some() {
-            "Every figure is computed from the models above: the exact sampled-data loop, with the plant output evaluated between samples; the recommendation rests on the worst plant variant, the figures table on the nominal one beside the worst.".to_string()
+            "Every figure is computed from the models above: the exact sampled-data loop, with the plant output evaluated between samples; the rate rests on the worst plant variant, the figures table gives the nominal one beside the worst.".to_string()
         } else {
             "Every figure is computed from the models above (nominal parameter values): the exact sampled-data loop, with the plant output evaluated between samples.".to_string()
         },
         format!(
-            "The controller's output is applied {} of a period after each sample (the computation delay the recommendation is made at: the largest the case lists).",
+            "The controller's output is applied {} periods after each sample (the computation delay the answer is given at: the largest the case lists).",
             fmt_num(report.design_delay)
         ),
+        match &report.recommended {
+            Some(r) => format!(
+                "The actuator holds each command as a {} hold. {}.",
+                r.hold, r.hold_basis
+            ),
+            None => format!(
+                "Hold kinds evaluated: {}.",
+                case.holds
+                    .iter()
+                    .map(|h| h.name())
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            ),
+        },
         format!(
             "The headroom factor {} on the slowest passing rate is what covers model error, parameter drift and unmodelled dynamics; it is not a guarantee.",
             fmt_num(report.headroom)
@@ -610,47 +974,154 @@ fn blocks(
             fmt_num(case.spec.settling_band_pct)
         ),
     ];
+    if case.plant_delay_s > 0.0 || case.sensor_delay_s > 0.0 {
+        assumptions.push(format!(
+            "Transport delays: {} s at the plant, {} s on the measurement. They are exact in the sampled loop (whole periods as unit delays, the fraction exact) and in the continuous design's loop gain; the continuous design's step and load responses and poles use their Pade [{n}/{n}] approximant.",
+            fmt_num(case.plant_delay_s),
+            fmt_num(case.sensor_delay_s),
+            n = crate::evaluate::TRANSPORT_PADE_ORDER
+        ));
+    }
     assumptions.extend(report.notes.iter().map(|n| format!("Note: {n}.")));
     b.push(Block::List(assumptions));
 
     b.push(Block::Heading(2, "Caution".into()));
-    b.push(Block::Para(
-        "These results are model-based. Confirm them on the hardware, with protective limits in place (current, voltage and position limits, watchdogs), before relying on them, and follow the codes, standards and licensed engineering practice that apply to the application.".into(),
-    ));
+    b.push(Block::Para(format!("{CAUTION_LINE} {CAUTION_REST}")));
     Ok(b)
 }
 
-fn chart_caption(name: &str) -> &'static str {
+/// The caption of a chart; `at_rate` names the rate the report gives
+/// figures at, and with plant variants f* is said to be the robust one.
+fn chart_caption(name: &str, at_rate: &str, robust: bool) -> String {
+    let star = if robust { "robust f*" } else { "f*" };
     match name {
-        crate::charts::FIGURES_VS_RATE => {
-            "Loop figures against the rate for each method, with the limits, each method's f* and the recommended rate."
-        }
-        crate::charts::STEP_RESPONSE => {
-            "Step response between samples (lines) and at the samples (markers): continuous design, recommended rate, f* and a failing slower rate."
-        }
-        crate::charts::LOOP_RESPONSE => {
-            "Loop gain at the recommended rate, with crossover, margins and the Nyquist frequency."
-        }
+        crate::charts::FIGURES_VS_RATE => format!(
+            "Loop figures against the rate for each method (nominal plant), with the limits, each method's {} and {at_rate}.",
+            if robust { "nominal and robust f*" } else { "f*" }
+        ),
+        crate::charts::STEP_RESPONSE => format!(
+            "Step response between samples (lines) and at the samples (markers): continuous design, {at_rate}, {star} and a failing slower rate."
+        ),
+        crate::charts::LOOP_RESPONSE => format!(
+            "Loop gain at {at_rate}, with crossover, margins and the Nyquist frequency."
+        ),
         crate::charts::CPU_BUDGET => {
-            "CPU load against the rate, the budget line and the rate window."
+            "CPU load against the rate, the budget line and the rate window.".into()
         }
         crate::charts::HOLD_APPROXIMATION => {
-            "Where the usual continuous approximations of hold and delay stop agreeing with the exact sampled loop."
+            "Where the usual continuous approximations of hold and delay (a lag and Pade approximants of the hold's low-frequency delay, and the hold's own transfer function by [2/2] Pade) stop agreeing with the exact sampled loop.".into()
         }
-        crate::charts::DISTURBANCE => {
-            "Response to a unit load step at the plant input, at the recommended rate and at f*."
+        crate::charts::HOLD_KINDS => {
+            "Phase margin and overshoot against the rate with each hold kind the case lists, at the recommended method and delay, with each hold's f*.".into()
         }
+        crate::charts::DISTURBANCE => format!(
+            "Response to a unit load step at the plant input, at {at_rate} and at {star}."
+        ),
         crate::charts::PRECISION => {
-            "Controller pole and DC gain error from rounding the coefficients, per number format, against the rate; each format's precision ceiling marked."
+            "Controller pole and DC gain error from rounding the coefficients, per number format, against the rate; each format's precision ceiling marked.".into()
         }
-        _ => "Chart.",
+        _ => "Chart.".into(),
     }
+}
+
+// ------------------------------------------------------------ tables
+
+/// Placeholders a numeric column may hold besides numbers.
+const NOT_A_NUMBER: [&str; 8] = [
+    "-",
+    "none",
+    "infinite",
+    "inf",
+    "unbounded",
+    "fails",
+    "not settled",
+    "not reached",
+];
+
+/// True when a cell reads as a number (`<= 12.5`, `6.908 %` included).
+fn is_number(cell: &str) -> bool {
+    let t = cell.trim();
+    let t = t
+        .strip_prefix("<= ")
+        .or_else(|| t.strip_prefix(">= "))
+        .unwrap_or(t);
+    let t = t.strip_suffix(" %").unwrap_or(t);
+    !t.is_empty() && t.parse::<f64>().is_ok()
+}
+
+/// Per column: right-aligned when every cell is a number or a
+/// placeholder and at least one is a number.
+fn numeric_columns(head: &[String], rows: &[Vec<String>]) -> Vec<bool> {
+    (0..head.len())
+        .map(|j| {
+            let cells: Vec<&str> = rows
+                .iter()
+                .filter_map(|r| r.get(j).map(String::as_str))
+                .collect();
+            cells.iter().any(|c| is_number(c))
+                && cells
+                    .iter()
+                    .all(|c| is_number(c) || NOT_A_NUMBER.contains(&c.trim()))
+        })
+        .collect()
 }
 
 // ------------------------------------------------------------ Markdown
 
 fn md_cell(s: &str) -> String {
     s.replace('|', "\\|")
+}
+
+/// A Markdown table padded to column width, numbers right-aligned, so it
+/// reads as plain text too.
+fn md_table(head: &[String], rows: &[Vec<String>]) -> String {
+    let numeric = numeric_columns(head, rows);
+    let cells = |r: &[String]| -> Vec<String> {
+        (0..head.len())
+            .map(|j| md_cell(r.get(j).map_or("", String::as_str)))
+            .collect()
+    };
+    let head_cells = cells(head);
+    let body: Vec<Vec<String>> = rows.iter().map(|r| cells(r)).collect();
+    let width: Vec<usize> = (0..head.len())
+        .map(|j| {
+            body.iter()
+                .map(|r| r[j].chars().count())
+                .chain([head_cells[j].chars().count(), 3])
+                .max()
+                .unwrap_or(3)
+        })
+        .collect();
+    let line = |r: &[String]| -> String {
+        let padded: Vec<String> = r
+            .iter()
+            .enumerate()
+            .map(|(j, c)| {
+                let pad = " ".repeat(width[j] - c.chars().count());
+                if numeric[j] {
+                    format!("{pad}{c}")
+                } else {
+                    format!("{c}{pad}")
+                }
+            })
+            .collect();
+        format!("| {} |\n", padded.join(" | "))
+    };
+    let mut out = line(&head_cells);
+    let rule: Vec<String> = (0..head.len())
+        .map(|j| {
+            if numeric[j] {
+                format!("{}:", "-".repeat(width[j] - 1))
+            } else {
+                "-".repeat(width[j])
+            }
+        })
+        .collect();
+    out.push_str(&format!("| {} |\n", rule.join(" | ")));
+    for r in &body {
+        out.push_str(&line(r));
+    }
+    out
 }
 
 fn markdown(blocks: &[Block]) -> String {
@@ -668,21 +1139,7 @@ fn markdown(blocks: &[Block]) -> String {
                 out.push('\n');
             }
             Block::Table(head, rows) => {
-                let row = |cells: &[String]| {
-                    format!(
-                        "| {} |\n",
-                        cells
-                            .iter()
-                            .map(|c| md_cell(c))
-                            .collect::<Vec<_>>()
-                            .join(" | ")
-                    )
-                };
-                out.push_str(&row(head));
-                out.push_str(&format!("|{}\n", "---|".repeat(head.len())));
-                for r in rows {
-                    out.push_str(&row(r));
-                }
+                out.push_str(&md_table(head, rows));
                 out.push('\n');
             }
             Block::Image { rel, caption, .. } => {
@@ -691,7 +1148,14 @@ fn markdown(blocks: &[Block]) -> String {
                     .next()
                     .unwrap_or(rel)
                     .trim_end_matches(".png");
-                out.push_str(&format!("![{alt}]({rel})\n\n{caption}\n\n"))
+                // The image links to its own file, for the full size.
+                out.push_str(&format!("[![{alt}]({rel})]({rel})\n\n{caption}\n\n"))
+            }
+            Block::Summary(rows) => {
+                for (label, text) in rows {
+                    out.push_str(&format!("> **{label}:** {text}  \n"));
+                }
+                out.push('\n');
             }
         }
     }
@@ -714,9 +1178,55 @@ fn escape(s: &str) -> String {
     out
 }
 
+/// Wrap every number written with an exponent (`1.234e-5`) in a span
+/// that does not break: browsers otherwise break lines at its hyphen.
+fn keep_numbers_whole(s: &str) -> String {
+    let chars: Vec<char> = s.chars().collect();
+    let mut out = String::with_capacity(s.len());
+    let mut i = 0;
+    while i < chars.len() {
+        let starts = chars[i].is_ascii_digit()
+            && (i == 0 || !(chars[i - 1].is_alphanumeric() || chars[i - 1] == '_'));
+        if !starts {
+            out.push(chars[i]);
+            i += 1;
+            continue;
+        }
+        let mut j = i;
+        while j < chars.len() && (chars[j].is_ascii_digit() || chars[j] == '.') {
+            j += 1;
+        }
+        // An exponent: e, an optional sign, digits.
+        let mut k = j;
+        if k < chars.len() && (chars[k] == 'e' || chars[k] == 'E') {
+            k += 1;
+            if k < chars.len() && (chars[k] == '-' || chars[k] == '+') {
+                k += 1;
+            }
+            let d = k;
+            while k < chars.len() && chars[k].is_ascii_digit() {
+                k += 1;
+            }
+            if k == d {
+                k = j;
+            }
+        } else {
+            k = j;
+        }
+        let token: String = chars[i..k].iter().collect();
+        if k > j {
+            out.push_str(&format!("<span class=\"n\">{token}</span>"));
+        } else {
+            out.push_str(&token);
+        }
+        i = k;
+    }
+    out
+}
+
 /// Escape, then turn `**bold**` and `` `code` `` pairs into tags.
 fn inline(s: &str) -> String {
-    let e = escape(s);
+    let e = keep_numbers_whole(&escape(s));
     let mut out = String::new();
     let mut bold = false;
     let mut code = false;
@@ -768,14 +1278,62 @@ pub fn base64(bytes: &[u8]) -> String {
     out
 }
 
-const CSS: &str = "body{font-family:sans-serif;max-width:1000px;margin:2em auto;padding:0 1em;line-height:1.45;color:#222}\
-table{border-collapse:collapse;margin:1em 0}th,td{border:1px solid #bbb;padding:.3em .6em;text-align:left}\
-th{background:#eee}img{max-width:100%;border:1px solid #ddd}figure{margin:1.5em 0}\
-figcaption{font-size:.9em;color:#555}code{background:#f3f3f3;padding:0 .2em}";
+/// The page's style: readable at phone width (tables scroll inside their
+/// own box, numbers never break), and in print a heading stays with what
+/// follows, a figure with its caption, and a split table repeats its head.
+const CSS: &str = "body{font-family:sans-serif;max-width:1000px;margin:1.5em auto;padding:0 1em;line-height:1.45;color:#222}\
+h1{font-size:1.6em;line-height:1.25}h2{margin-top:1.6em}\
+.summary{border:2px solid #456;border-radius:6px;background:#f4f7fa;padding:.6em 1em;margin:1em 0 1.5em}\
+.summary dl{display:grid;grid-template-columns:max-content 1fr;gap:.25em 1em;margin:0}\
+.summary dt{font-weight:bold}.summary dd{margin:0}\
+.wide{overflow-x:auto;margin:1em 0}\
+table{border-collapse:collapse}th,td{border:1px solid #bbb;padding:.3em .6em;text-align:left;vertical-align:top}\
+th{background:#eee}th.numerator{text-align:right}td.numerator{text-align:right;white-space:nowrap;font-variant-numeric:tabular-nums}\
+.n{white-space:nowrap}\
+img{max-width:100%;height:auto;border:1px solid #ddd}figure{margin:1.5em 0}\
+figcaption{font-size:.9em;color:#555}code{background:#f3f3f3;padding:0 .2em;overflow-wrap:anywhere}\
+@media (max-width:600px){body{margin:.5em auto;padding:0 .6em}.summary dl{grid-template-columns:1fr}.summary dd{margin-bottom:.3em}}\
+@media print{body{max-width:none;margin:0;font-size:10pt}\
+h1,h2,h3{break-after:avoid;page-break-after:avoid}\
+figure,.summary,tr{break-inside:avoid;page-break-inside:avoid}\
+img{max-height:20cm;width:auto}thead{display:table-header-group}\
+.wide{overflow:visible}a{color:inherit;text-decoration:none}}";
+
+/// The `<img>` of one chart, its bytes embedded as a data URI.
+fn embedded_chart(png: &[u8], alt: &str) -> String {
+    format!(
+        "<img alt=\"{}\" src=\"data:image/png;base64,{}\">",
+        escape(alt),
+        base64(png)
+    )
+}
+
+fn html_table(head: &[String], rows: &[Vec<String>]) -> String {
+    let numeric = numeric_columns(head, rows);
+    let class = |j: usize| if numeric[j] { " class=\"num\"" } else { "" };
+    let mut out = String::from("<div class=\"wide\"><table>\n<thead><tr>");
+    for (j, h) in head.iter().enumerate() {
+        out.push_str(&format!("<th{}>{}</th>", class(j), inline(h)));
+    }
+    out.push_str("</tr></thead>\n<tbody>\n");
+    for r in rows {
+        out.push_str("<tr>");
+        for (j, c) in r.iter().enumerate() {
+            out.push_str(&format!(
+                "<td{}>{}</td>",
+                class(j.min(head.len() - 1)),
+                inline(c)
+            ));
+        }
+        out.push_str("</tr>\n");
+    }
+    out.push_str("</tbody>\n</table></div>\n");
+    out
+}
 
 fn html(title: &str, blocks: &[Block]) -> Result<String, Error> {
     let mut out = format!(
-        "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n<title>{}</title>\n<style>{CSS}</style>\n</head>\n<body>\n",
+        "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n<title>{}</title>\n<style>{CSS}</style>\n</head>\n<body>\n",
         escape(title)
     );
     for b in blocks {
@@ -791,32 +1349,25 @@ fn html(title: &str, blocks: &[Block]) -> Result<String, Error> {
                 }
                 out.push_str("</ul>\n");
             }
-            Block::Table(head, rows) => {
-                out.push_str("<table>\n<tr>");
-                for h in head {
-                    out.push_str(&format!("<th>{}</th>", inline(h)));
-                }
-                out.push_str("</tr>\n");
-                for r in rows {
-                    out.push_str("<tr>");
-                    for c in r {
-                        out.push_str(&format!("<td>{}</td>", inline(c)));
-                    }
-                    out.push_str("</tr>\n");
-                }
-                out.push_str("</table>\n");
-            }
-            Block::Image { file, caption, .. } => {
-                let bytes = std::fs::read(file).map_err(|e| Error::Output {
-                    path: file.display().to_string(),
-                    message: format!("cannot read the chart to embed it: {e}"),
-                })?;
+            Block::Table(head, rows) => out.push_str(&html_table(head, rows)),
+            Block::Image { rel, png, caption } => {
                 out.push_str(&format!(
-                    "<figure><img alt=\"{}\" src=\"data:image/png;base64,{}\"><figcaption>{}</figcaption></figure>\n",
-                    escape(caption),
-                    base64(&bytes),
+                    "<figure><a href=\"{}\" title=\"full size\">{}</a><figcaption>{}</figcaption></figure>\n",
+                    escape(rel),
+                    embedded_chart(png, caption),
                     inline(caption)
                 ));
+            }
+            Block::Summary(rows) => {
+                out.push_str("<section class=\"summary\" aria-label=\"Summary\"><dl>\n");
+                for (label, text) in rows {
+                    out.push_str(&format!(
+                        "<dt>{}</dt><dd>{}</dd>\n",
+                        inline(label),
+                        inline(text)
+                    ));
+                }
+                out.push_str("</dl></section>\n");
             }
         }
     }
@@ -853,6 +1404,26 @@ mod tests {
         assert_eq!(poly_text(&q, "z"), "z^2 - 1.5*z + 0.5");
         let tf = Transfer::new(Poly::from_descending(&[20.0]), p);
         assert_eq!(tf_text(&tf, "s"), "20 / (0.05*s^2 + s)");
+    }
+
+    #[test]
+    fn expanded_coefficients_read_in_engineering_notation() {
+        // By hand: exponents in steps of 3, 4 significant digits, trailing
+        // zeros dropped; float noise in the input is gone.
+        assert_eq!(eng(0.0004000000000000001), "400e-6");
+        assert_eq!(eng(0.04850000000000001), "48.5e-3");
+        assert_eq!(eng(12.119366207318922), "12.12");
+        assert_eq!(eng(1.0137e24), "1.014e24");
+        assert_eq!(eng(-999.96), "-1e3");
+        assert_eq!(eng(1.0), "1");
+    }
+
+    #[test]
+    fn numbers_with_exponents_do_not_break() {
+        assert_eq!(
+            keep_numbers_whole("at 2.707e-6 s, x1e-3 stays"),
+            "at <span class=\"n\">2.707e-6</span> s, x1e-3 stays"
+        );
     }
 
     #[test]

@@ -17,6 +17,7 @@ use crate::case::Spec;
 use crate::discretize::Method;
 use crate::evaluate::{Point, PreparedLoop};
 use crate::feasibility::{Assessment, assess};
+use crate::hold::HoldKind;
 use crate::scalar_solve;
 use crate::sweep::SweepRow;
 
@@ -28,6 +29,8 @@ pub const RATE_TOLERANCE: f64 = 1e-4;
 pub struct SlowestRate {
     /// Method name (`given-in-z` for a controller given in z).
     pub method: String,
+    /// The actuator's hold kind.
+    pub hold: HoldKind,
     pub compute_delay: f64,
     /// `f_star`, Hz; None when `max_hz` itself fails.
     pub slowest_rate_hz: Option<f64>,
@@ -67,9 +70,9 @@ pub fn slowest_rate(
     rows: &[&SweepRow],
     observer: &dyn SearchObserver,
 ) -> SlowestRate {
-    let (method, delay) = rows
-        .first()
-        .map_or((None, 0.0), |r| (r.point.method, r.point.delay));
+    let (method, delay, hold) = rows.first().map_or((None, 0.0, HoldKind::ZeroOrder), |r| {
+        (r.point.method, r.point.delay, r.point.hold)
+    });
     let series: Vec<(f64, &Assessment)> = rows
         .iter()
         .map(|r| (r.point.rate_hz, &r.assessment))
@@ -79,12 +82,13 @@ pub fn slowest_rate(
             rate_hz: rate,
             method,
             delay,
+            hold,
         };
         let a = assess(&lp.sampled(&p), spec);
         observer.evaluated(rate, &a);
         a
     };
-    slowest_rate_by(method, delay, &series, &judge)
+    slowest_rate_by(method, hold, delay, &series, &judge)
 }
 
 /// `f_star` for one (method, delay) series: `series` holds the coarse
@@ -93,12 +97,14 @@ pub fn slowest_rate(
 /// several plant variants).
 pub fn slowest_rate_by(
     method: Option<Method>,
+    hold: HoldKind,
     delay: f64,
     series: &[(f64, &Assessment)],
     judge: &dyn Fn(f64) -> Assessment,
 ) -> SlowestRate {
     let mut answer = SlowestRate {
         method: method_label(method),
+        hold,
         compute_delay: delay,
         slowest_rate_hz: None,
         limiting: None,
@@ -194,13 +200,23 @@ pub struct Ceiling {
     pub above_range: bool,
     /// What fails just above the ceiling (or at `from_hz`).
     pub limiting: Option<String>,
+    /// The lowest failing rate found, Hz: `from_hz` when it fails, else
+    /// just above the ceiling (None when every rate checked passes). Where
+    /// the verdict is not monotone in the rate (rounding), every rate
+    /// checked below it passed, the sweep's grid rates included.
+    pub first_failure_hz: Option<f64>,
     /// Evaluations the refinement used beyond the coarse sweep.
     pub evaluations: usize,
 }
 
 /// The ceiling above `from_hz` from the coarse sweep's verdicts `series`
 /// (sorted by rate) refined by bisection in ln f to [`RATE_TOLERANCE`]:
-/// the passing side of the final bracket is reported. Bisection, not
+/// the passing side of the final bracket is reported. The bracket is the
+/// *first* failing grid rate above `from_hz` and the passing one below it,
+/// so where rounding makes the verdict non-monotone in the rate (a pole
+/// landing on either side of z = 1 from one rate to the next) the ceiling
+/// is never above a failing rate that was checked: every grid rate and
+/// every bisection point from `from_hz` to the ceiling passed. Bisection, not
 /// Brent: what ends a run of passing rates (a coefficient rounding onto
 /// z = 1) is a step, not a smooth slack.
 pub fn fastest_rate_by(
@@ -215,6 +231,7 @@ pub fn fastest_rate_by(
             rate_hz: None,
             above_range: false,
             limiting: start.limiting.map(str::to_string),
+            first_failure_hz: Some(from_hz),
             evaluations,
         };
     }
@@ -224,6 +241,7 @@ pub fn fastest_rate_by(
             rate_hz: Some(above.last().map_or(from_hz, |r| r.0)),
             above_range: true,
             limiting: None,
+            first_failure_hz: None,
             evaluations,
         };
     };
@@ -245,6 +263,7 @@ pub fn fastest_rate_by(
         rate_hz: Some(lo),
         above_range: false,
         limiting: hi_assessment.limiting.map(str::to_string),
+        first_failure_hz: Some(hi),
         evaluations,
     }
 }

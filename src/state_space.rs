@@ -23,7 +23,10 @@ pub enum ModelError {
     #[error(
         "the transfer function is improper (numerator degree {numerator} > denominator degree {denominator})"
     )]
-    Improper { numerator: usize, denominator: usize },
+    Improper {
+        numerator: usize,
+        denominator: usize,
+    },
     #[error("the denominator is zero")]
     ZeroDenominator,
     #[error("a coefficient is not finite")]
@@ -278,20 +281,30 @@ pub fn balancing_scale(a: &DMatrix<f64>) -> Vec<f64> {
                     c += m[(j, i)].abs();
                 }
             }
-            if r == 0.0 || c == 0.0 {
+            // A non-finite norm (an entry that overflowed) has no balance to
+            // find: leave the row alone rather than loop on infinity.
+            if r == 0.0 || c == 0.0 || !r.is_finite() || !c.is_finite() {
                 continue;
             }
             let s = r + c;
-            let (mut rr, mut cc, mut f) = (r, c, 1.0);
-            while cc < rr / 2.0 {
-                cc *= 2.0;
-                rr /= 2.0;
-                f *= 2.0;
+            let (mut rr, mut cc, mut f) = (r, c, 1.0f64);
+            // Each step moves the ratio by 4; 1100 steps span the whole
+            // double range, so the cap is never what ends a finite pair.
+            for _ in 0..1100 {
+                if cc < rr / 2.0 {
+                    cc *= 2.0;
+                    rr /= 2.0;
+                    f *= 2.0;
+                } else if cc >= rr * 2.0 {
+                    cc /= 2.0;
+                    rr *= 2.0;
+                    f /= 2.0;
+                } else {
+                    break;
+                }
             }
-            while cc >= rr * 2.0 {
-                cc /= 2.0;
-                rr *= 2.0;
-                f /= 2.0;
+            if !(f.is_finite() && f > 0.0) {
+                continue;
             }
             if (rr + cc) < 0.95 * s && f != 1.0 {
                 changed = true;
@@ -359,13 +372,43 @@ pub fn expm(m: &DMatrix<f64>) -> Result<DMatrix<f64>, ModelError> {
     if !m.iter().all(|v| v.is_finite()) {
         return Err(ModelError::NonFinite);
     }
-    let e = m.clone().exp();
+    // nalgebra picks its number of squarings from a norm of a high power
+    // of the matrix; when that power overflows, the count becomes
+    // `u64::MAX` and the squaring never ends (a period of 1e38 s, say). So
+    // a matrix with a large norm is scaled here by an exact power of two
+    // down to `EXPM_NORM`, whose 27th power stays in range, and the result
+    // is squared back a bounded number of times (at most about 1100 for a
+    // finite norm), stopping as soon as it stops being finite.
+    let norm = m.one_norm();
+    if !norm.is_finite() {
+        return Err(ModelError::Exponential);
+    }
+    let mut squarings = 0u32;
+    let mut scaled = None;
+    if norm > EXPM_NORM {
+        let mut k = 0i32;
+        while norm * 2f64.powi(-k) > EXPM_NORM && k < 1100 {
+            k += 1;
+        }
+        squarings = k as u32;
+        scaled = Some(m * 2f64.powi(-k));
+    }
+    let mut e = scaled.as_ref().unwrap_or(m).exp();
+    for _ in 0..squarings {
+        if !e.iter().all(|v| v.is_finite()) {
+            break;
+        }
+        e = &e * &e;
+    }
     if e.iter().all(|v| v.is_finite()) {
         Ok(e)
     } else {
         Err(ModelError::Exponential)
     }
 }
+
+/// Largest 1-norm handed to nalgebra's exponential as it is (see `expm`).
+const EXPM_NORM: f64 = 1e8;
 
 /// Van Loan's augmented exponential for a held input over `h` seconds:
 /// returns `(e^{A h}, integral_0^h e^{A s} ds B)` from one exponential of
@@ -386,6 +429,33 @@ pub fn hold_integrals(
     ))
 }
 
+/// `(e^{A h}, G, H)` of `ramp_integrals`.
+pub type RampIntegrals = (DMatrix<f64>, DVector<f64>, DVector<f64>);
+
+/// Van Loan's augmented exponential for an input that ramps over `h`
+/// seconds: returns `(e^{A h}, G, H)` with `G = integral_0^h e^{A s} ds B`
+/// (the held input's integral, as `hold_integrals`) and
+/// `H = integral_0^h e^{A (h - s)} s ds B` (a unit-slope ramp's), so an
+/// input `a + b s` on `[0, h)` moves the state by `G a + H b`. One
+/// exponential of `[[A, B, 0], [0, 0, 1], [0, 0, 0]] h`; no inverse of `A`.
+pub fn ramp_integrals(
+    a: &DMatrix<f64>,
+    b: &DVector<f64>,
+    h: f64,
+) -> Result<RampIntegrals, ModelError> {
+    let n = a.nrows();
+    let mut m = DMatrix::zeros(n + 2, n + 2);
+    m.view_mut((0, 0), (n, n)).copy_from(&(a * h));
+    m.view_mut((0, n), (n, 1)).copy_from(&(b * h));
+    m[(n, n + 1)] = h;
+    let e = expm(&m)?;
+    Ok((
+        e.view((0, 0), (n, n)).into_owned(),
+        e.view((0, n), (n, 1)).column(0).into_owned(),
+        e.view((0, n + 1), (n, 1)).column(0).into_owned(),
+    ))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -398,11 +468,19 @@ mod tests {
             Poly::from_descending(&[2.0, 3.0, 5.0]),
             Poly::from_descending(&[1.0, 4.0, 6.0, 4.0]),
         );
-        let back = StateSpace::from_transfer(&tf).unwrap().to_transfer(0).unwrap();
+        let back = StateSpace::from_transfer(&tf)
+            .unwrap()
+            .to_transfer(0)
+            .unwrap();
         for (a, b) in back.numerator.descending().iter().zip([2.0, 3.0, 5.0]) {
             assert!((a - b).abs() < 1e-12, "{a} vs {b}");
         }
-        for (a, b) in back.denominator.descending().iter().zip([1.0, 4.0, 6.0, 4.0]) {
+        for (a, b) in back
+            .denominator
+            .descending()
+            .iter()
+            .zip([1.0, 4.0, 6.0, 4.0])
+        {
             assert!((a - b).abs() < 1e-12);
         }
         // Biproper: (s + 3) / (s + 1) = 1 + 2/(s+1).

@@ -30,6 +30,54 @@ pub fn fmt_num(v: f64) -> String {
     }
 }
 
+/// A lower threshold ("at least"), in [`fmt_num`]'s digits but rounded
+/// up, so the printed number read back is never below `v`: quoting a
+/// minimum rounded down would name a value that falls just short.
+pub fn fmt_at_least(v: f64) -> String {
+    fmt_toward(v, 1.0)
+}
+
+/// An upper threshold ("at most"), in [`fmt_num`]'s digits but rounded
+/// down, so the printed number read back is never above `v`.
+pub fn fmt_at_most(v: f64) -> String {
+    fmt_toward(v, -1.0)
+}
+
+/// [`fmt_num`], then stepped by one unit of its last printed digit in
+/// direction `dir` (+1 up, -1 down) until the printed value read back is
+/// on that side of `v`. The text is what the reader sees, so the check is
+/// made on the text itself.
+fn fmt_toward(v: f64, dir: f64) -> String {
+    let mut s = fmt_num(v);
+    if !v.is_finite() || v == 0.0 {
+        return s;
+    }
+    // One step is enough unless a step carries into a new digit count
+    // (9.9995 -> 10.00); three is a safe cap.
+    for _ in 0..3 {
+        let back: f64 = match s.parse() {
+            Ok(b) => b,
+            Err(_) => return s,
+        };
+        if (back - v) * dir >= 0.0 {
+            return s;
+        }
+        s = fmt_num(back + dir * last_digit_unit(&s));
+    }
+    s
+}
+
+/// The value of one unit in the last printed digit of a [`fmt_num`] text
+/// (`12.35` -> 0.01, `3.214e6` -> 1e3).
+fn last_digit_unit(s: &str) -> f64 {
+    let (mantissa, exp) = match s.split_once('e') {
+        Some((m, e)) => (m, e.parse::<i32>().unwrap_or(0)),
+        None => (s, 0),
+    };
+    let decimals = mantissa.split_once('.').map_or(0, |(_, d)| d.len()) as i32;
+    10f64.powi(exp - decimals)
+}
+
 fn fmt_opt(v: Option<f64>, missing: &str) -> String {
     v.map_or_else(|| missing.to_string(), fmt_num)
 }
@@ -47,12 +95,16 @@ pub fn complex_pairs(v: &[C64]) -> Vec<[f64; 2]> {
 /// `looprate discretize` output.
 pub fn discretized_text(method: &str, rate_hz: f64, c: &DiscreteTransfer) -> String {
     let mut s = String::new();
-    let _ = writeln!(s, "method   {method}");
-    let _ = writeln!(s, "rate     {rate_hz} Hz (T = {} s)", 1.0 / rate_hz);
+    let _ = writeln!(s, "method         {method}");
+    let _ = writeln!(s, "rate           {rate_hz} Hz (T = {} s)", 1.0 / rate_hz);
     let _ = writeln!(s, "numerator(z)   {:?}", c.transfer.numerator.descending());
-    let _ = writeln!(s, "denominator(z) {:?}", c.transfer.denominator.descending());
-    let _ = writeln!(s, "poles    {}", roots_text(c.transfer.poles()));
-    let _ = writeln!(s, "zeros    {}", roots_text(c.transfer.zeros()));
+    let _ = writeln!(
+        s,
+        "denominator(z) {:?}",
+        c.transfer.denominator.descending()
+    );
+    let _ = writeln!(s, "poles          {}", roots_text(c.transfer.poles()));
+    let _ = writeln!(s, "zeros          {}", roots_text(c.transfer.zeros()));
     s
 }
 
@@ -121,7 +173,12 @@ fn figure_rows(f: Option<&Figures>) -> Vec<(&'static str, &'static str, String)>
         (
             "delay_margin_s",
             "delay margin (s)",
-            g(&|f| fmt_opt(f.delay_margin_s, "inf")),
+            g(&|f| fmt_opt(f.delay_margin_s, f.delay_margin_missing())),
+        ),
+        (
+            "delay_margin_estimate_s",
+            "delay margin estimate (s)",
+            g(&|f| fmt_opt(f.delay_margin_estimate_s, "inf")),
         ),
         (
             "sensitivity_peak",
@@ -268,8 +325,8 @@ pub fn pick_text(r: &PickReport) -> String {
     if !r.methods.is_empty() {
         let _ = writeln!(
             s,
-            "{:<16}{:>8}{:>16}{:>22}{:>8}  islands",
-            "method", "delay", "slowest (Hz)", "limiting", "evals"
+            "{:<16}{:<15}{:>8}{:>16}{:>22}{:>8}  islands",
+            "method", "hold", "delay", "slowest (Hz)", "limiting", "evals"
         );
     }
     for m in &r.methods {
@@ -286,8 +343,9 @@ pub fn pick_text(r: &PickReport) -> String {
             .join(", ");
         let _ = writeln!(
             s,
-            "{:<16}{:>8}{:>16}{:>22}{:>8}  {}",
+            "{:<16}{:<15}{:>8}{:>16}{:>22}{:>8}  {}",
             m.method,
+            m.hold.name(),
             m.compute_delay,
             slow,
             m.limiting.clone().unwrap_or_default(),
@@ -321,8 +379,8 @@ pub fn pick_text(r: &PickReport) -> String {
         };
         let _ = writeln!(
             s,
-            "{:<16}{:>8}{:>16}{:>14}{:>22}  worst variant",
-            "method", "delay", "robust (Hz)", "nominal (Hz)", "limiting"
+            "{:<16}{:<15}{:>8}{:>16}{:>14}{:>22}  worst variant",
+            "method", "hold", "delay", "robust (Hz)", "nominal (Hz)", "limiting"
         );
         for m in &rb.methods {
             let slow = match (m.rate.slowest_rate_hz, m.rate.at_range_floor) {
@@ -342,8 +400,9 @@ pub fn pick_text(r: &PickReport) -> String {
                 .unwrap_or_default();
             let _ = writeln!(
                 s,
-                "{:<16}{:>8}{:>16}{:>14}{:>22}  {}",
+                "{:<16}{:<15}{:>8}{:>16}{:>14}{:>22}  {}",
                 m.rate.method,
+                m.rate.hold.name(),
                 m.rate.compute_delay,
                 slow,
                 fmt_opt(m.nominal_slowest_rate_hz, "none"),
@@ -362,16 +421,18 @@ pub fn pick_text(r: &PickReport) -> String {
         if rec.method == "given-in-z" {
             let _ = writeln!(
                 s,
-                "Recommended: the controller given in z at its own rate, {} Hz (T = {} s), computation delay {} of a period.",
+                "Recommended: the controller given in z at its own rate, {} Hz (T = {} s), {} hold, computation delay {} periods.",
                 fmt_num(rec.rate_hz),
                 fmt_num(rec.period_s),
+                rec.hold,
                 rec.compute_delay
             );
         } else {
             let _ = writeln!(
                 s,
-                "Recommended: {} at {} Hz (T = {} s), computation delay {} of a period; {basis} {} Hz times headroom {} (the headroom covers model error).",
+                "Recommended: {} with a {} hold at {} Hz (T = {} s), computation delay {} periods; {basis} {} Hz times headroom {} (the headroom covers model error).",
                 rec.method,
+                rec.hold,
                 fmt_num(rec.rate_hz),
                 fmt_num(rec.period_s),
                 rec.compute_delay,
@@ -379,6 +440,7 @@ pub fn pick_text(r: &PickReport) -> String {
                 r.headroom
             );
         }
+        let _ = writeln!(s, "Hold: {}.", rec.hold_basis);
         if let Some(n) = rec.timer_divider {
             let _ = writeln!(s, "Timer divider {n}.");
         }
@@ -522,6 +584,11 @@ pub fn pick_text(r: &PickReport) -> String {
                 },
                 w.high_bound
             );
+            if let Some(c) = w.cpu_ceiling_hz
+                && !matches!(w.high_bound, crate::budget::WindowBound::CpuBudget)
+            {
+                let _ = writeln!(s, "CPU budget ceiling: {} Hz.", fmt_num(c));
+            }
         }
     }
     for n in &r.notes {
@@ -579,10 +646,10 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::evaluate::PreparedLoop) 
     let _ = writeln!(s, "{} ({})", case.title, case.source.display());
     let block = |s: &mut String, name: &str, tf: &Transfer, var: &str| {
         let _ = writeln!(s, "\n{name}");
-        let _ = writeln!(s, "  num({var}) {:?}", tf.numerator.descending());
-        let _ = writeln!(s, "  den({var}) {:?}", tf.denominator.descending());
-        let _ = writeln!(s, "  poles    {}", roots_text(tf.poles()));
-        let _ = writeln!(s, "  zeros    {}", roots_text(tf.zeros()));
+        let _ = writeln!(s, "  numerator({var})   {:?}", tf.numerator.descending());
+        let _ = writeln!(s, "  denominator({var}) {:?}", tf.denominator.descending());
+        let _ = writeln!(s, "  poles            {}", roots_text(tf.poles()));
+        let _ = writeln!(s, "  zeros            {}", roots_text(tf.zeros()));
     };
     block(&mut s, "plant P(s)", &lp.plant, "s");
     block(&mut s, "sensor H(s)", &lp.sensor, "s");
@@ -595,18 +662,41 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::evaluate::PreparedLoop) 
             "z",
         ),
     }
+    match &lp.controller {
+        Controller::Continuous(_) => {
+            let _ = writeln!(
+                s,
+                "\nrates {} .. {} Hz, {} points; methods {}; computation delays {:?}",
+                case.rates.min_hz,
+                case.rates.max_hz,
+                case.rates.points,
+                case.methods
+                    .iter()
+                    .map(|m| m.name())
+                    .collect::<Vec<_>>()
+                    .join(", "),
+                case.compute_delays
+            );
+        }
+        Controller::Discrete(d) => {
+            let _ = writeln!(
+                s,
+                "\nthe controller is given in z at {} Hz: that one rate is checked, nothing is discretized; computation delays {:?}",
+                1.0 / d.period_s,
+                case.compute_delays
+            );
+        }
+    }
     let _ = writeln!(
         s,
-        "\nrates {} .. {} Hz, {} points; methods {}; computation delays {:?}",
-        case.rates.min_hz,
-        case.rates.max_hz,
-        case.rates.points,
-        case.methods
+        "hold kinds {}; transport delay {} s at the plant, {} s on the measurement",
+        case.holds
             .iter()
-            .map(|m| m.name())
+            .map(|h| h.name())
             .collect::<Vec<_>>()
             .join(", "),
-        case.compute_delays
+        case.plant_delay_s,
+        case.sensor_delay_s
     );
     if let Some(u) = &case.uncertainty {
         let n = crate::variants::parameter_sets(case).len();
@@ -645,6 +735,9 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::evaluate::PreparedLoop) 
             a.structure.name()
         );
     }
+    for n in &case.notes {
+        let _ = writeln!(s, "note: {n}");
+    }
     if let Some(d) = &lp.design {
         let _ = writeln!(s, "\ncontinuous loop C(s) P(s) H(s): {}", d.status.label());
         if let Some(f) = &d.figures {
@@ -680,4 +773,28 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::evaluate::PreparedLoop) 
         }
     }
     s
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn thresholds_round_toward_the_side_that_works() {
+        // By hand: 32.1401 needs at least 32.15 (not 32.14); 1244.6 allows
+        // at most 1244 (fmt_num says 1245); exact values stay as they are.
+        assert_eq!(fmt_num(32.1401), "32.14");
+        assert_eq!(fmt_at_least(32.1401), "32.15");
+        assert_eq!(fmt_num(1244.6), "1245");
+        assert_eq!(fmt_at_most(1244.6), "1244");
+        assert_eq!(fmt_at_least(10.0), "10.00");
+        assert_eq!(fmt_at_most(10.0), "10.00");
+        // Rounding up across a power of ten keeps fmt_num's digits
+        // (fmt_num prints 9.9996 as 10.000 too), and is never below.
+        assert_eq!(fmt_at_least(9.9996), "10.000");
+        assert_eq!(fmt_at_most(9.9996), "9.999");
+        // Exponent form: one unit of the last digit is 1e3 here.
+        assert_eq!(fmt_at_least(3.21401e6), "3.215e6");
+        assert_eq!(fmt_at_most(3.21499e6), "3.214e6");
+    }
 }

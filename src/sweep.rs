@@ -14,6 +14,7 @@ use crate::case::{Arithmetic, Budget, Case, Spec};
 use crate::discretize::Method;
 use crate::evaluate::{Evaluation, PlantAt, Point, PreparedLoop};
 use crate::feasibility::{Assessment, assess};
+use crate::hold::HoldKind;
 use crate::precision::{self, Format, PrecisionPoint, Structure};
 use crate::variants::{RobustPoint, VariantSet};
 
@@ -33,6 +34,26 @@ pub struct SweepRow {
     /// One verdict per number format of `[arithmetic]` other than f64 (the
     /// reference, whose loop is the nominal one), in case order.
     pub precision: Vec<PrecisionPoint>,
+}
+
+impl SweepRow {
+    /// Drop what only the row's CSV line needs (the closed-loop poles, the
+    /// list of crossings, each limit's check), once that line is written:
+    /// the search and the charts read the verdicts and the figures only,
+    /// so a long sweep keeps a few hundred bytes per row instead of
+    /// several kilobytes. Every variant's evaluation is kept when asked
+    /// for (`--variants`).
+    pub fn slim(&mut self) {
+        self.eval.closed_loop_poles = Vec::new();
+        self.eval.loop_detail = None;
+        self.assessment.checks = Vec::new();
+        if let Some(r) = &mut self.robust {
+            r.assessment.checks = Vec::new();
+        }
+        for p in &mut self.precision {
+            p.assessment.checks = Vec::new();
+        }
+    }
 }
 
 /// What a sweep evaluates at each point: the nominal loop, and optionally
@@ -103,17 +124,32 @@ impl<'a> Plan<'a> {
     }
 }
 
-/// The grid, ordered by method, then delay, then ascending rate.
+/// The grid with a zero-order hold, ordered by method, then delay, then
+/// ascending rate.
 pub fn grid(rates: &[f64], methods: &[Option<Method>], delays: &[f64]) -> Vec<Point> {
-    let mut out = Vec::with_capacity(rates.len() * methods.len() * delays.len());
+    grid_holds(rates, methods, &[HoldKind::ZeroOrder], delays)
+}
+
+/// The grid, ordered by method, then hold kind, then delay, then
+/// ascending rate.
+pub fn grid_holds(
+    rates: &[f64],
+    methods: &[Option<Method>],
+    holds: &[HoldKind],
+    delays: &[f64],
+) -> Vec<Point> {
+    let mut out = Vec::with_capacity(rates.len() * methods.len() * holds.len() * delays.len());
     for &method in methods {
-        for &delay in delays {
-            for &rate_hz in rates {
-                out.push(Point {
-                    rate_hz,
-                    method,
-                    delay,
-                });
+        for &hold in holds {
+            for &delay in delays {
+                for &rate_hz in rates {
+                    out.push(Point {
+                        rate_hz,
+                        method,
+                        delay,
+                        hold,
+                    });
+                }
             }
         }
     }
@@ -125,7 +161,7 @@ pub fn evaluate_row(plan: &Plan, p: &Point) -> SweepRow {
     evaluate_row_on(plan, p, None)
 }
 
-/// The plant side at one (rate, delay), built once for the methods of a
+/// The plant side at one (rate, delay, hold), built once for the methods of a
 /// sweep group: one per plant variant, or only the nominal loop's (index
 /// 0 is always the nominal one).
 struct Plants(Vec<Result<PlantAt, String>>);
@@ -167,7 +203,9 @@ fn evaluate_row_on(plan: &Plan, p: &Point, plants: Option<&Plants>) -> SweepRow 
         },
     };
     let assessment = assess(&eval, plan.spec);
-    let structure = plan.arithmetic.map_or(Structure::TransposedDirect, |a| a.structure);
+    let structure = plan
+        .arithmetic
+        .map_or(Structure::TransposedDirect, |a| a.structure);
     let cpu_load_pct = plan.budget.and_then(|b| {
         let integrators = precision::design_integrators(&lp.controller);
         budget::cycles_per_update(b, controller.as_ref().ok(), structure, integrators)
@@ -193,40 +231,100 @@ fn evaluate_row_on(plan: &Plan, p: &Point, plants: Option<&Plants>) -> SweepRow 
 /// Evaluate every point in parallel on the current rayon pool; `on_done`
 /// is called once per finished point (progress display).
 ///
-/// The hold + delay + plant equivalent depends on the rate and the delay
-/// but not on the method, so the points are taken in groups that share
-/// (rate, delay), each group building it once (about 5 % of a point's
+/// The hold + delay + plant equivalent depends on the rate, the delay and
+/// the hold kind but not on the method, so the points are taken in groups
+/// that share (rate, delay, hold), each group building it once (about 5 % of a point's
 /// work, saved for all methods but one). Each point is still computed
 /// alone from the same inputs, and the rows come back in grid order, so
 /// the results do not depend on the grouping or the thread count.
 pub fn run(plan: &Plan, points: &[Point], on_done: &(dyn Fn() + Sync)) -> Vec<SweepRow> {
+    let mut rows = GridOrder::default();
+    run_streaming(plan, points, on_done, &mut |i, row| rows.push(i, row));
+    rows.finish()
+}
+
+/// Rows received in any order, put in grid order without a second copy.
+///
+/// `push(grid_index, row)` appends; `finish` permutes the rows in place by
+/// following the permutation's cycles (a long sweep keeps one buffer of
+/// rows, not the buffer plus a reordered copy).
+#[derive(Default)]
+pub struct GridOrder {
+    rows: Vec<SweepRow>,
+    index: Vec<usize>,
+}
+
+impl GridOrder {
+    /// Keep `row`, the row of grid point `i`.
+    pub fn push(&mut self, i: usize, row: SweepRow) {
+        self.rows.push(row);
+        self.index.push(i);
+    }
+
+    /// The rows in ascending grid index (the indices must be `0..n`, each
+    /// once, as a sweep delivers them).
+    pub fn finish(self) -> Vec<SweepRow> {
+        let GridOrder { mut rows, index } = self;
+        // `target[k]`: where the row now at position k belongs.
+        let mut target = index;
+        for start in 0..rows.len() {
+            // Follow the cycle through `start`, swapping each row home.
+            while target[start] != start {
+                let t = target[start];
+                if t >= rows.len() {
+                    break;
+                }
+                rows.swap(start, t);
+                target.swap(start, t);
+            }
+        }
+        rows
+    }
+}
+
+/// Groups (of points sharing rate and delay) evaluated in parallel before
+/// their rows are handed on: enough to keep every worker busy, few enough
+/// that the rows in flight stay a small, fixed amount of memory.
+const GROUPS_IN_FLIGHT: usize = 256;
+
+/// [`run`] without keeping the rows: `sink(grid_index, row)` takes each
+/// row on the calling thread as its batch of groups finishes. Groups come
+/// in order of their first point in the grid, so the rows of each
+/// (method, delay) series arrive in ascending grid order, whatever the
+/// thread count (each point is computed alone, from the same inputs).
+pub fn run_streaming(
+    plan: &Plan,
+    points: &[Point],
+    on_done: &(dyn Fn() + Sync),
+    sink: &mut dyn FnMut(usize, SweepRow),
+) {
     let mut groups: Vec<Vec<usize>> = Vec::new();
-    let mut index: HashMap<(u64, u64), usize> = HashMap::new();
+    let mut index: HashMap<(u64, u64, HoldKind), usize> = HashMap::new();
     for (i, p) in points.iter().enumerate() {
-        let key = (p.rate_hz.to_bits(), p.delay.to_bits());
+        let key = (p.rate_hz.to_bits(), p.delay.to_bits(), p.hold);
         let g = *index.entry(key).or_insert_with(|| {
             groups.push(Vec::new());
             groups.len() - 1
         });
         groups[g].push(i);
     }
-    let done: Vec<Vec<(usize, SweepRow)>> = groups
-        .par_iter()
-        .map(|group| {
-            let plants = Plants::at(plan, &points[group[0]]);
-            group
-                .iter()
-                .map(|&i| {
-                    let row = evaluate_row_on(plan, &points[i], Some(&plants));
-                    on_done();
-                    (i, row)
-                })
-                .collect()
-        })
-        .collect();
-    let mut rows: Vec<Option<SweepRow>> = (0..points.len()).map(|_| None).collect();
-    for (i, row) in done.into_iter().flatten() {
-        rows[i] = Some(row);
+    for batch in groups.chunks(GROUPS_IN_FLIGHT) {
+        let done: Vec<Vec<(usize, SweepRow)>> = batch
+            .par_iter()
+            .map(|group| {
+                let plants = Plants::at(plan, &points[group[0]]);
+                group
+                    .iter()
+                    .map(|&i| {
+                        let row = evaluate_row_on(plan, &points[i], Some(&plants));
+                        on_done();
+                        (i, row)
+                    })
+                    .collect()
+            })
+            .collect();
+        for (i, row) in done.into_iter().flatten() {
+            sink(i, row);
+        }
     }
-    rows.into_iter().flatten().collect()
 }

@@ -1071,7 +1071,7 @@ impl Ends {
         let output_at = |z: &DVector<f64>, r: f64, w: f64| {
             let x = z.rows(0, n);
             let u = cl.ku.dot(z) + cl.dur * r + cl.duw * w;
-            hold.cy.dot(&x) + hold.dy * (u + w)
+            hold.cy.dot(&x) + hold.dy * u + hold.dy_w * w
         };
         Ends {
             y_final: output_at(&zr, 1.0, 0.0),

@@ -24,7 +24,10 @@ pub struct DiscreteTransfer {
 impl Transfer {
     /// `num / den`.
     pub fn new(num: Poly, den: Poly) -> Self {
-        Transfer { numerator: num, denominator: den }
+        Transfer {
+            numerator: num,
+            denominator: den,
+        }
     }
 
     /// The constant gain `k`.
@@ -54,7 +57,10 @@ impl Transfer {
 
     /// Series connection `self * other`.
     pub fn cascade(&self, other: &Transfer) -> Transfer {
-        Transfer::new(self.numerator.mul(&other.numerator), self.denominator.mul(&other.denominator))
+        Transfer::new(
+            self.numerator.mul(&other.numerator),
+            self.denominator.mul(&other.denominator),
+        )
     }
 
     /// Negative-feedback loop `self / (1 + self * feedback)`.
@@ -90,7 +96,38 @@ impl Transfer {
     /// Normalised so the leading denominator coefficient is one.
     pub fn monic(&self) -> Transfer {
         let l = self.denominator.leading();
-        Transfer::new(self.numerator.scale(1.0 / l), self.denominator.scale(1.0 / l))
+        Transfer::new(
+            self.numerator.scale(1.0 / l),
+            self.denominator.scale(1.0 / l),
+        )
+    }
+
+    /// The same function with numerator and denominator multiplied by one
+    /// power of two, so the denominator's largest coefficient is near 1,
+    /// when it lies outside `[1e-100, 1e100]` (a sensor written
+    /// `1e-320/1e-320`, say, whose products with other models would
+    /// underflow to 0/0). A power of two is exact, so nothing else changes;
+    /// ordinary models are returned as they are.
+    pub fn with_sane_scale(&self) -> Transfer {
+        let big = self
+            .denominator
+            .coeffs()
+            .iter()
+            .fold(0.0f64, |m, c| m.max(c.abs()));
+        if !(big.is_finite() && big > 0.0) || (1e-100..=1e100).contains(&big) {
+            return self.clone();
+        }
+        // Two steps, since 2^-e alone is not representable for the
+        // subnormal range's e.
+        let e = big.log2().round() as i32;
+        let half = -e / 2;
+        let rest = -e - half;
+        let k1 = 2f64.powi(half);
+        let k2 = 2f64.powi(rest);
+        Transfer::new(
+            self.numerator.scale(k1).scale(k2),
+            self.denominator.scale(k1).scale(k2),
+        )
     }
 
     /// Every coefficient finite.
@@ -108,7 +145,8 @@ impl DiscreteTransfer {
 
     /// Frequency response at `w` rad/s: the value at z = e^{jwT}.
     pub fn freq(&self, w_rad_s: f64) -> C64 {
-        self.transfer.eval(C64::from_polar(1.0, w_rad_s * self.period_s))
+        self.transfer
+            .eval(C64::from_polar(1.0, w_rad_s * self.period_s))
     }
 }
 

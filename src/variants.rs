@@ -123,12 +123,13 @@ impl VariantSet {
                     return Ok(nominal.clone());
                 }
                 let m = case.models_at(v)?;
-                PreparedLoop::new(
+                PreparedLoop::with_transport(
                     &m.plant,
                     &m.sensor,
                     &nominal.controller,
                     prewarp_hz,
                     nominal.time,
+                    nominal.transport,
                 )
                 .map_err(|e| Error::Model {
                     context: format!(
@@ -143,7 +144,7 @@ impl VariantSet {
                             v
                         )
                     ),
-                    source: e,
+                    reason: e,
                 })
             })
             .collect::<Result<Vec<_>, Error>>()?;
@@ -319,6 +320,7 @@ pub fn worst_of(figs: &[&Figures]) -> Option<Figures> {
         phase_margin_deg: min_margin(&|f| f.phase_margin_deg),
         crossover_hz: by_pm.crossover_hz,
         delay_margin_s: min_margin(&|f| f.delay_margin_s),
+        delay_margin_estimate_s: min_margin(&|f| f.delay_margin_estimate_s),
         sensitivity_peak: max_f(&|f| f.sensitivity_peak),
         horizon_s: figs.iter().map(|f| f.horizon_s).fold(0.0, f64::max),
         undecided: {
@@ -329,6 +331,12 @@ pub fn worst_of(figs: &[&Figures]) -> Option<Figures> {
                 }
             }
             keys
+        },
+        delay_margin_searched: figs.iter().all(|f| f.delay_margin_searched),
+        loop_notes: {
+            let mut notes: Vec<String> = figs.iter().flat_map(|f| f.loop_notes.clone()).collect();
+            notes.dedup();
+            notes
         },
     })
 }
@@ -357,9 +365,12 @@ mod tests {
             phase_margin_deg: pm,
             crossover_hz: Some(10.0),
             delay_margin_s: Some(0.01),
+            delay_margin_estimate_s: Some(0.009),
             sensitivity_peak: 1.5,
             horizon_s: 1.0,
             undecided: Vec::new(),
+            loop_notes: Vec::new(),
+            delay_margin_searched: true,
         }
     }
 

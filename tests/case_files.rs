@@ -18,7 +18,10 @@ const BASE: &[(&str, &str)] = &[
         "[plant]\ntransfer = \"38 / ((0.42*s + 1) * (0.004*s + 1))\"\n",
     ),
     ("sensor", "[sensor]\ntransfer = \"1 / (0.0008*s + 1)\"\n"),
-    ("controller", "[controller]\ntransfer = \"0.05 * (s + 12) / s\"\n"),
+    (
+        "controller",
+        "[controller]\ntransfer = \"0.05 * (s + 12) / s\"\n",
+    ),
     ("timing", "[timing]\ncompute_delay = 0.5\n"),
     (
         "rates",
@@ -82,6 +85,34 @@ type Bad = (
 );
 
 const BAD: &[Bad] = &[
+    // Names an earlier version used: refused, naming the new one (no alias).
+    (
+        "old key tf",
+        &[("plant", "[plant]\ntf = \"1 / (s + 1)\"\n")], // keep-name
+        "plant.tf",                                      // keep-name
+        &["now called `transfer`"],
+    ),
+    (
+        "old key numerator_z",
+        &[(
+            "controller",
+            "[controller]\nnum_z = [1.0]\nden_z = [1.0, -0.5]\nrate_hz = 100\n",
+        )], // keep-name
+        "controller.num_z", // keep-name
+        &["now called `numerator_z`"],
+    ),
+    (
+        "old method name zoh",
+        &[("methods", "[methods]\nuse = [\"tustin\", \"zoh\"]\n")], // keep-name
+        "methods.use[1]",
+        &["now called `step-invariant`"],
+    ),
+    (
+        "old method name matched",
+        &[("methods", "[methods]\nuse = [\"matched\"]\n")], // keep-name
+        "methods.use[0]",
+        &["now called `pole-zero-match`"],
+    ),
     // Models.
     (
         "improper plant",
@@ -223,7 +254,10 @@ const BAD: &[Bad] = &[
     // Controller forms.
     (
         "controller given two ways",
-        &[("controller", "[controller]\ntransfer = \"1\"\npid = { kp = 1 }\n")],
+        &[(
+            "controller",
+            "[controller]\ntransfer = \"1\"\npid = { kp = 1 }\n",
+        )],
         "controller",
         &["`transfer`", "`pid`", "2 ways"],
     ),
@@ -231,7 +265,7 @@ const BAD: &[Bad] = &[
         "controller given three ways",
         &[(
             "controller",
-            "[controller]\ngain = 2\npid = { kp = 1 }\nnum_z = [1]\nden_z = [1]\nrate_hz = 100\n",
+            "[controller]\ngain = 2\npid = { kp = 1 }\nnumerator_z = [1]\ndenominator_z = [1]\nrate_hz = 100\n",
         )],
         "controller",
         &[
@@ -284,7 +318,7 @@ const BAD: &[Bad] = &[
         &[
             (
                 "controller",
-                "[controller]\nnum_z = [1, -0.5]\nden_z = [1, -1]\nrate_hz = 0\n",
+                "[controller]\nnumerator_z = [1, -0.5]\ndenominator_z = [1, -1]\nrate_hz = 0\n",
             ),
             ("methods", ""),
         ],
@@ -296,7 +330,7 @@ const BAD: &[Bad] = &[
         &[
             (
                 "controller",
-                "[controller]\nnum_z = [1, -0.5]\nden_z = [0, 1, -1]\nrate_hz = 100\n",
+                "[controller]\nnumerator_z = [1, -0.5]\ndenominator_z = [0, 1, -1]\nrate_hz = 100\n",
             ),
             ("methods", ""),
         ],
@@ -308,7 +342,7 @@ const BAD: &[Bad] = &[
         &[
             (
                 "controller",
-                "[controller]\nnum_z = [1, 0, -0.5]\nden_z = [1, -1]\nrate_hz = 100\n",
+                "[controller]\nnumerator_z = [1, 0, -0.5]\ndenominator_z = [1, -1]\nrate_hz = 100\n",
             ),
             ("methods", ""),
         ],
@@ -320,7 +354,7 @@ const BAD: &[Bad] = &[
         &[
             (
                 "controller",
-                "[controller]\nnum_z = [1, nan]\nden_z = [1, -1]\nrate_hz = 100\n",
+                "[controller]\nnumerator_z = [1, nan]\ndenominator_z = [1, -1]\nrate_hz = 100\n",
             ),
             ("methods", ""),
         ],
@@ -330,7 +364,10 @@ const BAD: &[Bad] = &[
     (
         "discrete without rate",
         &[
-            ("controller", "[controller]\nnum_z = [1]\nden_z = [1, -1]\n"),
+            (
+                "controller",
+                "[controller]\nnumerator_z = [1]\ndenominator_z = [1, -1]\n",
+            ),
             ("methods", ""),
         ],
         "controller.rate_hz",
@@ -340,7 +377,7 @@ const BAD: &[Bad] = &[
         "methods with a discrete controller",
         &[(
             "controller",
-            "[controller]\nnum_z = [1]\nden_z = [1, -1]\nrate_hz = 100\n",
+            "[controller]\nnumerator_z = [1]\ndenominator_z = [1, -1]\nrate_hz = 100\n",
         )],
         "methods",
         &["does not apply"],
@@ -533,16 +570,22 @@ const BAD: &[Bad] = &[
     ),
     // Timing.
     (
-        "compute delay above one",
-        &[("timing", "[timing]\ncompute_delay = 1.5\n")],
+        "compute delay negative",
+        &[("timing", "[timing]\ncompute_delay = -0.5\n")],
         "timing.compute_delay",
-        &["from 0 to 1", "1.5"],
+        &[">= 0", "-0.5"],
     ),
     (
         "compute delay negative in a list",
-        &[("timing", "[timing]\ncompute_delay = [0, -0.1]\n")],
-        "timing.compute_delay[1]",
-        &["from 0 to 1"],
+        &[("timing", "[timing]\ncompute_delay = [0, 1.5, -0.1]\n")],
+        "timing.compute_delay[2]",
+        &[">= 0"],
+    ),
+    (
+        "compute delay infinite",
+        &[("timing", "[timing]\ncompute_delay = inf\n")],
+        "timing.compute_delay",
+        &["finite"],
     ),
     (
         "compute delay not finite",
@@ -974,7 +1017,7 @@ fn discrete_controller() {
     let case = ok(&[
         (
             "controller",
-            "[controller]\nnum_z = [0.5, -0.4]\nden_z = [1, -1]\nrate_hz = 1000\n",
+            "[controller]\nnumerator_z = [0.5, -0.4]\ndenominator_z = [1, -1]\nrate_hz = 1000\n",
         ),
         ("methods", ""),
     ]);
@@ -1036,7 +1079,10 @@ fn parameters_in_file_order_and_models_at() {
 fn parameter_order_follows_the_file_when_not_alphabetical() {
     let case = ok(&[
         ("params", "[params]\nzeta = 0.7\nalpha = 2\n"),
-        ("plant", "[plant]\ntransfer = \"alpha / (s^2 + 2*zeta*s + 1)\"\n"),
+        (
+            "plant",
+            "[plant]\ntransfer = \"alpha / (s^2 + 2*zeta*s + 1)\"\n",
+        ),
     ]);
     let names: Vec<&str> = case.params.iter().map(|p| p.name.as_str()).collect();
     assert_eq!(names, ["zeta", "alpha"]);
@@ -1179,4 +1225,26 @@ proptest::proptest! {
     fn any_text_loads_or_errors(text in "(\\PC|\n|\\[|\\]|=|\"){0,200}") {
         let _ = parse(&text);
     }
+}
+
+// Sanity notes: valid values that look like a slip are noted, never refused
+// (the 1 MHz floor for a CPU clock is common practice, no source).
+#[test]
+fn sanity_notes_for_a_clock_in_mhz_and_a_range_only_the_controller_sees() {
+    let text = "[plant]\ntransfer = \"k/(s+1)\"\n[controller]\ntransfer = \"g*(s+2)/s\"\n\
+        [params]\nk = 1\ng = { nominal = 1, min = 0.5, max = 2 }\n[uncertainty]\nmode = \"corners\"\n\
+        [budget]\ncpu_hz = 72\ncycles_per_update = 100\n[rates]\nmin_hz = 10\nmax_hz = 100\npoints = 5\n\
+        [methods]\nuse = [\"tustin\"]\n";
+    let c = parse(text).unwrap();
+    assert_eq!(c.notes.len(), 2, "{:?}", c.notes);
+    assert!(c.notes[0].contains("budget.cpu_hz") && c.notes[0].contains("MHz"));
+    assert!(c.notes[1].contains("params.g") && c.notes[1].contains("only in the controller"));
+    // The same case with the range on the plant and a real clock: no notes.
+    let plain = text
+        .replace(
+            "k = 1\ng = { nominal = 1, min = 0.5, max = 2 }",
+            "g = 1\nk = { nominal = 1, min = 0.5, max = 2 }",
+        )
+        .replace("cpu_hz = 72", "cpu_hz = 72e6");
+    assert!(parse(&plain).unwrap().notes.is_empty());
 }

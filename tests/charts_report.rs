@@ -109,7 +109,7 @@ fn charts_of_a_case_with_an_answer() {
     let charts = write_charts(&dir, &r.case, &r.lp, &r.rows, &r.report).unwrap();
     let names: Vec<String> = charts
         .iter()
-        .map(|p| p.file_name().unwrap().to_string_lossy().into_owned())
+        .map(|c| c.path.file_name().unwrap().to_string_lossy().into_owned())
         .collect();
     assert_eq!(
         names,
@@ -123,7 +123,9 @@ fn charts_of_a_case_with_an_answer() {
         ]
     );
     for c in &charts {
-        check_png(c);
+        check_png(&c.path);
+        // The bytes the report embeds are the file written.
+        assert_eq!(std::fs::read(&c.path).unwrap(), c.png);
     }
 
     let md_path = write_report(&dir, &r.case, &r.report, &charts).unwrap();
@@ -143,7 +145,7 @@ fn charts_of_a_case_with_an_answer() {
         rec["period_s"].as_f64().unwrap(),
     );
     assert_same(
-        between(&md, "CPU load **", " %**"),
+        between(&md, "; CPU load ", " % against"),
         &printed(&rec["cpu_load_pct"]),
         rec["cpu_load_pct"].as_f64().unwrap(),
     );
@@ -151,12 +153,14 @@ fn charts_of_a_case_with_an_answer() {
         let name = m["method"].as_str().unwrap();
         let row = md
             .lines()
-            .find(|l| l.starts_with(&format!("| {name} |")))
+            .find(|l| first_cell(l) == Some(name))
             .unwrap_or_else(|| panic!("no table row for {name}"));
         let cells: Vec<&str> = row.split('|').map(str::trim).collect();
         let f = m["slowest_rate_hz"].as_f64().unwrap();
-        assert_same(cells[3], &fmt_num(f), f);
-        assert_eq!(cells[4], m["limiting"].as_str().unwrap());
+        // Columns: method, hold, delay, f*, limiting.
+        assert_eq!(cells[2], m["hold"].as_str().unwrap());
+        assert_same(cells[4], &fmt_num(f), f);
+        assert_eq!(cells[5], m["limiting"].as_str().unwrap());
     }
     // Every chart embedded by relative path; the caution is there.
     for name in &names {
@@ -165,6 +169,12 @@ fn charts_of_a_case_with_an_answer() {
     assert!(md.contains("protective limits"));
     let html = std::fs::read_to_string(dir.join("report.html")).unwrap();
     assert_eq!(html.matches("data:image/png;base64,").count(), names.len());
+}
+
+/// The first cell of a Markdown table row (cells are padded to the
+/// column's width), None for a line that is not a row.
+fn first_cell(line: &str) -> Option<&str> {
+    line.strip_prefix("| ")?.split('|').next().map(str::trim)
 }
 
 /// The text between `start` and the next `end` after it.
@@ -197,16 +207,23 @@ fn no_answer_draws_what_still_makes_sense() {
     let charts = write_charts(&dir, &r.case, &r.lp, &r.rows, &r.report).unwrap();
     let names: Vec<String> = charts
         .iter()
-        .map(|p| p.file_name().unwrap().to_string_lossy().into_owned())
+        .map(|c| c.path.file_name().unwrap().to_string_lossy().into_owned())
         .collect();
     assert_eq!(names, ["figures-vs-rate.png", "cpu-budget.png"]);
     for c in &charts {
-        check_png(c);
+        check_png(&c.path);
+        // The bytes the report embeds are the file written.
+        assert_eq!(std::fs::read(&c.path).unwrap(), c.png);
     }
     let md =
         std::fs::read_to_string(write_report(&dir, &r.case, &r.report, &charts).unwrap()).unwrap();
     assert!(md.contains("**No method meets the spec**"));
-    assert!(md.contains("| tustin | 0.5000 | none |"));
+    let row = md
+        .lines()
+        .find(|l| first_cell(l) == Some("tustin"))
+        .unwrap();
+    let cells: Vec<&str> = row.split('|').map(str::trim).collect();
+    assert_eq!(cells[2..5], ["zero-order", "0.5000", "none"]);
 }
 
 #[test]
@@ -242,7 +259,7 @@ fn variants_and_precision_reach_every_output() {
     let r = run(&text, &dir);
     let charts = write_charts(&dir, &r.case, &r.lp, &r.rows, &r.report).unwrap();
     let png = dir.join("precision.png");
-    assert!(charts.contains(&png), "{charts:?}");
+    assert!(charts.iter().any(|c| c.path == png), "{charts:?}");
     check_png(&png);
     let md_path = write_report(&dir, &r.case, &r.report, &charts).unwrap();
     let md = std::fs::read_to_string(&md_path).unwrap();
@@ -257,20 +274,17 @@ fn variants_and_precision_reach_every_output() {
         let name = m["method"].as_str().unwrap();
         let row = table
             .lines()
-            .find(|l| l.starts_with(&format!("| {name} |")))
+            .find(|l| first_cell(l) == Some(name))
             .unwrap_or_else(|| panic!("no robust row for {name}"));
         let cells: Vec<&str> = row.split('|').map(str::trim).collect();
         let f = m["slowest_rate_hz"].as_f64().unwrap();
-        assert_same(cells[3], &fmt_num(f), f);
+        assert_same(cells[4], &fmt_num(f), f);
         let n = m["nominal_slowest_rate_hz"].as_f64().unwrap();
-        assert_same(cells[4], &fmt_num(n), n);
+        assert_same(cells[5], &fmt_num(n), n);
     }
     // Both formats are in the precision table and in pick.json.
     for f in ["q11", "f32"] {
-        assert!(
-            md.lines().any(|l| l.starts_with(&format!("| {f} |"))),
-            "{f}"
-        );
+        assert!(md.lines().any(|l| first_cell(l) == Some(f)), "{f}");
         assert!(
             json["precision"]["at_recommended"]
                 .as_array()

@@ -55,8 +55,15 @@ fn jumped_continuous_figures_equal_the_walk_on_every_demo_case() {
             Some(HoldApprox::Pade22.transfer(theta)),
         ];
         for act in &acts {
-            let cl = ContinuousLoop::new(&lp.plant_model, &lp.plant, &lp.sensor, c, act.as_ref())
-                .unwrap();
+            let cl = ContinuousLoop::new(
+                &lp.plant_model,
+                &lp.plant,
+                &lp.sensor,
+                c,
+                act.as_ref(),
+                None,
+            )
+            .unwrap();
             let poles = cl.poles().unwrap();
             if poles.iter().any(|p| p.re >= 0.0) {
                 continue;
@@ -103,7 +110,7 @@ fn lightly_damped_design_past_the_walks_cap_gets_its_answer() {
     let Controller::Continuous(c) = &lp.controller else {
         panic!("a continuous design");
     };
-    let cl = ContinuousLoop::new(&lp.plant_model, &lp.plant, &lp.sensor, c, None).unwrap();
+    let cl = ContinuousLoop::new(&lp.plant_model, &lp.plant, &lp.sensor, c, None, None).unwrap();
     let poles = cl.poles().unwrap();
     let (ws, _) = cl.walked_time_figures(&poles, &lp.time).unwrap();
     assert!(

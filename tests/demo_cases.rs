@@ -27,12 +27,15 @@ fn picked(name: &str) -> (Case, PreparedLoop, PickReport) {
     (c, lp, report)
 }
 
-const ALL: [&str; 5] = [
+const ALL: [&str; 8] = [
     "belt-conveyor.toml",
     "oven-heater.toml",
     "gimbal-axis.toml",
     "buck-converter.toml",
     "pump-pressure-tight-cpu.toml",
+    "motor-current-loop.toml",
+    "dryer-transport-delay.toml",
+    "hold-comparison.toml",
 ];
 
 #[test]
@@ -193,9 +196,15 @@ fn the_summary_and_json_state_the_window_and_what_would_open_an_empty_one() {
         (a - lo).abs() < 1e-3 * lo && (b - hi).abs() < 1e-3 * hi,
         "{text}"
     );
+    // The CPU budget would allow more than the sweep checked: the window
+    // stops at the last rate checked and says so.
     assert!(
-        text.contains("(spec with headroom .. CPU budget)"),
+        text.contains("last rate checked") && text.contains("CPU budget would allow"),
         "{text}"
+    );
+    assert_eq!(
+        belt.window.as_ref().unwrap().high_hz,
+        demo("belt-conveyor.toml").rates.max_hz
     );
     assert!(text.contains("the headroom covers model error"));
     let json = serde_json::to_value(&belt).unwrap();
@@ -257,4 +266,97 @@ fn the_summary_and_json_state_the_window_and_what_would_open_an_empty_one() {
     ] {
         assert!(text.contains(item), "advice `{item}` missing:\n{text}");
     }
+}
+
+#[test]
+fn the_hold_comparison_recommends_the_cheapest_hold_and_says_why() {
+    // Every (method, hold) at the design delay is searched; the
+    // recommendation is the lowest f_star among them (ties to the first
+    // listed), and its basis names each other hold's best rate.
+    let (c, _, report) = picked("hold-comparison.toml");
+    let rec = report.recommended.clone().unwrap();
+    let best = report
+        .methods
+        .iter()
+        .filter(|m| m.compute_delay == report.design_delay)
+        .filter_map(|m| m.slowest_rate_hz)
+        .fold(f64::INFINITY, f64::min);
+    assert_eq!(rec.slowest_rate_hz, best);
+    assert_eq!(report.methods.len(), c.methods.len() * c.holds.len());
+    for h in &c.holds {
+        assert!(rec.hold_basis.contains(h.name()), "{}", rec.hold_basis);
+    }
+    let text = looprate::summary::pick_text(&report);
+    assert!(text.contains("Hold: "), "{text}");
+}
+
+#[test]
+fn every_rate_inside_a_reported_window_meets_the_spec_when_evaluated_directly() {
+    // The window claims only checked rates: 40 rates spread over it (ends
+    // included), each evaluated on its own at the recommended method and
+    // delay, all feasible; and the top is not above the swept range.
+    let (mut checked, mut with_arithmetic) = (0, 0);
+    for name in [
+        "belt-conveyor.toml",
+        "gimbal-axis.toml",
+        "buck-converter.toml",
+    ] {
+        let (case, lp, report) = picked(name);
+        let Some([lo, hi]) = report.window_hz else {
+            panic!("{name}: a window was expected");
+        };
+        assert!(
+            hi <= case.rates.max_hz,
+            "{name}: window top {hi} above max_hz"
+        );
+        let rec = report.recommended.as_ref().unwrap();
+        let method = rec.method.parse().ok();
+        for i in 0..=40 {
+            let rate = lo * (hi / lo).powf(i as f64 / 40.0);
+            let p = looprate::evaluate::Point {
+                rate_hz: rate,
+                method,
+                delay: rec.compute_delay,
+                hold: rec.hold,
+            };
+            let a = looprate::feasibility::assess(&lp.sampled(&p), &case.spec);
+            assert!(
+                a.feasible,
+                "{name}: {rate} Hz inside the window fails ({:?})",
+                a.limiting
+            );
+            // The coefficient check: with `[arithmetic]` the controller
+            // rounded to the format that bounds the window, in the case's
+            // structure, passes too (the same check the precision ceiling
+            // is searched on, evaluated here at each rate on its own).
+            if let Some(arith) = &case.arithmetic {
+                let check_hz = lp
+                    .design
+                    .as_ref()
+                    .and_then(|d| d.figures.as_ref())
+                    .and_then(|f| f.crossover_hz);
+                let v = looprate::precision::judge_point(
+                    &lp,
+                    &case.spec,
+                    &p,
+                    arith.structure,
+                    arith.formats[0],
+                    check_hz,
+                    None,
+                );
+                assert!(
+                    v.assessment.feasible,
+                    "{name}: {rate} Hz inside the window fails in {} ({:?}, {:?})",
+                    arith.formats[0], v.assessment.limiting, v.reason
+                );
+            }
+        }
+        checked += 1;
+        with_arithmetic += usize::from(case.arithmetic.is_some());
+    }
+    assert_eq!(checked, 3);
+    assert!(
+        with_arithmetic >= 1,
+        "no window bounded by a format was checked"
+    );
 }

@@ -39,7 +39,12 @@ fn tustin_of_integrator() {
     // Closed form: tustin of K/s is (KT/2)(z+1)/(z-1).
     let (k, t) = (7.5, 0.01);
     let d = discretize(&transfer(&[k], &[1.0, 0.0]), Method::Tustin, t, None).unwrap();
-    assert_coeffs(&d.transfer.numerator, &[k * t / 2.0, k * t / 2.0], 1e-14, "num");
+    assert_coeffs(
+        &d.transfer.numerator,
+        &[k * t / 2.0, k * t / 2.0],
+        1e-14,
+        "num",
+    );
     assert_coeffs(&d.transfer.denominator, &[1.0, -1.0], 1e-14, "den");
 }
 
@@ -62,7 +67,13 @@ fn matched_lead_lag() {
     // Closed form: matched of (s+a)/(s+b) is K (z - e^{-aT})/(z - e^{-bT})
     // with K set so the DC gains agree: a/b = K (1-e^{-aT})/(1-e^{-bT}).
     let (a, b, t) = (2.0, 20.0, 0.01);
-    let d = discretize(&transfer(&[1.0, a], &[1.0, b]), Method::PoleZeroMatch, t, None).unwrap();
+    let d = discretize(
+        &transfer(&[1.0, a], &[1.0, b]),
+        Method::PoleZeroMatch,
+        t,
+        None,
+    )
+    .unwrap();
     let (za, pb) = ((-a * t).exp(), (-b * t).exp());
     let k = (a / b) * (1.0 - pb) / (1.0 - za);
     assert_coeffs(&d.transfer.numerator, &[k, -k * za], 1e-13, "num");
@@ -74,12 +85,29 @@ fn matched_with_integrators() {
     // Pure integrator 1/s: zero at infinity -> z = -1, pole -> z = 1, and
     // ((z-1)/T) C(z) -> 1 at z = 1 gives (T/2)(z+1)/(z-1) (closed form).
     let t = 0.02;
-    let d = discretize(&transfer(&[1.0], &[1.0, 0.0]), Method::PoleZeroMatch, t, None).unwrap();
-    assert_coeffs(&d.transfer.numerator, &[t / 2.0, t / 2.0], 1e-14, "integrator num");
+    let d = discretize(
+        &transfer(&[1.0], &[1.0, 0.0]),
+        Method::PoleZeroMatch,
+        t,
+        None,
+    )
+    .unwrap();
+    assert_coeffs(
+        &d.transfer.numerator,
+        &[t / 2.0, t / 2.0],
+        1e-14,
+        "integrator num",
+    );
     // PI kp + ki/s = (kp s + ki)/s: the zero -ki/kp maps to e^{-ki T/kp} and
     // ((z-1)/T) C(z) at z = 1 equals ki (closed form).
     let (kp, ki) = (0.8, 12.0);
-    let d = discretize(&transfer(&[kp, ki], &[1.0, 0.0]), Method::PoleZeroMatch, t, None).unwrap();
+    let d = discretize(
+        &transfer(&[kp, ki], &[1.0, 0.0]),
+        Method::PoleZeroMatch,
+        t,
+        None,
+    )
+    .unwrap();
     let zero = (-ki / kp * t).exp();
     let g = ki * t / (1.0 - zero);
     assert_coeffs(&d.transfer.numerator, &[g, -g * zero], 1e-13, "PI num");
@@ -102,16 +130,39 @@ fn zoh_textbook_double_pole() {
     // Zero-order-hold equivalent of 1/(s(s+1)) at T = 1 s is
     // (0.3679 z + 0.2642)/((z-1)(z-0.3679)) (Ogata, Discrete-Time Control
     // Systems; from memory), to half a unit of the 4th decimal quoted.
-    let d = discretize(&transfer(&[1.0], &[1.0, 1.0, 0.0]), Method::StepInvariant, 1.0, None).unwrap();
-    for (g, w) in d.transfer.numerator.descending().iter().zip([0.3679, 0.2642]) {
+    let d = discretize(
+        &transfer(&[1.0], &[1.0, 1.0, 0.0]),
+        Method::StepInvariant,
+        1.0,
+        None,
+    )
+    .unwrap();
+    for (g, w) in d
+        .transfer
+        .numerator
+        .descending()
+        .iter()
+        .zip([0.3679, 0.2642])
+    {
         assert!((g - w).abs() <= 5e-5, "num {g} vs {w}");
     }
-    for (g, w) in d.transfer.denominator.descending().iter().zip([1.0, -1.3679, 0.3679]) {
+    for (g, w) in d
+        .transfer
+        .denominator
+        .descending()
+        .iter()
+        .zip([1.0, -1.3679, 0.3679])
+    {
         assert!((g - w).abs() <= 5e-5, "den {g} vs {w}");
     }
     // Exact closed form: num = (e^{-1}) z + (1 - 2 e^{-1}).
     let e = (-1.0f64).exp();
-    assert_coeffs(&d.transfer.numerator, &[e, 1.0 - 2.0 * e], 1e-13, "num exact");
+    assert_coeffs(
+        &d.transfer.numerator,
+        &[e, 1.0 - 2.0 * e],
+        1e-13,
+        "num exact",
+    );
 }
 
 #[test]
@@ -121,7 +172,12 @@ fn euler_maps() {
     let (a, t) = (10.0, 0.01);
     let f = discretize(&transfer(&[a], &[1.0, a]), Method::ForwardEuler, t, None).unwrap();
     assert_coeffs(&f.transfer.numerator, &[a * t], 1e-14, "fe num");
-    assert_coeffs(&f.transfer.denominator, &[1.0, a * t - 1.0], 1e-14, "fe den");
+    assert_coeffs(
+        &f.transfer.denominator,
+        &[1.0, a * t - 1.0],
+        1e-14,
+        "fe den",
+    );
     let b = discretize(&transfer(&[a], &[1.0, a]), Method::BackwardEuler, t, None).unwrap();
     let l = 1.0 + a * t;
     assert_coeffs(&b.transfer.numerator, &[a * t / l, 0.0], 1e-14, "be num");

@@ -4,18 +4,19 @@
 
 use looprate::discretize::Method;
 use looprate::evaluate::{Point, PreparedLoop};
-use looprate::hold::{HoldEquivalent, plant_and_sensor};
+use looprate::hold::{HoldEquivalent, HoldKind, plant_and_sensor};
 use looprate::poly::{C64, Poly};
-use looprate::transfer::{Controller, Transfer};
 use looprate::time_response::TimeOptions;
+use looprate::transfer::{Controller, Transfer};
 
 fn transfer(num: &[f64], den: &[f64]) -> Transfer {
     Transfer::new(Poly::from_descending(num), Poly::from_descending(den))
 }
 
 /// Brute force: 400 000 log-spaced points up to Nyquist; crossings by
-/// sign change with linear interpolation in ln w; margins from the
-/// nearest scan point. Returns (smallest PM deg, |GM| dB nearest 0, Ms).
+/// sign change; margins from the nearest scan point, plus both ends where
+/// the loop gain is real and negative (`docs/figures.md`). Returns (the PM
+/// of smallest size, sign kept; the GM nearest 0 dB, sign kept; Ms).
 fn scan(l: &dyn Fn(f64) -> C64, w_lo: f64, w_hi: f64) -> (Option<f64>, Option<f64>, f64) {
     let n = 400_000;
     let mut pm: Option<f64> = None;
@@ -36,7 +37,7 @@ fn scan(l: &dyn Fn(f64) -> C64, w_lo: f64, w_hi: f64) -> (Option<f64>, Option<f6
                 if p > 180.0 {
                     p -= 360.0;
                 }
-                pm = Some(pm.map_or(p, |m: f64| m.min(p)));
+                pm = Some(pm.map_or(p, |m: f64| if p.abs() < m.abs() { p } else { m }));
             }
             let (q0, q1) = (
                 ((pp + 180.0) / 360.0).floor(),
@@ -48,6 +49,13 @@ fn scan(l: &dyn Fn(f64) -> C64, w_lo: f64, w_hi: f64) -> (Option<f64>, Option<f6
             }
         }
         prev = Some((w, v, phase));
+    }
+    // The ends: w -> 0 when the loop gain is finite there, and Nyquist.
+    for v in [l(0.0), l(w_hi)] {
+        if v.re < 0.0 && v.im.abs() <= 1e-9 * v.norm() && v.norm().is_finite() {
+            let g = -20.0 * v.norm().log10();
+            gm = Some(gm.map_or(g, |m: f64| if g.abs() < m.abs() { g } else { m }));
+        }
     }
     (pm, gm, ms)
 }
@@ -118,6 +126,7 @@ fn margins_match_a_dense_scan_on_five_loops() {
             rate_hz: rate,
             method: Some(Method::Tustin),
             delay: 0.5,
+            hold: HoldKind::ZeroOrder,
         };
         let e = lp.sampled(&p);
         let f = e
@@ -164,8 +173,11 @@ fn half_period_delay_matches_fine_step_simulation() {
     // exact equivalent must match RK4 with 20 000 steps per period over a
     // few periods of an arbitrary input sequence (plant 20/((s+2)(s+5)),
     // sensor 1/(0.01 s + 1); both outputs compared).
-    let model =
-        plant_and_sensor(&transfer(&[20.0], &[1.0, 7.0, 10.0]), &transfer(&[1.0], &[0.01, 1.0])).unwrap();
+    let model = plant_and_sensor(
+        &transfer(&[20.0], &[1.0, 7.0, 10.0]),
+        &transfer(&[1.0], &[0.01, 1.0]),
+    )
+    .unwrap();
     let t = 0.05;
     let eq = HoldEquivalent::new(&model, t, 0.5, 16).unwrap();
     let u = [1.0, -0.5, 2.0, 0.0, 0.7];

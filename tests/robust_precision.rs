@@ -4,6 +4,7 @@
 
 use std::path::Path;
 
+use looprate::budget::WindowBound;
 use looprate::case::Case;
 use looprate::discretize::{Method, discretize};
 use looprate::pick::{PickReport, case_grid, prepare, sweep_and_pick};
@@ -58,7 +59,10 @@ fn lag_pole_rounds_onto_z1_at_the_closed_form_rate() {
     // onto 1 once p >= 1 - 2^-7, at f_c = a / -ln(1 - 2^-7) = 1274.99 Hz.
     let a = 10.0;
     let f_c = a / -(1.0 - 2f64.powi(-8)).ln();
-    for (structure, f_c) in [("transposed-direct", f_c), ("sos", a / -(1.0 - 2f64.powi(-7)).ln())] {
+    for (structure, f_c) in [
+        ("transposed-direct", f_c),
+        ("sos", a / -(1.0 - 2f64.powi(-7)).ln()),
+    ] {
         let text =
             format!("{LAG_LOOP}[arithmetic]\nformats = [\"q7\"]\nstructure = \"{structure}\"\n");
         let c = case(&text);
@@ -80,7 +84,18 @@ fn lag_pole_rounds_onto_z1_at_the_closed_form_rate() {
         assert_eq!(ceil.limiting.as_deref(), Some("pole_on_z1"), "{structure}");
         // The rate window is now bounded by the format, and says so.
         let w = report.window.as_ref().unwrap();
-        assert_eq!(w.high_bound, format!("q7 coefficients ({structure})"));
+        assert_eq!(
+            w.high_bound,
+            WindowBound::Coefficients {
+                format: "q7".into(),
+                structure: structure.into(),
+                fails_at_start: None
+            }
+        );
+        assert_eq!(
+            w.high_bound.to_string(),
+            format!("q7 coefficients ({structure})")
+        );
         assert!((w.high_hz / f_c - 1.0).abs() <= 2e-4);
     }
     // Directly: just below and just above f_c, the pole count at z = 1.
@@ -393,4 +408,182 @@ fn double_integrator_stays_exact_in_sos() {
         looprate::precision::design_integrators(&looprate::transfer::Controller::Discrete(d)),
         2
     );
+}
+
+/// An invented voice-coil position loop: a PI-lead controller with an
+/// integrator, tustin, stored in f32 as one transposed-direct section. The
+/// denominator (z - 1)(z - p) has coefficients 1, -(1 + p), p; the
+/// integrator survives f32 rounding only when the rounded -(1 + p) and p
+/// still sum to exactly -1, which happens at some rates and not at others
+/// (from the rounding rule stated in `precision`): the coefficient check
+/// is not monotone in the rate.
+const VOICE_COIL: &str = r#"
+[plant]
+transfer = "1000 / (s * (0.001*s + 1))"
+[controller]
+transfer = "2 * (s + 50) * (s + 300) / (s * (s + 3000))"
+[timing]
+compute_delay = [1]
+[rates]
+min_hz = 200
+max_hz = 50000
+points = 120
+[methods]
+use = ["tustin"]
+[spec]
+min_phase_margin_deg = 30
+min_gain_margin_db = 6
+[arithmetic]
+formats = ["f32"]
+structure = "transposed-direct"
+"#;
+
+#[test]
+fn a_ceiling_is_never_above_a_failing_rate_when_rounding_is_not_monotone() {
+    // One sweep, picked with several headrooms so the ceiling search
+    // starts at several rates. At each start, every swept rate from the
+    // start up to the reported ceiling must pass when judged directly, and
+    // the first failure reported must fail (checked here on its own).
+    let mut c = case(VOICE_COIL);
+    let lp = prepare(&c).unwrap();
+    let rows = sweep::run(&Plan::for_case(&c, &lp, None), &case_grid(&c, &lp), &|| {});
+    let check_hz = lp
+        .design
+        .as_ref()
+        .and_then(|d| d.figures.as_ref())
+        .and_then(|f| f.crossover_hz);
+    let spec = c.spec.clone();
+    let judge = |rate: f64| {
+        let p = looprate::evaluate::Point {
+            rate_hz: rate,
+            method: Some(Method::Tustin),
+            delay: 1.0,
+            hold: looprate::hold::HoldKind::ZeroOrder,
+        };
+        looprate::precision::judge_point(
+            &lp,
+            &spec,
+            &p,
+            Structure::TransposedDirect,
+            Format::F32,
+            check_hz,
+            None,
+        )
+        .assessment
+    };
+    let grid: Vec<f64> = rows.iter().map(|r| r.point.rate_hz).collect();
+    // The case is what it claims: the f32 verdict flips back and forth
+    // over the grid (at least three runs of each).
+    let verdicts: Vec<bool> = rows
+        .iter()
+        .map(|r| r.precision[0].assessment.feasible)
+        .collect();
+    let flips = verdicts.windows(2).filter(|w| w[0] != w[1]).count();
+    assert!(flips >= 6, "not a non-monotone case: {flips} flips");
+    let (mut with_ceiling, mut failing_at_start) = (0, 0);
+    for k in 0..=12 {
+        c.spec.headroom = 1.0 + 0.05 * k as f64;
+        let report = looprate::pick::pick(&c, &lp, None, &rows, &Silent);
+        let Some(pr) = report.precision.as_ref() else {
+            continue;
+        };
+        let ceil = &pr.ceilings[0];
+        let from = ceil.from_hz;
+        match ceil.ceiling.rate_hz {
+            None => {
+                failing_at_start += 1;
+                assert!(!judge(from).feasible, "start {from} Hz passes directly");
+                assert_eq!(ceil.ceiling.first_failure_hz, Some(from));
+            }
+            Some(h) => {
+                with_ceiling += 1;
+                assert!(!ceil.ceiling.above_range, "the case fails within the sweep");
+                for &f in grid.iter().filter(|&&f| f >= from && f <= h) {
+                    let a = judge(f);
+                    assert!(
+                        a.feasible,
+                        "start {from} Hz: {f} Hz below the ceiling {h} Hz fails ({:?})",
+                        a.limiting
+                    );
+                }
+                assert!(judge(h).feasible, "the ceiling {h} Hz itself fails");
+                let first = ceil.ceiling.first_failure_hz.unwrap();
+                assert!(
+                    first > h && first / h - 1.0 <= 1e-4 + 1e-12,
+                    "{first} vs {h}"
+                );
+                assert!(!judge(first).feasible, "{first} Hz reported failing passes");
+            }
+        }
+    }
+    assert!(
+        with_ceiling >= 1 && failing_at_start >= 1,
+        "{with_ceiling} / {failing_at_start}"
+    );
+}
+
+#[test]
+fn the_advice_says_when_sos_keeps_the_integral_action_that_transposed_direct_loses() {
+    let c = case(VOICE_COIL);
+    let report = run(&c);
+    let pr = report.precision.as_ref().unwrap();
+    let o = pr
+        .other_structure
+        .as_ref()
+        .expect("the integral action is lost in f32");
+    assert_eq!(o.structure, "sos");
+    assert!(o.kept_at_every_rate, "{o:?}");
+    let text = report
+        .advice
+        .iter()
+        .chain(&report.notes)
+        .cloned()
+        .collect::<Vec<_>>();
+    assert!(
+        text.iter()
+            .any(|a| a.contains("sos keeps the integral action in f32")),
+        "{text:?}"
+    );
+    // By meaning: integral action is a gain growing as 1/w towards w = 0.
+    // Ten times closer to z = 1 the controller's gain grows about ten
+    // times with the integrator, and stays put without it (a pole a
+    // rounding step off z = 1, about 1e-7 for f32, bounds the gain once
+    // wT is well below that step).
+    let integrators = looprate::precision::design_integrators(&lp_controller(&c));
+    let growth = |structure: Structure, rate: f64| {
+        let lp = prepare(&c).unwrap();
+        let d = lp.controller_at(rate, Some(Method::Tustin)).unwrap();
+        let q = quantize(&d, integrators, structure, Format::F32, None).unwrap();
+        let w = |wt: f64| wt * rate;
+        q.controller.freq(w(1e-10)).norm() / q.controller.freq(w(1e-9)).norm()
+    };
+    let lost = o.lost_at_hz;
+    assert!(
+        growth(Structure::TransposedDirect, lost) < 2.0,
+        "transposed-direct at {lost} Hz"
+    );
+    let lp = prepare(&c).unwrap();
+    for r in rows_above(&c, &lp, report.recommended.as_ref().unwrap().rate_hz) {
+        let g = growth(Structure::Sos, r);
+        assert!(g > 5.0, "sos at {r} Hz: gain grows only {g} times");
+    }
+}
+
+fn lp_controller(c: &Case) -> looprate::transfer::Controller {
+    prepare(c).unwrap().controller
+}
+
+/// The swept rates at or above `from` (a few of them, spread out).
+fn rows_above(c: &Case, lp: &looprate::evaluate::PreparedLoop, from: f64) -> Vec<f64> {
+    let rates: Vec<f64> = case_grid(c, lp)
+        .iter()
+        .map(|p| p.rate_hz)
+        .filter(|&f| f >= from)
+        .collect();
+    rates
+        .iter()
+        .step_by(7)
+        .copied()
+        .chain(rates.last().copied())
+        .collect()
 }

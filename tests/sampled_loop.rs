@@ -4,9 +4,10 @@
 use looprate::continuous::HoldApprox;
 use looprate::discretize::Method;
 use looprate::evaluate::{Point, PreparedLoop, Status};
+use looprate::hold::HoldKind;
 use looprate::poly::Poly;
-use looprate::transfer::{Controller, DiscreteTransfer, Transfer};
 use looprate::time_response::TimeOptions;
+use looprate::transfer::{Controller, DiscreteTransfer, Transfer};
 
 fn transfer(num: &[f64], den: &[f64]) -> Transfer {
     Transfer::new(Poly::from_descending(num), Poly::from_descending(den))
@@ -51,6 +52,7 @@ fn textbook_unity_feedback_step_samples() {
         rate_hz: 1.0,
         method: None,
         delay: 0.0,
+        hold: HoldKind::ZeroOrder,
     };
     let (step, _) = lp.sampled_traces(&p, Some(11)).unwrap();
     let samples: Vec<f64> = step.iter().filter(|q| q.sample).map(|q| q.y).collect();
@@ -108,6 +110,7 @@ fn intersample_overshoot_is_caught() {
         rate_hz: 1.0,
         method: None,
         delay: 0.0,
+        hold: HoldKind::ZeroOrder,
     });
     let f = e.figures.unwrap();
     let (peak_all, peak_samples) = brute_force_peak(1.0, 1.0, 40);
@@ -134,7 +137,14 @@ fn fast_sampling_tends_to_continuous_second_order() {
     let (wn, zeta) = (10.0f64, 0.4f64);
     let plant = transfer(&[wn * wn], &[1.0, 2.0 * zeta * wn, 0.0]);
     let c = Controller::Continuous(Transfer::gain(1.0));
-    let lp = PreparedLoop::new(&plant, &Transfer::gain(1.0), &c, None, TimeOptions::default()).unwrap();
+    let lp = PreparedLoop::new(
+        &plant,
+        &Transfer::gain(1.0),
+        &c,
+        None,
+        TimeOptions::default(),
+    )
+    .unwrap();
     let want = 100.0 * (-zeta * std::f64::consts::PI / (1.0 - zeta * zeta).sqrt()).exp();
     let design = lp.design.as_ref().unwrap().figures.clone().unwrap();
     assert!(
@@ -145,6 +155,7 @@ fn fast_sampling_tends_to_continuous_second_order() {
         rate_hz: 10_000.0,
         method: Some(Method::Tustin),
         delay: 0.0,
+        hold: HoldKind::ZeroOrder,
     });
     let f = e.figures.unwrap();
     assert!(
@@ -163,8 +174,16 @@ fn hold_costs_half_a_period_of_phase() {
     // delay. For small w T the exact loss must agree to within 10 % of the
     // predicted loss.
     let plant = transfer(&[40.0], &[1.0, 6.0, 0.0]);
-    let c = Controller::Continuous(transfer(&[1.0, 3.0], &[1.0, 30.0]).cascade(&Transfer::gain(5.0)));
-    let lp = PreparedLoop::new(&plant, &Transfer::gain(1.0), &c, None, TimeOptions::default()).unwrap();
+    let c =
+        Controller::Continuous(transfer(&[1.0, 3.0], &[1.0, 30.0]).cascade(&Transfer::gain(5.0)));
+    let lp = PreparedLoop::new(
+        &plant,
+        &Transfer::gain(1.0),
+        &c,
+        None,
+        TimeOptions::default(),
+    )
+    .unwrap();
     let design = lp.design.clone().unwrap().figures.unwrap();
     let wc = design.crossover_hz.unwrap() * 2.0 * std::f64::consts::PI;
     for (rate, d) in [(400.0, 0.0), (400.0, 1.0), (1000.0, 0.5)] {
@@ -173,6 +192,7 @@ fn hold_costs_half_a_period_of_phase() {
             rate_hz: rate,
             method: Some(Method::Tustin),
             delay: d,
+            hold: HoldKind::ZeroOrder,
         });
         let f = e.figures.unwrap();
         let loss = design.phase_margin_deg.unwrap() - f.phase_margin_deg.unwrap();
@@ -203,6 +223,7 @@ fn unstable_loop_reports_poles_only() {
         rate_hz: 1.0,
         method: None,
         delay: 0.0,
+        hold: HoldKind::ZeroOrder,
     });
     assert_eq!(e.status, Status::Unstable);
     assert!(e.figures.is_none());
@@ -229,10 +250,15 @@ fn loop_matrix_poles_agree_with_characteristic_polynomial() {
             rate_hz: rate,
             method: Some(Method::Tustin),
             delay: d,
+            hold: HoldKind::ZeroOrder,
         };
         let (hold, ctrl, cl) = lp.sampled_loop(&p).unwrap();
         let g = hold.pulse_transfer().unwrap();
-        let chp = ctrl.transfer.denominator.mul(&g.transfer.denominator).add(&ctrl.transfer.numerator.mul(&g.transfer.numerator));
+        let chp = ctrl
+            .transfer
+            .denominator
+            .mul(&g.transfer.denominator)
+            .add(&ctrl.transfer.numerator.mul(&g.transfer.numerator));
         let mut a: Vec<f64> = chp.roots().unwrap().iter().map(|z| z.norm()).collect();
         let mut b: Vec<f64> = cl.poles().unwrap().iter().map(|z| z.norm()).collect();
         a.sort_by(|x, y| x.total_cmp(y));
@@ -258,6 +284,7 @@ fn early_stop_certificate_changes_no_figure() {
             rate_hz: rate,
             method: Some(Method::PoleZeroMatch),
             delay: d,
+            hold: HoldKind::ZeroOrder,
         };
         let f = lp.sampled(&p).figures.unwrap();
         let (step, _) = lp.sampled_traces(&p, None).unwrap();
@@ -289,11 +316,19 @@ fn early_stop_never_misses_a_later_command_peak() {
     // independence; found in review).
     let plant = transfer(&[5.0, 1.0], &[1.0, 2.0, 1.0]);
     let c = Controller::Continuous(transfer(&[2.0], &[1.0, 0.0]));
-    let lp = PreparedLoop::new(&plant, &Transfer::gain(1.0), &c, None, TimeOptions::default()).unwrap();
+    let lp = PreparedLoop::new(
+        &plant,
+        &Transfer::gain(1.0),
+        &c,
+        None,
+        TimeOptions::default(),
+    )
+    .unwrap();
     let p = Point {
         rate_hz: 50.0,
         method: Some(Method::Tustin),
         delay: 0.5,
+        hold: HoldKind::ZeroOrder,
     };
     let f = lp.sampled(&p).figures.unwrap();
     let (step, _) = lp.sampled_traces(&p, None).unwrap();
@@ -324,6 +359,7 @@ fn crossover_below_the_default_grid_is_found() {
             rate_hz: 1e6,
             method: Some(Method::Tustin),
             delay: 1.0,
+            hold: HoldKind::ZeroOrder,
         })
         .figures
         .unwrap();
@@ -356,6 +392,7 @@ fn skipped_and_deferred_points_change_no_figure() {
             rate_hz: rate,
             method: Some(method),
             delay: d,
+            hold: HoldKind::ZeroOrder,
         };
         let Some(f) = lp.sampled(&p).figures else {
             continue;

@@ -12,10 +12,10 @@ use looprate::closed_loop::{ClosedLoop, Stability};
 use looprate::evaluate::{Point, PreparedLoop};
 use looprate::pick::{case_methods, prepare};
 use looprate::poly::Poly;
-use looprate::transfer::{Controller, Transfer};
 use looprate::time_response::{
     DisturbanceFigures, StepFigures, TimeOptions, horizon_periods, sampled_figures, walked_figures,
 };
+use looprate::transfer::{Controller, Transfer};
 use proptest::prelude::*;
 
 fn transfer(num: &[f64], den: &[f64]) -> Transfer {
@@ -141,6 +141,7 @@ fn check_case(c: &Case, rates: usize) -> usize {
                     rate_hz: *rate,
                     method,
                     delay,
+                    hold: looprate::hold::HoldKind::ZeroOrder,
                 };
                 if let Some((j, w)) = both_at(&lp, &p) {
                     compare(
@@ -221,6 +222,7 @@ fn lightly_damped_loop_matches_the_full_walk_and_is_decided() {
             rate_hz: rate,
             method: Some(looprate::discretize::Method::Tustin),
             delay: 0.5,
+            hold: looprate::hold::HoldKind::ZeroOrder,
         };
         let at = format!("lightly damped {rate} Hz");
         let (j, w) = both_at(&lp, &p).expect("stable, walkable");
@@ -233,6 +235,7 @@ fn lightly_damped_loop_matches_the_full_walk_and_is_decided() {
         rate_hz: 1e6,
         method: Some(looprate::discretize::Method::Tustin),
         delay: 0.5,
+        hold: looprate::hold::HoldKind::ZeroOrder,
     };
     let f = lp.sampled(&p).figures.unwrap();
     assert!(f.undecided.is_empty(), "{:?}", f.undecided);
@@ -272,6 +275,7 @@ proptest! {
             rate_hz: fastest * rate_ratio,
             method: Some(looprate::discretize::Method::ALL[method]),
             delay,
+            hold: looprate::hold::HoldKind::ZeroOrder,
         };
         if let Some((j, w)) = both_at(&lp, &p) {
             compare(&j, &w, &format!("{p:?} plant {plant:?}"));

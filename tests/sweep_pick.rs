@@ -185,8 +185,25 @@ fn search_agrees_with_a_brute_force_scan() {
     assert!((report.cpu_ceiling_hz.unwrap() - 10434.782608695652).abs() < 1e-6);
     let load = rec.cpu_load_pct.unwrap();
     assert!((load - 460.0 * rec.rate_hz / 48e6 * 100.0).abs() < 1e-9 * load);
+    // The CPU ceiling lies above the swept range (max_hz = 2000 Hz): the
+    // window claims only checked rates and stops at max_hz, saying so.
     let w = report.window_hz.expect("a window");
-    assert_eq!(w, [rec.rate_hz, report.cpu_ceiling_hz.unwrap()]);
+    assert_eq!(w, [rec.rate_hz, 2000.0]);
+    let bound = &report.window.as_ref().unwrap().high_bound;
+    assert_eq!(
+        *bound,
+        looprate::budget::WindowBound::LastRateChecked {
+            checked_hz: 2000.0,
+            beyond: Box::new(looprate::budget::WindowBound::CpuBudget),
+            beyond_hz: report.cpu_ceiling_hz.unwrap(),
+        }
+    );
+    assert!(bound.to_string().starts_with("last rate checked"));
+    // In pick.json: a typed bound with its kind, the CPU ceiling beside it.
+    let json = serde_json::to_value(report.window.as_ref().unwrap()).unwrap();
+    assert_eq!(json["high_bound"]["kind"], "last-rate-checked");
+    assert_eq!(json["high_bound"]["beyond"]["kind"], "cpu-budget");
+    assert_eq!(json["cpu_ceiling_hz"], report.cpu_ceiling_hz.unwrap());
 }
 
 #[test]
@@ -322,7 +339,8 @@ max_load_pct = 50
     assert!(
         line.contains(&format!(
             "window {} Hz to 1000 Hz",
-            looprate::summary::fmt_num(fe * 1.25)
+            // The low end rounded up, so the quoted window lies inside.
+            looprate::summary::fmt_at_least(fe * 1.25)
         )),
         "{line}"
     );

@@ -6,7 +6,7 @@ For one loop (plant P, sensor H, continuous controller C, each as numerator /
 denominator coefficient lists in descending powers of s) and each chosen grid
 point (rate, method, computation delay d):
 
-  1. discretize C(s) (scipy `cont2discrete`; `matched` and `tustin-prewarp`
+  1. discretize C(s) (scipy `cont2discrete`; `pole-zero-match` and `tustin-prewarped`
      by hand with numpy),
   2. exact fractional-delay zero-order-hold equivalent of P*H with two
      `scipy.linalg.expm` calls of the augmented matrix [[A, B], [0, 0]]:
@@ -29,8 +29,9 @@ Usage:
 CASE.json: {"plant": [num, den], "sensor": [num, den], "controller": [num, den],
             "rates": {"min_hz", "max_hz", "points", "spacing"},
             "methods": [...], "delays": [...], "prewarp_hz": optional}
-Method names are looprate's (zoh, foh, impulse, tustin, tustin-prewarp,
-matched, forward-euler, backward-euler).
+Method names are looprate's (step-invariant, ramp-invariant,
+impulse-invariant, tustin, tustin-prewarped, pole-zero-match, forward-euler,
+backward-euler).
 
 Prints points per second over the N timed points. Only the per-point work is
 timed; reading the case and the continuous crossover (the default pre-warp
@@ -59,9 +60,9 @@ BAND = 0.02
 warnings.filterwarnings("ignore", category=sig.BadCoefficients)
 
 SCIPY_NAME = {
-    "zoh": "zoh",
-    "foh": "foh",
-    "impulse": "impulse",
+    "step-invariant": "zoh",
+    "ramp-invariant": "foh",
+    "impulse-invariant": "impulse",
     "tustin": "bilinear",
     "forward-euler": "euler",
     "backward-euler": "backward_diff",
@@ -99,16 +100,16 @@ def matched(num, den, T):
 
 
 def discretize(num, den, T, method, w0):
-    if method == "matched":
+    if method == "pole-zero-match":
         return matched(num, den, T)
-    if method == "tustin-prewarp":
+    if method == "tustin-prewarped":
         if w0 * T >= np.pi:
             return None  # infeasible at this rate
         # s = k (z-1)/(z+1), k = w0/tan(w0 T/2): plain bilinear at T' = 2/k
         k = w0 / np.tan(w0 * T / 2)
         nd, dd, _ = sig.cont2discrete((num, den), 2.0 / k, method="bilinear")
         return np.ravel(nd), np.ravel(dd)
-    if method == "impulse":
+    if method == "impulse-invariant":
         # scipy's impulse method takes strictly proper systems only: split
         # off the feedthrough D and add it back, C(z) = D + C_sp(z)
         num = np.trim_zeros(np.asarray(num, float), "f")

@@ -31,13 +31,13 @@ cat > "$CASE" <<'TOML'
 title = "compare bench: 4th-order plant, 2nd-order controller"
 
 [plant]
-tf = "400*(2*3.14159265*60)^2 / (s*(0.01*s+1)*(s^2 + 2*0.3*(2*3.14159265*60)*s + (2*3.14159265*60)^2))"
+transfer = "400*(2*3.14159265*60)^2 / (s*(0.01*s+1)*(s^2 + 2*0.3*(2*3.14159265*60)*s + (2*3.14159265*60)^2))"
 
 [sensor]
-tf = "1/(s/2000+1)"
+transfer = "1/(s/2000+1)"
 
 [controller]
-tf = "0.05*(0.02*s^2+0.4*s+1)/(s*(s/400+1))"
+transfer = "0.05*(0.02*s^2+0.4*s+1)/(s*(s/400+1))"
 
 [timing]
 compute_delay = [0, 0.5, 1]
@@ -49,7 +49,7 @@ points = 200
 spacing = "log"
 
 [methods]
-use = ["zoh", "foh", "impulse", "tustin", "tustin-prewarp", "matched", "forward-euler", "backward-euler"]
+use = ["step-invariant", "ramp-invariant", "impulse-invariant", "tustin", "tustin-prewarped", "pole-zero-match", "forward-euler", "backward-euler"]
 
 [spec]
 max_overshoot_pct = 25
@@ -64,8 +64,9 @@ p = [json.loads(m) for m in re.findall(r"(?:num|den)\(s\)\s+(\[.*\])", sys.stdin
 assert len(p) == 6, p
 json.dump(dict(plant=p[0:2], sensor=p[2:4], controller=p[4:6],
                rates=dict(min_hz=50, max_hz=5000, points=200, spacing="log"),
-               methods=["zoh", "foh", "impulse", "tustin", "tustin-prewarp",
-                        "matched", "forward-euler", "backward-euler"],
+               methods=["step-invariant", "ramp-invariant", "impulse-invariant", "tustin",
+                        "tustin-prewarped", "pole-zero-match", "forward-euler",
+                        "backward-euler"],
                delays=[0, 0.5, 1]), open(sys.argv[1], "w"))
 ' "$TMP/case.json"
 

@@ -33,24 +33,26 @@ pub(crate) struct Pen {
 /// Number of distinct series styles before the palette repeats.
 pub const PALETTE_LEN: usize = 8;
 
+// Our own order: teal first, then raspberry and olive, so that no
+// neighbouring pair shares lightness, dash and marker.
 const PENS: [Pen; PALETTE_LEN] = [
     Pen {
-        color: Rgb(0x1d, 0x4f, 0x91), // deep blue
+        color: Rgb(0x17, 0x85, 0x7b), // teal
         dash: &[],
         marker: Marker::Circle,
     },
     Pen {
-        color: Rgb(0xd4, 0x6f, 0x12), // burnt orange
+        color: Rgb(0xb2, 0x3a, 0x6d), // raspberry
         dash: &[5.0, 2.5],
         marker: Marker::Square,
     },
     Pen {
-        color: Rgb(0x17, 0x85, 0x7b), // teal
+        color: Rgb(0x80, 0x84, 0x1c), // olive
         dash: &[7.0, 2.5, 1.0, 2.5],
         marker: Marker::TriangleUp,
     },
     Pen {
-        color: Rgb(0x7b, 0x4d, 0xa6), // violet
+        color: Rgb(0x1d, 0x4f, 0x91), // deep blue
         dash: &[1.0, 2.0],
         marker: Marker::Diamond,
     },
@@ -60,12 +62,12 @@ const PENS: [Pen; PALETTE_LEN] = [
         marker: Marker::Cross,
     },
     Pen {
-        color: Rgb(0x80, 0x84, 0x1c), // olive
+        color: Rgb(0xd4, 0x6f, 0x12), // burnt orange
         dash: &[6.0, 2.0, 1.0, 2.0, 1.0, 2.0],
         marker: Marker::TriangleDown,
     },
     Pen {
-        color: Rgb(0xb2, 0x3a, 0x6d), // raspberry
+        color: Rgb(0x7b, 0x4d, 0xa6), // violet
         dash: &[2.5, 2.0],
         marker: Marker::Plus,
     },
