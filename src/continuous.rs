@@ -262,11 +262,35 @@ impl ContinuousLoop {
         poles: &[C64],
         opts: &TimeOptions,
     ) -> Result<(StepFigures, DisturbanceFigures), ModelError> {
+        if let Some(figs) = self.static_figures(opts) {
+            return Ok(figs);
+        }
         let (_, h) = grid_step(poles);
         if let Some(figs) = self.jumped_time_figures(h, opts)? {
             return Ok(figs);
         }
         self.walked_time_figures(poles, opts)
+    }
+
+    /// A loop of pure gains (no state): its outputs jump to their final
+    /// values at t = 0 and stay there, so the figures are those of that one
+    /// point (no overshoot, settled and risen at 0). None for a loop with
+    /// states.
+    fn static_figures(&self, opts: &TimeOptions) -> Option<(StepFigures, DisturbanceFigures)> {
+        if self.a.nrows() > 0 {
+            return None;
+        }
+        let step = (self.dyr, self.dur);
+        Some(continuous_metrics(
+            self.dyr,
+            self.dyw,
+            0.0,
+            0,
+            false,
+            opts.band,
+            |_| step,
+            &[self.dyw],
+        ))
     }
 
     /// The same figures by walking every grid step (capped at
@@ -278,6 +302,9 @@ impl ContinuousLoop {
         poles: &[C64],
         opts: &TimeOptions,
     ) -> Result<(StepFigures, DisturbanceFigures), ModelError> {
+        if let Some(figs) = self.static_figures(opts) {
+            return Ok(figs);
+        }
         let (horizon, h) = grid_step(poles);
         let want = (horizon / h).ceil();
         let capped = want > opts.max_steps as f64;

@@ -433,7 +433,7 @@ impl PreparedLoop {
             && !f.undecided.is_empty()
         {
             out.push(format!(
-                "undecided within the horizon of {:.4e} s (the slowest mode's decay to 1e-4): {}; a bound at its end cannot rule out a later peak, band exit or crossing",
+                "undecided within the horizon of {:.4e} s (the slowest mode's decay to 1e-4): {}; neither a bound at its end nor the bounded search work (a walk of at most 2^20 periods) could rule out a later peak, band exit or crossing",
                 f.horizon_s,
                 f.undecided.join(", ")
             ));

@@ -82,6 +82,12 @@ use crate::time_response::{OutputMap, ROUNDING_MARGIN, crossing, mat_vec};
 /// tell the phase of an oscillation); then the budget runs out.
 pub const LEAF_BUDGET: u64 = 1 << 12;
 
+/// Most nodes (of any level) one search looks at: with bounds that rule
+/// little out, a search could otherwise open most of a tree of up to 2^52
+/// periods without reaching a single period. Past it the figure is
+/// undecided here, as past `LEAF_BUDGET`.
+pub const NODE_BUDGET: u64 = 64 * LEAF_BUDGET;
+
 /// Relative size of the rounding of one output or command at the fixed
 /// point (dot products of a few tens of terms: about 1e-15; kept wide).
 const FLOOR_ROUNDING: f64 = 1e-12;
@@ -587,11 +593,15 @@ impl<'s, 'a> Run<'s, 'a> {
             level: s.levels,
             dz: self.dz0.clone(),
         });
-        let mut leaves = 0u64;
+        let (mut leaves, mut nodes) = (0u64, 0u64);
         while let Some(node) = heap.pop() {
             // Written so that an infinite bound keeps the node open.
             if node.upper <= best + tol {
                 break;
+            }
+            nodes += 1;
+            if nodes > NODE_BUDGET {
+                return (best, false);
             }
             if node.level == 0 {
                 leaves += 1;
@@ -638,11 +648,15 @@ impl<'s, 'a> Run<'s, 'a> {
         if !forward && tail_maybe {
             return Found::Undecided;
         }
-        let mut leaves = 0u64;
+        let (mut leaves, mut nodes) = (0u64, 0u64);
         let mut stack: Vec<(u64, usize, Vec<f64>)> = vec![(0, s.levels, self.dz0.clone())];
         while let Some((start, level, dz)) = stack.pop() {
             if start >= s.horizon {
                 continue;
+            }
+            nodes += 1;
+            if nodes > NODE_BUDGET {
+                return Found::Undecided;
             }
             if level == 0 {
                 leaves += 1;

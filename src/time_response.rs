@@ -57,7 +57,8 @@ pub struct StepFigures {
     pub horizon_s: f64,
     /// Keys of the figures (`overshoot_pct`, `settling_time_s`,
     /// `rise_time_s`, `u_peak`) that could not be decided: a bound at the
-    /// end of the horizon cannot rule out a later peak, exit or crossing
+    /// end of the horizon cannot rule out a later peak, exit or crossing, or
+    /// the search work ran out (`WALK_BUDGET`)
     /// (for the continuous design's walk fallback: its grid hit the step
     /// cap). Such a figure's value is absent (or, for `u_peak`, only a
     /// lower bound).
@@ -972,10 +973,17 @@ fn figures_from_ends(
     (step, dist)
 }
 
+/// Most periods a fallback walk goes through (`walk_step`,
+/// `walk_disturbance`): the walk is the route only when the stretch
+/// searches ran out of their budget, and its work grows with the periods
+/// walked, so it is bounded too. A figure the walk has not fixed within
+/// this many periods is undecided (its own status), never a time.
+pub const WALK_BUDGET: u64 = 1 << 20;
+
 /// The step by walking every period (points between samples skipped or
 /// deferred where a bound allows, stopped early on the certificate), over
-/// the whole horizon. A figure the walk has not fixed when the horizon
-/// ends is undecided.
+/// the horizon or `WALK_BUDGET` periods, whichever is shorter. A figure
+/// the walk has not fixed when it ends is undecided.
 fn walk_step(
     cl: &ClosedLoop,
     map: &OutputMap,
@@ -985,18 +993,31 @@ fn walk_step(
     cert: Option<&Certificate>,
     band: f64,
 ) -> StepFigures {
+    let n = periods.min(WALK_BUDGET) as usize;
+    let cut = (n as u64) < periods;
     let mut m = StepMetrics::new(ends.y_final, band).with_u_final(ends.u_final);
     let end = Some((&ends.zr, cert));
-    let run = simulate_sampled(cl, map, t, 1.0, 0.0, periods as usize, end, &mut m);
+    let run = simulate_sampled(cl, map, t, 1.0, 0.0, n, end, &mut m);
     let mut f = m.finish(periods as f64 * t, false);
-    if run >= periods as usize && ends.y_final != 0.0 {
+    if run >= n {
         // Not stopped by the certificate: what it has not fixed is open.
-        if !m.settled_for_good() {
-            f.settling_time_s = None;
-            f.undecided.push("settling_time_s");
+        if ends.y_final != 0.0 {
+            if !m.settled_for_good() || cut {
+                f.settling_time_s = None;
+                f.undecided.push("settling_time_s");
+            }
+            if f.rise_time_s.is_none() {
+                f.undecided.push("rise_time_s");
+            }
         }
-        if f.rise_time_s.is_none() {
-            f.undecided.push("rise_time_s");
+        if cut {
+            // Stopped by the work bound before the horizon: a later point
+            // may still raise a peak.
+            if ends.y_final != 0.0 {
+                f.overshoot_pct = None;
+                f.undecided.push("overshoot_pct");
+            }
+            f.undecided.push("u_peak");
         }
     }
     f
@@ -1017,7 +1038,8 @@ fn walk_disturbance(
         y_final: ends.yd_final,
         peak: 0.0,
     };
-    let n = periods as usize;
+    let n = periods.min(WALK_BUDGET) as usize;
+    let cut = (n as u64) < periods;
     let run_peak = simulate_sampled(cl, map, t, 0.0, 1.0, n, end, &mut peak);
     let mut rec = Recovery {
         yd_final: ends.yd_final,
@@ -1027,10 +1049,11 @@ fn walk_disturbance(
     };
     let run_rec = simulate_sampled(cl, map, t, 0.0, 1.0, n, end, &mut rec);
     let mut undecided = Vec::new();
-    if run_peak >= n {
+    let peak_open = run_peak >= n;
+    if peak_open {
         undecided.push("disturbance_peak");
     }
-    if run_rec >= n && (rec.since.is_none() || run_peak >= n) {
+    if run_rec >= n && (rec.since.is_none() || peak_open || cut) {
         undecided.push("recovery_time_s");
     }
     DisturbanceFigures {
