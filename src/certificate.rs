@@ -196,6 +196,71 @@ fn gramian(cl: &ClosedLoop, rows: &BoundedRows) -> Option<Vec<f64>> {
     None
 }
 
+/// Largest accepted `|S|_max |S^-1|_max dim` of the controller basis
+/// (`controller_basis`): the similarity `S^-1 A S` is formed in floating
+/// point, with errors of that size times the rounding unit, which the
+/// modal checks and widening must still cover.
+const MAX_BASIS_CONDITION: f64 = 1e6;
+
+/// A basis change `S` (with its inverse) that leaves the plant states and
+/// the held command alone and puts the controller's states in the
+/// controller's own (real) modal coordinates. A controller in z realised
+/// in controllable form has states that are successive values of one
+/// signal; at rates far above its poles these nearly coincide (its
+/// eigenvectors are nearly parallel, Vandermonde vectors of poles near
+/// z = 1), so the loop's modes, well separated in the continuous sense,
+/// read as ill-conditioned in those coordinates. None when the controller
+/// has fewer than two states, a defective or unresolved mode, or the basis
+/// itself is too ill-conditioned.
+pub(crate) fn controller_basis(cl: &ClosedLoop) -> Option<(DMatrix<f64>, DMatrix<f64>)> {
+    let dim = cl.a.nrows();
+    let first = cl.plant_states + 1;
+    if first + 2 > dim {
+        return None;
+    }
+    let m = dim - first;
+    let ac = cl.a.view((first, first), (m, m)).clone_owned();
+    let ev = crate::state_space::eigenvalues(&ac).ok()?;
+    if ev.len() != m {
+        return None;
+    }
+    let norm = ac.amax().max(1e-300);
+    let acc: Vec<C64> = ac.iter().map(|&v| C64::new(v, 0.0)).collect();
+    // nalgebra stores column-major; `eigenvector` wants row-major.
+    let rm: Vec<C64> = (0..m * m).map(|i| acc[(i % m) * m + i / m]).collect();
+    let mut s = DMatrix::identity(dim, dim);
+    let mut col = first;
+    let mut used = vec![false; m];
+    for i in 0..m {
+        if used[i] {
+            continue;
+        }
+        used[i] = true;
+        let lambda = ev[i];
+        if lambda.im != 0.0 {
+            let partner = (0..m).find(|&j| {
+                !used[j] && (ev[j] - lambda.conj()).norm() <= 1e-12 * (1.0 + lambda.norm())
+            })?;
+            used[partner] = true;
+        }
+        let v = eigenvector(&rm, m, lambda, norm)?;
+        for (r, x) in v.iter().enumerate() {
+            s[(first + r, col)] = x.re;
+            if lambda.im != 0.0 {
+                s[(first + r, col + 1)] = x.im;
+            }
+        }
+        col += if lambda.im != 0.0 { 2 } else { 1 };
+    }
+    if col != dim {
+        return None;
+    }
+    let sinv = s.clone().try_inverse()?;
+    // Written so that a NaN fails the check too.
+    let ok = s.amax() * sinv.amax() * dim as f64 <= MAX_BASIS_CONDITION;
+    ok.then_some((s, sinv))
+}
+
 impl ModalBound {
     /// Right and left eigenvectors by inverse iteration at each pole;
     /// None when a mode is defective or ill-conditioned, or any residual

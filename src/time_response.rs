@@ -926,10 +926,66 @@ fn figures_from_ends(
     opts: &TimeOptions,
     ends: Ends,
 ) -> (StepFigures, DisturbanceFigures) {
-    let periods = horizon_periods(poles, cl.a.nrows());
     let map = OutputMap::new(cl, hold);
     let cert = Certificate::new(cl, &map.bounded_rows(cl), poles);
-    let jumps = Stretches::new(cl, &map, cert.as_ref(), hold.period_s, periods);
+    if !cert.as_ref().is_some_and(|c| c.is_modal())
+        && let Some((moved, moved_poles, moved_ends)) = in_controller_basis(cl, &ends)
+    {
+        let map = OutputMap::new(&moved, hold);
+        let cert = Certificate::new(&moved, &map.bounded_rows(&moved), &moved_poles);
+        if cert.as_ref().is_some_and(|c| c.is_modal()) {
+            return figures_on(&moved, hold, poles, opts, moved_ends, &map, cert.as_ref());
+        }
+    }
+    figures_on(cl, hold, poles, opts, ends, &map, cert.as_ref())
+}
+
+/// The loop in the controller's modal coordinates
+/// (`certificate::controller_basis`, `z = S z'`), its eigenvalues and its
+/// fixed points: the same loop (same outputs, commands and figures), in
+/// coordinates where a controller far faster than its poles neither makes
+/// the modes look ill-conditioned nor carries states of a size whose
+/// differences the outputs read (which jumps by matrix powers would round
+/// away). None when that basis does not exist.
+fn in_controller_basis(cl: &ClosedLoop, ends: &Ends) -> Option<(ClosedLoop, Vec<C64>, Ends)> {
+    let (s, sinv) = crate::certificate::controller_basis(cl)?;
+    let moved = ClosedLoop {
+        a: &sinv * &cl.a * &s,
+        br: &sinv * &cl.br,
+        bw: &sinv * &cl.bw,
+        ku: (cl.ku.transpose() * &s).transpose(),
+        dur: cl.dur,
+        duw: cl.duw,
+        plant_states: cl.plant_states,
+    };
+    let poles = moved.poles().ok()?;
+    if crate::closed_loop::ClosedLoop::stability(&poles) != crate::closed_loop::Stability::Stable {
+        return None;
+    }
+    // Fixed points solved in the new coordinates (mapping the old ones
+    // would carry their rounding, of the size of the large controller
+    // states, into every later state); the final values the figures are
+    // measured against stay those of the loop as given.
+    let ends = Ends {
+        zr: moved.fixed_point(1.0, 0.0)?,
+        zw: moved.fixed_point(0.0, 1.0)?,
+        ..*ends
+    };
+    Some((moved, poles, ends))
+}
+
+#[allow(clippy::too_many_arguments)]
+fn figures_on(
+    cl: &ClosedLoop,
+    hold: &HoldEquivalent,
+    poles: &[C64],
+    opts: &TimeOptions,
+    ends: Ends,
+    map: &OutputMap,
+    cert: Option<&Certificate>,
+) -> (StepFigures, DisturbanceFigures) {
+    let periods = horizon_periods(poles, cl.a.nrows());
+    let jumps = Stretches::new(cl, map, cert, hold.period_s, periods);
     let t = hold.period_s;
     let horizon_s = periods as f64 * t;
     let yf = ends.y_final;
@@ -944,7 +1000,7 @@ fn figures_from_ends(
     let step = if step_open {
         // The stretch bounds could not decide it within their budget:
         // walk this response (bound-backed early stop, no cap in periods).
-        walk_step(cl, &map, t, periods, &ends, cert.as_ref(), opts.band)
+        walk_step(cl, map, t, periods, &ends, cert, opts.band)
     } else {
         StepFigures {
             y_final: yf,
@@ -961,7 +1017,7 @@ fn figures_from_ends(
     };
     let d = jumps.disturbance(&ends.zw, ends.yd_final, opts.band);
     let dist = if !d.peak_decided || d.since == Instant::Undecided {
-        walk_disturbance(cl, &map, t, periods, &ends, cert.as_ref(), opts.band)
+        walk_disturbance(cl, map, t, periods, &ends, cert, opts.band)
     } else {
         DisturbanceFigures {
             disturbance_peak: d.peak,

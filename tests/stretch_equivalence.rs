@@ -282,3 +282,45 @@ proptest! {
         }
     }
 }
+
+/// The bench loop of `benches/evaluation.rs` (4th-order plant with a
+/// 60 Hz mode, first-order sensor, controller with an integrator and a lag
+/// at 400 rad/s) far above its modes: from about 20 kHz the controller's
+/// states in controllable form make the loop's modes look ill-conditioned,
+/// and the figures are found in the controller's modal coordinates
+/// (`certificate::controller_basis`). Checked against the walk in the
+/// loop's own coordinates.
+#[test]
+fn a_controller_far_faster_than_its_poles_matches_the_full_walk() {
+    let wn = 2.0 * std::f64::consts::PI * 60.0;
+    let plant = Transfer::new(
+        Poly::constant(400.0 * wn * wn),
+        Poly::from_descending(&[1.0, 0.0])
+            .mul(&Poly::from_descending(&[0.01, 1.0]))
+            .mul(&Poly::from_descending(&[1.0, 2.0 * 0.3 * wn, wn * wn])),
+    );
+    let lp = PreparedLoop::new(
+        &plant,
+        &transfer(&[1.0], &[1.0 / 2000.0, 1.0]),
+        &Controller::Continuous(transfer(&[0.001, 0.02, 0.05], &[1.0 / 400.0, 1.0, 0.0])),
+        None,
+        TimeOptions::default(),
+    )
+    .unwrap();
+    for method in [
+        looprate::discretize::Method::Tustin,
+        looprate::discretize::Method::StepInvariant,
+    ] {
+        for rate in [20e3, 50e3, 100e3] {
+            let p = Point {
+                rate_hz: rate,
+                method: Some(method),
+                delay: 0.5,
+                hold: looprate::hold::HoldKind::ZeroOrder,
+            };
+            let at = format!("bench loop {rate} Hz {method:?}");
+            let (j, w) = both_at(&lp, &p).expect("stable, walkable");
+            compare(&j, &w, &at);
+        }
+    }
+}
