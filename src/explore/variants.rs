@@ -324,7 +324,15 @@ pub fn worst_of(figs: &[&Figures]) -> Option<Figures> {
         delay_margin_estimate_s: min_margin(&|f| f.delay_margin_estimate_s),
         sensitivity_peak: max_f(&|f| f.sensitivity_peak),
         horizon_s: figs.iter().map(|f| f.horizon_s).fold(0.0, f64::max),
-        horizon_capped: figs.iter().any(|f| f.horizon_capped),
+        undecided: {
+            let mut keys: Vec<&'static str> = Vec::new();
+            for k in figs.iter().flat_map(|f| f.undecided.iter()) {
+                if !keys.contains(k) {
+                    keys.push(k);
+                }
+            }
+            keys
+        },
         delay_margin_searched: figs.iter().all(|f| f.delay_margin_searched),
         loop_notes: {
             let mut notes: Vec<String> = figs.iter().flat_map(|f| f.loop_notes.clone()).collect();
@@ -361,7 +369,7 @@ mod tests {
             delay_margin_estimate_s: Some(0.009),
             sensitivity_peak: 1.5,
             horizon_s: 1.0,
-            horizon_capped: false,
+            undecided: Vec::new(),
             loop_notes: Vec::new(),
             delay_margin_searched: true,
         }

@@ -158,14 +158,18 @@ pub fn evaluation_json(e: &Evaluation) -> Value {
                 "phase_margin_deg is null: |L| never crosses 1, the margin is infinite".into(),
             );
         }
-        if f.settling_time_s.is_none() {
+        if f.settling_time_s.is_none() && !f.is_undecided("settling_time_s") {
             notes.push("settling_time_s is null: not settled within the horizon".into());
         }
-        if f.overshoot_pct.is_none() {
+        if f.overshoot_pct.is_none() && !f.is_undecided("overshoot_pct") {
             notes.push("overshoot_pct is null: the final value is zero".into());
         }
-        if f.horizon_capped {
-            notes.push("the simulation horizon was capped before the slowest mode decayed".into());
+        if !f.undecided.is_empty() {
+            notes.push(format!(
+                "undecided (listed in `undecided`, their values null or only a lower bound): {}; neither the bound at the end of the horizon ({} s) nor the bounded search work could rule out a later peak, band exit or crossing",
+                f.undecided.join(", "),
+                seconds(f.horizon_s)
+            ));
         }
     }
     m.insert("closed_loop_poles".into(), json!(e.closed_loop_poles));

@@ -36,10 +36,10 @@ const POINT_COLUMNS: [&str; 6] = [
     "status",
 ];
 
-/// The columns after the figures: the horizon, the closed loop's largest
+/// The columns after the figures: the figures left undecided, the closed loop's largest
 /// pole radius, the verdict and the CPU load.
 const VERDICT_COLUMNS: [&str; 6] = [
-    "horizon_capped",
+    "undecided",
     "max_pole_radius",
     "feasible",
     "limiting",
@@ -127,7 +127,7 @@ fn point_cells(r: &SweepRow, e: &Evaluation, a: &Assessment) -> Vec<String> {
     ];
     rec.extend(figure_cells(&Figure::ALL, f));
     rec.extend([
-        f.map(|f| f.horizon_capped.to_string()).unwrap_or_default(),
+        f.map(|f| f.undecided.join(" ")).unwrap_or_default(),
         if rho.is_nan() {
             String::new()
         } else {
@@ -144,7 +144,8 @@ fn point_cells(r: &SweepRow, e: &Evaluation, a: &Assessment) -> Vec<String> {
 /// `sweep.csv`: one row per grid point, in grid order. Cells: empty where
 /// a figure does not apply (an unstable point has no figures), `inf` for
 /// an infinite margin, `not settled` / `not recovered` / `not reached`
-/// where the response never got there within the horizon.
+/// where the response never got there, `undecided` where the horizon's
+/// bound could not decide the figure (the `undecided` column lists them).
 pub fn sweep_csv(rows: &[SweepRow], variants: Option<&VariantSet>) -> Vec<u8> {
     let mut w = csv::Writer::from_writer(Vec::new());
     let formats: Vec<String> = rows

@@ -80,6 +80,29 @@ struct ModalBound {
     cy: Vec<f64>,
     /// Per kept mode: `max(|ku . v_i|, |v_i[held]|)` (times 2 for a pair).
     cu: Vec<f64>,
+    /// Per kept mode, what a bound over a stretch of periods needs.
+    modes: Vec<Mode>,
+}
+
+/// One kept mode of the loop (a real eigenvalue, or one of a conjugate
+/// pair standing for both): the output's and the command's share of it.
+/// With `c = left . dz` (the mode's coordinate in the state error `dz` at
+/// period k), the mode adds `weight * Re(c * gamma[j] * lambda^q)` to the
+/// deviation of output point j of period k + q from its final value, and
+/// `weight * Re(c * kappa * lambda^q)` to that of the command `u_{k+q}`.
+/// The sum over the kept modes is the whole deviation (the imaginary parts
+/// cancel), so bounding each term over a stretch bounds the sum.
+#[derive(Debug, Clone)]
+pub struct Mode {
+    pub lambda: C64,
+    /// 1 for a real mode, 2 for a conjugate pair.
+    pub weight: f64,
+    /// Left eigenvector (row of `V^{-1}`), loop coordinates.
+    pub left: Vec<C64>,
+    /// `g_j . v` for every output point j of a period.
+    pub gamma: Vec<C64>,
+    /// `ku . v`: the command's share.
+    pub kappa: C64,
 }
 
 impl Certificate {
@@ -109,6 +132,18 @@ impl Certificate {
     /// True when the modal bound is in use (tests and diagnostics).
     pub fn is_modal(&self) -> bool {
         self.modal.is_some()
+    }
+
+    /// The checked modal decomposition (one entry per real mode or
+    /// conjugate pair), when the modal bound is in use.
+    pub fn modes(&self) -> Option<&[Mode]> {
+        self.modal.as_ref().map(|m| m.modes.as_slice())
+    }
+
+    /// Relative widening the modal terms need (residuals of the computed
+    /// eigenvectors); see `MODAL_WIDENING`.
+    pub fn modal_widening(&self) -> f64 {
+        MODAL_WIDENING
     }
 
     /// Bounds `(y, u)` on every later `|g_j . dz_later|` and every later
@@ -159,6 +194,71 @@ fn gramian(cl: &ClosedLoop, rows: &BoundedRows) -> Option<Vec<f64>> {
         }
     }
     None
+}
+
+/// Largest accepted `|S|_max |S^-1|_max dim` of the controller basis
+/// (`controller_basis`): the similarity `S^-1 A S` is formed in floating
+/// point, with errors of that size times the rounding unit, which the
+/// modal checks and widening must still cover.
+const MAX_BASIS_CONDITION: f64 = 1e6;
+
+/// A basis change `S` (with its inverse) that leaves the plant states and
+/// the held command alone and puts the controller's states in the
+/// controller's own (real) modal coordinates. A controller in z realised
+/// in controllable form has states that are successive values of one
+/// signal; at rates far above its poles these nearly coincide (its
+/// eigenvectors are nearly parallel, Vandermonde vectors of poles near
+/// z = 1), so the loop's modes, well separated in the continuous sense,
+/// read as ill-conditioned in those coordinates. None when the controller
+/// has fewer than two states, a defective or unresolved mode, or the basis
+/// itself is too ill-conditioned.
+pub(crate) fn controller_basis(cl: &ClosedLoop) -> Option<(DMatrix<f64>, DMatrix<f64>)> {
+    let dim = cl.a.nrows();
+    let first = cl.plant_states + 1;
+    if first + 2 > dim {
+        return None;
+    }
+    let m = dim - first;
+    let ac = cl.a.view((first, first), (m, m)).clone_owned();
+    let ev = crate::model::matrix::eigenvalues(&ac).ok()?;
+    if ev.len() != m {
+        return None;
+    }
+    let norm = ac.amax().max(1e-300);
+    let acc: Vec<C64> = ac.iter().map(|&v| C64::new(v, 0.0)).collect();
+    // nalgebra stores column-major; `eigenvector` wants row-major.
+    let rm: Vec<C64> = (0..m * m).map(|i| acc[(i % m) * m + i / m]).collect();
+    let mut s = DMatrix::identity(dim, dim);
+    let mut col = first;
+    let mut used = vec![false; m];
+    for i in 0..m {
+        if used[i] {
+            continue;
+        }
+        used[i] = true;
+        let lambda = ev[i];
+        if lambda.im != 0.0 {
+            let partner = (0..m).find(|&j| {
+                !used[j] && (ev[j] - lambda.conj()).norm() <= 1e-12 * (1.0 + lambda.norm())
+            })?;
+            used[partner] = true;
+        }
+        let v = eigenvector(&rm, m, lambda, norm)?;
+        for (r, x) in v.iter().enumerate() {
+            s[(first + r, col)] = x.re;
+            if lambda.im != 0.0 {
+                s[(first + r, col + 1)] = x.im;
+            }
+        }
+        col += if lambda.im != 0.0 { 2 } else { 1 };
+    }
+    if col != dim {
+        return None;
+    }
+    let sinv = s.clone().try_inverse()?;
+    // Written so that a NaN fails the check too.
+    let ok = s.amax() * sinv.amax() * dim as f64 <= MAX_BASIS_CONDITION;
+    ok.then_some((s, sinv))
 }
 
 impl ModalBound {
@@ -248,6 +348,7 @@ impl ModalBound {
         let mut kept_left = Vec::new();
         let mut cy = Vec::new();
         let mut cu = Vec::new();
+        let mut modes = Vec::new();
         let mut used = vec![false; dim];
         for i in 0..dim {
             if used[i] {
@@ -264,20 +365,29 @@ impl ModalBound {
                 weight = 2.0;
             }
             let v = &right[i];
-            let dotc =
-                |row: &[f64]| -> f64 { row.iter().zip(v).map(|(a, b)| b * *a).sum::<C64>().norm() };
-            let y = (0..rows.points)
+            let dotc = |row: &[f64]| -> C64 { row.iter().zip(v).map(|(a, b)| b * *a).sum::<C64>() };
+            let gamma: Vec<C64> = (0..rows.points)
                 .map(|j| dotc(&rows.g[j * dim..(j + 1) * dim]))
-                .fold(0.0, f64::max);
-            let u = dotc(rows.ku).max(v[rows.held].norm());
+                .collect();
+            let kappa = dotc(rows.ku);
+            let y = gamma.iter().map(|g| g.norm()).fold(0.0, f64::max);
+            let u = kappa.norm().max(v[rows.held].norm());
             cy.push(weight * y);
             cu.push(weight * u);
             kept_left.extend_from_slice(&left[i]);
+            modes.push(Mode {
+                lambda,
+                weight,
+                left: left[i].clone(),
+                gamma,
+                kappa,
+            });
         }
         Some(ModalBound {
             left: kept_left,
             cy,
             cu,
+            modes,
         })
     }
 

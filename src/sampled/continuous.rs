@@ -11,10 +11,35 @@ use crate::model::matrix::{ModelError, eigenvalues, hold_integrals};
 use crate::model::poly::{C64, Poly};
 use crate::model::state_space::StateSpace;
 use crate::model::transfer::Transfer;
+use crate::sampled::closed_loop::{ClosedLoop, Stability};
+use crate::sampled::hold::{HoldEquivalent, IntersampleRow};
 use crate::sampled::time_response::{
     DisturbanceFigures, StepFigures, TimeOptions, TracePoint, continuous_metrics,
+    sampled_figures_around,
 };
 use crate::spec::HoldKind;
+
+/// The continuous figures' horizon and grid step, s: the slowest pole's
+/// decay to `DECAY_TARGET` (twice over), and a step of 1/4000 of it or
+/// 1/32 of the fastest oscillatory mode's period, whichever is shorter.
+fn grid_step(poles: &[C64]) -> (f64, f64) {
+    let slowest = poles
+        .iter()
+        .map(|p| -p.re)
+        .fold(f64::INFINITY, f64::min)
+        .max(1e-300);
+    let horizon = -crate::sampled::time_response::DECAY_TARGET.ln() / slowest * 2.0;
+    let osc = poles
+        .iter()
+        .filter(|p| p.im.abs() > -p.re)
+        .map(|p| p.im.abs())
+        .fold(0.0, f64::max);
+    let mut h = horizon / 4000.0;
+    if osc > 0.0 {
+        h = h.min(std::f64::consts::PI / (16.0 * osc));
+    }
+    (horizon, h)
+}
 
 /// A rational stand-in for the delay `e^{-s theta}` of hold plus
 /// computation, `theta = T/2 + tau`.
@@ -228,28 +253,60 @@ impl ContinuousLoop {
         eigenvalues(&self.a)
     }
 
-    /// Step and disturbance figures, simulated exactly (matrix-exponential
-    /// steps) on a grid fine enough for the fastest oscillatory mode.
+    /// Step and disturbance figures, exact (matrix-exponential steps) on a
+    /// grid fine enough for the fastest oscillatory mode (`grid_step`),
+    /// found by jumping through the grid (`jumped_time_figures`: no cap in
+    /// steps, work that does not grow with the horizon), or by the walk
+    /// (`walked_time_figures`) when the loop does not fit that route.
     pub fn time_figures(
         &self,
         poles: &[C64],
         opts: &TimeOptions,
     ) -> Result<(StepFigures, DisturbanceFigures), ModelError> {
-        let slowest = poles
-            .iter()
-            .map(|p| -p.re)
-            .fold(f64::INFINITY, f64::min)
-            .max(1e-300);
-        let horizon = -crate::sampled::time_response::DECAY_TARGET.ln() / slowest * 2.0;
-        let osc = poles
-            .iter()
-            .filter(|p| p.im.abs() > -p.re)
-            .map(|p| p.im.abs())
-            .fold(0.0, f64::max);
-        let mut h = horizon / 4000.0;
-        if osc > 0.0 {
-            h = h.min(std::f64::consts::PI / (16.0 * osc));
+        if let Some(figs) = self.static_figures(opts) {
+            return Ok(figs);
         }
+        let (_, h) = grid_step(poles);
+        if let Some(figs) = self.jumped_time_figures(h, opts)? {
+            return Ok(figs);
+        }
+        self.walked_time_figures(poles, opts)
+    }
+
+    /// A loop of pure gains (no state): its outputs jump to their final
+    /// values at t = 0 and stay there, so the figures are those of that one
+    /// point (no overshoot, settled and risen at 0). None for a loop with
+    /// states.
+    fn static_figures(&self, opts: &TimeOptions) -> Option<(StepFigures, DisturbanceFigures)> {
+        if self.a.nrows() > 0 {
+            return None;
+        }
+        let step = (self.dyr, self.dur);
+        Some(continuous_metrics(
+            self.dyr,
+            self.dyw,
+            0.0,
+            0,
+            false,
+            opts.band,
+            |_| step,
+            &[self.dyw],
+        ))
+    }
+
+    /// The same figures by walking every grid step (capped at
+    /// `opts.max_steps`; figures past the cap are undecided): the
+    /// reference the jumps are checked against, and the route for a plant
+    /// with feedthrough behind a hold approximation.
+    pub fn walked_time_figures(
+        &self,
+        poles: &[C64],
+        opts: &TimeOptions,
+    ) -> Result<(StepFigures, DisturbanceFigures), ModelError> {
+        if let Some(figs) = self.static_figures(opts) {
+            return Ok(figs);
+        }
+        let (horizon, h) = grid_step(poles);
         let want = (horizon / h).ceil();
         let capped = want > opts.max_steps as f64;
         let steps = want.min(opts.max_steps as f64) as usize;
@@ -291,6 +348,107 @@ impl ContinuousLoop {
             |i| step[i],
             &dist,
         ))
+    }
+
+    /// The time figures on the grid of step `h` seconds with work that does
+    /// not grow with the horizon: the loop sampled exactly every `h`
+    /// (`x_{k+1} = e^{A h} x_k + G(h) (br r + bw w)`, exact for the step
+    /// inputs) is written in the sampled loop's form, one output point per
+    /// step and a state `z[n]` holding the previous command (its row reads
+    /// `u_k`, a pole at 0 that touches no output), and its figures come from
+    /// `time_response::sampled_figures` (stretch jumps with proved bounds,
+    /// horizon from the slowest pole, no cap in steps; a figure the bound
+    /// at the horizon cannot settle is undecided). `None` when the output's
+    /// feedthrough does not fit that form (`y = cy x + c0 (u + w)`), or the
+    /// form has no steady state: the caller walks instead.
+    fn jumped_time_figures(
+        &self,
+        h: f64,
+        opts: &TimeOptions,
+    ) -> Result<Option<(StepFigures, DisturbanceFigures)>, ModelError> {
+        // y = cy x + dyr r + dyw w must read ey x + c0 (u + w), u the command.
+        let c0 = if self.dyr == 0.0 && self.dyw == 0.0 {
+            0.0
+        } else if self.dur != 0.0 {
+            self.dyr / self.dur
+        } else {
+            return Ok(None);
+        };
+        let scale = self.dyr.abs().max(self.dyw.abs());
+        if (self.dyw - c0 * (self.duw + 1.0)).abs() > 1e-12 * scale {
+            return Ok(None);
+        }
+        let n = self.a.nrows();
+        let (e, gr) = hold_integrals(&self.a, &self.br, h)?;
+        let (_, gw) = hold_integrals(&self.a, &self.bw, h)?;
+        let mut a = DMatrix::zeros(n + 1, n + 1);
+        a.view_mut((0, 0), (n, n)).copy_from(&e);
+        for j in 0..n {
+            a[(n, j)] = self.cu[j];
+        }
+        let stack = |v: &DVector<f64>, last: f64| {
+            let mut out = DVector::zeros(n + 1);
+            out.rows_mut(0, n).copy_from(v);
+            out[n] = last;
+            out
+        };
+        let mut ku = DVector::zeros(n + 1);
+        ku.rows_mut(0, n).copy_from(&self.cu);
+        let cl = ClosedLoop {
+            a,
+            br: stack(&gr, self.dur),
+            bw: stack(&gw, self.duw),
+            ku,
+            dur: self.dur,
+            duw: self.duw,
+            plant_states: n,
+        };
+        let ey = &self.cy - &self.cu * c0;
+        let hold = HoldEquivalent {
+            period_s: h,
+            hold: HoldKind::ZeroOrder,
+            delay_fraction: 0.0,
+            delay_periods: 0,
+            hold_states: 0,
+            measure_periods: 0,
+            sensor_delay_s: 0.0,
+            phi: e,
+            gamma0: DVector::zeros(n),
+            gamma1: DVector::zeros(n),
+            gamma_w: DVector::zeros(n),
+            cm: DVector::zeros(n),
+            dm: 0.0,
+            dm_w: 0.0,
+            cy: ey.clone(),
+            dy: c0,
+            dy_w: c0,
+            measure: None,
+            intersample: vec![IntersampleRow {
+                offset_s: 0.0,
+                ey,
+                cu1: 0.0,
+                cu0: c0,
+                cw: c0,
+            }],
+            switch_index: 0,
+        };
+        let poles = cl.poles()?;
+        if ClosedLoop::stability(&poles) != Stability::Stable {
+            return Ok(None);
+        }
+        // Fixed points from the continuous matrix (`e^{A h}` is close to I
+        // on a fine grid: solving with `I - e^{A h}` would lose digits).
+        let fixed = |b: &DVector<f64>, du: f64| -> Option<DVector<f64>> {
+            let x = self.a.clone().lu().solve(&(-b))?;
+            let u = self.cu.dot(&x) + du;
+            Some(stack(&x, u))
+        };
+        let (Some(zr), Some(zw)) = (fixed(&self.br, self.dur), fixed(&self.bw, self.duw)) else {
+            return Ok(None);
+        };
+        Ok(Some(sampled_figures_around(
+            &cl, &hold, &poles, opts, zr, zw,
+        )))
     }
 
     /// Exact step (`r = 1`) and load-disturbance (`w = 1`) traces of the

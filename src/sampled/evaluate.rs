@@ -19,7 +19,7 @@ use crate::model::poly::C64;
 use crate::model::state_space::StateSpace;
 use crate::model::transfer::{Controller, DiscreteTransfer, Transfer};
 use crate::sampled::time_response::{
-    DisturbanceFigures, StepFigures, TimeOptions, TracePoint, horizon_steps, sampled_figures,
+    DisturbanceFigures, StepFigures, TimeOptions, TracePoint, horizon_periods, sampled_figures,
     sampled_trace,
 };
 
@@ -71,8 +71,12 @@ pub struct Figures {
     /// a sampled loop. None: no gain crossing.
     pub delay_margin_estimate_s: Option<f64>,
     pub sensitivity_peak: f64,
+    /// The horizon the time figures cover, s (see `StepFigures`).
     pub horizon_s: f64,
-    pub horizon_capped: bool,
+    /// Keys of the time figures that could not be decided within the
+    /// horizon (their own status: neither a value nor "not settled"); see
+    /// `Figures::is_undecided`.
+    pub undecided: Vec<&'static str>,
     /// True when the exact delay margin was searched for (`eval`, the
     /// recommended rate); a sweep leaves it unsearched (its cost grows
     /// with the delay in periods) and reports the estimate.
@@ -140,10 +144,21 @@ impl Figures {
             delay_margin_estimate_s: freq.delay_margin_estimate_s,
             sensitivity_peak: freq.sensitivity_peak,
             horizon_s: step.horizon_s,
-            horizon_capped: step.horizon_capped,
             loop_notes: freq.notes.clone(),
             delay_margin_searched: false,
+            undecided: step
+                .undecided
+                .iter()
+                .chain(&dist.undecided)
+                .copied()
+                .collect(),
         }
+    }
+
+    /// True when the figure `key` (e.g. `settling_time_s`) could not be
+    /// decided.
+    pub fn is_undecided(&self, key: &str) -> bool {
+        self.undecided.contains(&key)
     }
 }
 
@@ -383,7 +398,7 @@ impl PreparedLoop {
 
     /// Warnings about a point whose results deserve less trust: a rate so
     /// far above the loop's fastest mode that the discrete coefficients
-    /// crowd against z = 1, and a horizon cut short by its cap.
+    /// crowd against z = 1, and time figures left undecided.
     pub fn cautions(&self, p: &Point, e: &Evaluation) -> Vec<String> {
         let mut out = Vec::new();
         let fastest = self.fastest_mode_hz();
@@ -398,11 +413,12 @@ impl PreparedLoop {
             out.extend(f.loop_notes.iter().cloned());
         }
         if let Some(f) = &e.figures
-            && f.horizon_capped
+            && !f.undecided.is_empty()
         {
             out.push(format!(
-                "the simulation stopped at its cap of {} periods ({:.4e} s) before the slowest mode decayed: time figures cover only that span",
-                self.time.max_steps, f.horizon_s
+                "undecided within the horizon of {:.4e} s (the slowest mode's decay to 1e-4): {}; neither a bound at its end nor the bounded search work (a walk of at most 2^20 periods) could rule out a later peak, band exit or crossing",
+                f.horizon_s,
+                f.undecided.join(", ")
             ));
         }
         out
@@ -641,9 +657,10 @@ impl PreparedLoop {
     ) -> Result<(Vec<TracePoint>, Vec<TracePoint>), String> {
         let (hold, _, cl) = self.sampled_loop(p)?;
         let poles = cl.poles().map_err(|e| e.to_string())?;
-        let rho = poles.iter().map(|p| p.norm()).fold(0.0, f64::max);
+        // A trace is a file or a chart: its length is capped, the figures'
+        // horizon is not.
         let n = periods.unwrap_or_else(|| {
-            (horizon_steps(rho.min(0.999_999), cl.a.nrows()) as usize).min(self.time.max_steps)
+            (horizon_periods(&poles, cl.a.nrows()) as usize).min(self.time.max_steps)
         });
         Ok((
             sampled_trace(&cl, &hold, 1.0, 0.0, n),

@@ -114,6 +114,9 @@ pub enum Missing {
     NotSearched,
     /// The exact delay-margin search gave up (a note says why).
     NotLocated,
+    /// Neither the bound at the end of the horizon nor the bounded search
+    /// work could decide the figure (`Figures::undecided`); fails a limit.
+    Undecided,
 }
 
 impl Missing {
@@ -129,6 +132,7 @@ impl Missing {
             Missing::NoCrossing => "none",
             Missing::NotSearched => "not searched",
             Missing::NotLocated => "not located",
+            Missing::Undecided => "undecided",
         }
     }
 
@@ -300,9 +304,12 @@ impl Figure {
         }
     }
 
-    /// The figure's value in `f`; None when it does not exist (see
-    /// [`Figure::missing`]).
+    /// The figure's value in `f`; None when it does not exist or could
+    /// not be decided (see [`Figure::missing`]).
     pub fn value(self, f: &Figures) -> Option<f64> {
+        if f.is_undecided(self.key()) {
+            return None;
+        }
         match self {
             Figure::FinalValue => Some(f.y_final),
             Figure::Overshoot => f.overshoot_pct,
@@ -332,6 +339,9 @@ impl Figure {
 
     /// What the figure's absence in `f` means.
     pub fn missing(self, f: &Figures) -> Missing {
+        if f.is_undecided(self.key()) {
+            return Missing::Undecided;
+        }
         match self {
             Figure::FinalValue
             | Figure::DisturbancePeak

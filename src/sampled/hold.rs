@@ -226,7 +226,7 @@ pub struct HoldEquivalent {
     /// The measured output at `measure_offset` into the period, for the
     /// sensor transport delay (None without one, or when it falls on the
     /// sample instant).
-    measure: Option<IntersampleRow>,
+    pub(crate) measure: Option<IntersampleRow>,
 }
 
 /// Coefficients of `(v_k, v_{k-1}, v_{k-2})`.

@@ -13,4 +13,5 @@ pub mod feasibility;
 pub mod figure;
 pub mod frequency;
 pub mod hold;
+pub mod stretch;
 pub mod time_response;

@@ -1,0 +1,922 @@
+//! The time figures of the sampled loop with work that does not grow with
+//! the number of periods: the response is jumped through in stretches of
+//! `2^p` periods (powers of the loop matrix by repeated squaring), and a
+//! stretch is looked into only when a bound over all of its points cannot
+//! rule out what a figure looks for there (a new peak, a band exit, a 10 %
+//! or 90 % crossing). Points between samples are computed only in the
+//! single periods a search ends up in. See `docs` in DEVELOPERS.md
+//! ("Invariants") for the rule this follows: every shortcut is backed by a
+//! bound.
+//!
+//! # The timeline as a tree
+//!
+//! With `dz_k = z_k - z_final` the loop's state error, `dz_{k+m} = A^m dz_k`
+//! exactly, so the state at the start of any stretch follows from the
+//! state at the start of its parent by one product with a stored power
+//! `A^(2^p)`. The horizon's periods `[0, K)` are the leaves of a binary tree
+//! whose node at level p covers `2^p` periods; one more node, the tail,
+//! covers every period from K on.
+//!
+//! # Bounds over a stretch
+//!
+//! With the loop's checked modal form (`certificate::Mode`), the deviation
+//! of output point j of period `k + q` from its final value is
+//! `sum_l w_l Re(c_l gamma_lj lambda_l^q)`, `c_l` the mode's coordinate at
+//! period k. Over `q in [0, m)` each term is bounded by itself:
+//!
+//! - a real mode `lambda >= 0` by `Re(c gamma_j)` times `[lambda^(m-1), 1]`
+//!   (the term keeps its sign and shrinks, so a response creeping up to its
+//!   final value is bounded on the right side of it);
+//! - a real mode `lambda < 0` by `Re(c gamma_j)` times `[lambda, 1]`;
+//! - a conjugate pair by `2 |c| |gamma_j| rho^q cos(arg c + arg gamma_j + q theta)`,
+//!   the cosine bounded over the phase the stretch sweeps (`(m-1) theta`
+//!   plus the spread of `arg gamma_j` over the period), so a lightly damped
+//!   oscillation is ruled out of a stretch between its peaks.
+//!
+//! The command `u_q` (q in the stretch) is bounded the same way with
+//! `kappa = ku . v` in place of `gamma_j`, and the command still held at
+//! the stretch's start is computed exactly. Without a modal form (a
+//! defective or ill-conditioned mode), the output-energy bound of
+//! `certificate` bounds every later point around the final value instead.
+//! Every bound is widened by margins for rounding (as the walk's stop
+//! bounds are) and by the modal residual allowance.
+//!
+//! # Searches
+//!
+//! - Peaks (overshoot, command peak, disturbance peak): best-first over
+//!   the tree, always opening the node with the highest bound; done when
+//!   no node's bound exceeds the best point found by more than a
+//!   resolution of order 1e-11 of the figure's scale (see `resolution`).
+//! - The 10 % and 90 % crossings: depth-first from the left, skipping
+//!   nodes that cannot reach the level; the first point at or past it.
+//! - Settling and recovery: depth-first from the right, skipping nodes
+//!   wholly inside the band; the last point outside it.
+//!
+//! A figure is decided when the tail's bound rules it out of every period
+//! after the horizon; otherwise it is reported as undecided (its own
+//! status), never as a time. Each search also stops as undecided after
+//! `LEAF_BUDGET` single periods (only reachable without a modal form).
+//!
+//! The instants and values are those a walk through every point of every
+//! period of the horizon finds (same point, same interpolation formulas;
+//! the states differ from the walk's only by rounding), which
+//! `tests/stretch_equivalence.rs` checks.
+
+use std::cmp::Ordering;
+use std::collections::BinaryHeap;
+use std::f64::consts::{PI, TAU};
+
+use nalgebra::DVector;
+
+use crate::sampled::certificate::{Certificate, Mode};
+use crate::sampled::closed_loop::ClosedLoop;
+use crate::sampled::time_response::{OutputMap, ROUNDING_MARGIN, crossing, mat_vec};
+
+/// Most single periods one search opens before it gives up (the figure is
+/// then undecided here, and `time_response::sampled_figures` walks that
+/// response instead). With a well-separated modal form a search opens a
+/// few dozen. The bounds get loose when modes crowd together (at rates far
+/// above the loop's modes two nearly equal eigenvalues have nearly
+/// parallel eigenvectors whose terms cancel in the output, and each term
+/// is bounded alone), and without a modal form (the energy bound cannot
+/// tell the phase of an oscillation); then the budget runs out.
+pub const LEAF_BUDGET: u64 = 1 << 12;
+
+/// Most nodes (of any level) one search looks at: with bounds that rule
+/// little out, a search could otherwise open most of a tree of up to 2^52
+/// periods without reaching a single period. Past it the figure is
+/// undecided here, as past `LEAF_BUDGET`.
+pub const NODE_BUDGET: u64 = 64 * LEAF_BUDGET;
+
+/// Relative size of the rounding of one output or command at the fixed
+/// point (dot products of a few tens of terms: about 1e-15; kept wide).
+const FLOOR_ROUNDING: f64 = 1e-12;
+
+/// A node's bounds: every output point and every command in it lies in
+/// `[y_lo, y_hi]` and `[u_lo, u_hi]`.
+#[derive(Debug, Clone, Copy)]
+struct Bound {
+    y_lo: f64,
+    y_hi: f64,
+    u_lo: f64,
+    u_hi: f64,
+}
+
+/// How a row (the output points of a period, or the command) shares in a
+/// mode, summarised for the stretch bounds.
+#[derive(Debug, Clone)]
+struct RowShare {
+    /// Real mode: range of `Re(gamma_j)` and largest `|Im(gamma_j)|`.
+    re_lo: f64,
+    re_hi: f64,
+    im_abs: f64,
+    /// Conjugate pair: largest and smallest `|gamma_j|`, and the arc of
+    /// `arg gamma_j` (radians, unwrapped around `arg gamma_0`).
+    g_max: f64,
+    g_min: f64,
+    arc_lo: f64,
+    arc_hi: f64,
+}
+
+impl RowShare {
+    fn new(values: &[nalgebra::Complex<f64>]) -> RowShare {
+        let anchor = values.first().map_or(0.0, |v| v.arg());
+        let mut s = RowShare {
+            re_lo: f64::INFINITY,
+            re_hi: f64::NEG_INFINITY,
+            im_abs: 0.0,
+            g_max: 0.0,
+            g_min: f64::INFINITY,
+            arc_lo: f64::INFINITY,
+            arc_hi: f64::NEG_INFINITY,
+        };
+        for v in values {
+            s.re_lo = s.re_lo.min(v.re);
+            s.re_hi = s.re_hi.max(v.re);
+            s.im_abs = s.im_abs.max(v.im.abs());
+            s.g_max = s.g_max.max(v.norm());
+            s.g_min = s.g_min.min(v.norm());
+            let mut d = v.arg() - anchor;
+            if d > PI {
+                d -= TAU;
+            } else if d <= -PI {
+                d += TAU;
+            }
+            s.arc_lo = s.arc_lo.min(anchor + d);
+            s.arc_hi = s.arc_hi.max(anchor + d);
+        }
+        if values.is_empty() {
+            s = RowShare {
+                re_lo: 0.0,
+                re_hi: 0.0,
+                im_abs: 0.0,
+                g_max: 0.0,
+                g_min: 0.0,
+                arc_lo: 0.0,
+                arc_hi: 0.0,
+            };
+        }
+        s
+    }
+}
+
+/// A mode with its row shares and, per level p, `|lambda|^(2^p - 1)` and
+/// `(2^p - 1) arg lambda` (the decay and the phase a stretch sweeps).
+#[derive(Debug, Clone)]
+struct StretchMode {
+    mode: Mode,
+    y: RowShare,
+    u: RowShare,
+    rho_pow: Vec<f64>,
+    sweep: Vec<f64>,
+}
+
+/// Range of `cos` over `[a, b]`.
+fn cos_range(a: f64, b: f64) -> (f64, f64) {
+    // Written so that a NaN gives the whole range.
+    if (b - a).partial_cmp(&TAU) != Some(Ordering::Less) {
+        return (-1.0, 1.0);
+    }
+    let (ca, cb) = (a.cos(), b.cos());
+    let (mut lo, mut hi) = (ca.min(cb), ca.max(cb));
+    if (a / TAU).ceil() * TAU <= b {
+        hi = 1.0;
+    }
+    if ((a - PI) / TAU).ceil() * TAU + PI <= b {
+        lo = -1.0;
+    }
+    (lo, hi)
+}
+
+/// Range of the product of two intervals.
+fn mul_range(a: (f64, f64), b: (f64, f64)) -> (f64, f64) {
+    let p = [a.0 * b.0, a.0 * b.1, a.1 * b.0, a.1 * b.1];
+    let lo = p.iter().copied().fold(f64::INFINITY, f64::min);
+    let hi = p.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    (lo, hi)
+}
+
+impl StretchMode {
+    /// Range of `w Re(c gamma_j lambda^q)` over the row's points and
+    /// `q in [0, m)`, `m = 2^level` (None: every q >= 0).
+    fn term(&self, c: nalgebra::Complex<f64>, row: &RowShare, level: Option<usize>) -> (f64, f64) {
+        let lambda = self.mode.lambda;
+        let w = self.mode.weight;
+        if lambda.im == 0.0 {
+            let rho = lambda.re;
+            let factor = match level {
+                Some(0) => (1.0, 1.0),
+                _ if rho < 0.0 => (rho, 1.0),
+                Some(p) => (self.rho_pow[p], 1.0),
+                None => (0.0, 1.0),
+            };
+            let x = mul_range((c.re, c.re), (row.re_lo, row.re_hi));
+            let slack = c.im.abs() * row.im_abs;
+            let (lo, hi) = mul_range((x.0 - slack, x.1 + slack), factor);
+            (w * lo, w * hi)
+        } else {
+            let amp = w * c.norm();
+            let (end_decay, sweep) = match level {
+                Some(p) => (self.rho_pow[p], self.sweep[p]),
+                None => (0.0, f64::INFINITY),
+            };
+            let phase = c.arg();
+            let (a, b) = if sweep >= 0.0 {
+                (phase + row.arc_lo, phase + row.arc_hi + sweep)
+            } else {
+                (phase + row.arc_lo + sweep, phase + row.arc_hi)
+            };
+            let (cmin, cmax) = cos_range(a, b);
+            let big = amp * row.g_max;
+            let small = amp * row.g_min * end_decay;
+            let hi = if cmax >= 0.0 {
+                big * cmax
+            } else {
+                small * cmax
+            };
+            let lo = if cmin <= 0.0 {
+                big * cmin
+            } else {
+                small * cmin
+            };
+            (lo, hi)
+        }
+    }
+}
+
+/// Everything about a closed loop the searches need, built once and used
+/// for the step and the disturbance.
+pub struct Stretches<'a> {
+    cl: &'a ClosedLoop,
+    map: &'a OutputMap,
+    cert: Option<&'a Certificate>,
+    dim: usize,
+    period_s: f64,
+    /// Horizon in periods.
+    horizon: u64,
+    /// The root covers `2^levels >= horizon` periods.
+    levels: usize,
+    /// `A^(2^p) - I`, row-major, p = 0..=levels.
+    powers: Vec<Vec<f64>>,
+    modes: Option<Vec<StretchMode>>,
+    /// `|ku_i|`, for the command's rounding margin.
+    ku_abs: Vec<f64>,
+}
+
+/// One response (a reference step or a load step) on a loop.
+struct Run<'s, 'a> {
+    s: &'s Stretches<'a>,
+    z_end: Vec<f64>,
+    h: Vec<f64>,
+    u_off: f64,
+    /// Output and command at the fixed point (first point of a period).
+    y_end: f64,
+    u_end: f64,
+    /// Rounding floors of the output and command bounds.
+    y_floor: f64,
+    u_floor: f64,
+    dz0: Vec<f64>,
+    /// State error at the horizon (start of the tail).
+    dz_tail: Vec<f64>,
+}
+
+/// The exact points of one period, as a walk computes them.
+struct Leaf {
+    t0: f64,
+    ys: Vec<f64>,
+    u_prev: f64,
+    u_k: f64,
+}
+
+/// Result of a search.
+enum Found<T> {
+    At(T),
+    /// Nothing in the horizon, and the tail rules it out after it.
+    Nowhere,
+    /// The tail or the budget leaves it open.
+    Undecided,
+}
+
+/// A node waiting in a best-first search.
+struct Open {
+    upper: f64,
+    start: u64,
+    level: usize,
+    dz: Vec<f64>,
+}
+
+impl PartialEq for Open {
+    fn eq(&self, o: &Self) -> bool {
+        self.cmp(o) == Ordering::Equal
+    }
+}
+impl Eq for Open {}
+impl PartialOrd for Open {
+    fn partial_cmp(&self, o: &Self) -> Option<Ordering> {
+        Some(self.cmp(o))
+    }
+}
+impl Ord for Open {
+    fn cmp(&self, o: &Self) -> Ordering {
+        // Highest bound first; among equals the earliest (deterministic).
+        self.upper
+            .total_cmp(&o.upper)
+            .then_with(|| o.start.cmp(&self.start))
+    }
+}
+
+impl<'a> Stretches<'a> {
+    /// Prepare the searches of a stable loop over `horizon` periods.
+    pub fn new(
+        cl: &'a ClosedLoop,
+        map: &'a OutputMap,
+        cert: Option<&'a Certificate>,
+        period_s: f64,
+        horizon: u64,
+    ) -> Stretches<'a> {
+        let dim = map.dim;
+        let horizon = horizon.max(1);
+        let levels = (64 - (horizon - 1).leading_zeros()) as usize;
+        // Stored as `A^(2^p) - I`, squared as `2 B + B B`: when the rate is
+        // fast the powers are close to I for many levels, and this form
+        // keeps the digits a plain square `A A` rounds away (its error
+        // doubles with every level; measured: 1e-9 relative on the compare
+        // case at 4 kHz against 5e-11 for this form, the size of the
+        // difference between two walks summed in another order).
+        let mut powers = Vec::with_capacity(levels + 1);
+        let mut b: Vec<f64> = (0..dim * dim)
+            .map(|i| cl.a[(i / dim, i % dim)] - if i / dim == i % dim { 1.0 } else { 0.0 })
+            .collect();
+        for _ in 0..=levels {
+            let mut next: Vec<f64> = b.iter().map(|v| 2.0 * v).collect();
+            for i in 0..dim {
+                for k in 0..dim {
+                    let a = b[i * dim + k];
+                    if a != 0.0 {
+                        for j in 0..dim {
+                            next[i * dim + j] += a * b[k * dim + j];
+                        }
+                    }
+                }
+            }
+            powers.push(std::mem::replace(&mut b, next));
+        }
+        let modes = cert.and_then(|c| c.modes()).map(|ms| {
+            ms.iter()
+                .map(|m| {
+                    let rho = m.lambda.norm();
+                    let theta = m.lambda.arg();
+                    let mut rho_pow = Vec::with_capacity(levels + 1);
+                    let mut sweep = Vec::with_capacity(levels + 1);
+                    let mut rp = 1.0f64;
+                    for lv in 0..=levels {
+                        rho_pow.push(rp);
+                        sweep.push(((1u128 << lv) - 1) as f64 * theta);
+                        rp = rp * rp * rho;
+                    }
+                    StretchMode {
+                        y: RowShare::new(&m.gamma),
+                        u: RowShare::new(&[m.kappa]),
+                        mode: m.clone(),
+                        rho_pow,
+                        sweep,
+                    }
+                })
+                .collect()
+        });
+        Stretches {
+            cl,
+            map,
+            cert,
+            dim,
+            period_s,
+            horizon,
+            levels,
+            powers,
+            modes,
+            ku_abs: cl.ku.iter().map(|v| v.abs()).collect(),
+        }
+    }
+
+    /// True when the stretch bounds come from the modal form.
+    pub fn is_modal(&self) -> bool {
+        self.modes.is_some()
+    }
+
+    /// `A^(2^p) v`, as `v + (A^(2^p) - I) v`.
+    fn jump(&self, p: usize, v: &[f64]) -> Vec<f64> {
+        let m = &self.powers[p];
+        let d = self.dim;
+        (0..d)
+            .map(|i| {
+                let row = &m[i * d..(i + 1) * d];
+                v[i] + row.iter().zip(v).map(|(a, b)| a * b).sum::<f64>()
+            })
+            .collect()
+    }
+
+    /// `A^k v` by the binary digits of k.
+    fn advance(&self, mut k: u64, v: &[f64]) -> Vec<f64> {
+        let mut out = v.to_vec();
+        let mut p = 0;
+        while k > 0 && p < self.powers.len() {
+            if k & 1 == 1 {
+                out = self.jump(p, &out);
+            }
+            k >>= 1;
+            p += 1;
+        }
+        // Beyond the stored powers (not reached: every k asked for is at
+        // most the horizon + 1 <= 2^(levels + 1)): k units of the last.
+        let top = self.powers.len() - 1;
+        for _ in 0..k.saturating_mul(2) {
+            out = self.jump(top, &out);
+        }
+        out
+    }
+}
+
+impl<'s, 'a> Run<'s, 'a> {
+    fn new(s: &'s Stretches<'a>, z_end: &DVector<f64>, r: f64, w: f64) -> Run<'s, 'a> {
+        let map = s.map;
+        let dim = s.dim;
+        let z_end: Vec<f64> = z_end.as_slice()[..dim].to_vec();
+        let h: Vec<f64> = (0..map.np).map(|j| map.hr[j] * r + map.hw[j] * w).collect();
+        let u_off = s.cl.dur * r + s.cl.duw * w;
+        let dotp = |row: &[f64], v: &[f64]| row.iter().zip(v).map(|(a, b)| a * b).sum::<f64>();
+        let y_ends: Vec<f64> = (0..map.np)
+            .map(|j| dotp(&map.g[j * dim..(j + 1) * dim], &z_end) + h[j])
+            .collect();
+        let y_end = y_ends.first().copied().unwrap_or(0.0);
+        let y_res = y_ends.iter().fold(0.0f64, |m, v| m.max((v - y_end).abs()));
+        let u_end = dotp(s.cl.ku.as_slice(), &z_end) + u_off;
+        let u_res = (z_end[map.n] - u_end).abs();
+        let abs_dot =
+            |a: &[f64], b: &[f64]| a.iter().zip(b).map(|(x, y)| (x * y).abs()).sum::<f64>();
+        let h_abs = h.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+        let y_scale = h_abs + abs_dot(&map.g_abs, &z_end);
+        let u_scale = u_off.abs() + abs_dot(&s.ku_abs, &z_end) + z_end[map.n].abs();
+        let dz0: Vec<f64> = z_end.iter().map(|v| -v).collect();
+        let dz_tail = s.advance(s.horizon, &dz0);
+        Run {
+            s,
+            z_end,
+            h,
+            u_off,
+            y_end,
+            u_end,
+            y_floor: y_res + FLOOR_ROUNDING * y_scale,
+            u_floor: u_res + FLOOR_ROUNDING * u_scale,
+            dz0,
+            dz_tail,
+        }
+    }
+
+    /// Bounds over the `2^level` periods from a state error `dz` (None:
+    /// every later period).
+    fn bound(&self, dz: &[f64], level: Option<usize>) -> Bound {
+        let s = self.s;
+        let map = s.map;
+        let held = self.z_end[map.n] + dz[map.n];
+        let dz_y: f64 = map.g_abs.iter().zip(dz).map(|(a, b)| a * b.abs()).sum();
+        let dz_u: f64 = s
+            .ku_abs
+            .iter()
+            .zip(dz)
+            .map(|(a, b)| a * b.abs())
+            .sum::<f64>()
+            + dz[map.n].abs();
+        let (mut ylo, mut yhi, mut ulo, mut uhi, mut ymag, mut umag) =
+            (0.0, 0.0, 0.0, 0.0, 0.0, 0.0);
+        let widening;
+        if let Some(modes) = &s.modes {
+            for m in modes {
+                let mut c = nalgebra::Complex::new(0.0, 0.0);
+                for (l, d) in m.mode.left.iter().zip(dz) {
+                    c.re += l.re * d;
+                    c.im += l.im * d;
+                }
+                let (a, b) = m.term(c, &m.y, level);
+                ylo += a;
+                yhi += b;
+                ymag += a.abs().max(b.abs());
+                let (a, b) = m.term(c, &m.u, level);
+                ulo += a;
+                uhi += b;
+                umag += a.abs().max(b.abs());
+            }
+            widening = s.cert.map_or(1e-6, |c| c.modal_widening());
+        } else {
+            let (by, bu) = match s.cert {
+                Some(c) => c.bound(dz),
+                None => (f64::INFINITY, f64::INFINITY),
+            };
+            // The energy bound's own widening is in `by`, `bu`.
+            (ylo, yhi, ulo, uhi) = (-by, by, -bu, bu);
+            (ymag, umag) = (0.0, 0.0);
+            widening = 0.0;
+        }
+        let my = self.y_floor + ROUNDING_MARGIN * dz_y + widening * ymag;
+        let mu = self.u_floor + ROUNDING_MARGIN * dz_u + widening * umag;
+        let mut b = Bound {
+            y_lo: self.y_end + ylo - my,
+            y_hi: self.y_end + yhi + my,
+            u_lo: self.u_end + ulo - mu,
+            u_hi: self.u_end + uhi + mu,
+        };
+        // The command held at the stretch's start is known exactly.
+        b.u_lo = b.u_lo.min(held);
+        b.u_hi = b.u_hi.max(held);
+        // A NaN bound rules nothing out.
+        if b.y_lo.is_nan() || b.y_hi.is_nan() {
+            (b.y_lo, b.y_hi) = (f64::NEG_INFINITY, f64::INFINITY);
+        }
+        if b.u_lo.is_nan() || b.u_hi.is_nan() {
+            (b.u_lo, b.u_hi) = (f64::NEG_INFINITY, f64::INFINITY);
+        }
+        b
+    }
+
+    /// The exact points of period k from its state error, summed as the
+    /// walk sums them.
+    fn leaf(&self, k: u64, dz: &[f64]) -> Leaf {
+        let s = self.s;
+        let map = s.map;
+        let dim = s.dim;
+        let z: Vec<f64> = self.z_end.iter().zip(dz).map(|(a, b)| a + b).collect();
+        let mut ys = vec![0.0; map.np];
+        mat_vec(&map.g_cols[..map.np * dim], &z, &mut ys);
+        for (y, h) in ys.iter_mut().zip(&self.h) {
+            *y += h;
+        }
+        let mut u = -0.0;
+        for (a, b) in s.cl.ku.iter().zip(&z) {
+            u += a * b;
+        }
+        Leaf {
+            t0: k as f64 * s.period_s,
+            ys,
+            u_prev: z[map.n],
+            u_k: u + self.u_off,
+        }
+    }
+
+    /// Time of point j of a period starting at `t0`, as the walk makes it.
+    fn time(&self, t0: f64, j: usize) -> f64 {
+        if j == 0 {
+            t0
+        } else {
+            t0 + j as f64 * self.s.period_s / self.s.map.np as f64
+        }
+    }
+
+    /// Largest `value` over every point of the horizon, from `init`;
+    /// `upper` bounds it over a node. Undecided when the tail's bound
+    /// exceeds the result by more than `tol`, or the budget runs out.
+    fn max_search(
+        &self,
+        init: f64,
+        tol: f64,
+        upper: impl Fn(&Bound) -> f64,
+        value: impl Fn(&Leaf, &mut f64),
+    ) -> (f64, bool) {
+        let s = self.s;
+        let key = |b: &Bound| {
+            let u = upper(b);
+            if u.is_nan() { f64::INFINITY } else { u }
+        };
+        let mut best = init;
+        let mut heap = BinaryHeap::new();
+        heap.push(Open {
+            upper: key(&self.bound(&self.dz0, Some(s.levels))),
+            start: 0,
+            level: s.levels,
+            dz: self.dz0.clone(),
+        });
+        let (mut leaves, mut nodes) = (0u64, 0u64);
+        while let Some(node) = heap.pop() {
+            // Written so that an infinite bound keeps the node open.
+            if node.upper <= best + tol {
+                break;
+            }
+            nodes += 1;
+            if nodes > NODE_BUDGET {
+                return (best, false);
+            }
+            if node.level == 0 {
+                leaves += 1;
+                if leaves > LEAF_BUDGET {
+                    return (best, false);
+                }
+                value(&self.leaf(node.start, &node.dz), &mut best);
+                continue;
+            }
+            let lv = node.level - 1;
+            let half = 1u64 << lv;
+            let right_start = node.start + half;
+            if right_start < s.horizon {
+                let dz = s.jump(lv, &node.dz);
+                heap.push(Open {
+                    upper: key(&self.bound(&dz, Some(lv))),
+                    start: right_start,
+                    level: lv,
+                    dz,
+                });
+            }
+            heap.push(Open {
+                upper: key(&self.bound(&node.dz, Some(lv))),
+                start: node.start,
+                level: lv,
+                dz: node.dz,
+            });
+        }
+        let tail = key(&self.bound(&self.dz_tail, None));
+        (best, tail <= best + tol)
+    }
+
+    /// Depth-first search for a point that `hit` accepts, from the left
+    /// (`forward`) or from the right; `maybe` says whether a node can hold
+    /// one. Returns the period and its leaf.
+    fn ordered_search(
+        &self,
+        forward: bool,
+        maybe: &dyn Fn(&Bound) -> bool,
+        hit: &dyn Fn(&Leaf) -> Option<usize>,
+    ) -> Found<(u64, usize, Leaf)> {
+        let s = self.s;
+        let tail_maybe = maybe(&self.bound(&self.dz_tail, None));
+        if !forward && tail_maybe {
+            return Found::Undecided;
+        }
+        let (mut leaves, mut nodes) = (0u64, 0u64);
+        let mut stack: Vec<(u64, usize, Vec<f64>)> = vec![(0, s.levels, self.dz0.clone())];
+        while let Some((start, level, dz)) = stack.pop() {
+            if start >= s.horizon {
+                continue;
+            }
+            nodes += 1;
+            if nodes > NODE_BUDGET {
+                return Found::Undecided;
+            }
+            if level == 0 {
+                leaves += 1;
+                if leaves > LEAF_BUDGET {
+                    return Found::Undecided;
+                }
+                let leaf = self.leaf(start, &dz);
+                if let Some(j) = hit(&leaf) {
+                    return Found::At((start, j, leaf));
+                }
+                continue;
+            }
+            if !maybe(&self.bound(&dz, Some(level))) {
+                continue;
+            }
+            let lv = level - 1;
+            let right_start = start + (1u64 << lv);
+            let right = (right_start < s.horizon).then(|| (right_start, lv, s.jump(lv, &dz)));
+            let left = (start, lv, dz);
+            // The stack pops the last pushed first.
+            if forward {
+                if let Some(r) = right {
+                    stack.push(r);
+                }
+                stack.push(left);
+            } else {
+                stack.push(left);
+                if let Some(r) = right {
+                    stack.push(r);
+                }
+            }
+        }
+        if forward && tail_maybe {
+            Found::Undecided
+        } else {
+            Found::Nowhere
+        }
+    }
+
+    /// Output at point j of period k (any k), for the neighbour of a point
+    /// a search found.
+    fn point(&self, k: u64, j: usize) -> (f64, f64) {
+        let dz = self.s.advance(k, &self.dz0);
+        let leaf = self.leaf(k, &dz);
+        (self.time(leaf.t0, j), leaf.ys[j])
+    }
+
+    /// The point after point j of the leaf of period k.
+    fn next_point(&self, k: u64, j: usize, leaf: &Leaf) -> (f64, f64) {
+        if j + 1 < leaf.ys.len() {
+            (self.time(leaf.t0, j + 1), leaf.ys[j + 1])
+        } else {
+            self.point(k + 1, 0)
+        }
+    }
+
+    /// The point before point j of the leaf of period k (None at t = 0).
+    fn prev_point(&self, k: u64, j: usize, leaf: &Leaf) -> Option<(f64, f64)> {
+        if j > 0 {
+            Some((self.time(leaf.t0, j - 1), leaf.ys[j - 1]))
+        } else if k > 0 {
+            Some(self.point(k - 1, self.s.map.np - 1))
+        } else {
+            None
+        }
+    }
+
+    /// The commands the points of a leaf carry, as the walk attaches them.
+    fn commands<'l>(&self, leaf: &'l Leaf) -> impl Iterator<Item = f64> + 'l {
+        let hp = &self.s.map.holds_previous;
+        let any_prev = hp.iter().any(|&b| b);
+        let any_new = hp.iter().any(|&b| !b);
+        any_prev
+            .then_some(leaf.u_prev)
+            .into_iter()
+            .chain(any_new.then_some(leaf.u_k))
+    }
+}
+
+/// What the step run decides.
+pub struct StepResult {
+    /// Largest `(y - y_final) sign(y_final)`, at least 0.
+    pub peak_dev: f64,
+    pub peak_decided: bool,
+    /// Largest |u| over the points' commands and |u_final|.
+    pub u_peak: f64,
+    pub u_decided: bool,
+    pub t10: Instant,
+    pub t90: Instant,
+    /// Entry into the band after the last point outside it.
+    pub settled_since: Instant,
+}
+
+/// An instant a search found, or why there is none.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Instant {
+    /// At this time, s.
+    At(f64),
+    /// Never: not in the horizon, and the tail's bound rules it out after.
+    Nowhere,
+    /// The tail's bound (or the search budget) leaves it open.
+    Undecided,
+}
+
+/// What the disturbance run decides.
+pub struct DisturbanceResult {
+    pub peak: f64,
+    pub peak_decided: bool,
+    pub since: Instant,
+}
+
+impl<'a> Stretches<'a> {
+    /// The step figures' raw results (`y_final` and the band as the walk's
+    /// `StepMetrics` uses them).
+    pub fn step(&self, z_end: &DVector<f64>, y_final: f64, u_final: f64, band: f64) -> StepResult {
+        let run = Run::new(self, z_end, 1.0, 0.0);
+        let yf = y_final;
+        let band_abs = band * yf.abs();
+        let sign = yf.signum();
+        let scale_y = yf.abs().max(run.y_end.abs());
+        let (peak_dev, peak_decided) = if yf != 0.0 {
+            let tol = 16.0 * run.y_floor + 1e-12 * scale_y;
+            run.max_search(
+                0.0,
+                tol,
+                |b| if yf > 0.0 { b.y_hi - yf } else { yf - b.y_lo },
+                |leaf, best| {
+                    for &y in &leaf.ys {
+                        *best = best.max((y - yf) * sign);
+                    }
+                },
+            )
+        } else {
+            (0.0, true)
+        };
+        // The command peak includes |u_final| (see `StepMetrics::finish`):
+        // nodes are compared with the larger of the two.
+        let uf = u_final.abs();
+        let tol_u = 16.0 * run.u_floor + 1e-12 * uf.max(run.u_end.abs());
+        let (u_peak, u_decided) = run.max_search(
+            uf,
+            tol_u,
+            |b| b.u_lo.abs().max(b.u_hi.abs()),
+            |leaf, best| {
+                for u in run.commands(leaf) {
+                    *best = best.max(u.abs());
+                }
+            },
+        );
+        let (t10, t90) = if yf != 0.0 {
+            (run.rise_crossing(yf, 0.1), run.rise_crossing(yf, 0.9))
+        } else {
+            (Instant::Nowhere, Instant::Nowhere)
+        };
+        let settled_since = if yf != 0.0 {
+            let maybe = |b: &Bound| !(b.y_lo >= yf - band_abs && b.y_hi <= yf + band_abs);
+            let hit = |leaf: &Leaf| leaf.ys.iter().rposition(|&y| (y - yf).abs() > band_abs);
+            match run.ordered_search(false, &maybe, &hit) {
+                Found::At((k, j, leaf)) => {
+                    let (tp, yp) = (run.time(leaf.t0, j), leaf.ys[j]);
+                    let (t, y) = run.next_point(k, j, &leaf);
+                    let dp = (yp - yf).abs() - band_abs;
+                    let dn = (y - yf).abs() - band_abs;
+                    Instant::At(if dp > dn {
+                        tp + (t - tp) * dp / (dp - dn)
+                    } else {
+                        t
+                    })
+                }
+                Found::Nowhere => Instant::At(0.0),
+                Found::Undecided => Instant::Undecided,
+            }
+        } else {
+            Instant::Nowhere
+        };
+        StepResult {
+            peak_dev,
+            peak_decided,
+            u_peak,
+            u_decided,
+            t10,
+            t90,
+            settled_since,
+        }
+    }
+
+    /// The disturbance figures' raw results.
+    pub fn disturbance(&self, z_end: &DVector<f64>, yd_final: f64, band: f64) -> DisturbanceResult {
+        let run = Run::new(self, z_end, 0.0, 1.0);
+        let scale = run.y_end.abs().max(
+            run.dz0
+                .iter()
+                .zip(&self.map.g_abs)
+                .map(|(a, b)| a.abs() * b)
+                .sum::<f64>(),
+        );
+        let tol = 16.0 * run.y_floor + 1e-12 * scale;
+        let (peak, peak_decided) = run.max_search(
+            0.0,
+            tol,
+            |b| b.y_lo.abs().max(b.y_hi.abs()),
+            |leaf, best| {
+                for &y in &leaf.ys {
+                    *best = best.max(y.abs());
+                }
+            },
+        );
+        let threshold = band * peak;
+        let maybe = |b: &Bound| !(b.y_lo >= yd_final - threshold && b.y_hi <= yd_final + threshold);
+        let hit = |leaf: &Leaf| {
+            leaf.ys
+                .iter()
+                .rposition(|&y| (y - yd_final).abs() > threshold)
+        };
+        let since = if !peak_decided {
+            Instant::Undecided
+        } else {
+            match run.ordered_search(false, &maybe, &hit) {
+                Found::At((k, j, leaf)) => {
+                    let (tp, dp) = (run.time(leaf.t0, j), (leaf.ys[j] - yd_final).abs());
+                    let (t, y) = run.next_point(k, j, &leaf);
+                    let dev = (y - yd_final).abs();
+                    Instant::At(if dp > dev {
+                        tp + (t - tp) * (dp - threshold) / (dp - dev)
+                    } else {
+                        t
+                    })
+                }
+                Found::Nowhere => Instant::At(0.0),
+                Found::Undecided => Instant::Undecided,
+            }
+        };
+        DisturbanceResult {
+            peak,
+            peak_decided,
+            since,
+        }
+    }
+}
+
+impl Run<'_, '_> {
+    /// First instant the output reaches `level` of `yf` (interpolated as
+    /// the walk's `StepMetrics` does).
+    fn rise_crossing(&self, yf: f64, level: f64) -> Instant {
+        let maybe = |b: &Bound| {
+            let f_hi = if yf > 0.0 { b.y_hi / yf } else { b.y_lo / yf };
+            // A NaN keeps the node open.
+            f_hi.partial_cmp(&level) != Some(Ordering::Less)
+        };
+        let hit = |leaf: &Leaf| leaf.ys.iter().position(|&y| y / yf >= level);
+        match self.ordered_search(true, &maybe, &hit) {
+            Found::At((k, j, leaf)) => {
+                let (t, y) = (self.time(leaf.t0, j), leaf.ys[j]);
+                Instant::At(match self.prev_point(k, j, &leaf) {
+                    Some((tp, yp)) => crossing(tp, yp / yf, t, y / yf, level),
+                    None => t,
+                })
+            }
+            Found::Nowhere => Instant::Nowhere,
+            Found::Undecided => Instant::Undecided,
+        }
+    }
+}
