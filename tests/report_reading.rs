@@ -267,7 +267,13 @@ fn markdown_tables_read_as_plain_text() {
         // Number columns are right-aligned.
         if lines[0].contains("value") {
             assert!(lines[1].contains("-:"), "{block}");
-            assert!(lines.iter().any(|l| l.contains("|   18.62 |")), "{block}");
+            // Right-aligned: padding before the number, one space after.
+            assert!(
+                lines.iter().any(|l| l
+                    .split('|')
+                    .any(|c| c.starts_with("  ") && c.ends_with(" 18.62 "))),
+                "{block}"
+            );
         }
     }
     assert!(tables >= 2);

@@ -941,7 +941,7 @@ fn chart_caption(name: &str, at_rate: &str, robust: bool) -> String {
 // ------------------------------------------------------------ tables
 
 /// Placeholders a numeric column may hold besides numbers.
-const NOT_A_NUMBER: [&str; 8] = [
+const NOT_A_NUMBER: [&str; 13] = [
     "-",
     "none",
     "infinite",
@@ -950,17 +950,35 @@ const NOT_A_NUMBER: [&str; 8] = [
     "fails",
     "not settled",
     "not reached",
+    "not recovered",
+    "not searched",
+    "not located",
+    "no final value",
+    "undecided",
 ];
 
-/// True when a cell reads as a number (`<= 12.5`, `6.908 %` included).
+/// True when a cell reads as a number (`<= 12.5`, `6.908 %`, `716.3 µs`,
+/// `1.396 kHz` included).
 fn is_number(cell: &str) -> bool {
     let t = cell.trim();
     let t = t
         .strip_prefix("<= ")
         .or_else(|| t.strip_prefix(">= "))
         .unwrap_or(t);
-    let t = t.strip_suffix(" %").unwrap_or(t);
+    let t = match t.rsplit_once(' ') {
+        Some((n, unit)) if is_unit(unit) => n,
+        _ => t,
+    };
     !t.is_empty() && t.parse::<f64>().is_ok()
+}
+
+/// `%`, or seconds or hertz with an SI prefix (`ms`, `µs`, `kHz`).
+fn is_unit(u: &str) -> bool {
+    u == "%"
+        || ["s", "Hz"].iter().any(|base| {
+            u.strip_suffix(base)
+                .is_some_and(|p| ["", "p", "n", "µ", "m", "k", "M", "G"].contains(&p))
+        })
 }
 
 /// Per column: right-aligned when every cell is a number or a
