@@ -1,19 +1,22 @@
-//! The review charts of a `pick` run, drawn from the real results with the
-//! crate's own renderer ([`crate::plot`]).
+//! The review charts of a `pick` or `sweep` run, drawn from the real
+//! results with the crate's plotting layer ([`crate::plot`]).
 //!
-//! Each chart is built as plain [`Figure`] data from the sweep, the pick
-//! report and, where a chart needs more than the sweep holds (traces, the
-//! loop gain, hold approximations), fresh evaluations of the same
-//! [`PreparedLoop`]. The charts are independent, so they are built and
-//! drawn in parallel. A chart that needs a recommendation is skipped when
-//! there is none; a chart that needs a budget is skipped without one.
+//! Each chart is first described as plain [`Figure`] data ([`describe`]:
+//! title, panels, series with their points, limits, marks, labels) from
+//! the sweep, the pick report and, where a chart needs more than the sweep
+//! holds (traces, the loop gain, hold approximations), fresh evaluations
+//! of the same [`PreparedLoop`]; tests read those descriptions. Then each
+//! is drawn ([`write_charts`]). The charts are independent, so they are
+//! built and drawn in parallel. A chart that needs a recommendation is
+//! skipped when there is none; a chart that needs a budget is skipped
+//! without one.
 
 use std::path::{Path, PathBuf};
 
 use rayon::prelude::*;
 
 use crate::budget;
-use crate::case::Case;
+use crate::case::{Case, Spec};
 use crate::continuous::HoldApprox;
 use crate::discretize::Method;
 use crate::error::Error;
@@ -23,8 +26,8 @@ use crate::frequency::{loop_grid, unwrapped_phase};
 use crate::hold::HoldKind;
 use crate::pick::{PickReport, Recommended, case_methods};
 use crate::plot::{
-    Annotation, Axis, Draw, Figure, Limit, MarkStyle, Panel, Series, Side, VMark, XBand, YBand,
-    render_png_bytes,
+    Annotation, Axis, Draw, Figure, Limit, MarkStyle, PALETTE_LEN, Panel, Series, Side, VMark,
+    XBand, YBand, render_png_bytes,
 };
 use crate::poly::C64;
 use crate::search::method_label;
@@ -50,6 +53,13 @@ const HOLD_CHART_RATES: usize = 40;
 const MAX_SAMPLE_MARKERS: usize = 60;
 /// Points of a continuous-design trace.
 const CONTINUOUS_TRACE_STEPS: usize = 2000;
+/// An upper-limited figure is shown up to this many times its limit; the
+/// points above are marked at the top edge (near the stability edge such
+/// a figure runs to hundreds and would flatten the rest).
+const CLIP_TIMES_LIMIT: f64 = 3.0;
+/// f* values closer than this ratio share one label (one per cluster),
+/// so labels never pile up on a log rate axis.
+const STAR_CLUSTER_RATIO: f64 = 1.25;
 
 // Palette entries, fixed per role so a reader can follow a role from
 // chart to chart.
@@ -57,7 +67,128 @@ const STYLE_RECOMMENDED: usize = 0;
 const STYLE_STAR: usize = 1;
 const STYLE_FAILING: usize = 3;
 const STYLE_CONTINUOUS: usize = 4;
-const STYLE_REFERENCE: usize = 4;
+const STYLE_REFERENCE: usize = 6;
+const STYLE_OFF_SCALE: usize = 4;
+
+/// One figure as the charts show it (the one place panels are defined
+/// until the figure catalogue supplies them): its key (as in `sweep.csv`
+/// and a limiting figure), axis label, unit, how it is read, its spec
+/// limit with the failing side, and what a gap in its curve means.
+pub struct PanelDef {
+    pub key: &'static str,
+    pub label: &'static str,
+    pub unit: &'static str,
+    pub get: fn(&Figures) -> Option<f64>,
+    pub limit: fn(&Spec) -> Option<f64>,
+    pub bad_side: Side,
+    pub gap: &'static str,
+}
+
+pub const OVERSHOOT: PanelDef = PanelDef {
+    key: "overshoot_pct",
+    label: "overshoot (%)",
+    unit: "%",
+    get: |f| f.overshoot_pct,
+    limit: |s| s.max_overshoot_pct,
+    bad_side: Side::Above,
+    gap: "no final value",
+};
+pub const SETTLING: PanelDef = PanelDef {
+    key: "settling_time_s",
+    label: "settling time (s)",
+    unit: "s",
+    get: |f| f.settling_time_s,
+    limit: |s| s.max_settling_s,
+    bad_side: Side::Above,
+    gap: "not settled",
+};
+pub const PHASE_MARGIN: PanelDef = PanelDef {
+    key: "phase_margin_deg",
+    label: "PM (deg)",
+    unit: "deg",
+    get: |f| f.phase_margin_deg,
+    limit: |s| s.min_phase_margin_deg,
+    bad_side: Side::Below,
+    gap: "no gain crossover",
+};
+/// The size of the gain margin: what `min_gain_margin_db` bounds.
+pub const GAIN_MARGIN: PanelDef = PanelDef {
+    key: "gain_margin_db",
+    label: "|GM| (dB)",
+    unit: "dB",
+    get: |f| f.gain_margin_db.map(f64::abs),
+    limit: |s| s.min_gain_margin_db,
+    bad_side: Side::Below,
+    gap: "no -180 deg crossing (infinite)",
+};
+pub const SENSITIVITY: PanelDef = PanelDef {
+    key: "sensitivity_peak",
+    label: "Ms (ratio)",
+    unit: "",
+    get: |f| Some(f.sensitivity_peak),
+    limit: |s| s.max_sensitivity_peak,
+    bad_side: Side::Above,
+    gap: "",
+};
+pub const RECOVERY: PanelDef = PanelDef {
+    key: "recovery_time_s",
+    label: "recovery time (s)",
+    unit: "s",
+    get: |f| f.recovery_time_s,
+    limit: |s| s.max_recovery_s,
+    bad_side: Side::Above,
+    gap: "not recovered",
+};
+pub const DISTURBANCE_PEAK: PanelDef = PanelDef {
+    key: "disturbance_peak",
+    label: "disturbance peak",
+    unit: "",
+    get: |f| Some(f.disturbance_peak),
+    limit: |s| s.max_disturbance_peak,
+    bad_side: Side::Above,
+    gap: "",
+};
+/// The panels of `figures-vs-rate.png`, top to bottom.
+pub const RATE_PANELS: [&PanelDef; 5] = [
+    &OVERSHOOT,
+    &SETTLING,
+    &PHASE_MARGIN,
+    &GAIN_MARGIN,
+    &SENSITIVITY,
+];
+const ALL_DEFS: [&PanelDef; 7] = [
+    &OVERSHOOT,
+    &SETTLING,
+    &PHASE_MARGIN,
+    &GAIN_MARGIN,
+    &SENSITIVITY,
+    &RECOVERY,
+    &DISTURBANCE_PEAK,
+];
+
+impl PanelDef {
+    /// The spec limit on this figure as drawn: `max 25 %`, `min 45 deg`.
+    pub fn limit_of(&self, spec: &Spec) -> Option<Limit> {
+        let v = (self.limit)(spec)?;
+        let word = match self.bad_side {
+            Side::Above => "max",
+            Side::Below => "min",
+        };
+        let text = format!("{word} {} {}", fmt_num(v), self.unit);
+        Some(Limit::new(v, self.bad_side, text.trim_end()))
+    }
+
+    /// `overshoot 25.31 %`: the figure's value in words.
+    fn value_text(&self, f: &Figures) -> Option<String> {
+        let name = self.label.split(" (").next().unwrap_or(self.label);
+        let v = (self.get)(f)?;
+        Some(
+            format!("{name} {} {}", fmt_num(v), self.unit)
+                .trim_end()
+                .to_string(),
+        )
+    }
+}
 
 /// Everything a chart builder reads.
 struct Inputs<'a> {
@@ -70,12 +201,6 @@ struct Inputs<'a> {
 }
 
 type Builder = fn(&Inputs) -> Option<Figure>;
-/// Reads one figure (None where it does not exist).
-type Get = fn(&Figures) -> Option<f64>;
-/// A limit: value, infeasible side, label.
-type LimitSpec = Option<(f64, Side, String)>;
-/// A panel of a figures-against-rate chart: y label, figure, limit.
-type PanelSpec = (&'static str, Get, LimitSpec);
 type Points = Vec<(f64, f64)>;
 
 /// A chart as drawn: where it was written and its PNG bytes (which the
@@ -87,23 +212,16 @@ pub struct Chart {
     pub png: Vec<u8>,
 }
 
-/// Draw every chart that applies to this run into `out_dir` (created if
-/// missing) and return the charts written, in a fixed order.
-///
-/// Charts that need a recommendation (step, loop, hold approximation,
-/// disturbance) are skipped when the report has none; `cpu-budget.png`
-/// is skipped when the case has no budget.
-pub fn write_charts(
-    out_dir: &Path,
+/// Describe every chart that applies to this run, in a fixed order: file
+/// name and figure (without the footer note). Charts that need a
+/// recommendation (step, loop, hold approximation, disturbance) are
+/// skipped when the report has none; `cpu-budget.png` without a budget.
+pub fn describe(
     case: &Case,
     lp: &PreparedLoop,
     rows: &[SweepRow],
     report: &PickReport,
-) -> Result<Vec<Chart>, Error> {
-    std::fs::create_dir_all(out_dir).map_err(|e| Error::Output {
-        path: out_dir.display().to_string(),
-        message: e.to_string(),
-    })?;
+) -> Vec<(&'static str, Figure)> {
     let rec = report.recommended.as_ref().and_then(|r| {
         case_methods(case)
             .into_iter()
@@ -117,11 +235,6 @@ pub fn write_charts(
         report,
         rec,
     };
-    let note = format!(
-        "{} | looprate {} | model-based: confirm on the hardware",
-        case.title,
-        env!("CARGO_PKG_VERSION")
-    );
     let jobs: [(&str, Builder); 8] = [
         (FIGURES_VS_RATE, figures_vs_rate),
         (STEP_RESPONSE, step_response),
@@ -132,19 +245,38 @@ pub fn write_charts(
         (PRECISION, precision_chart),
         (HOLD_KINDS, hold_kinds),
     ];
-    let written: Vec<Result<Option<Chart>, Error>> = jobs
-        .par_iter()
-        .map(|(name, build)| {
-            let Some(fig) = build(&inputs) else {
-                return Ok(None);
-            };
+    jobs.par_iter()
+        .filter_map(|(name, build)| build(&inputs).map(|f| (*name, f)))
+        .collect()
+}
+
+/// Draw every chart that applies to this run into `out_dir` (created if
+/// missing) and return the charts written, in [`describe`]'s order.
+pub fn write_charts(
+    out_dir: &Path,
+    case: &Case,
+    lp: &PreparedLoop,
+    rows: &[SweepRow],
+    report: &PickReport,
+) -> Result<Vec<Chart>, Error> {
+    std::fs::create_dir_all(out_dir).map_err(|e| Error::Output {
+        path: out_dir.display().to_string(),
+        message: e.to_string(),
+    })?;
+    let note = format!(
+        "{} | looprate {} | model-based: confirm on the hardware",
+        case.title,
+        env!("CARGO_PKG_VERSION")
+    );
+    describe(case, lp, rows, report)
+        .into_par_iter()
+        .map(|(name, fig)| {
             let path = out_dir.join(name);
             let png = render_png_bytes(&fig.with_note(note.clone()), &path)?;
             crate::outputs::write_atomic(&path, &png)?;
-            Ok(Some(Chart { path, png }))
+            Ok(Chart { path, png })
         })
-        .collect();
-    written.into_iter().filter_map(Result::transpose).collect()
+        .collect()
 }
 
 // ------------------------------------------------------------- helpers
@@ -157,52 +289,53 @@ fn hz(v: f64) -> String {
     crate::engineering::hz(v)
 }
 
+/// The rows of one (method, hold) at the design delay, by rate.
+fn rows_of<'a>(inp: &Inputs<'a>, m: Option<Method>, h: HoldKind) -> Vec<&'a SweepRow> {
+    let mut rows: Vec<&SweepRow> = (inp.rows.iter())
+        .filter(|r| {
+            r.point.method == m && r.point.hold == h && r.point.delay == inp.report.design_delay
+        })
+        .collect();
+    rows.sort_by(|a, b| a.point.rate_hz.total_cmp(&b.point.rate_hz));
+    rows
+}
+
 /// The methods of the sweep at the design delay, in case order.
 fn design_series<'a>(inp: &Inputs<'a>) -> Vec<(String, Vec<&'a SweepRow>)> {
-    let mut out: Vec<(String, Vec<&SweepRow>)> = Vec::new();
-    for m in case_methods(inp.case) {
-        let mut rows: Vec<&SweepRow> = inp
-            .rows
-            .iter()
-            .filter(|r| {
-                r.point.method == m
-                    && r.point.hold == design_hold(inp)
-                    && r.point.delay == inp.report.design_delay
-            })
-            .collect();
-        if rows.is_empty() {
-            continue;
-        }
-        rows.sort_by(|a, b| a.point.rate_hz.total_cmp(&b.point.rate_hz));
-        out.push((method_label(m), rows));
-    }
-    out
+    (case_methods(inp.case).into_iter())
+        .map(|m| (method_label(m), rows_of(inp, m, design_hold(inp))))
+        .filter(|(_, rows)| !rows.is_empty())
+        .collect()
 }
 
 /// The rows of a controller given in z, one series per computation delay
 /// (each a single rate), labelled by the delay.
 fn delay_series<'a>(inp: &Inputs<'a>) -> Vec<(String, Vec<&'a SweepRow>)> {
-    let mut out: Vec<(String, Vec<&SweepRow>)> = Vec::new();
-    for &d in &inp.case.compute_delays {
-        let rows: Vec<&SweepRow> = inp.rows.iter().filter(|r| r.point.delay == d).collect();
-        if !rows.is_empty() {
-            out.push((format!("computation delay {} T", fmt_num(d)), rows));
-        }
-    }
-    out
+    (inp.case.compute_delays.iter())
+        .map(|&d| {
+            let rows: Vec<&SweepRow> = inp.rows.iter().filter(|r| r.point.delay == d).collect();
+            (format!("computation delay {} T", fmt_num(d)), rows)
+        })
+        .filter(|(_, rows)| !rows.is_empty())
+        .collect()
 }
 
 /// The nominal `f_star` of a method at the design delay.
 fn f_star(report: &PickReport, method: &str) -> Option<f64> {
-    report
-        .methods
-        .iter()
+    let hold = report.recommended.as_ref().map(|r| r.hold);
+    (report.methods.iter())
         .find(|m| {
-            m.method == method
-                && Some(m.hold) == report.recommended.as_ref().map(|r| r.hold)
-                && m.compute_delay == report.design_delay
+            m.method == method && Some(m.hold) == hold && m.compute_delay == report.design_delay
         })
         .and_then(|m| m.slowest_rate_hz)
+}
+
+/// The robust `f_star` of a method at the design delay (plant variants).
+fn robust_f_star(report: &PickReport, method: &str) -> Option<f64> {
+    let rb = report.robust.as_ref()?;
+    (rb.methods.iter())
+        .find(|m| m.rate.method == method && m.rate.compute_delay == report.design_delay)
+        .and_then(|m| m.rate.slowest_rate_hz)
 }
 
 /// The hold kind the charts of methods show: the recommended one, else
@@ -213,50 +346,34 @@ fn design_hold(inp: &Inputs) -> HoldKind {
         .unwrap_or_else(|| inp.case.holds.first().copied().unwrap_or_default())
 }
 
-/// The robust `f_star` of a method at the design delay (plant variants).
-fn robust_f_star(report: &PickReport, method: &str) -> Option<f64> {
-    report.robust.as_ref().and_then(|rb| {
-        rb.methods
-            .iter()
-            .find(|m| m.rate.method == method && m.rate.compute_delay == report.design_delay)
-            .and_then(|m| m.rate.slowest_rate_hz)
-    })
-}
-
-/// Vertical marks of one kind of `f_star` (one per method). When the
-/// methods' values lie within 10 % of each other their labels would
-/// collide: one label then names the span and the count, and the other
-/// lines go unlabelled (the report's tables give each value).
+/// Vertical marks of one kind of `f_star` (one per method). Values closer
+/// than [`STAR_CLUSTER_RATIO`] to their neighbour form a cluster with one
+/// label naming its span and count (the report's tables give each value);
+/// a lone value names its method.
 fn star_marks(
     series: &[(String, Vec<&SweepRow>)],
     kind: &str,
     style: MarkStyle,
     get: impl Fn(&str) -> Option<f64>,
-) -> Vec<(f64, String, MarkStyle)> {
-    let found: Vec<(&str, f64)> = series
-        .iter()
+) -> Vec<VMark> {
+    let mut found: Vec<(&str, f64)> = (series.iter())
         .filter_map(|(m, _)| get(m).map(|f| (m.as_str(), f)))
         .collect();
-    let lo = found.iter().map(|p| p.1).fold(f64::INFINITY, f64::min);
-    let hi = found.iter().map(|p| p.1).fold(f64::NEG_INFINITY, f64::max);
-    if found.len() > 1 && hi <= 1.1 * lo {
-        return found
-            .iter()
-            .enumerate()
-            .map(|(i, &(_, f))| {
-                let text = if i == 0 {
-                    format!("{kind} {} to {} ({} methods)", hz(lo), hz(hi), found.len())
-                } else {
-                    String::new()
-                };
-                (f, text, style)
-            })
-            .collect();
+    found.sort_by(|a, b| a.1.total_cmp(&b.1));
+    let mut out = Vec::new();
+    for (i, &(m, f)) in found.iter().enumerate() {
+        let starts = i == 0 || f > STAR_CLUSTER_RATIO * found[i - 1].1;
+        let end = (i + 1..found.len())
+            .find(|&j| found[j].1 > STAR_CLUSTER_RATIO * found[j - 1].1)
+            .unwrap_or(found.len());
+        let text = match (starts, end - i) {
+            (false, _) => String::new(),
+            (true, 1) => format!("{kind} {m} {}", hz(f)),
+            (true, n) => format!("{kind} {} to {} ({n} methods)", hz(f), hz(found[end - 1].1)),
+        };
+        out.push(VMark::new(f, text, style));
     }
-    found
-        .into_iter()
-        .map(|(m, f)| (f, format!("{kind} {m} {}", hz(f)), style))
-        .collect()
+    out
 }
 
 /// What the charts call the rate they show the loop at: the recommended
@@ -280,27 +397,10 @@ fn star_word(report: &PickReport) -> &'static str {
     }
 }
 
-/// The figures of a chart row; NaN (a break in the line) where the loop
-/// is unstable or the figure does not exist.
+/// A figure of a chart row; NaN (a break in the line) where the loop is
+/// unstable or the figure does not exist.
 fn figure_of(e: &Evaluation, get: fn(&Figures) -> Option<f64>) -> f64 {
     e.figures.as_ref().and_then(get).unwrap_or(f64::NAN)
-}
-
-fn overshoot(f: &Figures) -> Option<f64> {
-    f.overshoot_pct
-}
-fn settling(f: &Figures) -> Option<f64> {
-    f.settling_time_s
-}
-fn phase_margin(f: &Figures) -> Option<f64> {
-    f.phase_margin_deg
-}
-/// The size of the gain margin: what `min_gain_margin_db` bounds.
-fn gain_margin(f: &Figures) -> Option<f64> {
-    f.gain_margin_db.map(f64::abs)
-}
-fn sensitivity(f: &Figures) -> Option<f64> {
-    Some(f.sensitivity_peak)
 }
 
 /// A point of the recommended method at the design delay.
@@ -316,13 +416,7 @@ fn point_at(inp: &Inputs, method: Option<Method>, rate_hz: f64) -> Point {
 /// The failing rate shown beside f_star: the fastest infeasible grid rate
 /// below it, or f_star / 1.5 when the grid has none.
 fn failing_rate(inp: &Inputs, rec: &Recommended, method: Option<Method>) -> f64 {
-    inp.rows
-        .iter()
-        .filter(|r| {
-            r.point.method == method
-                && r.point.hold == rec.hold
-                && r.point.delay == inp.report.design_delay
-        })
+    (rows_of(inp, method, rec.hold).into_iter())
         .filter(|r| r.point.rate_hz < rec.slowest_rate_hz && !r.assessment.feasible)
         .map(|r| r.point.rate_hz)
         .fold(None, |a: Option<f64>, f| Some(a.map_or(f, |a| a.max(f))))
@@ -332,43 +426,29 @@ fn failing_rate(inp: &Inputs, rec: &Recommended, method: Option<Method>) -> f64 
 /// A sampled trace as a line through every point up to `t_end`, plus its
 /// sampling instants as markers (thinned to [`MAX_SAMPLE_MARKERS`]).
 fn trace_series(trace: &[TracePoint], t_end: f64, label: &str, style: usize) -> [Series; 2] {
-    let line: Vec<(f64, f64)> = trace
-        .iter()
-        .filter(|p| p.t <= t_end * (1.0 + 1e-12))
-        .map(|p| (p.t, p.y))
-        .collect();
-    let samples: Vec<(f64, f64)> = trace
-        .iter()
-        .filter(|p| p.sample && p.t <= t_end * (1.0 + 1e-12))
-        .map(|p| (p.t, p.y))
-        .collect();
+    let shown = || trace.iter().filter(|p| p.t <= t_end * (1.0 + 1e-12));
+    let samples: Points = shown().filter(|p| p.sample).map(|p| (p.t, p.y)).collect();
     let stride = samples.len().div_ceil(MAX_SAMPLE_MARKERS).max(1);
-    let marks: Vec<(f64, f64)> = samples.iter().copied().step_by(stride).collect();
-    let mark_label = if stride > 1 {
-        format!("samples (1 in {stride} shown)")
-    } else {
-        "samples".to_string()
+    let marks: Points = samples.iter().copied().step_by(stride).collect();
+    let mark_label = match stride {
+        1 => "samples".to_string(),
+        n => format!("samples (1 in {n} shown)"),
     };
     [
-        Series::line(label, line, style),
+        Series::line(label, shown().map(|p| (p.t, p.y)).collect(), style),
         Series::line(mark_label, marks, style).drawn(Draw::Markers),
     ]
 }
 
 /// Visible y range of a set of series, padded; non-finite points ignored.
-fn padded_range(series: &[&Series], pad: f64) -> Option<(f64, f64)> {
-    let (lo, hi) = series
-        .iter()
-        .flat_map(|s| s.points.iter().map(|p| p.1))
+fn padded_range<'a>(series: impl Iterator<Item = &'a Series>, pad: f64) -> Option<(f64, f64)> {
+    let (lo, hi) = (series.flat_map(|s| s.points.iter().map(|p| p.1)))
         .filter(|v| v.is_finite())
         .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
             (a.min(v), b.max(v))
         });
-    if !(lo.is_finite() && hi.is_finite()) {
-        return None;
-    }
     let span = (hi - lo).max(1e-9 * hi.abs().max(1.0));
-    Some((lo - pad * span, hi + pad * span))
+    (lo.is_finite() && hi.is_finite()).then(|| (lo - pad * span, hi + pad * span))
 }
 
 /// A horizontal line across `[x0, x1]`.
@@ -376,17 +456,93 @@ fn hline(label: &str, y: f64, x0: f64, x1: f64, style: usize) -> Series {
     Series::line(label, vec![(x0, y), (x1, y)], style)
 }
 
+/// A panel of one figure against the rate: one series per entry of
+/// `series` (legend on the top panel `named`), its spec limit, the gaps
+/// explained in its caption.
+fn rate_panel(
+    def: &PanelDef,
+    spec: &Spec,
+    series: &[(String, Vec<&SweepRow>)],
+    named: bool,
+) -> Panel {
+    let mut panel = Panel::new(Axis::linear(def.label));
+    let (mut unstable, mut missing) = (0, 0);
+    for (k, (name, rows)) in series.iter().enumerate() {
+        let pts = rows
+            .iter()
+            .map(|r| (r.point.rate_hz, figure_of(&r.eval, def.get)));
+        let never = rows.iter().all(|r| r.eval.figures.is_none());
+        unstable += rows.iter().filter(|r| r.eval.figures.is_none()).count();
+        missing += (rows.iter())
+            .filter(|r| {
+                r.eval
+                    .figures
+                    .as_ref()
+                    .is_some_and(|f| (def.get)(f).is_none())
+            })
+            .count();
+        let label = match (named, never) {
+            (false, _) => String::new(),
+            (true, false) => name.clone(),
+            (true, true) => format!("{name} (unstable at every rate)"),
+        };
+        panel
+            .series
+            .push(Series::line(label, pts.collect(), k).drawn(Draw::LineAndMarkers));
+    }
+    let total: usize = series.iter().map(|(_, rows)| rows.len()).sum();
+    let mut why = Vec::new();
+    if unstable > 0 {
+        why.push(format!("loop unstable at {unstable} of {total} points"));
+    }
+    if missing > 0 {
+        why.push(format!("{} at {missing} of {total} points", def.gap));
+    }
+    if !why.is_empty() {
+        panel.caption = format!("gaps: {}", why.join("; "));
+    }
+    if let Some(l) = def.limit_of(spec) {
+        add_limit(&mut panel, l);
+    }
+    panel
+}
+
+/// A spec limit on a panel. Near the stability edge an upper-limited
+/// figure runs off to huge values; the view then stops at
+/// [`CLIP_TIMES_LIMIT`] times the limit and the points beyond are marked
+/// on the top edge.
+fn add_limit(panel: &mut Panel, limit: Limit) {
+    let top = CLIP_TIMES_LIMIT * limit.value;
+    if limit.bad_side == Side::Above && limit.value > 0.0 {
+        // One mark where each curve leaves the top edge.
+        let above: Points = (panel.series.iter())
+            .flat_map(|s| s.points.windows(2))
+            .filter(|w| !(w[0].1 > top) && w[1].1.is_finite() && w[1].1 > top)
+            .map(|w| (w[1].0, top))
+            .collect();
+        if !above.is_empty() {
+            panel.y = panel.y.clone().with_range(0.0, top);
+            let label = format!("off scale (above {})", fmt_num(top));
+            panel
+                .series
+                .push(Series::line(label, above, STYLE_OFF_SCALE).drawn(Draw::Markers));
+        }
+    }
+    panel.limits.push(limit);
+}
+
 // --------------------------------------------------------------- charts
 
 /// Overshoot, settling time, phase margin, gain margin and sensitivity
-/// peak against the rate, one series per method at the design delay.
+/// peak against the rate, one series per method at the design delay
+/// (with plant variants also each method's worst-variant curve).
 fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
     let spec = &inp.case.spec;
     // A controller given in z runs at one rate: one point per computation
     // delay, on an axis around that rate (not the range of a sweep).
     let single = match &inp.lp.controller {
-        crate::transfer::Controller::Discrete(d) => Some(1.0 / d.period_s),
-        crate::transfer::Controller::Continuous(_) => None,
+        Controller::Discrete(d) => Some(1.0 / d.period_s),
+        Controller::Continuous(_) => None,
     };
     let series = match single {
         Some(_) => delay_series(inp),
@@ -395,160 +551,100 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
     if series.is_empty() {
         return None;
     }
-    // Short axis labels keep the text full size on five stacked panels;
-    // the title spells the abbreviations out.
-    let panels: [PanelSpec; 5] = [
-        (
-            "overshoot (%)",
-            overshoot,
-            spec.max_overshoot_pct
-                .map(|l| (l, Side::Above, format!("max {} %", fmt_num(l)))),
-        ),
-        (
-            "settling time (s)",
-            settling,
-            spec.max_settling_s
-                .map(|l| (l, Side::Above, format!("max {} s", fmt_num(l)))),
-        ),
-        (
-            "PM (deg)",
-            phase_margin,
-            spec.min_phase_margin_deg
-                .map(|l| (l, Side::Below, format!("min {} deg", fmt_num(l)))),
-        ),
-        (
-            "|GM| (dB)",
-            gain_margin,
-            spec.min_gain_margin_db
-                .map(|l| (l, Side::Below, format!("min {} dB", fmt_num(l)))),
-        ),
-        (
-            "Ms (ratio)",
-            sensitivity,
-            spec.max_sensitivity_peak
-                .map(|l| (l, Side::Above, format!("max {}", fmt_num(l)))),
-        ),
-    ];
-    // Vertical marks, each labelled on one panel only (spread over the
-    // panels so the labels do not collide); the lines run through all.
     // With plant variants both answers are marked, each by its name: the
-    // nominal f* (dotted, where these nominal curves cross the limits) and
-    // the robust f* (dashed, what the answer rests on).
+    // nominal f* (dotted, where the nominal curves cross the limits) and
+    // the robust f* (dashed, where the worst-variant curves do: what the
+    // answer rests on).
     let robust = inp.report.robust.is_some();
-    let mut marks: Vec<(f64, String, MarkStyle)> = Vec::new();
-    if robust {
-        marks.extend(star_marks(&series, "robust f*", MarkStyle::Dashed, |m| {
-            robust_f_star(inp.report, m)
-        }));
-        marks.extend(star_marks(&series, "nominal f*", MarkStyle::Dotted, |m| {
-            f_star(inp.report, m)
-        }));
-    } else {
-        marks.extend(star_marks(&series, "f*", MarkStyle::Dashed, |m| {
-            f_star(inp.report, m)
-        }));
-    }
-    // Only labelled marks take a panel for their label.
-    let mut labelled = 0;
-    let marks: Vec<(f64, String, MarkStyle, usize)> = marks
-        .into_iter()
-        .map(|(x, t, st)| {
-            let slot = labelled;
-            if !t.is_empty() {
-                labelled += 1;
-            }
-            (x, t, st, slot + 1)
-        })
-        .collect();
-    let mut marks = marks;
+    let mut marks: Vec<VMark> = Vec::new();
     if let Some(r) = &inp.report.recommended {
-        marks.insert(
-            0,
-            (
-                r.rate_hz,
-                format!("{} {}", rate_word(inp.report), hz(r.rate_hz)),
-                MarkStyle::Solid,
-                0,
-            ),
-        );
+        let text = format!("{} {}", rate_word(inp.report), hz(r.rate_hz));
+        marks.push(VMark::new(r.rate_hz, text, MarkStyle::Solid));
     }
+    if robust {
+        let get = |m: &str| robust_f_star(inp.report, m);
+        marks.extend(star_marks(&series, "robust f*", MarkStyle::Dashed, get));
+    }
+    let kind = if robust { "nominal f*" } else { "f*" };
+    let style = if robust {
+        MarkStyle::Dotted
+    } else {
+        MarkStyle::Dashed
+    };
+    marks.extend(star_marks(&series, kind, style, |m| f_star(inp.report, m)));
     let (lo, hi) = match single {
         Some(f) => (f / 1.5, f * 1.5),
         None => (inp.case.rates.min_hz, inp.case.rates.max_hz),
     };
-    // A method with no stable point draws nothing: its legend says why.
-    let never_stable: Vec<bool> = series
-        .iter()
-        .map(|(_, rows)| rows.iter().all(|r| r.eval.figures.is_none()))
-        .collect();
-    let mut title = format!(
-        "Loop figures vs rate, computation delay {} T (PM phase margin, GM gain margin, Ms sensitivity peak; hatched side of a limit fails; gaps: unstable)",
-        fmt_num(inp.report.design_delay)
-    );
-    if let Some(f) = single {
-        title = format!(
+    let never_stable =
+        (series.iter()).all(|(_, rows)| rows.iter().all(|r| r.eval.figures.is_none()));
+    let delay = fmt_num(inp.report.design_delay);
+    let title = match single {
+        Some(f) => format!(
             "Loop figures of the controller given in z at its one rate {} (one point per computation delay; PM phase margin, GM gain margin, Ms sensitivity peak; hatched side of a limit fails)",
             hz(f)
-        );
-    } else if never_stable.iter().all(|&b| b) {
-        title = format!(
-            "No swept rate gives a stable loop ({} to {}, computation delay {} T)",
+        ),
+        None if never_stable => format!(
+            "No swept rate gives a stable loop ({} to {}, computation delay {delay} T)",
             hz(lo),
             hz(hi),
-            fmt_num(inp.report.design_delay)
-        );
-    }
-    let mut fig = Figure::new(title, rate_axis().with_range(lo, hi));
-    for (i, (label, get, limit)) in panels.into_iter().enumerate() {
-        let mut panel = Panel::new(Axis::linear(label));
-        for (k, (method, rows)) in series.iter().enumerate() {
-            let pts = rows
-                .iter()
-                .map(|r| (r.point.rate_hz, figure_of(&r.eval, get)))
-                .collect();
-            // The legend is given once, on the top panel; styles repeat
-            // below, so every panel reads the same way.
-            let name = match (i, never_stable[k]) {
-                (0, false) => method.clone(),
-                (0, true) => format!("{method} (unstable at every rate)"),
-                _ => String::new(),
-            };
-            panel
-                .series
-                .push(Series::line(name, pts, k).drawn(Draw::LineAndMarkers));
-        }
-        for (x, text, style, slot) in &marks {
-            let text = if slot % 5 == i {
-                text.clone()
+        ),
+        None => format!(
+            "Loop figures vs rate, computation delay {delay} T{} (PM phase margin, GM gain margin, Ms sensitivity peak; hatched side of a limit fails)",
+            if robust {
+                ", nominal plant and worst variant"
             } else {
-                String::new()
-            };
-            panel.vmarks.push(VMark::new(*x, text, *style));
+                ""
+            }
+        ),
+    };
+    let mut fig = Figure::new(title, rate_axis().with_range(lo, hi));
+    let n = series.len();
+    for (i, def) in RATE_PANELS.iter().enumerate() {
+        let mut panel = rate_panel(def, spec, &series, i == 0);
+        if robust {
+            // Each method's figure at its worst over the variants, in
+            // styles after the nominal curves'.
+            for (k, (name, rows)) in series.iter().enumerate() {
+                let pts = (rows.iter())
+                    .map(|r| {
+                        let w = r.robust.as_ref().and_then(|rb| rb.worst_figures.as_ref());
+                        (r.point.rate_hz, w.and_then(def.get).unwrap_or(f64::NAN))
+                    })
+                    .collect();
+                let label = if i == 0 {
+                    format!("{name}, worst variant")
+                } else {
+                    String::new()
+                };
+                let s = Series::line(label, pts, (n + k) % PALETTE_LEN);
+                panel.series.insert(n + k, s);
+            }
+            if let Some(l) = panel.limits.pop() {
+                // Re-fit the clip to the worst-variant curves too.
+                panel
+                    .series
+                    .retain(|s| s.style.0 != STYLE_OFF_SCALE || s.draw != Draw::Markers);
+                panel.y.range = None;
+                add_limit(&mut panel, l);
+            }
         }
-        if let Some((v, side, text)) = limit {
-            add_limit(&mut panel, v, side, text);
+        // Lines through every panel, each label on one panel only
+        // (spread over the panels so the labels do not collide).
+        let mut slot = 0;
+        for mk in &marks {
+            let mut mk = mk.clone();
+            if !mk.label.is_empty() {
+                if slot % RATE_PANELS.len() != i {
+                    mk.label.clear();
+                }
+                slot += 1;
+            }
+            panel.vmarks.push(mk);
         }
         fig = fig.with_panel(panel);
     }
     Some(fig)
-}
-
-/// A spec limit on a panel. Near the stability edge an upper-limited
-/// figure runs off to huge values; the view then stays on the region
-/// around the limit (the line leaves the top edge where it goes beyond).
-fn add_limit(panel: &mut Panel, v: f64, side: Side, text: String) {
-    if side == Side::Above {
-        let top = panel
-            .series
-            .iter()
-            .flat_map(|s| s.points.iter().map(|p| p.1))
-            .filter(|v| v.is_finite())
-            .fold(f64::NEG_INFINITY, f64::max);
-        if top > 3.0 * v {
-            panel.y = panel.y.clone().with_range(0.0, 3.0 * v);
-        }
-    }
-    panel.limits.push(Limit::new(v, side, text));
 }
 
 /// Phase margin and overshoot against the rate, one series per hold kind
@@ -560,78 +656,38 @@ fn hold_kinds(inp: &Inputs) -> Option<Figure> {
         return None;
     }
     let (rec, method) = inp.rec?;
-    let mut series: Vec<(HoldKind, Vec<&SweepRow>)> = Vec::new();
-    for &h in &inp.case.holds {
-        let mut rows: Vec<&SweepRow> = inp
-            .rows
-            .iter()
-            .filter(|r| {
-                r.point.method == method
-                    && r.point.hold == h
-                    && r.point.delay == inp.report.design_delay
-            })
-            .collect();
-        if rows.is_empty() {
-            continue;
-        }
-        rows.sort_by(|a, b| a.point.rate_hz.total_cmp(&b.point.rate_hz));
-        series.push((h, rows));
-    }
-    if series.is_empty() {
-        return None;
-    }
-    let spec = &inp.case.spec;
-    let (lo, hi) = (inp.case.rates.min_hz, inp.case.rates.max_hz);
-    let mut fig = Figure::new(
-        format!(
-            "Hold kinds: {} at computation delay {} T (hatched side of a limit fails; gaps: unstable)",
-            rec.method,
-            fmt_num(inp.report.design_delay)
-        ),
-        rate_axis().with_range(lo, hi),
-    );
     let f_star_of = |h: HoldKind| {
-        inp.report
-            .answers()
-            .into_iter()
+        (inp.report.answers().into_iter())
             .find(|a| {
                 a.method == rec.method && a.hold == h && a.compute_delay == inp.report.design_delay
             })
             .and_then(|a| a.slowest_rate_hz)
     };
-    let panels: [PanelSpec; 2] = [
-        (
-            "PM (deg)",
-            phase_margin,
-            spec.min_phase_margin_deg
-                .map(|l| (l, Side::Below, format!("min {} deg", fmt_num(l)))),
-        ),
-        (
-            "overshoot (%)",
-            overshoot,
-            spec.max_overshoot_pct
-                .map(|l| (l, Side::Above, format!("max {} %", fmt_num(l)))),
-        ),
-    ];
-    for (i, (label, get, limit)) in panels.into_iter().enumerate() {
-        let mut panel = Panel::new(Axis::linear(label));
-        for (k, (h, rows)) in series.iter().enumerate() {
-            let pts = rows
-                .iter()
-                .map(|r| (r.point.rate_hz, figure_of(&r.eval, get)))
-                .collect();
-            let name = if i == 0 {
-                match f_star_of(*h) {
-                    Some(f) => format!("{h} (f* {})", hz(f)),
-                    None => format!("{h} (no f*)"),
-                }
-            } else {
-                String::new()
+    let series: Vec<(String, Vec<&SweepRow>)> = (inp.case.holds.iter())
+        .map(|&h| {
+            let name = match f_star_of(h) {
+                Some(f) => format!("{h} (f* {})", hz(f)),
+                None => format!("{h} (no f*)"),
             };
-            panel
-                .series
-                .push(Series::line(name, pts, k).drawn(Draw::LineAndMarkers));
-            if let Some(f) = f_star_of(*h) {
+            (name, rows_of(inp, method, h))
+        })
+        .filter(|(_, rows)| !rows.is_empty())
+        .collect();
+    if series.is_empty() {
+        return None;
+    }
+    let mut fig = Figure::new(
+        format!(
+            "Hold kinds: {} at computation delay {} T (hatched side of a limit fails)",
+            rec.method,
+            fmt_num(inp.report.design_delay)
+        ),
+        rate_axis().with_range(inp.case.rates.min_hz, inp.case.rates.max_hz),
+    );
+    for (i, def) in [&PHASE_MARGIN, &OVERSHOOT].into_iter().enumerate() {
+        let mut panel = rate_panel(def, &inp.case.spec, &series, i == 0);
+        for &h in &inp.case.holds {
+            if let Some(f) = f_star_of(h) {
                 let text = if i == 0 {
                     format!("f* {h}")
                 } else {
@@ -640,104 +696,143 @@ fn hold_kinds(inp: &Inputs) -> Option<Figure> {
                 panel.vmarks.push(VMark::new(f, text, MarkStyle::Dashed));
             }
         }
-        if let Some((v, side, text)) = limit {
-            add_limit(&mut panel, v, side, text);
-        }
         fig = fig.with_panel(panel);
     }
     Some(fig)
 }
 
-/// Step response: the continuous design, the sampled loop at the
-/// recommended rate, at f_star and at a failing slower rate.
+/// One run of a time-response chart: its rate, legend label and style.
+struct Run {
+    rate: f64,
+    label: String,
+    style: usize,
+}
+
+/// A time-response panel: the continuous design and each run's trace (a
+/// line through the output between samples, markers at the samples);
+/// `step` picks the step trace, else the load-disturbance one. Runs that
+/// cannot be simulated are named in the returned notes.
+fn time_panel(
+    inp: &Inputs,
+    method: Option<Method>,
+    runs: &[Run],
+    t_end: f64,
+    step: bool,
+    y_label: &str,
+) -> (Panel, Vec<String>) {
+    let mut panel = Panel::new(Axis::linear(y_label));
+    let mut notes = Vec::new();
+    if inp.lp.design.is_some() {
+        match inp.lp.continuous_traces(t_end, CONTINUOUS_TRACE_STEPS) {
+            Ok((s, d)) => {
+                let t = if step { s } else { d };
+                let pts = t.iter().map(|p| (p.t, p.y)).collect();
+                panel
+                    .series
+                    .push(Series::line("continuous design", pts, STYLE_CONTINUOUS));
+            }
+            Err(e) => notes.push(format!("continuous design not simulated: {e}")),
+        }
+    }
+    for run in runs {
+        let p = point_at(inp, method, run.rate);
+        let periods = (t_end * run.rate).ceil() as usize + 1;
+        match inp.lp.sampled_traces(&p, Some(periods)) {
+            Ok((s, d)) => {
+                let t = if step { s } else { d };
+                panel
+                    .series
+                    .extend(trace_series(&t, t_end, &run.label, run.style));
+            }
+            Err(e) => notes.push(format!("{}: not simulated: {e}", run.label)),
+        }
+    }
+    (panel, notes)
+}
+
+/// 1.4 times the longest of `times`, else `fallback`.
+fn span_of(times: &[Option<f64>], fallback: f64) -> f64 {
+    let longest = times.iter().flatten().copied().fold(0.0, f64::max);
+    if longest > 0.0 {
+        1.4 * longest
+    } else {
+        fallback
+    }
+}
+
+/// Step response: the continuous design, the sampled loop (nominal
+/// plant) at the recommended rate, at f_star and at a failing slower
+/// rate, with the overshoot limit and the settling band and limit.
 fn step_response(inp: &Inputs) -> Option<Figure> {
     let (rec, method) = inp.rec?;
     let figs = rec.figures.as_ref()?;
     let spec = &inp.case.spec;
-    let star = point_at(inp, method, rec.slowest_rate_hz);
     let fail_rate = failing_rate(inp, rec, method);
-    let fail = point_at(inp, method, fail_rate);
-    let star_eval = inp.lp.sampled(&star);
-    let fail_assessment = assess(&inp.lp.sampled(&fail), spec);
-
-    // Long enough to show settling of every passing response and the
-    // settling-time limit.
+    let star_eval = inp.lp.sampled(&point_at(inp, method, rec.slowest_rate_hz));
+    let fail_eval = inp.lp.sampled(&point_at(inp, method, fail_rate));
+    let fail_assessment = assess(&fail_eval, spec);
+    // The f* and failing runs can lie 1 % apart and draw almost the same
+    // curve: their labels give the figure that decides between them.
+    let limiting = fail_assessment.limiting;
+    let def = ALL_DEFS.iter().find(|d| Some(d.key) == limiting);
+    let value = |e: &Evaluation| {
+        def.zip(e.figures.as_ref())
+            .and_then(|(d, f)| d.value_text(f))
+    };
+    let fail_text = match (value(&fail_eval), limiting) {
+        (Some(v), _) => format!("{} fails: {v}", hz(fail_rate)),
+        (None, Some(k)) => format!("{} fails: {k}", hz(fail_rate)),
+        (None, None) => format!("{} fails", hz(fail_rate)),
+    };
+    let star_text = format!("{} {}", hz(rec.slowest_rate_hz), star_word(inp.report));
+    let runs = [
+        Run {
+            rate: rec.rate_hz,
+            label: format!("{} {}", hz(rec.rate_hz), rate_word(inp.report)),
+            style: STYLE_RECOMMENDED,
+        },
+        Run {
+            rate: rec.slowest_rate_hz,
+            label: match value(&star_eval) {
+                Some(v) => format!("{star_text}: {v}"),
+                None => star_text,
+            },
+            style: STYLE_STAR,
+        },
+        Run {
+            rate: fail_rate,
+            label: fail_text,
+            style: STYLE_FAILING,
+        },
+    ];
     let settle = [
         inp.report.design.as_ref().and_then(|f| f.settling_time_s),
         figs.settling_time_s,
         star_eval.figures.as_ref().and_then(|f| f.settling_time_s),
         spec.max_settling_s,
     ];
-    let longest = settle.iter().flatten().copied().fold(0.0, f64::max);
-    let t_end = if longest > 0.0 {
-        1.4 * longest
-    } else {
-        figs.horizon_s
-    };
-
-    let mut panel = Panel::new(Axis::linear("plant output y (output units, unit step)"));
-    let mut notes = Vec::new();
-    if inp.lp.design.is_some() {
-        match inp.lp.continuous_traces(t_end, CONTINUOUS_TRACE_STEPS) {
-            Ok((step, _)) => panel.series.push(
-                Series::line(
-                    "continuous design",
-                    step.iter().map(|p| (p.t, p.y)).collect(),
-                    STYLE_CONTINUOUS,
-                )
-                .drawn(Draw::Line),
-            ),
-            Err(e) => notes.push(format!("continuous design not simulated: {e}")),
-        }
-    }
-    let runs = [
-        (
-            rec.rate_hz,
-            format!("{} {}", hz(rec.rate_hz), rate_word(inp.report)),
-            STYLE_RECOMMENDED,
-        ),
-        (
-            rec.slowest_rate_hz,
-            format!("{} {}", hz(rec.slowest_rate_hz), star_word(inp.report)),
-            STYLE_STAR,
-        ),
-        (
-            fail_rate,
-            format!(
-                "{} fails ({})",
-                hz(fail_rate),
-                fail_assessment.limiting.unwrap_or("-")
-            ),
-            STYLE_FAILING,
-        ),
-    ];
-    let mut good: Vec<Series> = Vec::new();
-    for (k, (rate, label, style)) in runs.iter().enumerate() {
-        let p = point_at(inp, method, *rate);
-        let periods = (t_end * rate).ceil() as usize + 1;
-        match inp.lp.sampled_traces(&p, Some(periods)) {
-            Ok((step, _)) => {
-                let [line, marks] = trace_series(&step, t_end, label, *style);
-                if k < 2 {
-                    good.push(line.clone());
-                }
-                panel.series.push(line);
-                panel.series.push(marks);
-            }
-            Err(e) => notes.push(format!("{label}: not simulated: {e}")),
-        }
-    }
-    // A failing run may diverge: fit the view to the design and the
-    // passing runs so they stay readable; the failing one is clipped.
-    let mut fitted: Vec<&Series> = good.iter().collect();
-    fitted.extend(
-        panel
-            .series
-            .iter()
-            .filter(|s| s.label == "continuous design"),
-    );
-    if let Some((lo, hi)) = padded_range(&fitted, 0.12) {
+    let t_end = span_of(&settle, figs.horizon_s);
+    let y_label = "plant output y (output units, unit step)";
+    let (mut panel, notes) = time_panel(inp, method, &runs, t_end, true, y_label);
+    // A failing run may diverge: fit the view to the design, the passing
+    // runs and the overshoot limit so they stay readable.
+    let os_limit = spec
+        .max_overshoot_pct
+        .map(|l| figs.y_final * (1.0 + l / 100.0));
+    let fitted =
+        (panel.series.iter()).filter(|s| s.style.0 != STYLE_FAILING && s.draw == Draw::Line);
+    let limit_line = os_limit.map(|v| hline("", v, 0.0, 0.0, 0));
+    if let Some((lo, hi)) = padded_range(fitted.chain(limit_line.iter()), 0.12) {
         panel.y = panel.y.clone().with_range(lo.min(0.0), hi);
+    }
+    if let (Some(v), Some(l)) = (os_limit, spec.max_overshoot_pct) {
+        let text = format!("max overshoot {} %", fmt_num(l));
+        let side = if figs.y_final >= 0.0 {
+            Side::Above
+        } else {
+            Side::Below
+        };
+        panel.limits.push(Limit::new(v, side, text));
     }
     let band = spec.settling_band_pct / 100.0 * figs.y_final.abs();
     panel.hbands.push(YBand::new(
@@ -746,19 +841,109 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
         format!("settling band +/-{} %", fmt_num(spec.settling_band_pct)),
     ));
     if let Some(l) = spec.max_settling_s {
-        panel.vmarks.push(VMark::new(
-            l,
-            format!("settling limit {} s", fmt_num(l)),
-            MarkStyle::Dotted,
-        ));
+        let text = format!("settling limit {} s", fmt_num(l));
+        panel.vmarks.push(VMark::new(l, text, MarkStyle::Dotted));
     }
+    let plant = match &inp.report.robust {
+        Some(rb) => format!(
+            "nominal plant (f* and the recommendation hold for all {} variants)",
+            rb.variants
+        ),
+        None => "nominal plant".to_string(),
+    };
     let mut title = format!(
-        "Step response, {} at computation delay {} T (line: output between samples)",
+        "Step response, {} at computation delay {} T, {plant} (line: output between samples)",
         rec.method,
         fmt_num(inp.report.design_delay)
     );
-    if !notes.is_empty() {
-        title = format!("{title}; {}", notes.join("; "));
+    for n in notes {
+        title = format!("{title}; {n}");
+    }
+    Some(Figure::new(title, Axis::linear("time (s)").with_range(0.0, t_end)).with_panel(panel))
+}
+
+/// Load-disturbance response at the recommended rate and at f_star, with
+/// the recovery band of the recommended run and each run's computation
+/// delay.
+fn disturbance(inp: &Inputs) -> Option<Figure> {
+    let (rec, method) = inp.rec?;
+    let figs = rec.figures.as_ref()?;
+    let star_eval = inp.lp.sampled(&point_at(inp, method, rec.slowest_rate_hz));
+    let recovery = [
+        inp.report.design.as_ref().and_then(|f| f.recovery_time_s),
+        figs.recovery_time_s,
+        star_eval.figures.as_ref().and_then(|f| f.recovery_time_s),
+        inp.case.spec.max_recovery_s,
+    ];
+    let t_end = span_of(&recovery, figs.horizon_s);
+    let d = inp.report.design_delay;
+    let delay = |rate: f64| {
+        format!(
+            "delay {} T = {}",
+            fmt_num(d),
+            crate::engineering::seconds(d / rate)
+        )
+    };
+    let runs = [
+        Run {
+            rate: rec.rate_hz,
+            label: format!(
+                "{} {} ({})",
+                hz(rec.rate_hz),
+                rate_word(inp.report),
+                delay(rec.rate_hz)
+            ),
+            style: STYLE_RECOMMENDED,
+        },
+        Run {
+            rate: rec.slowest_rate_hz,
+            label: format!(
+                "{} {} ({})",
+                hz(rec.slowest_rate_hz),
+                star_word(inp.report),
+                delay(rec.slowest_rate_hz)
+            ),
+            style: STYLE_STAR,
+        },
+    ];
+    let y_label = "plant output y (output units, unit load step)";
+    let (mut panel, notes) = time_panel(inp, method, &runs, t_end, false, y_label);
+    // Recovery: |y - y_end| within the band times the peak (docs/figures.md);
+    // the recommended run's own final value is its last point.
+    let end = (panel.series.iter())
+        .find(|s| s.style.0 == STYLE_RECOMMENDED && s.draw == Draw::Line)
+        .and_then(|s| s.points.last().map(|p| p.1));
+    if let Some(y_end) = end.filter(|v| v.is_finite()) {
+        let band = inp.case.spec.settling_band_pct / 100.0 * figs.disturbance_peak;
+        let text = format!(
+            "recovery band +/-{} % of the peak ({} recommended)",
+            fmt_num(inp.case.spec.settling_band_pct),
+            hz(rec.rate_hz)
+        );
+        panel
+            .hbands
+            .push(YBand::new(y_end - band, y_end + band, text));
+    }
+    if let Some(t) = figs.recovery_time_s {
+        let text = format!("recovered {} s", fmt_num(t));
+        panel.vmarks.push(VMark::new(t, text, MarkStyle::Dashed));
+    }
+    if let Some(l) = inp.case.spec.max_recovery_s {
+        let text = format!("recovery limit {} s", fmt_num(l));
+        panel.vmarks.push(VMark::new(l, text, MarkStyle::Dotted));
+    }
+    if let Some(l) = DISTURBANCE_PEAK.limit_of(&inp.case.spec) {
+        panel.limits.push(Limit {
+            label: format!("{} peak", l.label),
+            ..l
+        });
+    }
+    let mut title = format!(
+        "Response to a unit load step at the plant input, {}, nominal plant (r = 0)",
+        rec.method
+    );
+    for n in notes {
+        title = format!("{title}; {n}");
     }
     Some(Figure::new(title, Axis::linear("time (s)").with_range(0.0, t_end)).with_panel(panel))
 }
@@ -833,7 +1018,7 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
     let f_hi = nyquist_hz;
     clip_magnitude(&mut mag, detail.gain_margin_db);
     mag.series
-        .push(hline("0 dB", 0.0, f_lo, f_hi, STYLE_REFERENCE + 2));
+        .push(hline("0 dB", 0.0, f_lo, f_hi, STYLE_REFERENCE));
     // Unwrapped phase at a frequency, exactly: the nearest grid point's
     // unwrapped value plus the angle from it.
     let phase_at = |f: f64| -> f64 {
@@ -865,7 +1050,7 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
             if level >= plo - 20.0 {
                 let text = if first { "-180 deg (mod 360)" } else { "" };
                 ph.series
-                    .push(hline(text, level, f_lo, f_hi, STYLE_REFERENCE + 2));
+                    .push(hline(text, level, f_lo, f_hi, STYLE_REFERENCE));
                 first = false;
             }
             k += 1.0;
@@ -1048,7 +1233,11 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
         }
     }
     for (k, (names, pts)) in loads.into_iter().enumerate() {
-        panel.series.push(Series::line(names.join(" = "), pts, k));
+        let label = match names.len() {
+            1 => names.join(""),
+            _ => format!("{} (same load)", names.join(", ")),
+        };
+        panel.series.push(Series::line(label, pts, k));
     }
     panel.limits.push(Limit::new(
         b.max_load_pct,
@@ -1217,21 +1406,6 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
             (inp.lp.sampled(&p), approx)
         })
         .collect();
-    let spec = &inp.case.spec;
-    let panels: [PanelSpec; 2] = [
-        (
-            "phase margin (deg)",
-            phase_margin,
-            spec.min_phase_margin_deg
-                .map(|l| (l, Side::Below, format!("min {} deg", fmt_num(l)))),
-        ),
-        (
-            "overshoot (%)",
-            overshoot,
-            spec.max_overshoot_pct
-                .map(|l| (l, Side::Above, format!("max {} %", fmt_num(l)))),
-        ),
-    ];
     let mut fig = Figure::new(
         format!(
             "Hold approximations vs the exact sampled loop ({}, {} hold, computation delay {} T)",
@@ -1241,9 +1415,11 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
         ),
         rate_axis().with_range(lo, hi),
     );
-    for (i, (label, get, limit)) in panels.into_iter().enumerate() {
+    let defs = [&PHASE_MARGIN, &OVERSHOOT];
+    for (i, def) in defs.into_iter().enumerate() {
+        let get = def.get;
         let named = |s: &str| if i == 0 { s.to_string() } else { String::new() };
-        let mut panel = Panel::new(Axis::linear(label));
+        let mut panel = Panel::new(Axis::linear(def.label));
         panel.series.push(
             Series::line(
                 named("exact sampled loop"),
@@ -1281,9 +1457,7 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
                 STYLE_CONTINUOUS,
             ));
         }
-        if let Some((v, side, text)) = limit {
-            panel.limits.push(Limit::new(v, side, text));
-        }
+        panel.limits.extend(def.limit_of(&inp.case.spec));
         panel.vmarks.push(VMark::new(
             rec.rate_hz,
             if i == 0 {
@@ -1296,83 +1470,6 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
         fig = fig.with_panel(panel);
     }
     Some(fig)
-}
-
-/// Load-disturbance response at the recommended rate and at f_star.
-fn disturbance(inp: &Inputs) -> Option<Figure> {
-    let (rec, method) = inp.rec?;
-    let figs = rec.figures.as_ref()?;
-    let star = point_at(inp, method, rec.slowest_rate_hz);
-    let star_eval = inp.lp.sampled(&star);
-    let recovery = [
-        inp.report.design.as_ref().and_then(|f| f.recovery_time_s),
-        figs.recovery_time_s,
-        star_eval.figures.as_ref().and_then(|f| f.recovery_time_s),
-        inp.case.spec.max_recovery_s,
-    ];
-    let longest = recovery.iter().flatten().copied().fold(0.0, f64::max);
-    let t_end = if longest > 0.0 {
-        1.4 * longest
-    } else {
-        figs.horizon_s
-    };
-    let mut panel = Panel::new(Axis::linear(
-        "plant output y (output units, unit load step)",
-    ));
-    let mut notes = Vec::new();
-    if inp.lp.design.is_some() {
-        match inp.lp.continuous_traces(t_end, CONTINUOUS_TRACE_STEPS) {
-            Ok((_, dist)) => panel.series.push(Series::line(
-                "continuous design",
-                dist.iter().map(|p| (p.t, p.y)).collect(),
-                STYLE_CONTINUOUS,
-            )),
-            Err(e) => notes.push(format!("continuous design not simulated: {e}")),
-        }
-    }
-    for (rate, label, style) in [
-        (
-            rec.rate_hz,
-            format!("{} {}", hz(rec.rate_hz), rate_word(inp.report)),
-            STYLE_RECOMMENDED,
-        ),
-        (
-            rec.slowest_rate_hz,
-            format!("{} {}", hz(rec.slowest_rate_hz), star_word(inp.report)),
-            STYLE_STAR,
-        ),
-    ] {
-        let p = point_at(inp, method, rate);
-        let periods = (t_end * rate).ceil() as usize + 1;
-        match inp.lp.sampled_traces(&p, Some(periods)) {
-            Ok((_, dist)) => panel
-                .series
-                .extend(trace_series(&dist, t_end, &label, style)),
-            Err(e) => notes.push(format!("{label}: not simulated: {e}")),
-        }
-    }
-    if let Some(l) = inp.case.spec.max_recovery_s {
-        panel.vmarks.push(VMark::new(
-            l,
-            format!("recovery limit {} s", fmt_num(l)),
-            MarkStyle::Dotted,
-        ));
-    }
-    if let Some(l) = inp.case.spec.max_disturbance_peak {
-        panel.limits.push(Limit::new(
-            l,
-            Side::Above,
-            format!("max peak {}", fmt_num(l)),
-        ));
-    }
-    let mut title = format!(
-        "Response to a unit load step at the plant input, {} (r = 0)",
-        rec.method
-    );
-    if !notes.is_empty() {
-        title = format!("{title}; {}", notes.join("; "));
-    }
-    Some(Figure::new(title, Axis::linear("time (s)").with_range(0.0, t_end)).with_panel(panel))
 }
 
 #[cfg(test)]
