@@ -68,7 +68,6 @@ const STYLE_STAR: usize = 1;
 const STYLE_FAILING: usize = 3;
 const STYLE_CONTINUOUS: usize = 4;
 const STYLE_REFERENCE: usize = 6;
-const STYLE_OFF_SCALE: usize = 4;
 
 /// One figure as the charts show it (the one place panels are defined
 /// until the figure catalogue supplies them): its key (as in `sweep.csv`
@@ -464,6 +463,7 @@ fn rate_panel(
     spec: &Spec,
     series: &[(String, Vec<&SweepRow>)],
     named: bool,
+    worst: bool,
 ) -> Panel {
     let mut panel = Panel::new(Axis::linear(def.label));
     let (mut unstable, mut missing) = (0, 0);
@@ -490,6 +490,32 @@ fn rate_panel(
             .series
             .push(Series::line(label, pts.collect(), k).drawn(Draw::LineAndMarkers));
     }
+    // With plant variants, each method's figure at its worst over them, in
+    // the styles after the nominal curves'.
+    let mut variant_gaps = 0;
+    for (k, (name, rows)) in series.iter().enumerate().filter(|_| worst) {
+        variant_gaps += (rows.iter())
+            .filter(|r| r.eval.figures.is_some())
+            .filter(|r| {
+                r.robust
+                    .as_ref()
+                    .is_none_or(|rb| rb.worst_figures.is_none())
+            })
+            .count();
+        let pts = (rows.iter())
+            .map(|r| {
+                let w = r.robust.as_ref().and_then(|rb| rb.worst_figures.as_ref());
+                (r.point.rate_hz, w.and_then(def.get).unwrap_or(f64::NAN))
+            })
+            .collect();
+        let label = if named {
+            format!("{name}, worst variant")
+        } else {
+            String::new()
+        };
+        let style = (series.len() + k) % PALETTE_LEN;
+        panel.series.push(Series::line(label, pts, style));
+    }
     let total: usize = series.iter().map(|(_, rows)| rows.len()).sum();
     let mut why = Vec::new();
     if unstable > 0 {
@@ -498,34 +524,45 @@ fn rate_panel(
     if missing > 0 {
         why.push(format!("{} at {missing} of {total} points", def.gap));
     }
+    if variant_gaps > 0 {
+        why.push(format!(
+            "worst variant: a variant unstable at {variant_gaps} more"
+        ));
+    }
     if !why.is_empty() {
         panel.caption = format!("gaps: {}", why.join("; "));
     }
     if let Some(l) = def.limit_of(spec) {
-        add_limit(&mut panel, l);
+        add_limit(&mut panel, l, def.unit);
     }
     panel
 }
 
 /// A spec limit on a panel. Near the stability edge an upper-limited
 /// figure runs off to huge values; the view then stops at
-/// [`CLIP_TIMES_LIMIT`] times the limit and the points beyond are marked
-/// on the top edge.
-fn add_limit(panel: &mut Panel, limit: Limit) {
+/// [`CLIP_TIMES_LIMIT`] times the limit, each curve gets a marker (its
+/// own) where it leaves the top edge, and the caption says so.
+fn add_limit(panel: &mut Panel, limit: Limit, unit: &str) {
     let top = CLIP_TIMES_LIMIT * limit.value;
     if limit.bad_side == Side::Above && limit.value > 0.0 {
-        // One mark where each curve leaves the top edge.
-        let above: Points = (panel.series.iter())
-            .flat_map(|s| s.points.windows(2))
-            .filter(|w| !(w[0].1 > top) && w[1].1.is_finite() && w[1].1 > top)
-            .map(|w| (w[1].0, top))
+        let leaving: Vec<Series> = (panel.series.iter())
+            .map(|s| {
+                let pts = (s.points.windows(2))
+                    .filter(|w| !(w[0].1 > top) && w[1].1.is_finite() && w[1].1 > top)
+                    .map(|w| (w[1].0, top))
+                    .collect();
+                Series::line("", pts, s.style.0).drawn(Draw::Markers)
+            })
+            .filter(|s| !s.points.is_empty())
             .collect();
-        if !above.is_empty() {
+        if !leaving.is_empty() {
             panel.y = panel.y.clone().with_range(0.0, top);
-            let label = format!("off scale (above {})", fmt_num(top));
-            panel
-                .series
-                .push(Series::line(label, above, STYLE_OFF_SCALE).drawn(Draw::Markers));
+            panel.series.extend(leaving);
+            let text = format!("marks on the top edge: above {} {unit}", fmt_num(top));
+            panel.caption = match panel.caption.is_empty() {
+                true => text.trim_end().to_string(),
+                false => format!("{}; {}", panel.caption, text.trim_end()),
+            };
         }
     }
     panel.limits.push(limit);
@@ -599,36 +636,8 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
         ),
     };
     let mut fig = Figure::new(title, rate_axis().with_range(lo, hi));
-    let n = series.len();
     for (i, def) in RATE_PANELS.iter().enumerate() {
-        let mut panel = rate_panel(def, spec, &series, i == 0);
-        if robust {
-            // Each method's figure at its worst over the variants, in
-            // styles after the nominal curves'.
-            for (k, (name, rows)) in series.iter().enumerate() {
-                let pts = (rows.iter())
-                    .map(|r| {
-                        let w = r.robust.as_ref().and_then(|rb| rb.worst_figures.as_ref());
-                        (r.point.rate_hz, w.and_then(def.get).unwrap_or(f64::NAN))
-                    })
-                    .collect();
-                let label = if i == 0 {
-                    format!("{name}, worst variant")
-                } else {
-                    String::new()
-                };
-                let s = Series::line(label, pts, (n + k) % PALETTE_LEN);
-                panel.series.insert(n + k, s);
-            }
-            if let Some(l) = panel.limits.pop() {
-                // Re-fit the clip to the worst-variant curves too.
-                panel
-                    .series
-                    .retain(|s| s.style.0 != STYLE_OFF_SCALE || s.draw != Draw::Markers);
-                panel.y.range = None;
-                add_limit(&mut panel, l);
-            }
-        }
+        let mut panel = rate_panel(def, spec, &series, i == 0, robust);
         // Lines through every panel, each label on one panel only
         // (spread over the panels so the labels do not collide).
         let mut slot = 0;
@@ -685,7 +694,7 @@ fn hold_kinds(inp: &Inputs) -> Option<Figure> {
         rate_axis().with_range(inp.case.rates.min_hz, inp.case.rates.max_hz),
     );
     for (i, def) in [&PHASE_MARGIN, &OVERSHOOT].into_iter().enumerate() {
-        let mut panel = rate_panel(def, &inp.case.spec, &series, i == 0);
+        let mut panel = rate_panel(def, &inp.case.spec, &series, i == 0, false);
         for &h in &inp.case.holds {
             if let Some(f) = f_star_of(h) {
                 let text = if i == 0 {
@@ -1470,38 +1479,4 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
         fig = fig.with_panel(panel);
     }
     Some(fig)
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn a_controller_given_in_z_is_drawn_at_its_one_rate() {
-        // A gain in z at 5 Hz with two computation delays: the
-        // figures-vs-rate chart shows one point per delay on an axis
-        // around 5 Hz, not the range of a sweep.
-        let text = "[plant]\ntransfer = \"1 / (s * (s + 1))\"\n[controller]\nnumerator_z = [2.0]\ndenominator_z = [1.0]\nrate_hz = 5\n[timing]\ncompute_delay = [0.5, 1]\n[spec]\nmin_phase_margin_deg = 20\n";
-        let case = Case::parse(text, Path::new("z.toml")).unwrap();
-        let lp = crate::pick::prepare(&case).unwrap();
-        let picked =
-            crate::pick::sweep_and_pick(&case, &lp, &|| {}, &crate::search::Silent).unwrap();
-        let inputs = Inputs {
-            case: &case,
-            lp: &lp,
-            rows: &picked.rows,
-            report: &picked.report,
-            rec: None,
-        };
-        let fig = figures_vs_rate(&inputs).unwrap();
-        let (lo, hi) = fig.x.range.unwrap();
-        assert!(lo < 5.0 && hi > 5.0 && hi / lo < 3.0, "{lo} .. {hi}");
-        assert!(fig.title.contains("given in z"), "{}", fig.title);
-        let series = &fig.panels[0].series;
-        assert_eq!(series.len(), 2, "one series per delay");
-        for s in series {
-            assert_eq!(s.points.len(), 1);
-            assert_eq!(s.points[0].0, 5.0);
-        }
-    }
 }
