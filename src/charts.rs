@@ -447,7 +447,7 @@ fn padded_range<'a>(series: impl Iterator<Item = &'a Series>, pad: f64) -> Optio
             (a.min(v), b.max(v))
         });
     let span = (hi - lo).max(1e-9 * hi.abs().max(1.0));
-    (lo.is_finite() && hi.is_finite()).then(|| (lo - pad * span, hi + pad * span))
+    (lo.is_finite() && hi.is_finite()).then_some((lo - pad * span, hi + pad * span))
 }
 
 /// A horizontal line across `[x0, x1]`.
@@ -548,7 +548,8 @@ fn add_limit(panel: &mut Panel, limit: Limit, unit: &str) {
         let leaving: Vec<Series> = (panel.series.iter())
             .map(|s| {
                 let pts = (s.points.windows(2))
-                    .filter(|w| !(w[0].1 > top) && w[1].1.is_finite() && w[1].1 > top)
+                    .filter(|w| w[0].1 <= top || w[0].1.is_nan())
+                    .filter(|w| w[1].1.is_finite() && w[1].1 > top)
                     .map(|w| (w[1].0, top))
                     .collect();
                 Series::line("", pts, s.style.0).drawn(Draw::Markers)
