@@ -181,11 +181,9 @@ impl PanelDef {
     fn value_text(&self, f: &Figures) -> Option<String> {
         let name = self.label.split(" (").next().unwrap_or(self.label);
         let v = (self.get)(f)?;
-        Some(
-            format!("{name} {} {}", fmt_num(v), self.unit)
-                .trim_end()
-                .to_string(),
-        )
+        // A no-break space keeps the number with its unit in a legend.
+        let text = format!("{name} {}\u{a0}{}", fmt_num(v), self.unit);
+        Some(text.trim_end_matches('\u{a0}').to_string())
     }
 }
 

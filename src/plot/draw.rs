@@ -393,7 +393,8 @@ fn err(e: impl std::fmt::Display) -> PlotError {
 /// single longer word keeps its own line: a legend is never cut short).
 fn wrap(font: &TextFont, text: &str, em: f64, max_w: f64) -> Vec<String> {
     let mut lines: Vec<String> = Vec::new();
-    for word in text.split_whitespace() {
+    // Only plain spaces break: a number keeps its unit (no-break space).
+    for word in text.split(' ').filter(|w| !w.is_empty()) {
         match lines.last_mut() {
             Some(l) if font.width(&format!("{l} {word}"), em) <= max_w => {
                 l.push(' ');
