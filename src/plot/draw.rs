@@ -139,6 +139,20 @@ struct Scale {
     light: Vec<f64>,
 }
 
+impl Scale {
+    /// The axis with about `n` labelled ticks.
+    fn new(ax: Ax, n: usize) -> Self {
+        let (bold, light) = ax.ticks(n);
+        Scale { ax, bold, light }
+    }
+
+    /// The label of tick `v` (decimals from the tick step).
+    fn label(&self, v: f64) -> String {
+        let step = self.bold.windows(2).map(|w| w[1] - w[0]).next();
+        self.ax.label(v, step.unwrap_or(1.0))
+    }
+}
+
 impl Ranged for Scale {
     type FormatOption = DefaultFormatting;
     type ValueType = f64;
@@ -406,245 +420,204 @@ fn wrap(font: &TextFont, text: &str, em: f64, max_w: f64) -> Vec<String> {
     lines
 }
 
+/// Where everything goes: sizes in pixels and the axes.
+struct Layout {
+    /// Wrapped legend labels per panel: (series index, lines).
+    legends: Vec<Vec<(usize, Vec<String>)>>,
+    legend_w: f64,
+    sample_w: f64,
+    /// Top of the first panel, panel heights, the gap between panels.
+    top: f64,
+    heights: Vec<f64>,
+    gap: f64,
+    x_area: f64,
+    y_area: f64,
+    plot_w: f64,
+    xs: Scale,
+    ys: Vec<Scale>,
+}
+
+/// Size the legend column, the title and note, the panels and the axes.
+fn layout(fig: &Figure, font: &TextFont, m: &Metrics) -> Result<Layout, PlotError> {
+    let (w, h) = (f64::from(fig.width), f64::from(fig.height));
+    let line = |em: f64| font.line_height(em);
+    let too_small = PlotError::TooSmall {
+        width: fig.width,
+        height: fig.height,
+        panels: fig.panels.len(),
+    };
+    // Legend column: the widest wrapped label decides its width.
+    let sample_w = (2.6 * m.base).round();
+    let legends: Vec<Vec<(usize, Vec<String>)>> = (fig.panels.iter())
+        .map(|p| {
+            (p.series.iter().enumerate())
+                .filter(|(_, s)| !s.label.trim().is_empty())
+                .map(|(i, s)| (i, wrap(font, &s.label, m.tick, 0.2 * w)))
+                .collect()
+        })
+        .collect();
+    let text_w = (legends.iter().flatten().flat_map(|(_, l)| l))
+        .map(|l| font.width(l, m.tick))
+        .fold(0.0, f64::max);
+    let legend_w = match text_w > 0.0 {
+        true => text_w + sample_w + 2.0 * m.base,
+        false => m.base,
+    };
+    // Vertical: title, panels by weight, x axis, note.
+    let title_h = match fig.title.trim().is_empty() {
+        true => 0.0,
+        false => line(m.title) + 0.5 * m.base,
+    };
+    let top = m.margin + title_h;
+    let note_h = (fig.note.as_ref()).map_or(0.0, |_| line(m.note) + 0.4 * m.base);
+    let x_area = (0.65 * m.base + line(m.tick) + line(m.base)).round();
+    let gap = (0.9 * m.base).round();
+    let n = fig.panels.len();
+    let avail = h - top - m.margin * 0.7 - note_h - x_area - gap * (n - 1) as f64;
+    let weight = |p: &Panel| match p.height_weight > 0.0 && p.height_weight.is_finite() {
+        true => p.height_weight,
+        false => 1.0,
+    };
+    let total: f64 = fig.panels.iter().map(weight).sum();
+    let heights: Vec<f64> = (fig.panels.iter())
+        .map(|p| (avail * weight(p) / total).floor())
+        .collect();
+    if heights.iter().any(|ph| *ph < 2.5 * line(m.tick)) {
+        return Err(too_small);
+    }
+    // Axes: x fitted to everything drawn along it, each y to what is
+    // visible in that x range.
+    let xv = fig.panels.iter().flat_map(|p| {
+        let s = p.series.iter().flat_map(|s| s.points.iter().map(|q| q.0));
+        let v = (p.vmarks.iter().map(|v| v.x)).chain(p.notes.iter().map(|a| a.x));
+        let b = p.bands.iter().flat_map(|b| [b.from, b.to]);
+        s.chain(v).chain(b.filter(|v| v.is_finite()))
+    });
+    let xa = fit(&fig.x, xv);
+    let ys: Vec<Scale> = (fig.panels.iter().zip(&heights))
+        .map(|(p, ph)| {
+            let s = (p.series.iter().flat_map(|s| s.points.iter()))
+                .filter(|q| xa.contains(q.0))
+                .map(|q| q.1);
+            let l = (p.limits.iter().map(|l| l.value)).chain(p.notes.iter().map(|a| a.y));
+            let b = (p.hbands.iter().flat_map(|b| [b.from, b.to])).filter(|v| v.is_finite());
+            let n = ((ph / (2.2 * line(m.tick))) as usize).clamp(2, 9);
+            Scale::new(fit(&p.y, s.chain(l).chain(b)), n)
+        })
+        .collect();
+    let tick_w = (ys.iter().flat_map(|y| y.bold.iter().map(|v| y.label(*v))))
+        .map(|l| font.width(&l, m.tick))
+        .fold(0.0, f64::max);
+    let y_area = (tick_w + 0.9 * m.base + line(m.base)).round();
+    let plot_w = w - m.margin.round() - y_area - m.margin - legend_w;
+    if plot_w < 6.0 * m.base {
+        return Err(too_small);
+    }
+    Ok(Layout {
+        legends,
+        legend_w,
+        sample_w,
+        top,
+        heights,
+        gap,
+        x_area,
+        y_area,
+        plot_w,
+        xs: Scale::new(xa, (plot_w / (5.5 * m.base)) as usize),
+        ys,
+    })
+}
+
+/// plotters' text style for the chart font at em size `em`.
+fn text_style(font: &TextFont, em: f64, c: Rgb) -> PTextStyle<'static> {
+    let size = em / font.em_of_scale(1.0);
+    PTextStyle {
+        color: color(c, 1.0).to_backend_color(),
+        ..PTextStyle::from(("sans-serif", size).into_font())
+    }
+}
+
 /// Draw the whole figure.
 pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
     validate(fig)?;
     register_font()?;
     let font = TextFont::embedded()?;
     let m = Metrics::new(fig.width, fig.height);
+    let lay = layout(fig, &font, &m)?;
     let (w, h) = (f64::from(fig.width), f64::from(fig.height));
-    let scale = |em: f64| em / font.em_of_scale(1.0);
-    let pfont = |em: f64, c: Rgb| PTextStyle {
-        color: color(c, 1.0).to_backend_color(),
-        ..PTextStyle::from(("sans-serif", scale(em)).into_font())
-    };
-    let too_small = PlotError::TooSmall {
-        width: fig.width,
-        height: fig.height,
-        panels: fig.panels.len(),
-    };
-
-    // Legend column: the widest wrapped label decides its width.
-    let legend_em = m.tick;
-    let sample_w = (2.6 * m.base).round();
-    let max_text = 0.2 * w;
-    let legends: Vec<Vec<(usize, Vec<String>)>> = fig
-        .panels
-        .iter()
-        .map(|p| {
-            (p.series.iter().enumerate())
-                .filter(|(_, s)| !s.label.trim().is_empty())
-                .map(|(i, s)| (i, wrap(&font, &s.label, legend_em, max_text)))
-                .collect()
-        })
-        .collect();
-    let text_w = (legends.iter().flatten().flat_map(|(_, l)| l))
-        .map(|l| font.width(l, legend_em))
-        .fold(0.0, f64::max);
-    let legend_w = if text_w > 0.0 {
-        text_w + sample_w + 2.0 * m.base
-    } else {
-        m.base
-    };
-
-    // Vertical layout: title, panels, x axis, note.
-    let line = |em: f64| font.line_height(em);
-    let top = m.margin
-        + if fig.title.trim().is_empty() {
-            0.0
-        } else {
-            line(m.title) + 0.5 * m.base
-        };
-    let note_h = fig
-        .note
-        .as_ref()
-        .map_or(0.0, |_| line(m.note) + 0.4 * m.base);
-    let x_area = (0.35 * m.base + line(m.tick) + 0.3 * m.base + line(m.base)).round();
-    let gap = (0.9 * m.base).round();
     let n = fig.panels.len();
-    let avail = h - top - m.margin * 0.7 - note_h - x_area - gap * (n - 1) as f64;
-    let weights: Vec<f64> = (fig.panels.iter())
-        .map(|p| {
-            if p.height_weight > 0.0 && p.height_weight.is_finite() {
-                p.height_weight
-            } else {
-                1.0
-            }
-        })
-        .collect();
-    let total: f64 = weights.iter().sum();
-    let heights: Vec<f64> = weights
-        .iter()
-        .map(|wt| (avail * wt / total).floor())
-        .collect();
-    if heights.iter().any(|ph| *ph < 2.5 * line(m.tick)) {
-        return Err(too_small);
-    }
-
-    // Axes: x fitted to everything drawn along it, each y to what is
-    // visible in that x range.
-    let xs = fit(
-        &fig.x,
-        fig.panels.iter().flat_map(|p| {
-            let s = p.series.iter().flat_map(|s| s.points.iter().map(|q| q.0));
-            let v = p
-                .vmarks
-                .iter()
-                .map(|v| v.x)
-                .chain(p.notes.iter().map(|a| a.x));
-            let b = p.bands.iter().flat_map(|b| [b.from, b.to]);
-            s.chain(v).chain(b.filter(|v| v.is_finite()))
-        }),
-    );
-    let ys: Vec<Ax> = (fig.panels.iter())
-        .map(|p| {
-            let s = (p.series.iter().flat_map(|s| s.points.iter()))
-                .filter(|q| xs.contains(q.0))
-                .map(|q| q.1);
-            let l = p
-                .limits
-                .iter()
-                .map(|l| l.value)
-                .chain(p.notes.iter().map(|a| a.y));
-            let b = p
-                .hbands
-                .iter()
-                .flat_map(|b| [b.from, b.to])
-                .filter(|v| v.is_finite());
-            fit(&p.y, s.chain(l).chain(b))
-        })
-        .collect();
-    let y_ticks: Vec<(Vec<f64>, Vec<f64>)> = (ys.iter().zip(&heights))
-        .map(|(y, ph)| y.ticks(((ph / (2.2 * line(m.tick))) as usize).clamp(2, 9)))
-        .collect();
-    let tick_w = (ys.iter().zip(&y_ticks))
-        .flat_map(|(y, t)| {
-            let step = t.0.windows(2).map(|w| w[1] - w[0]).next().unwrap_or(1.0);
-            t.0.iter().map(move |v| y.label(*v, step))
-        })
-        .map(|l| font.width(&l, m.tick))
-        .fold(0.0, f64::max);
-    let y_area = (tick_w + 0.6 * m.base + line(m.base) + 0.3 * m.base).round();
-    let left = m.margin.round();
-    let plot_w = w - left - y_area - m.margin - legend_w;
-    if plot_w < 6.0 * m.base {
-        return Err(too_small);
-    }
-    let x_ticks = xs.ticks((plot_w / (5.5 * m.base)) as usize);
-    let x_step = x_ticks
-        .0
-        .windows(2)
-        .map(|w| w[1] - w[0])
-        .next()
-        .unwrap_or(1.0);
-
     let mut canvas = Canvas::new(fig.width, fig.height, style::BACKGROUND);
     let mut pending: Vec<Pending> = Vec::new();
     {
-        let root = CanvasBackend {
+        let backend = CanvasBackend {
             canvas: &mut canvas,
             font: &font,
-        }
-        .into_drawing_area();
-        let mut y0 = top;
-        let mut legend_end = top;
+        };
+        let root = backend.into_drawing_area();
+        let (mut y0, mut legend_end) = (lay.top, lay.top);
         for (i, p) in fig.panels.iter().enumerate() {
             let bottom = i + 1 == n;
-            let area_h = heights[i] + if bottom { x_area } else { 0.0 };
+            let x_area = if bottom { lay.x_area } else { 0.0 };
             let area = root.clone().shrink(
-                (left as i32, y0.round() as i32),
-                ((y_area + plot_w) as u32, area_h as u32),
+                (m.margin.round() as i32, y0.round() as i32),
+                (
+                    (lay.y_area + lay.plot_w) as u32,
+                    (lay.heights[i] + x_area) as u32,
+                ),
             );
-            let (xt, yt) = (&x_ticks, &y_ticks[i]);
-            let xr = Scale {
-                ax: xs,
-                bold: xt.0.clone(),
-                light: xt.1.clone(),
-            };
-            let yr = Scale {
-                ax: ys[i],
-                bold: yt.0.clone(),
-                light: yt.1.clone(),
-            };
             let mut chart = ChartBuilder::on(&area)
-                .set_label_area_size(LabelAreaPosition::Left, y_area as i32)
-                .set_label_area_size(
-                    LabelAreaPosition::Bottom,
-                    if bottom { x_area as i32 } else { 0 },
-                )
-                .build_cartesian_2d(xr, yr)
+                .set_label_area_size(LabelAreaPosition::Left, lay.y_area as i32)
+                .set_label_area_size(LabelAreaPosition::Bottom, x_area as i32)
+                .build_cartesian_2d(lay.xs.clone(), lay.ys[i].clone())
                 .map_err(err)?;
-            let y_step = yt.0.windows(2).map(|w| w[1] - w[0]).next().unwrap_or(1.0);
-            let (xf, yf) = (
-                |v: &f64| {
-                    if bottom {
-                        xs.label(*v, x_step)
-                    } else {
-                        String::new()
-                    }
-                },
-                |v: &f64| ys[i].label(*v, y_step),
-            );
+            let (xs, ys) = (&lay.xs, &lay.ys[i]);
+            let xf = |v: &f64| if bottom { xs.label(*v) } else { String::new() };
+            let yf = |v: &f64| ys.label(*v);
             chart
                 .configure_mesh()
                 .x_desc(if bottom { fig.x.label.as_str() } else { "" })
                 .y_desc(p.y.label.as_str())
                 .x_label_formatter(&xf)
                 .y_label_formatter(&yf)
-                .x_labels(xt.0.len() + xt.1.len())
-                .y_labels(yt.0.len() + yt.1.len())
-                .label_style(pfont(m.tick, style::TEXT))
-                .axis_desc_style(pfont(m.base, style::TEXT))
+                .x_labels(xs.bold.len() + xs.light.len())
+                .y_labels(ys.bold.len() + ys.light.len())
+                .label_style(text_style(&font, m.tick, style::TEXT))
+                .axis_desc_style(text_style(&font, m.base, style::TEXT))
                 .bold_line_style(color(style::GRID, 1.0))
                 .light_line_style(color(style::GRID_MINOR, 1.0))
                 .axis_style(color(style::FRAME, 1.0))
                 .set_all_tick_mark_size((0.35 * m.base) as i32)
                 .draw()
                 .map_err(err)?;
-            draw_panel(&mut chart, p, &xs, &ys[i], &m, &mut pending)?;
-            draw_series(&mut chart, p, &xs, &ys[i], &m)?;
+            draw_panel(&mut chart, p, &xs.ax, &ys.ax, &m, &mut pending)?;
+            draw_series(&mut chart, p, &xs.ax, &ys.ax, &m)?;
             let (px, py) = chart.plotting_area().get_pixel_range();
-            root.draw(&Rectangle::new(
-                [(px.start, py.start), (px.end, py.end)],
-                color(style::FRAME, 1.0),
-            ))
-            .map_err(err)?;
-            if !legends[i].is_empty() {
+            let frame = [(px.start, py.start), (px.end, py.end)];
+            root.draw(&Rectangle::new(frame, color(style::FRAME, 1.0)))
+                .map_err(err)?;
+            if !lay.legends[i].is_empty() {
                 // The legend gets a chart of its own in the column right of
-                // the plot, down to the next panel with a legend (plotters
-                // keeps a legend inside its chart's area).
-                // Each legend starts beside its panel, or below the one
-                // above when that runs longer (plotters' lines are 1.25 em).
-                let lines = legends[i].iter().map(|(_, l)| l.len()).sum::<usize>() as f64;
+                // the plot (plotters keeps a legend inside its chart's
+                // area), beside its panel or below the legend above when
+                // that runs longer (plotters' lines are 1.25 em).
+                let lines: usize = lay.legends[i].iter().map(|(_, l)| l.len()).sum();
                 let start = y0.max(legend_end);
-                legend_end = start + lines * 1.25 * scale(legend_em) + gap;
+                legend_end = start
+                    + lines as f64 * 1.25 * text_style(&font, m.tick, style::TEXT).font.get_size()
+                    + lay.gap;
                 let la = root.clone().shrink(
                     (px.end + (0.6 * m.base) as i32, start.round() as i32),
-                    (legend_w as u32, (h - start).max(1.0) as u32),
+                    (lay.legend_w as u32, (h - start).max(1.0) as u32),
                 );
-                let mut lc = ChartBuilder::on(&la)
-                    .build_cartesian_2d(0.0..1.0, 0.0..1.0)
-                    .map_err(err)?;
-                legend_entries(&mut lc, p, &legends[i], &m, sample_w)?;
-                lc.configure_series_labels()
-                    .position(SeriesLabelPosition::UpperLeft)
-                    .legend_area_size((sample_w + 0.5 * m.base) as i32)
-                    .margin(0)
-                    .label_font(pfont(legend_em, style::TEXT))
-                    .background_style(color(style::BACKGROUND, 0.0))
-                    .border_style(color(style::BACKGROUND, 0.0))
-                    .draw()
-                    .map_err(err)?;
+                draw_legend(&la, p, &lay.legends[i], &font, &m, lay.sample_w)?;
             }
-            y0 += heights[i] + gap;
+            y0 += lay.heights[i] + lay.gap;
         }
         root.present().map_err(err)?;
     }
-
     // Title and footer, both from the left margin.
     if let Some(t) = Some(fig.title.trim()).filter(|t| !t.is_empty()) {
-        let room = w - 2.0 * m.margin;
-        let size = m.title * (room / font.width(t, m.title)).min(1.0);
+        let size = m.title * ((w - 2.0 * m.margin) / font.width(t, m.title)).min(1.0);
         let st = TextStyle::new(size, style::TEXT);
         font.draw(&mut canvas, t, m.margin, m.margin, &st);
     }
@@ -1024,16 +997,21 @@ fn place_labels(canvas: &mut Canvas, font: &TextFont, m: &Metrics, pending: Vec<
     }
 }
 
-/// The legend entries of a panel on the legend's own chart: one empty
-/// series per entry (its line sample and marker), and one more per
+/// A panel's legend, by plotters, on a chart of its own in `area`: one
+/// empty series per entry (its line sample and marker), and one more per
 /// further line of a label wider than the column.
-fn legend_entries<'a, 'b: 'a>(
-    chart: &mut ChartContext<'a, CanvasBackend<'b>, Cartesian2d<RangedCoordf64, RangedCoordf64>>,
+fn draw_legend(
+    area: &DrawingArea<CanvasBackend, plotters::coord::Shift>,
     p: &Panel,
     legend: &[(usize, Vec<String>)],
+    font: &TextFont,
     m: &Metrics,
     sample_w: f64,
 ) -> Result<(), PlotError> {
+    let mut chart = ChartBuilder::on(area)
+        .build_cartesian_2d(0.0..1.0, 0.0..1.0)
+        .map_err(err)?;
+    let empty = || std::iter::empty::<Circle<(f64, f64), i32>>();
     for (i, lines) in legend {
         let s = &p.series[*i];
         let pen = pen_of(s.style.0);
@@ -1044,29 +1022,30 @@ fn legend_entries<'a, 'b: 'a>(
         let stroke = ink.stroke_width(m.lw as u32);
         let sw = sample_w as i32;
         let seg = if line { vec![(0, 0), (sw, 0)] } else { vec![] };
-        let dot: Vec<(i32, i32)> = if marks {
-            marker_outline(pen.marker, m.base * 0.24)
-                .iter()
+        let dot: Vec<(i32, i32)> = match marks {
+            true => (marker_outline(pen.marker, m.base * 0.24).iter())
                 .map(|q| (q.0 + sw / 2, q.1))
-                .collect()
-        } else {
-            vec![]
+                .collect(),
+            false => vec![],
         };
-        chart
-            .draw_series(std::iter::empty::<Circle<(f64, f64), i32>>())
-            .map_err(err)?
-            .label(lines[0].clone())
-            .legend(move |(x, y)| {
-                EmptyElement::at((x, y))
-                    + DashedPathElement::new(seg.clone(), on.min(sw), off, stroke)
-                    + Polygon::new(dot.clone(), ink.filled())
-            });
+        let anno = chart.draw_series(empty()).map_err(err)?;
+        anno.label(lines[0].clone()).legend(move |(x, y)| {
+            EmptyElement::at((x, y))
+                + DashedPathElement::new(seg.clone(), on.min(sw), off, stroke)
+                + Polygon::new(dot.clone(), ink.filled())
+        });
         for more in &lines[1..] {
-            chart
-                .draw_series(std::iter::empty::<Circle<(f64, f64), i32>>())
-                .map_err(err)?
-                .label(more.clone());
+            chart.draw_series(empty()).map_err(err)?.label(more.clone());
         }
     }
-    Ok(())
+    chart
+        .configure_series_labels()
+        .position(SeriesLabelPosition::UpperLeft)
+        .legend_area_size((sample_w + 0.5 * m.base) as i32)
+        .margin(0)
+        .label_font(text_style(font, m.tick, style::TEXT))
+        .background_style(color(style::BACKGROUND, 0.0))
+        .border_style(color(style::BACKGROUND, 0.0))
+        .draw()
+        .map_err(err)
 }
