@@ -590,6 +590,7 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
                 .draw()
                 .map_err(err)?;
             draw_panel(&mut chart, p, &xs.ax, &ys.ax, &m, &mut pending)?;
+            draw_marks(&mut chart, p, &xs.ax, &ys.ax, &m, &mut pending)?;
             draw_series(&mut chart, p, &xs.ax, &ys.ax, &m)?;
             let (px, py) = chart.plotting_area().get_pixel_range();
             let frame = [(px.start, py.start), (px.end, py.end)];
@@ -629,8 +630,8 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
     Ok(canvas)
 }
 
-/// Bands, hatched limits and marker lines under the data; their labels
-/// queued for placement.
+/// Bands and hatched limits under the data; their labels queued for
+/// placement.
 fn draw_panel<'a, 'b: 'a>(
     chart: &mut Chart<'a, 'b>,
     p: &Panel,
@@ -761,6 +762,39 @@ fn draw_panel<'a, 'b: 'a>(
         }
         queue(pending, &l.label, spots, plot, None);
     }
+    Ok(())
+}
+
+/// Vertical marks under the data, the caption and the notes; their
+/// labels queued for placement.
+fn draw_marks<'a, 'b: 'a>(
+    chart: &mut Chart<'a, 'b>,
+    p: &Panel,
+    xs: &Ax,
+    ys: &Ax,
+    m: &Metrics,
+    pending: &mut Vec<Pending>,
+) -> Result<(), PlotError> {
+    let (px, py) = chart.plotting_area().get_pixel_range();
+    let plot = Rect::new(
+        f64::from(px.start),
+        f64::from(py.start),
+        f64::from(px.end),
+        f64::from(py.end),
+    );
+    let at = |x: f64, y: f64| {
+        let (a, b) = chart.backend_coord(&(x, y));
+        (f64::from(a), f64::from(b))
+    };
+    let area = chart.plotting_area().strip_coord_spec();
+    let shift = |p: (f64, f64)| {
+        (
+            (p.0 - plot.x0).round() as i32,
+            (p.1 - plot.y0).round() as i32,
+        )
+    };
+    let b = m.base;
+    let small = |c| TextStyle::new(m.small, c);
     for vm in &p.vmarks {
         if !xs.contains(vm.x) {
             continue;
