@@ -517,54 +517,62 @@ fn rate_panel(
     let total: usize = series.iter().map(|(_, rows)| rows.len()).sum();
     let mut why = Vec::new();
     if unstable > 0 {
-        why.push(format!("loop unstable at {unstable} of {total} points"));
+        why.push(format!("loop unstable ({unstable}/{total})"));
     }
     if missing > 0 {
-        why.push(format!("{} at {missing} of {total} points", def.gap));
+        why.push(format!("{} ({missing}/{total})", def.gap));
     }
     if variant_gaps > 0 {
-        why.push(format!(
-            "worst variant: a variant unstable at {variant_gaps} more"
-        ));
+        why.push(format!("a variant unstable ({variant_gaps} more)"));
     }
     if !why.is_empty() {
         panel.caption = format!("gaps: {}", why.join("; "));
     }
-    if let Some(l) = def.limit_of(spec) {
-        add_limit(&mut panel, l, def.unit);
+    match def.limit_of(spec) {
+        Some(l) => add_limit(&mut panel, l, def.unit),
+        // Without a limit, Ms is still shown up to a few times the usual
+        // bound of 2 (common practice, no source).
+        None if def.key == SENSITIVITY.key => clip_above(&mut panel, CLIP_TIMES_LIMIT * 2.0, ""),
+        None => {}
     }
     panel
 }
 
-/// A spec limit on a panel. Near the stability edge an upper-limited
-/// figure runs off to huge values; the view then stops at
-/// [`CLIP_TIMES_LIMIT`] times the limit, each curve gets a marker (its
-/// own) where it leaves the top edge, and the caption says so.
+/// A spec limit on a panel, with the view clipped above an upper limit
+/// (see [`clip_above`]).
 fn add_limit(panel: &mut Panel, limit: Limit, unit: &str) {
-    let top = CLIP_TIMES_LIMIT * limit.value;
     if limit.bad_side == Side::Above && limit.value > 0.0 {
-        let leaving: Vec<Series> = (panel.series.iter())
-            .map(|s| {
-                let pts = (s.points.windows(2))
-                    .filter(|w| w[0].1 <= top || w[0].1.is_nan())
-                    .filter(|w| w[1].1.is_finite() && w[1].1 > top)
-                    .map(|w| (w[1].0, top))
-                    .collect();
-                Series::line("", pts, s.style.0).drawn(Draw::Markers)
-            })
-            .filter(|s| !s.points.is_empty())
-            .collect();
-        if !leaving.is_empty() {
-            panel.y = panel.y.clone().with_range(0.0, top);
-            panel.series.extend(leaving);
-            let text = format!("marks on the top edge: above {} {unit}", fmt_num(top));
-            panel.caption = match panel.caption.is_empty() {
-                true => text.trim_end().to_string(),
-                false => format!("{}; {}", panel.caption, text.trim_end()),
-            };
-        }
+        clip_above(panel, CLIP_TIMES_LIMIT * limit.value, unit);
     }
     panel.limits.push(limit);
+}
+
+/// Near the stability edge an upper-limited figure runs off to huge
+/// values and would flatten the rest: the view stops at `top`, each curve
+/// gets a marker (its own) where it leaves the top edge, and the caption
+/// says so.
+fn clip_above(panel: &mut Panel, top: f64, unit: &str) {
+    let leaving: Vec<Series> = (panel.series.iter())
+        .map(|s| {
+            let pts = (s.points.windows(2))
+                .filter(|w| w[0].1 <= top || w[0].1.is_nan())
+                .filter(|w| w[1].1.is_finite() && w[1].1 > top)
+                .map(|w| (w[1].0, top))
+                .collect();
+            Series::line("", pts, s.style.0).drawn(Draw::Markers)
+        })
+        .filter(|s| !s.points.is_empty())
+        .collect();
+    if leaving.is_empty() {
+        return;
+    }
+    panel.y = panel.y.clone().with_range(0.0, top);
+    panel.series.extend(leaving);
+    let text = format!("off scale above {} {unit}", fmt_num(top));
+    panel.caption = match panel.caption.is_empty() {
+        true => text.trim_end().to_string(),
+        false => format!("{}; {}", panel.caption, text.trim_end()),
+    };
 }
 
 // --------------------------------------------------------------- charts

@@ -396,7 +396,7 @@ fn an_upper_limited_figure_is_clipped_and_its_clipped_points_marked() {
         }
     }
     assert!(
-        ms.caption.contains("marks on the top edge: above 3.900"),
+        ms.caption.contains("off scale above 3.900"),
         "{}",
         ms.caption
     );
