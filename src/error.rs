@@ -63,15 +63,9 @@ pub enum PlotError {
     /// The embedded font could not be parsed (a damaged build).
     #[error("embedded chart font could not be read: {0}")]
     Font(String),
-    /// Creating, renaming or removing a file failed.
-    // The io error is the `source`, not in the message: a chain printer
-    // would print it twice otherwise.
-    #[error("cannot write {}", path.display())]
-    Io {
-        path: PathBuf,
-        #[source]
-        source: std::io::Error,
-    },
+    /// plotters reported a drawing error.
+    #[error("chart drawing failed: {0}")]
+    Draw(String),
     /// The PNG encoder reported an error.
     #[error("PNG encoding for {} failed: {message}", path.display())]
     Encode { path: PathBuf, message: String },

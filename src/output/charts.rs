@@ -1,12 +1,15 @@
-//! The review charts of a `pick` run, drawn from the real results with the
-//! crate's own renderer ([`crate::output::plot`]).
+//! The review charts of a `pick` or `sweep` run, drawn from the real
+//! results with the crate's plotting layer ([`crate::output::plot`]).
 //!
-//! Each chart is built as plain [`Figure`] data from the sweep, the pick
-//! report and, where a chart needs more than the sweep holds (traces, the
-//! loop gain, hold approximations), fresh evaluations of the same
-//! [`PreparedLoop`]. The charts are independent, so they are built and
-//! drawn in parallel. A chart that needs a recommendation is skipped when
-//! there is none; a chart that needs a budget is skipped without one.
+//! Each chart is first described as plain [`Figure`] data ([`describe`]:
+//! title, panels, series with their points, limits, marks, labels) from
+//! the sweep, the pick report and, where a chart needs more than the sweep
+//! holds (traces, the loop gain, hold approximations), fresh evaluations
+//! of the same [`PreparedLoop`]; tests read those descriptions. Then each
+//! is drawn ([`write_charts`]). The charts are independent, so they are
+//! built and drawn in parallel. A chart that needs a recommendation is
+//! skipped when there is none; a chart that needs a budget is skipped
+//! without one.
 
 use std::path::{Path, PathBuf};
 
@@ -23,15 +26,17 @@ use crate::model::discretize::Method;
 use crate::model::poly::C64;
 use crate::model::transfer::Controller;
 use crate::output::plot::{
-    Annotation, Axis, Draw, Figure, Limit, MarkStyle, Panel, Series, Side, VMark, XBand, YBand,
-    render_png_bytes,
+    Annotation, Axis, Draw, Figure, Limit, MarkStyle, PALETTE_LEN, Panel, Series, Side, VMark,
+    XBand, YBand, render_png_bytes,
 };
 use crate::sampled::continuous::HoldApprox;
 use crate::sampled::evaluate::{Evaluation, Figures, Point, PreparedLoop};
 use crate::sampled::feasibility::assess;
+use crate::sampled::figure::{Figure as LoopFigure, Limiting, Unit, Worse};
 use crate::sampled::frequency::{loop_grid, unwrapped_phase};
 use crate::sampled::time_response::TracePoint;
 use crate::spec::HoldKind;
+use crate::spec::Spec;
 
 /// File names of the charts, in the order [`write_charts`] returns them.
 pub const FIGURES_VS_RATE: &str = "figures-vs-rate.png";
@@ -50,6 +55,13 @@ const HOLD_CHART_RATES: usize = 40;
 const MAX_SAMPLE_MARKERS: usize = 60;
 /// Points of a continuous-design trace.
 const CONTINUOUS_TRACE_STEPS: usize = 2000;
+/// An upper-limited figure is shown up to this many times its limit; the
+/// points above are marked at the top edge (near the stability edge such
+/// a figure runs to hundreds and would flatten the rest).
+const CLIP_TIMES_LIMIT: f64 = 3.0;
+/// f* values closer than this ratio share one label (one per cluster),
+/// so labels never pile up on a log rate axis.
+const STAR_CLUSTER_RATIO: f64 = 1.25;
 
 // Palette entries, fixed per role so a reader can follow a role from
 // chart to chart.
@@ -57,7 +69,52 @@ const STYLE_RECOMMENDED: usize = 0;
 const STYLE_STAR: usize = 1;
 const STYLE_FAILING: usize = 3;
 const STYLE_CONTINUOUS: usize = 4;
-const STYLE_REFERENCE: usize = 4;
+const STYLE_REFERENCE: usize = 6;
+
+/// The panels of `figures-vs-rate.png`, top to bottom (each panel is a
+/// figure of the catalogue: its axis title, value, limit and gap text
+/// come from `sampled::figure`).
+pub const RATE_PANELS: [LoopFigure; 5] = [
+    LoopFigure::Overshoot,
+    LoopFigure::SettlingTime,
+    LoopFigure::PhaseMargin,
+    LoopFigure::GainMargin,
+    LoopFigure::SensitivityPeak,
+];
+
+/// The side of a limit on `fig` that fails.
+pub fn bad_side(fig: LoopFigure) -> Side {
+    match fig.worse() {
+        Worse::Lower => Side::Below,
+        _ => Side::Above,
+    }
+}
+
+/// The spec limit on `fig` as drawn: `max 25.00 %`, `min 45.00 deg`.
+pub fn limit_of(fig: LoopFigure, spec: &Spec) -> Option<Limit> {
+    let v = fig.limit(spec)?;
+    Some(Limit::new(v, bad_side(fig), fig.limit_text(v)))
+}
+
+/// The unit written after a number on `fig`'s axis (none for a ratio or
+/// output units).
+fn unit_of(fig: LoopFigure) -> &'static str {
+    match fig.unit() {
+        Unit::Ratio | Unit::Output | Unit::Actuator => "",
+        u => u.symbol(),
+    }
+}
+
+/// `overshoot 25.31 %`: the figure's value in words, the number kept
+/// with its unit by a no-break space.
+fn value_text(fig: LoopFigure, f: &Figures) -> Option<String> {
+    let v = fig.limited_value(f)?;
+    Some(format!(
+        "{} {}",
+        fig.short_label(),
+        fig.quantity(v).replace(' ', "\u{a0}")
+    ))
+}
 
 /// Everything a chart builder reads.
 struct Inputs<'a> {
@@ -70,12 +127,6 @@ struct Inputs<'a> {
 }
 
 type Builder = fn(&Inputs) -> Option<Figure>;
-/// Reads one figure (None where it does not exist).
-type Get = fn(&Figures) -> Option<f64>;
-/// A limit: value, infeasible side, label.
-type LimitSpec = Option<(f64, Side, String)>;
-/// A panel of a figures-against-rate chart: y label, figure, limit.
-type PanelSpec = (&'static str, Get, LimitSpec);
 type Points = Vec<(f64, f64)>;
 
 /// A chart as drawn: where it was written and its PNG bytes (which the
@@ -87,23 +138,16 @@ pub struct Chart {
     pub png: Vec<u8>,
 }
 
-/// Draw every chart that applies to this run into `out_dir` (created if
-/// missing) and return the charts written, in a fixed order.
-///
-/// Charts that need a recommendation (step, loop, hold approximation,
-/// disturbance) are skipped when the report has none; `cpu-budget.png`
-/// is skipped when the case has no budget.
-pub fn write_charts(
-    out_dir: &Path,
+/// Describe every chart that applies to this run, in a fixed order: file
+/// name and figure (without the footer note). Charts that need a
+/// recommendation (step, loop, hold approximation, disturbance) are
+/// skipped when the report has none; `cpu-budget.png` without a budget.
+pub fn describe(
     case: &Case,
     lp: &PreparedLoop,
     rows: &[SweepRow],
     report: &PickReport,
-) -> Result<Vec<Chart>, Error> {
-    std::fs::create_dir_all(out_dir).map_err(|e| Error::Output {
-        path: out_dir.display().to_string(),
-        message: e.to_string(),
-    })?;
+) -> Vec<(&'static str, Figure)> {
     let rec = report.recommended.as_ref().and_then(|r| {
         case_methods(case)
             .into_iter()
@@ -117,11 +161,6 @@ pub fn write_charts(
         report,
         rec,
     };
-    let note = format!(
-        "{} | looprate {} | model-based: confirm on the hardware",
-        case.title,
-        env!("CARGO_PKG_VERSION")
-    );
     let jobs: [(&str, Builder); 8] = [
         (FIGURES_VS_RATE, figures_vs_rate),
         (STEP_RESPONSE, step_response),
@@ -132,19 +171,38 @@ pub fn write_charts(
         (PRECISION, precision_chart),
         (HOLD_KINDS, hold_kinds),
     ];
-    let written: Vec<Result<Option<Chart>, Error>> = jobs
-        .par_iter()
-        .map(|(name, build)| {
-            let Some(fig) = build(&inputs) else {
-                return Ok(None);
-            };
+    jobs.par_iter()
+        .filter_map(|(name, build)| build(&inputs).map(|f| (*name, f)))
+        .collect()
+}
+
+/// Draw every chart that applies to this run into `out_dir` (created if
+/// missing) and return the charts written, in [`describe`]'s order.
+pub fn write_charts(
+    out_dir: &Path,
+    case: &Case,
+    lp: &PreparedLoop,
+    rows: &[SweepRow],
+    report: &PickReport,
+) -> Result<Vec<Chart>, Error> {
+    std::fs::create_dir_all(out_dir).map_err(|e| Error::Output {
+        path: out_dir.display().to_string(),
+        message: e.to_string(),
+    })?;
+    let note = format!(
+        "{} | looprate {} | model-based: confirm on the hardware",
+        case.title,
+        env!("CARGO_PKG_VERSION")
+    );
+    describe(case, lp, rows, report)
+        .into_par_iter()
+        .map(|(name, fig)| {
             let path = out_dir.join(name);
             let png = render_png_bytes(&fig.with_note(note.clone()), &path)?;
             crate::output::writer::write_atomic(&path, &png)?;
-            Ok(Some(Chart { path, png }))
+            Ok(Chart { path, png })
         })
-        .collect();
-    written.into_iter().filter_map(Result::transpose).collect()
+        .collect()
 }
 
 // ------------------------------------------------------------- helpers
@@ -157,52 +215,53 @@ fn hz(v: f64) -> String {
     crate::engineering::hz(v)
 }
 
+/// The rows of one (method, hold) at the design delay, by rate.
+fn rows_of<'a>(inp: &Inputs<'a>, m: Option<Method>, h: HoldKind) -> Vec<&'a SweepRow> {
+    let mut rows: Vec<&SweepRow> = (inp.rows.iter())
+        .filter(|r| {
+            r.point.method == m && r.point.hold == h && r.point.delay == inp.report.design_delay
+        })
+        .collect();
+    rows.sort_by(|a, b| a.point.rate_hz.total_cmp(&b.point.rate_hz));
+    rows
+}
+
 /// The methods of the sweep at the design delay, in case order.
 fn design_series<'a>(inp: &Inputs<'a>) -> Vec<(String, Vec<&'a SweepRow>)> {
-    let mut out: Vec<(String, Vec<&SweepRow>)> = Vec::new();
-    for m in case_methods(inp.case) {
-        let mut rows: Vec<&SweepRow> = inp
-            .rows
-            .iter()
-            .filter(|r| {
-                r.point.method == m
-                    && r.point.hold == design_hold(inp)
-                    && r.point.delay == inp.report.design_delay
-            })
-            .collect();
-        if rows.is_empty() {
-            continue;
-        }
-        rows.sort_by(|a, b| a.point.rate_hz.total_cmp(&b.point.rate_hz));
-        out.push((method_label(m), rows));
-    }
-    out
+    (case_methods(inp.case).into_iter())
+        .map(|m| (method_label(m), rows_of(inp, m, design_hold(inp))))
+        .filter(|(_, rows)| !rows.is_empty())
+        .collect()
 }
 
 /// The rows of a controller given in z, one series per computation delay
 /// (each a single rate), labelled by the delay.
 fn delay_series<'a>(inp: &Inputs<'a>) -> Vec<(String, Vec<&'a SweepRow>)> {
-    let mut out: Vec<(String, Vec<&SweepRow>)> = Vec::new();
-    for &d in &inp.case.compute_delays {
-        let rows: Vec<&SweepRow> = inp.rows.iter().filter(|r| r.point.delay == d).collect();
-        if !rows.is_empty() {
-            out.push((format!("computation delay {} T", sig4(d)), rows));
-        }
-    }
-    out
+    (inp.case.compute_delays.iter())
+        .map(|&d| {
+            let rows: Vec<&SweepRow> = inp.rows.iter().filter(|r| r.point.delay == d).collect();
+            (format!("computation delay {} T", sig4(d)), rows)
+        })
+        .filter(|(_, rows)| !rows.is_empty())
+        .collect()
 }
 
 /// The nominal `f_star` of a method at the design delay.
 fn f_star(report: &PickReport, method: &str) -> Option<f64> {
-    report
-        .methods
-        .iter()
+    let hold = report.recommended.as_ref().map(|r| r.hold);
+    (report.methods.iter())
         .find(|m| {
-            m.method == method
-                && Some(m.hold) == report.recommended.as_ref().map(|r| r.hold)
-                && m.compute_delay == report.design_delay
+            m.method == method && Some(m.hold) == hold && m.compute_delay == report.design_delay
         })
         .and_then(|m| m.slowest_rate_hz)
+}
+
+/// The robust `f_star` of a method at the design delay (plant variants).
+fn robust_f_star(report: &PickReport, method: &str) -> Option<f64> {
+    let rb = report.robust.as_ref()?;
+    (rb.methods.iter())
+        .find(|m| m.rate.method == method && m.rate.compute_delay == report.design_delay)
+        .and_then(|m| m.rate.slowest_rate_hz)
 }
 
 /// The hold kind the charts of methods show: the recommended one, else
@@ -213,50 +272,34 @@ fn design_hold(inp: &Inputs) -> HoldKind {
         .unwrap_or_else(|| inp.case.holds.first().copied().unwrap_or_default())
 }
 
-/// The robust `f_star` of a method at the design delay (plant variants).
-fn robust_f_star(report: &PickReport, method: &str) -> Option<f64> {
-    report.robust.as_ref().and_then(|rb| {
-        rb.methods
-            .iter()
-            .find(|m| m.rate.method == method && m.rate.compute_delay == report.design_delay)
-            .and_then(|m| m.rate.slowest_rate_hz)
-    })
-}
-
-/// Vertical marks of one kind of `f_star` (one per method). When the
-/// methods' values lie within 10 % of each other their labels would
-/// collide: one label then names the span and the count, and the other
-/// lines go unlabelled (the report's tables give each value).
+/// Vertical marks of one kind of `f_star` (one per method). Values closer
+/// than [`STAR_CLUSTER_RATIO`] to their neighbour form a cluster with one
+/// label naming its span and count (the report's tables give each value);
+/// a lone value names its method.
 fn star_marks(
     series: &[(String, Vec<&SweepRow>)],
     kind: &str,
     style: MarkStyle,
     get: impl Fn(&str) -> Option<f64>,
-) -> Vec<(f64, String, MarkStyle)> {
-    let found: Vec<(&str, f64)> = series
-        .iter()
+) -> Vec<VMark> {
+    let mut found: Vec<(&str, f64)> = (series.iter())
         .filter_map(|(m, _)| get(m).map(|f| (m.as_str(), f)))
         .collect();
-    let lo = found.iter().map(|p| p.1).fold(f64::INFINITY, f64::min);
-    let hi = found.iter().map(|p| p.1).fold(f64::NEG_INFINITY, f64::max);
-    if found.len() > 1 && hi <= 1.1 * lo {
-        return found
-            .iter()
-            .enumerate()
-            .map(|(i, &(_, f))| {
-                let text = if i == 0 {
-                    format!("{kind} {} to {} ({} methods)", hz(lo), hz(hi), found.len())
-                } else {
-                    String::new()
-                };
-                (f, text, style)
-            })
-            .collect();
+    found.sort_by(|a, b| a.1.total_cmp(&b.1));
+    let mut out = Vec::new();
+    for (i, &(m, f)) in found.iter().enumerate() {
+        let starts = i == 0 || f > STAR_CLUSTER_RATIO * found[i - 1].1;
+        let end = (i + 1..found.len())
+            .find(|&j| found[j].1 > STAR_CLUSTER_RATIO * found[j - 1].1)
+            .unwrap_or(found.len());
+        let text = match (starts, end - i) {
+            (false, _) => String::new(),
+            (true, 1) => format!("{kind} {m} {}", hz(f)),
+            (true, n) => format!("{kind} {} to {} ({n} methods)", hz(f), hz(found[end - 1].1)),
+        };
+        out.push(VMark::new(f, text, style));
     }
-    found
-        .into_iter()
-        .map(|(m, f)| (f, format!("{kind} {m} {}", hz(f)), style))
-        .collect()
+    out
 }
 
 /// What the charts call the rate they show the loop at: the recommended
@@ -280,27 +323,13 @@ fn star_word(report: &PickReport) -> &'static str {
     }
 }
 
-/// The figures of a chart row; NaN (a break in the line) where the loop
-/// is unstable or the figure does not exist.
-fn figure_of(e: &Evaluation, get: fn(&Figures) -> Option<f64>) -> f64 {
-    e.figures.as_ref().and_then(get).unwrap_or(f64::NAN)
-}
-
-fn overshoot(f: &Figures) -> Option<f64> {
-    f.overshoot_pct
-}
-fn settling(f: &Figures) -> Option<f64> {
-    f.settling_time_s
-}
-fn phase_margin(f: &Figures) -> Option<f64> {
-    f.phase_margin_deg
-}
-/// The size of the gain margin: what `min_gain_margin_db` bounds.
-fn gain_margin(f: &Figures) -> Option<f64> {
-    f.gain_margin_db.map(f64::abs)
-}
-fn sensitivity(f: &Figures) -> Option<f64> {
-    Some(f.sensitivity_peak)
+/// A figure of a chart row; NaN (a break in the line) where the loop is
+/// unstable or the figure does not exist.
+fn figure_of(e: &Evaluation, fig: LoopFigure) -> f64 {
+    e.figures
+        .as_ref()
+        .and_then(|f| fig.limited_value(f))
+        .unwrap_or(f64::NAN)
 }
 
 /// A point of the recommended method at the design delay.
@@ -316,13 +345,7 @@ fn point_at(inp: &Inputs, method: Option<Method>, rate_hz: f64) -> Point {
 /// The failing rate shown beside f_star: the fastest infeasible grid rate
 /// below it, or f_star / 1.5 when the grid has none.
 fn failing_rate(inp: &Inputs, rec: &Recommended, method: Option<Method>) -> f64 {
-    inp.rows
-        .iter()
-        .filter(|r| {
-            r.point.method == method
-                && r.point.hold == rec.hold
-                && r.point.delay == inp.report.design_delay
-        })
+    (rows_of(inp, method, rec.hold).into_iter())
         .filter(|r| r.point.rate_hz < rec.slowest_rate_hz && !r.assessment.feasible)
         .map(|r| r.point.rate_hz)
         .fold(None, |a: Option<f64>, f| Some(a.map_or(f, |a| a.max(f))))
@@ -332,43 +355,29 @@ fn failing_rate(inp: &Inputs, rec: &Recommended, method: Option<Method>) -> f64 
 /// A sampled trace as a line through every point up to `t_end`, plus its
 /// sampling instants as markers (thinned to [`MAX_SAMPLE_MARKERS`]).
 fn trace_series(trace: &[TracePoint], t_end: f64, label: &str, style: usize) -> [Series; 2] {
-    let line: Vec<(f64, f64)> = trace
-        .iter()
-        .filter(|p| p.t <= t_end * (1.0 + 1e-12))
-        .map(|p| (p.t, p.y))
-        .collect();
-    let samples: Vec<(f64, f64)> = trace
-        .iter()
-        .filter(|p| p.sample && p.t <= t_end * (1.0 + 1e-12))
-        .map(|p| (p.t, p.y))
-        .collect();
+    let shown = || trace.iter().filter(|p| p.t <= t_end * (1.0 + 1e-12));
+    let samples: Points = shown().filter(|p| p.sample).map(|p| (p.t, p.y)).collect();
     let stride = samples.len().div_ceil(MAX_SAMPLE_MARKERS).max(1);
-    let marks: Vec<(f64, f64)> = samples.iter().copied().step_by(stride).collect();
-    let mark_label = if stride > 1 {
-        format!("samples (1 in {stride} shown)")
-    } else {
-        "samples".to_string()
+    let marks: Points = samples.iter().copied().step_by(stride).collect();
+    let mark_label = match stride {
+        1 => "samples".to_string(),
+        n => format!("samples (1 in {n} shown)"),
     };
     [
-        Series::line(label, line, style),
+        Series::line(label, shown().map(|p| (p.t, p.y)).collect(), style),
         Series::line(mark_label, marks, style).drawn(Draw::Markers),
     ]
 }
 
 /// Visible y range of a set of series, padded; non-finite points ignored.
-fn padded_range(series: &[&Series], pad: f64) -> Option<(f64, f64)> {
-    let (lo, hi) = series
-        .iter()
-        .flat_map(|s| s.points.iter().map(|p| p.1))
+fn padded_range<'a>(series: impl Iterator<Item = &'a Series>, pad: f64) -> Option<(f64, f64)> {
+    let (lo, hi) = (series.flat_map(|s| s.points.iter().map(|p| p.1)))
         .filter(|v| v.is_finite())
         .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
             (a.min(v), b.max(v))
         });
-    if !(lo.is_finite() && hi.is_finite()) {
-        return None;
-    }
     let span = (hi - lo).max(1e-9 * hi.abs().max(1.0));
-    Some((lo - pad * span, hi + pad * span))
+    (lo.is_finite() && hi.is_finite()).then_some((lo - pad * span, hi + pad * span))
 }
 
 /// A horizontal line across `[x0, x1]`.
@@ -376,17 +385,145 @@ fn hline(label: &str, y: f64, x0: f64, x1: f64, style: usize) -> Series {
     Series::line(label, vec![(x0, y), (x1, y)], style)
 }
 
+/// A panel of one figure against the rate: one series per entry of
+/// `series` (legend on the top panel `named`), its spec limit, the gaps
+/// explained in its caption.
+fn rate_panel(
+    def: LoopFigure,
+    spec: &Spec,
+    series: &[(String, Vec<&SweepRow>)],
+    named: bool,
+    worst: bool,
+) -> Panel {
+    let mut panel = Panel::new(Axis::linear(def.axis_title()));
+    let (mut unstable, mut missing) = (0, 0);
+    for (k, (name, rows)) in series.iter().enumerate() {
+        let pts = rows
+            .iter()
+            .map(|r| (r.point.rate_hz, figure_of(&r.eval, def)));
+        let never = rows.iter().all(|r| r.eval.figures.is_none());
+        unstable += rows.iter().filter(|r| r.eval.figures.is_none()).count();
+        missing += (rows.iter())
+            .filter(|r| {
+                r.eval
+                    .figures
+                    .as_ref()
+                    .is_some_and(|f| def.limited_value(f).is_none())
+            })
+            .count();
+        let label = match (named, never) {
+            (false, _) => String::new(),
+            (true, false) => name.clone(),
+            (true, true) => format!("{name} (unstable at every rate)"),
+        };
+        panel
+            .series
+            .push(Series::line(label, pts.collect(), k).drawn(Draw::LineAndMarkers));
+    }
+    // With plant variants, each method's figure at its worst over them, in
+    // the styles after the nominal curves'.
+    let mut variant_gaps = 0;
+    for (k, (name, rows)) in series.iter().enumerate().filter(|_| worst) {
+        variant_gaps += (rows.iter())
+            .filter(|r| r.eval.figures.is_some())
+            .filter(|r| {
+                r.robust
+                    .as_ref()
+                    .is_none_or(|rb| rb.worst_figures.is_none())
+            })
+            .count();
+        let pts = (rows.iter())
+            .map(|r| {
+                let w = r.robust.as_ref().and_then(|rb| rb.worst_figures.as_ref());
+                (
+                    r.point.rate_hz,
+                    w.and_then(|f| def.limited_value(f)).unwrap_or(f64::NAN),
+                )
+            })
+            .collect();
+        let label = if named {
+            format!("{name}, worst variant")
+        } else {
+            String::new()
+        };
+        let style = (series.len() + k) % PALETTE_LEN;
+        panel.series.push(Series::line(label, pts, style));
+    }
+    let total: usize = series.iter().map(|(_, rows)| rows.len()).sum();
+    let mut why = Vec::new();
+    if unstable > 0 {
+        why.push(format!("loop unstable ({unstable}/{total})"));
+    }
+    if missing > 0 {
+        why.push(format!("{} ({missing}/{total})", def.absence_reason()));
+    }
+    if variant_gaps > 0 {
+        why.push(format!("a variant unstable ({variant_gaps} more)"));
+    }
+    if !why.is_empty() {
+        panel.caption = format!("gaps: {}", why.join("; "));
+    }
+    match limit_of(def, spec) {
+        Some(l) => add_limit(&mut panel, l, unit_of(def)),
+        // Without a limit, Ms is still shown up to a few times the usual
+        // bound of 2 (common practice, no source).
+        None if def == LoopFigure::SensitivityPeak => {
+            clip_above(&mut panel, CLIP_TIMES_LIMIT * 2.0, "")
+        }
+        None => {}
+    }
+    panel
+}
+
+/// A spec limit on a panel, with the view clipped above an upper limit
+/// (see [`clip_above`]).
+fn add_limit(panel: &mut Panel, limit: Limit, unit: &str) {
+    if limit.bad_side == Side::Above && limit.value > 0.0 {
+        clip_above(panel, CLIP_TIMES_LIMIT * limit.value, unit);
+    }
+    panel.limits.push(limit);
+}
+
+/// Near the stability edge an upper-limited figure runs off to huge
+/// values and would flatten the rest: the view stops at `top`, each curve
+/// gets a marker (its own) where it leaves the top edge, and the caption
+/// says so.
+fn clip_above(panel: &mut Panel, top: f64, unit: &str) {
+    let leaving: Vec<Series> = (panel.series.iter())
+        .map(|s| {
+            let pts = (s.points.windows(2))
+                .filter(|w| w[0].1 <= top || w[0].1.is_nan())
+                .filter(|w| w[1].1.is_finite() && w[1].1 > top)
+                .map(|w| (w[1].0, top))
+                .collect();
+            Series::line("", pts, s.style.0).drawn(Draw::Markers)
+        })
+        .filter(|s| !s.points.is_empty())
+        .collect();
+    if leaving.is_empty() {
+        return;
+    }
+    panel.y = panel.y.clone().with_range(0.0, top);
+    panel.series.extend(leaving);
+    let text = format!("off scale above {} {unit}", sig4(top));
+    panel.caption = match panel.caption.is_empty() {
+        true => text.trim_end().to_string(),
+        false => format!("{}; {}", panel.caption, text.trim_end()),
+    };
+}
+
 // --------------------------------------------------------------- charts
 
 /// Overshoot, settling time, phase margin, gain margin and sensitivity
-/// peak against the rate, one series per method at the design delay.
+/// peak against the rate, one series per method at the design delay
+/// (with plant variants also each method's worst-variant curve).
 fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
     let spec = &inp.case.spec;
     // A controller given in z runs at one rate: one point per computation
     // delay, on an axis around that rate (not the range of a sweep).
     let single = match &inp.lp.controller {
-        crate::model::transfer::Controller::Discrete(d) => Some(1.0 / d.period_s),
-        crate::model::transfer::Controller::Continuous(_) => None,
+        Controller::Discrete(d) => Some(1.0 / d.period_s),
+        Controller::Continuous(_) => None,
     };
     let series = match single {
         Some(_) => delay_series(inp),
@@ -395,160 +532,72 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
     if series.is_empty() {
         return None;
     }
-    // Short axis labels keep the text full size on five stacked panels;
-    // the title spells the abbreviations out.
-    let panels: [PanelSpec; 5] = [
-        (
-            "overshoot (%)",
-            overshoot,
-            spec.max_overshoot_pct
-                .map(|l| (l, Side::Above, format!("max {} %", sig4(l)))),
-        ),
-        (
-            "settling time (s)",
-            settling,
-            spec.max_settling_s
-                .map(|l| (l, Side::Above, format!("max {} s", sig4(l)))),
-        ),
-        (
-            "PM (deg)",
-            phase_margin,
-            spec.min_phase_margin_deg
-                .map(|l| (l, Side::Below, format!("min {} deg", sig4(l)))),
-        ),
-        (
-            "|GM| (dB)",
-            gain_margin,
-            spec.min_gain_margin_db
-                .map(|l| (l, Side::Below, format!("min {} dB", sig4(l)))),
-        ),
-        (
-            "Ms (ratio)",
-            sensitivity,
-            spec.max_sensitivity_peak
-                .map(|l| (l, Side::Above, format!("max {}", sig4(l)))),
-        ),
-    ];
-    // Vertical marks, each labelled on one panel only (spread over the
-    // panels so the labels do not collide); the lines run through all.
     // With plant variants both answers are marked, each by its name: the
-    // nominal f* (dotted, where these nominal curves cross the limits) and
-    // the robust f* (dashed, what the answer rests on).
+    // nominal f* (dotted, where the nominal curves cross the limits) and
+    // the robust f* (dashed, where the worst-variant curves do: what the
+    // answer rests on).
     let robust = inp.report.robust.is_some();
-    let mut marks: Vec<(f64, String, MarkStyle)> = Vec::new();
-    if robust {
-        marks.extend(star_marks(&series, "robust f*", MarkStyle::Dashed, |m| {
-            robust_f_star(inp.report, m)
-        }));
-        marks.extend(star_marks(&series, "nominal f*", MarkStyle::Dotted, |m| {
-            f_star(inp.report, m)
-        }));
-    } else {
-        marks.extend(star_marks(&series, "f*", MarkStyle::Dashed, |m| {
-            f_star(inp.report, m)
-        }));
-    }
-    // Only labelled marks take a panel for their label.
-    let mut labelled = 0;
-    let marks: Vec<(f64, String, MarkStyle, usize)> = marks
-        .into_iter()
-        .map(|(x, t, st)| {
-            let slot = labelled;
-            if !t.is_empty() {
-                labelled += 1;
-            }
-            (x, t, st, slot + 1)
-        })
-        .collect();
-    let mut marks = marks;
+    let mut marks: Vec<VMark> = Vec::new();
     if let Some(r) = &inp.report.recommended {
-        marks.insert(
-            0,
-            (
-                r.rate_hz,
-                format!("{} {}", rate_word(inp.report), hz(r.rate_hz)),
-                MarkStyle::Solid,
-                0,
-            ),
-        );
+        let text = format!("{} {}", rate_word(inp.report), hz(r.rate_hz));
+        marks.push(VMark::new(r.rate_hz, text, MarkStyle::Solid));
     }
+    if robust {
+        let get = |m: &str| robust_f_star(inp.report, m);
+        marks.extend(star_marks(&series, "robust f*", MarkStyle::Dashed, get));
+    }
+    let kind = if robust { "nominal f*" } else { "f*" };
+    let style = if robust {
+        MarkStyle::Dotted
+    } else {
+        MarkStyle::Dashed
+    };
+    marks.extend(star_marks(&series, kind, style, |m| f_star(inp.report, m)));
     let (lo, hi) = match single {
         Some(f) => (f / 1.5, f * 1.5),
         None => (inp.case.rates.min_hz, inp.case.rates.max_hz),
     };
-    // A method with no stable point draws nothing: its legend says why.
-    let never_stable: Vec<bool> = series
-        .iter()
-        .map(|(_, rows)| rows.iter().all(|r| r.eval.figures.is_none()))
-        .collect();
-    let mut title = format!(
-        "Loop figures vs rate, computation delay {} T (PM phase margin, GM gain margin, Ms sensitivity peak; hatched side of a limit fails; gaps: unstable)",
-        sig4(inp.report.design_delay)
-    );
-    if let Some(f) = single {
-        title = format!(
+    let never_stable =
+        (series.iter()).all(|(_, rows)| rows.iter().all(|r| r.eval.figures.is_none()));
+    let delay = sig4(inp.report.design_delay);
+    let title = match single {
+        Some(f) => format!(
             "Loop figures of the controller given in z at its one rate {} (one point per computation delay; PM phase margin, GM gain margin, Ms sensitivity peak; hatched side of a limit fails)",
             hz(f)
-        );
-    } else if never_stable.iter().all(|&b| b) {
-        title = format!(
-            "No swept rate gives a stable loop ({} to {}, computation delay {} T)",
+        ),
+        None if never_stable => format!(
+            "No swept rate gives a stable loop ({} to {}, computation delay {delay} T)",
             hz(lo),
             hz(hi),
-            sig4(inp.report.design_delay)
-        );
-    }
-    let mut fig = Figure::new(title, rate_axis().with_range(lo, hi));
-    for (i, (label, get, limit)) in panels.into_iter().enumerate() {
-        let mut panel = Panel::new(Axis::linear(label));
-        for (k, (method, rows)) in series.iter().enumerate() {
-            let pts = rows
-                .iter()
-                .map(|r| (r.point.rate_hz, figure_of(&r.eval, get)))
-                .collect();
-            // The legend is given once, on the top panel; styles repeat
-            // below, so every panel reads the same way.
-            let name = match (i, never_stable[k]) {
-                (0, false) => method.clone(),
-                (0, true) => format!("{method} (unstable at every rate)"),
-                _ => String::new(),
-            };
-            panel
-                .series
-                .push(Series::line(name, pts, k).drawn(Draw::LineAndMarkers));
-        }
-        for (x, text, style, slot) in &marks {
-            let text = if slot % 5 == i {
-                text.clone()
+        ),
+        None => format!(
+            "Loop figures vs rate, computation delay {delay} T{} (PM phase margin, GM gain margin, Ms sensitivity peak; hatched side of a limit fails)",
+            if robust {
+                ", nominal plant and worst variant"
             } else {
-                String::new()
-            };
-            panel.vmarks.push(VMark::new(*x, text, *style));
-        }
-        if let Some((v, side, text)) = limit {
-            add_limit(&mut panel, v, side, text);
+                ""
+            }
+        ),
+    };
+    let mut fig = Figure::new(title, rate_axis().with_range(lo, hi));
+    for (i, def) in RATE_PANELS.iter().enumerate() {
+        let mut panel = rate_panel(*def, spec, &series, i == 0, robust);
+        // Lines through every panel, each label on one panel only
+        // (spread over the panels so the labels do not collide).
+        let mut slot = 0;
+        for mk in &marks {
+            let mut mk = mk.clone();
+            if !mk.label.is_empty() {
+                if slot % RATE_PANELS.len() != i {
+                    mk.label.clear();
+                }
+                slot += 1;
+            }
+            panel.vmarks.push(mk);
         }
         fig = fig.with_panel(panel);
     }
     Some(fig)
-}
-
-/// A spec limit on a panel. Near the stability edge an upper-limited
-/// figure runs off to huge values; the view then stays on the region
-/// around the limit (the line leaves the top edge where it goes beyond).
-fn add_limit(panel: &mut Panel, v: f64, side: Side, text: String) {
-    if side == Side::Above {
-        let top = panel
-            .series
-            .iter()
-            .flat_map(|s| s.points.iter().map(|p| p.1))
-            .filter(|v| v.is_finite())
-            .fold(f64::NEG_INFINITY, f64::max);
-        if top > 3.0 * v {
-            panel.y = panel.y.clone().with_range(0.0, 3.0 * v);
-        }
-    }
-    panel.limits.push(Limit::new(v, side, text));
 }
 
 /// Phase margin and overshoot against the rate, one series per hold kind
@@ -560,78 +609,41 @@ fn hold_kinds(inp: &Inputs) -> Option<Figure> {
         return None;
     }
     let (rec, method) = inp.rec?;
-    let mut series: Vec<(HoldKind, Vec<&SweepRow>)> = Vec::new();
-    for &h in &inp.case.holds {
-        let mut rows: Vec<&SweepRow> = inp
-            .rows
-            .iter()
-            .filter(|r| {
-                r.point.method == method
-                    && r.point.hold == h
-                    && r.point.delay == inp.report.design_delay
-            })
-            .collect();
-        if rows.is_empty() {
-            continue;
-        }
-        rows.sort_by(|a, b| a.point.rate_hz.total_cmp(&b.point.rate_hz));
-        series.push((h, rows));
-    }
-    if series.is_empty() {
-        return None;
-    }
-    let spec = &inp.case.spec;
-    let (lo, hi) = (inp.case.rates.min_hz, inp.case.rates.max_hz);
-    let mut fig = Figure::new(
-        format!(
-            "Hold kinds: {} at computation delay {} T (hatched side of a limit fails; gaps: unstable)",
-            rec.method,
-            sig4(inp.report.design_delay)
-        ),
-        rate_axis().with_range(lo, hi),
-    );
     let f_star_of = |h: HoldKind| {
-        inp.report
-            .answers()
-            .into_iter()
+        (inp.report.answers().into_iter())
             .find(|a| {
                 a.method == rec.method && a.hold == h && a.compute_delay == inp.report.design_delay
             })
             .and_then(|a| a.slowest_rate_hz)
     };
-    let panels: [PanelSpec; 2] = [
-        (
-            "PM (deg)",
-            phase_margin,
-            spec.min_phase_margin_deg
-                .map(|l| (l, Side::Below, format!("min {} deg", sig4(l)))),
-        ),
-        (
-            "overshoot (%)",
-            overshoot,
-            spec.max_overshoot_pct
-                .map(|l| (l, Side::Above, format!("max {} %", sig4(l)))),
-        ),
-    ];
-    for (i, (label, get, limit)) in panels.into_iter().enumerate() {
-        let mut panel = Panel::new(Axis::linear(label));
-        for (k, (h, rows)) in series.iter().enumerate() {
-            let pts = rows
-                .iter()
-                .map(|r| (r.point.rate_hz, figure_of(&r.eval, get)))
-                .collect();
-            let name = if i == 0 {
-                match f_star_of(*h) {
-                    Some(f) => format!("{h} (f* {})", hz(f)),
-                    None => format!("{h} (no f*)"),
-                }
-            } else {
-                String::new()
+    let series: Vec<(String, Vec<&SweepRow>)> = (inp.case.holds.iter())
+        .map(|&h| {
+            let name = match f_star_of(h) {
+                Some(f) => format!("{h} (f* {})", hz(f)),
+                None => format!("{h} (no f*)"),
             };
-            panel
-                .series
-                .push(Series::line(name, pts, k).drawn(Draw::LineAndMarkers));
-            if let Some(f) = f_star_of(*h) {
+            (name, rows_of(inp, method, h))
+        })
+        .filter(|(_, rows)| !rows.is_empty())
+        .collect();
+    if series.is_empty() {
+        return None;
+    }
+    let mut fig = Figure::new(
+        format!(
+            "Hold kinds: {} at computation delay {} T (hatched side of a limit fails)",
+            rec.method,
+            sig4(inp.report.design_delay)
+        ),
+        rate_axis().with_range(inp.case.rates.min_hz, inp.case.rates.max_hz),
+    );
+    for (i, def) in [LoopFigure::PhaseMargin, LoopFigure::Overshoot]
+        .into_iter()
+        .enumerate()
+    {
+        let mut panel = rate_panel(def, &inp.case.spec, &series, i == 0, false);
+        for &h in &inp.case.holds {
+            if let Some(f) = f_star_of(h) {
                 let text = if i == 0 {
                     format!("f* {h}")
                 } else {
@@ -640,104 +652,146 @@ fn hold_kinds(inp: &Inputs) -> Option<Figure> {
                 panel.vmarks.push(VMark::new(f, text, MarkStyle::Dashed));
             }
         }
-        if let Some((v, side, text)) = limit {
-            add_limit(&mut panel, v, side, text);
-        }
         fig = fig.with_panel(panel);
     }
     Some(fig)
 }
 
-/// Step response: the continuous design, the sampled loop at the
-/// recommended rate, at f_star and at a failing slower rate.
+/// One run of a time-response chart: its rate, legend label and style.
+struct Run {
+    rate: f64,
+    label: String,
+    style: usize,
+}
+
+/// A time-response panel: the continuous design and each run's trace (a
+/// line through the output between samples, markers at the samples);
+/// `step` picks the step trace, else the load-disturbance one. Runs that
+/// cannot be simulated are named in the returned notes.
+fn time_panel(
+    inp: &Inputs,
+    method: Option<Method>,
+    runs: &[Run],
+    t_end: f64,
+    step: bool,
+    y_label: &str,
+) -> (Panel, Vec<String>) {
+    let mut panel = Panel::new(Axis::linear(y_label));
+    let mut notes = Vec::new();
+    if inp.lp.design.is_some() {
+        match inp.lp.continuous_traces(t_end, CONTINUOUS_TRACE_STEPS) {
+            Ok((s, d)) => {
+                let t = if step { s } else { d };
+                let pts = t.iter().map(|p| (p.t, p.y)).collect();
+                panel
+                    .series
+                    .push(Series::line("continuous design", pts, STYLE_CONTINUOUS));
+            }
+            Err(e) => notes.push(format!("continuous design not simulated: {e}")),
+        }
+    }
+    for run in runs {
+        let p = point_at(inp, method, run.rate);
+        let periods = (t_end * run.rate).ceil() as usize + 1;
+        match inp.lp.sampled_traces(&p, Some(periods)) {
+            Ok((s, d)) => {
+                let t = if step { s } else { d };
+                panel
+                    .series
+                    .extend(trace_series(&t, t_end, &run.label, run.style));
+            }
+            Err(e) => notes.push(format!("{}: not simulated: {e}", run.label)),
+        }
+    }
+    (panel, notes)
+}
+
+/// 1.4 times the longest of `times`, else `fallback`.
+fn span_of(times: &[Option<f64>], fallback: f64) -> f64 {
+    let longest = times.iter().flatten().copied().fold(0.0, f64::max);
+    if longest > 0.0 {
+        1.4 * longest
+    } else {
+        fallback
+    }
+}
+
+/// Step response: the continuous design, the sampled loop (nominal
+/// plant) at the recommended rate, at f_star and at a failing slower
+/// rate, with the overshoot limit and the settling band and limit.
 fn step_response(inp: &Inputs) -> Option<Figure> {
     let (rec, method) = inp.rec?;
     let figs = rec.figures.as_ref()?;
     let spec = &inp.case.spec;
-    let star = point_at(inp, method, rec.slowest_rate_hz);
     let fail_rate = failing_rate(inp, rec, method);
-    let fail = point_at(inp, method, fail_rate);
-    let star_eval = inp.lp.sampled(&star);
-    let fail_assessment = assess(&inp.lp.sampled(&fail), spec);
-
-    // Long enough to show settling of every passing response and the
-    // settling-time limit.
+    let star_eval = inp.lp.sampled(&point_at(inp, method, rec.slowest_rate_hz));
+    let fail_eval = inp.lp.sampled(&point_at(inp, method, fail_rate));
+    let fail_assessment = assess(&fail_eval, spec);
+    // The f* and failing runs can lie 1 % apart and draw almost the same
+    // curve: their labels give the figure that decides between them.
+    let limiting = fail_assessment.limiting;
+    let def = match limiting {
+        Some(Limiting::Figure(f)) => Some(f),
+        _ => None,
+    };
+    let value = |e: &Evaluation| {
+        def.zip(e.figures.as_ref())
+            .and_then(|(d, f)| value_text(d, f))
+    };
+    let fail_text = match (value(&fail_eval), limiting) {
+        (Some(v), _) => format!("{} fails: {v}", hz(fail_rate)),
+        (None, Some(k)) => format!("{} fails: {k}", hz(fail_rate)),
+        (None, None) => format!("{} fails", hz(fail_rate)),
+    };
+    let star_text = format!("{} {}", hz(rec.slowest_rate_hz), star_word(inp.report));
+    let runs = [
+        Run {
+            rate: rec.rate_hz,
+            label: format!("{} {}", hz(rec.rate_hz), rate_word(inp.report)),
+            style: STYLE_RECOMMENDED,
+        },
+        Run {
+            rate: rec.slowest_rate_hz,
+            label: match value(&star_eval) {
+                Some(v) => format!("{star_text}: {v}"),
+                None => star_text,
+            },
+            style: STYLE_STAR,
+        },
+        Run {
+            rate: fail_rate,
+            label: fail_text,
+            style: STYLE_FAILING,
+        },
+    ];
     let settle = [
         inp.report.design.as_ref().and_then(|f| f.settling_time_s),
         figs.settling_time_s,
         star_eval.figures.as_ref().and_then(|f| f.settling_time_s),
         spec.max_settling_s,
     ];
-    let longest = settle.iter().flatten().copied().fold(0.0, f64::max);
-    let t_end = if longest > 0.0 {
-        1.4 * longest
-    } else {
-        figs.horizon_s
-    };
-
-    let mut panel = Panel::new(Axis::linear("plant output y (output units, unit step)"));
-    let mut notes = Vec::new();
-    if inp.lp.design.is_some() {
-        match inp.lp.continuous_traces(t_end, CONTINUOUS_TRACE_STEPS) {
-            Ok((step, _)) => panel.series.push(
-                Series::line(
-                    "continuous design",
-                    step.iter().map(|p| (p.t, p.y)).collect(),
-                    STYLE_CONTINUOUS,
-                )
-                .drawn(Draw::Line),
-            ),
-            Err(e) => notes.push(format!("continuous design not simulated: {e}")),
-        }
-    }
-    let runs = [
-        (
-            rec.rate_hz,
-            format!("{} {}", hz(rec.rate_hz), rate_word(inp.report)),
-            STYLE_RECOMMENDED,
-        ),
-        (
-            rec.slowest_rate_hz,
-            format!("{} {}", hz(rec.slowest_rate_hz), star_word(inp.report)),
-            STYLE_STAR,
-        ),
-        (
-            fail_rate,
-            format!(
-                "{} fails ({})",
-                hz(fail_rate),
-                fail_assessment.limiting.map_or("-", |l| l.label())
-            ),
-            STYLE_FAILING,
-        ),
-    ];
-    let mut good: Vec<Series> = Vec::new();
-    for (k, (rate, label, style)) in runs.iter().enumerate() {
-        let p = point_at(inp, method, *rate);
-        let periods = (t_end * rate).ceil() as usize + 1;
-        match inp.lp.sampled_traces(&p, Some(periods)) {
-            Ok((step, _)) => {
-                let [line, marks] = trace_series(&step, t_end, label, *style);
-                if k < 2 {
-                    good.push(line.clone());
-                }
-                panel.series.push(line);
-                panel.series.push(marks);
-            }
-            Err(e) => notes.push(format!("{label}: not simulated: {e}")),
-        }
-    }
-    // A failing run may diverge: fit the view to the design and the
-    // passing runs so they stay readable; the failing one is clipped.
-    let mut fitted: Vec<&Series> = good.iter().collect();
-    fitted.extend(
-        panel
-            .series
-            .iter()
-            .filter(|s| s.label == "continuous design"),
-    );
-    if let Some((lo, hi)) = padded_range(&fitted, 0.12) {
+    let t_end = span_of(&settle, figs.horizon_s);
+    let y_label = "plant output y (output units, unit step)";
+    let (mut panel, notes) = time_panel(inp, method, &runs, t_end, true, y_label);
+    // A failing run may diverge: fit the view to the design, the passing
+    // runs and the overshoot limit so they stay readable.
+    let os_limit = spec
+        .max_overshoot_pct
+        .map(|l| figs.y_final * (1.0 + l / 100.0));
+    let fitted =
+        (panel.series.iter()).filter(|s| s.style.0 != STYLE_FAILING && s.draw == Draw::Line);
+    let limit_line = os_limit.map(|v| hline("", v, 0.0, 0.0, 0));
+    if let Some((lo, hi)) = padded_range(fitted.chain(limit_line.iter()), 0.12) {
         panel.y = panel.y.clone().with_range(lo.min(0.0), hi);
+    }
+    if let (Some(v), Some(l)) = (os_limit, spec.max_overshoot_pct) {
+        let text = format!("max overshoot {} %", sig4(l));
+        let side = if figs.y_final >= 0.0 {
+            Side::Above
+        } else {
+            Side::Below
+        };
+        panel.limits.push(Limit::new(v, side, text));
     }
     let band = spec.settling_band_pct / 100.0 * figs.y_final.abs();
     panel.hbands.push(YBand::new(
@@ -746,19 +800,109 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
         format!("settling band +/-{} %", sig4(spec.settling_band_pct)),
     ));
     if let Some(l) = spec.max_settling_s {
-        panel.vmarks.push(VMark::new(
-            l,
-            format!("settling limit {} s", sig4(l)),
-            MarkStyle::Dotted,
-        ));
+        let text = format!("settling limit {} s", sig4(l));
+        panel.vmarks.push(VMark::new(l, text, MarkStyle::Dotted));
     }
+    let plant = match &inp.report.robust {
+        Some(rb) => format!(
+            "nominal plant (f* and the recommendation hold for all {} variants)",
+            rb.variants
+        ),
+        None => "nominal plant".to_string(),
+    };
     let mut title = format!(
-        "Step response, {} at computation delay {} T (line: output between samples)",
+        "Step response, {} at computation delay {} T, {plant} (line: output between samples)",
         rec.method,
         sig4(inp.report.design_delay)
     );
-    if !notes.is_empty() {
-        title = format!("{title}; {}", notes.join("; "));
+    for n in notes {
+        title = format!("{title}; {n}");
+    }
+    Some(Figure::new(title, Axis::linear("time (s)").with_range(0.0, t_end)).with_panel(panel))
+}
+
+/// Load-disturbance response at the recommended rate and at f_star, with
+/// the recovery band of the recommended run and each run's computation
+/// delay.
+fn disturbance(inp: &Inputs) -> Option<Figure> {
+    let (rec, method) = inp.rec?;
+    let figs = rec.figures.as_ref()?;
+    let star_eval = inp.lp.sampled(&point_at(inp, method, rec.slowest_rate_hz));
+    let recovery = [
+        inp.report.design.as_ref().and_then(|f| f.recovery_time_s),
+        figs.recovery_time_s,
+        star_eval.figures.as_ref().and_then(|f| f.recovery_time_s),
+        inp.case.spec.max_recovery_s,
+    ];
+    let t_end = span_of(&recovery, figs.horizon_s);
+    let d = inp.report.design_delay;
+    let delay = |rate: f64| {
+        format!(
+            "delay {} T = {}",
+            sig4(d),
+            crate::engineering::seconds(d / rate)
+        )
+    };
+    let runs = [
+        Run {
+            rate: rec.rate_hz,
+            label: format!(
+                "{} {} ({})",
+                hz(rec.rate_hz),
+                rate_word(inp.report),
+                delay(rec.rate_hz)
+            ),
+            style: STYLE_RECOMMENDED,
+        },
+        Run {
+            rate: rec.slowest_rate_hz,
+            label: format!(
+                "{} {} ({})",
+                hz(rec.slowest_rate_hz),
+                star_word(inp.report),
+                delay(rec.slowest_rate_hz)
+            ),
+            style: STYLE_STAR,
+        },
+    ];
+    let y_label = "plant output y (output units, unit load step)";
+    let (mut panel, notes) = time_panel(inp, method, &runs, t_end, false, y_label);
+    // Recovery: |y - y_end| within the band times the peak (docs/figures.md);
+    // the recommended run's own final value is its last point.
+    let end = (panel.series.iter())
+        .find(|s| s.style.0 == STYLE_RECOMMENDED && s.draw == Draw::Line)
+        .and_then(|s| s.points.last().map(|p| p.1));
+    if let Some(y_end) = end.filter(|v| v.is_finite()) {
+        let band = inp.case.spec.settling_band_pct / 100.0 * figs.disturbance_peak;
+        let text = format!(
+            "recovery band +/-{} % of the peak ({} recommended)",
+            sig4(inp.case.spec.settling_band_pct),
+            hz(rec.rate_hz)
+        );
+        panel
+            .hbands
+            .push(YBand::new(y_end - band, y_end + band, text));
+    }
+    if let Some(t) = figs.recovery_time_s {
+        let text = format!("recovered {} s", sig4(t));
+        panel.vmarks.push(VMark::new(t, text, MarkStyle::Dashed));
+    }
+    if let Some(l) = inp.case.spec.max_recovery_s {
+        let text = format!("recovery limit {} s", sig4(l));
+        panel.vmarks.push(VMark::new(l, text, MarkStyle::Dotted));
+    }
+    if let Some(l) = limit_of(LoopFigure::DisturbancePeak, &inp.case.spec) {
+        panel.limits.push(Limit {
+            label: format!("{} peak", l.label),
+            ..l
+        });
+    }
+    let mut title = format!(
+        "Response to a unit load step at the plant input, {}, nominal plant (r = 0)",
+        rec.method
+    );
+    for n in notes {
+        title = format!("{title}; {n}");
     }
     Some(Figure::new(title, Axis::linear("time (s)").with_range(0.0, t_end)).with_panel(panel))
 }
@@ -833,7 +977,7 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
     let f_hi = nyquist_hz;
     clip_magnitude(&mut mag, detail.gain_margin_db);
     mag.series
-        .push(hline("0 dB", 0.0, f_lo, f_hi, STYLE_REFERENCE + 2));
+        .push(hline("0 dB", 0.0, f_lo, f_hi, STYLE_REFERENCE));
     // Unwrapped phase at a frequency, exactly: the nearest grid point's
     // unwrapped value plus the angle from it.
     let phase_at = |f: f64| -> f64 {
@@ -865,7 +1009,7 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
             if level >= plo - 20.0 {
                 let text = if first { "-180 deg (mod 360)" } else { "" };
                 ph.series
-                    .push(hline(text, level, f_lo, f_hi, STYLE_REFERENCE + 2));
+                    .push(hline(text, level, f_lo, f_hi, STYLE_REFERENCE));
                 first = false;
             }
             k += 1.0;
@@ -1046,7 +1190,11 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
         }
     }
     for (k, (names, pts)) in loads.into_iter().enumerate() {
-        panel.series.push(Series::line(names.join(" = "), pts, k));
+        let label = match names.len() {
+            1 => names.join(""),
+            _ => format!("{} (same load)", names.join(", ")),
+        };
+        panel.series.push(Series::line(label, pts, k));
     }
     panel.limits.push(Limit::new(
         b.max_load_pct,
@@ -1215,21 +1363,6 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
             (inp.lp.sampled(&p), approx)
         })
         .collect();
-    let spec = &inp.case.spec;
-    let panels: [PanelSpec; 2] = [
-        (
-            "phase margin (deg)",
-            phase_margin,
-            spec.min_phase_margin_deg
-                .map(|l| (l, Side::Below, format!("min {} deg", sig4(l)))),
-        ),
-        (
-            "overshoot (%)",
-            overshoot,
-            spec.max_overshoot_pct
-                .map(|l| (l, Side::Above, format!("max {} %", sig4(l)))),
-        ),
-    ];
     let mut fig = Figure::new(
         format!(
             "Hold approximations vs the exact sampled loop ({}, {} hold, computation delay {} T)",
@@ -1239,16 +1372,17 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
         ),
         rate_axis().with_range(lo, hi),
     );
-    for (i, (label, get, limit)) in panels.into_iter().enumerate() {
+    let defs = [LoopFigure::PhaseMargin, LoopFigure::Overshoot];
+    for (i, def) in defs.into_iter().enumerate() {
         let named = |s: &str| if i == 0 { s.to_string() } else { String::new() };
-        let mut panel = Panel::new(Axis::linear(label));
+        let mut panel = Panel::new(Axis::linear(def.axis_title()));
         panel.series.push(
             Series::line(
                 named("exact sampled loop"),
                 rates
                     .iter()
                     .zip(&evals)
-                    .map(|(&f, (e, _))| (f, figure_of(e, get)))
+                    .map(|(&f, (e, _))| (f, figure_of(e, def)))
                     .collect(),
                 STYLE_RECOMMENDED,
             )
@@ -1260,7 +1394,7 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
                 rates
                     .iter()
                     .zip(&evals)
-                    .map(|(&f, (_, a))| (f, figure_of(&a[k], get)))
+                    .map(|(&f, (_, a))| (f, figure_of(&a[k], def)))
                     .collect(),
                 // Styles 1, 2, 3, then 5: 4 is the continuous design's.
                 if k + 1 >= STYLE_CONTINUOUS {
@@ -1270,7 +1404,7 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
                 },
             ));
         }
-        if let Some(v) = get(design) {
+        if let Some(v) = def.limited_value(design) {
             panel.series.push(hline(
                 &named("continuous design"),
                 v,
@@ -1279,9 +1413,7 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
                 STYLE_CONTINUOUS,
             ));
         }
-        if let Some((v, side, text)) = limit {
-            panel.limits.push(Limit::new(v, side, text));
-        }
+        panel.limits.extend(limit_of(def, &inp.case.spec));
         panel.vmarks.push(VMark::new(
             rec.rate_hz,
             if i == 0 {
@@ -1294,118 +1426,4 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
         fig = fig.with_panel(panel);
     }
     Some(fig)
-}
-
-/// Load-disturbance response at the recommended rate and at f_star.
-fn disturbance(inp: &Inputs) -> Option<Figure> {
-    let (rec, method) = inp.rec?;
-    let figs = rec.figures.as_ref()?;
-    let star = point_at(inp, method, rec.slowest_rate_hz);
-    let star_eval = inp.lp.sampled(&star);
-    let recovery = [
-        inp.report.design.as_ref().and_then(|f| f.recovery_time_s),
-        figs.recovery_time_s,
-        star_eval.figures.as_ref().and_then(|f| f.recovery_time_s),
-        inp.case.spec.max_recovery_s,
-    ];
-    let longest = recovery.iter().flatten().copied().fold(0.0, f64::max);
-    let t_end = if longest > 0.0 {
-        1.4 * longest
-    } else {
-        figs.horizon_s
-    };
-    let mut panel = Panel::new(Axis::linear(
-        "plant output y (output units, unit load step)",
-    ));
-    let mut notes = Vec::new();
-    if inp.lp.design.is_some() {
-        match inp.lp.continuous_traces(t_end, CONTINUOUS_TRACE_STEPS) {
-            Ok((_, dist)) => panel.series.push(Series::line(
-                "continuous design",
-                dist.iter().map(|p| (p.t, p.y)).collect(),
-                STYLE_CONTINUOUS,
-            )),
-            Err(e) => notes.push(format!("continuous design not simulated: {e}")),
-        }
-    }
-    for (rate, label, style) in [
-        (
-            rec.rate_hz,
-            format!("{} {}", hz(rec.rate_hz), rate_word(inp.report)),
-            STYLE_RECOMMENDED,
-        ),
-        (
-            rec.slowest_rate_hz,
-            format!("{} {}", hz(rec.slowest_rate_hz), star_word(inp.report)),
-            STYLE_STAR,
-        ),
-    ] {
-        let p = point_at(inp, method, rate);
-        let periods = (t_end * rate).ceil() as usize + 1;
-        match inp.lp.sampled_traces(&p, Some(periods)) {
-            Ok((_, dist)) => panel
-                .series
-                .extend(trace_series(&dist, t_end, &label, style)),
-            Err(e) => notes.push(format!("{label}: not simulated: {e}")),
-        }
-    }
-    if let Some(l) = inp.case.spec.max_recovery_s {
-        panel.vmarks.push(VMark::new(
-            l,
-            format!("recovery limit {} s", sig4(l)),
-            MarkStyle::Dotted,
-        ));
-    }
-    if let Some(l) = inp.case.spec.max_disturbance_peak {
-        panel
-            .limits
-            .push(Limit::new(l, Side::Above, format!("max peak {}", sig4(l))));
-    }
-    let mut title = format!(
-        "Response to a unit load step at the plant input, {} (r = 0)",
-        rec.method
-    );
-    if !notes.is_empty() {
-        title = format!("{title}; {}", notes.join("; "));
-    }
-    Some(Figure::new(title, Axis::linear("time (s)").with_range(0.0, t_end)).with_panel(panel))
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn a_controller_given_in_z_is_drawn_at_its_one_rate() {
-        // A gain in z at 5 Hz with two computation delays: the
-        // figures-vs-rate chart shows one point per delay on an axis
-        // around 5 Hz, not the range of a sweep.
-        let text = "[plant]\ntransfer = \"1 / (s * (s + 1))\"\n[controller]\nnumerator_z = [2.0]\ndenominator_z = [1.0]\nrate_hz = 5\n[timing]\ncompute_delay = [0.5, 1]\n[spec]\nmin_phase_margin_deg = 20\n";
-        let case = Case::parse(text, Path::new("z.toml")).unwrap();
-        let lp = crate::explore::pick::prepare(&case).unwrap();
-        let picked = crate::explore::pick::sweep_and_pick(
-            &case,
-            &lp,
-            &|| {},
-            &crate::explore::search::Silent,
-        )
-        .unwrap();
-        let inputs = Inputs {
-            case: &case,
-            lp: &lp,
-            rows: &picked.rows,
-            report: &picked.report,
-            rec: None,
-        };
-        let fig = figures_vs_rate(&inputs).unwrap();
-        let (lo, hi) = fig.x.range.unwrap();
-        assert!(lo < 5.0 && hi > 5.0 && hi / lo < 3.0, "{lo} .. {hi}");
-        assert!(fig.title.contains("given in z"), "{}", fig.title);
-        let series = &fig.panels[0].series;
-        assert_eq!(series.len(), 2, "one series per delay");
-        for s in series {
-            assert_eq!(s.points.len(), 1);
-            assert_eq!(s.points[0].0, 5.0);
-        }
-    }
 }

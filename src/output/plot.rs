@@ -1,29 +1,29 @@
 //! PNG charts for design reviews.
 //!
-//! A [`Figure`] is plain data: one or more [`Panel`]s stacked vertically
-//! that share one x axis, each with its own y axis, data [`Series`],
-//! spec [`Limit`]s (with the infeasible side hatched), vertical markers,
-//! shaded bands and point annotations. [`render_png`] turns it into a PNG
-//! file; [`render_rgb`] gives the pixels instead.
+//! A [`Figure`] is plain data (the chart's description, which tests read):
+//! one or more [`Panel`]s stacked vertically that share one x axis, each
+//! with its own y axis, data [`Series`], spec [`Limit`]s (with the
+//! infeasible side hatched), vertical markers, shaded bands and point
+//! annotations. [`render_png_bytes`] draws it and encodes a PNG;
+//! [`render_rgb`] gives the pixels instead.
 //!
-//! All drawing is our own, on an RGB buffer: shapes are anti-aliased
-//! through `ab_glyph`'s outline rasterizer and text is laid out with the
-//! embedded font's metrics (module `text`), because plotters 0.3.7's own
-//! text path mis-spaces letters. plotters is used only to encode the
-//! finished buffer as PNG, so no system library (fontconfig, freetype) is
+//! plotters draws (chart builder, mesh, series, legends: module `draw`) on
+//! a backend of ours (`backend`) over an anti-aliased RGB canvas
+//! (`canvas`), whose text is laid out with the embedded font's metrics
+//! (`text`), because plotters 0.3.7's own text path drops each glyph's
+//! left side bearing. No system library (fontconfig, freetype) is
 //! involved and output is identical on every machine.
 
 use crate::error::PlotError;
 
+mod backend;
 mod canvas;
+mod draw;
 mod palette;
-mod render;
-mod scale;
 mod style;
 mod text;
 
-use std::path::{Path, PathBuf};
-use std::sync::atomic::{AtomicU64, Ordering};
+use std::path::Path;
 
 pub use canvas::Rgb;
 pub use style::PALETTE_LEN;
@@ -139,6 +139,9 @@ pub struct Panel {
     pub hbands: Vec<YBand>,
     /// Text labels pointing at data coordinates.
     pub notes: Vec<Annotation>,
+    /// A short line inside the panel, placed off the data (e.g. what the
+    /// gaps in its curves mean); empty for none.
+    pub caption: String,
     /// Relative height among the panels (non-positive or non-finite = 1).
     pub height_weight: f64,
 }
@@ -153,6 +156,7 @@ impl Default for Panel {
             bands: Vec::new(),
             hbands: Vec::new(),
             notes: Vec::new(),
+            caption: String::new(),
             height_weight: 1.0,
         }
     }
@@ -335,89 +339,22 @@ impl Annotation {
 /// Draw `fig` and return its pixels: `(width, height, rgb)` with rows
 /// top to bottom, three bytes per pixel.
 pub fn render_rgb(fig: &Figure) -> Result<(u32, u32, Vec<u8>), PlotError> {
-    let canvas = render::render(fig)?;
+    let canvas = draw::render(fig)?;
     let (w, h) = (canvas.width(), canvas.height());
     Ok((w, h, canvas.pixels().to_vec()))
 }
 
-/// Draw `fig` and encode it as PNG in memory (the bytes a report embeds
-/// are the bytes written, never a file read back). `name` is only used in
-/// an encoder error.
+/// Draw `fig` and encode it as a palette PNG in memory (see `palette`:
+/// the charts' flat colours kept exactly, a fifth of the size of RGB).
+/// The caller writes it (the bytes a report embeds are the bytes
+/// written, never a file read back); `name` is only used in an encoder
+/// error.
 pub fn render_png_bytes(fig: &Figure, name: &Path) -> Result<Vec<u8>, PlotError> {
-    use image::ImageEncoder;
-    let canvas = render::render(fig)?;
-    let mut out = Vec::new();
-    image::codecs::png::PngEncoder::new(&mut out)
-        .write_image(
-            canvas.pixels(),
-            canvas.width(),
-            canvas.height(),
-            image::ColorType::Rgb8,
-        )
-        .map_err(|e| PlotError::Encode {
+    let canvas = draw::render(fig)?;
+    palette::encode_indexed(canvas.width(), canvas.height(), canvas.pixels()).map_err(|message| {
+        PlotError::Encode {
             path: name.to_path_buf(),
-            message: e.to_string(),
-        })?;
-    Ok(out)
-}
-
-/// Draw `fig` and write it to `path` as PNG.
-///
-/// The image is encoded into a temporary file in the same directory and
-/// then renamed over `path`, so a failure never leaves a half-written
-/// PNG behind (and an existing file stays untouched).
-pub fn render_png(fig: &Figure, path: &Path) -> Result<(), PlotError> {
-    let canvas = render::render(fig)?;
-    let dir = match path.parent() {
-        Some(d) if !d.as_os_str().is_empty() => d,
-        _ => Path::new("."),
-    };
-    // Report a missing directory plainly rather than as an encoder error.
-    std::fs::metadata(dir).map_err(|source| PlotError::Io {
-        path: path.to_path_buf(),
-        source,
-    })?;
-    let tmp = temp_path(path);
-    let result = encode_png(&canvas, &tmp).and_then(|()| {
-        std::fs::rename(&tmp, path).map_err(|source| PlotError::Io {
-            path: path.to_path_buf(),
-            source,
-        })
-    });
-    if result.is_err() {
-        // Best effort: the temporary file may not even exist.
-        let _ = std::fs::remove_file(&tmp);
-    }
-    result
-}
-
-/// A hidden, unique sibling of `path` ending in `.png` (the encoder picks
-/// the format from the extension).
-fn temp_path(path: &Path) -> PathBuf {
-    static COUNTER: AtomicU64 = AtomicU64::new(0);
-    let n = COUNTER.fetch_add(1, Ordering::Relaxed);
-    let name = path
-        .file_name()
-        .map(|s| s.to_string_lossy().into_owned())
-        .unwrap_or_else(|| "figure".into());
-    let tmp_name = format!(".{name}.{}-{n}.tmp.png", std::process::id());
-    match path.parent() {
-        Some(dir) if !dir.as_os_str().is_empty() => dir.join(tmp_name),
-        _ => PathBuf::from(tmp_name),
-    }
-}
-
-/// Encode the canvas as a palette PNG at `path` (see `palette`: the
-/// charts' flat colours kept exactly, a fifth of the size of RGB).
-fn encode_png(canvas: &canvas::Canvas, path: &Path) -> Result<(), PlotError> {
-    let bytes = palette::encode_indexed(canvas.width(), canvas.height(), canvas.pixels()).map_err(
-        |message| PlotError::Encode {
-            path: path.to_path_buf(),
             message,
-        },
-    )?;
-    std::fs::write(path, bytes).map_err(|source| PlotError::Io {
-        path: path.to_path_buf(),
-        source,
+        }
     })
 }

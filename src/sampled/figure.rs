@@ -409,6 +409,37 @@ impl Figure {
         }
     }
 
+    /// A value with its unit, as a label writes it: `716.3 µs`,
+    /// `25.31 %`, `52.62 deg`, `1.422` (a ratio or output units: no unit).
+    pub fn quantity(self, v: f64) -> String {
+        match self.unit() {
+            Unit::Seconds | Unit::Hertz => self.text(v),
+            Unit::Percent | Unit::Decibel | Unit::Degree => {
+                format!("{} {}", sig4(v), self.unit().symbol())
+            }
+            _ => sig4(v),
+        }
+    }
+
+    /// Why the figure can be absent, in words for a chart's caption of
+    /// gaps (whatever the particular evaluation).
+    pub fn absence_reason(self) -> &'static str {
+        match self {
+            Figure::GainMargin => "no -180 deg crossing (infinite)",
+            Figure::PhaseMargin | Figure::DelayMarginEstimate => "no gain crossing (infinite)",
+            Figure::Crossover => "no gain crossing",
+            Figure::Overshoot => Missing::NoFinalValue.text(),
+            Figure::SettlingTime => Missing::NotSettled.text(),
+            Figure::RiseTime => Missing::NotReached.text(),
+            Figure::RecoveryTime => Missing::NotRecovered.text(),
+            Figure::DelayMargin => "not searched, not located or infinite",
+            Figure::FinalValue
+            | Figure::DisturbancePeak
+            | Figure::CommandPeak
+            | Figure::SensitivityPeak => "undecided",
+        }
+    }
+
     /// The figure of `f` as a table cell: its value, or its absence in
     /// words.
     pub fn cell(self, f: &Figures) -> String {

@@ -158,18 +158,6 @@ impl Canvas {
         }
     }
 
-    /// A one-pixel crisp vertical line at column `x` from `y0` to `y1`.
-    pub fn vline(&mut self, x: f64, y0: f64, y1: f64, c: Rgb, a: f32) {
-        let xi = x.floor();
-        self.fill_rect(Rect::new(xi, y0, xi + 1.0, y1), c, a);
-    }
-
-    /// A one-pixel crisp horizontal line at row `y` from `x0` to `x1`.
-    pub fn hline(&mut self, y: f64, x0: f64, x1: f64, c: Rgb, a: f32) {
-        let yi = y.floor();
-        self.fill_rect(Rect::new(x0, yi, x1, yi + 1.0), c, a);
-    }
-
     /// Fill the union of `polys` with anti-aliased edges, touching only
     /// pixels inside `clip`. Polygons with non-finite vertices are skipped.
     /// Callers keep geometry near `clip` (see [`clip_segment`]) so the
@@ -304,70 +292,6 @@ pub(crate) fn clip_segment(a: (f64, f64), b: (f64, f64), r: &Rect) -> Option<(f6
         }
     }
     (t0 <= t1 && t0.is_finite() && t1.is_finite()).then_some((t0, t1))
-}
-
-/// Stroke the polyline `pts` (pixel coordinates, no breaks) with width `w`
-/// and dash pattern `dash` (alternating visible/gap lengths in pixels,
-/// empty = solid), appending capsules to `out`. Geometry outside `keep`
-/// is dropped, with the dash phase still advancing, so far-away points
-/// neither cost memory nor shift the pattern.
-pub(crate) fn stroke_polyline(
-    pts: &[(f64, f64)],
-    w: f64,
-    dash: &[f64],
-    keep: &Rect,
-    out: &mut Vec<Poly>,
-) {
-    if pts.len() == 1 {
-        let p = pts[0];
-        if p.0 >= keep.x0 && p.0 <= keep.x1 && p.1 >= keep.y0 && p.1 <= keep.y1 {
-            out.push(circle(p.0, p.1, w / 2.0));
-        }
-        return;
-    }
-    let period: f64 = dash.iter().sum();
-    let dashed = dash.len() >= 2 && period > 0.0 && period.is_finite();
-    let mut travelled = 0.0_f64;
-    for win in pts.windows(2) {
-        let (a, b) = (win[0], win[1]);
-        let len = (b.0 - a.0).hypot(b.1 - a.1);
-        if !len.is_finite() {
-            continue;
-        }
-        if let Some((t0, t1)) = clip_segment(a, b, keep) {
-            let at = |t: f64| (a.0 + (b.0 - a.0) * t, a.1 + (b.1 - a.1) * t);
-            if !dashed {
-                capsule(at(t0), at(t1), w, out);
-            } else if len > 0.0 {
-                // Walk the dash pattern over the visible part only.
-                let s_start = t0 * len;
-                let s_end = t1 * len;
-                let pos = (travelled + s_start) % period;
-                let (mut k, mut acc) = (0, 0.0);
-                while k + 1 < dash.len() && acc + dash[k] <= pos {
-                    acc += dash[k];
-                    k += 1;
-                }
-                let mut remaining = acc + dash[k] - pos;
-                let mut s = s_start;
-                let mut guard = 0;
-                while s < s_end && guard < 100_000 {
-                    guard += 1;
-                    let e = (s + remaining.max(0.0)).min(s_end);
-                    if k % 2 == 0 {
-                        capsule(at(s / len), at(e / len), w, out);
-                    }
-                    s = e;
-                    k = (k + 1) % dash.len();
-                    remaining = dash[k];
-                }
-            }
-        }
-        travelled += len;
-        if travelled > 1e12 {
-            travelled %= period.max(1.0);
-        }
-    }
 }
 
 #[cfg(test)]

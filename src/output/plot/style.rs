@@ -1,9 +1,9 @@
 //! Colours, dash patterns and marker shapes.
 //!
-//! Each palette entry differs from its neighbours in three ways (hue,
-//! lightness, dash pattern and marker shape), so series stay apart when
-//! printed in greyscale or seen with a colour-vision deficiency. The hues
-//! are muted so that hatching, bands and labels stay readable on top.
+//! Each palette entry differs from its neighbours in hue, lightness, dash
+//! and marker shape, so series stay apart printed in greyscale or seen
+//! with a colour-vision deficiency. The hues are muted so that hatching,
+//! bands and labels stay readable on top.
 
 use super::canvas::Rgb;
 
@@ -24,79 +24,43 @@ pub(crate) enum Marker {
 #[derive(Debug, Clone, Copy)]
 pub(crate) struct Pen {
     pub color: Rgb,
-    /// Alternating visible/gap lengths, in line widths, as they should
-    /// look (round caps are accounted for when stroking). Empty = solid.
-    pub dash: &'static [f64],
+    /// Visible and gap lengths of the dash, in line widths, as they should
+    /// look (round caps included); `None` = solid.
+    pub dash: Option<(f64, f64)>,
     pub marker: Marker,
 }
 
 /// Number of distinct series styles before the palette repeats.
 pub const PALETTE_LEN: usize = 8;
 
+const fn pen(color: Rgb, dash: Option<(f64, f64)>, marker: Marker) -> Pen {
+    Pen {
+        color,
+        dash,
+        marker,
+    }
+}
+
 // Our own order: teal first, then raspberry and olive, so that no
 // neighbouring pair shares lightness, dash and marker.
 const PENS: [Pen; PALETTE_LEN] = [
-    Pen {
-        color: Rgb(0x17, 0x85, 0x7b), // teal
-        dash: &[],
-        marker: Marker::Circle,
-    },
-    Pen {
-        color: Rgb(0xb2, 0x3a, 0x6d), // raspberry
-        dash: &[5.0, 2.5],
-        marker: Marker::Square,
-    },
-    Pen {
-        color: Rgb(0x80, 0x84, 0x1c), // olive
-        dash: &[7.0, 2.5, 1.0, 2.5],
-        marker: Marker::TriangleUp,
-    },
-    Pen {
-        color: Rgb(0x1d, 0x4f, 0x91), // deep blue
-        dash: &[1.0, 2.0],
-        marker: Marker::Diamond,
-    },
-    Pen {
-        color: Rgb(0x4a, 0x4a, 0x4a), // charcoal
-        dash: &[10.0, 3.0],
-        marker: Marker::Cross,
-    },
-    Pen {
-        color: Rgb(0xd4, 0x6f, 0x12), // burnt orange
-        dash: &[6.0, 2.0, 1.0, 2.0, 1.0, 2.0],
-        marker: Marker::TriangleDown,
-    },
-    Pen {
-        color: Rgb(0x7b, 0x4d, 0xa6), // violet
-        dash: &[2.5, 2.0],
-        marker: Marker::Plus,
-    },
-    Pen {
-        color: Rgb(0x3f, 0x97, 0xd0), // sky blue
-        dash: &[12.0, 2.5, 3.0, 2.5],
-        marker: Marker::Hexagon,
-    },
+    pen(Rgb(0x17, 0x85, 0x7b), None, Marker::Circle), // teal
+    pen(Rgb(0xb2, 0x3a, 0x6d), Some((5.0, 2.5)), Marker::Square), // raspberry
+    pen(Rgb(0x80, 0x84, 0x1c), Some((9.0, 3.5)), Marker::TriangleUp), // olive
+    pen(Rgb(0x1d, 0x4f, 0x91), Some((1.0, 2.0)), Marker::Diamond), // deep blue
+    pen(Rgb(0x4a, 0x4a, 0x4a), Some((14.0, 4.0)), Marker::Cross), // charcoal
+    pen(
+        Rgb(0xd4, 0x6f, 0x12),
+        Some((2.5, 2.5)),
+        Marker::TriangleDown,
+    ), // burnt orange
+    pen(Rgb(0x7b, 0x4d, 0xa6), Some((1.0, 4.0)), Marker::Plus), // violet
+    pen(Rgb(0x3f, 0x97, 0xd0), Some((20.0, 3.0)), Marker::Hexagon), // sky blue
 ];
 
 /// The pen for palette index `i` (wrapping).
-pub(crate) fn pen(i: usize) -> Pen {
+pub(crate) fn pen_of(i: usize) -> Pen {
     PENS[i % PALETTE_LEN]
-}
-
-/// Dash lengths in pixels for stroking with round caps of width `w`:
-/// each cap adds half a width at both ends of a visible piece, so pieces
-/// are shortened and gaps lengthened by one width.
-pub(crate) fn dash_px(dash: &[f64], w: f64) -> Vec<f64> {
-    dash.iter()
-        .enumerate()
-        .map(|(i, d)| {
-            if i % 2 == 0 {
-                ((d - 1.0) * w).max(0.0)
-            } else {
-                (d + 1.0) * w
-            }
-        })
-        .collect()
 }
 
 /// Page and text colours.

@@ -15,7 +15,7 @@ use crate::error::PlotError;
 
 /// DejaVu Sans, cut down to the characters charts need
 /// (see `assets/fonts/make-subset.sh`).
-static FONT_BYTES: &[u8] = include_bytes!("../../../assets/fonts/DejaVuSans-subset.ttf");
+pub(crate) static FONT_BYTES: &[u8] = include_bytes!("../../../assets/fonts/DejaVuSans-subset.ttf");
 
 /// Horizontal anchor: which point of the text's box sits on the anchor.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -107,6 +107,11 @@ impl TextFont {
             .ok_or_else(|| PlotError::Font("font has no units per em".into()))?;
         let em_to_scale = font.height_unscaled() / upem;
         Ok(TextFont { font, em_to_scale })
+    }
+
+    /// The em size whose ab_glyph scale (plotters' font size) is `scale`.
+    pub fn em_of_scale(&self, scale: f64) -> f64 {
+        scale / f64::from(self.em_to_scale)
     }
 
     fn scale(&self, size: f64) -> PxScale {

@@ -1,0 +1,214 @@
+//! plotters' `DrawingBackend` over our anti-aliased canvas.
+//!
+//! plotters (chart builder, mesh, series, legends) decides what goes
+//! where; this backend decides how it looks: strokes and fills go through
+//! the canvas' outline rasterizer (smooth edges), and text is laid out by
+//! `text` with each glyph's side bearing and pair kerning, which plotters
+//! 0.3.7's own text path drops. Font sizes are plotters' (ab_glyph pixel
+//! scale), so the legend boxes plotters sizes from the same font fit.
+
+use std::convert::Infallible;
+
+use plotters_backend::text_anchor::{HPos, VPos};
+use plotters_backend::{
+    BackendColor, BackendCoord, BackendStyle, BackendTextStyle, DrawingBackend, DrawingErrorKind,
+    FontTransform,
+};
+
+use super::canvas::{Canvas, Rgb, capsule, circle};
+use super::text::{HAlign, TextFont, TextStyle, VAlign};
+
+type Result<T> = std::result::Result<T, DrawingErrorKind<Infallible>>;
+
+/// The canvas plotters draws on, and the font it writes with.
+pub(crate) struct CanvasBackend<'a> {
+    pub canvas: &'a mut Canvas,
+    pub font: &'a TextFont,
+}
+
+fn rgb(c: &BackendColor) -> (Rgb, f32) {
+    (Rgb(c.rgb.0, c.rgb.1, c.rgb.2), c.alpha as f32)
+}
+
+/// The centre of pixel `p`: plotters addresses pixels, strokes run
+/// through their centres.
+fn centre(p: BackendCoord) -> (f64, f64) {
+    (f64::from(p.0) + 0.5, f64::from(p.1) + 0.5)
+}
+
+impl CanvasBackend<'_> {
+    fn text_style(&self, style: &impl BackendTextStyle) -> TextStyle {
+        let (color, _) = rgb(&style.color());
+        let a = style.anchor();
+        let h = match a.h_pos {
+            HPos::Left => HAlign::Left,
+            HPos::Center => HAlign::Center,
+            HPos::Right => HAlign::Right,
+        };
+        let v = match a.v_pos {
+            VPos::Top => VAlign::Top,
+            VPos::Center => VAlign::Middle,
+            VPos::Bottom => VAlign::Bottom,
+        };
+        let st = TextStyle::new(self.font.em_of_scale(style.size()), color).anchor(h, v);
+        match style.transform() {
+            FontTransform::None | FontTransform::Rotate180 => st,
+            // Axis descriptions read bottom to top.
+            FontTransform::Rotate90 | FontTransform::Rotate270 => st.rotated(),
+        }
+    }
+}
+
+impl DrawingBackend for CanvasBackend<'_> {
+    type ErrorType = Infallible;
+
+    fn get_size(&self) -> (u32, u32) {
+        (self.canvas.width(), self.canvas.height())
+    }
+
+    fn ensure_prepared(&mut self) -> Result<()> {
+        Ok(())
+    }
+
+    fn present(&mut self) -> Result<()> {
+        Ok(())
+    }
+
+    fn draw_pixel(&mut self, p: BackendCoord, color: BackendColor) -> Result<()> {
+        let (c, a) = rgb(&color);
+        self.canvas.blend(i64::from(p.0), i64::from(p.1), c, a);
+        Ok(())
+    }
+
+    fn draw_line<S: BackendStyle>(
+        &mut self,
+        from: BackendCoord,
+        to: BackendCoord,
+        style: &S,
+    ) -> Result<()> {
+        self.draw_path([from, to], style)
+    }
+
+    fn draw_rect<S: BackendStyle>(
+        &mut self,
+        ul: BackendCoord,
+        br: BackendCoord,
+        style: &S,
+        fill: bool,
+    ) -> Result<()> {
+        let (c, a) = rgb(&style.color());
+        let (x0, y0) = (f64::from(ul.0), f64::from(ul.1));
+        let (x1, y1) = (f64::from(br.0) + 1.0, f64::from(br.1) + 1.0);
+        if fill {
+            self.canvas
+                .fill_rect(super::canvas::Rect::new(x0, y0, x1, y1), c, a);
+        } else {
+            let w = f64::from(style.stroke_width().max(1));
+            for r in [
+                (x0, y0, x1, y0 + w),
+                (x0, y1 - w, x1, y1),
+                (x0, y0, x0 + w, y1),
+                (x1 - w, y0, x1, y1),
+            ] {
+                let r = super::canvas::Rect::new(r.0, r.1, r.2, r.3);
+                self.canvas.fill_rect(r, c, a);
+            }
+        }
+        Ok(())
+    }
+
+    fn draw_path<S: BackendStyle, I: IntoIterator<Item = BackendCoord>>(
+        &mut self,
+        path: I,
+        style: &S,
+    ) -> Result<()> {
+        let (c, a) = rgb(&style.color());
+        let pts: Vec<(f64, f64)> = path.into_iter().map(centre).collect();
+        let w = f64::from(style.stroke_width().max(1));
+        // A one-pixel line along a pixel row or column stays crisp (grid,
+        // frame, ticks); everything else is a smooth stroke.
+        if w <= 1.0 && pts.len() == 2 && (pts[0].0 == pts[1].0 || pts[0].1 == pts[1].1) {
+            let (p, q) = (pts[0], pts[1]);
+            let r = super::canvas::Rect::new(
+                p.0.min(q.0) - 0.5,
+                p.1.min(q.1) - 0.5,
+                p.0.max(q.0) + 0.5,
+                p.1.max(q.1) + 0.5,
+            );
+            self.canvas.fill_rect(r, c, a);
+            return Ok(());
+        }
+        let mut polys = Vec::new();
+        for seg in pts.windows(2) {
+            capsule(seg[0], seg[1], w, &mut polys);
+        }
+        if pts.len() == 1 {
+            polys.push(circle(pts[0].0, pts[0].1, w / 2.0));
+        }
+        let clip = self.canvas.bounds();
+        self.canvas.fill_polys(&polys, c, a, clip);
+        Ok(())
+    }
+
+    fn draw_circle<S: BackendStyle>(
+        &mut self,
+        center: BackendCoord,
+        radius: u32,
+        style: &S,
+        fill: bool,
+    ) -> Result<()> {
+        let (x, y) = centre(center);
+        let r = f64::from(radius);
+        if fill {
+            let (c, a) = rgb(&style.color());
+            let clip = self.canvas.bounds();
+            self.canvas.fill_polys(&[circle(x, y, r)], c, a, clip);
+            Ok(())
+        } else {
+            let mut ring: Vec<BackendCoord> = circle(x, y, r)
+                .iter()
+                .map(|p| (p.0.floor() as i32, p.1.floor() as i32))
+                .collect();
+            ring.push(ring[0]);
+            self.draw_path(ring, style)
+        }
+    }
+
+    fn fill_polygon<S: BackendStyle, I: IntoIterator<Item = BackendCoord>>(
+        &mut self,
+        vert: I,
+        style: &S,
+    ) -> Result<()> {
+        let (c, a) = rgb(&style.color());
+        let poly: Vec<(f64, f64)> = vert.into_iter().map(centre).collect();
+        let clip = self.canvas.bounds();
+        self.canvas.fill_polys(&[poly], c, a, clip);
+        Ok(())
+    }
+
+    fn draw_text<TStyle: BackendTextStyle>(
+        &mut self,
+        text: &str,
+        style: &TStyle,
+        pos: BackendCoord,
+    ) -> Result<()> {
+        let st = self.text_style(style);
+        let (x, y) = (f64::from(pos.0), f64::from(pos.1));
+        self.font.draw(self.canvas, text, x, y, &st);
+        Ok(())
+    }
+
+    fn estimate_text_size<TStyle: BackendTextStyle>(
+        &self,
+        text: &str,
+        style: &TStyle,
+    ) -> Result<(u32, u32)> {
+        let em = self.font.em_of_scale(style.size());
+        let w = self.font.width(text, em).ceil() as u32;
+        let h = self.font.line_height(em).ceil() as u32;
+        Ok(match style.transform() {
+            FontTransform::Rotate90 | FontTransform::Rotate270 => (h, w),
+            _ => (w, h),
+        })
+    }
+}

@@ -1,0 +1,1087 @@
+//! A [`Figure`] drawn with plotters' chart machinery on our backend.
+//!
+//! plotters lays out each panel (`ChartBuilder`), draws the mesh, tick
+//! labels and axis descriptions, the series and the legend. What plotters
+//! lacks stays here: panels stacked on one x axis, log axes with 1-2-5
+//! ticks and plain labels, the hatched infeasible side of a limit, and
+//! labels placed where they cover the least data (chosen on the finished
+//! pixels, after plotters has drawn).
+
+use crate::error::PlotError;
+use std::sync::OnceLock;
+
+use plotters::coord::ranged1d::{DefaultFormatting, KeyPointHint, Ranged};
+use plotters::coord::types::RangedCoordf64;
+use plotters::element::DashedPathElement;
+use plotters::prelude::*;
+use plotters::style::{FontStyle, RGBAColor, TextStyle as PTextStyle};
+
+use super::backend::CanvasBackend;
+use super::canvas::{Canvas, Rect, Rgb, capsule, circle, clip_segment};
+use super::style::{self, Marker, Pen, pen_of};
+use super::text::{FONT_BYTES, HAlign, TextFont, TextStyle, VAlign};
+use super::{Axis, Draw, Figure, MAX_PIXELS, MAX_SIDE, MIN_SIDE, MarkStyle, Panel, Side};
+
+type Coords = Cartesian2d<Scale, Scale>;
+type Chart<'a, 'b> = ChartContext<'a, CanvasBackend<'b>, Coords>;
+
+/// Sizes derived from the figure size, in pixels (em sizes for text).
+struct Metrics {
+    base: f64,
+    title: f64,
+    tick: f64,
+    small: f64,
+    note: f64,
+    margin: f64,
+    lw: f64,
+}
+
+impl Metrics {
+    fn new(w: u32, h: u32) -> Self {
+        // 21 px at 1600x1000, so text stays legible when the image is
+        // shown at half size; scaled with the image area.
+        let base = (21.0 * (f64::from(w) * f64::from(h) / 1.6e6).sqrt()).clamp(9.0, 42.0);
+        Metrics {
+            base,
+            title: base * 1.25,
+            tick: base * 0.9,
+            small: base * 0.82,
+            note: base * 0.72,
+            margin: base * 0.8,
+            lw: (base * 0.11).max(1.5).round(),
+        }
+    }
+}
+
+/// One axis in drawing space (log axes in decades).
+#[derive(Clone, Copy)]
+struct Ax {
+    lo: f64,
+    hi: f64,
+    log: bool,
+}
+
+impl Ax {
+    /// A data value in drawing space; `None` where it cannot be drawn.
+    fn t(&self, v: f64) -> Option<f64> {
+        let v = if self.log { v.log10() } else { v };
+        v.is_finite().then_some(v)
+    }
+
+    /// A value clamped to the visible range (infinite ends run to it).
+    fn clamped(&self, v: f64) -> Option<f64> {
+        match v {
+            v if v == f64::INFINITY => Some(self.hi),
+            v if v == f64::NEG_INFINITY => Some(self.lo),
+            v => self.t(v).map(|t| t.clamp(self.lo, self.hi)),
+        }
+    }
+
+    fn contains(&self, v: f64) -> bool {
+        self.t(v).is_some_and(|t| t >= self.lo && t <= self.hi)
+    }
+
+    /// Major and minor ticks for about `n` labels: plotters' round steps
+    /// on a linear axis; decades (and 2, 5 or every digit on short
+    /// ranges) on a log axis.
+    fn ticks(&self, n: usize) -> (Vec<f64>, Vec<f64>) {
+        if !self.log {
+            let r: RangedCoordf64 = (self.lo..self.hi).into();
+            return (r.key_points(n.max(2)), Vec::new());
+        }
+        let span = self.hi - self.lo;
+        let step = ((span / n.max(1) as f64).ceil() as i32).max(1);
+        let room = n.max(2) as f64;
+        let mults: &[i32] = if span * 3.0 > room + 1.0 {
+            &[1]
+        } else if span * 9.0 > room + 1.0 {
+            &[1, 2, 5]
+        } else {
+            &[1, 2, 3, 4, 5, 6, 7, 8, 9]
+        };
+        let (mut bold, mut light) = (Vec::new(), Vec::new());
+        for d in (self.lo.floor() as i32)..=(self.hi.ceil() as i32) {
+            for k in 1..=9 {
+                let v = f64::from(d) + f64::from(k).log10();
+                if v < self.lo - 1e-9 || v > self.hi + 1e-9 {
+                    continue;
+                }
+                if (k == 1 && d.rem_euclid(step) == 0) || (step == 1 && mults.contains(&k)) {
+                    bold.push(v);
+                } else if span < 7.0 {
+                    light.push(v);
+                }
+            }
+        }
+        (bold, light)
+    }
+
+    /// A tick label: plain numbers, k/M/G above 10^4, powers of ten as
+    /// `1e-5` below 10^-3 (no SI prefixes below one: they misread on
+    /// axes in percent or seconds).
+    fn label(&self, v: f64, step: f64) -> String {
+        if self.log {
+            let x = 10f64.powf(v);
+            return fmt_tick(x, x);
+        }
+        fmt_tick(v, step)
+    }
+}
+
+/// An axis for plotters: the range in drawing space and our own ticks
+/// (plotters' `WithKeyPoints` would do, but leaves the mesh without its
+/// label formatter).
+#[derive(Clone)]
+struct Scale {
+    ax: Ax,
+    bold: Vec<f64>,
+    light: Vec<f64>,
+}
+
+impl Scale {
+    /// The axis with about `n` labelled ticks.
+    fn new(ax: Ax, n: usize) -> Self {
+        let (bold, light) = ax.ticks(n);
+        Scale { ax, bold, light }
+    }
+
+    /// The label of tick `v` (decimals from the tick step).
+    fn label(&self, v: f64) -> String {
+        let step = self.bold.windows(2).map(|w| w[1] - w[0]).next();
+        self.ax.label(v, step.unwrap_or(1.0))
+    }
+}
+
+impl Ranged for Scale {
+    type FormatOption = DefaultFormatting;
+    type ValueType = f64;
+
+    /// plotters' own linear map (`RangedCoordf64`).
+    fn map(&self, v: &f64, limit: (i32, i32)) -> i32 {
+        let r: RangedCoordf64 = (self.ax.lo..self.ax.hi).into();
+        r.map(v, limit)
+    }
+
+    fn key_points<H: KeyPointHint>(&self, hint: H) -> Vec<f64> {
+        match hint.weight().allow_light_points() {
+            true => self.light.clone(),
+            false => self.bold.clone(),
+        }
+    }
+
+    fn range(&self) -> std::ops::Range<f64> {
+        self.ax.lo..self.ax.hi
+    }
+}
+
+fn fmt_tick(v: f64, step: f64) -> String {
+    let a = v.abs();
+    if a < 1e-12 * step.abs().max(1e-300) || v == 0.0 {
+        return "0".into();
+    }
+    if a >= 1e4 {
+        let (d, s) = [(1e9, "G"), (1e6, "M"), (1e3, "k")]
+            .into_iter()
+            .find(|(d, _)| a >= *d)
+            .unwrap_or((1e3, "k"));
+        return format!("{}{s}", fmt_tick(v / d, step / d));
+    }
+    let digits = |x: f64| x.abs().log10().floor() as i32;
+    if a < 1e-3 {
+        let p = (digits(v) - digits(step)).max(0) as usize;
+        return format!("{v:.p$e}");
+    }
+    let dec = (-digits(step)).max(0) as usize;
+    format!("{v:.dec$}")
+}
+
+/// Why a figure cannot be drawn at all.
+fn validate(fig: &Figure) -> Result<(), PlotError> {
+    let (w, h) = (fig.width, fig.height);
+    if !(MIN_SIDE..=MAX_SIDE).contains(&w)
+        || !(MIN_SIDE..=MAX_SIDE).contains(&h)
+        || u64::from(w) * u64::from(h) > MAX_PIXELS
+    {
+        return Err(PlotError::InvalidSize {
+            width: w,
+            height: h,
+            min_side: MIN_SIDE,
+            max_side: MAX_SIDE,
+            max_pixels: MAX_PIXELS,
+        });
+    }
+    if fig.panels.is_empty() {
+        return Err(PlotError::NoPanels);
+    }
+    let axes = std::iter::once(("x", &fig.x)).chain(fig.panels.iter().map(|p| ("y", &p.y)));
+    for (name, a) in axes {
+        if let Some((lo, hi)) = a.range {
+            let reason = if !(lo.is_finite() && hi.is_finite()) {
+                Some("ends must be finite")
+            } else if a.log && (lo <= 0.0 || hi <= 0.0) {
+                Some("a log axis needs positive ends")
+            } else {
+                None
+            };
+            if let Some(reason) = reason {
+                let axis = format!("{name} ({})", a.label);
+                return Err(PlotError::InvalidRange {
+                    axis,
+                    lo,
+                    hi,
+                    reason,
+                });
+            }
+        }
+    }
+    Ok(())
+}
+
+/// The visible range of an axis: the explicit one, else the values'
+/// span padded by 5 % (a linear range that starts near zero starts at it).
+fn fit(axis: &Axis, values: impl Iterator<Item = f64>) -> Ax {
+    let probe = Ax {
+        lo: 0.0,
+        hi: 1.0,
+        log: axis.log,
+    };
+    let (mut lo, mut hi, explicit) = match axis.range {
+        Some((a, b)) => (probe.t(a.min(b)).unwrap(), probe.t(a.max(b)).unwrap(), true),
+        None => {
+            let (lo, hi) = values
+                .filter_map(|v| probe.t(v))
+                .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
+                    (a.min(v), b.max(v))
+                });
+            if lo.is_finite() {
+                (lo, hi, false)
+            } else {
+                (0.0, 1.0, true)
+            }
+        }
+    };
+    if hi - lo <= 1e-12 * lo.abs().max(1.0) {
+        let d = if axis.log {
+            0.5
+        } else {
+            0.5 * lo.abs().max(1.0)
+        };
+        (lo, hi) = (lo - d, hi + d);
+    } else if !explicit {
+        let pad = 0.05 * (hi - lo);
+        if !axis.log && lo >= 0.0 && lo < 0.3 * (hi - lo) {
+            lo = 0.0;
+        } else {
+            lo -= pad;
+        }
+        hi += pad;
+    }
+    Ax {
+        lo,
+        hi,
+        log: axis.log,
+    }
+}
+
+/// Maximal stretches of a series inside the view, in drawing space:
+/// non-drawable points break the line, segments are cut at the edges.
+fn runs(points: &[(f64, f64)], x: &Ax, y: &Ax) -> Vec<Vec<(f64, f64)>> {
+    let view = Rect::new(x.lo, y.lo, x.hi, y.hi);
+    let mut out: Vec<Vec<(f64, f64)>> = Vec::new();
+    let mut prev: Option<(f64, f64)> = None;
+    let mut open = false;
+    for &(px, py) in points {
+        let Some(p) = x.t(px).zip(y.t(py)) else {
+            (prev, open) = (None, false);
+            continue;
+        };
+        match prev {
+            None if view.contains_rect(&Rect::new(p.0, p.1, p.0, p.1)) => {
+                out.push(vec![p]);
+                open = true;
+            }
+            None => {}
+            Some(q) => match clip_segment(q, p, &view) {
+                Some((t0, t1)) => {
+                    let at = |t: f64| (q.0 + (p.0 - q.0) * t, q.1 + (p.1 - q.1) * t);
+                    if !open || t0 > 0.0 {
+                        out.push(vec![at(t0)]);
+                    }
+                    if let Some(run) = out.last_mut() {
+                        run.push(at(t1));
+                    }
+                    open = t1 >= 1.0;
+                }
+                None => open = false,
+            },
+        }
+        prev = Some(p);
+    }
+    out
+}
+
+/// A staircase that holds each value until the next point's x.
+fn staircase(points: &[(f64, f64)]) -> Vec<(f64, f64)> {
+    let mut out = Vec::with_capacity(points.len() * 2);
+    for w in points.windows(2) {
+        out.extend([w[0], (w[1].0, w[0].1)]);
+    }
+    out.extend(points.last());
+    out
+}
+
+fn color(c: Rgb, alpha: f64) -> RGBAColor {
+    RGBAColor(c.0, c.1, c.2, alpha)
+}
+
+/// The outline of a marker of radius `r` about the origin.
+fn marker_outline(k: Marker, r: f64) -> Vec<(i32, i32)> {
+    let reg = |n: usize, rad: f64, rot: f64| -> Vec<(f64, f64)> {
+        (0..n)
+            .map(|i| {
+                let t = rot + std::f64::consts::TAU * i as f64 / n as f64;
+                (rad * t.cos(), rad * t.sin())
+            })
+            .collect()
+    };
+    let bar = |a: f64, b: f64| -> Vec<(f64, f64)> {
+        // A plus of half-width b and arm a, turned for a cross.
+        let p = [(b, b), (b, a), (-b, a), (-b, b), (-a, b), (-a, -b)];
+        let q = [(-b, -b), (-b, -a), (b, -a), (b, -b), (a, -b), (a, b)];
+        p.iter().chain(&q).copied().collect()
+    };
+    use std::f64::consts::{FRAC_PI_2, FRAC_PI_4};
+    let pts = match k {
+        Marker::Circle => circle(0.0, 0.0, r),
+        Marker::Square => reg(4, r * 1.15, FRAC_PI_4),
+        Marker::TriangleUp => reg(3, r * 1.25, -FRAC_PI_2),
+        Marker::TriangleDown => reg(3, r * 1.25, FRAC_PI_2),
+        Marker::Diamond => reg(4, r * 1.2, 0.0),
+        Marker::Hexagon => reg(6, r * 1.05, 0.0),
+        Marker::Plus => bar(r * 1.15, r * 0.3),
+        Marker::Cross => bar(r * 1.15, r * 0.3)
+            .into_iter()
+            .map(|(x, y)| ((x - y) * FRAC_PI_4.cos(), (x + y) * FRAC_PI_4.cos()))
+            .collect(),
+    };
+    pts.iter()
+        .map(|p| (p.0.round() as i32, p.1.round() as i32))
+        .collect()
+}
+
+/// Dash and gap in pixels for a pen at line width `w` (round caps add
+/// half a width at each end of a dash).
+fn dash_px(pen: &Pen, w: f64) -> (i32, i32) {
+    match pen.dash {
+        Some((on, off)) => (
+            (((on - 1.0) * w).round() as i32).max(1),
+            ((off + 1.0) * w).round() as i32,
+        ),
+        None => (1_000_000, 1),
+    }
+}
+
+/// A label still to be placed: candidate spots in pixels, best first.
+struct Pending {
+    text: String,
+    spots: Vec<(f64, f64, TextStyle)>,
+    area: Rect,
+    /// A dot at data coordinates the label points at.
+    pointer: Option<(f64, f64)>,
+}
+
+/// The chart font registered with plotters, so that the legend boxes it
+/// sizes fit the text this backend draws.
+fn register_font() -> Result<(), PlotError> {
+    static DONE: OnceLock<bool> = OnceLock::new();
+    let ok = *DONE.get_or_init(|| {
+        plotters::style::register_font("sans-serif", FontStyle::Normal, FONT_BYTES).is_ok()
+    });
+    ok.then_some(())
+        .ok_or_else(|| PlotError::Font("plotters refused the chart font".into()))
+}
+
+fn err(e: impl std::fmt::Display) -> PlotError {
+    PlotError::Draw(e.to_string())
+}
+
+/// Split `text` into lines no wider than `max_w` at word boundaries (a
+/// single longer word keeps its own line: a legend is never cut short).
+fn wrap(font: &TextFont, text: &str, em: f64, max_w: f64) -> Vec<String> {
+    let mut lines: Vec<String> = Vec::new();
+    // Only plain spaces break: a number keeps its unit (no-break space).
+    for word in text.split(' ').filter(|w| !w.is_empty()) {
+        match lines.last_mut() {
+            Some(l) if font.width(&format!("{l} {word}"), em) <= max_w => {
+                l.push(' ');
+                l.push_str(word);
+            }
+            _ => lines.push(word.to_string()),
+        }
+    }
+    lines
+}
+
+/// Where everything goes: sizes in pixels and the axes.
+struct Layout {
+    /// Wrapped legend labels per panel: (series index, lines).
+    legends: Vec<Vec<(usize, Vec<String>)>>,
+    legend_w: f64,
+    sample_w: f64,
+    /// Top of the first panel, panel heights, the gap between panels.
+    top: f64,
+    heights: Vec<f64>,
+    gap: f64,
+    x_area: f64,
+    y_area: f64,
+    plot_w: f64,
+    xs: Scale,
+    ys: Vec<Scale>,
+}
+
+/// Size the legend column, the title and note, the panels and the axes.
+fn layout(fig: &Figure, font: &TextFont, m: &Metrics) -> Result<Layout, PlotError> {
+    let (w, h) = (f64::from(fig.width), f64::from(fig.height));
+    let line = |em: f64| font.line_height(em);
+    let too_small = PlotError::TooSmall {
+        width: fig.width,
+        height: fig.height,
+        panels: fig.panels.len(),
+    };
+    // Legend column: the widest wrapped label decides its width.
+    let sample_w = (2.6 * m.base).round();
+    let legends: Vec<Vec<(usize, Vec<String>)>> = (fig.panels.iter())
+        .map(|p| {
+            (p.series.iter().enumerate())
+                .filter(|(_, s)| !s.label.trim().is_empty())
+                .map(|(i, s)| (i, wrap(font, &s.label, m.tick, 0.2 * w)))
+                .collect()
+        })
+        .collect();
+    let text_w = (legends.iter().flatten().flat_map(|(_, l)| l))
+        .map(|l| font.width(l, m.tick))
+        .fold(0.0, f64::max);
+    let legend_w = match text_w > 0.0 {
+        true => text_w + sample_w + 2.0 * m.base,
+        false => m.base,
+    };
+    // Vertical: title, panels by weight, x axis, note.
+    let title_h = match fig.title.trim().is_empty() {
+        true => 0.0,
+        false => line(m.title) + 0.5 * m.base,
+    };
+    let top = m.margin + title_h;
+    let note_h = (fig.note.as_ref()).map_or(0.0, |_| line(m.note) + 0.4 * m.base);
+    let x_area = (0.65 * m.base + line(m.tick) + line(m.base)).round();
+    let gap = (0.9 * m.base).round();
+    let n = fig.panels.len();
+    let avail = h - top - m.margin * 0.7 - note_h - x_area - gap * (n - 1) as f64;
+    let weight = |p: &Panel| match p.height_weight > 0.0 && p.height_weight.is_finite() {
+        true => p.height_weight,
+        false => 1.0,
+    };
+    let total: f64 = fig.panels.iter().map(weight).sum();
+    let heights: Vec<f64> = (fig.panels.iter())
+        .map(|p| (avail * weight(p) / total).floor())
+        .collect();
+    if heights.iter().any(|ph| *ph < 2.5 * line(m.tick)) {
+        return Err(too_small);
+    }
+    // Axes: x fitted to everything drawn along it, each y to what is
+    // visible in that x range.
+    let xv = fig.panels.iter().flat_map(|p| {
+        let s = p.series.iter().flat_map(|s| s.points.iter().map(|q| q.0));
+        let v = (p.vmarks.iter().map(|v| v.x)).chain(p.notes.iter().map(|a| a.x));
+        let b = p.bands.iter().flat_map(|b| [b.from, b.to]);
+        s.chain(v).chain(b.filter(|v| v.is_finite()))
+    });
+    let xa = fit(&fig.x, xv);
+    let ys: Vec<Scale> = (fig.panels.iter().zip(&heights))
+        .map(|(p, ph)| {
+            let s = (p.series.iter().flat_map(|s| s.points.iter()))
+                .filter(|q| xa.contains(q.0))
+                .map(|q| q.1);
+            let l = (p.limits.iter().map(|l| l.value)).chain(p.notes.iter().map(|a| a.y));
+            let b = (p.hbands.iter().flat_map(|b| [b.from, b.to])).filter(|v| v.is_finite());
+            let n = ((ph / (2.2 * line(m.tick))) as usize).clamp(2, 9);
+            Scale::new(fit(&p.y, s.chain(l).chain(b)), n)
+        })
+        .collect();
+    let tick_w = (ys.iter().flat_map(|y| y.bold.iter().map(|v| y.label(*v))))
+        .map(|l| font.width(&l, m.tick))
+        .fold(0.0, f64::max);
+    let y_area = (tick_w + 0.9 * m.base + line(m.base)).round();
+    let plot_w = w - m.margin.round() - y_area - m.margin - legend_w;
+    if plot_w < 6.0 * m.base {
+        return Err(too_small);
+    }
+    Ok(Layout {
+        legends,
+        legend_w,
+        sample_w,
+        top,
+        heights,
+        gap,
+        x_area,
+        y_area,
+        plot_w,
+        xs: Scale::new(xa, (plot_w / (5.5 * m.base)) as usize),
+        ys,
+    })
+}
+
+/// plotters' text style for the chart font at em size `em`.
+fn text_style(font: &TextFont, em: f64, c: Rgb) -> PTextStyle<'static> {
+    let size = em / font.em_of_scale(1.0);
+    PTextStyle {
+        color: color(c, 1.0).to_backend_color(),
+        ..PTextStyle::from(("sans-serif", size).into_font())
+    }
+}
+
+/// Draw the whole figure.
+pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
+    validate(fig)?;
+    register_font()?;
+    let font = TextFont::embedded()?;
+    let m = Metrics::new(fig.width, fig.height);
+    let lay = layout(fig, &font, &m)?;
+    let (w, h) = (f64::from(fig.width), f64::from(fig.height));
+    let n = fig.panels.len();
+    let mut canvas = Canvas::new(fig.width, fig.height, style::BACKGROUND);
+    let mut pending: Vec<Pending> = Vec::new();
+    {
+        let backend = CanvasBackend {
+            canvas: &mut canvas,
+            font: &font,
+        };
+        let root = backend.into_drawing_area();
+        let (mut y0, mut legend_end) = (lay.top, lay.top);
+        for (i, p) in fig.panels.iter().enumerate() {
+            let bottom = i + 1 == n;
+            let x_area = if bottom { lay.x_area } else { 0.0 };
+            let area = root.clone().shrink(
+                (m.margin.round() as i32, y0.round() as i32),
+                (
+                    (lay.y_area + lay.plot_w) as u32,
+                    (lay.heights[i] + x_area) as u32,
+                ),
+            );
+            let mut chart = ChartBuilder::on(&area)
+                .set_label_area_size(LabelAreaPosition::Left, lay.y_area as i32)
+                .set_label_area_size(LabelAreaPosition::Bottom, x_area as i32)
+                .build_cartesian_2d(lay.xs.clone(), lay.ys[i].clone())
+                .map_err(err)?;
+            let (xs, ys) = (&lay.xs, &lay.ys[i]);
+            let xf = |v: &f64| if bottom { xs.label(*v) } else { String::new() };
+            let yf = |v: &f64| ys.label(*v);
+            chart
+                .configure_mesh()
+                .x_desc(if bottom { fig.x.label.as_str() } else { "" })
+                .y_desc(p.y.label.as_str())
+                .x_label_formatter(&xf)
+                .y_label_formatter(&yf)
+                .x_labels(xs.bold.len() + xs.light.len())
+                .y_labels(ys.bold.len() + ys.light.len())
+                .label_style(text_style(&font, m.tick, style::TEXT))
+                .axis_desc_style(text_style(&font, m.base, style::TEXT))
+                .bold_line_style(color(style::GRID, 1.0))
+                .light_line_style(color(style::GRID_MINOR, 1.0))
+                .axis_style(color(style::FRAME, 1.0))
+                .set_all_tick_mark_size((0.35 * m.base) as i32)
+                .draw()
+                .map_err(err)?;
+            draw_panel(&mut chart, p, &xs.ax, &ys.ax, &m, &mut pending)?;
+            draw_marks(&mut chart, p, &xs.ax, &ys.ax, &m, &mut pending)?;
+            draw_series(&mut chart, p, &xs.ax, &ys.ax, &m)?;
+            let (px, py) = chart.plotting_area().get_pixel_range();
+            let frame = [(px.start, py.start), (px.end, py.end)];
+            root.draw(&Rectangle::new(frame, color(style::FRAME, 1.0)))
+                .map_err(err)?;
+            if !lay.legends[i].is_empty() {
+                // The legend gets a chart of its own in the column right of
+                // the plot (plotters keeps a legend inside its chart's
+                // area), beside its panel or below the legend above when
+                // that runs longer (plotters' lines are 1.25 em).
+                let lines: usize = lay.legends[i].iter().map(|(_, l)| l.len()).sum();
+                let start = y0.max(legend_end);
+                legend_end = start
+                    + lines as f64 * 1.25 * text_style(&font, m.tick, style::TEXT).font.get_size()
+                    + lay.gap;
+                let la = root.clone().shrink(
+                    (px.end + (0.6 * m.base) as i32, start.round() as i32),
+                    (lay.legend_w as u32, (h - start).max(1.0) as u32),
+                );
+                draw_legend(&la, p, &lay.legends[i], &font, &m, lay.sample_w)?;
+            }
+            y0 += lay.heights[i] + lay.gap;
+        }
+        root.present().map_err(err)?;
+    }
+    // Title and footer, both from the left margin.
+    if let Some(t) = Some(fig.title.trim()).filter(|t| !t.is_empty()) {
+        let size = m.title * ((w - 2.0 * m.margin) / font.width(t, m.title)).min(1.0);
+        let st = TextStyle::new(size, style::TEXT);
+        font.draw(&mut canvas, t, m.margin, m.margin, &st);
+    }
+    if let Some(note) = &fig.note {
+        let st = TextStyle::new(m.note, style::TEXT_SOFT).anchor(HAlign::Left, VAlign::Bottom);
+        font.draw(&mut canvas, note.trim(), m.margin, h - m.margin * 0.7, &st);
+    }
+    place_labels(&mut canvas, &font, &m, pending);
+    Ok(canvas)
+}
+
+/// Bands and hatched limits under the data; their labels queued for
+/// placement.
+fn draw_panel<'a, 'b: 'a>(
+    chart: &mut Chart<'a, 'b>,
+    p: &Panel,
+    xs: &Ax,
+    ys: &Ax,
+    m: &Metrics,
+    pending: &mut Vec<Pending>,
+) -> Result<(), PlotError> {
+    let (px, py) = chart.plotting_area().get_pixel_range();
+    let plot = Rect::new(
+        f64::from(px.start),
+        f64::from(py.start),
+        f64::from(px.end),
+        f64::from(py.end),
+    );
+    let at = |x: f64, y: f64| {
+        let (a, b) = chart.backend_coord(&(x, y));
+        (f64::from(a), f64::from(b))
+    };
+    let area = chart.plotting_area().strip_coord_spec();
+    let shift = |p: (f64, f64)| {
+        (
+            (p.0 - plot.x0).round() as i32,
+            (p.1 - plot.y0).round() as i32,
+        )
+    };
+    let b = m.base;
+    let small = |c| TextStyle::new(m.small, c);
+    let fill = |r: Rect, c: Rgb, a: f64| {
+        area.draw(&Rectangle::new(
+            [shift((r.x0, r.y0)), shift((r.x1, r.y1))],
+            color(c, a).filled(),
+        ))
+        .map_err(err)
+    };
+    for band in &p.hbands {
+        let (Some(a), Some(c)) = (ys.clamped(band.from), ys.clamped(band.to)) else {
+            continue;
+        };
+        let r = Rect::new(plot.x0, at(xs.lo, a).1, plot.x1, at(xs.lo, c).1);
+        fill(r, style::YBAND, 0.16)?;
+        let mid = (r.y0 + r.y1) / 2.0;
+        let spots = [
+            (plot.x0 + 0.5 * b, HAlign::Left),
+            (plot.x1 - 0.5 * b, HAlign::Right),
+        ]
+        .into_iter()
+        .flat_map(|(x, hh)| {
+            let s = small(style::TEXT_SOFT);
+            [
+                (x, r.y0 - 0.2 * b, s.anchor(hh, VAlign::Bottom)),
+                (x, r.y1 + 0.2 * b, s.anchor(hh, VAlign::Top)),
+                (x, mid, s.anchor(hh, VAlign::Middle)),
+            ]
+        });
+        queue(pending, &band.label, spots.collect(), plot, None);
+    }
+    for band in &p.bands {
+        let (Some(a), Some(c)) = (xs.clamped(band.from), xs.clamped(band.to)) else {
+            continue;
+        };
+        let r = Rect::new(at(a, ys.lo).0, plot.y0, at(c, ys.lo).0, plot.y1);
+        fill(r, style::XBAND, 0.14)?;
+        let s = small(style::TEXT_SOFT);
+        let cx = (r.x0 + r.x1) / 2.0;
+        let spots = vec![
+            (
+                cx,
+                plot.y1 - 0.3 * b,
+                s.anchor(HAlign::Center, VAlign::Bottom),
+            ),
+            (cx, plot.y0 + 0.3 * b, s.anchor(HAlign::Center, VAlign::Top)),
+            (
+                cx,
+                (plot.y0 + plot.y1) / 2.0,
+                s.anchor(HAlign::Center, VAlign::Middle),
+            ),
+        ];
+        queue(pending, &band.label, spots, plot, None);
+    }
+    for l in &p.limits {
+        let Some(v) = ys.clamped(l.value) else {
+            continue;
+        };
+        let y = at(xs.lo, v).1;
+        let bad = match l.bad_side {
+            Side::Above => Rect::new(plot.x0, plot.y0, plot.x1, y),
+            Side::Below => Rect::new(plot.x0, y, plot.x1, plot.y1),
+        };
+        if bad.height() >= 1.0 {
+            fill(bad, style::LIMIT, 0.05)?;
+            // Diagonal hatch, aligned to the canvas so panels line up.
+            let s = (0.7 * b).max(3.0);
+            let hatch = color(style::LIMIT, 0.22).stroke_width(1);
+            for k in ((bad.x0 + bad.y0) / s).floor() as i64..=((bad.x1 + bad.y1) / s).ceil() as i64
+            {
+                let c0 = k as f64 * s;
+                let (p0, p1) = ((c0 - bad.y1, bad.y1), (c0 - bad.y0, bad.y0));
+                if let Some((t0, t1)) = clip_segment(p0, p1, &bad) {
+                    let at_t = |t: f64| shift((p0.0 + (p1.0 - p0.0) * t, p0.1 + (p1.1 - p0.1) * t));
+                    area.draw(&PathElement::new(vec![at_t(t0), at_t(t1)], hatch))
+                        .map_err(err)?;
+                }
+            }
+        }
+        if !ys.contains(l.value) {
+            continue;
+        }
+        let line = color(style::LIMIT, 1.0).stroke_width(2);
+        area.draw(&PathElement::new(
+            vec![shift((plot.x0, y)), shift((plot.x1, y))],
+            line,
+        ))
+        .map_err(err)?;
+        let s = small(style::LIMIT);
+        let mut spots = Vec::new();
+        for (x, hh) in [
+            (plot.x1 - 0.5 * b, HAlign::Right),
+            (plot.x0 + 0.5 * b, HAlign::Left),
+            ((plot.x0 + plot.x1) / 2.0, HAlign::Center),
+        ] {
+            let above = (x, y - 0.3 * b, s.anchor(hh, VAlign::Bottom));
+            let below = (x, y + 0.3 * b, s.anchor(hh, VAlign::Top));
+            spots.extend(match l.bad_side {
+                Side::Above => [above, below],
+                Side::Below => [below, above],
+            });
+        }
+        queue(pending, &l.label, spots, plot, None);
+    }
+    Ok(())
+}
+
+/// Vertical marks under the data, the caption and the notes; their
+/// labels queued for placement.
+fn draw_marks<'a, 'b: 'a>(
+    chart: &mut Chart<'a, 'b>,
+    p: &Panel,
+    xs: &Ax,
+    ys: &Ax,
+    m: &Metrics,
+    pending: &mut Vec<Pending>,
+) -> Result<(), PlotError> {
+    let (px, py) = chart.plotting_area().get_pixel_range();
+    let plot = Rect::new(
+        f64::from(px.start),
+        f64::from(py.start),
+        f64::from(px.end),
+        f64::from(py.end),
+    );
+    let at = |x: f64, y: f64| {
+        let (a, b) = chart.backend_coord(&(x, y));
+        (f64::from(a), f64::from(b))
+    };
+    let area = chart.plotting_area().strip_coord_spec();
+    let shift = |p: (f64, f64)| {
+        (
+            (p.0 - plot.x0).round() as i32,
+            (p.1 - plot.y0).round() as i32,
+        )
+    };
+    let b = m.base;
+    let small = |c| TextStyle::new(m.small, c);
+    for vm in &p.vmarks {
+        if !xs.contains(vm.x) {
+            continue;
+        }
+        let x = at(xs.t(vm.x).unwrap_or(xs.lo), ys.lo).0;
+        let st = color(style::MARK, 0.9).stroke_width(2);
+        let ends = vec![shift((x, plot.y0)), shift((x, plot.y1))];
+        let (on, off) = match vm.style {
+            MarkStyle::Solid => (1_000_000, 1),
+            MarkStyle::Dashed => (7, 6),
+            MarkStyle::Dotted => (1, 5),
+        };
+        area.draw(&DashedPathElement::new(ends, on, off, st))
+            .map_err(err)?;
+        let s = small(style::MARK);
+        let d = 0.3 * b;
+        let spots = vec![
+            (
+                x + d,
+                plot.y0 + 0.4 * b,
+                s.anchor(HAlign::Right, VAlign::Top).rotated(),
+            ),
+            (
+                x - d,
+                plot.y0 + 0.4 * b,
+                s.anchor(HAlign::Right, VAlign::Bottom).rotated(),
+            ),
+            (
+                x + d,
+                plot.y1 - 0.4 * b,
+                s.anchor(HAlign::Left, VAlign::Top).rotated(),
+            ),
+            (
+                x - d,
+                plot.y1 - 0.4 * b,
+                s.anchor(HAlign::Left, VAlign::Bottom).rotated(),
+            ),
+            (
+                x + d,
+                plot.y0 + 0.3 * b,
+                s.anchor(HAlign::Left, VAlign::Top),
+            ),
+            (
+                x - d,
+                plot.y0 + 0.3 * b,
+                s.anchor(HAlign::Right, VAlign::Top),
+            ),
+            (
+                x + d,
+                plot.y1 - 0.3 * b,
+                s.anchor(HAlign::Left, VAlign::Bottom),
+            ),
+            (
+                x - d,
+                plot.y1 - 0.3 * b,
+                s.anchor(HAlign::Right, VAlign::Bottom),
+            ),
+        ];
+        queue(pending, &vm.label, spots, plot, None);
+    }
+    let s = small(style::TEXT_SOFT);
+    let inset = (
+        plot.x0 + 0.5 * b,
+        plot.x1 - 0.5 * b,
+        plot.y0 + 0.3 * b,
+        plot.y1 - 0.3 * b,
+    );
+    let corners = vec![
+        (inset.0, inset.3, s.anchor(HAlign::Left, VAlign::Bottom)),
+        (inset.1, inset.3, s.anchor(HAlign::Right, VAlign::Bottom)),
+        (inset.0, inset.2, s.anchor(HAlign::Left, VAlign::Top)),
+        (inset.1, inset.2, s.anchor(HAlign::Right, VAlign::Top)),
+    ];
+    queue(pending, &p.caption, corners, plot, None);
+    for a in &p.notes {
+        if !(xs.contains(a.x) && ys.contains(a.y)) {
+            continue;
+        }
+        let (x, y) = at(xs.t(a.x).unwrap_or(0.0), ys.t(a.y).unwrap_or(0.0));
+        let s = small(style::TEXT);
+        let mut spots = Vec::new();
+        for d in [1.1 * b, 2.2 * b] {
+            spots.extend([
+                (x + d, y - d * 0.7, s.anchor(HAlign::Left, VAlign::Bottom)),
+                (x - d, y - d * 0.7, s.anchor(HAlign::Right, VAlign::Bottom)),
+                (x + d, y + d * 0.7, s.anchor(HAlign::Left, VAlign::Top)),
+                (x - d, y + d * 0.7, s.anchor(HAlign::Right, VAlign::Top)),
+            ]);
+        }
+        // Notes point at data: placed first, with their dot.
+        pending.insert(
+            pending.iter().take_while(|q| q.pointer.is_some()).count(),
+            Pending {
+                text: a.text.trim().to_string(),
+                spots,
+                area: plot,
+                pointer: Some((x, y)),
+            },
+        );
+    }
+    Ok(())
+}
+
+fn queue(
+    pending: &mut Vec<Pending>,
+    text: &str,
+    spots: Vec<(f64, f64, TextStyle)>,
+    area: Rect,
+    pointer: Option<(f64, f64)>,
+) {
+    if !text.trim().is_empty() {
+        pending.push(Pending {
+            text: text.trim().to_string(),
+            spots,
+            area,
+            pointer,
+        });
+    }
+}
+
+/// The series through plotters (lines, dashes, markers).
+fn draw_series<'a, 'b: 'a>(
+    chart: &mut Chart<'a, 'b>,
+    p: &Panel,
+    xs: &Ax,
+    ys: &Ax,
+    m: &Metrics,
+) -> Result<(), PlotError> {
+    let lw = m.lw;
+    let r = m.base * 0.24;
+    for s in &p.series {
+        let pen = pen_of(s.style.0);
+        let line = matches!(s.draw, Draw::Line | Draw::LineAndMarkers | Draw::Steps);
+        let marks = matches!(s.draw, Draw::Markers | Draw::LineAndMarkers);
+        let pts = if s.draw == Draw::Steps {
+            staircase(&s.points)
+        } else {
+            s.points.clone()
+        };
+        let runs = runs(&pts, xs, ys);
+        let (on, off) = dash_px(&pen, lw);
+        let ink = color(pen.color, 1.0);
+        let stroke = ink.stroke_width(lw as u32);
+        let shape = marker_outline(pen.marker, r);
+        if line {
+            for run in &runs {
+                chart
+                    .draw_series(DashedLineSeries::new(run.clone(), on, off, stroke))
+                    .map_err(err)?;
+            }
+        }
+        if marks {
+            // With a line, markers only identify the series: at least 10
+            // radii apart, staggered by series; without one every point.
+            let spacing = if line { 10.0 * r } else { 0.0 };
+            let mut travelled = spacing * (s.style.0 % 4) as f64 / 4.0;
+            let mut kept = Vec::new();
+            for run in &runs {
+                let mut prev: Option<(i32, i32)> = None;
+                for q in run {
+                    let c = chart.backend_coord(q);
+                    if let Some(o) = prev {
+                        travelled += f64::from(c.0 - o.0).hypot(f64::from(c.1 - o.1));
+                    }
+                    prev = Some(c);
+                    if travelled >= spacing {
+                        travelled = 0.0;
+                        kept.push(*q);
+                    }
+                }
+            }
+            let shape = shape.clone();
+            chart
+                .draw_series(
+                    kept.into_iter()
+                        .map(|q| EmptyElement::at(q) + Polygon::new(shape.clone(), ink.filled())),
+                )
+                .map_err(err)?;
+        }
+    }
+    Ok(())
+}
+
+/// Place each queued label at the candidate spot that stays inside its
+/// area, overlaps no placed label and covers the least ink; drawn on a
+/// light backing (notes with their dot and pointer).
+fn place_labels(canvas: &mut Canvas, font: &TextFont, m: &Metrics, pending: Vec<Pending>) {
+    let pad = 0.18 * m.base;
+    let mut placed: Vec<Rect> = Vec::new();
+    for p in pending {
+        let dot = 0.19 * m.base;
+        if let Some((x, y)) = p.pointer {
+            canvas.fill_polys(&[circle(x, y, dot)], style::MARK, 1.0, p.area);
+            placed.push(Rect::new(x - dot, y - dot, x + dot, y + dot));
+        }
+        if p.text.is_empty() {
+            continue;
+        }
+        let score = |i: usize, r: &Rect, canvas: &Canvas| {
+            let mut s = i as f64 * 3.0 + canvas.ink_in(*r, 190) as f64;
+            if !p.area.contains_rect(r) {
+                s += 1e7;
+            }
+            s + placed.iter().filter(|q| q.overlaps(r)).count() as f64 * 1e6
+        };
+        let Some((_, (x, y, st), r)) = (p.spots.iter().enumerate())
+            .map(|(i, s)| {
+                let r = font.bounds(&p.text, s.0, s.1, &s.2).expand(pad);
+                (score(i, &r, canvas), s, r)
+            })
+            .min_by(|a, b| a.0.total_cmp(&b.0))
+        else {
+            continue;
+        };
+        if let Some((px, py)) = p.pointer {
+            let corner = (
+                if *x >= px { r.x0 } else { r.x1 },
+                if *y <= py { r.y1 } else { r.y0 },
+            );
+            let (dx, dy) = (corner.0 - px, corner.1 - py);
+            let len = dx.hypot(dy).max(1e-9);
+            let mut polys = Vec::new();
+            capsule(
+                (px + dx / len * dot * 1.6, py + dy / len * dot * 1.6),
+                corner,
+                1.3,
+                &mut polys,
+            );
+            canvas.fill_polys(&polys, style::MARK, 0.85, p.area);
+        }
+        canvas.fill_rect(r, style::BACKGROUND, 0.82);
+        font.draw(canvas, &p.text, *x, *y, st);
+        placed.push(r);
+    }
+}
+
+/// A panel's legend, by plotters, on a chart of its own in `area`: one
+/// empty series per entry (its line sample and marker), and one more per
+/// further line of a label wider than the column.
+fn draw_legend(
+    area: &DrawingArea<CanvasBackend, plotters::coord::Shift>,
+    p: &Panel,
+    legend: &[(usize, Vec<String>)],
+    font: &TextFont,
+    m: &Metrics,
+    sample_w: f64,
+) -> Result<(), PlotError> {
+    let mut chart = ChartBuilder::on(area)
+        .build_cartesian_2d(0.0..1.0, 0.0..1.0)
+        .map_err(err)?;
+    let empty = || std::iter::empty::<Circle<(f64, f64), i32>>();
+    for (i, lines) in legend {
+        let s = &p.series[*i];
+        let pen = pen_of(s.style.0);
+        let line = matches!(s.draw, Draw::Line | Draw::LineAndMarkers | Draw::Steps);
+        let marks = matches!(s.draw, Draw::Markers | Draw::LineAndMarkers);
+        let (on, off) = dash_px(&pen, m.lw);
+        let ink = color(pen.color, 1.0);
+        let stroke = ink.stroke_width(m.lw as u32);
+        let sw = sample_w as i32;
+        let seg = if line { vec![(0, 0), (sw, 0)] } else { vec![] };
+        let dot: Vec<(i32, i32)> = match marks {
+            true => (marker_outline(pen.marker, m.base * 0.24).iter())
+                .map(|q| (q.0 + sw / 2, q.1))
+                .collect(),
+            false => vec![],
+        };
+        let anno = chart.draw_series(empty()).map_err(err)?;
+        anno.label(lines[0].clone()).legend(move |(x, y)| {
+            EmptyElement::at((x, y))
+                + DashedPathElement::new(seg.clone(), on.min(sw), off, stroke)
+                + Polygon::new(dot.clone(), ink.filled())
+        });
+        for more in &lines[1..] {
+            chart.draw_series(empty()).map_err(err)?.label(more.clone());
+        }
+    }
+    chart
+        .configure_series_labels()
+        .position(SeriesLabelPosition::UpperLeft)
+        .legend_area_size((sample_w + 0.5 * m.base) as i32)
+        .margin(0)
+        .label_font(text_style(font, m.tick, style::TEXT))
+        .background_style(color(style::BACKGROUND, 0.0))
+        .border_style(color(style::BACKGROUND, 0.0))
+        .draw()
+        .map_err(err)
+}
