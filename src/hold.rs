@@ -275,7 +275,7 @@ pub struct HoldEquivalent {
     /// The measured output at `measure_offset` into the period, for the
     /// sensor transport delay (None without one, or when it falls on the
     /// sample instant).
-    measure: Option<IntersampleRow>,
+    pub(crate) measure: Option<IntersampleRow>,
 }
 
 /// Coefficients of `(v_k, v_{k-1}, v_{k-2})`.
@@ -665,7 +665,7 @@ impl HoldEquivalent {
     /// behind `m >= 1` more unit delays of the command: `v_k = u_{k-m}`.
     /// New states `r_1 .. r_m = u_{k-m-1} .. u_{k-2}` follow the others, so
     /// `v_{k-1} = r_1` and `v_k` is `r_2` (or `u_{k-1}` when `m = 1`).
-    fn delayed_by(self, m: usize) -> HoldEquivalent {
+    pub(crate) fn delayed_by(self, m: usize) -> HoldEquivalent {
         let n = self.phi.nrows();
         let dim = n + m;
         let mut phi = DMatrix::zeros(dim, dim);

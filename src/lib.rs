@@ -6,6 +6,7 @@
 //! `DEVELOPERS.md` for the map.
 
 pub mod budget;
+pub mod cascade;
 pub mod case;
 pub mod certificate;
 pub mod charts;
