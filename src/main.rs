@@ -199,13 +199,12 @@ fn print(text: &str) -> Result<()> {
 
 /// `--ratio`: a whole number >= 1, on a case with [outer].
 fn cascade_ratio(c: &Case, text: &str) -> Result<usize> {
-    let Some(outer) = &c.outer else {
+    if c.outer.is_none() {
         return Err(anyhow!(
             "--ratio: {} has no [outer] table, so there is no outer loop",
             c.source.display()
         ));
-    };
-    let _ = outer;
+    }
     let n: f64 = text
         .trim()
         .parse()
@@ -504,6 +503,9 @@ fn run(cli: Cli) -> Result<ExitCode> {
             let (rows, set) = in_pool(threads, || -> Result<_> {
                 let set = case_variants(&c, &lp)?;
                 let rows = run_sweep(&c, &lp, set.as_ref(), variants, quiet, &out)?;
+                if c.outer.is_some() {
+                    looprate::cascade::output::finish_sweep(&out, &c)?;
+                }
                 if let Some(set) = &set
                     && variants
                 {
@@ -574,13 +576,32 @@ fn run(cli: Cli) -> Result<ExitCode> {
                     || write_pick_outputs(&out, stream, &report),
                 );
                 tables?;
-                looprate::report::write_report(&out, &c, &report, &charts?)?;
-                Ok(report)
+                let charts = charts?;
+                let cascade = if c.outer.is_some() {
+                    Some(looprate::cascade::output::finish_pick(
+                        &out, &c, &report, &charts, no_charts,
+                    )?)
+                } else {
+                    looprate::report::write_report(&out, &c, &report, &charts)?;
+                    None
+                };
+                Ok((report, cascade))
             })??;
+            let (report, cascade) = report;
             if json {
-                print(&format!("{:#}\n", serde_json::to_value(&report)?))?;
+                let v = match &cascade {
+                    Some(run) => run.json.clone(),
+                    None => serde_json::to_value(&report)?,
+                };
+                print(&format!("{v:#}\n"))?;
             } else {
                 print(&summary::pick_text(&report))?;
+                if let Some(run) = &cascade {
+                    print(&format!(
+                        "\n{}",
+                        looprate::cascade::output::cascade_text(&run.pick)
+                    ))?;
+                }
                 // Say where the files went, the default folder above all.
                 print(&format!(
                     "\nWrote {}: report.md, report.html, pick.json, sweep.csv{}.\n",
@@ -588,7 +609,11 @@ fn run(cli: Cli) -> Result<ExitCode> {
                     if no_charts { "" } else { " and the charts" }
                 ))?;
             }
-            Ok(if report.has_answer() {
+            let answered = match &cascade {
+                Some(run) => run.pick.chosen.is_some(),
+                None => report.has_answer(),
+            };
+            Ok(if answered {
                 ExitCode::SUCCESS
             } else {
                 ExitCode::from(1)
@@ -607,7 +632,7 @@ fn csv_stream(c: &Case, lp: &PreparedLoop, out: &Path) -> Result<outputs::SweepC
         .map(|f| f.name())
         .collect();
     Ok(outputs::SweepCsvStream::create(
-        &out.join("sweep.csv"),
+        &out.join(looprate::cascade::output::loop_sweep_name(c)),
         series,
         points / series.max(1),
         &formats,

@@ -11,6 +11,7 @@
 //! - `output`: the `outer` JSON object, the cascade's `sweep.csv` rows,
 //!   `pick.json`'s `cascade` object, its charts and report section.
 
+pub mod charts;
 pub mod evaluate;
 pub mod lift;
 pub mod output;

@@ -5,14 +5,23 @@
 //! outer object reads like the inner one.
 
 use std::fmt::Write as _;
+use std::path::Path;
 
 use serde_json::{Value, json};
 
+use crate::cascade::charts::write_cascade_charts;
 use crate::cascade::evaluate::CascadePoint;
-use crate::cascade::search::{CascadePick, CascadeRow, method_name};
+use crate::cascade::search::{
+    CascadePick, CascadeRow, cascade_pick, cascade_rows, method_name, prepare_cascade,
+};
 use crate::case::Case;
+use crate::charts::Chart;
+use crate::error::Error;
 use crate::evaluate::{Evaluation, Figures};
 use crate::feasibility::assess;
+use crate::outputs::write_atomic;
+use crate::pick::PickReport;
+use crate::report::{Block, write_report_extra};
 use crate::summary::{evaluation_json, evaluation_text, fmt_num};
 
 /// The `outer` object of `eval --json`: the outer loop's figures under the
@@ -286,4 +295,188 @@ pub fn cascade_text(pick: &CascadePick) -> String {
         let _ = writeln!(s, "  note: {n}");
     }
     s
+}
+
+/// File name of the inner loop's own sweep in a cascade run (`sweep.csv`
+/// holds the cascade's rows there).
+pub const INNER_SWEEP_CSV: &str = "inner-sweep.csv";
+
+/// The name of the single loop's `sweep.csv` in a run of `case`:
+/// `inner-sweep.csv` when the case has `[outer]`.
+pub fn loop_sweep_name(case: &Case) -> &'static str {
+    if case.outer.is_some() {
+        INNER_SWEEP_CSV
+    } else {
+        "sweep.csv"
+    }
+}
+
+/// The report's cascade section.
+fn report_blocks(pick: &CascadePick, charts: &[Chart], out_dir: &Path) -> Vec<Block> {
+    let mut b = vec![Block::Heading(2, "Cascade: inner and outer loop".into())];
+    b.push(Block::Para(
+        "The outer loop updates every N-th inner tick on the same processor; its command is the inner loop's reference, held until the next outer update. Both loops are evaluated exactly over one outer period (lifting). The outer figures are broken at the outer controller's output and taken on the outer plant output between inner samples too; the inner figures are the inner loop's own, with the outer loop open. The pair chosen is the one meeting both specs with the least CPU load (inner cycles x f + outer cycles x f/N).".into(),
+    ));
+    let mut lines: Vec<String> = Vec::new();
+    match &pick.chosen {
+        Some(c) => {
+            lines.push(format!(
+                "chosen pair: inner loop {} ({}, computation delay {} periods), ratio {}, outer loop {} ({}, computation delay {} of its period)",
+                crate::engineering::hz(c.inner_rate_hz),
+                c.series.inner_method,
+                c.series.inner_compute_delay,
+                c.ratio,
+                crate::engineering::hz(c.outer_rate_hz),
+                c.series.outer_method,
+                c.series.outer_compute_delay
+            ));
+            if let Some(l) = c.cost.total_load_pct {
+                lines.push(format!(
+                    "CPU load {} % = inner {} % + outer {} %",
+                    fmt_num(l),
+                    fmt_num(c.cost.inner_load_pct.unwrap_or(f64::NAN)),
+                    fmt_num(c.cost.outer_load_pct.unwrap_or(f64::NAN))
+                ));
+            }
+        }
+        None => lines.push("no pair meets both specs within the budget".into()),
+    }
+    if let Some([lo, hi]) = pick.window_hz {
+        lines.push(format!(
+            "inner-rate window: {} to {} (top set by: {})",
+            crate::engineering::hz(lo),
+            crate::engineering::hz(hi),
+            pick.window.as_ref().map_or("", |w| w.high_bound)
+        ));
+    }
+    lines.extend(pick.advice.iter().map(|a| format!("advice: {a}")));
+    lines.extend(pick.notes.iter().map(|n| format!("note: {n}")));
+    b.push(Block::List(lines));
+    if let Some(c) = &pick.chosen {
+        let head = vec![
+            "figure".to_string(),
+            "inner".to_string(),
+            "outer".to_string(),
+        ];
+        let rows: Vec<Vec<String>> = CASCADE_FIGURES
+            .iter()
+            .filter(|k| **k != "horizon_capped")
+            .map(|k| {
+                // Four significant digits in the report; words stay.
+                let cell = |e: &Evaluation| {
+                    let text = e
+                        .figures
+                        .as_ref()
+                        .map_or_else(|| e.status.label(), |f| figure_cell(f, k));
+                    text.parse::<f64>().map_or(text, fmt_num)
+                };
+                vec![k.to_string(), cell(&c.inner), cell(&c.outer)]
+            })
+            .collect();
+        b.push(Block::Table(head, rows));
+    }
+    let largest: Vec<Vec<String>> = pick
+        .series
+        .iter()
+        .flat_map(|s| {
+            s.largest_ratio.iter().map(move |(f, n)| {
+                vec![
+                    format!("{} / {}", s.series.inner_method, s.series.outer_method),
+                    crate::engineering::hz(*f),
+                    n.map_or_else(|| "none".into(), |n| n.to_string()),
+                ]
+            })
+        })
+        .collect();
+    b.push(Block::Para(
+        "Per inner rate, the largest ratio (slowest outer rate) at which both loops meet their specs:".into(),
+    ));
+    b.push(Block::Table(
+        vec![
+            "methods (inner / outer)".into(),
+            "inner rate".into(),
+            "largest passing ratio".into(),
+        ],
+        largest,
+    ));
+    for ch in charts {
+        let rel = ch
+            .path
+            .strip_prefix(out_dir)
+            .unwrap_or(&ch.path)
+            .display()
+            .to_string();
+        let caption = if rel.contains("cpu-map") {
+            "Every (inner rate, ratio) pair: meeting both specs or not, the chosen pair, lines of equal CPU load"
+        } else {
+            "Outer-loop figures against the ratio, one series per inner rate, with the outer spec's limits"
+        };
+        b.push(Block::Image {
+            rel,
+            png: ch.png.clone(),
+            caption: caption.into(),
+        });
+    }
+    b
+}
+
+/// A finished cascade run: its rows, its answer and `pick.json` as a value
+/// (the single loop's object with the `cascade` object added).
+pub struct CascadeRun {
+    pub rows: Vec<CascadeRow>,
+    pub pick: CascadePick,
+    pub json: Value,
+}
+
+/// The cascade part of `pick` on a case with `[outer]`, after the inner
+/// loop's own pick: the search, `sweep.csv` (the cascade's rows),
+/// `pick.json` (with `cascade`), the two charts (unless `no_charts`) and
+/// the report with its cascade section. `charts` are the single loop's.
+pub fn finish_pick(
+    out_dir: &Path,
+    case: &Case,
+    report: &PickReport,
+    charts: &[Chart],
+    no_charts: bool,
+) -> Result<CascadeRun, Error> {
+    let pc = prepare_cascade(case)?
+        .ok_or_else(|| Error::Input("the case has no [outer] table".into()))?;
+    let rows = cascade_rows(case, &pc, false);
+    let pick = cascade_pick(case, &pc, &rows);
+    write_atomic(&out_dir.join("sweep.csv"), cascade_csv(&rows).as_bytes())?;
+    let mut json = serde_json::to_value(report).unwrap_or(Value::Null);
+    if let Value::Object(m) = &mut json {
+        m.insert(
+            "cascade".into(),
+            serde_json::to_value(&pick).unwrap_or(Value::Null),
+        );
+    }
+    let pretty = serde_json::to_vec_pretty(&json).map_err(|e| Error::Output {
+        path: out_dir.join("pick.json").display().to_string(),
+        message: e.to_string(),
+    })?;
+    write_atomic(&out_dir.join("pick.json"), &pretty)?;
+    let cascade_charts = if no_charts {
+        Vec::new()
+    } else {
+        write_cascade_charts(out_dir, case, &pc, &rows, &pick)?
+    };
+    write_report_extra(
+        out_dir,
+        case,
+        report,
+        charts,
+        report_blocks(&pick, &cascade_charts, out_dir),
+    )?;
+    Ok(CascadeRun { rows, pick, json })
+}
+
+/// The cascade part of `sweep` on a case with `[outer]`: every pair
+/// evaluated, written to `sweep.csv`; returns the rows.
+pub fn finish_sweep(out_dir: &Path, case: &Case) -> Result<Vec<CascadeRow>, Error> {
+    let pc = prepare_cascade(case)?
+        .ok_or_else(|| Error::Input("the case has no [outer] table".into()))?;
+    let rows = cascade_rows(case, &pc, true);
+    write_atomic(&out_dir.join("sweep.csv"), cascade_csv(&rows).as_bytes())?;
+    Ok(rows)
 }

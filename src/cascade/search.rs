@@ -511,7 +511,7 @@ pub fn cascade_pick(case: &Case, pc: &PreparedCascade, rows: &[CascadeRow]) -> C
     });
     let mut advice = Vec::new();
     if chosen.is_none() {
-        advice = cascade_advice(case, pc, rows, cheapest_passing, max_load);
+        advice = cascade_advice(case, rows, cheapest_passing, max_load);
     }
     let mut notes = Vec::new();
     if !outer.inner_spec_given {
@@ -542,7 +542,6 @@ pub fn cascade_pick(case: &Case, pc: &PreparedCascade, rows: &[CascadeRow]) -> C
 /// What would open an empty cascade answer.
 fn cascade_advice(
     case: &Case,
-    pc: &PreparedCascade,
     rows: &[CascadeRow],
     cheapest_passing: Option<&CascadeRow>,
     max_load: Option<f64>,
@@ -590,6 +589,5 @@ fn cascade_advice(
             "no outer loop was evaluated (every inner rate fails the inner spec)".to_string(),
         ),
     }
-    let _ = pc;
     out
 }
