@@ -13,10 +13,12 @@ use serde::Serialize;
 
 use crate::cascade::lift::{CombinedPlant, InnerClosed, LiftError, combined_plant};
 use crate::case::OuterModels;
+use crate::case::Spec;
 use crate::closed_loop::{ClosedLoop, Stability};
 use crate::delay_margin::{DelayMargin, MAX_DELAY_PERIODS};
 use crate::discretize::Method;
 use crate::evaluate::{Evaluation, Point, PreparedLoop, Status, finish};
+use crate::feasibility::{Assessment, LimitCheck, UNSTABLE_SLACK};
 use crate::frequency::{FrequencyRange, LoopFigures, loop_figures};
 use crate::hold::HoldEquivalent;
 use crate::poly::C64;
@@ -69,6 +71,18 @@ pub struct PreparedCascade {
     pub combined: CombinedPlant,
     /// Time-response options of the outer loop (its settling band).
     pub outer_time: TimeOptions,
+    /// Continuous poles and zeros of the outer plant, sensor and
+    /// controller (rad/s), for the outer frequency grid.
+    outer_roots: Vec<C64>,
+}
+
+/// The outer loop at a point: its figures, or, when a limit on a loop
+/// figure already fails, that verdict (the search
+/// then skips the time responses).
+#[derive(Debug, Clone)]
+pub enum OuterOutcome {
+    Figures(Box<Evaluation>),
+    FailsLoopFigures(Assessment),
 }
 
 /// Why a cascade could not be prepared.
@@ -78,6 +92,65 @@ pub enum CascadeError {
     Lift(#[from] LiftError),
     #[error("the outer loop around an ideal inner loop: {0}")]
     Ideal(ModelError),
+}
+
+/// The limits of `spec` on loop figures (phase margin, gain margin,
+/// sensitivity peak), judged as `feasibility::check_figures` judges them;
+/// Some(verdict) when one fails.
+pub fn loop_limits_fail(f: &LoopFigures, spec: &Spec) -> Option<Assessment> {
+    let mut checks = Vec::new();
+    let check =
+        |figure: &'static str, limit: f64, value: Option<f64>, lower: bool, missing: f64| {
+            let slack = match value {
+                Some(v) if lower => (v - limit) / limit.abs().max(1e-300),
+                Some(v) => (limit - v) / limit.abs().max(1e-300),
+                None => missing,
+            };
+            LimitCheck {
+                figure,
+                limit,
+                value,
+                slack,
+                pass: slack >= 0.0,
+            }
+        };
+    if let Some(l) = spec.min_phase_margin_deg {
+        checks.push(check(
+            "phase_margin_deg",
+            l,
+            f.phase_margin_deg,
+            true,
+            f64::INFINITY,
+        ));
+    }
+    if let Some(l) = spec.min_gain_margin_db {
+        checks.push(check(
+            "gain_margin_db",
+            l,
+            f.gain_margin_db.map(f64::abs),
+            true,
+            f64::INFINITY,
+        ));
+    }
+    if let Some(l) = spec.max_sensitivity_peak {
+        checks.push(check(
+            "sensitivity_peak",
+            l,
+            Some(f.sensitivity_peak),
+            false,
+            f64::NEG_INFINITY,
+        ));
+    }
+    if checks.iter().all(|c| c.pass) || checks.iter().any(|c| c.value.is_some_and(f64::is_nan)) {
+        return None;
+    }
+    let worst = checks.iter().min_by(|a, b| a.slack.total_cmp(&b.slack))?;
+    Some(Assessment {
+        feasible: false,
+        limiting: Some(worst.figure),
+        slack: worst.slack.clamp(UNSTABLE_SLACK, 1e6),
+        checks,
+    })
 }
 
 /// Most extra inner ticks the outer delay-margin scan tries.
@@ -113,12 +186,39 @@ impl PreparedCascade {
             outer_time,
         )
         .map_err(CascadeError::Ideal)?;
+        let mut outer_roots: Vec<C64> = Vec::new();
+        let mut blocks = vec![&outer_models.plant, &outer_models.sensor];
+        if let Controller::Continuous(tf) = &outer_models.controller {
+            blocks.push(tf);
+        }
+        for tf in blocks {
+            outer_roots.extend(tf.poles().ok_or(CascadeError::Ideal(ModelError::Eigen))?);
+            outer_roots.extend(tf.zeros().ok_or(CascadeError::Ideal(ModelError::Eigen))?);
+        }
+        if let Controller::Discrete(d) = &outer_models.controller {
+            let back = |z: &C64| z.ln() / d.period_s;
+            let p = d
+                .transfer
+                .poles()
+                .ok_or(CascadeError::Ideal(ModelError::Eigen))?;
+            let z = d
+                .transfer
+                .zeros()
+                .ok_or(CascadeError::Ideal(ModelError::Eigen))?;
+            outer_roots.extend(
+                p.iter()
+                    .chain(z.iter())
+                    .filter(|z| z.norm() > 0.0)
+                    .map(back),
+            );
+        }
         Ok(PreparedCascade {
             inner,
             ideal,
             outer_models,
             combined,
             outer_time,
+            outer_roots,
         })
     }
 
@@ -159,20 +259,40 @@ impl PreparedCascade {
         rows: bool,
     ) -> Result<(InnerClosed, HoldEquivalent, DiscreteTransfer, ClosedLoop), String> {
         let inner = self.inner_closed(p, self.outer_time.points_per_period)?;
+        let (lifted, c, cl) = self.outer_loop_on(&inner, p, rows)?;
+        Ok((inner, lifted, c, cl))
+    }
+
+    /// `outer_loop` on an inner loop already closed at the point's inner
+    /// rate (`inner_closed`; the ratios at one inner rate share it).
+    pub fn outer_loop_on(
+        &self,
+        inner: &InnerClosed,
+        p: &CascadePoint,
+        rows: bool,
+    ) -> Result<(HoldEquivalent, DiscreteTransfer, ClosedLoop), String> {
         let c = self.outer_controller(p)?;
         let ticks = InnerClosed::delay_ticks(p.ratio, p.outer_delay);
         let lifted = inner.lifted(p.ratio, ticks, rows);
         let cl =
             ClosedLoop::new(&lifted, &c).map_err(|e| format!("closing the outer loop: {e}"))?;
-        Ok((inner, lifted, c, cl))
+        Ok((lifted, c, cl))
     }
 
     /// A cheap screen before the full figures: None when the lifted loop's
     /// poles are all inside the unit circle, else its evaluation (unstable,
     /// marginal or the error).
     pub fn screen(&self, p: &CascadePoint) -> Option<Evaluation> {
-        let cl = match self.outer_loop(p, false) {
-            Ok((_, _, _, cl)) => cl,
+        match self.inner_closed(p, 1) {
+            Ok(inner) => self.screen_on(&inner, p),
+            Err(e) => Some(Evaluation::error(e)),
+        }
+    }
+
+    /// `screen` on an inner loop already closed (`inner_closed`).
+    pub fn screen_on(&self, inner: &InnerClosed, p: &CascadePoint) -> Option<Evaluation> {
+        let cl = match self.outer_loop_on(inner, p, false) {
+            Ok((_, _, cl)) => cl,
             Err(e) => return Some(Evaluation::error(e)),
         };
         match cl.poles() {
@@ -201,32 +321,71 @@ impl PreparedCascade {
 
     /// The outer loop's figures at a point.
     pub fn evaluate_outer(&self, p: &CascadePoint, exact_margin: bool) -> Evaluation {
-        let (inner, lifted, c, cl) = match self.outer_loop(p, true) {
+        let inner = match self.inner_closed(p, self.outer_time.points_per_period) {
             Ok(v) => v,
             Err(e) => return Evaluation::error(e),
+        };
+        match self.evaluate_outer_on(&inner, p, exact_margin, None) {
+            OuterOutcome::Figures(e) => *e,
+            // Without a spec to screen on, every figure is computed.
+            OuterOutcome::FailsLoopFigures(_) => Evaluation::error("screened"),
+        }
+    }
+
+    /// The outer loop's figures on an inner loop already closed
+    /// (`inner_closed` with the outer loop's points per period). With
+    /// `screen_on_spec`, the loop figures come first and a failing limit on
+    /// one of them ends the evaluation there (the time responses are not
+    /// computed).
+    pub fn evaluate_outer_on(
+        &self,
+        inner: &InnerClosed,
+        p: &CascadePoint,
+        exact_margin: bool,
+        screen_on_spec: Option<&Spec>,
+    ) -> OuterOutcome {
+        let fail = |e: String| OuterOutcome::Figures(Box::new(Evaluation::error(e)));
+        let (lifted, c, cl) = match self.outer_loop_on(inner, p, true) {
+            Ok(v) => v,
+            Err(e) => return fail(e),
         };
         let poles = match cl.poles() {
             Ok(v) => v,
-            Err(e) => return Evaluation::error(format!("closed-loop poles: {e}")),
+            Err(e) => return fail(format!("closed-loop poles: {e}")),
         };
         match ClosedLoop::stability(&poles) {
             Stability::Stable => {}
-            Stability::Unstable => return Evaluation::poles_only(Status::Unstable, &poles),
-            Stability::Marginal => return Evaluation::poles_only(Status::Marginal, &poles),
+            Stability::Unstable => {
+                return OuterOutcome::Figures(Box::new(Evaluation::poles_only(
+                    Status::Unstable,
+                    &poles,
+                )));
+            }
+            Stability::Marginal => {
+                return OuterOutcome::Figures(Box::new(Evaluation::poles_only(
+                    Status::Marginal,
+                    &poles,
+                )));
+            }
         }
-        let (step, dist) = match sampled_figures(&cl, &lifted, &poles, &self.outer_time) {
-            Ok(v) => v,
-            Err(e) => return Evaluation::error(e),
-        };
         let t = lifted.period_s;
         let pulse = lifted.augmented();
         let l = |w: f64| {
             let z = C64::from_polar(1.0, w * t);
             c.transfer.eval(z) * pulse.response_at(z, 0)
         };
-        let range = self.outer_range(&inner, &c, t);
+        let range = self.outer_range(inner, t);
         let freq = loop_figures(&l, &range);
-        let margin = exact_margin.then(|| self.outer_delay_margin(&inner, &c, p, &freq));
+        if let Some(spec) = screen_on_spec
+            && let Some(a) = loop_limits_fail(&freq, spec)
+        {
+            return OuterOutcome::FailsLoopFigures(a);
+        }
+        let (step, dist) = match sampled_figures(&cl, &lifted, &poles, &self.outer_time) {
+            Ok(v) => v,
+            Err(e) => return fail(e),
+        };
+        let margin = exact_margin.then(|| self.outer_delay_margin(inner, &c, p, &freq));
         let mut e = finish(step, dist, freq, &poles);
         if let (Some(f), Some(margin)) = (e.figures.as_mut(), margin) {
             f.delay_margin_searched = true;
@@ -240,53 +399,21 @@ impl PreparedCascade {
                 }
             };
         }
-        e
+        OuterOutcome::Figures(Box::new(e))
     }
 
     /// The outer loop's frequency range up to its Nyquist frequency, dense
     /// around the outer blocks' modes and the inner closed loop's.
-    fn outer_range(
-        &self,
-        inner: &InnerClosed,
-        c: &DiscreteTransfer,
-        t_outer: f64,
-    ) -> FrequencyRange {
+    fn outer_range(&self, inner: &InnerClosed, t_outer: f64) -> FrequencyRange {
         let w_hi = std::f64::consts::PI / t_outer;
-        let mut roots: Vec<C64> = Vec::new();
-        for tf in [&self.outer_models.plant, &self.outer_models.sensor] {
-            roots.extend(tf.poles().unwrap_or_default());
-            roots.extend(tf.zeros().unwrap_or_default());
-        }
-        if let Controller::Continuous(tf) = &self.outer_models.controller {
-            roots.extend(tf.poles().unwrap_or_default());
-            roots.extend(tf.zeros().unwrap_or_default());
-        }
-        let back = |z: &C64, t: f64| z.ln() / t;
-        let cz = c
-            .transfer
-            .poles()
-            .unwrap_or_default()
-            .into_iter()
-            .chain(c.transfer.zeros().unwrap_or_default());
-        roots.extend(cz.filter(|z| z.norm() > 0.0).map(|z| back(&z, t_outer)));
-        let t_inner = inner.hold.period_s;
-        roots.extend(
-            inner
-                .cl
-                .poles()
-                .unwrap_or_default()
-                .iter()
-                .filter(|z| z.norm() > 0.0)
-                .map(|z| back(z, t_inner)),
-        );
+        let roots = self.outer_roots.iter().chain(inner.poles_s.iter());
         let inside: Vec<C64> = roots
-            .iter()
+            .clone()
             .copied()
             .filter(|r| r.norm() < w_hi && r.is_finite())
             .collect();
         let mut range = FrequencyRange::from_roots(&inside, Some(w_hi));
         let slowest = roots
-            .iter()
             .map(|r| r.norm())
             .filter(|&v| v > 0.0 && v.is_finite())
             .fold(f64::INFINITY, f64::min);

@@ -107,6 +107,9 @@ pub struct InnerClosed {
     /// The outer measured output's row over the inner loop's state.
     pub outer_measured: DVector<f64>,
     pub d_load_measured: f64,
+    /// The inner closed loop's poles mapped to s (`ln z / T`, rad/s; the
+    /// outer frequency grid is dense around them).
+    pub poles_s: Vec<crate::poly::C64>,
 }
 
 fn pad(v: &DVector<f64>, dim: usize) -> DVector<f64> {
@@ -149,7 +152,14 @@ impl InnerClosed {
         }
         let cl = ClosedLoop::new(&hold, controller)?;
         let dim = cl.a.nrows();
+        let poles_s = cl
+            .poles()?
+            .iter()
+            .filter(|z| z.norm() > 0.0)
+            .map(|z| z.ln() / period_s)
+            .collect();
         Ok(InnerClosed {
+            poles_s,
             outer_measured: pad(&plant.c_outer_measured, dim),
             d_load_measured: plant.d_load_measured,
             hold,

@@ -10,16 +10,17 @@
 //!
 //! The load falls as the ratio grows, so at one inner rate the cheapest
 //! passing pair is the largest passing ratio: the ratios are tried from the
-//! largest down, each first screened by the lifted loop's poles alone, and
-//! the first that passes ends the inner rate (the smaller ratios are
-//! reported as not evaluated, with that reason). `full` evaluates every
-//! pair (the `sweep` command).
+//! largest down, each first screened by the lifted loop's poles alone, then
+//! by its loop figures (a failing phase margin, gain margin or sensitivity
+//! limit ends it before the time responses), and the first that passes
+//! ends the inner rate (the smaller ratios are reported as not evaluated,
+//! with that reason). `full` evaluates every pair (the `sweep` command).
 
 use rayon::prelude::*;
 use serde::Serialize;
 
 use crate::budget;
-use crate::cascade::evaluate::{CascadePoint, PreparedCascade};
+use crate::cascade::evaluate::{CascadePoint, OuterOutcome, PreparedCascade};
 use crate::case::{Case, OuterLoop};
 use crate::discretize::Method;
 use crate::error::Error;
@@ -121,7 +122,8 @@ pub struct CascadeRow {
     pub outer: Option<Evaluation>,
     pub outer_verdict: Option<Assessment>,
     pub skipped: Option<String>,
-    /// The outer loop was judged by its poles alone (not stable).
+    /// The outer loop was judged before its time responses: by its poles
+    /// (not stable) or by a failing limit on a loop figure.
     pub screened: bool,
     /// CPU cost of the pair.
     pub cost: Cost,
@@ -228,6 +230,18 @@ fn rows_at(
     let inner = pc.inner.sampled(&inner_point);
     let inner_verdict = assess(&inner, &case.spec);
     let inner_c = pc.inner.controller_at(rate_hz, series.inner_method).ok();
+    // The inner loop on the whole plant, shared by every ratio here.
+    let closed = ratios.first().map(|&n| {
+        pc.inner_closed(
+            &CascadePoint {
+                inner: inner_point,
+                ratio: n,
+                outer_method: series.outer_method,
+                outer_delay: series.outer_delay,
+            },
+            pc.outer_time.points_per_period,
+        )
+    });
     let mut rows: Vec<CascadeRow> = Vec::with_capacity(ratios.len());
     let mut found = false;
     for &n in ratios.iter().rev() {
@@ -267,7 +281,12 @@ fn rows_at(
                 rows.push(skip("not evaluated: the inner loop fails its spec".into()));
                 continue;
             }
-            if let Some(e) = pc.screen(&point) {
+            let screened = match &closed {
+                Some(Ok(inner)) => pc.screen_on(inner, &point),
+                Some(Err(e)) => Some(Evaluation::error(e.clone())),
+                None => None,
+            };
+            if let Some(e) = screened {
                 rows.push(CascadeRow {
                     outer_verdict: Some(assess(&e, &outer.spec)),
                     outer: Some(e),
@@ -278,7 +297,46 @@ fn rows_at(
                 continue;
             }
         }
-        let e = pc.evaluate_outer(&point, false);
+        let outcome = match &closed {
+            Some(Ok(inner)) => {
+                pc.evaluate_outer_on(inner, &point, false, (!full).then_some(&outer.spec))
+            }
+            Some(Err(e)) => OuterOutcome::Figures(Box::new(Evaluation::error(e.clone()))),
+            None => OuterOutcome::Figures(Box::new(pc.evaluate_outer(&point, false))),
+        };
+        let e = match outcome {
+            OuterOutcome::Figures(e) => *e,
+            OuterOutcome::FailsLoopFigures(verdict) => {
+                let why = verdict
+                    .checks
+                    .iter()
+                    .filter(|c| !c.pass)
+                    .map(|c| {
+                        format!(
+                            "{} = {} against {}",
+                            c.figure,
+                            c.value
+                                .map_or_else(|| "none".into(), crate::summary::fmt_num),
+                            crate::summary::fmt_num(c.limit)
+                        )
+                    })
+                    .collect::<Vec<_>>()
+                    .join("; ");
+                rows.push(CascadeRow {
+                    point,
+                    inner: inner.clone(),
+                    inner_verdict: inner_verdict.clone(),
+                    outer: None,
+                    outer_verdict: Some(verdict),
+                    skipped: Some(format!(
+                        "fails the outer spec on its loop figures ({why}); time figures not computed"
+                    )),
+                    screened: true,
+                    cost,
+                });
+                continue;
+            }
+        };
         let verdict = assess(&e, &outer.spec);
         found |= verdict.feasible && inner_verdict.feasible;
         rows.push(CascadeRow {
@@ -387,7 +445,8 @@ pub struct CascadePick {
     pub chosen: Option<ChosenPair>,
     pub window_hz: Option<[f64; 2]>,
     pub window: Option<CascadeWindow>,
-    /// Rows evaluated in full, screened by the poles alone, not evaluated.
+    /// Rows evaluated in full, judged before their time responses (poles,
+    /// or a failing loop figure), not evaluated.
     pub evaluated: usize,
     pub screened: usize,
     pub not_evaluated: usize,
@@ -533,7 +592,7 @@ pub fn cascade_pick(case: &Case, pc: &PreparedCascade, rows: &[CascadeRow]) -> C
             .filter(|r| r.outer.is_some() && !r.screened)
             .count(),
         screened: rows.iter().filter(|r| r.screened).count(),
-        not_evaluated: rows.iter().filter(|r| r.outer.is_none()).count(),
+        not_evaluated: rows.iter().filter(|r| r.outer_verdict.is_none()).count(),
         advice,
         notes,
     }
