@@ -611,3 +611,70 @@ fn eval_ratio_flag() {
     assert_eq!(outer["ratio"], 10);
     assert_eq!(outer["rate_hz"], 2000.0);
 }
+
+/// Advice when nothing fits: a budget below the cheapest passing pair
+/// names the load it needs, and each threshold it quotes, applied alone,
+/// gives an answer; an outer spec no pair meets names the outer loop's
+/// limiting figure. `sweep` writes every pair, `pick` exits 1 (source:
+/// the project's own rules for advice, `docs/figures.md`).
+#[test]
+fn advice_when_nothing_fits_and_every_pair_in_sweep() {
+    let text = std::fs::read_to_string("demo-cases/motor-drive-cascade.toml").unwrap();
+    let tight = text.replace("max_load_pct = 35", "max_load_pct = 5");
+    let c = Case::parse(&tight, Path::new("tight.toml")).unwrap();
+    let pc = prepare_cascade(&c).unwrap().unwrap();
+    let rows = cascade_rows(&c, &pc, false);
+    let pick = cascade_pick(&c, &pc, &rows);
+    assert!(pick.chosen.is_none() && pick.window_hz.is_none());
+    let advice = pick.advice.join(" ");
+    assert!(advice.contains("max_load_pct"), "{advice}");
+    // The quoted load limit, applied alone, opens it.
+    let quoted: f64 = advice
+        .split("raise max_load_pct to ")
+        .nth(1)
+        .and_then(|t| t.split_whitespace().next())
+        .and_then(|t| t.parse().ok())
+        .unwrap();
+    let opened = text.replace("max_load_pct = 35", &format!("max_load_pct = {quoted}"));
+    let c2 = Case::parse(&opened, Path::new("opened.toml")).unwrap();
+    let rows2 = cascade_rows(&c2, &pc, false);
+    assert!(cascade_pick(&c2, &pc, &rows2).chosen.is_some());
+
+    let strict = text.replace("min_phase_margin_deg = 45", "min_phase_margin_deg = 89");
+    let c3 = Case::parse(&strict, Path::new("strict.toml")).unwrap();
+    let pc3 = prepare_cascade(&c3).unwrap().unwrap();
+    let rows3 = cascade_rows(&c3, &pc3, false);
+    let pick3 = cascade_pick(&c3, &pc3, &rows3);
+    assert!(pick3.chosen.is_none());
+    assert!(
+        pick3.advice.join(" ").contains("phase_margin_deg"),
+        "{:?}",
+        pick3.advice
+    );
+
+    let bin = env!("CARGO_BIN_EXE_looprate");
+    let dir = std::env::temp_dir().join(format!("looprate-cascade-{}", std::process::id()));
+    let case_path = dir.join("tight.toml");
+    std::fs::create_dir_all(&dir).unwrap();
+    std::fs::write(&case_path, &tight).unwrap();
+    let out = std::process::Command::new(bin)
+        .args(["pick", case_path.to_str().unwrap(), "--out"])
+        .arg(dir.join("pick"))
+        .args(["--quiet", "--no-charts"])
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(1));
+    let out = std::process::Command::new(bin)
+        .args(["sweep", "demo-cases/motor-drive-cascade.toml", "--out"])
+        .arg(dir.join("sweep"))
+        .args(["--quiet", "--no-charts"])
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(0));
+    let csv = std::fs::read_to_string(dir.join("sweep").join("sweep.csv")).unwrap();
+    // 40 inner rates x 12 ratios, each evaluated.
+    assert_eq!(csv.lines().count(), 1 + 40 * 12);
+    assert!(!csv.contains("not evaluated"));
+    assert!(dir.join("sweep").join("inner-sweep.csv").exists());
+    std::fs::remove_dir_all(&dir).ok();
+}
