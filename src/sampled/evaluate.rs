@@ -188,7 +188,7 @@ impl Evaluation {
         }
     }
 
-    fn poles_only(status: Status, poles: &[C64]) -> Evaluation {
+    pub(crate) fn poles_only(status: Status, poles: &[C64]) -> Evaluation {
         Evaluation {
             status,
             stable: false,
@@ -833,7 +833,7 @@ fn check_point(p: &Point) -> Result<(), String> {
     Ok(())
 }
 
-fn finish(
+pub(crate) fn finish(
     step: StepFigures,
     dist: DisturbanceFigures,
     freq: LoopFigures,
