@@ -648,7 +648,7 @@ fn advice_when_nothing_fits_and_every_pair_in_sweep() {
     let pick3 = cascade_pick(&c3, &pc3, &rows3);
     assert!(pick3.chosen.is_none());
     assert!(
-        pick3.advice.join(" ").contains("phase_margin_deg"),
+        pick3.advice.join(" ").contains("phase margin"),
         "{:?}",
         pick3.advice
     );
