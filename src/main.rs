@@ -95,6 +95,18 @@ enum Command {
         /// Write t, y, u and a sample flag of both responses to this CSV.
         #[arg(long)]
         trace: Option<PathBuf>,
+        /// With [outer]: the outer loop updates every N-th inner tick
+        /// (outer rate = --rate / N, N a whole number >= 1); adds the
+        /// `outer` figures (the trace, if asked, is then the outer loop's).
+        #[arg(long)]
+        ratio: Option<String>,
+        /// Outer discretization method (default: the first of [outer.methods]).
+        #[arg(long = "outer-method", requires = "ratio")]
+        outer_method: Option<String>,
+        /// Outer computation delay, a fraction of the outer period (default:
+        /// the first of [outer.timing] compute_delay).
+        #[arg(long = "outer-delay", requires = "ratio")]
+        outer_delay: Option<f64>,
     },
     /// Evaluate every grid point of the case and write DIR/sweep.csv.
     Sweep {
@@ -184,6 +196,75 @@ fn print(text: &str) -> Result<()> {
     out.write_all(text.as_bytes())?;
     out.flush()?;
     Ok(())
+}
+
+/// `--ratio`: a whole number >= 1, on a case with [outer].
+fn cascade_ratio(c: &Case, text: &str) -> Result<usize> {
+    if c.outer.is_none() {
+        return Err(anyhow!(
+            "--ratio: {} has no [outer] table, so there is no outer loop",
+            c.source.display()
+        ));
+    }
+    let n: f64 = text
+        .trim()
+        .parse()
+        .map_err(|_| anyhow!("--ratio must be a whole number >= 1, got `{text}`"))?;
+    if !(n.is_finite() && n.fract() == 0.0 && n >= 1.0 && n <= looprate::case::MAX_RATIO as f64) {
+        return Err(anyhow!(
+            "--ratio must be a whole number from 1 to {}, got `{text}`",
+            looprate::case::MAX_RATIO
+        ));
+    }
+    Ok(n as usize)
+}
+
+/// The outer loop of `eval --ratio`: the cascade, its point and the outer
+/// figures (exact delay margin searched).
+fn eval_outer(
+    c: &Case,
+    inner: Point,
+    ratio: usize,
+    method: Option<&str>,
+    delay: Option<f64>,
+) -> Result<(
+    looprate::sampled::cascade::evaluate::PreparedCascade,
+    looprate::sampled::cascade::evaluate::CascadePoint,
+    looprate::sampled::evaluate::Evaluation,
+)> {
+    let outer = c
+        .outer
+        .as_ref()
+        .ok_or_else(|| anyhow!("--ratio needs [outer]"))?;
+    let pc = looprate::explore::cascade::prepare_cascade(c)?
+        .ok_or_else(|| anyhow!("--ratio needs [outer]"))?;
+    let outer_method = match (&pc.outer_models.controller, method) {
+        (Controller::Continuous(_), Some(m)) => Some(
+            m.parse::<Method>()
+                .map_err(|e| anyhow!("--outer-method: {e}"))?,
+        ),
+        (Controller::Continuous(_), None) => outer.methods.first().copied(),
+        (Controller::Discrete(_), Some(_)) => {
+            return Err(anyhow!(
+                "--outer-method: the outer controller is given in z, so nothing is discretized"
+            ));
+        }
+        (Controller::Discrete(_), None) => None,
+    };
+    let outer_delay = delay.unwrap_or(outer.compute_delays[0]);
+    if !(outer_delay >= 0.0 && outer_delay.is_finite()) {
+        return Err(anyhow!(
+            "--outer-delay must be a finite fraction of the outer period >= 0, got {outer_delay}"
+        ));
+    }
+    let cp = looprate::sampled::cascade::evaluate::CascadePoint {
+        inner,
+        ratio,
+        outer_method,
+        outer_delay,
+    };
+    let e = pc.evaluate_outer(&cp, true);
+    Ok((pc, cp, e))
 }
 
 fn parse_method(name: &str) -> Result<Method> {
@@ -296,9 +377,13 @@ fn run(cli: Cli) -> Result<ExitCode> {
             hold,
             json,
             trace,
+            ratio,
+            outer_method,
+            outer_delay,
         } => {
             let c = Case::load(&case)?;
             let lp = prepare(&c)?;
+            let ratio = ratio.map(|r| cascade_ratio(&c, &r)).transpose()?;
             let method = match (&lp.controller, method) {
                 (Controller::Continuous(_), Some(m)) => Some(parse_method(&m)?),
                 (Controller::Continuous(_), None) => match c.methods.first() {
@@ -345,12 +430,25 @@ fn run(cli: Cli) -> Result<ExitCode> {
             } else {
                 Vec::new()
             };
+            let cascade = match ratio {
+                Some(n) => Some(eval_outer(&c, p, n, outer_method.as_deref(), outer_delay)?),
+                None => None,
+            };
             if let Some(path) = trace {
-                let (step, dist) = lp.sampled_traces(&p, None).map_err(|e| anyhow!(e))?;
+                let (step, dist) = match &cascade {
+                    Some((pc, cp, _)) => pc.outer_traces(cp, None).map_err(|e| anyhow!(e))?,
+                    None => lp.sampled_traces(&p, None).map_err(|e| anyhow!(e))?,
+                };
                 writer::write_atomic(&path, &tables::trace_csv(&step, &dist))?;
             }
             if json {
                 let mut v = summary::eval_json(&exact, lp.design.as_ref(), &approx);
+                if let (Some((_, cp, outer)), serde_json::Value::Object(m)) = (&cascade, &mut v) {
+                    m.insert(
+                        "outer".into(),
+                        looprate::output::cascade::outer_json(&c, cp, outer),
+                    );
+                }
                 if let Some(notes) = v.get_mut("notes").and_then(|n| n.as_array_mut()) {
                     notes.extend(
                         lp.cautions(&p, &exact)
@@ -378,6 +476,9 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 for note in lp.cautions(&p, &exact) {
                     text.push_str(&format!("\nNote: {note}\n"));
                 }
+                if let Some((_, cp, outer)) = &cascade {
+                    text.push_str(&looprate::output::cascade::outer_text(&c, cp, outer));
+                }
                 print(&text)?;
             }
             Ok(ExitCode::SUCCESS)
@@ -403,6 +504,9 @@ fn run(cli: Cli) -> Result<ExitCode> {
             let (rows, set) = in_pool(threads, || -> Result<_> {
                 let set = case_variants(&c, &lp)?;
                 let rows = run_sweep(&c, &lp, set.as_ref(), variants, quiet, &out)?;
+                if c.outer.is_some() {
+                    looprate::output::cascade::finish_sweep(&out, &c)?;
+                }
                 if let Some(set) = &set
                     && variants
                 {
@@ -473,13 +577,32 @@ fn run(cli: Cli) -> Result<ExitCode> {
                     || write_pick_outputs(&out, stream, &report),
                 );
                 tables?;
-                looprate::output::report::write_report(&out, &c, &report, &charts?)?;
-                Ok(report)
+                let charts = charts?;
+                let cascade = if c.outer.is_some() {
+                    Some(looprate::output::cascade::finish_pick(
+                        &out, &c, &report, &charts, no_charts,
+                    )?)
+                } else {
+                    looprate::output::report::write_report(&out, &c, &report, &charts)?;
+                    None
+                };
+                Ok((report, cascade))
             })??;
+            let (report, cascade) = report;
             if json {
-                print(&format!("{:#}\n", serde_json::to_value(&report)?))?;
+                let v = match &cascade {
+                    Some(run) => run.json.clone(),
+                    None => serde_json::to_value(&report)?,
+                };
+                print(&format!("{v:#}\n"))?;
             } else {
                 print(&summary::pick_text(&report))?;
+                if let Some(run) = &cascade {
+                    print(&format!(
+                        "\n{}",
+                        looprate::output::cascade::cascade_text(&run.pick)
+                    ))?;
+                }
                 // Say where the files went, the default folder above all.
                 print(&format!(
                     "\nWrote {}: report.md, report.html, pick.json, sweep.csv{}.\n",
@@ -487,7 +610,11 @@ fn run(cli: Cli) -> Result<ExitCode> {
                     if no_charts { "" } else { " and the charts" }
                 ))?;
             }
-            Ok(if report.has_answer() {
+            let answered = match &cascade {
+                Some(run) => run.pick.chosen.is_some(),
+                None => report.has_answer(),
+            };
+            Ok(if answered {
                 ExitCode::SUCCESS
             } else {
                 ExitCode::from(1)
@@ -506,7 +633,7 @@ fn csv_stream(c: &Case, lp: &PreparedLoop, out: &Path) -> Result<tables::SweepCs
         .map(|f| f.name())
         .collect();
     Ok(tables::SweepCsvStream::create(
-        &out.join("sweep.csv"),
+        &out.join(looprate::output::cascade::loop_sweep_name(c)),
         series,
         points / series.max(1),
         &formats,

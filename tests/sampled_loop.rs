@@ -14,6 +14,25 @@ fn transfer(num: &[f64], den: &[f64]) -> Transfer {
 }
 
 /// Unity feedback around 1/(s(s+1)) with a gain `k` given in z at 1 Hz.
+/// Step and load-step traces through every period of the loop's horizon
+/// (the full walk the figures' shortcuts are checked against; a chart's
+/// trace keeps fewer periods, see `TRACE_PERIODS`).
+fn full_traces(
+    lp: &PreparedLoop,
+    p: &Point,
+) -> (
+    Vec<looprate::sampled::time_response::TracePoint>,
+    Vec<looprate::sampled::time_response::TracePoint>,
+) {
+    use looprate::sampled::time_response::{horizon_periods, sampled_trace};
+    let (hold, _, cl) = lp.sampled_loop(p).unwrap();
+    let n = horizon_periods(&cl.poles().unwrap(), cl.a.nrows()) as usize;
+    (
+        sampled_trace(&cl, &hold, 1.0, 0.0, n),
+        sampled_trace(&cl, &hold, 0.0, 1.0, n),
+    )
+}
+
 fn textbook_loop(k: f64, opts: TimeOptions) -> PreparedLoop {
     let c = Controller::Discrete(DiscreteTransfer {
         transfer: Transfer::gain(k),
@@ -287,7 +306,7 @@ fn early_stop_certificate_changes_no_figure() {
             hold: HoldKind::ZeroOrder,
         };
         let f = lp.sampled(&p).figures.unwrap();
-        let (step, _) = lp.sampled_traces(&p, None).unwrap();
+        let (step, _) = full_traces(&lp, &p);
         let mut m = StepMetrics::new(f.y_final, 0.02);
         for q in &step {
             m.push(q.t, q.y, q.u);
@@ -331,7 +350,7 @@ fn early_stop_never_misses_a_later_command_peak() {
         hold: HoldKind::ZeroOrder,
     };
     let f = lp.sampled(&p).figures.unwrap();
-    let (step, _) = lp.sampled_traces(&p, None).unwrap();
+    let (step, _) = full_traces(&lp, &p);
     let full = step.iter().fold(0.0f64, |m, q| m.max(q.u.abs()));
     assert!(
         (f.u_peak - full).abs() <= 1e-6 * full,
@@ -398,7 +417,7 @@ fn skipped_and_deferred_points_change_no_figure() {
             continue;
         };
         checked += 1;
-        let (step, dist) = lp.sampled_traces(&p, None).unwrap();
+        let (step, dist) = full_traces(&lp, &p);
         let mut m = StepMetrics::new(f.y_final, 0.02);
         for q in &step {
             m.push(q.t, q.y, q.u);
@@ -458,4 +477,55 @@ fn positioning_axis() -> PreparedLoop {
     let sensor = transfer(&[1.0], &[1.0 / 2000.0, 1.0]);
     let c = Controller::Continuous(transfer(&[0.001, 0.02, 0.05], &[1.0 / 400.0, 1.0, 0.0]));
     PreparedLoop::new(&plant, &sensor, &c, None, TimeOptions::default()).unwrap()
+}
+
+/// A trace longer than `TRACE_PERIODS` keeps one period in every few,
+/// reached by matrix powers: each kept point equals the point of a full
+/// walk at the same instant (brute force named as such), and the trace
+/// holds at most `TRACE_PERIODS` periods of points however long the span.
+#[test]
+fn a_long_trace_keeps_bounded_periods_and_the_walk_values() {
+    use looprate::sampled::time_response::{TRACE_PERIODS, sampled_trace, sampled_trace_spanning};
+    let lp = textbook_loop(0.5, TimeOptions::default());
+    let p = Point {
+        rate_hz: 1.0,
+        method: None,
+        delay: 0.5,
+        hold: HoldKind::ZeroOrder,
+    };
+    let (hold, _, cl) = lp.sampled_loop(&p).unwrap();
+    let periods = 3 * TRACE_PERIODS + 7;
+    let walked = sampled_trace(&cl, &hold, 1.0, 0.0, periods as usize);
+    let kept = sampled_trace_spanning(&cl, &hold, 1.0, 0.0, periods);
+    let np = hold.intersample.len();
+    assert!(kept.len() <= TRACE_PERIODS as usize * np, "{}", kept.len());
+    assert!(kept.len() >= (TRACE_PERIODS as usize / 2) * np);
+    let stride = periods.div_ceil(TRACE_PERIODS) as usize;
+    let scale = walked.iter().fold(0.0f64, |m, q| m.max(q.y.abs()));
+    for (i, q) in kept.iter().enumerate() {
+        let w = walked[(i / np) * stride * np + i % np];
+        assert!(
+            (q.t - w.t).abs() <= 1e-9 * w.t.max(1.0),
+            "{i}: t {} vs {}",
+            q.t,
+            w.t
+        );
+        assert!(
+            (q.y - w.y).abs() <= 1e-9 * scale,
+            "{i}: y {} vs {}",
+            q.y,
+            w.y
+        );
+        assert!(
+            (q.u - w.u).abs() <= 1e-9 * scale.max(w.u.abs()),
+            "{i}: u {} vs {}",
+            q.u,
+            w.u
+        );
+        assert_eq!(q.sample, w.sample);
+    }
+    // A span of a billion periods costs the same bounded trace.
+    let far = sampled_trace_spanning(&cl, &hold, 1.0, 0.0, 1_000_000_000);
+    assert!(far.len() <= TRACE_PERIODS as usize * np);
+    assert!(far.last().unwrap().t > 0.99 * 1e9);
 }

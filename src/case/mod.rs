@@ -45,6 +45,9 @@ pub struct Param {
 
 pub use crate::model::transfer::Controller;
 
+mod outer;
+pub use outer::{DEFAULT_RATIOS, MAX_RATIO, OuterLoop, OuterModels};
+
 /// The loop's models for one set of parameter values.
 #[derive(Debug, Clone, PartialEq)]
 pub struct LoopModels {
@@ -90,6 +93,8 @@ pub struct Case {
     pub uncertainty: Option<UncertaintyMode>,
     /// Coefficient formats whose precision ceiling is wanted, if any.
     pub arithmetic: Option<Arithmetic>,
+    /// A cascaded outer loop (`[outer]`), if any.
+    pub outer: Option<OuterLoop>,
     /// Sanity notes: values that are valid but look like a slip (a CPU
     /// clock below 1 MHz, a range no plant variant can feel). Printed by
     /// `check` and carried into the pick's notes; never an error.
@@ -251,6 +256,8 @@ struct RawCase {
     budget: Option<RawBudget>,
     uncertainty: Option<RawUncertainty>,
     arithmetic: Option<RawArithmetic>,
+    /// A cascaded outer loop (`case::outer`).
+    outer: Option<outer::RawOuter>,
 }
 
 #[derive(Deserialize)]
@@ -361,13 +368,16 @@ struct RawArithmetic {
 /// The file name used in messages, plus error constructors.
 struct Ctx {
     file: String,
+    /// Put before every field name in messages (`outer.` for the outer
+    /// loop's tables, empty for the loop's own).
+    prefix: &'static str,
 }
 
 impl Ctx {
     fn invalid(&self, field: impl Into<String>, message: impl Into<String>) -> CaseError {
         CaseError::Invalid {
             file: self.file.clone(),
-            field: field.into(),
+            field: format!("{}{}", self.prefix, Into::<String>::into(field)),
             message: message.into(),
         }
     }
@@ -379,7 +389,7 @@ impl Ctx {
     fn expression_with(&self, field: &str, text: &str, e: &ExprError, prefix: &str) -> CaseError {
         CaseError::Expression {
             file: self.file.clone(),
-            field: field.to_string(),
+            field: format!("{}{field}", self.prefix),
             expression: text.to_string(),
             column: e.column,
             message: format!("{prefix}{}", e.message),
@@ -1485,6 +1495,7 @@ impl Case {
     pub fn parse(text: &str, source: &Path) -> Result<Case, CaseError> {
         let ctx = Ctx {
             file: source.display().to_string(),
+            prefix: "",
         };
         let doc = toml::de::DeTable::parse(text).map_err(|e| {
             let (line, column) = line_column(text, e.span().map_or(0, |s| s.start));
@@ -1571,11 +1582,18 @@ impl Case {
             }
         };
 
+        let outer = raw
+            .outer
+            .map(|o| outer::outer_from(&ctx, o, raw.spec.is_some()))
+            .transpose()?;
         // Every identifier bound, every parameter used.
         let mut exprs: Vec<&Model> = vec![&plant];
         exprs.extend(sensor.as_ref());
         if let ControllerModel::Continuous(m) = &controller {
             exprs.push(m);
+        }
+        if let Some(o) = &outer {
+            exprs.extend(o.models());
         }
         let mut used: Vec<String> = Vec::new();
         for m in &exprs {
@@ -1628,6 +1646,15 @@ impl Case {
         let budget = budget_from(&ctx, raw.budget)?;
         let uncertainty = uncertainty_from(&ctx, raw.uncertainty, &params)?;
         let arithmetic = arithmetic_from(&ctx, raw.arithmetic)?;
+        if let Some(o) = &outer {
+            outer::check_outer_budget(&ctx, o, budget.as_ref())?;
+            outer::check_outer_rate(
+                &ctx,
+                o,
+                &rates,
+                matches!(controller, ControllerModel::Discrete(_)),
+            )?;
+        }
         let title = raw.title.unwrap_or_else(|| {
             source
                 .file_stem()
@@ -1684,11 +1711,13 @@ impl Case {
             budget,
             uncertainty,
             arithmetic,
+            outer,
             plant,
             sensor,
             controller,
         };
         case.nominal()?;
+        case.outer_nominal()?;
         case.check_corners()?;
         Ok(case)
     }
@@ -1706,6 +1735,7 @@ impl Case {
     pub fn models_at(&self, values: &[f64]) -> Result<LoopModels, CaseError> {
         let ctx = Ctx {
             file: self.source.display().to_string(),
+            prefix: "",
         };
         if values.len() != self.params.len() {
             return Err(ctx.invalid(

@@ -3,6 +3,7 @@
 //! the pick that puts them together.
 
 pub mod budget;
+pub mod cascade;
 pub mod pick;
 pub mod precision;
 pub mod search;

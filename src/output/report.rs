@@ -25,7 +25,7 @@ pub const REPORT_HTML: &str = "report.html";
 
 /// One piece of the report. Inline text may use `**bold**` and `` `code` ``.
 #[derive(Debug, Clone)]
-enum Block {
+pub(crate) enum Block {
     Heading(u8, String),
     Para(String),
     List(Vec<String>),
@@ -60,6 +60,28 @@ pub fn write_report(
     charts: &[Chart],
 ) -> Result<PathBuf, Error> {
     let blocks = blocks(out_dir, case, report, charts)?;
+    let md_path = out_dir.join(REPORT_MD);
+    write_atomic(&md_path, markdown(&blocks).as_bytes())?;
+    let html = html(&report.title, &blocks)?;
+    write_atomic(&out_dir.join(REPORT_HTML), html.as_bytes())?;
+    Ok(md_path)
+}
+
+/// `write_report` with `extra` blocks (a cascade's section,
+/// `cascade::output`) placed before the assumptions.
+pub(crate) fn write_report_extra(
+    out_dir: &Path,
+    case: &Case,
+    report: &PickReport,
+    charts: &[Chart],
+    extra: Vec<Block>,
+) -> Result<PathBuf, Error> {
+    let mut blocks = blocks(out_dir, case, report, charts)?;
+    let at = blocks
+        .iter()
+        .position(|b| matches!(b, Block::Heading(2, t) if t == "Assumptions"))
+        .unwrap_or(blocks.len());
+    blocks.splice(at..at, extra);
     let md_path = out_dir.join(REPORT_MD);
     write_atomic(&md_path, markdown(&blocks).as_bytes())?;
     let html = html(&report.title, &blocks)?;

@@ -98,7 +98,7 @@ fn cell(v: Option<Option<f64>>, missing: &str) -> String {
 /// The cells of `figures` for `f`: the value in the shortest form that
 /// reads back to the same double, the absence's CSV token, or empty when
 /// the evaluation has no figures (an unstable loop).
-fn figure_cells(figures: &[Figure], f: Option<&Figures>) -> Vec<String> {
+pub(crate) fn figure_cells(figures: &[Figure], f: Option<&Figures>) -> Vec<String> {
     figures
         .iter()
         .map(|fig| match f {

@@ -20,7 +20,7 @@ use crate::model::state_space::StateSpace;
 use crate::model::transfer::{Controller, DiscreteTransfer, Transfer};
 use crate::sampled::time_response::{
     DisturbanceFigures, StepFigures, TimeOptions, TracePoint, horizon_periods, sampled_figures,
-    sampled_trace,
+    sampled_trace_spanning,
 };
 
 /// Outcome of one evaluation.
@@ -188,7 +188,7 @@ impl Evaluation {
         }
     }
 
-    fn poles_only(status: Status, poles: &[C64]) -> Evaluation {
+    pub(crate) fn poles_only(status: Status, poles: &[C64]) -> Evaluation {
         Evaluation {
             status,
             stable: false,
@@ -649,7 +649,9 @@ impl PreparedLoop {
     }
 
     /// Exact traces (step, disturbance) at one point, `periods` long
-    /// (None: the horizon of the loop's slowest pole).
+    /// (None: the horizon of the loop's slowest pole), each with at most
+    /// `time_response::TRACE_PERIODS` periods of points
+    /// (`time_response::sampled_trace_spanning`).
     pub fn sampled_traces(
         &self,
         p: &Point,
@@ -657,14 +659,13 @@ impl PreparedLoop {
     ) -> Result<(Vec<TracePoint>, Vec<TracePoint>), String> {
         let (hold, _, cl) = self.sampled_loop(p)?;
         let poles = cl.poles().map_err(|e| e.to_string())?;
-        // A trace is a file or a chart: its length is capped, the figures'
-        // horizon is not.
-        let n = periods.unwrap_or_else(|| {
-            (horizon_periods(&poles, cl.a.nrows()) as usize).min(self.time.max_steps)
-        });
+        // A trace is a file or a chart: no cap in periods, but at most
+        // `TRACE_PERIODS` periods drawn point by point (longer spans keep
+        // one period in every few, jumped to by matrix powers).
+        let n = periods.map_or_else(|| horizon_periods(&poles, cl.a.nrows()), |p| p as u64);
         Ok((
-            sampled_trace(&cl, &hold, 1.0, 0.0, n),
-            sampled_trace(&cl, &hold, 0.0, 1.0, n),
+            sampled_trace_spanning(&cl, &hold, 1.0, 0.0, n),
+            sampled_trace_spanning(&cl, &hold, 0.0, 1.0, n),
         ))
     }
 
@@ -833,7 +834,7 @@ fn check_point(p: &Point) -> Result<(), String> {
     Ok(())
 }
 
-fn finish(
+pub(crate) fn finish(
     step: StepFigures,
     dist: DisturbanceFigures,
     freq: LoopFigures,

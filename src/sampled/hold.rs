@@ -616,7 +616,7 @@ impl HoldEquivalent {
     /// behind `m >= 1` more unit delays of the command: `v_k = u_{k-m}`.
     /// New states `r_1 .. r_m = u_{k-m-1} .. u_{k-2}` follow the others, so
     /// `v_{k-1} = r_1` and `v_k` is `r_2` (or `u_{k-1}` when `m = 1`).
-    fn delayed_by(self, m: usize) -> HoldEquivalent {
+    pub(crate) fn delayed_by(self, m: usize) -> HoldEquivalent {
         let n = self.phi.nrows();
         let dim = n + m;
         let mut phi = DMatrix::zeros(dim, dim);

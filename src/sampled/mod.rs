@@ -4,6 +4,7 @@
 //! continuous design as reference, one evaluation per grid point, and the
 //! verdict against the spec. Meanings: `docs/figures.md`.
 
+pub mod cascade;
 pub mod certificate;
 pub mod closed_loop;
 pub mod continuous;

@@ -22,9 +22,9 @@ pub struct TimeOptions {
     pub points_per_period: usize,
     /// Settling band as a fraction (0.02 for 2 %).
     pub band: f64,
-    /// Cap on the continuous design's simulation grid (steps) and on the
-    /// length of a sampled trace written to a file or drawn (periods).
-    /// Never a cap on the sampled loop's figures: their horizon is in
+    /// Cap on the continuous design's walked simulation grid (steps).
+    /// Never a cap on a sampled trace (`sampled_trace_spanning` bounds its
+    /// points instead) nor on the sampled loop's figures: their horizon is in
     /// seconds, from the loop's own slowest mode, and is jumped through.
     pub max_steps: usize,
 }
@@ -1259,4 +1259,72 @@ pub fn continuous_metrics(
             },
         },
     )
+}
+
+/// Most periods a trace for a chart or a file holds point by point
+/// (`sampled_trace_spanning`): past it one period in every `stride` is
+/// kept, reached by a power of the loop's one-period map, so a trace of
+/// any length costs a bounded amount of work and memory.
+pub const TRACE_PERIODS: u64 = 4096;
+
+/// Exact step (`r = 1`) or disturbance (`w = 1`) trace of a sampled loop
+/// over `periods` periods with at most `TRACE_PERIODS` periods in it: every
+/// period when they fit (`sampled_trace`), otherwise every point of one
+/// period in every `ceil(periods / TRACE_PERIODS)`, the state jumped
+/// from one kept period to the next by the affine map of that many periods
+/// (`z -> A^m z + d_m`, by repeated squaring). No cap in periods.
+pub fn sampled_trace_spanning(
+    cl: &ClosedLoop,
+    hold: &HoldEquivalent,
+    r: f64,
+    w: f64,
+    periods: u64,
+) -> Vec<TracePoint> {
+    if periods <= TRACE_PERIODS {
+        return sampled_trace(cl, hold, r, w, periods as usize);
+    }
+    let stride = periods.div_ceil(TRACE_PERIODS);
+    let map = OutputMap::new(cl, hold);
+    let dim = map.dim;
+    let drive = &cl.br * r + &cl.bw * w;
+    // The map of `stride` periods by the binary digits of `stride`: each
+    // step composes `(M, d)` with the map of 2^p periods `(P, e)`.
+    let (mut m, mut d) = (
+        nalgebra::DMatrix::<f64>::identity(dim, dim),
+        DVector::zeros(dim),
+    );
+    let (mut p, mut e) = (cl.a.clone(), drive.clone());
+    let mut left = stride;
+    while left > 0 {
+        if left & 1 == 1 {
+            d = &p * &d + &e;
+            m = &p * &m;
+        }
+        left >>= 1;
+        if left > 0 {
+            e = &p * &e + &e;
+            p = &p * &p;
+        }
+    }
+    let t = hold.period_s;
+    let np = map.np;
+    let u_off = cl.dur * r + cl.duw * w;
+    let h: Vec<f64> = (0..np).map(|j| map.hr[j] * r + map.hw[j] * w).collect();
+    let mut out = Vec::with_capacity((TRACE_PERIODS as usize + 1) * np);
+    let mut z = DVector::zeros(dim);
+    let mut k = 0u64;
+    while k < periods {
+        let u_k = cl.ku.dot(&z) + u_off;
+        for (j, hj) in h.iter().enumerate() {
+            out.push(TracePoint {
+                t: k as f64 * t + j as f64 * t / np as f64,
+                y: dot(&map.g[j * dim..(j + 1) * dim], z.as_slice()) + hj,
+                u: if map.holds_previous[j] { z[map.n] } else { u_k },
+                sample: j == 0,
+            });
+        }
+        z = &m * &z + &d;
+        k += stride;
+    }
+    out
 }

@@ -1,0 +1,653 @@
+//! The cascade's search: for each inner rate the largest ratio whose outer
+//! loop meets the outer spec (the slowest outer rate), and among the pairs
+//! that meet both specs the one with the least CPU load (`docs/figures.md`,
+//! "Cascaded loops").
+//!
+//! CPU load of a pair = (inner cycles x f + outer cycles x f/N) / cpu_hz,
+//! each update's cycles measured (`cycles_per_update`) or estimated from
+//! its controller (MACs x `cycles_per_mac` + `overhead_cycles`). Without a
+//! `[budget]` the cost is the number of updates a second, f + f/N.
+//!
+//! The load falls as the ratio grows, so at one inner rate the cheapest
+//! passing pair is the largest passing ratio: the ratios are tried from the
+//! largest down, each first screened by the lifted loop's poles alone, then
+//! by its loop figures (a failing phase margin, gain margin or sensitivity
+//! limit ends it before the time responses), and the first that passes
+//! ends the inner rate (the smaller ratios are reported as not evaluated,
+//! with that reason). `full` evaluates every pair (the `sweep` command).
+
+use rayon::prelude::*;
+use serde::Serialize;
+
+use crate::case::{Case, OuterLoop};
+use crate::error::Error;
+use crate::explore::budget;
+use crate::explore::pick::{case_methods, prepare};
+use crate::model::discretize::Method;
+use crate::model::rounding;
+use crate::model::transfer::{Controller, DiscreteTransfer};
+use crate::sampled::cascade::evaluate::{CascadePoint, OuterOutcome, PreparedCascade};
+use crate::sampled::evaluate::{Evaluation, Point};
+use crate::sampled::feasibility::{Assessment, assess};
+use crate::spec::HoldKind;
+use crate::spec::Structure;
+
+/// Build the cascade of a case (nominal parameters); None without `[outer]`.
+pub fn prepare_cascade(case: &Case) -> Result<Option<PreparedCascade>, Error> {
+    let Some(outer) = &case.outer else {
+        return Ok(None);
+    };
+    let inner = prepare(case)?;
+    let models = case.outer_nominal()?.ok_or_else(|| {
+        Error::Input("the case has [outer] but its models could not be built".into())
+    })?;
+    PreparedCascade::new(
+        inner,
+        models,
+        outer.prewarp_hz,
+        outer.spec.settling_band_pct / 100.0,
+    )
+    .map(Some)
+    .map_err(|e| Error::Input(format!("{}: [outer]: {e}", case.source.display())))
+}
+
+/// One series of the cascade grid: everything but the inner rate and the
+/// ratio.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Series {
+    pub inner_method: Option<Method>,
+    pub inner_hold: HoldKind,
+    pub inner_delay: f64,
+    pub outer_method: Option<Method>,
+    pub outer_delay: f64,
+}
+
+/// Every series of a case: inner methods x holds x delays x outer methods
+/// x outer delays, in file order.
+pub fn case_series(case: &Case, outer: &OuterLoop) -> Vec<Series> {
+    let outer_methods: Vec<Option<Method>> = if outer.methods.is_empty() {
+        vec![None]
+    } else {
+        outer.methods.iter().copied().map(Some).collect()
+    };
+    let mut out = Vec::new();
+    for &inner_method in &case_methods(case) {
+        for &inner_hold in &case.holds {
+            for &inner_delay in &case.compute_delays {
+                for &outer_method in &outer_methods {
+                    for &outer_delay in &outer.compute_delays {
+                        out.push(Series {
+                            inner_method,
+                            inner_hold,
+                            inner_delay,
+                            outer_method,
+                            outer_delay,
+                        });
+                    }
+                }
+            }
+        }
+    }
+    out
+}
+
+/// The inner rates of a case with the ratios to try at each, ascending
+/// (for an outer controller in z only the pairs on its rate).
+pub fn case_pairs(case: &Case, pc: &PreparedCascade, outer: &OuterLoop) -> Vec<(f64, Vec<usize>)> {
+    let (rates, range) = match &pc.inner.controller {
+        Controller::Discrete(d) => (vec![1.0 / d.period_s], (1.0 / d.period_s, 1.0 / d.period_s)),
+        Controller::Continuous(_) => (case.rates.grid(), (case.rates.min_hz, case.rates.max_hz)),
+    };
+    let mut out: Vec<(f64, Vec<usize>)> = Vec::new();
+    for (f, n) in outer.pairs(&rates, range) {
+        match out.iter_mut().find(|(g, _)| *g == f) {
+            Some((_, ns)) => ns.push(n),
+            None => out.push((f, vec![n])),
+        }
+    }
+    out.sort_by(|a, b| a.0.total_cmp(&b.0));
+    for (_, ns) in &mut out {
+        ns.sort_unstable();
+    }
+    out
+}
+
+/// One row of the cascade grid.
+#[derive(Debug, Clone)]
+pub struct CascadeRow {
+    pub point: CascadePoint,
+    /// The inner loop (outer loop open); shared by every ratio at its rate.
+    pub inner: Evaluation,
+    pub inner_verdict: Assessment,
+    /// The outer loop; None when not evaluated (`skipped` says why).
+    pub outer: Option<Evaluation>,
+    pub outer_verdict: Option<Assessment>,
+    pub skipped: Option<String>,
+    /// The outer loop was judged before its time responses: by its poles
+    /// (not stable) or by a failing limit on a loop figure.
+    pub screened: bool,
+    /// CPU cost of the pair.
+    pub cost: Cost,
+}
+
+impl CascadeRow {
+    /// Both loops meet their specs.
+    pub fn passes(&self) -> bool {
+        self.inner_verdict.feasible && self.outer_verdict.as_ref().is_some_and(|a| a.feasible)
+    }
+}
+
+/// The processor cost of a pair.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Cost {
+    /// Cycles of one inner and one outer update (None without a budget or
+    /// when a controller could not be built).
+    pub inner_cycles: Option<f64>,
+    pub outer_cycles: Option<f64>,
+    /// Load of each loop and their sum, percent of the CPU.
+    pub inner_load_pct: Option<f64>,
+    pub outer_load_pct: Option<f64>,
+    pub total_load_pct: Option<f64>,
+    /// Updates a second, f + f/N (the cost without a budget).
+    pub updates_per_s: f64,
+}
+
+impl Cost {
+    /// What the search minimises: the total load, or updates a second.
+    pub fn key(&self) -> f64 {
+        self.total_load_pct.unwrap_or(self.updates_per_s)
+    }
+}
+
+/// The cost of a pair at `p` with the two controllers.
+pub fn pair_cost(
+    case: &Case,
+    p: &CascadePoint,
+    inner_c: Option<&DiscreteTransfer>,
+    outer_c: Option<&DiscreteTransfer>,
+    inner_design: &Controller,
+    outer_design: &Controller,
+) -> Cost {
+    let f = p.inner.rate_hz;
+    let fo = p.outer_rate_hz();
+    let mut cost = Cost {
+        inner_cycles: None,
+        outer_cycles: None,
+        inner_load_pct: None,
+        outer_load_pct: None,
+        total_load_pct: None,
+        updates_per_s: f + fo,
+    };
+    let (Some(b), Some(outer)) = (case.budget.as_ref(), case.outer.as_ref()) else {
+        return cost;
+    };
+    let structure = case
+        .arithmetic
+        .as_ref()
+        .map_or(Structure::TransposedDirect, |a| a.structure);
+    let ci = budget::cycles_per_update(
+        b,
+        inner_c,
+        structure,
+        rounding::design_integrators(inner_design),
+    );
+    let co = match outer.cycles_per_update {
+        Some(c) => Some(c),
+        None => budget::cycles_per_update(
+            b,
+            outer_c,
+            structure,
+            rounding::design_integrators(outer_design),
+        ),
+    };
+    cost.inner_cycles = ci;
+    cost.outer_cycles = co;
+    cost.inner_load_pct = ci.map(|c| budget::load_pct(b, c, f));
+    cost.outer_load_pct = co.map(|c| budget::load_pct(b, c, fo));
+    if let (Some(a), Some(o)) = (cost.inner_load_pct, cost.outer_load_pct) {
+        cost.total_load_pct = Some(a + o);
+    }
+    cost
+}
+
+/// The rows of one (series, inner rate): the inner loop once, then the
+/// ratios (all of them with `full`, else from the largest down to the first
+/// that passes).
+fn rows_at(
+    case: &Case,
+    pc: &PreparedCascade,
+    series: &Series,
+    rate_hz: f64,
+    ratios: &[usize],
+    full: bool,
+) -> Vec<CascadeRow> {
+    let outer = case.outer.as_ref().expect("rows_at runs on a cascade case");
+    let inner_point = Point {
+        rate_hz,
+        method: series.inner_method,
+        delay: series.inner_delay,
+        hold: series.inner_hold,
+    };
+    let inner = pc.inner.sampled(&inner_point);
+    let inner_verdict = assess(&inner, &case.spec);
+    let inner_c = pc.inner.controller_at(rate_hz, series.inner_method).ok();
+    // The inner loop on the whole plant, shared by every ratio here.
+    let closed = ratios.first().map(|&n| {
+        pc.inner_closed(
+            &CascadePoint {
+                inner: inner_point,
+                ratio: n,
+                outer_method: series.outer_method,
+                outer_delay: series.outer_delay,
+            },
+            pc.outer_time.points_per_period,
+        )
+    });
+    let mut rows: Vec<CascadeRow> = Vec::with_capacity(ratios.len());
+    let mut found = false;
+    for &n in ratios.iter().rev() {
+        let point = CascadePoint {
+            inner: inner_point,
+            ratio: n,
+            outer_method: series.outer_method,
+            outer_delay: series.outer_delay,
+        };
+        let outer_c = pc.outer_controller(&point).ok();
+        let cost = pair_cost(
+            case,
+            &point,
+            inner_c.as_ref(),
+            outer_c.as_ref(),
+            &pc.inner.controller,
+            &pc.outer_models.controller,
+        );
+        let skip = |why: String| CascadeRow {
+            point,
+            inner: inner.clone(),
+            inner_verdict: inner_verdict.clone(),
+            outer: None,
+            outer_verdict: None,
+            skipped: Some(why),
+            screened: false,
+            cost,
+        };
+        if !full {
+            if found {
+                rows.push(skip(
+                    "not evaluated: a larger ratio passes at this inner rate".into(),
+                ));
+                continue;
+            }
+            if !inner_verdict.feasible {
+                rows.push(skip("not evaluated: the inner loop fails its spec".into()));
+                continue;
+            }
+            let screened = match &closed {
+                Some(Ok(inner)) => pc.screen_on(inner, &point),
+                Some(Err(e)) => Some(Evaluation::error(e.clone())),
+                None => None,
+            };
+            if let Some(e) = screened {
+                rows.push(CascadeRow {
+                    outer_verdict: Some(assess(&e, &outer.spec)),
+                    outer: Some(e),
+                    skipped: None,
+                    screened: true,
+                    ..skip(String::new())
+                });
+                continue;
+            }
+        }
+        let outcome = match &closed {
+            Some(Ok(inner)) => {
+                pc.evaluate_outer_on(inner, &point, false, (!full).then_some(&outer.spec))
+            }
+            Some(Err(e)) => OuterOutcome::Figures(Box::new(Evaluation::error(e.clone()))),
+            None => OuterOutcome::Figures(Box::new(pc.evaluate_outer(&point, false))),
+        };
+        let e = match outcome {
+            OuterOutcome::Figures(e) => *e,
+            OuterOutcome::FailsLoopFigures(verdict) => {
+                let why = verdict
+                    .checks
+                    .iter()
+                    .filter(|c| !c.pass)
+                    .map(|c| {
+                        format!(
+                            "{} = {} against {}",
+                            c.figure,
+                            c.value
+                                .map_or_else(|| "none".into(), crate::engineering::sig4),
+                            crate::engineering::sig4(c.limit)
+                        )
+                    })
+                    .collect::<Vec<_>>()
+                    .join("; ");
+                rows.push(CascadeRow {
+                    point,
+                    inner: inner.clone(),
+                    inner_verdict: inner_verdict.clone(),
+                    outer: None,
+                    outer_verdict: Some(verdict),
+                    skipped: Some(format!(
+                        "fails the outer spec on its loop figures ({why}); time figures not computed"
+                    )),
+                    screened: true,
+                    cost,
+                });
+                continue;
+            }
+        };
+        let verdict = assess(&e, &outer.spec);
+        found |= verdict.feasible && inner_verdict.feasible;
+        rows.push(CascadeRow {
+            point,
+            inner: inner.clone(),
+            inner_verdict: inner_verdict.clone(),
+            outer: Some(e),
+            outer_verdict: Some(verdict),
+            skipped: None,
+            screened: false,
+            cost,
+        });
+    }
+    rows.reverse();
+    rows
+}
+
+/// Every row of the cascade grid in grid order (series, inner rate,
+/// ratio), evaluated in parallel; `full` evaluates every pair.
+pub fn cascade_rows(case: &Case, pc: &PreparedCascade, full: bool) -> Vec<CascadeRow> {
+    let Some(outer) = &case.outer else {
+        return Vec::new();
+    };
+    let series = case_series(case, outer);
+    let pairs = case_pairs(case, pc, outer);
+    let jobs: Vec<(&Series, &(f64, Vec<usize>))> = series
+        .iter()
+        .flat_map(|s| pairs.iter().map(move |p| (s, p)))
+        .collect();
+    jobs.par_iter()
+        .map(|(s, (f, ns))| rows_at(case, pc, s, *f, ns, full))
+        .collect::<Vec<_>>()
+        .into_iter()
+        .flatten()
+        .collect()
+}
+
+/// Per inner rate of a series, the largest ratio that meets both specs.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct SeriesAnswer {
+    #[serde(flatten)]
+    pub series: SeriesNames,
+    /// `(inner rate, largest passing ratio or None)`, ascending in rate.
+    pub largest_ratio: Vec<(f64, Option<usize>)>,
+}
+
+/// A series with its identities as names.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct SeriesNames {
+    pub inner_method: String,
+    pub inner_hold: String,
+    pub inner_compute_delay: f64,
+    pub outer_method: String,
+    pub outer_compute_delay: f64,
+}
+
+impl SeriesNames {
+    pub fn of(p: &CascadePoint) -> SeriesNames {
+        SeriesNames {
+            inner_method: method_name(p.inner.method),
+            inner_hold: p.inner.hold.name().to_string(),
+            inner_compute_delay: p.inner.delay,
+            outer_method: method_name(p.outer_method),
+            outer_compute_delay: p.outer_delay,
+        }
+    }
+}
+
+/// A method's name, `given-in-z` for a controller given in z.
+pub fn method_name(m: Option<Method>) -> String {
+    m.map_or_else(|| "given-in-z".to_string(), |m| m.name().to_string())
+}
+
+/// The chosen pair.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ChosenPair {
+    #[serde(flatten)]
+    pub series: SeriesNames,
+    pub inner_rate_hz: f64,
+    pub ratio: usize,
+    pub outer_rate_hz: f64,
+    pub cost: Cost,
+    /// Both loops' figures at the pair, exact delay margins searched.
+    pub inner: Evaluation,
+    pub outer: Evaluation,
+    pub inner_verdict: Assessment,
+    pub outer_verdict: Assessment,
+}
+
+/// The window of inner rates for the chosen series: from the lowest inner
+/// rate above which every checked rate has a passing pair, to the highest
+/// whose cheapest passing pair fits the CPU budget.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct CascadeWindow {
+    pub low_hz: Option<f64>,
+    pub high_hz: Option<f64>,
+    /// `cpu-budget` or `last-rate-checked`.
+    pub high_bound: &'static str,
+}
+
+/// The cascade's answer (`pick.json` `cascade`).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct CascadePick {
+    pub ratios: Vec<usize>,
+    pub series: Vec<SeriesAnswer>,
+    pub chosen: Option<ChosenPair>,
+    pub window_hz: Option<[f64; 2]>,
+    pub window: Option<CascadeWindow>,
+    /// Rows evaluated in full, judged before their time responses (poles,
+    /// or a failing loop figure), not evaluated.
+    pub evaluated: usize,
+    pub screened: usize,
+    pub not_evaluated: usize,
+    pub advice: Vec<String>,
+    pub notes: Vec<String>,
+}
+
+/// The cascade's pick from its rows (`cascade_rows`).
+pub fn cascade_pick(case: &Case, pc: &PreparedCascade, rows: &[CascadeRow]) -> CascadePick {
+    let outer = case
+        .outer
+        .as_ref()
+        .expect("cascade_pick runs on a cascade case");
+    let mut series: Vec<SeriesAnswer> = Vec::new();
+    for r in rows {
+        let names = SeriesNames::of(&r.point);
+        let idx = match series.iter().position(|s| s.series == names) {
+            Some(i) => i,
+            None => {
+                series.push(SeriesAnswer {
+                    series: names,
+                    largest_ratio: Vec::new(),
+                });
+                series.len() - 1
+            }
+        };
+        let list = &mut series[idx].largest_ratio;
+        let f = r.point.inner.rate_hz;
+        let entry = match list.iter_mut().find(|(g, _)| *g == f) {
+            Some(e) => e,
+            None => {
+                list.push((f, None));
+                list.last_mut().expect("just pushed")
+            }
+        };
+        if r.passes() {
+            entry.1 = Some(entry.1.map_or(r.point.ratio, |n| n.max(r.point.ratio)));
+        }
+    }
+    // The recommendation is made at the largest delays listed (the
+    // conservative choice, as for a single loop).
+    let inner_delay = case.compute_delays.iter().copied().fold(0.0, f64::max);
+    let outer_delay = outer.compute_delays.iter().copied().fold(0.0, f64::max);
+    let max_load = case.budget.as_ref().map(|b| b.max_load_pct);
+    let fits = |r: &CascadeRow| match (max_load, r.cost.total_load_pct) {
+        (Some(m), Some(l)) => l <= m,
+        (Some(_), None) => false,
+        (None, _) => true,
+    };
+    let at_design =
+        |r: &&CascadeRow| r.point.inner.delay == inner_delay && r.point.outer_delay == outer_delay;
+    let best = rows
+        .iter()
+        .filter(at_design)
+        .filter(|r| r.passes() && fits(r))
+        .min_by(|a, b| a.cost.key().total_cmp(&b.cost.key()));
+    let cheapest_passing = rows
+        .iter()
+        .filter(at_design)
+        .filter(|r| r.passes())
+        .min_by(|a, b| a.cost.key().total_cmp(&b.cost.key()));
+    let chosen = best.map(|r| {
+        let e = pc.evaluate(&r.point, true);
+        ChosenPair {
+            series: SeriesNames::of(&r.point),
+            inner_rate_hz: r.point.inner.rate_hz,
+            ratio: r.point.ratio,
+            outer_rate_hz: r.point.outer_rate_hz(),
+            cost: r.cost,
+            inner_verdict: assess(&e.inner, &case.spec),
+            outer_verdict: assess(&e.outer, &outer.spec),
+            inner: e.inner,
+            outer: e.outer,
+        }
+    });
+    // The window, on the chosen series (or the cheapest passing one).
+    let window = cheapest_passing.map(|c| {
+        let names = SeriesNames::of(&c.point);
+        let mut by_rate: Vec<(f64, Option<&CascadeRow>)> = Vec::new();
+        for r in rows.iter().filter(|r| SeriesNames::of(&r.point) == names) {
+            let f = r.point.inner.rate_hz;
+            if !by_rate.iter().any(|(g, _)| *g == f) {
+                by_rate.push((f, None));
+            }
+            if r.passes() {
+                let slot = by_rate
+                    .iter_mut()
+                    .find(|(g, _)| *g == f)
+                    .expect("pushed above");
+                if slot.1.is_none_or(|b| r.cost.key() < b.cost.key()) {
+                    slot.1 = Some(r);
+                }
+            }
+        }
+        by_rate.sort_by(|a, b| a.0.total_cmp(&b.0));
+        let low = by_rate
+            .iter()
+            .rposition(|(_, r)| r.is_none())
+            .map_or(Some(0), |i| (i + 1 < by_rate.len()).then_some(i + 1))
+            .map(|i| by_rate[i].0);
+        let (high, bound) = match max_load {
+            Some(_) => (
+                by_rate
+                    .iter()
+                    .filter(|(_, r)| r.is_some_and(fits))
+                    .map(|(f, _)| *f)
+                    .fold(None, |m: Option<f64>, f| Some(m.map_or(f, |m| m.max(f)))),
+                "cpu-budget",
+            ),
+            None => (by_rate.last().map(|(f, _)| *f), "last-rate-checked"),
+        };
+        CascadeWindow {
+            low_hz: low,
+            high_hz: high,
+            high_bound: bound,
+        }
+    });
+    let window_hz = window.as_ref().and_then(|w| match (w.low_hz, w.high_hz) {
+        (Some(l), Some(h)) if l <= h => Some([l, h]),
+        _ => None,
+    });
+    let mut advice = Vec::new();
+    if chosen.is_none() {
+        advice = cascade_advice(case, rows, cheapest_passing, max_load);
+    }
+    let mut notes = Vec::new();
+    if !outer.inner_spec_given {
+        notes.push(
+            "the case has no [spec] for the inner loop: it is checked for stability only".into(),
+        );
+    }
+    if case.uncertainty.is_some() || case.arithmetic.is_some() {
+        notes.push("the cascade is evaluated on the nominal plant with exact coefficients ([uncertainty] and [arithmetic] apply to the inner loop's own pick)".into());
+    }
+    CascadePick {
+        ratios: outer.ratios.clone(),
+        series,
+        chosen,
+        window_hz,
+        window,
+        evaluated: rows
+            .iter()
+            .filter(|r| r.outer.is_some() && !r.screened)
+            .count(),
+        screened: rows.iter().filter(|r| r.screened).count(),
+        not_evaluated: rows.iter().filter(|r| r.outer_verdict.is_none()).count(),
+        advice,
+        notes,
+    }
+}
+
+/// What would open an empty cascade answer.
+fn cascade_advice(
+    case: &Case,
+    rows: &[CascadeRow],
+    cheapest_passing: Option<&CascadeRow>,
+    max_load: Option<f64>,
+) -> Vec<String> {
+    let mut out = Vec::new();
+    if let (Some(r), Some(limit), Some(b)) = (cheapest_passing, max_load, case.budget.as_ref()) {
+        if let Some(load) = r.cost.total_load_pct {
+            out.push(format!(
+                "the cheapest pair meeting both specs (inner {} Hz, ratio {}, outer {} Hz) needs {:.4} % of the CPU, above max_load_pct = {limit}: raise max_load_pct to {:.4} or more, or a CPU clock of {:.4e} Hz or more, or cheaper updates",
+                crate::engineering::sig4(r.point.inner.rate_hz),
+                r.point.ratio,
+                crate::engineering::sig4(r.point.outer_rate_hz()),
+                load,
+                (load * 1.0001).max(limit),
+                b.cpu_hz * load / limit * 1.0001,
+            ));
+        }
+        return out;
+    }
+    if rows.iter().all(|r| !r.inner_verdict.feasible) {
+        let limiting = rows
+            .iter()
+            .filter_map(|r| r.inner_verdict.limiting)
+            .next()
+            .map_or("stability", |l| l.label());
+        out.push(format!(
+            "the inner loop meets its spec at no inner rate checked (limiting: {limiting}): run the single-loop pick on the inner loop, loosen [spec] or raise [rates] max_hz"
+        ));
+        return out;
+    }
+    let smallest = rows
+        .iter()
+        .filter(|r| r.inner_verdict.feasible)
+        .filter_map(|r| r.outer_verdict.as_ref().map(|v| (r, v)))
+        .max_by(|a, b| a.1.slack.total_cmp(&b.1.slack));
+    match smallest {
+        Some((r, v)) => out.push(format!(
+            "the outer loop meets its spec at no pair where the inner loop passes; the closest is inner {} Hz, ratio {} (limiting: {}, slack {:.3}): a smaller ratio (add one to [outer.rates] ratios), a looser [outer.spec], another outer method or a shorter outer delay",
+            crate::engineering::sig4(r.point.inner.rate_hz),
+            r.point.ratio,
+            v.limiting.map_or("stability", |l| l.label()),
+            v.slack
+        )),
+        None => out.push(
+            "no outer loop was evaluated (every inner rate fails the inner spec)".to_string(),
+        ),
+    }
+    out
+}

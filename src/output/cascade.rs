@@ -1,0 +1,450 @@
+//! Outputs of a cascade: the `outer` object of `eval --json` and its text,
+//! the cascade's `sweep.csv` (`cascade.csv` beside the loop's own rows),
+//! and the report section. The figure keys are the loop's own
+//! (`summary::evaluation_json`, `outputs::SWEEP_COLUMNS` names), so the
+//! outer object reads like the inner one.
+
+use std::fmt::Write as _;
+use std::path::Path;
+
+use serde_json::{Value, json};
+
+use crate::case::Case;
+use crate::engineering::sig4 as fmt_num;
+use crate::error::Error;
+use crate::explore::cascade::{
+    CascadePick, CascadeRow, cascade_pick, cascade_rows, method_name, prepare_cascade,
+};
+use crate::explore::pick::PickReport;
+use crate::output::cascade_charts::write_cascade_charts;
+use crate::output::charts::Chart;
+use crate::output::report::{Block, write_report_extra};
+use crate::output::summary::{evaluation_json, evaluation_text};
+use crate::output::tables::figure_cells;
+use crate::output::writer::write_atomic;
+use crate::sampled::cascade::evaluate::CascadePoint;
+use crate::sampled::evaluate::Evaluation;
+use crate::sampled::feasibility::assess;
+use crate::sampled::figure::Figure;
+
+/// The `outer` object of `eval --json`: the outer loop's figures under the
+/// loop's own keys, plus where it runs and its verdict on `[outer.spec]`.
+pub fn outer_json(case: &Case, p: &CascadePoint, e: &Evaluation) -> Value {
+    let mut v = evaluation_json(e);
+    if let Value::Object(m) = &mut v {
+        m.insert("ratio".into(), json!(p.ratio));
+        m.insert("rate_hz".into(), json!(p.outer_rate_hz()));
+        m.insert("period_s".into(), json!(1.0 / p.outer_rate_hz()));
+        m.insert("method".into(), json!(method_name(p.outer_method)));
+        m.insert("compute_delay".into(), json!(p.outer_delay));
+        if let Some(outer) = &case.outer {
+            let a = assess(e, &outer.spec);
+            m.insert("feasible".into(), json!(a.feasible));
+            m.insert("limiting".into(), json!(a.limiting));
+            m.insert(
+                "checks".into(),
+                serde_json::to_value(&a.checks).unwrap_or(Value::Null),
+            );
+        }
+    }
+    v
+}
+
+/// The outer loop's table for `eval` (text).
+pub fn outer_text(case: &Case, p: &CascadePoint, e: &Evaluation) -> String {
+    let header = format!(
+        "outer loop: ratio {}, rate {} Hz, method {}, computation delay {} of the outer period; lifted over one outer period, broken at the outer controller's output; time figures on the outer plant output (points between inner samples included), load step at the outer plant's input",
+        p.ratio,
+        fmt_num(p.outer_rate_hz()),
+        method_name(p.outer_method),
+        p.outer_delay
+    );
+    let spec = case
+        .outer
+        .as_ref()
+        .map(|o| o.spec.clone())
+        .unwrap_or_else(|| case.spec.clone());
+    format!(
+        "\n{}",
+        evaluation_text("Outer loop", &header, e, None, &[], &spec)
+    )
+}
+
+/// The figure columns of one loop in the cascade rows: the catalogue's
+/// figures ([`Figure::ALL`]) and the figures left undecided, each prefixed
+/// with the loop's name (`inner_`, `outer_`).
+fn loop_columns(prefix: &str) -> impl Iterator<Item = String> + '_ {
+    Figure::ALL
+        .into_iter()
+        .map(move |f| format!("{prefix}_{}", f.key()))
+        .chain(std::iter::once(format!("{prefix}_undecided")))
+}
+
+/// The header of the cascade rows.
+pub fn cascade_header() -> Vec<String> {
+    let mut h: Vec<String> = [
+        "inner_rate_hz",
+        "ratio",
+        "outer_rate_hz",
+        "inner_method",
+        "inner_hold",
+        "inner_compute_delay",
+        "outer_method",
+        "outer_compute_delay",
+        "inner_status",
+    ]
+    .iter()
+    .map(|s| s.to_string())
+    .collect();
+    h.extend(loop_columns("inner"));
+    h.extend(
+        ["inner_feasible", "inner_limiting", "outer_status"]
+            .iter()
+            .map(|s| s.to_string()),
+    );
+    h.extend(loop_columns("outer"));
+    h.extend(
+        [
+            "outer_feasible",
+            "outer_limiting",
+            "both_feasible",
+            "inner_load_pct",
+            "outer_load_pct",
+            "total_load_pct",
+        ]
+        .iter()
+        .map(|s| s.to_string()),
+    );
+    h
+}
+
+fn quote(cell: &str) -> String {
+    if cell.contains([',', '"', '\n']) {
+        format!("\"{}\"", cell.replace('"', "\"\""))
+    } else {
+        cell.to_string()
+    }
+}
+
+fn opt_num(v: Option<f64>) -> String {
+    v.map_or_else(String::new, |v| format!("{v}"))
+}
+
+/// One CSV line of a cascade row.
+pub fn cascade_line(r: &CascadeRow) -> String {
+    let p = &r.point;
+    let mut cells: Vec<String> = vec![
+        format!("{}", p.inner.rate_hz),
+        p.ratio.to_string(),
+        format!("{}", p.outer_rate_hz()),
+        method_name(p.inner.method),
+        p.inner.hold.name().to_string(),
+        format!("{}", p.inner.delay),
+        method_name(p.outer_method),
+        format!("{}", p.outer_delay),
+        r.inner.status.label(),
+    ];
+    let figures = |e: Option<&Evaluation>, cells: &mut Vec<String>| {
+        let f = e.and_then(|e| e.figures.as_ref());
+        cells.extend(figure_cells(&Figure::ALL, f));
+        cells.push(f.map(|f| f.undecided.join(" ")).unwrap_or_default());
+    };
+    figures(Some(&r.inner), &mut cells);
+    cells.push(r.inner_verdict.feasible.to_string());
+    cells.push(
+        r.inner_verdict
+            .limiting
+            .map_or(String::new(), |l| l.key().to_string()),
+    );
+    cells.push(match (&r.outer, &r.skipped) {
+        (Some(e), _) => e.status.label(),
+        (None, Some(why)) => why.clone(),
+        (None, None) => String::new(),
+    });
+    figures(r.outer.as_ref(), &mut cells);
+    match &r.outer_verdict {
+        Some(v) => {
+            cells.push(v.feasible.to_string());
+            cells.push(v.limiting.map_or(String::new(), |l| l.key().to_string()));
+        }
+        None => {
+            cells.push(String::new());
+            cells.push(String::new());
+        }
+    }
+    cells.push(match &r.outer_verdict {
+        Some(_) => r.passes().to_string(),
+        None => String::new(),
+    });
+    cells.push(opt_num(r.cost.inner_load_pct));
+    cells.push(opt_num(r.cost.outer_load_pct));
+    cells.push(opt_num(r.cost.total_load_pct));
+    cells.iter().map(|c| quote(c)).collect::<Vec<_>>().join(",")
+}
+
+/// The whole cascade CSV (header and one line per row, grid order).
+pub fn cascade_csv(rows: &[CascadeRow]) -> String {
+    let mut s = cascade_header().join(",");
+    s.push('\n');
+    for r in rows {
+        s.push_str(&cascade_line(r));
+        s.push('\n');
+    }
+    s
+}
+
+/// The cascade's answer in text (terminal and report).
+pub fn cascade_text(pick: &CascadePick) -> String {
+    let mut s = String::new();
+    let _ = writeln!(
+        s,
+        "Cascade (outer loop every N-th inner tick, ratios {:?})",
+        pick.ratios
+    );
+    match &pick.chosen {
+        Some(c) => {
+            let _ = writeln!(
+                s,
+                "  chosen pair: inner {} Hz ({}, delay {}), ratio {}, outer {} Hz ({}, delay {} of its period)",
+                fmt_num(c.inner_rate_hz),
+                c.series.inner_method,
+                c.series.inner_compute_delay,
+                c.ratio,
+                fmt_num(c.outer_rate_hz),
+                c.series.outer_method,
+                c.series.outer_compute_delay
+            );
+            match c.cost.total_load_pct {
+                Some(l) => {
+                    let _ = writeln!(
+                        s,
+                        "  CPU load: {} % (inner {} %, outer {} %)",
+                        fmt_num(l),
+                        fmt_num(c.cost.inner_load_pct.unwrap_or(f64::NAN)),
+                        fmt_num(c.cost.outer_load_pct.unwrap_or(f64::NAN))
+                    );
+                }
+                None => {
+                    let _ = writeln!(s, "  updates a second: {}", fmt_num(c.cost.updates_per_s));
+                }
+            }
+            for (name, e) in [("inner", &c.inner), ("outer", &c.outer)] {
+                if let Some(f) = &e.figures {
+                    let _ = writeln!(
+                        s,
+                        "  {name}: overshoot {} %, settling {} s, phase margin {} deg, gain margin {} dB, Ms {}",
+                        f.overshoot_pct.map_or("-".into(), fmt_num),
+                        f.settling_time_s.map_or("not settled".into(), fmt_num),
+                        f.phase_margin_deg.map_or("inf".into(), fmt_num),
+                        f.gain_margin_db.map_or("inf".into(), fmt_num),
+                        fmt_num(f.sensitivity_peak)
+                    );
+                }
+            }
+        }
+        None => {
+            let _ = writeln!(s, "  no pair meets both specs within the budget");
+        }
+    }
+    match pick.window_hz {
+        Some([lo, hi]) => {
+            let _ = writeln!(
+                s,
+                "  inner-rate window: {} to {} Hz (top: {})",
+                fmt_num(lo),
+                fmt_num(hi),
+                pick.window.as_ref().map_or("", |w| w.high_bound)
+            );
+        }
+        None => {
+            let _ = writeln!(s, "  inner-rate window: empty");
+        }
+    }
+    for a in &pick.advice {
+        let _ = writeln!(s, "  advice: {a}");
+    }
+    for n in &pick.notes {
+        let _ = writeln!(s, "  note: {n}");
+    }
+    s
+}
+
+/// File name of the inner loop's own sweep in a cascade run (`sweep.csv`
+/// holds the cascade's rows there).
+pub const INNER_SWEEP_CSV: &str = "inner-sweep.csv";
+
+/// The name of the single loop's `sweep.csv` in a run of `case`:
+/// `inner-sweep.csv` when the case has `[outer]`.
+pub fn loop_sweep_name(case: &Case) -> &'static str {
+    if case.outer.is_some() {
+        INNER_SWEEP_CSV
+    } else {
+        "sweep.csv"
+    }
+}
+
+/// The report's cascade section.
+fn report_blocks(pick: &CascadePick, charts: &[Chart], out_dir: &Path) -> Vec<Block> {
+    let mut b = vec![Block::Heading(2, "Cascade: inner and outer loop".into())];
+    b.push(Block::Para(
+        "The outer loop updates every N-th inner tick on the same processor; its command is the inner loop's reference, held until the next outer update. Both loops are evaluated exactly over one outer period (lifting). The outer figures are broken at the outer controller's output and taken on the outer plant output between inner samples too; the inner figures are the inner loop's own, with the outer loop open. The pair chosen is the one meeting both specs with the least CPU load (inner cycles x f + outer cycles x f/N).".into(),
+    ));
+    let mut lines: Vec<String> = Vec::new();
+    match &pick.chosen {
+        Some(c) => {
+            lines.push(format!(
+                "chosen pair: inner loop {} ({}, computation delay {} periods), ratio {}, outer loop {} ({}, computation delay {} of its period)",
+                crate::engineering::hz(c.inner_rate_hz),
+                c.series.inner_method,
+                c.series.inner_compute_delay,
+                c.ratio,
+                crate::engineering::hz(c.outer_rate_hz),
+                c.series.outer_method,
+                c.series.outer_compute_delay
+            ));
+            if let Some(l) = c.cost.total_load_pct {
+                lines.push(format!(
+                    "CPU load {} % = inner {} % + outer {} %",
+                    fmt_num(l),
+                    fmt_num(c.cost.inner_load_pct.unwrap_or(f64::NAN)),
+                    fmt_num(c.cost.outer_load_pct.unwrap_or(f64::NAN))
+                ));
+            }
+        }
+        None => lines.push("no pair meets both specs within the budget".into()),
+    }
+    if let Some([lo, hi]) = pick.window_hz {
+        lines.push(format!(
+            "inner-rate window: {} to {} (top set by: {})",
+            crate::engineering::hz(lo),
+            crate::engineering::hz(hi),
+            pick.window.as_ref().map_or("", |w| w.high_bound)
+        ));
+    }
+    lines.extend(pick.advice.iter().map(|a| format!("advice: {a}")));
+    lines.extend(pick.notes.iter().map(|n| format!("note: {n}")));
+    b.push(Block::List(lines));
+    if let Some(c) = &pick.chosen {
+        let head = vec![
+            "figure".to_string(),
+            "inner".to_string(),
+            "outer".to_string(),
+        ];
+        let rows: Vec<Vec<String>> = Figure::ALL
+            .into_iter()
+            .map(|fig| {
+                let cell = |e: &Evaluation| {
+                    e.figures
+                        .as_ref()
+                        .map_or_else(|| e.status.label(), |f| fig.cell(f))
+                };
+                vec![fig.heading(), cell(&c.inner), cell(&c.outer)]
+            })
+            .collect();
+        b.push(Block::Table(head, rows));
+    }
+    let largest: Vec<Vec<String>> = pick
+        .series
+        .iter()
+        .flat_map(|s| {
+            s.largest_ratio.iter().map(move |(f, n)| {
+                vec![
+                    format!("{} / {}", s.series.inner_method, s.series.outer_method),
+                    crate::engineering::hz(*f),
+                    n.map_or_else(|| "none".into(), |n| n.to_string()),
+                ]
+            })
+        })
+        .collect();
+    b.push(Block::Para(
+        "Per inner rate, the largest ratio (slowest outer rate) at which both loops meet their specs:".into(),
+    ));
+    b.push(Block::Table(
+        vec![
+            "methods (inner / outer)".into(),
+            "inner rate".into(),
+            "largest passing ratio".into(),
+        ],
+        largest,
+    ));
+    for ch in charts {
+        let rel = ch
+            .path
+            .strip_prefix(out_dir)
+            .unwrap_or(&ch.path)
+            .display()
+            .to_string();
+        let caption = if rel.contains("cpu-map") {
+            "Every (inner rate, ratio) pair: meeting both specs or not, the chosen pair, lines of equal CPU load"
+        } else {
+            "Outer-loop figures against the ratio, one series per inner rate, with the outer spec's limits"
+        };
+        b.push(Block::Image {
+            rel,
+            png: ch.png.clone(),
+            caption: caption.into(),
+        });
+    }
+    b
+}
+
+/// A finished cascade run: its rows, its answer and `pick.json` as a value
+/// (the single loop's object with the `cascade` object added).
+pub struct CascadeRun {
+    pub rows: Vec<CascadeRow>,
+    pub pick: CascadePick,
+    pub json: Value,
+}
+
+/// The cascade part of `pick` on a case with `[outer]`, after the inner
+/// loop's own pick: the search, `sweep.csv` (the cascade's rows),
+/// `pick.json` (with `cascade`), the two charts (unless `no_charts`) and
+/// the report with its cascade section. `charts` are the single loop's.
+pub fn finish_pick(
+    out_dir: &Path,
+    case: &Case,
+    report: &PickReport,
+    charts: &[Chart],
+    no_charts: bool,
+) -> Result<CascadeRun, Error> {
+    let pc = prepare_cascade(case)?
+        .ok_or_else(|| Error::Input("the case has no [outer] table".into()))?;
+    let rows = cascade_rows(case, &pc, false);
+    let pick = cascade_pick(case, &pc, &rows);
+    write_atomic(&out_dir.join("sweep.csv"), cascade_csv(&rows).as_bytes())?;
+    let mut json = serde_json::to_value(report).unwrap_or(Value::Null);
+    if let Value::Object(m) = &mut json {
+        m.insert(
+            "cascade".into(),
+            serde_json::to_value(&pick).unwrap_or(Value::Null),
+        );
+    }
+    let pretty = serde_json::to_vec_pretty(&json).map_err(|e| Error::Output {
+        path: out_dir.join("pick.json").display().to_string(),
+        message: e.to_string(),
+    })?;
+    write_atomic(&out_dir.join("pick.json"), &pretty)?;
+    let cascade_charts = if no_charts {
+        Vec::new()
+    } else {
+        write_cascade_charts(out_dir, case, &pc, &rows, &pick)?
+    };
+    write_report_extra(
+        out_dir,
+        case,
+        report,
+        charts,
+        report_blocks(&pick, &cascade_charts, out_dir),
+    )?;
+    Ok(CascadeRun { rows, pick, json })
+}
+
+/// The cascade part of `sweep` on a case with `[outer]`: every pair
+/// evaluated, written to `sweep.csv`; returns the rows.
+pub fn finish_sweep(out_dir: &Path, case: &Case) -> Result<Vec<CascadeRow>, Error> {
+    let pc = prepare_cascade(case)?
+        .ok_or_else(|| Error::Input("the case has no [outer] table".into()))?;
+    let rows = cascade_rows(case, &pc, true);
+    write_atomic(&out_dir.join("sweep.csv"), cascade_csv(&rows).as_bytes())?;
+    Ok(rows)
+}

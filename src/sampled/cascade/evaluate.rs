@@ -1,0 +1,520 @@
+//! One cascade point: the inner loop at its rate, method and delay, the
+//! outer loop at `inner rate / ratio` with its method and delay, and the
+//! figures of both (`docs/figures.md`, "Cascaded loops").
+//!
+//! The inner figures are the single loop's, taken with the outer loop
+//! open (the outer plant does not act back on the inner one). The outer
+//! figures are those of the lifted system (`lift`): its step and load
+//! responses on the outer plant output, points between inner samples
+//! included; its loop gain broken at the outer controller's output; its
+//! delay margin on the lifted loop's poles.
+
+use serde::Serialize;
+
+use crate::case::OuterModels;
+use crate::model::discretize::Method;
+use crate::model::matrix::ModelError;
+use crate::model::poly::C64;
+use crate::model::transfer::{Controller, DiscreteTransfer};
+use crate::sampled::cascade::lift::{CombinedPlant, InnerClosed, LiftError, combined_plant};
+use crate::sampled::closed_loop::{ClosedLoop, Stability};
+use crate::sampled::delay_margin::{DelayMargin, MAX_DELAY_PERIODS};
+use crate::sampled::evaluate::{Evaluation, Point, PreparedLoop, Status, finish};
+use crate::sampled::feasibility::{Assessment, LimitCheck, UNSTABLE_SLACK};
+use crate::sampled::figure::{Figure, Limiting, Missing};
+use crate::sampled::frequency::{FrequencyRange, LoopFigures, loop_figures};
+use crate::sampled::hold::HoldEquivalent;
+use crate::sampled::time_response::{
+    TimeOptions, TracePoint, horizon_steps, sampled_figures, sampled_trace,
+};
+use crate::spec::Spec;
+
+/// A point of the cascade grid.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct CascadePoint {
+    /// The inner loop's rate, method, hold and computation delay.
+    pub inner: Point,
+    /// Outer rate = inner rate / ratio (a whole number >= 1).
+    pub ratio: usize,
+    /// Method for a continuous outer controller (None: given in z).
+    pub outer_method: Option<Method>,
+    /// Outer computation delay, a fraction of the outer period.
+    pub outer_delay: f64,
+}
+
+impl CascadePoint {
+    /// The outer loop's rate, Hz.
+    pub fn outer_rate_hz(&self) -> f64 {
+        self.inner.rate_hz / self.ratio as f64
+    }
+}
+
+/// Both loops' figures at a cascade point.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct CascadeEvaluation {
+    /// The inner loop with the outer loop open.
+    pub inner: Evaluation,
+    /// The outer loop, lifted over one outer period.
+    pub outer: Evaluation,
+}
+
+/// Everything about a cascade that does not depend on the rates.
+#[derive(Debug, Clone)]
+pub struct PreparedCascade {
+    /// The inner loop as a single loop.
+    pub inner: PreparedLoop,
+    /// The outer loop around an ideal inner loop (inner output = its
+    /// reference): the outer controller's discretization (and its
+    /// pre-warp frequency) comes from it, and it is the limit the outer
+    /// figures tend to as the inner loop gets fast.
+    pub ideal: PreparedLoop,
+    pub outer_models: OuterModels,
+    pub combined: CombinedPlant,
+    /// Time-response options of the outer loop (its settling band).
+    pub outer_time: TimeOptions,
+    /// Continuous poles and zeros of the outer plant, sensor and
+    /// controller (rad/s), for the outer frequency grid.
+    outer_roots: Vec<C64>,
+}
+
+/// The outer loop at a point: its figures, or, when a limit on a loop
+/// figure already fails, that verdict (the search
+/// then skips the time responses).
+#[derive(Debug, Clone)]
+pub enum OuterOutcome {
+    Figures(Box<Evaluation>),
+    FailsLoopFigures(Assessment),
+}
+
+/// Why a cascade could not be prepared.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum CascadeError {
+    #[error("{0}")]
+    Lift(#[from] LiftError),
+    #[error("the outer loop around an ideal inner loop: {0}")]
+    Ideal(ModelError),
+}
+
+/// The limits of `spec` on loop figures (phase margin, gain margin,
+/// sensitivity peak), judged as `feasibility::check_figures` judges them;
+/// Some(verdict) when one fails.
+pub fn loop_limits_fail(f: &LoopFigures, spec: &Spec) -> Option<Assessment> {
+    let values = [
+        (Figure::PhaseMargin, f.phase_margin_deg, Missing::Infinite),
+        (
+            Figure::GainMargin,
+            f.gain_margin_db.map(f64::abs),
+            Missing::Infinite,
+        ),
+        (
+            Figure::SensitivityPeak,
+            Some(f.sensitivity_peak),
+            Missing::Never,
+        ),
+    ];
+    let checks: Vec<LimitCheck> = values
+        .into_iter()
+        .filter_map(|(figure, value, missing)| {
+            let limit = figure.limit(spec)?;
+            let slack = figure.slack(limit, value, missing);
+            Some(LimitCheck {
+                figure,
+                limit,
+                value,
+                slack,
+                pass: slack >= 0.0,
+            })
+        })
+        .collect();
+    if checks.iter().all(|c| c.pass) || checks.iter().any(|c| c.value.is_some_and(f64::is_nan)) {
+        return None;
+    }
+    let worst = checks.iter().min_by(|a, b| a.slack.total_cmp(&b.slack))?;
+    Some(Assessment {
+        feasible: false,
+        limiting: Some(Limiting::Figure(worst.figure)),
+        slack: worst.slack.clamp(UNSTABLE_SLACK, 1e6),
+        checks,
+    })
+}
+
+/// Most extra inner ticks the outer delay-margin scan tries.
+const MAX_MARGIN_TRIALS: usize = 1000;
+/// Largest rotation (rad) of the fastest outer gain crossing between two
+/// trials of the scan (as `delay_margin`).
+const STEP_RAD: f64 = 0.1;
+
+impl PreparedCascade {
+    /// Prepare from the inner loop and the outer models; `outer_prewarp_hz`
+    /// None: the crossover of the outer loop around an ideal inner loop.
+    pub fn new(
+        inner: PreparedLoop,
+        outer_models: OuterModels,
+        outer_prewarp_hz: Option<f64>,
+        outer_band: f64,
+    ) -> Result<PreparedCascade, CascadeError> {
+        let combined = combined_plant(
+            &inner.plant,
+            &inner.sensor,
+            &outer_models.plant,
+            &outer_models.sensor,
+        )?;
+        let outer_time = TimeOptions {
+            band: outer_band,
+            ..inner.time
+        };
+        let ideal = PreparedLoop::new(
+            &outer_models.plant,
+            &outer_models.sensor,
+            &outer_models.controller,
+            outer_prewarp_hz,
+            outer_time,
+        )
+        .map_err(CascadeError::Ideal)?;
+        let mut outer_roots: Vec<C64> = Vec::new();
+        let mut blocks = vec![&outer_models.plant, &outer_models.sensor];
+        if let Controller::Continuous(tf) = &outer_models.controller {
+            blocks.push(tf);
+        }
+        for tf in blocks {
+            outer_roots.extend(tf.poles().ok_or(CascadeError::Ideal(ModelError::Eigen))?);
+            outer_roots.extend(tf.zeros().ok_or(CascadeError::Ideal(ModelError::Eigen))?);
+        }
+        if let Controller::Discrete(d) = &outer_models.controller {
+            let back = |z: &C64| z.ln() / d.period_s;
+            let p = d
+                .transfer
+                .poles()
+                .ok_or(CascadeError::Ideal(ModelError::Eigen))?;
+            let z = d
+                .transfer
+                .zeros()
+                .ok_or(CascadeError::Ideal(ModelError::Eigen))?;
+            outer_roots.extend(
+                p.iter()
+                    .chain(z.iter())
+                    .filter(|z| z.norm() > 0.0)
+                    .map(back),
+            );
+        }
+        Ok(PreparedCascade {
+            inner,
+            ideal,
+            outer_models,
+            combined,
+            outer_time,
+            outer_roots,
+        })
+    }
+
+    /// The outer controller at the point's outer rate.
+    pub fn outer_controller(&self, p: &CascadePoint) -> Result<DiscreteTransfer, String> {
+        self.ideal
+            .controller_at(p.outer_rate_hz(), p.outer_method)
+            .map_err(|e| format!("outer controller: {e}"))
+    }
+
+    /// The inner loop closed on the whole plant at the point's inner rate.
+    pub fn inner_closed(&self, p: &CascadePoint, points: usize) -> Result<InnerClosed, String> {
+        if p.ratio == 0 {
+            return Err("the ratio must be a whole number of 1 or more, got 0".into());
+        }
+        if !(p.outer_delay >= 0.0 && p.outer_delay.is_finite()) {
+            return Err(format!(
+                "the outer computation delay must be finite and >= 0 (a fraction of the outer period), got {}",
+                p.outer_delay
+            ));
+        }
+        let c = self.inner.controller_at(p.inner.rate_hz, p.inner.method)?;
+        InnerClosed::new(
+            &self.combined,
+            &c,
+            1.0 / p.inner.rate_hz,
+            &self.inner.actuation(&p.inner),
+            points,
+        )
+        .map_err(|e| format!("inner loop on the whole plant: {e}"))
+    }
+
+    /// The lifted outer loop at a point (its hold equivalent, controller
+    /// and closed loop); `rows` adds the points between samples.
+    pub fn outer_loop(
+        &self,
+        p: &CascadePoint,
+        rows: bool,
+    ) -> Result<(InnerClosed, HoldEquivalent, DiscreteTransfer, ClosedLoop), String> {
+        let inner = self.inner_closed(p, self.outer_time.points_per_period)?;
+        let (lifted, c, cl) = self.outer_loop_on(&inner, p, rows)?;
+        Ok((inner, lifted, c, cl))
+    }
+
+    /// `outer_loop` on an inner loop already closed at the point's inner
+    /// rate (`inner_closed`; the ratios at one inner rate share it).
+    pub fn outer_loop_on(
+        &self,
+        inner: &InnerClosed,
+        p: &CascadePoint,
+        rows: bool,
+    ) -> Result<(HoldEquivalent, DiscreteTransfer, ClosedLoop), String> {
+        let c = self.outer_controller(p)?;
+        let ticks = InnerClosed::delay_ticks(p.ratio, p.outer_delay);
+        let lifted = inner.lifted(p.ratio, ticks, rows);
+        let cl =
+            ClosedLoop::new(&lifted, &c).map_err(|e| format!("closing the outer loop: {e}"))?;
+        Ok((lifted, c, cl))
+    }
+
+    /// A cheap screen before the full figures: None when the lifted loop's
+    /// poles are all inside the unit circle, else its evaluation (unstable,
+    /// marginal or the error).
+    pub fn screen(&self, p: &CascadePoint) -> Option<Evaluation> {
+        match self.inner_closed(p, 1) {
+            Ok(inner) => self.screen_on(&inner, p),
+            Err(e) => Some(Evaluation::error(e)),
+        }
+    }
+
+    /// `screen` on an inner loop already closed (`inner_closed`).
+    pub fn screen_on(&self, inner: &InnerClosed, p: &CascadePoint) -> Option<Evaluation> {
+        let cl = match self.outer_loop_on(inner, p, false) {
+            Ok((_, _, cl)) => cl,
+            Err(e) => return Some(Evaluation::error(e)),
+        };
+        match cl.poles() {
+            Ok(poles) => match ClosedLoop::stability(&poles) {
+                Stability::Stable => None,
+                Stability::Unstable => Some(Evaluation::poles_only(Status::Unstable, &poles)),
+                Stability::Marginal => Some(Evaluation::poles_only(Status::Marginal, &poles)),
+            },
+            Err(e) => Some(Evaluation::error(format!("closed-loop poles: {e}"))),
+        }
+    }
+
+    /// Both loops' figures at a point; `exact_margin` also searches each
+    /// loop's exact delay margin (for `eval` and the chosen pair).
+    pub fn evaluate(&self, p: &CascadePoint, exact_margin: bool) -> CascadeEvaluation {
+        let inner = if exact_margin {
+            self.inner.sampled_exact(&p.inner)
+        } else {
+            self.inner.sampled(&p.inner)
+        };
+        CascadeEvaluation {
+            inner,
+            outer: self.evaluate_outer(p, exact_margin),
+        }
+    }
+
+    /// The outer loop's figures at a point.
+    pub fn evaluate_outer(&self, p: &CascadePoint, exact_margin: bool) -> Evaluation {
+        let inner = match self.inner_closed(p, self.outer_time.points_per_period) {
+            Ok(v) => v,
+            Err(e) => return Evaluation::error(e),
+        };
+        match self.evaluate_outer_on(&inner, p, exact_margin, None) {
+            OuterOutcome::Figures(e) => *e,
+            // Without a spec to screen on, every figure is computed.
+            OuterOutcome::FailsLoopFigures(_) => Evaluation::error("screened"),
+        }
+    }
+
+    /// The outer loop's figures on an inner loop already closed
+    /// (`inner_closed` with the outer loop's points per period). With
+    /// `screen_on_spec`, the loop figures come first and a failing limit on
+    /// one of them ends the evaluation there (the time responses are not
+    /// computed).
+    pub fn evaluate_outer_on(
+        &self,
+        inner: &InnerClosed,
+        p: &CascadePoint,
+        exact_margin: bool,
+        screen_on_spec: Option<&Spec>,
+    ) -> OuterOutcome {
+        let fail = |e: String| OuterOutcome::Figures(Box::new(Evaluation::error(e)));
+        let (lifted, c, cl) = match self.outer_loop_on(inner, p, true) {
+            Ok(v) => v,
+            Err(e) => return fail(e),
+        };
+        let poles = match cl.poles() {
+            Ok(v) => v,
+            Err(e) => return fail(format!("closed-loop poles: {e}")),
+        };
+        match ClosedLoop::stability(&poles) {
+            Stability::Stable => {}
+            Stability::Unstable => {
+                return OuterOutcome::Figures(Box::new(Evaluation::poles_only(
+                    Status::Unstable,
+                    &poles,
+                )));
+            }
+            Stability::Marginal => {
+                return OuterOutcome::Figures(Box::new(Evaluation::poles_only(
+                    Status::Marginal,
+                    &poles,
+                )));
+            }
+        }
+        let t = lifted.period_s;
+        let pulse = lifted.augmented();
+        let l = |w: f64| {
+            let z = C64::from_polar(1.0, w * t);
+            c.transfer.eval(z) * pulse.response_at(z, 0)
+        };
+        let range = self.outer_range(inner, t);
+        let freq = loop_figures(&l, &range);
+        if let Some(spec) = screen_on_spec
+            && let Some(a) = loop_limits_fail(&freq, spec)
+        {
+            return OuterOutcome::FailsLoopFigures(a);
+        }
+        let (step, dist) = match sampled_figures(&cl, &lifted, &poles, &self.outer_time) {
+            Ok(v) => v,
+            Err(e) => return fail(e),
+        };
+        let margin = exact_margin.then(|| self.outer_delay_margin(inner, &c, p, &freq));
+        let mut e = finish(step, dist, freq, &poles);
+        if let (Some(f), Some(margin)) = (e.figures.as_mut(), margin) {
+            f.delay_margin_searched = true;
+            f.delay_margin_s = match margin {
+                DelayMargin::Seconds(v) => Some(v),
+                DelayMargin::NoCrossing => None,
+                DelayMargin::NotLocated(why) => {
+                    f.loop_notes
+                        .push(format!("delay margin not located: {why}"));
+                    None
+                }
+            };
+        }
+        OuterOutcome::Figures(Box::new(e))
+    }
+
+    /// The outer loop's frequency range up to its Nyquist frequency, dense
+    /// around the outer blocks' modes and the inner closed loop's.
+    fn outer_range(&self, inner: &InnerClosed, t_outer: f64) -> FrequencyRange {
+        let w_hi = std::f64::consts::PI / t_outer;
+        let roots = self.outer_roots.iter().chain(inner.poles_s.iter());
+        let inside: Vec<C64> = roots
+            .clone()
+            .copied()
+            .filter(|r| r.norm() < w_hi && r.is_finite())
+            .collect();
+        let mut range = FrequencyRange::from_roots(&inside, Some(w_hi));
+        let slowest = roots
+            .map(|r| r.norm())
+            .filter(|&v| v > 0.0 && v.is_finite())
+            .fold(f64::INFINITY, f64::min);
+        if slowest.is_finite() {
+            range.w_lo = range.w_lo.min(slowest / 1e3);
+        }
+        range
+    }
+
+    /// The exact delay margin of the outer loop: the smallest extra delay
+    /// of the outer command at which the lifted loop loses stability. The
+    /// command reaches the inner loop only at inner ticks, so a delay acts
+    /// in whole inner ticks: with `D` the outer delay (outer periods) and
+    /// `j` the first tick count that is unstable, the margin is
+    /// `(j - 1) T - D N T`, T the inner period (any extra delay beyond it
+    /// moves the command to tick `j`).
+    fn outer_delay_margin(
+        &self,
+        inner: &InnerClosed,
+        c: &DiscreteTransfer,
+        p: &CascadePoint,
+        freq: &LoopFigures,
+    ) -> DelayMargin {
+        let two_pi = 2.0 * std::f64::consts::PI;
+        let crossings: Vec<(f64, f64)> = freq
+            .gain_crossings_hz
+            .iter()
+            .zip(&freq.phase_to_go_deg)
+            .map(|(&f, &phi)| (two_pi * f, phi.to_radians()))
+            .filter(|(w, _)| *w > 0.0 && w.is_finite())
+            .collect();
+        if crossings.is_empty() {
+            return if freq.notes.is_empty() {
+                DelayMargin::NoCrossing
+            } else {
+                DelayMargin::NotLocated(freq.notes.join("; "))
+            };
+        }
+        let t = inner.hold.period_s;
+        let n = p.ratio;
+        let start = InnerClosed::delay_ticks(n, p.outer_delay);
+        let max_ticks = (MAX_DELAY_PERIODS * n as f64) as usize;
+        let unstable_at = |ticks: usize| -> Result<bool, String> {
+            let lifted = inner.lifted(n, ticks, false);
+            let cl = ClosedLoop::new(&lifted, c).map_err(|e| format!("closing the loop: {e}"))?;
+            let poles = cl.poles().map_err(|e| format!("closed-loop poles: {e}"))?;
+            Ok(ClosedLoop::stability(&poles) != Stability::Stable)
+        };
+        let w_fast = crossings.iter().map(|c| c.0).fold(0.0, f64::max);
+        let step = ((STEP_RAD / (w_fast * t)).floor() as usize).clamp(1, n.max(1));
+        // The estimate's own candidates, in ticks past the start.
+        let mut candidates: Vec<usize> = crossings
+            .iter()
+            .flat_map(|&(w, phi)| [phi / w, (phi + two_pi) / w])
+            .filter(|d| *d > 0.0 && d.is_finite())
+            .map(|d| start + (d / t).ceil() as usize)
+            .collect();
+        candidates.sort_unstable();
+        let (mut lo, mut hi) = (start, None);
+        let mut x = start;
+        for _ in 0..MAX_MARGIN_TRIALS {
+            let mut next = x + step;
+            if let Some(&c) = candidates.iter().find(|&&c| c > x && c < next) {
+                next = c;
+            }
+            if next > max_ticks {
+                break;
+            }
+            match unstable_at(next) {
+                Ok(true) => {
+                    hi = Some(next);
+                    break;
+                }
+                Ok(false) => {
+                    lo = next;
+                    x = next;
+                }
+                Err(e) => return DelayMargin::NotLocated(e),
+            }
+        }
+        let Some(mut hi) = hi else {
+            return DelayMargin::NotLocated(format!(
+                "the outer loop stayed stable for every extra delay tried up to {} inner periods",
+                x - start
+            ));
+        };
+        // Bisection over whole ticks (at most log2 of the step).
+        while hi - lo > 1 {
+            let mid = lo + (hi - lo) / 2;
+            match unstable_at(mid) {
+                Ok(true) => hi = mid,
+                Ok(false) => lo = mid,
+                Err(e) => return DelayMargin::NotLocated(e),
+            }
+        }
+        let base = p.outer_delay * n as f64 * t;
+        DelayMargin::Seconds(((hi - 1) as f64 * t - base).max(0.0))
+    }
+
+    /// Exact traces of the outer loop (step, outer load), `periods` outer
+    /// periods long (None: the horizon of its slowest pole).
+    pub fn outer_traces(
+        &self,
+        p: &CascadePoint,
+        periods: Option<usize>,
+    ) -> Result<(Vec<TracePoint>, Vec<TracePoint>), String> {
+        let (_, lifted, _, cl) = self.outer_loop(p, true)?;
+        let poles = cl.poles().map_err(|e| e.to_string())?;
+        let rho = poles.iter().map(|p| p.norm()).fold(0.0, f64::max);
+        let n = periods.unwrap_or_else(|| {
+            (horizon_steps(rho.min(0.999_999), cl.a.nrows()) as usize)
+                .min(self.outer_time.max_steps)
+        });
+        Ok((
+            sampled_trace(&cl, &lifted, 1.0, 0.0, n),
+            sampled_trace(&cl, &lifted, 0.0, 1.0, n),
+        ))
+    }
+}

@@ -1,0 +1,269 @@
+//! The two-rate loop as one system at the outer rate (lifting).
+//!
+//! The whole continuous plant is the inner plant and sensor followed by the
+//! outer plant (driven continuously by the inner plant's output plus the
+//! outer load) and the outer sensor (`combined_plant`). The inner loop is
+//! closed at its own rate on that plant with the existing hold equivalent
+//! and `ClosedLoop` (the load column there is the outer load). Over one
+//! outer period of `N` inner ticks the inner reference is the outer command
+//! held since the last update, so the state after `N` ticks is a linear
+//! function of the state, the previous and the new outer command and the
+//! load: a `HoldEquivalent` at the outer period whose "plant" is the closed
+//! inner loop. Every existing piece (closing the outer loop, the exact
+//! simulation with points between samples, the loop gain) then works on it
+//! unchanged (`docs/figures.md`, "Cascaded loops").
+
+use nalgebra::{DMatrix, DVector};
+
+use crate::model::matrix::{ModelError, hold_integrals};
+use crate::model::state_space::StateSpace;
+use crate::model::transfer::{DiscreteTransfer, Transfer};
+use crate::sampled::closed_loop::ClosedLoop;
+use crate::sampled::hold::{Actuation, HoldEquivalent, IntersampleRow, plant_and_sensor};
+use crate::spec::HoldKind;
+
+/// The whole continuous plant of a cascade: input the inner actuator
+/// command; `model.c` row 0 the outer plant output (what the outer figures
+/// are taken on), row 1 the inner measured output (what the inner
+/// controller samples).
+#[derive(Debug, Clone)]
+pub struct CombinedPlant {
+    pub model: StateSpace,
+    /// The outer load's input column (added at the outer plant's input).
+    pub b_load: DVector<f64>,
+    /// The outer measured output's row over the combined states.
+    pub c_outer_measured: DVector<f64>,
+    /// Feedthrough of the outer load into the outer plant output and into
+    /// the outer measured output.
+    pub d_load_output: f64,
+    pub d_load_measured: f64,
+}
+
+/// Why a cascade cannot be built.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum LiftError {
+    #[error("{0}")]
+    Model(#[from] ModelError),
+    #[error(
+        "the outer measured output responds at once to the inner command (inner plant, outer plant and outer sensor all biproper): the outer sample would depend on the command of the same instant"
+    )]
+    OuterFeedthrough,
+}
+
+/// Build the whole continuous plant from the inner plant and sensor and the
+/// outer plant and sensor.
+pub fn combined_plant(
+    inner_plant: &Transfer,
+    inner_sensor: &Transfer,
+    outer_plant: &Transfer,
+    outer_sensor: &Transfer,
+) -> Result<CombinedPlant, LiftError> {
+    let m1 = plant_and_sensor(inner_plant, inner_sensor)?;
+    let m2 = plant_and_sensor(outer_plant, outer_sensor)?;
+    let (n1, n2) = (m1.order(), m2.order());
+    let n = n1 + n2;
+    let mut a = DMatrix::zeros(n, n);
+    a.view_mut((0, 0), (n1, n1)).copy_from(&m1.a);
+    a.view_mut((n1, n1), (n2, n2)).copy_from(&m2.a);
+    // The outer plant is driven by the inner plant output y = c1_0 x1 + d1_0 u.
+    a.view_mut((n1, 0), (n2, n1))
+        .copy_from(&(&m2.b * m1.c.row(0)));
+    let mut b = DVector::zeros(n);
+    b.rows_mut(0, n1).copy_from(&m1.b);
+    b.rows_mut(n1, n2).copy_from(&(&m2.b * m1.d[0]));
+    let mut b_load = DVector::zeros(n);
+    b_load.rows_mut(n1, n2).copy_from(&m2.b);
+    let row = |k: usize| -> (DVector<f64>, f64) {
+        let mut c = DVector::zeros(n);
+        c.rows_mut(0, n1)
+            .copy_from(&(m1.c.row(0).transpose() * m2.d[k]));
+        c.rows_mut(n1, n2).copy_from(&m2.c.row(k).transpose());
+        (c, m2.d[k] * m1.d[0])
+    };
+    let (c_out, d_out) = row(0);
+    let (c_om, d_om) = row(1);
+    if d_om != 0.0 {
+        return Err(LiftError::OuterFeedthrough);
+    }
+    let mut c = DMatrix::zeros(2, n);
+    c.row_mut(0).copy_from(&c_out.transpose());
+    c.view_mut((1, 0), (1, n1)).copy_from(&m1.c.row(1));
+    let d = DVector::from_vec(vec![d_out, m1.d[1]]);
+    Ok(CombinedPlant {
+        model: StateSpace { a, b, c, d },
+        b_load,
+        c_outer_measured: c_om,
+        d_load_output: m2.d[0],
+        d_load_measured: m2.d[1],
+    })
+}
+
+/// The inner loop closed at its rate on the whole plant, its load column
+/// being the outer load.
+#[derive(Debug, Clone)]
+pub struct InnerClosed {
+    /// The inner hold equivalent of the whole plant (rows between samples:
+    /// the outer plant output; load: the outer load).
+    pub hold: HoldEquivalent,
+    pub cl: ClosedLoop,
+    /// The outer measured output's row over the inner loop's state.
+    pub outer_measured: DVector<f64>,
+    pub d_load_measured: f64,
+    /// The inner closed loop's poles mapped to s (`ln z / T`, rad/s; the
+    /// outer frequency grid is dense around them).
+    pub poles_s: Vec<crate::model::poly::C64>,
+}
+
+fn pad(v: &DVector<f64>, dim: usize) -> DVector<f64> {
+    let mut out = DVector::zeros(dim);
+    out.rows_mut(0, v.len()).copy_from(v);
+    out
+}
+
+impl InnerClosed {
+    /// Close the inner loop around `controller` at `period_s` with the
+    /// inner loop's actuation `act`, `points` output points per period.
+    pub fn new(
+        plant: &CombinedPlant,
+        controller: &DiscreteTransfer,
+        period_s: f64,
+        act: &Actuation,
+        points: usize,
+    ) -> Result<InnerClosed, ModelError> {
+        let mut hold = HoldEquivalent::with(&plant.model, period_s, act, points)?;
+        let nx = hold.phi.nrows();
+        let a = &plant.model.a;
+        let c_out: DVector<f64> = plant.model.c.row(0).transpose();
+        // The outer load is constant: over h seconds it moves the state by
+        // integral_0^h e^{As} ds b_load, whatever the hold does.
+        let (_, g_period) = hold_integrals(a, &plant.b_load, period_s)?;
+        hold.gamma_w = pad(&g_period, nx);
+        hold.dm_w = 0.0;
+        hold.dy_w = plant.d_load_output;
+        for row in &mut hold.intersample {
+            let (_, g) = if row.offset_s > 0.0 {
+                hold_integrals(a, &plant.b_load, row.offset_s)?
+            } else {
+                (DMatrix::zeros(0, 0), DVector::zeros(a.nrows()))
+            };
+            row.cw = c_out.dot(&g) + plant.d_load_output;
+        }
+        if let Some(m) = hold.measure.as_mut() {
+            // The inner measurement does not see the outer load.
+            m.cw = 0.0;
+        }
+        let cl = ClosedLoop::new(&hold, controller)?;
+        let dim = cl.a.nrows();
+        let poles_s = cl
+            .poles()?
+            .iter()
+            .filter(|z| z.norm() > 0.0)
+            .map(|z| z.ln() / period_s)
+            .collect();
+        Ok(InnerClosed {
+            poles_s,
+            outer_measured: pad(&plant.c_outer_measured, dim),
+            d_load_measured: plant.d_load_measured,
+            hold,
+            cl,
+        })
+    }
+
+    /// Inner ticks from an outer update to the inner tick where its command
+    /// becomes the reference: the first at or after `delay` outer periods.
+    pub fn delay_ticks(ratio: usize, delay: f64) -> usize {
+        let x = delay * ratio as f64;
+        // A hair of rounding (0.3 * 10 = 3.0000000000000004) is not a tick.
+        (x - 1e-9 * x.max(1.0)).ceil().max(0.0) as usize
+    }
+
+    /// The outer loop's plant over one outer period of `ratio` inner ticks,
+    /// the outer command reaching the inner reference `ticks` inner ticks
+    /// after its update: a hold equivalent at the outer period. With
+    /// `rows`, the outer plant output at every inner point of the period.
+    pub fn lifted(&self, ratio: usize, ticks: usize, rows: bool) -> HoldEquivalent {
+        let n = ratio;
+        // Whole outer periods as unit delays of the outer command, the
+        // rest inside the period (as `hold::split_delay`: s in (0, N] once
+        // a whole period is delayed).
+        let (whole, s) = if ticks <= n {
+            (0, ticks)
+        } else {
+            let m = ticks.div_ceil(n) - 1;
+            (m, ticks - m * n)
+        };
+        let cl = &self.cl;
+        let dim = cl.a.nrows();
+        let nx = self.hold.phi.nrows();
+        let np = if rows { self.hold.intersample.len() } else { 0 };
+        let mut m = DMatrix::<f64>::identity(dim, dim);
+        let mut p1 = DVector::<f64>::zeros(dim);
+        let mut p0 = DVector::<f64>::zeros(dim);
+        let mut q = DVector::<f64>::zeros(dim);
+        // Each inner row as a function of (z_j, r_j, w).
+        let inner_rows: Vec<(DVector<f64>, f64, f64, f64)> = self.hold.intersample[..np]
+            .iter()
+            .map(|row| {
+                let mut g = &cl.ku * row.cu0;
+                for i in 0..nx {
+                    g[i] += row.ey[i];
+                }
+                g[nx] += row.cu1;
+                (g, row.cu0 * cl.dur, row.cu0 * cl.duw + row.cw, row.offset_s)
+            })
+            .collect();
+        let mut intersample = Vec::with_capacity(n * np);
+        for j in 0..n {
+            let before = j < s;
+            for (g, hr, hw, offset) in &inner_rows {
+                intersample.push(IntersampleRow {
+                    offset_s: j as f64 * self.hold.period_s + offset,
+                    ey: m.tr_mul(g),
+                    cu1: g.dot(&p1) + if before { *hr } else { 0.0 },
+                    cu0: g.dot(&p0) + if before { 0.0 } else { *hr },
+                    cw: g.dot(&q) + hw,
+                });
+            }
+            m = &cl.a * &m;
+            p1 = &cl.a * &p1;
+            p0 = &cl.a * &p0;
+            q = &cl.a * &q + &cl.bw;
+            if before {
+                p1 += &cl.br;
+            } else {
+                p0 += &cl.br;
+            }
+        }
+        let (cy, dy, dy_w) = match intersample.first() {
+            Some(r) => (r.ey.clone(), r.cu0 + r.cu1, r.cw),
+            None => (DVector::zeros(dim), 0.0, self.hold.dy_w),
+        };
+        let lifted = HoldEquivalent {
+            period_s: n as f64 * self.hold.period_s,
+            hold: HoldKind::ZeroOrder,
+            delay_fraction: s as f64 / n as f64,
+            delay_periods: 0,
+            hold_states: 0,
+            measure_periods: 0,
+            sensor_delay_s: 0.0,
+            phi: m,
+            gamma0: p0,
+            gamma1: p1,
+            gamma_w: q,
+            cm: self.outer_measured.clone(),
+            dm: 0.0,
+            dm_w: self.d_load_measured,
+            cy,
+            dy,
+            dy_w,
+            intersample,
+            switch_index: s * np,
+            measure: None,
+        };
+        if whole > 0 {
+            lifted.delayed_by(whole)
+        } else {
+            lifted
+        }
+    }
+}

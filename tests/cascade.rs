@@ -1,0 +1,681 @@
+//! Cascaded loops (`[outer]`): the lifted two-rate loop checked against
+//! outside facts, each source named beside its check.
+
+use std::path::Path;
+
+use looprate::case::Case;
+use looprate::explore::cascade::{cascade_pick, cascade_rows, prepare_cascade};
+use looprate::model::discretize::{Method, discretize};
+use looprate::model::poly::{C64, Poly};
+use looprate::model::transfer::{Controller, Transfer};
+use looprate::sampled::cascade::evaluate::{CascadePoint, PreparedCascade};
+use looprate::sampled::evaluate::{Point, Status};
+use looprate::sampled::frequency::{FrequencyRange, loop_figures};
+use looprate::sampled::hold::{Actuation, HoldEquivalent, plant_and_sensor};
+use looprate::spec::HoldKind;
+
+/// An invented servo drive: winding 1/(0.0005 s + 0.5), current sensor
+/// 1/(1e-5 s + 1), PI; mechanics 0.1/(1e-4 s + 1e-4), speed PI. `{SENSOR}`
+/// is the outer sensor table, `{EXTRA}` more tables.
+fn drive(outer_sensor: &str, inner_delay: f64, extra: &str) -> String {
+    format!(
+        r#"
+[plant]
+transfer = "1 / (0.0005*s + 0.5)"
+[sensor]
+transfer = "1 / (1e-5*s + 1)"
+[controller]
+pid = {{ kp = 3.1, ki = 3100 }}
+[timing]
+compute_delay = [{inner_delay}]
+[rates]
+min_hz = 5000
+max_hz = 40000
+points = 8
+[methods]
+use = ["tustin"]
+[outer.plant]
+transfer = "0.1 / (1e-4*s + 1e-4)"
+{outer_sensor}
+[outer.controller]
+pid = {{ kp = 0.25, ki = 12 }}
+[outer.methods]
+use = ["tustin"]
+{extra}
+"#
+    )
+}
+
+fn cascade(text: &str) -> (Case, PreparedCascade) {
+    let c = Case::parse(text, Path::new("cascade.toml")).unwrap();
+    let pc = prepare_cascade(&c).unwrap().unwrap();
+    (c, pc)
+}
+
+fn point(rate_hz: f64, delay: f64, ratio: usize, outer_delay: f64) -> CascadePoint {
+    CascadePoint {
+        inner: Point {
+            rate_hz,
+            method: Some(Method::Tustin),
+            delay,
+            hold: HoldKind::ZeroOrder,
+        },
+        ratio,
+        outer_method: Some(Method::Tustin),
+        outer_delay,
+    }
+}
+
+fn continuous(c: &Controller) -> &Transfer {
+    match c {
+        Controller::Continuous(t) => t,
+        Controller::Discrete(_) => panic!("continuous controller expected"),
+    }
+}
+
+/// Descending coefficients of a polynomial in z, padded to `len`.
+fn desc(p: &Poly, len: usize) -> Vec<f64> {
+    let mut d = p.descending();
+    while d.len() < len {
+        d.insert(0, 0.0);
+    }
+    d
+}
+
+/// Step response samples of `num/den` (polynomials in z) by its
+/// difference equation, input 1 from k = 0.
+fn step_samples(num: &Poly, den: &Poly, n: usize) -> Vec<f64> {
+    let deg = den.degree();
+    let a = desc(den, deg + 1);
+    let b = desc(num, deg + 1);
+    let mut y: Vec<f64> = Vec::with_capacity(n);
+    for k in 0..n {
+        // a0 y_k = sum_i b_i u_{k-i} - sum_{i>=1} a_i y_{k-i}, u = 1 for k >= 0.
+        let mut acc = 0.0;
+        for (i, bi) in b.iter().enumerate() {
+            if k >= i {
+                acc += bi;
+            }
+        }
+        for i in 1..=deg {
+            if k >= i {
+                acc -= a[i] * y[k - i];
+            }
+        }
+        y.push(acc / a[0]);
+    }
+    y
+}
+
+/// Ratio 1 is one loop at one rate: built by block algebra from the
+/// pulse transfers of the two plants (outer loop gain
+/// `Co Guo Ci / (1 + Ci Gui)`), its margins and its step samples must equal
+/// the lifted system's (source: block-diagram algebra of the sampled loop,
+/// a closed form; `docs/figures.md`, "Cascaded loops").
+#[test]
+fn ratio_one_equals_the_single_rate_loop_by_block_algebra() {
+    let (_, pc) = cascade(&drive("", 0.5, ""));
+    let rate = 10_000.0;
+    let t = 1.0 / rate;
+    let p = point(rate, 0.5, 1, 0.0);
+    let act = Actuation {
+        hold: HoldKind::ZeroOrder,
+        delay_periods: 0.5,
+        sensor_delay_s: 0.0,
+    };
+    let inner = &pc.inner;
+    let gui = HoldEquivalent::with(
+        &plant_and_sensor(&inner.plant, &inner.sensor).unwrap(),
+        t,
+        &act,
+        1,
+    )
+    .unwrap()
+    .pulse_transfer()
+    .unwrap()
+    .transfer;
+    let whole = inner.plant.cascade(&pc.outer_models.plant);
+    let guo = HoldEquivalent::with(
+        &plant_and_sensor(&whole, &pc.outer_models.sensor).unwrap(),
+        t,
+        &act,
+        1,
+    )
+    .unwrap()
+    .pulse_transfer()
+    .unwrap()
+    .transfer;
+    let ci = discretize(continuous(&inner.controller), Method::Tustin, t, None)
+        .unwrap()
+        .transfer;
+    let co = discretize(
+        continuous(&pc.outer_models.controller),
+        Method::Tustin,
+        t,
+        None,
+    )
+    .unwrap()
+    .transfer;
+    // L = Co Guo Ci Gui_d / (Guo_d (Ci_d Gui_d + Ci_n Gui_n)), each a polynomial.
+    let l_num = co
+        .numerator
+        .mul(&guo.numerator)
+        .mul(&ci.numerator)
+        .mul(&gui.denominator);
+    let l_den = co.denominator.mul(&guo.denominator).mul(
+        &ci.denominator
+            .mul(&gui.denominator)
+            .add(&ci.numerator.mul(&gui.numerator)),
+    );
+    let l = |w: f64| {
+        let z = C64::from_polar(1.0, w * t);
+        l_num.eval_c(z) / l_den.eval_c(z)
+    };
+    let roots: Vec<C64> = [&inner.plant, &inner.sensor, &pc.outer_models.plant]
+        .iter()
+        .flat_map(|tf| tf.poles().unwrap())
+        .chain([
+            C64::new(-1000.0, 0.0),
+            C64::new(-48.0, 0.0),
+            C64::new(-6000.0, 0.0),
+        ])
+        .collect();
+    let range = FrequencyRange::from_roots(&roots, Some(std::f64::consts::PI / t));
+    let reference = loop_figures(&l, &range);
+    let outer = pc.evaluate_outer(&p, false);
+    assert_eq!(outer.status, Status::Ok);
+    let f = outer.figures.unwrap();
+    let close = |a: f64, b: f64, what: &str| {
+        assert!(
+            (a - b).abs() <= 1e-6 * b.abs().max(1.0),
+            "{what}: lifted {a}, block algebra {b}"
+        )
+    };
+    close(
+        f.phase_margin_deg.unwrap(),
+        reference.phase_margin_deg.unwrap(),
+        "phase margin",
+    );
+    close(
+        f.crossover_hz.unwrap(),
+        reference.crossover_hz.unwrap(),
+        "crossover",
+    );
+    close(
+        f.gain_margin_db.unwrap(),
+        reference.gain_margin_db.unwrap(),
+        "gain margin",
+    );
+    close(
+        f.sensitivity_peak,
+        reference.sensitivity_peak,
+        "sensitivity peak",
+    );
+
+    // Step samples: y/r = L / (1 + L) on the outer plant output (unit
+    // outer sensor, so the measured and the figure output are one).
+    let (step, _) = pc.outer_traces(&p, Some(400)).unwrap();
+    let samples: Vec<f64> = step.iter().filter(|q| q.sample).map(|q| q.y).collect();
+    let reference = step_samples(&l_num, &l_den.add(&l_num), samples.len());
+    // The expanded polynomials' difference equation (order 7, poles near
+    // z = 1) loses a few digits over hundreds of samples: 1e-8 of the peak
+    // is far below any figure's resolution and far above that drift.
+    let peak = reference.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+    let worst = samples
+        .iter()
+        .zip(&reference)
+        .map(|(a, b)| (a - b).abs())
+        .fold(0.0, f64::max);
+    assert!(
+        worst <= 1e-8 * peak,
+        "lifted and block-algebra samples differ by {worst}"
+    );
+}
+
+/// Brute force: the whole continuous plant integrated with RK4 (64 steps
+/// per inner period), the two PI controllers run as their Tustin difference
+/// equations written out by hand, the inner command held from `kT + 0.5 T`,
+/// the outer command reaching the inner reference at the first inner tick
+/// at or after half an outer period. The outer plant output at the 16
+/// points per inner period must match the lifted system's trace (source:
+/// brute-force fine-step simulation of the ODEs, written independently of
+/// the library's realisations).
+#[test]
+fn outer_step_matches_a_fine_step_simulation_at_ratios_4_and_10() {
+    let outer_sensor = "[outer.sensor]\ntransfer = \"1 / (0.0002*s + 1)\"";
+    let (_, pc) = cascade(&drive(outer_sensor, 0.5, ""));
+    let rate = 10_000.0;
+    let t = 1.0 / rate;
+    for ratio in [4usize, 10] {
+        let p = point(rate, 0.5, ratio, 0.5);
+        let (step, dist) = pc.outer_traces(&p, Some(60)).unwrap();
+        for (load, trace) in [(0.0, &step), (1.0, &dist)] {
+            let r_outer = 1.0 - load;
+            let brute = simulate(
+                t,
+                ratio,
+                0.5,
+                (ratio as f64 * 0.5).ceil() as usize,
+                r_outer,
+                load,
+                60 * ratio,
+            );
+            let peak = brute.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+            assert_eq!(brute.len(), trace.len());
+            let worst = brute
+                .iter()
+                .zip(trace.iter())
+                .map(|(a, q)| (a - q.y).abs() / peak)
+                .fold(0.0, f64::max);
+            eprintln!("ratio {ratio}, load {load}: worst relative gap to RK4 {worst:.2e}");
+            for (i, (a, q)) in brute.iter().zip(trace.iter()).enumerate() {
+                assert!(
+                    (a - q.y).abs() <= 1e-8 * peak,
+                    "ratio {ratio}, load {load}, point {i} (t = {}): brute force {a}, lifted {}",
+                    q.t,
+                    q.y
+                );
+            }
+        }
+        // The overshoot read off the brute-force points equals the figure.
+        let brute = simulate(
+            t,
+            ratio,
+            0.5,
+            (ratio as f64 * 0.5).ceil() as usize,
+            1.0,
+            0.0,
+            400 * ratio,
+        );
+        let f = pc.evaluate_outer(&p, false).figures.unwrap();
+        let max = brute.iter().fold(f64::MIN, |m, v| m.max(*v));
+        let os = (max - f.y_final) / f.y_final * 100.0;
+        assert!(
+            (os - f.overshoot_pct.unwrap()).abs() < 1e-4,
+            "ratio {ratio}: brute force overshoot {os} %, lifted {} %",
+            f.overshoot_pct.unwrap()
+        );
+    }
+}
+
+/// The drive's ODEs: current i (winding), measured current im, speed w,
+/// measured speed wm; `v` the applied voltage, `load` added at the outer
+/// plant's input (torque current).
+fn deriv(x: [f64; 4], v: f64, load: f64) -> [f64; 4] {
+    let [i, im, w, wm] = x;
+    [
+        (v - 0.5 * i) / 0.0005,
+        (i - im) / 1e-5,
+        (0.1 * (i + load) - 1e-4 * w) / 1e-4,
+        (w - wm) / 0.0002,
+    ]
+}
+
+fn rk4(x: [f64; 4], v: f64, load: f64, h: f64) -> [f64; 4] {
+    let add = |a: [f64; 4], b: [f64; 4], s: f64| std::array::from_fn(|k| a[k] + s * b[k]);
+    let k1 = deriv(x, v, load);
+    let k2 = deriv(add(x, k1, h / 2.0), v, load);
+    let k3 = deriv(add(x, k2, h / 2.0), v, load);
+    let k4 = deriv(add(x, k3, h), v, load);
+    std::array::from_fn(|k| x[k] + h / 6.0 * (k1[k] + 2.0 * k2[k] + 2.0 * k3[k] + k4[k]))
+}
+
+/// Outer plant output (speed) at 16 points per inner period, `ticks`
+/// inner periods long.
+#[allow(clippy::too_many_arguments)]
+fn simulate(
+    t: f64,
+    ratio: usize,
+    inner_delay: f64,
+    outer_ticks: usize,
+    r_outer: f64,
+    load: f64,
+    ticks: usize,
+) -> Vec<f64> {
+    const SUB: usize = 64;
+    let h = t / SUB as f64;
+    let to = t * ratio as f64;
+    // Tustin PI by hand: u_k = u_{k-1} + kp (e_k - e_{k-1}) + ki T/2 (e_k + e_{k-1}).
+    let (kp_i, ki_i, kp_o, ki_o) = (3.1, 3100.0, 0.25, 12.0);
+    let mut x = [0.0; 4];
+    let (mut ui, mut ei) = (0.0, 0.0);
+    let (mut uo, mut eo) = (0.0, 0.0);
+    let mut pending: Vec<(usize, f64)> = Vec::new();
+    let mut reference = 0.0;
+    let mut u_prev = 0.0;
+    let mut out = Vec::with_capacity(ticks * 16);
+    let switch = (inner_delay * SUB as f64).round() as usize;
+    for j in 0..ticks {
+        if j % ratio == 0 {
+            let e = r_outer - x[3];
+            uo = uo + kp_o * (e - eo) + ki_o * to / 2.0 * (e + eo);
+            eo = e;
+            pending.push((j + outer_ticks, uo));
+        }
+        for &(at, v) in &pending {
+            if at == j {
+                reference = v;
+            }
+        }
+        let e = reference - x[1];
+        ui = ui + kp_i * (e - ei) + ki_i * t / 2.0 * (e + ei);
+        ei = e;
+        for s in 0..SUB {
+            if s % (SUB / 16) == 0 {
+                out.push(x[2]);
+            }
+            let v = if s < switch { u_prev } else { ui };
+            x = rk4(x, v, load, h);
+        }
+        u_prev = ui;
+    }
+    out
+}
+
+/// With the inner loop far faster than the outer one, the outer figures
+/// tend to those of the outer loop around an ideal inner loop (the outer
+/// plant driven by the reference itself), and the gap closes as the inner
+/// loop gets faster (source: limit of the closed inner loop -> 1, a fact
+/// of the trade; the ideal loop is evaluated by the single-loop code).
+#[test]
+fn a_very_fast_inner_loop_tends_to_an_ideal_one() {
+    let outer_rate = 2000.0;
+    let mut gaps = Vec::new();
+    for (wc_hz, ratio) in [(1000.0, 10usize), (10_000.0, 100), (100_000.0, 1000)] {
+        let wc = 2.0 * std::f64::consts::PI * wc_hz;
+        let text = format!(
+            r#"
+[plant]
+transfer = "1 / (0.0005*s + 0.5)"
+[controller]
+pid = {{ kp = {kp}, ki = {ki} }}
+[rates]
+min_hz = 1000
+max_hz = 1e7
+[methods]
+use = ["tustin"]
+[outer.plant]
+transfer = "0.1 / (1e-4*s + 1e-4)"
+[outer.controller]
+pid = {{ kp = 0.25, ki = 12 }}
+[outer.methods]
+use = ["tustin"]
+"#,
+            kp = 0.0005 * wc,
+            ki = 0.5 * wc
+        );
+        let (_, pc) = cascade(&text);
+        let p = point(outer_rate * ratio as f64, 0.0, ratio, 0.0);
+        let f = pc.evaluate_outer(&p, false).figures.unwrap();
+        let ideal = pc
+            .ideal
+            .sampled(&Point {
+                rate_hz: outer_rate,
+                method: Some(Method::Tustin),
+                delay: 0.0,
+                hold: HoldKind::ZeroOrder,
+            })
+            .figures
+            .unwrap();
+        let gap = [
+            (f.phase_margin_deg.unwrap() - ideal.phase_margin_deg.unwrap()).abs() / 45.0,
+            (f.sensitivity_peak - ideal.sensitivity_peak).abs(),
+            (f.overshoot_pct.unwrap() - ideal.overshoot_pct.unwrap()).abs() / 10.0,
+            (f.crossover_hz.unwrap() / ideal.crossover_hz.unwrap() - 1.0).abs(),
+        ]
+        .into_iter()
+        .fold(0.0, f64::max);
+        gaps.push(gap);
+    }
+    eprintln!("gaps to the ideal inner loop: {gaps:?}");
+    assert!(
+        gaps[0] > gaps[1] && gaps[1] > gaps[2],
+        "gaps do not shrink: {gaps:?}"
+    );
+    assert!(
+        gaps[2] < 2e-3,
+        "the fastest inner loop is still {} away",
+        gaps[2]
+    );
+}
+
+/// The outer gain margin and delay margin by their meaning: the outer
+/// controller scaled by the margin (0.1 dB short / past) keeps / loses
+/// stability; an outer delay just short of / past the delay margin keeps /
+/// loses it (`docs/figures.md`).
+#[test]
+fn outer_margins_flip_stability_just_past_them() {
+    let outer_sensor = "[outer.sensor]\ntransfer = \"1 / (0.0002*s + 1)\"";
+    let (_, pc) = cascade(&drive(outer_sensor, 1.0, ""));
+    let p = point(20_000.0, 1.0, 10, 0.5);
+    let f = pc.evaluate_outer(&p, true).figures.unwrap();
+    let gm = f.gain_margin_db.unwrap();
+    for (db, stable) in [(gm - 0.1, true), (gm + 0.1, false)] {
+        let mut scaled = pc.clone();
+        let k = 10f64.powf(db / 20.0);
+        let c = continuous(&pc.outer_models.controller);
+        let tf = Transfer::new(c.numerator.scale(k), c.denominator.clone());
+        scaled.ideal.controller = Controller::Continuous(tf);
+        assert_eq!(scaled.screen(&p).is_none(), stable, "gain x {db} dB");
+    }
+    let dm = f.delay_margin_s.unwrap();
+    let t = 1.0 / 20_000.0;
+    let to = 10.0 * t;
+    for (extra, stable) in [(dm - 0.5 * t, true), (dm + 1e-3 * t, false)] {
+        let q = CascadePoint {
+            outer_delay: 0.5 + extra / to,
+            ..p
+        };
+        assert_eq!(pc.screen(&q).is_none(), stable, "extra delay {extra} s");
+    }
+    // The estimate from the phase sits near the exact figure here.
+    assert!((dm / f.delay_margin_estimate_s.unwrap() - 1.0).abs() < 0.2);
+}
+
+/// CPU load by hand for the demo drive (900 cycles an inner update, 1500
+/// an outer one, 100 MHz): at 20 kHz and ratio 10, (900 x 20000 + 1500 x
+/// 2000) / 1e8 = 21 % (arithmetic by hand).
+#[test]
+fn cpu_load_is_the_sum_of_both_updates() {
+    let text = std::fs::read_to_string("demo-cases/motor-drive-cascade.toml").unwrap();
+    let c = Case::parse(&text, Path::new("demo-cases/motor-drive-cascade.toml")).unwrap();
+    let pc = prepare_cascade(&c).unwrap().unwrap();
+    let rows = cascade_rows(&c, &pc, true);
+    let r = rows
+        .iter()
+        .find(|r| r.point.inner.rate_hz == 40_000.0 && r.point.ratio == 10)
+        .unwrap();
+    let load = r.cost.total_load_pct.unwrap();
+    assert!((load - (900.0 * 40_000.0 + 1500.0 * 4000.0) / 1e8 * 100.0).abs() < 1e-9);
+    assert!((r.cost.inner_load_pct.unwrap() - 36.0).abs() < 1e-9);
+    // The pick's search agrees with the full grid: per inner rate the
+    // largest passing ratio, and the cheapest passing pair within budget.
+    let searched = cascade_rows(&c, &pc, false);
+    let pick = cascade_pick(&c, &pc, &searched);
+    let full = cascade_pick(&c, &pc, &rows);
+    assert_eq!(pick.series, full.series);
+    let chosen = pick.chosen.expect("the demo has an answer");
+    let best = rows
+        .iter()
+        .filter(|r| r.passes() && r.cost.total_load_pct.unwrap() <= 35.0)
+        .map(|r| r.cost.total_load_pct.unwrap())
+        .fold(f64::INFINITY, f64::min);
+    assert_eq!(chosen.cost.total_load_pct.unwrap(), best);
+    assert!(pick.not_evaluated > 0, "the search skipped nothing");
+}
+
+/// Bad input names the field (or the flag).
+#[test]
+fn bad_cascade_input_names_the_field() {
+    let err = |extra: &str| {
+        Case::parse(&drive("", 1.0, extra), Path::new("bad.toml"))
+            .unwrap_err()
+            .to_string()
+    };
+    let e = err("[outer.rates]\nratios = [1, 0]");
+    assert!(
+        e.contains("outer.rates.ratios[1]") && e.contains("got 0"),
+        "{e}"
+    );
+    let e = err("[outer.rates]\nratios = [2.5]");
+    assert!(
+        e.contains("outer.rates.ratios[0]") && e.contains("whole number"),
+        "{e}"
+    );
+    let e = err("[outer.timing]\nhold = \"interpolating\"");
+    assert!(e.contains("outer.timing.hold"), "{e}");
+    let text = drive("", 1.0, "").replace(
+        "transfer = \"0.1 / (1e-4*s + 1e-4)\"",
+        "transfer = \"s^2 / (s + 1)\"",
+    );
+    let e = Case::parse(&text, Path::new("bad.toml"))
+        .unwrap_err()
+        .to_string();
+    assert!(e.contains("outer.plant") && e.contains("improper"), "{e}");
+    // An outer controller in z at 3 kHz: no listed ratio of 5..40 kHz.
+    let text = drive("", 1.0, "")
+        .replace(
+            "pid = { kp = 0.25, ki = 12 }",
+            "numerator_z = [0.25, -0.24]\ndenominator_z = [1, -1]\nrate_hz = 3\n",
+        )
+        .replace("[outer.methods]\nuse = [\"tustin\"]", "");
+    let e = Case::parse(&text, Path::new("bad.toml"))
+        .unwrap_err()
+        .to_string();
+    assert!(
+        e.contains("outer.controller.rate_hz") && e.contains("no listed ratio"),
+        "{e}"
+    );
+    // The same controller at 2 kHz: 10 kHz / 5 and 20 kHz / 10 fit.
+    let ok = text.replace("rate_hz = 3\n", "rate_hz = 2000\n");
+    let c = Case::parse(&ok, Path::new("ok.toml")).unwrap();
+    let pc = prepare_cascade(&c).unwrap().unwrap();
+    let rows = cascade_rows(&c, &pc, true);
+    assert!(!rows.is_empty());
+    assert!(
+        rows.iter()
+            .all(|r| (r.point.outer_rate_hz() - 2000.0).abs() < 1e-6)
+    );
+    // An outer spec without an inner one is allowed: the inner loop is
+    // then checked for stability only.
+    let c = Case::parse(
+        &drive("", 1.0, "[outer.spec]\nmin_phase_margin_deg = 45"),
+        Path::new("ok.toml"),
+    )
+    .unwrap();
+    let outer = c.outer.as_ref().unwrap();
+    assert!(!outer.inner_spec_given);
+    let pc = prepare_cascade(&c).unwrap().unwrap();
+    let rows = cascade_rows(&c, &pc, false);
+    let pick = cascade_pick(&c, &pc, &rows);
+    assert!(pick.notes.iter().any(|n| n.contains("stability only")));
+    assert!(
+        rows.iter()
+            .all(|r| r.inner_verdict.feasible == (r.inner.status == Status::Ok))
+    );
+}
+
+/// `eval --ratio` refuses 0 and non-integers with exit 2, and prints an
+/// `outer` object with the loop's own figure keys.
+#[test]
+fn eval_ratio_flag() {
+    let bin = env!("CARGO_BIN_EXE_looprate");
+    let case = "demo-cases/motor-drive-cascade.toml";
+    for bad in ["0", "2.5", "x"] {
+        let out = std::process::Command::new(bin)
+            .args(["eval", case, "--rate", "20000", "--ratio", bad])
+            .output()
+            .unwrap();
+        assert_eq!(out.status.code(), Some(2), "--ratio {bad}");
+        assert!(String::from_utf8_lossy(&out.stderr).contains("--ratio"));
+    }
+    let out = std::process::Command::new(bin)
+        .args(["eval", case, "--rate", "20000", "--ratio", "10", "--json"])
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(0));
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    let outer = v.get("outer").unwrap();
+    for key in [
+        "status",
+        "overshoot_pct",
+        "settling_time_s",
+        "phase_margin_deg",
+        "gain_margin_db",
+        "delay_margin_s",
+        "sensitivity_peak",
+        "disturbance_peak",
+    ] {
+        assert!(v.get(key).is_some(), "inner {key}");
+        assert!(outer.get(key).is_some(), "outer {key}");
+    }
+    assert_eq!(outer["ratio"], 10);
+    assert_eq!(outer["rate_hz"], 2000.0);
+}
+
+/// Advice when nothing fits: a budget below the cheapest passing pair
+/// names the load it needs, and each threshold it quotes, applied alone,
+/// gives an answer; an outer spec no pair meets names the outer loop's
+/// limiting figure. `sweep` writes every pair, `pick` exits 1 (source:
+/// the project's own rules for advice, `docs/figures.md`).
+#[test]
+fn advice_when_nothing_fits_and_every_pair_in_sweep() {
+    let text = std::fs::read_to_string("demo-cases/motor-drive-cascade.toml").unwrap();
+    let tight = text.replace("max_load_pct = 35", "max_load_pct = 5");
+    let c = Case::parse(&tight, Path::new("tight.toml")).unwrap();
+    let pc = prepare_cascade(&c).unwrap().unwrap();
+    let rows = cascade_rows(&c, &pc, false);
+    let pick = cascade_pick(&c, &pc, &rows);
+    assert!(pick.chosen.is_none() && pick.window_hz.is_none());
+    let advice = pick.advice.join(" ");
+    assert!(advice.contains("max_load_pct"), "{advice}");
+    // The quoted load limit, applied alone, opens it.
+    let quoted: f64 = advice
+        .split("raise max_load_pct to ")
+        .nth(1)
+        .and_then(|t| t.split_whitespace().next())
+        .and_then(|t| t.parse().ok())
+        .unwrap();
+    let opened = text.replace("max_load_pct = 35", &format!("max_load_pct = {quoted}"));
+    let c2 = Case::parse(&opened, Path::new("opened.toml")).unwrap();
+    let rows2 = cascade_rows(&c2, &pc, false);
+    assert!(cascade_pick(&c2, &pc, &rows2).chosen.is_some());
+
+    let strict = text.replace("min_phase_margin_deg = 45", "min_phase_margin_deg = 89");
+    let c3 = Case::parse(&strict, Path::new("strict.toml")).unwrap();
+    let pc3 = prepare_cascade(&c3).unwrap().unwrap();
+    let rows3 = cascade_rows(&c3, &pc3, false);
+    let pick3 = cascade_pick(&c3, &pc3, &rows3);
+    assert!(pick3.chosen.is_none());
+    assert!(
+        pick3.advice.join(" ").contains("phase margin"),
+        "{:?}",
+        pick3.advice
+    );
+
+    let bin = env!("CARGO_BIN_EXE_looprate");
+    let dir = std::env::temp_dir().join(format!("looprate-cascade-{}", std::process::id()));
+    let case_path = dir.join("tight.toml");
+    std::fs::create_dir_all(&dir).unwrap();
+    std::fs::write(&case_path, &tight).unwrap();
+    let out = std::process::Command::new(bin)
+        .args(["pick", case_path.to_str().unwrap(), "--out"])
+        .arg(dir.join("pick"))
+        .args(["--quiet", "--no-charts"])
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(1));
+    let out = std::process::Command::new(bin)
+        .args(["sweep", "demo-cases/motor-drive-cascade.toml", "--out"])
+        .arg(dir.join("sweep"))
+        .args(["--quiet", "--no-charts"])
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(0));
+    let csv = std::fs::read_to_string(dir.join("sweep").join("sweep.csv")).unwrap();
+    // 40 inner rates x 12 ratios, each evaluated.
+    assert_eq!(csv.lines().count(), 1 + 40 * 12);
+    assert!(!csv.contains("not evaluated"));
+    assert!(dir.join("sweep").join("inner-sweep.csv").exists());
+    std::fs::remove_dir_all(&dir).ok();
+}
