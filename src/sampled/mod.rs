@@ -14,5 +14,6 @@ pub mod feasibility;
 pub mod figure;
 pub mod frequency;
 pub mod hold;
+pub mod output_map;
 pub mod stretch;
 pub mod time_response;

@@ -70,7 +70,7 @@ use nalgebra::DVector;
 
 use crate::sampled::certificate::{Certificate, Mode};
 use crate::sampled::closed_loop::ClosedLoop;
-use crate::sampled::time_response::{OutputMap, ROUNDING_MARGIN, crossing, mat_vec};
+use crate::sampled::output_map::{OutputMap, ROUNDING_MARGIN, crossing, mat_vec};
 
 /// Most single periods one search opens before it gives up (the figure is
 /// then undecided here, and `time_response::sampled_figures` walks that
