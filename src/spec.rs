@@ -42,9 +42,6 @@ pub fn rate_in_range(rate_hz: f64) -> Result<f64, String> {
 /// than this is hours of work (a typo guard, like `MAX_POINTS`).
 pub const MAX_SAMPLES: usize = 10_000;
 
-/// Corner checks at load time are done when at most this many parameters
-/// have a range (2^10 = 1024 model evaluations).
-
 /// How the rate grid is spaced between `min_hz` and `max_hz`.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
 #[serde(rename_all = "lowercase")]

@@ -28,6 +28,8 @@ use serde::Deserialize;
 use std::path::{Path, PathBuf};
 use std::str::FromStr;
 
+/// Corner checks at load time are done when at most this many parameters
+/// have a range (2^10 = 1024 model evaluations).
 const MAX_CHECKED_RANGED_PARAMS: usize = 10;
 
 /// An uncertain (or fixed) model parameter, usable by name in expressions.
