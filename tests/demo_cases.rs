@@ -178,8 +178,16 @@ fn number_after(text: &str, after: &str) -> f64 {
         .chars()
         .take_while(|c| c.is_ascii_digit() || matches!(c, '.' | 'e' | '-' | '+'))
         .collect();
-    t.parse()
-        .unwrap_or_else(|_| panic!("a number after `{after}`: {t:?}"))
+    let v: f64 = t
+        .parse()
+        .unwrap_or_else(|_| panic!("a number after `{after}`: {t:?}"));
+    // A rate in engineering form carries an SI prefix before `Hz`.
+    let rest = text[i..].trim_start()[t.len()..].trim_start();
+    let scale = [("kHz", 1e3), ("MHz", 1e6), ("GHz", 1e9), ("mHz", 1e-3)]
+        .iter()
+        .find(|(u, _)| rest.starts_with(u))
+        .map_or(1.0, |(_, s)| *s);
+    v * scale
 }
 
 #[test]
@@ -188,10 +196,8 @@ fn the_summary_and_json_state_the_window_and_what_would_open_an_empty_one() {
     let (_, _, belt) = picked("belt-conveyor.toml");
     let text = looprate::output::summary::pick_text(&belt);
     let [lo, hi] = belt.window_hz.unwrap();
-    let (a, b) = (
-        number_after(&text, "Rate window:"),
-        number_after(&text, "Hz to"),
-    );
+    let win = &text[text.find("Rate window:").expect("a window line")..];
+    let (a, b) = (number_after(win, "Rate window:"), number_after(win, " to"));
     assert!(
         (a - lo).abs() < 1e-3 * lo && (b - hi).abs() < 1e-3 * hi,
         "{text}"

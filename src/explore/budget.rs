@@ -1,6 +1,7 @@
 //! The CPU budget: cycles per controller update, load at a rate, the
 //! budget's ceiling rate, timer-achievable rates and the rate window.
 
+use crate::engineering::hz;
 use crate::model::rounding;
 use serde::Serialize;
 
@@ -80,6 +81,31 @@ pub fn cycles_per_update(
 /// CPU load in percent at `rate_hz`.
 pub fn load_pct(budget: &Budget, cycles: f64, rate_hz: f64) -> f64 {
     cycles * rate_hz / budget.cpu_hz * 100.0
+}
+
+/// What one controller costs at `rate_hz`: cycles per update and the CPU
+/// load in percent. The one place a load is computed from a controller
+/// (the sweep's column, the recommendation, the CPU chart).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Cost {
+    pub cycles: f64,
+    pub load_pct: f64,
+}
+
+/// [`Cost`] of `controller` arranged in `structure` at `rate_hz`; None
+/// when the cycles are estimated and the controller cannot be built.
+pub fn cost_at(
+    budget: &Budget,
+    controller: Option<&DiscreteTransfer>,
+    structure: Structure,
+    integrators: usize,
+    rate_hz: f64,
+) -> Option<Cost> {
+    let cycles = cycles_per_update(budget, controller, structure, integrators)?;
+    Some(Cost {
+        cycles,
+        load_pct: load_pct(budget, cycles, rate_hz),
+    })
 }
 
 /// The fastest rate the budget allows, Hz.
@@ -169,7 +195,9 @@ impl std::fmt::Display for WindowBound {
                 beyond_hz,
             } => write!(
                 f,
-                "last rate checked ({checked_hz} Hz; {beyond} would allow up to {beyond_hz:.1} Hz, not checked)"
+                "last rate checked ({}; {beyond} would allow up to {}, not checked)",
+                hz(*checked_hz),
+                hz(*beyond_hz)
             ),
         }
     }

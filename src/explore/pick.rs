@@ -547,15 +547,16 @@ pub fn pick(
     let controller = lp.controller_at(rate, method).ok();
     let (cycles, load) = match case.budget.as_ref() {
         Some(b) => {
-            let c = budget::cycles_per_update(
+            let c = budget::cost_at(
                 b,
                 controller.as_ref(),
                 case.arithmetic
                     .as_ref()
                     .map_or(Structure::TransposedDirect, |a| a.structure),
                 rounding::design_integrators(&lp.controller),
+                rate,
             );
-            (c, c.map(|c| budget::load_pct(b, c, rate)))
+            (c.map(|c| c.cycles), c.map(|c| c.load_pct))
         }
         None => (None, None),
     };

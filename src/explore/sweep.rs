@@ -211,8 +211,14 @@ fn evaluate_row_on(plan: &Plan, p: &Point, plants: Option<&Plants>) -> SweepRow 
         .map_or(Structure::TransposedDirect, |a| a.structure);
     let cpu_load_pct = plan.budget.and_then(|b| {
         let integrators = rounding::design_integrators(&lp.controller);
-        budget::cycles_per_update(b, controller.as_ref().ok(), structure, integrators)
-            .map(|cy| budget::load_pct(b, cy, p.rate_hz))
+        budget::cost_at(
+            b,
+            controller.as_ref().ok(),
+            structure,
+            integrators,
+            p.rate_hz,
+        )
+        .map(|c| c.load_pct)
     });
     let check_hz = plan.check_hz(&eval);
     let nominal_plant = plants.map(Plants::nominal);

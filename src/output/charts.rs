@@ -1176,8 +1176,8 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
             .iter()
             .map(|&f| {
                 let c = inp.lp.controller_at(f, m).ok();
-                let load = budget::cycles_per_update(b, c.as_ref(), structure, integrators)
-                    .map_or(f64::NAN, |cy| budget::load_pct(b, cy, f));
+                let load = budget::cost_at(b, c.as_ref(), structure, integrators, f)
+                    .map_or(f64::NAN, |c| c.load_pct);
                 (f, load)
             })
             .collect();

@@ -433,16 +433,16 @@ pub fn pick_text(r: &PickReport) -> String {
             if w.high_hz < w.low_hz {
                 let _ = writeln!(
                     s,
-                    "\nNO RATE WINDOW: the spec needs at least {} Hz but the {} allows at most {} Hz.",
-                    sig4(w.low_hz),
+                    "\nNO RATE WINDOW: the spec needs at least {} but the {} allows at most {}.",
+                    hz(w.low_hz),
                     w.high_bound,
-                    sig4(w.high_hz)
+                    hz(w.high_hz)
                 );
             } else {
                 let _ = writeln!(
                     s,
-                    "\nNO RATE WINDOW: the spec needs at least {} Hz, but the {}.",
-                    sig4(w.low_hz),
+                    "\nNO RATE WINDOW: the spec needs at least {}, but the {}.",
+                    hz(w.low_hz),
                     w.high_bound
                 );
             }
@@ -453,9 +453,9 @@ pub fn pick_text(r: &PickReport) -> String {
         } else {
             let _ = writeln!(
                 s,
-                "\nRate window: {} Hz to {} Hz ({} .. {}).",
-                sig4(w.low_hz),
-                sig4(w.high_hz),
+                "\nRate window: {} to {} ({} .. {}).",
+                hz(w.low_hz),
+                hz(w.high_hz),
                 if r.recommended
                     .as_ref()
                     .is_some_and(|x| x.method == "given-in-z")
@@ -469,7 +469,7 @@ pub fn pick_text(r: &PickReport) -> String {
             if let Some(c) = w.cpu_ceiling_hz
                 && !matches!(w.high_bound, crate::explore::budget::WindowBound::CpuBudget)
             {
-                let _ = writeln!(s, "CPU budget ceiling: {} Hz.", sig4(c));
+                let _ = writeln!(s, "CPU budget ceiling: {}.", hz(c));
             }
         }
     }
