@@ -459,11 +459,12 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 print(&format!("{v:#}\n"))?;
             } else {
                 let header = format!(
-                    "rate {} Hz, method {}, {} hold, computation delay {} periods",
-                    rate,
+                    "rate {} (period {}), method {}, {} hold, computation delay {}",
+                    looprate::engineering::hz(rate),
+                    looprate::engineering::seconds(1.0 / rate),
                     looprate::explore::search::method_label(method),
                     hold,
-                    delay
+                    looprate::engineering::periods(delay)
                 );
                 let mut text = summary::evaluation_text(
                     &c.title,
