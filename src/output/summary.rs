@@ -386,8 +386,8 @@ pub fn pick_text(r: &PickReport) -> String {
         );
         let _ = writeln!(
             s,
-            "{:<8}{:>9}{:>14}{:>14}{:>10}{:>10}{:>16}  above it",
-            "format", "Q", "pole err %", "DC gain err %", "integral", "passes", "ceiling (Hz)"
+            "{:<8}{:>9}{:>14}{:>14}{:>10}{:>10}{:>16}  fails above it on",
+            "format", "Q", "pole err %", "DC gain err %", "integral", "passes", "ceiling"
         );
         let method = r.recommended.as_ref().map(|x| x.method.clone());
         for a in &pr.at_recommended {
@@ -398,11 +398,11 @@ pub fn pick_text(r: &PickReport) -> String {
                 .find(|c| Some(&c.method) == method.as_ref() && c.format == a.format);
             let (ceil_text, above) = match ceil.map(|c| &c.ceiling) {
                 Some(c) if c.above_range => (
-                    format!(">= {}", sig4(c.rate_hz.unwrap_or(f64::NAN))),
-                    String::new(),
+                    format!(">= {}", hz(c.rate_hz.unwrap_or(f64::NAN))),
+                    "- (top of the sweep)".to_string(),
                 ),
                 Some(c) => (
-                    fmt_opt(c.rate_hz, "none"),
+                    c.rate_hz.map_or("none".to_string(), hz),
                     c.limiting.map_or(String::new(), |l| l.label().to_string()),
                 ),
                 None => ("-".into(), String::new()),
