@@ -2,7 +2,7 @@
 //! it is computed: scale the controller by the gain margin and stability
 //! flips; add the delay margin as extra actuator delay and it flips;
 //! 1/Ms and |PM| against a brute-force dense grid of the exact loop gain.
-//! Property tests over random loops, and two named loops whose numbers come
+//! Property tests over random loops, and three named loops whose numbers come
 //! from a brute-force dense scan.
 
 use looprate::model::discretize::Method;
@@ -440,4 +440,72 @@ fn resonance_with_a_notch_takes_the_crossing_nearest_minus_one() {
     assert!((at.norm() - 1.0).abs() < 1e-6);
     assert!((180.0 - at.arg().to_degrees().abs() - pm.abs()).abs() < 1e-6);
     check_meaning(&lp, &p, &f).unwrap();
+}
+
+#[test]
+fn shallow_bump_of_the_loop_gain_just_above_one_is_a_crossing() {
+    // A random loop the property test once reported with no gain crossing:
+    // plant resonances at 16.3 rad/s (damping 0.189) and 90.8 rad/s
+    // (0.0645), two leads (zeros at 0.451 and 0.424 of wc = 16.55 rad/s,
+    // ratios 8.37 and 4.15), gain set so that the continuous |L(j wc)| = 1;
+    // 31.6 x wc, backward-euler, delay 0. The sampled |L| rises to about
+    // 1.0018 over roughly 16.33 .. 16.70 rad/s and falls back below 1:
+    // two gain crossings between grid points with ln|L| < 0 on both sides.
+    let wc = 16.55;
+    let (w1, z1, w2, z2) = (
+        16.3,
+        0.189_145_796_897_688_15,
+        90.8,
+        0.064_513_278_289_132_88,
+    );
+    let rl = RandomLoop {
+        plant: vec![
+            PlantFactor::Resonance(w1, z1),
+            PlantFactor::Resonance(w2, z2),
+        ],
+        sensor_lag: None,
+        ctrl: vec![
+            CtrlFactor::Lead(0.450_686_602_387_741_7 * wc, 8.372_503_172_655_257),
+            CtrlFactor::Lead(0.424_175_404_651_953_46 * wc, 4.154_070_699_190_35),
+        ],
+        wc,
+        rate_ratio: 31.6,
+        method: Method::BackwardEuler,
+        delay: 0.0,
+    };
+    let (lp, p) = rl.build().unwrap();
+    let e = lp.sampled_exact(&p);
+    assert!(e.stable);
+    let f = e.figures.clone().unwrap();
+    let detail = e.loop_detail.clone().unwrap();
+    // Brute-force dense scan (400 000 points): the crossings and the
+    // smallest angle from -1 among them.
+    let l = lp.sampled_loop_gain(&p).unwrap();
+    let range = lp.sampled_range(p.rate_hz);
+    let grid = dense_grid(&l, range.w_lo, range.w_hi, 400_000);
+    let scan = grid_pm(&grid, &l).expect("the scan finds a gain crossing");
+    let peak = grid
+        .iter()
+        .filter(|(w, _)| (16.0..17.0).contains(w))
+        .map(|(_, v)| v.norm())
+        .fold(0.0, f64::max);
+    assert!(peak > 1.001 && peak < 1.01, "peak |L| {peak}");
+    let pm = f.phase_margin_deg.expect("a gain crossing is reported");
+    assert!((pm.abs() - scan).abs() < 0.01, "PM {pm} vs scan {scan}");
+    // Both sides of the bump, each exactly on |L| = 1.
+    let bump: Vec<f64> = detail
+        .gain_crossings_hz
+        .iter()
+        .map(|hz| TWO_PI * hz)
+        .filter(|w| (16.0..17.0).contains(w))
+        .collect();
+    assert_eq!(bump.len(), 2, "crossings {:?}", detail.gain_crossings_hz);
+    for w in &bump {
+        assert!(
+            (l(*w).norm() - 1.0).abs() < 1e-8,
+            "|L({w})| = {}",
+            l(*w).norm()
+        );
+    }
+    assert!(l((bump[0] * bump[1]).sqrt()).norm() > 1.0);
 }

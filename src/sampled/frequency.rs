@@ -236,6 +236,43 @@ pub fn loop_figures(l: &dyn Fn(f64) -> C64, range: &FrequencyRange) -> LoopFigur
             }
         }
     }
+    // A local extremum of |L| between grid points can poke across 1 and
+    // back with no sign change of ln|L| at any grid point (a broad, shallow
+    // bump just touching 1, or a resonance peak): every grid point whose
+    // ln|L| is a local maximum below 0 (or minimum above 0) within a factor
+    // e of 1 is refined to the exact extremum (Brent, in ln w between its
+    // neighbours); if that crosses 1, its two crossings are added
+    // (`docs/figures.md`, how crossings are found).
+    for i in 1..points.len().saturating_sub(1) {
+        let (gl, g, gr) = (points[i - 1].ln_mag, points[i].ln_mag, points[i + 1].ln_mag);
+        if !(gl.is_finite() && g.is_finite() && gr.is_finite()) || g.abs() > 1.0 {
+            continue;
+        }
+        // +1 for a maximum below 1, -1 for a minimum above 1.
+        let sign = if g < 0.0 && gl < 0.0 && gr < 0.0 && g >= gl && g >= gr && g > gl.min(gr) {
+            1.0
+        } else if g > 0.0 && gl > 0.0 && gr > 0.0 && g <= gl && g <= gr && g < gl.max(gr) {
+            -1.0
+        } else {
+            continue;
+        };
+        let (a, b) = (points[i - 1].w.ln(), points[i + 1].w.ln());
+        let f = |x: f64| -sign * l(x.exp()).norm().ln();
+        let Some((xm, fm)) = scalar_solve::minimum(&f, a, b, 1e-10, 1e-12) else {
+            continue;
+        };
+        if fm >= 0.0 || xm <= a || xm >= b {
+            continue;
+        }
+        let g = |x: f64| l(x.exp()).norm().ln();
+        for (lo, hi) in [(a, xm), (xm, b)] {
+            if let Some(x) = scalar_solve::root(&g, lo, hi, tol) {
+                let w = x.exp();
+                gain_x.push((w, wrap_deg(180.0 + arg_deg(l(w)))));
+            }
+        }
+    }
+    gain_x.sort_by(|a, b| a.0.total_cmp(&b.0));
     // Phase crossings at -180 + 360 k, refined on the locally unwrapped phase.
     let mut phase_x: Vec<(f64, f64)> = Vec::new(); // (w, GM dB)
     for i in 0..grid.len().saturating_sub(1) {
