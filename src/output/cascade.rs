@@ -10,7 +10,7 @@ use std::path::Path;
 use serde_json::{Value, json};
 
 use crate::case::Case;
-use crate::engineering::sig4 as fmt_num;
+use crate::engineering::{hz, periods, sig4 as fmt_num};
 use crate::error::Error;
 use crate::explore::cascade::{
     CascadePick, CascadeRow, cascade_pick, cascade_rows, method_name, prepare_cascade,
@@ -205,14 +205,14 @@ pub fn cascade_text(pick: &CascadePick) -> String {
         Some(c) => {
             let _ = writeln!(
                 s,
-                "  chosen pair: inner {} Hz ({}, delay {}), ratio {}, outer {} Hz ({}, delay {} of its period)",
-                fmt_num(c.inner_rate_hz),
+                "  chosen pair: inner {} ({}, computation delay {}), ratio {}, outer {} ({}, computation delay {})",
+                hz(c.inner_rate_hz),
                 c.series.inner_method,
-                c.series.inner_compute_delay,
+                periods(c.series.inner_compute_delay),
                 c.ratio,
-                fmt_num(c.outer_rate_hz),
+                hz(c.outer_rate_hz),
                 c.series.outer_method,
-                c.series.outer_compute_delay
+                periods(c.series.outer_compute_delay)
             );
             match c.cost.total_load_pct {
                 Some(l) => {
@@ -230,15 +230,16 @@ pub fn cascade_text(pick: &CascadePick) -> String {
             }
             for (name, e) in [("inner", &c.inner), ("outer", &c.outer)] {
                 if let Some(f) = &e.figures {
-                    let _ = writeln!(
-                        s,
-                        "  {name}: overshoot {} %, settling {} s, phase margin {} deg, gain margin {} dB, Ms {}",
-                        f.overshoot_pct.map_or("-".into(), fmt_num),
-                        f.settling_time_s.map_or("not settled".into(), fmt_num),
-                        f.phase_margin_deg.map_or("inf".into(), fmt_num),
-                        f.gain_margin_db.map_or("inf".into(), fmt_num),
-                        fmt_num(f.sensitivity_peak)
-                    );
+                    let shown = [
+                        Figure::Overshoot,
+                        Figure::SettlingTime,
+                        Figure::PhaseMargin,
+                        Figure::GainMargin,
+                        Figure::SensitivityPeak,
+                    ]
+                    .map(|fig| format!("{} {}", fig.label(), fig.quantity_or_absence(f)))
+                    .join(", ");
+                    let _ = writeln!(s, "  {name}: {shown}");
                 }
             }
         }
@@ -250,9 +251,9 @@ pub fn cascade_text(pick: &CascadePick) -> String {
         Some([lo, hi]) => {
             let _ = writeln!(
                 s,
-                "  inner-rate window: {} to {} Hz (top: {})",
-                fmt_num(lo),
-                fmt_num(hi),
+                "  inner-rate window: {} to {} (top: {})",
+                hz(lo),
+                hz(hi),
                 pick.window.as_ref().map_or("", |w| w.high_bound)
             );
         }

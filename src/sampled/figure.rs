@@ -421,6 +421,15 @@ impl Figure {
         }
     }
 
+    /// The figure of `f` with its unit (`24.46 %`, `831.9 µs`), or its
+    /// absence in words.
+    pub fn quantity_or_absence(self, f: &Figures) -> String {
+        match self.value(f) {
+            Some(v) => self.quantity(v),
+            None => self.missing(f).text().to_string(),
+        }
+    }
+
     /// Why the figure can be absent, in words for a chart's caption of
     /// gaps (whatever the particular evaluation).
     pub fn absence_reason(self) -> &'static str {
