@@ -632,6 +632,17 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
     Ok(canvas)
 }
 
+/// The pixel rectangle of a panel's plotting area.
+fn plot_rect(chart: &Chart) -> Rect {
+    let (px, py) = chart.plotting_area().get_pixel_range();
+    Rect::new(
+        f64::from(px.start),
+        f64::from(py.start),
+        f64::from(px.end),
+        f64::from(py.end),
+    )
+}
+
 /// Bands and hatched limits under the data; their labels queued for
 /// placement.
 fn draw_panel<'a, 'b: 'a>(
@@ -642,13 +653,7 @@ fn draw_panel<'a, 'b: 'a>(
     m: &Metrics,
     pending: &mut Vec<Pending>,
 ) -> Result<(), PlotError> {
-    let (px, py) = chart.plotting_area().get_pixel_range();
-    let plot = Rect::new(
-        f64::from(px.start),
-        f64::from(py.start),
-        f64::from(px.end),
-        f64::from(py.end),
-    );
+    let plot = plot_rect(chart);
     let at = |x: f64, y: f64| {
         let (a, b) = chart.backend_coord(&(x, y));
         (f64::from(a), f64::from(b))
@@ -777,13 +782,7 @@ fn draw_marks<'a, 'b: 'a>(
     m: &Metrics,
     pending: &mut Vec<Pending>,
 ) -> Result<(), PlotError> {
-    let (px, py) = chart.plotting_area().get_pixel_range();
-    let plot = Rect::new(
-        f64::from(px.start),
-        f64::from(py.start),
-        f64::from(px.end),
-        f64::from(py.end),
-    );
+    let plot = plot_rect(chart);
     let at = |x: f64, y: f64| {
         let (a, b) = chart.backend_coord(&(x, y));
         (f64::from(a), f64::from(b))
