@@ -8,18 +8,17 @@
 //! pixels, after plotters has drawn).
 
 use crate::error::PlotError;
-use std::sync::OnceLock;
 
 use plotters::coord::ranged1d::{DefaultFormatting, KeyPointHint, Ranged};
 use plotters::coord::types::RangedCoordf64;
 use plotters::element::DashedPathElement;
 use plotters::prelude::*;
-use plotters::style::{FontStyle, RGBAColor, TextStyle as PTextStyle};
+use plotters::style::{RGBAColor, TextStyle as PTextStyle};
 
 use super::backend::CanvasBackend;
 use super::canvas::{Canvas, Rect, Rgb, capsule, circle, clip_segment};
 use super::style::{self, Marker, Pen, pen_of};
-use super::text::{FONT_BYTES, HAlign, TextFont, TextStyle, VAlign};
+use super::text::{HAlign, TextFont, TextStyle, VAlign};
 use super::{Axis, Draw, Figure, MAX_PIXELS, MAX_SIDE, MIN_SIDE, MarkStyle, Panel, Side};
 
 type Coords = Cartesian2d<Scale, Scale>;
@@ -390,17 +389,6 @@ struct Pending {
     pointer: Option<(f64, f64)>,
 }
 
-/// The chart font registered with plotters, so that the legend boxes it
-/// sizes fit the text this backend draws.
-fn register_font() -> Result<(), PlotError> {
-    static DONE: OnceLock<bool> = OnceLock::new();
-    let ok = *DONE.get_or_init(|| {
-        plotters::style::register_font("sans-serif", FontStyle::Normal, FONT_BYTES).is_ok()
-    });
-    ok.then_some(())
-        .ok_or_else(|| PlotError::Font("plotters refused the chart font".into()))
-}
-
 fn err(e: impl std::fmt::Display) -> PlotError {
     PlotError::Draw(e.to_string())
 }
@@ -542,7 +530,6 @@ fn text_style(font: &TextFont, em: f64, c: Rgb) -> PTextStyle<'static> {
 /// Draw the whole figure.
 pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
     validate(fig)?;
-    register_font()?;
     let font = TextFont::embedded()?;
     let m = Metrics::new(fig.width, fig.height);
     let lay = layout(fig, &font, &m)?;
@@ -591,8 +578,7 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
                 .set_all_tick_mark_size((0.35 * m.base) as i32)
                 .draw()
                 .map_err(err)?;
-            draw_panel(&mut chart, p, &xs.ax, &ys.ax, &m, &mut pending)?;
-            draw_marks(&mut chart, p, &xs.ax, &ys.ax, &m, &mut pending)?;
+            draw_extras(&mut chart, p, &xs.ax, &ys.ax, &m, &mut pending)?;
             draw_series(&mut chart, p, &xs.ax, &ys.ax, &m)?;
             let (px, py) = chart.plotting_area().get_pixel_range();
             let frame = [(px.start, py.start), (px.end, py.end)];
@@ -632,20 +618,9 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
     Ok(canvas)
 }
 
-/// The pixel rectangle of a panel's plotting area.
-fn plot_rect(chart: &Chart) -> Rect {
-    let (px, py) = chart.plotting_area().get_pixel_range();
-    Rect::new(
-        f64::from(px.start),
-        f64::from(py.start),
-        f64::from(px.end),
-        f64::from(py.end),
-    )
-}
-
-/// Bands and hatched limits under the data; their labels queued for
-/// placement.
-fn draw_panel<'a, 'b: 'a>(
+/// Bands, hatched limits and vertical marks under the data; the panel's
+/// labels (theirs, the caption, the notes) queued for placement.
+fn draw_extras<'a, 'b: 'a>(
     chart: &mut Chart<'a, 'b>,
     p: &Panel,
     xs: &Ax,
@@ -653,48 +628,53 @@ fn draw_panel<'a, 'b: 'a>(
     m: &Metrics,
     pending: &mut Vec<Pending>,
 ) -> Result<(), PlotError> {
-    let plot = plot_rect(chart);
+    use HAlign::{Center, Left, Right};
+    use VAlign::{Bottom, Middle, Top};
+    let (px, py) = chart.plotting_area().get_pixel_range();
+    let plot = Rect::new(
+        px.start.into(),
+        py.start.into(),
+        px.end.into(),
+        py.end.into(),
+    );
+    // Pixel position of a point in drawing space.
     let at = |x: f64, y: f64| {
         let (a, b) = chart.backend_coord(&(x, y));
         (f64::from(a), f64::from(b))
     };
     let area = chart.plotting_area().strip_coord_spec();
-    let shift = |p: (f64, f64)| {
+    let shift = |q: (f64, f64)| {
         (
-            (p.0 - plot.x0).round() as i32,
-            (p.1 - plot.y0).round() as i32,
+            (q.0 - plot.x0).round() as i32,
+            (q.1 - plot.y0).round() as i32,
         )
     };
-    let b = m.base;
-    let small = |c| TextStyle::new(m.small, c);
     let fill = |r: Rect, c: Rgb, a: f64| {
-        area.draw(&Rectangle::new(
-            [shift((r.x0, r.y0)), shift((r.x1, r.y1))],
-            color(c, a).filled(),
-        ))
-        .map_err(err)
+        let corners = [shift((r.x0, r.y0)), shift((r.x1, r.y1))];
+        area.draw(&Rectangle::new(corners, color(c, a).filled()))
+            .map_err(err)
     };
+    let b = m.base;
+    let s = |c: Rgb, h: HAlign, v: VAlign| TextStyle::new(m.small, c).anchor(h, v);
+    let (left, right) = (plot.x0 + 0.5 * b, plot.x1 - 0.5 * b);
+    let mid_x = (plot.x0 + plot.x1) / 2.0;
     for band in &p.hbands {
         let (Some(a), Some(c)) = (ys.clamped(band.from), ys.clamped(band.to)) else {
             continue;
         };
         let r = Rect::new(plot.x0, at(xs.lo, a).1, plot.x1, at(xs.lo, c).1);
         fill(r, style::YBAND, 0.16)?;
-        let mid = (r.y0 + r.y1) / 2.0;
-        let spots = [
-            (plot.x0 + 0.5 * b, HAlign::Left),
-            (plot.x1 - 0.5 * b, HAlign::Right),
-        ]
-        .into_iter()
-        .flat_map(|(x, hh)| {
-            let s = small(style::TEXT_SOFT);
-            [
-                (x, r.y0 - 0.2 * b, s.anchor(hh, VAlign::Bottom)),
-                (x, r.y1 + 0.2 * b, s.anchor(hh, VAlign::Top)),
-                (x, mid, s.anchor(hh, VAlign::Middle)),
-            ]
-        });
-        queue(pending, &band.label, spots.collect(), plot, None);
+        let mut spots = Vec::new();
+        for (x, h) in [(left, Left), (right, Right)] {
+            let st = |v| s(style::TEXT_SOFT, h, v);
+            let mid = (r.y0 + r.y1) / 2.0;
+            spots.extend([
+                (x, r.y0 - 0.2 * b, st(Bottom)),
+                (x, r.y1 + 0.2 * b, st(Top)),
+                (x, mid, st(Middle)),
+            ]);
+        }
+        queue(pending, &band.label, spots, plot, None);
     }
     for band in &p.bands {
         let (Some(a), Some(c)) = (xs.clamped(band.from), xs.clamped(band.to)) else {
@@ -702,20 +682,11 @@ fn draw_panel<'a, 'b: 'a>(
         };
         let r = Rect::new(at(a, ys.lo).0, plot.y0, at(c, ys.lo).0, plot.y1);
         fill(r, style::XBAND, 0.14)?;
-        let s = small(style::TEXT_SOFT);
-        let cx = (r.x0 + r.x1) / 2.0;
+        let (cx, st) = ((r.x0 + r.x1) / 2.0, |v| s(style::TEXT_SOFT, Center, v));
         let spots = vec![
-            (
-                cx,
-                plot.y1 - 0.3 * b,
-                s.anchor(HAlign::Center, VAlign::Bottom),
-            ),
-            (cx, plot.y0 + 0.3 * b, s.anchor(HAlign::Center, VAlign::Top)),
-            (
-                cx,
-                (plot.y0 + plot.y1) / 2.0,
-                s.anchor(HAlign::Center, VAlign::Middle),
-            ),
+            (cx, plot.y1 - 0.3 * b, st(Bottom)),
+            (cx, plot.y0 + 0.3 * b, st(Top)),
+            (cx, (plot.y0 + plot.y1) / 2.0, st(Middle)),
         ];
         queue(pending, &band.label, spots, plot, None);
     }
@@ -731,11 +702,11 @@ fn draw_panel<'a, 'b: 'a>(
         if bad.height() >= 1.0 {
             fill(bad, style::LIMIT, 0.05)?;
             // Diagonal hatch, aligned to the canvas so panels line up.
-            let s = (0.7 * b).max(3.0);
+            let g = (0.7 * b).max(3.0);
             let hatch = color(style::LIMIT, 0.22).stroke_width(1);
-            for k in ((bad.x0 + bad.y0) / s).floor() as i64..=((bad.x1 + bad.y1) / s).ceil() as i64
+            for k in ((bad.x0 + bad.y0) / g).floor() as i64..=((bad.x1 + bad.y1) / g).ceil() as i64
             {
-                let c0 = k as f64 * s;
+                let c0 = k as f64 * g;
                 let (p0, p1) = ((c0 - bad.y1, bad.y1), (c0 - bad.y0, bad.y0));
                 if let Some((t0, t1)) = clip_segment(p0, p1, &bad) {
                     let at_t = |t: f64| shift((p0.0 + (p1.0 - p0.0) * t, p0.1 + (p1.1 - p0.1) * t));
@@ -747,21 +718,16 @@ fn draw_panel<'a, 'b: 'a>(
         if !ys.contains(l.value) {
             continue;
         }
-        let line = color(style::LIMIT, 1.0).stroke_width(2);
+        let ends = vec![shift((plot.x0, y)), shift((plot.x1, y))];
         area.draw(&PathElement::new(
-            vec![shift((plot.x0, y)), shift((plot.x1, y))],
-            line,
+            ends,
+            color(style::LIMIT, 1.0).stroke_width(2),
         ))
         .map_err(err)?;
-        let s = small(style::LIMIT);
         let mut spots = Vec::new();
-        for (x, hh) in [
-            (plot.x1 - 0.5 * b, HAlign::Right),
-            (plot.x0 + 0.5 * b, HAlign::Left),
-            ((plot.x0 + plot.x1) / 2.0, HAlign::Center),
-        ] {
-            let above = (x, y - 0.3 * b, s.anchor(hh, VAlign::Bottom));
-            let below = (x, y + 0.3 * b, s.anchor(hh, VAlign::Top));
+        for (x, h) in [(right, Right), (left, Left), (mid_x, Center)] {
+            let above = (x, y - 0.3 * b, s(style::LIMIT, h, Bottom));
+            let below = (x, y + 0.3 * b, s(style::LIMIT, h, Top));
             spots.extend(match l.bad_side {
                 Side::Above => [above, below],
                 Side::Below => [below, above],
@@ -769,121 +735,46 @@ fn draw_panel<'a, 'b: 'a>(
         }
         queue(pending, &l.label, spots, plot, None);
     }
-    Ok(())
-}
-
-/// Vertical marks under the data, the caption and the notes; their
-/// labels queued for placement.
-fn draw_marks<'a, 'b: 'a>(
-    chart: &mut Chart<'a, 'b>,
-    p: &Panel,
-    xs: &Ax,
-    ys: &Ax,
-    m: &Metrics,
-    pending: &mut Vec<Pending>,
-) -> Result<(), PlotError> {
-    let plot = plot_rect(chart);
-    let at = |x: f64, y: f64| {
-        let (a, b) = chart.backend_coord(&(x, y));
-        (f64::from(a), f64::from(b))
-    };
-    let area = chart.plotting_area().strip_coord_spec();
-    let shift = |p: (f64, f64)| {
-        (
-            (p.0 - plot.x0).round() as i32,
-            (p.1 - plot.y0).round() as i32,
-        )
-    };
-    let b = m.base;
-    let small = |c| TextStyle::new(m.small, c);
-    for vm in &p.vmarks {
-        if !xs.contains(vm.x) {
-            continue;
-        }
+    for vm in p.vmarks.iter().filter(|vm| xs.contains(vm.x)) {
         let x = at(xs.t(vm.x).unwrap_or(xs.lo), ys.lo).0;
-        let st = color(style::MARK, 0.9).stroke_width(2);
         let ends = vec![shift((x, plot.y0)), shift((x, plot.y1))];
         let (on, off) = match vm.style {
             MarkStyle::Solid => (1_000_000, 1),
             MarkStyle::Dashed => (7, 6),
             MarkStyle::Dotted => (1, 5),
         };
+        let st = color(style::MARK, 0.9).stroke_width(2);
         area.draw(&DashedPathElement::new(ends, on, off, st))
             .map_err(err)?;
-        let s = small(style::MARK);
-        let d = 0.3 * b;
-        let spots = vec![
-            (
-                x + d,
-                plot.y0 + 0.4 * b,
-                s.anchor(HAlign::Right, VAlign::Top).rotated(),
-            ),
-            (
-                x - d,
-                plot.y0 + 0.4 * b,
-                s.anchor(HAlign::Right, VAlign::Bottom).rotated(),
-            ),
-            (
-                x + d,
-                plot.y1 - 0.4 * b,
-                s.anchor(HAlign::Left, VAlign::Top).rotated(),
-            ),
-            (
-                x - d,
-                plot.y1 - 0.4 * b,
-                s.anchor(HAlign::Left, VAlign::Bottom).rotated(),
-            ),
-            (
-                x + d,
-                plot.y0 + 0.3 * b,
-                s.anchor(HAlign::Left, VAlign::Top),
-            ),
-            (
-                x - d,
-                plot.y0 + 0.3 * b,
-                s.anchor(HAlign::Right, VAlign::Top),
-            ),
-            (
-                x + d,
-                plot.y1 - 0.3 * b,
-                s.anchor(HAlign::Left, VAlign::Bottom),
-            ),
-            (
-                x - d,
-                plot.y1 - 0.3 * b,
-                s.anchor(HAlign::Right, VAlign::Bottom),
-            ),
-        ];
+        // Along the line first (reading upwards), then level beside it.
+        let (d, mut spots) = (0.3 * b, Vec::new());
+        for (y, h) in [(plot.y0 + 0.4 * b, Right), (plot.y1 - 0.4 * b, Left)] {
+            let st = |v| s(style::MARK, h, v).rotated();
+            spots.extend([(x + d, y, st(Top)), (x - d, y, st(Bottom))]);
+        }
+        for (y, v) in [(plot.y0 + 0.3 * b, Top), (plot.y1 - 0.3 * b, Bottom)] {
+            let st = |h| s(style::MARK, h, v);
+            spots.extend([(x + d, y, st(Left)), (x - d, y, st(Right))]);
+        }
         queue(pending, &vm.label, spots, plot, None);
     }
-    let s = small(style::TEXT_SOFT);
-    let inset = (
-        plot.x0 + 0.5 * b,
-        plot.x1 - 0.5 * b,
-        plot.y0 + 0.3 * b,
-        plot.y1 - 0.3 * b,
-    );
-    let corners = vec![
-        (inset.0, inset.3, s.anchor(HAlign::Left, VAlign::Bottom)),
-        (inset.1, inset.3, s.anchor(HAlign::Right, VAlign::Bottom)),
-        (inset.0, inset.2, s.anchor(HAlign::Left, VAlign::Top)),
-        (inset.1, inset.2, s.anchor(HAlign::Right, VAlign::Top)),
-    ];
+    let mut corners = Vec::new();
+    for (y, v) in [(plot.y1 - 0.3 * b, Bottom), (plot.y0 + 0.3 * b, Top)] {
+        let st = |h| s(style::TEXT_SOFT, h, v);
+        corners.extend([(left, y, st(Left)), (right, y, st(Right))]);
+    }
     queue(pending, &p.caption, corners, plot, None);
     for a in &p.notes {
         if !(xs.contains(a.x) && ys.contains(a.y)) {
             continue;
         }
         let (x, y) = at(xs.t(a.x).unwrap_or(0.0), ys.t(a.y).unwrap_or(0.0));
-        let s = small(style::TEXT);
         let mut spots = Vec::new();
         for d in [1.1 * b, 2.2 * b] {
-            spots.extend([
-                (x + d, y - d * 0.7, s.anchor(HAlign::Left, VAlign::Bottom)),
-                (x - d, y - d * 0.7, s.anchor(HAlign::Right, VAlign::Bottom)),
-                (x + d, y + d * 0.7, s.anchor(HAlign::Left, VAlign::Top)),
-                (x - d, y + d * 0.7, s.anchor(HAlign::Right, VAlign::Top)),
-            ]);
+            for (dy, v) in [(-0.7 * d, Bottom), (0.7 * d, Top)] {
+                let st = |h| s(style::TEXT, h, v);
+                spots.extend([(x + d, y + dy, st(Left)), (x - d, y + dy, st(Right))]);
+            }
         }
         // Notes point at data: placed first, with their dot.
         pending.insert(

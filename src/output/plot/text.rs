@@ -4,9 +4,9 @@
 //! bearing, which makes words fall apart ("con tinuous"). Every string on
 //! our charts is therefore laid out here instead: the caret advances by
 //! each glyph's advance width plus pair kerning, and each glyph outline is
-//! rasterized at its true position (the outline carries the side bearing).
-//! The result is a coverage mask that is blended into the canvas either
-//! horizontally or turned a quarter turn (for y-axis labels).
+//! rasterized at its true position (the outline carries the side bearing)
+//! and blended into the canvas, level or turned a quarter turn (y-axis
+//! descriptions).
 
 use ab_glyph::{Font, FontRef, Glyph, PxScale, ScaleFont, point};
 
@@ -78,17 +78,6 @@ pub(crate) struct Layout {
     pub descent: f64,
 }
 
-/// A coverage mask of rendered text and where the layout origin sits in it.
-pub(crate) struct Mask {
-    pub w: usize,
-    pub h: usize,
-    pub cov: Vec<f32>,
-    /// Mask column of the layout origin (caret start).
-    pub origin_x: i64,
-    /// Mask row of the baseline.
-    pub baseline_y: i64,
-}
-
 /// The chart font and text operations on it.
 pub(crate) struct TextFont {
     font: FontRef<'static>,
@@ -156,47 +145,6 @@ impl TextFont {
         f64::from(sf.ascent() - sf.descent())
     }
 
-    /// Rasterize a layout into a coverage mask.
-    pub fn rasterize(&self, layout: &Layout) -> Mask {
-        let outlined: Vec<_> = layout
-            .glyphs
-            .iter()
-            .filter_map(|g| self.font.outline_glyph(g.clone()))
-            .collect();
-        let (mut x0, mut y0) = (0.0_f32, -layout.ascent as f32);
-        let (mut x1, mut y1) = (layout.width as f32, layout.descent as f32);
-        for og in &outlined {
-            let b = og.px_bounds();
-            x0 = x0.min(b.min.x);
-            y0 = y0.min(b.min.y);
-            x1 = x1.max(b.max.x);
-            y1 = y1.max(b.max.y);
-        }
-        let (x0, y0) = (x0.floor() as i64 - 1, y0.floor() as i64 - 1);
-        let (x1, y1) = (x1.ceil() as i64 + 1, y1.ceil() as i64 + 1);
-        let w = (x1 - x0).max(1) as usize;
-        let h = (y1 - y0).max(1) as usize;
-        let mut cov = vec![0.0_f32; w * h];
-        for og in &outlined {
-            let b = og.px_bounds();
-            let (bx, by) = (b.min.x as i64 - x0, b.min.y as i64 - y0);
-            og.draw(|x, y, c| {
-                let (mx, my) = (bx + i64::from(x), by + i64::from(y));
-                if mx >= 0 && my >= 0 && (mx as usize) < w && (my as usize) < h {
-                    let i = my as usize * w + mx as usize;
-                    cov[i] = (cov[i] + c).min(1.0);
-                }
-            });
-        }
-        Mask {
-            w,
-            h,
-            cov,
-            origin_x: -x0,
-            baseline_y: -y0,
-        }
-    }
-
     /// Where the layout origin (caret start on the baseline) goes so that
     /// the anchor lands on `(x, y)`, rounded to whole pixels for crisp
     /// text; also the canvas rectangle of the line box.
@@ -247,26 +195,18 @@ impl TextFont {
     pub fn draw(&self, canvas: &mut Canvas, text: &str, x: f64, y: f64, st: &TextStyle) -> Rect {
         let layout = self.layout(text, st.size);
         let ((ox, oy), rect) = self.place(&layout, x, y, st);
-        if layout.glyphs.is_empty() {
-            return rect;
-        }
-        let mask = self.rasterize(&layout);
-        for my in 0..mask.h {
-            for mx in 0..mask.w {
-                let c = mask.cov[my * mask.w + mx];
-                if c <= 0.0 {
-                    continue;
-                }
-                // Text-frame pixel relative to the origin.
-                let tx = mx as i64 - mask.origin_x;
-                let ty = my as i64 - mask.baseline_y;
-                let (px, py) = if st.rotated {
-                    (ox + ty, oy - tx - 1)
-                } else {
-                    (ox + tx, oy + ty)
+        for og in (layout.glyphs.iter()).filter_map(|g| self.font.outline_glyph(g.clone())) {
+            let b = og.px_bounds();
+            og.draw(|gx, gy, c| {
+                // Pixel in the text frame, from the caret start on the baseline.
+                let tx = b.min.x as i64 + i64::from(gx);
+                let ty = b.min.y as i64 + i64::from(gy);
+                let (px, py) = match st.rotated {
+                    true => (ox + ty, oy - tx - 1),
+                    false => (ox + tx, oy + ty),
                 };
                 canvas.blend(px, py, st.color, c);
-            }
+            });
         }
         rect
     }
@@ -275,13 +215,6 @@ impl TextFont {
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    /// Columns of a mask that hold visible ink.
-    fn ink_columns(mask: &Mask) -> Vec<bool> {
-        (0..mask.w)
-            .map(|x| (0..mask.h).any(|y| mask.cov[y * mask.w + x] > 0.25))
-            .collect()
-    }
 
     #[test]
     fn letters_in_a_word_are_evenly_spaced() {
@@ -313,7 +246,19 @@ mod tests {
 
             // The rendered pixels agree: no run of empty columns inside
             // the word is wider than 0.35 em.
-            let cols = ink_columns(&font.rasterize(&layout));
+            let w = (12.0 * size) as usize;
+            let mut c = Canvas::new(w as u32, (3.0 * size) as u32, Rgb(255, 255, 255));
+            font.draw(
+                &mut c,
+                "continuous",
+                4.0,
+                4.0,
+                &TextStyle::new(size, Rgb(0, 0, 0)),
+            );
+            // Columns with ink darker than a quarter coverage.
+            let cols: Vec<bool> = (0..w)
+                .map(|x| (0..c.height() as usize).any(|y| c.pixels()[(y * w + x) * 3] < 191))
+                .collect();
             let first = cols.iter().position(|c| *c).unwrap();
             let last = cols.iter().rposition(|c| *c).unwrap();
             let mut run = 0usize;
