@@ -279,37 +279,24 @@ impl VMark {
     }
 }
 
-/// A shaded x interval; an infinite end runs to the plot edge.
+/// A shaded interval of x ([`XBand`]) or y ([`YBand`]); an infinite end
+/// runs to the plot edge.
 #[derive(Debug, Clone, PartialEq)]
-pub struct XBand {
+pub struct Band {
     pub from: f64,
     pub to: f64,
     pub label: String,
 }
 
-impl XBand {
-    /// A shaded x interval.
-    pub fn new(from: f64, to: f64, label: impl Into<String>) -> Self {
-        XBand {
-            from,
-            to,
-            label: label.into(),
-        }
-    }
-}
+/// A shaded x interval.
+pub type XBand = Band;
+/// A shaded y interval.
+pub type YBand = Band;
 
-/// A shaded y interval; an infinite end runs to the plot edge.
-#[derive(Debug, Clone, PartialEq)]
-pub struct YBand {
-    pub from: f64,
-    pub to: f64,
-    pub label: String,
-}
-
-impl YBand {
-    /// A shaded y interval.
+impl Band {
+    /// A shaded interval from `from` to `to`.
     pub fn new(from: f64, to: f64, label: impl Into<String>) -> Self {
-        YBand {
+        Band {
             from,
             to,
             label: label.into(),

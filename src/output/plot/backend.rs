@@ -9,14 +9,13 @@
 
 use std::convert::Infallible;
 
-use plotters_backend::text_anchor::{HPos, VPos};
 use plotters_backend::{
     BackendColor, BackendCoord, BackendStyle, BackendTextStyle, DrawingBackend, DrawingErrorKind,
     FontTransform,
 };
 
 use super::canvas::{Canvas, Rgb, capsule, circle};
-use super::text::{HAlign, TextFont, TextStyle, VAlign};
+use super::text::{TextFont, TextStyle};
 
 type Result<T> = std::result::Result<T, DrawingErrorKind<Infallible>>;
 
@@ -40,17 +39,8 @@ impl CanvasBackend<'_> {
     fn text_style(&self, style: &impl BackendTextStyle) -> TextStyle {
         let (color, _) = rgb(&style.color());
         let a = style.anchor();
-        let h = match a.h_pos {
-            HPos::Left => HAlign::Left,
-            HPos::Center => HAlign::Center,
-            HPos::Right => HAlign::Right,
-        };
-        let v = match a.v_pos {
-            VPos::Top => VAlign::Top,
-            VPos::Center => VAlign::Middle,
-            VPos::Bottom => VAlign::Bottom,
-        };
-        let st = TextStyle::new(self.font.em_of_scale(style.size()), color).anchor(h, v);
+        let st =
+            TextStyle::new(self.font.em_of_scale(style.size()), color).anchor(a.h_pos, a.v_pos);
         match style.transform() {
             FontTransform::None | FontTransform::Rotate180 => st,
             // Axis descriptions read bottom to top.
@@ -148,30 +138,6 @@ impl DrawingBackend for CanvasBackend<'_> {
         let clip = self.canvas.bounds();
         self.canvas.fill_polys(&polys, c, a, clip);
         Ok(())
-    }
-
-    fn draw_circle<S: BackendStyle>(
-        &mut self,
-        center: BackendCoord,
-        radius: u32,
-        style: &S,
-        fill: bool,
-    ) -> Result<()> {
-        let (x, y) = centre(center);
-        let r = f64::from(radius);
-        if fill {
-            let (c, a) = rgb(&style.color());
-            let clip = self.canvas.bounds();
-            self.canvas.fill_polys(&[circle(x, y, r)], c, a, clip);
-            Ok(())
-        } else {
-            let mut ring: Vec<BackendCoord> = circle(x, y, r)
-                .iter()
-                .map(|p| (p.0.floor() as i32, p.1.floor() as i32))
-                .collect();
-            ring.push(ring[0]);
-            self.draw_path(ring, style)
-        }
     }
 
     fn fill_polygon<S: BackendStyle, I: IntoIterator<Item = BackendCoord>>(

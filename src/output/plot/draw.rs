@@ -18,7 +18,7 @@ use plotters::style::{RGBAColor, TextStyle as PTextStyle};
 use super::backend::CanvasBackend;
 use super::canvas::{Canvas, Rect, Rgb, capsule, circle, clip_segment};
 use super::style::{self, Marker, Pen, pen_of};
-use super::text::{HAlign, TextFont, TextStyle, VAlign};
+use super::text::{HPos, TextFont, TextStyle, VPos};
 use super::{Axis, Draw, Figure, MAX_PIXELS, MAX_SIDE, MIN_SIDE, MarkStyle, Panel, Side};
 
 type Coords = Cartesian2d<Scale, Scale>;
@@ -611,7 +611,7 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
         font.draw(&mut canvas, t, m.margin, m.margin, &st);
     }
     if let Some(note) = &fig.note {
-        let st = TextStyle::new(m.note, style::TEXT_SOFT).anchor(HAlign::Left, VAlign::Bottom);
+        let st = TextStyle::new(m.note, style::TEXT_SOFT).anchor(HPos::Left, VPos::Bottom);
         font.draw(&mut canvas, note.trim(), m.margin, h - m.margin * 0.7, &st);
     }
     place_labels(&mut canvas, &font, &m, pending);
@@ -628,8 +628,8 @@ fn draw_extras<'a, 'b: 'a>(
     m: &Metrics,
     pending: &mut Vec<Pending>,
 ) -> Result<(), PlotError> {
-    use HAlign::{Center, Left, Right};
-    use VAlign::{Bottom, Middle, Top};
+    use HPos::{Center, Left, Right};
+    use VPos::{Bottom, Center as Middle, Top};
     let (px, py) = chart.plotting_area().get_pixel_range();
     let plot = Rect::new(
         px.start.into(),
@@ -655,7 +655,7 @@ fn draw_extras<'a, 'b: 'a>(
             .map_err(err)
     };
     let b = m.base;
-    let s = |c: Rgb, h: HAlign, v: VAlign| TextStyle::new(m.small, c).anchor(h, v);
+    let s = |c: Rgb, h: HPos, v: VPos| TextStyle::new(m.small, c).anchor(h, v);
     let (left, right) = (plot.x0 + 0.5 * b, plot.x1 - 0.5 * b);
     let mid_x = (plot.x0 + plot.x1) / 2.0;
     for band in &p.hbands {

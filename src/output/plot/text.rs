@@ -17,29 +17,17 @@ use crate::error::PlotError;
 /// (see `assets/fonts/make-subset.sh`).
 pub(crate) static FONT_BYTES: &[u8] = include_bytes!("../../../assets/fonts/DejaVuSans-subset.ttf");
 
-/// Horizontal anchor: which point of the text's box sits on the anchor.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub(crate) enum HAlign {
-    Left,
-    Center,
-    Right,
-}
-
-/// Vertical anchor, measured on the font's line box (ascent to descent).
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub(crate) enum VAlign {
-    Top,
-    Middle,
-    Bottom,
-}
+/// Anchors: which point of the text's line box (advance width by
+/// ascent to descent) sits on the given position; plotters' own.
+pub(crate) use plotters_backend::text_anchor::{HPos, VPos};
 
 /// How a string is drawn: size is the em size in pixels.
-#[derive(Debug, Clone, Copy)]
+#[derive(Clone, Copy)]
 pub(crate) struct TextStyle {
     pub size: f64,
     pub color: Rgb,
-    pub h: HAlign,
-    pub v: VAlign,
+    pub h: HPos,
+    pub v: VPos,
     /// Turned a quarter turn anticlockwise, reading bottom to top.
     pub rotated: bool,
 }
@@ -49,13 +37,13 @@ impl TextStyle {
         TextStyle {
             size,
             color,
-            h: HAlign::Left,
-            v: VAlign::Top,
+            h: HPos::Left,
+            v: VPos::Top,
             rotated: false,
         }
     }
 
-    pub fn anchor(mut self, h: HAlign, v: VAlign) -> Self {
+    pub fn anchor(mut self, h: HPos, v: VPos) -> Self {
         self.h = h;
         self.v = v;
         self
@@ -150,15 +138,15 @@ impl TextFont {
     /// text; also the canvas rectangle of the line box.
     fn place(&self, layout: &Layout, x: f64, y: f64, st: &TextStyle) -> ((i64, i64), Rect) {
         let ax = match st.h {
-            HAlign::Left => 0.0,
-            HAlign::Center => layout.width / 2.0,
-            HAlign::Right => layout.width,
+            HPos::Left => 0.0,
+            HPos::Center => layout.width / 2.0,
+            HPos::Right => layout.width,
         };
         // Offset from the baseline, y down.
         let ay = match st.v {
-            VAlign::Top => -layout.ascent,
-            VAlign::Middle => (layout.descent - layout.ascent) / 2.0,
-            VAlign::Bottom => layout.descent,
+            VPos::Top => -layout.ascent,
+            VPos::Center => (layout.descent - layout.ascent) / 2.0,
+            VPos::Bottom => layout.descent,
         };
         if st.rotated {
             // Text frame (tx, ty) maps to canvas (ox + ty, oy - tx).
@@ -286,11 +274,11 @@ mod tests {
     #[test]
     fn anchors_and_rotation_place_the_box() {
         let font = TextFont::embedded().unwrap();
-        let st = TextStyle::new(20.0, Rgb(0, 0, 0)).anchor(HAlign::Right, VAlign::Middle);
+        let st = TextStyle::new(20.0, Rgb(0, 0, 0)).anchor(HPos::Right, VPos::Center);
         let r = font.bounds("10k", 100.0, 50.0, &st);
         assert!((r.x1 - 100.0).abs() <= 1.0);
         assert!(((r.y0 + r.y1) / 2.0 - 50.0).abs() <= 1.0);
-        let rot = st.anchor(HAlign::Center, VAlign::Top).rotated();
+        let rot = st.anchor(HPos::Center, VPos::Top).rotated();
         let r = font.bounds("gain (dB)", 30.0, 200.0, &rot);
         assert!(r.height() > r.x1 - r.x0, "rotated text is tall: {r:?}");
         assert!((r.x0 - 30.0).abs() <= 1.0);
@@ -302,7 +290,7 @@ mod tests {
         let font = TextFont::embedded().unwrap();
         for rotated in [false, true] {
             let mut c = Canvas::new(200, 200, Rgb(255, 255, 255));
-            let mut st = TextStyle::new(20.0, Rgb(0, 0, 0)).anchor(HAlign::Center, VAlign::Middle);
+            let mut st = TextStyle::new(20.0, Rgb(0, 0, 0)).anchor(HPos::Center, VPos::Center);
             if rotated {
                 st = st.rotated();
             }
