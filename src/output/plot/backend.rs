@@ -4,8 +4,10 @@
 //! where; this backend decides how it looks: strokes and fills go through
 //! the canvas' outline rasterizer (smooth edges), and text is laid out by
 //! `text` with each glyph's side bearing and pair kerning, which plotters
-//! 0.3.7's own text path drops. Font sizes are plotters' (ab_glyph pixel
-//! scale), so the legend boxes plotters sizes from the same font fit.
+//! 0.3.7's own text path drops. Font sizes are plotters' (the pixel
+//! height from ascent to descent); plotters sizes label areas through
+//! `estimate_text_size` here. Circles keep plotters' default rasterizer:
+//! the charts draw none.
 
 use std::convert::Infallible;
 
