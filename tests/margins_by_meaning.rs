@@ -96,15 +96,28 @@ fn check_meaning(lp: &PreparedLoop, p: &Point, f: &Figures) -> Result<(), String
             return Err(format!("GM {gm} dB: scaled by {past} is still stable"));
         }
     }
-    // Delay margin: 0.98 x stays stable, 1.02 x does not.
+    // Delay margin: the first loss of stability. Stable at 0.98 x and at
+    // every delay of a scan 1/16 of a period apart below it (at most 200
+    // trials, so a window of instability stepped over shows), unstable
+    // just past it (1 + 1e-4). Not "1.02 x is unstable": a loop whose pole
+    // hugs the unit circle can regain stability within 2 % of the margin
+    // (`delay_margin_is_the_first_loss_even_where_stability_comes_back`).
     let c = lp.controller_at(p.rate_hz, p.method).unwrap();
     match f.delay_margin_s {
         Some(dm) => {
             if !stable_with(lp, &delayed(p, 0.98 * dm), &c) {
                 return Err(format!("DM {dm} s: 0.98 x is unstable"));
             }
-            if stable_with(lp, &delayed(p, 1.02 * dm), &c) {
-                return Err(format!("DM {dm} s: 1.02 x is still stable"));
+            let step = (1.0 / (16.0 * p.rate_hz)).max(0.98 * dm / 200.0);
+            let trials = (0.98 * dm / step).floor() as usize;
+            for i in 1..=trials {
+                let x = i as f64 * step;
+                if !stable_with(lp, &delayed(p, x), &c) {
+                    return Err(format!("DM {dm} s: unstable already at {x} s"));
+                }
+            }
+            if stable_with(lp, &delayed(p, dm * (1.0 + 1e-4)), &c) {
+                return Err(format!("DM {dm} s: just past it is still stable"));
             }
         }
         None => {
@@ -542,9 +555,10 @@ fn delay_margin_finds_a_window_of_instability_shorter_than_half_a_period() {
     // of ratio 5.064, an integral at 107.9 rad/s, wc = 315.3 rad/s, 36.85 x
     // wc, Tustin, no computation delay. |L| crosses 1 at about 56, 314 and
     // 345 rad/s; with extra delay a closed-loop pole near 342 rad/s comes
-    // to hug the unit circle (|z| within 1e-4 of 1); the change of the hold's shape with the
-    // fraction of the delay (it repeats every period) makes it cross out,
-    // back in within about half a period, and out again. A scan in steps
+    // to hug the unit circle (|z| within 1e-4 of 1), and the change of the
+    // hold's shape with the fraction of the delay (it repeats every period)
+    // makes it cross out, back in within about half a period, and out
+    // again. A scan in steps
     // of half a period once stepped over that first window and reported
     // the second one (about 7.78 ms, 0.98 x of which is unstable).
     let rl = RandomLoop {
@@ -590,6 +604,59 @@ fn delay_margin_finds_a_window_of_instability_shorter_than_half_a_period() {
     // Lost, found again within a period, lost again.
     assert!(!flips[0].1 && flips[1].1 && !flips[2].1, "flips {flips:?}");
     assert!(flips[1].0 - first < period, "flips {flips:?}");
+    assert!(
+        dm > first - step && dm <= first,
+        "margin {dm} s vs the dense scan's first unstable delay {first} s"
+    );
+    check_meaning(&lp, &p, &f).unwrap();
+}
+
+#[test]
+fn delay_margin_is_the_first_loss_even_where_stability_comes_back() {
+    // A random loop margins_by_meaning found: a plant lag at 114.6 rad/s,
+    // a notch at 269.7 rad/s (zero damping 0.0728, pole damping 0.314), wc
+    // = 56.39 rad/s, 16.87 x wc, backward Euler, no computation delay. A
+    // closed-loop pole near the crossover (8.4 Hz) comes to hug the unit
+    // circle with extra delay: it crosses out at about 6.98 periods, back
+    // in at about 7.12 (a window of 2 % of the margin) and out again at
+    // about 7.59.
+    // The margin is the first crossing, so 1.02 x the margin is stable.
+    let rl = RandomLoop {
+        plant: vec![PlantFactor::Lag(114.597_903_565_678_72)],
+        sensor_lag: None,
+        ctrl: vec![CtrlFactor::Notch(
+            269.714_467_540_788_86,
+            0.072_804_434_275_492_62,
+            0.314_142_236_363_203_26,
+        )],
+        wc: 56.392_911_532_985_7,
+        rate_ratio: 16.865_415_835_461_718,
+        method: Method::BackwardEuler,
+        delay: 0.0,
+    };
+    let (lp, p) = rl.build().unwrap();
+    let e = lp.sampled_exact(&p);
+    let f = e.figures.clone().expect("stable");
+    let dm = f.delay_margin_s.expect("a delay margin");
+    // Brute-force dense scan of extra delays, 1/400 of a period apart up to
+    // 10 periods, each with the exact loop's poles.
+    let c = lp.controller_at(p.rate_hz, p.method).unwrap();
+    let period = 1.0 / p.rate_hz;
+    let step = period / 400.0;
+    let mut flips: Vec<(f64, bool)> = Vec::new();
+    let mut was = true;
+    for i in 1..=4000 {
+        let x = i as f64 * step;
+        let now = stable_with(&lp, &delayed(&p, x), &c);
+        if now != was {
+            flips.push((x, now));
+            was = now;
+        }
+    }
+    assert!(flips.len() >= 3, "flips {flips:?}");
+    assert!(!flips[0].1 && flips[1].1 && !flips[2].1, "flips {flips:?}");
+    let first = flips[0].0;
+    assert!(flips[1].0 < 1.05 * first, "flips {flips:?}");
     assert!(
         dm > first - step && dm <= first,
         "margin {dm} s vs the dense scan's first unstable delay {first} s"
