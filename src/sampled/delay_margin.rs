@@ -7,7 +7,8 @@
 //! inside the period), so the phase-over-frequency figure is only an
 //! estimate. Here every trial delay builds the exact loop with the
 //! computation delay plus the extra one (whole periods as unit delays, the
-//! fraction exact: `hold`), and asks its poles whether it is still stable.
+//! fraction exact: `hold`), and takes the largest modulus of its poles
+//! (stable below 1).
 //!
 //! The search (`first_unstable`, shared with the cascade's outer loop,
 //! whose delays come in whole inner ticks): trial delays from 0 upward in
@@ -35,8 +36,9 @@ const STEP_RAD: f64 = 0.1;
 /// loop in two ways: whole periods rotate `L(e^{jwT})` by `wT`, and the
 /// fraction also changes the shape of the command inside the period, which
 /// repeats every period. A loop whose closed-loop pole sits next to the
-/// unit circle can cross it and come back within a period (README's case:
-/// a window of 0.47 of a period, skipped by steps of half a period).
+/// unit circle can cross it and come back within a period (a random loop
+/// had a window of 0.47 of a period, which steps of half a period skipped:
+/// `docs/figures.md`).
 pub const STEPS_PER_PERIOD: f64 = 8.0;
 /// Most trial delays of the scan (64 periods at 8 a period is 512).
 const MAX_SCAN: usize = 1000;
@@ -211,8 +213,8 @@ fn stable(rho: f64) -> bool {
 /// the largest closed-loop pole modulus with extra delay `x` (the loop is
 /// stable at 0). Trials from 0 upward by `scan.step` and at the
 /// candidates, each one up to the first that is not stable; at a peak of
-/// the spectral radius over three successive stable trials that reaches
-/// near 1 (the parabola through them comes within their own spread of 1),
+/// the spectral radius over three successive stable trials that comes
+/// near 1 (within twice their own spread),
 /// a golden-section search of the peak between its neighbours looks for a
 /// window of instability the step would have skipped; then bisection
 /// between the last stable and the first unstable trial. Every loop is
@@ -310,20 +312,12 @@ fn window_at_peak(
     if !(r1 > r0 && r1 >= r2) {
         return Ok(None);
     }
-    // The parabola through the three points: its vertex is the peak's
-    // estimate; search only when it comes within the trials' own spread
-    // of 1 (a peak far below 1 cannot hide a window).
-    let (d0, d2) = (x0 - x1, x2 - x1);
-    let (s0, s2) = ((r0 - r1) / d0, (r2 - r1) / d2);
-    let curv = (s2 - s0) / (d2 - d0);
-    let slope = s0 - curv * d0;
-    let vertex = if curv < 0.0 {
-        r1 - slope * slope / (4.0 * curv)
-    } else {
-        r1
-    };
+    // Search only a peak within twice the trials' own spread of 1 (a rule
+    // of thumb, common practice, no source: three trials can under-read a
+    // sharp peak by about their spread; a peak far below 1 for its spread
+    // is taken to hide no window).
     let spread = r1 - r0.min(r2);
-    if vertex < 1.0 - STABILITY_TOLERANCE - spread {
+    if r1 < 1.0 - STABILITY_TOLERANCE - 2.0 * spread {
         return Ok(None);
     }
     let snap = |x: f64| if whole { x.round() } else { x };
@@ -366,4 +360,73 @@ fn window_at_peak(
         }
     }
     Ok(None)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn scan(step: f64, whole: bool) -> DelayScan {
+        DelayScan {
+            max: 100.0,
+            step,
+            candidates: Vec::new(),
+            whole,
+        }
+    }
+
+    #[test]
+    fn monotone_radius_is_bisected_to_its_crossing() {
+        // Closed form: rho(x) = 0.9 + 0.02 x crosses 1 - 1e-10 at
+        // x = (0.1 - 1e-10) / 0.02.
+        let r = first_unstable(&scan(0.3, false), |x| Ok(0.9 + 0.02 * x));
+        let FirstUnstable::Between { stable, unstable } = r else {
+            panic!("{r:?}");
+        };
+        let exact = (0.1 - 1e-10) / 0.02;
+        assert!(stable <= exact && unstable >= exact, "{stable} {unstable}");
+        assert!(unstable - stable <= 1e-9 * exact);
+    }
+
+    #[test]
+    fn narrow_window_between_steps_is_found_at_its_peak() {
+        // Closed form: a rising trend plus a bump at x = 3.3 that pokes
+        // above 1 over |x - 3.3| < 0.05 sqrt(ln 2) (about 0.042), between
+        // trials 0.25 apart; the trend alone reaches 1 only at x = 9.
+        let rho = |x: f64| Ok(0.991 + 0.001 * x + 0.006 * (-((x - 3.3) / 0.05).powi(2)).exp());
+        assert!(rho(3.25).unwrap() < 1.0 && rho(3.5).unwrap() < 1.0);
+        let r = first_unstable(&scan(0.25, false), rho);
+        let FirstUnstable::Between { stable, unstable } = r else {
+            panic!("{r:?}");
+        };
+        assert!((3.24..3.31).contains(&stable), "{stable} {unstable}");
+        assert!(unstable - stable <= 1e-9 * unstable);
+        assert!(rho(unstable).unwrap() > 1.0 - STABILITY_TOLERANCE);
+    }
+
+    #[test]
+    fn whole_ticks_end_one_tick_apart() {
+        // Unstable from tick 37 on; steps of 5 ticks, a candidate at 36.
+        let mut s = scan(5.0, true);
+        s.candidates = vec![36.0];
+        let r = first_unstable(&s, |x| {
+            assert_eq!(x, x.floor(), "a trial between ticks: {x}");
+            Ok(if x >= 37.0 { 1.01 } else { 0.5 })
+        });
+        assert_eq!(
+            r,
+            FirstUnstable::Between {
+                stable: 36.0,
+                unstable: 37.0
+            }
+        );
+    }
+
+    #[test]
+    fn stable_everywhere_says_how_far() {
+        let r = first_unstable(&scan(7.0, false), |_| Ok(0.5));
+        assert_eq!(r, FirstUnstable::StableUpTo(98.0));
+        let r = first_unstable(&scan(1.0, false), |_| Err("no poles".to_string()));
+        assert_eq!(r, FirstUnstable::Failed("no poles".into()));
+    }
 }
