@@ -550,17 +550,18 @@ fn shallow_bump_of_the_loop_gain_just_above_one_is_a_crossing() {
 
 #[test]
 fn delay_margin_finds_a_window_of_instability_shorter_than_half_a_period() {
-    // A random loop within the rounding of the one in README's history of
-    // this bug: plant lags at 372.3 and 4234 rad/s, a lead at 79.07 rad/s
+    // A random loop within the rounding of one the property test once
+    // reported with too large a margin (docs/figures.md): plant lags at 372.3 and 4234 rad/s, a lead at 79.07 rad/s
     // of ratio 5.064, an integral at 107.9 rad/s, wc = 315.3 rad/s, 36.85 x
     // wc, Tustin, no computation delay. |L| crosses 1 at about 56, 314 and
     // 345 rad/s; with extra delay a closed-loop pole near 342 rad/s comes
     // to hug the unit circle (|z| within 1e-4 of 1), and the change of the
     // hold's shape with the fraction of the delay (it repeats every period)
     // makes it cross out, back in within about half a period, and out
-    // again. A scan in steps
-    // of half a period once stepped over that first window and reported
-    // the second one (about 7.78 ms, 0.98 x of which is unstable).
+    // again. A scan in steps of half a period once stepped over that first
+    // window and reported the second one (about 7.78 ms, 0.98 x of which is
+    // unstable). Brute-force dense scan of extra delays, 1/200 of a period
+    // apart up to 20 periods.
     let rl = RandomLoop {
         plant: vec![
             PlantFactor::Lag(372.266_957_371_995_7),
@@ -576,39 +577,47 @@ fn delay_margin_finds_a_window_of_instability_shorter_than_half_a_period() {
         method: Method::Tustin,
         delay: 0.0,
     };
+    let (period, flips) = first_loss_against_dense_scan(&rl, 200, 4000);
+    assert!(flips[1].0 - flips[0].0 < period, "flips {flips:?}");
+}
+
+/// The loop `rl`'s exact delay margin against a brute-force dense scan of
+/// extra delays, `1 / per_period` of a period apart for `trials` steps,
+/// each with the exact loop's poles: stability is lost, found again and
+/// lost again on the scan, and the margin is the first loss (within one
+/// scan step); every figure holds by its meaning. Returns the period (s)
+/// and the scan's flips (delay s, stable after it).
+fn first_loss_against_dense_scan(
+    rl: &RandomLoop,
+    per_period: usize,
+    trials: usize,
+) -> (f64, Vec<(f64, bool)>) {
     let (lp, p) = rl.build().unwrap();
     let e = lp.sampled_exact(&p);
     let f = e.figures.clone().expect("stable");
     let dm = f.delay_margin_s.expect("a delay margin");
-    // Brute-force dense scan of extra delays, 1/200 of a period apart up to
-    // 20 periods, each with the exact loop's poles: the first unstable
-    // delay, and the stability found again after it.
     let c = lp.controller_at(p.rate_hz, p.method).unwrap();
     let period = 1.0 / p.rate_hz;
-    let step = period / 200.0;
-    let flips: Vec<(f64, bool)> = {
-        let mut out = Vec::new();
-        let mut was = true;
-        for i in 1..=4000 {
-            let x = i as f64 * step;
-            let now = stable_with(&lp, &delayed(&p, x), &c);
-            if now != was {
-                out.push((x, now));
-                was = now;
-            }
+    let step = period / per_period as f64;
+    let mut flips: Vec<(f64, bool)> = Vec::new();
+    let mut was = true;
+    for i in 1..=trials {
+        let x = i as f64 * step;
+        let now = stable_with(&lp, &delayed(&p, x), &c);
+        if now != was {
+            flips.push((x, now));
+            was = now;
         }
-        out
-    };
+    }
     assert!(flips.len() >= 3, "flips {flips:?}");
-    let (first, _) = flips[0];
-    // Lost, found again within a period, lost again.
     assert!(!flips[0].1 && flips[1].1 && !flips[2].1, "flips {flips:?}");
-    assert!(flips[1].0 - first < period, "flips {flips:?}");
+    let first = flips[0].0;
     assert!(
         dm > first - step && dm <= first,
         "margin {dm} s vs the dense scan's first unstable delay {first} s"
     );
     check_meaning(&lp, &p, &f).unwrap();
+    (period, flips)
 }
 
 #[test]
@@ -634,32 +643,8 @@ fn delay_margin_is_the_first_loss_even_where_stability_comes_back() {
         method: Method::BackwardEuler,
         delay: 0.0,
     };
-    let (lp, p) = rl.build().unwrap();
-    let e = lp.sampled_exact(&p);
-    let f = e.figures.clone().expect("stable");
-    let dm = f.delay_margin_s.expect("a delay margin");
     // Brute-force dense scan of extra delays, 1/400 of a period apart up to
-    // 10 periods, each with the exact loop's poles.
-    let c = lp.controller_at(p.rate_hz, p.method).unwrap();
-    let period = 1.0 / p.rate_hz;
-    let step = period / 400.0;
-    let mut flips: Vec<(f64, bool)> = Vec::new();
-    let mut was = true;
-    for i in 1..=4000 {
-        let x = i as f64 * step;
-        let now = stable_with(&lp, &delayed(&p, x), &c);
-        if now != was {
-            flips.push((x, now));
-            was = now;
-        }
-    }
-    assert!(flips.len() >= 3, "flips {flips:?}");
-    assert!(!flips[0].1 && flips[1].1 && !flips[2].1, "flips {flips:?}");
-    let first = flips[0].0;
-    assert!(flips[1].0 < 1.05 * first, "flips {flips:?}");
-    assert!(
-        dm > first - step && dm <= first,
-        "margin {dm} s vs the dense scan's first unstable delay {first} s"
-    );
-    check_meaning(&lp, &p, &f).unwrap();
+    // 10 periods.
+    let (_, flips) = first_loss_against_dense_scan(&rl, 400, 4000);
+    assert!(flips[1].0 < 1.05 * flips[0].0, "flips {flips:?}");
 }
