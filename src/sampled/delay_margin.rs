@@ -7,27 +7,46 @@
 //! inside the period), so the phase-over-frequency figure is only an
 //! estimate. Here every trial delay builds the exact loop with the
 //! computation delay plus the extra one (whole periods as unit delays, the
-//! fraction exact: `hold`), and asks its poles whether it is still stable.
+//! fraction exact: `hold`), and takes the largest modulus of its poles
+//! (stable below 1).
 //!
-//! The search: trial delays from 0 upward in steps small enough that the
-//! loop's fastest gain crossing turns by at most `STEP_RAD` between two
-//! trials (and at most half a period), plus the estimate's own candidates (`phi_i / w_i` at each
-//! crossing), up to the first one that is not stable; then bisection between
-//! the last stable and the first unstable trial. Both loops are capped.
+//! The search (`first_unstable`, shared with the cascade's outer loop,
+//! whose delays come in whole inner ticks): trial delays from 0 upward in
+//! steps (`scan_step`) small enough that the loop's fastest gain crossing
+//! turns by at most `STEP_RAD` between two trials and at most
+//! `1 / STEPS_PER_PERIOD` of a period (so every frequency up to Nyquist
+//! turns by at most pi / `STEPS_PER_PERIOD`, and the change of the hold's
+//! shape, which repeats every period of delay, is seen at that many delays
+//! a period), plus the estimate's own candidates (`phi_i / w_i` at each
+//! crossing); a local peak of the trials' spectral radius near 1 is
+//! searched for a short window of instability between its neighbours; the
+//! first unstable trial is refined by bisection against the last stable
+//! one. Every loop is capped.
 
 use crate::model::state_space::StateSpace;
 use crate::model::transfer::DiscreteTransfer;
-use crate::sampled::closed_loop::{ClosedLoop, Stability};
+use crate::sampled::closed_loop::{ClosedLoop, STABILITY_TOLERANCE};
 use crate::sampled::frequency::LoopFigures;
 use crate::sampled::hold::{Actuation, HoldEquivalent};
 
 /// Largest rotation (rad) of the fastest gain crossing between two trial
 /// delays of the scan.
 const STEP_RAD: f64 = 0.1;
-/// Most trial delays of the scan.
+/// Fewest trial delays per period of delay. A delay changes the sampled
+/// loop in two ways: whole periods rotate `L(e^{jwT})` by `wT`, and the
+/// fraction also changes the shape of the command inside the period, which
+/// repeats every period. A loop whose closed-loop pole sits next to the
+/// unit circle can cross it and come back within a period (a random loop
+/// had a window of 0.47 of a period, which steps of half a period skipped:
+/// `docs/figures.md`).
+pub const STEPS_PER_PERIOD: f64 = 8.0;
+/// Most trial delays of the scan (64 periods at 8 a period is 512).
 const MAX_SCAN: usize = 1000;
 /// Most bisection steps (the bracket shrinks by 2^-48 of a step at most).
 const MAX_BISECT: usize = 48;
+/// Most trials of the search for a short window between the neighbours of
+/// a peak of the spectral radius.
+const MAX_PEAK_TRIALS: usize = 16;
 /// The largest total delay searched, in periods: each period of delay is a
 /// state of the loop, so its poles cost more with every period (a trial at
 /// 400 periods costs a 400-state eigenvalue problem, and a scan of them
@@ -62,23 +81,12 @@ pub fn exact_delay_margin(
     freq: &LoopFigures,
 ) -> DelayMargin {
     let delay_periods = act.delay_periods;
-    let two_pi = 2.0 * std::f64::consts::PI;
-    let crossings: Vec<(f64, f64)> = freq
-        .gain_crossings_hz
-        .iter()
-        .zip(&freq.phase_to_go_deg)
-        .map(|(&f, &phi)| (two_pi * f, phi.to_radians()))
-        .filter(|(w, _)| *w > 0.0 && w.is_finite())
-        .collect();
-    if crossings.is_empty() {
-        return if freq.notes.is_empty() {
-            DelayMargin::NoCrossing
-        } else {
-            DelayMargin::NotLocated(freq.notes.join("; "))
-        };
-    }
+    let seeds = match crossing_seeds(freq) {
+        Ok(v) => v,
+        Err(m) => return m,
+    };
     let max_delay_s = (MAX_DELAY_PERIODS - delay_periods).max(0.0) * period_s;
-    let unstable_at = |extra_s: f64| -> Result<bool, String> {
+    let radius_at = |extra_s: f64| -> Result<f64, String> {
         let d = delay_periods + extra_s / period_s;
         let at = Actuation {
             delay_periods: d,
@@ -89,64 +97,336 @@ pub fn exact_delay_margin(
         let cl =
             ClosedLoop::new(&hold, controller).map_err(|e| format!("closing the loop: {e}"))?;
         let poles = cl.poles().map_err(|e| format!("closed-loop poles: {e}"))?;
-        Ok(ClosedLoop::stability(&poles) != Stability::Stable)
+        Ok(poles.iter().map(|p| p.norm()).fold(0.0, f64::max))
     };
-    let w_fast = crossings.iter().map(|c| c.0).fold(0.0, f64::max);
-    // At most half a period: a loop whose |L| stays near 1 up to Nyquist
-    // can gain and lose stability within a period of extra delay.
-    let step = (STEP_RAD / w_fast).min(0.5 * period_s);
-    // Candidates: phi_i / w_i and the same one full turn later, each a
-    // hair past, so a crossing the estimate predicts exactly is tried.
-    let mut candidates: Vec<f64> = crossings
+    // The candidates a hair past, so a crossing the estimate predicts
+    // exactly is tried.
+    let candidates: Vec<f64> = seeds
+        .candidates_s
         .iter()
-        .flat_map(|&(w, phi)| [phi / w, (phi + two_pi) / w])
         .map(|d| d * (1.0 + 1e-6))
-        .filter(|&d| d > 0.0 && d <= max_delay_s)
+        .filter(|&d| d <= max_delay_s)
         .collect();
-    candidates.sort_by(|a, b| a.total_cmp(b));
-    let mut next_candidate = 0;
-    let (mut lo, mut hi) = (0.0, None);
-    let mut x = 0.0;
-    for _ in 0..MAX_SCAN {
-        let mut next = x + step;
-        while next_candidate < candidates.len() && candidates[next_candidate] <= x {
-            next_candidate += 1;
+    let scan = DelayScan {
+        max: max_delay_s,
+        step: scan_step(seeds.w_fast, period_s),
+        candidates,
+        whole: false,
+    };
+    match first_unstable(&scan, radius_at) {
+        FirstUnstable::Between { stable, unstable } => {
+            DelayMargin::Seconds(0.5 * (stable + unstable))
         }
-        if next_candidate < candidates.len() && candidates[next_candidate] < next {
-            next = candidates[next_candidate];
-        }
-        if next > max_delay_s {
-            break;
-        }
-        match unstable_at(next) {
-            Ok(true) => {
-                hi = Some(next);
-                break;
-            }
-            Ok(false) => {
-                lo = next;
-                x = next;
-            }
-            Err(e) => return DelayMargin::NotLocated(e),
-        }
-    }
-    let Some(mut hi) = hi else {
-        return DelayMargin::NotLocated(format!(
+        FirstUnstable::StableUpTo(x) => DelayMargin::NotLocated(format!(
             "the loop stayed stable for every extra delay tried up to {:.6e} s ({:.0} periods in all)",
             x,
             delay_periods + x / period_s
-        ));
+        )),
+        FirstUnstable::Failed(e) => DelayMargin::NotLocated(e),
+    }
+}
+
+/// What a loop's gain crossings give a delay-margin search.
+#[derive(Debug, Clone)]
+pub struct CrossingSeeds {
+    /// The fastest gain crossing, rad/s (sets the scan step).
+    pub w_fast: f64,
+    /// The estimate's candidate delays, s, ascending and positive: at each
+    /// crossing `phi_i / w_i` and the same one full turn later.
+    pub candidates_s: Vec<f64>,
+}
+
+/// The seeds of a delay-margin search from a loop's figures `freq`, or the
+/// margin itself when there is nothing to search: no gain crossing
+/// (`NoCrossing`), or a crossing that could not be located (`NotLocated`,
+/// with the figures' notes).
+pub fn crossing_seeds(freq: &LoopFigures) -> Result<CrossingSeeds, DelayMargin> {
+    let two_pi = 2.0 * std::f64::consts::PI;
+    let crossings: Vec<(f64, f64)> = freq
+        .gain_crossings_hz
+        .iter()
+        .zip(&freq.phase_to_go_deg)
+        .map(|(&f, &phi)| (two_pi * f, phi.to_radians()))
+        .filter(|(w, _)| *w > 0.0 && w.is_finite())
+        .collect();
+    if crossings.is_empty() {
+        return Err(if freq.notes.is_empty() {
+            DelayMargin::NoCrossing
+        } else {
+            DelayMargin::NotLocated(freq.notes.join("; "))
+        });
+    }
+    let mut candidates_s: Vec<f64> = crossings
+        .iter()
+        .flat_map(|&(w, phi)| [phi / w, (phi + two_pi) / w])
+        .filter(|d| *d > 0.0 && d.is_finite())
+        .collect();
+    candidates_s.sort_by(|a, b| a.total_cmp(b));
+    Ok(CrossingSeeds {
+        w_fast: crossings.iter().map(|c| c.0).fold(0.0, f64::max),
+        candidates_s,
+    })
+}
+
+/// The scan step of a delay-margin search, s: the fastest gain crossing
+/// `w_fast` (rad/s) turns by at most `STEP_RAD` and the delay moves by at
+/// most `1 / STEPS_PER_PERIOD` of the loop's period `period_s`.
+pub fn scan_step(w_fast: f64, period_s: f64) -> f64 {
+    (STEP_RAD / w_fast).min(period_s / STEPS_PER_PERIOD)
+}
+
+/// What `first_unstable` searches: extra delays from 0 to `max`, in the
+/// caller's unit (seconds, or inner ticks for a cascade).
+#[derive(Debug, Clone)]
+pub struct DelayScan {
+    /// Largest extra delay tried.
+    pub max: f64,
+    /// Scan step (`scan_step`, in the caller's unit).
+    pub step: f64,
+    /// Delays tried on the way (the estimate's candidates), ascending.
+    pub candidates: Vec<f64>,
+    /// Whole units only: every trial is a whole number and the bisection
+    /// stops at a bracket of one unit (a cascade's inner ticks).
+    pub whole: bool,
+}
+
+/// How `first_unstable` ended.
+#[derive(Debug, Clone, PartialEq)]
+pub enum FirstUnstable {
+    /// The loop is stable at `stable` (and at every trial below it) and not
+    /// stable at `unstable`; the two are one unit apart (`whole`) or within
+    /// 1e-10 relative.
+    Between { stable: f64, unstable: f64 },
+    /// Stable at every trial up to this extra delay, the last one tried.
+    StableUpTo(f64),
+    /// A trial could not be computed; the text says why.
+    Failed(String),
+}
+
+/// Whether a spectral radius is that of a stable loop (as
+/// `ClosedLoop::stability`; NaN is not).
+fn stable(rho: f64) -> bool {
+    rho <= 1.0 - STABILITY_TOLERANCE
+}
+
+/// The first extra delay at which a loop is not stable: `radius_at(x)` is
+/// the largest closed-loop pole modulus with extra delay `x` (the loop is
+/// stable at 0). Trials from 0 upward by `scan.step` and at the
+/// candidates, each one up to the first that is not stable; at a peak of
+/// the spectral radius over three successive stable trials that comes
+/// near 1 (within twice their own spread),
+/// a golden-section search of the peak between its neighbours looks for a
+/// window of instability the step would have skipped; then bisection
+/// between the last stable and the first unstable trial. Every loop is
+/// capped (`MAX_SCAN`, `MAX_PEAK_TRIALS`, `MAX_BISECT`).
+pub fn first_unstable(
+    scan: &DelayScan,
+    radius_at: impl Fn(f64) -> Result<f64, String>,
+) -> FirstUnstable {
+    let snap = |x: f64| if scan.whole { x.floor() } else { x };
+    let step = if scan.whole {
+        scan.step.floor().max(1.0)
+    } else {
+        scan.step
     };
-    for _ in 0..MAX_BISECT {
-        if hi - lo <= 1e-10 * hi {
+    if !(step > 0.0 && step.is_finite()) {
+        return FirstUnstable::Failed(format!("no usable delay step ({step})"));
+    }
+    // The last three stable trials (delay, spectral radius), newest last.
+    let mut recent: Vec<(f64, f64)> = Vec::with_capacity(3);
+    let mut bracket = None;
+    let mut x = 0.0;
+    let mut next_candidate = 0;
+    for _ in 0..MAX_SCAN {
+        let mut next = x + step;
+        while next_candidate < scan.candidates.len() && scan.candidates[next_candidate] <= x {
+            next_candidate += 1;
+        }
+        if next_candidate < scan.candidates.len() && scan.candidates[next_candidate] < next {
+            next =
+                snap(scan.candidates[next_candidate]).max(x + if scan.whole { 1.0 } else { 0.0 });
+        }
+        if next > scan.max {
             break;
         }
-        let mid = 0.5 * (lo + hi);
-        match unstable_at(mid) {
-            Ok(true) => hi = mid,
-            Ok(false) => lo = mid,
-            Err(e) => return DelayMargin::NotLocated(e),
+        let rho = match radius_at(next) {
+            Ok(v) => v,
+            Err(e) => return FirstUnstable::Failed(e),
+        };
+        if !stable(rho) {
+            bracket = Some((x, next));
+            break;
+        }
+        x = next;
+        if recent.len() == 3 {
+            recent.remove(0);
+        }
+        recent.push((next, rho));
+        if recent.len() == 3 {
+            match window_at_peak(&recent, scan.whole, &radius_at) {
+                Ok(Some(b)) => {
+                    bracket = Some(b);
+                    break;
+                }
+                Ok(None) => {}
+                Err(e) => return FirstUnstable::Failed(e),
+            }
         }
     }
-    DelayMargin::Seconds(0.5 * (lo + hi))
+    let Some((mut lo, mut hi)) = bracket else {
+        return FirstUnstable::StableUpTo(x);
+    };
+    for _ in 0..MAX_BISECT {
+        let done = if scan.whole {
+            hi - lo <= 1.0
+        } else {
+            hi - lo <= 1e-10 * hi
+        };
+        if done {
+            break;
+        }
+        let mid = snap(0.5 * (lo + hi));
+        match radius_at(mid) {
+            Ok(rho) if stable(rho) => lo = mid,
+            Ok(_) => hi = mid,
+            Err(e) => return FirstUnstable::Failed(e),
+        }
+    }
+    FirstUnstable::Between {
+        stable: lo,
+        unstable: hi,
+    }
+}
+
+/// A window of instability hidden between three stable trials `t` (ascending
+/// delays) whose middle one is a peak of the spectral radius near 1: the
+/// golden-section search of the peak between the outer two, stopped at the
+/// first trial that is not stable. Returns (the largest stable delay tried
+/// below it, that delay), or None when the peak stays stable.
+fn window_at_peak(
+    t: &[(f64, f64)],
+    whole: bool,
+    radius_at: &impl Fn(f64) -> Result<f64, String>,
+) -> Result<Option<(f64, f64)>, String> {
+    let [(x0, r0), (x1, r1), (x2, r2)] = [t[0], t[1], t[2]];
+    if !(r1 > r0 && r1 >= r2) {
+        return Ok(None);
+    }
+    // Search only a peak within twice the trials' own spread of 1 (a rule
+    // of thumb, common practice, no source: three trials can under-read a
+    // sharp peak by about their spread; a peak far below 1 for its spread
+    // is taken to hide no window).
+    let spread = r1 - r0.min(r2);
+    if r1 < 1.0 - STABILITY_TOLERANCE - 2.0 * spread {
+        return Ok(None);
+    }
+    let snap = |x: f64| if whole { x.round() } else { x };
+    let g = 0.5 * (5f64.sqrt() - 1.0);
+    let (mut a, mut b) = (x0, x2);
+    let mut tried = vec![x0, x1, x2];
+    // The inner point with the larger radius, as golden section keeps.
+    let (mut c, mut rc) = (x1, r1);
+    for _ in 0..MAX_PEAK_TRIALS {
+        // The larger of the two sub-intervals around c gets the new trial.
+        let y = if c - a > b - c {
+            snap(c - (1.0 - g) * (c - a))
+        } else {
+            snap(c + (1.0 - g) * (b - c))
+        };
+        if y <= a || y >= b || y == c || (whole && b - a <= 2.0) {
+            break;
+        }
+        let ry = radius_at(y)?;
+        if !stable(ry) {
+            // x0 is stable and below y, so the fold has a stable start.
+            let lo = tried.iter().copied().filter(|&v| v < y).fold(x0, f64::max);
+            return Ok(Some((lo, y)));
+        }
+        tried.push(y);
+        if ry > rc {
+            if y < c {
+                b = c;
+            } else {
+                a = c;
+            }
+            (c, rc) = (y, ry);
+        } else if y < c {
+            a = y;
+        } else {
+            b = y;
+        }
+        if !whole && b - a <= 1e-6 * b {
+            break;
+        }
+    }
+    Ok(None)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn scan(step: f64, whole: bool) -> DelayScan {
+        DelayScan {
+            max: 100.0,
+            step,
+            candidates: Vec::new(),
+            whole,
+        }
+    }
+
+    #[test]
+    fn monotone_radius_is_bisected_to_its_crossing() {
+        // Closed form: rho(x) = 0.9 + 0.02 x crosses 1 - 1e-10 at
+        // x = (0.1 - 1e-10) / 0.02.
+        let r = first_unstable(&scan(0.3, false), |x| Ok(0.9 + 0.02 * x));
+        let FirstUnstable::Between { stable, unstable } = r else {
+            panic!("{r:?}");
+        };
+        let exact = (0.1 - 1e-10) / 0.02;
+        assert!(stable <= exact && unstable >= exact, "{stable} {unstable}");
+        assert!(unstable - stable <= 1e-9 * exact);
+    }
+
+    #[test]
+    fn narrow_window_between_steps_is_found_at_its_peak() {
+        // Closed form: a rising trend plus a bump at x = 3.3 that pokes
+        // above 1 over |x - 3.3| < 0.05 sqrt(ln 2) (about 0.042), between
+        // trials 0.25 apart; the trend alone reaches 1 only at x = 9.
+        let rho = |x: f64| Ok(0.991 + 0.001 * x + 0.006 * (-((x - 3.3) / 0.05).powi(2)).exp());
+        assert!(rho(3.25).unwrap() < 1.0 && rho(3.5).unwrap() < 1.0);
+        let r = first_unstable(&scan(0.25, false), rho);
+        let FirstUnstable::Between { stable, unstable } = r else {
+            panic!("{r:?}");
+        };
+        assert!((3.24..3.31).contains(&stable), "{stable} {unstable}");
+        assert!(unstable - stable <= 1e-9 * unstable);
+        assert!(rho(unstable).unwrap() > 1.0 - STABILITY_TOLERANCE);
+    }
+
+    #[test]
+    fn whole_ticks_end_one_tick_apart() {
+        // Unstable from tick 37 on; steps of 5 ticks, a candidate at 36.
+        let mut s = scan(5.0, true);
+        s.candidates = vec![36.0];
+        let r = first_unstable(&s, |x| {
+            assert_eq!(x, x.floor(), "a trial between ticks: {x}");
+            Ok(if x >= 37.0 { 1.01 } else { 0.5 })
+        });
+        assert_eq!(
+            r,
+            FirstUnstable::Between {
+                stable: 36.0,
+                unstable: 37.0
+            }
+        );
+    }
+
+    #[test]
+    fn stable_everywhere_says_how_far() {
+        let r = first_unstable(&scan(7.0, false), |_| Ok(0.5));
+        assert_eq!(r, FirstUnstable::StableUpTo(98.0));
+        let r = first_unstable(&scan(1.0, false), |_| Err("no poles".to_string()));
+        assert_eq!(r, FirstUnstable::Failed("no poles".into()));
+    }
 }

@@ -18,7 +18,10 @@ use crate::model::poly::C64;
 use crate::model::transfer::{Controller, DiscreteTransfer};
 use crate::sampled::cascade::lift::{CombinedPlant, InnerClosed, LiftError, combined_plant};
 use crate::sampled::closed_loop::{ClosedLoop, Stability};
-use crate::sampled::delay_margin::{DelayMargin, MAX_DELAY_PERIODS};
+use crate::sampled::delay_margin::{
+    DelayMargin, DelayScan, FirstUnstable, MAX_DELAY_PERIODS, crossing_seeds, first_unstable,
+    scan_step,
+};
 use crate::sampled::evaluate::{Evaluation, Point, PreparedLoop, Status, finish};
 use crate::sampled::feasibility::{Assessment, LimitCheck, UNSTABLE_SLACK};
 use crate::sampled::figure::{Figure, Limiting, Missing};
@@ -137,12 +140,6 @@ pub fn loop_limits_fail(f: &LoopFigures, spec: &Spec) -> Option<Assessment> {
         checks,
     })
 }
-
-/// Most extra inner ticks the outer delay-margin scan tries.
-const MAX_MARGIN_TRIALS: usize = 1000;
-/// Largest rotation (rad) of the fastest outer gain crossing between two
-/// trials of the scan (as `delay_margin`).
-const STEP_RAD: f64 = 0.1;
 
 impl PreparedCascade {
     /// Prepare from the inner loop and the outer models; `outer_prewarp_hz`
@@ -422,80 +419,40 @@ impl PreparedCascade {
         p: &CascadePoint,
         freq: &LoopFigures,
     ) -> DelayMargin {
-        let two_pi = 2.0 * std::f64::consts::PI;
-        let crossings: Vec<(f64, f64)> = freq
-            .gain_crossings_hz
-            .iter()
-            .zip(&freq.phase_to_go_deg)
-            .map(|(&f, &phi)| (two_pi * f, phi.to_radians()))
-            .filter(|(w, _)| *w > 0.0 && w.is_finite())
-            .collect();
-        if crossings.is_empty() {
-            return if freq.notes.is_empty() {
-                DelayMargin::NoCrossing
-            } else {
-                DelayMargin::NotLocated(freq.notes.join("; "))
-            };
-        }
+        let seeds = match crossing_seeds(freq) {
+            Ok(v) => v,
+            Err(m) => return m,
+        };
         let t = inner.hold.period_s;
         let n = p.ratio;
         let start = InnerClosed::delay_ticks(n, p.outer_delay);
         let max_ticks = (MAX_DELAY_PERIODS * n as f64) as usize;
-        let unstable_at = |ticks: usize| -> Result<bool, String> {
-            let lifted = inner.lifted(n, ticks, false);
+        // Extra ticks past the outer delay's own.
+        let radius_at = |extra: f64| -> Result<f64, String> {
+            let lifted = inner.lifted(n, start + extra as usize, false);
             let cl = ClosedLoop::new(&lifted, c).map_err(|e| format!("closing the loop: {e}"))?;
             let poles = cl.poles().map_err(|e| format!("closed-loop poles: {e}"))?;
-            Ok(ClosedLoop::stability(&poles) != Stability::Stable)
+            Ok(poles.iter().map(|p| p.norm()).fold(0.0, f64::max))
         };
-        let w_fast = crossings.iter().map(|c| c.0).fold(0.0, f64::max);
-        let step = ((STEP_RAD / (w_fast * t)).floor() as usize).clamp(1, n.max(1));
         // The estimate's own candidates, in ticks past the start.
-        let mut candidates: Vec<usize> = crossings
-            .iter()
-            .flat_map(|&(w, phi)| [phi / w, (phi + two_pi) / w])
-            .filter(|d| *d > 0.0 && d.is_finite())
-            .map(|d| start + (d / t).ceil() as usize)
-            .collect();
-        candidates.sort_unstable();
-        let (mut lo, mut hi) = (start, None);
-        let mut x = start;
-        for _ in 0..MAX_MARGIN_TRIALS {
-            let mut next = x + step;
-            if let Some(&c) = candidates.iter().find(|&&c| c > x && c < next) {
-                next = c;
-            }
-            if next > max_ticks {
-                break;
-            }
-            match unstable_at(next) {
-                Ok(true) => {
-                    hi = Some(next);
-                    break;
-                }
-                Ok(false) => {
-                    lo = next;
-                    x = next;
-                }
-                Err(e) => return DelayMargin::NotLocated(e),
-            }
-        }
-        let Some(mut hi) = hi else {
-            return DelayMargin::NotLocated(format!(
-                "the outer loop stayed stable for every extra delay tried up to {} inner periods",
-                x - start
-            ));
+        let candidates: Vec<f64> = seeds.candidates_s.iter().map(|d| (d / t).ceil()).collect();
+        let scan = DelayScan {
+            max: max_ticks.saturating_sub(start) as f64,
+            step: scan_step(seeds.w_fast, n as f64 * t) / t,
+            candidates,
+            whole: true,
         };
-        // Bisection over whole ticks (at most log2 of the step).
-        while hi - lo > 1 {
-            let mid = lo + (hi - lo) / 2;
-            match unstable_at(mid) {
-                Ok(true) => hi = mid,
-                Ok(false) => lo = mid,
-                Err(e) => return DelayMargin::NotLocated(e),
+        match first_unstable(&scan, radius_at) {
+            FirstUnstable::Between { unstable, .. } => {
+                let base = p.outer_delay * n as f64 * t;
+                let hi = start + unstable as usize;
+                DelayMargin::Seconds(((hi - 1) as f64 * t - base).max(0.0))
             }
+            FirstUnstable::StableUpTo(x) => DelayMargin::NotLocated(format!(
+                "the outer loop stayed stable for every extra delay tried up to {x} inner periods"
+            )),
+            FirstUnstable::Failed(e) => DelayMargin::NotLocated(e),
         }
-        let base = p.outer_delay * n as f64 * t;
-        DelayMargin::Seconds(((hi - 1) as f64 * t - base).max(0.0))
     }
 
     /// Exact traces of the outer loop (step, outer load), `periods` outer
