@@ -53,11 +53,11 @@ pub fn outer_json(case: &Case, p: &CascadePoint, e: &Evaluation) -> Value {
 /// The outer loop's table for `eval` (text).
 pub fn outer_text(case: &Case, p: &CascadePoint, e: &Evaluation) -> String {
     let header = format!(
-        "outer loop: ratio {}, rate {} Hz, method {}, computation delay {} of the outer period; lifted over one outer period, broken at the outer controller's output; time figures on the outer plant output (points between inner samples included), load step at the outer plant's input",
+        "outer loop: ratio {}, rate {}, method {}, computation delay {} (outer periods); lifted over one outer period, broken at the outer controller's output; time figures on the outer plant output (points between inner samples included), load step at the outer plant's input",
         p.ratio,
-        fmt_num(p.outer_rate_hz()),
+        hz(p.outer_rate_hz()),
         method_name(p.outer_method),
-        p.outer_delay
+        periods(p.outer_delay)
     );
     let spec = case
         .outer

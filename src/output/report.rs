@@ -9,7 +9,7 @@
 use std::path::{Path, PathBuf};
 
 use crate::case::{Case, Written};
-use crate::engineering::sig4;
+use crate::engineering::{hz, periods, seconds, sig4};
 use crate::error::Error;
 use crate::explore::pick::{PickReport, Recommended};
 use crate::model::poly::{C64, Poly};
@@ -243,7 +243,7 @@ fn block_lines(name: &str, written: Option<&Written>, tf: &Transfer, var: &str) 
             denominator: den,
             rate_hz,
         }) => format!(
-            "{name}: numerator `{}`, denominator `{}` (descending powers of z) at {} Hz",
+            "{name}: numerator `{}`, denominator `{}` (descending powers of z) at {}",
             num.iter()
                 .map(|v| format!("{v}"))
                 .collect::<Vec<_>>()
@@ -252,7 +252,7 @@ fn block_lines(name: &str, written: Option<&Written>, tf: &Transfer, var: &str) 
                 .map(|v| format!("{v}"))
                 .collect::<Vec<_>>()
                 .join(", "),
-            sig4(*rate_hz)
+            hz(*rate_hz)
         ),
     };
     // An expression that is already the expanded form needs no repeat.
@@ -277,30 +277,19 @@ fn rate_name(report: &PickReport) -> &'static str {
     }
 }
 
-/// A rate in kHz with Hz beside it, and its period in µs; a slow loop
-/// (under 10 Hz, where kHz and µs would need exponents) in Hz and s.
+/// A rate and its period in engineering form (`**1.396 kHz**, period
+/// **716.3 µs**`).
 fn rate_and_period(rate_hz: f64, period_s: f64) -> String {
-    if rate_hz < 10.0 {
-        return format!(
-            "**{} Hz**, period **{}**",
-            sig4(rate_hz),
-            duration(period_s)
-        );
-    }
-    format!(
-        "**{} kHz** ({} Hz), period **{}**",
-        sig4(rate_hz / 1e3),
-        sig4(rate_hz),
-        duration(period_s)
-    )
+    format!("**{}**, period **{}**", hz(rate_hz), seconds(period_s))
 }
 
-/// A time in µs, or in s from 0.1 s up (where µs would need an exponent).
-fn duration(seconds: f64) -> String {
-    if seconds >= 0.1 {
-        format!("{} s", sig4(seconds))
+/// When the output is applied: `1 period`, `0.5 of a period`, or `at
+/// once` for no computation delay.
+fn delay_after(d: f64) -> String {
+    if d == 0.0 {
+        "at once".into()
     } else {
-        format!("{} µs", sig4(seconds * 1e6))
+        periods(d)
     }
 }
 
@@ -363,9 +352,9 @@ fn summary_box(case: &Case, report: &PickReport) -> Block {
         rows.push((
             "Computation delay".into(),
             format!(
-                "{} of a period ({}) from sample to output",
-                sig4(rec.compute_delay),
-                duration(rec.compute_delay * rec.period_s)
+                "{} ({}) from sample to output",
+                periods(rec.compute_delay),
+                seconds(rec.compute_delay * rec.period_s)
             ),
         ));
         rows.push(("CPU load".into(), load_text(case, rec.cpu_load_pct)));
@@ -390,15 +379,15 @@ fn main_warning(case: &Case, report: &PickReport) -> String {
     if let Some(w) = report.window.as_ref().filter(|w| w.empty) {
         return if w.high_hz < w.low_hz {
             format!(
-                "**no rate window**: the spec needs at least {} Hz but the {} allows at most {} Hz (see Rate window for what would open it).",
-                sig4(w.low_hz),
+                "**no rate window**: the spec needs at least {} but the {} allows at most {} (see Rate window for what would open it).",
+                hz(w.low_hz),
                 w.high_bound,
-                sig4(w.high_hz)
+                hz(w.high_hz)
             )
         } else {
             format!(
-                "**no rate window**: the spec needs at least {} Hz, but the {} (see Rate window).",
-                sig4(w.low_hz),
+                "**no rate window**: the spec needs at least {}, but the {} (see Rate window).",
+                hz(w.low_hz),
                 w.high_bound
             )
         };
@@ -444,19 +433,19 @@ fn answer(case: &Case, report: &PickReport, rec: &Recommended, lead: &str) -> St
         .unwrap_or_default();
     if rec.method == "given-in-z" {
         return format!(
-            "{lead} the controller given in z at its own rate, **{} Hz** (period **{} s**{timer}), with the output applied {} periods after sampling through a {} hold; {load}. A controller given in z runs only at its own rate, so no headroom is applied.",
-            sig4(rec.rate_hz),
-            sig4(rec.period_s),
-            sig4(rec.compute_delay),
+            "{lead} the controller given in z at its own rate, **{}** (period **{}**{timer}), with the output applied {} after sampling through a {} hold; {load}. A controller given in z runs only at its own rate, so no headroom is applied.",
+            hz(rec.rate_hz),
+            seconds(rec.period_s),
+            delay_after(rec.compute_delay),
             rec.hold,
         );
     }
     format!(
-        "{lead} the controller discretized by `{}` at **{} Hz** (period **{} s**{timer}) with the output applied {} periods after sampling through a **{}** hold ({}); {load}. This is the slowest {}, {} Hz, times the headroom {}.",
+        "{lead} the controller discretized by `{}` at **{}** (period **{}**{timer}) with the output applied {} after sampling through a **{}** hold ({}); {load}. This is the slowest {}, {}, times the headroom {}.",
         rec.method,
-        sig4(rec.rate_hz),
-        sig4(rec.period_s),
-        sig4(rec.compute_delay),
+        hz(rec.rate_hz),
+        seconds(rec.period_s),
+        delay_after(rec.compute_delay),
         rec.hold,
         rec.hold_basis,
         if report.robust.is_some() {
@@ -464,7 +453,7 @@ fn answer(case: &Case, report: &PickReport, rec: &Recommended, lead: &str) -> St
         } else {
             "passing rate (f*)"
         },
-        sig4(rec.slowest_rate_hz),
+        hz(rec.slowest_rate_hz),
         sig4(report.headroom),
     )
 }
@@ -530,9 +519,9 @@ fn blocks(
                 .iter()
                 .map(|c| {
                     vec![
-                        c.figure.to_string(),
-                        c.value.map_or("none".into(), sig4),
-                        sig4(c.limit),
+                        c.figure.heading(),
+                        c.value.map_or("none".into(), |v| c.figure.text(v)),
+                        c.figure.text(c.limit),
                     ]
                 })
                 .collect(),
@@ -541,11 +530,11 @@ fn blocks(
     match (&report.recommended, &report.window) {
         (Some(rec), Some(w)) if w.empty => {
             b.push(Block::Para(format!(
-                "**No rate meets both the spec and the upper bound:** the spec needs at least {} Hz (`{}`, with headroom) but the {} allows at most {} Hz.",
-                sig4(w.low_hz),
+                "**No rate meets both the spec and the upper bound:** the spec needs at least {} (`{}`, with headroom) but the {} allows at most {}.",
+                hz(w.low_hz),
                 rec.method,
                 w.high_bound,
-                sig4(w.high_hz),
+                hz(w.high_hz),
             )));
             b.push(Block::Para(answer(
                 case,
@@ -569,7 +558,7 @@ fn blocks(
         };
         b.push(Block::Heading(
             2,
-            format!("{heading} ({} Hz)", sig4(rec.rate_hz)),
+            format!("{heading} ({})", hz(rec.rate_hz)),
         ));
         match &rec.figures {
             Some(f) => {
@@ -640,34 +629,34 @@ fn blocks(
         vec![
             "method".into(),
             "hold".into(),
-            "computation delay (of T)".into(),
+            "computation delay".into(),
             if robust {
-                "nominal f* (Hz)".into()
+                "nominal f*".into()
             } else {
-                "f* (Hz)".into()
+                "f*".into()
             },
             "limiting figure".into(),
-            "islands (Hz, never the answer)".into(),
+            "islands (never the answer)".into(),
         ],
         report
             .methods
             .iter()
             .map(|m| {
                 let f = match (m.slowest_rate_hz, m.at_range_floor) {
-                    (Some(f), true) => format!("<= {}", sig4(f)),
-                    (Some(f), false) => sig4(f),
+                    (Some(f), true) => format!("<= {}", hz(f)),
+                    (Some(f), false) => hz(f),
                     (None, _) => "none".into(),
                 };
                 let islands = m
                     .islands
                     .iter()
-                    .map(|i| format!("{} to {}", sig4(i[0]), sig4(i[1])))
+                    .map(|i| format!("{} to {}", hz(i[0]), hz(i[1])))
                     .collect::<Vec<_>>()
                     .join(", ");
                 vec![
                     m.method.clone(),
                     m.hold.name().into(),
-                    sig4(m.compute_delay),
+                    periods(m.compute_delay),
                     f,
                     m.limiting
                         .map_or("-".to_string(), |l| l.label().to_string()),
@@ -724,9 +713,9 @@ fn blocks(
             vec![
                 "method".into(),
                 "hold".into(),
-                "computation delay (of T)".into(),
-                "robust f* (Hz)".into(),
-                "nominal f* (Hz)".into(),
+                "computation delay".into(),
+                "robust f*".into(),
+                "nominal f*".into(),
                 "limiting figure".into(),
                 "worst variant".into(),
             ],
@@ -736,9 +725,9 @@ fn blocks(
                     vec![
                         m.rate.method.clone(),
                         m.rate.hold.name().into(),
-                        sig4(m.rate.compute_delay),
-                        m.rate.slowest_rate_hz.map_or("none".into(), sig4),
-                        m.nominal_slowest_rate_hz.map_or("none".into(), sig4),
+                        periods(m.rate.compute_delay),
+                        m.rate.slowest_rate_hz.map_or("none".into(), hz),
+                        m.nominal_slowest_rate_hz.map_or("none".into(), hz),
                         m.worst_limiting
                             .map_or("-".to_string(), |l| l.label().to_string()),
                         m.worst_variant.as_ref().map_or("-".into(), |v| {
@@ -768,7 +757,7 @@ fn blocks(
                 "DC gain error (%)".into(),
                 "integral action".into(),
                 format!("passes at {at_rate}"),
-                "ceiling (Hz)".into(),
+                "ceiling".into(),
             ],
             pr.at_recommended
                 .iter()
@@ -780,10 +769,10 @@ fn blocks(
                         .find(|c| Some(&c.method) == method.as_ref() && c.format == a.format)
                         .map_or("-".into(), |c| {
                             match (c.ceiling.rate_hz, c.ceiling.above_range) {
-                                (Some(h), true) => format!(">= {} (top of the sweep)", sig4(h)),
+                                (Some(h), true) => format!(">= {} (top of the sweep)", hz(h)),
                                 (Some(h), false) => format!(
                                     "{} (then {})",
-                                    sig4(h),
+                                    hz(h),
                                     c.ceiling.limiting.map_or("?", |l| l.label())
                                 ),
                                 (None, _) => format!(
@@ -825,24 +814,24 @@ fn blocks(
             };
             b.push(Block::Para(if w.high_hz < w.low_hz {
                 format!(
-                    "**The window is empty:** {low} {} Hz and the {} allows at most {} Hz. What would open it:",
-                    sig4(w.low_hz),
+                    "**The window is empty:** {low} {} and the {} allows at most {}. What would open it:",
+                    hz(w.low_hz),
                     w.high_bound,
-                    sig4(w.high_hz)
+                    hz(w.high_hz)
                 )
             } else {
                 format!(
-                    "**The window is empty:** {low} {} Hz, but the {}. What would open it:",
-                    sig4(w.low_hz),
+                    "**The window is empty:** {low} {}, but the {}. What would open it:",
+                    hz(w.low_hz),
                     w.high_bound
                 )
             }));
             b.push(Block::List(report.advice.clone()));
         }
         Some(w) => b.push(Block::Para(format!(
-            "From {} Hz (the spec with headroom) to {} Hz (the {}): any rate in it meets both.",
-            sig4(w.low_hz),
-            sig4(w.high_hz),
+            "From {} (the spec with headroom) to {} (the {}): any rate in it meets both.",
+            hz(w.low_hz),
+            hz(w.high_hz),
             w.high_bound
         ))),
         None if case.budget.is_none() && case.arithmetic.is_none() => b.push(Block::Para(
@@ -884,8 +873,8 @@ fn blocks(
             "Every figure is computed from the models above (nominal parameter values): the exact sampled-data loop, with the plant output evaluated between samples.".to_string()
         },
         format!(
-            "The controller's output is applied {} periods after each sample (the computation delay the answer is given at: the largest the case lists).",
-            sig4(report.design_delay)
+            "The controller's output is applied {} after each sample (the computation delay the answer is given at: the largest the case lists).",
+            delay_after(report.design_delay)
         ),
         match &report.recommended {
             Some(r) => format!(
@@ -912,9 +901,9 @@ fn blocks(
     ];
     if case.plant_delay_s > 0.0 || case.sensor_delay_s > 0.0 {
         assumptions.push(format!(
-            "Transport delays: {} s at the plant, {} s on the measurement. They are exact in the sampled loop (whole periods as unit delays, the fraction exact) and in the continuous design's loop gain; the continuous design's step and load responses and poles use their Pade [{n}/{n}] approximant.",
-            sig4(case.plant_delay_s),
-            sig4(case.sensor_delay_s),
+            "Transport delays: {} at the plant, {} on the measurement. They are exact in the sampled loop (whole periods as unit delays, the fraction exact) and in the continuous design's loop gain; the continuous design's step and load responses and poles use their Pade [{n}/{n}] approximant.",
+            seconds(case.plant_delay_s),
+            seconds(case.sensor_delay_s),
             n = crate::sampled::evaluate::TRANSPORT_PADE_ORDER
         ));
     }

@@ -29,7 +29,12 @@ pub fn complex_pairs(v: &[C64]) -> Vec<[f64; 2]> {
 pub fn discretized_text(method: &str, rate_hz: f64, c: &DiscreteTransfer) -> String {
     let mut s = String::new();
     let _ = writeln!(s, "method         {method}");
-    let _ = writeln!(s, "rate           {rate_hz} Hz (T = {} s)", 1.0 / rate_hz);
+    let _ = writeln!(
+        s,
+        "rate           {} (period {})",
+        hz(rate_hz),
+        seconds(1.0 / rate_hz)
+    );
     let _ = writeln!(s, "numerator(z)   {:?}", c.transfer.numerator.descending());
     let _ = writeln!(
         s,
@@ -384,32 +389,51 @@ pub fn pick_text(r: &PickReport) -> String {
             "\nCoefficients in {} (at the recommended rate; ceiling for the recommended method):",
             pr.structure
         );
-        let _ = writeln!(
-            s,
-            "{:<8}{:>9}{:>14}{:>14}{:>10}{:>10}{:>16}  fails above it on",
-            "format", "Q", "pole err %", "DC gain err %", "integral", "passes", "ceiling"
-        );
         let method = r.recommended.as_ref().map(|x| x.method.clone());
-        for a in &pr.at_recommended {
+        // The figure a format fails on just above its ceiling; the column
+        // is left out when every ceiling is the top of the sweep.
+        let rows: Vec<_> = pr
+            .at_recommended
+            .iter()
+            .map(|a| {
+                let ceil = pr
+                    .ceilings
+                    .iter()
+                    .find(|c| Some(&c.method) == method.as_ref() && c.format == a.format);
+                let (ceil_text, then) = match ceil.map(|c| &c.ceiling) {
+                    Some(c) if c.above_range => (
+                        format!(
+                            ">= {} (top of the sweep)",
+                            hz(c.rate_hz.unwrap_or(f64::NAN))
+                        ),
+                        String::new(),
+                    ),
+                    Some(c) => (
+                        c.rate_hz.map_or("none".to_string(), hz),
+                        c.limiting.map_or(String::new(), |l| l.label().to_string()),
+                    ),
+                    None => ("-".into(), String::new()),
+                };
+                (a, ceil_text, then)
+            })
+            .collect();
+        let any_then = rows.iter().any(|(_, _, t)| !t.is_empty());
+        let header = format!(
+            "{:<8}{:>9}{:>14}{:>14}{:>10}{:>10}  {:<32}{}",
+            "format",
+            "Q",
+            "pole err %",
+            "DC gain err %",
+            "integral",
+            "passes",
+            "ceiling",
+            if any_then { "then fails on" } else { "" }
+        );
+        let _ = writeln!(s, "{}", header.trim_end());
+        for (a, ceil_text, then) in rows {
             let d = a.damage.as_ref();
-            let ceil = pr
-                .ceilings
-                .iter()
-                .find(|c| Some(&c.method) == method.as_ref() && c.format == a.format);
-            let (ceil_text, above) = match ceil.map(|c| &c.ceiling) {
-                Some(c) if c.above_range => (
-                    format!(">= {}", hz(c.rate_hz.unwrap_or(f64::NAN))),
-                    "- (top of the sweep)".to_string(),
-                ),
-                Some(c) => (
-                    c.rate_hz.map_or("none".to_string(), hz),
-                    c.limiting.map_or(String::new(), |l| l.label().to_string()),
-                ),
-                None => ("-".into(), String::new()),
-            };
-            let _ = writeln!(
-                s,
-                "{:<8}{:>9}{:>14}{:>14}{:>10}{:>10}{:>16}  {}",
+            let line = format!(
+                "{:<8}{:>9}{:>14}{:>14}{:>10}{:>10}  {:<32}{}",
                 a.format,
                 d.and_then(|d| d.q_format.clone())
                     .unwrap_or_else(|| "-".into()),
@@ -419,8 +443,9 @@ pub fn pick_text(r: &PickReport) -> String {
                     .map_or("-".into(), |k| if k { "kept" } else { "LOST" }.to_string()),
                 if a.feasible { "yes" } else { "NO" },
                 ceil_text,
-                above
+                then
             );
+            let _ = writeln!(s, "{}", line.trim_end());
         }
         for a in &pr.at_recommended {
             if let Some(reason) = &a.reason {
@@ -539,7 +564,7 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::sampled::evaluate::Prepa
         Controller::Continuous(c) => block(&mut s, "controller C(s)", c, "s"),
         Controller::Discrete(d) => block(
             &mut s,
-            &format!("controller C(z) at {} Hz", 1.0 / d.period_s),
+            &format!("controller C(z) at {}", hz(1.0 / d.period_s)),
             &d.transfer,
             "z",
         ),
@@ -548,37 +573,37 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::sampled::evaluate::Prepa
         Controller::Continuous(_) => {
             let _ = writeln!(
                 s,
-                "\nrates {} .. {} Hz, {} points; methods {}; computation delays {:?}",
-                case.rates.min_hz,
-                case.rates.max_hz,
+                "\nrates {} .. {}, {} points; methods {}; computation delays {}",
+                hz(case.rates.min_hz),
+                hz(case.rates.max_hz),
                 case.rates.points,
                 case.methods
                     .iter()
                     .map(|m| m.name())
                     .collect::<Vec<_>>()
                     .join(", "),
-                case.compute_delays
+                delay_list(&case.compute_delays)
             );
         }
         Controller::Discrete(d) => {
             let _ = writeln!(
                 s,
-                "\nthe controller is given in z at {} Hz: that one rate is checked, nothing is discretized; computation delays {:?}",
-                1.0 / d.period_s,
-                case.compute_delays
+                "\nthe controller is given in z at {}: that one rate is checked, nothing is discretized; computation delays {}",
+                hz(1.0 / d.period_s),
+                delay_list(&case.compute_delays)
             );
         }
     }
     let _ = writeln!(
         s,
-        "hold kinds {}; transport delay {} s at the plant, {} s on the measurement",
+        "hold kinds {}; transport delay {} at the plant, {} on the measurement",
         case.holds
             .iter()
             .map(|h| h.name())
             .collect::<Vec<_>>()
             .join(", "),
-        case.plant_delay_s,
-        case.sensor_delay_s
+        seconds(case.plant_delay_s),
+        seconds(case.sensor_delay_s)
     );
     if let Some(u) = &case.uncertainty {
         let n = crate::explore::variants::parameter_sets(case).len();
@@ -659,4 +684,14 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::sampled::evaluate::Prepa
         }
     }
     s
+}
+
+/// Computation delays as a list an engineer reads: `none, 0.5 of a
+/// period, 1 period`.
+fn delay_list(delays: &[f64]) -> String {
+    delays
+        .iter()
+        .map(|&d| periods(d))
+        .collect::<Vec<_>>()
+        .join(", ")
 }
