@@ -23,9 +23,11 @@ pub const REPORT_MD: &str = "report.md";
 /// File name of the self-contained HTML report.
 pub const REPORT_HTML: &str = "report.html";
 
+mod terminal;
+
 /// One piece of the report. Inline text may use `**bold**` and `` `code` ``.
 #[derive(Debug, Clone)]
-pub(crate) enum Block {
+pub enum Block {
     Heading(u8, String),
     Para(String),
     List(Vec<String>),
@@ -40,6 +42,16 @@ pub(crate) enum Block {
     },
     /// The box under the title: (label, text) rows.
     Summary(Vec<(String, String)>),
+}
+
+/// How much of the report a renderer shows: all of it in `report.md`
+/// and `report.html`; the terminal leaves out the loop's description, the
+/// paragraphs that explain a table, the assumptions (notes stay) and the
+/// caution's full text (its first line stays in the summary box).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) enum Detail {
+    Full,
+    Brief,
 }
 
 /// The caution's first line: it opens the caution at the end of the
@@ -59,7 +71,7 @@ pub fn write_report(
     report: &PickReport,
     charts: &[Chart],
 ) -> Result<PathBuf, Error> {
-    let blocks = blocks(out_dir, case, report, charts)?;
+    let blocks = blocks(out_dir, case, report, charts, Detail::Full)?;
     let md_path = out_dir.join(REPORT_MD);
     write_atomic(&md_path, markdown(&blocks).as_bytes())?;
     let html = html(&report.title, &blocks)?;
@@ -76,18 +88,38 @@ pub(crate) fn write_report_extra(
     charts: &[Chart],
     extra: Vec<Block>,
 ) -> Result<PathBuf, Error> {
-    let mut blocks = blocks(out_dir, case, report, charts)?;
-    let at = blocks
-        .iter()
-        .position(|b| matches!(b, Block::Heading(2, t) if t == "Assumptions"))
-        .unwrap_or(blocks.len());
-    blocks.splice(at..at, extra);
+    let mut blocks = blocks(out_dir, case, report, charts, Detail::Full)?;
+    insert_before_assumptions(&mut blocks, extra);
     let md_path = out_dir.join(REPORT_MD);
     write_atomic(&md_path, markdown(&blocks).as_bytes())?;
     let html = html(&report.title, &blocks)?;
     write_atomic(&out_dir.join(REPORT_HTML), html.as_bytes())?;
     Ok(md_path)
 }
+
+/// The pick's answer as terminal text: the report's blocks in brief
+/// (`Detail::Brief`), with `extra` blocks (a cascade's section) where the
+/// report has them.
+pub fn pick_text(case: &Case, report: &PickReport, extra: &[Block]) -> Result<String, Error> {
+    let mut blocks = blocks(Path::new(""), case, report, &[], Detail::Brief)?;
+    insert_before_assumptions(&mut blocks, extra.to_vec());
+    Ok(terminal::text(&blocks))
+}
+
+/// `extra` spliced in before the assumptions (the notes in brief), or at
+/// the end.
+fn insert_before_assumptions(blocks: &mut Vec<Block>, extra: Vec<Block>) {
+    let at = blocks
+        .iter()
+        .position(|b| matches!(b, Block::Heading(2, t) if t == ASSUMPTIONS || t == NOTES))
+        .unwrap_or(blocks.len());
+    blocks.splice(at..at, extra);
+}
+
+/// The heading of the assumptions (the report) and of the notes alone
+/// (the terminal).
+const ASSUMPTIONS: &str = "Assumptions";
+const NOTES: &str = "Notes";
 
 // ------------------------------------------------------------- content
 
@@ -313,7 +345,7 @@ fn load_text(case: &Case, load: Option<f64>) -> String {
 
 /// The box under the title: the answer, its method, delay and load, the
 /// main warning and the caution's first line.
-fn summary_box(case: &Case, report: &PickReport) -> Block {
+fn summary_box(case: &Case, report: &PickReport, full: bool) -> Block {
     let mut rows: Vec<(String, String)> = Vec::new();
     let empty = report.window.as_ref().is_some_and(|w| w.empty);
     match &report.recommended {
@@ -362,7 +394,10 @@ fn summary_box(case: &Case, report: &PickReport) -> Block {
     rows.push(("Warning".into(), main_warning(case, report)));
     rows.push((
         "Caution".into(),
-        format!("{CAUTION_LINE} (Full caution at the end.)"),
+        format!(
+            "{CAUTION_LINE} (Full caution {}.)",
+            if full { "at the end" } else { "in report.md" }
+        ),
     ));
     Block::Summary(rows)
 }
@@ -441,7 +476,7 @@ fn answer(case: &Case, report: &PickReport, rec: &Recommended, lead: &str) -> St
         );
     }
     format!(
-        "{lead} the controller discretized by `{}` at **{}** (period **{}**{timer}) with the output applied {} after sampling through a **{}** hold ({}); {load}. This is the slowest {}, {}, times the headroom {}.",
+        "{lead} the controller discretized by `{}` at **{}** (period **{}**{timer}) with the output applied {} after sampling through a **{}** hold ({}); {load}. This is the slowest {}, {}, times the headroom {} (the headroom covers model error).",
         rec.method,
         hz(rec.rate_hz),
         seconds(rec.period_s),
@@ -463,17 +498,18 @@ fn blocks(
     case: &Case,
     report: &PickReport,
     charts: &[Chart],
+    detail: Detail,
 ) -> Result<Vec<Block>, Error> {
+    let full = detail == Detail::Full;
     let models = case.nominal()?;
     let written = case.written();
     let mut b = vec![
         Block::Heading(1, report.title.clone()),
-        summary_box(case, report),
+        summary_box(case, report, full),
     ];
     let at_rate = rate_name(report);
     let empty = report.window.as_ref().is_some_and(|w| w.empty);
 
-    b.push(Block::Heading(2, "The loop".into()));
     let mut lines = vec![
         block_lines("plant P(s)", Some(&written.plant), &models.plant, "s"),
         block_lines("sensor H(s)", written.sensor.as_ref(), &models.sensor, "s"),
@@ -505,7 +541,10 @@ fn blocks(
                 .join(", ")
         ));
     }
-    b.push(Block::List(lines));
+    if full {
+        b.push(Block::Heading(2, "The loop".into()));
+        b.push(Block::List(lines));
+    }
 
     b.push(Block::Heading(2, "The answer".into()));
     if !report.design_failures.is_empty() {
@@ -605,7 +644,7 @@ fn blocks(
                     header.extend(["limit".into(), "slack".into(), "verdict".into()]);
                 }
                 b.push(Block::Table(header, rows));
-                b.push(Block::Para(
+                push_if(&mut b, full, Block::Para(
                     "Slack is the distance to the limit as a share of the limit; a gain-margin limit bounds the margin's size.".into(),
                 ));
             }
@@ -669,11 +708,15 @@ fn blocks(
             })
             .collect(),
     ));
-    b.push(Block::Para(if robust {
-        "f* is the lowest rate from which every faster rate up to the top of the sweep meets the spec: nominal f* on the nominal plant, robust f* on every plant variant (the next table; the answer rests on it). `<=` marks a method that passes over the whole sweep.".into()
-    } else {
-        "f* is the lowest rate from which every faster rate up to the top of the sweep meets the spec; `<=` marks a method that passes over the whole sweep.".into()
-    }));
+    push_if(
+        &mut b,
+        full,
+        Block::Para(if robust {
+            "f* is the lowest rate from which every faster rate up to the top of the sweep meets the spec: nominal f* on the nominal plant, robust f* on every plant variant (the next table; the answer rests on it). `<=` marks a method that passes over the whole sweep.".into()
+        } else {
+            "f* is the lowest rate from which every faster rate up to the top of the sweep meets the spec; `<=` marks a method that passes over the whole sweep.".into()
+        }),
+    );
 
     if let Some(rb) = &report.robust {
         b.push(Block::Heading(
@@ -744,10 +787,14 @@ fn blocks(
 
     if let Some(pr) = &report.precision {
         b.push(Block::Heading(2, "Coefficient precision".into()));
-        b.push(Block::Para(format!(
-            "The controller's coefficients rounded as stored on the target, in the `{}` structure; fixed-point formats take the fewest integer bits that hold every coefficient. A format passes at a rate when no integrator is lost, no pole rounds onto z = 1 or out of the unit circle, and the loop with the rounded controller meets the spec. Its ceiling is the fastest rate up to which it passes from {at_rate} (each method: from its own f* times the headroom).",
-            pr.structure
-        )));
+        push_if(
+            &mut b,
+            full,
+            Block::Para(format!(
+                "The controller's coefficients rounded as stored on the target, in the `{}` structure; fixed-point formats take the fewest integer bits that hold every coefficient. A format passes at a rate when no integrator is lost, no pole rounds onto z = 1 or out of the unit circle, and the loop with the rounded controller meets the spec. Its ceiling is the fastest rate up to which it passes from {at_rate} (each method: from its own f* times the headroom).",
+                pr.structure
+            )),
+        );
         let method = report.recommended.as_ref().map(|r| r.method.clone());
         b.push(Block::Table(
             vec![
@@ -865,7 +912,16 @@ fn blocks(
         }
     }
 
-    b.push(Block::Heading(2, "Assumptions".into()));
+    if !full {
+        if !report.notes.is_empty() {
+            b.push(Block::Heading(2, NOTES.into()));
+            b.push(Block::List(
+                report.notes.iter().map(|n| format!("{n}.")).collect(),
+            ));
+        }
+        return Ok(b);
+    }
+    b.push(Block::Heading(2, ASSUMPTIONS.into()));
     let mut assumptions = vec![
         if report.robust.is_some() {
             "Every figure is computed from the models above: the exact sampled-data loop, with the plant output evaluated between samples; the rate rests on the worst plant variant, the figures table gives the nominal one beside the worst.".to_string()
@@ -984,7 +1040,7 @@ fn is_number(cell: &str) -> bool {
 }
 
 /// `%`, or seconds or hertz with an SI prefix (`ms`, `µs`, `kHz`).
-fn is_unit(u: &str) -> bool {
+pub(crate) fn is_unit(u: &str) -> bool {
     u == "%"
         || ["s", "Hz"].iter().any(|base| {
             u.strip_suffix(base)
@@ -992,9 +1048,17 @@ fn is_unit(u: &str) -> bool {
         })
 }
 
+/// `block` pushed only when `keep` (the report's explanations, left out
+/// of the terminal).
+pub(crate) fn push_if(b: &mut Vec<Block>, keep: bool, block: Block) {
+    if keep {
+        b.push(block);
+    }
+}
+
 /// Per column: right-aligned when every cell is a number or a
 /// placeholder and at least one is a number.
-fn numeric_columns(head: &[String], rows: &[Vec<String>]) -> Vec<bool> {
+pub(crate) fn numeric_columns(head: &[String], rows: &[Vec<String>]) -> Vec<bool> {
     (0..head.len())
         .map(|j| {
             let cells: Vec<&str> = rows
