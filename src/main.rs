@@ -308,7 +308,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
             json,
         } => {
             if old_transfer.is_some() {
-                return Err(anyhow!("--transfer is now called --transfer"));
+                return Err(anyhow!("--tf is now called --transfer"));
             }
             let m = parse_method(&method)?;
             let rate = check_rate("--rate", rate)?;
