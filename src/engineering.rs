@@ -81,6 +81,40 @@ pub fn hz(v: f64) -> String {
     with_prefix(v, "Hz")
 }
 
+/// A lower threshold on a rate with an SI prefix, rounded up like
+/// [`at_least`]: `hz_at_least(1244.01)` = `1.245 kHz`.
+pub fn hz_at_least(v: f64) -> String {
+    prefixed_toward(v, "Hz", 1.0)
+}
+
+/// An upper threshold on a rate with an SI prefix, rounded down like
+/// [`at_most`]: `hz_at_most(1244.6)` = `1.244 kHz`.
+pub fn hz_at_most(v: f64) -> String {
+    prefixed_toward(v, "Hz", -1.0)
+}
+
+/// `v` in `unit` with an SI prefix as [`with_prefix`] chooses it, its
+/// digits rounded toward `dir` as [`toward`] does (the scale is an exact
+/// power of ten, so the scaled digits keep their side of `v`). The
+/// prefix moves up only when the rounded digits reach 1000.
+fn prefixed_toward(v: f64, unit: &str, dir: f64) -> String {
+    if !v.is_finite() || v == 0.0 {
+        return with_prefix(v, unit);
+    }
+    let (lo, hi) = (PREFIXES[0].0, PREFIXES[PREFIXES.len() - 1].0);
+    let mut e3 = ((v.abs().log10() / 3.0).floor() as i32 * 3).clamp(lo, hi);
+    let mut text = toward(v / 10f64.powi(e3), dir);
+    if text.parse::<f64>().is_ok_and(|r| r.abs() >= 1000.0) && e3 < hi {
+        e3 += 3;
+        text = toward(v / 10f64.powi(e3), dir);
+    }
+    let prefix = PREFIXES
+        .iter()
+        .find(|(p, _)| *p == e3)
+        .map_or("", |(_, s)| s);
+    format!("{text} {prefix}{unit}")
+}
+
 /// A time: seconds from 0.1 s up (`0.1242 s`, `78.03 s`), with a prefix
 /// below (`716.3 µs`, `2.707 µs`, `12.40 ms`).
 pub fn seconds(v: f64) -> String {
@@ -204,5 +238,11 @@ mod tests {
         // Exponent form: one unit of the last digit is 1e3 here.
         assert_eq!(at_least(3.21401e6), "3.215e6");
         assert_eq!(at_most(3.21499e6), "3.214e6");
+        // With a prefix: the same rounding on the scaled digits.
+        assert_eq!(hz_at_least(1244.01), "1.245 kHz");
+        assert_eq!(hz_at_most(1244.6), "1.244 kHz");
+        assert_eq!(hz_at_least(999.96), "1.000 kHz");
+        assert_eq!(hz_at_most(999.96), "999.9 Hz");
+        assert_eq!(hz_at_most(47_229.4), "47.22 kHz");
     }
 }

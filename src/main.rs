@@ -308,7 +308,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
             json,
         } => {
             if old_transfer.is_some() {
-                return Err(anyhow!("--transfer is now called --transfer"));
+                return Err(anyhow!("--tf is now called --transfer"));
             }
             let m = parse_method(&method)?;
             let rate = check_rate("--rate", rate)?;
@@ -597,13 +597,11 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 };
                 print(&format!("{v:#}\n"))?;
             } else {
-                print(&summary::pick_text(&report))?;
-                if let Some(run) = &cascade {
-                    print(&format!(
-                        "\n{}",
-                        looprate::output::cascade::cascade_text(&run.pick)
-                    ))?;
-                }
+                let extra = cascade
+                    .as_ref()
+                    .map(|run| looprate::output::cascade::brief_blocks(&run.pick))
+                    .unwrap_or_default();
+                print(&looprate::output::report::pick_text(&c, &report, &extra)?)?;
                 // Say where the files went, the default folder above all.
                 print(&format!(
                     "\nWrote {}: report.md, report.html, pick.json, sweep.csv{}.\n",

@@ -4,7 +4,7 @@
 use std::path::{Path, PathBuf};
 
 use looprate::case::Case;
-use looprate::engineering::sig4;
+use looprate::engineering::{hz, seconds, sig4};
 use looprate::explore::pick::{PickReport, Picked, prepare, sweep_and_pick};
 use looprate::explore::search::Silent;
 use looprate::explore::sweep::SweepRow;
@@ -135,13 +135,13 @@ fn charts_of_a_case_with_an_answer() {
     let rec = &json["recommended"];
     let printed = |v: &serde_json::Value| sig4(v.as_f64().unwrap());
     assert_same(
-        between(&md, "at **", " Hz**"),
-        &printed(&rec["rate_hz"]),
+        between(&md, "at **", "**"),
+        &hz(rec["rate_hz"].as_f64().unwrap()),
         rec["rate_hz"].as_f64().unwrap(),
     );
     assert_same(
-        between(&md, "(period **", " s**"),
-        &printed(&rec["period_s"]),
+        between(&md, "(period **", "**"),
+        &seconds(rec["period_s"].as_f64().unwrap()),
         rec["period_s"].as_f64().unwrap(),
     );
     assert_same(
@@ -160,7 +160,7 @@ fn charts_of_a_case_with_an_answer() {
         // Columns: method, hold, delay, f*, limiting figure (in words; the
         // JSON keeps the key).
         assert_eq!(cells[2], m["hold"].as_str().unwrap());
-        assert_same(cells[4], &sig4(f), f);
+        assert_same(cells[4], &hz(f), f);
         let key = m["limiting"].as_str().unwrap();
         let words = looprate::sampled::figure::Figure::from_key(key).map_or(key, |f| f.label());
         assert_eq!(cells[5], words);
@@ -187,11 +187,26 @@ fn between<'a>(text: &'a str, start: &str, end: &str) -> &'a str {
     &text[i..j]
 }
 
-/// A printed number equals the formatted value and parses back to it
+/// A printed quantity read back in SI units: `1.396 kHz` -> 1396,
+/// `716.3 µs` -> 7.163e-4, `21.90` -> 21.9.
+fn read_back(printed: &str) -> f64 {
+    let (number, unit) = printed.split_once(' ').unwrap_or((printed, ""));
+    let scale = match unit.chars().next() {
+        Some('k') => 1e3,
+        Some('M') => 1e6,
+        Some('m') => 1e-3,
+        Some('µ') => 1e-6,
+        Some('n') => 1e-9,
+        _ => 1.0,
+    };
+    number.parse::<f64>().unwrap() * scale
+}
+
+/// A printed number equals the formatted value and reads back to it
 /// within the printed precision (4 significant digits).
 fn assert_same(printed: &str, expected: &str, value: f64) {
     assert_eq!(printed, expected);
-    let back: f64 = printed.parse().unwrap();
+    let back = read_back(printed);
     assert!(
         ((back - value) / value).abs() <= 5e-4,
         "{printed} vs {value}"
@@ -226,7 +241,7 @@ fn no_answer_draws_what_still_makes_sense() {
         .find(|l| first_cell(l) == Some("tustin"))
         .unwrap();
     let cells: Vec<&str> = row.split('|').map(str::trim).collect();
-    assert_eq!(cells[2..5], ["zero-order", "0.5000", "none"]);
+    assert_eq!(cells[2..5], ["zero-order", "0.5 of a period", "none"]);
 }
 
 #[test]
@@ -241,9 +256,9 @@ fn empty_window_is_stated_with_both_numbers() {
     let md =
         std::fs::read_to_string(write_report(&dir, &r.case, &r.report, &charts).unwrap()).unwrap();
     assert!(md.contains(&format!(
-        "needs at least {} Hz and the CPU budget allows at most {} Hz",
-        sig4(w.low_hz),
-        sig4(w.high_hz)
+        "needs at least {} and the CPU budget allows at most {}",
+        hz(w.low_hz),
+        hz(w.high_hz)
     )));
     for a in &r.report.advice {
         assert!(md.contains(&format!("- {a}")), "advice missing: {a}");
@@ -281,9 +296,9 @@ fn variants_and_precision_reach_every_output() {
             .unwrap_or_else(|| panic!("no robust row for {name}"));
         let cells: Vec<&str> = row.split('|').map(str::trim).collect();
         let f = m["slowest_rate_hz"].as_f64().unwrap();
-        assert_same(cells[4], &sig4(f), f);
+        assert_same(cells[4], &hz(f), f);
         let n = m["nominal_slowest_rate_hz"].as_f64().unwrap();
-        assert_same(cells[5], &sig4(n), n);
+        assert_same(cells[5], &hz(n), n);
     }
     // Both formats are in the precision table and in pick.json.
     for f in ["q11", "f32"] {

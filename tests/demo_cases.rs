@@ -193,11 +193,11 @@ fn number_after(text: &str, after: &str) -> f64 {
 #[test]
 fn the_summary_and_json_state_the_window_and_what_would_open_an_empty_one() {
     // A window that exists: both ends on stdout, in order, as computed.
-    let (_, _, belt) = picked("belt-conveyor.toml");
-    let text = looprate::output::summary::pick_text(&belt);
+    let (belt_case, _, belt) = picked("belt-conveyor.toml");
+    let text = looprate::output::report::pick_text(&belt_case, &belt, &[]).unwrap();
     let [lo, hi] = belt.window_hz.unwrap();
-    let win = &text[text.find("Rate window:").expect("a window line")..];
-    let (a, b) = (number_after(win, "Rate window:"), number_after(win, " to"));
+    let win = &text[text.find("Rate window\n").expect("a window section")..];
+    let (a, b) = (number_after(win, "From"), number_after(win, ") to"));
     assert!(
         (a - lo).abs() < 1e-3 * lo && (b - hi).abs() < 1e-3 * hi,
         "{text}"
@@ -245,7 +245,7 @@ fn the_summary_and_json_state_the_window_and_what_would_open_an_empty_one() {
 
     // The empty window: said plainly, both numbers, what would open it.
     let (c, _, pump) = picked("pump-pressure-tight-cpu.toml");
-    let text = looprate::output::summary::pick_text(&pump);
+    let text = looprate::output::report::pick_text(&c, &pump, &[]).unwrap();
     let w = pump.window.as_ref().unwrap();
     assert!(w.empty && pump.window_hz.is_none());
     assert!(serde_json::to_value(&pump).unwrap()["window_hz"].is_null());
@@ -292,8 +292,10 @@ fn the_hold_comparison_recommends_the_cheapest_hold_and_says_why() {
     for h in &c.holds {
         assert!(rec.hold_basis.contains(h.name()), "{}", rec.hold_basis);
     }
-    let text = looprate::output::summary::pick_text(&report);
-    assert!(text.contains("Hold: "), "{text}");
+    let text = looprate::output::report::pick_text(&c, &report, &[]).unwrap();
+    // The terminal wraps lines: compare with single spaces.
+    let words = |t: &str| t.split_whitespace().collect::<Vec<_>>().join(" ");
+    assert!(words(&text).contains(&words(&rec.hold_basis)), "{text}");
 }
 
 #[test]

@@ -257,7 +257,9 @@ fn fuzz_short_picks_on_tiny_grids() {
                             let csv =
                                 looprate::output::tables::sweep_csv(&p.rows, p.variants.as_ref());
                             let mut s = String::from_utf8_lossy(&csv).into_owned();
-                            s.push_str(&looprate::output::summary::pick_text(&p.report));
+                            if let Ok(t) = looprate::output::report::pick_text(&c, &p.report, &[]) {
+                                s.push_str(&t);
+                            }
                             s
                         }
                         Err(_) => String::new(),

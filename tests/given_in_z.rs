@@ -117,7 +117,7 @@ fn check_says_the_controller_is_given_in_z_instead_of_listing_methods() {
     let text = looprate::output::summary::check_text(&c, &lp);
     assert!(!text.contains("methods ;"), "{text}");
     assert!(!text.contains("methods"), "{text}");
-    assert!(text.contains("given in z at 5 Hz"), "{text}");
+    assert!(text.contains("given in z at 5.000 Hz"), "{text}");
 }
 
 #[test]

@@ -340,9 +340,9 @@ max_load_pct = 50
     assert!(!line.contains("step-invariant"), "zoh does not fit: {line}");
     assert!(
         line.contains(&format!(
-            "window {} Hz to 1000 Hz",
+            "window {} to 1.000 kHz",
             // The low end rounded up, so the quoted window lies inside.
-            looprate::engineering::at_least(fe * 1.25)
+            looprate::engineering::hz_at_least(fe * 1.25)
         )),
         "{line}"
     );

@@ -490,10 +490,15 @@ impl Parser {
                         tok: Tok::RParen, ..
                     }) => self.pos += 1,
                     Some(other) => {
-                        return Err(ExprError::new(
-                            other.col,
-                            format!("expected `)` or an operator, found `{}`", other.text),
-                        ));
+                        let msg = match other.tok {
+                            // `(2s + 1)`: the same words as outside parentheses.
+                            Tok::Num(..) | Tok::Ident(_) | Tok::LParen => format!(
+                                "unexpected `{}`: write `*` between factors (no implicit multiplication)",
+                                other.text
+                            ),
+                            _ => format!("expected `)` or an operator, found `{}`", other.text),
+                        };
+                        return Err(ExprError::new(other.col, msg));
                     }
                     None => {
                         return Err(ExprError::new(
@@ -857,6 +862,9 @@ mod tests {
             (".", 1, "lone"),
             ("2 s", 3, "implicit"),
             ("7.54(s+1)", 5, "write `*` between factors"),
+            ("1/(2s+1)", 5, "write `*` between factors"),
+            ("(s (s+1))", 4, "write `*` between factors"),
+            ("(s + 1 +)", 9, "missing operand"),
             ("1/(s**2+1)", 6, "use `^`"),
             ("exp(-0.1*s)/(s+1)", 1, "delay_s"),
             ("sqrt(2)*s", 1, "only +, -, *, / and ^"),

@@ -195,7 +195,7 @@ impl std::fmt::Display for WindowBound {
                 beyond_hz,
             } => write!(
                 f,
-                "last rate checked ({}; {beyond} would allow up to {}, not checked)",
+                "last rate checked, {}, while the {beyond} would allow up to {} unchecked",
                 hz(*checked_hz),
                 hz(*beyond_hz)
             ),

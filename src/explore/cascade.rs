@@ -16,6 +16,7 @@
 //! ends the inner rate (the smaller ratios are reported as not evaluated,
 //! with that reason). `full` evaluates every pair (the `sweep` command).
 
+use crate::engineering::{at_least, hz, hz_at_least, sig4};
 use rayon::prelude::*;
 use serde::Serialize;
 
@@ -610,13 +611,13 @@ fn cascade_advice(
     if let (Some(r), Some(limit), Some(b)) = (cheapest_passing, max_load, case.budget.as_ref()) {
         if let Some(load) = r.cost.total_load_pct {
             out.push(format!(
-                "the cheapest pair meeting both specs (inner {} Hz, ratio {}, outer {} Hz) needs {:.4} % of the CPU, above max_load_pct = {limit}: raise max_load_pct to {:.4} or more, or a CPU clock of {:.4e} Hz or more, or cheaper updates",
-                crate::engineering::sig4(r.point.inner.rate_hz),
+                "the cheapest pair meeting both specs (inner {}, ratio {}, outer {}) needs {} % of the CPU, above max_load_pct = {limit}: raise max_load_pct to {} or more, or a CPU clock of {} or more, or cheaper updates",
+                hz(r.point.inner.rate_hz),
                 r.point.ratio,
-                crate::engineering::sig4(r.point.outer_rate_hz()),
-                load,
-                (load * 1.0001).max(limit),
-                b.cpu_hz * load / limit * 1.0001,
+                hz(r.point.outer_rate_hz()),
+                sig4(load),
+                at_least(load.max(limit)),
+                hz_at_least(b.cpu_hz * load / limit),
             ));
         }
         return out;
@@ -639,11 +640,11 @@ fn cascade_advice(
         .max_by(|a, b| a.1.slack.total_cmp(&b.1.slack));
     match smallest {
         Some((r, v)) => out.push(format!(
-            "the outer loop meets its spec at no pair where the inner loop passes; the closest is inner {} Hz, ratio {} (limiting: {}, slack {:.3}): a smaller ratio (add one to [outer.rates] ratios), a looser [outer.spec], another outer method or a shorter outer delay",
-            crate::engineering::sig4(r.point.inner.rate_hz),
+            "the outer loop meets its spec at no pair where the inner loop passes; the closest is inner {}, ratio {} (limiting: {}, slack {} %): a smaller ratio (add one to [outer.rates] ratios), a looser [outer.spec], another outer method or a shorter outer delay",
+            hz(r.point.inner.rate_hz),
             r.point.ratio,
             v.limiting.map_or("stability", |l| l.label()),
-            v.slack
+            sig4(v.slack * 100.0)
         )),
         None => out.push(
             "no outer loop was evaluated (every inner rate fails the inner spec)".to_string(),

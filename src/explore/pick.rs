@@ -11,7 +11,7 @@ use serde::Serialize;
 use std::cell::RefCell;
 
 use crate::case::Case;
-use crate::engineering::{at_least, at_most, sig4};
+use crate::engineering::{at_least, hz, hz_at_least, hz_at_most, periods, sig4};
 use crate::error::Error;
 use crate::explore::budget::{self, RateWindow, WindowBound};
 use crate::explore::precision;
@@ -319,12 +319,12 @@ impl OtherStructure {
     pub fn advice(&self, structure: &str) -> String {
         match self.kept_up_to_hz {
             Some(h) if self.kept_at_every_rate => format!(
-                "another structure: {} keeps the integral action in {} at every rate checked up to {} Hz ({} rates), which {structure} loses at {} Hz",
+                "another structure: {} keeps the integral action in {} at every rate checked up to {} ({} rates), which {structure} loses at {}",
                 self.structure,
                 self.format,
-                sig4(h),
+                hz(h),
                 self.rates_checked,
-                sig4(self.lost_at_hz)
+                hz(self.lost_at_hz)
             ),
             Some(h) => format!(
                 "another structure: {} keeps the integral action in {} up to {} Hz (every rate checked), {structure} loses it at {} Hz",
@@ -477,9 +477,9 @@ pub fn pick(
                 ""
             };
             report.notes.push(format!(
-                "the controller given in z at {} Hz fails the spec{variants} at computation delay {} (the largest listed, which the recommendation is made at){}",
-                1.0 / d.period_s,
-                design_delay,
+                "the controller given in z at {} fails the spec{variants} at computation delay {} (the largest listed, which the recommendation is made at){}",
+                hz(1.0 / d.period_s),
+                periods(design_delay),
                 if passing.is_empty() {
                     " and at every other delay listed".to_string()
                 } else {
@@ -531,8 +531,9 @@ pub fn pick(
     }
     if rate > case.rates.max_hz {
         report.notes.push(format!(
-            "the rate f* times the headroom, {rate:.6} Hz, is above the swept range (max_hz = {} Hz)",
-            case.rates.max_hz
+            "the rate f* times the headroom, {}, is above the swept range (max_hz = {})",
+            hz(rate),
+            hz(case.rates.max_hz)
         ));
     }
     let hold = best.hold;
@@ -1159,10 +1160,10 @@ fn empty_window_advice(
         .filter(|(_, f)| f * case.spec.headroom <= ceiling)
         .map(|(m, f)| {
             format!(
-                "{} at delay {} (f_star {} Hz)",
+                "{} at delay {} (f_star {})",
                 m.method,
-                m.compute_delay,
-                sig4(f)
+                periods(m.compute_delay),
+                hz(f)
             )
         })
         .collect();
@@ -1222,11 +1223,11 @@ fn other_method_advice(
             let high = budget::ceiling_hz(b, cycles);
             (low <= high).then(|| {
                 format!(
-                    "{} ({:.0} cycles per update): window {} Hz to {} Hz",
+                    "{} ({:.0} cycles per update): window {} to {}",
                     m.name(),
                     cycles,
-                    at_least(low),
-                    at_most(high)
+                    hz_at_least(low),
+                    hz_at_most(high)
                 )
             })
         })
@@ -1255,7 +1256,7 @@ fn other_method_advice(
     let lowest = at_design
         .iter()
         .min_by(|a, b| a.1.total_cmp(&b.1))
-        .map(|(m, f)| format!("the lowest here is {} at {} Hz", m.name(), sig4(*f)))
+        .map(|(m, f)| format!("the lowest here is {} at {}", m.name(), hz(*f)))
         .unwrap_or_else(|| "no method here has one".into());
     let untried: Vec<&str> = Method::ALL
         .iter()
@@ -1268,8 +1269,8 @@ fn other_method_advice(
         format!("; not tried: {}", untried.join(", "))
     };
     Some(format!(
-        "a method with a lower f_star: at most {} Hz would fit the CPU ceiling with the headroom ({lowest}{untried})",
-        at_most(need)
+        "a method with a lower f_star: at most {} would fit the CPU ceiling with the headroom ({lowest}{untried})",
+        hz_at_most(need)
     ))
 }
 
@@ -1298,19 +1299,18 @@ fn hold_basis(
                 .filter_map(|a| a.slowest_rate_hz.map(|f| (a, f)))
                 .min_by(|a, b| a.1.total_cmp(&b.1));
             match best {
-                Some((a, f)) if f == f_star => format!(
-                    "{h} ties at {} Hz ({}) but is listed later",
-                    sig4(f),
-                    a.method
-                ),
-                Some((a, f)) => format!("{h} needs {} Hz ({})", sig4(f), a.method),
+                Some((a, f)) if f == f_star => {
+                    format!("{h} ties at {} ({}) but is listed later", hz(f), a.method)
+                }
+                Some((a, f)) => format!("{h} needs {} ({})", hz(f), a.method),
                 None => format!("{h} meets the spec with no method up to max_hz"),
             }
         })
         .collect();
     format!(
-        "{hold}: the lowest slowest rate at delay {design_delay}, {} Hz with {method}; {}",
-        sig4(f_star),
+        "{hold}: the lowest slowest rate at delay {}, {} with {method}; {}",
+        periods(design_delay),
+        hz(f_star),
         others.join("; ")
     )
 }

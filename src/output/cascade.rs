@@ -4,7 +4,6 @@
 //! (`summary::evaluation_json`, `outputs::SWEEP_COLUMNS` names), so the
 //! outer object reads like the inner one.
 
-use std::fmt::Write as _;
 use std::path::Path;
 
 use serde_json::{Value, json};
@@ -18,7 +17,7 @@ use crate::explore::cascade::{
 use crate::explore::pick::PickReport;
 use crate::output::cascade_charts::write_cascade_charts;
 use crate::output::charts::Chart;
-use crate::output::report::{Block, write_report_extra};
+use crate::output::report::{Block, Detail, push_if, write_report_extra};
 use crate::output::summary::{evaluation_json, evaluation_text};
 use crate::output::tables::figure_cells;
 use crate::output::writer::write_atomic;
@@ -53,11 +52,11 @@ pub fn outer_json(case: &Case, p: &CascadePoint, e: &Evaluation) -> Value {
 /// The outer loop's table for `eval` (text).
 pub fn outer_text(case: &Case, p: &CascadePoint, e: &Evaluation) -> String {
     let header = format!(
-        "outer loop: ratio {}, rate {} Hz, method {}, computation delay {} of the outer period; lifted over one outer period, broken at the outer controller's output; time figures on the outer plant output (points between inner samples included), load step at the outer plant's input",
+        "outer loop: ratio {}, rate {}, method {}, computation delay {} (outer periods); lifted over one outer period, broken at the outer controller's output; time figures on the outer plant output (points between inner samples included), load step at the outer plant's input",
         p.ratio,
-        fmt_num(p.outer_rate_hz()),
+        hz(p.outer_rate_hz()),
         method_name(p.outer_method),
-        p.outer_delay
+        periods(p.outer_delay)
     );
     let spec = case
         .outer
@@ -193,83 +192,6 @@ pub fn cascade_csv(rows: &[CascadeRow]) -> String {
     s
 }
 
-/// The cascade's answer in text (terminal and report).
-pub fn cascade_text(pick: &CascadePick) -> String {
-    let mut s = String::new();
-    let _ = writeln!(
-        s,
-        "Cascade (outer loop every N-th inner tick, ratios {:?})",
-        pick.ratios
-    );
-    match &pick.chosen {
-        Some(c) => {
-            let _ = writeln!(
-                s,
-                "  chosen pair: inner {} ({}, computation delay {}), ratio {}, outer {} ({}, computation delay {})",
-                hz(c.inner_rate_hz),
-                c.series.inner_method,
-                periods(c.series.inner_compute_delay),
-                c.ratio,
-                hz(c.outer_rate_hz),
-                c.series.outer_method,
-                periods(c.series.outer_compute_delay)
-            );
-            match c.cost.total_load_pct {
-                Some(l) => {
-                    let _ = writeln!(
-                        s,
-                        "  CPU load: {} % (inner {} %, outer {} %)",
-                        fmt_num(l),
-                        fmt_num(c.cost.inner_load_pct.unwrap_or(f64::NAN)),
-                        fmt_num(c.cost.outer_load_pct.unwrap_or(f64::NAN))
-                    );
-                }
-                None => {
-                    let _ = writeln!(s, "  updates a second: {}", fmt_num(c.cost.updates_per_s));
-                }
-            }
-            for (name, e) in [("inner", &c.inner), ("outer", &c.outer)] {
-                if let Some(f) = &e.figures {
-                    let shown = [
-                        Figure::Overshoot,
-                        Figure::SettlingTime,
-                        Figure::PhaseMargin,
-                        Figure::GainMargin,
-                        Figure::SensitivityPeak,
-                    ]
-                    .map(|fig| format!("{} {}", fig.label(), fig.quantity_or_absence(f)))
-                    .join(", ");
-                    let _ = writeln!(s, "  {name}: {shown}");
-                }
-            }
-        }
-        None => {
-            let _ = writeln!(s, "  no pair meets both specs within the budget");
-        }
-    }
-    match pick.window_hz {
-        Some([lo, hi]) => {
-            let _ = writeln!(
-                s,
-                "  inner-rate window: {} to {} (top: {})",
-                hz(lo),
-                hz(hi),
-                pick.window.as_ref().map_or("", |w| w.high_bound)
-            );
-        }
-        None => {
-            let _ = writeln!(s, "  inner-rate window: empty");
-        }
-    }
-    for a in &pick.advice {
-        let _ = writeln!(s, "  advice: {a}");
-    }
-    for n in &pick.notes {
-        let _ = writeln!(s, "  note: {n}");
-    }
-    s
-}
-
 /// File name of the inner loop's own sweep in a cascade run (`sweep.csv`
 /// holds the cascade's rows there).
 pub const INNER_SWEEP_CSV: &str = "inner-sweep.csv";
@@ -284,24 +206,36 @@ pub fn loop_sweep_name(case: &Case) -> &'static str {
     }
 }
 
-/// The report's cascade section.
-fn report_blocks(pick: &CascadePick, charts: &[Chart], out_dir: &Path) -> Vec<Block> {
+/// The cascade section of the terminal's answer: the report's section in
+/// brief (no explanation, no per-rate table, no charts).
+pub fn brief_blocks(pick: &CascadePick) -> Vec<Block> {
+    report_blocks(pick, &[], Path::new(""), Detail::Brief)
+}
+
+/// The report's cascade section (`Detail::Brief`: the terminal's).
+fn report_blocks(
+    pick: &CascadePick,
+    charts: &[Chart],
+    out_dir: &Path,
+    detail: Detail,
+) -> Vec<Block> {
+    let full = detail == Detail::Full;
     let mut b = vec![Block::Heading(2, "Cascade: inner and outer loop".into())];
-    b.push(Block::Para(
+    push_if(&mut b, full, Block::Para(
         "The outer loop updates every N-th inner tick on the same processor; its command is the inner loop's reference, held until the next outer update. Both loops are evaluated exactly over one outer period (lifting). The outer figures are broken at the outer controller's output and taken on the outer plant output between inner samples too; the inner figures are the inner loop's own, with the outer loop open. The pair chosen is the one meeting both specs with the least CPU load (inner cycles x f + outer cycles x f/N).".into(),
     ));
     let mut lines: Vec<String> = Vec::new();
     match &pick.chosen {
         Some(c) => {
             lines.push(format!(
-                "chosen pair: inner loop {} ({}, computation delay {} periods), ratio {}, outer loop {} ({}, computation delay {} of its period)",
-                crate::engineering::hz(c.inner_rate_hz),
+                "chosen pair: inner loop {} ({}, computation delay {}), ratio {}, outer loop {} ({}, computation delay {} in outer periods)",
+                hz(c.inner_rate_hz),
                 c.series.inner_method,
-                c.series.inner_compute_delay,
+                periods(c.series.inner_compute_delay),
                 c.ratio,
-                crate::engineering::hz(c.outer_rate_hz),
+                hz(c.outer_rate_hz),
                 c.series.outer_method,
-                c.series.outer_compute_delay
+                periods(c.series.outer_compute_delay)
             ));
             if let Some(l) = c.cost.total_load_pct {
                 lines.push(format!(
@@ -317,8 +251,8 @@ fn report_blocks(pick: &CascadePick, charts: &[Chart], out_dir: &Path) -> Vec<Bl
     if let Some([lo, hi]) = pick.window_hz {
         lines.push(format!(
             "inner-rate window: {} to {} (top set by: {})",
-            crate::engineering::hz(lo),
-            crate::engineering::hz(hi),
+            hz(lo),
+            hz(hi),
             pick.window.as_ref().map_or("", |w| w.high_bound)
         ));
     }
@@ -351,12 +285,15 @@ fn report_blocks(pick: &CascadePick, charts: &[Chart], out_dir: &Path) -> Vec<Bl
             s.largest_ratio.iter().map(move |(f, n)| {
                 vec![
                     format!("{} / {}", s.series.inner_method, s.series.outer_method),
-                    crate::engineering::hz(*f),
+                    hz(*f),
                     n.map_or_else(|| "none".into(), |n| n.to_string()),
                 ]
             })
         })
         .collect();
+    if !full {
+        return b;
+    }
     b.push(Block::Para(
         "Per inner rate, the largest ratio (slowest outer rate) at which both loops meet their specs:".into(),
     ));
@@ -435,7 +372,7 @@ pub fn finish_pick(
         case,
         report,
         charts,
-        report_blocks(&pick, &cascade_charts, out_dir),
+        report_blocks(&pick, &cascade_charts, out_dir, Detail::Full),
     )?;
     Ok(CascadeRun { rows, pick, json })
 }

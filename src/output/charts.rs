@@ -16,7 +16,7 @@ use std::path::{Path, PathBuf};
 use rayon::prelude::*;
 
 use crate::case::Case;
-use crate::engineering::sig4;
+use crate::engineering::{seconds, sig4};
 use crate::error::Error;
 use crate::explore::budget;
 use crate::explore::pick::{PickReport, Recommended, case_methods};
@@ -800,7 +800,7 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
         format!("settling band +/-{} %", sig4(spec.settling_band_pct)),
     ));
     if let Some(l) = spec.max_settling_s {
-        let text = format!("settling limit {} s", sig4(l));
+        let text = format!("settling limit {}", seconds(l));
         panel.vmarks.push(VMark::new(l, text, MarkStyle::Dotted));
     }
     let plant = match &inp.report.robust {
@@ -884,11 +884,11 @@ fn disturbance(inp: &Inputs) -> Option<Figure> {
             .push(YBand::new(y_end - band, y_end + band, text));
     }
     if let Some(t) = figs.recovery_time_s {
-        let text = format!("recovered {} s", sig4(t));
+        let text = format!("recovered {}", seconds(t));
         panel.vmarks.push(VMark::new(t, text, MarkStyle::Dashed));
     }
     if let Some(l) = inp.case.spec.max_recovery_s {
-        let text = format!("recovery limit {} s", sig4(l));
+        let text = format!("recovery limit {}", seconds(l));
         panel.vmarks.push(VMark::new(l, text, MarkStyle::Dotted));
     }
     if let Some(l) = limit_of(LoopFigure::DisturbancePeak, &inp.case.spec) {

@@ -9,7 +9,7 @@
 use std::path::{Path, PathBuf};
 
 use crate::case::{Case, Written};
-use crate::engineering::sig4;
+use crate::engineering::{hz, periods, seconds, sig4};
 use crate::error::Error;
 use crate::explore::pick::{PickReport, Recommended};
 use crate::model::poly::{C64, Poly};
@@ -23,9 +23,11 @@ pub const REPORT_MD: &str = "report.md";
 /// File name of the self-contained HTML report.
 pub const REPORT_HTML: &str = "report.html";
 
+mod terminal;
+
 /// One piece of the report. Inline text may use `**bold**` and `` `code` ``.
 #[derive(Debug, Clone)]
-pub(crate) enum Block {
+pub enum Block {
     Heading(u8, String),
     Para(String),
     List(Vec<String>),
@@ -40,6 +42,16 @@ pub(crate) enum Block {
     },
     /// The box under the title: (label, text) rows.
     Summary(Vec<(String, String)>),
+}
+
+/// How much of the report a renderer shows: all of it in `report.md`
+/// and `report.html`; the terminal leaves out the loop's description, the
+/// paragraphs that explain a table, the assumptions (notes stay) and the
+/// caution's full text (its first line stays in the summary box).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) enum Detail {
+    Full,
+    Brief,
 }
 
 /// The caution's first line: it opens the caution at the end of the
@@ -59,7 +71,7 @@ pub fn write_report(
     report: &PickReport,
     charts: &[Chart],
 ) -> Result<PathBuf, Error> {
-    let blocks = blocks(out_dir, case, report, charts)?;
+    let blocks = blocks(out_dir, case, report, charts, Detail::Full)?;
     let md_path = out_dir.join(REPORT_MD);
     write_atomic(&md_path, markdown(&blocks).as_bytes())?;
     let html = html(&report.title, &blocks)?;
@@ -76,18 +88,38 @@ pub(crate) fn write_report_extra(
     charts: &[Chart],
     extra: Vec<Block>,
 ) -> Result<PathBuf, Error> {
-    let mut blocks = blocks(out_dir, case, report, charts)?;
-    let at = blocks
-        .iter()
-        .position(|b| matches!(b, Block::Heading(2, t) if t == "Assumptions"))
-        .unwrap_or(blocks.len());
-    blocks.splice(at..at, extra);
+    let mut blocks = blocks(out_dir, case, report, charts, Detail::Full)?;
+    insert_before_assumptions(&mut blocks, extra);
     let md_path = out_dir.join(REPORT_MD);
     write_atomic(&md_path, markdown(&blocks).as_bytes())?;
     let html = html(&report.title, &blocks)?;
     write_atomic(&out_dir.join(REPORT_HTML), html.as_bytes())?;
     Ok(md_path)
 }
+
+/// The pick's answer as terminal text: the report's blocks in brief
+/// (`Detail::Brief`), with `extra` blocks (a cascade's section) where the
+/// report has them.
+pub fn pick_text(case: &Case, report: &PickReport, extra: &[Block]) -> Result<String, Error> {
+    let mut blocks = blocks(Path::new(""), case, report, &[], Detail::Brief)?;
+    insert_before_assumptions(&mut blocks, extra.to_vec());
+    Ok(terminal::text(&blocks))
+}
+
+/// `extra` spliced in before the assumptions (the notes in brief), or at
+/// the end.
+fn insert_before_assumptions(blocks: &mut Vec<Block>, extra: Vec<Block>) {
+    let at = blocks
+        .iter()
+        .position(|b| matches!(b, Block::Heading(2, t) if t == ASSUMPTIONS || t == NOTES))
+        .unwrap_or(blocks.len());
+    blocks.splice(at..at, extra);
+}
+
+/// The heading of the assumptions (the report) and of the notes alone
+/// (the terminal).
+const ASSUMPTIONS: &str = "Assumptions";
+const NOTES: &str = "Notes";
 
 // ------------------------------------------------------------- content
 
@@ -243,7 +275,7 @@ fn block_lines(name: &str, written: Option<&Written>, tf: &Transfer, var: &str) 
             denominator: den,
             rate_hz,
         }) => format!(
-            "{name}: numerator `{}`, denominator `{}` (descending powers of z) at {} Hz",
+            "{name}: numerator `{}`, denominator `{}` (descending powers of z) at {}",
             num.iter()
                 .map(|v| format!("{v}"))
                 .collect::<Vec<_>>()
@@ -252,7 +284,7 @@ fn block_lines(name: &str, written: Option<&Written>, tf: &Transfer, var: &str) 
                 .map(|v| format!("{v}"))
                 .collect::<Vec<_>>()
                 .join(", "),
-            sig4(*rate_hz)
+            hz(*rate_hz)
         ),
     };
     // An expression that is already the expanded form needs no repeat.
@@ -277,30 +309,19 @@ fn rate_name(report: &PickReport) -> &'static str {
     }
 }
 
-/// A rate in kHz with Hz beside it, and its period in µs; a slow loop
-/// (under 10 Hz, where kHz and µs would need exponents) in Hz and s.
+/// A rate and its period in engineering form (`**1.396 kHz**, period
+/// **716.3 µs**`).
 fn rate_and_period(rate_hz: f64, period_s: f64) -> String {
-    if rate_hz < 10.0 {
-        return format!(
-            "**{} Hz**, period **{}**",
-            sig4(rate_hz),
-            duration(period_s)
-        );
-    }
-    format!(
-        "**{} kHz** ({} Hz), period **{}**",
-        sig4(rate_hz / 1e3),
-        sig4(rate_hz),
-        duration(period_s)
-    )
+    format!("**{}**, period **{}**", hz(rate_hz), seconds(period_s))
 }
 
-/// A time in µs, or in s from 0.1 s up (where µs would need an exponent).
-fn duration(seconds: f64) -> String {
-    if seconds >= 0.1 {
-        format!("{} s", sig4(seconds))
+/// When the output is applied: `1 period`, `0.5 of a period`, or `at
+/// once` for no computation delay.
+fn delay_after(d: f64) -> String {
+    if d == 0.0 {
+        "at once".into()
     } else {
-        format!("{} µs", sig4(seconds * 1e6))
+        periods(d)
     }
 }
 
@@ -324,7 +345,7 @@ fn load_text(case: &Case, load: Option<f64>) -> String {
 
 /// The box under the title: the answer, its method, delay and load, the
 /// main warning and the caution's first line.
-fn summary_box(case: &Case, report: &PickReport) -> Block {
+fn summary_box(case: &Case, report: &PickReport, full: bool) -> Block {
     let mut rows: Vec<(String, String)> = Vec::new();
     let empty = report.window.as_ref().is_some_and(|w| w.empty);
     match &report.recommended {
@@ -363,9 +384,9 @@ fn summary_box(case: &Case, report: &PickReport) -> Block {
         rows.push((
             "Computation delay".into(),
             format!(
-                "{} of a period ({}) from sample to output",
-                sig4(rec.compute_delay),
-                duration(rec.compute_delay * rec.period_s)
+                "{} ({}) from sample to output",
+                periods(rec.compute_delay),
+                seconds(rec.compute_delay * rec.period_s)
             ),
         ));
         rows.push(("CPU load".into(), load_text(case, rec.cpu_load_pct)));
@@ -373,7 +394,10 @@ fn summary_box(case: &Case, report: &PickReport) -> Block {
     rows.push(("Warning".into(), main_warning(case, report)));
     rows.push((
         "Caution".into(),
-        format!("{CAUTION_LINE} (Full caution at the end.)"),
+        format!(
+            "{CAUTION_LINE} (Full caution {}.)",
+            if full { "at the end" } else { "in report.md" }
+        ),
     ));
     Block::Summary(rows)
 }
@@ -390,15 +414,15 @@ fn main_warning(case: &Case, report: &PickReport) -> String {
     if let Some(w) = report.window.as_ref().filter(|w| w.empty) {
         return if w.high_hz < w.low_hz {
             format!(
-                "**no rate window**: the spec needs at least {} Hz but the {} allows at most {} Hz (see Rate window for what would open it).",
-                sig4(w.low_hz),
+                "**no rate window**: the spec needs at least {} but the {} allows at most {} (see Rate window for what would open it).",
+                hz(w.low_hz),
                 w.high_bound,
-                sig4(w.high_hz)
+                hz(w.high_hz)
             )
         } else {
             format!(
-                "**no rate window**: the spec needs at least {} Hz, but the {} (see Rate window).",
-                sig4(w.low_hz),
+                "**no rate window**: the spec needs at least {}, but the {} (see Rate window).",
+                hz(w.low_hz),
                 w.high_bound
             )
         };
@@ -444,19 +468,19 @@ fn answer(case: &Case, report: &PickReport, rec: &Recommended, lead: &str) -> St
         .unwrap_or_default();
     if rec.method == "given-in-z" {
         return format!(
-            "{lead} the controller given in z at its own rate, **{} Hz** (period **{} s**{timer}), with the output applied {} periods after sampling through a {} hold; {load}. A controller given in z runs only at its own rate, so no headroom is applied.",
-            sig4(rec.rate_hz),
-            sig4(rec.period_s),
-            sig4(rec.compute_delay),
+            "{lead} the controller given in z at its own rate, **{}** (period **{}**{timer}), with the output applied {} after sampling through a {} hold; {load}. A controller given in z runs only at its own rate, so no headroom is applied.",
+            hz(rec.rate_hz),
+            seconds(rec.period_s),
+            delay_after(rec.compute_delay),
             rec.hold,
         );
     }
     format!(
-        "{lead} the controller discretized by `{}` at **{} Hz** (period **{} s**{timer}) with the output applied {} periods after sampling through a **{}** hold ({}); {load}. This is the slowest {}, {} Hz, times the headroom {}.",
+        "{lead} the controller discretized by `{}` at **{}** (period **{}**{timer}) with the output applied {} after sampling through a **{}** hold ({}); {load}. This is the slowest {}, {}, times the headroom {} (the headroom covers model error).",
         rec.method,
-        sig4(rec.rate_hz),
-        sig4(rec.period_s),
-        sig4(rec.compute_delay),
+        hz(rec.rate_hz),
+        seconds(rec.period_s),
+        delay_after(rec.compute_delay),
         rec.hold,
         rec.hold_basis,
         if report.robust.is_some() {
@@ -464,7 +488,7 @@ fn answer(case: &Case, report: &PickReport, rec: &Recommended, lead: &str) -> St
         } else {
             "passing rate (f*)"
         },
-        sig4(rec.slowest_rate_hz),
+        hz(rec.slowest_rate_hz),
         sig4(report.headroom),
     )
 }
@@ -474,17 +498,18 @@ fn blocks(
     case: &Case,
     report: &PickReport,
     charts: &[Chart],
+    detail: Detail,
 ) -> Result<Vec<Block>, Error> {
+    let full = detail == Detail::Full;
     let models = case.nominal()?;
     let written = case.written();
     let mut b = vec![
         Block::Heading(1, report.title.clone()),
-        summary_box(case, report),
+        summary_box(case, report, full),
     ];
     let at_rate = rate_name(report);
     let empty = report.window.as_ref().is_some_and(|w| w.empty);
 
-    b.push(Block::Heading(2, "The loop".into()));
     let mut lines = vec![
         block_lines("plant P(s)", Some(&written.plant), &models.plant, "s"),
         block_lines("sensor H(s)", written.sensor.as_ref(), &models.sensor, "s"),
@@ -516,7 +541,10 @@ fn blocks(
                 .join(", ")
         ));
     }
-    b.push(Block::List(lines));
+    if full {
+        b.push(Block::Heading(2, "The loop".into()));
+        b.push(Block::List(lines));
+    }
 
     b.push(Block::Heading(2, "The answer".into()));
     if !report.design_failures.is_empty() {
@@ -530,9 +558,9 @@ fn blocks(
                 .iter()
                 .map(|c| {
                     vec![
-                        c.figure.to_string(),
-                        c.value.map_or("none".into(), sig4),
-                        sig4(c.limit),
+                        c.figure.heading(),
+                        c.value.map_or("none".into(), |v| c.figure.text(v)),
+                        c.figure.text(c.limit),
                     ]
                 })
                 .collect(),
@@ -541,11 +569,11 @@ fn blocks(
     match (&report.recommended, &report.window) {
         (Some(rec), Some(w)) if w.empty => {
             b.push(Block::Para(format!(
-                "**No rate meets both the spec and the upper bound:** the spec needs at least {} Hz (`{}`, with headroom) but the {} allows at most {} Hz.",
-                sig4(w.low_hz),
+                "**No rate meets both the spec and the upper bound:** the spec needs at least {} (`{}`, with headroom) but the {} allows at most {}.",
+                hz(w.low_hz),
                 rec.method,
                 w.high_bound,
-                sig4(w.high_hz),
+                hz(w.high_hz),
             )));
             b.push(Block::Para(answer(
                 case,
@@ -569,7 +597,7 @@ fn blocks(
         };
         b.push(Block::Heading(
             2,
-            format!("{heading} ({} Hz)", sig4(rec.rate_hz)),
+            format!("{heading} ({})", hz(rec.rate_hz)),
         ));
         match &rec.figures {
             Some(f) => {
@@ -616,7 +644,7 @@ fn blocks(
                     header.extend(["limit".into(), "slack".into(), "verdict".into()]);
                 }
                 b.push(Block::Table(header, rows));
-                b.push(Block::Para(
+                push_if(&mut b, full, Block::Para(
                     "Slack is the distance to the limit as a share of the limit; a gain-margin limit bounds the margin's size.".into(),
                 ));
             }
@@ -640,34 +668,34 @@ fn blocks(
         vec![
             "method".into(),
             "hold".into(),
-            "computation delay (of T)".into(),
+            "computation delay".into(),
             if robust {
-                "nominal f* (Hz)".into()
+                "nominal f*".into()
             } else {
-                "f* (Hz)".into()
+                "f*".into()
             },
             "limiting figure".into(),
-            "islands (Hz, never the answer)".into(),
+            "islands (never the answer)".into(),
         ],
         report
             .methods
             .iter()
             .map(|m| {
                 let f = match (m.slowest_rate_hz, m.at_range_floor) {
-                    (Some(f), true) => format!("<= {}", sig4(f)),
-                    (Some(f), false) => sig4(f),
+                    (Some(f), true) => format!("<= {}", hz(f)),
+                    (Some(f), false) => hz(f),
                     (None, _) => "none".into(),
                 };
                 let islands = m
                     .islands
                     .iter()
-                    .map(|i| format!("{} to {}", sig4(i[0]), sig4(i[1])))
+                    .map(|i| format!("{} to {}", hz(i[0]), hz(i[1])))
                     .collect::<Vec<_>>()
                     .join(", ");
                 vec![
                     m.method.clone(),
                     m.hold.name().into(),
-                    sig4(m.compute_delay),
+                    periods(m.compute_delay),
                     f,
                     m.limiting
                         .map_or("-".to_string(), |l| l.label().to_string()),
@@ -680,11 +708,15 @@ fn blocks(
             })
             .collect(),
     ));
-    b.push(Block::Para(if robust {
-        "f* is the lowest rate from which every faster rate up to the top of the sweep meets the spec: nominal f* on the nominal plant, robust f* on every plant variant (the next table; the answer rests on it). `<=` marks a method that passes over the whole sweep.".into()
-    } else {
-        "f* is the lowest rate from which every faster rate up to the top of the sweep meets the spec; `<=` marks a method that passes over the whole sweep.".into()
-    }));
+    push_if(
+        &mut b,
+        full,
+        Block::Para(if robust {
+            "f* is the lowest rate from which every faster rate up to the top of the sweep meets the spec: nominal f* on the nominal plant, robust f* on every plant variant (the next table; the answer rests on it). `<=` marks a method that passes over the whole sweep.".into()
+        } else {
+            "f* is the lowest rate from which every faster rate up to the top of the sweep meets the spec; `<=` marks a method that passes over the whole sweep.".into()
+        }),
+    );
 
     if let Some(rb) = &report.robust {
         b.push(Block::Heading(
@@ -724,9 +756,9 @@ fn blocks(
             vec![
                 "method".into(),
                 "hold".into(),
-                "computation delay (of T)".into(),
-                "robust f* (Hz)".into(),
-                "nominal f* (Hz)".into(),
+                "computation delay".into(),
+                "robust f*".into(),
+                "nominal f*".into(),
                 "limiting figure".into(),
                 "worst variant".into(),
             ],
@@ -736,9 +768,9 @@ fn blocks(
                     vec![
                         m.rate.method.clone(),
                         m.rate.hold.name().into(),
-                        sig4(m.rate.compute_delay),
-                        m.rate.slowest_rate_hz.map_or("none".into(), sig4),
-                        m.nominal_slowest_rate_hz.map_or("none".into(), sig4),
+                        periods(m.rate.compute_delay),
+                        m.rate.slowest_rate_hz.map_or("none".into(), hz),
+                        m.nominal_slowest_rate_hz.map_or("none".into(), hz),
                         m.worst_limiting
                             .map_or("-".to_string(), |l| l.label().to_string()),
                         m.worst_variant.as_ref().map_or("-".into(), |v| {
@@ -755,10 +787,14 @@ fn blocks(
 
     if let Some(pr) = &report.precision {
         b.push(Block::Heading(2, "Coefficient precision".into()));
-        b.push(Block::Para(format!(
-            "The controller's coefficients rounded as stored on the target, in the `{}` structure; fixed-point formats take the fewest integer bits that hold every coefficient. A format passes at a rate when no integrator is lost, no pole rounds onto z = 1 or out of the unit circle, and the loop with the rounded controller meets the spec. Its ceiling is the fastest rate up to which it passes from {at_rate} (each method: from its own f* times the headroom).",
-            pr.structure
-        )));
+        push_if(
+            &mut b,
+            full,
+            Block::Para(format!(
+                "The controller's coefficients rounded as stored on the target, in the `{}` structure; fixed-point formats take the fewest integer bits that hold every coefficient. A format passes at a rate when no integrator is lost, no pole rounds onto z = 1 or out of the unit circle, and the loop with the rounded controller meets the spec. Its ceiling is the fastest rate up to which it passes from {at_rate} (each method: from its own f* times the headroom).",
+                pr.structure
+            )),
+        );
         let method = report.recommended.as_ref().map(|r| r.method.clone());
         b.push(Block::Table(
             vec![
@@ -768,7 +804,7 @@ fn blocks(
                 "DC gain error (%)".into(),
                 "integral action".into(),
                 format!("passes at {at_rate}"),
-                "ceiling (Hz)".into(),
+                "ceiling".into(),
             ],
             pr.at_recommended
                 .iter()
@@ -780,10 +816,10 @@ fn blocks(
                         .find(|c| Some(&c.method) == method.as_ref() && c.format == a.format)
                         .map_or("-".into(), |c| {
                             match (c.ceiling.rate_hz, c.ceiling.above_range) {
-                                (Some(h), true) => format!(">= {} (top of the sweep)", sig4(h)),
+                                (Some(h), true) => format!(">= {} (top of the sweep)", hz(h)),
                                 (Some(h), false) => format!(
                                     "{} (then {})",
-                                    sig4(h),
+                                    hz(h),
                                     c.ceiling.limiting.map_or("?", |l| l.label())
                                 ),
                                 (None, _) => format!(
@@ -825,24 +861,24 @@ fn blocks(
             };
             b.push(Block::Para(if w.high_hz < w.low_hz {
                 format!(
-                    "**The window is empty:** {low} {} Hz and the {} allows at most {} Hz. What would open it:",
-                    sig4(w.low_hz),
+                    "**The window is empty:** {low} {} and the {} allows at most {}. What would open it:",
+                    hz(w.low_hz),
                     w.high_bound,
-                    sig4(w.high_hz)
+                    hz(w.high_hz)
                 )
             } else {
                 format!(
-                    "**The window is empty:** {low} {} Hz, but the {}. What would open it:",
-                    sig4(w.low_hz),
+                    "**The window is empty:** {low} {}, but the {}. What would open it:",
+                    hz(w.low_hz),
                     w.high_bound
                 )
             }));
             b.push(Block::List(report.advice.clone()));
         }
         Some(w) => b.push(Block::Para(format!(
-            "From {} Hz (the spec with headroom) to {} Hz (the {}): any rate in it meets both.",
-            sig4(w.low_hz),
-            sig4(w.high_hz),
+            "From {} (the spec with headroom) to {} (the {}): any rate in it meets both.",
+            hz(w.low_hz),
+            hz(w.high_hz),
             w.high_bound
         ))),
         None if case.budget.is_none() && case.arithmetic.is_none() => b.push(Block::Para(
@@ -876,7 +912,16 @@ fn blocks(
         }
     }
 
-    b.push(Block::Heading(2, "Assumptions".into()));
+    if !full {
+        if !report.notes.is_empty() {
+            b.push(Block::Heading(2, NOTES.into()));
+            b.push(Block::List(
+                report.notes.iter().map(|n| format!("{n}.")).collect(),
+            ));
+        }
+        return Ok(b);
+    }
+    b.push(Block::Heading(2, ASSUMPTIONS.into()));
     let mut assumptions = vec![
         if report.robust.is_some() {
             "Every figure is computed from the models above: the exact sampled-data loop, with the plant output evaluated between samples; the rate rests on the worst plant variant, the figures table gives the nominal one beside the worst.".to_string()
@@ -884,8 +929,8 @@ fn blocks(
             "Every figure is computed from the models above (nominal parameter values): the exact sampled-data loop, with the plant output evaluated between samples.".to_string()
         },
         format!(
-            "The controller's output is applied {} periods after each sample (the computation delay the answer is given at: the largest the case lists).",
-            sig4(report.design_delay)
+            "The controller's output is applied {} after each sample (the computation delay the answer is given at: the largest the case lists).",
+            delay_after(report.design_delay)
         ),
         match &report.recommended {
             Some(r) => format!(
@@ -912,9 +957,9 @@ fn blocks(
     ];
     if case.plant_delay_s > 0.0 || case.sensor_delay_s > 0.0 {
         assumptions.push(format!(
-            "Transport delays: {} s at the plant, {} s on the measurement. They are exact in the sampled loop (whole periods as unit delays, the fraction exact) and in the continuous design's loop gain; the continuous design's step and load responses and poles use their Pade [{n}/{n}] approximant.",
-            sig4(case.plant_delay_s),
-            sig4(case.sensor_delay_s),
+            "Transport delays: {} at the plant, {} on the measurement. They are exact in the sampled loop (whole periods as unit delays, the fraction exact) and in the continuous design's loop gain; the continuous design's step and load responses and poles use their Pade [{n}/{n}] approximant.",
+            seconds(case.plant_delay_s),
+            seconds(case.sensor_delay_s),
             n = crate::sampled::evaluate::TRANSPORT_PADE_ORDER
         ));
     }
@@ -995,7 +1040,7 @@ fn is_number(cell: &str) -> bool {
 }
 
 /// `%`, or seconds or hertz with an SI prefix (`ms`, `µs`, `kHz`).
-fn is_unit(u: &str) -> bool {
+pub(crate) fn is_unit(u: &str) -> bool {
     u == "%"
         || ["s", "Hz"].iter().any(|base| {
             u.strip_suffix(base)
@@ -1003,9 +1048,17 @@ fn is_unit(u: &str) -> bool {
         })
 }
 
+/// `block` pushed only when `keep` (the report's explanations, left out
+/// of the terminal).
+pub(crate) fn push_if(b: &mut Vec<Block>, keep: bool, block: Block) {
+    if keep {
+        b.push(block);
+    }
+}
+
 /// Per column: right-aligned when every cell is a number or a
 /// placeholder and at least one is a number.
-fn numeric_columns(head: &[String], rows: &[Vec<String>]) -> Vec<bool> {
+pub(crate) fn numeric_columns(head: &[String], rows: &[Vec<String>]) -> Vec<bool> {
     (0..head.len())
         .map(|j| {
             let cells: Vec<&str> = rows

@@ -6,7 +6,6 @@ use std::fmt::Write;
 use serde_json::{Map, Value, json};
 
 use crate::engineering::{hz, periods, seconds, sig4};
-use crate::explore::pick::PickReport;
 use crate::model::poly::C64;
 use crate::model::transfer::DiscreteTransfer;
 use crate::sampled::continuous::HoldApprox;
@@ -15,10 +14,6 @@ use crate::sampled::feasibility::LimitCheck;
 use crate::sampled::feasibility::check_figures;
 use crate::sampled::figure::Figure;
 use crate::spec::Spec;
-
-fn fmt_opt(v: Option<f64>, missing: &str) -> String {
-    v.map_or_else(|| missing.to_string(), sig4)
-}
 
 /// Complex numbers as `[re, im]` pairs for JSON.
 pub fn complex_pairs(v: &[C64]) -> Vec<[f64; 2]> {
@@ -29,7 +24,12 @@ pub fn complex_pairs(v: &[C64]) -> Vec<[f64; 2]> {
 pub fn discretized_text(method: &str, rate_hz: f64, c: &DiscreteTransfer) -> String {
     let mut s = String::new();
     let _ = writeln!(s, "method         {method}");
-    let _ = writeln!(s, "rate           {rate_hz} Hz (T = {} s)", 1.0 / rate_hz);
+    let _ = writeln!(
+        s,
+        "rate           {} (period {})",
+        hz(rate_hz),
+        seconds(1.0 / rate_hz)
+    );
     let _ = writeln!(s, "numerator(z)   {:?}", c.transfer.numerator.descending());
     let _ = writeln!(
         s,
@@ -177,308 +177,6 @@ pub fn evaluation_json(e: &Evaluation) -> Value {
     Value::Object(m)
 }
 
-/// `looprate pick` human summary.
-pub fn pick_text(r: &PickReport) -> String {
-    let mut s = String::new();
-    let _ = writeln!(s, "{}\n", r.title);
-    if !r.design_failures.is_empty() {
-        let _ = writeln!(s, "The continuous design already fails the spec:");
-        for c in &r.design_failures {
-            let _ = writeln!(
-                s,
-                "  {} = {} against a limit of {}",
-                c.figure.label(),
-                check_value(c),
-                c.figure.text(c.limit)
-            );
-        }
-    }
-    // Islands (passing bands below the slowest passing rate, where a
-    // faster rate fails again) get a column only when there are any.
-    let any_islands = r.methods.iter().any(|m| !m.islands.is_empty());
-    if !r.methods.is_empty() {
-        let _ = writeln!(
-            s,
-            "{:<18}{:<15}{:>8}{:>16}  {:<22}{}",
-            "method",
-            "hold",
-            "delay",
-            "slowest rate",
-            "limiting figure",
-            if any_islands {
-                "also passing (islands)"
-            } else {
-                ""
-            }
-        );
-    }
-    for m in &r.methods {
-        let slow = match (m.slowest_rate_hz, m.at_range_floor) {
-            (Some(f), true) => format!("<= {}", hz(f)),
-            (Some(f), false) => hz(f),
-            (None, _) => "none".into(),
-        };
-        let isl = m
-            .islands
-            .iter()
-            .map(|i| format!("{} to {}", hz(i[0]), hz(i[1])))
-            .collect::<Vec<_>>()
-            .join(", ");
-        let line = format!(
-            "{:<18}{:<15}{:>8}{:>16}  {:<22}{}",
-            m.method,
-            m.hold.name(),
-            m.compute_delay,
-            slow,
-            m.limiting.map_or("-", |l| l.label()),
-            isl
-        );
-        let _ = writeln!(s, "{}", line.trim_end());
-    }
-    if let Some(rb) = &r.robust {
-        let ranges = rb
-            .params
-            .iter()
-            .map(|p| format!("{} in [{}, {}]", p.name, sig4(p.min), sig4(p.max)))
-            .collect::<Vec<_>>()
-            .join(", ");
-        let how = match rb.seed {
-            Some(seed) => format!("a Latin hypercube sample (seed {seed})"),
-            None => "every corner".into(),
-        };
-        let _ = if ranges.is_empty() {
-            writeln!(
-                s,
-                "\nOver {} plant variants (every range has zero width: each is the nominal plant):",
-                rb.variants
-            )
-        } else {
-            writeln!(
-                s,
-                "\nOver {} plant variants (the nominal one and {how} of {ranges}):",
-                rb.variants
-            )
-        };
-        let _ = writeln!(
-            s,
-            "{:<18}{:<15}{:>8}{:>16}{:>16}  {:<22}worst variant",
-            "method", "hold", "delay", "robust rate", "nominal rate", "limiting figure"
-        );
-        for m in &rb.methods {
-            let slow = match (m.rate.slowest_rate_hz, m.rate.at_range_floor) {
-                (Some(f), true) => format!("<= {}", hz(f)),
-                (Some(f), false) => hz(f),
-                (None, _) => "none".into(),
-            };
-            let worst = m
-                .worst_variant
-                .as_ref()
-                .map(|v| {
-                    v.iter()
-                        .map(|n| format!("{} = {}", n.name, sig4(n.value)))
-                        .collect::<Vec<_>>()
-                        .join(", ")
-                })
-                .unwrap_or_default();
-            let _ = writeln!(
-                s,
-                "{:<18}{:<15}{:>8}{:>16}{:>16}  {:<22}{}",
-                m.rate.method,
-                m.rate.hold.name(),
-                m.rate.compute_delay,
-                slow,
-                m.nominal_slowest_rate_hz.map_or("none".to_string(), hz),
-                m.worst_limiting.map_or("-", |l| l.label()),
-                worst
-            );
-        }
-    }
-    let _ = writeln!(s);
-    if let Some(rec) = &r.recommended {
-        let basis = if r.robust.is_some() {
-            "slowest rate passing on every variant"
-        } else {
-            "slowest passing rate"
-        };
-        if rec.method == "given-in-z" {
-            let _ = writeln!(
-                s,
-                "Recommended: the controller given in z at its own rate, {} (period {}), {} hold, computation delay {}.",
-                hz(rec.rate_hz),
-                seconds(rec.period_s),
-                rec.hold,
-                periods(rec.compute_delay)
-            );
-        } else {
-            let _ = writeln!(
-                s,
-                "Recommended: {} with a {} hold at {} (period {}), computation delay {}; {basis} {} times headroom {} (the headroom covers model error).",
-                rec.method,
-                rec.hold,
-                hz(rec.rate_hz),
-                seconds(rec.period_s),
-                periods(rec.compute_delay),
-                hz(rec.slowest_rate_hz),
-                r.headroom
-            );
-        }
-        let _ = writeln!(s, "Hold: {}.", rec.hold_basis);
-        if let Some(n) = rec.timer_divider {
-            let _ = writeln!(s, "Timer divider {n}.");
-        }
-        if let Some(l) = rec.cpu_load_pct {
-            let _ = writeln!(
-                s,
-                "CPU load {} % ({} cycles per update).",
-                sig4(l),
-                fmt_opt(rec.cycles_per_update, "?")
-            );
-        }
-        let robust = r.robust.is_some();
-        if robust {
-            let _ = writeln!(
-                s,
-                "\n{:<30}{:>14}{:>14}{:>12}{:>14}",
-                "figure", "value", "worst variant", "limit", "worst slack"
-            );
-        } else {
-            let _ = writeln!(
-                s,
-                "\n{:<30}{:>14}{:>12}{:>10}",
-                "figure", "value", "limit", "slack"
-            );
-        }
-        for c in &rec.checks {
-            if !robust {
-                let _ = writeln!(
-                    s,
-                    "{:<30}{:>14}{:>12}{:>9.1}%",
-                    c.figure.heading(),
-                    check_value(c),
-                    c.figure.text(c.limit),
-                    c.slack * 100.0
-                );
-                continue;
-            }
-            let (worst, slack) = rec
-                .worst_checks
-                .iter()
-                .find(|w| w.figure == c.figure)
-                .map_or(("unstable".to_string(), "-".to_string()), |w| {
-                    (check_value(w), format!("{:.1}%", w.slack * 100.0))
-                });
-            let _ = writeln!(
-                s,
-                "{:<30}{:>14}{:>14}{:>12}{:>14}",
-                c.figure.heading(),
-                check_value(c),
-                worst,
-                c.figure.text(c.limit),
-                slack
-            );
-        }
-    }
-    if let Some(pr) = &r.precision {
-        let _ = writeln!(
-            s,
-            "\nCoefficients in {} (at the recommended rate; ceiling for the recommended method):",
-            pr.structure
-        );
-        let _ = writeln!(
-            s,
-            "{:<8}{:>9}{:>14}{:>14}{:>10}{:>10}{:>16}  fails above it on",
-            "format", "Q", "pole err %", "DC gain err %", "integral", "passes", "ceiling"
-        );
-        let method = r.recommended.as_ref().map(|x| x.method.clone());
-        for a in &pr.at_recommended {
-            let d = a.damage.as_ref();
-            let ceil = pr
-                .ceilings
-                .iter()
-                .find(|c| Some(&c.method) == method.as_ref() && c.format == a.format);
-            let (ceil_text, above) = match ceil.map(|c| &c.ceiling) {
-                Some(c) if c.above_range => (
-                    format!(">= {}", hz(c.rate_hz.unwrap_or(f64::NAN))),
-                    "- (top of the sweep)".to_string(),
-                ),
-                Some(c) => (
-                    c.rate_hz.map_or("none".to_string(), hz),
-                    c.limiting.map_or(String::new(), |l| l.label().to_string()),
-                ),
-                None => ("-".into(), String::new()),
-            };
-            let _ = writeln!(
-                s,
-                "{:<8}{:>9}{:>14}{:>14}{:>10}{:>10}{:>16}  {}",
-                a.format,
-                d.and_then(|d| d.q_format.clone())
-                    .unwrap_or_else(|| "-".into()),
-                d.map_or("-".into(), |d| sig4(d.pole_error_pct)),
-                d.map_or("-".into(), |d| fmt_opt(d.dc_gain_error_pct, "changed")),
-                a.integral_kept
-                    .map_or("-".into(), |k| if k { "kept" } else { "LOST" }.to_string()),
-                if a.feasible { "yes" } else { "NO" },
-                ceil_text,
-                above
-            );
-        }
-        for a in &pr.at_recommended {
-            if let Some(reason) = &a.reason {
-                let _ = writeln!(s, "  {}: {reason}", a.format);
-            }
-        }
-    }
-    if let Some(w) = &r.window {
-        if w.empty {
-            if w.high_hz < w.low_hz {
-                let _ = writeln!(
-                    s,
-                    "\nNO RATE WINDOW: the spec needs at least {} but the {} allows at most {}.",
-                    hz(w.low_hz),
-                    w.high_bound,
-                    hz(w.high_hz)
-                );
-            } else {
-                let _ = writeln!(
-                    s,
-                    "\nNO RATE WINDOW: the spec needs at least {}, but the {}.",
-                    hz(w.low_hz),
-                    w.high_bound
-                );
-            }
-            let _ = writeln!(s, "What would open it:");
-            for a in &r.advice {
-                let _ = writeln!(s, "  - {a}");
-            }
-        } else {
-            let _ = writeln!(
-                s,
-                "\nRate window: {} to {} ({} .. {}).",
-                hz(w.low_hz),
-                hz(w.high_hz),
-                if r.recommended
-                    .as_ref()
-                    .is_some_and(|x| x.method == "given-in-z")
-                {
-                    "the controller's own rate"
-                } else {
-                    "spec with headroom"
-                },
-                w.high_bound
-            );
-            if let Some(c) = w.cpu_ceiling_hz
-                && !matches!(w.high_bound, crate::explore::budget::WindowBound::CpuBudget)
-            {
-                let _ = writeln!(s, "CPU budget ceiling: {}.", hz(c));
-            }
-        }
-    }
-    for n in &r.notes {
-        let _ = writeln!(s, "Note: {n}");
-    }
-    s
-}
-
 /// `looprate eval --json`: the exact loop's figures at the top level, plus
 /// `continuous` and `hold_approx` objects with the same keys.
 pub fn eval_json(
@@ -539,7 +237,7 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::sampled::evaluate::Prepa
         Controller::Continuous(c) => block(&mut s, "controller C(s)", c, "s"),
         Controller::Discrete(d) => block(
             &mut s,
-            &format!("controller C(z) at {} Hz", 1.0 / d.period_s),
+            &format!("controller C(z) at {}", hz(1.0 / d.period_s)),
             &d.transfer,
             "z",
         ),
@@ -548,37 +246,37 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::sampled::evaluate::Prepa
         Controller::Continuous(_) => {
             let _ = writeln!(
                 s,
-                "\nrates {} .. {} Hz, {} points; methods {}; computation delays {:?}",
-                case.rates.min_hz,
-                case.rates.max_hz,
+                "\nrates {} .. {}, {} points; methods {}; computation delays {}",
+                hz(case.rates.min_hz),
+                hz(case.rates.max_hz),
                 case.rates.points,
                 case.methods
                     .iter()
                     .map(|m| m.name())
                     .collect::<Vec<_>>()
                     .join(", "),
-                case.compute_delays
+                delay_list(&case.compute_delays)
             );
         }
         Controller::Discrete(d) => {
             let _ = writeln!(
                 s,
-                "\nthe controller is given in z at {} Hz: that one rate is checked, nothing is discretized; computation delays {:?}",
-                1.0 / d.period_s,
-                case.compute_delays
+                "\nthe controller is given in z at {}: that one rate is checked, nothing is discretized; computation delays {}",
+                hz(1.0 / d.period_s),
+                delay_list(&case.compute_delays)
             );
         }
     }
     let _ = writeln!(
         s,
-        "hold kinds {}; transport delay {} s at the plant, {} s on the measurement",
+        "hold kinds {}; transport delay {} at the plant, {} on the measurement",
         case.holds
             .iter()
             .map(|h| h.name())
             .collect::<Vec<_>>()
             .join(", "),
-        case.plant_delay_s,
-        case.sensor_delay_s
+        seconds(case.plant_delay_s),
+        seconds(case.sensor_delay_s)
     );
     if let Some(u) = &case.uncertainty {
         let n = crate::explore::variants::parameter_sets(case).len();
@@ -659,4 +357,14 @@ pub fn check_text(case: &crate::case::Case, lp: &crate::sampled::evaluate::Prepa
         }
     }
     s
+}
+
+/// Computation delays as a list an engineer reads: `none, 0.5 of a
+/// period, 1 period`.
+fn delay_list(delays: &[f64]) -> String {
+    delays
+        .iter()
+        .map(|&d| periods(d))
+        .collect::<Vec<_>>()
+        .join(", ")
 }
