@@ -6,11 +6,13 @@
 #   POINTS        default 500 4000 16000
 #   CHARTS=0      add --no-charts (default: charts drawn, as a user runs it)
 #   THREADS=N     --threads N (default: all cores)
+#   METHODS=all   all eight methods instead of the case's four
 #
 # The case is the belt-conveyor demo (3 plant variants, q15 and f32
-# formats) with all eight methods and `[rates] points` set to each count:
-# points x 8 methods x 3 delays grid rows. Prints one line per run:
-# command, points, rows, max RSS (MB), wall time (s).
+# formats, 3 computation delays, 4 methods) with `[rates] points` set to
+# each count: points x 4 methods x 3 delays grid rows (x 8 methods with
+# METHODS=all). Prints one line per run: command, points, rows, max RSS
+# (MB), wall time (s).
 set -euo pipefail
 here=$(cd "$(dirname "$0")/.." && pwd)
 bin=${1:-$here/target/release/looprate}
@@ -26,8 +28,13 @@ all='["step-invariant", "ramp-invariant", "impulse-invariant", "tustin", "tustin
 printf '%-6s %7s %8s %12s %8s\n' command points rows "max RSS MB" "wall s"
 for n in "${counts[@]}"; do
   case_file=$work/belt-$n.toml
-  sed -e "s/^points = .*/points = $n/" -e "s/^use = .*/use = $all/" \
-    "$here/demo-cases/belt-conveyor.toml" >"$case_file"
+  if [ "${METHODS:-}" = all ]; then
+    sed -e "s/^points = .*/points = $n/" -e "s/^use = .*/use = $all/" \
+      "$here/demo-cases/belt-conveyor.toml" >"$case_file"
+  else
+    sed -e "s/^points = .*/points = $n/" "$here/demo-cases/belt-conveyor.toml" >"$case_file"
+  fi
+  methods=$(grep -c . <<<"$(sed -n 's/^use = \[\(.*\)\]/\1/p' "$case_file" | tr ',' '\n')")
   for cmd in sweep pick; do
     log=$work/time-$cmd-$n.txt
     set +e
@@ -42,6 +49,6 @@ for n in "${counts[@]}"; do
     kb=$(sed -n 's/.*Maximum resident set size (kbytes): //p' "$log")
     wall=$(sed -n 's/.*Elapsed (wall clock) time (h:mm:ss or m:ss): //p' "$log")
     secs=$(echo "$wall" | awk -F: '{ if (NF==3) print $1*3600+$2*60+$3; else print $1*60+$2 }')
-    printf '%-6s %7d %8d %12.1f %8.1f\n' "$cmd" "$n" $((n * 24)) "$(echo "$kb / 1024" | bc -l)" "$secs"
+    printf '%-6s %7d %8d %12.1f %8.1f\n' "$cmd" "$n" $((n * methods * 3)) "$(echo "$kb / 1024" | bc -l)" "$secs"
   done
 done

@@ -567,10 +567,11 @@ fn run(cli: Cli) -> Result<ExitCode> {
                         if no_charts {
                             Ok(Vec::new())
                         } else {
+                            let rows = chart_rows.finish();
                             let input = ChartInput {
                                 case: &c,
                                 lp: &lp,
-                                rows: &chart_rows,
+                                rows: &rows,
                                 pick: Some(&report),
                             };
                             Ok(looprate::output::charts::write_charts(&out, &input)?)
@@ -757,10 +758,11 @@ fn run_sweep(
     if !no_charts {
         // Without a search there is no recommendation: the charts that
         // need none (figures against rate, CPU load, precision).
+        let rows = chart_rows.finish();
         let input = ChartInput {
             case: c,
             lp,
-            rows: &chart_rows,
+            rows: &rows,
             pick: None,
         };
         looprate::output::charts::write_charts(out, &input)?;

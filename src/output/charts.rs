@@ -117,10 +117,11 @@ fn value_text(fig: LoopFigure, f: &Figures) -> Option<String> {
     ))
 }
 
-/// Columns of a chart's rate axis that a long series is thinned to: the
-/// figure's full width in pixels, so a column is never wider than a pixel
-/// column of the plot (whose width is less).
-pub const CHART_COLUMNS: usize = 1600;
+/// Columns of a chart's rate axis that a long series is thinned to: about
+/// the width in pixels of a rate chart's plotting area (1600-pixel figure
+/// less the axis labels and the legend column), so a column is about one
+/// pixel column of the plot.
+pub const CHART_COLUMNS: usize = 1000;
 
 /// A series of more rates than this is thinned ([`Thinned`]); a shorter
 /// one is drawn with every point.
@@ -298,16 +299,6 @@ impl ChartRows {
         }
     }
 
-    /// Every row of a finished sweep of the case's grid, in grid order
-    /// (tests and small grids).
-    pub fn from_rows(case: &Case, lp: &PreparedLoop, rows: &[SweepRow]) -> ChartRows {
-        let mut c = ChartRows::new(case, lp, &crate::explore::pick::case_sweep_grid(case, lp));
-        for (i, r) in rows.iter().enumerate() {
-            c.push(i, r);
-        }
-        c
-    }
-
     /// Add the row of grid point `i`; the rows of one series must come in
     /// ascending rate (as the sweep delivers them).
     pub fn push(&mut self, i: usize, row: &SweepRow) {
@@ -345,8 +336,10 @@ impl ChartRows {
                 s.missing[k] += 1;
             }
             g.nominal[k].push(column, x, figure_of(&row.eval, *fig));
-            let w = worst.and_then(|f| fig.limited_value(f)).unwrap_or(f64::NAN);
-            g.worst[k].push(column, x, w);
+            if row.robust.is_some() {
+                let w = worst.and_then(|f| fig.limited_value(f)).unwrap_or(f64::NAN);
+                g.worst[k].push(column, x, w);
+            }
         }
         while g.precision.len() < row.precision.len() {
             g.precision.push([Thinned::default(), Thinned::default()]);
@@ -359,22 +352,47 @@ impl ChartRows {
         }
     }
 
-    /// The series gathered, finished (grid order).
-    fn finish(&self) -> Vec<RateSeries> {
-        self.gathering
-            .iter()
-            .flatten()
+    /// The series gathered, finished (grid order), for [`ChartInput`].
+    pub fn finish(self) -> ChartSeries {
+        let series = (self.gathering.into_iter().flatten())
             .map(|g| {
-                let mut s = g.series.clone();
-                s.nominal = g.nominal.iter().cloned().map(Thinned::finish).collect();
-                s.worst = g.worst.iter().cloned().map(Thinned::finish).collect();
-                s.precision = (g.precision.iter())
-                    .map(|[a, b]| [a.clone().finish(), b.clone().finish()])
+                let mut s = g.series;
+                s.nominal = g.nominal.into_iter().map(Thinned::finish).collect();
+                s.worst = g.worst.into_iter().map(Thinned::finish).collect();
+                s.precision = (g.precision.into_iter())
+                    .map(|[a, b]| [a.finish(), b.finish()])
                     .collect();
                 s
             })
             .filter(|s| s.rows > 0)
-            .collect()
+            .collect();
+        ChartSeries {
+            series,
+            formats: self.formats,
+            design_delay: self.design_delay,
+        }
+    }
+}
+
+/// What the charts draw of a sweep ([`ChartRows::finish`]): the series
+/// the charts show, the formats the sweep evaluated (f64 left out) and the
+/// design delay (the largest listed: the one the charts show).
+#[derive(Debug, Clone)]
+pub struct ChartSeries {
+    series: Vec<RateSeries>,
+    formats: Vec<Format>,
+    design_delay: f64,
+}
+
+impl ChartSeries {
+    /// Every row of a finished sweep of the case's grid, in grid order
+    /// (tests and small grids).
+    pub fn from_rows(case: &Case, lp: &PreparedLoop, rows: &[SweepRow]) -> ChartSeries {
+        let mut c = ChartRows::new(case, lp, &crate::explore::pick::case_sweep_grid(case, lp));
+        for (i, r) in rows.iter().enumerate() {
+            c.push(i, r);
+        }
+        c.finish()
     }
 }
 
@@ -384,7 +402,7 @@ impl ChartRows {
 pub struct ChartInput<'a> {
     pub case: &'a Case,
     pub lp: &'a PreparedLoop,
-    pub rows: &'a ChartRows,
+    pub rows: &'a ChartSeries,
     pub pick: Option<&'a PickReport>,
 }
 
@@ -393,7 +411,7 @@ struct Inputs<'a> {
     case: &'a Case,
     lp: &'a PreparedLoop,
     /// The series the charts show, finished.
-    series: Vec<RateSeries>,
+    series: &'a [RateSeries],
     /// Formats evaluated by the sweep (f64 left out).
     formats: &'a [Format],
     /// The largest computation delay listed: the one the charts show.
@@ -436,7 +454,7 @@ pub fn describe(input: &ChartInput) -> Vec<(&'static str, Figure)> {
     let inputs = Inputs {
         case,
         lp,
-        series: rows.finish(),
+        series: &rows.series,
         formats: &rows.formats,
         design_delay: rows.design_delay,
         pick,
