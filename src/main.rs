@@ -14,13 +14,14 @@ use indicatif::{ProgressBar, ProgressStyle};
 use looprate::case::Case;
 use looprate::case::expr::Expr;
 use looprate::explore::pick::{
-    Picked, case_grid, case_methods, case_variants, prepare, sweep_and_pick_streaming,
+    Streamed, case_sweep_grid, case_variants, not_evaluated_rows, prepare, sweep_and_pick_streaming,
 };
 use looprate::explore::search::Silent;
 use looprate::explore::sweep;
 use looprate::explore::variants::VariantSet;
 use looprate::model::discretize::{Method, discretize};
 use looprate::model::transfer::{Controller, Transfer};
+use looprate::output::charts::{ChartInput, ChartRows};
 use looprate::output::{summary, tables, writer};
 use looprate::sampled::continuous::HoldApprox;
 use looprate::sampled::evaluate::{Point, PreparedLoop};
@@ -502,36 +503,26 @@ fn run(cli: Cli) -> Result<ExitCode> {
             let lp = prepare(&c)?;
             check_threads(threads)?;
             let _lock = writer::OutputLock::acquire(&out)?;
-            let (rows, set) = in_pool(threads, || -> Result<_> {
+            let swept = in_pool(threads, || -> Result<_> {
                 let set = case_variants(&c, &lp)?;
-                let rows = run_sweep(&c, &lp, set.as_ref(), variants, quiet, &out)?;
+                let swept = run_sweep(&c, &lp, set.as_ref(), variants, quiet, no_charts, &out)?;
                 if c.outer.is_some() {
                     looprate::output::cascade::finish_sweep(&out, &c)?;
                 }
-                if let Some(set) = &set
-                    && variants
-                {
-                    writer::write_atomic(
-                        &out.join("variants.csv"),
-                        &tables::variants_csv(&rows, set),
-                    )?;
-                }
-                if !no_charts {
-                    // Without a search there is no recommendation: the
-                    // charts that need none (figures against rate, CPU load).
-                    let report = looprate::explore::pick::unsearched(&c, &lp);
-                    looprate::output::charts::write_charts(&out, &c, &lp, &rows, &report)?;
-                }
-                Ok((rows, set))
+                Ok(swept)
             })??;
-            let _ = set;
             let path = out.join("sweep.csv");
-            let feasible = rows.iter().filter(|r| r.assessment.feasible).count();
+            if let Some(reason) = &swept.design_failure {
+                warn(&format!(
+                    "{reason}: no sampling rate can fix that, so no grid point was evaluated (each row of {} says so); revise the controller or the spec first",
+                    path.display()
+                ));
+            }
             if !quiet {
                 warn(&format!(
                     "{} points ({} feasible) written to {}",
-                    rows.len(),
-                    feasible,
+                    swept.rows,
+                    swept.feasible,
                     path.display()
                 ));
             }
@@ -550,10 +541,11 @@ fn run(cli: Cli) -> Result<ExitCode> {
             check_threads(threads)?;
             let _lock = writer::OutputLock::acquire(&out)?;
             let report = in_pool(threads, || -> Result<_> {
-                let bar = progress(case_grid(&c, &lp).len(), quiet);
+                let grid = case_sweep_grid(&c, &lp);
+                let bar = progress(grid.len(), quiet);
                 let mut stream = csv_stream(&c, &lp, &out)?;
-                let Picked {
-                    rows,
+                let mut chart_rows = ChartRows::new(&c, &lp, &grid);
+                let Streamed {
                     variants: _,
                     report,
                 } = sweep_and_pick_streaming(
@@ -561,7 +553,12 @@ fn run(cli: Cli) -> Result<ExitCode> {
                     &lp,
                     &|| bar.inc(1),
                     &Silent,
-                    Some(&mut |i, row, v| stream.push(i, row, v)),
+                    &mut |i, row, v| {
+                        stream.push(i, row, v);
+                        if !no_charts {
+                            chart_rows.push(i, row);
+                        }
+                    },
                 )?;
                 bar.finish_and_clear();
                 // Charts are drawn while the CSV and JSON are written.
@@ -570,9 +567,14 @@ fn run(cli: Cli) -> Result<ExitCode> {
                         if no_charts {
                             Ok(Vec::new())
                         } else {
-                            Ok(looprate::output::charts::write_charts(
-                                &out, &c, &lp, &rows, &report,
-                            )?)
+                            let rows = chart_rows.finish();
+                            let input = ChartInput {
+                                case: &c,
+                                lp: &lp,
+                                rows: &rows,
+                                pick: Some(&report),
+                            };
+                            Ok(looprate::output::charts::write_charts(&out, &input)?)
                         }
                     },
                     || write_pick_outputs(&out, stream, &report),
@@ -624,8 +626,8 @@ fn run(cli: Cli) -> Result<ExitCode> {
 
 /// `DIR/sweep.csv` as a stream the sweep writes row by row.
 fn csv_stream(c: &Case, lp: &PreparedLoop, out: &Path) -> Result<tables::SweepCsvStream> {
-    let points = case_grid(c, lp).len();
-    let series = case_methods(c).len() * c.compute_delays.len();
+    let grid = case_sweep_grid(c, lp);
+    let series = grid.series_count();
     let formats: Vec<String> = sweep::Plan::for_case(c, lp, None)
         .formats()
         .iter()
@@ -634,7 +636,7 @@ fn csv_stream(c: &Case, lp: &PreparedLoop, out: &Path) -> Result<tables::SweepCs
     Ok(tables::SweepCsvStream::create(
         &out.join(looprate::output::cascade::loop_sweep_name(c)),
         series,
-        points / series.max(1),
+        grid.rates.len(),
         &formats,
         c.uncertainty.is_some(),
     )?)
@@ -684,30 +686,88 @@ fn progress(len: usize, quiet: bool) -> ProgressBar {
     b
 }
 
+/// What `sweep` did: rows written, how many feasible, and why nothing
+/// was evaluated when the continuous design already fails the spec.
+struct Swept {
+    rows: usize,
+    feasible: usize,
+    design_failure: Option<String>,
+}
+
+/// `sweep`: every grid point to `DIR/sweep.csv` (and `variants.csv` with
+/// `--variants`) as it is finished, and the charts that need no search,
+/// keeping only what they draw.
 fn run_sweep(
     c: &Case,
     lp: &PreparedLoop,
     variants: Option<&VariantSet>,
     keep_variants: bool,
     quiet: bool,
+    no_charts: bool,
     out: &Path,
-) -> Result<Vec<sweep::SweepRow>> {
-    let points = case_grid(c, lp);
-    let bar = progress(points.len(), quiet);
+) -> Result<Swept> {
+    let grid = case_sweep_grid(c, lp);
+    let bar = progress(grid.len(), quiet);
     let plan = sweep::Plan {
         keep_variants,
         ..sweep::Plan::for_case(c, lp, variants)
     };
     let mut stream = csv_stream(c, lp, out)?;
-    let mut rows = sweep::GridOrder::default();
-    sweep::run_streaming(&plan, &points, &|| bar.inc(1), &mut |i, mut row| {
-        stream.push(i, &row, variants);
-        if !keep_variants {
-            row.slim();
+    let mut variants_stream = match variants.filter(|_| keep_variants) {
+        Some(set) => Some((
+            tables::SweepCsvStream::create_variants(
+                &out.join("variants.csv"),
+                grid.series_count(),
+                grid.rates.len(),
+                set,
+            )?,
+            set,
+        )),
+        None => None,
+    };
+    let mut chart_rows = ChartRows::new(c, lp, &grid);
+    let (mut rows, mut feasible) = (0, 0);
+    let mut take = |i: usize, row: &sweep::SweepRow| {
+        stream.push(i, row, variants);
+        if let Some((s, set)) = variants_stream.as_mut() {
+            s.push_variants(i, row, set);
         }
-        rows.push(i, row);
-    });
+        if !no_charts {
+            chart_rows.push(i, row);
+        }
+        rows += 1;
+        feasible += usize::from(row.assessment.feasible);
+    };
+    let design_failure = looprate::explore::pick::design_failure(c, lp).map(|d| d.0);
+    if design_failure.is_some() {
+        // No rate can pass: every row says why, and nothing is evaluated.
+        not_evaluated_rows(c, lp, &grid, &mut |i, row| {
+            bar.inc(1);
+            take(i, row)
+        });
+    } else {
+        sweep::run_streaming(&plan, &grid, &|| bar.inc(1), &mut |i, row| take(i, &row));
+    }
     bar.finish_and_clear();
     stream.finish()?;
-    Ok(rows.finish())
+    if let Some((s, _)) = variants_stream {
+        s.finish()?;
+    }
+    if !no_charts {
+        // Without a search there is no recommendation: the charts that
+        // need none (figures against rate, CPU load, precision).
+        let rows = chart_rows.finish();
+        let input = ChartInput {
+            case: c,
+            lp,
+            rows: &rows,
+            pick: None,
+        };
+        looprate::output::charts::write_charts(out, &input)?;
+    }
+    Ok(Swept {
+        rows,
+        feasible,
+        design_failure,
+    })
 }

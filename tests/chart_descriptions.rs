@@ -11,7 +11,7 @@ use looprate::case::Case;
 use looprate::engineering::hz;
 use looprate::explore::pick::{Picked, prepare, sweep_and_pick};
 use looprate::explore::search::Silent;
-use looprate::output::charts::{self, RATE_PANELS, describe};
+use looprate::output::charts::{self, ChartInput, ChartSeries, RATE_PANELS, describe};
 use looprate::output::plot::{Draw, Figure, MarkStyle, Side};
 use looprate::sampled::figure::Figure as LoopFigure;
 
@@ -66,7 +66,13 @@ fn described(text: &str) -> Described {
     let case = Case::parse(text, Path::new("invented.toml")).unwrap();
     let lp = prepare(&case).unwrap();
     let picked = sweep_and_pick(&case, &lp, &|| {}, &Silent).unwrap();
-    let charts = describe(&case, &lp, &picked.rows, &picked.report);
+    let rows = ChartSeries::from_rows(&case, &lp, &picked.rows);
+    let charts = describe(&ChartInput {
+        case: &case,
+        lp: &lp,
+        rows: &rows,
+        pick: Some(&picked.report),
+    });
     Described {
         case,
         picked,
@@ -366,9 +372,25 @@ fn cpu_and_loop_charts_carry_the_budget_and_the_margins() {
 #[test]
 fn an_upper_limited_figure_is_clipped_and_its_clipped_points_marked() {
     // A tight Ms limit and a wide rate range: near the slow end Ms runs
-    // far above three times its limit.
-    let d = described(&CASE.replace("max_sensitivity_peak = 2.2", "max_sensitivity_peak = 1.3"));
-    let fig = d.chart(charts::FIGURES_VS_RATE);
+    // far above three times its limit. The continuous design fails that
+    // limit too, so `pick` sweeps nothing: the chart is the sweep's (no
+    // search, no pick), drawn from every evaluated row.
+    let text = CASE.replace("max_sensitivity_peak = 2.2", "max_sensitivity_peak = 1.3");
+    let case = Case::parse(&text, Path::new("invented.toml")).unwrap();
+    let lp = prepare(&case).unwrap();
+    let grid = looprate::explore::pick::case_grid(&case, &lp);
+    let plan = looprate::explore::sweep::Plan::for_case(&case, &lp, None);
+    let rows = looprate::explore::sweep::run(&plan, &grid, &|| {});
+    let series = ChartSeries::from_rows(&case, &lp, &rows);
+    let charts = describe(&ChartInput {
+        case: &case,
+        lp: &lp,
+        rows: &series,
+        pick: None,
+    });
+    let fig = &(charts.iter().find(|c| c.0 == charts::FIGURES_VS_RATE))
+        .expect("a sweep draws figures-vs-rate")
+        .1;
     let ms = &fig.panels[4];
     let top = 3.0 * 1.3;
     let highest = (ms.series.iter().flat_map(|s| &s.points))
@@ -422,5 +444,72 @@ fn a_controller_given_in_z_is_drawn_at_its_one_rate() {
     assert_eq!(series.len(), 2, "one series per delay");
     for s in series {
         assert_eq!(s.points, [(5.0, s.points[0].1)]);
+    }
+}
+
+/// A long series is thinned to the chart's width: at most three points
+/// (lowest, highest, one gap) per column of the rate axis, each curve's
+/// lowest and highest value kept, the captions' counts over every row.
+/// A sweep's chart, drawn without a pick.
+#[test]
+fn a_long_series_is_thinned_to_the_chart_width() {
+    let points = 2 * charts::CHART_COLUMNS + 500;
+    let text = CASE
+        .replace("points = 30", &format!("points = {points}"))
+        .replace(
+            "use = [\"tustin\", \"step-invariant\"]",
+            "use = [\"tustin\"]",
+        );
+    let case = Case::parse(&text, Path::new("invented.toml")).unwrap();
+    let lp = prepare(&case).unwrap();
+    let grid = looprate::explore::pick::case_grid(&case, &lp);
+    let plan = looprate::explore::sweep::Plan::for_case(&case, &lp, None);
+    let rows = looprate::explore::sweep::run(&plan, &grid, &|| {});
+    let series = ChartSeries::from_rows(&case, &lp, &rows);
+    let charts = describe(&ChartInput {
+        case: &case,
+        lp: &lp,
+        rows: &series,
+        pick: None,
+    });
+    let fig = &(charts.iter().find(|c| c.0 == charts::FIGURES_VS_RATE))
+        .expect("a sweep draws figures-vs-rate")
+        .1;
+    // No pick: no recommended rate and no f* marks.
+    assert!(fig.panels.iter().all(|p| p.vmarks.is_empty()));
+    for (panel, def) in fig.panels.iter().zip(RATE_PANELS) {
+        let curve = &panel.series[0];
+        assert!(curve.points.len() <= 3 * charts::CHART_COLUMNS);
+        assert!(curve.points.len() < rows.len());
+        let values: Vec<f64> = (rows.iter())
+            .map(|r| {
+                (r.eval.figures.as_ref())
+                    .and_then(|f| def.limited_value(f))
+                    .unwrap_or(f64::NAN)
+            })
+            .filter(|v| v.is_finite())
+            .collect();
+        let drawn: Vec<f64> = curve.points.iter().map(|p| p.1).collect();
+        for want in [
+            values.iter().copied().fold(f64::INFINITY, f64::min),
+            values.iter().copied().fold(f64::NEG_INFINITY, f64::max),
+        ] {
+            assert!(
+                drawn.contains(&want),
+                "{}: {want} not drawn",
+                def.axis_title()
+            );
+        }
+        // The points stay in rate order.
+        assert!(curve.points.windows(2).all(|w| w[0].0 < w[1].0));
+        let unstable = rows.iter().filter(|r| r.eval.figures.is_none()).count();
+        if unstable > 0 {
+            let total = rows.len();
+            assert!(
+                panel.caption.contains(&format!("({unstable}/{total})")),
+                "{}",
+                panel.caption
+            );
+        }
     }
 }

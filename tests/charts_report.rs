@@ -7,8 +7,7 @@ use looprate::case::Case;
 use looprate::engineering::{hz, seconds, sig4};
 use looprate::explore::pick::{PickReport, Picked, prepare, sweep_and_pick};
 use looprate::explore::search::Silent;
-use looprate::explore::sweep::SweepRow;
-use looprate::output::charts::write_charts;
+use looprate::output::charts::{ChartInput, ChartSeries, write_charts};
 use looprate::output::report::write_report;
 use looprate::sampled::evaluate::PreparedLoop;
 
@@ -63,7 +62,7 @@ fn out_dir(name: &str) -> PathBuf {
 struct Run {
     case: Case,
     lp: PreparedLoop,
-    rows: Vec<SweepRow>,
+    chart_rows: ChartSeries,
     report: PickReport,
 }
 
@@ -74,10 +73,22 @@ fn run(text: &str, dir: &Path) -> Run {
     let lp = prepare(&case).unwrap();
     let Picked { rows, report, .. } = sweep_and_pick(&case, &lp, &|| {}, &Silent).unwrap();
     Run {
+        chart_rows: ChartSeries::from_rows(&case, &lp, &rows),
         case,
         lp,
-        rows,
         report,
+    }
+}
+
+impl Run {
+    /// The charts' input: what the sweep gathered and the pick.
+    fn input(&self) -> ChartInput<'_> {
+        ChartInput {
+            case: &self.case,
+            lp: &self.lp,
+            rows: &self.chart_rows,
+            pick: Some(&self.report),
+        }
     }
 }
 
@@ -106,7 +117,7 @@ fn charts_of_a_case_with_an_answer() {
     let dir = out_dir("answer");
     let r = run(CASE, &dir);
     assert!(r.report.recommended.is_some(), "{:#?}", r.report);
-    let charts = write_charts(&dir, &r.case, &r.lp, &r.rows, &r.report).unwrap();
+    let charts = write_charts(&dir, &r.input()).unwrap();
     let names: Vec<String> = charts
         .iter()
         .map(|c| c.path.file_name().unwrap().to_string_lossy().into_owned())
@@ -222,7 +233,7 @@ fn no_answer_draws_what_still_makes_sense() {
         .replace("points = 30", "points = 6");
     let r = run(&text, &dir);
     assert!(r.report.recommended.is_none());
-    let charts = write_charts(&dir, &r.case, &r.lp, &r.rows, &r.report).unwrap();
+    let charts = write_charts(&dir, &r.input()).unwrap();
     let names: Vec<String> = charts
         .iter()
         .map(|c| c.path.file_name().unwrap().to_string_lossy().into_owned())
@@ -251,7 +262,7 @@ fn empty_window_is_stated_with_both_numbers() {
     let r = run(&CASE.replace("cpu_hz = 16e6", "cpu_hz = 0.5e6"), &dir);
     let w = r.report.window.clone().unwrap();
     assert!(w.empty);
-    let charts = write_charts(&dir, &r.case, &r.lp, &r.rows, &r.report).unwrap();
+    let charts = write_charts(&dir, &r.input()).unwrap();
     assert_eq!(charts.len(), 6);
     let md =
         std::fs::read_to_string(write_report(&dir, &r.case, &r.report, &charts).unwrap()).unwrap();
@@ -275,7 +286,7 @@ fn variants_and_precision_reach_every_output() {
             "[params]\nk = { nominal = 20, min = 16, max = 24 }\n[uncertainty]\nmode = \"corners\"\n[arithmetic]\nformats = [\"q11\", \"f32\"]\nstructure = \"sos\"\n[plant]",
         );
     let r = run(&text, &dir);
-    let charts = write_charts(&dir, &r.case, &r.lp, &r.rows, &r.report).unwrap();
+    let charts = write_charts(&dir, &r.input()).unwrap();
     let png = dir.join("precision.png");
     assert!(charts.iter().any(|c| c.path == png), "{charts:?}");
     check_png(&png);

@@ -563,3 +563,72 @@ fn a_loop_of_pure_gains_is_evaluated() {
     ]);
     assert!(r.code == 0 || r.code == 1, "{}", r.stderr);
 }
+
+/// A very low loop gain (the belt loop with its controller 500 times
+/// weaker: crossover near 0.03 rad/s, settling in minutes) on 17 rates:
+/// once a 16 s run walking each response toward a period cap. `pick`
+/// gives its answer (every rate passes, so f_star is the lowest rate).
+#[test]
+fn a_very_low_loop_gain_gets_its_answer() {
+    let dir = scratch("low-gain");
+    let text = case_text(PLANT, "1", "1e-4 * (s + 12) / s", "");
+    let path = write_case(&dir, "c", &text);
+    let out = dir.join("out");
+    let r = run(&[
+        "pick",
+        &path,
+        "--out",
+        &out.to_string_lossy(),
+        "--no-charts",
+        "--json",
+        "--quiet",
+    ]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    let v: serde_json::Value = serde_json::from_str(&r.stdout).unwrap();
+    let rec = &v["recommended"];
+    assert!(rec["rate_hz"].as_f64().is_some(), "{}", r.stdout);
+    // Its settling time is the loop's own: minutes, not a horizon cap.
+    let settle = rec["figures"]["settling_time_s"].as_f64().unwrap();
+    assert!(settle > 10.0 && settle.is_finite(), "settling {settle} s");
+}
+
+/// When the continuous design already fails the spec no rate can pass
+/// (loop model): `pick` says so first and sweeps nothing, `sweep` still
+/// writes a row for every grid point, each giving that reason.
+#[test]
+fn a_failing_design_is_said_first_and_every_point_keeps_a_row() {
+    let dir = scratch("design-fails");
+    let text = case_text(
+        PLANT,
+        "1",
+        "1e-4 * (s + 12) / s",
+        "max_settling_s = 1\n[timing]\ncompute_delay = [0, 1]\n",
+    );
+    let path = write_case(&dir, "c", &text);
+    let rows_expected = 17 * 2 * 2;
+    for cmd in ["pick", "sweep"] {
+        let out = dir.join(cmd);
+        let r = run(&[cmd, &path, "--out", &out.to_string_lossy(), "--quiet"]);
+        let said = format!("{}{}", r.stdout, r.stderr);
+        assert!(
+            said.contains("the continuous design already fails the spec"),
+            "{cmd}: {said}"
+        );
+        assert_eq!(r.code, if cmd == "pick" { 1 } else { 0 }, "{cmd}: {said}");
+        let csv = std::fs::read_to_string(out.join("sweep.csv")).unwrap();
+        let mut lines = csv.lines();
+        let columns = lines.next().unwrap().split(',').count();
+        let rows: Vec<&str> = lines.collect();
+        assert_eq!(rows.len(), rows_expected, "{cmd}");
+        for row in rows {
+            assert!(
+                row.contains(
+                    "not evaluated: the continuous design already fails the spec (settling time fails)"
+                ),
+                "{cmd}: {row}"
+            );
+            assert!(row.contains(",false,settling_time_s,"), "{cmd}: {row}");
+            assert_eq!(row.split(',').count(), columns, "{cmd}: {row}");
+        }
+    }
+}

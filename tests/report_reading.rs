@@ -11,7 +11,7 @@ use looprate::case::Case;
 use looprate::explore::budget;
 use looprate::explore::pick::{PickReport, prepare, sweep_and_pick};
 use looprate::explore::search::Silent;
-use looprate::output::charts::write_charts;
+use looprate::output::charts::{ChartInput, ChartSeries, write_charts};
 use looprate::output::report::{CAUTION_LINE, write_report};
 use looprate::spec::Cycles;
 
@@ -52,7 +52,14 @@ fn render(name: &str, with_charts: bool) -> (Case, PickReport, String, String, P
     let picked = sweep_and_pick(&c, &lp, &|| {}, &Silent).unwrap();
     let dir = out_dir(name.trim_end_matches(".toml"));
     let charts = if with_charts {
-        write_charts(&dir, &c, &lp, &picked.rows, &picked.report).unwrap()
+        let rows = ChartSeries::from_rows(&c, &lp, &picked.rows);
+        let input = ChartInput {
+            case: &c,
+            lp: &lp,
+            rows: &rows,
+            pick: Some(&picked.report),
+        };
+        write_charts(&dir, &input).unwrap()
     } else {
         Vec::new()
     };

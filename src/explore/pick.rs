@@ -16,10 +16,10 @@ use crate::error::Error;
 use crate::explore::budget::{self, RateWindow, WindowBound};
 use crate::explore::precision;
 use crate::explore::search::{
-    Ceiling, SearchObserver, SlowestRate, fastest_rate_by, method_label, slowest_rate,
-    slowest_rate_by,
+    Ceiling, CoarseSeries, FailingRuns, SearchObserver, SlowestRate, Verdict, fastest_rate_by,
+    method_label, slowest_rate, slowest_rate_by,
 };
-use crate::explore::sweep::{self, Plan, SweepRow};
+use crate::explore::sweep::{self, Grid, Plan, SweepRow};
 use crate::explore::variants::{NamedValue, VariantSet};
 use crate::model::discretize::Method;
 use crate::model::rounding::Damage;
@@ -72,50 +72,178 @@ pub fn case_variants(case: &Case, lp: &PreparedLoop) -> Result<Option<VariantSet
         .transpose()
 }
 
-/// The whole job on a case: its variants, the sweep of its grid (with
-/// everything the case asks for) and the pick. `on_done` is called once
-/// per swept point.
+/// The whole job on a case, keeping every row: its variants, the sweep of
+/// its grid (with everything the case asks for) and the pick. `on_done`
+/// is called once per swept point. For tests and small grids: the rows
+/// are held in memory (the command line streams them instead, see
+/// [`sweep_and_pick_streaming`]).
 pub fn sweep_and_pick(
     case: &Case,
     lp: &PreparedLoop,
     on_done: &(dyn Fn() + Sync),
     observer: &dyn SearchObserver,
 ) -> Result<Picked, Error> {
-    sweep_and_pick_streaming(case, lp, on_done, observer, None)
+    let mut rows: Vec<(usize, SweepRow)> = Vec::new();
+    let Streamed { variants, report } =
+        sweep_and_pick_streaming(case, lp, on_done, observer, &mut |i, row, _| {
+            rows.push((i, row.clone()))
+        })?;
+    rows.sort_by_key(|r| r.0);
+    Ok(Picked {
+        rows: rows.into_iter().map(|r| r.1).collect(),
+        variants,
+        report,
+    })
 }
 
 /// Takes each finished row: its grid index, the row, the plant variants.
 pub type RowSink<'a> = dyn FnMut(usize, &SweepRow, Option<&VariantSet>) + 'a;
 
-/// [`sweep_and_pick`], handing each row to `on_row(grid_index, row,
-/// variants)` as the sweep finishes it (to stream `sweep.csv`; rows of
-/// one (method, delay) series come in grid order) and then keeping it
-/// slimmed (`SweepRow::slim`). With `on_row` None the rows are kept whole.
+/// A finished streamed job: the plant variants (with `[uncertainty]`) and
+/// the answer; the rows went to the sink.
+pub struct Streamed {
+    pub variants: Option<VariantSet>,
+    pub report: PickReport,
+}
+
+/// The whole job on a case, handing each row to `on_row(grid_index, row,
+/// variants)` as the sweep finishes it (to stream `sweep.csv` and gather
+/// what the charts draw; rows of one (method, hold, delay) series come in
+/// ascending rate) and keeping only what the search needs
+/// ([`SweepSummary`]): memory does not grow with the grid.
+///
+/// When the continuous design already fails the spec, nothing is swept:
+/// every grid point is handed on as a row that says so
+/// ([`not_evaluated_rows`]) and the report carries the design's failures.
 pub fn sweep_and_pick_streaming(
     case: &Case,
     lp: &PreparedLoop,
     on_done: &(dyn Fn() + Sync),
     observer: &dyn SearchObserver,
-    mut on_row: Option<&mut RowSink<'_>>,
-) -> Result<Picked, Error> {
+    on_row: &mut RowSink<'_>,
+) -> Result<Streamed, Error> {
     let variants = case_variants(case, lp)?;
+    let grid = case_sweep_grid(case, lp);
+    if let Some(report) = failed_design(case, lp) {
+        not_evaluated_rows(case, lp, &grid, &mut |i, row| {
+            on_done();
+            on_row(i, row, variants.as_ref())
+        });
+        return Ok(Streamed { variants, report });
+    }
     let plan = Plan::for_case(case, lp, variants.as_ref());
-    let points = case_grid(case, lp);
-    let mut rows = sweep::GridOrder::default();
-    sweep::run_streaming(&plan, &points, on_done, &mut |i, mut row| {
-        if let Some(f) = on_row.as_mut() {
-            f(i, &row, variants.as_ref());
-            row.slim();
-        }
-        rows.push(i, row);
+    let mut summary = SweepSummary::new(&grid);
+    sweep::run_streaming(&plan, &grid, on_done, &mut |i, row| {
+        on_row(i, &row, variants.as_ref());
+        summary.push(i, &row);
     });
-    let rows = rows.finish();
-    let report = pick(case, lp, variants.as_ref(), &rows, observer);
-    Ok(Picked {
-        rows,
-        variants,
-        report,
-    })
+    let report = pick_from(case, lp, variants.as_ref(), &summary, observer);
+    Ok(Streamed { variants, report })
+}
+
+/// Why no grid point needs evaluating, when the continuous design already
+/// fails the spec (no sampling rate can fix that: loop model): the
+/// reason a row gives and the verdict it carries (the design's own, with
+/// its limiting figure). None when the design passes or there is none (a
+/// controller given in z).
+pub fn design_failure(case: &Case, lp: &PreparedLoop) -> Option<(String, Assessment)> {
+    let design = lp.design.as_ref()?;
+    failed_design(case, lp)?;
+    let a = assess(design, &case.spec);
+    let what = match (&design.figures, a.limiting) {
+        (Some(_), Some(l)) => format!("{} fails", l.label()),
+        (Some(_), None) => "a limit fails".to_string(),
+        (None, _) => format!("it is {}", design.status.label()),
+    };
+    Some((
+        format!("the continuous design already fails the spec ({what})"),
+        Assessment {
+            feasible: false,
+            checks: Vec::new(),
+            ..a
+        },
+    ))
+}
+
+/// Every grid point as a row that was not evaluated because the
+/// continuous design already fails the spec, handed to `sink` in grid
+/// order (nothing when the design passes).
+pub fn not_evaluated_rows(
+    case: &Case,
+    lp: &PreparedLoop,
+    grid: &Grid,
+    sink: &mut dyn FnMut(usize, &SweepRow),
+) {
+    let Some((reason, a)) = design_failure(case, lp) else {
+        return;
+    };
+    for i in 0..grid.len() {
+        sink(
+            i,
+            &SweepRow::not_evaluated(grid.point(i), &reason, a.clone()),
+        );
+    }
+}
+
+/// What the pick reads from a sweep, gathered row by row while the sweep
+/// streams, so it does not grow with the grid: per (method, hold, delay)
+/// series the coarse verdicts the `f_star` search needs (nominal and over
+/// the plant variants, [`CoarseSeries`]) and per number format the runs of
+/// failing rates ([`FailingRuns`]); the grid's rates once.
+#[derive(Debug, Clone)]
+pub struct SweepSummary {
+    grid: Grid,
+    nominal: Vec<CoarseSeries>,
+    robust: Vec<CoarseSeries>,
+    precision: Vec<Vec<(Format, FailingRuns)>>,
+}
+
+impl SweepSummary {
+    /// An empty summary of a sweep of `grid`.
+    pub fn new(grid: &Grid) -> SweepSummary {
+        let n = grid.series_count();
+        SweepSummary {
+            grid: grid.clone(),
+            nominal: vec![CoarseSeries::default(); n],
+            robust: vec![CoarseSeries::default(); n],
+            precision: vec![Vec::new(); n],
+        }
+    }
+
+    /// Add the row of grid point `i`; the rows of one series must come in
+    /// ascending rate (as the sweep delivers them).
+    pub fn push(&mut self, i: usize, row: &SweepRow) {
+        let n = self.grid.rates.len().max(1);
+        let (s, k) = (i / n, i % n);
+        let Some(nominal) = self.nominal.get_mut(s) else {
+            return;
+        };
+        let rate = row.point.rate_hz;
+        nominal.push(rate, &row.assessment, 0);
+        if let Some(rb) = &row.robust {
+            self.robust[s].push(rate, &rb.assessment, rb.worst);
+        }
+        let formats = &mut self.precision[s];
+        for p in &row.precision {
+            match formats.iter_mut().find(|f| f.0 == p.format) {
+                Some(f) => f.1.push(k, &p.assessment),
+                None => {
+                    let mut runs = FailingRuns::default();
+                    runs.push(k, &p.assessment);
+                    formats.push((p.format, runs));
+                }
+            }
+        }
+    }
+
+    /// The series index of (method, hold, delay), if the grid has it.
+    fn series_of(&self, method: Option<Method>, hold: HoldKind, delay: f64) -> Option<usize> {
+        let n = self.grid.rates.len();
+        (0..self.grid.series_count()).find(|&s| {
+            let p = self.grid.point(s * n);
+            p.method == method && p.hold == hold && p.delay == delay
+        })
+    }
 }
 
 /// The methods of the sweep: the case's list, or "given in z".
@@ -127,19 +255,26 @@ pub fn case_methods(case: &Case) -> Vec<Option<Method>> {
     }
 }
 
-/// The grid of points the case asks for: the case's rates, or only the
-/// controller's own rate when it is given in z.
-pub fn case_grid(case: &Case, lp: &PreparedLoop) -> Vec<Point> {
+/// The grid the case asks for: the case's rates, or only the
+/// controller's own rate when it is given in z; every method, hold kind
+/// and computation delay.
+pub fn case_sweep_grid(case: &Case, lp: &PreparedLoop) -> Grid {
     let rates = match &lp.controller {
         Controller::Discrete(d) => vec![1.0 / d.period_s],
         Controller::Continuous(_) => case.rates.grid(),
     };
-    sweep::grid_holds(
-        &rates,
-        &case_methods(case),
-        &case.holds,
-        &case.compute_delays,
-    )
+    Grid {
+        rates,
+        methods: case_methods(case),
+        holds: case.holds.clone(),
+        delays: case.compute_delays.clone(),
+    }
+}
+
+/// Every point of [`case_sweep_grid`], in grid order (for tests and
+/// short lists; a case's sweep computes each point from its index).
+pub fn case_grid(case: &Case, lp: &PreparedLoop) -> Vec<Point> {
+    case_sweep_grid(case, lp).points()
 }
 
 /// The recommended design.
@@ -349,12 +484,12 @@ impl PickReport {
     }
 }
 
-/// A report with no search made (for `sweep`): the design's figures and
-/// nothing else, so outputs that need no answer can still be drawn.
-pub fn unsearched(case: &Case, lp: &PreparedLoop) -> PickReport {
+/// The report before any search: the case's title and notes, the
+/// headroom and the design delay.
+fn base_report(case: &Case) -> PickReport {
     PickReport {
         title: case.title.clone(),
-        design: lp.design.as_ref().and_then(|d| d.figures.clone()),
+        design: None,
         design_failures: Vec::new(),
         methods: Vec::new(),
         recommended: None,
@@ -366,33 +501,21 @@ pub fn unsearched(case: &Case, lp: &PreparedLoop) -> PickReport {
         design_delay: case.compute_delays.iter().copied().fold(0.0, f64::max),
         robust: None,
         precision: None,
-        notes: vec!["sweep only: no search was made".into()],
+        notes: case.notes.clone(),
     }
 }
 
-/// Search every (method, delay) series of a finished sweep and make the
-/// recommendation: on the robust answer when `variants` is given (the
-/// sweep must have been run with the same variants), and with the
-/// precision ceilings when the case has `[arithmetic]`.
-pub fn pick(
-    case: &Case,
-    lp: &PreparedLoop,
-    variants: Option<&VariantSet>,
-    rows: &[SweepRow],
-    observer: &dyn SearchObserver,
-) -> PickReport {
+/// The report's start: the design's figures and the limits it fails, and
+/// whether it fails (then no rate can pass and nothing is searched).
+fn design_report(case: &Case, lp: &PreparedLoop) -> (PickReport, bool) {
     let spec = &case.spec;
-    let mut report = PickReport {
-        design: None,
-        notes: case.notes.clone(),
-        ..unsearched(case, lp)
-    };
-    let design_delay = report.design_delay;
+    let mut report = base_report(case);
     if case.uncertainty.is_none() && case.params.iter().any(|p| p.min < p.max) {
         report.notes.push(
             "parameter ranges are given but no [uncertainty] mode: every figure is for the nominal parameters".into(),
         );
     }
+    let mut failed = false;
     if let Some(design) = &lp.design {
         match &design.figures {
             Some(f) => {
@@ -411,14 +534,69 @@ pub fn pick(
             report.notes.push(
                 "the continuous design already fails the spec: no sampling rate can fix that; revise the controller or the spec first".into(),
             );
-            return report;
+            failed = true;
         }
     }
+    (report, failed)
+}
 
-    let series = series_of(rows);
-    report.methods = series
-        .par_iter()
-        .map(|s| slowest_rate(lp, spec, s, observer))
+/// The report of a case whose continuous design already fails the spec
+/// (what `pick` answers without sweeping); None when the design passes.
+pub fn failed_design(case: &Case, lp: &PreparedLoop) -> Option<PickReport> {
+    match design_report(case, lp) {
+        (report, true) => Some(report),
+        _ => None,
+    }
+}
+
+/// [`pick_from`] on the rows of a finished sweep of the case's grid
+/// (`rows` in grid order, as `sweep::run` over [`case_grid`] returns them).
+pub fn pick(
+    case: &Case,
+    lp: &PreparedLoop,
+    variants: Option<&VariantSet>,
+    rows: &[SweepRow],
+    observer: &dyn SearchObserver,
+) -> PickReport {
+    let mut summary = SweepSummary::new(&case_sweep_grid(case, lp));
+    for (i, r) in rows.iter().enumerate() {
+        summary.push(i, r);
+    }
+    pick_from(case, lp, variants, &summary, observer)
+}
+
+/// Search every (method, hold, delay) series of a finished sweep and make
+/// the recommendation: on the robust answer when `variants` is given (the
+/// sweep must have been run with the same variants), and with the
+/// precision ceilings when the case has `[arithmetic]`.
+pub fn pick_from(
+    case: &Case,
+    lp: &PreparedLoop,
+    variants: Option<&VariantSet>,
+    summary: &SweepSummary,
+    observer: &dyn SearchObserver,
+) -> PickReport {
+    let spec = &case.spec;
+    let (mut report, failed) = design_report(case, lp);
+    if failed {
+        return report;
+    }
+    let design_delay = report.design_delay;
+    let n = summary.grid.rates.len();
+    report.methods = (0..summary.grid.series_count())
+        .into_par_iter()
+        .map(|s| {
+            let p = summary.grid.point(s * n);
+            slowest_rate(
+                lp,
+                spec,
+                p.method,
+                p.hold,
+                p.delay,
+                &summary.nominal[s],
+                observer,
+            )
+        })
         .collect();
     if let Controller::Discrete(d) = &lp.controller {
         // One rate only: "at or below" the range floor does not apply.
@@ -446,7 +624,7 @@ pub fn pick(
             case,
             lp,
             v,
-            &series,
+            summary,
             &report.methods,
             observer,
         ));
@@ -617,7 +795,7 @@ pub fn pick(
             rate_hz: rate,
             crossover_hz: crossover,
         };
-        report.precision = Some(precision_report(case, lp, rows, &answers, &at, observer));
+        report.precision = Some(precision_report(case, lp, summary, &answers, &at, observer));
     }
     // The window's top: the lower of the CPU ceiling and the first
     // format's precision ceiling (one above the swept range bounds nothing).
@@ -702,52 +880,26 @@ pub fn pick(
     report
 }
 
-/// Rows grouped by (method, hold, delay) in grid order, each sorted by rate.
-fn series_of(rows: &[SweepRow]) -> Vec<Vec<&SweepRow>> {
-    let mut series: Vec<Vec<&SweepRow>> = Vec::new();
-    for r in rows {
-        match series.last_mut() {
-            Some(s)
-                if s[0].point.method == r.point.method
-                    && s[0].point.hold == r.point.hold
-                    && s[0].point.delay == r.point.delay =>
-            {
-                s.push(r)
-            }
-            _ => series.push(vec![r]),
-        }
-    }
-    for s in series.iter_mut() {
-        s.sort_by(|a, b| a.point.rate_hz.total_cmp(&b.point.rate_hz));
-    }
-    series
-}
-
 /// The robust search for every series: the judge evaluates every variant
 /// with the shared controller and keeps the worst.
 fn robust_report(
     case: &Case,
     lp: &PreparedLoop,
     variants: &VariantSet,
-    series: &[Vec<&SweepRow>],
+    summary: &SweepSummary,
     nominal: &[SlowestRate],
     observer: &dyn SearchObserver,
 ) -> RobustReport {
     let spec = &case.spec;
-    let methods = series
+    let n = summary.grid.rates.len();
+    let methods = summary
+        .robust
         .par_iter()
+        .enumerate()
         .zip(nominal.par_iter())
-        .map(|(s, nominal)| {
-            let (method, delay, hold) = (s[0].point.method, s[0].point.delay, s[0].point.hold);
-            let grid: Vec<(f64, &Assessment, usize)> = s
-                .iter()
-                .filter_map(|r| {
-                    r.robust
-                        .as_ref()
-                        .map(|v| (r.point.rate_hz, &v.assessment, v.worst))
-                })
-                .collect();
-            let coarse: Vec<(f64, &Assessment)> = grid.iter().map(|g| (g.0, g.1)).collect();
+        .map(|((s, coarse), nominal)| {
+            let p0 = summary.grid.point(s * n);
+            let (method, delay, hold) = (p0.method, p0.delay, p0.hold);
             // Every judged rate with its verdict and worst variant.
             let seen: RefCell<Vec<(f64, Assessment, usize)>> = RefCell::new(Vec::new());
             let judge = |rate: f64| -> Assessment {
@@ -765,7 +917,7 @@ fn robust_report(
                     .push((rate, v.assessment.clone(), v.worst));
                 v.assessment
             };
-            let mut rate = slowest_rate_by(method, hold, delay, &coarse, &judge);
+            let mut rate = slowest_rate_by(method, hold, delay, coarse, &judge);
             // Both answers are brackets of width 1e-4; where the nominal
             // bracket ends above the robust one, its passing end also passes
             // every variant (it lies above the robust answer), so report it:
@@ -776,9 +928,17 @@ fn robust_report(
             {
                 rate.slowest_rate_hz = Some(n);
             }
-            // The worst variant: where the answer is decided.
-            let mut all: Vec<(f64, Assessment, usize)> =
-                grid.iter().map(|g| (g.0, g.1.clone(), g.2)).collect();
+            // The worst variant: where the answer is decided. Of the swept
+            // rates only three can be: the lowest (every rate passes), the
+            // fastest failing one (below f_star, every swept rate above it
+            // passes) and the highest (no answer); the judged rates follow.
+            let verdict = |v: &Verdict| (v.rate_hz, v.assessment.clone(), v.worst);
+            let swept = match rate.slowest_rate_hz {
+                _ if rate.at_range_floor => coarse.first(),
+                Some(_) => coarse.last_infeasible(),
+                None => coarse.last(),
+            };
+            let mut all: Vec<(f64, Assessment, usize)> = swept.map(verdict).into_iter().collect();
             all.extend(seen.into_inner());
             let decisive = match rate.slowest_rate_hz {
                 _ if rate.at_range_floor => all
@@ -848,7 +1008,7 @@ struct Chosen {
 fn precision_report(
     case: &Case,
     lp: &PreparedLoop,
-    rows: &[SweepRow],
+    summary: &SweepSummary,
     answers: &[SlowestRate],
     chosen: &Chosen,
     observer: &dyn SearchObserver,
@@ -894,12 +1054,11 @@ fn precision_report(
     let ceilings: Vec<FormatCeiling> = jobs
         .par_iter()
         .map(|&(m, from, format)| {
-            let series: Vec<&SweepRow> = rows
-                .iter()
-                .filter(|r| {
-                    r.point.method == m && r.point.hold == hold && r.point.delay == design_delay
-                })
-                .collect();
+            let rates = &summary.grid.rates;
+            let swept = summary
+                .series_of(m, hold, design_delay)
+                .and_then(|s| summary.precision[s].iter().find(|f| f.0 == format))
+                .map(|f| &f.1);
             let ceiling = match evaluated.iter().position(|f| *f == format) {
                 None => {
                     // f64 is the reference: its loop is the nominal loop,
@@ -912,7 +1071,7 @@ fn precision_report(
                         evaluations: 0,
                     }
                 }
-                Some(k) => {
+                Some(_) => {
                     let judge = |rate: f64| -> Assessment {
                         let p = Point {
                             rate_hz: rate,
@@ -935,19 +1094,19 @@ fn precision_report(
                     };
                     // The sweep's verdicts; a sweep made without this
                     // format is judged here instead.
-                    let verdicts: Vec<(f64, Assessment)> = series
-                        .iter()
-                        .map(|r| {
-                            let a = match r.precision.get(k) {
-                                Some(v) if v.format == format => v.assessment.clone(),
-                                _ => judge(r.point.rate_hz),
-                            };
-                            (r.point.rate_hz, a)
-                        })
-                        .collect();
-                    let coarse: Vec<(f64, &Assessment)> =
-                        verdicts.iter().map(|(f, a)| (*f, a)).collect();
-                    fastest_rate_by(from, &coarse, &judge)
+                    let judged;
+                    let failing = match swept {
+                        Some(runs) => runs,
+                        None => {
+                            let mut runs = FailingRuns::default();
+                            for (k, &f) in rates.iter().enumerate() {
+                                runs.push(k, &judge(f));
+                            }
+                            judged = runs;
+                            &judged
+                        }
+                    };
+                    fastest_rate_by(from, rates, failing, &judge)
                 }
             };
             FormatCeiling {
@@ -992,14 +1151,9 @@ fn precision_report(
         })
         .and_then(|c| c.ceiling.first_failure_hz);
     let other_structure = lost_at.map(|lost_at_hz| {
-        let mut rates: Vec<f64> = rows
-            .iter()
-            .filter(|r| {
-                r.point.method == recommended_method
-                    && r.point.delay == design_delay
-                    && r.point.rate_hz > recommended_rate
-            })
-            .map(|r| r.point.rate_hz)
+        let mut rates: Vec<f64> = (summary.grid.rates.iter())
+            .copied()
+            .filter(|&f| f > recommended_rate)
             .collect();
         rates.insert(0, recommended_rate);
         other_structure_integral(

@@ -13,7 +13,6 @@ use std::cell::Cell;
 
 use serde::Serialize;
 
-use crate::explore::sweep::SweepRow;
 use crate::model::discretize::Method;
 use crate::model::scalar_solve;
 use crate::sampled::evaluate::{Point, PreparedLoop};
@@ -63,21 +62,102 @@ pub fn method_label(m: Option<Method>) -> String {
     m.map_or_else(|| "given-in-z".to_string(), |m| m.name().to_string())
 }
 
-/// `f_star` for the rows of one (method, delay) series, sorted by rate,
+/// One verdict of the coarse sweep as the search keeps it: the rate, the
+/// verdict (its per-limit checks dropped: the search reads the verdict,
+/// the limiting figure and the slack) and, over plant variants, the
+/// worst variant's index (0 on the nominal loop).
+#[derive(Debug, Clone)]
+pub struct Verdict {
+    pub rate_hz: f64,
+    pub assessment: Assessment,
+    pub worst: usize,
+}
+
+/// What the search needs from one series' coarse sweep, gathered while
+/// its verdicts arrive in ascending rate, so a sweep keeps a few verdicts
+/// per series whatever its length: the lowest and highest rates' verdicts,
+/// the fastest infeasible rate's and the next one up (the bracket of
+/// `f_star`), and the feasible runs below the fastest infeasible rate
+/// (the islands). Nothing else of the series is read by the search.
+#[derive(Debug, Clone, Default)]
+pub struct CoarseSeries {
+    first: Option<Verdict>,
+    last: Option<Verdict>,
+    /// The fastest infeasible rate so far, and the rate after it.
+    last_bad: Option<Verdict>,
+    after_bad: Option<Verdict>,
+    /// Feasible runs each ended by an infeasible rate, `[first, last]`.
+    closed_runs: Vec<[f64; 2]>,
+    /// The feasible run still open at the top.
+    open_run: Option<[f64; 2]>,
+}
+
+impl CoarseSeries {
+    /// Add the verdict at `rate_hz`, above every rate added before.
+    pub fn push(&mut self, rate_hz: f64, assessment: &Assessment, worst: usize) {
+        let v = Verdict {
+            rate_hz,
+            assessment: Assessment {
+                checks: Vec::new(),
+                ..assessment.clone()
+            },
+            worst,
+        };
+        if self.first.is_none() {
+            self.first = Some(v.clone());
+        }
+        if v.assessment.feasible {
+            let start = self.open_run.map_or(rate_hz, |r| r[0]);
+            self.open_run = Some([start, rate_hz]);
+            if self.last_bad.is_some() && self.after_bad.is_none() {
+                self.after_bad = Some(v.clone());
+            }
+        } else {
+            if let Some(run) = self.open_run.take() {
+                self.closed_runs.push(run);
+            }
+            self.last_bad = Some(v.clone());
+            self.after_bad = None;
+        }
+        self.last = Some(v);
+    }
+
+    /// The series from `(rate_hz, assessment)` pairs sorted by rate.
+    pub fn from_verdicts<'a>(verdicts: impl IntoIterator<Item = (f64, &'a Assessment)>) -> Self {
+        let mut s = CoarseSeries::default();
+        for (f, a) in verdicts {
+            s.push(f, a, 0);
+        }
+        s
+    }
+
+    /// The verdict at the lowest rate.
+    pub fn first(&self) -> Option<&Verdict> {
+        self.first.as_ref()
+    }
+
+    /// The verdict at the highest rate.
+    pub fn last(&self) -> Option<&Verdict> {
+        self.last.as_ref()
+    }
+
+    /// The fastest infeasible rate's verdict.
+    pub fn last_infeasible(&self) -> Option<&Verdict> {
+        self.last_bad.as_ref()
+    }
+}
+
+/// `f_star` for one (method, hold, delay) series of the coarse sweep,
 /// judged on the nominal loop.
 pub fn slowest_rate(
     lp: &PreparedLoop,
     spec: &Spec,
-    rows: &[&SweepRow],
+    method: Option<Method>,
+    hold: HoldKind,
+    delay: f64,
+    series: &CoarseSeries,
     observer: &dyn SearchObserver,
 ) -> SlowestRate {
-    let (method, delay, hold) = rows.first().map_or((None, 0.0, HoldKind::ZeroOrder), |r| {
-        (r.point.method, r.point.delay, r.point.hold)
-    });
-    let series: Vec<(f64, &Assessment)> = rows
-        .iter()
-        .map(|r| (r.point.rate_hz, &r.assessment))
-        .collect();
     let judge = |rate: f64| -> Assessment {
         let p = Point {
             rate_hz: rate,
@@ -89,18 +169,17 @@ pub fn slowest_rate(
         observer.evaluated(rate, &a);
         a
     };
-    slowest_rate_by(method, hold, delay, &series, &judge)
+    slowest_rate_by(method, hold, delay, series, &judge)
 }
 
-/// `f_star` for one (method, delay) series: `series` holds the coarse
-/// sweep's verdicts `(rate_hz, assessment)` sorted by rate, and `judge`
-/// gives the verdict at any other rate (the nominal loop, or the worst of
-/// several plant variants).
+/// `f_star` for one (method, delay) series: `series` holds what the
+/// coarse sweep's verdicts tell, and `judge` gives the verdict at any
+/// other rate (the nominal loop, or the worst of several plant variants).
 pub fn slowest_rate_by(
     method: Option<Method>,
     hold: HoldKind,
     delay: f64,
-    series: &[(f64, &Assessment)],
+    series: &CoarseSeries,
     judge: &dyn Fn(f64) -> Assessment,
 ) -> SlowestRate {
     let mut answer = SlowestRate {
@@ -116,27 +195,28 @@ pub fn slowest_rate_by(
     let Some(last) = series.last() else {
         return answer;
     };
-    if !last.1.feasible {
-        answer.limiting = last.1.limiting;
-        answer.islands = islands(series, series.len() - 1);
+    // The islands: feasible runs below the fastest infeasible rate.
+    answer.islands = series.closed_runs.clone();
+    if !last.assessment.feasible {
+        answer.limiting = last.assessment.limiting;
         return answer;
     }
-    let Some(i_bad) = series.iter().rposition(|r| !r.1.feasible) else {
-        answer.slowest_rate_hz = Some(series[0].0);
-        answer.limiting = series[0].1.limiting;
+    let (Some(bad), Some(next)) = (series.last_bad.as_ref(), series.after_bad.as_ref()) else {
+        let first = series.first().unwrap_or(last);
+        answer.slowest_rate_hz = Some(first.rate_hz);
+        answer.limiting = first.assessment.limiting;
         answer.at_range_floor = true;
         return answer;
     };
-    answer.islands = islands(series, i_bad);
 
     let count = Cell::new(0usize);
     let judge = |rate: f64| -> Assessment {
         count.set(count.get() + 1);
         judge(rate)
     };
-    let mut lo = series[i_bad].0;
-    let mut hi = series[i_bad + 1].0;
-    let mut lo_assessment = series[i_bad].1.clone();
+    let mut lo = bad.rate_hz;
+    let mut hi = next.rate_hz;
+    let mut lo_assessment = bad.assessment.clone();
     let ln_tol = (1.0 + RATE_TOLERANCE).ln() / 4.0;
 
     // Brent on the limiting slack; its answer x sits next to the sign
@@ -144,8 +224,8 @@ pub fn slowest_rate_by(
     // The bracket's ends were judged by the sweep: their slack is reused,
     // not recomputed (the solver asks for both ends before it starts).
     let ends = [
-        (lo.ln(), series[i_bad].1.slack),
-        (hi.ln(), series[i_bad + 1].1.slack),
+        (lo.ln(), bad.assessment.slack),
+        (hi.ln(), next.assessment.slack),
     ];
     let slack = |x: f64| match ends.iter().find(|e| e.0 == x) {
         Some(e) => e.1,
@@ -210,8 +290,42 @@ pub struct Ceiling {
     pub evaluations: usize,
 }
 
-/// The ceiling above `from_hz` from the coarse sweep's verdicts `series`
-/// (sorted by rate) refined by bisection in ln f to [`RATE_TOLERANCE`]:
+/// The coarse sweep's verdicts of one series for a precision ceiling,
+/// kept as runs: the grid's rates are shared by every series, so only
+/// each run of failing rates is kept (first and last index in the
+/// series, and what fails), a few entries where the verdict changes and
+/// none where it holds.
+#[derive(Debug, Clone, Default)]
+pub struct FailingRuns {
+    /// `(first index, last index, limiting)` of each run of failing rates
+    /// with one limiting figure, ascending.
+    runs: Vec<(usize, usize, Option<Limiting>)>,
+}
+
+impl FailingRuns {
+    /// Add the verdict of the series' rate number `index` (ascending).
+    pub fn push(&mut self, index: usize, assessment: &Assessment) {
+        if assessment.feasible {
+            return;
+        }
+        match self.runs.last_mut() {
+            Some(r) if r.1 + 1 == index && r.2 == assessment.limiting => r.1 = index,
+            _ => self.runs.push((index, index, assessment.limiting)),
+        }
+    }
+
+    /// The first failing index at or after `from`, with what fails there.
+    fn first_from(&self, from: usize) -> Option<(usize, Option<Limiting>)> {
+        self.runs
+            .iter()
+            .find(|r| r.1 >= from)
+            .map(|r| (r.0.max(from), r.2))
+    }
+}
+
+/// The ceiling above `from_hz` from the coarse sweep's verdicts (`rates`
+/// ascending, `failing` the runs of failing ones) refined by bisection in
+/// ln f to [`RATE_TOLERANCE`]:
 /// the passing side of the final bracket is reported. The bracket is the
 /// *first* failing grid rate above `from_hz` and the passing one below it,
 /// so where rounding makes the verdict non-monotone in the rate (a pole
@@ -222,7 +336,8 @@ pub struct Ceiling {
 /// z = 1) is a step, not a smooth slack.
 pub fn fastest_rate_by(
     from_hz: f64,
-    series: &[(f64, &Assessment)],
+    rates: &[f64],
+    failing: &FailingRuns,
     judge: &dyn Fn(f64) -> Assessment,
 ) -> Ceiling {
     let mut evaluations = 1usize;
@@ -236,19 +351,30 @@ pub fn fastest_rate_by(
             evaluations,
         };
     }
-    let above: Vec<&(f64, &Assessment)> = series.iter().filter(|r| r.0 > from_hz).collect();
-    let Some(i) = above.iter().position(|r| !r.1.feasible) else {
+    // The grid rates above from_hz start here.
+    let first_above = rates.partition_point(|&f| f <= from_hz);
+    let Some((i, limiting)) = failing.first_from(first_above) else {
         return Ceiling {
-            rate_hz: Some(above.last().map_or(from_hz, |r| r.0)),
+            rate_hz: Some(
+                rates
+                    .last()
+                    .copied()
+                    .filter(|&f| f > from_hz)
+                    .unwrap_or(from_hz),
+            ),
             above_range: true,
             limiting: None,
             first_failure_hz: None,
             evaluations,
         };
     };
-    let mut hi = above[i].0;
-    let mut hi_assessment = above[i].1.clone();
-    let mut lo = if i > 0 { above[i - 1].0 } else { from_hz };
+    let mut hi = rates[i];
+    let mut hi_limiting = limiting;
+    let mut lo = if i > first_above {
+        rates[i - 1]
+    } else {
+        from_hz
+    };
     while hi / lo - 1.0 > RATE_TOLERANCE {
         let mid = (lo * hi).sqrt();
         evaluations += 1;
@@ -257,36 +383,14 @@ pub fn fastest_rate_by(
             lo = mid;
         } else {
             hi = mid;
-            hi_assessment = a;
+            hi_limiting = a.limiting;
         }
     }
     Ceiling {
         rate_hz: Some(lo),
         above_range: false,
-        limiting: hi_assessment.limiting,
+        limiting: hi_limiting,
         first_failure_hz: Some(hi),
         evaluations,
     }
-}
-
-/// Feasible runs of grid rates strictly below index `below`.
-fn islands(series: &[(f64, &Assessment)], below: usize) -> Vec<[f64; 2]> {
-    let mut out = Vec::new();
-    let mut start: Option<f64> = None;
-    let mut prev = 0.0;
-    for r in &series[..below] {
-        let f = r.0;
-        if r.1.feasible {
-            if start.is_none() {
-                start = Some(f);
-            }
-            prev = f;
-        } else if let Some(s) = start.take() {
-            out.push([s, prev]);
-        }
-    }
-    if let Some(s) = start {
-        out.push([s, prev]);
-    }
-    out
 }

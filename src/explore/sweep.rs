@@ -40,21 +40,21 @@ pub struct SweepRow {
 }
 
 impl SweepRow {
-    /// Drop what only the row's CSV line needs (the closed-loop poles, the
-    /// list of crossings, each limit's check), once that line is written:
-    /// the search and the charts read the verdicts and the figures only,
-    /// so a long sweep keeps a few hundred bytes per row instead of
-    /// several kilobytes. Every variant's evaluation is kept when asked
-    /// for (`--variants`).
-    pub fn slim(&mut self) {
-        self.eval.closed_loop_poles = Vec::new();
-        self.eval.loop_detail = None;
-        self.assessment.checks = Vec::new();
-        if let Some(r) = &mut self.robust {
-            r.assessment.checks = Vec::new();
-        }
-        for p in &mut self.precision {
-            p.assessment.checks = Vec::new();
+    /// The row of a point that was not evaluated: its status gives the
+    /// reason (`not evaluated: ...`), `assessment` the verdict that
+    /// reason carries (infeasible, with the figure that decides it).
+    /// Every grid point still has its row, at the cost of none of its work.
+    pub fn not_evaluated(point: Point, reason: &str, assessment: Assessment) -> SweepRow {
+        SweepRow {
+            point,
+            eval: Evaluation {
+                status: crate::sampled::evaluate::Status::NotEvaluated(reason.to_string()),
+                ..Evaluation::error("")
+            },
+            assessment,
+            cpu_load_pct: None,
+            robust: None,
+            precision: Vec::new(),
         }
     }
 }
@@ -237,8 +237,73 @@ fn evaluate_row_on(plan: &Plan, p: &Point, plants: Option<&Plants>) -> SweepRow 
     }
 }
 
+/// The grid of a sweep as the product it is: every method, then hold
+/// kind, then delay, then ascending rate (the order of `sweep.csv`). A
+/// point is computed from its index, so a sweep of any size holds the
+/// rates and nothing per point.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Grid {
+    pub rates: Vec<f64>,
+    pub methods: Vec<Option<Method>>,
+    pub holds: Vec<HoldKind>,
+    pub delays: Vec<f64>,
+}
+
+impl Grid {
+    /// Points in the grid.
+    pub fn len(&self) -> usize {
+        self.series_count() * self.rates.len()
+    }
+
+    /// True when the grid has no point.
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+
+    /// Series of the grid: one per (method, hold, delay), each of
+    /// `rates.len()` points in ascending rate.
+    pub fn series_count(&self) -> usize {
+        self.methods.len() * self.holds.len() * self.delays.len()
+    }
+
+    /// The point at grid index `i` (`i < len()`).
+    pub fn point(&self, i: usize) -> Point {
+        let n = self.rates.len();
+        let (series, r) = (i / n, i % n);
+        let d = series % self.delays.len();
+        let h = (series / self.delays.len()) % self.holds.len();
+        let m = series / (self.delays.len() * self.holds.len());
+        Point {
+            rate_hz: self.rates[r],
+            method: self.methods[m],
+            delay: self.delays[d],
+            hold: self.holds[h],
+        }
+    }
+
+    /// Every point, in grid order (for small grids and tests; a sweep
+    /// never builds this list).
+    pub fn points(&self) -> Vec<Point> {
+        (0..self.len()).map(|i| self.point(i)).collect()
+    }
+
+    /// The groups of points sharing (rate, delay, hold), one per method
+    /// each, in order of their first point (that of the first method).
+    fn groups(&self) -> impl Iterator<Item = Vec<usize>> + '_ {
+        let n = self.rates.len();
+        let per_method = self.holds.len() * self.delays.len() * n;
+        (0..per_method).map(move |first| {
+            (0..self.methods.len())
+                .map(|m| m * per_method + first)
+                .collect()
+        })
+    }
+}
+
 /// Evaluate every point in parallel on the current rayon pool; `on_done`
-/// is called once per finished point (progress display).
+/// is called once per finished point (progress display). Every row is
+/// kept: for short lists of points (tests, a dense check around a rate);
+/// a case's sweep streams its rows instead ([`run_streaming`]).
 ///
 /// The hold + delay + plant equivalent depends on the rate, the delay and
 /// the hold kind but not on the method, so the points are taken in groups
@@ -247,66 +312,6 @@ fn evaluate_row_on(plan: &Plan, p: &Point, plants: Option<&Plants>) -> SweepRow 
 /// alone from the same inputs, and the rows come back in grid order, so
 /// the results do not depend on the grouping or the thread count.
 pub fn run(plan: &Plan, points: &[Point], on_done: &(dyn Fn() + Sync)) -> Vec<SweepRow> {
-    let mut rows = GridOrder::default();
-    run_streaming(plan, points, on_done, &mut |i, row| rows.push(i, row));
-    rows.finish()
-}
-
-/// Rows received in any order, put in grid order without a second copy.
-///
-/// `push(grid_index, row)` appends; `finish` permutes the rows in place by
-/// following the permutation's cycles (a long sweep keeps one buffer of
-/// rows, not the buffer plus a reordered copy).
-#[derive(Default)]
-pub struct GridOrder {
-    rows: Vec<SweepRow>,
-    index: Vec<usize>,
-}
-
-impl GridOrder {
-    /// Keep `row`, the row of grid point `i`.
-    pub fn push(&mut self, i: usize, row: SweepRow) {
-        self.rows.push(row);
-        self.index.push(i);
-    }
-
-    /// The rows in ascending grid index (the indices must be `0..n`, each
-    /// once, as a sweep delivers them).
-    pub fn finish(self) -> Vec<SweepRow> {
-        let GridOrder { mut rows, index } = self;
-        // `target[k]`: where the row now at position k belongs.
-        let mut target = index;
-        for start in 0..rows.len() {
-            // Follow the cycle through `start`, swapping each row home.
-            while target[start] != start {
-                let t = target[start];
-                if t >= rows.len() {
-                    break;
-                }
-                rows.swap(start, t);
-                target.swap(start, t);
-            }
-        }
-        rows
-    }
-}
-
-/// Groups (of points sharing rate and delay) evaluated in parallel before
-/// their rows are handed on: enough to keep every worker busy, few enough
-/// that the rows in flight stay a small, fixed amount of memory.
-const GROUPS_IN_FLIGHT: usize = 256;
-
-/// [`run`] without keeping the rows: `sink(grid_index, row)` takes each
-/// row on the calling thread as its batch of groups finishes. Groups come
-/// in order of their first point in the grid, so the rows of each
-/// (method, delay) series arrive in ascending grid order, whatever the
-/// thread count (each point is computed alone, from the same inputs).
-pub fn run_streaming(
-    plan: &Plan,
-    points: &[Point],
-    on_done: &(dyn Fn() + Sync),
-    sink: &mut dyn FnMut(usize, SweepRow),
-) {
     let mut groups: Vec<Vec<usize>> = Vec::new();
     let mut index: HashMap<(u64, u64, HoldKind), usize> = HashMap::new();
     for (i, p) in points.iter().enumerate() {
@@ -317,15 +322,60 @@ pub fn run_streaming(
         });
         groups[g].push(i);
     }
-    for batch in groups.chunks(GROUPS_IN_FLIGHT) {
+    let mut rows: Vec<Option<SweepRow>> = vec![None; points.len()];
+    run_groups(
+        plan,
+        &|i| points[i],
+        groups.into_iter(),
+        on_done,
+        &mut |i, row| rows[i] = Some(row),
+    );
+    rows.into_iter().flatten().collect()
+}
+
+/// Groups (of points sharing rate and delay) evaluated in parallel before
+/// their rows are handed on: enough to keep every worker busy, few enough
+/// that the rows in flight stay a small, fixed amount of memory.
+const GROUPS_IN_FLIGHT: usize = 256;
+
+/// A case's sweep without keeping the rows: `sink(grid_index, row)` takes
+/// each row on the calling thread as its batch of groups finishes. Groups
+/// come in order of their first point in the grid, so the rows of each
+/// (method, hold, delay) series arrive in ascending rate, whatever the
+/// thread count (each point is computed alone, from the same inputs).
+/// Memory: the rows of [`GROUPS_IN_FLIGHT`] groups, whatever the grid's size.
+pub fn run_streaming(
+    plan: &Plan,
+    grid: &Grid,
+    on_done: &(dyn Fn() + Sync),
+    sink: &mut dyn FnMut(usize, SweepRow),
+) {
+    run_groups(plan, &|i| grid.point(i), grid.groups(), on_done, sink);
+}
+
+/// Evaluate `groups` (grid indices sharing one plant side; `point` gives
+/// each index's point) in batches, handing every row to `sink` in group
+/// order.
+fn run_groups(
+    plan: &Plan,
+    point: &(dyn Fn(usize) -> Point + Sync),
+    mut groups: impl Iterator<Item = Vec<usize>>,
+    on_done: &(dyn Fn() + Sync),
+    sink: &mut dyn FnMut(usize, SweepRow),
+) {
+    loop {
+        let batch: Vec<Vec<usize>> = groups.by_ref().take(GROUPS_IN_FLIGHT).collect();
+        if batch.is_empty() {
+            break;
+        }
         let done: Vec<Vec<(usize, SweepRow)>> = batch
             .par_iter()
             .map(|group| {
-                let plants = Plants::at(plan, &points[group[0]]);
+                let plants = Plants::at(plan, &point(group[0]));
                 group
                     .iter()
                     .map(|&i| {
-                        let row = evaluate_row_on(plan, &points[i], Some(&plants));
+                        let row = evaluate_row_on(plan, &point(i), Some(&plants));
                         on_done();
                         (i, row)
                     })

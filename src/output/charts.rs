@@ -21,7 +21,7 @@ use crate::error::Error;
 use crate::explore::budget;
 use crate::explore::pick::{PickReport, Recommended, case_methods};
 use crate::explore::search::method_label;
-use crate::explore::sweep::SweepRow;
+use crate::explore::sweep::{Grid, SweepRow};
 use crate::model::discretize::Method;
 use crate::model::poly::C64;
 use crate::model::transfer::Controller;
@@ -30,11 +30,12 @@ use crate::output::plot::{
     XBand, YBand, render_png_bytes,
 };
 use crate::sampled::continuous::HoldApprox;
-use crate::sampled::evaluate::{Evaluation, Figures, Point, PreparedLoop};
+use crate::sampled::evaluate::{Evaluation, Figures, Point, PreparedLoop, Status};
 use crate::sampled::feasibility::assess;
 use crate::sampled::figure::{Figure as LoopFigure, Limiting, Unit, Worse};
 use crate::sampled::frequency::{loop_grid, unwrapped_phase};
 use crate::sampled::time_response::TracePoint;
+use crate::spec::Format;
 use crate::spec::HoldKind;
 use crate::spec::Spec;
 
@@ -116,12 +117,306 @@ fn value_text(fig: LoopFigure, f: &Figures) -> Option<String> {
     ))
 }
 
+/// Columns of a chart's rate axis that a long series is thinned to: about
+/// the width in pixels of a rate chart's plotting area (1600-pixel figure
+/// less the axis labels and the legend column), so a column is about one
+/// pixel column of the plot.
+pub const CHART_COLUMNS: usize = 1000;
+
+/// A series of more rates than this is thinned ([`Thinned`]); a shorter
+/// one is drawn with every point.
+const THIN_ABOVE: usize = 2 * CHART_COLUMNS;
+
+/// One value against the rate as a chart draws it, gathered in ascending
+/// rate: every point of a short series; of a long one, in each of
+/// [`CHART_COLUMNS`] equal columns of the log rate axis, the lowest and
+/// the highest value (in rate order) and, where the column has a gap (NaN:
+/// the figure does not exist there), one gap point so the line still
+/// breaks: at most three points a column, about two per pixel column of
+/// the plot, whatever the grid's size.
+#[derive(Debug, Clone, Default)]
+struct Thinned {
+    points: Points,
+    /// The column being gathered, with its lowest and highest value and
+    /// its first gap.
+    column: Option<usize>,
+    low: Option<(f64, f64)>,
+    high: Option<(f64, f64)>,
+    gap: Option<f64>,
+}
+
+impl Thinned {
+    fn push(&mut self, column: Option<usize>, x: f64, y: f64) {
+        let Some(c) = column else {
+            self.points.push((x, y));
+            return;
+        };
+        if self.column != Some(c) {
+            self.flush();
+            self.column = Some(c);
+        }
+        if y.is_nan() {
+            self.gap.get_or_insert(x);
+        } else {
+            if self.low.is_none_or(|l| y < l.1) {
+                self.low = Some((x, y));
+            }
+            if self.high.is_none_or(|h| y > h.1) {
+                self.high = Some((x, y));
+            }
+        }
+    }
+
+    /// Close the column being gathered.
+    fn flush(&mut self) {
+        let mut kept: Points = [self.low.take(), self.high.take()]
+            .into_iter()
+            .flatten()
+            .chain(self.gap.take().map(|x| (x, f64::NAN)))
+            .collect();
+        kept.sort_by(|a, b| a.0.total_cmp(&b.0));
+        kept.dedup_by(|a, b| a.0 == b.0);
+        self.points.extend(kept);
+        self.column = None;
+    }
+
+    fn finish(mut self) -> Points {
+        self.flush();
+        self.points
+    }
+}
+
+/// What the charts draw of one (method, hold, delay) series of a sweep:
+/// each rate panel's figure (nominal, and at its worst over the plant
+/// variants) and each format's rounding errors, thinned to the chart's
+/// width ([`Thinned`]), and the counts the captions give (exact, over every
+/// row).
+#[derive(Debug, Clone)]
+pub struct RateSeries {
+    pub method: Option<Method>,
+    pub hold: HoldKind,
+    pub delay: f64,
+    /// Rows of the series.
+    pub rows: usize,
+    /// Rows without figures (the loop is not stable, or was not evaluated).
+    pub unstable: usize,
+    /// Per rate panel ([`RATE_PANELS`]): rows with figures but without
+    /// this one.
+    pub missing: [usize; RATE_PANELS.len()],
+    /// Rows with figures whose worst variant has none (a variant unstable).
+    pub variant_gaps: usize,
+    /// The fastest infeasible rate of the nominal loop, Hz.
+    pub last_infeasible_hz: Option<f64>,
+    nominal: Vec<Points>,
+    worst: Vec<Points>,
+    /// Per number format, the pole error and the DC gain error (%).
+    precision: Vec<[Points; 2]>,
+}
+
+impl RateSeries {
+    /// The nominal loop's `fig` (a rate panel) against the rate; NaN where
+    /// it does not exist.
+    fn nominal(&self, fig: LoopFigure) -> &Points {
+        &self.nominal[panel_index(fig)]
+    }
+
+    /// `fig` at its worst over the plant variants.
+    fn worst(&self, fig: LoopFigure) -> &Points {
+        &self.worst[panel_index(fig)]
+    }
+
+    fn missing_of(&self, fig: LoopFigure) -> usize {
+        self.missing[panel_index(fig)]
+    }
+}
+
+fn panel_index(fig: LoopFigure) -> usize {
+    RATE_PANELS.iter().position(|f| *f == fig).unwrap_or(0)
+}
+
+/// A series being gathered.
+struct Gathering {
+    series: RateSeries,
+    nominal: Vec<Thinned>,
+    worst: Vec<Thinned>,
+    precision: Vec<[Thinned; 2]>,
+}
+
+/// What the charts draw of a sweep, gathered row by row while it streams
+/// (`push`), so it does not grow with the grid: the series the charts
+/// show (those at the design delay, the largest listed; every series of a
+/// controller given in z, one point each), thinned to the chart's width.
+pub struct ChartRows {
+    grid: Grid,
+    design_delay: f64,
+    /// Formats evaluated per row (f64 left out).
+    formats: Vec<Format>,
+    /// Per grid series: its gathering, when the charts show it.
+    gathering: Vec<Option<Gathering>>,
+    /// Log rate bounds of the columns, when the series are long.
+    columns: Option<(f64, f64)>,
+}
+
+impl ChartRows {
+    /// Empty, for a sweep of `grid` (a case's, see `pick::case_sweep_grid`).
+    pub fn new(case: &Case, lp: &PreparedLoop, grid: &Grid) -> ChartRows {
+        let design_delay = case.compute_delays.iter().copied().fold(0.0, f64::max);
+        let every = matches!(lp.controller, Controller::Discrete(_));
+        let n = grid.rates.len();
+        let gathering = (0..grid.series_count())
+            .map(|s| {
+                let p = grid.point(s * n);
+                (every || p.delay == design_delay).then(|| Gathering {
+                    series: RateSeries {
+                        method: p.method,
+                        hold: p.hold,
+                        delay: p.delay,
+                        rows: 0,
+                        unstable: 0,
+                        missing: [0; RATE_PANELS.len()],
+                        variant_gaps: 0,
+                        last_infeasible_hz: None,
+                        nominal: Vec::new(),
+                        worst: Vec::new(),
+                        precision: Vec::new(),
+                    },
+                    nominal: vec![Thinned::default(); RATE_PANELS.len()],
+                    worst: vec![Thinned::default(); RATE_PANELS.len()],
+                    precision: Vec::new(),
+                })
+            })
+            .collect();
+        let (lo, hi) = (
+            grid.rates.iter().copied().fold(f64::INFINITY, f64::min),
+            grid.rates.iter().copied().fold(f64::NEG_INFINITY, f64::max),
+        );
+        ChartRows {
+            columns: (n > THIN_ABOVE && lo > 0.0 && hi > lo).then(|| (lo.ln(), hi.ln())),
+            grid: grid.clone(),
+            design_delay,
+            formats: Vec::new(),
+            gathering,
+        }
+    }
+
+    /// Add the row of grid point `i`; the rows of one series must come in
+    /// ascending rate (as the sweep delivers them).
+    pub fn push(&mut self, i: usize, row: &SweepRow) {
+        if matches!(row.eval.status, Status::NotEvaluated(_)) {
+            // Nothing to draw: the row only says why it was not evaluated.
+            return;
+        }
+        let n = self.grid.rates.len().max(1);
+        let column = self.columns.map(|(lo, hi)| {
+            let t = (row.point.rate_hz.ln() - lo) / (hi - lo);
+            ((t * CHART_COLUMNS as f64) as usize).min(CHART_COLUMNS - 1)
+        });
+        if i == 0 || (self.formats.is_empty() && !row.precision.is_empty()) {
+            self.formats = row.precision.iter().map(|p| p.format).collect();
+        }
+        let Some(Some(g)) = self.gathering.get_mut(i / n) else {
+            return;
+        };
+        let x = row.point.rate_hz;
+        let s = &mut g.series;
+        s.rows += 1;
+        if !row.assessment.feasible {
+            s.last_infeasible_hz = Some(x);
+        }
+        let figures = row.eval.figures.as_ref();
+        if figures.is_none() {
+            s.unstable += 1;
+        }
+        let worst = row.robust.as_ref().and_then(|rb| rb.worst_figures.as_ref());
+        if figures.is_some() && worst.is_none() {
+            s.variant_gaps += 1;
+        }
+        for (k, fig) in RATE_PANELS.iter().enumerate() {
+            if figures.is_some_and(|f| fig.limited_value(f).is_none()) {
+                s.missing[k] += 1;
+            }
+            g.nominal[k].push(column, x, figure_of(&row.eval, *fig));
+            if row.robust.is_some() {
+                let w = worst.and_then(|f| fig.limited_value(f)).unwrap_or(f64::NAN);
+                g.worst[k].push(column, x, w);
+            }
+        }
+        while g.precision.len() < row.precision.len() {
+            g.precision.push([Thinned::default(), Thinned::default()]);
+        }
+        for (k, p) in row.precision.iter().enumerate() {
+            let d = p.damage.as_ref();
+            let positive = |v: Option<f64>| v.filter(|v| *v > 0.0).unwrap_or(f64::NAN);
+            g.precision[k][0].push(column, x, positive(d.map(|d| d.pole_error_pct)));
+            g.precision[k][1].push(column, x, positive(d.and_then(|d| d.dc_gain_error_pct)));
+        }
+    }
+
+    /// The series gathered, finished (grid order), for [`ChartInput`].
+    pub fn finish(self) -> ChartSeries {
+        let series = (self.gathering.into_iter().flatten())
+            .map(|g| {
+                let mut s = g.series;
+                s.nominal = g.nominal.into_iter().map(Thinned::finish).collect();
+                s.worst = g.worst.into_iter().map(Thinned::finish).collect();
+                s.precision = (g.precision.into_iter())
+                    .map(|[a, b]| [a.finish(), b.finish()])
+                    .collect();
+                s
+            })
+            .filter(|s| s.rows > 0)
+            .collect();
+        ChartSeries {
+            series,
+            formats: self.formats,
+            design_delay: self.design_delay,
+        }
+    }
+}
+
+/// What the charts draw of a sweep ([`ChartRows::finish`]): the series
+/// the charts show, the formats the sweep evaluated (f64 left out) and the
+/// design delay (the largest listed: the one the charts show).
+#[derive(Debug, Clone)]
+pub struct ChartSeries {
+    series: Vec<RateSeries>,
+    formats: Vec<Format>,
+    design_delay: f64,
+}
+
+impl ChartSeries {
+    /// Every row of a finished sweep of the case's grid, in grid order
+    /// (tests and small grids).
+    pub fn from_rows(case: &Case, lp: &PreparedLoop, rows: &[SweepRow]) -> ChartSeries {
+        let mut c = ChartRows::new(case, lp, &crate::explore::pick::case_sweep_grid(case, lp));
+        for (i, r) in rows.iter().enumerate() {
+            c.push(i, r);
+        }
+        c.finish()
+    }
+}
+
+/// What the charts are drawn from: the case, its prepared loop, what the
+/// sweep gathered for them, and the pick's answer when a search was made
+/// (`pick`; `sweep` has none, and draws only the charts that need none).
+pub struct ChartInput<'a> {
+    pub case: &'a Case,
+    pub lp: &'a PreparedLoop,
+    pub rows: &'a ChartSeries,
+    pub pick: Option<&'a PickReport>,
+}
+
 /// Everything a chart builder reads.
 struct Inputs<'a> {
     case: &'a Case,
     lp: &'a PreparedLoop,
-    rows: &'a [SweepRow],
-    report: &'a PickReport,
+    /// The series the charts show, finished.
+    series: &'a [RateSeries],
+    /// Formats evaluated by the sweep (f64 left out).
+    formats: &'a [Format],
+    /// The largest computation delay listed: the one the charts show.
+    design_delay: f64,
+    pick: Option<&'a PickReport>,
     /// The recommendation and its method, when there is one.
     rec: Option<(&'a Recommended, Option<Method>)>,
 }
@@ -141,14 +436,16 @@ pub struct Chart {
 /// Describe every chart that applies to this run, in a fixed order: file
 /// name and figure (without the footer note). Charts that need a
 /// recommendation (step, loop, hold approximation, disturbance) are
-/// skipped when the report has none; `cpu-budget.png` without a budget.
-pub fn describe(
-    case: &Case,
-    lp: &PreparedLoop,
-    rows: &[SweepRow],
-    report: &PickReport,
-) -> Vec<(&'static str, Figure)> {
-    let rec = report.recommended.as_ref().and_then(|r| {
+/// skipped when there is none (always in a `sweep`); `cpu-budget.png`
+/// without a budget.
+pub fn describe(input: &ChartInput) -> Vec<(&'static str, Figure)> {
+    let ChartInput {
+        case,
+        lp,
+        rows,
+        pick,
+    } = *input;
+    let rec = pick.and_then(|p| p.recommended.as_ref()).and_then(|r| {
         case_methods(case)
             .into_iter()
             .find(|m| method_label(*m) == r.method)
@@ -157,8 +454,10 @@ pub fn describe(
     let inputs = Inputs {
         case,
         lp,
-        rows,
-        report,
+        series: &rows.series,
+        formats: &rows.formats,
+        design_delay: rows.design_delay,
+        pick,
         rec,
     };
     let jobs: [(&str, Builder); 8] = [
@@ -178,23 +477,17 @@ pub fn describe(
 
 /// Draw every chart that applies to this run into `out_dir` (created if
 /// missing) and return the charts written, in [`describe`]'s order.
-pub fn write_charts(
-    out_dir: &Path,
-    case: &Case,
-    lp: &PreparedLoop,
-    rows: &[SweepRow],
-    report: &PickReport,
-) -> Result<Vec<Chart>, Error> {
+pub fn write_charts(out_dir: &Path, input: &ChartInput) -> Result<Vec<Chart>, Error> {
     std::fs::create_dir_all(out_dir).map_err(|e| Error::Output {
         path: out_dir.display().to_string(),
         message: e.to_string(),
     })?;
     let note = format!(
         "{} | looprate {} | model-based: confirm on the hardware",
-        case.title,
+        input.case.title,
         env!("CARGO_PKG_VERSION")
     );
-    describe(case, lp, rows, report)
+    describe(input)
         .into_par_iter()
         .map(|(name, fig)| {
             let path = out_dir.join(name);
@@ -215,34 +508,26 @@ fn hz(v: f64) -> String {
     crate::engineering::hz(v)
 }
 
-/// The rows of one (method, hold) at the design delay, by rate.
-fn rows_of<'a>(inp: &Inputs<'a>, m: Option<Method>, h: HoldKind) -> Vec<&'a SweepRow> {
-    let mut rows: Vec<&SweepRow> = (inp.rows.iter())
-        .filter(|r| {
-            r.point.method == m && r.point.hold == h && r.point.delay == inp.report.design_delay
-        })
-        .collect();
-    rows.sort_by(|a, b| a.point.rate_hz.total_cmp(&b.point.rate_hz));
-    rows
+/// The series of one (method, hold) at the design delay.
+fn rows_of<'a>(inp: &'a Inputs, m: Option<Method>, h: HoldKind) -> Option<&'a RateSeries> {
+    (inp.series.iter()).find(|s| s.method == m && s.hold == h && s.delay == inp.design_delay)
 }
 
 /// The methods of the sweep at the design delay, in case order.
-fn design_series<'a>(inp: &Inputs<'a>) -> Vec<(String, Vec<&'a SweepRow>)> {
+fn design_series<'a>(inp: &'a Inputs) -> Vec<(String, &'a RateSeries)> {
     (case_methods(inp.case).into_iter())
-        .map(|m| (method_label(m), rows_of(inp, m, design_hold(inp))))
-        .filter(|(_, rows)| !rows.is_empty())
+        .filter_map(|m| Some((method_label(m), rows_of(inp, m, design_hold(inp))?)))
         .collect()
 }
 
 /// The rows of a controller given in z, one series per computation delay
 /// (each a single rate), labelled by the delay.
-fn delay_series<'a>(inp: &Inputs<'a>) -> Vec<(String, Vec<&'a SweepRow>)> {
+fn delay_series<'a>(inp: &'a Inputs) -> Vec<(String, &'a RateSeries)> {
     (inp.case.compute_delays.iter())
-        .map(|&d| {
-            let rows: Vec<&SweepRow> = inp.rows.iter().filter(|r| r.point.delay == d).collect();
-            (format!("computation delay {} T", sig4(d)), rows)
+        .filter_map(|&d| {
+            let s = inp.series.iter().find(|s| s.delay == d)?;
+            Some((format!("computation delay {} T", sig4(d)), s))
         })
-        .filter(|(_, rows)| !rows.is_empty())
         .collect()
 }
 
@@ -277,7 +562,7 @@ fn design_hold(inp: &Inputs) -> HoldKind {
 /// label naming its span and count (the report's tables give each value);
 /// a lone value names its method.
 fn star_marks(
-    series: &[(String, Vec<&SweepRow>)],
+    series: &[(String, &RateSeries)],
     kind: &str,
     style: MarkStyle,
     get: impl Fn(&str) -> Option<f64>,
@@ -337,7 +622,7 @@ fn point_at(inp: &Inputs, method: Option<Method>, rate_hz: f64) -> Point {
     Point {
         rate_hz,
         method,
-        delay: inp.report.design_delay,
+        delay: inp.design_delay,
         hold: design_hold(inp),
     }
 }
@@ -345,10 +630,9 @@ fn point_at(inp: &Inputs, method: Option<Method>, rate_hz: f64) -> Point {
 /// The failing rate shown beside f_star: the fastest infeasible grid rate
 /// below it, or f_star / 1.5 when the grid has none.
 fn failing_rate(inp: &Inputs, rec: &Recommended, method: Option<Method>) -> f64 {
-    (rows_of(inp, method, rec.hold).into_iter())
-        .filter(|r| r.point.rate_hz < rec.slowest_rate_hz && !r.assessment.feasible)
-        .map(|r| r.point.rate_hz)
-        .fold(None, |a: Option<f64>, f| Some(a.map_or(f, |a| a.max(f))))
+    rows_of(inp, method, rec.hold)
+        .and_then(|s| s.last_infeasible_hz)
+        .filter(|&f| f < rec.slowest_rate_hz)
         .unwrap_or(rec.slowest_rate_hz / 1.5)
 }
 
@@ -391,26 +675,16 @@ fn hline(label: &str, y: f64, x0: f64, x1: f64, style: usize) -> Series {
 fn rate_panel(
     def: LoopFigure,
     spec: &Spec,
-    series: &[(String, Vec<&SweepRow>)],
+    series: &[(String, &RateSeries)],
     named: bool,
     worst: bool,
 ) -> Panel {
     let mut panel = Panel::new(Axis::linear(def.axis_title()));
     let (mut unstable, mut missing) = (0, 0);
     for (k, (name, rows)) in series.iter().enumerate() {
-        let pts = rows
-            .iter()
-            .map(|r| (r.point.rate_hz, figure_of(&r.eval, def)));
-        let never = rows.iter().all(|r| r.eval.figures.is_none());
-        unstable += rows.iter().filter(|r| r.eval.figures.is_none()).count();
-        missing += (rows.iter())
-            .filter(|r| {
-                r.eval
-                    .figures
-                    .as_ref()
-                    .is_some_and(|f| def.limited_value(f).is_none())
-            })
-            .count();
+        let never = rows.unstable == rows.rows;
+        unstable += rows.unstable;
+        missing += rows.missing_of(def);
         let label = match (named, never) {
             (false, _) => String::new(),
             (true, false) => name.clone(),
@@ -418,38 +692,24 @@ fn rate_panel(
         };
         panel
             .series
-            .push(Series::line(label, pts.collect(), k).drawn(Draw::LineAndMarkers));
+            .push(Series::line(label, rows.nominal(def).clone(), k).drawn(Draw::LineAndMarkers));
     }
     // With plant variants, each method's figure at its worst over them, in
     // the styles after the nominal curves'.
     let mut variant_gaps = 0;
     for (k, (name, rows)) in series.iter().enumerate().filter(|_| worst) {
-        variant_gaps += (rows.iter())
-            .filter(|r| r.eval.figures.is_some())
-            .filter(|r| {
-                r.robust
-                    .as_ref()
-                    .is_none_or(|rb| rb.worst_figures.is_none())
-            })
-            .count();
-        let pts = (rows.iter())
-            .map(|r| {
-                let w = r.robust.as_ref().and_then(|rb| rb.worst_figures.as_ref());
-                (
-                    r.point.rate_hz,
-                    w.and_then(|f| def.limited_value(f)).unwrap_or(f64::NAN),
-                )
-            })
-            .collect();
+        variant_gaps += rows.variant_gaps;
         let label = if named {
             format!("{name}, worst variant")
         } else {
             String::new()
         };
         let style = (series.len() + k) % PALETTE_LEN;
-        panel.series.push(Series::line(label, pts, style));
+        panel
+            .series
+            .push(Series::line(label, rows.worst(def).clone(), style));
     }
-    let total: usize = series.iter().map(|(_, rows)| rows.len()).sum();
+    let total: usize = series.iter().map(|(_, rows)| rows.rows).sum();
     let mut why = Vec::new();
     if unstable > 0 {
         why.push(format!("loop unstable ({unstable}/{total})"));
@@ -536,30 +796,31 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
     // nominal f* (dotted, where the nominal curves cross the limits) and
     // the robust f* (dashed, where the worst-variant curves do: what the
     // answer rests on).
-    let robust = inp.report.robust.is_some();
+    let robust = inp.pick.is_some_and(|p| p.robust.is_some());
     let mut marks: Vec<VMark> = Vec::new();
-    if let Some(r) = &inp.report.recommended {
-        let text = format!("{} {}", rate_word(inp.report), hz(r.rate_hz));
-        marks.push(VMark::new(r.rate_hz, text, MarkStyle::Solid));
+    if let Some(pick) = inp.pick {
+        if let Some(r) = &pick.recommended {
+            let text = format!("{} {}", rate_word(pick), hz(r.rate_hz));
+            marks.push(VMark::new(r.rate_hz, text, MarkStyle::Solid));
+        }
+        if robust {
+            let get = |m: &str| robust_f_star(pick, m);
+            marks.extend(star_marks(&series, "robust f*", MarkStyle::Dashed, get));
+        }
+        let kind = if robust { "nominal f*" } else { "f*" };
+        let style = if robust {
+            MarkStyle::Dotted
+        } else {
+            MarkStyle::Dashed
+        };
+        marks.extend(star_marks(&series, kind, style, |m| f_star(pick, m)));
     }
-    if robust {
-        let get = |m: &str| robust_f_star(inp.report, m);
-        marks.extend(star_marks(&series, "robust f*", MarkStyle::Dashed, get));
-    }
-    let kind = if robust { "nominal f*" } else { "f*" };
-    let style = if robust {
-        MarkStyle::Dotted
-    } else {
-        MarkStyle::Dashed
-    };
-    marks.extend(star_marks(&series, kind, style, |m| f_star(inp.report, m)));
     let (lo, hi) = match single {
         Some(f) => (f / 1.5, f * 1.5),
         None => (inp.case.rates.min_hz, inp.case.rates.max_hz),
     };
-    let never_stable =
-        (series.iter()).all(|(_, rows)| rows.iter().all(|r| r.eval.figures.is_none()));
-    let delay = sig4(inp.report.design_delay);
+    let never_stable = (series.iter()).all(|(_, rows)| rows.unstable == rows.rows);
+    let delay = sig4(inp.design_delay);
     let title = match single {
         Some(f) => format!(
             "Loop figures of the controller given in z at its one rate {} (one point per computation delay; PM phase margin, GM gain margin, Ms sensitivity peak; hatched side of a limit fails)",
@@ -609,22 +870,20 @@ fn hold_kinds(inp: &Inputs) -> Option<Figure> {
         return None;
     }
     let (rec, method) = inp.rec?;
+    let pick = inp.pick?;
     let f_star_of = |h: HoldKind| {
-        (inp.report.answers().into_iter())
-            .find(|a| {
-                a.method == rec.method && a.hold == h && a.compute_delay == inp.report.design_delay
-            })
+        (pick.answers().into_iter())
+            .find(|a| a.method == rec.method && a.hold == h && a.compute_delay == inp.design_delay)
             .and_then(|a| a.slowest_rate_hz)
     };
-    let series: Vec<(String, Vec<&SweepRow>)> = (inp.case.holds.iter())
-        .map(|&h| {
+    let series: Vec<(String, &RateSeries)> = (inp.case.holds.iter())
+        .filter_map(|&h| {
             let name = match f_star_of(h) {
                 Some(f) => format!("{h} (f* {})", hz(f)),
                 None => format!("{h} (no f*)"),
             };
-            (name, rows_of(inp, method, h))
+            Some((name, rows_of(inp, method, h)?))
         })
-        .filter(|(_, rows)| !rows.is_empty())
         .collect();
     if series.is_empty() {
         return None;
@@ -633,7 +892,7 @@ fn hold_kinds(inp: &Inputs) -> Option<Figure> {
         format!(
             "Hold kinds: {} at computation delay {} T (hatched side of a limit fails)",
             rec.method,
-            sig4(inp.report.design_delay)
+            sig4(inp.design_delay)
         ),
         rate_axis().with_range(inp.case.rates.min_hz, inp.case.rates.max_hz),
     );
@@ -721,6 +980,7 @@ fn span_of(times: &[Option<f64>], fallback: f64) -> f64 {
 /// rate, with the overshoot limit and the settling band and limit.
 fn step_response(inp: &Inputs) -> Option<Figure> {
     let (rec, method) = inp.rec?;
+    let report = inp.pick?;
     let figs = rec.figures.as_ref()?;
     let spec = &inp.case.spec;
     let fail_rate = failing_rate(inp, rec, method);
@@ -743,11 +1003,11 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
         (None, Some(k)) => format!("{} fails: {k}", hz(fail_rate)),
         (None, None) => format!("{} fails", hz(fail_rate)),
     };
-    let star_text = format!("{} {}", hz(rec.slowest_rate_hz), star_word(inp.report));
+    let star_text = format!("{} {}", hz(rec.slowest_rate_hz), star_word(report));
     let runs = [
         Run {
             rate: rec.rate_hz,
-            label: format!("{} {}", hz(rec.rate_hz), rate_word(inp.report)),
+            label: format!("{} {}", hz(rec.rate_hz), rate_word(report)),
             style: STYLE_RECOMMENDED,
         },
         Run {
@@ -765,7 +1025,7 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
         },
     ];
     let settle = [
-        inp.report.design.as_ref().and_then(|f| f.settling_time_s),
+        report.design.as_ref().and_then(|f| f.settling_time_s),
         figs.settling_time_s,
         star_eval.figures.as_ref().and_then(|f| f.settling_time_s),
         spec.max_settling_s,
@@ -803,7 +1063,7 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
         let text = format!("settling limit {}", seconds(l));
         panel.vmarks.push(VMark::new(l, text, MarkStyle::Dotted));
     }
-    let plant = match &inp.report.robust {
+    let plant = match &report.robust {
         Some(rb) => format!(
             "nominal plant (f* and the recommendation hold for all {} variants)",
             rb.variants
@@ -813,7 +1073,7 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
     let mut title = format!(
         "Step response, {} at computation delay {} T, {plant} (line: output between samples)",
         rec.method,
-        sig4(inp.report.design_delay)
+        sig4(inp.design_delay)
     );
     for n in notes {
         title = format!("{title}; {n}");
@@ -826,16 +1086,17 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
 /// delay.
 fn disturbance(inp: &Inputs) -> Option<Figure> {
     let (rec, method) = inp.rec?;
+    let report = inp.pick?;
     let figs = rec.figures.as_ref()?;
     let star_eval = inp.lp.sampled(&point_at(inp, method, rec.slowest_rate_hz));
     let recovery = [
-        inp.report.design.as_ref().and_then(|f| f.recovery_time_s),
+        report.design.as_ref().and_then(|f| f.recovery_time_s),
         figs.recovery_time_s,
         star_eval.figures.as_ref().and_then(|f| f.recovery_time_s),
         inp.case.spec.max_recovery_s,
     ];
     let t_end = span_of(&recovery, figs.horizon_s);
-    let d = inp.report.design_delay;
+    let d = inp.design_delay;
     let delay = |rate: f64| {
         format!(
             "delay {} T = {}",
@@ -849,7 +1110,7 @@ fn disturbance(inp: &Inputs) -> Option<Figure> {
             label: format!(
                 "{} {} ({})",
                 hz(rec.rate_hz),
-                rate_word(inp.report),
+                rate_word(report),
                 delay(rec.rate_hz)
             ),
             style: STYLE_RECOMMENDED,
@@ -859,7 +1120,7 @@ fn disturbance(inp: &Inputs) -> Option<Figure> {
             label: format!(
                 "{} {} ({})",
                 hz(rec.slowest_rate_hz),
-                star_word(inp.report),
+                star_word(report),
                 delay(rec.slowest_rate_hz)
             ),
             style: STYLE_STAR,
@@ -910,6 +1171,7 @@ fn disturbance(inp: &Inputs) -> Option<Figure> {
 /// Magnitude and phase of the loop gain at the recommended rate.
 fn loop_response(inp: &Inputs) -> Option<Figure> {
     let (rec, method) = inp.rec?;
+    let report = inp.pick?;
     let p = point_at(inp, method, rec.rate_hz);
     let l = inp.lp.sampled_loop_gain(&p).ok()?;
     let detail = inp.lp.sampled(&p).loop_detail?;
@@ -1052,7 +1314,7 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
     if detail.phase_margin_deg.is_none() {
         missing.push("no gain crossover, so no phase margin mark");
     }
-    let at = if rate_word(inp.report) == "recommended" {
+    let at = if rate_word(report) == "recommended" {
         "the recommended rate"
     } else {
         "the rate the spec alone needs"
@@ -1142,7 +1404,6 @@ fn clip_magnitude(mag: &mut Panel, gain_margin_db: Option<f64>) {
 /// CPU load against the rate with the budget line and the rate window.
 fn cpu_budget(inp: &Inputs) -> Option<Figure> {
     let b = inp.case.budget.as_ref()?;
-    let report = inp.report;
     let mut panel = Panel::new(Axis::linear("CPU load (%)"));
     // The load is drawn on its own dense grid, from the slowest swept rate
     // to past both the swept range and the budget's ceiling, so the whole
@@ -1150,8 +1411,8 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
     let lo = inp.case.rates.min_hz;
     let hi = [
         inp.case.rates.max_hz,
-        report.cpu_ceiling_hz.unwrap_or(0.0) * 1.3,
-        report.recommended.as_ref().map_or(0.0, |r| r.rate_hz * 1.3),
+        inp.pick.and_then(|p| p.cpu_ceiling_hz).unwrap_or(0.0) * 1.3,
+        inp.rec.map_or(0.0, |(r, _)| r.rate_hz * 1.3),
     ]
     .into_iter()
     .filter(|v| v.is_finite())
@@ -1170,8 +1431,8 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
     let integrators = crate::model::rounding::design_integrators(&inp.lp.controller);
     // Methods with the same load share one line and one legend entry.
     let mut loads: Vec<(Vec<String>, Points)> = Vec::new();
-    for (method, rows) in design_series(inp) {
-        let m = rows[0].point.method;
+    for m in case_methods(inp.case) {
+        let method = method_label(m);
         let pts: Vec<(f64, f64)> = rates
             .iter()
             .map(|&f| {
@@ -1201,13 +1462,15 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
         Side::Above,
         format!("max load {} %", sig4(b.max_load_pct)),
     ));
-    let title = match (&report.window, &report.recommended) {
-        (Some(w), _) if w.empty => format!(
+    let window = inp.pick.and_then(|p| p.window.as_ref());
+    let title = match (inp.pick, window) {
+        (None, _) => "CPU load vs rate (sweep only: run pick for the rate window)".into(),
+        (Some(_), Some(w)) if w.empty => format!(
             "CPU load vs rate: NO rate window - the spec needs at least {} but the budget allows at most {}",
             hz(w.low_hz),
             hz(w.high_hz)
         ),
-        (Some(w), _) => format!(
+        (Some(_), Some(w)) => format!(
             "CPU load vs rate: rate window {} to {} (shaded){}",
             hz(w.low_hz),
             hz(w.high_hz),
@@ -1217,34 +1480,39 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
                 b => format!(", top set by the {b}"),
             }
         ),
-        (None, Some(_)) => {
+        (Some(p), None) if p.recommended.is_some() => {
             "CPU load vs rate (the load of the chosen controller is unknown)".to_string()
         }
-        (None, None) if report.methods.is_empty() => {
-            "CPU load vs rate (sweep only: run pick for the rate window)".into()
+        (Some(p), None) if !p.design_failures.is_empty() || p.methods.is_empty() => {
+            "CPU load vs rate: the continuous design already fails the spec, so there is no window"
+                .into()
         }
-        (None, None) => "CPU load vs rate: no method meets the spec, so there is no window".into(),
+        (Some(_), None) => {
+            "CPU load vs rate: no method meets the spec, so there is no window".into()
+        }
     };
-    if let Some(w) = &report.window
+    if let Some(w) = window
         && !w.empty
     {
         panel
             .bands
             .push(XBand::new(w.low_hz, w.high_hz, "rate window"));
     }
-    if let Some(r) = &report.recommended {
-        panel.vmarks.push(VMark::new(
-            r.rate_hz,
-            format!("{} {}", rate_word(report), hz(r.rate_hz)),
-            MarkStyle::Solid,
-        ));
-    }
-    if let Some(c) = report.cpu_ceiling_hz {
-        panel.vmarks.push(VMark::new(
-            c,
-            format!("budget ceiling {}", hz(c)),
-            MarkStyle::Dashed,
-        ));
+    if let Some(p) = inp.pick {
+        if let Some(r) = &p.recommended {
+            panel.vmarks.push(VMark::new(
+                r.rate_hz,
+                format!("{} {}", rate_word(p), hz(r.rate_hz)),
+                MarkStyle::Solid,
+            ));
+        }
+        if let Some(c) = p.cpu_ceiling_hz {
+            panel.vmarks.push(VMark::new(
+                c,
+                format!("budget ceiling {}", hz(c)),
+                MarkStyle::Dashed,
+            ));
+        }
     }
     if panel.series.is_empty() {
         panel.notes.push(Annotation::new(
@@ -1261,9 +1529,8 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
 /// design delay: the controller's pole error and DC gain error, with each
 /// format's precision ceiling marked. Only with `[arithmetic]`.
 fn precision_chart(inp: &Inputs) -> Option<Figure> {
-    let pr = inp.report.precision.as_ref();
-    let first = inp.rows.first()?;
-    if first.precision.is_empty() {
+    let pr = inp.pick.and_then(|p| p.precision.as_ref());
+    if inp.formats.is_empty() {
         return None;
     }
     let series = design_series(inp);
@@ -1271,12 +1538,8 @@ fn precision_chart(inp: &Inputs) -> Option<Figure> {
         Some((r, _)) => series.into_iter().find(|(m, _)| *m == r.method)?,
         None => series.into_iter().next()?,
     };
-    let formats: Vec<String> = first.precision.iter().map(|p| p.format.name()).collect();
-    type Pick = fn(&crate::model::rounding::Damage) -> Option<f64>;
-    let panels: [(&str, Pick); 2] = [
-        ("controller pole error (%)", |d| Some(d.pole_error_pct)),
-        ("DC gain error (%)", |d| d.dc_gain_error_pct),
-    ];
+    let formats: Vec<String> = inp.formats.iter().map(|f| f.name()).collect();
+    let panels = ["controller pole error (%)", "DC gain error (%)"];
     let structure = inp
         .case
         .arithmetic
@@ -1289,21 +1552,12 @@ fn precision_chart(inp: &Inputs) -> Option<Figure> {
         rate_axis(),
     );
     let mut empty = Vec::new();
-    for (label, get) in panels {
+    for (j, label) in panels.into_iter().enumerate() {
         let mut panel = Panel::new(Axis::log(label));
         for (k, f) in formats.iter().enumerate() {
-            let pts: Points = rows
-                .iter()
-                .map(|r| {
-                    let v = r.precision[k]
-                        .damage
-                        .as_ref()
-                        .and_then(get)
-                        .filter(|v| *v > 0.0)
-                        .unwrap_or(f64::NAN);
-                    (r.point.rate_hz, v)
-                })
-                .collect();
+            let Some(pts) = rows.precision.get(k).map(|p| p[j].clone()) else {
+                continue;
+            };
             if pts.iter().any(|p| p.1.is_finite()) {
                 panel.series.push(Series::line(f.clone(), pts, k));
             }
@@ -1319,10 +1573,10 @@ fn precision_chart(inp: &Inputs) -> Option<Figure> {
                 }
             }
         }
-        if let Some((r, _)) = inp.rec {
+        if let (Some((r, _)), Some(p)) = (inp.rec, inp.pick) {
             panel.vmarks.push(VMark::new(
                 r.rate_hz,
-                format!("{} {}", rate_word(inp.report), hz(r.rate_hz)),
+                format!("{} {}", rate_word(p), hz(r.rate_hz)),
                 MarkStyle::Solid,
             ));
         }
@@ -1346,7 +1600,8 @@ fn precision_chart(inp: &Inputs) -> Option<Figure> {
 /// approximation and the continuous design, over the case's rates.
 fn hold_approximation(inp: &Inputs) -> Option<Figure> {
     let (rec, method) = inp.rec?;
-    let design = inp.report.design.as_ref()?;
+    let report = inp.pick?;
+    let design = report.design.as_ref()?;
     let (lo, hi) = (inp.case.rates.min_hz, inp.case.rates.max_hz);
     let n = HOLD_CHART_RATES;
     let rates: Vec<f64> = (0..n)
@@ -1368,7 +1623,7 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
             "Hold approximations vs the exact sampled loop ({}, {} hold, computation delay {} T)",
             rec.method,
             rec.hold,
-            sig4(inp.report.design_delay)
+            sig4(inp.design_delay)
         ),
         rate_axis().with_range(lo, hi),
     );
@@ -1417,7 +1672,7 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
         panel.vmarks.push(VMark::new(
             rec.rate_hz,
             if i == 0 {
-                format!("{} {}", rate_word(inp.report), hz(rec.rate_hz))
+                format!("{} {}", rate_word(report), hz(rec.rate_hz))
             } else {
                 String::new()
             },

@@ -12,7 +12,7 @@ use crate::explore::search::method_label;
 use crate::explore::sweep::SweepRow;
 use crate::explore::variants::VariantSet;
 use crate::output::writer::folder_of;
-use crate::sampled::evaluate::{Evaluation, Figures};
+use crate::sampled::evaluate::{Evaluation, Figures, Status};
 use crate::sampled::feasibility::Assessment;
 use crate::sampled::figure::Figure;
 
@@ -232,7 +232,11 @@ pub fn sweep_record(r: &SweepRow, variants: Option<&VariantSet>) -> Vec<String> 
 pub struct SweepCsvStream {
     path: std::path::PathBuf,
     header: Vec<u8>,
+    /// Cells a line has (a row that was not evaluated is padded to it).
+    columns: usize,
     series_len: usize,
+    /// Names the spill files (`sweep`, `variants`).
+    prefix: &'static str,
     spills: Vec<(std::path::PathBuf, std::io::BufWriter<fs::File>)>,
     error: Option<std::io::Error>,
 }
@@ -248,24 +252,49 @@ impl SweepCsvStream {
         formats: &[String],
         variants: bool,
     ) -> Result<SweepCsvStream, Error> {
+        let header = sweep_header(formats, variants);
+        SweepCsvStream::create_with(path, series, series_len, &header, "sweep")
+    }
+
+    /// `variants.csv` as a stream (`sweep --variants`): the lines of
+    /// [`variants_csv`], written as the rows are finished.
+    pub fn create_variants(
+        path: &Path,
+        series: usize,
+        series_len: usize,
+        variants: &VariantSet,
+    ) -> Result<SweepCsvStream, Error> {
+        let header = variants_header(variants);
+        SweepCsvStream::create_with(path, series, series_len, &header, "variants")
+    }
+
+    fn create_with(
+        path: &Path,
+        series: usize,
+        series_len: usize,
+        header: &[String],
+        prefix: &'static str,
+    ) -> Result<SweepCsvStream, Error> {
         let err = |e: std::io::Error| Error::Output {
             path: path.display().to_string(),
             message: e.to_string(),
         };
         let dir = folder_of(path).map_err(err)?;
         let mut w = csv::Writer::from_writer(Vec::new());
-        let _ = w.write_record(sweep_header(formats, variants));
-        let header = w.into_inner().unwrap_or_default();
+        let _ = w.write_record(header);
+        let header_bytes = w.into_inner().unwrap_or_default();
         let mut stream = SweepCsvStream {
             path: path.to_path_buf(),
-            header,
+            header: header_bytes,
+            columns: header.len(),
             series_len: series_len.max(1),
+            prefix,
             spills: Vec::with_capacity(series),
             error: None,
         };
         let pid = std::process::id();
         for k in 0..series {
-            let spill = dir.join(format!(".sweep-series-{k}.csv.partial-{pid}"));
+            let spill = dir.join(format!(".{prefix}-series-{k}.csv.partial-{pid}"));
             let f = fs::File::create(&spill).map_err(err)?;
             stream.spills.push((spill, std::io::BufWriter::new(f)));
         }
@@ -277,6 +306,16 @@ impl SweepCsvStream {
     /// (the sweep delivers them so). A write error is kept and returned by
     /// `finish`.
     pub fn push(&mut self, index: usize, row: &SweepRow, variants: Option<&VariantSet>) {
+        self.write_records(index, [sweep_record(row, variants)]);
+    }
+
+    /// Add the lines of grid point `index` to a `variants.csv` stream: one
+    /// per plant variant (none when the row kept no variant's evaluation).
+    pub fn push_variants(&mut self, index: usize, row: &SweepRow, variants: &VariantSet) {
+        self.write_records(index, variant_records(row, variants));
+    }
+
+    fn write_records(&mut self, index: usize, records: impl IntoIterator<Item = Vec<String>>) {
         if self.error.is_some() {
             return;
         }
@@ -285,7 +324,14 @@ impl SweepCsvStream {
             return;
         };
         let mut w = csv::Writer::from_writer(Vec::new());
-        let _ = w.write_record(sweep_record(row, variants));
+        for mut rec in records {
+            // A row that was not evaluated has its point, status and
+            // verdict: the figure columns after them stay empty.
+            if rec.len() < self.columns {
+                rec.resize(self.columns, String::new());
+            }
+            let _ = w.write_record(&rec);
+        }
         let line = w.into_inner().unwrap_or_default();
         if let Err(e) = out.write_all(&line) {
             self.error = Some(e);
@@ -340,7 +386,9 @@ impl SweepCsvStream {
         if let Ok(entries) = fs::read_dir(dir) {
             for e in entries.flatten() {
                 let n = e.file_name().to_string_lossy().into_owned();
-                if n.starts_with(".sweep-series-") && n.ends_with(&format!(".partial-{pid}")) {
+                if n.starts_with(&format!(".{}-series-", self.prefix))
+                    && n.ends_with(&format!(".partial-{pid}"))
+                {
                     let _ = fs::remove_file(e.path());
                 }
             }
@@ -362,22 +410,47 @@ impl Drop for SweepCsvStream {
 /// the columns of [`sweep_columns`].
 pub fn variants_csv(rows: &[SweepRow], variants: &VariantSet) -> Vec<u8> {
     let mut w = csv::Writer::from_writer(Vec::new());
-    let mut header: Vec<String> = vec!["variant".into()];
-    header.extend(variants.names.iter().cloned());
-    header.extend(sweep_columns());
-    let _ = w.write_record(&header);
+    let _ = w.write_record(variants_header(variants));
     for r in rows {
-        let Some(rb) = r.robust.as_ref() else {
-            continue;
-        };
-        for (i, (e, a)) in rb.each.iter().enumerate() {
-            let mut rec = vec![i.to_string()];
-            rec.extend(variants.values[i].iter().map(|v| num(*v)));
-            rec.extend(point_cells(r, e, a));
+        for rec in variant_records(r, variants) {
             let _ = w.write_record(&rec);
         }
     }
     w.into_inner().unwrap_or_default()
+}
+
+/// The header of `variants.csv`.
+fn variants_header(variants: &VariantSet) -> Vec<String> {
+    let mut header: Vec<String> = vec!["variant".into()];
+    header.extend(variants.names.iter().cloned());
+    header.extend(sweep_columns());
+    header
+}
+
+/// The lines of `variants.csv` for one row, in variant order.
+fn variant_records(r: &SweepRow, variants: &VariantSet) -> Vec<Vec<String>> {
+    let Some(rb) = r.robust.as_ref() else {
+        // A row not evaluated says so for every variant.
+        if !matches!(r.eval.status, Status::NotEvaluated(_)) {
+            return Vec::new();
+        }
+        return (0..variants.len())
+            .map(|i| {
+                let mut rec = vec![i.to_string()];
+                rec.extend(variants.values[i].iter().map(|v| num(*v)));
+                rec.extend(point_cells(r, &r.eval, &r.assessment));
+                rec
+            })
+            .collect();
+    };
+    (rb.each.iter().enumerate())
+        .map(|(i, (e, a))| {
+            let mut rec = vec![i.to_string()];
+            rec.extend(variants.values[i].iter().map(|v| num(*v)));
+            rec.extend(point_cells(r, e, a));
+            rec
+        })
+        .collect()
 }
 
 /// `--trace` CSV: `response,t_s,y,u,sample` rows for the reference step

@@ -35,16 +35,21 @@ pub enum Status {
     Marginal,
     /// Could not be evaluated; the reason says why.
     Error(String),
+    /// Not evaluated, on purpose: the reason says why (for example, the
+    /// continuous design already fails the spec, so no rate can pass).
+    NotEvaluated(String),
 }
 
 impl Status {
-    /// Text used in CSV and tables: `ok`, `unstable`, `marginal`, `error: reason`.
+    /// Text used in CSV and tables: `ok`, `unstable`, `marginal`, `error: reason`,
+    /// `not evaluated: reason`.
     pub fn label(&self) -> String {
         match self {
             Status::Ok => "ok".into(),
             Status::Unstable => "unstable".into(),
             Status::Marginal => "marginal".into(),
             Status::Error(e) => format!("error: {e}"),
+            Status::NotEvaluated(e) => format!("not evaluated: {e}"),
         }
     }
 }
