@@ -734,7 +734,13 @@ impl<'s, 'a> Run<'s, 'a> {
                     c.re += l.re * d;
                     c.im += l.im * d;
                 }
-                let polar = (c.norm(), c.arg());
+                // The phase only matters for a pair (`StretchMode::term`).
+                let arg = if m.mode.lambda.im == 0.0 {
+                    0.0
+                } else {
+                    c.arg()
+                };
+                let polar = (c.norm(), arg);
                 let (a, b) = m.term(c, polar, &m.y, level);
                 ylo += a;
                 yhi += b;
