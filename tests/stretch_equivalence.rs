@@ -22,22 +22,36 @@ fn transfer(num: &[f64], den: &[f64]) -> Transfer {
     Transfer::new(Poly::from_descending(num), Poly::from_descending(den))
 }
 
-/// Relative agreement asked of values. The issue asks 1e-9; measured, the
-/// jumped states differ from the walk's by up to 1.6e-9 relative in the
-/// output on the stiffer points (the oven at 12.7 Hz, the compare case at
-/// 4.3 kHz: both routes carry rounding of that order, two walks summed in
-/// another order differ by 2e-11 there) and by 1.14e-8 on the gimbal's
-/// load-step peak at 16.2 kHz (matched, d = 0: the loop matrix is close to
-/// I there, and the stored powers `A^(2^p) - I` each carry the rounding of
-/// the squarings before them), so values are held to 2e-8. Closing that
-/// gap needs powers kept in double-double (see README, Not done yet).
-const VALUE_REL: f64 = 2e-8;
+/// Relative agreement asked of values: the issue's 1e-9. Measured gap
+/// after the powers were carried in double-double: at most 1e-9 on every
+/// demo case, the compare case, the lightly damped loop and the random
+/// loops (before: 1.14e-8 on the gimbal's load-step peak at 16.2 kHz). The
+/// one exception is the loop moved to the controller's modal coordinates
+/// (`BASIS_VALUE_REL`).
+const VALUE_REL: f64 = 1e-9;
+
+/// Relative agreement for a loop the figures are found in the controller's
+/// modal coordinates: that loop matrix `S^-1 A S` is rounded to double, a
+/// perturbation of the loop of the order of the rounding times the
+/// condition of `S`. Measured on the bench loop at 50 kHz (step-invariant,
+/// d = 0.5): the load-step peak 1.7e-9 from the walk, while the walk is
+/// within 1.3e-12 of a walk in double-double; the same jumps in the loop's
+/// own coordinates are 9.6e-9 off (its controller states are large). See
+/// `docs/rounding.md` and `tests/double_double_walk.rs`.
+const BASIS_VALUE_REL: f64 = 2e-9;
+
+thread_local! {
+    /// The relative agreement `compare` asks (`VALUE_REL` unless a test
+    /// says otherwise).
+    static VALUE_REL_NOW: std::cell::Cell<f64> = const { std::cell::Cell::new(VALUE_REL) };
+}
 
 /// Equal to `VALUE_REL` relative of `scale`, or within `abs`.
 fn close_abs(a: Option<f64>, b: Option<f64>, scale: f64, abs: f64, what: &str, at: &str) {
+    let rel = VALUE_REL_NOW.with(|v| v.get());
     match (a, b) {
         (Some(x), Some(y)) => assert!(
-            (x - y).abs() <= (VALUE_REL * scale.max(x.abs()).max(y.abs())).max(abs),
+            (x - y).abs() <= (rel * scale.max(x.abs()).max(y.abs())).max(abs),
             "{at}: {what} {x} (stretches) vs {y} (walk)"
         ),
         (x, y) => assert_eq!(x, y, "{at}: {what}"),
@@ -292,6 +306,7 @@ proptest! {
 /// loop's own coordinates.
 #[test]
 fn a_controller_far_faster_than_its_poles_matches_the_full_walk() {
+    VALUE_REL_NOW.with(|v| v.set(BASIS_VALUE_REL));
     let wn = 2.0 * std::f64::consts::PI * 60.0;
     let plant = Transfer::new(
         Poly::constant(400.0 * wn * wn),

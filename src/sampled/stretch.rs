@@ -41,6 +41,21 @@
 //! Every bound is widened by margins for rounding (as the walk's stop
 //! bounds are) and by the modal residual allowance.
 //!
+//! Those boxes, one a mode, cannot see that the modes' terms cancel where
+//! the response is flat (near a peak the slope is nearly 0 while each
+//! term moves): their sum over a stretch of `m` periods is too wide by
+//! about the stretch's length, so a peak search opened every period within
+//! `sqrt(T)` of the peak, a number growing as `sqrt(rate)`. A second bound,
+//! the slope form (`Slope`), is taken with them (both hold, so their
+//! intersection does): the exact deviations of the stretch's first two
+//! periods make a straight line in q, the modes slow against the stretch
+//! (`(m - 1) |lambda - 1| <= 1`) follow it up to a remainder
+//! `|lambda - 1|^2 q (q - 1) / 2`, and the others enter with their boxes
+//! less their part of the line. Near a peak it is tight to second order,
+//! and the number of single periods a search opens no longer grows with
+//! the rate (the compare loop's peak searches: 2 single periods at 1 kHz
+//! and at 100 kHz; 38 and 389 with the boxes alone).
+//!
 //! # Searches
 //!
 //! - Peaks (overshoot, command peak, disturbance peak): best-first over
@@ -59,8 +74,9 @@
 //!
 //! The instants and values are those a walk through every point of every
 //! period of the horizon finds (same point, same interpolation formulas;
-//! the states differ from the walk's only by rounding), which
-//! `tests/stretch_equivalence.rs` checks.
+//! the states differ from the walk's only by rounding: values within 1e-9
+//! relative, see `docs/rounding.md`), which `tests/stretch_equivalence.rs`
+//! checks.
 
 use std::cmp::Ordering;
 use std::collections::BinaryHeap;
@@ -74,12 +90,10 @@ use crate::sampled::output_map::{OutputMap, ROUNDING_MARGIN, crossing, mat_vec};
 
 /// Most single periods one search opens before it gives up (the figure is
 /// then undecided here, and `time_response::sampled_figures` walks that
-/// response instead). With a well-separated modal form a search opens a
-/// few dozen. The bounds get loose when modes crowd together (at rates far
-/// above the loop's modes two nearly equal eigenvalues have nearly
-/// parallel eigenvectors whose terms cancel in the output, and each term
-/// is bounded alone), and without a modal form (the energy bound cannot
-/// tell the phase of an oscillation); then the budget runs out.
+/// response instead). With a modal form a search opens a few (the slope
+/// form keeps that number from growing with the rate). Without a modal
+/// form (the energy bound cannot tell the phase of an oscillation) the
+/// budget can run out.
 pub const LEAF_BUDGET: u64 = 1 << 12;
 
 /// Most nodes (of any level) one search looks at: with bounds that rule
@@ -91,6 +105,53 @@ pub const NODE_BUDGET: u64 = 64 * LEAF_BUDGET;
 /// Relative size of the rounding of one output or command at the fixed
 /// point (dot products of a few tens of terms: about 1e-15; kept wide).
 const FLOOR_ROUNDING: f64 = 1e-12;
+
+/// A value carried as an unevaluated sum `hi + lo` of two doubles (about
+/// 32 digits), for the squarings of the loop matrix's powers.
+#[derive(Debug, Clone, Copy)]
+struct DoubleDouble {
+    hi: f64,
+    lo: f64,
+}
+
+impl DoubleDouble {
+    /// `a + b` exactly (Knuth's two-sum).
+    fn sum(a: f64, b: f64) -> DoubleDouble {
+        let s = a + b;
+        let bb = s - a;
+        DoubleDouble {
+            hi: s,
+            lo: (a - (s - bb)) + (b - bb),
+        }
+    }
+
+    /// `2 B + B B` for the row-major `dim x dim` matrix `B`: each product
+    /// `hi hi` exact by a fused multiply-add, the cross terms `hi lo` in
+    /// double, the sum's rounding errors gathered in `lo`.
+    fn twice_plus_square(b: &[DoubleDouble], dim: usize) -> Vec<DoubleDouble> {
+        let mut out = Vec::with_capacity(dim * dim);
+        for i in 0..dim {
+            for j in 0..dim {
+                let own = b[i * dim + j];
+                let (mut hi, mut lo) = (2.0 * own.hi, 2.0 * own.lo);
+                for k in 0..dim {
+                    let x = b[i * dim + k];
+                    if x.hi == 0.0 && x.lo == 0.0 {
+                        continue;
+                    }
+                    let y = b[k * dim + j];
+                    let p = x.hi * y.hi;
+                    let p_err = x.hi.mul_add(y.hi, -p);
+                    let s = DoubleDouble::sum(hi, p);
+                    hi = s.hi;
+                    lo += s.lo + p_err + (x.hi * y.lo + x.lo * y.hi);
+                }
+                out.push(DoubleDouble::sum(hi, lo));
+            }
+        }
+        out
+    }
+}
 
 /// A node's bounds: every output point and every command in it lies in
 /// `[y_lo, y_hi]` and `[u_lo, u_hi]`.
@@ -169,6 +230,16 @@ struct StretchMode {
     u: RowShare,
     rho_pow: Vec<f64>,
     sweep: Vec<f64>,
+    /// `lambda - 1` (exact in floating point for `lambda` near 1).
+    lm1: nalgebra::Complex<f64>,
+    /// `gamma_j (lambda - 1)` per output point, and `kappa (lambda - 1)`.
+    gamma_d: Vec<nalgebra::Complex<f64>>,
+    kappa_d: nalgebra::Complex<f64>,
+    /// Per level p: `Some(F)` when the mode takes part in the slope form
+    /// over a stretch of `m = 2^p` periods (`(m - 1) |lambda - 1| <= 1`),
+    /// with `F = |lambda - 1|^2 (m - 1)(m - 2) / 2` bounding
+    /// `|lambda^q - 1 - q (lambda - 1)|` for q in `[0, m)`.
+    remainder: Vec<Option<f64>>,
 }
 
 /// Range of `cos` over `[a, b]`.
@@ -199,7 +270,13 @@ fn mul_range(a: (f64, f64), b: (f64, f64)) -> (f64, f64) {
 impl StretchMode {
     /// Range of `w Re(c gamma_j lambda^q)` over the row's points and
     /// `q in [0, m)`, `m = 2^level` (None: every q >= 0).
-    fn term(&self, c: nalgebra::Complex<f64>, row: &RowShare, level: Option<usize>) -> (f64, f64) {
+    fn term(
+        &self,
+        c: nalgebra::Complex<f64>,
+        (c_norm, c_arg): (f64, f64),
+        row: &RowShare,
+        level: Option<usize>,
+    ) -> (f64, f64) {
         let lambda = self.mode.lambda;
         let w = self.mode.weight;
         if lambda.im == 0.0 {
@@ -215,12 +292,12 @@ impl StretchMode {
             let (lo, hi) = mul_range((x.0 - slack, x.1 + slack), factor);
             (w * lo, w * hi)
         } else {
-            let amp = w * c.norm();
+            let amp = w * c_norm;
             let (end_decay, sweep) = match level {
                 Some(p) => (self.rho_pow[p], self.sweep[p]),
                 None => (0.0, f64::INFINITY),
             };
-            let phase = c.arg();
+            let phase = c_arg;
             let (a, b) = if sweep >= 0.0 {
                 (phase + row.arc_lo, phase + row.arc_hi + sweep)
             } else {
@@ -241,6 +318,142 @@ impl StretchMode {
             };
             (lo, hi)
         }
+    }
+}
+
+/// `m - 1` for a stretch of `m = 2^level` periods (0 for the tail, which
+/// the slope form never covers).
+fn m1_of(level: Option<usize>) -> f64 {
+    level.map_or(0.0, |p| ((1u128 << p) - 1) as f64)
+}
+
+/// The slope form of a stretch's bound (see the module doc). For a mode
+/// slow against the stretch, `(m - 1) |lambda - 1| <= 1`, write
+/// `lambda^q = 1 + q (lambda - 1) + f(q)` with
+/// `f(q) = (lambda - 1)^2 sum_{i<q} sum_{k<i} lambda^k`: inside the unit
+/// circle `|f(q)| <= |lambda - 1|^2 q (q - 1) / 2`, and `f(q) >= 0` for a
+/// real `lambda` in `[0, 1]`. The deviation of output point j over the
+/// stretch is then the straight line through its exact values at q = 0
+/// and q = 1 (`g_j . dz` and `g_j . A dz`: no modal rounding), less the
+/// line's share of the other modes, plus those modes' boxes
+/// (`StretchMode::term`) and the slow modes' remainders. A line's extremes
+/// are at the stretch's ends, so where the modes' terms cancel (a flat
+/// peak) the bound is tight to second order in the stretch's length.
+/// Without it a peak search opened about `sqrt(rate)` single periods
+/// around a flat peak (measured: 38 at 1 kHz, 389 at 100 kHz on the
+/// compare loop).
+struct Slope {
+    /// Per output point: constant and slope parts, `sum w Re(c gamma_j)`
+    /// and `sum w Re(c gamma_j (lambda - 1))`; the command's the same.
+    y0: Vec<f64>,
+    y1: Vec<f64>,
+    u0: f64,
+    u1: f64,
+    /// The boxes of modes outside the form and the remainders, summed.
+    y_box: (f64, f64),
+    u_box: (f64, f64),
+    /// Magnitudes of every part, for the modal widening.
+    y_mag: f64,
+    u_mag: f64,
+}
+
+impl Slope {
+    /// The line through the exact deviations of the stretch's first two
+    /// periods: `y0[j] = g_j . dz`, `y1[j] = g_j . (A - I) dz`, the
+    /// command's the same.
+    fn new(y0: Vec<f64>, y1: Vec<f64>, u0: f64, u1: f64) -> Slope {
+        Slope {
+            y0,
+            y1,
+            u0,
+            u1,
+            y_box: (0.0, 0.0),
+            u_box: (0.0, 0.0),
+            y_mag: 0.0,
+            u_mag: 0.0,
+        }
+    }
+
+    /// Add a mode with coordinate `c`: in the form when `rem` is its
+    /// remainder bound, else by its boxes `yb`, `ub`.
+    #[allow(clippy::too_many_arguments)]
+    fn add(
+        &mut self,
+        m: &StretchMode,
+        c: nalgebra::Complex<f64>,
+        c_norm: f64,
+        rem: Option<f64>,
+        m1: f64,
+        yb: (f64, f64),
+        ub: (f64, f64),
+    ) {
+        let w = m.mode.weight;
+        let Some(f) = rem else {
+            // Outside the form: its own box, and its constant and slope
+            // parts taken out of the exact line.
+            self.y_box.0 += yb.0;
+            self.y_box.1 += yb.1;
+            self.u_box.0 += ub.0;
+            self.u_box.1 += ub.1;
+            for (j, (g, gd)) in m.mode.gamma.iter().zip(&m.gamma_d).enumerate() {
+                self.y0[j] -= w * (c.re * g.re - c.im * g.im);
+                self.y1[j] -= w * (c.re * gd.re - c.im * gd.im);
+            }
+            self.u0 -= w * (c.re * m.mode.kappa.re - c.im * m.mode.kappa.im);
+            self.u1 -= w * (c.re * m.kappa_d.re - c.im * m.kappa_d.im);
+            let scale = 1.0 + m1 * m.lm1.norm();
+            self.y_mag += yb.0.abs().max(yb.1.abs()) + w * c_norm * m.y.g_max * scale;
+            self.u_mag += ub.0.abs().max(ub.1.abs()) + w * c_norm * m.u.g_max * scale;
+            return;
+        };
+        let lam = m.mode.lambda;
+        let real_pos = lam.im == 0.0 && lam.re >= 0.0;
+        let rem_box = |row: &RowShare| -> (f64, f64) {
+            if real_pos {
+                // w Re(c gamma_j) f with f in [0, F].
+                let x = mul_range((c.re, c.re), (row.re_lo, row.re_hi));
+                let slack = c.im.abs() * row.im_abs;
+                (
+                    w * f * (x.0 - slack).min(0.0),
+                    w * f * (x.1 + slack).max(0.0),
+                )
+            } else {
+                let r = w * c_norm * row.g_max * f;
+                (-r, r)
+            }
+        };
+        let (a, b) = rem_box(&m.y);
+        self.y_box.0 += a;
+        self.y_box.1 += b;
+        self.y_mag += w * c_norm * m.y.g_max * f;
+        let (a, b) = rem_box(&m.u);
+        self.u_box.0 += a;
+        self.u_box.1 += b;
+        self.u_mag += w * c_norm * m.u.g_max * f;
+    }
+
+    /// Range of the output's deviation over the stretch, and its magnitude.
+    fn y_range(&self, m1: f64) -> (f64, f64, f64) {
+        let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
+        for (a, b) in self.y0.iter().zip(&self.y1) {
+            let e = a + m1 * b;
+            lo = lo.min(a.min(e));
+            hi = hi.max(a.max(e));
+        }
+        if self.y0.is_empty() {
+            (lo, hi) = (0.0, 0.0);
+        }
+        (lo + self.y_box.0, hi + self.y_box.1, self.y_mag)
+    }
+
+    /// Range of the command's deviation over the stretch, and its magnitude.
+    fn u_range(&self, m1: f64) -> (f64, f64, f64) {
+        let e = self.u0 + m1 * self.u1;
+        (
+            self.u0.min(e) + self.u_box.0,
+            self.u0.max(e) + self.u_box.1,
+            self.u_mag,
+        )
     }
 }
 
@@ -341,25 +554,28 @@ impl<'a> Stretches<'a> {
         // fast the powers are close to I for many levels, and this form
         // keeps the digits a plain square `A A` rounds away (its error
         // doubles with every level; measured: 1e-9 relative on the compare
-        // case at 4 kHz against 5e-11 for this form, the size of the
-        // difference between two walks summed in another order).
+        // case at 4 kHz against 5e-11 for this form). The squarings are
+        // carried in double-double (`DoubleDouble`) and each power rounded
+        // once to double: in double alone, the error of a loop whose large
+        // entries cancel grows about tenfold a level (measured on the
+        // gimbal demo at 16.2 kHz: 8e-9 relative at level 11, and 1.1e-8 on
+        // its load-step peak against a walk that is within 4e-14 of one in
+        // double-double; with these powers, 2e-11).
         let mut powers = Vec::with_capacity(levels + 1);
-        let mut b: Vec<f64> = (0..dim * dim)
-            .map(|i| cl.a[(i / dim, i % dim)] - if i / dim == i % dim { 1.0 } else { 0.0 })
+        let mut b: Vec<DoubleDouble> = (0..dim * dim)
+            .map(|i| {
+                let a = cl.a[(i / dim, i % dim)];
+                if i / dim == i % dim {
+                    DoubleDouble::sum(a, -1.0)
+                } else {
+                    DoubleDouble { hi: a, lo: 0.0 }
+                }
+            })
             .collect();
         for _ in 0..=levels {
-            let mut next: Vec<f64> = b.iter().map(|v| 2.0 * v).collect();
-            for i in 0..dim {
-                for k in 0..dim {
-                    let a = b[i * dim + k];
-                    if a != 0.0 {
-                        for j in 0..dim {
-                            next[i * dim + j] += a * b[k * dim + j];
-                        }
-                    }
-                }
-            }
-            powers.push(std::mem::replace(&mut b, next));
+            let next = DoubleDouble::twice_plus_square(&b, dim);
+            powers.push(b.iter().map(|v| v.hi + v.lo).collect());
+            b = next;
         }
         let modes = cert.and_then(|c| c.modes()).map(|ms| {
             ms.iter()
@@ -374,9 +590,24 @@ impl<'a> Stretches<'a> {
                         sweep.push(((1u128 << lv) - 1) as f64 * theta);
                         rp = rp * rp * rho;
                     }
+                    let lm1 = m.lambda - nalgebra::Complex::new(1.0, 0.0);
+                    let d = lm1.norm();
+                    let remainder = (0..=levels)
+                        .map(|lv| {
+                            let m1 = ((1u128 << lv) - 1) as f64;
+                            // Only for a mode inside the unit circle
+                            // (`|lambda^k| <= 1` in the remainder's sum).
+                            (lv > 0 && rho <= 1.0 && m1 * d <= 1.0)
+                                .then(|| d * d * m1 * (m1 - 1.0).max(0.0) / 2.0)
+                        })
+                        .collect();
                     StretchMode {
                         y: RowShare::new(&m.gamma),
                         u: RowShare::new(&[m.kappa]),
+                        gamma_d: m.gamma.iter().map(|g| g * lm1).collect(),
+                        kappa_d: m.kappa * lm1,
+                        lm1,
+                        remainder,
                         mode: m.clone(),
                         rho_pow,
                         sweep,
@@ -489,21 +720,41 @@ impl<'s, 'a> Run<'s, 'a> {
         let (mut ylo, mut yhi, mut ulo, mut uhi, mut ymag, mut umag) =
             (0.0, 0.0, 0.0, 0.0, 0.0, 0.0);
         let widening;
+        // The slope form (see `Slope`), when some mode takes part in it.
+        let mut slope: Option<(Slope, f64, f64)> = None;
         if let Some(modes) = &s.modes {
+            let p = level.unwrap_or(0);
+            let m1 = m1_of(level);
+            if level.is_some() && modes.iter().any(|m| m.remainder[p].is_some()) {
+                slope = Some(self.exact_line(dz));
+            }
             for m in modes {
                 let mut c = nalgebra::Complex::new(0.0, 0.0);
                 for (l, d) in m.mode.left.iter().zip(dz) {
                     c.re += l.re * d;
                     c.im += l.im * d;
                 }
-                let (a, b) = m.term(c, &m.y, level);
+                // The phase only matters for a pair (`StretchMode::term`).
+                let arg = if m.mode.lambda.im == 0.0 {
+                    0.0
+                } else {
+                    c.arg()
+                };
+                let polar = (c.norm(), arg);
+                let (a, b) = m.term(c, polar, &m.y, level);
                 ylo += a;
                 yhi += b;
                 ymag += a.abs().max(b.abs());
-                let (a, b) = m.term(c, &m.u, level);
+                let (ya, yb) = (a, b);
+                let (a, b) = m.term(c, polar, &m.u, level);
                 ulo += a;
                 uhi += b;
                 umag += a.abs().max(b.abs());
+                let (ua, ub) = (a, b);
+                if let Some((sl, _, _)) = slope.as_mut() {
+                    let rem = level.and_then(|_| m.remainder[p]);
+                    sl.add(m, c, polar.0, rem, m1, (ya, yb), (ua, ub));
+                }
             }
             widening = s.cert.map_or(1e-6, |c| c.modal_widening());
         } else {
@@ -524,6 +775,19 @@ impl<'s, 'a> Run<'s, 'a> {
             u_lo: self.u_end + ulo - mu,
             u_hi: self.u_end + uhi + mu,
         };
+        // Both forms hold: keep what both allow.
+        if let Some((sl, e_y, e_u)) = slope {
+            let m1 = m1_of(level);
+            let (ylo, yhi, ymag) = sl.y_range(m1);
+            let (ulo, uhi, umag) = sl.u_range(m1);
+            // The slope's rounding counts m - 1 times.
+            let my = self.y_floor + ROUNDING_MARGIN * (dz_y + m1 * e_y) + widening * ymag;
+            let mu = self.u_floor + ROUNDING_MARGIN * (dz_u + m1 * e_u) + widening * umag;
+            b.y_lo = b.y_lo.max(self.y_end + ylo - my);
+            b.y_hi = b.y_hi.min(self.y_end + yhi + my);
+            b.u_lo = b.u_lo.max(self.u_end + ulo - mu);
+            b.u_hi = b.u_hi.min(self.u_end + uhi + mu);
+        }
         // The command held at the stretch's start is known exactly.
         b.u_lo = b.u_lo.min(held);
         b.u_hi = b.u_hi.max(held);
@@ -535,6 +799,34 @@ impl<'s, 'a> Run<'s, 'a> {
             (b.u_lo, b.u_hi) = (f64::NEG_INFINITY, f64::INFINITY);
         }
         b
+    }
+
+    /// The exact line of a stretch from `dz` (see `Slope::new`), with the
+    /// size of the terms its slope sums (output, command), for the
+    /// rounding margin.
+    fn exact_line(&self, dz: &[f64]) -> (Slope, f64, f64) {
+        let s = self.s;
+        let map = s.map;
+        let d = s.dim;
+        let b = &s.powers[0];
+        let mut e = vec![0.0; d];
+        let mut e_abs = vec![0.0; d];
+        for i in 0..d {
+            let row = &b[i * d..(i + 1) * d];
+            e[i] = row.iter().zip(dz).map(|(a, x)| a * x).sum::<f64>();
+            e_abs[i] = row.iter().zip(dz).map(|(a, x)| (a * x).abs()).sum::<f64>();
+        }
+        let dot = |row: &[f64], v: &[f64]| row.iter().zip(v).map(|(a, x)| a * x).sum::<f64>();
+        let y0: Vec<f64> = (0..map.np)
+            .map(|j| dot(&map.g[j * d..(j + 1) * d], dz))
+            .collect();
+        let y1: Vec<f64> = (0..map.np)
+            .map(|j| dot(&map.g[j * d..(j + 1) * d], &e))
+            .collect();
+        let ku = s.cl.ku.as_slice();
+        let e_y: f64 = map.g_abs.iter().zip(&e_abs).map(|(a, x)| a * x).sum();
+        let e_u = s.ku_abs.iter().zip(&e_abs).map(|(a, x)| a * x).sum::<f64>() + e_abs[map.n];
+        (Slope::new(y0, y1, dot(ku, dz), dot(ku, &e)), e_y, e_u)
     }
 
     /// The exact points of period k from its state error, summed as the
