@@ -279,7 +279,9 @@ fn cpu_map(case: &Case, rows: &[CascadeRow], pick: &CascadePick) -> Option<Figur
                     let spare = l / 100.0 * b.cpu_hz - ci * f;
                     (spare > 0.0).then(|| (f, co * f / spare))
                 })
-                .filter(|p| p.1 >= 0.5 && p.1 <= n_max * 2.0)
+                // Only where a ratio exists: whole numbers from 1 up to
+                // the largest one listed.
+                .filter(|p| p.1 >= 1.0 && p.1 <= n_max)
                 .collect();
             if pts.len() >= 2 {
                 let label = if l == b.max_load_pct {

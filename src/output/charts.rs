@@ -16,7 +16,7 @@ use std::path::{Path, PathBuf};
 use rayon::prelude::*;
 
 use crate::case::Case;
-use crate::engineering::{seconds, sig4};
+use crate::engineering::{periods, seconds, sig4};
 use crate::error::Error;
 use crate::explore::budget;
 use crate::explore::pick::{PickReport, Recommended, case_methods};
@@ -526,7 +526,7 @@ fn delay_series<'a>(inp: &'a Inputs) -> Vec<(String, &'a RateSeries)> {
     (inp.case.compute_delays.iter())
         .filter_map(|&d| {
             let s = inp.series.iter().find(|s| s.delay == d)?;
-            Some((format!("computation delay {} T", sig4(d)), s))
+            Some((format!("computation delay {}", periods(d)), s))
         })
         .collect()
 }
@@ -820,19 +820,19 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
         None => (inp.case.rates.min_hz, inp.case.rates.max_hz),
     };
     let never_stable = (series.iter()).all(|(_, rows)| rows.unstable == rows.rows);
-    let delay = sig4(inp.design_delay);
+    let delay = periods(inp.design_delay);
     let title = match single {
         Some(f) => format!(
             "Loop figures of the controller given in z at its one rate {} (one point per computation delay; PM phase margin, GM gain margin, Ms sensitivity peak; hatched side of a limit fails)",
             hz(f)
         ),
         None if never_stable => format!(
-            "No swept rate gives a stable loop ({} to {}, computation delay {delay} T)",
+            "No swept rate gives a stable loop ({} to {}, computation delay {delay})",
             hz(lo),
             hz(hi),
         ),
         None => format!(
-            "Loop figures vs rate, computation delay {delay} T{} (PM phase margin, GM gain margin, Ms sensitivity peak; hatched side of a limit fails)",
+            "Loop figures vs rate, computation delay {delay}{} (PM phase margin, GM gain margin, Ms sensitivity peak; hatched side of a limit fails)",
             if robust {
                 ", nominal plant and worst variant"
             } else {
@@ -890,9 +890,9 @@ fn hold_kinds(inp: &Inputs) -> Option<Figure> {
     }
     let mut fig = Figure::new(
         format!(
-            "Hold kinds: {} at computation delay {} T (hatched side of a limit fails)",
+            "Hold kinds: {} at computation delay {} (hatched side of a limit fails)",
             rec.method,
-            sig4(inp.design_delay)
+            periods(inp.design_delay)
         ),
         rate_axis().with_range(inp.case.rates.min_hz, inp.case.rates.max_hz),
     );
@@ -1057,7 +1057,7 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
     panel.hbands.push(YBand::new(
         figs.y_final - band,
         figs.y_final + band,
-        format!("settling band +/-{} %", sig4(spec.settling_band_pct)),
+        format!("settling band ±{} %", sig4(spec.settling_band_pct)),
     ));
     if let Some(l) = spec.max_settling_s {
         let text = format!("settling limit {}", seconds(l));
@@ -1071,9 +1071,9 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
         None => "nominal plant".to_string(),
     };
     let mut title = format!(
-        "Step response, {} at computation delay {} T, {plant} (line: output between samples)",
+        "Step response, {} at computation delay {}, {plant} (line: output between samples)",
         rec.method,
-        sig4(inp.design_delay)
+        periods(inp.design_delay)
     );
     for n in notes {
         title = format!("{title}; {n}");
@@ -1099,8 +1099,8 @@ fn disturbance(inp: &Inputs) -> Option<Figure> {
     let d = inp.design_delay;
     let delay = |rate: f64| {
         format!(
-            "delay {} T = {}",
-            sig4(d),
+            "delay {} = {}",
+            periods(d),
             crate::engineering::seconds(d / rate)
         )
     };
@@ -1136,7 +1136,7 @@ fn disturbance(inp: &Inputs) -> Option<Figure> {
     if let Some(y_end) = end.filter(|v| v.is_finite()) {
         let band = inp.case.spec.settling_band_pct / 100.0 * figs.disturbance_peak;
         let text = format!(
-            "recovery band +/-{} % of the peak ({} recommended)",
+            "recovery band ±{} % of the peak ({} recommended)",
             sig4(inp.case.spec.settling_band_pct),
             hz(rec.rate_hz)
         );
@@ -1620,10 +1620,10 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
         .collect();
     let mut fig = Figure::new(
         format!(
-            "Hold approximations vs the exact sampled loop ({}, {} hold, computation delay {} T)",
+            "Hold approximations vs the exact sampled loop ({}, {} hold, computation delay {})",
             rec.method,
             rec.hold,
-            sig4(inp.design_delay)
+            periods(inp.design_delay)
         ),
         rate_axis().with_range(lo, hi),
     );
