@@ -513,3 +513,56 @@ fn a_long_series_is_thinned_to_the_chart_width() {
         }
     }
 }
+
+#[test]
+fn the_continuous_loop_gain_carries_the_transport_delay() {
+    // Closed form: a pure delay L multiplies the loop gain by e^{-jwL},
+    // which leaves |L| alone and turns the phase by exactly -w L. The loop
+    // of CASE, L(s) = 20/(s(0.05 s + 1)) * 1/(0.001 s + 1) * 2(0.1 s + 1)
+    // /(0.02 s + 1), has the phase -90 - atan(0.05 w) - atan(0.001 w) +
+    // atan(0.1 w) - atan(0.02 w) degrees (no wrap: it starts at -90 deg at
+    // low frequency); with 2 ms at the plant and 1 ms on the measurement
+    // the chart's continuous phase must be that minus 360 f (3 ms).
+    let d = described(
+        &CASE
+            .replace("[sensor]", "delay_s = 0.002\n[sensor]")
+            .replace("[controller]", "delay_s = 0.001\n[controller]"),
+    );
+    let lr = d.chart(charts::LOOP_RESPONSE);
+    let curve = |panel: usize| {
+        lr.panels[panel]
+            .series
+            .iter()
+            .find(|s| s.label == "continuous design")
+            .expect("a continuous design curve")
+            .points
+            .clone()
+    };
+    let phase = curve(1);
+    assert!(phase.len() > 20);
+    for &(f, deg) in &phase {
+        let w = 2.0 * std::f64::consts::PI * f;
+        let rational = -90.0 - (0.05 * w).atan().to_degrees() - (0.001 * w).atan().to_degrees()
+            + (0.1 * w).atan().to_degrees()
+            - (0.02 * w).atan().to_degrees();
+        let expected = rational - 360.0 * f * 0.003;
+        assert!(
+            (deg - expected).abs() < 1e-6 * expected.abs().max(1.0),
+            "at {f} Hz: {deg} deg, expected {expected}"
+        );
+    }
+    // The magnitude is the rational part's: |L(jw)| in dB.
+    for &(f, db) in &curve(0) {
+        let w = 2.0 * std::f64::consts::PI * f;
+        let mag =
+            20.0 / (w * (1.0 + (0.05 * w).powi(2)).sqrt()) / (1.0 + (0.001 * w).powi(2)).sqrt()
+                * 2.0
+                * (1.0 + (0.1 * w).powi(2)).sqrt()
+                / (1.0 + (0.02 * w).powi(2)).sqrt();
+        let expected = 20.0 * mag.log10();
+        assert!(
+            (db - expected).abs() < 1e-9 * expected.abs().max(1.0),
+            "at {f} Hz: {db} dB, expected {expected}"
+        );
+    }
+}

@@ -551,6 +551,16 @@ fn robust_f_star(report: &PickReport, method: &str) -> Option<f64> {
 
 /// The hold kind the charts of methods show: the recommended one, else
 /// the first the case lists.
+/// ` with a first-order hold` when the case lists more than one hold
+/// kind (the chart must say which it shows), else nothing.
+fn hold_words(inp: &Inputs) -> String {
+    if inp.case.holds.len() > 1 {
+        format!(" with a {} hold", design_hold(inp).name())
+    } else {
+        String::new()
+    }
+}
+
 fn design_hold(inp: &Inputs) -> HoldKind {
     inp.rec
         .map(|(r, _)| r.hold)
@@ -637,12 +647,32 @@ fn failing_rate(inp: &Inputs, rec: &Recommended, method: Option<Method>) -> f64 
 }
 
 /// A sampled trace as a line through every point up to `t_end`, plus its
-/// sampling instants as markers (thinned to [`MAX_SAMPLE_MARKERS`]).
-fn trace_series(trace: &[TracePoint], t_end: f64, label: &str, style: usize) -> [Series; 2] {
+/// sampling instants as markers (thinned to [`MAX_SAMPLE_MARKERS`]). The
+/// trace is run `slot.0` of `slot.1` on the panel: with several runs every
+/// run marks at most every other sample, each starting at its own offset,
+/// so the markers of two runs whose rates are 1 % apart alternate instead
+/// of hiding each other.
+fn trace_series(
+    trace: &[TracePoint],
+    t_end: f64,
+    label: &str,
+    style: usize,
+    slot: (usize, usize),
+) -> [Series; 2] {
     let shown = || trace.iter().filter(|p| p.t <= t_end * (1.0 + 1e-12));
     let samples: Points = shown().filter(|p| p.sample).map(|p| (p.t, p.y)).collect();
-    let stride = samples.len().div_ceil(MAX_SAMPLE_MARKERS).max(1);
-    let marks: Points = samples.iter().copied().step_by(stride).collect();
+    let (run, runs) = (slot.0, slot.1.max(1));
+    let stride = samples
+        .len()
+        .div_ceil(MAX_SAMPLE_MARKERS)
+        .max(if runs > 1 { 2 } else { 1 });
+    let offset = run * stride / runs;
+    let marks: Points = samples
+        .iter()
+        .copied()
+        .skip(offset)
+        .step_by(stride)
+        .collect();
     let mark_label = match stride {
         1 => "samples".to_string(),
         n => format!("samples (1 in {n} shown)"),
@@ -765,7 +795,10 @@ fn clip_above(panel: &mut Panel, top: f64, unit: &str) {
     }
     panel.y = panel.y.clone().with_range(0.0, top);
     panel.series.extend(leaving);
-    let text = format!("off scale above {} {unit}", sig4(top));
+    let text = match unit {
+        "s" => format!("off scale above {}", seconds(top)),
+        _ => format!("off scale above {} {unit}", sig4(top)),
+    };
     panel.caption = match panel.caption.is_empty() {
         true => text.trim_end().to_string(),
         false => format!("{}; {}", panel.caption, text.trim_end()),
@@ -949,15 +982,19 @@ fn time_panel(
             Err(e) => notes.push(format!("continuous design not simulated: {e}")),
         }
     }
-    for run in runs {
+    for (i, run) in runs.iter().enumerate() {
         let p = point_at(inp, method, run.rate);
         let periods = (t_end * run.rate).ceil() as usize + 1;
         match inp.lp.sampled_traces(&p, Some(periods)) {
             Ok((s, d)) => {
                 let t = if step { s } else { d };
-                panel
-                    .series
-                    .extend(trace_series(&t, t_end, &run.label, run.style));
+                panel.series.extend(trace_series(
+                    &t,
+                    t_end,
+                    &run.label,
+                    run.style,
+                    (i, runs.len()),
+                ));
             }
             Err(e) => notes.push(format!("{}: not simulated: {e}", run.label)),
         }
@@ -1071,8 +1108,9 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
         None => "nominal plant".to_string(),
     };
     let mut title = format!(
-        "Step response, {} at computation delay {}, {plant} (line: output between samples)",
+        "Step response, {}{} at computation delay {}, {plant} (line: output between samples)",
         rec.method,
+        hold_words(inp),
         periods(inp.design_delay)
     );
     for n in notes {
@@ -1136,9 +1174,10 @@ fn disturbance(inp: &Inputs) -> Option<Figure> {
     if let Some(y_end) = end.filter(|v| v.is_finite()) {
         let band = inp.case.spec.settling_band_pct / 100.0 * figs.disturbance_peak;
         let text = format!(
-            "recovery band ±{} % of the peak ({} recommended)",
+            "recovery band ±{} % of the peak ({} {})",
             sig4(inp.case.spec.settling_band_pct),
-            hz(rec.rate_hz)
+            hz(rec.rate_hz),
+            rate_word(report)
         );
         panel
             .hbands
@@ -1159,8 +1198,9 @@ fn disturbance(inp: &Inputs) -> Option<Figure> {
         });
     }
     let mut title = format!(
-        "Response to a unit load step at the plant input, {}, nominal plant (r = 0)",
-        rec.method
+        "Response to a unit load step at the plant input, {}{}, nominal plant (r = 0)",
+        rec.method,
+        hold_words(inp)
     );
     for n in notes {
         title = format!("{title}; {n}");
@@ -1190,7 +1230,12 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
 
     let mut mag = Panel::new(Axis::linear("magnitude |L| (dB)"));
     let mut ph = Panel::new(Axis::linear("phase of L (deg)"));
-    let label = format!("sampled loop, {} {}", rec.method, hz(rec.rate_hz));
+    let label = format!(
+        "sampled loop, {}{} {}",
+        rec.method,
+        hold_words(inp),
+        hz(rec.rate_hz)
+    );
     mag.series.push(Series::line(
         label.clone(),
         grid.iter()
@@ -1217,7 +1262,14 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
                 (w, inp.lp.plant.eval(s) * inp.lp.sensor.eval(s) * c.eval(s))
             })
             .collect();
-        let cph = unwrapped_phase(&cont);
+        // The transport delays' e^{-jwL} turns the phase only: exactly
+        // -w L, added after unwrapping the rational part.
+        let delay_s = inp.lp.transport.plant_s + inp.lp.transport.sensor_s;
+        let cph: Vec<f64> = unwrapped_phase(&cont)
+            .into_iter()
+            .zip(&cont)
+            .map(|(phi, &(w, _))| phi - (w * delay_s).to_degrees())
+            .collect();
         mag.series.push(Series::line(
             "continuous design",
             cont.iter()
