@@ -500,6 +500,21 @@ pub fn write_charts(out_dir: &Path, input: &ChartInput) -> Result<Vec<Chart>, Er
 
 // ------------------------------------------------------------- helpers
 
+/// The time axis of a response over `[0, t_end]` s: labelled in ms or µs
+/// when the whole span is below 0.1 s or 0.1 ms (the data stay in s).
+fn time_axis(t_end: f64) -> Axis {
+    let (label, scale) = if t_end < 1e-4 {
+        ("time (µs)", 1e6)
+    } else if t_end < 0.1 {
+        ("time (ms)", 1e3)
+    } else {
+        ("time (s)", 1.0)
+    };
+    Axis::linear(label)
+        .with_range(0.0, t_end)
+        .with_label_scale(scale)
+}
+
 fn rate_axis() -> Axis {
     Axis::log("loop rate (Hz)")
 }
@@ -1116,7 +1131,7 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
     for n in notes {
         title = format!("{title}; {n}");
     }
-    Some(Figure::new(title, Axis::linear("time (s)").with_range(0.0, t_end)).with_panel(panel))
+    Some(Figure::new(title, time_axis(t_end)).with_panel(panel))
 }
 
 /// Load-disturbance response at the recommended rate and at f_star, with
@@ -1205,7 +1220,7 @@ fn disturbance(inp: &Inputs) -> Option<Figure> {
     for n in notes {
         title = format!("{title}; {n}");
     }
-    Some(Figure::new(title, Axis::linear("time (s)").with_range(0.0, t_end)).with_panel(panel))
+    Some(Figure::new(title, time_axis(t_end)).with_panel(panel))
 }
 
 /// Magnitude and phase of the loop gain at the recommended rate.
@@ -1696,20 +1711,40 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
             .drawn(Draw::LineAndMarkers),
         );
         for (k, kind) in HoldApprox::ALL.iter().enumerate() {
-            panel.series.push(Series::line(
-                named(&format!("{} approximation", kind.name())),
-                rates
-                    .iter()
-                    .zip(&evals)
-                    .map(|(&f, (_, a))| (f, figure_of(&a[k], def)))
-                    .collect(),
-                // Styles 1, 2, 3, then 5: 4 is the continuous design's.
-                if k + 1 >= STYLE_CONTINUOUS {
-                    k + 2
-                } else {
-                    k + 1
-                },
-            ));
+            // Markers as well as dashes: the approximations lie close
+            // together and must stay apart in greyscale.
+            panel.series.push(
+                Series::line(
+                    named(&format!("{} approximation", kind.name())),
+                    rates
+                        .iter()
+                        .zip(&evals)
+                        .map(|(&f, (_, a))| (f, figure_of(&a[k], def)))
+                        .collect(),
+                    // Styles 1, 2, 3, then 5: 4 is the continuous design's.
+                    if k + 1 >= STYLE_CONTINUOUS {
+                        k + 2
+                    } else {
+                        k + 1
+                    },
+                )
+                .drawn(Draw::LineAndMarkers),
+            );
+        }
+        // A curve stops where its loop has no such figure (unstable, or
+        // no crossing): say so, as the rate chart does.
+        let gaps = evals
+            .iter()
+            .filter(|(e, a)| {
+                figure_of(e, def).is_nan() || a.iter().any(|x| figure_of(x, def).is_nan())
+            })
+            .count();
+        if gaps > 0 {
+            panel.caption = format!(
+                "gaps: no {} at {gaps} of {} rates (loop unstable or no such figure)",
+                def.short_label(),
+                evals.len()
+            );
         }
         if let Some(v) = def.limited_value(design) {
             panel.series.push(hline(
@@ -1733,4 +1768,21 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
         fig = fig.with_panel(panel);
     }
     Some(fig)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_short_response_is_labelled_in_milliseconds_or_microseconds() {
+        // The data stay in seconds; only the labels change unit.
+        let ms = time_axis(0.012);
+        assert_eq!((ms.label.as_str(), ms.label_scale), ("time (ms)", 1e3));
+        assert_eq!(ms.range, Some((0.0, 0.012)));
+        let us = time_axis(5e-5);
+        assert_eq!((us.label.as_str(), us.label_scale), ("time (µs)", 1e6));
+        let s = time_axis(0.35);
+        assert_eq!((s.label.as_str(), s.label_scale), ("time (s)", 1.0));
+    }
 }

@@ -87,7 +87,7 @@ impl Figure {
 }
 
 /// One axis: its label (with units) and scale.
-#[derive(Debug, Clone, PartialEq, Default)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct Axis {
     /// Label with units, e.g. "loop rate (Hz)".
     pub label: String,
@@ -96,6 +96,15 @@ pub struct Axis {
     /// Visible range; `None` fits the data. A reversed pair is swapped
     /// and a zero-width one widened.
     pub range: Option<(f64, f64)>,
+    /// Tick labels show each value times this (1e3 for a time axis in
+    /// ms whose data stay in seconds); the label names the unit shown.
+    pub label_scale: f64,
+}
+
+impl Default for Axis {
+    fn default() -> Self {
+        Axis::linear("")
+    }
 }
 
 impl Axis {
@@ -105,6 +114,7 @@ impl Axis {
             label: label.into(),
             log: false,
             range: None,
+            label_scale: 1.0,
         }
     }
 
@@ -114,7 +124,15 @@ impl Axis {
             label: label.into(),
             log: true,
             range: None,
+            label_scale: 1.0,
         }
+    }
+
+    /// Tick labels in another unit than the data: each value times
+    /// `scale` (the label must name that unit).
+    pub fn with_label_scale(mut self, scale: f64) -> Self {
+        self.label_scale = scale;
+        self
     }
 
     /// Fix the visible range.

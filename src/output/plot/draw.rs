@@ -58,6 +58,8 @@ struct Ax {
     lo: f64,
     hi: f64,
     log: bool,
+    /// Tick labels show values times this (`Axis::label_scale`).
+    scale: f64,
 }
 
 impl Ax {
@@ -124,9 +126,9 @@ impl Ax {
     fn label(&self, v: f64, step: f64) -> String {
         if self.log {
             let x = 10f64.powf(v);
-            return fmt_tick(x, x);
+            return fmt_tick(x * self.scale, x * self.scale);
         }
-        fmt_tick(v, step)
+        fmt_tick(v * self.scale, step * self.scale)
     }
 }
 
@@ -246,6 +248,7 @@ fn fit(axis: &Axis, values: impl Iterator<Item = f64>) -> Ax {
         lo: 0.0,
         hi: 1.0,
         log: axis.log,
+        scale: 1.0,
     };
     let (mut lo, mut hi, explicit) = match axis.range {
         Some((a, b)) => (probe.t(a.min(b)).unwrap(), probe.t(a.max(b)).unwrap(), true),
@@ -282,6 +285,7 @@ fn fit(axis: &Axis, values: impl Iterator<Item = f64>) -> Ax {
         lo,
         hi,
         log: axis.log,
+        scale: axis.label_scale,
     }
 }
 
