@@ -777,6 +777,23 @@ fn rate_panel(
         }
         None => {}
     }
+    if def.unit() == Unit::Seconds {
+        // A time that stays under 0.1 s reads in ms (the data stay in s).
+        let top = match panel.y.range {
+            Some((_, hi)) => hi,
+            None => (panel
+                .series
+                .iter()
+                .flat_map(|s| s.points.iter().map(|p| p.1)))
+            .filter(|v| v.is_finite())
+            .fold(0.0, f64::max),
+        };
+        if top > 0.0 && top < 0.1 {
+            let range = panel.y.range;
+            panel.y = Axis::linear(format!("{} (ms)", def.short_label())).with_label_scale(1e3);
+            panel.y.range = range;
+        }
+    }
     panel
 }
 
