@@ -224,7 +224,7 @@ fn with_plant_variants_the_worst_curves_and_the_robust_f_star_are_drawn() {
         }
         // The robust f* dashed, the nominal one dotted.
         let rf = (robust.methods.iter())
-            .find(|m| m.rate.method == *method)
+            .find(|m| m.rate.method.name() == *method)
             .unwrap();
         let rf = rf.rate.slowest_rate_hz.unwrap();
         assert!(
@@ -233,7 +233,7 @@ fn with_plant_variants_the_worst_curves_and_the_robust_f_star_are_drawn() {
                 .any(|v| v.x == rf && v.style == MarkStyle::Dashed)
         );
         let nf = (report.methods.iter())
-            .find(|m| m.method == *method)
+            .find(|m| m.method.name() == *method)
             .unwrap();
         let nf = nf.slowest_rate_hz.unwrap();
         assert!(

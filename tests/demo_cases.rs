@@ -72,7 +72,7 @@ fn search_matches_a_dense_scan_on_three_demo_cases() {
             .iter()
             .filter(|m| m.compute_delay == report.design_delay)
         {
-            let pts = sweep::grid(&scan, &[m.method.parse().ok()], &[m.compute_delay]);
+            let pts = sweep::grid(&scan, &[m.method.0], &[m.compute_delay]);
             let dense = sweep::run(&sweep::Plan::nominal(&lp, &c.spec, None), &pts, &|| {});
             let i = dense
                 .iter()
@@ -89,7 +89,7 @@ fn search_matches_a_dense_scan_on_three_demo_cases() {
             // The tolerance itself, beyond the scan's spacing: f_star
             // passes and 1e-4 below it fails (evaluated directly).
             let one = |rate: f64| {
-                let p = sweep::grid(&[rate], &[m.method.parse().ok()], &[m.compute_delay]);
+                let p = sweep::grid(&[rate], &[m.method.0], &[m.compute_delay]);
                 sweep::run(&sweep::Plan::nominal(&lp, &c.spec, None), &p, &|| {})[0]
                     .assessment
                     .feasible
@@ -260,7 +260,7 @@ fn the_summary_and_json_state_the_window_and_what_would_open_an_empty_one() {
     assert_eq!(c.budget.as_ref().unwrap().cpu_hz, 16e6);
     let rec = pump.recommended.as_ref().unwrap();
     assert_eq!(
-        (rec.method.as_str(), rec.cycles_per_update),
+        (rec.method.name(), rec.cycles_per_update),
         ("tustin", Some(2500.0))
     );
     assert!((w.high_hz - 320.0).abs() < 1e-9, "{}", w.high_hz);
@@ -318,7 +318,7 @@ fn every_rate_inside_a_reported_window_meets_the_spec_when_evaluated_directly() 
             "{name}: window top {hi} above max_hz"
         );
         let rec = report.recommended.as_ref().unwrap();
-        let method = rec.method.parse().ok();
+        let method = rec.method.0;
         for i in 0..=40 {
             let rate = lo * (hi / lo).powf(i as f64 / 40.0);
             let p = looprate::sampled::evaluate::Point {

@@ -120,7 +120,7 @@ fn search_agrees_with_a_brute_force_scan() {
         .map(|i| lo * (hi / lo).powf(i as f64 / (n - 1) as f64))
         .collect();
     for m in &report.methods {
-        let method = m.method.parse().ok();
+        let method = m.method.0;
         let pts = sweep::grid(&scan, &[method], &[m.compute_delay]);
         let dense = sweep::run(&sweep::Plan::nominal(&lp, &c.spec, None), &pts, &|| {});
         let last_bad = dense.iter().rposition(|r| !r.assessment.feasible);
@@ -315,13 +315,13 @@ max_load_pct = 50
         report
             .methods
             .iter()
-            .find(|m| m.method == name)
+            .find(|m| m.method.name() == name)
             .and_then(|m| m.slowest_rate_hz)
             .unwrap()
     };
     let rec = report.recommended.as_ref().unwrap();
     // Preconditions of the scenario (if the figures move, re-tune the case).
-    assert_eq!(rec.method, "ramp-invariant");
+    assert_eq!(rec.method.name(), "ramp-invariant");
     assert_eq!(rec.cycles_per_update, Some(5000.0));
     assert_eq!(report.cpu_ceiling_hz, Some(800.0));
     let fe = f_star("forward-euler");

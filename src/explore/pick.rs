@@ -21,7 +21,7 @@ use crate::explore::search::{
 };
 use crate::explore::sweep::{self, Grid, Plan, SweepRow};
 use crate::explore::variants::{NamedValue, VariantSet};
-use crate::model::discretize::Method;
+use crate::model::discretize::{Method, MethodChoice};
 use crate::model::rounding::Damage;
 use crate::model::transfer::Controller;
 use crate::sampled::evaluate::{Evaluation, Figures, Point, PreparedLoop, Transport};
@@ -280,7 +280,7 @@ pub fn case_grid(case: &Case, lp: &PreparedLoop) -> Vec<Point> {
 /// The recommended design.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Recommended {
-    pub method: String,
+    pub method: MethodChoice,
     /// The actuator's hold kind.
     pub hold: HoldKind,
     /// Why this hold, in words (the cheapest passing one, against the
@@ -389,7 +389,7 @@ pub struct RobustReport {
 /// One number format's ceiling for one method.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct FormatCeiling {
-    pub method: String,
+    pub method: MethodChoice,
     pub format: String,
     /// The search started here: the method's `f_star` times the headroom, Hz.
     pub from_hz: f64,
@@ -765,9 +765,16 @@ pub fn pick_from(
                 }
             ),
         },
-        method: best.method.clone(),
+        method: best.method,
         hold,
-        hold_basis: hold_basis(case, &answers, &best.method, hold, f_star, design_delay),
+        hold_basis: hold_basis(
+            case,
+            &answers,
+            best.method.name(),
+            hold,
+            f_star,
+            design_delay,
+        ),
         compute_delay: design_delay,
         slowest_rate_hz: f_star,
         rate_hz: rate,
@@ -1358,7 +1365,7 @@ fn other_method_advice(
         .filter(|a| a.compute_delay == report.design_delay)
         .filter(|a| rec_hold.is_none_or(|h| a.hold == h))
         .filter_map(|a| {
-            let m = case.methods.iter().find(|m| m.name() == a.method)?;
+            let m = case.methods.iter().find(|m| m.name() == a.method.name())?;
             Some((*m, a.slowest_rate_hz?))
         })
         .collect();
@@ -1368,7 +1375,7 @@ fn other_method_advice(
             report
                 .recommended
                 .as_ref()
-                .is_none_or(|r| r.method != m.name())
+                .is_none_or(|r| r.method.name() != m.name())
         })
         .filter_map(|&(m, f)| {
             let low = f * case.spec.headroom;

@@ -13,7 +13,7 @@ use std::cell::Cell;
 
 use serde::Serialize;
 
-use crate::model::discretize::Method;
+use crate::model::discretize::{Method, MethodChoice};
 use crate::model::scalar_solve;
 use crate::sampled::evaluate::{Point, PreparedLoop};
 use crate::sampled::feasibility::{Assessment, assess};
@@ -28,7 +28,7 @@ pub const RATE_TOLERANCE: f64 = 1e-4;
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct SlowestRate {
     /// Method name (`given-in-z` for a controller given in z).
-    pub method: String,
+    pub method: MethodChoice,
     /// The actuator's hold kind.
     pub hold: HoldKind,
     pub compute_delay: f64,
@@ -57,9 +57,9 @@ pub trait SearchObserver: Sync {
 pub struct Silent;
 impl SearchObserver for Silent {}
 
-/// Name for a method in outputs.
-pub fn method_label(m: Option<Method>) -> String {
-    m.map_or_else(|| "given-in-z".to_string(), |m| m.name().to_string())
+/// The method as results carry it (`None`: the controller given in z).
+pub fn method_label(m: Option<Method>) -> MethodChoice {
+    MethodChoice(m)
 }
 
 /// One verdict of the coarse sweep as the search keeps it: the rate, the

@@ -4,6 +4,36 @@
 use std::fmt;
 use std::str::FromStr;
 
+/// How the controller that runs was obtained: discretized by a method,
+/// or given in z by the case (`None`). Written to files and text as the
+/// method's name, `given-in-z` for the latter.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub struct MethodChoice(pub Option<Method>);
+
+impl MethodChoice {
+    /// The name written in files and text.
+    pub fn name(self) -> &'static str {
+        self.0.map_or("given-in-z", Method::name)
+    }
+
+    /// True for a controller given in z (nothing discretized).
+    pub fn is_given_in_z(self) -> bool {
+        self.0.is_none()
+    }
+}
+
+impl std::fmt::Display for MethodChoice {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.name())
+    }
+}
+
+impl serde::Serialize for MethodChoice {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        s.serialize_str(self.name())
+    }
+}
+
 /// A discretization method for a continuous controller.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
 pub enum Method {

@@ -531,7 +531,12 @@ fn rows_of<'a>(inp: &'a Inputs, m: Option<Method>, h: HoldKind) -> Option<&'a Ra
 /// The methods of the sweep at the design delay, in case order.
 fn design_series<'a>(inp: &'a Inputs) -> Vec<(String, &'a RateSeries)> {
     (case_methods(inp.case).into_iter())
-        .filter_map(|m| Some((method_label(m), rows_of(inp, m, design_hold(inp))?)))
+        .filter_map(|m| {
+            Some((
+                method_label(m).to_string(),
+                rows_of(inp, m, design_hold(inp))?,
+            ))
+        })
         .collect()
 }
 
@@ -551,7 +556,9 @@ fn f_star(report: &PickReport, method: &str) -> Option<f64> {
     let hold = report.recommended.as_ref().map(|r| r.hold);
     (report.methods.iter())
         .find(|m| {
-            m.method == method && Some(m.hold) == hold && m.compute_delay == report.design_delay
+            m.method.name() == method
+                && Some(m.hold) == hold
+                && m.compute_delay == report.design_delay
         })
         .and_then(|m| m.slowest_rate_hz)
 }
@@ -560,7 +567,7 @@ fn f_star(report: &PickReport, method: &str) -> Option<f64> {
 fn robust_f_star(report: &PickReport, method: &str) -> Option<f64> {
     let rb = report.robust.as_ref()?;
     (rb.methods.iter())
-        .find(|m| m.rate.method == method && m.rate.compute_delay == report.design_delay)
+        .find(|m| m.rate.method.name() == method && m.rate.compute_delay == report.design_delay)
         .and_then(|m| m.rate.slowest_rate_hz)
 }
 
@@ -1516,7 +1523,7 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
     // Methods with the same load share one line and one legend entry.
     let mut loads: Vec<(Vec<String>, Points)> = Vec::new();
     for m in case_methods(inp.case) {
-        let method = method_label(m);
+        let method = method_label(m).to_string();
         let pts: Vec<(f64, f64)> = rates
             .iter()
             .map(|&f| {
@@ -1619,7 +1626,7 @@ fn precision_chart(inp: &Inputs) -> Option<Figure> {
     }
     let series = design_series(inp);
     let (method, rows) = match inp.rec {
-        Some((r, _)) => series.into_iter().find(|(m, _)| *m == r.method)?,
+        Some((r, _)) => series.into_iter().find(|(m, _)| m == r.method.name())?,
         None => series.into_iter().next()?,
     };
     let formats: Vec<String> = inp.formats.iter().map(|f| f.name()).collect();
@@ -1647,7 +1654,7 @@ fn precision_chart(inp: &Inputs) -> Option<Figure> {
             }
         }
         if let Some(pr) = pr {
-            for c in pr.ceilings.iter().filter(|c| c.method == method) {
+            for c in pr.ceilings.iter().filter(|c| c.method.name() == method) {
                 if let (Some(h), false) = (c.ceiling.rate_hz, c.ceiling.above_range) {
                     panel.vmarks.push(VMark::new(
                         h,

@@ -374,7 +374,7 @@ fn summary_box(case: &Case, report: &PickReport, full: bool) -> Block {
     if let Some(rec) = &report.recommended {
         rows.push((
             "Method".into(),
-            if rec.method == "given-in-z" {
+            if rec.method.is_given_in_z() {
                 "the controller given in z, at its own rate".into()
             } else {
                 format!("`{}`", rec.method)
@@ -466,7 +466,7 @@ fn answer(case: &Case, report: &PickReport, rec: &Recommended, lead: &str) -> St
         .timer_divider
         .map(|n| format!(", timer divider {n}"))
         .unwrap_or_default();
-    if rec.method == "given-in-z" {
+    if rec.method.is_given_in_z() {
         return format!(
             "{lead} the controller given in z at its own rate, **{}** (period **{}**{timer}), with the output applied {} after sampling through a {} hold; {load}. A controller given in z runs only at its own rate, so no headroom is applied.",
             hz(rec.rate_hz),
@@ -693,7 +693,7 @@ fn blocks(
                     .collect::<Vec<_>>()
                     .join(", ");
                 vec![
-                    m.method.clone(),
+                    m.method.to_string(),
                     m.hold.name().into(),
                     periods(m.compute_delay),
                     f,
@@ -766,7 +766,7 @@ fn blocks(
                 .iter()
                 .map(|m| {
                     vec![
-                        m.rate.method.clone(),
+                        m.rate.method.to_string(),
                         m.rate.hold.name().into(),
                         periods(m.rate.compute_delay),
                         m.rate.slowest_rate_hz.map_or("none".into(), hz),
@@ -795,7 +795,7 @@ fn blocks(
                 pr.structure
             )),
         );
-        let method = report.recommended.as_ref().map(|r| r.method.clone());
+        let method = report.recommended.as_ref().map(|r| r.method);
         b.push(Block::Table(
             vec![
                 "format".into(),
@@ -853,7 +853,7 @@ fn blocks(
             let low = if report
                 .recommended
                 .as_ref()
-                .is_some_and(|r| r.method == "given-in-z")
+                .is_some_and(|r| r.method.is_given_in_z())
             {
                 "the controller given in z runs at"
             } else {

@@ -120,7 +120,7 @@ fn point_cells(r: &SweepRow, e: &Evaluation, a: &Assessment) -> Vec<String> {
     let mut rec = vec![
         num(p.rate_hz),
         num(1.0 / p.rate_hz),
-        method_label(p.method),
+        method_label(p.method).to_string(),
         p.hold.name().to_string(),
         num(p.delay),
         e.status.label(),
