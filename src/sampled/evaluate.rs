@@ -306,6 +306,24 @@ impl Transport {
     }
 }
 
+/// The exact delay margin's search, when one was made, written into the
+/// figures of `e`: the margin in seconds, none without a gain crossing,
+/// or a note saying why it was not located (`docs/figures.md`).
+pub(crate) fn record_delay_margin(e: &mut Evaluation, margin: Option<DelayMargin>) {
+    if let (Some(f), Some(margin)) = (e.figures.as_mut(), margin) {
+        f.delay_margin_searched = true;
+        f.delay_margin_s = match margin {
+            DelayMargin::Seconds(v) => Some(v),
+            DelayMargin::NoCrossing => None,
+            DelayMargin::NotLocated(why) => {
+                f.loop_notes
+                    .push(format!("delay margin not located: {why}"));
+                None
+            }
+        };
+    }
+}
+
 impl PreparedLoop {
     /// Prepare a loop; `prewarp_hz` None means the continuous crossover.
     pub fn new(
@@ -638,18 +656,7 @@ impl PreparedLoop {
         let margin = exact_margin
             .then(|| exact_delay_margin(&self.plant_model, c, t, &hold.actuation(), &freq));
         let mut e = finish(step, dist, freq, &poles);
-        if let (Some(f), Some(margin)) = (e.figures.as_mut(), margin) {
-            f.delay_margin_searched = true;
-            f.delay_margin_s = match margin {
-                DelayMargin::Seconds(v) => Some(v),
-                DelayMargin::NoCrossing => None,
-                DelayMargin::NotLocated(why) => {
-                    f.loop_notes
-                        .push(format!("delay margin not located: {why}"));
-                    None
-                }
-            };
-        }
+        record_delay_margin(&mut e, margin);
         e
     }
 

@@ -22,7 +22,9 @@ use crate::sampled::delay_margin::{
     DelayMargin, DelayScan, FirstUnstable, MAX_DELAY_PERIODS, crossing_seeds, first_unstable,
     scan_step,
 };
-use crate::sampled::evaluate::{Evaluation, Point, PreparedLoop, Status, finish};
+use crate::sampled::evaluate::{
+    Evaluation, Point, PreparedLoop, Status, finish, record_delay_margin,
+};
 use crate::sampled::feasibility::{Assessment, LimitCheck, UNSTABLE_SLACK};
 use crate::sampled::figure::{Figure, Limiting, Missing};
 use crate::sampled::frequency::{FrequencyRange, LoopFigures, loop_figures};
@@ -369,18 +371,7 @@ impl PreparedCascade {
         };
         let margin = exact_margin.then(|| self.outer_delay_margin(inner, &c, p, &freq));
         let mut e = finish(step, dist, freq, &poles);
-        if let (Some(f), Some(margin)) = (e.figures.as_mut(), margin) {
-            f.delay_margin_searched = true;
-            f.delay_margin_s = match margin {
-                DelayMargin::Seconds(v) => Some(v),
-                DelayMargin::NoCrossing => None,
-                DelayMargin::NotLocated(why) => {
-                    f.loop_notes
-                        .push(format!("delay margin not located: {why}"));
-                    None
-                }
-            };
-        }
+        record_delay_margin(&mut e, margin);
         OuterOutcome::Figures(Box::new(e))
     }
 
