@@ -108,6 +108,9 @@ enum MulOp {
     Div,
 }
 
+/// The operators after a first operand, each with its column and operand.
+type Chain<Op> = Vec<(Op, usize, Node)>;
+
 #[derive(Debug, Clone, PartialEq)]
 enum Kind {
     Num(f64),
@@ -116,8 +119,8 @@ enum Kind {
     Param(String),
     Neg(Box<Node>),
     /// `first (op term)*`; each op keeps its column for error messages.
-    Sum(Box<Node>, Vec<(AddOp, usize, Node)>),
-    Product(Box<Node>, Vec<(MulOp, usize, Node)>),
+    Sum(Box<Node>, Chain<AddOp>),
+    Product(Box<Node>, Chain<MulOp>),
     /// Base, exponent, column of the `^`.
     Pow(Box<Node>, u32, usize),
 }
@@ -279,47 +282,52 @@ impl Parser {
     }
 
     fn sum(&mut self) -> Result<Node, ExprError> {
-        let first = self.product()?;
-        let mut rest = Vec::new();
-        while let Some(t) = self.peek() {
-            let op = match t.tok {
-                Tok::Plus => AddOp::Add,
-                Tok::Minus => AddOp::Sub,
-                _ => break,
-            };
-            let col = t.col;
-            self.pos += 1;
-            rest.push((op, col, self.operand_after(Self::product)?));
-        }
-        if rest.is_empty() {
-            return Ok(first);
-        }
-        let col = first.col;
-        Ok(Node {
-            kind: Kind::Sum(Box::new(first), rest),
-            col,
-        })
+        self.chain(
+            Self::product,
+            |t| match t {
+                Tok::Plus => Some(AddOp::Add),
+                Tok::Minus => Some(AddOp::Sub),
+                _ => None,
+            },
+            Kind::Sum,
+        )
     }
 
     fn product(&mut self) -> Result<Node, ExprError> {
-        let first = self.unary()?;
+        self.chain(
+            Self::unary,
+            |t| match t {
+                Tok::Star => Some(MulOp::Mul),
+                Tok::Slash => Some(MulOp::Div),
+                _ => None,
+            },
+            Kind::Product,
+        )
+    }
+
+    /// One left-associative level of the grammar: an operand, then any
+    /// number of (operator, operand) pairs whose operator `op_of` accepts;
+    /// a single operand is returned as it is.
+    fn chain<Op>(
+        &mut self,
+        operand: fn(&mut Self) -> Result<Node, ExprError>,
+        op_of: fn(&Tok) -> Option<Op>,
+        build: fn(Box<Node>, Chain<Op>) -> Kind,
+    ) -> Result<Node, ExprError> {
+        let first = operand(self)?;
         let mut rest = Vec::new();
         while let Some(t) = self.peek() {
-            let op = match t.tok {
-                Tok::Star => MulOp::Mul,
-                Tok::Slash => MulOp::Div,
-                _ => break,
-            };
+            let Some(op) = op_of(&t.tok) else { break };
             let col = t.col;
             self.pos += 1;
-            rest.push((op, col, self.operand_after(Self::unary)?));
+            rest.push((op, col, self.operand_after(operand)?));
         }
         if rest.is_empty() {
             return Ok(first);
         }
         let col = first.col;
         Ok(Node {
-            kind: Kind::Product(Box::new(first), rest),
+            kind: build(Box::new(first), rest),
             col,
         })
     }
