@@ -269,6 +269,13 @@ impl fmt::Display for Format {
     }
 }
 
+/// Written as its name (`q15`), as files have always carried it.
+impl Serialize for Format {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        s.serialize_str(&self.name())
+    }
+}
+
 impl FromStr for Format {
     type Err = String;
     fn from_str(s: &str) -> Result<Self, String> {
@@ -311,6 +318,28 @@ impl Structure {
             Structure::TransposedDirect => "transposed-direct",
             Structure::Sos => "sos",
         }
+    }
+
+    /// The other arrangement (what the advice tries when this one loses
+    /// the integral action).
+    pub fn other(self) -> Structure {
+        match self {
+            Structure::TransposedDirect => Structure::Sos,
+            Structure::Sos => Structure::TransposedDirect,
+        }
+    }
+}
+
+impl fmt::Display for Structure {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(self.name())
+    }
+}
+
+/// Written as its name (`sos`), as files have always carried it.
+impl Serialize for Structure {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        s.serialize_str(self.name())
     }
 }
 

@@ -6,7 +6,8 @@ use crate::model::rounding;
 use serde::Serialize;
 
 use crate::model::transfer::DiscreteTransfer;
-use crate::spec::Structure;
+use crate::sampled::figure::Limiting;
+use crate::spec::{Format, Structure};
 use crate::spec::{Budget, Cycles};
 
 /// Multiply-accumulates of one update of `c` in direct form II transposed:
@@ -144,9 +145,9 @@ pub enum WindowBound {
     /// just above it; `fails_at_start` holds the failing figure when it
     /// fails already at the window's low end.
     Coefficients {
-        format: String,
-        structure: String,
-        fails_at_start: Option<String>,
+        format: Format,
+        structure: Structure,
+        fails_at_start: Option<Limiting>,
     },
     /// The last rate checked: the bound `beyond` (CPU budget or
     /// coefficients) would allow up to `beyond_hz`, but the spec and the
