@@ -471,10 +471,10 @@ fn a_ceiling_is_never_above_a_failing_rate_when_rounding_is_not_monotone() {
             &lp,
             &spec,
             &p,
+            looprate::sampled::evaluate::Given::default(),
             Structure::TransposedDirect,
             Format::F32,
             check_hz,
-            None,
         )
         .assessment
     };

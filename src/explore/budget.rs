@@ -7,8 +7,8 @@ use serde::Serialize;
 
 use crate::model::transfer::DiscreteTransfer;
 use crate::sampled::figure::Limiting;
-use crate::spec::{Format, Structure};
 use crate::spec::{Budget, Cycles};
+use crate::spec::{Format, Structure};
 
 /// Multiply-accumulates of one update of `c` in direct form II transposed:
 /// one per non-zero numerator coefficient and one per non-zero

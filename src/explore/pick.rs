@@ -517,11 +517,17 @@ fn base_report(case: &Case) -> PickReport {
     }
 }
 
+/// What the design check gives: the report's start, to be continued when
+/// the continuous design passes, or the finished report when it already
+/// fails the spec (then no rate can pass and nothing is searched).
+enum DesignCheck {
+    Passes(PickReport),
+    Fails(PickReport),
+}
+
 /// Step 1, the design check: the report's start (the design's figures and
-/// the limits it fails). `Err` holds the finished report when the
-/// continuous design already fails the spec: then no rate can pass and
-/// nothing is searched.
-fn design_check(case: &Case, lp: &PreparedLoop) -> Result<PickReport, PickReport> {
+/// the limits it fails, and the notes on the case's ranges).
+fn design_check(case: &Case, lp: &PreparedLoop) -> DesignCheck {
     let spec = &case.spec;
     let mut report = base_report(case);
     if case.uncertainty.is_none() && case.params.iter().any(|p| p.min < p.max) {
@@ -551,13 +557,20 @@ fn design_check(case: &Case, lp: &PreparedLoop) -> Result<PickReport, PickReport
             failed = true;
         }
     }
-    if failed { Err(report) } else { Ok(report) }
+    if failed {
+        DesignCheck::Fails(report)
+    } else {
+        DesignCheck::Passes(report)
+    }
 }
 
 /// The report of a case whose continuous design already fails the spec
 /// (what `pick` answers without sweeping); None when the design passes.
 pub fn failed_design(case: &Case, lp: &PreparedLoop) -> Option<PickReport> {
-    design_check(case, lp).err()
+    match design_check(case, lp) {
+        DesignCheck::Fails(report) => Some(report),
+        DesignCheck::Passes(_) => None,
+    }
 }
 
 /// [`pick_from`] on the rows of a finished sweep of the case's grid
@@ -590,8 +603,8 @@ pub fn pick_from(
     observer: &dyn SearchObserver,
 ) -> PickReport {
     let mut report = match design_check(case, lp) {
-        Ok(r) => r,
-        Err(failed) => return failed,
+        DesignCheck::Passes(r) => r,
+        DesignCheck::Fails(done) => return done,
     };
     let searched = search(case, lp, variants, summary, observer);
     report.methods = searched.methods;
@@ -614,7 +627,12 @@ pub fn pick_from(
     };
     if case.arithmetic.is_some() {
         report.precision = Some(precision_report(
-            case, lp, summary, &answers, &rec.chosen, observer,
+            case,
+            lp,
+            summary,
+            &answers,
+            &rec.chosen,
+            observer,
         ));
     }
     let Some(window) = window(case, lp, &rec.chosen, &report) else {
@@ -730,7 +748,7 @@ impl Chosen {
     /// is the recommended point, else nothing.
     fn given_at(&self, p: &Point) -> Given<'_> {
         Given {
-            controller: (*p == self.point()).then(|| self.controller.as_ref()),
+            controller: (*p == self.point()).then_some(self.controller.as_ref()),
             ..Given::default()
         }
     }
@@ -794,10 +812,8 @@ fn recommend(
             rate,
         )
     });
-    let robust_here = variants.map(|v| {
-        v.judge(spec, &p, chosen.controller.as_ref(), false, None)
-            .1
-    });
+    let robust_here =
+        variants.map(|v| v.judge(spec, &p, chosen.controller.as_ref(), false, None).1);
     let worst_figures = robust_here.as_ref().and_then(|r| r.worst_figures.clone());
     if rate > case.rates.max_hz {
         notes.push(format!(
@@ -874,14 +890,23 @@ fn case_structure(case: &Case) -> Structure {
 }
 
 /// Why there is no recommendation: no method passes at the design delay.
-fn no_answer(lp: &PreparedLoop, answers: &[SlowestRate], design_delay: f64, robust: bool) -> String {
+fn no_answer(
+    lp: &PreparedLoop,
+    answers: &[SlowestRate],
+    design_delay: f64,
+    robust: bool,
+) -> String {
     if let Controller::Discrete(d) = &lp.controller {
         let passing: Vec<String> = answers
             .iter()
             .filter(|m| m.slowest_rate_hz.is_some())
             .map(|m| sig4(m.compute_delay))
             .collect();
-        let variants = if robust { " on every plant variant" } else { "" };
+        let variants = if robust {
+            " on every plant variant"
+        } else {
+            ""
+        };
         return format!(
             "the controller given in z at {} fails the spec{variants} at computation delay {} (the largest listed, which the recommendation is made at){}",
             hz(1.0 / d.period_s),
@@ -903,7 +928,11 @@ fn no_answer(lp: &PreparedLoop, answers: &[SlowestRate], design_delay: f64, robu
 /// The recommended rate from `f_star`: times the headroom and rounded up
 /// to a rate the timer makes (a controller given in z: its own rate, no
 /// headroom, no rounding); with the timer's divider and the notes.
-fn recommended_rate(case: &Case, lp: &PreparedLoop, f_star: f64) -> (f64, Option<u64>, Vec<String>) {
+fn recommended_rate(
+    case: &Case,
+    lp: &PreparedLoop,
+    f_star: f64,
+) -> (f64, Option<u64>, Vec<String>) {
     let mut notes = Vec::new();
     let mut rate = f_star * case.spec.headroom;
     let mut divider = None;
@@ -941,7 +970,12 @@ fn recommended_rate(case: &Case, lp: &PreparedLoop, f_star: f64) -> (f64, Option
 /// CPU ceiling and the first format's precision ceiling (one above the
 /// swept range bounds nothing), never above the last rate checked. None
 /// without a budget or a format that bounds it.
-fn window(case: &Case, lp: &PreparedLoop, chosen: &Chosen, report: &PickReport) -> Option<RateWindow> {
+fn window(
+    case: &Case,
+    lp: &PreparedLoop,
+    chosen: &Chosen,
+    report: &PickReport,
+) -> Option<RateWindow> {
     let rate = chosen.rate_hz;
     let method = MethodChoice(chosen.method);
     let prec = report.precision.as_ref().and_then(|pr| {
@@ -1032,8 +1066,7 @@ fn robust_report(
                     hold,
                 };
                 let c = lp.controller_at(rate, method);
-                let (_, v) =
-                    variants.judge(spec, &p, c.as_ref(), false, None);
+                let (_, v) = variants.judge(spec, &p, c.as_ref(), false, None);
                 observer.evaluated(rate, &v.assessment);
                 seen.borrow_mut()
                     .push((rate, v.assessment.clone(), v.worst));
@@ -1147,7 +1180,15 @@ fn precision_report(
         .par_iter()
         .map(|&format| {
             let given = chosen.given_at(&p);
-            let v = precision::judge_point(lp, &case.spec, &p, given, arith.structure, format, check_hz);
+            let v = precision::judge_point(
+                lp,
+                &case.spec,
+                &p,
+                given,
+                arith.structure,
+                format,
+                check_hz,
+            );
             FormatAtRate {
                 format,
                 reason: v.reason,
@@ -1176,7 +1217,14 @@ fn precision_report(
             .filter(|&f| f > chosen.rate_hz)
             .collect();
         rates.insert(0, chosen.rate_hz);
-        other_structure_integral(lp, chosen, arith.structure, window_format, &rates, lost_at_hz)
+        other_structure_integral(
+            lp,
+            chosen,
+            arith.structure,
+            window_format,
+            &rates,
+            lost_at_hz,
+        )
     });
     PrecisionReport {
         structure: arith.structure,

@@ -79,7 +79,7 @@ pub fn judge_point(
     let w = check_hz.map(|f| 2.0 * std::f64::consts::PI * f);
     let q = match quantize(c, integrators, structure, format, w) {
         Ok(q) => q,
-        Err(e) => return failure(Limiting::Coefficients, e),
+        Err(e) => return failure(Limiting::Coefficients, e.to_string()),
     };
     let assessment = match q.damage.structural_failure() {
         Some(s) => failed(Limiting::Rounding(s)),

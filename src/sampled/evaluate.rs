@@ -730,10 +730,7 @@ impl PreparedLoop {
     }
 
     /// Loop gain of the sampled loop at a point, as a closure over w (rad/s).
-    pub fn sampled_loop_gain(
-        &self,
-        p: &Point,
-    ) -> Result<impl Fn(f64) -> C64 + use<>, PointError> {
+    pub fn sampled_loop_gain(&self, p: &Point) -> Result<impl Fn(f64) -> C64 + use<>, PointError> {
         let (hold, c, _) = self.sampled_loop(p)?;
         let plant_z = hold.augmented();
         let t = hold.period_s;
