@@ -612,12 +612,12 @@ pub fn pick_from(
     report.notes.extend(searched.notes);
     // The answers the recommendation rests on: robust when there are variants.
     let answers: Vec<SlowestRate> = report.answers().into_iter().cloned().collect();
-    let rec = match recommend(case, lp, variants, &answers, report.robust.is_some()) {
-        Ok(rec) => rec,
-        Err(why) => {
-            report.notes.push(why);
-            return report;
-        }
+    let Some(rec) = recommend(case, lp, variants, &answers) else {
+        let robust = report.robust.is_some();
+        report
+            .notes
+            .push(no_answer(lp, &answers, report.design_delay, robust));
+        return report;
     };
     report.notes.extend(rec.notes);
     report.recommended = Some(rec.recommended);
@@ -766,15 +766,14 @@ struct Recommendation {
 /// Step 3, the recommendation: the cheapest passing (method, hold) at the
 /// design delay (the lowest `f_star`, ties to the first in case order),
 /// its rate with headroom (and the timer), evaluated there with the exact
-/// delay margin, its CPU cost and its plant variants. `Err` says why there
-/// is none.
+/// delay margin, its CPU cost and its plant variants. None when no method
+/// passes at the design delay (`no_answer` says why).
 fn recommend(
     case: &Case,
     lp: &PreparedLoop,
     variants: Option<&VariantSet>,
     answers: &[SlowestRate],
-    robust: bool,
-) -> Result<Recommendation, String> {
+) -> Option<Recommendation> {
     let spec = &case.spec;
     let design_delay = design_delay(case);
     // min_by keeps the first of equals.
@@ -783,9 +782,7 @@ fn recommend(
         .filter(|m| m.compute_delay == design_delay)
         .filter_map(|m| m.slowest_rate_hz.map(|f| (m, f)))
         .min_by(|a, b| a.1.total_cmp(&b.1));
-    let Some((best, f_star)) = best else {
-        return Err(no_answer(lp, answers, design_delay, robust));
-    };
+    let (best, f_star) = best?;
     let (rate, divider, mut notes) = recommended_rate(case, lp, f_star);
     let chosen = Chosen {
         method: best.method.0,
@@ -864,7 +861,7 @@ fn recommend(
         feasible: a.feasible,
     };
     let crossover_hz = eval.figures.as_ref().and_then(|f| f.crossover_hz);
-    Ok(Recommendation {
+    Some(Recommendation {
         recommended,
         chosen: Chosen {
             crossover_hz,
