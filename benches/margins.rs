@@ -14,7 +14,7 @@ use looprate::model::discretize::Method;
 use looprate::model::poly::Poly;
 use looprate::model::transfer::{Controller, Transfer};
 use looprate::sampled::cascade::evaluate::CascadePoint;
-use looprate::sampled::evaluate::{Point, PreparedLoop};
+use looprate::sampled::evaluate::{Given, Point, PreparedLoop};
 use looprate::sampled::time_response::TimeOptions;
 use looprate::spec::HoldKind;
 
@@ -55,7 +55,7 @@ fn single_loop(c: &mut Criterion) {
             delay: 0.0,
             hold: HoldKind::ZeroOrder,
         };
-        let e = lp.sampled_exact(&p);
+        let e = lp.evaluate(&p, Given::with_delay_margin());
         assert!(
             e.figures.as_ref().and_then(|f| f.delay_margin_s).is_some(),
             "no delay margin at {ratio} x crossover"
@@ -66,7 +66,7 @@ fn single_loop(c: &mut Criterion) {
         );
         c.bench_function(
             &format!("figures with exact delay margin, {ratio} x crossover"),
-            |b| b.iter(|| lp.sampled_exact(std::hint::black_box(&p))),
+            |b| b.iter(|| lp.evaluate(std::hint::black_box(&p), Given::with_delay_margin())),
         );
     }
 }

@@ -24,7 +24,7 @@ use looprate::model::transfer::{Controller, Transfer};
 use looprate::output::charts::{ChartInput, ChartRows};
 use looprate::output::{summary, tables, writer};
 use looprate::sampled::continuous::HoldApprox;
-use looprate::sampled::evaluate::{Point, PreparedLoop};
+use looprate::sampled::evaluate::{Given, Point, PreparedLoop};
 use looprate::spec::HoldKind;
 
 /// Choose the slowest loop rate for a digital controller that still meets
@@ -421,7 +421,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 delay,
                 hold,
             };
-            let exact = lp.sampled_exact(&p);
+            let exact = lp.evaluate(&p, Given::with_delay_margin());
             let approx: Vec<(HoldApprox, _)> = if matches!(lp.controller, Controller::Continuous(_))
             {
                 HoldApprox::ALL

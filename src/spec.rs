@@ -26,13 +26,31 @@ pub const MAX_RATE_HZ: f64 = 1e9;
 /// silently turned into infinities.
 pub const MAX_MONIC_COEFF: f64 = 1e100;
 
+/// A value of the case file or the command line that is not accepted;
+/// the text says what is (the caller names the file and field, or the
+/// flag).
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum SpecError {
+    #[error("must be a rate from {min:e} Hz to {max:e} Hz, got {0:e}", min = MIN_RATE_HZ, max = MAX_RATE_HZ)]
+    RateOutOfRange(f64),
+    #[error(
+        "unknown number format `{0}`; expected \"f64\", \"f32\" or \"qN\" with N from {lo} to {hi} (q15: 16-bit word, q31: 32-bit word)",
+        lo = FIXED_BITS.start(),
+        hi = FIXED_BITS.end()
+    )]
+    UnknownFormat(String),
+    /// An old name, refused with the new one.
+    #[error("structure `df2t` is now called `transposed-direct`")]
+    RenamedStructure,
+    #[error("unknown structure `{0}`; expected \"transposed-direct\" or \"sos\"")]
+    UnknownStructure(String),
+}
+
 /// Checks a loop rate against [`MIN_RATE_HZ`] and [`MAX_RATE_HZ`]; the
 /// message says the limits (used by the case file and the command line).
-pub fn rate_in_range(rate_hz: f64) -> Result<f64, String> {
+pub fn rate_in_range(rate_hz: f64) -> Result<f64, SpecError> {
     if !rate_hz.is_finite() || !(MIN_RATE_HZ..=MAX_RATE_HZ).contains(&rate_hz) {
-        return Err(format!(
-            "must be a rate from {MIN_RATE_HZ:e} Hz to {MAX_RATE_HZ:e} Hz, got {rate_hz:e}"
-        ));
+        return Err(SpecError::RateOutOfRange(rate_hz));
     }
     Ok(rate_hz)
 }
@@ -269,9 +287,16 @@ impl fmt::Display for Format {
     }
 }
 
+/// Written as its name (`q15`), as files have always carried it.
+impl Serialize for Format {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        s.serialize_str(&self.name())
+    }
+}
+
 impl FromStr for Format {
-    type Err = String;
-    fn from_str(s: &str) -> Result<Self, String> {
+    type Err = SpecError;
+    fn from_str(s: &str) -> Result<Self, SpecError> {
         match s {
             "f64" => Ok(Format::F64),
             "f32" => Ok(Format::F32),
@@ -282,13 +307,7 @@ impl FromStr for Format {
                     .and_then(|b| b.parse::<u32>().ok())
                     .filter(|b| FIXED_BITS.contains(b));
                 bits.map(|magnitude_bits| Format::Fixed { magnitude_bits })
-                    .ok_or_else(|| {
-                        format!(
-                            "unknown number format `{s}`; expected \"f64\", \"f32\" or \"qN\" with N from {} to {} (q15: 16-bit word, q31: 32-bit word)",
-                            FIXED_BITS.start(),
-                            FIXED_BITS.end()
-                        )
-                    })
+                    .ok_or_else(|| SpecError::UnknownFormat(s.to_string()))
             }
         }
     }
@@ -312,18 +331,38 @@ impl Structure {
             Structure::Sos => "sos",
         }
     }
+
+    /// The other arrangement (what the advice tries when this one loses
+    /// the integral action).
+    pub fn other(self) -> Structure {
+        match self {
+            Structure::TransposedDirect => Structure::Sos,
+            Structure::Sos => Structure::TransposedDirect,
+        }
+    }
+}
+
+impl fmt::Display for Structure {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(self.name())
+    }
+}
+
+/// Written as its name (`sos`), as files have always carried it.
+impl Serialize for Structure {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        s.serialize_str(self.name())
+    }
 }
 
 impl FromStr for Structure {
-    type Err = String;
-    fn from_str(s: &str) -> Result<Self, String> {
+    type Err = SpecError;
+    fn from_str(s: &str) -> Result<Self, SpecError> {
         match s {
             "transposed-direct" => Ok(Structure::TransposedDirect),
             "sos" => Ok(Structure::Sos),
-            "df2t" => Err("structure `df2t` is now called `transposed-direct`".to_string()), // old name
-            _ => Err(format!(
-                "unknown structure `{s}`; expected \"transposed-direct\" or \"sos\""
-            )),
+            "df2t" => Err(SpecError::RenamedStructure), // old name
+            _ => Err(SpecError::UnknownStructure(s.to_string())),
         }
     }
 }

@@ -347,10 +347,10 @@ fn every_rate_inside_a_reported_window_meets_the_spec_when_evaluated_directly() 
                     &lp,
                     &case.spec,
                     &p,
+                    looprate::sampled::evaluate::Given::default(),
                     arith.structure,
                     arith.formats[0],
                     check_hz,
-                    None,
                 );
                 assert!(
                     v.assessment.feasible,

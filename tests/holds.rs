@@ -7,7 +7,7 @@
 use looprate::model::discretize::Method;
 use looprate::model::poly::{C64, Poly};
 use looprate::model::transfer::{Controller, DiscreteTransfer, Transfer};
-use looprate::sampled::evaluate::{Point, PreparedLoop, Transport};
+use looprate::sampled::evaluate::{Given, Point, PreparedLoop, Transport};
 use looprate::sampled::hold::{Actuation, HoldEquivalent, plant_and_sensor};
 use looprate::sampled::time_response::TimeOptions;
 use looprate::spec::HoldKind;
@@ -494,7 +494,7 @@ fn margins_keep_their_meaning_with_every_hold() {
                         delay,
                         hold,
                     };
-                    let e = lp.sampled_exact(&p);
+                    let e = lp.evaluate(&p, Given::with_delay_margin());
                     let Some(f) = e.figures else {
                         continue; // too much delay for this loop: nothing to check
                     };
@@ -510,11 +510,11 @@ fn margins_keep_their_meaning_with_every_hold() {
                     if let Some(gm) = f.gain_margin_db {
                         let k = |d: f64| 10f64.powf((gm + d * gm.signum()) / 20.0);
                         assert!(
-                            lp.sampled_with(&p, &scaled(k(-0.05))).stable,
+                            lp.evaluate(&p, Given::around(&scaled(k(-0.05)))).stable,
                             "{what}: unstable just short of GM {gm}"
                         );
                         assert!(
-                            !lp.sampled_with(&p, &scaled(k(0.05))).stable,
+                            !lp.evaluate(&p, Given::around(&scaled(k(0.05)))).stable,
                             "{what}: stable just past GM {gm}"
                         );
                     }

@@ -9,7 +9,7 @@ use looprate::model::discretize::Method;
 use looprate::model::poly::{C64, Poly};
 use looprate::model::transfer::{Controller, DiscreteTransfer, Transfer};
 use looprate::sampled::closed_loop::{ClosedLoop, Stability};
-use looprate::sampled::evaluate::{Figures, Point, PreparedLoop};
+use looprate::sampled::evaluate::{Figures, Given, Point, PreparedLoop};
 use looprate::sampled::time_response::TimeOptions;
 use looprate::spec::HoldKind;
 use proptest::prelude::*;
@@ -34,7 +34,7 @@ fn prepared(plant: &Transfer, sensor: &Transfer, c: &Transfer) -> PreparedLoop {
 /// Whether the exact sampled loop at `p` is stable with the controller in z
 /// `c`.
 fn stable_with(lp: &PreparedLoop, p: &Point, c: &DiscreteTransfer) -> bool {
-    let (_, cl) = lp.sampled_loop_with(p, c).unwrap();
+    let (_, cl) = lp.closed_loop_around(p, c).unwrap();
     ClosedLoop::stability(&cl.poles().unwrap()) == Stability::Stable
 }
 
@@ -347,7 +347,7 @@ fn one_random_loop(rl: RandomLoop) -> Result<(), TestCaseError> {
     let built = rl.build();
     prop_assume!(built.is_some());
     let (lp, p) = built.unwrap();
-    let e = lp.sampled_exact(&p);
+    let e = lp.evaluate(&p, Given::with_delay_margin());
     prop_assume!(e.stable);
     let f = e.figures.unwrap();
     // A loop whose |L| stays within a hair of 1 over a band (Ms above
@@ -414,7 +414,7 @@ fn open_loop_unstable_plant_with_lead_gain_margin_is_at_the_low_end() {
         delay: 1.0,
         hold: HoldKind::ZeroOrder,
     };
-    let e = lp.sampled_exact(&p);
+    let e = lp.evaluate(&p, Given::with_delay_margin());
     let f = e.figures.clone().expect("stable");
     let closed_form: f64 = -20.0 * (4880.0f64 * 28.52 / (108.0 * 400.0)).log10();
     let gm = f.gain_margin_db.unwrap();
@@ -458,7 +458,7 @@ fn resonance_with_a_notch_takes_the_crossing_nearest_minus_one() {
         delay: 1.0,
         hold: HoldKind::ZeroOrder,
     };
-    let e = lp.sampled_exact(&p);
+    let e = lp.evaluate(&p, Given::with_delay_margin());
     let f = e.figures.clone().expect("stable");
     let detail = e.loop_detail.clone().unwrap();
     assert!(
@@ -512,7 +512,7 @@ fn shallow_bump_of_the_loop_gain_just_above_one_is_a_crossing() {
         delay: 0.0,
     };
     let (lp, p) = rl.build().unwrap();
-    let e = lp.sampled_exact(&p);
+    let e = lp.evaluate(&p, Given::with_delay_margin());
     assert!(e.stable);
     let f = e.figures.clone().unwrap();
     let detail = e.loop_detail.clone().unwrap();
@@ -593,7 +593,7 @@ fn first_loss_against_dense_scan(
     trials: usize,
 ) -> (f64, Vec<(f64, bool)>) {
     let (lp, p) = rl.build().unwrap();
-    let e = lp.sampled_exact(&p);
+    let e = lp.evaluate(&p, Given::with_delay_margin());
     let f = e.figures.clone().expect("stable");
     let dm = f.delay_margin_s.expect("a delay margin");
     let c = lp.controller_at(p.rate_hz, p.method).unwrap();

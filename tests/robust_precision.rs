@@ -72,7 +72,7 @@ fn lag_pole_rounds_onto_z1_at_the_closed_form_rate() {
         let ceil = pr
             .ceilings
             .iter()
-            .find(|x| x.format == "q7")
+            .find(|x| x.format == Format::Fixed { magnitude_bits: 7 })
             .unwrap()
             .ceiling
             .clone();
@@ -92,8 +92,8 @@ fn lag_pole_rounds_onto_z1_at_the_closed_form_rate() {
         assert_eq!(
             w.high_bound,
             WindowBound::Coefficients {
-                format: "q7".into(),
-                structure: structure.into(),
+                format: Format::Fixed { magnitude_bits: 7 },
+                structure: structure.parse().unwrap(),
                 fails_at_start: None
             }
         );
@@ -471,10 +471,10 @@ fn a_ceiling_is_never_above_a_failing_rate_when_rounding_is_not_monotone() {
             &lp,
             &spec,
             &p,
+            looprate::sampled::evaluate::Given::default(),
             Structure::TransposedDirect,
             Format::F32,
             check_hz,
-            None,
         )
         .assessment
     };
@@ -538,7 +538,7 @@ fn the_advice_says_when_sos_keeps_the_integral_action_that_transposed_direct_los
         .other_structure
         .as_ref()
         .expect("the integral action is lost in f32");
-    assert_eq!(o.structure, "sos");
+    assert_eq!(o.structure, Structure::Sos);
     assert!(o.kept_at_every_rate, "{o:?}");
     let text = report
         .advice

@@ -897,7 +897,7 @@ fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, Cas
             ctx.missing("controller.rate_hz", "the rate the controller runs at, Hz")
         })?;
         let rate = ctx.positive("controller.rate_hz", rate)?;
-        rate_in_range(rate).map_err(|m| ctx.invalid("controller.rate_hz", m))?;
+        rate_in_range(rate).map_err(|m| ctx.invalid("controller.rate_hz", m.to_string()))?;
         for (name, c) in [("numerator_z", &num), ("denominator_z", &den)] {
             if c.is_empty() {
                 return Err(ctx.invalid(format!("controller.{name}"), "empty coefficient list"));
@@ -1191,8 +1191,8 @@ fn rates_from(ctx: &Ctx, raw: Option<RawRates>) -> Result<Rates, CaseError> {
         .ok_or_else(|| ctx.missing("rates.max_hz", "highest rate to try, Hz"))?;
     let min_hz = ctx.positive("rates.min_hz", min_hz)?;
     let max_hz = ctx.positive("rates.max_hz", max_hz)?;
-    rate_in_range(min_hz).map_err(|m| ctx.invalid("rates.min_hz", m))?;
-    rate_in_range(max_hz).map_err(|m| ctx.invalid("rates.max_hz", m))?;
+    rate_in_range(min_hz).map_err(|m| ctx.invalid("rates.min_hz", m.to_string()))?;
+    rate_in_range(max_hz).map_err(|m| ctx.invalid("rates.max_hz", m.to_string()))?;
     if min_hz >= max_hz {
         return Err(ctx.invalid(
             "rates.max_hz",
@@ -1452,14 +1452,15 @@ fn arithmetic_from(ctx: &Ctx, raw: Option<RawArithmetic>) -> Result<Option<Arith
     let mut formats = Vec::new();
     for (i, name) in names.iter().enumerate() {
         let f = format!("arithmetic.formats[{i}]");
-        let fmt = Format::from_str(name).map_err(|e| ctx.invalid(&f, e))?;
+        let fmt = Format::from_str(name).map_err(|e| ctx.invalid(&f, e.to_string()))?;
         if formats.contains(&fmt) {
             return Err(ctx.invalid(&f, format!("`{fmt}` is listed twice")));
         }
         formats.push(fmt);
     }
     let structure = match raw.structure {
-        Some(s) => Structure::from_str(&s).map_err(|e| ctx.invalid("arithmetic.structure", e))?,
+        Some(s) => Structure::from_str(&s)
+            .map_err(|e| ctx.invalid("arithmetic.structure", e.to_string()))?,
         None => Structure::TransposedDirect,
     };
     Ok(Some(Arithmetic { formats, structure }))

@@ -6,8 +6,9 @@ use crate::model::rounding;
 use serde::Serialize;
 
 use crate::model::transfer::DiscreteTransfer;
-use crate::spec::Structure;
+use crate::sampled::figure::Limiting;
 use crate::spec::{Budget, Cycles};
+use crate::spec::{Format, Structure};
 
 /// Multiply-accumulates of one update of `c` in direct form II transposed:
 /// one per non-zero numerator coefficient and one per non-zero
@@ -144,9 +145,9 @@ pub enum WindowBound {
     /// just above it; `fails_at_start` holds the failing figure when it
     /// fails already at the window's low end.
     Coefficients {
-        format: String,
-        structure: String,
-        fails_at_start: Option<String>,
+        format: Format,
+        structure: Structure,
+        fails_at_start: Option<Limiting>,
     },
     /// The last rate checked: the bound `beyond` (CPU budget or
     /// coefficients) would allow up to `beyond_hz`, but the spec and the

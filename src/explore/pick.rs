@@ -17,14 +17,17 @@ use crate::explore::budget::{self, RateWindow, WindowBound};
 use crate::explore::precision;
 use crate::explore::search::{
     Ceiling, CoarseSeries, FailingRuns, SearchObserver, SlowestRate, Verdict, fastest_rate_by,
-    method_label, slowest_rate, slowest_rate_by,
+    slowest_rate, slowest_rate_by,
 };
 use crate::explore::sweep::{self, Grid, Plan, SweepRow};
 use crate::explore::variants::{NamedValue, VariantSet};
 use crate::model::discretize::{Method, MethodChoice};
 use crate::model::rounding::Damage;
 use crate::model::transfer::Controller;
-use crate::sampled::evaluate::{Evaluation, Figures, Point, PreparedLoop, Transport};
+use crate::model::transfer::DiscreteTransfer;
+use crate::sampled::evaluate::{
+    Evaluation, Figures, Given, Point, PointError, PreparedLoop, Transport,
+};
 use crate::sampled::feasibility::{Assessment, LimitCheck, assess, check_figures};
 use crate::sampled::time_response::TimeOptions;
 use crate::spec::HoldKind;
@@ -374,11 +377,20 @@ pub struct RobustRate {
     pub worst_limiting: Option<Limiting>,
 }
 
+/// How the plant variants were drawn (`pick.json` `robust.mode`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum VariantDraw {
+    /// Every corner of the box of parameter ranges.
+    Corners,
+    /// Points of a Latin hypercube (with `seed`).
+    Samples,
+}
+
 /// The robust search (`pick.json` key `robust`).
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct RobustReport {
-    /// `corners` or `samples`.
-    pub mode: String,
+    pub mode: VariantDraw,
     pub seed: Option<u64>,
     /// Variants evaluated, the nominal one included.
     pub variants: usize,
@@ -390,7 +402,7 @@ pub struct RobustReport {
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct FormatCeiling {
     pub method: MethodChoice,
-    pub format: String,
+    pub format: Format,
     /// The search started here: the method's `f_star` times the headroom, Hz.
     pub from_hz: f64,
     #[serde(flatten)]
@@ -400,7 +412,7 @@ pub struct FormatCeiling {
 /// What rounding does at the recommended rate, per format.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct FormatAtRate {
-    pub format: String,
+    pub format: Format,
     pub damage: Option<Damage>,
     /// Why there is no damage figure, when there is none.
     pub reason: Option<String>,
@@ -413,10 +425,10 @@ pub struct FormatAtRate {
 /// The precision ceilings (`pick.json` key `precision`).
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct PrecisionReport {
-    /// `transposed-direct` or `sos`.
-    pub structure: String,
+    /// The case's structure (`transposed-direct` or `sos` in the file).
+    pub structure: Structure,
     /// The format that bounds the rate window (the first listed).
-    pub window_format: String,
+    pub window_format: Format,
     /// Per method (at the design delay) and format.
     pub ceilings: Vec<FormatCeiling>,
     /// At the recommended method and rate, per format.
@@ -433,9 +445,9 @@ pub struct PrecisionReport {
 /// loses the integrator and the other keeps it.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct OtherStructure {
-    /// The other structure (`sos` or `transposed-direct`).
-    pub structure: String,
-    pub format: String,
+    /// The other structure (`sos` or `transposed-direct` in the file).
+    pub structure: Structure,
+    pub format: Format,
     /// Where the case's structure loses the integral action, Hz.
     pub lost_at_hz: f64,
     /// Rates checked, from the recommended rate up.
@@ -451,7 +463,7 @@ pub struct OtherStructure {
 
 impl OtherStructure {
     /// The advice in words.
-    pub fn advice(&self, structure: &str) -> String {
+    pub fn advice(&self, structure: Structure) -> String {
         match self.kept_up_to_hz {
             Some(h) if self.kept_at_every_rate => format!(
                 "another structure: {} keeps the integral action in {} at every rate checked up to {} ({} rates), which {structure} loses at {}",
@@ -498,16 +510,24 @@ fn base_report(case: &Case) -> PickReport {
         cpu_ceiling_hz: None,
         advice: Vec::new(),
         headroom: case.spec.headroom,
-        design_delay: case.compute_delays.iter().copied().fold(0.0, f64::max),
+        design_delay: design_delay(case),
         robust: None,
         precision: None,
         notes: case.notes.clone(),
     }
 }
 
-/// The report's start: the design's figures and the limits it fails, and
-/// whether it fails (then no rate can pass and nothing is searched).
-fn design_report(case: &Case, lp: &PreparedLoop) -> (PickReport, bool) {
+/// What the design check gives: the report's start, to be continued when
+/// the continuous design passes, or the finished report when it already
+/// fails the spec (then no rate can pass and nothing is searched).
+enum DesignCheck {
+    Passes(PickReport),
+    Fails(PickReport),
+}
+
+/// Step 1, the design check: the report's start (the design's figures and
+/// the limits it fails, and the notes on the case's ranges).
+fn design_check(case: &Case, lp: &PreparedLoop) -> DesignCheck {
     let spec = &case.spec;
     let mut report = base_report(case);
     if case.uncertainty.is_none() && case.params.iter().any(|p| p.min < p.max) {
@@ -537,15 +557,19 @@ fn design_report(case: &Case, lp: &PreparedLoop) -> (PickReport, bool) {
             failed = true;
         }
     }
-    (report, failed)
+    if failed {
+        DesignCheck::Fails(report)
+    } else {
+        DesignCheck::Passes(report)
+    }
 }
 
 /// The report of a case whose continuous design already fails the spec
 /// (what `pick` answers without sweeping); None when the design passes.
 pub fn failed_design(case: &Case, lp: &PreparedLoop) -> Option<PickReport> {
-    match design_report(case, lp) {
-        (report, true) => Some(report),
-        _ => None,
+    match design_check(case, lp) {
+        DesignCheck::Fails(report) => Some(report),
+        DesignCheck::Passes(_) => None,
     }
 }
 
@@ -568,7 +592,9 @@ pub fn pick(
 /// Search every (method, hold, delay) series of a finished sweep and make
 /// the recommendation: on the robust answer when `variants` is given (the
 /// sweep must have been run with the same variants), and with the
-/// precision ceilings when the case has `[arithmetic]`.
+/// precision ceilings when the case has `[arithmetic]`. The steps, in
+/// order: the design check, the search, the recommendation, the precision
+/// ceilings, the window, the advice.
 pub fn pick_from(
     case: &Case,
     lp: &PreparedLoop,
@@ -576,14 +602,79 @@ pub fn pick_from(
     summary: &SweepSummary,
     observer: &dyn SearchObserver,
 ) -> PickReport {
-    let spec = &case.spec;
-    let (mut report, failed) = design_report(case, lp);
-    if failed {
+    let mut report = match design_check(case, lp) {
+        DesignCheck::Passes(r) => r,
+        DesignCheck::Fails(done) => return done,
+    };
+    let searched = search(case, lp, variants, summary, observer);
+    report.methods = searched.methods;
+    report.robust = searched.robust;
+    report.notes.extend(searched.notes);
+    // The answers the recommendation rests on: robust when there are variants.
+    let answers: Vec<SlowestRate> = report.answers().into_iter().cloned().collect();
+    let Some(rec) = recommend(case, lp, variants, &answers) else {
+        let robust = report.robust.is_some();
+        report
+            .notes
+            .push(no_answer(lp, &answers, report.design_delay, robust));
         return report;
+    };
+    report.notes.extend(rec.notes);
+    report.recommended = Some(rec.recommended);
+    report.cpu_ceiling_hz = match (case.budget.as_ref(), rec.cycles) {
+        (Some(b), Some(c)) => Some(budget::ceiling_hz(b, c)),
+        _ => None,
+    };
+    if case.arithmetic.is_some() {
+        report.precision = Some(precision_report(
+            case,
+            lp,
+            summary,
+            &answers,
+            &rec.chosen,
+            observer,
+        ));
     }
-    let design_delay = report.design_delay;
+    let Some(window) = window(case, lp, &rec.chosen, &report) else {
+        return report;
+    };
+    if window.empty {
+        report.advice = empty_window_advice(case, lp, &report, &window, rec.cycles);
+    } else {
+        report.window_hz = Some([window.low_hz, window.high_hz]);
+        if let Some(pr) = &report.precision
+            && window.high_bound.is_coefficients()
+            && let Some(o) = &pr.other_structure
+        {
+            report.notes.push(o.advice(pr.structure));
+        }
+    }
+    report.window = Some(window);
+    report
+}
+
+/// What the search found: `f_star` per series on the nominal loop, the
+/// robust search over plant variants, and the notes they call for.
+struct Searched {
+    methods: Vec<SlowestRate>,
+    robust: Option<RobustReport>,
+    notes: Vec<String>,
+}
+
+/// Step 2, the search: `f_star` for every (method, hold, delay) series on
+/// the nominal loop, then over the plant variants when there are any. A
+/// controller given in z has one rate: each delay gets its own verdict
+/// there.
+fn search(
+    case: &Case,
+    lp: &PreparedLoop,
+    variants: Option<&VariantSet>,
+    summary: &SweepSummary,
+    observer: &dyn SearchObserver,
+) -> Searched {
+    let spec = &case.spec;
     let n = summary.grid.rates.len();
-    report.methods = (0..summary.grid.series_count())
+    let mut methods: Vec<SlowestRate> = (0..summary.grid.series_count())
         .into_par_iter()
         .map(|s| {
             let p = summary.grid.point(s * n);
@@ -598,15 +689,16 @@ pub fn pick_from(
             )
         })
         .collect();
+    let mut notes = Vec::new();
     if let Controller::Discrete(d) = &lp.controller {
         // One rate only: "at or below" the range floor does not apply.
-        for m in report.methods.iter_mut() {
+        for m in methods.iter_mut() {
             m.at_range_floor = false;
         }
         // Each listed delay gets its own verdict at that rate.
         let own = 1.0 / d.period_s;
-        for m in &report.methods {
-            report.notes.push(match (m.slowest_rate_hz, &m.limiting) {
+        for m in &methods {
+            notes.push(match (m.slowest_rate_hz, &m.limiting) {
                 (Some(_), _) => format!(
                     "computation delay {}: the controller given in z meets the spec at its rate {own} Hz",
                     m.compute_delay
@@ -619,133 +711,115 @@ pub fn pick_from(
             });
         }
     }
-    if let Some(v) = variants {
-        report.robust = Some(robust_report(
-            case,
-            lp,
-            v,
-            summary,
-            &report.methods,
-            observer,
-        ));
+    let robust = variants.map(|v| robust_report(case, lp, v, summary, &methods, observer));
+    Searched {
+        methods,
+        robust,
+        notes,
+    }
+}
+
+/// The recommended method, hold and rate, with the controller discretized
+/// there once: the recommendation's own evaluation, its CPU cost, its
+/// plant variants, its rounding in every format and the precision
+/// ceiling's search from it all use this one.
+struct Chosen {
+    method: Option<Method>,
+    hold: HoldKind,
+    delay: f64,
+    rate_hz: f64,
+    /// The nominal loop's crossover at the recommended rate, Hz.
+    crossover_hz: Option<f64>,
+    controller: Result<DiscreteTransfer, PointError>,
+}
+
+impl Chosen {
+    /// The recommended point.
+    fn point(&self) -> Point {
+        Point {
+            rate_hz: self.rate_hz,
+            method: self.method,
+            delay: self.delay,
+            hold: self.hold,
+        }
     }
 
-    // The answer the recommendation rests on: robust when there are variants.
-    let answers: Vec<SlowestRate> = match &report.robust {
-        Some(r) => r.methods.iter().map(|m| m.rate.clone()).collect(),
-        None => report.methods.clone(),
-    };
-    // The cheapest passing (method, hold): the lowest f_star; on a tie the
-    // first in case order (min_by keeps the first of equals).
+    /// What is already built at `p`: the recommended controller when `p`
+    /// is the recommended point, else nothing.
+    fn given_at(&self, p: &Point) -> Given<'_> {
+        Given {
+            controller: (*p == self.point()).then_some(self.controller.as_ref()),
+            ..Given::default()
+        }
+    }
+}
+
+/// What the recommendation step gives: the recommendation, the point it
+/// was made at, the update's cost there and the notes on the way.
+struct Recommendation {
+    recommended: Recommended,
+    chosen: Chosen,
+    cycles: Option<f64>,
+    notes: Vec<String>,
+}
+
+/// Step 3, the recommendation: the cheapest passing (method, hold) at the
+/// design delay (the lowest `f_star`, ties to the first in case order),
+/// its rate with headroom (and the timer), evaluated there with the exact
+/// delay margin, its CPU cost and its plant variants. None when no method
+/// passes at the design delay (`no_answer` says why).
+fn recommend(
+    case: &Case,
+    lp: &PreparedLoop,
+    variants: Option<&VariantSet>,
+    answers: &[SlowestRate],
+) -> Option<Recommendation> {
+    let spec = &case.spec;
+    let design_delay = design_delay(case);
+    // min_by keeps the first of equals.
     let best = answers
         .iter()
         .filter(|m| m.compute_delay == design_delay)
         .filter_map(|m| m.slowest_rate_hz.map(|f| (m, f)))
         .min_by(|a, b| a.1.total_cmp(&b.1));
-    let Some((best, f_star)) = best else {
-        if let Controller::Discrete(d) = &lp.controller {
-            let passing: Vec<String> = answers
-                .iter()
-                .filter(|m| m.slowest_rate_hz.is_some())
-                .map(|m| sig4(m.compute_delay))
-                .collect();
-            let variants = if report.robust.is_some() {
-                " on every plant variant"
-            } else {
-                ""
-            };
-            report.notes.push(format!(
-                "the controller given in z at {} fails the spec{variants} at computation delay {} (the largest listed, which the recommendation is made at){}",
-                hz(1.0 / d.period_s),
-                periods(design_delay),
-                if passing.is_empty() {
-                    " and at every other delay listed".to_string()
-                } else {
-                    format!("; it meets it at computation delay {}", passing.join(", "))
-                }
-            ));
-            return report;
-        }
-        report.notes.push(if report.robust.is_some() {
-            "no method meets the spec on every plant variant at the fastest swept rate".into()
-        } else {
-            "no method meets the spec at the fastest swept rate".into()
-        });
-        return report;
+    let (best, f_star) = best?;
+    let (rate, divider, mut notes) = recommended_rate(case, lp, f_star);
+    let chosen = Chosen {
+        method: best.method.0,
+        hold: best.hold,
+        delay: design_delay,
+        rate_hz: rate,
+        crossover_hz: None,
+        controller: lp.controller_at(rate, best.method.0),
     };
-    let method = case_methods(case)
-        .into_iter()
-        .find(|m| method_label(*m) == best.method)
-        .flatten();
-    let mut rate = f_star * spec.headroom;
-    let mut divider = None;
-    if let Controller::Discrete(d) = &lp.controller {
-        // A controller given in z runs at its own rate only: no headroom,
-        // no timer rounding.
-        rate = 1.0 / d.period_s;
-        report.notes.push(format!(
-            "the controller is given in z at {rate} Hz: it can run only at that rate, so no headroom is applied"
-        ));
-        if let Some(timer) = case.budget.as_ref().and_then(|b| b.timer_hz) {
-            let n = (timer / rate).round();
-            if n < 1.0 || ((timer / n) - rate).abs() > 1e-9 * rate {
-                report.notes.push(format!(
-                    "the timer ({timer} Hz) cannot make exactly {rate} Hz"
-                ));
-            } else {
-                divider = Some(n as u64);
-            }
-        }
-    } else if let Some(timer) = case.budget.as_ref().and_then(|b| b.timer_hz) {
-        match budget::timer_rate_at_least(timer, rate) {
-            Some((r, n)) => {
-                rate = r;
-                divider = Some(n);
-            }
-            None => report.notes.push(format!(
-                "the timer ({timer} Hz) cannot make {rate:.6} Hz: the rate is shown unrounded"
-            )),
-        }
-    }
+    let p = chosen.point();
+    let given = Given {
+        controller: Some(chosen.controller.as_ref()),
+        plant: None,
+        exact_delay_margin: true,
+    };
+    let eval: Evaluation = lp.evaluate(&p, given);
+    let a = assess(&eval, spec);
+    let cost = case.budget.as_ref().and_then(|b| {
+        budget::cost_at(
+            b,
+            chosen.controller.as_ref().ok(),
+            case_structure(case),
+            rounding::design_integrators(&lp.controller),
+            rate,
+        )
+    });
+    let robust_here =
+        variants.map(|v| v.judge(spec, &p, chosen.controller.as_ref(), false, None).1);
+    let worst_figures = robust_here.as_ref().and_then(|r| r.worst_figures.clone());
     if rate > case.rates.max_hz {
-        report.notes.push(format!(
+        notes.push(format!(
             "the rate f* times the headroom, {}, is above the swept range (max_hz = {})",
             hz(rate),
             hz(case.rates.max_hz)
         ));
     }
-    let hold = best.hold;
-    let p = Point {
-        rate_hz: rate,
-        method,
-        delay: design_delay,
-        hold,
-    };
-    let eval: Evaluation = lp.sampled_exact(&p);
-    let a = assess(&eval, spec);
-    let controller = lp.controller_at(rate, method).ok();
-    let (cycles, load) = match case.budget.as_ref() {
-        Some(b) => {
-            let c = budget::cost_at(
-                b,
-                controller.as_ref(),
-                case.arithmetic
-                    .as_ref()
-                    .map_or(Structure::TransposedDirect, |a| a.structure),
-                rounding::design_integrators(&lp.controller),
-                rate,
-            );
-            (c.map(|c| c.cycles), c.map(|c| c.load_pct))
-        }
-        None => (None, None),
-    };
-    let robust_here = variants.map(|v| {
-        let c = lp.controller_at(rate, method);
-        v.judge(spec, &p, c.as_ref().map_err(String::as_str), false, None)
-            .1
-    });
-    let worst_figures = robust_here.as_ref().and_then(|r| r.worst_figures.clone());
-    report.recommended = Some(Recommended {
+    let recommended = Recommended {
         worst_checks: worst_figures
             .as_ref()
             .map(|f| check_figures(f, spec))
@@ -766,12 +840,12 @@ pub fn pick_from(
             ),
         },
         method: best.method,
-        hold,
+        hold: best.hold,
         hold_basis: hold_basis(
             case,
-            &answers,
+            answers,
             best.method.name(),
-            hold,
+            best.hold,
             f_star,
             design_delay,
         ),
@@ -780,61 +854,150 @@ pub fn pick_from(
         rate_hz: rate,
         period_s: 1.0 / rate,
         timer_divider: divider,
-        cpu_load_pct: load,
-        cycles_per_update: cycles,
+        cpu_load_pct: cost.map(|c| c.load_pct),
+        cycles_per_update: cost.map(|c| c.cycles),
         figures: eval.figures.clone(),
-        checks: a.checks.clone(),
+        checks: a.checks,
         feasible: a.feasible,
-    });
-    let cpu = match (case.budget.as_ref(), cycles) {
-        (Some(b), Some(c)) => {
-            let ceiling = budget::ceiling_hz(b, c);
-            report.cpu_ceiling_hz = Some(ceiling);
-            Some((ceiling, c))
-        }
-        _ => None,
     };
-    if case.arithmetic.is_some() {
-        let crossover = eval.figures.as_ref().and_then(|f| f.crossover_hz);
-        let at = Chosen {
-            method,
-            hold,
-            rate_hz: rate,
-            crossover_hz: crossover,
+    let crossover_hz = eval.figures.as_ref().and_then(|f| f.crossover_hz);
+    Some(Recommendation {
+        recommended,
+        chosen: Chosen {
+            crossover_hz,
+            ..chosen
+        },
+        cycles: cost.map(|c| c.cycles),
+        notes,
+    })
+}
+
+/// The computation delay the recommendation is made at: the largest the
+/// case lists (the conservative choice).
+fn design_delay(case: &Case) -> f64 {
+    case.compute_delays.iter().copied().fold(0.0, f64::max)
+}
+
+/// The structure the controller is arranged in on the target (the CPU
+/// cost counts its multiply-accumulates).
+fn case_structure(case: &Case) -> Structure {
+    case.arithmetic
+        .as_ref()
+        .map_or(Structure::TransposedDirect, |a| a.structure)
+}
+
+/// Why there is no recommendation: no method passes at the design delay.
+fn no_answer(
+    lp: &PreparedLoop,
+    answers: &[SlowestRate],
+    design_delay: f64,
+    robust: bool,
+) -> String {
+    if let Controller::Discrete(d) = &lp.controller {
+        let passing: Vec<String> = answers
+            .iter()
+            .filter(|m| m.slowest_rate_hz.is_some())
+            .map(|m| sig4(m.compute_delay))
+            .collect();
+        let variants = if robust {
+            " on every plant variant"
+        } else {
+            ""
         };
-        report.precision = Some(precision_report(case, lp, summary, &answers, &at, observer));
+        return format!(
+            "the controller given in z at {} fails the spec{variants} at computation delay {} (the largest listed, which the recommendation is made at){}",
+            hz(1.0 / d.period_s),
+            periods(design_delay),
+            if passing.is_empty() {
+                " and at every other delay listed".to_string()
+            } else {
+                format!("; it meets it at computation delay {}", passing.join(", "))
+            }
+        );
     }
-    // The window's top: the lower of the CPU ceiling and the first
-    // format's precision ceiling (one above the swept range bounds nothing).
+    if robust {
+        "no method meets the spec on every plant variant at the fastest swept rate".into()
+    } else {
+        "no method meets the spec at the fastest swept rate".into()
+    }
+}
+
+/// The recommended rate from `f_star`: times the headroom and rounded up
+/// to a rate the timer makes (a controller given in z: its own rate, no
+/// headroom, no rounding); with the timer's divider and the notes.
+fn recommended_rate(
+    case: &Case,
+    lp: &PreparedLoop,
+    f_star: f64,
+) -> (f64, Option<u64>, Vec<String>) {
+    let mut notes = Vec::new();
+    let mut rate = f_star * case.spec.headroom;
+    let mut divider = None;
+    let timer = case.budget.as_ref().and_then(|b| b.timer_hz);
+    if let Controller::Discrete(d) = &lp.controller {
+        rate = 1.0 / d.period_s;
+        notes.push(format!(
+            "the controller is given in z at {rate} Hz: it can run only at that rate, so no headroom is applied"
+        ));
+        if let Some(timer) = timer {
+            let n = (timer / rate).round();
+            if n < 1.0 || ((timer / n) - rate).abs() > 1e-9 * rate {
+                notes.push(format!(
+                    "the timer ({timer} Hz) cannot make exactly {rate} Hz"
+                ));
+            } else {
+                divider = Some(n as u64);
+            }
+        }
+    } else if let Some(timer) = timer {
+        match budget::timer_rate_at_least(timer, rate) {
+            Some((r, n)) => {
+                rate = r;
+                divider = Some(n);
+            }
+            None => notes.push(format!(
+                "the timer ({timer} Hz) cannot make {rate:.6} Hz: the rate is shown unrounded"
+            )),
+        }
+    }
+    (rate, divider, notes)
+}
+
+/// Step 5, the window: from the recommended rate up to the lower of the
+/// CPU ceiling and the first format's precision ceiling (one above the
+/// swept range bounds nothing), never above the last rate checked. None
+/// without a budget or a format that bounds it.
+fn window(
+    case: &Case,
+    lp: &PreparedLoop,
+    chosen: &Chosen,
+    report: &PickReport,
+) -> Option<RateWindow> {
+    let rate = chosen.rate_hz;
+    let method = MethodChoice(chosen.method);
     let prec = report.precision.as_ref().and_then(|pr| {
         pr.ceilings
             .iter()
-            .find(|c| c.method == best.method && c.format == pr.window_format)
+            .find(|c| c.method == method && c.format == pr.window_format)
             .filter(|c| !c.ceiling.above_range)
             .map(|c| {
-                let bound = |fails_at_start: Option<String>| WindowBound::Coefficients {
-                    format: c.format.clone(),
-                    structure: pr.structure.clone(),
+                let bound = |fails_at_start: Option<Limiting>| WindowBound::Coefficients {
+                    format: c.format,
+                    structure: pr.structure,
                     fails_at_start,
                 };
                 match c.ceiling.rate_hz {
                     Some(h) => (h, bound(None)),
                     // Failing already where the search starts: no rate above
-                    // the low end is usable, so the window is empty.
-                    None => (
-                        f64::NEG_INFINITY,
-                        bound(Some(
-                            c.ceiling
-                                .limiting
-                                .map_or_else(|| "?".into(), |l| l.key().to_string()),
-                        )),
-                    ),
+                    // the low end is usable, so the window is empty. (An
+                    // infeasible verdict always names what fails.)
+                    None => (f64::NEG_INFINITY, bound(c.ceiling.limiting)),
                 }
             })
     });
-    let top = match (cpu, prec) {
-        (Some((cc, _)), Some((pc, bound))) if pc < cc => Some((pc, bound)),
-        (Some((cc, _)), _) => Some((cc, WindowBound::CpuBudget)),
+    let top = match (report.cpu_ceiling_hz, prec) {
+        (Some(cc), Some((pc, bound))) if pc < cc => Some((pc, bound)),
+        (Some(cc), _) => Some((cc, WindowBound::CpuBudget)),
         (None, Some(p)) => Some(p),
         (None, None) => None,
     };
@@ -846,45 +1009,28 @@ pub fn pick_from(
         Controller::Discrete(d) => 1.0 / d.period_s,
         Controller::Continuous(_) => case.rates.max_hz,
     };
-    let top = top.map(|(high, bound)| {
-        if high > checked_top {
-            (
-                checked_top,
-                WindowBound::LastRateChecked {
-                    checked_hz: checked_top,
-                    beyond: Box::new(bound),
-                    beyond_hz: high,
-                },
-            )
-        } else {
-            (high, bound)
+    let (high, bound) = top?;
+    let (high, bound) = if high > checked_top {
+        (
+            checked_top,
+            WindowBound::LastRateChecked {
+                checked_hz: checked_top,
+                beyond: Box::new(bound),
+                beyond_hz: high,
+            },
+        )
+    } else {
+        (high, bound)
+    };
+    Some(if high.is_finite() {
+        RateWindow::new(rate, high, bound, report.cpu_ceiling_hz)
+    } else {
+        RateWindow {
+            high_hz: rate,
+            empty: true,
+            ..RateWindow::new(rate, rate, bound, report.cpu_ceiling_hz)
         }
-    });
-    if let Some((high, bound)) = top {
-        let w = if high.is_finite() {
-            RateWindow::new(rate, high, bound, report.cpu_ceiling_hz)
-        } else {
-            RateWindow {
-                high_hz: rate,
-                empty: true,
-                ..RateWindow::new(rate, rate, bound, report.cpu_ceiling_hz)
-            }
-        };
-        if w.empty {
-            report.advice = empty_window_advice(case, lp, &report, rate, &w, cpu.map(|c| c.1));
-        } else {
-            report.window_hz = Some([rate, high]);
-            if let Some(pr) = &report.precision
-                && w.high_bound.is_coefficients()
-                && let Some(o) = &pr.other_structure
-            {
-                let text = o.advice(&pr.structure);
-                report.notes.push(text);
-            }
-        }
-        report.window = Some(w);
-    }
-    report
+    })
 }
 
 /// The robust search for every series: the judge evaluates every variant
@@ -917,8 +1063,7 @@ fn robust_report(
                     hold,
                 };
                 let c = lp.controller_at(rate, method);
-                let (_, v) =
-                    variants.judge(spec, &p, c.as_ref().map_err(String::as_str), false, None);
+                let (_, v) = variants.judge(spec, &p, c.as_ref(), false, None);
                 observer.evaluated(rate, &v.assessment);
                 seen.borrow_mut()
                     .push((rate, v.assessment.clone(), v.worst));
@@ -979,11 +1124,11 @@ fn robust_report(
         })
         .collect();
     let (mode, seed) = match case.uncertainty {
-        Some(UncertaintyMode::Samples { seed, .. }) => ("samples", Some(seed)),
-        _ => ("corners", None),
+        Some(UncertaintyMode::Samples { seed, .. }) => (VariantDraw::Samples, Some(seed)),
+        _ => (VariantDraw::Corners, None),
     };
     RobustReport {
-        mode: mode.into(),
+        mode,
         seed,
         variants: variants.len(),
         params: case
@@ -1001,17 +1146,11 @@ fn robust_report(
     }
 }
 
-/// The recommended method and rate, and the nominal loop's crossover there.
-struct Chosen {
-    method: Option<Method>,
-    hold: HoldKind,
-    rate_hz: f64,
-    crossover_hz: Option<f64>,
-}
-
-/// Precision ceilings for every method with an answer at the design delay
-/// with the recommended hold (searched upward from its `f_star` times the headroom, on the nominal
-/// plant), and the damage at the recommended rate.
+/// Step 4, the precision ceilings: for every method with an answer at the
+/// design delay with the recommended hold (searched upward from its
+/// `f_star` times the headroom, on the nominal plant), the damage at the
+/// recommended rate, and the other structure when the case's loses the
+/// integral action.
 fn precision_report(
     case: &Case,
     lp: &PreparedLoop,
@@ -1020,16 +1159,9 @@ fn precision_report(
     chosen: &Chosen,
     observer: &dyn SearchObserver,
 ) -> PrecisionReport {
-    let (recommended_method, recommended_rate) = (chosen.method, chosen.rate_hz);
-    let hold = chosen.hold;
-    let recommended_crossover_hz = chosen.crossover_hz;
     let Some(arith) = case.arithmetic.as_ref() else {
         unreachable!("precision_report is called only with [arithmetic]")
     };
-    let spec = &case.spec;
-    let design_delay = case.compute_delays.iter().copied().fold(0.0, f64::max);
-    let plan = Plan::for_case(case, lp, None);
-    let evaluated = plan.formats();
     // As in the sweep: the design's crossover, else (a controller given
     // in z, which runs at one rate) the loop's own at that rate.
     let check_hz = lp
@@ -1037,20 +1169,102 @@ fn precision_report(
         .as_ref()
         .and_then(|d| d.figures.as_ref())
         .and_then(|f| f.crossover_hz)
-        .or(recommended_crossover_hz);
+        .or(chosen.crossover_hz);
+    let ceilings = format_ceilings(case, lp, summary, answers, chosen, check_hz, observer);
+    let p = chosen.point();
+    let at_recommended = arith
+        .formats
+        .par_iter()
+        .map(|&format| {
+            let given = chosen.given_at(&p);
+            let v = precision::judge_point(
+                lp,
+                &case.spec,
+                &p,
+                given,
+                arith.structure,
+                format,
+                check_hz,
+            );
+            FormatAtRate {
+                format,
+                reason: v.reason,
+                integral_kept: v
+                    .damage
+                    .as_ref()
+                    .filter(|d| d.integrators > 0)
+                    .map(Damage::integral_kept),
+                damage: v.damage,
+                feasible: v.assessment.feasible,
+                limiting: v.assessment.limiting,
+            }
+        })
+        .collect();
+    let window_format = arith.formats[0];
+    let lost_at = ceilings
+        .iter()
+        .find(|c| c.method == MethodChoice(chosen.method) && c.format == window_format)
+        .filter(|c| {
+            c.ceiling.limiting == Some(Limiting::Rounding(StructuralFailure::IntegralActionLost))
+        })
+        .and_then(|c| c.ceiling.first_failure_hz);
+    let other_structure = lost_at.map(|lost_at_hz| {
+        let mut rates: Vec<f64> = (summary.grid.rates.iter())
+            .copied()
+            .filter(|&f| f > chosen.rate_hz)
+            .collect();
+        rates.insert(0, chosen.rate_hz);
+        other_structure_integral(
+            lp,
+            chosen,
+            arith.structure,
+            window_format,
+            &rates,
+            lost_at_hz,
+        )
+    });
+    PrecisionReport {
+        structure: arith.structure,
+        window_format,
+        ceilings,
+        at_recommended,
+        other_structure,
+    }
+}
+
+/// Each number format's ceiling for every method with an answer at the
+/// design delay with the recommended hold: the fastest rate up to which
+/// the rounded controller passes, searched upward from the method's
+/// `f_star` times the headroom (the recommended method: from the
+/// recommended rate) on the sweep's verdicts.
+fn format_ceilings(
+    case: &Case,
+    lp: &PreparedLoop,
+    summary: &SweepSummary,
+    answers: &[SlowestRate],
+    chosen: &Chosen,
+    check_hz: Option<f64>,
+    observer: &dyn SearchObserver,
+) -> Vec<FormatCeiling> {
+    let Some(arith) = case.arithmetic.as_ref() else {
+        return Vec::new();
+    };
+    let spec = &case.spec;
+    let (hold, design_delay) = (chosen.hold, chosen.delay);
+    let evaluated = Plan::for_case(case, lp, None).formats();
     let mut jobs: Vec<(Option<Method>, f64, Format)> = Vec::new();
     for m in case_methods(case) {
         let Some(f_star) = answers
             .iter()
             .find(|a| {
-                a.method == method_label(m) && a.hold == hold && a.compute_delay == design_delay
+                a.method == MethodChoice(m) && a.hold == hold && a.compute_delay == design_delay
             })
             .and_then(|a| a.slowest_rate_hz)
         else {
             continue;
         };
-        let from = if m == recommended_method {
-            recommended_rate
+        let from = if m == chosen.method {
+            chosen.rate_hz
         } else {
             f_star * spec.headroom
         };
@@ -1058,8 +1272,7 @@ fn precision_report(
             jobs.push((m, from, f));
         }
     }
-    let ceilings: Vec<FormatCeiling> = jobs
-        .par_iter()
+    jobs.par_iter()
         .map(|&(m, from, format)| {
             let rates = &summary.grid.rates;
             let swept = summary
@@ -1086,14 +1299,15 @@ fn precision_report(
                             delay: design_delay,
                             hold,
                         };
+                        let given = chosen.given_at(&p);
                         let a = precision::judge_point(
                             lp,
                             spec,
                             &p,
+                            given,
                             arith.structure,
                             format,
                             check_hz,
-                            None,
                         )
                         .assessment;
                         observer.evaluated(rate, &a);
@@ -1117,91 +1331,39 @@ fn precision_report(
                 }
             };
             FormatCeiling {
-                method: method_label(m),
-                format: format.name(),
+                method: MethodChoice(m),
+                format,
                 from_hz: from,
                 ceiling,
             }
         })
-        .collect();
-    let p = Point {
-        rate_hz: recommended_rate,
-        method: recommended_method,
-        delay: design_delay,
-        hold,
-    };
-    let at_recommended = arith
-        .formats
-        .par_iter()
-        .map(|&format| {
-            let v = precision::judge_point(lp, spec, &p, arith.structure, format, check_hz, None);
-            FormatAtRate {
-                format: format.name(),
-                reason: v.reason,
-                integral_kept: v
-                    .damage
-                    .as_ref()
-                    .filter(|d| d.integrators > 0)
-                    .map(Damage::integral_kept),
-                damage: v.damage,
-                feasible: v.assessment.feasible,
-                limiting: v.assessment.limiting,
-            }
-        })
-        .collect();
-    let window_format = arith.formats[0];
-    let lost_at = ceilings
-        .iter()
-        .find(|c| c.method == method_label(recommended_method) && c.format == window_format.name())
-        .filter(|c| {
-            c.ceiling.limiting == Some(Limiting::Rounding(StructuralFailure::IntegralActionLost))
-        })
-        .and_then(|c| c.ceiling.first_failure_hz);
-    let other_structure = lost_at.map(|lost_at_hz| {
-        let mut rates: Vec<f64> = (summary.grid.rates.iter())
-            .copied()
-            .filter(|&f| f > recommended_rate)
-            .collect();
-        rates.insert(0, recommended_rate);
-        other_structure_integral(
-            lp,
-            recommended_method,
-            arith.structure,
-            window_format,
-            &rates,
-            lost_at_hz,
-        )
-    });
-    PrecisionReport {
-        structure: arith.structure.name().into(),
-        window_format: window_format.name(),
-        ceilings,
-        at_recommended,
-        other_structure,
-    }
+        .collect()
 }
 
 /// Whether the structure other than `structure` keeps the design's
 /// integral action in `format` at each of `rates` (ascending, the first
-/// the recommended rate): the rounding alone decides it, so only the
-/// quantized controller is built (no loop evaluation).
+/// the recommended rate, where `chosen`'s controller is used): the
+/// rounding alone decides it, so only the quantized controller is built
+/// (no loop evaluation).
 fn other_structure_integral(
     lp: &PreparedLoop,
-    method: Option<Method>,
+    chosen: &Chosen,
     structure: Structure,
     format: Format,
     rates: &[f64],
     lost_at_hz: f64,
 ) -> OtherStructure {
-    let other = match structure {
-        Structure::TransposedDirect => Structure::Sos,
-        Structure::Sos => Structure::TransposedDirect,
-    };
+    let other = structure.other();
     let integrators = rounding::design_integrators(&lp.controller);
     let kept = |rate: f64| {
-        lp.controller_at(rate, method)
-            .ok()
-            .and_then(|c| rounding::quantize(&c, integrators, other, format, None).ok())
+        let own;
+        let c = if rate == chosen.rate_hz {
+            chosen.controller.as_ref().ok()
+        } else {
+            own = lp.controller_at(rate, chosen.method).ok();
+            own.as_ref()
+        };
+        c.and_then(|c| rounding::quantize(c, integrators, other, format, None).ok())
             .is_some_and(|q| q.damage.integral_kept())
     };
     let mut kept_up_to_hz = None;
@@ -1217,8 +1379,8 @@ fn other_structure_integral(
         }
     }
     OtherStructure {
-        structure: other.name().into(),
-        format: format.name(),
+        structure: other,
+        format,
         lost_at_hz,
         rates_checked: checked,
         kept_up_to_hz,
@@ -1226,19 +1388,18 @@ fn other_structure_integral(
     }
 }
 
-/// What would open an empty rate window, each item with the number it
+/// Step 6, the advice: what would open an empty rate window, each item with the number it
 /// would take: a faster CPU, a cheaper update, a higher load limit, a
 /// wider number format, a looser spec, another method, a shorter delay.
 fn empty_window_advice(
     case: &Case,
     lp: &PreparedLoop,
     report: &PickReport,
-    rate: f64,
     window: &RateWindow,
     cycles: Option<f64>,
 ) -> Vec<String> {
     let mut out = Vec::new();
-    let ceiling = window.high_hz;
+    let (rate, ceiling) = (window.low_hz, window.high_hz);
     if let (Some(b), Some(cycles), Some(cpu)) =
         (case.budget.as_ref(), cycles, report.cpu_ceiling_hz)
         && cpu < rate
@@ -1274,10 +1435,10 @@ fn empty_window_advice(
                     && c.format != pr.window_format
                     && c.ceiling.rate_hz.is_some_and(|h| h >= rate)
             })
-            .map(|c| c.format.clone())
+            .map(|c| c.format.name())
             .collect();
         if let Some(o) = &pr.other_structure {
-            out.push(o.advice(&pr.structure));
+            out.push(o.advice(pr.structure));
         }
         out.push(if wider.is_empty() {
             format!(
@@ -1365,8 +1526,8 @@ fn other_method_advice(
         .filter(|a| a.compute_delay == report.design_delay)
         .filter(|a| rec_hold.is_none_or(|h| a.hold == h))
         .filter_map(|a| {
-            let m = case.methods.iter().find(|m| m.name() == a.method.name())?;
-            Some((*m, a.slowest_rate_hz?))
+            let m = a.method.0.filter(|m| case.methods.contains(m))?;
+            Some((m, a.slowest_rate_hz?))
         })
         .collect();
     let opens: Vec<String> = at_design
@@ -1375,7 +1536,7 @@ fn other_method_advice(
             report
                 .recommended
                 .as_ref()
-                .is_none_or(|r| r.method.name() != m.name())
+                .is_none_or(|r| r.method != MethodChoice(Some(*m)))
         })
         .filter_map(|&(m, f)| {
             let low = f * case.spec.headroom;

@@ -5,7 +5,7 @@
 //! narrow) as their own verdicts.
 
 use crate::model::rounding::{Damage, design_integrators, quantize};
-use crate::sampled::evaluate::{PlantAt, Point, PreparedLoop};
+use crate::sampled::evaluate::{Given, Point, PreparedLoop};
 use crate::sampled::feasibility::{Assessment, UNSTABLE_SLACK, assess};
 use crate::sampled::figure::Limiting;
 use crate::spec::Spec;
@@ -43,16 +43,19 @@ fn failed(name: Limiting) -> Assessment {
 
 /// Round the controller of point `p` in `structure` and `format` and judge
 /// the loop it makes on `lp` against `spec`; `check_hz` is where the
-/// crossover gain error is measured; `plant`, when given, is `lp`'s plant
-/// side at the point's rate and delay, already built (`hold_at`).
+/// crossover gain error is measured. `given` hands in what was built for
+/// the point already: its controller (`lp.controller_at` at the point's
+/// method and rate, built once there and shared by every format, or why it
+/// could not be built) and `lp`'s plant side (`hold_at`); what it does not
+/// hand in is built here. Its delay-margin flag is not used.
 pub fn judge_point(
     lp: &PreparedLoop,
     spec: &Spec,
     p: &Point,
+    given: Given,
     structure: Structure,
     format: Format,
     check_hz: Option<f64>,
-    plant: Option<Result<&PlantAt, &str>>,
 ) -> PrecisionPoint {
     let failure = |name: Limiting, reason: String| PrecisionPoint {
         format,
@@ -60,24 +63,32 @@ pub fn judge_point(
         assessment: failed(name),
         reason: Some(reason),
     };
-    let c = match lp.controller_at(p.rate_hz, p.method) {
-        Ok(c) => c,
-        Err(e) => return failure(Limiting::Controller, e),
+    let own;
+    let c = match given.controller {
+        Some(Ok(c)) => c,
+        Some(Err(e)) => return failure(Limiting::Controller, e.to_string()),
+        None => match lp.controller_at(p.rate_hz, p.method) {
+            Ok(c) => {
+                own = c;
+                &own
+            }
+            Err(e) => return failure(Limiting::Controller, e.to_string()),
+        },
     };
     let integrators = design_integrators(&lp.controller);
     let w = check_hz.map(|f| 2.0 * std::f64::consts::PI * f);
-    let q = match quantize(&c, integrators, structure, format, w) {
+    let q = match quantize(c, integrators, structure, format, w) {
         Ok(q) => q,
-        Err(e) => return failure(Limiting::Coefficients, e),
+        Err(e) => return failure(Limiting::Coefficients, e.to_string()),
     };
     let assessment = match q.damage.structural_failure() {
         Some(s) => failed(Limiting::Rounding(s)),
         None => {
-            let e = match plant {
-                Some(h) => lp.sampled_with_on(p, &q.controller, h),
-                None => lp.sampled_with(p, &q.controller),
+            let around = Given {
+                plant: given.plant,
+                ..Given::around(&q.controller)
             };
-            assess(&e, spec)
+            assess(&lp.evaluate(p, around), spec)
         }
     };
     PrecisionPoint {

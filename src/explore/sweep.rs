@@ -15,7 +15,7 @@ use crate::explore::budget;
 use crate::explore::precision::{self, PrecisionPoint};
 use crate::explore::variants::{RobustPoint, VariantSet};
 use crate::model::discretize::Method;
-use crate::sampled::evaluate::{Evaluation, PlantAt, Point, PreparedLoop};
+use crate::sampled::evaluate::{Evaluation, Given, PlantAt, Point, PointError, PreparedLoop};
 use crate::sampled::feasibility::{Assessment, assess};
 use crate::spec::HoldKind;
 use crate::spec::{Arithmetic, Budget, Spec};
@@ -167,7 +167,7 @@ pub fn evaluate_row(plan: &Plan, p: &Point) -> SweepRow {
 /// The plant side at one (rate, delay, hold), built once for the methods of a
 /// sweep group: one per plant variant, or only the nominal loop's (index
 /// 0 is always the nominal one).
-struct Plants(Vec<Result<PlantAt, String>>);
+struct Plants(Vec<Result<PlantAt, PointError>>);
 
 impl Plants {
     fn at(plan: &Plan, p: &Point) -> Plants {
@@ -178,8 +178,8 @@ impl Plants {
     }
 
     /// The nominal loop's plant side.
-    fn nominal(&self) -> Result<&PlantAt, &str> {
-        self.0[0].as_ref().map_err(String::as_str)
+    fn nominal(&self) -> Result<&PlantAt, &PointError> {
+        self.0[0].as_ref()
     }
 }
 
@@ -187,6 +187,9 @@ impl Plants {
 /// build what is needed here.
 fn evaluate_row_on(plan: &Plan, p: &Point, plants: Option<&Plants>) -> SweepRow {
     let lp = plan.lp;
+    // The controller at this (method, rate), discretized once: the
+    // nominal loop, every plant variant, the CPU cost and every number
+    // format's rounding start from it.
     let controller = lp.controller_at(p.rate_hz, p.method);
     let (eval, robust) = match plan.variants {
         Some(v) => {
@@ -194,16 +197,20 @@ fn evaluate_row_on(plan: &Plan, p: &Point, plants: Option<&Plants>) -> SweepRow 
             let (e, r) = v.judge(
                 plan.spec,
                 p,
-                controller.as_ref().map_err(String::as_str),
+                controller.as_ref(),
                 plan.keep_variants,
                 shared,
             );
             (e, Some(r))
         }
-        None => match plants {
-            Some(h) => (lp.sampled_on(p, h.nominal()), None),
-            None => (lp.sampled(p), None),
-        },
+        None => {
+            let given = Given {
+                controller: Some(controller.as_ref()),
+                plant: plants.map(Plants::nominal),
+                exact_delay_margin: false,
+            };
+            (lp.evaluate(p, given), None)
+        }
     };
     let assessment = assess(&eval, plan.spec);
     let structure = plan
@@ -225,7 +232,14 @@ fn evaluate_row_on(plan: &Plan, p: &Point, plants: Option<&Plants>) -> SweepRow 
     let precision = plan
         .formats()
         .into_par_iter()
-        .map(|f| precision::judge_point(lp, plan.spec, p, structure, f, check_hz, nominal_plant))
+        .map(|f| {
+            let given = Given {
+                controller: Some(controller.as_ref()),
+                plant: nominal_plant,
+                exact_delay_margin: false,
+            };
+            precision::judge_point(lp, plan.spec, p, given, structure, f, check_hz)
+        })
         .collect();
     SweepRow {
         point: *p,

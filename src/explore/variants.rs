@@ -17,7 +17,9 @@ use serde::Serialize;
 use crate::case::Case;
 use crate::error::Error;
 use crate::model::transfer::DiscreteTransfer;
-use crate::sampled::evaluate::{Evaluation, Figures, PlantAt, Point, PreparedLoop};
+use crate::sampled::evaluate::{
+    Evaluation, Figures, Given, PlantAt, Point, PointError, PreparedLoop,
+};
 use crate::sampled::feasibility::{Assessment, assess};
 use crate::spec::{Spec, UncertaintyMode};
 
@@ -191,28 +193,23 @@ impl VariantSet {
         &self,
         spec: &Spec,
         p: &Point,
-        c: Result<&DiscreteTransfer, &str>,
+        c: Result<&DiscreteTransfer, &PointError>,
         keep: bool,
-        plants: Option<&[Result<PlantAt, String>]>,
+        plants: Option<&[Result<PlantAt, PointError>]>,
     ) -> (Evaluation, RobustPoint) {
-        let evals: Vec<Evaluation> = match (c, plants) {
-            (Ok(c), Some(plants)) => self
-                .loops
-                .par_iter()
-                .zip(plants.par_iter())
-                .map(|(lp, h)| lp.sampled_with_on(p, c, h.as_ref().map_err(String::as_str)))
-                .collect(),
-            (Ok(c), None) => self
-                .loops
-                .par_iter()
-                .map(|lp| lp.sampled_with(p, c))
-                .collect(),
-            (Err(reason), _) => self
-                .loops
-                .iter()
-                .map(|_| Evaluation::error(reason))
-                .collect(),
-        };
+        let evals: Vec<Evaluation> = self
+            .loops
+            .par_iter()
+            .enumerate()
+            .map(|(i, lp)| {
+                let given = Given {
+                    controller: Some(c),
+                    plant: plants.map(|each| each[i].as_ref()),
+                    exact_delay_margin: false,
+                };
+                lp.evaluate(p, given)
+            })
+            .collect();
         let assessments: Vec<Assessment> = evals.iter().map(|e| assess(e, spec)).collect();
         let nominal = evals[0].clone();
         (nominal, RobustPoint::from_parts(evals, assessments, keep))

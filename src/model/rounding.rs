@@ -9,7 +9,8 @@
 //! rate a pole rounds onto z = 1 (a lag becomes an integrator) or an
 //! integrator rounds off it. This module quantizes the coefficients and
 //! measures the damage; the loop with the quantized controller is then
-//! evaluated like any other (`evaluate::PreparedLoop::sampled_with`).
+//! evaluated like any other (`evaluate::PreparedLoop::evaluate` with
+//! `Given::around`).
 //!
 //! Rounding rules (stated so tests can derive thresholds by hand):
 //! - `f32`: round to nearest, ties to even (IEEE 754 binary32).
@@ -30,6 +31,27 @@
 use serde::Serialize;
 
 use crate::model::poly::{C64, Poly};
+
+/// Why a controller could not be arranged or rounded. Its text is the
+/// reason a precision verdict carries (`pick.json`, `sweep.csv`).
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum RoundingError {
+    #[error("the controller is identically zero")]
+    Zero,
+    #[error("the controller is not proper")]
+    NotProper,
+    /// The root finder gave up on the controller's poles.
+    #[error("the controller's poles could not be found")]
+    Poles,
+    #[error("the rounded controller's poles could not be found")]
+    RoundedPoles,
+    #[error("the controller's zeros could not be found")]
+    Zeros,
+    /// No split of the word into integer and fraction bits holds every
+    /// coefficient.
+    #[error("a coefficient of magnitude {largest:.4e} does not fit a {word_bits}-bit word")]
+    WordTooNarrow { largest: f64, word_bits: u32 },
+}
 use crate::model::transfer::{Controller, DiscreteTransfer, Transfer};
 use crate::spec::{Format, Structure};
 
@@ -151,14 +173,14 @@ pub fn realize(
     c: &DiscreteTransfer,
     structure: Structure,
     integrators: usize,
-) -> Result<Realization, String> {
+) -> Result<Realization, RoundingError> {
     let n = c.transfer.denominator.degree();
     let m = c.transfer.numerator.degree();
     if c.transfer.numerator.is_zero() {
-        return Err("the controller is identically zero".into());
+        return Err(RoundingError::Zero);
     }
     if m > n {
-        return Err("the controller is not proper".into());
+        return Err(RoundingError::NotProper);
     }
     match structure {
         Structure::TransposedDirect => {
@@ -176,17 +198,9 @@ pub fn realize(
             })
         }
         Structure::Sos => {
-            let mut poles = c
-                .transfer
-                .denominator
-                .roots()
-                .ok_or("the controller's poles could not be found")?;
+            let mut poles = c.transfer.denominator.roots().ok_or(RoundingError::Poles)?;
             snap_to_one(&mut poles, integrators);
-            let zeros = c
-                .transfer
-                .numerator
-                .roots()
-                .ok_or("the controller's zeros could not be found")?;
+            let zeros = c.transfer.numerator.roots().ok_or(RoundingError::Zeros)?;
             let gain = c.transfer.numerator.leading() / c.transfer.denominator.leading();
             // Integrators get sections of their own (`1 - q` or
             // `1 - 2q + q^2`), whose coefficients every format holds
@@ -377,7 +391,7 @@ fn rounded(r: &Realization, gain: f64, round: impl Fn(f64) -> f64) -> Realizatio
 pub fn round_realization(
     r: &Realization,
     format: Format,
-) -> Result<(Realization, Option<String>), String> {
+) -> Result<(Realization, Option<String>), RoundingError> {
     match format {
         Format::F64 => Ok((r.clone(), None)),
         Format::F32 => Ok((rounded(r, round_f32(r.gain), round_f32), None)),
@@ -387,13 +401,11 @@ pub fn round_realization(
                 .iter()
                 .flat_map(|s| s.b.iter().chain(s.a.iter()).copied())
                 .collect();
-            let m = integer_bits(&set, magnitude_bits).ok_or_else(|| {
-                let big = set.iter().map(|v| v.abs()).fold(0.0, f64::max);
-                format!(
-                    "a coefficient of magnitude {big:.4e} does not fit a {}-bit word",
-                    magnitude_bits + 1
-                )
-            })?;
+            let m =
+                integer_bits(&set, magnitude_bits).ok_or_else(|| RoundingError::WordTooNarrow {
+                    largest: set.iter().map(|v| v.abs()).fold(0.0, f64::max),
+                    word_bits: magnitude_bits + 1,
+                })?;
             let f = magnitude_bits - m;
             let gain = if r.gain == 1.0 {
                 1.0
@@ -444,7 +456,7 @@ pub fn quantize(
     structure: Structure,
     format: Format,
     check_w_rad_s: Option<f64>,
-) -> Result<Quantized, String> {
+) -> Result<Quantized, RoundingError> {
     let exact = realize(c, structure, integrators)?;
     let (rounded, q_format) = round_realization(&exact, format)?;
     let f64_only = format == Format::F64;
@@ -475,16 +487,12 @@ pub fn quantize(
             transfer(&exact, c.period_s),
         ),
         _ => {
-            let mut p0 = c
-                .transfer
-                .denominator
-                .roots()
-                .ok_or("the controller's poles could not be found")?;
+            let mut p0 = c.transfer.denominator.roots().ok_or(RoundingError::Poles)?;
             let mut p1 = q
                 .transfer
                 .denominator
                 .roots()
-                .ok_or("the rounded controller's poles could not be found")?;
+                .ok_or(RoundingError::RoundedPoles)?;
             snap_to_one(&mut p0, integrators);
             snap_to_one(&mut p1, integrators_after);
             (
@@ -680,7 +688,12 @@ mod tests {
         assert!(Format::from_str("q32").is_err());
         assert!(Format::from_str("q015").is_err());
         assert!(Format::from_str("q+15").is_err());
-        assert!(Format::from_str("int16").unwrap_err().contains("int16"));
+        assert!(
+            Format::from_str("int16")
+                .unwrap_err()
+                .to_string()
+                .contains("int16")
+        );
     }
 
     #[test]

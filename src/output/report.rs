@@ -829,7 +829,7 @@ fn blocks(
                             }
                         });
                     vec![
-                        a.format.clone(),
+                        a.format.name(),
                         d.and_then(|d| d.q_format.clone())
                             .unwrap_or_else(|| "-".into()),
                         d.map_or("-".into(), |d| sig4(d.pole_error_pct)),

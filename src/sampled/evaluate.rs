@@ -4,7 +4,7 @@
 
 use serde::Serialize;
 
-use crate::model::discretize::{Method, discretize};
+use crate::model::discretize::{DiscretizeError, Method, discretize};
 use crate::sampled::closed_loop::{ClosedLoop, Stability};
 use crate::sampled::continuous::{ContinuousLoop, HoldApprox};
 use crate::sampled::delay_margin::{DelayMargin, exact_delay_margin};
@@ -22,6 +22,80 @@ use crate::sampled::time_response::{
     DisturbanceFigures, StepFigures, TimeOptions, TracePoint, horizon_periods, sampled_figures,
     sampled_trace_spanning,
 };
+
+/// Why a point could not be evaluated. Its text is the reason a grid row
+/// carries (`error: ...` in `sweep.csv`).
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum PointError {
+    #[error("rate must be positive and finite, got {0}")]
+    Rate(f64),
+    #[error("computation delay must be non-negative and finite (in periods), got {0}")]
+    Delay(f64),
+    /// The method cannot produce a controller at this rate.
+    #[error(transparent)]
+    Discretize(#[from] DiscretizeError),
+    /// A continuous controller and no method.
+    #[error("no discretization method given")]
+    NoMethod,
+    /// A controller given in z runs at its own rate only.
+    #[error("the controller is given in z at {own_hz} Hz and cannot run at {rate_hz} Hz")]
+    OwnRate { own_hz: f64, rate_hz: f64 },
+    /// A controller given in z has no continuous design.
+    #[error("the controller is given in z: no continuous design")]
+    NoContinuousDesign,
+    #[error("plant equivalent: {0}")]
+    PlantEquivalent(ModelError),
+    #[error("closing the loop: {0}")]
+    ClosingLoop(ModelError),
+    #[error("closed-loop poles: {0}")]
+    Poles(ModelError),
+    /// A model error met on the way (a trace's poles, a continuous loop).
+    #[error(transparent)]
+    Model(#[from] ModelError),
+    /// The time response could not be computed (its own reason).
+    #[error("{0}")]
+    TimeResponse(String),
+}
+
+/// What an evaluation at a point is handed instead of building it: the
+/// controller and the plant side, each built once for the point and shared
+/// by everything evaluated there, and whether to search the exact delay
+/// margin. `Given::default()` builds both and leaves the margin unsearched
+/// (a sweep's figures).
+#[derive(Debug, Clone, Copy, Default)]
+pub struct Given<'a> {
+    /// The controller that runs: the point's own discretization
+    /// (`PreparedLoop::controller_at`, built once per (method, rate)) or a
+    /// rounded one, or why it could not be built. None: discretized here.
+    pub controller: Option<Result<&'a DiscreteTransfer, &'a PointError>>,
+    /// The plant side at the point's rate, delay and hold
+    /// (`PreparedLoop::hold_at`), shared by the methods of a sweep group,
+    /// or why it could not be built. None: built here.
+    pub plant: Option<Result<&'a PlantAt, &'a PointError>>,
+    /// Search the exact delay margin (`docs/figures.md`): `eval` and the
+    /// recommended rate do; a sweep's rows leave it unsearched.
+    pub exact_delay_margin: bool,
+}
+
+impl<'a> Given<'a> {
+    /// The loop around controller `c` (a rounded one, or one shared by
+    /// several plant variants); the plant side built here.
+    pub fn around(c: &'a DiscreteTransfer) -> Given<'a> {
+        Given {
+            controller: Some(Ok(c)),
+            ..Given::default()
+        }
+    }
+
+    /// Everything built here, and the exact delay margin searched: the
+    /// full figures of one point.
+    pub fn with_delay_margin() -> Given<'a> {
+        Given {
+            exact_delay_margin: true,
+            ..Given::default()
+        }
+    }
+}
 
 /// Outcome of one evaluation.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -447,24 +521,28 @@ impl PreparedLoop {
         out
     }
 
-    /// The controller that runs at `rate_hz`.
+    /// The controller that runs at `rate_hz`: the one place a controller
+    /// is discretized. Whatever needs the controller at one (method, rate)
+    /// (the evaluation, every plant variant, every number format, the CPU
+    /// cost) is handed the one built here (`Given::controller`).
     pub fn controller_at(
         &self,
         rate_hz: f64,
         method: Option<Method>,
-    ) -> Result<DiscreteTransfer, String> {
+    ) -> Result<DiscreteTransfer, PointError> {
         let period = 1.0 / rate_hz;
         match (&self.controller, method) {
             (Controller::Continuous(c), Some(m)) => {
-                discretize(c, m, period, self.prewarp_rad_s).map_err(|e| e.to_string())
+                Ok(discretize(c, m, period, self.prewarp_rad_s)?)
             }
-            (Controller::Continuous(_), None) => Err("no discretization method given".into()),
+            (Controller::Continuous(_), None) => Err(PointError::NoMethod),
             (Controller::Discrete(d), _) => {
                 let own = 1.0 / d.period_s;
                 if ((rate_hz - own) / own).abs() > 1e-9 {
-                    Err(format!(
-                        "the controller is given in z at {own} Hz and cannot run at {rate_hz} Hz"
-                    ))
+                    Err(PointError::OwnRate {
+                        own_hz: own,
+                        rate_hz,
+                    })
                 } else {
                     Ok(d.clone())
                 }
@@ -492,38 +570,40 @@ impl PreparedLoop {
         range
     }
 
-    /// Build the exact sampled loop at a point.
+    /// Build the exact sampled loop at a point (for a trace, a loop gain,
+    /// a test): the hold equivalent, the point's controller, the closed loop.
     pub fn sampled_loop(
         &self,
         p: &Point,
-    ) -> Result<(HoldEquivalent, DiscreteTransfer, ClosedLoop), String> {
+    ) -> Result<(HoldEquivalent, DiscreteTransfer, ClosedLoop), PointError> {
         check_point(p)?;
         let c = self.controller_at(p.rate_hz, p.method)?;
-        let (hold, cl) = self.sampled_loop_with(p, &c)?;
+        let (hold, cl) = self.closed_loop_around(p, &c)?;
         Ok((hold, c, cl))
     }
 
     /// Build the exact sampled loop at a point around a given controller
-    /// (a quantized one, or one shared by several plant variants).
-    pub fn sampled_loop_with(
+    /// (a rounded one, or one scaled by a test).
+    pub fn closed_loop_around(
         &self,
         p: &Point,
         c: &DiscreteTransfer,
-    ) -> Result<(HoldEquivalent, ClosedLoop), String> {
+    ) -> Result<(HoldEquivalent, ClosedLoop), PointError> {
         let hold = self.hold_equivalent(p)?;
-        let cl = ClosedLoop::new(&hold, c).map_err(|e| format!("closing the loop: {e}"))?;
+        let cl = ClosedLoop::new(&hold, c).map_err(PointError::ClosingLoop)?;
         Ok((hold, cl))
     }
 
     /// The exact hold + delay + plant equivalent at a point's rate and
     /// delay. It does not depend on the method, so a sweep builds it once
-    /// per (rate, delay) and hands it to `sampled_on` for every method.
-    pub fn hold_at(&self, p: &Point) -> Result<PlantAt, String> {
+    /// per (rate, delay, hold) and hands it to every method's evaluation
+    /// (`Given::plant`).
+    pub fn hold_at(&self, p: &Point) -> Result<PlantAt, PointError> {
         self.hold_equivalent(p).map(PlantAt::new)
     }
 
     /// The exact hold + delay + plant equivalent at a point.
-    fn hold_equivalent(&self, p: &Point) -> Result<HoldEquivalent, String> {
+    fn hold_equivalent(&self, p: &Point) -> Result<HoldEquivalent, PointError> {
         check_point(p)?;
         HoldEquivalent::with(
             &self.plant_model,
@@ -531,7 +611,7 @@ impl PreparedLoop {
             &self.actuation(p),
             self.time.points_per_period,
         )
-        .map_err(|e| format!("plant equivalent: {e}"))
+        .map_err(PointError::PlantEquivalent)
     }
 
     /// What lies between controller and plant at a point: its hold, the
@@ -546,84 +626,52 @@ impl PreparedLoop {
         }
     }
 
-    /// Evaluate the exact sampled-data loop at one point.
+    /// Evaluate the exact sampled-data loop at one point, building its
+    /// controller and plant side here, without the exact delay margin:
+    /// `evaluate(p, Given::default())`.
     pub fn sampled(&self, p: &Point) -> Evaluation {
-        if let Err(e) = check_point(p) {
-            return Evaluation::error(e);
-        }
-        match self.controller_at(p.rate_hz, p.method) {
-            Ok(c) => self.sampled_with(p, &c),
+        self.evaluate(p, Given::default())
+    }
+
+    /// Evaluate the exact sampled-data loop at one point with what `given`
+    /// hands in (the controller, the plant side, whether to search the
+    /// exact delay margin); what it does not hand in is built here. The
+    /// figures do not depend on what was handed in: a shared plant side
+    /// answers from the values it already computed, which are the very
+    /// numbers a fresh one computes.
+    pub fn evaluate(&self, p: &Point, given: Given) -> Evaluation {
+        match self.try_evaluate(p, given) {
+            Ok(e) => e,
             Err(e) => Evaluation::error(e),
         }
     }
 
-    /// `sampled` with the point's hold equivalent already built (by
-    /// `hold_at` at the same point, or its error): the same evaluation.
-    pub fn sampled_on(&self, p: &Point, plant: Result<&PlantAt, &str>) -> Evaluation {
-        if let Err(e) = check_point(p) {
-            return Evaluation::error(e);
-        }
-        match self.controller_at(p.rate_hz, p.method) {
-            Ok(c) => self.sampled_with_on(p, &c, plant),
-            Err(e) => Evaluation::error(e),
-        }
-    }
-
-    /// `sampled_with` on a plant side already built for the point's rate
-    /// and delay (`hold_at`): the same evaluation.
-    pub fn sampled_with_on(
-        &self,
-        p: &Point,
-        c: &DiscreteTransfer,
-        plant: Result<&PlantAt, &str>,
-    ) -> Evaluation {
-        if let Err(e) = check_point(p) {
-            return Evaluation::error(e);
-        }
-        let plant = match plant {
-            Ok(h) => h,
-            Err(e) => return Evaluation::error(e),
-        };
-        match ClosedLoop::new(&plant.hold, c) {
-            Ok(cl) => self.evaluate_closed(&plant.hold, c, &cl, &|w| plant.response(w), false),
-            Err(e) => Evaluation::error(format!("closing the loop: {e}")),
-        }
-    }
-
-    /// Evaluate the exact sampled-data loop at one point with the given
-    /// controller in place of the point's own discretization.
-    pub fn sampled_with(&self, p: &Point, c: &DiscreteTransfer) -> Evaluation {
-        self.sampled_with_margin(p, c, false)
-    }
-
-    /// `sampled` plus the exact delay margin (`delay_margin`): the full
-    /// figures of one point, for `eval` and the recommended rate. A sweep
-    /// uses `sampled`, whose `delay_margin_s` is not searched.
-    pub fn sampled_exact(&self, p: &Point) -> Evaluation {
-        if let Err(e) = check_point(p) {
-            return Evaluation::error(e);
-        }
-        match self.controller_at(p.rate_hz, p.method) {
-            Ok(c) => self.sampled_with_margin(p, &c, true),
-            Err(e) => Evaluation::error(e),
-        }
-    }
-
-    fn sampled_with_margin(
-        &self,
-        p: &Point,
-        c: &DiscreteTransfer,
-        exact_margin: bool,
-    ) -> Evaluation {
-        match self.sampled_loop_with(p, c) {
-            Ok((hold, cl)) => {
-                let pulse = hold.augmented();
-                let t = hold.period_s;
-                let plant = |w: f64| pulse.response_at(C64::from_polar(1.0, w * t), 0);
-                self.evaluate_closed(&hold, c, &cl, &plant, exact_margin)
+    fn try_evaluate(&self, p: &Point, given: Given) -> Result<Evaluation, PointError> {
+        check_point(p)?;
+        let own;
+        let c = match given.controller {
+            Some(c) => c.map_err(PointError::clone)?,
+            None => {
+                own = self.controller_at(p.rate_hz, p.method)?;
+                &own
             }
-            Err(e) => Evaluation::error(e),
-        }
+        };
+        let built;
+        let plant = match given.plant {
+            Some(h) => h.map_err(PointError::clone)?,
+            None => {
+                built = self.hold_at(p)?;
+                &built
+            }
+        };
+        let cl = ClosedLoop::new(&plant.hold, c).map_err(PointError::ClosingLoop)?;
+        Ok(self.evaluate_closed(
+            &plant.hold,
+            c,
+            &cl,
+            &|w| plant.response(w),
+            given.exact_delay_margin,
+        ))
     }
 
     /// Every figure of a closed sampled loop (hold equivalent `hold`,
@@ -638,7 +686,7 @@ impl PreparedLoop {
     ) -> Evaluation {
         let poles = match cl.poles() {
             Ok(v) => v,
-            Err(e) => return Evaluation::error(format!("closed-loop poles: {e}")),
+            Err(e) => return Evaluation::error(PointError::Poles(e)),
         };
         match ClosedLoop::stability(&poles) {
             Stability::Stable => {}
@@ -647,7 +695,7 @@ impl PreparedLoop {
         }
         let (step, dist) = match sampled_figures(cl, hold, &poles, &self.time) {
             Ok(v) => v,
-            Err(e) => return Evaluation::error(e),
+            Err(e) => return Evaluation::error(PointError::TimeResponse(e)),
         };
         let t = hold.period_s;
         let l = |w: f64| c.transfer.eval(C64::from_polar(1.0, w * t)) * plant(w);
@@ -668,9 +716,9 @@ impl PreparedLoop {
         &self,
         p: &Point,
         periods: Option<usize>,
-    ) -> Result<(Vec<TracePoint>, Vec<TracePoint>), String> {
+    ) -> Result<(Vec<TracePoint>, Vec<TracePoint>), PointError> {
         let (hold, _, cl) = self.sampled_loop(p)?;
-        let poles = cl.poles().map_err(|e| e.to_string())?;
+        let poles = cl.poles()?;
         // A trace is a file or a chart: no cap in periods, but at most
         // `TRACE_PERIODS` periods drawn point by point (longer spans keep
         // one period in every few, jumped to by matrix powers).
@@ -682,7 +730,7 @@ impl PreparedLoop {
     }
 
     /// Loop gain of the sampled loop at a point, as a closure over w (rad/s).
-    pub fn sampled_loop_gain(&self, p: &Point) -> Result<impl Fn(f64) -> C64 + use<>, String> {
+    pub fn sampled_loop_gain(&self, p: &Point) -> Result<impl Fn(f64) -> C64 + use<>, PointError> {
         let (hold, c, _) = self.sampled_loop(p)?;
         let plant_z = hold.augmented();
         let t = hold.period_s;
@@ -704,9 +752,9 @@ impl PreparedLoop {
         &self,
         t_end_s: f64,
         steps: usize,
-    ) -> Result<(Vec<TracePoint>, Vec<TracePoint>), String> {
+    ) -> Result<(Vec<TracePoint>, Vec<TracePoint>), PointError> {
         let Controller::Continuous(c) = &self.controller else {
-            return Err("the controller is given in z: no continuous design".into());
+            return Err(PointError::NoContinuousDesign);
         };
         let pade = self.plant_pade();
         let cl = ContinuousLoop::new(
@@ -716,9 +764,8 @@ impl PreparedLoop {
             c,
             None,
             self.loop_delays(&pade),
-        )
-        .map_err(|e| e.to_string())?;
-        cl.traces(t_end_s, steps).map_err(|e| e.to_string())
+        )?;
+        Ok(cl.traces(t_end_s, steps)?)
     }
 
     /// The plant's transport delay as its Pade approximant (None without).
@@ -754,7 +801,7 @@ impl PreparedLoop {
     /// it stands for, s) between controller and plant.
     fn continuous_with(&self, act: Option<(Transfer, f64)>) -> Evaluation {
         let Controller::Continuous(c) = &self.controller else {
-            return Evaluation::error("the controller is given in z: no continuous design");
+            return Evaluation::error(PointError::NoContinuousDesign);
         };
         let approx = act.as_ref().map(|a| ((), a.1));
         let pade = self.plant_pade();
@@ -830,18 +877,12 @@ impl PreparedLoop {
 }
 
 /// A point's rate and delay are usable.
-fn check_point(p: &Point) -> Result<(), String> {
+fn check_point(p: &Point) -> Result<(), PointError> {
     if !(p.rate_hz > 0.0 && p.rate_hz.is_finite()) {
-        return Err(format!(
-            "rate must be positive and finite, got {}",
-            p.rate_hz
-        ));
+        return Err(PointError::Rate(p.rate_hz));
     }
     if !(p.delay >= 0.0 && p.delay.is_finite()) {
-        return Err(format!(
-            "computation delay must be non-negative and finite (in periods), got {}",
-            p.delay
-        ));
+        return Err(PointError::Delay(p.delay));
     }
     Ok(())
 }

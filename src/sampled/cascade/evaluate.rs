@@ -23,7 +23,7 @@ use crate::sampled::delay_margin::{
     scan_step,
 };
 use crate::sampled::evaluate::{
-    Evaluation, Point, PreparedLoop, Status, finish, record_delay_margin,
+    Evaluation, Given, Point, PreparedLoop, Status, finish, record_delay_margin,
 };
 use crate::sampled::feasibility::{Assessment, LimitCheck, UNSTABLE_SLACK};
 use crate::sampled::figure::{Figure, Limiting, Missing};
@@ -224,7 +224,10 @@ impl PreparedCascade {
                 p.outer_delay
             ));
         }
-        let c = self.inner.controller_at(p.inner.rate_hz, p.inner.method)?;
+        let c = self
+            .inner
+            .controller_at(p.inner.rate_hz, p.inner.method)
+            .map_err(|e| e.to_string())?;
         InnerClosed::new(
             &self.combined,
             &c,
@@ -292,11 +295,13 @@ impl PreparedCascade {
     /// Both loops' figures at a point; `exact_margin` also searches each
     /// loop's exact delay margin (for `eval` and the chosen pair).
     pub fn evaluate(&self, p: &CascadePoint, exact_margin: bool) -> CascadeEvaluation {
-        let inner = if exact_margin {
-            self.inner.sampled_exact(&p.inner)
-        } else {
-            self.inner.sampled(&p.inner)
-        };
+        let inner = self.inner.evaluate(
+            &p.inner,
+            Given {
+                exact_delay_margin: exact_margin,
+                ..Given::default()
+            },
+        );
         CascadeEvaluation {
             inner,
             outer: self.evaluate_outer(p, exact_margin),
