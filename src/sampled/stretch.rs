@@ -105,6 +105,10 @@ pub const LEAF_BUDGET: u64 = 1 << 12;
 /// undecided here, as past `LEAF_BUDGET`.
 pub const NODE_BUDGET: u64 = 64 * LEAF_BUDGET;
 
+/// Loops of up to this many states keep a bound's working vectors on the
+/// stack.
+const STACK_DIM: usize = 24;
+
 /// Relative size of the rounding of one output or command at the fixed
 /// point (dot products of a few tens of terms: about 1e-15; kept wide).
 const FLOOR_ROUNDING: f64 = 1e-12;
@@ -719,8 +723,9 @@ impl<'a> Stretches<'a> {
         self.modes.is_some()
     }
 
-    /// `A^(2^p) v`, as `v + (A^(2^p) - I) v`.
-    fn jump(&self, p: usize, v: &[f64]) -> Vec<f64> {
+    /// `A^(2^p) v`, as `v + (A^(2^p) - I) v` (into a `Vec` or an `Rc`, one
+    /// allocation).
+    fn jump<C: FromIterator<f64>>(&self, p: usize, v: &[f64]) -> C {
         let m = &self.powers[p];
         let d = self.dim;
         (0..d)
@@ -814,8 +819,8 @@ impl<'s, 'a> Run<'s, 'a> {
         let lv = level - 1;
         let left = self.node((start, lv), || dz.clone());
         let right_start = start + (1u64 << lv);
-        let right = (right_start < s.horizon)
-            .then(|| self.node((right_start, lv), || s.jump(lv, dz).into()));
+        let right =
+            (right_start < s.horizon).then(|| self.node((right_start, lv), || s.jump(lv, dz)));
         (left, right)
     }
 
@@ -929,8 +934,16 @@ impl<'s, 'a> Run<'s, 'a> {
         let map = s.map;
         let d = s.dim;
         let b = &s.powers[0];
-        let mut e = vec![0.0; d];
-        let mut e_abs = vec![0.0; d];
+        // On the stack for the loops of the demo cases and benches (a
+        // bound is computed hundreds of times an evaluation).
+        let mut stack = [0.0; 2 * STACK_DIM];
+        let mut heap = Vec::new();
+        let (e, e_abs) = if d <= STACK_DIM {
+            stack.split_at_mut(STACK_DIM)
+        } else {
+            heap.resize(2 * d, 0.0);
+            heap.split_at_mut(d)
+        };
         for i in 0..d {
             let row = &b[i * d..(i + 1) * d];
             e[i] = row.iter().zip(dz).map(|(a, x)| a * x).sum::<f64>();
@@ -941,12 +954,18 @@ impl<'s, 'a> Run<'s, 'a> {
             .map(|j| dot(&map.g[j * d..(j + 1) * d], dz))
             .collect();
         let y1: Vec<f64> = (0..map.np)
-            .map(|j| dot(&map.g[j * d..(j + 1) * d], &e))
+            .map(|j| dot(&map.g[j * d..(j + 1) * d], &e[..d]))
             .collect();
         let ku = s.cl.ku.as_slice();
-        let e_y: f64 = map.g_abs.iter().zip(&e_abs).map(|(a, x)| a * x).sum();
-        let e_u = s.ku_abs.iter().zip(&e_abs).map(|(a, x)| a * x).sum::<f64>() + e_abs[map.n];
-        (Slope::new(y0, y1, dot(ku, dz), dot(ku, &e)), e_y, e_u)
+        let e_y: f64 = map.g_abs.iter().zip(&*e_abs).map(|(a, x)| a * x).sum();
+        let e_u = s
+            .ku_abs
+            .iter()
+            .zip(&*e_abs)
+            .map(|(a, x)| a * x)
+            .sum::<f64>()
+            + e_abs[map.n];
+        (Slope::new(y0, y1, dot(ku, dz), dot(ku, &e[..d])), e_y, e_u)
     }
 
     /// The exact points of period k from its state error, summed as the
@@ -1075,7 +1094,7 @@ impl<'s, 'a> Run<'s, 'a> {
             }
             let make_dz = || {
                 if right_of {
-                    s.jump(level, &from).into()
+                    s.jump(level, &from)
                 } else {
                     from.clone()
                 }
