@@ -343,7 +343,7 @@ impl StretchMode {
             // addition) gives the whole range whatever the phase; a NaN
             // too, as `cos_range` does.
             let width = row.arc_hi - row.arc_lo + sweep.abs();
-            let (cmin, cmax) = if !(width < TAU + 1e-9) {
+            let (cmin, cmax) = if width.partial_cmp(&(TAU + 1e-9)) != Some(Ordering::Less) {
                 (-1.0, 1.0)
             } else {
                 let phase = *c_arg.get_or_insert_with(|| c.arg());
