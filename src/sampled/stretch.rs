@@ -78,9 +78,12 @@
 //! relative, see `docs/rounding.md`), which `tests/stretch_equivalence.rs`
 //! checks.
 
+use std::cell::RefCell;
 use std::cmp::Ordering;
-use std::collections::BinaryHeap;
+use std::collections::{BinaryHeap, HashMap};
 use std::f64::consts::{PI, TAU};
+use std::hash::{BuildHasherDefault, Hasher};
+use std::rc::Rc;
 
 use nalgebra::DVector;
 
@@ -101,6 +104,10 @@ pub const LEAF_BUDGET: u64 = 1 << 12;
 /// periods without reaching a single period. Past it the figure is
 /// undecided here, as past `LEAF_BUDGET`.
 pub const NODE_BUDGET: u64 = 64 * LEAF_BUDGET;
+
+/// Loops of up to this many states keep a bound's working vectors on the
+/// stack.
+const STACK_DIM: usize = 24;
 
 /// Relative size of the rounding of one output or command at the fixed
 /// point (dot products of a few tens of terms: about 1e-15; kept wide).
@@ -126,31 +133,63 @@ impl DoubleDouble {
     }
 
     /// `2 B + B B` for the row-major `dim x dim` matrix `B`: each product
-    /// `hi hi` exact by a fused multiply-add, the cross terms `hi lo` in
-    /// double, the sum's rounding errors gathered in `lo`.
+    /// `hi hi` exact (`two_product`), the cross terms `hi lo` in double,
+    /// the sum's rounding errors gathered in `lo`. Each entry sums its
+    /// terms in the order of k; the loops run over a row of the result at
+    /// a time (k outer, j inner) so that they vectorise.
     fn twice_plus_square(b: &[DoubleDouble], dim: usize) -> Vec<DoubleDouble> {
+        let y_hi: Vec<f64> = b.iter().map(|v| v.hi).collect();
+        let y_lo: Vec<f64> = b.iter().map(|v| v.lo).collect();
+        let y_split: Vec<(f64, f64)> = y_hi.iter().map(|&v| split(v)).collect();
         let mut out = Vec::with_capacity(dim * dim);
+        let mut hi = vec![0.0; dim];
+        let mut lo = vec![0.0; dim];
         for i in 0..dim {
             for j in 0..dim {
                 let own = b[i * dim + j];
-                let (mut hi, mut lo) = (2.0 * own.hi, 2.0 * own.lo);
-                for k in 0..dim {
-                    let x = b[i * dim + k];
-                    if x.hi == 0.0 && x.lo == 0.0 {
-                        continue;
-                    }
-                    let y = b[k * dim + j];
-                    let p = x.hi * y.hi;
-                    let p_err = x.hi.mul_add(y.hi, -p);
-                    let s = DoubleDouble::sum(hi, p);
-                    hi = s.hi;
-                    lo += s.lo + p_err + (x.hi * y.lo + x.lo * y.hi);
+                (hi[j], lo[j]) = (2.0 * own.hi, 2.0 * own.lo);
+            }
+            for k in 0..dim {
+                let x = b[i * dim + k];
+                if x.hi == 0.0 && x.lo == 0.0 {
+                    continue;
                 }
-                out.push(DoubleDouble::sum(hi, lo));
+                let xs = split(x.hi);
+                let row = k * dim..(k + 1) * dim;
+                let (yh, yl, ys) = (&y_hi[row.clone()], &y_lo[row.clone()], &y_split[row]);
+                for j in 0..dim {
+                    let p = x.hi * yh[j];
+                    let p_err = two_product_error(xs, ys[j], p);
+                    let s = DoubleDouble::sum(hi[j], p);
+                    hi[j] = s.hi;
+                    lo[j] += s.lo + p_err + (x.hi * yl[j] + x.lo * yh[j]);
+                }
+            }
+            for j in 0..dim {
+                out.push(DoubleDouble::sum(hi[j], lo[j]));
             }
         }
         out
     }
+}
+
+/// `a = hi + lo` with each half of 26 significant bits (Veltkamp's split),
+/// so that products of halves are exact.
+#[inline(always)]
+fn split(a: f64) -> (f64, f64) {
+    let c = 134_217_729.0 * a;
+    let hi = c - (c - a);
+    (hi, a - hi)
+}
+
+/// The rounding error `a b - p` of the product `p = a b`, from the splits
+/// `as_`, `bs` of a and b, exactly (Dekker's product; the same number a fused
+/// multiply-add `a.mul_add(b, -p)` gives, without a call per product where
+/// the fused instruction is not compiled in). Exact unless `a b` overflows
+/// or underflows, which the powers of a stable loop matrix do not reach.
+#[inline(always)]
+fn two_product_error(as_: (f64, f64), bs: (f64, f64), p: f64) -> f64 {
+    ((as_.0 * bs.0 - p) + as_.0 * bs.1 + as_.1 * bs.0) + as_.1 * bs.1
 }
 
 /// A node's bounds: every output point and every command in it lies in
@@ -269,11 +308,14 @@ fn mul_range(a: (f64, f64), b: (f64, f64)) -> (f64, f64) {
 
 impl StretchMode {
     /// Range of `w Re(c gamma_j lambda^q)` over the row's points and
-    /// `q in [0, m)`, `m = 2^level` (None: every q >= 0).
+    /// `q in [0, m)`, `m = 2^level` (None: every q >= 0). `c_arg` is
+    /// `arg c`, computed here the first time a pair's phase matters (over a
+    /// stretch that sweeps a whole turn it does not).
     fn term(
         &self,
         c: nalgebra::Complex<f64>,
-        (c_norm, c_arg): (f64, f64),
+        c_norm: f64,
+        c_arg: &mut Option<f64>,
         row: &RowShare,
         level: Option<usize>,
     ) -> (f64, f64) {
@@ -297,13 +339,21 @@ impl StretchMode {
                 Some(p) => (self.rho_pow[p], self.sweep[p]),
                 None => (0.0, f64::INFINITY),
             };
-            let phase = c_arg;
-            let (a, b) = if sweep >= 0.0 {
-                (phase + row.arc_lo, phase + row.arc_hi + sweep)
+            // A whole turn (by more than any rounding of the phase's
+            // addition) gives the whole range whatever the phase; a NaN
+            // too, as `cos_range` does.
+            let width = row.arc_hi - row.arc_lo + sweep.abs();
+            let (cmin, cmax) = if width.partial_cmp(&(TAU + 1e-9)) != Some(Ordering::Less) {
+                (-1.0, 1.0)
             } else {
-                (phase + row.arc_lo + sweep, phase + row.arc_hi)
+                let phase = *c_arg.get_or_insert_with(|| c.arg());
+                let (a, b) = if sweep >= 0.0 {
+                    (phase + row.arc_lo, phase + row.arc_hi + sweep)
+                } else {
+                    (phase + row.arc_lo + sweep, phase + row.arc_hi)
+                };
+                cos_range(a, b)
             };
-            let (cmin, cmax) = cos_range(a, b);
             let big = amp * row.g_max;
             let small = amp * row.g_min * end_decay;
             let hi = if cmax >= 0.0 {
@@ -488,10 +538,48 @@ struct Run<'s, 'a> {
     /// Rounding floors of the output and command bounds.
     y_floor: f64,
     u_floor: f64,
-    dz0: Vec<f64>,
+    dz0: Rc<[f64]>,
     /// State error at the horizon (start of the tail).
     dz_tail: Vec<f64>,
+    /// The nodes already bounded, by (first period, level): every search
+    /// of a response descends the same tree from the same root, so a node's
+    /// state error and bound are the same numbers whichever search reaches
+    /// it first (they are computed once; the step's five searches share
+    /// the top of the tree). The tail under `TAIL_KEY`.
+    nodes: RefCell<HashMap<(u64, usize), Node, BuildHasherDefault<NodeHasher>>>,
 }
+
+/// A hasher for the node keys (two small integers): one multiply a word,
+/// where the default hasher's rounds cost as much as a small bound.
+#[derive(Default)]
+struct NodeHasher(u64);
+
+impl Hasher for NodeHasher {
+    fn finish(&self) -> u64 {
+        self.0
+    }
+    fn write(&mut self, bytes: &[u8]) {
+        for b in bytes {
+            self.write_u64(u64::from(*b));
+        }
+    }
+    fn write_u64(&mut self, v: u64) {
+        self.0 = (self.0.rotate_left(5) ^ v).wrapping_mul(0x517c_c1b7_2722_0a95);
+    }
+    fn write_usize(&mut self, v: usize) {
+        self.write_u64(v as u64);
+    }
+}
+
+/// A bounded node of the tree: its state error and its bound.
+#[derive(Clone)]
+struct Node {
+    dz: Rc<[f64]>,
+    bound: Bound,
+}
+
+/// The key of the tail in `Run::nodes`.
+const TAIL_KEY: (u64, usize) = (u64::MAX, usize::MAX);
 
 /// The exact points of one period, as a walk computes them.
 struct Leaf {
@@ -515,7 +603,7 @@ struct Open {
     upper: f64,
     start: u64,
     level: usize,
-    dz: Vec<f64>,
+    dz: Rc<[f64]>,
 }
 
 impl PartialEq for Open {
@@ -572,10 +660,11 @@ impl<'a> Stretches<'a> {
                 }
             })
             .collect();
-        for _ in 0..=levels {
-            let next = DoubleDouble::twice_plus_square(&b, dim);
+        for p in 0..=levels {
             powers.push(b.iter().map(|v| v.hi + v.lo).collect());
-            b = next;
+            if p < levels {
+                b = DoubleDouble::twice_plus_square(&b, dim);
+            }
         }
         let modes = cert.and_then(|c| c.modes()).map(|ms| {
             ms.iter()
@@ -634,8 +723,9 @@ impl<'a> Stretches<'a> {
         self.modes.is_some()
     }
 
-    /// `A^(2^p) v`, as `v + (A^(2^p) - I) v`.
-    fn jump(&self, p: usize, v: &[f64]) -> Vec<f64> {
+    /// `A^(2^p) v`, as `v + (A^(2^p) - I) v` (into a `Vec` or an `Rc`, one
+    /// allocation).
+    fn jump<C: FromIterator<f64>>(&self, p: usize, v: &[f64]) -> C {
         let m = &self.powers[p];
         let d = self.dim;
         (0..d)
@@ -687,7 +777,7 @@ impl<'s, 'a> Run<'s, 'a> {
         let h_abs = h.iter().fold(0.0f64, |m, v| m.max(v.abs()));
         let y_scale = h_abs + abs_dot(&map.g_abs, &z_end);
         let u_scale = u_off.abs() + abs_dot(&s.ku_abs, &z_end) + z_end[map.n].abs();
-        let dz0: Vec<f64> = z_end.iter().map(|v| -v).collect();
+        let dz0: Rc<[f64]> = z_end.iter().map(|v| -v).collect();
         let dz_tail = s.advance(s.horizon, &dz0);
         Run {
             s,
@@ -700,7 +790,43 @@ impl<'s, 'a> Run<'s, 'a> {
             u_floor: u_res + FLOOR_ROUNDING * u_scale,
             dz0,
             dz_tail,
+            nodes: RefCell::new(HashMap::default()),
         }
+    }
+
+    /// The node of `2^level` periods from period `start` (`TAIL_KEY`: the
+    /// tail), its state error made by `dz` when it is new.
+    fn node(&self, key: (u64, usize), dz: impl FnOnce() -> Rc<[f64]>) -> Node {
+        if let Some(n) = self.nodes.borrow().get(&key) {
+            return n.clone();
+        }
+        let dz = dz();
+        let level = (key != TAIL_KEY).then_some(key.1);
+        let bound = if key == TAIL_KEY {
+            self.bound(&self.dz_tail, None)
+        } else {
+            self.bound(&dz, level)
+        };
+        let n = Node { dz, bound };
+        self.nodes.borrow_mut().insert(key, n.clone());
+        n
+    }
+
+    /// The left and right children of node (`start`, `level` > 0) with
+    /// state error `dz` (the right one None past the horizon).
+    fn children(&self, start: u64, level: usize, dz: &Rc<[f64]>) -> (Node, Option<Node>) {
+        let s = self.s;
+        let lv = level - 1;
+        let left = self.node((start, lv), || dz.clone());
+        let right_start = start + (1u64 << lv);
+        let right =
+            (right_start < s.horizon).then(|| self.node((right_start, lv), || s.jump(lv, dz)));
+        (left, right)
+    }
+
+    /// The tail's bound.
+    fn tail(&self) -> Bound {
+        self.node(TAIL_KEY, || Rc::from(Vec::new())).bound
     }
 
     /// Bounds over the `2^level` periods from a state error `dz` (None:
@@ -735,25 +861,24 @@ impl<'s, 'a> Run<'s, 'a> {
                     c.im += l.im * d;
                 }
                 // The phase only matters for a pair (`StretchMode::term`).
-                let arg = if m.mode.lambda.im == 0.0 {
-                    0.0
-                } else {
-                    c.arg()
-                };
-                let polar = (c.norm(), arg);
-                let (a, b) = m.term(c, polar, &m.y, level);
+                let mut arg = None;
+                // sqrt of the sum of squares, not hypot (the same number
+                // but for the last bit, and far cheaper; the bound is
+                // widened by much more).
+                let c_norm = (c.re * c.re + c.im * c.im).sqrt();
+                let (a, b) = m.term(c, c_norm, &mut arg, &m.y, level);
                 ylo += a;
                 yhi += b;
                 ymag += a.abs().max(b.abs());
                 let (ya, yb) = (a, b);
-                let (a, b) = m.term(c, polar, &m.u, level);
+                let (a, b) = m.term(c, c_norm, &mut arg, &m.u, level);
                 ulo += a;
                 uhi += b;
                 umag += a.abs().max(b.abs());
                 let (ua, ub) = (a, b);
                 if let Some((sl, _, _)) = slope.as_mut() {
                     let rem = level.and_then(|_| m.remainder[p]);
-                    sl.add(m, c, polar.0, rem, m1, (ya, yb), (ua, ub));
+                    sl.add(m, c, c_norm, rem, m1, (ya, yb), (ua, ub));
                 }
             }
             widening = s.cert.map_or(1e-6, |c| c.modal_widening());
@@ -809,8 +934,16 @@ impl<'s, 'a> Run<'s, 'a> {
         let map = s.map;
         let d = s.dim;
         let b = &s.powers[0];
-        let mut e = vec![0.0; d];
-        let mut e_abs = vec![0.0; d];
+        // On the stack for the loops of the demo cases and benches (a
+        // bound is computed hundreds of times an evaluation).
+        let mut stack = [0.0; 2 * STACK_DIM];
+        let mut heap = Vec::new();
+        let (e, e_abs) = if d <= STACK_DIM {
+            stack.split_at_mut(STACK_DIM)
+        } else {
+            heap.resize(2 * d, 0.0);
+            heap.split_at_mut(d)
+        };
         for i in 0..d {
             let row = &b[i * d..(i + 1) * d];
             e[i] = row.iter().zip(dz).map(|(a, x)| a * x).sum::<f64>();
@@ -821,12 +954,18 @@ impl<'s, 'a> Run<'s, 'a> {
             .map(|j| dot(&map.g[j * d..(j + 1) * d], dz))
             .collect();
         let y1: Vec<f64> = (0..map.np)
-            .map(|j| dot(&map.g[j * d..(j + 1) * d], &e))
+            .map(|j| dot(&map.g[j * d..(j + 1) * d], &e[..d]))
             .collect();
         let ku = s.cl.ku.as_slice();
-        let e_y: f64 = map.g_abs.iter().zip(&e_abs).map(|(a, x)| a * x).sum();
-        let e_u = s.ku_abs.iter().zip(&e_abs).map(|(a, x)| a * x).sum::<f64>() + e_abs[map.n];
-        (Slope::new(y0, y1, dot(ku, dz), dot(ku, &e)), e_y, e_u)
+        let e_y: f64 = map.g_abs.iter().zip(&*e_abs).map(|(a, x)| a * x).sum();
+        let e_u = s
+            .ku_abs
+            .iter()
+            .zip(&*e_abs)
+            .map(|(a, x)| a * x)
+            .sum::<f64>()
+            + e_abs[map.n];
+        (Slope::new(y0, y1, dot(ku, dz), dot(ku, &e[..d])), e_y, e_u)
     }
 
     /// The exact points of period k from its state error, summed as the
@@ -879,11 +1018,12 @@ impl<'s, 'a> Run<'s, 'a> {
         };
         let mut best = init;
         let mut heap = BinaryHeap::new();
+        let root = self.node((0, s.levels), || self.dz0.clone());
         heap.push(Open {
-            upper: key(&self.bound(&self.dz0, Some(s.levels))),
+            upper: key(&root.bound),
             start: 0,
             level: s.levels,
-            dz: self.dz0.clone(),
+            dz: root.dz,
         });
         let (mut leaves, mut nodes) = (0u64, 0u64);
         while let Some(node) = heap.pop() {
@@ -904,25 +1044,23 @@ impl<'s, 'a> Run<'s, 'a> {
                 continue;
             }
             let lv = node.level - 1;
-            let half = 1u64 << lv;
-            let right_start = node.start + half;
-            if right_start < s.horizon {
-                let dz = s.jump(lv, &node.dz);
+            let (left, right) = self.children(node.start, node.level, &node.dz);
+            if let Some(r) = right {
                 heap.push(Open {
-                    upper: key(&self.bound(&dz, Some(lv))),
-                    start: right_start,
+                    upper: key(&r.bound),
+                    start: node.start + (1u64 << lv),
                     level: lv,
-                    dz,
+                    dz: r.dz,
                 });
             }
             heap.push(Open {
-                upper: key(&self.bound(&node.dz, Some(lv))),
+                upper: key(&left.bound),
                 start: node.start,
                 level: lv,
-                dz: node.dz,
+                dz: left.dz,
             });
         }
-        let tail = key(&self.bound(&self.dz_tail, None));
+        let tail = key(&self.tail());
         (best, tail <= best + tol)
     }
 
@@ -936,13 +1074,17 @@ impl<'s, 'a> Run<'s, 'a> {
         hit: &dyn Fn(&Leaf) -> Option<usize>,
     ) -> Found<(u64, usize, Leaf)> {
         let s = self.s;
-        let tail_maybe = maybe(&self.bound(&self.dz_tail, None));
+        let tail_maybe = maybe(&self.tail());
         if !forward && tail_maybe {
             return Found::Undecided;
         }
         let (mut leaves, mut nodes) = (0u64, 0u64);
-        let mut stack: Vec<(u64, usize, Vec<f64>)> = vec![(0, s.levels, self.dz0.clone())];
-        while let Some((start, level, dz)) = stack.pop() {
+        // Each entry: first period, level, and the state error of the node
+        // (`false`) or of its parent, of which it is the right child
+        // (`true`: jumped to when the node is looked at).
+        let mut stack: Vec<(u64, usize, Rc<[f64]>, bool)> =
+            vec![(0, s.levels, self.dz0.clone(), false)];
+        while let Some((start, level, from, right_of)) = stack.pop() {
             if start >= s.horizon {
                 continue;
             }
@@ -950,24 +1092,35 @@ impl<'s, 'a> Run<'s, 'a> {
             if nodes > NODE_BUDGET {
                 return Found::Undecided;
             }
+            let make_dz = || {
+                if right_of {
+                    s.jump(level, &from)
+                } else {
+                    from.clone()
+                }
+            };
             if level == 0 {
                 leaves += 1;
                 if leaves > LEAF_BUDGET {
                     return Found::Undecided;
                 }
+                // A single period is looked at point by point (no bound).
+                let known = self.nodes.borrow().get(&(start, 0)).map(|n| n.dz.clone());
+                let dz = known.unwrap_or_else(make_dz);
                 let leaf = self.leaf(start, &dz);
                 if let Some(j) = hit(&leaf) {
                     return Found::At((start, j, leaf));
                 }
                 continue;
             }
-            if !maybe(&self.bound(&dz, Some(level))) {
+            let node = self.node((start, level), make_dz);
+            if !maybe(&node.bound) {
                 continue;
             }
             let lv = level - 1;
             let right_start = start + (1u64 << lv);
-            let right = (right_start < s.horizon).then(|| (right_start, lv, s.jump(lv, &dz)));
-            let left = (start, lv, dz);
+            let right = (right_start < s.horizon).then(|| (right_start, lv, node.dz.clone(), true));
+            let left = (start, lv, node.dz, false);
             // The stack pops the last pushed first.
             if forward {
                 if let Some(r) = right {
