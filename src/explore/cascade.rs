@@ -283,21 +283,6 @@ fn rows_at(
                 rows.push(skip("not evaluated: the inner loop fails its spec".into()));
                 continue;
             }
-            let screened = match &closed {
-                Some(Ok(inner)) => pc.screen_on(inner, &point),
-                Some(Err(e)) => Some(Evaluation::error(e.clone())),
-                None => None,
-            };
-            if let Some(e) = screened {
-                rows.push(CascadeRow {
-                    outer_verdict: Some(assess(&e, &outer.spec)),
-                    outer: Some(e),
-                    skipped: None,
-                    screened: true,
-                    ..skip(String::new())
-                });
-                continue;
-            }
         }
         let outcome = match &closed {
             Some(Ok(inner)) => {
@@ -307,34 +292,42 @@ fn rows_at(
             None => OuterOutcome::Figures(Box::new(pc.evaluate_outer(&point, false))),
         };
         let e = match outcome {
+            // Unstable, marginal or not built: judged on the lifted loop's
+            // poles (or its error) alone.
+            OuterOutcome::Figures(e) if !full && e.figures.is_none() => {
+                rows.push(CascadeRow {
+                    outer_verdict: Some(assess(&e, &outer.spec)),
+                    outer: Some(*e),
+                    skipped: None,
+                    screened: true,
+                    ..skip(String::new())
+                });
+                continue;
+            }
             OuterOutcome::Figures(e) => *e,
             OuterOutcome::FailsLoopFigures(verdict) => {
-                let why = verdict
-                    .checks
-                    .iter()
-                    .filter(|c| !c.pass)
-                    .map(|c| {
-                        format!(
-                            "{} = {} against {}",
-                            c.figure,
-                            c.value
-                                .map_or_else(|| "none".into(), crate::engineering::sig4),
-                            crate::engineering::sig4(c.limit)
-                        )
-                    })
-                    .collect::<Vec<_>>()
-                    .join("; ");
+                let why = format!(
+                    "fails the outer spec on its loop figures ({}); time figures not computed",
+                    failing_checks(&verdict, "=")
+                );
                 rows.push(CascadeRow {
-                    point,
-                    inner: inner.clone(),
-                    inner_verdict: inner_verdict.clone(),
-                    outer: None,
                     outer_verdict: Some(verdict),
-                    skipped: Some(format!(
-                        "fails the outer spec on its loop figures ({why}); time figures not computed"
-                    )),
+                    skipped: Some(why),
                     screened: true,
-                    cost,
+                    ..skip(String::new())
+                });
+                continue;
+            }
+            OuterOutcome::FailsSimulation(verdict) => {
+                let why = format!(
+                    "fails the outer spec on a short exact simulation of its step response ({}); loop and time figures not computed",
+                    failing_checks(&verdict, ">=")
+                );
+                rows.push(CascadeRow {
+                    outer_verdict: Some(verdict),
+                    skipped: Some(why),
+                    screened: true,
+                    ..skip(String::new())
                 });
                 continue;
             }
@@ -354,6 +347,25 @@ fn rows_at(
     }
     rows.reverse();
     rows
+}
+
+/// The failing checks of a verdict in words, `figure REL value against
+/// limit` (`REL` is `>=` for a bound from a short simulation).
+fn failing_checks(verdict: &Assessment, rel: &str) -> String {
+    verdict
+        .checks
+        .iter()
+        .filter(|c| !c.pass)
+        .map(|c| {
+            format!(
+                "{} {rel} {} against {}",
+                c.figure,
+                c.value.map_or_else(|| "none".into(), sig4),
+                sig4(c.limit)
+            )
+        })
+        .collect::<Vec<_>>()
+        .join("; ")
 }
 
 /// Every row of the cascade grid in grid order (series, inner rate,
