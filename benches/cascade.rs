@@ -1,16 +1,20 @@
 //! Cost of a cascade pick against a single-loop pick of the same inner
 //! grid: the motor-drive demo with 100 inner rates and its 12 ratios. The
-//! cascade's search (`cascade_rows` + `cascade_pick`, which evaluates the
-//! inner loop again at every inner rate) is timed alone and together with
-//! the inner loop's own pick (what `looprate pick` runs on a cascade case).
-//! Target: the whole cascade pick under 3x the single-loop pick.
+//! cascade's search (`cascade_rows` + `cascade_pick`, which then evaluates
+//! the inner loop itself at every inner rate) is timed alone, and the
+//! whole cascade pick as `looprate pick` runs it: the inner loop's own
+//! pick, whose sweep hands its evaluations to the cascade's search
+//! (`InnerEvaluations`), then the search. Target: the whole cascade pick
+//! under 3x the single-loop pick.
 
 use std::path::PathBuf;
 
 use criterion::{Criterion, criterion_group, criterion_main};
 use looprate::case::Case;
-use looprate::explore::cascade::{cascade_pick, cascade_rows, prepare_cascade};
-use looprate::explore::pick::{prepare, sweep_and_pick};
+use looprate::explore::cascade::{
+    InnerEvaluations, cascade_pick, cascade_rows, cascade_rows_with, prepare_cascade,
+};
+use looprate::explore::pick::{prepare, sweep_and_pick, sweep_and_pick_streaming};
 use looprate::explore::search::Silent;
 
 fn case() -> Case {
@@ -47,8 +51,13 @@ fn picks(c: &mut Criterion) {
     });
     g.bench_function("cascade pick (inner pick + cascade search)", |b| {
         b.iter(|| {
-            let inner = sweep_and_pick(&single, &lp, &|| {}, &Silent).expect("pick");
-            let rows = cascade_rows(&cascade, &pc, false);
+            let mut known = InnerEvaluations::default();
+            let inner =
+                sweep_and_pick_streaming(&cascade, &lp, &|| {}, &Silent, &mut |_, row, _| {
+                    known.push(row)
+                })
+                .expect("pick");
+            let rows = cascade_rows_with(&cascade, &pc, false, &known);
             (inner.report, cascade_pick(&cascade, &pc, &rows))
         })
     });

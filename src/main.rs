@@ -545,6 +545,9 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 let bar = progress(grid.len(), quiet);
                 let mut stream = csv_stream(&c, &lp, &out)?;
                 let mut chart_rows = ChartRows::new(&c, &lp, &grid);
+                // A cascade's search reads the inner loop's figures from
+                // this sweep instead of evaluating them again.
+                let mut inner_known = looprate::explore::cascade::InnerEvaluations::default();
                 let Streamed {
                     variants: _,
                     report,
@@ -557,6 +560,9 @@ fn run(cli: Cli) -> Result<ExitCode> {
                         stream.push(i, row, v);
                         if !no_charts {
                             chart_rows.push(i, row);
+                        }
+                        if c.outer.is_some() {
+                            inner_known.push(row);
                         }
                     },
                 )?;
@@ -583,7 +589,12 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 let charts = charts?;
                 let cascade = if c.outer.is_some() {
                     Some(looprate::output::cascade::finish_pick(
-                        &out, &c, &report, &charts, no_charts,
+                        &out,
+                        &c,
+                        &report,
+                        &charts,
+                        no_charts,
+                        &inner_known,
                     )?)
                 } else {
                     looprate::output::report::write_report(&out, &c, &report, &charts)?;

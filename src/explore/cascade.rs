@@ -22,13 +22,16 @@ use serde::Serialize;
 
 use crate::case::{Case, OuterLoop};
 use crate::error::Error;
+use std::collections::HashMap;
+
 use crate::explore::budget;
 use crate::explore::pick::{case_methods, prepare};
+use crate::explore::sweep::SweepRow;
 use crate::model::discretize::Method;
 use crate::model::rounding;
 use crate::model::transfer::{Controller, DiscreteTransfer};
 use crate::sampled::cascade::evaluate::{CascadePoint, OuterOutcome, PreparedCascade};
-use crate::sampled::evaluate::{Evaluation, Point};
+use crate::sampled::evaluate::{Evaluation, Point, Status};
 use crate::sampled::feasibility::{Assessment, assess};
 use crate::spec::HoldKind;
 use crate::spec::Structure;
@@ -211,6 +214,44 @@ pub fn pair_cost(
     cost
 }
 
+/// The inner loop's evaluations already made by the single-loop sweep of
+/// the same inner grid (what `pick` runs first on a cascade case), keyed
+/// by point: the cascade's search reads them instead of evaluating the
+/// inner loop again. Only evaluated points are kept (a row not evaluated on
+/// purpose is evaluated by the cascade itself).
+#[derive(Debug, Default)]
+pub struct InnerEvaluations {
+    map: HashMap<PointKey, Evaluation>,
+}
+
+type PointKey = (u64, Option<Method>, u64, HoldKind);
+
+fn point_key(p: &Point) -> PointKey {
+    (p.rate_hz.to_bits(), p.method, p.delay.to_bits(), p.hold)
+}
+
+impl InnerEvaluations {
+    /// Keep a finished sweep row's nominal evaluation.
+    pub fn push(&mut self, row: &SweepRow) {
+        if !matches!(row.eval.status, Status::NotEvaluated(_)) {
+            self.map.insert(point_key(&row.point), row.eval.clone());
+        }
+    }
+
+    fn get(&self, p: &Point) -> Option<&Evaluation> {
+        self.map.get(&point_key(p))
+    }
+
+    /// Number of evaluations held.
+    pub fn len(&self) -> usize {
+        self.map.len()
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.map.is_empty()
+    }
+}
+
 /// The rows of one (series, inner rate): the inner loop once, then the
 /// ratios (all of them with `full`, else from the largest down to the first
 /// that passes).
@@ -221,6 +262,7 @@ fn rows_at(
     rate_hz: f64,
     ratios: &[usize],
     full: bool,
+    known: &InnerEvaluations,
 ) -> Vec<CascadeRow> {
     let outer = case.outer.as_ref().expect("rows_at runs on a cascade case");
     let inner_point = Point {
@@ -229,11 +271,17 @@ fn rows_at(
         delay: series.inner_delay,
         hold: series.inner_hold,
     };
-    let inner = pc.inner.sampled(&inner_point);
+    let inner = match known.get(&inner_point) {
+        Some(e) => e.clone(),
+        None => pc.inner.sampled(&inner_point),
+    };
     let inner_verdict = assess(&inner, &case.spec);
     let inner_c = pc.inner.controller_at(rate_hz, series.inner_method).ok();
-    // The inner loop on the whole plant, shared by every ratio here.
-    let closed = ratios.first().map(|&n| {
+    // The inner loop on the whole plant, shared by every ratio here; not
+    // built when no ratio needs it (the search skips every pair at an inner
+    // rate that fails the inner spec).
+    let needed = full || inner_verdict.feasible;
+    let closed = ratios.first().filter(|_| needed).map(|&n| {
         pc.inner_closed(
             &CascadePoint {
                 inner: inner_point,
@@ -283,21 +331,6 @@ fn rows_at(
                 rows.push(skip("not evaluated: the inner loop fails its spec".into()));
                 continue;
             }
-            let screened = match &closed {
-                Some(Ok(inner)) => pc.screen_on(inner, &point),
-                Some(Err(e)) => Some(Evaluation::error(e.clone())),
-                None => None,
-            };
-            if let Some(e) = screened {
-                rows.push(CascadeRow {
-                    outer_verdict: Some(assess(&e, &outer.spec)),
-                    outer: Some(e),
-                    skipped: None,
-                    screened: true,
-                    ..skip(String::new())
-                });
-                continue;
-            }
         }
         let outcome = match &closed {
             Some(Ok(inner)) => {
@@ -307,34 +340,42 @@ fn rows_at(
             None => OuterOutcome::Figures(Box::new(pc.evaluate_outer(&point, false))),
         };
         let e = match outcome {
+            // Unstable, marginal or not built: judged on the lifted loop's
+            // poles (or its error) alone.
+            OuterOutcome::Figures(e) if !full && e.figures.is_none() => {
+                rows.push(CascadeRow {
+                    outer_verdict: Some(assess(&e, &outer.spec)),
+                    outer: Some(*e),
+                    skipped: None,
+                    screened: true,
+                    ..skip(String::new())
+                });
+                continue;
+            }
             OuterOutcome::Figures(e) => *e,
             OuterOutcome::FailsLoopFigures(verdict) => {
-                let why = verdict
-                    .checks
-                    .iter()
-                    .filter(|c| !c.pass)
-                    .map(|c| {
-                        format!(
-                            "{} = {} against {}",
-                            c.figure,
-                            c.value
-                                .map_or_else(|| "none".into(), crate::engineering::sig4),
-                            crate::engineering::sig4(c.limit)
-                        )
-                    })
-                    .collect::<Vec<_>>()
-                    .join("; ");
+                let why = format!(
+                    "fails the outer spec on its loop figures ({}); time figures not computed",
+                    failing_checks(&verdict, "=")
+                );
                 rows.push(CascadeRow {
-                    point,
-                    inner: inner.clone(),
-                    inner_verdict: inner_verdict.clone(),
-                    outer: None,
                     outer_verdict: Some(verdict),
-                    skipped: Some(format!(
-                        "fails the outer spec on its loop figures ({why}); time figures not computed"
-                    )),
+                    skipped: Some(why),
                     screened: true,
-                    cost,
+                    ..skip(String::new())
+                });
+                continue;
+            }
+            OuterOutcome::FailsSimulation(verdict) => {
+                let why = format!(
+                    "fails the outer spec on a short exact simulation of its step response ({}); loop and time figures not computed",
+                    failing_checks(&verdict, ">=")
+                );
+                rows.push(CascadeRow {
+                    outer_verdict: Some(verdict),
+                    skipped: Some(why),
+                    screened: true,
+                    ..skip(String::new())
                 });
                 continue;
             }
@@ -356,9 +397,39 @@ fn rows_at(
     rows
 }
 
+/// The failing checks of a verdict in words, `figure REL value against
+/// limit` (`REL` is `>=` for a bound from a short simulation).
+fn failing_checks(verdict: &Assessment, rel: &str) -> String {
+    verdict
+        .checks
+        .iter()
+        .filter(|c| !c.pass)
+        .map(|c| {
+            format!(
+                "{} {rel} {} against {}",
+                c.figure,
+                c.value.map_or_else(|| "none".into(), sig4),
+                sig4(c.limit)
+            )
+        })
+        .collect::<Vec<_>>()
+        .join("; ")
+}
+
 /// Every row of the cascade grid in grid order (series, inner rate,
 /// ratio), evaluated in parallel; `full` evaluates every pair.
 pub fn cascade_rows(case: &Case, pc: &PreparedCascade, full: bool) -> Vec<CascadeRow> {
+    cascade_rows_with(case, pc, full, &InnerEvaluations::default())
+}
+
+/// `cascade_rows` reading the inner loop's evaluations from `known` where
+/// it has them (the single-loop sweep's; the same figures).
+pub fn cascade_rows_with(
+    case: &Case,
+    pc: &PreparedCascade,
+    full: bool,
+    known: &InnerEvaluations,
+) -> Vec<CascadeRow> {
     let Some(outer) = &case.outer else {
         return Vec::new();
     };
@@ -369,7 +440,7 @@ pub fn cascade_rows(case: &Case, pc: &PreparedCascade, full: bool) -> Vec<Cascad
         .flat_map(|s| pairs.iter().map(move |p| (s, p)))
         .collect();
     jobs.par_iter()
-        .map(|(s, (f, ns))| rows_at(case, pc, s, *f, ns, full))
+        .map(|(s, (f, ns))| rows_at(case, pc, s, *f, ns, full, known))
         .collect::<Vec<_>>()
         .into_iter()
         .flatten()

@@ -12,7 +12,8 @@ use crate::case::Case;
 use crate::engineering::{hz, periods, sig4 as fmt_num};
 use crate::error::Error;
 use crate::explore::cascade::{
-    CascadePick, CascadeRow, cascade_pick, cascade_rows, method_name, prepare_cascade,
+    CascadePick, CascadeRow, InnerEvaluations, cascade_pick, cascade_rows, cascade_rows_with,
+    method_name, prepare_cascade,
 };
 use crate::explore::pick::PickReport;
 use crate::output::cascade_charts::write_cascade_charts;
@@ -344,10 +345,11 @@ pub fn finish_pick(
     report: &PickReport,
     charts: &[Chart],
     no_charts: bool,
+    inner_known: &InnerEvaluations,
 ) -> Result<CascadeRun, Error> {
     let pc = prepare_cascade(case)?
         .ok_or_else(|| Error::Input("the case has no [outer] table".into()))?;
-    let rows = cascade_rows(case, &pc, false);
+    let rows = cascade_rows_with(case, &pc, false, inner_known);
     let pick = cascade_pick(case, &pc, &rows);
     write_atomic(&out_dir.join("sweep.csv"), cascade_csv(&rows).as_bytes())?;
     let mut json = serde_json::to_value(report).unwrap_or(Value::Null);

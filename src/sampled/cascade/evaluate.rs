@@ -33,6 +33,7 @@ use crate::sampled::time_response::{
     TimeOptions, TracePoint, horizon_steps, sampled_figures, sampled_trace,
 };
 use crate::spec::Spec;
+use nalgebra::DVector;
 
 /// A point of the cascade grid.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -89,7 +90,17 @@ pub struct PreparedCascade {
 pub enum OuterOutcome {
     Figures(Box<Evaluation>),
     FailsLoopFigures(Assessment),
+    /// A limit on a time figure fails already on a short stretch of the
+    /// exact step response (`simulated_limits_fail`): neither the loop
+    /// figures nor the full time responses were computed.
+    FailsSimulation(Assessment),
 }
+
+/// Outer periods the search's short simulation runs at most
+/// (`simulated_limits_fail`): long enough to pass the first peaks of a
+/// loop that is worth evaluating, short enough to cost a small part of a
+/// full evaluation. Past it nothing is concluded.
+pub const SCREEN_PERIODS: usize = 512;
 
 /// Why a cascade could not be prepared.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
@@ -134,6 +145,122 @@ pub fn loop_limits_fail(f: &LoopFigures, spec: &Spec) -> Option<Assessment> {
     if checks.iter().all(|c| c.pass) || checks.iter().any(|c| c.value.is_some_and(f64::is_nan)) {
         return None;
     }
+    let worst = checks.iter().min_by(|a, b| a.slack.total_cmp(&b.slack))?;
+    Some(Assessment {
+        feasible: false,
+        limiting: Some(Limiting::Figure(worst.figure)),
+        slack: worst.slack.clamp(UNSTABLE_SLACK, 1e6),
+        checks,
+    })
+}
+
+/// The limits of `spec` on step-response figures that a short exact
+/// simulation already proves failed: the outer loop's step response is
+/// computed at every inner sample instant (rows `0, stride, 2 stride, ...`
+/// of the lifted model, each an exact point of the output the full figures
+/// read) for at most `SCREEN_PERIODS` outer periods, and a value seen there
+/// bounds the figure from the side the limit reads:
+///
+/// - overshoot: the largest excursion past `y_final` seen is at most the
+///   true one (`max_t y(t)` is at least any point's value);
+/// - settling time: a point outside the band at time `t` means the
+///   settling time is at least `t`;
+/// - command peak: `|u_k|` seen is at most the largest.
+///
+/// Some(verdict) with those lower bounds when one already exceeds its
+/// limit; None when nothing is proven (the full figures decide).
+/// `docs/figures.md`, "Cascaded loops", says how the search uses it.
+pub fn simulated_limits_fail(
+    cl: &ClosedLoop,
+    lifted: &HoldEquivalent,
+    poles: &[C64],
+    spec: &Spec,
+    band: f64,
+    stride: usize,
+) -> Option<Assessment> {
+    let os_limit = spec.max_overshoot_pct;
+    let ts_limit = spec.max_settling_s;
+    let u_limit = spec.max_u_peak;
+    if os_limit.is_none() && ts_limit.is_none() && u_limit.is_none() {
+        return None;
+    }
+    let n = cl.plant_states;
+    let dim = cl.a.nrows();
+    let stride = stride.max(1);
+    // Output rows y_j = g_j . z + h_j r (as `output_map::OutputMap` forms them).
+    let rows: Vec<(DVector<f64>, f64, f64)> = lifted
+        .intersample
+        .iter()
+        .step_by(stride)
+        .map(|row| {
+            let mut g = &cl.ku * row.cu0;
+            for i in 0..n {
+                g[i] += row.ey[i];
+            }
+            g[n] += row.cu1;
+            (g, row.cu0 * cl.dur, row.offset_s)
+        })
+        .collect();
+    if rows.is_empty() {
+        return None;
+    }
+    let zr = cl.fixed_point(1.0, 0.0)?;
+    let y_final = rows[0].0.dot(&zr) + rows[0].1;
+    if !y_final.is_finite() {
+        return None;
+    }
+    let rho = poles.iter().map(|p| p.norm()).fold(0.0, f64::max);
+    let periods = (horizon_steps(rho.min(0.999_999), dim).min(SCREEN_PERIODS as f64)) as usize;
+    let scale = y_final.abs();
+    let sign = y_final.signum();
+    let t = lifted.period_s;
+    let mut z = DVector::<f64>::zeros(dim);
+    let mut next = DVector::<f64>::zeros(dim);
+    let (mut os_seen, mut late_out, mut u_seen) = (0.0_f64, 0.0_f64, 0.0_f64);
+    for k in 0..periods {
+        let u = cl.ku.dot(&z) + cl.dur;
+        u_seen = u_seen.max(u.abs());
+        for (g, h, offset) in &rows {
+            let y = g.dot(&z) + h;
+            if scale > 0.0 {
+                os_seen = os_seen.max(sign * (y - y_final) / scale * 100.0);
+                if (y - y_final).abs() > band * scale {
+                    late_out = late_out.max(k as f64 * t + offset);
+                }
+            }
+        }
+        let over = |v: f64, l: Option<f64>| l.is_some_and(|l| v > l);
+        if over(os_seen, os_limit) || over(late_out, ts_limit) || over(u_seen, u_limit) {
+            break;
+        }
+        next.gemv(1.0, &cl.a, &z, 0.0);
+        next += &cl.br;
+        std::mem::swap(&mut z, &mut next);
+        if !z.iter().all(|v| v.is_finite()) {
+            return None;
+        }
+    }
+    let values = [
+        (Figure::Overshoot, os_seen, scale > 0.0),
+        (Figure::SettlingTime, late_out, scale > 0.0),
+        (Figure::CommandPeak, u_seen, true),
+    ];
+    let checks: Vec<LimitCheck> = values
+        .into_iter()
+        .filter(|(_, _, known)| *known)
+        .filter_map(|(figure, seen, _)| {
+            let limit = figure.limit(spec)?;
+            let slack = figure.slack(limit, Some(seen), Missing::Never);
+            Some(LimitCheck {
+                figure,
+                limit,
+                value: Some(seen),
+                slack,
+                pass: slack >= 0.0,
+            })
+        })
+        .filter(|c| !c.pass)
+        .collect();
     let worst = checks.iter().min_by(|a, b| a.slack.total_cmp(&b.slack))?;
     Some(Assessment {
         feasible: false,
@@ -317,7 +444,9 @@ impl PreparedCascade {
         match self.evaluate_outer_on(&inner, p, exact_margin, None) {
             OuterOutcome::Figures(e) => *e,
             // Without a spec to screen on, every figure is computed.
-            OuterOutcome::FailsLoopFigures(_) => Evaluation::error("screened"),
+            OuterOutcome::FailsLoopFigures(_) | OuterOutcome::FailsSimulation(_) => {
+                Evaluation::error("screened")
+            }
         }
     }
 
@@ -356,6 +485,18 @@ impl PreparedCascade {
                     &poles,
                 )));
             }
+        }
+        if let Some(spec) = screen_on_spec
+            && let Some(a) = simulated_limits_fail(
+                &cl,
+                &lifted,
+                &poles,
+                spec,
+                self.outer_time.band,
+                inner.hold.intersample.len(),
+            )
+        {
+            return OuterOutcome::FailsSimulation(a);
         }
         let t = lifted.period_s;
         let pulse = lifted.augmented();

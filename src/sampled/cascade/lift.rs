@@ -114,6 +114,47 @@ pub struct InnerClosed {
     pub poles_s: Vec<crate::model::poly::C64>,
 }
 
+/// `integral_0^s e^{A r} dr b` at each row's offset `s`. The rows of a
+/// period are usually evenly spaced (`s_j = j h`): then one exponential
+/// gives `e^{A h}` and the step's integral, and the rest follow by
+/// `G(s_{j+1}) = G(s_j) + e^{A s_j} G(h)` (the integral split at `s_j`);
+/// otherwise one exponential per row.
+fn load_integrals_at(
+    a: &DMatrix<f64>,
+    b: &DVector<f64>,
+    rows: &[IntersampleRow],
+) -> Result<Vec<DVector<f64>>, ModelError> {
+    let n = a.nrows();
+    let h = rows.get(1).map_or(0.0, |r| r.offset_s);
+    let even = h > 0.0
+        && rows
+            .iter()
+            .enumerate()
+            .all(|(j, r)| (r.offset_s - j as f64 * h).abs() <= 1e-12 * h * (j as f64 + 1.0));
+    if !even {
+        return rows
+            .iter()
+            .map(|row| {
+                if row.offset_s > 0.0 {
+                    hold_integrals(a, b, row.offset_s).map(|(_, g)| g)
+                } else {
+                    Ok(DVector::zeros(n))
+                }
+            })
+            .collect();
+    }
+    let (e_h, g_h) = hold_integrals(a, b, h)?;
+    let mut out = Vec::with_capacity(rows.len());
+    let mut g = DVector::zeros(n);
+    let mut e_step = g_h;
+    for _ in rows {
+        out.push(g.clone());
+        g += &e_step;
+        e_step = &e_h * &e_step;
+    }
+    Ok(out)
+}
+
 fn pad(v: &DVector<f64>, dim: usize) -> DVector<f64> {
     let mut out = DVector::zeros(dim);
     out.rows_mut(0, v.len()).copy_from(v);
@@ -140,12 +181,8 @@ impl InnerClosed {
         hold.gamma_w = pad(&g_period, nx);
         hold.dm_w = 0.0;
         hold.dy_w = plant.d_load_output;
-        for row in &mut hold.intersample {
-            let (_, g) = if row.offset_s > 0.0 {
-                hold_integrals(a, &plant.b_load, row.offset_s)?
-            } else {
-                (DMatrix::zeros(0, 0), DVector::zeros(a.nrows()))
-            };
+        let loads = load_integrals_at(a, &plant.b_load, &hold.intersample)?;
+        for (row, g) in hold.intersample.iter_mut().zip(loads) {
             row.cw = c_out.dot(&g) + plant.d_load_output;
         }
         if let Some(m) = hold.measure.as_mut() {
