@@ -1236,7 +1236,8 @@ fn precision_report(
 /// design delay with the recommended hold: the fastest rate up to which
 /// the rounded controller passes, searched upward from the method's
 /// `f_star` times the headroom (the recommended method: from the
-/// recommended rate) on the sweep's verdicts.
+/// recommended rate) on the sweep's verdicts. The formats of one method
+/// share its controller at the start.
 fn format_ceilings(
     case: &Case,
     lp: &PreparedLoop,
@@ -1252,7 +1253,12 @@ fn format_ceilings(
     let spec = &case.spec;
     let (hold, design_delay) = (chosen.hold, chosen.delay);
     let evaluated = Plan::for_case(case, lp, None).formats();
-    let mut jobs: Vec<(Option<Method>, f64, Format)> = Vec::new();
+    let searched = arith.formats.iter().any(|f| evaluated.contains(f));
+    // Each method's start with its controller there, discretized once and
+    // shared by every format's search (None for the recommended method,
+    // which starts at the recommended rate: `chosen` holds its controller).
+    let mut starts: Vec<(f64, Option<Result<DiscreteTransfer, PointError>>)> = Vec::new();
+    let mut jobs: Vec<(Option<Method>, usize, Format)> = Vec::new();
     for m in case_methods(case) {
         let Some(f_star) = answers
             .iter()
@@ -1263,17 +1269,20 @@ fn format_ceilings(
         else {
             continue;
         };
-        let from = if m == chosen.method {
-            chosen.rate_hz
+        starts.push(if m == chosen.method {
+            (chosen.rate_hz, None)
         } else {
-            f_star * spec.headroom
-        };
+            let from = f_star * spec.headroom;
+            (from, searched.then(|| lp.controller_at(from, m)))
+        });
         for &f in &arith.formats {
-            jobs.push((m, from, f));
+            jobs.push((m, starts.len() - 1, f));
         }
     }
     jobs.par_iter()
-        .map(|&(m, from, format)| {
+        .map(|&(m, start, format)| {
+            let (from, start_controller) = &starts[start];
+            let from = *from;
             let rates = &summary.grid.rates;
             let swept = summary
                 .series_of(m, hold, design_delay)
@@ -1299,7 +1308,13 @@ fn format_ceilings(
                             delay: design_delay,
                             hold,
                         };
-                        let given = chosen.given_at(&p);
+                        let given = match start_controller {
+                            Some(c) if rate == from => Given {
+                                controller: Some(c.as_ref()),
+                                ..Given::default()
+                            },
+                            _ => chosen.given_at(&p),
+                        };
                         let a = precision::judge_point(
                             lp,
                             spec,
