@@ -60,7 +60,7 @@ TOML
 # (so both sides evaluate exactly the same coefficients).
 "$BIN" check "$CASE" | "$PY" -c '
 import json, re, sys
-p = [json.loads(m) for m in re.findall(r"(?:num|den)\(s\)\s+(\[.*\])", sys.stdin.read())]
+p = [json.loads(m) for m in re.findall(r"(?:num|den)(?:erator|ominator)?\(s\)\s+(\[.*\])", sys.stdin.read())]
 assert len(p) == 6, p
 json.dump(dict(plant=p[0:2], sensor=p[2:4], controller=p[4:6],
                rates=dict(min_hz=50, max_hz=5000, points=200, spacing="log"),
