@@ -19,8 +19,8 @@ use crate::model::poly::C64;
 use crate::model::state_space::StateSpace;
 use crate::model::transfer::{Controller, DiscreteTransfer, Transfer};
 use crate::sampled::time_response::{
-    DisturbanceFigures, StepFigures, TimeOptions, TracePoint, horizon_periods, sampled_figures,
-    sampled_trace_spanning,
+    DisturbanceFigures, ResponseError, StepFigures, TimeOptions, TracePoint, horizon_periods,
+    sampled_figures, sampled_trace_spanning,
 };
 
 /// Why a point could not be evaluated. Its text is the reason a grid row
@@ -53,8 +53,8 @@ pub enum PointError {
     #[error(transparent)]
     Model(#[from] ModelError),
     /// The time response could not be computed (its own reason).
-    #[error("{0}")]
-    TimeResponse(String),
+    #[error(transparent)]
+    TimeResponse(#[from] ResponseError),
 }
 
 /// What an evaluation at a point is handed instead of building it: the

@@ -768,7 +768,7 @@ pub fn sampled_figures(
     hold: &HoldEquivalent,
     poles: &[C64],
     opts: &TimeOptions,
-) -> Result<(StepFigures, DisturbanceFigures), String> {
+) -> Result<(StepFigures, DisturbanceFigures), ResponseError> {
     let ends = Ends::new(cl, hold)?;
     Ok(figures_from_ends(cl, hold, poles, opts, ends))
 }
@@ -996,6 +996,15 @@ fn walk_disturbance(
     }
 }
 
+/// Why the time figures of a loop cannot be computed.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, thiserror::Error)]
+pub enum ResponseError {
+    /// A pole at z = 1: the step and the load step have no final value to
+    /// measure against (the loop is marginal, not settling).
+    #[error("the closed loop has no steady state (pole at z = 1)")]
+    NoSteadyState,
+}
+
 /// The fixed points of the step and the load step and the final values
 /// the figures are measured against.
 struct Ends {
@@ -1007,13 +1016,13 @@ struct Ends {
 }
 
 impl Ends {
-    fn new(cl: &ClosedLoop, hold: &HoldEquivalent) -> Result<Ends, String> {
+    fn new(cl: &ClosedLoop, hold: &HoldEquivalent) -> Result<Ends, ResponseError> {
         let zr = cl
             .fixed_point(1.0, 0.0)
-            .ok_or("the closed loop has no steady state (pole at z = 1)")?;
+            .ok_or(ResponseError::NoSteadyState)?;
         let zw = cl
             .fixed_point(0.0, 1.0)
-            .ok_or("the closed loop has no steady state (pole at z = 1)")?;
+            .ok_or(ResponseError::NoSteadyState)?;
         Ok(Ends::around(cl, hold, zr, zw))
     }
 
@@ -1042,7 +1051,7 @@ pub fn walked_figures(
     hold: &HoldEquivalent,
     poles: &[C64],
     opts: &TimeOptions,
-) -> Result<(StepFigures, DisturbanceFigures), String> {
+) -> Result<(StepFigures, DisturbanceFigures), ResponseError> {
     let periods = horizon_periods(poles, cl.a.nrows()) as usize;
     let map = OutputMap::new(cl, hold);
     let ends = Ends::new(cl, hold)?;

@@ -513,7 +513,7 @@ impl PreparedCascade {
         }
         let (step, dist) = match sampled_figures(&cl, &lifted, &poles, &self.outer_time) {
             Ok(v) => v,
-            Err(e) => return fail(e),
+            Err(e) => return fail(e.to_string()),
         };
         let margin = exact_margin.then(|| self.outer_delay_margin(inner, &c, p, &freq));
         let mut e = finish(step, dist, freq, &poles);
