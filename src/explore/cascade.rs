@@ -252,6 +252,25 @@ impl InnerEvaluations {
     }
 }
 
+/// `pair_cost` of the cascade's own controllers at `p` (the inner one
+/// already discretized at its rate, shared by the ratios there).
+fn pair_cost_at(
+    case: &Case,
+    pc: &PreparedCascade,
+    p: &CascadePoint,
+    inner_c: Option<&DiscreteTransfer>,
+) -> Cost {
+    let outer_c = pc.outer_controller(p).ok();
+    pair_cost(
+        case,
+        p,
+        inner_c,
+        outer_c.as_ref(),
+        &pc.inner.controller,
+        &pc.outer_models.controller,
+    )
+}
+
 /// The rows of one (series, inner rate): the inner loop once, then the
 /// ratios (all of them with `full`, else from the largest down to the first
 /// that passes).
@@ -301,15 +320,7 @@ fn rows_at(
             outer_method: series.outer_method,
             outer_delay: series.outer_delay,
         };
-        let outer_c = pc.outer_controller(&point).ok();
-        let cost = pair_cost(
-            case,
-            &point,
-            inner_c.as_ref(),
-            outer_c.as_ref(),
-            &pc.inner.controller,
-            &pc.outer_models.controller,
-        );
+        let cost = pair_cost_at(case, pc, &point, inner_c.as_ref());
         let skip = |why: String| CascadeRow {
             point,
             inner: inner.clone(),
@@ -580,15 +591,7 @@ fn recommend(case: &Case, pc: &PreparedCascade, chosen: &CascadeRow) -> Recommen
     };
     let e = pc.evaluate(&point, true);
     let inner_c = pc.inner.controller_at(rate, point.inner.method).ok();
-    let outer_c = pc.outer_controller(&point).ok();
-    let cost = pair_cost(
-        case,
-        &point,
-        inner_c.as_ref(),
-        outer_c.as_ref(),
-        &pc.inner.controller,
-        &pc.outer_models.controller,
-    );
+    let cost = pair_cost_at(case, pc, &point, inner_c.as_ref());
     let fits_budget = match (case.budget.as_ref(), cost.total_load_pct) {
         (Some(b), Some(l)) => l <= b.max_load_pct,
         (Some(_), None) => false,
