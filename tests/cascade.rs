@@ -754,3 +754,86 @@ fn search_screens_agree_with_the_full_figures() {
     };
     assert_eq!(answer(&search), answer(&full));
 }
+
+/// The chosen pair with headroom, as the single loop recommends
+/// `f_star x headroom`: the inner rate times the headroom with the ratio
+/// kept (closed form), its load by hand (inner cycles x f + outer cycles x
+/// f/N over the clock), its verdicts those of an evaluation of that pair
+/// made here; with a timer, the rate rounded up to a timer division; a
+/// headroom that leaves the budget is said, and the chosen pair stays the
+/// answer (source: the project's own rule for the single loop's
+/// recommendation, `docs/figures.md`).
+#[test]
+fn the_chosen_pair_with_headroom() {
+    let text = std::fs::read_to_string("demo-cases/motor-drive-cascade.toml")
+        .unwrap()
+        .replace("points = 40", "points = 12");
+    let c = Case::parse(&text, Path::new("demo.toml")).unwrap();
+    let pc = prepare_cascade(&c).unwrap().unwrap();
+    let pick = cascade_pick(&c, &pc, &cascade_rows(&c, &pc, false));
+    let chosen = pick.chosen.as_ref().unwrap();
+    let r = pick.recommended.as_ref().unwrap();
+    assert_eq!(r.headroom, 1.25);
+    assert!((r.inner_rate_hz - chosen.inner_rate_hz * 1.25).abs() < 1e-9 * r.inner_rate_hz);
+    assert_eq!(r.ratio, chosen.ratio);
+    assert!((r.outer_rate_hz - r.inner_rate_hz / r.ratio as f64).abs() < 1e-9);
+    // By hand: 900 cycles at f, 1500 at f/N, 100 MHz clock.
+    let by_hand = (900.0 * r.inner_rate_hz + 1500.0 * r.outer_rate_hz) / 100e6 * 100.0;
+    assert!((r.cost.total_load_pct.unwrap() - by_hand).abs() < 1e-9 * by_hand);
+    assert!(r.fits_budget);
+    let e = pc.evaluate(
+        &CascadePoint {
+            inner: Point {
+                rate_hz: r.inner_rate_hz,
+                method: Some(Method::Tustin),
+                delay: 1.0,
+                hold: HoldKind::ZeroOrder,
+            },
+            ratio: r.ratio,
+            outer_method: Some(Method::Tustin),
+            outer_delay: 0.5,
+        },
+        false,
+    );
+    let outer = c.outer.as_ref().unwrap();
+    assert_eq!(
+        r.inner_verdict.feasible,
+        looprate::sampled::feasibility::assess(&e.inner, &c.spec).feasible
+    );
+    assert_eq!(
+        r.outer_verdict.feasible,
+        looprate::sampled::feasibility::assess(&e.outer, &outer.spec).feasible
+    );
+    assert_eq!(
+        r.outer.figures.as_ref().unwrap().overshoot_pct,
+        e.outer.figures.as_ref().unwrap().overshoot_pct
+    );
+
+    // A timer of 1 MHz: the rate is rounded up to 1 MHz / d.
+    let timed = text.replace("max_load_pct = 35", "max_load_pct = 35\ntimer_hz = 1e6");
+    let ct = Case::parse(&timed, Path::new("timed.toml")).unwrap();
+    let pt = cascade_pick(&ct, &pc, &cascade_rows(&ct, &pc, false));
+    let rt = pt.recommended.unwrap();
+    let want = pt.chosen.unwrap().inner_rate_hz * 1.25;
+    let d = (1e6 / rt.inner_rate_hz).round();
+    assert!(
+        (rt.inner_rate_hz - 1e6 / d).abs() < 1e-6,
+        "{}",
+        rt.inner_rate_hz
+    );
+    assert!(rt.inner_rate_hz >= want * (1.0 - 1e-12) && 1e6 / (d + 1.0) < want);
+    assert!(rt.basis.contains("timer"), "{}", rt.basis);
+
+    // A budget the chosen pair just fits but its headroom pair does not.
+    let tight_load = chosen.cost.total_load_pct.unwrap() * 1.05;
+    let tight = text.replace("max_load_pct = 35", &format!("max_load_pct = {tight_load}"));
+    let cb = Case::parse(&tight, Path::new("tight.toml")).unwrap();
+    let pb = cascade_pick(&cb, &pc, &cascade_rows(&cb, &pc, false));
+    let rb = pb.recommended.unwrap();
+    assert!(!rb.fits_budget);
+    assert!(
+        rb.notes.iter().any(|n| n.contains("max_load_pct")),
+        "{:?}",
+        rb.notes
+    );
+}

@@ -252,6 +252,25 @@ impl InnerEvaluations {
     }
 }
 
+/// `pair_cost` of the cascade's own controllers at `p` (the inner one
+/// already discretized at its rate, shared by the ratios there).
+fn pair_cost_at(
+    case: &Case,
+    pc: &PreparedCascade,
+    p: &CascadePoint,
+    inner_c: Option<&DiscreteTransfer>,
+) -> Cost {
+    let outer_c = pc.outer_controller(p).ok();
+    pair_cost(
+        case,
+        p,
+        inner_c,
+        outer_c.as_ref(),
+        &pc.inner.controller,
+        &pc.outer_models.controller,
+    )
+}
+
 /// The rows of one (series, inner rate): the inner loop once, then the
 /// ratios (all of them with `full`, else from the largest down to the first
 /// that passes).
@@ -301,15 +320,7 @@ fn rows_at(
             outer_method: series.outer_method,
             outer_delay: series.outer_delay,
         };
-        let outer_c = pc.outer_controller(&point).ok();
-        let cost = pair_cost(
-            case,
-            &point,
-            inner_c.as_ref(),
-            outer_c.as_ref(),
-            &pc.inner.controller,
-            &pc.outer_models.controller,
-        );
+        let cost = pair_cost_at(case, pc, &point, inner_c.as_ref());
         let skip = |why: String| CascadeRow {
             point,
             inner: inner.clone(),
@@ -499,6 +510,122 @@ pub struct ChosenPair {
     pub outer_verdict: Assessment,
 }
 
+/// The chosen pair moved up by the headroom, as the single loop's pick
+/// recommends `f_star x headroom`: the inner rate times the inner spec's
+/// headroom (rounded up to a timer division with `timer_hz`), the ratio
+/// kept (so the outer rate moves with it), both loops evaluated there
+/// exactly and judged again. Not a grid pair: a pair can fail above a
+/// passing one, so its verdicts are reported, not assumed.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct RecommendedPair {
+    pub inner_rate_hz: f64,
+    pub ratio: usize,
+    pub outer_rate_hz: f64,
+    /// The factor applied to the chosen pair's inner rate (1 when none can
+    /// be: a controller given in z runs at its own rate only).
+    pub headroom: f64,
+    /// How the pair was reached, in words.
+    pub basis: String,
+    pub cost: Cost,
+    /// The total load is within `max_load_pct` (true without a budget).
+    pub fits_budget: bool,
+    pub inner_verdict: Assessment,
+    pub outer_verdict: Assessment,
+    /// Both loops' figures there, exact delay margins searched.
+    pub inner: Evaluation,
+    pub outer: Evaluation,
+    pub notes: Vec<String>,
+}
+
+/// The headroom pair of a chosen pair (`RecommendedPair`).
+fn recommend(case: &Case, pc: &PreparedCascade, chosen: &CascadeRow) -> RecommendedPair {
+    let outer = case
+        .outer
+        .as_ref()
+        .expect("recommend runs on a cascade case");
+    let h = case.spec.headroom;
+    let f0 = chosen.point.inner.rate_hz;
+    let n = chosen.point.ratio;
+    let mut notes = Vec::new();
+    let fixed =
+        matches!(pc.inner.controller, Controller::Discrete(_)) || outer.rate_in_z_hz().is_some();
+    let (mut rate, mut basis) = if fixed {
+        (
+            f0,
+            "a controller given in z runs only at its own rate: no headroom applied".to_string(),
+        )
+    } else {
+        (
+            f0 * h,
+            format!(
+                "the chosen pair's inner rate {} times the headroom {h}, ratio {n} kept; the headroom covers model error (parameter drift, unmodelled dynamics), it is not a guarantee",
+                hz(f0)
+            ),
+        )
+    };
+    if !fixed && let Some(timer) = case.budget.as_ref().and_then(|b| b.timer_hz) {
+        match budget::timer_rate_at_least(timer, rate) {
+            Some((r, d)) => {
+                rate = r;
+                basis.push_str(&format!(", rounded up to the timer rate timer_hz / {d}"));
+            }
+            None => notes.push(format!(
+                "the timer ({timer} Hz) cannot make {} Hz: the rate is shown unrounded",
+                sig4(rate)
+            )),
+        }
+    }
+    if rate > case.rates.max_hz * (1.0 + 1e-12) {
+        notes.push(format!(
+            "the inner rate with headroom, {}, is above the swept range (max_hz = {})",
+            hz(rate),
+            hz(case.rates.max_hz)
+        ));
+    }
+    let point = CascadePoint {
+        inner: Point {
+            rate_hz: rate,
+            ..chosen.point.inner
+        },
+        ..chosen.point
+    };
+    let e = pc.evaluate(&point, true);
+    let inner_c = pc.inner.controller_at(rate, point.inner.method).ok();
+    let cost = pair_cost_at(case, pc, &point, inner_c.as_ref());
+    let fits_budget = match (case.budget.as_ref(), cost.total_load_pct) {
+        (Some(b), Some(l)) => l <= b.max_load_pct,
+        (Some(_), None) => false,
+        (None, _) => true,
+    };
+    if !fits_budget {
+        notes.push(format!(
+            "the pair with headroom needs {} % of the CPU, above max_load_pct: the chosen pair is the one within the budget",
+            cost.total_load_pct.map_or_else(|| "an unknown share".into(), sig4)
+        ));
+    }
+    let inner_verdict = assess(&e.inner, &case.spec);
+    let outer_verdict = assess(&e.outer, &outer.spec);
+    if !(inner_verdict.feasible && outer_verdict.feasible) {
+        notes.push(
+            "the pair with headroom fails a spec (a pair can fail above a passing one): the chosen pair is the checked answer".into(),
+        );
+    }
+    RecommendedPair {
+        inner_rate_hz: rate,
+        ratio: n,
+        outer_rate_hz: point.outer_rate_hz(),
+        headroom: if fixed { 1.0 } else { h },
+        basis,
+        cost,
+        fits_budget,
+        inner_verdict,
+        outer_verdict,
+        inner: e.inner,
+        outer: e.outer,
+        notes,
+    }
+}
+
 /// The window of inner rates for the chosen series: from the lowest inner
 /// rate above which every checked rate has a passing pair, to the highest
 /// whose cheapest passing pair fits the CPU budget.
@@ -516,6 +643,8 @@ pub struct CascadePick {
     pub ratios: Vec<usize>,
     pub series: Vec<SeriesAnswer>,
     pub chosen: Option<ChosenPair>,
+    /// The chosen pair with headroom (`RecommendedPair`).
+    pub recommended: Option<RecommendedPair>,
     pub window_hz: Option<[f64; 2]>,
     pub window: Option<CascadeWindow>,
     /// Rows evaluated in full, judged before their time responses (poles,
@@ -595,6 +724,7 @@ pub fn cascade_pick(case: &Case, pc: &PreparedCascade, rows: &[CascadeRow]) -> C
             outer: e.outer,
         }
     });
+    let recommended = best.map(|r| recommend(case, pc, r));
     // The window, on the chosen series (or the cheapest passing one).
     let window = cheapest_passing.map(|c| {
         let names = SeriesNames::of(&c.point);
@@ -658,6 +788,7 @@ pub fn cascade_pick(case: &Case, pc: &PreparedCascade, rows: &[CascadeRow]) -> C
         ratios: outer.ratios.clone(),
         series,
         chosen,
+        recommended,
         window_hz,
         window,
         evaluated: rows

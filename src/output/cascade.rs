@@ -249,6 +249,32 @@ fn report_blocks(
         }
         None => lines.push("no pair meets both specs within the budget".into()),
     }
+    if let Some(r) = &pick.recommended {
+        let verdict = |a: &crate::sampled::feasibility::Assessment| {
+            if a.feasible {
+                "passes".to_string()
+            } else {
+                format!(
+                    "fails (limiting: {})",
+                    a.limiting.map_or("stability", |l| l.label())
+                )
+            }
+        };
+        lines.push(format!(
+            "with headroom {}: inner loop {}, ratio {}, outer loop {}{}; inner loop {}, outer loop {} ({})",
+            fmt_num(r.headroom),
+            hz(r.inner_rate_hz),
+            r.ratio,
+            hz(r.outer_rate_hz),
+            r.cost
+                .total_load_pct
+                .map_or_else(String::new, |l| format!(", CPU load {} %", fmt_num(l))),
+            verdict(&r.inner_verdict),
+            verdict(&r.outer_verdict),
+            r.basis
+        ));
+        lines.extend(r.notes.iter().map(|n| format!("note: {n}")));
+    }
     if let Some([lo, hi]) = pick.window_hz {
         lines.push(format!(
             "inner-rate window: {} to {} (top set by: {})",

@@ -128,7 +128,20 @@ pub fn loop_limits_fail(f: &LoopFigures, spec: &Spec) -> Option<Assessment> {
             Missing::Never,
         ),
     ];
-    let checks: Vec<LimitCheck> = values
+    let checks = limit_checks(values, spec);
+    if checks.iter().any(|c| c.value.is_some_and(f64::is_nan)) {
+        return None;
+    }
+    failed_verdict(checks)
+}
+
+/// Each `(figure, value, meaning of a missing value)` with a limit in
+/// `spec`, judged as `feasibility::check_figures` judges it.
+fn limit_checks(
+    values: impl IntoIterator<Item = (Figure, Option<f64>, Missing)>,
+    spec: &Spec,
+) -> Vec<LimitCheck> {
+    values
         .into_iter()
         .filter_map(|(figure, value, missing)| {
             let limit = figure.limit(spec)?;
@@ -141,8 +154,13 @@ pub fn loop_limits_fail(f: &LoopFigures, spec: &Spec) -> Option<Assessment> {
                 pass: slack >= 0.0,
             })
         })
-        .collect();
-    if checks.iter().all(|c| c.pass) || checks.iter().any(|c| c.value.is_some_and(f64::is_nan)) {
+        .collect()
+}
+
+/// The failing verdict of `checks`, limited by the one with the least
+/// slack; None when every check passes.
+fn failed_verdict(checks: Vec<LimitCheck>) -> Option<Assessment> {
+    if checks.iter().all(|c| c.pass) {
         return None;
     }
     let worst = checks.iter().min_by(|a, b| a.slack.total_cmp(&b.slack))?;
@@ -245,29 +263,13 @@ pub fn simulated_limits_fail(
         (Figure::SettlingTime, late_out, scale > 0.0),
         (Figure::CommandPeak, u_seen, true),
     ];
-    let checks: Vec<LimitCheck> = values
-        .into_iter()
-        .filter(|(_, _, known)| *known)
-        .filter_map(|(figure, seen, _)| {
-            let limit = figure.limit(spec)?;
-            let slack = figure.slack(limit, Some(seen), Missing::Never);
-            Some(LimitCheck {
-                figure,
-                limit,
-                value: Some(seen),
-                slack,
-                pass: slack >= 0.0,
-            })
-        })
-        .filter(|c| !c.pass)
-        .collect();
-    let worst = checks.iter().min_by(|a, b| a.slack.total_cmp(&b.slack))?;
-    Some(Assessment {
-        feasible: false,
-        limiting: Some(Limiting::Figure(worst.figure)),
-        slack: worst.slack.clamp(UNSTABLE_SLACK, 1e6),
-        checks,
-    })
+    failed_verdict(limit_checks(
+        values
+            .into_iter()
+            .filter(|(_, _, known)| *known)
+            .map(|(figure, seen, _)| (figure, Some(seen), Missing::Never)),
+        spec,
+    ))
 }
 
 impl PreparedCascade {
