@@ -17,6 +17,18 @@ use crate::sampled::hold::HoldEquivalent;
 /// a pole closer to |z| = 1 than this is "on the circle" (marginal).
 pub const STABILITY_TOLERANCE: f64 = 1e-10;
 
+/// Why the exact sampled loop at a point could not be built or solved:
+/// the step that failed and the model error it met.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum LoopError {
+    #[error("plant equivalent: {0}")]
+    PlantEquivalent(ModelError),
+    #[error("closing the loop: {0}")]
+    ClosingLoop(ModelError),
+    #[error("closed-loop poles: {0}")]
+    Poles(ModelError),
+}
+
 /// The closed sampled-data loop.
 #[derive(Debug, Clone)]
 pub struct ClosedLoop {

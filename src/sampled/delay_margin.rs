@@ -25,7 +25,7 @@
 
 use crate::model::state_space::StateSpace;
 use crate::model::transfer::DiscreteTransfer;
-use crate::sampled::closed_loop::{ClosedLoop, STABILITY_TOLERANCE};
+use crate::sampled::closed_loop::{ClosedLoop, LoopError, STABILITY_TOLERANCE};
 use crate::sampled::frequency::LoopFigures;
 use crate::sampled::hold::{Actuation, HoldEquivalent};
 
@@ -86,17 +86,16 @@ pub fn exact_delay_margin(
         Err(m) => return m,
     };
     let max_delay_s = (MAX_DELAY_PERIODS - delay_periods).max(0.0) * period_s;
-    let radius_at = |extra_s: f64| -> Result<f64, String> {
+    let radius_at = |extra_s: f64| -> Result<f64, LoopError> {
         let d = delay_periods + extra_s / period_s;
         let at = Actuation {
             delay_periods: d,
             ..*act
         };
         let hold = HoldEquivalent::with(plant_model, period_s, &at, 1)
-            .map_err(|e| format!("plant equivalent: {e}"))?;
-        let cl =
-            ClosedLoop::new(&hold, controller).map_err(|e| format!("closing the loop: {e}"))?;
-        let poles = cl.poles().map_err(|e| format!("closed-loop poles: {e}"))?;
+            .map_err(LoopError::PlantEquivalent)?;
+        let cl = ClosedLoop::new(&hold, controller).map_err(LoopError::ClosingLoop)?;
+        let poles = cl.poles().map_err(LoopError::Poles)?;
         Ok(poles.iter().map(|p| p.norm()).fold(0.0, f64::max))
     };
     // The candidates a hair past, so a crossing the estimate predicts
@@ -122,8 +121,14 @@ pub fn exact_delay_margin(
             x,
             delay_periods + x / period_s
         )),
-        FirstUnstable::Failed(e) => DelayMargin::NotLocated(e),
+        FirstUnstable::Failed(e) => DelayMargin::NotLocated(e.to_string()),
+        FirstUnstable::NoStep(step) => DelayMargin::NotLocated(no_step(step)),
     }
+}
+
+/// The note of a search that had no usable step.
+pub fn no_step(step: f64) -> String {
+    format!("no usable delay step ({step})")
 }
 
 /// What a loop's gain crossings give a delay-margin search.
@@ -192,15 +197,17 @@ pub struct DelayScan {
 
 /// How `first_unstable` ended.
 #[derive(Debug, Clone, PartialEq)]
-pub enum FirstUnstable {
+pub enum FirstUnstable<E> {
     /// The loop is stable at `stable` (and at every trial below it) and not
     /// stable at `unstable`; the two are one unit apart (`whole`) or within
     /// 1e-10 relative.
     Between { stable: f64, unstable: f64 },
     /// Stable at every trial up to this extra delay, the last one tried.
     StableUpTo(f64),
-    /// A trial could not be computed; the text says why.
-    Failed(String),
+    /// The scan step is not a positive finite number (nothing was tried).
+    NoStep(f64),
+    /// A trial could not be computed; the error says why.
+    Failed(E),
 }
 
 /// Whether a spectral radius is that of a stable loop (as
@@ -219,10 +226,10 @@ fn stable(rho: f64) -> bool {
 /// window of instability the step would have skipped; then bisection
 /// between the last stable and the first unstable trial. Every loop is
 /// capped (`MAX_SCAN`, `MAX_PEAK_TRIALS`, `MAX_BISECT`).
-pub fn first_unstable(
+pub fn first_unstable<E>(
     scan: &DelayScan,
-    radius_at: impl Fn(f64) -> Result<f64, String>,
-) -> FirstUnstable {
+    radius_at: impl Fn(f64) -> Result<f64, E>,
+) -> FirstUnstable<E> {
     let snap = |x: f64| if scan.whole { x.floor() } else { x };
     let step = if scan.whole {
         scan.step.floor().max(1.0)
@@ -230,7 +237,7 @@ pub fn first_unstable(
         scan.step
     };
     if !(step > 0.0 && step.is_finite()) {
-        return FirstUnstable::Failed(format!("no usable delay step ({step})"));
+        return FirstUnstable::NoStep(step);
     }
     // The last three stable trials (delay, spectral radius), newest last.
     let mut recent: Vec<(f64, f64)> = Vec::with_capacity(3);
@@ -303,11 +310,11 @@ pub fn first_unstable(
 /// golden-section search of the peak between the outer two, stopped at the
 /// first trial that is not stable. Returns (the largest stable delay tried
 /// below it, that delay), or None when the peak stays stable.
-fn window_at_peak(
+fn window_at_peak<E>(
     t: &[(f64, f64)],
     whole: bool,
-    radius_at: &impl Fn(f64) -> Result<f64, String>,
-) -> Result<Option<(f64, f64)>, String> {
+    radius_at: &impl Fn(f64) -> Result<f64, E>,
+) -> Result<Option<(f64, f64)>, E> {
     let [(x0, r0), (x1, r1), (x2, r2)] = [t[0], t[1], t[2]];
     if !(r1 > r0 && r1 >= r2) {
         return Ok(None);
@@ -379,7 +386,7 @@ mod tests {
     fn monotone_radius_is_bisected_to_its_crossing() {
         // Closed form: rho(x) = 0.9 + 0.02 x crosses 1 - 1e-10 at
         // x = (0.1 - 1e-10) / 0.02.
-        let r = first_unstable(&scan(0.3, false), |x| Ok(0.9 + 0.02 * x));
+        let r = first_unstable(&scan(0.3, false), |x| Ok::<f64, &str>(0.9 + 0.02 * x));
         let FirstUnstable::Between { stable, unstable } = r else {
             panic!("{r:?}");
         };
@@ -393,7 +400,9 @@ mod tests {
         // Closed form: a rising trend plus a bump at x = 3.3 that pokes
         // above 1 over |x - 3.3| < 0.05 sqrt(ln 2) (about 0.042), between
         // trials 0.25 apart; the trend alone reaches 1 only at x = 9.
-        let rho = |x: f64| Ok(0.991 + 0.001 * x + 0.006 * (-((x - 3.3) / 0.05).powi(2)).exp());
+        let rho = |x: f64| {
+            Ok::<f64, &str>(0.991 + 0.001 * x + 0.006 * (-((x - 3.3) / 0.05).powi(2)).exp())
+        };
         assert!(rho(3.25).unwrap() < 1.0 && rho(3.5).unwrap() < 1.0);
         let r = first_unstable(&scan(0.25, false), rho);
         let FirstUnstable::Between { stable, unstable } = r else {
@@ -411,7 +420,7 @@ mod tests {
         s.candidates = vec![36.0];
         let r = first_unstable(&s, |x| {
             assert_eq!(x, x.floor(), "a trial between ticks: {x}");
-            Ok(if x >= 37.0 { 1.01 } else { 0.5 })
+            Ok::<f64, &str>(if x >= 37.0 { 1.01 } else { 0.5 })
         });
         assert_eq!(
             r,
@@ -424,9 +433,9 @@ mod tests {
 
     #[test]
     fn stable_everywhere_says_how_far() {
-        let r = first_unstable(&scan(7.0, false), |_| Ok(0.5));
+        let r = first_unstable(&scan(7.0, false), |_| Ok::<f64, &str>(0.5));
         assert_eq!(r, FirstUnstable::StableUpTo(98.0));
-        let r = first_unstable(&scan(1.0, false), |_| Err("no poles".to_string()));
-        assert_eq!(r, FirstUnstable::Failed("no poles".into()));
+        let r = first_unstable(&scan(1.0, false), |_| Err("no poles"));
+        assert_eq!(r, FirstUnstable::Failed("no poles"));
     }
 }

@@ -5,7 +5,7 @@
 use serde::Serialize;
 
 use crate::model::discretize::{DiscretizeError, Method, discretize};
-use crate::sampled::closed_loop::{ClosedLoop, Stability};
+use crate::sampled::closed_loop::{ClosedLoop, LoopError, Stability};
 use crate::sampled::continuous::{ContinuousLoop, HoldApprox};
 use crate::sampled::delay_margin::{DelayMargin, exact_delay_margin};
 use crate::sampled::frequency::{FrequencyRange, LoopFigures, loop_figures};
@@ -43,12 +43,9 @@ pub enum PointError {
     /// A controller given in z has no continuous design.
     #[error("the controller is given in z: no continuous design")]
     NoContinuousDesign,
-    #[error("plant equivalent: {0}")]
-    PlantEquivalent(ModelError),
-    #[error("closing the loop: {0}")]
-    ClosingLoop(ModelError),
-    #[error("closed-loop poles: {0}")]
-    Poles(ModelError),
+    /// The exact sampled loop could not be built or solved.
+    #[error(transparent)]
+    Loop(#[from] LoopError),
     /// A model error met on the way (a trace's poles, a continuous loop).
     #[error(transparent)]
     Model(#[from] ModelError),
@@ -590,7 +587,7 @@ impl PreparedLoop {
         c: &DiscreteTransfer,
     ) -> Result<(HoldEquivalent, ClosedLoop), PointError> {
         let hold = self.hold_equivalent(p)?;
-        let cl = ClosedLoop::new(&hold, c).map_err(PointError::ClosingLoop)?;
+        let cl = ClosedLoop::new(&hold, c).map_err(LoopError::ClosingLoop)?;
         Ok((hold, cl))
     }
 
@@ -611,7 +608,7 @@ impl PreparedLoop {
             &self.actuation(p),
             self.time.points_per_period,
         )
-        .map_err(PointError::PlantEquivalent)
+        .map_err(|e| LoopError::PlantEquivalent(e).into())
     }
 
     /// What lies between controller and plant at a point: its hold, the
@@ -664,7 +661,7 @@ impl PreparedLoop {
                 &built
             }
         };
-        let cl = ClosedLoop::new(&plant.hold, c).map_err(PointError::ClosingLoop)?;
+        let cl = ClosedLoop::new(&plant.hold, c).map_err(LoopError::ClosingLoop)?;
         Ok(self.evaluate_closed(
             &plant.hold,
             c,
@@ -686,7 +683,7 @@ impl PreparedLoop {
     ) -> Evaluation {
         let poles = match cl.poles() {
             Ok(v) => v,
-            Err(e) => return Evaluation::error(PointError::Poles(e)),
+            Err(e) => return Evaluation::error(LoopError::Poles(e)),
         };
         match ClosedLoop::stability(&poles) {
             Stability::Stable => {}

@@ -17,13 +17,13 @@ use crate::model::matrix::ModelError;
 use crate::model::poly::C64;
 use crate::model::transfer::{Controller, DiscreteTransfer};
 use crate::sampled::cascade::lift::{CombinedPlant, InnerClosed, LiftError, combined_plant};
-use crate::sampled::closed_loop::{ClosedLoop, Stability};
+use crate::sampled::closed_loop::{ClosedLoop, LoopError, Stability};
 use crate::sampled::delay_margin::{
     DelayMargin, DelayScan, FirstUnstable, MAX_DELAY_PERIODS, crossing_seeds, first_unstable,
-    scan_step,
+    no_step, scan_step,
 };
 use crate::sampled::evaluate::{
-    Evaluation, Given, Point, PreparedLoop, Status, finish, record_delay_margin,
+    Evaluation, Given, Point, PointError, PreparedLoop, Status, finish, record_delay_margin,
 };
 use crate::sampled::feasibility::{Assessment, LimitCheck, UNSTABLE_SLACK};
 use crate::sampled::figure::{Figure, Limiting, Missing};
@@ -102,13 +102,31 @@ pub enum OuterOutcome {
 /// full evaluation. Past it nothing is concluded.
 pub const SCREEN_PERIODS: usize = 512;
 
-/// Why a cascade could not be prepared.
+/// Why a cascade could not be prepared, or its loops at a point could not
+/// be built (the text is then the reason its grid row carries).
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 pub enum CascadeError {
     #[error("{0}")]
     Lift(#[from] LiftError),
     #[error("the outer loop around an ideal inner loop: {0}")]
     Ideal(ModelError),
+    #[error("the ratio must be a whole number of 1 or more, got 0")]
+    RatioZero,
+    #[error(
+        "the outer computation delay must be finite and >= 0 (a fraction of the outer period), got {0}"
+    )]
+    OuterDelay(f64),
+    #[error("outer controller: {0}")]
+    OuterController(PointError),
+    #[error(transparent)]
+    InnerController(PointError),
+    #[error("inner loop on the whole plant: {0}")]
+    InnerOnWholePlant(ModelError),
+    #[error("closing the outer loop: {0}")]
+    ClosingOuter(ModelError),
+    /// The outer loop's poles could not be solved.
+    #[error(transparent)]
+    Loop(#[from] LoopError),
 }
 
 /// The limits of `spec` on loop figures (phase margin, gain margin,
@@ -336,27 +354,28 @@ impl PreparedCascade {
     }
 
     /// The outer controller at the point's outer rate.
-    pub fn outer_controller(&self, p: &CascadePoint) -> Result<DiscreteTransfer, String> {
+    pub fn outer_controller(&self, p: &CascadePoint) -> Result<DiscreteTransfer, CascadeError> {
         self.ideal
             .controller_at(p.outer_rate_hz(), p.outer_method)
-            .map_err(|e| format!("outer controller: {e}"))
+            .map_err(CascadeError::OuterController)
     }
 
     /// The inner loop closed on the whole plant at the point's inner rate.
-    pub fn inner_closed(&self, p: &CascadePoint, points: usize) -> Result<InnerClosed, String> {
+    pub fn inner_closed(
+        &self,
+        p: &CascadePoint,
+        points: usize,
+    ) -> Result<InnerClosed, CascadeError> {
         if p.ratio == 0 {
-            return Err("the ratio must be a whole number of 1 or more, got 0".into());
+            return Err(CascadeError::RatioZero);
         }
         if !(p.outer_delay >= 0.0 && p.outer_delay.is_finite()) {
-            return Err(format!(
-                "the outer computation delay must be finite and >= 0 (a fraction of the outer period), got {}",
-                p.outer_delay
-            ));
+            return Err(CascadeError::OuterDelay(p.outer_delay));
         }
         let c = self
             .inner
             .controller_at(p.inner.rate_hz, p.inner.method)
-            .map_err(|e| e.to_string())?;
+            .map_err(CascadeError::InnerController)?;
         InnerClosed::new(
             &self.combined,
             &c,
@@ -364,7 +383,7 @@ impl PreparedCascade {
             &self.inner.actuation(&p.inner),
             points,
         )
-        .map_err(|e| format!("inner loop on the whole plant: {e}"))
+        .map_err(CascadeError::InnerOnWholePlant)
     }
 
     /// The lifted outer loop at a point (its hold equivalent, controller
@@ -373,7 +392,7 @@ impl PreparedCascade {
         &self,
         p: &CascadePoint,
         rows: bool,
-    ) -> Result<(InnerClosed, HoldEquivalent, DiscreteTransfer, ClosedLoop), String> {
+    ) -> Result<(InnerClosed, HoldEquivalent, DiscreteTransfer, ClosedLoop), CascadeError> {
         let inner = self.inner_closed(p, self.outer_time.points_per_period)?;
         let (lifted, c, cl) = self.outer_loop_on(&inner, p, rows)?;
         Ok((inner, lifted, c, cl))
@@ -386,12 +405,11 @@ impl PreparedCascade {
         inner: &InnerClosed,
         p: &CascadePoint,
         rows: bool,
-    ) -> Result<(HoldEquivalent, DiscreteTransfer, ClosedLoop), String> {
+    ) -> Result<(HoldEquivalent, DiscreteTransfer, ClosedLoop), CascadeError> {
         let c = self.outer_controller(p)?;
         let ticks = InnerClosed::delay_ticks(p.ratio, p.outer_delay);
         let lifted = inner.lifted(p.ratio, ticks, rows);
-        let cl =
-            ClosedLoop::new(&lifted, &c).map_err(|e| format!("closing the outer loop: {e}"))?;
+        let cl = ClosedLoop::new(&lifted, &c).map_err(CascadeError::ClosingOuter)?;
         Ok((lifted, c, cl))
     }
 
@@ -417,7 +435,7 @@ impl PreparedCascade {
                 Stability::Unstable => Some(Evaluation::poles_only(Status::Unstable, &poles)),
                 Stability::Marginal => Some(Evaluation::poles_only(Status::Marginal, &poles)),
             },
-            Err(e) => Some(Evaluation::error(format!("closed-loop poles: {e}"))),
+            Err(e) => Some(Evaluation::error(LoopError::Poles(e))),
         }
     }
 
@@ -464,14 +482,15 @@ impl PreparedCascade {
         exact_margin: bool,
         screen_on_spec: Option<&Spec>,
     ) -> OuterOutcome {
-        let fail = |e: String| OuterOutcome::Figures(Box::new(Evaluation::error(e)));
+        let fail =
+            |e: &dyn std::fmt::Display| OuterOutcome::Figures(Box::new(Evaluation::error(e)));
         let (lifted, c, cl) = match self.outer_loop_on(inner, p, true) {
             Ok(v) => v,
-            Err(e) => return fail(e),
+            Err(e) => return fail(&e),
         };
         let poles = match cl.poles() {
             Ok(v) => v,
-            Err(e) => return fail(format!("closed-loop poles: {e}")),
+            Err(e) => return fail(&LoopError::Poles(e)),
         };
         match ClosedLoop::stability(&poles) {
             Stability::Stable => {}
@@ -515,7 +534,7 @@ impl PreparedCascade {
         }
         let (step, dist) = match sampled_figures(&cl, &lifted, &poles, &self.outer_time) {
             Ok(v) => v,
-            Err(e) => return fail(e.to_string()),
+            Err(e) => return fail(&e),
         };
         let margin = exact_margin.then(|| self.outer_delay_margin(inner, &c, p, &freq));
         let mut e = finish(step, dist, freq, &poles);
@@ -567,10 +586,10 @@ impl PreparedCascade {
         let start = InnerClosed::delay_ticks(n, p.outer_delay);
         let max_ticks = (MAX_DELAY_PERIODS * n as f64) as usize;
         // Extra ticks past the outer delay's own.
-        let radius_at = |extra: f64| -> Result<f64, String> {
+        let radius_at = |extra: f64| -> Result<f64, LoopError> {
             let lifted = inner.lifted(n, start + extra as usize, false);
-            let cl = ClosedLoop::new(&lifted, c).map_err(|e| format!("closing the loop: {e}"))?;
-            let poles = cl.poles().map_err(|e| format!("closed-loop poles: {e}"))?;
+            let cl = ClosedLoop::new(&lifted, c).map_err(LoopError::ClosingLoop)?;
+            let poles = cl.poles().map_err(LoopError::Poles)?;
             Ok(poles.iter().map(|p| p.norm()).fold(0.0, f64::max))
         };
         // The estimate's own candidates, in ticks past the start.
@@ -590,7 +609,8 @@ impl PreparedCascade {
             FirstUnstable::StableUpTo(x) => DelayMargin::NotLocated(format!(
                 "the outer loop stayed stable for every extra delay tried up to {x} inner periods"
             )),
-            FirstUnstable::Failed(e) => DelayMargin::NotLocated(e),
+            FirstUnstable::Failed(e) => DelayMargin::NotLocated(e.to_string()),
+            FirstUnstable::NoStep(step) => DelayMargin::NotLocated(no_step(step)),
         }
     }
 
@@ -600,9 +620,9 @@ impl PreparedCascade {
         &self,
         p: &CascadePoint,
         periods: Option<usize>,
-    ) -> Result<(Vec<TracePoint>, Vec<TracePoint>), String> {
+    ) -> Result<(Vec<TracePoint>, Vec<TracePoint>), CascadeError> {
         let (_, lifted, _, cl) = self.outer_loop(p, true)?;
-        let poles = cl.poles().map_err(|e| e.to_string())?;
+        let poles = cl.poles().map_err(LoopError::Poles)?;
         let rho = poles.iter().map(|p| p.norm()).fold(0.0, f64::max);
         let n = periods.unwrap_or_else(|| {
             (horizon_steps(rho.min(0.999_999), cl.a.nrows()) as usize)
