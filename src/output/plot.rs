@@ -160,8 +160,6 @@ pub struct Panel {
     /// A short line inside the panel, placed off the data (e.g. what the
     /// gaps in its curves mean); empty for none.
     pub caption: String,
-    /// Relative height among the panels (non-positive or non-finite = 1).
-    pub height_weight: f64,
 }
 
 impl Default for Panel {
@@ -175,7 +173,6 @@ impl Default for Panel {
             hbands: Vec::new(),
             notes: Vec::new(),
             caption: String::new(),
-            height_weight: 1.0,
         }
     }
 }
@@ -237,9 +234,6 @@ pub enum Draw {
     Markers,
     /// Segments and a marker at each point.
     LineAndMarkers,
-    /// A staircase: each value holds until the next point's x (as a
-    /// zero-order hold does), then jumps.
-    Steps,
 }
 
 /// Which side of a limit is infeasible.
