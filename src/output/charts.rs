@@ -1258,168 +1258,120 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
     let grid = loop_grid(&l, &range);
     let phase = unwrapped_phase(&grid);
     let two_pi = 2.0 * std::f64::consts::PI;
-    let nyquist_hz = rec.rate_hz / 2.0;
+    let (nyquist_hz, hz_of) = (rec.rate_hz / 2.0, |w: f64| w / two_pi);
     // Three decades below Nyquist, or lower when a crossing sits there.
     let lowest_mark = [detail.crossover_hz, detail.gain_margin_hz]
         .into_iter()
         .flatten()
         .fold(nyquist_hz, f64::min);
-    let f_lo = (range.w_lo / two_pi).max((nyquist_hz * 1e-3).min(lowest_mark / 10.0));
-    let keep = |w: f64| w / two_pi >= f_lo;
-
+    let f_lo = hz_of(range.w_lo).max((nyquist_hz * 1e-3).min(lowest_mark / 10.0));
     let mut mag = Panel::new(Axis::linear("magnitude |L| (dB)"));
     let mut ph = Panel::new(Axis::linear("phase of L (deg)"));
+    // One curve on both panels: |L| in dB and its unwrapped phase.
+    let mut bode = |label: &str, l: &[(f64, C64)], phase: &[f64], style: usize| {
+        let kept = || (l.iter().zip(phase)).filter(|(g, _)| hz_of(g.0) >= f_lo);
+        let db = kept().map(|(&(w, v), _)| (hz_of(w), 20.0 * v.norm().log10()));
+        mag.series.push(Series::line(label, db.collect(), style));
+        let deg = kept().map(|(&(w, _), &phi)| (hz_of(w), phi));
+        ph.series.push(Series::line(label, deg.collect(), style));
+    };
     let label = format!(
         "sampled loop, {}{} {}",
         rec.method,
         hold_words(inp),
         hz(rec.rate_hz)
     );
-    mag.series.push(Series::line(
-        label.clone(),
-        grid.iter()
-            .filter(|g| keep(g.0))
-            .map(|&(w, v)| (w / two_pi, 20.0 * v.norm().log10()))
-            .collect(),
-        STYLE_RECOMMENDED,
-    ));
-    ph.series.push(Series::line(
-        label,
-        grid.iter()
-            .zip(&phase)
-            .filter(|(g, _)| keep(g.0))
-            .map(|(&(w, _), &phi)| (w / two_pi, phi))
-            .collect(),
-        STYLE_RECOMMENDED,
-    ));
+    bode(&label, &grid, &phase, STYLE_RECOMMENDED);
     // The continuous design on the same grid, for comparison.
     if let Controller::Continuous(c) = &inp.lp.controller {
-        let cont: Vec<(f64, C64)> = grid
-            .iter()
-            .map(|&(w, _)| {
-                let s = C64::new(0.0, w);
-                (w, inp.lp.plant.eval(s) * inp.lp.sensor.eval(s) * c.eval(s))
-            })
+        let lp = inp.lp;
+        let cont: Vec<(f64, C64)> = (grid.iter())
+            .map(|&(w, _)| (w, C64::new(0.0, w)))
+            .map(|(w, s)| (w, lp.plant.eval(s) * lp.sensor.eval(s) * c.eval(s)))
             .collect();
         // The transport delays' e^{-jwL} turns the phase only: exactly
         // -w L, added after unwrapping the rational part.
-        let delay_s = inp.lp.transport.plant_s + inp.lp.transport.sensor_s;
-        let cph: Vec<f64> = unwrapped_phase(&cont)
-            .into_iter()
-            .zip(&cont)
+        let delay_s = lp.transport.plant_s + lp.transport.sensor_s;
+        let cph: Vec<f64> = (unwrapped_phase(&cont).into_iter().zip(&cont))
             .map(|(phi, &(w, _))| phi - (w * delay_s).to_degrees())
             .collect();
-        mag.series.push(Series::line(
-            "continuous design",
-            cont.iter()
-                .filter(|g| keep(g.0))
-                .map(|&(w, v)| (w / two_pi, 20.0 * v.norm().log10()))
-                .collect(),
-            STYLE_CONTINUOUS,
-        ));
-        ph.series.push(Series::line(
-            "continuous design",
-            cont.iter()
-                .zip(&cph)
-                .filter(|(g, _)| keep(g.0))
-                .map(|(&(w, _), &phi)| (w / two_pi, phi))
-                .collect(),
-            STYLE_CONTINUOUS,
-        ));
+        bode("continuous design", &cont, &cph, STYLE_CONTINUOUS);
     }
     let f_hi = nyquist_hz;
     clip_magnitude(&mut mag, detail.gain_margin_db);
-    mag.series
-        .push(hline("0 dB", 0.0, f_lo, f_hi, STYLE_REFERENCE));
+    (mag.series).push(hline("0 dB", 0.0, f_lo, f_hi, STYLE_REFERENCE));
     // Unwrapped phase at a frequency, exactly: the nearest grid point's
     // unwrapped value plus the angle from it.
     let phase_at = |f: f64| -> f64 {
         let w = f * two_pi;
-        let i = grid
-            .iter()
-            .enumerate()
-            .min_by(|a, b| {
-                (a.1.0.ln() - w.ln())
-                    .abs()
-                    .total_cmp(&(b.1.0.ln() - w.ln()).abs())
+        let i = (0..grid.len())
+            .min_by(|&a, &b| {
+                let d = |i: usize| (grid[i].0.ln() - w.ln()).abs();
+                d(a).total_cmp(&d(b))
             })
-            .map_or(0, |(i, _)| i);
+            .unwrap_or(0);
         phase[i] + (l(w) / grid[i].1).arg().to_degrees()
     };
     // The -180 deg lines (mod 360) inside the phase panel's span.
-    let (plo, phi) = phase
-        .iter()
-        .zip(&grid)
-        .filter(|(_, g)| keep(g.0))
+    let (plo, phi) = (phase.iter().zip(&grid))
+        .filter(|(_, g)| hz_of(g.0) >= f_lo)
         .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), (v, _)| {
             (a.min(*v), b.max(*v))
         });
     if plo.is_finite() {
-        let mut k = ((plo + 180.0) / 360.0).floor();
-        let mut first = true;
-        while -180.0 + 360.0 * k <= phi + 20.0 {
-            let level = -180.0 + 360.0 * k;
-            if level >= plo - 20.0 {
-                let text = if first { "-180 deg (mod 360)" } else { "" };
-                ph.series
-                    .push(hline(text, level, f_lo, f_hi, STYLE_REFERENCE));
-                first = false;
-            }
-            k += 1.0;
+        let k0 = ((plo + 180.0) / 360.0).floor() as i64;
+        let levels = (k0..).map(|k| -180.0 + 360.0 * k as f64);
+        let levels = levels
+            .take_while(|v| *v <= phi + 20.0)
+            .filter(|v| *v >= plo - 20.0);
+        for (i, level) in levels.enumerate() {
+            let text = if i == 0 { "-180 deg (mod 360)" } else { "" };
+            (ph.series).push(hline(text, level, f_lo, f_hi, STYLE_REFERENCE));
         }
     }
     for panel in [&mut mag, &mut ph] {
-        panel.vmarks.push(VMark::new(
-            nyquist_hz,
-            format!("Nyquist {}", hz(nyquist_hz)),
-            MarkStyle::Dotted,
-        ));
+        let text = format!("Nyquist {}", hz(nyquist_hz));
+        panel
+            .vmarks
+            .push(VMark::new(nyquist_hz, text, MarkStyle::Dotted));
     }
     if let (Some(fc), Some(pm)) = (detail.crossover_hz, detail.phase_margin_deg) {
-        mag.vmarks.push(VMark::new(
-            fc,
-            format!("crossover {}", hz(fc)),
-            MarkStyle::Dashed,
-        ));
+        let text = format!("crossover {}", hz(fc));
+        mag.vmarks.push(VMark::new(fc, text, MarkStyle::Dashed));
         ph.vmarks.push(VMark::new(fc, "", MarkStyle::Dashed));
-        ph.notes.push(Annotation::new(
-            fc,
-            phase_at(fc),
-            format!("phase margin {} deg", sig4(pm)),
-        ));
+        let text = format!("phase margin {} deg", sig4(pm));
+        ph.notes.push(Annotation::new(fc, phase_at(fc), text));
     }
     if let (Some(fg), Some(gm)) = (detail.gain_margin_hz, detail.gain_margin_db) {
-        let w = fg * two_pi;
-        mag.notes.push(Annotation::new(
-            fg,
-            20.0 * l(w).norm().log10(),
-            format!("gain margin {} dB at {}", sig4(gm), hz(fg)),
-        ));
+        let text = format!("gain margin {} dB at {}", sig4(gm), hz(fg));
+        let db = 20.0 * l(fg * two_pi).norm().log10();
+        mag.notes.push(Annotation::new(fg, db, text));
         ph.notes.push(Annotation::new(fg, phase_at(fg), ""));
     }
     // The title names what is drawn; the marks carry the margins' values.
-    let mut missing = Vec::new();
-    if detail.gain_margin_db.is_none() {
-        missing.push("no -180 deg crossing, so no gain margin mark");
-    }
-    if detail.phase_margin_deg.is_none() {
-        missing.push("no gain crossover, so no phase margin mark");
-    }
-    let at = if rate_word(report) == "recommended" {
-        "the recommended rate"
-    } else {
-        "the rate the spec alone needs"
+    let missing: Vec<&str> = [
+        (
+            detail.gain_margin_db,
+            "no -180 deg crossing, so no gain margin mark",
+        ),
+        (
+            detail.phase_margin_deg,
+            "no gain crossover, so no phase margin mark",
+        ),
+    ]
+    .into_iter()
+    .filter_map(|(v, text)| v.is_none().then_some(text))
+    .collect();
+    let at = match rate_word(report) {
+        "recommended" => "the recommended rate",
+        _ => "the rate the spec alone needs",
     };
-    let title = if missing.is_empty() {
-        format!("Loop gain L(e^jwT) at {at}")
-    } else {
-        format!("Loop gain L(e^jwT) at {at} ({})", missing.join("; "))
+    let title = match missing.is_empty() {
+        true => format!("Loop gain L(e^jwT) at {at}"),
+        false => format!("Loop gain L(e^jwT) at {at} ({})", missing.join("; ")),
     };
-    Some(
-        Figure::new(title, Axis::log("frequency (Hz)").with_range(f_lo, f_hi))
-            .with_panel(mag)
-            .with_panel(ph),
-    )
+    let x = Axis::log("frequency (Hz)").with_range(f_lo, f_hi);
+    Some(Figure::new(title, x).with_panel(mag).with_panel(ph))
 }
 
 /// Deepest magnitude the loop-gain chart shows below its top, dB: 80 dB
@@ -1500,32 +1452,22 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
     // to past both the swept range and the budget's ceiling, so the whole
     // window is covered.
     let lo = inp.case.rates.min_hz;
-    let hi = [
-        inp.case.rates.max_hz,
-        inp.pick.and_then(|p| p.cpu_ceiling_hz).unwrap_or(0.0) * 1.3,
-        inp.rec.map_or(0.0, |(r, _)| r.rate_hz * 1.3),
-    ]
-    .into_iter()
-    .filter(|v| v.is_finite())
-    .fold(inp.case.rates.max_hz, f64::max);
+    let ceiling = inp.pick.and_then(|p| p.cpu_ceiling_hz).unwrap_or(0.0);
+    let hi = [ceiling * 1.3, inp.rec.map_or(0.0, |(r, _)| r.rate_hz * 1.3)]
+        .into_iter()
+        .filter(|v| v.is_finite())
+        .fold(inp.case.rates.max_hz, f64::max);
     // A single rate (a controller given in z) with nothing above it.
     let hi = if hi > lo * 1.01 { hi } else { lo * 1.5 };
-    let n = 120;
-    let rates: Vec<f64> = (0..n)
-        .map(|i| lo * (hi / lo).powf(i as f64 / (n - 1) as f64))
-        .collect();
-    let structure = inp
-        .case
-        .arithmetic
-        .as_ref()
+    let rates = log_spaced(lo, hi, 120);
+    let structure = (inp.case.arithmetic.as_ref())
         .map_or(crate::spec::Structure::TransposedDirect, |a| a.structure);
     let integrators = crate::model::rounding::design_integrators(&inp.lp.controller);
     // Methods with the same load share one line and one legend entry.
     let mut loads: Vec<(Vec<String>, Points)> = Vec::new();
     for m in case_methods(inp.case) {
         let method = method_label(m).to_string();
-        let pts: Vec<(f64, f64)> = rates
-            .iter()
+        let pts: Points = (rates.iter())
             .map(|&f| {
                 let c = inp.lp.controller_at(f, m).ok();
                 let load = budget::cost_at(b, c.as_ref(), structure, integrators, f)
@@ -1548,11 +1490,8 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
         };
         panel.series.push(Series::line(label, pts, k));
     }
-    panel.limits.push(Limit::new(
-        b.max_load_pct,
-        Side::Above,
-        format!("max load {} %", sig4(b.max_load_pct)),
-    ));
+    let text = format!("max load {} %", sig4(b.max_load_pct));
+    (panel.limits).push(Limit::new(b.max_load_pct, Side::Above, text));
     let window = inp.pick.and_then(|p| p.window.as_ref());
     let title = match (inp.pick, window) {
         (None, _) => "CPU load vs rate (sweep only: run pick for the rate window)".into(),
@@ -1566,13 +1505,13 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
             hz(w.low_hz),
             hz(w.high_hz),
             match &w.high_bound {
-                crate::explore::budget::WindowBound::LastRateChecked { .. } =>
+                budget::WindowBound::LastRateChecked { .. } =>
                     ", cut at the last rate checked".to_string(),
                 b => format!(", top set by the {b}"),
             }
         ),
         (Some(p), None) if p.recommended.is_some() => {
-            "CPU load vs rate (the load of the chosen controller is unknown)".to_string()
+            "CPU load vs rate (the load of the chosen controller is unknown)".into()
         }
         (Some(p), None) if !p.design_failures.is_empty() || p.methods.is_empty() => {
             "CPU load vs rate: the continuous design already fails the spec, so there is no window"
@@ -1582,37 +1521,37 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
             "CPU load vs rate: no method meets the spec, so there is no window".into()
         }
     };
-    if let Some(w) = window
-        && !w.empty
-    {
-        panel
-            .bands
-            .push(XBand::new(w.low_hz, w.high_hz, "rate window"));
+    if let Some(w) = window.filter(|w| !w.empty) {
+        (panel.bands).push(XBand::new(w.low_hz, w.high_hz, "rate window"));
     }
     if let Some(p) = inp.pick {
         if let Some(r) = &p.recommended {
-            panel.vmarks.push(VMark::new(
-                r.rate_hz,
-                format!("{} {}", rate_word(p), hz(r.rate_hz)),
-                MarkStyle::Solid,
-            ));
+            panel.vmarks.push(recommended_mark(p, r.rate_hz));
         }
         if let Some(c) = p.cpu_ceiling_hz {
-            panel.vmarks.push(VMark::new(
-                c,
-                format!("budget ceiling {}", hz(c)),
-                MarkStyle::Dashed,
-            ));
+            let text = format!("budget ceiling {}", hz(c));
+            panel.vmarks.push(VMark::new(c, text, MarkStyle::Dashed));
         }
     }
     if panel.series.is_empty() {
-        panel.notes.push(Annotation::new(
-            inp.case.rates.min_hz,
-            b.max_load_pct,
-            "no load known (cycles estimated from a controller that could not be built)",
-        ));
+        let text = "no load known (cycles estimated from a controller that could not be built)";
+        (panel.notes).push(Annotation::new(lo, b.max_load_pct, text));
     }
     Some(Figure::new(title, rate_axis()).with_panel(panel))
+}
+
+/// The solid mark at the recommended rate (or the rate the spec alone
+/// needs), labelled.
+fn recommended_mark(report: &PickReport, rate_hz: f64) -> VMark {
+    let text = format!("{} {}", rate_word(report), hz(rate_hz));
+    VMark::new(rate_hz, text, MarkStyle::Solid)
+}
+
+/// `n` rates from `lo` to `hi`, evenly spaced on a log axis.
+fn log_spaced(lo: f64, hi: f64, n: usize) -> Vec<f64> {
+    (0..n)
+        .map(|i| lo * (hi / lo).powf(i as f64 / (n - 1) as f64))
+        .collect()
 }
 
 /// What rounding the coefficients does against rate, per number format,
@@ -1629,47 +1568,35 @@ fn precision_chart(inp: &Inputs) -> Option<Figure> {
         Some((r, _)) => series.into_iter().find(|(m, _)| m == r.method.name())?,
         None => series.into_iter().next()?,
     };
-    let formats: Vec<String> = inp.formats.iter().map(|f| f.name()).collect();
-    let panels = ["controller pole error (%)", "DC gain error (%)"];
-    let structure = inp
-        .case
-        .arithmetic
-        .as_ref()
-        .map_or("transposed-direct", |a| a.structure.name());
-    let mut fig = Figure::new(
-        format!(
-            "Coefficient rounding ({structure}) vs rate, {method}: errors and precision ceilings"
-        ),
-        rate_axis(),
+    let structure =
+        (inp.case.arithmetic.as_ref()).map_or("transposed-direct", |a| a.structure.name());
+    let title = format!(
+        "Coefficient rounding ({structure}) vs rate, {method}: errors and precision ceilings"
     );
+    let mut fig = Figure::new(title, rate_axis());
     let mut empty = Vec::new();
-    for (j, label) in panels.into_iter().enumerate() {
+    for (j, label) in ["controller pole error (%)", "DC gain error (%)"]
+        .into_iter()
+        .enumerate()
+    {
         let mut panel = Panel::new(Axis::log(label));
-        for (k, f) in formats.iter().enumerate() {
+        for (k, f) in inp.formats.iter().enumerate() {
             let Some(pts) = rows.precision.get(k).map(|p| p[j].clone()) else {
                 continue;
             };
             if pts.iter().any(|p| p.1.is_finite()) {
-                panel.series.push(Series::line(f.clone(), pts, k));
+                panel.series.push(Series::line(f.name(), pts, k));
             }
         }
-        if let Some(pr) = pr {
-            for c in pr.ceilings.iter().filter(|c| c.method.name() == method) {
-                if let (Some(h), false) = (c.ceiling.rate_hz, c.ceiling.above_range) {
-                    panel.vmarks.push(VMark::new(
-                        h,
-                        format!("{} ceiling {}", c.format, hz(h)),
-                        MarkStyle::Dashed,
-                    ));
-                }
+        let ceilings = pr.iter().flat_map(|pr| &pr.ceilings);
+        for c in ceilings.filter(|c| c.method.name() == method) {
+            if let (Some(h), false) = (c.ceiling.rate_hz, c.ceiling.above_range) {
+                let text = format!("{} ceiling {}", c.format, hz(h));
+                panel.vmarks.push(VMark::new(h, text, MarkStyle::Dashed));
             }
         }
         if let (Some((r, _)), Some(p)) = (inp.rec, inp.pick) {
-            panel.vmarks.push(VMark::new(
-                r.rate_hz,
-                format!("{} {}", rate_word(p), hz(r.rate_hz)),
-                MarkStyle::Solid,
-            ));
+            panel.vmarks.push(recommended_mark(p, r.rate_hz));
         }
         if panel.series.is_empty() {
             // Nothing to draw on a log axis: the figure is exact.
@@ -1678,11 +1605,10 @@ fn precision_chart(inp: &Inputs) -> Option<Figure> {
         }
         fig = fig.with_panel(panel);
     }
-    if empty.len() == 2 {
-        return None;
-    }
-    if let Some(label) = empty.first() {
-        fig.title = format!("{}; {label}: zero at every rate", fig.title);
+    match empty[..] {
+        [_, _] => return None,
+        [label] => fig.title = format!("{}; {label}: zero at every rate", fig.title),
+        _ => {}
     }
     Some(fig)
 }
@@ -1694,101 +1620,65 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
     let report = inp.pick?;
     let design = report.design.as_ref()?;
     let (lo, hi) = (inp.case.rates.min_hz, inp.case.rates.max_hz);
-    let n = HOLD_CHART_RATES;
-    let rates: Vec<f64> = (0..n)
-        .map(|i| lo * (hi / lo).powf(i as f64 / (n - 1) as f64))
-        .collect();
-    let evals: Vec<(Evaluation, Vec<Evaluation>)> = rates
+    let rates = log_spaced(lo, hi, HOLD_CHART_RATES);
+    // Per rate: the exact loop, then each approximation.
+    let evals: Vec<Vec<Evaluation>> = rates
         .par_iter()
         .map(|&f| {
             let p = point_at(inp, method, f);
-            let approx = HoldApprox::ALL
-                .iter()
-                .map(|&k| inp.lp.hold_approx(&p, k))
-                .collect();
-            (inp.lp.sampled(&p), approx)
+            let approx = HoldApprox::ALL.iter().map(|&k| inp.lp.hold_approx(&p, k));
+            std::iter::once(inp.lp.sampled(&p)).chain(approx).collect()
         })
         .collect();
-    let mut fig = Figure::new(
-        format!(
-            "Hold approximations vs the exact sampled loop ({}, {} hold, computation delay {})",
-            rec.method,
-            rec.hold,
-            periods(inp.design_delay)
-        ),
-        rate_axis().with_range(lo, hi),
+    let title = format!(
+        "Hold approximations vs the exact sampled loop ({}, {} hold, computation delay {})",
+        rec.method,
+        rec.hold,
+        periods(inp.design_delay)
     );
-    let defs = [LoopFigure::PhaseMargin, LoopFigure::Overshoot];
-    for (i, def) in defs.into_iter().enumerate() {
+    let mut fig = Figure::new(title, rate_axis().with_range(lo, hi));
+    let names = std::iter::once("exact sampled loop".to_string()).chain(
+        HoldApprox::ALL
+            .iter()
+            .map(|k| format!("{} approximation", k.name())),
+    );
+    let names: Vec<String> = names.collect();
+    for (i, def) in [LoopFigure::PhaseMargin, LoopFigure::Overshoot]
+        .into_iter()
+        .enumerate()
+    {
         let named = |s: &str| if i == 0 { s.to_string() } else { String::new() };
         let mut panel = Panel::new(Axis::linear(def.axis_title()));
-        panel.series.push(
-            Series::line(
-                named("exact sampled loop"),
-                rates
-                    .iter()
-                    .zip(&evals)
-                    .map(|(&f, (e, _))| (f, figure_of(e, def)))
-                    .collect(),
-                STYLE_RECOMMENDED,
-            )
-            .drawn(Draw::LineAndMarkers),
-        );
-        for (k, kind) in HoldApprox::ALL.iter().enumerate() {
+        for (k, name) in names.iter().enumerate() {
+            let pts = (rates.iter().zip(&evals)).map(|(&f, e)| (f, figure_of(&e[k], def)));
             // Markers as well as dashes: the approximations lie close
-            // together and must stay apart in greyscale.
-            panel.series.push(
-                Series::line(
-                    named(&format!("{} approximation", kind.name())),
-                    rates
-                        .iter()
-                        .zip(&evals)
-                        .map(|(&f, (_, a))| (f, figure_of(&a[k], def)))
-                        .collect(),
-                    // Styles 1, 2, 3, then 5: 4 is the continuous design's.
-                    if k + 1 >= STYLE_CONTINUOUS {
-                        k + 2
-                    } else {
-                        k + 1
-                    },
-                )
-                .drawn(Draw::LineAndMarkers),
-            );
+            // together and must stay apart in greyscale. Styles 0 (the
+            // exact loop), 1, 2, 3, then 5: 4 is the continuous design's.
+            let style = if k >= STYLE_CONTINUOUS { k + 1 } else { k };
+            let series = Series::line(named(name), pts.collect(), style);
+            panel.series.push(series.drawn(Draw::LineAndMarkers));
         }
         // A curve stops where its loop has no such figure (unstable, or
         // no crossing): say so, as the rate chart does.
-        let gaps = evals
-            .iter()
-            .filter(|(e, a)| {
-                figure_of(e, def).is_nan() || a.iter().any(|x| figure_of(x, def).is_nan())
-            })
+        let gaps = (evals.iter())
+            .filter(|e| e.iter().any(|x| figure_of(x, def).is_nan()))
             .count();
         if gaps > 0 {
+            let (short, n) = (def.short_label(), evals.len());
             panel.caption = format!(
-                "gaps: no {} at {gaps} of {} rates (loop unstable or no such figure)",
-                def.short_label(),
-                evals.len()
+                "gaps: no {short} at {gaps} of {n} rates (loop unstable or no such figure)"
             );
         }
         if let Some(v) = def.limited_value(design) {
-            panel.series.push(hline(
-                &named("continuous design"),
-                v,
-                lo,
-                hi,
-                STYLE_CONTINUOUS,
-            ));
+            let line = hline(&named("continuous design"), v, lo, hi, STYLE_CONTINUOUS);
+            panel.series.push(line);
         }
         panel.limits.extend(limit_of(def, &inp.case.spec));
-        panel.vmarks.push(VMark::new(
-            rec.rate_hz,
-            if i == 0 {
-                format!("{} {}", rate_word(report), hz(rec.rate_hz))
-            } else {
-                String::new()
-            },
-            MarkStyle::Solid,
-        ));
+        let mut mark = recommended_mark(report, rec.rate_hz);
+        if i > 0 {
+            mark.label.clear();
+        }
+        panel.vmarks.push(mark);
         fig = fig.with_panel(panel);
     }
     Some(fig)

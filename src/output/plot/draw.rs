@@ -231,7 +231,11 @@ fn fit(axis: &Axis, values: impl Iterator<Item = f64>) -> Ax {
     }
     (ax.lo, ax.hi) = (lo, hi);
     if hi - lo <= 1e-12 * lo.abs().max(1.0) {
-        let d = if axis.log { 0.5 } else { 0.5 * lo.abs().max(1.0) };
+        let d = if axis.log {
+            0.5
+        } else {
+            0.5 * lo.abs().max(1.0)
+        };
         (ax.lo, ax.hi) = (lo - d, hi + d);
     } else if axis.range.is_none() {
         let pad = 0.05 * (hi - lo);
@@ -600,14 +604,16 @@ fn draw_extras(
         let r = Rect::new(plot.x0, at(xs.lo, a).1, plot.x1, at(xs.lo, c).1);
         fill(r, style::YBAND, 0.16)?;
         let mid = (r.y0 + r.y1) / 2.0;
-        let spots = [(left, Left), (right, Right)].into_iter().flat_map(|(x, h)| {
-            let st = |v| s(style::TEXT_SOFT, h, v);
-            [
-                (x, r.y0 - 0.2 * b, st(Bottom)),
-                (x, r.y1 + 0.2 * b, st(Top)),
-                (x, mid, st(Middle)),
-            ]
-        });
+        let spots = [(left, Left), (right, Right)]
+            .into_iter()
+            .flat_map(|(x, h)| {
+                let st = |v| s(style::TEXT_SOFT, h, v);
+                [
+                    (x, r.y0 - 0.2 * b, st(Bottom)),
+                    (x, r.y1 + 0.2 * b, st(Top)),
+                    (x, mid, st(Middle)),
+                ]
+            });
         queue(&band.label, spots.collect());
     }
     for band in &p.bands {
@@ -748,7 +754,11 @@ fn draw_series(
         }
         // With a line, markers only identify the series: at least 10
         // radii apart, staggered by series; without one every point.
-        let spacing = if s.draw == Draw::Markers { 0.0 } else { 10.0 * r };
+        let spacing = if s.draw == Draw::Markers {
+            0.0
+        } else {
+            10.0 * r
+        };
         let mut travelled = spacing * (s.style.0 % 4) as f64 / 4.0;
         let mut kept = Vec::new();
         for run in &runs {
