@@ -850,7 +850,6 @@ fn clip_above(panel: &mut Panel, top: f64, unit: &str) {
 /// peak against the rate, one series per method at the design delay
 /// (with plant variants also each method's worst-variant curve).
 fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
-    let spec = &inp.case.spec;
     // A controller given in z runs at one rate: one point per computation
     // delay, on an axis around that rate (not the range of a sweep).
     let single = match &inp.lp.controller {
@@ -871,19 +870,14 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
     let robust = inp.pick.is_some_and(|p| p.robust.is_some());
     let mut marks: Vec<VMark> = Vec::new();
     if let Some(pick) = inp.pick {
-        if let Some(r) = &pick.recommended {
-            let text = format!("{} {}", rate_word(pick), hz(r.rate_hz));
-            marks.push(VMark::new(r.rate_hz, text, MarkStyle::Solid));
-        }
+        marks.extend((pick.recommended.as_ref()).map(|r| recommended_mark(pick, r.rate_hz)));
         if robust {
             let get = |m: &str| robust_f_star(pick, m);
             marks.extend(star_marks(&series, "robust f*", MarkStyle::Dashed, get));
         }
-        let kind = if robust { "nominal f*" } else { "f*" };
-        let style = if robust {
-            MarkStyle::Dotted
-        } else {
-            MarkStyle::Dashed
+        let (kind, style) = match robust {
+            true => ("nominal f*", MarkStyle::Dotted),
+            false => ("f*", MarkStyle::Dashed),
         };
         marks.extend(star_marks(&series, kind, style, |m| f_star(pick, m)));
     }
@@ -913,18 +907,15 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
         ),
     };
     let mut fig = Figure::new(title, rate_axis().with_range(lo, hi));
+    // Lines through every panel, each label on one panel only (spread
+    // over the panels so the labels do not collide).
+    let labelled = |k: usize| marks[..k].iter().filter(|m| !m.label.is_empty()).count();
     for (i, def) in RATE_PANELS.iter().enumerate() {
-        let mut panel = rate_panel(*def, spec, &series, i == 0, robust);
-        // Lines through every panel, each label on one panel only
-        // (spread over the panels so the labels do not collide).
-        let mut slot = 0;
-        for mk in &marks {
+        let mut panel = rate_panel(*def, &inp.case.spec, &series, i == 0, robust);
+        for (k, mk) in marks.iter().enumerate() {
             let mut mk = mk.clone();
-            if !mk.label.is_empty() {
-                if slot % RATE_PANELS.len() != i {
-                    mk.label.clear();
-                }
-                slot += 1;
+            if labelled(k) % RATE_PANELS.len() != i {
+                mk.label.clear();
             }
             panel.vmarks.push(mk);
         }
@@ -960,14 +951,13 @@ fn hold_kinds(inp: &Inputs) -> Option<Figure> {
     if series.is_empty() {
         return None;
     }
-    let mut fig = Figure::new(
-        format!(
-            "Hold kinds: {} at computation delay {} (hatched side of a limit fails)",
-            rec.method,
-            periods(inp.design_delay)
-        ),
-        rate_axis().with_range(inp.case.rates.min_hz, inp.case.rates.max_hz),
+    let title = format!(
+        "Hold kinds: {} at computation delay {} (hatched side of a limit fails)",
+        rec.method,
+        periods(inp.design_delay)
     );
+    let x = rate_axis().with_range(inp.case.rates.min_hz, inp.case.rates.max_hz);
+    let mut fig = Figure::new(title, x);
     for (i, def) in [LoopFigure::PhaseMargin, LoopFigure::Overshoot]
         .into_iter()
         .enumerate()
@@ -995,28 +985,39 @@ struct Run {
     style: usize,
 }
 
-/// A time-response panel: the continuous design and each run's trace (a
-/// line through the output between samples, markers at the samples);
+/// A time-response figure over `[0, t_end]` (1.4 times the longest of
+/// `times`, else `fallback`): the continuous design and each run's trace
+/// (a line through the output between samples, markers at the samples);
 /// `step` picks the step trace, else the load-disturbance one. Runs that
-/// cannot be simulated are named in the returned notes.
-fn time_panel(
+/// cannot be simulated are named after the title; `finish` adds what
+/// the chart marks.
+#[allow(clippy::too_many_arguments)]
+fn time_figure(
     inp: &Inputs,
     method: Option<Method>,
     runs: &[Run],
-    t_end: f64,
+    (times, fallback): (&[Option<f64>], f64),
     step: bool,
     y_label: &str,
-) -> (Panel, Vec<String>) {
+    mut title: String,
+    finish: impl FnOnce(&mut Panel),
+) -> Figure {
+    let longest = times.iter().flatten().copied().fold(0.0, f64::max);
+    let t_end = if longest > 0.0 {
+        1.4 * longest
+    } else {
+        fallback
+    };
     let mut panel = Panel::new(Axis::linear(y_label));
     let mut notes = Vec::new();
     if inp.lp.design.is_some() {
         match inp.lp.continuous_traces(t_end, CONTINUOUS_TRACE_STEPS) {
             Ok((s, d)) => {
-                let t = if step { s } else { d };
-                let pts = t.iter().map(|p| (p.t, p.y)).collect();
-                panel
-                    .series
-                    .push(Series::line("continuous design", pts, STYLE_CONTINUOUS));
+                let pts = (if step { s } else { d })
+                    .iter()
+                    .map(|p| (p.t, p.y))
+                    .collect();
+                (panel.series).push(Series::line("continuous design", pts, STYLE_CONTINUOUS));
             }
             Err(e) => notes.push(format!("continuous design not simulated: {e}")),
         }
@@ -1027,28 +1028,17 @@ fn time_panel(
         match inp.lp.sampled_traces(&p, Some(periods)) {
             Ok((s, d)) => {
                 let t = if step { s } else { d };
-                panel.series.extend(trace_series(
-                    &t,
-                    t_end,
-                    &run.label,
-                    run.style,
-                    (i, runs.len()),
-                ));
+                let slot = (i, runs.len());
+                (panel.series).extend(trace_series(&t, t_end, &run.label, run.style, slot));
             }
             Err(e) => notes.push(format!("{}: not simulated: {e}", run.label)),
         }
     }
-    (panel, notes)
-}
-
-/// 1.4 times the longest of `times`, else `fallback`.
-fn span_of(times: &[Option<f64>], fallback: f64) -> f64 {
-    let longest = times.iter().flatten().copied().fold(0.0, f64::max);
-    if longest > 0.0 {
-        1.4 * longest
-    } else {
-        fallback
+    finish(&mut panel);
+    for n in notes {
+        title = format!("{title}; {n}");
     }
+    Figure::new(title, time_axis(t_end)).with_panel(panel)
 }
 
 /// Step response: the continuous design, the sampled loop (nominal
@@ -1062,10 +1052,9 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
     let fail_rate = failing_rate(inp, rec, method);
     let star_eval = inp.lp.sampled(&point_at(inp, method, rec.slowest_rate_hz));
     let fail_eval = inp.lp.sampled(&point_at(inp, method, fail_rate));
-    let fail_assessment = assess(&fail_eval, spec);
     // The f* and failing runs can lie 1 % apart and draw almost the same
     // curve: their labels give the figure that decides between them.
-    let limiting = fail_assessment.limiting;
+    let limiting = assess(&fail_eval, spec).limiting;
     let def = match limiting {
         Some(Limiting::Figure(f)) => Some(f),
         _ => None,
@@ -1081,64 +1070,28 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
     };
     let star_text = format!("{} {}", hz(rec.slowest_rate_hz), star_word(report));
     let runs = [
-        Run {
-            rate: rec.rate_hz,
-            label: format!("{} {}", hz(rec.rate_hz), rate_word(report)),
-            style: STYLE_RECOMMENDED,
-        },
-        Run {
-            rate: rec.slowest_rate_hz,
-            label: match value(&star_eval) {
+        (
+            rec.rate_hz,
+            format!("{} {}", hz(rec.rate_hz), rate_word(report)),
+            STYLE_RECOMMENDED,
+        ),
+        (
+            rec.slowest_rate_hz,
+            match value(&star_eval) {
                 Some(v) => format!("{star_text}: {v}"),
                 None => star_text,
             },
-            style: STYLE_STAR,
-        },
-        Run {
-            rate: fail_rate,
-            label: fail_text,
-            style: STYLE_FAILING,
-        },
-    ];
+            STYLE_STAR,
+        ),
+        (fail_rate, fail_text, STYLE_FAILING),
+    ]
+    .map(|(rate, label, style)| Run { rate, label, style });
     let settle = [
         report.design.as_ref().and_then(|f| f.settling_time_s),
         figs.settling_time_s,
         star_eval.figures.as_ref().and_then(|f| f.settling_time_s),
         spec.max_settling_s,
     ];
-    let t_end = span_of(&settle, figs.horizon_s);
-    let y_label = "plant output y (output units, unit step)";
-    let (mut panel, notes) = time_panel(inp, method, &runs, t_end, true, y_label);
-    // A failing run may diverge: fit the view to the design, the passing
-    // runs and the overshoot limit so they stay readable.
-    let os_limit = spec
-        .max_overshoot_pct
-        .map(|l| figs.y_final * (1.0 + l / 100.0));
-    let fitted =
-        (panel.series.iter()).filter(|s| s.style.0 != STYLE_FAILING && s.draw == Draw::Line);
-    let limit_line = os_limit.map(|v| hline("", v, 0.0, 0.0, 0));
-    if let Some((lo, hi)) = padded_range(fitted.chain(limit_line.iter()), 0.12) {
-        panel.y = panel.y.clone().with_range(lo.min(0.0), hi);
-    }
-    if let (Some(v), Some(l)) = (os_limit, spec.max_overshoot_pct) {
-        let text = format!("max overshoot {} %", sig4(l));
-        let side = if figs.y_final >= 0.0 {
-            Side::Above
-        } else {
-            Side::Below
-        };
-        panel.limits.push(Limit::new(v, side, text));
-    }
-    let band = spec.settling_band_pct / 100.0 * figs.y_final.abs();
-    panel.hbands.push(YBand::new(
-        figs.y_final - band,
-        figs.y_final + band,
-        format!("settling band ±{} %", sig4(spec.settling_band_pct)),
-    ));
-    if let Some(l) = spec.max_settling_s {
-        let text = format!("settling limit {}", seconds(l));
-        panel.vmarks.push(VMark::new(l, text, MarkStyle::Dotted));
-    }
     let plant = match &report.robust {
         Some(rb) => format!(
             "nominal plant (f* and the recommendation hold for all {} variants)",
@@ -1146,16 +1099,41 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
         ),
         None => "nominal plant".to_string(),
     };
-    let mut title = format!(
+    let title = format!(
         "Step response, {}{} at computation delay {}, {plant} (line: output between samples)",
         rec.method,
         hold_words(inp),
         periods(inp.design_delay)
     );
-    for n in notes {
-        title = format!("{title}; {n}");
-    }
-    Some(Figure::new(title, time_axis(t_end)).with_panel(panel))
+    let y_label = "plant output y (output units, unit step)";
+    let spans = (&settle[..], figs.horizon_s);
+    let fig = time_figure(inp, method, &runs, spans, true, y_label, title, |panel| {
+        // A failing run may diverge: fit the view to the design, the
+        // passing runs and the overshoot limit so they stay readable.
+        let os_limit = (spec.max_overshoot_pct).map(|l| figs.y_final * (1.0 + l / 100.0));
+        let fitted =
+            (panel.series.iter()).filter(|s| s.style.0 != STYLE_FAILING && s.draw == Draw::Line);
+        let limit_line = os_limit.map(|v| hline("", v, 0.0, 0.0, 0));
+        if let Some((lo, hi)) = padded_range(fitted.chain(limit_line.iter()), 0.12) {
+            panel.y = panel.y.clone().with_range(lo.min(0.0), hi);
+        }
+        if let (Some(v), Some(l)) = (os_limit, spec.max_overshoot_pct) {
+            let side = if figs.y_final >= 0.0 {
+                Side::Above
+            } else {
+                Side::Below
+            };
+            (panel.limits).push(Limit::new(v, side, format!("max overshoot {} %", sig4(l))));
+        }
+        let band = spec.settling_band_pct / 100.0 * figs.y_final.abs();
+        let text = format!("settling band ±{} %", sig4(spec.settling_band_pct));
+        (panel.hbands).push(YBand::new(figs.y_final - band, figs.y_final + band, text));
+        if let Some(l) = spec.max_settling_s {
+            let text = format!("settling limit {}", seconds(l));
+            panel.vmarks.push(VMark::new(l, text, MarkStyle::Dotted));
+        }
+    });
+    Some(fig)
 }
 
 /// Load-disturbance response at the recommended rate and at f_star, with
@@ -1165,86 +1143,67 @@ fn disturbance(inp: &Inputs) -> Option<Figure> {
     let (rec, method) = inp.rec?;
     let report = inp.pick?;
     let figs = rec.figures.as_ref()?;
+    let spec = &inp.case.spec;
     let star_eval = inp.lp.sampled(&point_at(inp, method, rec.slowest_rate_hz));
     let recovery = [
         report.design.as_ref().and_then(|f| f.recovery_time_s),
         figs.recovery_time_s,
         star_eval.figures.as_ref().and_then(|f| f.recovery_time_s),
-        inp.case.spec.max_recovery_s,
+        spec.max_recovery_s,
     ];
-    let t_end = span_of(&recovery, figs.horizon_s);
     let d = inp.design_delay;
-    let delay = |rate: f64| {
-        format!(
-            "delay {} = {}",
+    let run = |rate: f64, word: &str, style: usize| Run {
+        rate,
+        label: format!(
+            "{} {word} (delay {} = {})",
+            hz(rate),
             periods(d),
-            crate::engineering::seconds(d / rate)
-        )
+            seconds(d / rate)
+        ),
+        style,
     };
     let runs = [
-        Run {
-            rate: rec.rate_hz,
-            label: format!(
-                "{} {} ({})",
-                hz(rec.rate_hz),
-                rate_word(report),
-                delay(rec.rate_hz)
-            ),
-            style: STYLE_RECOMMENDED,
-        },
-        Run {
-            rate: rec.slowest_rate_hz,
-            label: format!(
-                "{} {} ({})",
-                hz(rec.slowest_rate_hz),
-                star_word(report),
-                delay(rec.slowest_rate_hz)
-            ),
-            style: STYLE_STAR,
-        },
+        run(rec.rate_hz, rate_word(report), STYLE_RECOMMENDED),
+        run(rec.slowest_rate_hz, star_word(report), STYLE_STAR),
     ];
-    let y_label = "plant output y (output units, unit load step)";
-    let (mut panel, notes) = time_panel(inp, method, &runs, t_end, false, y_label);
-    // Recovery: |y - y_end| within the band times the peak (docs/figures.md);
-    // the recommended run's own final value is its last point.
-    let end = (panel.series.iter())
-        .find(|s| s.style.0 == STYLE_RECOMMENDED && s.draw == Draw::Line)
-        .and_then(|s| s.points.last().map(|p| p.1));
-    if let Some(y_end) = end.filter(|v| v.is_finite()) {
-        let band = inp.case.spec.settling_band_pct / 100.0 * figs.disturbance_peak;
-        let text = format!(
-            "recovery band ±{} % of the peak ({} {})",
-            sig4(inp.case.spec.settling_band_pct),
-            hz(rec.rate_hz),
-            rate_word(report)
-        );
-        panel
-            .hbands
-            .push(YBand::new(y_end - band, y_end + band, text));
-    }
-    if let Some(t) = figs.recovery_time_s {
-        let text = format!("recovered {}", seconds(t));
-        panel.vmarks.push(VMark::new(t, text, MarkStyle::Dashed));
-    }
-    if let Some(l) = inp.case.spec.max_recovery_s {
-        let text = format!("recovery limit {}", seconds(l));
-        panel.vmarks.push(VMark::new(l, text, MarkStyle::Dotted));
-    }
-    if let Some(l) = limit_of(LoopFigure::DisturbancePeak, &inp.case.spec) {
-        panel.limits.push(Limit {
-            label: format!("{} peak", l.label),
-            ..l
-        });
-    }
-    let mut title = format!(
+    let title = format!(
         "Response to a unit load step at the plant input, {}{}, nominal plant (r = 0)",
         rec.method,
         hold_words(inp)
     );
-    for n in notes {
-        title = format!("{title}; {n}");
-    }
-    Some(Figure::new(title, time_axis(t_end)).with_panel(panel))
+    let y_label = "plant output y (output units, unit load step)";
+    let spans = (&recovery[..], figs.horizon_s);
+    let fig = time_figure(inp, method, &runs, spans, false, y_label, title, |panel| {
+        // Recovery: |y - y_end| within the band times the peak
+        // (docs/figures.md); the recommended run's own final value is its
+        // last point.
+        let end = (panel.series.iter())
+            .find(|s| s.style.0 == STYLE_RECOMMENDED && s.draw == Draw::Line)
+            .and_then(|s| s.points.last().map(|p| p.1));
+        if let Some(y_end) = end.filter(|v| v.is_finite()) {
+            let band = spec.settling_band_pct / 100.0 * figs.disturbance_peak;
+            let text = format!(
+                "recovery band ±{} % of the peak ({} {})",
+                sig4(spec.settling_band_pct),
+                hz(rec.rate_hz),
+                rate_word(report)
+            );
+            (panel.hbands).push(YBand::new(y_end - band, y_end + band, text));
+        }
+        if let Some(t) = figs.recovery_time_s {
+            let text = format!("recovered {}", seconds(t));
+            panel.vmarks.push(VMark::new(t, text, MarkStyle::Dashed));
+        }
+        if let Some(l) = spec.max_recovery_s {
+            let text = format!("recovery limit {}", seconds(l));
+            panel.vmarks.push(VMark::new(l, text, MarkStyle::Dotted));
+        }
+        if let Some(l) = limit_of(LoopFigure::DisturbancePeak, spec) {
+            let label = format!("{} peak", l.label);
+            panel.limits.push(Limit { label, ..l });
+        }
+    });
+    Some(fig)
 }
 
 /// Magnitude and phase of the loop gain at the recommended rate.

@@ -120,11 +120,10 @@ impl Axis {
 
     /// A logarithmic axis fitted to the data.
     pub fn log(label: impl Into<String>) -> Self {
+        let log = true;
         Axis {
-            label: label.into(),
-            log: true,
-            range: None,
-            label_scale: 1.0,
+            log,
+            ..Axis::linear(label)
         }
     }
 
@@ -143,7 +142,7 @@ impl Axis {
 }
 
 /// One panel: a y axis and everything drawn against it.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Default)]
 pub struct Panel {
     pub y: Axis,
     pub series: Vec<Series>,
@@ -162,23 +161,8 @@ pub struct Panel {
     pub caption: String,
 }
 
-impl Default for Panel {
-    fn default() -> Self {
-        Panel {
-            y: Axis::default(),
-            series: Vec::new(),
-            limits: Vec::new(),
-            vmarks: Vec::new(),
-            bands: Vec::new(),
-            hbands: Vec::new(),
-            notes: Vec::new(),
-            caption: String::new(),
-        }
-    }
-}
-
 impl Panel {
-    /// An empty panel with the given y axis and weight 1.
+    /// An empty panel with the given y axis.
     pub fn new(y: Axis) -> Self {
         Panel {
             y,
