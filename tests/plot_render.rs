@@ -5,7 +5,7 @@ use std::path::PathBuf;
 
 use looprate::error::PlotError;
 use looprate::output::plot::{
-    Annotation, Axis, Draw, Figure, Limit, MarkStyle, Panel, Series, Side, VMark, XBand, YBand,
+    Annotation, Axis, Band, Draw, Figure, Limit, MarkStyle, Panel, Series, Side, VMark,
     render_png_bytes, render_rgb,
 };
 
@@ -94,7 +94,7 @@ fn review_figure() -> Figure {
         MarkStyle::Dashed,
     ));
     top.bands
-        .push(XBand::new(700.0, f64::INFINITY, "feasible rates"));
+        .push(Band::new(700.0, f64::INFINITY, "feasible rates"));
     top.notes
         .push(Annotation::new(420.0, 45.0, "Tustin meets 45° at 420 Hz"));
 
@@ -102,7 +102,7 @@ fn review_figure() -> Figure {
     mid.series
         .push(Series::line("step overshoot", overshoot, 2).drawn(Draw::LineAndMarkers));
     mid.limits.push(Limit::new(10.0, Side::Above, "max 10 %"));
-    mid.hbands.push(YBand::new(0.0, 5.0, "target band ±5 %"));
+    mid.hbands.push(Band::new(0.0, 5.0, "target band ±5 %"));
     mid.vmarks.push(VMark::new(850.0, "", MarkStyle::Solid));
 
     let mut bottom = Panel::new(Axis::log("settling time (s)"));
@@ -206,8 +206,8 @@ fn degenerate_figures_do_not_panic() {
         .push(VMark::new(f64::NAN, "nan mark", MarkStyle::Dashed));
     p2.notes.push(Annotation::new(f64::NAN, 1.0, "nowhere"));
     p2.bands
-        .push(XBand::new(f64::NEG_INFINITY, f64::NAN, "odd band"));
-    p2.hbands.push(YBand::new(f64::NAN, f64::INFINITY, ""));
+        .push(Band::new(f64::NEG_INFINITY, f64::NAN, "odd band"));
+    p2.hbands.push(Band::new(f64::NAN, f64::INFINITY, ""));
     let mut p3 = Panel::new(Axis::linear("constant").with_range(3.0, 3.0));
     p3.series
         .push(Series::line("flat", vec![(5.0, 3.0), (5.0, 3.0)], 4));
@@ -295,7 +295,7 @@ fn step_response_figure_renders() {
             k,
         ));
     }
-    p.hbands.push(YBand::new(0.98, 1.02, "±2 % settling band"));
+    p.hbands.push(Band::new(0.98, 1.02, "±2 % settling band"));
     p.limits
         .push(Limit::new(1.25, Side::Above, "overshoot limit 25 %"));
     p.vmarks

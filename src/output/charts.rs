@@ -16,7 +16,7 @@ use std::path::{Path, PathBuf};
 use rayon::prelude::*;
 
 use crate::case::Case;
-use crate::engineering::{periods, seconds, sig4};
+use crate::engineering::{hz, periods, seconds, sig4};
 use crate::error::Error;
 use crate::explore::budget;
 use crate::explore::pick::{PickReport, Recommended, case_methods};
@@ -26,8 +26,8 @@ use crate::model::discretize::Method;
 use crate::model::poly::C64;
 use crate::model::transfer::Controller;
 use crate::output::plot::{
-    Annotation, Axis, Draw, Figure, Limit, MarkStyle, PALETTE_LEN, Panel, Series, Side, VMark,
-    XBand, YBand, render_png_bytes,
+    Annotation, Axis, Band, Draw, Figure, Limit, MarkStyle, PALETTE_LEN, Panel, Series, Side,
+    VMark, render_png_bytes,
 };
 use crate::sampled::continuous::HoldApprox;
 use crate::sampled::evaluate::{Evaluation, Figures, Point, PreparedLoop, Status};
@@ -191,7 +191,7 @@ impl Thinned {
 /// variants) and each format's rounding errors, thinned to the chart's
 /// width ([`Thinned`]), and the counts the captions give (exact, over every
 /// row).
-#[derive(Debug, Clone)]
+#[derive(Debug, Clone, Default)]
 pub struct RateSeries {
     pub method: Option<Method>,
     pub hold: HoldKind,
@@ -271,14 +271,7 @@ impl ChartRows {
                         method: p.method,
                         hold: p.hold,
                         delay: p.delay,
-                        rows: 0,
-                        unstable: 0,
-                        missing: [0; RATE_PANELS.len()],
-                        variant_gaps: 0,
-                        last_infeasible_hz: None,
-                        nominal: Vec::new(),
-                        worst: Vec::new(),
-                        precision: Vec::new(),
+                        ..RateSeries::default()
                     },
                     nominal: vec![Thinned::default(); RATE_PANELS.len()],
                     worst: vec![Thinned::default(); RATE_PANELS.len()],
@@ -482,13 +475,22 @@ pub fn write_charts(out_dir: &Path, input: &ChartInput) -> Result<Vec<Chart>, Er
         path: out_dir.display().to_string(),
         message: e.to_string(),
     })?;
+    write_figures(out_dir, input.case, describe(input))
+}
+
+/// Draw `figures` (file name, figure) with the case's footer note and
+/// write each into `out_dir`, in order.
+pub(crate) fn write_figures(
+    out_dir: &Path,
+    case: &Case,
+    figures: Vec<(&str, Figure)>,
+) -> Result<Vec<Chart>, Error> {
+    let version = env!("CARGO_PKG_VERSION");
     let note = format!(
-        "{} | looprate {} | model-based: confirm on the hardware",
-        input.case.title,
-        env!("CARGO_PKG_VERSION")
+        "{} | looprate {version} | model-based: confirm on the hardware",
+        case.title
     );
-    describe(input)
-        .into_par_iter()
+    (figures.into_par_iter())
         .map(|(name, fig)| {
             let path = out_dir.join(name);
             let png = render_png_bytes(&fig.with_note(note.clone()), &path)?;
@@ -517,10 +519,6 @@ fn time_axis(t_end: f64) -> Axis {
 
 fn rate_axis() -> Axis {
     Axis::log("loop rate (Hz)")
-}
-
-fn hz(v: f64) -> String {
-    crate::engineering::hz(v)
 }
 
 /// The series of one (method, hold) at the design delay.
@@ -732,51 +730,53 @@ fn rate_panel(
     worst: bool,
 ) -> Panel {
     let mut panel = Panel::new(Axis::linear(def.axis_title()));
-    let (mut unstable, mut missing) = (0, 0);
+    let label = |text: String| if named { text } else { String::new() };
     for (k, (name, rows)) in series.iter().enumerate() {
-        let never = rows.unstable == rows.rows;
-        unstable += rows.unstable;
-        missing += rows.missing_of(def);
-        let label = match (named, never) {
-            (false, _) => String::new(),
-            (true, false) => name.clone(),
-            (true, true) => format!("{name} (unstable at every rate)"),
+        let text = match rows.unstable == rows.rows {
+            false => name.clone(),
+            true => format!("{name} (unstable at every rate)"),
         };
-        panel
-            .series
-            .push(Series::line(label, rows.nominal(def).clone(), k).drawn(Draw::LineAndMarkers));
+        let s = Series::line(label(text), rows.nominal(def).clone(), k);
+        panel.series.push(s.drawn(Draw::LineAndMarkers));
     }
     // With plant variants, each method's figure at its worst over them, in
     // the styles after the nominal curves'.
-    let mut variant_gaps = 0;
     for (k, (name, rows)) in series.iter().enumerate().filter(|_| worst) {
-        variant_gaps += rows.variant_gaps;
-        let label = if named {
-            format!("{name}, worst variant")
-        } else {
-            String::new()
-        };
         let style = (series.len() + k) % PALETTE_LEN;
+        let text = label(format!("{name}, worst variant"));
         panel
             .series
-            .push(Series::line(label, rows.worst(def).clone(), style));
+            .push(Series::line(text, rows.worst(def).clone(), style));
     }
-    let total: usize = series.iter().map(|(_, rows)| rows.rows).sum();
-    let mut why = Vec::new();
-    if unstable > 0 {
-        why.push(format!("loop unstable ({unstable}/{total})"));
-    }
-    if missing > 0 {
-        why.push(format!("{} ({missing}/{total})", def.absence_reason()));
-    }
-    if variant_gaps > 0 {
-        why.push(format!("a variant unstable ({variant_gaps} more)"));
-    }
+    let sum = |n: fn(&RateSeries) -> usize| series.iter().map(|(_, rows)| n(rows)).sum::<usize>();
+    let (unstable, total) = (sum(|r| r.unstable), sum(|r| r.rows));
+    let missing: usize = series.iter().map(|(_, rows)| rows.missing_of(def)).sum();
+    let variant_gaps = if worst { sum(|r| r.variant_gaps) } else { 0 };
+    let why: Vec<String> = [
+        (unstable, format!("loop unstable ({unstable}/{total})")),
+        (
+            missing,
+            format!("{} ({missing}/{total})", def.absence_reason()),
+        ),
+        (
+            variant_gaps,
+            format!("a variant unstable ({variant_gaps} more)"),
+        ),
+    ]
+    .into_iter()
+    .filter_map(|(n, text)| (n > 0).then_some(text))
+    .collect();
     if !why.is_empty() {
         panel.caption = format!("gaps: {}", why.join("; "));
     }
     match limit_of(def, spec) {
-        Some(l) => add_limit(&mut panel, l, unit_of(def)),
+        // The view clipped above an upper limit (see [`clip_above`]).
+        Some(l) => {
+            if l.bad_side == Side::Above && l.value > 0.0 {
+                clip_above(&mut panel, CLIP_TIMES_LIMIT * l.value, unit_of(def));
+            }
+            panel.limits.push(l);
+        }
         // Without a limit, Ms is still shown up to a few times the usual
         // bound of 2 (common practice, no source).
         None if def == LoopFigure::SensitivityPeak => {
@@ -784,33 +784,21 @@ fn rate_panel(
         }
         None => {}
     }
-    if def.unit() == Unit::Seconds {
-        // A time that stays under 0.1 s reads in ms (the data stay in s).
-        let top = match panel.y.range {
-            Some((_, hi)) => hi,
-            None => (panel
-                .series
-                .iter()
-                .flat_map(|s| s.points.iter().map(|p| p.1)))
-            .filter(|v| v.is_finite())
-            .fold(0.0, f64::max),
+    // A time that stays under 0.1 s reads in ms (the data stay in s).
+    let values = (panel.series.iter()).flat_map(|s| s.points.iter().map(|p| p.1));
+    let top = (panel.y.range).map_or_else(
+        || values.filter(|v| v.is_finite()).fold(0.0, f64::max),
+        |r| r.1,
+    );
+    if def.unit() == Unit::Seconds && top > 0.0 && top < 0.1 {
+        let label = format!("{} (ms)", def.short_label());
+        panel.y = Axis {
+            label,
+            label_scale: 1e3,
+            ..panel.y
         };
-        if top > 0.0 && top < 0.1 {
-            let range = panel.y.range;
-            panel.y = Axis::linear(format!("{} (ms)", def.short_label())).with_label_scale(1e3);
-            panel.y.range = range;
-        }
     }
     panel
-}
-
-/// A spec limit on a panel, with the view clipped above an upper limit
-/// (see [`clip_above`]).
-fn add_limit(panel: &mut Panel, limit: Limit, unit: &str) {
-    if limit.bad_side == Side::Above && limit.value > 0.0 {
-        clip_above(panel, CLIP_TIMES_LIMIT * limit.value, unit);
-    }
-    panel.limits.push(limit);
 }
 
 /// Near the stability edge an upper-limited figure runs off to huge
@@ -825,7 +813,7 @@ fn clip_above(panel: &mut Panel, top: f64, unit: &str) {
                 .filter(|w| w[1].1.is_finite() && w[1].1 > top)
                 .map(|w| (w[1].0, top))
                 .collect();
-            Series::line("", pts, s.style.0).drawn(Draw::Markers)
+            Series::line("", pts, s.style).drawn(Draw::Markers)
         })
         .filter(|s| !s.points.is_empty())
         .collect();
@@ -838,9 +826,10 @@ fn clip_above(panel: &mut Panel, top: f64, unit: &str) {
         "s" => format!("off scale above {}", seconds(top)),
         _ => format!("off scale above {} {unit}", sig4(top)),
     };
+    let text = text.trim_end();
     panel.caption = match panel.caption.is_empty() {
-        true => text.trim_end().to_string(),
-        false => format!("{}; {}", panel.caption, text.trim_end()),
+        true => text.to_string(),
+        false => format!("{}; {text}", panel.caption),
     };
 }
 
@@ -1112,7 +1101,7 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
         // passing runs and the overshoot limit so they stay readable.
         let os_limit = (spec.max_overshoot_pct).map(|l| figs.y_final * (1.0 + l / 100.0));
         let fitted =
-            (panel.series.iter()).filter(|s| s.style.0 != STYLE_FAILING && s.draw == Draw::Line);
+            (panel.series.iter()).filter(|s| s.style != STYLE_FAILING && s.draw == Draw::Line);
         let limit_line = os_limit.map(|v| hline("", v, 0.0, 0.0, 0));
         if let Some((lo, hi)) = padded_range(fitted.chain(limit_line.iter()), 0.12) {
             panel.y = panel.y.clone().with_range(lo.min(0.0), hi);
@@ -1127,7 +1116,7 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
         }
         let band = spec.settling_band_pct / 100.0 * figs.y_final.abs();
         let text = format!("settling band ±{} %", sig4(spec.settling_band_pct));
-        (panel.hbands).push(YBand::new(figs.y_final - band, figs.y_final + band, text));
+        (panel.hbands).push(Band::new(figs.y_final - band, figs.y_final + band, text));
         if let Some(l) = spec.max_settling_s {
             let text = format!("settling limit {}", seconds(l));
             panel.vmarks.push(VMark::new(l, text, MarkStyle::Dotted));
@@ -1178,7 +1167,7 @@ fn disturbance(inp: &Inputs) -> Option<Figure> {
         // (docs/figures.md); the recommended run's own final value is its
         // last point.
         let end = (panel.series.iter())
-            .find(|s| s.style.0 == STYLE_RECOMMENDED && s.draw == Draw::Line)
+            .find(|s| s.style == STYLE_RECOMMENDED && s.draw == Draw::Line)
             .and_then(|s| s.points.last().map(|p| p.1));
         if let Some(y_end) = end.filter(|v| v.is_finite()) {
             let band = spec.settling_band_pct / 100.0 * figs.disturbance_peak;
@@ -1188,7 +1177,7 @@ fn disturbance(inp: &Inputs) -> Option<Figure> {
                 hz(rec.rate_hz),
                 rate_word(report)
             );
-            (panel.hbands).push(YBand::new(y_end - band, y_end + band, text));
+            (panel.hbands).push(Band::new(y_end - band, y_end + band, text));
         }
         if let Some(t) = figs.recovery_time_s {
             let text = format!("recovered {}", seconds(t));
@@ -1481,7 +1470,7 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
         }
     };
     if let Some(w) = window.filter(|w| !w.empty) {
-        (panel.bands).push(XBand::new(w.low_hz, w.high_hz, "rate window"));
+        (panel.bands).push(Band::new(w.low_hz, w.high_hz, "rate window"));
     }
     if let Some(p) = inp.pick {
         if let Some(r) = &p.recommended {
@@ -1507,7 +1496,7 @@ fn recommended_mark(report: &PickReport, rate_hz: f64) -> VMark {
 }
 
 /// `n` rates from `lo` to `hi`, evenly spaced on a log axis.
-fn log_spaced(lo: f64, hi: f64, n: usize) -> Vec<f64> {
+pub(crate) fn log_spaced(lo: f64, hi: f64, n: usize) -> Vec<f64> {
     (0..n)
         .map(|i| lo * (hi / lo).powf(i as f64 / (n - 1) as f64))
         .collect()

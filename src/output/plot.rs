@@ -151,9 +151,9 @@ pub struct Panel {
     /// Labelled vertical lines (e.g. the chosen rate).
     pub vmarks: Vec<VMark>,
     /// Shaded x intervals (e.g. a feasible rate window).
-    pub bands: Vec<XBand>,
+    pub bands: Vec<Band>,
     /// Shaded y intervals (e.g. a settling band).
-    pub hbands: Vec<YBand>,
+    pub hbands: Vec<Band>,
     /// Text labels pointing at data coordinates.
     pub notes: Vec<Annotation>,
     /// A short line inside the panel, placed off the data (e.g. what the
@@ -179,7 +179,11 @@ pub struct Series {
     /// `(x, y)` points in drawing order. A point with a NaN or infinite
     /// coordinate (or a non-positive one on a log axis) breaks the line.
     pub points: Vec<(f64, f64)>,
-    pub style: SeriesStyle,
+    /// An index into the built-in palette (taken modulo [`PALETTE_LEN`]).
+    /// Each entry pairs a colour with its own dash pattern and marker
+    /// shape, so series stay distinguishable in greyscale and for
+    /// colour-blind readers.
+    pub style: usize,
     pub draw: Draw,
 }
 
@@ -189,7 +193,7 @@ impl Series {
         Series {
             label: label.into(),
             points,
-            style: SeriesStyle(style),
+            style,
             draw: Draw::Line,
         }
     }
@@ -200,13 +204,6 @@ impl Series {
         self
     }
 }
-
-/// An index into the built-in palette (taken modulo [`PALETTE_LEN`]).
-/// Each entry pairs a colour with its own dash pattern and marker shape,
-/// so series stay distinguishable in greyscale and for colour-blind
-/// readers.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
-pub struct SeriesStyle(pub usize);
 
 /// How a series' points are drawn.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
@@ -275,19 +272,14 @@ impl VMark {
     }
 }
 
-/// A shaded interval of x ([`XBand`]) or y ([`YBand`]); an infinite end
-/// runs to the plot edge.
+/// A shaded interval of x (`Panel::bands`) or y (`Panel::hbands`); an
+/// infinite end runs to the plot edge.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Band {
     pub from: f64,
     pub to: f64,
     pub label: String,
 }
-
-/// A shaded x interval.
-pub type XBand = Band;
-/// A shaded y interval.
-pub type YBand = Band;
 
 impl Band {
     /// A shaded interval from `from` to `to`.

@@ -328,12 +328,19 @@ fn marker_outline(k: Marker, r: f64) -> Vec<(i32, i32)> {
         .collect()
 }
 
-/// How series `style` draws at line width `lw`: its colour, stroke, dash
-/// and gap in pixels (round caps add half a width at each end of a dash)
-/// and marker.
-fn pen(style: usize, m: &Metrics) -> (RGBAColor, ShapeStyle, (i32, i32), Vec<(i32, i32)>) {
+/// How a series draws: its colour, stroke, dash and gap in pixels (round
+/// caps add half a width at each end of a dash) and marker outline.
+struct Ink {
+    color: RGBAColor,
+    stroke: ShapeStyle,
+    dash: (i32, i32),
+    marker: Vec<(i32, i32)>,
+}
+
+/// The ink of palette entry `style` at the figure's line width.
+fn ink(style: usize, m: &Metrics) -> Ink {
     let pen = pen_of(style);
-    let ink = color(pen.color, 1.0);
+    let color = color(pen.color, 1.0);
     let dash = match pen.dash {
         Some((on, off)) => (
             (((on - 1.0) * m.lw).round() as i32).max(1),
@@ -341,8 +348,12 @@ fn pen(style: usize, m: &Metrics) -> (RGBAColor, ShapeStyle, (i32, i32), Vec<(i3
         ),
         None => (1_000_000, 1),
     };
-    let shape = marker_outline(pen.marker, m.base * 0.24);
-    (ink, ink.stroke_width(m.lw as u32), dash, shape)
+    Ink {
+        color,
+        stroke: color.stroke_width(m.lw as u32),
+        dash,
+        marker: marker_outline(pen.marker, m.base * 0.24),
+    }
 }
 
 /// A label still to be placed: candidate spots in pixels, best first, in
@@ -658,10 +669,10 @@ fn draw_extras(
         if !ys.contains(l.value) {
             continue;
         }
-        let ink = color(style::LIMIT, 1.0).stroke_width(2);
+        let stroke = color(style::LIMIT, 1.0).stroke_width(2);
         area.draw(&PathElement::new(
             vec![shift((plot.x0, y)), shift((plot.x1, y))],
-            ink,
+            stroke,
         ))
         .map_err(err)?;
         let mid_x = (plot.x0 + plot.x1) / 2.0;
@@ -740,26 +751,23 @@ fn draw_series(
 ) -> Result<(), PlotError> {
     let r = m.base * 0.24;
     for s in &p.series {
-        let (ink, stroke, (on, off), shape) = pen(s.style.0, m);
+        let pen = ink(s.style, m);
         let runs = runs(&s.points, xs, ys);
-        if s.draw != Draw::Markers {
-            for run in &runs {
-                chart
-                    .draw_series(DashedLineSeries::new(run.clone(), on, off, stroke))
-                    .map_err(err)?;
-            }
+        let (on, off) = pen.dash;
+        for run in runs.iter().filter(|_| s.draw != Draw::Markers) {
+            let line = DashedLineSeries::new(run.clone(), on, off, pen.stroke);
+            chart.draw_series(line).map_err(err)?;
         }
         if s.draw == Draw::Line {
             continue;
         }
         // With a line, markers only identify the series: at least 10
         // radii apart, staggered by series; without one every point.
-        let spacing = if s.draw == Draw::Markers {
-            0.0
-        } else {
-            10.0 * r
+        let spacing = match s.draw {
+            Draw::Markers => 0.0,
+            _ => 10.0 * r,
         };
-        let mut travelled = spacing * (s.style.0 % 4) as f64 / 4.0;
+        let mut travelled = spacing * (s.style % 4) as f64 / 4.0;
         let mut kept = Vec::new();
         for run in &runs {
             let mut prev: Option<(i32, i32)> = None;
@@ -776,7 +784,7 @@ fn draw_series(
             }
         }
         let marks = (kept.into_iter())
-            .map(|q| EmptyElement::at(q) + Polygon::new(shape.clone(), ink.filled()));
+            .map(|q| EmptyElement::at(q) + Polygon::new(pen.marker.clone(), pen.color.filled()));
         chart.draw_series(marks).map_err(err)?;
     }
     Ok(())
@@ -845,7 +853,12 @@ fn draw_legend(
     let empty = || std::iter::empty::<Circle<(f64, f64), i32>>();
     for (i, lines) in legend {
         let s = &p.series[*i];
-        let (ink, stroke, (on, off), shape) = pen(s.style.0, m);
+        let Ink {
+            color,
+            stroke,
+            dash,
+            marker,
+        } = ink(s.style, m);
         let sw = sample_w as i32;
         let seg = match s.draw {
             Draw::Markers => vec![],
@@ -853,13 +866,13 @@ fn draw_legend(
         };
         let dot: Vec<(i32, i32)> = match s.draw {
             Draw::Line => vec![],
-            _ => shape.iter().map(|q| (q.0 + sw / 2, q.1)).collect(),
+            _ => marker.iter().map(|q| (q.0 + sw / 2, q.1)).collect(),
         };
         let anno = chart.draw_series(empty()).map_err(err)?;
         anno.label(lines[0].clone()).legend(move |(x, y)| {
             EmptyElement::at((x, y))
-                + DashedPathElement::new(seg.clone(), on.min(sw), off, stroke)
-                + Polygon::new(dot.clone(), ink.filled())
+                + DashedPathElement::new(seg.clone(), dash.0.min(sw), dash.1, stroke)
+                + Polygon::new(dot.clone(), color.filled())
         });
         for more in &lines[1..] {
             chart.draw_series(empty()).map_err(err)?.label(more.clone());
