@@ -505,12 +505,10 @@ pub(crate) fn write_figures(
 /// The time axis of a response over `[0, t_end]` s: labelled in ms or µs
 /// when the whole span is below 0.1 s or 0.1 ms (the data stay in s).
 fn time_axis(t_end: f64) -> Axis {
-    let (label, scale) = if t_end < 1e-4 {
-        ("time (µs)", 1e6)
-    } else if t_end < 0.1 {
-        ("time (ms)", 1e3)
-    } else {
-        ("time (s)", 1.0)
+    let (label, scale) = match t_end {
+        t if t < 1e-4 => ("time (µs)", 1e6),
+        t if t < 0.1 => ("time (ms)", 1e3),
+        _ => ("time (s)", 1.0),
     };
     Axis::linear(label)
         .with_range(0.0, t_end)
@@ -528,13 +526,9 @@ fn rows_of<'a>(inp: &'a Inputs, m: Option<Method>, h: HoldKind) -> Option<&'a Ra
 
 /// The methods of the sweep at the design delay, in case order.
 fn design_series<'a>(inp: &'a Inputs) -> Vec<(String, &'a RateSeries)> {
+    let hold = design_hold(inp);
     (case_methods(inp.case).into_iter())
-        .filter_map(|m| {
-            Some((
-                method_label(m).to_string(),
-                rows_of(inp, m, design_hold(inp))?,
-            ))
-        })
+        .filter_map(|m| Some((method_label(m).to_string(), rows_of(inp, m, hold)?)))
         .collect()
 }
 
@@ -569,18 +563,17 @@ fn robust_f_star(report: &PickReport, method: &str) -> Option<f64> {
         .and_then(|m| m.rate.slowest_rate_hz)
 }
 
-/// The hold kind the charts of methods show: the recommended one, else
-/// the first the case lists.
 /// ` with a first-order hold` when the case lists more than one hold
 /// kind (the chart must say which it shows), else nothing.
 fn hold_words(inp: &Inputs) -> String {
-    if inp.case.holds.len() > 1 {
-        format!(" with a {} hold", design_hold(inp).name())
-    } else {
-        String::new()
+    match inp.case.holds.len() > 1 {
+        true => format!(" with a {} hold", design_hold(inp).name()),
+        false => String::new(),
     }
 }
 
+/// The hold kind the charts of methods show: the recommended one, else
+/// the first the case lists.
 fn design_hold(inp: &Inputs) -> HoldKind {
     inp.rec
         .map(|(r, _)| r.hold)
@@ -682,15 +675,10 @@ fn trace_series(
     let shown = || trace.iter().filter(|p| p.t <= t_end * (1.0 + 1e-12));
     let samples: Points = shown().filter(|p| p.sample).map(|p| (p.t, p.y)).collect();
     let (run, runs) = (slot.0, slot.1.max(1));
-    let stride = samples
-        .len()
-        .div_ceil(MAX_SAMPLE_MARKERS)
-        .max(if runs > 1 { 2 } else { 1 });
-    let offset = run * stride / runs;
+    let stride = (samples.len().div_ceil(MAX_SAMPLE_MARKERS)).max(1 + usize::from(runs > 1));
     let marks: Points = samples
-        .iter()
-        .copied()
-        .skip(offset)
+        .into_iter()
+        .skip(run * stride / runs)
         .step_by(stride)
         .collect();
     let mark_label = match stride {
