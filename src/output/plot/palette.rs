@@ -44,18 +44,48 @@ pub(crate) fn encode_indexed(width: u32, height: u32, rgb: &[u8]) -> Result<Vec<
 
 /// The palette (most frequent colours first) and each pixel's index.
 fn quantize(rgb: &[u8]) -> (Vec<[u8; 3]>, Vec<u8>) {
-    let pixels = || rgb.chunks_exact(3).map(|p| [p[0], p[1], p[2]]);
+    // Charts are mostly runs of one colour: count each run with one
+    // lookup rather than one per pixel.
     let mut counts: HashMap<[u8; 3], u64> = HashMap::new();
-    pixels().for_each(|c| *counts.entry(c).or_insert(0) += 1);
+    let mut run: Option<([u8; 3], u64)> = None;
+    for p in rgb.chunks_exact(3) {
+        let c = [p[0], p[1], p[2]];
+        match &mut run {
+            Some((rc, n)) if *rc == c => *n += 1,
+            _ => {
+                if let Some((rc, n)) = run {
+                    *counts.entry(rc).or_insert(0) += n;
+                }
+                run = Some((c, 1));
+            }
+        }
+    }
+    if let Some((rc, n)) = run {
+        *counts.entry(rc).or_insert(0) += n;
+    }
     let mut by_count: Vec<([u8; 3], u64)> = counts.into_iter().collect();
     // Ties broken by the colour itself, so the output is deterministic.
     by_count.sort_by(|a, b| b.1.cmp(&a.1).then(a.0.cmp(&b.0)));
     let palette: Vec<[u8; 3]> = by_count.iter().take(PALETTE_MAX).map(|c| c.0).collect();
-    let mut lookup: HashMap<[u8; 3], u8> = (palette.iter().enumerate())
+    let mut lookup: HashMap<[u8; 3], u8> = palette
+        .iter()
+        .enumerate()
         .map(|(i, c)| (*c, i as u8))
         .collect();
-    let index = pixels()
-        .map(|c| *lookup.entry(c).or_insert_with(|| nearest(&palette, c)))
+    let mut last: Option<([u8; 3], u8)> = None;
+    let index = rgb
+        .chunks_exact(3)
+        .map(|p| {
+            let c = [p[0], p[1], p[2]];
+            match last {
+                Some((lc, i)) if lc == c => i,
+                _ => {
+                    let i = *lookup.entry(c).or_insert_with(|| nearest(&palette, c));
+                    last = Some((c, i));
+                    i
+                }
+            }
+        })
         .collect();
     (palette, index)
 }
