@@ -210,7 +210,7 @@ fn with_plant_variants_the_worst_curves_and_the_robust_f_star_are_drawn() {
             .find(|s| s.label == format!("{method}, worst variant"))
             .unwrap_or_else(|| panic!("no worst-variant curve for {method}"));
         // Its own style, after the nominal curves'.
-        assert_eq!(s.style.0, 2 + k);
+        assert_eq!(s.style, 2 + k);
         let rows: Vec<_> = (d.picked.rows.iter())
             .filter(|r| r.point.method.map(|m| m.name()) == Some(*method))
             .collect();

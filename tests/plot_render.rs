@@ -5,7 +5,7 @@ use std::path::PathBuf;
 
 use looprate::error::PlotError;
 use looprate::output::plot::{
-    Annotation, Axis, Draw, Figure, Limit, MarkStyle, Panel, Series, Side, VMark, XBand, YBand,
+    Annotation, Axis, Band, Draw, Figure, Limit, MarkStyle, Panel, Series, Side, VMark,
     render_png_bytes, render_rgb,
 };
 
@@ -94,16 +94,15 @@ fn review_figure() -> Figure {
         MarkStyle::Dashed,
     ));
     top.bands
-        .push(XBand::new(700.0, f64::INFINITY, "feasible rates"));
+        .push(Band::new(700.0, f64::INFINITY, "feasible rates"));
     top.notes
         .push(Annotation::new(420.0, 45.0, "Tustin meets 45° at 420 Hz"));
-    top.height_weight = 1.4;
 
     let mut mid = Panel::new(Axis::linear("overshoot (%)"));
     mid.series
         .push(Series::line("step overshoot", overshoot, 2).drawn(Draw::LineAndMarkers));
     mid.limits.push(Limit::new(10.0, Side::Above, "max 10 %"));
-    mid.hbands.push(YBand::new(0.0, 5.0, "target band ±5 %"));
+    mid.hbands.push(Band::new(0.0, 5.0, "target band ±5 %"));
     mid.vmarks.push(VMark::new(850.0, "", MarkStyle::Solid));
 
     let mut bottom = Panel::new(Axis::log("settling time (s)"));
@@ -112,7 +111,7 @@ fn review_figure() -> Figure {
         .push(Series::line("2 % settling", settle, 3).drawn(Draw::Markers));
     bottom
         .series
-        .push(Series::line("CPU load (%)", cost, 4).drawn(Draw::Steps));
+        .push(Series::line("CPU load (%)", cost, 4).drawn(Draw::LineAndMarkers));
     bottom
         .series
         .push(Series::line("", vec![(20.0, 0.5), (9000.0, 0.5)], 5));
@@ -194,7 +193,7 @@ fn degenerate_figures_do_not_panic() {
     p1.series.push(Series::line("empty", vec![], 0));
     p1.series.push(Series::line("all NaN", nan.clone(), 1));
     p1.series
-        .push(Series::line("infinite", inf, 2).drawn(Draw::Steps));
+        .push(Series::line("infinite", inf, 2).drawn(Draw::LineAndMarkers));
     let mut p2 = Panel::new(Axis::log("log of nothing"));
     p2.series.push(Series::line(
         "non-positive",
@@ -207,13 +206,11 @@ fn degenerate_figures_do_not_panic() {
         .push(VMark::new(f64::NAN, "nan mark", MarkStyle::Dashed));
     p2.notes.push(Annotation::new(f64::NAN, 1.0, "nowhere"));
     p2.bands
-        .push(XBand::new(f64::NEG_INFINITY, f64::NAN, "odd band"));
-    p2.hbands.push(YBand::new(f64::NAN, f64::INFINITY, ""));
-    p2.height_weight = f64::NAN;
+        .push(Band::new(f64::NEG_INFINITY, f64::NAN, "odd band"));
+    p2.hbands.push(Band::new(f64::NAN, f64::INFINITY, ""));
     let mut p3 = Panel::new(Axis::linear("constant").with_range(3.0, 3.0));
     p3.series
         .push(Series::line("flat", vec![(5.0, 3.0), (5.0, 3.0)], 4));
-    p3.height_weight = -2.0;
     let fig = Figure::new("", Axis::log("x").with_range(5.0, 5.0))
         .with_panel(p1)
         .with_panel(p2)
@@ -257,7 +254,7 @@ fn degenerate_figures_do_not_panic() {
 }
 
 /// A time-domain figure on linear axes: a step response with a settling
-/// band, sampled outputs as staircases, and more series than the
+/// band, sampled outputs with markers, and more series than the
 /// palette has entries (the legend must cope: long labels wrap, never cut).
 #[test]
 fn step_response_figure_renders() {
@@ -287,7 +284,7 @@ fn step_response_figure_renders() {
                 pts,
                 k + 1,
             )
-            .drawn(Draw::Steps),
+            .drawn(Draw::LineAndMarkers),
         );
     }
     for k in 4..10 {
@@ -298,7 +295,7 @@ fn step_response_figure_renders() {
             k,
         ));
     }
-    p.hbands.push(YBand::new(0.98, 1.02, "±2 % settling band"));
+    p.hbands.push(Band::new(0.98, 1.02, "±2 % settling band"));
     p.limits
         .push(Limit::new(1.25, Side::Above, "overshoot limit 25 %"));
     p.vmarks
@@ -315,12 +312,11 @@ fn step_response_figure_renders() {
                 .collect(),
             0,
         )
-        .drawn(Draw::Steps),
+        .drawn(Draw::LineAndMarkers),
     );
     u.limits.push(Limit::new(5.0, Side::Above, "actuator +5 V"));
     u.limits
         .push(Limit::new(-5.0, Side::Below, "actuator −5 V"));
-    u.height_weight = 0.6;
     let fig = Figure::new("Step response at candidate rates", Axis::linear("time (s)"))
         .with_panel(p)
         .with_panel(u);

@@ -16,9 +16,10 @@ use crate::engineering;
 use crate::engineering::sig4;
 use crate::error::Error;
 use crate::explore::cascade::{CascadePick, CascadeRow, SeriesNames};
-use crate::output::charts::Chart;
-use crate::output::plot::{Axis, Draw, Figure, Limit, Panel, Series, Side, render_png_bytes};
+use crate::output::charts::{Chart, log_spaced, write_figures};
+use crate::output::plot::{Axis, Draw, Figure, Limit, Panel, Series, Side};
 use crate::sampled::cascade::evaluate::PreparedCascade;
+use crate::sampled::evaluate::{Figures, Status};
 
 /// File names of the cascade's charts.
 pub const VS_RATIO: &str = "cascade-vs-ratio.png";
@@ -50,23 +51,12 @@ pub fn write_cascade_charts(
     rows: &[CascadeRow],
     pick: &CascadePick,
 ) -> Result<Vec<Chart>, Error> {
-    let note = format!(
-        "{} | looprate {} | model-based: confirm on the hardware",
-        case.title,
-        env!("CARGO_PKG_VERSION")
-    );
-    let mut out = Vec::new();
-    for (name, fig) in [
+    let figures = [
         (VS_RATIO, vs_ratio(case, pc, rows, pick)),
         (CPU_MAP, cpu_map(case, rows, pick)),
-    ] {
-        let Some(fig) = fig else { continue };
-        let path = out_dir.join(name);
-        let png = render_png_bytes(&fig.with_note(note.clone()), &path)?;
-        crate::output::writer::write_atomic(&path, &png)?;
-        out.push(Chart { path, png });
-    }
-    Ok(out)
+    ];
+    let figures = (figures.into_iter()).filter_map(|(name, f)| Some((name, f?)));
+    write_figures(out_dir, case, figures.collect())
 }
 
 /// Outer figures against the ratio at a few inner rates. Pairs the search
@@ -82,92 +72,76 @@ fn vs_ratio(
     // Inner rates where the inner loop is stable (elsewhere the outer loop
     // has no figures), evenly spread, the chosen one in place of its
     // nearest neighbour.
-    let mut rates: Vec<f64> = Vec::new();
-    for r in &series {
-        if r.inner.status == crate::sampled::evaluate::Status::Ok
-            && !rates.contains(&r.point.inner.rate_hz)
-        {
-            rates.push(r.point.inner.rate_hz);
-        }
-    }
+    let mut rates: Vec<f64> = (series.iter())
+        .filter(|r| r.inner.status == Status::Ok)
+        .map(|r| r.point.inner.rate_hz)
+        .collect();
     rates.sort_by(f64::total_cmp);
-    if rates.is_empty() {
-        return None;
-    }
+    rates.dedup();
     let count = MAX_RATE_SERIES.min(rates.len());
+    let last = rates.len().checked_sub(1)?;
     let mut picked: Vec<f64> = (0..count)
         .map(|i| {
-            if count == 1 {
-                rates[0]
+            rates[if count == 1 {
+                0
             } else {
-                rates[i * (rates.len() - 1) / (count - 1)]
-            }
+                i * last / (count - 1)
+            }]
         })
         .collect();
     if let Some(c) = &pick.chosen
         && !picked.contains(&c.inner_rate_hz)
     {
+        let dist = |f: f64| (f.ln() - c.inner_rate_hz.ln()).abs();
         let nearest = (0..picked.len())
-            .min_by(|&a, &b| {
-                (picked[a].ln() - c.inner_rate_hz.ln())
-                    .abs()
-                    .total_cmp(&(picked[b].ln() - c.inner_rate_hz.ln()).abs())
-            })
+            .min_by(|&a, &b| dist(picked[a]).total_cmp(&dist(picked[b])))
             .unwrap_or(0);
         picked[nearest] = c.inner_rate_hz;
     }
     picked.sort_by(f64::total_cmp);
     picked.dedup();
-    let mut pm = Panel::new(Axis::linear("outer phase margin (deg)"));
-    let mut os = Panel::new(Axis::linear("outer overshoot (%)"));
-    let mut ts = Panel::new(Axis::log("outer settling time (s)"));
+    let spec = &outer.spec;
+    let limit =
+        |v: Option<f64>, side, text: fn(f64) -> String| v.map(|l| Limit::new(l, side, text(l)));
+    type Get = fn(&Figures) -> Option<f64>;
+    let figures: [(Axis, Get); 3] = [
+        (Axis::linear("outer phase margin (deg)"), |f| {
+            f.phase_margin_deg
+        }),
+        (Axis::linear("outer overshoot (%)"), |f| f.overshoot_pct),
+        (Axis::log("outer settling time (s)"), |f| f.settling_time_s),
+    ];
+    let mut panels = figures.map(|(y, get)| (Panel::new(y), get));
+    let limits = [
+        limit(spec.min_phase_margin_deg, Side::Below, |l| {
+            format!("min {} deg", sig4(l))
+        }),
+        limit(spec.max_overshoot_pct, Side::Above, |l| {
+            format!("max {} %", sig4(l))
+        }),
+        limit(spec.max_settling_s, Side::Above, |l| {
+            format!("max {}", engineering::seconds(l))
+        }),
+    ];
     for (k, &f) in picked.iter().enumerate() {
-        let mut points: Vec<(f64, f64, f64, f64)> = Vec::new();
+        let mut figures: Vec<(f64, Figures)> = Vec::new();
         for r in series.iter().filter(|r| r.point.inner.rate_hz == f) {
             let e = match &r.outer {
                 Some(e) if e.figures.is_some() => e.clone(),
                 Some(_) => continue,
                 None => pc.evaluate_outer(&r.point, false),
             };
-            if let Some(fig) = &e.figures {
-                points.push((
-                    r.point.ratio as f64,
-                    fig.phase_margin_deg.unwrap_or(f64::NAN),
-                    fig.overshoot_pct.unwrap_or(f64::NAN),
-                    fig.settling_time_s.unwrap_or(f64::NAN),
-                ));
-            }
+            figures.extend(e.figures.map(|fig| (r.point.ratio as f64, fig)));
         }
-        points.sort_by(|a, b| a.0.total_cmp(&b.0));
+        figures.sort_by(|a, b| a.0.total_cmp(&b.0));
         let label = format!("inner {}", engineering::hz(f));
-        let draw = |sel: fn(&(f64, f64, f64, f64)) -> f64| -> Vec<(f64, f64)> {
-            points
-                .iter()
-                .map(|p| (p.0, sel(p)))
-                .filter(|p| p.1.is_finite())
-                .collect()
-        };
-        pm.series
-            .push(Series::line(label.clone(), draw(|p| p.1), k).drawn(Draw::LineAndMarkers));
-        os.series
-            .push(Series::line(label.clone(), draw(|p| p.2), k).drawn(Draw::LineAndMarkers));
-        ts.series
-            .push(Series::line(label, draw(|p| p.3), k).drawn(Draw::LineAndMarkers));
-    }
-    if let Some(l) = outer.spec.min_phase_margin_deg {
-        pm.limits
-            .push(Limit::new(l, Side::Below, format!("min {} deg", sig4(l))));
-    }
-    if let Some(l) = outer.spec.max_overshoot_pct {
-        os.limits
-            .push(Limit::new(l, Side::Above, format!("max {} %", sig4(l))));
-    }
-    if let Some(l) = outer.spec.max_settling_s {
-        ts.limits.push(Limit::new(
-            l,
-            Side::Above,
-            format!("max {}", engineering::seconds(l)),
-        ));
+        for (panel, get) in &mut panels {
+            let pts = (figures.iter())
+                .map(|(n, fig)| (*n, get(fig).unwrap_or(f64::NAN)))
+                .filter(|p| p.1.is_finite());
+            let s = Series::line(label.clone(), pts.collect(), k);
+            panel.series.push(s.drawn(Draw::LineAndMarkers));
+        }
     }
     let title = match &pick.chosen {
         Some(c) => format!(
@@ -179,12 +153,12 @@ fn vs_ratio(
             "Outer loop against the ratio (outer rate = inner rate / ratio); no pair chosen".into()
         }
     };
-    Some(
-        Figure::new(title, Axis::log("ratio N (inner ticks per outer update)"))
-            .with_panel(pm)
-            .with_panel(os)
-            .with_panel(ts),
-    )
+    let mut fig = Figure::new(title, Axis::log("ratio N (inner ticks per outer update)"));
+    for ((mut panel, _), limit) in panels.into_iter().zip(limits) {
+        panel.limits.extend(limit);
+        fig = fig.with_panel(panel);
+    }
+    Some(fig)
 }
 
 /// Every pair on inner rate x ratio, with lines of equal CPU load.
@@ -194,102 +168,72 @@ fn cpu_map(case: &Case, rows: &[CascadeRow], pick: &CascadePick) -> Option<Figur
         return None;
     }
     let mut panel = Panel::new(Axis::log("ratio N"));
-    let pass: Vec<(f64, f64)> = series
-        .iter()
-        .filter(|r| r.passes())
-        .map(|r| (r.point.inner.rate_hz, r.point.ratio as f64))
-        .collect();
-    let fail: Vec<(f64, f64)> = series
-        .iter()
-        .filter(|r| r.outer_verdict.is_some() && !r.passes())
-        .map(|r| (r.point.inner.rate_hz, r.point.ratio as f64))
-        .collect();
-    let skipped = |inner_fails: bool| -> Vec<(f64, f64)> {
-        series
-            .iter()
-            .filter(|r| r.outer_verdict.is_none() && r.inner_verdict.feasible != inner_fails)
+    // Every pair by its verdict; the last two kinds only when present.
+    type Keep = fn(&CascadeRow) -> bool;
+    let kinds: [(&str, usize, Keep); 4] = [
+        ("meets both specs", 0, |r| r.passes()),
+        ("fails the outer spec", 1, |r| {
+            r.outer_verdict.is_some() && !r.passes()
+        }),
+        ("below the largest passing ratio (not evaluated)", 2, |r| {
+            r.outer_verdict.is_none() && r.inner_verdict.feasible
+        }),
+        ("inner loop fails its spec", 5, |r| {
+            r.outer_verdict.is_none() && !r.inner_verdict.feasible
+        }),
+    ];
+    for (i, (label, style, keep)) in kinds.into_iter().enumerate() {
+        let pts: Vec<(f64, f64)> = (series.iter())
+            .filter(|r| keep(r))
             .map(|r| (r.point.inner.rate_hz, r.point.ratio as f64))
-            .collect()
-    };
-    panel
-        .series
-        .push(Series::line("meets both specs", pass, 0).drawn(Draw::Markers));
-    panel
-        .series
-        .push(Series::line("fails the outer spec", fail, 1).drawn(Draw::Markers));
-    for (label, pts, style) in [
-        (
-            "below the largest passing ratio (not evaluated)",
-            skipped(false),
-            2,
-        ),
-        ("inner loop fails its spec", skipped(true), 5),
-    ] {
-        if !pts.is_empty() {
-            panel
-                .series
-                .push(Series::line(label, pts, style).drawn(Draw::Markers));
+            .collect();
+        if i < 2 || !pts.is_empty() {
+            (panel.series).push(Series::line(label, pts, style).drawn(Draw::Markers));
         }
     }
     if let Some(c) = &pick.chosen {
-        panel.series.push(
-            Series::line(
-                format!(
-                    "chosen ({})",
-                    c.cost
-                        .total_load_pct
-                        .map_or_else(|| "no budget".into(), |l| format!("{} % CPU", sig4(l)))
-                ),
-                vec![(c.inner_rate_hz, c.ratio as f64)],
-                3,
-            )
-            .drawn(Draw::Markers),
+        let load =
+            (c.cost.total_load_pct).map_or("no budget".into(), |l| format!("{} % CPU", sig4(l)));
+        let chosen = Series::line(
+            format!("chosen ({load})"),
+            vec![(c.inner_rate_hz, c.ratio as f64)],
+            3,
         );
+        panel.series.push(chosen.drawn(Draw::Markers));
     }
     // Lines of equal load: N = co f / (L cpu - ci f), for the cycles of
-    // the chosen (or first) pair.
-    let cost = pick
-        .chosen
-        .as_ref()
-        .map(|c| c.cost)
-        .unwrap_or(series[0].cost);
-    let ratios: Vec<f64> = series.iter().map(|r| r.point.ratio as f64).collect();
-    let n_max = ratios.iter().copied().fold(1.0, f64::max);
-    let rates: Vec<f64> = series.iter().map(|r| r.point.inner.rate_hz).collect();
+    // the chosen (or first) pair, only where a ratio exists (from 1 up to
+    // the largest one listed).
+    let cost = pick.chosen.as_ref().map_or(series[0].cost, |c| c.cost);
+    let n_max = (series.iter())
+        .map(|r| r.point.ratio as f64)
+        .fold(1.0, f64::max);
+    let rates = || series.iter().map(|r| r.point.inner.rate_hz);
     let (f_lo, f_hi) = (
-        rates.iter().copied().fold(f64::INFINITY, f64::min),
-        rates.iter().copied().fold(0.0, f64::max),
+        rates().fold(f64::INFINITY, f64::min),
+        rates().fold(0.0, f64::max),
     );
     if let (Some(b), Some(ci), Some(co)) =
         (case.budget.as_ref(), cost.inner_cycles, cost.outer_cycles)
         && f_hi > f_lo
     {
-        let mut levels = vec![b.max_load_pct];
-        for l in [10.0, 25.0, 50.0, 75.0] {
-            if (l - b.max_load_pct).abs() > 2.0 && l < 100.0 {
-                levels.push(l);
-            }
-        }
+        let others = [10.0, 25.0, 50.0, 75.0].into_iter();
+        let mut levels: Vec<f64> = (others.filter(|l| (l - b.max_load_pct).abs() > 2.0))
+            .chain([b.max_load_pct])
+            .collect();
         levels.sort_by(f64::total_cmp);
         for (k, l) in levels.into_iter().enumerate() {
-            let k = k + 6;
-            let pts: Vec<(f64, f64)> = (0..200)
-                .map(|i| f_lo * (f_hi / f_lo).powf(i as f64 / 199.0))
+            let pts: Vec<(f64, f64)> = (log_spaced(f_lo, f_hi, 200).into_iter())
                 .filter_map(|f| {
                     let spare = l / 100.0 * b.cpu_hz - ci * f;
                     (spare > 0.0).then(|| (f, co * f / spare))
                 })
-                // Only where a ratio exists: whole numbers from 1 up to
-                // the largest one listed.
                 .filter(|p| p.1 >= 1.0 && p.1 <= n_max)
                 .collect();
+            let limit = if l == b.max_load_pct { " (limit)" } else { "" };
             if pts.len() >= 2 {
-                let label = if l == b.max_load_pct {
-                    format!("{} % CPU (limit)", engineering::sig4(l))
-                } else {
-                    format!("{} % CPU", engineering::sig4(l))
-                };
-                panel.series.push(Series::line(label, pts, k));
+                let label = format!("{} % CPU{limit}", sig4(l));
+                panel.series.push(Series::line(label, pts, k + 6));
             }
         }
     }

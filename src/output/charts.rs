@@ -16,7 +16,7 @@ use std::path::{Path, PathBuf};
 use rayon::prelude::*;
 
 use crate::case::Case;
-use crate::engineering::{periods, seconds, sig4};
+use crate::engineering::{hz, periods, seconds, sig4};
 use crate::error::Error;
 use crate::explore::budget;
 use crate::explore::pick::{PickReport, Recommended, case_methods};
@@ -26,8 +26,8 @@ use crate::model::discretize::Method;
 use crate::model::poly::C64;
 use crate::model::transfer::Controller;
 use crate::output::plot::{
-    Annotation, Axis, Draw, Figure, Limit, MarkStyle, PALETTE_LEN, Panel, Series, Side, VMark,
-    XBand, YBand, render_png_bytes,
+    Annotation, Axis, Band, Draw, Figure, Limit, MarkStyle, PALETTE_LEN, Panel, Series, Side,
+    VMark, render_png_bytes,
 };
 use crate::sampled::continuous::HoldApprox;
 use crate::sampled::evaluate::{Evaluation, Figures, Point, PreparedLoop, Status};
@@ -191,7 +191,7 @@ impl Thinned {
 /// variants) and each format's rounding errors, thinned to the chart's
 /// width ([`Thinned`]), and the counts the captions give (exact, over every
 /// row).
-#[derive(Debug, Clone)]
+#[derive(Debug, Clone, Default)]
 pub struct RateSeries {
     pub method: Option<Method>,
     pub hold: HoldKind,
@@ -271,14 +271,7 @@ impl ChartRows {
                         method: p.method,
                         hold: p.hold,
                         delay: p.delay,
-                        rows: 0,
-                        unstable: 0,
-                        missing: [0; RATE_PANELS.len()],
-                        variant_gaps: 0,
-                        last_infeasible_hz: None,
-                        nominal: Vec::new(),
-                        worst: Vec::new(),
-                        precision: Vec::new(),
+                        ..RateSeries::default()
                     },
                     nominal: vec![Thinned::default(); RATE_PANELS.len()],
                     worst: vec![Thinned::default(); RATE_PANELS.len()],
@@ -482,13 +475,22 @@ pub fn write_charts(out_dir: &Path, input: &ChartInput) -> Result<Vec<Chart>, Er
         path: out_dir.display().to_string(),
         message: e.to_string(),
     })?;
+    write_figures(out_dir, input.case, describe(input))
+}
+
+/// Draw `figures` (file name, figure) with the case's footer note and
+/// write each into `out_dir`, in order.
+pub(crate) fn write_figures(
+    out_dir: &Path,
+    case: &Case,
+    figures: Vec<(&str, Figure)>,
+) -> Result<Vec<Chart>, Error> {
+    let version = env!("CARGO_PKG_VERSION");
     let note = format!(
-        "{} | looprate {} | model-based: confirm on the hardware",
-        input.case.title,
-        env!("CARGO_PKG_VERSION")
+        "{} | looprate {version} | model-based: confirm on the hardware",
+        case.title
     );
-    describe(input)
-        .into_par_iter()
+    (figures.into_par_iter())
         .map(|(name, fig)| {
             let path = out_dir.join(name);
             let png = render_png_bytes(&fig.with_note(note.clone()), &path)?;
@@ -503,12 +505,10 @@ pub fn write_charts(out_dir: &Path, input: &ChartInput) -> Result<Vec<Chart>, Er
 /// The time axis of a response over `[0, t_end]` s: labelled in ms or µs
 /// when the whole span is below 0.1 s or 0.1 ms (the data stay in s).
 fn time_axis(t_end: f64) -> Axis {
-    let (label, scale) = if t_end < 1e-4 {
-        ("time (µs)", 1e6)
-    } else if t_end < 0.1 {
-        ("time (ms)", 1e3)
-    } else {
-        ("time (s)", 1.0)
+    let (label, scale) = match t_end {
+        t if t < 1e-4 => ("time (µs)", 1e6),
+        t if t < 0.1 => ("time (ms)", 1e3),
+        _ => ("time (s)", 1.0),
     };
     Axis::linear(label)
         .with_range(0.0, t_end)
@@ -519,10 +519,6 @@ fn rate_axis() -> Axis {
     Axis::log("loop rate (Hz)")
 }
 
-fn hz(v: f64) -> String {
-    crate::engineering::hz(v)
-}
-
 /// The series of one (method, hold) at the design delay.
 fn rows_of<'a>(inp: &'a Inputs, m: Option<Method>, h: HoldKind) -> Option<&'a RateSeries> {
     (inp.series.iter()).find(|s| s.method == m && s.hold == h && s.delay == inp.design_delay)
@@ -530,13 +526,9 @@ fn rows_of<'a>(inp: &'a Inputs, m: Option<Method>, h: HoldKind) -> Option<&'a Ra
 
 /// The methods of the sweep at the design delay, in case order.
 fn design_series<'a>(inp: &'a Inputs) -> Vec<(String, &'a RateSeries)> {
+    let hold = design_hold(inp);
     (case_methods(inp.case).into_iter())
-        .filter_map(|m| {
-            Some((
-                method_label(m).to_string(),
-                rows_of(inp, m, design_hold(inp))?,
-            ))
-        })
+        .filter_map(|m| Some((method_label(m).to_string(), rows_of(inp, m, hold)?)))
         .collect()
 }
 
@@ -571,18 +563,17 @@ fn robust_f_star(report: &PickReport, method: &str) -> Option<f64> {
         .and_then(|m| m.rate.slowest_rate_hz)
 }
 
-/// The hold kind the charts of methods show: the recommended one, else
-/// the first the case lists.
 /// ` with a first-order hold` when the case lists more than one hold
 /// kind (the chart must say which it shows), else nothing.
 fn hold_words(inp: &Inputs) -> String {
-    if inp.case.holds.len() > 1 {
-        format!(" with a {} hold", design_hold(inp).name())
-    } else {
-        String::new()
+    match inp.case.holds.len() > 1 {
+        true => format!(" with a {} hold", design_hold(inp).name()),
+        false => String::new(),
     }
 }
 
+/// The hold kind the charts of methods show: the recommended one, else
+/// the first the case lists.
 fn design_hold(inp: &Inputs) -> HoldKind {
     inp.rec
         .map(|(r, _)| r.hold)
@@ -684,15 +675,10 @@ fn trace_series(
     let shown = || trace.iter().filter(|p| p.t <= t_end * (1.0 + 1e-12));
     let samples: Points = shown().filter(|p| p.sample).map(|p| (p.t, p.y)).collect();
     let (run, runs) = (slot.0, slot.1.max(1));
-    let stride = samples
-        .len()
-        .div_ceil(MAX_SAMPLE_MARKERS)
-        .max(if runs > 1 { 2 } else { 1 });
-    let offset = run * stride / runs;
+    let stride = (samples.len().div_ceil(MAX_SAMPLE_MARKERS)).max(1 + usize::from(runs > 1));
     let marks: Points = samples
-        .iter()
-        .copied()
-        .skip(offset)
+        .into_iter()
+        .skip(run * stride / runs)
         .step_by(stride)
         .collect();
     let mark_label = match stride {
@@ -732,51 +718,53 @@ fn rate_panel(
     worst: bool,
 ) -> Panel {
     let mut panel = Panel::new(Axis::linear(def.axis_title()));
-    let (mut unstable, mut missing) = (0, 0);
+    let label = |text: String| if named { text } else { String::new() };
     for (k, (name, rows)) in series.iter().enumerate() {
-        let never = rows.unstable == rows.rows;
-        unstable += rows.unstable;
-        missing += rows.missing_of(def);
-        let label = match (named, never) {
-            (false, _) => String::new(),
-            (true, false) => name.clone(),
-            (true, true) => format!("{name} (unstable at every rate)"),
+        let text = match rows.unstable == rows.rows {
+            false => name.clone(),
+            true => format!("{name} (unstable at every rate)"),
         };
-        panel
-            .series
-            .push(Series::line(label, rows.nominal(def).clone(), k).drawn(Draw::LineAndMarkers));
+        let s = Series::line(label(text), rows.nominal(def).clone(), k);
+        panel.series.push(s.drawn(Draw::LineAndMarkers));
     }
     // With plant variants, each method's figure at its worst over them, in
     // the styles after the nominal curves'.
-    let mut variant_gaps = 0;
     for (k, (name, rows)) in series.iter().enumerate().filter(|_| worst) {
-        variant_gaps += rows.variant_gaps;
-        let label = if named {
-            format!("{name}, worst variant")
-        } else {
-            String::new()
-        };
         let style = (series.len() + k) % PALETTE_LEN;
+        let text = label(format!("{name}, worst variant"));
         panel
             .series
-            .push(Series::line(label, rows.worst(def).clone(), style));
+            .push(Series::line(text, rows.worst(def).clone(), style));
     }
-    let total: usize = series.iter().map(|(_, rows)| rows.rows).sum();
-    let mut why = Vec::new();
-    if unstable > 0 {
-        why.push(format!("loop unstable ({unstable}/{total})"));
-    }
-    if missing > 0 {
-        why.push(format!("{} ({missing}/{total})", def.absence_reason()));
-    }
-    if variant_gaps > 0 {
-        why.push(format!("a variant unstable ({variant_gaps} more)"));
-    }
+    let sum = |n: fn(&RateSeries) -> usize| series.iter().map(|(_, rows)| n(rows)).sum::<usize>();
+    let (unstable, total) = (sum(|r| r.unstable), sum(|r| r.rows));
+    let missing: usize = series.iter().map(|(_, rows)| rows.missing_of(def)).sum();
+    let variant_gaps = if worst { sum(|r| r.variant_gaps) } else { 0 };
+    let why: Vec<String> = [
+        (unstable, format!("loop unstable ({unstable}/{total})")),
+        (
+            missing,
+            format!("{} ({missing}/{total})", def.absence_reason()),
+        ),
+        (
+            variant_gaps,
+            format!("a variant unstable ({variant_gaps} more)"),
+        ),
+    ]
+    .into_iter()
+    .filter_map(|(n, text)| (n > 0).then_some(text))
+    .collect();
     if !why.is_empty() {
         panel.caption = format!("gaps: {}", why.join("; "));
     }
     match limit_of(def, spec) {
-        Some(l) => add_limit(&mut panel, l, unit_of(def)),
+        // The view clipped above an upper limit (see [`clip_above`]).
+        Some(l) => {
+            if l.bad_side == Side::Above && l.value > 0.0 {
+                clip_above(&mut panel, CLIP_TIMES_LIMIT * l.value, unit_of(def));
+            }
+            panel.limits.push(l);
+        }
         // Without a limit, Ms is still shown up to a few times the usual
         // bound of 2 (common practice, no source).
         None if def == LoopFigure::SensitivityPeak => {
@@ -784,33 +772,21 @@ fn rate_panel(
         }
         None => {}
     }
-    if def.unit() == Unit::Seconds {
-        // A time that stays under 0.1 s reads in ms (the data stay in s).
-        let top = match panel.y.range {
-            Some((_, hi)) => hi,
-            None => (panel
-                .series
-                .iter()
-                .flat_map(|s| s.points.iter().map(|p| p.1)))
-            .filter(|v| v.is_finite())
-            .fold(0.0, f64::max),
+    // A time that stays under 0.1 s reads in ms (the data stay in s).
+    let values = (panel.series.iter()).flat_map(|s| s.points.iter().map(|p| p.1));
+    let top = (panel.y.range).map_or_else(
+        || values.filter(|v| v.is_finite()).fold(0.0, f64::max),
+        |r| r.1,
+    );
+    if def.unit() == Unit::Seconds && top > 0.0 && top < 0.1 {
+        let label = format!("{} (ms)", def.short_label());
+        panel.y = Axis {
+            label,
+            label_scale: 1e3,
+            ..panel.y
         };
-        if top > 0.0 && top < 0.1 {
-            let range = panel.y.range;
-            panel.y = Axis::linear(format!("{} (ms)", def.short_label())).with_label_scale(1e3);
-            panel.y.range = range;
-        }
     }
     panel
-}
-
-/// A spec limit on a panel, with the view clipped above an upper limit
-/// (see [`clip_above`]).
-fn add_limit(panel: &mut Panel, limit: Limit, unit: &str) {
-    if limit.bad_side == Side::Above && limit.value > 0.0 {
-        clip_above(panel, CLIP_TIMES_LIMIT * limit.value, unit);
-    }
-    panel.limits.push(limit);
 }
 
 /// Near the stability edge an upper-limited figure runs off to huge
@@ -825,7 +801,7 @@ fn clip_above(panel: &mut Panel, top: f64, unit: &str) {
                 .filter(|w| w[1].1.is_finite() && w[1].1 > top)
                 .map(|w| (w[1].0, top))
                 .collect();
-            Series::line("", pts, s.style.0).drawn(Draw::Markers)
+            Series::line("", pts, s.style).drawn(Draw::Markers)
         })
         .filter(|s| !s.points.is_empty())
         .collect();
@@ -838,9 +814,10 @@ fn clip_above(panel: &mut Panel, top: f64, unit: &str) {
         "s" => format!("off scale above {}", seconds(top)),
         _ => format!("off scale above {} {unit}", sig4(top)),
     };
+    let text = text.trim_end();
     panel.caption = match panel.caption.is_empty() {
-        true => text.trim_end().to_string(),
-        false => format!("{}; {}", panel.caption, text.trim_end()),
+        true => text.to_string(),
+        false => format!("{}; {text}", panel.caption),
     };
 }
 
@@ -850,7 +827,6 @@ fn clip_above(panel: &mut Panel, top: f64, unit: &str) {
 /// peak against the rate, one series per method at the design delay
 /// (with plant variants also each method's worst-variant curve).
 fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
-    let spec = &inp.case.spec;
     // A controller given in z runs at one rate: one point per computation
     // delay, on an axis around that rate (not the range of a sweep).
     let single = match &inp.lp.controller {
@@ -871,19 +847,14 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
     let robust = inp.pick.is_some_and(|p| p.robust.is_some());
     let mut marks: Vec<VMark> = Vec::new();
     if let Some(pick) = inp.pick {
-        if let Some(r) = &pick.recommended {
-            let text = format!("{} {}", rate_word(pick), hz(r.rate_hz));
-            marks.push(VMark::new(r.rate_hz, text, MarkStyle::Solid));
-        }
+        marks.extend((pick.recommended.as_ref()).map(|r| recommended_mark(pick, r.rate_hz)));
         if robust {
             let get = |m: &str| robust_f_star(pick, m);
             marks.extend(star_marks(&series, "robust f*", MarkStyle::Dashed, get));
         }
-        let kind = if robust { "nominal f*" } else { "f*" };
-        let style = if robust {
-            MarkStyle::Dotted
-        } else {
-            MarkStyle::Dashed
+        let (kind, style) = match robust {
+            true => ("nominal f*", MarkStyle::Dotted),
+            false => ("f*", MarkStyle::Dashed),
         };
         marks.extend(star_marks(&series, kind, style, |m| f_star(pick, m)));
     }
@@ -913,18 +884,15 @@ fn figures_vs_rate(inp: &Inputs) -> Option<Figure> {
         ),
     };
     let mut fig = Figure::new(title, rate_axis().with_range(lo, hi));
+    // Lines through every panel, each label on one panel only (spread
+    // over the panels so the labels do not collide).
+    let labelled = |k: usize| marks[..k].iter().filter(|m| !m.label.is_empty()).count();
     for (i, def) in RATE_PANELS.iter().enumerate() {
-        let mut panel = rate_panel(*def, spec, &series, i == 0, robust);
-        // Lines through every panel, each label on one panel only
-        // (spread over the panels so the labels do not collide).
-        let mut slot = 0;
-        for mk in &marks {
+        let mut panel = rate_panel(*def, &inp.case.spec, &series, i == 0, robust);
+        for (k, mk) in marks.iter().enumerate() {
             let mut mk = mk.clone();
-            if !mk.label.is_empty() {
-                if slot % RATE_PANELS.len() != i {
-                    mk.label.clear();
-                }
-                slot += 1;
+            if labelled(k) % RATE_PANELS.len() != i {
+                mk.label.clear();
             }
             panel.vmarks.push(mk);
         }
@@ -960,14 +928,13 @@ fn hold_kinds(inp: &Inputs) -> Option<Figure> {
     if series.is_empty() {
         return None;
     }
-    let mut fig = Figure::new(
-        format!(
-            "Hold kinds: {} at computation delay {} (hatched side of a limit fails)",
-            rec.method,
-            periods(inp.design_delay)
-        ),
-        rate_axis().with_range(inp.case.rates.min_hz, inp.case.rates.max_hz),
+    let title = format!(
+        "Hold kinds: {} at computation delay {} (hatched side of a limit fails)",
+        rec.method,
+        periods(inp.design_delay)
     );
+    let x = rate_axis().with_range(inp.case.rates.min_hz, inp.case.rates.max_hz);
+    let mut fig = Figure::new(title, x);
     for (i, def) in [LoopFigure::PhaseMargin, LoopFigure::Overshoot]
         .into_iter()
         .enumerate()
@@ -995,28 +962,39 @@ struct Run {
     style: usize,
 }
 
-/// A time-response panel: the continuous design and each run's trace (a
-/// line through the output between samples, markers at the samples);
+/// A time-response figure over `[0, t_end]` (1.4 times the longest of
+/// `times`, else `fallback`): the continuous design and each run's trace
+/// (a line through the output between samples, markers at the samples);
 /// `step` picks the step trace, else the load-disturbance one. Runs that
-/// cannot be simulated are named in the returned notes.
-fn time_panel(
+/// cannot be simulated are named after the title; `finish` adds what
+/// the chart marks.
+#[allow(clippy::too_many_arguments)]
+fn time_figure(
     inp: &Inputs,
     method: Option<Method>,
     runs: &[Run],
-    t_end: f64,
+    (times, fallback): (&[Option<f64>], f64),
     step: bool,
     y_label: &str,
-) -> (Panel, Vec<String>) {
+    mut title: String,
+    finish: impl FnOnce(&mut Panel),
+) -> Figure {
+    let longest = times.iter().flatten().copied().fold(0.0, f64::max);
+    let t_end = if longest > 0.0 {
+        1.4 * longest
+    } else {
+        fallback
+    };
     let mut panel = Panel::new(Axis::linear(y_label));
     let mut notes = Vec::new();
     if inp.lp.design.is_some() {
         match inp.lp.continuous_traces(t_end, CONTINUOUS_TRACE_STEPS) {
             Ok((s, d)) => {
-                let t = if step { s } else { d };
-                let pts = t.iter().map(|p| (p.t, p.y)).collect();
-                panel
-                    .series
-                    .push(Series::line("continuous design", pts, STYLE_CONTINUOUS));
+                let pts = (if step { s } else { d })
+                    .iter()
+                    .map(|p| (p.t, p.y))
+                    .collect();
+                (panel.series).push(Series::line("continuous design", pts, STYLE_CONTINUOUS));
             }
             Err(e) => notes.push(format!("continuous design not simulated: {e}")),
         }
@@ -1027,28 +1005,17 @@ fn time_panel(
         match inp.lp.sampled_traces(&p, Some(periods)) {
             Ok((s, d)) => {
                 let t = if step { s } else { d };
-                panel.series.extend(trace_series(
-                    &t,
-                    t_end,
-                    &run.label,
-                    run.style,
-                    (i, runs.len()),
-                ));
+                let slot = (i, runs.len());
+                (panel.series).extend(trace_series(&t, t_end, &run.label, run.style, slot));
             }
             Err(e) => notes.push(format!("{}: not simulated: {e}", run.label)),
         }
     }
-    (panel, notes)
-}
-
-/// 1.4 times the longest of `times`, else `fallback`.
-fn span_of(times: &[Option<f64>], fallback: f64) -> f64 {
-    let longest = times.iter().flatten().copied().fold(0.0, f64::max);
-    if longest > 0.0 {
-        1.4 * longest
-    } else {
-        fallback
+    finish(&mut panel);
+    for n in notes {
+        title = format!("{title}; {n}");
     }
+    Figure::new(title, time_axis(t_end)).with_panel(panel)
 }
 
 /// Step response: the continuous design, the sampled loop (nominal
@@ -1062,10 +1029,9 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
     let fail_rate = failing_rate(inp, rec, method);
     let star_eval = inp.lp.sampled(&point_at(inp, method, rec.slowest_rate_hz));
     let fail_eval = inp.lp.sampled(&point_at(inp, method, fail_rate));
-    let fail_assessment = assess(&fail_eval, spec);
     // The f* and failing runs can lie 1 % apart and draw almost the same
     // curve: their labels give the figure that decides between them.
-    let limiting = fail_assessment.limiting;
+    let limiting = assess(&fail_eval, spec).limiting;
     let def = match limiting {
         Some(Limiting::Figure(f)) => Some(f),
         _ => None,
@@ -1081,64 +1047,28 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
     };
     let star_text = format!("{} {}", hz(rec.slowest_rate_hz), star_word(report));
     let runs = [
-        Run {
-            rate: rec.rate_hz,
-            label: format!("{} {}", hz(rec.rate_hz), rate_word(report)),
-            style: STYLE_RECOMMENDED,
-        },
-        Run {
-            rate: rec.slowest_rate_hz,
-            label: match value(&star_eval) {
+        (
+            rec.rate_hz,
+            format!("{} {}", hz(rec.rate_hz), rate_word(report)),
+            STYLE_RECOMMENDED,
+        ),
+        (
+            rec.slowest_rate_hz,
+            match value(&star_eval) {
                 Some(v) => format!("{star_text}: {v}"),
                 None => star_text,
             },
-            style: STYLE_STAR,
-        },
-        Run {
-            rate: fail_rate,
-            label: fail_text,
-            style: STYLE_FAILING,
-        },
-    ];
+            STYLE_STAR,
+        ),
+        (fail_rate, fail_text, STYLE_FAILING),
+    ]
+    .map(|(rate, label, style)| Run { rate, label, style });
     let settle = [
         report.design.as_ref().and_then(|f| f.settling_time_s),
         figs.settling_time_s,
         star_eval.figures.as_ref().and_then(|f| f.settling_time_s),
         spec.max_settling_s,
     ];
-    let t_end = span_of(&settle, figs.horizon_s);
-    let y_label = "plant output y (output units, unit step)";
-    let (mut panel, notes) = time_panel(inp, method, &runs, t_end, true, y_label);
-    // A failing run may diverge: fit the view to the design, the passing
-    // runs and the overshoot limit so they stay readable.
-    let os_limit = spec
-        .max_overshoot_pct
-        .map(|l| figs.y_final * (1.0 + l / 100.0));
-    let fitted =
-        (panel.series.iter()).filter(|s| s.style.0 != STYLE_FAILING && s.draw == Draw::Line);
-    let limit_line = os_limit.map(|v| hline("", v, 0.0, 0.0, 0));
-    if let Some((lo, hi)) = padded_range(fitted.chain(limit_line.iter()), 0.12) {
-        panel.y = panel.y.clone().with_range(lo.min(0.0), hi);
-    }
-    if let (Some(v), Some(l)) = (os_limit, spec.max_overshoot_pct) {
-        let text = format!("max overshoot {} %", sig4(l));
-        let side = if figs.y_final >= 0.0 {
-            Side::Above
-        } else {
-            Side::Below
-        };
-        panel.limits.push(Limit::new(v, side, text));
-    }
-    let band = spec.settling_band_pct / 100.0 * figs.y_final.abs();
-    panel.hbands.push(YBand::new(
-        figs.y_final - band,
-        figs.y_final + band,
-        format!("settling band ±{} %", sig4(spec.settling_band_pct)),
-    ));
-    if let Some(l) = spec.max_settling_s {
-        let text = format!("settling limit {}", seconds(l));
-        panel.vmarks.push(VMark::new(l, text, MarkStyle::Dotted));
-    }
     let plant = match &report.robust {
         Some(rb) => format!(
             "nominal plant (f* and the recommendation hold for all {} variants)",
@@ -1146,16 +1076,41 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
         ),
         None => "nominal plant".to_string(),
     };
-    let mut title = format!(
+    let title = format!(
         "Step response, {}{} at computation delay {}, {plant} (line: output between samples)",
         rec.method,
         hold_words(inp),
         periods(inp.design_delay)
     );
-    for n in notes {
-        title = format!("{title}; {n}");
-    }
-    Some(Figure::new(title, time_axis(t_end)).with_panel(panel))
+    let y_label = "plant output y (output units, unit step)";
+    let spans = (&settle[..], figs.horizon_s);
+    let fig = time_figure(inp, method, &runs, spans, true, y_label, title, |panel| {
+        // A failing run may diverge: fit the view to the design, the
+        // passing runs and the overshoot limit so they stay readable.
+        let os_limit = (spec.max_overshoot_pct).map(|l| figs.y_final * (1.0 + l / 100.0));
+        let fitted =
+            (panel.series.iter()).filter(|s| s.style != STYLE_FAILING && s.draw == Draw::Line);
+        let limit_line = os_limit.map(|v| hline("", v, 0.0, 0.0, 0));
+        if let Some((lo, hi)) = padded_range(fitted.chain(limit_line.iter()), 0.12) {
+            panel.y = panel.y.clone().with_range(lo.min(0.0), hi);
+        }
+        if let (Some(v), Some(l)) = (os_limit, spec.max_overshoot_pct) {
+            let side = if figs.y_final >= 0.0 {
+                Side::Above
+            } else {
+                Side::Below
+            };
+            (panel.limits).push(Limit::new(v, side, format!("max overshoot {} %", sig4(l))));
+        }
+        let band = spec.settling_band_pct / 100.0 * figs.y_final.abs();
+        let text = format!("settling band ±{} %", sig4(spec.settling_band_pct));
+        (panel.hbands).push(Band::new(figs.y_final - band, figs.y_final + band, text));
+        if let Some(l) = spec.max_settling_s {
+            let text = format!("settling limit {}", seconds(l));
+            panel.vmarks.push(VMark::new(l, text, MarkStyle::Dotted));
+        }
+    });
+    Some(fig)
 }
 
 /// Load-disturbance response at the recommended rate and at f_star, with
@@ -1165,86 +1120,67 @@ fn disturbance(inp: &Inputs) -> Option<Figure> {
     let (rec, method) = inp.rec?;
     let report = inp.pick?;
     let figs = rec.figures.as_ref()?;
+    let spec = &inp.case.spec;
     let star_eval = inp.lp.sampled(&point_at(inp, method, rec.slowest_rate_hz));
     let recovery = [
         report.design.as_ref().and_then(|f| f.recovery_time_s),
         figs.recovery_time_s,
         star_eval.figures.as_ref().and_then(|f| f.recovery_time_s),
-        inp.case.spec.max_recovery_s,
+        spec.max_recovery_s,
     ];
-    let t_end = span_of(&recovery, figs.horizon_s);
     let d = inp.design_delay;
-    let delay = |rate: f64| {
-        format!(
-            "delay {} = {}",
+    let run = |rate: f64, word: &str, style: usize| Run {
+        rate,
+        label: format!(
+            "{} {word} (delay {} = {})",
+            hz(rate),
             periods(d),
-            crate::engineering::seconds(d / rate)
-        )
+            seconds(d / rate)
+        ),
+        style,
     };
     let runs = [
-        Run {
-            rate: rec.rate_hz,
-            label: format!(
-                "{} {} ({})",
-                hz(rec.rate_hz),
-                rate_word(report),
-                delay(rec.rate_hz)
-            ),
-            style: STYLE_RECOMMENDED,
-        },
-        Run {
-            rate: rec.slowest_rate_hz,
-            label: format!(
-                "{} {} ({})",
-                hz(rec.slowest_rate_hz),
-                star_word(report),
-                delay(rec.slowest_rate_hz)
-            ),
-            style: STYLE_STAR,
-        },
+        run(rec.rate_hz, rate_word(report), STYLE_RECOMMENDED),
+        run(rec.slowest_rate_hz, star_word(report), STYLE_STAR),
     ];
-    let y_label = "plant output y (output units, unit load step)";
-    let (mut panel, notes) = time_panel(inp, method, &runs, t_end, false, y_label);
-    // Recovery: |y - y_end| within the band times the peak (docs/figures.md);
-    // the recommended run's own final value is its last point.
-    let end = (panel.series.iter())
-        .find(|s| s.style.0 == STYLE_RECOMMENDED && s.draw == Draw::Line)
-        .and_then(|s| s.points.last().map(|p| p.1));
-    if let Some(y_end) = end.filter(|v| v.is_finite()) {
-        let band = inp.case.spec.settling_band_pct / 100.0 * figs.disturbance_peak;
-        let text = format!(
-            "recovery band ±{} % of the peak ({} {})",
-            sig4(inp.case.spec.settling_band_pct),
-            hz(rec.rate_hz),
-            rate_word(report)
-        );
-        panel
-            .hbands
-            .push(YBand::new(y_end - band, y_end + band, text));
-    }
-    if let Some(t) = figs.recovery_time_s {
-        let text = format!("recovered {}", seconds(t));
-        panel.vmarks.push(VMark::new(t, text, MarkStyle::Dashed));
-    }
-    if let Some(l) = inp.case.spec.max_recovery_s {
-        let text = format!("recovery limit {}", seconds(l));
-        panel.vmarks.push(VMark::new(l, text, MarkStyle::Dotted));
-    }
-    if let Some(l) = limit_of(LoopFigure::DisturbancePeak, &inp.case.spec) {
-        panel.limits.push(Limit {
-            label: format!("{} peak", l.label),
-            ..l
-        });
-    }
-    let mut title = format!(
+    let title = format!(
         "Response to a unit load step at the plant input, {}{}, nominal plant (r = 0)",
         rec.method,
         hold_words(inp)
     );
-    for n in notes {
-        title = format!("{title}; {n}");
-    }
-    Some(Figure::new(title, time_axis(t_end)).with_panel(panel))
+    let y_label = "plant output y (output units, unit load step)";
+    let spans = (&recovery[..], figs.horizon_s);
+    let fig = time_figure(inp, method, &runs, spans, false, y_label, title, |panel| {
+        // Recovery: |y - y_end| within the band times the peak
+        // (docs/figures.md); the recommended run's own final value is its
+        // last point.
+        let end = (panel.series.iter())
+            .find(|s| s.style == STYLE_RECOMMENDED && s.draw == Draw::Line)
+            .and_then(|s| s.points.last().map(|p| p.1));
+        if let Some(y_end) = end.filter(|v| v.is_finite()) {
+            let band = spec.settling_band_pct / 100.0 * figs.disturbance_peak;
+            let text = format!(
+                "recovery band ±{} % of the peak ({} {})",
+                sig4(spec.settling_band_pct),
+                hz(rec.rate_hz),
+                rate_word(report)
+            );
+            (panel.hbands).push(Band::new(y_end - band, y_end + band, text));
+        }
+        if let Some(t) = figs.recovery_time_s {
+            let text = format!("recovered {}", seconds(t));
+            panel.vmarks.push(VMark::new(t, text, MarkStyle::Dashed));
+        }
+        if let Some(l) = spec.max_recovery_s {
+            let text = format!("recovery limit {}", seconds(l));
+            panel.vmarks.push(VMark::new(l, text, MarkStyle::Dotted));
+        }
+        if let Some(l) = limit_of(LoopFigure::DisturbancePeak, spec) {
+            let label = format!("{} peak", l.label);
+            panel.limits.push(Limit { label, ..l });
+        }
+    });
+    Some(fig)
 }
 
 /// Magnitude and phase of the loop gain at the recommended rate.
@@ -1258,168 +1194,120 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
     let grid = loop_grid(&l, &range);
     let phase = unwrapped_phase(&grid);
     let two_pi = 2.0 * std::f64::consts::PI;
-    let nyquist_hz = rec.rate_hz / 2.0;
+    let (nyquist_hz, hz_of) = (rec.rate_hz / 2.0, |w: f64| w / two_pi);
     // Three decades below Nyquist, or lower when a crossing sits there.
     let lowest_mark = [detail.crossover_hz, detail.gain_margin_hz]
         .into_iter()
         .flatten()
         .fold(nyquist_hz, f64::min);
-    let f_lo = (range.w_lo / two_pi).max((nyquist_hz * 1e-3).min(lowest_mark / 10.0));
-    let keep = |w: f64| w / two_pi >= f_lo;
-
+    let f_lo = hz_of(range.w_lo).max((nyquist_hz * 1e-3).min(lowest_mark / 10.0));
     let mut mag = Panel::new(Axis::linear("magnitude |L| (dB)"));
     let mut ph = Panel::new(Axis::linear("phase of L (deg)"));
+    // One curve on both panels: |L| in dB and its unwrapped phase.
+    let mut bode = |label: &str, l: &[(f64, C64)], phase: &[f64], style: usize| {
+        let kept = || (l.iter().zip(phase)).filter(|(g, _)| hz_of(g.0) >= f_lo);
+        let db = kept().map(|(&(w, v), _)| (hz_of(w), 20.0 * v.norm().log10()));
+        mag.series.push(Series::line(label, db.collect(), style));
+        let deg = kept().map(|(&(w, _), &phi)| (hz_of(w), phi));
+        ph.series.push(Series::line(label, deg.collect(), style));
+    };
     let label = format!(
         "sampled loop, {}{} {}",
         rec.method,
         hold_words(inp),
         hz(rec.rate_hz)
     );
-    mag.series.push(Series::line(
-        label.clone(),
-        grid.iter()
-            .filter(|g| keep(g.0))
-            .map(|&(w, v)| (w / two_pi, 20.0 * v.norm().log10()))
-            .collect(),
-        STYLE_RECOMMENDED,
-    ));
-    ph.series.push(Series::line(
-        label,
-        grid.iter()
-            .zip(&phase)
-            .filter(|(g, _)| keep(g.0))
-            .map(|(&(w, _), &phi)| (w / two_pi, phi))
-            .collect(),
-        STYLE_RECOMMENDED,
-    ));
+    bode(&label, &grid, &phase, STYLE_RECOMMENDED);
     // The continuous design on the same grid, for comparison.
     if let Controller::Continuous(c) = &inp.lp.controller {
-        let cont: Vec<(f64, C64)> = grid
-            .iter()
-            .map(|&(w, _)| {
-                let s = C64::new(0.0, w);
-                (w, inp.lp.plant.eval(s) * inp.lp.sensor.eval(s) * c.eval(s))
-            })
+        let lp = inp.lp;
+        let cont: Vec<(f64, C64)> = (grid.iter())
+            .map(|&(w, _)| (w, C64::new(0.0, w)))
+            .map(|(w, s)| (w, lp.plant.eval(s) * lp.sensor.eval(s) * c.eval(s)))
             .collect();
         // The transport delays' e^{-jwL} turns the phase only: exactly
         // -w L, added after unwrapping the rational part.
-        let delay_s = inp.lp.transport.plant_s + inp.lp.transport.sensor_s;
-        let cph: Vec<f64> = unwrapped_phase(&cont)
-            .into_iter()
-            .zip(&cont)
+        let delay_s = lp.transport.plant_s + lp.transport.sensor_s;
+        let cph: Vec<f64> = (unwrapped_phase(&cont).into_iter().zip(&cont))
             .map(|(phi, &(w, _))| phi - (w * delay_s).to_degrees())
             .collect();
-        mag.series.push(Series::line(
-            "continuous design",
-            cont.iter()
-                .filter(|g| keep(g.0))
-                .map(|&(w, v)| (w / two_pi, 20.0 * v.norm().log10()))
-                .collect(),
-            STYLE_CONTINUOUS,
-        ));
-        ph.series.push(Series::line(
-            "continuous design",
-            cont.iter()
-                .zip(&cph)
-                .filter(|(g, _)| keep(g.0))
-                .map(|(&(w, _), &phi)| (w / two_pi, phi))
-                .collect(),
-            STYLE_CONTINUOUS,
-        ));
+        bode("continuous design", &cont, &cph, STYLE_CONTINUOUS);
     }
     let f_hi = nyquist_hz;
     clip_magnitude(&mut mag, detail.gain_margin_db);
-    mag.series
-        .push(hline("0 dB", 0.0, f_lo, f_hi, STYLE_REFERENCE));
+    (mag.series).push(hline("0 dB", 0.0, f_lo, f_hi, STYLE_REFERENCE));
     // Unwrapped phase at a frequency, exactly: the nearest grid point's
     // unwrapped value plus the angle from it.
     let phase_at = |f: f64| -> f64 {
         let w = f * two_pi;
-        let i = grid
-            .iter()
-            .enumerate()
-            .min_by(|a, b| {
-                (a.1.0.ln() - w.ln())
-                    .abs()
-                    .total_cmp(&(b.1.0.ln() - w.ln()).abs())
+        let i = (0..grid.len())
+            .min_by(|&a, &b| {
+                let d = |i: usize| (grid[i].0.ln() - w.ln()).abs();
+                d(a).total_cmp(&d(b))
             })
-            .map_or(0, |(i, _)| i);
+            .unwrap_or(0);
         phase[i] + (l(w) / grid[i].1).arg().to_degrees()
     };
     // The -180 deg lines (mod 360) inside the phase panel's span.
-    let (plo, phi) = phase
-        .iter()
-        .zip(&grid)
-        .filter(|(_, g)| keep(g.0))
+    let (plo, phi) = (phase.iter().zip(&grid))
+        .filter(|(_, g)| hz_of(g.0) >= f_lo)
         .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), (v, _)| {
             (a.min(*v), b.max(*v))
         });
     if plo.is_finite() {
-        let mut k = ((plo + 180.0) / 360.0).floor();
-        let mut first = true;
-        while -180.0 + 360.0 * k <= phi + 20.0 {
-            let level = -180.0 + 360.0 * k;
-            if level >= plo - 20.0 {
-                let text = if first { "-180 deg (mod 360)" } else { "" };
-                ph.series
-                    .push(hline(text, level, f_lo, f_hi, STYLE_REFERENCE));
-                first = false;
-            }
-            k += 1.0;
+        let k0 = ((plo + 180.0) / 360.0).floor() as i64;
+        let levels = (k0..).map(|k| -180.0 + 360.0 * k as f64);
+        let levels = levels
+            .take_while(|v| *v <= phi + 20.0)
+            .filter(|v| *v >= plo - 20.0);
+        for (i, level) in levels.enumerate() {
+            let text = if i == 0 { "-180 deg (mod 360)" } else { "" };
+            (ph.series).push(hline(text, level, f_lo, f_hi, STYLE_REFERENCE));
         }
     }
     for panel in [&mut mag, &mut ph] {
-        panel.vmarks.push(VMark::new(
-            nyquist_hz,
-            format!("Nyquist {}", hz(nyquist_hz)),
-            MarkStyle::Dotted,
-        ));
+        let text = format!("Nyquist {}", hz(nyquist_hz));
+        panel
+            .vmarks
+            .push(VMark::new(nyquist_hz, text, MarkStyle::Dotted));
     }
     if let (Some(fc), Some(pm)) = (detail.crossover_hz, detail.phase_margin_deg) {
-        mag.vmarks.push(VMark::new(
-            fc,
-            format!("crossover {}", hz(fc)),
-            MarkStyle::Dashed,
-        ));
+        let text = format!("crossover {}", hz(fc));
+        mag.vmarks.push(VMark::new(fc, text, MarkStyle::Dashed));
         ph.vmarks.push(VMark::new(fc, "", MarkStyle::Dashed));
-        ph.notes.push(Annotation::new(
-            fc,
-            phase_at(fc),
-            format!("phase margin {} deg", sig4(pm)),
-        ));
+        let text = format!("phase margin {} deg", sig4(pm));
+        ph.notes.push(Annotation::new(fc, phase_at(fc), text));
     }
     if let (Some(fg), Some(gm)) = (detail.gain_margin_hz, detail.gain_margin_db) {
-        let w = fg * two_pi;
-        mag.notes.push(Annotation::new(
-            fg,
-            20.0 * l(w).norm().log10(),
-            format!("gain margin {} dB at {}", sig4(gm), hz(fg)),
-        ));
+        let text = format!("gain margin {} dB at {}", sig4(gm), hz(fg));
+        let db = 20.0 * l(fg * two_pi).norm().log10();
+        mag.notes.push(Annotation::new(fg, db, text));
         ph.notes.push(Annotation::new(fg, phase_at(fg), ""));
     }
     // The title names what is drawn; the marks carry the margins' values.
-    let mut missing = Vec::new();
-    if detail.gain_margin_db.is_none() {
-        missing.push("no -180 deg crossing, so no gain margin mark");
-    }
-    if detail.phase_margin_deg.is_none() {
-        missing.push("no gain crossover, so no phase margin mark");
-    }
-    let at = if rate_word(report) == "recommended" {
-        "the recommended rate"
-    } else {
-        "the rate the spec alone needs"
+    let missing: Vec<&str> = [
+        (
+            detail.gain_margin_db,
+            "no -180 deg crossing, so no gain margin mark",
+        ),
+        (
+            detail.phase_margin_deg,
+            "no gain crossover, so no phase margin mark",
+        ),
+    ]
+    .into_iter()
+    .filter_map(|(v, text)| v.is_none().then_some(text))
+    .collect();
+    let at = match rate_word(report) {
+        "recommended" => "the recommended rate",
+        _ => "the rate the spec alone needs",
     };
-    let title = if missing.is_empty() {
-        format!("Loop gain L(e^jwT) at {at}")
-    } else {
-        format!("Loop gain L(e^jwT) at {at} ({})", missing.join("; "))
+    let title = match missing.is_empty() {
+        true => format!("Loop gain L(e^jwT) at {at}"),
+        false => format!("Loop gain L(e^jwT) at {at} ({})", missing.join("; ")),
     };
-    Some(
-        Figure::new(title, Axis::log("frequency (Hz)").with_range(f_lo, f_hi))
-            .with_panel(mag)
-            .with_panel(ph),
-    )
+    let x = Axis::log("frequency (Hz)").with_range(f_lo, f_hi);
+    Some(Figure::new(title, x).with_panel(mag).with_panel(ph))
 }
 
 /// Deepest magnitude the loop-gain chart shows below its top, dB: 80 dB
@@ -1500,32 +1388,22 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
     // to past both the swept range and the budget's ceiling, so the whole
     // window is covered.
     let lo = inp.case.rates.min_hz;
-    let hi = [
-        inp.case.rates.max_hz,
-        inp.pick.and_then(|p| p.cpu_ceiling_hz).unwrap_or(0.0) * 1.3,
-        inp.rec.map_or(0.0, |(r, _)| r.rate_hz * 1.3),
-    ]
-    .into_iter()
-    .filter(|v| v.is_finite())
-    .fold(inp.case.rates.max_hz, f64::max);
+    let ceiling = inp.pick.and_then(|p| p.cpu_ceiling_hz).unwrap_or(0.0);
+    let hi = [ceiling * 1.3, inp.rec.map_or(0.0, |(r, _)| r.rate_hz * 1.3)]
+        .into_iter()
+        .filter(|v| v.is_finite())
+        .fold(inp.case.rates.max_hz, f64::max);
     // A single rate (a controller given in z) with nothing above it.
     let hi = if hi > lo * 1.01 { hi } else { lo * 1.5 };
-    let n = 120;
-    let rates: Vec<f64> = (0..n)
-        .map(|i| lo * (hi / lo).powf(i as f64 / (n - 1) as f64))
-        .collect();
-    let structure = inp
-        .case
-        .arithmetic
-        .as_ref()
+    let rates = log_spaced(lo, hi, 120);
+    let structure = (inp.case.arithmetic.as_ref())
         .map_or(crate::spec::Structure::TransposedDirect, |a| a.structure);
     let integrators = crate::model::rounding::design_integrators(&inp.lp.controller);
     // Methods with the same load share one line and one legend entry.
     let mut loads: Vec<(Vec<String>, Points)> = Vec::new();
     for m in case_methods(inp.case) {
         let method = method_label(m).to_string();
-        let pts: Vec<(f64, f64)> = rates
-            .iter()
+        let pts: Points = (rates.iter())
             .map(|&f| {
                 let c = inp.lp.controller_at(f, m).ok();
                 let load = budget::cost_at(b, c.as_ref(), structure, integrators, f)
@@ -1548,11 +1426,8 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
         };
         panel.series.push(Series::line(label, pts, k));
     }
-    panel.limits.push(Limit::new(
-        b.max_load_pct,
-        Side::Above,
-        format!("max load {} %", sig4(b.max_load_pct)),
-    ));
+    let text = format!("max load {} %", sig4(b.max_load_pct));
+    (panel.limits).push(Limit::new(b.max_load_pct, Side::Above, text));
     let window = inp.pick.and_then(|p| p.window.as_ref());
     let title = match (inp.pick, window) {
         (None, _) => "CPU load vs rate (sweep only: run pick for the rate window)".into(),
@@ -1566,13 +1441,13 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
             hz(w.low_hz),
             hz(w.high_hz),
             match &w.high_bound {
-                crate::explore::budget::WindowBound::LastRateChecked { .. } =>
+                budget::WindowBound::LastRateChecked { .. } =>
                     ", cut at the last rate checked".to_string(),
                 b => format!(", top set by the {b}"),
             }
         ),
         (Some(p), None) if p.recommended.is_some() => {
-            "CPU load vs rate (the load of the chosen controller is unknown)".to_string()
+            "CPU load vs rate (the load of the chosen controller is unknown)".into()
         }
         (Some(p), None) if !p.design_failures.is_empty() || p.methods.is_empty() => {
             "CPU load vs rate: the continuous design already fails the spec, so there is no window"
@@ -1582,37 +1457,37 @@ fn cpu_budget(inp: &Inputs) -> Option<Figure> {
             "CPU load vs rate: no method meets the spec, so there is no window".into()
         }
     };
-    if let Some(w) = window
-        && !w.empty
-    {
-        panel
-            .bands
-            .push(XBand::new(w.low_hz, w.high_hz, "rate window"));
+    if let Some(w) = window.filter(|w| !w.empty) {
+        (panel.bands).push(Band::new(w.low_hz, w.high_hz, "rate window"));
     }
     if let Some(p) = inp.pick {
         if let Some(r) = &p.recommended {
-            panel.vmarks.push(VMark::new(
-                r.rate_hz,
-                format!("{} {}", rate_word(p), hz(r.rate_hz)),
-                MarkStyle::Solid,
-            ));
+            panel.vmarks.push(recommended_mark(p, r.rate_hz));
         }
         if let Some(c) = p.cpu_ceiling_hz {
-            panel.vmarks.push(VMark::new(
-                c,
-                format!("budget ceiling {}", hz(c)),
-                MarkStyle::Dashed,
-            ));
+            let text = format!("budget ceiling {}", hz(c));
+            panel.vmarks.push(VMark::new(c, text, MarkStyle::Dashed));
         }
     }
     if panel.series.is_empty() {
-        panel.notes.push(Annotation::new(
-            inp.case.rates.min_hz,
-            b.max_load_pct,
-            "no load known (cycles estimated from a controller that could not be built)",
-        ));
+        let text = "no load known (cycles estimated from a controller that could not be built)";
+        (panel.notes).push(Annotation::new(lo, b.max_load_pct, text));
     }
     Some(Figure::new(title, rate_axis()).with_panel(panel))
+}
+
+/// The solid mark at the recommended rate (or the rate the spec alone
+/// needs), labelled.
+fn recommended_mark(report: &PickReport, rate_hz: f64) -> VMark {
+    let text = format!("{} {}", rate_word(report), hz(rate_hz));
+    VMark::new(rate_hz, text, MarkStyle::Solid)
+}
+
+/// `n` rates from `lo` to `hi`, evenly spaced on a log axis.
+pub(crate) fn log_spaced(lo: f64, hi: f64, n: usize) -> Vec<f64> {
+    (0..n)
+        .map(|i| lo * (hi / lo).powf(i as f64 / (n - 1) as f64))
+        .collect()
 }
 
 /// What rounding the coefficients does against rate, per number format,
@@ -1629,47 +1504,35 @@ fn precision_chart(inp: &Inputs) -> Option<Figure> {
         Some((r, _)) => series.into_iter().find(|(m, _)| m == r.method.name())?,
         None => series.into_iter().next()?,
     };
-    let formats: Vec<String> = inp.formats.iter().map(|f| f.name()).collect();
-    let panels = ["controller pole error (%)", "DC gain error (%)"];
-    let structure = inp
-        .case
-        .arithmetic
-        .as_ref()
-        .map_or("transposed-direct", |a| a.structure.name());
-    let mut fig = Figure::new(
-        format!(
-            "Coefficient rounding ({structure}) vs rate, {method}: errors and precision ceilings"
-        ),
-        rate_axis(),
+    let structure =
+        (inp.case.arithmetic.as_ref()).map_or("transposed-direct", |a| a.structure.name());
+    let title = format!(
+        "Coefficient rounding ({structure}) vs rate, {method}: errors and precision ceilings"
     );
+    let mut fig = Figure::new(title, rate_axis());
     let mut empty = Vec::new();
-    for (j, label) in panels.into_iter().enumerate() {
+    for (j, label) in ["controller pole error (%)", "DC gain error (%)"]
+        .into_iter()
+        .enumerate()
+    {
         let mut panel = Panel::new(Axis::log(label));
-        for (k, f) in formats.iter().enumerate() {
+        for (k, f) in inp.formats.iter().enumerate() {
             let Some(pts) = rows.precision.get(k).map(|p| p[j].clone()) else {
                 continue;
             };
             if pts.iter().any(|p| p.1.is_finite()) {
-                panel.series.push(Series::line(f.clone(), pts, k));
+                panel.series.push(Series::line(f.name(), pts, k));
             }
         }
-        if let Some(pr) = pr {
-            for c in pr.ceilings.iter().filter(|c| c.method.name() == method) {
-                if let (Some(h), false) = (c.ceiling.rate_hz, c.ceiling.above_range) {
-                    panel.vmarks.push(VMark::new(
-                        h,
-                        format!("{} ceiling {}", c.format, hz(h)),
-                        MarkStyle::Dashed,
-                    ));
-                }
+        let ceilings = pr.iter().flat_map(|pr| &pr.ceilings);
+        for c in ceilings.filter(|c| c.method.name() == method) {
+            if let (Some(h), false) = (c.ceiling.rate_hz, c.ceiling.above_range) {
+                let text = format!("{} ceiling {}", c.format, hz(h));
+                panel.vmarks.push(VMark::new(h, text, MarkStyle::Dashed));
             }
         }
         if let (Some((r, _)), Some(p)) = (inp.rec, inp.pick) {
-            panel.vmarks.push(VMark::new(
-                r.rate_hz,
-                format!("{} {}", rate_word(p), hz(r.rate_hz)),
-                MarkStyle::Solid,
-            ));
+            panel.vmarks.push(recommended_mark(p, r.rate_hz));
         }
         if panel.series.is_empty() {
             // Nothing to draw on a log axis: the figure is exact.
@@ -1678,11 +1541,10 @@ fn precision_chart(inp: &Inputs) -> Option<Figure> {
         }
         fig = fig.with_panel(panel);
     }
-    if empty.len() == 2 {
-        return None;
-    }
-    if let Some(label) = empty.first() {
-        fig.title = format!("{}; {label}: zero at every rate", fig.title);
+    match empty[..] {
+        [_, _] => return None,
+        [label] => fig.title = format!("{}; {label}: zero at every rate", fig.title),
+        _ => {}
     }
     Some(fig)
 }
@@ -1694,101 +1556,65 @@ fn hold_approximation(inp: &Inputs) -> Option<Figure> {
     let report = inp.pick?;
     let design = report.design.as_ref()?;
     let (lo, hi) = (inp.case.rates.min_hz, inp.case.rates.max_hz);
-    let n = HOLD_CHART_RATES;
-    let rates: Vec<f64> = (0..n)
-        .map(|i| lo * (hi / lo).powf(i as f64 / (n - 1) as f64))
-        .collect();
-    let evals: Vec<(Evaluation, Vec<Evaluation>)> = rates
+    let rates = log_spaced(lo, hi, HOLD_CHART_RATES);
+    // Per rate: the exact loop, then each approximation.
+    let evals: Vec<Vec<Evaluation>> = rates
         .par_iter()
         .map(|&f| {
             let p = point_at(inp, method, f);
-            let approx = HoldApprox::ALL
-                .iter()
-                .map(|&k| inp.lp.hold_approx(&p, k))
-                .collect();
-            (inp.lp.sampled(&p), approx)
+            let approx = HoldApprox::ALL.iter().map(|&k| inp.lp.hold_approx(&p, k));
+            std::iter::once(inp.lp.sampled(&p)).chain(approx).collect()
         })
         .collect();
-    let mut fig = Figure::new(
-        format!(
-            "Hold approximations vs the exact sampled loop ({}, {} hold, computation delay {})",
-            rec.method,
-            rec.hold,
-            periods(inp.design_delay)
-        ),
-        rate_axis().with_range(lo, hi),
+    let title = format!(
+        "Hold approximations vs the exact sampled loop ({}, {} hold, computation delay {})",
+        rec.method,
+        rec.hold,
+        periods(inp.design_delay)
     );
-    let defs = [LoopFigure::PhaseMargin, LoopFigure::Overshoot];
-    for (i, def) in defs.into_iter().enumerate() {
+    let mut fig = Figure::new(title, rate_axis().with_range(lo, hi));
+    let names = std::iter::once("exact sampled loop".to_string()).chain(
+        HoldApprox::ALL
+            .iter()
+            .map(|k| format!("{} approximation", k.name())),
+    );
+    let names: Vec<String> = names.collect();
+    for (i, def) in [LoopFigure::PhaseMargin, LoopFigure::Overshoot]
+        .into_iter()
+        .enumerate()
+    {
         let named = |s: &str| if i == 0 { s.to_string() } else { String::new() };
         let mut panel = Panel::new(Axis::linear(def.axis_title()));
-        panel.series.push(
-            Series::line(
-                named("exact sampled loop"),
-                rates
-                    .iter()
-                    .zip(&evals)
-                    .map(|(&f, (e, _))| (f, figure_of(e, def)))
-                    .collect(),
-                STYLE_RECOMMENDED,
-            )
-            .drawn(Draw::LineAndMarkers),
-        );
-        for (k, kind) in HoldApprox::ALL.iter().enumerate() {
+        for (k, name) in names.iter().enumerate() {
+            let pts = (rates.iter().zip(&evals)).map(|(&f, e)| (f, figure_of(&e[k], def)));
             // Markers as well as dashes: the approximations lie close
-            // together and must stay apart in greyscale.
-            panel.series.push(
-                Series::line(
-                    named(&format!("{} approximation", kind.name())),
-                    rates
-                        .iter()
-                        .zip(&evals)
-                        .map(|(&f, (_, a))| (f, figure_of(&a[k], def)))
-                        .collect(),
-                    // Styles 1, 2, 3, then 5: 4 is the continuous design's.
-                    if k + 1 >= STYLE_CONTINUOUS {
-                        k + 2
-                    } else {
-                        k + 1
-                    },
-                )
-                .drawn(Draw::LineAndMarkers),
-            );
+            // together and must stay apart in greyscale. Styles 0 (the
+            // exact loop), 1, 2, 3, then 5: 4 is the continuous design's.
+            let style = if k >= STYLE_CONTINUOUS { k + 1 } else { k };
+            let series = Series::line(named(name), pts.collect(), style);
+            panel.series.push(series.drawn(Draw::LineAndMarkers));
         }
         // A curve stops where its loop has no such figure (unstable, or
         // no crossing): say so, as the rate chart does.
-        let gaps = evals
-            .iter()
-            .filter(|(e, a)| {
-                figure_of(e, def).is_nan() || a.iter().any(|x| figure_of(x, def).is_nan())
-            })
+        let gaps = (evals.iter())
+            .filter(|e| e.iter().any(|x| figure_of(x, def).is_nan()))
             .count();
         if gaps > 0 {
+            let (short, n) = (def.short_label(), evals.len());
             panel.caption = format!(
-                "gaps: no {} at {gaps} of {} rates (loop unstable or no such figure)",
-                def.short_label(),
-                evals.len()
+                "gaps: no {short} at {gaps} of {n} rates (loop unstable or no such figure)"
             );
         }
         if let Some(v) = def.limited_value(design) {
-            panel.series.push(hline(
-                &named("continuous design"),
-                v,
-                lo,
-                hi,
-                STYLE_CONTINUOUS,
-            ));
+            let line = hline(&named("continuous design"), v, lo, hi, STYLE_CONTINUOUS);
+            panel.series.push(line);
         }
         panel.limits.extend(limit_of(def, &inp.case.spec));
-        panel.vmarks.push(VMark::new(
-            rec.rate_hz,
-            if i == 0 {
-                format!("{} {}", rate_word(report), hz(rec.rate_hz))
-            } else {
-                String::new()
-            },
-            MarkStyle::Solid,
-        ));
+        let mut mark = recommended_mark(report, rec.rate_hz);
+        if i > 0 {
+            mark.label.clear();
+        }
+        panel.vmarks.push(mark);
         fig = fig.with_panel(panel);
     }
     Some(fig)

@@ -120,11 +120,10 @@ impl Axis {
 
     /// A logarithmic axis fitted to the data.
     pub fn log(label: impl Into<String>) -> Self {
+        let log = true;
         Axis {
-            label: label.into(),
-            log: true,
-            range: None,
-            label_scale: 1.0,
+            log,
+            ..Axis::linear(label)
         }
     }
 
@@ -143,7 +142,7 @@ impl Axis {
 }
 
 /// One panel: a y axis and everything drawn against it.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Default)]
 pub struct Panel {
     pub y: Axis,
     pub series: Vec<Series>,
@@ -152,36 +151,18 @@ pub struct Panel {
     /// Labelled vertical lines (e.g. the chosen rate).
     pub vmarks: Vec<VMark>,
     /// Shaded x intervals (e.g. a feasible rate window).
-    pub bands: Vec<XBand>,
+    pub bands: Vec<Band>,
     /// Shaded y intervals (e.g. a settling band).
-    pub hbands: Vec<YBand>,
+    pub hbands: Vec<Band>,
     /// Text labels pointing at data coordinates.
     pub notes: Vec<Annotation>,
     /// A short line inside the panel, placed off the data (e.g. what the
     /// gaps in its curves mean); empty for none.
     pub caption: String,
-    /// Relative height among the panels (non-positive or non-finite = 1).
-    pub height_weight: f64,
-}
-
-impl Default for Panel {
-    fn default() -> Self {
-        Panel {
-            y: Axis::default(),
-            series: Vec::new(),
-            limits: Vec::new(),
-            vmarks: Vec::new(),
-            bands: Vec::new(),
-            hbands: Vec::new(),
-            notes: Vec::new(),
-            caption: String::new(),
-            height_weight: 1.0,
-        }
-    }
 }
 
 impl Panel {
-    /// An empty panel with the given y axis and weight 1.
+    /// An empty panel with the given y axis.
     pub fn new(y: Axis) -> Self {
         Panel {
             y,
@@ -198,7 +179,11 @@ pub struct Series {
     /// `(x, y)` points in drawing order. A point with a NaN or infinite
     /// coordinate (or a non-positive one on a log axis) breaks the line.
     pub points: Vec<(f64, f64)>,
-    pub style: SeriesStyle,
+    /// An index into the built-in palette (taken modulo [`PALETTE_LEN`]).
+    /// Each entry pairs a colour with its own dash pattern and marker
+    /// shape, so series stay distinguishable in greyscale and for
+    /// colour-blind readers.
+    pub style: usize,
     pub draw: Draw,
 }
 
@@ -208,7 +193,7 @@ impl Series {
         Series {
             label: label.into(),
             points,
-            style: SeriesStyle(style),
+            style,
             draw: Draw::Line,
         }
     }
@@ -220,13 +205,6 @@ impl Series {
     }
 }
 
-/// An index into the built-in palette (taken modulo [`PALETTE_LEN`]).
-/// Each entry pairs a colour with its own dash pattern and marker shape,
-/// so series stay distinguishable in greyscale and for colour-blind
-/// readers.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
-pub struct SeriesStyle(pub usize);
-
 /// How a series' points are drawn.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
 pub enum Draw {
@@ -237,9 +215,6 @@ pub enum Draw {
     Markers,
     /// Segments and a marker at each point.
     LineAndMarkers,
-    /// A staircase: each value holds until the next point's x (as a
-    /// zero-order hold does), then jumps.
-    Steps,
 }
 
 /// Which side of a limit is infeasible.
@@ -297,19 +272,14 @@ impl VMark {
     }
 }
 
-/// A shaded interval of x ([`XBand`]) or y ([`YBand`]); an infinite end
-/// runs to the plot edge.
+/// A shaded interval of x (`Panel::bands`) or y (`Panel::hbands`); an
+/// infinite end runs to the plot edge.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Band {
     pub from: f64,
     pub to: f64,
     pub label: String,
 }
-
-/// A shaded x interval.
-pub type XBand = Band;
-/// A shaded y interval.
-pub type YBand = Band;
 
 impl Band {
     /// A shaded interval from `from` to `to`.

@@ -6,8 +6,9 @@
 //! `text` with each glyph's side bearing and pair kerning, which plotters
 //! 0.3.7's own text path drops. Font sizes are plotters' (the pixel
 //! height from ascent to descent); plotters sizes label areas through
-//! `estimate_text_size` here. Circles keep plotters' default rasterizer:
-//! the charts draw none.
+//! `estimate_text_size` here. Rectangles and circles keep plotters'
+//! default rasterizer, which draws them through `draw_line` here (the
+//! charts draw no circle).
 
 use std::convert::Infallible;
 
@@ -79,34 +80,6 @@ impl DrawingBackend for CanvasBackend<'_> {
         style: &S,
     ) -> Result<()> {
         self.draw_path([from, to], style)
-    }
-
-    fn draw_rect<S: BackendStyle>(
-        &mut self,
-        ul: BackendCoord,
-        br: BackendCoord,
-        style: &S,
-        fill: bool,
-    ) -> Result<()> {
-        let (c, a) = rgb(&style.color());
-        let (x0, y0) = (f64::from(ul.0), f64::from(ul.1));
-        let (x1, y1) = (f64::from(br.0) + 1.0, f64::from(br.1) + 1.0);
-        if fill {
-            self.canvas
-                .fill_rect(super::canvas::Rect::new(x0, y0, x1, y1), c, a);
-        } else {
-            let w = f64::from(style.stroke_width().max(1));
-            for r in [
-                (x0, y0, x1, y0 + w),
-                (x0, y1 - w, x1, y1),
-                (x0, y0, x0 + w, y1),
-                (x1 - w, y0, x1, y1),
-            ] {
-                let r = super::canvas::Rect::new(r.0, r.1, r.2, r.3);
-                self.canvas.fill_rect(r, c, a);
-            }
-        }
-        Ok(())
     }
 
     fn draw_path<S: BackendStyle, I: IntoIterator<Item = BackendCoord>>(

@@ -3,11 +3,10 @@
 //! plotters lays out each panel (`ChartBuilder`), draws the mesh, tick
 //! labels and axis descriptions, the series and the legend. What plotters
 //! lacks stays here: panels stacked on one x axis, log axes with 1-2-5
-//! ticks and plain labels, the hatched infeasible side of a limit, and
-//! labels placed where they cover the least data (chosen on the finished
-//! pixels, after plotters has drawn).
-
-use crate::error::PlotError;
+//! ticks and plain labels, lines broken at gaps and cut at the plot edge,
+//! the hatched infeasible side of a limit, and labels placed where they
+//! cover the least data (chosen on the finished pixels, after plotters has
+//! drawn).
 
 use plotters::coord::ranged1d::{DefaultFormatting, KeyPointHint, Ranged};
 use plotters::coord::types::RangedCoordf64;
@@ -17,49 +16,49 @@ use plotters::style::{RGBAColor, TextStyle as PTextStyle};
 
 use super::backend::CanvasBackend;
 use super::canvas::{Canvas, Rect, Rgb, capsule, circle, clip_segment};
-use super::style::{self, Marker, Pen, pen_of};
+use super::style::{self, Marker, pen_of};
 use super::text::{HPos, TextFont, TextStyle, VPos};
 use super::{Axis, Draw, Figure, MAX_PIXELS, MAX_SIDE, MIN_SIDE, MarkStyle, Panel, Side};
+use crate::error::PlotError;
 
-type Coords = Cartesian2d<Scale, Scale>;
-type Chart<'a, 'b> = ChartContext<'a, CanvasBackend<'b>, Coords>;
+type Chart<'a, 'b> = ChartContext<'a, CanvasBackend<'b>, Cartesian2d<Ax, Ax>>;
+type Area<'a> = DrawingArea<CanvasBackend<'a>, plotters::coord::Shift>;
 
-/// Sizes derived from the figure size, in pixels (em sizes for text).
+/// Sizes from the figure size, in pixels (em sizes for text): 21 px at
+/// 1600x1000, so text stays legible shown at half size, scaled with the
+/// image area.
 struct Metrics {
     base: f64,
-    title: f64,
     tick: f64,
     small: f64,
-    note: f64,
     margin: f64,
     lw: f64,
 }
 
 impl Metrics {
     fn new(w: u32, h: u32) -> Self {
-        // 21 px at 1600x1000, so text stays legible when the image is
-        // shown at half size; scaled with the image area.
         let base = (21.0 * (f64::from(w) * f64::from(h) / 1.6e6).sqrt()).clamp(9.0, 42.0);
         Metrics {
             base,
-            title: base * 1.25,
             tick: base * 0.9,
             small: base * 0.82,
-            note: base * 0.72,
             margin: base * 0.8,
             lw: (base * 0.11).max(1.5).round(),
         }
     }
 }
 
-/// One axis in drawing space (log axes in decades).
-#[derive(Clone, Copy)]
+/// One axis in drawing space (log axes in decades) with its ticks; a
+/// plotters coordinate (`Ranged`) with plotters' own linear map.
+#[derive(Clone)]
 struct Ax {
     lo: f64,
     hi: f64,
     log: bool,
     /// Tick labels show values times this (`Axis::label_scale`).
     scale: f64,
+    bold: Vec<f64>,
+    light: Vec<f64>,
 }
 
 impl Ax {
@@ -82,28 +81,26 @@ impl Ax {
         self.t(v).is_some_and(|t| t >= self.lo && t <= self.hi)
     }
 
-    /// Major and minor ticks for about `n` labels: plotters' round steps
-    /// on a linear axis; decades (and 2, 5 or every digit on short
-    /// ranges) on a log axis.
-    fn ticks(&self, n: usize) -> (Vec<f64>, Vec<f64>) {
+    /// With ticks for about `n` labels: plotters' round steps on a linear
+    /// axis; decades (and 2, 5 or every digit on short ranges) on a log
+    /// axis (plotters' log axis labels one tick per decade on short ranges
+    /// and every digit on dense ones).
+    fn ticked(mut self, n: usize) -> Self {
         if !self.log {
             let r: RangedCoordf64 = (self.lo..self.hi).into();
-            return (r.key_points(n.max(2)), Vec::new());
+            self.bold = r.key_points(n.max(2));
+            return self;
         }
         let span = self.hi - self.lo;
         let step = ((span / n.max(1) as f64).ceil() as i32).max(1);
         let room = n.max(2) as f64;
-        let mults: &[i32] = if span * 3.0 > room + 1.0 {
-            &[1]
         // Every digit only on a short range: the last gap of a decade (9
-        // to 10) is 0.046 decades, 2.4 times less than the mean of 1/9,
-        // so its labels need that much more room.
-        } else if span * 22.0 > room + 1.0 {
-            &[1, 2, 5]
-        } else {
-            &[1, 2, 3, 4, 5, 6, 7, 8, 9]
+        // to 10) is 0.046 decades, 2.4 times less than the mean of 1/9.
+        let mults: &[i32] = match span {
+            s if s * 3.0 > room + 1.0 => &[1],
+            s if s * 22.0 > room + 1.0 => &[1, 2, 5],
+            _ => &[1, 2, 3, 4, 5, 6, 7, 8, 9],
         };
-        let (mut bold, mut light) = (Vec::new(), Vec::new());
         for d in (self.lo.floor() as i32)..=(self.hi.ceil() as i32) {
             for k in 1..=9 {
                 let v = f64::from(d) + f64::from(k).log10();
@@ -111,59 +108,34 @@ impl Ax {
                     continue;
                 }
                 if (k == 1 && d.rem_euclid(step) == 0) || (step == 1 && mults.contains(&k)) {
-                    bold.push(v);
+                    self.bold.push(v);
                 } else if span < 7.0 {
-                    light.push(v);
+                    self.light.push(v);
                 }
             }
         }
-        (bold, light)
+        self
     }
 
     /// A tick label: plain numbers, k/M/G above 10^4, powers of ten as
-    /// `1e-5` below 10^-3 (no SI prefixes below one: they misread on
-    /// axes in percent or seconds).
-    fn label(&self, v: f64, step: f64) -> String {
-        if self.log {
-            let x = 10f64.powf(v);
-            return fmt_tick(x * self.scale, x * self.scale);
-        }
-        fmt_tick(v * self.scale, step * self.scale)
-    }
-}
-
-/// An axis for plotters: the range in drawing space and our own ticks
-/// (plotters' `WithKeyPoints` would do, but leaves the mesh without its
-/// label formatter).
-#[derive(Clone)]
-struct Scale {
-    ax: Ax,
-    bold: Vec<f64>,
-    light: Vec<f64>,
-}
-
-impl Scale {
-    /// The axis with about `n` labelled ticks.
-    fn new(ax: Ax, n: usize) -> Self {
-        let (bold, light) = ax.ticks(n);
-        Scale { ax, bold, light }
-    }
-
-    /// The label of tick `v` (decimals from the tick step).
+    /// `1e-5` below 10^-3 (no SI prefixes below one: they misread on axes
+    /// in percent or seconds); decimals from the tick step.
     fn label(&self, v: f64) -> String {
+        if self.log {
+            let x = 10f64.powf(v) * self.scale;
+            return fmt_tick(x, x);
+        }
         let step = self.bold.windows(2).map(|w| w[1] - w[0]).next();
-        self.ax.label(v, step.unwrap_or(1.0))
+        fmt_tick(v * self.scale, step.unwrap_or(1.0) * self.scale)
     }
 }
 
-impl Ranged for Scale {
+impl Ranged for Ax {
     type FormatOption = DefaultFormatting;
     type ValueType = f64;
 
-    /// plotters' own linear map (`RangedCoordf64`).
     fn map(&self, v: &f64, limit: (i32, i32)) -> i32 {
-        let r: RangedCoordf64 = (self.ax.lo..self.ax.hi).into();
-        r.map(v, limit)
+        RangedCoordf64::from(self.lo..self.hi).map(v, limit)
     }
 
     fn key_points<H: KeyPointHint>(&self, hint: H) -> Vec<f64> {
@@ -174,7 +146,7 @@ impl Ranged for Scale {
     }
 
     fn range(&self) -> std::ops::Range<f64> {
-        self.ax.lo..self.ax.hi
+        self.lo..self.hi
     }
 }
 
@@ -202,10 +174,8 @@ fn fmt_tick(v: f64, step: f64) -> String {
 /// Why a figure cannot be drawn at all.
 fn validate(fig: &Figure) -> Result<(), PlotError> {
     let (w, h) = (fig.width, fig.height);
-    if !(MIN_SIDE..=MAX_SIDE).contains(&w)
-        || !(MIN_SIDE..=MAX_SIDE).contains(&h)
-        || u64::from(w) * u64::from(h) > MAX_PIXELS
-    {
+    let side = MIN_SIDE..=MAX_SIDE;
+    if !side.contains(&w) || !side.contains(&h) || u64::from(w) * u64::from(h) > MAX_PIXELS {
         return Err(PlotError::InvalidSize {
             width: w,
             height: h,
@@ -219,24 +189,19 @@ fn validate(fig: &Figure) -> Result<(), PlotError> {
     }
     let axes = std::iter::once(("x", &fig.x)).chain(fig.panels.iter().map(|p| ("y", &p.y)));
     for (name, a) in axes {
-        if let Some((lo, hi)) = a.range {
-            let reason = if !(lo.is_finite() && hi.is_finite()) {
-                Some("ends must be finite")
-            } else if a.log && (lo <= 0.0 || hi <= 0.0) {
-                Some("a log axis needs positive ends")
-            } else {
-                None
-            };
-            if let Some(reason) = reason {
-                let axis = format!("{name} ({})", a.label);
-                return Err(PlotError::InvalidRange {
-                    axis,
-                    lo,
-                    hi,
-                    reason,
-                });
-            }
-        }
+        let Some((lo, hi)) = a.range else { continue };
+        let reason = match () {
+            _ if !(lo.is_finite() && hi.is_finite()) => "ends must be finite",
+            _ if a.log && (lo <= 0.0 || hi <= 0.0) => "a log axis needs positive ends",
+            _ => continue,
+        };
+        let axis = format!("{name} ({})", a.label);
+        return Err(PlotError::InvalidRange {
+            axis,
+            lo,
+            hi,
+            reason,
+        });
     }
     Ok(())
 }
@@ -244,95 +209,75 @@ fn validate(fig: &Figure) -> Result<(), PlotError> {
 /// The visible range of an axis: the explicit one, else the values'
 /// span padded by 5 % (a linear range that starts near zero starts at it).
 fn fit(axis: &Axis, values: impl Iterator<Item = f64>) -> Ax {
-    let probe = Ax {
+    let mut ax = Ax {
         lo: 0.0,
         hi: 1.0,
         log: axis.log,
-        scale: 1.0,
+        scale: axis.label_scale,
+        bold: Vec::new(),
+        light: Vec::new(),
     };
-    let (mut lo, mut hi, explicit) = match axis.range {
-        Some((a, b)) => (probe.t(a.min(b)).unwrap(), probe.t(a.max(b)).unwrap(), true),
-        None => {
-            let (lo, hi) = values
-                .filter_map(|v| probe.t(v))
-                .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
-                    (a.min(v), b.max(v))
-                });
-            if lo.is_finite() {
-                (lo, hi, false)
-            } else {
-                (0.0, 1.0, true)
-            }
-        }
+    let (lo, hi) = match axis.range {
+        // Checked finite (and positive on a log axis) by `validate`.
+        Some((a, b)) => (ax.t(a.min(b)).unwrap_or(0.0), ax.t(a.max(b)).unwrap_or(1.0)),
+        None => values
+            .filter_map(|v| ax.t(v))
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
+                (a.min(v), b.max(v))
+            }),
     };
+    if !lo.is_finite() {
+        return ax;
+    }
+    (ax.lo, ax.hi) = (lo, hi);
     if hi - lo <= 1e-12 * lo.abs().max(1.0) {
         let d = if axis.log {
             0.5
         } else {
             0.5 * lo.abs().max(1.0)
         };
-        (lo, hi) = (lo - d, hi + d);
-    } else if !explicit {
+        (ax.lo, ax.hi) = (lo - d, hi + d);
+    } else if axis.range.is_none() {
         let pad = 0.05 * (hi - lo);
-        if !axis.log && lo >= 0.0 && lo < 0.3 * (hi - lo) {
-            lo = 0.0;
-        } else {
-            lo -= pad;
-        }
-        hi += pad;
+        ax.lo = match !axis.log && lo >= 0.0 && lo < 0.3 * (hi - lo) {
+            true => 0.0,
+            false => lo - pad,
+        };
+        ax.hi += pad;
     }
-    Ax {
-        lo,
-        hi,
-        log: axis.log,
-        scale: axis.label_scale,
-    }
+    ax
 }
 
 /// Maximal stretches of a series inside the view, in drawing space:
-/// non-drawable points break the line, segments are cut at the edges.
+/// non-drawable points break the line, segments are cut at the edges
+/// (plotters neither breaks nor clips a line: it clamps points to the
+/// plot area).
 fn runs(points: &[(f64, f64)], x: &Ax, y: &Ax) -> Vec<Vec<(f64, f64)>> {
     let view = Rect::new(x.lo, y.lo, x.hi, y.hi);
     let mut out: Vec<Vec<(f64, f64)>> = Vec::new();
-    let mut prev: Option<(f64, f64)> = None;
-    let mut open = false;
+    let (mut prev, mut open) = (None, false);
     for &(px, py) in points {
         let Some(p) = x.t(px).zip(y.t(py)) else {
             (prev, open) = (None, false);
             continue;
         };
-        match prev {
-            None if view.contains_rect(&Rect::new(p.0, p.1, p.0, p.1)) => {
+        match prev.and_then(|q| Some((q, clip_segment(q, p, &view)?))) {
+            None if prev.is_none() && view.contains_rect(&Rect::new(p.0, p.1, p.0, p.1)) => {
                 out.push(vec![p]);
                 open = true;
             }
-            None => {}
-            Some(q) => match clip_segment(q, p, &view) {
-                Some((t0, t1)) => {
-                    let at = |t: f64| (q.0 + (p.0 - q.0) * t, q.1 + (p.1 - q.1) * t);
-                    if !open || t0 > 0.0 {
-                        out.push(vec![at(t0)]);
-                    }
-                    if let Some(run) = out.last_mut() {
-                        run.push(at(t1));
-                    }
-                    open = t1 >= 1.0;
+            None => open = false,
+            Some((q, (t0, t1))) => {
+                let at = |t: f64| (q.0 + (p.0 - q.0) * t, q.1 + (p.1 - q.1) * t);
+                if !open || t0 > 0.0 {
+                    out.push(vec![at(t0)]);
                 }
-                None => open = false,
-            },
+                out.last_mut().into_iter().for_each(|r| r.push(at(t1)));
+                open = t1 >= 1.0;
+            }
         }
         prev = Some(p);
     }
-    out
-}
-
-/// A staircase that holds each value until the next point's x.
-fn staircase(points: &[(f64, f64)]) -> Vec<(f64, f64)> {
-    let mut out = Vec::with_capacity(points.len() * 2);
-    for w in points.windows(2) {
-        out.extend([w[0], (w[1].0, w[0].1)]);
-    }
-    out.extend(points.last());
     out
 }
 
@@ -340,23 +285,32 @@ fn color(c: Rgb, alpha: f64) -> RGBAColor {
     RGBAColor(c.0, c.1, c.2, alpha)
 }
 
-/// The outline of a marker of radius `r` about the origin.
+/// The outline of a marker of radius `r` about the origin (plotters has
+/// three shapes; the palette needs eight for greyscale).
 fn marker_outline(k: Marker, r: f64) -> Vec<(i32, i32)> {
+    use std::f64::consts::{FRAC_PI_2, FRAC_PI_4, TAU};
     let reg = |n: usize, rad: f64, rot: f64| -> Vec<(f64, f64)> {
         (0..n)
-            .map(|i| {
-                let t = rot + std::f64::consts::TAU * i as f64 / n as f64;
-                (rad * t.cos(), rad * t.sin())
-            })
+            .map(|i| rot + TAU * i as f64 / n as f64)
+            .map(|t| (rad * t.cos(), rad * t.sin()))
             .collect()
     };
-    let bar = |a: f64, b: f64| -> Vec<(f64, f64)> {
-        // A plus of half-width b and arm a, turned for a cross.
-        let p = [(b, b), (b, a), (-b, a), (-b, b), (-a, b), (-a, -b)];
-        let q = [(-b, -b), (-b, -a), (b, -a), (b, -b), (a, -b), (a, b)];
-        p.iter().chain(&q).copied().collect()
-    };
-    use std::f64::consts::{FRAC_PI_2, FRAC_PI_4};
+    // A plus of half-width b and arm a (turned for a cross).
+    let (a, b) = (r * 1.15, r * 0.3);
+    let plus = [
+        (b, b),
+        (b, a),
+        (-b, a),
+        (-b, b),
+        (-a, b),
+        (-a, -b),
+        (-b, -b),
+        (-b, -a),
+        (b, -a),
+        (b, -b),
+        (a, -b),
+        (a, b),
+    ];
     let pts = match k {
         Marker::Circle => circle(0.0, 0.0, r),
         Marker::Square => reg(4, r * 1.15, FRAC_PI_4),
@@ -364,9 +318,8 @@ fn marker_outline(k: Marker, r: f64) -> Vec<(i32, i32)> {
         Marker::TriangleDown => reg(3, r * 1.25, FRAC_PI_2),
         Marker::Diamond => reg(4, r * 1.2, 0.0),
         Marker::Hexagon => reg(6, r * 1.05, 0.0),
-        Marker::Plus => bar(r * 1.15, r * 0.3),
-        Marker::Cross => bar(r * 1.15, r * 0.3)
-            .into_iter()
+        Marker::Plus => plus.to_vec(),
+        Marker::Cross => (plus.iter())
             .map(|(x, y)| ((x - y) * FRAC_PI_4.cos(), (x + y) * FRAC_PI_4.cos()))
             .collect(),
     };
@@ -375,24 +328,40 @@ fn marker_outline(k: Marker, r: f64) -> Vec<(i32, i32)> {
         .collect()
 }
 
-/// Dash and gap in pixels for a pen at line width `w` (round caps add
-/// half a width at each end of a dash).
-fn dash_px(pen: &Pen, w: f64) -> (i32, i32) {
-    match pen.dash {
+/// How a series draws: its colour, stroke, dash and gap in pixels (round
+/// caps add half a width at each end of a dash) and marker outline.
+struct Ink {
+    color: RGBAColor,
+    stroke: ShapeStyle,
+    dash: (i32, i32),
+    marker: Vec<(i32, i32)>,
+}
+
+/// The ink of palette entry `style` at the figure's line width.
+fn ink(style: usize, m: &Metrics) -> Ink {
+    let pen = pen_of(style);
+    let color = color(pen.color, 1.0);
+    let dash = match pen.dash {
         Some((on, off)) => (
-            (((on - 1.0) * w).round() as i32).max(1),
-            ((off + 1.0) * w).round() as i32,
+            (((on - 1.0) * m.lw).round() as i32).max(1),
+            ((off + 1.0) * m.lw).round() as i32,
         ),
         None => (1_000_000, 1),
+    };
+    Ink {
+        color,
+        stroke: color.stroke_width(m.lw as u32),
+        dash,
+        marker: marker_outline(pen.marker, m.base * 0.24),
     }
 }
 
-/// A label still to be placed: candidate spots in pixels, best first.
+/// A label still to be placed: candidate spots in pixels, best first, in
+/// its panel's plot `area`, with a dot at the data point a note points at.
 struct Pending {
     text: String,
     spots: Vec<(f64, f64, TextStyle)>,
     area: Rect,
-    /// A dot at data coordinates the label points at.
     pointer: Option<(f64, f64)>,
 }
 
@@ -400,11 +369,11 @@ fn err(e: impl std::fmt::Display) -> PlotError {
     PlotError::Draw(e.to_string())
 }
 
-/// Split `text` into lines no wider than `max_w` at word boundaries (a
-/// single longer word keeps its own line: a legend is never cut short).
+/// Split `text` into lines no wider than `max_w` at plain spaces (a
+/// number keeps its unit by a no-break space; a single longer word keeps
+/// its own line: a legend is never cut short).
 fn wrap(font: &TextFont, text: &str, em: f64, max_w: f64) -> Vec<String> {
     let mut lines: Vec<String> = Vec::new();
-    // Only plain spaces break: a number keeps its unit (no-break space).
     for word in text.split(' ').filter(|w| !w.is_empty()) {
         match lines.last_mut() {
             Some(l) if font.width(&format!("{l} {word}"), em) <= max_w => {
@@ -417,25 +386,22 @@ fn wrap(font: &TextFont, text: &str, em: f64, max_w: f64) -> Vec<String> {
     lines
 }
 
-/// Where everything goes: sizes in pixels and the axes.
-struct Layout {
-    /// Wrapped legend labels per panel: (series index, lines).
-    legends: Vec<Vec<(usize, Vec<String>)>>,
-    legend_w: f64,
-    sample_w: f64,
-    /// Top of the first panel, panel heights, the gap between panels.
-    top: f64,
-    heights: Vec<f64>,
-    gap: f64,
-    x_area: f64,
-    y_area: f64,
-    plot_w: f64,
-    xs: Scale,
-    ys: Vec<Scale>,
+/// plotters' text style for the chart font at em size `em`.
+fn text_style(font: &TextFont, em: f64, c: Rgb) -> PTextStyle<'static> {
+    let size = em / font.em_of_scale(1.0);
+    PTextStyle {
+        color: color(c, 1.0).to_backend_color(),
+        ..PTextStyle::from(("sans-serif", size).into_font())
+    }
 }
 
-/// Size the legend column, the title and note, the panels and the axes.
-fn layout(fig: &Figure, font: &TextFont, m: &Metrics) -> Result<Layout, PlotError> {
+/// Draw the whole figure: the legend column and the panels' sizes, then
+/// per panel plotters' chart (mesh, series) with our extras and its
+/// legend, the title and note, and last the labels placed off the data.
+pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
+    validate(fig)?;
+    let font = TextFont::embedded()?;
+    let m = Metrics::new(fig.width, fig.height);
     let (w, h) = (f64::from(fig.width), f64::from(fig.height));
     let line = |em: f64| font.line_height(em);
     let too_small = PlotError::TooSmall {
@@ -449,7 +415,7 @@ fn layout(fig: &Figure, font: &TextFont, m: &Metrics) -> Result<Layout, PlotErro
         .map(|p| {
             (p.series.iter().enumerate())
                 .filter(|(_, s)| !s.label.trim().is_empty())
-                .map(|(i, s)| (i, wrap(font, &s.label, m.tick, 0.2 * w)))
+                .map(|(i, s)| (i, wrap(&font, &s.label, m.tick, 0.2 * w)))
                 .collect()
         })
         .collect();
@@ -460,26 +426,20 @@ fn layout(fig: &Figure, font: &TextFont, m: &Metrics) -> Result<Layout, PlotErro
         true => text_w + sample_w + 2.0 * m.base,
         false => m.base,
     };
-    // Vertical: title, panels by weight, x axis, note.
+    // Vertical: title, equal panels, x axis, note.
+    let (title_em, note_em) = (m.base * 1.25, m.base * 0.72);
     let title_h = match fig.title.trim().is_empty() {
         true => 0.0,
-        false => line(m.title) + 0.5 * m.base,
+        false => line(title_em) + 0.5 * m.base,
     };
     let top = m.margin + title_h;
-    let note_h = (fig.note.as_ref()).map_or(0.0, |_| line(m.note) + 0.4 * m.base);
+    let note_h = (fig.note.as_ref()).map_or(0.0, |_| line(note_em) + 0.4 * m.base);
     let x_area = (0.65 * m.base + line(m.tick) + line(m.base)).round();
     let gap = (0.9 * m.base).round();
     let n = fig.panels.len();
     let avail = h - top - m.margin * 0.7 - note_h - x_area - gap * (n - 1) as f64;
-    let weight = |p: &Panel| match p.height_weight > 0.0 && p.height_weight.is_finite() {
-        true => p.height_weight,
-        false => 1.0,
-    };
-    let total: f64 = fig.panels.iter().map(weight).sum();
-    let heights: Vec<f64> = (fig.panels.iter())
-        .map(|p| (avail * weight(p) / total).floor())
-        .collect();
-    if heights.iter().any(|ph| *ph < 2.5 * line(m.tick)) {
+    let ph = (avail / n as f64).floor();
+    if ph < 2.5 * line(m.tick) {
         return Err(too_small);
     }
     // Axes: x fitted to everything drawn along it, each y to what is
@@ -491,15 +451,15 @@ fn layout(fig: &Figure, font: &TextFont, m: &Metrics) -> Result<Layout, PlotErro
         s.chain(v).chain(b.filter(|v| v.is_finite()))
     });
     let xa = fit(&fig.x, xv);
-    let ys: Vec<Scale> = (fig.panels.iter().zip(&heights))
-        .map(|(p, ph)| {
+    let ys: Vec<Ax> = (fig.panels.iter())
+        .map(|p| {
             let s = (p.series.iter().flat_map(|s| s.points.iter()))
                 .filter(|q| xa.contains(q.0))
                 .map(|q| q.1);
             let l = (p.limits.iter().map(|l| l.value)).chain(p.notes.iter().map(|a| a.y));
             let b = (p.hbands.iter().flat_map(|b| [b.from, b.to])).filter(|v| v.is_finite());
             let n = ((ph / (2.2 * line(m.tick))) as usize).clamp(2, 9);
-            Scale::new(fit(&p.y, s.chain(l).chain(b)), n)
+            fit(&p.y, s.chain(l).chain(b)).ticked(n)
         })
         .collect();
     let tick_w = (ys.iter().flat_map(|y| y.bold.iter().map(|v| y.label(*v))))
@@ -510,63 +470,29 @@ fn layout(fig: &Figure, font: &TextFont, m: &Metrics) -> Result<Layout, PlotErro
     if plot_w < 6.0 * m.base {
         return Err(too_small);
     }
-    Ok(Layout {
-        legends,
-        legend_w,
-        sample_w,
-        top,
-        heights,
-        gap,
-        x_area,
-        y_area,
-        plot_w,
-        xs: Scale::new(xa, (plot_w / (5.5 * m.base)) as usize),
-        ys,
-    })
-}
+    let xs = xa.ticked((plot_w / (5.5 * m.base)) as usize);
 
-/// plotters' text style for the chart font at em size `em`.
-fn text_style(font: &TextFont, em: f64, c: Rgb) -> PTextStyle<'static> {
-    let size = em / font.em_of_scale(1.0);
-    PTextStyle {
-        color: color(c, 1.0).to_backend_color(),
-        ..PTextStyle::from(("sans-serif", size).into_font())
-    }
-}
-
-/// Draw the whole figure.
-pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
-    validate(fig)?;
-    let font = TextFont::embedded()?;
-    let m = Metrics::new(fig.width, fig.height);
-    let lay = layout(fig, &font, &m)?;
-    let (w, h) = (f64::from(fig.width), f64::from(fig.height));
-    let n = fig.panels.len();
     let mut canvas = Canvas::new(fig.width, fig.height, style::BACKGROUND);
     let mut pending: Vec<Pending> = Vec::new();
     {
-        let backend = CanvasBackend {
+        let root = CanvasBackend {
             canvas: &mut canvas,
             font: &font,
-        };
-        let root = backend.into_drawing_area();
-        let (mut y0, mut legend_end) = (lay.top, lay.top);
-        for (i, p) in fig.panels.iter().enumerate() {
+        }
+        .into_drawing_area();
+        let (mut y0, mut legend_end) = (top, top);
+        for (i, (p, ys)) in fig.panels.iter().zip(&ys).enumerate() {
             let bottom = i + 1 == n;
-            let x_area = if bottom { lay.x_area } else { 0.0 };
+            let x_area = if bottom { x_area } else { 0.0 };
             let area = root.clone().shrink(
                 (m.margin.round() as i32, y0.round() as i32),
-                (
-                    (lay.y_area + lay.plot_w) as u32,
-                    (lay.heights[i] + x_area) as u32,
-                ),
+                ((y_area + plot_w) as u32, (ph + x_area) as u32),
             );
             let mut chart = ChartBuilder::on(&area)
-                .set_label_area_size(LabelAreaPosition::Left, lay.y_area as i32)
+                .set_label_area_size(LabelAreaPosition::Left, y_area as i32)
                 .set_label_area_size(LabelAreaPosition::Bottom, x_area as i32)
-                .build_cartesian_2d(lay.xs.clone(), lay.ys[i].clone())
+                .build_cartesian_2d(xs.clone(), ys.clone())
                 .map_err(err)?;
-            let (xs, ys) = (&lay.xs, &lay.ys[i]);
             let xf = |v: &f64| if bottom { xs.label(*v) } else { String::new() };
             let yf = |v: &f64| ys.label(*v);
             chart
@@ -585,40 +511,39 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
                 .set_all_tick_mark_size((0.35 * m.base) as i32)
                 .draw()
                 .map_err(err)?;
-            draw_extras(&mut chart, p, &xs.ax, &ys.ax, &m, &mut pending)?;
-            draw_series(&mut chart, p, &xs.ax, &ys.ax, &m)?;
+            draw_extras(&mut chart, p, (&xs, ys), &m, &mut pending)?;
+            draw_series(&mut chart, p, (&xs, ys), &m)?;
             let (px, py) = chart.plotting_area().get_pixel_range();
             let frame = [(px.start, py.start), (px.end, py.end)];
             root.draw(&Rectangle::new(frame, color(style::FRAME, 1.0)))
                 .map_err(err)?;
-            if !lay.legends[i].is_empty() {
+            if !legends[i].is_empty() {
                 // The legend gets a chart of its own in the column right of
                 // the plot (plotters keeps a legend inside its chart's
                 // area), beside its panel or below the legend above when
                 // that runs longer (plotters' lines are 1.25 em).
-                let lines: usize = lay.legends[i].iter().map(|(_, l)| l.len()).sum();
+                let lines: usize = legends[i].iter().map(|(_, l)| l.len()).sum();
                 let start = y0.max(legend_end);
-                legend_end = start
-                    + lines as f64 * 1.25 * text_style(&font, m.tick, style::TEXT).font.get_size()
-                    + lay.gap;
+                let em = text_style(&font, m.tick, style::TEXT).font.get_size();
+                legend_end = start + lines as f64 * 1.25 * em + gap;
                 let la = root.clone().shrink(
                     (px.end + (0.6 * m.base) as i32, start.round() as i32),
-                    (lay.legend_w as u32, (h - start).max(1.0) as u32),
+                    (legend_w as u32, (h - start).max(1.0) as u32),
                 );
-                draw_legend(&la, p, &lay.legends[i], &font, &m, lay.sample_w)?;
+                draw_legend(&la, p, &legends[i], &font, &m, sample_w)?;
             }
-            y0 += lay.heights[i] + lay.gap;
+            y0 += ph + gap;
         }
         root.present().map_err(err)?;
     }
     // Title and footer, both from the left margin.
     if let Some(t) = Some(fig.title.trim()).filter(|t| !t.is_empty()) {
-        let size = m.title * ((w - 2.0 * m.margin) / font.width(t, m.title)).min(1.0);
+        let size = title_em * ((w - 2.0 * m.margin) / font.width(t, title_em)).min(1.0);
         let st = TextStyle::new(size, style::TEXT);
         font.draw(&mut canvas, t, m.margin, m.margin, &st);
     }
     if let Some(note) = &fig.note {
-        let st = TextStyle::new(m.note, style::TEXT_SOFT).anchor(HPos::Left, VPos::Bottom);
+        let st = TextStyle::new(note_em, style::TEXT_SOFT).anchor(HPos::Left, VPos::Bottom);
         font.draw(&mut canvas, note.trim(), m.margin, h - m.margin * 0.7, &st);
     }
     place_labels(&mut canvas, &font, &m, pending);
@@ -627,11 +552,10 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
 
 /// Bands, hatched limits and vertical marks under the data; the panel's
 /// labels (theirs, the caption, the notes) queued for placement.
-fn draw_extras<'a, 'b: 'a>(
-    chart: &mut Chart<'a, 'b>,
+fn draw_extras(
+    chart: &mut Chart,
     p: &Panel,
-    xs: &Ax,
-    ys: &Ax,
+    (xs, ys): (&Ax, &Ax),
     m: &Metrics,
     pending: &mut Vec<Pending>,
 ) -> Result<(), PlotError> {
@@ -661,27 +585,47 @@ fn draw_extras<'a, 'b: 'a>(
         area.draw(&Rectangle::new(corners, color(c, a).filled()))
             .map_err(err)
     };
+    let line = |a: (f64, f64), b: (f64, f64), st: ShapeStyle, dash: (i32, i32)| {
+        area.draw(&DashedPathElement::new(
+            [shift(a), shift(b)],
+            dash.0,
+            dash.1,
+            st,
+        ))
+        .map_err(err)
+    };
     let b = m.base;
     let s = |c: Rgb, h: HPos, v: VPos| TextStyle::new(m.small, c).anchor(h, v);
+    let mut queue = |text: &str, spots: Vec<(f64, f64, TextStyle)>| {
+        if !text.trim().is_empty() {
+            let (text, area) = (text.trim().to_string(), plot);
+            pending.push(Pending {
+                text,
+                spots,
+                area,
+                pointer: None,
+            });
+        }
+    };
     let (left, right) = (plot.x0 + 0.5 * b, plot.x1 - 0.5 * b);
-    let mid_x = (plot.x0 + plot.x1) / 2.0;
     for band in &p.hbands {
         let (Some(a), Some(c)) = (ys.clamped(band.from), ys.clamped(band.to)) else {
             continue;
         };
         let r = Rect::new(plot.x0, at(xs.lo, a).1, plot.x1, at(xs.lo, c).1);
         fill(r, style::YBAND, 0.16)?;
-        let mut spots = Vec::new();
-        for (x, h) in [(left, Left), (right, Right)] {
-            let st = |v| s(style::TEXT_SOFT, h, v);
-            let mid = (r.y0 + r.y1) / 2.0;
-            spots.extend([
-                (x, r.y0 - 0.2 * b, st(Bottom)),
-                (x, r.y1 + 0.2 * b, st(Top)),
-                (x, mid, st(Middle)),
-            ]);
-        }
-        queue(pending, &band.label, spots, plot, None);
+        let mid = (r.y0 + r.y1) / 2.0;
+        let spots = [(left, Left), (right, Right)]
+            .into_iter()
+            .flat_map(|(x, h)| {
+                let st = |v| s(style::TEXT_SOFT, h, v);
+                [
+                    (x, r.y0 - 0.2 * b, st(Bottom)),
+                    (x, r.y1 + 0.2 * b, st(Top)),
+                    (x, mid, st(Middle)),
+                ]
+            });
+        queue(&band.label, spots.collect());
     }
     for band in &p.bands {
         let (Some(a), Some(c)) = (xs.clamped(band.from), xs.clamped(band.to)) else {
@@ -695,7 +639,7 @@ fn draw_extras<'a, 'b: 'a>(
             (cx, plot.y0 + 0.3 * b, st(Top)),
             (cx, (plot.y0 + plot.y1) / 2.0, st(Middle)),
         ];
-        queue(pending, &band.label, spots, plot, None);
+        queue(&band.label, spots);
     }
     for l in &p.limits {
         let Some(v) = ys.clamped(l.value) else {
@@ -711,8 +655,8 @@ fn draw_extras<'a, 'b: 'a>(
             // Diagonal hatch, aligned to the canvas so panels line up.
             let g = (0.7 * b).max(3.0);
             let hatch = color(style::LIMIT, 0.22).stroke_width(1);
-            for k in ((bad.x0 + bad.y0) / g).floor() as i64..=((bad.x1 + bad.y1) / g).ceil() as i64
-            {
+            let (k0, k1) = ((bad.x0 + bad.y0) / g, (bad.x1 + bad.y1) / g);
+            for k in k0.floor() as i64..=k1.ceil() as i64 {
                 let c0 = k as f64 * g;
                 let (p0, p1) = ((c0 - bad.y1, bad.y1), (c0 - bad.y0, bad.y0));
                 if let Some((t0, t1)) = clip_segment(p0, p1, &bad) {
@@ -725,34 +669,34 @@ fn draw_extras<'a, 'b: 'a>(
         if !ys.contains(l.value) {
             continue;
         }
-        let ends = vec![shift((plot.x0, y)), shift((plot.x1, y))];
+        let stroke = color(style::LIMIT, 1.0).stroke_width(2);
         area.draw(&PathElement::new(
-            ends,
-            color(style::LIMIT, 1.0).stroke_width(2),
+            vec![shift((plot.x0, y)), shift((plot.x1, y))],
+            stroke,
         ))
         .map_err(err)?;
-        let mut spots = Vec::new();
-        for (x, h) in [(right, Right), (left, Left), (mid_x, Center)] {
-            let above = (x, y - 0.3 * b, s(style::LIMIT, h, Bottom));
-            let below = (x, y + 0.3 * b, s(style::LIMIT, h, Top));
-            spots.extend(match l.bad_side {
-                Side::Above => [above, below],
-                Side::Below => [below, above],
+        let mid_x = (plot.x0 + plot.x1) / 2.0;
+        let spots = [(right, Right), (left, Left), (mid_x, Center)]
+            .into_iter()
+            .flat_map(|(x, h)| {
+                let above = (x, y - 0.3 * b, s(style::LIMIT, h, Bottom));
+                let below = (x, y + 0.3 * b, s(style::LIMIT, h, Top));
+                match l.bad_side {
+                    Side::Above => [above, below],
+                    Side::Below => [below, above],
+                }
             });
-        }
-        queue(pending, &l.label, spots, plot, None);
+        queue(&l.label, spots.collect());
     }
     for vm in p.vmarks.iter().filter(|vm| xs.contains(vm.x)) {
         let x = at(xs.t(vm.x).unwrap_or(xs.lo), ys.lo).0;
-        let ends = vec![shift((x, plot.y0)), shift((x, plot.y1))];
-        let (on, off) = match vm.style {
+        let dash = match vm.style {
             MarkStyle::Solid => (1_000_000, 1),
             MarkStyle::Dashed => (7, 6),
             MarkStyle::Dotted => (1, 5),
         };
         let st = color(style::MARK, 0.9).stroke_width(2);
-        area.draw(&DashedPathElement::new(ends, on, off, st))
-            .map_err(err)?;
+        line((x, plot.y0), (x, plot.y1), st, dash)?;
         // Along the line first (reading upwards), then level beside it.
         let (d, mut spots) = (0.3 * b, Vec::new());
         for (y, h) in [(plot.y0 + 0.4 * b, Right), (plot.y1 - 0.4 * b, Left)] {
@@ -763,14 +707,15 @@ fn draw_extras<'a, 'b: 'a>(
             let st = |h| s(style::MARK, h, v);
             spots.extend([(x + d, y, st(Left)), (x - d, y, st(Right))]);
         }
-        queue(pending, &vm.label, spots, plot, None);
+        queue(&vm.label, spots);
     }
-    let mut corners = Vec::new();
-    for (y, v) in [(plot.y1 - 0.3 * b, Bottom), (plot.y0 + 0.3 * b, Top)] {
-        let st = |h| s(style::TEXT_SOFT, h, v);
-        corners.extend([(left, y, st(Left)), (right, y, st(Right))]);
-    }
-    queue(pending, &p.caption, corners, plot, None);
+    let corners = [(plot.y1 - 0.3 * b, Bottom), (plot.y0 + 0.3 * b, Top)]
+        .into_iter()
+        .flat_map(|(y, v)| {
+            let st = |h| s(style::TEXT_SOFT, h, v);
+            [(left, y, st(Left)), (right, y, st(Right))]
+        });
+    queue(&p.caption, corners.collect());
     for a in &p.notes {
         if !(xs.contains(a.x) && ys.contains(a.y)) {
             continue;
@@ -797,82 +742,50 @@ fn draw_extras<'a, 'b: 'a>(
     Ok(())
 }
 
-fn queue(
-    pending: &mut Vec<Pending>,
-    text: &str,
-    spots: Vec<(f64, f64, TextStyle)>,
-    area: Rect,
-    pointer: Option<(f64, f64)>,
-) {
-    if !text.trim().is_empty() {
-        pending.push(Pending {
-            text: text.trim().to_string(),
-            spots,
-            area,
-            pointer,
-        });
-    }
-}
-
 /// The series through plotters (lines, dashes, markers).
-fn draw_series<'a, 'b: 'a>(
-    chart: &mut Chart<'a, 'b>,
+fn draw_series(
+    chart: &mut Chart,
     p: &Panel,
-    xs: &Ax,
-    ys: &Ax,
+    (xs, ys): (&Ax, &Ax),
     m: &Metrics,
 ) -> Result<(), PlotError> {
-    let lw = m.lw;
     let r = m.base * 0.24;
     for s in &p.series {
-        let pen = pen_of(s.style.0);
-        let line = matches!(s.draw, Draw::Line | Draw::LineAndMarkers | Draw::Steps);
-        let marks = matches!(s.draw, Draw::Markers | Draw::LineAndMarkers);
-        let pts = if s.draw == Draw::Steps {
-            staircase(&s.points)
-        } else {
-            s.points.clone()
-        };
-        let runs = runs(&pts, xs, ys);
-        let (on, off) = dash_px(&pen, lw);
-        let ink = color(pen.color, 1.0);
-        let stroke = ink.stroke_width(lw as u32);
-        let shape = marker_outline(pen.marker, r);
-        if line {
-            for run in &runs {
-                chart
-                    .draw_series(DashedLineSeries::new(run.clone(), on, off, stroke))
-                    .map_err(err)?;
-            }
+        let pen = ink(s.style, m);
+        let runs = runs(&s.points, xs, ys);
+        let (on, off) = pen.dash;
+        for run in runs.iter().filter(|_| s.draw != Draw::Markers) {
+            let line = DashedLineSeries::new(run.clone(), on, off, pen.stroke);
+            chart.draw_series(line).map_err(err)?;
         }
-        if marks {
-            // With a line, markers only identify the series: at least 10
-            // radii apart, staggered by series; without one every point.
-            let spacing = if line { 10.0 * r } else { 0.0 };
-            let mut travelled = spacing * (s.style.0 % 4) as f64 / 4.0;
-            let mut kept = Vec::new();
-            for run in &runs {
-                let mut prev: Option<(i32, i32)> = None;
-                for q in run {
-                    let c = chart.backend_coord(q);
-                    if let Some(o) = prev {
-                        travelled += f64::from(c.0 - o.0).hypot(f64::from(c.1 - o.1));
-                    }
-                    prev = Some(c);
-                    if travelled >= spacing {
-                        travelled = 0.0;
-                        kept.push(*q);
-                    }
+        if s.draw == Draw::Line {
+            continue;
+        }
+        // With a line, markers only identify the series: at least 10
+        // radii apart, staggered by series; without one every point.
+        let spacing = match s.draw {
+            Draw::Markers => 0.0,
+            _ => 10.0 * r,
+        };
+        let mut travelled = spacing * (s.style % 4) as f64 / 4.0;
+        let mut kept = Vec::new();
+        for run in &runs {
+            let mut prev: Option<(i32, i32)> = None;
+            for q in run {
+                let c = chart.backend_coord(q);
+                if let Some(o) = prev {
+                    travelled += f64::from(c.0 - o.0).hypot(f64::from(c.1 - o.1));
+                }
+                prev = Some(c);
+                if travelled >= spacing {
+                    travelled = 0.0;
+                    kept.push(*q);
                 }
             }
-            let shape = shape.clone();
-            chart
-                .draw_series(
-                    kept.into_iter()
-                        .map(|q| EmptyElement::at(q) + Polygon::new(shape.clone(), ink.filled())),
-                )
-                .map_err(err)?;
         }
+        let marks = (kept.into_iter())
+            .map(|q| EmptyElement::at(q) + Polygon::new(pen.marker.clone(), pen.color.filled()));
+        chart.draw_series(marks).map_err(err)?;
     }
     Ok(())
 }
@@ -881,10 +794,9 @@ fn draw_series<'a, 'b: 'a>(
 /// area, overlaps no placed label and covers the least ink; drawn on a
 /// light backing (notes with their dot and pointer).
 fn place_labels(canvas: &mut Canvas, font: &TextFont, m: &Metrics, pending: Vec<Pending>) {
-    let pad = 0.18 * m.base;
+    let (pad, dot) = (0.18 * m.base, 0.19 * m.base);
     let mut placed: Vec<Rect> = Vec::new();
     for p in pending {
-        let dot = 0.19 * m.base;
         if let Some((x, y)) = p.pointer {
             canvas.fill_polys(&[circle(x, y, dot)], style::MARK, 1.0, p.area);
             placed.push(Rect::new(x - dot, y - dot, x + dot, y + dot));
@@ -892,17 +804,15 @@ fn place_labels(canvas: &mut Canvas, font: &TextFont, m: &Metrics, pending: Vec<
         if p.text.is_empty() {
             continue;
         }
-        let score = |i: usize, r: &Rect, canvas: &Canvas| {
-            let mut s = i as f64 * 3.0 + canvas.ink_in(*r, 190) as f64;
-            if !p.area.contains_rect(r) {
-                s += 1e7;
-            }
-            s + placed.iter().filter(|q| q.overlaps(r)).count() as f64 * 1e6
+        let score = |i: usize, r: &Rect| {
+            let outside = if p.area.contains_rect(r) { 0.0 } else { 1e7 };
+            let overlaps = placed.iter().filter(|q| q.overlaps(r)).count() as f64;
+            i as f64 * 3.0 + canvas.ink_in(*r, 190) as f64 + outside + overlaps * 1e6
         };
         let Some((_, (x, y, st), r)) = (p.spots.iter().enumerate())
             .map(|(i, s)| {
                 let r = font.bounds(&p.text, s.0, s.1, &s.2).expand(pad);
-                (score(i, &r, canvas), s, r)
+                (score(i, &r), s, r)
             })
             .min_by(|a, b| a.0.total_cmp(&b.0))
         else {
@@ -915,13 +825,9 @@ fn place_labels(canvas: &mut Canvas, font: &TextFont, m: &Metrics, pending: Vec<
             );
             let (dx, dy) = (corner.0 - px, corner.1 - py);
             let len = dx.hypot(dy).max(1e-9);
+            let start = (px + dx / len * dot * 1.6, py + dy / len * dot * 1.6);
             let mut polys = Vec::new();
-            capsule(
-                (px + dx / len * dot * 1.6, py + dy / len * dot * 1.6),
-                corner,
-                1.3,
-                &mut polys,
-            );
+            capsule(start, corner, 1.3, &mut polys);
             canvas.fill_polys(&polys, style::MARK, 0.85, p.area);
         }
         canvas.fill_rect(r, style::BACKGROUND, 0.82);
@@ -934,7 +840,7 @@ fn place_labels(canvas: &mut Canvas, font: &TextFont, m: &Metrics, pending: Vec<
 /// empty series per entry (its line sample and marker), and one more per
 /// further line of a label wider than the column.
 fn draw_legend(
-    area: &DrawingArea<CanvasBackend, plotters::coord::Shift>,
+    area: &Area,
     p: &Panel,
     legend: &[(usize, Vec<String>)],
     font: &TextFont,
@@ -947,25 +853,26 @@ fn draw_legend(
     let empty = || std::iter::empty::<Circle<(f64, f64), i32>>();
     for (i, lines) in legend {
         let s = &p.series[*i];
-        let pen = pen_of(s.style.0);
-        let line = matches!(s.draw, Draw::Line | Draw::LineAndMarkers | Draw::Steps);
-        let marks = matches!(s.draw, Draw::Markers | Draw::LineAndMarkers);
-        let (on, off) = dash_px(&pen, m.lw);
-        let ink = color(pen.color, 1.0);
-        let stroke = ink.stroke_width(m.lw as u32);
+        let Ink {
+            color,
+            stroke,
+            dash,
+            marker,
+        } = ink(s.style, m);
         let sw = sample_w as i32;
-        let seg = if line { vec![(0, 0), (sw, 0)] } else { vec![] };
-        let dot: Vec<(i32, i32)> = match marks {
-            true => (marker_outline(pen.marker, m.base * 0.24).iter())
-                .map(|q| (q.0 + sw / 2, q.1))
-                .collect(),
-            false => vec![],
+        let seg = match s.draw {
+            Draw::Markers => vec![],
+            _ => vec![(0, 0), (sw, 0)],
+        };
+        let dot: Vec<(i32, i32)> = match s.draw {
+            Draw::Line => vec![],
+            _ => marker.iter().map(|q| (q.0 + sw / 2, q.1)).collect(),
         };
         let anno = chart.draw_series(empty()).map_err(err)?;
         anno.label(lines[0].clone()).legend(move |(x, y)| {
             EmptyElement::at((x, y))
-                + DashedPathElement::new(seg.clone(), on.min(sw), off, stroke)
-                + Polygon::new(dot.clone(), ink.filled())
+                + DashedPathElement::new(seg.clone(), dash.0.min(sw), dash.1, stroke)
+                + Polygon::new(dot.clone(), color.filled())
         });
         for more in &lines[1..] {
             chart.draw_series(empty()).map_err(err)?.label(more.clone());
