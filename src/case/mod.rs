@@ -101,9 +101,7 @@ pub struct Case {
     /// clock below 1 MHz, a range no plant variant can feel). Printed by
     /// `check` and carried into the pick's notes; never an error.
     pub notes: Vec<String>,
-    plant: Model,
-    sensor: Option<Model>,
-    controller: ControllerModel,
+    blocks: Blocks,
 }
 
 /// A CPU clock below this is probably given in MHz instead of Hz
@@ -952,6 +950,99 @@ fn controller_from(ctx: &Ctx, raw: RawController) -> Result<ControllerModel, Cas
         .ok_or_else(|| ctx.invalid("controller", "no controller given"))
 }
 
+/// The plant, sensor and controller of one loop: the case's own or
+/// `[outer]`'s, read by [`blocks_from`] and evaluated by `Case::blocks_at`.
+#[derive(Debug, Clone, PartialEq)]
+struct Blocks {
+    plant: Model,
+    sensor: Option<Model>,
+    controller: ControllerModel,
+}
+
+impl Blocks {
+    /// The blocks in the form the file wrote them.
+    fn written(&self) -> WrittenLoop {
+        WrittenLoop {
+            plant: self.plant.written.clone(),
+            sensor: self.sensor.as_ref().map(|m| m.written.clone()),
+            controller: match &self.controller {
+                ControllerModel::Continuous(m) => m.written.clone(),
+                ControllerModel::Discrete(d) => Written::InZ {
+                    numerator: d.transfer.numerator.descending(),
+                    denominator: d.transfer.denominator.descending(),
+                    rate_hz: 1.0 / d.period_s,
+                },
+            },
+        }
+    }
+
+    /// The continuous models (for the parameter checks).
+    fn models(&self) -> Vec<&Model> {
+        let mut out = vec![&self.plant];
+        out.extend(self.sensor.as_ref());
+        if let ControllerModel::Continuous(m) = &self.controller {
+            out.push(m);
+        }
+        out
+    }
+}
+
+/// What [`blocks_from`] says where the loop's own tables and `[outer.*]`
+/// differ (what is missing, where a delay belongs).
+struct BlockWords {
+    plant_missing: &'static str,
+    sensor_missing: &'static str,
+    controller_missing: &'static str,
+    controller_delay: &'static str,
+    hold_of_continuous: &'static str,
+}
+
+/// `[plant]`, `[sensor]` and `[controller]` (field names as `ctx`
+/// prefixes them), with the hold a controller given in z assumes
+/// (`[controller] hold`). The blocks' `delay_s` are read by the caller.
+fn blocks_from(
+    ctx: &Ctx,
+    plant: Option<RawTransfer>,
+    sensor: Option<RawTransfer>,
+    controller: Option<RawController>,
+    words: &BlockWords,
+) -> Result<(Blocks, Option<HoldKind>), CaseError> {
+    let plant = match plant {
+        Some(p) => model_from(ctx, "plant", "plant", p.transfer, p.zeros, p.poles, p.gain)?,
+        None => None,
+    }
+    .ok_or_else(|| ctx.missing("plant", words.plant_missing))?;
+    let sensor = match sensor {
+        Some(p) => Some(
+            model_from(
+                ctx, "sensor", "sensor", p.transfer, p.zeros, p.poles, p.gain,
+            )?
+            .ok_or_else(|| ctx.missing("sensor", words.sensor_missing))?,
+        ),
+        None => None,
+    };
+    let raw_controller =
+        controller.ok_or_else(|| ctx.missing("controller", words.controller_missing))?;
+    if raw_controller.delay_s.is_some() {
+        return Err(ctx.invalid("controller.delay_s", words.controller_delay));
+    }
+    let assumed_hold = raw_controller.hold.clone();
+    let controller = controller_from(ctx, raw_controller)?;
+    let assumed_hold = match (assumed_hold, &controller) {
+        (None, _) => None,
+        (Some(h), ControllerModel::Discrete(_)) => Some(hold_kind(ctx, "controller.hold", &h)?),
+        (Some(_), ControllerModel::Continuous(_)) => {
+            return Err(ctx.invalid("controller.hold", words.hold_of_continuous));
+        }
+    };
+    let blocks = Blocks {
+        plant,
+        sensor,
+        controller,
+    };
+    Ok((blocks, assumed_hold))
+}
+
 fn params_from(ctx: &Ctx, table: toml::Table, order: &[String]) -> Result<Vec<Param>, CaseError> {
     let mut names: Vec<&String> = order.iter().filter(|n| table.contains_key(*n)).collect();
     // Anything the spanned walk missed keeps the table's order after.
@@ -1471,18 +1562,7 @@ fn arithmetic_from(ctx: &Ctx, raw: Option<RawArithmetic>) -> Result<Option<Arith
 impl Case {
     /// The plant, sensor and controller in the form the file wrote them.
     pub fn written(&self) -> WrittenLoop {
-        WrittenLoop {
-            plant: self.plant.written.clone(),
-            sensor: self.sensor.as_ref().map(|m| m.written.clone()),
-            controller: match &self.controller {
-                ControllerModel::Continuous(m) => m.written.clone(),
-                ControllerModel::Discrete(d) => Written::InZ {
-                    numerator: d.transfer.numerator.descending(),
-                    denominator: d.transfer.denominator.descending(),
-                    rate_hz: 1.0 / d.period_s,
-                },
-            },
-        }
+        self.blocks.written()
     }
 
     /// Reads and validates a case file.
@@ -1537,64 +1617,27 @@ impl Case {
             "sensor.delay_s",
             raw.sensor.as_ref().and_then(|p| p.delay_s.as_ref()),
         )?;
-        let plant = match raw.plant {
-            Some(p) => model_from(&ctx, "plant", "plant", p.transfer, p.zeros, p.poles, p.gain)?,
-            None => None,
-        }
-        .ok_or_else(|| {
-            ctx.missing(
-                "plant",
-                "the plant, as `transfer = \"...\"` or `zeros`/`poles`/`gain` under [plant]",
-            )
-        })?;
-        let sensor = match raw.sensor {
-            Some(p) => Some(
-                model_from(
-                    &ctx, "sensor", "sensor", p.transfer, p.zeros, p.poles, p.gain,
-                )?
-                .ok_or_else(|| {
-                    ctx.missing(
-                        "sensor",
-                        "`transfer` or `zeros`/`poles`/`gain` (or drop [sensor])",
-                    )
-                })?,
-            ),
-            None => None,
-        };
-        let raw_controller = raw
-            .controller
-            .ok_or_else(|| ctx.missing("controller", "the [controller] table"))?;
-        if raw_controller.delay_s.is_some() {
-            return Err(ctx.invalid(
-                "controller.delay_s",
-                "a controller has no transport delay: give a pure delay as `delay_s` on [plant] (the actuator path) or [sensor] (the measurement), and the time the processor takes as [timing] compute_delay (in periods)",
-            ));
-        }
-        let assumed_hold = raw_controller.hold.clone();
-        let controller = controller_from(&ctx, raw_controller)?;
-        let assumed_hold = match (assumed_hold, &controller) {
-            (None, _) => None,
-            (Some(h), ControllerModel::Discrete(_)) => {
-                Some(hold_kind(&ctx, "controller.hold", &h)?)
-            }
-            (Some(_), ControllerModel::Continuous(_)) => {
-                return Err(ctx.invalid(
-                    "controller.hold",
-                    "only a controller given in z assumes a hold; a continuous design is discretized for every hold listed in [timing] hold",
-                ));
-            }
-        };
+        let (blocks, assumed_hold) = blocks_from(
+            &ctx,
+            raw.plant,
+            raw.sensor,
+            raw.controller,
+            &BlockWords {
+                plant_missing: "the plant, as `transfer = \"...\"` or `zeros`/`poles`/`gain` under [plant]",
+                sensor_missing: "`transfer` or `zeros`/`poles`/`gain` (or drop [sensor])",
+                controller_missing: "the [controller] table",
+                controller_delay: "a controller has no transport delay: give a pure delay as `delay_s` on [plant] (the actuator path) or [sensor] (the measurement), and the time the processor takes as [timing] compute_delay (in periods)",
+                hold_of_continuous: "only a controller given in z assumes a hold; a continuous design is discretized for every hold listed in [timing] hold",
+            },
+        )?;
+        let controller = &blocks.controller;
 
         let outer = raw
             .outer
             .map(|o| outer::outer_from(&ctx, o, raw.spec.is_some()))
             .transpose()?;
         // Every identifier bound, every parameter used.
-        let mut exprs: Vec<&Model> = vec![&plant];
-        exprs.extend(sensor.as_ref());
-        if let ControllerModel::Continuous(m) = &controller {
-            exprs.push(m);
-        }
+        let mut exprs: Vec<&Model> = blocks.models();
         if let Some(o) = &outer {
             exprs.extend(o.models());
         }
@@ -1628,13 +1671,13 @@ impl Case {
         let holds = holds_from(
             &ctx,
             raw.timing.as_ref().and_then(|t| t.hold.as_ref()),
-            &controller,
+            controller,
             assumed_hold,
         )?;
         let compute_delays = delays_from(&ctx, raw.timing)?;
         // A controller given in z runs at its own rate only: `[rates]` is
         // optional there, and the "grid" is that one rate.
-        let (rates, rates_ignored) = match &controller {
+        let (rates, rates_ignored) = match controller {
             ControllerModel::Discrete(d) => {
                 let given = raw.rates.is_some();
                 if given {
@@ -1644,7 +1687,7 @@ impl Case {
             }
             ControllerModel::Continuous(_) => (rates_from(&ctx, raw.rates)?, false),
         };
-        let (methods, prewarp_hz) = methods_from(&ctx, raw.methods, &controller)?;
+        let (methods, prewarp_hz) = methods_from(&ctx, raw.methods, controller)?;
         let spec = spec_from(&ctx, raw.spec)?;
         let budget = budget_from(&ctx, raw.budget)?;
         let uncertainty = uncertainty_from(&ctx, raw.uncertainty, &params)?;
@@ -1680,8 +1723,8 @@ impl Case {
             ));
         }
         if uncertainty.is_some() {
-            let in_loop_models: Vec<String> = std::iter::once(&plant)
-                .chain(sensor.as_ref())
+            let in_loop_models: Vec<String> = std::iter::once(&blocks.plant)
+                .chain(blocks.sensor.as_ref())
                 .filter_map(|m| match &m.source {
                     Source::Expr(e) => Some(e.identifiers()),
                     _ => None,
@@ -1715,9 +1758,7 @@ impl Case {
             uncertainty,
             arithmetic,
             outer,
-            plant,
-            sensor,
-            controller,
+            blocks,
         };
         case.nominal()?;
         case.outer_nominal()?;
@@ -1736,6 +1777,12 @@ impl Case {
     /// proper), since some values can break a model the nominal ones
     /// do not (a leading coefficient that vanishes, say).
     pub fn models_at(&self, values: &[f64]) -> Result<LoopModels, CaseError> {
+        self.blocks_at(&self.blocks, values)
+    }
+
+    /// `blocks` (the loop's own or `[outer]`'s) evaluated for parameter
+    /// `values`, each model checked (finite, non-zero, proper).
+    fn blocks_at(&self, blocks: &Blocks, values: &[f64]) -> Result<LoopModels, CaseError> {
         let ctx = Ctx {
             file: self.source.display().to_string(),
             prefix: "",
@@ -1783,12 +1830,12 @@ impl Case {
             Ok(tf)
         };
         Ok(LoopModels {
-            plant: eval(&self.plant)?,
-            sensor: match &self.sensor {
+            plant: eval(&blocks.plant)?,
+            sensor: match &blocks.sensor {
                 Some(m) => eval(m)?,
                 None => Transfer::gain(1.0),
             },
-            controller: match &self.controller {
+            controller: match &blocks.controller {
                 ControllerModel::Continuous(m) => Controller::Continuous(eval(m)?),
                 ControllerModel::Discrete(d) => Controller::Discrete(d.clone()),
             },

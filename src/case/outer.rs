@@ -66,27 +66,19 @@ pub struct OuterLoop {
     /// Cycles one outer update costs (`[outer.budget] cycles_per_update`);
     /// None: estimated from the outer controller like the inner one.
     pub cycles_per_update: Option<f64>,
-    plant: Model,
-    sensor: Option<Model>,
-    controller: ControllerModel,
+    blocks: Blocks,
 }
 
-/// The outer loop's models for one set of parameter values.
-#[derive(Debug, Clone, PartialEq)]
-pub struct OuterModels {
-    /// From the inner plant's output to the outer quantity, driven
-    /// continuously by the inner plant's output.
-    pub plant: Transfer,
-    /// The outer sensor (1 when not given).
-    pub sensor: Transfer,
-    /// The outer controller, continuous or in z.
-    pub controller: Controller,
-}
+/// The outer loop's models for one set of parameter values: the outer
+/// plant (from the inner plant's output to the outer quantity, driven
+/// continuously by it), the outer sensor (1 when not given) and the outer
+/// controller, continuous or in z.
+pub type OuterModels = LoopModels;
 
 impl OuterLoop {
     /// The outer controller's own rate when it is given in z, Hz.
     pub fn rate_in_z_hz(&self) -> Option<f64> {
-        match &self.controller {
+        match &self.blocks.controller {
             ControllerModel::Discrete(d) => Some(1.0 / d.period_s),
             ControllerModel::Continuous(_) => None,
         }
@@ -94,28 +86,12 @@ impl OuterLoop {
 
     /// The outer blocks in the form the file wrote them.
     pub fn written(&self) -> WrittenLoop {
-        WrittenLoop {
-            plant: self.plant.written.clone(),
-            sensor: self.sensor.as_ref().map(|m| m.written.clone()),
-            controller: match &self.controller {
-                ControllerModel::Continuous(m) => m.written.clone(),
-                ControllerModel::Discrete(d) => Written::InZ {
-                    numerator: d.transfer.numerator.descending(),
-                    denominator: d.transfer.denominator.descending(),
-                    rate_hz: 1.0 / d.period_s,
-                },
-            },
-        }
+        self.blocks.written()
     }
 
     /// The expressions of the outer blocks (for the parameter checks).
     pub(super) fn models(&self) -> Vec<&Model> {
-        let mut out = vec![&self.plant];
-        out.extend(self.sensor.as_ref());
-        if let ControllerModel::Continuous(m) = &self.controller {
-            out.push(m);
-        }
-        out
+        self.blocks.models()
     }
 
     /// The inner rates, each with the ratio that puts the outer rate on
@@ -255,62 +231,28 @@ pub(super) fn outer_from(
             ));
         }
     }
-    let plant = match raw.plant {
-        Some(p) => model_from(ctx, "plant", "plant", p.transfer, p.zeros, p.poles, p.gain)?,
-        None => None,
-    }
-    .ok_or_else(|| {
-        ctx.missing(
-            "plant",
-            "the outer plant (from the inner plant's output to the outer quantity), as `transfer = \"...\"` or `zeros`/`poles`/`gain` under [outer.plant]",
-        )
-    })?;
-    let sensor = match raw.sensor {
-        Some(p) => Some(
-            model_from(
-                ctx, "sensor", "sensor", p.transfer, p.zeros, p.poles, p.gain,
-            )?
-            .ok_or_else(|| {
-                ctx.missing(
-                    "sensor",
-                    "`transfer` or `zeros`/`poles`/`gain` (or drop [outer.sensor])",
-                )
-            })?,
-        ),
-        None => None,
-    };
-    let raw_controller = raw
-        .controller
-        .ok_or_else(|| ctx.missing("controller", "the [outer.controller] table"))?;
-    if raw_controller.delay_s.is_some() {
+    let (blocks, assumed_hold) = blocks_from(
+        ctx,
+        raw.plant,
+        raw.sensor,
+        raw.controller,
+        &BlockWords {
+            plant_missing: "the outer plant (from the inner plant's output to the outer quantity), as `transfer = \"...\"` or `zeros`/`poles`/`gain` under [outer.plant]",
+            sensor_missing: "`transfer` or `zeros`/`poles`/`gain` (or drop [outer.sensor])",
+            controller_missing: "the [outer.controller] table",
+            controller_delay: "a controller has no transport delay: give the time the processor takes as [outer.timing] compute_delay (a fraction of the outer period)",
+            hold_of_continuous: "only a controller given in z assumes a hold",
+        },
+    )?;
+    if assumed_hold.is_some_and(|h| h != HoldKind::ZeroOrder) {
         return Err(ctx.invalid(
-            "controller.delay_s",
-            "a controller has no transport delay: give the time the processor takes as [outer.timing] compute_delay (a fraction of the outer period)",
+            "controller.hold",
+            "the outer command is held as the inner loop's reference (`zero-order`); no other hold is built",
         ));
-    }
-    let assumed_hold = raw_controller.hold.clone();
-    let controller = controller_from(ctx, raw_controller)?;
-    if let Some(h) = assumed_hold {
-        match &controller {
-            ControllerModel::Discrete(_) => {
-                if hold_kind(ctx, "controller.hold", &h)? != HoldKind::ZeroOrder {
-                    return Err(ctx.invalid(
-                        "controller.hold",
-                        "the outer command is held as the inner loop's reference (`zero-order`); no other hold is built",
-                    ));
-                }
-            }
-            ControllerModel::Continuous(_) => {
-                return Err(ctx.invalid(
-                    "controller.hold",
-                    "only a controller given in z assumes a hold",
-                ));
-            }
-        }
     }
     outer_hold(ctx, raw.timing.as_ref().and_then(|t| t.hold.as_ref()))?;
     let compute_delays = delays_from(ctx, raw.timing)?;
-    let (methods, prewarp_hz) = methods_from(ctx, raw.methods, &controller)?;
+    let (methods, prewarp_hz) = methods_from(ctx, raw.methods, &blocks.controller)?;
     let spec = spec_from(ctx, raw.spec)?;
     let cycles_per_update = match raw.budget {
         Some(b) => {
@@ -333,11 +275,13 @@ pub(super) fn outer_from(
         spec,
         inner_spec_given,
         cycles_per_update,
-        plant: prefixed(plant),
-        sensor: sensor.map(prefixed),
-        controller: match controller {
-            ControllerModel::Continuous(m) => ControllerModel::Continuous(prefixed(m)),
-            d => d,
+        blocks: Blocks {
+            plant: prefixed(blocks.plant),
+            sensor: blocks.sensor.map(prefixed),
+            controller: match blocks.controller {
+                ControllerModel::Continuous(m) => ControllerModel::Continuous(prefixed(m)),
+                d => d,
+            },
         },
     })
 }
@@ -406,44 +350,10 @@ impl Case {
     /// The outer loop's models for parameter `values` (order of
     /// [`Case::params`]); None without `[outer]`.
     pub fn outer_models_at(&self, values: &[f64]) -> Result<Option<OuterModels>, CaseError> {
-        let Some(outer) = &self.outer else {
-            return Ok(None);
-        };
-        let ctx = Ctx {
-            file: self.source.display().to_string(),
-            prefix: "",
-        };
-        let lookup = |name: &str| {
-            self.params
-                .iter()
-                .position(|p| p.name == name)
-                .and_then(|i| values.get(i).copied())
-        };
-        let eval = |m: &Model| -> Result<Transfer, CaseError> {
-            let tf = match &m.source {
-                Source::Fixed(tf) => tf.clone(),
-                Source::Expr(e) => {
-                    let (num, den) = e
-                        .eval(&lookup)
-                        .map_err(|err| ctx.expression(&m.field, e.source(), &err))?;
-                    Transfer::new(num, den)
-                }
-            };
-            let tf = tf.with_sane_scale();
-            check_transfer(&ctx, &m.field, m.role, &tf, "")?;
-            Ok(tf)
-        };
-        Ok(Some(OuterModels {
-            plant: eval(&outer.plant)?,
-            sensor: match &outer.sensor {
-                Some(m) => eval(m)?,
-                None => Transfer::gain(1.0),
-            },
-            controller: match &outer.controller {
-                ControllerModel::Continuous(m) => Controller::Continuous(eval(m)?),
-                ControllerModel::Discrete(d) => Controller::Discrete(d.clone()),
-            },
-        }))
+        self.outer
+            .as_ref()
+            .map(|outer| self.blocks_at(&outer.blocks, values))
+            .transpose()
     }
 
     /// The outer loop's models at the nominal parameter values.
