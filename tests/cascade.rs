@@ -694,13 +694,18 @@ fn advice_when_nothing_fits_and_every_pair_in_sweep() {
 /// the search keeps pass or fail exactly as in the full sweep. Also: the
 /// search answers as the full sweep would (same largest passing ratio at
 /// every inner rate).
-#[test]
-fn search_screens_agree_with_the_full_figures() {
+/// The cascade demo case on a 12-point inner grid, prepared.
+fn small_demo() -> (String, Case, PreparedCascade) {
     let text = std::fs::read_to_string("demo-cases/motor-drive-cascade.toml")
         .unwrap()
         .replace("points = 40", "points = 12");
-    let c = Case::parse(&text, Path::new("demo.toml")).unwrap();
-    let pc = prepare_cascade(&c).unwrap().unwrap();
+    let (c, pc) = cascade(&text);
+    (text, c, pc)
+}
+
+#[test]
+fn search_screens_agree_with_the_full_figures() {
+    let (_, c, pc) = small_demo();
     let search = cascade_rows(&c, &pc, false);
     let full = cascade_rows(&c, &pc, true);
     assert_eq!(search.len(), full.len());
@@ -765,11 +770,7 @@ fn search_screens_agree_with_the_full_figures() {
 /// recommendation, `docs/figures.md`).
 #[test]
 fn the_chosen_pair_with_headroom() {
-    let text = std::fs::read_to_string("demo-cases/motor-drive-cascade.toml")
-        .unwrap()
-        .replace("points = 40", "points = 12");
-    let c = Case::parse(&text, Path::new("demo.toml")).unwrap();
-    let pc = prepare_cascade(&c).unwrap().unwrap();
+    let (text, c, pc) = small_demo();
     let pick = cascade_pick(&c, &pc, &cascade_rows(&c, &pc, false));
     let chosen = pick.chosen.as_ref().unwrap();
     let r = pick.recommended.as_ref().unwrap();

@@ -331,6 +331,12 @@ fn rows_at(
             screened: false,
             cost,
         };
+        // A pair the search's screens proved failing: its verdict and why.
+        let screened_out = |verdict, why| CascadeRow {
+            outer_verdict: Some(verdict),
+            screened: true,
+            ..skip(why)
+        };
         if !full {
             if found {
                 rows.push(skip(
@@ -365,29 +371,17 @@ fn rows_at(
             }
             OuterOutcome::Figures(e) => *e,
             OuterOutcome::FailsLoopFigures(verdict) => {
-                let why = format!(
-                    "fails the outer spec on its loop figures ({}); time figures not computed",
-                    failing_checks(&verdict, "=")
-                );
-                rows.push(CascadeRow {
-                    outer_verdict: Some(verdict),
-                    skipped: Some(why),
-                    screened: true,
-                    ..skip(String::new())
-                });
+                let checks = failing_checks(&verdict, "=");
+                rows.push(screened_out(verdict, format!(
+                    "fails the outer spec on its loop figures ({checks}); time figures not computed"
+                )));
                 continue;
             }
             OuterOutcome::FailsSimulation(verdict) => {
-                let why = format!(
-                    "fails the outer spec on a short exact simulation of its step response ({}); loop and time figures not computed",
-                    failing_checks(&verdict, ">=")
-                );
-                rows.push(CascadeRow {
-                    outer_verdict: Some(verdict),
-                    skipped: Some(why),
-                    screened: true,
-                    ..skip(String::new())
-                });
+                let checks = failing_checks(&verdict, ">=");
+                rows.push(screened_out(verdict, format!(
+                    "fails the outer spec on a short exact simulation of its step response ({checks}); loop and time figures not computed"
+                )));
                 continue;
             }
         };
