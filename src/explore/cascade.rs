@@ -31,7 +31,7 @@ use crate::model::discretize::Method;
 use crate::model::rounding;
 use crate::model::transfer::{Controller, DiscreteTransfer};
 use crate::sampled::cascade::evaluate::{CascadePoint, OuterOutcome, PreparedCascade};
-use crate::sampled::evaluate::{Evaluation, Point, Status};
+use crate::sampled::evaluate::{Evaluation, Given, Point, Status};
 use crate::sampled::feasibility::{Assessment, assess};
 use crate::spec::HoldKind;
 use crate::spec::Structure;
@@ -290,12 +290,21 @@ fn rows_at(
         delay: series.inner_delay,
         hold: series.inner_hold,
     };
+    // The inner controller at this rate, discretized once: the inner
+    // evaluation (when the sweep did not hand it over) and the CPU cost.
+    let inner_c = pc.inner.controller_at(rate_hz, series.inner_method);
     let inner = match known.get(&inner_point) {
         Some(e) => e.clone(),
-        None => pc.inner.sampled(&inner_point),
+        None => pc.inner.evaluate(
+            &inner_point,
+            Given {
+                controller: Some(inner_c.as_ref()),
+                ..Given::default()
+            },
+        ),
     };
     let inner_verdict = assess(&inner, &case.spec);
-    let inner_c = pc.inner.controller_at(rate_hz, series.inner_method).ok();
+    let inner_c = inner_c.ok();
     // The inner loop on the whole plant, shared by every ratio here; not
     // built when no ratio needs it (the search skips every pair at an inner
     // rate that fails the inner spec).
