@@ -376,21 +376,8 @@ fn an_upper_limited_figure_is_clipped_and_its_clipped_points_marked() {
     // limit too, so `pick` sweeps nothing: the chart is the sweep's (no
     // search, no pick), drawn from every evaluated row.
     let text = CASE.replace("max_sensitivity_peak = 2.2", "max_sensitivity_peak = 1.3");
-    let case = Case::parse(&text, Path::new("invented.toml")).unwrap();
-    let lp = prepare(&case).unwrap();
-    let grid = looprate::explore::pick::case_grid(&case, &lp);
-    let plan = looprate::explore::sweep::Plan::for_case(&case, &lp, None);
-    let rows = looprate::explore::sweep::run(&plan, &grid, &|| {});
-    let series = ChartSeries::from_rows(&case, &lp, &rows);
-    let charts = describe(&ChartInput {
-        case: &case,
-        lp: &lp,
-        rows: &series,
-        pick: None,
-    });
-    let fig = &(charts.iter().find(|c| c.0 == charts::FIGURES_VS_RATE))
-        .expect("a sweep draws figures-vs-rate")
-        .1;
+    let (_, fig) = sweep_figures_vs_rate(&text);
+    let fig = &fig;
     let ms = &fig.panels[4];
     let top = 3.0 * 1.3;
     let highest = (ms.series.iter().flat_map(|s| &s.points))
@@ -460,21 +447,8 @@ fn a_long_series_is_thinned_to_the_chart_width() {
             "use = [\"tustin\", \"step-invariant\"]",
             "use = [\"tustin\"]",
         );
-    let case = Case::parse(&text, Path::new("invented.toml")).unwrap();
-    let lp = prepare(&case).unwrap();
-    let grid = looprate::explore::pick::case_grid(&case, &lp);
-    let plan = looprate::explore::sweep::Plan::for_case(&case, &lp, None);
-    let rows = looprate::explore::sweep::run(&plan, &grid, &|| {});
-    let series = ChartSeries::from_rows(&case, &lp, &rows);
-    let charts = describe(&ChartInput {
-        case: &case,
-        lp: &lp,
-        rows: &series,
-        pick: None,
-    });
-    let fig = &(charts.iter().find(|c| c.0 == charts::FIGURES_VS_RATE))
-        .expect("a sweep draws figures-vs-rate")
-        .1;
+    let (rows, fig) = sweep_figures_vs_rate(&text);
+    let fig = &fig;
     // No pick: no recommended rate and no f* marks.
     assert!(fig.panels.iter().all(|p| p.vmarks.is_empty()));
     for (panel, def) in fig.panels.iter().zip(RATE_PANELS) {
@@ -565,4 +539,26 @@ fn the_continuous_loop_gain_carries_the_transport_delay() {
             "at {f} Hz: {db} dB, expected {expected}"
         );
     }
+}
+
+/// The figures-vs-rate chart a `sweep` of the case `text` draws (no
+/// search, no pick), from every evaluated row.
+fn sweep_figures_vs_rate(text: &str) -> (Vec<looprate::explore::sweep::SweepRow>, Figure) {
+    let case = Case::parse(text, Path::new("invented.toml")).unwrap();
+    let lp = prepare(&case).unwrap();
+    let grid = looprate::explore::pick::case_grid(&case, &lp);
+    let plan = looprate::explore::sweep::Plan::for_case(&case, &lp, None);
+    let rows = looprate::explore::sweep::run(&plan, &grid, &|| {});
+    let series = ChartSeries::from_rows(&case, &lp, &rows);
+    let fig = describe(&ChartInput {
+        case: &case,
+        lp: &lp,
+        rows: &series,
+        pick: None,
+    })
+    .into_iter()
+    .find(|c| c.0 == charts::FIGURES_VS_RATE)
+    .expect("a sweep draws figures-vs-rate")
+    .1;
+    (rows, fig)
 }

@@ -1103,14 +1103,7 @@ fn md_table(head: &[String], rows: &[Vec<String>]) -> String {
         let padded: Vec<String> = r
             .iter()
             .enumerate()
-            .map(|(j, c)| {
-                let pad = " ".repeat(width[j] - c.chars().count());
-                if numeric[j] {
-                    format!("{pad}{c}")
-                } else {
-                    format!("{c}{pad}")
-                }
-            })
+            .map(|(j, c)| padded_cell(c, width[j], numeric[j]))
             .collect();
         format!("| {} |\n", padded.join(" | "))
     };
@@ -1380,6 +1373,17 @@ fn html(title: &str, blocks: &[Block]) -> Result<String, Error> {
     }
     out.push_str("</body>\n</html>\n");
     Ok(out)
+}
+
+/// A table cell padded to `width` characters: numbers to the right, text
+/// to the left (the Markdown table and the terminal's plain table).
+fn padded_cell(c: &str, width: usize, numeric: bool) -> String {
+    let pad = " ".repeat(width.saturating_sub(c.chars().count()));
+    if numeric {
+        format!("{pad}{c}")
+    } else {
+        format!("{c}{pad}")
+    }
 }
 
 #[cfg(test)]

@@ -4,7 +4,7 @@
 //! Markup is dropped (`**bold**`, `` `code` ``), paragraphs are wrapped,
 //! tables are aligned with numbers to the right, images are left out.
 
-use super::{Block, is_unit, numeric_columns};
+use super::{Block, is_unit, numeric_columns, padded_cell};
 
 /// Line width paragraphs and list items are wrapped to, characters.
 const WIDTH: usize = 100;
@@ -126,15 +126,7 @@ fn table(head: &[String], rows: &[Vec<String>]) -> String {
         .collect();
     let line = |r: &[String]| -> String {
         let cells: Vec<String> = (0..head.len())
-            .map(|j| {
-                let c = cell(r, j);
-                let pad = " ".repeat(width[j] - c.chars().count());
-                if numeric[j] {
-                    format!("{pad}{c}")
-                } else {
-                    format!("{c}{pad}")
-                }
-            })
+            .map(|j| padded_cell(&cell(r, j), width[j], numeric[j]))
             .collect();
         format!("{}\n", cells.join("  ").trim_end())
     };
