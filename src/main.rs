@@ -421,7 +421,15 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 delay,
                 hold,
             };
-            let exact = lp.evaluate(&p, Given::with_delay_margin());
+            // One controller for the figures and the trace.
+            let own = lp.controller_at(p.rate_hz, p.method);
+            let exact = lp.evaluate(
+                &p,
+                Given {
+                    controller: Some(own.as_ref()),
+                    ..Given::with_delay_margin()
+                },
+            );
             let approx: Vec<(HoldApprox, _)> = if matches!(lp.controller, Controller::Continuous(_))
             {
                 HoldApprox::ALL
@@ -438,7 +446,8 @@ fn run(cli: Cli) -> Result<ExitCode> {
             if let Some(path) = trace {
                 let (step, dist) = match &cascade {
                     Some((pc, cp, _)) => pc.outer_traces(cp, None).map_err(|e| anyhow!(e))?,
-                    None => lp.sampled_traces(&p, None).map_err(|e| anyhow!(e))?,
+                    None => (own.as_ref().map_err(|e| anyhow!(e.clone())))
+                        .and_then(|c| lp.traces_around(&p, c, None).map_err(|e| anyhow!(e)))?,
                 };
                 writer::write_atomic(&path, &tables::trace_csv(&step, &dist))?;
             }

@@ -12,6 +12,7 @@
 //! without one.
 
 use std::path::{Path, PathBuf};
+use std::sync::{Arc, Mutex, PoisonError};
 
 use rayon::prelude::*;
 
@@ -25,12 +26,15 @@ use crate::explore::sweep::{Grid, SweepRow};
 use crate::model::discretize::Method;
 use crate::model::poly::C64;
 use crate::model::transfer::Controller;
+use crate::model::transfer::DiscreteTransfer;
 use crate::output::plot::{
     Annotation, Axis, Band, Draw, Figure, Limit, MarkStyle, PALETTE_LEN, Panel, Series, Side,
     VMark, render_png_bytes,
 };
 use crate::sampled::continuous::HoldApprox;
-use crate::sampled::evaluate::{Evaluation, Figures, Point, PreparedLoop, Status};
+use crate::sampled::evaluate::{
+    Evaluation, Figures, Given, Point, PointError, PreparedLoop, Status,
+};
 use crate::sampled::feasibility::assess;
 use crate::sampled::figure::{Figure as LoopFigure, Limiting, Unit, Worse};
 use crate::sampled::frequency::{loop_grid, unwrapped_phase};
@@ -412,6 +416,44 @@ struct Inputs<'a> {
     pick: Option<&'a PickReport>,
     /// The recommendation and its method, when there is one.
     rec: Option<(&'a Recommended, Option<Method>)>,
+    /// The controllers the charts run, shared between them.
+    controllers: Controllers,
+}
+
+/// A controller discretized once per (method, rate) and shared by every
+/// chart that shows that point (its evaluation, its traces, its loop
+/// gain). Charts are drawn in parallel, hence the lock.
+#[derive(Default)]
+struct Controllers(Mutex<Vec<(ControllerKey, Arc<ControllerAt>)>>);
+
+/// A chart point's method and rate (the bits of the rate in Hz).
+type ControllerKey = (Option<Method>, u64);
+type ControllerAt = Result<DiscreteTransfer, PointError>;
+
+impl Controllers {
+    /// The controller at `p`'s method and rate, built on first use.
+    fn at(&self, lp: &PreparedLoop, p: &Point) -> Arc<ControllerAt> {
+        let key = (p.method, p.rate_hz.to_bits());
+        let mut memo = self.0.lock().unwrap_or_else(PoisonError::into_inner);
+        if let Some((_, c)) = memo.iter().find(|(k, _)| *k == key) {
+            return Arc::clone(c);
+        }
+        let c = Arc::new(lp.controller_at(p.rate_hz, p.method));
+        memo.push((key, Arc::clone(&c)));
+        c
+    }
+}
+
+impl Inputs<'_> {
+    /// The nominal loop's figures at `p` around the shared controller.
+    fn evaluation(&self, p: &Point) -> Evaluation {
+        let c = self.controllers.at(self.lp, p);
+        let given = Given {
+            controller: Some(c.as_ref().as_ref()),
+            ..Given::default()
+        };
+        self.lp.evaluate(p, given)
+    }
 }
 
 type Builder = fn(&Inputs) -> Option<Figure>;
@@ -452,6 +494,7 @@ pub fn describe(input: &ChartInput) -> Vec<(&'static str, Figure)> {
         design_delay: rows.design_delay,
         pick,
         rec,
+        controllers: Controllers::default(),
     };
     let jobs: [(&str, Builder); 8] = [
         (FIGURES_VS_RATE, figures_vs_rate),
@@ -1002,7 +1045,10 @@ fn time_figure(
     for (i, run) in runs.iter().enumerate() {
         let p = point_at(inp, method, run.rate);
         let periods = (t_end * run.rate).ceil() as usize + 1;
-        match inp.lp.sampled_traces(&p, Some(periods)) {
+        let c = inp.controllers.at(inp.lp, &p);
+        let traces = (c.as_ref().as_ref().map_err(PointError::clone))
+            .and_then(|c| inp.lp.traces_around(&p, c, Some(periods)));
+        match traces {
             Ok((s, d)) => {
                 let t = if step { s } else { d };
                 let slot = (i, runs.len());
@@ -1027,8 +1073,8 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
     let figs = rec.figures.as_ref()?;
     let spec = &inp.case.spec;
     let fail_rate = failing_rate(inp, rec, method);
-    let star_eval = inp.lp.sampled(&point_at(inp, method, rec.slowest_rate_hz));
-    let fail_eval = inp.lp.sampled(&point_at(inp, method, fail_rate));
+    let star_eval = inp.evaluation(&point_at(inp, method, rec.slowest_rate_hz));
+    let fail_eval = inp.evaluation(&point_at(inp, method, fail_rate));
     // The f* and failing runs can lie 1 % apart and draw almost the same
     // curve: their labels give the figure that decides between them.
     let limiting = assess(&fail_eval, spec).limiting;
@@ -1121,7 +1167,7 @@ fn disturbance(inp: &Inputs) -> Option<Figure> {
     let report = inp.pick?;
     let figs = rec.figures.as_ref()?;
     let spec = &inp.case.spec;
-    let star_eval = inp.lp.sampled(&point_at(inp, method, rec.slowest_rate_hz));
+    let star_eval = inp.evaluation(&point_at(inp, method, rec.slowest_rate_hz));
     let recovery = [
         report.design.as_ref().and_then(|f| f.recovery_time_s),
         figs.recovery_time_s,
@@ -1188,8 +1234,17 @@ fn loop_response(inp: &Inputs) -> Option<Figure> {
     let (rec, method) = inp.rec?;
     let report = inp.pick?;
     let p = point_at(inp, method, rec.rate_hz);
-    let l = inp.lp.sampled_loop_gain(&p).ok()?;
-    let detail = inp.lp.sampled(&p).loop_detail?;
+    // One controller and one plant side for the figures and the curves.
+    let c = inp.controllers.at(inp.lp, &p);
+    let c = c.as_ref().as_ref().ok()?;
+    let plant = inp.lp.hold_at(&p).ok()?;
+    let given = Given {
+        controller: Some(Ok(c)),
+        plant: Some(Ok(&plant)),
+        ..Given::default()
+    };
+    let detail = inp.lp.evaluate(&p, given).loop_detail?;
+    let l = plant.loop_gain(c.clone());
     let range = inp.lp.sampled_range(rec.rate_hz);
     let grid = loop_grid(&l, &range);
     let phase = unwrapped_phase(&grid);

@@ -311,6 +311,16 @@ impl PlantAt {
         }
     }
 
+    /// Loop gain `C(e^{jwT}) G(e^{jwT})` of this plant side around
+    /// controller `c`, as a closure over w (rad/s) that owns what it reads
+    /// (the loop chart, the tests' margin checks).
+    pub fn loop_gain(self, c: DiscreteTransfer) -> impl Fn(f64) -> C64 {
+        move |w: f64| {
+            let z = C64::from_polar(1.0, w * self.hold.period_s);
+            c.transfer.eval(z) * self.response(w)
+        }
+    }
+
     /// G(e^{jwT}) at `w` rad/s, from the memo when already computed.
     fn response(&self, w: f64) -> C64 {
         let key = w.to_bits();
@@ -714,7 +724,21 @@ impl PreparedLoop {
         p: &Point,
         periods: Option<usize>,
     ) -> Result<(Vec<TracePoint>, Vec<TracePoint>), PointError> {
-        let (hold, _, cl) = self.sampled_loop(p)?;
+        check_point(p)?;
+        let c = self.controller_at(p.rate_hz, p.method)?;
+        self.traces_around(p, &c, periods)
+    }
+
+    /// [`PreparedLoop::sampled_traces`] around controller `c` (the point's
+    /// own, built once by `controller_at` and shared with its evaluation).
+    pub fn traces_around(
+        &self,
+        p: &Point,
+        c: &DiscreteTransfer,
+        periods: Option<usize>,
+    ) -> Result<(Vec<TracePoint>, Vec<TracePoint>), PointError> {
+        check_point(p)?;
+        let (hold, cl) = self.closed_loop_around(p, c)?;
         let poles = cl.poles()?;
         // A trace is a file or a chart: no cap in periods, but at most
         // `TRACE_PERIODS` periods drawn point by point (longer spans keep
@@ -729,12 +753,7 @@ impl PreparedLoop {
     /// Loop gain of the sampled loop at a point, as a closure over w (rad/s).
     pub fn sampled_loop_gain(&self, p: &Point) -> Result<impl Fn(f64) -> C64 + use<>, PointError> {
         let (hold, c, _) = self.sampled_loop(p)?;
-        let plant_z = hold.augmented();
-        let t = hold.period_s;
-        Ok(move |w: f64| {
-            let z = C64::from_polar(1.0, w * t);
-            c.transfer.eval(z) * plant_z.response_at(z, 0)
-        })
+        Ok(PlantAt::new(hold).loop_gain(c))
     }
 
     /// The frequency range the sampled loop's figures are computed on at
