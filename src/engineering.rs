@@ -128,20 +128,31 @@ pub fn seconds(v: f64) -> String {
 /// A computation delay in periods as an engineer says it: `none`,
 /// `0.5 of a period`, `1 period`, `2.5 periods`.
 pub fn periods(d: f64) -> String {
+    periods_of(d, "period")
+}
+
+/// [`periods`] of a named period (`outer period`: `0.5 of an outer
+/// period`, `2 outer periods`).
+pub fn periods_of(d: f64, period: &str) -> String {
     let n = sig4(d);
     let n = if n.contains('.') && !n.contains('e') {
         n.trim_end_matches('0').trim_end_matches('.').to_string()
     } else {
         n
     };
+    let article = if period.starts_with(['a', 'e', 'i', 'o', 'u']) {
+        "an"
+    } else {
+        "a"
+    };
     if d == 0.0 {
         "none".into()
     } else if d < 1.0 {
-        format!("{n} of a period")
+        format!("{n} of {article} {period}")
     } else if d == 1.0 {
-        "1 period".into()
+        format!("1 {period}")
     } else {
-        format!("{n} periods")
+        format!("{n} {period}s")
     }
 }
 

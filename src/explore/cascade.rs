@@ -636,8 +636,28 @@ fn recommend(case: &Case, pc: &PreparedCascade, chosen: &CascadeRow) -> Recommen
 pub struct CascadeWindow {
     pub low_hz: Option<f64>,
     pub high_hz: Option<f64>,
-    /// `cpu-budget` or `last-rate-checked`.
-    pub high_bound: &'static str,
+    /// What sets `high_hz`.
+    pub high_bound: CascadeTop,
+}
+
+/// What sets the top of a cascade's inner-rate window (`pick.json`
+/// `cascade.window.high_bound`: `cpu-budget` or `last-rate-checked`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum CascadeTop {
+    /// The fastest inner rate whose cheapest passing pair fits the budget.
+    CpuBudget,
+    /// No budget given: the fastest inner rate checked.
+    LastRateChecked,
+}
+
+impl std::fmt::Display for CascadeTop {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(match self {
+            CascadeTop::CpuBudget => "the CPU budget",
+            CascadeTop::LastRateChecked => "the fastest inner rate checked",
+        })
+    }
 }
 
 /// The cascade's answer (`pick.json` `cascade`).
@@ -760,9 +780,9 @@ pub fn cascade_pick(case: &Case, pc: &PreparedCascade, rows: &[CascadeRow]) -> C
                     .filter(|(_, r)| r.is_some_and(fits))
                     .map(|(f, _)| *f)
                     .fold(None, |m: Option<f64>, f| Some(m.map_or(f, |m| m.max(f)))),
-                "cpu-budget",
+                CascadeTop::CpuBudget,
             ),
-            None => (by_rate.last().map(|(f, _)| *f), "last-rate-checked"),
+            None => (by_rate.last().map(|(f, _)| *f), CascadeTop::LastRateChecked),
         };
         CascadeWindow {
             low_hz: low,

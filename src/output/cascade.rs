@@ -9,7 +9,7 @@ use std::path::Path;
 use serde_json::{Value, json};
 
 use crate::case::Case;
-use crate::engineering::{hz, periods, sig4 as fmt_num};
+use crate::engineering::{hz, periods, periods_of, sig4 as fmt_num};
 use crate::error::Error;
 use crate::explore::cascade::{
     CascadePick, CascadeRow, InnerEvaluations, cascade_pick, cascade_rows, cascade_rows_with,
@@ -53,11 +53,11 @@ pub fn outer_json(case: &Case, p: &CascadePoint, e: &Evaluation) -> Value {
 /// The outer loop's table for `eval` (text).
 pub fn outer_text(case: &Case, p: &CascadePoint, e: &Evaluation) -> String {
     let header = format!(
-        "outer loop: ratio {}, rate {}, method {}, computation delay {} (outer periods); lifted over one outer period, broken at the outer controller's output; time figures on the outer plant output (points between inner samples included), load step at the outer plant's input",
+        "outer loop: ratio {}, rate {}, method {}, computation delay {}; lifted over one outer period, broken at the outer controller's output; time figures on the outer plant output (points between inner samples included), load step at the outer plant's input",
         p.ratio,
         hz(p.outer_rate_hz()),
         method_name(p.outer_method),
-        periods(p.outer_delay)
+        periods_of(p.outer_delay, "outer period")
     );
     let spec = case
         .outer
@@ -229,14 +229,14 @@ fn report_blocks(
     match &pick.chosen {
         Some(c) => {
             lines.push(format!(
-                "chosen pair: inner loop {} ({}, computation delay {}), ratio {}, outer loop {} ({}, computation delay {} in outer periods)",
+                "chosen pair: inner loop {} ({}, computation delay {}), ratio {}, outer loop {} ({}, computation delay {})",
                 hz(c.inner_rate_hz),
                 c.series.inner_method,
                 periods(c.series.inner_compute_delay),
                 c.ratio,
                 hz(c.outer_rate_hz),
                 c.series.outer_method,
-                periods(c.series.outer_compute_delay)
+                periods_of(c.series.outer_compute_delay, "outer period")
             ));
             if let Some(l) = c.cost.total_load_pct {
                 lines.push(format!(
@@ -277,10 +277,11 @@ fn report_blocks(
     }
     if let Some([lo, hi]) = pick.window_hz {
         lines.push(format!(
-            "inner-rate window: {} to {} (top set by: {})",
+            "inner-rate window: {} to {}{}",
             hz(lo),
             hz(hi),
-            pick.window.as_ref().map_or("", |w| w.high_bound)
+            (pick.window.as_ref())
+                .map_or_else(String::new, |w| format!(" (top set by {})", w.high_bound))
         ));
     }
     lines.extend(pick.advice.iter().map(|a| format!("advice: {a}")));
