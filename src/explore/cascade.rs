@@ -27,7 +27,7 @@ use std::collections::HashMap;
 use crate::explore::budget;
 use crate::explore::pick::{case_methods, prepare};
 use crate::explore::sweep::SweepRow;
-use crate::model::discretize::Method;
+use crate::model::discretize::{Method, MethodChoice};
 use crate::model::rounding;
 use crate::model::transfer::{Controller, DiscreteTransfer};
 use crate::sampled::cascade::evaluate::{CascadePoint, OuterOutcome, PreparedCascade};
@@ -470,31 +470,26 @@ pub struct SeriesAnswer {
     pub largest_ratio: Vec<(f64, Option<usize>)>,
 }
 
-/// A series with its identities as names.
+/// A series' identities (written as their names).
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct SeriesNames {
-    pub inner_method: String,
-    pub inner_hold: String,
+    pub inner_method: MethodChoice,
+    pub inner_hold: HoldKind,
     pub inner_compute_delay: f64,
-    pub outer_method: String,
+    pub outer_method: MethodChoice,
     pub outer_compute_delay: f64,
 }
 
 impl SeriesNames {
     pub fn of(p: &CascadePoint) -> SeriesNames {
         SeriesNames {
-            inner_method: method_name(p.inner.method),
-            inner_hold: p.inner.hold.name().to_string(),
+            inner_method: MethodChoice(p.inner.method),
+            inner_hold: p.inner.hold,
             inner_compute_delay: p.inner.delay,
-            outer_method: method_name(p.outer_method),
+            outer_method: MethodChoice(p.outer_method),
             outer_compute_delay: p.outer_delay,
         }
     }
-}
-
-/// A method's name, `given-in-z` for a controller given in z.
-pub fn method_name(m: Option<Method>) -> String {
-    m.map_or_else(|| "given-in-z".to_string(), |m| m.name().to_string())
 }
 
 /// The chosen pair.

@@ -13,9 +13,10 @@ use crate::engineering::{hz, periods, periods_of, sig4 as fmt_num};
 use crate::error::Error;
 use crate::explore::cascade::{
     CascadePick, CascadeRow, InnerEvaluations, cascade_pick, cascade_rows, cascade_rows_with,
-    method_name, prepare_cascade,
+    prepare_cascade,
 };
 use crate::explore::pick::PickReport;
+use crate::model::discretize::MethodChoice;
 use crate::output::cascade_charts::write_cascade_charts;
 use crate::output::charts::Chart;
 use crate::output::report::{Block, Detail, push_if, write_report_extra};
@@ -35,7 +36,7 @@ pub fn outer_json(case: &Case, p: &CascadePoint, e: &Evaluation) -> Value {
         m.insert("ratio".into(), json!(p.ratio));
         m.insert("rate_hz".into(), json!(p.outer_rate_hz()));
         m.insert("period_s".into(), json!(1.0 / p.outer_rate_hz()));
-        m.insert("method".into(), json!(method_name(p.outer_method)));
+        m.insert("method".into(), json!(MethodChoice(p.outer_method)));
         m.insert("compute_delay".into(), json!(p.outer_delay));
         if let Some(outer) = &case.outer {
             let a = assess(e, &outer.spec);
@@ -56,7 +57,7 @@ pub fn outer_text(case: &Case, p: &CascadePoint, e: &Evaluation) -> String {
         "outer loop: ratio {}, rate {}, method {}, computation delay {}; lifted over one outer period, broken at the outer controller's output; time figures on the outer plant output (points between inner samples included), load step at the outer plant's input",
         p.ratio,
         hz(p.outer_rate_hz()),
-        method_name(p.outer_method),
+        MethodChoice(p.outer_method),
         periods_of(p.outer_delay, "outer period")
     );
     let spec = case
@@ -118,29 +119,21 @@ pub fn cascade_header() -> Vec<String> {
     h
 }
 
-fn quote(cell: &str) -> String {
-    if cell.contains([',', '"', '\n']) {
-        format!("\"{}\"", cell.replace('"', "\"\""))
-    } else {
-        cell.to_string()
-    }
-}
-
 fn opt_num(v: Option<f64>) -> String {
     v.map_or_else(String::new, |v| format!("{v}"))
 }
 
-/// One CSV line of a cascade row.
-pub fn cascade_line(r: &CascadeRow) -> String {
+/// The cells of a cascade row in `sweep.csv`.
+pub fn cascade_record(r: &CascadeRow) -> Vec<String> {
     let p = &r.point;
     let mut cells: Vec<String> = vec![
         format!("{}", p.inner.rate_hz),
         p.ratio.to_string(),
         format!("{}", p.outer_rate_hz()),
-        method_name(p.inner.method),
+        MethodChoice(p.inner.method).to_string(),
         p.inner.hold.name().to_string(),
         format!("{}", p.inner.delay),
-        method_name(p.outer_method),
+        MethodChoice(p.outer_method).to_string(),
         format!("{}", p.outer_delay),
         r.inner.status.label(),
     ];
@@ -179,18 +172,18 @@ pub fn cascade_line(r: &CascadeRow) -> String {
     cells.push(opt_num(r.cost.inner_load_pct));
     cells.push(opt_num(r.cost.outer_load_pct));
     cells.push(opt_num(r.cost.total_load_pct));
-    cells.iter().map(|c| quote(c)).collect::<Vec<_>>().join(",")
+    cells
 }
 
 /// The whole cascade CSV (header and one line per row, grid order).
-pub fn cascade_csv(rows: &[CascadeRow]) -> String {
-    let mut s = cascade_header().join(",");
-    s.push('\n');
+pub fn cascade_csv(rows: &[CascadeRow]) -> Vec<u8> {
+    let mut w = csv::Writer::from_writer(Vec::new());
+    // Writing to a Vec cannot fail.
+    let _ = w.write_record(cascade_header());
     for r in rows {
-        s.push_str(&cascade_line(r));
-        s.push('\n');
+        let _ = w.write_record(cascade_record(r));
     }
-    s
+    w.into_inner().unwrap_or_default()
 }
 
 /// File name of the inner loop's own sweep in a cascade run (`sweep.csv`
@@ -378,7 +371,7 @@ pub fn finish_pick(
         .ok_or_else(|| Error::Input("the case has no [outer] table".into()))?;
     let rows = cascade_rows_with(case, &pc, false, inner_known);
     let pick = cascade_pick(case, &pc, &rows);
-    write_atomic(&out_dir.join("sweep.csv"), cascade_csv(&rows).as_bytes())?;
+    write_atomic(&out_dir.join("sweep.csv"), &cascade_csv(&rows))?;
     let mut json = serde_json::to_value(report).unwrap_or(Value::Null);
     if let Value::Object(m) = &mut json {
         m.insert(
@@ -412,6 +405,6 @@ pub fn finish_sweep(out_dir: &Path, case: &Case) -> Result<Vec<CascadeRow>, Erro
     let pc = prepare_cascade(case)?
         .ok_or_else(|| Error::Input("the case has no [outer] table".into()))?;
     let rows = cascade_rows(case, &pc, true);
-    write_atomic(&out_dir.join("sweep.csv"), cascade_csv(&rows).as_bytes())?;
+    write_atomic(&out_dir.join("sweep.csv"), &cascade_csv(&rows))?;
     Ok(rows)
 }
