@@ -17,7 +17,7 @@ use crate::explore::cascade::{
 };
 use crate::explore::pick::PickReport;
 use crate::model::discretize::MethodChoice;
-use crate::output::cascade_charts::write_cascade_charts;
+use crate::output::cascade_charts::{CPU_MAP, write_cascade_charts};
 use crate::output::charts::Chart;
 use crate::output::report::{Block, Detail, push_if, write_report_extra};
 use crate::output::summary::{evaluation_json, evaluation_text};
@@ -333,10 +333,13 @@ fn report_blocks(
             .unwrap_or(&ch.path)
             .display()
             .to_string();
-        let caption = if rel.contains("cpu-map") {
-            "Every (inner rate, ratio) pair: meeting both specs or not, the chosen pair, lines of equal CPU load"
-        } else {
-            "Outer-loop figures against the ratio, one series per inner rate, with the outer spec's limits"
+        let caption = match ch.path.file_name().and_then(|n| n.to_str()) {
+            Some(CPU_MAP) => {
+                "Every (inner rate, ratio) pair: meeting both specs or not, the chosen pair, lines of equal CPU load"
+            }
+            _ => {
+                "Outer-loop figures against the ratio, one series per inner rate, with the outer spec's limits"
+            }
         };
         b.push(Block::Image {
             rel,
