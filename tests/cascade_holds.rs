@@ -293,7 +293,9 @@ fn an_outer_controller_in_z_keeps_its_own_hold() {
     .unwrap_err()
     .to_string();
     assert!(
-        e.contains("z.toml") && e.contains("outer.timing.hold[1]"),
+        e.contains("z.toml")
+            && e.contains("outer.timing.hold[1]")
+            && e.contains("[outer.controller] hold"),
         "{e}"
     );
 }
