@@ -88,6 +88,7 @@ fn cascade(c: &mut Criterion) {
         ratio: 10,
         outer_method: Some(Method::Tustin),
         outer_delay: 0.0,
+        outer_hold: HoldKind::ZeroOrder,
     };
     let e = pc.evaluate_outer(&p, true);
     assert!(

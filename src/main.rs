@@ -108,6 +108,11 @@ enum Command {
         /// the first of [outer.timing] compute_delay).
         #[arg(long = "outer-delay", requires = "ratio")]
         outer_delay: Option<f64>,
+        /// Outer hold: how the outer command is shaped as the inner loop's
+        /// reference between outer updates, `zero-order`, `first-order` or
+        /// `interpolating` (default: the first of [outer.timing] hold).
+        #[arg(long = "outer-hold", requires = "ratio")]
+        outer_hold: Option<String>,
     },
     /// Evaluate every grid point of the case and write DIR/sweep.csv.
     Sweep {
@@ -228,6 +233,7 @@ fn eval_outer(
     ratio: usize,
     method: Option<&str>,
     delay: Option<f64>,
+    hold: Option<&str>,
 ) -> Result<(
     looprate::sampled::cascade::evaluate::PreparedCascade,
     looprate::sampled::cascade::evaluate::CascadePoint,
@@ -258,11 +264,28 @@ fn eval_outer(
             "--outer-delay must be a finite fraction of the outer period >= 0, got {outer_delay}"
         ));
     }
+    let outer_hold = match hold {
+        None => outer.holds[0],
+        Some(h) => HoldKind::from_name(h).ok_or_else(|| {
+            anyhow!(
+                "--outer-hold: unknown hold kind `{h}`; the kinds are: {}",
+                HoldKind::names()
+            )
+        })?,
+    };
+    if matches!(pc.outer_models.controller, Controller::Discrete(_)) && outer_hold != outer.holds[0]
+    {
+        return Err(anyhow!(
+            "--outer-hold {outer_hold}: the outer controller is given in z and assumes a {} hold",
+            outer.holds[0]
+        ));
+    }
     let cp = looprate::sampled::cascade::evaluate::CascadePoint {
         inner,
         ratio,
         outer_method,
         outer_delay,
+        outer_hold,
     };
     let e = pc.evaluate_outer(&cp, true);
     Ok((pc, cp, e))
@@ -381,6 +404,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
             ratio,
             outer_method,
             outer_delay,
+            outer_hold,
         } => {
             let c = Case::load(&case)?;
             let lp = prepare(&c)?;
@@ -440,7 +464,14 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 Vec::new()
             };
             let cascade = match ratio {
-                Some(n) => Some(eval_outer(&c, p, n, outer_method.as_deref(), outer_delay)?),
+                Some(n) => Some(eval_outer(
+                    &c,
+                    p,
+                    n,
+                    outer_method.as_deref(),
+                    outer_delay,
+                    outer_hold.as_deref(),
+                )?),
                 None => None,
             };
             if let Some(path) = trace {

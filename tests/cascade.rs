@@ -63,6 +63,7 @@ fn point(rate_hz: f64, delay: f64, ratio: usize, outer_delay: f64) -> CascadePoi
         ratio,
         outer_method: Some(Method::Tustin),
         outer_delay,
+        outer_hold: HoldKind::ZeroOrder,
     }
 }
 
@@ -239,15 +240,27 @@ fn ratio_one_equals_the_single_rate_loop_by_block_algebra() {
 /// at or after half an outer period. The outer plant output at the 16
 /// points per inner period must match the lifted system's trace (source:
 /// brute-force fine-step simulation of the ODEs, written independently of
-/// the library's realisations).
+/// the library's realisations). For every outer hold: zero-order, and the
+/// ramps of `docs/figures.md` ("Hold kinds") stepped at the inner ticks as
+/// the cascade section defines them (the reference `j` ticks after the
+/// command `v_k` takes effect is `v_k + (v_k - v_{k-1}) j/N` or
+/// `v_{k-1} + (v_k - v_{k-1}) j/N`).
 #[test]
 fn outer_step_matches_a_fine_step_simulation_at_ratios_4_and_10() {
     let outer_sensor = "[outer.sensor]\ntransfer = \"1 / (0.0002*s + 1)\"";
     let (_, pc) = cascade(&drive(outer_sensor, 0.5, ""));
     let rate = 10_000.0;
     let t = 1.0 / rate;
-    for ratio in [4usize, 10] {
-        let p = point(rate, 0.5, ratio, 0.5);
+    let kinds = [
+        HoldKind::ZeroOrder,
+        HoldKind::FirstOrder,
+        HoldKind::Interpolating,
+    ];
+    for (hold, ratio) in kinds.into_iter().flat_map(|h| [(h, 4usize), (h, 10)]) {
+        let p = CascadePoint {
+            outer_hold: hold,
+            ..point(rate, 0.5, ratio, 0.5)
+        };
         let (step, dist) = pc.outer_traces(&p, Some(60)).unwrap();
         for (load, trace) in [(0.0, &step), (1.0, &dist)] {
             let r_outer = 1.0 - load;
@@ -259,6 +272,7 @@ fn outer_step_matches_a_fine_step_simulation_at_ratios_4_and_10() {
                 r_outer,
                 load,
                 60 * ratio,
+                hold,
             );
             let peak = brute.iter().fold(0.0f64, |m, v| m.max(v.abs()));
             assert_eq!(brute.len(), trace.len());
@@ -267,11 +281,11 @@ fn outer_step_matches_a_fine_step_simulation_at_ratios_4_and_10() {
                 .zip(trace.iter())
                 .map(|(a, q)| (a - q.y).abs() / peak)
                 .fold(0.0, f64::max);
-            eprintln!("ratio {ratio}, load {load}: worst relative gap to RK4 {worst:.2e}");
+            eprintln!("{hold} ratio {ratio}, load {load}: worst relative gap to RK4 {worst:.2e}");
             for (i, (a, q)) in brute.iter().zip(trace.iter()).enumerate() {
                 assert!(
                     (a - q.y).abs() <= 1e-8 * peak,
-                    "ratio {ratio}, load {load}, point {i} (t = {}): brute force {a}, lifted {}",
+                    "{hold} ratio {ratio}, load {load}, point {i} (t = {}): brute force {a}, lifted {}",
                     q.t,
                     q.y
                 );
@@ -286,13 +300,14 @@ fn outer_step_matches_a_fine_step_simulation_at_ratios_4_and_10() {
             1.0,
             0.0,
             400 * ratio,
+            hold,
         );
         let f = pc.evaluate_outer(&p, false).figures.unwrap();
         let max = brute.iter().fold(f64::MIN, |m, v| m.max(*v));
         let os = (max - f.y_final) / f.y_final * 100.0;
         assert!(
             (os - f.overshoot_pct.unwrap()).abs() < 1e-4,
-            "ratio {ratio}: brute force overshoot {os} %, lifted {} %",
+            "{hold} ratio {ratio}: brute force overshoot {os} %, lifted {} %",
             f.overshoot_pct.unwrap()
         );
     }
@@ -321,7 +336,8 @@ fn rk4(x: [f64; 4], v: f64, load: f64, h: f64) -> [f64; 4] {
 }
 
 /// Outer plant output (speed) at 16 points per inner period, `ticks`
-/// inner periods long.
+/// inner periods long; the outer command shaped as the inner reference by
+/// `hold`, its ramp read at the inner ticks.
 #[allow(clippy::too_many_arguments)]
 fn simulate(
     t: f64,
@@ -331,6 +347,7 @@ fn simulate(
     r_outer: f64,
     load: f64,
     ticks: usize,
+    hold: HoldKind,
 ) -> Vec<f64> {
     const SUB: usize = 64;
     let h = t / SUB as f64;
@@ -341,7 +358,8 @@ fn simulate(
     let (mut ui, mut ei) = (0.0, 0.0);
     let (mut uo, mut eo) = (0.0, 0.0);
     let mut pending: Vec<(usize, f64)> = Vec::new();
-    let mut reference = 0.0;
+    // The command in force, the one before it, and the tick it took effect.
+    let (mut v_now, mut v_before, mut since) = (0.0, 0.0, 0usize);
     let mut u_prev = 0.0;
     let mut out = Vec::with_capacity(ticks * 16);
     let switch = (inner_delay * SUB as f64).round() as usize;
@@ -354,9 +372,15 @@ fn simulate(
         }
         for &(at, v) in &pending {
             if at == j {
-                reference = v;
+                (v_before, v_now, since) = (v_now, v, j);
             }
         }
+        let ramp = (j - since) as f64 / ratio as f64;
+        let reference = match hold {
+            HoldKind::ZeroOrder => v_now,
+            HoldKind::FirstOrder => v_now + (v_now - v_before) * ramp,
+            HoldKind::Interpolating => v_before + (v_now - v_before) * ramp,
+        };
         let e = reference - x[1];
         ui = ui + kp_i * (e - ei) + ki_i * t / 2.0 * (e + ei);
         ei = e;
@@ -522,8 +546,15 @@ fn bad_cascade_input_names_the_field() {
         e.contains("outer.rates.ratios[0]") && e.contains("whole number"),
         "{e}"
     );
-    let e = err("[outer.timing]\nhold = \"interpolating\"");
-    assert!(e.contains("outer.timing.hold"), "{e}");
+    let e = err("[outer.timing]\nhold = \"staircase\"");
+    assert!(
+        e.contains("bad.toml")
+            && e.contains("outer.timing.hold")
+            && e.contains("unknown hold kind"),
+        "{e}"
+    );
+    let e = err("[outer.timing]\nhold = [\"first-order\", \"cubic\"]");
+    assert!(e.contains("outer.timing.hold[1]"), "{e}");
     let text = drive("", 1.0, "").replace(
         "transfer = \"0.1 / (1e-4*s + 1e-4)\"",
         "transfer = \"s^2 / (s + 1)\"",
@@ -793,6 +824,7 @@ fn the_chosen_pair_with_headroom() {
             ratio: r.ratio,
             outer_method: Some(Method::Tustin),
             outer_delay: 0.5,
+            outer_hold: HoldKind::ZeroOrder,
         },
         false,
     );

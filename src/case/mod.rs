@@ -1201,14 +1201,15 @@ fn holds_from(
             return Err(ctx.invalid(
                 &f,
                 format!(
-                    "the controller is given in z and assumes a {} hold{}: it cannot be run with a `{}` hold (set [controller] hold to the hold it was designed for, or give a continuous design to compare holds)",
+                    "the controller is given in z and assumes a {} hold{}: it cannot be run with a `{}` hold (set [{p}controller] hold to the hold it was designed for, or give a continuous design to compare holds)",
                     default.name(),
                     if assumed.is_some() {
-                        " ([controller] hold)"
+                        format!(" ([{}controller] hold)", ctx.prefix)
                     } else {
-                        " (the default for a controller in z)"
+                        " (the default for a controller in z)".to_string()
                     },
-                    kind.name()
+                    kind.name(),
+                    p = ctx.prefix
                 ),
             ));
         }

@@ -49,6 +49,10 @@ struct RawOuterRates {
 pub struct OuterLoop {
     /// Integer divisions of the inner rate to try, ascending.
     pub ratios: Vec<usize>,
+    /// How the outer command is shaped as the inner loop's reference
+    /// between outer updates (`[outer.timing] hold`, in file order;
+    /// default `zero-order`).
+    pub holds: Vec<HoldKind>,
     /// Outer computation delays, as fractions of the outer period (any
     /// finite value >= 0); the new command reaches the inner loop at the
     /// first inner tick at or after it.
@@ -82,6 +86,14 @@ impl OuterLoop {
             ControllerModel::Discrete(d) => Some(1.0 / d.period_s),
             ControllerModel::Continuous(_) => None,
         }
+    }
+
+    /// Whether the outputs name the outer hold (an `outer_hold` column in
+    /// the cascade rows, an `outer_hold` key in `pick.json`): when the case
+    /// lists anything but `zero-order` alone, so a case that does not use
+    /// ramped outer holds keeps its outputs as they were.
+    pub fn hold_named(&self) -> bool {
+        self.holds != [HoldKind::ZeroOrder]
     }
 
     /// The outer blocks in the form the file wrote them.
@@ -173,46 +185,6 @@ fn ratios_from(ctx: &Ctx, raw: Option<RawOuterRates>) -> Result<Vec<usize>, Case
     Ok(out)
 }
 
-/// `[outer.timing] hold`: the outer command is the inner loop's reference,
-/// held from one outer update to the next; only that hold is built.
-fn outer_hold(ctx: &Ctx, raw: Option<&toml::Value>) -> Result<(), CaseError> {
-    let Some(v) = raw else {
-        return Ok(());
-    };
-    let names: Vec<(String, &toml::Value)> = match v {
-        toml::Value::Array(a) => a
-            .iter()
-            .enumerate()
-            .map(|(i, v)| (format!("timing.hold[{i}]"), v))
-            .collect(),
-        v => vec![("timing.hold".to_string(), v)],
-    };
-    if names.is_empty() {
-        return Err(ctx.invalid("timing.hold", "empty list; give `zero-order`"));
-    }
-    for (f, v) in names {
-        let kind = match v.as_str() {
-            Some(name) => hold_kind(ctx, &f, name)?,
-            None => {
-                return Err(ctx.invalid(
-                    &f,
-                    format!("expected a hold kind name, found a {}", v.type_str()),
-                ));
-            }
-        };
-        if kind != HoldKind::ZeroOrder {
-            return Err(ctx.invalid(
-                &f,
-                format!(
-                    "the outer command is the inner loop's reference, held from one outer update to the next (`zero-order`); a `{}` reference is not built",
-                    kind.name()
-                ),
-            ));
-        }
-    }
-    Ok(())
-}
-
 /// Validate `[outer]`; `inner_spec_given` says whether `[spec]` is there.
 pub(super) fn outer_from(
     ctx: &Ctx,
@@ -244,13 +216,15 @@ pub(super) fn outer_from(
             hold_of_continuous: "only a controller given in z assumes a hold",
         },
     )?;
-    if assumed_hold.is_some_and(|h| h != HoldKind::ZeroOrder) {
-        return Err(ctx.invalid(
-            "controller.hold",
-            "the outer command is held as the inner loop's reference (`zero-order`); no other hold is built",
-        ));
-    }
-    outer_hold(ctx, raw.timing.as_ref().and_then(|t| t.hold.as_ref()))?;
+    // The outer command is the inner loop's reference, held or ramped
+    // between outer updates as the single loop's command is (the ramp read
+    // at the inner ticks; `docs/figures.md`, "Cascaded loops").
+    let holds = holds_from(
+        ctx,
+        raw.timing.as_ref().and_then(|t| t.hold.as_ref()),
+        &blocks.controller,
+        assumed_hold,
+    )?;
     let compute_delays = delays_from(ctx, raw.timing)?;
     let (methods, prewarp_hz) = methods_from(ctx, raw.methods, &blocks.controller)?;
     let spec = spec_from(ctx, raw.spec)?;
@@ -269,6 +243,7 @@ pub(super) fn outer_from(
     let ratios = ratios_from(ctx, raw.rates)?;
     Ok(OuterLoop {
         ratios,
+        holds,
         compute_delays,
         methods,
         prewarp_hz,

@@ -63,11 +63,12 @@ pub struct Series {
     pub inner_hold: HoldKind,
     pub inner_delay: f64,
     pub outer_method: Option<Method>,
+    pub outer_hold: HoldKind,
     pub outer_delay: f64,
 }
 
 /// Every series of a case: inner methods x holds x delays x outer methods
-/// x outer delays, in file order.
+/// x outer holds x outer delays, in file order.
 pub fn case_series(case: &Case, outer: &OuterLoop) -> Vec<Series> {
     let outer_methods: Vec<Option<Method>> = if outer.methods.is_empty() {
         vec![None]
@@ -79,14 +80,17 @@ pub fn case_series(case: &Case, outer: &OuterLoop) -> Vec<Series> {
         for &inner_hold in &case.holds {
             for &inner_delay in &case.compute_delays {
                 for &outer_method in &outer_methods {
-                    for &outer_delay in &outer.compute_delays {
-                        out.push(Series {
-                            inner_method,
-                            inner_hold,
-                            inner_delay,
-                            outer_method,
-                            outer_delay,
-                        });
+                    for &outer_hold in &outer.holds {
+                        for &outer_delay in &outer.compute_delays {
+                            out.push(Series {
+                                inner_method,
+                                inner_hold,
+                                inner_delay,
+                                outer_method,
+                                outer_hold,
+                                outer_delay,
+                            });
+                        }
                     }
                 }
             }
@@ -316,6 +320,7 @@ fn rows_at(
                 ratio: n,
                 outer_method: series.outer_method,
                 outer_delay: series.outer_delay,
+                outer_hold: series.outer_hold,
             },
             pc.outer_time.points_per_period,
         )
@@ -328,6 +333,7 @@ fn rows_at(
             ratio: n,
             outer_method: series.outer_method,
             outer_delay: series.outer_delay,
+            outer_hold: series.outer_hold,
         };
         let cost = pair_cost_at(case, pc, &point, inner_c.as_ref());
         let skip = |why: String| CascadeRow {
@@ -477,16 +483,22 @@ pub struct SeriesNames {
     pub inner_hold: HoldKind,
     pub inner_compute_delay: f64,
     pub outer_method: MethodChoice,
+    /// The outer hold, named only when the case lists anything but
+    /// `zero-order` alone (`OuterLoop::hold_named`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub outer_hold: Option<HoldKind>,
     pub outer_compute_delay: f64,
 }
 
 impl SeriesNames {
-    pub fn of(p: &CascadePoint) -> SeriesNames {
+    /// The names of `p`'s series in a case whose outer loop is `outer`.
+    pub fn of(p: &CascadePoint, outer: &OuterLoop) -> SeriesNames {
         SeriesNames {
             inner_method: MethodChoice(p.inner.method),
             inner_hold: p.inner.hold,
             inner_compute_delay: p.inner.delay,
             outer_method: MethodChoice(p.outer_method),
+            outer_hold: outer.hold_named().then_some(p.outer_hold),
             outer_compute_delay: p.outer_delay,
         }
     }
@@ -682,7 +694,7 @@ pub fn cascade_pick(case: &Case, pc: &PreparedCascade, rows: &[CascadeRow]) -> C
         .expect("cascade_pick runs on a cascade case");
     let mut series: Vec<SeriesAnswer> = Vec::new();
     for r in rows {
-        let names = SeriesNames::of(&r.point);
+        let names = SeriesNames::of(&r.point, outer);
         let idx = match series.iter().position(|s| s.series == names) {
             Some(i) => i,
             None => {
@@ -731,7 +743,7 @@ pub fn cascade_pick(case: &Case, pc: &PreparedCascade, rows: &[CascadeRow]) -> C
     let chosen = best.map(|r| {
         let e = pc.evaluate(&r.point, true);
         ChosenPair {
-            series: SeriesNames::of(&r.point),
+            series: SeriesNames::of(&r.point, outer),
             inner_rate_hz: r.point.inner.rate_hz,
             ratio: r.point.ratio,
             outer_rate_hz: r.point.outer_rate_hz(),
@@ -745,9 +757,12 @@ pub fn cascade_pick(case: &Case, pc: &PreparedCascade, rows: &[CascadeRow]) -> C
     let recommended = best.map(|r| recommend(case, pc, r));
     // The window, on the chosen series (or the cheapest passing one).
     let window = cheapest_passing.map(|c| {
-        let names = SeriesNames::of(&c.point);
+        let names = SeriesNames::of(&c.point, outer);
         let mut by_rate: Vec<(f64, Option<&CascadeRow>)> = Vec::new();
-        for r in rows.iter().filter(|r| SeriesNames::of(&r.point) == names) {
+        for r in rows
+            .iter()
+            .filter(|r| SeriesNames::of(&r.point, outer) == names)
+        {
             let f = r.point.inner.rate_hz;
             if !by_rate.iter().any(|(g, _)| *g == f) {
                 by_rate.push((f, None));

@@ -27,6 +27,7 @@ use crate::sampled::cascade::evaluate::CascadePoint;
 use crate::sampled::evaluate::Evaluation;
 use crate::sampled::feasibility::assess;
 use crate::sampled::figure::Figure;
+use crate::spec::HoldKind;
 
 /// The `outer` object of `eval --json`: the outer loop's figures under the
 /// loop's own keys, plus where it runs and its verdict on `[outer.spec]`.
@@ -37,6 +38,7 @@ pub fn outer_json(case: &Case, p: &CascadePoint, e: &Evaluation) -> Value {
         m.insert("rate_hz".into(), json!(p.outer_rate_hz()));
         m.insert("period_s".into(), json!(1.0 / p.outer_rate_hz()));
         m.insert("method".into(), json!(MethodChoice(p.outer_method)));
+        m.insert("hold".into(), json!(p.outer_hold.name()));
         m.insert("compute_delay".into(), json!(p.outer_delay));
         if let Some(outer) = &case.outer {
             let a = assess(e, &outer.spec);
@@ -54,10 +56,11 @@ pub fn outer_json(case: &Case, p: &CascadePoint, e: &Evaluation) -> Value {
 /// The outer loop's table for `eval` (text).
 pub fn outer_text(case: &Case, p: &CascadePoint, e: &Evaluation) -> String {
     let header = format!(
-        "outer loop: ratio {}, rate {}, method {}, computation delay {}; lifted over one outer period, broken at the outer controller's output; time figures on the outer plant output (points between inner samples included), load step at the outer plant's input",
+        "outer loop: ratio {}, rate {}, method {}, hold {}, computation delay {}; lifted over one outer period, broken at the outer controller's output; time figures on the outer plant output (points between inner samples included), load step at the outer plant's input",
         p.ratio,
         hz(p.outer_rate_hz()),
         MethodChoice(p.outer_method),
+        p.outer_hold.name(),
         periods_of(p.outer_delay, "outer period")
     );
     let spec = case
@@ -81,8 +84,9 @@ fn loop_columns(prefix: &str) -> impl Iterator<Item = String> + '_ {
         .chain(std::iter::once(format!("{prefix}_undecided")))
 }
 
-/// The header of the cascade rows.
-pub fn cascade_header() -> Vec<String> {
+/// The header of the cascade rows; `outer_hold` adds that column (when
+/// the case names the outer hold, `OuterLoop::hold_named`).
+pub fn cascade_header(outer_hold: bool) -> Vec<String> {
     let mut h: Vec<String> = [
         "inner_rate_hz",
         "ratio",
@@ -91,10 +95,12 @@ pub fn cascade_header() -> Vec<String> {
         "inner_hold",
         "inner_compute_delay",
         "outer_method",
+        "outer_hold",
         "outer_compute_delay",
         "inner_status",
     ]
     .iter()
+    .filter(|s| outer_hold || **s != "outer_hold")
     .map(|s| s.to_string())
     .collect();
     h.extend(loop_columns("inner"));
@@ -123,8 +129,9 @@ fn opt_num(v: Option<f64>) -> String {
     v.map_or_else(String::new, |v| format!("{v}"))
 }
 
-/// The cells of a cascade row in `sweep.csv`.
-pub fn cascade_record(r: &CascadeRow) -> Vec<String> {
+/// The cells of a cascade row in `sweep.csv` (`outer_hold`: as
+/// `cascade_header`).
+pub fn cascade_record(r: &CascadeRow, outer_hold: bool) -> Vec<String> {
     let p = &r.point;
     let mut cells: Vec<String> = vec![
         format!("{}", p.inner.rate_hz),
@@ -134,9 +141,11 @@ pub fn cascade_record(r: &CascadeRow) -> Vec<String> {
         p.inner.hold.name().to_string(),
         format!("{}", p.inner.delay),
         MethodChoice(p.outer_method).to_string(),
-        format!("{}", p.outer_delay),
-        r.inner.status.label(),
     ];
+    if outer_hold {
+        cells.push(p.outer_hold.name().to_string());
+    }
+    cells.extend([format!("{}", p.outer_delay), r.inner.status.label()]);
     let figures = |e: Option<&Evaluation>, cells: &mut Vec<String>| {
         let f = e.and_then(|e| e.figures.as_ref());
         cells.extend(figure_cells(&Figure::ALL, f));
@@ -175,15 +184,22 @@ pub fn cascade_record(r: &CascadeRow) -> Vec<String> {
     cells
 }
 
-/// The whole cascade CSV (header and one line per row, grid order).
-pub fn cascade_csv(rows: &[CascadeRow]) -> Vec<u8> {
+/// The whole cascade CSV (header and one line per row, grid order;
+/// `outer_hold`: as `cascade_header`).
+pub fn cascade_csv(rows: &[CascadeRow], outer_hold: bool) -> Vec<u8> {
     let mut w = csv::Writer::from_writer(Vec::new());
     // Writing to a Vec cannot fail.
-    let _ = w.write_record(cascade_header());
+    let _ = w.write_record(cascade_header(outer_hold));
     for r in rows {
-        let _ = w.write_record(cascade_record(r));
+        let _ = w.write_record(cascade_record(r, outer_hold));
     }
     w.into_inner().unwrap_or_default()
+}
+
+/// Whether `case` names its outer hold in the outputs
+/// (`OuterLoop::hold_named`).
+fn hold_named(case: &Case) -> bool {
+    case.outer.as_ref().is_some_and(|o| o.hold_named())
 }
 
 /// File name of the inner loop's own sweep in a cascade run (`sweep.csv`
@@ -218,17 +234,26 @@ fn report_blocks(
     push_if(&mut b, full, Block::Para(
         "The outer loop updates every N-th inner tick on the same processor; its command is the inner loop's reference, held until the next outer update. Both loops are evaluated exactly over one outer period (lifting). The outer figures are broken at the outer controller's output and taken on the outer plant output between inner samples too; the inner figures are the inner loop's own, with the outer loop open. The pair chosen is the one meeting both specs with the least CPU load (inner cycles x f + outer cycles x f/N).".into(),
     ));
+    let ramped = pick.series.iter().any(|s| {
+        s.series.outer_hold.is_some_and(|h| h != HoldKind::ZeroOrder)
+    });
+    push_if(&mut b, full && ramped, Block::Para(
+        "A ramped outer hold (`[outer.timing] hold`) shapes the outer command between outer updates as a single loop's hold shapes its command, read by the inner loop at its ticks: j inner ticks after the command v_k takes effect, its reference is v_k + (v_k - v_{k-1}) j/N (first-order) or v_{k-1} + (v_k - v_{k-1}) j/N (interpolating).".into(),
+    ));
     let mut lines: Vec<String> = Vec::new();
     match &pick.chosen {
         Some(c) => {
             lines.push(format!(
-                "chosen pair: inner loop {} ({}, computation delay {}), ratio {}, outer loop {} ({}, computation delay {})",
+                "chosen pair: inner loop {} ({}, computation delay {}), ratio {}, outer loop {} ({}{}, computation delay {})",
                 hz(c.inner_rate_hz),
                 c.series.inner_method,
                 periods(c.series.inner_compute_delay),
                 c.ratio,
                 hz(c.outer_rate_hz),
                 c.series.outer_method,
+                c.series
+                    .outer_hold
+                    .map_or_else(String::new, |h| format!(", {h} hold")),
                 periods_of(c.series.outer_compute_delay, "outer period")
             ));
             if let Some(l) = c.cost.total_load_pct {
@@ -305,7 +330,15 @@ fn report_blocks(
         .flat_map(|s| {
             s.largest_ratio.iter().map(move |(f, n)| {
                 vec![
-                    format!("{} / {}", s.series.inner_method, s.series.outer_method),
+                    format!(
+                        "{} / {}{}",
+                        s.series.inner_method,
+                        s.series.outer_method,
+                        s.series
+                            .outer_hold
+                            .as_ref()
+                            .map_or_else(String::new, |h| format!(" ({h} hold)"))
+                    ),
                     hz(*f),
                     n.map_or_else(|| "none".into(), |n| n.to_string()),
                 ]
@@ -374,7 +407,10 @@ pub fn finish_pick(
         .ok_or_else(|| Error::Input("the case has no [outer] table".into()))?;
     let rows = cascade_rows_with(case, &pc, false, inner_known);
     let pick = cascade_pick(case, &pc, &rows);
-    write_atomic(&out_dir.join("sweep.csv"), &cascade_csv(&rows))?;
+    write_atomic(
+        &out_dir.join("sweep.csv"),
+        &cascade_csv(&rows, hold_named(case)),
+    )?;
     let mut json = serde_json::to_value(report).unwrap_or(Value::Null);
     if let Value::Object(m) = &mut json {
         m.insert(
@@ -408,6 +444,9 @@ pub fn finish_sweep(out_dir: &Path, case: &Case) -> Result<Vec<CascadeRow>, Erro
     let pc = prepare_cascade(case)?
         .ok_or_else(|| Error::Input("the case has no [outer] table".into()))?;
     let rows = cascade_rows(case, &pc, true);
-    write_atomic(&out_dir.join("sweep.csv"), &cascade_csv(&rows))?;
+    write_atomic(
+        &out_dir.join("sweep.csv"),
+        &cascade_csv(&rows, hold_named(case)),
+    )?;
     Ok(rows)
 }

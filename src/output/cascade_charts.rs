@@ -11,7 +11,7 @@
 
 use std::path::Path;
 
-use crate::case::Case;
+use crate::case::{Case, OuterLoop};
 use crate::engineering;
 use crate::engineering::sig4;
 use crate::error::Error;
@@ -30,16 +30,20 @@ const MAX_RATE_SERIES: usize = 5;
 
 /// The rows of the series the answer is on (the chosen pair's, else the
 /// first series).
-fn chart_series<'a>(rows: &'a [CascadeRow], pick: &CascadePick) -> Vec<&'a CascadeRow> {
+fn chart_series<'a>(
+    rows: &'a [CascadeRow],
+    pick: &CascadePick,
+    outer: &OuterLoop,
+) -> Vec<&'a CascadeRow> {
     let names = match &pick.chosen {
         Some(c) => c.series.clone(),
         None => match rows.first() {
-            Some(r) => SeriesNames::of(&r.point),
+            Some(r) => SeriesNames::of(&r.point, outer),
             None => return Vec::new(),
         },
     };
     rows.iter()
-        .filter(|r| SeriesNames::of(&r.point) == names)
+        .filter(|r| SeriesNames::of(&r.point, outer) == names)
         .collect()
 }
 
@@ -68,7 +72,7 @@ fn vs_ratio(
     pick: &CascadePick,
 ) -> Option<Figure> {
     let outer = case.outer.as_ref()?;
-    let series = chart_series(rows, pick);
+    let series = chart_series(rows, pick, outer);
     // Inner rates where the inner loop is stable (elsewhere the outer loop
     // has no figures), evenly spread, the chosen one in place of its
     // nearest neighbour.
@@ -163,7 +167,7 @@ fn vs_ratio(
 
 /// Every pair on inner rate x ratio, with lines of equal CPU load.
 fn cpu_map(case: &Case, rows: &[CascadeRow], pick: &CascadePick) -> Option<Figure> {
-    let series = chart_series(rows, pick);
+    let series = chart_series(rows, pick, case.outer.as_ref()?);
     if series.is_empty() {
         return None;
     }

@@ -55,7 +55,7 @@ impl HoldKind {
     /// `P + Q (t - t_{k-i}) / T`; returns `(P, Q)` for `i = 0` and `i = 1`
     /// as coefficients of `(v_k, v_{k-1}, v_{k-2})`, the commands applied
     /// at the last three updates.
-    fn pieces(self) -> [[f64; 3]; 4] {
+    pub(crate) fn pieces(self) -> [[f64; 3]; 4] {
         let (p_now, q_now, p_prev, q_prev) = match self {
             HoldKind::ZeroOrder => ([1.0, 0.0, 0.0], [0.0; 3], [0.0, 1.0, 0.0], [0.0; 3]),
             HoldKind::FirstOrder => (

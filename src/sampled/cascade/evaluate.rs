@@ -32,7 +32,7 @@ use crate::sampled::hold::HoldEquivalent;
 use crate::sampled::time_response::{
     TimeOptions, TracePoint, horizon_steps, sampled_figures, sampled_trace,
 };
-use crate::spec::Spec;
+use crate::spec::{HoldKind, Spec};
 use nalgebra::DVector;
 
 /// A point of the cascade grid.
@@ -46,6 +46,9 @@ pub struct CascadePoint {
     pub outer_method: Option<Method>,
     /// Outer computation delay, a fraction of the outer period.
     pub outer_delay: f64,
+    /// How the outer command is shaped as the inner loop's reference
+    /// between outer updates (`[outer.timing] hold`).
+    pub outer_hold: HoldKind,
 }
 
 impl CascadePoint {
@@ -408,7 +411,7 @@ impl PreparedCascade {
     ) -> Result<(HoldEquivalent, DiscreteTransfer, ClosedLoop), CascadeError> {
         let c = self.outer_controller(p)?;
         let ticks = InnerClosed::delay_ticks(p.ratio, p.outer_delay);
-        let lifted = inner.lifted(p.ratio, ticks, rows);
+        let lifted = inner.lifted(p.ratio, ticks, p.outer_hold, rows);
         let cl = ClosedLoop::new(&lifted, &c).map_err(CascadeError::ClosingOuter)?;
         Ok((lifted, c, cl))
     }
@@ -587,7 +590,7 @@ impl PreparedCascade {
         let max_ticks = (MAX_DELAY_PERIODS * n as f64) as usize;
         // Extra ticks past the outer delay's own.
         let radius_at = |extra: f64| -> Result<f64, LoopError> {
-            let lifted = inner.lifted(n, start + extra as usize, false);
+            let lifted = inner.lifted(n, start + extra as usize, p.outer_hold, false);
             let cl = ClosedLoop::new(&lifted, c).map_err(LoopError::ClosingLoop)?;
             let poles = cl.poles().map_err(LoopError::Poles)?;
             Ok(poles.iter().map(|p| p.norm()).fold(0.0, f64::max))

@@ -6,10 +6,12 @@
 //! closed at its own rate on that plant with the existing hold equivalent
 //! and `ClosedLoop` (the load column there is the outer load). Over one
 //! outer period of `N` inner ticks the inner reference is the outer command
-//! held since the last update, so the state after `N` ticks is a linear
-//! function of the state, the previous and the new outer command and the
-//! load: a `HoldEquivalent` at the outer period whose "plant" is the closed
-//! inner loop. Every existing piece (closing the outer loop, the exact
+//! held since the last update (or ramped, `[outer.timing] hold`), so the
+//! state after `N` ticks is a linear function of the state, the previous
+//! and the new outer command and the load (and, for a ramp of the previous
+//! update still running at the outer sample, the command before the
+//! previous one): a `HoldEquivalent` at the outer period whose "plant" is
+//! the closed inner loop. Every existing piece (closing the outer loop, the exact
 //! simulation with points between samples, the loop gain) then works on it
 //! unchanged (`docs/figures.md`, "Cascaded loops").
 
@@ -216,9 +218,18 @@ impl InnerClosed {
 
     /// The outer loop's plant over one outer period of `ratio` inner ticks,
     /// the outer command reaching the inner reference `ticks` inner ticks
-    /// after its update: a hold equivalent at the outer period. With
-    /// `rows`, the outer plant output at every inner point of the period.
-    pub fn lifted(&self, ratio: usize, ticks: usize, rows: bool) -> HoldEquivalent {
+    /// after its update and shaped there by the outer hold `hold`: a hold
+    /// equivalent at the outer period. With `rows`, the outer plant output
+    /// at every inner point of the period.
+    ///
+    /// The inner loop reads its reference only at its ticks, so a ramped
+    /// outer hold is its ramp evaluated there: at the `j`-th inner tick
+    /// after the command `v_k` takes effect the reference is `v_k + (v_k -
+    /// v_{k-1}) j/N` (first-order) or `v_{k-1} + (v_k - v_{k-1}) j/N`
+    /// (interpolating); when a ramp of the previous update is still running
+    /// at the outer sample, `v_{k-2}` becomes a state (`docs/figures.md`,
+    /// "Cascaded loops").
+    pub fn lifted(&self, ratio: usize, ticks: usize, hold: HoldKind, rows: bool) -> HoldEquivalent {
         let n = ratio;
         // Whole outer periods as unit delays of the outer command, the
         // rest inside the period (as `hold::split_delay`: s in (0, N] once
@@ -233,10 +244,56 @@ impl InnerClosed {
         let dim = cl.a.nrows();
         let nx = self.hold.phi.nrows();
         let np = if rows { self.hold.intersample.len() } else { 0 };
+        // The reference at each inner tick of the period as coefficients of
+        // (v_k, v_{k-1}, v_{k-2}): before tick s the previous update's ramp,
+        // N - s + i ticks into it; from tick s on the new one's.
+        let [p_now, q_now, p_prev, q_prev] = hold.pieces();
+        let coefs: Vec<[f64; 3]> = (0..n)
+            .map(|i| {
+                let (p, q, j) = if i >= s {
+                    (p_now, q_now, i - s)
+                } else {
+                    (p_prev, q_prev, i + n - s)
+                };
+                let x = j as f64 / n as f64;
+                std::array::from_fn(|c| if q[c] == 0.0 { p[c] } else { p[c] + q[c] * x })
+            })
+            .collect();
+        // v_{k-2} is a state only when some tick reads it.
+        let k = usize::from(coefs.iter().any(|c| c[2] != 0.0));
+        // `h c` with the zero-order hold's unit and zero coefficients taken
+        // without a product, so that it sums exactly what it always summed.
+        let part = |h: f64, c: f64| {
+            if c == 0.0 {
+                0.0
+            } else if c == 1.0 {
+                h
+            } else {
+                h * c
+            }
+        };
+        let add_input = |p: &mut DVector<f64>, c: f64| {
+            if c == 1.0 {
+                *p += &cl.br;
+            } else if c != 0.0 {
+                *p += &cl.br * c;
+            }
+        };
         let mut m = DMatrix::<f64>::identity(dim, dim);
         let mut p1 = DVector::<f64>::zeros(dim);
         let mut p0 = DVector::<f64>::zeros(dim);
+        let mut p2 = DVector::<f64>::zeros(if k == 1 { dim } else { 0 });
         let mut q = DVector::<f64>::zeros(dim);
+        let widen = |v: DVector<f64>, last: f64| {
+            if k == 0 {
+                v
+            } else {
+                let mut out = DVector::zeros(dim + 1);
+                out.rows_mut(0, dim).copy_from(&v);
+                out[dim] = last;
+                out
+            }
+        };
         // Each inner row as a function of (z_j, r_j, w).
         let inner_rows: Vec<(DVector<f64>, f64, f64, f64)> = self.hold.intersample[..np]
             .iter()
@@ -250,14 +307,18 @@ impl InnerClosed {
             })
             .collect();
         let mut intersample = Vec::with_capacity(n * np);
-        for j in 0..n {
-            let before = j < s;
+        for (j, c) in coefs.iter().enumerate() {
             for (g, hr, hw, offset) in &inner_rows {
+                let held2 = if k == 1 {
+                    g.dot(&p2) + part(*hr, c[2])
+                } else {
+                    0.0
+                };
                 intersample.push(IntersampleRow {
                     offset_s: j as f64 * self.hold.period_s + offset,
-                    ey: m.tr_mul(g),
-                    cu1: g.dot(&p1) + if before { *hr } else { 0.0 },
-                    cu0: g.dot(&p0) + if before { 0.0 } else { *hr },
+                    ey: widen(m.tr_mul(g), held2),
+                    cu1: g.dot(&p1) + part(*hr, c[1]),
+                    cu0: g.dot(&p0) + part(*hr, c[0]),
                     cw: g.dot(&q) + hw,
                 });
             }
@@ -265,29 +326,39 @@ impl InnerClosed {
             p1 = &cl.a * &p1;
             p0 = &cl.a * &p0;
             q = &cl.a * &q + &cl.bw;
-            if before {
-                p1 += &cl.br;
-            } else {
-                p0 += &cl.br;
+            if k == 1 {
+                p2 = &cl.a * &p2;
+                add_input(&mut p2, c[2]);
             }
+            add_input(&mut p1, c[1]);
+            add_input(&mut p0, c[0]);
         }
+        let phi = if k == 0 {
+            m
+        } else {
+            let mut phi = DMatrix::zeros(dim + 1, dim + 1);
+            phi.view_mut((0, 0), (dim, dim)).copy_from(&m);
+            phi.view_mut((0, dim), (dim, 1)).copy_from(&p2);
+            phi
+        };
         let (cy, dy, dy_w) = match intersample.first() {
             Some(r) => (r.ey.clone(), r.cu0 + r.cu1, r.cw),
-            None => (DVector::zeros(dim), 0.0, self.hold.dy_w),
+            None => (DVector::zeros(dim + k), 0.0, self.hold.dy_w),
         };
         let lifted = HoldEquivalent {
             period_s: n as f64 * self.hold.period_s,
-            hold: HoldKind::ZeroOrder,
+            hold,
             delay_fraction: s as f64 / n as f64,
             delay_periods: 0,
-            hold_states: 0,
+            hold_states: k,
             measure_periods: 0,
             sensor_delay_s: 0.0,
-            phi: m,
-            gamma0: p0,
-            gamma1: p1,
-            gamma_w: q,
-            cm: self.outer_measured.clone(),
+            phi,
+            gamma0: widen(p0, 0.0),
+            // The next period's v_{k-2} is this one's v_{k-1}.
+            gamma1: widen(p1, 1.0),
+            gamma_w: widen(q, 0.0),
+            cm: widen(self.outer_measured.clone(), 0.0),
             dm: 0.0,
             dm_w: self.d_load_measured,
             cy,
