@@ -229,7 +229,7 @@ fn several_outer_holds_are_series_named_in_the_outputs() {
     let series = case_series(&c, outer);
     assert_eq!(series.len(), 2);
     let rows = cascade_rows(&c, &pc, false);
-    let csv = cascade_csv(&rows, outer.hold_named());
+    let csv = String::from_utf8(cascade_csv(&rows, outer.hold_named())).unwrap();
     let header: Vec<&str> = csv.lines().next().unwrap().split(',').collect();
     let col = header.iter().position(|h| *h == "outer_hold").unwrap();
     assert_eq!(header[col - 1], "outer_method");
@@ -260,7 +260,8 @@ fn several_outer_holds_are_series_named_in_the_outputs() {
         let outer = c.outer.as_ref().unwrap();
         assert!(!outer.hold_named());
         let rows = cascade_rows(&c, &pc, false);
-        assert!(!cascade_csv(&rows, outer.hold_named()).contains("outer_hold"));
+        let csv = String::from_utf8(cascade_csv(&rows, outer.hold_named())).unwrap();
+        assert!(!csv.contains("outer_hold"));
         let v = serde_json::to_value(cascade_pick(&c, &pc, &rows)).unwrap();
         assert!(!v.to_string().contains("outer_hold"));
     }

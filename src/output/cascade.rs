@@ -235,7 +235,9 @@ fn report_blocks(
         "The outer loop updates every N-th inner tick on the same processor; its command is the inner loop's reference, held until the next outer update. Both loops are evaluated exactly over one outer period (lifting). The outer figures are broken at the outer controller's output and taken on the outer plant output between inner samples too; the inner figures are the inner loop's own, with the outer loop open. The pair chosen is the one meeting both specs with the least CPU load (inner cycles x f + outer cycles x f/N).".into(),
     ));
     let ramped = pick.series.iter().any(|s| {
-        s.series.outer_hold.is_some_and(|h| h != HoldKind::ZeroOrder)
+        s.series
+            .outer_hold
+            .is_some_and(|h| h != HoldKind::ZeroOrder)
     });
     push_if(&mut b, full && ramped, Block::Para(
         "A ramped outer hold (`[outer.timing] hold`) shapes the outer command between outer updates as a single loop's hold shapes its command, read by the inner loop at its ticks: j inner ticks after the command v_k takes effect, its reference is v_k + (v_k - v_{k-1}) j/N (first-order) or v_{k-1} + (v_k - v_{k-1}) j/N (interpolating).".into(),
