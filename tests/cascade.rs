@@ -791,6 +791,26 @@ fn search_screens_agree_with_the_full_figures() {
     assert_eq!(answer(&search), answer(&full));
 }
 
+/// A pair the search evaluates in full carries every figure of the full
+/// evaluation, bit for bit: the search's shortcuts (screens, the inner
+/// figures handed over, the time searches sharing the periods they open)
+/// decide which pairs are evaluated, never what a figure is (source: the
+/// search's rule, `docs/figures.md`, "Cascaded loops"; the full evaluation
+/// is `evaluate_outer`, all figures, no spec).
+#[test]
+fn pairs_the_search_evaluates_carry_the_full_evaluations_figures() {
+    let (_, c, pc) = small_demo();
+    let mut compared = 0;
+    for r in cascade_rows(&c, &pc, false) {
+        let Some(outer) = r.outer.as_ref().filter(|_| !r.screened) else {
+            continue;
+        };
+        assert_eq!(outer, &pc.evaluate_outer(&r.point, false), "{:?}", r.point);
+        compared += 1;
+    }
+    assert!(compared > 0, "the demo evaluates pairs in full");
+}
+
 /// The chosen pair with headroom, as the single loop recommends
 /// `f_star x headroom`: the inner rate times the headroom with the ratio
 /// kept (closed form), its load by hand (inner cycles x f + outer cycles x

@@ -171,6 +171,52 @@ fn check_case(c: &Case, rates: usize) -> usize {
     compared
 }
 
+/// The lifted outer loop of the cascade demo (the motor drive): 16 points
+/// per inner period and up to 50 inner periods an outer one, so 320 to 800
+/// points a period, where the searches of one response share the periods
+/// they open (`stretch`). Against the full walk of the same lifted loop.
+#[test]
+fn the_lifted_cascade_loop_matches_the_full_walk() {
+    use looprate::explore::cascade::prepare_cascade;
+    use looprate::model::discretize::Method;
+    use looprate::sampled::cascade::evaluate::CascadePoint;
+    let path = demo_path("motor-drive-cascade.toml");
+    let c = Case::parse(&std::fs::read_to_string(&path).unwrap(), &path).unwrap();
+    let pc = prepare_cascade(&c).unwrap().unwrap();
+    let mut compared = 0;
+    use looprate::spec::HoldKind;
+    // A ramped outer hold adds the command before the previous one as a
+    // state of the lifted loop: the walk covers it too.
+    for (rate_hz, ratio, outer_hold) in [
+        (13_721.87, 20, HoldKind::ZeroOrder),
+        (26_317.32, 40, HoldKind::FirstOrder),
+        (40_000.0, 50, HoldKind::Interpolating),
+    ] {
+        let p = CascadePoint {
+            inner: Point {
+                rate_hz,
+                method: Some(Method::Tustin),
+                delay: 1.0,
+                hold: looprate::spec::HoldKind::ZeroOrder,
+            },
+            ratio,
+            outer_method: Some(Method::Tustin),
+            outer_hold,
+            outer_delay: 0.5,
+        };
+        let (_, lifted, _, cl) = pc.outer_loop(&p, true).unwrap();
+        let poles = cl.poles().unwrap();
+        assert_eq!(ClosedLoop::stability(&poles), Stability::Stable);
+        let periods = horizon_periods(&poles, cl.a.nrows());
+        POINTS.with(|q| q.set((periods * lifted.intersample.len() as u64) as f64));
+        let j = sampled_figures(&cl, &lifted, &poles, &pc.outer_time).unwrap();
+        let w = walked_figures(&cl, &lifted, &poles, &pc.outer_time).unwrap();
+        compare(&j, &w, &format!("cascade {rate_hz} Hz ratio {ratio}"));
+        compared += 1;
+    }
+    assert_eq!(compared, 3);
+}
+
 #[test]
 fn every_demo_case_matches_the_full_walk() {
     for name in [

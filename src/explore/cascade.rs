@@ -740,21 +740,26 @@ pub fn cascade_pick(case: &Case, pc: &PreparedCascade, rows: &[CascadeRow]) -> C
         .filter(at_design)
         .filter(|r| r.passes())
         .min_by(|a, b| a.cost.key().total_cmp(&b.cost.key()));
-    let chosen = best.map(|r| {
-        let e = pc.evaluate(&r.point, true);
-        ChosenPair {
-            series: SeriesNames::of(&r.point, outer),
-            inner_rate_hz: r.point.inner.rate_hz,
-            ratio: r.point.ratio,
-            outer_rate_hz: r.point.outer_rate_hz(),
-            cost: r.cost,
-            inner_verdict: assess(&e.inner, &case.spec),
-            outer_verdict: assess(&e.outer, &outer.spec),
-            inner: e.inner,
-            outer: e.outer,
+    // The chosen pair and its headroom pair, each evaluated with its exact
+    // delay margins, side by side (the rest of the pick is parallel).
+    let (chosen, recommended) = match best {
+        Some(r) => {
+            let (c, h) = rayon::join(|| pc.evaluate(&r.point, true), || recommend(case, pc, r));
+            (Some((r, c)), Some(h))
         }
+        None => (None, None),
+    };
+    let chosen = chosen.map(|(r, e)| ChosenPair {
+        series: SeriesNames::of(&r.point, outer),
+        inner_rate_hz: r.point.inner.rate_hz,
+        ratio: r.point.ratio,
+        outer_rate_hz: r.point.outer_rate_hz(),
+        cost: r.cost,
+        inner_verdict: assess(&e.inner, &case.spec),
+        outer_verdict: assess(&e.outer, &outer.spec),
+        inner: e.inner,
+        outer: e.outer,
     });
-    let recommended = best.map(|r| recommend(case, pc, r));
     // The window, on the chosen series (or the cheapest passing one).
     let window = cheapest_passing.map(|c| {
         let names = SeriesNames::of(&c.point, outer);

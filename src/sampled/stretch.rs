@@ -547,6 +547,13 @@ struct Run<'s, 'a> {
     /// it first (they are computed once; the step's five searches share
     /// the top of the tree). The tail under `TAIL_KEY`.
     nodes: RefCell<HashMap<(u64, usize), Node, BuildHasherDefault<NodeHasher>>>,
+    /// The periods already looked at point by point, by period: a leaf's
+    /// state error is its tree node's (`nodes`, one path from the root), so
+    /// its points are the same numbers whichever search opens it first
+    /// (the peak, rise and settling searches of one response open many of
+    /// the same periods; a period of a lifted cascade loop has hundreds of
+    /// points). At most `LEAF_BUDGET` a search.
+    leaves: RefCell<HashMap<u64, Rc<Leaf>, BuildHasherDefault<NodeHasher>>>,
 }
 
 /// A hasher for the node keys (two small integers): one multiply a word,
@@ -791,6 +798,7 @@ impl<'s, 'a> Run<'s, 'a> {
             dz0,
             dz_tail,
             nodes: RefCell::new(HashMap::default()),
+            leaves: RefCell::new(HashMap::default()),
         }
     }
 
@@ -992,6 +1000,41 @@ impl<'s, 'a> Run<'s, 'a> {
         }
     }
 
+    /// `leaf` of period k reached down the tree (`dz` makes its node's
+    /// state error), computed once a run.
+    fn tree_leaf(&self, k: u64, dz: impl FnOnce() -> Rc<[f64]>) -> Rc<Leaf> {
+        if let Some(l) = self.leaves.borrow().get(&k) {
+            return l.clone();
+        }
+        let l = Rc::new(self.leaf(k, &dz()));
+        self.leaves.borrow_mut().insert(k, l.clone());
+        l
+    }
+
+    /// The commands of period k only (`commands` reads nothing else), the
+    /// same numbers as `leaf` makes them: a search on the command skips the
+    /// period's points.
+    fn command_leaf(&self, k: u64, dz: &[f64]) -> Leaf {
+        if let Some(l) = self.leaves.borrow().get(&k) {
+            return Leaf {
+                ys: Vec::new(),
+                ..**l
+            };
+        }
+        let s = self.s;
+        let z: Vec<f64> = self.z_end.iter().zip(dz).map(|(a, b)| a + b).collect();
+        let mut u = -0.0;
+        for (a, b) in s.cl.ku.iter().zip(&z) {
+            u += a * b;
+        }
+        Leaf {
+            t0: k as f64 * s.period_s,
+            ys: Vec::new(),
+            u_prev: z[s.map.n],
+            u_k: u + self.u_off,
+        }
+    }
+
     /// Time of point j of a period starting at `t0`, as the walk makes it.
     fn time(&self, t0: f64, j: usize) -> f64 {
         if j == 0 {
@@ -1004,11 +1047,13 @@ impl<'s, 'a> Run<'s, 'a> {
     /// Largest `value` over every point of the horizon, from `init`;
     /// `upper` bounds it over a node. Undecided when the tail's bound
     /// exceeds the result by more than `tol`, or the budget runs out.
+    /// Without `points` the leaves carry only their commands.
     fn max_search(
         &self,
         init: f64,
         tol: f64,
         upper: impl Fn(&Bound) -> f64,
+        points: bool,
         value: impl Fn(&Leaf, &mut f64),
     ) -> (f64, bool) {
         let s = self.s;
@@ -1040,7 +1085,11 @@ impl<'s, 'a> Run<'s, 'a> {
                 if leaves > LEAF_BUDGET {
                     return (best, false);
                 }
-                value(&self.leaf(node.start, &node.dz), &mut best);
+                if points {
+                    value(&self.tree_leaf(node.start, || node.dz.clone()), &mut best);
+                } else {
+                    value(&self.command_leaf(node.start, &node.dz), &mut best);
+                }
                 continue;
             }
             let lv = node.level - 1;
@@ -1072,7 +1121,7 @@ impl<'s, 'a> Run<'s, 'a> {
         forward: bool,
         maybe: &dyn Fn(&Bound) -> bool,
         hit: &dyn Fn(&Leaf) -> Option<usize>,
-    ) -> Found<(u64, usize, Leaf)> {
+    ) -> Found<(u64, usize, Rc<Leaf>)> {
         let s = self.s;
         let tail_maybe = maybe(&self.tail());
         if !forward && tail_maybe {
@@ -1105,9 +1154,10 @@ impl<'s, 'a> Run<'s, 'a> {
                     return Found::Undecided;
                 }
                 // A single period is looked at point by point (no bound).
-                let known = self.nodes.borrow().get(&(start, 0)).map(|n| n.dz.clone());
-                let dz = known.unwrap_or_else(make_dz);
-                let leaf = self.leaf(start, &dz);
+                let leaf = self.tree_leaf(start, || {
+                    let known = self.nodes.borrow().get(&(start, 0)).map(|n| n.dz.clone());
+                    known.unwrap_or_else(make_dz)
+                });
                 if let Some(j) = hit(&leaf) {
                     return Found::At((start, j, leaf));
                 }
@@ -1228,6 +1278,7 @@ impl<'a> Stretches<'a> {
                 0.0,
                 tol,
                 |b| if yf > 0.0 { b.y_hi - yf } else { yf - b.y_lo },
+                true,
                 |leaf, best| {
                     for &y in &leaf.ys {
                         *best = best.max((y - yf) * sign);
@@ -1245,6 +1296,7 @@ impl<'a> Stretches<'a> {
             uf,
             tol_u,
             |b| b.u_lo.abs().max(b.u_hi.abs()),
+            false,
             |leaf, best| {
                 for u in run.commands(leaf) {
                     *best = best.max(u.abs());
@@ -1303,6 +1355,7 @@ impl<'a> Stretches<'a> {
             0.0,
             tol,
             |b| b.y_lo.abs().max(b.y_hi.abs()),
+            true,
             |leaf, best| {
                 for &y in &leaf.ys {
                     *best = best.max(y.abs());
