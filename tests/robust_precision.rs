@@ -594,3 +594,68 @@ fn rows_above(c: &Case, lp: &looprate::sampled::evaluate::PreparedLoop, from: f6
         .chain(rates.last().copied())
         .collect()
 }
+
+#[test]
+fn verdict_only_rows_agree_with_judging_every_variant() {
+    // Two ranged parameters (gain and the belt's lag) sampled: a sweep row
+    // that stops at the first failing variant (verdict-only) must give the
+    // verdict of a sweep that judges every variant at every row, name a
+    // variant that does fail there, and leave the pick unchanged. The
+    // reference is the same code judging every variant (a brute-force
+    // check, not an outside source).
+    let text = belt(
+        "[uncertainty]\nmode = \"samples\"\nsamples = 12\nseed = 5",
+        "{ nominal = 38, min = 26, max = 50 }",
+    )
+    .replace("(0.42*s + 1)", "(tau*s + 1)")
+    .replace(
+        "[plant]",
+        "tau = { nominal = 0.42, min = 0.3, max = 0.6 }\n[plant]",
+    )
+    .replace("compute_delay = 0.5", "compute_delay = [0, 1]");
+    let c = case(&text);
+    let lp = prepare(&c).unwrap();
+    let set = VariantSet::new(&c, &lp).unwrap();
+    let points = case_grid(&c, &lp);
+    let lean = sweep::run(&Plan::for_case(&c, &lp, Some(&set)), &points, &|| {});
+    let full_plan = Plan {
+        keep_variants: true,
+        ..Plan::for_case(&c, &lp, Some(&set))
+    };
+    let full = sweep::run(&full_plan, &points, &|| {});
+    let (mut verdict_only, mut passing) = (0, 0);
+    for (l, f) in lean.iter().zip(&full) {
+        let (lr, fr) = (l.robust.as_ref().unwrap(), f.robust.as_ref().unwrap());
+        assert_eq!(
+            lr.assessment.feasible, fr.assessment.feasible,
+            "{:?}",
+            l.point
+        );
+        // The nominal columns are untouched.
+        assert_eq!(l.eval, f.eval);
+        assert_eq!(l.assessment, f.assessment);
+        if lr.verdict_only {
+            verdict_only += 1;
+            assert!(lr.worst_figures.is_none() && lr.evaluated < set.len());
+            // The variant it names fails there, on the limit it names.
+            let (_, a) = &fr.each[lr.worst];
+            assert!(!a.feasible);
+            assert_eq!(a.limiting, lr.assessment.limiting);
+        } else {
+            passing += usize::from(lr.assessment.feasible);
+            assert_eq!(lr.evaluated, set.len());
+            assert_eq!(lr.worst, fr.worst);
+            assert_eq!(lr.assessment, fr.assessment);
+            assert_eq!(lr.worst_figures, fr.worst_figures);
+            assert_eq!(lr.unstable, fr.unstable);
+        }
+    }
+    // The case has both kinds of rows, or the check proves little.
+    assert!(verdict_only > 0 && passing > 0, "{verdict_only} {passing}");
+    let a = looprate::explore::pick::pick(&c, &lp, Some(&set), &lean, &Silent);
+    let b = looprate::explore::pick::pick(&c, &lp, Some(&set), &full, &Silent);
+    assert_eq!(
+        serde_json::to_string(&a).unwrap(),
+        serde_json::to_string(&b).unwrap()
+    );
+}

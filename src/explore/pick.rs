@@ -224,7 +224,7 @@ impl SweepSummary {
         let rate = row.point.rate_hz;
         nominal.push(rate, &row.assessment, 0);
         if let Some(rb) = &row.robust {
-            self.robust[s].push(rate, &rb.assessment, rb.worst);
+            self.robust[s].push_verdict(rate, &rb.assessment, rb.worst, !rb.verdict_only);
         }
         let formats = &mut self.precision[s];
         for p in &row.precision {
@@ -1053,6 +1053,22 @@ fn robust_report(
         .map(|((s, coarse), nominal)| {
             let p0 = summary.grid.point(s * n);
             let (method, delay, hold) = (p0.method, p0.delay, p0.hold);
+            // The sweep's verdict-only rows the search reads, judged over
+            // every variant: the same slack, limiting figure and worst
+            // variant as a sweep that judged every variant everywhere.
+            let mut coarse = coarse.clone();
+            coarse.complete(&|rate: f64| {
+                let p = Point {
+                    rate_hz: rate,
+                    method,
+                    delay,
+                    hold,
+                };
+                let c = lp.controller_at(rate, method);
+                let (_, v) = variants.judge(spec, &p, c.as_ref(), false, None);
+                (v.assessment, v.worst)
+            });
+            let coarse = &coarse;
             // Every judged rate with its verdict and worst variant.
             let seen: RefCell<Vec<(f64, Assessment, usize)>> = RefCell::new(Vec::new());
             let judge = |rate: f64| -> Assessment {

@@ -71,6 +71,11 @@ pub struct Verdict {
     pub rate_hz: f64,
     pub assessment: Assessment,
     pub worst: usize,
+    /// False for a verdict-only row over plant variants: the verdict is
+    /// exact, but the limiting figure, the slack and `worst` are those of
+    /// the first variant found failing, not the worst over all of them
+    /// (see [`CoarseSeries::complete`]).
+    pub complete: bool,
 }
 
 /// What the search needs from one series' coarse sweep, gathered while
@@ -95,6 +100,18 @@ pub struct CoarseSeries {
 impl CoarseSeries {
     /// Add the verdict at `rate_hz`, above every rate added before.
     pub fn push(&mut self, rate_hz: f64, assessment: &Assessment, worst: usize) {
+        self.push_verdict(rate_hz, assessment, worst, true);
+    }
+
+    /// [`CoarseSeries::push`] for a verdict that may be verdict-only
+    /// (`complete` false: see [`Verdict::complete`]).
+    pub fn push_verdict(
+        &mut self,
+        rate_hz: f64,
+        assessment: &Assessment,
+        worst: usize,
+        complete: bool,
+    ) {
         let v = Verdict {
             rate_hz,
             assessment: Assessment {
@@ -102,6 +119,7 @@ impl CoarseSeries {
                 ..assessment.clone()
             },
             worst,
+            complete,
         };
         if self.first.is_none() {
             self.first = Some(v.clone());
@@ -144,6 +162,50 @@ impl CoarseSeries {
     /// The fastest infeasible rate's verdict.
     pub fn last_infeasible(&self) -> Option<&Verdict> {
         self.last_bad.as_ref()
+    }
+
+    /// Replace every verdict-only verdict the search reads (the lowest,
+    /// the highest, the fastest infeasible rate and the next one up) by a
+    /// complete one: `judge` gives the verdict over every variant at a
+    /// rate (its assessment and worst variant), called once per rate. The
+    /// search then reads the very slack, limiting figure and worst variant
+    /// a sweep judging every variant at every row would have given, so its
+    /// answer is the same. Returns the judgements made.
+    pub fn complete(&mut self, judge: &dyn Fn(f64) -> (Assessment, usize)) -> usize {
+        let mut done: Vec<Verdict> = Vec::new();
+        for slot in [
+            &mut self.first,
+            &mut self.last,
+            &mut self.last_bad,
+            &mut self.after_bad,
+        ]
+        .into_iter()
+        .flatten()
+        {
+            if slot.complete {
+                continue;
+            }
+            let rate_hz = slot.rate_hz;
+            let v = match done.iter().find(|v| v.rate_hz == rate_hz) {
+                Some(v) => v.clone(),
+                None => {
+                    let (a, worst) = judge(rate_hz);
+                    let v = Verdict {
+                        rate_hz,
+                        assessment: Assessment {
+                            checks: Vec::new(),
+                            ..a
+                        },
+                        worst,
+                        complete: true,
+                    };
+                    done.push(v.clone());
+                    v
+                }
+            };
+            *slot = v;
+        }
+        done.len()
     }
 }
 

@@ -13,9 +13,9 @@ use rayon::prelude::*;
 use crate::case::Case;
 use crate::explore::budget;
 use crate::explore::precision::{self, PrecisionPoint};
-use crate::explore::variants::{RobustPoint, VariantSet};
+use crate::explore::variants::{LazyPlants, RobustPoint, VariantSet};
 use crate::model::discretize::Method;
-use crate::sampled::evaluate::{Evaluation, Given, PlantAt, Point, PointError, PreparedLoop};
+use crate::sampled::evaluate::{Evaluation, Given, Point, PreparedLoop};
 use crate::sampled::feasibility::{Assessment, assess};
 use crate::spec::HoldKind;
 use crate::spec::{Arithmetic, Budget, Spec};
@@ -68,8 +68,14 @@ pub struct Plan<'a> {
     pub budget: Option<&'a Budget>,
     pub variants: Option<&'a VariantSet>,
     pub arithmetic: Option<&'a Arithmetic>,
-    /// Keep every variant's evaluation (for `--variants`).
+    /// Keep every variant's evaluation (for `--variants`); such a sweep
+    /// judges every variant at every point (no verdict-only rows).
     pub keep_variants: bool,
+    /// With variants: a row stops at the first variant that fails
+    /// (`VariantSet::judge_verdict`, a verdict-only row) instead of
+    /// judging them all (`VariantSet::judge`). What a case's sweep does;
+    /// `keep_variants` overrides it.
+    pub verdict_only: bool,
 }
 
 impl<'a> Plan<'a> {
@@ -82,6 +88,7 @@ impl<'a> Plan<'a> {
             variants: None,
             arithmetic: None,
             keep_variants: false,
+            verdict_only: false,
         }
     }
 
@@ -99,6 +106,7 @@ impl<'a> Plan<'a> {
             variants,
             arithmetic: case.arithmetic.as_ref(),
             keep_variants: false,
+            verdict_only: true,
         }
     }
 
@@ -161,52 +169,48 @@ pub fn grid_holds(
 
 /// Evaluate and judge one point.
 pub fn evaluate_row(plan: &Plan, p: &Point) -> SweepRow {
-    evaluate_row_on(plan, p, None)
+    let plants = plants_at(plan, p);
+    evaluate_row_on(plan, p, &plants, None)
 }
 
-/// The plant side at one (rate, delay, hold), built once for the methods of a
-/// sweep group: one per plant variant, or only the nominal loop's (index
-/// 0 is always the nominal one).
-struct Plants(Vec<Result<PlantAt, PointError>>);
-
-impl Plants {
-    fn at(plan: &Plan, p: &Point) -> Plants {
-        Plants(match plan.variants {
-            None => vec![plan.lp.hold_at(p)],
-            Some(v) => v.loops.iter().map(|lp| lp.hold_at(p)).collect(),
-        })
-    }
-
-    /// The nominal loop's plant side.
-    fn nominal(&self) -> Result<&PlantAt, &PointError> {
-        self.0[0].as_ref()
+/// The plant side at one (rate, delay, hold), built once for the methods
+/// of a sweep group, each when first used: one per plant variant, or only
+/// the nominal loop's (index 0 is always the nominal one).
+fn plants_at<'a>(plan: &Plan<'a>, p: &Point) -> LazyPlants<'a> {
+    match plan.variants {
+        None => LazyPlants::new(std::slice::from_ref(plan.lp), p),
+        Some(v) => v.plants_at(p),
     }
 }
 
-/// `evaluate_row` with the point's plant side already built, or None to
-/// build what is needed here.
-fn evaluate_row_on(plan: &Plan, p: &Point, plants: Option<&Plants>) -> SweepRow {
+/// `evaluate_row` with the point's plant side `plants` (shared by a
+/// group). `hint`: the variant that failed at the group's previous point,
+/// tried first by a verdict-only row.
+fn evaluate_row_on(plan: &Plan, p: &Point, plants: &LazyPlants, hint: Option<usize>) -> SweepRow {
     let lp = plan.lp;
     // The controller at this (method, rate), discretized once: the
     // nominal loop, every plant variant, the CPU cost and every number
     // format's rounding start from it.
     let controller = lp.controller_at(p.rate_hz, p.method);
     let (eval, robust) = match plan.variants {
+        Some(v) if plan.verdict_only && !plan.keep_variants => {
+            let (e, r) = v.judge_verdict(plan.spec, p, controller.as_ref(), plants, hint);
+            (e, Some(r))
+        }
         Some(v) => {
-            let shared = plants.map(|each| each.0.as_slice());
             let (e, r) = v.judge(
                 plan.spec,
                 p,
                 controller.as_ref(),
                 plan.keep_variants,
-                shared,
+                Some(plants),
             );
             (e, Some(r))
         }
         None => {
             let given = Given {
                 controller: Some(controller.as_ref()),
-                plant: plants.map(Plants::nominal),
+                plant: Some(plants.get(0)),
                 exact_delay_margin: false,
             };
             (lp.evaluate(p, given), None)
@@ -228,7 +232,7 @@ fn evaluate_row_on(plan: &Plan, p: &Point, plants: Option<&Plants>) -> SweepRow 
         .map(|c| c.load_pct)
     });
     let check_hz = plan.check_hz(&eval);
-    let nominal_plant = plants.map(Plants::nominal);
+    let nominal_plant = Some(plants.get(0));
     let precision = plan
         .formats()
         .into_par_iter()
@@ -385,11 +389,17 @@ fn run_groups(
         let done: Vec<Vec<(usize, SweepRow)>> = batch
             .par_iter()
             .map(|group| {
-                let plants = Plants::at(plan, &point(group[0]));
+                let plants = plants_at(plan, &point(group[0]));
+                // The methods of a group share the rate: where one fails on
+                // a variant, the next tries that variant first.
+                let mut hint = None;
                 group
                     .iter()
                     .map(|&i| {
-                        let row = evaluate_row_on(plan, &point(i), Some(&plants));
+                        let row = evaluate_row_on(plan, &point(i), &plants, hint);
+                        if let Some(rb) = row.robust.as_ref().filter(|rb| !rb.assessment.feasible) {
+                            hint = Some(rb.worst);
+                        }
                         on_done();
                         (i, row)
                     })

@@ -10,6 +10,16 @@
 //! A rate is robustly feasible when every variant is feasible there; the
 //! worst variant is the one with the least slack (the first in variant
 //! order on a tie, so results do not depend on the thread count).
+//!
+//! A coarse sweep row needs only that verdict ([`VariantSet::judge_verdict`]):
+//! the variants are tried in an order that puts the likeliest failers first
+//! and the row stops at the first that fails, keeping no worst-case figures
+//! (a verdict-only row, `docs/figures.md`, "Plant variants"); a row where
+//! every variant passes has had every variant evaluated and keeps its
+//! worst-case figures. The search and the recommended rate judge every
+//! variant ([`VariantSet::judge`]).
+
+use std::sync::OnceLock;
 
 use rayon::prelude::*;
 use serde::Serialize;
@@ -109,6 +119,12 @@ pub struct VariantSet {
     pub values: Vec<Vec<f64>>,
     /// One prepared loop per variant, all with the nominal controller.
     pub loops: Vec<PreparedLoop>,
+    /// The order a verdict-only row tries the variants in after the
+    /// nominal one: farthest from the nominal values first (largest
+    /// offset of any ranged parameter as a share of its range; the first
+    /// in variant order on a tie), since a spec is lost first at the
+    /// edges of the box. Index 0 (nominal) is not in it.
+    pub trial_order: Vec<usize>,
 }
 
 impl VariantSet {
@@ -151,10 +167,12 @@ impl VariantSet {
                 })
             })
             .collect::<Result<Vec<_>, Error>>()?;
+        let trial_order = trial_order(case, &values);
         Ok(VariantSet {
             names: case.params.iter().map(|p| p.name.clone()).collect(),
             values,
             loops,
+            trial_order,
         })
     }
 
@@ -182,20 +200,97 @@ impl VariantSet {
             .collect()
     }
 
+    /// The plant side of every variant at `p`, each built when first asked
+    /// for (a verdict-only row builds only those of the variants it tries).
+    pub fn plants_at(&self, p: &Point) -> LazyPlants<'_> {
+        LazyPlants::new(&self.loops, p)
+    }
+
+    /// The robust verdict at `p` for a coarse sweep row: the nominal
+    /// evaluation (always), then the variants in the order `hint` (the
+    /// variant that failed at a neighbouring point, tried first), then
+    /// [`VariantSet::trial_order`], stopping at the first that fails the
+    /// spec. The row is then verdict-only: its verdict is exact (a variant
+    /// fails), the variant and limit are that first failure, not the
+    /// worst over every variant, and no worst-case figures are kept. When
+    /// every variant passes (or the last one tried is the only one that
+    /// fails), every variant was evaluated and the result is the one of
+    /// [`VariantSet::judge`], bit for bit.
+    pub fn judge_verdict(
+        &self,
+        spec: &Spec,
+        p: &Point,
+        c: Result<&DiscreteTransfer, &PointError>,
+        plants: &LazyPlants,
+        hint: Option<usize>,
+    ) -> (Evaluation, RobustPoint) {
+        let n = self.len();
+        let eval_at = |i: usize| {
+            let given = Given {
+                controller: Some(c),
+                plant: Some(plants.get(i)),
+                exact_delay_margin: false,
+            };
+            self.loops[i].evaluate(p, given)
+        };
+        let mut evals: Vec<Option<Evaluation>> = vec![None; n];
+        let mut tried = 0usize;
+        let order = std::iter::once(0)
+            .chain(hint.filter(|&h| h > 0 && h < n))
+            .chain(
+                self.trial_order
+                    .iter()
+                    .copied()
+                    .filter(|&i| Some(i) != hint),
+            );
+        for i in order {
+            let e = eval_at(i);
+            tried += 1;
+            let a = assess(&e, spec);
+            if !a.feasible && tried < n {
+                let unstable = usize::from(e.figures.is_none())
+                    + evals
+                        .iter()
+                        .flatten()
+                        .filter(|e| e.figures.is_none())
+                        .count();
+                let nominal = match i {
+                    0 => e,
+                    _ => evals[0].take().unwrap_or_else(|| eval_at(0)),
+                };
+                let robust = RobustPoint {
+                    worst: i,
+                    assessment: a,
+                    unstable,
+                    worst_figures: None,
+                    each: Vec::new(),
+                    evaluated: tried,
+                    verdict_only: true,
+                };
+                return (nominal, robust);
+            }
+            evals[i] = Some(e);
+        }
+        let evals: Vec<Evaluation> = evals.into_iter().flatten().collect();
+        let assessments: Vec<Assessment> = evals.iter().map(|e| assess(e, spec)).collect();
+        let nominal = evals[0].clone();
+        (nominal, RobustPoint::from_parts(evals, assessments, false))
+    }
+
     /// Evaluate every variant at `p` with the controller `c` (the nominal
     /// design at this rate, shared by every variant; `Err` says why it
     /// could not be built) and return the nominal evaluation and the
     /// verdict over all variants. `keep` keeps every variant's result.
     /// `plants`, when given, holds each variant's plant side at the
-    /// point's rate and delay (`PreparedLoop::hold_at`), shared with the
-    /// other methods of a sweep group.
+    /// point's rate and delay (`PreparedLoop::hold_at`, built on first
+    /// use), shared with the other methods of a sweep group.
     pub fn judge(
         &self,
         spec: &Spec,
         p: &Point,
         c: Result<&DiscreteTransfer, &PointError>,
         keep: bool,
-        plants: Option<&[Result<PlantAt, PointError>]>,
+        plants: Option<&LazyPlants>,
     ) -> (Evaluation, RobustPoint) {
         let evals: Vec<Evaluation> = self
             .loops
@@ -204,7 +299,7 @@ impl VariantSet {
             .map(|(i, lp)| {
                 let given = Given {
                     controller: Some(c),
-                    plant: plants.map(|each| each[i].as_ref()),
+                    plant: plants.map(|each| each.get(i)),
                     exact_delay_margin: false,
                 };
                 lp.evaluate(p, given)
@@ -214,6 +309,52 @@ impl VariantSet {
         let nominal = evals[0].clone();
         (nominal, RobustPoint::from_parts(evals, assessments, keep))
     }
+}
+
+/// The plant side (`PreparedLoop::hold_at`) of each of several loops at
+/// one (rate, delay, hold), built on first use and then shared (by the
+/// methods of a sweep group): a verdict-only row builds only those of the
+/// variants it tries.
+pub struct LazyPlants<'a> {
+    loops: &'a [PreparedLoop],
+    point: Point,
+    each: Vec<OnceLock<Result<PlantAt, PointError>>>,
+}
+
+impl<'a> LazyPlants<'a> {
+    /// The plant sides of `loops` at `p`'s rate, delay and hold, none
+    /// built yet.
+    pub fn new(loops: &'a [PreparedLoop], p: &Point) -> LazyPlants<'a> {
+        LazyPlants {
+            loops,
+            point: *p,
+            each: (0..loops.len()).map(|_| OnceLock::new()).collect(),
+        }
+    }
+
+    /// Loop `i`'s plant side, built here the first time.
+    pub fn get(&self, i: usize) -> Result<&PlantAt, &PointError> {
+        self.each[i]
+            .get_or_init(|| self.loops[i].hold_at(&self.point))
+            .as_ref()
+    }
+}
+
+/// The order a verdict-only row tries the variants in after the nominal
+/// one (see [`VariantSet::trial_order`]).
+fn trial_order(case: &Case, values: &[Vec<f64>]) -> Vec<usize> {
+    let offset = |v: &[f64]| {
+        case.params
+            .iter()
+            .zip(v)
+            .filter(|(p, _)| p.min < p.max)
+            .map(|(p, x)| (x - p.nominal).abs() / (p.max - p.min))
+            .fold(0.0, f64::max)
+    };
+    let mut order: Vec<(usize, f64)> = (1..values.len()).map(|i| (i, offset(&values[i]))).collect();
+    // Stable: equal offsets keep variant order.
+    order.sort_by(|a, b| b.1.total_cmp(&a.1));
+    order.into_iter().map(|(i, _)| i).collect()
 }
 
 /// `k = 30, tau = 0.12`.
@@ -240,6 +381,13 @@ pub struct RobustPoint {
     pub worst_figures: Option<Figures>,
     /// Every variant's evaluation and verdict, when asked to keep them.
     pub each: Vec<(Evaluation, Assessment)>,
+    /// Variants evaluated: all of them, or fewer on a verdict-only row.
+    pub evaluated: usize,
+    /// True when the row stopped at the first variant that fails
+    /// ([`VariantSet::judge_verdict`]): `worst` and `assessment` are that
+    /// variant's, `unstable` counts only the variants evaluated, and
+    /// there are no worst-case figures.
+    pub verdict_only: bool,
 }
 
 impl RobustPoint {
@@ -259,6 +407,8 @@ impl RobustPoint {
             assessment,
             unstable,
             worst_figures,
+            evaluated: evals.len(),
+            verdict_only: false,
             each: if keep {
                 evals.into_iter().zip(assessments).collect()
             } else {

@@ -207,7 +207,9 @@ pub struct RateSeries {
     /// Per rate panel ([`RATE_PANELS`]): rows with figures but without
     /// this one.
     pub missing: [usize; RATE_PANELS.len()],
-    /// Rows with figures whose worst variant has none (a variant unstable).
+    /// Rows with figures but no worst over the variants (a variant
+    /// unstable, or a failing row judged verdict-only: `docs/figures.md`,
+    /// "Plant variants").
     pub variant_gaps: usize,
     /// The fastest infeasible rate of the nominal loop, Hz.
     pub last_infeasible_hz: Option<f64>,
@@ -791,7 +793,7 @@ fn rate_panel(
         ),
         (
             variant_gaps,
-            format!("a variant unstable ({variant_gaps} more)"),
+            format!("no worst case, a variant fails ({variant_gaps} more)"),
         ),
     ]
     .into_iter()

@@ -62,14 +62,21 @@ pub fn sweep_columns() -> Vec<String> {
 }
 
 /// Columns added by plant variants: the verdict over all of them, the
-/// worst variant, and each figure at its worst (prefixed `worst_`).
-pub const ROBUST_COLUMNS: [&str; 6] = [
+/// worst variant, what the row judged (`robust_scope`: `all` variants, or
+/// `verdict-only`: it stopped at the first variant that fails, which
+/// `worst_variant` and `robust_limiting` then name, and
+/// `variants_unstable`, `robust_slack` and the worst figures are empty;
+/// `docs/figures.md`, "Plant variants"), and each figure at its worst
+/// (prefixed `worst_`).
+pub const ROBUST_COLUMNS: [&str; 8] = [
     "variants",
     "variants_unstable",
     "robust_feasible",
     "robust_limiting",
     "robust_slack",
     "worst_variant",
+    "robust_scope",
+    "variants_evaluated",
 ];
 
 /// Columns per number format (each prefixed with the format's name).
@@ -183,15 +190,25 @@ pub fn sweep_record(r: &SweepRow, variants: Option<&VariantSet>) -> Vec<String> 
     {
         let mut rec = point_cells(r, &r.eval, &r.assessment);
         if let (Some(set), Some(rb)) = (variants, r.robust.as_ref()) {
+            // A verdict-only row's count of unstable variants and slack are
+            // those of the variants it tried, not of all: left empty.
+            let whole = |v: String| if rb.verdict_only { String::new() } else { v };
             rec.extend([
                 set.len().to_string(),
-                rb.unstable.to_string(),
+                whole(rb.unstable.to_string()),
                 rb.assessment.feasible.to_string(),
                 rb.assessment
                     .limiting
                     .map_or(String::new(), |l| l.key().to_string()),
-                num(rb.assessment.slack),
+                whole(num(rb.assessment.slack)),
                 set.describe(rb.worst),
+                if rb.verdict_only {
+                    "verdict-only"
+                } else {
+                    "all"
+                }
+                .to_string(),
+                rb.evaluated.to_string(),
             ]);
             rec.extend(figure_cells(
                 &Figure::WORST_OVER_VARIANTS,
