@@ -6,9 +6,9 @@
 //! `text` with each glyph's side bearing and pair kerning, which plotters
 //! 0.3.7's own text path drops. Font sizes are plotters' (the pixel
 //! height from ascent to descent); plotters sizes label areas through
-//! `estimate_text_size` here. Rectangles and circles keep plotters'
-//! default rasterizer, which draws them through `draw_line` here (the
-//! charts draw no circle).
+//! `estimate_text_size` here. Circles are smooth outlines too;
+//! rectangles keep plotters' default rasterizer, which draws them through
+//! `draw_line` here (crisp rows and edges).
 
 use std::convert::Infallible;
 
@@ -112,6 +112,29 @@ impl DrawingBackend for CanvasBackend<'_> {
         }
         let clip = self.canvas.bounds();
         self.canvas.fill_polys(&polys, c, a, clip);
+        Ok(())
+    }
+
+    fn draw_circle<S: BackendStyle>(
+        &mut self,
+        c: BackendCoord,
+        radius: u32,
+        style: &S,
+        fill: bool,
+    ) -> Result<()> {
+        let (color, a) = rgb(&style.color());
+        let (x, y) = centre(c);
+        let ring = circle(x, y, f64::from(radius));
+        let mut polys = Vec::new();
+        let w = f64::from(style.stroke_width().max(1));
+        for (i, p) in ring.iter().enumerate().filter(|_| !fill) {
+            capsule(*p, ring[(i + 1) % ring.len()], w, &mut polys);
+        }
+        if fill {
+            polys.push(ring);
+        }
+        let clip = self.canvas.bounds();
+        self.canvas.fill_polys(&polys, color, a, clip);
         Ok(())
     }
 
