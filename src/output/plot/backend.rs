@@ -38,7 +38,11 @@ fn centre(p: BackendCoord) -> (f64, f64) {
     (f64::from(p.0) + 0.5, f64::from(p.1) + 0.5)
 }
 
-impl CanvasBackend<'_> {
+impl<'a> CanvasBackend<'a> {
+    pub fn new(canvas: &'a mut Canvas, font: &'a TextFont) -> Self {
+        CanvasBackend { canvas, font }
+    }
+
     fn text_style(&self, style: &impl BackendTextStyle) -> TextStyle {
         let (color, _) = rgb(&style.color());
         let a = style.anchor();

@@ -11,6 +11,7 @@
 //! infeasible side of a limit, and labels placed where they cover the
 //! least ink, chosen on the finished pixels.
 
+use plotters::coord::Shift;
 use plotters::coord::ranged1d::{DefaultFormatting, KeyPointHint, Ranged};
 use plotters::coord::types::RangedCoordf64;
 use plotters::element::{DashedPathElement, Drawable, PointCollection};
@@ -322,54 +323,36 @@ fn text_style(font: &TextFont, em: f64, c: Rgb) -> PTextStyle<'static> {
     font_desc.color(&color(c, 1.0))
 }
 
-/// How palette entry `style` draws: line stroke, dash and gap in pixels
-/// (round caps add half a width to each end of a dash), marker shape
-/// (0..4) and marker style.
-struct Ink {
-    stroke: ShapeStyle,
-    dash: (u32, u32),
-    shape: usize,
-    mark: ShapeStyle,
-}
-
-fn ink(style: usize, m: &Metrics) -> Ink {
+/// How palette entry `style` draws: its line, dash and gap in pixels
+/// (round caps add half a width to each end of a dash) and its marker.
+fn ink(style: usize, m: &Metrics) -> (ShapeStyle, (u32, u32), Mark) {
     let (c, dash) = PENS[style % PALETTE_LEN];
-    let stroke = color(c, 1.0).stroke_width(m.lw as u32);
-    let dash = dash.map_or((1_000_000, 1), |(on, off)| {
-        (
-            ((on - 1.0) * m.lw).round().max(1.0) as u32,
-            ((off + 1.0) * m.lw).round() as u32,
-        )
-    });
-    let hollow = style % PALETTE_LEN >= 4;
-    let mark = ShapeStyle {
-        filled: !hollow,
-        ..stroke
+    let line = color(c, 1.0).stroke_width(m.lw as u32);
+    let px = |k: f64| (k * m.lw).round().max(1.0) as u32;
+    let dash = dash.map_or((1_000_000, 1), |(on, off)| (px(on - 1.0), px(off + 1.0)));
+    let mark = if style % PALETTE_LEN < 4 {
+        line.filled()
+    } else {
+        line
     };
-    let shape = style % 4;
-    Ink {
-        stroke,
+    (
+        line,
         dash,
-        shape,
-        mark,
-    }
+        Mark((0, 0), Some(style % 4), (m.base * 0.24) as i32, mark),
+    )
 }
 
-/// plotters' marker `shape` (circle, square, triangle, cross; `None`
-/// for none) of radius `r` at `at`: one element type for series and
-/// legend samples.
-struct Mark {
-    at: BackendCoord,
-    shape: Option<usize>,
-    r: i32,
-    style: ShapeStyle,
-}
+/// plotters' marker: at a pixel offset, of a shape (circle, square,
+/// triangle, cross; `None` for none), radius and style; one element type
+/// for series and legend samples.
+#[derive(Clone, Copy)]
+struct Mark(BackendCoord, Option<usize>, i32, ShapeStyle);
 
 impl<'a> PointCollection<'a, BackendCoord> for &'a Mark {
     type Point = BackendCoord;
     type IntoIter = std::iter::Once<BackendCoord>;
     fn point_iter(self) -> Self::IntoIter {
-        std::iter::once(self.at)
+        std::iter::once(self.0)
     }
 }
 
@@ -380,39 +363,34 @@ impl<DB: DrawingBackend> Drawable<DB> for Mark {
         b: &mut DB,
         dim: (u32, u32),
     ) -> Result<(), DrawingErrorKind<DB::ErrorType>> {
-        let (Some(c), Some(k)) = (pos.next(), self.shape) else {
+        let (Some(c), Mark(_, Some(k), r, st)) = (pos.next(), *self) else {
             return Ok(());
         };
-        let (r, st, at) = (self.r, self.style, std::iter::once(c));
+        let (at, d, line) = (
+            std::iter::once(c),
+            r * 4 / 5,
+            ShapeStyle {
+                filled: false,
+                ..st
+            },
+        );
+        let square = [(c.0 - d, c.1 - d), (c.0 + d, c.1 + d)];
         match k {
             0 => Circle::new(c, r, st).draw(at, b, dim),
-            1 => {
-                let d = r * 4 / 5;
-                let corners = [(c.0 - d, c.1 - d), (c.0 + d, c.1 + d)];
-                Rectangle::new(corners, st).draw(corners.into_iter(), b, dim)
-            }
+            1 => Rectangle::new(square, st).draw(square.into_iter(), b, dim),
             2 => TriangleMarker::new(c, r + r / 3, st).draw(at, b, dim),
-            _ => Cross::new(
-                c,
-                r,
-                ShapeStyle {
-                    filled: false,
-                    ..st
-                },
-            )
-            .draw(at, b, dim),
+            _ => Cross::new(c, r, line).draw(at, b, dim),
         }
     }
 }
 
-/// A label still to be placed: candidate spots in pixels, best first, in
-/// its panel's plot `area`, with a dot at the data point a note points at.
-struct Pending {
-    text: String,
-    spots: Vec<(f64, f64, TextStyle)>,
-    area: Rect,
-    pointer: Option<(f64, f64)>,
-}
+/// A candidate spot for a label: its anchor point in pixels and style.
+type Spot = (f64, f64, TextStyle);
+
+/// A label still to be placed: its text, candidate spots (best first),
+/// its panel's plot area, and the data point a note points at (in
+/// pixels; drawn with a dot).
+struct Pending(String, Vec<Spot>, Rect, Option<(f64, f64)>);
 
 /// Draw the whole figure: the legend column and the panels' sizes, then
 /// per panel plotters' chart (mesh, series) with our extras and its
@@ -421,34 +399,53 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
     validate(fig)?;
     let font = TextFont::embedded()?;
     let m = Metrics::new(fig.width, fig.height);
-    let (w, h, margin) = (f64::from(fig.width), f64::from(fig.height), 0.8 * m.base);
+    let (w, h, margin, n) = (
+        f64::from(fig.width),
+        f64::from(fig.height),
+        0.8 * m.base,
+        fig.panels.len(),
+    );
     let line = |em: f64| font.line_height(em);
+    let (width, height, panels) = (fig.width, fig.height, n);
     let too_small = PlotError::TooSmall {
-        width: fig.width,
-        height: fig.height,
-        panels: fig.panels.len(),
+        width,
+        height,
+        panels,
     };
     // Legend column: as wide as the widest label; a smaller font (down to
     // three quarters) when that is more than a fifth of the width.
-    let labels = (fig.panels.iter().flat_map(|p| &p.series)).filter(|s| !s.label.trim().is_empty());
-    let widest = (labels.map(|s| font.width(s.label.trim(), m.tick))).fold(0.0, f64::max);
-    let legend_em = m.tick * (0.2 * w / widest).clamp(0.75, 1.0);
-    let sample_w = (2.6 * m.base).round();
+    let labelled = |p: &'_ Panel| {
+        p.series
+            .iter()
+            .filter(|s| !s.label.trim().is_empty())
+            .count()
+    };
+    let labels = fig
+        .panels
+        .iter()
+        .flat_map(|p| &p.series)
+        .map(|s| s.label.trim());
+    let widest = labels.map(|l| font.width(l, m.tick)).fold(0.0, f64::max);
+    let (legend_em, sample_w) = (
+        m.tick * (0.2 * w / widest).clamp(0.75, 1.0),
+        (2.6 * m.base).round(),
+    );
     let legend_w = match widest > 0.0 {
         true => widest * legend_em / m.tick + sample_w + 2.0 * m.base,
         false => m.base,
     };
     // Vertical: title, equal panels, x axis, note.
     let (title_em, note_em) = (m.base * 1.25, m.base * 0.72);
-    let title_h = match fig.title.trim().is_empty() {
-        true => 0.0,
-        false => line(title_em) + 0.5 * m.base,
-    };
-    let top = margin + title_h;
+    let titled = !fig.title.trim().is_empty();
+    let top = margin
+        + if titled {
+            line(title_em) + 0.5 * m.base
+        } else {
+            0.0
+        };
     let note_h = (fig.note.as_ref()).map_or(0.0, |_| line(note_em) + 0.4 * m.base);
     let x_area = (0.65 * m.base + line(m.tick) + line(m.base)).round();
     let gap = (0.9 * m.base).round();
-    let n = fig.panels.len();
     let avail = h - top - margin * 0.7 - note_h - x_area - gap * (n - 1) as f64;
     let ph = (avail / n as f64).floor();
     if ph < 2.5 * line(m.tick) {
@@ -463,18 +460,18 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
         s.chain(v).chain(b.filter(|v| v.is_finite()))
     });
     let xa = fit(&fig.x, xv);
+    let y_ticks = ((ph / (2.2 * line(m.tick))) as usize).clamp(2, 9);
     let ys: Vec<Ax> = (fig.panels.iter())
         .map(|p| {
-            let s = (p.series.iter().flat_map(|s| s.points.iter()))
-                .filter(|q| xa.contains(q.0))
-                .map(|q| q.1);
+            let s = p.series.iter().flat_map(|s| s.points.iter());
+            let s = s.filter(|q| xa.contains(q.0)).map(|q| q.1);
             let l = (p.limits.iter().map(|l| l.value)).chain(p.notes.iter().map(|a| a.y));
             let b = (p.hbands.iter().flat_map(|b| [b.from, b.to])).filter(|v| v.is_finite());
-            let n = ((ph / (2.2 * line(m.tick))) as usize).clamp(2, 9);
-            fit(&p.y, s.chain(l).chain(b)).ticked(n)
+            fit(&p.y, s.chain(l).chain(b)).ticked(y_ticks)
         })
         .collect();
-    let tick_w = (ys.iter().flat_map(|y| y.bold.iter().map(|v| y.label(*v))))
+    let tick_labels = ys.iter().flat_map(|y| y.bold.iter().map(|v| y.label(*v)));
+    let tick_w = tick_labels
         .map(|l| font.width(&l, m.tick))
         .fold(0.0, f64::max);
     let y_area = (tick_w + 0.9 * m.base + line(m.base)).round();
@@ -487,19 +484,15 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
     let mut canvas = Canvas::new(fig.width, fig.height, BACKGROUND);
     let mut pending: Vec<Pending> = Vec::new();
     {
-        let backend = CanvasBackend {
-            canvas: &mut canvas,
-            font: &font,
-        };
-        let root = backend.into_drawing_area();
+        let root = CanvasBackend::new(&mut canvas, &font).into_drawing_area();
         let (mut y0, mut legend_end) = (top, top);
         for (i, (p, ys)) in fig.panels.iter().zip(&ys).enumerate() {
             let bottom = i + 1 == n;
             let x_area = if bottom { x_area } else { 0.0 };
-            let area = root.clone().shrink(
-                (margin.round() as i32, y0.round() as i32),
-                ((y_area + plot_w) as u32, (ph + x_area) as u32),
-            );
+            let size = ((y_area + plot_w) as u32, (ph + x_area) as u32);
+            let area = root
+                .clone()
+                .shrink((margin.round() as i32, y0.round() as i32), size);
             let mut chart = ChartBuilder::on(&area)
                 .set_label_area_size(LabelAreaPosition::Left, y_area as i32)
                 .set_label_area_size(LabelAreaPosition::Bottom, x_area as i32)
@@ -526,69 +519,29 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
             draw_extras(&mut chart, p, (&xs, ys), &m, &mut pending)?;
             draw_series(&mut chart, p, (&xs, ys), &m)?;
             let (px, py) = chart.plotting_area().get_pixel_range();
-            let frame = [(px.start, py.start), (px.end, py.end)];
-            root.draw(&Rectangle::new(frame, color(FRAME, 1.0)))
-                .map_err(err)?;
-            if p.series.iter().any(|s| !s.label.trim().is_empty()) {
+            let frame = Rectangle::new([(px.start, py.start), (px.end, py.end)], color(FRAME, 1.0));
+            root.draw(&frame).map_err(err)?;
+            if labelled(p) > 0 {
                 // The legend gets a chart of its own in the column right of
                 // the plot (plotters keeps a legend inside its chart's
                 // area), beside its panel or below the legend above when
                 // that runs longer (plotters' lines are 1.25 em).
                 let start = y0.max(legend_end);
                 let style = text_style(&font, legend_em, TEXT);
-                let entries = p.series.iter().filter(|s| !s.label.trim().is_empty());
-                legend_end = start + entries.count() as f64 * 1.25 * style.font.get_size() + gap;
-                let la = root.clone().shrink(
-                    (px.end + (0.6 * m.base) as i32, start.round() as i32),
-                    (legend_w as u32, (h - start).max(1.0) as u32),
-                );
-                let mut legend = ChartBuilder::on(&la)
-                    .build_cartesian_2d(0.0..1.0, 0.0..1.0)
-                    .map_err(err)?;
-                for s in p.series.iter().filter(|s| !s.label.trim().is_empty()) {
-                    let (ink, r, sw) = (ink(s.style, &m), (m.base * 0.24) as i32, sample_w as i32);
-                    let draw = s.draw;
-                    let seg = if draw == Draw::Markers {
-                        vec![]
-                    } else {
-                        vec![(0, 0), (sw, 0)]
-                    };
-                    let empty = std::iter::empty::<Circle<(f64, f64), i32>>();
-                    let anno = legend.draw_series(empty).map_err(err)?;
-                    anno.label(s.label.trim()).legend(move |(x, y)| {
-                        let dash = DashedPathElement::new(
-                            seg.clone(),
-                            ink.dash.0.min(sw as u32),
-                            ink.dash.1,
-                            ink.stroke,
-                        );
-                        let shape = Some(ink.shape).filter(|_| draw != Draw::Line);
-                        let mark = Mark {
-                            at: (sw / 2, 0),
-                            shape,
-                            r,
-                            style: ink.mark,
-                        };
-                        EmptyElement::at((x, y)) + dash + mark
-                    });
-                }
-                legend
-                    .configure_series_labels()
-                    .position(SeriesLabelPosition::UpperLeft)
-                    .legend_area_size((sample_w + 0.5 * m.base) as i32)
-                    .margin(0)
-                    .label_font(text_style(&font, legend_em, TEXT))
-                    .background_style(color(BACKGROUND, 0.0))
-                    .border_style(color(BACKGROUND, 0.0))
-                    .draw()
-                    .map_err(err)?;
+                legend_end = start + labelled(p) as f64 * 1.25 * style.font.get_size() + gap;
+                let corner = (px.end + (0.6 * m.base) as i32, start.round() as i32);
+                let la = root
+                    .clone()
+                    .shrink(corner, (legend_w as u32, (h - start).max(1.0) as u32));
+                draw_legend(&la, p, &m, sample_w as i32, style)?;
             }
             y0 += ph + gap;
         }
         root.present().map_err(err)?;
     }
     // Title and footer, both from the left margin.
-    if let Some(t) = Some(fig.title.trim()).filter(|t| !t.is_empty()) {
+    if titled {
+        let t = fig.title.trim();
         let size = title_em * ((w - 2.0 * margin) / font.width(t, title_em)).min(1.0);
         font.draw(&mut canvas, t, margin, margin, &TextStyle::new(size, TEXT));
     }
@@ -598,6 +551,46 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
     }
     place_labels(&mut canvas, &font, &m, pending);
     Ok(canvas)
+}
+
+/// A panel's legend by plotters' `configure_series_labels`, on a chart of
+/// its own in `area`: one empty series per labelled series, whose sample
+/// is its line (dash) and marker.
+fn draw_legend(
+    area: &DrawingArea<CanvasBackend, Shift>,
+    p: &Panel,
+    m: &Metrics,
+    sw: i32,
+    style: PTextStyle,
+) -> Result<(), PlotError> {
+    let mut chart = ChartBuilder::on(area)
+        .build_cartesian_2d(0.0..1.0, 0.0..1.0)
+        .map_err(err)?;
+    for s in p.series.iter().filter(|s| !s.label.trim().is_empty()) {
+        let ((line, (on, off), Mark(_, shape, r, st)), draw) = (ink(s.style, m), s.draw);
+        let seg = if draw == Draw::Markers {
+            vec![]
+        } else {
+            vec![(0, 0), (sw, 0)]
+        };
+        let anno = chart.draw_series(std::iter::empty::<Circle<(f64, f64), i32>>());
+        anno.map_err(err)?.label(s.label.trim()).legend(move |c| {
+            let mark = Mark((sw / 2, 0), shape.filter(|_| draw != Draw::Line), r, st);
+            EmptyElement::at(c)
+                + DashedPathElement::new(seg.clone(), on.min(sw as u32), off, line)
+                + mark
+        });
+    }
+    chart
+        .configure_series_labels()
+        .position(SeriesLabelPosition::UpperLeft)
+        .legend_area_size(sw + (0.5 * m.base) as i32)
+        .margin(0)
+        .label_font(style)
+        .background_style(color(BACKGROUND, 0.0))
+        .border_style(color(BACKGROUND, 0.0))
+        .draw()
+        .map_err(err)
 }
 
 /// Bands, hatched limits and vertical marks under the data; the panel's
@@ -624,58 +617,45 @@ fn draw_extras(
         (f64::from(a), f64::from(b))
     };
     let area = chart.plotting_area();
-    let fill = |x: (f64, f64), y: (f64, f64), c: Rgb, a: f64| {
-        let r = Rectangle::new([(x.0, y.0), (x.1, y.1)], color(c, a).filled());
+    let fill = |(x0, x1): (f64, f64), (y0, y1): (f64, f64), c: Rgb, a: f64| {
+        let r = Rectangle::new([(x0, y0), (x1, y1)], color(c, a).filled());
         area.draw(&r).map_err(err)
     };
     let (b, lo, hi) = (m.base, (xs.lo, ys.lo), (xs.hi, ys.hi));
-    let s = |c: Rgb, h: HPos, v: VPos| TextStyle::new(m.small, c).anchor(h, v);
-    let mut queue = |text: &str, spots: Vec<(f64, f64, TextStyle)>| {
+    // Spots at every (x, h) with every (y, v), in that order.
+    let grid = |xh: &[(f64, HPos)], yv: &[(f64, VPos)], c: Rgb| -> Vec<Spot> {
+        let st = |h, v| TextStyle::new(m.small, c).anchor(h, v);
+        let spot = |&(x, h): &(f64, HPos)| yv.iter().map(move |&(y, v)| (x, y, st(h, v)));
+        xh.iter().flat_map(spot).collect()
+    };
+    let mut queue = |text: &str, spots: Vec<Spot>| {
         if !text.trim().is_empty() {
-            let (text, area, pointer) = (text.trim().to_string(), plot, None);
-            pending.push(Pending {
-                text,
-                spots,
-                area,
-                pointer,
-            });
+            pending.push(Pending(text.trim().into(), spots, plot, None));
         }
     };
-    let (left, right) = (plot.x0 + 0.5 * b, plot.x1 - 0.5 * b);
+    let (left, right) = ((plot.x0 + 0.5 * b, Left), (plot.x1 - 0.5 * b, Right));
+    let (top, bottom) = ((plot.y0 + 0.3 * b, Top), (plot.y1 - 0.3 * b, Bottom));
+    let middle = ((plot.y0 + plot.y1) / 2.0, Middle);
     for band in &p.hbands {
         let (Some(a), Some(c)) = (ys.clamped(band.from), ys.clamped(band.to)) else {
             continue;
         };
         fill((lo.0, hi.0), (a, c), YBAND, 0.16)?;
         let (y0, y1) = (at(lo.0, a.max(c)).1, at(lo.0, a.min(c)).1);
-        let spots = [(left, Left), (right, Right)]
-            .into_iter()
-            .flat_map(|(x, h)| {
-                let st = |v| s(TEXT_SOFT, h, v);
-                let mid = (y0 + y1) / 2.0;
-                [
-                    (x, y0 - 0.2 * b, st(Bottom)),
-                    (x, y1 + 0.2 * b, st(Top)),
-                    (x, mid, st(Middle)),
-                ]
-            });
-        queue(&band.label, spots.collect());
+        let yv = [
+            (y0 - 0.2 * b, Bottom),
+            (y1 + 0.2 * b, Top),
+            ((y0 + y1) / 2.0, Middle),
+        ];
+        queue(&band.label, grid(&[left, right], &yv, TEXT_SOFT));
     }
     for band in &p.bands {
         let (Some(a), Some(c)) = (xs.clamped(band.from), xs.clamped(band.to)) else {
             continue;
         };
         fill((a, c), (lo.1, hi.1), XBAND, 0.14)?;
-        let (cx, st) = ((at(a, lo.1).0 + at(c, lo.1).0) / 2.0, |v| {
-            s(TEXT_SOFT, Center, v)
-        });
-        let mid = (plot.y0 + plot.y1) / 2.0;
-        let spots = [
-            (plot.y1 - 0.3 * b, Bottom),
-            (plot.y0 + 0.3 * b, Top),
-            (mid, Middle),
-        ];
-        queue(&band.label, spots.map(|(y, v)| (cx, y, st(v))).to_vec());
+        let cx = ((at(a, lo.1).0 + at(c, lo.1).0) / 2.0, Center);
+        queue(&band.label, grid(&[cx], &[bottom, top, middle], TEXT_SOFT));
     }
     for l in &p.limits {
         let Some(v) = ys.clamped(l.value) else {
@@ -693,13 +673,12 @@ fn draw_extras(
                 lo.1
             };
             fill((lo.0, hi.0), (v, side), LIMIT, 0.05)?;
-            // Diagonal hatch, aligned to the canvas so panels line up,
+            // Diagonal hatch, aligned to the canvas so panels line up;
             // in pixels from the plot's corner.
             let (g, pixels) = ((0.7 * b).max(3.0), area.strip_coord_spec());
             let hatch = color(LIMIT, 0.22).stroke_width(1);
             let (k0, k1) = ((bad.x0 + bad.y0) / g, (bad.x1 + bad.y1) / g);
-            for k in k0.floor() as i64..=k1.ceil() as i64 {
-                let c0 = k as f64 * g;
+            for c0 in (k0.floor() as i64..=k1.ceil() as i64).map(|k| k as f64 * g) {
                 let (p0, p1) = ((c0 - bad.y1, bad.y1), (c0 - bad.y0, bad.y0));
                 let Some((t0, t1)) = clip_segment(p0, p1, &bad) else {
                     continue;
@@ -708,7 +687,8 @@ fn draw_extras(
                     let (x, y) = (p0.0 + (p1.0 - p0.0) * t, p0.1 + (p1.1 - p0.1) * t);
                     ((x - plot.x0).round() as i32, (y - plot.y0).round() as i32)
                 };
-                (pixels.draw(&PathElement::new(vec![at_t(t0), at_t(t1)], hatch))).map_err(err)?;
+                let path = PathElement::new(vec![at_t(t0), at_t(t1)], hatch);
+                pixels.draw(&path).map_err(err)?;
             }
         }
         if !ys.contains(l.value) {
@@ -717,18 +697,14 @@ fn draw_extras(
         let stroke = color(LIMIT, 1.0).stroke_width(2);
         area.draw(&PathElement::new(vec![(lo.0, v), (hi.0, v)], stroke))
             .map_err(err)?;
-        let mid_x = (plot.x0 + plot.x1) / 2.0;
-        let spots = [(right, Right), (left, Left), (mid_x, Center)]
-            .into_iter()
-            .flat_map(|(x, h)| {
-                let above = (x, y - 0.3 * b, s(LIMIT, h, Bottom));
-                let below = (x, y + 0.3 * b, s(LIMIT, h, Top));
-                match l.bad_side {
-                    Side::Above => [above, below],
-                    Side::Below => [below, above],
-                }
-            });
-        queue(&l.label, spots.collect());
+        let (above, below) = ((y - 0.3 * b, Bottom), (y + 0.3 * b, Top));
+        let sides = if l.bad_side == Side::Above {
+            [above, below]
+        } else {
+            [below, above]
+        };
+        let mid = ((plot.x0 + plot.x1) / 2.0, Center);
+        queue(&l.label, grid(&[right, left, mid], &sides, LIMIT));
     }
     for vm in p.vmarks.iter().filter(|vm| xs.contains(vm.x)) {
         let t = xs.t(vm.x).unwrap_or(xs.lo);
@@ -738,103 +714,79 @@ fn draw_extras(
             MarkStyle::Dotted => (1, 5),
         };
         let st = color(MARK, 0.9).stroke_width(2);
-        area.draw(&DashedPathElement::new([(t, hi.1), (t, lo.1)], on, off, st))
-            .map_err(err)?;
+        let path = DashedPathElement::new([(t, hi.1), (t, lo.1)], on, off, st);
+        area.draw(&path).map_err(err)?;
         // Along the line first (reading upwards), then level beside it.
-        let (x, d, mut spots) = (at(t, lo.1).0, 0.3 * b, Vec::new());
-        for (y, h) in [(plot.y0 + 0.4 * b, Right), (plot.y1 - 0.4 * b, Left)] {
-            let st = |v| s(MARK, h, v).rotated();
-            spots.extend([(x + d, y, st(Top)), (x - d, y, st(Bottom))]);
-        }
-        for (y, v) in [(plot.y0 + 0.3 * b, Top), (plot.y1 - 0.3 * b, Bottom)] {
-            let st = |h| s(MARK, h, v);
-            spots.extend([(x + d, y, st(Left)), (x - d, y, st(Right))]);
-        }
+        let (x, d) = (at(t, lo.1).0, 0.3 * b);
+        let turned = |y, h, dx, v| (x + dx, y, st_of(m, MARK, h, v).rotated());
+        let (y0, y1) = (plot.y0 + 0.4 * b, plot.y1 - 0.4 * b);
+        let mut spots = vec![turned(y0, Right, d, Top), turned(y0, Right, -d, Bottom)];
+        spots.extend([turned(y1, Left, d, Top), turned(y1, Left, -d, Bottom)]);
+        spots.extend(grid(&[(x + d, Left), (x - d, Right)], &[top], MARK));
+        spots.extend(grid(&[(x + d, Left), (x - d, Right)], &[bottom], MARK));
         queue(&vm.label, spots);
     }
-    let corners = [(plot.y1 - 0.3 * b, Bottom), (plot.y0 + 0.3 * b, Top)];
-    let corners = corners.into_iter().flat_map(|(y, v)| {
-        let st = |h| s(TEXT_SOFT, h, v);
-        [(left, y, st(Left)), (right, y, st(Right))]
-    });
-    queue(&p.caption, corners.collect());
+    let caption = [
+        grid(&[left, right], &[bottom], TEXT_SOFT),
+        grid(&[left, right], &[top], TEXT_SOFT),
+    ];
+    queue(&p.caption, caption.concat());
     for a in p
         .notes
         .iter()
         .filter(|a| xs.contains(a.x) && ys.contains(a.y))
     {
         let (x, y) = at(xs.t(a.x).unwrap_or(0.0), ys.t(a.y).unwrap_or(0.0));
-        let mut spots = Vec::new();
-        for d in [1.1 * b, 2.2 * b] {
-            for (dy, v) in [(-0.7 * d, Bottom), (0.7 * d, Top)] {
-                let st = |h| s(TEXT, h, v);
-                spots.extend([(x + d, y + dy, st(Left)), (x - d, y + dy, st(Right))]);
-            }
-        }
+        let spots = [1.1 * b, 2.2 * b].map(|d| {
+            let yv = [(y - 0.7 * d, Bottom), (y + 0.7 * d, Top)];
+            grid(&[(x + d, Left), (x - d, Right)], &yv, TEXT)
+        });
         // Notes point at data: placed first, with their dot.
-        let (text, area, pointer) = (a.text.trim().to_string(), plot, Some((x, y)));
-        let first = pending.iter().take_while(|q| q.pointer.is_some()).count();
-        let note = Pending {
-            text,
-            spots,
-            area,
-            pointer,
-        };
+        let first = pending.iter().take_while(|q| q.3.is_some()).count();
+        let note = Pending(a.text.trim().into(), spots.concat(), plot, Some((x, y)));
         pending.insert(first, note);
     }
     Ok(())
 }
 
-/// The series through plotters (lines, dashes, markers).
+/// A label style: small text in colour `c`, anchored.
+fn st_of(m: &Metrics, c: Rgb, h: HPos, v: VPos) -> TextStyle {
+    TextStyle::new(m.small, c).anchor(h, v)
+}
+
+/// The series through plotters: dashed lines, and markers (every point
+/// without a line; with one, only to identify the series: at least 10
+/// radii apart, staggered by series).
 fn draw_series(
     chart: &mut Chart,
     p: &Panel,
     (xs, ys): (&Ax, &Ax),
     m: &Metrics,
 ) -> Result<(), PlotError> {
-    let r = m.base * 0.24;
     for s in &p.series {
-        let ink = ink(s.style, m);
-        let runs = runs(&s.points, xs, ys);
+        let ((line, (on, off), mark), runs) = (ink(s.style, m), runs(&s.points, xs, ys));
         for run in runs.iter().filter(|_| s.draw != Draw::Markers) {
-            let line = DashedLineSeries::new(run.clone(), ink.dash.0, ink.dash.1, ink.stroke);
-            chart.draw_series(line).map_err(err)?;
+            let series = DashedLineSeries::new(run.clone(), on, off, line);
+            chart.draw_series(series).map_err(err)?;
         }
-        if s.draw == Draw::Line {
-            continue;
-        }
-        // With a line, markers only identify the series: at least 10
-        // radii apart, staggered by series; without one every point.
         let spacing = if s.draw == Draw::Markers {
             0.0
         } else {
-            10.0 * r
+            10.0 * f64::from(mark.2)
         };
-        let mut travelled = spacing * (s.style % 4) as f64 / 4.0;
-        let mut kept = Vec::new();
-        for run in &runs {
-            let mut prev: Option<(i32, i32)> = None;
-            for q in run {
-                let c = chart.backend_coord(q);
-                if let Some(o) = prev {
-                    travelled += f64::from(c.0 - o.0).hypot(f64::from(c.1 - o.1));
-                }
-                prev = Some(c);
+        let (mut travelled, mut kept) = (spacing * (s.style % 4) as f64 / 4.0, Vec::new());
+        for run in runs.iter().filter(|_| s.draw != Draw::Line) {
+            let px: Vec<_> = run.iter().map(|q| chart.backend_coord(q)).collect();
+            for (k, q) in run.iter().enumerate() {
+                let (c, o) = (px[k], px[k.saturating_sub(1)]);
+                travelled += f64::from(c.0 - o.0).hypot(f64::from(c.1 - o.1));
                 if travelled >= spacing {
                     travelled = 0.0;
                     kept.push(*q);
                 }
             }
         }
-        let marks = (kept.into_iter()).map(|q| {
-            EmptyElement::at(q)
-                + Mark {
-                    at: (0, 0),
-                    shape: Some(ink.shape),
-                    r: r as i32,
-                    style: ink.mark,
-                }
-        });
+        let marks = kept.into_iter().map(|q| EmptyElement::at(q) + mark);
         chart.draw_series(marks).map_err(err)?;
     }
     Ok(())
@@ -846,42 +798,42 @@ fn draw_series(
 fn place_labels(canvas: &mut Canvas, font: &TextFont, m: &Metrics, pending: Vec<Pending>) {
     let (pad, dot) = (0.18 * m.base, 0.19 * m.base);
     let mut placed: Vec<Rect> = Vec::new();
-    for p in pending {
-        if let Some((x, y)) = p.pointer {
-            canvas.fill_polys(&[circle(x, y, dot)], MARK, 1.0, p.area);
+    for Pending(text, spots, area, pointer) in pending {
+        if let Some((x, y)) = pointer {
+            canvas.fill_polys(&[circle(x, y, dot)], MARK, 1.0, area);
             placed.push(Rect::new(x - dot, y - dot, x + dot, y + dot));
         }
-        if p.text.is_empty() {
+        if text.is_empty() {
             continue;
         }
         let score = |i: usize, r: &Rect| {
-            let outside = if p.area.contains_rect(r) { 0.0 } else { 1e7 };
+            let outside = if area.contains_rect(r) { 0.0 } else { 1e7 };
             let overlaps = placed.iter().filter(|q| q.overlaps(r)).count() as f64;
             i as f64 * 3.0 + canvas.ink_in(*r, 190) as f64 + outside + overlaps * 1e6
         };
-        let Some((_, (x, y, st), r)) = (p.spots.iter().enumerate())
-            .map(|(i, s)| {
-                let r = font.bounds(&p.text, s.0, s.1, &s.2).expand(pad);
-                (score(i, &r), s, r)
-            })
-            .min_by(|a, b| a.0.total_cmp(&b.0))
-        else {
+        let scored = spots.iter().enumerate().map(|(i, s)| {
+            let r = font.bounds(&text, s.0, s.1, &s.2).expand(pad);
+            (score(i, &r), s, r)
+        });
+        let Some((_, (x, y, st), r)) = scored.min_by(|a, b| a.0.total_cmp(&b.0)) else {
             continue;
         };
-        if let Some((px, py)) = p.pointer {
+        if let Some((px, py)) = pointer {
             let corner = (
                 if *x >= px { r.x0 } else { r.x1 },
                 if *y <= py { r.y1 } else { r.y0 },
             );
             let (dx, dy) = (corner.0 - px, corner.1 - py);
             let len = dx.hypot(dy).max(1e-9);
-            let start = (px + dx / len * dot * 1.6, py + dy / len * dot * 1.6);
-            let mut polys = Vec::new();
+            let (start, mut polys) = (
+                (px + dx / len * dot * 1.6, py + dy / len * dot * 1.6),
+                vec![],
+            );
             capsule(start, corner, 1.3, &mut polys);
-            canvas.fill_polys(&polys, MARK, 0.85, p.area);
+            canvas.fill_polys(&polys, MARK, 0.85, area);
         }
         canvas.fill_rect(r, BACKGROUND, 0.82);
-        font.draw(canvas, &p.text, *x, *y, st);
+        font.draw(canvas, &text, *x, *y, st);
         placed.push(r);
     }
 }
