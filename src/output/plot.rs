@@ -19,7 +19,6 @@ use crate::error::PlotError;
 mod backend;
 mod canvas;
 mod draw;
-mod text;
 
 use std::path::Path;
 
@@ -314,8 +313,7 @@ impl Annotation {
 /// top to bottom, three bytes per pixel.
 pub fn render_rgb(fig: &Figure) -> Result<(u32, u32, Vec<u8>), PlotError> {
     let canvas = draw::render(fig)?;
-    let (w, h) = (canvas.width(), canvas.height());
-    Ok((w, h, canvas.pixels().to_vec()))
+    Ok((canvas.width, canvas.height, canvas.px))
 }
 
 /// Draw `fig` and encode it as an RGB PNG in memory (the `png` crate).
@@ -325,10 +323,10 @@ pub fn render_rgb(fig: &Figure) -> Result<(u32, u32, Vec<u8>), PlotError> {
 pub fn render_png_bytes(fig: &Figure, name: &Path) -> Result<Vec<u8>, PlotError> {
     let canvas = draw::render(fig)?;
     let mut out = Vec::new();
-    let mut enc = png::Encoder::new(&mut out, canvas.width(), canvas.height());
+    let mut enc = png::Encoder::new(&mut out, canvas.width, canvas.height);
     enc.set_color(png::ColorType::Rgb);
     enc.set_depth(png::BitDepth::Eight);
-    let written = (enc.write_header()).and_then(|mut w| w.write_image_data(canvas.pixels()));
+    let written = (enc.write_header()).and_then(|mut w| w.write_image_data(&canvas.px));
     written.map_err(|e| PlotError::Encode {
         path: name.to_path_buf(),
         message: e.to_string(),

@@ -46,6 +46,16 @@ impl Rect {
         o.x0 >= self.x0 && o.x1 <= self.x1 && o.y0 >= self.y0 && o.y1 <= self.y1
     }
 
+    /// The corners, as a polygon.
+    pub fn poly(&self) -> Poly {
+        vec![
+            (self.x0, self.y0),
+            (self.x1, self.y0),
+            (self.x1, self.y1),
+            (self.x0, self.y1),
+        ]
+    }
+
     /// The common part, if any.
     pub fn intersect(&self, o: &Rect) -> Option<Rect> {
         let r = Rect::new(
@@ -63,9 +73,10 @@ pub(crate) type Poly = Vec<(f64, f64)>;
 
 /// The drawing surface: 8-bit RGB, row-major, no alpha channel.
 pub(crate) struct Canvas {
-    width: u32,
-    height: u32,
-    px: Vec<u8>,
+    pub width: u32,
+    pub height: u32,
+    /// The RGB bytes, row after row.
+    pub px: Vec<u8>,
 }
 
 impl Canvas {
@@ -73,19 +84,6 @@ impl Canvas {
     pub fn new(width: u32, height: u32, bg: Rgb) -> Self {
         let px = [bg.0, bg.1, bg.2].repeat(width as usize * height as usize);
         Canvas { width, height, px }
-    }
-
-    pub fn width(&self) -> u32 {
-        self.width
-    }
-
-    pub fn height(&self) -> u32 {
-        self.height
-    }
-
-    /// The raw RGB bytes, row after row.
-    pub fn pixels(&self) -> &[u8] {
-        &self.px
     }
 
     /// The whole canvas as a rectangle.
@@ -124,21 +122,6 @@ impl Canvas {
             }
         }
         n
-    }
-
-    /// Fill the pixels whose centres lie inside `r` (no anti-aliasing),
-    /// for crisp grid lines, frames and backgrounds.
-    pub fn fill_rect(&mut self, r: Rect, c: Rgb, a: f32) {
-        let Some(r) = r.intersect(&self.bounds()) else {
-            return;
-        };
-        let (x0, x1) = (r.x0.round() as i64, r.x1.round() as i64);
-        let (y0, y1) = (r.y0.round() as i64, r.y1.round() as i64);
-        for y in y0..y1 {
-            for x in x0..x1 {
-                self.blend(x, y, c, a);
-            }
-        }
     }
 
     /// Fill the union of `polys` with anti-aliased edges, touching only
@@ -286,7 +269,7 @@ mod tests {
         let mut c = Canvas::new(20, 20, Rgb(255, 255, 255));
         let sq = vec![(2.0, 2.0), (12.0, 2.0), (12.0, 12.0), (2.0, 12.0)];
         c.fill_polys(&[sq], Rgb(0, 0, 0), 1.0, Rect::new(0.0, 0.0, 8.0, 20.0));
-        let at = |x: usize, y: usize| c.pixels()[(y * 20 + x) * 3];
+        let at = |x: usize, y: usize| c.px[(y * 20 + x) * 3];
         assert_eq!(at(5, 5), 0);
         assert_eq!(at(10, 5), 255, "outside the clip");
         assert_eq!(at(15, 15), 255);

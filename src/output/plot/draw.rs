@@ -19,9 +19,8 @@ use plotters::prelude::*;
 use plotters::style::{RGBAColor, TextStyle as PTextStyle};
 use plotters_backend::{BackendCoord, DrawingErrorKind};
 
-use super::backend::CanvasBackend;
+use super::backend::{CanvasBackend, HPos, TextFont, TextStyle, VPos};
 use super::canvas::{Canvas, Rect, Rgb, capsule, circle, clip_segment};
-use super::text::{HPos, TextFont, TextStyle, VPos};
 use super::{
     Axis, Draw, Figure, MAX_PIXELS, MAX_SIDE, MIN_SIDE, MarkStyle, PALETTE_LEN, Panel, Side,
 };
@@ -832,7 +831,8 @@ fn place_labels(canvas: &mut Canvas, font: &TextFont, m: &Metrics, pending: Vec<
             capsule(start, corner, 1.3, &mut polys);
             canvas.fill_polys(&polys, MARK, 0.85, area);
         }
-        canvas.fill_rect(r, BACKGROUND, 0.82);
+        let clip = canvas.bounds();
+        canvas.fill_polys(&[r.poly()], BACKGROUND, 0.82, clip);
         font.draw(canvas, &text, *x, *y, st);
         placed.push(r);
     }
