@@ -22,7 +22,7 @@ use plotters_backend::{BackendCoord, DrawingErrorKind};
 use super::backend::{CanvasBackend, HPos, TextFont, TextStyle, VPos};
 use super::canvas::{Canvas, Rect, Rgb, capsule, circle, clip_segment};
 use super::{
-    Axis, Draw, Figure, MAX_PIXELS, MAX_SIDE, MIN_SIDE, MarkStyle, PALETTE_LEN, Panel, Side,
+    Axis, Draw, Figure, MAX_PIXELS, MAX_SIDE, MIN_SIDE, MarkStyle, PALETTE_LEN, Panel, Series, Side,
 };
 use crate::error::PlotError;
 
@@ -82,7 +82,7 @@ impl Metrics {
 
 /// One axis in drawing space (log axes in decades) with its ticks; a
 /// plotters coordinate (`Ranged`) with plotters' own linear map.
-#[derive(Clone)]
+#[derive(Clone, Default)]
 struct Ax {
     lo: f64,
     hi: f64,
@@ -202,12 +202,9 @@ fn fmt_tick(v: f64, step: f64) -> String {
 
 /// Why a figure cannot be drawn at all.
 fn validate(fig: &Figure) -> Result<(), PlotError> {
-    let (width, height) = (fig.width, fig.height);
-    let side = MIN_SIDE..=MAX_SIDE;
-    if !side.contains(&width)
-        || !side.contains(&height)
-        || u64::from(width) * u64::from(height) > MAX_PIXELS
-    {
+    let (width, height, side) = (fig.width, fig.height, MIN_SIDE..=MAX_SIDE);
+    let pixels = u64::from(width) * u64::from(height);
+    if !side.contains(&width) || !side.contains(&height) || pixels > MAX_PIXELS {
         let (min_side, max_side, max_pixels) = (MIN_SIDE, MAX_SIDE, MAX_PIXELS);
         return Err(PlotError::InvalidSize {
             width,
@@ -243,25 +240,21 @@ fn validate(fig: &Figure) -> Result<(), PlotError> {
 /// span padded by 5 % (a linear range that starts near zero starts at it).
 fn fit(axis: &Axis, values: impl Iterator<Item = f64>) -> Ax {
     let (log, scale) = (axis.log, axis.label_scale);
-    let (bold, light) = (Vec::new(), Vec::new());
     let mut ax = Ax {
-        lo: 0.0,
-        hi: 1.0,
         log,
         scale,
-        bold,
-        light,
+        ..Ax::default()
     };
     let (lo, hi) = match axis.range {
         // Checked finite (and positive on a log axis) by `validate`.
         Some((a, b)) => (ax.t(a.min(b)).unwrap_or(0.0), ax.t(a.max(b)).unwrap_or(1.0)),
         None => (values.filter_map(|v| ax.t(v)))
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
-                (a.min(v), b.max(v))
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |r, v| {
+                (r.0.min(v), r.1.max(v))
             }),
     };
     if !lo.is_finite() {
-        return ax;
+        return Ax { hi: 1.0, ..ax };
     }
     (ax.lo, ax.hi) = (lo, hi);
     if hi - lo <= 1e-12 * lo.abs().max(1.0) {
@@ -391,6 +384,16 @@ type Spot = (f64, f64, TextStyle);
 /// pixels; drawn with a dot).
 struct Pending(String, Vec<Spot>, Rect, Option<(f64, f64)>);
 
+/// The series of `p` that its legend lists.
+fn listed(p: &Panel) -> impl Iterator<Item = &Series> {
+    p.series.iter().filter(|s| !s.label.trim().is_empty())
+}
+
+/// The largest of `v`, at least 0.
+fn max_of(v: impl Iterator<Item = f64>) -> f64 {
+    v.fold(0.0, f64::max)
+}
+
 /// Draw the whole figure: the legend column and the panels' sizes, then
 /// per panel plotters' chart (mesh, series) with our extras and its
 /// legend, the title and note, and last the labels placed off the data.
@@ -398,13 +401,12 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
     validate(fig)?;
     let font = TextFont::embedded()?;
     let m = Metrics::new(fig.width, fig.height);
-    let (w, h, margin, n) = (
+    let (w, h, n) = (
         f64::from(fig.width),
         f64::from(fig.height),
-        0.8 * m.base,
         fig.panels.len(),
     );
-    let line = |em: f64| font.line_height(em);
+    let (margin, line) = (0.8 * m.base, |em: f64| font.line_height(em));
     let (width, height, panels) = (fig.width, fig.height, n);
     let too_small = PlotError::TooSmall {
         width,
@@ -413,35 +415,18 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
     };
     // Legend column: as wide as the widest label; a smaller font (down to
     // three quarters) when that is more than a fifth of the width.
-    let labelled = |p: &'_ Panel| {
-        p.series
-            .iter()
-            .filter(|s| !s.label.trim().is_empty())
-            .count()
-    };
-    let labels = fig
-        .panels
-        .iter()
-        .flat_map(|p| &p.series)
-        .map(|s| s.label.trim());
-    let widest = labels.map(|l| font.width(l, m.tick)).fold(0.0, f64::max);
-    let (legend_em, sample_w) = (
-        m.tick * (0.2 * w / widest).clamp(0.75, 1.0),
-        (2.6 * m.base).round(),
-    );
+    let label_w = |s: &Series| font.width(s.label.trim(), m.tick);
+    let widest = max_of(fig.panels.iter().flat_map(listed).map(label_w));
+    let legend_em = m.tick * (0.2 * w / widest).clamp(0.75, 1.0);
+    let sample_w = (2.6 * m.base).round();
     let legend_w = match widest > 0.0 {
         true => widest * legend_em / m.tick + sample_w + 2.0 * m.base,
         false => m.base,
     };
     // Vertical: title, equal panels, x axis, note.
     let (title_em, note_em) = (m.base * 1.25, m.base * 0.72);
-    let titled = !fig.title.trim().is_empty();
-    let top = margin
-        + if titled {
-            line(title_em) + 0.5 * m.base
-        } else {
-            0.0
-        };
+    let title = Some(fig.title.trim()).filter(|t| !t.is_empty());
+    let top = margin + title.map_or(0.0, |_| line(title_em) + 0.5 * m.base);
     let note_h = (fig.note.as_ref()).map_or(0.0, |_| line(note_em) + 0.4 * m.base);
     let x_area = (0.65 * m.base + line(m.tick) + line(m.base)).round();
     let gap = (0.9 * m.base).round();
@@ -470,9 +455,7 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
         })
         .collect();
     let tick_labels = ys.iter().flat_map(|y| y.bold.iter().map(|v| y.label(*v)));
-    let tick_w = tick_labels
-        .map(|l| font.width(&l, m.tick))
-        .fold(0.0, f64::max);
+    let tick_w = max_of(tick_labels.map(|l| font.width(&l, m.tick)));
     let y_area = (tick_w + 0.9 * m.base + line(m.base)).round();
     let plot_w = w - margin.round() - y_area - margin - legend_w;
     if plot_w < 6.0 * m.base {
@@ -520,14 +503,14 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
             let (px, py) = chart.plotting_area().get_pixel_range();
             let frame = Rectangle::new([(px.start, py.start), (px.end, py.end)], color(FRAME, 1.0));
             root.draw(&frame).map_err(err)?;
-            if labelled(p) > 0 {
+            if listed(p).next().is_some() {
                 // The legend gets a chart of its own in the column right of
                 // the plot (plotters keeps a legend inside its chart's
                 // area), beside its panel or below the legend above when
                 // that runs longer (plotters' lines are 1.25 em).
                 let start = y0.max(legend_end);
                 let style = text_style(&font, legend_em, TEXT);
-                legend_end = start + labelled(p) as f64 * 1.25 * style.font.get_size() + gap;
+                legend_end = start + listed(p).count() as f64 * 1.25 * style.font.get_size() + gap;
                 let corner = (px.end + (0.6 * m.base) as i32, start.round() as i32);
                 let la = root
                     .clone()
@@ -539,8 +522,7 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
         root.present().map_err(err)?;
     }
     // Title and footer, both from the left margin.
-    if titled {
-        let t = fig.title.trim();
+    if let Some(t) = title {
         let size = title_em * ((w - 2.0 * margin) / font.width(t, title_em)).min(1.0);
         font.draw(&mut canvas, t, margin, margin, &TextStyle::new(size, TEXT));
     }
@@ -565,13 +547,12 @@ fn draw_legend(
     let mut chart = ChartBuilder::on(area)
         .build_cartesian_2d(0.0..1.0, 0.0..1.0)
         .map_err(err)?;
-    for s in p.series.iter().filter(|s| !s.label.trim().is_empty()) {
+    for s in listed(p) {
         let ((line, (on, off), Mark(_, shape, r, st)), draw) = (ink(s.style, m), s.draw);
-        let seg = if draw == Draw::Markers {
-            vec![]
-        } else {
-            vec![(0, 0), (sw, 0)]
-        };
+        let seg: Vec<_> = [(0, 0), (sw, 0)]
+            .into_iter()
+            .filter(|_| draw != Draw::Markers)
+            .collect();
         let anno = chart.draw_series(std::iter::empty::<Circle<(f64, f64), i32>>());
         anno.map_err(err)?.label(s.label.trim()).legend(move |c| {
             let mark = Mark((sw / 2, 0), shape.filter(|_| draw != Draw::Line), r, st);
@@ -604,12 +585,8 @@ fn draw_extras(
     use HPos::{Center, Left, Right};
     use VPos::{Bottom, Center as Middle, Top};
     let (px, py) = chart.plotting_area().get_pixel_range();
-    let plot = Rect::new(
-        px.start.into(),
-        py.start.into(),
-        px.end.into(),
-        py.end.into(),
-    );
+    let f = |v: i32| f64::from(v);
+    let plot = Rect::new(f(px.start), f(py.start), f(px.end), f(py.end));
     // Pixel position of a point in drawing space.
     let at = |x: f64, y: f64| {
         let (a, b) = chart.backend_coord(&(x, y));
@@ -641,11 +618,8 @@ fn draw_extras(
         };
         fill((lo.0, hi.0), (a, c), YBAND, 0.16)?;
         let (y0, y1) = (at(lo.0, a.max(c)).1, at(lo.0, a.min(c)).1);
-        let yv = [
-            (y0 - 0.2 * b, Bottom),
-            (y1 + 0.2 * b, Top),
-            ((y0 + y1) / 2.0, Middle),
-        ];
+        let (over, under) = ((y0 - 0.2 * b, Bottom), (y1 + 0.2 * b, Top));
+        let yv = [over, under, ((y0 + y1) / 2.0, Middle)];
         queue(&band.label, grid(&[left, right], &yv, TEXT_SOFT));
     }
     for band in &p.bands {
@@ -660,17 +634,14 @@ fn draw_extras(
         let Some(v) = ys.clamped(l.value) else {
             continue;
         };
-        let y = at(lo.0, v).1;
-        let bad = match l.bad_side {
-            Side::Above => Rect::new(plot.x0, plot.y0, plot.x1, y),
-            Side::Below => Rect::new(plot.x0, y, plot.x1, plot.y1),
+        let (y, above) = (at(lo.0, v).1, l.bad_side == Side::Above);
+        let (edge, side) = if above {
+            (plot.y0, hi.1)
+        } else {
+            (plot.y1, lo.1)
         };
+        let bad = Rect::new(plot.x0, y, plot.x1, edge);
         if bad.height() >= 1.0 {
-            let side = if l.bad_side == Side::Above {
-                hi.1
-            } else {
-                lo.1
-            };
             fill((lo.0, hi.0), (v, side), LIMIT, 0.05)?;
             // Diagonal hatch, aligned to the canvas so panels line up;
             // in pixels from the plot's corner.
@@ -696,12 +667,8 @@ fn draw_extras(
         let stroke = color(LIMIT, 1.0).stroke_width(2);
         area.draw(&PathElement::new(vec![(lo.0, v), (hi.0, v)], stroke))
             .map_err(err)?;
-        let (above, below) = ((y - 0.3 * b, Bottom), (y + 0.3 * b, Top));
-        let sides = if l.bad_side == Side::Above {
-            [above, below]
-        } else {
-            [below, above]
-        };
+        let (over, under) = ((y - 0.3 * b, Bottom), (y + 0.3 * b, Top));
+        let sides = if above { [over, under] } else { [under, over] };
         let mid = ((plot.x0 + plot.x1) / 2.0, Center);
         queue(&l.label, grid(&[right, left, mid], &sides, LIMIT));
     }
