@@ -340,7 +340,7 @@ impl DrawingBackend for CanvasBackend<'_> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use plotters::prelude::{BLACK, Color, IntoDrawingArea, IntoFont, Text};
+    use plotters::prelude::{BLACK, IntoDrawingArea, IntoFont, Text};
 
     /// Text drawn by plotters' own `Text` element comes through our font
     /// path: the letters of a word stay evenly spaced (plotters 0.3.7's

@@ -413,14 +413,13 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
         height,
         panels,
     };
-    // Legend column: as wide as the widest label; a smaller font (down to
-    // three quarters) when that is more than a fifth of the width.
-    let label_w = |s: &Series| font.width(s.label.trim(), m.tick);
-    let widest = max_of(fig.panels.iter().flat_map(listed).map(label_w));
-    let legend_em = m.tick * (0.2 * w / widest).clamp(0.75, 1.0);
+    // Legend column: the widest label, wrapped at a fifth of the width.
+    let lines = |s: &Series| wrap(&font, s.label.trim(), m.tick, 0.2 * w);
+    let all = fig.panels.iter().flat_map(listed).flat_map(lines);
+    let widest = max_of(all.map(|l| font.width(&l, m.tick)));
     let sample_w = (2.6 * m.base).round();
     let legend_w = match widest > 0.0 {
-        true => widest * legend_em / m.tick + sample_w + 2.0 * m.base,
+        true => widest + sample_w + 2.0 * m.base,
         false => m.base,
     };
     // Vertical: title, equal panels, x axis, note.
@@ -509,13 +508,16 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
                 // area), beside its panel or below the legend above when
                 // that runs longer (plotters' lines are 1.25 em).
                 let start = y0.max(legend_end);
-                let style = text_style(&font, legend_em, TEXT);
-                legend_end = start + listed(p).count() as f64 * 1.25 * style.font.get_size() + gap;
+                let (style, n) = (
+                    text_style(&font, m.tick, TEXT),
+                    listed(p).flat_map(lines).count(),
+                );
+                legend_end = start + n as f64 * 1.25 * style.font.get_size() + gap;
                 let corner = (px.end + (0.6 * m.base) as i32, start.round() as i32);
                 let la = root
                     .clone()
                     .shrink(corner, (legend_w as u32, (h - start).max(1.0) as u32));
-                draw_legend(&la, p, &m, sample_w as i32, style)?;
+                draw_legend(&la, p, &m, (sample_w as i32, style), lines)?;
             }
             y0 += ph + gap;
         }
@@ -534,15 +536,30 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
     Ok(canvas)
 }
 
+/// `text` in lines no wider than `max_w` at em size `em`, split at plain
+/// spaces (a number keeps its unit by a no-break space; a longer word
+/// keeps a line of its own: a legend is never cut short).
+fn wrap(font: &TextFont, text: &str, em: f64, max_w: f64) -> Vec<String> {
+    let mut lines: Vec<String> = Vec::new();
+    for word in text.split(' ').filter(|w| !w.is_empty()) {
+        match lines.last_mut() {
+            Some(l) if font.width(&format!("{l} {word}"), em) <= max_w => *l += &format!(" {word}"),
+            _ => lines.push(word.to_string()),
+        }
+    }
+    lines
+}
+
 /// A panel's legend by plotters' `configure_series_labels`, on a chart of
 /// its own in `area`: one empty series per labelled series, whose sample
-/// is its line (dash) and marker.
+/// is its line (dash) and marker, and one more per further line of its
+/// label (`lines`).
 fn draw_legend(
     area: &DrawingArea<CanvasBackend, Shift>,
     p: &Panel,
     m: &Metrics,
-    sw: i32,
-    style: PTextStyle,
+    (sw, style): (i32, PTextStyle),
+    lines: impl Fn(&Series) -> Vec<String>,
 ) -> Result<(), PlotError> {
     let mut chart = ChartBuilder::on(area)
         .build_cartesian_2d(0.0..1.0, 0.0..1.0)
@@ -553,13 +570,22 @@ fn draw_legend(
             .into_iter()
             .filter(|_| draw != Draw::Markers)
             .collect();
-        let anno = chart.draw_series(std::iter::empty::<Circle<(f64, f64), i32>>());
-        anno.map_err(err)?.label(s.label.trim()).legend(move |c| {
-            let mark = Mark((sw / 2, 0), shape.filter(|_| draw != Draw::Line), r, st);
-            EmptyElement::at(c)
-                + DashedPathElement::new(seg.clone(), on.min(sw as u32), off, line)
-                + mark
-        });
+        let empty = || std::iter::empty::<Circle<(f64, f64), i32>>();
+        let text = lines(s);
+        let anno = chart.draw_series(empty()).map_err(err)?;
+        anno.label(text.first().map_or("", |l| l.as_str()))
+            .legend(move |c| {
+                let mark = Mark((sw / 2, 0), shape.filter(|_| draw != Draw::Line), r, st);
+                EmptyElement::at(c)
+                    + DashedPathElement::new(seg.clone(), on.min(sw as u32), off, line)
+                    + mark
+            });
+        for more in text.iter().skip(1) {
+            chart
+                .draw_series(empty())
+                .map_err(err)?
+                .label(more.as_str());
+        }
     }
     chart
         .configure_series_labels()
