@@ -11,7 +11,8 @@ use looprate::case::Case;
 use looprate::engineering::hz;
 use looprate::explore::pick::{Picked, prepare, sweep_and_pick};
 use looprate::explore::search::Silent;
-use looprate::output::charts::{self, ChartInput, ChartSeries, RATE_PANELS, describe};
+use looprate::output::chart_rows::{self, ChartSeries, RATE_PANELS};
+use looprate::output::charts::{self, ChartInput, describe};
 use looprate::output::plot::{Draw, Figure, MarkStyle, Side};
 use looprate::sampled::figure::Figure as LoopFigure;
 
@@ -440,7 +441,7 @@ fn a_controller_given_in_z_is_drawn_at_its_one_rate() {
 /// A sweep's chart, drawn without a pick.
 #[test]
 fn a_long_series_is_thinned_to_the_chart_width() {
-    let points = 2 * charts::CHART_COLUMNS + 500;
+    let points = 2 * chart_rows::CHART_COLUMNS + 500;
     let text = CASE
         .replace("points = 30", &format!("points = {points}"))
         .replace(
@@ -453,7 +454,7 @@ fn a_long_series_is_thinned_to_the_chart_width() {
     assert!(fig.panels.iter().all(|p| p.vmarks.is_empty()));
     for (panel, def) in fig.panels.iter().zip(RATE_PANELS) {
         let curve = &panel.series[0];
-        assert!(curve.points.len() <= 3 * charts::CHART_COLUMNS);
+        assert!(curve.points.len() <= 3 * chart_rows::CHART_COLUMNS);
         assert!(curve.points.len() < rows.len());
         let values: Vec<f64> = (rows.iter())
             .map(|r| {

@@ -7,7 +7,8 @@ use looprate::case::Case;
 use looprate::engineering::{hz, seconds, sig4};
 use looprate::explore::pick::{PickReport, Picked, prepare, sweep_and_pick};
 use looprate::explore::search::Silent;
-use looprate::output::charts::{ChartInput, ChartSeries, write_charts};
+use looprate::output::chart_rows::ChartSeries;
+use looprate::output::charts::{ChartInput, write_charts};
 use looprate::output::report::write_report;
 use looprate::sampled::evaluate::PreparedLoop;
 

@@ -11,7 +11,8 @@ use looprate::case::Case;
 use looprate::explore::budget;
 use looprate::explore::pick::{PickReport, prepare, sweep_and_pick};
 use looprate::explore::search::Silent;
-use looprate::output::charts::{ChartInput, ChartSeries, write_charts};
+use looprate::output::chart_rows::ChartSeries;
+use looprate::output::charts::{ChartInput, write_charts};
 use looprate::output::report::{CAUTION_LINE, write_report};
 use looprate::spec::Cycles;
 

@@ -3,6 +3,7 @@
 
 pub mod cascade;
 pub mod cascade_charts;
+pub mod chart_rows;
 pub mod charts;
 pub mod plot;
 pub mod report;

@@ -19,14 +19,12 @@ use crate::error::PlotError;
 mod backend;
 mod canvas;
 mod draw;
-mod palette;
-mod style;
-mod text;
 
 use std::path::Path;
 
-pub use canvas::Rgb;
-pub use style::PALETTE_LEN;
+/// Number of distinct series styles (colour, dash, marker) before the
+/// palette repeats.
+pub const PALETTE_LEN: usize = 8;
 
 /// Smallest accepted figure side, in pixels.
 pub const MIN_SIDE: u32 = 64;
@@ -315,21 +313,27 @@ impl Annotation {
 /// top to bottom, three bytes per pixel.
 pub fn render_rgb(fig: &Figure) -> Result<(u32, u32, Vec<u8>), PlotError> {
     let canvas = draw::render(fig)?;
-    let (w, h) = (canvas.width(), canvas.height());
-    Ok((w, h, canvas.pixels().to_vec()))
+    Ok((canvas.width, canvas.height, canvas.px))
 }
 
-/// Draw `fig` and encode it as a palette PNG in memory (see `palette`:
-/// the charts' flat colours kept exactly, a fifth of the size of RGB).
+/// Draw `fig` and encode it as an RGB PNG in memory (the `png` crate).
 /// The caller writes it (the bytes a report embeds are the bytes
 /// written, never a file read back); `name` is only used in an encoder
 /// error.
 pub fn render_png_bytes(fig: &Figure, name: &Path) -> Result<Vec<u8>, PlotError> {
     let canvas = draw::render(fig)?;
-    palette::encode_indexed(canvas.width(), canvas.height(), canvas.pixels()).map_err(|message| {
-        PlotError::Encode {
-            path: name.to_path_buf(),
-            message,
-        }
-    })
+    let mut out = Vec::new();
+    let mut enc = png::Encoder::new(&mut out, canvas.width, canvas.height);
+    enc.set_color(png::ColorType::Rgb);
+    enc.set_depth(png::BitDepth::Eight);
+    // Each row's best filter and the strongest deflate: anti-aliased
+    // edges and hatching compress poorly otherwise.
+    enc.set_adaptive_filter(png::AdaptiveFilterType::Adaptive);
+    enc.set_compression(png::Compression::Best);
+    let written = (enc.write_header()).and_then(|mut w| w.write_image_data(&canvas.px));
+    written.map_err(|e| PlotError::Encode {
+        path: name.to_path_buf(),
+        message: e.to_string(),
+    })?;
+    Ok(out)
 }

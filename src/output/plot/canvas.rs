@@ -23,19 +23,15 @@ pub(crate) struct Rect {
 
 impl Rect {
     pub fn new(x0: f64, y0: f64, x1: f64, y1: f64) -> Self {
-        Rect {
-            x0: x0.min(x1),
-            y0: y0.min(y1),
-            x1: x0.max(x1),
-            y1: y0.max(y1),
-        }
+        let (x0, x1, y0, y1) = (x0.min(x1), x0.max(x1), y0.min(y1), y0.max(y1));
+        Rect { x0, y0, x1, y1 }
     }
 
     pub fn height(&self) -> f64 {
         self.y1 - self.y0
     }
 
-    /// The rectangle grown by `d` on every side (shrunk for negative `d`).
+    /// The rectangle grown by `d` on every side.
     pub fn expand(&self, d: f64) -> Rect {
         Rect::new(self.x0 - d, self.y0 - d, self.x1 + d, self.y1 + d)
     }
@@ -50,15 +46,25 @@ impl Rect {
         o.x0 >= self.x0 && o.x1 <= self.x1 && o.y0 >= self.y0 && o.y1 <= self.y1
     }
 
+    /// The corners, as a polygon.
+    pub fn poly(&self) -> Poly {
+        vec![
+            (self.x0, self.y0),
+            (self.x1, self.y0),
+            (self.x1, self.y1),
+            (self.x0, self.y1),
+        ]
+    }
+
     /// The common part, if any.
     pub fn intersect(&self, o: &Rect) -> Option<Rect> {
-        let r = Rect {
-            x0: self.x0.max(o.x0),
-            y0: self.y0.max(o.y0),
-            x1: self.x1.min(o.x1),
-            y1: self.y1.min(o.y1),
-        };
-        (r.x0 < r.x1 && r.y0 < r.y1).then_some(r)
+        let r = Rect::new(
+            self.x0.max(o.x0),
+            self.y0.max(o.y0),
+            self.x1.min(o.x1),
+            self.y1.min(o.y1),
+        );
+        self.overlaps(o).then_some(r)
     }
 }
 
@@ -67,33 +73,17 @@ pub(crate) type Poly = Vec<(f64, f64)>;
 
 /// The drawing surface: 8-bit RGB, row-major, no alpha channel.
 pub(crate) struct Canvas {
-    width: u32,
-    height: u32,
-    px: Vec<u8>,
+    pub width: u32,
+    pub height: u32,
+    /// The RGB bytes, row after row.
+    pub px: Vec<u8>,
 }
 
 impl Canvas {
     /// A canvas filled with `bg`.
     pub fn new(width: u32, height: u32, bg: Rgb) -> Self {
-        let n = width as usize * height as usize;
-        let mut px = Vec::with_capacity(n * 3);
-        for _ in 0..n {
-            px.extend_from_slice(&[bg.0, bg.1, bg.2]);
-        }
+        let px = [bg.0, bg.1, bg.2].repeat(width as usize * height as usize);
         Canvas { width, height, px }
-    }
-
-    pub fn width(&self) -> u32 {
-        self.width
-    }
-
-    pub fn height(&self) -> u32 {
-        self.height
-    }
-
-    /// The raw RGB bytes, row after row.
-    pub fn pixels(&self) -> &[u8] {
-        &self.px
     }
 
     /// The whole canvas as a rectangle.
@@ -107,18 +97,14 @@ impl Canvas {
         if x < 0 || y < 0 || x >= i64::from(self.width) || y >= i64::from(self.height) {
             return;
         }
-        let a = a.clamp(0.0, 1.0);
-        if a <= 0.0 {
-            return;
+        let (a, i) = (
+            a.clamp(0.0, 1.0),
+            (y as usize * self.width as usize + x as usize) * 3,
+        );
+        for (d, s) in self.px[i..i + 3].iter_mut().zip([c.0, c.1, c.2]) {
+            let v = f32::from(*d) + (f32::from(s) - f32::from(*d)) * a;
+            *d = v.round().clamp(0.0, 255.0) as u8;
         }
-        let i = (y as usize * self.width as usize + x as usize) * 3;
-        let mix = |d: u8, s: u8| -> u8 {
-            let v = f32::from(d) + (f32::from(s) - f32::from(d)) * a;
-            v.round().clamp(0.0, 255.0) as u8
-        };
-        self.px[i] = mix(self.px[i], c.0);
-        self.px[i + 1] = mix(self.px[i + 1], c.1);
-        self.px[i + 2] = mix(self.px[i + 2], c.2);
     }
 
     /// How many pixels inside `r` are darker than `luma` (0..255): a
@@ -130,32 +116,12 @@ impl Canvas {
         let mut n = 0;
         for y in r.y0.round() as usize..r.y1.round() as usize {
             for x in r.x0.round() as usize..r.x1.round() as usize {
-                let i = (y * self.width as usize + x) * 3;
-                let l = (u32::from(self.px[i]) * 3
-                    + u32::from(self.px[i + 1]) * 6
-                    + u32::from(self.px[i + 2]))
-                    / 10;
-                if l < u32::from(luma) {
-                    n += 1;
-                }
+                let p = &self.px[(y * self.width as usize + x) * 3..][..3];
+                let l = (u32::from(p[0]) * 3 + u32::from(p[1]) * 6 + u32::from(p[2])) / 10;
+                n += usize::from(l < u32::from(luma));
             }
         }
         n
-    }
-
-    /// Fill the pixels whose centres lie inside `r` (no anti-aliasing),
-    /// for crisp grid lines, frames and backgrounds.
-    pub fn fill_rect(&mut self, r: Rect, c: Rgb, a: f32) {
-        let Some(r) = r.intersect(&self.bounds()) else {
-            return;
-        };
-        let (x0, x1) = (r.x0.round() as i64, r.x1.round() as i64);
-        let (y0, y1) = (r.y0.round() as i64, r.y1.round() as i64);
-        for y in y0..y1 {
-            for x in x0..x1 {
-                self.blend(x, y, c, a);
-            }
-        }
     }
 
     /// Fill the union of `polys` with anti-aliased edges, touching only
@@ -166,61 +132,52 @@ impl Canvas {
         let Some(clip) = clip.intersect(&self.bounds()) else {
             return;
         };
-        let mut curves = Vec::new();
-        let (mut minx, mut miny) = (f64::INFINITY, f64::INFINITY);
-        let (mut maxx, mut maxy) = (f64::NEG_INFINITY, f64::NEG_INFINITY);
+        let (mut curves, mut lo, mut hi) = (
+            Vec::new(),
+            point(f32::MAX, f32::MAX),
+            point(f32::MIN, f32::MIN),
+        );
         for poly in polys {
             if poly.len() < 3 || poly.iter().any(|p| !p.0.is_finite() || !p.1.is_finite()) {
                 continue;
             }
             // Every polygon gets the same winding so that overlaps add
             // up (and are clamped) instead of cancelling into holes.
-            let area: f64 = poly
-                .iter()
-                .zip(poly.iter().cycle().skip(1))
+            let turn: f64 = (poly.iter().zip(poly.iter().cycle().skip(1)))
                 .map(|(a, b)| a.0 * b.1 - b.0 * a.1)
                 .sum();
-            let pts: Vec<(f64, f64)> = if area < 0.0 {
-                poly.iter().rev().copied().collect()
-            } else {
-                poly.clone()
-            };
+            let pts: Vec<_> = poly
+                .iter()
+                .map(|p| point(p.0 as f32, -p.1 as f32))
+                .collect();
             for (i, p) in pts.iter().enumerate() {
                 let q = pts[(i + 1) % pts.len()];
-                curves.push(OutlineCurve::Line(
-                    point(p.0 as f32, -p.1 as f32),
-                    point(q.0 as f32, -q.1 as f32),
-                ));
-                minx = minx.min(p.0);
-                maxx = maxx.max(p.0);
-                miny = miny.min(p.1);
-                maxy = maxy.max(p.1);
+                curves.push(match turn < 0.0 {
+                    true => OutlineCurve::Line(q, *p),
+                    false => OutlineCurve::Line(*p, q),
+                });
+                (lo, hi) = (
+                    point(lo.x.min(p.x), lo.y.min(p.y)),
+                    point(hi.x.max(p.x), hi.y.max(p.y)),
+                );
             }
         }
-        if curves.is_empty() {
-            return;
-        }
         // Refuse absurd scratch sizes rather than allocate gigabytes.
-        let area = (maxx - minx + 2.0) * (maxy - miny + 2.0);
-        if !area.is_finite() || area > 4.0 * f64::from(self.width) * f64::from(self.height) + 1e6 {
+        let area = f64::from(hi.x - lo.x + 2.0) * f64::from(hi.y - lo.y + 2.0);
+        if curves.is_empty() || area > 4.0 * f64::from(self.width) * f64::from(self.height) + 1e6 {
             return;
         }
-        let outline = Outline {
-            bounds: ab_glyph::Rect {
-                min: point(minx as f32, -miny as f32),
-                max: point(maxx as f32, -maxy as f32),
-            },
-            curves,
+        // Outline y runs up: the box is from (min x, max y) to (max x, min y).
+        let bounds = ab_glyph::Rect {
+            min: point(lo.x, hi.y),
+            max: point(hi.x, lo.y),
         };
         let glyph = GlyphId(0).with_scale_and_position(PxScale::from(1.0), point(0.0, 0.0));
-        let og = OutlinedGlyph::new(
-            glyph,
-            outline,
-            PxScaleFactor {
-                horizontal: 1.0,
-                vertical: 1.0,
-            },
-        );
+        let one = PxScaleFactor {
+            horizontal: 1.0,
+            vertical: 1.0,
+        };
+        let og = OutlinedGlyph::new(glyph, Outline { bounds, curves }, one);
         let b = og.px_bounds();
         let (ox, oy) = (b.min.x as i64, b.min.y as i64);
         let (cx0, cy0) = (clip.x0.round() as i64, clip.y0.round() as i64);
@@ -312,18 +269,9 @@ mod tests {
         let mut c = Canvas::new(20, 20, Rgb(255, 255, 255));
         let sq = vec![(2.0, 2.0), (12.0, 2.0), (12.0, 12.0), (2.0, 12.0)];
         c.fill_polys(&[sq], Rgb(0, 0, 0), 1.0, Rect::new(0.0, 0.0, 8.0, 20.0));
-        let at = |x: usize, y: usize| c.pixels()[(y * 20 + x) * 3];
+        let at = |x: usize, y: usize| c.px[(y * 20 + x) * 3];
         assert_eq!(at(5, 5), 0);
         assert_eq!(at(10, 5), 255, "outside the clip");
         assert_eq!(at(15, 15), 255);
-    }
-
-    #[test]
-    fn overlapping_polygons_do_not_cancel() {
-        let mut c = Canvas::new(20, 20, Rgb(255, 255, 255));
-        let a = vec![(2.0, 2.0), (12.0, 2.0), (12.0, 12.0), (2.0, 12.0)];
-        let b: Poly = a.iter().rev().map(|p| (p.0 + 3.0, p.1 + 3.0)).collect();
-        c.fill_polys(&[a, b], Rgb(0, 0, 0), 1.0, c.bounds());
-        assert_eq!(c.pixels()[(8 * 20 + 8) * 3], 0);
     }
 }
