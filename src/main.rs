@@ -20,12 +20,13 @@ use looprate::explore::search::Silent;
 use looprate::explore::sweep;
 use looprate::explore::variants::VariantSet;
 use looprate::model::discretize::{Method, discretize};
-use looprate::model::transfer::{Controller, Transfer};
+use looprate::model::transfer::{Controller, DiscreteTransfer, Transfer};
 use looprate::output::chart_rows::ChartRows;
 use looprate::output::charts::ChartInput;
 use looprate::output::{summary, tables, writer};
+use looprate::sampled::cascade::evaluate::PairControllers;
 use looprate::sampled::continuous::HoldApprox;
-use looprate::sampled::evaluate::{Given, Point, PreparedLoop};
+use looprate::sampled::evaluate::{Given, Point, PointError, PreparedLoop};
 use looprate::spec::HoldKind;
 
 /// Choose the slowest loop rate for a digital controller that still meets
@@ -235,10 +236,12 @@ fn eval_outer(
     method: Option<&str>,
     delay: Option<f64>,
     hold: Option<&str>,
+    inner_c: &std::result::Result<DiscreteTransfer, PointError>,
 ) -> Result<(
     looprate::sampled::cascade::evaluate::PreparedCascade,
     looprate::sampled::cascade::evaluate::CascadePoint,
     looprate::sampled::evaluate::Evaluation,
+    PairControllers,
 )> {
     let outer = c
         .outer
@@ -288,8 +291,14 @@ fn eval_outer(
         outer_delay,
         outer_hold,
     };
-    let e = pc.evaluate_outer(&cp, true);
-    Ok((pc, cp, e))
+    // The inner controller is the one the inner figures ran; the outer one
+    // is discretized once for the figures and the trace.
+    let ctrls = PairControllers {
+        inner: inner_c.clone(),
+        outer: pc.outer_controller(&cp),
+    };
+    let e = pc.evaluate_outer_with(&cp, &ctrls, true);
+    Ok((pc, cp, e, ctrls))
 }
 
 fn parse_method(name: &str) -> Result<Method> {
@@ -472,12 +481,15 @@ fn run(cli: Cli) -> Result<ExitCode> {
                     outer_method.as_deref(),
                     outer_delay,
                     outer_hold.as_deref(),
+                    &own,
                 )?),
                 None => None,
             };
             if let Some(path) = trace {
                 let (step, dist) = match &cascade {
-                    Some((pc, cp, _)) => pc.outer_traces(cp, None).map_err(|e| anyhow!(e))?,
+                    Some((pc, cp, _, ctrls)) => {
+                        (pc.outer_traces_with(cp, ctrls, None)).map_err(|e| anyhow!(e))?
+                    }
                     None => (own.as_ref().map_err(|e| anyhow!(e.clone())))
                         .and_then(|c| lp.traces_around(&p, c, None).map_err(|e| anyhow!(e)))?,
                 };
@@ -485,7 +497,8 @@ fn run(cli: Cli) -> Result<ExitCode> {
             }
             if json {
                 let mut v = summary::eval_json(&exact, lp.design.as_ref(), &approx);
-                if let (Some((_, cp, outer)), serde_json::Value::Object(m)) = (&cascade, &mut v) {
+                if let (Some((_, cp, outer, _)), serde_json::Value::Object(m)) = (&cascade, &mut v)
+                {
                     m.insert(
                         "outer".into(),
                         looprate::output::cascade::outer_json(&c, cp, outer),
@@ -519,7 +532,7 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 for note in lp.cautions(&p, &exact) {
                     text.push_str(&format!("\nNote: {note}\n"));
                 }
-                if let Some((_, cp, outer)) = &cascade {
+                if let Some((_, cp, outer, _)) = &cascade {
                     text.push_str(&looprate::output::cascade::outer_text(&c, cp, outer));
                 }
                 print(&text)?;

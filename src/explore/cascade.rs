@@ -30,7 +30,9 @@ use crate::explore::sweep::SweepRow;
 use crate::model::discretize::{Method, MethodChoice};
 use crate::model::rounding;
 use crate::model::transfer::{Controller, DiscreteTransfer};
-use crate::sampled::cascade::evaluate::{CascadePoint, OuterOutcome, PreparedCascade};
+use crate::sampled::cascade::evaluate::{
+    CascadeError, CascadePoint, OuterOutcome, PreparedCascade,
+};
 use crate::sampled::evaluate::{Evaluation, Given, Point, Status};
 use crate::sampled::feasibility::{Assessment, assess};
 use crate::spec::HoldKind;
@@ -262,14 +264,13 @@ fn pair_cost_at(
     case: &Case,
     pc: &PreparedCascade,
     p: &CascadePoint,
-    inner_c: Option<&DiscreteTransfer>,
+    (inner_c, outer_c): (Option<&DiscreteTransfer>, Option<&DiscreteTransfer>),
 ) -> Cost {
-    let outer_c = pc.outer_controller(p).ok();
     pair_cost(
         case,
         p,
         inner_c,
-        outer_c.as_ref(),
+        outer_c,
         &pc.inner.controller,
         &pc.outer_models.controller,
     )
@@ -308,13 +309,13 @@ fn rows_at(
         ),
     };
     let inner_verdict = assess(&inner, &case.spec);
-    let inner_c = inner_c.ok();
     // The inner loop on the whole plant, shared by every ratio here; not
     // built when no ratio needs it (the search skips every pair at an inner
     // rate that fails the inner spec).
     let needed = full || inner_verdict.feasible;
     let closed = ratios.first().filter(|_| needed).map(|&n| {
-        pc.inner_closed(
+        let c = (inner_c.as_ref()).map_err(|e| CascadeError::InnerController(e.clone()))?;
+        pc.inner_closed_around(
             &CascadePoint {
                 inner: inner_point,
                 ratio: n,
@@ -322,6 +323,7 @@ fn rows_at(
                 outer_delay: series.outer_delay,
                 outer_hold: series.outer_hold,
             },
+            c,
             pc.outer_time.points_per_period,
         )
     });
@@ -335,7 +337,15 @@ fn rows_at(
             outer_delay: series.outer_delay,
             outer_hold: series.outer_hold,
         };
-        let cost = pair_cost_at(case, pc, &point, inner_c.as_ref());
+        // The outer controller at this ratio, discretized once: the CPU
+        // cost and the outer loop.
+        let outer_c = pc.outer_controller(&point);
+        let cost = pair_cost_at(
+            case,
+            pc,
+            &point,
+            (inner_c.as_ref().ok(), outer_c.as_ref().ok()),
+        );
         let skip = |why: String| CascadeRow {
             point,
             inner: inner.clone(),
@@ -366,7 +376,8 @@ fn rows_at(
         }
         let outcome = match &closed {
             Some(Ok(inner)) => {
-                pc.evaluate_outer_on(inner, &point, false, (!full).then_some(&outer.spec))
+                let spec = (!full).then_some(&outer.spec);
+                pc.evaluate_outer_on(inner, &point, outer_c.as_ref(), false, spec)
             }
             Some(Err(e)) => OuterOutcome::Figures(Box::new(Evaluation::error(e.clone()))),
             None => OuterOutcome::Figures(Box::new(pc.evaluate_outer(&point, false))),
@@ -599,9 +610,15 @@ fn recommend(case: &Case, pc: &PreparedCascade, chosen: &CascadeRow) -> Recommen
         },
         ..chosen.point
     };
-    let e = pc.evaluate(&point, true);
-    let inner_c = pc.inner.controller_at(rate, point.inner.method).ok();
-    let cost = pair_cost_at(case, pc, &point, inner_c.as_ref());
+    // Both controllers discretized once: both loops' figures and the cost.
+    let c = pc.controllers(&point);
+    let e = pc.evaluate_with(&point, &c, true);
+    let cost = pair_cost_at(
+        case,
+        pc,
+        &point,
+        (c.inner.as_ref().ok(), c.outer.as_ref().ok()),
+    );
     let fits_budget = match (case.budget.as_ref(), cost.total_load_pct) {
         (Some(b), Some(l)) => l <= b.max_load_pct,
         (Some(_), None) => false,

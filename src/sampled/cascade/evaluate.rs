@@ -86,6 +86,17 @@ pub struct PreparedCascade {
     outer_roots: Vec<C64>,
 }
 
+/// The two controllers of a pair, each discretized once and shared by
+/// everything evaluated at it (both loops' figures, the lifted loop, the
+/// traces, the CPU cost), or why it could not be built.
+#[derive(Debug, Clone)]
+pub struct PairControllers {
+    /// At the inner rate.
+    pub inner: Result<DiscreteTransfer, PointError>,
+    /// At the outer rate (inner rate / ratio).
+    pub outer: Result<DiscreteTransfer, CascadeError>,
+}
+
 /// The outer loop at a point: its figures, or, when a limit on a loop
 /// figure already fails, that verdict (the search
 /// then skips the time responses).
@@ -363,10 +374,34 @@ impl PreparedCascade {
             .map_err(CascadeError::OuterController)
     }
 
+    /// Both controllers of a pair, each discretized once here.
+    pub fn controllers(&self, p: &CascadePoint) -> PairControllers {
+        PairControllers {
+            inner: self.inner.controller_at(p.inner.rate_hz, p.inner.method),
+            outer: self.outer_controller(p),
+        }
+    }
+
     /// The inner loop closed on the whole plant at the point's inner rate.
     pub fn inner_closed(
         &self,
         p: &CascadePoint,
+        points: usize,
+    ) -> Result<InnerClosed, CascadeError> {
+        let c = self
+            .inner
+            .controller_at(p.inner.rate_hz, p.inner.method)
+            .map_err(CascadeError::InnerController)?;
+        self.inner_closed_around(p, &c, points)
+    }
+
+    /// [`PreparedCascade::inner_closed`] around the inner controller `c`
+    /// (the one discretized for the pair, shared with the inner figures
+    /// and the CPU cost).
+    pub fn inner_closed_around(
+        &self,
+        p: &CascadePoint,
+        c: &DiscreteTransfer,
         points: usize,
     ) -> Result<InnerClosed, CascadeError> {
         if p.ratio == 0 {
@@ -375,13 +410,9 @@ impl PreparedCascade {
         if !(p.outer_delay >= 0.0 && p.outer_delay.is_finite()) {
             return Err(CascadeError::OuterDelay(p.outer_delay));
         }
-        let c = self
-            .inner
-            .controller_at(p.inner.rate_hz, p.inner.method)
-            .map_err(CascadeError::InnerController)?;
         InnerClosed::new(
             &self.combined,
-            &c,
+            c,
             1.0 / p.inner.rate_hz,
             &self.inner.actuation(&p.inner),
             points,
@@ -396,40 +427,65 @@ impl PreparedCascade {
         p: &CascadePoint,
         rows: bool,
     ) -> Result<(InnerClosed, HoldEquivalent, DiscreteTransfer, ClosedLoop), CascadeError> {
-        let inner = self.inner_closed(p, self.outer_time.points_per_period)?;
-        let (lifted, c, cl) = self.outer_loop_on(&inner, p, rows)?;
-        Ok((inner, lifted, c, cl))
+        let c = self.controllers(p);
+        let (inner, lifted, cl) = self.outer_loop_with(p, &c, rows)?;
+        Ok((inner, lifted, c.outer?, cl))
     }
 
-    /// `outer_loop` on an inner loop already closed at the point's inner
-    /// rate (`inner_closed`; the ratios at one inner rate share it).
+    /// [`PreparedCascade::outer_loop`] around the pair's controllers.
+    pub fn outer_loop_with(
+        &self,
+        p: &CascadePoint,
+        c: &PairControllers,
+        rows: bool,
+    ) -> Result<(InnerClosed, HoldEquivalent, ClosedLoop), CascadeError> {
+        let inner_c = (c.inner.as_ref()).map_err(|e| CascadeError::InnerController(e.clone()))?;
+        let inner = self.inner_closed_around(p, inner_c, self.outer_time.points_per_period)?;
+        let outer_c = c.outer.as_ref().map_err(CascadeError::clone)?;
+        let (lifted, cl) = self.outer_loop_on(&inner, p, outer_c, rows)?;
+        Ok((inner, lifted, cl))
+    }
+
+    /// The lifted loop around outer controller `c` on an inner loop
+    /// already closed at the point's inner rate (`inner_closed`; the
+    /// ratios at one inner rate share it).
     pub fn outer_loop_on(
         &self,
         inner: &InnerClosed,
         p: &CascadePoint,
+        c: &DiscreteTransfer,
         rows: bool,
-    ) -> Result<(HoldEquivalent, DiscreteTransfer, ClosedLoop), CascadeError> {
-        let c = self.outer_controller(p)?;
+    ) -> Result<(HoldEquivalent, ClosedLoop), CascadeError> {
         let ticks = InnerClosed::delay_ticks(p.ratio, p.outer_delay);
         let lifted = inner.lifted(p.ratio, ticks, p.outer_hold, rows);
-        let cl = ClosedLoop::new(&lifted, &c).map_err(CascadeError::ClosingOuter)?;
-        Ok((lifted, c, cl))
+        let cl = ClosedLoop::new(&lifted, c).map_err(CascadeError::ClosingOuter)?;
+        Ok((lifted, cl))
     }
 
     /// A cheap screen before the full figures: None when the lifted loop's
     /// poles are all inside the unit circle, else its evaluation (unstable,
     /// marginal or the error).
     pub fn screen(&self, p: &CascadePoint) -> Option<Evaluation> {
+        let c = match self.outer_controller(p) {
+            Ok(c) => c,
+            Err(e) => return Some(Evaluation::error(e)),
+        };
         match self.inner_closed(p, 1) {
-            Ok(inner) => self.screen_on(&inner, p),
+            Ok(inner) => self.screen_on(&inner, p, &c),
             Err(e) => Some(Evaluation::error(e)),
         }
     }
 
-    /// `screen` on an inner loop already closed (`inner_closed`).
-    pub fn screen_on(&self, inner: &InnerClosed, p: &CascadePoint) -> Option<Evaluation> {
-        let cl = match self.outer_loop_on(inner, p, false) {
-            Ok((_, _, cl)) => cl,
+    /// `screen` on an inner loop already closed (`inner_closed`) around
+    /// outer controller `c`.
+    pub fn screen_on(
+        &self,
+        inner: &InnerClosed,
+        p: &CascadePoint,
+        c: &DiscreteTransfer,
+    ) -> Option<Evaluation> {
+        let cl = match self.outer_loop_on(inner, p, c, false) {
+            Ok((_, cl)) => cl,
             Err(e) => return Some(Evaluation::error(e)),
         };
         match cl.poles() {
@@ -445,26 +501,50 @@ impl PreparedCascade {
     /// Both loops' figures at a point; `exact_margin` also searches each
     /// loop's exact delay margin (for `eval` and the chosen pair).
     pub fn evaluate(&self, p: &CascadePoint, exact_margin: bool) -> CascadeEvaluation {
+        self.evaluate_with(p, &self.controllers(p), exact_margin)
+    }
+
+    /// [`PreparedCascade::evaluate`] around the pair's controllers.
+    pub fn evaluate_with(
+        &self,
+        p: &CascadePoint,
+        c: &PairControllers,
+        exact_margin: bool,
+    ) -> CascadeEvaluation {
         let inner = self.inner.evaluate(
             &p.inner,
             Given {
+                controller: Some(c.inner.as_ref()),
                 exact_delay_margin: exact_margin,
                 ..Given::default()
             },
         );
         CascadeEvaluation {
             inner,
-            outer: self.evaluate_outer(p, exact_margin),
+            outer: self.evaluate_outer_with(p, c, exact_margin),
         }
     }
 
     /// The outer loop's figures at a point.
     pub fn evaluate_outer(&self, p: &CascadePoint, exact_margin: bool) -> Evaluation {
-        let inner = match self.inner_closed(p, self.outer_time.points_per_period) {
+        self.evaluate_outer_with(p, &self.controllers(p), exact_margin)
+    }
+
+    /// [`PreparedCascade::evaluate_outer`] around the pair's controllers.
+    pub fn evaluate_outer_with(
+        &self,
+        p: &CascadePoint,
+        c: &PairControllers,
+        exact_margin: bool,
+    ) -> Evaluation {
+        let inner = (c.inner.as_ref())
+            .map_err(|e| CascadeError::InnerController(e.clone()))
+            .and_then(|ic| self.inner_closed_around(p, ic, self.outer_time.points_per_period));
+        let inner = match inner {
             Ok(v) => v,
             Err(e) => return Evaluation::error(e),
         };
-        match self.evaluate_outer_on(&inner, p, exact_margin, None) {
+        match self.evaluate_outer_on(&inner, p, c.outer.as_ref(), exact_margin, None) {
             OuterOutcome::Figures(e) => *e,
             // Without a spec to screen on, every figure is computed.
             OuterOutcome::FailsLoopFigures(_) | OuterOutcome::FailsSimulation(_) => {
@@ -482,12 +562,17 @@ impl PreparedCascade {
         &self,
         inner: &InnerClosed,
         p: &CascadePoint,
+        outer_c: Result<&DiscreteTransfer, &CascadeError>,
         exact_margin: bool,
         screen_on_spec: Option<&Spec>,
     ) -> OuterOutcome {
         let fail =
             |e: &dyn std::fmt::Display| OuterOutcome::Figures(Box::new(Evaluation::error(e)));
-        let (lifted, c, cl) = match self.outer_loop_on(inner, p, true) {
+        let c = match outer_c {
+            Ok(c) => c,
+            Err(e) => return fail(e),
+        };
+        let (lifted, cl) = match self.outer_loop_on(inner, p, c, true) {
             Ok(v) => v,
             Err(e) => return fail(&e),
         };
@@ -539,7 +624,7 @@ impl PreparedCascade {
             Ok(v) => v,
             Err(e) => return fail(&e),
         };
-        let margin = exact_margin.then(|| self.outer_delay_margin(inner, &c, p, &freq));
+        let margin = exact_margin.then(|| self.outer_delay_margin(inner, c, p, &freq));
         let mut e = finish(step, dist, freq, &poles);
         record_delay_margin(&mut e, margin);
         OuterOutcome::Figures(Box::new(e))
@@ -624,7 +709,17 @@ impl PreparedCascade {
         p: &CascadePoint,
         periods: Option<usize>,
     ) -> Result<(Vec<TracePoint>, Vec<TracePoint>), CascadeError> {
-        let (_, lifted, _, cl) = self.outer_loop(p, true)?;
+        self.outer_traces_with(p, &self.controllers(p), periods)
+    }
+
+    /// [`PreparedCascade::outer_traces`] around the pair's controllers.
+    pub fn outer_traces_with(
+        &self,
+        p: &CascadePoint,
+        c: &PairControllers,
+        periods: Option<usize>,
+    ) -> Result<(Vec<TracePoint>, Vec<TracePoint>), CascadeError> {
+        let (_, lifted, cl) = self.outer_loop_with(p, c, true)?;
         let poles = cl.poles().map_err(LoopError::Poles)?;
         let rho = poles.iter().map(|p| p.norm()).fold(0.0, f64::max);
         let n = periods.unwrap_or_else(|| {
