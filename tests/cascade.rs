@@ -14,42 +14,15 @@ use looprate::sampled::frequency::{FrequencyRange, loop_figures};
 use looprate::sampled::hold::{Actuation, HoldEquivalent, plant_and_sensor};
 use looprate::spec::HoldKind;
 
-/// An invented servo drive: winding 1/(0.0005 s + 0.5), current sensor
-/// 1/(1e-5 s + 1), PI; mechanics 0.1/(1e-4 s + 1e-4), speed PI. `{SENSOR}`
-/// is the outer sensor table, `{EXTRA}` more tables.
+mod common;
+
+/// The shared servo drive (`common::drive`) over 8 inner rates.
 fn drive(outer_sensor: &str, inner_delay: f64, extra: &str) -> String {
-    format!(
-        r#"
-[plant]
-transfer = "1 / (0.0005*s + 0.5)"
-[sensor]
-transfer = "1 / (1e-5*s + 1)"
-[controller]
-pid = {{ kp = 3.1, ki = 3100 }}
-[timing]
-compute_delay = [{inner_delay}]
-[rates]
-min_hz = 5000
-max_hz = 40000
-points = 8
-[methods]
-use = ["tustin"]
-[outer.plant]
-transfer = "0.1 / (1e-4*s + 1e-4)"
-{outer_sensor}
-[outer.controller]
-pid = {{ kp = 0.25, ki = 12 }}
-[outer.methods]
-use = ["tustin"]
-{extra}
-"#
-    )
+    common::drive(outer_sensor, inner_delay, 8, extra)
 }
 
 fn cascade(text: &str) -> (Case, PreparedCascade) {
-    let c = Case::parse(text, Path::new("cascade.toml")).unwrap();
-    let pc = prepare_cascade(&c).unwrap().unwrap();
-    (c, pc)
+    common::prepared(text, "cascade.toml")
 }
 
 fn point(rate_hz: f64, delay: f64, ratio: usize, outer_delay: f64) -> CascadePoint {

@@ -8,7 +8,7 @@
 use std::path::Path;
 
 use looprate::case::Case;
-use looprate::explore::cascade::{cascade_pick, cascade_rows, case_series, prepare_cascade};
+use looprate::explore::cascade::{cascade_pick, cascade_rows, case_series};
 use looprate::model::discretize::Method;
 use looprate::model::transfer::{Controller, Transfer};
 use looprate::output::cascade::cascade_csv;
@@ -16,42 +16,21 @@ use looprate::sampled::cascade::evaluate::{CascadePoint, PreparedCascade};
 use looprate::sampled::evaluate::{Figures, Point};
 use looprate::spec::HoldKind;
 
-/// The invented servo drive of `tests/cascade.rs` (winding and current PI,
-/// mechanics and speed PI, a filtered speed sensor), `{EXTRA}` more tables.
+mod common;
+
+/// The servo drive of `tests/cascade.rs` (`common::drive`) with a filtered
+/// speed sensor, over 6 inner rates, `extra` more tables.
 fn drive(extra: &str) -> String {
-    format!(
-        r#"
-[plant]
-transfer = "1 / (0.0005*s + 0.5)"
-[sensor]
-transfer = "1 / (1e-5*s + 1)"
-[controller]
-pid = {{ kp = 3.1, ki = 3100 }}
-[timing]
-compute_delay = [1]
-[rates]
-min_hz = 5000
-max_hz = 40000
-points = 6
-[methods]
-use = ["tustin"]
-[outer.plant]
-transfer = "0.1 / (1e-4*s + 1e-4)"
-[outer.sensor]
-transfer = "1 / (0.0002*s + 1)"
-[outer.controller]
-pid = {{ kp = 0.25, ki = 12 }}
-[outer.methods]
-use = ["tustin"]
-{extra}
-"#
+    common::drive(
+        "[outer.sensor]\ntransfer = \"1 / (0.0002*s + 1)\"",
+        1.0,
+        6,
+        extra,
     )
 }
 
 fn prepared(text: &str) -> (Case, PreparedCascade) {
-    let c = Case::parse(text, Path::new("holds.toml")).unwrap();
-    let pc = prepare_cascade(&c).unwrap().unwrap();
-    (c, pc)
+    common::prepared(text, "holds.toml")
 }
 
 fn point(ratio: usize, outer_delay: f64, outer_hold: HoldKind) -> CascadePoint {

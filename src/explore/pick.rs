@@ -1056,8 +1056,8 @@ fn robust_report(
             // The sweep's verdict-only rows the search reads, judged over
             // every variant: the same slack, limiting figure and worst
             // variant as a sweep that judged every variant everywhere.
-            let mut coarse = coarse.clone();
-            coarse.complete(&|rate: f64| {
+            // The robust verdict at a rate, over every variant.
+            let judged = |rate: f64| {
                 let p = Point {
                     rate_hz: rate,
                     method,
@@ -1065,21 +1065,18 @@ fn robust_report(
                     hold,
                 };
                 let c = lp.controller_at(rate, method);
-                let (_, v) = variants.judge(spec, &p, c.as_ref(), false, None);
+                variants.judge(spec, &p, c.as_ref(), false, None).1
+            };
+            let mut coarse = coarse.clone();
+            coarse.complete(&|rate: f64| {
+                let v = judged(rate);
                 (v.assessment, v.worst)
             });
             let coarse = &coarse;
             // Every judged rate with its verdict and worst variant.
             let seen: RefCell<Vec<(f64, Assessment, usize)>> = RefCell::new(Vec::new());
             let judge = |rate: f64| -> Assessment {
-                let p = Point {
-                    rate_hz: rate,
-                    method,
-                    delay,
-                    hold,
-                };
-                let c = lp.controller_at(rate, method);
-                let (_, v) = variants.judge(spec, &p, c.as_ref(), false, None);
+                let v = judged(rate);
                 observer.evaluated(rate, &v.assessment);
                 seen.borrow_mut()
                     .push((rate, v.assessment.clone(), v.worst));
