@@ -140,11 +140,7 @@ pub fn periods_of(d: f64, period: &str) -> String {
     } else {
         n
     };
-    let article = if period.starts_with(['a', 'e', 'i', 'o', 'u']) {
-        "an"
-    } else {
-        "a"
-    };
+    let article = article(period);
     if d == 0.0 {
         "none".into()
     } else if d < 1.0 {
@@ -153,6 +149,16 @@ pub fn periods_of(d: f64, period: &str) -> String {
         format!("1 {period}")
     } else {
         format!("{n} {period}s")
+    }
+}
+
+/// The indefinite article of `word` by its first letter (`an outer
+/// period`, `an integer`, `a string`).
+pub fn article(word: &str) -> &'static str {
+    if word.starts_with(['a', 'e', 'i', 'o', 'u']) {
+        "an"
+    } else {
+        "a"
     }
 }
 

@@ -428,6 +428,14 @@ impl Ctx {
 }
 
 /// serde names Rust types in its messages; say what the file needs.
+
+/// A TOML value's kind with its article, for error messages ("an
+/// integer", "a string").
+pub(crate) fn a_kind(v: &toml::Value) -> String {
+    let kind = v.type_str();
+    format!("{} {kind}", crate::engineering::article(kind))
+}
+
 fn plain_type_names(message: &str) -> String {
     message
         .replace("expected f64", "expected a number")
@@ -628,8 +636,8 @@ fn roots(ctx: &Ctx, field: &str, values: &[toml::Value]) -> Result<Vec<C64>, Cas
                     return Err(ctx.invalid(
                         &f,
                         format!(
-                            "expected a number or a complex string like \"-3+4j\", found a {}",
-                            other.type_str()
+                            "expected a number or a complex string like \"-3+4j\", found {}",
+                            a_kind(other)
                         ),
                     ));
                 }
@@ -1089,7 +1097,7 @@ fn params_from(ctx: &Ctx, table: toml::Table, order: &[String]) -> Result<Vec<Pa
                         Some(x) => value_as_f64(x).map(Some).ok_or_else(|| {
                             ctx.invalid(
                                 format!("{field}.{k}"),
-                                format!("expected a number, found a {}", x.type_str()),
+                                format!("expected a number, found {}", a_kind(x)),
                             )
                         }),
                     }
@@ -1105,8 +1113,8 @@ fn params_from(ctx: &Ctx, table: toml::Table, order: &[String]) -> Result<Vec<Pa
                     ctx.invalid(
                         &field,
                         format!(
-                            "expected a number or a table {{ nominal, min, max }}, found a {}",
-                            other.type_str()
+                            "expected a number or a table {{ nominal, min, max }}, found {}",
+                            a_kind(other)
                         ),
                     )
                 })?;
@@ -1185,9 +1193,9 @@ fn holds_from(
             return Err(ctx.invalid(
                 &f,
                 format!(
-                    "expected a hold kind name ({}), found a {}",
+                    "expected a hold kind name ({}), found {}",
                     HoldKind::names(),
-                    v.type_str()
+                    a_kind(v)
                 ),
             ));
         };
@@ -1226,7 +1234,7 @@ fn transport_delay(ctx: &Ctx, field: &str, raw: Option<&toml::Value>) -> Result<
     let d = value_as_f64(v).ok_or_else(|| {
         ctx.invalid(
             field,
-            format!("expected a number of seconds, found a {}", v.type_str()),
+            format!("expected a number of seconds, found {}", a_kind(v)),
         )
     })?;
     ctx.number(
@@ -1256,9 +1264,8 @@ fn delays_from(ctx: &Ctx, raw: Option<RawTiming>) -> Result<Vec<f64>, CaseError>
     };
     let mut out: Vec<f64> = Vec::new();
     for (f, v) in list {
-        let d = value_as_f64(v).ok_or_else(|| {
-            ctx.invalid(&f, format!("expected a number, found a {}", v.type_str()))
-        })?;
+        let d = value_as_f64(v)
+            .ok_or_else(|| ctx.invalid(&f, format!("expected a number, found {}", a_kind(v))))?;
         let d = ctx.number(
             &f,
             d,

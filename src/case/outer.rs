@@ -157,7 +157,7 @@ fn ratios_from(ctx: &Ctx, raw: Option<RawOuterRates>) -> Result<Vec<usize>, Case
             other => {
                 return Err(ctx.invalid(
                     &f,
-                    format!("expected a whole number, found a {}", other.type_str()),
+                    format!("expected a whole number, found {}", a_kind(other)),
                 ));
             }
         };
