@@ -427,8 +427,6 @@ impl Ctx {
     }
 }
 
-/// serde names Rust types in its messages; say what the file needs.
-
 /// A TOML value's kind with its article, for error messages ("an
 /// integer", "a string").
 pub(crate) fn a_kind(v: &toml::Value) -> String {
@@ -436,6 +434,7 @@ pub(crate) fn a_kind(v: &toml::Value) -> String {
     format!("{} {kind}", crate::engineering::article(kind))
 }
 
+/// serde names Rust types in its messages; say what the file needs.
 fn plain_type_names(message: &str) -> String {
     message
         .replace("expected f64", "expected a number")
