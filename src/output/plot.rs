@@ -313,7 +313,7 @@ impl Annotation {
 /// top to bottom, three bytes per pixel.
 pub fn render_rgb(fig: &Figure) -> Result<(u32, u32, Vec<u8>), PlotError> {
     let canvas = draw::render(fig)?;
-    Ok((canvas.width, canvas.height, canvas.px))
+    Ok((canvas.width(), canvas.height(), canvas.rgb()))
 }
 
 /// Draw `fig` and encode it as an RGB PNG in memory (the `png` crate).
@@ -323,14 +323,14 @@ pub fn render_rgb(fig: &Figure) -> Result<(u32, u32, Vec<u8>), PlotError> {
 pub fn render_png_bytes(fig: &Figure, name: &Path) -> Result<Vec<u8>, PlotError> {
     let canvas = draw::render(fig)?;
     let mut out = Vec::new();
-    let mut enc = png::Encoder::new(&mut out, canvas.width, canvas.height);
+    let mut enc = png::Encoder::new(&mut out, canvas.width(), canvas.height());
     enc.set_color(png::ColorType::Rgb);
     enc.set_depth(png::BitDepth::Eight);
     // Each row's best filter and the strongest deflate: anti-aliased
     // edges and hatching compress poorly otherwise.
     enc.set_adaptive_filter(png::AdaptiveFilterType::Adaptive);
     enc.set_compression(png::Compression::Best);
-    let written = (enc.write_header()).and_then(|mut w| w.write_image_data(&canvas.px));
+    let written = (enc.write_header()).and_then(|mut w| w.write_image_data(&canvas.rgb()));
     written.map_err(|e| PlotError::Encode {
         path: name.to_path_buf(),
         message: e.to_string(),

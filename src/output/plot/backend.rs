@@ -2,27 +2,29 @@
 //! chart text.
 //!
 //! plotters (chart builder, mesh, series, legends) decides what goes
-//! where; this backend decides how it looks: strokes, circles and fills go
-//! through the canvas' outline rasterizer (smooth edges; a one-pixel line
-//! along a pixel row or column stays crisp), and text is laid out here with
-//! the embedded font's metrics: the caret advances by each glyph's advance
-//! plus pair kerning, and each glyph outline is rasterized at its true
-//! position (the outline carries the left side bearing, which plotters
-//! 0.3.7's own text path drops: words fell apart, "con tinuous"), level or
-//! turned a quarter turn. Font sizes are plotters' (the pixel height from
-//! ascent to descent); plotters sizes label areas through
+//! where; this backend decides how it looks: strokes, circles and fills
+//! become tiny-skia paths on the canvas (smooth edges; a
+//! one-pixel line along a pixel row or column stays crisp), and text is
+//! laid out here with the embedded font's metrics: the caret advances by
+//! each glyph's advance plus pair kerning, and each glyph outline is filled
+//! at its true position (the outline carries the left side bearing, which
+//! plotters 0.3.7's own text path drops: words fell apart, "con tinuous"),
+//! level or turned a quarter turn. Font sizes are plotters' (the pixel
+//! height from ascent to descent); plotters sizes label areas through
 //! `estimate_text_size` here. Rectangles keep plotters' default
 //! rasterizer, which draws them through `draw_line` here.
 
 use std::convert::Infallible;
 
-use ab_glyph::{Font, FontRef, Glyph, PxScale, ScaleFont, point};
+use ab_glyph::{Font, FontRef, Glyph, OutlineCurve, PxScale, ScaleFont, point};
 use plotters_backend::{
     BackendColor, BackendCoord, BackendStyle, BackendTextStyle, DrawingBackend, DrawingErrorKind,
     FontTransform,
 };
 
-use super::canvas::{Canvas, Rect, Rgb, capsule, circle};
+use tiny_skia::{PathBuilder, Transform};
+
+use super::canvas::{Canvas, Rect, Rgb, path};
 use crate::error::PlotError;
 
 type Result<T> = std::result::Result<T, DrawingErrorKind<Infallible>>;
@@ -157,28 +159,47 @@ impl TextFont {
         self.place(text, x, y, st).2
     }
 
-    /// Draw `text` anchored at `(x, y)`: each glyph outline rasterized at
-    /// its true position and blended in.
+    /// Draw `text` anchored at `(x, y)`: the glyph outlines, each at its
+    /// caret position, filled as one path (turned by the transform).
     pub fn draw(&self, canvas: &mut Canvas, text: &str, x: f64, y: f64, st: &TextStyle) {
         let (glyphs, (ox, oy), _) = self.place(text, x, y, st);
-        for og in glyphs
-            .into_iter()
-            .filter_map(|g| self.font.outline_glyph(g))
-        {
-            let b = og.px_bounds();
-            og.draw(|gx, gy, c| {
-                // Pixel in the text frame, from the caret start on the baseline.
-                let (tx, ty) = (
-                    b.min.x as i64 + i64::from(gx),
-                    b.min.y as i64 + i64::from(gy),
-                );
-                let (px, py) = match st.rotated {
-                    true => (ox + ty, oy - tx - 1),
-                    false => (ox + tx, oy + ty),
+        let mut pb = PathBuilder::new();
+        for g in glyphs {
+            let Some(outline) = self.font.outline(g.id) else {
+                continue;
+            };
+            let sf = self.font.as_scaled(g.scale);
+            let (fx, fy) = (sf.h_scale_factor(), sf.v_scale_factor());
+            // Font units (y up) to the text frame (y down, caret start on
+            // the baseline at the origin).
+            let at = |p: &ab_glyph::Point| (g.position.x + p.x * fx, -p.y * fy);
+            let mut end = None;
+            for curve in &outline.curves {
+                let (pts, n) = match *curve {
+                    OutlineCurve::Line(a, b) => ([a, b, b, b], 2),
+                    OutlineCurve::Quad(a, c, b) => ([a, c, b, b], 3),
+                    OutlineCurve::Cubic(a, c, d, b) => ([a, c, d, b], 4),
                 };
-                canvas.blend(px, py, st.color, c);
-            });
+                if end != Some(pts[0]) {
+                    let p = at(&pts[0]);
+                    pb.move_to(p.0, p.1);
+                }
+                let [_, p1, p2, p3] = pts.map(|p| at(&p));
+                match n {
+                    2 => pb.line_to(p1.0, p1.1),
+                    3 => pb.quad_to(p1.0, p1.1, p2.0, p2.1),
+                    _ => pb.cubic_to(p1.0, p1.1, p2.0, p2.1, p3.0, p3.1),
+                }
+                end = Some(pts[n - 1]);
+            }
         }
+        // Turned text: text frame (tx, ty) maps to canvas (ox + ty, oy - tx).
+        let (ox, oy) = (ox as f32, oy as f32);
+        let tf = match st.rotated {
+            true => Transform::from_row(0.0, -1.0, 1.0, 0.0, ox, oy),
+            false => Transform::from_translate(ox, oy),
+        };
+        canvas.fill(pb.finish(), st.color, 1.0, tf);
     }
 }
 
@@ -188,8 +209,8 @@ pub(crate) struct CanvasBackend<'a> {
     pub font: &'a TextFont,
 }
 
-fn rgb(c: &BackendColor) -> (Rgb, f32) {
-    (Rgb(c.rgb.0, c.rgb.1, c.rgb.2), c.alpha as f32)
+fn rgb(c: &BackendColor) -> (Rgb, f64) {
+    (Rgb(c.rgb.0, c.rgb.1, c.rgb.2), c.alpha)
 }
 
 /// The centre of pixel `p`: plotters addresses pixels, strokes run
@@ -220,7 +241,7 @@ impl DrawingBackend for CanvasBackend<'_> {
     type ErrorType = Infallible;
 
     fn get_size(&self) -> (u32, u32) {
-        (self.canvas.width, self.canvas.height)
+        (self.canvas.width(), self.canvas.height())
     }
 
     fn ensure_prepared(&mut self) -> Result<()> {
@@ -233,7 +254,13 @@ impl DrawingBackend for CanvasBackend<'_> {
 
     fn draw_pixel(&mut self, p: BackendCoord, color: BackendColor) -> Result<()> {
         let (c, a) = rgb(&color);
-        self.canvas.blend(i64::from(p.0), i64::from(p.1), c, a);
+        let r = Rect::new(
+            p.0.into(),
+            p.1.into(),
+            f64::from(p.0) + 1.0,
+            f64::from(p.1) + 1.0,
+        );
+        self.canvas.fill(r.path(), c, a, Transform::identity());
         Ok(())
     }
 
@@ -248,30 +275,22 @@ impl DrawingBackend for CanvasBackend<'_> {
 
     fn draw_path<S: BackendStyle, I: IntoIterator<Item = BackendCoord>>(
         &mut self,
-        path: I,
+        points: I,
         style: &S,
     ) -> Result<()> {
         let (c, a) = rgb(&style.color());
-        let pts: Vec<(f64, f64)> = path.into_iter().map(centre).collect();
+        let mut pts: Vec<(f64, f64)> = points.into_iter().map(centre).collect();
         let w = f64::from(style.stroke_width().max(1));
         // A one-pixel line along a pixel row or column stays crisp (grid,
         // frame, ticks); everything else is a smooth stroke.
-        if w <= 1.0 && pts.len() == 2 && (pts[0].0 == pts[1].0 || pts[0].1 == pts[1].1) {
-            let (p, q) = (pts[0], pts[1]);
-            let r = Rect::new(p.0, p.1, q.0, q.1).expand(0.5);
-            let clip = self.canvas.bounds();
-            self.canvas.fill_polys(&[r.poly()], c, a, clip);
-            return Ok(());
-        }
-        let mut polys = Vec::new();
-        for seg in pts.windows(2) {
-            capsule(seg[0], seg[1], w, &mut polys);
-        }
+        let crisp = w <= 1.0 && pts.len() == 2 && (pts[0].0 == pts[1].0 || pts[0].1 == pts[1].1);
         if pts.len() == 1 {
-            polys.push(circle(pts[0].0, pts[0].1, w / 2.0));
+            // A lone point: a dot the stroke's width across.
+            let dot = PathBuilder::from_circle(pts[0].0 as f32, pts[0].1 as f32, w as f32 / 2.0);
+            self.canvas.fill(dot, c, a, Transform::identity());
+            pts.clear();
         }
-        let clip = self.canvas.bounds();
-        self.canvas.fill_polys(&polys, c, a, clip);
+        self.canvas.stroke(path(&pts, false), w, crisp, c, a);
         Ok(())
     }
 
@@ -284,17 +303,13 @@ impl DrawingBackend for CanvasBackend<'_> {
     ) -> Result<()> {
         let (color, a) = rgb(&style.color());
         let (x, y) = centre(c);
-        let ring = circle(x, y, f64::from(radius));
-        let mut polys = Vec::new();
-        let w = f64::from(style.stroke_width().max(1));
-        for (i, p) in ring.iter().enumerate().filter(|_| !fill) {
-            capsule(*p, ring[(i + 1) % ring.len()], w, &mut polys);
+        let ring = PathBuilder::from_circle(x as f32, y as f32, radius as f32);
+        match fill {
+            true => self.canvas.fill(ring, color, a, Transform::identity()),
+            false => {
+                (self.canvas).stroke(ring, style.stroke_width().max(1).into(), false, color, a)
+            }
         }
-        if fill {
-            polys.push(ring);
-        }
-        let clip = self.canvas.bounds();
-        self.canvas.fill_polys(&polys, color, a, clip);
         Ok(())
     }
 
@@ -305,8 +320,8 @@ impl DrawingBackend for CanvasBackend<'_> {
     ) -> Result<()> {
         let (c, a) = rgb(&style.color());
         let poly: Vec<(f64, f64)> = vert.into_iter().map(centre).collect();
-        let clip = self.canvas.bounds();
-        self.canvas.fill_polys(&[poly], c, a, clip);
+        self.canvas
+            .fill(path(&poly, true), c, a, Transform::identity());
         Ok(())
     }
 
@@ -349,7 +364,7 @@ mod tests {
     #[test]
     fn plotters_text_keeps_side_bearings_and_its_size() {
         let font = TextFont::embedded().unwrap();
-        let mut canvas = Canvas::new(500, 80, Rgb(255, 255, 255));
+        let mut canvas = Canvas::new(500, 80, Rgb(255, 255, 255)).unwrap();
         let style = ("sans-serif", 30.0).into_font().color(&BLACK);
         let (w, _) = {
             let backend = CanvasBackend {
@@ -362,7 +377,7 @@ mod tests {
             root.estimate_text_size("continuous", &style).unwrap()
         };
         let cols: Vec<bool> = (0..500)
-            .map(|x| (0..80).any(|y| canvas.px[(y * 500 + x) * 3] < 128))
+            .map(|x| (0..80).any(|y| canvas.at(x, y)[0] < 128))
             .collect();
         let first = cols.iter().position(|c| *c).unwrap();
         let last = cols.iter().rposition(|c| *c).unwrap();

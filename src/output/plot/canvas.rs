@@ -1,12 +1,12 @@
-//! An RGB pixel buffer with anti-aliased shape filling.
+//! The drawing surface: a `tiny_skia` pixmap with an opaque background,
+//! so its premultiplied RGBA is plain RGBA and the PNG drops the alpha.
 //!
-//! Shapes are filled through `ab_glyph`'s outline rasterizer: a set of
-//! polygons is handed over as if it were one glyph outline, and the
-//! coverage it reports per pixel is blended into the buffer. This gives
-//! smooth data lines and markers without any extra dependency, and the
-//! same coverage model as the text, so everything on a chart looks alike.
+//! tiny-skia fills and strokes paths with anti-aliased edges (round caps
+//! and joins for data lines, exact pixel edges for rectangles); what is
+//! ours is only the rectangle arithmetic that label placement needs and
+//! the ink count it scores spots by.
 
-use ab_glyph::{GlyphId, Outline, OutlineCurve, OutlinedGlyph, PxScale, PxScaleFactor, point};
+use tiny_skia::{FillRule, LineCap, LineJoin, Paint, Path, PathBuilder, Pixmap, Stroke, Transform};
 
 /// An sRGB colour.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -46,181 +46,129 @@ impl Rect {
         o.x0 >= self.x0 && o.x1 <= self.x1 && o.y0 >= self.y0 && o.y1 <= self.y1
     }
 
-    /// The corners, as a polygon.
-    pub fn poly(&self) -> Poly {
-        vec![
-            (self.x0, self.y0),
-            (self.x1, self.y0),
-            (self.x1, self.y1),
-            (self.x0, self.y1),
-        ]
-    }
-
-    /// The common part, if any.
-    pub fn intersect(&self, o: &Rect) -> Option<Rect> {
-        let r = Rect::new(
-            self.x0.max(o.x0),
-            self.y0.max(o.y0),
-            self.x1.min(o.x1),
-            self.y1.min(o.y1),
-        );
-        self.overlaps(o).then_some(r)
+    /// The rectangle as a closed path.
+    pub fn path(&self) -> Option<Path> {
+        let r = tiny_skia::Rect::from_ltrb(
+            self.x0 as f32,
+            self.y0 as f32,
+            self.x1 as f32,
+            self.y1 as f32,
+        )?;
+        Some(PathBuilder::from_rect(r))
     }
 }
 
-/// A closed polygon in pixel coordinates.
-pub(crate) type Poly = Vec<(f64, f64)>;
+/// A polyline or polygon through `pts` (pixel coordinates); `None` when
+/// a vertex is not finite or there is no segment.
+pub(crate) fn path(pts: &[(f64, f64)], closed: bool) -> Option<Path> {
+    let mut pb = PathBuilder::new();
+    for (i, p) in pts.iter().enumerate() {
+        if !(p.0.is_finite() && p.1.is_finite()) {
+            return None;
+        }
+        match i {
+            0 => pb.move_to(p.0 as f32, p.1 as f32),
+            _ => pb.line_to(p.0 as f32, p.1 as f32),
+        }
+    }
+    if closed {
+        pb.close();
+    }
+    pb.finish()
+}
 
-/// The drawing surface: 8-bit RGB, row-major, no alpha channel.
+/// The drawing surface.
 pub(crate) struct Canvas {
-    pub width: u32,
-    pub height: u32,
-    /// The RGB bytes, row after row.
-    pub px: Vec<u8>,
+    pub pixmap: Pixmap,
 }
 
 impl Canvas {
-    /// A canvas filled with `bg`.
-    pub fn new(width: u32, height: u32, bg: Rgb) -> Self {
-        let px = [bg.0, bg.1, bg.2].repeat(width as usize * height as usize);
-        Canvas { width, height, px }
+    /// A canvas filled with `bg`; `None` for a zero side (callers check
+    /// sizes first).
+    pub fn new(width: u32, height: u32, bg: Rgb) -> Option<Self> {
+        let mut pixmap = Pixmap::new(width, height)?;
+        pixmap.fill(tiny_skia::Color::from_rgba8(bg.0, bg.1, bg.2, 255));
+        Some(Canvas { pixmap })
+    }
+
+    pub fn width(&self) -> u32 {
+        self.pixmap.width()
+    }
+
+    pub fn height(&self) -> u32 {
+        self.pixmap.height()
     }
 
     /// The whole canvas as a rectangle.
     pub fn bounds(&self) -> Rect {
-        Rect::new(0.0, 0.0, f64::from(self.width), f64::from(self.height))
+        Rect::new(0.0, 0.0, f64::from(self.width()), f64::from(self.height()))
     }
 
-    /// Mix `c` into pixel `(x, y)` with opacity `a` (0..1); outside pixels
-    /// are ignored.
-    pub fn blend(&mut self, x: i64, y: i64, c: Rgb, a: f32) {
-        if x < 0 || y < 0 || x >= i64::from(self.width) || y >= i64::from(self.height) {
-            return;
-        }
-        let (a, i) = (
-            a.clamp(0.0, 1.0),
-            (y as usize * self.width as usize + x as usize) * 3,
-        );
-        for (d, s) in self.px[i..i + 3].iter_mut().zip([c.0, c.1, c.2]) {
-            let v = f32::from(*d) + (f32::from(s) - f32::from(*d)) * a;
-            *d = v.round().clamp(0.0, 255.0) as u8;
-        }
+    /// The pixels as RGB bytes, row after row (the background is opaque,
+    /// so premultiplied colour is plain colour).
+    pub fn rgb(&self) -> Vec<u8> {
+        let px = self.pixmap.data().chunks_exact(4);
+        px.flat_map(|p| [p[0], p[1], p[2]]).collect()
+    }
+
+    /// The RGB of pixel `(x, y)` (inside the canvas).
+    pub fn at(&self, x: u32, y: u32) -> [u8; 3] {
+        let i = (y as usize * self.width() as usize + x as usize) * 4;
+        let p = &self.pixmap.data()[i..i + 3];
+        [p[0], p[1], p[2]]
     }
 
     /// How many pixels inside `r` are darker than `luma` (0..255): a
     /// measure of how much is already drawn there.
     pub fn ink_in(&self, r: Rect, luma: u8) -> usize {
-        let Some(r) = r.intersect(&self.bounds()) else {
-            return 0;
-        };
+        let b = self.bounds();
+        let (x0, x1) = (r.x0.max(b.x0).round(), r.x1.min(b.x1).round());
+        let (y0, y1) = (r.y0.max(b.y0).round(), r.y1.min(b.y1).round());
         let mut n = 0;
-        for y in r.y0.round() as usize..r.y1.round() as usize {
-            for x in r.x0.round() as usize..r.x1.round() as usize {
-                let p = &self.px[(y * self.width as usize + x) * 3..][..3];
-                let l = (u32::from(p[0]) * 3 + u32::from(p[1]) * 6 + u32::from(p[2])) / 10;
-                n += usize::from(l < u32::from(luma));
+        for y in (y0 as u32)..(y1.max(y0) as u32) {
+            for x in (x0 as u32)..(x1.max(x0) as u32) {
+                let [r, g, b] = self.at(x, y).map(u32::from);
+                n += usize::from((r * 3 + g * 6 + b) / 10 < u32::from(luma));
             }
         }
         n
     }
 
-    /// Fill the union of `polys` with anti-aliased edges, touching only
-    /// pixels inside `clip`. Polygons with non-finite vertices are skipped.
-    /// Callers keep geometry near `clip` (see [`clip_segment`]) so the
-    /// rasterizer's scratch buffer stays small.
-    pub fn fill_polys(&mut self, polys: &[Poly], c: Rgb, alpha: f32, clip: Rect) {
-        let Some(clip) = clip.intersect(&self.bounds()) else {
-            return;
-        };
-        let (mut curves, mut lo, mut hi) = (
-            Vec::new(),
-            point(f32::MAX, f32::MAX),
-            point(f32::MIN, f32::MIN),
-        );
-        for poly in polys {
-            if poly.len() < 3 || poly.iter().any(|p| !p.0.is_finite() || !p.1.is_finite()) {
-                continue;
-            }
-            // Every polygon gets the same winding so that overlaps add
-            // up (and are clamped) instead of cancelling into holes.
-            let turn: f64 = (poly.iter().zip(poly.iter().cycle().skip(1)))
-                .map(|(a, b)| a.0 * b.1 - b.0 * a.1)
-                .sum();
-            let pts: Vec<_> = poly
-                .iter()
-                .map(|p| point(p.0 as f32, -p.1 as f32))
-                .collect();
-            for (i, p) in pts.iter().enumerate() {
-                let q = pts[(i + 1) % pts.len()];
-                curves.push(match turn < 0.0 {
-                    true => OutlineCurve::Line(q, *p),
-                    false => OutlineCurve::Line(*p, q),
-                });
-                (lo, hi) = (
-                    point(lo.x.min(p.x), lo.y.min(p.y)),
-                    point(hi.x.max(p.x), hi.y.max(p.y)),
-                );
-            }
+    /// Fill `path` (mapped by `tf`) in `c` at opacity `alpha` (0..1).
+    pub fn fill(&mut self, path: Option<Path>, c: Rgb, alpha: f64, tf: Transform) {
+        if let Some(p) = path {
+            let paint = paint(c, alpha);
+            self.pixmap
+                .fill_path(&p, &paint, FillRule::Winding, tf, None);
         }
-        // Refuse absurd scratch sizes rather than allocate gigabytes.
-        let area = f64::from(hi.x - lo.x + 2.0) * f64::from(hi.y - lo.y + 2.0);
-        if curves.is_empty() || area > 4.0 * f64::from(self.width) * f64::from(self.height) + 1e6 {
-            return;
-        }
-        // Outline y runs up: the box is from (min x, max y) to (max x, min y).
-        let bounds = ab_glyph::Rect {
-            min: point(lo.x, hi.y),
-            max: point(hi.x, lo.y),
+    }
+
+    /// Stroke `path` `width` pixels wide with round caps and joins, or
+    /// square caps (a one-pixel line through pixel centres along a row or
+    /// column then covers exactly its pixels).
+    pub fn stroke(&mut self, path: Option<Path>, width: f64, square: bool, c: Rgb, alpha: f64) {
+        let Some(p) = path else { return };
+        let stroke = Stroke {
+            width: width as f32,
+            line_cap: if square {
+                LineCap::Square
+            } else {
+                LineCap::Round
+            },
+            line_join: LineJoin::Round,
+            ..Stroke::default()
         };
-        let glyph = GlyphId(0).with_scale_and_position(PxScale::from(1.0), point(0.0, 0.0));
-        let one = PxScaleFactor {
-            horizontal: 1.0,
-            vertical: 1.0,
-        };
-        let og = OutlinedGlyph::new(glyph, Outline { bounds, curves }, one);
-        let b = og.px_bounds();
-        let (ox, oy) = (b.min.x as i64, b.min.y as i64);
-        let (cx0, cy0) = (clip.x0.round() as i64, clip.y0.round() as i64);
-        let (cx1, cy1) = (clip.x1.round() as i64, clip.y1.round() as i64);
-        og.draw(|x, y, cov| {
-            let (px, py) = (ox + i64::from(x), oy + i64::from(y));
-            if px >= cx0 && px < cx1 && py >= cy0 && py < cy1 && cov > 0.002 {
-                self.blend(px, py, c, cov.min(1.0) * alpha);
-            }
-        });
+        let paint = paint(c, alpha);
+        self.pixmap
+            .stroke_path(&p, &paint, &stroke, Transform::identity(), None);
     }
 }
 
-/// A regular polygon approximating a circle of radius `r` about `(cx, cy)`.
-pub(crate) fn circle(cx: f64, cy: f64, r: f64) -> Poly {
-    let n = ((r * 4.0).ceil() as usize).clamp(8, 48);
-    (0..n)
-        .map(|i| {
-            let t = std::f64::consts::TAU * i as f64 / n as f64;
-            (cx + r * t.cos(), cy + r * t.sin())
-        })
-        .collect()
-}
-
-/// The outline of a straight stroke of width `w` from `a` to `b` with
-/// round caps, as a rectangle plus two end discs.
-pub(crate) fn capsule(a: (f64, f64), b: (f64, f64), w: f64, out: &mut Vec<Poly>) {
-    let r = w / 2.0;
-    let (dx, dy) = (b.0 - a.0, b.1 - a.1);
-    let len = dx.hypot(dy);
-    if len > 1e-9 {
-        let (nx, ny) = (-dy / len * r, dx / len * r);
-        out.push(vec![
-            (a.0 + nx, a.1 + ny),
-            (b.0 + nx, b.1 + ny),
-            (b.0 - nx, b.1 - ny),
-            (a.0 - nx, a.1 - ny),
-        ]);
-    }
-    out.push(circle(a.0, a.1, r));
-    if len > 1e-9 {
-        out.push(circle(b.0, b.1, r));
-    }
+fn paint(c: Rgb, alpha: f64) -> Paint<'static> {
+    let a = (alpha.clamp(0.0, 1.0) * 255.0).round() as u8;
+    let mut paint = Paint::default();
+    paint.set_color_rgba8(c.0, c.1, c.2, a);
+    paint
 }
 
 /// The part of segment `a`-`b` inside `r`, as parameters `(t0, t1)` along
@@ -264,14 +212,15 @@ mod tests {
         assert_eq!(clip_segment((-5.0, -5.0), (-1.0, 20.0), &r), None);
     }
 
+    /// A one-pixel line through pixel centres covers exactly its row.
     #[test]
-    fn filled_square_is_covered_and_clipped() {
-        let mut c = Canvas::new(20, 20, Rgb(255, 255, 255));
-        let sq = vec![(2.0, 2.0), (12.0, 2.0), (12.0, 12.0), (2.0, 12.0)];
-        c.fill_polys(&[sq], Rgb(0, 0, 0), 1.0, Rect::new(0.0, 0.0, 8.0, 20.0));
-        let at = |x: usize, y: usize| c.px[(y * 20 + x) * 3];
-        assert_eq!(at(5, 5), 0);
-        assert_eq!(at(10, 5), 255, "outside the clip");
-        assert_eq!(at(15, 15), 255);
+    fn square_capped_hairline_is_crisp() {
+        let mut c = Canvas::new(20, 20, Rgb(255, 255, 255)).unwrap();
+        let line = path(&[(2.5, 5.5), (12.5, 5.5)], false);
+        c.stroke(line, 1.0, true, Rgb(0, 0, 0), 1.0);
+        assert_eq!(c.at(5, 5), [0, 0, 0]);
+        assert_eq!(c.at(2, 5), [0, 0, 0]);
+        assert_eq!(c.at(5, 4), [255, 255, 255]);
+        assert_eq!(c.at(13, 5), [255, 255, 255]);
     }
 }

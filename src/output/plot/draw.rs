@@ -18,9 +18,10 @@ use plotters::element::{DashedPathElement, Drawable, PointCollection};
 use plotters::prelude::*;
 use plotters::style::{RGBAColor, TextStyle as PTextStyle};
 use plotters_backend::{BackendCoord, DrawingErrorKind};
+use tiny_skia::{PathBuilder, Transform};
 
 use super::backend::{CanvasBackend, HPos, TextFont, TextStyle, VPos};
-use super::canvas::{Canvas, Rect, Rgb, capsule, circle, clip_segment};
+use super::canvas::{Canvas, Rect, Rgb, clip_segment, path};
 use super::{
     Axis, Draw, Figure, MAX_PIXELS, MAX_SIDE, MIN_SIDE, MarkStyle, PALETTE_LEN, Panel, Series, Side,
 };
@@ -462,7 +463,7 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
     }
     let xs = xa.ticked((plot_w / (5.5 * m.base)) as usize);
 
-    let mut canvas = Canvas::new(fig.width, fig.height, BACKGROUND);
+    let mut canvas = Canvas::new(fig.width, fig.height, BACKGROUND).ok_or(too_small)?;
     let mut pending: Vec<Pending> = Vec::new();
     {
         let root = CanvasBackend::new(&mut canvas, &font).into_drawing_area();
@@ -792,7 +793,8 @@ fn place_labels(canvas: &mut Canvas, font: &TextFont, m: &Metrics, pending: Vec<
     let mut placed: Vec<Rect> = Vec::new();
     for Pending(text, spots, area, pointer) in pending {
         if let Some((x, y)) = pointer {
-            canvas.fill_polys(&[circle(x, y, dot)], MARK, 1.0, area);
+            let disc = PathBuilder::from_circle(x as f32, y as f32, dot as f32);
+            canvas.fill(disc, MARK, 1.0, Transform::identity());
             placed.push(Rect::new(x - dot, y - dot, x + dot, y + dot));
         }
         if text.is_empty() {
@@ -817,15 +819,10 @@ fn place_labels(canvas: &mut Canvas, font: &TextFont, m: &Metrics, pending: Vec<
             );
             let (dx, dy) = (corner.0 - px, corner.1 - py);
             let len = dx.hypot(dy).max(1e-9);
-            let (start, mut polys) = (
-                (px + dx / len * dot * 1.6, py + dy / len * dot * 1.6),
-                vec![],
-            );
-            capsule(start, corner, 1.3, &mut polys);
-            canvas.fill_polys(&polys, MARK, 0.85, area);
+            let start = (px + dx / len * dot * 1.6, py + dy / len * dot * 1.6);
+            canvas.stroke(path(&[start, corner], false), 1.3, false, MARK, 0.85);
         }
-        let clip = canvas.bounds();
-        canvas.fill_polys(&[r.poly()], BACKGROUND, 0.82, clip);
+        canvas.fill(r.path(), BACKGROUND, 0.82, Transform::identity());
         font.draw(canvas, &text, *x, *y, st);
         placed.push(r);
     }
