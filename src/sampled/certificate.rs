@@ -110,22 +110,29 @@ impl Certificate {
     /// eigenvalues of `cl.a`); None when neither bound can be built (then
     /// the pole-based horizon rules).
     pub fn new(cl: &ClosedLoop, rows: &BoundedRows, poles: &[C64]) -> Option<Certificate> {
-        let dim = cl.a.nrows();
-        let modal = ModalBound::new(&cl.a, rows, poles);
-        // The energy bound is only the fallback: not built when the modal
-        // bound (tighter in practice) is available.
-        let gramian = if modal.is_none() {
-            gramian(cl, rows)
-        } else {
-            None
-        };
-        if gramian.is_none() && modal.is_none() {
-            return None;
-        }
+        Certificate::modal(cl, rows, poles).or_else(|| Certificate::energy(cl, rows))
+    }
+
+    /// The certificate by the modal bound alone; None when the loop has no
+    /// checked modal form. A caller with another basis to try does so
+    /// before it pays for the energy bound (`time_response`).
+    pub fn modal(cl: &ClosedLoop, rows: &BoundedRows, poles: &[C64]) -> Option<Certificate> {
+        let modal = ModalBound::new(&cl.a, rows, poles)?;
         Some(Certificate {
-            gramian,
-            modal,
-            dim,
+            gramian: None,
+            modal: Some(modal),
+            dim: cl.a.nrows(),
+        })
+    }
+
+    /// The certificate by the output-energy bound alone (the fallback
+    /// without a modal form); None when the doubling does not converge.
+    pub fn energy(cl: &ClosedLoop, rows: &BoundedRows) -> Option<Certificate> {
+        let gramian = gramian(cl, rows)?;
+        Some(Certificate {
+            gramian: Some(gramian),
+            modal: None,
+            dim: cl.a.nrows(),
         })
     }
 

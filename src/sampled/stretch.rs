@@ -56,6 +56,15 @@
 //! the rate (the compare loop's peak searches: 2 single periods at 1 kHz
 //! and at 100 kHz; 38 and 389 with the boxes alone).
 //!
+//! The line's remainder still bounds the response's bend by the modes'
+//! magnitudes, so near a peak a peak search kept a few stretches open at
+//! every level of the tree, whose depth grows with the rate (8 bounds a
+//! level on the evaluation bench's loop). A third form, the parabola
+//! through the stretch's first three periods with the remainder
+//! `|lambda - 1|^3 C(q, 3)`, follows the bend with its cancellations and is
+//! intersected too: the bench loop's two peak searches compute 110 bounds
+//! at 100 kHz where the line alone needed 244 (86 and 142 at 1 kHz).
+//!
 //! # Searches
 //!
 //! - Peaks (overshoot, command peak, disturbance peak): best-first over
@@ -108,6 +117,25 @@ pub const NODE_BUDGET: u64 = 64 * LEAF_BUDGET;
 /// Loops of up to this many states keep a bound's working vectors on the
 /// stack.
 const STACK_DIM: usize = 24;
+
+/// When the bounds carry the parabola (`Slope`): only for the output's
+/// peak searches (the step's and the load step's), on a tree at least
+/// `BEND_MIN_LEVELS` deep (a horizon of 2^14 periods or more: a fast rate
+/// against the loop's time scale), with at most `BEND_MAX_POINTS` output
+/// points a period. The bend costs products a bound does not otherwise
+/// need; it saves bounds only where a peak search keeps stretches open
+/// level after level. Measured in instructions (callgrind;
+/// `examples/evaluation_count.rs` for the evaluation bench's loop, see
+/// `benches/README.md`): with the parabola in every bound of every
+/// search, the motor current loop's pick took 6 % more, the cascade
+/// demo's pick 7 % more (lifted periods of hundreds of points), the
+/// compare sweep 3 % fewer and the bench loop at 100 kHz 7 % fewer; as
+/// gated here (and with the energy bound built only once the controller's
+/// basis has failed too, `time_response`), the bench loop at 100 kHz
+/// 14 % fewer, the compare sweep 3 % fewer, the motor current loop's and
+/// the cascade demo's picks within 1.1 % of before.
+const BEND_MIN_LEVELS: usize = 14;
+const BEND_MAX_POINTS: usize = 32;
 
 /// Relative size of the rounding of one output or command at the fixed
 /// point (dot products of a few tens of terms: about 1e-15; kept wide).
@@ -274,11 +302,24 @@ struct StretchMode {
     /// `gamma_j (lambda - 1)` per output point, and `kappa (lambda - 1)`.
     gamma_d: Vec<nalgebra::Complex<f64>>,
     kappa_d: nalgebra::Complex<f64>,
-    /// Per level p: `Some(F)` when the mode takes part in the slope form
-    /// over a stretch of `m = 2^p` periods (`(m - 1) |lambda - 1| <= 1`),
-    /// with `F = |lambda - 1|^2 (m - 1)(m - 2) / 2` bounding
-    /// `|lambda^q - 1 - q (lambda - 1)|` for q in `[0, m)`.
-    remainder: Vec<Option<f64>>,
+    /// `gamma_j (lambda - 1)^2` per output point, and `kappa (lambda - 1)^2`.
+    gamma_dd: Vec<nalgebra::Complex<f64>>,
+    kappa_dd: nalgebra::Complex<f64>,
+    /// Per level p: `Some(Rem)` when the mode takes part in the slope
+    /// forms over a stretch of `m = 2^p` periods (`(m - 1) |lambda - 1| <= 1`).
+    remainder: Vec<Option<Rem>>,
+}
+
+/// A slow mode's remainders over a stretch of `m` periods, q in `[0, m)`:
+/// `second = |lambda - 1|^2 C(m - 1, 2)` bounds
+/// `|lambda^q - 1 - q (lambda - 1)|` (the line's remainder), and
+/// `third = |lambda - 1|^3 C(m - 1, 3)` bounds
+/// `|lambda^q - 1 - q (lambda - 1) - C(q, 2) (lambda - 1)^2|` (the
+/// parabola's), `C` the binomial coefficient (see `Slope`).
+#[derive(Debug, Clone, Copy)]
+struct Rem {
+    second: f64,
+    third: f64,
 }
 
 /// Range of `cos` over `[a, b]`.
@@ -377,7 +418,7 @@ fn m1_of(level: Option<usize>) -> f64 {
     level.map_or(0.0, |p| ((1u128 << p) - 1) as f64)
 }
 
-/// The slope form of a stretch's bound (see the module doc). For a mode
+/// The slope forms of a stretch's bound (see the module doc). For a mode
 /// slow against the stretch, `(m - 1) |lambda - 1| <= 1`, write
 /// `lambda^q = 1 + q (lambda - 1) + f(q)` with
 /// `f(q) = (lambda - 1)^2 sum_{i<q} sum_{k<i} lambda^k`: inside the unit
@@ -392,118 +433,185 @@ fn m1_of(level: Option<usize>) -> f64 {
 /// Without it a peak search opened about `sqrt(rate)` single periods
 /// around a flat peak (measured: 38 at 1 kHz, 389 at 100 kHz on the
 /// compare loop).
+///
+/// The parabola goes one order further: `f(q) = C(q, 2) (lambda - 1)^2 +
+/// f3(q)`, `f3(q) = (lambda - 1)^3 sum_{i<q} sum_{k<i} sum_{l<k} lambda^l`,
+/// so `|f3(q)| <= |lambda - 1|^3 C(q, 3)` inside the unit circle and
+/// `f3(q) <= 0` for a real `lambda` in `[0, 1]` (`C` the binomial
+/// coefficient). Its exact part is the parabola through the exact values
+/// at q = 0, 1, 2 (`g_j . (A - I)^2 dz` its second difference), whose
+/// bend follows the response's own curvature, the modes' terms summed
+/// with their cancellations; the line's remainder bounds that bend by the
+/// modes' magnitudes. Near a peak the parabola rules out a neighbouring
+/// stretch the line cannot, so a peak search no longer opens a few
+/// stretches at every level of the tree (the number of levels grows with
+/// the rate). Both forms hold; the bound keeps their intersection.
 struct Slope {
-    /// Per output point: constant and slope parts, `sum w Re(c gamma_j)`
-    /// and `sum w Re(c gamma_j (lambda - 1))`; the command's the same.
+    /// Per output point: constant, slope and bend parts,
+    /// `sum w Re(c gamma_j)`, `sum w Re(c gamma_j (lambda - 1))` and
+    /// `sum w Re(c gamma_j (lambda - 1)^2)`; the command's the same.
     y0: Vec<f64>,
     y1: Vec<f64>,
+    y2: Vec<f64>,
     u0: f64,
     u1: f64,
-    /// The boxes of modes outside the form and the remainders, summed.
-    y_box: (f64, f64),
-    u_box: (f64, f64),
-    /// Magnitudes of every part, for the modal widening.
-    y_mag: f64,
-    u_mag: f64,
+    u2: f64,
+    /// The boxes of modes outside the forms and the remainders, summed:
+    /// the line's (`.0`) and the parabola's (`.1`).
+    y_box: [(f64, f64); 2],
+    u_box: [(f64, f64); 2],
+    /// Magnitudes of every part, for the modal widening (line, parabola).
+    y_mag: [f64; 2],
+    u_mag: [f64; 2],
+}
+
+/// Range over q in `[0, m1]` of `a + q b + q (q - 1) / 2 c` (the line
+/// when `c` is 0): its ends and, inside, the parabola's vertex.
+fn poly_range(a: f64, b: f64, c: f64, m1: f64) -> (f64, f64) {
+    let at = |q: f64| {
+        if c == 0.0 {
+            a + q * b
+        } else {
+            a + q * b + q * (q - 1.0) / 2.0 * c
+        }
+    };
+    let (e0, e1) = (a, at(m1));
+    let (mut lo, mut hi) = (e0.min(e1), e0.max(e1));
+    if c != 0.0 {
+        let v = 0.5 - b / c;
+        if v > 0.0 && v < m1 {
+            let y = at(v);
+            lo = lo.min(y);
+            hi = hi.max(y);
+        }
+    }
+    (lo, hi)
 }
 
 impl Slope {
-    /// The line through the exact deviations of the stretch's first two
-    /// periods: `y0[j] = g_j . dz`, `y1[j] = g_j . (A - I) dz`, the
-    /// command's the same.
-    fn new(y0: Vec<f64>, y1: Vec<f64>, u0: f64, u1: f64) -> Slope {
+    /// The exact polynomial of a stretch's first periods:
+    /// `y0[j] = g_j . dz`, `y1[j] = g_j . (A - I) dz`,
+    /// `y2[j] = g_j . (A - I)^2 dz`, the command's the same.
+    fn new(y: [Vec<f64>; 3], u: [f64; 3]) -> Slope {
+        let [y0, y1, y2] = y;
         Slope {
             y0,
             y1,
-            u0,
-            u1,
-            y_box: (0.0, 0.0),
-            u_box: (0.0, 0.0),
-            y_mag: 0.0,
-            u_mag: 0.0,
+            y2,
+            u0: u[0],
+            u1: u[1],
+            u2: u[2],
+            y_box: [(0.0, 0.0); 2],
+            u_box: [(0.0, 0.0); 2],
+            y_mag: [0.0; 2],
+            u_mag: [0.0; 2],
         }
     }
 
-    /// Add a mode with coordinate `c`: in the form when `rem` is its
-    /// remainder bound, else by its boxes `yb`, `ub`.
+    /// Add a mode with coordinate `c`: in the forms when `rem` holds its
+    /// remainders, else by its boxes `yb`, `ub`.
     #[allow(clippy::too_many_arguments)]
     fn add(
         &mut self,
         m: &StretchMode,
         c: nalgebra::Complex<f64>,
         c_norm: f64,
-        rem: Option<f64>,
+        rem: Option<Rem>,
         m1: f64,
         yb: (f64, f64),
         ub: (f64, f64),
     ) {
         let w = m.mode.weight;
-        let Some(f) = rem else {
-            // Outside the form: its own box, and its constant and slope
-            // parts taken out of the exact line.
-            self.y_box.0 += yb.0;
-            self.y_box.1 += yb.1;
-            self.u_box.0 += ub.0;
-            self.u_box.1 += ub.1;
-            for (j, (g, gd)) in m.mode.gamma.iter().zip(&m.gamma_d).enumerate() {
-                self.y0[j] -= w * (c.re * g.re - c.im * g.im);
-                self.y1[j] -= w * (c.re * gd.re - c.im * gd.im);
+        let re = |g: &nalgebra::Complex<f64>| w * (c.re * g.re - c.im * g.im);
+        let Some(rem) = rem else {
+            // Outside the forms: its own box, and its constant, slope and
+            // bend parts taken out of the exact polynomial.
+            let forms = self.forms();
+            for b in &mut self.y_box[..forms] {
+                (b.0, b.1) = (b.0 + yb.0, b.1 + yb.1);
             }
-            self.u0 -= w * (c.re * m.mode.kappa.re - c.im * m.mode.kappa.im);
-            self.u1 -= w * (c.re * m.kappa_d.re - c.im * m.kappa_d.im);
-            let scale = 1.0 + m1 * m.lm1.norm();
-            self.y_mag += yb.0.abs().max(yb.1.abs()) + w * c_norm * m.y.g_max * scale;
-            self.u_mag += ub.0.abs().max(ub.1.abs()) + w * c_norm * m.u.g_max * scale;
+            for b in &mut self.u_box[..forms] {
+                (b.0, b.1) = (b.0 + ub.0, b.1 + ub.1);
+            }
+            for (j, (g, gd)) in m.mode.gamma.iter().zip(&m.gamma_d).enumerate() {
+                self.y0[j] -= re(g);
+                self.y1[j] -= re(gd);
+            }
+            for (y2, gdd) in self.y2.iter_mut().zip(&m.gamma_dd) {
+                *y2 -= re(gdd);
+            }
+            self.u0 -= re(&m.mode.kappa);
+            self.u1 -= re(&m.kappa_d);
+            if forms > 1 {
+                self.u2 -= re(&m.kappa_dd);
+            }
+            let d = m1 * m.lm1.norm();
+            let scales = [1.0 + d, 1.0 + d + d * d / 2.0];
+            for (k, scale) in scales.into_iter().enumerate().take(forms) {
+                self.y_mag[k] += yb.0.abs().max(yb.1.abs()) + w * c_norm * m.y.g_max * scale;
+                self.u_mag[k] += ub.0.abs().max(ub.1.abs()) + w * c_norm * m.u.g_max * scale;
+            }
             return;
         };
         let lam = m.mode.lambda;
         let real_pos = lam.im == 0.0 && lam.re >= 0.0;
-        let rem_box = |row: &RowShare| -> (f64, f64) {
+        // `w Re(c gamma_j) f` over the row: for a real mode in [0, 1], f in
+        // [0, F] (the line's remainder, `k` 0) or [-F, 0] (the parabola's);
+        // else |f| <= F.
+        let rem_box = |row: &RowShare, f: f64, k: usize| -> (f64, f64) {
             if real_pos {
-                // w Re(c gamma_j) f with f in [0, F].
                 let x = mul_range((c.re, c.re), (row.re_lo, row.re_hi));
                 let slack = c.im.abs() * row.im_abs;
-                (
-                    w * f * (x.0 - slack).min(0.0),
-                    w * f * (x.1 + slack).max(0.0),
-                )
+                let (lo, hi) = ((x.0 - slack).min(0.0), (x.1 + slack).max(0.0));
+                if k == 0 {
+                    (w * f * lo, w * f * hi)
+                } else {
+                    (-(w * f * hi), -(w * f * lo))
+                }
             } else {
                 let r = w * c_norm * row.g_max * f;
                 (-r, r)
             }
         };
-        let (a, b) = rem_box(&m.y);
-        self.y_box.0 += a;
-        self.y_box.1 += b;
-        self.y_mag += w * c_norm * m.y.g_max * f;
-        let (a, b) = rem_box(&m.u);
-        self.u_box.0 += a;
-        self.u_box.1 += b;
-        self.u_mag += w * c_norm * m.u.g_max * f;
+        let forms = self.forms();
+        for (k, f) in [rem.second, rem.third].into_iter().enumerate().take(forms) {
+            let (a, b) = rem_box(&m.y, f, k);
+            self.y_box[k] = (self.y_box[k].0 + a, self.y_box[k].1 + b);
+            self.y_mag[k] += w * c_norm * m.y.g_max * f;
+            let (a, b) = rem_box(&m.u, f, k);
+            self.u_box[k] = (self.u_box[k].0 + a, self.u_box[k].1 + b);
+            self.u_mag[k] += w * c_norm * m.u.g_max * f;
+        }
     }
 
-    /// Range of the output's deviation over the stretch, and its magnitude.
-    fn y_range(&self, m1: f64) -> (f64, f64, f64) {
+    /// How many forms the bound carries: the line, and the parabola when
+    /// its bend was computed (`BEND_MAX_POINTS`).
+    fn forms(&self) -> usize {
+        if self.y2.len() == self.y0.len() { 2 } else { 1 }
+    }
+
+    /// Range of the output's deviation over the stretch by form `k` (0 the
+    /// line, 1 the parabola), and its magnitude.
+    fn y_range(&self, k: usize, m1: f64) -> (f64, f64, f64) {
         let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
-        for (a, b) in self.y0.iter().zip(&self.y1) {
-            let e = a + m1 * b;
-            lo = lo.min(a.min(e));
-            hi = hi.max(a.max(e));
+        for (j, (a, b)) in self.y0.iter().zip(&self.y1).enumerate() {
+            let c = if k == 0 { 0.0 } else { self.y2[j] };
+            let (l, h) = poly_range(*a, *b, c, m1);
+            lo = lo.min(l);
+            hi = hi.max(h);
         }
         if self.y0.is_empty() {
             (lo, hi) = (0.0, 0.0);
         }
-        (lo + self.y_box.0, hi + self.y_box.1, self.y_mag)
+        (lo + self.y_box[k].0, hi + self.y_box[k].1, self.y_mag[k])
     }
 
-    /// Range of the command's deviation over the stretch, and its magnitude.
-    fn u_range(&self, m1: f64) -> (f64, f64, f64) {
-        let e = self.u0 + m1 * self.u1;
-        (
-            self.u0.min(e) + self.u_box.0,
-            self.u0.max(e) + self.u_box.1,
-            self.u_mag,
-        )
+    /// Range of the command's deviation over the stretch by form `k`, and
+    /// its magnitude.
+    fn u_range(&self, k: usize, m1: f64) -> (f64, f64, f64) {
+        let c = if k == 0 { 0.0 } else { self.u2 };
+        let (lo, hi) = poly_range(self.u0, self.u1, c, m1);
+        (lo + self.u_box[k].0, hi + self.u_box[k].1, self.u_mag[k])
     }
 }
 
@@ -554,6 +662,9 @@ struct Run<'s, 'a> {
     /// the same periods; a period of a lifted cascade loop has hundreds of
     /// points). At most `LEAF_BUDGET` a search.
     leaves: RefCell<HashMap<u64, Rc<Leaf>, BuildHasherDefault<NodeHasher>>>,
+    /// Whether new bounds carry the parabola (set for the output's peak
+    /// searches only, see `Slope`).
+    bend: std::cell::Cell<bool>,
 }
 
 /// A hasher for the node keys (two small integers): one multiply a word,
@@ -692,9 +803,12 @@ impl<'a> Stretches<'a> {
                         .map(|lv| {
                             let m1 = ((1u128 << lv) - 1) as f64;
                             // Only for a mode inside the unit circle
-                            // (`|lambda^k| <= 1` in the remainder's sum).
-                            (lv > 0 && rho <= 1.0 && m1 * d <= 1.0)
-                                .then(|| d * d * m1 * (m1 - 1.0).max(0.0) / 2.0)
+                            // (`|lambda^k| <= 1` in the remainders' sums).
+                            (lv > 0 && rho <= 1.0 && m1 * d <= 1.0).then(|| Rem {
+                                second: d * d * m1 * (m1 - 1.0).max(0.0) / 2.0,
+                                third: d * d * d * m1 * (m1 - 1.0).max(0.0) * (m1 - 2.0).max(0.0)
+                                    / 6.0,
+                            })
                         })
                         .collect();
                     StretchMode {
@@ -702,6 +816,8 @@ impl<'a> Stretches<'a> {
                         u: RowShare::new(&[m.kappa]),
                         gamma_d: m.gamma.iter().map(|g| g * lm1).collect(),
                         kappa_d: m.kappa * lm1,
+                        gamma_dd: m.gamma.iter().map(|g| g * lm1 * lm1).collect(),
+                        kappa_dd: m.kappa * lm1 * lm1,
                         lm1,
                         remainder,
                         mode: m.clone(),
@@ -798,6 +914,7 @@ impl<'s, 'a> Run<'s, 'a> {
             dz0,
             dz_tail,
             nodes: RefCell::new(HashMap::default()),
+            bend: std::cell::Cell::new(false),
             leaves: RefCell::new(HashMap::default()),
         }
     }
@@ -855,7 +972,7 @@ impl<'s, 'a> Run<'s, 'a> {
             (0.0, 0.0, 0.0, 0.0, 0.0, 0.0);
         let widening;
         // The slope form (see `Slope`), when some mode takes part in it.
-        let mut slope: Option<(Slope, f64, f64)> = None;
+        let mut slope: Option<(Slope, [f64; 2], [f64; 2])> = None;
         if let Some(modes) = &s.modes {
             let p = level.unwrap_or(0);
             let m1 = m1_of(level);
@@ -911,15 +1028,25 @@ impl<'s, 'a> Run<'s, 'a> {
         // Both forms hold: keep what both allow.
         if let Some((sl, e_y, e_u)) = slope {
             let m1 = m1_of(level);
-            let (ylo, yhi, ymag) = sl.y_range(m1);
-            let (ulo, uhi, umag) = sl.u_range(m1);
-            // The slope's rounding counts m - 1 times.
-            let my = self.y_floor + ROUNDING_MARGIN * (dz_y + m1 * e_y) + widening * ymag;
-            let mu = self.u_floor + ROUNDING_MARGIN * (dz_u + m1 * e_u) + widening * umag;
-            b.y_lo = b.y_lo.max(self.y_end + ylo - my);
-            b.y_hi = b.y_hi.min(self.y_end + yhi + my);
-            b.u_lo = b.u_lo.max(self.u_end + ulo - mu);
-            b.u_hi = b.u_hi.min(self.u_end + uhi + mu);
+            for k in 0..sl.forms() {
+                let (ylo, yhi, ymag) = sl.y_range(k, m1);
+                let (ulo, uhi, umag) = sl.u_range(k, m1);
+                // The slope's rounding counts m - 1 times; the bend's (its
+                // own and the slope's carried into it) at most (m - 1)^2.
+                let (ey, eu) = match k {
+                    0 => (m1 * e_y[0], m1 * e_u[0]),
+                    _ => (
+                        m1 * e_y[0] + m1 * m1 * e_y[1],
+                        m1 * e_u[0] + m1 * m1 * e_u[1],
+                    ),
+                };
+                let my = self.y_floor + ROUNDING_MARGIN * (dz_y + ey) + widening * ymag;
+                let mu = self.u_floor + ROUNDING_MARGIN * (dz_u + eu) + widening * umag;
+                b.y_lo = b.y_lo.max(self.y_end + ylo - my);
+                b.y_hi = b.y_hi.min(self.y_end + yhi + my);
+                b.u_lo = b.u_lo.max(self.u_end + ulo - mu);
+                b.u_hi = b.u_hi.min(self.u_end + uhi + mu);
+            }
         }
         // The command held at the stretch's start is known exactly.
         b.u_lo = b.u_lo.min(held);
@@ -934,46 +1061,66 @@ impl<'s, 'a> Run<'s, 'a> {
         b
     }
 
-    /// The exact line of a stretch from `dz` (see `Slope::new`), with the
-    /// size of the terms its slope sums (output, command), for the
-    /// rounding margin.
-    fn exact_line(&self, dz: &[f64]) -> (Slope, f64, f64) {
+    /// The exact polynomial of a stretch from `dz` (see `Slope::new`), with
+    /// the size of the terms its slope and its bend sum (output, command),
+    /// for the rounding margin.
+    fn exact_line(&self, dz: &[f64]) -> (Slope, [f64; 2], [f64; 2]) {
         let s = self.s;
         let map = s.map;
         let d = s.dim;
         let b = &s.powers[0];
         // On the stack for the loops of the demo cases and benches (a
         // bound is computed hundreds of times an evaluation).
-        let mut stack = [0.0; 2 * STACK_DIM];
+        let mut stack = [0.0; 4 * STACK_DIM];
         let mut heap = Vec::new();
-        let (e, e_abs) = if d <= STACK_DIM {
-            stack.split_at_mut(STACK_DIM)
+        let work: &mut [f64] = if d <= STACK_DIM {
+            &mut stack
         } else {
-            heap.resize(2 * d, 0.0);
-            heap.split_at_mut(d)
+            heap.resize(4 * d, 0.0);
+            &mut heap
         };
+        let (e, rest) = work.split_at_mut(d);
+        let (e_abs, rest) = rest.split_at_mut(d);
+        let (e2, e2_abs) = rest.split_at_mut(d);
         for i in 0..d {
             let row = &b[i * d..(i + 1) * d];
             e[i] = row.iter().zip(dz).map(|(a, x)| a * x).sum::<f64>();
             e_abs[i] = row.iter().zip(dz).map(|(a, x)| (a * x).abs()).sum::<f64>();
         }
+        // Without the parabola its bend is left empty (`Slope::forms`).
+        let bend = self.bend.get() && map.np <= BEND_MAX_POINTS && s.levels >= BEND_MIN_LEVELS;
+        for i in (0..d).filter(|_| bend) {
+            let row = &b[i * d..(i + 1) * d];
+            e2[i] = row.iter().zip(&*e).map(|(a, x)| a * x).sum::<f64>();
+            e2_abs[i] = row
+                .iter()
+                .zip(&*e_abs)
+                .map(|(a, x)| (a * x).abs())
+                .sum::<f64>();
+        }
         let dot = |row: &[f64], v: &[f64]| row.iter().zip(v).map(|(a, x)| a * x).sum::<f64>();
-        let y0: Vec<f64> = (0..map.np)
-            .map(|j| dot(&map.g[j * d..(j + 1) * d], dz))
-            .collect();
-        let y1: Vec<f64> = (0..map.np)
-            .map(|j| dot(&map.g[j * d..(j + 1) * d], &e[..d]))
-            .collect();
+        let ys = |v: &[f64]| -> Vec<f64> {
+            (0..map.np)
+                .map(|j| dot(&map.g[j * d..(j + 1) * d], v))
+                .collect()
+        };
         let ku = s.cl.ku.as_slice();
-        let e_y: f64 = map.g_abs.iter().zip(&*e_abs).map(|(a, x)| a * x).sum();
-        let e_u = s
-            .ku_abs
-            .iter()
-            .zip(&*e_abs)
-            .map(|(a, x)| a * x)
-            .sum::<f64>()
-            + e_abs[map.n];
-        (Slope::new(y0, y1, dot(ku, dz), dot(ku, &e[..d])), e_y, e_u)
+        let sizes = |v: &[f64]| {
+            let y: f64 = map.g_abs.iter().zip(v).map(|(a, x)| a * x).sum();
+            let u = s.ku_abs.iter().zip(v).map(|(a, x)| a * x).sum::<f64>() + v[map.n];
+            (y, u)
+        };
+        let (e_y, e_u) = sizes(&e_abs[..d]);
+        let (e2_y, e2_u) = sizes(&e2_abs[..d]);
+        let slope = Slope::new(
+            [
+                ys(dz),
+                ys(&e[..d]),
+                if bend { ys(&e2[..d]) } else { Vec::new() },
+            ],
+            [dot(ku, dz), dot(ku, &e[..d]), dot(ku, &e2[..d])],
+        );
+        (slope, [e_y, e2_y], [e_u, e2_u])
     }
 
     /// The exact points of period k from its state error, summed as the
@@ -1272,6 +1419,8 @@ impl<'a> Stretches<'a> {
         let band_abs = band * yf.abs();
         let sign = yf.signum();
         let scale_y = yf.abs().max(run.y_end.abs());
+        // The output's peak search is where the parabola pays (`Slope`).
+        run.bend.set(true);
         let (peak_dev, peak_decided) = if yf != 0.0 {
             let tol = 16.0 * run.y_floor + 1e-12 * scale_y;
             run.max_search(
@@ -1288,6 +1437,7 @@ impl<'a> Stretches<'a> {
         } else {
             (0.0, true)
         };
+        run.bend.set(false);
         // The command peak includes |u_final| (see `StepMetrics::finish`):
         // nodes are compared with the larger of the two.
         let uf = u_final.abs();
@@ -1351,6 +1501,7 @@ impl<'a> Stretches<'a> {
                 .sum::<f64>(),
         );
         let tol = 16.0 * run.y_floor + 1e-12 * scale;
+        run.bend.set(true);
         let (peak, peak_decided) = run.max_search(
             0.0,
             tol,
@@ -1362,6 +1513,7 @@ impl<'a> Stretches<'a> {
                 }
             },
         );
+        run.bend.set(false);
         let threshold = band * peak;
         let maybe = |b: &Bound| !(b.y_lo >= yd_final - threshold && b.y_hi <= yd_final + threshold);
         let hit = |leaf: &Leaf| {

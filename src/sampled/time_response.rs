@@ -797,16 +797,20 @@ fn figures_from_ends(
     ends: Ends,
 ) -> (StepFigures, DisturbanceFigures) {
     let map = OutputMap::new(cl, hold);
-    let cert = Certificate::new(cl, &map.bounded_rows(cl), poles);
-    if !cert.as_ref().is_some_and(|c| c.is_modal())
+    let modal = Certificate::modal(cl, &map.bounded_rows(cl), poles);
+    // Without a modal form here, the controller's basis is tried before the
+    // energy bound is built (that bound is only the last resort, and the
+    // dearest: a doubling of dense products).
+    if modal.is_none()
         && let Some((moved, moved_poles, moved_ends)) = in_controller_basis(cl, &ends)
     {
         let map = OutputMap::new(&moved, hold);
-        let cert = Certificate::new(&moved, &map.bounded_rows(&moved), &moved_poles);
-        if cert.as_ref().is_some_and(|c| c.is_modal()) {
+        let cert = Certificate::modal(&moved, &map.bounded_rows(&moved), &moved_poles);
+        if cert.is_some() {
             return figures_on(&moved, hold, poles, opts, moved_ends, &map, cert.as_ref());
         }
     }
+    let cert = modal.or_else(|| Certificate::energy(cl, &map.bounded_rows(cl)));
     figures_on(cl, hold, poles, opts, ends, &map, cert.as_ref())
 }
 
