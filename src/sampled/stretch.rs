@@ -1570,3 +1570,71 @@ impl Run<'_, '_> {
         }
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use nalgebra::Complex;
+
+    /// The expansions the slope forms rest on (see `Slope`), checked
+    /// against `lambda^q` by repeated multiplication for modes inside the
+    /// unit circle near 1 (a slow mode against its stretch), q up to 4096:
+    /// `|lambda^q - 1 - q (lambda - 1)| <= |lambda - 1|^2 C(q, 2)` and
+    /// `|lambda^q - 1 - q (lambda - 1) - C(q, 2) (lambda - 1)^2| <= |lambda - 1|^3 C(q, 3)`,
+    /// the first remainder >= 0 and the second <= 0 for a real lambda in
+    /// [0, 1]. Closed forms of the binomial expansion of `(1 + (lambda - 1))^q`.
+    #[test]
+    fn the_remainders_bound_the_powers() {
+        let mut modes = Vec::new();
+        for k in 0..40 {
+            let r = 1.0 - 10f64.powf(-1.0 - 0.1 * f64::from(k));
+            for t in [0.0, 1e-4, 3e-3, 0.05] {
+                modes.push(Complex::from_polar(r, t));
+            }
+        }
+        modes.push(Complex::new(0.0, 0.0));
+        modes.push(Complex::new(1.0, 0.0));
+        for lam in modes {
+            let d = lam - Complex::new(1.0, 0.0);
+            let mut p = Complex::new(1.0, 0.0);
+            for q in 0..4096u32 {
+                let qf = f64::from(q);
+                let c2 = qf * (qf - 1.0) / 2.0;
+                let c3 = c2 * (qf - 2.0) / 3.0;
+                let r2 = p - Complex::new(1.0, 0.0) - d * qf;
+                let r3 = r2 - d * d * c2;
+                // Rounding of the power by repeated products: q units of
+                // 1e-16, and of the differences.
+                let tol = 1e-15 * (1.0 + qf) * (1.0 + qf * d.norm()).powi(2);
+                assert!(r2.norm() <= d.norm().powi(2) * c2 + tol, "{lam} q={q}");
+                assert!(
+                    r3.norm() <= d.norm().powi(3) * c3.max(0.0) + tol,
+                    "{lam} q={q}"
+                );
+                if lam.im == 0.0 {
+                    assert!(r2.re >= -tol && r3.re <= tol, "{lam} q={q} signs");
+                }
+                p *= lam;
+            }
+        }
+    }
+
+    /// `poly_range` holds every value of its polynomial at the integers of
+    /// its range, and reaches its ends.
+    #[test]
+    fn poly_range_holds_the_polynomial() {
+        for (a, b, c, m1) in [
+            (0.3, -0.2, 0.05, 15.0),
+            (0.0, 1.0, -0.3, 7.0),
+            (1.0, 0.0, 0.0, 3.0),
+            (-2.0, 0.5, 1e-3, 1023.0),
+        ] {
+            let (lo, hi) = poly_range(a, b, c, m1);
+            for q in 0..=m1 as u32 {
+                let q = f64::from(q);
+                let v = a + q * b + q * (q - 1.0) / 2.0 * c;
+                assert!(v >= lo - 1e-12 && v <= hi + 1e-12, "{a} {b} {c} q={q}");
+            }
+        }
+    }
+}
