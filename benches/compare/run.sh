@@ -22,39 +22,7 @@ fi
 
 TMP=$(mktemp -d)
 if [[ "${KEEP:-0}" != 1 ]]; then trap 'rm -rf "$TMP"' EXIT; else echo "temp dir: $TMP" >&2; fi
-CASE="$TMP/case.toml"
-
-# Invented demo case: 4th-order plant (integrator, lag, 60 Hz resonance),
-# sensor filter, 2nd-order controller. The spec only gives `pick` something
-# to search for; the sweep evaluates every figure whatever the spec.
-cat > "$CASE" <<'TOML'
-title = "compare bench: 4th-order plant, 2nd-order controller"
-
-[plant]
-transfer = "400*(2*3.14159265*60)^2 / (s*(0.01*s+1)*(s^2 + 2*0.3*(2*3.14159265*60)*s + (2*3.14159265*60)^2))"
-
-[sensor]
-transfer = "1/(s/2000+1)"
-
-[controller]
-transfer = "0.05*(0.02*s^2+0.4*s+1)/(s*(s/400+1))"
-
-[timing]
-compute_delay = [0, 0.5, 1]
-
-[rates]
-min_hz = 50
-max_hz = 5000
-points = 200
-spacing = "log"
-
-[methods]
-use = ["step-invariant", "ramp-invariant", "impulse-invariant", "tustin", "tustin-prewarped", "pole-zero-match", "forward-euler", "backward-euler"]
-
-[spec]
-max_overshoot_pct = 25
-min_phase_margin_deg = 35
-TOML
+CASE="$ROOT/benches/cases/compare.toml"
 
 # The same polynomials for the scipy script, taken from looprate's own parse
 # (so both sides evaluate exactly the same coefficients).

@@ -125,7 +125,7 @@ const STACK_DIM: usize = 24;
 /// points a period. The bend costs products a bound does not otherwise
 /// need; it saves bounds only where a peak search keeps stretches open
 /// level after level. Measured in instructions (callgrind;
-/// `examples/evaluation_count.rs` for the evaluation bench's loop, see
+/// `examples/evaluation_count.rs` for the compare loop, see
 /// `benches/README.md`): with the parabola in every bound of every
 /// search, the motor current loop's pick took 6 % more, the cascade
 /// demo's pick 7 % more (lifted periods of hundreds of points), the
