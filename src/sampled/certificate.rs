@@ -295,35 +295,62 @@ impl ModalBound {
         let at: Vec<C64> = (0..dim * dim)
             .map(|i| C64::new(ab(i % dim, i / dim), 0.0))
             .collect();
+        // The partner of a conjugate pair already seen takes the conjugate
+        // vectors; every other mode has its own.
+        let partner: Vec<Option<usize>> = (0..dim)
+            .map(|i| {
+                let lambda = poles[i];
+                (lambda.im != 0.0)
+                    .then(|| (0..i).find(|&j| (poles[j] - lambda.conj()).norm_sqr() == 0.0))
+                    .flatten()
+            })
+            .collect();
+        // Own modes in the order of their distance to the nearest other
+        // eigenvalue (a conjugate partner aside), closest first: a mode
+        // crowded by another is the one that fails the condition check, and
+        // a failing loop should find out before the other eigenvectors are
+        // computed. Each mode's vectors are the same numbers in any order.
+        let gap = |i: usize| {
+            (0..dim)
+                .filter(|&j| j != i && partner[j] != Some(i) && partner[i] != Some(j))
+                .map(|j| (poles[j] - poles[i]).norm_sqr())
+                .fold(f64::INFINITY, f64::min)
+        };
+        let mut own: Vec<(f64, usize)> = (0..dim)
+            .filter(|&i| partner[i].is_none())
+            .map(|i| (gap(i), i))
+            .collect();
+        own.sort_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
+        let mut found: Vec<Option<(Vec<C64>, Vec<C64>)>> = vec![None; dim];
+        for &(_, i) in &own {
+            let lambda = poles[i];
+            let v = eigenvector(&ac, dim, lambda, anorm)?;
+            let u = eigenvector(&at, dim, lambda, anorm)?;
+            // A mode far past the condition check below fails it there
+            // whatever the other modes give: stop before their
+            // eigenvectors are computed (a fast controller in
+            // controllable form fails here and is retried in its own
+            // basis, `time_response`). The slack keeps the check's
+            // outcome that of the full one below.
+            let s: C64 = u.iter().zip(&v).map(|(a, b)| a * b).sum();
+            let max_norm = |w: &[C64]| w.iter().map(|x| x.norm()).fold(0.0, f64::max);
+            if max_norm(&u) * max_norm(&v) * dim as f64 > 2.0 * MAX_MODE_CONDITION * s.norm() {
+                return None;
+            }
+            found[i] = Some((v, u));
+        }
         let mut right: Vec<Vec<C64>> = Vec::with_capacity(dim);
         let mut left: Vec<Vec<C64>> = Vec::with_capacity(dim);
-        for (i, &lambda) in poles.iter().enumerate() {
-            // The partner of a conjugate pair already seen: conjugate vectors.
-            let seen = (lambda.im != 0.0)
-                .then(|| (0..i).find(|&j| (poles[j] - lambda.conj()).norm_sqr() == 0.0))
-                .flatten();
-            if let Some(j) = seen {
-                let v: Vec<C64> = right[j].iter().map(|x: &C64| x.conj()).collect();
-                let u: Vec<C64> = left[j].iter().map(|x: &C64| x.conj()).collect();
-                right.push(v);
-                left.push(u);
-            } else {
-                let v = eigenvector(&ac, dim, lambda, anorm)?;
-                let u = eigenvector(&at, dim, lambda, anorm)?;
-                // A mode far past the condition check below fails it there
-                // whatever the other modes give: stop before their
-                // eigenvectors are computed (a fast controller in
-                // controllable form fails here and is retried in its own
-                // basis, `time_response`). The slack keeps the check's
-                // outcome that of the full one below.
-                let s: C64 = u.iter().zip(&v).map(|(a, b)| a * b).sum();
-                let max_norm = |w: &[C64]| w.iter().map(|x| x.norm()).fold(0.0, f64::max);
-                if max_norm(&u) * max_norm(&v) * dim as f64 > 2.0 * MAX_MODE_CONDITION * s.norm() {
-                    return None;
-                }
-                right.push(v);
-                left.push(u);
-            }
+        for i in 0..dim {
+            let (v, u) = match partner[i] {
+                Some(j) => (
+                    right[j].iter().map(|x: &C64| x.conj()).collect(),
+                    left[j].iter().map(|x: &C64| x.conj()).collect(),
+                ),
+                None => found[i].take()?,
+            };
+            right.push(v);
+            left.push(u);
         }
         // Normalise u_i . v_i = 1 (plain transpose: u_i' A = lambda_i u_i').
         for (u, v) in left.iter_mut().zip(&right) {
