@@ -13,15 +13,32 @@ use looprate::model::discretize::Method;
 use looprate::sampled::evaluate::Point;
 use looprate::spec::HoldKind;
 
-fn main() -> Result<(), Box<dyn std::error::Error>> {
+fn main() {
+    if let Err(e) = run() {
+        eprintln!("evaluation_count: {e}");
+        std::process::exit(2);
+    }
+}
+
+fn run() -> Result<(), String> {
     let mut args = std::env::args().skip(1);
     let path = PathBuf::from(args.next().unwrap_or_else(|| {
         concat!(env!("CARGO_MANIFEST_DIR"), "/benches/cases/compare.toml").into()
     }));
-    let rate: f64 = args.next().map_or(Ok(1000.0), |a| a.parse())?;
-    let n: usize = args.next().map_or(Ok(20), |a| a.parse())?;
-    let case = Case::parse(&std::fs::read_to_string(&path)?, &path)?;
-    let lp = prepare(&case)?;
+    let number = |what: &str, text: Option<String>, default: &str| -> Result<f64, String> {
+        let text = text.unwrap_or_else(|| default.into());
+        match text.parse::<f64>() {
+            Ok(v) if v.is_finite() && v > 0.0 => Ok(v),
+            _ => Err(format!(
+                "{what}: expected a positive finite number, found `{text}`"
+            )),
+        }
+    };
+    let rate = number("RATE_HZ", args.next(), "1000")?;
+    let n = number("N", args.next(), "20")? as usize;
+    let text = std::fs::read_to_string(&path).map_err(|e| format!("{}: {e}", path.display()))?;
+    let case = Case::parse(&text, &path).map_err(|e| e.to_string())?;
+    let lp = prepare(&case).map_err(|e| e.to_string())?;
     let p = Point {
         rate_hz: rate,
         method: Some(Method::Tustin),
@@ -31,7 +48,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     for _ in 0..n {
         let e = lp.sampled(std::hint::black_box(&p));
         if std::hint::black_box(e).figures.is_none() {
-            return Err(format!("no figures at {rate} Hz").into());
+            return Err(format!("{}: no figures at {rate} Hz", path.display()));
         }
     }
     Ok(())

@@ -106,16 +106,12 @@ pub struct Mode {
 }
 
 impl Certificate {
-    /// Build the certificate of a stable loop with poles `poles` (the
-    /// eigenvalues of `cl.a`); None when neither bound can be built (then
-    /// the pole-based horizon rules).
-    pub fn new(cl: &ClosedLoop, rows: &BoundedRows, poles: &[C64]) -> Option<Certificate> {
-        Certificate::modal(cl, rows, poles).or_else(|| Certificate::energy(cl, rows))
-    }
-
-    /// The certificate by the modal bound alone; None when the loop has no
-    /// checked modal form. A caller with another basis to try does so
-    /// before it pays for the energy bound (`time_response`).
+    /// The certificate by the modal bound alone (of a stable loop with
+    /// poles `poles`, the eigenvalues of `cl.a`); None when the loop has
+    /// no checked modal form. A caller with another basis to try does so
+    /// before it pays for the energy bound (`Certificate::energy`, the
+    /// fallback; `time_response::figures_from_ends`). With neither, the
+    /// pole-based horizon rules.
     pub fn modal(cl: &ClosedLoop, rows: &BoundedRows, poles: &[C64]) -> Option<Certificate> {
         let modal = ModalBound::new(&cl.a, rows, poles)?;
         Some(Certificate {

@@ -1582,7 +1582,10 @@ mod tests {
     /// `|lambda^q - 1 - q (lambda - 1)| <= |lambda - 1|^2 C(q, 2)` and
     /// `|lambda^q - 1 - q (lambda - 1) - C(q, 2) (lambda - 1)^2| <= |lambda - 1|^3 C(q, 3)`,
     /// the first remainder >= 0 and the second <= 0 for a real lambda in
-    /// [0, 1]. Closed forms of the binomial expansion of `(1 + (lambda - 1))^q`.
+    /// [0, 1]. Source: the binomial expansion of `(1 + (lambda - 1))^q`
+    /// with its remainder as a nested sum of powers (a closed form, from
+    /// memory; derived in `Slope`'s doc), checked against the powers
+    /// themselves.
     #[test]
     fn the_remainders_bound_the_powers() {
         let mut modes = Vec::new();
@@ -1620,7 +1623,8 @@ mod tests {
     }
 
     /// `poly_range` holds every value of its polynomial at the integers of
-    /// its range, and reaches its ends.
+    /// its range (checked by evaluating the polynomial at each: a closed
+    /// form, no outside source needed).
     #[test]
     fn poly_range_holds_the_polynomial() {
         for (a, b, c, m1) in [
