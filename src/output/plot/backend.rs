@@ -33,40 +33,6 @@ type Result<T> = std::result::Result<T, DrawingErrorKind<Infallible>>;
 /// ascent to descent) sits on the given position; plotters' own.
 pub(crate) use plotters_backend::text_anchor::{HPos, VPos};
 
-/// How a string is drawn: size is the em size in pixels.
-#[derive(Clone, Copy)]
-pub(crate) struct TextStyle {
-    pub size: f64,
-    pub color: Rgb,
-    pub h: HPos,
-    pub v: VPos,
-    /// Turned a quarter turn anticlockwise, reading bottom to top.
-    pub rotated: bool,
-}
-
-impl TextStyle {
-    pub fn new(size: f64, color: Rgb) -> Self {
-        TextStyle {
-            size,
-            color,
-            h: HPos::Left,
-            v: VPos::Top,
-            rotated: false,
-        }
-    }
-
-    pub fn anchor(mut self, h: HPos, v: VPos) -> Self {
-        self.h = h;
-        self.v = v;
-        self
-    }
-
-    pub fn rotated(mut self) -> Self {
-        self.rotated = true;
-        self
-    }
-}
-
 /// The chart font: DejaVu Sans, cut down to the characters charts need
 /// (see `assets/fonts/make-subset.sh`).
 pub(crate) struct TextFont {
@@ -128,25 +94,32 @@ impl TextFont {
     /// Where the caret start goes so that the anchor lands on `(x, y)`,
     /// rounded to whole pixels for crisp text; also the canvas rectangle
     /// of the line box.
-    fn place(&self, text: &str, x: f64, y: f64, st: &TextStyle) -> (Vec<Glyph>, (i64, i64), Rect) {
-        let (glyphs, width, ascent, descent) = self.layout(text, st.size);
-        let ax = match st.h {
+    fn place(
+        &self,
+        text: &str,
+        x: f64,
+        y: f64,
+        st: &impl BackendTextStyle,
+    ) -> (Vec<Glyph>, (i64, i64), Rect) {
+        let (glyphs, width, ascent, descent) = self.layout(text, self.em_of_scale(st.size()));
+        let (anchor, rotated) = (st.anchor(), turned(st));
+        let ax = match anchor.h_pos {
             HPos::Left => 0.0,
             HPos::Center => width / 2.0,
             HPos::Right => width,
         };
         // Offset from the baseline, y down.
-        let ay = match st.v {
+        let ay = match anchor.v_pos {
             VPos::Top => -ascent,
             VPos::Center => (descent - ascent) / 2.0,
             VPos::Bottom => descent,
         };
         // Turned text: text frame (tx, ty) maps to canvas (ox + ty, oy - tx).
-        let (ox, oy) = match st.rotated {
+        let (ox, oy) = match rotated {
             true => ((x - ay).round(), (y + ax).round()),
             false => ((x - ax).round(), (y - ay).round()),
         };
-        let r = match st.rotated {
+        let r = match rotated {
             true => Rect::new(ox - ascent, oy - width, ox + descent, oy),
             false => Rect::new(ox, oy - ascent, ox + width, oy + descent),
         };
@@ -155,13 +128,20 @@ impl TextFont {
 
     /// The canvas rectangle `text` would occupy if drawn with `st` at
     /// `(x, y)`, without drawing it.
-    pub fn bounds(&self, text: &str, x: f64, y: f64, st: &TextStyle) -> Rect {
+    pub fn bounds(&self, text: &str, x: f64, y: f64, st: &impl BackendTextStyle) -> Rect {
         self.place(text, x, y, st).2
     }
 
     /// Draw `text` anchored at `(x, y)`: the glyph outlines, each at its
     /// caret position, filled as one path (turned by the transform).
-    pub fn draw(&self, canvas: &mut Canvas, text: &str, x: f64, y: f64, st: &TextStyle) {
+    pub fn draw(
+        &self,
+        canvas: &mut Canvas,
+        text: &str,
+        x: f64,
+        y: f64,
+        st: &impl BackendTextStyle,
+    ) {
         let (glyphs, (ox, oy), _) = self.place(text, x, y, st);
         let mut pb = PathBuilder::new();
         for g in glyphs {
@@ -195,12 +175,23 @@ impl TextFont {
         }
         // Turned text: text frame (tx, ty) maps to canvas (ox + ty, oy - tx).
         let (ox, oy) = (ox as f32, oy as f32);
-        let tf = match st.rotated {
+        let tf = match turned(st) {
             true => Transform::from_row(0.0, -1.0, 1.0, 0.0, ox, oy),
             false => Transform::from_translate(ox, oy),
         };
-        canvas.fill(pb.finish(), st.color, 1.0, tf);
+        let (color, _) = rgb(&st.color());
+        canvas.fill(pb.finish(), color, 1.0, tf);
     }
+}
+
+/// Text turned a quarter turn anticlockwise, reading bottom to top (axis
+/// descriptions, labels along a vertical mark); plotters' half turn is
+/// drawn level.
+fn turned(st: &impl BackendTextStyle) -> bool {
+    matches!(
+        st.transform(),
+        FontTransform::Rotate90 | FontTransform::Rotate270
+    )
 }
 
 /// The canvas plotters draws on, and the font it writes with.
@@ -222,18 +213,6 @@ fn centre(p: BackendCoord) -> (f64, f64) {
 impl<'a> CanvasBackend<'a> {
     pub fn new(canvas: &'a mut Canvas, font: &'a TextFont) -> Self {
         CanvasBackend { canvas, font }
-    }
-
-    fn text_style(&self, style: &impl BackendTextStyle) -> TextStyle {
-        let (color, _) = rgb(&style.color());
-        let a = style.anchor();
-        let st =
-            TextStyle::new(self.font.em_of_scale(style.size()), color).anchor(a.h_pos, a.v_pos);
-        match style.transform() {
-            FontTransform::None | FontTransform::Rotate180 => st,
-            // Axis descriptions read bottom to top.
-            FontTransform::Rotate90 | FontTransform::Rotate270 => st.rotated(),
-        }
     }
 }
 
@@ -331,9 +310,8 @@ impl DrawingBackend for CanvasBackend<'_> {
         style: &TStyle,
         pos: BackendCoord,
     ) -> Result<()> {
-        let st = self.text_style(style);
         let (x, y) = (f64::from(pos.0), f64::from(pos.1));
-        self.font.draw(self.canvas, text, x, y, &st);
+        self.font.draw(self.canvas, text, x, y, style);
         Ok(())
     }
 
@@ -356,6 +334,7 @@ impl DrawingBackend for CanvasBackend<'_> {
 mod tests {
     use super::*;
     use plotters::prelude::{BLACK, IntoDrawingArea, IntoFont, Text};
+    use plotters::style::text_anchor::Pos;
 
     /// Text drawn by plotters' own `Text` element comes through our font
     /// path: the letters of a word stay evenly spaced (plotters 0.3.7's
@@ -406,11 +385,15 @@ mod tests {
         let pair = font.width("AV", 40.0);
         let apart = font.width("A", 40.0) + font.width("V", 40.0);
         assert!(pair < apart - 0.5, "AV {pair} vs A+V {apart}");
-        let st = TextStyle::new(20.0, Rgb(0, 0, 0)).anchor(HPos::Right, VPos::Center);
+        let style = |em: f64, h, v| {
+            let size = em / font.em_of_scale(1.0);
+            (("sans-serif", size).into_font().color(&BLACK)).pos(Pos::new(h, v))
+        };
+        let st = style(20.0, HPos::Right, VPos::Center);
         let r = font.bounds("10k", 100.0, 50.0, &st);
         assert!((r.x1 - 100.0).abs() <= 1.0);
         assert!(((r.y0 + r.y1) / 2.0 - 50.0).abs() <= 1.0);
-        let rot = st.anchor(HPos::Center, VPos::Top).rotated();
+        let rot = style(20.0, HPos::Center, VPos::Top).transform(FontTransform::Rotate270);
         let r = font.bounds("gain (dB)", 30.0, 200.0, &rot);
         assert!(r.height() > r.x1 - r.x0, "rotated text is tall: {r:?}");
         assert!((r.x0 - 30.0).abs() <= 1.0);

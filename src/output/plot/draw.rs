@@ -16,11 +16,12 @@ use plotters::coord::ranged1d::{DefaultFormatting, KeyPointHint, Ranged};
 use plotters::coord::types::RangedCoordf64;
 use plotters::element::{DashedPathElement, Drawable, PointCollection};
 use plotters::prelude::*;
-use plotters::style::{RGBAColor, TextStyle as PTextStyle};
+use plotters::style::text_anchor::Pos;
+use plotters::style::{FontTransform, RGBAColor, TextStyle};
 use plotters_backend::{BackendCoord, DrawingErrorKind};
 use tiny_skia::{PathBuilder, Transform};
 
-use super::backend::{CanvasBackend, HPos, TextFont, TextStyle, VPos};
+use super::backend::{CanvasBackend, HPos, TextFont, VPos};
 use super::canvas::{Canvas, Rect, Rgb, clip_segment, path};
 use super::{
     Axis, Draw, Figure, MAX_PIXELS, MAX_SIDE, MIN_SIDE, MarkStyle, PALETTE_LEN, Panel, Series, Side,
@@ -66,10 +67,12 @@ struct Metrics {
     tick: f64,
     small: f64,
     lw: f64,
+    /// The embedded font's em size at plotters' font size 1.
+    em_unit: f64,
 }
 
 impl Metrics {
-    fn new(w: u32, h: u32) -> Self {
+    fn new(w: u32, h: u32, font: &TextFont) -> Self {
         let base = (21.0 * (f64::from(w) * f64::from(h) / 1.6e6).sqrt()).clamp(9.0, 42.0);
         let (tick, small, lw) = (base * 0.9, base * 0.82, (base * 0.11).max(1.5).round());
         Metrics {
@@ -77,6 +80,7 @@ impl Metrics {
             tick,
             small,
             lw,
+            em_unit: font.em_of_scale(1.0),
         }
     }
 }
@@ -310,9 +314,10 @@ fn err(e: impl std::fmt::Display) -> PlotError {
     PlotError::Draw(e.to_string())
 }
 
-/// plotters' text style for the chart font at em size `em`.
-fn text_style(font: &TextFont, em: f64, c: Rgb) -> PTextStyle<'static> {
-    let font_desc = ("sans-serif", em / font.em_of_scale(1.0)).into_font();
+/// plotters' text style for the chart font at em size `em`, anchored by
+/// its top left corner.
+fn text_style(m: &Metrics, em: f64, c: Rgb) -> TextStyle<'static> {
+    let font_desc = ("sans-serif", em / m.em_unit).into_font();
     font_desc.color(&color(c, 1.0))
 }
 
@@ -378,7 +383,7 @@ impl<DB: DrawingBackend> Drawable<DB> for Mark {
 }
 
 /// A candidate spot for a label: its anchor point in pixels and style.
-type Spot = (f64, f64, TextStyle);
+type Spot = (f64, f64, TextStyle<'static>);
 
 /// A label still to be placed: its text, candidate spots (best first),
 /// its panel's plot area, and the data point a note points at (in
@@ -401,7 +406,7 @@ fn max_of(v: impl Iterator<Item = f64>) -> f64 {
 pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
     validate(fig)?;
     let font = TextFont::embedded()?;
-    let m = Metrics::new(fig.width, fig.height);
+    let m = Metrics::new(fig.width, fig.height, &font);
     let (w, h, n) = (
         f64::from(fig.width),
         f64::from(fig.height),
@@ -490,8 +495,8 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
                 .y_label_formatter(&yf)
                 .x_labels(xs.bold.len() + xs.light.len())
                 .y_labels(ys.bold.len() + ys.light.len())
-                .label_style(text_style(&font, m.tick, TEXT))
-                .axis_desc_style(text_style(&font, m.base, TEXT))
+                .label_style(text_style(&m, m.tick, TEXT))
+                .axis_desc_style(text_style(&m, m.base, TEXT))
                 .bold_line_style(color(GRID, 1.0))
                 .light_line_style(color(GRID_MINOR, 1.0))
                 .axis_style(color(FRAME, 1.0))
@@ -510,7 +515,7 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
                 // that runs longer (plotters' lines are 1.25 em).
                 let start = y0.max(legend_end);
                 let (style, n) = (
-                    text_style(&font, m.tick, TEXT),
+                    text_style(&m, m.tick, TEXT),
                     listed(p).flat_map(lines).count(),
                 );
                 legend_end = start + n as f64 * 1.25 * style.font.get_size() + gap;
@@ -527,10 +532,10 @@ pub(crate) fn render(fig: &Figure) -> Result<Canvas, PlotError> {
     // Title and footer, both from the left margin.
     if let Some(t) = title {
         let size = title_em * ((w - 2.0 * margin) / font.width(t, title_em)).min(1.0);
-        font.draw(&mut canvas, t, margin, margin, &TextStyle::new(size, TEXT));
+        font.draw(&mut canvas, t, margin, margin, &text_style(&m, size, TEXT));
     }
     if let Some(note) = &fig.note {
-        let st = TextStyle::new(note_em, TEXT_SOFT).anchor(HPos::Left, VPos::Bottom);
+        let st = text_style(&m, note_em, TEXT_SOFT).pos(Pos::new(HPos::Left, VPos::Bottom));
         font.draw(&mut canvas, note.trim(), margin, h - margin * 0.7, &st);
     }
     place_labels(&mut canvas, &font, &m, pending);
@@ -559,7 +564,7 @@ fn draw_legend(
     area: &DrawingArea<CanvasBackend, Shift>,
     p: &Panel,
     m: &Metrics,
-    (sw, style): (i32, PTextStyle),
+    (sw, style): (i32, TextStyle),
     lines: impl Fn(&Series) -> Vec<String>,
 ) -> Result<(), PlotError> {
     let mut chart = ChartBuilder::on(area)
@@ -627,7 +632,7 @@ fn draw_extras(
     let (b, lo, hi) = (m.base, (xs.lo, ys.lo), (xs.hi, ys.hi));
     // Spots at every (x, h) with every (y, v), in that order.
     let grid = |xh: &[(f64, HPos)], yv: &[(f64, VPos)], c: Rgb| -> Vec<Spot> {
-        let st = |h, v| TextStyle::new(m.small, c).anchor(h, v);
+        let st = |h, v| st_of(m, c, h, v);
         let spot = |&(x, h): &(f64, HPos)| yv.iter().map(move |&(y, v)| (x, y, st(h, v)));
         xh.iter().flat_map(spot).collect()
     };
@@ -711,7 +716,10 @@ fn draw_extras(
         area.draw(&path).map_err(err)?;
         // Along the line first (reading upwards), then level beside it.
         let (x, d) = (at(t, lo.1).0, 0.3 * b);
-        let turned = |y, h, dx, v| (x + dx, y, st_of(m, MARK, h, v).rotated());
+        let turned = |y, h, dx, v| {
+            let st = st_of(m, MARK, h, v).transform(FontTransform::Rotate270);
+            (x + dx, y, st)
+        };
         let (y0, y1) = (plot.y0 + 0.4 * b, plot.y1 - 0.4 * b);
         let mut spots = vec![turned(y0, Right, d, Top), turned(y0, Right, -d, Bottom)];
         spots.extend([turned(y1, Left, d, Top), turned(y1, Left, -d, Bottom)]);
@@ -743,8 +751,8 @@ fn draw_extras(
 }
 
 /// A label style: small text in colour `c`, anchored.
-fn st_of(m: &Metrics, c: Rgb, h: HPos, v: VPos) -> TextStyle {
-    TextStyle::new(m.small, c).anchor(h, v)
+fn st_of(m: &Metrics, c: Rgb, h: HPos, v: VPos) -> TextStyle<'static> {
+    text_style(m, m.small, c).pos(Pos::new(h, v))
 }
 
 /// The series through plotters: dashed lines, and markers (every point
