@@ -41,6 +41,30 @@ fn grid_step(poles: &[C64]) -> (f64, f64) {
     (horizon, h)
 }
 
+/// How far the fastest mode may decay over one step of the continuous
+/// figures' finer grid: by at most `e^4` (about 55 times). A mode that
+/// decays by far more within a step is invisible on the grid, and its
+/// eigenvalue of `e^{A h}` (down to 1e-85 and below) crowds against the
+/// held command's zero in the sampled form: the modal bound then fails
+/// and the figures are walked, step by step (`grid_steps`).
+const RESOLVED_DECAY: f64 = 4.0;
+
+/// The grid steps the continuous figures are tried on, s, finest first:
+/// the step over which the fastest mode decays by `e^RESOLVED_DECAY`,
+/// when it is shorter than `grid_step`'s, then `grid_step`'s own. The
+/// finer grid also resolves that mode's transient (a fast actuator's
+/// command kick) which the coarser one steps over.
+pub fn grid_steps(poles: &[C64]) -> Vec<f64> {
+    let (_, h) = grid_step(poles);
+    let fastest = poles.iter().map(|p| -p.re).fold(0.0, f64::max);
+    let fine = RESOLVED_DECAY / fastest;
+    if fine > 0.0 && fine < h {
+        vec![fine, h]
+    } else {
+        vec![h]
+    }
+}
+
 /// A rational stand-in for the delay `e^{-s theta}` of hold plus
 /// computation, `theta = T/2 + tau`.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, Serialize)]
@@ -258,6 +282,9 @@ impl ContinuousLoop {
     /// found by jumping through the grid (`jumped_time_figures`: no cap in
     /// steps, work that does not grow with the horizon), or by the walk
     /// (`walked_time_figures`) when the loop does not fit that route.
+    /// First on the finer grid that resolves the fastest mode
+    /// (`grid_steps`), kept when the jumps alone decide every figure there
+    /// (no walk is tried on it); else on `grid_step`'s.
     pub fn time_figures(
         &self,
         poles: &[C64],
@@ -266,11 +293,24 @@ impl ContinuousLoop {
         if let Some(figs) = self.static_figures(opts) {
             return Ok(figs);
         }
-        let (_, h) = grid_step(poles);
+        let steps = grid_steps(poles);
+        if let [fine, _] = steps[..] {
+            let jumps_only = TimeOptions {
+                walk_budget: 0,
+                ..*opts
+            };
+            if let Some(figs) = self.jumped_time_figures(fine, &jumps_only)?
+                && figs.0.undecided.is_empty()
+                && figs.1.undecided.is_empty()
+            {
+                return Ok(figs);
+            }
+        }
+        let h = grid_step(poles).1;
         if let Some(figs) = self.jumped_time_figures(h, opts)? {
             return Ok(figs);
         }
-        self.walked_time_figures(poles, opts)
+        self.walked_time_figures(poles, h, opts)
     }
 
     /// A loop of pure gains (no state): its outputs jump to their final
@@ -294,19 +334,21 @@ impl ContinuousLoop {
         ))
     }
 
-    /// The same figures by walking every grid step (capped at
-    /// `opts.max_steps`; figures past the cap are undecided): the
-    /// reference the jumps are checked against, and the route for a plant
-    /// with feedthrough behind a hold approximation.
+    /// The same figures by walking every step of the grid of step `h`
+    /// seconds over `grid_step`'s horizon (capped at `opts.max_steps`;
+    /// figures past the cap are undecided): the reference the jumps are
+    /// checked against, and the route for a plant with feedthrough behind
+    /// a hold approximation.
     pub fn walked_time_figures(
         &self,
         poles: &[C64],
+        h: f64,
         opts: &TimeOptions,
     ) -> Result<(StepFigures, DisturbanceFigures), ModelError> {
         if let Some(figs) = self.static_figures(opts) {
             return Ok(figs);
         }
-        let (horizon, h) = grid_step(poles);
+        let (horizon, _) = grid_step(poles);
         let want = (horizon / h).ceil();
         let capped = want > opts.max_steps as f64;
         let steps = want.min(opts.max_steps as f64) as usize;
@@ -361,7 +403,7 @@ impl ContinuousLoop {
     /// at the horizon cannot settle is undecided). `None` when the output's
     /// feedthrough does not fit that form (`y = cy x + c0 (u + w)`), or the
     /// form has no steady state: the caller walks instead.
-    fn jumped_time_figures(
+    pub fn jumped_time_figures(
         &self,
         h: f64,
         opts: &TimeOptions,

@@ -28,6 +28,12 @@ pub struct TimeOptions {
     /// points instead) nor on the sampled loop's figures: their horizon is in
     /// seconds, from the loop's own slowest mode, and is jumped through.
     pub max_steps: usize,
+    /// Most periods a fallback walk of the sampled-loop machinery goes
+    /// through when the stretch bounds cannot decide a figure
+    /// (`WALK_BUDGET`); 0 asks for the stretches' answer alone (a figure
+    /// they leave open is undecided at once), as the continuous figures'
+    /// first, finer grid does.
+    pub walk_budget: u64,
 }
 
 impl Default for TimeOptions {
@@ -36,6 +42,7 @@ impl Default for TimeOptions {
             points_per_period: 16,
             band: 0.02,
             max_steps: 200_000,
+            walk_budget: WALK_BUDGET,
         }
     }
 }
@@ -876,7 +883,7 @@ fn figures_on(
     let step = if step_open {
         // The stretch bounds could not decide it within their budget:
         // walk this response (bound-backed early stop, no cap in periods).
-        walk_step(cl, map, t, periods, &ends, cert, opts.band)
+        walk_step(cl, map, t, periods, &ends, cert, opts)
     } else {
         StepFigures {
             y_final: yf,
@@ -893,7 +900,7 @@ fn figures_on(
     };
     let d = jumps.disturbance(&ends.zw, ends.yd_final, opts.band);
     let dist = if !d.peak_decided || d.since == Instant::Undecided {
-        walk_disturbance(cl, map, t, periods, &ends, cert, opts.band)
+        walk_disturbance(cl, map, t, periods, &ends, cert, opts)
     } else {
         DisturbanceFigures {
             disturbance_peak: d.peak,
@@ -914,7 +921,7 @@ pub const WALK_BUDGET: u64 = 1 << 20;
 
 /// The step by walking every period (points between samples skipped or
 /// deferred where a bound allows, stopped early on the certificate), over
-/// the horizon or `WALK_BUDGET` periods, whichever is shorter. A figure
+/// the horizon or `opts.walk_budget` periods, whichever is shorter. A figure
 /// the walk has not fixed when it ends is undecided.
 fn walk_step(
     cl: &ClosedLoop,
@@ -923,9 +930,10 @@ fn walk_step(
     periods: u64,
     ends: &Ends,
     cert: Option<&Certificate>,
-    band: f64,
+    opts: &TimeOptions,
 ) -> StepFigures {
-    let n = periods.min(WALK_BUDGET) as usize;
+    let band = opts.band;
+    let n = periods.min(opts.walk_budget) as usize;
     let cut = (n as u64) < periods;
     let mut m = StepMetrics::new(ends.y_final, band).with_u_final(ends.u_final);
     let end = Some((&ends.zr, cert));
@@ -963,14 +971,15 @@ fn walk_disturbance(
     periods: u64,
     ends: &Ends,
     cert: Option<&Certificate>,
-    band: f64,
+    opts: &TimeOptions,
 ) -> DisturbanceFigures {
+    let band = opts.band;
     let end = Some((&ends.zw, cert));
     let mut peak = Peak {
         y_final: ends.yd_final,
         peak: 0.0,
     };
-    let n = periods.min(WALK_BUDGET) as usize;
+    let n = periods.min(opts.walk_budget) as usize;
     let cut = (n as u64) < periods;
     let run_peak = simulate_sampled(cl, map, t, 0.0, 1.0, n, end, &mut peak);
     let mut rec = Recovery {
