@@ -135,9 +135,6 @@ impl StateSpace {
     }
 }
 
-/// Largest model `response_at` solves in stack storage.
-const STACK_SOLVE: usize = 8;
-
 /// `a.norm() > b.norm()`, decided exactly as the two `hypot` values would
 /// decide it, mostly without calling `hypot`: when the squared moduli are
 /// in the safe range and differ by more than a relative 1e-12, their order
@@ -173,25 +170,34 @@ impl StateSpace {
     /// pivoting (no polynomial coefficients involved, so poles crowded near
     /// z = 1 at fast rates cost no digits).
     pub fn response_at(&self, x: C64, row: usize) -> C64 {
-        let n = self.order();
+        let zero = C64::new(0.0, 0.0);
         // Stack storage for the usual sizes (this runs thousands of times
-        // per evaluation); the same arithmetic either way.
-        let mut stack = [C64::new(0.0, 0.0); STACK_SOLVE * (STACK_SOLVE + 1)];
-        let mut heap = Vec::new();
-        let m: &mut [C64] = if n <= STACK_SOLVE {
-            &mut stack[..n * (n + 1)]
-        } else {
-            heap.resize(n * (n + 1), C64::new(0.0, 0.0));
-            &mut heap
-        };
+        // per evaluation), each size its own copy of `solve` with the
+        // order known at compile time (loops unrolled); the same
+        // arithmetic, in the same order, for every size.
+        macro_rules! fixed {
+            ($($k:literal)*) => {
+                match self.order() {
+                    $($k => self.solve(x, row, $k, &mut [zero; $k * ($k + 1)], &mut [zero; $k]),)*
+                    n => self.solve(x, row, n, &mut vec![zero; n * (n + 1)], &mut vec![zero; n]),
+                }
+            };
+        }
+        fixed!(1 2 3 4 5 6 7 8)
+    }
+
+    /// `response_at` in the scratch `m` (`n` rows of `n + 1`: `xI - A`
+    /// beside `B`) and `sol` (`n`).
+    #[inline(always)]
+    fn solve(&self, x: C64, row: usize, n: usize, m: &mut [C64], sol: &mut [C64]) -> C64 {
+        let w = n + 1;
         for i in 0..n {
             for j in 0..n {
                 let d = if i == j { x } else { C64::new(0.0, 0.0) };
-                m[i * (n + 1) + j] = d - self.a[(i, j)];
+                m[i * w + j] = d - self.a[(i, j)];
             }
-            m[i * (n + 1) + n] = C64::new(self.b[i], 0.0);
+            m[i * w + n] = C64::new(self.b[i], 0.0);
         }
-        let w = n + 1;
         for col in 0..n {
             // Partial pivoting on |entry| (hypot, computed once per entry).
             let mut piv = col;
@@ -200,8 +206,9 @@ impl StateSpace {
                     piv = r;
                 }
             }
+            // Entries left of `col` are never read again: not swapped.
             if piv != col {
-                for j in 0..w {
+                for j in col..w {
                     m.swap(col * w + j, piv * w + j);
                 }
             }
@@ -213,21 +220,14 @@ impl StateSpace {
             for r in col + 1..n {
                 let f = m[r * w + col] / p;
                 if f.re != 0.0 || f.im != 0.0 {
-                    for j in col..w {
+                    // Column `col` below the pivot is never read again.
+                    for j in col + 1..w {
                         let v = m[col * w + j];
                         m[r * w + j] -= f * v;
                     }
                 }
             }
         }
-        let mut sol_stack = [C64::new(0.0, 0.0); STACK_SOLVE];
-        let mut sol_heap = Vec::new();
-        let sol: &mut [C64] = if n <= STACK_SOLVE {
-            &mut sol_stack[..n]
-        } else {
-            sol_heap.resize(n, C64::new(0.0, 0.0));
-            &mut sol_heap
-        };
         for i in (0..n).rev() {
             let mut acc = m[i * w + n];
             for j in i + 1..n {
