@@ -183,7 +183,7 @@ impl StateSpace {
                 }
             };
         }
-        fixed!(1 2 3 4 5 6 7 8)
+        fixed!(1 2 3 4 5 6 7 8 9 10 11 12 13 14 15 16)
     }
 
     /// `response_at` in the scratch `m` (`n` rows of `n + 1`: `xI - A`
