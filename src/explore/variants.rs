@@ -471,15 +471,8 @@ pub fn worst_of(figs: &[&Figures]) -> Option<Figures> {
         delay_margin_estimate_s: min_margin(&|f| f.delay_margin_estimate_s),
         sensitivity_peak: max_f(&|f| f.sensitivity_peak),
         horizon_s: figs.iter().map(|f| f.horizon_s).fold(0.0, f64::max),
-        undecided: {
-            let mut keys: Vec<&'static str> = Vec::new();
-            for k in figs.iter().flat_map(|f| f.undecided.iter()) {
-                if !keys.contains(k) {
-                    keys.push(k);
-                }
-            }
-            keys
-        },
+        undecided: union(figs.iter().map(|f| &f.undecided)),
+        not_computed: union(figs.iter().map(|f| &f.not_computed)),
         delay_margin_searched: figs.iter().all(|f| f.delay_margin_searched),
         loop_notes: {
             let mut notes: Vec<String> = figs.iter().flat_map(|f| f.loop_notes.clone()).collect();
@@ -487,6 +480,17 @@ pub fn worst_of(figs: &[&Figures]) -> Option<Figures> {
             notes
         },
     })
+}
+
+/// The keys listed by any of `lists`, each once, in order of appearance.
+fn union<'a>(lists: impl Iterator<Item = &'a Vec<&'static str>>) -> Vec<&'static str> {
+    let mut keys: Vec<&'static str> = Vec::new();
+    for k in lists.flatten() {
+        if !keys.contains(k) {
+            keys.push(k);
+        }
+    }
+    keys
 }
 
 /// The parameter values of the worst variant, for reports.
@@ -517,6 +521,7 @@ mod tests {
             sensitivity_peak: 1.5,
             horizon_s: 1.0,
             undecided: Vec::new(),
+            not_computed: Vec::new(),
             loop_notes: Vec::new(),
             delay_margin_searched: true,
         }

@@ -64,7 +64,8 @@ pub fn write_cascade_charts(
 }
 
 /// Outer figures against the ratio at a few inner rates. Pairs the search
-/// did not evaluate are evaluated here (every ratio at the rates drawn).
+/// did not evaluate, or judged on its verdict's figures alone, are
+/// evaluated here (every ratio at the rates drawn).
 fn vs_ratio(
     case: &Case,
     pc: &PreparedCascade,
@@ -130,10 +131,19 @@ fn vs_ratio(
     for (k, &f) in picked.iter().enumerate() {
         let mut figures: Vec<(f64, Figures)> = Vec::new();
         for r in series.iter().filter(|r| r.point.inner.rate_hz == f) {
+            // A pick's pair judged on its verdict's figures alone
+            // (`not_computed`) is evaluated in full here, as one the search
+            // did not reach.
             let e = match &r.outer {
-                Some(e) if e.figures.is_some() => e.clone(),
-                Some(_) => continue,
-                None => pc.evaluate_outer(&r.point, false),
+                Some(e)
+                    if e.figures
+                        .as_ref()
+                        .is_some_and(|f| f.not_computed.is_empty()) =>
+                {
+                    e.clone()
+                }
+                Some(e) if e.figures.is_none() => continue,
+                _ => pc.evaluate_outer(&r.point, false),
             };
             figures.extend(e.figures.map(|fig| (r.point.ratio as f64, fig)));
         }

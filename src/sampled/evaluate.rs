@@ -157,6 +157,11 @@ pub struct Figures {
     /// recommended rate); a sweep leaves it unsearched (its cost grows
     /// with the delay in periods) and reports the estimate.
     pub delay_margin_searched: bool,
+    /// Keys of the time figures not computed (`Wanted`: a verdict reads
+    /// only what its spec limits): neither a value nor a missing figure's
+    /// meaning. Empty (and not serialized) for every full evaluation.
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub not_computed: Vec<&'static str>,
     /// Why a loop figure is missing when it was not located (|L| = 1 over
     /// an interval, a crossing exactly at an end, a delay margin beyond the
     /// search); empty otherwise.
@@ -222,6 +227,13 @@ impl Figures {
             horizon_s: step.horizon_s,
             loop_notes: freq.notes.clone(),
             delay_margin_searched: false,
+            not_computed: (step.not_computed.iter().copied())
+                .chain(
+                    ["disturbance_peak", "recovery_time_s"]
+                        .into_iter()
+                        .filter(|_| !dist.computed),
+                )
+                .collect(),
             undecided: step
                 .undecided
                 .iter()
@@ -235,6 +247,11 @@ impl Figures {
     /// decided.
     pub fn is_undecided(&self, key: &str) -> bool {
         self.undecided.contains(&key)
+    }
+
+    /// True when the figure `key` was not computed (`not_computed`).
+    pub fn is_not_computed(&self, key: &str) -> bool {
+        self.not_computed.contains(&key)
     }
 }
 

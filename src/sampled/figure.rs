@@ -14,6 +14,7 @@ use serde::{Serialize, Serializer};
 use crate::engineering::{hz, seconds, sig4};
 use crate::model::rounding::StructuralFailure;
 use crate::sampled::evaluate::Figures;
+use crate::sampled::stretch::Wanted;
 use crate::spec::Spec;
 
 /// One figure of an evaluated loop.
@@ -117,6 +118,9 @@ pub enum Missing {
     /// Neither the bound at the end of the horizon nor the bounded search
     /// work could decide the figure (`Figures::undecided`); fails a limit.
     Undecided,
+    /// Not computed: no limit reads it where it was left out
+    /// (`Figures::not_computed`).
+    NotComputed,
 }
 
 impl Missing {
@@ -133,6 +137,7 @@ impl Missing {
             Missing::NotSearched => "not searched",
             Missing::NotLocated => "not located",
             Missing::Undecided => "undecided",
+            Missing::NotComputed => "not computed",
         }
     }
 
@@ -307,7 +312,7 @@ impl Figure {
     /// The figure's value in `f`; None when it does not exist or could
     /// not be decided (see [`Figure::missing`]).
     pub fn value(self, f: &Figures) -> Option<f64> {
-        if f.is_undecided(self.key()) {
+        if f.is_undecided(self.key()) || f.is_not_computed(self.key()) {
             return None;
         }
         match self {
@@ -339,6 +344,9 @@ impl Figure {
 
     /// What the figure's absence in `f` means.
     pub fn missing(self, f: &Figures) -> Missing {
+        if f.is_not_computed(self.key()) {
+            return Missing::NotComputed;
+        }
         if f.is_undecided(self.key()) {
             return Missing::Undecided;
         }
@@ -544,6 +552,20 @@ impl std::fmt::Display for Limiting {
 impl Serialize for Limiting {
     fn serialize<S: Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
         s.serialize_str(self.key())
+    }
+}
+
+impl Wanted {
+    /// The time figures `spec` limits: what a verdict reads.
+    pub fn limited_by(spec: &Spec) -> Wanted {
+        let limited = |f: Figure| f.limit(spec).is_some();
+        Wanted {
+            overshoot: limited(Figure::Overshoot),
+            rise: limited(Figure::RiseTime),
+            settling: limited(Figure::SettlingTime),
+            u_peak: limited(Figure::CommandPeak),
+            load_step: limited(Figure::DisturbancePeak) || limited(Figure::RecoveryTime),
+        }
     }
 }
 

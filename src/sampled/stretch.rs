@@ -1392,6 +1392,49 @@ pub struct StepResult {
     pub settled_since: Instant,
 }
 
+/// The time figures an evaluation computes. A verdict reads only those its
+/// spec limits (`Wanted::limited_by`, from the figure catalogue); a figure left out is `not
+/// computed` (neither a value nor a missing figure's meaning), and its
+/// search or simulation is not run.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Wanted {
+    /// The step's peak (overshoot).
+    pub overshoot: bool,
+    /// The 10 and 90 % crossings (rise time).
+    pub rise: bool,
+    /// The last exit from the settling band (settling time).
+    pub settling: bool,
+    /// The command's peak.
+    pub u_peak: bool,
+    /// The load step (its peak and recovery).
+    pub load_step: bool,
+}
+
+impl Wanted {
+    /// Every time figure.
+    pub const ALL: Wanted = Wanted {
+        overshoot: true,
+        rise: true,
+        settling: true,
+        u_peak: true,
+        load_step: true,
+    };
+
+    /// Keys of the step figures left out.
+    pub(crate) fn step_left_out(&self) -> Vec<&'static str> {
+        [
+            (self.overshoot, "overshoot_pct"),
+            (self.settling, "settling_time_s"),
+            (self.rise, "rise_time_s"),
+            (self.u_peak, "u_peak"),
+        ]
+        .into_iter()
+        .filter(|(wanted, _)| !wanted)
+        .map(|(_, key)| key)
+        .collect()
+    }
+}
+
 /// An instant a search found, or why there is none.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub enum Instant {
@@ -1413,7 +1456,16 @@ pub struct DisturbanceResult {
 impl<'a> Stretches<'a> {
     /// The step figures' raw results (`y_final` and the band as the walk's
     /// `StepMetrics` uses them).
-    pub fn step(&self, z_end: &DVector<f64>, y_final: f64, u_final: f64, band: f64) -> StepResult {
+    /// Searches only for what `wanted` asks (a figure left out reads as
+    /// decided: 0 for a peak, `Nowhere` for an instant).
+    pub fn step(
+        &self,
+        z_end: &DVector<f64>,
+        y_final: f64,
+        u_final: f64,
+        band: f64,
+        wanted: &Wanted,
+    ) -> StepResult {
         let run = Run::new(self, z_end, 1.0, 0.0);
         let yf = y_final;
         let band_abs = band * yf.abs();
@@ -1421,7 +1473,7 @@ impl<'a> Stretches<'a> {
         let scale_y = yf.abs().max(run.y_end.abs());
         // The output's peak search is where the parabola pays (`Slope`).
         run.bend.set(true);
-        let (peak_dev, peak_decided) = if yf != 0.0 {
+        let (peak_dev, peak_decided) = if yf != 0.0 && wanted.overshoot {
             let tol = 16.0 * run.y_floor + 1e-12 * scale_y;
             run.max_search(
                 0.0,
@@ -1442,23 +1494,26 @@ impl<'a> Stretches<'a> {
         // nodes are compared with the larger of the two.
         let uf = u_final.abs();
         let tol_u = 16.0 * run.u_floor + 1e-12 * uf.max(run.u_end.abs());
-        let (u_peak, u_decided) = run.max_search(
-            uf,
-            tol_u,
-            |b| b.u_lo.abs().max(b.u_hi.abs()),
-            false,
-            |leaf, best| {
-                for u in run.commands(leaf) {
-                    *best = best.max(u.abs());
-                }
-            },
-        );
-        let (t10, t90) = if yf != 0.0 {
+        let (u_peak, u_decided) = match wanted.u_peak {
+            true => run.max_search(
+                uf,
+                tol_u,
+                |b| b.u_lo.abs().max(b.u_hi.abs()),
+                false,
+                |leaf, best| {
+                    for u in run.commands(leaf) {
+                        *best = best.max(u.abs());
+                    }
+                },
+            ),
+            false => (uf, true),
+        };
+        let (t10, t90) = if yf != 0.0 && wanted.rise {
             (run.rise_crossing(yf, 0.1), run.rise_crossing(yf, 0.9))
         } else {
             (Instant::Nowhere, Instant::Nowhere)
         };
-        let settled_since = if yf != 0.0 {
+        let settled_since = if yf != 0.0 && wanted.settling {
             let maybe = |b: &Bound| !(b.y_lo >= yf - band_abs && b.y_hi <= yf + band_abs);
             let hit = |leaf: &Leaf| leaf.ys.iter().rposition(|&y| (y - yf).abs() > band_abs);
             match run.ordered_search(false, &maybe, &hit) {

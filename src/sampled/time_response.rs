@@ -10,6 +10,7 @@ use crate::sampled::certificate::Certificate;
 use crate::sampled::closed_loop::ClosedLoop;
 use crate::sampled::hold::HoldEquivalent;
 use crate::sampled::output_map::{OutputMap, ROUNDING_MARGIN, crossing, mat_vec};
+pub use crate::sampled::stretch::Wanted;
 use crate::sampled::stretch::{Instant, Stretches};
 
 /// The remaining transient must fall below this fraction of its start
@@ -34,6 +35,10 @@ pub struct TimeOptions {
     /// they leave open is undecided at once), as the continuous figures'
     /// first, finer grid does.
     pub walk_budget: u64,
+    /// The time figures to compute: all of them, except where only a
+    /// verdict is read (a cascade pick's outer pairs, `docs/figures.md`,
+    /// "Cascaded loops").
+    pub wanted: Wanted,
 }
 
 impl Default for TimeOptions {
@@ -43,6 +48,7 @@ impl Default for TimeOptions {
             band: 0.02,
             max_steps: 200_000,
             walk_budget: WALK_BUDGET,
+            wanted: Wanted::ALL,
         }
     }
 }
@@ -71,6 +77,10 @@ pub struct StepFigures {
     /// cap). Such a figure's value is absent (or, for `u_peak`, only a
     /// lower bound).
     pub undecided: Vec<&'static str>,
+    /// Keys of the figures not computed (`Wanted`): their fields are
+    /// placeholders, read through the figure catalogue as `not computed`.
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub not_computed: Vec<&'static str>,
 }
 
 /// Figures of the unit load-disturbance step at the plant input.
@@ -83,6 +93,23 @@ pub struct DisturbanceFigures {
     /// Keys of the figures (`disturbance_peak`, `recovery_time_s`) that
     /// could not be decided (see `StepFigures::undecided`).
     pub undecided: Vec<&'static str>,
+    /// False when the load step was not simulated (`Wanted::load_step`):
+    /// the peak and recovery are then not computed, neither values nor
+    /// "not recovered".
+    pub computed: bool,
+}
+
+impl DisturbanceFigures {
+    /// The load step left out (`Wanted::load_step` false).
+    pub fn not_computed(yd_final: f64) -> Self {
+        DisturbanceFigures {
+            disturbance_peak: 0.0,
+            yd_final,
+            recovery_time_s: None,
+            undecided: Vec::new(),
+            computed: false,
+        }
+    }
 }
 
 /// One output point of a response, for traces and charts.
@@ -207,6 +234,7 @@ impl StepMetrics {
                 self.u_peak
             },
             horizon_s,
+            not_computed: Vec::new(),
             undecided: if capped {
                 vec!["overshoot_pct", "settling_time_s", "rise_time_s", "u_peak"]
             } else {
@@ -876,7 +904,13 @@ fn figures_on(
         Instant::At(t) => Some(t),
         _ => None,
     };
-    let s = jumps.step(&ends.zr, ends.y_final, ends.u_final, opts.band);
+    let s = jumps.step(
+        &ends.zr,
+        ends.y_final,
+        ends.u_final,
+        opts.band,
+        &opts.wanted,
+    );
     let step_open = !s.peak_decided
         || !s.u_decided
         || [s.t10, s.t90, s.settled_since].contains(&Instant::Undecided);
@@ -896,13 +930,18 @@ fn figures_on(
             u_peak: s.u_peak,
             horizon_s,
             undecided: Vec::new(),
+            not_computed: opts.wanted.step_left_out(),
         }
     };
+    if !opts.wanted.load_step {
+        return (step, DisturbanceFigures::not_computed(ends.yd_final));
+    }
     let d = jumps.disturbance(&ends.zw, ends.yd_final, opts.band);
     let dist = if !d.peak_decided || d.since == Instant::Undecided {
         walk_disturbance(cl, map, t, periods, &ends, cert, opts)
     } else {
         DisturbanceFigures {
+            computed: true,
             disturbance_peak: d.peak,
             yd_final: ends.yd_final,
             recovery_time_s: at(d.since),
@@ -998,6 +1037,7 @@ fn walk_disturbance(
         undecided.push("recovery_time_s");
     }
     DisturbanceFigures {
+        computed: true,
         disturbance_peak: peak.peak,
         yd_final: ends.yd_final,
         recovery_time_s: if undecided.contains(&"recovery_time_s") {
@@ -1087,6 +1127,7 @@ pub fn walked_figures(
     Ok((
         step,
         DisturbanceFigures {
+            computed: true,
             disturbance_peak: peak.peak,
             yd_final: ends.yd_final,
             recovery_time_s: rec.since,
@@ -1141,6 +1182,7 @@ pub fn continuous_metrics(
     (
         m.finish(steps as f64 * h, capped),
         DisturbanceFigures {
+            computed: true,
             disturbance_peak: peak,
             yd_final,
             recovery_time_s: rec.since,

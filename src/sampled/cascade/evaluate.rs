@@ -30,7 +30,7 @@ use crate::sampled::figure::{Figure, Limiting, Missing};
 use crate::sampled::frequency::{FrequencyRange, LoopFigures, loop_figures};
 use crate::sampled::hold::HoldEquivalent;
 use crate::sampled::time_response::{
-    TimeOptions, TracePoint, horizon_steps, sampled_figures, sampled_trace,
+    TimeOptions, TracePoint, Wanted, horizon_steps, sampled_figures, sampled_trace,
 };
 use crate::spec::{HoldKind, Spec};
 use nalgebra::DVector;
@@ -557,7 +557,11 @@ impl PreparedCascade {
     /// (`inner_closed` with the outer loop's points per period). With
     /// `screen_on_spec`, the loop figures come first and a failing limit on
     /// one of them ends the evaluation there (the time responses are not
-    /// computed).
+    /// computed), and a pair that gets that far simulates its load step
+    /// only when the spec limits its peak or recovery (else those two
+    /// figures are `not computed`: nothing in a pick reads them but the
+    /// verdict, and the chosen and recommended pairs are evaluated again
+    /// in full).
     pub fn evaluate_outer_on(
         &self,
         inner: &InnerClosed,
@@ -620,7 +624,11 @@ impl PreparedCascade {
         {
             return OuterOutcome::FailsLoopFigures(a);
         }
-        let (step, dist) = match sampled_figures(&cl, &lifted, &poles, &self.outer_time) {
+        let opts = TimeOptions {
+            wanted: screen_on_spec.map_or(Wanted::ALL, Wanted::limited_by),
+            ..self.outer_time
+        };
+        let (step, dist) = match sampled_figures(&cl, &lifted, &poles, &opts) {
             Ok(v) => v,
             Err(e) => return fail(&e),
         };
