@@ -11,6 +11,7 @@ use looprate::case::Case;
 use looprate::explore::pick::{case_methods, prepare};
 use looprate::model::poly::Poly;
 use looprate::model::transfer::{Controller, Transfer};
+use looprate::sampled::cascade::lift::Rows;
 use looprate::sampled::closed_loop::{ClosedLoop, Stability};
 use looprate::sampled::evaluate::{Point, PreparedLoop};
 use looprate::sampled::time_response::{
@@ -208,7 +209,7 @@ fn the_lifted_cascade_loop_matches_the_full_walk() {
             outer_hold,
             outer_delay: 0.5,
         };
-        let (_, lifted, _, cl) = pc.outer_loop(&p, true).unwrap();
+        let (_, lifted, _, cl) = pc.outer_loop(&p, Rows::All).unwrap();
         let poles = cl.poles().unwrap();
         assert_eq!(ClosedLoop::stability(&poles), Stability::Stable);
         let periods = horizon_periods(&poles, cl.a.nrows());

@@ -16,7 +16,7 @@ use crate::model::discretize::Method;
 use crate::model::matrix::ModelError;
 use crate::model::poly::C64;
 use crate::model::transfer::{Controller, DiscreteTransfer};
-use crate::sampled::cascade::lift::{CombinedPlant, InnerClosed, LiftError, combined_plant};
+use crate::sampled::cascade::lift::{CombinedPlant, InnerClosed, LiftError, Rows, combined_plant};
 use crate::sampled::closed_loop::{ClosedLoop, LoopError, Stability};
 use crate::sampled::delay_margin::{
     DelayMargin, DelayScan, FirstUnstable, MAX_DELAY_PERIODS, crossing_seeds, first_unstable,
@@ -425,7 +425,7 @@ impl PreparedCascade {
     pub fn outer_loop(
         &self,
         p: &CascadePoint,
-        rows: bool,
+        rows: Rows,
     ) -> Result<(InnerClosed, HoldEquivalent, DiscreteTransfer, ClosedLoop), CascadeError> {
         let c = self.controllers(p);
         let (inner, lifted, cl) = self.outer_loop_with(p, &c, rows)?;
@@ -437,7 +437,7 @@ impl PreparedCascade {
         &self,
         p: &CascadePoint,
         c: &PairControllers,
-        rows: bool,
+        rows: Rows,
     ) -> Result<(InnerClosed, HoldEquivalent, ClosedLoop), CascadeError> {
         let inner_c = (c.inner.as_ref()).map_err(|e| CascadeError::InnerController(e.clone()))?;
         let inner = self.inner_closed_around(p, inner_c, self.outer_time.points_per_period)?;
@@ -454,7 +454,7 @@ impl PreparedCascade {
         inner: &InnerClosed,
         p: &CascadePoint,
         c: &DiscreteTransfer,
-        rows: bool,
+        rows: Rows,
     ) -> Result<(HoldEquivalent, ClosedLoop), CascadeError> {
         let ticks = InnerClosed::delay_ticks(p.ratio, p.outer_delay);
         let lifted = inner.lifted(p.ratio, ticks, p.outer_hold, rows);
@@ -484,7 +484,7 @@ impl PreparedCascade {
         p: &CascadePoint,
         c: &DiscreteTransfer,
     ) -> Option<Evaluation> {
-        let cl = match self.outer_loop_on(inner, p, c, false) {
+        let cl = match self.outer_loop_on(inner, p, c, Rows::None) {
             Ok((_, cl)) => cl,
             Err(e) => return Some(Evaluation::error(e)),
         };
@@ -576,7 +576,14 @@ impl PreparedCascade {
             Ok(c) => c,
             Err(e) => return fail(e),
         };
-        let (lifted, cl) = match self.outer_loop_on(inner, p, c, true) {
+        // The search first needs only the poles and the short simulation
+        // (rows at the inner samples); every row is built once a pair
+        // gets past them (the same rows, built the same way).
+        let rows = match screen_on_spec {
+            Some(_) => Rows::Samples,
+            None => Rows::All,
+        };
+        let (lifted, cl) = match self.outer_loop_on(inner, p, c, rows) {
             Ok(v) => v,
             Err(e) => return fail(&e),
         };
@@ -606,7 +613,10 @@ impl PreparedCascade {
                 &poles,
                 spec,
                 self.outer_time.band,
-                inner.hold.intersample.len(),
+                match rows {
+                    Rows::All => inner.hold.intersample.len(),
+                    Rows::Samples | Rows::None => 1,
+                },
             )
         {
             return OuterOutcome::FailsSimulation(a);
@@ -627,6 +637,13 @@ impl PreparedCascade {
         let opts = TimeOptions {
             wanted: screen_on_spec.map_or(Wanted::ALL, Wanted::limited_by),
             ..self.outer_time
+        };
+        let lifted = match rows {
+            Rows::All => lifted,
+            Rows::Samples | Rows::None => {
+                let ticks = InnerClosed::delay_ticks(p.ratio, p.outer_delay);
+                inner.lifted(p.ratio, ticks, p.outer_hold, Rows::All)
+            }
         };
         let (step, dist) = match sampled_figures(&cl, &lifted, &poles, &opts) {
             Ok(v) => v,
@@ -683,7 +700,7 @@ impl PreparedCascade {
         let max_ticks = (MAX_DELAY_PERIODS * n as f64) as usize;
         // Extra ticks past the outer delay's own.
         let radius_at = |extra: f64| -> Result<f64, LoopError> {
-            let lifted = inner.lifted(n, start + extra as usize, p.outer_hold, false);
+            let lifted = inner.lifted(n, start + extra as usize, p.outer_hold, Rows::None);
             let cl = ClosedLoop::new(&lifted, c).map_err(LoopError::ClosingLoop)?;
             let poles = cl.poles().map_err(LoopError::Poles)?;
             Ok(poles.iter().map(|p| p.norm()).fold(0.0, f64::max))
@@ -727,7 +744,7 @@ impl PreparedCascade {
         c: &PairControllers,
         periods: Option<usize>,
     ) -> Result<(Vec<TracePoint>, Vec<TracePoint>), CascadeError> {
-        let (_, lifted, cl) = self.outer_loop_with(p, c, true)?;
+        let (_, lifted, cl) = self.outer_loop_with(p, c, Rows::All)?;
         let poles = cl.poles().map_err(LoopError::Poles)?;
         let rho = poles.iter().map(|p| p.norm()).fold(0.0, f64::max);
         let n = periods.unwrap_or_else(|| {

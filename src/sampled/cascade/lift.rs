@@ -163,6 +163,20 @@ fn pad(v: &DVector<f64>, dim: usize) -> DVector<f64> {
     out
 }
 
+/// The output rows a lifted loop carries (`InnerClosed::lifted`): each
+/// row is the outer plant output at one point of the outer period, built
+/// the same way whichever set is asked for.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Rows {
+    /// None: the loop's poles and loop gain need no rows.
+    None,
+    /// One a tick, at each inner sample instant (the search's short
+    /// simulation reads only these).
+    Samples,
+    /// Every point between inner samples too (the time figures).
+    All,
+}
+
 impl InnerClosed {
     /// Close the inner loop around `controller` at `period_s` with the
     /// inner loop's actuation `act`, `points` output points per period.
@@ -219,8 +233,8 @@ impl InnerClosed {
     /// The outer loop's plant over one outer period of `ratio` inner ticks,
     /// the outer command reaching the inner reference `ticks` inner ticks
     /// after its update and shaped there by the outer hold `hold`: a hold
-    /// equivalent at the outer period. With `rows`, the outer plant output
-    /// at every inner point of the period.
+    /// equivalent at the outer period, with the output rows `rows` asks
+    /// for.
     ///
     /// The inner loop reads its reference only at its ticks, so a ramped
     /// outer hold is its ramp evaluated there: at the `j`-th inner tick
@@ -229,7 +243,7 @@ impl InnerClosed {
     /// (interpolating); when a ramp of the previous update is still running
     /// at the outer sample, `v_{k-2}` becomes a state (`docs/figures.md`,
     /// "Cascaded loops").
-    pub fn lifted(&self, ratio: usize, ticks: usize, hold: HoldKind, rows: bool) -> HoldEquivalent {
+    pub fn lifted(&self, ratio: usize, ticks: usize, hold: HoldKind, rows: Rows) -> HoldEquivalent {
         let n = ratio;
         // Whole outer periods as unit delays of the outer command, the
         // rest inside the period (as `hold::split_delay`: s in (0, N] once
@@ -243,7 +257,11 @@ impl InnerClosed {
         let cl = &self.cl;
         let dim = cl.a.nrows();
         let nx = self.hold.phi.nrows();
-        let np = if rows { self.hold.intersample.len() } else { 0 };
+        let np = match rows {
+            Rows::None => 0,
+            Rows::Samples => self.hold.intersample.len().min(1),
+            Rows::All => self.hold.intersample.len(),
+        };
         // The reference at each inner tick of the period as coefficients of
         // (v_k, v_{k-1}, v_{k-2}): before tick s the previous update's ramp,
         // N - s + i ticks into it; from tick s on the new one's.
