@@ -116,6 +116,15 @@ pub enum OuterOutcome {
 /// full evaluation. Past it nothing is concluded.
 pub const SCREEN_PERIODS: usize = 512;
 
+/// The search's short simulation also stops once its state has come within
+/// this fraction of the end state (`|z_k - z_end| <= SCREEN_QUIET |z_end|`,
+/// Euclidean) and the settling limit, if any, has passed: the response has
+/// been through its peaks, and what is left can break a limit only through a
+/// transient growth the full figures see. Stopping concludes nothing (the
+/// full figures decide), so it changes no verdict, only where the screen
+/// gives up (`docs/figures.md`, "Cascaded loops").
+pub const SCREEN_QUIET: f64 = 1e-3;
+
 /// Why a cascade could not be prepared, or its loops at a point could not
 /// be built (the text is then the reason its grid row carries).
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
@@ -264,6 +273,7 @@ pub fn simulated_limits_fail(
     let scale = y_final.abs();
     let sign = y_final.signum();
     let t = lifted.period_s;
+    let quiet = SCREEN_QUIET * zr.norm();
     let mut z = DVector::<f64>::zeros(dim);
     let mut next = DVector::<f64>::zeros(dim);
     let (mut os_seen, mut late_out, mut u_seen) = (0.0_f64, 0.0_f64, 0.0_f64);
@@ -288,6 +298,10 @@ pub fn simulated_limits_fail(
         std::mem::swap(&mut z, &mut next);
         if !z.iter().all(|v| v.is_finite()) {
             return None;
+        }
+        let settling_passed = ts_limit.is_none_or(|l| (k + 1) as f64 * t > l);
+        if settling_passed && z.metric_distance(&zr) <= quiet {
+            break;
         }
     }
     let values = [

@@ -15,6 +15,8 @@
 //! simulation with points between samples, the loop gain) then works on it
 //! unchanged (`docs/figures.md`, "Cascaded loops").
 
+use std::sync::Mutex;
+
 use nalgebra::{DMatrix, DVector};
 
 use crate::model::matrix::{ModelError, hold_integrals};
@@ -102,7 +104,7 @@ pub fn combined_plant(
 
 /// The inner loop closed at its rate on the whole plant, its load column
 /// being the outer load.
-#[derive(Debug, Clone)]
+#[derive(Debug)]
 pub struct InnerClosed {
     /// The inner hold equivalent of the whole plant (rows between samples:
     /// the outer plant output; load: the outer load).
@@ -114,6 +116,10 @@ pub struct InnerClosed {
     /// The inner closed loop's poles mapped to s (`ln z / T`, rad/s; the
     /// outer frequency grid is dense around them).
     pub poles_s: Vec<crate::model::poly::C64>,
+    /// `A^j` of the inner closed loop, j = 0, 1, ..., as far as a lift has
+    /// asked: each the product `A A^(j-1)`, the same sequence whichever
+    /// ratio asks first, kept for the next ratio at this inner rate.
+    powers: Mutex<Vec<DMatrix<f64>>>,
 }
 
 /// `integral_0^s e^{A r} dr b` at each row's offset `s`. The rows of a
@@ -218,6 +224,7 @@ impl InnerClosed {
             outer_measured: pad(&plant.c_outer_measured, dim),
             d_load_measured: plant.d_load_measured,
             hold,
+            powers: Mutex::new(vec![DMatrix::identity(dim, dim)]),
             cl,
         })
     }
@@ -297,7 +304,12 @@ impl InnerClosed {
                 *p += &cl.br * c;
             }
         };
-        let mut m = DMatrix::<f64>::identity(dim, dim);
+        // A^0 .. A^n, each power computed once per inner rate.
+        let mut powers = self.powers.lock().unwrap_or_else(|e| e.into_inner());
+        while powers.len() <= n {
+            let next = &cl.a * powers.last().expect("starts with A^0");
+            powers.push(next);
+        }
         let mut p1 = DVector::<f64>::zeros(dim);
         let mut p0 = DVector::<f64>::zeros(dim);
         let mut p2 = DVector::<f64>::zeros(if k == 1 { dim } else { 0 });
@@ -334,13 +346,12 @@ impl InnerClosed {
                 };
                 intersample.push(IntersampleRow {
                     offset_s: j as f64 * self.hold.period_s + offset,
-                    ey: widen(m.tr_mul(g), held2),
+                    ey: widen(powers[j].tr_mul(g), held2),
                     cu1: g.dot(&p1) + part(*hr, c[1]),
                     cu0: g.dot(&p0) + part(*hr, c[0]),
                     cw: g.dot(&q) + hw,
                 });
             }
-            m = &cl.a * &m;
             p1 = &cl.a * &p1;
             p0 = &cl.a * &p0;
             q = &cl.a * &q + &cl.bw;
@@ -351,11 +362,12 @@ impl InnerClosed {
             add_input(&mut p1, c[1]);
             add_input(&mut p0, c[0]);
         }
+        let m = &powers[n];
         let phi = if k == 0 {
-            m
+            m.clone()
         } else {
             let mut phi = DMatrix::zeros(dim + 1, dim + 1);
-            phi.view_mut((0, 0), (dim, dim)).copy_from(&m);
+            phi.view_mut((0, 0), (dim, dim)).copy_from(m);
             phi.view_mut((0, dim), (dim, 1)).copy_from(&p2);
             phi
         };
