@@ -776,26 +776,39 @@ fn search_screens_agree_with_the_full_figures() {
 #[test]
 fn pairs_the_search_evaluates_carry_the_full_evaluations_figures() {
     use looprate::sampled::figure::{Figure, Missing};
+    use looprate::sampled::time_response::Wanted;
     let (text, c, pc) = small_demo();
     // The demo's outer spec limits overshoot and the margins only; the
     // second run limits every time figure too (limits loose enough to
-    // keep passing pairs).
+    // keep passing pairs); the third limits settling and the command peak
+    // but not the overshoot, whose search then still runs (the others
+    // reuse its bounds).
     let limited = text.replace(
         "[outer.spec]\n",
         "[outer.spec]\nmax_settling_s = 10\nmax_rise_s = 10\nmax_u_peak = 1e6\nmax_disturbance_peak = 1e6\nmax_recovery_s = 10\n",
     );
     assert_ne!(limited, text);
     let (cl, pcl) = cascade(&limited);
-    let time = [
-        Figure::Overshoot,
-        Figure::SettlingTime,
-        Figure::RiseTime,
-        Figure::CommandPeak,
-        Figure::DisturbancePeak,
-        Figure::RecoveryTime,
-    ];
-    for (case, prepared, all_limited) in [(&c, &pc, false), (&cl, &pcl, true)] {
+    let no_overshoot = text.replace(
+        "[outer.spec]\nmax_overshoot_pct = 20\n",
+        "[outer.spec]\nmax_settling_s = 10\nmax_u_peak = 1e6\n",
+    );
+    assert_ne!(no_overshoot, text);
+    let (co, pco) = cascade(&no_overshoot);
+    for (case, prepared, all_limited) in [(&c, &pc, false), (&cl, &pcl, true), (&co, &pco, false)] {
         let spec = &case.outer.as_ref().unwrap().spec;
+        let w = Wanted::limited_by(spec);
+        let wanted = |fig: Figure| match fig {
+            Figure::Overshoot => w.overshoot,
+            Figure::SettlingTime => w.settling,
+            Figure::RiseTime => w.rise,
+            Figure::CommandPeak => w.u_peak,
+            Figure::DisturbancePeak | Figure::RecoveryTime => w.load_step,
+            _ => true,
+        };
+        if spec.max_overshoot_pct.is_none() {
+            assert!(w.overshoot && w.settling && !w.rise && !w.load_step);
+        }
         let mut compared = 0;
         for r in cascade_rows(case, prepared, false) {
             let Some(outer) = r.outer.as_ref().filter(|_| !r.screened) else {
@@ -807,7 +820,7 @@ fn pairs_the_search_evaluates_carry_the_full_evaluations_figures() {
                 full.figures.as_ref().unwrap(),
             );
             for fig in Figure::ALL {
-                let left_out = time.contains(&fig) && fig.limit(spec).is_none();
+                let left_out = !wanted(fig);
                 if left_out {
                     assert_eq!(fig.value(f), None, "{fig:?} {:?}", r.point);
                     assert_eq!(fig.missing(f), Missing::NotComputed);

@@ -694,8 +694,10 @@ pub struct CascadePick {
     pub recommended: Option<RecommendedPair>,
     pub window_hz: Option<[f64; 2]>,
     pub window: Option<CascadeWindow>,
-    /// Rows evaluated in full, judged before their time responses (poles,
-    /// or a failing loop figure), not evaluated.
+    /// Rows evaluated past the screens (every loop figure, the time
+    /// figures the outer spec limits), judged before their time responses
+    /// (poles, the short simulation or a failing loop figure), not
+    /// evaluated.
     pub evaluated: usize,
     pub screened: usize,
     pub not_evaluated: usize,
@@ -831,6 +833,14 @@ pub fn cascade_pick(case: &Case, pc: &PreparedCascade, rows: &[CascadeRow]) -> C
         advice = cascade_advice(case, rows, cheapest_passing, max_load);
     }
     let mut notes = Vec::new();
+    if let Some(c) = &chosen
+        && !(c.inner_verdict.feasible && c.outer_verdict.feasible)
+    {
+        // The search judged the pair on the figures its spec limits; the
+        // full evaluation can differ where a search it alone runs falls
+        // back to the walk (`docs/figures.md`, "Cascaded loops").
+        notes.push("the chosen pair passed the search but its full evaluation fails a spec (see its verdicts): check the pairs around it".into());
+    }
     if !outer.inner_spec_given {
         notes.push(
             "the case has no [spec] for the inner loop: it is checked for stability only".into(),

@@ -556,14 +556,23 @@ impl Serialize for Limiting {
 }
 
 impl Wanted {
-    /// The time figures `spec` limits: what a verdict reads.
+    /// The time figures `spec` limits: what a verdict reads. The step's
+    /// peak search runs whenever another step search does, limited or
+    /// not: it runs first and the later searches reuse the bounds it
+    /// leaves (`stretch::Run::nodes`, tighter for its parabola), so the
+    /// figures computed are the full evaluation's own numbers.
     pub fn limited_by(spec: &Spec) -> Wanted {
         let limited = |f: Figure| f.limit(spec).is_some();
+        let (rise, settling, u_peak) = (
+            limited(Figure::RiseTime),
+            limited(Figure::SettlingTime),
+            limited(Figure::CommandPeak),
+        );
         Wanted {
-            overshoot: limited(Figure::Overshoot),
-            rise: limited(Figure::RiseTime),
-            settling: limited(Figure::SettlingTime),
-            u_peak: limited(Figure::CommandPeak),
+            overshoot: limited(Figure::Overshoot) || rise || settling || u_peak,
+            rise,
+            settling,
+            u_peak,
             load_step: limited(Figure::DisturbancePeak) || limited(Figure::RecoveryTime),
         }
     }

@@ -651,9 +651,13 @@ struct Run<'s, 'a> {
     dz_tail: Vec<f64>,
     /// The nodes already bounded, by (first period, level): every search
     /// of a response descends the same tree from the same root, so a node's
-    /// state error and bound are the same numbers whichever search reaches
-    /// it first (they are computed once; the step's five searches share
-    /// the top of the tree). The tail under `TAIL_KEY`.
+    /// state error is the same numbers whichever search reaches it first
+    /// (computed once; the step's five searches share the top of the
+    /// tree). Its bound carries the parabola when the output's peak search
+    /// made it (`bend`), so the later searches read bounds that depend on
+    /// the peak search having run first: `Wanted::limited_by` keeps it
+    /// running whenever another step search does. The tail under
+    /// `TAIL_KEY`.
     nodes: RefCell<HashMap<(u64, usize), Node, BuildHasherDefault<NodeHasher>>>,
     /// The periods already looked at point by point, by period: a leaf's
     /// state error is its tree node's (`nodes`, one path from the root), so

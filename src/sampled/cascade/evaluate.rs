@@ -118,12 +118,20 @@ pub const SCREEN_PERIODS: usize = 512;
 
 /// The search's short simulation also stops once its state has come within
 /// this fraction of the end state (`|z_k - z_end| <= SCREEN_QUIET |z_end|`,
-/// Euclidean) and the settling limit, if any, has passed: the response has
-/// been through its peaks, and what is left can break a limit only through a
-/// transient growth the full figures see. Stopping concludes nothing (the
-/// full figures decide), so it changes no verdict, only where the screen
-/// gives up (`docs/figures.md`, "Cascaded loops").
+/// Euclidean, a measure of the whole state) and the settling limit, if any,
+/// has passed: what is left of the response is small, and a limit it still
+/// breaks is found by the full figures. Stopping concludes nothing, so it
+/// changes no verdict, only whether a pair failing late carries the
+/// screen's bound or its full figures (`docs/figures.md`, "Cascaded
+/// loops").
 pub const SCREEN_QUIET: f64 = 1e-3;
+
+/// The lifted outer loop's plant at point `p`: the ratio, the outer
+/// delay in inner ticks and the outer hold of `p` (`InnerClosed::lifted`).
+fn lift(inner: &InnerClosed, p: &CascadePoint, rows: Rows) -> HoldEquivalent {
+    let ticks = InnerClosed::delay_ticks(p.ratio, p.outer_delay);
+    inner.lifted(p.ratio, ticks, p.outer_hold, rows)
+}
 
 /// Why a cascade could not be prepared, or its loops at a point could not
 /// be built (the text is then the reason its grid row carries).
@@ -435,7 +443,8 @@ impl PreparedCascade {
     }
 
     /// The lifted outer loop at a point (its hold equivalent, controller
-    /// and closed loop); `rows` adds the points between samples.
+    /// and closed loop); `rows` says which output points a period the
+    /// lifted model carries (`Rows`).
     pub fn outer_loop(
         &self,
         p: &CascadePoint,
@@ -470,8 +479,7 @@ impl PreparedCascade {
         c: &DiscreteTransfer,
         rows: Rows,
     ) -> Result<(HoldEquivalent, ClosedLoop), CascadeError> {
-        let ticks = InnerClosed::delay_ticks(p.ratio, p.outer_delay);
-        let lifted = inner.lifted(p.ratio, ticks, p.outer_hold, rows);
+        let lifted = lift(inner, p, rows);
         let cl = ClosedLoop::new(&lifted, c).map_err(CascadeError::ClosingOuter)?;
         Ok((lifted, cl))
     }
@@ -569,13 +577,13 @@ impl PreparedCascade {
 
     /// The outer loop's figures on an inner loop already closed
     /// (`inner_closed` with the outer loop's points per period). With
-    /// `screen_on_spec`, the loop figures come first and a failing limit on
-    /// one of them ends the evaluation there (the time responses are not
-    /// computed), and a pair that gets that far simulates its load step
-    /// only when the spec limits its peak or recovery (else those two
-    /// figures are `not computed`: nothing in a pick reads them but the
-    /// verdict, and the chosen and recommended pairs are evaluated again
-    /// in full).
+    /// `screen_on_spec`, the poles and the short simulation
+    /// (`simulated_limits_fail`) come first, then the loop figures, and a
+    /// failing limit on either ends the evaluation there (the time
+    /// responses are not computed); a pair that gets that far computes only
+    /// the time figures the spec limits (`Wanted::limited_by`; the others
+    /// are `not computed`: nothing in a pick reads them but the verdict,
+    /// and the chosen and recommended pairs are evaluated again in full).
     pub fn evaluate_outer_on(
         &self,
         inner: &InnerClosed,
@@ -627,10 +635,7 @@ impl PreparedCascade {
                 &poles,
                 spec,
                 self.outer_time.band,
-                match rows {
-                    Rows::All => inner.hold.intersample.len(),
-                    Rows::Samples | Rows::None => 1,
-                },
+                rows.per_tick(inner.hold.intersample.len()),
             )
         {
             return OuterOutcome::FailsSimulation(a);
@@ -654,10 +659,7 @@ impl PreparedCascade {
         };
         let lifted = match rows {
             Rows::All => lifted,
-            Rows::Samples | Rows::None => {
-                let ticks = InnerClosed::delay_ticks(p.ratio, p.outer_delay);
-                inner.lifted(p.ratio, ticks, p.outer_hold, Rows::All)
-            }
+            Rows::Samples | Rows::None => lift(inner, p, Rows::All),
         };
         let (step, dist) = match sampled_figures(&cl, &lifted, &poles, &opts) {
             Ok(v) => v,

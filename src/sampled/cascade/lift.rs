@@ -118,7 +118,8 @@ pub struct InnerClosed {
     pub poles_s: Vec<crate::model::poly::C64>,
     /// `A^j` of the inner closed loop, j = 0, 1, ..., as far as a lift has
     /// asked: each the product `A A^(j-1)`, the same sequence whichever
-    /// ratio asks first, kept for the next ratio at this inner rate.
+    /// ratio asks first, kept for the next ratio at this inner rate. An
+    /// `InnerClosed` is not changed after `new` (the cache is of `cl.a`).
     powers: Mutex<Vec<DMatrix<f64>>>,
 }
 
@@ -181,6 +182,18 @@ pub enum Rows {
     Samples,
     /// Every point between inner samples too (the time figures).
     All,
+}
+
+impl Rows {
+    /// Rows a lifted loop carries per inner tick, when the inner loop has
+    /// `points` output points a period (`HoldEquivalent::intersample`).
+    pub fn per_tick(self, points: usize) -> usize {
+        match self {
+            Rows::None => 0,
+            Rows::Samples => points.min(1),
+            Rows::All => points,
+        }
+    }
 }
 
 impl InnerClosed {
@@ -264,11 +277,7 @@ impl InnerClosed {
         let cl = &self.cl;
         let dim = cl.a.nrows();
         let nx = self.hold.phi.nrows();
-        let np = match rows {
-            Rows::None => 0,
-            Rows::Samples => self.hold.intersample.len().min(1),
-            Rows::All => self.hold.intersample.len(),
-        };
+        let np = rows.per_tick(self.hold.intersample.len());
         // The reference at each inner tick of the period as coefficients of
         // (v_k, v_{k-1}, v_{k-2}): before tick s the previous update's ramp,
         // N - s + i ticks into it; from tick s on the new one's.
