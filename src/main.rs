@@ -13,8 +13,9 @@ use indicatif::{ProgressBar, ProgressStyle};
 
 use looprate::case::Case;
 use looprate::case::expr::Expr;
+use looprate::explore::cascade::{prepare_cascade, search_cascade};
 use looprate::explore::pick::{
-    Streamed, case_sweep_grid, case_variants, not_evaluated_rows, prepare, sweep_and_pick_streaming,
+    Streamed, case_sweep_grid, case_variants, not_evaluated_rows, prepare, sweep_streaming,
 };
 use looprate::explore::search::Silent;
 use looprate::explore::sweep;
@@ -595,6 +596,9 @@ fn run(cli: Cli) -> Result<ExitCode> {
             check_threads(threads)?;
             let _lock = writer::OutputLock::acquire(&out)?;
             let report = in_pool(threads, || -> Result<_> {
+                // A cascade is prepared first: a case whose outer loop
+                // cannot be built stops before the sweep.
+                let cascade = prepare_cascade(&c)?;
                 let grid = case_sweep_grid(&c, &lp);
                 let bar = progress(grid.len(), quiet);
                 let mut stream = csv_stream(&c, &lp, &out)?;
@@ -602,25 +606,22 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 // A cascade's search reads the inner loop's figures from
                 // this sweep instead of evaluating them again.
                 let mut inner_known = looprate::explore::cascade::InnerEvaluations::default();
-                let Streamed {
-                    variants: _,
-                    report,
-                } = sweep_and_pick_streaming(
-                    &c,
-                    &lp,
-                    &|| bar.inc(1),
-                    &Silent,
-                    &mut |i, row, v| {
-                        stream.push(i, row, v);
-                        if !no_charts {
-                            chart_rows.push(i, row);
-                        }
-                        if c.outer.is_some() {
-                            inner_known.push(row);
-                        }
-                    },
-                )?;
+                let swept = sweep_streaming(&c, &lp, &|| bar.inc(1), &mut |i, row, v| {
+                    stream.push(i, row, v);
+                    if !no_charts {
+                        chart_rows.push(i, row);
+                    }
+                    if c.outer.is_some() {
+                        inner_known.push(row);
+                    }
+                })?;
                 bar.finish_and_clear();
+                // The inner loop's pick beside the cascade's search: both
+                // read the sweep only.
+                let (Streamed { report, .. }, searched) = rayon::join(
+                    || swept.pick(&c, &lp, &Silent),
+                    || (cascade.as_ref()).map(|pc| search_cascade(&c, pc, &inner_known)),
+                );
                 // Charts are drawn while the CSV and JSON are written.
                 let (charts, tables) = rayon::join(
                     || -> Result<_> {
@@ -641,14 +642,9 @@ fn run(cli: Cli) -> Result<ExitCode> {
                 );
                 tables?;
                 let charts = charts?;
-                let cascade = if c.outer.is_some() {
+                let cascade = if let (Some(pc), Some(searched)) = (&cascade, searched) {
                     Some(looprate::output::cascade::finish_pick(
-                        &out,
-                        &c,
-                        &report,
-                        &charts,
-                        no_charts,
-                        &inner_known,
+                        &out, &c, &report, &charts, no_charts, pc, searched,
                     )?)
                 } else {
                     looprate::output::report::write_report(&out, &c, &report, &charts)?;

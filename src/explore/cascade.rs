@@ -39,6 +39,26 @@ use crate::spec::HoldKind;
 use crate::spec::Structure;
 
 /// Build the cascade of a case (nominal parameters); None without `[outer]`.
+/// A cascade's search done: a row per pair of the grid and the pick
+/// (`search_cascade`).
+pub struct CascadeSearch {
+    pub rows: Vec<CascadeRow>,
+    pub pick: CascadePick,
+}
+
+/// The cascade's search and pick, reading the inner loop's figures from
+/// its single-loop sweep (`inner_known`; the inner pick does not enter, so
+/// the two can run side by side).
+pub fn search_cascade(
+    case: &Case,
+    pc: &PreparedCascade,
+    inner_known: &InnerEvaluations,
+) -> CascadeSearch {
+    let rows = cascade_rows_with(case, pc, false, inner_known);
+    let pick = cascade_pick(case, pc, &rows);
+    CascadeSearch { rows, pick }
+}
+
 pub fn prepare_cascade(case: &Case) -> Result<Option<PreparedCascade>, Error> {
     let Some(outer) = &case.outer else {
         return Ok(None);

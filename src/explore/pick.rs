@@ -125,6 +125,48 @@ pub fn sweep_and_pick_streaming(
     observer: &dyn SearchObserver,
     on_row: &mut RowSink<'_>,
 ) -> Result<Streamed, Error> {
+    Ok(sweep_streaming(case, lp, on_done, on_row)?.pick(case, lp, observer))
+}
+
+/// The sweep of a case done, with what its pick needs: the first half of
+/// [`sweep_and_pick_streaming`], so that a caller can run other work
+/// beside the pick (a cascade's search reads the same rows).
+pub struct Swept {
+    variants: Option<VariantSet>,
+    done: SweptAs,
+}
+
+/// How the sweep ended: a summary for the search, or the answer already
+/// (the continuous design fails the spec, nothing was swept).
+enum SweptAs {
+    Summary(Box<SweepSummary>),
+    DesignFails(Box<PickReport>),
+}
+
+impl Swept {
+    /// The pick on this sweep (`pick_from`).
+    pub fn pick(self, case: &Case, lp: &PreparedLoop, observer: &dyn SearchObserver) -> Streamed {
+        let report = match self.done {
+            SweptAs::DesignFails(report) => *report,
+            SweptAs::Summary(summary) => {
+                pick_from(case, lp, self.variants.as_ref(), &summary, observer)
+            }
+        };
+        Streamed {
+            variants: self.variants,
+            report,
+        }
+    }
+}
+
+/// The sweep of [`sweep_and_pick_streaming`], each row handed to `on_row`
+/// as it is finished; the pick is [`Swept::pick`].
+pub fn sweep_streaming(
+    case: &Case,
+    lp: &PreparedLoop,
+    on_done: &(dyn Fn() + Sync),
+    on_row: &mut RowSink<'_>,
+) -> Result<Swept, Error> {
     let variants = case_variants(case, lp)?;
     let grid = case_sweep_grid(case, lp);
     if let Some(report) = failed_design(case, lp) {
@@ -132,7 +174,8 @@ pub fn sweep_and_pick_streaming(
             on_done();
             on_row(i, row, variants.as_ref())
         });
-        return Ok(Streamed { variants, report });
+        let done = SweptAs::DesignFails(Box::new(report));
+        return Ok(Swept { variants, done });
     }
     let plan = Plan::for_case(case, lp, variants.as_ref());
     let mut summary = SweepSummary::new(&grid);
@@ -140,8 +183,8 @@ pub fn sweep_and_pick_streaming(
         on_row(i, &row, variants.as_ref());
         summary.push(i, &row);
     });
-    let report = pick_from(case, lp, variants.as_ref(), &summary, observer);
-    Ok(Streamed { variants, report })
+    let done = SweptAs::Summary(Box::new(summary));
+    Ok(Swept { variants, done })
 }
 
 /// Why no grid point needs evaluating, when the continuous design already

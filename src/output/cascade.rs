@@ -12,8 +12,7 @@ use crate::case::Case;
 use crate::engineering::{hz, periods, periods_of, sig4 as fmt_num};
 use crate::error::Error;
 use crate::explore::cascade::{
-    CascadePick, CascadeRow, InnerEvaluations, cascade_pick, cascade_rows, cascade_rows_with,
-    prepare_cascade,
+    CascadePick, CascadeRow, CascadeSearch, cascade_rows, prepare_cascade,
 };
 use crate::explore::pick::PickReport;
 use crate::model::discretize::MethodChoice;
@@ -23,7 +22,7 @@ use crate::output::report::{Block, Detail, push_if, write_report_extra};
 use crate::output::summary::{evaluation_json, evaluation_text};
 use crate::output::tables::figure_cells;
 use crate::output::writer::write_atomic;
-use crate::sampled::cascade::evaluate::CascadePoint;
+use crate::sampled::cascade::evaluate::{CascadePoint, PreparedCascade};
 use crate::sampled::evaluate::Evaluation;
 use crate::sampled::feasibility::assess;
 use crate::sampled::figure::Figure;
@@ -393,22 +392,21 @@ pub struct CascadeRun {
     pub json: Value,
 }
 
-/// The cascade part of `pick` on a case with `[outer]`, after the inner
-/// loop's own pick: the search, `sweep.csv` (the cascade's rows),
-/// `pick.json` (with `cascade`), the two charts (unless `no_charts`) and
-/// the report with its cascade section. `charts` are the single loop's.
+/// The cascade part of `pick` on a case with `[outer]` (prepared as
+/// `pc`), after the inner loop's own pick and the cascade's search
+/// (`search_cascade`): `sweep.csv` (the cascade's rows), `pick.json` (with
+/// `cascade`), the two charts (unless `no_charts`) and the report with its
+/// cascade section. `charts` are the single loop's.
 pub fn finish_pick(
     out_dir: &Path,
     case: &Case,
     report: &PickReport,
     charts: &[Chart],
     no_charts: bool,
-    inner_known: &InnerEvaluations,
+    pc: &PreparedCascade,
+    searched: CascadeSearch,
 ) -> Result<CascadeRun, Error> {
-    let pc = prepare_cascade(case)?
-        .ok_or_else(|| Error::Input("the case has no [outer] table".into()))?;
-    let rows = cascade_rows_with(case, &pc, false, inner_known);
-    let pick = cascade_pick(case, &pc, &rows);
+    let CascadeSearch { rows, pick } = searched;
     write_atomic(
         &out_dir.join("sweep.csv"),
         &cascade_csv(&rows, hold_named(case)),
@@ -428,7 +426,7 @@ pub fn finish_pick(
     let cascade_charts = if no_charts {
         Vec::new()
     } else {
-        write_cascade_charts(out_dir, case, &pc, &rows, &pick)?
+        write_cascade_charts(out_dir, case, pc, &rows, &pick)?
     };
     write_report_extra(
         out_dir,
