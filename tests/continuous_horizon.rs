@@ -13,7 +13,7 @@ use looprate::model::discretize::Method;
 use looprate::model::transfer::Controller;
 use looprate::sampled::continuous::{ContinuousLoop, HoldApprox, grid_steps};
 use looprate::sampled::evaluate::Point;
-use looprate::sampled::time_response::TimeOptions;
+use looprate::sampled::time_response::{TimeFigure, TimeOptions};
 use looprate::spec::HoldKind;
 
 fn load(dir: &str, name: &str) -> Case {
@@ -130,7 +130,7 @@ fn lightly_damped_design_past_the_walks_cap_gets_its_answer() {
     let coarse = *grid_steps(&poles).last().unwrap();
     let (ws, _) = cl.walked_time_figures(&poles, coarse, &lp.time).unwrap();
     assert!(
-        ws.undecided.contains(&"settling_time_s"),
+        ws.undecided.contains(&TimeFigure::SettlingTime),
         "the walk is expected to hit its cap here: {ws:?}"
     );
     let design = lp.design.as_ref().and_then(|d| d.figures.clone()).unwrap();

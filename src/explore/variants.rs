@@ -31,6 +31,7 @@ use crate::sampled::evaluate::{
     Evaluation, Figures, Given, PlantAt, Point, PointError, PreparedLoop,
 };
 use crate::sampled::feasibility::{Assessment, assess};
+use crate::sampled::time_response::TimeFigure;
 use crate::spec::{Spec, UncertaintyMode};
 
 /// Parameter values of every variant, in the order of [`Case::params`]:
@@ -482,12 +483,13 @@ pub fn worst_of(figs: &[&Figures]) -> Option<Figures> {
     })
 }
 
-/// The keys listed by any of `lists`, each once, in order of appearance.
-fn union<'a>(lists: impl Iterator<Item = &'a Vec<&'static str>>) -> Vec<&'static str> {
-    let mut keys: Vec<&'static str> = Vec::new();
+/// The time figures listed by any of `lists`, each once, in order of
+/// appearance.
+fn union<'a>(lists: impl Iterator<Item = &'a Vec<TimeFigure>>) -> Vec<TimeFigure> {
+    let mut keys: Vec<TimeFigure> = Vec::new();
     for k in lists.flatten() {
         if !keys.contains(k) {
-            keys.push(k);
+            keys.push(*k);
         }
     }
     keys

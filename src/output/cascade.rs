@@ -26,6 +26,7 @@ use crate::sampled::cascade::evaluate::{CascadePoint, PreparedCascade};
 use crate::sampled::evaluate::Evaluation;
 use crate::sampled::feasibility::assess;
 use crate::sampled::figure::Figure;
+use crate::sampled::time_response::TimeFigure;
 use crate::spec::HoldKind;
 
 /// The `outer` object of `eval --json`: the outer loop's figures under the
@@ -148,7 +149,10 @@ pub fn cascade_record(r: &CascadeRow, outer_hold: bool) -> Vec<String> {
     let figures = |e: Option<&Evaluation>, cells: &mut Vec<String>| {
         let f = e.and_then(|e| e.figures.as_ref());
         cells.extend(figure_cells(&Figure::ALL, f));
-        cells.push(f.map(|f| f.undecided.join(" ")).unwrap_or_default());
+        cells.push(
+            f.map(|f| TimeFigure::joined(&f.undecided, " "))
+                .unwrap_or_default(),
+        );
     };
     figures(Some(&r.inner), &mut cells);
     cells.push(r.inner_verdict.feasible.to_string());

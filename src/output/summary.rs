@@ -13,6 +13,7 @@ use crate::sampled::evaluate::{Evaluation, Figures};
 use crate::sampled::feasibility::LimitCheck;
 use crate::sampled::feasibility::check_figures;
 use crate::sampled::figure::Figure;
+use crate::sampled::time_response::TimeFigure;
 use crate::spec::Spec;
 
 /// Complex numbers as `[re, im]` pairs for JSON.
@@ -158,16 +159,16 @@ pub fn evaluation_json(e: &Evaluation) -> Value {
                 "phase_margin_deg is null: |L| never crosses 1, the margin is infinite".into(),
             );
         }
-        if f.settling_time_s.is_none() && !f.is_undecided("settling_time_s") {
+        if f.settling_time_s.is_none() && !f.is_undecided(TimeFigure::SettlingTime) {
             notes.push("settling_time_s is null: not settled within the horizon".into());
         }
-        if f.overshoot_pct.is_none() && !f.is_undecided("overshoot_pct") {
+        if f.overshoot_pct.is_none() && !f.is_undecided(TimeFigure::Overshoot) {
             notes.push("overshoot_pct is null: the final value is zero".into());
         }
         if !f.undecided.is_empty() {
             notes.push(format!(
                 "undecided (listed in `undecided`, their values null or only a lower bound): {}; neither the bound at the end of the horizon ({} s) nor the bounded search work could rule out a later peak, band exit or crossing",
-                f.undecided.join(", "),
+                TimeFigure::joined(&f.undecided, ", "),
                 seconds(f.horizon_s)
             ));
         }

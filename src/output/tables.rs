@@ -15,6 +15,7 @@ use crate::output::writer::folder_of;
 use crate::sampled::evaluate::{Evaluation, Figures, Status};
 use crate::sampled::feasibility::Assessment;
 use crate::sampled::figure::Figure;
+use crate::sampled::time_response::TimeFigure;
 
 /// A number cell: shortest round-trip form.
 fn num(v: f64) -> String {
@@ -134,7 +135,8 @@ fn point_cells(r: &SweepRow, e: &Evaluation, a: &Assessment) -> Vec<String> {
     ];
     rec.extend(figure_cells(&Figure::ALL, f));
     rec.extend([
-        f.map(|f| f.undecided.join(" ")).unwrap_or_default(),
+        f.map(|f| TimeFigure::joined(&f.undecided, " "))
+            .unwrap_or_default(),
         if rho.is_nan() {
             String::new()
         } else {

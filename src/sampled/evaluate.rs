@@ -19,8 +19,8 @@ use crate::model::poly::C64;
 use crate::model::state_space::StateSpace;
 use crate::model::transfer::{Controller, DiscreteTransfer, Transfer};
 use crate::sampled::time_response::{
-    DisturbanceFigures, ResponseError, StepFigures, TimeOptions, TracePoint, horizon_periods,
-    sampled_figures, sampled_trace_spanning,
+    DisturbanceFigures, ResponseError, StepFigures, TimeFigure, TimeOptions, TracePoint,
+    horizon_periods, sampled_figures, sampled_trace_spanning,
 };
 
 /// Why a point could not be evaluated. Its text is the reason a grid row
@@ -149,19 +149,19 @@ pub struct Figures {
     pub sensitivity_peak: f64,
     /// The horizon the time figures cover, s (see `StepFigures`).
     pub horizon_s: f64,
-    /// Keys of the time figures that could not be decided within the
+    /// The time figures that could not be decided within the
     /// horizon (their own status: neither a value nor "not settled"); see
     /// `Figures::is_undecided`.
-    pub undecided: Vec<&'static str>,
+    pub undecided: Vec<TimeFigure>,
     /// True when the exact delay margin was searched for (`eval`, the
     /// recommended rate); a sweep leaves it unsearched (its cost grows
     /// with the delay in periods) and reports the estimate.
     pub delay_margin_searched: bool,
-    /// Keys of the time figures not computed (`Wanted`: a verdict reads
+    /// The time figures not computed (`Wanted`: a verdict reads
     /// only what its spec limits): neither a value nor a missing figure's
     /// meaning. Empty (and not serialized) for every full evaluation.
     #[serde(skip_serializing_if = "Vec::is_empty")]
-    pub not_computed: Vec<&'static str>,
+    pub not_computed: Vec<TimeFigure>,
     /// Why a loop figure is missing when it was not located (|L| = 1 over
     /// an interval, a crossing exactly at an end, a delay margin beyond the
     /// search); empty otherwise.
@@ -228,11 +228,7 @@ impl Figures {
             loop_notes: freq.notes.clone(),
             delay_margin_searched: false,
             not_computed: (step.not_computed.iter().copied())
-                .chain(
-                    ["disturbance_peak", "recovery_time_s"]
-                        .into_iter()
-                        .filter(|_| !dist.computed),
-                )
+                .chain(TimeFigure::LOAD_STEP.into_iter().filter(|_| !dist.computed))
                 .collect(),
             undecided: step
                 .undecided
@@ -243,15 +239,14 @@ impl Figures {
         }
     }
 
-    /// True when the figure `key` (e.g. `settling_time_s`) could not be
-    /// decided.
-    pub fn is_undecided(&self, key: &str) -> bool {
-        self.undecided.contains(&key)
+    /// True when the time figure `t` could not be decided.
+    pub fn is_undecided(&self, t: TimeFigure) -> bool {
+        self.undecided.contains(&t)
     }
 
-    /// True when the figure `key` was not computed (`not_computed`).
-    pub fn is_not_computed(&self, key: &str) -> bool {
-        self.not_computed.contains(&key)
+    /// True when the time figure `t` was not computed (`not_computed`).
+    pub fn is_not_computed(&self, t: TimeFigure) -> bool {
+        self.not_computed.contains(&t)
     }
 }
 
@@ -539,7 +534,7 @@ impl PreparedLoop {
             out.push(format!(
                 "undecided within the horizon of {:.4e} s (the slowest mode's decay to 1e-4): {}; neither a bound at its end nor the bounded search work (a walk of at most 2^20 periods) could rule out a later peak, band exit or crossing",
                 f.horizon_s,
-                f.undecided.join(", ")
+                TimeFigure::joined(&f.undecided, ", ")
             ));
         }
         out

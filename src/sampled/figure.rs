@@ -14,7 +14,7 @@ use serde::{Serialize, Serializer};
 use crate::engineering::{hz, seconds, sig4};
 use crate::model::rounding::StructuralFailure;
 use crate::sampled::evaluate::Figures;
-use crate::sampled::stretch::Wanted;
+use crate::sampled::stretch::{TimeFigure, Wanted};
 use crate::spec::Spec;
 
 /// One figure of an evaluated loop.
@@ -209,20 +209,37 @@ impl Figure {
 
     /// Key in CSV headers, JSON fields and limit verdicts.
     pub fn key(self) -> &'static str {
+        if let Some(t) = self.time() {
+            return t.key();
+        }
         match self {
             Figure::FinalValue => "y_final",
-            Figure::Overshoot => "overshoot_pct",
-            Figure::SettlingTime => "settling_time_s",
-            Figure::RiseTime => "rise_time_s",
-            Figure::DisturbancePeak => "disturbance_peak",
-            Figure::RecoveryTime => "recovery_time_s",
-            Figure::CommandPeak => "u_peak",
+            Figure::Overshoot
+            | Figure::SettlingTime
+            | Figure::RiseTime
+            | Figure::DisturbancePeak
+            | Figure::RecoveryTime
+            | Figure::CommandPeak => unreachable!("a time figure's key is its TimeFigure's"),
             Figure::GainMargin => "gain_margin_db",
             Figure::PhaseMargin => "phase_margin_deg",
             Figure::Crossover => "crossover_hz",
             Figure::DelayMargin => "delay_margin_s",
             Figure::DelayMarginEstimate => "delay_margin_estimate_s",
             Figure::SensitivityPeak => "sensitivity_peak",
+        }
+    }
+
+    /// The time figure it is, if it is one (the name the time responses
+    /// use for it in `undecided` and `not_computed`).
+    pub fn time(self) -> Option<TimeFigure> {
+        match self {
+            Figure::Overshoot => Some(TimeFigure::Overshoot),
+            Figure::SettlingTime => Some(TimeFigure::SettlingTime),
+            Figure::RiseTime => Some(TimeFigure::RiseTime),
+            Figure::DisturbancePeak => Some(TimeFigure::DisturbancePeak),
+            Figure::RecoveryTime => Some(TimeFigure::RecoveryTime),
+            Figure::CommandPeak => Some(TimeFigure::CommandPeak),
+            _ => None,
         }
     }
 
@@ -312,7 +329,7 @@ impl Figure {
     /// The figure's value in `f`; None when it does not exist or could
     /// not be decided (see [`Figure::missing`]).
     pub fn value(self, f: &Figures) -> Option<f64> {
-        if f.is_undecided(self.key()) || f.is_not_computed(self.key()) {
+        if (self.time()).is_some_and(|t| f.is_undecided(t) || f.is_not_computed(t)) {
             return None;
         }
         match self {
@@ -344,10 +361,10 @@ impl Figure {
 
     /// What the figure's absence in `f` means.
     pub fn missing(self, f: &Figures) -> Missing {
-        if f.is_not_computed(self.key()) {
+        if self.time().is_some_and(|t| f.is_not_computed(t)) {
             return Missing::NotComputed;
         }
-        if f.is_undecided(self.key()) {
+        if self.time().is_some_and(|t| f.is_undecided(t)) {
             return Missing::Undecided;
         }
         match self {

@@ -1396,6 +1396,55 @@ pub struct StepResult {
     pub settled_since: Instant,
 }
 
+/// A time figure, as the time responses name one they could not decide or
+/// did not compute (`undecided`, `not_computed` of `StepFigures`,
+/// `DisturbanceFigures` and `Figures`). The figure catalogue reads it as
+/// its `Figure` (`Figure::time`); the key is the catalogue's.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum TimeFigure {
+    Overshoot,
+    SettlingTime,
+    RiseTime,
+    CommandPeak,
+    DisturbancePeak,
+    RecoveryTime,
+}
+
+impl TimeFigure {
+    /// The four of the reference step.
+    pub const STEP: [TimeFigure; 4] = [
+        TimeFigure::Overshoot,
+        TimeFigure::SettlingTime,
+        TimeFigure::RiseTime,
+        TimeFigure::CommandPeak,
+    ];
+    /// The two of the load step.
+    pub const LOAD_STEP: [TimeFigure; 2] = [TimeFigure::DisturbancePeak, TimeFigure::RecoveryTime];
+
+    /// The figure's key in every output (`overshoot_pct`, ...).
+    pub fn key(self) -> &'static str {
+        match self {
+            TimeFigure::Overshoot => "overshoot_pct",
+            TimeFigure::SettlingTime => "settling_time_s",
+            TimeFigure::RiseTime => "rise_time_s",
+            TimeFigure::CommandPeak => "u_peak",
+            TimeFigure::DisturbancePeak => "disturbance_peak",
+            TimeFigure::RecoveryTime => "recovery_time_s",
+        }
+    }
+
+    /// The keys of `list`, joined by `sep` (for text and CSV cells).
+    pub fn joined(list: &[TimeFigure], sep: &str) -> String {
+        list.iter().map(|t| t.key()).collect::<Vec<_>>().join(sep)
+    }
+}
+
+impl serde::Serialize for TimeFigure {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        s.serialize_str(self.key())
+    }
+}
+
 /// The time figures an evaluation computes. A verdict reads only those its
 /// spec limits (`Wanted::limited_by`, from the figure catalogue); a figure left out is `not
 /// computed` (neither a value nor a missing figure's meaning), and its
@@ -1424,17 +1473,17 @@ impl Wanted {
         load_step: true,
     };
 
-    /// Keys of the step figures left out.
-    pub(crate) fn step_left_out(&self) -> Vec<&'static str> {
+    /// The step figures left out.
+    pub(crate) fn step_left_out(&self) -> Vec<TimeFigure> {
         [
-            (self.overshoot, "overshoot_pct"),
-            (self.settling, "settling_time_s"),
-            (self.rise, "rise_time_s"),
-            (self.u_peak, "u_peak"),
+            (self.overshoot, TimeFigure::Overshoot),
+            (self.settling, TimeFigure::SettlingTime),
+            (self.rise, TimeFigure::RiseTime),
+            (self.u_peak, TimeFigure::CommandPeak),
         ]
         .into_iter()
         .filter(|(wanted, _)| !wanted)
-        .map(|(_, key)| key)
+        .map(|(_, figure)| figure)
         .collect()
     }
 }

@@ -10,8 +10,8 @@ use crate::sampled::certificate::Certificate;
 use crate::sampled::closed_loop::ClosedLoop;
 use crate::sampled::hold::HoldEquivalent;
 use crate::sampled::output_map::{OutputMap, ROUNDING_MARGIN, crossing, mat_vec};
-pub use crate::sampled::stretch::Wanted;
 use crate::sampled::stretch::{Instant, Stretches};
+pub use crate::sampled::stretch::{TimeFigure, Wanted};
 
 /// The remaining transient must fall below this fraction of its start
 /// before the horizon ends (loop model: 1e-4).
@@ -69,18 +69,18 @@ pub struct StepFigures {
     /// decay to `DECAY_TARGET` (padded), for a sampled loop and for the
     /// continuous design's grid (the simulated span when it is walked).
     pub horizon_s: f64,
-    /// Keys of the figures (`overshoot_pct`, `settling_time_s`,
+    /// The figures (`overshoot_pct`, `settling_time_s`,
     /// `rise_time_s`, `u_peak`) that could not be decided: a bound at the
     /// end of the horizon cannot rule out a later peak, exit or crossing, or
     /// the search work ran out (`WALK_BUDGET`)
     /// (for the continuous design's walk fallback: its grid hit the step
     /// cap). Such a figure's value is absent (or, for `u_peak`, only a
     /// lower bound).
-    pub undecided: Vec<&'static str>,
-    /// Keys of the figures not computed (`Wanted`): their fields are
+    pub undecided: Vec<TimeFigure>,
+    /// The figures not computed (`Wanted`): their fields are
     /// placeholders, read through the figure catalogue as `not computed`.
     #[serde(skip_serializing_if = "Vec::is_empty")]
-    pub not_computed: Vec<&'static str>,
+    pub not_computed: Vec<TimeFigure>,
 }
 
 /// Figures of the unit load-disturbance step at the plant input.
@@ -90,9 +90,9 @@ pub struct DisturbanceFigures {
     pub yd_final: f64,
     /// None: not recovered within the horizon.
     pub recovery_time_s: Option<f64>,
-    /// Keys of the figures (`disturbance_peak`, `recovery_time_s`) that
+    /// The figures (`disturbance_peak`, `recovery_time_s`) that
     /// could not be decided (see `StepFigures::undecided`).
-    pub undecided: Vec<&'static str>,
+    pub undecided: Vec<TimeFigure>,
     /// False when the load step was not simulated (`Wanted::load_step`):
     /// the peak and recovery are then not computed, neither values nor
     /// "not recovered".
@@ -236,7 +236,7 @@ impl StepMetrics {
             horizon_s,
             not_computed: Vec::new(),
             undecided: if capped {
-                vec!["overshoot_pct", "settling_time_s", "rise_time_s", "u_peak"]
+                TimeFigure::STEP.to_vec()
             } else {
                 Vec::new()
             },
@@ -983,10 +983,10 @@ fn walk_step(
         if ends.y_final != 0.0 {
             if !m.settled_for_good() || cut {
                 f.settling_time_s = None;
-                f.undecided.push("settling_time_s");
+                f.undecided.push(TimeFigure::SettlingTime);
             }
             if f.rise_time_s.is_none() {
-                f.undecided.push("rise_time_s");
+                f.undecided.push(TimeFigure::RiseTime);
             }
         }
         if cut {
@@ -994,9 +994,9 @@ fn walk_step(
             // may still raise a peak.
             if ends.y_final != 0.0 {
                 f.overshoot_pct = None;
-                f.undecided.push("overshoot_pct");
+                f.undecided.push(TimeFigure::Overshoot);
             }
-            f.undecided.push("u_peak");
+            f.undecided.push(TimeFigure::CommandPeak);
         }
     }
     f
@@ -1031,16 +1031,16 @@ fn walk_disturbance(
     let mut undecided = Vec::new();
     let peak_open = run_peak >= n;
     if peak_open {
-        undecided.push("disturbance_peak");
+        undecided.push(TimeFigure::DisturbancePeak);
     }
     if run_rec >= n && (rec.since.is_none() || peak_open || cut) {
-        undecided.push("recovery_time_s");
+        undecided.push(TimeFigure::RecoveryTime);
     }
     DisturbanceFigures {
         computed: true,
         disturbance_peak: peak.peak,
         yd_final: ends.yd_final,
-        recovery_time_s: if undecided.contains(&"recovery_time_s") {
+        recovery_time_s: if undecided.contains(&TimeFigure::RecoveryTime) {
             None
         } else {
             rec.since
@@ -1187,7 +1187,7 @@ pub fn continuous_metrics(
             yd_final,
             recovery_time_s: rec.since,
             undecided: if capped {
-                vec!["disturbance_peak", "recovery_time_s"]
+                TimeFigure::LOAD_STEP.to_vec()
             } else {
                 Vec::new()
             },
