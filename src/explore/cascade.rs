@@ -38,7 +38,6 @@ use crate::sampled::feasibility::{Assessment, assess};
 use crate::spec::HoldKind;
 use crate::spec::Structure;
 
-/// Build the cascade of a case (nominal parameters); None without `[outer]`.
 /// A cascade's search done: a row per pair of the grid and the pick
 /// (`search_cascade`).
 pub struct CascadeSearch {
@@ -59,6 +58,7 @@ pub fn search_cascade(
     CascadeSearch { rows, pick }
 }
 
+/// Build the cascade of a case (nominal parameters); None without `[outer]`.
 pub fn prepare_cascade(case: &Case) -> Result<Option<PreparedCascade>, Error> {
     let Some(outer) = &case.outer else {
         return Ok(None);
