@@ -10,8 +10,10 @@ use crate::sampled::continuous::{ContinuousLoop, HoldApprox};
 use crate::sampled::delay_margin::{DelayMargin, exact_delay_margin};
 use crate::sampled::frequency::{FrequencyRange, LoopFigures, loop_figures};
 use crate::sampled::hold::{Actuation, HoldEquivalent, pade_delay, plant_and_sensor};
+use crate::sampled::stretch::NodeHasher;
 use crate::spec::HoldKind;
 use std::collections::HashMap;
+use std::hash::BuildHasherDefault;
 use std::sync::Mutex;
 
 use crate::model::matrix::ModelError;
@@ -311,7 +313,7 @@ pub struct Point {
 pub struct PlantAt {
     pub hold: HoldEquivalent,
     pulse: StateSpace,
-    memo: Mutex<HashMap<u64, C64>>,
+    memo: Mutex<HashMap<u64, C64, BuildHasherDefault<NodeHasher>>>,
 }
 
 impl PlantAt {
@@ -319,7 +321,7 @@ impl PlantAt {
         PlantAt {
             pulse: hold.augmented(),
             hold,
-            memo: Mutex::new(HashMap::new()),
+            memo: Mutex::new(HashMap::default()),
         }
     }
 

@@ -671,10 +671,11 @@ struct Run<'s, 'a> {
     bend: std::cell::Cell<bool>,
 }
 
-/// A hasher for the node keys (two small integers): one multiply a word,
+/// A hasher for the node keys (two small integers) and the loop gain's
+/// memo (a frequency's bits, `evaluate::PlantAt`): one multiply a word,
 /// where the default hasher's rounds cost as much as a small bound.
 #[derive(Default)]
-struct NodeHasher(u64);
+pub(crate) struct NodeHasher(u64);
 
 impl Hasher for NodeHasher {
     fn finish(&self) -> u64 {
