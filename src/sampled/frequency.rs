@@ -249,27 +249,19 @@ pub fn loop_figures(l: &dyn Fn(f64) -> C64, range: &FrequencyRange) -> LoopFigur
             continue;
         }
         // +1 for a maximum below 1, -1 for a minimum above 1.
-        let sign = if g < 0.0 && gl < 0.0 && gr < 0.0 && g >= gl && g >= gr && g > gl.min(gr) {
+        // Strict on the left: of two equal neighbours (a grid symmetric
+        // about the extremum) only the first is refined.
+        let sign = if g < 0.0 && gl < 0.0 && gr < 0.0 && g > gl && g >= gr {
             1.0
-        } else if g > 0.0 && gl > 0.0 && gr > 0.0 && g <= gl && g <= gr && g < gl.max(gr) {
+        } else if g > 0.0 && gl > 0.0 && gr > 0.0 && g < gl && g <= gr {
             -1.0
         } else {
             continue;
         };
         let (a, b) = (points[i - 1].w.ln(), points[i + 1].w.ln());
-        let f = |x: f64| -sign * l(x.exp()).norm().ln();
-        let Some((xm, fm)) = scalar_solve::minimum(&f, a, b, 1e-10, 1e-12) else {
-            continue;
-        };
-        if fm >= 0.0 || xm <= a || xm >= b {
-            continue;
-        }
         let g = |x: f64| l(x.exp()).norm().ln();
-        for (lo, hi) in [(a, xm), (xm, b)] {
-            if let Some(x) = scalar_solve::root(&g, lo, hi, tol) {
-                let w = x.exp();
-                gain_x.push((w, wrap_deg(180.0 + arg_deg(l(w)))));
-            }
+        for w in crossings_of_extremum(&|x| -sign * g(x), &g, (a, b), tol) {
+            gain_x.push((w, wrap_deg(180.0 + arg_deg(l(w)))));
         }
     }
     gain_x.sort_by(|a, b| a.0.total_cmp(&b.0));
@@ -288,6 +280,38 @@ pub fn loop_figures(l: &dyn Fn(f64) -> C64, range: &FrequencyRange) -> LoopFigur
             }
         }
     }
+    // The same for the phase: a dip to a -180 deg level (or a bump up to
+    // one) between grid points, with no crossing at any grid point: every
+    // grid local minimum of the unwrapped phase within `PHASE_TOUCH_DEG`
+    // above a level (maximum below one) is refined to the exact extremum,
+    // and when that passes the level its two crossings are added
+    // (`docs/figures.md`, how crossings are found).
+    for i in 1..grid.len().saturating_sub(1) {
+        let (pl, p, pr) = (phase[i - 1], phase[i], phase[i + 1]);
+        let band = |v: f64| ((v + 180.0) / 360.0).floor();
+        if band(pl) != band(p) || band(pr) != band(p) {
+            continue; // a crossing at a grid interval, found above
+        }
+        let (sign, level) = if p < pl && p <= pr {
+            (1.0, -180.0 + 360.0 * band(p))
+        } else if p > pl && p >= pr {
+            (-1.0, 180.0 + 360.0 * band(p))
+        } else {
+            continue;
+        };
+        if (p - level).abs() > PHASE_TOUCH_DEG {
+            continue;
+        }
+        let (a, b) = (grid[i - 1].0.ln(), grid[i + 1].0.ln());
+        let l0 = grid[i].1;
+        // Unwrapped through the grid point: the phase moves less than a
+        // half turn between neighbours.
+        let to_level = |x: f64| p + arg_deg(l(x.exp()) / l0) - level;
+        for w in crossings_of_extremum(&|x| sign * to_level(x), &to_level, (a, b), tol) {
+            phase_x.push((w, -20.0 * l(w).norm().log10()));
+        }
+    }
+    phase_x.sort_by(|a, b| a.0.total_cmp(&b.0));
     let mut notes = Vec::new();
     // The ends of the range. Where the loop gain of a real loop is real and
     // negative at w -> 0 or at w = pi/T, that end is a -180 deg crossing.
@@ -438,6 +462,39 @@ fn flat_s_ruled_out(pts: &[GridPoint], grid_best: f64) -> bool {
     1.0 / (1.0 - l_in) < grid_best
 }
 
+/// How far (deg) a grid extremum of the unwrapped phase may sit from a
+/// -180 deg level (on the side it turns back from) to be refined for a
+/// crossing pair between grid points: the grid's own refinement keeps
+/// neighbours within 30 deg, so a dip deeper than that between them would
+/// have split the interval (common practice, no source: the same rule the
+/// gain's factor e follows).
+const PHASE_TOUCH_DEG: f64 = 30.0;
+
+/// The points (`w` rad/s) where `g` crosses zero next to an extremum
+/// between grid neighbours: `f` (`g` signed so that the extremum is its
+/// minimum, in `x = ln w` over `(a, b)`) is minimised (Brent); when its
+/// minimum lies inside the interval and below zero, `g` has a root on
+/// each side of it. None otherwise: no crossing, or a touch exactly at
+/// zero.
+fn crossings_of_extremum(
+    f: &dyn Fn(f64) -> f64,
+    g: &dyn Fn(f64) -> f64,
+    (a, b): (f64, f64),
+    tol: f64,
+) -> Vec<f64> {
+    let Some((xm, fm)) = scalar_solve::minimum(f, a, b, 1e-10, 1e-12) else {
+        return Vec::new();
+    };
+    if fm >= 0.0 || xm <= a || xm >= b {
+        return Vec::new();
+    }
+    [(a, xm), (xm, b)]
+        .into_iter()
+        .filter_map(|(lo, hi)| scalar_solve::root(g, lo, hi, tol))
+        .map(f64::exp)
+        .collect()
+}
+
 /// A -180 deg crossing at an end of the range (`w` rad/s, `v` the real
 /// loop gain there), when `v` is negative, finite and non-zero; a loop gain
 /// of exactly -1 there is noted instead (the loop is on the boundary).
@@ -493,5 +550,64 @@ mod tests {
         assert!((f.gain_margin_db.unwrap() - 20.0 * (8.0 / k).log10()).abs() < 1e-8);
         let w180 = f.gain_margin_hz.unwrap() * 2.0 * std::f64::consts::PI;
         assert!((w180 - 3f64.sqrt()).abs() < 1e-9);
+    }
+
+    #[test]
+    fn phase_dip_to_minus_180_between_grid_points_gives_the_gain_margin() {
+        // L = k (1 + s/z)^2 / (s (1 + s/p)^2), z > p: the phase
+        // -90 + 2 atan(w/z) - 2 atan(w/p) dips to 90 - 4 atan(r) at
+        // w = sqrt(p z), r = sqrt(z/p), and returns to -90; it passes -180
+        // when r > 1 + sqrt(2), at the roots of w^2 - (z - p) w + p z = 0
+        // (tan(atan(w/p) - atan(w/z)) = 1; closed form). Just past that,
+        // the dip lies between grid points: no grid phase below -180.
+        let (p, k) = (1.0, 0.8);
+        let r = (1.0 + 2f64.sqrt()) * (1.0 + 1e-4);
+        let z = r * r * p;
+        let l = move |w: f64| {
+            let s = C64::new(0.0, w);
+            let lead = (s / z + 1.0) * (s / z + 1.0);
+            C64::new(k, 0.0) * lead / (s * (s / p + 1.0) * (s / p + 1.0))
+        };
+        let roots = [
+            C64::new(-z, 0.0),
+            C64::new(-z, 0.0),
+            C64::new(-p, 0.0),
+            C64::new(-p, 0.0),
+        ];
+        let range = FrequencyRange::from_roots(&roots, None);
+        let grid: Vec<(f64, C64)> = (loop_grid_points(&l, &range).iter())
+            .map(|g| (g.w, g.l))
+            .collect();
+        let lowest = unwrapped_phase(&grid).into_iter().fold(0.0, f64::min);
+        assert!(lowest > -180.0, "the grid itself shows the dip: {lowest}");
+        let disc = ((z - p) * (z - p) - 4.0 * p * z).sqrt();
+        let gm = [(z - p - disc) / 2.0, (z - p + disc) / 2.0]
+            .map(|w| -20.0 * l(w).norm().log10())
+            .into_iter()
+            .min_by(|a, b| a.abs().total_cmp(&b.abs()))
+            .unwrap();
+        let f = loop_figures(&l, &range);
+        let found = f.gain_margin_db.expect("the dip's crossings are found");
+        assert!(
+            (found - gm).abs() < 1e-6,
+            "GM {found} dB, closed form {gm} dB"
+        );
+        assert_eq!(f.phase_crossings_hz.len(), 2, "{:?}", f.phase_crossings_hz);
+        // By its meaning: the closed loop, s (1 + s/p)^2 + g (1 + s/z)^2 = 0,
+        // is stable at the gain k and loses stability once k is raised by
+        // the gain margin (the dip then reaches past -1).
+        use crate::model::poly::Poly;
+        let lag = Poly::new(vec![1.0, 1.0 / p]);
+        let lead = Poly::new(vec![1.0, 1.0 / z]);
+        let most_right = |g: f64| {
+            let den = Poly::new(vec![0.0, 1.0]).mul(&lag).mul(&lag);
+            let num = lead.mul(&lead).mul(&Poly::new(vec![g]));
+            let roots = den.add(&num).roots().unwrap();
+            roots.iter().map(|r| r.re).fold(f64::NEG_INFINITY, f64::max)
+        };
+        let at_margin = k * 10f64.powf(found / 20.0);
+        assert!(most_right(k) < 0.0);
+        assert!(most_right(at_margin * 0.999) < 0.0);
+        assert!(most_right(at_margin * 1.001) > 0.0);
     }
 }
