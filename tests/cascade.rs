@@ -8,6 +8,7 @@ use looprate::explore::cascade::{cascade_pick, cascade_rows, prepare_cascade};
 use looprate::model::discretize::{Method, discretize};
 use looprate::model::poly::{C64, Poly};
 use looprate::model::transfer::{Controller, Transfer};
+use looprate::output::cascade::{cascade_csv, finish_sweep};
 use looprate::sampled::cascade::evaluate::{CascadePoint, PreparedCascade};
 use looprate::sampled::evaluate::{Point, Status};
 use looprate::sampled::frequency::{FrequencyRange, loop_figures};
@@ -501,6 +502,37 @@ fn cpu_load_is_the_sum_of_both_updates() {
     assert!(pick.not_evaluated > 0, "the search skipped nothing");
 }
 
+/// `sweep` writes the cascade's rows as they are finished, a batch at a
+/// time (memory flat in the grid): the file is the one written from every
+/// row held at once, byte for byte, and no temporary is left beside it.
+#[test]
+fn streamed_cascade_sweep_is_the_whole_grid_byte_for_byte() {
+    let text = std::fs::read_to_string("demo-cases/motor-drive-cascade.toml").unwrap();
+    let c = Case::parse(&text, Path::new("demo-cases/motor-drive-cascade.toml")).unwrap();
+    let pc = prepare_cascade(&c).unwrap().unwrap();
+    let held = cascade_csv(&cascade_rows(&c, &pc, true), false);
+    let dir = std::env::temp_dir().join(format!("looprate-cascade-stream-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    // A small pool: several batches over the demo's 40 inner rates.
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(1)
+        .build()
+        .unwrap();
+    pool.install(|| finish_sweep(&dir, &c)).unwrap();
+    let streamed = std::fs::read(dir.join("sweep.csv")).unwrap();
+    let names: Vec<String> = std::fs::read_dir(&dir)
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+        .collect();
+    std::fs::remove_dir_all(&dir).unwrap();
+    assert_eq!(names, ["sweep.csv"]);
+    assert!(streamed == held, "the streamed sweep.csv differs");
+    assert_eq!(
+        String::from_utf8(held).unwrap().lines().count(),
+        1 + 40 * 12
+    );
+}
+
 /// Bad input names the field (or the flag).
 #[test]
 fn bad_cascade_input_names_the_field() {
@@ -811,7 +843,7 @@ fn pairs_the_search_evaluates_carry_the_full_evaluations_figures() {
         }
         let mut compared = 0;
         for r in cascade_rows(case, prepared, false) {
-            let Some(outer) = r.outer.as_ref().filter(|_| !r.screened) else {
+            let Some(outer) = r.outer.as_deref().filter(|_| !r.screened) else {
                 continue;
             };
             let full = prepared.evaluate_outer(&r.point, false);

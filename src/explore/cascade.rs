@@ -23,6 +23,7 @@ use serde::Serialize;
 use crate::case::{Case, OuterLoop};
 use crate::error::Error;
 use std::collections::HashMap;
+use std::sync::Arc;
 
 use crate::explore::budget;
 use crate::explore::pick::{case_methods, prepare};
@@ -146,11 +147,13 @@ pub fn case_pairs(case: &Case, pc: &PreparedCascade, outer: &OuterLoop) -> Vec<(
 #[derive(Debug, Clone)]
 pub struct CascadeRow {
     pub point: CascadePoint,
-    /// The inner loop (outer loop open); shared by every ratio at its rate.
-    pub inner: Evaluation,
+    /// The inner loop (outer loop open); shared by every ratio at its rate
+    /// (one allocation for all of them).
+    pub inner: Arc<Evaluation>,
     pub inner_verdict: Assessment,
-    /// The outer loop; None when not evaluated (`skipped` says why).
-    pub outer: Option<Evaluation>,
+    /// The outer loop; None when not evaluated (`skipped` says why). Boxed:
+    /// most rows of a search are not evaluated, and a pick holds every row.
+    pub outer: Option<Box<Evaluation>>,
     pub outer_verdict: Option<Assessment>,
     pub skipped: Option<String>,
     /// The outer loop was judged before its time responses: by its poles
@@ -318,7 +321,7 @@ fn rows_at(
     // The inner controller at this rate, discretized once: the inner
     // evaluation (when the sweep did not hand it over) and the CPU cost.
     let inner_c = pc.inner.controller_at(rate_hz, series.inner_method);
-    let inner = match known.get(&inner_point) {
+    let inner = Arc::new(match known.get(&inner_point) {
         Some(e) => e.clone(),
         None => pc.inner.evaluate(
             &inner_point,
@@ -327,7 +330,7 @@ fn rows_at(
                 ..Given::default()
             },
         ),
-    };
+    });
     let inner_verdict = assess(&inner, &case.spec);
     // The inner loop on the whole plant, shared by every ratio here; not
     // built when no ratio needs it (the search skips every pair at an inner
@@ -408,7 +411,7 @@ fn rows_at(
             OuterOutcome::Figures(e) if !full && e.figures.is_none() => {
                 rows.push(CascadeRow {
                     outer_verdict: Some(assess(&e, &outer.spec)),
-                    outer: Some(*e),
+                    outer: Some(e),
                     skipped: None,
                     screened: true,
                     ..skip(String::new())
@@ -437,7 +440,7 @@ fn rows_at(
             point,
             inner: inner.clone(),
             inner_verdict: inner_verdict.clone(),
-            outer: Some(e),
+            outer: Some(Box::new(e)),
             outer_verdict: Some(verdict),
             skipped: None,
             screened: false,
@@ -481,21 +484,45 @@ pub fn cascade_rows_with(
     full: bool,
     known: &InnerEvaluations,
 ) -> Vec<CascadeRow> {
+    let jobs = jobs(case, pc);
+    jobs.par_iter()
+        .flat_map_iter(|(s, (f, ns))| rows_at(case, pc, s, *f, ns, full, known))
+        .collect()
+}
+
+/// The grid's jobs in grid order: one per (series, inner rate), with the
+/// ratios there. None without `[outer]`.
+fn jobs(case: &Case, pc: &PreparedCascade) -> Vec<(Series, (f64, Vec<usize>))> {
     let Some(outer) = &case.outer else {
         return Vec::new();
     };
-    let series = case_series(case, outer);
     let pairs = case_pairs(case, pc, outer);
-    let jobs: Vec<(&Series, &(f64, Vec<usize>))> = series
-        .iter()
-        .flat_map(|s| pairs.iter().map(move |p| (s, p)))
-        .collect();
-    jobs.par_iter()
-        .map(|(s, (f, ns))| rows_at(case, pc, s, *f, ns, full, known))
-        .collect::<Vec<_>>()
+    case_series(case, outer)
         .into_iter()
-        .flatten()
+        .flat_map(|s| pairs.iter().map(move |p| (s, p.clone())))
         .collect()
+}
+
+/// Jobs (series, inner rate) evaluated side by side before their rows are
+/// handed on, per worker thread: enough to keep the threads busy, few
+/// enough that memory does not grow with the grid.
+const STREAM_JOBS_PER_THREAD: usize = 8;
+
+/// Every row of the cascade grid with every pair evaluated (`sweep`),
+/// handed to `each` in grid order as the evaluations finish: the jobs run
+/// in parallel a batch at a time, so only one batch of rows is held
+/// (memory flat in the grid size), and the rows are those of
+/// `cascade_rows(case, pc, true)`, in its order.
+pub fn each_cascade_row(case: &Case, pc: &PreparedCascade, each: &mut dyn FnMut(CascadeRow)) {
+    let known = InnerEvaluations::default();
+    let batch = STREAM_JOBS_PER_THREAD * rayon::current_num_threads().max(1);
+    for chunk in jobs(case, pc).chunks(batch) {
+        let rows: Vec<Vec<CascadeRow>> = chunk
+            .par_iter()
+            .map(|(s, (f, ns))| rows_at(case, pc, s, *f, ns, true, &known))
+            .collect();
+        rows.into_iter().flatten().for_each(&mut *each);
+    }
 }
 
 /// Per inner rate of a series, the largest ratio that meets both specs.

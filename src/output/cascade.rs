@@ -12,7 +12,7 @@ use crate::case::Case;
 use crate::engineering::{hz, periods, periods_of, sig4 as fmt_num};
 use crate::error::Error;
 use crate::explore::cascade::{
-    CascadePick, CascadeRow, CascadeSearch, cascade_rows, prepare_cascade,
+    CascadePick, CascadeRow, CascadeSearch, each_cascade_row, prepare_cascade,
 };
 use crate::explore::pick::PickReport;
 use crate::model::discretize::MethodChoice;
@@ -20,7 +20,7 @@ use crate::output::cascade_charts::{CPU_MAP, write_cascade_charts};
 use crate::output::charts::Chart;
 use crate::output::report::{Block, Detail, push_if, write_report_extra};
 use crate::output::summary::{evaluation_json, evaluation_text};
-use crate::output::tables::figure_cells;
+use crate::output::tables::{SweepCsvStream, figure_cells};
 use crate::output::writer::write_atomic;
 use crate::sampled::cascade::evaluate::{CascadePoint, PreparedCascade};
 use crate::sampled::evaluate::Evaluation;
@@ -166,7 +166,7 @@ pub fn cascade_record(r: &CascadeRow, outer_hold: bool) -> Vec<String> {
         (None, Some(why)) => why.clone(),
         (None, None) => String::new(),
     });
-    figures(r.outer.as_ref(), &mut cells);
+    figures(r.outer.as_deref(), &mut cells);
     match &r.outer_verdict {
         Some(v) => {
             cells.push(v.feasible.to_string());
@@ -411,10 +411,7 @@ pub fn finish_pick(
     searched: CascadeSearch,
 ) -> Result<CascadeRun, Error> {
     let CascadeSearch { rows, pick } = searched;
-    write_atomic(
-        &out_dir.join("sweep.csv"),
-        &cascade_csv(&rows, hold_named(case)),
-    )?;
+    write_rows(out_dir, case, |each| rows.iter().for_each(each))?;
     let mut json = serde_json::to_value(report).unwrap_or(Value::Null);
     if let Value::Object(m) = &mut json {
         m.insert(
@@ -443,14 +440,27 @@ pub fn finish_pick(
 }
 
 /// The cascade part of `sweep` on a case with `[outer]`: every pair
-/// evaluated, written to `sweep.csv`; returns the rows.
-pub fn finish_sweep(out_dir: &Path, case: &Case) -> Result<Vec<CascadeRow>, Error> {
+/// evaluated and written to `sweep.csv` as it is finished (the bytes of
+/// [`cascade_csv`] over `cascade_rows(case, pc, true)`; only a batch of
+/// rows held at a time).
+pub fn finish_sweep(out_dir: &Path, case: &Case) -> Result<(), Error> {
     let pc = prepare_cascade(case)?
         .ok_or_else(|| Error::Input("the case has no [outer] table".into()))?;
-    let rows = cascade_rows(case, &pc, true);
-    write_atomic(
-        &out_dir.join("sweep.csv"),
-        &cascade_csv(&rows, hold_named(case)),
-    )?;
-    Ok(rows)
+    write_rows(out_dir, case, |each| {
+        each_cascade_row(case, &pc, &mut |row| each(&row))
+    })
+}
+
+/// `sweep.csv` of a cascade, the bytes of [`cascade_csv`], written line by
+/// line as `rows` hands the rows over (nothing but a line held).
+fn write_rows(
+    out_dir: &Path,
+    case: &Case,
+    rows: impl FnOnce(&mut dyn FnMut(&CascadeRow)),
+) -> Result<(), Error> {
+    let hold = hold_named(case);
+    let path = out_dir.join("sweep.csv");
+    let mut stream = SweepCsvStream::create_lines(&path, &cascade_header(hold), "cascade")?;
+    rows(&mut |row| stream.push_record(cascade_record(row, hold)));
+    stream.finish()
 }

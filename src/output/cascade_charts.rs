@@ -140,7 +140,7 @@ fn vs_ratio(
                         .as_ref()
                         .is_some_and(|f| f.not_computed.is_empty()) =>
                 {
-                    e.clone()
+                    (**e).clone()
                 }
                 Some(e) if e.figures.is_none() => continue,
                 _ => pc.evaluate_outer(&r.point, false),

@@ -287,6 +287,22 @@ impl SweepCsvStream {
         SweepCsvStream::create_with(path, series, series_len, &header, "variants")
     }
 
+    /// Any CSV of one series in row order, `header` first: the lines
+    /// given to [`SweepCsvStream::push_record`] (the cascade's
+    /// `sweep.csv`).
+    pub fn create_lines(
+        path: &Path,
+        header: &[String],
+        prefix: &'static str,
+    ) -> Result<SweepCsvStream, Error> {
+        SweepCsvStream::create_with(path, 1, usize::MAX, header, prefix)
+    }
+
+    /// Add one line of a stream made by [`SweepCsvStream::create_lines`].
+    pub fn push_record(&mut self, record: Vec<String>) {
+        self.write_records(0, [record]);
+    }
+
     fn create_with(
         path: &Path,
         series: usize,

@@ -108,6 +108,12 @@ use crate::sampled::output_map::{OutputMap, ROUNDING_MARGIN, crossing, mat_vec};
 /// budget can run out.
 pub const LEAF_BUDGET: u64 = 1 << 12;
 
+/// Most output points (over every period kept) a run's cache of opened
+/// periods holds: 8 MB of values. A lifted cascade period has hundreds of
+/// points, and a lightly damped pair opened 8192 periods of 800 points
+/// (52 MB an evaluation, a thread) before this cap.
+const LEAF_CACHE_POINTS: usize = 1 << 20;
+
 /// Most nodes (of any level) one search looks at: with bounds that rule
 /// little out, a search could otherwise open most of a tree of up to 2^52
 /// periods without reaching a single period. Past it the figure is
@@ -664,7 +670,9 @@ struct Run<'s, 'a> {
     /// its points are the same numbers whichever search opens it first
     /// (the peak, rise and settling searches of one response open many of
     /// the same periods; a period of a lifted cascade loop has hundreds of
-    /// points). At most `LEAF_BUDGET` a search.
+    /// points). At most `LEAF_BUDGET` a search, and no more kept than
+    /// `LEAF_CACHE_POINTS` points in all: a period opened again past that
+    /// is made again from its node, the same numbers.
     leaves: RefCell<HashMap<u64, Rc<Leaf>, BuildHasherDefault<NodeHasher>>>,
     /// Whether new bounds carry the parabola (set for the output's peak
     /// searches only, see `Slope`).
@@ -1153,13 +1161,17 @@ impl<'s, 'a> Run<'s, 'a> {
     }
 
     /// `leaf` of period k reached down the tree (`dz` makes its node's
-    /// state error), computed once a run.
+    /// state error), computed once a run while the cache has room
+    /// (`LEAF_CACHE_POINTS`).
     fn tree_leaf(&self, k: u64, dz: impl FnOnce() -> Rc<[f64]>) -> Rc<Leaf> {
         if let Some(l) = self.leaves.borrow().get(&k) {
             return l.clone();
         }
         let l = Rc::new(self.leaf(k, &dz()));
-        self.leaves.borrow_mut().insert(k, l.clone());
+        let mut cache = self.leaves.borrow_mut();
+        if (cache.len() + 1) * self.s.map.np.max(1) <= LEAF_CACHE_POINTS {
+            cache.insert(k, l.clone());
+        }
         l
     }
 
