@@ -529,3 +529,38 @@ fn a_long_trace_keeps_bounded_periods_and_the_walk_values() {
     assert!(far.len() <= TRACE_PERIODS as usize * np);
     assert!(far.last().unwrap().t > 0.99 * 1e9);
 }
+
+/// A loop without integral action settles a load step at a lasting offset:
+/// plant 1/(s+1) under a gain of 10, a unit load at the plant input, ends
+/// at yd_final = 1/(1 + 10) (closed form: final-value theorem), reached
+/// from below without passing it. The load-step peak is the supremum of
+/// |y| over t >= 0, that offset, decided on the sampled loop and on the
+/// continuous design (it read `undecided` before 2026-12-05: no sample
+/// ever reaches the limit).
+#[test]
+fn load_step_peak_of_a_lasting_offset_is_the_offset() {
+    let plant = transfer(&[1.0], &[1.0, 1.0]);
+    let sensor = transfer(&[1.0], &[1.0]);
+    let c = Controller::Continuous(transfer(&[10.0], &[1.0]));
+    let lp = PreparedLoop::new(&plant, &sensor, &c, None, TimeOptions::default()).unwrap();
+    let offset = 1.0 / 11.0;
+    let design = lp.design.as_ref().and_then(|e| e.figures.as_ref()).unwrap();
+    assert!(design.undecided.is_empty(), "{:?}", design.undecided);
+    assert!((design.disturbance_peak - offset).abs() < 1e-12);
+    for (rate, d) in [(100.0, 0.0), (1000.0, 0.5), (20_000.0, 1.0)] {
+        let p = Point {
+            rate_hz: rate,
+            method: Some(Method::Tustin),
+            delay: d,
+            hold: HoldKind::ZeroOrder,
+        };
+        let f = lp.sampled(&p).figures.unwrap();
+        assert!(f.undecided.is_empty(), "{rate} Hz: {:?}", f.undecided);
+        assert!(
+            (f.disturbance_peak - offset).abs() < 1e-12,
+            "{rate} Hz: {}",
+            f.disturbance_peak
+        );
+        assert!(f.recovery_time_s.is_some_and(|t| t > 0.0), "{rate} Hz");
+    }
+}

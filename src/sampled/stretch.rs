@@ -1623,8 +1623,13 @@ impl<'a> Stretches<'a> {
         );
         let tol = 16.0 * run.y_floor + 1e-12 * scale;
         run.bend.set(true);
+        // The peak is the supremum of |y| over every t >= 0, the limit
+        // |yd_final| included (as the command peak starts from |u_final|):
+        // a response that creeps up to its own final value without passing
+        // it has that as its peak, which the sign-aware tail bound proves,
+        // instead of an undecided search for a larger value.
         let (peak, peak_decided) = run.max_search(
-            0.0,
+            yd_final.abs(),
             tol,
             |b| b.y_lo.abs().max(b.y_hi.abs()),
             true,

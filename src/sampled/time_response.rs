@@ -1014,9 +1014,11 @@ fn walk_disturbance(
 ) -> DisturbanceFigures {
     let band = opts.band;
     let end = Some((&ends.zw, cert));
+    // From |yd_final|: the peak is the supremum over t >= 0, the limit
+    // included (`Stretches::disturbance`).
     let mut peak = Peak {
         y_final: ends.yd_final,
-        peak: 0.0,
+        peak: ends.yd_final.abs(),
     };
     let n = periods.min(opts.walk_budget) as usize;
     let cut = (n as u64) < periods;
@@ -1112,9 +1114,11 @@ pub fn walked_figures(
     let mut m = StepMetrics::new(ends.y_final, opts.band).with_u_final(ends.u_final);
     simulate_sampled(cl, &map, t, 1.0, 0.0, periods, None, &mut m);
     let step = m.finish(periods as f64 * t, false);
+    // From |yd_final|: the peak is the supremum over t >= 0, the limit
+    // included (`Stretches::disturbance`).
     let mut peak = Peak {
         y_final: ends.yd_final,
-        peak: 0.0,
+        peak: ends.yd_final.abs(),
     };
     simulate_sampled(cl, &map, t, 0.0, 1.0, periods, None, &mut peak);
     let mut rec = Recovery {
@@ -1169,7 +1173,7 @@ pub fn continuous_metrics(
         let (y, u) = step(i);
         m.push(i as f64 * h, y, u);
     }
-    let peak = dist.iter().fold(0.0f64, |a, v| a.max(v.abs()));
+    let peak = (dist.iter()).fold(yd_final.abs(), |a, v| a.max(v.abs()));
     let mut rec = Recovery {
         yd_final,
         threshold: band * peak,
