@@ -1,8 +1,9 @@
 //! The exact delay margin's cost: one point's full figures with the margin
 //! searched (`sampled_exact`) against the same point without it
 //! (`sampled`), on the loop of README's delay-margin case (about 14 periods
-//! of margin) and on a loop sampled 120 times its crossover (the margin
-//! near the 64-period cap); and the motor-drive cascade's outer loop with
+//! of margin) and on loops sampled 120 and 1000 times its crossover (the
+//! margin near and far past the 64 periods a search on poles stopped at);
+//! and the motor-drive cascade's outer loop with
 //! and without its margin (whole inner ticks).
 
 use std::path::PathBuf;
@@ -48,7 +49,7 @@ fn margin_loop() -> (PreparedLoop, f64) {
 
 fn single_loop(c: &mut Criterion) {
     let (lp, fc) = margin_loop();
-    for ratio in [36.85, 120.0] {
+    for ratio in [36.85, 120.0, 1000.0] {
         let p = Point {
             rate_hz: ratio * fc,
             method: Some(Method::Tustin),

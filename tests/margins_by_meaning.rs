@@ -648,3 +648,42 @@ fn delay_margin_is_the_first_loss_even_where_stability_comes_back() {
     let (_, flips) = first_loss_against_dense_scan(&rl, 400, 4000);
     assert!(flips[1].0 < 1.05 * flips[0].0, "flips {flips:?}");
 }
+
+#[test]
+fn delay_margin_of_a_loop_sampled_far_faster_than_its_crossover() {
+    // An integrator plant 1/s under a gain of 1: the continuous loop 1/s
+    // crosses over at 1 rad/s with 90 deg of phase margin, so its delay
+    // margin is pi/2 s (closed form). Sampled at 100 Hz behind a zero-order
+    // hold, which to first order in wT acts as a delay of half a period
+    // (from memory), the exact sampled margin is about pi/2 - T/2 =
+    // 1.5658 s, 157 periods: past the 64 periods the search on poles once
+    // stopped at ("not located").
+    let lp = prepared(
+        &transfer(&[1.0], &[1.0, 0.0]),
+        &Transfer::gain(1.0),
+        &Transfer::gain(1.0),
+    );
+    let p = Point {
+        rate_hz: 100.0,
+        method: Some(Method::Tustin),
+        delay: 0.0,
+        hold: HoldKind::ZeroOrder,
+    };
+    let f = lp
+        .evaluate(&p, Given::with_delay_margin())
+        .figures
+        .expect("stable");
+    let dm = f.delay_margin_s.expect("a delay margin");
+    let first_order = std::f64::consts::FRAC_PI_2 - 0.5 / p.rate_hz;
+    assert!(
+        // The next term is second order in wT = 0.01 (measured: 8e-6).
+        (dm - first_order).abs() < 1e-4 * first_order,
+        "margin {dm} s against pi/2 - T/2 = {first_order} s"
+    );
+    // By its meaning, on the exact loop's poles (a 160-state loop).
+    let c = lp.controller_at(p.rate_hz, p.method).unwrap();
+    for k in [0.5, 0.98, 0.9999] {
+        assert!(stable_with(&lp, &delayed(&p, k * dm), &c), "{k} x margin");
+    }
+    assert!(!stable_with(&lp, &delayed(&p, dm * (1.0 + 1e-4)), &c));
+}

@@ -23,11 +23,12 @@
 //! first unstable trial is refined by bisection against the last stable
 //! one. Every loop is capped.
 
+use crate::model::poly::C64;
 use crate::model::state_space::StateSpace;
 use crate::model::transfer::DiscreteTransfer;
-use crate::sampled::closed_loop::{ClosedLoop, LoopError, STABILITY_TOLERANCE};
-use crate::sampled::frequency::LoopFigures;
-use crate::sampled::hold::{Actuation, HoldEquivalent};
+use crate::sampled::closed_loop::{LoopError, STABILITY_TOLERANCE};
+use crate::sampled::frequency::{FrequencyRange, LoopFigures, unwrapped_crossings};
+use crate::sampled::hold::{Actuation, HoldEquivalent, split_delay};
 
 /// Largest rotation (rad) of the fastest gain crossing between two trial
 /// delays of the scan.
@@ -67,63 +68,221 @@ pub enum DelayMargin {
     NotLocated(String),
 }
 
+/// Fewest fractions of a period whose loops the single-loop search
+/// builds (`exact_delay_margin`): a delay changes the shape of the command
+/// inside the period, which repeats every period, and a window of
+/// instability can open and close within one (`docs/figures.md`).
+const FRACTIONS_PER_PERIOD: f64 = 16.0;
+/// Most fractions per period (the fastest crossing's turn per fraction
+/// kept under `STEP_RAD` up to Nyquist needs 32).
+const MAX_FRACTIONS: f64 = 32.0;
+/// Most level passings followed in one fraction's closed form before it is
+/// taken to stay stable (the first one loses stability on every loop but
+/// a symmetric one).
+const MAX_EVENTS: usize = 64;
+
+/// One fraction's loop: its gain crossings in radians a period (`theta`,
+/// in (0, pi)), their unwrapped phases (rad) and how |L| stands at the
+/// ends; the loop with `m` more whole periods of delay has the same
+/// crossings with phases `phi - m theta` (`z^-m` rotates, the magnitude
+/// stays).
+#[derive(Debug, Clone)]
+struct Fraction {
+    theta: Vec<f64>,
+    phi: Vec<f64>,
+    above_low: bool,
+    /// `Some(j)`: |L| > 1 at Nyquist, where the phase is `j pi`.
+    nyquist_turns: Option<i64>,
+    /// The low end's unwrapped phase, deg (the branch for the others).
+    low_phase_deg: f64,
+}
+
+/// The band of a phase (rad) between two -180 deg levels:
+/// `floor((x - pi) / 2 pi)`.
+fn band(x: f64) -> i64 {
+    ((x - std::f64::consts::PI) / std::f64::consts::TAU).floor() as i64
+}
+
+impl Fraction {
+    /// The signed number of times the loop gain with `m` more whole periods
+    /// of delay crosses the ray (-inf, -1) over the whole unit circle, up to
+    /// a constant that is the same for every fraction and delay (the
+    /// encirclements of -1: `docs/figures.md`, exact delay margin). Each
+    /// stretch of the circle where |L| > 1 adds the change of band of its
+    /// phase from its start to its end; a stretch between two crossings
+    /// counts twice (its mirror image below the real axis), one through
+    /// w = 0 or through Nyquist once, from its mirrored end.
+    fn encirclements(&self, m: f64) -> i64 {
+        let at = |i: usize| self.phi[i] - m * self.theta[i];
+        let (mut count, mut inside, mut start) = (0, self.above_low, None);
+        for i in 0..self.theta.len() {
+            if inside {
+                count += match start {
+                    None => band(at(i)) - band(-at(i)),
+                    Some(a) => 2 * (band(at(i)) - band(at(a))),
+                };
+            } else {
+                start = Some(i);
+            }
+            inside = !inside;
+        }
+        if let (true, Some(j)) = (inside, self.nyquist_turns) {
+            // The phase at Nyquist, (j - m) pi, mirrors the stretch about it.
+            let turns = j - m as i64;
+            count += match start {
+                None => (turns - 1).div_euclid(2) - (-turns - 1).div_euclid(2),
+                Some(a) => turns + band(-at(a)) - band(at(a)),
+            };
+        }
+        count
+    }
+
+    /// The first `r >= 1` at which the encirclements with `m0 + r` whole
+    /// periods differ from `reference`: a crossing's phase passes a level
+    /// (in closed form, `phi - m theta` falls by `theta` a period), or,
+    /// with |L| > 1 at Nyquist, the next period (the loop gain there is
+    /// real and turns from `a` to `-a` over each period, so it passes -1).
+    /// None when it stays equal through `MAX_EVENTS` passings, or nothing
+    /// ever passes.
+    fn first_change(&self, m0: f64, reference: i64) -> Option<f64> {
+        let mut r = 0.0;
+        for _ in 0..MAX_EVENTS {
+            let mut next = f64::INFINITY;
+            if self.nyquist_turns.is_some() {
+                next = r + 1.0;
+            }
+            for (&theta, &phi) in self.theta.iter().zip(&self.phi) {
+                let x = phi - (m0 + r) * theta - std::f64::consts::PI;
+                let above = x.rem_euclid(std::f64::consts::TAU);
+                next = next.min(r + (above / theta).floor() + 1.0);
+            }
+            if !next.is_finite() {
+                return None;
+            }
+            r = next;
+            if self.encirclements(m0 + r) != reference {
+                return Some(r);
+            }
+        }
+        None
+    }
+}
+
 /// The exact delay margin of the loop of `plant_model` (from
 /// `hold::plant_and_sensor`) closed by `controller` at `period_s` with the
 /// hold and delays of `act` (the extra delay adds to its actuator delay),
-/// whose loop figures are `freq`
-/// (the crossings seed the step and the candidates). The loop must be
-/// stable without extra delay.
+/// whose loop figures are computed on `range`. The loop must be stable
+/// without extra delay.
+///
+/// Stability is counted, not searched on poles: a whole period of delay
+/// rotates the loop gain by `wT` and leaves |L| alone, so the loop of a
+/// delay `m + f` periods has the gain crossings of the loop of its fraction
+/// `f` with phases turned by `m wT`, and it is stable exactly when its
+/// encirclements of -1 equal those of the loop as it is (Nyquist: the
+/// open-loop poles outside the circle do not change with the delay). The
+/// loops of `FRACTIONS_PER_PERIOD` (or more) fractions of a period are
+/// built once each; for each, the first whole number of periods that loses
+/// stability is found in closed form from its crossings; the earliest over
+/// the fractions is refined by bisection, each trial building the loop of
+/// its own fraction. The cost does not grow with the number of periods.
 pub fn exact_delay_margin(
     plant_model: &StateSpace,
     controller: &DiscreteTransfer,
     period_s: f64,
     act: &Actuation,
-    freq: &LoopFigures,
+    range: &FrequencyRange,
 ) -> DelayMargin {
-    let delay_periods = act.delay_periods;
-    let seeds = match crossing_seeds(freq) {
-        Ok(v) => v,
-        Err(m) => return m,
-    };
-    let max_delay_s = (MAX_DELAY_PERIODS - delay_periods).max(0.0) * period_s;
-    let radius_at = |extra_s: f64| -> Result<f64, LoopError> {
-        let d = delay_periods + extra_s / period_s;
+    let delay0 = act.delay_periods;
+    let not_located = |why: String| DelayMargin::NotLocated(why);
+    // The loop of a delay of `d` periods, as its fraction's crossings and
+    // the whole periods beyond them.
+    let fraction_at = |d: f64, branch: Option<f64>| -> Result<(Fraction, f64), String> {
+        let (whole, fraction) = split_delay(d);
         let at = Actuation {
-            delay_periods: d,
+            delay_periods: fraction,
             ..*act
         };
         let hold = HoldEquivalent::with(plant_model, period_s, &at, 1)
-            .map_err(LoopError::PlantEquivalent)?;
-        let cl = ClosedLoop::new(&hold, controller).map_err(LoopError::ClosingLoop)?;
-        let poles = cl.poles().map_err(LoopError::Poles)?;
-        Ok(poles.iter().map(|p| p.norm()).fold(0.0, f64::max))
-    };
-    // The candidates a hair past, so a crossing the estimate predicts
-    // exactly is tried.
-    let candidates: Vec<f64> = seeds
-        .candidates_s
-        .iter()
-        .map(|d| d * (1.0 + 1e-6))
-        .filter(|&d| d <= max_delay_s)
-        .collect();
-    let scan = DelayScan {
-        max: max_delay_s,
-        step: scan_step(seeds.w_fast, period_s),
-        candidates,
-        whole: false,
-    };
-    match first_unstable(&scan, radius_at) {
-        FirstUnstable::Between { stable, unstable } => {
-            DelayMargin::Seconds(0.5 * (stable + unstable))
+            .map_err(|e| LoopError::PlantEquivalent(e).to_string())?;
+        let pulse = hold.augmented();
+        let l = |w: f64| {
+            let z = C64::from_polar(1.0, w * period_s);
+            controller.transfer.eval(z) * pulse.response_at(z, 0)
+        };
+        let x = unwrapped_crossings(&l, range, branch).ok_or_else(|| {
+            format!("the crossings of |L| = 1 could not be counted with {d:.6} periods of delay")
+        })?;
+        // |L| alternates about 1 from crossing to crossing: a crossing
+        // missed would miscount.
+        if x.above_low ^ (x.at.len() % 2 == 1) != x.above_high {
+            return Err(format!(
+                "the crossings of |L| = 1 with {d:.6} periods of delay do not alternate"
+            ));
         }
-        FirstUnstable::StableUpTo(x) => DelayMargin::NotLocated(format!(
-            "the loop stayed stable for every extra delay tried up to {:.6e} s ({:.0} periods in all)",
-            x,
-            delay_periods + x / period_s
-        )),
-        FirstUnstable::Failed(e) => DelayMargin::NotLocated(e.to_string()),
-        FirstUnstable::NoStep(step) => DelayMargin::NotLocated(no_step(step)),
+        let turns = x.high_phase_deg / 180.0;
+        let nyquist_turns = x.above_high.then(|| turns.round() as i64);
+        let f = Fraction {
+            theta: x.at.iter().map(|c| c.0 * period_s).collect(),
+            phi: x.at.iter().map(|c| c.1.to_radians()).collect(),
+            above_low: x.above_low,
+            nyquist_turns,
+            low_phase_deg: x.low_phase_deg,
+        };
+        Ok((f, whole as f64))
+    };
+    let (f0, m0) = match fraction_at(delay0, None) {
+        Ok(v) => v,
+        Err(e) => return not_located(e),
+    };
+    let reference = f0.encirclements(m0);
+    let branch = Some(f0.low_phase_deg);
+    let stable_at = |d: f64| fraction_at(d, branch).map(|(f, m)| f.encirclements(m) == reference);
+    // Fractions: every frequency up to the fastest crossing turns by at
+    // most STEP_RAD from one to the next.
+    let theta_fast = f0.theta.iter().copied().fold(0.0, f64::max);
+    let n = (theta_fast / STEP_RAD)
+        .ceil()
+        .clamp(FRACTIONS_PER_PERIOD, MAX_FRACTIONS);
+    let mut first: Option<f64> = None;
+    for j in 1..=(n as usize) {
+        let d = delay0 + j as f64 / n;
+        let (f, m) = match fraction_at(d, branch) {
+            Ok(v) => v,
+            Err(e) => return not_located(e),
+        };
+        let r = if f.encirclements(m) != reference {
+            Some(0.0)
+        } else {
+            f.first_change(m, reference)
+        };
+        if let Some(r) = r {
+            first = Some(first.map_or(d + r, |v: f64| v.min(d + r)));
+        }
     }
+    let Some(unstable) = first else {
+        return if f0.theta.is_empty() && f0.nyquist_turns.is_none() {
+            DelayMargin::NoCrossing
+        } else {
+            not_located(format!(
+                "the loop stayed stable at every delay counted ({MAX_EVENTS} level passings at each of {n} fractions of a period)"
+            ))
+        };
+    };
+    // Every trial below `unstable` is stable: it is a fraction's trial
+    // before that fraction's first change.
+    let (mut lo, mut hi) = ((unstable - 1.0 / n).max(delay0), unstable);
+    for _ in 0..MAX_BISECT + 16 {
+        if hi - lo <= 1e-10 * hi {
+            break;
+        }
+        let mid = 0.5 * (lo + hi);
+        match stable_at(mid) {
+            Ok(true) => lo = mid,
+            Ok(false) => hi = mid,
+            Err(e) => return not_located(e),
+        }
+    }
+    DelayMargin::Seconds((0.5 * (lo + hi) - delay0) * period_s)
 }
 
 /// The note of a search that had no usable step.

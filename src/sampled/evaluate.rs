@@ -723,7 +723,7 @@ impl PreparedLoop {
         let range = self.range_below(std::f64::consts::PI / t);
         let freq = loop_figures(&l, &range);
         let margin = exact_margin
-            .then(|| exact_delay_margin(&self.plant_model, c, t, &hold.actuation(), &freq));
+            .then(|| exact_delay_margin(&self.plant_model, c, t, &hold.actuation(), &range));
         let mut e = finish(step, dist, freq, &poles);
         record_delay_margin(&mut e, margin);
         e

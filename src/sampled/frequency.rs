@@ -202,12 +202,11 @@ pub fn unwrapped_phase(grid: &[(f64, C64)]) -> Vec<f64> {
     out
 }
 
-/// All loop figures from the exact loop gain `l(w)` (w in rad/s).
-pub fn loop_figures(l: &dyn Fn(f64) -> C64, range: &FrequencyRange) -> LoopFigures {
-    // A loop with integrators has |L| growing without bound at low
-    // frequency: if |L| is still below 1 at the grid's low end and rising
-    // towards it, the gain crossing lies lower; extend the range down a
-    // decade at a time until |L| exceeds 1 (at most 15 decades).
+/// `range` extended down for a loop with integrators: |L| grows without
+/// bound at low frequency, so if it is still below 1 at the grid's low end
+/// and rising towards it, the gain crossing lies lower; the range goes
+/// down a decade at a time until |L| exceeds 1 (at most 15 decades).
+fn extended_below(l: &dyn Fn(f64) -> C64, range: &FrequencyRange) -> FrequencyRange {
     let mut range = range.clone();
     for _ in 0..15 {
         let (a, b) = (l(range.w_lo).norm(), l(range.w_lo / 10.0).norm());
@@ -216,33 +215,32 @@ pub fn loop_figures(l: &dyn Fn(f64) -> C64, range: &FrequencyRange) -> LoopFigur
         }
         range.w_lo /= 10.0;
     }
-    let range = &range;
-    let points = loop_grid_points(l, range);
-    let grid: Vec<(f64, C64)> = points.iter().map(|p| (p.w, p.l)).collect();
-    let phase = unwrapped_phase(&grid);
-    let two_pi = 2.0 * std::f64::consts::PI;
-    let tol = 1e-10;
+    range
+}
 
-    // Gain crossings: sign changes of ln|L|, refined in ln w.
-    let mut gain_x: Vec<(f64, f64)> = Vec::new(); // (w, PM deg)
-    for i in 0..grid.len().saturating_sub(1) {
-        let (w0, w1) = (grid[i].0, grid[i + 1].0);
-        let (g0, g1) = (points[i].ln_mag, points[i + 1].ln_mag);
+/// Every gain crossing of `l` (rad/s) on the grid `points`, ascending,
+/// each with the index of the grid point its phase is unwrapped from:
+/// sign changes of ln|L| refined in ln w (Brent, 1e-10), and a local
+/// extremum of |L| between grid points that pokes across 1 and back with
+/// no sign change of ln|L| at any grid point (a broad, shallow bump just
+/// touching 1, or a resonance peak): every grid point whose ln|L| is a
+/// local maximum below 0 (or minimum above 0) within a factor e of 1 is
+/// refined to the exact extremum (Brent, in ln w between its neighbours);
+/// if that crosses 1, its two crossings are added (`docs/figures.md`, how
+/// crossings are found).
+fn gain_crossings(l: &dyn Fn(f64) -> C64, points: &[GridPoint]) -> Vec<(f64, usize)> {
+    let tol = 1e-10;
+    let mut out: Vec<(f64, usize)> = Vec::new();
+    for (i, pair) in points.windows(2).enumerate() {
+        let (w0, w1) = (pair[0].w, pair[1].w);
+        let (g0, g1) = (pair[0].ln_mag, pair[1].ln_mag);
         if g0.is_finite() && g1.is_finite() && (g0 > 0.0) != (g1 > 0.0) {
             let f = |x: f64| l(x.exp()).norm().ln();
             if let Some(x) = scalar_solve::root(&f, w0.ln(), w1.ln(), tol) {
-                let w = x.exp();
-                gain_x.push((w, wrap_deg(180.0 + arg_deg(l(w)))));
+                out.push((x.exp(), i));
             }
         }
     }
-    // A local extremum of |L| between grid points can poke across 1 and
-    // back with no sign change of ln|L| at any grid point (a broad, shallow
-    // bump just touching 1, or a resonance peak): every grid point whose
-    // ln|L| is a local maximum below 0 (or minimum above 0) within a factor
-    // e of 1 is refined to the exact extremum (Brent, in ln w between its
-    // neighbours); if that crosses 1, its two crossings are added
-    // (`docs/figures.md`, how crossings are found).
     for i in 1..points.len().saturating_sub(1) {
         let (gl, g, gr) = (points[i - 1].ln_mag, points[i].ln_mag, points[i + 1].ln_mag);
         if !(gl.is_finite() && g.is_finite() && gr.is_finite()) || g.abs() > 1.0 {
@@ -261,10 +259,79 @@ pub fn loop_figures(l: &dyn Fn(f64) -> C64, range: &FrequencyRange) -> LoopFigur
         let (a, b) = (points[i - 1].w.ln(), points[i + 1].w.ln());
         let g = |x: f64| l(x.exp()).norm().ln();
         for w in crossings_of_extremum(&|x| -sign * g(x), &g, (a, b), tol) {
-            gain_x.push((w, wrap_deg(180.0 + arg_deg(l(w)))));
+            out.push((w, i));
         }
     }
-    gain_x.sort_by(|a, b| a.0.total_cmp(&b.0));
+    out.sort_by(|a, b| a.0.total_cmp(&b.0));
+    out
+}
+
+/// The gain crossings of a loop with their phases, unwrapped along the
+/// frequency grid: what the exact delay margin counts encirclements of -1
+/// from (`delay_margin`, `docs/figures.md`).
+#[derive(Debug, Clone, PartialEq)]
+pub struct UnwrappedCrossings {
+    /// `(w rad/s, phase deg)` at each gain crossing, ascending in `w`; the
+    /// phases continuous along the grid from its low end.
+    pub at: Vec<(f64, f64)>,
+    /// The unwrapped phase at the grid's low end, deg (the branch every
+    /// phase is on).
+    pub low_phase_deg: f64,
+    /// |L| > 1 at the grid's low end.
+    pub above_low: bool,
+    /// |L| > 1 at the grid's high end.
+    pub above_high: bool,
+    /// The unwrapped phase at the grid's high end, deg.
+    pub high_phase_deg: f64,
+}
+
+/// The gain crossings of `l` over `range` (extended down as for
+/// `loop_figures`) with unwrapped phases; `branch_deg` puts the low end's
+/// phase on the branch nearest to it (so that loops which differ a little
+/// unwrap alike), None on the principal one. None when a grid value is not
+/// finite or |L| = 1 over an interval or at an end (no crossing set to
+/// count from).
+pub fn unwrapped_crossings(
+    l: &dyn Fn(f64) -> C64,
+    range: &FrequencyRange,
+    branch_deg: Option<f64>,
+) -> Option<UnwrappedCrossings> {
+    let range = extended_below(l, range);
+    let points = loop_grid_points(l, &range);
+    let unit = |p: &GridPoint| p.ln_mag.abs() <= 1e-9;
+    if points.is_empty() || points.iter().any(|p| !p.ln_mag.is_finite() || unit(p)) {
+        return None;
+    }
+    let grid: Vec<(f64, C64)> = points.iter().map(|p| (p.w, p.l)).collect();
+    let mut phase = unwrapped_phase(&grid);
+    let shift = branch_deg.map_or(0.0, |b| 360.0 * ((b - phase[0]) / 360.0).round());
+    phase.iter_mut().for_each(|v| *v += shift);
+    let at = gain_crossings(l, &points)
+        .into_iter()
+        .map(|(w, i)| (w, phase[i] + arg_deg(l(w) / grid[i].1)))
+        .collect();
+    let (first, last) = (points[0], points[points.len() - 1]);
+    Some(UnwrappedCrossings {
+        at,
+        low_phase_deg: phase[0],
+        above_low: first.ln_mag > 0.0,
+        above_high: last.ln_mag > 0.0,
+        high_phase_deg: phase[phase.len() - 1],
+    })
+}
+
+/// All loop figures from the exact loop gain `l(w)` (w in rad/s).
+pub fn loop_figures(l: &dyn Fn(f64) -> C64, range: &FrequencyRange) -> LoopFigures {
+    let range = &extended_below(l, range);
+    let points = loop_grid_points(l, range);
+    let grid: Vec<(f64, C64)> = points.iter().map(|p| (p.w, p.l)).collect();
+    let phase = unwrapped_phase(&grid);
+    let two_pi = 2.0 * std::f64::consts::PI;
+    let tol = 1e-10;
+    let mut gain_x: Vec<(f64, f64)> = gain_crossings(l, &points)
+        .into_iter()
+        .map(|(w, _)| (w, wrap_deg(180.0 + arg_deg(l(w)))))
+        .collect(); // (w, PM deg)
     // Phase crossings at -180 + 360 k, refined on the locally unwrapped phase.
     let mut phase_x: Vec<(f64, f64)> = Vec::new(); // (w, GM dB)
     for i in 0..grid.len().saturating_sub(1) {
