@@ -445,29 +445,37 @@ use = ["tustin"]
 fn outer_margins_flip_stability_just_past_them() {
     let outer_sensor = "[outer.sensor]\ntransfer = \"1 / (0.0002*s + 1)\"";
     let (_, pc) = cascade(&drive(outer_sensor, 1.0, ""));
-    let p = point(20_000.0, 1.0, 10, 0.5);
-    let f = pc.evaluate_outer(&p, true).figures.unwrap();
-    let gm = f.gain_margin_db.unwrap();
-    for (db, stable) in [(gm - 0.1, true), (gm + 0.1, false)] {
-        let mut scaled = pc.clone();
-        let k = 10f64.powf(db / 20.0);
-        let c = continuous(&pc.outer_models.controller);
-        let tf = Transfer::new(c.numerator.scale(k), c.denominator.clone());
-        scaled.ideal.controller = Controller::Continuous(tf);
-        assert_eq!(scaled.screen(&p).is_none(), stable, "gain x {db} dB");
+    // Ratio 50: more ticks an outer period than the search builds loops
+    // for, so it brackets between fractions and bisects in whole ticks.
+    for ratio in [10usize, 50] {
+        let p = point(20_000.0, 1.0, ratio, 0.5);
+        let f = pc.evaluate_outer(&p, true).figures.unwrap();
+        let gm = f.gain_margin_db.unwrap();
+        for (db, stable) in [(gm - 0.1, true), (gm + 0.1, false)] {
+            let mut scaled = pc.clone();
+            let k = 10f64.powf(db / 20.0);
+            let c = continuous(&pc.outer_models.controller);
+            let tf = Transfer::new(c.numerator.scale(k), c.denominator.clone());
+            scaled.ideal.controller = Controller::Continuous(tf);
+            assert_eq!(scaled.screen(&p).is_none(), stable, "gain x {db} dB");
+        }
+        let dm = f.delay_margin_s.unwrap();
+        let t = 1.0 / 20_000.0;
+        let to = ratio as f64 * t;
+        for (extra, stable) in [(dm - 0.5 * t, true), (dm + 1e-3 * t, false)] {
+            let q = CascadePoint {
+                outer_delay: 0.5 + extra / to,
+                ..p
+            };
+            assert_eq!(
+                pc.screen(&q).is_none(),
+                stable,
+                "ratio {ratio}: extra delay {extra} s"
+            );
+        }
+        // The estimate from the phase sits near the exact figure here.
+        assert!((dm / f.delay_margin_estimate_s.unwrap() - 1.0).abs() < 0.2);
     }
-    let dm = f.delay_margin_s.unwrap();
-    let t = 1.0 / 20_000.0;
-    let to = 10.0 * t;
-    for (extra, stable) in [(dm - 0.5 * t, true), (dm + 1e-3 * t, false)] {
-        let q = CascadePoint {
-            outer_delay: 0.5 + extra / to,
-            ..p
-        };
-        assert_eq!(pc.screen(&q).is_none(), stable, "extra delay {extra} s");
-    }
-    // The estimate from the phase sits near the exact figure here.
-    assert!((dm / f.delay_margin_estimate_s.unwrap() - 1.0).abs() < 0.2);
 }
 
 /// CPU load by hand for the demo drive (900 cycles an inner update, 1500

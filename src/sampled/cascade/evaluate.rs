@@ -19,8 +19,7 @@ use crate::model::transfer::{Controller, DiscreteTransfer};
 use crate::sampled::cascade::lift::{CombinedPlant, InnerClosed, LiftError, Rows, combined_plant};
 use crate::sampled::closed_loop::{ClosedLoop, LoopError, Stability};
 use crate::sampled::delay_margin::{
-    DelayMargin, DelayScan, FirstUnstable, MAX_DELAY_PERIODS, crossing_seeds, first_unstable,
-    no_step, scan_step,
+    CountError, DelayMargin, Fraction, first_loss, fraction_of, margin_of,
 };
 use crate::sampled::evaluate::{
     Evaluation, Given, Point, PointError, PreparedLoop, Status, finish, record_delay_margin,
@@ -665,7 +664,7 @@ impl PreparedCascade {
             Ok(v) => v,
             Err(e) => return fail(&e),
         };
-        let margin = exact_margin.then(|| self.outer_delay_margin(inner, c, p, &freq));
+        let margin = exact_margin.then(|| self.outer_delay_margin(inner, c, p));
         let mut e = finish(step, dist, freq, &poles);
         record_delay_margin(&mut e, margin);
         OuterOutcome::Figures(Box::new(e))
@@ -698,49 +697,39 @@ impl PreparedCascade {
     /// in whole inner ticks: with `D` the outer delay (outer periods) and
     /// `j` the first tick count that is unstable, the margin is
     /// `(j - 1) T - D N T`, T the inner period (any extra delay beyond it
-    /// moves the command to tick `j`).
+    /// moves the command to tick `j`). Counted as the single loop's
+    /// (`delay_margin::first_loss`), on the lifted loops of the ticks
+    /// within an outer period (`docs/figures.md`).
     fn outer_delay_margin(
         &self,
         inner: &InnerClosed,
         c: &DiscreteTransfer,
         p: &CascadePoint,
-        freq: &LoopFigures,
     ) -> DelayMargin {
-        let seeds = match crossing_seeds(freq) {
-            Ok(v) => v,
-            Err(m) => return m,
-        };
         let t = inner.hold.period_s;
         let n = p.ratio;
-        let start = InnerClosed::delay_ticks(n, p.outer_delay);
-        let max_ticks = (MAX_DELAY_PERIODS * n as f64) as usize;
-        // Extra ticks past the outer delay's own.
-        let radius_at = |extra: f64| -> Result<f64, LoopError> {
-            let lifted = inner.lifted(n, start + extra as usize, p.outer_hold, Rows::None);
-            let cl = ClosedLoop::new(&lifted, c).map_err(LoopError::ClosingLoop)?;
-            let poles = cl.poles().map_err(LoopError::Poles)?;
-            Ok(poles.iter().map(|p| p.norm()).fold(0.0, f64::max))
+        let t_outer = n as f64 * t;
+        let range = self.outer_range(inner, t_outer);
+        // The lifted loop of a total delay of `d` outer periods: its ticks
+        // within the period (as `InnerClosed::lifted` splits them) and its
+        // whole periods.
+        let loop_at = |d: f64, branch: Option<f64>| -> Result<(Fraction, f64), CountError> {
+            let ticks = (d * n as f64).round().max(0.0) as usize;
+            let whole = if ticks <= n { 0 } else { ticks.div_ceil(n) - 1 };
+            let lifted = inner.lifted(n, ticks - whole * n, p.outer_hold, Rows::None);
+            let pulse = lifted.augmented();
+            let l = |w: f64| {
+                let z = C64::from_polar(1.0, w * t_outer);
+                c.transfer.eval(z) * pulse.response_at(z, 0)
+            };
+            Ok((fraction_of(&l, &range, t_outer, branch, d)?, whole as f64))
         };
-        // The estimate's own candidates, in ticks past the start.
-        let candidates: Vec<f64> = seeds.candidates_s.iter().map(|d| (d / t).ceil()).collect();
-        let scan = DelayScan {
-            max: max_ticks.saturating_sub(start) as f64,
-            step: scan_step(seeds.w_fast, n as f64 * t) / t,
-            candidates,
-            whole: true,
-        };
-        match first_unstable(&scan, radius_at) {
-            FirstUnstable::Between { unstable, .. } => {
-                let base = p.outer_delay * n as f64 * t;
-                let hi = start + unstable as usize;
-                DelayMargin::Seconds(((hi - 1) as f64 * t - base).max(0.0))
-            }
-            FirstUnstable::StableUpTo(x) => DelayMargin::NotLocated(format!(
-                "the outer loop stayed stable for every extra delay tried up to {x} inner periods"
-            )),
-            FirstUnstable::Failed(e) => DelayMargin::NotLocated(e.to_string()),
-            FirstUnstable::NoStep(step) => DelayMargin::NotLocated(no_step(step)),
-        }
+        let start = InnerClosed::delay_ticks(n, p.outer_delay) as f64 / n as f64;
+        let loss = first_loss(start, Some(n), &loop_at);
+        margin_of(loss, |_, unstable| {
+            let first_unstable = (unstable * n as f64).round();
+            ((first_unstable - 1.0) * t - p.outer_delay * t_outer).max(0.0)
+        })
     }
 
     /// Exact traces of the outer loop (step, outer load), `periods` outer
