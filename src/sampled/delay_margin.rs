@@ -73,9 +73,12 @@ pub(crate) struct Fraction {
 }
 
 /// The band of a phase (rad) between two -180 deg levels:
-/// `floor((x - pi) / 2 pi)`.
+/// `floor((x - pi) / 2 pi)`, clamped far beyond any loop's phase so that
+/// sums of bands cannot overflow.
 fn band(x: f64) -> i64 {
-    ((x - std::f64::consts::PI) / std::f64::consts::TAU).floor() as i64
+    ((x - std::f64::consts::PI) / std::f64::consts::TAU)
+        .floor()
+        .clamp(-1e15, 1e15) as i64
 }
 
 impl Fraction {
@@ -103,7 +106,9 @@ impl Fraction {
         }
         if let (true, Some(j)) = (inside, self.nyquist_turns) {
             // The phase at Nyquist, (j - m) pi, mirrors the stretch about it.
-            let turns = j - m as i64;
+            // Clamped: a count that far out means nothing, but must not
+            // wrap (a delay of 2^40 periods is past any loop's margin).
+            let turns = j.saturating_sub(m as i64).clamp(-(1 << 40), 1 << 40);
             count += match start {
                 None => (turns - 1).div_euclid(2) - (-turns - 1).div_euclid(2),
                 Some(a) => turns + band(-at(a)) - band(at(a)),
