@@ -632,3 +632,27 @@ fn a_failing_design_is_said_first_and_every_point_keeps_a_row() {
         }
     }
 }
+
+/// The dryer demo (6 s of transport delay on the plant, 2 s on the sensor)
+/// asked at 10 kHz: 80 000 periods of delay, each a state of the exact
+/// loop, once asked the allocator for 29 GB and aborted (and at 1 kHz ran
+/// for ten minutes). The exact column now says why it is not built; the
+/// continuous design still answers.
+#[test]
+fn delays_of_many_periods_are_refused_with_their_reason() {
+    let case = concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/demo-cases/dryer-transport-delay.toml"
+    );
+    for rate in ["1000", "10000"] {
+        let r = run(&["eval", case, "--rate", rate]);
+        assert_eq!(r.code, 0, "{}", r.stderr);
+        assert!(
+            r.stdout
+                .contains("more than the 256 the exact loop is built with"),
+            "{}",
+            r.stdout
+        );
+        assert!(r.stdout.contains("continuous"), "{}", r.stdout);
+    }
+}

@@ -27,6 +27,10 @@ pub enum ModelError {
     Eigen,
     #[error("the matrix exponential overflowed (time constant far shorter than the step)")]
     Exponential,
+    #[error(
+        "the delays span {periods} whole periods at this rate, more than the {max} the exact loop is built with (each period of delay is one more state of the loop): use a slower rate, or write the delay into the plant's transfer function as a rational approximation"
+    )]
+    DelayTooLong { periods: usize, max: usize },
 }
 
 /// Power-of-two scale factors `t` such that `T^{-1} A T`, `T = diag(t)`,

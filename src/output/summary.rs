@@ -9,7 +9,7 @@ use crate::engineering::{hz, periods, seconds, sig4};
 use crate::model::poly::C64;
 use crate::model::transfer::DiscreteTransfer;
 use crate::sampled::continuous::HoldApprox;
-use crate::sampled::evaluate::{Evaluation, Figures};
+use crate::sampled::evaluate::{Evaluation, Figures, Status};
 use crate::sampled::feasibility::LimitCheck;
 use crate::sampled::feasibility::check_figures;
 use crate::sampled::figure::Figure;
@@ -120,6 +120,12 @@ pub fn evaluation_text(
             None => {
                 let _ = writeln!(s);
             }
+        }
+    }
+    // The status row keeps 14 characters; an error's reason in full.
+    for (name, e) in &cols {
+        if let Status::Error(reason) = &e.status {
+            let _ = writeln!(s, "\n{name}: error: {reason}");
         }
     }
     if exact.figures.is_none() && !exact.closed_loop_poles.is_empty() {

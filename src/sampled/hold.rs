@@ -148,6 +148,14 @@ pub fn pade_delay(delay_s: f64, order: usize) -> (Poly, Poly) {
     (Poly::new(num), Poly::new(den))
 }
 
+/// Most whole periods of delay (the actuator's and the measurement's
+/// together) the exact loop is built with. Each is one more state of the
+/// loop, and its figures cost about the cube of the states: a loop with
+/// 240 periods of delay took about 0.4 s a point, one with 800 a minute,
+/// and 8 000 asked for 29 GB (the dryer demo at 30, 100 and 1 000 Hz). A
+/// point past it is refused with its reason (`docs/figures.md`).
+pub const MAX_DELAY_STATES: usize = 256;
+
 /// What lies between the controller's output and the plant, and between
 /// the sensor and the sampler, at one grid point.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -368,6 +376,11 @@ impl HoldEquivalent {
         } else {
             (0, 0.0)
         };
+        let periods = whole.saturating_add(q);
+        if periods > MAX_DELAY_STATES {
+            let max = MAX_DELAY_STATES;
+            return Err(ModelError::DelayTooLong { periods, max });
+        }
         let measure_at = (q > 0 && offset > 0.0).then_some(offset);
         let mut eq =
             HoldEquivalent::fractional(model, period_s, fraction, act.hold, points, measure_at)?;
