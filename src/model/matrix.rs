@@ -28,9 +28,20 @@ pub enum ModelError {
     #[error("the matrix exponential overflowed (time constant far shorter than the step)")]
     Exponential,
     #[error(
-        "the delays span {periods} whole periods at this rate, more than the {max} the exact loop is built with (each period of delay is one more state of the loop): use a slower rate, or write the delay into the plant's transfer function as a rational approximation"
+        "the delays span {} whole periods at this rate, more than the {max} the exact loop is built with (each period of delay is one more state of the loop): use a slower rate, or write the delay into the plant's transfer function as a rational approximation",
+        whole_count(*periods)
     )]
-    DelayTooLong { periods: usize, max: usize },
+    DelayTooLong { periods: f64, max: usize },
+}
+
+/// A whole count that may be past any integer type: digits up to a
+/// billion, then three significant figures.
+fn whole_count(v: f64) -> String {
+    if v < 1e9 {
+        format!("{v:.0}")
+    } else {
+        format!("{v:.3e}")
+    }
 }
 
 /// Power-of-two scale factors `t` such that `T^{-1} A T`, `T = diag(t)`,

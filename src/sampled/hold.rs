@@ -376,8 +376,8 @@ impl HoldEquivalent {
         } else {
             (0, 0.0)
         };
-        let periods = whole.saturating_add(q);
-        if periods > MAX_DELAY_STATES {
+        if whole.saturating_add(q) > MAX_DELAY_STATES {
+            let periods = (act.delay_periods - fraction) + (act.sensor_delay_s / period_s).ceil();
             let max = MAX_DELAY_STATES;
             return Err(ModelError::DelayTooLong { periods, max });
         }
