@@ -465,6 +465,7 @@ impl ContinuousLoop {
             dy: c0,
             dy_w: c0,
             measure: None,
+            pulse_core: None,
             intersample: vec![IntersampleRow {
                 offset_s: 0.0,
                 ey,

@@ -312,10 +312,10 @@ pub fn exact_delay_margin(
         };
         let hold = HoldEquivalent::with(plant_model, period_s, &at, 1)
             .map_err(LoopError::PlantEquivalent)?;
-        let pulse = hold.augmented();
+        let pulse = hold.pulse();
         let l = |w: f64| {
             let z = C64::from_polar(1.0, w * period_s);
-            controller.transfer.eval(z) * pulse.response_at(z, 0)
+            controller.transfer.eval(z) * pulse.response(z)
         };
         Ok((fraction_of(&l, range, period_s, branch, d)?, whole as f64))
     };

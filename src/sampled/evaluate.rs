@@ -9,7 +9,7 @@ use crate::sampled::closed_loop::{ClosedLoop, LoopError, Stability};
 use crate::sampled::continuous::{ContinuousLoop, HoldApprox};
 use crate::sampled::delay_margin::{DelayMargin, exact_delay_margin};
 use crate::sampled::frequency::{FrequencyRange, LoopFigures, loop_figures};
-use crate::sampled::hold::{Actuation, HoldEquivalent, pade_delay, plant_and_sensor};
+use crate::sampled::hold::{Actuation, HoldEquivalent, Pulse, pade_delay, plant_and_sensor};
 use crate::sampled::stretch::NodeHasher;
 use crate::spec::HoldKind;
 use std::collections::HashMap;
@@ -312,14 +312,14 @@ pub struct Point {
 #[derive(Debug)]
 pub struct PlantAt {
     pub hold: HoldEquivalent,
-    pulse: StateSpace,
+    pulse: Pulse,
     memo: Mutex<HashMap<u64, C64, BuildHasherDefault<NodeHasher>>>,
 }
 
 impl PlantAt {
     fn new(hold: HoldEquivalent) -> PlantAt {
         PlantAt {
-            pulse: hold.augmented(),
+            pulse: hold.pulse(),
             hold,
             memo: Mutex::new(HashMap::default()),
         }
@@ -341,9 +341,7 @@ impl PlantAt {
         if let Some(v) = self.memo.lock().ok().and_then(|m| m.get(&key).copied()) {
             return v;
         }
-        let v = self
-            .pulse
-            .response_at(C64::from_polar(1.0, w * self.hold.period_s), 0);
+        let v = (self.pulse).response(C64::from_polar(1.0, w * self.hold.period_s));
         if let Ok(mut m) = self.memo.lock() {
             m.insert(key, v);
         }

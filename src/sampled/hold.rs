@@ -235,6 +235,31 @@ pub struct HoldEquivalent {
     /// sensor transport delay (None without one, or when it falls on the
     /// sample instant).
     pub(crate) measure: Option<IntersampleRow>,
+    /// The pulse transfer without its whole periods of delay, when
+    /// `with` built it with some (see [`Pulse`]); None: `augmented` is it.
+    pub(crate) pulse_core: Option<Pulse>,
+}
+
+/// The pulse transfer from `u_k` to the measured sample with its whole
+/// periods of delay (the actuator's and the measurement's) taken out:
+/// `G(z) = z^-periods (C (zI - A)^-1 B + D)`. Each period of delay is a
+/// state of the loop, but not of this model, so a response costs the same
+/// however many periods the delays span.
+#[derive(Debug, Clone)]
+pub struct Pulse {
+    pub model: StateSpace,
+    pub periods: usize,
+}
+
+impl Pulse {
+    /// `G(z)` at a point `z` of the unit circle.
+    pub fn response(&self, z: C64) -> C64 {
+        let g = self.model.response_at(z, 0);
+        match self.periods {
+            0 => g,
+            p => g * z.conj().powi(p.min(i32::MAX as usize) as i32),
+        }
+    }
 }
 
 /// Coefficients of `(v_k, v_{k-1}, v_{k-2})`.
@@ -384,6 +409,7 @@ impl HoldEquivalent {
         let measure_at = (q > 0 && offset > 0.0).then_some(offset);
         let mut eq =
             HoldEquivalent::fractional(model, period_s, fraction, act.hold, points, measure_at)?;
+        let pulse_core = (whole + q > 0).then(|| eq.core_pulse(whole + q, q > 0));
         if whole > 0 {
             eq = eq.delayed_by(whole);
         }
@@ -391,6 +417,7 @@ impl HoldEquivalent {
             eq = eq.measured_late(q);
         }
         eq.sensor_delay_s = act.sensor_delay_s;
+        eq.pulse_core = pulse_core;
         Ok(eq)
     }
 
@@ -622,6 +649,7 @@ impl HoldEquivalent {
             intersample: rows.into_iter().map(to_row).collect(),
             switch_index: first_after,
             measure: measure.map(to_row),
+            pulse_core: None,
         })
     }
 
@@ -698,6 +726,7 @@ impl HoldEquivalent {
             intersample,
             switch_index,
             measure: self.measure.map(shift),
+            pulse_core: None,
         }
     }
 
@@ -763,6 +792,7 @@ impl HoldEquivalent {
                 .collect(),
             switch_index: self.switch_index,
             measure: None,
+            pulse_core: None,
         }
     }
 
@@ -779,6 +809,33 @@ impl HoldEquivalent {
     /// The whole actuator delay in periods, `delay_periods + delay_fraction`.
     pub fn delay_total(&self) -> f64 {
         self.delay_periods as f64 + self.delay_fraction
+    }
+
+    /// The pulse transfer from `u_k` to the measured sample, its whole
+    /// periods of delay apart ([`Pulse`]).
+    pub fn pulse(&self) -> Pulse {
+        self.pulse_core.clone().unwrap_or_else(|| Pulse {
+            model: self.augmented(),
+            periods: 0,
+        })
+    }
+
+    /// This fractional equivalent's pulse transfer behind `periods` whole
+    /// periods of delay: from its own `v_k` to its measured sample, or,
+    /// when the measurement comes `q >= 1` periods late (`late`), to the
+    /// row `measured_late` stores (the `measure` row, else the sample's).
+    fn core_pulse(&self, periods: usize, late: bool) -> Pulse {
+        let mut model = self.augmented();
+        if late && let Some(row) = &self.measure {
+            let n = self.phi.nrows();
+            model
+                .c
+                .view_mut((0, 0), (1, n))
+                .copy_from(&row.ey.transpose());
+            model.c[(0, n)] = row.cu1;
+            model.d[0] = row.cu0;
+        }
+        Pulse { model, periods }
     }
 
     /// The augmented discrete model from `u_k` to `y_k`, states

@@ -406,6 +406,7 @@ impl InnerClosed {
             intersample,
             switch_index: s * np,
             measure: None,
+            pulse_core: None,
         };
         if whole > 0 {
             lifted.delayed_by(whole)
