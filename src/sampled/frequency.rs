@@ -298,25 +298,34 @@ pub fn unwrapped_crossings(
 ) -> Option<UnwrappedCrossings> {
     let range = extended_below(l, range);
     let points = loop_grid_points(l, &range);
+    // |L| = 0 (a zero on the circle, e.g. Tustin's at Nyquist) is no
+    // crossing; an unbounded or undefined one, or |L| = 1 at a grid point,
+    // leaves nothing to count from.
     let unit = |p: &GridPoint| p.ln_mag.abs() <= 1e-9;
-    if points.is_empty() || points.iter().any(|p| !p.ln_mag.is_finite() || unit(p)) {
+    let bad = |p: &GridPoint| p.ln_mag.is_nan() || p.ln_mag == f64::INFINITY || unit(p);
+    if points.is_empty() || points.iter().any(bad) {
         return None;
     }
     let grid: Vec<(f64, C64)> = points.iter().map(|p| (p.w, p.l)).collect();
     let mut phase = unwrapped_phase(&grid);
     let shift = branch_deg.map_or(0.0, |b| 360.0 * ((b - phase[0]) / 360.0).round());
     phase.iter_mut().for_each(|v| *v += shift);
-    let at = gain_crossings(l, &points)
+    let at: Vec<(f64, f64)> = gain_crossings(l, &points)
         .into_iter()
         .map(|(w, i)| (w, phase[i] + arg_deg(l(w) / grid[i].1)))
         .collect();
     let (first, last) = (points[0], points[points.len() - 1]);
+    // A phase unwrapped across a zero of L on the circle is undefined.
+    let high_phase = phase[phase.len() - 1];
+    if at.iter().any(|c| !c.1.is_finite()) || (last.ln_mag > 0.0 && !high_phase.is_finite()) {
+        return None;
+    }
     Some(UnwrappedCrossings {
         at,
         low_phase_deg: phase[0],
         above_low: first.ln_mag > 0.0,
         above_high: last.ln_mag > 0.0,
-        high_phase_deg: phase[phase.len() - 1],
+        high_phase_deg: high_phase,
     })
 }
 
@@ -583,6 +592,38 @@ fn end_crossing(v: C64, w: f64, end: &str, phase_x: &mut Vec<(f64, f64)>, notes:
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// A Tustin integrator `K (T/2) (z + 1) / (z - 1)`, with |L| exactly 0
+    /// at Nyquist (a zero on the circle is no crossing): |L| =
+    /// K T / (2 tan(wT/2)) crosses 1 once, at w = (2/T) atan(K T / 2), with
+    /// a phase of exactly -90 deg (closed form).
+    #[test]
+    fn unwrapped_crossings_of_a_tustin_integrator() {
+        let (k, t) = (30.0, 0.01);
+        let w_hi = std::f64::consts::PI / t;
+        let l = move |w: f64| {
+            if w >= w_hi {
+                return C64::new(0.0, 0.0);
+            }
+            let z = C64::from_polar(1.0, w * t);
+            (z + 1.0) / (z - 1.0) * (k * t / 2.0)
+        };
+        let range = FrequencyRange {
+            w_lo: 1e-3,
+            w_hi,
+            nyquist: true,
+            modes: Vec::new(),
+        };
+        let x = unwrapped_crossings(&l, &range, None).expect("countable");
+        assert!(x.above_low && !x.above_high);
+        assert_eq!(x.at.len(), 1);
+        let w = 2.0 / t * (k * t / 2.0).atan();
+        assert!((x.at[0].0 / w - 1.0).abs() < 1e-9, "{:?} vs {w}", x.at);
+        assert!((x.at[0].1 + 90.0).abs() < 1e-6, "{:?}", x.at);
+        // Another branch: every phase moves by whole turns together.
+        let y = unwrapped_crossings(&l, &range, Some(-700.0)).expect("countable");
+        assert!((y.at[0].1 - x.at[0].1 + 720.0).abs() < 1e-9, "{:?}", y.at);
+    }
 
     #[test]
     fn first_order_with_integrator() {
