@@ -659,3 +659,58 @@ fn verdict_only_rows_agree_with_judging_every_variant() {
         serde_json::to_string(&b).unwrap()
     );
 }
+
+/// The worst-case figures at the recommended rate carry the exact delay
+/// margin (it was "not searched"): the smallest of the variants' own
+/// margins, each with the nominal design's controller, and by its meaning
+/// the variant that has it is stable with 0.98 x that extra delay and
+/// unstable just past it, on the exact loop's poles.
+#[test]
+fn the_worst_delay_margin_at_the_recommended_rate_is_the_smallest_variants() {
+    use looprate::sampled::closed_loop::{ClosedLoop, Stability};
+    use looprate::sampled::evaluate::{Given, Point};
+    let report = run(&case(&belt(
+        "[uncertainty]\nmode = \"corners\"",
+        "{ nominal = 38, min = 30, max = 46 }",
+    )));
+    let rec = report.recommended.as_ref().unwrap();
+    let worst = (rec.worst_figures.as_ref().unwrap().delay_margin_s)
+        .expect("the worst variant's delay margin is searched");
+    let p = Point {
+        rate_hz: rec.rate_hz,
+        method: rec.method.0,
+        delay: rec.compute_delay,
+        hold: rec.hold,
+    };
+    let nominal = prepare(&case(&belt("", "38"))).unwrap();
+    let c = nominal.controller_at(p.rate_hz, p.method).unwrap();
+    let margins: Vec<(f64, f64)> = [38.0, 30.0, 46.0]
+        .iter()
+        .map(|&k| {
+            let lp = prepare(&case(&belt("", &k.to_string()))).unwrap();
+            let given = Given {
+                controller: Some(Ok(&c)),
+                plant: None,
+                exact_delay_margin: true,
+            };
+            let f = lp.evaluate(&p, given).figures.unwrap();
+            (k, f.delay_margin_s.unwrap())
+        })
+        .collect();
+    let (k, smallest) = margins
+        .iter()
+        .copied()
+        .min_by(|a, b| a.1.total_cmp(&b.1))
+        .unwrap();
+    assert_eq!(worst, smallest, "{margins:?}");
+    let lp = prepare(&case(&belt("", &k.to_string()))).unwrap();
+    let stable = |extra_s: f64| {
+        let q = Point {
+            delay: p.delay + extra_s * p.rate_hz,
+            ..p
+        };
+        let (_, cl) = lp.closed_loop_around(&q, &c).unwrap();
+        ClosedLoop::stability(&cl.poles().unwrap()) == Stability::Stable
+    };
+    assert!(stable(0.98 * worst) && !stable(worst * (1.0 + 1e-4)));
+}

@@ -852,8 +852,7 @@ fn recommend(
             rate,
         )
     });
-    let robust_here =
-        variants.map(|v| v.judge(spec, &p, chosen.controller.as_ref(), false, None).1);
+    let robust_here = variants.map(|v| v.judge_with_margins(spec, &p, chosen.controller.as_ref()));
     let worst_figures = robust_here.as_ref().and_then(|r| r.worst_figures.clone());
     if rate > case.rates.max_hz {
         notes.push(format!(

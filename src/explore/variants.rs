@@ -293,6 +293,30 @@ impl VariantSet {
         keep: bool,
         plants: Option<&LazyPlants>,
     ) -> (Evaluation, RobustPoint) {
+        self.judge_each(spec, p, c, keep, plants, false)
+    }
+
+    /// [`VariantSet::judge`] at the recommended rate: every variant's exact
+    /// delay margin searched too, so the worst-case figures carry the
+    /// smallest (`worst_of`).
+    pub fn judge_with_margins(
+        &self,
+        spec: &Spec,
+        p: &Point,
+        c: Result<&DiscreteTransfer, &PointError>,
+    ) -> RobustPoint {
+        self.judge_each(spec, p, c, false, None, true).1
+    }
+
+    fn judge_each(
+        &self,
+        spec: &Spec,
+        p: &Point,
+        c: Result<&DiscreteTransfer, &PointError>,
+        keep: bool,
+        plants: Option<&LazyPlants>,
+        exact_delay_margin: bool,
+    ) -> (Evaluation, RobustPoint) {
         let evals: Vec<Evaluation> = self
             .loops
             .par_iter()
@@ -301,7 +325,7 @@ impl VariantSet {
                 let given = Given {
                     controller: Some(c),
                     plant: plants.map(|each| each.get(i)),
-                    exact_delay_margin: false,
+                    exact_delay_margin,
                 };
                 lp.evaluate(p, given)
             })
@@ -468,7 +492,14 @@ pub fn worst_of(figs: &[&Figures]) -> Option<Figures> {
             .min_by(|a, b| a.abs().total_cmp(&b.abs())),
         phase_margin_deg: min_margin(&|f| f.phase_margin_deg),
         crossover_hz: by_pm.crossover_hz,
-        delay_margin_s: min_margin(&|f| f.delay_margin_s),
+        // A margin not located on some variant leaves the worst unknown.
+        delay_margin_s: match figs
+            .iter()
+            .any(|f| f.delay_margin_s.is_none() && f.delay_margin_missing() == "not located")
+        {
+            true => None,
+            false => min_margin(&|f| f.delay_margin_s),
+        },
         delay_margin_estimate_s: min_margin(&|f| f.delay_margin_estimate_s),
         sensitivity_peak: max_f(&|f| f.sensitivity_peak),
         horizon_s: figs.iter().map(|f| f.horizon_s).fold(0.0, f64::max),
