@@ -104,11 +104,11 @@ fn expression() -> impl Strategy<Value = String> {
 
 const BASE: &str = "title = \"fuzz\"
 [plant]
-tf = \"@PLANT\"
+transfer = \"@PLANT\"
 [sensor]
-tf = \"@SENSOR\"
+transfer = \"@SENSOR\"
 [controller]
-tf = \"@CONTROLLER\"
+transfer = \"@CONTROLLER\"
 [timing]
 compute_delay = [@DELAY]
 [rates]
@@ -226,6 +226,10 @@ fn fuzz_short_picks_on_tiny_grids() {
         Just("5000".to_string()),
         Just("1e9".to_string()),
     ];
+    // Picks that got past parsing and preparing: a base case that no
+    // longer parses (a renamed key) must not leave the fuzz doing nothing.
+    let picked = std::sync::Arc::new(std::sync::atomic::AtomicU32::new(0));
+    let counter = picked.clone();
     runner
         .run(
             &(
@@ -233,8 +237,12 @@ fn fuzz_short_picks_on_tiny_grids() {
                 rate.clone(),
                 rate,
                 prop_oneof![Just("0"), Just("0.5"), Just("1")],
+                // Transport delays on the plant and the sensor: at a fast
+                // rate, millions of periods (once an abort asking for 29 GB).
+                prop_oneof![Just("0"), Just("1e-3"), Just("0.5"), Just("6")],
+                prop_oneof![Just("0"), Just("2e-4"), Just("2")],
             ),
-            |(changes, lo, hi, delay)| {
+            |(changes, lo, hi, delay, plant_delay, sensor_delay)| {
                 let mut values: Vec<String> = (0..8).map(ordinary).collect();
                 for (slot, e) in changes {
                     values[slot] = e;
@@ -243,8 +251,14 @@ fn fuzz_short_picks_on_tiny_grids() {
                 values[4] = lo;
                 values[5] = hi;
                 values[6] = "3".into();
-                let text = fill(&values);
+                let text = fill(&values)
+                    .replace("[sensor]", &format!("delay_s = {plant_delay}\n[sensor]"))
+                    .replace(
+                        "[controller]",
+                        &format!("delay_s = {sensor_delay}\n[controller]"),
+                    );
                 let shown = text.clone();
+                let counter = counter.clone();
                 let out = watchdog("a pick", PICK_WATCHDOG, move || {
                     let Ok(c) = Case::parse(&text, Path::new("fuzz.toml")) else {
                         return String::new();
@@ -252,6 +266,7 @@ fn fuzz_short_picks_on_tiny_grids() {
                     let Ok(lp) = prepare(&c) else {
                         return String::new();
                     };
+                    counter.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
                     match sweep_and_pick(&c, &lp, &|| {}, &Silent) {
                         Ok(p) => {
                             let csv =
@@ -270,4 +285,11 @@ fn fuzz_short_picks_on_tiny_grids() {
             },
         )
         .unwrap();
+    let picked = picked.load(std::sync::atomic::Ordering::Relaxed);
+    // Most cases are meant to fail (a range upside down, a random
+    // expression): measured 5 of 24 get through at the default count.
+    assert!(
+        8 * picked >= n,
+        "only {picked} of {n} fuzz cases got to a pick"
+    );
 }
