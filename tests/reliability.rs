@@ -656,3 +656,21 @@ fn delays_of_many_periods_are_refused_with_their_reason() {
         assert!(r.stdout.contains("continuous"), "{}", r.stdout);
     }
 }
+
+/// A 1 ms transport delay at 141 kHz is 141 states of delay: the stretch
+/// searches run out and the fallback walk went through its million
+/// periods at 145 states, 7.6 s for one `eval` and 15 s for a 3-point
+/// pick (found by the fuzz). The walk's work is now bounded (a large loop
+/// walks fewer periods): what it has not fixed is `undecided`, in a
+/// fraction of that time (about 1.3 s; the watchdog allows 20).
+#[test]
+fn a_walk_of_many_delay_states_is_bounded_in_work() {
+    let dir = scratch("walk-work");
+    // The belt-conveyor loop of `case_text` behind 1 ms of transport delay.
+    let text =
+        case_text(PLANT, "1", CONTROLLER, "").replace("[sensor]", "delay_s = 1e-3\n[sensor]");
+    let case = write_case(&dir, "delay", &text);
+    let r = run(&["eval", &case, "--rate", "141421", "--method", "tustin"]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    assert!(r.stdout.contains("undecided"), "{}", r.stdout);
+}

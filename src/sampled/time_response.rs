@@ -958,6 +958,22 @@ fn figures_on(
 /// this many periods is undecided (its own status), never a time.
 pub const WALK_BUDGET: u64 = 1 << 20;
 
+/// The states whose walk `WALK_BUDGET` periods long is the most work a
+/// walk may do: a period of the walk costs about the square of the loop's
+/// states, so a larger loop (a transport delay of many periods is one
+/// state a period) walks proportionally fewer periods. A loop with 141
+/// such states walked its million periods for 7.6 s at 141 kHz.
+const WALK_BUDGET_STATES: u64 = 32;
+
+/// The periods a fallback walk of a loop of `cl`'s size may go through:
+/// at most `periods`, `opts.walk_budget`, and the work of `WALK_BUDGET`
+/// periods of a `WALK_BUDGET_STATES`-state loop.
+fn walk_periods(cl: &ClosedLoop, periods: u64, opts: &TimeOptions) -> usize {
+    let dim = (cl.a.nrows() as u64).max(WALK_BUDGET_STATES);
+    let work = WALK_BUDGET * WALK_BUDGET_STATES * WALK_BUDGET_STATES / (dim * dim);
+    periods.min(opts.walk_budget).min(work) as usize
+}
+
 /// The step by walking every period (points between samples skipped or
 /// deferred where a bound allows, stopped early on the certificate), over
 /// the horizon or `opts.walk_budget` periods, whichever is shorter. A figure
@@ -972,7 +988,7 @@ fn walk_step(
     opts: &TimeOptions,
 ) -> StepFigures {
     let band = opts.band;
-    let n = periods.min(opts.walk_budget) as usize;
+    let n = walk_periods(cl, periods, opts);
     let cut = (n as u64) < periods;
     let mut m = StepMetrics::new(ends.y_final, band).with_u_final(ends.u_final);
     let end = Some((&ends.zr, cert));
@@ -1020,7 +1036,7 @@ fn walk_disturbance(
         y_final: ends.yd_final,
         peak: ends.yd_final.abs(),
     };
-    let n = periods.min(opts.walk_budget) as usize;
+    let n = walk_periods(cl, periods, opts);
     let cut = (n as u64) < periods;
     let run_peak = simulate_sampled(cl, map, t, 0.0, 1.0, n, end, &mut peak);
     let mut rec = Recovery {
