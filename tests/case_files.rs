@@ -569,6 +569,12 @@ const BAD: &[Bad] = &[
         "methods.prewarp_hz",
         &["greater than zero"],
     ),
+    (
+        "transport delay past any double's Pade (once 'a coefficient is not finite', no field)",
+        &[("sensor", "[sensor]\ntransfer = \"1\"\ndelay_s = 1e300\n")],
+        "sensor.delay_s",
+        &["at most 1e9", "1e300"],
+    ),
     // Timing.
     (
         "compute delay negative",

@@ -1225,7 +1225,14 @@ fn holds_from(
     Ok(out)
 }
 
-/// `delay_s` on [plant] or [sensor]: a finite number of seconds >= 0.
+/// Longest transport delay accepted, s (about 30 years): the continuous
+/// design's Pade approximant of a delay has coefficients up to its sixth
+/// power, which overflow near 1e51 s (1e300 s gave "a coefficient is not
+/// finite" with no field named).
+const MAX_TRANSPORT_DELAY_S: f64 = 1e9;
+
+/// `delay_s` on [plant] or [sensor]: a finite number of seconds >= 0, at
+/// most `MAX_TRANSPORT_DELAY_S`.
 fn transport_delay(ctx: &Ctx, field: &str, raw: Option<&toml::Value>) -> Result<f64, CaseError> {
     let Some(v) = raw else {
         return Ok(0.0);
@@ -1239,8 +1246,8 @@ fn transport_delay(ctx: &Ctx, field: &str, raw: Option<&toml::Value>) -> Result<
     ctx.number(
         field,
         d,
-        |d| d >= 0.0,
-        "a transport delay in seconds, finite and >= 0",
+        |d| (0.0..=MAX_TRANSPORT_DELAY_S).contains(&d),
+        "a transport delay in seconds, >= 0 and at most 1e9",
     )
 }
 
