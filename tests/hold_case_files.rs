@@ -104,7 +104,7 @@ fn bad_holds_and_delays_name_file_and_field() {
             "negative plant delay",
             case("delay_s = -0.1\n", "", PI, ""),
             "plant.delay_s",
-            &["finite and >= 0", "-0.1"],
+            &[">= 0 and at most 1e9", "-0.1"],
         ),
         (
             "infinite sensor delay",
