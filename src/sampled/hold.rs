@@ -237,6 +237,8 @@ pub struct HoldEquivalent {
     pub(crate) measure: Option<IntersampleRow>,
     /// The pulse transfer without its whole periods of delay, when
     /// `with` built it with some (see [`Pulse`]); None: `augmented` is it.
+    /// Every other constructor sets None, so a model built from this one
+    /// (`delayed_by`, `measured_late`, a lift) never inherits it.
     pub(crate) pulse_core: Option<Pulse>,
 }
 
