@@ -538,3 +538,55 @@ fn margins_keep_their_meaning_with_every_hold() {
     }
     assert!(checked >= 30, "only {checked} stable points checked");
 }
+
+/// A first-order hold (no low-frequency delay of its own) with a vanishing
+/// computation delay: the delay's stand-in put a pole near 2 / delay, so
+/// the continuous approximations of the belt loop (invented scenario) read
+/// `marginal` at 1e-10 of a period and failed with "a coefficient is not
+/// finite" at 1e-300. A delay whose phase stays below a millionth of a
+/// radian is now left out: every approximation is stable, with the
+/// figures of no delay at all.
+#[test]
+fn a_vanishing_delay_leaves_the_hold_approximations_alone() {
+    use looprate::sampled::continuous::HoldApprox;
+    let lag = |tau: f64| Transfer::new(Poly::constant(1.0), Poly::from_descending(&[tau, 1.0]));
+    let plant = lag(0.42)
+        .cascade(&lag(0.004))
+        .cascade(&Transfer::gain(38.0));
+    let c = Transfer::new(
+        Poly::from_descending(&[0.8, 16.0]),
+        Poly::from_descending(&[1.0, 0.0]),
+    );
+    let lp = PreparedLoop::new(
+        &plant,
+        &lag(0.0008),
+        &Controller::Continuous(c),
+        None,
+        TimeOptions::default(),
+    )
+    .unwrap();
+    let at = |delay: f64| Point {
+        rate_hz: 100.0,
+        method: Some(Method::Tustin),
+        delay,
+        hold: HoldKind::FirstOrder,
+    };
+    for kind in HoldApprox::ALL {
+        let none = lp.hold_approx(&at(0.0), kind);
+        for delay in [1e-300, 1e-12, 1e-10] {
+            let e = lp.hold_approx(&at(delay), kind);
+            assert!(
+                e.stable,
+                "{} at {delay} periods: {:?}",
+                kind.name(),
+                e.status
+            );
+            assert_eq!(
+                e.figures,
+                none.figures,
+                "{} at {delay} periods",
+                kind.name()
+            );
+        }
+    }
+}

@@ -898,11 +898,26 @@ impl PreparedLoop {
     /// transport delays stay as in the continuous design.
     pub fn hold_approx(&self, p: &Point, kind: HoldApprox) -> Evaluation {
         let period = 1.0 / p.rate_hz;
-        let delay = p.delay * period;
+        // A delay whose phase stays below `NEGLIGIBLE_DELAY_RAD` up to the
+        // loop's fastest mode and the sampling rate changes no figure, but
+        // its stand-in's pole (about 2 / delay) sat so far out that the
+        // stiff loop's slow poles read as marginal (the belt loop with a
+        // first-order hold and 1e-10 of a period of delay) or its
+        // coefficients overflowed (1e-300): it is left out.
+        let w_ref = 2.0 * std::f64::consts::PI * self.fastest_mode_hz().max(p.rate_hz);
+        let delay = match p.delay * period {
+            d if d * w_ref <= NEGLIGIBLE_DELAY_RAD => 0.0,
+            d => d,
+        };
         let theta = p.hold.equivalent_delay_s(period) + delay;
         self.continuous_with(kind.actuator(p.hold, period, delay).map(|t| (t, theta)))
     }
 }
+
+/// Phase (rad) below which a delay is left out of the hold
+/// approximations (`PreparedLoop::hold_approx`): a millionth of a radian
+/// at the fastest frequency that matters (common practice, no source).
+const NEGLIGIBLE_DELAY_RAD: f64 = 1e-6;
 
 /// A point's rate and delay are usable.
 fn check_point(p: &Point) -> Result<(), PointError> {
