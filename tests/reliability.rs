@@ -674,3 +674,34 @@ fn a_walk_of_many_delay_states_is_bounded_in_work() {
     assert_eq!(r.code, 0, "{}", r.stderr);
     assert!(r.stdout.contains("undecided"), "{}", r.stdout);
 }
+
+/// `eval --ratio 10 --outer-delay 1e300` on the cascade demo panicked (a
+/// capacity overflow: each whole outer period of delay is a state of the
+/// lifted loop). The outer column now says why it is not built.
+#[test]
+fn an_outer_delay_of_many_periods_is_refused_not_a_panic() {
+    let case = concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/demo-cases/motor-drive-cascade.toml"
+    );
+    for delay in ["1e300", "300"] {
+        let args = [
+            "eval",
+            case,
+            "--rate",
+            "20000",
+            "--ratio",
+            "10",
+            "--outer-delay",
+            delay,
+        ];
+        let r = run(&args);
+        assert_eq!(r.code, 0, "{delay}: {}", r.stderr);
+        assert!(
+            r.stdout
+                .contains("more than the 256 the lifted loop is built with"),
+            "{delay}: {}",
+            r.stdout
+        );
+    }
+}

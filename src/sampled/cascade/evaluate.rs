@@ -27,7 +27,7 @@ use crate::sampled::evaluate::{
 use crate::sampled::feasibility::{Assessment, LimitCheck, UNSTABLE_SLACK};
 use crate::sampled::figure::{Figure, Limiting, Missing};
 use crate::sampled::frequency::{FrequencyRange, LoopFigures, loop_figures};
-use crate::sampled::hold::HoldEquivalent;
+use crate::sampled::hold::{HoldEquivalent, MAX_DELAY_STATES};
 use crate::sampled::time_response::{
     TimeOptions, TracePoint, Wanted, horizon_steps, sampled_figures, sampled_trace,
 };
@@ -146,6 +146,11 @@ pub enum CascadeError {
         "the outer computation delay must be finite and >= 0 (a fraction of the outer period), got {0}"
     )]
     OuterDelay(f64),
+    #[error(
+        "the outer computation delay spans {}, more than the {max} the lifted loop is built with (each is one more state of it)",
+        crate::engineering::periods_of(*periods, "outer period")
+    )]
+    OuterDelayTooLong { periods: f64, max: usize },
     #[error("outer controller: {0}")]
     OuterController(PointError),
     #[error(transparent)]
@@ -430,6 +435,12 @@ impl PreparedCascade {
         }
         if !(p.outer_delay >= 0.0 && p.outer_delay.is_finite()) {
             return Err(CascadeError::OuterDelay(p.outer_delay));
+        }
+        // Each whole outer period of delay is a state of the lifted loop
+        // (1e300 once asked the allocator for more than exists: a panic).
+        if p.outer_delay > MAX_DELAY_STATES as f64 {
+            let (periods, max) = (p.outer_delay, MAX_DELAY_STATES);
+            return Err(CascadeError::OuterDelayTooLong { periods, max });
         }
         InnerClosed::new(
             &self.combined,
