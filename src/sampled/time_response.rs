@@ -1221,6 +1221,11 @@ pub fn continuous_metrics(
 /// any length costs a bounded amount of work and memory.
 pub const TRACE_PERIODS: u64 = 4096;
 
+/// Most points a trace holds point by point, whatever a period holds (a
+/// lifted cascade period of N inner ticks has 16 N): a cascade's outer
+/// trace at ratio 300 once held 200 000 periods of 4 800 points, 24 GB.
+pub const TRACE_POINTS: u64 = 1 << 20;
+
 /// Exact step (`r = 1`) or disturbance (`w = 1`) trace of a sampled loop
 /// over `periods` periods with at most `TRACE_PERIODS` periods in it: every
 /// period when they fit (`sampled_trace`), otherwise every point of one
@@ -1234,10 +1239,12 @@ pub fn sampled_trace_spanning(
     w: f64,
     periods: u64,
 ) -> Vec<TracePoint> {
-    if periods <= TRACE_PERIODS {
+    let per_period = hold.intersample.len().max(1) as u64;
+    let kept = TRACE_PERIODS.min((TRACE_POINTS / per_period).max(1));
+    if periods <= kept {
         return sampled_trace(cl, hold, r, w, periods as usize);
     }
-    let stride = periods.div_ceil(TRACE_PERIODS);
+    let stride = periods.div_ceil(kept);
     let map = OutputMap::new(cl, hold);
     let dim = map.dim;
     let drive = &cl.br * r + &cl.bw * w;
@@ -1264,7 +1271,7 @@ pub fn sampled_trace_spanning(
     let np = map.np;
     let u_off = cl.dur * r + cl.duw * w;
     let h: Vec<f64> = (0..np).map(|j| map.hr[j] * r + map.hw[j] * w).collect();
-    let mut out = Vec::with_capacity((TRACE_PERIODS as usize + 1) * np);
+    let mut out = Vec::with_capacity((kept as usize + 1) * np);
     let mut z = DVector::zeros(dim);
     let mut k = 0u64;
     while k < periods {

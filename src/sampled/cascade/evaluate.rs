@@ -29,7 +29,7 @@ use crate::sampled::figure::{Figure, Limiting, Missing};
 use crate::sampled::frequency::{FrequencyRange, LoopFigures, loop_figures};
 use crate::sampled::hold::{HoldEquivalent, MAX_DELAY_STATES};
 use crate::sampled::time_response::{
-    TimeOptions, TracePoint, Wanted, horizon_steps, sampled_figures, sampled_trace,
+    TimeOptions, TracePoint, Wanted, horizon_steps, sampled_figures, sampled_trace_spanning,
 };
 use crate::spec::{HoldKind, Spec};
 use nalgebra::DVector;
@@ -762,14 +762,20 @@ impl PreparedCascade {
     ) -> Result<(Vec<TracePoint>, Vec<TracePoint>), CascadeError> {
         let (_, lifted, cl) = self.outer_loop_with(p, c, Rows::All)?;
         let poles = cl.poles().map_err(LoopError::Poles)?;
+        // An unstable or marginal loop's trace is a few periods of its
+        // start, as the single loop's (`horizon_periods`): it was 200 000
+        // periods, diverging to NaN.
         let rho = poles.iter().map(|p| p.norm()).fold(0.0, f64::max);
-        let n = periods.unwrap_or_else(|| {
-            (horizon_steps(rho.min(0.999_999), cl.a.nrows()) as usize)
-                .min(self.outer_time.max_steps)
+        let dim = cl.a.nrows();
+        let n = periods.unwrap_or_else(|| match rho < 1.0 {
+            true => (horizon_steps(rho, dim) as usize).min(self.outer_time.max_steps),
+            false => dim + 2,
         });
+        // At most `TRACE_PERIODS` periods' worth of points drawn point by
+        // point, as the single loop's traces.
         Ok((
-            sampled_trace(&cl, &lifted, 1.0, 0.0, n),
-            sampled_trace(&cl, &lifted, 0.0, 1.0, n),
+            sampled_trace_spanning(&cl, &lifted, 1.0, 0.0, n as u64),
+            sampled_trace_spanning(&cl, &lifted, 0.0, 1.0, n as u64),
         ))
     }
 }
