@@ -226,10 +226,13 @@ fn fuzz_short_picks_on_tiny_grids() {
         Just("5000".to_string()),
         Just("1e9".to_string()),
     ];
-    // Picks that got past parsing and preparing: a base case that no
-    // longer parses (a renamed key) must not leave the fuzz doing nothing.
-    let picked = std::sync::Arc::new(std::sync::atomic::AtomicU32::new(0));
-    let counter = picked.clone();
+    // The base case every input varies must itself get to a pick: when it
+    // no longer parsed (a renamed key) every case stopped at parsing and
+    // this fuzz did nothing. (A share of the random cases is no check: the
+    // runner's seed changes from run to run.)
+    let base: Vec<String> = (0..8).map(ordinary).collect();
+    let c = Case::parse(&fill(&base), Path::new("fuzz.toml")).expect("the base case parses");
+    prepare(&c).expect("the base case prepares");
     runner
         .run(
             &(
@@ -258,7 +261,6 @@ fn fuzz_short_picks_on_tiny_grids() {
                         &format!("delay_s = {sensor_delay}\n[controller]"),
                     );
                 let shown = text.clone();
-                let counter = counter.clone();
                 let out = watchdog("a pick", PICK_WATCHDOG, move || {
                     let Ok(c) = Case::parse(&text, Path::new("fuzz.toml")) else {
                         return String::new();
@@ -266,7 +268,6 @@ fn fuzz_short_picks_on_tiny_grids() {
                     let Ok(lp) = prepare(&c) else {
                         return String::new();
                     };
-                    counter.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
                     match sweep_and_pick(&c, &lp, &|| {}, &Silent) {
                         Ok(p) => {
                             let csv =
@@ -285,11 +286,4 @@ fn fuzz_short_picks_on_tiny_grids() {
             },
         )
         .unwrap();
-    let picked = picked.load(std::sync::atomic::Ordering::Relaxed);
-    // Most cases are meant to fail (a range upside down, a random
-    // expression): measured 5 of 24 get through at the default count.
-    assert!(
-        8 * picked >= n,
-        "only {picked} of {n} fuzz cases got to a pick"
-    );
 }
