@@ -640,21 +640,28 @@ fn a_failing_design_is_said_first_and_every_point_keeps_a_row() {
 /// continuous design still answers.
 #[test]
 fn delays_of_many_periods_are_refused_with_their_reason() {
-    let case = concat!(
-        env!("CARGO_MANIFEST_DIR"),
-        "/demo-cases/dryer-transport-delay.toml"
-    );
+    let case = demo_case("dryer-transport-delay");
     for rate in ["1000", "10000"] {
-        let r = run(&["eval", case, "--rate", rate]);
-        assert_eq!(r.code, 0, "{}", r.stderr);
-        assert!(
-            r.stdout
-                .contains("more than the 256 the exact loop is built with"),
-            "{}",
-            r.stdout
+        let out = says(
+            &["eval", &case, "--rate", rate],
+            "more than the 256 the exact loop is built with",
         );
-        assert!(r.stdout.contains("continuous"), "{}", r.stdout);
+        assert!(out.contains("continuous"), "{out}");
     }
+}
+
+/// A shipped demo case's path.
+fn demo_case(name: &str) -> String {
+    format!("{}/demo-cases/{name}.toml", env!("CARGO_MANIFEST_DIR"))
+}
+
+/// Run looprate with `args`: exit 0 and `text` in what it printed, which
+/// is returned.
+fn says(args: &[&str], text: &str) -> String {
+    let r = run(args);
+    assert_eq!(r.code, 0, "{args:?}: {}", r.stderr);
+    assert!(r.stdout.contains(text), "{args:?}: {}", r.stdout);
+    r.stdout
 }
 
 /// A 1 ms transport delay at 141 kHz is 141 states of delay: the stretch
@@ -670,9 +677,10 @@ fn a_walk_of_many_delay_states_is_bounded_in_work() {
     let text =
         case_text(PLANT, "1", CONTROLLER, "").replace("[sensor]", "delay_s = 1e-3\n[sensor]");
     let case = write_case(&dir, "delay", &text);
-    let r = run(&["eval", &case, "--rate", "141421", "--method", "tustin"]);
-    assert_eq!(r.code, 0, "{}", r.stderr);
-    assert!(r.stdout.contains("undecided"), "{}", r.stdout);
+    says(
+        &["eval", &case, "--rate", "141421", "--method", "tustin"],
+        "undecided",
+    );
 }
 
 /// `eval --ratio 10 --outer-delay 1e300` on the cascade demo panicked (a
@@ -680,29 +688,11 @@ fn a_walk_of_many_delay_states_is_bounded_in_work() {
 /// lifted loop). The outer column now says why it is not built.
 #[test]
 fn an_outer_delay_of_many_periods_is_refused_not_a_panic() {
-    let case = concat!(
-        env!("CARGO_MANIFEST_DIR"),
-        "/demo-cases/motor-drive-cascade.toml"
-    );
+    let case = demo_case("motor-drive-cascade");
     for delay in ["1e300", "300"] {
-        let args = [
-            "eval",
-            case,
-            "--rate",
-            "20000",
-            "--ratio",
-            "10",
-            "--outer-delay",
-            delay,
-        ];
-        let r = run(&args);
-        assert_eq!(r.code, 0, "{delay}: {}", r.stderr);
-        assert!(
-            r.stdout
-                .contains("more than the 256 the lifted loop is built with"),
-            "{delay}: {}",
-            r.stdout
-        );
+        let args = ["eval", &case, "--rate", "20000", "--ratio", "10"];
+        let text = "more than the 256 the lifted loop is built with";
+        says(&[&args[..], &["--outer-delay", delay]].concat(), text);
     }
 }
 
@@ -715,15 +705,12 @@ fn an_outer_delay_of_many_periods_is_refused_not_a_panic() {
 fn an_unstable_outer_loop_traces_briefly_and_finitely() {
     let dir = scratch("outer-trace");
     let trace = dir.join("trace.csv");
-    let case = concat!(
-        env!("CARGO_MANIFEST_DIR"),
-        "/demo-cases/motor-drive-cascade.toml"
-    );
+    let case = demo_case("motor-drive-cascade");
     let t = trace.to_string_lossy().into_owned();
-    let r = run(&[
-        "eval", case, "--rate", "20000", "--ratio", "300", "--trace", &t,
-    ]);
-    assert_eq!(r.code, 0, "{}", r.stderr);
+    let args = [
+        "eval", &case, "--rate", "20000", "--ratio", "300", "--trace", &t,
+    ];
+    says(&args, "unstable");
     let text = std::fs::read_to_string(&trace).unwrap();
     assert!(
         !text.contains("NaN") && !text.contains("inf"),

@@ -20,7 +20,7 @@ use crate::explore::search::{
     slowest_rate, slowest_rate_by,
 };
 use crate::explore::sweep::{self, Grid, Plan, SweepRow};
-use crate::explore::variants::{NamedValue, VariantSet};
+use crate::explore::variants::{Judging, NamedValue, VariantSet};
 use crate::model::discretize::{Method, MethodChoice};
 use crate::model::rounding::Damage;
 use crate::model::transfer::Controller;
@@ -852,7 +852,11 @@ fn recommend(
             rate,
         )
     });
-    let robust_here = variants.map(|v| v.judge_with_margins(spec, &p, chosen.controller.as_ref()));
+    let margins = Judging {
+        exact_delay_margin: true,
+        ..Judging::default()
+    };
+    let robust_here = variants.map(|v| v.judge(spec, &p, chosen.controller.as_ref(), margins).1);
     let worst_figures = robust_here.as_ref().and_then(|r| r.worst_figures.clone());
     if rate > case.rates.max_hz {
         notes.push(format!(
@@ -1107,7 +1111,7 @@ fn robust_report(
                     hold,
                 };
                 let c = lp.controller_at(rate, method);
-                variants.judge(spec, &p, c.as_ref(), false, None).1
+                variants.judge(spec, &p, c.as_ref(), Judging::default()).1
             };
             let mut coarse = coarse.clone();
             coarse.complete(&|rate: f64| {

@@ -13,7 +13,7 @@ use rayon::prelude::*;
 use crate::case::Case;
 use crate::explore::budget;
 use crate::explore::precision::{self, PrecisionPoint};
-use crate::explore::variants::{LazyPlants, RobustPoint, VariantSet};
+use crate::explore::variants::{Judging, LazyPlants, RobustPoint, VariantSet};
 use crate::model::discretize::Method;
 use crate::sampled::evaluate::{Evaluation, Given, Point, PreparedLoop};
 use crate::sampled::feasibility::{Assessment, assess};
@@ -198,13 +198,12 @@ fn evaluate_row_on(plan: &Plan, p: &Point, plants: &LazyPlants, hint: Option<usi
             (e, Some(r))
         }
         Some(v) => {
-            let (e, r) = v.judge(
-                plan.spec,
-                p,
-                controller.as_ref(),
-                plan.keep_variants,
-                Some(plants),
-            );
+            let how = Judging {
+                keep: plan.keep_variants,
+                plants: Some(plants),
+                exact_delay_margin: false,
+            };
+            let (e, r) = v.judge(plan.spec, p, controller.as_ref(), how);
             (e, Some(r))
         }
         None => {

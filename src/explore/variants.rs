@@ -281,41 +281,13 @@ impl VariantSet {
     /// Evaluate every variant at `p` with the controller `c` (the nominal
     /// design at this rate, shared by every variant; `Err` says why it
     /// could not be built) and return the nominal evaluation and the
-    /// verdict over all variants. `keep` keeps every variant's result.
-    /// `plants`, when given, holds each variant's plant side at the
-    /// point's rate and delay (`PreparedLoop::hold_at`, built on first
-    /// use), shared with the other methods of a sweep group.
+    /// verdict over all variants, as `how` asks ([`Judging`]).
     pub fn judge(
         &self,
         spec: &Spec,
         p: &Point,
         c: Result<&DiscreteTransfer, &PointError>,
-        keep: bool,
-        plants: Option<&LazyPlants>,
-    ) -> (Evaluation, RobustPoint) {
-        self.judge_each(spec, p, c, keep, plants, false)
-    }
-
-    /// [`VariantSet::judge`] at the recommended rate: every variant's exact
-    /// delay margin searched too, so the worst-case figures carry the
-    /// smallest (`worst_of`).
-    pub fn judge_with_margins(
-        &self,
-        spec: &Spec,
-        p: &Point,
-        c: Result<&DiscreteTransfer, &PointError>,
-    ) -> RobustPoint {
-        self.judge_each(spec, p, c, false, None, true).1
-    }
-
-    fn judge_each(
-        &self,
-        spec: &Spec,
-        p: &Point,
-        c: Result<&DiscreteTransfer, &PointError>,
-        keep: bool,
-        plants: Option<&LazyPlants>,
-        exact_delay_margin: bool,
+        how: Judging,
     ) -> (Evaluation, RobustPoint) {
         let evals: Vec<Evaluation> = self
             .loops
@@ -324,16 +296,33 @@ impl VariantSet {
             .map(|(i, lp)| {
                 let given = Given {
                     controller: Some(c),
-                    plant: plants.map(|each| each.get(i)),
-                    exact_delay_margin,
+                    plant: how.plants.map(|each| each.get(i)),
+                    exact_delay_margin: how.exact_delay_margin,
                 };
                 lp.evaluate(p, given)
             })
             .collect();
         let assessments: Vec<Assessment> = evals.iter().map(|e| assess(e, spec)).collect();
         let nominal = evals[0].clone();
-        (nominal, RobustPoint::from_parts(evals, assessments, keep))
+        (
+            nominal,
+            RobustPoint::from_parts(evals, assessments, how.keep),
+        )
     }
+}
+
+/// How [`VariantSet::judge`] judges the variants at a point.
+#[derive(Clone, Copy, Default)]
+pub struct Judging<'a> {
+    /// Keep every variant's result (`RobustPoint::each`).
+    pub keep: bool,
+    /// Each variant's plant side at the point's rate and delay
+    /// (`PreparedLoop::hold_at`, built on first use), shared with the
+    /// other methods of a sweep group; None builds its own.
+    pub plants: Option<&'a LazyPlants<'a>>,
+    /// Search every variant's exact delay margin too (the recommended
+    /// rate: the worst-case figures then carry the smallest, `worst_of`).
+    pub exact_delay_margin: bool,
 }
 
 /// The plant side (`PreparedLoop::hold_at`) of each of several loops at
