@@ -116,9 +116,11 @@ pub fn ceiling_hz(budget: &Budget, cycles: f64) -> f64 {
 
 /// The slowest rate at or above `rate_hz` the timer can make
 /// (`timer_hz / N`, N a whole divider >= 1); None when even N = 1 is too
-/// slow.
+/// slow, or when the divider would pass 2^53, where a double no longer
+/// holds it exactly (a 1e300 Hz timer gave a divider saturated at 2^64
+/// and a rate of 5e280 Hz).
 pub fn timer_rate_at_least(timer_hz: f64, rate_hz: f64) -> Option<(f64, u64)> {
-    if rate_hz > timer_hz {
+    if rate_hz > timer_hz || timer_hz / rate_hz >= 2f64.powi(53) {
         return None;
     }
     let n = (timer_hz / rate_hz).floor().max(1.0) as u64;
@@ -311,5 +313,15 @@ mod tests {
         let (r, n) = timer_rate_at_least(170e6, 3000.0).unwrap();
         assert_eq!(n, 56_666);
         assert!(r >= 3000.0 && (r - 170e6 / 56_666.0).abs() < 1e-9);
+    }
+
+    /// A timer so fast that the divider no longer fits a double exactly
+    /// makes no rounded rate (it made 5e280 Hz of a 1 kHz request).
+    #[test]
+    fn a_divider_past_a_doubles_integers_is_no_timer_rate() {
+        assert_eq!(timer_rate_at_least(1e300, 1000.0), None);
+        assert_eq!(timer_rate_at_least(1e20, 1.0), None);
+        let (r, n) = timer_rate_at_least(2f64.powi(52), 1.0).unwrap();
+        assert_eq!((r, n), (1.0, 1u64 << 52));
     }
 }

@@ -638,7 +638,8 @@ fn recommend(case: &Case, pc: &PreparedCascade, chosen: &CascadeRow) -> Recommen
                 basis.push_str(&format!(", rounded up to the timer rate timer_hz / {d}"));
             }
             None => notes.push(format!(
-                "the timer ({timer} Hz) cannot make {} Hz: the rate is shown unrounded",
+                "the timer ({}) cannot make {} Hz: the rate is shown unrounded",
+                hz(timer),
                 sig4(rate)
             )),
         }

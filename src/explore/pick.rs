@@ -989,7 +989,8 @@ fn recommended_rate(
             let n = (timer / rate).round();
             if n < 1.0 || ((timer / n) - rate).abs() > 1e-9 * rate {
                 notes.push(format!(
-                    "the timer ({timer} Hz) cannot make exactly {rate} Hz"
+                    "the timer ({}) cannot make exactly {rate} Hz",
+                    hz(timer)
                 ));
             } else {
                 divider = Some(n as u64);
@@ -1002,7 +1003,8 @@ fn recommended_rate(
                 divider = Some(n);
             }
             None => notes.push(format!(
-                "the timer ({timer} Hz) cannot make {rate:.6} Hz: the rate is shown unrounded"
+                "the timer ({}) cannot make {rate:.6} Hz: the rate is shown unrounded",
+                hz(timer)
             )),
         }
     }
