@@ -482,10 +482,7 @@ pub fn worst_of(figs: &[&Figures]) -> Option<Figures> {
         phase_margin_deg: min_margin(&|f| f.phase_margin_deg),
         crossover_hz: by_pm.crossover_hz,
         // A margin not located on some variant leaves the worst unknown.
-        delay_margin_s: match figs
-            .iter()
-            .any(|f| f.delay_margin_s.is_none() && f.delay_margin_missing() == "not located")
-        {
+        delay_margin_s: match figs.iter().any(|f| f.delay_margin_not_located()) {
             true => None,
             false => min_margin(&|f| f.delay_margin_s),
         },

@@ -200,15 +200,22 @@ impl Figures {
     pub fn delay_margin_missing(&self) -> &'static str {
         if !self.delay_margin_searched {
             "not searched"
-        } else if self
-            .loop_notes
-            .iter()
-            .any(|n| n.starts_with("delay margin"))
-        {
+        } else if self.delay_margin_not_located() {
             "not located"
         } else {
             "inf"
         }
+    }
+
+    /// The exact delay margin was searched and the search gave up (its
+    /// note is among `loop_notes`).
+    pub fn delay_margin_not_located(&self) -> bool {
+        self.delay_margin_s.is_none()
+            && self.delay_margin_searched
+            && self
+                .loop_notes
+                .iter()
+                .any(|n| n.starts_with("delay margin"))
     }
 
     fn from_parts(step: &StepFigures, dist: &DisturbanceFigures, freq: &LoopFigures) -> Figures {

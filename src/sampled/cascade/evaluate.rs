@@ -651,10 +651,10 @@ impl PreparedCascade {
             return OuterOutcome::FailsSimulation(a);
         }
         let t = lifted.period_s;
-        let pulse = lifted.augmented();
+        let pulse = lifted.pulse();
         let l = |w: f64| {
             let z = C64::from_polar(1.0, w * t);
-            c.transfer.eval(z) * pulse.response_at(z, 0)
+            c.transfer.eval(z) * pulse.response(z)
         };
         let range = self.outer_range(inner, t);
         let freq = loop_figures(&l, &range);
@@ -728,10 +728,10 @@ impl PreparedCascade {
             let ticks = (d * n as f64).round().max(0.0) as usize;
             let whole = if ticks <= n { 0 } else { ticks.div_ceil(n) - 1 };
             let lifted = inner.lifted(n, ticks - whole * n, p.outer_hold, Rows::None);
-            let pulse = lifted.augmented();
+            let pulse = lifted.pulse();
             let l = |w: f64| {
                 let z = C64::from_polar(1.0, w * t_outer);
-                c.transfer.eval(z) * pulse.response_at(z, 0)
+                c.transfer.eval(z) * pulse.response(z)
             };
             Ok((fraction_of(&l, &range, t_outer, branch, d)?, whole as f64))
         };
