@@ -415,3 +415,60 @@ fn a_controller_far_faster_than_its_poles_matches_the_full_walk() {
         }
     }
 }
+
+/// Plant 1/(s/100 + 1)^8 (eight equal lags, a thermal chain's usual
+/// stand-in) under the PI controller 0.3 (s + 5)/s. Its closed-loop poles
+/// stay far apart in s (on a circle of radius about 86 rad/s around
+/// -100), but in the loop's balanced coordinates the modes' condition grew
+/// with the rate (4e4 at 1 kHz, 4e6 at 100 kHz, past the modal bound's
+/// limit), so from 100 kHz the figures fell to the walk and, past its
+/// budget, read undecided, and `pick` answered "none". Measured with the
+/// states rescaled to the eigenvectors (`certificate::Conditioning`), the
+/// condition stays of order 10.
+fn eight_lags() -> PreparedLoop {
+    let lag = Poly::from_descending(&[0.01, 1.0]);
+    let den = (1..8).fold(lag.clone(), |d, _| d.mul(&lag));
+    PreparedLoop::new(
+        &Transfer::new(Poly::constant(1.0), den),
+        &Transfer::gain(1.0),
+        &Controller::Continuous(transfer(&[0.3, 1.5], &[1.0, 0.0])),
+        None,
+        TimeOptions::default(),
+    )
+    .unwrap()
+}
+
+#[test]
+fn eight_equal_lags_at_fast_rates_match_the_full_walk_and_are_decided() {
+    let lp = eight_lags();
+    let at_rate = |rate_hz: f64| Point {
+        rate_hz,
+        method: Some(looprate::model::discretize::Method::Tustin),
+        delay: 0.0,
+        hold: looprate::spec::HoldKind::ZeroOrder,
+    };
+    for rate in [1e3, 1e5, 2e5] {
+        let at = format!("eight lags {rate} Hz");
+        let (j, w) = both_at(&lp, &at_rate(rate)).expect("stable, walkable");
+        compare(&j, &w, &at);
+    }
+    // Past the walk's budget: decided, and, by meaning, close to the
+    // continuous loop the sampled one tends to as the period shrinks
+    // (a period of 1 us against a settling time of about 3 s).
+    let sampled = lp.sampled(&at_rate(1e6)).figures.unwrap();
+    assert!(sampled.undecided.is_empty(), "{:?}", sampled.undecided);
+    let design = lp.design.as_ref().unwrap().figures.as_ref().unwrap();
+    let (a, b) = (
+        sampled.settling_time_s.unwrap(),
+        design.settling_time_s.unwrap(),
+    );
+    assert!(
+        (a - b).abs() <= 1e-3 * b,
+        "settling {a} s vs continuous {b} s"
+    );
+    assert!(
+        sampled.overshoot_pct.unwrap() <= 1e-6,
+        "{:?}",
+        sampled.overshoot_pct
+    );
+}

@@ -6,7 +6,7 @@ use nalgebra::DVector;
 use serde::Serialize;
 
 use crate::model::poly::C64;
-use crate::sampled::certificate::Certificate;
+use crate::sampled::certificate::{Certificate, Conditioning};
 use crate::sampled::closed_loop::ClosedLoop;
 use crate::sampled::hold::HoldEquivalent;
 use crate::sampled::output_map::{OutputMap, ROUNDING_MARGIN, crossing, mat_vec};
@@ -832,7 +832,8 @@ fn figures_from_ends(
     ends: Ends,
 ) -> (StepFigures, DisturbanceFigures) {
     let map = OutputMap::new(cl, hold);
-    let modal = Certificate::modal(cl, &map.bounded_rows(cl), poles);
+    let rows = map.bounded_rows(cl);
+    let modal = Certificate::modal(cl, &rows, poles, Conditioning::Balanced);
     // Without a modal form here, the controller's basis is tried before the
     // energy bound is built (that bound is only the last resort, and the
     // dearest: a doubling of dense products).
@@ -840,12 +841,17 @@ fn figures_from_ends(
         && let Some((moved, moved_poles, moved_ends)) = in_controller_basis(cl, &ends)
     {
         let map = OutputMap::new(&moved, hold);
-        let cert = Certificate::modal(&moved, &map.bounded_rows(&moved), &moved_poles);
+        let rows = map.bounded_rows(&moved);
+        let cert = Certificate::modal(&moved, &rows, &moved_poles, Conditioning::Balanced);
         if cert.is_some() {
             return figures_on(&moved, hold, poles, opts, moved_ends, &map, cert.as_ref());
         }
     }
-    let cert = modal.or_else(|| Certificate::energy(cl, &map.bounded_rows(cl)));
+    // Then the modes' condition measured with the states rescaled to their
+    // eigenvectors (`Conditioning::Rescaled`), last before the energy bound.
+    let cert = modal
+        .or_else(|| Certificate::modal(cl, &rows, poles, Conditioning::Rescaled))
+        .or_else(|| Certificate::energy(cl, &rows));
     figures_on(cl, hold, poles, opts, ends, &map, cert.as_ref())
 }
 
