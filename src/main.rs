@@ -58,14 +58,14 @@ enum Command {
         #[arg(long = "tf", hide = true)] // old name
         old_transfer: Option<String>,
         /// Loop rate, Hz.
-        #[arg(long)]
+        #[arg(long, allow_negative_numbers = true)]
         rate: f64,
         /// step-invariant, ramp-invariant, impulse-invariant, tustin, tustin-prewarped, pole-zero-match, forward-euler, backward-euler.
         #[arg(long)]
         method: String,
         /// Pre-warp frequency for tustin-prewarped, Hz (default with a case
         /// file: the case's own, else the continuous loop's crossover).
-        #[arg(long = "prewarp-hz")]
+        #[arg(long = "prewarp-hz", allow_negative_numbers = true)]
         prewarp_hz: Option<f64>,
         /// Print JSON (keys method, rate_hz, numerator, denominator, poles, zeros).
         #[arg(long)]
@@ -81,13 +81,13 @@ enum Command {
         /// The case file (TOML).
         case: PathBuf,
         /// Loop rate, Hz.
-        #[arg(long)]
+        #[arg(long, allow_negative_numbers = true)]
         rate: f64,
         /// Discretization method (not needed for a controller given in z).
         #[arg(long)]
         method: Option<String>,
         /// Computation delay in periods, any finite value >= 0 (default: the case's first).
-        #[arg(long)]
+        #[arg(long, allow_negative_numbers = true)]
         delay: Option<f64>,
         /// Actuator hold kind: zero-order, first-order or interpolating
         /// (default: the case's first).
@@ -109,7 +109,11 @@ enum Command {
         outer_method: Option<String>,
         /// Outer computation delay, a fraction of the outer period (default:
         /// the first of [outer.timing] compute_delay).
-        #[arg(long = "outer-delay", requires = "ratio")]
+        #[arg(
+            long = "outer-delay",
+            requires = "ratio",
+            allow_negative_numbers = true
+        )]
         outer_delay: Option<f64>,
         /// Outer hold: how the outer command is shaped as the inner loop's
         /// reference between outer updates, `zero-order`, `first-order` or

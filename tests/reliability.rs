@@ -148,7 +148,9 @@ fn inputs_that_hung_now_fail_fast_naming_the_field() {
     assert_eq!(r.code, 2, "{}", r.stderr);
     assert!(r.stderr.contains("--transfer"), "{}", r.stderr);
     let base = write_case(&dir, "base", &case_text(PLANT, "1", CONTROLLER, ""));
-    for rate in ["1e-38", "1e-40", "1e-300", "2e9"] {
+    // A negative rate gets the same range message as a tiny one, not a
+    // complaint about an unexpected argument.
+    for rate in ["1e-38", "1e-40", "1e-300", "2e9", "-5"] {
         let r = run(&["eval", &base, "--rate", rate]);
         assert_eq!(r.code, 2, "eval --rate {rate}: {}", r.stderr);
         assert!(r.stderr.contains("--rate"), "{}", r.stderr);
@@ -165,6 +167,9 @@ fn inputs_that_hung_now_fail_fast_naming_the_field() {
         ]);
         assert_eq!(r.code, 2, "discretize --rate {rate}: {}", r.stderr);
     }
+    let r = run(&["eval", &base, "--rate", "100", "--delay", "-1"]);
+    assert_eq!(r.code, 2, "eval --delay -1: {}", r.stderr);
+    assert!(r.stderr.contains("--delay must be"), "{}", r.stderr);
     // The slowest and fastest accepted rates still evaluate, and quickly.
     for rate in ["1e-6", "1e9"] {
         let r = run(&["eval", &base, "--rate", rate, "--method", "step-invariant"]);
