@@ -942,7 +942,7 @@ fn cascade_advice(
             .iter()
             .filter_map(|r| r.inner_verdict.limiting)
             .next()
-            .map_or("stability", |l| l.label());
+            .map_or("stability".into(), |l| l.label());
         out.push(format!(
             "the inner loop meets its spec at no inner rate checked (limiting: {limiting}): run the single-loop pick on the inner loop, loosen [spec] or raise [rates] max_hz"
         ));
@@ -958,7 +958,7 @@ fn cascade_advice(
             "the outer loop meets its spec at no pair where the inner loop passes; the closest is inner {}, ratio {} (limiting: {}, slack {} %): a smaller ratio (add one to [outer.rates] ratios), a looser [outer.spec], another outer method or a shorter outer delay",
             hz(r.point.inner.rate_hz),
             r.point.ratio,
-            v.limiting.map_or("stability", |l| l.label()),
+            v.limiting.map_or("stability".into(), |l| l.label()),
             sig4(v.slack * 100.0)
         )),
         None => out.push(

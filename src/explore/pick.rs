@@ -749,7 +749,7 @@ fn search(
                 (None, lim) => format!(
                     "computation delay {}: the controller given in z fails the spec at its rate {own} Hz ({})",
                     m.compute_delay,
-                    lim.map_or("?", |l| l.label())
+                    lim.map_or("?".into(), |l| l.label())
                 ),
             });
         }
@@ -1536,7 +1536,7 @@ fn empty_window_advice(
                 m.method == r.method && m.hold == r.hold && m.compute_delay == r.compute_delay
             })
             .and_then(|m| m.limiting)
-            .map_or("", |l| l.label());
+            .map_or("".into(), |l| l.label());
         out.push(format!(
             "a looser spec: the {lim} is what sets the slowest rate"
         ));

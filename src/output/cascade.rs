@@ -279,7 +279,7 @@ fn report_blocks(
             } else {
                 format!(
                     "fails (limiting: {})",
-                    a.limiting.map_or("stability", |l| l.label())
+                    a.limiting.map_or("stability".into(), |l| l.label())
                 )
             }
         };

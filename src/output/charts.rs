@@ -784,7 +784,7 @@ fn step_response(inp: &Inputs) -> Option<Figure> {
     // curve: their labels give the figure that decides between them.
     let limiting = assess(&fail_eval, spec).limiting;
     let def = match limiting {
-        Some(Limiting::Figure(f)) => Some(f),
+        Some(Limiting::Figure(f) | Limiting::Undecided(f)) => Some(f),
         _ => None,
     };
     let value = |e: &Evaluation| {

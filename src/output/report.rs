@@ -820,11 +820,11 @@ fn blocks(
                                 (Some(h), false) => format!(
                                     "{} (then {})",
                                     hz(h),
-                                    c.ceiling.limiting.map_or("?", |l| l.label())
+                                    c.ceiling.limiting.map_or("?".into(), |l| l.label())
                                 ),
                                 (None, _) => format!(
                                     "none ({})",
-                                    c.ceiling.limiting.map_or("?", |l| l.label())
+                                    c.ceiling.limiting.map_or("?".into(), |l| l.label())
                                 ),
                             }
                         });

@@ -8,7 +8,7 @@
 use serde::Serialize;
 
 use crate::sampled::evaluate::{Evaluation, Figures, Status};
-use crate::sampled::figure::{Figure, Limiting};
+use crate::sampled::figure::{Figure, Limiting, Missing};
 use crate::spec::Spec;
 
 /// Slack given to a loop that is not stable, or could not be evaluated:
@@ -62,6 +62,19 @@ pub fn check_figures(f: &Figures, spec: &Spec) -> Vec<LimitCheck> {
         .collect()
 }
 
+impl LimitCheck {
+    /// What this check, taken as the least slack, says limits the loop:
+    /// its figure, or the figure left undecided (no value because the
+    /// bounded time search could not decide it).
+    pub fn limiting(&self, f: &Figures) -> Limiting {
+        if self.value.is_none() && self.figure.missing(f) == Missing::Undecided {
+            Limiting::Undecided(self.figure)
+        } else {
+            Limiting::Figure(self.figure)
+        }
+    }
+}
+
 /// The verdict on an evaluation.
 pub fn assess(e: &Evaluation, spec: &Spec) -> Assessment {
     let Some(f) = (e.status == Status::Ok)
@@ -79,8 +92,84 @@ pub fn assess(e: &Evaluation, spec: &Spec) -> Assessment {
     let worst = checks.iter().min_by(|a, b| a.slack.total_cmp(&b.slack));
     Assessment {
         feasible: checks.iter().all(|c| c.pass),
-        limiting: worst.map(|c| Limiting::Figure(c.figure)),
+        limiting: worst.map(|c| c.limiting(f)),
         slack: worst.map_or(1e6, |c| c.slack.clamp(UNSTABLE_SLACK, 1e6)),
         checks,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::sampled::evaluate::Evaluation;
+    use crate::sampled::time_response::TimeFigure;
+
+    fn spec() -> Spec {
+        Spec {
+            max_overshoot_pct: Some(20.0),
+            max_settling_s: None,
+            settling_band_pct: 2.0,
+            min_phase_margin_deg: Some(45.0),
+            min_gain_margin_db: None,
+            max_sensitivity_peak: None,
+            max_rise_s: None,
+            max_recovery_s: None,
+            max_disturbance_peak: None,
+            max_u_peak: None,
+            headroom: 1.25,
+        }
+    }
+
+    fn figures(overshoot_pct: Option<f64>, undecided: Vec<TimeFigure>) -> Figures {
+        Figures {
+            y_final: 1.0,
+            overshoot_pct,
+            settling_time_s: Some(0.1),
+            rise_time_s: Some(0.01),
+            disturbance_peak: 0.5,
+            recovery_time_s: Some(0.2),
+            u_peak: 1.0,
+            gain_margin_db: Some(12.0),
+            phase_margin_deg: Some(60.0),
+            crossover_hz: Some(10.0),
+            delay_margin_s: None,
+            delay_margin_estimate_s: Some(0.01),
+            sensitivity_peak: 1.3,
+            horizon_s: 1.0,
+            undecided,
+            delay_margin_searched: false,
+            not_computed: Vec::new(),
+            loop_notes: Vec::new(),
+        }
+    }
+
+    fn evaluation(f: Figures) -> Evaluation {
+        Evaluation {
+            status: Status::Ok,
+            stable: true,
+            figures: Some(f),
+            closed_loop_poles: vec![[0.5, 0.0]],
+            loop_detail: None,
+        }
+    }
+
+    #[test]
+    fn an_undecided_figure_limits_as_undecided_not_as_over_its_limit() {
+        // Overshoot 30 % against max 20 %: the figure limits.
+        let over = assess(&evaluation(figures(Some(30.0), Vec::new())), &spec());
+        assert!(!over.feasible);
+        assert_eq!(over.limiting, Some(Limiting::Figure(Figure::Overshoot)));
+        // No value because the search could not decide it: the verdict
+        // still fails (nothing proves the limit met), and says why.
+        let open = assess(
+            &evaluation(figures(None, vec![TimeFigure::Overshoot])),
+            &spec(),
+        );
+        assert!(!open.feasible);
+        let l = open.limiting.unwrap();
+        assert_eq!(l, Limiting::Undecided(Figure::Overshoot));
+        assert_eq!(l.label(), "overshoot undecided");
+        // Files keep the figure's key.
+        assert_eq!(l.key(), Figure::Overshoot.key());
     }
 }

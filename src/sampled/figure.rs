@@ -517,6 +517,11 @@ impl Serialize for Figure {
 pub enum Limiting {
     /// A figure at its limit (the least slack).
     Figure(Figure),
+    /// A time figure the spec limits that the bounded time search left
+    /// undecided (`docs/figures.md`, "Undecided"): the verdict fails for
+    /// want of an answer, not because the figure was seen over its limit.
+    /// Files carry the figure's key (its own column reads `undecided`).
+    Undecided(Figure),
     /// The loop is not stable, or could not be evaluated.
     Stability,
     /// Rounding changed what the controller is.
@@ -531,7 +536,7 @@ impl Limiting {
     /// Key in files: a figure's key, or the failure's name.
     pub fn key(self) -> &'static str {
         match self {
-            Limiting::Figure(f) => f.key(),
+            Limiting::Figure(f) | Limiting::Undecided(f) => f.key(),
             Limiting::Stability => "stability",
             Limiting::Rounding(s) => s.key(),
             Limiting::Coefficients => "coefficients",
@@ -540,13 +545,14 @@ impl Limiting {
     }
 
     /// Name in words for tables and the report.
-    pub fn label(self) -> &'static str {
+    pub fn label(self) -> std::borrow::Cow<'static, str> {
         match self {
-            Limiting::Figure(f) => f.label(),
-            Limiting::Stability => "stability",
-            Limiting::Rounding(s) => s.label(),
-            Limiting::Coefficients => "coefficient word",
-            Limiting::Controller => "controller",
+            Limiting::Figure(f) => f.label().into(),
+            Limiting::Undecided(f) => format!("{} undecided", f.label()).into(),
+            Limiting::Stability => "stability".into(),
+            Limiting::Rounding(s) => s.label().into(),
+            Limiting::Coefficients => "coefficient word".into(),
+            Limiting::Controller => "controller".into(),
         }
     }
 
