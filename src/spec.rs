@@ -153,6 +153,26 @@ pub struct Spec {
     pub headroom: f64,
 }
 
+impl Spec {
+    /// A spec with no limit: the default settling band (2 %) and headroom
+    /// (1.25), what a case without `[spec]` asks.
+    pub fn unlimited() -> Spec {
+        Spec {
+            max_overshoot_pct: None,
+            max_settling_s: None,
+            settling_band_pct: 2.0,
+            min_phase_margin_deg: None,
+            min_gain_margin_db: None,
+            max_sensitivity_peak: None,
+            max_rise_s: None,
+            max_recovery_s: None,
+            max_disturbance_peak: None,
+            max_u_peak: None,
+            headroom: 1.25,
+        }
+    }
+}
+
 /// How the cost of one controller update is given.
 #[derive(Debug, Clone, PartialEq)]
 pub enum Cycles {

@@ -1360,19 +1360,7 @@ fn methods_from(
 
 fn spec_from(ctx: &Ctx, raw: Option<RawSpec>) -> Result<Spec, CaseError> {
     let Some(raw) = raw else {
-        return Ok(Spec {
-            max_overshoot_pct: None,
-            max_settling_s: None,
-            settling_band_pct: 2.0,
-            min_phase_margin_deg: None,
-            min_gain_margin_db: None,
-            max_sensitivity_peak: None,
-            max_rise_s: None,
-            max_recovery_s: None,
-            max_disturbance_peak: None,
-            max_u_peak: None,
-            headroom: 1.25,
-        });
+        return Ok(Spec::unlimited());
     };
     let non_negative = |name: &str, v: Option<f64>| -> Result<Option<f64>, CaseError> {
         v.map(|v| ctx.number(&format!("spec.{name}"), v, |v| v >= 0.0, "zero or more"))

@@ -107,16 +107,8 @@ mod tests {
     fn spec() -> Spec {
         Spec {
             max_overshoot_pct: Some(20.0),
-            max_settling_s: None,
-            settling_band_pct: 2.0,
             min_phase_margin_deg: Some(45.0),
-            min_gain_margin_db: None,
-            max_sensitivity_peak: None,
-            max_rise_s: None,
-            max_recovery_s: None,
-            max_disturbance_peak: None,
-            max_u_peak: None,
-            headroom: 1.25,
+            ..Spec::unlimited()
         }
     }
 
